@@ -1,0 +1,353 @@
+"""Degradation trends of a whole fleet of capacitors at once, and remaining life.
+
+Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
+1. Each reading's capacitance is referred to 25 C and divided by the rated value.
+2. Time is stress-equivalent hours: the sum of calendar intervals times the
+   acceleration factor of the interval's case temperature and capacitor voltage.
+3. Each capacitor's path z = b0 + b1 tau (z = C/C_rated, or its log for the
+   log-linear model) is fitted as a Bayesian linear regression whose prior is its
+   part's population of paths (empirical Bayes: the prior mean and spread are
+   estimated from the capacitors of that part with enough readings). A capacitor
+   with one or two readings thus gets its part's slope, and says so.
+4. A stray reading (a unit slip, the wrong capacitor) is flagged when it sits more
+   than `outlier_sigma` noise deviations off its capacitor's fit, and the fit is
+   redone without it; one reading per capacitor per pass, two passes.
+5. The stress time at which the path crosses the limit is a random variable
+   through (b0, b1); its quantiles solve (L - b0 - b1 t) = z_p sd(b0 + b1 t),
+   a quadratic in t, so every quantile of every capacitor comes in closed form.
+
+All arrays are "long": one entry per reading, with `group` the capacitor's index
+0..G-1, and per-capacitor arrays of length G. No loop runs over capacitors.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import ndtri
+
+from .capacitor import acceleration_factor, normalise_to_25c
+
+MODEL_LINEAR = "linear"
+MODEL_LOG = "log-linear"
+
+
+@dataclass(frozen=True)
+class TrendSettings:
+    """Constants of the ageing model; all from the primer, all adjustable."""
+
+    tempco_ppm_per_k: float = -200.0
+    reference_temperature_c: float = 40.0
+    doubling_k: float = 10.0
+    voltage_exponent: float = 10.0
+    outlier_sigma: float = 4.0
+    outlier_floor_fraction: float = 0.03  # never flag a miss smaller than 3 % of rated
+    noise_floor_fraction: float = 0.004  # meter resolution floor for the noise sd
+    slope_prior_sd_floor: float = 2e-8  # per stress hour (0.002 % of rated per 1000 h)
+    min_readings_for_confidence: int = 3
+    model: str = "auto"  # "linear", "log-linear" or "auto" (per part, smaller noise)
+
+
+@dataclass(frozen=True)
+class TrendFit:
+    """Per-capacitor results (length G) and per-reading flags (length N)."""
+
+    model: np.ndarray  # MODEL_* per capacitor
+    intercept: np.ndarray  # z at tau = 0
+    slope_per_hour: np.ndarray  # dz / d(stress hour)
+    intercept_sd: np.ndarray
+    slope_sd: np.ndarray
+    covariance: np.ndarray  # (G, 2, 2) posterior covariance of (b0, b1)
+    noise_sd: np.ndarray  # per capacitor (its part's pooled value), z units
+    readings_used: np.ndarray
+    readings_flagged: np.ndarray
+    low_confidence: np.ndarray
+    stress_hours_now: np.ndarray  # tau at the newest reading
+    stress_rate: np.ndarray  # stress hours per calendar hour, recent conditions
+    fraction_now: np.ndarray  # fitted C/C_rated at the newest reading
+    flagged: np.ndarray  # per reading
+    stress_hours: np.ndarray  # per reading
+    fraction_25c: np.ndarray  # per reading, C(25 C)/C_rated
+
+    def to_z(self, fraction):
+        fraction = np.asarray(fraction, float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(self.model == MODEL_LOG, np.log(fraction), fraction)
+
+    def from_z(self, z):
+        return np.where(self.model == MODEL_LOG, np.exp(z), z)
+
+    def predict(self, stress_hours):
+        """Fitted C/C_rated at given stress hours (broadcast per capacitor)."""
+        return self.from_z(self.intercept + self.slope_per_hour * stress_hours)
+
+
+def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings):
+    """Cumulative stress-equivalent hours per reading; input sorted by group, time.
+
+    Interval i uses the mean acceleration of its two end readings; the first
+    interval (fitting to first reading) uses the first reading's.
+    """
+    factor = acceleration_factor(
+        temperature_c,
+        voltage_v,
+        settings.reference_temperature_c,
+        rated_voltage_v,
+        settings.doubling_k,
+        settings.voltage_exponent,
+    )
+    first = np.r_[True, group[1:] != group[:-1]]
+    previous_time = np.where(first, 0.0, np.r_[0.0, time_h[:-1]])
+    previous_factor = np.where(first, factor, np.r_[factor[:1], factor[:-1]])
+    increment = (time_h - previous_time) * 0.5 * (factor + previous_factor)
+    total = np.cumsum(increment)
+    group_start = np.flatnonzero(first)
+    offset = np.repeat(total[group_start] - increment[group_start], np.diff(np.r_[group_start, len(group)]))
+    tau = total - offset
+    recent_rate = np.where(first, factor, 0.5 * (factor + previous_factor))
+    last_index = np.r_[group_start[1:] - 1, len(group) - 1]
+    rate = np.full(n_groups, 1.0)
+    rate[group[last_index]] = recent_rate[last_index]
+    return tau, rate
+
+
+def _group_sums(group, x, z, weight, n_groups):
+    def s(values):
+        return np.bincount(group, weights=weight * values, minlength=n_groups)
+
+    return s(np.ones_like(x)), s(x), s(z), s(x * x), s(x * z)
+
+
+def _ols(n, sx, sz, sxx, sxz):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sxx_c = sxx - sx * sx / n
+        slope = (sxz - sx * sz / n) / sxx_c
+        intercept = (sz - slope * sx) / n
+    return intercept, slope, sxx_c
+
+
+def fit_trends(
+    group,
+    part,
+    time_h,
+    capacitance_uf,
+    rated_uf,
+    temperature_c,
+    voltage_v,
+    rated_voltage_v,
+    settings: TrendSettings | None = None,
+    excluded=None,
+) -> TrendFit:
+    """Fit every capacitor's path at once.
+
+    group, time_h, capacitance_uf, temperature_c, voltage_v, excluded: per reading
+    (time_h = calendar hours since the capacitor was fitted). part, rated_uf,
+    rated_voltage_v: per capacitor. `excluded` marks readings a person already
+    set aside (superseded); they are neither fitted nor flagged.
+    """
+    settings = settings or TrendSettings()
+    group = np.asarray(group, np.int64)
+    part = np.asarray(part, np.int64)
+    n_groups, n_parts = len(part), int(part.max()) + 1 if len(part) else 0
+    order = np.lexsort((np.asarray(time_h, float), group))
+    inverse = np.empty_like(order)
+    inverse[order] = np.arange(len(order))
+    g = group[order]
+    t = np.asarray(time_h, float)[order]
+    rated_uf = np.asarray(rated_uf, float)
+    fraction = normalise_to_25c(
+        np.asarray(capacitance_uf, float)[order], np.asarray(temperature_c, float)[order], settings.tempco_ppm_per_k
+    ) / rated_uf[g]
+    tau, rate = stress_hours(
+        g, t, np.asarray(temperature_c, float)[order], np.asarray(voltage_v, float)[order],
+        np.asarray(rated_voltage_v, float)[g], n_groups, settings,
+    )
+    keep = np.ones(len(g), bool) if excluded is None else ~np.asarray(excluded, bool)[order]
+    keep &= np.isfinite(fraction) & (fraction > 0)
+
+    fits = {}
+    for model in (MODEL_LINEAR, MODEL_LOG):
+        if settings.model not in ("auto", model):
+            continue
+        z = np.log(np.where(fraction > 0, fraction, np.nan)) if model == MODEL_LOG else fraction
+        fits[model] = _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, model == MODEL_LOG)
+    if len(fits) == 1:
+        chosen = np.full(n_parts, next(iter(fits)))
+    else:
+        # Compare the noise in fraction units (log residuals scale by ~1/fraction).
+        linear_noise = fits[MODEL_LINEAR]["part_noise_sd"]
+        log_noise = fits[MODEL_LOG]["part_noise_sd"] * fits[MODEL_LOG]["part_mean_fraction"]
+        chosen = np.where(log_noise < 0.9 * linear_noise, MODEL_LOG, MODEL_LINEAR)
+    model_per_group = chosen[part] if n_groups else np.array([], dtype=object)
+    use_log = model_per_group == MODEL_LOG
+
+    def pick(name):
+        if len(fits) == 1:
+            return next(iter(fits.values()))[name]
+        a, b = fits[MODEL_LINEAR][name], fits[MODEL_LOG][name]
+        mask = use_log if a.shape[0] == n_groups else use_log[g]
+        mask = mask.reshape(mask.shape + (1,) * (a.ndim - 1))
+        return np.where(mask, b, a)
+
+    intercept, slope, cov = pick("intercept"), pick("slope"), pick("covariance")
+    noise_sd, used, flagged = pick("noise_sd"), pick("used"), pick("flagged")
+    last = np.r_[np.flatnonzero(g[1:] != g[:-1]), len(g) - 1] if len(g) else np.array([], int)
+    tau_now = np.zeros(n_groups)
+    tau_now[g[last]] = tau[last]
+    z_now = intercept + slope * tau_now
+    fraction_now = np.where(use_log, np.exp(z_now), z_now)
+    readings_used = np.bincount(g, weights=used.astype(float), minlength=n_groups).astype(int)
+    return TrendFit(
+        model=model_per_group,
+        intercept=intercept,
+        slope_per_hour=slope,
+        intercept_sd=np.sqrt(cov[:, 0, 0]),
+        slope_sd=np.sqrt(cov[:, 1, 1]),
+        covariance=cov,
+        noise_sd=noise_sd,
+        readings_used=readings_used,
+        readings_flagged=np.bincount(g, weights=flagged.astype(float), minlength=n_groups).astype(int),
+        low_confidence=readings_used < settings.min_readings_for_confidence,
+        stress_hours_now=tau_now,
+        stress_rate=rate,
+        fraction_now=fraction_now,
+        flagged=flagged[inverse],
+        stress_hours=tau[inverse],
+        fraction_25c=fraction[inverse],
+    )
+
+
+def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_log):
+    """One model (linear or log-linear) for the fleet: prior, posterior, flags."""
+    flagged = np.zeros(len(g), bool)
+    floor_z = settings.outlier_floor_fraction
+    for _ in range(3):  # fit, flag, refit, flag, final fit
+        used = keep & ~flagged & np.isfinite(z)
+        w = used.astype(float)
+        z_safe = np.where(used, z, 0.0)
+        n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
+        b0_ols, b1_ols, sxx_c = _ols(n, sx, sz, sxx, sxz)
+        rich = (n >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
+        # Noise per part from within-capacitor OLS residuals of the rich capacitors.
+        resid = np.where(used & rich[g], z_safe - (b0_ols[g] + b1_ols[g] * tau), 0.0)
+        ss = np.bincount(part[g], weights=resid**2, minlength=n_parts)
+        dof = np.bincount(part, weights=np.where(rich, n - 2, 0.0), minlength=n_parts)
+        fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
+        with np.errstate(invalid="ignore", divide="ignore"):
+            noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
+        noise_var = np.maximum(noise_var, settings.noise_floor_fraction**2)
+        # Population of paths per part (method of moments, clipped).
+        se_b0 = noise_var[part] * np.where(rich, sxx / np.where(rich, n * sxx_c, 1.0), np.nan)
+        se_b1 = noise_var[part] * np.where(rich, 1.0 / np.where(rich, sxx_c, 1.0), np.nan)
+        prior_mean0, prior_var0 = _part_moments(
+            part, n_parts, b0_ols, se_b0, rich,
+            floor=1e-6, default_mean=0.0 if is_log else 1.0, default_var=0.05**2,
+        )
+        prior_mean1, prior_var1 = _part_moments(
+            part, n_parts, b1_ols, se_b1, rich,
+            floor=settings.slope_prior_sd_floor**2, default_mean=0.0, default_var=1e-5**2,
+        )
+        # Posterior per capacitor: precision = prior precision + X'X / sigma^2.
+        s2 = noise_var[part]
+        p00 = 1.0 / prior_var0[part] + n / s2
+        p01 = sx / s2
+        p11 = 1.0 / prior_var1[part] + sxx / s2
+        r0 = prior_mean0[part] / prior_var0[part] + sz / s2
+        r1 = prior_mean1[part] / prior_var1[part] + sxz / s2
+        det = p00 * p11 - p01 * p01
+        cov = np.empty((n_groups, 2, 2))
+        cov[:, 0, 0], cov[:, 1, 1] = p11 / det, p00 / det
+        cov[:, 0, 1] = cov[:, 1, 0] = -p01 / det
+        b0 = (p11 * r0 - p01 * r1) / det
+        b1 = (p00 * r1 - p01 * r0) / det
+        # Flag the worst reading of each capacitor if it is far off its path.
+        miss = np.where(used, np.abs(z_safe - (b0[g] + b1[g] * tau)), 0.0)
+        miss_fraction = np.exp(np.abs(miss)) - 1.0 if is_log else miss
+        limit = np.maximum(settings.outlier_sigma * np.sqrt(s2[g]), floor_z)
+        candidate = (miss > limit) & (miss_fraction > floor_z)
+        worst = np.full(n_groups, -1.0)
+        np.maximum.at(worst, g, np.where(candidate, miss, -1.0))
+        new_flags = candidate & (miss == worst[g])
+        if not new_flags.any():
+            break
+        flagged |= new_flags
+    mean_fraction = np.bincount(part[g], weights=np.where(used, fraction, 0.0), minlength=n_parts)
+    count = np.bincount(part[g], weights=used.astype(float), minlength=n_parts)
+    return {
+        "intercept": b0,
+        "slope": b1,
+        "covariance": cov,
+        "noise_sd": np.sqrt(s2),
+        "used": used,
+        "flagged": flagged,
+        "part_noise_sd": np.sqrt(noise_var),
+        "part_mean_fraction": np.where(count > 0, mean_fraction / np.maximum(count, 1), 1.0),
+    }
+
+
+def _part_moments(part, n_parts, estimate, sampling_var, rich, floor, default_mean, default_var):
+    """Population mean and between-capacitor variance of an estimate, per part.
+
+    DerSimonian-Laird: with weights w = 1/se^2, Q = sum w (b - b_w)^2 and
+    tau^2 = (Q - (k - 1)) / (sum w - sum w^2 / sum w), never below `floor`; the
+    mean is then re-weighted by 1/(se^2 + tau^2). It copes with sampling errors
+    that differ a hundredfold between capacitors with 3 and 12 readings. Parts
+    with fewer than five rich capacitors borrow the fleet's figures; a fleet with
+    fewer than two falls back to the broad defaults.
+    """
+
+    def pooled(index, n_bins):
+        w = np.where(rich, 1.0 / np.where(rich, sampling_var, 1.0), 0.0)
+        est = np.where(rich, estimate, 0.0)
+        k = np.bincount(index, weights=rich.astype(float), minlength=n_bins)
+        sw = np.bincount(index, weights=w, minlength=n_bins)
+        sw2 = np.bincount(index, weights=w * w, minlength=n_bins)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean_w = np.bincount(index, weights=w * est, minlength=n_bins) / sw
+            q = np.bincount(index, weights=w * (est - mean_w[index]) ** 2, minlength=n_bins)
+            tau2 = np.maximum((q - (k - 1)) / (sw - sw2 / sw), floor)
+            w_star = np.where(rich, 1.0 / (np.where(rich, sampling_var, 1.0) + tau2[index]), 0.0)
+            mean = np.bincount(index, weights=w_star * est, minlength=n_bins) / np.bincount(
+                index, weights=w_star, minlength=n_bins
+            )
+        return mean, tau2, k
+
+    mean, tau2, count = pooled(part, n_parts)
+    if rich.sum() >= 2:
+        fleet_mean, fleet_tau2, _ = pooled(np.zeros_like(part), 1)
+        fleet_mean, fleet_var = fleet_mean[0], fleet_tau2[0]
+    else:
+        fleet_mean, fleet_var = default_mean, default_var
+    enough = count >= 5
+    return np.where(enough, mean, fleet_mean), np.maximum(np.where(enough, tau2, fleet_var), floor)
+
+
+def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0.9)):
+    """Stress hours (from tau = 0) at which each path reaches its limit, per quantile.
+
+    P(crossed by t) = Phi((L - m0 - m1 t) / s(t)), s(t)^2 = v00 + 2 t v01 + t^2 v11.
+    The p-quantile solves (L - m0 - m1 t) = z_p s(t); squaring gives a quadratic
+    whose admissible root is the smallest one at which that probability is
+    rising. No such root (a slope not surely falling): inf. A root before tau = 0
+    (limit already behind): 0. Shape (len(probabilities), G).
+    """
+    d = fit.to_z(limit_fraction) - fit.intercept
+    m1 = fit.slope_per_hour
+    v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
+    rows = []
+    for p in probabilities:
+        zp = float(ndtri(p))
+        qa = m1 * m1 - zp * zp * v11
+        qb = -2.0 * (d * m1 + zp * zp * v01)
+        qc = d * d - zp * zp * v00
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            disc = qb * qb - 4.0 * qa * qc
+            root_disc = np.sqrt(np.maximum(disc, 0.0))
+            roots = np.stack([(-qb - root_disc) / (2.0 * qa), (-qb + root_disc) / (2.0 * qa)])
+            var_t = np.maximum(v00 + 2.0 * roots * v01 + roots * roots * v11, 1e-300)
+            g = (d - m1 * roots) / np.sqrt(var_t)
+            rising = -m1 * var_t - (d - m1 * roots) * (v01 + roots * v11) > 0
+            admissible = (disc >= 0) & np.isfinite(roots) & rising & (np.abs(g - zp) <= 1e-6 * (1 + abs(zp)))
+        rows.append(np.min(np.where(admissible, roots, np.inf), axis=0))
+    return np.maximum(np.stack(rows), 0.0)
