@@ -50,6 +50,19 @@ class TrendSettings:
 
 
 @dataclass(frozen=True)
+class PartPriors:
+    """Each part's population of paths (length P arrays), in its model's z units."""
+
+    model: np.ndarray
+    intercept_mean: np.ndarray
+    intercept_var: np.ndarray
+    slope_mean: np.ndarray
+    slope_var: np.ndarray
+    noise_var: np.ndarray
+    capacitors: np.ndarray  # capacitors with enough readings behind the estimate
+
+
+@dataclass(frozen=True)
 class TrendFit:
     """Per-capacitor results (length G) and per-reading flags (length N)."""
 
@@ -69,6 +82,7 @@ class TrendFit:
     flagged: np.ndarray  # per reading
     stress_hours: np.ndarray  # per reading
     fraction_25c: np.ndarray  # per reading, C(25 C)/C_rated
+    priors: PartPriors
 
     def to_z(self, fraction):
         fraction = np.asarray(fraction, float)
@@ -138,18 +152,25 @@ def fit_trends(
     rated_voltage_v,
     settings: TrendSettings | None = None,
     excluded=None,
+    priors: PartPriors | None = None,
 ) -> TrendFit:
     """Fit every capacitor's path at once.
 
     group, time_h, capacitance_uf, temperature_c, voltage_v, excluded: per reading
     (time_h = calendar hours since the capacitor was fitted). part, rated_uf,
     rated_voltage_v: per capacitor. `excluded` marks readings a person already
-    set aside (superseded); they are neither fitted nor flagged.
+    set aside (superseded); they are neither fitted nor flagged. With `priors`
+    (from an earlier fleet-wide fit) the parts' populations are taken as given,
+    so a handful of capacitors can be refitted alone.
     """
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
     part = np.asarray(part, np.int64)
-    n_groups, n_parts = len(part), int(part.max()) + 1 if len(part) else 0
+    n_groups = len(part)
+    if priors is not None:
+        n_parts = len(priors.model)
+    else:
+        n_parts = int(part.max()) + 1 if n_groups else 0
     order = np.lexsort((np.asarray(time_h, float), group))
     inverse = np.empty_like(order)
     inverse[order] = np.arange(len(order))
@@ -167,12 +188,15 @@ def fit_trends(
     keep &= np.isfinite(fraction) & (fraction > 0)
 
     fits = {}
+    wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}
     for model in (MODEL_LINEAR, MODEL_LOG):
-        if settings.model not in ("auto", model):
+        if settings.model not in ("auto", model) or model not in wanted:
             continue
         z = np.log(np.where(fraction > 0, fraction, np.nan)) if model == MODEL_LOG else fraction
-        fits[model] = _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, model == MODEL_LOG)
-    if len(fits) == 1:
+        fits[model] = _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, model == MODEL_LOG, priors)
+    if priors is not None:
+        chosen = np.asarray(priors.model)
+    elif len(fits) == 1:
         chosen = np.full(n_parts, next(iter(fits)))
     else:
         # Compare the noise in fraction units (log residuals scale by ~1/fraction).
@@ -182,16 +206,16 @@ def fit_trends(
     model_per_group = chosen[part] if n_groups else np.array([], dtype=object)
     use_log = model_per_group == MODEL_LOG
 
-    def pick(name):
+    def pick(name, per="group"):
         if len(fits) == 1:
             return next(iter(fits.values()))[name]
         a, b = fits[MODEL_LINEAR][name], fits[MODEL_LOG][name]
-        mask = use_log if a.shape[0] == n_groups else use_log[g]
+        mask = {"group": use_log, "reading": use_log[g], "part": chosen == MODEL_LOG}[per]
         mask = mask.reshape(mask.shape + (1,) * (a.ndim - 1))
         return np.where(mask, b, a)
 
     intercept, slope, cov = pick("intercept"), pick("slope"), pick("covariance")
-    noise_sd, used, flagged = pick("noise_sd"), pick("used"), pick("flagged")
+    noise_sd, used, flagged = pick("noise_sd"), pick("used", "reading"), pick("flagged", "reading")
     last = np.r_[np.flatnonzero(g[1:] != g[:-1]), len(g) - 1] if len(g) else np.array([], int)
     tau_now = np.zeros(n_groups)
     tau_now[g[last]] = tau[last]
@@ -215,10 +239,14 @@ def fit_trends(
         flagged=flagged[inverse],
         stress_hours=tau[inverse],
         fraction_25c=fraction[inverse],
+        priors=PartPriors(
+            model=chosen,
+            **{name: pick(name, "part") for name in ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "capacitors")},
+        ),
     )
 
 
-def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_log):
+def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_log, priors=None):
     """One model (linear or log-linear) for the fleet: prior, posterior, flags."""
     flagged = np.zeros(len(g), bool)
     floor_z = settings.outlier_floor_fraction
@@ -237,6 +265,8 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         with np.errstate(invalid="ignore", divide="ignore"):
             noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
         noise_var = np.maximum(noise_var, settings.noise_floor_fraction**2)
+        if priors is not None:
+            noise_var = np.asarray(priors.noise_var, float)
         # Population of paths per part (method of moments, clipped).
         se_b0 = noise_var[part] * np.where(rich, sxx / np.where(rich, n * sxx_c, 1.0), np.nan)
         se_b1 = noise_var[part] * np.where(rich, 1.0 / np.where(rich, sxx_c, 1.0), np.nan)
@@ -248,6 +278,9 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
             part, n_parts, b1_ols, se_b1, rich,
             floor=settings.slope_prior_sd_floor**2, default_mean=0.0, default_var=1e-5**2,
         )
+        if priors is not None:
+            prior_mean0, prior_var0 = np.asarray(priors.intercept_mean), np.asarray(priors.intercept_var)
+            prior_mean1, prior_var1 = np.asarray(priors.slope_mean), np.asarray(priors.slope_var)
         # Posterior per capacitor: precision = prior precision + X'X / sigma^2.
         s2 = noise_var[part]
         p00 = 1.0 / prior_var0[part] + n / s2
@@ -283,6 +316,14 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         "flagged": flagged,
         "part_noise_sd": np.sqrt(noise_var),
         "part_mean_fraction": np.where(count > 0, mean_fraction / np.maximum(count, 1), 1.0),
+        "intercept_mean": prior_mean0,
+        "intercept_var": prior_var0,
+        "slope_mean": prior_mean1,
+        "slope_var": prior_var1,
+        "noise_var": noise_var,
+        "capacitors": np.bincount(part, weights=rich.astype(float), minlength=n_parts).astype(int)
+        if priors is None
+        else np.asarray(priors.capacitors),
     }
 
 
@@ -351,3 +392,21 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
             admissible = (disc >= 0) & np.isfinite(roots) & rising & (np.abs(g - zp) <= 1e-6 * (1 + abs(zp)))
         rows.append(np.min(np.where(admissible, roots, np.inf), axis=0))
     return np.maximum(np.stack(rows), 0.0)
+
+
+def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hours, level=0.9):
+    """Fitted path and its prediction band (for a new reading) at given stress hours.
+
+    Returns (mid, low, high) in fractions of rated capacitance. `covariance` is
+    (v00, v01, v11) of (b0, b1); the band adds the reading noise to the path's
+    own uncertainty, so about `level` of future readings should fall inside.
+    """
+    tau = np.asarray(stress_hours, float)
+    v00, v01, v11 = covariance
+    z = float(ndtri(0.5 + level / 2.0))
+    mid = intercept + slope_per_hour * tau
+    sd = np.sqrt(np.maximum(v00 + 2.0 * tau * v01 + tau * tau * v11, 0.0) + noise_sd**2)
+    low, high = mid - z * sd, mid + z * sd
+    if model == MODEL_LOG:
+        return np.exp(mid), np.exp(low), np.exp(high)
+    return mid, low, high

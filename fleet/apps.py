@@ -1,0 +1,13 @@
+from django.apps import AppConfig
+from django.db.models.signals import post_migrate
+
+
+class FleetConfig(AppConfig):
+    name = "fleet"
+    verbose_name = "Capacitor-motor fleet"
+    default_auto_field = "django.db.models.BigAutoField"
+
+    def ready(self):
+        from .roles import ensure_role_groups
+
+        post_migrate.connect(ensure_role_groups, sender=self)

@@ -1,0 +1,69 @@
+"""Forms convert and check what a person typed; the services hold the rules."""
+
+from __future__ import annotations
+
+from django import forms
+from django.utils import timezone
+
+from .models import CapacitorPart, FittedCapacitor, Reading
+
+
+def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.FloatField:
+    """A decimal field that opens the numeric keypad on phones."""
+    return forms.FloatField(
+        label=f"{label} ({unit})" if unit else label,
+        required=required,
+        help_text=help_text,
+        widget=forms.NumberInput(attrs={"inputmode": "decimal", "step": "any", "autocomplete": "off"}),
+    )
+
+
+class ReadingForm(forms.Form):
+    method = forms.ChoiceField(
+        choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
+    )
+    capacitance_uf = number("Capacitance", "uF", help_text="From the capacitance meter, capacitor isolated and discharged.")
+    capacitor_current_a = number("Capacitor current", "A", help_text="True-RMS clamp on the capacitor lead.")
+    capacitor_voltage_v = number("Voltage across capacitor", "V")
+    line_voltage_v = number("Line voltage", "V")
+    main_current_a = number("Main winding current", "A")
+    aux_current_a = number("Auxiliary winding current", "A")
+    line_current_a = number("Line current", "A")
+    case_temperature_c = number("Capacitor case temperature", "C")
+    ambient_temperature_c = number("Ambient temperature", "C")
+    esr_ohm = number("ESR", "ohm", help_text="Only where the meter measures it.")
+    condition = forms.ChoiceField(choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see")
+    notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
+    confirmed = forms.BooleanField(required=False, widget=forms.HiddenInput)
+
+    def measured_values(self) -> dict:
+        data = {key: value for key, value in self.cleaned_data.items() if key != "confirmed"}
+        if data["method"] == Reading.Method.IN_CIRCUIT:
+            data.pop("capacitance_uf", None)
+        return data
+
+
+class ReplacementForm(forms.Form):
+    part = forms.ModelChoiceField(queryset=CapacitorPart.objects.none(), label="Part fitted now")
+    serial = forms.CharField(required=False, label="Serial or date code of the new capacitor")
+    removed_on = forms.DateField(
+        initial=timezone.localdate, label="Replaced on", widget=forms.DateInput(attrs={"type": "date"})
+    )
+    removal_reason = forms.ChoiceField(
+        choices=FittedCapacitor.RemovalReason.choices, widget=forms.RadioSelect, label="Why the old one came out"
+    )
+    notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
+
+    def __init__(self, *args, installation: FittedCapacitor, **kwargs):
+        super().__init__(*args, **kwargs)
+        same_kind = CapacitorPart.objects.filter(dielectric=installation.part.dielectric).order_by("rated_uf", "code")
+        self.fields["part"].queryset = same_kind
+        self.fields["part"].initial = installation.part_id
+
+
+class FindMotorForm(forms.Form):
+    tag = forms.CharField(
+        label="Asset tag",
+        max_length=40,
+        widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
+    )

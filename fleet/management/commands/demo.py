@@ -1,0 +1,39 @@
+"""Build the invented demo scenario, analyse it, and serve the site."""
+
+import time
+
+from django.core.management import call_command
+from django.core.management.base import BaseCommand
+
+from fleet.services.demo import build_demo, ensure_users
+from fleet.services.refits import start_fleet_refit
+
+
+class Command(BaseCommand):
+    help = "Migrate, create one user per role, build the demo fleet, refit it, and serve on 127.0.0.1:8000."
+
+    def add_arguments(self, parser):
+        parser.add_argument("--no-serve", action="store_true", help="Build and analyse, then stop.")
+        parser.add_argument("--address", default="127.0.0.1:8000", help="Where to serve (default 127.0.0.1:8000).")
+        parser.add_argument("--scale", type=float, default=1.0, help="Fleet size multiplier (1.0 = 290 motors).")
+
+    def handle(self, *args, **options):
+        call_command("migrate", verbosity=0)
+        logins = ensure_users()
+        started = time.perf_counter()
+        outcome = build_demo(scale=options["scale"])
+        if outcome["created"]:
+            self.stdout.write(f"Built the demo fleet: {outcome['motors']} motors, {outcome['readings']} readings "
+                              f"({time.perf_counter() - started:.1f} s).")
+            started = time.perf_counter()
+            run = start_fleet_refit(kind="demo")
+            run.refresh_from_db()
+            self.stdout.write(f"Refitted {run.done} capacitors from {run.readings} readings ({time.perf_counter() - started:.1f} s).")
+        else:
+            self.stdout.write("The demo fleet is already there; nothing added.")
+        self.stdout.write("\nSign in with one of these (user / password / role):")
+        for username, password, role in logins:
+            self.stdout.write(f"  {username:<10} {password:<20} {role}")
+        if not options["no_serve"]:
+            self.stdout.write(f"\nServing on http://{options['address']}/ (Ctrl+C to stop)\n")
+            call_command("runserver", options["address"], use_reloader=False)

@@ -1,0 +1,405 @@
+"""The register (sites, motors, capacitor parts, fitted capacitors) and the records.
+
+Physical facts are database constraints, so a bulk import or a script is held to
+them as firmly as a form. Rules that span tables (no reading after removal,
+readings never edited) are triggers installed by migration 0002.
+"""
+
+from __future__ import annotations
+
+from django.conf import settings
+from django.db import models
+from django.db.models import F, Q
+
+
+class Site(models.Model):
+    code = models.CharField(max_length=20, unique=True)
+    name = models.CharField(max_length=120)
+    time_zone = models.CharField(max_length=60, default="UTC")
+
+    class Meta:
+        ordering = ["code"]
+
+    def __str__(self):
+        return f"{self.code} {self.name}"
+
+
+class Motor(models.Model):
+    class Application(models.TextChoices):
+        FAN = "fan", "Fan"
+        PUMP = "pump", "Pump"
+        COMPRESSOR = "compressor", "Compressor"
+        CONVEYOR = "conveyor", "Conveyor"
+        OTHER = "other", "Other"
+
+    class MotorType(models.TextChoices):
+        CAPACITOR_START = "capacitor_start", "Capacitor-start"
+        PERMANENT_SPLIT = "permanent_split", "Permanent-split capacitor"
+        TWO_VALUE = "two_value", "Two-value capacitor"
+
+    class LoadType(models.TextChoices):
+        FAN_LAW = "fan_law", "Fan law (torque ~ speed squared)"
+        CONSTANT = "constant", "Constant torque"
+
+    class Status(models.TextChoices):
+        IN_SERVICE = "in_service", "In service"
+        STANDBY = "standby", "Standby"
+        RETIRED = "retired", "Retired"
+
+    asset_tag = models.CharField(max_length=40, unique=True)
+    site = models.ForeignKey(Site, on_delete=models.PROTECT, related_name="motors")
+    location = models.CharField(max_length=120, blank=True)
+    route_order = models.PositiveIntegerField(default=0, help_text="Walking order on the site's reading route")
+    application = models.CharField(max_length=20, choices=Application.choices)
+    motor_type = models.CharField(max_length=20, choices=MotorType.choices)
+    load_type = models.CharField(max_length=20, choices=LoadType.choices)
+    rated_voltage_v = models.FloatField()
+    frequency_hz = models.PositiveSmallIntegerField()
+    poles = models.PositiveSmallIntegerField()
+    output_w = models.FloatField()
+    full_load_current_a = models.FloatField()
+    rated_speed_rpm = models.FloatField()
+    insulation_class = models.CharField(max_length=2, blank=True)
+    commissioned_on = models.DateField(null=True, blank=True)
+    status = models.CharField(max_length=20, choices=Status.choices, default=Status.IN_SERVICE)
+    # Equivalent circuit (ohms, referred to the main winding): entered or estimated.
+    r1m_ohm = models.FloatField(null=True, blank=True)
+    x1m_ohm = models.FloatField(null=True, blank=True)
+    r1a_ohm = models.FloatField(null=True, blank=True)
+    x1a_ohm = models.FloatField(null=True, blank=True)
+    r2_ohm = models.FloatField(null=True, blank=True)
+    x2_ohm = models.FloatField(null=True, blank=True)
+    xm_ohm = models.FloatField(null=True, blank=True)
+    turns_ratio = models.FloatField(null=True, blank=True)
+    rotational_loss_w = models.FloatField(null=True, blank=True)
+    circuit_source = models.CharField(
+        max_length=20, blank=True, help_text="entered, estimated (nameplate only) or fitted (with readings)"
+    )
+
+    class Meta:
+        ordering = ["site__code", "route_order", "asset_tag"]
+        constraints = [
+            models.CheckConstraint(condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000), name="motor_voltage_range"),
+            models.CheckConstraint(condition=Q(frequency_hz__in=[50, 60]), name="motor_frequency_50_or_60"),
+            models.CheckConstraint(condition=Q(poles__in=[2, 4, 6, 8, 10, 12]), name="motor_poles_even"),
+            models.CheckConstraint(condition=Q(output_w__gt=0), name="motor_output_positive"),
+            models.CheckConstraint(condition=Q(full_load_current_a__gt=0), name="motor_current_positive"),
+            models.CheckConstraint(
+                condition=Q(rated_speed_rpm__gt=0) & Q(rated_speed_rpm__lt=120 * F("frequency_hz") / F("poles")),
+                name="motor_speed_below_synchronous",
+            ),
+        ]
+
+    def __str__(self):
+        return self.asset_tag
+
+    @property
+    def has_circuit(self) -> bool:
+        return self.r1m_ohm is not None
+
+
+class CapacitorPart(models.Model):
+    class Dielectric(models.TextChoices):
+        FILM = "film", "Metallised film (run)"
+        ELECTROLYTIC = "electrolytic", "Aluminium electrolytic (start)"
+
+    class OperationClass(models.TextChoices):
+        A = "A", "A (30,000 h)"
+        B = "B", "B (10,000 h)"
+        C = "C", "C (3,000 h)"
+        D = "D", "D (1,000 h)"
+
+    class SafetyClass(models.TextChoices):
+        NONE = "S0", "S0 (no protection)"
+        S1 = "S1", "S1"
+        S2 = "S2", "S2 (overpressure disconnector)"
+        S3 = "S3", "S3 (segmented film)"
+        P0 = "P0", "P0 (older marking)"
+        P1 = "P1", "P1 (older marking)"
+        P2 = "P2", "P2 (older marking)"
+
+    code = models.CharField(max_length=40, unique=True)
+    description = models.CharField(max_length=200, blank=True)
+    rated_uf = models.FloatField()
+    tolerance_minus_pct = models.FloatField()
+    tolerance_plus_pct = models.FloatField()
+    rated_voltage_v = models.FloatField()
+    frequency_hz = models.PositiveSmallIntegerField(default=50)
+    dielectric = models.CharField(max_length=20, choices=Dielectric.choices)
+    class_of_operation = models.CharField(max_length=1, choices=OperationClass.choices, blank=True)
+    duty = models.CharField(max_length=80, blank=True, help_text="e.g. continuous, or 20 starts/h of 3 s")
+    safety_class = models.CharField(max_length=2, choices=SafetyClass.choices, blank=True)
+    max_case_temperature_c = models.FloatField(default=70)
+    max_dissipation_factor = models.FloatField(null=True, blank=True)
+    unit_cost = models.DecimalField(max_digits=10, decimal_places=2, default=0)
+
+    class Meta:
+        ordering = ["code"]
+        constraints = [
+            models.CheckConstraint(condition=Q(rated_uf__gt=0), name="part_capacitance_positive"),
+            models.CheckConstraint(
+                condition=Q(tolerance_minus_pct__gte=0, tolerance_minus_pct__lt=100, tolerance_plus_pct__gte=0),
+                name="part_tolerance_sane",
+            ),
+            models.CheckConstraint(condition=Q(rated_voltage_v__gt=0), name="part_voltage_positive"),
+            models.CheckConstraint(condition=Q(unit_cost__gte=0), name="part_cost_not_negative"),
+        ]
+
+    def __str__(self):
+        return f"{self.code} ({self.rated_uf:g} uF {self.rated_voltage_v:g} V)"
+
+    @property
+    def lower_limit_uf(self) -> float:
+        return self.rated_uf * (1 - self.tolerance_minus_pct / 100)
+
+    @property
+    def upper_limit_uf(self) -> float:
+        return self.rated_uf * (1 + self.tolerance_plus_pct / 100)
+
+
+class FittedCapacitor(models.Model):
+    """One capacitor fitted to one motor, from fitting to removal: a life-data point."""
+
+    class Role(models.TextChoices):
+        START = "start", "Start"
+        RUN = "run", "Run"
+
+    class RemovalReason(models.TextChoices):
+        FAILED = "failed", "Failed in service"
+        PLANNED = "planned", "Replaced on plan"
+        OTHER = "other", "Other"
+
+    motor = models.ForeignKey(Motor, on_delete=models.PROTECT, related_name="capacitors")
+    role = models.CharField(max_length=5, choices=Role.choices)
+    part = models.ForeignKey(CapacitorPart, on_delete=models.PROTECT, related_name="fitted")
+    serial = models.CharField(max_length=60, blank=True, help_text="Serial or date code")
+    fitted_on = models.DateField()
+    removed_on = models.DateField(null=True, blank=True)
+    removal_reason = models.CharField(max_length=10, choices=RemovalReason.choices, blank=True)
+    notes = models.TextField(blank=True)
+
+    class Meta:
+        ordering = ["motor__asset_tag", "role", "-fitted_on"]
+        constraints = [
+            models.UniqueConstraint(
+                fields=["motor", "role"], condition=Q(removed_on__isnull=True), name="one_active_capacitor_per_role"
+            ),
+            models.CheckConstraint(
+                condition=Q(removed_on__isnull=True) | Q(removed_on__gte=F("fitted_on")),
+                name="removed_after_fitted",
+            ),
+            models.CheckConstraint(
+                condition=(Q(removed_on__isnull=True) & Q(removal_reason=""))
+                | (Q(removed_on__isnull=False) & ~Q(removal_reason="")),
+                name="removal_reason_with_removal",
+            ),
+        ]
+        indexes = [models.Index(fields=["motor", "role"])]
+
+    def __str__(self):
+        return f"{self.motor.asset_tag} {self.role} {self.part.code}"
+
+    @property
+    def in_service(self) -> bool:
+        return self.removed_on is None
+
+
+class Reading(models.Model):
+    """One measurement, append-only. A correction is a new reading that supersedes."""
+
+    class Method(models.TextChoices):
+        METER = "meter", "Capacitance meter (isolated)"
+        IN_CIRCUIT = "in_circuit", "In circuit (current and voltage)"
+
+    class Condition(models.TextChoices):
+        SOUND = "sound", "No visible defect"
+        BULGED = "bulged", "Bulged or raised top"
+        LEAKING = "leaking", "Leaking"
+        VENTED = "vented", "Vented"
+
+    class Source(models.TextChoices):
+        FORM = "form", "Reading form"
+        IMPORT = "import", "File import"
+        DEMO = "demo", "Demo data"
+
+    installation = models.ForeignKey(FittedCapacitor, on_delete=models.PROTECT, related_name="readings")
+    taken_at = models.DateTimeField()
+    taken_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.PROTECT)
+    method = models.CharField(max_length=12, choices=Method.choices)
+    capacitance_uf = models.FloatField()
+    capacitor_current_a = models.FloatField(null=True, blank=True)
+    capacitor_voltage_v = models.FloatField(null=True, blank=True)
+    line_voltage_v = models.FloatField(null=True, blank=True)
+    main_current_a = models.FloatField(null=True, blank=True)
+    aux_current_a = models.FloatField(null=True, blank=True)
+    line_current_a = models.FloatField(null=True, blank=True)
+    case_temperature_c = models.FloatField(null=True, blank=True)
+    ambient_temperature_c = models.FloatField(null=True, blank=True)
+    esr_ohm = models.FloatField(null=True, blank=True)
+    condition = models.CharField(max_length=10, choices=Condition.choices, default=Condition.SOUND)
+    notes = models.TextField(blank=True)
+    outlier_confirmed = models.BooleanField(
+        default=False, help_text="Far off the trend, re-checked and confirmed by the technician"
+    )
+    supersedes = models.OneToOneField(
+        "self", null=True, blank=True, on_delete=models.PROTECT, related_name="superseded_by"
+    )
+    source = models.CharField(max_length=10, choices=Source.choices, default=Source.FORM)
+    import_key = models.CharField(max_length=64, null=True, blank=True, unique=True)
+    created_at = models.DateTimeField(auto_now_add=True)
+
+    class Meta:
+        ordering = ["installation_id", "taken_at", "id"]
+        constraints = [
+            models.CheckConstraint(condition=Q(capacitance_uf__gt=0), name="reading_capacitance_positive"),
+            models.CheckConstraint(
+                condition=Q(method="meter")
+                | (Q(capacitor_current_a__isnull=False) & Q(capacitor_voltage_v__isnull=False)),
+                name="in_circuit_needs_current_and_voltage",
+            ),
+            models.CheckConstraint(
+                condition=Q(case_temperature_c__isnull=True)
+                | Q(case_temperature_c__gte=-40, case_temperature_c__lte=150),
+                name="reading_case_temperature_range",
+            ),
+            models.CheckConstraint(
+                condition=Q(capacitor_voltage_v__isnull=True) | Q(capacitor_voltage_v__gt=0),
+                name="reading_voltage_positive",
+            ),
+            models.CheckConstraint(
+                condition=Q(capacitor_current_a__isnull=True) | Q(capacitor_current_a__gte=0),
+                name="reading_current_not_negative",
+            ),
+        ]
+        indexes = [models.Index(fields=["installation", "taken_at"])]
+
+    def __str__(self):
+        return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} uF"
+
+
+class Assessment(models.Model):
+    """A stored fit and plan for one fitted capacitor; a new row per refit."""
+
+    installation = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="assessments")
+    is_current = models.BooleanField(default=True)
+    model_version = models.CharField(max_length=20)
+    fitted_through = models.DateTimeField(help_text="Time of the newest reading used")
+    newest_reading = models.ForeignKey(Reading, null=True, on_delete=models.SET_NULL, related_name="+")
+    readings_used = models.PositiveIntegerField()
+    readings_flagged = models.PositiveIntegerField(default=0)
+    flagged_reading_ids = models.JSONField(default=list, blank=True)
+    trend_model = models.CharField(max_length=12)
+    slope_pct_per_1000h = models.FloatField()
+    slope_sd_pct_per_1000h = models.FloatField()
+    low_confidence = models.BooleanField(default=False)
+    capacitance_now_uf = models.FloatField()
+    latest_verdict = models.CharField(max_length=40)
+    limit_fraction = models.FloatField()
+    limit_source = models.CharField(max_length=40)
+    p10_on = models.DateField(null=True, blank=True)
+    p50_on = models.DateField(null=True, blank=True)
+    p90_on = models.DateField(null=True, blank=True)
+    risk = models.CharField(max_length=20)
+    replace_by = models.DateField(null=True, blank=True)
+    figures_now = models.JSONField(default=dict, blank=True)
+    figures_new = models.JSONField(default=dict, blank=True)
+    trend = models.JSONField(
+        default=dict, blank=True, help_text="Fitted path: model, coefficients, covariance, stress hours per reading"
+    )
+    created_at = models.DateTimeField(auto_now_add=True)
+
+    class Meta:
+        ordering = ["-created_at"]
+        constraints = [
+            models.UniqueConstraint(
+                fields=["installation"], condition=Q(is_current=True), name="one_current_assessment"
+            ),
+        ]
+        indexes = [models.Index(fields=["is_current", "risk", "replace_by"])]
+
+    def __str__(self):
+        return f"{self.installation} {self.risk}"
+
+
+class PartPrior(models.Model):
+    """A part's population of ageing paths, fitted across the fleet (empirical Bayes)."""
+
+    part = models.OneToOneField(CapacitorPart, on_delete=models.CASCADE, related_name="prior")
+    trend_model = models.CharField(max_length=12)
+    intercept_mean = models.FloatField()
+    intercept_var = models.FloatField()
+    slope_mean = models.FloatField()
+    slope_var = models.FloatField()
+    noise_var = models.FloatField()
+    capacitors = models.PositiveIntegerField()
+    updated_at = models.DateTimeField(auto_now=True)
+
+
+class WorkOrder(models.Model):
+    class Kind(models.TextChoices):
+        REPLACE_START = "replace_start", "Replace start capacitor"
+        REPLACE_RUN = "replace_run", "Replace run capacitor"
+        INSPECT = "inspect", "Inspect"
+
+    class State(models.TextChoices):
+        PLANNED = "planned", "Planned"
+        ISSUED = "issued", "Issued"
+        DONE = "done", "Done"
+        CANCELLED = "cancelled", "Cancelled"
+
+    motor = models.ForeignKey(Motor, on_delete=models.PROTECT, related_name="work_orders")
+    installation = models.ForeignKey(
+        FittedCapacitor, null=True, blank=True, on_delete=models.PROTECT, related_name="work_orders"
+    )
+    kind = models.CharField(max_length=20, choices=Kind.choices)
+    due_on = models.DateField()
+    window_days = models.PositiveIntegerField(default=14)
+    state = models.CharField(max_length=10, choices=State.choices, default=State.PLANNED)
+    reason = models.CharField(max_length=200, blank=True)
+    created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+")
+    created_at = models.DateTimeField(auto_now_add=True)
+    closed_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+")
+    closed_at = models.DateTimeField(null=True, blank=True)
+
+    class Meta:
+        ordering = ["due_on", "motor__asset_tag"]
+        constraints = [
+            models.UniqueConstraint(
+                fields=["installation", "kind"],
+                condition=Q(state__in=["planned", "issued"]),
+                name="one_open_order_per_capacitor_and_kind",
+            ),
+            models.CheckConstraint(
+                condition=Q(state__in=["done", "cancelled"], closed_at__isnull=False)
+                | Q(state__in=["planned", "issued"], closed_at__isnull=True),
+                name="closed_orders_have_close_time",
+            ),
+        ]
+
+    def __str__(self):
+        return f"{self.get_kind_display()} {self.motor.asset_tag} by {self.due_on}"
+
+
+class RefitRun(models.Model):
+    """Progress of a fleet refit, visible on a page in eager mode too."""
+
+    class State(models.TextChoices):
+        RUNNING = "running", "Running"
+        DONE = "done", "Done"
+        FAILED = "failed", "Failed"
+
+    kind = models.CharField(max_length=20, default="fleet")
+    state = models.CharField(max_length=10, choices=State.choices, default=State.RUNNING)
+    total = models.PositiveIntegerField(default=0)
+    done = models.PositiveIntegerField(default=0)
+    readings = models.PositiveIntegerField(default=0)
+    started_at = models.DateTimeField(auto_now_add=True)
+    finished_at = models.DateTimeField(null=True, blank=True)
+    message = models.TextField(blank=True)
+
+    class Meta:
+        ordering = ["-started_at"]
+
+    @property
+    def percent(self) -> int:
+        return int(100 * self.done / self.total) if self.total else (100 if self.state == "done" else 0)

@@ -1,0 +1,263 @@
+"""An invented scenario for the demo: a growers' cooperative with three sites.
+
+Everything here is made up for the demo: the cooperative, its sites, its motors,
+its part codes and prices. The capacitors age the way the primer describes: film
+run capacitors lose capacitance slowly, faster when hot and near their voltage
+rating, and faster still past a knee; electrolytic start capacitors dry out and
+now and then fail suddenly. Readings carry a meter's noise and the case
+temperature of the day.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass
+
+import numpy as np
+from django.contrib.auth.models import Group, User
+from django.db import transaction
+from django.utils import timezone
+
+from fleet.engineering.capacitor import acceleration_factor
+from fleet.engineering.drift import operating_figures
+from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, load_matching_rated_slip, synchronous_speed_rad_s
+from fleet.engineering.nameplate import Nameplate, estimate_parameters
+from fleet.engineering.trends import TrendSettings
+from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
+
+DEMO_SITES = [
+    ("PKH", "Packhouse, Riverside Road", "Europe/Dublin"),
+    ("CST", "Cool store, Orchard Lane", "Europe/Dublin"),
+    ("GLH", "Glasshouses, Hill Farm", "Europe/Dublin"),
+]
+
+DEMO_USERS = [
+    ("tech", "Tess", "Cahill", TECHNICIAN, "reading-route-7"),
+    ("planner", "Pat", "Byrne", PLANNER, "weekly-plan-7"),
+    ("engineer", "Rosa", "Lynch", RELIABILITY_ENGINEER, "life-data-7"),
+    ("admin", "Alan", "Quinn", ADMINISTRATOR, "register-keeper-7"),
+]
+
+# code, rated uF, tol -, tol +, rated V, dielectric, class, safety, max case C, cost
+DEMO_PARTS = [
+    ("RUN-4U0-450", 4.0, 5, 5, 450, "film", "B", "S2", 70, 6.40),
+    ("RUN-8U0-450", 8.0, 5, 5, 450, "film", "B", "S2", 70, 7.90),
+    ("RUN-20U-450", 20.0, 5, 5, 450, "film", "B", "S2", 70, 12.60),
+    ("RUN-30U-450", 30.0, 5, 5, 450, "film", "B", "S2", 85, 16.20),
+    ("START-98U-330", 98.0, 10.2, 10.2, 330, "electrolytic", "", "", 65, 9.10),
+    ("START-145U-330", 143.0, 9.1, 9.1, 330, "electrolytic", "", "", 65, 10.60),
+    ("START-208U-330", 208.0, 9.1, 9.1, 330, "electrolytic", "", "", 65, 12.30),
+]
+
+
+@dataclass(frozen=True)
+class Design:
+    """One motor design of the scenario, with where and how it works."""
+
+    name: str
+    application: str
+    motor_type: str
+    load_type: str
+    poles: int
+    output_w: float
+    full_load_current_a: float
+    rated_speed_rpm: float
+    run_part: str | None
+    start_part: str | None
+    case_temp_c: float  # typical capacitor case temperature in service
+    sites: tuple[str, ...]
+    count: int
+    location: str
+
+
+DESIGNS = [
+    Design("evaporator fan", "fan", "permanent_split", "fan_law", 6, 120, 0.95, 910, "RUN-4U0-450", None, 18, ("CST",), 90, "Cold room {n}, evaporator"),
+    Design("circulation fan", "fan", "permanent_split", "fan_law", 4, 250, 1.9, 1370, "RUN-8U0-450", None, 42, ("GLH",), 80, "House {n}, roof fan"),
+    Design("irrigation pump", "pump", "two_value", "fan_law", 2, 750, 5.2, 2830, "RUN-20U-450", "START-98U-330", 35, ("GLH", "PKH"), 30, "Pump bay {n}"),
+    Design("cooler compressor", "compressor", "two_value", "constant", 2, 1100, 7.6, 2850, "RUN-30U-450", "START-145U-330", 55, ("CST", "PKH"), 40, "Condensing unit {n}"),
+    Design("packing conveyor", "conveyor", "capacitor_start", "constant", 4, 370, 3.3, 1420, None, "START-208U-330", 30, ("PKH",), 50, "Line {n}, drive"),
+]
+
+VOLTAGE_V, FREQUENCY_HZ = 230.0, 50
+
+
+def ensure_users(stdout=None) -> list[tuple[str, str, str]]:
+    """One user per role; returns (username, password, role) to print."""
+    logins = []
+    for username, first, last, role, password in DEMO_USERS:
+        user, created = User.objects.get_or_create(username=username, defaults={"first_name": first, "last_name": last})
+        if created:
+            user.set_password(password)
+            user.is_staff = role == ADMINISTRATOR
+            user.save()
+        user.groups.add(Group.objects.get(name=role))
+        logins.append((username, password, role))
+    return logins
+
+
+def _parts() -> dict[str, CapacitorPart]:
+    parts = {}
+    for code, uf, minus, plus, volts, dielectric, klass, safety, tmax, cost in DEMO_PARTS:
+        parts[code], _ = CapacitorPart.objects.get_or_create(
+            code=code,
+            defaults=dict(
+                description=f"{uf:g} uF {volts} V {'film run' if dielectric == 'film' else 'electrolytic start'} capacitor",
+                rated_uf=uf, tolerance_minus_pct=minus, tolerance_plus_pct=plus, rated_voltage_v=volts,
+                frequency_hz=FREQUENCY_HZ, dielectric=dielectric, class_of_operation=klass, safety_class=safety,
+                max_case_temperature_c=tmax, unit_cost=cost,
+                duty="continuous" if dielectric == "film" else "20 starts/h of up to 3 s",
+                max_dissipation_factor=None if dielectric == "film" else 0.10,
+            ),
+        )
+    return parts
+
+
+def _circuit_for(design: Design, parts) -> dict:
+    """Equivalent circuit estimated from the design's nameplate (once per design)."""
+    plate = Nameplate(
+        voltage_v=VOLTAGE_V, frequency_hz=FREQUENCY_HZ, poles=design.poles, output_w=design.output_w,
+        full_load_current_a=design.full_load_current_a, rated_speed_rpm=design.rated_speed_rpm,
+        motor_kind=design.motor_type,
+        run_capacitance_uf=parts[design.run_part].rated_uf if design.run_part else 0.0,
+        start_capacitance_uf=parts[design.start_part].rated_uf if design.start_part else 0.0,
+    )
+    estimate = estimate_parameters(plate)
+    return {
+        "r1m_ohm": estimate.r1m, "x1m_ohm": estimate.x1m, "r1a_ohm": estimate.r1a, "x1a_ohm": estimate.x1a,
+        "r2_ohm": estimate.r2, "x2_ohm": estimate.x2, "xm_ohm": estimate.xm, "turns_ratio": estimate.turns_ratio,
+        "rotational_loss_w": estimate.rotational_loss_w, "circuit_source": "estimated",
+        "_circuit": estimate.circuit(plate), "_plate": plate,
+    }
+
+
+def _run_capacitor_voltage(design: Design, circuit_info, parts) -> float:
+    """Running voltage across the run capacitor of the as-new motor (the model's)."""
+    if not design.run_part:
+        return float("nan")
+    circuit = circuit_info["_circuit"]
+    sync_rpm = synchronous_speed_rad_s(FREQUENCY_HZ, design.poles) * 60 / (2 * np.pi)
+    slip = 1 - design.rated_speed_rpm / sync_rpm
+    run_uf = parts[design.run_part].rated_uf
+    kind = LOAD_FAN if design.load_type == "fan_law" else LOAD_CONSTANT
+    load = load_matching_rated_slip(circuit, run_uf, slip, kind)
+    figures = operating_figures(circuit, load, run_uf, parts[design.start_part].rated_uf if design.start_part else 0.0, design.motor_type)
+    return float(np.atleast_1d(figures.v_capacitor_v)[0])
+
+
+def build_demo(*, seed: int = 7, today: dt.date | None = None, scale: float = 1.0) -> dict:
+    """Create the scenario unless it exists. Returns counts of what was created."""
+    if Site.objects.filter(code=DEMO_SITES[0][0]).exists():
+        return {"created": False}
+    rng = np.random.default_rng(seed)
+    today = today or timezone.localdate()
+    technician = User.objects.filter(username="tech").first()
+    with transaction.atomic():
+        sites = {code: Site.objects.create(code=code, name=name, time_zone=tz) for code, name, tz in DEMO_SITES}
+        parts = _parts()
+        counters = {code: 0 for code in sites}
+        reading_rows: list[Reading] = []
+        motors = 0
+        for design in DESIGNS:
+            info = _circuit_for(design, parts)
+            v_cap = _run_capacitor_voltage(design, info, parts)
+            circuit_fields = {k: v for k, v in info.items() if not k.startswith("_")}
+            for n in range(max(1, int(round(design.count * scale)))):
+                site_code = design.sites[n % len(design.sites)]
+                counters[site_code] += 1
+                commissioned = today - dt.timedelta(days=int(rng.integers(4 * 365, 7 * 365)))
+                motor = Motor.objects.create(
+                    asset_tag=f"{site_code}-{counters[site_code]:04d}",
+                    site=sites[site_code],
+                    location=design.location.format(n=n // len(design.sites) + 1),
+                    route_order=counters[site_code],
+                    application=design.application,
+                    motor_type=design.motor_type,
+                    load_type=design.load_type,
+                    rated_voltage_v=VOLTAGE_V,
+                    frequency_hz=FREQUENCY_HZ,
+                    poles=design.poles,
+                    output_w=design.output_w,
+                    full_load_current_a=design.full_load_current_a,
+                    rated_speed_rpm=design.rated_speed_rpm,
+                    insulation_class="B",
+                    commissioned_on=commissioned,
+                    **circuit_fields,
+                )
+                motors += 1
+                for role, code in (("run", design.run_part), ("start", design.start_part)):
+                    if code:
+                        reading_rows += _age_capacitor_line(
+                            motor, role, parts[code], commissioned, today, design.case_temp_c, v_cap, rng, technician
+                        )
+        Reading.objects.bulk_create(reading_rows, batch_size=2000)
+    return {"created": True, "motors": motors, "readings": len(reading_rows)}
+
+
+def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_cap, rng, technician):
+    """Simulate one motor position from commissioning to today: each capacitor
+    ages until it is read below its limit (replaced on plan) or fails (replaced
+    as failed); the successor starts fresh. Returns the readings to insert."""
+    settings = TrendSettings()
+    film = part.dielectric == "film"
+    readings: list[Reading] = []
+    fitted_on = commissioned
+    first_reading_day = today - dt.timedelta(days=4 * 365)
+    while True:
+        installation = FittedCapacitor.objects.create(
+            motor=motor, role=role, part=part, fitted_on=fitted_on, serial=f"{fitted_on:%y%m}-{rng.integers(10000, 99999)}"
+        )
+        initial = rng.normal(1.0 + (0.01 if film else 0.0), 0.015)
+        temperature = case_temp_c + rng.normal(0.0, 4.0)
+        voltage = v_cap * rng.normal(1.0, 0.03) if film else VOLTAGE_V * 1.2
+        rate = float(acceleration_factor(temperature, voltage, settings.reference_temperature_c, part.rated_voltage_v,
+                                         settings.doubling_k, settings.voltage_exponent if film else 0.0))
+        # Slope per stress hour, with a spread between units of one part.
+        slope = -abs(rng.normal(3e-6 if film else 2.5e-6, 1e-6 if film else 0.8e-6))
+        knee = 0.93 if film else 0.95
+        sudden_hours = rng.exponential(12 * 8760) if not film else np.inf
+        day = fitted_on
+        removed = None
+        reason = ""
+        while True:
+            day = day + dt.timedelta(days=int(rng.integers(84, 98)))
+            if day > today:
+                break
+            hours = (day - fitted_on).days * 24.0
+            stress = hours * rate
+            fraction = initial + slope * stress
+            if fraction < knee:
+                fraction = knee - 3.0 * (knee - fraction)  # faster after the knee
+            if hours > sudden_hours or fraction < 0.6:
+                removed, reason = day - dt.timedelta(days=int(rng.integers(1, 60))), "failed"
+                break
+            if day < first_reading_day:
+                continue
+            seasonal = 6.0 * np.sin(2 * np.pi * (day.timetuple().tm_yday - 100) / 365.0)
+            case_c = round(temperature + seasonal + rng.normal(0, 1.5), 1)
+            tempco = 1.0 + settings.tempco_ppm_per_k * 1e-6 * (case_c - 25.0)
+            measured = part.rated_uf * fraction * tempco * (1 + rng.normal(0, 0.006))
+            taken_at = timezone.make_aware(dt.datetime.combine(day, dt.time(9 + int(rng.integers(0, 7)), int(rng.integers(0, 60)))))
+            in_circuit = film and rng.random() < 0.3
+            cap_v = round(voltage * rng.normal(1, 0.01), 1) if film else None
+            current = round(measured * 1e-6 * 2 * np.pi * FREQUENCY_HZ * cap_v, 4) if in_circuit else None
+            readings.append(
+                Reading(
+                    installation=installation, taken_at=taken_at, taken_by=technician,
+                    method="in_circuit" if in_circuit else "meter", capacitance_uf=round(measured, 3),
+                    capacitor_current_a=current, capacitor_voltage_v=cap_v if film else None,
+                    case_temperature_c=case_c, ambient_temperature_c=round(case_c - rng.uniform(3, 12), 1),
+                    source="demo",
+                )
+            )
+            if fraction < 1.0 - part.tolerance_minus_pct / 100.0 - 0.01 and rng.random() < 0.6:
+                removed, reason = day, "planned"
+                break
+        if removed is None:
+            return readings
+        if removed < installation.fitted_on:
+            removed = installation.fitted_on
+        readings = [r for r in readings if r.installation_id != installation.id or r.taken_at.date() <= removed]
+        installation.removed_on, installation.removal_reason = removed, reason
+        installation.save(update_fields=["removed_on", "removal_reason"])
+        fitted_on = removed

@@ -1,0 +1,150 @@
+"""Reads for pages: stored results only, a bounded number of queries per page."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+from django.db.models import Count, Max, OuterRef, Prefetch, Q, Subquery, Sum
+from django.utils import timezone
+
+from fleet.charts import trend_figure
+from fleet.engineering.capacitor import normalise_to_25c
+from fleet.engineering.planning import RISK_ORDER
+from fleet.engineering.trends import TrendSettings, path_band
+from fleet.models import Assessment, FittedCapacitor, Motor, Reading, RefitRun, Site
+
+RECENT_READINGS = 6
+
+
+def current_assessments():
+    return Assessment.objects.filter(is_current=True)
+
+
+def motor_with_capacitors(asset_tag: str):
+    """The motor, its capacitors (in service first) each with its current assessment."""
+    capacitors = FittedCapacitor.objects.select_related("part").prefetch_related(
+        Prefetch("assessments", queryset=current_assessments(), to_attr="current")
+    ).order_by("removed_on", "role", "-fitted_on")
+    return (
+        Motor.objects.select_related("site")
+        .prefetch_related(Prefetch("capacitors", queryset=capacitors, to_attr="fitted"))
+        .get(asset_tag__iexact=asset_tag.strip())
+    )
+
+
+def recent_readings(installation: FittedCapacitor, count: int = RECENT_READINGS):
+    return list(
+        Reading.objects.filter(installation=installation)
+        .select_related("taken_by", "supersedes")
+        .order_by("-taken_at", "-id")[:count]
+    )
+
+
+def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730) -> dict | None:
+    """Figure of readings, the stored fitted path and its band, drawn from stored numbers."""
+    if assessment is None or not assessment.trend:
+        return None
+    trend = assessment.trend
+    rated = trend["rated_uf"]
+    tau_by_id = {reading_id: tau for reading_id, tau in trend["points"]}
+    readings = list(
+        Reading.objects.filter(id__in=tau_by_id).order_by("taken_at").values(
+            "id", "taken_at", "capacitance_uf", "case_temperature_c"
+        )
+    )
+    if not readings:
+        return None
+    corrected = normalise_to_25c(
+        np.array([r["capacitance_uf"] for r in readings]),
+        np.array([np.nan if r["case_temperature_c"] is None else r["case_temperature_c"] for r in readings]),
+        TrendSettings().tempco_ppm_per_k,
+    )
+    flagged = set(assessment.flagged_reading_ids)
+    points = [
+        {"date": r["taken_at"].date().isoformat(), "capacitance_uf": round(float(c), 3), "flagged": r["id"] in flagged}
+        for r, c in zip(readings, corrected, strict=True)
+    ]
+    last = readings[-1]["taken_at"]
+    future_days = np.linspace(0, horizon_days, 25)[1:]
+    taus = [tau_by_id[r["id"]] for r in readings] + list(
+        trend["stress_hours_now"] + trend["stress_rate"] * future_days * 24.0
+    )
+    dates = [r["taken_at"].date().isoformat() for r in readings] + [
+        (last + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
+    ]
+    mid, low, high = path_band(
+        trend["model"], trend["intercept"], trend["slope_per_hour"], trend["covariance"], trend["noise_sd"], np.array(taus)
+    )
+    path = {
+        "dates": dates,
+        "mid_uf": [round(float(v) * rated, 3) for v in mid],
+        "low_uf": [round(float(v) * rated, 3) for v in low],
+        "high_uf": [round(float(v) * rated, 3) for v in high],
+    }
+    return trend_figure(points, path, assessment.limit_fraction * rated, assessment.limit_source, rated)
+
+
+def quarter_start(day: dt.date) -> dt.date:
+    return dt.date(day.year, 3 * ((day.month - 1) // 3) + 1, 1)
+
+
+def route_for_site(site: Site, today: dt.date | None = None):
+    """The site's motors in walking order, each marked due if not read this quarter."""
+    today = today or timezone.localdate()
+    start = quarter_start(today)
+    motors = (
+        Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
+        .annotate(
+            last_read=Max("capacitors__readings__taken_at", filter=Q(capacitors__removed_on__isnull=True)),
+            capacitors_in_service=Count("capacitors", filter=Q(capacitors__removed_on__isnull=True), distinct=True),
+        )
+        .order_by("route_order", "asset_tag")
+    )
+    rows = []
+    for motor in motors:
+        due = motor.last_read is None or timezone.localdate(motor.last_read) < start
+        rows.append({"motor": motor, "due": due})
+    return rows, start
+
+
+def risk_summary():
+    counts = dict(current_assessments().filter(installation__removed_on__isnull=True).values_list("risk").annotate(n=Count("id")))
+    return [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
+
+
+def replacement_plan(horizon_days: int = 90, site: Site | None = None):
+    """Capacitors in service to replace within the horizon, soonest first, with the
+    newest assessment's figures; one query."""
+    until = timezone.localdate() + dt.timedelta(days=horizon_days)
+    queryset = (
+        current_assessments()
+        .filter(installation__removed_on__isnull=True, replace_by__lte=until)
+        .select_related("installation__motor__site", "installation__part")
+        .order_by("replace_by", "installation__motor__site__code", "installation__motor__route_order")
+    )
+    if site is not None:
+        queryset = queryset.filter(installation__motor__site=site)
+    return queryset
+
+
+def spares_needed(horizon_days: int = 90):
+    """Parts to hold for the replacements due within the horizon, with their cost."""
+    until = timezone.localdate() + dt.timedelta(days=horizon_days)
+    return (
+        current_assessments()
+        .filter(installation__removed_on__isnull=True, replace_by__lte=until)
+        .values("installation__part__code", "installation__part__rated_uf", "installation__part__rated_voltage_v", "installation__part__dielectric")
+        .annotate(quantity=Count("id"), cost=Sum("installation__part__unit_cost"))
+        .order_by("installation__part__code")
+    )
+
+
+def latest_refit_run():
+    return RefitRun.objects.order_by("-started_at").first()
+
+
+def newest_reading_subquery():
+    return Subquery(
+        Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("capacitance_uf")[:1]
+    )

@@ -1,0 +1,74 @@
+"""Reads: querysets turned into DataFrames, one query per batch, never per motor."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from fleet.models import FittedCapacitor, PartPrior, Reading
+
+CIRCUIT_FIELDS = ["r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm", "turns_ratio", "rotational_loss_w"]
+
+INSTALLATION_COLUMNS = {
+    "id": "installation_id",
+    "role": "role",
+    "fitted_on": "fitted_on",
+    "part_id": "part_id",
+    "part__rated_uf": "rated_uf",
+    "part__tolerance_minus_pct": "tolerance_minus_pct",
+    "part__tolerance_plus_pct": "tolerance_plus_pct",
+    "part__rated_voltage_v": "part_rated_voltage_v",
+    "part__dielectric": "dielectric",
+    "motor_id": "motor_id",
+    "motor__motor_type": "motor_type",
+    "motor__load_type": "load_type",
+    "motor__rated_voltage_v": "voltage_v",
+    "motor__frequency_hz": "frequency_hz",
+    "motor__poles": "poles",
+    "motor__full_load_current_a": "full_load_current_a",
+    "motor__rated_speed_rpm": "rated_speed_rpm",
+    **{f"motor__{name}": name for name in CIRCUIT_FIELDS},
+}
+
+
+def installations_frame(installation_ids) -> pd.DataFrame:
+    """Fitted capacitors with their part and motor, one row each (one query)."""
+    rows = FittedCapacitor.objects.filter(id__in=list(installation_ids)).values_list(*INSTALLATION_COLUMNS)
+    frame = pd.DataFrame.from_records(list(rows), columns=list(INSTALLATION_COLUMNS.values()))
+    return frame.sort_values("installation_id").reset_index(drop=True)
+
+
+def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
+    """Rated uF of each motor's capacitors in service, by role (one query).
+
+    A two-value motor starts on run + start in parallel, so judging either
+    capacitor needs the other's rating.
+    """
+    rows = FittedCapacitor.objects.filter(motor_id__in=list(motor_ids), removed_on__isnull=True).values_list(
+        "motor_id", "role", "part__rated_uf"
+    )
+    frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
+    table = frame.pivot_table(index="motor_id", columns="role", values="rated_uf", aggfunc="first")
+    return table.reindex(columns=["run", "start"])
+
+
+READING_COLUMNS = [
+    "id", "installation_id", "taken_at", "capacitance_uf", "case_temperature_c",
+    "capacitor_voltage_v", "supersedes_id", "condition",
+]
+
+
+def readings_frame(installation_ids) -> pd.DataFrame:
+    """Every reading of the given capacitors (one query), with a `superseded` column."""
+    rows = Reading.objects.filter(installation_id__in=list(installation_ids)).values_list(*READING_COLUMNS)
+    frame = pd.DataFrame.from_records(list(rows), columns=READING_COLUMNS)
+    superseded_ids = set(frame["supersedes_id"].dropna().astype(np.int64))
+    frame["superseded"] = frame["id"].isin(superseded_ids)
+    for column in ("case_temperature_c", "capacitor_voltage_v"):
+        frame[column] = frame[column].astype(float)
+    return frame
+
+
+def part_priors_frame(part_ids) -> pd.DataFrame:
+    rows = PartPrior.objects.filter(part_id__in=list(part_ids)).values()
+    return pd.DataFrame.from_records(list(rows)).set_index("part_id") if rows else pd.DataFrame()

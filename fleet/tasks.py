@@ -1,0 +1,31 @@
+"""Celery tasks: thin, idempotent, arguments are ids. Each calls one service."""
+
+from __future__ import annotations
+
+from celery import group, shared_task
+
+from fleet.services import assessments, refits
+
+
+@shared_task(acks_late=True)
+def refit_installation(installation_id: int) -> int:
+    return assessments.refit_installations([installation_id]).written
+
+
+@shared_task(acks_late=True)
+def refit_chunk(run_id: int, installation_ids: list[int]) -> None:
+    refits.refit_chunk(run_id, installation_ids)
+
+
+@shared_task
+def refit_fleet() -> int:
+    return refits.start_fleet_refit().id
+
+
+@shared_task
+def sweep_stale() -> int:
+    return refits.sweep_stale()
+
+
+def dispatch_refit_chunks(run_id: int, chunks: list[list[int]]) -> None:
+    group(refit_chunk.s(run_id, chunk) for chunk in chunks).apply_async()

@@ -1,0 +1,18 @@
+from django.urls import path
+
+from . import views
+
+urlpatterns = [
+    path("", views.home, name="home"),
+    path("find/", views.find_motor, name="find"),
+    path("motors/<str:asset_tag>/", views.motor_detail, name="motor"),
+    path("capacitors/<int:installation_id>/", views.capacitor_detail, name="capacitor"),
+    path("capacitors/<int:installation_id>/reading/", views.reading_new, name="reading_new"),
+    path("capacitors/<int:installation_id>/replace/", views.replace, name="replace"),
+    path("sites/<str:site_code>/route/", views.site_route, name="route"),
+    path("sites/<str:site_code>/labels/", views.labels, name="labels"),
+    path("plan/", views.plan, name="plan"),
+    path("refits/", views.refits, name="refits"),
+    path("refits/start/", views.refit_start, name="refit_start"),
+    path("assets/plotly.js", views.plotly_js, name="plotly_js"),
+]

@@ -1,0 +1,218 @@
+"""Pages. Each view checks the role's permission, calls a service, renders."""
+
+from __future__ import annotations
+
+import io
+
+import segno
+from django.contrib import messages
+from django.contrib.auth.decorators import permission_required
+from django.core.exceptions import ValidationError
+from django.core.paginator import Paginator
+from django.http import Http404, HttpResponse
+from django.shortcuts import get_object_or_404, redirect, render
+from django.urls import reverse
+from django.views.decorators.cache import cache_control
+from django.views.decorators.http import require_POST
+
+from .engineering.capacitor import stored_energy_j
+from .forms import FindMotorForm, ReadingForm, ReplacementForm
+from .models import FittedCapacitor, Motor, RefitRun, Site
+from .roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN, roles_of
+from .services import pages
+from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
+from .services.refits import stale_installation_ids
+from .tasks import refit_fleet
+
+
+def home(request):
+    roles = roles_of(request.user)
+    context = {"find_form": FindMotorForm(), "sites": Site.objects.all()}
+    if roles & {PLANNER, RELIABILITY_ENGINEER} or not roles - {TECHNICIAN}:
+        context["risks"] = pages.risk_summary()
+        context["plan"] = pages.replacement_plan(horizon_days=30)[:15]
+        context["run"] = pages.latest_refit_run()
+    return render(request, "fleet/home.html", context)
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def find_motor(request):
+    form = FindMotorForm(request.GET or None)
+    if form.is_valid():
+        tag = form.cleaned_data["tag"].strip()
+        if Motor.objects.filter(asset_tag__iexact=tag).exists():
+            return redirect("motor", asset_tag=Motor.objects.get(asset_tag__iexact=tag).asset_tag)
+        form.add_error("tag", f"No motor has the tag {tag!r}. Check the label, or search by site below.")
+    return render(request, "fleet/find.html", {"find_form": form, "sites": Site.objects.all()})
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def motor_detail(request, asset_tag):
+    try:
+        motor = pages.motor_with_capacitors(asset_tag)
+    except Motor.DoesNotExist as error:
+        raise Http404(f"No motor {asset_tag}") from error
+    in_service = [c for c in motor.fitted if c.removed_on is None]
+    removed = [c for c in motor.fitted if c.removed_on is not None]
+    for capacitor in in_service:
+        capacitor.assessment = capacitor.current[0] if capacitor.current else None
+        capacitor.recent = pages.recent_readings(capacitor, 4)
+    energy = max((_energy_j(c.part) for c in in_service), default=None)
+    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy}
+    return render(request, "fleet/motor.html", context)
+
+
+def _energy_j(part) -> float:
+    """Worst-case stored energy: the part charged to the peak of its rated voltage."""
+    return float(stored_energy_j(part.rated_uf, part.rated_voltage_v))
+
+
+def _installation(installation_id) -> FittedCapacitor:
+    return get_object_or_404(FittedCapacitor.objects.select_related("motor__site", "part"), pk=installation_id)
+
+
+@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+def capacitor_detail(request, installation_id):
+    installation = _installation(installation_id)
+    assessment = installation.assessments.filter(is_current=True).first()
+    context = {
+        "installation": installation,
+        "motor": installation.motor,
+        "assessment": assessment,
+        "chart": pages.trend_chart(installation, assessment),
+        "readings": pages.recent_readings(installation, 40),
+    }
+    return render(request, "fleet/capacitor.html", context)
+
+
+@permission_required("fleet.add_reading", raise_exception=True)
+def reading_new(request, installation_id):
+    installation = _installation(installation_id)
+    needs_confirmation = False
+    if request.method == "POST":
+        form = ReadingForm(request.POST)
+        if form.is_valid():
+            try:
+                record_reading(
+                    installation=installation, values=form.measured_values(), user=request.user,
+                    confirmed=form.cleaned_data["confirmed"],
+                )
+            except NeedsConfirmation as error:
+                needs_confirmation = True
+                form.add_error(None, error)
+            except ValidationError as error:
+                _add_errors(form, error)
+            else:
+                messages.success(request, f"Reading saved for {installation.motor.asset_tag} ({installation.get_role_display().lower()} capacitor).")
+                return redirect("motor", asset_tag=installation.motor.asset_tag)
+    else:
+        form = ReadingForm()
+    assessment = installation.assessments.filter(is_current=True).first()
+    context = {
+        "installation": installation,
+        "motor": installation.motor,
+        "part": installation.part,
+        "form": form,
+        "needs_confirmation": needs_confirmation,
+        "assessment": assessment,
+        "recent": pages.recent_readings(installation),
+        "energy_j": _energy_j(installation.part),
+    }
+    return render(request, "fleet/reading_form.html", context)
+
+
+def _add_errors(form, error: ValidationError) -> None:
+    """Attach a service's errors to the form's fields (unknown fields to the top)."""
+    for field, field_messages in error.message_dict.items():
+        form.add_error(field if field in form.fields else None, field_messages)
+
+
+@permission_required("fleet.add_fittedcapacitor", raise_exception=True)
+def replace(request, installation_id):
+    installation = _installation(installation_id)
+    form = ReplacementForm(request.POST or None, installation=installation)
+    if request.method == "POST" and form.is_valid():
+        try:
+            successor = replace_capacitor(
+                installation=installation, part=form.cleaned_data["part"], removed_on=form.cleaned_data["removed_on"],
+                reason=form.cleaned_data["removal_reason"], user=request.user, serial=form.cleaned_data["serial"],
+                notes=form.cleaned_data["notes"],
+            )
+        except ValidationError as error:
+            _add_errors(form, error)
+        else:
+            messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
+            return redirect("reading_new", installation_id=successor.id)
+    context = {"installation": installation, "motor": installation.motor, "form": form, "energy_j": _energy_j(installation.part)}
+    return render(request, "fleet/replace.html", context)
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def site_route(request, site_code):
+    site = get_object_or_404(Site, code=site_code)
+    rows, quarter_start = pages.route_for_site(site)
+    due = sum(1 for row in rows if row["due"])
+    return render(request, "fleet/route.html", {"site": site, "rows": rows, "quarter_start": quarter_start, "due": due})
+
+
+def _qr_svg(request, motor: Motor) -> str:
+    url = request.build_absolute_uri(reverse("motor", kwargs={"asset_tag": motor.asset_tag}))
+    buffer = io.BytesIO()
+    segno.make(url, error="m").save(buffer, kind="svg", scale=4, border=1, xmldecl=False, svgns=True)
+    return buffer.getvalue().decode()
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def labels(request, site_code):
+    site = get_object_or_404(Site, code=site_code)
+    motors = Motor.objects.filter(site=site).order_by("route_order", "asset_tag")
+    tag = request.GET.get("tag")
+    if tag:
+        motors = motors.filter(asset_tag=tag)
+    labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in motors]
+    return render(request, "fleet/labels.html", {"site": site, "labels": labels_})
+
+
+@permission_required("fleet.view_assessment", raise_exception=True)
+def plan(request):
+    horizon = _int_param(request, "days", 90, 7, 730)
+    site = Site.objects.filter(code=request.GET.get("site")).first()
+    paginator = Paginator(pages.replacement_plan(horizon, site), 50)
+    page = paginator.get_page(request.GET.get("page"))
+    context = {
+        "page": page,
+        "horizon": horizon,
+        "site": site,
+        "sites": Site.objects.all(),
+        "spares": pages.spares_needed(horizon),
+        "risks": pages.risk_summary(),
+    }
+    return render(request, "fleet/plan.html", context)
+
+
+def _int_param(request, name, default, lowest, highest) -> int:
+    try:
+        return max(lowest, min(highest, int(request.GET.get(name, default))))
+    except ValueError:
+        return default
+
+
+@permission_required("fleet.view_refitrun", raise_exception=True)
+def refits(request):
+    runs = RefitRun.objects.order_by("-started_at")[:10]
+    return render(request, "fleet/refits.html", {"runs": runs, "stale": len(stale_installation_ids())})
+
+
+@require_POST
+@permission_required("fleet.add_refitrun", raise_exception=True)
+def refit_start(request):
+    refit_fleet.delay()
+    messages.success(request, "Fleet refit started. Progress shows below.")
+    return redirect("refits")
+
+
+@cache_control(max_age=86400, public=True)
+def plotly_js(request):
+    from plotly.offline import get_plotlyjs
+
+    return HttpResponse(get_plotlyjs(), content_type="application/javascript")
