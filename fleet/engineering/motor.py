@@ -291,6 +291,11 @@ def two_winding_running(
     With the auxiliary open (capacitor-start after cut-out, zero capacitance, or
     aux_in_circuit False) Ia = 0 and the main winding runs alone.
     """
+    with np.errstate(invalid="ignore", divide="ignore"):  # a stalled motor's slip is nan
+        return _two_winding_running(circuit, capacitance_uf, slip, esr_ohm, aux_in_circuit)
+
+
+def _two_winding_running(circuit, capacitance_uf, slip, esr_ohm, aux_in_circuit) -> RunningResult:
     c = circuit
     s = np.asarray(slip, float)
     a = c.turns_ratio
@@ -323,9 +328,8 @@ def two_winding_running(
     input_power = s_in.real
     theta = np.angle(i_aux) - np.angle(i_main)
     theta = np.where(aux_open, np.nan, (theta + np.pi) % TWO_PI - np.pi)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        efficiency = np.where(input_power > 0, output / input_power, np.nan)
-        power_factor = input_power / np.abs(s_in)
+    efficiency = np.where(input_power > 0, output / input_power, np.nan)
+    power_factor = input_power / np.abs(s_in)
     return RunningResult(
         slip=np.broadcast_to(s, i_main.shape),
         speed_rad_s=np.broadcast_to(speed, i_main.shape),

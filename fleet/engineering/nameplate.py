@@ -14,6 +14,7 @@ motor: the caller de-duplicates nameplates before calling.
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 
 import numpy as np
@@ -123,9 +124,14 @@ def _data_residuals(theta, plate: Nameplate, readings: CommissioningReadings):
     return np.array(residuals)
 
 
-def _balance_residual(theta, plate: Nameplate):
-    """Designers balance a run capacitor near rated load: a soft pull toward it."""
-    if plate.motor_kind == CAPACITOR_START:
+def _balance_residual(theta, plate: Nameplate, readings: CommissioningReadings):
+    """Designers balance a run capacitor near rated load: a soft pull toward it.
+
+    A prior, not a datum: measured running winding currents say how balanced the
+    motor really is, and then the pull steps aside.
+    """
+    measured = readings.main_current_a is not None or readings.aux_current_a is not None
+    if plate.motor_kind == CAPACITOR_START or measured:
         return np.zeros(0)
     rated = two_winding_running(_circuit(theta, plate), plate.run_capacitance_uf, _rated_slip(plate))
     # Weight 3: strong enough to rule out designs whose backward field rivals the
@@ -155,7 +161,7 @@ def estimate_parameters(
         return np.concatenate(
             [
                 10.0 * _data_residuals(theta, plate, readings),
-                _balance_residual(theta, plate),
+                _balance_residual(theta, plate, readings),
                 _prior_residuals(theta),
             ]
         )
@@ -163,13 +169,14 @@ def estimate_parameters(
     # Several starts: the problem has local minima (one with the backward field
     # larger than the forward one); the lowest cost wins.
     best = None
-    for turns_ratio in (1.1, 1.4, 1.8):
-        for leakage in (0.05, 0.12):
-            theta0 = np.log([0.12 * z_base, leakage * z_base, 0.18 * z_base, 3.5 * z_base, turns_ratio, 1.2])
-            bounds = (theta0 - np.log(50.0), theta0 + np.log(50.0))
-            candidate = least_squares(residuals, theta0, bounds=bounds, x_scale=1.0)
-            if best is None or candidate.cost < best.cost:
-                best = candidate
+    starts = itertools.product((1.1, 1.4, 1.8), (0.05, 0.12), (1.5, 4.0))
+    for turns_ratio, leakage, magnetising in starts:
+        theta0 = np.log([0.12 * z_base, leakage * z_base, 0.18 * z_base, magnetising * z_base, turns_ratio, 1.2])
+        bounds = (np.log(z_base) + np.log(1e-3), np.log(z_base) + np.log(100.0))
+        candidate = least_squares(residuals, theta0, bounds=(np.r_[np.full(4, bounds[0]), np.log(0.3), np.log(0.2)],
+                                                              np.r_[np.full(4, bounds[1]), np.log(4.0), np.log(5.0)]))
+        if best is None or candidate.cost < best.cost:
+            best = candidate
     solution = best
     theta = solution.x
     data_count = len(_data_residuals(theta, plate, readings))

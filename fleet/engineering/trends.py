@@ -263,8 +263,8 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         dof = np.bincount(part, weights=np.where(rich, n - 2, 0.0), minlength=n_parts)
         fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
         with np.errstate(invalid="ignore", divide="ignore"):
-            noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
-        noise_var = np.maximum(noise_var, settings.noise_floor_fraction**2)
+            raw_noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
+        noise_var = np.maximum(raw_noise_var, settings.noise_floor_fraction**2)
         if priors is not None:
             noise_var = np.asarray(priors.noise_var, float)
         # Population of paths per part (method of moments, clipped).
@@ -314,7 +314,7 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         "noise_sd": np.sqrt(s2),
         "used": used,
         "flagged": flagged,
-        "part_noise_sd": np.sqrt(noise_var),
+        "part_noise_sd": np.sqrt(raw_noise_var),  # before the floor: for choosing a model
         "part_mean_fraction": np.where(count > 0, mean_fraction / np.maximum(count, 1), 1.0),
         "intercept_mean": prior_mean0,
         "intercept_var": prior_var0,

@@ -1,0 +1,103 @@
+"""Shared fixtures: a small register built through the ORM (factories as functions)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import itertools
+
+import pytest
+from django.contrib.auth.models import Group, User
+from django.utils import timezone
+
+from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
+
+_serial = itertools.count(1)
+
+# A PSC fan motor whose circuit came from the nameplate estimator (230 V, 50 Hz,
+# 6 poles, 120 W, 0.95 A, 910 rpm, 4 uF): plausible, not a published machine.
+FAN_CIRCUIT = dict(
+    r1m_ohm=35.12, x1m_ohm=8.47, r1a_ohm=75.87, x1a_ohm=15.23, r2_ohm=56.09, x2_ohm=8.47, xm_ohm=296.66,
+    turns_ratio=1.34, rotational_loss_w=6.0, circuit_source="estimated",
+)
+
+
+def make_site(code=None, **kwargs) -> Site:
+    code = code or f"S{next(_serial):03d}"
+    return Site.objects.create(code=code, name=kwargs.pop("name", f"Site {code}"), **kwargs)
+
+
+def make_part(**kwargs) -> CapacitorPart:
+    values = dict(
+        code=f"P-{next(_serial)}", rated_uf=4.0, tolerance_minus_pct=5, tolerance_plus_pct=5, rated_voltage_v=450,
+        frequency_hz=50, dielectric="film", class_of_operation="B", safety_class="S2", unit_cost=6,
+    )
+    values.update(kwargs)
+    return CapacitorPart.objects.create(**values)
+
+
+def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
+    values = dict(
+        asset_tag=f"M-{next(_serial):05d}", site=site or make_site(), application="fan", motor_type="permanent_split",
+        load_type="fan_law", rated_voltage_v=230, frequency_hz=50, poles=6, output_w=120, full_load_current_a=0.95,
+        rated_speed_rpm=910, location="Cold room 1",
+    )
+    if with_circuit:
+        values.update(FAN_CIRCUIT)
+    values.update(kwargs)
+    return Motor.objects.create(**values)
+
+
+def make_installation(motor=None, part=None, role="run", fitted_on=dt.date(2022, 1, 1), **kwargs) -> FittedCapacitor:
+    return FittedCapacitor.objects.create(
+        motor=motor or make_motor(), part=part or make_part(), role=role, fitted_on=fitted_on, **kwargs
+    )
+
+
+def make_reading(installation, taken_at=None, capacitance_uf=4.0, **kwargs) -> Reading:
+    taken_at = taken_at or timezone.now() - dt.timedelta(days=1)
+    values = dict(method="meter", case_temperature_c=25.0, source="demo")
+    values.update(kwargs)
+    return Reading.objects.create(installation=installation, taken_at=taken_at, capacitance_uf=capacitance_uf, **values)
+
+
+def quarterly_readings(installation, start: dt.datetime, values_uf, **kwargs) -> list[Reading]:
+    return [
+        make_reading(installation, taken_at=start + dt.timedelta(days=91 * i), capacitance_uf=value, **kwargs)
+        for i, value in enumerate(values_uf)
+    ]
+
+
+def make_user(role: str, username: str | None = None) -> User:
+    user = User.objects.create_user(username=username or f"{role.split()[0]}{next(_serial)}", password="a-long-test-password")
+    user.groups.add(Group.objects.get(name=role))
+    if role == ADMINISTRATOR:
+        user.is_staff = True
+        user.save()
+    return user
+
+
+@pytest.fixture
+def technician(db):
+    return make_user(TECHNICIAN)
+
+
+@pytest.fixture
+def planner(db):
+    return make_user(PLANNER)
+
+
+@pytest.fixture
+def engineer(db):
+    return make_user(RELIABILITY_ENGINEER)
+
+
+@pytest.fixture
+def administrator(db):
+    return make_user(ADMINISTRATOR)
+
+
+@pytest.fixture
+def fan_installation(db):
+    """A PSC fan with a 4 uF +/-5 % 450 V run capacitor fitted on 2022-01-01."""
+    return make_installation()

@@ -1,0 +1,66 @@
+"""Capacitor functions: verdicts, losses, energy, temperature and life factors."""
+
+import numpy as np
+import pytest
+
+from fleet.engineering.capacitor import (
+    VERDICT_HIGH,
+    VERDICT_LOW,
+    VERDICT_OPEN,
+    VERDICT_WITHIN,
+    acceleration_factor,
+    dissipation_factor_from_esr,
+    esr_from_dissipation_factor,
+    normalise_to_25c,
+    rated_life_hours,
+    stored_energy_j,
+    tolerance_verdict,
+)
+
+
+def test_verdicts_for_a_film_run_capacitor_marked_plus_minus_5_percent():
+    """[trade] replace a run capacitor below its lower tolerance; 10 % of rated or
+    less reads as an open circuit (a tripped disconnector)."""
+    verdict = tolerance_verdict([10.0, 9.4, 10.6, 0.3, 9.5], 10.0, 5, 5)
+    assert verdict.code.tolist() == [VERDICT_WITHIN, VERDICT_LOW, VERDICT_HIGH, VERDICT_OPEN, VERDICT_WITHIN]
+    assert verdict.margin_uf[1] == pytest.approx(-0.1)
+    assert verdict.margin_pct[0] == pytest.approx(5.0)
+
+
+def test_verdict_for_an_electrolytic_marked_as_a_range():
+    """[trade] start capacitors are marked with a range, e.g. 88-108 uF: rated 98 uF
+    with 10.2 % each way reproduces the marked limits."""
+    verdict = tolerance_verdict([87.0, 90.0, 109.0], 98.0, 10.204, 10.204)
+    assert verdict.lower_uf[0] == pytest.approx(88.0, abs=0.01)
+    assert verdict.upper_uf[0] == pytest.approx(108.0, abs=0.01)
+    assert verdict.code.tolist() == [VERDICT_LOW, VERDICT_WITHIN, VERDICT_HIGH]
+
+
+def test_esr_is_dissipation_factor_times_reactance():
+    """[trade] ESR = DF x Xc; 100 uF at 50 Hz has Xc = 31.83 ohm, so DF 6 % is 1.91 ohm."""
+    assert esr_from_dissipation_factor(0.06, 100.0, 50.0) == pytest.approx(1.9099, abs=1e-4)
+    assert dissipation_factor_from_esr(1.9099, 100.0, 50.0) == pytest.approx(0.06, abs=1e-5)
+
+
+def test_stored_energy_of_a_start_capacitor_is_tens_of_joules():
+    """[trade] C V_peak^2 / 2: 200 uF charged to the peak of 330 V RMS holds 21.8 J."""
+    assert stored_energy_j(200.0, 330.0) == pytest.approx(21.78, abs=0.01)
+
+
+def test_polypropylene_normalisation_to_25_c():
+    """[mem] about -200 ppm/K: 10 uF read at 75 C is 10.1 uF at 25 C; nan temperature leaves it."""
+    assert normalise_to_25c(10.0, 75.0) == pytest.approx(10.0 / 0.99)
+    assert normalise_to_25c(10.0, np.nan) == pytest.approx(10.0)
+
+
+def test_ten_kelvin_rule_and_voltage_exponent():
+    """[mem] 10-K rule: life halves for each 10 K; (U_N/V)^n for voltage."""
+    assert acceleration_factor(50.0, 450.0, 40.0, 450.0) == pytest.approx(2.0)
+    assert acceleration_factor(40.0, 405.0, 40.0, 450.0, voltage_exponent=10.0) == pytest.approx(0.9**10)
+
+
+def test_class_of_operation_life_at_rated_conditions():
+    """[pub] IEC 60252-1 classes A 30,000 h, B 10,000 h, C 3,000 h at rated conditions."""
+    life = rated_life_hours(np.array(["A", "B", "C"]), 70.0, 70.0, 450.0, 450.0)
+    assert life.tolist() == [30000.0, 10000.0, 3000.0]
+    assert rated_life_hours("B", 70.0, 60.0, 450.0, 450.0) == pytest.approx(20000.0)
