@@ -389,7 +389,11 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
             var_t = np.maximum(v00 + 2.0 * roots * v01 + roots * roots * v11, 1e-300)
             g = (d - m1 * roots) / np.sqrt(var_t)
             rising = -m1 * var_t - (d - m1 * roots) * (v01 + roots * v11) > 0
-            admissible = (disc >= 0) & np.isfinite(roots) & rising & (np.abs(g - zp) <= 1e-6 * (1 + abs(zp)))
+            # At P50 the discriminant is zero in exact arithmetic: allow rounding either
+            # side of it. The squared equation's false branch has g = -z_p, far from
+            # z_p except at P50, where the two roots coincide anyway.
+            real_roots = disc >= -1e-9 * qb * qb
+            admissible = real_roots & np.isfinite(roots) & rising & (np.abs(g - zp) <= 1e-3 * (1 + abs(zp)))
         rows.append(np.min(np.where(admissible, roots, np.inf), axis=0))
     return np.maximum(np.stack(rows), 0.0)
 

@@ -5,6 +5,8 @@ spread per part, quarterly readings, meter noise of 0.6 %. What is checked is
 the method's promise: slopes recovered, strays flagged, bands that cover.
 """
 
+from types import SimpleNamespace
+
 import numpy as np
 import pytest
 
@@ -136,3 +138,18 @@ def test_prediction_band_holds_about_90_percent_of_new_readings():
                                    result.noise_sd[i], tau_next[i])
         inside.append(low <= new_reading[i] <= high)
     assert np.mean(inside) == pytest.approx(0.90, abs=0.03)
+
+
+def test_median_crossing_exists_for_a_tight_posterior():
+    """Regression: at P50 the quadratic's two roots coincide; rounding split them by
+    1e-4 h and a too-strict branch check then dropped both, losing the median date.
+    The numbers are those of the capacitor that showed it."""
+    path = SimpleNamespace(
+        to_z=lambda fraction: np.asarray(fraction, float),
+        intercept=np.array([1.0342299619950162]),
+        slope_per_hour=np.array([-1.2951398711068078e-05]),
+        covariance=np.array([[[9.41178743e-07, -3.01465411e-14], [-3.01465411e-14, 3.99984550e-16]]]),
+    )
+    q = crossing_quantiles(path, 0.95)
+    assert q[1, 0] == pytest.approx((0.95 - 1.0342299619950162) / -1.2951398711068078e-05, rel=1e-6)
+    assert q[0, 0] < q[1, 0] < q[2, 0]

@@ -1,0 +1,184 @@
+"""Services: readings, refits, assessments, replacements, sweeps."""
+
+import datetime as dt
+from unittest import mock
+
+import pytest
+from django.core.exceptions import ValidationError
+from django.utils import timezone
+
+from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, WorkOrder
+from fleet.services.assessments import refit_installations
+from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
+from fleet.services.refits import stale_installation_ids, start_fleet_refit, sweep_stale
+
+from .conftest import make_installation, make_motor, make_part, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+START = timezone.make_aware(dt.datetime(2023, 1, 10, 10))
+
+
+def ageing_fleet(count=12, part=None):
+    """Capacitors of one part losing about 1 % of rating a quarter, at rated conditions."""
+    part = part or make_part()
+    installations = []
+    for i in range(count):
+        installation = make_installation(part=part)
+        values = [4.0 * (1.0 - 0.01 * q - 0.001 * i) for q in range(8)]
+        quarterly_readings(installation, START, values, case_temperature_c=25.0)
+        installations.append(installation)
+    return installations
+
+
+def test_saving_a_reading_queues_its_refit_after_commit(fan_installation, technician, django_capture_on_commit_callbacks):
+    with mock.patch("fleet.tasks.refit_installation.delay") as delay:
+        with django_capture_on_commit_callbacks(execute=True) as callbacks:
+            record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician)
+    assert len(callbacks) == 1
+    delay.assert_called_once_with(fan_installation.id)
+
+
+def test_a_broker_that_is_down_does_not_lose_the_reading(fan_installation, technician, django_capture_on_commit_callbacks):
+    with mock.patch("fleet.tasks.refit_installation.delay", side_effect=ConnectionError("broker down")):
+        with django_capture_on_commit_callbacks(execute=True):
+            reading = record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician)
+    assert Reading.objects.filter(pk=reading.pk).exists()
+    assert fan_installation.id in stale_installation_ids()
+    assert sweep_stale() == 1
+    assert stale_installation_ids() == []
+
+
+def test_in_circuit_reading_computes_capacitance(fan_installation):
+    """[trade] C = 10^6 I / (2 pi f V): 0.5 A at 400 V, 50 Hz is 3.979 uF."""
+    reading = record_reading(
+        installation=fan_installation,
+        values={"method": "in_circuit", "capacitor_current_a": 0.5, "capacitor_voltage_v": 400.0},
+    )
+    assert reading.capacitance_uf == pytest.approx(3.979, abs=0.001)
+
+
+@pytest.mark.parametrize(
+    "values,field,words",
+    [
+        ({"method": "meter", "capacitance_uf": 3950.0}, "capacitance_uf", "nanofarads"),
+        ({"method": "in_circuit", "capacitor_current_a": 500.0, "capacitor_voltage_v": 400.0}, "capacitor_current_a", "milliamperes"),
+        ({"method": "in_circuit", "capacitor_current_a": 0.5}, "capacitor_voltage_v", "voltage"),
+        ({"method": "meter"}, "capacitance_uf", "Enter the capacitance"),
+        ({"method": "meter", "capacitance_uf": 4.0, "taken_at": timezone.now() + dt.timedelta(days=2)}, "taken_at", "future"),
+    ],
+)
+def test_bad_readings_are_refused_by_field_and_nothing_is_saved(fan_installation, values, field, words):
+    with pytest.raises(ValidationError) as error:
+        record_reading(installation=fan_installation, values=values)
+    assert words in " ".join(error.value.message_dict[field])
+    assert not Reading.objects.exists()
+
+
+def test_a_jump_off_the_trend_needs_confirmation_and_is_then_kept(fan_installation):
+    quarterly_readings(fan_installation, START, [4.0, 3.98, 3.97, 3.95])
+    refit_installations([fan_installation.id])
+    with pytest.raises(NeedsConfirmation):
+        record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2})
+    reading = record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2}, confirmed=True)
+    assert reading.outlier_confirmed
+
+
+def test_refit_writes_one_current_assessment_and_rerunning_adds_nothing():
+    installations = ageing_fleet()
+    ids = [i.id for i in installations]
+    first = refit_installations(ids)
+    assert first.written == len(ids)
+    rows = list(Assessment.objects.order_by("id").values_list("id", "installation_id", "p50_on"))
+    second = refit_installations(ids)
+    assert second.written == 0 and second.skipped == len(ids)
+    assert list(Assessment.objects.order_by("id").values_list("id", "installation_id", "p50_on")) == rows
+
+
+def test_a_forced_refit_reproduces_the_same_figures():
+    installations = ageing_fleet()
+    ids = [i.id for i in installations]
+    refit_installations(ids)
+    before = dict(Assessment.objects.filter(is_current=True).values_list("installation_id", "slope_pct_per_1000h"))
+    refit_installations(ids, force=True)
+    after = dict(Assessment.objects.filter(is_current=True).values_list("installation_id", "slope_pct_per_1000h"))
+    assert after == pytest.approx(before)
+    assert Assessment.objects.filter(is_current=False).count() == len(ids)
+
+
+def test_refit_recovers_the_known_loss_rate_and_plans_before_the_limit():
+    """1 % of rating per quarter (2184 h) at rated conditions is about 0.46 % per 1000 h of
+    stress at 25 C case temperature (acceleration 2^((25-40)/10) = 0.354 per calendar hour)."""
+    installations = ageing_fleet()
+    refit_installations([i.id for i in installations])
+    assessment = Assessment.objects.get(installation=installations[0], is_current=True)
+    calendar_rate = -1.0 / (91 * 24) * 1000  # % per 1000 calendar hours
+    assert assessment.slope_pct_per_1000h == pytest.approx(calendar_rate / 2 ** (-1.5), rel=0.1)
+    # 8 quarters: about 7 % lost, below the -5 % tolerance: replace now.
+    assert assessment.risk == "replace now"
+    assert assessment.latest_verdict == "below tolerance"
+    assert assessment.replace_by == timezone.localdate()
+
+
+def test_a_capacitor_with_one_reading_gets_a_pooled_low_confidence_forecast():
+    part = make_part()
+    ageing_fleet(part=part)
+    newcomer = make_installation(part=part, fitted_on=dt.date(2025, 1, 1))
+    quarterly_readings(newcomer, timezone.make_aware(dt.datetime(2025, 6, 1)), [3.98])
+    refit_installations([newcomer.id])
+    assessment = Assessment.objects.get(installation=newcomer, is_current=True)
+    assert assessment.low_confidence
+    assert assessment.slope_pct_per_1000h < 0
+    assert assessment.p50_on is not None
+    assert PartPrior.objects.filter(part=part).exists()
+
+
+def test_operating_point_figures_are_stored_for_motors_with_a_circuit():
+    installations = ageing_fleet(count=6)
+    refit_installations([i.id for i in installations])
+    assessment = Assessment.objects.filter(is_current=True).first()
+    assert assessment.figures_new["i_main_a"] < assessment.figures_now["i_main_a"]
+    assert assessment.figures_new["i_aux_a"] > assessment.figures_now["i_aux_a"]
+
+
+def test_fleet_refit_records_progress_to_done_in_eager_mode():
+    ageing_fleet(count=7)
+    run = start_fleet_refit(chunk_size=3)
+    # Chunks are dispatched on commit; pytest's transaction wraps the test, so run them.
+    from fleet.tasks import refit_chunk
+
+    ids = list(FittedCapacitor.objects.order_by("id").values_list("id", flat=True))
+    for chunk in (ids[:3], ids[3:6], ids[6:]):
+        refit_chunk(run.id, chunk)
+    run.refresh_from_db()
+    assert (run.state, run.done, run.total) == (RefitRun.State.DONE, 7, 7)
+    assert Assessment.objects.filter(is_current=True).count() == 7
+
+
+def test_replacement_closes_open_orders_and_starts_a_new_history(fan_installation, technician):
+    order = WorkOrder.objects.create(motor=fan_installation.motor, installation=fan_installation, kind="replace_run", due_on=dt.date(2026, 1, 1))
+    successor = replace_capacitor(
+        installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed", user=technician
+    )
+    fan_installation.refresh_from_db()
+    order.refresh_from_db()
+    assert fan_installation.removal_reason == "failed"
+    assert successor.removed_on is None and successor.fitted_on == timezone.localdate()
+    assert order.state == WorkOrder.State.DONE and order.closed_by == technician
+    with pytest.raises(ValidationError):
+        replace_capacitor(installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed")
+
+
+def test_replacement_dated_in_the_future_is_refused(fan_installation):
+    with pytest.raises(ValidationError) as error:
+        replace_capacitor(installation=fan_installation, part=fan_installation.part,
+                          removed_on=timezone.localdate() + dt.timedelta(days=3), reason="planned")
+    assert "removed_on" in error.value.message_dict
+
+
+def test_motor_without_a_circuit_is_judged_on_tolerance_alone():
+    motor = make_motor(with_circuit=False)
+    installation = make_installation(motor=motor)
+    quarterly_readings(installation, START, [4.0, 3.99, 3.98])
+    refit_installations([installation.id])
+    assessment = Assessment.objects.get(installation=installation)
+    assert assessment.limit_source == "tolerance" and assessment.figures_now == {}
