@@ -50,8 +50,8 @@ PRODUCTION = PROFILE == "production"
 
 DEVELOPMENT_SECRET_KEY = "development-only-not-secret-0f3c9a"
 SECRET_KEY = os.environ.get("SECRET_KEY", "" if PRODUCTION else DEVELOPMENT_SECRET_KEY)
-if PRODUCTION and (not SECRET_KEY or SECRET_KEY == DEVELOPMENT_SECRET_KEY or len(SECRET_KEY) < 32):
-    raise ImproperlyConfigured("FLEET_PROFILE=production needs SECRET_KEY: 32 or more random characters")
+if PRODUCTION and (not SECRET_KEY or SECRET_KEY == DEVELOPMENT_SECRET_KEY or len(SECRET_KEY) < 50):
+    raise ImproperlyConfigured("FLEET_PROFILE=production needs SECRET_KEY: 50 or more random characters")
 
 DEBUG = env_bool("DEBUG", not PRODUCTION)
 ALLOWED_HOSTS = env_list("ALLOWED_HOSTS", "127.0.0.1,localhost")
@@ -124,6 +124,9 @@ USE_TZ = True
 
 STATIC_URL = "static/"
 STATIC_ROOT = BASE_DIR / "staticfiles"
+# Outside production, serve straight from the apps' static folders (no collectstatic).
+WHITENOISE_USE_FINDERS = not PRODUCTION
+WHITENOISE_AUTOREFRESH = not PRODUCTION
 STORAGES = {
     "default": {"BACKEND": "django.core.files.storage.FileSystemStorage"},
     "staticfiles": {

@@ -1,6 +1,8 @@
 """Services: readings, refits, assessments, replacements, sweeps."""
 
 import datetime as dt
+
+import numpy as np
 from unittest import mock
 
 import pytest
@@ -182,3 +184,31 @@ def test_motor_without_a_circuit_is_judged_on_tolerance_alone():
     refit_installations([installation.id])
     assessment = Assessment.objects.get(installation=installation)
     assert assessment.limit_source == "tolerance" and assessment.figures_now == {}
+
+
+def test_limits_computed_per_design_equal_limits_computed_per_motor():
+    """Motors of two designs, interleaved: the per-design shortcut gives each motor
+    the limit a direct per-motor computation gives."""
+    from fleet.engineering.drift import capacitance_limits
+    from fleet.engineering.motor import LOAD_FAN, MotorCircuit, load_matching_rated_slip
+
+    # A wide tolerance, so the motor's own limit governs and differs by design.
+    small, large = make_part(rated_uf=4.0, tolerance_minus_pct=45), make_part(rated_uf=3.0, tolerance_minus_pct=45)
+    installations = [make_installation(part=small if i % 2 else large) for i in range(6)]
+    for installation in installations:
+        quarterly_readings(installation, START, [installation.part.rated_uf * f for f in (1.0, 0.99, 0.98)])
+    refit_installations([i.id for i in installations])
+    for installation in installations[:2]:
+        motor = installation.motor
+        circuit = MotorCircuit.from_arrays(
+            r1m=motor.r1m_ohm, x1m=motor.x1m_ohm, r1a=motor.r1a_ohm, x1a=motor.x1a_ohm, r2=motor.r2_ohm, x2=motor.x2_ohm,
+            xm=motor.xm_ohm, turns_ratio=motor.turns_ratio, voltage_v=230, frequency_hz=50, poles=6,
+            rotational_loss_w=motor.rotational_loss_w,
+        )
+        rated = installation.part.rated_uf
+        load = load_matching_rated_slip(circuit, rated, 0.09, LOAD_FAN)
+        direct = capacitance_limits(circuit, load, "permanent_split", "run", rated, 0.0, 0.95, 450.0)
+        stored = Assessment.objects.get(installation=installation, is_current=True)
+        assert np.isfinite(direct.governing_fraction) and direct.governing_fraction > 0.55
+        assert stored.limit_fraction == pytest.approx(float(direct.governing_fraction))
+        assert stored.limit_source != "tolerance"

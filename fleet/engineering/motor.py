@@ -380,8 +380,8 @@ def operating_point(
     load: Load,
     aux_in_circuit=True,
     esr_ohm=0.0,
-    grid_points=120,
-    iterations=50,
+    grid_points=80,
+    iterations=40,
 ) -> RunningResult:
     """Running point where shaft torque meets load torque, for every motor at once.
 
@@ -407,6 +407,8 @@ def operating_point(
         lo = np.where(found, previous, lo)
         hi = np.where(found, s, hi)
         previous, previous_excess = np.full(shape, s), current
+        if not np.isnan(lo).any():
+            break  # every motor bracketed: the rest of the grid cannot change it
     stalled = np.isnan(lo)
     lo = np.where(stalled, 0.5, lo)
     hi = np.where(stalled, 0.6, hi)

@@ -44,10 +44,11 @@ class RefitOutcome:
     readings: int
 
 
-def _hours_since_fitting(readings: pd.DataFrame, fitted_on: pd.Series) -> np.ndarray:
-    fitted = pd.to_datetime(fitted_on).dt.tz_localize("UTC")
-    taken = pd.to_datetime(readings["taken_at"], utc=True)
-    return ((taken.to_numpy() - fitted.to_numpy()) / np.timedelta64(1, "h")).astype(float)
+def _hours_since_fitting(readings: pd.DataFrame, fitted_on: np.ndarray) -> np.ndarray:
+    """Hours from the fitting date (midnight UTC) to each reading."""
+    fitted = np.asarray(fitted_on, dtype="datetime64[D]").astype("datetime64[s]")
+    taken = pd.to_datetime(readings["taken_at"], utc=True).dt.tz_localize(None).to_numpy().astype("datetime64[s]")
+    return (taken - fitted) / np.timedelta64(1, "h")
 
 
 def _fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors | None, part_ids):
@@ -58,7 +59,7 @@ def _fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors |
     return fit_trends(
         group=group,
         part=part_index,
-        time_h=_hours_since_fitting(readings, pd.Series(fitted_on)),
+        time_h=_hours_since_fitting(readings, fitted_on),
         capacitance_uf=readings["capacitance_uf"].to_numpy(float),
         rated_uf=inst["rated_uf"].to_numpy(float),
         temperature_c=readings["case_temperature_c"].to_numpy(float),
@@ -145,6 +146,33 @@ def _motor_circuits(inst: pd.DataFrame):
     return with_circuit, circuit, load, run_uf, start_uf, kind
 
 
+def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
+    """Capacitance limits computed once per distinct design, then spread back.
+
+    The limits depend on the circuit, the load and the ratings only, which a
+    fleet's motors share by the dozen or the thousand; the scan is the costly
+    part of a refit, so it runs once per distinct combination.
+    """
+    key = pd.DataFrame(
+        {
+            **{name: sub[name].to_numpy() for name in ("r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm", "turns_ratio")},
+            "role": role, "kind": kind, "run": run_uf, "start": start_uf,
+            "fla": sub["full_load_current_a"].to_numpy(), "cap_v": sub["part_rated_voltage_v"].to_numpy(),
+            "torque": np.round(load.torque_at_rated_nm, 9), "load_kind": load.kind,
+        }
+    )
+    design = key.groupby(list(key.columns), sort=False, dropna=False).ngroup().to_numpy()
+    first = np.unique(design, return_index=True)[1]
+    limits = capacitance_limits(
+        circuit.take(first),
+        type(load)(load.torque_at_rated_nm[first], load.rated_speed_rad_s[first], np.asarray(load.kind)[first]),
+        kind[first], role[first], run_uf[first], start_uf[first],
+        sub["full_load_current_a"].to_numpy(float)[first], sub["part_rated_voltage_v"].to_numpy(float)[first],
+    )
+    # ngroup numbers designs 0..k-1 and `first` lists them in that order.
+    return limits.governing_fraction[design], limits.governing_limit[design]
+
+
 def refit_installations(installation_ids, *, now: dt.datetime | None = None, force: bool = False) -> RefitOutcome:
     """Fit, judge and plan the given fitted capacitors; store one assessment each."""
     now = now or timezone.now()
@@ -179,16 +207,13 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
-        limits = capacitance_limits(
-            circuit, load, kind, role, run_uf, start_uf,
-            inst["full_load_current_a"].to_numpy(float)[with_circuit],
-            inst["part_rated_voltage_v"].to_numpy(float)[with_circuit],
+        drift_fraction, governing_limit = _limits_per_design(
+            inst[with_circuit], circuit, load, kind, role, run_uf, start_uf
         )
-        drift_fraction = limits.governing_fraction
         index = np.flatnonzero(with_circuit)
         stricter = np.nan_to_num(drift_fraction, nan=-1.0) > limit_fraction[index]
         limit_fraction[index] = np.where(stricter, drift_fraction, limit_fraction[index])
-        names = np.array(LIMIT_NAMES, dtype=object)[np.clip(limits.governing_limit, 0, None)]
+        names = np.array(LIMIT_NAMES, dtype=object)[np.clip(governing_limit, 0, None)]
         limit_source[index] = np.where(stricter, names, limit_source[index])
         scale = fit.fraction_now[index]
         is_run = role == ROLE_RUN

@@ -1,0 +1,57 @@
+"""Settings come from the environment, strictly; production refuses weak secrets."""
+
+import os
+import secrets
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+import yaml
+from django.core.exceptions import ImproperlyConfigured
+
+from config.settings import env_bool
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def run_check(extra_env, *args):
+    env = {k: v for k, v in os.environ.items() if k not in {"SECRET_KEY", "FLEET_PROFILE", "DEBUG"}}
+    env.update(extra_env)
+    return subprocess.run([sys.executable, "manage.py", "check", *args], cwd=ROOT, env=env, capture_output=True, text=True)
+
+
+def test_strict_booleans(monkeypatch):
+    monkeypatch.setenv("SOME_FLAG", "yes")
+    assert env_bool("SOME_FLAG", False) is True
+    monkeypatch.setenv("SOME_FLAG", "ture")
+    with pytest.raises(ImproperlyConfigured, match="SOME_FLAG"):
+        env_bool("SOME_FLAG", False)
+
+
+def test_production_refuses_to_start_without_a_secret_key():
+    result = run_check({"FLEET_PROFILE": "production"})
+    assert result.returncode != 0
+    assert "SECRET_KEY" in result.stderr
+
+
+def test_production_settings_pass_the_deployment_checks():
+    result = run_check({"FLEET_PROFILE": "production", "SECRET_KEY": secrets.token_urlsafe(48)}, "--deploy", "--fail-level", "WARNING")
+    assert result.returncode == 0, result.stdout + result.stderr
+
+
+def test_compose_file_names_the_services_and_the_settings_the_code_reads():
+    compose = yaml.safe_load((ROOT / "docker-compose.yml").read_text())
+    services = compose["services"]
+    assert {"web", "worker", "beat", "db", "redis"} <= set(services)
+    for name in ("web", "worker", "beat", "db", "redis"):
+        assert "healthcheck" in services[name] or name == "beat"
+    settings_text = (ROOT / "config" / "settings.py").read_text()
+    environment = services["web"]["environment"]
+    for variable in environment:
+        assert f'"{variable}"' in settings_text, f"{variable} is set in compose but never read by settings"
+    assert environment["DATABASE_URL"].startswith("postgres://")
+    assert environment["CELERY_BROKER_URL"].startswith("redis://")
+    assert "celery" in " ".join(services["worker"]["command"]) and "worker" in services["worker"]["command"]
+    assert "beat" in services["beat"]["command"]
+    assert compose["volumes"].keys() >= {"pgdata", "redisdata"}

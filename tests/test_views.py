@@ -1,0 +1,119 @@
+"""Pages: login everywhere, roles enforced, the technician's forms keep what was typed."""
+
+import datetime as dt
+
+import pytest
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.models import Assessment, FittedCapacitor, Reading
+from fleet.services.assessments import refit_installations
+
+from .conftest import make_installation, make_part, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+
+@pytest.fixture
+def signed_in(client):
+    def sign_in(user):
+        client.force_login(user)
+        return client
+
+    return sign_in
+
+
+@pytest.mark.parametrize("name,kwargs", [("home", {}), ("plan", {}), ("find", {}), ("refits", {})])
+def test_every_page_needs_a_login(client, name, kwargs):
+    response = client.get(reverse(name, kwargs=kwargs))
+    assert response.status_code == 302
+    assert response["Location"].startswith(reverse("login"))
+
+
+def test_motor_page_shows_the_cautions_and_the_capacitors(signed_in, technician, fan_installation):
+    response = signed_in(technician).get(reverse("motor", args=[fan_installation.motor.asset_tag]))
+    body = response.content.decode()
+    assert response.status_code == 200
+    assert "lockout" in body and "never a screwdriver" in body and "Local codes" in body
+    assert fan_installation.part.code in body
+
+
+def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in, technician, fan_installation):
+    client = signed_in(technician)
+    response = client.get(reverse("find"), {"tag": fan_installation.motor.asset_tag.lower()})
+    assert response.status_code == 302 and fan_installation.motor.asset_tag in response["Location"]
+    response = client.get(reverse("find"), {"tag": "NO-SUCH"})
+    assert "No motor has the tag" in response.content.decode()
+
+
+def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_installation):
+    url = reverse("reading_new", args=[fan_installation.id])
+    response = signed_in(technician).post(url, {"method": "meter", "capacitance_uf": "3.96", "case_temperature_c": "31", "condition": "sound"})
+    assert response.status_code == 302
+    reading = Reading.objects.get()
+    assert (reading.capacitance_uf, reading.case_temperature_c, reading.taken_by) == (3.96, 31.0, technician)
+
+
+def test_a_unit_slip_comes_back_named_with_everything_still_filled(signed_in, technician, fan_installation):
+    url = reverse("reading_new", args=[fan_installation.id])
+    response = signed_in(technician).post(
+        url, {"method": "meter", "capacitance_uf": "3960", "case_temperature_c": "31", "notes": "bearing noisy", "condition": "sound"}
+    )
+    body = response.content.decode()
+    assert response.status_code == 200
+    assert "nanofarads" in body
+    assert 'value="3960"' in body and 'value="31"' in body and "bearing noisy" in body
+    assert not Reading.objects.exists()
+
+
+def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, technician, fan_installation):
+    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.97])
+    refit_installations([fan_installation.id])
+    client = signed_in(technician)
+    url = reverse("reading_new", args=[fan_installation.id])
+    data = {"method": "meter", "capacitance_uf": "3.3", "condition": "sound"}
+    response = client.post(url, data)
+    assert "confirm" in response.content.decode().lower()
+    assert Reading.objects.count() == 3
+    response = client.post(url, {**data, "confirmed": "on"})
+    assert response.status_code == 302
+    assert Reading.objects.filter(outlier_confirmed=True, capacitance_uf=3.3).exists()
+
+
+def test_planner_cannot_log_readings_and_technician_cannot_start_a_refit(signed_in, planner, technician, fan_installation):
+    assert signed_in(planner).get(reverse("reading_new", args=[fan_installation.id])).status_code == 403
+    assert signed_in(technician).post(reverse("refit_start")).status_code == 403
+
+
+def test_replacement_from_the_form_fits_the_successor(signed_in, technician, fan_installation):
+    url = reverse("replace", args=[fan_installation.id])
+    response = signed_in(technician).post(
+        url, {"part": fan_installation.part_id, "removed_on": timezone.localdate().isoformat(), "removal_reason": "failed", "serial": "X1"}
+    )
+    assert response.status_code == 302
+    successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_installation.motor)
+    assert successor.serial == "X1" and response["Location"].endswith(f"/capacitors/{successor.id}/reading/")
+
+
+def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, django_assert_max_num_queries):
+    part = make_part()
+    installations = [make_installation(part=part) for _ in range(6)]
+    for i, installation in enumerate(installations):
+        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.9 - 0.01 * i, 3.8, 3.7])
+    refit_installations([i.id for i in installations])
+    client = signed_in(planner)
+    with django_assert_max_num_queries(15):
+        response = client.get(reverse("plan"), {"days": 365})
+    assert response.status_code == 200
+    assert installations[0].motor.asset_tag in response.content.decode()
+    response = client.get(reverse("capacitor", args=[installations[0].id]))
+    assert 'id="trend-data"' in response.content.decode()
+    assert Assessment.objects.filter(is_current=True).count() == 6
+
+
+def test_route_lists_the_sites_motors_in_walking_order(signed_in, technician, fan_installation):
+    site = fan_installation.motor.site
+    response = signed_in(technician).get(reverse("route", args=[site.code]))
+    assert fan_installation.motor.asset_tag in response.content.decode()
+    labels = signed_in(technician).get(reverse("labels", args=[site.code]))
+    assert "<svg" in labels.content.decode()

@@ -1,0 +1,82 @@
+"""The whole path through a real Celery worker over Redis, seen in PostgreSQL.
+
+Runs where CELERY_BROKER_URL and a PostgreSQL DATABASE_URL are set (as .ci/run
+sets them); skipped on the embedded default, where tasks run in-process.
+"""
+
+import datetime as dt
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from django.conf import settings
+from django.db import connection
+from django.utils import timezone
+
+from fleet.models import Assessment, RefitRun
+from fleet.services.readings import record_reading
+from fleet.services.refits import start_fleet_refit
+
+from .conftest import make_installation, make_part, quarterly_readings
+
+ROOT = Path(__file__).resolve().parents[1]
+
+pytestmark = [
+    pytest.mark.worker,
+    pytest.mark.skipif(not settings.CELERY_BROKER_URL, reason="no broker: tasks run in-process"),
+    pytest.mark.skipif(connection.vendor != "postgresql", reason="needs a database the worker can share"),
+]
+
+
+@pytest.fixture
+def worker(transactional_db):
+    from config.celery import app
+
+    app.control.purge()
+    db = connection.settings_dict
+    url = f"postgres://{db['USER']}:{db['PASSWORD'] or ''}@{db['HOST'] or '127.0.0.1'}:{db['PORT'] or 5432}/{db['NAME']}"
+    env = dict(os.environ, DATABASE_URL=url)
+    process = subprocess.Popen(
+        [sys.executable, "-m", "celery", "-A", "config", "worker", "--pool", "solo", "--loglevel", "WARNING", "-n", f"ci-{os.getpid()}@%h"],
+        cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+    )
+    yield process
+    process.terminate()
+    try:
+        process.wait(timeout=20)
+    except subprocess.TimeoutExpired:
+        process.kill()
+
+
+def wait_for(condition, seconds=90):
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline:
+        if condition():
+            return True
+        time.sleep(0.5)
+    return False
+
+
+def test_a_saved_reading_is_refitted_by_a_worker(worker):
+    part = make_part()
+    installation = make_installation(part=part)
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.97, 3.95, 3.92])
+    record_reading(installation=installation, values={"method": "meter", "capacitance_uf": 3.90})
+    assert wait_for(lambda: Assessment.objects.filter(installation=installation, is_current=True).exists()), worker.stdout.read() if worker.poll() is not None else "worker did not refit in time"
+    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    assert assessment.readings_used == 5
+
+
+def test_a_fleet_refit_runs_in_chunks_on_the_worker(worker):
+    part = make_part()
+    for i in range(5):
+        installation = make_installation(part=part)
+        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98 - 0.002 * i, 3.96])
+    run = start_fleet_refit(chunk_size=2)
+    assert wait_for(lambda: RefitRun.objects.get(pk=run.pk).state == RefitRun.State.DONE)
+    run.refresh_from_db()
+    assert (run.done, run.total) == (5, 5)
+    assert Assessment.objects.filter(is_current=True).count() == 5
