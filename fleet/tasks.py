@@ -13,8 +13,8 @@ def refit_installation(installation_id: int) -> int:
 
 
 @shared_task(acks_late=True)
-def refit_chunk(run_id: int, installation_ids: list[int]) -> None:
-    refits.refit_chunk(run_id, installation_ids)
+def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -> None:
+    refits.refit_chunk(run_id, installation_ids, force)
 
 
 @shared_task
@@ -27,5 +27,5 @@ def sweep_stale() -> int:
     return refits.sweep_stale()
 
 
-def dispatch_refit_chunks(run_id: int, chunks: list[list[int]]) -> None:
-    group(refit_chunk.s(run_id, chunk) for chunk in chunks).apply_async()
+def dispatch_refit_chunks(run_id: int, chunks: list[list[int]], force: bool = False) -> None:
+    group(refit_chunk.s(run_id, chunk, force) for chunk in chunks).apply_async()

@@ -12,11 +12,12 @@ from fleet.models import FittedCapacitor, RefitRun
 from .assessments import refit_installations, refresh_part_priors
 
 
-def start_fleet_refit(*, kind: str = "fleet", chunk_size: int | None = None) -> RefitRun:
+def start_fleet_refit(*, kind: str = "fleet", chunk_size: int | None = None, force: bool = False) -> RefitRun:
     """Refresh the part priors, then queue every capacitor in service in chunks.
 
     Chunks are dispatched after the run record commits; in eager mode they run
-    before this returns, and the run is already done.
+    before this returns, and the run is already done. `force` refits capacitors
+    whose assessment is already up to date (benchmarks, a changed model).
     """
     from fleet.tasks import dispatch_refit_chunks
 
@@ -34,13 +35,13 @@ def start_fleet_refit(*, kind: str = "fleet", chunk_size: int | None = None) -> 
         run.refresh_from_db()
         return run
     chunks = [ids[i : i + chunk_size] for i in range(0, len(ids), chunk_size)]
-    transaction.on_commit(lambda: dispatch_refit_chunks(run.id, chunks))
+    transaction.on_commit(lambda: dispatch_refit_chunks(run.id, chunks, force))
     return run
 
 
-def refit_chunk(run_id: int, installation_ids: list[int]) -> None:
-    """One chunk: refit (idempotent), then advance the run's progress atomically."""
-    outcome = refit_installations(installation_ids)
+def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -> None:
+    """One chunk: refit (idempotent unless forced), then advance the run's progress atomically."""
+    outcome = refit_installations(installation_ids, force=force)
     RefitRun.objects.filter(id=run_id).update(
         done=F("done") + len(installation_ids), readings=F("readings") + outcome.readings
     )

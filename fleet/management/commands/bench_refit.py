@@ -85,7 +85,7 @@ class Command(BaseCommand):
         self.stdout.write(f"capacitors: {len(ids)}, readings: {readings} (the whole database is refitted)")
 
         started = time.perf_counter()
-        run = start_fleet_refit(kind="bench")
+        run = start_fleet_refit(kind="bench", force=True)
         while RefitRun.objects.get(pk=run.pk).state == RefitRun.State.RUNNING:
             time.sleep(0.5)
         run.refresh_from_db()
