@@ -67,3 +67,32 @@ class FindMotorForm(forms.Form):
         max_length=40,
         widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
     )
+
+
+class ImportUploadForm(forms.Form):
+    kind = forms.ChoiceField(choices=[("readings", "Readings"), ("register", "Motor register")], widget=forms.RadioSelect, initial="readings", label="What the file holds")
+    file = forms.FileField(label="CSV or XLSX file", help_text="Up to 50 MB. First row: column headings.")
+
+    def clean_file(self):
+        upload = self.cleaned_data["file"]
+        if not upload.name.lower().endswith((".csv", ".xlsx", ".txt")):
+            raise forms.ValidationError("Choose a .csv or .xlsx file.")
+        if upload.size > 50 * 1024 * 1024:
+            raise forms.ValidationError("The file is over 50 MB: split it.")
+        return upload
+
+
+class ColumnMappingForm(forms.Form):
+    """One choice per field of ours: which of the file's columns holds it."""
+
+    def __init__(self, *args, ours: dict[str, str], columns: list[str], initial_mapping: dict[str, str], required: tuple, **kwargs):
+        super().__init__(*args, **kwargs)
+        choices = [("", "(not in this file)")] + [(c, c) for c in columns]
+        for name, description in ours.items():
+            self.fields[name] = forms.ChoiceField(
+                choices=choices, required=name in required, label=name, help_text=description,
+                initial=initial_mapping.get(name, ""),
+            )
+
+    def mapping(self) -> dict[str, str]:
+        return {name: column for name, column in self.cleaned_data.items() if column}

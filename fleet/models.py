@@ -403,3 +403,51 @@ class RefitRun(models.Model):
     @property
     def percent(self) -> int:
         return int(100 * self.done / self.total) if self.total else (100 if self.state == "done" else 0)
+
+
+class ImportJob(models.Model):
+    """One uploaded file on its way in: mapping, dry run, then the import itself."""
+
+    class Kind(models.TextChoices):
+        READINGS = "readings", "Readings"
+        REGISTER = "register", "Motor register"
+
+    class Mode(models.TextChoices):
+        ALL_OR_NOTHING = "all", "All or nothing"
+        GOOD_ROWS = "good", "Good rows only"
+
+    class State(models.TextChoices):
+        UPLOADED = "uploaded", "Uploaded"
+        CHECKING = "checking", "Checking"
+        CHECKED = "checked", "Checked"
+        IMPORTING = "importing", "Importing"
+        DONE = "done", "Imported"
+        REFUSED = "refused", "Refused"
+
+    kind = models.CharField(max_length=10, choices=Kind.choices)
+    filename = models.CharField(max_length=200)
+    content = models.BinaryField()
+    columns = models.JSONField(default=list)
+    mapping = models.JSONField(default=dict, blank=True)
+    mode = models.CharField(max_length=5, choices=Mode.choices, blank=True)
+    state = models.CharField(max_length=10, choices=State.choices, default=State.UPLOADED)
+    total_rows = models.PositiveIntegerField(default=0)
+    done_rows = models.PositiveIntegerField(default=0)
+    good_rows = models.PositiveIntegerField(default=0)
+    duplicate_rows = models.PositiveIntegerField(default=0)
+    error_rows = models.PositiveIntegerField(default=0)
+    imported_rows = models.PositiveIntegerField(default=0)
+    errors = models.JSONField(default=list, blank=True, help_text="[row, field, message] of the first problems")
+    message = models.TextField(blank=True)
+    created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, on_delete=models.SET_NULL, related_name="+")
+    created_at = models.DateTimeField(auto_now_add=True)
+
+    class Meta:
+        ordering = ["-created_at"]
+
+    def __str__(self):
+        return f"{self.get_kind_display()} {self.filename}"
+
+    @property
+    def percent(self) -> int:
+        return int(100 * self.done_rows / self.total_rows) if self.total_rows else 0

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from celery import group, shared_task
 
-from fleet.services import assessments, refits
+from fleet.services import assessments, circuits, import_jobs, refits
 
 
 @shared_task(acks_late=True)
@@ -25,6 +25,21 @@ def refit_fleet() -> int:
 @shared_task
 def sweep_stale() -> int:
     return refits.sweep_stale()
+
+
+@shared_task(acks_late=True)
+def estimate_circuits(motor_ids: list[int]) -> int:
+    return circuits.estimate_circuits(motor_ids)
+
+
+@shared_task
+def check_import(job_id: int) -> None:
+    import_jobs.check_job(job_id)
+
+
+@shared_task
+def run_import(job_id: int, mode: str) -> None:
+    import_jobs.run_job(job_id, mode)
 
 
 def dispatch_refit_chunks(run_id: int, chunks: list[list[int]], force: bool = False) -> None:

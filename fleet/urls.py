@@ -14,5 +14,8 @@ urlpatterns = [
     path("plan/", views.plan, name="plan"),
     path("refits/", views.refits, name="refits"),
     path("refits/start/", views.refit_start, name="refit_start"),
+    path("imports/", views.imports_home, name="imports"),
+    path("imports/<int:job_id>/", views.import_detail, name="import_detail"),
+    path("imports/<int:job_id>/rows-to-fix.csv", views.import_rejected, name="import_rejected"),
     path("assets/plotly.js", views.plotly_js, name="plotly_js"),
 ]

@@ -16,13 +16,15 @@ from django.views.decorators.cache import cache_control
 from django.views.decorators.http import require_POST
 
 from .engineering.capacitor import stored_energy_j
-from .forms import FindMotorForm, ReadingForm, ReplacementForm
-from .models import FittedCapacitor, Motor, RefitRun, Site
+from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
+from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
+from .models import FittedCapacitor, ImportJob, Motor, RefitRun, Site
 from .roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN, roles_of
 from .services import pages
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installation_ids
-from .tasks import refit_fleet
+from .services.import_jobs import SPECS, create_job, rejected_rows_csv
+from .tasks import check_import, refit_fleet, run_import
 
 
 def home(request):
@@ -216,3 +218,66 @@ def plotly_js(request):
     from plotly.offline import get_plotlyjs
 
     return HttpResponse(get_plotlyjs(), content_type="application/javascript")
+
+
+IMPORT_PERMISSION = {ImportJob.Kind.READINGS: "fleet.add_reading", ImportJob.Kind.REGISTER: "fleet.add_motor"}
+REQUIRED_COLUMNS = {ImportJob.Kind.READINGS: READING_REQUIRED, ImportJob.Kind.REGISTER: REGISTER_REQUIRED}
+
+
+def _may_import(user, kind) -> bool:
+    return user.has_perm(IMPORT_PERMISSION[kind])
+
+
+@permission_required("fleet.add_reading", raise_exception=True)
+def imports_home(request):
+    form = ImportUploadForm(request.POST or None, request.FILES or None)
+    if request.method == "POST" and form.is_valid():
+        kind = form.cleaned_data["kind"]
+        if not _may_import(request.user, kind):
+            form.add_error("kind", "Your role cannot import a motor register; ask an administrator.")
+        else:
+            upload = form.cleaned_data["file"]
+            try:
+                job = create_job(kind=kind, filename=upload.name, content=upload.read(), user=request.user)
+            except FileRefused as error:
+                form.add_error("file", str(error))
+            else:
+                return redirect("import_detail", job_id=job.id)
+    jobs = ImportJob.objects.defer("content").order_by("-created_at")[:15]
+    context = {"form": form, "jobs": jobs, "specs": {k: v[0] for k, v in SPECS.items()}}
+    return render(request, "fleet/imports.html", context)
+
+
+@permission_required("fleet.add_reading", raise_exception=True)
+def import_detail(request, job_id):
+    job = get_object_or_404(ImportJob.objects.defer("content"), pk=job_id)
+    if not _may_import(request.user, job.kind):
+        raise Http404("No such import")
+    ours = SPECS[job.kind][0]
+    form = ColumnMappingForm(
+        request.POST if request.POST.get("action") == "check" else None,
+        ours=ours, columns=job.columns, initial_mapping=job.mapping, required=REQUIRED_COLUMNS[job.kind],
+    )
+    if request.method == "POST":
+        action = request.POST.get("action")
+        if action == "check" and form.is_valid():
+            ImportJob.objects.filter(pk=job.pk).update(mapping=form.mapping())
+            check_import.delay(job.pk)
+            return redirect("import_detail", job_id=job.pk)
+        if action in {ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS} and job.state == ImportJob.State.CHECKED:
+            run_import.delay(job.pk, action)
+            return redirect("import_detail", job_id=job.pk)
+    working = job.state in {ImportJob.State.CHECKING, ImportJob.State.IMPORTING}
+    context = {"job": job, "form": form, "working": working, "errors": job.errors[:200]}
+    return render(request, "fleet/import_detail.html", context)
+
+
+@permission_required("fleet.add_reading", raise_exception=True)
+def import_rejected(request, job_id):
+    job = get_object_or_404(ImportJob, pk=job_id)
+    if not _may_import(request.user, job.kind):
+        raise Http404("No such import")
+    response = HttpResponse(rejected_rows_csv(job), content_type="text/csv; charset=utf-8")
+    stem = job.filename.rsplit(".", 1)[0]
+    response["Content-Disposition"] = f'attachment; filename="{stem}-rows-to-fix.csv"'
+    return response

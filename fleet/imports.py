@@ -1,0 +1,402 @@
+"""Bulk import of readings and of a motor register from CSV or XLSX.
+
+Our own documented headings (README, "Import files"); a file with other headings
+is mapped column by column. Checking is vectorised over the whole file in chunks
+(the progress bar follows the chunks); every problem is reported with its row
+(as numbered in the file, header = row 1) and field. Nothing is written by the
+check. The import writes every good row in one transaction, or nothing.
+Re-importing a file adds nothing: each reading carries a key of its content.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import hashlib
+import io
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from django.utils import timezone
+
+from fleet.engineering.capacitor import capacitance_from_current
+from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip
+
+READING_COLUMNS = {
+    "asset_tag": "Motor asset tag (required)",
+    "role": "start or run (required)",
+    "taken_at": "Date and time, ISO 8601, e.g. 2026-03-14 09:30 (required; site time if no offset)",
+    "method": "meter or in_circuit (default meter)",
+    "capacitance_uf": "Capacitance in uF (meter readings)",
+    "capacitor_current_a": "Capacitor current in A (in-circuit readings)",
+    "capacitor_voltage_v": "Voltage across the capacitor in V (in-circuit readings)",
+    "line_voltage_v": "Line voltage in V",
+    "main_current_a": "Main winding current in A",
+    "aux_current_a": "Auxiliary winding current in A",
+    "line_current_a": "Line current in A",
+    "case_temperature_c": "Capacitor case temperature in C",
+    "ambient_temperature_c": "Ambient temperature in C",
+    "esr_ohm": "ESR in ohm",
+    "condition": "sound, bulged, leaking or vented (default sound)",
+    "notes": "Free text",
+}
+READING_REQUIRED = ("asset_tag", "role", "taken_at")
+READING_NUMBERS = [
+    "capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "line_voltage_v", "main_current_a",
+    "aux_current_a", "line_current_a", "case_temperature_c", "ambient_temperature_c", "esr_ohm",
+]
+
+REGISTER_COLUMNS = {
+    "asset_tag": "Motor asset tag, unique (required)",
+    "site_code": "Site code, as in the register (required)",
+    "location": "Where the motor is",
+    "application": "fan, pump, compressor, conveyor or other (required)",
+    "motor_type": "capacitor_start, permanent_split or two_value (required)",
+    "load_type": "fan_law or constant (required)",
+    "rated_voltage_v": "Nameplate voltage in V (required)",
+    "frequency_hz": "50 or 60 (required)",
+    "poles": "2, 4, 6, 8, 10 or 12 (required)",
+    "output_w": "Rated output in W (required)",
+    "full_load_current_a": "Full-load current in A (required)",
+    "rated_speed_rpm": "Rated speed in rpm (required)",
+    "commissioned_on": "Date commissioned, ISO 8601",
+    "run_part_code": "Part code of the run capacitor fitted (PSC and two-value motors)",
+    "start_part_code": "Part code of the start capacitor fitted (capacitor-start and two-value motors)",
+    "fitted_on": "Date the capacitors were fitted, ISO 8601 (required)",
+}
+REGISTER_REQUIRED = (
+    "asset_tag", "site_code", "application", "motor_type", "load_type", "rated_voltage_v", "frequency_hz", "poles",
+    "output_w", "full_load_current_a", "rated_speed_rpm", "fitted_on",
+)
+REGISTER_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm"]
+
+CHUNK_ROWS = 5000
+MAX_REPORTED_ERRORS = 2000
+
+
+class FileRefused(Exception):
+    """The file as a whole cannot be read (cut off, wrong format, no header)."""
+
+
+@dataclass
+class CheckResult:
+    good: pd.DataFrame  # one row per good line, with resolved ids and parsed values
+    errors: list[tuple[int, str, str]] = field(default_factory=list)  # (row, field, message)
+    duplicates: int = 0  # rows already in the database (skipped, not errors)
+    total: int = 0
+
+    @property
+    def error_rows(self) -> int:
+        return len({row for row, _, _ in self.errors})
+
+
+def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]]]:
+    """Header and rows as text. A ragged row (a file cut off mid-row) refuses the file."""
+    if filename.lower().endswith(".xlsx"):
+        return _read_xlsx(content)
+    try:
+        text = content.decode("utf-8-sig")
+    except UnicodeDecodeError as error:
+        raise FileRefused(f"The file is not UTF-8 text (byte {error.start}). Save it as CSV UTF-8.") from error
+    try:
+        rows = list(csv.reader(io.StringIO(text, newline=""), strict=True))
+    except csv.Error as error:
+        raise FileRefused(f"The CSV cannot be read: {error}. The file may be cut off inside a quoted field.") from error
+    rows = [row for row in rows if any(cell.strip() for cell in row)]
+    if not rows:
+        raise FileRefused("The file is empty.")
+    header, body = [h.strip() for h in rows[0]], rows[1:]
+    for number, row in enumerate(body, start=2):
+        if len(row) != len(header):
+            raise FileRefused(
+                f"Row {number} has {len(row)} fields where the header has {len(header)}: the file looks cut off "
+                "or a field holds an unquoted comma. Nothing was imported."
+            )
+    return header, body
+
+
+def _read_xlsx(content: bytes) -> tuple[list[str], list[list[str]]]:
+    from openpyxl import load_workbook
+
+    try:
+        sheet = load_workbook(io.BytesIO(content), read_only=True, data_only=True).worksheets[0]
+    except Exception as error:  # noqa: BLE001 - any unreadable workbook is refused the same way
+        raise FileRefused(f"The workbook cannot be read: {error}") from error
+
+    def text(value):
+        if value is None:
+            return ""
+        if isinstance(value, dt.datetime | dt.date):
+            return value.isoformat()
+        return str(value)
+
+    rows = [[text(v) for v in row] for row in sheet.iter_rows(values_only=True)]
+    rows = [row for row in rows if any(cell.strip() for cell in row)]
+    if not rows:
+        raise FileRefused("The first sheet is empty.")
+    width = len(rows[0])
+    return [h.strip() for h in rows[0]], [row[:width] + [""] * (width - len(row)) for row in rows[1:]]
+
+
+def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
+    """Our field -> the file's column, matching names regardless of case, spaces, dashes."""
+
+    def norm(name):
+        return "".join(ch for ch in name.lower() if ch.isalnum())
+
+    by_norm = {norm(c): c for c in columns}
+    return {name: by_norm[norm(name)] for name in ours if norm(name) in by_norm}
+
+
+def mapped_frame(header: list[str], rows: list[list[str]], mapping: dict[str, str], ours: dict[str, str]) -> pd.DataFrame:
+    frame = pd.DataFrame(rows, columns=header, dtype=str) if rows else pd.DataFrame(columns=header, dtype=str)
+    out = pd.DataFrame(index=frame.index)
+    for name in ours:
+        column = mapping.get(name)
+        out[name] = frame[column].str.strip() if column in frame.columns else ""
+    out["row"] = np.arange(len(frame)) + 2
+    return out
+
+
+class _Problems:
+    """Collects (row, field, message) from boolean masks over a chunk."""
+
+    def __init__(self, chunk: pd.DataFrame):
+        self.chunk = chunk
+        self.bad = np.zeros(len(chunk), bool)
+        self.items: list[tuple[int, str, str]] = []
+
+    def add(self, mask, field_name: str, message):
+        mask = np.asarray(mask, bool) & ~self.bad
+        rows = self.chunk["row"].to_numpy()[mask]
+        messages = message[mask] if isinstance(message, np.ndarray) else [message] * int(mask.sum())
+        self.items += [(int(r), field_name, str(m)) for r, m in zip(rows, messages, strict=True)]
+        self.bad |= mask
+
+
+def _numbers(chunk, names, problems):
+    values = {}
+    for name in names:
+        raw = chunk[name].str.replace(",", ".", regex=False)
+        number = pd.to_numeric(raw, errors="coerce")
+        problems.add(raw.ne("") & number.isna(), name, "not a number")
+        values[name] = number.to_numpy(float)
+    return values
+
+
+def _parse_times(texts: pd.Series, default_tz: str):
+    parsed = pd.to_datetime(texts, errors="coerce", format="ISO8601", utc=False)
+    if getattr(parsed.dt, "tz", None) is None:
+        parsed = parsed.dt.tz_localize(default_tz, ambiguous="NaT", nonexistent="NaT")
+    return parsed.dt.tz_convert("UTC")
+
+
+def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
+    text = f"{installation_id}|{taken_at_utc}|{method}|{capacitance_uf:.4f}"
+    return hashlib.sha256(text.encode()).hexdigest()[:40]
+
+
+def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
+    """Validate mapped reading rows; resolve each to the capacitor fitted at the time."""
+    from fleet.models import FittedCapacitor, Reading
+
+    tags = sorted(set(frame["asset_tag"].str.upper()) - {""})
+    fitted = pd.DataFrame.from_records(
+        list(
+            FittedCapacitor.objects.filter(motor__asset_tag__in=tags).values_list(
+                "id", "motor__asset_tag", "role", "fitted_on", "removed_on", "part__rated_uf", "motor__frequency_hz"
+            )
+        ),
+        columns=["installation_id", "tag", "role", "fitted_on", "removed_on", "rated_uf", "frequency_hz"],
+    )
+    fitted["tag"] = fitted["tag"].str.upper()
+    known_tags = set(fitted["tag"])
+    now = timezone.now()
+    good_parts, errors, seen_keys = [], [], {}
+    for start in range(0, len(frame), CHUNK_ROWS):
+        chunk = frame.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
+        problems = _Problems(chunk)
+        for name in READING_REQUIRED:
+            problems.add(chunk[name].eq(""), name, "required")
+        tag = chunk["asset_tag"].str.upper()
+        problems.add(~tag.isin(known_tags), "asset_tag", "unknown asset tag: not in the register")
+        role = chunk["role"].str.lower()
+        problems.add(~role.isin(["start", "run"]), "role", "must be start or run")
+        method = chunk["method"].str.lower().replace("", "meter")
+        problems.add(~method.isin(["meter", "in_circuit"]), "method", "must be meter or in_circuit")
+        condition = chunk["condition"].str.lower().replace("", "sound")
+        problems.add(~condition.isin(["sound", "bulged", "leaking", "vented"]), "condition", "must be sound, bulged, leaking or vented")
+        taken = _parse_times(chunk["taken_at"], default_tz)
+        problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
+        problems.add(taken > now + dt.timedelta(minutes=10), "taken_at", "in the future")
+        problems.add(taken < pd.Timestamp("1990-01-01", tz="UTC"), "taken_at", "before 1990: check the date")
+        numbers = _numbers(chunk, READING_NUMBERS, problems)
+        # The capacitor fitted at that motor, in that role, on that day.
+        candidates = pd.DataFrame({"i": np.arange(len(chunk)), "tag": tag, "role": role, "day": taken.dt.date}).merge(
+            fitted, on=["tag", "role"], how="left"
+        )
+        in_window = (candidates["fitted_on"] <= candidates["day"]) & (
+            candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
+        )
+        match = candidates[in_window.fillna(False)].sort_values("fitted_on").groupby("i").tail(1).set_index("i")
+        match = match.reindex(np.arange(len(chunk)))
+        problems.add(match["installation_id"].isna(), "role", "no capacitor in this role was fitted to this motor on that date")
+        rated = match["rated_uf"].to_numpy(float)
+        frequency = match["frequency_hz"].to_numpy(float)
+        in_circuit = method.eq("in_circuit").to_numpy()
+        current, voltage = numbers["capacitor_current_a"], numbers["capacitor_voltage_v"]
+        problems.add(in_circuit & np.isnan(current), "capacitor_current_a", "in-circuit reading without a current")
+        problems.add(in_circuit & np.isnan(voltage), "capacitor_voltage_v", "in-circuit reading without a voltage")
+        slip = current_unit_slip(current, voltage, rated, frequency)
+        problems.add(in_circuit & (slip != ""), "capacitor_current_a", slip)
+        capacitance = np.where(in_circuit, capacitance_from_current(current, voltage, frequency), numbers["capacitance_uf"])
+        problems.add(~in_circuit & np.isnan(capacitance), "capacitance_uf", "required for a meter reading")
+        problems.add(capacitance <= 0, "capacitance_uf", "must be above zero")
+        problems.add(voltage <= 0, "capacitor_voltage_v", "must be above zero")
+        slip = capacitance_unit_slip(capacitance, rated)
+        problems.add(slip != "", "capacitance_uf", slip)
+        temperature = numbers["case_temperature_c"]
+        problems.add((temperature < -40) | (temperature > 150), "case_temperature_c", "outside -40 to 150 C")
+        good = ~problems.bad
+        rows = pd.DataFrame(
+            {
+                "row": chunk["row"],
+                "installation_id": match["installation_id"],
+                "taken_at": taken,
+                "method": method,
+                "condition": condition,
+                "notes": chunk["notes"],
+                **numbers,
+                "capacitance_uf": np.round(capacitance, 4),
+            }
+        )[good]
+        rows["import_key"] = [
+            reading_key(int(i), t.isoformat(), m, c)
+            for i, t, m, c in zip(rows["installation_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"], strict=True)
+        ]
+        duplicate_in_file = []
+        for row_number, key in zip(rows["row"], rows["import_key"], strict=True):
+            if key in seen_keys:
+                duplicate_in_file.append(True)
+                problems.items.append((int(row_number), "taken_at", f"the same reading as row {seen_keys[key]}"))
+            else:
+                seen_keys[key] = int(row_number)
+                duplicate_in_file.append(False)
+        rows = rows[~np.array(duplicate_in_file, bool)] if len(rows) else rows
+        good_parts.append(rows)
+        errors += problems.items
+        if on_progress:
+            on_progress(min(start + CHUNK_ROWS, len(frame)))
+    good = pd.concat(good_parts, ignore_index=True) if good_parts else pd.DataFrame()
+    existing = set()
+    keys = good["import_key"].tolist() if len(good) else []
+    for start in range(0, len(keys), 5000):
+        existing |= set(Reading.objects.filter(import_key__in=keys[start : start + 5000]).values_list("import_key", flat=True))
+    if existing:
+        good = good[~good["import_key"].isin(existing)].reset_index(drop=True)
+    errors.sort()
+    return CheckResult(good=good, errors=errors, duplicates=len(existing), total=len(frame))
+
+
+def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
+    """Write checked readings (caller holds the transaction); returns the capacitors touched."""
+    from fleet.models import Reading
+
+    objects = [
+        Reading(
+            installation_id=int(row.installation_id),
+            taken_at=row.taken_at.to_pydatetime(),
+            taken_by=user,
+            method=row.method,
+            capacitance_uf=float(row.capacitance_uf),
+            condition=row.condition,
+            notes=row.notes or "",
+            source=Reading.Source.IMPORT,
+            import_key=row.import_key,
+            **{name: (None if np.isnan(getattr(row, name)) else float(getattr(row, name))) for name in READING_NUMBERS if name != "capacitance_uf"},
+        )
+        for row in good.itertuples(index=False)
+    ]
+    Reading.objects.bulk_create(objects, batch_size=2000, ignore_conflicts=True)
+    return sorted({int(i) for i in good["installation_id"]}) if len(good) else []
+
+
+def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
+    """Validate a motor register: sites and parts must exist; tags already there are skipped."""
+    from fleet.models import CapacitorPart, Motor, Site
+
+    sites = dict(Site.objects.values_list("code", "id"))
+    parts = dict(CapacitorPart.objects.values_list("code", "id"))
+    existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
+    problems = _Problems(frame)
+    for name in REGISTER_REQUIRED:
+        problems.add(frame[name].eq(""), name, "required")
+    numbers = _numbers(frame, REGISTER_NUMBERS, problems)
+    problems.add(~frame["site_code"].isin(sites), "site_code", "unknown site code: add the site first")
+    for name, allowed in (
+        ("application", ["fan", "pump", "compressor", "conveyor", "other"]),
+        ("motor_type", ["capacitor_start", "permanent_split", "two_value"]),
+        ("load_type", ["fan_law", "constant"]),
+    ):
+        problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed))
+    volts, hertz, poles = numbers["rated_voltage_v"], numbers["frequency_hz"], numbers["poles"]
+    problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
+    problems.add(~np.isin(hertz, [50, 60]), "frequency_hz", "must be 50 or 60")
+    problems.add(~np.isin(poles, [2, 4, 6, 8, 10, 12]), "poles", "must be 2, 4, 6, 8, 10 or 12")
+    for name in ("output_w", "full_load_current_a"):
+        problems.add(numbers[name] <= 0, name, "must be above zero")
+    synchronous = 120.0 * hertz / np.where(poles > 0, poles, np.nan)
+    problems.add(numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)")
+    kind = frame["motor_type"].str.lower()
+    needs_run = kind.isin(["permanent_split", "two_value"])
+    needs_start = kind.isin(["capacitor_start", "two_value"])
+    problems.add(needs_run & frame["run_part_code"].eq(""), "run_part_code", "this motor type has a run capacitor")
+    problems.add(needs_start & frame["start_part_code"].eq(""), "start_part_code", "this motor type has a start capacitor")
+    for name in ("run_part_code", "start_part_code"):
+        problems.add(frame[name].ne("") & ~frame[name].isin(parts), name, "unknown part code: add the part first")
+    for name in ("fitted_on", "commissioned_on"):
+        parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
+        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
+        problems.add(parsed > pd.Timestamp(timezone.localdate()), name, "in the future")
+    tags = frame["asset_tag"].str.upper()
+    repeated = tags.duplicated(keep="first") & tags.ne("")
+    first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
+    problems.add(repeated, "asset_tag", np.array([f"the same tag as row {first_row.get(t)}" for t in tags], dtype=object))
+    already = tags.isin(existing).to_numpy() & ~problems.bad
+    good_mask = ~problems.bad & ~already
+    good = frame[good_mask].copy()
+    for name in REGISTER_NUMBERS:
+        good[name] = numbers[name][good_mask]
+    good["site_id"] = good["site_code"].map(sites)
+    if on_progress:
+        on_progress(len(frame))
+    return CheckResult(good=good.reset_index(drop=True), errors=sorted(problems.items), duplicates=int(already.sum()), total=len(frame))
+
+
+def insert_register(good: pd.DataFrame) -> list[int]:
+    """Create motors and their fitted capacitors (caller holds the transaction)."""
+    from fleet.models import CapacitorPart, FittedCapacitor, Motor
+
+    parts = dict(CapacitorPart.objects.values_list("code", "id"))
+    motors = Motor.objects.bulk_create(
+        [
+            Motor(
+                asset_tag=row.asset_tag, site_id=int(row.site_id), location=row.location, application=row.application.lower(),
+                motor_type=row.motor_type.lower(), load_type=row.load_type.lower(), rated_voltage_v=row.rated_voltage_v,
+                frequency_hz=int(row.frequency_hz), poles=int(row.poles), output_w=row.output_w,
+                full_load_current_a=row.full_load_current_a, rated_speed_rpm=row.rated_speed_rpm,
+                commissioned_on=dt.date.fromisoformat(row.commissioned_on[:10]) if row.commissioned_on else None,
+            )
+            for row in good.itertuples(index=False)
+        ],
+        batch_size=2000,
+    )
+    fitted = []
+    for motor, row in zip(motors, good.itertuples(index=False), strict=True):
+        fitted_on = dt.date.fromisoformat(row.fitted_on[:10])
+        for role, code in (("run", row.run_part_code), ("start", row.start_part_code)):
+            if code:
+                fitted.append(FittedCapacitor(motor=motor, role=role, part_id=parts[code], fitted_on=fitted_on))
+    FittedCapacitor.objects.bulk_create(fitted, batch_size=2000)
+    return [m.id for m in motors]

@@ -1,0 +1,191 @@
+"""Bulk imports: exact row-by-row reports, all-or-nothing or good rows, idempotent."""
+
+import csv
+import datetime as dt
+import io
+
+import pytest
+from django.urls import reverse
+from django.utils import timezone
+from openpyxl import Workbook
+
+from fleet.exports import safe_cell
+from fleet.imports import FileRefused, read_table
+from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
+from fleet.services.import_jobs import check_job, create_job, rejected_rows_csv, run_job
+
+from .conftest import make_installation, make_motor, make_part, make_site
+
+pytestmark = pytest.mark.django_db
+
+HEADER = ["asset_tag", "role", "taken_at", "method", "capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "case_temperature_c", "notes"]
+
+
+def fleet_of(count):
+    site = make_site()
+    part = make_part()
+    motors = [make_motor(site=site, asset_tag=f"IMP-{i:04d}") for i in range(count)]
+    FittedCapacitor.objects.bulk_create(
+        [FittedCapacitor(motor=m, role="run", part=part, fitted_on=dt.date(2020, 1, 1)) for m in motors]
+    )
+    return motors
+
+
+def csv_of(rows, header=HEADER) -> bytes:
+    buffer = io.StringIO(newline="")
+    writer = csv.writer(buffer)
+    writer.writerow(header)
+    writer.writerows(rows)
+    return buffer.getvalue().encode()
+
+
+def good_rows(tags, readings_each):
+    start = dt.datetime(2021, 6, 1, 9, 0)
+    rows = []
+    for k in range(readings_each):
+        day = (start + dt.timedelta(days=30 * k)).isoformat(sep=" ", timespec="minutes")
+        for j, tag in enumerate(tags):
+            rows.append([tag, "run", day, "meter", f"{4.0 - 0.01 * k - 0.0001 * (j % 50):.4f}", "", "", "31", ""])
+    return rows
+
+
+def test_fifty_thousand_rows_with_a_sprinkle_of_bad_ones():
+    motors = fleet_of(1000)
+    tags = [m.asset_tag for m in motors]
+    rows = good_rows(tags, 50)  # 50,000 rows
+    future = (timezone.now() + dt.timedelta(days=30)).strftime("%Y-%m-%d %H:%M")
+    bad = {
+        10: ["IMP-0010", "run", "2023-01-02 10:00", "meter", "3950", "", "", "31", "nF typed"],  # unit slip
+        2000: ["NO-SUCH-TAG", "run", "2023-04-03 09:00", "meter", "3.9", "", "", "31", ""],  # unknown tag
+        30000: ["IMP-0300", "run", future, "meter", "3.9", "", "", "31", ""],  # future date
+        45000: list(rows[44999]),  # exact duplicate of the row before it
+    }
+    for index, row in bad.items():
+        rows[index] = row
+    job = create_job(kind="readings", filename="big.csv", content=csv_of(rows), user=None)
+    job = check_job(job.id)
+    assert job.state == ImportJob.State.CHECKED
+    assert job.total_rows == 50_000
+    assert job.error_rows == 4
+    reported = {(row, field) for row, field, _ in job.errors}
+    assert reported == {(12, "capacitance_uf"), (2002, "asset_tag"), (30002, "taken_at"), (45002, "taken_at")}
+    messages = {row: message for row, _, message in job.errors}
+    assert "nanofarads" in messages[12] and "unknown asset tag" in messages[2002]
+    assert "future" in messages[30002] and "row 45001" in messages[45002]
+    assert not Reading.objects.exists()
+
+    refused = run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+    assert refused.state == ImportJob.State.REFUSED and not Reading.objects.exists()
+
+    done = run_job(job.id, ImportJob.Mode.GOOD_ROWS)
+    assert done.state == ImportJob.State.DONE
+    assert Reading.objects.count() == done.imported_rows == 49_996
+
+    again = create_job(kind="readings", filename="big.csv", content=csv_of(rows), user=None)
+    again = run_job(again.id, ImportJob.Mode.GOOD_ROWS)
+    assert again.imported_rows == 0 and again.duplicate_rows == 49_996
+    assert Reading.objects.count() == 49_996
+
+    fix_file = rejected_rows_csv(done).decode("utf-8-sig").splitlines()
+    assert len(fix_file) == 5 and fix_file[0].endswith("problems")
+
+
+def test_a_file_cut_off_mid_row_is_refused_cleanly():
+    fleet_of(3)
+    content = csv_of(good_rows(["IMP-0000", "IMP-0001", "IMP-0002"], 2)) + b"IMP-0000,run,2023-0"
+    with pytest.raises(FileRefused, match="Row 8 has 3 fields"):
+        read_table(content, "cut.csv")
+    assert not ImportJob.objects.exists() and not Reading.objects.exists()
+
+
+def test_a_file_cut_inside_a_quoted_field_is_refused():
+    with pytest.raises(FileRefused, match="cut off"):
+        read_table(b'asset_tag,notes\nA,"half a note', "cut.csv")
+
+
+def test_in_circuit_rows_compute_capacitance_and_milliamps_are_named():
+    fleet_of(2)
+    rows = [
+        ["IMP-0000", "run", "2024-02-01 09:00", "in_circuit", "", "0.5", "400", "30", ""],
+        ["IMP-0001", "run", "2024-02-01 09:05", "in_circuit", "", "500", "400", "30", ""],
+    ]
+    job = check_job(create_job(kind="readings", filename="ic.csv", content=csv_of(rows), user=None).id)
+    assert job.errors == [[3, "capacitor_current_a", job.errors[0][2]]] and "milliamperes" in job.errors[0][2]
+    run_job(job.id, ImportJob.Mode.GOOD_ROWS)
+    assert Reading.objects.get().capacitance_uf == pytest.approx(3.979, abs=0.001)
+
+
+def test_a_reading_is_given_to_the_capacitor_fitted_on_its_date():
+    installation = make_installation(fitted_on=dt.date(2020, 1, 1))
+    installation.removed_on, installation.removal_reason = dt.date(2023, 6, 1), "failed"
+    installation.save()
+    successor = make_installation(motor=installation.motor, part=installation.part, fitted_on=dt.date(2023, 6, 1))
+    tag = installation.motor.asset_tag
+    rows = [[tag, "run", "2023-03-01 09:00", "meter", "3.9", "", "", "", ""], [tag, "run", "2023-09-01 09:00", "meter", "4.0", "", "", "", ""]]
+    job = create_job(kind="readings", filename="history.csv", content=csv_of(rows), user=None)
+    run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+    assert set(Reading.objects.values_list("installation_id", "capacitance_uf")) == {(installation.id, 3.9), (successor.id, 4.0)}
+
+
+def test_other_headings_are_mapped_by_hand():
+    fleet_of(1)
+    content = csv_of([["IMP-0000", "RUN", "2024-05-05 08:00", "3.95"]], header=["Tag", "Position", "When", "uF"])
+    job = create_job(kind="readings", filename="theirs.csv", content=content, user=None)
+    assert job.mapping == {}
+    job.mapping = {"asset_tag": "Tag", "role": "Position", "taken_at": "When", "capacitance_uf": "uF"}
+    job.save()
+    assert run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING).imported_rows == 1
+
+
+def test_register_import_from_xlsx_creates_motors_capacitors_and_circuits(django_capture_on_commit_callbacks):
+    site = make_site(code="NEW")
+    make_part(code="RUN-8", rated_uf=8.0)
+    book = Workbook()
+    sheet = book.active
+    sheet.append(["asset_tag", "site_code", "location", "application", "motor_type", "load_type", "rated_voltage_v",
+                  "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm", "run_part_code", "start_part_code", "fitted_on"])
+    sheet.append(["NEW-1", "NEW", "Roof", "fan", "permanent_split", "fan_law", 230, 50, 4, 250, 1.9, 1370, "RUN-8", "", dt.date(2022, 3, 1)])
+    sheet.append(["NEW-2", "NEW", "Roof", "fan", "permanent_split", "fan_law", 230, 50, 4, 250, 1.9, 1500, "RUN-8", "", "2022-03-01"])
+    sheet.append(["NEW-3", "NOPE", "Roof", "fan", "capacitor_start", "fan_law", 230, 50, 4, 250, 1.9, 1370, "RUN-8", "", "2022-03-01"])
+    buffer = io.BytesIO()
+    book.save(buffer)
+    job = check_job(create_job(kind="register", filename="register.xlsx", content=buffer.getvalue(), user=None).id)
+    fields = {(row, field) for row, field, _ in job.errors}
+    assert fields == {(3, "rated_speed_rpm"), (4, "site_code")}
+    with django_capture_on_commit_callbacks(execute=True):  # the circuit estimate is queued on commit
+        run_job(job.id, ImportJob.Mode.GOOD_ROWS)
+    motor = Motor.objects.get(asset_tag="NEW-1")
+    assert motor.site == site and motor.capacitors.get().part.code == "RUN-8"
+    assert motor.circuit_source == "estimated" and motor.r1m_ohm > 0
+
+
+def test_exported_cells_never_start_a_formula():
+    """OWASP CSV injection: =, +, -, @ lead a formula unless the cell is a number."""
+    assert safe_cell("=HYPERLINK(1)") == "'=HYPERLINK(1)"
+    assert safe_cell("@SUM(A1)") == "'@SUM(A1)"
+    assert safe_cell("-3.2") == "-3.2"
+    assert safe_cell("Cold room 3") == "Cold room 3"
+
+
+def test_import_pages_map_check_and_import(client, technician):
+    fleet_of(2)
+    client.force_login(technician)
+    upload = io.BytesIO(csv_of(good_rows(["IMP-0000", "IMP-0001"], 2)))
+    upload.name = "quarter.csv"
+    response = client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get()
+    assert response.status_code == 302
+    mapping = {name: name for name in HEADER}
+    client.post(reverse("import_detail", args=[job.id]), {"action": "check", **mapping})
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.CHECKED and job.good_rows == 4
+    client.post(reverse("import_detail", args=[job.id]), {"action": "all"})
+    assert Reading.objects.count() == 4
+
+
+def test_a_technician_cannot_import_a_register(client, technician):
+    client.force_login(technician)
+    upload = io.BytesIO(b"asset_tag,site_code\nX,Y\n")
+    upload.name = "register.csv"
+    response = client.post(reverse("imports"), {"kind": "register", "file": upload})
+    assert "cannot import a motor register" in response.content.decode()
