@@ -16,7 +16,7 @@ ROOT = Path(__file__).resolve().parents[1]
 
 
 def run_check(extra_env, *args):
-    env = {k: v for k, v in os.environ.items() if k not in {"SECRET_KEY", "FLEET_PROFILE", "DEBUG"}}
+    env = {k: v for k, v in os.environ.items() if k not in {"SECRET_KEY", "FLEET_PROFILE", "DEBUG", "DJANGO_ALLOW_ASYNC_UNSAFE"}}
     env.update(extra_env)
     return subprocess.run([sys.executable, "manage.py", "check", *args], cwd=ROOT, env=env, capture_output=True, text=True)
 

@@ -27,17 +27,17 @@ def risk_levels(
 ):
     """Risk level per capacitor and days from now to its recommended replacement.
 
-    A capacitor whose newest reading is outside its limit, or whose fitted path
-    is already past it, is "replace now" with zero days. Otherwise the early
-    (P10) crossing sets both the level and the date (P10 less the lead time);
-    a P10 beyond the horizon (inf) means "sound" and no date (inf).
+    "Replace now" needs evidence: the newest reading outside its limit, a visible
+    defect, or the fitted path (P50) already past the limit. An early crossing
+    (P10) inside the next quarter makes it "due soon" with a date P10 less the
+    lead time; P10 within a year, "watch"; beyond that, or never, "sound" (inf days).
     """
     settings = settings or PlanningSettings()
     p10 = np.asarray(days_to_p10, float)
     p50 = np.asarray(days_to_p50, float)
     crossed = np.asarray(limit_already_crossed, bool) | (p50 <= 0)
     level = np.select(
-        [crossed | (p10 <= settings.lead_days), p10 <= settings.due_soon_days, p10 <= settings.watch_days],
+        [crossed, p10 <= settings.due_soon_days, p10 <= settings.watch_days],
         [RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH],
         default=RISK_SOUND,
     )

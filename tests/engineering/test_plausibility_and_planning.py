@@ -28,9 +28,17 @@ def test_off_trend_uses_a_fraction_of_the_rating():
 
 def test_risk_levels_follow_the_early_crossing():
     level, due = risk_levels([10, 60, 200, 900, np.inf], [40, 120, 400, 1500, np.inf], [False] * 5)
-    assert level.tolist() == [RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND, RISK_SOUND]
+    assert level.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND, RISK_SOUND]
     assert due.tolist()[:4] == [0.0, 30.0, 170.0, 870.0]
     assert np.isinf(due[4])
+
+
+def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
+    """A capacitor unread for a long time may have crossed (P10 past) while its
+    fitted path (P50) has not: read it soon, do not condemn it."""
+    level, due = risk_levels([0.0, 0.0], [300.0, 0.0], [False, False])
+    assert level.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
+    assert due.tolist() == [0.0, 0.0]
 
 
 def test_a_limit_already_crossed_is_replace_now_with_no_delay():

@@ -1,0 +1,97 @@
+"""A technician at a motor, on a phone: find it, log readings, fix mistakes, replace."""
+
+import datetime as dt
+
+import pytest
+from django.utils import timezone
+
+from fleet.models import FittedCapacitor, Reading
+from fleet.services.assessments import refit_installations
+
+from ..conftest import make_installation, make_user, quarterly_readings
+
+pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
+
+
+@pytest.fixture
+def motor_with_history(transactional_db):
+    installation = make_installation()
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97, 3.96])
+    refit_installations([installation.id])
+    return installation
+
+
+def sign_in(page, user):
+    page.goto("/login/")
+    page.fill("#id_username", user.username)
+    page.fill("#id_password", "a-long-test-password")
+    page.click("button[type=submit]")
+    page.wait_for_url("**/")
+
+
+def test_find_by_tag_and_log_an_in_circuit_reading(phone, motor_with_history):
+    technician = make_user("technician")
+    sign_in(phone, technician)
+    tag = motor_with_history.motor.asset_tag
+    phone.fill("#id_tag", tag.lower())
+    phone.click("text=Open")
+    phone.wait_for_url(f"**/motors/{tag}/")
+    assert phone.is_visible("text=never a screwdriver")
+    phone.shot("01-motor-page")
+    phone.click("text=Log reading")
+    phone.check("input[value=in_circuit]")
+    phone.fill("#id_capacitor_current_a", "0.49")
+    phone.fill("#id_capacitor_voltage_v", "393")
+    computed = phone.locator("#computed")
+    # 10^6 x 0.49 / (2 pi 50 x 393) = 3.97 uF
+    assert "3.97 uF" in computed.inner_text() and "within tolerance" in computed.inner_text()
+    phone.shot("02-in-circuit-computed")
+    phone.click("#save")
+    phone.wait_for_url(f"**/motors/{tag}/")
+    assert phone.is_visible("text=Reading saved")
+    reading = Reading.objects.order_by("-id").first()
+    assert reading.method == "in_circuit" and reading.capacitance_uf == pytest.approx(3.968, abs=0.001)
+
+
+def test_a_validation_error_keeps_what_was_typed(phone, motor_with_history):
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3960")
+    phone.fill("#id_case_temperature_c", "33")
+    phone.fill("#id_notes", "fan belt squeals")
+    phone.click("#save")
+    assert phone.is_visible("text=looks like nanofarads")
+    assert phone.input_value("#id_capacitance_uf") == "3960"
+    assert phone.input_value("#id_case_temperature_c") == "33"
+    assert phone.input_value("#id_notes") == "fan belt squeals"
+    phone.shot("03-unit-slip-kept")
+    assert Reading.objects.count() == 5
+
+
+def test_an_outlier_is_confirmed_and_saved_flagged(phone, motor_with_history):
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.3")
+    phone.click("#save")
+    assert phone.is_visible("text=far from this capacitor's trend")
+    phone.shot("04-confirm-outlier")
+    assert phone.input_value("#id_capacitance_uf") == "3.3"
+    phone.click("#confirm")
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.filter(capacitance_uf=3.3, outlier_confirmed=True).exists()
+
+
+def test_record_a_replacement_on_the_spot(phone, motor_with_history):
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/motors/{motor_with_history.motor.asset_tag}/")
+    phone.click("text=Record replacement")
+    phone.check("input[value=failed]")
+    phone.fill("#id_serial", "2611-0042")
+    phone.shot("05-replacement")
+    phone.click("text=Save replacement")
+    phone.wait_for_url("**/reading/")
+    assert phone.is_visible("text=Replacement recorded")
+    old = FittedCapacitor.objects.get(pk=motor_with_history.pk)
+    new = FittedCapacitor.objects.get(motor=old.motor, removed_on__isnull=True)
+    assert old.removal_reason == "failed" and new.serial == "2611-0042"
+    phone.shot("06-first-reading-of-new-capacitor")
