@@ -77,6 +77,22 @@ def make_user(role: str, username: str | None = None) -> User:
     return user
 
 
+@pytest.fixture(autouse=True)
+def tasks_in_process(request):
+    """Run Celery tasks in-process in every test but those marked `worker`, which
+    send them through a real worker; with a broker configured (as in CI) a plain
+    .delay() would otherwise queue work no test process consumes."""
+    if request.node.get_closest_marker("worker"):
+        yield
+        return
+    from config.celery import app
+
+    saved = app.conf.task_always_eager
+    app.conf.task_always_eager = True
+    yield
+    app.conf.task_always_eager = saved
+
+
 @pytest.fixture
 def technician(db):
     return make_user(TECHNICIAN)
