@@ -7,7 +7,7 @@ import io
 import segno
 from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
-from django.core.exceptions import ValidationError
+from django.core.exceptions import PermissionDenied, ValidationError
 from django.core.paginator import Paginator
 from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
@@ -23,6 +23,7 @@ from .roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN, roles_of
 from .services import pages
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installation_ids
+from .services.register import set_route_order
 from .services.import_jobs import SPECS, create_job, rejected_rows_csv
 from .tasks import check_import, refit_fleet, run_import
 
@@ -152,9 +153,22 @@ def replace(request, installation_id):
 @permission_required("fleet.view_motor", raise_exception=True)
 def site_route(request, site_code):
     site = get_object_or_404(Site, code=site_code)
+    order_errors = {}
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.change_motor"):
+            raise PermissionDenied
+        positions = {int(k.removeprefix("order-")): v for k, v in request.POST.items() if k.startswith("order-") and k[6:].isdigit()}
+        try:
+            set_route_order(site=site, positions=positions)
+        except ValidationError as error:
+            order_errors = error.message_dict
+        else:
+            messages.success(request, "Walking order saved.")
+            return redirect("route", site_code=site.code)
     rows, quarter_start = pages.route_for_site(site)
     due = sum(1 for row in rows if row["due"])
-    return render(request, "fleet/route.html", {"site": site, "rows": rows, "quarter_start": quarter_start, "due": due})
+    context = {"site": site, "rows": rows, "quarter_start": quarter_start, "due": due, "order_errors": order_errors}
+    return render(request, "fleet/route.html", context)
 
 
 def _qr_svg(request, motor: Motor) -> str:

@@ -117,3 +117,22 @@ def test_route_lists_the_sites_motors_in_walking_order(signed_in, technician, fa
     assert fan_installation.motor.asset_tag in response.content.decode()
     labels = signed_in(technician).get(reverse("labels", args=[site.code]))
     assert "<svg" in labels.content.decode()
+
+
+def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in, planner, technician):
+    from .conftest import make_motor, make_site
+
+    site = make_site()
+    first, second = make_motor(site=site, route_order=1), make_motor(site=site, route_order=2)
+    url = reverse("route", args=[site.code])
+    client = signed_in(planner)
+    response = client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "two"})
+    assert second.asset_tag in response.content.decode() and "not a whole number" in response.content.decode()
+    first.refresh_from_db()
+    assert first.route_order == 1
+    client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "3"})
+    first.refresh_from_db()
+    assert first.route_order == 5
+    body = client.get(url).content.decode()
+    assert body.index(second.asset_tag) < body.index(first.asset_tag)
+    assert signed_in(technician).post(url, {f"order-{first.id}": "1"}).status_code == 403

@@ -224,14 +224,19 @@ physical = st.fixed_dictionaries(
 )
 
 
+def random_motor(m) -> MotorCircuit:
+    """A 230 V 50 Hz motor from drawn ratios: auxiliary scaled by a^2, as designers wind it."""
+    a = m["turns_ratio"]
+    return circuit(
+        r1m=m["r1m"], x1m=m["x1m"], r1a=m["aux_r_ratio"] * a**2 * m["r1m"], x1a=a**2 * m["x1m"], r2=m["r2"],
+        x2=m["x1m"], xm=m["xm_ratio"] * m["x1m"], turns_ratio=a, voltage_v=230.0, frequency_hz=50.0,
+    )
+
+
 @settings(max_examples=200, deadline=None)
 @given(physical)
 def test_power_balance_holds_for_random_physical_motors(m):
-    c = circuit(
-        r1m=m["r1m"], x1m=m["x1m"], r1a=m["aux_r_ratio"] * m["turns_ratio"] ** 2 * m["r1m"],
-        x1a=m["turns_ratio"] ** 2 * m["x1m"], r2=m["r2"], x2=m["x1m"], xm=m["xm_ratio"] * m["x1m"],
-        turns_ratio=m["turns_ratio"], voltage_v=230.0, frequency_hz=50.0,
-    )
+    c = random_motor(m)
     result = two_winding_running(c, m["capacitance_uf"], m["slip"])
     losses = np.abs(result.i_main) ** 2 * c.r1m + np.abs(result.i_aux) ** 2 * c.r1a
     assert result.input_power_w == pytest.approx(losses + result.air_gap_forward_w + result.air_gap_backward_w, rel=1e-9)
@@ -243,11 +248,7 @@ def test_power_balance_holds_for_random_physical_motors(m):
 @given(physical)
 def test_capacitor_makes_forward_starting_torque_for_random_motors(m):
     """An auxiliary branch with a capacitor leads the main current: positive torque."""
-    c = circuit(
-        r1m=m["r1m"], x1m=m["x1m"], r1a=m["aux_r_ratio"] * m["turns_ratio"] ** 2 * m["r1m"],
-        x1a=m["turns_ratio"] ** 2 * m["x1m"], r2=m["r2"], x2=m["x1m"], xm=m["xm_ratio"] * m["x1m"],
-        turns_ratio=m["turns_ratio"], voltage_v=230.0, frequency_hz=50.0,
-    )
+    c = random_motor(m)
     locked = standstill(c.z_main_locked, c.z_aux_locked, m["capacitance_uf"], 230.0, 50.0, c.turns_ratio)
     assert locked.phase_shift_deg > 0
     assert two_winding_running(c, m["capacitance_uf"], 1.0).torque_nm > 0
