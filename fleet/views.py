@@ -19,7 +19,6 @@ from .engineering.capacitor import stored_energy_j
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
 from .models import FittedCapacitor, ImportJob, Motor, RefitRun, Site
-from .roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN, roles_of
 from .services import pages
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installation_ids
@@ -29,9 +28,8 @@ from .tasks import check_import, refit_fleet, run_import
 
 
 def home(request):
-    roles = roles_of(request.user)
     context = {"find_form": FindMotorForm(), "sites": Site.objects.all()}
-    if roles & {PLANNER, RELIABILITY_ENGINEER} or not roles - {TECHNICIAN}:
+    if request.user.has_perm("fleet.view_assessment"):
         context["risks"] = pages.risk_summary()
         context["plan"] = pages.replacement_plan(horizon_days=30)[:15]
         context["run"] = pages.latest_refit_run()
@@ -107,7 +105,8 @@ def reading_new(request, installation_id):
                 _add_errors(form, error)
             else:
                 messages.success(request, f"Reading saved for {installation.motor.asset_tag} ({installation.get_role_display().lower()} capacitor).")
-                return redirect("motor", asset_tag=installation.motor.asset_tag)
+                # ?saved= tells the page to drop the draft the phone kept of this form.
+                return redirect(f"{reverse('motor', args=[installation.motor.asset_tag])}?saved={installation.id}")
     else:
         form = ReadingForm()
     assessment = installation.assessments.filter(is_current=True).first()

@@ -47,7 +47,7 @@ def test_find_by_tag_and_log_an_in_circuit_reading(phone, motor_with_history):
     assert "3.97 uF" in computed.inner_text() and "within tolerance" in computed.inner_text()
     phone.shot("02-in-circuit-computed")
     phone.click("#save")
-    phone.wait_for_url(f"**/motors/{tag}/")
+    phone.wait_for_url(f"**/motors/{tag}/?saved=*")
     assert phone.is_visible("text=Reading saved")
     reading = Reading.objects.order_by("-id").first()
     assert reading.method == "in_circuit" and reading.capacitance_uf == pytest.approx(3.968, abs=0.001)
@@ -95,3 +95,25 @@ def test_record_a_replacement_on_the_spot(phone, motor_with_history):
     new = FittedCapacitor.objects.get(motor=old.motor, removed_on__isnull=True)
     assert old.removal_reason == "failed" and new.serial == "2611-0042"
     phone.shot("06-first-reading-of-new-capacitor")
+
+
+def test_what_was_typed_survives_a_lost_connection(phone, motor_with_history):
+    """The phone keeps a draft: leave the page unsaved (signal lost, tab closed), come
+    back, and the values are there to save; once saved, the draft is gone."""
+    sign_in(phone, make_user("technician"))
+    url = f"/capacitors/{motor_with_history.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.94")
+    phone.fill("#id_notes", "cover cracked")
+    phone.goto(f"/motors/{motor_with_history.motor.asset_tag}/")  # the post never reached the server
+    phone.goto(url)
+    assert phone.is_visible("#draft-note")
+    assert phone.input_value("#id_capacitance_uf") == "3.94"
+    assert phone.input_value("#id_notes") == "cover cracked"
+    phone.shot("07-draft-restored")
+    phone.click("#save")
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.filter(capacitance_uf=3.94, notes="cover cracked").exists()
+    phone.goto(url)
+    assert not phone.is_visible("#draft-note")
+    assert phone.input_value("#id_capacitance_uf") == ""
