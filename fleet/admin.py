@@ -20,7 +20,16 @@ class FittedCapacitorInline(admin.TabularInline):
 
 @admin.register(Motor)
 class MotorAdmin(admin.ModelAdmin):
-    list_display = ["asset_tag", "site", "location", "application", "motor_type", "output_w", "rated_voltage_v", "status"]
+    list_display = [
+        "asset_tag",
+        "site",
+        "location",
+        "application",
+        "motor_type",
+        "output_w",
+        "rated_voltage_v",
+        "status",
+    ]
     list_filter = ["site", "application", "motor_type", "load_type", "status", "frequency_hz", "poles"]
     search_fields = ["asset_tag", "location"]
     list_select_related = ["site"]
@@ -29,7 +38,17 @@ class MotorAdmin(admin.ModelAdmin):
 
 @admin.register(CapacitorPart)
 class CapacitorPartAdmin(admin.ModelAdmin):
-    list_display = ["code", "rated_uf", "tolerance_minus_pct", "tolerance_plus_pct", "rated_voltage_v", "dielectric", "class_of_operation", "safety_class", "unit_cost"]
+    list_display = [
+        "code",
+        "rated_uf",
+        "tolerance_minus_pct",
+        "tolerance_plus_pct",
+        "rated_voltage_v",
+        "dielectric",
+        "class_of_operation",
+        "safety_class",
+        "unit_cost",
+    ]
     list_filter = ["dielectric", "class_of_operation", "safety_class", "frequency_hz"]
     search_fields = ["code", "description"]
 
@@ -48,7 +67,16 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
 class ReadingAdmin(admin.ModelAdmin):
     """Readings are append-only: they can be added and viewed, never changed or deleted."""
 
-    list_display = ["installation", "taken_at", "method", "capacitance_uf", "case_temperature_c", "taken_by", "source", "outlier_confirmed"]
+    list_display = [
+        "installation",
+        "taken_at",
+        "method",
+        "capacitance_uf",
+        "case_temperature_c",
+        "taken_by",
+        "source",
+        "outlier_confirmed",
+    ]
     list_filter = ["method", "source", "condition", "outlier_confirmed", "installation__motor__site"]
     search_fields = ["installation__motor__asset_tag", "notes"]
     list_select_related = ["installation__motor", "installation__part", "taken_by"]
@@ -64,7 +92,16 @@ class ReadingAdmin(admin.ModelAdmin):
 
 @admin.register(Assessment)
 class AssessmentAdmin(admin.ModelAdmin):
-    list_display = ["installation", "risk", "replace_by", "capacitance_now_uf", "limit_source", "low_confidence", "is_current", "created_at"]
+    list_display = [
+        "installation",
+        "risk",
+        "replace_by",
+        "capacitance_now_uf",
+        "limit_source",
+        "low_confidence",
+        "is_current",
+        "created_at",
+    ]
     list_filter = ["is_current", "risk", "limit_source", "low_confidence", "trend_model"]
     search_fields = ["installation__motor__asset_tag"]
     list_select_related = ["installation__motor", "installation__part"]

@@ -22,7 +22,9 @@ class ReadingForm(forms.Form):
     method = forms.ChoiceField(
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
     )
-    capacitance_uf = number("Capacitance", "uF", help_text="From the capacitance meter, capacitor isolated and discharged.")
+    capacitance_uf = number(
+        "Capacitance", "uF", help_text="From the capacitance meter, capacitor isolated and discharged."
+    )
     capacitor_current_a = number("Capacitor current", "A", help_text="True-RMS clamp on the capacitor lead.")
     capacitor_voltage_v = number("Voltage across capacitor", "V")
     line_voltage_v = number("Line voltage", "V")
@@ -32,7 +34,9 @@ class ReadingForm(forms.Form):
     case_temperature_c = number("Capacitor case temperature", "C")
     ambient_temperature_c = number("Ambient temperature", "C")
     esr_ohm = number("ESR", "ohm", help_text="Only where the meter measures it.")
-    condition = forms.ChoiceField(choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see")
+    condition = forms.ChoiceField(
+        choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see"
+    )
     notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
     confirmed = forms.BooleanField(required=False, widget=forms.HiddenInput)
 
@@ -70,7 +74,12 @@ class FindMotorForm(forms.Form):
 
 
 class ImportUploadForm(forms.Form):
-    kind = forms.ChoiceField(choices=[("readings", "Readings"), ("register", "Motor register")], widget=forms.RadioSelect, initial="readings", label="What the file holds")
+    kind = forms.ChoiceField(
+        choices=[("readings", "Readings"), ("register", "Motor register")],
+        widget=forms.RadioSelect,
+        initial="readings",
+        label="What the file holds",
+    )
     file = forms.FileField(label="CSV or XLSX file", help_text="Up to 50 MB. First row: column headings.")
 
     def clean_file(self):
@@ -85,12 +94,23 @@ class ImportUploadForm(forms.Form):
 class ColumnMappingForm(forms.Form):
     """One choice per field of ours: which of the file's columns holds it."""
 
-    def __init__(self, *args, ours: dict[str, str], columns: list[str], initial_mapping: dict[str, str], required: tuple, **kwargs):
+    def __init__(
+        self,
+        *args,
+        ours: dict[str, str],
+        columns: list[str],
+        initial_mapping: dict[str, str],
+        required: tuple,
+        **kwargs,
+    ):
         super().__init__(*args, **kwargs)
         choices = [("", "(not in this file)")] + [(c, c) for c in columns]
         for name, description in ours.items():
             self.fields[name] = forms.ChoiceField(
-                choices=choices, required=name in required, label=name, help_text=description,
+                choices=choices,
+                required=name in required,
+                label=name,
+                help_text=description,
                 initial=initial_mapping.get(name, ""),
             )
 

@@ -43,8 +43,16 @@ READING_COLUMNS = {
 }
 READING_REQUIRED = ("asset_tag", "role", "taken_at")
 READING_NUMBERS = [
-    "capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "line_voltage_v", "main_current_a",
-    "aux_current_a", "line_current_a", "case_temperature_c", "ambient_temperature_c", "esr_ohm",
+    "capacitance_uf",
+    "capacitor_current_a",
+    "capacitor_voltage_v",
+    "line_voltage_v",
+    "main_current_a",
+    "aux_current_a",
+    "line_current_a",
+    "case_temperature_c",
+    "ambient_temperature_c",
+    "esr_ohm",
 ]
 
 REGISTER_COLUMNS = {
@@ -66,8 +74,18 @@ REGISTER_COLUMNS = {
     "fitted_on": "Date the capacitors were fitted, ISO 8601 (required)",
 }
 REGISTER_REQUIRED = (
-    "asset_tag", "site_code", "application", "motor_type", "load_type", "rated_voltage_v", "frequency_hz", "poles",
-    "output_w", "full_load_current_a", "rated_speed_rpm", "fitted_on",
+    "asset_tag",
+    "site_code",
+    "application",
+    "motor_type",
+    "load_type",
+    "rated_voltage_v",
+    "frequency_hz",
+    "poles",
+    "output_w",
+    "full_load_current_a",
+    "rated_speed_rpm",
+    "fitted_on",
 )
 REGISTER_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm"]
 
@@ -149,7 +167,9 @@ def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
     return {name: by_norm[norm(name)] for name in ours if norm(name) in by_norm}
 
 
-def mapped_frame(header: list[str], rows: list[list[str]], mapping: dict[str, str], ours: dict[str, str]) -> pd.DataFrame:
+def mapped_frame(
+    header: list[str], rows: list[list[str]], mapping: dict[str, str], ours: dict[str, str]
+) -> pd.DataFrame:
     frame = pd.DataFrame(rows, columns=header, dtype=str) if rows else pd.DataFrame(columns=header, dtype=str)
     out = pd.DataFrame(index=frame.index)
     for name in ours:
@@ -226,7 +246,11 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         method = chunk["method"].str.lower().replace("", "meter")
         problems.add(~method.isin(["meter", "in_circuit"]), "method", "must be meter or in_circuit")
         condition = chunk["condition"].str.lower().replace("", "sound")
-        problems.add(~condition.isin(["sound", "bulged", "leaking", "vented"]), "condition", "must be sound, bulged, leaking or vented")
+        problems.add(
+            ~condition.isin(["sound", "bulged", "leaking", "vented"]),
+            "condition",
+            "must be sound, bulged, leaking or vented",
+        )
         taken = _parse_times(chunk["taken_at"], default_tz)
         problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
         problems.add(taken > now + dt.timedelta(minutes=10), "taken_at", "in the future")
@@ -241,7 +265,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         )
         match = candidates[in_window.fillna(False)].sort_values("fitted_on").groupby("i").tail(1).set_index("i")
         match = match.reindex(np.arange(len(chunk)))
-        problems.add(match["installation_id"].isna(), "role", "no capacitor in this role was fitted to this motor on that date")
+        problems.add(
+            match["installation_id"].isna(), "role", "no capacitor in this role was fitted to this motor on that date"
+        )
         rated = match["rated_uf"].to_numpy(float)
         frequency = match["frequency_hz"].to_numpy(float)
         in_circuit = method.eq("in_circuit").to_numpy()
@@ -250,7 +276,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         problems.add(in_circuit & np.isnan(voltage), "capacitor_voltage_v", "in-circuit reading without a voltage")
         slip = current_unit_slip(current, voltage, rated, frequency)
         problems.add(in_circuit & (slip != ""), "capacitor_current_a", slip)
-        capacitance = np.where(in_circuit, capacitance_from_current(current, voltage, frequency), numbers["capacitance_uf"])
+        capacitance = np.where(
+            in_circuit, capacitance_from_current(current, voltage, frequency), numbers["capacitance_uf"]
+        )
         problems.add(~in_circuit & np.isnan(capacitance), "capacitance_uf", "required for a meter reading")
         problems.add(capacitance <= 0, "capacitance_uf", "must be above zero")
         problems.add(voltage <= 0, "capacitor_voltage_v", "must be above zero")
@@ -273,7 +301,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         )[good]
         rows["import_key"] = [
             reading_key(int(i), t.isoformat(), m, c)
-            for i, t, m, c in zip(rows["installation_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"], strict=True)
+            for i, t, m, c in zip(
+                rows["installation_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"], strict=True
+            )
         ]
         duplicate_in_file = []
         for row_number, key in zip(rows["row"], rows["import_key"], strict=True):
@@ -292,7 +322,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     existing = set()
     keys = good["import_key"].tolist() if len(good) else []
     for start in range(0, len(keys), 5000):
-        existing |= set(Reading.objects.filter(import_key__in=keys[start : start + 5000]).values_list("import_key", flat=True))
+        existing |= set(
+            Reading.objects.filter(import_key__in=keys[start : start + 5000]).values_list("import_key", flat=True)
+        )
     if existing:
         good = good[~good["import_key"].isin(existing)].reset_index(drop=True)
     errors.sort()
@@ -314,7 +346,11 @@ def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
             notes=row.notes or "",
             source=Reading.Source.IMPORT,
             import_key=row.import_key,
-            **{name: (None if np.isnan(getattr(row, name)) else float(getattr(row, name))) for name in READING_NUMBERS if name != "capacitance_uf"},
+            **{
+                name: (None if np.isnan(getattr(row, name)) else float(getattr(row, name)))
+                for name in READING_NUMBERS
+                if name != "capacitance_uf"
+            },
         )
         for row in good.itertuples(index=False)
     ]
@@ -347,12 +383,16 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     for name in ("output_w", "full_load_current_a"):
         problems.add(numbers[name] <= 0, name, "must be above zero")
     synchronous = 120.0 * hertz / np.where(poles > 0, poles, np.nan)
-    problems.add(numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)")
+    problems.add(
+        numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)"
+    )
     kind = frame["motor_type"].str.lower()
     needs_run = kind.isin(["permanent_split", "two_value"])
     needs_start = kind.isin(["capacitor_start", "two_value"])
     problems.add(needs_run & frame["run_part_code"].eq(""), "run_part_code", "this motor type has a run capacitor")
-    problems.add(needs_start & frame["start_part_code"].eq(""), "start_part_code", "this motor type has a start capacitor")
+    problems.add(
+        needs_start & frame["start_part_code"].eq(""), "start_part_code", "this motor type has a start capacitor"
+    )
     for name in ("run_part_code", "start_part_code"):
         problems.add(frame[name].ne("") & ~frame[name].isin(parts), name, "unknown part code: add the part first")
     for name in ("fitted_on", "commissioned_on"):
@@ -362,7 +402,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
-    problems.add(repeated, "asset_tag", np.array([f"the same tag as row {first_row.get(t)}" for t in tags], dtype=object))
+    problems.add(
+        repeated, "asset_tag", np.array([f"the same tag as row {first_row.get(t)}" for t in tags], dtype=object)
+    )
     already = tags.isin(existing).to_numpy() & ~problems.bad
     good_mask = ~problems.bad & ~already
     good = frame[good_mask].copy()
@@ -371,7 +413,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     good["site_id"] = good["site_code"].map(sites)
     if on_progress:
         on_progress(len(frame))
-    return CheckResult(good=good.reset_index(drop=True), errors=sorted(problems.items), duplicates=int(already.sum()), total=len(frame))
+    return CheckResult(
+        good=good.reset_index(drop=True), errors=sorted(problems.items), duplicates=int(already.sum()), total=len(frame)
+    )
 
 
 def insert_register(good: pd.DataFrame) -> list[int]:
@@ -382,10 +426,18 @@ def insert_register(good: pd.DataFrame) -> list[int]:
     motors = Motor.objects.bulk_create(
         [
             Motor(
-                asset_tag=row.asset_tag, site_id=int(row.site_id), location=row.location, application=row.application.lower(),
-                motor_type=row.motor_type.lower(), load_type=row.load_type.lower(), rated_voltage_v=row.rated_voltage_v,
-                frequency_hz=int(row.frequency_hz), poles=int(row.poles), output_w=row.output_w,
-                full_load_current_a=row.full_load_current_a, rated_speed_rpm=row.rated_speed_rpm,
+                asset_tag=row.asset_tag,
+                site_id=int(row.site_id),
+                location=row.location,
+                application=row.application.lower(),
+                motor_type=row.motor_type.lower(),
+                load_type=row.load_type.lower(),
+                rated_voltage_v=row.rated_voltage_v,
+                frequency_hz=int(row.frequency_hz),
+                poles=int(row.poles),
+                output_w=row.output_w,
+                full_load_current_a=row.full_load_current_a,
+                rated_speed_rpm=row.rated_speed_rpm,
                 commissioned_on=dt.date.fromisoformat(row.commissioned_on[:10]) if row.commissioned_on else None,
             )
             for row in good.itertuples(index=False)

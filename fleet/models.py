@@ -79,7 +79,9 @@ class Motor(models.Model):
     class Meta:
         ordering = ["site__code", "route_order", "asset_tag"]
         constraints = [
-            models.CheckConstraint(condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000), name="motor_voltage_range"),
+            models.CheckConstraint(
+                condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000), name="motor_voltage_range"
+            ),
             models.CheckConstraint(condition=Q(frequency_hz__in=[50, 60]), name="motor_frequency_50_or_60"),
             models.CheckConstraint(condition=Q(poles__in=[2, 4, 6, 8, 10, 12]), name="motor_poles_even"),
             models.CheckConstraint(condition=Q(output_w__gt=0), name="motor_output_positive"),
@@ -334,6 +336,9 @@ class PartPrior(models.Model):
     capacitors = models.PositiveIntegerField()
     updated_at = models.DateTimeField(auto_now=True)
 
+    def __str__(self):
+        return f"prior of {self.part_id} ({self.trend_model}, {self.capacitors} capacitors)"
+
 
 class WorkOrder(models.Model):
     class Kind(models.TextChoices):
@@ -356,9 +361,13 @@ class WorkOrder(models.Model):
     window_days = models.PositiveIntegerField(default=14)
     state = models.CharField(max_length=10, choices=State.choices, default=State.PLANNED)
     reason = models.CharField(max_length=200, blank=True)
-    created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+")
+    created_by = models.ForeignKey(
+        settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+"
+    )
     created_at = models.DateTimeField(auto_now_add=True)
-    closed_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+")
+    closed_by = models.ForeignKey(
+        settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+"
+    )
     closed_at = models.DateTimeField(null=True, blank=True)
 
     class Meta:
@@ -399,6 +408,9 @@ class RefitRun(models.Model):
 
     class Meta:
         ordering = ["-started_at"]
+
+    def __str__(self):
+        return f"{self.kind} refit {self.started_at:%Y-%m-%d %H:%M} ({self.state})"
 
     @property
     def percent(self) -> int:

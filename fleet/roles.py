@@ -11,8 +11,14 @@ ADMINISTRATOR = "administrator"
 ROLES = (TECHNICIAN, PLANNER, RELIABILITY_ENGINEER, ADMINISTRATOR)
 
 VIEW_ALL = [
-    "view_site", "view_motor", "view_capacitorpart", "view_fittedcapacitor",
-    "view_reading", "view_assessment", "view_workorder", "view_refitrun",
+    "view_site",
+    "view_motor",
+    "view_capacitorpart",
+    "view_fittedcapacitor",
+    "view_reading",
+    "view_assessment",
+    "view_workorder",
+    "view_refitrun",
 ]
 ROLE_PERMISSIONS = {
     TECHNICIAN: VIEW_ALL + ["add_reading", "add_fittedcapacitor", "change_fittedcapacitor", "change_workorder"],

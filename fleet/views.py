@@ -20,10 +20,10 @@ from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingFo
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
 from .models import FittedCapacitor, ImportJob, Motor, RefitRun, Site
 from .services import pages
+from .services.import_jobs import SPECS, create_job, rejected_rows_csv
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installation_ids
 from .services.register import set_route_order
-from .services.import_jobs import SPECS, create_job, rejected_rows_csv
 from .tasks import check_import, refit_fleet, run_import
 
 
@@ -95,7 +95,9 @@ def reading_new(request, installation_id):
         if form.is_valid():
             try:
                 record_reading(
-                    installation=installation, values=form.measured_values(), user=request.user,
+                    installation=installation,
+                    values=form.measured_values(),
+                    user=request.user,
                     confirmed=form.cleaned_data["confirmed"],
                 )
             except NeedsConfirmation as error:
@@ -104,7 +106,11 @@ def reading_new(request, installation_id):
             except ValidationError as error:
                 _add_errors(form, error)
             else:
-                messages.success(request, f"Reading saved for {installation.motor.asset_tag} ({installation.get_role_display().lower()} capacitor).")
+                messages.success(
+                    request,
+                    f"Reading saved for {installation.motor.asset_tag} "
+                    f"({installation.get_role_display().lower()} capacitor).",
+                )
                 # ?saved= tells the page to drop the draft the phone kept of this form.
                 return redirect(f"{reverse('motor', args=[installation.motor.asset_tag])}?saved={installation.id}")
     else:
@@ -136,8 +142,12 @@ def replace(request, installation_id):
     if request.method == "POST" and form.is_valid():
         try:
             successor = replace_capacitor(
-                installation=installation, part=form.cleaned_data["part"], removed_on=form.cleaned_data["removed_on"],
-                reason=form.cleaned_data["removal_reason"], user=request.user, serial=form.cleaned_data["serial"],
+                installation=installation,
+                part=form.cleaned_data["part"],
+                removed_on=form.cleaned_data["removed_on"],
+                reason=form.cleaned_data["removal_reason"],
+                user=request.user,
+                serial=form.cleaned_data["serial"],
                 notes=form.cleaned_data["notes"],
             )
         except ValidationError as error:
@@ -145,7 +155,12 @@ def replace(request, installation_id):
         else:
             messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
             return redirect("reading_new", installation_id=successor.id)
-    context = {"installation": installation, "motor": installation.motor, "form": form, "energy_j": _energy_j(installation.part)}
+    context = {
+        "installation": installation,
+        "motor": installation.motor,
+        "form": form,
+        "energy_j": _energy_j(installation.part),
+    }
     return render(request, "fleet/replace.html", context)
 
 
@@ -156,7 +171,11 @@ def site_route(request, site_code):
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
             raise PermissionDenied
-        positions = {int(k.removeprefix("order-")): v for k, v in request.POST.items() if k.startswith("order-") and k[6:].isdigit()}
+        positions = {
+            int(k.removeprefix("order-")): v
+            for k, v in request.POST.items()
+            if k.startswith("order-") and k[6:].isdigit()
+        }
         try:
             set_route_order(site=site, positions=positions)
         except ValidationError as error:
@@ -269,7 +288,10 @@ def import_detail(request, job_id):
     ours = SPECS[job.kind][0]
     form = ColumnMappingForm(
         request.POST if request.POST.get("action") == "check" else None,
-        ours=ours, columns=job.columns, initial_mapping=job.mapping, required=REQUIRED_COLUMNS[job.kind],
+        ours=ours,
+        columns=job.columns,
+        initial_mapping=job.mapping,
+        required=REQUIRED_COLUMNS[job.kind],
     )
     if request.method == "POST":
         action = request.POST.get("action")

@@ -17,8 +17,16 @@ _serial = itertools.count(1)
 # A PSC fan motor whose circuit came from the nameplate estimator (230 V, 50 Hz,
 # 6 poles, 120 W, 0.95 A, 910 rpm, 4 uF): plausible, not a published machine.
 FAN_CIRCUIT = dict(
-    r1m_ohm=35.12, x1m_ohm=8.47, r1a_ohm=75.87, x1a_ohm=15.23, r2_ohm=56.09, x2_ohm=8.47, xm_ohm=296.66,
-    turns_ratio=1.34, rotational_loss_w=6.0, circuit_source="estimated",
+    r1m_ohm=35.12,
+    x1m_ohm=8.47,
+    r1a_ohm=75.87,
+    x1a_ohm=15.23,
+    r2_ohm=56.09,
+    x2_ohm=8.47,
+    xm_ohm=296.66,
+    turns_ratio=1.34,
+    rotational_loss_w=6.0,
+    circuit_source="estimated",
 )
 
 
@@ -29,8 +37,16 @@ def make_site(code=None, **kwargs) -> Site:
 
 def make_part(**kwargs) -> CapacitorPart:
     values = dict(
-        code=f"P-{next(_serial)}", rated_uf=4.0, tolerance_minus_pct=5, tolerance_plus_pct=5, rated_voltage_v=450,
-        frequency_hz=50, dielectric="film", class_of_operation="B", safety_class="S2", unit_cost=6,
+        code=f"P-{next(_serial)}",
+        rated_uf=4.0,
+        tolerance_minus_pct=5,
+        tolerance_plus_pct=5,
+        rated_voltage_v=450,
+        frequency_hz=50,
+        dielectric="film",
+        class_of_operation="B",
+        safety_class="S2",
+        unit_cost=6,
     )
     values.update(kwargs)
     return CapacitorPart.objects.create(**values)
@@ -38,9 +54,18 @@ def make_part(**kwargs) -> CapacitorPart:
 
 def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
     values = dict(
-        asset_tag=f"M-{next(_serial):05d}", site=site or make_site(), application="fan", motor_type="permanent_split",
-        load_type="fan_law", rated_voltage_v=230, frequency_hz=50, poles=6, output_w=120, full_load_current_a=0.95,
-        rated_speed_rpm=910, location="Cold room 1",
+        asset_tag=f"M-{next(_serial):05d}",
+        site=site or make_site(),
+        application="fan",
+        motor_type="permanent_split",
+        load_type="fan_law",
+        rated_voltage_v=230,
+        frequency_hz=50,
+        poles=6,
+        output_w=120,
+        full_load_current_a=0.95,
+        rated_speed_rpm=910,
+        location="Cold room 1",
     )
     if with_circuit:
         values.update(FAN_CIRCUIT)
@@ -69,7 +94,9 @@ def quarterly_readings(installation, start: dt.datetime, values_uf, **kwargs) ->
 
 
 def make_user(role: str, username: str | None = None) -> User:
-    user = User.objects.create_user(username=username or f"{role.split()[0]}{next(_serial)}", password="a-long-test-password")
+    user = User.objects.create_user(
+        username=username or f"{role.split()[0]}{next(_serial)}", password="a-long-test-password"
+    )
     user.groups.add(Group.objects.get(name=role))
     if role == ADMINISTRATOR:
         user.is_staff = True

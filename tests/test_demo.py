@@ -16,7 +16,10 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     assert "Built the demo fleet" in out and "tech" in out and "planner" in out
     assert first[0] > 5 and first[2] > 50
     assert Assessment.objects.filter(is_current=True).exists()
-    assert FittedCapacitor.objects.filter(removal_reason="failed").exists() or FittedCapacitor.objects.filter(removal_reason="planned").exists()
+    assert (
+        FittedCapacitor.objects.filter(removal_reason="failed").exists()
+        or FittedCapacitor.objects.filter(removal_reason="planned").exists()
+    )
     call_command("demo", "--no-serve")
     assert "nothing added" in capsys.readouterr().out
     assert (Motor.objects.count(), FittedCapacitor.objects.count(), Reading.objects.count()) == first

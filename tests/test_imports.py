@@ -18,7 +18,17 @@ from .conftest import make_installation, make_motor, make_part, make_site
 
 pytestmark = pytest.mark.django_db
 
-HEADER = ["asset_tag", "role", "taken_at", "method", "capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "case_temperature_c", "notes"]
+HEADER = [
+    "asset_tag",
+    "role",
+    "taken_at",
+    "method",
+    "capacitance_uf",
+    "capacitor_current_a",
+    "capacitor_voltage_v",
+    "case_temperature_c",
+    "notes",
+]
 
 
 def fleet_of(count):
@@ -121,10 +131,16 @@ def test_a_reading_is_given_to_the_capacitor_fitted_on_its_date():
     installation.save()
     successor = make_installation(motor=installation.motor, part=installation.part, fitted_on=dt.date(2023, 6, 1))
     tag = installation.motor.asset_tag
-    rows = [[tag, "run", "2023-03-01 09:00", "meter", "3.9", "", "", "", ""], [tag, "run", "2023-09-01 09:00", "meter", "4.0", "", "", "", ""]]
+    rows = [
+        [tag, "run", "2023-03-01 09:00", "meter", "3.9", "", "", "", ""],
+        [tag, "run", "2023-09-01 09:00", "meter", "4.0", "", "", "", ""],
+    ]
     job = create_job(kind="readings", filename="history.csv", content=csv_of(rows), user=None)
     run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
-    assert set(Reading.objects.values_list("installation_id", "capacitance_uf")) == {(installation.id, 3.9), (successor.id, 4.0)}
+    assert set(Reading.objects.values_list("installation_id", "capacitance_uf")) == {
+        (installation.id, 3.9),
+        (successor.id, 4.0),
+    }
 
 
 def test_other_headings_are_mapped_by_hand():
@@ -142,11 +158,82 @@ def test_register_import_from_xlsx_creates_motors_capacitors_and_circuits(django
     make_part(code="RUN-8", rated_uf=8.0)
     book = Workbook()
     sheet = book.active
-    sheet.append(["asset_tag", "site_code", "location", "application", "motor_type", "load_type", "rated_voltage_v",
-                  "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm", "run_part_code", "start_part_code", "fitted_on"])
-    sheet.append(["NEW-1", "NEW", "Roof", "fan", "permanent_split", "fan_law", 230, 50, 4, 250, 1.9, 1370, "RUN-8", "", dt.date(2022, 3, 1)])
-    sheet.append(["NEW-2", "NEW", "Roof", "fan", "permanent_split", "fan_law", 230, 50, 4, 250, 1.9, 1500, "RUN-8", "", "2022-03-01"])
-    sheet.append(["NEW-3", "NOPE", "Roof", "fan", "capacitor_start", "fan_law", 230, 50, 4, 250, 1.9, 1370, "RUN-8", "", "2022-03-01"])
+    sheet.append(
+        [
+            "asset_tag",
+            "site_code",
+            "location",
+            "application",
+            "motor_type",
+            "load_type",
+            "rated_voltage_v",
+            "frequency_hz",
+            "poles",
+            "output_w",
+            "full_load_current_a",
+            "rated_speed_rpm",
+            "run_part_code",
+            "start_part_code",
+            "fitted_on",
+        ]
+    )
+    sheet.append(
+        [
+            "NEW-1",
+            "NEW",
+            "Roof",
+            "fan",
+            "permanent_split",
+            "fan_law",
+            230,
+            50,
+            4,
+            250,
+            1.9,
+            1370,
+            "RUN-8",
+            "",
+            dt.date(2022, 3, 1),
+        ]
+    )
+    sheet.append(
+        [
+            "NEW-2",
+            "NEW",
+            "Roof",
+            "fan",
+            "permanent_split",
+            "fan_law",
+            230,
+            50,
+            4,
+            250,
+            1.9,
+            1500,
+            "RUN-8",
+            "",
+            "2022-03-01",
+        ]
+    )
+    sheet.append(
+        [
+            "NEW-3",
+            "NOPE",
+            "Roof",
+            "fan",
+            "capacitor_start",
+            "fan_law",
+            230,
+            50,
+            4,
+            250,
+            1.9,
+            1370,
+            "RUN-8",
+            "",
+            "2022-03-01",
+        ]
+    )
     buffer = io.BytesIO()
     book.save(buffer)
     job = check_job(create_job(kind="register", filename="register.xlsx", content=buffer.getvalue(), user=None).id)

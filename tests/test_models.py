@@ -41,7 +41,9 @@ def test_a_second_active_run_capacitor_on_one_motor_is_refused(fan_installation)
 
 
 def test_a_start_and_a_run_capacitor_may_both_be_active(fan_installation):
-    make_installation(motor=fan_installation.motor, role="start", part=make_part(dielectric="electrolytic", rated_uf=98))
+    make_installation(
+        motor=fan_installation.motor, role="start", part=make_part(dielectric="electrolytic", rated_uf=98)
+    )
 
 
 def test_a_replaced_capacitor_frees_its_position(fan_installation):

@@ -1,10 +1,9 @@
 """Services: readings, refits, assessments, replacements, sweeps."""
 
 import datetime as dt
-
-import numpy as np
 from unittest import mock
 
+import numpy as np
 import pytest
 from django.core.exceptions import ValidationError
 from django.utils import timezone
@@ -32,18 +31,30 @@ def ageing_fleet(count=12, part=None):
     return installations
 
 
-def test_saving_a_reading_queues_its_refit_after_commit(fan_installation, technician, django_capture_on_commit_callbacks):
-    with mock.patch("fleet.tasks.refit_installation.delay") as delay:
-        with django_capture_on_commit_callbacks(execute=True) as callbacks:
-            record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician)
+def test_saving_a_reading_queues_its_refit_after_commit(
+    fan_installation, technician, django_capture_on_commit_callbacks
+):
+    with (
+        mock.patch("fleet.tasks.refit_installation.delay") as delay,
+        django_capture_on_commit_callbacks(execute=True) as callbacks,
+    ):
+        record_reading(
+            installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
+        )
     assert len(callbacks) == 1
     delay.assert_called_once_with(fan_installation.id)
 
 
-def test_a_broker_that_is_down_does_not_lose_the_reading(fan_installation, technician, django_capture_on_commit_callbacks):
-    with mock.patch("fleet.tasks.refit_installation.delay", side_effect=ConnectionError("broker down")):
-        with django_capture_on_commit_callbacks(execute=True):
-            reading = record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician)
+def test_a_broker_that_is_down_does_not_lose_the_reading(
+    fan_installation, technician, django_capture_on_commit_callbacks
+):
+    with (
+        mock.patch("fleet.tasks.refit_installation.delay", side_effect=ConnectionError("broker down")),
+        django_capture_on_commit_callbacks(execute=True),
+    ):
+        reading = record_reading(
+            installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
+        )
     assert Reading.objects.filter(pk=reading.pk).exists()
     assert fan_installation.id in stale_installation_ids()
     assert sweep_stale() == 1
@@ -63,10 +74,18 @@ def test_in_circuit_reading_computes_capacitance(fan_installation):
     "values,field,words",
     [
         ({"method": "meter", "capacitance_uf": 3950.0}, "capacitance_uf", "nanofarads"),
-        ({"method": "in_circuit", "capacitor_current_a": 500.0, "capacitor_voltage_v": 400.0}, "capacitor_current_a", "milliamperes"),
+        (
+            {"method": "in_circuit", "capacitor_current_a": 500.0, "capacitor_voltage_v": 400.0},
+            "capacitor_current_a",
+            "milliamperes",
+        ),
         ({"method": "in_circuit", "capacitor_current_a": 0.5}, "capacitor_voltage_v", "voltage"),
         ({"method": "meter"}, "capacitance_uf", "Enter the capacitance"),
-        ({"method": "meter", "capacitance_uf": 4.0, "taken_at": timezone.now() + dt.timedelta(days=2)}, "taken_at", "future"),
+        (
+            {"method": "meter", "capacitance_uf": 4.0, "taken_at": timezone.now() + dt.timedelta(days=2)},
+            "taken_at",
+            "future",
+        ),
     ],
 )
 def test_bad_readings_are_refused_by_field_and_nothing_is_saved(fan_installation, values, field, words):
@@ -81,7 +100,9 @@ def test_a_jump_off_the_trend_needs_confirmation_and_is_then_kept(fan_installati
     refit_installations([fan_installation.id])
     with pytest.raises(NeedsConfirmation):
         record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2})
-    reading = record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2}, confirmed=True)
+    reading = record_reading(
+        installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2}, confirmed=True
+    )
     assert reading.outlier_confirmed
 
 
@@ -157,9 +178,15 @@ def test_fleet_refit_records_progress_to_done_in_eager_mode():
 
 
 def test_replacement_closes_open_orders_and_starts_a_new_history(fan_installation, technician):
-    order = WorkOrder.objects.create(motor=fan_installation.motor, installation=fan_installation, kind="replace_run", due_on=dt.date(2026, 1, 1))
+    order = WorkOrder.objects.create(
+        motor=fan_installation.motor, installation=fan_installation, kind="replace_run", due_on=dt.date(2026, 1, 1)
+    )
     successor = replace_capacitor(
-        installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed", user=technician
+        installation=fan_installation,
+        part=fan_installation.part,
+        removed_on=timezone.localdate(),
+        reason="failed",
+        user=technician,
     )
     fan_installation.refresh_from_db()
     order.refresh_from_db()
@@ -167,13 +194,19 @@ def test_replacement_closes_open_orders_and_starts_a_new_history(fan_installatio
     assert successor.removed_on is None and successor.fitted_on == timezone.localdate()
     assert order.state == WorkOrder.State.DONE and order.closed_by == technician
     with pytest.raises(ValidationError):
-        replace_capacitor(installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed")
+        replace_capacitor(
+            installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed"
+        )
 
 
 def test_replacement_dated_in_the_future_is_refused(fan_installation):
     with pytest.raises(ValidationError) as error:
-        replace_capacitor(installation=fan_installation, part=fan_installation.part,
-                          removed_on=timezone.localdate() + dt.timedelta(days=3), reason="planned")
+        replace_capacitor(
+            installation=fan_installation,
+            part=fan_installation.part,
+            removed_on=timezone.localdate() + dt.timedelta(days=3),
+            reason="planned",
+        )
     assert "removed_on" in error.value.message_dict
 
 
@@ -201,8 +234,17 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
     for installation in installations[:2]:
         motor = installation.motor
         circuit = MotorCircuit.from_arrays(
-            r1m=motor.r1m_ohm, x1m=motor.x1m_ohm, r1a=motor.r1a_ohm, x1a=motor.x1a_ohm, r2=motor.r2_ohm, x2=motor.x2_ohm,
-            xm=motor.xm_ohm, turns_ratio=motor.turns_ratio, voltage_v=230, frequency_hz=50, poles=6,
+            r1m=motor.r1m_ohm,
+            x1m=motor.x1m_ohm,
+            r1a=motor.r1a_ohm,
+            x1a=motor.x1a_ohm,
+            r2=motor.r2_ohm,
+            x2=motor.x2_ohm,
+            xm=motor.xm_ohm,
+            turns_ratio=motor.turns_ratio,
+            voltage_v=230,
+            frequency_hz=50,
+            poles=6,
             rotational_loss_w=motor.rotational_loss_w,
         )
         rated = installation.part.rated_uf

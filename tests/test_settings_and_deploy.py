@@ -16,9 +16,15 @@ ROOT = Path(__file__).resolve().parents[1]
 
 
 def run_check(extra_env, *args):
-    env = {k: v for k, v in os.environ.items() if k not in {"SECRET_KEY", "FLEET_PROFILE", "DEBUG", "DJANGO_ALLOW_ASYNC_UNSAFE"}}
+    env = {
+        k: v
+        for k, v in os.environ.items()
+        if k not in {"SECRET_KEY", "FLEET_PROFILE", "DEBUG", "DJANGO_ALLOW_ASYNC_UNSAFE"}
+    }
     env.update(extra_env)
-    return subprocess.run([sys.executable, "manage.py", "check", *args], cwd=ROOT, env=env, capture_output=True, text=True)
+    return subprocess.run(
+        [sys.executable, "manage.py", "check", *args], cwd=ROOT, env=env, capture_output=True, text=True
+    )
 
 
 def test_strict_booleans(monkeypatch):
@@ -36,7 +42,9 @@ def test_production_refuses_to_start_without_a_secret_key():
 
 
 def test_production_settings_pass_the_deployment_checks():
-    result = run_check({"FLEET_PROFILE": "production", "SECRET_KEY": secrets.token_urlsafe(48)}, "--deploy", "--fail-level", "WARNING")
+    result = run_check(
+        {"FLEET_PROFILE": "production", "SECRET_KEY": secrets.token_urlsafe(48)}, "--deploy", "--fail-level", "WARNING"
+    )
     assert result.returncode == 0, result.stdout + result.stderr
 
 

@@ -48,7 +48,9 @@ def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in
 
 def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_installation):
     url = reverse("reading_new", args=[fan_installation.id])
-    response = signed_in(technician).post(url, {"method": "meter", "capacitance_uf": "3.96", "case_temperature_c": "31", "condition": "sound"})
+    response = signed_in(technician).post(
+        url, {"method": "meter", "capacitance_uf": "3.96", "case_temperature_c": "31", "condition": "sound"}
+    )
     assert response.status_code == 302
     reading = Reading.objects.get()
     assert (reading.capacitance_uf, reading.case_temperature_c, reading.taken_by) == (3.96, 31.0, technician)
@@ -57,7 +59,14 @@ def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_
 def test_a_unit_slip_comes_back_named_with_everything_still_filled(signed_in, technician, fan_installation):
     url = reverse("reading_new", args=[fan_installation.id])
     response = signed_in(technician).post(
-        url, {"method": "meter", "capacitance_uf": "3960", "case_temperature_c": "31", "notes": "bearing noisy", "condition": "sound"}
+        url,
+        {
+            "method": "meter",
+            "capacitance_uf": "3960",
+            "case_temperature_c": "31",
+            "notes": "bearing noisy",
+            "condition": "sound",
+        },
     )
     body = response.content.decode()
     assert response.status_code == 200
@@ -80,7 +89,9 @@ def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, 
     assert Reading.objects.filter(outlier_confirmed=True, capacitance_uf=3.3).exists()
 
 
-def test_planner_cannot_log_readings_and_technician_cannot_start_a_refit(signed_in, planner, technician, fan_installation):
+def test_planner_cannot_log_readings_and_technician_cannot_start_a_refit(
+    signed_in, planner, technician, fan_installation
+):
     assert signed_in(planner).get(reverse("reading_new", args=[fan_installation.id])).status_code == 403
     assert signed_in(technician).post(reverse("refit_start")).status_code == 403
 
@@ -88,7 +99,13 @@ def test_planner_cannot_log_readings_and_technician_cannot_start_a_refit(signed_
 def test_replacement_from_the_form_fits_the_successor(signed_in, technician, fan_installation):
     url = reverse("replace", args=[fan_installation.id])
     response = signed_in(technician).post(
-        url, {"part": fan_installation.part_id, "removed_on": timezone.localdate().isoformat(), "removal_reason": "failed", "serial": "X1"}
+        url,
+        {
+            "part": fan_installation.part_id,
+            "removed_on": timezone.localdate().isoformat(),
+            "removal_reason": "failed",
+            "serial": "X1",
+        },
     )
     assert response.status_code == 302
     successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_installation.motor)
@@ -99,7 +116,9 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
     part = make_part()
     installations = [make_installation(part=part) for _ in range(6)]
     for i, installation in enumerate(installations):
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.9 - 0.01 * i, 3.8, 3.7])
+        quarterly_readings(
+            installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.9 - 0.01 * i, 3.8, 3.7]
+        )
     refit_installations([i.id for i in installations])
     client = signed_in(planner)
     with django_assert_max_num_queries(15):

@@ -37,11 +37,30 @@ def worker(transactional_db):
 
     app.control.purge()
     db = connection.settings_dict
-    url = f"postgres://{db['USER']}:{db['PASSWORD'] or ''}@{db['HOST'] or '127.0.0.1'}:{db['PORT'] or 5432}/{db['NAME']}"
+    url = (
+        f"postgres://{db['USER']}:{db['PASSWORD'] or ''}@{db['HOST'] or '127.0.0.1'}:{db['PORT'] or 5432}/{db['NAME']}"
+    )
     env = dict(os.environ, DATABASE_URL=url)
     process = subprocess.Popen(
-        [sys.executable, "-m", "celery", "-A", "config", "worker", "--pool", "solo", "--loglevel", "WARNING", "-n", f"ci-{os.getpid()}@%h"],
-        cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+        [
+            sys.executable,
+            "-m",
+            "celery",
+            "-A",
+            "config",
+            "worker",
+            "--pool",
+            "solo",
+            "--loglevel",
+            "WARNING",
+            "-n",
+            f"ci-{os.getpid()}@%h",
+        ],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
     )
     yield process
     process.terminate()
@@ -65,7 +84,9 @@ def test_a_saved_reading_is_refitted_by_a_worker(worker):
     installation = make_installation(part=part)
     quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.97, 3.95, 3.92])
     record_reading(installation=installation, values={"method": "meter", "capacitance_uf": 3.90})
-    assert wait_for(lambda: Assessment.objects.filter(installation=installation, is_current=True).exists()), worker.stdout.read() if worker.poll() is not None else "worker did not refit in time"
+    assert wait_for(lambda: Assessment.objects.filter(installation=installation, is_current=True).exists()), (
+        worker.stdout.read() if worker.poll() is not None else "worker did not refit in time"
+    )
     assessment = Assessment.objects.get(installation=installation, is_current=True)
     assert assessment.readings_used == 5
 

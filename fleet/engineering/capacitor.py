@@ -48,9 +48,7 @@ def reactance_ohm(capacitance_uf, frequency_hz):
 
 def esr_from_dissipation_factor(dissipation_factor, capacitance_uf, frequency_hz):
     """Equivalent series resistance, ohms: ESR = DF x Xc."""
-    return np.asarray(dissipation_factor, float) * reactance_ohm(
-        capacitance_uf, frequency_hz
-    )
+    return np.asarray(dissipation_factor, float) * reactance_ohm(capacitance_uf, frequency_hz)
 
 
 def dissipation_factor_from_esr(esr_ohm, capacitance_uf, frequency_hz):

@@ -72,9 +72,7 @@ def has_run_capacitor(motor_kind) -> np.ndarray:
     return np.asarray(motor_kind) != CAPACITOR_START
 
 
-def operating_figures(
-    circuit: MotorCircuit, load: Load, run_uf, start_uf, motor_kind
-) -> OperatingFigures:
+def operating_figures(circuit: MotorCircuit, load: Load, run_uf, start_uf, motor_kind) -> OperatingFigures:
     """Running point (run capacitor in circuit where the motor type has one) and
     standstill torque with every capacitor of the starting circuit in parallel."""
     runs = has_run_capacitor(motor_kind)
@@ -176,9 +174,7 @@ def capacitance_limits(
     previous_fraction = None
     for fraction in fractions_grid:
         run_uf = np.where(role == ROLE_RUN, fraction, 1.0) * np.asarray(rated_run_uf, float)
-        start_uf = np.where(role == ROLE_START, fraction, 1.0) * np.nan_to_num(
-            np.asarray(rated_start_uf, float)
-        )
+        start_uf = np.where(role == ROLE_START, fraction, 1.0) * np.nan_to_num(np.asarray(rated_start_uf, float))
         figures = operating_figures(circuit, load, run_uf, start_uf, motor_kind)
         breached = _limit_breaches(figures, load, limits, role, full_load_current_a, capacitor_rated_voltage_v)
         new = breached & np.isnan(crossing)

@@ -73,9 +73,7 @@ def standstill(
     i_aux = v / (np.asarray(z_aux) + z_c)
     theta = np.angle(i_aux) - np.angle(i_main)
     theta = (theta + np.pi) % TWO_PI - np.pi
-    torque_index = (
-        np.asarray(turns_ratio, float) * np.abs(i_main) * np.abs(i_aux) * np.sin(theta)
-    )
+    torque_index = np.asarray(turns_ratio, float) * np.abs(i_main) * np.abs(i_aux) * np.sin(theta)
     return StandstillResult(
         i_main=i_main,
         i_aux=i_aux,
@@ -86,9 +84,7 @@ def standstill(
     )
 
 
-def starting_torque_nm(
-    result: StandstillResult, rotor_resistance_ohm, frequency_hz, poles, turns_ratio=1.0
-):
+def starting_torque_nm(result: StandstillResult, rotor_resistance_ohm, frequency_hz, poles, turns_ratio=1.0):
     """Starting torque, N m: T = 2 a Re(Zlr) |Im||Ia| sin(theta) / omega_s.
 
     rotor_resistance_ohm is Re of the full rotor branch at standstill, ZF(s=1).
@@ -174,9 +170,7 @@ class SingleWindingResult:
     input_power_w: np.ndarray
 
 
-def single_winding_running(
-    r1, x1, r2, x2, xm, slip, voltage_v, frequency_hz, poles
-) -> SingleWindingResult:
+def single_winding_running(r1, x1, r2, x2, xm, slip, voltage_v, frequency_hz, poles) -> SingleWindingResult:
     """Main winding alone at slip s: I = V / (Z1 + ZF/2 + ZB/2).
 
     Air-gap power (ReZF - ReZB)|I|^2 / 2, torque = air-gap power / omega_s.
@@ -281,9 +275,7 @@ class RunningResult:
         return np.abs(self.i_backward) / np.abs(self.i_forward)
 
 
-def two_winding_running(
-    circuit: MotorCircuit, capacitance_uf, slip, esr_ohm=0.0, aux_in_circuit=True
-) -> RunningResult:
+def two_winding_running(circuit: MotorCircuit, capacitance_uf, slip, esr_ohm=0.0, aux_in_circuit=True) -> RunningResult:
     """Solve both winding equations at slip s (double revolving field).
 
     V = Im (Z1m + Z+) - j a Ia Z-

@@ -67,10 +67,18 @@ class ParameterEstimate:
 
     def circuit(self, nameplate: Nameplate) -> MotorCircuit:
         return MotorCircuit.from_arrays(
-            r1m=self.r1m, x1m=self.x1m, r1a=self.r1a, x1a=self.x1a, r2=self.r2,
-            x2=self.x2, xm=self.xm, turns_ratio=self.turns_ratio,
-            voltage_v=nameplate.voltage_v, frequency_hz=nameplate.frequency_hz,
-            poles=nameplate.poles, rotational_loss_w=self.rotational_loss_w,
+            r1m=self.r1m,
+            x1m=self.x1m,
+            r1a=self.r1a,
+            x1a=self.x1a,
+            r2=self.r2,
+            x2=self.x2,
+            xm=self.xm,
+            turns_ratio=self.turns_ratio,
+            voltage_v=nameplate.voltage_v,
+            frequency_hz=nameplate.frequency_hz,
+            poles=nameplate.poles,
+            rotational_loss_w=self.rotational_loss_w,
         )
 
 
@@ -85,9 +93,18 @@ ROTATIONAL_LOSS_FRACTION = 0.05  # of rated output
 def _circuit(theta, plate: Nameplate) -> MotorCircuit:
     r1m, x1, r2, xm, a, k = np.exp(theta)
     return MotorCircuit.from_arrays(
-        r1m=r1m, x1m=x1, r1a=k * a**2 * r1m, x1a=a**2 * x1, r2=r2, x2=x1, xm=xm,
-        turns_ratio=a, voltage_v=plate.voltage_v, frequency_hz=plate.frequency_hz,
-        poles=plate.poles, rotational_loss_w=ROTATIONAL_LOSS_FRACTION * plate.output_w,
+        r1m=r1m,
+        x1m=x1,
+        r1a=k * a**2 * r1m,
+        x1a=a**2 * x1,
+        r2=r2,
+        x2=x1,
+        xm=xm,
+        turns_ratio=a,
+        voltage_v=plate.voltage_v,
+        frequency_hz=plate.frequency_hz,
+        poles=plate.poles,
+        rotational_loss_w=ROTATIONAL_LOSS_FRACTION * plate.output_w,
     )
 
 
@@ -150,9 +167,7 @@ def _prior_residuals(theta):
     return np.array([(value - np.log(typical)) / spread for value, (typical, spread) in pairs])
 
 
-def estimate_parameters(
-    plate: Nameplate, readings: CommissioningReadings | None = None
-) -> ParameterEstimate:
+def estimate_parameters(plate: Nameplate, readings: CommissioningReadings | None = None) -> ParameterEstimate:
     """Constrained least squares: the data weigh 10 times the priors per residual."""
     readings = readings or CommissioningReadings()
     z_base = plate.voltage_v / plate.full_load_current_a
@@ -173,8 +188,14 @@ def estimate_parameters(
     for turns_ratio, leakage, magnetising in starts:
         theta0 = np.log([0.12 * z_base, leakage * z_base, 0.18 * z_base, magnetising * z_base, turns_ratio, 1.2])
         bounds = (np.log(z_base) + np.log(1e-3), np.log(z_base) + np.log(100.0))
-        candidate = least_squares(residuals, theta0, bounds=(np.r_[np.full(4, bounds[0]), np.log(0.3), np.log(0.2)],
-                                                              np.r_[np.full(4, bounds[1]), np.log(4.0), np.log(5.0)]))
+        candidate = least_squares(
+            residuals,
+            theta0,
+            bounds=(
+                np.r_[np.full(4, bounds[0]), np.log(0.3), np.log(0.2)],
+                np.r_[np.full(4, bounds[1]), np.log(4.0), np.log(5.0)],
+            ),
+        )
         if best is None or candidate.cost < best.cost:
             best = candidate
     solution = best
@@ -186,11 +207,18 @@ def estimate_parameters(
     circuit = _circuit(theta, plate)
     fit_error = 100.0 * float(np.max(np.abs(_data_residuals(theta, plate, readings))))
     return ParameterEstimate(
-        r1m=circuit.r1m.item(), x1m=circuit.x1m.item(), r1a=circuit.r1a.item(),
-        x1a=circuit.x1a.item(), r2=circuit.r2.item(), x2=circuit.x2.item(),
-        xm=circuit.xm.item(), turns_ratio=circuit.turns_ratio.item(),
+        r1m=circuit.r1m.item(),
+        x1m=circuit.x1m.item(),
+        r1a=circuit.r1a.item(),
+        x1a=circuit.x1a.item(),
+        r2=circuit.r2.item(),
+        x2=circuit.x2.item(),
+        xm=circuit.xm.item(),
+        turns_ratio=circuit.turns_ratio.item(),
         rotational_loss_w=circuit.rotational_loss_w.item(),
-        unique=rank == len(theta), data_rank=rank, fit_error_pct=fit_error,
+        unique=rank == len(theta),
+        data_rank=rank,
+        fit_error_pct=fit_error,
         balance_capacitance_uf=balance_capacitance_uf(circuit, _rated_slip(plate)),
     )
 

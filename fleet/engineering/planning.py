@@ -22,9 +22,7 @@ class PlanningSettings:
     watch_days: float = 365.0
 
 
-def risk_levels(
-    days_to_p10, days_to_p50, limit_already_crossed, settings: PlanningSettings | None = None
-):
+def risk_levels(days_to_p10, days_to_p50, limit_already_crossed, settings: PlanningSettings | None = None):
     """Risk level per capacitor and days from now to its recommended replacement.
 
     "Replace now" needs evidence: the newest reading outside its limit, a visible

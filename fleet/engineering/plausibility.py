@@ -43,10 +43,14 @@ def capacitance_unit_slip(capacitance_uf, rated_uf):
 def current_unit_slip(current_a, voltage_v, rated_uf, frequency_hz):
     """A capacitor current 300-3000 times what the rating draws was typed in mA."""
     i = np.atleast_1d(np.asarray(current_a, float))
-    expected = TWO_PI * np.asarray(frequency_hz, float) * np.asarray(rated_uf, float) * 1e-6 * np.asarray(voltage_v, float)
+    expected = (
+        TWO_PI * np.asarray(frequency_hz, float) * np.asarray(rated_uf, float) * 1e-6 * np.asarray(voltage_v, float)
+    )
     ratio = i / np.atleast_1d(expected)
     milli = (ratio > 300) & (ratio < 3000)
-    return _messages(milli, "{i:g} looks like milliamperes: {a:g} A? (expected about {e:.2f} A)", i=i, a=i / 1000, e=expected)
+    return _messages(
+        milli, "{i:g} looks like milliamperes: {a:g} A? (expected about {e:.2f} A)", i=i, a=i / 1000, e=expected
+    )
 
 
 def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):

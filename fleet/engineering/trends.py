@@ -177,12 +177,20 @@ def fit_trends(
     g = group[order]
     t = np.asarray(time_h, float)[order]
     rated_uf = np.asarray(rated_uf, float)
-    fraction = normalise_to_25c(
-        np.asarray(capacitance_uf, float)[order], np.asarray(temperature_c, float)[order], settings.tempco_ppm_per_k
-    ) / rated_uf[g]
+    fraction = (
+        normalise_to_25c(
+            np.asarray(capacitance_uf, float)[order], np.asarray(temperature_c, float)[order], settings.tempco_ppm_per_k
+        )
+        / rated_uf[g]
+    )
     tau, rate = stress_hours(
-        g, t, np.asarray(temperature_c, float)[order], np.asarray(voltage_v, float)[order],
-        np.asarray(rated_voltage_v, float)[g], n_groups, settings,
+        g,
+        t,
+        np.asarray(temperature_c, float)[order],
+        np.asarray(voltage_v, float)[order],
+        np.asarray(rated_voltage_v, float)[g],
+        n_groups,
+        settings,
     )
     keep = np.ones(len(g), bool) if excluded is None else ~np.asarray(excluded, bool)[order]
     keep &= np.isfinite(fraction) & (fraction > 0)
@@ -193,7 +201,9 @@ def fit_trends(
         if settings.model not in ("auto", model) or model not in wanted:
             continue
         z = np.log(np.where(fraction > 0, fraction, np.nan)) if model == MODEL_LOG else fraction
-        fits[model] = _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, model == MODEL_LOG, priors)
+        fits[model] = _fit_model(
+            g, part, tau, z, fraction, keep, n_groups, n_parts, settings, model == MODEL_LOG, priors
+        )
     if priors is not None:
         chosen = np.asarray(priors.model)
     elif len(fits) == 1:
@@ -241,7 +251,10 @@ def fit_trends(
         fraction_25c=fraction[inverse],
         priors=PartPriors(
             model=chosen,
-            **{name: pick(name, "part") for name in ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "capacitors")},
+            **{
+                name: pick(name, "part")
+                for name in ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "capacitors")
+            },
         ),
     )
 
@@ -271,12 +284,24 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         se_b0 = noise_var[part] * np.where(rich, sxx / np.where(rich, n * sxx_c, 1.0), np.nan)
         se_b1 = noise_var[part] * np.where(rich, 1.0 / np.where(rich, sxx_c, 1.0), np.nan)
         prior_mean0, prior_var0 = _part_moments(
-            part, n_parts, b0_ols, se_b0, rich,
-            floor=1e-6, default_mean=0.0 if is_log else 1.0, default_var=0.05**2,
+            part,
+            n_parts,
+            b0_ols,
+            se_b0,
+            rich,
+            floor=1e-6,
+            default_mean=0.0 if is_log else 1.0,
+            default_var=0.05**2,
         )
         prior_mean1, prior_var1 = _part_moments(
-            part, n_parts, b1_ols, se_b1, rich,
-            floor=settings.slope_prior_sd_floor**2, default_mean=0.0, default_var=1e-5**2,
+            part,
+            n_parts,
+            b1_ols,
+            se_b1,
+            rich,
+            floor=settings.slope_prior_sd_floor**2,
+            default_mean=0.0,
+            default_var=1e-5**2,
         )
         if priors is not None:
             prior_mean0, prior_var0 = np.asarray(priors.intercept_mean), np.asarray(priors.intercept_var)

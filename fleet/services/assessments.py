@@ -20,7 +20,13 @@ from django.utils import timezone
 
 from fleet.engineering.capacitor import VERDICT_LOW, VERDICT_NAMES, VERDICT_OPEN, tolerance_verdict
 from fleet.engineering.drift import LIMIT_NAMES, ROLE_RUN, capacitance_limits, has_run_capacitor, operating_figures
-from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, MotorCircuit, load_matching_rated_slip, synchronous_speed_rad_s
+from fleet.engineering.motor import (
+    LOAD_CONSTANT,
+    LOAD_FAN,
+    MotorCircuit,
+    load_matching_rated_slip,
+    synchronous_speed_rad_s,
+)
 from fleet.engineering.planning import risk_levels
 from fleet.engineering.trends import MODEL_LOG, PartPriors, TrendSettings, crossing_quantiles, fit_trends
 from fleet.models import Assessment, FittedCapacitor, PartPrior
@@ -126,9 +132,18 @@ def _motor_circuits(inst: pd.DataFrame):
     with_circuit = inst["r1m_ohm"].notna().to_numpy()
     sub = inst[with_circuit]
     circuit = MotorCircuit.from_arrays(
-        r1m=sub["r1m_ohm"], x1m=sub["x1m_ohm"], r1a=sub["r1a_ohm"], x1a=sub["x1a_ohm"], r2=sub["r2_ohm"],
-        x2=sub["x2_ohm"], xm=sub["xm_ohm"], turns_ratio=sub["turns_ratio"], voltage_v=sub["voltage_v"],
-        frequency_hz=sub["frequency_hz"], poles=sub["poles"], rotational_loss_w=sub["rotational_loss_w"].fillna(0.0),
+        r1m=sub["r1m_ohm"],
+        x1m=sub["x1m_ohm"],
+        r1a=sub["r1a_ohm"],
+        x1a=sub["x1a_ohm"],
+        r2=sub["r2_ohm"],
+        x2=sub["x2_ohm"],
+        xm=sub["xm_ohm"],
+        turns_ratio=sub["turns_ratio"],
+        voltage_v=sub["voltage_v"],
+        frequency_hz=sub["frequency_hz"],
+        poles=sub["poles"],
+        rotational_loss_w=sub["rotational_loss_w"].fillna(0.0),
     )
     companions = companion_capacitance_frame(sub["motor_id"].unique())
     own_run = np.where(sub["role"] == ROLE_RUN, sub["rated_uf"], np.nan)
@@ -139,7 +154,9 @@ def _motor_circuits(inst: pd.DataFrame):
     runs = has_run_capacitor(kind)
     run_uf = np.where(runs, np.nan_to_num(run_uf), 0.0)
     start_uf = np.nan_to_num(start_uf)
-    sync_rpm = synchronous_speed_rad_s(sub["frequency_hz"].to_numpy(float), sub["poles"].to_numpy(float)) * 60 / (2 * np.pi)
+    sync_rpm = (
+        synchronous_speed_rad_s(sub["frequency_hz"].to_numpy(float), sub["poles"].to_numpy(float)) * 60 / (2 * np.pi)
+    )
     rated_slip = 1.0 - sub["rated_speed_rpm"].to_numpy(float) / sync_rpm
     load_kind = np.where(sub["load_type"] == "fan_law", LOAD_FAN, LOAD_CONSTANT)
     load = load_matching_rated_slip(circuit, run_uf, rated_slip, load_kind, aux_in_circuit=runs)
@@ -155,10 +172,18 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
     """
     key = pd.DataFrame(
         {
-            **{name: sub[name].to_numpy() for name in ("r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm", "turns_ratio")},
-            "role": role, "kind": kind, "run": run_uf, "start": start_uf,
-            "fla": sub["full_load_current_a"].to_numpy(), "cap_v": sub["part_rated_voltage_v"].to_numpy(),
-            "torque": np.round(load.torque_at_rated_nm, 9), "load_kind": load.kind,
+            **{
+                name: sub[name].to_numpy()
+                for name in ("r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm", "turns_ratio")
+            },
+            "role": role,
+            "kind": kind,
+            "run": run_uf,
+            "start": start_uf,
+            "fla": sub["full_load_current_a"].to_numpy(),
+            "cap_v": sub["part_rated_voltage_v"].to_numpy(),
+            "torque": np.round(load.torque_at_rated_nm, 9),
+            "load_kind": load.kind,
         }
     )
     design = key.groupby(list(key.columns), sort=False, dropna=False).ngroup().to_numpy()
@@ -166,8 +191,12 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
     limits = capacitance_limits(
         circuit.take(first),
         type(load)(load.torque_at_rated_nm[first], load.rated_speed_rad_s[first], np.asarray(load.kind)[first]),
-        kind[first], role[first], run_uf[first], start_uf[first],
-        sub["full_load_current_a"].to_numpy(float)[first], sub["part_rated_voltage_v"].to_numpy(float)[first],
+        kind[first],
+        role[first],
+        run_uf[first],
+        start_uf[first],
+        sub["full_load_current_a"].to_numpy(float)[first],
+        sub["part_rated_voltage_v"].to_numpy(float)[first],
     )
     # ngroup numbers designs 0..k-1 and `first` lists them in that order.
     return limits.governing_fraction[design], limits.governing_limit[design]
@@ -233,8 +262,10 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     latest = usable[usable["installation_id"].isin(inst.index)].sort_values(["installation_id", "taken_at", "id"])
     latest = latest.groupby("installation_id").tail(1).set_index("installation_id").reindex(inst.index)
     verdict = tolerance_verdict(
-        latest["capacitance_uf"].to_numpy(float), rated_uf,
-        inst["tolerance_minus_pct"].to_numpy(float), inst["tolerance_plus_pct"].to_numpy(float),
+        latest["capacitance_uf"].to_numpy(float),
+        rated_uf,
+        inst["tolerance_minus_pct"].to_numpy(float),
+        inst["tolerance_plus_pct"].to_numpy(float),
     )
     crossed = (
         np.isin(verdict.code, [VERDICT_LOW, VERDICT_OPEN])
@@ -244,9 +275,9 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     risk, due_days = risk_levels(days[0], days[1], crossed)
     today = now.date()
     reading_ids = readings["id"].to_numpy()
-    flagged_by_group = pd.Series(reading_ids[fit.flagged]).groupby(
-        readings["installation_id"].to_numpy()[fit.flagged]
-    ).apply(list)
+    flagged_by_group = (
+        pd.Series(reading_ids[fit.flagged]).groupby(readings["installation_id"].to_numpy()[fit.flagged]).apply(list)
+    )
     slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
 
     def day(offset):
@@ -254,16 +285,22 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
         return today + dt.timedelta(days=float(offset)) if offset <= HORIZON_DAYS else None
 
     group_of_reading = inst.index.get_indexer(readings["installation_id"])
-    stress_points = pd.DataFrame(
-        {"group": group_of_reading, "id": reading_ids, "tau": np.round(fit.stress_hours, 1)}
-    ).groupby("group")[["id", "tau"]].apply(lambda frame: frame.to_numpy().tolist())
+    stress_points = (
+        pd.DataFrame({"group": group_of_reading, "id": reading_ids, "tau": np.round(fit.stress_hours, 1)})
+        .groupby("group")[["id", "tau"]]
+        .apply(lambda frame: frame.to_numpy().tolist())
+    )
 
     def trend_record(i):
         return {
             "model": str(fit.model[i]),
             "intercept": float(fit.intercept[i]),
             "slope_per_hour": float(fit.slope_per_hour[i]),
-            "covariance": [float(fit.covariance[i, 0, 0]), float(fit.covariance[i, 0, 1]), float(fit.covariance[i, 1, 1])],
+            "covariance": [
+                float(fit.covariance[i, 0, 0]),
+                float(fit.covariance[i, 0, 1]),
+                float(fit.covariance[i, 1, 1]),
+            ],
             "noise_sd": float(fit.noise_sd[i]),
             "stress_hours_now": float(fit.stress_hours_now[i]),
             "stress_rate": float(fit.stress_rate[i]),
@@ -304,4 +341,3 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
         Assessment.objects.filter(installation_id__in=inst.index.tolist(), is_current=True).update(is_current=False)
         Assessment.objects.bulk_create(rows)
     return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
-

@@ -5,7 +5,15 @@ from __future__ import annotations
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.models import FittedCapacitor, Motor
 
-NAMEPLATE_FIELDS = ["rated_voltage_v", "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm", "motor_type"]
+NAMEPLATE_FIELDS = [
+    "rated_voltage_v",
+    "frequency_hz",
+    "poles",
+    "output_w",
+    "full_load_current_a",
+    "rated_speed_rpm",
+    "motor_type",
+]
 
 
 def estimate_circuits(motor_ids=None) -> int:
@@ -33,9 +41,16 @@ def estimate_circuits(motor_ids=None) -> int:
     for (volts, hertz, poles, output, current, speed, kind, run_uf, start_uf), ids in by_design.items():
         estimate = estimate_parameters(Nameplate(volts, hertz, poles, output, current, speed, kind, run_uf, start_uf))
         values = dict(
-            r1m_ohm=estimate.r1m, x1m_ohm=estimate.x1m, r1a_ohm=estimate.r1a, x1a_ohm=estimate.x1a, r2_ohm=estimate.r2,
-            x2_ohm=estimate.x2, xm_ohm=estimate.xm, turns_ratio=estimate.turns_ratio,
-            rotational_loss_w=estimate.rotational_loss_w, circuit_source="estimated",
+            r1m_ohm=estimate.r1m,
+            x1m_ohm=estimate.x1m,
+            r1a_ohm=estimate.r1a,
+            x1a_ohm=estimate.x1a,
+            r2_ohm=estimate.r2,
+            x2_ohm=estimate.x2,
+            xm_ohm=estimate.xm,
+            turns_ratio=estimate.turns_ratio,
+            rotational_loss_w=estimate.rotational_loss_w,
+            circuit_source="estimated",
         )
         updated.append(Motor.objects.filter(id__in=ids).update(**values))
     return sum(updated)

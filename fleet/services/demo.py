@@ -72,11 +72,86 @@ class Design:
 
 
 DESIGNS = [
-    Design("evaporator fan", "fan", "permanent_split", "fan_law", 6, 120, 0.95, 910, "RUN-4U0-450", None, 18, ("CST",), 90, "Cold room {n}, evaporator"),
-    Design("circulation fan", "fan", "permanent_split", "fan_law", 4, 250, 1.9, 1370, "RUN-8U0-450", None, 42, ("GLH",), 80, "House {n}, roof fan"),
-    Design("irrigation pump", "pump", "two_value", "fan_law", 2, 750, 5.2, 2830, "RUN-20U-450", "START-98U-330", 35, ("GLH", "PKH"), 30, "Pump bay {n}"),
-    Design("cooler compressor", "compressor", "two_value", "constant", 2, 1100, 7.6, 2850, "RUN-30U-450", "START-145U-330", 55, ("CST", "PKH"), 40, "Condensing unit {n}"),
-    Design("packing conveyor", "conveyor", "capacitor_start", "constant", 4, 370, 3.3, 1420, None, "START-208U-330", 30, ("PKH",), 50, "Line {n}, drive"),
+    Design(
+        "evaporator fan",
+        "fan",
+        "permanent_split",
+        "fan_law",
+        6,
+        120,
+        0.95,
+        910,
+        "RUN-4U0-450",
+        None,
+        18,
+        ("CST",),
+        90,
+        "Cold room {n}, evaporator",
+    ),
+    Design(
+        "circulation fan",
+        "fan",
+        "permanent_split",
+        "fan_law",
+        4,
+        250,
+        1.9,
+        1370,
+        "RUN-8U0-450",
+        None,
+        42,
+        ("GLH",),
+        80,
+        "House {n}, roof fan",
+    ),
+    Design(
+        "irrigation pump",
+        "pump",
+        "two_value",
+        "fan_law",
+        2,
+        750,
+        5.2,
+        2830,
+        "RUN-20U-450",
+        "START-98U-330",
+        35,
+        ("GLH", "PKH"),
+        30,
+        "Pump bay {n}",
+    ),
+    Design(
+        "cooler compressor",
+        "compressor",
+        "two_value",
+        "constant",
+        2,
+        1100,
+        7.6,
+        2850,
+        "RUN-30U-450",
+        "START-145U-330",
+        55,
+        ("CST", "PKH"),
+        40,
+        "Condensing unit {n}",
+    ),
+    Design(
+        "packing conveyor",
+        "conveyor",
+        "capacitor_start",
+        "constant",
+        4,
+        370,
+        3.3,
+        1420,
+        None,
+        "START-208U-330",
+        30,
+        ("PKH",),
+        50,
+        "Line {n}, drive",
+    ),
 ]
 
 VOLTAGE_V, FREQUENCY_HZ = 230.0, 50
@@ -102,10 +177,17 @@ def _parts() -> dict[str, CapacitorPart]:
         parts[code], _ = CapacitorPart.objects.get_or_create(
             code=code,
             defaults=dict(
-                description=f"{uf:g} uF {volts} V {'film run' if dielectric == 'film' else 'electrolytic start'} capacitor",
-                rated_uf=uf, tolerance_minus_pct=minus, tolerance_plus_pct=plus, rated_voltage_v=volts,
-                frequency_hz=FREQUENCY_HZ, dielectric=dielectric, class_of_operation=klass, safety_class=safety,
-                max_case_temperature_c=tmax, unit_cost=cost,
+                description=f"{uf:g} uF {volts} V {'film run' if dielectric == 'film' else 'electrolytic start'}",
+                rated_uf=uf,
+                tolerance_minus_pct=minus,
+                tolerance_plus_pct=plus,
+                rated_voltage_v=volts,
+                frequency_hz=FREQUENCY_HZ,
+                dielectric=dielectric,
+                class_of_operation=klass,
+                safety_class=safety,
+                max_case_temperature_c=tmax,
+                unit_cost=cost,
                 duty="continuous" if dielectric == "film" else "20 starts/h of up to 3 s",
                 max_dissipation_factor=None if dielectric == "film" else 0.10,
             ),
@@ -116,18 +198,30 @@ def _parts() -> dict[str, CapacitorPart]:
 def _circuit_for(design: Design, parts) -> dict:
     """Equivalent circuit estimated from the design's nameplate (once per design)."""
     plate = Nameplate(
-        voltage_v=VOLTAGE_V, frequency_hz=FREQUENCY_HZ, poles=design.poles, output_w=design.output_w,
-        full_load_current_a=design.full_load_current_a, rated_speed_rpm=design.rated_speed_rpm,
+        voltage_v=VOLTAGE_V,
+        frequency_hz=FREQUENCY_HZ,
+        poles=design.poles,
+        output_w=design.output_w,
+        full_load_current_a=design.full_load_current_a,
+        rated_speed_rpm=design.rated_speed_rpm,
         motor_kind=design.motor_type,
         run_capacitance_uf=parts[design.run_part].rated_uf if design.run_part else 0.0,
         start_capacitance_uf=parts[design.start_part].rated_uf if design.start_part else 0.0,
     )
     estimate = estimate_parameters(plate)
     return {
-        "r1m_ohm": estimate.r1m, "x1m_ohm": estimate.x1m, "r1a_ohm": estimate.r1a, "x1a_ohm": estimate.x1a,
-        "r2_ohm": estimate.r2, "x2_ohm": estimate.x2, "xm_ohm": estimate.xm, "turns_ratio": estimate.turns_ratio,
-        "rotational_loss_w": estimate.rotational_loss_w, "circuit_source": "estimated",
-        "_circuit": estimate.circuit(plate), "_plate": plate,
+        "r1m_ohm": estimate.r1m,
+        "x1m_ohm": estimate.x1m,
+        "r1a_ohm": estimate.r1a,
+        "x1a_ohm": estimate.x1a,
+        "r2_ohm": estimate.r2,
+        "x2_ohm": estimate.x2,
+        "xm_ohm": estimate.xm,
+        "turns_ratio": estimate.turns_ratio,
+        "rotational_loss_w": estimate.rotational_loss_w,
+        "circuit_source": "estimated",
+        "_circuit": estimate.circuit(plate),
+        "_plate": plate,
     }
 
 
@@ -141,7 +235,9 @@ def _run_capacitor_voltage(design: Design, circuit_info, parts) -> float:
     run_uf = parts[design.run_part].rated_uf
     kind = LOAD_FAN if design.load_type == "fan_law" else LOAD_CONSTANT
     load = load_matching_rated_slip(circuit, run_uf, slip, kind)
-    figures = operating_figures(circuit, load, run_uf, parts[design.start_part].rated_uf if design.start_part else 0.0, design.motor_type)
+    figures = operating_figures(
+        circuit, load, run_uf, parts[design.start_part].rated_uf if design.start_part else 0.0, design.motor_type
+    )
     return float(np.atleast_1d(figures.v_capacitor_v)[0])
 
 
@@ -205,13 +301,25 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
     first_reading_day = today - dt.timedelta(days=4 * 365)
     while True:
         installation = FittedCapacitor.objects.create(
-            motor=motor, role=role, part=part, fitted_on=fitted_on, serial=f"{fitted_on:%y%m}-{rng.integers(10000, 99999)}"
+            motor=motor,
+            role=role,
+            part=part,
+            fitted_on=fitted_on,
+            serial=f"{fitted_on:%y%m}-{rng.integers(10000, 99999)}",
         )
         initial = rng.normal(1.0 + (0.01 if film else 0.0), 0.015)
         temperature = case_temp_c + rng.normal(0.0, 4.0)
         voltage = v_cap * rng.normal(1.0, 0.03) if film else VOLTAGE_V * 1.2
-        rate = float(acceleration_factor(temperature, voltage, settings.reference_temperature_c, part.rated_voltage_v,
-                                         settings.doubling_k, settings.voltage_exponent if film else 0.0))
+        rate = float(
+            acceleration_factor(
+                temperature,
+                voltage,
+                settings.reference_temperature_c,
+                part.rated_voltage_v,
+                settings.doubling_k,
+                settings.voltage_exponent if film else 0.0,
+            )
+        )
         # Slope per stress hour, with a spread between units of one part.
         slope = -abs(rng.normal(3e-6 if film else 2.5e-6, 1e-6 if film else 0.8e-6))
         knee = 0.93 if film else 0.95
@@ -237,16 +345,23 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
             case_c = round(temperature + seasonal + rng.normal(0, 1.5), 1)
             tempco = 1.0 + settings.tempco_ppm_per_k * 1e-6 * (case_c - 25.0)
             measured = part.rated_uf * fraction * tempco * (1 + rng.normal(0, 0.006))
-            taken_at = timezone.make_aware(dt.datetime.combine(day, dt.time(9 + int(rng.integers(0, 7)), int(rng.integers(0, 60)))))
+            taken_at = timezone.make_aware(
+                dt.datetime.combine(day, dt.time(9 + int(rng.integers(0, 7)), int(rng.integers(0, 60))))
+            )
             in_circuit = film and rng.random() < 0.3
             cap_v = round(voltage * rng.normal(1, 0.01), 1) if film else None
             current = round(measured * 1e-6 * 2 * np.pi * FREQUENCY_HZ * cap_v, 4) if in_circuit else None
             readings.append(
                 Reading(
-                    installation=installation, taken_at=taken_at, taken_by=technician,
-                    method="in_circuit" if in_circuit else "meter", capacitance_uf=round(measured, 3),
-                    capacitor_current_a=current, capacitor_voltage_v=cap_v if film else None,
-                    case_temperature_c=case_c, ambient_temperature_c=round(case_c - rng.uniform(3, 12), 1),
+                    installation=installation,
+                    taken_at=taken_at,
+                    taken_by=technician,
+                    method="in_circuit" if in_circuit else "meter",
+                    capacitance_uf=round(measured, 3),
+                    capacitor_current_a=current,
+                    capacitor_voltage_v=cap_v if film else None,
+                    case_temperature_c=case_c,
+                    ambient_temperature_c=round(case_c - rng.uniform(3, 12), 1),
                     source="demo",
                 )
             )

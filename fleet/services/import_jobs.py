@@ -24,8 +24,12 @@ def create_job(*, kind: str, filename: str, content: bytes, user) -> ImportJob:
     header, _ = imports.read_table(content, filename)
     ours = SPECS[kind][0]
     return ImportJob.objects.create(
-        kind=kind, filename=filename[:200], content=content, columns=header,
-        mapping=imports.suggest_mapping(header, ours), created_by=user if user and user.is_authenticated else None,
+        kind=kind,
+        filename=filename[:200],
+        content=content,
+        columns=header,
+        mapping=imports.suggest_mapping(header, ours),
+        created_by=user if user and user.is_authenticated else None,
     )
 
 
@@ -53,8 +57,12 @@ def check_job(job_id: int) -> ImportJob | None:
         ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.REFUSED, message=str(error))
         return ImportJob.objects.get(pk=job.pk)
     ImportJob.objects.filter(pk=job.pk).update(
-        state=ImportJob.State.CHECKED, total_rows=result.total, done_rows=result.total, good_rows=len(result.good),
-        duplicate_rows=result.duplicates, error_rows=result.error_rows,
+        state=ImportJob.State.CHECKED,
+        total_rows=result.total,
+        done_rows=result.total,
+        good_rows=len(result.good),
+        duplicate_rows=result.duplicates,
+        error_rows=result.error_rows,
         errors=[list(e) for e in result.errors[: imports.MAX_REPORTED_ERRORS]],
         message="",
     )
@@ -78,13 +86,18 @@ def run_job(job_id: int, mode: str) -> ImportJob | None:
         ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.REFUSED, message=str(error))
         return ImportJob.objects.get(pk=job.pk)
     summary = dict(
-        total_rows=result.total, good_rows=len(result.good), duplicate_rows=result.duplicates, error_rows=result.error_rows,
+        total_rows=result.total,
+        good_rows=len(result.good),
+        duplicate_rows=result.duplicates,
+        error_rows=result.error_rows,
         errors=[list(e) for e in result.errors[: imports.MAX_REPORTED_ERRORS]],
     )
     if result.errors and mode == ImportJob.Mode.ALL_OR_NOTHING:
         ImportJob.objects.filter(pk=job.pk).update(
-            state=ImportJob.State.REFUSED, imported_rows=0,
-            message=f"{result.error_rows} rows have problems, so nothing was imported (all or nothing).", **summary,
+            state=ImportJob.State.REFUSED,
+            imported_rows=0,
+            message=f"{result.error_rows} rows have problems, so nothing was imported (all or nothing).",
+            **summary,
         )
         return ImportJob.objects.get(pk=job.pk)
     with transaction.atomic():

@@ -23,9 +23,11 @@ def current_assessments():
 
 def motor_with_capacitors(asset_tag: str):
     """The motor, its capacitors (in service first) each with its current assessment."""
-    capacitors = FittedCapacitor.objects.select_related("part").prefetch_related(
-        Prefetch("assessments", queryset=current_assessments(), to_attr="current")
-    ).order_by("removed_on", "role", "-fitted_on")
+    capacitors = (
+        FittedCapacitor.objects.select_related("part")
+        .prefetch_related(Prefetch("assessments", queryset=current_assessments(), to_attr="current"))
+        .order_by("removed_on", "role", "-fitted_on")
+    )
     return (
         Motor.objects.select_related("site")
         .prefetch_related(Prefetch("capacitors", queryset=capacitors, to_attr="fitted"))
@@ -49,9 +51,9 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
     rated = trend["rated_uf"]
     tau_by_id = {reading_id: tau for reading_id, tau in trend["points"]}
     readings = list(
-        Reading.objects.filter(id__in=tau_by_id).order_by("taken_at").values(
-            "id", "taken_at", "capacitance_uf", "case_temperature_c"
-        )
+        Reading.objects.filter(id__in=tau_by_id)
+        .order_by("taken_at")
+        .values("id", "taken_at", "capacitance_uf", "case_temperature_c")
     )
     if not readings:
         return None
@@ -74,7 +76,12 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
         (last + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
     ]
     mid, low, high = path_band(
-        trend["model"], trend["intercept"], trend["slope_per_hour"], trend["covariance"], trend["noise_sd"], np.array(taus)
+        trend["model"],
+        trend["intercept"],
+        trend["slope_per_hour"],
+        trend["covariance"],
+        trend["noise_sd"],
+        np.array(taus),
     )
     path = {
         "dates": dates,
@@ -109,7 +116,9 @@ def route_for_site(site: Site, today: dt.date | None = None):
 
 
 def risk_summary():
-    counts = dict(current_assessments().filter(installation__removed_on__isnull=True).values_list("risk").annotate(n=Count("id")))
+    counts = dict(
+        current_assessments().filter(installation__removed_on__isnull=True).values_list("risk").annotate(n=Count("id"))
+    )
     return [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
 
 
@@ -134,7 +143,12 @@ def spares_needed(horizon_days: int = 90):
     return (
         current_assessments()
         .filter(installation__removed_on__isnull=True, replace_by__lte=until)
-        .values("installation__part__code", "installation__part__rated_uf", "installation__part__rated_voltage_v", "installation__part__dielectric")
+        .values(
+            "installation__part__code",
+            "installation__part__rated_uf",
+            "installation__part__rated_voltage_v",
+            "installation__part__dielectric",
+        )
         .annotate(quantity=Count("id"), cost=Sum("installation__part__unit_cost"))
         .order_by("installation__part__code")
     )

@@ -16,8 +16,16 @@ from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
 log = logging.getLogger(__name__)
 
 MEASURED_FIELDS = (
-    "capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "line_voltage_v", "main_current_a",
-    "aux_current_a", "line_current_a", "case_temperature_c", "ambient_temperature_c", "esr_ohm",
+    "capacitance_uf",
+    "capacitor_current_a",
+    "capacitor_voltage_v",
+    "line_voltage_v",
+    "main_current_a",
+    "aux_current_a",
+    "line_current_a",
+    "case_temperature_c",
+    "ambient_temperature_c",
+    "esr_ohm",
 )
 
 
@@ -74,7 +82,9 @@ def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: boo
     if taken_at > timezone.now() + dt.timedelta(minutes=10):
         errors["taken_at"] = "The reading time is in the future."
     if installation.removed_on is not None:
-        errors["installation"] = f"This capacitor was removed on {installation.removed_on}; log the reading on the one fitted now."
+        errors["installation"] = (
+            f"This capacitor was removed on {installation.removed_on}; log the reading on the one fitted now."
+        )
     if errors:
         raise ValidationError(errors)
     values["taken_at"] = taken_at
@@ -92,8 +102,13 @@ def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: boo
 
 
 def record_reading(
-    *, installation: FittedCapacitor, values: dict, user=None, supersedes: Reading | None = None,
-    confirmed: bool = False, source: str = Reading.Source.FORM,
+    *,
+    installation: FittedCapacitor,
+    values: dict,
+    user=None,
+    supersedes: Reading | None = None,
+    confirmed: bool = False,
+    source: str = Reading.Source.FORM,
 ) -> Reading:
     """Save one reading (append-only) and queue its capacitor's refit on commit."""
     values = check_reading(installation, values, confirmed=confirmed)
@@ -113,7 +128,13 @@ def record_reading(
 
 
 def replace_capacitor(
-    *, installation: FittedCapacitor, part, removed_on: dt.date, reason: str, user=None, serial: str = "",
+    *,
+    installation: FittedCapacitor,
+    part,
+    removed_on: dt.date,
+    reason: str,
+    user=None,
+    serial: str = "",
     notes: str = "",
 ) -> FittedCapacitor:
     """Remove a fitted capacitor and fit its successor; close its open work orders.
@@ -138,8 +159,12 @@ def replace_capacitor(
         successor = FittedCapacitor.objects.create(
             motor=locked.motor, role=locked.role, part=part, serial=serial, fitted_on=removed_on, notes=notes
         )
-        WorkOrder.objects.filter(installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]).update(
-            state=WorkOrder.State.DONE, closed_at=timezone.now(), closed_by=user if user and user.is_authenticated else None
+        WorkOrder.objects.filter(
+            installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
+        ).update(
+            state=WorkOrder.State.DONE,
+            closed_at=timezone.now(),
+            closed_by=user if user and user.is_authenticated else None,
         )
     installation.refresh_from_db()
     return successor

@@ -7,7 +7,17 @@ import pandas as pd
 
 from fleet.models import FittedCapacitor, PartPrior, Reading
 
-CIRCUIT_FIELDS = ["r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm", "turns_ratio", "rotational_loss_w"]
+CIRCUIT_FIELDS = [
+    "r1m_ohm",
+    "x1m_ohm",
+    "r1a_ohm",
+    "x1a_ohm",
+    "r2_ohm",
+    "x2_ohm",
+    "xm_ohm",
+    "turns_ratio",
+    "rotational_loss_w",
+]
 
 INSTALLATION_COLUMNS = {
     "id": "installation_id",
@@ -53,8 +63,14 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
 
 
 READING_COLUMNS = [
-    "id", "installation_id", "taken_at", "capacitance_uf", "case_temperature_c",
-    "capacitor_voltage_v", "supersedes_id", "condition",
+    "id",
+    "installation_id",
+    "taken_at",
+    "capacitance_uf",
+    "case_temperature_c",
+    "capacitor_voltage_v",
+    "supersedes_id",
+    "condition",
 ]
 
 

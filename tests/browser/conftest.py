@@ -9,6 +9,7 @@ import pytest
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 
+
 @pytest.fixture(scope="session")
 def browser():
     if not CHROMIUM:
@@ -22,7 +23,13 @@ def browser():
     with sync_playwright() as playwright:
         browser = playwright.chromium.launch(
             executable_path=CHROMIUM,
-            args=["--no-sandbox", "--disable-background-networking", "--disable-gpu", "--disable-component-update", "--no-first-run"],
+            args=[
+                "--no-sandbox",
+                "--disable-background-networking",
+                "--disable-gpu",
+                "--disable-component-update",
+                "--no-first-run",
+            ],
         )
         yield browser
         browser.close()

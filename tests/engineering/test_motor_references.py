@@ -109,14 +109,26 @@ def test_in_circuit_capacitance_rules_of_thumb():
     """[trade] C = 2652 I/V at 60 Hz and 3183 I/V at 50 Hz."""
     assert capacitance_from_current(1.0, 1.0, 60.0) == pytest.approx(2652.6, abs=0.1)
     assert capacitance_from_current(1.0, 1.0, 50.0) == pytest.approx(3183.1, abs=0.1)
-    assert capacitance_from_current(np.array([0.5, 1.0]), np.array([400.0, 0.0]), 50.0)[1] != capacitance_from_current(1, 1, 50)
+    assert capacitance_from_current(np.array([0.5, 1.0]), np.array([400.0, 0.0]), 50.0)[1] != capacitance_from_current(
+        1, 1, 50
+    )
 
 
 # --- physics every implementation must pass [derived] ------------------------------
 def circuit(**overrides):
     values = dict(
-        r1m=2.0, x1m=2.56, r1a=4.5, x1a=4.2, r2=2.8, x2=2.56, xm=60.5, turns_ratio=1.3, voltage_v=120.0,
-        frequency_hz=60.0, poles=4, rotational_loss_w=0.0,
+        r1m=2.0,
+        x1m=2.56,
+        r1a=4.5,
+        x1a=4.2,
+        r2=2.8,
+        x2=2.56,
+        xm=60.5,
+        turns_ratio=1.3,
+        voltage_v=120.0,
+        frequency_hz=60.0,
+        poles=4,
+        rotational_loss_w=0.0,
     )
     values.update(overrides)
     return MotorCircuit.from_arrays(**values)
@@ -195,7 +207,9 @@ def test_drifting_capacitance_grows_the_backward_field_from_balance():
 def test_power_balance_with_a_lossless_capacitor():
     result = two_winding_running(circuit(), 25.0, 0.04)
     losses = np.abs(result.i_main) ** 2 * 2.0 + np.abs(result.i_aux) ** 2 * 4.5
-    assert result.input_power_w == pytest.approx(losses + result.air_gap_forward_w + result.air_gap_backward_w, rel=1e-10)
+    assert result.input_power_w == pytest.approx(
+        losses + result.air_gap_forward_w + result.air_gap_backward_w, rel=1e-10
+    )
 
 
 def test_torque_at_standstill_equals_the_standstill_formula():
@@ -217,9 +231,14 @@ def test_reversing_auxiliary_polarity_negates_starting_torque():
 # --- property tests over random but physical motors [derived] ----------------------
 physical = st.fixed_dictionaries(
     {
-        "r1m": st.floats(0.5, 40.0), "x1m": st.floats(0.5, 30.0), "aux_r_ratio": st.floats(0.8, 3.0),
-        "r2": st.floats(0.5, 60.0), "xm_ratio": st.floats(15.0, 60.0), "turns_ratio": st.floats(0.8, 2.0),
-        "capacitance_uf": st.floats(1.0, 80.0), "slip": st.floats(0.01, 0.3),
+        "r1m": st.floats(0.5, 40.0),
+        "x1m": st.floats(0.5, 30.0),
+        "aux_r_ratio": st.floats(0.8, 3.0),
+        "r2": st.floats(0.5, 60.0),
+        "xm_ratio": st.floats(15.0, 60.0),
+        "turns_ratio": st.floats(0.8, 2.0),
+        "capacitance_uf": st.floats(1.0, 80.0),
+        "slip": st.floats(0.01, 0.3),
     }
 )
 
@@ -228,8 +247,16 @@ def random_motor(m) -> MotorCircuit:
     """A 230 V 50 Hz motor from drawn ratios: auxiliary scaled by a^2, as designers wind it."""
     a = m["turns_ratio"]
     return circuit(
-        r1m=m["r1m"], x1m=m["x1m"], r1a=m["aux_r_ratio"] * a**2 * m["r1m"], x1a=a**2 * m["x1m"], r2=m["r2"],
-        x2=m["x1m"], xm=m["xm_ratio"] * m["x1m"], turns_ratio=a, voltage_v=230.0, frequency_hz=50.0,
+        r1m=m["r1m"],
+        x1m=m["x1m"],
+        r1a=m["aux_r_ratio"] * a**2 * m["r1m"],
+        x1a=a**2 * m["x1m"],
+        r2=m["r2"],
+        x2=m["x1m"],
+        xm=m["xm_ratio"] * m["x1m"],
+        turns_ratio=a,
+        voltage_v=230.0,
+        frequency_hz=50.0,
     )
 
 
@@ -239,7 +266,9 @@ def test_power_balance_holds_for_random_physical_motors(m):
     c = random_motor(m)
     result = two_winding_running(c, m["capacitance_uf"], m["slip"])
     losses = np.abs(result.i_main) ** 2 * c.r1m + np.abs(result.i_aux) ** 2 * c.r1a
-    assert result.input_power_w == pytest.approx(losses + result.air_gap_forward_w + result.air_gap_backward_w, rel=1e-9)
+    assert result.input_power_w == pytest.approx(
+        losses + result.air_gap_forward_w + result.air_gap_backward_w, rel=1e-9
+    )
     assert result.input_power_w > 0
     assert result.rotor_copper_loss_w >= 0
 

@@ -37,17 +37,31 @@ def test_readings_from_a_known_motor_recover_its_circuit():
     no-load and running winding currents) make the problem full-rank, and the
     estimate reproduces every reading."""
     truth = MotorCircuit.from_arrays(
-        r1m=30.0, x1m=12.0, r1a=70.0, x1a=24.0, r2=45.0, x2=12.0, xm=380.0, turns_ratio=1.4,
-        voltage_v=230.0, frequency_hz=50.0, poles=6, rotational_loss_w=6.0,
+        r1m=30.0,
+        x1m=12.0,
+        r1a=70.0,
+        x1a=24.0,
+        r2=45.0,
+        x2=12.0,
+        xm=380.0,
+        turns_ratio=1.4,
+        voltage_v=230.0,
+        frequency_hz=50.0,
+        poles=6,
+        rotational_loss_w=6.0,
     )
     slip = 0.09
     rated = two_winding_running(truth, 4.0, slip)
-    plate = Nameplate(230, 50, 6, float(rated.output_power_w), float(abs(rated.i_line)), 1000 * (1 - slip), PERMANENT_SPLIT, 4.0)
+    plate = Nameplate(
+        230, 50, 6, float(rated.output_power_w), float(abs(rated.i_line)), 1000 * (1 - slip), PERMANENT_SPLIT, 4.0
+    )
     readings = CommissioningReadings(
         locked_rotor_current_a=float(abs(two_winding_running(truth, 4.0, 1.0).i_line)),
         no_load_current_a=float(abs(two_winding_running(truth, 4.0, 0.005).i_line)),
-        main_dc_resistance_ohm=30.0, aux_dc_resistance_ohm=70.0,
-        main_current_a=float(abs(rated.i_main)), aux_current_a=float(abs(rated.i_aux)),
+        main_dc_resistance_ohm=30.0,
+        aux_dc_resistance_ohm=70.0,
+        main_current_a=float(abs(rated.i_main)),
+        aux_current_a=float(abs(rated.i_aux)),
     )
     estimate = estimate_parameters(plate, readings)
     assert estimate.unique
@@ -58,8 +72,17 @@ def test_readings_from_a_known_motor_recover_its_circuit():
 
 @pytest.mark.parametrize("kind,run_uf,start_uf", [(CAPACITOR_START, 0.0, 208.0), (TWO_VALUE, 30.0, 143.0)])
 def test_other_motor_types_estimate_without_error(kind, run_uf, start_uf):
-    plate = Nameplate(230, 50, 4 if kind == CAPACITOR_START else 2, 370 if kind == CAPACITOR_START else 1100,
-                      3.3 if kind == CAPACITOR_START else 7.6, 1420 if kind == CAPACITOR_START else 2850, kind, run_uf, start_uf)
+    plate = Nameplate(
+        230,
+        50,
+        4 if kind == CAPACITOR_START else 2,
+        370 if kind == CAPACITOR_START else 1100,
+        3.3 if kind == CAPACITOR_START else 7.6,
+        1420 if kind == CAPACITOR_START else 2850,
+        kind,
+        run_uf,
+        start_uf,
+    )
     estimate = estimate_parameters(plate)
     assert estimate.fit_error_pct < 2.0
     assert np.isfinite([estimate.r1m, estimate.xm, estimate.turns_ratio]).all()

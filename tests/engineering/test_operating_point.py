@@ -13,8 +13,18 @@ from fleet.engineering.drift import (
 from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, MotorCircuit, load_matching_rated_slip, operating_point
 
 FAN = dict(
-    r1m=35.12, x1m=8.47, r1a=75.87, x1a=15.23, r2=56.09, x2=8.47, xm=296.66, turns_ratio=1.34,
-    voltage_v=230.0, frequency_hz=50.0, poles=6, rotational_loss_w=6.0,
+    r1m=35.12,
+    x1m=8.47,
+    r1a=75.87,
+    x1a=15.23,
+    r2=56.09,
+    x2=8.47,
+    xm=296.66,
+    turns_ratio=1.34,
+    voltage_v=230.0,
+    frequency_hz=50.0,
+    poles=6,
+    rotational_loss_w=6.0,
 )
 RATED_SLIP = 1 - 910 / 1000
 

@@ -39,16 +39,30 @@ def simulate(n_capacitors=3000, seed=11, readings=(1, 13), noise=0.006, log_path
     else:
         true_fraction = intercept[group] + slope[group] * time_h
     measured = 10.0 * true_fraction * (1 + TEMPCO * (temperature - 25)) * (1 + rng.normal(0, noise, group.size))
-    return dict(group=group, part=part, time_h=time_h, capacitance_uf=measured, temperature_c=temperature,
-                slope=slope, intercept=intercept, count=count)
+    return dict(
+        group=group,
+        part=part,
+        time_h=time_h,
+        capacitance_uf=measured,
+        temperature_c=temperature,
+        slope=slope,
+        intercept=intercept,
+        count=count,
+    )
 
 
 def fit(sim, temperature_as_reference=True, **kwargs):
     n = len(sim["part"])
     # Hold stress time = calendar time: acceleration 1 at 40 C, rated voltage.
     return fit_trends(
-        sim["group"], sim["part"], sim["time_h"], sim["capacitance_uf"], np.full(n, 10.0),
-        sim["temperature_c"], np.full(sim["group"].size, 400.0), np.full(n, 400.0),
+        sim["group"],
+        sim["part"],
+        sim["time_h"],
+        sim["capacitance_uf"],
+        np.full(n, 10.0),
+        sim["temperature_c"],
+        np.full(sim["group"].size, 400.0),
+        np.full(n, 400.0),
         settings=TrendSettings(doubling_k=1e9, **kwargs),
     )
 
@@ -107,9 +121,16 @@ def test_stored_priors_reproduce_the_fleet_fit_for_a_subset():
     subset = np.arange(40)
     rows = np.isin(sim["group"], subset)
     alone = fit_trends(
-        sim["group"][rows], sim["part"][subset], sim["time_h"][rows], sim["capacitance_uf"][rows], np.full(40, 10.0),
-        sim["temperature_c"][rows], np.full(rows.sum(), 400.0), np.full(40, 400.0),
-        settings=TrendSettings(doubling_k=1e9, model=MODEL_LINEAR), priors=fleet.priors,
+        sim["group"][rows],
+        sim["part"][subset],
+        sim["time_h"][rows],
+        sim["capacitance_uf"][rows],
+        np.full(40, 10.0),
+        sim["temperature_c"][rows],
+        np.full(rows.sum(), 400.0),
+        np.full(40, 400.0),
+        settings=TrendSettings(doubling_k=1e9, model=MODEL_LINEAR),
+        priors=fleet.priors,
     )
     assert alone.slope_per_hour == pytest.approx(fleet.slope_per_hour[subset], rel=1e-9)
 
@@ -133,9 +154,14 @@ def test_prediction_band_holds_about_90_percent_of_new_readings():
     new_reading = truth * (1 + rng.normal(0, 0.006, truth.size))
     inside = []
     for i in range(truth.size):
-        mid, low, high = path_band(result.model[i], result.intercept[i], result.slope_per_hour[i],
-                                   (result.covariance[i, 0, 0], result.covariance[i, 0, 1], result.covariance[i, 1, 1]),
-                                   result.noise_sd[i], tau_next[i])
+        mid, low, high = path_band(
+            result.model[i],
+            result.intercept[i],
+            result.slope_per_hour[i],
+            (result.covariance[i, 0, 0], result.covariance[i, 0, 1], result.covariance[i, 1, 1]),
+            result.noise_sd[i],
+            tau_next[i],
+        )
         inside.append(low <= new_reading[i] <= high)
     assert np.mean(inside) == pytest.approx(0.90, abs=0.03)
 

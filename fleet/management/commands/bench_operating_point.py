@@ -11,9 +11,18 @@ from fleet.engineering.motor import LOAD_FAN, MotorCircuit, load_matching_rated_
 def random_fleet(n: int, seed: int = 1):
     rng = np.random.default_rng(seed)
     circuit = MotorCircuit.from_arrays(
-        r1m=rng.uniform(25, 45, n), x1m=rng.uniform(6, 11, n), r1a=rng.uniform(60, 90, n), x1a=rng.uniform(12, 18, n),
-        r2=rng.uniform(45, 65, n), x2=rng.uniform(6, 11, n), xm=rng.uniform(250, 340, n), turns_ratio=rng.uniform(1.25, 1.45, n),
-        voltage_v=230.0, frequency_hz=50.0, poles=6, rotational_loss_w=6.0,
+        r1m=rng.uniform(25, 45, n),
+        x1m=rng.uniform(6, 11, n),
+        r1a=rng.uniform(60, 90, n),
+        x1a=rng.uniform(12, 18, n),
+        r2=rng.uniform(45, 65, n),
+        x2=rng.uniform(6, 11, n),
+        xm=rng.uniform(250, 340, n),
+        turns_ratio=rng.uniform(1.25, 1.45, n),
+        voltage_v=230.0,
+        frequency_hz=50.0,
+        poles=6,
+        rotational_loss_w=6.0,
     )
     load = load_matching_rated_slip(circuit, 4.0, 0.09, np.full(n, LOAD_FAN))
     capacitance = rng.uniform(3.2, 4.2, n)
@@ -25,7 +34,9 @@ class Command(BaseCommand):
 
     def add_arguments(self, parser):
         parser.add_argument("--motors", type=int, default=100_000)
-        parser.add_argument("--loop-sample", type=int, default=300, help="Motors timed in the per-motor loop (extrapolated).")
+        parser.add_argument(
+            "--loop-sample", type=int, default=300, help="Motors timed in the per-motor loop (extrapolated)."
+        )
 
     def handle(self, *args, **options):
         n, sample = options["motors"], options["loop_sample"]

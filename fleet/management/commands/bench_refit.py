@@ -19,8 +19,16 @@ from fleet.services.assessments import refit_installations
 from fleet.services.refits import start_fleet_refit
 
 FAN_CIRCUIT = dict(
-    r1m_ohm=35.12, x1m_ohm=8.47, r1a_ohm=75.87, x1a_ohm=15.23, r2_ohm=56.09, x2_ohm=8.47, xm_ohm=296.66,
-    turns_ratio=1.34, rotational_loss_w=6.0, circuit_source="estimated",
+    r1m_ohm=35.12,
+    x1m_ohm=8.47,
+    r1a_ohm=75.87,
+    x1a_ohm=15.23,
+    r2_ohm=56.09,
+    x2_ohm=8.47,
+    xm_ohm=296.66,
+    turns_ratio=1.34,
+    rotational_loss_w=6.0,
+    circuit_source="estimated",
 )
 
 
@@ -34,13 +42,33 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
     with transaction.atomic():
         site = Site.objects.create(code=code, name=f"Benchmark fleet of {capacitors}")
         part, _ = CapacitorPart.objects.get_or_create(
-            code="BENCH-RUN-4U0", defaults=dict(rated_uf=4.0, tolerance_minus_pct=5, tolerance_plus_pct=5, rated_voltage_v=450, dielectric="film", class_of_operation="B")
+            code="BENCH-RUN-4U0",
+            defaults=dict(
+                rated_uf=4.0,
+                tolerance_minus_pct=5,
+                tolerance_plus_pct=5,
+                rated_voltage_v=450,
+                dielectric="film",
+                class_of_operation="B",
+            ),
         )
         motors = Motor.objects.bulk_create(
             [
-                Motor(asset_tag=f"{code}-{i:06d}", site=site, application="fan", motor_type="permanent_split", load_type="fan_law",
-                      rated_voltage_v=230, frequency_hz=50, poles=6, output_w=120, full_load_current_a=0.95, rated_speed_rpm=910,
-                      route_order=i, **FAN_CIRCUIT)
+                Motor(
+                    asset_tag=f"{code}-{i:06d}",
+                    site=site,
+                    application="fan",
+                    motor_type="permanent_split",
+                    load_type="fan_law",
+                    rated_voltage_v=230,
+                    frequency_hz=50,
+                    poles=6,
+                    output_w=120,
+                    full_load_current_a=0.95,
+                    rated_speed_rpm=910,
+                    route_order=i,
+                    **FAN_CIRCUIT,
+                )
                 for i in range(capacitors)
             ],
             batch_size=2000,
@@ -58,7 +86,14 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
             hours = 91 * (k + 1) * 24.0
             values = 4.0 * (1.0 + slope * hours) * (1 + rng.normal(0, 0.006, len(ids)))
             batch += [
-                Reading(installation_id=i, taken_at=taken, method="meter", capacitance_uf=float(v), case_temperature_c=35.0, source="demo")
+                Reading(
+                    installation_id=i,
+                    taken_at=taken,
+                    method="meter",
+                    capacitance_uf=float(v),
+                    case_temperature_c=35.0,
+                    source="demo",
+                )
                 for i, v in zip(ids, values, strict=True)
             ]
             if len(batch) >= 50_000:
@@ -74,7 +109,9 @@ class Command(BaseCommand):
     def add_arguments(self, parser):
         parser.add_argument("--capacitors", type=int, default=20_000)
         parser.add_argument("--readings-each", type=int, default=12)
-        parser.add_argument("--loop-sample", type=int, default=200, help="Capacitors refitted one at a time (extrapolated).")
+        parser.add_argument(
+            "--loop-sample", type=int, default=200, help="Capacitors refitted one at a time (extrapolated)."
+        )
 
     def handle(self, *args, **options):
         started = time.perf_counter()
@@ -102,7 +139,8 @@ class Command(BaseCommand):
         per_capacitor_s = (time.perf_counter() - started) / len(sample)
         per_reading = readings / len(ids)
         self.stdout.write(
-            f"per-capacitor loop: {per_capacitor_s * 1e3:.1f} ms a capacitor ({per_reading / per_capacitor_s:,.0f} readings/s); "
+            f"per-capacitor loop: {per_capacitor_s * 1e3:.1f} ms a capacitor "
+            f"({per_reading / per_capacitor_s:,.0f} readings/s); "
             f"{per_capacitor_s * len(ids):.0f} s for this fleet (extrapolated from {len(sample)}); "
             f"speed-up {per_capacitor_s * len(ids) / fleet_s:.0f}x"
         )

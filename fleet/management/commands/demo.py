@@ -23,12 +23,16 @@ class Command(BaseCommand):
         started = time.perf_counter()
         outcome = build_demo(scale=options["scale"])
         if outcome["created"]:
-            self.stdout.write(f"Built the demo fleet: {outcome['motors']} motors, {outcome['readings']} readings "
-                              f"({time.perf_counter() - started:.1f} s).")
+            self.stdout.write(
+                f"Built the demo fleet: {outcome['motors']} motors, {outcome['readings']} readings "
+                f"({time.perf_counter() - started:.1f} s)."
+            )
             started = time.perf_counter()
             run = start_fleet_refit(kind="demo")
             run.refresh_from_db()
-            self.stdout.write(f"Refitted {run.done} capacitors from {run.readings} readings ({time.perf_counter() - started:.1f} s).")
+            self.stdout.write(
+                f"Refitted {run.done} capacitors from {run.readings} readings ({time.perf_counter() - started:.1f} s)."
+            )
         else:
             self.stdout.write("The demo fleet is already there; nothing added.")
         self.stdout.write("\nSign in with one of these (user / password / role):")

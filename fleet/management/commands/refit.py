@@ -11,7 +11,9 @@ class Command(BaseCommand):
     help = "Refit every capacitor in service (chunks across workers), or with --stale only those with newer readings."
 
     def add_arguments(self, parser):
-        parser.add_argument("--stale", action="store_true", help="Only capacitors whose newest reading is newer than their assessment.")
+        parser.add_argument(
+            "--stale", action="store_true", help="Only capacitors whose newest reading is newer than their assessment."
+        )
 
     def handle(self, *args, **options):
         started = time.perf_counter()
