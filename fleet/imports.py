@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 from django.utils import timezone
 
-from fleet.engineering.capacitor import capacitance_from_current
+from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
 from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip
 
 READING_COLUMNS = {
@@ -225,10 +225,17 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     fitted = pd.DataFrame.from_records(
         list(
             FittedCapacitor.objects.filter(motor__asset_tag__in=tags).values_list(
-                "id", "motor__asset_tag", "role", "fitted_on", "removed_on", "part__rated_uf", "motor__frequency_hz"
+                "id",
+                "motor__asset_tag",
+                "role",
+                "fitted_on",
+                "removed_on",
+                "part__rated_uf",
+                "motor__frequency_hz",
+                "motor__rated_voltage_v",
             )
         ),
-        columns=["installation_id", "tag", "role", "fitted_on", "removed_on", "rated_uf", "frequency_hz"],
+        columns=["installation_id", "tag", "role", "fitted_on", "removed_on", "rated_uf", "frequency_hz", "voltage_v"],
     )
     fitted["tag"] = fitted["tag"].str.upper()
     known_tags = set(fitted["tag"])
@@ -276,6 +283,13 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         problems.add(in_circuit & np.isnan(voltage), "capacitor_voltage_v", "in-circuit reading without a voltage")
         slip = current_unit_slip(current, voltage, rated, frequency)
         problems.add(in_circuit & (slip != ""), "capacitor_current_a", slip)
+        supply = match["voltage_v"].to_numpy(float)
+        shorted = short_circuit_suspected(current, voltage, supply)
+        problems.add(
+            in_circuit & shorted,
+            "capacitor_voltage_v",
+            "almost no voltage while current flows: short circuit suspected",
+        )
         capacitance = np.where(
             in_circuit, capacitance_from_current(current, voltage, frequency), numbers["capacitance_uf"]
         )

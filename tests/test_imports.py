@@ -118,9 +118,11 @@ def test_in_circuit_rows_compute_capacitance_and_milliamps_are_named():
     rows = [
         ["IMP-0000", "run", "2024-02-01 09:00", "in_circuit", "", "0.5", "400", "30", ""],
         ["IMP-0001", "run", "2024-02-01 09:05", "in_circuit", "", "500", "400", "30", ""],
+        ["IMP-0001", "run", "2024-02-01 09:10", "in_circuit", "", "0.6", "2", "30", ""],
     ]
     job = check_job(create_job(kind="readings", filename="ic.csv", content=csv_of(rows), user=None).id)
-    assert job.errors == [[3, "capacitor_current_a", job.errors[0][2]]] and "milliamperes" in job.errors[0][2]
+    assert [error[:2] for error in job.errors] == [[3, "capacitor_current_a"], [4, "capacitor_voltage_v"]]
+    assert "milliamperes" in job.errors[0][2] and "short circuit" in job.errors[1][2]
     run_job(job.id, ImportJob.Mode.GOOD_ROWS)
     assert Reading.objects.get().capacitance_uf == pytest.approx(3.979, abs=0.001)
 

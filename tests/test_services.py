@@ -82,6 +82,11 @@ def test_in_circuit_reading_computes_capacitance(fan_installation):
         ({"method": "in_circuit", "capacitor_current_a": 0.5}, "capacitor_voltage_v", "voltage"),
         ({"method": "meter"}, "capacitance_uf", "Enter the capacitance"),
         (
+            {"method": "in_circuit", "capacitor_current_a": 0.6, "capacitor_voltage_v": 2.0},
+            "capacitor_voltage_v",
+            "short circuit",
+        ),
+        (
             {"method": "meter", "capacitance_uf": 4.0, "taken_at": timezone.now() + dt.timedelta(days=2)},
             "taken_at",
             "future",

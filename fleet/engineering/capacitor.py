@@ -17,11 +17,13 @@ VERDICT_WITHIN = 0
 VERDICT_LOW = 1
 VERDICT_HIGH = 2
 VERDICT_OPEN = 3
+VERDICT_SHORT = 4
 VERDICT_NAMES = {
     VERDICT_WITHIN: "within tolerance",
     VERDICT_LOW: "below tolerance",
     VERDICT_HIGH: "above tolerance",
     VERDICT_OPEN: "open circuit suspected",
+    VERDICT_SHORT: "short circuit suspected",
 }
 
 
@@ -73,6 +75,19 @@ def normalise_to_25c(capacitance_uf, temperature_c, tempco_ppm_per_k=-200.0):
     return np.asarray(capacitance_uf, float) / (1.0 + tempco_ppm_per_k * 1e-6 * delta_k)
 
 
+def short_circuit_suspected(capacitor_current_a, capacitor_voltage_v, supply_voltage_v, threshold_fraction=0.05):
+    """In circuit, current through the capacitor with almost no voltage across it.
+
+    A healthy run capacitor sits near or above the supply voltage; under 5 % of
+    it while current flows means the dielectric has broken down (common practice
+    of the trade, no single source). Missing values are not suspected.
+    """
+    current = np.asarray(capacitor_current_a, float)
+    voltage = np.asarray(capacitor_voltage_v, float)
+    with np.errstate(invalid="ignore"):
+        return (current > 0) & (voltage < threshold_fraction * np.asarray(supply_voltage_v, float))
+
+
 @dataclass(frozen=True)
 class ToleranceVerdict:
     """Verdict of measured capacitances against their parts' marked tolerance."""
@@ -91,21 +106,23 @@ def tolerance_verdict(
     tolerance_minus_pct,
     tolerance_plus_pct,
     open_fraction=0.1,
+    short=False,
 ) -> ToleranceVerdict:
     """Judge capacitances against a marked tolerance (film) or range (electrolytic).
 
     An electrolytic marked 88-108 uF is rated 88 uF with -0 / +22.7 %, or any
     equivalent pair; the limits are rated x (1 - minus/100) and rated x
     (1 + plus/100). Below `open_fraction` of rated is reported as an open
-    circuit (a tripped disconnector or a broken lead), not merely low.
+    circuit (a tripped disconnector or a broken lead), not merely low; `short`
+    (from short_circuit_suspected) overrides every other verdict.
     """
     c = np.asarray(capacitance_uf, float)
     rated = np.asarray(rated_uf, float)
     lower = rated * (1.0 - np.asarray(tolerance_minus_pct, float) / 100.0)
     upper = rated * (1.0 + np.asarray(tolerance_plus_pct, float) / 100.0)
     code = np.select(
-        [c < open_fraction * rated, c < lower, c > upper],
-        [VERDICT_OPEN, VERDICT_LOW, VERDICT_HIGH],
+        [np.asarray(short, bool), c < open_fraction * rated, c < lower, c > upper],
+        [VERDICT_SHORT, VERDICT_OPEN, VERDICT_LOW, VERDICT_HIGH],
         default=VERDICT_WITHIN,
     )
     margin = c - lower

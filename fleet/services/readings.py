@@ -9,7 +9,7 @@ from django.core.exceptions import ValidationError
 from django.db import transaction
 from django.utils import timezone
 
-from fleet.engineering.capacitor import capacitance_from_current
+from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
 from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip, off_trend
 from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
 
@@ -26,6 +26,12 @@ MEASURED_FIELDS = (
     "case_temperature_c",
     "ambient_temperature_c",
     "esr_ohm",
+)
+
+
+SHORT_CIRCUIT_ADVICE = (
+    "Current flows with almost no voltage across the capacitor: a short circuit is suspected. "
+    "Isolate and lock out, discharge, check the capacitor with a meter, and record a replacement if it is shorted."
 )
 
 
@@ -65,6 +71,8 @@ def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: boo
             slip = current_unit_slip(current, voltage, part.rated_uf, frequency_hz)[0]
             if slip:
                 errors["capacitor_current_a"] = slip
+            elif short_circuit_suspected(current, voltage, installation.motor.rated_voltage_v):
+                errors["capacitor_voltage_v"] = SHORT_CIRCUIT_ADVICE
             elif voltage <= 0:
                 errors["capacitor_voltage_v"] = "The capacitor voltage must be above zero."
             else:

@@ -7,12 +7,14 @@ from fleet.engineering.capacitor import (
     VERDICT_HIGH,
     VERDICT_LOW,
     VERDICT_OPEN,
+    VERDICT_SHORT,
     VERDICT_WITHIN,
     acceleration_factor,
     dissipation_factor_from_esr,
     esr_from_dissipation_factor,
     normalise_to_25c,
     rated_life_hours,
+    short_circuit_suspected,
     stored_energy_j,
     tolerance_verdict,
 )
@@ -64,3 +66,12 @@ def test_class_of_operation_life_at_rated_conditions():
     life = rated_life_hours(np.array(["A", "B", "C"]), 70.0, 70.0, 450.0, 450.0)
     assert life.tolist() == [30000.0, 10000.0, 3000.0]
     assert rated_life_hours("B", 70.0, 60.0, 450.0, 450.0) == pytest.approx(20000.0)
+
+
+def test_short_circuit_is_suspected_when_current_flows_with_no_voltage():
+    """[trade] a healthy run capacitor sits near or above the supply voltage in circuit;
+    a few volts with current flowing means the dielectric broke down."""
+    suspected = short_circuit_suspected([0.8, 0.5, 0.0, np.nan], [3.0, 390.0, 2.0, 2.0], 230.0)
+    assert suspected.tolist() == [True, False, False, False]
+    verdict = tolerance_verdict([850.0, 4.0], 4.0, 5, 5, short=suspected[:2])
+    assert verdict.code.tolist() == [VERDICT_SHORT, VERDICT_WITHIN]
