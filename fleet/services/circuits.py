@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from fleet.engineering.nameplate import Nameplate, estimate_parameters
+from fleet.engineering.nameplate import Nameplate, ParameterEstimate, estimate_parameters
 from fleet.models import FittedCapacitor, Motor
 
 NAMEPLATE_FIELDS = [
@@ -14,6 +14,22 @@ NAMEPLATE_FIELDS = [
     "rated_speed_rpm",
     "motor_type",
 ]
+
+
+def circuit_fields(estimate: ParameterEstimate) -> dict:
+    """A nameplate estimate as the Motor model's circuit fields."""
+    return dict(
+        r1m_ohm=estimate.r1m,
+        x1m_ohm=estimate.x1m,
+        r1a_ohm=estimate.r1a,
+        x1a_ohm=estimate.x1a,
+        r2_ohm=estimate.r2,
+        x2_ohm=estimate.x2,
+        xm_ohm=estimate.xm,
+        turns_ratio=estimate.turns_ratio,
+        rotational_loss_w=estimate.rotational_loss_w,
+        circuit_source="estimated",
+    )
 
 
 def estimate_circuits(motor_ids=None) -> int:
@@ -40,17 +56,5 @@ def estimate_circuits(motor_ids=None) -> int:
     updated = []
     for (volts, hertz, poles, output, current, speed, kind, run_uf, start_uf), ids in by_design.items():
         estimate = estimate_parameters(Nameplate(volts, hertz, poles, output, current, speed, kind, run_uf, start_uf))
-        values = dict(
-            r1m_ohm=estimate.r1m,
-            x1m_ohm=estimate.x1m,
-            r1a_ohm=estimate.r1a,
-            x1a_ohm=estimate.x1a,
-            r2_ohm=estimate.r2,
-            x2_ohm=estimate.x2,
-            xm_ohm=estimate.xm,
-            turns_ratio=estimate.turns_ratio,
-            rotational_loss_w=estimate.rotational_loss_w,
-            circuit_source="estimated",
-        )
-        updated.append(Motor.objects.filter(id__in=ids).update(**values))
+        updated.append(Motor.objects.filter(id__in=ids).update(**circuit_fields(estimate)))
     return sum(updated)

@@ -25,6 +25,7 @@ from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.trends import TrendSettings
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
+from fleet.services.circuits import circuit_fields
 
 DEMO_SITES = [
     ("PKH", "Packhouse, Riverside Road", "Europe/Dublin"),
@@ -209,20 +210,7 @@ def _circuit_for(design: Design, parts) -> dict:
         start_capacitance_uf=parts[design.start_part].rated_uf if design.start_part else 0.0,
     )
     estimate = estimate_parameters(plate)
-    return {
-        "r1m_ohm": estimate.r1m,
-        "x1m_ohm": estimate.x1m,
-        "r1a_ohm": estimate.r1a,
-        "x1a_ohm": estimate.x1a,
-        "r2_ohm": estimate.r2,
-        "x2_ohm": estimate.x2,
-        "xm_ohm": estimate.xm,
-        "turns_ratio": estimate.turns_ratio,
-        "rotational_loss_w": estimate.rotational_loss_w,
-        "circuit_source": "estimated",
-        "_circuit": estimate.circuit(plate),
-        "_plate": plate,
-    }
+    return {**circuit_fields(estimate), "_circuit": estimate.circuit(plate), "_plate": plate}
 
 
 def _run_capacitor_voltage(design: Design, circuit_info, parts) -> float:

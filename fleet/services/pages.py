@@ -5,7 +5,7 @@ from __future__ import annotations
 import datetime as dt
 
 import numpy as np
-from django.db.models import Count, Max, OuterRef, Prefetch, Q, Subquery, Sum
+from django.db.models import Count, Max, Prefetch, Q, Sum
 from django.utils import timezone
 
 from fleet.charts import trend_figure
@@ -156,9 +156,3 @@ def spares_needed(horizon_days: int = 90):
 
 def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
-
-
-def newest_reading_subquery():
-    return Subquery(
-        Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("capacitance_uf")[:1]
-    )
