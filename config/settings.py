@@ -187,4 +187,6 @@ LOGGING = {
     "disable_existing_loggers": False,
     "handlers": {"console": {"class": "logging.StreamHandler"}},
     "root": {"handlers": ["console"], "level": os.environ.get("LOG_LEVEL", "INFO")},
+    # One line per finished task drowns the demo's output when tasks run in-process.
+    "loggers": {"celery.app.trace": {"level": "WARNING"}},
 }

@@ -185,7 +185,16 @@ def site_route(request, site_code):
             return redirect("route", site_code=site.code)
     rows, quarter_start = pages.route_for_site(site)
     due = sum(1 for row in rows if row["due"])
-    context = {"site": site, "rows": rows, "quarter_start": quarter_start, "due": due, "order_errors": order_errors}
+    only_due = request.GET.get("show") == "due"
+    context = {
+        "site": site,
+        "rows": [row for row in rows if row["due"]] if only_due else rows,
+        "total": len(rows),
+        "only_due": only_due,
+        "quarter_start": quarter_start,
+        "due": due,
+        "order_errors": order_errors,
+    }
     return render(request, "fleet/route.html", context)
 
 

@@ -155,3 +155,14 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
     body = client.get(url).content.decode()
     assert body.index(second.asset_tag) < body.index(first.asset_tag)
     assert signed_in(technician).post(url, {f"order-{first.id}": "1"}).status_code == 403
+
+
+def test_route_can_show_only_the_motors_still_to_read(signed_in, technician):
+    from .conftest import make_motor, make_reading, make_site
+
+    site = make_site()
+    read = make_installation(motor=make_motor(site=site))
+    unread = make_installation(motor=make_motor(site=site))
+    make_reading(read, taken_at=timezone.now() - dt.timedelta(hours=2))
+    body = signed_in(technician).get(reverse("route", args=[site.code]), {"show": "due"}).content.decode()
+    assert unread.motor.asset_tag in body and read.motor.asset_tag not in body

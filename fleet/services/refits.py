@@ -4,10 +4,10 @@ from __future__ import annotations
 
 from django.conf import settings
 from django.db import transaction
-from django.db.models import F, Max, Q
+from django.db.models import F, OuterRef, Q, Subquery
 from django.utils import timezone
 
-from fleet.models import FittedCapacitor, RefitRun
+from fleet.models import Assessment, FittedCapacitor, Reading, RefitRun
 
 from .assessments import refit_installations, refresh_part_priors
 
@@ -51,13 +51,16 @@ def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -
 
 
 def stale_installation_ids(limit: int = 5000) -> list[int]:
-    """Capacitors in service whose newest reading is newer than their assessment."""
+    """Capacitors in service whose newest reading is newer than their assessment.
+
+    Two correlated subqueries on indexed columns (reading time, current
+    assessment), not an aggregate over readings x assessment history.
+    """
+    newest = Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1]
+    assessed = Assessment.objects.filter(installation=OuterRef("pk"), is_current=True).values("fitted_through")[:1]
     return list(
         FittedCapacitor.objects.filter(removed_on__isnull=True)
-        .annotate(
-            newest=Max("readings__taken_at"),
-            assessed=Max("assessments__fitted_through", filter=Q(assessments__is_current=True)),
-        )
+        .annotate(newest=Subquery(newest), assessed=Subquery(assessed))
         .filter(newest__isnull=False)
         .filter(Q(assessed__isnull=True) | Q(newest__gt=F("assessed")))
         .order_by("id")
