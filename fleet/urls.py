@@ -1,6 +1,17 @@
+from django.contrib.auth.decorators import login_not_required
 from django.urls import path
 
-from . import views
+from . import api, views
+
+# The API answers 401/403 itself (token or session), instead of redirecting to the login page.
+api_patterns = [
+    path("api/assessments/", login_not_required(api.AssessmentList.as_view()), name="api_assessments"),
+    path(
+        "api/capacitors/<int:pk>/readings/",
+        login_not_required(api.CapacitorReadings.as_view()),
+        name="api_capacitor_readings",
+    ),
+]
 
 urlpatterns = [
     path("", views.home, name="home"),
@@ -18,4 +29,5 @@ urlpatterns = [
     path("imports/<int:job_id>/", views.import_detail, name="import_detail"),
     path("imports/<int:job_id>/rows-to-fix.csv", views.import_rejected, name="import_rejected"),
     path("assets/plotly.js", views.plotly_js, name="plotly_js"),
+    *api_patterns,
 ]

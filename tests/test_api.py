@@ -1,0 +1,69 @@
+"""The JSON API: token auth, role permissions, the form's checks on writes."""
+
+import datetime as dt
+
+import pytest
+from django.urls import reverse
+from django.utils import timezone
+from rest_framework.authtoken.models import Token
+from rest_framework.test import APIClient
+
+from fleet.models import Reading
+from fleet.services.assessments import refit_installations
+
+from .conftest import quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+
+def client_for(user) -> APIClient:
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=user).key}")
+    return client
+
+
+def test_no_token_no_data(fan_installation):
+    response = APIClient().get(reverse("api_assessments"))
+    assert response.status_code == 401
+
+
+def test_engineer_reads_current_assessments_filtered_by_site(engineer, fan_installation):
+    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
+    refit_installations([fan_installation.id])
+    client = client_for(engineer)
+    body = client.get(reverse("api_assessments"), {"site": fan_installation.motor.site.code}).json()
+    assert body["count"] == 1
+    row = body["results"][0]
+    assert row["asset_tag"] == fan_installation.motor.asset_tag and row["rated_uf"] == 4.0
+    assert row["risk"] in {"replace now", "due soon", "watch", "sound"}
+    assert client.get(reverse("api_assessments"), {"site": "ELSEWHERE"}).json()["count"] == 0
+
+
+def test_technician_posts_a_reading_with_the_forms_checks(technician, fan_installation):
+    client = client_for(technician)
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    bad = client.post(url, {"method": "meter", "capacitance_uf": 3950}, format="json")
+    assert bad.status_code == 400 and "nanofarads" in bad.json()["capacitance_uf"][0]
+    good = client.post(
+        url, {"method": "in_circuit", "capacitor_current_a": 0.5, "capacitor_voltage_v": 400}, format="json"
+    )
+    assert good.status_code == 201 and good.json()["capacitance_uf"] == pytest.approx(3.979, abs=0.001)
+    assert Reading.objects.get().taken_by == technician
+    assert len(client.get(url).json()["results"]) == 1
+
+
+def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_installation):
+    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.97])
+    refit_installations([fan_installation.id])
+    client = client_for(technician)
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    assert client.post(url, {"method": "meter", "capacitance_uf": 3.2}, format="json").status_code == 409
+    assert (
+        client.post(url, {"method": "meter", "capacitance_uf": 3.2, "confirmed": True}, format="json").status_code
+        == 201
+    )
+
+
+def test_a_planner_cannot_post_readings(planner, fan_installation):
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    assert client_for(planner).post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json").status_code == 403
