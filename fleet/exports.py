@@ -28,3 +28,62 @@ def csv_bytes(header: list[str], rows) -> bytes:
     for row in rows:
         writer.writerow([safe_cell(v) for v in row])
     return buffer.getvalue().encode("utf-8-sig")
+
+
+class _Echo:
+    """A file-like object whose write returns the line, for streaming csv.writer output."""
+
+    def write(self, value):
+        return value
+
+
+def stream_csv(header: list[str], rows):
+    """CSV lines one at a time (a byte-order mark first, for spreadsheets), formula-escaped."""
+    writer = csv.writer(_Echo())
+    yield "\ufeff" + writer.writerow([safe_cell(h) for h in header])
+    for row in rows:
+        yield writer.writerow([safe_cell(v) for v in row])
+
+
+PLAN_HEADER = [
+    "asset_tag",
+    "site",
+    "location",
+    "role",
+    "part_code",
+    "rated_uf",
+    "risk",
+    "replace_by",
+    "capacitance_now_uf",
+    "latest_verdict",
+    "limit",
+    "limit_fraction",
+    "early_crossing_p10",
+    "likely_crossing_p50",
+    "late_crossing_p90",
+    "low_confidence",
+]
+
+
+def plan_rows(assessments):
+    """Rows of the replacement plan, from an iterator of assessments with their joins."""
+    for a in assessments:
+        installation = a.installation
+        yield [
+            installation.motor.asset_tag,
+            installation.motor.site.code,
+            installation.motor.location,
+            installation.role,
+            installation.part.code,
+            installation.part.rated_uf,
+            a.risk,
+            a.replace_by,
+            round(a.capacitance_now_uf, 3),
+            a.latest_verdict,
+            a.limit_source,
+            round(a.limit_fraction, 4),
+            a.p10_on,
+            a.p50_on,
+            a.p90_on,
+            "yes" if a.low_confidence else "no",
+        ]

@@ -9,13 +9,15 @@ from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied, ValidationError
 from django.core.paginator import Paginator
-from django.http import Http404, HttpResponse
+from django.http import Http404, HttpResponse, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
+from django.utils import timezone
 from django.views.decorators.cache import cache_control
 from django.views.decorators.http import require_POST
 
 from .engineering.capacitor import stored_energy_j
+from .exports import PLAN_HEADER, plan_rows, stream_csv
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
 from .models import FittedCapacitor, ImportJob, Motor, RefitRun, Site
@@ -214,6 +216,18 @@ def labels(request, site_code):
         motors = motors.filter(asset_tag=tag)
     labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in motors]
     return render(request, "fleet/labels.html", {"site": site, "labels": labels_})
+
+
+@permission_required("fleet.view_assessment", raise_exception=True)
+def plan_csv(request):
+    """The replacement plan as a CSV for the planner's own spreadsheet, streamed."""
+    horizon = _int_param(request, "days", 90, 7, 730)
+    site = Site.objects.filter(code=request.GET.get("site")).first()
+    rows = plan_rows(pages.replacement_plan(horizon, site).iterator(chunk_size=2000))
+    response = StreamingHttpResponse(stream_csv(PLAN_HEADER, rows), content_type="text/csv; charset=utf-8")
+    name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}.csv"
+    response["Content-Disposition"] = f'attachment; filename="{name}"'
+    return response
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)

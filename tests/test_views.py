@@ -166,3 +166,16 @@ def test_route_can_show_only_the_motors_still_to_read(signed_in, technician):
     make_reading(read, taken_at=timezone.now() - dt.timedelta(hours=2))
     body = signed_in(technician).get(reverse("route", args=[site.code]), {"show": "due"}).content.decode()
     assert unread.motor.asset_tag in body and read.motor.asset_tag not in body
+
+
+def test_plan_downloads_as_a_streamed_csv_with_formulas_defused(signed_in, planner):
+    from .conftest import make_motor
+
+    installation = make_installation(motor=make_motor(location="=cmd|' /C calc'!A0"))
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+    refit_installations([installation.id])
+    response = signed_in(planner).get(reverse("plan_csv"), {"days": 365})
+    assert response.streaming and response["Content-Type"].startswith("text/csv")
+    lines = b"".join(response.streaming_content).decode("utf-8-sig").splitlines()
+    assert lines[0].startswith("asset_tag,site,location")
+    assert installation.motor.asset_tag in lines[1] and "'=cmd" in lines[1]
