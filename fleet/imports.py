@@ -22,6 +22,7 @@ from django.utils import timezone
 
 from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
 from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip
+from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
 
 READING_COLUMNS = {
     "asset_tag": "Motor asset tag (required)",
@@ -42,18 +43,7 @@ READING_COLUMNS = {
     "notes": "Free text",
 }
 READING_REQUIRED = ("asset_tag", "role", "taken_at")
-READING_NUMBERS = [
-    "capacitance_uf",
-    "capacitor_current_a",
-    "capacitor_voltage_v",
-    "line_voltage_v",
-    "main_current_a",
-    "aux_current_a",
-    "line_current_a",
-    "case_temperature_c",
-    "ambient_temperature_c",
-    "esr_ohm",
-]
+READING_NUMBERS = list(Reading.MEASURED_FIELDS)
 
 REGISTER_COLUMNS = {
     "asset_tag": "Motor asset tag, unique (required)",
@@ -219,8 +209,6 @@ def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
 
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
     """Validate mapped reading rows; resolve each to the capacitor fitted at the time."""
-    from fleet.models import FittedCapacitor, Reading
-
     tags = sorted(set(frame["asset_tag"].str.upper()) - {""})
     fitted = pd.DataFrame.from_records(
         list(
@@ -347,8 +335,6 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
 
 def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
     """Write checked readings (caller holds the transaction); returns the capacitors touched."""
-    from fleet.models import Reading
-
     objects = [
         Reading(
             installation_id=int(row.installation_id),
@@ -374,8 +360,6 @@ def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
 
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites and parts must exist; tags already there are skipped."""
-    from fleet.models import CapacitorPart, Motor, Site
-
     sites = dict(Site.objects.values_list("code", "id"))
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
     existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
@@ -434,8 +418,6 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 def insert_register(good: pd.DataFrame) -> list[int]:
     """Create motors and their fitted capacitors (caller holds the transaction)."""
-    from fleet.models import CapacitorPart, FittedCapacitor, Motor
-
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
     motors = Motor.objects.bulk_create(
         [

@@ -209,6 +209,19 @@ class FittedCapacitor(models.Model):
 class Reading(models.Model):
     """One measurement, append-only. A correction is a new reading that supersedes."""
 
+    MEASURED_FIELDS = (
+        "capacitance_uf",
+        "capacitor_current_a",
+        "capacitor_voltage_v",
+        "line_voltage_v",
+        "main_current_a",
+        "aux_current_a",
+        "line_current_a",
+        "case_temperature_c",
+        "ambient_temperature_c",
+        "esr_ohm",
+    )
+
     class Method(models.TextChoices):
         METER = "meter", "Capacitance meter (isolated)"
         IN_CIRCUIT = "in_circuit", "In circuit (current and voltage)"

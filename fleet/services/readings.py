@@ -15,19 +15,6 @@ from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
 
 log = logging.getLogger(__name__)
 
-MEASURED_FIELDS = (
-    "capacitance_uf",
-    "capacitor_current_a",
-    "capacitor_voltage_v",
-    "line_voltage_v",
-    "main_current_a",
-    "aux_current_a",
-    "line_current_a",
-    "case_temperature_c",
-    "ambient_temperature_c",
-    "esr_ohm",
-)
-
 
 SHORT_CIRCUIT_ADVICE = (
     "Current flows with almost no voltage across the capacitor: a short circuit is suspected. "
