@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import numpy as np
 import plotly.graph_objects as go
 
 INK = "#1d2a33"
@@ -64,6 +65,81 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
         yaxis_title="capacitance (uF)",
         plot_bgcolor="white",
         font={"size": 14},
+    )
+    figure.update_xaxes(gridcolor="#e5e7eb")
+    figure.update_yaxes(gridcolor="#e5e7eb")
+    return figure.to_plotly_json()
+
+
+def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -> dict:
+    """Weibull probability plot: ln(-ln(1 - F)) against time on a log axis, with the fit."""
+    times = np.asarray(times_years, float)
+    fraction = np.asarray(fraction_failed, float)
+    line_t = np.geomspace(max(times.min() * 0.5, 1e-3), times.max() * 2.0, 60)
+    line_f = 1.0 - np.exp(-((line_t / eta) ** beta))
+    figure = go.Figure()
+    figure.add_trace(
+        go.Scatter(
+            x=times,
+            y=np.log(-np.log1p(-fraction)),
+            mode="markers",
+            marker={"color": INK, "size": 8},
+            name="failures (median ranks)",
+        )
+    )
+    figure.add_trace(
+        go.Scatter(
+            x=line_t,
+            y=np.log(-np.log1p(-line_f)),
+            mode="lines",
+            line={"color": TREND, "width": 2},
+            name=f"Weibull fit (beta {beta:.2f}, eta {eta:.1f} y)",
+        )
+    )
+    ticks = np.array([0.01, 0.05, 0.1, 0.2, 0.5, 0.9, 0.99])
+    figure.update_layout(
+        margin={"l": 60, "r": 10, "t": 10, "b": 40},
+        height=360,
+        plot_bgcolor="white",
+        font={"size": 14},
+        legend={"orientation": "h", "y": -0.25},
+        xaxis_title="age (years)",
+        yaxis={
+            "title": "fraction failed",
+            "tickvals": np.log(-np.log1p(-ticks)).tolist(),
+            "ticktext": [f"{100 * t:g} %" for t in ticks],
+            "gridcolor": "#e5e7eb",
+        },
+    )
+    figure.update_xaxes(type="log", gridcolor="#e5e7eb")
+    return figure.to_plotly_json()
+
+
+def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_age: float | None) -> dict:
+    """Cost per year of replacing at each age, against running every capacitor to failure."""
+    figure = go.Figure()
+    figure.add_trace(
+        go.Scatter(
+            x=ages_years,
+            y=cost_per_year,
+            mode="lines",
+            line={"color": TREND, "width": 2},
+            name="replace at this age or at failure",
+        )
+    )
+    figure.add_hline(y=run_to_failure, line={"color": LIMIT, "dash": "dash"}, annotation_text="run to failure")
+    if optimum_age is not None:
+        figure.add_vline(
+            x=optimum_age, line={"color": INK, "dash": "dot"}, annotation_text=f"best: {optimum_age:.1f} y"
+        )
+    figure.update_layout(
+        margin={"l": 60, "r": 10, "t": 10, "b": 40},
+        height=320,
+        plot_bgcolor="white",
+        font={"size": 14},
+        legend={"orientation": "h", "y": -0.25},
+        xaxis_title="replacement age (years)",
+        yaxis_title="cost per capacitor-year",
     )
     figure.update_xaxes(gridcolor="#e5e7eb")
     figure.update_yaxes(gridcolor="#e5e7eb")

@@ -24,6 +24,7 @@ urlpatterns = [
     path("sites/<str:site_code>/labels/", views.labels, name="labels"),
     path("plan/", views.plan, name="plan"),
     path("plan.csv", views.plan_csv, name="plan_csv"),
+    path("life/", views.life_data, name="life_data"),
     path("refits/", views.refits, name="refits"),
     path("refits/start/", views.refit_start, name="refit_start"),
     path("imports/", views.imports_home, name="imports"),

@@ -16,13 +16,15 @@ from django.utils import timezone
 from django.views.decorators.cache import cache_control
 from django.views.decorators.http import require_POST
 
+from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
 from .exports import PLAN_HEADER, plan_rows, stream_csv
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
-from .models import FittedCapacitor, ImportJob, Motor, RefitRun, Site
+from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
 from .services import pages
 from .services.import_jobs import SPECS, create_job, rejected_rows_csv
+from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installation_ids
 from .services.register import set_route_order
@@ -339,3 +341,35 @@ def import_rejected(request, job_id):
     stem = job.filename.rsplit(".", 1)[0]
     response["Content-Disposition"] = f'attachment; filename="{stem}-rows-to-fix.csv"'
     return response
+
+
+@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+def life_data(request):
+    """Weibull analysis of one part's capacitors; costs are the engineer's to set."""
+    parts = CapacitorPart.objects.order_by("dielectric", "code")
+    part = parts.filter(code=request.GET.get("part")).first() or parts.first()
+    planned_cost = _float_param(request, "planned_cost", 60.0)
+    failure_cost = _float_param(request, "failure_cost", 400.0)
+    context = {"parts": parts, "part": part, "planned_cost": planned_cost, "failure_cost": failure_cost}
+    if part is not None:
+        life = part_life(part.id, planned_cost, failure_cost)
+        context["life"] = life
+        if life["fit"] is not None:
+            plot_t, plot_f = life["plot_points"]
+            context["weibull_chart"] = weibull_plot_figure(plot_t, plot_f, life["fit"].beta, life["fit"].eta)
+            replacement = life["replacement"]
+            context["cost_chart"] = cost_curve_figure(
+                replacement.ages,
+                replacement.cost_per_time,
+                replacement.run_to_failure_cost_per_time,
+                replacement.optimum_age,
+            )
+    return render(request, "fleet/life_data.html", context)
+
+
+def _float_param(request, name, default) -> float:
+    try:
+        value = float(request.GET.get(name, default))
+    except ValueError:
+        return default
+    return value if value > 0 else default

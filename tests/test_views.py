@@ -179,3 +179,25 @@ def test_plan_downloads_as_a_streamed_csv_with_formulas_defused(signed_in, plann
     lines = b"".join(response.streaming_content).decode("utf-8-sig").splitlines()
     assert lines[0].startswith("asset_tag,site,location")
     assert installation.motor.asset_tag in lines[1] and "'=cmd" in lines[1]
+
+
+def test_life_data_counts_failures_and_suspensions_from_the_register(signed_in, engineer):
+    from fleet.services.lifedata import life_table
+
+    from .conftest import make_motor
+
+    part = make_part()
+    ages_days = [400, 800, 1200, 1500, 2000, 2600]
+    today = timezone.localdate()
+    for i, age in enumerate(ages_days):
+        installation = make_installation(motor=make_motor(), part=part, fitted_on=today - dt.timedelta(days=age))
+        if i < 4:  # four removed: three failed, one replaced on plan
+            installation.removed_on = today - dt.timedelta(days=1)
+            installation.removal_reason = "failed" if i < 3 else "planned"
+            installation.save()
+    table = life_table(part.id, today=today)
+    assert table["failed"].sum() == 3 and len(table) == 6
+    assert sorted(table["age_days"]) == sorted([a - 1 for a in ages_days[:4]] + ages_days[4:])
+    body = signed_in(engineer).get(reverse("life_data"), {"part": part.code}).content.decode()
+    assert "<b>3</b> failed in service" in body and "<b>3</b> replaced on plan or still in service" in body
+    assert 'id="weibull-data"' in body and "B10 life" in body
