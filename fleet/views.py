@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import io
 
 import segno
@@ -28,6 +29,7 @@ from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installation_ids
 from .services.register import set_route_order
+from .services.workorders import issue_visit, open_visits, plan_work_orders
 from .tasks import check_import, refit_fleet, run_import
 
 
@@ -373,3 +375,36 @@ def _float_param(request, name, default) -> float:
     except ValueError:
         return default
     return value if value > 0 else default
+
+
+@permission_required("fleet.view_workorder", raise_exception=True)
+def work_orders(request):
+    """Open work orders by site visit; planners create them from the plan and issue visits."""
+    if request.method == "POST":
+        action = request.POST.get("action")
+        if action == "plan" and request.user.has_perm("fleet.add_workorder"):
+            horizon = max(7, min(365, int(request.POST.get("days") or 90)))
+            counts = plan_work_orders(horizon_days=horizon, user=request.user)
+            messages.success(
+                request,
+                f"{counts['created']} work orders created, {counts['replanned']} re-dated, "
+                f"in {counts['visits']} site visits.",
+            )
+        elif action == "issue" and request.user.has_perm("fleet.change_workorder"):
+            day = dt.date.fromisoformat(request.POST["day"])
+            issued = issue_visit(site_id=int(request.POST["site"]), due_on=day)
+            messages.success(request, f"{issued} work orders issued to the technicians.")
+        else:
+            raise PermissionDenied
+        return redirect("work_orders")
+    return render(request, "fleet/work_orders.html", {"visits": open_visits()})
+
+
+@permission_required("fleet.view_workorder", raise_exception=True)
+def visit_sheet(request, site_code, day):
+    """A printable sheet for one site visit: the orders, the spares, the cautions."""
+    site = get_object_or_404(Site, code=site_code)
+    visits = [v for v in open_visits(site.id) if v["day"].isoformat() == day]
+    if not visits:
+        raise Http404("No open work orders for that visit")
+    return render(request, "fleet/visit_sheet.html", {"visit": visits[0], "site": site})

@@ -259,3 +259,20 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
         assert np.isfinite(direct.governing_fraction) and direct.governing_fraction > 0.55
         assert stored.limit_fraction == pytest.approx(float(direct.governing_fraction))
         assert stored.limit_source != "tolerance"
+
+
+def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
+    from fleet.services.workorders import issue_visit, open_visits, plan_work_orders
+
+    installations = ageing_fleet(count=4)
+    refit_installations([i.id for i in installations])
+    counts = plan_work_orders(horizon_days=90, user=planner)
+    assert counts["created"] == 4 and counts["replanned"] == 0
+    assert WorkOrder.objects.filter(state="planned", kind="replace_run").count() == 4
+    # Four motors on four sites (the factory makes a site per motor): four visits today.
+    assert counts["visits"] == 4 and all(o.due_on == timezone.localdate() for o in WorkOrder.objects.all())
+    again = plan_work_orders(horizon_days=90, user=planner)
+    assert again["created"] == 0 and again["replanned"] == 4 and WorkOrder.objects.count() == 4
+    first = open_visits()[0]
+    assert issue_visit(site_id=first["site"].id, due_on=first["day"]) == 1
+    assert plan_work_orders(horizon_days=90)["replanned"] == 3

@@ -201,3 +201,21 @@ def test_life_data_counts_failures_and_suspensions_from_the_register(signed_in, 
     body = signed_in(engineer).get(reverse("life_data"), {"part": part.code}).content.decode()
     assert "<b>3</b> failed in service" in body and "<b>3</b> replaced on plan or still in service" in body
     assert 'id="weibull-data"' in body and "B10 life" in body
+
+
+def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(signed_in, planner, technician):
+    installations = [make_installation() for _ in range(2)]
+    for installation in installations:
+        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+    refit_installations([i.id for i in installations])
+    client = signed_in(planner)
+    client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
+    body = client.get(reverse("work_orders")).content.decode()
+    assert installations[0].motor.asset_tag in body and "Visit sheet" in body
+    site = installations[0].motor.site
+    day = timezone.localdate().isoformat()
+    sheet = client.get(reverse("visit_sheet", args=[site.code, day])).content.decode()
+    assert "never a screwdriver" in sheet and installations[0].part.code in sheet
+    client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day})
+    assert "Issued" in client.get(reverse("work_orders")).content.decode()
+    assert signed_in(technician).post(reverse("work_orders"), {"action": "plan"}).status_code == 403

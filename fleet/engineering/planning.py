@@ -41,3 +41,32 @@ def risk_levels(days_to_p10, days_to_p50, limit_already_crossed, settings: Plann
     )
     due_days = np.where(crossed, 0.0, np.maximum(p10 - settings.lead_days, 0.0))
     return level, due_days
+
+
+def bundle_visits(site, due_day, window_days=14):
+    """Group replacements into site visits: one trip per site per window.
+
+    Per site, the earliest due replacement opens a visit dated on its due day;
+    everything at that site due within `window_days` after it joins the visit
+    (replaced a little early rather than sending a second trip); the next item
+    opens the next visit. Returns (visit number per item, visit day per item).
+    The loop runs over visits, not over items.
+    """
+    site = np.asarray(site)
+    due_day = np.asarray(due_day, float)
+    visit = np.full(due_day.size, -1, dtype=np.int64)
+    visit_day = np.full(due_day.size, np.nan)
+    order = np.lexsort((due_day, site))
+    sorted_site, sorted_due = site[order], due_day[order]
+    boundaries = np.flatnonzero(np.r_[True, sorted_site[1:] != sorted_site[:-1], True])
+    next_visit = 0
+    for start, stop in zip(boundaries[:-1], boundaries[1:], strict=True):
+        position = start
+        while position < stop:
+            opens = sorted_due[position]
+            end = start + int(np.searchsorted(sorted_due[start:stop], opens + window_days, side="right"))
+            visit[order[position:end]] = next_visit
+            visit_day[order[position:end]] = opens
+            next_visit += 1
+            position = end
+    return visit, visit_day

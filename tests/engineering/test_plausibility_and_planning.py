@@ -44,3 +44,16 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
 def test_a_limit_already_crossed_is_replace_now_with_no_delay():
     level, due = risk_levels([500.0], [900.0], [True])
     assert level[0] == RISK_REPLACE_NOW and due[0] == 0.0
+
+
+def test_replacements_are_bundled_into_one_visit_per_site_and_window():
+    from fleet.engineering.planning import bundle_visits
+
+    site = np.array(["A", "A", "A", "B", "A", "B"])
+    due = np.array([3.0, 10.0, 30.0, 5.0, 16.0, 40.0])
+    visit, day = bundle_visits(site, due, window_days=14)
+    # A: day 3 opens a visit holding 3, 10, 16 (within 14 days); 30 opens the next. B: 5, then 40.
+    assert visit[0] == visit[1] == visit[4] and visit[2] != visit[0]
+    assert day.tolist() == [3.0, 3.0, 30.0, 5.0, 3.0, 40.0]
+    assert len(set(visit.tolist())) == 4
+    assert visit[3] != visit[5]
