@@ -10,6 +10,7 @@ TREND = "#2563a8"
 BAND = "rgba(37, 99, 168, 0.15)"
 LIMIT = "#b4461c"
 FLAGGED = "#a3a3a3"
+GRID = "#e5e7eb"
 
 
 def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label: str, rated_uf: float) -> dict:
@@ -58,17 +59,7 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
         )
     figure.add_hline(y=limit_uf, line={"color": LIMIT, "dash": "dash"}, annotation_text=f"limit: {limit_label}")
     figure.add_hline(y=rated_uf, line={"color": "#6b7280", "dash": "dot", "width": 1}, annotation_text="rated")
-    figure.update_layout(
-        margin={"l": 50, "r": 10, "t": 10, "b": 40},
-        height=340,
-        legend={"orientation": "h", "y": -0.2},
-        yaxis_title="capacitance (uF)",
-        plot_bgcolor="white",
-        font={"size": 14},
-    )
-    figure.update_xaxes(gridcolor="#e5e7eb")
-    figure.update_yaxes(gridcolor="#e5e7eb")
-    return figure.to_plotly_json()
+    return _styled(figure, height=340, yaxis_title="capacitance (uF)")
 
 
 def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -> dict:
@@ -97,22 +88,9 @@ def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -
         )
     )
     ticks = np.array([0.01, 0.05, 0.1, 0.2, 0.5, 0.9, 0.99])
-    figure.update_layout(
-        margin={"l": 60, "r": 10, "t": 10, "b": 40},
-        height=360,
-        plot_bgcolor="white",
-        font={"size": 14},
-        legend={"orientation": "h", "y": -0.25},
-        xaxis_title="age (years)",
-        yaxis={
-            "title": "fraction failed",
-            "tickvals": np.log(-np.log1p(-ticks)).tolist(),
-            "ticktext": [f"{100 * t:g} %" for t in ticks],
-            "gridcolor": "#e5e7eb",
-        },
-    )
-    figure.update_xaxes(type="log", gridcolor="#e5e7eb")
-    return figure.to_plotly_json()
+    figure.update_yaxes(tickvals=np.log(-np.log1p(-ticks)).tolist(), ticktext=[f"{100 * t:g} %" for t in ticks])
+    figure.update_xaxes(type="log")
+    return _styled(figure, height=360, xaxis_title="age (years)", yaxis_title="fraction failed")
 
 
 def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_age: float | None) -> dict:
@@ -132,15 +110,19 @@ def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_
         figure.add_vline(
             x=optimum_age, line={"color": INK, "dash": "dot"}, annotation_text=f"best: {optimum_age:.1f} y"
         )
+    return _styled(figure, height=320, xaxis_title="replacement age (years)", yaxis_title="cost per capacitor-year")
+
+
+def _styled(figure: go.Figure, height: int, **titles) -> dict:
+    """The house style every figure shares: white plot, light grid, legend below."""
     figure.update_layout(
         margin={"l": 60, "r": 10, "t": 10, "b": 40},
-        height=320,
+        height=height,
         plot_bgcolor="white",
         font={"size": 14},
         legend={"orientation": "h", "y": -0.25},
-        xaxis_title="replacement age (years)",
-        yaxis_title="cost per capacitor-year",
+        **titles,
     )
-    figure.update_xaxes(gridcolor="#e5e7eb")
-    figure.update_yaxes(gridcolor="#e5e7eb")
+    figure.update_xaxes(gridcolor=GRID)
+    figure.update_yaxes(gridcolor=GRID)
     return figure.to_plotly_json()
