@@ -87,3 +87,17 @@ def plan_rows(assessments):
             a.p90_on,
             "yes" if a.low_confidence else "no",
         ]
+
+
+def xlsx_bytes(sheet_title: str, header: list[str], rows) -> bytes:
+    """A one-sheet workbook; text cells escaped as in CSV (openpyxl writes '=...' as a formula)."""
+    from openpyxl import Workbook
+
+    book = Workbook(write_only=True)
+    sheet = book.create_sheet(sheet_title[:31])
+    sheet.append(header)
+    for row in rows:
+        sheet.append([safe_cell(v) if isinstance(v, str) else v for v in row])
+    buffer = io.BytesIO()
+    book.save(buffer)
+    return buffer.getvalue()

@@ -19,7 +19,7 @@ from django.views.decorators.http import require_POST
 
 from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
-from .exports import PLAN_HEADER, plan_rows, stream_csv
+from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
@@ -223,14 +223,18 @@ def labels(request, site_code):
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)
-def plan_csv(request):
-    """The replacement plan as a CSV for the planner's own spreadsheet, streamed."""
+def plan_export(request, file_format):
+    """The replacement plan for the planner's own spreadsheet: CSV streamed, or XLSX."""
     horizon = _int_param(request, "days", 90, 7, 730)
     site = Site.objects.filter(code=request.GET.get("site")).first()
     rows = plan_rows(pages.replacement_plan(horizon, site).iterator(chunk_size=2000))
-    response = StreamingHttpResponse(stream_csv(PLAN_HEADER, rows), content_type="text/csv; charset=utf-8")
-    name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}.csv"
-    response["Content-Disposition"] = f'attachment; filename="{name}"'
+    name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}"
+    if file_format == "xlsx":
+        content_type = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
+        response = HttpResponse(xlsx_bytes("replacement plan", PLAN_HEADER, rows), content_type=content_type)
+    else:
+        response = StreamingHttpResponse(stream_csv(PLAN_HEADER, rows), content_type="text/csv; charset=utf-8")
+    response["Content-Disposition"] = f'attachment; filename="{name}.{file_format}"'
     return response
 
 

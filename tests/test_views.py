@@ -174,7 +174,7 @@ def test_plan_downloads_as_a_streamed_csv_with_formulas_defused(signed_in, plann
     installation = make_installation(motor=make_motor(location="=cmd|' /C calc'!A0"))
     quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
     refit_installations([installation.id])
-    response = signed_in(planner).get(reverse("plan_csv"), {"days": 365})
+    response = signed_in(planner).get(reverse("plan_export", args=["csv"]), {"days": 365})
     assert response.streaming and response["Content-Type"].startswith("text/csv")
     lines = b"".join(response.streaming_content).decode("utf-8-sig").splitlines()
     assert lines[0].startswith("asset_tag,site,location")
@@ -219,3 +219,21 @@ def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(sign
     client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day})
     assert "Issued" in client.get(reverse("work_orders")).content.decode()
     assert signed_in(technician).post(reverse("work_orders"), {"action": "plan"}).status_code == 403
+
+
+def test_plan_downloads_as_xlsx_with_formulas_defused(signed_in, planner):
+    import io
+
+    from openpyxl import load_workbook
+
+    from .conftest import make_motor
+
+    installation = make_installation(motor=make_motor(location="=1+1"))
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+    refit_installations([installation.id])
+    response = signed_in(planner).get(reverse("plan_export", args=["xlsx"]), {"days": 365})
+    sheet = load_workbook(io.BytesIO(response.content)).active
+    rows = list(sheet.iter_rows(values_only=True))
+    assert rows[0][:3] == ("asset_tag", "site", "location")
+    assert rows[1][0] == installation.motor.asset_tag and rows[1][2] == "'=1+1"
+    assert rows[1][5] == 4 and not isinstance(rows[1][5], str)  # numbers stay numbers
