@@ -276,3 +276,19 @@ def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
     first = open_visits()[0]
     assert issue_visit(site_id=first["site"].id, due_on=first["day"]) == 1
     assert plan_work_orders(horizon_days=90)["replanned"] == 3
+
+
+def test_risk_changes_compare_with_the_assessment_current_a_week_ago():
+    from fleet.services.pages import risk_changes
+
+    installation = make_installation()
+    quarterly_readings(installation, START, [4.0, 3.99, 3.98])
+    refit_installations([installation.id])
+    Assessment.objects.filter(installation=installation).update(created_at=timezone.now() - dt.timedelta(days=10))
+    worse, better = risk_changes(days=7)
+    assert worse == [] and better == []  # nothing assessed this week
+    quarterly_readings(installation, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
+    refit_installations([installation.id])
+    worse, better = risk_changes(days=7)
+    assert [a.installation_id for a in worse] == [installation.id]
+    assert worse[0].risk == "replace now" and worse[0].previous_risk != "replace now"

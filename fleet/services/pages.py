@@ -5,7 +5,7 @@ from __future__ import annotations
 import datetime as dt
 
 import numpy as np
-from django.db.models import Count, Max, Prefetch, Q, Sum
+from django.db.models import Count, F, Max, OuterRef, Prefetch, Q, Subquery, Sum
 from django.utils import timezone
 
 from fleet.charts import trend_figure
@@ -156,3 +156,28 @@ def spares_needed(horizon_days: int = 90):
 
 def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
+
+
+def risk_changes(days: int = 7, limit: int = 50):
+    """Capacitors whose risk level moved in the last `days`, against the assessment
+    that was current then: (worse, better) lists, worst first; one query each.
+
+    A capacitor first assessed in the window counts as a change from nothing.
+    """
+    since = timezone.now() - dt.timedelta(days=days)
+    before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
+        "-created_at"
+    )
+    changed = (
+        current_assessments()
+        .filter(installation__removed_on__isnull=True, created_at__gte=since)
+        .annotate(previous_risk=Subquery(before.values("risk")[:1]))
+        .exclude(previous_risk=F("risk"))
+        .select_related("installation__motor__site", "installation__part")
+    )
+    severity = {risk: rank for rank, risk in enumerate(RISK_ORDER)}
+    worse, better = [], []
+    for assessment in changed.order_by("replace_by")[: 4 * limit]:
+        was = severity.get(assessment.previous_risk, len(RISK_ORDER))
+        (worse if severity[assessment.risk] < was else better).append(assessment)
+    return worse[:limit], better[:limit]
