@@ -292,3 +292,37 @@ def test_risk_changes_compare_with_the_assessment_current_a_week_ago():
     worse, better = risk_changes(days=7)
     assert [a.installation_id for a in worse] == [installation.id]
     assert worse[0].risk == "replace now" and worse[0].previous_risk != "replace now"
+
+
+def test_a_reading_with_winding_currents_refines_the_motors_circuit():
+    """[derived] Currents synthesised from a known circuit at rated slip: the refined
+    circuit reproduces them, the motor is marked fitted; an entered circuit is kept."""
+    from fleet.engineering.motor import MotorCircuit, two_winding_running
+    from fleet.services.circuits import fit_circuits_from_readings
+
+    truth = MotorCircuit.from_arrays(
+        r1m=30.0, x1m=12.0, r1a=70.0, x1a=24.0, r2=45.0, x2=12.0, xm=380.0, turns_ratio=1.4,
+        voltage_v=230.0, frequency_hz=50.0, poles=6, rotational_loss_w=6.0,
+    )  # fmt: skip
+    rated = two_winding_running(truth, 4.0, 0.09)
+    motor = make_motor(
+        output_w=float(rated.output_power_w), full_load_current_a=float(abs(rated.i_line)), rated_speed_rpm=910.0
+    )
+    installation = make_installation(motor=motor)
+    main_a, aux_a = float(abs(rated.i_main)), float(abs(rated.i_aux))
+    quarterly_readings(installation, START, [4.0], main_current_a=main_a, aux_current_a=aux_a)
+    entered = make_installation(motor=make_motor(circuit_source="entered"))
+    quarterly_readings(entered, START, [4.0], main_current_a=1.0, aux_current_a=0.5)
+    assert fit_circuits_from_readings() == {"fitted": 1, "kept": 0}
+    motor.refresh_from_db()
+    assert motor.circuit_source == "fitted"
+    refined = MotorCircuit.from_arrays(
+        r1m=motor.r1m_ohm, x1m=motor.x1m_ohm, r1a=motor.r1a_ohm, x1a=motor.x1a_ohm, r2=motor.r2_ohm, x2=motor.x2_ohm,
+        xm=motor.xm_ohm, turns_ratio=motor.turns_ratio, voltage_v=230.0, frequency_hz=50.0, poles=6,
+        rotational_loss_w=motor.rotational_loss_w,
+    )  # fmt: skip
+    again = two_winding_running(refined, 4.0, 0.09)
+    assert abs(again.i_main) == pytest.approx(main_a, rel=0.02)
+    assert abs(again.i_aux) == pytest.approx(aux_a, rel=0.02)
+    entered.motor.refresh_from_db()
+    assert entered.motor.circuit_source == "entered"

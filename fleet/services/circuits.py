@@ -2,9 +2,21 @@
 
 from __future__ import annotations
 
-from fleet.engineering.nameplate import Nameplate, ParameterEstimate, estimate_parameters
-from fleet.models import FittedCapacitor, Motor
+from fleet.engineering.nameplate import CommissioningReadings, Nameplate, ParameterEstimate, estimate_parameters
+from fleet.models import FittedCapacitor, Motor, Reading
 
+CIRCUIT_FIELDS = (
+    "r1m_ohm",
+    "x1m_ohm",
+    "r1a_ohm",
+    "x1a_ohm",
+    "r2_ohm",
+    "x2_ohm",
+    "xm_ohm",
+    "turns_ratio",
+    "rotational_loss_w",
+    "circuit_source",
+)
 NAMEPLATE_FIELDS = [
     "rated_voltage_v",
     "frequency_hz",
@@ -58,3 +70,57 @@ def estimate_circuits(motor_ids=None) -> int:
         estimate = estimate_parameters(Nameplate(volts, hertz, poles, output, current, speed, kind, run_uf, start_uf))
         updated.append(Motor.objects.filter(id__in=ids).update(**circuit_fields(estimate)))
     return sum(updated)
+
+
+def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> dict:
+    """Refine motors' circuits from their earliest run-capacitor reading that has both
+    winding currents (commissioning data, taken at normal running load).
+
+    One solve per such motor (each has its own data); the estimate must reproduce
+    the nameplate and the currents within `max_error_pct`, otherwise the motor
+    keeps its nameplate estimate. Circuits entered by hand are never touched.
+    """
+    readings = Reading.objects.filter(
+        installation__role=FittedCapacitor.Role.RUN,
+        main_current_a__isnull=False,
+        aux_current_a__isnull=False,
+    ).exclude(installation__motor__circuit_source="entered")
+    if motor_ids is not None:
+        readings = readings.filter(installation__motor_id__in=list(motor_ids))
+    rows = readings.order_by("installation__motor_id", "taken_at").values_list(
+        "installation__motor_id", "capacitance_uf", "main_current_a", "aux_current_a"
+    )
+    first = {}
+    for motor_id, capacitance_uf, main_a, aux_a in rows:
+        first.setdefault(motor_id, (capacitance_uf, main_a, aux_a))
+    if not first:
+        return {"fitted": 0, "kept": 0}
+    starts = dict(
+        FittedCapacitor.objects.filter(motor_id__in=first, role="start", removed_on__isnull=True).values_list(
+            "motor_id", "part__rated_uf"
+        )
+    )
+    fitted, kept = [], 0
+    for motor in Motor.objects.filter(id__in=first):
+        capacitance_uf, main_a, aux_a = first[motor.id]
+        plate = Nameplate(
+            motor.rated_voltage_v,
+            motor.frequency_hz,
+            motor.poles,
+            motor.output_w,
+            motor.full_load_current_a,
+            motor.rated_speed_rpm,
+            motor.motor_type,
+            capacitance_uf,
+            starts.get(motor.id, 0.0),
+        )
+        estimate = estimate_parameters(plate, CommissioningReadings(main_current_a=main_a, aux_current_a=aux_a))
+        if estimate.fit_error_pct > max_error_pct:
+            kept += 1
+            continue
+        for name, value in {**circuit_fields(estimate), "circuit_source": "fitted"}.items():
+            setattr(motor, name, value)
+        fitted.append(motor)
+    if fitted:
+        Motor.objects.bulk_update(fitted, list(CIRCUIT_FIELDS))
+    return {"fitted": len(fitted), "kept": kept}
