@@ -252,7 +252,7 @@ def plan(request):
         "spares": pages.spares_needed(horizon),
         "risks": pages.risk_summary(),
     }
-    context["worse"], context["better"] = pages.risk_changes(days=7)
+    context["worse"], context["better"], context["first_assessed"] = pages.risk_changes(days=7)
     return render(request, "fleet/plan.html", context)
 
 

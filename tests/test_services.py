@@ -284,12 +284,13 @@ def test_risk_changes_compare_with_the_assessment_current_a_week_ago():
     installation = make_installation()
     quarterly_readings(installation, START, [4.0, 3.99, 3.98])
     refit_installations([installation.id])
+    assert risk_changes(days=7) == ([], [], 1)  # first assessed this week: counted apart
     Assessment.objects.filter(installation=installation).update(created_at=timezone.now() - dt.timedelta(days=10))
-    worse, better = risk_changes(days=7)
-    assert worse == [] and better == []  # nothing assessed this week
+    assert risk_changes(days=7) == ([], [], 0)  # nothing assessed this week
     quarterly_readings(installation, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
     refit_installations([installation.id])
-    worse, better = risk_changes(days=7)
+    worse, better, first = risk_changes(days=7)
+    assert first == 0
     assert [a.installation_id for a in worse] == [installation.id]
     assert worse[0].risk == "replace now" and worse[0].previous_risk != "replace now"
 

@@ -160,18 +160,23 @@ def latest_refit_run():
 
 def risk_changes(days: int = 7, limit: int = 50):
     """Capacitors whose risk level moved in the last `days`, against the assessment
-    that was current then: (worse, better) lists, worst first; one query each.
+    that was current then: (worse, better, first_assessed_count).
 
-    A capacitor first assessed in the window counts as a change from nothing.
+    Capacitors first assessed in the window have nothing to compare with; they are
+    counted apart (SQL's NULL <> risk would silently drop them otherwise).
     """
     since = timezone.now() - dt.timedelta(days=days)
     before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
         "-created_at"
     )
-    changed = (
+    recent = (
         current_assessments()
         .filter(installation__removed_on__isnull=True, created_at__gte=since)
         .annotate(previous_risk=Subquery(before.values("risk")[:1]))
+    )
+    first_assessed = recent.filter(previous_risk__isnull=True).count()
+    changed = (
+        recent.filter(previous_risk__isnull=False)
         .exclude(previous_risk=F("risk"))
         .select_related("installation__motor__site", "installation__part")
     )
@@ -180,4 +185,4 @@ def risk_changes(days: int = 7, limit: int = 50):
     for assessment in changed.order_by("replace_by")[: 4 * limit]:
         was = severity.get(assessment.previous_risk, len(RISK_ORDER))
         (worse if severity[assessment.risk] < was else better).append(assessment)
-    return worse[:limit], better[:limit]
+    return worse[:limit], better[:limit], first_assessed
