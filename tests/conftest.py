@@ -11,23 +11,9 @@ from django.utils import timezone
 
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
+from fleet.services.demo import EXAMPLE_FAN_CIRCUIT
 
 _serial = itertools.count(1)
-
-# A PSC fan motor whose circuit came from the nameplate estimator (230 V, 50 Hz,
-# 6 poles, 120 W, 0.95 A, 910 rpm, 4 uF): plausible, not a published machine.
-FAN_CIRCUIT = dict(
-    r1m_ohm=35.12,
-    x1m_ohm=8.47,
-    r1a_ohm=75.87,
-    x1a_ohm=15.23,
-    r2_ohm=56.09,
-    x2_ohm=8.47,
-    xm_ohm=296.66,
-    turns_ratio=1.34,
-    rotational_loss_w=6.0,
-    circuit_source="estimated",
-)
 
 
 def make_site(code=None, **kwargs) -> Site:
@@ -68,7 +54,7 @@ def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
         location="Cold room 1",
     )
     if with_circuit:
-        values.update(FAN_CIRCUIT)
+        values.update(EXAMPLE_FAN_CIRCUIT)
     values.update(kwargs)
     return Motor.objects.create(**values)
 

@@ -5,18 +5,9 @@ from __future__ import annotations
 from fleet.engineering.nameplate import CommissioningReadings, Nameplate, ParameterEstimate, estimate_parameters
 from fleet.models import FittedCapacitor, Motor, Reading
 
-CIRCUIT_FIELDS = (
-    "r1m_ohm",
-    "x1m_ohm",
-    "r1a_ohm",
-    "x1a_ohm",
-    "r2_ohm",
-    "x2_ohm",
-    "xm_ohm",
-    "turns_ratio",
-    "rotational_loss_w",
-    "circuit_source",
-)
+from .selectors import CIRCUIT_FIELDS
+
+CIRCUIT_MODEL_FIELDS = (*CIRCUIT_FIELDS, "circuit_source")
 NAMEPLATE_FIELDS = [
     "rated_voltage_v",
     "frequency_hz",
@@ -122,5 +113,5 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
             setattr(motor, name, value)
         fitted.append(motor)
     if fitted:
-        Motor.objects.bulk_update(fitted, list(CIRCUIT_FIELDS))
+        Motor.objects.bulk_update(fitted, list(CIRCUIT_MODEL_FIELDS))
     return {"fitted": len(fitted), "kept": kept}

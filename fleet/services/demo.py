@@ -157,6 +157,22 @@ DESIGNS = [
 
 VOLTAGE_V, FREQUENCY_HZ = 230.0, 50
 
+# The evaporator fan's circuit as the nameplate estimator gives it (230 V, 50 Hz,
+# 6 poles, 120 W, 0.95 A, 910 rpm, 4 uF): a plausible small PSC fan motor for
+# benchmarks and tests, not a published machine.
+EXAMPLE_FAN_CIRCUIT = dict(
+    r1m_ohm=35.12,
+    x1m_ohm=8.47,
+    r1a_ohm=75.87,
+    x1a_ohm=15.23,
+    r2_ohm=56.09,
+    x2_ohm=8.47,
+    xm_ohm=296.66,
+    turns_ratio=1.34,
+    rotational_loss_w=6.0,
+    circuit_source="estimated",
+)
+
 
 def ensure_users(stdout=None) -> list[tuple[str, str, str]]:
     """One user per role; returns (username, password, role) to print."""

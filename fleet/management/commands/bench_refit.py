@@ -16,20 +16,8 @@ from django.utils import timezone
 
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, RefitRun, Site
 from fleet.services.assessments import refit_installations
+from fleet.services.demo import EXAMPLE_FAN_CIRCUIT
 from fleet.services.refits import start_fleet_refit
-
-FAN_CIRCUIT = dict(
-    r1m_ohm=35.12,
-    x1m_ohm=8.47,
-    r1a_ohm=75.87,
-    x1a_ohm=15.23,
-    r2_ohm=56.09,
-    x2_ohm=8.47,
-    xm_ohm=296.66,
-    turns_ratio=1.34,
-    rotational_loss_w=6.0,
-    circuit_source="estimated",
-)
 
 
 def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
@@ -67,7 +55,7 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
                     full_load_current_a=0.95,
                     rated_speed_rpm=910,
                     route_order=i,
-                    **FAN_CIRCUIT,
+                    **EXAMPLE_FAN_CIRCUIT,
                 )
                 for i in range(capacitors)
             ],
