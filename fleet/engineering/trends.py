@@ -89,13 +89,6 @@ class TrendFit:
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(self.model == MODEL_LOG, np.log(fraction), fraction)
 
-    def from_z(self, z):
-        return np.where(self.model == MODEL_LOG, np.exp(z), z)
-
-    def predict(self, stress_hours):
-        """Fitted C/C_rated at given stress hours (broadcast per capacitor)."""
-        return self.from_z(self.intercept + self.slope_per_hour * stress_hours)
-
 
 def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings):
     """Cumulative stress-equivalent hours per reading; input sorted by group, time.
