@@ -8,8 +8,8 @@ from fleet.services import assessments, circuits, import_jobs, refits
 
 
 @shared_task(acks_late=True)
-def refit_installation(installation_id: int) -> int:
-    return assessments.refit_installations([installation_id]).written
+def refit_capacitors(installation_ids: list[int]) -> int:
+    return assessments.refit_installations(installation_ids).written
 
 
 @shared_task(acks_late=True)

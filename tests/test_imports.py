@@ -278,3 +278,17 @@ def test_a_technician_cannot_import_a_register(client, technician):
     upload.name = "register.csv"
     response = client.post(reverse("imports"), {"kind": "register", "file": upload})
     assert "cannot import a motor register" in response.content.decode()
+
+
+def test_an_import_queues_its_refits_in_chunks_not_one_task_per_capacitor(settings, django_capture_on_commit_callbacks):
+    from unittest import mock
+
+    settings.FLEET_REFIT_CHUNK_SIZE = 2
+    fleet_of(5)
+    content = csv_of(good_rows([f"IMP-{i:04d}" for i in range(5)], 2))
+    job = create_job(kind="readings", filename="five.csv", content=content, user=None)
+    with mock.patch("fleet.tasks.refit_capacitors.delay") as delay, django_capture_on_commit_callbacks(execute=True):
+        run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+    chunks = [call.args[0] for call in delay.call_args_list]
+    assert [len(c) for c in chunks] == [2, 2, 1]
+    assert sorted(i for c in chunks for i in c) == sorted(FittedCapacitor.objects.values_list("id", flat=True))

@@ -35,21 +35,21 @@ def test_saving_a_reading_queues_its_refit_after_commit(
     fan_installation, technician, django_capture_on_commit_callbacks
 ):
     with (
-        mock.patch("fleet.tasks.refit_installation.delay") as delay,
+        mock.patch("fleet.tasks.refit_capacitors.delay") as delay,
         django_capture_on_commit_callbacks(execute=True) as callbacks,
     ):
         record_reading(
             installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
         )
     assert len(callbacks) == 1
-    delay.assert_called_once_with(fan_installation.id)
+    delay.assert_called_once_with([fan_installation.id])
 
 
 def test_a_broker_that_is_down_does_not_lose_the_reading(
     fan_installation, technician, django_capture_on_commit_callbacks
 ):
     with (
-        mock.patch("fleet.tasks.refit_installation.delay", side_effect=ConnectionError("broker down")),
+        mock.patch("fleet.tasks.refit_capacitors.delay", side_effect=ConnectionError("broker down")),
         django_capture_on_commit_callbacks(execute=True),
     ):
         reading = record_reading(

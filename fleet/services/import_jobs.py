@@ -103,8 +103,7 @@ def run_job(job_id: int, mode: str) -> ImportJob | None:
     with transaction.atomic():
         if job.kind == ImportJob.Kind.READINGS:
             touched = imports.insert_readings(result.good, job.created_by)
-            for installation_id in touched:
-                transaction.on_commit(lambda i=installation_id: enqueue_refit(i))
+            transaction.on_commit(lambda: enqueue_refit(touched))
         else:
             motor_ids = imports.insert_register(result.good)
             transaction.on_commit(lambda: _estimate_later(motor_ids))

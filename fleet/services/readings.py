@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import logging
 
+from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.db import transaction
 from django.utils import timezone
@@ -26,15 +27,23 @@ class NeedsConfirmation(ValidationError):
     """The reading is far off the capacitor's trend: confirm it or re-measure."""
 
 
-def enqueue_refit(installation_id: int) -> None:
-    """Queue a refit; a broker that is down must not lose the reading (the sweep
-    picks the capacitor up later), so failures are logged, not raised."""
-    from fleet.tasks import refit_installation
+def enqueue_refit(installation_ids: list[int]) -> None:
+    """Queue refits in chunks (one bulk refit per chunk, not one task per capacitor).
 
-    try:
-        refit_installation.delay(installation_id)
-    except Exception:  # noqa: BLE001 - any broker failure: the sweep recovers it
-        log.warning("refit of capacitor %s not queued; the stale sweep will pick it up", installation_id, exc_info=True)
+    A broker that is down must not lose a reading (the stale sweep picks the
+    capacitors up later), so failures are logged, not raised.
+    """
+    from fleet.tasks import refit_capacitors
+
+    size = settings.FLEET_REFIT_CHUNK_SIZE
+    for start in range(0, len(installation_ids), size):
+        chunk = list(installation_ids[start : start + size])
+        try:
+            refit_capacitors.delay(chunk)
+        except Exception:  # noqa: BLE001 - any broker failure: the sweep recovers it
+            log.warning(
+                "refit of %d capacitors not queued; the stale sweep will pick them up", len(chunk), exc_info=True
+            )
 
 
 def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:
@@ -118,7 +127,7 @@ def record_reading(
             source=source,
             **{k: v for k, v in values.items() if k in {f.name for f in Reading._meta.fields}},
         )
-        transaction.on_commit(lambda: enqueue_refit(installation.id))
+        transaction.on_commit(lambda: enqueue_refit([installation.id]))
     return reading
 
 
