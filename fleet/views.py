@@ -27,7 +27,7 @@ from .services import pages
 from .services.import_jobs import SPECS, create_job, rejected_rows_csv
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
-from .services.refits import stale_installation_ids
+from .services.refits import stale_installations
 from .services.register import set_route_order
 from .services.workorders import issue_visit, open_visits, plan_work_orders
 from .tasks import check_import, refit_fleet, run_import
@@ -47,8 +47,9 @@ def find_motor(request):
     form = FindMotorForm(request.GET or None)
     if form.is_valid():
         tag = form.cleaned_data["tag"].strip()
-        if Motor.objects.filter(asset_tag__iexact=tag).exists():
-            return redirect("motor", asset_tag=Motor.objects.get(asset_tag__iexact=tag).asset_tag)
+        motor = Motor.objects.filter(asset_tag__iexact=tag).first()
+        if motor is not None:
+            return redirect("motor", asset_tag=motor.asset_tag)
         form.add_error("tag", f"No motor has the tag {tag!r}. Check the label, or search by site below.")
     return render(request, "fleet/find.html", {"find_form": form, "sites": Site.objects.all()})
 
@@ -225,7 +226,9 @@ def labels(request, site_code):
 @permission_required("fleet.view_assessment", raise_exception=True)
 def plan_export(request, file_format):
     """The replacement plan for the planner's own spreadsheet: CSV streamed, or XLSX."""
-    horizon = _int_param(request, "days", 90, 7, 730)
+    if file_format not in {"csv", "xlsx"}:
+        raise Http404("The plan downloads as .csv or .xlsx")
+    horizon = _int_param(request.GET, "days", 90, 7, 730)
     site = Site.objects.filter(code=request.GET.get("site")).first()
     rows = plan_rows(pages.replacement_plan(horizon, site).iterator(chunk_size=2000))
     name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}"
@@ -240,7 +243,7 @@ def plan_export(request, file_format):
 
 @permission_required("fleet.view_assessment", raise_exception=True)
 def plan(request):
-    horizon = _int_param(request, "days", 90, 7, 730)
+    horizon = _int_param(request.GET, "days", 90, 7, 730)
     site = Site.objects.filter(code=request.GET.get("site")).first()
     paginator = Paginator(pages.replacement_plan(horizon, site), 50)
     page = paginator.get_page(request.GET.get("page"))
@@ -249,24 +252,25 @@ def plan(request):
         "horizon": horizon,
         "site": site,
         "sites": Site.objects.all(),
-        "spares": pages.spares_needed(horizon),
+        "spares": pages.spares_needed(horizon, site),
         "risks": pages.risk_summary(),
     }
     context["worse"], context["better"], context["first_assessed"] = pages.risk_changes(days=7)
     return render(request, "fleet/plan.html", context)
 
 
-def _int_param(request, name, default, lowest, highest) -> int:
+def _int_param(data, name, default, lowest, highest) -> int:
+    """A whole number from GET or POST data, clamped; anything else gives the default."""
     try:
-        return max(lowest, min(highest, int(request.GET.get(name, default))))
-    except ValueError:
+        return max(lowest, min(highest, int(data.get(name) or default)))
+    except (TypeError, ValueError):
         return default
 
 
 @permission_required("fleet.view_refitrun", raise_exception=True)
 def refits(request):
     runs = RefitRun.objects.order_by("-started_at")[:10]
-    return render(request, "fleet/refits.html", {"runs": runs, "stale": len(stale_installation_ids())})
+    return render(request, "fleet/refits.html", {"runs": runs, "stale": stale_installations().count()})
 
 
 @require_POST
@@ -375,32 +379,38 @@ def life_data(request):
 
 
 def _float_param(request, name, default) -> float:
+    """A positive, finite number from the query string; anything else gives the default."""
     try:
         value = float(request.GET.get(name, default))
     except ValueError:
         return default
-    return value if value > 0 else default
+    return value if 0 < value < float("inf") else default
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)
 def work_orders(request):
     """Open work orders by site visit; planners create them from the plan and issue visits."""
     if request.method == "POST":
+        if not request.user.has_perm("fleet.add_workorder"):  # planning and issuing are the planner's
+            raise PermissionDenied
         action = request.POST.get("action")
-        if action == "plan" and request.user.has_perm("fleet.add_workorder"):
-            horizon = max(7, min(365, int(request.POST.get("days") or 90)))
+        if action == "plan":
+            horizon = _int_param(request.POST, "days", 90, 7, 365)
             counts = plan_work_orders(horizon_days=horizon, user=request.user)
             messages.success(
                 request,
                 f"{counts['created']} work orders created, {counts['replanned']} re-dated, "
                 f"in {counts['visits']} site visits.",
             )
-        elif action == "issue" and request.user.has_perm("fleet.change_workorder"):
-            day = dt.date.fromisoformat(request.POST["day"])
-            issued = issue_visit(site_id=int(request.POST["site"]), due_on=day)
-            messages.success(request, f"{issued} work orders issued to the technicians.")
-        else:
-            raise PermissionDenied
+        elif action == "issue":
+            try:
+                day = dt.date.fromisoformat(request.POST.get("day", ""))
+                site_id = int(request.POST.get("site", ""))
+            except ValueError:
+                messages.error(request, "That visit could not be found: reload the page and try again.")
+            else:
+                issued = issue_visit(site_id=site_id, due_on=day)
+                messages.success(request, f"{issued} work orders issued to the technicians.")
         return redirect("work_orders")
     return render(request, "fleet/work_orders.html", {"visits": open_visits()})
 
@@ -409,7 +419,10 @@ def work_orders(request):
 def visit_sheet(request, site_code, day):
     """A printable sheet for one site visit: the orders, the spares, the cautions."""
     site = get_object_or_404(Site, code=site_code)
-    visits = [v for v in open_visits(site.id) if v["day"].isoformat() == day]
+    try:
+        visits = open_visits(site.id, dt.date.fromisoformat(day))
+    except ValueError:
+        visits = []
     if not visits:
         raise Http404("No open work orders for that visit")
     return render(request, "fleet/visit_sheet.html", {"visit": visits[0], "site": site})

@@ -237,3 +237,38 @@ def test_plan_downloads_as_xlsx_with_formulas_defused(signed_in, planner):
     assert rows[0][:3] == ("asset_tag", "site", "location")
     assert rows[1][0] == installation.motor.asset_tag and rows[1][2] == "'=1+1"
     assert rows[1][5] == 4 and not isinstance(rows[1][5], str)  # numbers stay numbers
+
+
+def test_plan_spares_follow_the_chosen_site_and_unknown_formats_are_not_found(signed_in, planner):
+    from .conftest import make_motor, make_site
+
+    here, there = make_site(), make_site()
+    for site, part_code in ((here, "HERE-4U"), (there, "THERE-4U")):
+        installation = make_installation(motor=make_motor(site=site), part=make_part(code=part_code))
+        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+        refit_installations([installation.id])
+    client = signed_in(planner)
+    body = client.get(reverse("plan"), {"days": 365, "site": here.code}).content.decode()
+    spares = body[body.index("Spares for this window") :]
+    assert "HERE-4U" in spares and "THERE-4U" not in spares
+    assert client.get(reverse("plan_export", args=["pdf"])).status_code == 404
+
+
+def test_only_planners_issue_visits_and_bad_input_is_a_message(signed_in, planner, technician):
+    client = signed_in(planner)
+    response = client.post(reverse("work_orders"), {"action": "plan", "days": "lots"}, follow=True)
+    assert response.status_code == 200 and "work orders created" in response.content.decode()
+    response = client.post(reverse("work_orders"), {"action": "issue", "site": "x", "day": "soon"}, follow=True)
+    assert "could not be found" in response.content.decode()
+    site = make_installation().motor.site
+    day = timezone.localdate().isoformat()
+    assert (
+        signed_in(technician).post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day}).status_code
+        == 403
+    )
+
+
+def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_installation):
+    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0])
+    body = signed_in(engineer).get(reverse("refits")).content.decode()
+    assert "1 capacitor has readings newer than its assessment" in body

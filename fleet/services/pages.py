@@ -137,12 +137,11 @@ def replacement_plan(horizon_days: int = 90, site: Site | None = None):
     return queryset
 
 
-def spares_needed(horizon_days: int = 90):
-    """Parts to hold for the replacements due within the horizon, with their cost."""
-    until = timezone.localdate() + dt.timedelta(days=horizon_days)
+def spares_needed(horizon_days: int = 90, site: Site | None = None):
+    """Parts to hold for the plan's replacements (same window, same site), with their cost."""
     return (
-        current_assessments()
-        .filter(installation__removed_on__isnull=True, replace_by__lte=until)
+        replacement_plan(horizon_days, site)
+        .order_by()
         .values(
             "installation__part__code",
             "installation__part__rated_uf",

@@ -50,7 +50,7 @@ def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -
     )
 
 
-def stale_installation_ids(limit: int = 5000) -> list[int]:
+def stale_installations():
     """Capacitors in service whose newest reading is newer than their assessment.
 
     Two correlated subqueries on indexed columns (reading time, current
@@ -58,14 +58,16 @@ def stale_installation_ids(limit: int = 5000) -> list[int]:
     """
     newest = Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1]
     assessed = Assessment.objects.filter(installation=OuterRef("pk"), is_current=True).values("fitted_through")[:1]
-    return list(
+    return (
         FittedCapacitor.objects.filter(removed_on__isnull=True)
         .annotate(newest=Subquery(newest), assessed=Subquery(assessed))
         .filter(newest__isnull=False)
         .filter(Q(assessed__isnull=True) | Q(newest__gt=F("assessed")))
-        .order_by("id")
-        .values_list("id", flat=True)[:limit]
     )
+
+
+def stale_installation_ids(limit: int = 5000) -> list[int]:
+    return list(stale_installations().order_by("id").values_list("id", flat=True)[:limit])
 
 
 def sweep_stale(limit: int = 5000) -> int:

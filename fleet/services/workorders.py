@@ -79,7 +79,7 @@ def issue_visit(*, site_id: int, due_on: dt.date) -> int:
     )
 
 
-def open_visits(site_id: int | None = None):
+def open_visits(site_id: int | None = None, day: dt.date | None = None):
     """Open orders grouped into visits (site, day), soonest first, with each visit's spares."""
     orders = (
         WorkOrder.objects.filter(state__in=OPEN)
@@ -88,6 +88,8 @@ def open_visits(site_id: int | None = None):
     )
     if site_id is not None:
         orders = orders.filter(motor__site_id=site_id)
+    if day is not None:
+        orders = orders.filter(due_on=day)
     visits = []
     for (day, site), group in groupby(orders, key=lambda o: (o.due_on, o.motor.site)):
         group = list(group)
