@@ -11,7 +11,7 @@ from django.utils import timezone
 
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
-from fleet.services.demo import EXAMPLE_FAN_CIRCUIT
+from fleet.services.demo import EXAMPLE_FAN_CIRCUIT, EXAMPLE_FAN_NAMEPLATE
 
 _serial = itertools.count(1)
 
@@ -42,16 +42,8 @@ def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
     values = dict(
         asset_tag=f"M-{next(_serial):05d}",
         site=site or make_site(),
-        application="fan",
-        motor_type="permanent_split",
-        load_type="fan_law",
-        rated_voltage_v=230,
-        frequency_hz=50,
-        poles=6,
-        output_w=120,
-        full_load_current_a=0.95,
-        rated_speed_rpm=910,
         location="Cold room 1",
+        **EXAMPLE_FAN_NAMEPLATE,
     )
     if with_circuit:
         values.update(EXAMPLE_FAN_CIRCUIT)

@@ -32,6 +32,7 @@ from fleet.engineering.trends import MODEL_LOG, PartPriors, TrendSettings, cross
 from fleet.models import Assessment, FittedCapacitor, PartPrior
 
 from .selectors import (
+    CIRCUIT_FIELDS,
     companion_capacitance_frame,
     installations_frame,
     part_priors_frame,
@@ -172,10 +173,7 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
     """
     key = pd.DataFrame(
         {
-            **{
-                name: sub[name].to_numpy()
-                for name in ("r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm", "turns_ratio")
-            },
+            **{name: sub[name].to_numpy() for name in CIRCUIT_FIELDS},
             "role": role,
             "kind": kind,
             "run": run_uf,

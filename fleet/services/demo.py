@@ -160,6 +160,17 @@ VOLTAGE_V, FREQUENCY_HZ = 230.0, 50
 # The evaporator fan's circuit as the nameplate estimator gives it (230 V, 50 Hz,
 # 6 poles, 120 W, 0.95 A, 910 rpm, 4 uF): a plausible small PSC fan motor for
 # benchmarks and tests, not a published machine.
+EXAMPLE_FAN_NAMEPLATE = dict(
+    application="fan",
+    motor_type="permanent_split",
+    load_type="fan_law",
+    rated_voltage_v=230,
+    frequency_hz=50,
+    poles=6,
+    output_w=120,
+    full_load_current_a=0.95,
+    rated_speed_rpm=910,
+)
 EXAMPLE_FAN_CIRCUIT = dict(
     r1m_ohm=35.12,
     x1m_ohm=8.47,
@@ -174,7 +185,7 @@ EXAMPLE_FAN_CIRCUIT = dict(
 )
 
 
-def ensure_users(stdout=None) -> list[tuple[str, str, str]]:
+def ensure_users() -> list[tuple[str, str, str]]:
     """One user per role; returns (username, password, role) to print."""
     logins = []
     for username, first, last, role, password in DEMO_USERS:

@@ -16,7 +16,7 @@ from django.utils import timezone
 
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, RefitRun, Site
 from fleet.services.assessments import refit_installations
-from fleet.services.demo import EXAMPLE_FAN_CIRCUIT
+from fleet.services.demo import EXAMPLE_FAN_CIRCUIT, EXAMPLE_FAN_NAMEPLATE
 from fleet.services.refits import start_fleet_refit
 
 
@@ -45,16 +45,8 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
                 Motor(
                     asset_tag=f"{code}-{i:06d}",
                     site=site,
-                    application="fan",
-                    motor_type="permanent_split",
-                    load_type="fan_law",
-                    rated_voltage_v=230,
-                    frequency_hz=50,
-                    poles=6,
-                    output_w=120,
-                    full_load_current_a=0.95,
-                    rated_speed_rpm=910,
                     route_order=i,
+                    **EXAMPLE_FAN_NAMEPLATE,
                     **EXAMPLE_FAN_CIRCUIT,
                 )
                 for i in range(capacitors)
