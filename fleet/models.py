@@ -300,6 +300,9 @@ class Assessment(models.Model):
     model_version = models.CharField(max_length=20)
     fitted_through = models.DateTimeField(help_text="Time of the newest reading used")
     newest_reading = models.ForeignKey(Reading, null=True, on_delete=models.SET_NULL, related_name="+")
+    max_reading_id = models.BigIntegerField(
+        default=0, help_text="Highest reading id seen by this fit: a reading added later (even backdated) makes it stale"
+    )
     readings_used = models.PositiveIntegerField()
     readings_flagged = models.PositiveIntegerField(default=0)
     flagged_reading_ids = models.JSONField(default=list, blank=True)
@@ -316,6 +319,13 @@ class Assessment(models.Model):
     p90_on = models.DateField(null=True, blank=True)
     risk = models.CharField(max_length=20)
     replace_by = models.DateField(null=True, blank=True)
+    reason = models.CharField(max_length=300, blank=True, help_text="Why this risk level and date, in words")
+    limits = models.JSONField(
+        default=list, blank=True, help_text="Every limit evaluated: name, fraction of rated, P10/P50/P90 dates"
+    )
+    set_aside = models.CharField(
+        max_length=200, blank=True, help_text="Why no forecast could be made (e.g. a fit that is not finite)"
+    )
     figures_now = models.JSONField(default=dict, blank=True)
     figures_new = models.JSONField(default=dict, blank=True)
     trend = models.JSONField(

@@ -208,15 +208,22 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     readings = readings_frame(ids)
     usable = readings[~readings["superseded"]]
     newest = usable.groupby("installation_id")["taken_at"].max()
+    max_reading_id = readings.groupby("installation_id")["id"].max()
     inst = inst[inst["installation_id"].isin(newest.index)]
     if not force and not inst.empty:
-        current = dict(
-            Assessment.objects.filter(
-                installation_id__in=inst["installation_id"].tolist(), is_current=True, model_version=MODEL_VERSION
-            ).values_list("installation_id", "fitted_through")
+        # Stale means "a reading was added since the fit" (by id), not "a newer
+        # reading date": a backdated or late-imported reading must be used too.
+        seen = pd.Series(
+            dict(
+                Assessment.objects.filter(
+                    installation_id__in=inst["installation_id"].tolist(), is_current=True, model_version=MODEL_VERSION
+                ).values_list("installation_id", "max_reading_id")
+            ),
+            dtype="float64",
         )
-        covered = [current.get(i) is not None and current[i] >= newest[i] for i in inst["installation_id"]]
-        inst = inst[~np.array(covered, bool)]
+        seen_id = seen.reindex(inst["installation_id"]).to_numpy()
+        covered = ~np.isnan(seen_id) & (seen_id >= max_reading_id.reindex(inst["installation_id"]).to_numpy())
+        inst = inst[~covered]
     skipped = len(ids) - len(inst)
     if inst.empty:
         return RefitOutcome(written=0, skipped=skipped, readings=0)
@@ -314,6 +321,7 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
                 model_version=MODEL_VERSION,
                 fitted_through=newest_at.iloc[i].to_pydatetime(),
                 newest_reading_id=int(latest["id"].iloc[i]),
+                max_reading_id=int(max_reading_id[installation_id]),
                 readings_used=int(fit.readings_used[i]),
                 readings_flagged=int(fit.readings_flagged[i]),
                 flagged_reading_ids=[int(x) for x in flagged_by_group.get(installation_id, [])],

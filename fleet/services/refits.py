@@ -51,13 +51,13 @@ def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -
 
 
 def stale_installations():
-    """Capacitors in service whose newest reading is newer than their assessment.
+    """Capacitors in service with a reading added after their assessment was fitted.
 
-    Two correlated subqueries on indexed columns (reading time, current
+    Two correlated subqueries on indexed columns (reading id, current
     assessment), not an aggregate over readings x assessment history.
     """
-    newest = Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1]
-    assessed = Assessment.objects.filter(installation=OuterRef("pk"), is_current=True).values("fitted_through")[:1]
+    newest = Reading.objects.filter(installation=OuterRef("pk")).order_by("-id").values("id")[:1]
+    assessed = Assessment.objects.filter(installation=OuterRef("pk"), is_current=True).values("max_reading_id")[:1]
     return (
         FittedCapacitor.objects.filter(removed_on__isnull=True)
         .annotate(newest=Subquery(newest), assessed=Subquery(assessed))
