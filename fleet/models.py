@@ -301,7 +301,7 @@ class Assessment(models.Model):
     fitted_through = models.DateTimeField(help_text="Time of the newest reading used")
     newest_reading = models.ForeignKey(Reading, null=True, on_delete=models.SET_NULL, related_name="+")
     max_reading_id = models.BigIntegerField(
-        default=0, help_text="Highest reading id seen by this fit: a reading added later (even backdated) makes it stale"
+        default=0, help_text="Highest reading id seen by this fit: a reading added later makes it stale"
     )
     readings_used = models.PositiveIntegerField()
     readings_flagged = models.PositiveIntegerField(default=0)

@@ -18,7 +18,7 @@ class Migration(migrations.Migration):
         migrations.AddField(
             model_name='assessment',
             name='max_reading_id',
-            field=models.BigIntegerField(default=0, help_text='Highest reading id seen by this fit: a reading added later (even backdated) makes it stale'),
+            field=models.BigIntegerField(default=0, help_text='Highest reading id seen by this fit: a reading added later makes it stale'),
         ),
         migrations.AddField(
             model_name='assessment',
