@@ -133,6 +133,11 @@ class CapacitorPart(models.Model):
     safety_class = models.CharField(max_length=2, choices=SafetyClass.choices, blank=True)
     max_case_temperature_c = models.FloatField(default=70)
     max_dissipation_factor = models.FloatField(null=True, blank=True)
+    tempco_ppm_per_k = models.FloatField(
+        null=True,
+        blank=True,
+        help_text="Temperature coefficient, ppm/K; empty: the dielectric's default, refined from readings",
+    )
     unit_cost = models.DecimalField(max_digits=10, decimal_places=2, default=0)
 
     class Meta:
@@ -357,6 +362,7 @@ class PartPrior(models.Model):
     slope_var = models.FloatField()
     noise_var = models.FloatField()
     capacitors = models.PositiveIntegerField()
+    tempco_ppm_per_k = models.FloatField(default=0.0, help_text="Temperature coefficient used for the part, ppm/K")
     updated_at = models.DateTimeField(auto_now=True)
 
     def __str__(self):
@@ -486,3 +492,53 @@ class ImportJob(models.Model):
     @property
     def percent(self) -> int:
         return int(100 * self.done_rows / self.total_rows) if self.total_rows else 0
+
+
+class Backtest(models.Model):
+    """A forecast track record: refits at past cut-offs scored against what came after."""
+
+    class State(models.TextChoices):
+        RUNNING = "running", "Running"
+        DONE = "done", "Done"
+        FAILED = "failed", "Failed"
+
+    state = models.CharField(max_length=10, choices=State.choices, default=State.RUNNING)
+    cutoffs = models.JSONField(default=list, help_text="Cut-off dates, oldest first")
+    done_cutoffs = models.PositiveIntegerField(default=0)
+    results = models.JSONField(default=dict, blank=True, help_text="Scores per cut-off, dielectric and part")
+    message = models.TextField(blank=True)
+    started_at = models.DateTimeField(auto_now_add=True)
+    finished_at = models.DateTimeField(null=True, blank=True)
+
+    class Meta:
+        ordering = ["-started_at"]
+
+    def __str__(self):
+        return f"back-test {self.started_at:%Y-%m-%d %H:%M} ({self.state})"
+
+    @property
+    def percent(self) -> int:
+        return int(100 * self.done_cutoffs / len(self.cutoffs)) if self.cutoffs else 0
+
+
+class BandCalibration(models.Model):
+    """Calibration of forecast bands for one family of parts (a dielectric), from a back-test."""
+
+    family = models.CharField(max_length=20, unique=True)
+    slope_bias = models.FloatField()
+    slope_spread = models.FloatField()
+    capacitors = models.PositiveIntegerField(default=0)
+    residuals = models.PositiveIntegerField(default=0)
+    backtest = models.ForeignKey(Backtest, null=True, on_delete=models.SET_NULL, related_name="+")
+    updated_at = models.DateTimeField(auto_now=True)
+
+    class Meta:
+        constraints = [
+            models.CheckConstraint(
+                condition=Q(slope_spread__gte=0, slope_spread__lt=100), name="calibration_spread_sane"
+            ),
+            models.CheckConstraint(condition=Q(slope_bias__gt=-1, slope_bias__lt=100), name="calibration_bias_sane"),
+        ]
+
+    def __str__(self):
+        return f"{self.family}: bias {self.slope_bias:+.2f}, spread {self.slope_spread:.2f}"

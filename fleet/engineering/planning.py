@@ -1,16 +1,26 @@
-"""From remaining-life quantiles to a risk level and a replacement date."""
+"""From remaining-life quantiles to a risk level, a replacement date and the reason.
+
+The judgement is a pure function of the fit's results: which limit governs,
+how many days to each quantile of its crossing, the risk rule, and the reason in
+words, so the refit service only loads, calls and stores.
+"""
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 RISK_REPLACE_NOW = "replace now"
 RISK_DUE_SOON = "due soon"
 RISK_WATCH = "watch"
 RISK_SOUND = "sound"
 RISK_ORDER = (RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND)
+
+TOLERANCE_LIMIT = "tolerance"
+EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
 
 
 @dataclass(frozen=True)
@@ -20,27 +30,111 @@ class PlanningSettings:
     lead_days: float = 30.0  # replace this long before the early (P10) crossing
     due_soon_days: float = 90.0  # one quarter: the next round of readings
     watch_days: float = 365.0
+    notice_days: float = 7.0  # a planned date is never sooner than this: spares and a visit need time
+    below_limit_days: float = 14.0  # read below its limit: replace within one visit window
+    horizon_days: float = 50 * 365.0  # crossings later than this are "beyond"
 
 
-def risk_levels(days_to_p10, days_to_p50, limit_already_crossed, settings: PlanningSettings | None = None):
-    """Risk level per capacitor and days from now to its recommended replacement.
+@dataclass(frozen=True)
+class Judgement:
+    """Per capacitor: risk level, days to the replacement (inf: none planned),
+    the governing limit's index (-1: none), days to its P10/P50/P90 and the reason."""
 
-    "Replace now" needs evidence: the newest reading outside its limit, a visible
-    defect, or the fitted path (P50) already past the limit. An early crossing
-    (P10) inside the next quarter makes it "due soon" with a date P10 less the
-    lead time; P10 within a year, "watch"; beyond that, or never, "sound" (inf days).
+    risk: np.ndarray
+    due_days: np.ndarray
+    governing: np.ndarray
+    days: np.ndarray  # (3, G)
+    reason: np.ndarray
+
+
+def _month(today: dt.date, days) -> np.ndarray:
+    base = np.datetime64(today, "D")
+    offset = np.nan_to_num(np.asarray(days, float), nan=0.0, posinf=0.0).astype("int64")
+    return np.datetime_as_string(base + offset.astype("timedelta64[D]"), unit="M")
+
+
+def judge(
+    *,
+    limit_names,
+    limit_fraction,
+    limit_days,
+    fraction_now,
+    rated_uf,
+    latest_uf,
+    latest_fraction_25c,
+    evidence,
+    evidence_text,
+    today: dt.date,
+    settings: PlanningSettings | None = None,
+) -> Judgement:
+    """Judge every capacitor at once.
+
+    limit_names: L names, the first the tolerance. limit_fraction (L, G): each
+    limit as a fraction of rated capacitance, nan where not evaluated or set
+    aside. limit_days (3, L, G): days from today to the P10/P50/P90 crossing of
+    each limit (inf: never within the horizon; <= 0: already). fraction_now: the
+    fitted value now; latest_fraction_25c: the newest reading referred to 25 C.
+    evidence (G ints, EVIDENCE_*) and evidence_text: what a reading showed.
+
+    The governing limit is the highest fraction (a falling capacitance meets it
+    first). "Replace now" needs evidence: a defect seen, an open or short
+    circuit, a reading below the governing limit, a dissipation factor over its
+    maximum, or the fitted path (P50) already past the limit. An early crossing
+    (P10) within a quarter is "due soon", within a year "watch", else "sound".
     """
     settings = settings or PlanningSettings()
-    p10 = np.asarray(days_to_p10, float)
-    p50 = np.asarray(days_to_p50, float)
-    crossed = np.asarray(limit_already_crossed, bool) | (p50 <= 0)
-    level = np.select(
-        [crossed, p10 <= settings.due_soon_days, p10 <= settings.watch_days],
+    names = np.asarray(limit_names, dtype=object)
+    fractions = np.asarray(limit_fraction, float)
+    all_days = np.asarray(limit_days, float)
+    n = fractions.shape[1]
+    evaluated = np.isfinite(fractions)
+    governing = np.where(evaluated.any(axis=0), np.argmax(np.where(evaluated, fractions, -np.inf), axis=0), -1)
+    column = np.arange(n)
+    safe = np.maximum(governing, 0)
+    days = np.where(governing >= 0, all_days[:, safe, column], np.inf)
+    limit = np.where(governing >= 0, fractions[safe, column], np.nan)
+    evidence = np.asarray(evidence, int).copy()
+    below = np.asarray(latest_fraction_25c, float) < limit
+    evidence = np.where((evidence == EVIDENCE_NONE) & below, EVIDENCE_BELOW, evidence)
+    path_past = (days[1] <= 0) | (np.asarray(fraction_now, float) < limit)
+    evidence = np.where((evidence == EVIDENCE_NONE) & path_past, EVIDENCE_PATH, evidence)
+    replace_now = evidence != EVIDENCE_NONE
+    risk = np.select(
+        [replace_now, days[0] <= settings.due_soon_days, days[0] <= settings.watch_days],
         [RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH],
         default=RISK_SOUND,
     )
-    due_days = np.where(crossed, 0.0, np.maximum(p10 - settings.lead_days, 0.0))
-    return level, due_days
+    urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
+    planned = np.maximum(days[0] - settings.lead_days, np.minimum(settings.notice_days, np.maximum(days[0], 0.0)))
+    due_days = np.select(
+        [urgent, replace_now, np.isfinite(days[0]) & (days[0] <= settings.horizon_days)],
+        [0.0, np.minimum(settings.below_limit_days, np.maximum(planned, 0.0)), planned],
+        default=np.inf,
+    )
+    limit_uf = pd.Series(limit * np.asarray(rated_uf, float)).map("{:.2f}".format).to_numpy(object)
+    limit_name = np.where(governing >= 0, names[safe], "")
+    latest = pd.Series(np.asarray(latest_uf, float)).map("{:.2f}".format).to_numpy(object)
+    limit_words = "the " + limit_name + " limit (" + limit_uf + " \u00b5F)"
+    between = "trend reaches " + limit_words + " between " + _month(today, days[0]) + " and "
+    late = np.where(np.isfinite(days[2]) & (days[2] <= settings.horizon_days), _month(today, days[2]), "beyond")
+    reason = np.select(
+        [
+            np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF]),
+            evidence == EVIDENCE_BELOW,
+            evidence == EVIDENCE_PATH,
+            governing < 0,
+            np.isfinite(days[0]) & (days[0] <= settings.horizon_days),
+        ],
+        [
+            np.asarray(evidence_text, dtype=object),
+            "latest reading " + latest + " \u00b5F, below " + limit_words,
+            "fitted trend is already below " + limit_words,
+            "no limit could be evaluated",
+            between + late,
+        ],
+        default="trend stays above " + limit_words + " for the planning horizon",
+    )
+    return Judgement(risk=risk, due_days=due_days, governing=governing, days=days, reason=reason)
 
 
 def bundle_visits(site, due_day, window_days=14):

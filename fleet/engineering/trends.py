@@ -1,14 +1,22 @@
 """Degradation trends of a whole fleet of capacitors at once, and remaining life.
 
 Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
-1. Each reading's capacitance is referred to 25 C and divided by the rated value.
+1. Each reading's capacitance is referred to 25 C with its dielectric's
+   temperature coefficient (film negative, electrolytic positive; estimated per
+   part from the fleet's own readings where their temperatures spread enough,
+   shrunk towards the dielectric's default) and divided by the rated value.
 2. Time is stress-equivalent hours: the sum of calendar intervals times the
    acceleration factor of the interval's case temperature and capacitor voltage.
+   The future is projected at the long-run stress rate (the trailing year, or
+   the whole life if shorter), not the last interval's: quarterly readings
+   follow the seasons.
 3. Each capacitor's path z = b0 + b1 tau (z = C/C_rated, or its log for the
    log-linear model) is fitted as a Bayesian linear regression whose prior is its
    part's population of paths (empirical Bayes: the prior mean and spread are
    estimated from the capacitors of that part with enough readings). A capacitor
-   with one or two readings thus gets its part's slope, and says so.
+   with one or two readings thus gets its part's slope, and says so. Readings
+   are discounted with age (weight halving every `recency_half_life_h`): ageing
+   paths accelerate late in life, so the recent slope is the one to project.
 4. A stray reading (a unit slip, the wrong capacitor) is flagged when it sits more
    than `outlier_sigma` noise deviations off its capacitor's fit, and the fit is
    redone without it; one reading per capacitor per pass, two passes.
@@ -33,20 +41,40 @@ MODEL_LINEAR = "linear"
 MODEL_LOG = "log-linear"
 
 
+DIELECTRIC_FILM = "film"
+DIELECTRIC_ELECTROLYTIC = "electrolytic"
+
+
 @dataclass(frozen=True)
 class TrendSettings:
     """Constants of the ageing model; all from the primer, all adjustable."""
 
-    tempco_ppm_per_k: float = -200.0
+    # Temperature coefficients of capacitance (from memory, unverified): polypropylene
+    # film about -200 ppm/K; aluminium electrolytic rises a few percent from 25 to 85 C.
+    tempco_film_ppm_per_k: float = -200.0
+    tempco_electrolytic_ppm_per_k: float = 500.0
+    tempco_prior_sd_ppm_per_k: float = 300.0  # how far the fleet's data may move a default
     reference_temperature_c: float = 40.0
     doubling_k: float = 10.0
     voltage_exponent: float = 10.0
+    recency_half_life_h: float = 2 * 8766.0  # a reading two years older counts half
+    projection_window_h: float = 8766.0  # long-run stress rate over the trailing year
     outlier_sigma: float = 4.0
     outlier_floor_fraction: float = 0.03  # never flag a miss smaller than 3 % of rated
     noise_floor_fraction: float = 0.004  # meter resolution floor for the noise sd
     slope_prior_sd_floor: float = 2e-8  # per stress hour (0.002 % of rated per 1000 h)
     min_readings_for_confidence: int = 3
     model: str = "auto"  # "linear", "log-linear" or "auto" (per part, smaller noise)
+
+
+def default_tempco_ppm_per_k(dielectric, settings: TrendSettings | None = None) -> np.ndarray:
+    """The dielectric's default temperature coefficient, per capacitor or part."""
+    settings = settings or TrendSettings()
+    return np.where(
+        np.asarray(dielectric) == DIELECTRIC_ELECTROLYTIC,
+        settings.tempco_electrolytic_ppm_per_k,
+        settings.tempco_film_ppm_per_k,
+    ).astype(float)
 
 
 @dataclass(frozen=True)
@@ -60,6 +88,7 @@ class PartPriors:
     slope_var: np.ndarray
     noise_var: np.ndarray
     capacitors: np.ndarray  # capacitors with enough readings behind the estimate
+    tempco_ppm_per_k: np.ndarray  # temperature coefficient used for the part
 
 
 @dataclass(frozen=True)
@@ -77,8 +106,9 @@ class TrendFit:
     readings_flagged: np.ndarray
     low_confidence: np.ndarray
     stress_hours_now: np.ndarray  # tau at the newest reading
-    stress_rate: np.ndarray  # stress hours per calendar hour, recent conditions
+    stress_rate: np.ndarray  # stress hours per calendar hour, long-run mean (trailing year)
     fraction_now: np.ndarray  # fitted C/C_rated at the newest reading
+    tempco_ppm_per_k: np.ndarray  # per capacitor, the coefficient its readings were referred with
     flagged: np.ndarray  # per reading
     stress_hours: np.ndarray  # per reading
     fraction_25c: np.ndarray  # per reading, C(25 C)/C_rated
@@ -91,10 +121,15 @@ class TrendFit:
 
 
 def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings):
-    """Cumulative stress-equivalent hours per reading; input sorted by group, time.
+    """Cumulative stress-equivalent hours per reading, and each capacitor's
+    long-run stress rate; input sorted by group, time.
 
     Interval i uses the mean acceleration of its two end readings; the first
-    interval (fitting to first reading) uses the first reading's.
+    interval (fitting to first reading) uses the first reading's. The rate is
+    the stress gained over the trailing `projection_window_h` (from the last
+    reading at least that old, or from fitting): a mean over the seasons, which
+    the last quarter's interval alone is not. Factors are clipped to 1e-3..1e3 so
+    a wild reading cannot make the stress time non-finite.
     """
     factor = acceleration_factor(
         temperature_c,
@@ -104,18 +139,33 @@ def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_gro
         settings.doubling_k,
         settings.voltage_exponent,
     )
+    factor = np.clip(np.nan_to_num(factor, nan=1.0, posinf=1e3), 1e-3, 1e3)
     first = np.r_[True, group[1:] != group[:-1]]
     previous_time = np.where(first, 0.0, np.r_[0.0, time_h[:-1]])
     previous_factor = np.where(first, factor, np.r_[factor[:1], factor[:-1]])
-    increment = (time_h - previous_time) * 0.5 * (factor + previous_factor)
+    increment = np.maximum(time_h - previous_time, 0.0) * 0.5 * (factor + previous_factor)
     total = np.cumsum(increment)
     group_start = np.flatnonzero(first)
     offset = np.repeat(total[group_start] - increment[group_start], np.diff(np.r_[group_start, len(group)]))
     tau = total - offset
-    recent_rate = np.where(first, factor, 0.5 * (factor + previous_factor))
     last_index = np.r_[group_start[1:] - 1, len(group) - 1]
     rate = np.full(n_groups, 1.0)
-    rate[group[last_index]] = recent_rate[last_index]
+    if len(group):
+        t_now = np.zeros(n_groups)
+        t_now[group[last_index]] = time_h[last_index]
+        tau_now = np.zeros(n_groups)
+        tau_now[group[last_index]] = tau[last_index]
+        old_enough = time_h <= t_now[group] - settings.projection_window_h
+        anchor = np.full(n_groups, -1)
+        np.maximum.at(anchor, group, np.where(old_enough, np.arange(len(group)), -1))
+        t_anchor = np.where(anchor >= 0, time_h[np.maximum(anchor, 0)], 0.0)
+        tau_anchor = np.where(anchor >= 0, tau[np.maximum(anchor, 0)], 0.0)
+        span = t_now - t_anchor
+        with np.errstate(invalid="ignore", divide="ignore"):
+            long_run = (tau_now - tau_anchor) / span
+        last_factor = np.ones(n_groups)
+        last_factor[group[last_index]] = factor[last_index]
+        rate = np.where(span > 0, long_run, last_factor)
     return tau, rate
 
 
@@ -146,15 +196,20 @@ def fit_trends(
     settings: TrendSettings | None = None,
     excluded=None,
     priors: PartPriors | None = None,
+    tempco_ppm_per_k=None,
+    tempco_fixed=None,
 ) -> TrendFit:
     """Fit every capacitor's path at once.
 
     group, time_h, capacitance_uf, temperature_c, voltage_v, excluded: per reading
     (time_h = calendar hours since the capacitor was fitted). part, rated_uf,
-    rated_voltage_v: per capacitor. `excluded` marks readings a person already
-    set aside (superseded); they are neither fitted nor flagged. With `priors`
-    (from an earlier fleet-wide fit) the parts' populations are taken as given,
-    so a handful of capacitors can be refitted alone.
+    rated_voltage_v, tempco_ppm_per_k (its dielectric's default, or the part's
+    own), tempco_fixed (the part's coefficient is set, not to be estimated): per
+    capacitor. `excluded` marks readings a person already set aside
+    (superseded); they are neither fitted nor flagged. Readings whose value is
+    not finite or not within 5 %..300 % of rated are never fitted. With `priors`
+    (from an earlier fleet-wide fit) the parts' populations and temperature
+    coefficients are taken as given, so a handful of capacitors can be refitted alone.
     """
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
@@ -170,23 +225,38 @@ def fit_trends(
     g = group[order]
     t = np.asarray(time_h, float)[order]
     rated_uf = np.asarray(rated_uf, float)
-    fraction = (
-        normalise_to_25c(
-            np.asarray(capacitance_uf, float)[order], np.asarray(temperature_c, float)[order], settings.tempco_ppm_per_k
-        )
-        / rated_uf[g]
-    )
+    temperature = np.asarray(temperature_c, float)[order]
+    temperature = np.where(np.isfinite(temperature), temperature, np.nan)
+    raw_fraction = np.asarray(capacitance_uf, float)[order] / rated_uf[g]
     tau, rate = stress_hours(
         g,
         t,
-        np.asarray(temperature_c, float)[order],
+        temperature,
         np.asarray(voltage_v, float)[order],
         np.asarray(rated_voltage_v, float)[g],
         n_groups,
         settings,
     )
     keep = np.ones(len(g), bool) if excluded is None else ~np.asarray(excluded, bool)[order]
-    keep &= np.isfinite(fraction) & (fraction > 0)
+    keep &= np.isfinite(raw_fraction) & (raw_fraction > 0.05) & (raw_fraction < 3.0) & np.isfinite(t)
+    if priors is not None:
+        part_tempco = np.asarray(priors.tempco_ppm_per_k, float)
+    else:
+        default = np.full(n_parts, settings.tempco_film_ppm_per_k)
+        fixed = np.zeros(n_parts, bool)
+        if tempco_ppm_per_k is not None:
+            default[part] = np.asarray(tempco_ppm_per_k, float)
+        if tempco_fixed is not None:
+            fixed[part] = np.asarray(tempco_fixed, bool)
+        part_tempco = _estimate_tempco(
+            g, part, tau, raw_fraction, temperature, keep, n_groups, n_parts, default, fixed, settings
+        )
+    capacitor_tempco = part_tempco[part] if n_groups else np.zeros(0)
+    fraction = normalise_to_25c(raw_fraction, temperature, capacitor_tempco[g])
+    last_time = np.zeros(n_groups)
+    if len(g):
+        last_time[g] = t  # sorted by time within each group: the last write is the newest
+    recency = np.exp2(-np.maximum(last_time[g] - t, 0.0) / settings.recency_half_life_h)
 
     fits = {}
     wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}
@@ -195,7 +265,7 @@ def fit_trends(
             continue
         z = np.log(np.where(fraction > 0, fraction, np.nan)) if model == MODEL_LOG else fraction
         fits[model] = _fit_model(
-            g, part, tau, z, fraction, keep, n_groups, n_parts, settings, model == MODEL_LOG, priors
+            g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, model == MODEL_LOG, priors
         )
     if priors is not None:
         chosen = np.asarray(priors.model)
@@ -239,6 +309,7 @@ def fit_trends(
         stress_hours_now=tau_now,
         stress_rate=rate,
         fraction_now=fraction_now,
+        tempco_ppm_per_k=capacitor_tempco,
         flagged=flagged[inverse],
         stress_hours=tau[inverse],
         fraction_25c=fraction[inverse],
@@ -248,25 +319,31 @@ def fit_trends(
                 name: pick(name, "part")
                 for name in ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "capacitors")
             },
+            tempco_ppm_per_k=part_tempco,
         ),
     )
 
 
-def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_log, priors=None):
-    """One model (linear or log-linear) for the fleet: prior, posterior, flags."""
+def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, is_log, priors=None):
+    """One model (linear or log-linear) for the fleet: prior, posterior, flags.
+
+    A reading of recency weight w counts as one of variance sigma^2 / w
+    (weighted least squares), in the population estimates and the posterior alike.
+    """
     flagged = np.zeros(len(g), bool)
     floor_z = settings.outlier_floor_fraction
     for _ in range(3):  # fit, flag, refit, flag, final fit
         used = keep & ~flagged & np.isfinite(z)
-        w = used.astype(float)
+        w = np.where(used, recency, 0.0)
+        count = np.bincount(g, weights=used.astype(float), minlength=n_groups)
         z_safe = np.where(used, z, 0.0)
         n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
         b0_ols, b1_ols, sxx_c = _ols(n, sx, sz, sxx, sxz)
-        rich = (n >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
-        # Noise per part from within-capacitor OLS residuals of the rich capacitors.
+        rich = (count >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
+        # Noise per part from within-capacitor WLS residuals of the rich capacitors.
         resid = np.where(used & rich[g], z_safe - (b0_ols[g] + b1_ols[g] * tau), 0.0)
-        ss = np.bincount(part[g], weights=resid**2, minlength=n_parts)
-        dof = np.bincount(part, weights=np.where(rich, n - 2, 0.0), minlength=n_parts)
+        ss = np.bincount(part[g], weights=w * resid**2, minlength=n_parts)
+        dof = np.bincount(part, weights=np.where(rich, count - 2, 0.0), minlength=n_parts)
         fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
         with np.errstate(invalid="ignore", divide="ignore"):
             raw_noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
@@ -315,7 +392,7 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         # Flag the worst reading of each capacitor if it is far off its path.
         miss = np.where(used, np.abs(z_safe - (b0[g] + b1[g] * tau)), 0.0)
         miss_fraction = np.exp(np.abs(miss)) - 1.0 if is_log else miss
-        limit = np.maximum(settings.outlier_sigma * np.sqrt(s2[g]), floor_z)
+        limit = np.maximum(settings.outlier_sigma * np.sqrt(s2[g] / np.maximum(recency, 1e-6)), floor_z)
         candidate = (miss > limit) & (miss_fraction > floor_z)
         worst = np.full(n_groups, -1.0)
         np.maximum.at(worst, g, np.where(candidate, miss, -1.0))
@@ -343,6 +420,47 @@ def _fit_model(g, part, tau, z, fraction, keep, n_groups, n_parts, settings, is_
         if priors is None
         else np.asarray(priors.capacitors),
     }
+
+
+def _estimate_tempco(g, part, tau, raw_fraction, temperature, keep, n_groups, n_parts, default_ppm, fixed, settings):
+    """Each part's temperature coefficient from its capacitors' own readings.
+
+    Within each capacitor, the measured fraction and the temperature (minus
+    25 C) are both detrended against stress time (Frisch-Waugh); the pooled
+    regression of one residual on the other gives the part's coefficient and
+    its standard error. It is then shrunk towards the dielectric's default
+    (prior sd `tempco_prior_sd_ppm_per_k`), so a part whose readings were all
+    taken at one temperature keeps its default. Parts marked fixed keep theirs.
+    """
+    delta_t = temperature - 25.0
+    ok = keep & np.isfinite(delta_t) & (raw_fraction > 0.5) & (raw_fraction < 1.5)
+    w = ok.astype(float)
+    count = np.bincount(g, weights=w, minlength=n_groups)
+
+    def detrended(values):
+        safe = np.where(ok, values, 0.0)
+        n, sx, sy, sxx, sxy = _group_sums(g, tau, safe, w, n_groups)
+        b0, b1, sxx_c = _ols(n, sx, sy, sxx, sxy)
+        good = ok & (count[g] >= 4) & (sxx_c[g] > 1e-9 * np.maximum(sxx[g], 1.0))
+        return np.where(good, safe - b0[g] - b1[g] * tau, 0.0), good
+
+    residual_c, good = detrended(raw_fraction)
+    residual_t, _ = detrended(delta_t)
+    part_of = part[g]
+    sum_tt = np.bincount(part_of, weights=residual_t**2, minlength=n_parts)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        k_hat = np.bincount(part_of, weights=residual_c * residual_t, minlength=n_parts) / sum_tt
+        rich = np.bincount(g, weights=good.astype(float), minlength=n_groups) >= 4
+        dof = np.bincount(part, weights=np.where(rich, count - 2.0, 0.0), minlength=n_parts) - 1.0
+        scatter = residual_c - np.nan_to_num(k_hat)[part_of] * residual_t
+        noise_var = np.bincount(part_of, weights=np.where(good, scatter**2, 0.0), minlength=n_parts) / dof
+        se_var = noise_var / sum_tt
+    prior_mean = default_ppm * 1e-6
+    prior_var = (settings.tempco_prior_sd_ppm_per_k * 1e-6) ** 2
+    usable = np.isfinite(k_hat) & np.isfinite(se_var) & (se_var > 0) & (dof >= 10)
+    se_var = np.where(usable, se_var, 1.0)
+    posterior = (np.where(usable, k_hat, 0.0) / se_var + prior_mean / prior_var) / (1.0 / se_var + 1.0 / prior_var)
+    return np.where(fixed | ~usable, default_ppm, posterior * 1e6)
 
 
 def _part_moments(part, n_parts, estimate, sampling_var, rich, floor, default_mean, default_var):

@@ -18,7 +18,14 @@ import pandas as pd
 from django.db import transaction
 from django.utils import timezone
 
-from fleet.engineering.capacitor import VERDICT_LOW, VERDICT_NAMES, VERDICT_OPEN, tolerance_verdict
+from fleet.engineering.calibration import CalibrationSettings, calibrated
+from fleet.engineering.capacitor import (
+    VERDICT_NAMES,
+    VERDICT_OPEN,
+    VERDICT_SHORT,
+    dissipation_factor_from_esr,
+    tolerance_verdict,
+)
 from fleet.engineering.drift import LIMIT_NAMES, ROLE_RUN, capacitance_limits, has_run_capacitor, operating_figures
 from fleet.engineering.motor import (
     LOAD_CONSTANT,
@@ -27,9 +34,26 @@ from fleet.engineering.motor import (
     load_matching_rated_slip,
     synchronous_speed_rad_s,
 )
-from fleet.engineering.planning import risk_levels
-from fleet.engineering.trends import MODEL_LOG, PartPriors, TrendSettings, crossing_quantiles, fit_trends
-from fleet.models import Assessment, FittedCapacitor, PartPrior
+from fleet.engineering.planning import (
+    EVIDENCE_DEFECT,
+    EVIDENCE_DF,
+    EVIDENCE_NONE,
+    EVIDENCE_OPEN_OR_SHORT,
+    TOLERANCE_LIMIT,
+    Judgement,
+    PlanningSettings,
+    judge,
+)
+from fleet.engineering.trends import (
+    MODEL_LOG,
+    PartPriors,
+    TrendFit,
+    TrendSettings,
+    crossing_quantiles,
+    default_tempco_ppm_per_k,
+    fit_trends,
+)
+from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior
 
 from .selectors import (
     CIRCUIT_FIELDS,
@@ -39,9 +63,9 @@ from .selectors import (
     readings_frame,
 )
 
-MODEL_VERSION = "trend-1"
-TOLERANCE_LIMIT = "tolerance"
-HORIZON_DAYS = 50 * 365
+MODEL_VERSION = "trend-2"
+ALL_LIMITS = (TOLERANCE_LIMIT, *LIMIT_NAMES)
+VOLTAGE_DISAGREEMENT = 0.15  # estimated vs measured capacitor voltage, relative
 
 
 @dataclass(frozen=True)
@@ -58,11 +82,13 @@ def _hours_since_fitting(readings: pd.DataFrame, fitted_on: np.ndarray) -> np.nd
     return (taken - fitted) / np.timedelta64(1, "h")
 
 
-def _fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors | None, part_ids):
-    """Run the trend fit on frames; returns the fit and the per-reading order used."""
+def fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors | None, part_ids) -> TrendFit:
+    """Run the trend fit on frames (inst indexed by installation id)."""
     group = inst.index.get_indexer(readings["installation_id"])
     part_index = pd.Index(part_ids).get_indexer(inst["part_id"])
     fitted_on = inst["fitted_on"].to_numpy()[group]
+    settings = TrendSettings()
+    own_tempco = inst["part_tempco_ppm_per_k"].to_numpy(float)
     return fit_trends(
         group=group,
         part=part_index,
@@ -72,10 +98,33 @@ def _fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors |
         temperature_c=readings["case_temperature_c"].to_numpy(float),
         voltage_v=readings["capacitor_voltage_v"].to_numpy(float),
         rated_voltage_v=inst["part_rated_voltage_v"].to_numpy(float),
-        settings=TrendSettings(),
+        settings=settings,
         excluded=readings["superseded"].to_numpy(bool),
         priors=priors,
+        tempco_ppm_per_k=np.where(
+            np.isnan(own_tempco), default_tempco_ppm_per_k(inst["dielectric"].to_numpy(), settings), own_tempco
+        ),
+        tempco_fixed=~np.isnan(own_tempco),
     )
+
+
+def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
+    """Part priors to store; a part whose estimate is not finite is left out (and
+    keeps its previous prior), so one absurd capacitor can never poison the rest."""
+    priors = fit.priors
+    names = ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "tempco_ppm_per_k")
+    values = np.stack([np.asarray(getattr(priors, name), float) for name in names])
+    finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
+    return [
+        PartPrior(
+            part_id=int(part_id),
+            trend_model=str(priors.model[i]),
+            capacitors=int(priors.capacitors[i]),
+            **{name: float(values[k, i]) for k, name in enumerate(names)},
+        )
+        for i, part_id in enumerate(parts)
+        if finite[i]
+    ]
 
 
 def refresh_part_priors(part_ids=None) -> int:
@@ -90,22 +139,9 @@ def refresh_part_priors(part_ids=None) -> int:
     inst = installations_frame(ids).set_index("installation_id", drop=False)
     readings = readings_frame(ids)
     parts = np.sort(inst["part_id"].unique())
-    fit = _fit_frames(inst, readings, None, parts)
-    rows = [
-        PartPrior(
-            part_id=int(part_id),
-            trend_model=str(fit.priors.model[i]),
-            intercept_mean=float(fit.priors.intercept_mean[i]),
-            intercept_var=float(fit.priors.intercept_var[i]),
-            slope_mean=float(fit.priors.slope_mean[i]),
-            slope_var=float(fit.priors.slope_var[i]),
-            noise_var=float(fit.priors.noise_var[i]),
-            capacitors=int(fit.priors.capacitors[i]),
-        )
-        for i, part_id in enumerate(parts)
-    ]
+    rows = _finite_prior_rows(fit_frames(inst, readings, None, parts), parts)
     with transaction.atomic():
-        PartPrior.objects.filter(part_id__in=parts.tolist()).delete()
+        PartPrior.objects.filter(part_id__in=[row.part_id for row in rows]).delete()
         PartPrior.objects.bulk_create(rows)
     return len(rows)
 
@@ -116,7 +152,10 @@ def _stored_priors(part_ids) -> PartPriors:
     if missing:
         refresh_part_priors(missing)
         frame = part_priors_frame(part_ids)
-    frame = frame.loc[list(part_ids)]
+    frame = frame.reindex(list(part_ids))
+    defaults = {"trend_model": "linear", "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
+    defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
+    frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
         model=frame["trend_model"].to_numpy(),
         intercept_mean=frame["intercept_mean"].to_numpy(float),
@@ -125,7 +164,16 @@ def _stored_priors(part_ids) -> PartPriors:
         slope_var=frame["slope_var"].to_numpy(float),
         noise_var=frame["noise_var"].to_numpy(float),
         capacitors=frame["capacitors"].to_numpy(int),
+        tempco_ppm_per_k=frame["tempco_ppm_per_k"].to_numpy(float),
     )
+
+
+def stored_calibration() -> dict[str, tuple[float, float]]:
+    """(slope bias, slope spread) per dielectric, from the latest back-test."""
+    return {
+        family: (bias, spread)
+        for family, bias, spread in BandCalibration.objects.values_list("family", "slope_bias", "slope_spread")
+    }
 
 
 def _motor_circuits(inst: pd.DataFrame):
@@ -197,7 +245,193 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
         sub["part_rated_voltage_v"].to_numpy(float)[first],
     )
     # ngroup numbers designs 0..k-1 and `first` lists them in that order.
-    return limits.governing_fraction[design], limits.governing_limit[design]
+    return limits.fractions[:, design]
+
+
+@dataclass(frozen=True)
+class Assessed:
+    """A batch judged: every figure an assessment row or a back-test needs, per
+    capacitor in the order of `inst` (indexed by installation id)."""
+
+    inst: pd.DataFrame
+    fit: TrendFit
+    judgement: Judgement
+    limit_fraction: np.ndarray  # (L, G) as evaluated, nan where not applicable
+    limit_used: np.ndarray  # (L, G) False where set aside (note says why)
+    limit_notes: np.ndarray  # (L, G) text
+    limit_days: np.ndarray  # (3, L, G) days from `now` to P10/P50/P90
+    latest: pd.DataFrame  # newest usable reading per capacitor
+    latest_fraction_25c: np.ndarray
+    verdict_code: np.ndarray
+    newest_at: pd.Series
+    set_aside: np.ndarray
+    figures_now: list
+    figures_new: list
+
+
+def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
+    """Median of each capacitor's last four measured capacitor voltages (nan if none)."""
+    measured = readings[readings["capacitor_voltage_v"].notna() & ~readings["superseded"]]
+    recent = measured.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(4)
+    return recent.groupby("installation_id")["capacitor_voltage_v"].median().reindex(index).to_numpy(float)
+
+
+def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
+    """What the newest reading itself shows, strongest first, with its words."""
+    condition = latest["condition"].fillna("sound").to_numpy(object)
+    capacitance = latest["capacitance_uf"].to_numpy(float)
+    dissipation = dissipation_factor_from_esr(
+        latest["esr_ohm"].to_numpy(float), capacitance, inst["frequency_hz"].to_numpy(float)
+    )
+    max_df = inst["max_dissipation_factor"].to_numpy(float)
+    with np.errstate(invalid="ignore"):
+        df_high = np.isfinite(dissipation) & np.isfinite(max_df) & (dissipation > max_df)
+    open_or_short = np.isin(verdict_code, [VERDICT_OPEN, VERDICT_SHORT])
+    defect = condition != "sound"
+    evidence = np.select(
+        [defect, open_or_short, df_high], [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF], EVIDENCE_NONE
+    )
+    uf = pd.Series(capacitance).map("{:.2f}".format).to_numpy(object)
+    verdict_words = np.array([VERDICT_NAMES[int(code)] for code in np.unique(verdict_code)], dtype=object)
+    verdict_words = verdict_words[np.searchsorted(np.unique(verdict_code), verdict_code)] if len(verdict_code) else []
+    df_pct = pd.Series(100 * dissipation).map("{:.1f}".format).to_numpy(object)
+    max_pct = pd.Series(100 * max_df).map("{:.1f}".format).to_numpy(object)
+    text = np.select(
+        [defect, open_or_short, df_high],
+        [
+            "latest reading found the capacitor " + condition.astype(str),
+            verdict_words + ": latest reading " + uf + " \u00b5F",
+            "dissipation factor " + df_pct + " %, above the part's " + max_pct + " % maximum",
+        ],
+        "",
+    )
+    return evidence, text
+
+
+def assess(
+    inst: pd.DataFrame,
+    readings: pd.DataFrame,
+    *,
+    priors: PartPriors | None,
+    calibration: dict[str, tuple[float, float]],
+    now: dt.datetime,
+) -> Assessed:
+    """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
+
+    The refit stores the result; the back-test calls it with the readings known
+    at a past cut-off (and `now` = the cut-off) and scores it against later ones.
+    """
+    part_ids = np.sort(inst["part_id"].unique())
+    fit = fit_frames(inst, readings, priors, part_ids)
+    n = len(inst)
+    rated_uf = inst["rated_uf"].to_numpy(float)
+    limit_fraction = np.full((len(ALL_LIMITS), n), np.nan)
+    limit_fraction[0] = 1.0 - inst["tolerance_minus_pct"].to_numpy(float) / 100.0
+    limit_used = np.isfinite(limit_fraction)
+    notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
+    figures_now: list = [{} for _ in range(n)]
+    figures_new: list = [{} for _ in range(n)]
+    with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
+    if with_circuit.any():
+        role = inst["role"].to_numpy()[with_circuit]
+        index = np.flatnonzero(with_circuit)
+        drift = _limits_per_design(inst[with_circuit], circuit, load, kind, role, run_uf, start_uf)
+        scale = np.nan_to_num(fit.fraction_now[index], nan=1.0)
+        is_run = role == ROLE_RUN
+        now_figures = operating_figures(
+            circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
+        )
+        predicted_v = np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v)
+        measured_v = _latest_capacitor_voltage(readings, inst.index[index])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            disagree = np.isfinite(measured_v) & (np.abs(predicted_v / measured_v - 1.0) > VOLTAGE_DISAGREEMENT)
+        at_rated = np.nan_to_num(drift, nan=0.0) >= 0.999
+        limit_fraction[1:, index] = drift
+        limit_used[1:, index] = np.isfinite(drift) & ~at_rated & ~disagree
+        voltage_note = (
+            "estimated capacitor voltage "
+            + pd.Series(predicted_v).map("{:.0f}".format).to_numpy(object)
+            + " V, measured "
+            + pd.Series(measured_v).map("{:.0f}".format).to_numpy(object)
+            + " V: the motor's estimated circuit disagrees with the readings; limit not used"
+        )
+        notes[1:, index] = np.where(
+            at_rated,
+            "already breached at rated capacitance: a design or data finding, not wear; limit not used",
+            np.where(disagree & np.isfinite(drift), voltage_note, ""),
+        )
+        for position, row_now, row_new in zip(
+            index,
+            now_figures.as_rows(),
+            operating_figures(circuit, load, run_uf, start_uf, kind).as_rows(),
+            strict=True,
+        ):
+            figures_now[position], figures_new[position] = row_now, row_new
+
+    finite = (
+        np.isfinite(fit.intercept)
+        & np.isfinite(fit.slope_per_hour)
+        & np.isfinite(fit.covariance).all(axis=(1, 2))
+        & np.isfinite(fit.fraction_now)
+        & (fit.stress_rate > 0)
+        & np.isfinite(fit.stress_rate)
+        & (fit.readings_used > 0)
+    )
+    set_aside = np.where(finite, "", "no usable trend: the readings give no finite fit; check them")
+    dielectric = inst["dielectric"].to_numpy()
+    bias = np.array([calibration.get(d, (0.0, None))[0] for d in dielectric], float)
+    spread = np.array([calibration.get(d, (None, None))[1] for d in dielectric], dtype=float)
+    projected = calibrated(fit, bias, np.where(np.isnan(spread), CalibrationSettings().default_spread, spread))
+    newest_at = pd.to_datetime(readings[~readings["superseded"]].groupby("installation_id")["taken_at"].max(), utc=True)
+    newest_at = newest_at.reindex(inst.index)
+    elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
+    effective = np.where(limit_used, limit_fraction, np.nan)
+    quantiles = np.stack([crossing_quantiles(projected, effective[k]) for k in range(len(ALL_LIMITS))], axis=1)
+    with np.errstate(invalid="ignore", over="ignore"):
+        limit_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
+    limit_days = np.where(finite & np.isfinite(effective), limit_days, np.inf)
+    limit_days = np.where(np.isnan(limit_days), np.inf, limit_days)
+
+    usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
+    latest = usable.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(1)
+    latest = latest.set_index("installation_id").reindex(inst.index)
+    latest_fraction = fit.fraction_25c[latest["position"].to_numpy(int)]
+    verdict = tolerance_verdict(
+        latest["capacitance_uf"].to_numpy(float),
+        rated_uf,
+        inst["tolerance_minus_pct"].to_numpy(float),
+        inst["tolerance_plus_pct"].to_numpy(float),
+    )
+    evidence, evidence_text = _evidence(latest, verdict.code, inst)
+    judgement = judge(
+        limit_names=ALL_LIMITS,
+        limit_fraction=np.where(limit_used & finite, limit_fraction, np.nan),
+        limit_days=limit_days,
+        fraction_now=np.where(finite, fit.fraction_now, np.inf),
+        rated_uf=rated_uf,
+        latest_uf=latest_fraction * rated_uf,
+        latest_fraction_25c=latest_fraction,
+        evidence=evidence,
+        evidence_text=evidence_text,
+        today=now.date(),
+        settings=PlanningSettings(),
+    )
+    return Assessed(
+        inst=inst,
+        fit=fit,
+        judgement=judgement,
+        limit_fraction=limit_fraction,
+        limit_used=limit_used,
+        limit_notes=notes,
+        limit_days=limit_days,
+        latest=latest,
+        latest_fraction_25c=latest_fraction,
+        verdict_code=verdict.code,
+        newest_at=newest_at,
+        set_aside=set_aside,
+        figures_now=figures_now,
+        figures_new=figures_new,
+    )
 
 
 def refit_installations(installation_ids, *, now: dt.datetime | None = None, force: bool = False) -> RefitOutcome:
@@ -207,9 +441,8 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     inst = installations_frame(ids)
     readings = readings_frame(ids)
     usable = readings[~readings["superseded"]]
-    newest = usable.groupby("installation_id")["taken_at"].max()
     max_reading_id = readings.groupby("installation_id")["id"].max()
-    inst = inst[inst["installation_id"].isin(newest.index)]
+    inst = inst[inst["installation_id"].isin(usable["installation_id"].unique())]
     if not force and not inst.empty:
         # Stale means "a reading was added since the fit" (by id), not "a newer
         # reading date": a backdated or late-imported reading must be used too.
@@ -230,120 +463,120 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     inst = inst.set_index("installation_id", drop=False)
     readings = readings[readings["installation_id"].isin(inst.index)].reset_index(drop=True)
     part_ids = np.sort(inst["part_id"].unique())
-    fit = _fit_frames(inst, readings, _stored_priors(part_ids.tolist()), part_ids)
+    result = assess(inst, readings, priors=_stored_priors(part_ids.tolist()), calibration=stored_calibration(), now=now)
+    rows = _assessment_rows(result, readings, max_reading_id, now.date())
+    with transaction.atomic():
+        Assessment.objects.filter(installation_id__in=inst.index.tolist(), is_current=True).update(is_current=False)
+        Assessment.objects.bulk_create(rows)
+    return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
 
+
+def _finite_or_none(value):
+    value = float(value)
+    return value if np.isfinite(value) else None
+
+
+def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: pd.Series, today: dt.date):
+    """Assessment rows from a judged batch; non-finite numbers never reach the database."""
+    fit, judgement, inst = result.fit, result.judgement, result.inst
+    horizon = PlanningSettings().horizon_days
     rated_uf = inst["rated_uf"].to_numpy(float)
-    tolerance_fraction = 1.0 - inst["tolerance_minus_pct"].to_numpy(float) / 100.0
-    limit_fraction = tolerance_fraction.copy()
-    limit_source = np.full(len(inst), TOLERANCE_LIMIT, dtype=object)
-    figures_now = [{} for _ in range(len(inst))]
-    figures_new = [{} for _ in range(len(inst))]
-    with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
-    if with_circuit.any():
-        role = inst["role"].to_numpy()[with_circuit]
-        drift_fraction, governing_limit = _limits_per_design(
-            inst[with_circuit], circuit, load, kind, role, run_uf, start_uf
-        )
-        index = np.flatnonzero(with_circuit)
-        stricter = np.nan_to_num(drift_fraction, nan=-1.0) > limit_fraction[index]
-        limit_fraction[index] = np.where(stricter, drift_fraction, limit_fraction[index])
-        names = np.array(LIMIT_NAMES, dtype=object)[np.clip(governing_limit, 0, None)]
-        limit_source[index] = np.where(stricter, names, limit_source[index])
-        scale = fit.fraction_now[index]
-        is_run = role == ROLE_RUN
-        now_rows = operating_figures(
-            circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
-        ).as_rows()
-        new_rows = operating_figures(circuit, load, run_uf, start_uf, kind).as_rows()
-        for position, row_now, row_new in zip(index, now_rows, new_rows, strict=True):
-            figures_now[position], figures_new[position] = row_now, row_new
 
-    quantiles = crossing_quantiles(fit, limit_fraction)
-    newest_at = pd.to_datetime(newest.reindex(inst.index), utc=True)
-    elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
-    with np.errstate(invalid="ignore"):
-        days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
+    def day(offset):
+        """A date from a day offset; None past the planning horizon (shown as "beyond")."""
+        offset = float(offset)
+        return today + dt.timedelta(days=max(offset, 0.0)) if np.isfinite(offset) and offset <= horizon else None
 
-    latest = usable[usable["installation_id"].isin(inst.index)].sort_values(["installation_id", "taken_at", "id"])
-    latest = latest.groupby("installation_id").tail(1).set_index("installation_id").reindex(inst.index)
-    verdict = tolerance_verdict(
-        latest["capacitance_uf"].to_numpy(float),
-        rated_uf,
-        inst["tolerance_minus_pct"].to_numpy(float),
-        inst["tolerance_plus_pct"].to_numpy(float),
-    )
-    crossed = (
-        np.isin(verdict.code, [VERDICT_LOW, VERDICT_OPEN])
-        | (latest["condition"].to_numpy() != "sound")
-        | (fit.fraction_now < limit_fraction)
-    )
-    risk, due_days = risk_levels(days[0], days[1], crossed)
-    today = now.date()
     reading_ids = readings["id"].to_numpy()
     flagged_by_group = (
         pd.Series(reading_ids[fit.flagged]).groupby(readings["installation_id"].to_numpy()[fit.flagged]).apply(list)
     )
-    slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
-
-    def day(offset):
-        """A date from a day offset; None past the planning horizon (shown as "beyond")."""
-        return today + dt.timedelta(days=float(offset)) if offset <= HORIZON_DAYS else None
-
     group_of_reading = inst.index.get_indexer(readings["installation_id"])
     stress_points = (
         pd.DataFrame({"group": group_of_reading, "id": reading_ids, "tau": np.round(fit.stress_hours, 1)})
         .groupby("group")[["id", "tau"]]
         .apply(lambda frame: frame.to_numpy().tolist())
     )
-
-    def trend_record(i):
-        return {
-            "model": str(fit.model[i]),
-            "intercept": float(fit.intercept[i]),
-            "slope_per_hour": float(fit.slope_per_hour[i]),
-            "covariance": [
-                float(fit.covariance[i, 0, 0]),
-                float(fit.covariance[i, 0, 1]),
-                float(fit.covariance[i, 1, 1]),
-            ],
-            "noise_sd": float(fit.noise_sd[i]),
-            "stress_hours_now": float(fit.stress_hours_now[i]),
-            "stress_rate": float(fit.stress_rate[i]),
-            "rated_uf": float(rated_uf[i]),
-            "points": [[int(r), float(t)] for r, t in stress_points.get(i, [])],
-        }
-
+    slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
+    governing = judgement.governing
     rows = []
     for i, installation_id in enumerate(inst.index):
+        aside = bool(result.set_aside[i])
+        limits = [
+            {
+                "name": name,
+                "fraction_of_rated": _finite_or_none(result.limit_fraction[k, i]),
+                "used": bool(result.limit_used[k, i]),
+                "note": str(result.limit_notes[k, i]),
+                "p10_on": _iso(day(result.limit_days[0, k, i])),
+                "p50_on": _iso(day(result.limit_days[1, k, i])),
+                "p90_on": _iso(day(result.limit_days[2, k, i])),
+            }
+            for k, name in enumerate(ALL_LIMITS)
+            if k == 0 or np.isfinite(result.limit_fraction[k, i])
+        ]
+        trend = (
+            {}
+            if aside
+            else {
+                "model": str(fit.model[i]),
+                "intercept": float(fit.intercept[i]),
+                "slope_per_hour": float(fit.slope_per_hour[i]),
+                "covariance": [
+                    float(fit.covariance[i, 0, 0]),
+                    float(fit.covariance[i, 0, 1]),
+                    float(fit.covariance[i, 1, 1]),
+                ],
+                "noise_sd": float(fit.noise_sd[i]),
+                "stress_hours_now": float(fit.stress_hours_now[i]),
+                "stress_rate": float(fit.stress_rate[i]),
+                "tempco_ppm_per_k": float(fit.tempco_ppm_per_k[i]),
+                "rated_uf": float(rated_uf[i]),
+                "points": [[int(r), float(t)] for r, t in stress_points.get(i, [])],
+            }
+        )
+        g = int(governing[i])
         rows.append(
             Assessment(
                 installation_id=int(installation_id),
                 model_version=MODEL_VERSION,
-                fitted_through=newest_at.iloc[i].to_pydatetime(),
-                newest_reading_id=int(latest["id"].iloc[i]),
+                fitted_through=result.newest_at.iloc[i].to_pydatetime(),
+                newest_reading_id=int(result.latest["id"].iloc[i]),
                 max_reading_id=int(max_reading_id[installation_id]),
                 readings_used=int(fit.readings_used[i]),
                 readings_flagged=int(fit.readings_flagged[i]),
                 flagged_reading_ids=[int(x) for x in flagged_by_group.get(installation_id, [])],
                 trend_model=str(fit.model[i]),
-                slope_pct_per_1000h=float(fit.slope_per_hour[i] * slope_scale[i]),
-                slope_sd_pct_per_1000h=float(fit.slope_sd[i] * slope_scale[i]),
-                low_confidence=bool(fit.low_confidence[i]),
-                capacitance_now_uf=float(fit.fraction_now[i] * rated_uf[i]),
-                latest_verdict=VERDICT_NAMES[int(verdict.code[i])],
-                limit_fraction=float(limit_fraction[i]),
-                limit_source=str(limit_source[i]),
-                p10_on=day(max(days[0, i], 0.0)),
-                p50_on=day(max(days[1, i], 0.0)),
-                p90_on=day(max(days[2, i], 0.0)),
-                risk=str(risk[i]),
-                replace_by=day(due_days[i]),
-                figures_now=figures_now[i],
-                figures_new=figures_new[i],
-                trend=trend_record(i),
+                slope_pct_per_1000h=0.0 if aside else float(fit.slope_per_hour[i] * slope_scale[i]),
+                slope_sd_pct_per_1000h=0.0 if aside else float(fit.slope_sd[i] * slope_scale[i]),
+                low_confidence=bool(fit.low_confidence[i]) or aside,
+                capacitance_now_uf=float(
+                    (result.latest_fraction_25c[i] if aside else fit.fraction_now[i]) * rated_uf[i]
+                )
+                if np.isfinite(result.latest_fraction_25c[i]) or not aside
+                else 0.0,
+                latest_verdict=VERDICT_NAMES[int(result.verdict_code[i])],
+                limit_fraction=float(result.limit_fraction[max(g, 0), i])
+                if g >= 0
+                else float(result.limit_fraction[0, i]),
+                limit_source=ALL_LIMITS[g] if g >= 0 else TOLERANCE_LIMIT,
+                p10_on=day(judgement.days[0, i]),
+                p50_on=day(judgement.days[1, i]),
+                p90_on=day(judgement.days[2, i]),
+                risk=str(judgement.risk[i]),
+                replace_by=day(judgement.due_days[i]),
+                reason=(
+                    result.set_aside[i] if aside and judgement.risk[i] != "replace now" else str(judgement.reason[i])
+                )[:300],
+                limits=limits,
+                set_aside=str(result.set_aside[i]),
+                figures_now=result.figures_now[i],
+                figures_new=result.figures_new[i],
+                trend=trend,
             )
         )
-    with transaction.atomic():
-        Assessment.objects.filter(installation_id__in=inst.index.tolist(), is_current=True).update(is_current=False)
-        Assessment.objects.bulk_create(rows)
-    return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
+    return rows
+
+
+def _iso(day: dt.date | None):
+    return day.isoformat() if day else None

@@ -22,7 +22,7 @@ from fleet.engineering.capacitor import acceleration_factor
 from fleet.engineering.drift import operating_figures
 from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, load_matching_rated_slip, synchronous_speed_rad_s
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
-from fleet.engineering.trends import TrendSettings
+from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.circuits import circuit_fields
@@ -358,7 +358,7 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
                 continue
             seasonal = 6.0 * np.sin(2 * np.pi * (day.timetuple().tm_yday - 100) / 365.0)
             case_c = round(temperature + seasonal + rng.normal(0, 1.5), 1)
-            tempco = 1.0 + settings.tempco_ppm_per_k * 1e-6 * (case_c - 25.0)
+            tempco = 1.0 + float(default_tempco_ppm_per_k(part.dielectric, settings)) * 1e-6 * (case_c - 25.0)
             measured = part.rated_uf * fraction * tempco * (1 + rng.normal(0, 0.006))
             taken_at = timezone.make_aware(
                 dt.datetime.combine(day, dt.time(9 + int(rng.integers(0, 7)), int(rng.integers(0, 60))))

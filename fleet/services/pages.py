@@ -11,7 +11,7 @@ from django.utils import timezone
 from fleet.charts import trend_figure
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
-from fleet.engineering.trends import TrendSettings, path_band
+from fleet.engineering.trends import default_tempco_ppm_per_k, path_band
 from fleet.models import Assessment, FittedCapacitor, Motor, Reading, RefitRun, Site
 
 RECENT_READINGS = 6
@@ -60,7 +60,7 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
     corrected = normalise_to_25c(
         np.array([r["capacitance_uf"] for r in readings]),
         np.array([np.nan if r["case_temperature_c"] is None else r["case_temperature_c"] for r in readings]),
-        TrendSettings().tempco_ppm_per_k,
+        trend.get("tempco_ppm_per_k", default_tempco_ppm_per_k(installation.part.dielectric)),
     )
     flagged = set(assessment.flagged_reading_ids)
     points = [

@@ -29,6 +29,10 @@ INSTALLATION_COLUMNS = {
     "part__tolerance_plus_pct": "tolerance_plus_pct",
     "part__rated_voltage_v": "part_rated_voltage_v",
     "part__dielectric": "dielectric",
+    "part__tempco_ppm_per_k": "part_tempco_ppm_per_k",
+    "part__max_dissipation_factor": "max_dissipation_factor",
+    "removed_on": "removed_on",
+    "removal_reason": "removal_reason",
     "motor_id": "motor_id",
     "motor__motor_type": "motor_type",
     "motor__load_type": "load_type",
@@ -45,6 +49,8 @@ def installations_frame(installation_ids) -> pd.DataFrame:
     """Fitted capacitors with their part and motor, one row each (one query)."""
     rows = FittedCapacitor.objects.filter(id__in=list(installation_ids)).values_list(*INSTALLATION_COLUMNS)
     frame = pd.DataFrame.from_records(list(rows), columns=list(INSTALLATION_COLUMNS.values()))
+    for column in ("part_tempco_ppm_per_k", "max_dissipation_factor"):
+        frame[column] = frame[column].astype(float)
     return frame.sort_values("installation_id").reset_index(drop=True)
 
 
@@ -69,6 +75,7 @@ READING_COLUMNS = [
     "capacitance_uf",
     "case_temperature_c",
     "capacitor_voltage_v",
+    "esr_ohm",
     "supersedes_id",
     "condition",
 ]
@@ -80,7 +87,7 @@ def readings_frame(installation_ids) -> pd.DataFrame:
     frame = pd.DataFrame.from_records(list(rows), columns=READING_COLUMNS)
     superseded_ids = set(frame["supersedes_id"].dropna().astype(np.int64))
     frame["superseded"] = frame["id"].isin(superseded_ids)
-    for column in ("case_temperature_c", "capacitor_voltage_v"):
+    for column in ("case_temperature_c", "capacitor_voltage_v", "esr_ohm"):
         frame[column] = frame[column].astype(float)
     return frame
 

@@ -1,8 +1,18 @@
 """Unit slips in field readings, and risk levels from remaining-life quantiles."""
 
+import datetime as dt
+
 import numpy as np
 
-from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, risk_levels
+from fleet.engineering.planning import (
+    EVIDENCE_DEFECT,
+    EVIDENCE_NONE,
+    RISK_DUE_SOON,
+    RISK_REPLACE_NOW,
+    RISK_SOUND,
+    RISK_WATCH,
+    judge,
+)
 from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip, off_trend
 
 
@@ -26,24 +36,61 @@ def test_off_trend_uses_a_fraction_of_the_rating():
     assert off_trend([3.5, 3.9, 3.8], [3.9, 3.9, np.nan], 4.0).tolist() == [True, False, False]
 
 
+def _judge(p10, p50, p90=None, *, evidence=None, latest=None, now=None, limits=(0.94,), today=dt.date(2026, 12, 1)):
+    """One limit (tolerance at 94 % of a 10 uF rating); days to its P10/P50/P90."""
+    p10, p50 = np.asarray(p10, float), np.asarray(p50, float)
+    p90 = p50 * 2 if p90 is None else np.asarray(p90, float)
+    n = len(p10)
+    fractions = np.tile(np.asarray(limits, float)[:, None], (1, n))
+    days = np.broadcast_to(np.stack([p10, p50, p90])[:, None, :], (3, len(limits), n))
+    return judge(
+        limit_names=("tolerance", "capacitor voltage")[: len(limits)],
+        limit_fraction=fractions,
+        limit_days=days,
+        fraction_now=np.full(n, 0.99) if now is None else np.asarray(now, float),
+        rated_uf=np.full(n, 10.0),
+        latest_uf=np.full(n, 9.9) if latest is None else np.asarray(latest, float) * 10.0,
+        latest_fraction_25c=np.full(n, 0.99) if latest is None else np.asarray(latest, float),
+        evidence=np.full(n, EVIDENCE_NONE) if evidence is None else np.asarray(evidence),
+        evidence_text=np.full(n, "", dtype=object),
+        today=today,
+    )
+
+
 def test_risk_levels_follow_the_early_crossing():
-    level, due = risk_levels([10, 60, 200, 900, np.inf], [40, 120, 400, 1500, np.inf], [False] * 5)
-    assert level.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND, RISK_SOUND]
-    assert due.tolist()[:4] == [0.0, 30.0, 170.0, 870.0]
-    assert np.isinf(due[4])
+    """Planning rule of our own (lead time 30 days, never sooner than 7 days' notice)."""
+    result = _judge([10, 60, 200, 900, np.inf], [40, 120, 400, 1500, np.inf])
+    assert result.risk.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND, RISK_SOUND]
+    assert result.due_days.tolist()[:4] == [7.0, 30.0, 170.0, 870.0]
+    assert np.isinf(result.due_days[4])
+    assert result.reason[2] == "trend reaches the tolerance limit (9.40 \u00b5F) between 2027-06 and 2029-02"
+    assert result.reason[4].startswith("trend stays above the tolerance limit")
 
 
 def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
     """A capacitor unread for a long time may have crossed (P10 past) while its
     fitted path (P50) has not: read it soon, do not condemn it."""
-    level, due = risk_levels([0.0, 0.0], [300.0, 0.0], [False, False])
-    assert level.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
-    assert due.tolist() == [0.0, 0.0]
+    result = _judge([0.0, 0.0], [300.0, 0.0])
+    assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
+    assert result.due_days.tolist() == [0.0, 0.0]
 
 
-def test_a_limit_already_crossed_is_replace_now_with_no_delay():
-    level, due = risk_levels([500.0], [900.0], [True])
-    assert level[0] == RISK_REPLACE_NOW and due[0] == 0.0
+def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
+    result = _judge([500.0], [900.0], latest=[0.935])
+    assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 14.0
+    assert result.reason[0] == "latest reading 9.35 \u00b5F, below the tolerance limit (9.40 \u00b5F)"
+
+
+def test_a_defect_is_replace_now_today():
+    result = _judge([500.0], [900.0], evidence=[EVIDENCE_DEFECT])
+    assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 0.0
+
+
+def test_the_highest_limit_governs():
+    """A falling capacitance meets the highest fraction first."""
+    result = _judge([400.0], [800.0], limits=(0.94, 0.97))
+    assert result.governing[0] == 1
+    assert "capacitor voltage limit (9.70" in result.reason[0]
 
 
 def test_replacements_are_bundled_into_one_visit_per_site_and_window():
