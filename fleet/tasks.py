@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from celery import group, shared_task
 
-from fleet.services import assessments, circuits, import_jobs, refits
+from fleet.services import assessments, backtest, circuits, import_jobs, refits
 
 
 @shared_task(acks_late=True)
@@ -44,3 +44,8 @@ def run_import(job_id: int, mode: str) -> None:
 
 def dispatch_refit_chunks(run_id: int, chunks: list[list[int]], force: bool = False) -> None:
     group(refit_chunk.s(run_id, chunk, force) for chunk in chunks).apply_async()
+
+
+@shared_task(acks_late=True)
+def run_backtest(backtest_id: int) -> None:
+    backtest.run_backtest(backtest_id)

@@ -106,6 +106,7 @@ class TrendFit:
     readings_flagged: np.ndarray
     low_confidence: np.ndarray
     stress_hours_now: np.ndarray  # tau at the newest reading
+    hours_now: np.ndarray  # calendar hours since fitting at the newest reading
     stress_rate: np.ndarray  # stress hours per calendar hour, long-run mean (trailing year)
     fraction_now: np.ndarray  # fitted C/C_rated at the newest reading
     tempco_ppm_per_k: np.ndarray  # per capacitor, the coefficient its readings were referred with
@@ -307,6 +308,7 @@ def fit_trends(
         readings_flagged=np.bincount(g, weights=flagged.astype(float), minlength=n_groups).astype(int),
         low_confidence=readings_used < settings.min_readings_for_confidence,
         stress_hours_now=tau_now,
+        hours_now=last_time,
         stress_rate=rate,
         fraction_now=fraction_now,
         tempco_ppm_per_k=capacitor_tempco,

@@ -1,0 +1,104 @@
+"""Scoring forecasts made at a past cut-off against what happened after it.
+
+Rolling-origin evaluation (Tashman, Int. J. Forecasting 16, 2000; from memory):
+the fleet is refitted with only what was known at each cut-off, and every
+forecast is compared with the later readings and removals. Censoring is
+respected: a capacitor counts for a question ("crossed within 365 days?") only
+if it crossed, or was followed at least that long.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .capacitor import normalise_to_25c
+from .planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_WATCH
+from .trends import MODEL_LOG, TrendFit
+
+QUANTILES = (0.1, 0.5, 0.9)
+FLAGGED_WITHIN = {90: (RISK_REPLACE_NOW, RISK_DUE_SOON), 365: (RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH)}
+
+
+def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_c, rated_uf):
+    """Errors of the fitted paths projected to later readings, in the fit's z units.
+
+    group: the capacitor (index into the fit) of each later reading; time_h its
+    calendar hours since fitting. The projection runs at the long-run stress
+    rate from the newest fitted reading, as the forecast does. Returns
+    (projected_change, error, known_variance, fraction_25c) per reading; the
+    known variance is the path's own plus the reading noise.
+    """
+    g = np.asarray(group, np.int64)
+    t = np.asarray(time_h, float)
+    tau = fit.stress_hours_now[g] + fit.stress_rate[g] * np.maximum(t - fit.hours_now[g], 0.0)
+    fraction = normalise_to_25c(
+        np.asarray(capacitance_uf, float) / np.asarray(rated_uf, float)[g],
+        np.asarray(temperature_c, float),
+        fit.tempco_ppm_per_k[g],
+    )
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(fit.model[g] == MODEL_LOG, np.log(fraction), fraction)
+    predicted = fit.intercept[g] + fit.slope_per_hour[g] * tau
+    v00, v01, v11 = fit.covariance[g, 0, 0], fit.covariance[g, 0, 1], fit.covariance[g, 1, 1]
+    variance = v00 + 2.0 * tau * v01 + tau * tau * v11 + fit.noise_sd[g] ** 2
+    change = fit.slope_per_hour[g] * (tau - fit.stress_hours_now[g])
+    return change, z - predicted, variance, fraction
+
+
+def first_crossing_day(group, day, below, n_groups):
+    """Day of each capacitor's first later reading below its limit (nan: none)."""
+    first = np.full(n_groups, np.inf)
+    np.minimum.at(first, np.asarray(group, np.int64), np.where(np.asarray(below, bool), day, np.inf))
+    return np.where(np.isfinite(first), first, np.nan)
+
+
+def score(days, risk, crossed_day, followed_days, horizons=(90, 365)) -> dict:
+    """Scores of one set of forecasts, for capacitors not yet past their limit.
+
+    days (3, G): forecast days from the cut-off to P10/P50/P90 (inf: beyond the
+    horizon); risk (G): the risk level given; crossed_day (G): days to the
+    observed crossing (nan: not seen); followed_days (G): how long each was
+    followed. Returns plain numbers (shares in 0..1, None where nothing counts).
+    """
+    days = np.asarray(days, float)
+    crossed_day = np.asarray(crossed_day, float)
+    followed = np.asarray(followed_days, float)
+    crossed = np.isfinite(crossed_day)
+    cd = np.where(crossed, crossed_day, np.inf)
+
+    def share(mask, among):
+        count = int(among.sum())
+        return (float((mask & among).sum()) / count if count else None), count
+
+    inside, n_crossed = share((days[0] <= cd) & (cd <= days[2]), crossed)
+    below, _ = share(cd < days[0], crossed)
+    above, _ = share(cd > days[2], crossed)
+    calibration = []
+    for k, q in enumerate(QUANTILES):
+        quantile = days[k]
+        known = np.isfinite(quantile) & (crossed | (followed >= quantile))
+        observed, count = share(cd <= quantile, known)
+        calibration.append({"nominal": q, "observed": observed, "capacitors": count})
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p50_error = (days[1] - cd) / np.maximum(cd, 1.0)
+    p50_error = p50_error[crossed & np.isfinite(p50_error)]
+    result = {
+        "capacitors": int(len(cd)),
+        "crossed": n_crossed,
+        "inside_p10_p90": inside,
+        "before_p10": below,
+        "after_p90": above,
+        "calibration": calibration,
+        "p50_error_median": float(np.median(p50_error)) if p50_error.size else None,
+        "p50_abs_error_median": float(np.median(np.abs(p50_error))) if p50_error.size else None,
+    }
+    for horizon in horizons:
+        flagged = np.isin(np.asarray(risk), FLAGGED_WITHIN[horizon])
+        truth = cd <= horizon
+        known = truth | (followed >= horizon)
+        tp = int((flagged & truth & known).sum())
+        result[f"precision_{horizon}d"] = tp / int((flagged & known).sum()) if (flagged & known).any() else None
+        result[f"recall_{horizon}d"] = tp / int((truth & known).sum()) if (truth & known).any() else None
+        result[f"flagged_{horizon}d"] = int((flagged & known).sum())
+        result[f"crossed_{horizon}d"] = int((truth & known).sum())
+    return result

@@ -1,0 +1,50 @@
+"""Back-test the forecast at past cut-offs, store the band calibration, print the track record."""
+
+import time
+
+from django.core.management.base import BaseCommand
+
+from fleet.services.backtest import run_backtest, start_backtest
+
+
+def _pct(value):
+    return "  -  " if value is None else f"{100 * value:5.1f}"
+
+
+class Command(BaseCommand):
+    help = "Refit at past quarter starts with only what was known then, score against what came later, calibrate."
+
+    def add_arguments(self, parser):
+        parser.add_argument("--quarters", type=int, default=8, help="How many past quarters to use as cut-offs.")
+
+    def handle(self, *args, **options):
+        started = time.perf_counter()
+        backtest = run_backtest(start_backtest(quarters=options["quarters"], queue=False).id)
+        results = backtest.results
+        state = backtest.get_state_display().lower()
+        self.stdout.write(f"Back-test {backtest.id}: {state} in {time.perf_counter() - started:.1f} s")
+        columns = (
+            "capacitors",
+            "crossed",
+            "inside_p10_p90",
+            "before_p10",
+            "after_p90",
+            "recall_365d",
+            "precision_365d",
+        )
+        header = "cut-off     capacitors  crossed  in P10-P90  before P10  after P90  recall 365 d  precision 365 d"
+        for variant in ("default", "calibrated"):
+            self.stdout.write(f"\n{variant} bands (scores in %)\n{header}")
+            rows = [(row["cutoff"], row.get(variant, {})) for row in results.get("cutoffs", [])]
+            pooled = results.get("pooled", {}).get(variant, {}).get("all")
+            rows += [("pooled", pooled)] if pooled else []
+            for label, scores in rows:
+                cells = [
+                    f"{scores.get(c, 0):>10d}" if c in columns[:2] else f"{_pct(scores.get(c)):>11}" for c in columns
+                ]
+                self.stdout.write(f"{label:<10}" + "".join(cells))
+        for family, values in results.get("calibration", {}).items():
+            self.stdout.write(
+                f"calibration {family}: slope bias {values['slope_bias']:+.2f}, spread {values['slope_spread']:.2f} "
+                f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
+            )

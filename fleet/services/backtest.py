@@ -1,0 +1,202 @@
+"""The forecast's track record: back-tests at past cut-offs, and the band calibration they give.
+
+At each cut-off (by default the starts of the last eight quarters) the fleet is
+refitted with only the capacitors and readings known then, through the same
+`assess` the refit uses, and each forecast is scored against the readings and
+removals that came later. Scores are kept twice: with the default band
+calibration, and with the calibration estimated from the errors seen before
+that cut-off only (so the calibrated score is out of sample). At the end the
+calibration from every error is stored for the refits to use.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+from django.db import transaction
+from django.utils import timezone
+
+from fleet.engineering.backtest import first_crossing_day, projection_errors, score
+from fleet.engineering.calibration import estimate_calibration
+from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
+
+from .assessments import _hours_since_fitting, assess
+from .selectors import installations_frame, readings_frame
+
+VARIANTS = ("default", "calibrated")
+
+
+def default_cutoffs(newest: dt.date, quarters: int = 8) -> list[dt.date]:
+    """Starts of the `quarters` whole quarters before the one holding `newest`, oldest first."""
+    start = dt.date(newest.year, 3 * ((newest.month - 1) // 3) + 1, 1)
+    months = start.year * 12 + start.month - 1
+    return [dt.date((months - 3 * k) // 12, (months - 3 * k) % 12 + 1, 1) for k in range(quarters, 0, -1)]
+
+
+def start_backtest(*, quarters: int = 8, queue: bool = True) -> Backtest:
+    """Record a back-test and, with `queue`, queue it for a worker (in-process on the embedded default)."""
+    from fleet.tasks import run_backtest as task
+
+    newest = FittedCapacitor.objects.filter(readings__isnull=False).order_by("-readings__taken_at")
+    newest_at = newest.values_list("readings__taken_at", flat=True).first()
+    cutoffs = default_cutoffs(timezone.localdate(newest_at) if newest_at else timezone.localdate(), quarters)
+    backtest = Backtest.objects.create(cutoffs=[day.isoformat() for day in cutoffs])
+    if queue:
+        transaction.on_commit(lambda: task.delay(backtest.id))
+    return backtest
+
+
+def _scores(frame: pd.DataFrame, part_codes: dict[int, str]) -> dict:
+    """Scores of one variant's pooled forecasts: overall, per dielectric, per part."""
+
+    def of(rows):
+        days = np.stack([rows["p10"], rows["p50"], rows["p90"]])
+        return score(days, rows["risk"].to_numpy(), rows["crossed_day"].to_numpy(), rows["followed_days"].to_numpy())
+
+    return {
+        "all": of(frame),
+        "dielectric": {name: of(rows) for name, rows in frame.groupby("dielectric")},
+        "part": {part_codes.get(int(part), str(part)): of(rows) for part, rows in frame.groupby("part_id")},
+    }
+
+
+def run_backtest(backtest_id: int) -> Backtest | None:
+    """Run a recorded back-test to the end; a failure ends it as failed with the reason."""
+    backtest = Backtest.objects.filter(id=backtest_id).first()
+    if backtest is None or backtest.state != Backtest.State.RUNNING:
+        return backtest
+    try:
+        _run(backtest)
+    except Exception as error:  # noqa: BLE001 - any failure must end the run with a message
+        Backtest.objects.filter(id=backtest.id).update(
+            state=Backtest.State.FAILED, message=f"{type(error).__name__}: {error}"[:2000], finished_at=timezone.now()
+        )
+        raise
+    backtest.refresh_from_db()
+    return backtest
+
+
+def _run(backtest: Backtest) -> None:
+    ids = list(FittedCapacitor.objects.filter(readings__isnull=False).distinct().values_list("id", flat=True))
+    inst_all = installations_frame(ids).set_index("installation_id", drop=False)
+    readings_all = readings_frame(ids)
+    readings_all = readings_all[~readings_all["superseded"]].reset_index(drop=True)
+    taken = pd.to_datetime(readings_all["taken_at"], utc=True)
+    families = sorted(inst_all["dielectric"].unique().tolist())
+    part_codes = dict(
+        CapacitorPart.objects.filter(id__in=inst_all["part_id"].unique().tolist()).values_list("id", "code")
+    )
+    pool: list[pd.DataFrame] = []  # projection errors of later readings, with their dates
+    forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
+    per_cutoff = []
+    for number, cutoff_text in enumerate(backtest.cutoffs):
+        cutoff = pd.Timestamp(cutoff_text, tz="UTC")
+        fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
+        removed = pd.to_datetime(inst_all["removed_on"]).dt.tz_localize("UTC")
+        alive = (fitted < cutoff) & (removed.isna() | (removed >= cutoff))
+        before = readings_all[(taken < cutoff).to_numpy() & readings_all["installation_id"].isin(inst_all.index[alive])]
+        inst = inst_all.loc[np.sort(before["installation_id"].unique())]
+        if inst.empty:
+            continue
+        before = before.reset_index(drop=True)
+        errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v", "taken"])
+        errors = errors[errors["taken"] < cutoff]
+        estimate = estimate_calibration(
+            errors["family"].to_numpy(int),
+            errors["capacitor"].to_numpy(),
+            errors["x"].to_numpy(float),
+            errors["e"].to_numpy(float),
+            errors["v"].to_numpy(float),
+            len(families),
+        )
+        calibrations = {
+            "default": {},
+            "calibrated": {
+                family: (float(estimate.slope_bias[k]), float(estimate.slope_spread[k]))
+                for k, family in enumerate(families)
+            },
+        }
+        later = readings_all[(taken >= cutoff).to_numpy() & readings_all["installation_id"].isin(inst.index)]
+        group = inst.index.get_indexer(later["installation_id"])
+        later_day = ((pd.to_datetime(later["taken_at"], utc=True) - cutoff) / pd.Timedelta(days=1)).to_numpy(float)
+        removal_day = ((removed.reindex(inst.index) - cutoff) / pd.Timedelta(days=1)).to_numpy(float)
+        failed = (inst["removal_reason"] == FittedCapacitor.RemovalReason.FAILED).to_numpy() & np.isfinite(removal_day)
+        last_seen = np.full(len(inst), 0.0)
+        np.maximum.at(last_seen, group, later_day)
+        followed = np.fmax(last_seen, np.nan_to_num(removal_day, nan=0.0))
+        summary = {"cutoff": cutoff_text, "capacitors": int(len(inst)), "later_readings": int(len(later))}
+        for variant in VARIANTS:
+            result = assess(inst, before, priors=None, calibration=calibrations[variant], now=cutoff.to_pydatetime())
+            change, error, variance, fraction = projection_errors(
+                result.fit,
+                group,
+                _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
+                later["capacitance_uf"].to_numpy(float),
+                later["case_temperature_c"].to_numpy(float),
+                inst["rated_uf"].to_numpy(float),
+            )
+            tolerance = result.limit_fraction[0]
+            crossed = first_crossing_day(group, later_day, fraction < tolerance[group], len(inst))
+            crossed = np.fmin(crossed, np.where(failed, removal_day, np.nan))
+            above = result.latest_fraction_25c >= tolerance
+            frame = pd.DataFrame(
+                {
+                    "p10": result.limit_days[0, 0],
+                    "p50": result.limit_days[1, 0],
+                    "p90": result.limit_days[2, 0],
+                    "risk": result.judgement.risk,
+                    "crossed_day": crossed,
+                    "followed_days": followed,
+                    "dielectric": inst["dielectric"].to_numpy(),
+                    "part_id": inst["part_id"].to_numpy(),
+                }
+            )[above]
+            forecasts[variant].append(frame)
+            summary[variant] = _scores(frame, part_codes)["all"]
+            if variant == "default":
+                pool.append(
+                    pd.DataFrame(
+                        {
+                            "family": pd.Index(families).get_indexer(inst["dielectric"].to_numpy()[group]),
+                            "capacitor": inst.index.to_numpy()[group] * 1000 + number,
+                            "x": change,
+                            "e": error,
+                            "v": variance,
+                            "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
+                        }
+                    )
+                )
+        per_cutoff.append(summary)
+        Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
+
+    errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v"])
+    final = estimate_calibration(
+        errors["family"].to_numpy(int),
+        errors["capacitor"].to_numpy(),
+        errors["x"].to_numpy(float),
+        errors["e"].to_numpy(float),
+        errors["v"].to_numpy(float),
+        len(families),
+    )
+    calibration = {
+        family: {
+            "slope_bias": float(final.slope_bias[k]),
+            "slope_spread": float(final.slope_spread[k]),
+            "capacitors": int(final.capacitors[k]),
+            "residuals": int(final.residuals[k]),
+        }
+        for k, family in enumerate(families)
+    }
+    results = {
+        "cutoffs": per_cutoff,
+        "pooled": {v: _scores(pd.concat(forecasts[v]), part_codes) for v in VARIANTS if forecasts[v]},
+        "calibration": calibration,
+    }
+    with transaction.atomic():
+        for family, values in calibration.items():
+            BandCalibration.objects.update_or_create(family=family, defaults={**values, "backtest": backtest})
+        Backtest.objects.filter(id=backtest.id).update(
+            state=Backtest.State.DONE, results=results, finished_at=timezone.now()
+        )
