@@ -108,7 +108,7 @@ def judge(
     planned = np.maximum(days[0] - settings.lead_days, np.minimum(settings.notice_days, np.maximum(days[0], 0.0)))
     due_days = np.select(
         [urgent, replace_now, np.isfinite(days[0]) & (days[0] <= settings.horizon_days)],
-        [0.0, np.minimum(settings.below_limit_days, np.maximum(planned, 0.0)), planned],
+        [0.0, np.clip(planned, settings.notice_days, settings.below_limit_days), planned],
         default=np.inf,
     )
     limit_uf = pd.Series(limit * np.asarray(rated_uf, float)).map("{:.2f}".format).to_numpy(object)

@@ -1,0 +1,142 @@
+"""The refit's forecast as stored: late readings used, poison kept out, limits per name, reasons."""
+
+import datetime as dt
+
+import numpy as np
+import pytest
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.models import Assessment, BandCalibration, PartPrior, Reading
+from fleet.services.assessments import refit_installations, refresh_part_priors
+from fleet.services.backtest import default_cutoffs, run_backtest, start_backtest
+from tests.conftest import make_installation, make_part, make_reading, quarterly_readings
+
+START = timezone.make_aware(dt.datetime(2023, 1, 10, 9, 0))
+
+
+def _ageing(installation, losses_pct, **kwargs):
+    rated = installation.part.rated_uf
+    return quarterly_readings(installation, START, [rated * (1 - loss / 100) for loss in losses_pct], **kwargs)
+
+
+@pytest.mark.django_db
+def test_a_backdated_reading_added_after_the_fit_is_used():
+    """Stale means "a reading was added since", not "a newer date": a reading
+    entered late with an old date must reach the assessment."""
+    installation = make_installation()
+    _ageing(installation, [0, 0.5, 1.0, 1.5, 2.0])
+    refit_installations([installation.id])
+    before = Assessment.objects.get(installation=installation, is_current=True)
+    make_reading(installation, taken_at=START + dt.timedelta(days=45), capacitance_uf=3.99)
+    outcome = refit_installations([installation.id])
+    after = Assessment.objects.get(installation=installation, is_current=True)
+    assert outcome.written == 1
+    assert after.readings_used == before.readings_used + 1
+
+
+@pytest.mark.django_db
+def test_one_absurd_reading_cannot_poison_the_part_priors_or_block_a_refit():
+    """A capacitor voltage of 1e6 V (or a capacitance a thousand times rated) on
+    one capacitor leaves every stored prior finite and every refit working."""
+    part = make_part()
+    installations = [make_installation(part=part) for _ in range(6)]
+    for installation in installations:
+        _ageing(installation, [0, 0.4, 0.9, 1.3, 1.8, 2.2])
+    make_reading(installations[0], capacitance_uf=4000.0, capacitor_voltage_v=1e6, case_temperature_c=149.0)
+    refresh_part_priors()
+    prior = PartPrior.objects.get(part=part)
+    values = [prior.intercept_mean, prior.intercept_var, prior.slope_mean, prior.slope_var, prior.noise_var]
+    assert np.isfinite(values).all() and np.isfinite(prior.tempco_ppm_per_k)
+    outcome = refit_installations([i.id for i in installations])
+    assert outcome.written == 6
+    for assessment in Assessment.objects.filter(is_current=True):
+        assert np.isfinite([assessment.slope_pct_per_1000h, assessment.capacitance_now_uf]).all()
+        assert assessment.set_aside == ""
+
+
+@pytest.mark.django_db
+def test_every_assessment_lists_the_tolerance_limit_with_dates_and_says_why(engineer, client):
+    installation = make_installation()
+    _ageing(installation, [0, 0.8, 1.6, 2.4, 3.2, 4.0])
+    refit_installations([installation.id])
+    client.force_login(engineer)
+    item = client.get(reverse("api_assessments")).json()["results"][0]
+    tolerance = [limit for limit in item["limits"] if limit["name"] == "tolerance"]
+    assert len(tolerance) == 1
+    assert tolerance[0]["fraction_of_rated"] == pytest.approx(0.95)
+    assert set(tolerance[0]) >= {"name", "fraction_of_rated", "p10_on", "p50_on", "p90_on"}
+    assert tolerance[0]["p10_on"] <= tolerance[0]["p50_on"] <= tolerance[0]["p90_on"]
+    assert item["reason"].startswith(("trend reaches", "latest reading", "fitted trend"))
+
+
+@pytest.mark.django_db
+def test_a_reading_below_tolerance_gives_replace_now_with_the_reason_and_not_today():
+    installation = make_installation()
+    _ageing(installation, [0, 1, 2, 3, 4, 5.5])
+    refit_installations([installation.id], now=START + dt.timedelta(days=5 * 91 + 1))
+    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    assert assessment.risk == "replace now"
+    assert "below the tolerance limit (3.80 \u00b5F)" in assessment.reason
+    assert assessment.replace_by > (START + dt.timedelta(days=5 * 91 + 1)).date()
+
+
+@pytest.mark.django_db
+def test_a_limit_breached_at_rated_capacitance_is_a_finding_not_wear():
+    """A circuit estimate that puts more than its rating across a new capacitor
+    must not condemn it: the limit is set aside with a note."""
+    part = make_part(rated_voltage_v=150)  # far below what the example fan puts across it
+    installation = make_installation(part=part)
+    _ageing(installation, [0, 0.2, 0.4, 0.6])
+    refit_installations([installation.id])
+    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    voltage = [limit for limit in assessment.limits if limit["name"] == "capacitor voltage"][0]
+    assert voltage["used"] is False and "rated capacitance" in voltage["note"]
+    assert assessment.risk != "replace now"
+    assert assessment.limit_source == "tolerance"
+
+
+@pytest.mark.django_db
+def test_estimated_capacitor_voltage_far_from_the_measured_one_sets_the_motor_limits_aside():
+    installation = make_installation()
+    _ageing(installation, [0, 0.2, 0.4, 0.6], method="in_circuit", capacitor_current_a=0.1, capacitor_voltage_v=90.0)
+    refit_installations([installation.id])
+    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    notes = [limit["note"] for limit in assessment.limits if limit["name"] != "tolerance"]
+    assert notes and all("measured 90 V" in note for note in notes if note)
+    assert all(not limit["used"] for limit in assessment.limits if limit["name"] != "tolerance")
+
+
+@pytest.mark.django_db
+def test_a_dissipation_factor_over_the_parts_maximum_is_evidence_to_replace():
+    """ESR = DF / (2 pi f C) (common practice of the trade): 4 uF at 50 Hz and DF 0.10 is 79.6 ohm."""
+    part = make_part(max_dissipation_factor=0.10)
+    installation = make_installation(part=part)
+    _ageing(installation, [0, 0.2, 0.4])
+    make_reading(installation, capacitance_uf=3.98, esr_ohm=100.0)
+    refit_installations([installation.id])
+    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    assert assessment.risk == "replace now"
+    assert "dissipation factor 12.5 %" in assessment.reason  # 100 x 2 pi x 50 x 3.98e-6 = 0.125
+
+
+def test_cutoffs_are_whole_quarters_before_the_newest_reading():
+    assert default_cutoffs(dt.date(2026, 11, 20), 3) == [dt.date(2026, 1, 1), dt.date(2026, 4, 1), dt.date(2026, 7, 1)]
+
+
+@pytest.mark.django_db
+def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
+    part = make_part()
+    rng = np.random.default_rng(3)
+    for _ in range(30):
+        installation = make_installation(part=part, fitted_on=dt.date(2022, 1, 1))
+        rate = rng.uniform(0.3, 1.2)
+        losses = [rate * k * (1 + 0.08 * k) for k in range(16)]
+        quarterly_readings(installation, START, [4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
+    backtest = run_backtest(start_backtest(quarters=4, queue=False).id)
+    assert backtest.state == "done", backtest.message
+    assert len(backtest.results["cutoffs"]) == 4
+    assert backtest.results["pooled"]["calibrated"]["all"]["crossed"] > 0
+    calibration = BandCalibration.objects.get(family="film")
+    assert calibration.residuals > 0 and np.isfinite(calibration.slope_spread)
+    assert Reading.objects.count() == 30 * 16  # a back-test writes no readings
