@@ -167,6 +167,8 @@ CELERY_TIMEZONE = TIME_ZONE
 CELERY_BEAT_SCHEDULE = {
     "nightly-fleet-refit": {"task": "fleet.tasks.refit_fleet", "schedule": crontab(hour=2, minute=15)},
     "sweep-stale-assessments": {"task": "fleet.tasks.sweep_stale", "schedule": crontab(minute="*/15")},
+    # Weekly, before a nightly refit: the back-test re-estimates the band calibration the refits use.
+    "weekly-backtest": {"task": "fleet.tasks.backtest_fleet", "schedule": crontab(day_of_week=0, hour=1, minute=0)},
 }
 
 # Fleet computations: chunk size of a fleet refit, and the engineering constants.

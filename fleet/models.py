@@ -525,8 +525,9 @@ class BandCalibration(models.Model):
     """Calibration of forecast bands for one family of parts (a dielectric), from a back-test."""
 
     family = models.CharField(max_length=20, unique=True)
-    slope_bias = models.FloatField()
-    slope_spread = models.FloatField()
+    slope_bias = models.FloatField(help_text="Future slope = fitted slope x (1 + bias + bias per loss x loss so far)")
+    slope_bias_per_loss = models.FloatField(default=0.0)
+    slope_spread = models.FloatField(help_text="Relative standard deviation of the future slope")
     capacitors = models.PositiveIntegerField(default=0)
     residuals = models.PositiveIntegerField(default=0)
     backtest = models.ForeignKey(Backtest, null=True, on_delete=models.SET_NULL, related_name="+")
@@ -538,6 +539,9 @@ class BandCalibration(models.Model):
                 condition=Q(slope_spread__gte=0, slope_spread__lt=100), name="calibration_spread_sane"
             ),
             models.CheckConstraint(condition=Q(slope_bias__gt=-1, slope_bias__lt=100), name="calibration_bias_sane"),
+            models.CheckConstraint(
+                condition=Q(slope_bias_per_loss__gte=0, slope_bias_per_loss__lt=1000), name="calibration_loss_term_sane"
+            ),
         ]
 
     def __str__(self):

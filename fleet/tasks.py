@@ -49,3 +49,8 @@ def dispatch_refit_chunks(run_id: int, chunks: list[list[int]], force: bool = Fa
 @shared_task(acks_late=True)
 def run_backtest(backtest_id: int) -> None:
     backtest.run_backtest(backtest_id)
+
+
+@shared_task
+def backtest_fleet() -> int:
+    return backtest.run_backtest(backtest.start_backtest(queue=False).id).id

@@ -30,7 +30,7 @@ class PlanningSettings:
     lead_days: float = 30.0  # replace this long before the early (P10) crossing
     due_soon_days: float = 90.0  # one quarter: the next round of readings
     watch_days: float = 365.0
-    notice_days: float = 7.0  # a planned date is never sooner than this: spares and a visit need time
+    notice_days: float = 7.0  # without a defect, never sooner than this: spares and a visit need time
     below_limit_days: float = 14.0  # read below its limit: replace within one visit window
     horizon_days: float = 50 * 365.0  # crossings later than this are "beyond"
 
@@ -105,7 +105,7 @@ def judge(
         default=RISK_SOUND,
     )
     urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
-    planned = np.maximum(days[0] - settings.lead_days, np.minimum(settings.notice_days, np.maximum(days[0], 0.0)))
+    planned = np.maximum(days[0] - settings.lead_days, settings.notice_days)
     due_days = np.select(
         [urgent, replace_now, np.isfinite(days[0]) & (days[0] <= settings.horizon_days)],
         [0.0, np.clip(planned, settings.notice_days, settings.below_limit_days), planned],
@@ -115,8 +115,13 @@ def judge(
     limit_name = np.where(governing >= 0, names[safe], "")
     latest = pd.Series(np.asarray(latest_uf, float)).map("{:.2f}".format).to_numpy(object)
     limit_words = "the " + limit_name + " limit (" + limit_uf + " \u00b5F)"
-    between = "trend reaches " + limit_words + " between " + _month(today, days[0]) + " and "
     late = np.where(np.isfinite(days[2]) & (days[2] <= settings.horizon_days), _month(today, days[2]), "beyond")
+    likely = np.where(np.isfinite(days[1]) & (days[1] <= settings.horizon_days), _month(today, days[1]), "beyond")
+    between = np.where(
+        days[0] > 0,
+        "trend reaches " + limit_words + " between " + _month(today, days[0]) + " and " + late,
+        "trend may already have reached " + limit_words + " (likely " + likely + ", at the latest " + late + ")",
+    )
     reason = np.select(
         [
             np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF]),
@@ -130,7 +135,7 @@ def judge(
             "latest reading " + latest + " \u00b5F, below " + limit_words,
             "fitted trend is already below " + limit_words,
             "no limit could be evaluated",
-            between + late,
+            between,
         ],
         default="trend stays above " + limit_words + " for the planning horizon",
     )

@@ -18,7 +18,7 @@ import pandas as pd
 from django.db import transaction
 from django.utils import timezone
 
-from fleet.engineering.calibration import CalibrationSettings, calibrated
+from fleet.engineering.calibration import ForecastCalibration, calibrated, default_calibration, loss_so_far
 from fleet.engineering.capacitor import (
     VERDICT_NAMES,
     VERDICT_OPEN,
@@ -168,12 +168,10 @@ def _stored_priors(part_ids) -> PartPriors:
     )
 
 
-def stored_calibration() -> dict[str, tuple[float, float]]:
-    """(slope bias, slope spread) per dielectric, from the latest back-test."""
-    return {
-        family: (bias, spread)
-        for family, bias, spread in BandCalibration.objects.values_list("family", "slope_bias", "slope_spread")
-    }
+def stored_calibration() -> dict[str, tuple[float, float, float]]:
+    """(slope bias, bias per loss, slope spread) per dielectric, from the latest back-test."""
+    rows = BandCalibration.objects.values_list("family", "slope_bias", "slope_bias_per_loss", "slope_spread")
+    return {family: (bias, per_loss, spread) for family, bias, per_loss, spread in rows}
 
 
 def _motor_circuits(inst: pd.DataFrame):
@@ -313,7 +311,7 @@ def assess(
     readings: pd.DataFrame,
     *,
     priors: PartPriors | None,
-    calibration: dict[str, tuple[float, float]],
+    calibration: dict[str, tuple[float, float, float]],
     now: dt.datetime,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
@@ -378,10 +376,20 @@ def assess(
         & (fit.readings_used > 0)
     )
     set_aside = np.where(finite, "", "no usable trend: the readings give no finite fit; check them")
-    dielectric = inst["dielectric"].to_numpy()
-    bias = np.array([calibration.get(d, (0.0, None))[0] for d in dielectric], float)
-    spread = np.array([calibration.get(d, (None, None))[1] for d in dielectric], dtype=float)
-    projected = calibrated(fit, bias, np.where(np.isnan(spread), CalibrationSettings().default_spread, spread))
+    families = sorted(set(inst["dielectric"]) | set(calibration))
+    default = default_calibration(1)
+    values = np.array(
+        [
+            calibration.get(f, (default.slope_bias[0], default.slope_bias_per_loss[0], default.slope_spread[0]))
+            for f in families
+        ],
+        float,
+    ).reshape(-1, 3)
+    table = ForecastCalibration(
+        values[:, 0], values[:, 1], values[:, 2], np.zeros(len(families)), np.zeros(len(families))
+    )
+    family = pd.Index(families).get_indexer(inst["dielectric"])
+    projected = calibrated(fit, table.bias_for(family, loss_so_far(fit)), table.slope_spread[family])
     newest_at = pd.to_datetime(readings[~readings["superseded"]].groupby("installation_id")["taken_at"].max(), utc=True)
     newest_at = newest_at.reindex(inst.index)
     elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)

@@ -5,8 +5,10 @@ refitted with only the capacitors and readings known then, through the same
 `assess` the refit uses, and each forecast is scored against the readings and
 removals that came later. Scores are kept twice: with the default band
 calibration, and with the calibration estimated from the errors seen before
-that cut-off only (so the calibrated score is out of sample). At the end the
-calibration from every error is stored for the refits to use.
+that cut-off only (so the calibrated score is out of sample). A crossing is
+seen when a later reading is below the limit by more than the meter noise, or
+the capacitor failed in service. At the end the calibration from every error
+is stored for the refits to use.
 """
 
 from __future__ import annotations
@@ -19,7 +21,8 @@ from django.db import transaction
 from django.utils import timezone
 
 from fleet.engineering.backtest import first_crossing_day, projection_errors, score
-from fleet.engineering.calibration import estimate_calibration
+from fleet.engineering.calibration import estimate_calibration, loss_so_far
+from fleet.engineering.trends import MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
 from .assessments import _hours_since_fitting, assess
@@ -101,7 +104,9 @@ def _run(backtest: Backtest) -> None:
         if inst.empty:
             continue
         before = before.reset_index(drop=True)
-        errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v", "taken"])
+        errors = (
+            pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v", "loss", "taken"])
+        )
         errors = errors[errors["taken"] < cutoff]
         estimate = estimate_calibration(
             errors["family"].to_numpy(int),
@@ -110,11 +115,16 @@ def _run(backtest: Backtest) -> None:
             errors["e"].to_numpy(float),
             errors["v"].to_numpy(float),
             len(families),
+            loss=errors["loss"].to_numpy(float),
         )
         calibrations = {
             "default": {},
             "calibrated": {
-                family: (float(estimate.slope_bias[k]), float(estimate.slope_spread[k]))
+                family: (
+                    float(estimate.slope_bias[k]),
+                    float(estimate.slope_bias_per_loss[k]),
+                    float(estimate.slope_spread[k]),
+                )
                 for k, family in enumerate(families)
             },
         }
@@ -138,7 +148,11 @@ def _run(backtest: Backtest) -> None:
                 inst["rated_uf"].to_numpy(float),
             )
             tolerance = result.limit_fraction[0]
-            crossed = first_crossing_day(group, later_day, fraction < tolerance[group], len(inst))
+            # A reading counts as seen below the limit when it is clear of the meter noise (one
+            # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
+            noise = result.fit.noise_sd * np.where(result.fit.model == MODEL_LOG, tolerance, 1.0)
+            below = fraction < (tolerance - noise)[group]
+            crossed = first_crossing_day(group, later_day, below, len(inst))
             crossed = np.fmin(crossed, np.where(failed, removal_day, np.nan))
             above = result.latest_fraction_25c >= tolerance
             frame = pd.DataFrame(
@@ -164,6 +178,7 @@ def _run(backtest: Backtest) -> None:
                             "x": change,
                             "e": error,
                             "v": variance,
+                            "loss": loss_so_far(result.fit)[group],
                             "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                         }
                     )
@@ -171,7 +186,7 @@ def _run(backtest: Backtest) -> None:
         per_cutoff.append(summary)
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
-    errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v"])
+    errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v", "loss"])
     final = estimate_calibration(
         errors["family"].to_numpy(int),
         errors["capacitor"].to_numpy(),
@@ -179,10 +194,12 @@ def _run(backtest: Backtest) -> None:
         errors["e"].to_numpy(float),
         errors["v"].to_numpy(float),
         len(families),
+        loss=errors["loss"].to_numpy(float),
     )
     calibration = {
         family: {
             "slope_bias": float(final.slope_bias[k]),
+            "slope_bias_per_loss": float(final.slope_bias_per_loss[k]),
             "slope_spread": float(final.slope_spread[k]),
             "capacitors": int(final.capacitors[k]),
             "residuals": int(final.residuals[k]),

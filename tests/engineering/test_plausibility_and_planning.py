@@ -72,7 +72,8 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
     fitted path (P50) has not: read it soon, do not condemn it."""
     result = _judge([0.0, 0.0], [300.0, 0.0])
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
-    assert result.due_days.tolist() == [0.0, 7.0]  # evidence without a defect: a week's notice for the visit
+    assert result.due_days.tolist() == [7.0, 7.0]  # no defect seen: a week's notice for spares and the visit
+    assert result.reason[0].startswith("trend may already have reached the tolerance limit")
 
 
 def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():

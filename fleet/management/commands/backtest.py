@@ -45,6 +45,8 @@ class Command(BaseCommand):
                 self.stdout.write(f"{label:<10}" + "".join(cells))
         for family, values in results.get("calibration", {}).items():
             self.stdout.write(
-                f"calibration {family}: slope bias {values['slope_bias']:+.2f}, spread {values['slope_spread']:.2f} "
+                f"calibration {family}: slope bias {values['slope_bias']:+.2f} "
+                f"+ {values['slope_bias_per_loss']:.1f} x loss, "
+                f"spread {values['slope_spread']:.2f} "
                 f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
             )

@@ -5,6 +5,7 @@ import time
 from django.core.management import call_command
 from django.core.management.base import BaseCommand
 
+from fleet.services.backtest import run_backtest, start_backtest
 from fleet.services.demo import build_demo, ensure_users
 from fleet.services.refits import start_fleet_refit
 
@@ -25,6 +26,12 @@ class Command(BaseCommand):
         if outcome["created"]:
             self.stdout.write(
                 f"Built the demo fleet: {outcome['motors']} motors, {outcome['readings']} readings "
+                f"({time.perf_counter() - started:.1f} s)."
+            )
+            started = time.perf_counter()
+            backtest = run_backtest(start_backtest(queue=False).id)
+            self.stdout.write(
+                f"Back-tested the forecast at {len(backtest.cutoffs)} past quarters and calibrated its bands "
                 f"({time.perf_counter() - started:.1f} s)."
             )
             started = time.perf_counter()
