@@ -6,7 +6,7 @@ import pytest
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, Reading
+from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
 from fleet.services.assessments import refit_installations
 
 from .conftest import make_installation, make_part, quarterly_readings
@@ -213,7 +213,7 @@ def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(sign
     body = client.get(reverse("work_orders")).content.decode()
     assert installations[0].motor.asset_tag in body and "Visit sheet" in body
     site = installations[0].motor.site
-    day = timezone.localdate().isoformat()
+    day = WorkOrder.objects.get(installation=installations[0]).due_on.isoformat()
     sheet = client.get(reverse("visit_sheet", args=[site.code, day])).content.decode()
     assert "never a screwdriver" in sheet and installations[0].part.code in sheet
     client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day})
