@@ -279,7 +279,7 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 def _refuse_overlaps(problems: _Problems, rows: pd.DataFrame, register: pd.DataFrame) -> None:
     """Each row whose time on the motor overlaps another capacitor's in the same role, naming that one."""
-    everyone = pd.concat([rows, register], ignore_index=True)
+    everyone = pd.concat([register, rows], ignore_index=True)  # a clash with the register is named first
     pairs = rows.merge(everyone, on=["motor_id", "role"], suffixes=("", "_other"))
     pairs = pairs[
         (pairs["row"] != pairs["row_other"])
