@@ -174,6 +174,12 @@ CELERY_BEAT_SCHEDULE = {
 # Fleet computations: chunk size of a fleet refit, and the engineering constants.
 FLEET_REFIT_CHUNK_SIZE = env_int("FLEET_REFIT_CHUNK_SIZE", 2000)
 
+# Import limits, checked before a file is parsed (an XLSX is a zip: its unpacked size and sheet dimension count).
+FLEET_IMPORT_MAX_FILE_MB = env_int("FLEET_IMPORT_MAX_FILE_MB", 50)
+FLEET_IMPORT_MAX_UNPACKED_MB = env_int("FLEET_IMPORT_MAX_UNPACKED_MB", 200)
+FLEET_IMPORT_MAX_ROWS = env_int("FLEET_IMPORT_MAX_ROWS", 250_000)
+FLEET_IMPORT_MAX_COLUMNS = env_int("FLEET_IMPORT_MAX_COLUMNS", 60)
+
 if PRODUCTION:
     SESSION_COOKIE_SECURE = env_bool("SESSION_COOKIE_SECURE", True)
     CSRF_COOKIE_SECURE = env_bool("CSRF_COOKIE_SECURE", True)

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 from django import forms
+from django.conf import settings
 from django.utils import timezone
 
-from .models import CapacitorPart, FittedCapacitor, Reading
+from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading
 
 
 def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.FloatField:
@@ -75,19 +76,26 @@ class FindMotorForm(forms.Form):
 
 class ImportUploadForm(forms.Form):
     kind = forms.ChoiceField(
-        choices=[("readings", "Readings"), ("register", "Motor register")],
+        choices=ImportJob.Kind.choices,
         widget=forms.RadioSelect,
         initial="readings",
         label="What the file holds",
     )
-    file = forms.FileField(label="CSV or XLSX file", help_text="Up to 50 MB. First row: column headings.")
+    file = forms.FileField(label="CSV or XLSX file")
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.fields["file"].help_text = (
+            f"Up to {settings.FLEET_IMPORT_MAX_FILE_MB} MB and {settings.FLEET_IMPORT_MAX_ROWS:,} rows. "
+            "First row: column headings. Comma, semicolon or tab between fields."
+        )
 
     def clean_file(self):
         upload = self.cleaned_data["file"]
         if not upload.name.lower().endswith((".csv", ".xlsx", ".txt")):
             raise forms.ValidationError("Choose a .csv or .xlsx file.")
-        if upload.size > 50 * 1024 * 1024:
-            raise forms.ValidationError("The file is over 50 MB: split it.")
+        if upload.size > settings.FLEET_IMPORT_MAX_FILE_MB * 1024 * 1024:
+            raise forms.ValidationError(f"The file is over {settings.FLEET_IMPORT_MAX_FILE_MB} MB: split it.")
         return upload
 
 

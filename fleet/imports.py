@@ -14,10 +14,13 @@ import csv
 import datetime as dt
 import hashlib
 import io
+import re
+import zipfile
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.utils import timezone
 
 from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
@@ -99,19 +102,79 @@ class CheckResult:
         return len({row for row, _, _ in self.errors})
 
 
+@dataclass(frozen=True)
+class Limits:
+    """What a file may hold; checked before it is parsed (settings FLEET_IMPORT_MAX_*)."""
+
+    file_bytes: int
+    unpacked_bytes: int
+    rows: int
+    columns: int
+
+    @classmethod
+    def from_settings(cls) -> Limits:
+        return cls(
+            file_bytes=settings.FLEET_IMPORT_MAX_FILE_MB * 1024 * 1024,
+            unpacked_bytes=settings.FLEET_IMPORT_MAX_UNPACKED_MB * 1024 * 1024,
+            rows=settings.FLEET_IMPORT_MAX_ROWS,
+            columns=settings.FLEET_IMPORT_MAX_COLUMNS,
+        )
+
+    def too_many_rows(self, rows: int) -> FileRefused:
+        return FileRefused(
+            f"The file has {rows:,} rows or more; the limit is {self.rows:,} rows (FLEET_IMPORT_MAX_ROWS). "
+            "Split it into smaller files."
+        )
+
+    def too_many_columns(self, columns: int) -> FileRefused:
+        return FileRefused(
+            f"The file has {columns:,} columns; the limit is {self.columns} (FLEET_IMPORT_MAX_COLUMNS). "
+            "Remove the columns that are not imported."
+        )
+
+
 def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]]]:
-    """Header and rows as text. A ragged row (a file cut off mid-row) refuses the file."""
+    """Header and rows as text, within the limits, which are checked before parsing.
+
+    A ragged row (a file cut off mid-row) or a heading given twice refuses the file.
+    """
+    limits = Limits.from_settings()
+    if len(content) > limits.file_bytes:
+        raise FileRefused(
+            f"The file is {len(content) / 2**20:.1f} MB; the limit is {settings.FLEET_IMPORT_MAX_FILE_MB} MB "
+            "(FLEET_IMPORT_MAX_FILE_MB). Split it into smaller files."
+        )
     if filename.lower().endswith(".xlsx"):
-        return _read_xlsx(content)
+        header, body = _read_xlsx(content, limits)
+    else:
+        header, body = _read_csv(content, limits)
+    _refuse_repeated_headings(header)
+    return header, body
+
+
+def csv_delimiter(first_line: str) -> str:
+    """Comma, semicolon (where the decimal mark is a comma) or tab: whichever the header line holds most of."""
+    return max((",", ";", "\t"), key=first_line.count)
+
+
+def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]]]:
     try:
         text = content.decode("utf-8-sig")
     except UnicodeDecodeError as error:
         raise FileRefused(f"The file is not UTF-8 text (byte {error.start}). Save it as CSV UTF-8.") from error
+    delimiter = csv_delimiter(text.split("\n", 1)[0])
+    rows = []
     try:
-        rows = list(csv.reader(io.StringIO(text, newline=""), strict=True))
+        for row in csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True):
+            if not any(cell.strip() for cell in row):
+                continue
+            if not rows and len(row) > limits.columns:
+                raise limits.too_many_columns(len(row))
+            rows.append(row)
+            if len(rows) > limits.rows + 1:
+                raise limits.too_many_rows(len(rows) - 1)
     except csv.Error as error:
         raise FileRefused(f"The CSV cannot be read: {error}. The file may be cut off inside a quoted field.") from error
-    rows = [row for row in rows if any(cell.strip() for cell in row)]
     if not rows:
         raise FileRefused("The file is empty.")
     header, body = [h.strip() for h in rows[0]], rows[1:]
@@ -119,12 +182,85 @@ def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]
         if len(row) != len(header):
             raise FileRefused(
                 f"Row {number} has {len(row)} fields where the header has {len(header)}: the file looks cut off "
-                "or a field holds an unquoted comma. Nothing was imported."
+                f"or a field holds an unquoted {'semicolon' if delimiter == ';' else 'comma'}. Nothing was imported."
             )
     return header, body
 
 
-def _read_xlsx(content: bytes) -> tuple[list[str], list[list[str]]]:
+def _refuse_repeated_headings(header: list[str]) -> None:
+    seen: dict[str, int] = {}
+    for number, heading in enumerate(header, start=1):
+        key = heading.strip().lower()
+        if key and key in seen:
+            raise FileRefused(
+                f"The heading {heading!r} appears twice (columns {seen[key]} and {number}): "
+                "keep one of them or rename the other."
+            )
+        seen.setdefault(key, number)
+
+
+_DIMENSION = re.compile(rb"<(?:\w+:)?dimension\s+ref=\"([A-Za-z0-9:$]+)\"")
+_RELATIONSHIP_ID = "{http://schemas.openxmlformats.org/officeDocument/2006/relationships}id"
+
+
+def _check_workbook_size(content: bytes, limits: Limits) -> None:
+    """Refuse a workbook by its zip directory and its first sheet's declared dimension, before parsing it."""
+    try:
+        archive = zipfile.ZipFile(io.BytesIO(content))
+    except zipfile.BadZipFile as error:
+        raise FileRefused("The workbook cannot be read: it is not an XLSX file (not a zip archive).") from error
+    unpacked = sum(info.file_size for info in archive.infolist())
+    if unpacked > limits.unpacked_bytes:
+        raise FileRefused(
+            f"The workbook unpacks to {unpacked / 2**20:,.0f} MB; the limit is "
+            f"{settings.FLEET_IMPORT_MAX_UNPACKED_MB} MB (FLEET_IMPORT_MAX_UNPACKED_MB). "
+            "Split it, or save it as CSV."
+        )
+    sheet = _first_sheet_path(archive)
+    if sheet is None:
+        return
+    with archive.open(sheet) as stream:
+        head = stream.read(64 * 1024)
+    found = _DIMENSION.search(head)
+    if not found:
+        return
+    from openpyxl.utils.cell import range_boundaries
+
+    try:
+        min_col, min_row, max_col, max_row = range_boundaries(found.group(1).decode().replace("$", ""))
+    except (ValueError, TypeError):
+        return
+    if max_row is not None and max_row - (min_row or 1) > limits.rows:
+        raise limits.too_many_rows(max_row - (min_row or 1))
+    if max_col is not None and max_col - (min_col or 1) + 1 > limits.columns:
+        raise limits.too_many_columns(max_col - (min_col or 1) + 1)
+
+
+def _first_sheet_path(archive: zipfile.ZipFile) -> str | None:
+    """The zip member of the workbook's first sheet, from workbook.xml and its relationships."""
+    from xml.etree import ElementTree
+
+    try:
+        for name in ("xl/workbook.xml", "xl/_rels/workbook.xml.rels"):
+            if archive.getinfo(name).file_size > 1024 * 1024:
+                return None
+        book = ElementTree.fromstring(archive.read("xl/workbook.xml"))
+        relations = ElementTree.fromstring(archive.read("xl/_rels/workbook.xml.rels"))
+    except (KeyError, ElementTree.ParseError):
+        return None
+    first = next((e for e in book.iter() if e.tag.endswith("}sheet")), None)
+    if first is None:
+        return None
+    target = next(
+        (e.get("Target", "") for e in relations if e.get("Id") == first.get(_RELATIONSHIP_ID)),
+        "",
+    )
+    path = target.lstrip("/") if target.startswith("/") else f"xl/{target}"
+    return path if path in archive.namelist() else None
+
+
+def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]]]:
+    _check_workbook_size(content, limits)
     from openpyxl import load_workbook
 
     try:
@@ -139,12 +275,25 @@ def _read_xlsx(content: bytes) -> tuple[list[str], list[list[str]]]:
             return value.isoformat()
         return str(value)
 
-    rows = [[text(v) for v in row] for row in sheet.iter_rows(values_only=True)]
-    rows = [row for row in rows if any(cell.strip() for cell in row)]
-    if not rows:
+    header: list[str] = []
+    body: list[list[str]] = []
+    width = 0
+    for values in sheet.iter_rows(values_only=True, max_col=limits.columns + 1):
+        row = [text(v) for v in values]
+        if not any(cell.strip() for cell in row):
+            continue
+        if not header:
+            width = max(i for i, cell in enumerate(row) if cell.strip()) + 1
+            if width > limits.columns:
+                raise limits.too_many_columns(width)
+            header = [h.strip() for h in row[:width]]
+            continue
+        body.append(row[:width] + [""] * (width - len(row)))
+        if len(body) > limits.rows:
+            raise limits.too_many_rows(len(body))
+    if not header:
         raise FileRefused("The first sheet is empty.")
-    width = len(rows[0])
-    return [h.strip() for h in rows[0]], [row[:width] + [""] * (width - len(row)) for row in rows[1:]]
+    return header, body
 
 
 def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
@@ -193,6 +342,39 @@ def _numbers(chunk, names, problems):
         problems.add(raw.ne("") & number.isna(), name, "not a number")
         values[name] = number.to_numpy(float)
     return values
+
+
+def text_problems(frame: pd.DataFrame, max_lengths: dict[str, int]) -> _Problems:
+    """Cells the database cannot hold: a NUL character in any field, text longer than its column."""
+    problems = _Problems(frame)
+    for name in frame.columns.drop("row"):
+        problems.add(frame[name].str.contains("\x00", regex=False), name, "holds a NUL character (byte 0): remove it")
+    for name, limit in max_lengths.items():
+        problems.add(frame[name].str.len() > limit, name, f"longer than {limit} characters")
+    return problems
+
+
+def finite_numbers(chunk: pd.DataFrame, names, problems: _Problems) -> dict[str, np.ndarray]:
+    """Numbers (point or comma decimal mark); infinities refused. Blank cells are NaN."""
+    values = _numbers(chunk, names, problems)
+    for name in names:
+        problems.add(np.isinf(values[name]), name, "not a finite number")
+    return values
+
+
+def repeated_in_file(problems: _Problems, keys: pd.Series, field_name: str, what: str) -> None:
+    """A key seen on an earlier row of the file: reported on the later row, naming the first."""
+    keys = keys.reset_index(drop=True)
+    rows = problems.chunk["row"].reset_index(drop=True)
+    repeated = keys.duplicated(keep="first") & keys.notna()
+    first_row = dict(zip(keys[~repeated], rows[~repeated], strict=True))
+    messages = np.array([f"{what} as row {first_row.get(k)}" for k in keys], dtype=object)
+    problems.add(repeated.to_numpy(), field_name, messages)
+
+
+def parse_dates(texts: pd.Series) -> pd.Series:
+    """ISO 8601 dates (a time part is ignored); blanks and bad values are NaT."""
+    return pd.to_datetime(texts.str.slice(0, 10), errors="coerce", format="%Y-%m-%d")
 
 
 def _parse_times(texts: pd.Series, default_tz: str):

@@ -452,18 +452,23 @@ class ImportJob(models.Model):
     class Kind(models.TextChoices):
         READINGS = "readings", "Readings"
         REGISTER = "register", "Motor register"
+        SITES = "sites", "Sites"
+        PARTS = "parts", "Capacitor parts"
+        HISTORY = "history", "Past fitted capacitors"
 
     class Mode(models.TextChoices):
         ALL_OR_NOTHING = "all", "All or nothing"
         GOOD_ROWS = "good", "Good rows only"
 
     class State(models.TextChoices):
+        RECEIVED = "received", "Reading the file"
         UPLOADED = "uploaded", "Uploaded"
         CHECKING = "checking", "Checking"
         CHECKED = "checked", "Checked"
         IMPORTING = "importing", "Importing"
         DONE = "done", "Imported"
         REFUSED = "refused", "Refused"
+        FAILED = "failed", "Failed"
 
     kind = models.CharField(max_length=10, choices=Kind.choices)
     filename = models.CharField(max_length=200)
@@ -471,7 +476,7 @@ class ImportJob(models.Model):
     columns = models.JSONField(default=list)
     mapping = models.JSONField(default=dict, blank=True)
     mode = models.CharField(max_length=5, choices=Mode.choices, blank=True)
-    state = models.CharField(max_length=10, choices=State.choices, default=State.UPLOADED)
+    state = models.CharField(max_length=10, choices=State.choices, default=State.RECEIVED)
     total_rows = models.PositiveIntegerField(default=0)
     done_rows = models.PositiveIntegerField(default=0)
     good_rows = models.PositiveIntegerField(default=0)

@@ -33,6 +33,11 @@ def estimate_circuits(motor_ids: list[int]) -> int:
 
 
 @shared_task
+def read_import(job_id: int) -> None:
+    import_jobs.read_job(job_id)
+
+
+@shared_task
 def check_import(job_id: int) -> None:
     import_jobs.check_job(job_id)
 

@@ -21,16 +21,15 @@ from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
-from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
 from .services import pages
-from .services.import_jobs import SPECS, create_job, rejected_rows_csv
+from .services.import_jobs import KINDS, create_job, queue_check, queue_import, rejected_rows_csv
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installations
 from .services.register import set_route_order
 from .services.workorders import issue_visit, open_visits, plan_work_orders
-from .tasks import check_import, refit_fleet, run_import
+from .tasks import refit_fleet
 
 
 def home(request):
@@ -288,8 +287,13 @@ def plotly_js(request):
     return HttpResponse(get_plotlyjs(), content_type="application/javascript")
 
 
-IMPORT_PERMISSION = {ImportJob.Kind.READINGS: "fleet.add_reading", ImportJob.Kind.REGISTER: "fleet.add_motor"}
-REQUIRED_COLUMNS = {ImportJob.Kind.READINGS: READING_REQUIRED, ImportJob.Kind.REGISTER: REGISTER_REQUIRED}
+IMPORT_PERMISSION = {
+    ImportJob.Kind.READINGS: "fleet.add_reading",
+    ImportJob.Kind.REGISTER: "fleet.add_motor",
+    ImportJob.Kind.SITES: "fleet.add_site",
+    ImportJob.Kind.PARTS: "fleet.add_capacitorpart",
+    ImportJob.Kind.HISTORY: "fleet.add_motor",
+}
 
 
 def _may_import(user, kind) -> bool:
@@ -302,17 +306,14 @@ def imports_home(request):
     if request.method == "POST" and form.is_valid():
         kind = form.cleaned_data["kind"]
         if not _may_import(request.user, kind):
-            form.add_error("kind", "Your role cannot import a motor register; ask an administrator.")
+            label = ImportJob.Kind(kind).label.lower()
+            form.add_error("kind", f"Your role cannot import {label}; ask an administrator.")
         else:
             upload = form.cleaned_data["file"]
-            try:
-                job = create_job(kind=kind, filename=upload.name, content=upload.read(), user=request.user)
-            except FileRefused as error:
-                form.add_error("file", str(error))
-            else:
-                return redirect("import_detail", job_id=job.id)
+            job = create_job(kind=kind, filename=upload.name, content=upload.read(), user=request.user)
+            return redirect("import_detail", job_id=job.id)
     jobs = ImportJob.objects.defer("content").order_by("-created_at")[:15]
-    context = {"form": form, "jobs": jobs, "specs": {k: v[0] for k, v in SPECS.items()}}
+    context = {"form": form, "jobs": jobs, "kinds": [(ImportJob.Kind(k).label, v.columns) for k, v in KINDS.items()]}
     return render(request, "fleet/imports.html", context)
 
 
@@ -321,26 +322,33 @@ def import_detail(request, job_id):
     job = get_object_or_404(ImportJob.objects.defer("content"), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
-    ours = SPECS[job.kind][0]
+    kind = KINDS[job.kind]
     form = ColumnMappingForm(
         request.POST if request.POST.get("action") == "check" else None,
-        ours=ours,
+        ours=kind.columns,
         columns=job.columns,
         initial_mapping=job.mapping,
-        required=REQUIRED_COLUMNS[job.kind],
+        required=kind.required,
     )
     if request.method == "POST":
         action = request.POST.get("action")
-        if action == "check" and form.is_valid():
-            ImportJob.objects.filter(pk=job.pk).update(mapping=form.mapping())
-            check_import.delay(job.pk)
+        if action == "check" and form.is_valid() and job.state not in WORKING_STATES:
+            queue_check(job, form.mapping())
             return redirect("import_detail", job_id=job.pk)
         if action in {ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS} and job.state == ImportJob.State.CHECKED:
-            run_import.delay(job.pk, action)
+            queue_import(job, action)
             return redirect("import_detail", job_id=job.pk)
-    working = job.state in {ImportJob.State.CHECKING, ImportJob.State.IMPORTING}
-    context = {"job": job, "form": form, "working": working, "errors": job.errors[:200]}
+    context = {
+        "job": job,
+        "form": form,
+        "working": job.state in WORKING_STATES,
+        "can_map": bool(job.columns) and job.state not in WORKING_STATES | {ImportJob.State.DONE},
+        "errors": job.errors[:200],
+    }
     return render(request, "fleet/import_detail.html", context)
+
+
+WORKING_STATES = {ImportJob.State.RECEIVED, ImportJob.State.CHECKING, ImportJob.State.IMPORTING}
 
 
 @permission_required("fleet.add_reading", raise_exception=True)

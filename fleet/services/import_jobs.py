@@ -1,116 +1,311 @@
-"""Import jobs: upload, map, check (dry run), then import all-or-nothing or good rows."""
+"""Imports: read (within limits), map, check (dry run), then import all or nothing or the good rows.
+
+One implementation for the web page (an ImportJob moved along by worker tasks) and
+for `manage.py import` (the same `import_file`, run in the command's process).
+Every job ends in a final state: a job that meets an unexpected error is marked
+failed with a message (the traceback goes to the log), never left checking.
+"""
 
 from __future__ import annotations
 
+import functools
+import logging
 from collections import defaultdict
+from collections.abc import Callable
+from dataclasses import dataclass
 
-from django.db import transaction
-from django.db.models import F
+from django.db import DatabaseError, connection, transaction
 
-from fleet import imports
+from fleet import import_kinds, imports
 from fleet.exports import csv_bytes
-from fleet.models import ImportJob
+from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 
 from .readings import enqueue_refit
 
-SPECS = {
-    ImportJob.Kind.READINGS: (imports.READING_COLUMNS, imports.check_readings),
-    ImportJob.Kind.REGISTER: (imports.REGISTER_COLUMNS, imports.check_register),
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class Kind:
+    """What one kind of file holds, how it is checked and how its good rows are written."""
+
+    columns: dict[str, str]
+    required: tuple[str, ...]
+    check: Callable
+    write: Callable  # (good rows, user) -> None, inside the import's transaction
+    max_lengths: dict[str, int]
+
+
+def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
+    """Our column -> the database column's length limit, for the CharFields a kind writes."""
+    return {column: model._meta.get_field(name).max_length for column, name in fields.items()}
+
+
+def _write_readings(good, user):
+    touched = imports.insert_readings(good, user)
+    transaction.on_commit(lambda: enqueue_refit(touched))
+
+
+def _write_register(good, user):
+    motor_ids = imports.insert_register(good)
+    transaction.on_commit(lambda: _estimate_later(motor_ids))
+
+
+def _write_history(good, user):
+    installation_ids = import_kinds.insert_history(good)
+    transaction.on_commit(lambda: enqueue_refit(installation_ids))
+
+
+KINDS = {
+    ImportJob.Kind.SITES: Kind(
+        import_kinds.SITE_COLUMNS,
+        import_kinds.SITE_REQUIRED,
+        import_kinds.check_sites,
+        lambda good, user: import_kinds.insert_sites(good),
+        _max_lengths(Site, {"code": "code", "name": "name", "time_zone": "time_zone"}),
+    ),
+    ImportJob.Kind.PARTS: Kind(
+        import_kinds.PART_COLUMNS,
+        import_kinds.PART_REQUIRED,
+        import_kinds.check_parts,
+        lambda good, user: import_kinds.insert_parts(good),
+        _max_lengths(CapacitorPart, {"code": "code", "description": "description", "duty": "duty"}),
+    ),
+    ImportJob.Kind.REGISTER: Kind(
+        imports.REGISTER_COLUMNS,
+        imports.REGISTER_REQUIRED,
+        imports.check_register,
+        _write_register,
+        _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location"}),
+    ),
+    ImportJob.Kind.HISTORY: Kind(
+        import_kinds.HISTORY_COLUMNS,
+        import_kinds.HISTORY_REQUIRED,
+        import_kinds.check_history,
+        _write_history,
+        _max_lengths(FittedCapacitor, {"serial": "serial"}),
+    ),
+    ImportJob.Kind.READINGS: Kind(
+        imports.READING_COLUMNS, imports.READING_REQUIRED, imports.check_readings, _write_readings, {}
+    ),
 }
 
 
+@dataclass
+class Outcome:
+    result: imports.CheckResult
+    header: list[str]
+    rows: list[list[str]]
+    imported: int = 0
+    refused: str = ""  # why nothing was imported though the file was read
+
+
+def check_file(*, kind: str, filename: str, content: bytes, mapping: dict | None = None, on_progress=None) -> Outcome:
+    """Read the file (limits first), map its columns and check every row; writes nothing.
+
+    `mapping` (our field -> the file's column) defaults to matching the headings by
+    name. `on_progress(done, total)` is called as rows are checked.
+    """
+    spec = KINDS[kind]
+    header, rows = imports.read_table(content, filename)
+    mapping = mapping or imports.suggest_mapping(header, spec.columns)
+    missing = [name for name in spec.required if mapping.get(name) not in header]
+    if missing:
+        raise imports.FileRefused(
+            "No column holds the required field" + ("s " if len(missing) > 1 else " ") + ", ".join(missing) + ": "
+            "name the headings as documented, or match the columns by hand on the import page."
+        )
+    if on_progress:
+        on_progress(0, len(rows))
+    frame = imports.mapped_frame(header, rows, mapping, spec.columns)
+    unstorable = imports.text_problems(frame, spec.max_lengths)
+    result = spec.check(
+        frame[~unstorable.bad].reset_index(drop=True),
+        on_progress=(lambda done: on_progress(done, len(rows))) if on_progress else None,
+    )
+    result.errors = sorted(result.errors + unstorable.items)
+    result.total = len(frame)
+    return Outcome(result=result, header=header, rows=rows)
+
+
+def import_file(
+    *,
+    kind: str,
+    filename: str,
+    content: bytes,
+    mode: str,
+    mapping: dict | None = None,
+    dry_run: bool = False,
+    user=None,
+    on_progress=None,
+    on_written=None,
+) -> Outcome:
+    """Check the file, then write its good rows in one transaction (nothing when `dry_run`).
+
+    All or nothing: any bad row refuses the whole file. Good rows only: the bad rows
+    stay out. Rows already in the database are skipped, so a second run adds
+    nothing. `on_written(outcome)` runs inside the transaction (the job's own record).
+    """
+    outcome = check_file(kind=kind, filename=filename, content=content, mapping=mapping, on_progress=on_progress)
+    result = outcome.result
+    if result.errors and mode == ImportJob.Mode.ALL_OR_NOTHING:
+        outcome.refused = f"{result.error_rows} rows have problems, so nothing was imported (all or nothing)."
+        return outcome
+    if dry_run:
+        return outcome
+    with transaction.atomic():
+        if len(result.good):
+            KINDS[kind].write(result.good, user if user and user.is_authenticated else None)
+        outcome.imported = len(result.good)
+        if on_written:
+            on_written(outcome)
+    return outcome
+
+
 def create_job(*, kind: str, filename: str, content: bytes, user) -> ImportJob:
-    """Store the upload and propose a column mapping; a file that cannot be read is refused."""
-    header, _ = imports.read_table(content, filename)
-    ours = SPECS[kind][0]
-    return ImportJob.objects.create(
+    """Store the upload and queue the reading of its headings; nothing is parsed here."""
+    job = ImportJob.objects.create(
         kind=kind,
         filename=filename[:200],
         content=content,
-        columns=header,
-        mapping=imports.suggest_mapping(header, ours),
         created_by=user if user and user.is_authenticated else None,
     )
+    transaction.on_commit(lambda: _queue("read_import", job.pk))
+    return job
 
 
-def _check(job: ImportJob, track: bool):
-    ours, checker = SPECS[job.kind]
-    header, rows = imports.read_table(bytes(job.content), job.filename)
-    frame = imports.mapped_frame(header, rows, job.mapping, ours)
+def _queue(task_name: str, job_id: int, *args) -> None:
+    """Send a job's next step to the workers; a queue that cannot be reached fails the job, with a message."""
+    from fleet import tasks
 
-    def progress(done):
-        if track:
-            ImportJob.objects.filter(pk=job.pk).update(done_rows=done)
-
-    return checker(frame, on_progress=progress), header, rows
-
-
-def check_job(job_id: int) -> ImportJob | None:
-    """Dry run: count good, duplicate and bad rows and keep the first problems; writes no data."""
-    job = ImportJob.objects.filter(pk=job_id).first()
-    if job is None:
-        return None
-    ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.CHECKING, done_rows=0)
     try:
-        result, _, rows = _check(job, track=True)
-    except imports.FileRefused as error:
-        ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.REFUSED, message=str(error))
-        return ImportJob.objects.get(pk=job.pk)
-    ImportJob.objects.filter(pk=job.pk).update(
-        state=ImportJob.State.CHECKED,
+        getattr(tasks, task_name).delay(job_id, *args)
+    except Exception:  # noqa: BLE001 - any broker failure: say so on the job instead of leaving it waiting
+        log.warning("import job %s: %s not queued", job_id, task_name, exc_info=True)
+        _update(
+            job_id,
+            state=ImportJob.State.FAILED,
+            message="The task queue could not be reached, so the file was not processed. Try again in a few minutes.",
+        )
+
+
+def queue_check(job: ImportJob, mapping: dict) -> None:
+    ImportJob.objects.filter(pk=job.pk).update(mapping=mapping, state=ImportJob.State.CHECKING, done_rows=0)
+    transaction.on_commit(lambda: _queue("check_import", job.pk))
+
+
+def queue_import(job: ImportJob, mode: str) -> None:
+    ImportJob.objects.filter(pk=job.pk).update(mode=mode, state=ImportJob.State.IMPORTING, done_rows=0)
+    transaction.on_commit(lambda: _queue("run_import", job.pk, mode))
+
+
+def _update(job_id: int, **values) -> None:
+    ImportJob.objects.filter(pk=job_id).update(**values)
+
+
+def _progress(job_id: int):
+    def report(done, total):
+        _update(job_id, done_rows=done, total_rows=total)
+
+    return report
+
+
+def _summary(result: imports.CheckResult) -> dict:
+    return dict(
         total_rows=result.total,
         done_rows=result.total,
         good_rows=len(result.good),
         duplicate_rows=result.duplicates,
         error_rows=result.error_rows,
         errors=[list(e) for e in result.errors[: imports.MAX_REPORTED_ERRORS]],
-        message="",
     )
-    return ImportJob.objects.get(pk=job.pk)
 
 
-def run_job(job_id: int, mode: str) -> ImportJob | None:
-    """Import after a fresh check (the register may have changed since the dry run).
+def _guarded(step: Callable[[ImportJob], None]) -> Callable[[int], ImportJob | None]:
+    """Run one step of a job; a refused file ends it refused, any other error ends it failed."""
 
-    All or nothing: any bad row refuses the whole file. Good rows only: the bad
-    rows stay out and can be downloaded to fix. Either way the good rows go in
-    one transaction; rows already imported are skipped, so a second run adds nothing.
-    """
-    job = ImportJob.objects.filter(pk=job_id).first()
-    if job is None:
-        return None
-    ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.IMPORTING, mode=mode, done_rows=0)
-    try:
-        result, _, _ = _check(job, track=True)
-    except imports.FileRefused as error:
-        ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.REFUSED, message=str(error))
-        return ImportJob.objects.get(pk=job.pk)
-    summary = dict(
-        total_rows=result.total,
-        good_rows=len(result.good),
-        duplicate_rows=result.duplicates,
-        error_rows=result.error_rows,
-        errors=[list(e) for e in result.errors[: imports.MAX_REPORTED_ERRORS]],
+    def run(job_id: int, *args) -> ImportJob | None:
+        job = ImportJob.objects.filter(pk=job_id).first()
+        if job is None:
+            return None
+        try:
+            step(job, *args)
+        except imports.FileRefused as error:
+            _update(job.pk, state=ImportJob.State.REFUSED, message=str(error))
+        except Exception as error:  # noqa: BLE001 - whatever happens, the job must not stay in progress
+            log.exception("import job %s (%s, %s) failed", job.pk, job.kind, job.filename)
+            _mark_failed(job.pk, error)
+        return ImportJob.objects.defer("content").get(pk=job.pk)
+
+    return functools.wraps(step)(run)
+
+
+def _mark_failed(job_id: int, error: Exception) -> None:
+    lost = isinstance(error, DatabaseError)
+    cause = "the database connection was lost or refused a write" if lost else "an unexpected error"
+    message = (
+        f"The import stopped on {cause} ({type(error).__name__}). Nothing was imported; the details are in the "
+        "server log. Try again, or ask an administrator."
     )
-    if result.errors and mode == ImportJob.Mode.ALL_OR_NOTHING:
-        ImportJob.objects.filter(pk=job.pk).update(
-            state=ImportJob.State.REFUSED,
-            imported_rows=0,
-            message=f"{result.error_rows} rows have problems, so nothing was imported (all or nothing).",
-            **summary,
+    if lost and not connection.in_atomic_block:
+        connection.close()  # a broken connection is replaced by a fresh one for the record below
+    _update(job_id, state=ImportJob.State.FAILED, message=message)
+
+
+def _read(job: ImportJob) -> None:
+    """Read the file within the limits; keep its headings and propose a mapping by name."""
+    _update(job.pk, state=ImportJob.State.RECEIVED, message="")
+    header, rows = imports.read_table(bytes(job.content), job.filename)
+    _update(
+        job.pk,
+        state=ImportJob.State.UPLOADED,
+        columns=header,
+        mapping=imports.suggest_mapping(header, KINDS[job.kind].columns),
+        total_rows=len(rows),
+    )
+
+
+def _check(job: ImportJob) -> None:
+    """Dry run: count good, duplicate and bad rows and keep the first problems; writes no data."""
+    _update(job.pk, state=ImportJob.State.CHECKING, done_rows=0, message="")
+    outcome = check_file(
+        kind=job.kind,
+        filename=job.filename,
+        content=bytes(job.content),
+        mapping=job.mapping,
+        on_progress=_progress(job.pk),
+    )
+    _update(job.pk, state=ImportJob.State.CHECKED, message="", **_summary(outcome.result))
+
+
+def _run(job: ImportJob, mode: str) -> None:
+    """Import after a fresh check (the register may have changed since the dry run)."""
+    _update(job.pk, state=ImportJob.State.IMPORTING, mode=mode, done_rows=0, message="")
+
+    def record(outcome: Outcome) -> None:
+        _update(
+            job.pk, state=ImportJob.State.DONE, imported_rows=outcome.imported, message="", **_summary(outcome.result)
         )
-        return ImportJob.objects.get(pk=job.pk)
-    with transaction.atomic():
-        if job.kind == ImportJob.Kind.READINGS:
-            touched = imports.insert_readings(result.good, job.created_by)
-            transaction.on_commit(lambda: enqueue_refit(touched))
-        else:
-            motor_ids = imports.insert_register(result.good)
-            transaction.on_commit(lambda: _estimate_later(motor_ids))
-        ImportJob.objects.filter(pk=job.pk).update(
-            state=ImportJob.State.DONE, imported_rows=len(result.good), done_rows=F("total_rows"), message="", **summary
+
+    outcome = import_file(
+        kind=job.kind,
+        filename=job.filename,
+        content=bytes(job.content),
+        mode=mode,
+        mapping=job.mapping,
+        user=job.created_by,
+        on_progress=_progress(job.pk),
+        on_written=record,
+    )
+    if outcome.refused:
+        _update(
+            job.pk, state=ImportJob.State.REFUSED, imported_rows=0, message=outcome.refused, **_summary(outcome.result)
         )
-    return ImportJob.objects.get(pk=job.pk)
+
+
+read_job = _guarded(_read)
+check_job = _guarded(_check)
+run_job = _guarded(_run)
 
 
 def _estimate_later(motor_ids):
@@ -121,9 +316,9 @@ def _estimate_later(motor_ids):
 
 def rejected_rows_csv(job: ImportJob) -> bytes:
     """The bad rows as uploaded, with a last column saying what is wrong, field by field."""
-    result, header, rows = _check(job, track=False)
+    outcome = check_file(kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping)
     problems = defaultdict(list)
-    for row, field_name, message in result.errors:
+    for row, field_name, message in outcome.result.errors:
         problems[row].append(f"{field_name}: {message}")
-    picked = [rows[number - 2] + ["; ".join(problems[number])] for number in sorted(problems)]
-    return csv_bytes(header + ["problems"], picked)
+    picked = [outcome.rows[number - 2] + ["; ".join(problems[number])] for number in sorted(problems)]
+    return csv_bytes(outcome.header + ["problems"], picked)

@@ -1,0 +1,248 @@
+"""`manage.py import KIND FILE`: a whole migration from files, with the web import's checks and report."""
+
+import datetime as dt
+import io
+from unittest import mock
+
+import pytest
+from django.core.management import call_command, load_command_class
+from django.core.management.base import CommandError
+from django.urls import reverse
+
+from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Reading, Site
+from fleet.services.lifedata import life_table, part_life
+
+pytestmark = pytest.mark.django_db
+
+SITES = """code,name,time_zone
+PK,Packhouse,Europe/Madrid
+CS,Cool store,America/Chicago
+"""
+
+PARTS = (
+    "code,rated_uf,tolerance_minus_pct,tolerance_plus_pct,rated_voltage_v,dielectric,frequency_hz,"
+    "class_of_operation,safety_class,max_dissipation_factor,unit_cost\n"
+)
+PARTS += """RUN-8,8,5,5,450,film,50,B,S2,0.002,7.5
+ST-100,100,0,20,250,Electrolytic,50,,,,
+"""
+
+REGISTER = (
+    "asset_tag,site_code,application,motor_type,load_type,rated_voltage_v,frequency_hz,poles,output_w,"
+    "full_load_current_a,rated_speed_rpm,run_part_code,start_part_code,fitted_on\n"
+)
+REGISTER += """FAN-1,PK,fan,permanent_split,fan_law,230,50,4,250,1.9,1370,RUN-8,,2023-03-01
+CMP-1,CS,compressor,capacitor_start,constant,230,50,4,550,4.1,1420,,ST-100,2024-01-10
+"""
+
+HISTORY = """asset_tag,role,part_code,fitted_on,removed_on,removal_reason,serial,notes
+FAN-1,run,RUN-8,2017-05-02,2019-08-20,failed,A1,open circuit
+FAN-1,run,RUN-8,2019-08-20,2021-02-11,failed,,
+FAN-1,run,RUN-8,2021-02-11,2023-03-01,planned,,on plan
+CMP-1,start,ST-100,2020-06-01,2024-01-10,failed,,vented
+"""
+
+READINGS = """asset_tag,role,taken_at,capacitance_uf
+FAN-1,run,2020-05-04 10:00,7.9
+FAN-1,run,2024-05-04 10:00,7.8
+"""
+
+
+def write(tmp_path, name, text):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+def run(*args):
+    out = io.StringIO()
+    call_command("import", *map(str, args), stdout=out)
+    return out.getvalue()
+
+
+def migrate_all(tmp_path):
+    for kind, text in (
+        ("sites", SITES),
+        ("parts", PARTS),
+        ("register", REGISTER),
+        ("history", HISTORY),
+        ("readings", READINGS),
+    ):
+        run(kind, write(tmp_path, f"{kind}.csv", text))
+
+
+def test_a_whole_migration_imports_each_kind_and_a_second_run_adds_nothing(tmp_path):
+    migrate_all(tmp_path)
+    assert dict(Site.objects.values_list("code", "time_zone")) == {"PK": "Europe/Madrid", "CS": "America/Chicago"}
+    run8, start = CapacitorPart.objects.get(code="RUN-8"), CapacitorPart.objects.get(code="ST-100")
+    assert (run8.rated_uf, run8.class_of_operation, run8.max_dissipation_factor, str(run8.unit_cost)) == (
+        8.0,
+        "B",
+        0.002,
+        "7.50",
+    )
+    assert (start.dielectric, start.max_case_temperature_c, start.max_dissipation_factor) == ("electrolytic", 70, None)
+    fan = Motor.objects.get(asset_tag="FAN-1")
+    assert list(fan.capacitors.order_by("fitted_on").values_list("fitted_on", "removed_on", "removal_reason")) == [
+        (dt.date(2017, 5, 2), dt.date(2019, 8, 20), "failed"),
+        (dt.date(2019, 8, 20), dt.date(2021, 2, 11), "failed"),
+        (dt.date(2021, 2, 11), dt.date(2023, 3, 1), "planned"),
+        (dt.date(2023, 3, 1), None, ""),
+    ]
+    # Each reading goes to the capacitor fitted on its date: 2020 to the second, 2024 to the one in service.
+    assert sorted(Reading.objects.values_list("installation__fitted_on", flat=True)) == [
+        dt.date(2019, 8, 20),
+        dt.date(2023, 3, 1),
+    ]
+    counts = [Model.objects.count() for Model in (Site, CapacitorPart, Motor, FittedCapacitor, Reading)]
+    for kind in ("sites", "parts", "register", "history", "readings"):
+        with pytest.raises(CommandError, match="Nothing was imported"):
+            run(kind, tmp_path / f"{kind}.csv")
+    assert [Model.objects.count() for Model in (Site, CapacitorPart, Motor, FittedCapacitor, Reading)] == counts
+
+
+def test_history_rows_become_failures_and_suspensions_of_life_data(tmp_path):
+    """A removal reason `failed` is a failure; planned removals and capacitors in service are suspensions."""
+    migrate_all(tmp_path)
+    part = CapacitorPart.objects.get(code="RUN-8")
+    table = life_table(part.id, today=dt.date(2026, 3, 1)).sort_values("fitted_on")
+    assert table["failed"].tolist() == [True, True, False, False]
+    assert table["age_days"].tolist() == [
+        (dt.date(2019, 8, 20) - dt.date(2017, 5, 2)).days,
+        (dt.date(2021, 2, 11) - dt.date(2019, 8, 20)).days,
+        (dt.date(2023, 3, 1) - dt.date(2021, 2, 11)).days,
+        (dt.date(2026, 3, 1) - dt.date(2023, 3, 1)).days,
+    ]
+    life = part_life(part.id, planned_cost=60, failure_cost=400)
+    assert (life["failures"], life["suspensions"]) == (2, 2) and life["fit"] is not None
+
+
+def test_history_dates_must_hang_together(tmp_path):
+    for kind in ("sites", "parts", "register"):
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS, "register": REGISTER}[kind]))
+    bad = """asset_tag,role,part_code,fitted_on,removed_on,removal_reason
+FAN-1,run,RUN-8,2019-01-01,2018-01-01,failed
+FAN-1,run,RUN-8,2018-01-01,2019-01-01,
+FAN-1,run,RUN-8,2017-01-01,,failed
+FAN-1,run,RUN-8,2022-01-01,2023-06-01,failed
+FAN-1,run,RUN-8,2020-01-01,,
+FAN-1,start,RUN-8,2015-01-01,2016-01-01,failed
+FAN-1,run,RUN-8,2014-01-01,2016-01-01,failed
+FAN-1,run,RUN-8,2012-01-01,2014-06-01,failed
+FAN-1,run,RUN-8,2010-01-01,2012-01-01,planned
+FAN-1,run,RUN-8,2008-01-01,2009-01-01,worn
+"""
+    with pytest.raises(CommandError, match="9 rows have problems"):
+        run("history", write(tmp_path, "history.csv", bad))
+    out = io.StringIO()
+    with pytest.raises(CommandError):
+        call_command("import", "history", str(tmp_path / "history.csv"), "--dry-run", stdout=out)
+    report = out.getvalue()
+    assert "row 2, removed_on: before fitted_on" in report
+    assert "row 3, removal_reason: required when removed_on is given" in report
+    assert "row 4, removal_reason: given for a capacitor still in service" in report
+    assert "row 5, fitted_on: overlaps the run capacitor fitted 2023-03-01 (in service, the register)" in report
+    assert "row 6, removed_on: another run capacitor is in service on this motor" in report
+    assert "row 7, role: a permanent-split motor has no start capacitor" in report
+    assert "row 8, fitted_on: overlaps the run capacitor fitted 2012-01-01 (removed 2014-06-01, row 9)" in report
+    assert "row 9, fitted_on: overlaps the run capacitor fitted 2014-01-01 (removed 2016-01-01, row 8)" in report
+    assert "row 10" not in report  # touching periods (removed and refitted the same day) are fine
+    assert "row 11, removal_reason: must be failed, planned or other" in report
+    assert FittedCapacitor.objects.count() == 2
+    out = run("history", tmp_path / "history.csv", "--good-rows-only")
+    assert "Imported 1 rows." in out and FittedCapacitor.objects.filter(fitted_on=dt.date(2010, 1, 1)).exists()
+
+
+def test_a_bad_row_is_named_by_row_and_field_and_good_rows_only_imports_the_rest(tmp_path):
+    text = SITES + "XX,Nowhere,Mars/Olympus\n" + "YY,,UTC\n" + "PK,Again,UTC\n"
+    path = write(tmp_path, "sites.csv", text)
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="3 rows have problems, so nothing was imported"):
+        call_command("import", "sites", str(path), stdout=out)
+    assert "row 4, time_zone: not a time zone name" in out.getvalue()
+    assert "row 5, name: required" in out.getvalue()
+    assert "row 6, code: the same site code as row 2" in out.getvalue()
+    assert not Site.objects.exists()
+    assert "Imported 2 rows." in run("sites", path, "--good-rows-only")
+    assert set(Site.objects.values_list("code", flat=True)) == {"PK", "CS"}
+
+
+def test_parts_are_held_to_the_catalogue_constraints(tmp_path):
+    text = PARTS + "BAD-1,8,120,5,450,paper,55,E,,1.5,-2\n" + "BAD-2,inf,5,5,450,film,50,,,,\n"
+    out = io.StringIO()
+    with pytest.raises(CommandError):
+        call_command("import", "parts", str(write(tmp_path, "parts.csv", text)), "--dry-run", stdout=out)
+    assert "row 4, tolerance_minus_pct: must be from 0 to below 100 %" in out.getvalue()
+    assert "row 5, rated_uf: not a finite number" in out.getvalue()
+    assert not CapacitorPart.objects.exists()
+
+
+def test_a_dry_run_saves_nothing(tmp_path):
+    out = run("sites", write(tmp_path, "sites.csv", SITES), "--dry-run")
+    assert "Dry run: nothing was saved; 2 rows would be imported." in out
+    assert not Site.objects.exists() and not ImportJob.objects.exists()
+
+
+def test_the_exit_status_is_not_zero_when_nothing_was_imported(tmp_path, capsys):
+    command = load_command_class("fleet", "import")
+    path = write(tmp_path, "sites.csv", SITES)
+    with mock.patch("django.db.connections.close_all"):
+        command.run_from_argv(["manage.py", "import", "sites", str(path)])  # imports: returns normally
+        for argv in (
+            ["import", "sites", str(path)],  # everything already there
+            ["import", "sites", str(write(tmp_path, "twice.csv", "code,code\nA,B\n"))],  # file refused
+            ["import", "sites", str(tmp_path / "missing.csv")],
+        ):
+            with pytest.raises(SystemExit) as exit_status:
+                load_command_class("fleet", "import").run_from_argv(["manage.py", *argv])
+            assert exit_status.value.code == 1
+    errors = capsys.readouterr().err
+    assert "Nothing was imported" in errors and "appears twice" in errors and "No such file" in errors
+
+
+def test_refits_are_queued_in_chunks_after_a_history_import(tmp_path, settings, django_capture_on_commit_callbacks):
+    settings.FLEET_REFIT_CHUNK_SIZE = 3
+    for kind in ("sites", "parts", "register"):
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS, "register": REGISTER}[kind]))
+    with (
+        mock.patch("fleet.tasks.refit_capacitors.delay") as delay,
+        django_capture_on_commit_callbacks(execute=True),
+    ):
+        run("history", write(tmp_path, "history.csv", HISTORY))
+    chunks = [call.args[0] for call in delay.call_args_list]
+    assert [len(c) for c in chunks] == [3, 1]
+    history = FittedCapacitor.objects.exclude(fitted_on__in=[dt.date(2023, 3, 1), dt.date(2024, 1, 10)])
+    assert sorted(i for c in chunks for i in c) == sorted(history.values_list("id", flat=True))
+
+
+def test_the_web_page_offers_the_new_kinds_through_the_same_service(
+    client, administrator, django_capture_on_commit_callbacks
+):
+    client.force_login(administrator)
+    page = client.get(reverse("imports")).content.decode()
+    assert all(f'value="{kind}"' in page for kind in ("sites", "parts", "history"))
+    assert "<code>removal_reason</code>" in page and "<code>time_zone</code>" in page
+    upload = io.BytesIO(SITES.encode())
+    upload.name = "sites.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "sites", "file": upload})
+    job = ImportJob.objects.get()
+    assert job.state == ImportJob.State.UPLOADED and job.mapping == {
+        "code": "code",
+        "name": "name",
+        "time_zone": "time_zone",
+    }
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("import_detail", args=[job.id]), {"action": "all"})
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.DONE and job.imported_rows == 2 and Site.objects.count() == 2
+
+
+def test_a_technician_cannot_import_sites(client, technician):
+    client.force_login(technician)
+    upload = io.BytesIO(SITES.encode())
+    upload.name = "sites.csv"
+    response = client.post(reverse("imports"), {"kind": "sites", "file": upload})
+    assert "Your role cannot import sites" in response.content.decode() and not ImportJob.objects.exists()
