@@ -113,3 +113,13 @@ def test_the_tolerance_entry_of_the_api_limits_is_used():
     frame = scoring.forecasts_from_api(items)
     assert frame["p10_on"].fillna("none").tolist() == ["2025-02-01", "2026-01-01", "none"]
     assert frame["p90_on"].fillna("none").tolist() == ["none", "2026-03-01", "none"]
+    assert frame["tolerance_known"].tolist() == [True, True, False]
+
+
+def test_a_capacitor_whose_tolerance_forecast_is_unknown_is_not_scored_as_late():
+    truth = _truth(["2024-06-01"])
+    forecasts = _forecasts(truth, p10=[None], p50=[None], p90=[None], risk=["replace now"]).assign(
+        tolerance_known=[False]
+    )
+    result = scoring.score(truth, CUT, forecasts)
+    assert (result["above_p90"], result["no_forecast"], result["recall"]) == (0.0, 1.0, 1.0)

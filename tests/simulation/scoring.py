@@ -7,7 +7,8 @@ limit (null: not within the forecast's horizon) and a risk level.
 - Band: among capacitors still above their limit at the cut-off whose true
   crossing falls after it and within the simulated span, the share whose
   crossing lies inside [P10, P90], below P10, above P90 (a null P90 counts as
-  above if it crossed), or that have no forecast at all.
+  above if it crossed), or that have no tolerance forecast at all (no
+  assessment, or `tolerance_known` false).
 - P50 error as a share of the true remaining life (crossing - cut-off).
 - Risk: among capacitors not yet below their limit at the cut-off, recall and
   precision of "flagged for the next 365 days" against "truly crosses within
@@ -46,12 +47,14 @@ def score(truth: pd.DataFrame, cutoff: dt.date, forecasts: pd.DataFrame, horizon
     forecasts = forecasts.copy()
     for name in ("p10_on", "p50_on", "p90_on"):
         forecasts[name] = _dates(forecasts[name])
+    if "tolerance_known" not in forecasts:
+        forecasts["tolerance_known"] = True
     frame = in_service(truth, cutoff).merge(
-        forecasts[["asset_tag", "role", "p10_on", "p50_on", "p90_on", "risk"]].assign(forecast=True),
+        forecasts[["asset_tag", "role", "p10_on", "p50_on", "p90_on", "risk", "tolerance_known"]],
         on=["asset_tag", "role"],
         how="left",
     )
-    frame["forecast"] = frame["forecast"].eq(True)
+    frame["forecast"] = frame["tolerance_known"].eq(True)
     crossed = frame["crossed_on"]
     above_at_cut = crossed.isna() | (crossed >= day)
 
@@ -128,7 +131,7 @@ def forecasts_from_api(items: list[dict]) -> pd.DataFrame:
 
     The entry named `tolerance` of an item's `limits`; an item without that list
     falls back to its own dates when its governing limit is the tolerance; else
-    the tolerance forecast is missing (null dates).
+    the tolerance forecast is missing (`tolerance_known` false).
     """
     rows = []
     for item in items:
@@ -144,7 +147,8 @@ def forecasts_from_api(items: list[dict]) -> pd.DataFrame:
                 "p10_on": limit and limit.get("p10_on"),
                 "p50_on": limit and limit.get("p50_on"),
                 "p90_on": limit and limit.get("p90_on"),
+                "tolerance_known": limit is not None,
             }
         )
-    columns = ["asset_tag", "role", "risk", "limit_source", "p10_on", "p50_on", "p90_on"]
+    columns = ["asset_tag", "role", "risk", "limit_source", "p10_on", "p50_on", "p90_on", "tolerance_known"]
     return pd.DataFrame(rows, columns=columns)
