@@ -61,34 +61,7 @@ SITES = pd.DataFrame(
 # (invented, chosen so the fleet's median life to the tolerance limit is several
 # years, as the trade experiences it: run capacitors are changed every 5-10
 # years, start capacitors about as often; common practice of the trade).
-PARTS = pd.DataFrame(
-    [
-        ("RC08-450", 8.0, 5.0, 5.0, 450.0, "film", 50, "B", 70.0, 0.002, "6.40", -230e-6, 9000.0),
-        ("RC20-450", 20.0, 5.0, 5.0, 450.0, "film", 50, "B", 70.0, 0.002, "11.80", -220e-6, 10000.0),
-        ("RC25-450", 25.0, 5.0, 5.0, 450.0, "film", 50, "A", 85.0, 0.002, "16.50", -210e-6, 14000.0),
-        ("RC35-440", 35.0, 6.0, 6.0, 440.0, "film", 60, "B", 70.0, 0.002, "14.90", -240e-6, 20000.0),
-        ("RC05-370", 5.0, 6.0, 6.0, 370.0, "film", 60, "C", 70.0, 0.002, "5.20", -250e-6, 5000.0),
-        ("SC98-250", 98.0, 10.2, 10.2, 250.0, "electrolytic", 50, "", 65.0, 0.10, "9.90", 0.0, 26000.0),
-        ("SC119-330", 119.0, 9.2, 9.2, 330.0, "electrolytic", 50, "", 65.0, 0.10, "12.40", 0.0, 30000.0),
-        ("SC177-125", 177.0, 9.0, 9.0, 125.0, "electrolytic", 60, "", 65.0, 0.10, "8.70", 0.0, 32000.0),
-    ],
-    columns=[
-        "code",
-        "rated_uf",
-        "tolerance_minus_pct",
-        "tolerance_plus_pct",
-        "rated_voltage_v",
-        "dielectric",
-        "frequency_hz",
-        "class_of_operation",
-        "max_case_temperature_c",
-        "max_dissipation_factor",
-        "unit_cost",
-        "tempco_per_k",
-        "life_scale_h",
-    ],
-)
-PART_COLUMNS = [
+PART_COLUMNS = [  # the parts file's headings: the catalogue's field names
     "code",
     "rated_uf",
     "tolerance_minus_pct",
@@ -101,6 +74,19 @@ PART_COLUMNS = [
     "max_dissipation_factor",
     "unit_cost",
 ]
+PARTS = pd.DataFrame(
+    [
+        ("RC08-450", 8.0, 5.0, 5.0, 450.0, "film", 50, "B", 70.0, 0.002, "6.40", -230e-6, 9000.0),
+        ("RC20-450", 20.0, 5.0, 5.0, 450.0, "film", 50, "B", 70.0, 0.002, "11.80", -220e-6, 10000.0),
+        ("RC25-450", 25.0, 5.0, 5.0, 450.0, "film", 50, "A", 85.0, 0.002, "16.50", -210e-6, 14000.0),
+        ("RC35-440", 35.0, 6.0, 6.0, 440.0, "film", 60, "B", 70.0, 0.002, "14.90", -240e-6, 20000.0),
+        ("RC05-370", 5.0, 6.0, 6.0, 370.0, "film", 60, "C", 70.0, 0.002, "5.20", -250e-6, 5000.0),
+        ("SC98-250", 98.0, 10.2, 10.2, 250.0, "electrolytic", 50, "", 65.0, 0.10, "9.90", 0.0, 26000.0),
+        ("SC119-330", 119.0, 9.2, 9.2, 330.0, "electrolytic", 50, "", 65.0, 0.10, "12.40", 0.0, 30000.0),
+        ("SC177-125", 177.0, 9.0, 9.0, 125.0, "electrolytic", 60, "", 65.0, 0.10, "8.70", 0.0, 32000.0),
+    ],
+    columns=[*PART_COLUMNS, "tempco_per_k", "life_scale_h"],
+)
 
 # Motor designs (nameplates typical of small single-phase motors; common
 # practice of the trade). vcap: capacitor voltage / line voltage while running
