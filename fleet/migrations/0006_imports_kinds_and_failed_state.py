@@ -6,7 +6,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('fleet', '0004_assessment_reasons_and_limits'),
+        ('fleet', '0005_forecast_calibration_and_backtests'),
     ]
 
     operations = [
