@@ -530,9 +530,15 @@ class BandCalibration(models.Model):
     """Calibration of forecast bands for one family of parts (a dielectric), from a back-test."""
 
     family = models.CharField(max_length=20, unique=True)
-    slope_bias = models.FloatField(help_text="Future slope = fitted slope x (1 + bias + bias per loss x loss so far)")
-    slope_bias_per_loss = models.FloatField(default=0.0)
+    slope_bias = models.FloatField(help_text="Future slope = fitted slope x (1 + bias) + extra slope")
     slope_spread = models.FloatField(help_text="Relative standard deviation of the future slope")
+    extra_slope_per_h = models.FloatField(
+        default=0.0, help_text="Common extra slope, fraction of rated per stress hour"
+    )
+    extra_sd_per_h = models.FloatField(default=0.0, help_text="Its standard deviation, per stress hour")
+    acceleration_per_h = models.FloatField(
+        default=0.0, help_text="Relative growth of a capacitor's own slope per stress hour ahead"
+    )
     capacitors = models.PositiveIntegerField(default=0)
     residuals = models.PositiveIntegerField(default=0)
     backtest = models.ForeignKey(Backtest, null=True, on_delete=models.SET_NULL, related_name="+")
@@ -545,7 +551,7 @@ class BandCalibration(models.Model):
             ),
             models.CheckConstraint(condition=Q(slope_bias__gt=-1, slope_bias__lt=100), name="calibration_bias_sane"),
             models.CheckConstraint(
-                condition=Q(slope_bias_per_loss__gte=0, slope_bias_per_loss__lt=1000), name="calibration_loss_term_sane"
+                condition=Q(extra_sd_per_h__gte=0, extra_sd_per_h__lt=1), name="calibration_extra_sane"
             ),
         ]
 

@@ -43,13 +43,15 @@ def test_dates_inside_below_and_above_the_band():
     truth = _truth(["2024-06-01", "2024-06-01", "2024-06-01", "2024-06-01"])
     forecasts = _forecasts(
         truth,
-        p10=["2024-05-01", "2024-07-01", "2024-01-15", "2024-02-01"],
+        p10=["2024-05-01", "2024-07-01", "2024-01-15", None],
         p50=["2024-06-01", "2024-08-01", "2024-02-01", None],
         p90=["2024-07-01", "2024-09-01", "2024-03-01", None],  # the last: no crossing within the horizon
         risk=["watch"] * 4,
     )
     result = scoring.score(truth, CUT, forecasts)
-    assert (result["inside"], result["below_p10"], result["above_p90"]) == (0.25, 0.25, 0.5)
+    assert (result["inside"], result["below_p10"], result["above_p90"]) == (0.25, 0.5, 0.25)
+    open_ended = _forecasts(truth.iloc[:1], p10=["2024-05-01"], p50=[None], p90=[None], risk=["watch"])
+    assert scoring.score(truth.iloc[:1], CUT, open_ended)["inside"] == 1.0  # P90 beyond the horizon holds it
     # P50 errors over a remaining life of 152 days: 0, +61, -121 days.
     assert result["p50_error_median"] == pytest.approx(0.0)
 

@@ -25,8 +25,10 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     group: the capacitor (index into the fit) of each later reading; time_h its
     calendar hours since fitting. The projection runs at the long-run stress
     rate from the newest fitted reading, as the forecast does. Returns
-    (projected_change, error, known_variance, fraction_25c) per reading; the
-    known variance is the path's own plus the reading noise.
+    (projected_change, projected_stress_hours, error, known_variance,
+    fraction_25c) per reading; the
+    known variance is the path's own plus the reading noise. Also returns the
+    projected stress hours since the newest fitted reading.
     """
     g = np.asarray(group, np.int64)
     t = np.asarray(time_h, float)
@@ -41,8 +43,8 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     predicted = fit.intercept[g] + fit.slope_per_hour[g] * tau
     v00, v01, v11 = fit.covariance[g, 0, 0], fit.covariance[g, 0, 1], fit.covariance[g, 1, 1]
     variance = v00 + 2.0 * tau * v01 + tau * tau * v11 + fit.noise_sd[g] ** 2
-    change = fit.slope_per_hour[g] * (tau - fit.stress_hours_now[g])
-    return change, z - predicted, variance, fraction
+    span = tau - fit.stress_hours_now[g]
+    return fit.slope_per_hour[g] * span, span, z - predicted, variance, fraction
 
 
 def first_crossing_day(group, day, below, n_groups):

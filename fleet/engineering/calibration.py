@@ -10,32 +10,38 @@ temperature correction is imperfect. Those errors are measured, not assumed:
    memory): at past cut-offs the fleet is refitted with only the readings taken
    before, and each later reading is compared with the path projected to its
    date at the long-run stress rate.
-2. The error e of a later reading is modelled as a bias proportional to the
-   projected change x = slope x (projected stress hours since the newest
-   reading), plus noise whose variance is the fit's own (path and meter)
-   plus (spread x x)^2. The bias grows with the loss the capacitor has already
-   suffered (loss = fitted fraction at fitting minus now): paths accelerate as
-   they age, so e = (bias + bias_per_loss x loss) x + eps. Per family of parts
-   (dielectric), the two bias terms by weighted least squares and spread^2 by
-   the method of moments.
-3. The calibrated forecast scales the slope by (1 + bias + bias_per_loss x loss)
-   and widens the path's variance by (spread x slope x (tau - tau_now))^2. This is split conformal
-   prediction in spirit (Vovk, Gammerman and Shafer 2005; Angelopoulos and
-   Bates 2021; from memory): held-out errors set the width, here through a
-   two-number parametric family so that it carries to every horizon and limit.
+2. The error e of a later reading, d projected stress hours after the
+   capacitor's newest reading, is modelled as
+       e = bias x + acceleration x d + extra_slope d + eps,
+       var(eps) = V + (spread x)^2 + (extra_sd d)^2,
+   with x = slope d the capacitor's own projected change and V the fit's own
+   variance (path and meter). `acceleration` is the relative growth of a
+   capacitor's own slope with time ahead (an exponential path a (exp(t/T) - 1)
+   gives 1 / 2T to first order); `extra_slope` and `extra_sd` carry what its own
+   slope cannot know, such as a path still flat today that bends later. Per
+   family of parts (dielectric): the three mean terms by weighted least squares,
+   the two spreads by the method of moments (the excess squared error
+   regressed on x^2 and d^2).
+3. The calibrated forecast's path beyond the newest reading is the fit's plus
+   those terms, its variance the fit's plus theirs; the crossing quantiles are
+   then found on a grid of times ahead (`calibrated_crossing_quantiles`). This
+   is split conformal prediction in spirit (Vovk, Gammerman and Shafer 2005;
+   Angelopoulos and Bates 2021; from memory): held-out errors set the width and
+   the shift, here through a five-number family so that they carry to every
+   horizon and limit.
 
 Families with too little history keep conservative defaults (no bias, 35 %
-spread of the future slope: our choice, to be replaced by the fleet's own figure).
+spread of the future slope, no acceleration or common term: our choice, to be
+replaced by the fleet's own figures).
 """
 
 from __future__ import annotations
 
-import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-from .trends import MODEL_LOG, TrendFit
+from .trends import TrendFit, crossing_quantiles
 
 
 @dataclass(frozen=True)
@@ -43,8 +49,8 @@ class CalibrationSettings:
     default_bias: float = 0.0
     default_spread: float = 0.35
     min_spread: float = 0.10  # never claim to know a future slope better than +/-10 %
-    bias_range: tuple[float, float] = (-0.5, 3.0)  # of the whole bias, per capacitor
-    bias_per_loss_range: tuple[float, float] = (0.0, 60.0)  # per unit fraction lost (60: +3 at 5 % lost)
+    bias_range: tuple[float, float] = (-0.5, 3.0)
+    acceleration_range: tuple[float, float] = (0.0, 1e-3)  # per stress hour ahead: slopes never assumed to ease
     max_spread: float = 3.0
     min_capacitors: int = 20  # with later readings, per family, before its own figures are used
     jump_fraction: float = 0.25  # a later reading this far off is a slip or a failure, not ageing
@@ -52,61 +58,78 @@ class CalibrationSettings:
 
 @dataclass(frozen=True)
 class ForecastCalibration:
-    """Per family (length F): slope bias, relative spread, and what stood behind them."""
+    """Per family (length F): the calibration's four numbers, and what stood behind them.
+
+    extra_slope and extra_sd are in z units (fraction of rated, or its log) per
+    stress hour; acceleration per stress hour ahead.
+    """
 
     slope_bias: np.ndarray
-    slope_bias_per_loss: np.ndarray
     slope_spread: np.ndarray
+    extra_slope: np.ndarray
+    extra_sd: np.ndarray
+    acceleration: np.ndarray  # per stress hour ahead
     capacitors: np.ndarray
     residuals: np.ndarray
 
-    def bias_for(self, family, loss, settings: CalibrationSettings | None = None) -> np.ndarray:
-        """Each capacitor's slope bias from its family and the loss it has suffered."""
-        settings = settings or CalibrationSettings()
+    def per_capacitor(self, family) -> np.ndarray:
+        """(5, G) of bias, spread, extra slope, extra sd and acceleration per capacitor."""
         family = np.asarray(family, np.int64)
-        bias = self.slope_bias[family] + self.slope_bias_per_loss[family] * np.clip(loss, 0.0, 0.5)
-        return np.clip(np.nan_to_num(bias), *settings.bias_range)
+        names = ("slope_bias", "slope_spread", "extra_slope", "extra_sd", "acceleration")
+        return np.stack([np.asarray(getattr(self, name), float)[family] for name in names])
 
 
 def default_calibration(n_families: int, settings: CalibrationSettings | None = None) -> ForecastCalibration:
     settings = settings or CalibrationSettings()
     return ForecastCalibration(
         slope_bias=np.full(n_families, settings.default_bias),
-        slope_bias_per_loss=np.zeros(n_families),
         slope_spread=np.full(n_families, settings.default_spread),
+        extra_slope=np.zeros(n_families),
+        extra_sd=np.zeros(n_families),
+        acceleration=np.zeros(n_families),
         capacitors=np.zeros(n_families, int),
         residuals=np.zeros(n_families, int),
     )
+
+
+def _solve_2x2(a11, a12, a22, r1, r2):
+    """Per-family 2x2 normal equations; a singular family gets the first term alone."""
+    det = a11 * a22 - a12 * a12
+    ok = det > 1e-9 * np.abs(a11 * a22)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        first = np.where(ok, (a22 * r1 - a12 * r2) / np.where(ok, det, 1.0), r1 / a11)
+        second = np.where(ok, (a11 * r2 - a12 * r1) / np.where(ok, det, 1.0), 0.0)
+    return np.nan_to_num(first), np.nan_to_num(second)
 
 
 def estimate_calibration(
     family,
     capacitor,
     projected_change,
+    projected_stress_hours,
     error,
     known_variance,
     n_families: int,
-    loss=None,
     settings: CalibrationSettings | None = None,
 ) -> ForecastCalibration:
-    """Bias terms and spread per family from the errors of later readings.
+    """The four calibration numbers per family from the errors of later readings.
 
     All arrays are per later reading: `family` (0..F-1), `capacitor` (any id),
     `projected_change` x (z units, from the newest fitted reading to this one),
-    `error` e = observed z minus projected z, `known_variance` the fit's own
-    variance of that reading (path plus noise), `loss` the capacitor's loss so
-    far (fraction of rated; none: no loss term). Families with fewer than
-    `min_capacitors` distinct capacitors keep the defaults.
+    `projected_stress_hours` d (the same span in stress hours), `error` e =
+    observed z minus projected z, `known_variance` the fit's own variance of
+    that reading (path plus noise). Families with fewer than `min_capacitors`
+    distinct capacitors keep the defaults.
     """
     settings = settings or CalibrationSettings()
     family = np.asarray(family, np.int64)
     x = np.asarray(projected_change, float)
+    d = np.asarray(projected_stress_hours, float)
     e = np.asarray(error, float)
     v = np.asarray(known_variance, float)
-    lost = np.zeros_like(x) if loss is None else np.clip(np.nan_to_num(np.asarray(loss, float)), 0.0, 0.5)
-    ok = np.isfinite(x) & np.isfinite(e) & np.isfinite(v) & (v > 0) & (np.abs(e) < settings.jump_fraction)
-    ok &= np.abs(x) > 0
-    family, x, e, v, lost = family[ok], x[ok], e[ok], v[ok], lost[ok]
+    ok = np.isfinite(x) & np.isfinite(d) & np.isfinite(e) & np.isfinite(v) & (v > 0) & (d > 0)
+    ok &= np.abs(e) < settings.jump_fraction
+    family, x, d, e, v = family[ok], x[ok], d[ok], e[ok], v[ok]
     result = default_calibration(n_families, settings)
     if family.size == 0:
         return result
@@ -118,62 +141,124 @@ def estimate_calibration(
         return np.bincount(family, weights=values, minlength=n_families)
 
     spread2 = np.full(n_families, settings.default_spread**2)
-    bias = np.zeros(n_families)
-    per_loss = np.zeros(n_families)
-    xl = x * lost
-    with np.errstate(invalid="ignore", divide="ignore"):
-        for _ in range(4):  # bias terms with the current spread, then the spread about them
-            w = 1.0 / (v + spread2[family] * x * x)
-            a11, a12, a22 = sums(w * x * x), sums(w * x * xl), sums(w * xl * xl)
-            r1, r2 = sums(w * x * e), sums(w * xl * e)
-            det = a11 * a22 - a12 * a12
-            two_terms = (det > 1e-12 * a11 * a22) & (a22 > 0)
-            per_loss = np.where(two_terms, (a11 * r2 - a12 * r1) / np.where(two_terms, det, 1.0), 0.0)
-            per_loss = np.clip(np.nan_to_num(per_loss), *settings.bias_per_loss_range)
-            bias = np.clip(np.nan_to_num((r1 - per_loss * a12) / a11), *settings.bias_range)
-            excess = (e - (bias[family] + per_loss[family] * lost) * x) ** 2 - v
-            spread2 = np.clip(sums(excess) / sums(x * x), settings.min_spread**2, settings.max_spread**2)
-            spread2 = np.nan_to_num(spread2, nan=settings.default_spread**2)
+    extra2 = np.zeros(n_families)
+    regressors = np.stack([x, x * d, d])  # bias, acceleration, extra slope
+    coefficients = np.zeros((3, n_families))
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        for _ in range(4):  # mean terms with the current spreads, then the spreads about those terms
+            w = 1.0 / (v + spread2[family] * x * x + extra2[family] * d * d)
+            normal = np.stack([[sums(w * a * b) for b in regressors] for a in regressors]).transpose(2, 0, 1)
+            rhs = np.stack([sums(w * a * e) for a in regressors]).T
+            scale = np.sqrt(np.abs(np.einsum("fii->fi", normal))) + 1e-300
+            scaled = normal / scale[:, :, None] / scale[:, None, :] + 1e-9 * np.eye(3)
+            coefficients = (np.linalg.solve(scaled, (rhs / scale)[..., None])[..., 0] / scale).T
+            coefficients = np.nan_to_num(coefficients)
+            coefficients[0] = np.clip(coefficients[0], *settings.bias_range)
+            coefficients[1] = np.clip(coefficients[1], *settings.acceleration_range)
+            excess = (e - np.einsum("kn,kn->n", coefficients[:, family], regressors)) ** 2 - v
+            norm = np.sqrt(sums(x**4) / np.maximum(sums(d**4), 1e-300))
+            s2, k2 = _solve_2x2(
+                sums(x**4),
+                sums(x * x * d * d) * norm,
+                sums(d**4) * norm**2,
+                sums(excess * x * x),
+                sums(excess * d * d) * norm,
+            )
+            spread2 = np.clip(s2, settings.min_spread**2, settings.max_spread**2)
+            extra2 = np.maximum(k2 * norm, 0.0)
+    bias, acceleration, extra = coefficients
     enough = capacitors >= settings.min_capacitors
     return ForecastCalibration(
         slope_bias=np.where(enough, bias, result.slope_bias),
-        slope_bias_per_loss=np.where(enough, per_loss, result.slope_bias_per_loss),
         slope_spread=np.where(enough, np.sqrt(spread2), result.slope_spread),
+        extra_slope=np.where(enough, extra, result.extra_slope),
+        extra_sd=np.where(enough, np.sqrt(extra2), result.extra_sd),
+        acceleration=np.where(enough, acceleration, result.acceleration),
         capacitors=capacitors,
         residuals=residuals,
     )
 
 
-def loss_so_far(fit: TrendFit) -> np.ndarray:
-    """Each capacitor's fitted loss from fitting to now, as a fraction of rated."""
-    start = np.where(fit.model == MODEL_LOG, np.exp(fit.intercept), fit.intercept)
-    return np.clip(np.nan_to_num(start - fit.fraction_now), 0.0, 0.5)
+def calibrated_crossing_quantiles(
+    fit: TrendFit,
+    limit_fraction,
+    terms,
+    horizon_stress_hours,
+    probabilities=(0.1, 0.5, 0.9),
+    steps: int = 240,
+) -> np.ndarray:
+    """Stress hours (from tau = 0) at which each calibrated path reaches its limit, per quantile.
 
-
-def calibrated(fit: TrendFit, slope_bias, slope_spread) -> TrendFit:
-    """The fit with its projection beyond the newest reading calibrated.
-
-    Per capacitor: path m(t) = b0 + b1 t + bias b1 (t - t0), t0 the stress hours
-    now; its variance that of b0 + b1 u with u = (1 + bias) t - bias t0, plus
-    (spread x b1')^2 (t - t0)^2. Both stay quadratic in t, so the closed-form
-    crossing quantiles apply unchanged. Only its future (t >= t0) is meant:
-    figures of the present come from the uncalibrated fit.
+    terms: (5, G) from `ForecastCalibration.per_capacitor`. For d hours ahead
+    of t0 (the newest reading) the path's mean is the fit's plus
+    (bias + acceleration d) x + extra_slope d, x = slope d, and its variance the
+    fit's plus (spread x)^2 + (extra_sd d)^2. P(crossed by t0 + d) =
+    Phi((L - mean) / sd) is evaluated on a grid of d up to each capacitor's
+    horizon (denser near now), made non-decreasing, and each quantile read off
+    by linear interpolation. A quantile already reached at d = 0 gives t0 (or
+    the closed-form crossing before it when the fit's own path is past); one
+    never reached gives inf. Shape (len(probabilities), G).
     """
-    a = np.asarray(slope_bias, float)
-    r = np.asarray(slope_spread, float)
+    terms = np.asarray(terms, float)
+    horizon = np.broadcast_to(np.asarray(horizon_stress_hours, float), fit.intercept.shape)
+    limit_fraction = np.broadcast_to(np.asarray(limit_fraction, float), fit.intercept.shape)
+    block = 20_000  # capacitors at a time: the grid is (steps x block)
+    parts = [
+        _grid_quantiles(
+            _take(fit, slice(start, start + block)),
+            limit_fraction[start : start + block],
+            terms[:, start : start + block],
+            horizon[start : start + block],
+            probabilities,
+            steps,
+        )
+        for start in range(0, max(len(fit.intercept), 1), block)
+    ]
+    return np.concatenate(parts, axis=1) if parts else np.zeros((len(probabilities), 0))
+
+
+def _take(fit: TrendFit, rows: slice) -> TrendFit:
+    """The per-capacitor part of a fit for a block of capacitors (per-reading arrays dropped)."""
+    import dataclasses
+
+    per_capacitor = {
+        name: getattr(fit, name)[rows]
+        for name in ("model", "intercept", "slope_per_hour", "covariance", "stress_hours_now")
+    }
+    return dataclasses.replace(fit, **per_capacitor)
+
+
+def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, probabilities, steps):
+    from scipy.special import ndtr
+
+    bias, spread, extra_slope, extra_sd, acceleration = terms
+    limit = fit.to_z(np.asarray(limit_fraction, float))
     t0 = fit.stress_hours_now
-    m1 = fit.slope_per_hour
+    m0, m1 = fit.intercept, fit.slope_per_hour
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
-    new_slope = (1.0 + a) * m1
-    extra = (r * new_slope) ** 2
-    covariance = np.empty_like(fit.covariance)
-    covariance[:, 0, 0] = v00 - 2.0 * a * t0 * v01 + (a * t0) ** 2 * v11 + extra * t0 * t0
-    covariance[:, 0, 1] = covariance[:, 1, 0] = (1.0 + a) * (v01 - a * t0 * v11) - extra * t0
-    covariance[:, 1, 1] = (1.0 + a) ** 2 * v11 + extra
-    return dataclasses.replace(
-        fit,
-        intercept=fit.intercept - a * m1 * t0,
-        slope_per_hour=new_slope,
-        covariance=covariance,
-        slope_sd=np.sqrt(covariance[:, 1, 1]),
-    )
+    horizon = np.maximum(np.asarray(horizon_stress_hours, float), 1.0)
+    ahead = horizon[None, :] * (np.linspace(0.0, 1.0, steps) ** 2)[:, None]  # (K, G)
+    t = t0[None, :] + ahead
+    own = m1[None, :] * ahead
+    mean = m0 + m1 * t + (bias + acceleration * ahead) * own + extra_slope * ahead
+    variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * ahead) ** 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        probability = ndtr((limit - mean) / np.sqrt(np.maximum(variance, 1e-300)))
+    probability = np.maximum.accumulate(np.nan_to_num(probability, nan=0.0), axis=0)
+    before = crossing_quantiles(fit, limit_fraction, probabilities)  # where the fit itself is already past
+    rows = []
+    columns = np.arange(probability.shape[1])
+    for k, p in enumerate(probabilities):
+        reached = probability >= p
+        first = np.argmax(reached, axis=0)
+        never = ~reached.any(axis=0)
+        previous = np.maximum(first - 1, 0)
+        p_low, p_high = probability[previous, columns], probability[first, columns]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.clip((p - p_low) / (p_high - p_low), 0.0, 1.0)
+        d = np.where(
+            first == 0, 0.0, ahead[previous, columns] + share * (ahead[first, columns] - ahead[previous, columns])
+        )
+        result = np.where(never, np.inf, t0 + d)
+        rows.append(np.where((first == 0) & ~never, np.minimum(before[k], t0), result))
+    return np.stack(rows)

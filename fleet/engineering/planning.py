@@ -32,7 +32,7 @@ class PlanningSettings:
     watch_days: float = 365.0
     notice_days: float = 7.0  # without a defect, never sooner than this: spares and a visit need time
     below_limit_days: float = 14.0  # read below its limit: replace within one visit window
-    horizon_days: float = 50 * 365.0  # crossings later than this are "beyond"
+    horizon_days: float = 30 * 365.0  # crossings later than this are "beyond"
 
 
 @dataclass(frozen=True)

@@ -18,7 +18,7 @@ import pandas as pd
 from django.db import transaction
 from django.utils import timezone
 
-from fleet.engineering.calibration import ForecastCalibration, calibrated, default_calibration, loss_so_far
+from fleet.engineering.calibration import calibrated_crossing_quantiles, default_calibration
 from fleet.engineering.capacitor import (
     VERDICT_NAMES,
     VERDICT_OPEN,
@@ -49,7 +49,6 @@ from fleet.engineering.trends import (
     PartPriors,
     TrendFit,
     TrendSettings,
-    crossing_quantiles,
     default_tempco_ppm_per_k,
     fit_trends,
 )
@@ -168,10 +167,12 @@ def _stored_priors(part_ids) -> PartPriors:
     )
 
 
-def stored_calibration() -> dict[str, tuple[float, float, float]]:
-    """(slope bias, bias per loss, slope spread) per dielectric, from the latest back-test."""
-    rows = BandCalibration.objects.values_list("family", "slope_bias", "slope_bias_per_loss", "slope_spread")
-    return {family: (bias, per_loss, spread) for family, bias, per_loss, spread in rows}
+def stored_calibration() -> dict[str, tuple[float, ...]]:
+    """(bias, spread, extra slope, extra sd, acceleration) per dielectric, from the latest back-test."""
+    rows = BandCalibration.objects.values_list(
+        "family", "slope_bias", "slope_spread", "extra_slope_per_h", "extra_sd_per_h", "acceleration_per_h"
+    )
+    return {family: tuple(values) for family, *values in rows}
 
 
 def _motor_circuits(inst: pd.DataFrame):
@@ -311,7 +312,7 @@ def assess(
     readings: pd.DataFrame,
     *,
     priors: PartPriors | None,
-    calibration: dict[str, tuple[float, float, float]],
+    calibration: dict[str, tuple[float, ...]],
     now: dt.datetime,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
@@ -376,25 +377,17 @@ def assess(
         & (fit.readings_used > 0)
     )
     set_aside = np.where(finite, "", "no usable trend: the readings give no finite fit; check them")
-    families = sorted(set(inst["dielectric"]) | set(calibration))
-    default = default_calibration(1)
-    values = np.array(
-        [
-            calibration.get(f, (default.slope_bias[0], default.slope_bias_per_loss[0], default.slope_spread[0]))
-            for f in families
-        ],
-        float,
-    ).reshape(-1, 3)
-    table = ForecastCalibration(
-        values[:, 0], values[:, 1], values[:, 2], np.zeros(len(families)), np.zeros(len(families))
-    )
-    family = pd.Index(families).get_indexer(inst["dielectric"])
-    projected = calibrated(fit, table.bias_for(family, loss_so_far(fit)), table.slope_spread[family])
+    fallback = tuple(default_calibration(1).per_capacitor([0])[:, 0])
+    terms = np.array([calibration.get(d, fallback) for d in inst["dielectric"]], float).reshape(-1, 5).T
+    horizon_stress_hours = fit.stress_rate * PlanningSettings().horizon_days * 24.0
     newest_at = pd.to_datetime(readings[~readings["superseded"]].groupby("installation_id")["taken_at"].max(), utc=True)
     newest_at = newest_at.reindex(inst.index)
     elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
     effective = np.where(limit_used, limit_fraction, np.nan)
-    quantiles = np.stack([crossing_quantiles(projected, effective[k]) for k in range(len(ALL_LIMITS))], axis=1)
+    quantiles = np.stack(
+        [calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours) for k in range(len(ALL_LIMITS))],
+        axis=1,
+    )
     with np.errstate(invalid="ignore", over="ignore"):
         limit_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
     limit_days = np.where(finite & np.isfinite(effective), limit_days, np.inf)

@@ -21,7 +21,7 @@ from django.db import transaction
 from django.utils import timezone
 
 from fleet.engineering.backtest import first_crossing_day, projection_errors, score
-from fleet.engineering.calibration import estimate_calibration, loss_so_far
+from fleet.engineering.calibration import estimate_calibration
 from fleet.engineering.trends import MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
@@ -104,27 +104,21 @@ def _run(backtest: Backtest) -> None:
         if inst.empty:
             continue
         before = before.reset_index(drop=True)
-        errors = (
-            pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v", "loss", "taken"])
-        )
+        errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "d", "e", "v", "taken"])
         errors = errors[errors["taken"] < cutoff]
         estimate = estimate_calibration(
             errors["family"].to_numpy(int),
             errors["capacitor"].to_numpy(),
             errors["x"].to_numpy(float),
+            errors["d"].to_numpy(float),
             errors["e"].to_numpy(float),
             errors["v"].to_numpy(float),
             len(families),
-            loss=errors["loss"].to_numpy(float),
         )
         calibrations = {
             "default": {},
             "calibrated": {
-                family: (
-                    float(estimate.slope_bias[k]),
-                    float(estimate.slope_bias_per_loss[k]),
-                    float(estimate.slope_spread[k]),
-                )
+                family: tuple(float(value) for value in estimate.per_capacitor([k])[:, 0])
                 for k, family in enumerate(families)
             },
         }
@@ -139,7 +133,7 @@ def _run(backtest: Backtest) -> None:
         summary = {"cutoff": cutoff_text, "capacitors": int(len(inst)), "later_readings": int(len(later))}
         for variant in VARIANTS:
             result = assess(inst, before, priors=None, calibration=calibrations[variant], now=cutoff.to_pydatetime())
-            change, error, variance, fraction = projection_errors(
+            change, span, error, variance, fraction = projection_errors(
                 result.fit,
                 group,
                 _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
@@ -177,8 +171,8 @@ def _run(backtest: Backtest) -> None:
                             "capacitor": inst.index.to_numpy()[group] * 1000 + number,
                             "x": change,
                             "e": error,
+                            "d": span,
                             "v": variance,
-                            "loss": loss_so_far(result.fit)[group],
                             "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                         }
                     )
@@ -186,20 +180,22 @@ def _run(backtest: Backtest) -> None:
         per_cutoff.append(summary)
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
-    errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "e", "v", "loss"])
+    errors = pd.concat(pool) if pool else pd.DataFrame(columns=["family", "capacitor", "x", "d", "e", "v"])
     final = estimate_calibration(
         errors["family"].to_numpy(int),
         errors["capacitor"].to_numpy(),
         errors["x"].to_numpy(float),
+        errors["d"].to_numpy(float),
         errors["e"].to_numpy(float),
         errors["v"].to_numpy(float),
         len(families),
-        loss=errors["loss"].to_numpy(float),
     )
     calibration = {
         family: {
             "slope_bias": float(final.slope_bias[k]),
-            "slope_bias_per_loss": float(final.slope_bias_per_loss[k]),
+            "extra_slope_per_h": float(final.extra_slope[k]),
+            "extra_sd_per_h": float(final.extra_sd[k]),
+            "acceleration_per_h": float(final.acceleration[k]),
             "slope_spread": float(final.slope_spread[k]),
             "capacitors": int(final.capacitors[k]),
             "residuals": int(final.residuals[k]),

@@ -8,7 +8,7 @@ assumptions, is tests/test_forecast_simulation.py.
 import numpy as np
 import pytest
 
-from fleet.engineering.calibration import calibrated, estimate_calibration
+from fleet.engineering.calibration import calibrated_crossing_quantiles, estimate_calibration
 from fleet.engineering.trends import MODEL_LINEAR, TrendSettings, crossing_quantiles, fit_trends, stress_hours
 
 
@@ -41,42 +41,64 @@ def _fit(group, time_h, measured, temperature, part, **kwargs):
     )
 
 
-def test_calibrated_crossing_quantiles_match_a_monte_carlo_of_the_widened_path():
-    """[derived] The closed form of the calibrated fit against sampling its model:
-    z(t) = b0 + b1((1 + a) t - a t0) + spread (1 + a) m1 (t - t0) eps."""
+def test_calibrated_crossing_quantiles_match_a_monte_carlo_of_the_calibrated_path():
+    """[derived] The grid quantiles against sampling the calibrated model: d hours ahead,
+    z = b0 + b1 (t0 + d) + ((bias + accel d) m1 + spread m1 eps1) d + (beta + kappa eps2) d."""
     group, time_h, measured, temperature, _, part = _small_fleet(n=40)
     fit = _fit(group, time_h, measured, temperature, part)
-    bias, spread, limit = 0.4, 0.3, 0.94
-    closed = crossing_quantiles(calibrated(fit, np.full(40, bias), np.full(40, spread)), limit)
+    bias, spread, beta, kappa, accel, limit = 0.4, 0.3, -1e-6, 0.8e-6, 2e-5, 0.85
+    terms = np.tile(np.array([[bias], [spread], [beta], [kappa], [accel]]), (1, 40))
+    grid = calibrated_crossing_quantiles(fit, limit, terms, np.full(40, 3e5), steps=2000)
     rng = np.random.default_rng(0)
+    ahead = np.linspace(0, 3e5, 1501)
     for i in (0, 7, 19):
-        b = rng.multivariate_normal([fit.intercept[i], fit.slope_per_hour[i]], fit.covariance[i], 200_000)
-        eps = rng.standard_normal(200_000)
-        t0 = fit.stress_hours_now[i]
-        slope = b[:, 1] * (1 + bias) + spread * (1 + bias) * fit.slope_per_hour[i] * eps
-        intercept = b[:, 0] - bias * t0 * b[:, 1] - spread * (1 + bias) * fit.slope_per_hour[i] * eps * t0
-        crossing = (limit - intercept) / slope
-        falling = slope < 0
-        sampled = np.quantile(np.where(falling, crossing, np.inf), [0.1, 0.5, 0.9])
-        assert closed[:, i] == pytest.approx(sampled, rel=0.02)
+        b = rng.multivariate_normal([fit.intercept[i], fit.slope_per_hour[i]], fit.covariance[i], 8000)
+        m1, t0 = fit.slope_per_hour[i], fit.stress_hours_now[i]
+        own = (bias + accel * ahead + spread * rng.standard_normal((8000, 1))) * m1
+        common = beta + kappa * rng.standard_normal((8000, 1))
+        path = b[:, :1] + b[:, 1:] * (t0 + ahead) + (own + common) * ahead
+        below = path < limit
+        first = np.where(below.any(axis=1), ahead[np.argmax(below, axis=1)], np.inf)
+        sampled = t0 + np.quantile(first, [0.1, 0.5, 0.9])
+        assert grid[:, i] == pytest.approx(sampled, rel=0.03)
 
 
-def test_calibration_recovers_a_known_bias_and_spread():
-    """Method of moments and weighted least squares on errors drawn from the model (ours)."""
+def test_with_no_calibration_terms_the_grid_equals_the_closed_form():
+    """[derived] Zero bias, spread and extra terms leave the fit's own path: both quantile routes agree."""
+    group, time_h, measured, temperature, _, part = _small_fleet(n=30)
+    fit = _fit(group, time_h, measured, temperature, part)
+    grid = calibrated_crossing_quantiles(fit, 0.85, np.zeros((5, 30)), np.full(30, 4e5), steps=3000)
+    closed = crossing_quantiles(fit, 0.85)
+    finite = np.isfinite(closed) & (closed < 4e5)
+    assert grid[finite] == pytest.approx(closed[finite], rel=2e-3)
+
+
+def test_calibration_recovers_known_biases_and_spreads():
+    """Weighted least squares and the method of moments on errors drawn from the model (ours):
+    capacitors whose own slopes differ and grow, a common extra slope, spreads of both kinds."""
     rng = np.random.default_rng(2)
-    n = 20_000
-    x = -rng.uniform(0.002, 0.05, n)
+    n = 40_000
+    span = rng.uniform(2000, 20000, n)
+    own_slope = -rng.uniform(0.2e-6, 3e-6, n)
+    x = own_slope * span
     known = rng.uniform(1e-5, 4e-5, n)
-    error = 0.5 * x + rng.normal(0, np.sqrt(known + (0.3 * x) ** 2))
-    result = estimate_calibration(np.zeros(n, int), np.arange(n), x, error, known, 1)
-    assert result.slope_bias[0] == pytest.approx(0.5, abs=0.03)
-    assert result.slope_spread[0] == pytest.approx(0.3, abs=0.03)
+    noise = rng.normal(0, np.sqrt(known + (0.3 * x) ** 2 + (0.5e-6 * span) ** 2))
+    error = 0.5 * x + 2e-5 * x * span - 1e-6 * span + noise
+    result = estimate_calibration(np.zeros(n, int), np.arange(n), x, span, error, known, 1)
+    assert result.slope_bias[0] == pytest.approx(0.5, abs=0.05)
+    assert result.acceleration[0] == pytest.approx(2e-5, abs=0.3e-5)
+    assert result.extra_slope[0] == pytest.approx(-1e-6, abs=0.1e-6)
+    assert result.slope_spread[0] == pytest.approx(0.3, abs=0.06)
+    assert result.extra_sd[0] == pytest.approx(0.5e-6, abs=0.1e-6)
 
 
 def test_thin_history_keeps_the_conservative_defaults():
-    result = estimate_calibration([0, 0, 0], [1, 1, 2], [-0.01, -0.02, -0.01], [0.0, -0.01, 0.01], [1e-5] * 3, 2)
+    result = estimate_calibration(
+        [0, 0, 0], [1, 1, 2], [-0.01, -0.02, -0.01], [5000.0] * 3, [0.0, -0.01, 0.01], [1e-5] * 3, 2
+    )
     assert result.slope_bias.tolist() == [0.0, 0.0]
     assert result.slope_spread.tolist() == [0.35, 0.35]
+    assert result.extra_slope.tolist() == [0.0, 0.0] and result.extra_sd.tolist() == [0.0, 0.0]
 
 
 def test_projected_stress_rate_is_the_mean_over_the_seasons_not_the_last_quarter():

@@ -6,9 +6,10 @@ limit (null: not within the forecast's horizon) and a risk level.
 
 - Band: among capacitors still above their limit at the cut-off whose true
   crossing falls after it and within the simulated span, the share whose
-  crossing lies inside [P10, P90], below P10, above P90 (a null P90 counts as
-  above if it crossed), or that have no tolerance forecast at all (no
-  assessment, or `tolerance_known` false).
+  crossing lies inside [P10, P90], below P10, above P90 (a null date means
+  "beyond the forecast's horizon": a null P90 holds every later crossing, a
+  null P10 misses every crossing as late), or that have no tolerance forecast
+  at all (no assessment, or `tolerance_known` false).
 - P50 error as a share of the true remaining life (crossing - cut-off).
 - Risk: among capacitors not yet below their limit at the cut-off, recall and
   precision of "flagged for the next 365 days" against "truly crosses within
@@ -61,8 +62,9 @@ def score(truth: pd.DataFrame, cutoff: dt.date, forecasts: pd.DataFrame, horizon
     scored = frame[above_at_cut & crossed.notna() & frame["forecast"]]
     missing = int((above_at_cut & crossed.notna() & ~frame["forecast"]).sum())
     c, p10, p90 = scored["crossed_on"], scored["p10_on"], scored["p90_on"]
-    below = p10.notna() & (c < p10)
-    above = ~below & (p90.isna() | (c > p90))
+    # A null date is "not within the forecast's horizon": later than any crossing seen.
+    below = p10.isna() | (c < p10)
+    above = ~below & p90.notna() & (c > p90)
     inside = ~below & ~above
     n_band = len(scored) + missing
     remaining = (c - day).dt.days.clip(lower=1)

@@ -45,8 +45,10 @@ class Command(BaseCommand):
                 self.stdout.write(f"{label:<10}" + "".join(cells))
         for family, values in results.get("calibration", {}).items():
             self.stdout.write(
-                f"calibration {family}: slope bias {values['slope_bias']:+.2f} "
-                f"+ {values['slope_bias_per_loss']:.1f} x loss, "
+                f"calibration {family}: slope x (1 {values['slope_bias']:+.2f}) "
+                f"{1e5 * values['extra_slope_per_h']:+.3f} % per 1000 h, "
+                f"common spread {1e5 * values['extra_sd_per_h']:.3f} % per 1000 h, "
+                f"acceleration {1e3 * values['acceleration_per_h']:.3f} per 1000 h ahead, "
                 f"spread {values['slope_spread']:.2f} "
                 f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
             )
