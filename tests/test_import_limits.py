@@ -1,5 +1,6 @@
 """Imports off the request path: limits checked before parsing, every job ends in a final state."""
 
+import datetime as dt
 import io
 import logging
 import time
@@ -9,6 +10,7 @@ from unittest import mock
 import pytest
 from django.db import connection
 from django.urls import reverse
+from django.utils import timezone
 from openpyxl import Workbook
 
 from fleet import imports
@@ -211,6 +213,18 @@ def test_an_unreachable_queue_fails_the_job_instead_of_leaving_it_waiting(techni
         job = create_job(kind="readings", filename="q.csv", content=b"a\n1\n", user=technician)
     job.refresh_from_db()
     assert job.state == ImportJob.State.FAILED and "task queue could not be reached" in job.message
+
+
+def test_a_job_whose_worker_died_ends_failed_instead_of_checking_for_ever(client, technician, settings):
+    job = create_job(kind="readings", filename="q.csv", content=b"a\n1\n", user=technician)
+    ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.CHECKING)  # a worker took it, then was killed
+    client.force_login(technician)
+    assert "Checking" in client.get(reverse("import_detail", args=[job.id])).content.decode()
+    later = timezone.now() + dt.timedelta(seconds=settings.CELERY_TASK_TIME_LIMIT + 61)
+    with mock.patch("django.utils.timezone.now", return_value=later):
+        page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.FAILED and "worker stopped before finishing" in page
 
 
 @pytest.mark.django_db(transaction=True)
