@@ -126,9 +126,9 @@ class Limits:
             "Split it into smaller files."
         )
 
-    def too_many_columns(self, columns: int) -> FileRefused:
+    def too_many_columns(self) -> FileRefused:
         return FileRefused(
-            f"The file has {columns:,} columns; the limit is {self.columns} (FLEET_IMPORT_MAX_COLUMNS). "
+            f"The file has more than {self.columns} columns, the limit (FLEET_IMPORT_MAX_COLUMNS). "
             "Remove the columns that are not imported."
         )
 
@@ -162,14 +162,15 @@ def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]
         text = content.decode("utf-8-sig")
     except UnicodeDecodeError as error:
         raise FileRefused(f"The file is not UTF-8 text (byte {error.start}). Save it as CSV UTF-8.") from error
-    delimiter = csv_delimiter(text.split("\n", 1)[0])
+    end_of_header = text.find("\n")
+    delimiter = csv_delimiter(text[: end_of_header if end_of_header >= 0 else len(text)])
     rows = []
     try:
         for row in csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True):
             if not any(cell.strip() for cell in row):
                 continue
             if not rows and len(row) > limits.columns:
-                raise limits.too_many_columns(len(row))
+                raise limits.too_many_columns()
             rows.append(row)
             if len(rows) > limits.rows + 1:
                 raise limits.too_many_rows(len(rows) - 1)
@@ -222,18 +223,41 @@ def _check_workbook_size(content: bytes, limits: Limits) -> None:
     with archive.open(sheet) as stream:
         head = stream.read(64 * 1024)
     found = _DIMENSION.search(head)
-    if not found:
-        return
-    from openpyxl.utils.cell import range_boundaries
+    if found:
+        from openpyxl.utils.cell import range_boundaries
 
-    try:
-        min_col, min_row, max_col, max_row = range_boundaries(found.group(1).decode().replace("$", ""))
-    except (ValueError, TypeError):
-        return
-    if max_row is not None and max_row - (min_row or 1) > limits.rows:
-        raise limits.too_many_rows(max_row - (min_row or 1))
-    if max_col is not None and max_col - (min_col or 1) + 1 > limits.columns:
-        raise limits.too_many_columns(max_col - (min_col or 1) + 1)
+        try:
+            min_col, min_row, max_col, max_row = range_boundaries(found.group(1).decode().replace("$", ""))
+        except (ValueError, TypeError):
+            min_col = min_row = max_col = max_row = None
+        if max_row is not None and max_row - (min_row or 1) > limits.rows:
+            raise limits.too_many_rows(max_row - (min_row or 1))
+        if max_col is not None and max_col - (min_col or 1) + 1 > limits.columns:
+            raise limits.too_many_columns()
+    rows = _count_row_tags(archive, sheet, stop_after=limits.rows + 1)
+    if rows > limits.rows + 1:
+        raise limits.too_many_rows(rows - 1)
+
+
+_ROW_TAG = re.compile(rb"<(?:\w+:)?row[\s/>]")
+
+
+def _count_row_tags(archive: zipfile.ZipFile, sheet: str, stop_after: int) -> int:
+    """Rows in the sheet's XML, counted on the unpacked stream (a dimension may be missing or wrong).
+
+    A tag that straddles two chunks is counted once: each pass counts the tags that start
+    before the last 32 bytes and carries those bytes into the next pass.
+    """
+    count, carried = 0, b""
+    with archive.open(sheet) as stream:
+        while chunk := stream.read(1024 * 1024):
+            text = carried + chunk
+            cut = max(len(text) - 32, 0)
+            count += sum(1 for found in _ROW_TAG.finditer(text) if found.start() < cut)
+            carried = text[cut:]
+            if count > stop_after:
+                return count
+    return count + len(_ROW_TAG.findall(carried))
 
 
 def _first_sheet_path(archive: zipfile.ZipFile) -> str | None:
@@ -285,7 +309,7 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str
         if not header:
             width = max(i for i, cell in enumerate(row) if cell.strip()) + 1
             if width > limits.columns:
-                raise limits.too_many_columns(width)
+                raise limits.too_many_columns()
             header = [h.strip() for h in row[:width]]
             continue
         body.append(row[:width] + [""] * (width - len(row)))

@@ -487,6 +487,7 @@ class ImportJob(models.Model):
     message = models.TextField(blank=True)
     created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, on_delete=models.SET_NULL, related_name="+")
     created_at = models.DateTimeField(auto_now_add=True)
+    updated_at = models.DateTimeField(auto_now=True, help_text="Last change of state or progress")
 
     class Meta:
         ordering = ["-created_at"]

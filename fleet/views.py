@@ -23,7 +23,15 @@ from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
 from .services import pages
-from .services.import_jobs import KINDS, create_job, queue_check, queue_import, rejected_rows_csv
+from .services.import_jobs import (
+    KINDS,
+    WORKING,
+    create_job,
+    end_stalled_jobs,
+    queue_check,
+    queue_import,
+    rejected_rows_csv,
+)
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import stale_installations
@@ -312,6 +320,7 @@ def imports_home(request):
             upload = form.cleaned_data["file"]
             job = create_job(kind=kind, filename=upload.name, content=upload.read(), user=request.user)
             return redirect("import_detail", job_id=job.id)
+    end_stalled_jobs()
     jobs = ImportJob.objects.defer("content").order_by("-created_at")[:15]
     context = {"form": form, "jobs": jobs, "kinds": [(ImportJob.Kind(k).label, v.columns) for k, v in KINDS.items()]}
     return render(request, "fleet/imports.html", context)
@@ -319,6 +328,7 @@ def imports_home(request):
 
 @permission_required("fleet.add_reading", raise_exception=True)
 def import_detail(request, job_id):
+    end_stalled_jobs()
     job = get_object_or_404(ImportJob.objects.defer("content"), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
@@ -332,7 +342,7 @@ def import_detail(request, job_id):
     )
     if request.method == "POST":
         action = request.POST.get("action")
-        if action == "check" and form.is_valid() and job.state not in WORKING_STATES:
+        if action == "check" and form.is_valid() and job.state not in WORKING:
             queue_check(job, form.mapping())
             return redirect("import_detail", job_id=job.pk)
         if action in {ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS} and job.state == ImportJob.State.CHECKED:
@@ -341,14 +351,11 @@ def import_detail(request, job_id):
     context = {
         "job": job,
         "form": form,
-        "working": job.state in WORKING_STATES,
-        "can_map": bool(job.columns) and job.state not in WORKING_STATES | {ImportJob.State.DONE},
+        "working": job.state in WORKING,
+        "can_map": bool(job.columns) and job.state not in {*WORKING, ImportJob.State.DONE},
         "errors": job.errors[:200],
     }
     return render(request, "fleet/import_detail.html", context)
-
-
-WORKING_STATES = {ImportJob.State.RECEIVED, ImportJob.State.CHECKING, ImportJob.State.IMPORTING}
 
 
 @permission_required("fleet.add_reading", raise_exception=True)

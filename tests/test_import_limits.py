@@ -1,5 +1,6 @@
 """Imports off the request path: limits checked before parsing, every job ends in a final state."""
 
+import datetime as dt
 import io
 import logging
 import time
@@ -9,6 +10,7 @@ from unittest import mock
 import pytest
 from django.db import connection
 from django.urls import reverse
+from django.utils import timezone
 from openpyxl import Workbook
 
 from fleet import imports
@@ -88,10 +90,18 @@ def test_the_unpacked_size_is_checked_before_parsing(settings):
         read_table(content, "wide.xlsx")
 
 
-def test_a_sheet_without_a_dimension_is_still_held_to_the_row_limit(settings):
+def test_a_sheet_without_a_dimension_is_still_held_to_the_row_limit_before_parsing(settings):
     settings.FLEET_IMPORT_MAX_ROWS = 100
     content = workbook_with_sheet(huge_sheet(5_000, 3, dimension=False))
-    with pytest.raises(FileRefused, match="101 rows or more"):
+    with mock.patch("openpyxl.load_workbook", never_parsed), pytest.raises(FileRefused, match="4,999 rows or more"):
+        read_table(content, "undeclared.xlsx")
+
+
+def test_the_parser_stops_at_the_row_limit_too(settings):
+    """Should a sheet's rows escape the count before parsing, reading stops at the limit all the same."""
+    settings.FLEET_IMPORT_MAX_ROWS = 100
+    content = workbook_with_sheet(huge_sheet(5_000, 3, dimension=False))
+    with mock.patch.object(imports, "_count_row_tags", return_value=0), pytest.raises(FileRefused, match="101 rows"):
         read_table(content, "undeclared.xlsx")
 
 
@@ -101,7 +111,7 @@ def test_csv_rows_columns_and_size_have_limits(settings):
         read_table(b"a,b\n" + b"1,2\n" * 4, "rows.csv")
     assert len(read_table(b"a,b\n" + b"1,2\n" * 3, "rows.csv")[1]) == 3
     settings.FLEET_IMPORT_MAX_COLUMNS = 4
-    with pytest.raises(FileRefused, match="5 columns; the limit is 4"):
+    with pytest.raises(FileRefused, match="more than 4 columns"):
         read_table(b"a,b,c,d,e\n1,2,3,4,5\n", "wide.csv")
     settings.FLEET_IMPORT_MAX_FILE_MB = 1
     with pytest.raises(FileRefused, match="the limit is 1 MB"):
@@ -203,6 +213,18 @@ def test_an_unreachable_queue_fails_the_job_instead_of_leaving_it_waiting(techni
         job = create_job(kind="readings", filename="q.csv", content=b"a\n1\n", user=technician)
     job.refresh_from_db()
     assert job.state == ImportJob.State.FAILED and "task queue could not be reached" in job.message
+
+
+def test_a_job_whose_worker_died_ends_failed_instead_of_checking_for_ever(client, technician, settings):
+    job = create_job(kind="readings", filename="q.csv", content=b"a\n1\n", user=technician)
+    ImportJob.objects.filter(pk=job.pk).update(state=ImportJob.State.CHECKING)  # a worker took it, then was killed
+    client.force_login(technician)
+    assert "Checking" in client.get(reverse("import_detail", args=[job.id])).content.decode()
+    later = timezone.now() + dt.timedelta(seconds=settings.CELERY_TASK_TIME_LIMIT + 61)
+    with mock.patch("django.utils.timezone.now", return_value=later):
+        page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.FAILED and "worker stopped before finishing" in page
 
 
 @pytest.mark.django_db(transaction=True)

@@ -8,13 +8,16 @@ failed with a message (the traceback goes to the log), never left checking.
 
 from __future__ import annotations
 
+import datetime as dt
 import functools
 import logging
 from collections import defaultdict
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from django.conf import settings
 from django.db import DatabaseError, connection, transaction
+from django.utils import timezone
 
 from fleet import import_kinds, imports
 from fleet.exports import csv_bytes
@@ -190,17 +193,35 @@ def _queue(task_name: str, job_id: int, *args) -> None:
 
 
 def queue_check(job: ImportJob, mapping: dict) -> None:
-    ImportJob.objects.filter(pk=job.pk).update(mapping=mapping, state=ImportJob.State.CHECKING, done_rows=0)
+    _update(job.pk, mapping=mapping, state=ImportJob.State.CHECKING, done_rows=0)
     transaction.on_commit(lambda: _queue("check_import", job.pk))
 
 
 def queue_import(job: ImportJob, mode: str) -> None:
-    ImportJob.objects.filter(pk=job.pk).update(mode=mode, state=ImportJob.State.IMPORTING, done_rows=0)
+    _update(job.pk, mode=mode, state=ImportJob.State.IMPORTING, done_rows=0)
     transaction.on_commit(lambda: _queue("run_import", job.pk, mode))
 
 
 def _update(job_id: int, **values) -> None:
-    ImportJob.objects.filter(pk=job_id).update(**values)
+    ImportJob.objects.filter(pk=job_id).update(updated_at=timezone.now(), **values)
+
+
+WORKING = (ImportJob.State.RECEIVED, ImportJob.State.CHECKING, ImportJob.State.IMPORTING)
+
+
+def end_stalled_jobs() -> int:
+    """Jobs in progress with no news for longer than a task may run lost their worker: mark them failed.
+
+    A worker killed mid-import leaves nothing half-in (the import is one transaction), so
+    the job can simply be checked again.
+    """
+    cutoff = timezone.now() - dt.timedelta(seconds=settings.CELERY_TASK_TIME_LIMIT + 60)
+    return ImportJob.objects.filter(state__in=WORKING, updated_at__lt=cutoff).update(
+        state=ImportJob.State.FAILED,
+        updated_at=timezone.now(),
+        message="The worker stopped before finishing (no progress for longer than a task may run). "
+        "Nothing was imported; check the file again.",
+    )
 
 
 def _progress(job_id: int):
