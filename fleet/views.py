@@ -6,6 +6,7 @@ import datetime as dt
 import io
 
 import segno
+from django.conf import settings
 from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied, ValidationError
@@ -22,15 +23,15 @@ from .engineering.capacitor import stored_energy_j
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
-from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
+from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from .services import pages
 from .services.import_jobs import SPECS, create_job, rejected_rows_csv
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
-from .services.refits import stale_installations
+from .services.refits import queue_fleet_refit, recent_runs, stale_installations
 from .services.register import set_route_order
 from .services.workorders import issue_visit, open_visits, plan_work_orders
-from .tasks import check_import, refit_fleet, run_import
+from .tasks import QueueUnreachable, check_import, run_import, send
 
 
 def home(request):
@@ -267,17 +268,30 @@ def _int_param(data, name, default, lowest, highest) -> int:
         return default
 
 
+QUEUE_DOWN = (
+    "The task queue is unreachable ({error}). {what} did not start; nothing is lost. Try again once the queue is back."
+)
+
+
 @permission_required("fleet.view_refitrun", raise_exception=True)
 def refits(request):
-    runs = RefitRun.objects.order_by("-started_at")[:10]
-    return render(request, "fleet/refits.html", {"runs": runs, "stale": stale_installations().count()})
+    context = {
+        "runs": recent_runs(10),
+        "stale": stale_installations().count(),
+        "abandoned_minutes": round(settings.FLEET_REFIT_ABANDONED_AFTER_S / 60),
+    }
+    return render(request, "fleet/refits.html", context)
 
 
 @require_POST
 @permission_required("fleet.add_refitrun", raise_exception=True)
 def refit_start(request):
-    refit_fleet.delay()
-    messages.success(request, "Fleet refit started. Progress shows below.")
+    try:
+        queue_fleet_refit()
+    except QueueUnreachable as error:
+        messages.error(request, QUEUE_DOWN.format(error=error, what="The fleet refit"))
+    else:
+        messages.success(request, "Fleet refit queued. Progress shows below.")
     return redirect("refits")
 
 
@@ -333,14 +347,21 @@ def import_detail(request, job_id):
         action = request.POST.get("action")
         if action == "check" and form.is_valid():
             ImportJob.objects.filter(pk=job.pk).update(mapping=form.mapping())
-            check_import.delay(job.pk)
-            return redirect("import_detail", job_id=job.pk)
+            return _send_or_say(request, check_import.s(job.pk), "The check", job)
         if action in {ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS} and job.state == ImportJob.State.CHECKED:
-            run_import.delay(job.pk, action)
-            return redirect("import_detail", job_id=job.pk)
+            return _send_or_say(request, run_import.s(job.pk, action), "The import", job)
     working = job.state in {ImportJob.State.CHECKING, ImportJob.State.IMPORTING}
     context = {"job": job, "form": form, "working": working, "errors": job.errors[:200]}
     return render(request, "fleet/import_detail.html", context)
+
+
+def _send_or_say(request, signature, what: str, job):
+    """Queue an import step; with the queue unreachable, say so on the page instead of failing."""
+    try:
+        send(signature)
+    except QueueUnreachable as error:
+        messages.error(request, QUEUE_DOWN.format(error=error, what=what))
+    return redirect("import_detail", job_id=job.pk)
 
 
 @permission_required("fleet.add_reading", raise_exception=True)
