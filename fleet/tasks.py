@@ -40,12 +40,14 @@ def send(signature) -> None:
 
 
 @functools.cache
-def _pending_store() -> redis.Redis:
-    return redis.Redis.from_url(settings.CELERY_BROKER_URL, socket_connect_timeout=0.5, socket_timeout=1)
+def _pending_store(url: str) -> redis.Redis:
+    return redis.Redis.from_url(url, socket_connect_timeout=0.5, socket_timeout=1)
 
 
 def _merging() -> bool:
-    return not current_app.conf.task_always_eager and settings.CELERY_BROKER_URL.startswith(("redis://", "rediss://"))
+    return not current_app.conf.task_always_eager and (current_app.conf.broker_write_url or "").startswith(
+        ("redis://", "rediss://")
+    )
 
 
 def claim_refits(installation_ids: list[int]) -> list[int]:
@@ -63,7 +65,7 @@ def claim_refits(installation_ids: list[int]) -> list[int]:
     if not ids or not _merging():
         return ids
     try:
-        pipe = _pending_store().pipeline(transaction=False)
+        pipe = _pending_store(current_app.conf.broker_write_url).pipeline(transaction=False)
         for installation_id in ids:
             pipe.set(f"{PENDING_PREFIX}{installation_id}", 1, nx=True, ex=PENDING_TTL_S)
         claimed = pipe.execute()
@@ -77,7 +79,7 @@ def release_refits(installation_ids: list[int]) -> None:
     if not installation_ids or not _merging():
         return
     try:
-        _pending_store().delete(*(f"{PENDING_PREFIX}{i}" for i in installation_ids))
+        _pending_store(current_app.conf.broker_write_url).delete(*(f"{PENDING_PREFIX}{i}" for i in installation_ids))
     except redis.RedisError:
         log.warning("refit marks of %d capacitors not cleared; they expire by themselves", len(installation_ids))
 
