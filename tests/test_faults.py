@@ -65,27 +65,32 @@ def free_port() -> int:
         return probe.getsockname()[1]
 
 
-def _reset_broker_pools(app) -> None:
-    """Forget the pools bound to the old address (kombu keeps one per address, open)."""
+def _forget_connections(app) -> None:
+    """Drop the pools and the result store bound to the old address (kombu keeps one pool per address, open)."""
     app._pool = None
     app.amqp._producer_pool = None
+    app._backend_cache = None
+    app._local.__dict__.pop("backend", None)
 
 
 @contextlib.contextmanager
 def broker_at(url: str):
-    """Send this process's tasks to `url` for real (not in-process)."""
+    """Send this process's tasks to the Redis at `url` for real (not in-process); a result store, if
+    one is configured, moves there too, as both go down together when that Redis does."""
     from config.celery import app
 
     # The write address, not broker_url: Celery reads broker_url from the environment first.
-    saved = app.conf.broker_write_url, app.conf.task_always_eager
+    saved = app.conf.broker_write_url, app.conf.task_always_eager, app.conf.result_backend
     app.conf.broker_write_url, app.conf.task_always_eager = url, False
-    _reset_broker_pools(app)
+    if app.conf.result_backend:
+        app.conf.result_backend = url
+    _forget_connections(app)
     try:
         with override_settings(CELERY_BROKER_URL=url):
             yield app
     finally:
-        app.conf.broker_write_url, app.conf.task_always_eager = saved
-        _reset_broker_pools(app)
+        app.conf.broker_write_url, app.conf.task_always_eager, app.conf.result_backend = saved
+        _forget_connections(app)
 
 
 class RedisServer:
