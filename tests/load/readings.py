@@ -6,7 +6,8 @@ against a database with a fleet in it (e.g. after `manage.py demo --no-serve`):
     DATABASE_URL=postgres://... .venv/bin/python -m tests.load.readings --technicians 50 --readings 10
 
 It signs up one technician per thread (a user and an API token), starts gunicorn
-on 127.0.0.1, lets every technician post its readings to the API at once (no
+on 127.0.0.1, warms its workers up (a worker's first request loads the whole
+application, seconds on a busy machine), lets every technician post its readings to the API at once (no
 retries: a retry could store a reading twice), stops gunicorn, then checks that
 every reading answered 201 is stored exactly once and nothing else is, and
 prints the latency percentiles. It stops by itself: a fixed number of readings
@@ -91,6 +92,24 @@ def start_gunicorn(port: int, workers: int) -> subprocess.Popen:
     return process
 
 
+def warm_up(port: int, key: str, installation_id: int, requests: int) -> None:
+    """Let every gunicorn worker load the application (its first request imports the whole stack)."""
+
+    def read():
+        connection = http.client.HTTPConnection("127.0.0.1", port, timeout=60)
+        connection.request(
+            "GET", f"/api/capacitors/{installation_id}/readings/", headers={"Authorization": f"Token {key}"}
+        )
+        connection.getresponse().read()
+        connection.close()
+
+    threads = [threading.Thread(target=read) for _ in range(requests)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(timeout=90)
+
+
 def technician(port, key, plan, start, deadline, results, lock):
     """Post this technician's readings one after another on one kept-alive connection."""
     connection = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
@@ -145,6 +164,7 @@ def main() -> None:
     server = start_gunicorn(options.port, options.workers)
     results, lock, start = [], threading.Lock(), threading.Event()
     try:
+        warm_up(options.port, keys[0], capacitors[0][0], requests=4 * options.workers)
         deadline = time.monotonic() + options.deadline
         threads = [
             threading.Thread(
