@@ -100,7 +100,11 @@ TEMPLATES = [
 WSGI_APPLICATION = "config.wsgi.application"
 
 DATABASE_URL = os.environ.get("DATABASE_URL", f"sqlite:///{BASE_DIR / 'fleet.sqlite3'}")
-DATABASES = {"default": dj_database_url.parse(DATABASE_URL, conn_max_age=env_int("DB_CONN_MAX_AGE", 60))}
+# Health checks: a kept connection that died (database restarted) is replaced at the
+# start of the next request instead of failing it.
+DATABASES = {
+    "default": dj_database_url.parse(DATABASE_URL, conn_max_age=env_int("DB_CONN_MAX_AGE", 60), conn_health_checks=True)
+}
 if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
     DATABASES["default"]["CONN_MAX_AGE"] = 0
     DATABASES["default"]["OPTIONS"] = {
@@ -153,16 +157,39 @@ CELERY_TASK_EAGER_PROPAGATES = True
 CELERY_TASK_SERIALIZER = "json"
 CELERY_RESULT_SERIALIZER = "json"
 CELERY_ACCEPT_CONTENT = ["json"]
-CELERY_RESULT_BACKEND = os.environ.get("CELERY_RESULT_BACKEND", CELERY_BROKER_URL or None)
+# Progress lives in the database; no caller waits for a task's result. Storing none
+# also keeps a dead result store out of the request path (subscribing to a result
+# retried for about 19 s on every send while Redis was down).
+CELERY_TASK_IGNORE_RESULT = True
+CELERY_RESULT_BACKEND = os.environ.get("CELERY_RESULT_BACKEND") or None
+CELERY_REDIS_SOCKET_CONNECT_TIMEOUT = 0.5
+CELERY_REDIS_SOCKET_TIMEOUT = 1
+CELERY_RESULT_BACKEND_TRANSPORT_OPTIONS = {"retry_policy": {"max_retries": 1, "interval_start": 0}}
 CELERY_TASK_ACKS_LATE = True
 CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1
-# Fail fast when the broker is down: the reading is already saved and the stale
-# sweep queues its refit later.
-CELERY_TASK_PUBLISH_RETRY_POLICY = {"max_retries": 2, "interval_start": 0, "interval_step": 0.5, "interval_max": 1}
-CELERY_BROKER_CONNECTION_TIMEOUT = 3
 CELERY_TASK_TIME_LIMIT = 30 * 60
 CELERY_TASK_SOFT_TIME_LIMIT = 25 * 60
+# A chunk of a fleet refit (FLEET_REFIT_CHUNK_SIZE capacitors) takes seconds; past
+# these limits it is stopped, and a run with no progress for longer than the hard
+# limit (plus a minute) counts as abandoned.
+FLEET_REFIT_CHUNK_SOFT_LIMIT_S = env_int("FLEET_REFIT_CHUNK_SOFT_LIMIT_S", 5 * 60)
+FLEET_REFIT_CHUNK_TIME_LIMIT_S = env_int("FLEET_REFIT_CHUNK_TIME_LIMIT_S", 6 * 60)
+FLEET_REFIT_ABANDONED_AFTER_S = FLEET_REFIT_CHUNK_TIME_LIMIT_S + 60
+# Fail fast when the broker is down: enqueueing gives up within about a second, the
+# reading is already saved and the stale sweep refits it later. The same socket
+# timeouts cover a broker that hangs instead of refusing.
+CELERY_BROKER_CONNECTION_TIMEOUT = 1
+CELERY_TASK_PUBLISH_RETRY = True
+CELERY_TASK_PUBLISH_RETRY_POLICY = {"max_retries": 1, "interval_start": 0, "interval_step": 0.2, "interval_max": 0.2}
+CELERY_BROKER_TRANSPORT_OPTIONS = {
+    "socket_connect_timeout": 0.5,
+    "socket_timeout": 1,
+    # Every task acknowledges late, so an unacknowledged message goes back to the
+    # queue after this long: longer than any task's hard limit, or a task still
+    # running would be delivered twice.
+    "visibility_timeout": max(CELERY_TASK_TIME_LIMIT, FLEET_REFIT_CHUNK_TIME_LIMIT_S) + 5 * 60,
+}
 CELERY_TIMEZONE = TIME_ZONE
 CELERY_BEAT_SCHEDULE = {
     "nightly-fleet-refit": {"task": "fleet.tasks.refit_fleet", "schedule": crontab(hour=2, minute=15)},

@@ -11,3 +11,5 @@ urlpatterns = [
     path("admin/", admin.site.urls),
     path("", include("fleet.urls")),
 ]
+
+handler500 = "fleet.faults.server_error"

@@ -419,12 +419,20 @@ class WorkOrder(models.Model):
 
 
 class RefitRun(models.Model):
-    """Progress of a fleet refit, visible on a page in eager mode too."""
+    """Progress of a fleet refit, visible on a page in eager mode too.
+
+    `done` and `readings` are sums over the run's RefitChunk rows, advanced only
+    when a chunk's row is first written, so a chunk delivered twice counts once.
+    A run whose progress has not moved for longer than a chunk may take is
+    marked abandoned (its worker was lost); a rerun picks up what it left.
+    """
 
     class State(models.TextChoices):
+        QUEUED = "queued", "Queued"
         RUNNING = "running", "Running"
         DONE = "done", "Done"
         FAILED = "failed", "Failed"
+        ABANDONED = "abandoned", "Abandoned"
 
     kind = models.CharField(max_length=20, default="fleet")
     state = models.CharField(max_length=10, choices=State.choices, default=State.RUNNING)
@@ -432,6 +440,7 @@ class RefitRun(models.Model):
     done = models.PositiveIntegerField(default=0)
     readings = models.PositiveIntegerField(default=0)
     started_at = models.DateTimeField(auto_now_add=True)
+    progress_at = models.DateTimeField(null=True, blank=True, help_text="When a chunk last finished, or the run began")
     finished_at = models.DateTimeField(null=True, blank=True)
     message = models.TextField(blank=True)
 
@@ -444,6 +453,22 @@ class RefitRun(models.Model):
     @property
     def percent(self) -> int:
         return int(100 * self.done / self.total) if self.total else (100 if self.state == "done" else 0)
+
+
+class RefitChunk(models.Model):
+    """One finished chunk of a refit run; unique by number, so a redelivery adds nothing."""
+
+    run = models.ForeignKey(RefitRun, on_delete=models.CASCADE, related_name="chunks")
+    number = models.PositiveIntegerField()
+    capacitors = models.PositiveIntegerField()
+    readings = models.PositiveIntegerField(default=0)
+    finished_at = models.DateTimeField(auto_now_add=True)
+
+    class Meta:
+        constraints = [models.UniqueConstraint(fields=["run", "number"], name="refit_chunk_once")]
+
+    def __str__(self):
+        return f"chunk {self.number} of run {self.run_id}"
 
 
 class ImportJob(models.Model):

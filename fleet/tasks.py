@@ -1,25 +1,111 @@
-"""Celery tasks: thin, idempotent, arguments are ids. Each calls one service."""
+"""Celery tasks: thin, idempotent, arguments are ids. Each calls one service.
+
+Also the one way to hand work to the broker (`send`, which fails fast with
+QueueUnreachable) and the merging of repeated refits of one capacitor
+(`claim_refits`).
+"""
 
 from __future__ import annotations
 
-from celery import group, shared_task
+import functools
+import logging
+
+import redis
+from celery import current_app, group, shared_task
+from celery.exceptions import SoftTimeLimitExceeded
+from django.conf import settings
+from kombu.exceptions import OperationalError
 
 from fleet.services import assessments, backtest, circuits, import_jobs, refits
+
+log = logging.getLogger(__name__)
+
+# What a publish raises when the broker is down or hangs (kombu re-raises the
+# transport's connection errors as its OperationalError).
+QUEUE_ERRORS = (OperationalError, OSError, redis.RedisError)
+PENDING_PREFIX = "fleet:refit-pending:"
+PENDING_TTL_S = 5 * 60
+
+
+class QueueUnreachable(Exception):
+    """The broker did not take the task: the work waits until the queue is back."""
+
+
+def send(signature) -> None:
+    """Publish one task (or group); a broker that is down raises QueueUnreachable within about a second."""
+    try:
+        signature.apply_async()
+    except QUEUE_ERRORS as error:
+        raise QueueUnreachable(str(error) or type(error).__name__) from error
+
+
+@functools.cache
+def _pending_store(url: str) -> redis.Redis:
+    return redis.Redis.from_url(url, socket_connect_timeout=0.5, socket_timeout=1)
+
+
+def _merging() -> bool:
+    return not current_app.conf.task_always_eager and (current_app.conf.broker_write_url or "").startswith(
+        ("redis://", "rediss://")
+    )
+
+
+def claim_refits(installation_ids: list[int]) -> list[int]:
+    """The capacitors that have no refit waiting in the queue, now marked as waiting.
+
+    Repeated readings of one capacitor are merged into the refit already queued:
+    a key per capacitor in the broker's Redis, set only if absent and expiring by
+    itself. Chosen over a table of capacitors to refit because it needs no schema
+    and no cleanup: a mark whose task was lost expires after PENDING_TTL_S, and the
+    stale sweep refits that capacitor in the meantime. The task clears the marks
+    before it reads, so a reading saved while it runs queues a fresh refit. With
+    tasks in-process there is no queue and nothing to merge.
+    """
+    ids = [int(i) for i in installation_ids]
+    if not ids or not _merging():
+        return ids
+    try:
+        pipe = _pending_store(current_app.conf.broker_write_url).pipeline(transaction=False)
+        for installation_id in ids:
+            pipe.set(f"{PENDING_PREFIX}{installation_id}", 1, nx=True, ex=PENDING_TTL_S)
+        claimed = pipe.execute()
+    except redis.RedisError as error:
+        raise QueueUnreachable(str(error)) from error
+    return [installation_id for installation_id, fresh in zip(ids, claimed, strict=True) if fresh]
+
+
+def release_refits(installation_ids: list[int]) -> None:
+    """Clear the waiting marks (best effort: a mark left behind expires by itself)."""
+    if not installation_ids or not _merging():
+        return
+    try:
+        _pending_store(current_app.conf.broker_write_url).delete(*(f"{PENDING_PREFIX}{i}" for i in installation_ids))
+    except redis.RedisError:
+        log.warning("refit marks of %d capacitors not cleared; they expire by themselves", len(installation_ids))
 
 
 @shared_task(acks_late=True)
 def refit_capacitors(installation_ids: list[int]) -> int:
+    release_refits(installation_ids)
     return assessments.refit_installations(installation_ids).written
 
 
-@shared_task(acks_late=True)
-def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -> None:
-    refits.refit_chunk(run_id, installation_ids, force)
+@shared_task(
+    acks_late=True,
+    soft_time_limit=settings.FLEET_REFIT_CHUNK_SOFT_LIMIT_S,
+    time_limit=settings.FLEET_REFIT_CHUNK_TIME_LIMIT_S,
+)
+def refit_chunk(run_id: int, number: int, installation_ids: list[int], force: bool = False) -> None:
+    try:
+        refits.refit_chunk(run_id, number, installation_ids, force)
+    except SoftTimeLimitExceeded:
+        refits.fail_run(run_id, f"Chunk {number + 1} ran past its time limit; start the refit again.")
+        raise
 
 
 @shared_task
-def refit_fleet() -> int:
-    return refits.start_fleet_refit().id
+def refit_fleet(run_id: int | None = None) -> int:
+    return refits.start_fleet_refit(run_id=run_id).id
 
 
 @shared_task
@@ -48,7 +134,7 @@ def run_import(job_id: int, mode: str) -> None:
 
 
 def dispatch_refit_chunks(run_id: int, chunks: list[list[int]], force: bool = False) -> None:
-    group(refit_chunk.s(run_id, chunk, force) for chunk in chunks).apply_async()
+    send(group(refit_chunk.s(run_id, number, chunk, force) for number, chunk in enumerate(chunks)))
 
 
 @shared_task(acks_late=True)

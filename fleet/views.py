@@ -6,6 +6,7 @@ import datetime as dt
 import io
 
 import segno
+from django.conf import settings
 from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied, ValidationError
@@ -21,7 +22,7 @@ from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
-from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
+from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from .services import pages
 from .services.import_jobs import (
     KINDS,
@@ -34,10 +35,10 @@ from .services.import_jobs import (
 )
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
-from .services.refits import stale_installations
+from .services.refits import queue_fleet_refit, recent_runs, stale_installations
 from .services.register import set_route_order
 from .services.workorders import issue_visit, open_visits, plan_work_orders
-from .tasks import refit_fleet
+from .tasks import QueueUnreachable
 
 
 def home(request):
@@ -274,17 +275,30 @@ def _int_param(data, name, default, lowest, highest) -> int:
         return default
 
 
+QUEUE_DOWN = (
+    "The task queue is unreachable ({error}). {what} did not start; nothing is lost. Try again once the queue is back."
+)
+
+
 @permission_required("fleet.view_refitrun", raise_exception=True)
 def refits(request):
-    runs = RefitRun.objects.order_by("-started_at")[:10]
-    return render(request, "fleet/refits.html", {"runs": runs, "stale": stale_installations().count()})
+    context = {
+        "runs": recent_runs(10),
+        "stale": stale_installations().count(),
+        "abandoned_minutes": round(settings.FLEET_REFIT_ABANDONED_AFTER_S / 60),
+    }
+    return render(request, "fleet/refits.html", context)
 
 
 @require_POST
 @permission_required("fleet.add_refitrun", raise_exception=True)
 def refit_start(request):
-    refit_fleet.delay()
-    messages.success(request, "Fleet refit started. Progress shows below.")
+    try:
+        queue_fleet_refit()
+    except QueueUnreachable as error:
+        messages.error(request, QUEUE_DOWN.format(error=error, what="The fleet refit"))
+    else:
+        messages.success(request, "Fleet refit queued. Progress shows below.")
     return redirect("refits")
 
 

@@ -177,8 +177,8 @@ def test_fleet_refit_records_progress_to_done_in_eager_mode():
     from fleet.tasks import refit_chunk
 
     ids = list(FittedCapacitor.objects.order_by("id").values_list("id", flat=True))
-    for chunk in (ids[:3], ids[3:6], ids[6:]):
-        refit_chunk(run.id, chunk)
+    for number, chunk in enumerate((ids[:3], ids[3:6], ids[6:])):
+        refit_chunk(run.id, number, chunk)
     run.refresh_from_db()
     assert (run.state, run.done, run.total) == (RefitRun.State.DONE, 7, 7)
     assert Assessment.objects.filter(is_current=True).count() == 7

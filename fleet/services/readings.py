@@ -30,20 +30,28 @@ class NeedsConfirmation(ValidationError):
 def enqueue_refit(installation_ids: list[int]) -> None:
     """Queue refits in chunks (one bulk refit per chunk, not one task per capacitor).
 
-    A broker that is down must not lose a reading (the stale sweep picks the
-    capacitors up later), so failures are logged, not raised.
+    Capacitors whose refit already waits in the queue are left out (claim_refits
+    merges repeated readings of one capacitor). A broker that is down must not
+    lose a reading nor hold the request: enqueueing gives up within about a
+    second, logs, and the stale sweep picks the capacitors up later.
     """
-    from fleet.tasks import refit_capacitors
+    from fleet.tasks import QUEUE_ERRORS, QueueUnreachable, claim_refits, refit_capacitors, release_refits
 
+    try:
+        installation_ids = claim_refits(installation_ids)
+    except QueueUnreachable as error:
+        log.warning(
+            "refit of %d capacitors not queued (%s); the stale sweep will pick them up", len(installation_ids), error
+        )
+        return
     size = settings.FLEET_REFIT_CHUNK_SIZE
     for start in range(0, len(installation_ids), size):
         chunk = list(installation_ids[start : start + size])
         try:
             refit_capacitors.delay(chunk)
-        except Exception:  # noqa: BLE001 - any broker failure: the sweep recovers it
-            log.warning(
-                "refit of %d capacitors not queued; the stale sweep will pick them up", len(chunk), exc_info=True
-            )
+        except QUEUE_ERRORS as error:
+            release_refits(chunk)
+            log.warning("refit of %d capacitors not queued (%s); the stale sweep will pick them up", len(chunk), error)
 
 
 def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:

@@ -1,26 +1,64 @@
-"""Fleet refits in chunks across workers, with a progress record, and the stale sweep."""
+"""Fleet refits in chunks across workers, with an honest progress record, and the stale sweep."""
 
 from __future__ import annotations
+
+import datetime as dt
 
 from django.conf import settings
 from django.db import transaction
 from django.db.models import F, OuterRef, Q, Subquery
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, Reading, RefitRun
+from fleet.models import Assessment, FittedCapacitor, Reading, RefitChunk, RefitRun
 
 from .assessments import refit_installations, refresh_part_priors
 
+QUEUE_DOWN = (
+    "The task queue is unreachable ({error}), so the fleet refit did not start. Every reading is saved: once the "
+    "queue is back, the sweep every 15 minutes refits each capacitor with newer readings, or start the refit again."
+)
+ABANDONED = (
+    "No progress for {minutes} minutes: the worker running it was lost. Start the refit again; "
+    "capacitors already refitted are skipped."
+)
+LIVE_STATES = (RefitRun.State.QUEUED, RefitRun.State.RUNNING)
 
-def start_fleet_refit(*, kind: str = "fleet", chunk_size: int | None = None, force: bool = False) -> RefitRun:
-    """Refresh the part priors, then queue every capacitor in service in chunks.
 
-    Chunks are dispatched after the run record commits; in eager mode they run
-    before this returns, and the run is already done. `force` refits capacitors
-    whose assessment is already up to date (benchmarks, a changed model).
+def queue_fleet_refit(*, kind: str = "fleet") -> RefitRun:
+    """Record a queued run, then hand it to a worker.
+
+    The record exists before the task does, so a refit queued but never started
+    (its worker died, the queue was flushed) still shows, and is marked abandoned.
+    With the queue unreachable the run ends failed with the reason, and
+    QueueUnreachable is raised for the page to say so. Call outside a transaction.
     """
-    from fleet.tasks import dispatch_refit_chunks
+    from fleet.tasks import QueueUnreachable, refit_fleet, send
 
+    run = RefitRun.objects.create(kind=kind, state=RefitRun.State.QUEUED, progress_at=timezone.now())
+    try:
+        send(refit_fleet.s(run.id))
+    except QueueUnreachable as error:
+        fail_run(run.id, QUEUE_DOWN.format(error=error))
+        raise
+    run.refresh_from_db()
+    return run
+
+
+def start_fleet_refit(
+    *, kind: str = "fleet", chunk_size: int | None = None, force: bool = False, run_id: int | None = None
+) -> RefitRun:
+    """Refresh the part priors, then queue every capacitor in service in numbered chunks.
+
+    `run_id` is a run recorded by queue_fleet_refit (a second delivery of a run
+    already done does nothing). Chunks are dispatched after the run record
+    commits; in eager mode they run before this returns, and the run is already
+    done. `force` refits capacitors whose assessment is already up to date
+    (benchmarks, a changed model).
+    """
+    from fleet.tasks import QueueUnreachable, dispatch_refit_chunks
+
+    if run_id is not None and RefitRun.objects.filter(id=run_id, state=RefitRun.State.DONE).exists():
+        return RefitRun.objects.get(id=run_id)
     chunk_size = chunk_size or settings.FLEET_REFIT_CHUNK_SIZE
     refresh_part_priors()
     ids = list(
@@ -29,25 +67,77 @@ def start_fleet_refit(*, kind: str = "fleet", chunk_size: int | None = None, for
         .order_by("id")
         .values_list("id", flat=True)
     )
-    run = RefitRun.objects.create(kind=kind, total=len(ids))
+    now = timezone.now()
+    started = dict(state=RefitRun.State.RUNNING, total=len(ids), progress_at=now, finished_at=None, message="")
+    if run_id is None or not RefitRun.objects.filter(id=run_id).update(**started):
+        run_id = RefitRun.objects.create(kind=kind, **started).id
     if not ids:
-        RefitRun.objects.filter(id=run.id).update(state=RefitRun.State.DONE, finished_at=timezone.now())
-        run.refresh_from_db()
-        return run
+        RefitRun.objects.filter(id=run_id).update(state=RefitRun.State.DONE, finished_at=now)
+        return RefitRun.objects.get(id=run_id)
     chunks = [ids[i : i + chunk_size] for i in range(0, len(ids), chunk_size)]
-    transaction.on_commit(lambda: dispatch_refit_chunks(run.id, chunks, force))
-    return run
+
+    def dispatch():
+        try:
+            dispatch_refit_chunks(run_id, chunks, force)
+        except QueueUnreachable as error:
+            fail_run(run_id, QUEUE_DOWN.format(error=error))
+
+    transaction.on_commit(dispatch)
+    return RefitRun.objects.get(id=run_id)
 
 
-def refit_chunk(run_id: int, installation_ids: list[int], force: bool = False) -> None:
-    """One chunk: refit (idempotent unless forced), then advance the run's progress atomically."""
+def refit_chunk(run_id: int, number: int, installation_ids: list[int], force: bool = False) -> None:
+    """One chunk: refit (idempotent unless forced), then record it once.
+
+    The chunk's row is unique by (run, number); the run's counts move only when
+    that row is new, in the same transaction, so a chunk delivered again after
+    its worker died (acks_late) refits nothing new and counts nothing twice.
+    """
     outcome = refit_installations(installation_ids, force=force)
-    RefitRun.objects.filter(id=run_id).update(
-        done=F("done") + len(installation_ids), readings=F("readings") + outcome.readings
+    now = timezone.now()
+    with transaction.atomic():
+        if not list(RefitRun.objects.select_for_update().filter(id=run_id).values_list("id", flat=True)):
+            return  # the run was deleted while its chunk waited
+        _, new = RefitChunk.objects.get_or_create(
+            run_id=run_id, number=number, defaults={"capacitors": len(installation_ids), "readings": outcome.readings}
+        )
+        if not new:
+            return
+        RefitRun.objects.filter(id=run_id).update(
+            done=F("done") + len(installation_ids), readings=F("readings") + outcome.readings, progress_at=now
+        )
+        RefitRun.objects.filter(id=run_id, done__gte=F("total")).exclude(state=RefitRun.State.DONE).update(
+            state=RefitRun.State.DONE, finished_at=now, message=""
+        )
+
+
+def fail_run(run_id: int, message: str) -> None:
+    RefitRun.objects.filter(id=run_id).exclude(state=RefitRun.State.DONE).update(
+        state=RefitRun.State.FAILED, finished_at=timezone.now(), message=message
     )
-    RefitRun.objects.filter(id=run_id, done__gte=F("total"), state=RefitRun.State.RUNNING).update(
-        state=RefitRun.State.DONE, finished_at=timezone.now()
+
+
+def mark_abandoned_runs(now: dt.datetime | None = None) -> int:
+    """Queued or running runs with no progress for longer than a chunk may take end as abandoned.
+
+    Each chunk finishes (or is stopped by its hard time limit) within
+    FLEET_REFIT_CHUNK_TIME_LIMIT_S, so a longer silence means no worker holds the
+    run any more. A chunk that still finishes later completes the run honestly.
+    """
+    now = now or timezone.now()
+    limit = now - dt.timedelta(seconds=settings.FLEET_REFIT_ABANDONED_AFTER_S)
+    message = ABANDONED.format(minutes=round(settings.FLEET_REFIT_ABANDONED_AFTER_S / 60))
+    return (
+        RefitRun.objects.filter(state__in=LIVE_STATES)
+        .filter(Q(progress_at__lt=limit) | Q(progress_at__isnull=True, started_at__lt=limit))
+        .update(state=RefitRun.State.ABANDONED, finished_at=now, message=message)
     )
+
+
+def recent_runs(count: int = 10) -> list[RefitRun]:
+    """The latest runs for the refits page, lost ones marked abandoned first."""
+    mark_abandoned_runs()
+    return list(RefitRun.objects.order_by("-started_at")[:count])
 
 
 def stale_installations():
@@ -71,7 +161,8 @@ def stale_installation_ids(limit: int = 5000) -> list[int]:
 
 
 def sweep_stale(limit: int = 5000) -> int:
-    """Refit what a lost task left stale (the broker was down when it was saved)."""
+    """Refit what a lost task left stale (the broker was down when it was saved); mark lost runs abandoned."""
+    mark_abandoned_runs()
     ids = stale_installation_ids(limit)
     if ids:
         refit_installations(ids)

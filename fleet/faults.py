@@ -1,0 +1,38 @@
+"""What a request answers when the database cannot be reached: 503, not a bare 500.
+
+Installed as the site's 500 handler, so it also covers failures in middleware
+(the session and the login check touch the database before any view runs).
+Pages get a friendly page that retries by itself, the API a JSON body; both
+say when to retry. Any other error keeps Django's 500 page.
+"""
+
+from __future__ import annotations
+
+import sys
+
+from django.db import InterfaceError, OperationalError
+from django.http import HttpResponse, JsonResponse
+from django.template.loader import render_to_string
+from django.views import defaults
+
+DATABASE_ERRORS = (OperationalError, InterfaceError)
+RETRY_AFTER_S = 30
+API_PREFIX = "/api/"
+
+
+def server_error(request, template_name: str = defaults.ERROR_500_TEMPLATE_NAME):
+    """Django's handler500, called while the exception is being handled."""
+    error = sys.exc_info()[1]
+    if isinstance(error, DATABASE_ERRORS):
+        return database_unavailable(request)
+    return defaults.server_error(request, template_name)
+
+
+def database_unavailable(request) -> HttpResponse:
+    """503 with Retry-After; rendered without the request, so without touching the session or the user."""
+    headers = {"Retry-After": str(RETRY_AFTER_S)}
+    if request.path.startswith(API_PREFIX):
+        body = {"detail": "The database is unreachable; try again later.", "retry_after_s": RETRY_AFTER_S}
+        return JsonResponse(body, status=503, headers=headers)
+    html = render_to_string("503.html", {"retry_after_s": RETRY_AFTER_S})
+    return HttpResponse(html, status=503, headers=headers)
