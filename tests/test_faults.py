@@ -211,7 +211,9 @@ def test_with_the_broker_down_a_fleet_refit_says_so_and_leaves_a_failed_run(clie
 
 
 @pytest.mark.django_db(transaction=True)
-def test_with_the_broker_down_import_steps_say_so_and_import_nothing(client, technician):
+def test_with_the_broker_down_import_steps_say_so_and_import_nothing(
+    client, technician, django_capture_on_commit_callbacks
+):
     fleet_of(2)
     client.force_login(technician)
     upload = io.BytesIO(csv_of(good_rows(["IMP-0000", "IMP-0001"], 2)))
@@ -220,18 +222,19 @@ def test_with_the_broker_down_import_steps_say_so_and_import_nothing(client, tec
     job = ImportJob.objects.get()
     detail = reverse("import_detail", args=[job.id])
     mapping = {name: name for name in HEADER}
-    with broker_at(f"redis://127.0.0.1:{free_port()}/0"):
-        response = client.post(detail, {"action": "check", **mapping}, follow=True)
-        assert "The task queue is unreachable" in page_messages(response)
-        assert "The check did not start" in page_messages(response)
-    client.post(detail, {"action": "check", **mapping})  # in-process again: the check runs
+    with broker_at(f"redis://127.0.0.1:{free_port()}/0"), django_capture_on_commit_callbacks(execute=True):
+        client.post(detail, {"action": "check", **mapping}, follow=True)
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.FAILED and "task queue could not be reached" in job.message
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(detail, {"action": "check", **mapping})  # in-process again: the check runs
     job.refresh_from_db()
     assert job.state == ImportJob.State.CHECKED
-    with broker_at(f"redis://127.0.0.1:{free_port()}/0"):
-        response = client.post(detail, {"action": "all"}, follow=True)
-        assert "The import did not start" in page_messages(response)
+    with broker_at(f"redis://127.0.0.1:{free_port()}/0"), django_capture_on_commit_callbacks(execute=True):
+        client.post(detail, {"action": "all"}, follow=True)
     job.refresh_from_db()
-    assert job.state == ImportJob.State.CHECKED and Reading.objects.count() == 0
+    assert job.state == ImportJob.State.FAILED and "task queue could not be reached" in job.message
+    assert Reading.objects.count() == 0
 
 
 # --- repeated refits of one capacitor ----------------------------------------------------------------------
