@@ -23,6 +23,7 @@ from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import READING_REQUIRED, REGISTER_REQUIRED, FileRefused
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, RefitRun, Site
+from .roles import scope_to_user
 from .services import pages
 from .services.import_jobs import SPECS, create_job, rejected_rows_csv
 from .services.lifedata import part_life
@@ -34,7 +35,7 @@ from .tasks import check_import, refit_fleet, run_import
 
 
 def home(request):
-    context = {"find_form": FindMotorForm(), "sites": Site.objects.all()}
+    context = {"find_form": FindMotorForm(), "sites": scope_to_user(Site.objects.all(), request.user)}
     if request.user.has_perm("fleet.view_assessment"):
         context["risks"] = pages.risk_summary()
         context["plan"] = pages.replacement_plan(horizon_days=30)[:15]
@@ -47,11 +48,12 @@ def find_motor(request):
     form = FindMotorForm(request.GET or None)
     if form.is_valid():
         tag = form.cleaned_data["tag"].strip()
-        motor = Motor.objects.filter(asset_tag__iexact=tag).first()
+        motor = scope_to_user(Motor.objects.filter(asset_tag__iexact=tag), request.user).first()
         if motor is not None:
             return redirect("motor", asset_tag=motor.asset_tag)
         form.add_error("tag", f"No motor has the tag {tag!r}. Check the label, or search by site below.")
-    return render(request, "fleet/find.html", {"find_form": form, "sites": Site.objects.all()})
+    sites = scope_to_user(Site.objects.all(), request.user)
+    return render(request, "fleet/find.html", {"find_form": form, "sites": sites})
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
@@ -60,6 +62,8 @@ def motor_detail(request, asset_tag):
         motor = pages.motor_with_capacitors(asset_tag)
     except Motor.DoesNotExist as error:
         raise Http404(f"No motor {asset_tag}") from error
+    if not scope_to_user(Motor.objects.filter(pk=motor.pk), request.user).exists():
+        raise Http404(f"No motor {asset_tag}")
     in_service = [c for c in motor.fitted if c.removed_on is None]
     removed = [c for c in motor.fitted if c.removed_on is not None]
     for capacitor in in_service:
@@ -75,13 +79,15 @@ def _energy_j(part) -> float:
     return float(stored_energy_j(part.rated_uf, part.rated_voltage_v))
 
 
-def _installation(installation_id) -> FittedCapacitor:
-    return get_object_or_404(FittedCapacitor.objects.select_related("motor__site", "part"), pk=installation_id)
+def _installation(request, installation_id) -> FittedCapacitor:
+    """A fitted capacitor at one of the user's sites, or 404."""
+    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor__site", "part"), request.user)
+    return get_object_or_404(capacitors, pk=installation_id)
 
 
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)
 def capacitor_detail(request, installation_id):
-    installation = _installation(installation_id)
+    installation = _installation(request, installation_id)
     assessment = installation.assessments.filter(is_current=True).first()
     context = {
         "installation": installation,
@@ -95,7 +101,7 @@ def capacitor_detail(request, installation_id):
 
 @permission_required("fleet.add_reading", raise_exception=True)
 def reading_new(request, installation_id):
-    installation = _installation(installation_id)
+    installation = _installation(request, installation_id)
     needs_confirmation = False
     if request.method == "POST":
         form = ReadingForm(request.POST)
@@ -144,7 +150,7 @@ def _add_errors(form, error: ValidationError) -> None:
 
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
-    installation = _installation(installation_id)
+    installation = _installation(request, installation_id)
     form = ReplacementForm(request.POST or None, installation=installation)
     if request.method == "POST" and form.is_valid():
         try:
@@ -173,7 +179,7 @@ def replace(request, installation_id):
 
 @permission_required("fleet.view_motor", raise_exception=True)
 def site_route(request, site_code):
-    site = get_object_or_404(Site, code=site_code)
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     order_errors = {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
@@ -214,7 +220,7 @@ def _qr_svg(request, motor: Motor) -> str:
 
 @permission_required("fleet.view_motor", raise_exception=True)
 def labels(request, site_code):
-    site = get_object_or_404(Site, code=site_code)
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     motors = Motor.objects.filter(site=site).order_by("route_order", "asset_tag")
     tag = request.GET.get("tag")
     if tag:
@@ -311,14 +317,14 @@ def imports_home(request):
                 form.add_error("file", str(error))
             else:
                 return redirect("import_detail", job_id=job.id)
-    jobs = ImportJob.objects.defer("content").order_by("-created_at")[:15]
+    jobs = scope_to_user(ImportJob.objects.defer("content"), request.user).order_by("-created_at")[:15]
     context = {"form": form, "jobs": jobs, "specs": {k: v[0] for k, v in SPECS.items()}}
     return render(request, "fleet/imports.html", context)
 
 
 @permission_required("fleet.add_reading", raise_exception=True)
 def import_detail(request, job_id):
-    job = get_object_or_404(ImportJob.objects.defer("content"), pk=job_id)
+    job = get_object_or_404(scope_to_user(ImportJob.objects.defer("content"), request.user), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
     ours = SPECS[job.kind][0]
@@ -345,7 +351,7 @@ def import_detail(request, job_id):
 
 @permission_required("fleet.add_reading", raise_exception=True)
 def import_rejected(request, job_id):
-    job = get_object_or_404(ImportJob, pk=job_id)
+    job = get_object_or_404(scope_to_user(ImportJob.objects.all(), request.user), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
     response = HttpResponse(rejected_rows_csv(job), content_type="text/csv; charset=utf-8")
