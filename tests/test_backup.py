@@ -49,7 +49,9 @@ def plant(db, django_capture_on_commit_callbacks):
     SiteMembership.objects.create(user=technician, site=site)
     Token.objects.create(user=technician)
     WorkOrder.objects.create(motor=motor, installation=new, kind="replace_run", due_on=dt.date(2027, 1, 4))
-    ImportJob.objects.create(kind="readings", filename="q1.csv", content=b"tag,uf\nCST-FAN-01,3.9\n", created_by=technician)
+    ImportJob.objects.create(
+        kind="readings", filename="q1.csv", content=b"tag,uf\nCST-FAN-01,3.9\n", created_by=technician
+    )
     return {"old": old, "technician": technician}
 
 
@@ -101,7 +103,14 @@ def test_the_round_trip_into_a_new_database_loses_nothing(plant, tmp_path):
         if not m._meta.proxy and m._meta.label_lower not in left_out
     }
     assert Counter(o["model"] for o in written) == {label: n for label, n in expected.items() if n}
-    for label in ("fleet.reading", "fleet.assessment", "fleet.partprior", "auth.user", "auth.group", "fleet.auditentry"):
+    for label in (
+        "fleet.reading",
+        "fleet.assessment",
+        "fleet.partprior",
+        "auth.user",
+        "auth.group",
+        "fleet.auditentry",
+    ):
         assert expected[label] > 0, label
 
     in_new_database(tmp_path, ["migrate", "--verbosity", "0"], ["restore", str(backup)], ["backup", str(again)])
