@@ -17,7 +17,7 @@ from django.utils import timezone
 from rest_framework.authtoken.models import Token
 
 from fleet.models import FittedCapacitor, ImportJob, Reading, SiteMembership, WorkOrder
-from fleet.roles import ADMINISTRATOR, TECHNICIAN
+from fleet.roles import ADMINISTRATOR, PLANNER, TECHNICIAN, ensure_role_groups
 from fleet.services.backup import LEFT_OUT
 
 from .conftest import make_installation, make_motor, make_reading, make_site, make_user, quarterly_readings
@@ -46,6 +46,9 @@ def plant(db, django_capture_on_commit_callbacks):
     technician.set_password("kept-as-a-hash-123")
     technician.save()
     make_user(ADMINISTRATOR, username="keeper")
+    # A role deleted and made again by migrate: its id no longer matches a new database's.
+    Group.objects.filter(name=PLANNER).delete()
+    ensure_role_groups()
     SiteMembership.objects.create(user=technician, site=site)
     Token.objects.create(user=technician)
     WorkOrder.objects.create(motor=motor, installation=new, kind="replace_run", due_on=dt.date(2027, 1, 4))
