@@ -15,7 +15,7 @@ from django.contrib.auth.models import Group, Permission
 from django.contrib.contenttypes.models import ContentType
 from django.contrib.sessions.models import Session
 from django.core.management import CommandError, call_command
-from django.db import transaction
+from django.db import connections, transaction
 
 from fleet import audit
 from fleet.roles import ROLES
@@ -32,16 +32,23 @@ def _check_name(path: str) -> None:
 
 
 def write_backup(path: str, *, database: str = "default") -> None:
+    """One consistent picture while the site runs: a single snapshot on PostgreSQL; on SQLite
+    the file is read under one transaction, so writers wait (up to the busy timeout) until it ends."""
     _check_name(path)
-    call_command(
-        "dumpdata",
-        exclude=LEFT_OUT,
-        natural_foreign=True,
-        output=str(path),
-        database=database,
-        indent=None,
-        verbosity=0,
-    )
+    connection = connections[database]
+    outermost = not connection.in_atomic_block
+    with transaction.atomic(using=database):
+        if outermost and connection.vendor == "postgresql":
+            connection.cursor().execute("SET TRANSACTION ISOLATION LEVEL REPEATABLE READ READ ONLY")
+        call_command(
+            "dumpdata",
+            exclude=LEFT_OUT,
+            natural_foreign=True,
+            output=str(path),
+            database=database,
+            indent=None,
+            verbosity=0,
+        )
 
 
 def rows_in_the_way(database: str = "default") -> dict[str, int]:
