@@ -79,10 +79,10 @@ def visible_site_ids(user) -> set[int] | None:
     A user without site memberships, and every administrator, works at every site,
     so a plant that does not scope its people needs to set nothing.
     """
-    if not user.is_authenticated or is_administrator(user):
+    if not user.is_authenticated:
         return None
-    if not hasattr(user, "_fleet_site_ids"):
-        ids = set(user.site_memberships.values_list("site_id", flat=True))
+    if not hasattr(user, "_fleet_site_ids"):  # once per request: the user object lives as long
+        ids = None if is_administrator(user) else set(user.site_memberships.values_list("site_id", flat=True))
         user._fleet_site_ids = ids or None
     return user._fleet_site_ids
 
