@@ -213,9 +213,60 @@ if PRODUCTION:
     SECURE_SSL_REDIRECT = env_bool("SECURE_SSL_REDIRECT", True)
     SECURE_HSTS_SECONDS = env_int("SECURE_HSTS_SECONDS", 31536000)
     SECURE_HSTS_INCLUDE_SUBDOMAINS = True
-    SECURE_HSTS_PRELOAD = env_bool("SECURE_HSTS_PRELOAD", True)
-    SECURE_PROXY_SSL_HEADER = ("HTTP_X_FORWARDED_PROTO", "https")
     SECURE_CONTENT_TYPE_NOSNIFF = True
+
+# Security: sign-in lockout, API throttles, Content-Security-Policy, proxy trust, HSTS
+# preload, audit trail. Kept in this one block.
+# Preloading commits the domain (and its subdomains) to HTTPS in browsers for months: opt in.
+SECURE_HSTS_PRELOAD = env_bool("SECURE_HSTS_PRELOAD", False)
+if not SECURE_HSTS_PRELOAD:
+    SILENCED_SYSTEM_CHECKS = ["security.W021"]  # preload is a deliberate opt-in, not an oversight
+# X-Forwarded-Proto / -For are believed only when a proxy that sets them sits in front.
+FLEET_BEHIND_PROXY = env_bool("FLEET_BEHIND_PROXY", False)
+if FLEET_BEHIND_PROXY:
+    SECURE_PROXY_SSL_HEADER = ("HTTP_X_FORWARDED_PROTO", "https")
+# Counters for lockout and throttles: Redis shares them between web workers.
+CACHE_URL = os.environ.get("CACHE_URL", "")
+CACHES = {
+    "default": {"BACKEND": "django.core.cache.backends.redis.RedisCache", "LOCATION": CACHE_URL}
+    if CACHE_URL
+    else {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}
+}
+LOGIN_FAILURE_LIMIT = env_int("LOGIN_FAILURE_LIMIT", 5)
+LOGIN_LOCKOUT_MINUTES = env_int("LOGIN_LOCKOUT_MINUTES", 15)
+
+
+def env_rate(name: str, default: str) -> str:
+    """A rate as DRF writes it: a count, a slash and second, minute, hour or day."""
+    raw = os.environ.get(name, "") or default
+    count, _, period = raw.partition("/")
+    if not count.isdigit() or period not in {"second", "minute", "hour", "day", "s", "m", "h", "d"}:
+        raise ImproperlyConfigured(f"{name}={raw!r}: write a rate like 60/minute")
+    return raw
+
+
+API_BAD_TOKEN_RATE = env_rate("API_BAD_TOKEN_RATE", "10/minute")
+REST_FRAMEWORK["DEFAULT_AUTHENTICATION_CLASSES"] = [
+    "fleet.security.ThrottledTokenAuthentication",  # first: a missing token answers 401; bad tokens are counted
+    "rest_framework.authentication.SessionAuthentication",
+]
+REST_FRAMEWORK["DEFAULT_THROTTLE_CLASSES"] = [
+    "rest_framework.throttling.AnonRateThrottle",
+    "rest_framework.throttling.UserRateThrottle",
+]
+REST_FRAMEWORK["DEFAULT_THROTTLE_RATES"] = {
+    "anon": env_rate("API_THROTTLE_ANON", "30/minute"),
+    "user": env_rate("API_THROTTLE_USER", "600/minute"),
+}
+REST_FRAMEWORK["NUM_PROXIES"] = 1 if FLEET_BEHIND_PROXY else None
+CSP_REPORT_ONLY = env_bool("CSP_REPORT_ONLY", False)
+MIDDLEWARE.insert(
+    MIDDLEWARE.index("django.middleware.security.SecurityMiddleware") + 1,
+    "fleet.security.ContentSecurityPolicyMiddleware",
+)
+MIDDLEWARE.insert(
+    MIDDLEWARE.index("django.contrib.auth.middleware.AuthenticationMiddleware") + 1, "fleet.audit.AuditMiddleware"
+)
 
 LOGGING = {
     "version": 1,

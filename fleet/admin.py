@@ -1,8 +1,32 @@
-"""The register keeper's screens: search and filters on every model."""
+"""The register keeper's screens: search and filters on every model.
 
+Users and groups are edited here too, with one rule on top of Django's: nobody grants
+more than they hold (superuser, a permission, or a group with permissions they lack).
+"""
+
+from django import forms
 from django.contrib import admin
+from django.contrib.auth import get_user_model
+from django.contrib.auth.admin import GroupAdmin, UserAdmin
+from django.contrib.auth.models import Group
+from rest_framework.authtoken.admin import TokenAdmin
+from rest_framework.authtoken.models import TokenProxy
 
-from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site, WorkOrder
+from .models import (
+    Assessment,
+    AuditEntry,
+    CapacitorPart,
+    FittedCapacitor,
+    Motor,
+    PartPrior,
+    Reading,
+    RefitRun,
+    Site,
+    SiteMembership,
+    WorkOrder,
+)
+
+User = get_user_model()
 
 
 @admin.register(Site)
@@ -119,3 +143,127 @@ class WorkOrderAdmin(admin.ModelAdmin):
 
 admin.site.register(PartPrior)
 admin.site.register(RefitRun)
+
+
+def _perm_name(permission) -> str:
+    return f"{permission.content_type.app_label}.{permission.codename}"
+
+
+def _beyond(editor, permissions) -> list[str]:
+    """The permissions in `permissions` that `editor` does not hold (none for a superuser)."""
+    if editor.is_superuser:
+        return []
+    held = editor.get_all_permissions()
+    return sorted(name for name in map(_perm_name, permissions) if name not in held)
+
+
+class NoEscalationForm(forms.ModelForm):
+    """Refuses to add a permission or a group that gives more than the editor holds."""
+
+    editor = None
+
+    def _check_added(self, field: str, permissions_of) -> None:
+        if field not in self.cleaned_data or self.editor is None:
+            return
+        before = set(getattr(self.instance, field).all()) if self.instance.pk else set()
+        for added in set(self.cleaned_data[field]) - before:
+            beyond = _beyond(self.editor, permissions_of(added))
+            if beyond:
+                self.add_error(field, f"You cannot grant {added}: it holds {', '.join(beyond)}, which you do not.")
+
+    def clean(self):
+        cleaned = super().clean()
+        self._check_added("permissions", lambda p: [p])
+        self._check_added("user_permissions", lambda p: [p])
+        self._check_added("groups", lambda g: g.permissions.select_related("content_type"))
+        if self.editor is not None and not self.editor.is_superuser and cleaned.get("is_superuser"):
+            self.add_error("is_superuser", "Only a superuser can make a superuser.")
+        return cleaned
+
+
+class NoEscalationAdminMixin:
+    def get_form(self, request, obj=None, **kwargs):
+        form = super().get_form(request, obj, **kwargs)
+        return type(form.__name__, (NoEscalationForm, form), {"editor": request.user})
+
+
+class SiteMembershipInline(admin.TabularInline):
+    model = SiteMembership
+    extra = 0
+    autocomplete_fields = ["site"]
+    verbose_name = "site this user works at (none: every site)"
+    verbose_name_plural = "sites this user works at (none: every site)"
+
+
+admin.site.unregister(User)
+admin.site.unregister(Group)
+admin.site.unregister(TokenProxy)
+
+
+@admin.register(User)
+class FleetUserAdmin(NoEscalationAdminMixin, UserAdmin):
+    """Users with their roles (groups) and the sites they work at."""
+
+    inlines = [SiteMembershipInline]
+
+    def get_readonly_fields(self, request, obj=None):
+        fields = list(super().get_readonly_fields(request, obj))
+        return fields if request.user.is_superuser else [*fields, "is_superuser"]
+
+    def has_change_permission(self, request, obj=None):
+        """A superuser's account is changed (password included) by superusers only."""
+        if obj is not None and obj.is_superuser and not request.user.is_superuser:
+            return False
+        return super().has_change_permission(request, obj)
+
+    def has_delete_permission(self, request, obj=None):
+        if obj is not None and obj.is_superuser and not request.user.is_superuser:
+            return False
+        return super().has_delete_permission(request, obj)
+
+
+@admin.register(Group)
+class FleetGroupAdmin(NoEscalationAdminMixin, GroupAdmin):
+    """Roles: a group's permissions are granted only by someone who holds them."""
+
+
+@admin.register(TokenProxy)
+class FleetTokenAdmin(TokenAdmin):
+    """API tokens: a token acts as its user, so only superusers make one for a superuser."""
+
+    def formfield_for_foreignkey(self, db_field, request, **kwargs):
+        if db_field.name == "user" and not request.user.is_superuser:
+            kwargs["queryset"] = User.objects.filter(is_superuser=False)
+        return super().formfield_for_foreignkey(db_field, request, **kwargs)
+
+
+@admin.register(SiteMembership)
+class SiteMembershipAdmin(admin.ModelAdmin):
+    list_display = ["user", "site"]
+    list_filter = ["site"]
+    search_fields = ["user__username", "site__code"]
+    autocomplete_fields = ["user", "site"]
+
+
+@admin.register(AuditEntry)
+class AuditEntryAdmin(admin.ModelAdmin):
+    """The audit trail: read-only, newest first."""
+
+    list_display = ["at", "username", "action", "model", "object_repr", "changed_fields"]
+    list_filter = ["action", "model", "username"]
+    search_fields = ["object_repr", "object_id", "username"]
+    date_hierarchy = "at"
+    readonly_fields = [f.name for f in AuditEntry._meta.fields]
+
+    @admin.display(description="fields")
+    def changed_fields(self, entry):
+        return ", ".join(entry.changes)[:120]
+
+    def has_add_permission(self, request):
+        return False
+
+    def has_change_permission(self, request, obj=None):
+        return False
+
+    def has_delete_permission(self, request, obj=None):
+        return False

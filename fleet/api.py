@@ -12,6 +12,7 @@ from rest_framework import generics, permissions, serializers, status
 from rest_framework.response import Response
 
 from .models import Assessment, FittedCapacitor, Reading
+from .roles import scope_to_user
 from .services.readings import NeedsConfirmation, record_reading
 
 
@@ -95,10 +96,11 @@ class AssessmentList(generics.ListAPIView):
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
 
     def get_queryset(self):
-        queryset = (
+        queryset = scope_to_user(
             Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
             .select_related("installation__motor__site", "installation__part")
-            .order_by("replace_by", "installation_id")
+            .order_by("replace_by", "installation_id"),
+            self.request.user,
         )
         params = self.request.query_params
         if params.get("site"):
@@ -118,7 +120,8 @@ class CapacitorReadings(generics.ListCreateAPIView):
     queryset = Reading.objects.none()  # for the permission class's model lookup
 
     def installation(self) -> FittedCapacitor:
-        return get_object_or_404(FittedCapacitor.objects.select_related("motor", "part"), pk=self.kwargs["pk"])
+        capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), self.request.user)
+        return get_object_or_404(capacitors, pk=self.kwargs["pk"])
 
     def get_queryset(self):
         return Reading.objects.filter(installation=self.installation()).order_by("taken_at", "id")

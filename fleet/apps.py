@@ -8,6 +8,8 @@ class FleetConfig(AppConfig):
     default_auto_field = "django.db.models.BigAutoField"
 
     def ready(self):
+        from . import audit
         from .roles import ensure_role_groups
 
+        audit.connect()
         post_migrate.connect(ensure_role_groups, sender=self)

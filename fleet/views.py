@@ -23,6 +23,7 @@ from .engineering.capacitor import stored_energy_j
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
+from .roles import scope_to_user
 from .services import pages
 from .services.import_jobs import (
     KINDS,
@@ -42,7 +43,7 @@ from .tasks import QueueUnreachable
 
 
 def home(request):
-    context = {"find_form": FindMotorForm(), "sites": Site.objects.all()}
+    context = {"find_form": FindMotorForm(), "sites": scope_to_user(Site.objects.all(), request.user)}
     if request.user.has_perm("fleet.view_assessment"):
         context["risks"] = pages.risk_summary()
         context["plan"] = pages.replacement_plan(horizon_days=30)[:15]
@@ -55,11 +56,12 @@ def find_motor(request):
     form = FindMotorForm(request.GET or None)
     if form.is_valid():
         tag = form.cleaned_data["tag"].strip()
-        motor = Motor.objects.filter(asset_tag__iexact=tag).first()
+        motor = scope_to_user(Motor.objects.filter(asset_tag__iexact=tag), request.user).first()
         if motor is not None:
             return redirect("motor", asset_tag=motor.asset_tag)
         form.add_error("tag", f"No motor has the tag {tag!r}. Check the label, or search by site below.")
-    return render(request, "fleet/find.html", {"find_form": form, "sites": Site.objects.all()})
+    sites = scope_to_user(Site.objects.all(), request.user)
+    return render(request, "fleet/find.html", {"find_form": form, "sites": sites})
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
@@ -68,6 +70,8 @@ def motor_detail(request, asset_tag):
         motor = pages.motor_with_capacitors(asset_tag)
     except Motor.DoesNotExist as error:
         raise Http404(f"No motor {asset_tag}") from error
+    if not scope_to_user(Motor.objects.filter(pk=motor.pk), request.user).exists():
+        raise Http404(f"No motor {asset_tag}")
     in_service = [c for c in motor.fitted if c.removed_on is None]
     removed = [c for c in motor.fitted if c.removed_on is not None]
     for capacitor in in_service:
@@ -83,13 +87,15 @@ def _energy_j(part) -> float:
     return float(stored_energy_j(part.rated_uf, part.rated_voltage_v))
 
 
-def _installation(installation_id) -> FittedCapacitor:
-    return get_object_or_404(FittedCapacitor.objects.select_related("motor__site", "part"), pk=installation_id)
+def _installation(request, installation_id) -> FittedCapacitor:
+    """A fitted capacitor at one of the user's sites, or 404."""
+    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor__site", "part"), request.user)
+    return get_object_or_404(capacitors, pk=installation_id)
 
 
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)
 def capacitor_detail(request, installation_id):
-    installation = _installation(installation_id)
+    installation = _installation(request, installation_id)
     assessment = installation.assessments.filter(is_current=True).first()
     context = {
         "installation": installation,
@@ -103,7 +109,7 @@ def capacitor_detail(request, installation_id):
 
 @permission_required("fleet.add_reading", raise_exception=True)
 def reading_new(request, installation_id):
-    installation = _installation(installation_id)
+    installation = _installation(request, installation_id)
     needs_confirmation = False
     if request.method == "POST":
         form = ReadingForm(request.POST)
@@ -152,7 +158,7 @@ def _add_errors(form, error: ValidationError) -> None:
 
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
-    installation = _installation(installation_id)
+    installation = _installation(request, installation_id)
     form = ReplacementForm(request.POST or None, installation=installation)
     if request.method == "POST" and form.is_valid():
         try:
@@ -181,7 +187,7 @@ def replace(request, installation_id):
 
 @permission_required("fleet.view_motor", raise_exception=True)
 def site_route(request, site_code):
-    site = get_object_or_404(Site, code=site_code)
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     order_errors = {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
@@ -222,7 +228,7 @@ def _qr_svg(request, motor: Motor) -> str:
 
 @permission_required("fleet.view_motor", raise_exception=True)
 def labels(request, site_code):
-    site = get_object_or_404(Site, code=site_code)
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     motors = Motor.objects.filter(site=site).order_by("route_order", "asset_tag")
     tag = request.GET.get("tag")
     if tag:
@@ -335,7 +341,7 @@ def imports_home(request):
             job = create_job(kind=kind, filename=upload.name, content=upload.read(), user=request.user)
             return redirect("import_detail", job_id=job.id)
     end_stalled_jobs()
-    jobs = ImportJob.objects.defer("content").order_by("-created_at")[:15]
+    jobs = scope_to_user(ImportJob.objects.defer("content"), request.user).order_by("-created_at")[:15]
     context = {"form": form, "jobs": jobs, "kinds": [(ImportJob.Kind(k).label, v.columns) for k, v in KINDS.items()]}
     return render(request, "fleet/imports.html", context)
 
@@ -343,7 +349,7 @@ def imports_home(request):
 @permission_required("fleet.add_reading", raise_exception=True)
 def import_detail(request, job_id):
     end_stalled_jobs()
-    job = get_object_or_404(ImportJob.objects.defer("content"), pk=job_id)
+    job = get_object_or_404(scope_to_user(ImportJob.objects.defer("content"), request.user), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
     kind = KINDS[job.kind]
@@ -374,7 +380,7 @@ def import_detail(request, job_id):
 
 @permission_required("fleet.add_reading", raise_exception=True)
 def import_rejected(request, job_id):
-    job = get_object_or_404(ImportJob, pk=job_id)
+    job = get_object_or_404(scope_to_user(ImportJob.objects.all(), request.user), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
     response = HttpResponse(rejected_rows_csv(job), content_type="text/csv; charset=utf-8")

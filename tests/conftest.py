@@ -83,6 +83,16 @@ def make_user(role: str, username: str | None = None) -> User:
 
 
 @pytest.fixture(autouse=True)
+def fresh_cache():
+    """Sign-in lockout and API throttle counters live in the cache: each test starts with none."""
+    from django.core.cache import cache
+
+    cache.clear()
+    yield
+    cache.clear()
+
+
+@pytest.fixture(autouse=True)
 def tasks_in_process(request):
     """Run Celery tasks in-process in every test but those marked `worker`, which
     send them through a real worker; with a broker configured (as in CI) a plain

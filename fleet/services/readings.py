@@ -10,6 +10,7 @@ from django.core.exceptions import ValidationError
 from django.db import transaction
 from django.utils import timezone
 
+from fleet.audit import audited_update
 from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
 from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip, off_trend
 from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
@@ -171,9 +172,8 @@ def replace_capacitor(
         successor = FittedCapacitor.objects.create(
             motor=locked.motor, role=locked.role, part=part, serial=serial, fitted_on=removed_on, notes=notes
         )
-        WorkOrder.objects.filter(
-            installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
-        ).update(
+        audited_update(
+            WorkOrder.objects.filter(installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]),
             state=WorkOrder.State.DONE,
             closed_at=timezone.now(),
             closed_by=user if user and user.is_authenticated else None,

@@ -5,6 +5,7 @@ from __future__ import annotations
 from django.core.exceptions import ValidationError
 from django.db import transaction
 
+from fleet.audit import audited_bulk_update
 from fleet.models import Motor, Site
 
 
@@ -32,5 +33,5 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
     if errors:
         raise ValidationError(errors)
     with transaction.atomic():
-        Motor.objects.bulk_update(list(motors.values()), ["route_order"])
+        audited_bulk_update(list(motors.values()), ["route_order"])
     return len(motors)

@@ -9,6 +9,7 @@ import numpy as np
 from django.db import transaction
 from django.utils import timezone
 
+from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import bundle_visits
 from fleet.models import Assessment, WorkOrder
 
@@ -67,16 +68,15 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
         order.due_on = today + dt.timedelta(days=int(day))
         order.window_days = window_days
     with transaction.atomic():
-        WorkOrder.objects.bulk_create(new_orders)
-        WorkOrder.objects.bulk_update(replanned, ["due_on", "window_days"])
+        audited_bulk_create(new_orders)
+        audited_bulk_update(replanned, ["due_on", "window_days"])
     return {"created": len(new_orders), "replanned": len(replanned), "visits": len(set(visit.tolist()))}
 
 
 def issue_visit(*, site_id: int, due_on: dt.date) -> int:
     """Hand a visit's planned orders to the technicians."""
-    return WorkOrder.objects.filter(motor__site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED).update(
-        state=WorkOrder.State.ISSUED
-    )
+    planned = WorkOrder.objects.filter(motor__site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED)
+    return audited_update(planned, state=WorkOrder.State.ISSUED)
 
 
 def open_visits(site_id: int | None = None, day: dt.date | None = None):

@@ -1,0 +1,82 @@
+"""Backup and restore of the whole database as JSON (gzipped when the name ends in .gz).
+
+Django's dumpdata/loaddata do the work: foreign keys to users, groups, permissions and
+content types by natural key, so a backup loads into any freshly migrated database,
+SQLite or PostgreSQL. Content types, permissions and sessions are left out (migrate
+makes the first two; sessions are not worth keeping). Rows keep their ids, and models
+come out in dependency order (capacitors before their readings), so the readings'
+triggers see each capacitor as it is when its readings arrive.
+"""
+
+from __future__ import annotations
+
+from django.apps import apps
+from django.contrib.auth.models import Group, Permission
+from django.contrib.contenttypes.models import ContentType
+from django.contrib.sessions.models import Session
+from django.core.management import CommandError, call_command
+from django.db import connections, transaction
+
+from fleet import audit
+from fleet.roles import ROLES
+
+LEFT_OUT = ["contenttypes", "auth.permission", "sessions"]
+SUFFIXES = (".json", ".json.gz")
+# Rows that `migrate` itself creates: an empty database may hold them.
+MADE_BY_MIGRATE = {ContentType, Permission, Session}
+
+
+def _check_name(path: str) -> None:
+    if not str(path).endswith(SUFFIXES):
+        raise CommandError(f"{path}: name the file .json or .json.gz (gzipped)")
+
+
+def write_backup(path: str, *, database: str = "default") -> None:
+    """One consistent picture while the site runs: a single snapshot on PostgreSQL; on SQLite
+    the file is read under one transaction, so writers wait (up to the busy timeout) until it ends."""
+    _check_name(path)
+    connection = connections[database]
+    outermost = not connection.in_atomic_block
+    with transaction.atomic(using=database):
+        if outermost and connection.vendor == "postgresql":
+            connection.cursor().execute("SET TRANSACTION ISOLATION LEVEL REPEATABLE READ READ ONLY")
+        call_command(
+            "dumpdata",
+            exclude=LEFT_OUT,
+            natural_foreign=True,
+            output=str(path),
+            database=database,
+            indent=None,
+            verbosity=0,
+        )
+
+
+def rows_in_the_way(database: str = "default") -> dict[str, int]:
+    """Models that hold rows a restore would collide with (role groups and migrate's own rows aside)."""
+    found = {}
+    for model in apps.get_models():
+        if model in MADE_BY_MIGRATE or model._meta.proxy:
+            continue
+        queryset = model._default_manager.using(database)
+        if model is Group:
+            queryset = queryset.exclude(name__in=ROLES)
+        count = queryset.count()
+        if count:
+            found[model._meta.label] = count
+    return found
+
+
+def restore_backup(path: str, *, database: str = "default") -> None:
+    """Load a backup into an empty, migrated database; refuse a database that holds data."""
+    _check_name(path)
+    in_the_way = rows_in_the_way(database)
+    if in_the_way:
+        listed = ", ".join(f"{label} ({count})" for label, count in sorted(in_the_way.items()))
+        raise CommandError(
+            f"The database is not empty: {listed}. Restore only into a new database: create it, run "
+            "`manage.py migrate`, then restore."
+        )
+    with transaction.atomic(using=database), audit.suspended():
+        # migrate made the role groups; the backup brings them back with their own ids and permissions.
+        Group.objects.using(database).filter(name__in=ROLES).delete()
+        call_command("loaddata", str(path), database=database, verbosity=0)

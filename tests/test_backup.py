@@ -1,0 +1,172 @@
+"""Backup and restore: the round trip into a new database loses nothing; a full database is refused."""
+
+import datetime as dt
+import gzip
+import json
+import os
+import subprocess
+import sys
+from collections import Counter
+from pathlib import Path
+
+import pytest
+from django.apps import apps
+from django.contrib.auth.models import Group, User
+from django.core.management import CommandError, call_command
+from django.utils import timezone
+from rest_framework.authtoken.models import Token
+
+from fleet.models import FittedCapacitor, ImportJob, Reading, SiteMembership, WorkOrder
+from fleet.roles import ADMINISTRATOR, PLANNER, TECHNICIAN, ensure_role_groups
+from fleet.services.backup import LEFT_OUT
+
+from .conftest import make_installation, make_motor, make_reading, make_site, make_user, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture
+def plant(db, django_capture_on_commit_callbacks):
+    """A little of everything: a removed capacitor with its readings, a correction, a fitted fleet,
+    users with roles, sites, a token, a work order, an import job with its file, audit entries."""
+    site = make_site("CST")
+    motor = make_motor(site=site, asset_tag="CST-FAN-01")
+    old = make_installation(motor=motor, fitted_on=dt.date(2021, 3, 1))
+    start = timezone.make_aware(dt.datetime(2021, 4, 6, 9, 30))
+    readings = quarterly_readings(old, start, [4.02, 3.99, 3.97, 3.93], case_temperature_c=31.5)
+    make_reading(old, taken_at=start + dt.timedelta(days=300), capacitance_uf=3.95, supersedes=readings[-1])
+    old.removed_on, old.removal_reason = dt.date(2022, 6, 1), "failed"
+    old.save()
+    new = make_installation(motor=motor, part=old.part, fitted_on=dt.date(2022, 6, 1))
+    quarterly_readings(new, timezone.make_aware(dt.datetime(2022, 7, 4, 8)), [4.05, 4.03, 4.0, 3.99, 3.97])
+    with django_capture_on_commit_callbacks(execute=True):
+        call_command("refit")  # assessments, part priors, a refit run
+    technician = make_user(TECHNICIAN, username="tech-cst")
+    technician.set_password("kept-as-a-hash-123")
+    technician.save()
+    make_user(ADMINISTRATOR, username="keeper")
+    # A role deleted and made again by migrate: its id no longer matches a new database's.
+    Group.objects.filter(name=PLANNER).delete()
+    ensure_role_groups()
+    SiteMembership.objects.create(user=technician, site=site)
+    Token.objects.create(user=technician)
+    WorkOrder.objects.create(motor=motor, installation=new, kind="replace_run", due_on=dt.date(2027, 1, 4))
+    ImportJob.objects.create(
+        kind="readings", filename="q1.csv", content=b"tag,uf\nCST-FAN-01,3.9\n", created_by=technician
+    )
+    return {"old": old, "technician": technician}
+
+
+def read_backup(path) -> list[dict]:
+    with gzip.open(path, "rt") as file:
+        return json.load(file)
+
+
+def normalised(objects) -> list:
+    """Objects with datetimes parsed, so 12:00:00Z and 12:00:00.000Z compare equal."""
+
+    def value(v):
+        if isinstance(v, str) and len(v) >= 19 and v[4] == "-" and v[10] == "T":
+            try:
+                return dt.datetime.fromisoformat(v.replace("Z", "+00:00"))
+            except ValueError:
+                return v
+        return v
+
+    return sorted(
+        (json.dumps([o["model"], o.get("pk")], default=str), {k: value(v) for k, v in o["fields"].items()})
+        for o in objects
+    )
+
+
+def in_new_database(tmp_path, *commands) -> None:
+    """Run manage.py commands against a new SQLite database file."""
+    env = {**os.environ, "DATABASE_URL": f"sqlite:///{tmp_path / 'restored.sqlite3'}"}
+    env.pop("DJANGO_SETTINGS_MODULE", None)
+    for command in commands:
+        result = subprocess.run(
+            [sys.executable, "manage.py", *command], cwd=ROOT, env=env, capture_output=True, text=True
+        )
+        assert result.returncode == 0, result.stdout + result.stderr
+
+
+def test_the_round_trip_into_a_new_database_loses_nothing(plant, tmp_path):
+    backup, again = tmp_path / "fleet.json.gz", tmp_path / "again.json.gz"
+    call_command("backup", str(backup))
+    written = read_backup(backup)
+
+    # Every row of every model (but what migrate makes) is in the file.
+    left_out = {label for label in LEFT_OUT if "." in label} | {
+        m._meta.label_lower for label in LEFT_OUT if "." not in label for m in apps.get_app_config(label).get_models()
+    }
+    expected = {
+        m._meta.label_lower: m._default_manager.count()
+        for m in apps.get_models()
+        if not m._meta.proxy and m._meta.label_lower not in left_out
+    }
+    assert Counter(o["model"] for o in written) == {label: n for label, n in expected.items() if n}
+    for label in (
+        "fleet.reading",
+        "fleet.assessment",
+        "fleet.partprior",
+        "auth.user",
+        "auth.group",
+        "fleet.auditentry",
+    ):
+        assert expected[label] > 0, label
+
+    in_new_database(tmp_path, ["migrate", "--verbosity", "0"], ["restore", str(backup)], ["backup", str(again)])
+    restored = read_backup(again)
+    assert normalised(restored) == normalised(written)
+
+    # A sample of values, read back from the restored database's own backup.
+    by_key = {(o["model"], o.get("pk")): o["fields"] for o in restored}
+    reading = Reading.objects.filter(supersedes__isnull=False).get()
+    fields = by_key[("fleet.reading", reading.pk)]
+    assert fields["capacitance_uf"] == 3.95 and fields["supersedes"] == reading.supersedes_id
+    assert fields["installation"] == plant["old"].pk
+    old = by_key[("fleet.fittedcapacitor", plant["old"].pk)]
+    assert (old["removed_on"], old["removal_reason"]) == ("2022-06-01", "failed")
+    technician = next(f for (model, _), f in by_key.items() if model == "auth.user" and f["username"] == "tech-cst")
+    assert technician["password"] == User.objects.get(username="tech-cst").password
+    assert technician["groups"] == [[TECHNICIAN]]
+    group = next(f for (model, _), f in by_key.items() if model == "auth.group" and f["name"] == ADMINISTRATOR)
+    assert len(group["permissions"]) == Group.objects.get(name=ADMINISTRATOR).permissions.count()
+    job = next(f for (model, _), f in by_key.items() if model == "fleet.importjob")
+    assert job["content"] == written[[o["model"] for o in written].index("fleet.importjob")]["fields"]["content"]
+
+
+def test_a_database_that_holds_data_is_refused_and_left_as_it_was(plant, tmp_path):
+    backup = tmp_path / "fleet.json.gz"
+    call_command("backup", str(backup))
+    readings = Reading.objects.count()
+    with pytest.raises(CommandError, match="not empty"):
+        call_command("restore", str(backup))
+    assert Reading.objects.count() == readings
+
+
+def test_the_reading_triggers_hold_during_a_restore(plant, tmp_path):
+    """A backup edited to date a reading after its capacitor's removal does not load, and nothing of it does."""
+    backup = tmp_path / "fleet.json.gz"
+    call_command("backup", str(backup))
+    objects = read_backup(backup)
+    late = next(o for o in objects if o["model"] == "fleet.reading" and o["fields"]["installation"] == plant["old"].pk)
+    late["fields"]["taken_at"] = "2023-01-01T00:00:00Z"
+    tampered = tmp_path / "tampered.json.gz"
+    with gzip.open(tampered, "wt") as file:
+        json.dump(objects, file)
+    env = {**os.environ, "DATABASE_URL": f"sqlite:///{tmp_path / 'restored.sqlite3'}"}
+    env.pop("DJANGO_SETTINGS_MODULE", None)
+    subprocess.run([sys.executable, "manage.py", "migrate", "-v0"], cwd=ROOT, env=env, check=True)
+    result = subprocess.run(
+        [sys.executable, "manage.py", "restore", str(tampered)], cwd=ROOT, env=env, capture_output=True, text=True
+    )
+    assert result.returncode != 0 and "removed" in result.stderr
+    in_new_database(tmp_path, ["restore", str(backup)])  # the same database, untouched, takes the real backup
+
+
+def test_a_file_name_that_says_nothing_of_its_format_is_refused(tmp_path):
+    with pytest.raises(CommandError, match=r"\.json or \.json\.gz"):
+        call_command("backup", str(tmp_path / "fleet.bak"))
+    assert not FittedCapacitor.objects.exists()
