@@ -297,7 +297,8 @@ def test_without_memberships_and_for_administrators_every_site_is_open(client, t
 
 def test_import_jobs_are_seen_by_their_owner_and_administrators_only(client):
     owner, colleague, administrator = make_user(TECHNICIAN), make_user(TECHNICIAN), make_user(ADMINISTRATOR)
-    job = ImportJob.objects.create(kind="readings", filename="owners-readings.csv", content=b"x", created_by=owner)
+    content = b"asset_tag,role,taken_at\nM-1,run,2026-01-01\n"
+    job = ImportJob.objects.create(kind="readings", filename="owners-readings.csv", content=content, created_by=owner)
     for user, expected in ((owner, 200), (colleague, 404), (administrator, 200)):
         client.force_login(user)
         assert client.get(reverse("import_detail", args=[job.id])).status_code == expected
