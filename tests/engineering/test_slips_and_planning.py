@@ -3,7 +3,7 @@
 import numpy as np
 
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, risk_levels
-from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip, off_trend
+from fleet.engineering.rules import capacitance_unit_slip, current_unit_slip, off_trend
 
 
 def test_nanofarads_typed_for_microfarads_are_named():
