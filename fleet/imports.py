@@ -22,7 +22,7 @@ from django.utils import timezone
 
 from fleet.engineering.rules import check_readings as reading_rules
 from fleet.engineering.rules import parse_numbers
-from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 
 READING_COLUMNS = {
     "asset_tag": "Motor asset tag (required)",
@@ -208,7 +208,8 @@ def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
 
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
     """Validate mapped reading rows; resolve each to the capacitor fitted at the time."""
-    tags = sorted(set(frame["asset_tag"].str.upper()) - {""})
+    # A NUL cannot reach PostgreSQL, not even in a lookup: such a tag is simply unknown.
+    tags = sorted(t for t in set(frame["asset_tag"].str.upper()) - {""} if "\x00" not in t)
     fitted = pd.DataFrame.from_records(
         list(
             FittedCapacitor.objects.filter(motor__asset_tag__in=tags).values_list(
@@ -363,6 +364,16 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in REGISTER_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
+    for name in REGISTER_COLUMNS:
+        problems.add(frame[name].str.contains("\x00", regex=False), name, "contains a NUL character: remove it")
+    too_long = frame["asset_tag"].str.len() > Motor._meta.get_field("asset_tag").max_length
+    problems.add(
+        frame["asset_tag"].ne("") & ~frame["asset_tag"].str.fullmatch(CODE_PATTERN),
+        "asset_tag",
+        f"use {CODE_CHARACTERS}",
+    )
+    problems.add(too_long, "asset_tag", "longer than 40 characters")
+    problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(~frame["site_code"].isin(sites), "site_code", "unknown site code: add the site first")
     for name, allowed in (

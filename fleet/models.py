@@ -20,7 +20,8 @@ from django.db.models.lookups import LessThanOrEqual
 # Asset tags, site codes and part codes: letters, digits, '-', '_' and '.', starting with a letter or
 # digit; no '/', spaces or other signs, so a code prints on a label and sits in a URL unchanged.
 CODE_CHARACTERS = "letters, digits, '-', '_' and '.', starting with a letter or digit"
-code_validator = RegexValidator(r"\A[A-Za-z0-9][A-Za-z0-9._-]*\Z", f"Use {CODE_CHARACTERS}.", code="code_characters")
+CODE_PATTERN = r"[A-Za-z0-9][A-Za-z0-9._-]*"
+code_validator = RegexValidator(rf"\A{CODE_PATTERN}\Z", f"Use {CODE_CHARACTERS}.", code="code_characters")
 # Database bound that refuses NaN and infinity on PostgreSQL (NaN sorts above every number there)
 # and infinity on SQLite (which stores NaN as NULL): far above any reading, below any overflow.
 FINITE_BOUND = 1e9
