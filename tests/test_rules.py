@@ -145,7 +145,9 @@ def test_tags_and_codes_outside_the_character_set_are_refused_at_entry():
     )
     good = dict(row, asset_tag="P-12.A")
     header = list(REGISTER_COLUMNS)
-    frame = mapped_frame(header, [[r[n] for n in header] for r in (row, good)], {n: n for n in header}, REGISTER_COLUMNS)
+    frame = mapped_frame(
+        header, [[r[n] for n in header] for r in (row, good)], {n: n for n in header}, REGISTER_COLUMNS
+    )
     result = check_register(frame)
     assert [(r, f) for r, f, _ in result.errors] == [(2, "asset_tag")]
     assert result.good["asset_tag"].tolist() == ["P-12.A"]
@@ -224,7 +226,9 @@ def test_a_removal_date_before_readings_is_refused_everywhere(fan_installation):
     assert "2024-06-01" in error.value.message_dict["removed_on"][0]
     with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
         FittedCapacitor.objects.filter(pk=fan_installation.pk).update(removed_on=early, removal_reason="failed")
-    FittedCapacitor.objects.filter(pk=fan_installation.pk).update(removed_on=dt.date(2024, 6, 1), removal_reason="failed")
+    FittedCapacitor.objects.filter(pk=fan_installation.pk).update(
+        removed_on=dt.date(2024, 6, 1), removal_reason="failed"
+    )
 
 
 # low: NUL bytes, bad filters, double submit, huge notes, the decimal comma

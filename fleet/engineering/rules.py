@@ -277,7 +277,13 @@ def _day_text(days) -> np.ndarray:
     return np.datetime_as_string(np.asarray(days, "datetime64[D]"), unit="D")
 
 
-def check_readings(
+def check_readings(raw: dict, **kwargs) -> RuleResult:
+    """Check many readings at once (see `_check_readings`); overflow in a hostile value is a message, not a warning."""
+    with np.errstate(all="ignore"):
+        return _check_readings(raw, **kwargs)
+
+
+def _check_readings(
     raw: dict,
     *,
     method,

@@ -55,9 +55,10 @@ def test_a_million_volts_is_refused_and_2300_v_asks_for_confirmation():
     rated voltage on a run capacitor is most likely a missed decimal point."""
     result = check({"capacitance_uf": ["4.0", "4.0", "4.0"], "capacitor_voltage_v": ["1000000", "2300", "400"]})
     assert "above 5000 V" in result.errors["capacitor_voltage_v"][0]
-    assert result.errors["capacitor_voltage_v"][1] == "" and "missed decimal point" in result.confirm[
-        "capacitor_voltage_v"
-    ][1]
+    assert (
+        result.errors["capacitor_voltage_v"][1] == ""
+        and "missed decimal point" in result.confirm["capacitor_voltage_v"][1]
+    )
     assert result.bad.tolist() == [True, False, False]
     assert result.needs_confirmation.tolist() == [True, True, False]
     confirmed = check(
