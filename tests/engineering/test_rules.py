@@ -87,9 +87,9 @@ def test_secondary_values_out_of_range_are_named_on_meter_readings_too():
 
 
 def test_short_circuit_is_named_before_a_unit_slip():
-    """[trade] 0.6 A through the capacitor with 2 V across it is a short, though the current
+    """[trade] 1 A through the capacitor with 2 V across it is a short, though the current
     is also 300-3000 times what 2 V would drive through 4 uF (which reads as milliamperes)."""
-    result = check({"capacitor_current_a": ["0.6"], "capacitor_voltage_v": ["2"]}, method="in_circuit")
+    result = check({"capacitor_current_a": ["1.0"], "capacitor_voltage_v": ["2"]}, method="in_circuit")
     assert "short circuit" in result.errors["capacitor_voltage_v"][0]
     assert result.errors["capacitor_current_a"][0] == ""
 
