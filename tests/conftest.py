@@ -115,7 +115,7 @@ def readings_flushable_on_sqlite(request):
 
     if connection.vendor == "sqlite":
         triggers = importlib.import_module("fleet.migrations.0005_rules_constraints_and_triggers")
-        with connection.cursor() as cursor:
+        with connection.constraint_checks_disabled(), connection.cursor() as cursor:
             cursor.execute("DROP TRIGGER IF EXISTS fleet_reading_no_delete")
             cursor.execute("DELETE FROM fleet_reading")
             cursor.execute(triggers.SQLITE_READING_NO_DELETE)
