@@ -28,6 +28,50 @@ FINITE_BOUND = 1e9
 NOTES_MAX_CHARS = 2000  # the rulebook's limit (fleet/engineering/rules.py), held by the database too
 
 
+# (field, lowest, strictly above it, constraint, message): physical facts of a reading, finite.
+FINITE_READINGS = [
+    (
+        "capacitor_voltage_v",
+        0,
+        True,
+        "reading_voltage_positive",
+        "The capacitor voltage must be a finite number above zero.",
+    ),
+    (
+        "capacitor_current_a",
+        0,
+        False,
+        "reading_current_not_negative",
+        "The capacitor current must be a finite number, zero or more.",
+    ),
+    (
+        "line_voltage_v",
+        0,
+        False,
+        "reading_line_voltage_finite",
+        "The line voltage must be a finite number, zero or more.",
+    ),
+    *(
+        (
+            f"{which}_current_a",
+            0,
+            False,
+            f"reading_{which}_current_finite",
+            f"The {which} current must be a finite number, zero or more.",
+        )
+        for which in ("main", "aux", "line")
+    ),
+    (
+        "ambient_temperature_c",
+        -273.15,
+        False,
+        "reading_ambient_temperature_finite",
+        "The ambient temperature must be a finite number above absolute zero.",
+    ),
+    ("esr_ohm", 0, False, "reading_esr_finite", "The ESR must be a finite number, zero or more."),
+]
+
+
 def finite(name: str, lowest: float = -FINITE_BOUND, *, above: bool = False) -> Q:
     """Q that holds for a NULL or a finite value at or above `lowest` (above it with `above`)."""
     low = {f"{name}__gt" if above else f"{name}__gte": lowest}
@@ -332,14 +376,7 @@ class Reading(models.Model):
         "reading_capacitance_finite": "capacitance_uf",
         "in_circuit_needs_current_and_voltage": "capacitor_current_a",
         "reading_case_temperature_range": "case_temperature_c",
-        "reading_voltage_positive": "capacitor_voltage_v",
-        "reading_current_not_negative": "capacitor_current_a",
-        "reading_line_voltage_finite": "line_voltage_v",
-        "reading_main_current_finite": "main_current_a",
-        "reading_aux_current_finite": "aux_current_a",
-        "reading_line_current_finite": "line_current_a",
-        "reading_ambient_temperature_finite": "ambient_temperature_c",
-        "reading_esr_finite": "esr_ohm",
+        **{name: field for field, _, _, name, _ in FINITE_READINGS},
         "reading_notes_bounded": "notes",
     }
 
@@ -362,38 +399,11 @@ class Reading(models.Model):
                 | Q(case_temperature_c__gte=-40, case_temperature_c__lte=150),
                 name="reading_case_temperature_range",
             ),
-            models.CheckConstraint(
-                condition=finite("capacitor_voltage_v", 0, above=True),
-                name="reading_voltage_positive",
-                violation_error_message="The capacitor voltage must be a finite number above zero.",
-            ),
-            models.CheckConstraint(
-                condition=finite("capacitor_current_a", 0),
-                name="reading_current_not_negative",
-                violation_error_message="The capacitor current must be a finite number, zero or more.",
-            ),
-            models.CheckConstraint(
-                condition=finite("line_voltage_v", 0),
-                name="reading_line_voltage_finite",
-                violation_error_message="The line voltage must be a finite number, zero or more.",
-            ),
             *(
                 models.CheckConstraint(
-                    condition=finite(f"{which}_current_a", 0),
-                    name=f"reading_{which}_current_finite",
-                    violation_error_message=f"The {which} current must be a finite number, zero or more.",
+                    condition=finite(field, lowest, above=above), name=name, violation_error_message=message
                 )
-                for which in ("main", "aux", "line")
-            ),
-            models.CheckConstraint(
-                condition=finite("ambient_temperature_c", -273.15),
-                name="reading_ambient_temperature_finite",
-                violation_error_message="The ambient temperature must be a finite number above absolute zero.",
-            ),
-            models.CheckConstraint(
-                condition=finite("esr_ohm", 0),
-                name="reading_esr_finite",
-                violation_error_message="The ESR must be a finite number, zero or more.",
+                for field, lowest, above, name, message in FINITE_READINGS
             ),
             models.CheckConstraint(
                 condition=LessThanOrEqual(Length("notes"), NOTES_MAX_CHARS),
