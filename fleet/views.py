@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import io
+import uuid
 
 import segno
 from django.contrib import messages
@@ -115,6 +116,9 @@ def reading_new(request, installation_id):
                 form.add_error(None, error)
             except ValidationError as error:
                 _add_errors(form, error)
+                if "client_key" in error.message_dict:  # a page saved before, sent with new values: a new key
+                    form.data = form.data.copy()
+                    form.data["client_key"] = uuid.uuid4().hex
             else:
                 saved = "was already saved (sent twice)" if reading.replayed else "saved"
                 messages.success(
@@ -142,9 +146,10 @@ def reading_new(request, installation_id):
 
 
 def _add_errors(form, error: ValidationError) -> None:
-    """Attach a service's errors to the form's fields (unknown fields to the top)."""
+    """Attach a service's errors to the form's fields (unknown and hidden fields to the top)."""
     for field, field_messages in error.message_dict.items():
-        form.add_error(field if field in form.fields else None, field_messages)
+        shown = field in form.fields and not form.fields[field].widget.is_hidden
+        form.add_error(field if shown else None, field_messages)
 
 
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)

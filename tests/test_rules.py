@@ -326,3 +326,15 @@ def test_imported_readings_keep_their_checked_values(fan_installation):
     row = result.good.iloc[0]
     assert (row["case_temperature_c"], row["notes"], row["method"]) == (31.5, "ok", "meter")
     assert isinstance(row["taken_at"], pd.Timestamp)
+
+
+def test_a_saved_page_sent_again_with_other_values_is_not_silently_dropped(client, technician, fan_installation):
+    client.force_login(technician)
+    key = client.get(reverse("reading_new", args=[fan_installation.id])).context["form"]["client_key"].value()
+    form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
+    again = form_post(client, fan_installation, capacitance_uf="3.91", client_key=key)
+    assert again.status_code == 200 and "these values differ" in again.content.decode()
+    fresh = again.context["form"]["client_key"].value()
+    assert fresh != key and 'value="3.91"' in again.content.decode()
+    assert form_post(client, fan_installation, capacitance_uf="3.91", client_key=fresh).status_code == 302
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.91, 3.95]

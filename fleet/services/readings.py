@@ -12,7 +12,7 @@ from django.core.exceptions import ValidationError
 from django.db import IntegrityError, transaction
 from django.utils import timezone
 
-from fleet.engineering.rules import check_readings
+from fleet.engineering.rules import check_readings, parse_numbers
 from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder, constraint_errors
 
 log = logging.getLogger(__name__)
@@ -131,7 +131,7 @@ def record_reading(
     """
     stored_key = _client_key(user, client_key) if client_key else None
     if stored_key:
-        earlier = _earlier_submission(installation, stored_key)
+        earlier = _earlier_submission(installation, stored_key, values)
         if earlier is not None:
             return earlier
     checked = check_reading(installation, values, confirmed=confirmed)
@@ -150,7 +150,7 @@ def record_reading(
             )
             transaction.on_commit(lambda: enqueue_refit([installation.id]))
     except IntegrityError:
-        earlier = _earlier_submission(installation, stored_key) if stored_key else None
+        earlier = _earlier_submission(installation, stored_key, values) if stored_key else None
         if earlier is None:
             raise
         return earlier
@@ -158,14 +158,33 @@ def record_reading(
     return reading
 
 
-def _earlier_submission(installation: FittedCapacitor, stored_key: str) -> Reading | None:
+def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: dict) -> Reading | None:
+    """The reading saved under this key before, if the values are the same; a key sent again
+    with other values is refused by name, so nothing typed is silently dropped."""
     earlier = Reading.objects.filter(client_key=stored_key).first()
     if earlier is None:
         return None
     if earlier.installation_id != installation.id:
         raise ValidationError({"client_key": "This key was already used for a reading of another capacitor."})
+    if not _same_values(earlier, values):
+        raise ValidationError(
+            {
+                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} uF, "
+                f"{earlier.taken_at:%Y-%m-%d %H:%M} UTC) and these values differ. Save again to log them as "
+                "another reading."
+            }
+        )
     earlier.replayed = True
     return earlier
+
+
+def _same_values(reading: Reading, values: dict) -> bool:
+    """The values sent (as typed) are those of the stored reading (in-circuit: its current and voltage)."""
+    names = [n for n in Reading.MEASURED_FIELDS if n != "capacitance_uf" or reading.method == Reading.Method.METER]
+    sent, _ = parse_numbers([values.get(name) for name in names])
+    stored = np.array([np.nan if getattr(reading, n) is None else getattr(reading, n) for n in names], float)
+    same_numbers = bool(np.all((sent == stored) | (np.isnan(sent) & np.isnan(stored))))
+    return same_numbers and (values.get("notes") or "").strip() == reading.notes
 
 
 def replace_capacitor(
