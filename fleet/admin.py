@@ -1,6 +1,8 @@
 """The register keeper's screens: search and filters on every model."""
 
+from django import forms
 from django.contrib import admin
+from django.core.exceptions import ValidationError
 
 from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site, WorkOrder
 
@@ -63,9 +65,52 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
     date_hierarchy = "fitted_on"
 
 
+class ReadingAdminForm(forms.ModelForm):
+    """A reading added in the admin passes the same rulebook as the form, the API and the import."""
+
+    class Meta:
+        model = Reading
+        fields = [
+            "installation",
+            "taken_at",
+            "taken_by",
+            "method",
+            *Reading.MEASURED_FIELDS,
+            "condition",
+            "notes",
+            "outlier_confirmed",
+            "supersedes",
+            "source",
+        ]
+
+    def clean(self):
+        from .services.readings import NeedsConfirmation, check_reading
+
+        data = super().clean()
+        installation = data.get("installation")
+        if installation is None or self.errors:
+            return data
+        try:
+            check_reading(installation, data, confirmed=bool(data.get("outlier_confirmed")))
+        except NeedsConfirmation as error:
+            raise ValidationError(
+                [*error.messages, "Tick 'outlier confirmed' if the value is right."], code="needs_confirmation"
+            ) from error
+        except ValidationError as error:
+            raise ValidationError(
+                {
+                    field if field in self.fields else "__all__": messages
+                    for field, messages in error.message_dict.items()
+                }
+            ) from error
+        return data
+
+
 @admin.register(Reading)
 class ReadingAdmin(admin.ModelAdmin):
     """Readings are append-only: they can be added and viewed, never changed or deleted."""
+
+    form = ReadingAdminForm
 
     list_display = [
         "installation",

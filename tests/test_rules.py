@@ -338,3 +338,25 @@ def test_a_saved_page_sent_again_with_other_values_is_not_silently_dropped(clien
     assert fresh != key and 'value="3.91"' in again.content.decode()
     assert form_post(client, fan_installation, capacitance_uf="3.91", client_key=fresh).status_code == 302
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.91, 3.95]
+
+
+def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administrator, fan_installation):
+    from django.contrib.auth.models import Permission
+
+    administrator.user_permissions.add(Permission.objects.get(codename="add_reading"))
+    client.force_login(administrator)
+    data = {
+        "installation": fan_installation.id,
+        "taken_at_0": "2024-03-01",
+        "taken_at_1": "09:00",
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        "capacitor_voltage_v": "1000000",
+        "condition": "sound",
+        "source": "form",
+    }
+    response = client.post(reverse("admin:fleet_reading_add"), data)
+    assert response.status_code == 200 and "above 5000 V" in response.content.decode()
+    assert not Reading.objects.exists()
+    response = client.post(reverse("admin:fleet_reading_add"), {**data, "capacitor_voltage_v": "400"})
+    assert response.status_code == 302 and Reading.objects.count() == 1
