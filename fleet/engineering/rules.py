@@ -322,7 +322,7 @@ def _check_readings(
     if condition is not None:
         text = _as_objects(condition, n).map(lambda v: v if isinstance(v, str) else "?").str.strip().str.lower()
         text = text.where(text != "", "sound").to_numpy(object)
-        errors.add("condition", ~np.isin(text, CONDITIONS), "must be " + ", ".join(CONDITIONS[:-1]) + " or vented")
+        errors.add("condition", ~np.isin(text, CONDITIONS), f"must be {', '.join(CONDITIONS[:-1])} or {CONDITIONS[-1]}")
         values["condition"] = text
     values["method"] = method
 
@@ -350,8 +350,7 @@ def _check_readings(
     )
     errors.add("capacitor_current_a", in_circuit & ~shorted, current_unit_slip(current, voltage, rated, frequency))
     for name in ("main_current_a", "aux_current_a", "line_current_a"):
-        with np.errstate(invalid="ignore", divide="ignore"):
-            ratio = values[name] / full_load
+        ratio = values[name] / full_load
         milli = (ratio > 300) & (ratio < 3000)
         errors.add(
             name,
