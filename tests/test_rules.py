@@ -360,3 +360,9 @@ def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administr
     assert not Reading.objects.exists()
     response = client.post(reverse("admin:fleet_reading_add"), {**data, "capacitor_voltage_v": "400"})
     assert response.status_code == 302 and Reading.objects.count() == 1
+
+
+def test_a_nul_in_imported_notes_is_a_row_error_not_a_stuck_import(fan_installation):
+    result = import_check([import_row(fan_installation, notes="belt\x00squeals"), import_row(fan_installation)])
+    assert [(row, field) for row, field, _ in result.errors] == [(2, "notes")]
+    assert result.good["row"].tolist() == [3]
