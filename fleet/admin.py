@@ -9,6 +9,7 @@ from django.contrib import admin
 from django.contrib.auth import get_user_model
 from django.contrib.auth.admin import GroupAdmin, UserAdmin
 from django.contrib.auth.models import Group
+from django.core.exceptions import ValidationError
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
@@ -87,9 +88,52 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
     date_hierarchy = "fitted_on"
 
 
+class ReadingAdminForm(forms.ModelForm):
+    """A reading added in the admin passes the same rulebook as the form, the API and the import."""
+
+    class Meta:
+        model = Reading
+        fields = [
+            "installation",
+            "taken_at",
+            "taken_by",
+            "method",
+            *Reading.MEASURED_FIELDS,
+            "condition",
+            "notes",
+            "outlier_confirmed",
+            "supersedes",
+            "source",
+        ]
+
+    def clean(self):
+        from .services.readings import NeedsConfirmation, check_reading
+
+        data = super().clean()
+        installation = data.get("installation")
+        if installation is None or self.errors:
+            return data
+        try:
+            check_reading(installation, data, confirmed=bool(data.get("outlier_confirmed")))
+        except NeedsConfirmation as error:
+            raise ValidationError(
+                [*error.messages, "Tick 'outlier confirmed' if the value is right."], code="needs_confirmation"
+            ) from error
+        except ValidationError as error:
+            raise ValidationError(
+                {
+                    field if field in self.fields else "__all__": messages
+                    for field, messages in error.message_dict.items()
+                }
+            ) from error
+        return data
+
+
 @admin.register(Reading)
 class ReadingAdmin(admin.ModelAdmin):
     """Readings are append-only: they can be added and viewed, never changed or deleted."""
+
+    form = ReadingAdminForm
 
     list_display = [
         "installation",

@@ -8,9 +8,11 @@ from __future__ import annotations
 
 from django.core.exceptions import ValidationError
 from django.shortcuts import get_object_or_404
+from django_filters.rest_framework import DjangoFilterBackend
 from rest_framework import generics, permissions, serializers, status
 from rest_framework.response import Response
 
+from .filters import AssessmentFilter
 from .models import Assessment, FittedCapacitor, Reading
 from .roles import scope_to_user
 from .services.readings import NeedsConfirmation, record_reading
@@ -68,8 +70,29 @@ class AssessmentSerializer(serializers.ModelSerializer):
         ]
 
 
+class AsSent(serializers.Field):
+    """A measured value passed on as sent (number, text such as "3,8", or null): the rulebook
+    parses it, exactly as it parses the form's and the import's."""
+
+    def to_internal_value(self, data):
+        return data
+
+    def to_representation(self, value):
+        return value
+
+
 class ReadingSerializer(serializers.ModelSerializer):
     confirmed = serializers.BooleanField(write_only=True, required=False, default=False)
+    capacitance_uf = AsSent(required=False, allow_null=True)
+    capacitor_current_a = AsSent(required=False, allow_null=True)
+    capacitor_voltage_v = AsSent(required=False, allow_null=True)
+    line_voltage_v = AsSent(required=False, allow_null=True)
+    main_current_a = AsSent(required=False, allow_null=True)
+    aux_current_a = AsSent(required=False, allow_null=True)
+    line_current_a = AsSent(required=False, allow_null=True)
+    case_temperature_c = AsSent(required=False, allow_null=True)
+    ambient_temperature_c = AsSent(required=False, allow_null=True)
+    esr_ohm = AsSent(required=False, allow_null=True)
 
     class Meta:
         model = Reading
@@ -86,7 +109,7 @@ class ReadingSerializer(serializers.ModelSerializer):
             "confirmed",
         ]
         read_only_fields = ["id", "outlier_confirmed", "supersedes", "source"]
-        extra_kwargs = {"capacitance_uf": {"required": False}, "taken_at": {"required": False}}
+        extra_kwargs = {"taken_at": {"required": False}, "notes": {"trim_whitespace": False}}
 
 
 class AssessmentList(generics.ListAPIView):
@@ -94,26 +117,24 @@ class AssessmentList(generics.ListAPIView):
 
     serializer_class = AssessmentSerializer
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
+    filter_backends = [DjangoFilterBackend]
+    filterset_class = AssessmentFilter
 
     def get_queryset(self):
-        queryset = scope_to_user(
+        return scope_to_user(
             Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
             .select_related("installation__motor__site", "installation__part")
             .order_by("replace_by", "installation_id"),
             self.request.user,
         )
-        params = self.request.query_params
-        if params.get("site"):
-            queryset = queryset.filter(installation__motor__site__code=params["site"])
-        if params.get("risk"):
-            queryset = queryset.filter(risk=params["risk"])
-        if params.get("replace_by_before"):
-            queryset = queryset.filter(replace_by__lte=params["replace_by_before"])
-        return queryset
 
 
 class CapacitorReadings(generics.ListCreateAPIView):
-    """GET or POST /api/capacitors/<id>/readings/ (POST: the form's checks; 400 names the field)."""
+    """GET or POST /api/capacitors/<id>/readings/ (POST: the form's checks; 400 names the field).
+
+    An `Idempotency-Key` header (any client-made string up to 64 characters) makes a repeated
+    POST save nothing: the reading saved the first time comes back with 200.
+    """
 
     serializer_class = ReadingSerializer
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
@@ -131,13 +152,21 @@ class CapacitorReadings(generics.ListCreateAPIView):
         serializer.is_valid(raise_exception=True)
         values = dict(serializer.validated_data)
         confirmed = values.pop("confirmed", False)
+        key = request.headers.get("Idempotency-Key", "")
+        if len(key) > 64 or "\x00" in key:
+            return Response({"Idempotency-Key": ["At most 64 characters, no NUL."]}, status=status.HTTP_400_BAD_REQUEST)
         try:
             reading = record_reading(
-                installation=self.installation(), values=values, user=request.user, confirmed=confirmed
+                installation=self.installation(),
+                values=values,
+                user=request.user,
+                confirmed=confirmed,
+                client_key=key,
             )
         except NeedsConfirmation as error:
             body = {**error.message_dict, "confirm": ["Send again with confirmed=true if the value is right."]}
             return Response(body, status=status.HTTP_409_CONFLICT)
         except ValidationError as error:
             return Response(error.message_dict, status=status.HTTP_400_BAD_REQUEST)
-        return Response(self.get_serializer(reading).data, status=status.HTTP_201_CREATED)
+        answer = status.HTTP_200_OK if reading.replayed else status.HTTP_201_CREATED
+        return Response(self.get_serializer(reading).data, status=answer)

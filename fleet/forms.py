@@ -2,20 +2,25 @@
 
 from __future__ import annotations
 
+import uuid
+
 from django import forms
 from django.conf import settings
 from django.utils import timezone
 
+from .engineering.rules import RULES
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading
 
 
-def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.FloatField:
-    """A decimal field that opens the numeric keypad on phones."""
-    return forms.FloatField(
+def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.CharField:
+    """A decimal typed as text (opens the numeric keypad on phones): the rulebook parses it,
+    so "3,8" means the same here as in the API and the import."""
+    return forms.CharField(
         label=f"{label} ({unit})" if unit else label,
         required=required,
         help_text=help_text,
-        widget=forms.NumberInput(attrs={"inputmode": "decimal", "step": "any", "autocomplete": "off"}),
+        max_length=40,
+        widget=forms.TextInput(attrs={"inputmode": "decimal", "autocomplete": "off"}),
     )
 
 
@@ -38,11 +43,20 @@ class ReadingForm(forms.Form):
     condition = forms.ChoiceField(
         choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see"
     )
-    notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
+    notes = forms.CharField(
+        required=False, widget=forms.Textarea(attrs={"rows": 2, "maxlength": RULES.notes_max_chars})
+    )
     confirmed = forms.BooleanField(required=False, widget=forms.HiddenInput)
+    # One-time key of this page: a second submit of the same page saves nothing (the service checks it).
+    client_key = forms.CharField(required=False, max_length=64, widget=forms.HiddenInput)
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        if not self.is_bound:
+            self.initial["client_key"] = uuid.uuid4().hex
 
     def measured_values(self) -> dict:
-        data = {key: value for key, value in self.cleaned_data.items() if key != "confirmed"}
+        data = {key: value for key, value in self.cleaned_data.items() if key not in {"confirmed", "client_key"}}
         if data["method"] == Reading.Method.IN_CIRCUIT:
             data.pop("capacitance_uf", None)
         return data

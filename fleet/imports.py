@@ -23,9 +23,9 @@ import pandas as pd
 from django.conf import settings
 from django.utils import timezone
 
-from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
-from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip
-from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.engineering.rules import check_readings as reading_rules
+from fleet.engineering.rules import parse_numbers
+from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 
 READING_COLUMNS = {
     "asset_tag": "Motor asset tag (required)",
@@ -359,12 +359,11 @@ class _Problems:
 
 
 def _numbers(chunk, names, problems):
+    """Numbers by the rulebook's one parser (decimal comma, finite only)."""
     values = {}
     for name in names:
-        raw = chunk[name].str.replace(",", ".", regex=False)
-        number = pd.to_numeric(raw, errors="coerce")
-        problems.add(raw.ne("") & number.isna(), name, "not a number")
-        values[name] = number.to_numpy(float)
+        values[name], messages = parse_numbers(chunk[name])
+        problems.add(messages != "", name, messages)
     return values
 
 
@@ -415,7 +414,8 @@ def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
 
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
     """Validate mapped reading rows; resolve each to the capacitor fitted at the time."""
-    tags = sorted(set(frame["asset_tag"].str.upper()) - {""})
+    # A NUL cannot reach PostgreSQL, not even in a lookup: such a tag is simply unknown.
+    tags = sorted(t for t in set(frame["asset_tag"].str.upper()) - {""} if "\x00" not in t)
     fitted = pd.DataFrame.from_records(
         list(
             FittedCapacitor.objects.filter(motor__asset_tag__in=tags).values_list(
@@ -427,9 +427,20 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 "part__rated_uf",
                 "motor__frequency_hz",
                 "motor__rated_voltage_v",
+                "motor__full_load_current_a",
             )
         ),
-        columns=["installation_id", "tag", "role", "fitted_on", "removed_on", "rated_uf", "frequency_hz", "voltage_v"],
+        columns=[
+            "installation_id",
+            "tag",
+            "role",
+            "fitted_on",
+            "removed_on",
+            "rated_uf",
+            "frequency_hz",
+            "voltage_v",
+            "full_load_a",
+        ],
     )
     fitted["tag"] = fitted["tag"].str.upper()
     known_tags = set(fitted["tag"])
@@ -444,19 +455,8 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         problems.add(~tag.isin(known_tags), "asset_tag", "unknown asset tag: not in the register")
         role = chunk["role"].str.lower()
         problems.add(~role.isin(["start", "run"]), "role", "must be start or run")
-        method = chunk["method"].str.lower().replace("", "meter")
-        problems.add(~method.isin(["meter", "in_circuit"]), "method", "must be meter or in_circuit")
-        condition = chunk["condition"].str.lower().replace("", "sound")
-        problems.add(
-            ~condition.isin(["sound", "bulged", "leaking", "vented"]),
-            "condition",
-            "must be sound, bulged, leaking or vented",
-        )
         taken = _parse_times(chunk["taken_at"], default_tz)
         problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
-        problems.add(taken > now + dt.timedelta(minutes=10), "taken_at", "in the future")
-        problems.add(taken < pd.Timestamp("1990-01-01", tz="UTC"), "taken_at", "before 1990: check the date")
-        numbers = _numbers(chunk, READING_NUMBERS, problems)
         # The capacitor fitted at that motor, in that role, on that day.
         candidates = pd.DataFrame({"i": np.arange(len(chunk)), "tag": tag, "role": role, "day": taken.dt.date}).merge(
             fitted, on=["tag", "role"], how="left"
@@ -467,33 +467,31 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         match = candidates[in_window.fillna(False)].sort_values("fitted_on").groupby("i").tail(1).set_index("i")
         match = match.reindex(np.arange(len(chunk)))
         problems.add(
-            match["installation_id"].isna(), "role", "no capacitor in this role was fitted to this motor on that date"
+            match["installation_id"].isna() & taken.notna().to_numpy(),
+            "role",
+            "no capacitor in this role was fitted to this motor on that date",
         )
-        rated = match["rated_uf"].to_numpy(float)
-        frequency = match["frequency_hz"].to_numpy(float)
-        in_circuit = method.eq("in_circuit").to_numpy()
-        current, voltage = numbers["capacitor_current_a"], numbers["capacitor_voltage_v"]
-        problems.add(in_circuit & np.isnan(current), "capacitor_current_a", "in-circuit reading without a current")
-        problems.add(in_circuit & np.isnan(voltage), "capacitor_voltage_v", "in-circuit reading without a voltage")
-        slip = current_unit_slip(current, voltage, rated, frequency)
-        problems.add(in_circuit & (slip != ""), "capacitor_current_a", slip)
-        supply = match["voltage_v"].to_numpy(float)
-        shorted = short_circuit_suspected(current, voltage, supply)
-        problems.add(
-            in_circuit & shorted,
-            "capacitor_voltage_v",
-            "almost no voltage while current flows: short circuit suspected",
+        # Every rule of a reading, from the one rulebook the form and the API use.
+        result = reading_rules(
+            {name: chunk[name] for name in READING_NUMBERS},
+            method=chunk["method"],
+            condition=chunk["condition"],
+            notes=chunk["notes"],
+            rated_uf=match["rated_uf"].to_numpy(float),
+            frequency_hz=match["frequency_hz"].to_numpy(float),
+            motor_voltage_v=match["voltage_v"].to_numpy(float),
+            full_load_current_a=match["full_load_a"].to_numpy(float),
+            fitted_on=pd.to_datetime(match["fitted_on"]).to_numpy("datetime64[D]"),
+            removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
+            taken_at=taken.dt.tz_localize(None).to_numpy("datetime64[s]"),
+            now=np.datetime64(now.replace(tzinfo=None), "s"),
         )
-        capacitance = np.where(
-            in_circuit, capacitance_from_current(current, voltage, frequency), numbers["capacitance_uf"]
-        )
-        problems.add(~in_circuit & np.isnan(capacitance), "capacitance_uf", "required for a meter reading")
-        problems.add(capacitance <= 0, "capacitance_uf", "must be above zero")
-        problems.add(voltage <= 0, "capacitor_voltage_v", "must be above zero")
-        slip = capacitance_unit_slip(capacitance, rated)
-        problems.add(slip != "", "capacitance_uf", slip)
-        temperature = numbers["case_temperature_c"]
-        problems.add((temperature < -40) | (temperature > 150), "case_temperature_c", "outside -40 to 150 C")
+        for name, messages in result.errors.items():
+            problems.add(messages != "", name, messages)
+        for name, messages in result.confirm.items():
+            problems.add(messages != "", name, messages + "; the import cannot confirm it: use the reading form")
+        numbers = {name: result.values[name] for name in READING_NUMBERS}
+        method, condition, capacitance = result.values["method"], result.values["condition"], numbers["capacitance_uf"]
         good = ~problems.bad
         rows = pd.DataFrame(
             {
@@ -502,7 +500,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 "taken_at": taken,
                 "method": method,
                 "condition": condition,
-                "notes": chunk["notes"],
+                "notes": result.values["notes"],
                 **numbers,
                 "capacitance_uf": np.round(capacitance, 4),
             }
@@ -572,6 +570,16 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in REGISTER_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
+    for name in REGISTER_COLUMNS:
+        problems.add(frame[name].str.contains("\x00", regex=False), name, "contains a NUL character: remove it")
+    too_long = frame["asset_tag"].str.len() > Motor._meta.get_field("asset_tag").max_length
+    problems.add(
+        frame["asset_tag"].ne("") & ~frame["asset_tag"].str.fullmatch(CODE_PATTERN),
+        "asset_tag",
+        f"use {CODE_CHARACTERS}",
+    )
+    problems.add(too_long, "asset_tag", "longer than 40 characters")
+    problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(~frame["site_code"].isin(sites), "site_code", "unknown site code: add the site first")
     for name, allowed in (

@@ -7,14 +7,95 @@ readings never edited) are triggers installed by migration 0002.
 
 from __future__ import annotations
 
+import datetime as dt
+
 from django.conf import settings
+from django.core.exceptions import ValidationError
+from django.core.validators import RegexValidator
 from django.db import models
 from django.db.models import F, Q
+from django.db.models.functions import Length
+from django.db.models.lookups import LessThanOrEqual
 from django.utils import timezone
+
+# Asset tags, site codes and part codes: letters, digits, '-', '_' and '.', starting with a letter or
+# digit; no '/', spaces or other signs, so a code prints on a label and sits in a URL unchanged.
+CODE_CHARACTERS = "letters, digits, '-', '_' and '.', starting with a letter or digit"
+CODE_PATTERN = r"[A-Za-z0-9][A-Za-z0-9._-]*"
+code_validator = RegexValidator(rf"\A{CODE_PATTERN}\Z", f"Use {CODE_CHARACTERS}.", code="code_characters")
+# Database bound that refuses NaN and infinity on PostgreSQL (NaN sorts above every number there)
+# and infinity on SQLite (which stores NaN as NULL): far above any reading, below any overflow.
+FINITE_BOUND = 1e9
+NOTES_MAX_CHARS = 2000  # the rulebook's limit (fleet/engineering/rules.py), held by the database too
+
+
+# (field, lowest, strictly above it, constraint, message): physical facts of a reading, finite.
+FINITE_READINGS = [
+    (
+        "capacitor_voltage_v",
+        0,
+        True,
+        "reading_voltage_positive",
+        "The capacitor voltage must be a finite number above zero.",
+    ),
+    (
+        "capacitor_current_a",
+        0,
+        False,
+        "reading_current_not_negative",
+        "The capacitor current must be a finite number, zero or more.",
+    ),
+    (
+        "line_voltage_v",
+        0,
+        False,
+        "reading_line_voltage_finite",
+        "The line voltage must be a finite number, zero or more.",
+    ),
+    *(
+        (
+            f"{which}_current_a",
+            0,
+            False,
+            f"reading_{which}_current_finite",
+            f"The {which} current must be a finite number, zero or more.",
+        )
+        for which in ("main", "aux", "line")
+    ),
+    (
+        "ambient_temperature_c",
+        -273.15,
+        False,
+        "reading_ambient_temperature_finite",
+        "The ambient temperature must be a finite number above absolute zero.",
+    ),
+    ("esr_ohm", 0, False, "reading_esr_finite", "The ESR must be a finite number, zero or more."),
+]
+
+
+def finite(name: str, lowest: float = -FINITE_BOUND, *, above: bool = False) -> Q:
+    """Q that holds for a NULL or a finite value at or above `lowest` (above it with `above`)."""
+    low = {f"{name}__gt" if above else f"{name}__gte": lowest}
+    return Q(**{f"{name}__isnull": True}) | Q(**low, **{f"{name}__lt": FINITE_BOUND})
+
+
+def constraint_errors(instance: models.Model) -> dict[str, list[str]]:
+    """Every check constraint the instance breaks, by field (the model's CONSTRAINT_FIELDS), so a
+    form or the API shows it beside the field instead of the database answering 500."""
+    fields = getattr(type(instance), "CONSTRAINT_FIELDS", {})
+    errors: dict[str, list[str]] = {}
+    for constraint in instance._meta.constraints:
+        if not isinstance(constraint, models.CheckConstraint):
+            continue
+        try:
+            constraint.validate(type(instance), instance)
+        except ValidationError as error:
+            errors.setdefault(fields.get(constraint.name, "__all__"), []).extend(error.messages)
+    return errors
 
 
 class Site(models.Model):
-    code = models.CharField(max_length=20, unique=True)
+    code = models.CharField(max_length=20, unique=True, validators=[code_validator], help_text=f"Use {CODE_CHARACTERS}")
     name = models.CharField(max_length=120)
     time_zone = models.CharField(max_length=60, default="UTC")
 
@@ -47,7 +128,9 @@ class Motor(models.Model):
         STANDBY = "standby", "Standby"
         RETIRED = "retired", "Retired"
 
-    asset_tag = models.CharField(max_length=40, unique=True)
+    asset_tag = models.CharField(
+        max_length=40, unique=True, validators=[code_validator], help_text=f"Use {CODE_CHARACTERS}"
+    )
     site = models.ForeignKey(Site, on_delete=models.PROTECT, related_name="motors")
     location = models.CharField(max_length=120, blank=True)
     route_order = models.PositiveIntegerField(default=0, help_text="Walking order on the site's reading route")
@@ -121,7 +204,7 @@ class CapacitorPart(models.Model):
         P1 = "P1", "P1 (older marking)"
         P2 = "P2", "P2 (older marking)"
 
-    code = models.CharField(max_length=40, unique=True)
+    code = models.CharField(max_length=40, unique=True, validators=[code_validator], help_text=f"Use {CODE_CHARACTERS}")
     description = models.CharField(max_length=200, blank=True)
     rated_uf = models.FloatField()
     tolerance_minus_pct = models.FloatField()
@@ -211,6 +294,24 @@ class FittedCapacitor(models.Model):
     def in_service(self) -> bool:
         return self.removed_on is None
 
+    def readings_after(self, day):
+        """Readings taken after `day` (UTC dates, as the database trigger compares them)."""
+        next_day = dt.datetime.combine(day + dt.timedelta(days=1), dt.time(), tzinfo=dt.UTC)
+        return self.readings.filter(taken_at__gte=next_day)
+
+    def clean(self):
+        """A removal date earlier than a reading of this capacitor is refused (the trigger holds it too)."""
+        super().clean()
+        if self.pk and self.removed_on is not None:
+            later = self.readings_after(self.removed_on).order_by("-taken_at").first()
+            if later is not None:
+                raise ValidationError(
+                    {
+                        "removed_on": f"This capacitor has readings after {self.removed_on} "
+                        f"(the last on {later.taken_at:%Y-%m-%d}): the removal date cannot be earlier."
+                    }
+                )
+
 
 class Reading(models.Model):
     """One measurement, append-only. A correction is a new reading that supersedes."""
@@ -267,12 +368,33 @@ class Reading(models.Model):
     )
     source = models.CharField(max_length=10, choices=Source.choices, default=Source.FORM)
     import_key = models.CharField(max_length=64, null=True, blank=True, unique=True)
+    client_key = models.CharField(
+        max_length=64,
+        null=True,
+        blank=True,
+        unique=True,
+        help_text="The form's one-time key or the API client's idempotency key: sent twice, saved once",
+    )
     created_at = models.DateTimeField(auto_now_add=True)
+
+    CONSTRAINT_FIELDS = {
+        "reading_capacitance_positive": "capacitance_uf",
+        "reading_capacitance_finite": "capacitance_uf",
+        "in_circuit_needs_current_and_voltage": "capacitor_current_a",
+        "reading_case_temperature_range": "case_temperature_c",
+        **{name: field for field, _, _, name, _ in FINITE_READINGS},
+        "reading_notes_bounded": "notes",
+    }
 
     class Meta:
         ordering = ["installation_id", "taken_at", "id"]
         constraints = [
             models.CheckConstraint(condition=Q(capacitance_uf__gt=0), name="reading_capacitance_positive"),
+            models.CheckConstraint(
+                condition=Q(capacitance_uf__lt=FINITE_BOUND),
+                name="reading_capacitance_finite",
+                violation_error_message="Capacitance must be a finite number.",
+            ),
             models.CheckConstraint(
                 condition=Q(method="meter")
                 | (Q(capacitor_current_a__isnull=False) & Q(capacitor_voltage_v__isnull=False)),
@@ -283,13 +405,16 @@ class Reading(models.Model):
                 | Q(case_temperature_c__gte=-40, case_temperature_c__lte=150),
                 name="reading_case_temperature_range",
             ),
-            models.CheckConstraint(
-                condition=Q(capacitor_voltage_v__isnull=True) | Q(capacitor_voltage_v__gt=0),
-                name="reading_voltage_positive",
+            *(
+                models.CheckConstraint(
+                    condition=finite(field, lowest, above=above), name=name, violation_error_message=message
+                )
+                for field, lowest, above, name, message in FINITE_READINGS
             ),
             models.CheckConstraint(
-                condition=Q(capacitor_current_a__isnull=True) | Q(capacitor_current_a__gte=0),
-                name="reading_current_not_negative",
+                condition=LessThanOrEqual(Length("notes"), NOTES_MAX_CHARS),
+                name="reading_notes_bounded",
+                violation_error_message=f"Notes take at most {NOTES_MAX_CHARS} characters.",
             ),
         ]
         indexes = [models.Index(fields=["installation", "taken_at"])]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import io
+import uuid
 
 import segno
 from django.conf import settings
@@ -20,7 +21,9 @@ from django.views.decorators.http import require_POST
 
 from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
+from .engineering.rules import RULES
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
+from .filters import plan_parameters
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from .roles import scope_to_user
@@ -115,21 +118,26 @@ def reading_new(request, installation_id):
         form = ReadingForm(request.POST)
         if form.is_valid():
             try:
-                record_reading(
+                reading = record_reading(
                     installation=installation,
                     values=form.measured_values(),
                     user=request.user,
                     confirmed=form.cleaned_data["confirmed"],
+                    client_key=form.cleaned_data["client_key"],
                 )
             except NeedsConfirmation as error:
                 needs_confirmation = True
                 form.add_error(None, error)
             except ValidationError as error:
                 _add_errors(form, error)
+                if "client_key" in error.message_dict:  # a page saved before, sent with new values: a new key
+                    form.data = form.data.copy()
+                    form.data["client_key"] = uuid.uuid4().hex
             else:
+                saved = "was already saved (sent twice)" if reading.replayed else "saved"
                 messages.success(
                     request,
-                    f"Reading saved for {installation.motor.asset_tag} "
+                    f"Reading {saved} for {installation.motor.asset_tag} "
                     f"({installation.get_role_display().lower()} capacitor).",
                 )
                 # ?saved= tells the page to drop the draft the phone kept of this form.
@@ -146,14 +154,16 @@ def reading_new(request, installation_id):
         "assessment": assessment,
         "recent": pages.recent_readings(installation),
         "energy_j": _energy_j(installation.part),
+        "rules": RULES.as_dict(),
     }
     return render(request, "fleet/reading_form.html", context)
 
 
 def _add_errors(form, error: ValidationError) -> None:
-    """Attach a service's errors to the form's fields (unknown fields to the top)."""
+    """Attach a service's errors to the form's fields (unknown and hidden fields to the top)."""
     for field, field_messages in error.message_dict.items():
-        form.add_error(field if field in form.fields else None, field_messages)
+        shown = field in form.fields and not form.fields[field].widget.is_hidden
+        form.add_error(field if shown else None, field_messages)
 
 
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
@@ -242,8 +252,7 @@ def plan_export(request, file_format):
     """The replacement plan for the planner's own spreadsheet: CSV streamed, or XLSX."""
     if file_format not in {"csv", "xlsx"}:
         raise Http404("The plan downloads as .csv or .xlsx")
-    horizon = _int_param(request.GET, "days", 90, 7, 730)
-    site = Site.objects.filter(code=request.GET.get("site")).first()
+    site, horizon, _ = plan_parameters(request.GET)
     rows = plan_rows(pages.replacement_plan(horizon, site).iterator(chunk_size=2000))
     name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}"
     if file_format == "xlsx":
@@ -257,8 +266,9 @@ def plan_export(request, file_format):
 
 @permission_required("fleet.view_assessment", raise_exception=True)
 def plan(request):
-    horizon = _int_param(request.GET, "days", 90, 7, 730)
-    site = Site.objects.filter(code=request.GET.get("site")).first()
+    site, horizon, problems = plan_parameters(request.GET)
+    for problem in problems:
+        messages.warning(request, f"Ignored {problem}")
     paginator = Paginator(pages.replacement_plan(horizon, site), 50)
     page = paginator.get_page(request.GET.get("page"))
     context = {

@@ -3,29 +3,24 @@
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
 import logging
 
+import numpy as np
 from django.conf import settings
 from django.core.exceptions import ValidationError
-from django.db import transaction
+from django.db import IntegrityError, transaction
 from django.utils import timezone
 
 from fleet.audit import audited_update
-from fleet.engineering.capacitor import capacitance_from_current, short_circuit_suspected
-from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip, off_trend
-from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
+from fleet.engineering.rules import check_readings, parse_numbers
+from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder, constraint_errors
 
 log = logging.getLogger(__name__)
 
 
-SHORT_CIRCUIT_ADVICE = (
-    "Current flows with almost no voltage across the capacitor: a short circuit is suspected. "
-    "Isolate and lock out, discharge, check the capacitor with a meter, and record a replacement if it is shorted."
-)
-
-
 class NeedsConfirmation(ValidationError):
-    """The reading is far off the capacitor's trend: confirm it or re-measure."""
+    """The reading is far off the capacitor's trend, or a voltage far above the motor's: confirm or re-measure."""
 
 
 def enqueue_refit(installation_ids: list[int]) -> None:
@@ -55,63 +50,76 @@ def enqueue_refit(installation_ids: list[int]) -> None:
             log.warning("refit of %d capacitors not queued (%s); the stale sweep will pick them up", len(chunk), error)
 
 
-def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:
-    """Validate and complete one reading's values; raises ValidationError by field.
+def _utc64(moment) -> np.datetime64:
+    """An aware datetime as numpy UTC seconds; NaT if it cannot be represented."""
+    try:
+        return np.datetime64(moment.astimezone(dt.UTC).replace(tzinfo=None), "s")
+    except (AttributeError, OverflowError, ValueError):
+        return np.datetime64("NaT", "s")
 
-    In-circuit readings get their capacitance from current and voltage. Values
-    that only fit another unit are refused with the unit named; a value far
-    off the trend raises NeedsConfirmation unless `confirmed`.
+
+def _sentence(message: str) -> str:
+    return message[:1].upper() + message[1:]
+
+
+def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:
+    """Validate and complete one reading's values with the rulebook; raises ValidationError by field.
+
+    Values come as typed or sent (text, numbers or None). In-circuit readings get their
+    capacitance from current and voltage; a value far off the trend or a voltage far above
+    the motor's raises NeedsConfirmation unless `confirmed`; the database's constraints
+    are checked last, so they too come back by field.
     """
-    values = dict(values)
-    part = installation.part
-    frequency_hz = installation.motor.frequency_hz
-    errors: dict[str, str] = {}
-    if values.get("method") == Reading.Method.IN_CIRCUIT:
-        current, voltage = values.get("capacitor_current_a"), values.get("capacitor_voltage_v")
-        if current is None:
-            errors["capacitor_current_a"] = "In-circuit reading: enter the capacitor current in A."
-        if voltage is None:
-            errors["capacitor_voltage_v"] = "In-circuit reading: enter the voltage across the capacitor in V."
-        if current is not None and voltage is not None:
-            slip = current_unit_slip(current, voltage, part.rated_uf, frequency_hz)[0]
-            if slip:
-                errors["capacitor_current_a"] = slip
-            elif short_circuit_suspected(current, voltage, installation.motor.rated_voltage_v):
-                errors["capacitor_voltage_v"] = SHORT_CIRCUIT_ADVICE
-            elif voltage <= 0:
-                errors["capacitor_voltage_v"] = "The capacitor voltage must be above zero."
-            else:
-                values["capacitance_uf"] = round(capacitance_from_current(current, voltage, frequency_hz), 3)
-    capacitance = values.get("capacitance_uf")
-    if capacitance is None and "capacitor_current_a" not in errors and "capacitor_voltage_v" not in errors:
-        errors["capacitance_uf"] = "Enter the capacitance in uF."
-    elif capacitance is not None and capacitance <= 0:
-        errors["capacitance_uf"] = "Capacitance must be above zero (an open capacitor reads near zero: enter 0.01)."
-    elif capacitance is not None:
-        slip = capacitance_unit_slip(capacitance, part.rated_uf)[0]
-        if slip:
-            errors["capacitance_uf"] = slip
-    taken_at = values.get("taken_at") or timezone.now()
-    if taken_at > timezone.now() + dt.timedelta(minutes=10):
-        errors["taken_at"] = "The reading time is in the future."
+    part, motor = installation.part, installation.motor
+    now = timezone.now()
+    taken_at = values.get("taken_at") or now
+    assessment = Assessment.objects.filter(installation=installation, is_current=True).first()
+    result = check_readings(
+        {name: [values.get(name)] for name in Reading.MEASURED_FIELDS},
+        method=[values.get("method")],
+        condition=[values.get("condition") or Reading.Condition.SOUND],
+        notes=[values.get("notes") or ""],
+        rated_uf=part.rated_uf,
+        frequency_hz=motor.frequency_hz,
+        motor_voltage_v=motor.rated_voltage_v,
+        full_load_current_a=motor.full_load_current_a,
+        fitted_on=np.datetime64(installation.fitted_on, "D"),
+        removed_on=np.datetime64(installation.removed_on or "NaT", "D"),
+        taken_at=_utc64(taken_at),
+        now=_utc64(now),
+        predicted_uf=assessment.capacitance_now_uf if assessment else np.nan,
+        confirmed=confirmed,
+    )
+    errors = {name: _sentence(message) for name, message in result.row(0).items()}
     if installation.removed_on is not None:
         errors["installation"] = (
             f"This capacitor was removed on {installation.removed_on}; log the reading on the one fitted now."
         )
     if errors:
         raise ValidationError(errors)
-    values["taken_at"] = taken_at
-    current = Assessment.objects.filter(installation=installation, is_current=True).first()
-    if current and not confirmed and off_trend(capacitance, current.capacitance_now_uf, part.rated_uf):
-        raise NeedsConfirmation(
-            {
-                "capacitance_uf": (
-                    f"{capacitance:g} uF is far from this capacitor's trend ({current.capacitance_now_uf:.2f} uF). "
-                    "Re-measure, or confirm the value if it is right."
-                )
-            }
-        )
-    return values
+    confirm = result.row(0, "confirm")
+    if confirm:
+        raise NeedsConfirmation({name: _sentence(message) for name, message in confirm.items()})
+    checked = {
+        name: (None if np.isnan(result.values[name][0]) else float(result.values[name][0]))
+        for name in Reading.MEASURED_FIELDS
+    }
+    checked.update(
+        method=str(result.values["method"][0]),
+        condition=str(result.values["condition"][0]),
+        notes=str(result.values["notes"][0]),
+        taken_at=taken_at,
+    )
+    broken = constraint_errors(Reading(installation=installation, **checked))
+    if broken:
+        raise ValidationError(broken)
+    return checked
+
+
+def _client_key(user, key: str) -> str:
+    """The stored form of a client's one-time key: scoped to the user, fixed length."""
+    owner = user.pk if user is not None and user.is_authenticated else 0
+    return hashlib.sha256(f"{owner}|{key}".encode()).hexdigest()[:40]
 
 
 def record_reading(
@@ -122,22 +130,70 @@ def record_reading(
     supersedes: Reading | None = None,
     confirmed: bool = False,
     source: str = Reading.Source.FORM,
+    client_key: str = "",
 ) -> Reading:
-    """Save one reading (append-only) and queue its capacitor's refit on commit."""
-    values = check_reading(installation, values, confirmed=confirmed)
+    """Save one reading (append-only) and queue its capacitor's refit on commit.
+
+    `client_key` (the form's one-time key, or an API client's idempotency key) makes a
+    repeated submission save nothing: the reading saved the first time comes back with
+    `replayed = True`.
+    """
+    stored_key = _client_key(user, client_key) if client_key else None
+    if stored_key:
+        earlier = _earlier_submission(installation, stored_key, values)
+        if earlier is not None:
+            return earlier
+    checked = check_reading(installation, values, confirmed=confirmed)
     if supersedes is not None and supersedes.installation_id != installation.id:
         raise ValidationError({"supersedes": "A correction must be for the same capacitor."})
-    with transaction.atomic():
-        reading = Reading.objects.create(
-            installation=installation,
-            taken_by=user if user is not None and user.is_authenticated else None,
-            supersedes=supersedes,
-            outlier_confirmed=confirmed,
-            source=source,
-            **{k: v for k, v in values.items() if k in {f.name for f in Reading._meta.fields}},
-        )
-        transaction.on_commit(lambda: enqueue_refit([installation.id]))
+    try:
+        with transaction.atomic():
+            reading = Reading.objects.create(
+                installation=installation,
+                taken_by=user if user is not None and user.is_authenticated else None,
+                supersedes=supersedes,
+                outlier_confirmed=confirmed,
+                source=source,
+                client_key=stored_key,
+                **checked,
+            )
+            transaction.on_commit(lambda: enqueue_refit([installation.id]))
+    except IntegrityError:
+        earlier = _earlier_submission(installation, stored_key, values) if stored_key else None
+        if earlier is None:
+            raise
+        return earlier
+    reading.replayed = False
     return reading
+
+
+def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: dict) -> Reading | None:
+    """The reading saved under this key before, if the values are the same; a key sent again
+    with other values is refused by name, so nothing typed is silently dropped."""
+    earlier = Reading.objects.filter(client_key=stored_key).first()
+    if earlier is None:
+        return None
+    if earlier.installation_id != installation.id:
+        raise ValidationError({"client_key": "This key was already used for a reading of another capacitor."})
+    if not _same_values(earlier, values):
+        raise ValidationError(
+            {
+                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} uF, "
+                f"{earlier.taken_at:%Y-%m-%d %H:%M} UTC) and these values differ. Save again to log them as "
+                "another reading."
+            }
+        )
+    earlier.replayed = True
+    return earlier
+
+
+def _same_values(reading: Reading, values: dict) -> bool:
+    """The values sent (as typed) are those of the stored reading (in-circuit: its current and voltage)."""
+    names = [n for n in Reading.MEASURED_FIELDS if n != "capacitance_uf" or reading.method == Reading.Method.METER]
+    sent, _ = parse_numbers([values.get(name) for name in names])
+    stored = np.array([np.nan if getattr(reading, n) is None else getattr(reading, n) for n in names], float)
+    same_numbers = bool(np.all((sent == stored) | (np.isnan(sent) & np.isnan(stored))))
+    return same_numbers and (values.get("notes") or "").strip() == reading.notes
 
 
 def replace_capacitor(
@@ -168,6 +224,7 @@ def replace_capacitor(
         if locked.removed_on is not None:
             raise ValidationError({"installation": f"This capacitor was already removed on {locked.removed_on}."})
         locked.removed_on, locked.removal_reason = removed_on, reason
+        locked.clean()
         locked.save(update_fields=["removed_on", "removal_reason"])
         successor = FittedCapacitor.objects.create(
             motor=locked.motor, role=locked.role, part=part, serial=serial, fitted_on=removed_on, notes=notes

@@ -13,7 +13,7 @@ from fleet.engineering.planning import (
     RISK_WATCH,
     judge,
 )
-from fleet.engineering.plausibility import capacitance_unit_slip, current_unit_slip, off_trend
+from fleet.engineering.rules import capacitance_unit_slip, current_unit_slip, off_trend
 
 
 def test_nanofarads_typed_for_microfarads_are_named():

@@ -1,0 +1,444 @@
+"""The rulebook of a reading: every check a reading passes before it is stored.
+
+One home for the rules the reading form, the JSON API and the file import apply,
+vectorised so a 50,000-row import is checked in one call: arrays in, one array of
+messages per field out ("" where the value passes). Thresholds are settings
+(`ReadingRules`), each with its source; the page's live hint gets them as JSON.
+
+Order of the checks, per field, first failure wins: parse (decimal comma, finite
+numbers), short circuit, unit slip, range; then the checks that only ask for a
+confirmation (a voltage far above the motor's, a value far off the trend).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import asdict, dataclass, field, fields
+from types import MappingProxyType
+
+import numpy as np
+import pandas as pd
+
+from .capacitor import capacitance_from_current, short_circuit_suspected
+
+TWO_PI = 2.0 * np.pi
+
+METHODS = ("meter", "in_circuit")
+CONDITIONS = ("sound", "bulged", "leaking", "vented")
+UNITS = {"uf": "uF", "a": "A", "v": "V", "c": "C", "ohm": "ohm"}
+
+# One decimal separator, point or comma, ASCII digits, an optional exponent.
+NUMBER_TEXT = re.compile(r"[+-]?(?:[0-9]+(?:[.,][0-9]*)?|[.,][0-9]+)(?:[eE][+-]?[0-9]+)?")
+NOT_FINITE_WORDS = {"nan", "inf", "infinity", "+inf", "-inf", "+infinity", "-infinity", "+nan", "-nan"}
+
+MSG_NOT_A_NUMBER = "not a number"
+MSG_NOT_FINITE = "not a finite number"
+MSG_SEPARATORS = "use one decimal separator (3.8 or 3,8) and no thousands separators"
+
+
+@dataclass(frozen=True)
+class Range:
+    """Plausible values of one measured field; `above` refuses the lowest itself."""
+
+    lowest: float
+    highest: float
+    above: bool
+    source: str
+
+
+def _ranges():
+    trade = "common practice of the trade, no single source"
+    memory = "from memory, unverified"
+    return MappingProxyType(
+        {
+            # Motor capacitors run from about 1 uF (small fans) to about 1500 uF (large start capacitors).
+            "capacitance_uf": Range(0.0, 5000.0, True, trade),
+            # Small single-phase motors draw well under 100 A even while starting.
+            "capacitor_current_a": Range(0.0, 100.0, False, memory),
+            # Above this no capacitor of a motor of 1000 V or less can be (the register's own limit).
+            "capacitor_voltage_v": Range(0.0, 5000.0, True, memory),
+            "line_voltage_v": Range(0.0, 1500.0, True, memory),
+            "main_current_a": Range(0.0, 200.0, False, memory),
+            "aux_current_a": Range(0.0, 200.0, False, memory),
+            "line_current_a": Range(0.0, 200.0, False, memory),
+            # The range of the usual contact thermometers and thermal cameras; same as the database check.
+            "case_temperature_c": Range(-40.0, 150.0, False, trade),
+            "ambient_temperature_c": Range(-50.0, 70.0, False, memory),
+            # A failed electrolytic can read tens of ohms; a meter reading above this is a slip or an open lead.
+            "esr_ohm": Range(0.0, 1000.0, False, memory),
+        }
+    )
+
+
+@dataclass(frozen=True)
+class ReadingRules:
+    """Thresholds of the rulebook. Sources beside each; [mem] ones are settings to revise."""
+
+    ranges: MappingProxyType = field(default_factory=_ranges)
+    # A capacitor (or line) voltage above this multiple of the motor's rated voltage is most likely a
+    # missed decimal point: ask to confirm (run capacitors sit up to about 1.5x the supply; from memory).
+    voltage_confirm_factor: float = 2.0
+    # Capacitor current under 5 % of the supply voltage while current flows: short circuit (trade).
+    short_circuit_fraction: float = 0.05
+    # Off the fitted trend by more than this fraction of the rating: confirm or re-measure (trade).
+    off_trend_fraction: float = 0.08
+    # Clocks of phones drift: a reading up to this far in the future is accepted (ours).
+    future_tolerance_s: float = 600.0
+    # A note is a line or two from the field; a page of text is a paste gone wrong (ours).
+    notes_max_chars: int = 2000
+
+    def as_dict(self) -> dict:
+        """Plain numbers for the page's live hint (json_script)."""
+        out = {f.name: getattr(self, f.name) for f in fields(self) if f.name != "ranges"}
+        out["ranges"] = {name: asdict(r) for name, r in self.ranges.items()}
+        return out
+
+
+RULES = ReadingRules()
+
+
+def _messages(condition, template, **columns):
+    """A message where `condition` holds, formatted with that row's values; "" elsewhere."""
+    condition = np.atleast_1d(np.asarray(condition, bool))
+    out = np.full(condition.shape, "", dtype=object)
+    for i in np.flatnonzero(condition):
+        out[i] = template.format(**{k: np.atleast_1d(v)[i if np.size(v) > 1 else 0] for k, v in columns.items()})
+    return out
+
+
+def capacitance_unit_slip(capacitance_uf, rated_uf):
+    """A value 300-3000 times the rating was typed in nanofarads; 1000x too small
+    in millifarads; more than three times the rating is not this capacitor
+    (common practice of the trade, no single source)."""
+    c = np.atleast_1d(np.asarray(capacitance_uf, float))
+    rated = np.atleast_1d(np.asarray(rated_uf, float))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = c / rated
+    nano = (ratio > 300) & (ratio < 3000)
+    milli = (ratio > 3e-4) & (ratio < 3e-3)
+    wild = ~nano & (ratio > 3)
+    return np.where(
+        nano,
+        _messages(nano, "{c:g} looks like nanofarads: {uf:g} uF? (rated {r:g} uF)", c=c, uf=c / 1000, r=rated),
+        np.where(
+            milli,
+            _messages(milli, "{c:g} looks like millifarads: {uf:g} uF? (rated {r:g} uF)", c=c, uf=c * 1000, r=rated),
+            _messages(wild, "{c:g} uF is over three times the rated {r:g} uF: wrong capacitor or unit?", c=c, r=rated),
+        ),
+    )
+
+
+def current_unit_slip(current_a, voltage_v, rated_uf, frequency_hz):
+    """A capacitor current 300-3000 times what the rating draws was typed in mA."""
+    i = np.atleast_1d(np.asarray(current_a, float))
+    expected = (
+        TWO_PI * np.asarray(frequency_hz, float) * np.asarray(rated_uf, float) * 1e-6 * np.asarray(voltage_v, float)
+    )
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = i / np.atleast_1d(expected)
+    milli = (ratio > 300) & (ratio < 3000)
+    return _messages(
+        milli, "{i:g} looks like milliamperes: {a:g} A? (expected about {e:.2f} A)", i=i, a=i / 1000, e=expected
+    )
+
+
+def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
+    """True where a reading sits more than `threshold_fraction` of the rating away
+    from the capacitor's fitted trend: ask the technician to confirm or re-measure."""
+    c = np.asarray(capacitance_uf, float)
+    predicted = np.asarray(predicted_uf, float)
+    with np.errstate(invalid="ignore"):
+        return np.isfinite(predicted) & (np.abs(c - predicted) > threshold_fraction * np.asarray(rated_uf, float))
+
+
+def _as_objects(raw, n: int | None = None) -> pd.Series:
+    if isinstance(raw, pd.Series):
+        return raw.reset_index(drop=True).astype(object)
+    if isinstance(raw, str) or not np.iterable(raw):
+        raw = [raw] * (n or 1)
+    return pd.Series(list(raw), dtype=object)
+
+
+def _number_or_code(value):
+    """A non-text value: (float, "") or (nan, why not)."""
+    if value is None:
+        return np.nan, ""
+    if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
+        return np.nan, MSG_NOT_A_NUMBER
+    try:
+        number = float(value)
+    except OverflowError:
+        return np.nan, MSG_NOT_FINITE
+    return (number, "") if np.isfinite(number) else (np.nan, MSG_NOT_FINITE)
+
+
+def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
+    """Numbers typed, sent or imported -> (floats with nan where missing or bad, messages).
+
+    Text takes a decimal point or one decimal comma ("3,8" is 3.8), the same in the
+    form, the API and the import; "1,234.5" and "1.234,5" are refused, not guessed.
+    NaN and infinity are refused in any spelling; empty text or null is missing.
+    """
+    series = _as_objects(raw)
+    values = np.full(len(series), np.nan)
+    messages = np.full(len(series), "", dtype=object)
+    is_text = series.map(lambda v: isinstance(v, str)).to_numpy(bool)
+    if is_text.any():
+        text = series[is_text].astype(str).str.strip()
+        ok = text.str.fullmatch(NUMBER_TEXT.pattern)
+        parsed = pd.to_numeric(text.where(ok, "").str.replace(",", ".", regex=False), errors="coerce").to_numpy(float)
+        empty = text.eq("").to_numpy()
+        ok = ok.to_numpy(bool)
+        lowered = text.str.lower()
+        why = np.where(
+            lowered.isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
+            MSG_NOT_FINITE,
+            np.where(
+                text.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(), MSG_SEPARATORS, MSG_NOT_A_NUMBER
+            ),
+        )
+        finite = ok & np.isfinite(parsed)
+        values[is_text] = np.where(finite, parsed, np.nan)
+        messages[is_text] = np.where(finite | empty, "", why)
+    if (~is_text).any():
+        pairs = [_number_or_code(v) for v in series[~is_text]]
+        values[~is_text] = [p[0] for p in pairs]
+        messages[~is_text] = [p[1] for p in pairs]
+    return values, messages
+
+
+def _unit(name: str) -> str:
+    return UNITS.get(name.rsplit("_", 1)[-1], "")
+
+
+def range_messages(name: str, values, rules: ReadingRules = RULES) -> np.ndarray:
+    """Messages for values outside the field's plausible range (missing values pass)."""
+    r = rules.ranges[name]
+    v = np.atleast_1d(np.asarray(values, float))
+    unit = _unit(name)
+    low = (v <= r.lowest) if r.above else (v < r.lowest)
+    high = v > r.highest
+    below = f"must be above {r.lowest:g} {unit}" if r.above else f"must be {r.lowest:g} {unit} or more"
+    return np.where(
+        low,
+        _messages(low, "{v:g} " + below, v=v),
+        _messages(high, "{v:g} is above " + f"{r.highest:g} {unit}, the most a reading of a small motor shows", v=v),
+    )
+
+
+@dataclass(frozen=True)
+class RuleResult:
+    """Parsed values (nan where missing; in-circuit capacitance computed) and messages by field."""
+
+    values: dict
+    errors: dict  # field -> messages: the value is refused
+    confirm: dict  # field -> messages: the value is kept only when confirmed
+
+    @property
+    def bad(self) -> np.ndarray:
+        return np.logical_or.reduce([m != "" for m in self.errors.values()])
+
+    @property
+    def needs_confirmation(self) -> np.ndarray:
+        if not self.confirm:
+            return np.zeros_like(self.bad)
+        return np.logical_or.reduce([m != "" for m in self.confirm.values()])
+
+    def row(self, i: int, which: str = "errors") -> dict[str, str]:
+        """The messages of one row, by field."""
+        return {name: str(m[i]) for name, m in getattr(self, which).items() if m[i]}
+
+
+class _Collector:
+    """First message per field and row wins."""
+
+    def __init__(self, n: int):
+        self.n = n
+        self.by_field: dict[str, np.ndarray] = {}
+
+    def add(self, name: str, mask, message) -> None:
+        mask = np.broadcast_to(np.asarray(mask, bool), (self.n,))
+        current = self.by_field.setdefault(name, np.full(self.n, "", dtype=object))
+        fresh = mask & (current == "")
+        if isinstance(message, np.ndarray):
+            current[fresh] = message[fresh]
+        else:
+            current[fresh] = message
+
+    def has(self, name: str) -> np.ndarray:
+        return self.by_field[name] != "" if name in self.by_field else np.zeros(self.n, bool)
+
+
+def _column(values, n, dtype=float):
+    return np.broadcast_to(np.asarray(values, dtype), (n,)) if np.ndim(values) == 0 else np.asarray(values, dtype)
+
+
+def _day_text(days) -> np.ndarray:
+    return np.datetime_as_string(np.asarray(days, "datetime64[D]"), unit="D")
+
+
+def check_readings(raw: dict, **kwargs) -> RuleResult:
+    """Check many readings at once (see `_check_readings`); overflow in a hostile value is a message, not a warning."""
+    with np.errstate(all="ignore"):
+        return _check_readings(raw, **kwargs)
+
+
+def _check_readings(
+    raw: dict,
+    *,
+    method,
+    rated_uf,
+    frequency_hz,
+    motor_voltage_v,
+    full_load_current_a,
+    fitted_on,
+    removed_on,
+    taken_at,
+    now,
+    condition=None,
+    notes=None,
+    predicted_uf=None,
+    confirmed=False,
+    rules: ReadingRules = RULES,
+) -> RuleResult:
+    """Check many readings at once.
+
+    `raw` maps measured field names to values as typed or sent (text, numbers,
+    None); the capacitor's and motor's figures are per reading (arrays) or shared
+    (scalars). Dates: `taken_at` as datetime64 (UTC, NaT where unreadable),
+    `fitted_on`/`removed_on` as datetime64[D] (NaT: not removed), `now` one instant.
+    """
+    n = len(np.atleast_1d(method)) if np.ndim(method) else max((len(_as_objects(v)) for v in raw.values()), default=1)
+    errors, confirm = _Collector(n), _Collector(n)
+    values = {}
+    for name in rules.ranges:
+        number, why = parse_numbers(_as_objects(raw.get(name), n))
+        errors.add(name, why != "", why)
+        values[name] = number
+
+    method = _as_objects(method, n).map(lambda v: v if isinstance(v, str) else "").str.strip().str.lower()
+    method = method.where(method != "", "meter").to_numpy(object)
+    errors.add("method", ~np.isin(method, METHODS), "must be meter or in_circuit")
+    if condition is not None:
+        text = _as_objects(condition, n).map(lambda v: v if isinstance(v, str) else "?").str.strip().str.lower()
+        text = text.where(text != "", "sound").to_numpy(object)
+        errors.add("condition", ~np.isin(text, CONDITIONS), f"must be {', '.join(CONDITIONS[:-1])} or {CONDITIONS[-1]}")
+        values["condition"] = text
+    values["method"] = method
+
+    rated = _column(rated_uf, n)
+    frequency = _column(frequency_hz, n)
+    supply = _column(motor_voltage_v, n)
+    full_load = _column(full_load_current_a, n)
+    in_circuit = method == "in_circuit"
+    current, voltage = values["capacitor_current_a"], values["capacitor_voltage_v"]
+    missing_current = in_circuit & np.isnan(current) & ~errors.has("capacitor_current_a")
+    missing_voltage = in_circuit & np.isnan(voltage) & ~errors.has("capacitor_voltage_v")
+    errors.add("capacitor_current_a", missing_current, "in-circuit reading: enter the capacitor current in A")
+    errors.add(
+        "capacitor_voltage_v", missing_voltage, "in-circuit reading: enter the voltage across the capacitor in V"
+    )
+    # Short circuit first: a healthy current over a near-zero voltage would otherwise read as a unit slip.
+    shorted = (
+        in_circuit & (voltage >= 0) & short_circuit_suspected(current, voltage, supply, rules.short_circuit_fraction)
+    )
+    errors.add(
+        "capacitor_voltage_v",
+        shorted,
+        "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
+        "discharge, check the capacitor with a meter, and record a replacement if it is shorted",
+    )
+    errors.add("capacitor_current_a", in_circuit & ~shorted, current_unit_slip(current, voltage, rated, frequency))
+    for name in ("main_current_a", "aux_current_a", "line_current_a"):
+        ratio = values[name] / full_load
+        milli = (ratio > 300) & (ratio < 3000)
+        errors.add(
+            name,
+            milli,
+            _messages(milli, "{i:g} looks like milliamperes: {a:g} A?", i=values[name], a=values[name] / 1e3),
+        )
+
+    # In circuit, the capacitance is computed; what the meter field holds is ignored.
+    errors.by_field["capacitance_uf"][in_circuit] = ""
+    computed = np.round(np.atleast_1d(capacitance_from_current(current, voltage, frequency)), 3)
+    capacitance = np.where(in_circuit, computed, values["capacitance_uf"])
+    meter_missing = ~in_circuit & np.isnan(capacitance) & ~errors.has("capacitance_uf")
+    errors.add("capacitance_uf", meter_missing, "enter the capacitance in uF")
+    errors.add("capacitance_uf", ~in_circuit & (capacitance > 0), capacitance_unit_slip(capacitance, rated))
+    # Ranges after the slips, so a value typed in another unit is named as such.
+    for name in rules.ranges:
+        skip = in_circuit if name == "capacitance_uf" else np.zeros(n, bool)
+        errors.add(name, ~skip, range_messages(name, values[name], rules))
+    circuit_ok = in_circuit & ~errors.has("capacitor_current_a") & ~errors.has("capacitor_voltage_v")
+    derived = range_messages("capacitance_uf", capacitance, rules)
+    derived = np.where(derived != "", derived, capacitance_unit_slip(capacitance, rated))
+    errors.add("capacitor_current_a", circuit_ok & (derived != ""), "gives " + derived.astype(str))
+    values["capacitance_uf"] = np.where(np.isfinite(capacitance), capacitance, np.nan)
+
+    for name in ("capacitor_voltage_v", "line_voltage_v"):
+        v = values[name]
+        far = v > rules.voltage_confirm_factor * supply
+        confirm.add(
+            name,
+            far,
+            _messages(
+                far,
+                "{v:g} V is more than {k:g} times the motor's {s:g} V: a missed decimal point? "
+                "Re-measure, or confirm the value if it is right",
+                v=v,
+                k=rules.voltage_confirm_factor,
+                s=supply,
+            ),
+        )
+
+    _check_dates(errors, n, taken_at, fitted_on, removed_on, now, rules)
+    if notes is not None:
+        _check_notes(errors, n, notes, rules)
+        values["notes"] = _as_objects(notes, n).map(lambda v: v.strip() if isinstance(v, str) else "").to_numpy(object)
+
+    if predicted_uf is not None:
+        drift = off_trend(values["capacitance_uf"], _column(predicted_uf, n), rated, rules.off_trend_fraction)
+        predicted = _column(predicted_uf, n)
+        confirm.add(
+            "capacitance_uf",
+            drift,
+            _messages(
+                drift,
+                "{c:g} uF is far from this capacitor's trend ({p:.2f} uF). Re-measure, or confirm the value if it "
+                "is right",
+                c=values["capacitance_uf"],
+                p=predicted,
+            ),
+        )
+    confirmed = _column(confirmed, n, bool)
+    kept_confirm = {name: np.where(confirmed, "", m) for name, m in confirm.by_field.items()}
+    return RuleResult(values=values, errors=errors.by_field, confirm=kept_confirm)
+
+
+def _check_dates(errors: _Collector, n, taken_at, fitted_on, removed_on, now, rules: ReadingRules) -> None:
+    taken = _column(taken_at, n, "datetime64[s]")
+    day = taken.astype("datetime64[D]")
+    fitted = _column(fitted_on, n, "datetime64[D]")
+    removed = _column(removed_on, n, "datetime64[D]")
+    latest = np.datetime64(now, "s") + np.timedelta64(int(rules.future_tolerance_s), "s")
+    errors.add("taken_at", np.isnat(taken), "not a date and time")
+    before = day < fitted
+    errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=_day_text(fitted)))
+    after = ~np.isnat(removed) & (day > removed)
+    errors.add("taken_at", after, _messages(after, "after this capacitor was removed on {d}", d=_day_text(removed)))
+    errors.add("taken_at", taken > latest, "in the future")
+
+
+def _check_notes(errors: _Collector, n, notes, rules: ReadingRules) -> None:
+    series = _as_objects(notes, n)
+    is_text = series.map(lambda v: v is None or isinstance(v, str)).to_numpy(bool)
+    text = series.map(lambda v: v if isinstance(v, str) else "")
+    errors.add("notes", ~is_text, "must be text")
+    length = text.str.len().to_numpy()
+    too_long = length > rules.notes_max_chars
+    errors.add(
+        "notes",
+        too_long,
+        _messages(too_long, "{k} characters: notes take at most {m}", k=length, m=rules.notes_max_chars),
+    )
+    errors.add("notes", text.str.contains("\x00", regex=False).to_numpy(bool), "contains a NUL character: remove it")

@@ -1,0 +1,53 @@
+"""The reading form's live hint follows the server's rulebook; a page sent twice saves once."""
+
+import pytest
+
+from fleet.models import Reading
+
+from ..conftest import make_user
+from .test_technician import motor_with_history, sign_in  # noqa: F401 - the fixture is used by name
+
+pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
+
+
+def test_a_decimal_comma_is_read_as_the_server_reads_it(phone, motor_with_history):  # noqa: F811
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3,94")
+    computed = phone.locator("#computed")
+    assert "3.94 uF" in computed.inner_text() and "within tolerance" in computed.inner_text()
+    phone.fill("#id_case_temperature_c", "200")
+    assert "outside -40 to 150" in computed.inner_text()
+    phone.fill("#id_case_temperature_c", "31")
+    phone.click("#save")
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.order_by("-id").first().capacitance_uf == 3.94
+
+
+def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_history):  # noqa: F811
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.check("input[value=in_circuit]")
+    phone.fill("#id_capacitor_current_a", "0.49")
+    phone.fill("#id_capacitor_voltage_v", "2300")
+    assert "asked to confirm" in phone.locator("#computed").inner_text()
+    phone.shot("10-voltage-far-above-the-motor")
+    phone.click("#save")
+    assert phone.is_visible("text=missed decimal point")
+
+
+def test_the_same_page_sent_twice_saves_one_reading(phone, motor_with_history):  # noqa: F811
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.95")
+    before = Reading.objects.count()
+    statuses = phone.evaluate(
+        """async () => {
+            const form = document.getElementById("reading-form");
+            const send = () => fetch(form.action || location.href, {method: "POST", body: new FormData(form)});
+            const answers = await Promise.all([send(), send()]);
+            return answers.map((a) => a.status);
+        }"""
+    )
+    assert statuses == [200, 200]  # both followed their redirect to the motor page
+    assert Reading.objects.count() == before + 1

@@ -1,0 +1,144 @@
+"""The rulebook of a reading, without Django: parse, ranges, slips, confirmations, dates, text.
+
+Thresholds are the rulebook's settings; where a check encodes a trade limit the source is
+beside it: [trade] common practice of the trade, [mem] from memory (unverified).
+"""
+
+import numpy as np
+
+from fleet.engineering.rules import RULES, ReadingRules, check_readings, parse_numbers
+
+NOW = np.datetime64("2026-06-01T12:00", "s")
+FAN = dict(
+    rated_uf=4.0,
+    frequency_hz=50,
+    motor_voltage_v=230.0,
+    full_load_current_a=0.95,
+    fitted_on=np.datetime64("2022-01-01", "D"),
+    removed_on=np.datetime64("NaT", "D"),
+    now=NOW,
+)
+
+
+def check(raw, method="meter", taken_at="2026-05-01T09:00", **kwargs):
+    n = max(len(v) for v in raw.values())
+    return check_readings(
+        raw,
+        method=[method] * n,
+        taken_at=np.array([taken_at] * n, "datetime64[s]") if isinstance(taken_at, str) else taken_at,
+        **{**FAN, **kwargs},
+    )
+
+
+def test_a_decimal_comma_means_a_decimal_point_and_mixed_separators_are_refused():
+    values, messages = parse_numbers(["3,8", "3.8", " 4 ", "1,234.5", "1.234,5", "3,8,1", "", None])
+    np.testing.assert_array_equal(values[:3], [3.8, 3.8, 4.0])
+    assert list(messages[:3]) == ["", "", ""]
+    assert all("decimal separator" in m for m in messages[3:6])
+    assert np.isnan(values[6:]).all() and list(messages[6:]) == ["", ""]
+
+
+def test_nan_and_infinity_are_refused_in_every_spelling_and_type():
+    hostile = ["nan", "NaN", "inf", "-Infinity", "1e999", float("nan"), float("inf"), 10**400]
+    values, messages = parse_numbers(hostile)
+    assert np.isnan(values).all()
+    assert set(messages) == {"not a finite number"}
+
+
+def test_wrong_types_and_foreign_digits_are_not_numbers():
+    values, messages = parse_numbers([True, [1], {"a": 1}, "abc", "\uff13", "1_000", "0x10"])
+    assert np.isnan(values).all() and set(messages) == {"not a number"}
+
+
+def test_a_million_volts_is_refused_and_2300_v_asks_for_confirmation():
+    """[mem] no capacitor of a motor of 1000 V or less sees 5000 V; over twice the motor's
+    rated voltage on a run capacitor is most likely a missed decimal point."""
+    result = check({"capacitance_uf": ["4.0", "4.0", "4.0"], "capacitor_voltage_v": ["1000000", "2300", "400"]})
+    assert "above 5000 V" in result.errors["capacitor_voltage_v"][0]
+    assert (
+        result.errors["capacitor_voltage_v"][1] == ""
+        and "missed decimal point" in result.confirm["capacitor_voltage_v"][1]
+    )
+    assert result.bad.tolist() == [True, False, False]
+    assert result.needs_confirmation.tolist() == [True, True, False]
+    confirmed = check(
+        {"capacitance_uf": ["4.0"], "capacitor_voltage_v": ["2300"]}, confirmed=True
+    )  # the technician re-checked
+    assert not confirmed.needs_confirmation.any() and not confirmed.bad.any()
+
+
+def test_secondary_values_out_of_range_are_named_on_meter_readings_too():
+    """[trade] contact thermometers read -40 to 150 C; currents and ESR cannot be negative."""
+    result = check(
+        {
+            "capacitance_uf": ["4.0"] * 4,
+            "case_temperature_c": ["200", "-100", "25", "25"],
+            "capacitor_voltage_v": ["", "", "-5", ""],
+            "capacitor_current_a": ["", "", "-0.1", ""],
+            "esr_ohm": ["", "", "", "inf"],
+        }
+    )
+    assert "above 150 C" in result.errors["case_temperature_c"][0]
+    assert "-40 C or more" in result.errors["case_temperature_c"][1]
+    assert "above 0 V" in result.errors["capacitor_voltage_v"][2]
+    assert "0 A or more" in result.errors["capacitor_current_a"][2]
+    assert result.errors["esr_ohm"][3] == "not a finite number"
+    assert result.bad.all()
+
+
+def test_short_circuit_is_named_before_a_unit_slip():
+    """[trade] 1 A through the capacitor with 2 V across it is a short, though the current
+    is also 300-3000 times what 2 V would drive through 4 uF (which reads as milliamperes)."""
+    result = check({"capacitor_current_a": ["1.0"], "capacitor_voltage_v": ["2"]}, method="in_circuit")
+    assert "short circuit" in result.errors["capacitor_voltage_v"][0]
+    assert result.errors["capacitor_current_a"][0] == ""
+
+
+def test_unit_slips_are_named_before_the_range():
+    """[trade] 503 typed for a 0.503 A current, 3950 typed for 3.95 uF."""
+    result = check({"capacitor_current_a": ["503"], "capacitor_voltage_v": ["400"]}, method="in_circuit")
+    assert "milliamperes" in result.errors["capacitor_current_a"][0]
+    result = check({"capacitance_uf": ["3950"], "main_current_a": ["950"]})
+    assert "nanofarads" in result.errors["capacitance_uf"][0]
+    assert "milliamperes" in result.errors["main_current_a"][0]
+
+
+def test_in_circuit_capacitance_is_computed():
+    """[trade] C = 10^6 I / (2 pi f V): 0.5 A at 400 V, 50 Hz is 3.979 uF."""
+    result = check({"capacitor_current_a": ["0,5"], "capacitor_voltage_v": ["400"]}, method="in_circuit")
+    assert not result.bad.any()
+    assert abs(result.values["capacitance_uf"][0] - 3.979) < 1e-3
+
+
+def test_dates_stay_inside_the_fitting_window_and_out_of_the_future():
+    taken = np.array(["0001-01-01", "2021-12-31T23:00", "2026-05-01", "2026-06-02", "NaT"], "datetime64[s]")
+    result = check({"capacitance_uf": ["4"] * 5}, taken_at=taken)
+    messages = result.errors["taken_at"]
+    assert "fitted on 2022-01-01" in messages[0] and "fitted on 2022-01-01" in messages[1]
+    assert messages[2] == "" and messages[3] == "in the future" and messages[4] == "not a date and time"
+    removed = check({"capacitance_uf": ["4"]}, taken_at="2024-03-01", removed_on=np.datetime64("2024-02-01", "D"))
+    assert "removed on 2024-02-01" in removed.errors["taken_at"][0]
+
+
+def test_notes_are_bounded_and_free_of_nul():
+    result = check({"capacitance_uf": ["4"] * 3}, notes=["ok", "x" * 2_000_000, "a\x00b"])
+    assert result.errors["notes"][0] == ""
+    assert "at most 2000" in result.errors["notes"][1]
+    assert "NUL" in result.errors["notes"][2]
+
+
+def test_thresholds_are_settings():
+    strict = ReadingRules(voltage_confirm_factor=1.5)
+    result = check({"capacitance_uf": ["4"], "capacitor_voltage_v": ["400"]}, rules=strict)
+    assert result.needs_confirmation[0]
+    assert not check({"capacitance_uf": ["4"], "capacitor_voltage_v": ["400"]}).needs_confirmation[0]
+    assert RULES.as_dict()["ranges"]["case_temperature_c"]["highest"] == 150.0
+
+
+def test_many_readings_are_checked_in_one_call():
+    n = 50_000
+    rng = np.random.default_rng(1)
+    values = np.round(rng.normal(4.0, 0.05, n), 3).astype(str)
+    values[::1000] = "nan"
+    result = check({"capacitance_uf": values})
+    assert result.bad.sum() == n // 1000

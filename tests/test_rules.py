@@ -1,0 +1,368 @@
+"""Bad input and faults, one test per problem found by the careful tester: the rulebook holds
+at the form, the API and the import alike; the database holds what the rulebook misses."""
+
+import datetime as dt
+
+import pandas as pd
+import pytest
+from django.core.exceptions import ValidationError
+from django.db import DatabaseError, IntegrityError, connection, transaction
+from django.urls import reverse
+from django.utils import timezone
+from rest_framework.authtoken.models import Token
+from rest_framework.test import APIClient
+
+from fleet.imports import READING_COLUMNS, REGISTER_COLUMNS, check_readings, check_register, mapped_frame
+from fleet.models import FittedCapacitor, Motor, Reading, Site, WorkOrder, constraint_errors
+from fleet.services.assessments import refit_installations
+from fleet.services.readings import record_reading, replace_capacitor
+
+from .conftest import make_installation, make_motor, make_part, make_reading, make_site, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+
+def api_for(user) -> APIClient:
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=user).key}")
+    return client
+
+
+def form_post(client, installation, **values):
+    data = {"method": "meter", "condition": "sound", **values}
+    return client.post(reverse("reading_new", args=[installation.id]), data)
+
+
+def import_check(rows: list[dict]):
+    header = list(READING_COLUMNS)
+    body = [[row.get(name, "") for name in header] for row in rows]
+    return check_readings(mapped_frame(header, body, {n: n for n in header}, READING_COLUMNS))
+
+
+def import_row(installation, **values):
+    return {
+        "asset_tag": installation.motor.asset_tag,
+        "role": installation.role,
+        "taken_at": "2024-03-01 09:00",
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        **values,
+    }
+
+
+# critical: one absurd reading poisoned every refit
+
+
+def test_a_million_volts_is_refused_by_the_form_the_api_and_the_import(client, technician, fan_installation):
+    client.force_login(technician)
+    response = form_post(client, fan_installation, capacitance_uf="3.95", capacitor_voltage_v="1000000")
+    assert response.status_code == 200 and "above 5000 V" in response.content.decode()
+    api = api_for(technician).post(
+        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        {"method": "meter", "capacitance_uf": 3.95, "capacitor_voltage_v": 1e6},
+        format="json",
+    )
+    assert api.status_code == 400 and "above 5000 V" in api.json()["capacitor_voltage_v"][0]
+    result = import_check([import_row(fan_installation, capacitor_voltage_v="inf")])
+    assert result.errors == [(2, "capacitor_voltage_v", "not a finite number")] and result.good.empty
+    assert not Reading.objects.exists()
+
+
+def test_infinity_never_reaches_the_database_even_past_the_rulebook(fan_installation):
+    """[derived] the CHECK bounds refuse infinity on SQLite and NaN/infinity on PostgreSQL."""
+    for name in ("capacitor_voltage_v", "esr_ohm", "main_current_a", "ambient_temperature_c"):
+        with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
+            make_reading(fan_installation, **{name: float("inf")})
+    assert not Reading.objects.exists()
+
+
+# high: readings dated before the capacitor was fitted
+
+
+@pytest.mark.parametrize("taken_at", ["0001-01-01T00:00:00Z", "2019-06-01T09:00:00Z"])
+def test_the_api_refuses_a_reading_dated_before_fitting(technician, fan_installation, taken_at):
+    response = api_for(technician).post(
+        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        {"method": "meter", "capacitance_uf": 3.95, "taken_at": taken_at},
+        format="json",
+    )
+    assert response.status_code == 400
+    assert "efore this capacitor was fitted on 2022-01-01" in response.json()["taken_at"][0]
+    assert not Reading.objects.exists()
+
+
+# high: a tag with "/" took down shared pages
+
+
+def test_a_tag_with_a_slash_cannot_take_pages_down(client, planner, technician):
+    site = make_site(code="NORTH/2")  # inserted directly: validators bypassed, as an old register would
+    motor = make_motor(site=site, asset_tag="P-12/A")
+    installation = make_installation(motor=motor)
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.6, 3.4])
+    refit_installations([installation.id])
+    WorkOrder.objects.create(motor=motor, installation=installation, kind="replace_run", due_on=timezone.localdate())
+    client.force_login(planner)
+    motor_url = reverse("motor", args=[motor.asset_tag])
+    for url in (
+        reverse("home"),
+        reverse("plan") + "?days=730",
+        reverse("work_orders"),
+        reverse("route", args=[site.code]),
+        reverse("labels", args=[site.code]),
+        motor_url,
+    ):
+        response = client.get(url)
+        assert response.status_code == 200, url
+    assert motor_url in client.get(reverse("route", args=[site.code])).content.decode()
+    client.force_login(technician)
+    assert "P-12/A" in client.get(motor_url).content.decode()
+
+
+def test_tags_and_codes_outside_the_character_set_are_refused_at_entry():
+    site = make_site(code="CST")
+    with pytest.raises(ValidationError) as error:
+        Motor(asset_tag="P-12/A", site=site, application="fan", motor_type="permanent_split").full_clean()
+    assert "asset_tag" in error.value.message_dict
+    with pytest.raises(ValidationError) as error:
+        Site(code="A B", name="x").full_clean()
+    assert "code" in error.value.message_dict
+    part = make_part(code="RUN-4U0-450")
+    row = dict.fromkeys(REGISTER_COLUMNS, "")
+    row.update(
+        asset_tag="P-12/A",
+        site_code="CST",
+        application="fan",
+        motor_type="permanent_split",
+        load_type="fan_law",
+        rated_voltage_v="230",
+        frequency_hz="50",
+        poles="6",
+        output_w="120",
+        full_load_current_a="0,95",
+        rated_speed_rpm="910",
+        run_part_code=part.code,
+        fitted_on="2024-01-01",
+    )
+    good = dict(row, asset_tag="P-12.A")
+    header = list(REGISTER_COLUMNS)
+    frame = mapped_frame(
+        header, [[r[n] for n in header] for r in (row, good)], {n: n for n in header}, REGISTER_COLUMNS
+    )
+    result = check_register(frame)
+    assert [(r, f) for r, f, _ in result.errors] == [(2, "asset_tag")]
+    assert result.good["asset_tag"].tolist() == ["P-12.A"]
+    assert result.good["full_load_current_a"].tolist() == [0.95]
+
+
+# medium: out-of-range secondary values reached the database constraint (500)
+
+
+@pytest.mark.parametrize(
+    "field,value,words",
+    [
+        ("case_temperature_c", "200", "above 150 C"),
+        ("case_temperature_c", "-100", "-40 C or more"),
+        ("capacitor_voltage_v", "-5", "above 0 V"),
+        ("capacitor_current_a", "-0.2", "0 A or more"),
+        ("esr_ohm", "inf", "finite"),
+    ],
+)
+def test_out_of_range_secondary_values_come_back_by_field(client, technician, fan_installation, field, value, words):
+    client.force_login(technician)
+    response = form_post(client, fan_installation, capacitance_uf="3.95", **{field: value})
+    assert response.status_code == 200
+    assert response.context["form"].errors[field] and words in response.context["form"].errors[field][0]
+    api = api_for(technician).post(
+        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        {"method": "meter", "capacitance_uf": 3.95, field: value},
+        format="json",
+    )
+    assert api.status_code == 400 and words in api.json()[field][0]
+    result = import_check([import_row(fan_installation, **{field: value})])
+    assert [(f, words in m) for _, f, m in result.errors] == [(field, True)]
+    assert not Reading.objects.exists()
+
+
+def test_database_constraints_surface_as_field_errors(fan_installation):
+    reading = Reading(
+        installation=fan_installation, taken_at=timezone.now(), method="meter", capacitance_uf=4.0, esr_ohm=-1.0
+    )
+    reading.notes = "x" * 2001
+    errors = constraint_errors(reading)
+    assert set(errors) == {"esr_ohm", "notes"}
+
+
+def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_installation):
+    client.force_login(technician)
+    data = {"capacitance_uf": "3.95", "capacitor_voltage_v": "2300"}
+    response = form_post(client, fan_installation, **data)
+    assert "missed decimal point" in response.content.decode() and not Reading.objects.exists()
+    response = form_post(client, fan_installation, **data, confirmed="on")
+    assert response.status_code == 302
+    assert Reading.objects.get().outlier_confirmed
+
+
+# medium: DELETE of a reading; a removal date earlier than readings
+
+
+def test_a_reading_cannot_be_deleted(fan_installation):
+    reading = make_reading(fan_installation)
+    with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
+        Reading.objects.filter(pk=reading.pk).delete()
+    with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic(), connection.cursor() as cursor:
+        cursor.execute("DELETE FROM fleet_reading")
+    assert Reading.objects.filter(pk=reading.pk).exists()
+
+
+def test_a_removal_date_before_readings_is_refused_everywhere(fan_installation):
+    make_reading(fan_installation, taken_at=timezone.make_aware(dt.datetime(2024, 6, 1, 9)))
+    early = dt.date(2024, 5, 1)
+    with pytest.raises(ValidationError) as error:
+        replace_capacitor(installation=fan_installation, part=fan_installation.part, removed_on=early, reason="failed")
+    assert "removed_on" in error.value.message_dict
+    fan_installation.removed_on, fan_installation.removal_reason = early, "failed"
+    with pytest.raises(ValidationError) as error:  # the admin's form runs the model's clean()
+        fan_installation.full_clean()
+    assert "2024-06-01" in error.value.message_dict["removed_on"][0]
+    with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
+        FittedCapacitor.objects.filter(pk=fan_installation.pk).update(removed_on=early, removal_reason="failed")
+    FittedCapacitor.objects.filter(pk=fan_installation.pk).update(
+        removed_on=dt.date(2024, 6, 1), removal_reason="failed"
+    )
+
+
+# low: NUL bytes, bad filters, double submit, huge notes, the decimal comma
+
+
+def test_nul_in_an_address_is_a_400_not_a_500(client, planner, engineer, fan_installation):
+    client.force_login(planner)
+    for url in ("/plan/?site=%00", "/motors/%00/", "/sites/%00/route/", "/life/?part=%00"):
+        assert client.get(url).status_code == 400, url
+    api = api_for(engineer).get("/api/assessments/?site=%00")
+    assert api.status_code == 400 and "NUL" in api.json()["detail"]
+
+
+def test_a_bad_api_date_filter_is_a_json_400_naming_the_parameter(engineer):
+    response = api_for(engineer).get(reverse("api_assessments"), {"replace_by_before": "next tuesday"})
+    assert response.status_code == 400 and response["Content-Type"].startswith("application/json")
+    assert "replace_by_before" in response.json()
+
+
+def test_bad_plan_parameters_show_a_message(client, planner):
+    client.force_login(planner)
+    response = client.get(reverse("plan"), {"days": "lots", "site": "NOWHERE"}, follow=True)
+    body = response.content.decode()
+    assert response.status_code == 200 and "Ignored days" in body and "Ignored site" in body
+
+
+def test_a_double_submit_saves_one_reading(client, technician, fan_installation):
+    client.force_login(technician)
+    page = client.get(reverse("reading_new", args=[fan_installation.id]))
+    key = page.context["form"]["client_key"].value()
+    assert key and f'value="{key}"' in page.content.decode()
+    first = form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
+    second = form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
+    assert first.status_code == second.status_code == 302
+    assert Reading.objects.count() == 1
+
+
+def test_an_api_idempotency_key_saves_one_reading(technician, fan_installation):
+    client = api_for(technician)
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    body = {"method": "meter", "capacitance_uf": 3.95}
+    first = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3")
+    second = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3")
+    assert (first.status_code, second.status_code) == (201, 200)
+    assert first.json()["id"] == second.json()["id"] and Reading.objects.count() == 1
+    other = make_installation()
+    elsewhere = client.post(
+        reverse("api_capacitor_readings", args=[other.id]), body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3"
+    )
+    assert elsewhere.status_code == 400 and Reading.objects.count() == 1
+
+
+def test_a_two_megabyte_note_is_refused(client, technician, fan_installation):
+    note = "n" * 2_000_000
+    client.force_login(technician)
+    response = form_post(client, fan_installation, capacitance_uf="3.95", notes=note)
+    assert "at most 2000" in response.context["form"].errors["notes"][0]
+    api = api_for(technician).post(
+        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        {"method": "meter", "capacitance_uf": 3.95, "notes": note},
+        format="json",
+    )
+    assert api.status_code == 400 and "at most 2000" in api.json()["notes"][0]
+    with pytest.raises(ValidationError):
+        record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.9, "notes": note})
+    assert not Reading.objects.exists()
+
+
+@pytest.mark.parametrize("text,expected", [("3,93", 3.93), ("3.93", 3.93), ("3,9,3", None), ("1.003,9", None)])
+def test_the_decimal_comma_is_read_the_same_by_form_api_and_import(client, technician, text, expected):
+    installations = [make_installation() for _ in range(3)]
+    client.force_login(technician)
+    form = form_post(client, installations[0], capacitance_uf=text)
+    api = api_for(technician).post(
+        reverse("api_capacitor_readings", args=[installations[1].id]),
+        {"method": "meter", "capacitance_uf": text},
+        format="json",
+    )
+    result = import_check([import_row(installations[2], capacitance_uf=text)])
+    if expected is None:
+        message = "decimal separator"
+        assert message in form.context["form"].errors["capacitance_uf"][0]
+        assert message in api.json()["capacitance_uf"][0]
+        assert message in result.errors[0][2]
+        assert not Reading.objects.exists()
+    else:
+        assert form.status_code == 302 and api.status_code == 201 and len(result.good) == 1
+        stored = list(Reading.objects.values_list("capacitance_uf", flat=True))
+        assert stored == [expected, expected] and result.good["capacitance_uf"].tolist() == [expected]
+
+
+def test_imported_readings_keep_their_checked_values(fan_installation):
+    result = import_check([import_row(fan_installation, case_temperature_c="31,5", notes="  ok  ")])
+    assert result.errors == []
+    row = result.good.iloc[0]
+    assert (row["case_temperature_c"], row["notes"], row["method"]) == (31.5, "ok", "meter")
+    assert isinstance(row["taken_at"], pd.Timestamp)
+
+
+def test_a_saved_page_sent_again_with_other_values_is_not_silently_dropped(client, technician, fan_installation):
+    client.force_login(technician)
+    key = client.get(reverse("reading_new", args=[fan_installation.id])).context["form"]["client_key"].value()
+    form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
+    again = form_post(client, fan_installation, capacitance_uf="3.91", client_key=key)
+    assert again.status_code == 200 and "these values differ" in again.content.decode()
+    fresh = again.context["form"]["client_key"].value()
+    assert fresh != key and 'value="3.91"' in again.content.decode()
+    assert form_post(client, fan_installation, capacitance_uf="3.91", client_key=fresh).status_code == 302
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.91, 3.95]
+
+
+def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administrator, fan_installation):
+    from django.contrib.auth.models import Permission
+
+    administrator.user_permissions.add(Permission.objects.get(codename="add_reading"))
+    client.force_login(administrator)
+    data = {
+        "installation": fan_installation.id,
+        "taken_at_0": "2024-03-01",
+        "taken_at_1": "09:00",
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        "capacitor_voltage_v": "1000000",
+        "condition": "sound",
+        "source": "form",
+    }
+    response = client.post(reverse("admin:fleet_reading_add"), data)
+    assert response.status_code == 200 and "above 5000 V" in response.content.decode()
+    assert not Reading.objects.exists()
+    response = client.post(reverse("admin:fleet_reading_add"), {**data, "capacitor_voltage_v": "400"})
+    assert response.status_code == 302 and Reading.objects.count() == 1
+
+
+def test_a_nul_in_imported_notes_is_a_row_error_not_a_stuck_import(fan_installation):
+    result = import_check([import_row(fan_installation, notes="belt\x00squeals"), import_row(fan_installation)])
+    assert [(row, field) for row, field, _ in result.errors] == [(2, "notes")]
+    assert result.good["row"].tolist() == [3]
