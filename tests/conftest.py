@@ -124,7 +124,7 @@ def readings_flushable_on_sqlite(request):
     from django.db import connection
 
     if connection.vendor == "sqlite":
-        triggers = importlib.import_module("fleet.migrations.0005_rules_constraints_and_triggers")
+        triggers = importlib.import_module("fleet.migrations.0009_rules_constraints_and_triggers")
         with connection.constraint_checks_disabled(), connection.cursor() as cursor:
             cursor.execute("DROP TRIGGER IF EXISTS fleet_reading_no_delete")
             cursor.execute("DELETE FROM fleet_reading")
