@@ -1,11 +1,10 @@
 """The forecast track record page: stored back-tests only, bounded queries, who may start one.
 
-The fleets here are our own noise-free straight-line paths, built only so that a
-real back-test has crossings to score; the tests check that the page shows what
-the back-test stored, not the scores themselves.
+The fleets here (`straight_line_fleet`) exist only so that a real back-test has
+crossings to score; the tests check that the page shows what the back-test
+stored, not the scores themselves.
 """
 
-import datetime as dt
 import json
 import re
 
@@ -21,38 +20,10 @@ from fleet.models import Backtest, BandCalibration
 from fleet.services.backtest import run_backtest, start_backtest
 from fleet.templatetags.fleet_format import percent, signed_percent, thousands, times
 
-from .conftest import make_installation, make_motor, make_part, make_site, make_user, quarterly_readings
+from .conftest import make_user, straight_line_fleet
 
 pytestmark = pytest.mark.django_db
 NBSP = "\u00a0"
-
-
-def small_fleet(parts: int = 2, per_part: int = 6) -> None:
-    """Capacitors losing capacitance on straight lines at different rates, 13 quarterly readings each.
-
-    Odd-numbered parts are electrolytic start capacitors, so both dielectrics are scored.
-    """
-    start = timezone.now() - dt.timedelta(days=91 * 12)
-    site = make_site()
-    for p in range(parts):
-        electrolytic = p % 2 == 1
-        part = make_part(
-            rated_uf=(100.0 if electrolytic else 4.0) + 2 * p,
-            dielectric="electrolytic" if electrolytic else "film",
-            rated_voltage_v=330 if electrolytic else 450,
-            tolerance_minus_pct=5,
-        )
-        for k in range(per_part):
-            installation = make_installation(
-                motor=make_motor(site=site, with_circuit=False),
-                part=part,
-                role="start" if electrolytic else "run",
-                fitted_on=start.date() - dt.timedelta(days=30),
-            )
-            loss_per_quarter = 0.003 + 0.003 * k
-            quarterly_readings(
-                installation, start, [round(part.rated_uf * (1 - loss_per_quarter * i), 3) for i in range(13)]
-            )
 
 
 def finished_backtest() -> Backtest:
@@ -96,7 +67,7 @@ def test_a_running_back_test_shows_its_progress_and_refreshes(client, engineer):
 
 
 def test_while_a_new_run_goes_the_page_shows_the_last_finished_one(client, engineer):
-    small_fleet()
+    straight_line_fleet()
     done = finished_backtest()
     Backtest.objects.create(cutoffs=["2025-01-01", "2025-04-01"], done_cutoffs=0)
     client.force_login(engineer)
@@ -110,7 +81,7 @@ def test_while_a_new_run_goes_the_page_shows_the_last_finished_one(client, engin
 
 
 def test_a_finished_back_test_shows_its_stored_figures(client, engineer):
-    small_fleet()
+    straight_line_fleet()
     backtest = finished_backtest()
     results = backtest.results
     client.force_login(engineer)
@@ -155,10 +126,10 @@ def test_the_query_count_does_not_grow_with_the_number_of_parts(client, engineer
             assert client.get(reverse("track_record")).status_code == 200
         return len(captured)
 
-    small_fleet(parts=2)
+    straight_line_fleet(parts=2)
     finished_backtest()
     few = queries()
-    small_fleet(parts=6)
+    straight_line_fleet(parts=6)
     backtest = finished_backtest()
     assert len(backtest.results["pooled"]["calibrated"]["part"]) == 8
     assert queries() == few
@@ -168,7 +139,7 @@ def test_the_query_count_does_not_grow_with_the_number_of_parts(client, engineer
 # view answers; these tests commit for real to see that.
 @pytest.mark.django_db(transaction=True)
 def test_the_engineer_starts_a_back_test_and_sees_it_done(client, engineer):
-    small_fleet()
+    straight_line_fleet()
     client.force_login(engineer)
     response = client.post(reverse("track_record_run"))
     assert response.status_code == 302 and response["Location"] == reverse("track_record")
