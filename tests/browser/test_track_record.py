@@ -17,7 +17,7 @@ CHECK_LAYOUT = """() => {
     return {id: gd.id, set, box: gd.getBoundingClientRect().height,
             svg: Number(gd.querySelector('.main-svg').getAttribute('height')), plot: gd._fullLayout._size.h};
   });
-  const dates = [...document.querySelectorAll('td.nowrap')].map(td => {
+  const dates = [...document.querySelectorAll('.nowrap')].map(td => {
     const range = document.createRange();
     range.selectNodeContents(td);
     return range.getClientRects().length;
@@ -34,8 +34,8 @@ def check_layout(page, expect_scrolling_boxes: bool) -> None:
     for chart in layout["charts"]:
         assert chart["box"] == chart["svg"] == chart["set"], chart  # drawn at the set height, never a strip
         assert chart["plot"] >= 0.4 * chart["set"], chart  # the legend and titles leave room to plot
+    assert layout["dates"] and set(layout["dates"]) == {1}  # every date (and date-time) on one line
     assert layout["page"] <= layout["view"], layout  # no page-level sideways scroll
-    assert layout["dates"] and set(layout["dates"]) == {1}  # every date on one line
     assert any(layout["boxes"]) == expect_scrolling_boxes  # wide tables scroll inside their own box
 
 
