@@ -52,6 +52,7 @@ def test_with_no_back_test_the_page_says_so_and_offers_the_button_to_the_enginee
     assert "No back-test has run yet" in body
     assert "Run the back-test" in body and 'name="csrfmiddlewaretoken"' in body
     assert "Plotly.newPlot" not in body
+    assert "within 365 days, replace now, due soon or watch" in body  # the risk levels counted as flagged
     client.force_login(technician)
     body = client.get(reverse("track_record")).content.decode()
     assert "No back-test has run yet" in body and "Run the back-test" not in body

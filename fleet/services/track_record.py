@@ -66,7 +66,7 @@ def track_record() -> dict:
         "default_spread": settings.default_spread,
         "min_capacitors": settings.min_capacitors,
         "nominal_coverage": NOMINAL_COVERAGE,
-        "flagged_within": {days: " or ".join(levels) for days, levels in FLAGGED_WITHIN.items()},
+        "flagged_within": {days: _either(levels) for days, levels in FLAGGED_WITHIN.items()},
     }
     if shown is not None:
         page.update(_figures(shown.results))
@@ -135,3 +135,9 @@ def _calibration_in_force(settings: CalibrationSettings) -> list[dict]:
         }
         for row in BandCalibration.objects.order_by("family")
     ]
+
+
+def _either(words) -> str:
+    """('a', 'b', 'c') -> 'a, b or c'."""
+    words = list(words)
+    return " or ".join([", ".join(words[:-1]), words[-1]]) if len(words) > 1 else "".join(words)
