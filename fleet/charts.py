@@ -5,6 +5,8 @@ from __future__ import annotations
 import numpy as np
 import plotly.graph_objects as go
 
+from .engineering.backtest import QUANTILES
+
 INK = "#1d2a33"
 TREND = "#2563a8"
 BAND = "rgba(37, 99, 168, 0.15)"
@@ -126,3 +128,75 @@ def _styled(figure: go.Figure, height: int, **titles) -> dict:
     figure.update_xaxes(gridcolor=GRID)
     figure.update_yaxes(gridcolor=GRID)
     return figure.to_plotly_json()
+
+
+DEFAULT_BANDS = "#6b7280"
+CHART_HEIGHT_PX = 320
+
+
+def calibration_figure(observed_by_variant: dict[str, list[dict]]) -> dict:
+    """Observed against nominal share crossed by each forecast quantile, one line per band variant.
+
+    observed_by_variant: label -> [{nominal, observed, capacitors}] (shares 0..1, observed None
+    where no capacitor counted). A forecast that is calibrated lies on the diagonal.
+    """
+    figure = go.Figure()
+    figure.add_trace(
+        go.Scatter(
+            x=[0, 100],
+            y=[0, 100],
+            mode="lines",
+            line={"color": INK, "dash": "dot", "width": 1},
+            hoverinfo="skip",
+            showlegend=False,
+        )
+    )
+    figure.add_annotation(
+        x=30, y=30, text="nominal", showarrow=False, xanchor="left", yanchor="top", font={"color": INK, "size": 12}
+    )
+    for (label, points), color in zip(observed_by_variant.items(), (DEFAULT_BANDS, TREND), strict=False):
+        figure.add_trace(
+            go.Scatter(
+                x=[100 * p["nominal"] for p in points],
+                y=[None if p["observed"] is None else 100 * p["observed"] for p in points],
+                customdata=[p["capacitors"] for p in points],
+                mode="lines+markers",
+                line={"color": color, "width": 2},
+                marker={"color": color, "size": 9},
+                name=label,
+                hovertemplate="P%{x:.0f}: %{y:.0f} % crossed (of %{customdata} capacitors)<extra></extra>",
+            )
+        )
+    nominal = [100 * q for q in QUANTILES]
+    figure.update_xaxes(range=[0, 100], tickvals=nominal, ticktext=[f"P{q:.0f}" for q in nominal])
+    figure.update_yaxes(range=[0, 100], ticksuffix=" %")
+    return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="forecast date", yaxis_title="share crossed by it")
+
+
+def coverage_figure(cutoffs: list[str], coverage_by_variant: dict[str, list[float | None]], nominal: float) -> dict:
+    """Share of observed crossings inside the P10-P90 band at each cut-off, against the nominal share.
+
+    cutoffs: ISO dates; coverage_by_variant: label -> share (0..1, None where nothing crossed) per cut-off.
+    """
+    figure = go.Figure()
+    for (label, shares), color in zip(coverage_by_variant.items(), (DEFAULT_BANDS, TREND), strict=False):
+        figure.add_trace(
+            go.Scatter(
+                x=cutoffs,
+                y=[None if s is None else 100 * s for s in shares],
+                mode="lines+markers",
+                line={"color": color, "width": 2},
+                marker={"color": color, "size": 9},
+                name=label,
+                hovertemplate="%{x|%Y-%m-%d}: %{y:.0f} %<extra></extra>",
+            )
+        )
+    figure.add_hline(
+        y=100 * nominal,
+        line={"color": LIMIT, "dash": "dash"},
+        annotation_text=f"nominal {100 * nominal:.0f} %",
+        annotation_position="top left",
+    )
+    figure.update_xaxes(type="date", tickformat="%Y-%m")
+    figure.update_yaxes(range=[0, 100], ticksuffix=" %")
+    return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="cut-off", yaxis_title="crossings inside P10-P90")

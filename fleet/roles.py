@@ -23,7 +23,7 @@ VIEW_ALL = [
 ROLE_PERMISSIONS = {
     TECHNICIAN: VIEW_ALL + ["add_reading", "add_fittedcapacitor", "change_fittedcapacitor", "change_workorder"],
     PLANNER: VIEW_ALL + ["add_workorder", "change_workorder", "change_motor", "add_refitrun"],
-    RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun"],
+    RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun", "add_backtest"],
     ADMINISTRATOR: None,  # every permission of the fleet app, plus users and groups
 }
 

@@ -1,7 +1,7 @@
 from django.contrib.auth.decorators import login_not_required
 from django.urls import path, register_converter
 
-from . import api, views
+from . import api, views, views_track_record
 
 
 class StoredCode:
@@ -46,6 +46,8 @@ urlpatterns = [
     path("work-orders/<code:site_code>/<str:day>/", views.visit_sheet, name="visit_sheet"),
     path("refits/", views.refits, name="refits"),
     path("refits/start/", views.refit_start, name="refit_start"),
+    path("forecast/track-record/", views_track_record.track_record, name="track_record"),
+    path("forecast/track-record/run/", views_track_record.track_record_run, name="track_record_run"),
     path("imports/", views.imports_home, name="imports"),
     path("imports/<int:job_id>/", views.import_detail, name="import_detail"),
     path("imports/<int:job_id>/rows-to-fix.csv", views.import_rejected, name="import_rejected"),

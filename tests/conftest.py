@@ -72,6 +72,32 @@ def quarterly_readings(installation, start: dt.datetime, values_uf, **kwargs) ->
     ]
 
 
+def straight_line_fleet(parts: int = 2, per_part: int = 6) -> None:
+    """Our own noise-free fleet for back-tests: straight-line losses at different rates, 13 quarterly
+    readings each ending about now; odd-numbered parts are electrolytic start capacitors."""
+    start = timezone.now() - dt.timedelta(days=91 * 12)
+    site = make_site()
+    for p in range(parts):
+        electrolytic = p % 2 == 1
+        part = make_part(
+            rated_uf=(100.0 if electrolytic else 4.0) + 2 * p,
+            dielectric="electrolytic" if electrolytic else "film",
+            rated_voltage_v=330 if electrolytic else 450,
+            tolerance_minus_pct=5,
+        )
+        for k in range(per_part):
+            installation = make_installation(
+                motor=make_motor(site=site, with_circuit=False),
+                part=part,
+                role="start" if electrolytic else "run",
+                fitted_on=start.date() - dt.timedelta(days=30),
+            )
+            loss_per_quarter = 0.003 + 0.003 * k
+            quarterly_readings(
+                installation, start, [round(part.rated_uf * (1 - loss_per_quarter * i), 3) for i in range(13)]
+            )
+
+
 def make_user(role: str, username: str | None = None) -> User:
     user = User.objects.create_user(
         username=username or f"{role.split()[0]}{next(_serial)}", password="a-long-test-password"
