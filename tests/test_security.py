@@ -209,6 +209,14 @@ def test_no_template_has_an_inline_event_handler():
         assert not re.search(r"<[^>]+\son[a-z]+=", template.read_text()), template
 
 
+def test_every_inline_script_in_a_template_carries_the_nonce():
+    """A page added later must not lose its charts to the policy (the track record page once did)."""
+    for template in (ROOT / "templates").rglob("*.html"):
+        for attributes in re.findall(r"<script(?![^>]*\bsrc=)([^>]*)>", template.read_text()):
+            if "application/json" not in attributes:
+                assert "request.csp_nonce" in attributes, (template, attributes)
+
+
 def production_settings(**env) -> dict:
     """Settings as a production process reads them from `env`."""
     code = (

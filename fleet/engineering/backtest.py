@@ -48,10 +48,19 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
 
 
 def first_crossing_day(group, day, below, n_groups):
-    """Day of each capacitor's first later reading below its limit (nan: none)."""
+    """Day each capacitor was first seen below its limit (nan: not seen).
+
+    Dated midway between its first reading below and the reading before it (or
+    day 0, the cut-off): the path crossed somewhere in that interval, and the
+    first reading below alone would date every crossing up to an interval late.
+    """
+    group = np.asarray(group, np.int64)
+    day = np.asarray(day, float)
     first = np.full(n_groups, np.inf)
-    np.minimum.at(first, np.asarray(group, np.int64), np.where(np.asarray(below, bool), day, np.inf))
-    return np.where(np.isfinite(first), first, np.nan)
+    np.minimum.at(first, group, np.where(np.asarray(below, bool), day, np.inf))
+    previous = np.zeros(n_groups)
+    np.maximum.at(previous, group, np.where(day < first[group], day, 0.0))
+    return np.where(np.isfinite(first), 0.5 * (previous + first), np.nan)
 
 
 def score(days, risk, crossed_day, followed_days, horizons=(90, 365)) -> dict:

@@ -195,13 +195,17 @@ def calibrated_crossing_quantiles(
     fit's plus (spread x)^2 + (extra_sd d)^2. P(crossed by t0 + d) =
     Phi((L - mean) / sd) is evaluated on a grid of d up to each capacitor's
     horizon (denser near now), made non-decreasing, and each quantile read off
-    by linear interpolation. A quantile already reached at d = 0 gives t0 (or
-    the closed-form crossing before it when the fit's own path is past); one
-    never reached gives inf. Shape (len(probabilities), G).
+    by linear interpolation. `probabilities` are the levels, (Q,) or (Q, G)
+    (recalibrated levels differ per family). A quantile already reached at
+    d = 0 gives t0 (or the closed-form crossing before it when the fit's own path
+    is past); one never reached gives inf. Shape (Q, G).
     """
     terms = np.asarray(terms, float)
-    horizon = np.broadcast_to(np.asarray(horizon_stress_hours, float), fit.intercept.shape)
-    limit_fraction = np.broadcast_to(np.asarray(limit_fraction, float), fit.intercept.shape)
+    n = len(fit.intercept)
+    horizon = np.broadcast_to(np.asarray(horizon_stress_hours, float), (n,))
+    limit_fraction = np.broadcast_to(np.asarray(limit_fraction, float), (n,))
+    levels = np.asarray(probabilities, float)
+    levels = np.broadcast_to(levels[:, None] if levels.ndim == 1 else levels, (len(levels), n))
     block = 20_000  # capacitors at a time: the grid is (steps x block)
     parts = [
         _grid_quantiles(
@@ -209,12 +213,19 @@ def calibrated_crossing_quantiles(
             limit_fraction[start : start + block],
             terms[:, start : start + block],
             horizon[start : start + block],
-            probabilities,
+            levels[:, start : start + block],
             steps,
         )
-        for start in range(0, max(len(fit.intercept), 1), block)
+        for start in range(0, n, block)
     ]
-    return np.concatenate(parts, axis=1) if parts else np.zeros((len(probabilities), 0))
+    return np.concatenate(parts, axis=1) if parts else np.zeros((len(levels), 0))
+
+
+def calibrated_crossing_probability(fit: TrendFit, limit_fraction, terms, stress_hours_ahead) -> np.ndarray:
+    """P(crossed by t0 + d) of each calibrated path, for d stress hours ahead: (K, G) or (G,)."""
+    ahead = np.asarray(stress_hours_ahead, float)
+    probability = _probability(fit, np.asarray(limit_fraction, float), np.asarray(terms, float), np.atleast_2d(ahead))
+    return probability if ahead.ndim == 2 else probability[0]
 
 
 def _take(fit: TrendFit, rows: slice) -> TrendFit:
@@ -228,27 +239,32 @@ def _take(fit: TrendFit, rows: slice) -> TrendFit:
     return dataclasses.replace(fit, **per_capacitor)
 
 
-def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, probabilities, steps):
+def _probability(fit, limit_fraction, terms, ahead):
+    """Phi((L - mean) / sd) of the calibrated path at `ahead` (K, G) stress hours past t0."""
     from scipy.special import ndtr
 
     bias, spread, extra_slope, extra_sd, acceleration = terms
-    limit = fit.to_z(np.asarray(limit_fraction, float))
-    t0 = fit.stress_hours_now
+    limit = fit.to_z(limit_fraction)
     m0, m1 = fit.intercept, fit.slope_per_hour
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
-    horizon = np.maximum(np.asarray(horizon_stress_hours, float), 1.0)
-    ahead = horizon[None, :] * (np.linspace(0.0, 1.0, steps) ** 2)[:, None]  # (K, G)
-    t = t0[None, :] + ahead
-    own = m1[None, :] * ahead
+    t = fit.stress_hours_now + ahead
+    own = m1 * ahead
     mean = m0 + m1 * t + (bias + acceleration * ahead) * own + extra_slope * ahead
     variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * ahead) ** 2
     with np.errstate(invalid="ignore", divide="ignore"):
-        probability = ndtr((limit - mean) / np.sqrt(np.maximum(variance, 1e-300)))
-    probability = np.maximum.accumulate(np.nan_to_num(probability, nan=0.0), axis=0)
-    before = crossing_quantiles(fit, limit_fraction, probabilities)  # where the fit itself is already past
+        return np.nan_to_num(ndtr((limit - mean) / np.sqrt(np.maximum(variance, 1e-300))), nan=0.0)
+
+
+def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, levels, steps):
+    t0 = fit.stress_hours_now
+    horizon = np.maximum(np.asarray(horizon_stress_hours, float), 1.0)
+    ahead = horizon[None, :] * (np.linspace(0.0, 1.0, steps) ** 2)[:, None]  # (K, G)
+    probability = np.maximum.accumulate(_probability(fit, limit_fraction, terms, ahead), axis=0)
+    nominal = tuple(float(np.median(row)) if row.size else 0.5 for row in levels)
+    before = crossing_quantiles(fit, limit_fraction, nominal)  # where the fit itself is already past
     rows = []
     columns = np.arange(probability.shape[1])
-    for k, p in enumerate(probabilities):
+    for k, p in enumerate(levels):
         reached = probability >= p
         first = np.argmax(reached, axis=0)
         never = ~reached.any(axis=0)
@@ -262,3 +278,39 @@ def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, probabilit
         result = np.where(never, np.inf, t0 + d)
         rows.append(np.where((first == 0) & ~never, np.minimum(before[k], t0), result))
     return np.stack(rows)
+
+
+def recalibrated_levels(
+    forecast_probability, event, family, n_families: int, nominal=(0.1, 0.5, 0.9), min_events: int = 20
+) -> np.ndarray:
+    """The forecast levels that held each nominal share of crossings in back-tests, per family.
+
+    forecast_probability: the forecast's own P(crossed by then), taken at the
+    observed crossing (event) or at the end of follow-up (censored), one per
+    back-tested forecast. If the forecasts were calibrated these values would be
+    uniform; their distribution, estimated with the Kaplan-Meier product limit
+    (censored values only say "above this"), maps each nominal level q to the
+    level whose quantile date a share q of capacitors had crossed by: the
+    recalibration of quantiles by their probability integral transform
+    (Kuleshov, Fenner and Ermon, ICML 2018; from memory), with right-censoring.
+    Families with fewer than `min_events` crossings, or whose curve never
+    reaches a level, keep the nominal one. Shape (len(nominal), F).
+    """
+    u = np.clip(np.asarray(forecast_probability, float), 0.0, 1.0)
+    event = np.asarray(event, bool)
+    family = np.asarray(family, np.int64)
+    levels = np.tile(np.asarray(nominal, float)[:, None], (1, n_families))
+    for f in range(n_families):  # a handful of families, not capacitors
+        mine = (family == f) & np.isfinite(u)
+        if event[mine].sum() < min_events:
+            continue
+        order = np.argsort(u[mine], kind="stable")
+        values, events = u[mine][order], event[mine][order]
+        at_risk = len(values) - np.arange(len(values))
+        survival = np.cumprod(np.where(events, 1.0 - 1.0 / at_risk, 1.0))
+        crossed = 1.0 - survival
+        for k, q in enumerate(nominal):
+            index = np.searchsorted(crossed, q, side="left")
+            if index < len(values):
+                levels[k, f] = float(np.clip(values[index], 1e-4, 1.0 - 1e-4))
+    return np.sort(levels, axis=0)

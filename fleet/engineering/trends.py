@@ -33,6 +33,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from scipy.special import ndtri
 
 from .capacitor import acceleration_factor, normalise_to_25c
@@ -170,6 +171,23 @@ def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_gro
     return tau, rate
 
 
+def _fill_per_group(group, values, n_groups):
+    """Missing (non-finite) values replaced by the median of the same capacitor's others.
+
+    A capacitor sits at its operating voltage and temperature whether or not a
+    reading measured them: a meter reading after isolation records no capacitor
+    voltage, and must not count as stress at the rated voltage between two
+    in-circuit readings at 80 % of it. A capacitor with none keeps nan (the
+    reference conditions).
+    """
+    values = np.asarray(values, float)
+    known = np.isfinite(values)
+    if known.all() or not known.any():
+        return values
+    median = pd.Series(values[known]).groupby(group[known]).median().reindex(range(n_groups)).to_numpy(float)
+    return np.where(known, values, median[group])
+
+
 def _group_sums(group, x, z, weight, n_groups):
     def s(values):
         return np.bincount(group, weights=weight * values, minlength=n_groups)
@@ -232,8 +250,10 @@ def fit_trends(
     tau, rate = stress_hours(
         g,
         t,
-        temperature,
-        np.asarray(voltage_v, float)[order],
+        _fill_per_group(g, temperature, n_groups),
+        _fill_per_group(
+            g, np.where(np.asarray(voltage_v, float)[order] > 0, np.asarray(voltage_v, float)[order], np.nan), n_groups
+        ),
         np.asarray(rated_voltage_v, float)[g],
         n_groups,
         settings,
