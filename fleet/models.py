@@ -685,15 +685,15 @@ class BandCalibration(models.Model):
     slope_bias = models.FloatField(help_text="Future slope = fitted slope x (1 + bias) + extra slope")
     slope_spread = models.FloatField(help_text="Relative standard deviation of the future slope")
     extra_slope_per_h = models.FloatField(
-        default=0.0, help_text="Common extra slope, fraction of rated per stress hour"
+        default=0.0, help_text="Common extra slope, fraction of rated per calendar hour"
     )
-    extra_sd_per_h = models.FloatField(default=0.0, help_text="Its standard deviation, per stress hour")
+    extra_sd_per_h = models.FloatField(default=0.0, help_text="Its standard deviation, per calendar hour")
     acceleration_per_h = models.FloatField(
-        default=0.0, help_text="Relative growth of a capacitor's own slope per stress hour ahead"
+        default=0.0, help_text="Relative growth of a capacitor's own slope per calendar hour ahead"
     )
-    p10_level = models.FloatField(default=0.1, help_text="Forecast level reported as P10 (recalibrated)")
-    p50_level = models.FloatField(default=0.5, help_text="Forecast level reported as P50 (recalibrated)")
-    p90_level = models.FloatField(default=0.9, help_text="Forecast level reported as P90 (recalibrated)")
+    curvature_per_h2 = models.FloatField(
+        default=0.0, help_text="Common bend of the path, fraction of rated per calendar hour squared"
+    )
     capacitors = models.PositiveIntegerField(default=0)
     residuals = models.PositiveIntegerField(default=0)
     backtest = models.ForeignKey(Backtest, null=True, on_delete=models.SET_NULL, related_name="+")
@@ -707,11 +707,6 @@ class BandCalibration(models.Model):
             models.CheckConstraint(condition=Q(slope_bias__gt=-1, slope_bias__lt=100), name="calibration_bias_sane"),
             models.CheckConstraint(
                 condition=Q(extra_sd_per_h__gte=0, extra_sd_per_h__lt=1), name="calibration_extra_sane"
-            ),
-            models.CheckConstraint(
-                condition=Q(p10_level__gt=0, p50_level__gte=F("p10_level"), p90_level__gte=F("p50_level"))
-                & Q(p90_level__lt=1),
-                name="calibration_levels_ordered",
             ),
         ]
 

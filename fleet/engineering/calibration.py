@@ -10,18 +10,19 @@ temperature correction is imperfect. Those errors are measured, not assumed:
    memory): at past cut-offs the fleet is refitted with only the readings taken
    before, and each later reading is compared with the path projected to its
    date at the long-run stress rate.
-2. The error e of a later reading, d projected stress hours after the
-   capacitor's newest reading, is modelled as
-       e = bias x + acceleration x d + extra_slope d + eps,
-       var(eps) = V + (spread x)^2 + (extra_sd d)^2,
+2. The error e of a later reading, h calendar hours (d stress hours) after
+   the capacitor's newest reading, is modelled as
+       e = bias x + acceleration x h + extra_slope h + curvature h^2 + eps,
+       var(eps) = V + (spread x)^2 + (extra_sd h)^2,
    with x = slope d the capacitor's own projected change and V the fit's own
    variance (path and meter). `acceleration` is the relative growth of a
    capacitor's own slope with time ahead (an exponential path a (exp(t/T) - 1)
-   gives 1 / 2T to first order); `extra_slope` and `extra_sd` carry what its own
-   slope cannot know, such as a path still flat today that bends later. Per
-   family of parts (dielectric): the three mean terms by weighted least squares,
-   the two spreads by the method of moments (the excess squared error
-   regressed on x^2 and d^2).
+   gives 1 / 2T to first order); `extra_slope`, `curvature` and `extra_sd` carry
+   what its own slope cannot know, such as a path still flat today that bends
+   later, common to the family and so reckoned in calendar time. Per family of
+   parts (dielectric): the four mean terms by weighted least squares, the two
+   spreads by the method of moments (the excess squared error regressed on
+   x^2 and h^2).
 3. The calibrated forecast's path beyond the newest reading is the fit's plus
    those terms, its variance the fit's plus theirs; the crossing quantiles are
    then found on a grid of times ahead (`calibrated_crossing_quantiles`). This
@@ -50,7 +51,9 @@ class CalibrationSettings:
     default_spread: float = 0.35
     min_spread: float = 0.10  # never claim to know a future slope better than +/-10 %
     bias_range: tuple[float, float] = (-0.5, 3.0)
-    acceleration_range: tuple[float, float] = (0.0, 1e-3)  # per stress hour ahead: slopes never assumed to ease
+    acceleration_range: tuple[float, float] = (0.0, 1e-3)  # per hour ahead: slopes never assumed to ease
+    curvature_range: tuple[float, float] = (-1e-8, 0.0)  # per hour squared: paths never assumed to bend up
+    min_bend_span_h: float = 8766.0  # a year of later readings before acceleration and curvature are estimated
     max_spread: float = 3.0
     min_capacitors: int = 20  # with later readings, per family, before its own figures are used
     jump_fraction: float = 0.25  # a later reading this far off is a slip or a failure, not ageing
@@ -61,21 +64,23 @@ class ForecastCalibration:
     """Per family (length F): the calibration's four numbers, and what stood behind them.
 
     extra_slope and extra_sd are in z units (fraction of rated, or its log) per
-    stress hour; acceleration per stress hour ahead.
+    calendar hour, curvature per calendar hour squared, acceleration per
+    calendar hour ahead.
     """
 
     slope_bias: np.ndarray
     slope_spread: np.ndarray
     extra_slope: np.ndarray
     extra_sd: np.ndarray
-    acceleration: np.ndarray  # per stress hour ahead
+    acceleration: np.ndarray
+    curvature: np.ndarray
     capacitors: np.ndarray
     residuals: np.ndarray
 
     def per_capacitor(self, family) -> np.ndarray:
-        """(5, G) of bias, spread, extra slope, extra sd and acceleration per capacitor."""
+        """(6, G) of bias, spread, extra slope, extra sd, acceleration and curvature per capacitor."""
         family = np.asarray(family, np.int64)
-        names = ("slope_bias", "slope_spread", "extra_slope", "extra_sd", "acceleration")
+        names = ("slope_bias", "slope_spread", "extra_slope", "extra_sd", "acceleration", "curvature")
         return np.stack([np.asarray(getattr(self, name), float)[family] for name in names])
 
 
@@ -87,6 +92,7 @@ def default_calibration(n_families: int, settings: CalibrationSettings | None = 
         extra_slope=np.zeros(n_families),
         extra_sd=np.zeros(n_families),
         acceleration=np.zeros(n_families),
+        curvature=np.zeros(n_families),
         capacitors=np.zeros(n_families, int),
         residuals=np.zeros(n_families, int),
     )
@@ -106,7 +112,7 @@ def estimate_calibration(
     family,
     capacitor,
     projected_change,
-    projected_stress_hours,
+    projected_hours,
     error,
     known_variance,
     n_families: int,
@@ -116,7 +122,7 @@ def estimate_calibration(
 
     All arrays are per later reading: `family` (0..F-1), `capacitor` (any id),
     `projected_change` x (z units, from the newest fitted reading to this one),
-    `projected_stress_hours` d (the same span in stress hours), `error` e =
+    `projected_hours` h (the same span in calendar hours), `error` e =
     observed z minus projected z, `known_variance` the fit's own variance of
     that reading (path plus noise). Families with fewer than `min_capacitors`
     distinct capacitors keep the defaults.
@@ -124,7 +130,7 @@ def estimate_calibration(
     settings = settings or CalibrationSettings()
     family = np.asarray(family, np.int64)
     x = np.asarray(projected_change, float)
-    d = np.asarray(projected_stress_hours, float)
+    d = np.asarray(projected_hours, float)
     e = np.asarray(error, float)
     v = np.asarray(known_variance, float)
     ok = np.isfinite(x) & np.isfinite(d) & np.isfinite(e) & np.isfinite(v) & (v > 0) & (d > 0)
@@ -142,19 +148,25 @@ def estimate_calibration(
 
     spread2 = np.full(n_families, settings.default_spread**2)
     extra2 = np.zeros(n_families)
-    regressors = np.stack([x, x * d, d])  # bias, acceleration, extra slope
-    coefficients = np.zeros((3, n_families))
+    # The terms that bend the path need errors seen far enough ahead: a family whose
+    # later readings reach less than `min_bend_span_h` ahead keeps them at zero.
+    reach = np.zeros(n_families)
+    np.maximum.at(reach, family, d)
+    bends = (reach >= settings.min_bend_span_h)[family]
+    regressors = np.stack([x, np.where(bends, x * d, 0.0), d, np.where(bends, d * d, 0.0)])
+    coefficients = np.zeros((len(regressors), n_families))
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         for _ in range(4):  # mean terms with the current spreads, then the spreads about those terms
             w = 1.0 / (v + spread2[family] * x * x + extra2[family] * d * d)
             normal = np.stack([[sums(w * a * b) for b in regressors] for a in regressors]).transpose(2, 0, 1)
             rhs = np.stack([sums(w * a * e) for a in regressors]).T
             scale = np.sqrt(np.abs(np.einsum("fii->fi", normal))) + 1e-300
-            scaled = normal / scale[:, :, None] / scale[:, None, :] + 1e-9 * np.eye(3)
+            scaled = normal / scale[:, :, None] / scale[:, None, :] + 1e-9 * np.eye(len(regressors))
             coefficients = (np.linalg.solve(scaled, (rhs / scale)[..., None])[..., 0] / scale).T
             coefficients = np.nan_to_num(coefficients)
             coefficients[0] = np.clip(coefficients[0], *settings.bias_range)
             coefficients[1] = np.clip(coefficients[1], *settings.acceleration_range)
+            coefficients[3] = np.clip(coefficients[3], *settings.curvature_range)
             excess = (e - np.einsum("kn,kn->n", coefficients[:, family], regressors)) ** 2 - v
             norm = np.sqrt(sums(x**4) / np.maximum(sums(d**4), 1e-300))
             s2, k2 = _solve_2x2(
@@ -166,7 +178,7 @@ def estimate_calibration(
             )
             spread2 = np.clip(s2, settings.min_spread**2, settings.max_spread**2)
             extra2 = np.maximum(k2 * norm, 0.0)
-    bias, acceleration, extra = coefficients
+    bias, acceleration, extra, curvature = coefficients
     enough = capacitors >= settings.min_capacitors
     return ForecastCalibration(
         slope_bias=np.where(enough, bias, result.slope_bias),
@@ -174,6 +186,7 @@ def estimate_calibration(
         extra_slope=np.where(enough, extra, result.extra_slope),
         extra_sd=np.where(enough, np.sqrt(extra2), result.extra_sd),
         acceleration=np.where(enough, acceleration, result.acceleration),
+        curvature=np.where(enough, curvature, result.curvature),
         capacitors=capacitors,
         residuals=residuals,
     )
@@ -189,23 +202,22 @@ def calibrated_crossing_quantiles(
 ) -> np.ndarray:
     """Stress hours (from tau = 0) at which each calibrated path reaches its limit, per quantile.
 
-    terms: (5, G) from `ForecastCalibration.per_capacitor`. For d hours ahead
-    of t0 (the newest reading) the path's mean is the fit's plus
-    (bias + acceleration d) x + extra_slope d, x = slope d, and its variance the
-    fit's plus (spread x)^2 + (extra_sd d)^2. P(crossed by t0 + d) =
+    terms: (6, G) from `ForecastCalibration.per_capacitor`. For d stress hours
+    (h = d / stress rate calendar hours) ahead of t0, the newest reading, the
+    path's mean is the fit's plus (bias + acceleration h) x + extra_slope h +
+    curvature h^2, x = slope d, and its variance the fit's plus (spread x)^2 +
+    (extra_sd h)^2. P(crossed by t0 + d) =
     Phi((L - mean) / sd) is evaluated on a grid of d up to each capacitor's
     horizon (denser near now), made non-decreasing, and each quantile read off
-    by linear interpolation. `probabilities` are the levels, (Q,) or (Q, G)
-    (recalibrated levels differ per family). A quantile already reached at
+    by linear interpolation. A quantile already reached at
     d = 0 gives t0 (or the closed-form crossing before it when the fit's own path
-    is past); one never reached gives inf. Shape (Q, G).
+    is past); one never reached gives inf. Shape (len(probabilities), G).
     """
     terms = np.asarray(terms, float)
     n = len(fit.intercept)
     horizon = np.broadcast_to(np.asarray(horizon_stress_hours, float), (n,))
     limit_fraction = np.broadcast_to(np.asarray(limit_fraction, float), (n,))
     levels = np.asarray(probabilities, float)
-    levels = np.broadcast_to(levels[:, None] if levels.ndim == 1 else levels, (len(levels), n))
     block = 20_000  # capacitors at a time: the grid is (steps x block)
     parts = [
         _grid_quantiles(
@@ -213,19 +225,12 @@ def calibrated_crossing_quantiles(
             limit_fraction[start : start + block],
             terms[:, start : start + block],
             horizon[start : start + block],
-            levels[:, start : start + block],
+            levels,
             steps,
         )
         for start in range(0, n, block)
     ]
     return np.concatenate(parts, axis=1) if parts else np.zeros((len(levels), 0))
-
-
-def calibrated_crossing_probability(fit: TrendFit, limit_fraction, terms, stress_hours_ahead) -> np.ndarray:
-    """P(crossed by t0 + d) of each calibrated path, for d stress hours ahead: (K, G) or (G,)."""
-    ahead = np.asarray(stress_hours_ahead, float)
-    probability = _probability(fit, np.asarray(limit_fraction, float), np.asarray(terms, float), np.atleast_2d(ahead))
-    return probability if ahead.ndim == 2 else probability[0]
 
 
 def _take(fit: TrendFit, rows: slice) -> TrendFit:
@@ -234,7 +239,7 @@ def _take(fit: TrendFit, rows: slice) -> TrendFit:
 
     per_capacitor = {
         name: getattr(fit, name)[rows]
-        for name in ("model", "intercept", "slope_per_hour", "covariance", "stress_hours_now")
+        for name in ("model", "intercept", "slope_per_hour", "covariance", "stress_hours_now", "stress_rate")
     }
     return dataclasses.replace(fit, **per_capacitor)
 
@@ -243,14 +248,15 @@ def _probability(fit, limit_fraction, terms, ahead):
     """Phi((L - mean) / sd) of the calibrated path at `ahead` (K, G) stress hours past t0."""
     from scipy.special import ndtr
 
-    bias, spread, extra_slope, extra_sd, acceleration = terms
+    bias, spread, extra_slope, extra_sd, acceleration, curvature = terms
     limit = fit.to_z(limit_fraction)
     m0, m1 = fit.intercept, fit.slope_per_hour
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
     t = fit.stress_hours_now + ahead
+    hours = ahead / np.maximum(fit.stress_rate, 1e-9)
     own = m1 * ahead
-    mean = m0 + m1 * t + (bias + acceleration * ahead) * own + extra_slope * ahead
-    variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * ahead) ** 2
+    mean = m0 + m1 * t + (bias + acceleration * hours) * own + extra_slope * hours + curvature * hours**2
+    variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * hours) ** 2
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.nan_to_num(ndtr((limit - mean) / np.sqrt(np.maximum(variance, 1e-300))), nan=0.0)
 
@@ -260,8 +266,7 @@ def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, levels, st
     horizon = np.maximum(np.asarray(horizon_stress_hours, float), 1.0)
     ahead = horizon[None, :] * (np.linspace(0.0, 1.0, steps) ** 2)[:, None]  # (K, G)
     probability = np.maximum.accumulate(_probability(fit, limit_fraction, terms, ahead), axis=0)
-    nominal = tuple(float(np.median(row)) if row.size else 0.5 for row in levels)
-    before = crossing_quantiles(fit, limit_fraction, nominal)  # where the fit itself is already past
+    before = crossing_quantiles(fit, limit_fraction, tuple(levels))  # where the fit itself is already past
     rows = []
     columns = np.arange(probability.shape[1])
     for k, p in enumerate(levels):
@@ -278,39 +283,3 @@ def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, levels, st
         result = np.where(never, np.inf, t0 + d)
         rows.append(np.where((first == 0) & ~never, np.minimum(before[k], t0), result))
     return np.stack(rows)
-
-
-def recalibrated_levels(
-    forecast_probability, event, family, n_families: int, nominal=(0.1, 0.5, 0.9), min_events: int = 20
-) -> np.ndarray:
-    """The forecast levels that held each nominal share of crossings in back-tests, per family.
-
-    forecast_probability: the forecast's own P(crossed by then), taken at the
-    observed crossing (event) or at the end of follow-up (censored), one per
-    back-tested forecast. If the forecasts were calibrated these values would be
-    uniform; their distribution, estimated with the Kaplan-Meier product limit
-    (censored values only say "above this"), maps each nominal level q to the
-    level whose quantile date a share q of capacitors had crossed by: the
-    recalibration of quantiles by their probability integral transform
-    (Kuleshov, Fenner and Ermon, ICML 2018; from memory), with right-censoring.
-    Families with fewer than `min_events` crossings, or whose curve never
-    reaches a level, keep the nominal one. Shape (len(nominal), F).
-    """
-    u = np.clip(np.asarray(forecast_probability, float), 0.0, 1.0)
-    event = np.asarray(event, bool)
-    family = np.asarray(family, np.int64)
-    levels = np.tile(np.asarray(nominal, float)[:, None], (1, n_families))
-    for f in range(n_families):  # a handful of families, not capacitors
-        mine = (family == f) & np.isfinite(u)
-        if event[mine].sum() < min_events:
-            continue
-        order = np.argsort(u[mine], kind="stable")
-        values, events = u[mine][order], event[mine][order]
-        at_risk = len(values) - np.arange(len(values))
-        survival = np.cumprod(np.where(events, 1.0 - 1.0 / at_risk, 1.0))
-        crossed = 1.0 - survival
-        for k, q in enumerate(nominal):
-            index = np.searchsorted(crossed, q, side="left")
-            if index < len(values):
-                levels[k, f] = float(np.clip(values[index], 1e-4, 1.0 - 1e-4))
-    return np.sort(levels, axis=0)

@@ -167,21 +167,18 @@ def _stored_priors(part_ids) -> PartPriors:
     )
 
 
-QUANTILE_LEVELS = (0.1, 0.5, 0.9)
 CALIBRATION_FIELDS = (
     "slope_bias",
     "slope_spread",
     "extra_slope_per_h",
     "extra_sd_per_h",
     "acceleration_per_h",
-    "p10_level",
-    "p50_level",
-    "p90_level",
+    "curvature_per_h2",
 )
 
 
 def stored_calibration() -> dict[str, tuple[float, ...]]:
-    """Per dielectric: the five projection terms and the three recalibrated quantile levels."""
+    """Per dielectric: the six projection terms of the latest back-test's calibration."""
     rows = BandCalibration.objects.values_list("family", *CALIBRATION_FIELDS)
     return {family: tuple(values) for family, *values in rows}
 
@@ -277,7 +274,7 @@ class Assessed:
     set_aside: np.ndarray
     figures_now: list
     figures_new: list
-    terms: np.ndarray  # (5, G) calibration terms of each capacitor's projection
+    terms: np.ndarray  # (6, G) calibration terms of each capacitor's projection
 
 
 def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
@@ -389,19 +386,15 @@ def assess(
         & (fit.readings_used > 0)
     )
     set_aside = np.where(finite, "", "no usable trend: the readings give no finite fit; check them")
-    fallback = (*default_calibration(1).per_capacitor([0])[:, 0], *QUANTILE_LEVELS)
-    table = np.array([calibration.get(d, fallback) for d in inst["dielectric"]], float).reshape(-1, 8).T
-    terms, levels = table[:5], table[5:]
+    fallback = tuple(default_calibration(1).per_capacitor([0])[:, 0])
+    terms = np.array([calibration.get(d, fallback) for d in inst["dielectric"]], float).reshape(-1, 6).T
     horizon_stress_hours = fit.stress_rate * PlanningSettings().horizon_days * 24.0
     newest_at = pd.to_datetime(readings[~readings["superseded"]].groupby("installation_id")["taken_at"].max(), utc=True)
     newest_at = newest_at.reindex(inst.index)
     elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
     effective = np.where(limit_used, limit_fraction, np.nan)
     quantiles = np.stack(
-        [
-            calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours, levels)
-            for k in range(len(ALL_LIMITS))
-        ],
+        [calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours) for k in range(len(ALL_LIMITS))],
         axis=1,
     )
     with np.errstate(invalid="ignore", over="ignore"):

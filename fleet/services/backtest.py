@@ -21,15 +21,11 @@ from django.db import transaction
 from django.utils import timezone
 
 from fleet.engineering.backtest import first_crossing_day, projection_errors, score
-from fleet.engineering.calibration import (
-    calibrated_crossing_probability,
-    estimate_calibration,
-    recalibrated_levels,
-)
+from fleet.engineering.calibration import estimate_calibration
 from fleet.engineering.trends import MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
-from .assessments import CALIBRATION_FIELDS, QUANTILE_LEVELS, _hours_since_fitting, assess
+from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess
 from .selectors import installations_frame, readings_frame
 
 VARIANTS = ("default", "calibrated")
@@ -85,42 +81,19 @@ def run_backtest(backtest_id: int) -> Backtest | None:
     return backtest
 
 
-CURVE_DAYS = np.arange(0.0, 3 * 365.0 + 1, 15.0)  # a back-tested forecast's P(crossed) is kept on these days
-
-
-def _known_at(curves: pd.DataFrame, cutoff: pd.Timestamp, days_known=None):
-    """Each stored forecast's P(crossed) at its crossing (event) or at the end of what
-    was known by `cutoff` (censored): the inputs of the level recalibration."""
-    known = ((cutoff - curves["cutoff"]) / pd.Timedelta(days=1)).to_numpy(float) if days_known is None else days_known
-    limit = np.minimum(curves["followed_days"].to_numpy(float), known)
-    crossed = curves["crossed_day"].to_numpy(float)
-    event = np.isfinite(crossed) & (crossed <= limit)
-    at = np.where(event, crossed, limit)
-    grid = np.stack(curves["curve"].to_numpy()) if len(curves) else np.zeros((0, len(CURVE_DAYS)))
-    index = np.clip(np.searchsorted(CURVE_DAYS, at), 1, len(CURVE_DAYS) - 1)
-    share = np.clip((at - CURVE_DAYS[index - 1]) / (CURVE_DAYS[index] - CURVE_DAYS[index - 1]), 0.0, 1.0)
-    rows = np.arange(len(at))
-    u = grid[rows, index - 1] + share * (grid[rows, index] - grid[rows, index - 1]) if len(at) else np.zeros(0)
-    return u, event
-
-
-def _estimate(errors: pd.DataFrame, curves: pd.DataFrame, n_families: int, cutoff: pd.Timestamp | None):
-    """Projection terms and quantile levels per family from what was known by `cutoff` (None: all)."""
+def _estimate(errors: pd.DataFrame, n_families: int, cutoff: pd.Timestamp | None):
+    """Projection terms per family from the errors of readings taken before `cutoff` (None: all)."""
     if cutoff is not None:
         errors = errors[errors["taken"] < cutoff]
-        curves = curves[curves["cutoff"] < cutoff]
-    terms = estimate_calibration(
+    return estimate_calibration(
         errors["family"].to_numpy(int),
         errors["capacitor"].to_numpy(),
         errors["x"].to_numpy(float),
-        errors["d"].to_numpy(float),
+        errors["h"].to_numpy(float),
         errors["e"].to_numpy(float),
         errors["v"].to_numpy(float),
         n_families,
     )
-    u, event = _known_at(curves, cutoff) if cutoff is not None else _known_at(curves, None, np.inf)
-    levels = recalibrated_levels(u, event, curves["family"].to_numpy(int), n_families, QUANTILE_LEVELS)
-    return terms, levels
 
 
 def _run(backtest: Backtest) -> None:
@@ -133,8 +106,7 @@ def _run(backtest: Backtest) -> None:
     part_codes = dict(
         CapacitorPart.objects.filter(id__in=inst_all["part_id"].unique().tolist()).values_list("id", "code")
     )
-    errors = pd.DataFrame(columns=["family", "capacitor", "x", "d", "e", "v", "taken"])
-    curves = pd.DataFrame(columns=["family", "cutoff", "crossed_day", "followed_days", "curve"])
+    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken"])
     forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
     per_cutoff = []
     fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
@@ -147,12 +119,10 @@ def _run(backtest: Backtest) -> None:
         if inst.empty:
             continue
         before = before.reset_index(drop=True)
-        terms, levels = _estimate(errors, curves, len(families), cutoff)
+        terms = _estimate(errors, len(families), cutoff)
         calibrations = {
             "default": {},
-            "calibrated": {
-                family: (*terms.per_capacitor([k])[:, 0], *levels[:, k]) for k, family in enumerate(families)
-            },
+            "calibrated": {family: tuple(terms.per_capacitor([k])[:, 0]) for k, family in enumerate(families)},
         }
         later = readings_all[(taken >= cutoff).to_numpy() & readings_all["installation_id"].isin(inst.index)]
         group = inst.index.get_indexer(later["installation_id"])
@@ -202,35 +172,20 @@ def _run(backtest: Backtest) -> None:
                         "family": family[group],
                         "capacitor": inst.index.to_numpy()[group] * 1000 + number,
                         "x": change,
-                        "d": span,
+                        "h": span / result.fit.stress_rate[group],
                         "e": error,
                         "v": variance,
                         "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                     }
                 )
                 errors = pd.concat([errors, fresh_errors], ignore_index=True) if len(errors) else fresh_errors
-            else:
-                elapsed = ((cutoff - result.newest_at) / pd.Timedelta(days=1)).to_numpy(float)
-                ahead = result.fit.stress_rate * 24.0 * (CURVE_DAYS[:, None] + elapsed[None, :])
-                curve = calibrated_crossing_probability(result.fit, tolerance, result.terms, ahead)
-                curve = np.maximum.accumulate(curve, axis=0).T[above]
-                fresh_curves = pd.DataFrame(
-                    {
-                        "family": family[above],
-                        "cutoff": cutoff,
-                        "crossed_day": crossed[above],
-                        "followed_days": followed[above],
-                        "curve": list(curve),
-                    }
-                )
-                curves = pd.concat([curves, fresh_curves], ignore_index=True) if len(curves) else fresh_curves
         per_cutoff.append(summary)
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
-    terms, levels = _estimate(errors, curves, len(families), None)
+    terms = _estimate(errors, len(families), None)
     calibration = {
         family: {
-            **dict(zip(CALIBRATION_FIELDS, (*terms.per_capacitor([k])[:, 0], *levels[:, k]), strict=True)),
+            **dict(zip(CALIBRATION_FIELDS, terms.per_capacitor([k])[:, 0], strict=True)),
             "capacitors": int(terms.capacitors[k]),
             "residuals": int(terms.residuals[k]),
         }

@@ -47,7 +47,7 @@ def test_calibrated_crossing_quantiles_match_a_monte_carlo_of_the_calibrated_pat
     group, time_h, measured, temperature, _, part = _small_fleet(n=40)
     fit = _fit(group, time_h, measured, temperature, part)
     bias, spread, beta, kappa, accel, limit = 0.4, 0.3, -1e-6, 0.8e-6, 2e-5, 0.85
-    terms = np.tile(np.array([[bias], [spread], [beta], [kappa], [accel]]), (1, 40))
+    terms = np.tile(np.array([[bias], [spread], [beta], [kappa], [accel], [0.0]]), (1, 40))
     grid = calibrated_crossing_quantiles(fit, limit, terms, np.full(40, 3e5), steps=2000)
     rng = np.random.default_rng(0)
     ahead = np.linspace(0, 3e5, 1501)
@@ -67,7 +67,7 @@ def test_with_no_calibration_terms_the_grid_equals_the_closed_form():
     """[derived] Zero bias, spread and extra terms leave the fit's own path: both quantile routes agree."""
     group, time_h, measured, temperature, _, part = _small_fleet(n=30)
     fit = _fit(group, time_h, measured, temperature, part)
-    grid = calibrated_crossing_quantiles(fit, 0.85, np.zeros((5, 30)), np.full(30, 4e5), steps=3000)
+    grid = calibrated_crossing_quantiles(fit, 0.85, np.zeros((6, 30)), np.full(30, 4e5), steps=3000)
     closed = crossing_quantiles(fit, 0.85)
     finite = np.isfinite(closed) & (closed < 4e5)
     assert grid[finite] == pytest.approx(closed[finite], rel=2e-3)
@@ -83,8 +83,9 @@ def test_calibration_recovers_known_biases_and_spreads():
     x = own_slope * span
     known = rng.uniform(1e-5, 4e-5, n)
     noise = rng.normal(0, np.sqrt(known + (0.3 * x) ** 2 + (0.5e-6 * span) ** 2))
-    error = 0.5 * x + 2e-5 * x * span - 1e-6 * span + noise
+    error = 0.5 * x + 2e-5 * x * span - 1e-6 * span - 2e-11 * span**2 + noise
     result = estimate_calibration(np.zeros(n, int), np.arange(n), x, span, error, known, 1)
+    assert result.curvature[0] == pytest.approx(-2e-11, abs=0.5e-11)
     assert result.slope_bias[0] == pytest.approx(0.5, abs=0.05)
     assert result.acceleration[0] == pytest.approx(2e-5, abs=0.3e-5)
     assert result.extra_slope[0] == pytest.approx(-1e-6, abs=0.1e-6)

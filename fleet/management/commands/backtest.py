@@ -46,9 +46,10 @@ class Command(BaseCommand):
         for family, values in results.get("calibration", {}).items():
             self.stdout.write(
                 f"calibration {family}: slope x (1 {values['slope_bias']:+.2f}) "
-                f"{1e5 * values['extra_slope_per_h']:+.3f} % per 1000 h, "
-                f"common spread {1e5 * values['extra_sd_per_h']:.3f} % per 1000 h, "
-                f"acceleration {1e3 * values['acceleration_per_h']:.3f} per 1000 h ahead, "
+                f"{876600 * values['extra_slope_per_h']:+.2f} % a year "
+                f"{876600 * 8766 * values['curvature_per_h2']:+.2f} % a year squared, "
+                f"common spread {876600 * values['extra_sd_per_h']:.2f} % a year, "
+                f"acceleration {8766 * values['acceleration_per_h']:.2f} a year ahead, "
                 f"spread {values['slope_spread']:.2f} "
                 f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
             )
