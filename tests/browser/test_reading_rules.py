@@ -33,6 +33,7 @@ def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_hist
     assert "asked to confirm" in phone.locator("#computed").inner_text()
     phone.shot("10-voltage-far-above-the-motor")
     phone.click("#save")
+    phone.wait_for_selector("text=missed decimal point", timeout=15000)  # the answer page, once it is back
     assert phone.is_visible("text=missed decimal point")
 
 

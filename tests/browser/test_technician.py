@@ -48,6 +48,7 @@ def test_find_by_tag_and_log_an_in_circuit_reading(phone, motor_with_history):
     phone.shot("02-in-circuit-computed")
     phone.click("#save")
     phone.wait_for_url(f"**/motors/{tag}/?saved=*")
+    phone.wait_for_selector("text=Reading saved", timeout=15000)  # the answer page, once it is back
     assert phone.is_visible("text=Reading saved")
     reading = Reading.objects.order_by("-id").first()
     assert reading.method == "in_circuit" and reading.capacitance_uf == pytest.approx(3.968, abs=0.001)
@@ -60,6 +61,7 @@ def test_a_validation_error_keeps_what_was_typed(phone, motor_with_history):
     phone.fill("#id_case_temperature_c", "33")
     phone.fill("#id_notes", "fan belt squeals")
     phone.click("#save")
+    phone.wait_for_selector("text=looks like nanofarads", timeout=15000)  # the refused page, once it is back
     assert phone.is_visible("text=looks like nanofarads")
     assert phone.input_value("#id_capacitance_uf") == "3960"
     assert phone.input_value("#id_case_temperature_c") == "33"
@@ -73,6 +75,7 @@ def test_an_outlier_is_confirmed_and_saved_flagged(phone, motor_with_history):
     phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
     phone.fill("#id_capacitance_uf", "3.3")
     phone.click("#save")
+    phone.wait_for_selector("text=far from this capacitor's trend", timeout=15000)  # the answer page, once it is back
     assert phone.is_visible("text=far from this capacitor's trend")
     phone.shot("04-confirm-outlier")
     assert phone.input_value("#id_capacitance_uf") == "3.3"
@@ -90,6 +93,7 @@ def test_record_a_replacement_on_the_spot(phone, motor_with_history):
     phone.shot("05-replacement")
     phone.click("text=Save replacement")
     phone.wait_for_url("**/reading/")
+    phone.wait_for_selector("text=Replacement recorded", timeout=15000)  # the answer page, once it is back
     assert phone.is_visible("text=Replacement recorded")
     old = FittedCapacitor.objects.get(pk=motor_with_history.pk)
     new = FittedCapacitor.objects.get(motor=old.motor, removed_on__isnull=True)
