@@ -12,7 +12,7 @@ from django.urls import reverse
 from django.utils import timezone
 from openpyxl import load_workbook
 
-from fleet.models import ImportJob, Reading, SiteMembership, WorkOrder
+from fleet.models import Assessment, ImportJob, Reading, SiteMembership, WorkOrder
 from fleet.roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.assessments import refit_installations
 from fleet.services.import_jobs import check_file, create_job, run_job
@@ -68,6 +68,18 @@ def test_plan_page_lists_spares_risks_and_sites_of_the_users_sites_only(client, 
     assert 'value="THERE"' not in body  # the site choice
     asked = client.get(reverse("plan"), {"days": 365, "site": "THERE"}).content.decode()
     assert "Ignored site" in asked and theirs.motor.asset_tag not in asked
+
+
+def test_the_plans_risk_changes_list_the_users_sites_only(client, here_and_there):
+    for installation in here_and_there.values():  # a week and more ago each was sound
+        earlier = Assessment.objects.get(installation=installation, is_current=True)
+        earlier.pk, earlier.is_current, earlier.risk = None, False, "sound"
+        earlier.save()
+        Assessment.objects.filter(pk=earlier.pk).update(created_at=timezone.now() - dt.timedelta(days=30))
+    mine = here_and_there["HERE"]
+    client.force_login(limited(PLANNER, mine.motor.site))
+    worse = client.get(reverse("plan"), {"days": 7}).context["worse"]
+    assert [assessment.installation_id for assessment in worse] == [mine.id]
 
 
 @pytest.mark.parametrize("file_format", ["csv", "xlsx"])
@@ -166,3 +178,9 @@ def test_a_limited_user_imports_register_rows_for_their_sites_only(here_and_ther
     result = check_file(kind="register", filename="register.csv", content=(header + body).encode(), user=user).result
     assert result.errors == [(3, "site_code", "site THERE, which you do not work at")]
     assert list(result.good["asset_tag"]) == ["NEW-HERE"]
+    theirs = here_and_there["THERE"]
+    history = f"asset_tag,role,part_code,fitted_on\n{theirs.motor.asset_tag},run,RUN-8,2019-01-01\n".encode()
+    result = check_file(kind="history", filename="history.csv", content=history, user=user).result
+    assert result.errors == [
+        (2, "asset_tag", f"motor {theirs.motor.asset_tag} is at site THERE, which you do not work at")
+    ]
