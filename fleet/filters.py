@@ -7,6 +7,7 @@ import django_filters
 from django.core.validators import MaxValueValidator, MinValueValidator
 
 from .models import Assessment, Site
+from .roles import scope_to_user
 
 
 class AssessmentFilter(django_filters.FilterSet):
@@ -21,10 +22,15 @@ class AssessmentFilter(django_filters.FilterSet):
         fields = ["site", "risk", "replace_by_before"]
 
 
+def _sites_of(request):
+    """The sites a plan may be asked for: the requesting user's."""
+    return scope_to_user(Site.objects.all(), request.user if request is not None else None)
+
+
 class PlanParameters(django_filters.FilterSet):
     """The plan page's and its downloads' site and horizon (the plan itself comes from a service)."""
 
-    site = django_filters.ModelChoiceFilter(queryset=Site.objects.all(), to_field_name="code", method="keep")
+    site = django_filters.ModelChoiceFilter(queryset=_sites_of, to_field_name="code", method="keep")
     days = django_filters.NumberFilter(
         method="keep", validators=[MinValueValidator(7), MaxValueValidator(730)], label="Horizon (days)"
     )
@@ -37,9 +43,10 @@ class PlanParameters(django_filters.FilterSet):
         return queryset
 
 
-def plan_parameters(query, default_days: int = 90) -> tuple[Site | None, int, list[str]]:
-    """(site, horizon in days, messages on what was ignored) from a plan query string."""
-    parameters = PlanParameters(query, queryset=Assessment.objects.none())
+def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site | None, int, list[str]]:
+    """(site, horizon in days, messages on what was ignored) from a plan query string; a site
+    the requesting user does not work at is ignored like an unknown one."""
+    parameters = PlanParameters(query, queryset=Assessment.objects.none(), request=request)
     if parameters.is_valid():
         data = parameters.form.cleaned_data
         return data.get("site"), int(data.get("days") or default_days), []

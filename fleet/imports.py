@@ -26,6 +26,7 @@ from django.utils import timezone
 from fleet.engineering.rules import check_readings as reading_rules
 from fleet.engineering.rules import parse_numbers
 from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.roles import scope_to_user, visible_site_ids
 
 READING_COLUMNS = {
     "asset_tag": "Motor asset tag (required)",
@@ -400,11 +401,70 @@ def parse_dates(texts: pd.Series) -> pd.Series:
     return pd.to_datetime(texts.str.slice(0, 10), errors="coerce", format="%Y-%m-%d")
 
 
-def _parse_times(texts: pd.Series, default_tz: str):
-    parsed = pd.to_datetime(texts, errors="coerce", format="ISO8601", utc=False)
-    if getattr(parsed.dt, "tz", None) is None:
-        parsed = parsed.dt.tz_localize(default_tz, ambiguous="NaT", nonexistent="NaT")
-    return parsed.dt.tz_convert("UTC")
+# A time of day followed by an offset or Z: "09:30+02:00", "09:30:15.5 -0500", "09:30Z".
+_OFFSET_AT_END = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
+
+
+def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarray]:
+    """ISO 8601 date-times as UTC, and a message for each row whose local time cannot be placed ("" if fine).
+
+    A time with an offset (or Z) is taken as given; offsets may differ from row to row (a file
+    across a daylight-saving change), hence one parse with utc=True. A time without one is
+    wall-clock time in the row's zone (`zones`: its site's), localised one zone at a time; a
+    local time the clocks skip or repeat there, or a zone nobody knows, gets a message.
+    """
+    parsed = pd.to_datetime(texts, errors="coerce", format="ISO8601", utc=True)
+    local = (~texts.str.contains(_OFFSET_AT_END, regex=True)).to_numpy() & parsed.notna().to_numpy()
+    wall = parsed.dt.tz_localize(None)
+    messages = np.full(len(texts), "", dtype=object)
+    for zone in pd.unique(zones[local]):
+        rows = local & zones.eq(zone).to_numpy()
+        try:
+            placed = wall[rows].dt.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+        except (KeyError, ValueError):  # the site's zone is not a known name (zoneinfo raises a KeyError subclass)
+            parsed[rows] = pd.NaT
+            messages[rows] = f"the site's time zone {zone!r} is unknown: add the offset, e.g. +01:00, or fix the site"
+            continue
+        parsed[rows] = placed.dt.tz_convert("UTC")
+        messages[rows & parsed.isna().to_numpy()] = (
+            f"this local time is skipped or repeated in {zone} (clocks changed): add the offset, e.g. +01:00"
+        )
+    return parsed, messages
+
+
+def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
+    """Rows for a motor (by `asset_tag`) or a site (by `site_code`) outside the sites `user` works at.
+
+    A user limited to some sites imports only there; `user=None` (a command) and unlimited users
+    are never refused here.
+    """
+    problems = _Problems(frame)
+    if not column or user is None or visible_site_ids(user) is None:
+        return problems
+    mine = set(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
+    if column == "site_code":
+        codes = frame["site_code"]
+        messages = codes.map("site {}, which you do not work at".format).to_numpy(dtype=object)
+        problems.add(codes.ne("") & ~codes.isin(mine), "site_code", messages)
+        return problems
+    tags = frame[column].str.upper()
+    wanted = sorted(t for t in set(tags) - {""} if "\x00" not in t)
+    site_of = {}
+    for start in range(0, len(wanted), 5000):
+        site_of |= {
+            tag.upper(): code
+            for tag, code in Motor.objects.filter(asset_tag__in=wanted[start : start + 5000])
+            .exclude(site__code__in=mine)
+            .values_list("asset_tag", "site__code")
+        }
+    if not site_of:
+        return problems
+    elsewhere = tags.map(site_of).astype(object)
+    messages = (
+        "motor " + frame[column] + " is at site " + elsewhere.fillna("") + ", which you do not work at"
+    ).to_numpy(dtype=object)
+    problems.add(elsewhere.notna().to_numpy(), column, messages)
+    return problems
 
 
 def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
@@ -413,7 +473,11 @@ def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
 
 
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
-    """Validate mapped reading rows; resolve each to the capacitor fitted at the time."""
+    """Validate mapped reading rows; resolve each to the capacitor fitted at the time.
+
+    A time without an offset is in the time zone of the motor's site (`default_tz` for a tag
+    not in the register, whose row is refused anyway).
+    """
     # A NUL cannot reach PostgreSQL, not even in a lookup: such a tag is simply unknown.
     tags = sorted(t for t in set(frame["asset_tag"].str.upper()) - {""} if "\x00" not in t)
     fitted = pd.DataFrame.from_records(
@@ -428,6 +492,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 "motor__frequency_hz",
                 "motor__rated_voltage_v",
                 "motor__full_load_current_a",
+                "motor__site__time_zone",
             )
         ),
         columns=[
@@ -440,9 +505,11 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             "frequency_hz",
             "voltage_v",
             "full_load_a",
+            "time_zone",
         ],
     )
     fitted["tag"] = fitted["tag"].str.upper()
+    zone_of_tag = dict(zip(fitted["tag"], fitted["time_zone"], strict=True))
     known_tags = set(fitted["tag"])
     now = timezone.now()
     good_parts, errors, seen_keys = [], [], {}
@@ -455,7 +522,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         problems.add(~tag.isin(known_tags), "asset_tag", "unknown asset tag: not in the register")
         role = chunk["role"].str.lower()
         problems.add(~role.isin(["start", "run"]), "role", "must be start or run")
-        taken = _parse_times(chunk["taken_at"], default_tz)
+        zones = tag.map(zone_of_tag).astype(object).fillna(default_tz)
+        taken, unplaced = parse_times(chunk["taken_at"], zones)
+        problems.add(unplaced != "", "taken_at", unplaced)
         problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
         # The capacitor fitted at that motor, in that role, on that day.
         candidates = pd.DataFrame({"i": np.arange(len(chunk)), "tag": tag, "role": role, "day": taken.dt.date}).merge(

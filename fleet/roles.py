@@ -88,11 +88,13 @@ def visible_site_ids(user) -> set[int] | None:
 
 
 def scope_to_user(queryset, user):
-    """The rows of `queryset` this user may see and write: the one rule views and the API share.
+    """The rows of `queryset` this user may see and write: the one rule views, services and the API share.
 
     Register rows and records are limited to the user's sites; import jobs to their owner
-    (administrators see all).
+    (administrators see all). `user=None` is the system (a command or a task): every row.
     """
+    if user is None:
+        return queryset
     name = queryset.model._meta.model_name
     if name == "importjob":
         return queryset if is_administrator(user) else queryset.filter(created_by_id=user.pk)

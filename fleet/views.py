@@ -48,8 +48,8 @@ from .tasks import QueueUnreachable
 def home(request):
     context = {"find_form": FindMotorForm(), "sites": scope_to_user(Site.objects.all(), request.user)}
     if request.user.has_perm("fleet.view_assessment"):
-        context["risks"] = pages.risk_summary()
-        context["plan"] = pages.replacement_plan(horizon_days=30)[:15]
+        context["risks"] = pages.risk_summary(request.user)
+        context["plan"] = pages.replacement_plan(horizon_days=30, user=request.user)[:15]
         context["run"] = pages.latest_refit_run()
     return render(request, "fleet/home.html", context)
 
@@ -252,8 +252,8 @@ def plan_export(request, file_format):
     """The replacement plan for the planner's own spreadsheet: CSV streamed, or XLSX."""
     if file_format not in {"csv", "xlsx"}:
         raise Http404("The plan downloads as .csv or .xlsx")
-    site, horizon, _ = plan_parameters(request.GET)
-    rows = plan_rows(pages.replacement_plan(horizon, site).iterator(chunk_size=2000))
+    site, horizon, _ = plan_parameters(request.GET, request=request)
+    rows = plan_rows(pages.replacement_plan(horizon, site, request.user).iterator(chunk_size=2000))
     name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}"
     if file_format == "xlsx":
         content_type = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
@@ -266,20 +266,20 @@ def plan_export(request, file_format):
 
 @permission_required("fleet.view_assessment", raise_exception=True)
 def plan(request):
-    site, horizon, problems = plan_parameters(request.GET)
+    site, horizon, problems = plan_parameters(request.GET, request=request)
     for problem in problems:
         messages.warning(request, f"Ignored {problem}")
-    paginator = Paginator(pages.replacement_plan(horizon, site), 50)
+    paginator = Paginator(pages.replacement_plan(horizon, site, request.user), 50)
     page = paginator.get_page(request.GET.get("page"))
     context = {
         "page": page,
         "horizon": horizon,
         "site": site,
-        "sites": Site.objects.all(),
-        "spares": pages.spares_needed(horizon, site),
-        "risks": pages.risk_summary(),
+        "sites": scope_to_user(Site.objects.all(), request.user),
+        "spares": pages.spares_needed(horizon, site, request.user),
+        "risks": pages.risk_summary(request.user),
     }
-    context["worse"], context["better"], context["first_assessed"] = pages.risk_changes(days=7)
+    context["worse"], context["better"], context["first_assessed"] = pages.risk_changes(days=7, user=request.user)
     return render(request, "fleet/plan.html", context)
 
 
@@ -454,18 +454,21 @@ def work_orders(request):
             except ValueError:
                 messages.error(request, "That visit could not be found: reload the page and try again.")
             else:
-                issued = issue_visit(site_id=site_id, due_on=day)
-                messages.success(request, f"{issued} work orders issued to the technicians.")
+                issued = issue_visit(site_id=site_id, due_on=day, user=request.user)
+                if issued:
+                    messages.success(request, f"{issued} work orders issued to the technicians.")
+                else:
+                    messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
-    return render(request, "fleet/work_orders.html", {"visits": open_visits()})
+    return render(request, "fleet/work_orders.html", {"visits": open_visits(user=request.user)})
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)
 def visit_sheet(request, site_code, day):
     """A printable sheet for one site visit: the orders, the spares, the cautions."""
-    site = get_object_or_404(Site, code=site_code)
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     try:
-        visits = open_visits(site.id, dt.date.fromisoformat(day))
+        visits = open_visits(site.id, dt.date.fromisoformat(day), user=request.user)
     except ValueError:
         visits = []
     if not visits:

@@ -37,6 +37,7 @@ class Kind:
     check: Callable
     write: Callable  # (good rows, user) -> None, inside the import's transaction
     max_lengths: dict[str, int]
+    site_column: str = ""  # names a row's motor (asset_tag) or site (site_code): a limited user imports there only
 
 
 def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
@@ -80,6 +81,7 @@ KINDS = {
         imports.check_register,
         _write_register,
         _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location"}),
+        "site_code",
     ),
     ImportJob.Kind.HISTORY: Kind(
         import_kinds.HISTORY_COLUMNS,
@@ -87,9 +89,10 @@ KINDS = {
         import_kinds.check_history,
         _write_history,
         _max_lengths(FittedCapacitor, {"serial": "serial"}),
+        "asset_tag",
     ),
     ImportJob.Kind.READINGS: Kind(
-        imports.READING_COLUMNS, imports.READING_REQUIRED, imports.check_readings, _write_readings, {}
+        imports.READING_COLUMNS, imports.READING_REQUIRED, imports.check_readings, _write_readings, {}, "asset_tag"
     ),
 }
 
@@ -103,11 +106,14 @@ class Outcome:
     refused: str = ""  # why nothing was imported though the file was read
 
 
-def check_file(*, kind: str, filename: str, content: bytes, mapping: dict | None = None, on_progress=None) -> Outcome:
+def check_file(
+    *, kind: str, filename: str, content: bytes, mapping: dict | None = None, on_progress=None, user=None
+) -> Outcome:
     """Read the file (limits first), map its columns and check every row; writes nothing.
 
     `mapping` (our field -> the file's column) defaults to matching the headings by
-    name. `on_progress(done, total)` is called as rows are checked.
+    name. `on_progress(done, total)` is called as rows are checked. Rows for motors or
+    sites outside the sites `user` works at are refused (None: a command, every site).
     """
     spec = KINDS[kind]
     header, rows = imports.read_table(content, filename)
@@ -122,11 +128,13 @@ def check_file(*, kind: str, filename: str, content: bytes, mapping: dict | None
         on_progress(0, len(rows))
     frame = imports.mapped_frame(header, rows, mapping, spec.columns)
     unstorable = imports.text_problems(frame, spec.max_lengths)
+    storable = frame[~unstorable.bad].reset_index(drop=True)
+    elsewhere = imports.outside_sites(storable, user, spec.site_column)
     result = spec.check(
-        frame[~unstorable.bad].reset_index(drop=True),
+        storable[~elsewhere.bad].reset_index(drop=True),
         on_progress=(lambda done: on_progress(done, len(rows))) if on_progress else None,
     )
-    result.errors = sorted(result.errors + unstorable.items)
+    result.errors = sorted(result.errors + unstorable.items + elsewhere.items)
     result.total = len(frame)
     return Outcome(result=result, header=header, rows=rows)
 
@@ -149,7 +157,9 @@ def import_file(
     stay out. Rows already in the database are skipped, so a second run adds
     nothing. `on_written(outcome)` runs inside the transaction (the job's own record).
     """
-    outcome = check_file(kind=kind, filename=filename, content=content, mapping=mapping, on_progress=on_progress)
+    outcome = check_file(
+        kind=kind, filename=filename, content=content, mapping=mapping, on_progress=on_progress, user=user
+    )
     result = outcome.result
     if result.errors and mode == ImportJob.Mode.ALL_OR_NOTHING:
         outcome.refused = f"{result.error_rows} rows have problems, so nothing was imported (all or nothing)."
@@ -295,6 +305,7 @@ def _check(job: ImportJob) -> None:
         content=bytes(job.content),
         mapping=job.mapping,
         on_progress=_progress(job.pk),
+        user=job.created_by,
     )
     _update(job.pk, state=ImportJob.State.CHECKED, message="", **_summary(outcome.result))
 
@@ -337,7 +348,9 @@ def _estimate_later(motor_ids):
 
 def rejected_rows_csv(job: ImportJob) -> bytes:
     """The bad rows as uploaded, with a last column saying what is wrong, field by field."""
-    outcome = check_file(kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping)
+    outcome = check_file(
+        kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping, user=job.created_by
+    )
     problems = defaultdict(list)
     for row, field_name, message in outcome.result.errors:
         problems[row].append(f"{field_name}: {message}")

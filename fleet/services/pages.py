@@ -13,12 +13,14 @@ from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, path_band
 from fleet.models import Assessment, FittedCapacitor, Motor, Reading, RefitRun, Site
+from fleet.roles import scope_to_user
 
 RECENT_READINGS = 6
 
 
-def current_assessments():
-    return Assessment.objects.filter(is_current=True)
+def current_assessments(user=None):
+    """Current assessments of the capacitors at the user's sites (None: every site)."""
+    return scope_to_user(Assessment.objects.filter(is_current=True), user)
 
 
 def motor_with_capacitors(asset_tag: str):
@@ -115,19 +117,22 @@ def route_for_site(site: Site, today: dt.date | None = None):
     return rows, start
 
 
-def risk_summary():
+def risk_summary(user=None):
     counts = dict(
-        current_assessments().filter(installation__removed_on__isnull=True).values_list("risk").annotate(n=Count("id"))
+        current_assessments(user)
+        .filter(installation__removed_on__isnull=True)
+        .values_list("risk")
+        .annotate(n=Count("id"))
     )
     return [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
 
 
-def replacement_plan(horizon_days: int = 90, site: Site | None = None):
-    """Capacitors in service to replace within the horizon, soonest first, with the
-    newest assessment's figures; one query."""
+def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None):
+    """Capacitors in service at the user's sites to replace within the horizon, soonest first,
+    with the newest assessment's figures; one query."""
     until = timezone.localdate() + dt.timedelta(days=horizon_days)
     queryset = (
-        current_assessments()
+        current_assessments(user)
         .filter(installation__removed_on__isnull=True, replace_by__lte=until)
         .select_related("installation__motor__site", "installation__part")
         .order_by("replace_by", "installation__motor__site__code", "installation__motor__route_order")
@@ -137,10 +142,10 @@ def replacement_plan(horizon_days: int = 90, site: Site | None = None):
     return queryset
 
 
-def spares_needed(horizon_days: int = 90, site: Site | None = None):
-    """Parts to hold for the plan's replacements (same window, same site), with their cost."""
+def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None):
+    """Parts to hold for the plan's replacements (same window, same sites), with their cost."""
     return (
-        replacement_plan(horizon_days, site)
+        replacement_plan(horizon_days, site, user)
         .order_by()
         .values(
             "installation__part__code",
@@ -157,7 +162,7 @@ def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
 
 
-def risk_changes(days: int = 7, limit: int = 50):
+def risk_changes(days: int = 7, limit: int = 50, user=None):
     """Capacitors whose risk level moved in the last `days`, against the assessment
     that was current then: (worse, better, first_assessed_count).
 
@@ -169,7 +174,7 @@ def risk_changes(days: int = 7, limit: int = 50):
         "-created_at"
     )
     recent = (
-        current_assessments()
+        current_assessments(user)
         .filter(installation__removed_on__isnull=True, created_at__gte=since)
         .annotate(previous_risk=Subquery(before.values("risk")[:1]))
     )

@@ -12,6 +12,7 @@ from django.utils import timezone
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import bundle_visits
 from fleet.models import Assessment, WorkOrder
+from fleet.roles import scope_to_user
 
 KIND_FOR_ROLE = {"run": WorkOrder.Kind.REPLACE_RUN, "start": WorkOrder.Kind.REPLACE_START}
 OPEN = [WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
@@ -22,15 +23,18 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
 
     New orders and the still-planned ones are bundled into site visits (one
     trip per site per window) and dated on their visit's day; overdue ones on
-    today. Issued orders are left as they are. Returns counts.
+    today. Issued orders are left as they are. Only the sites `user` works at are
+    planned (None: every site). Returns counts.
     """
     today = today or timezone.localdate()
     due = list(
-        Assessment.objects.filter(
+        scope_to_user(Assessment.objects.all(), user)
+        .filter(
             is_current=True,
             installation__removed_on__isnull=True,
             replace_by__lte=today + dt.timedelta(days=horizon_days),
-        ).values_list(
+        )
+        .values_list(
             "installation_id",
             "installation__motor_id",
             "installation__motor__site_id",
@@ -73,16 +77,19 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     return {"created": len(new_orders), "replanned": len(replanned), "visits": len(set(visit.tolist()))}
 
 
-def issue_visit(*, site_id: int, due_on: dt.date) -> int:
-    """Hand a visit's planned orders to the technicians."""
-    planned = WorkOrder.objects.filter(motor__site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED)
+def issue_visit(*, site_id: int, due_on: dt.date, user=None) -> int:
+    """Hand a visit's planned orders to the technicians: only at a site `user` works at (None: any)."""
+    planned = scope_to_user(WorkOrder.objects.all(), user).filter(
+        motor__site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED
+    )
     return audited_update(planned, state=WorkOrder.State.ISSUED)
 
 
-def open_visits(site_id: int | None = None, day: dt.date | None = None):
-    """Open orders grouped into visits (site, day), soonest first, with each visit's spares."""
+def open_visits(site_id: int | None = None, day: dt.date | None = None, user=None):
+    """Open orders at the user's sites grouped into visits (site, day), soonest first, with each visit's spares."""
     orders = (
-        WorkOrder.objects.filter(state__in=OPEN)
+        scope_to_user(WorkOrder.objects.all(), user)
+        .filter(state__in=OPEN)
         .select_related("motor__site", "installation__part")
         .order_by("due_on", "motor__site__code", "motor__route_order", "motor__asset_tag")
     )

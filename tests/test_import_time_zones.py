@@ -1,0 +1,82 @@
+"""Reading times in imports: a time without an offset is the motor's site's local time; one with an
+offset is taken as given, and offsets may change within a file (a daylight-saving change)."""
+
+import datetime as dt
+
+import pytest
+
+from fleet.models import ImportJob, Reading
+from fleet.services.import_jobs import check_job, create_job, run_job
+
+from .conftest import make_installation, make_motor, make_site
+
+pytestmark = pytest.mark.django_db
+
+UTC = dt.UTC
+
+
+def capacitor_at(zone: str):
+    return make_installation(motor=make_motor(site=make_site(time_zone=zone)), fitted_on=dt.date(2022, 1, 1))
+
+
+def import_readings(times, tag, mode=ImportJob.Mode.GOOD_ROWS):
+    rows = "".join(f"{tag},run,{taken_at},meter,{3.99 - 0.01 * i:.2f}\n" for i, taken_at in enumerate(times))
+    content = ("asset_tag,role,taken_at,method,capacitance_uf\n" + rows).encode()
+    return run_job(create_job(kind="readings", filename="times.csv", content=content, user=None).id, mode)
+
+
+def stored_times(installation):
+    """Stored times in the file's row order (each row's capacitance is lower than the one before)."""
+    readings = Reading.objects.filter(installation=installation).order_by("-capacitance_uf")
+    return [taken_at.astimezone(UTC) for taken_at in readings.values_list("taken_at", flat=True)]
+
+
+def test_a_time_without_offset_is_site_time_brisbane_is_ten_hours_ahead_of_utc():
+    # [pub] IANA time zone database: Australia/Brisbane is UTC+10:00 all year (Queensland keeps no daylight saving).
+    installation = capacitor_at("Australia/Brisbane")
+    job = import_readings(["2025-03-15 08:00"], installation.motor.asset_tag)
+    assert job.state == ImportJob.State.DONE and job.errors == []
+    assert stored_times(installation) == [dt.datetime(2025, 3, 14, 22, 0, tzinfo=UTC)]
+
+
+def test_a_time_with_an_offset_is_used_as_given_whatever_the_sites_zone():
+    installation = capacitor_at("Australia/Brisbane")
+    job = import_readings(["2025-03-15T08:00+00:00", "2025-03-16T08:00Z"], installation.motor.asset_tag)
+    assert job.errors == [] and job.imported_rows == 2
+    assert stored_times(installation) == [
+        dt.datetime(2025, 3, 15, 8, 0, tzinfo=UTC),
+        dt.datetime(2025, 3, 16, 8, 0, tzinfo=UTC),
+    ]
+
+
+def test_offsets_that_change_within_a_file_across_daylight_saving_import_both():
+    # [pub] EU Directive 2000/84/EC: summer time ends at 01:00 UTC on the last Sunday of October
+    # (27 October 2024); Central European time is UTC+2 before, UTC+1 after.
+    installation = capacitor_at("Europe/Berlin")
+    times = ["2024-10-25T09:00+02:00", "2024-10-28T09:00+01:00", "2024-10-25 10:00", "2024-10-28 10:00"]
+    job = import_readings(times, installation.motor.asset_tag, ImportJob.Mode.ALL_OR_NOTHING)
+    assert job.state == ImportJob.State.DONE and job.errors == [] and job.imported_rows == 4
+    assert stored_times(installation) == [
+        dt.datetime(2024, 10, 25, 7, 0, tzinfo=UTC),
+        dt.datetime(2024, 10, 28, 8, 0, tzinfo=UTC),
+        dt.datetime(2024, 10, 25, 8, 0, tzinfo=UTC),  # site time, summer
+        dt.datetime(2024, 10, 28, 9, 0, tzinfo=UTC),  # site time, winter
+    ]
+
+
+def test_a_bad_time_and_a_local_time_the_clocks_skip_are_named_by_row_and_field():
+    # [pub] EU Directive 2000/84/EC: summer time begins at 01:00 UTC on the last Sunday of March
+    # (31 March 2024), so 02:30 that night does not exist in Berlin.
+    installation = capacitor_at("Europe/Berlin")
+    content = (
+        "asset_tag,role,taken_at,method,capacitance_uf\n"
+        f"{installation.motor.asset_tag},run,2024-13-45 08:00,meter,3.99\n"
+        f"{installation.motor.asset_tag},run,2024-03-31 02:30,meter,3.98\n"
+        f"{installation.motor.asset_tag},run,2024-03-31 03:30,meter,3.97\n"
+    ).encode()
+    job = check_job(create_job(kind="readings", filename="bad.csv", content=content, user=None).id)
+    assert job.state == ImportJob.State.CHECKED and job.good_rows == 1
+    assert [error[:2] for error in job.errors] == [[2, "taken_at"], [3, "taken_at"]]
+    assert "not a date and time" in job.errors[0][2]
+    assert "skipped or repeated in Europe/Berlin" in job.errors[1][2]
+    assert not Reading.objects.exists()
