@@ -115,13 +115,36 @@ def judge(
     limit_name = np.where(governing >= 0, names[safe], "")
     latest = pd.Series(np.asarray(latest_uf, float)).map("{:.2f}".format).to_numpy(object)
     limit_words = "the " + limit_name + " limit (" + limit_uf + " \u00b5F)"
-    late = np.where(np.isfinite(days[2]) & (days[2] <= settings.horizon_days), _month(today, days[2]), "beyond")
-    likely = np.where(np.isfinite(days[1]) & (days[1] <= settings.horizon_days), _month(today, days[1]), "beyond")
-    between = np.where(
-        days[0] > 0,
-        "trend reaches " + limit_words + " between " + _month(today, days[0]) + " and " + late,
-        "trend may already have reached " + limit_words + " (likely " + likely + ", at the latest " + late + ")",
+
+    def month_or(offset, beyond):
+        inside = np.isfinite(offset) & (offset <= settings.horizon_days)
+        return np.where(inside, _month(today, offset), beyond)
+
+    beyond = f"beyond {settings.horizon_days / 365:.0f} years"
+    likely = month_or(days[1], beyond)
+    late = month_or(days[2], "")
+    between = np.select(
+        [(days[0] > 0) & (late != ""), days[0] > 0],
+        [
+            "trend reaches "
+            + limit_words
+            + " between "
+            + _month(today, days[0])
+            + " and "
+            + late
+            + " (likely "
+            + likely
+            + ")",
+            "trend reaches " + limit_words + " no sooner than " + _month(today, days[0]) + " (likely " + likely + ")",
+        ],
+        default="trend may already have reached "
+        + limit_words
+        + " (likely "
+        + likely
+        + np.where(late != "", ", at the latest " + late, "")
+        + "): read it again",
     )
+    carried = np.asarray(fraction_now, float) >= limit
     reason = np.select(
         [
             np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF]),
@@ -132,8 +155,12 @@ def judge(
         ],
         [
             np.asarray(evidence_text, dtype=object),
-            "latest reading " + latest + " \u00b5F, below " + limit_words,
-            "fitted trend is already below " + limit_words,
+            "latest reading, referred to 25 \u00b0C, " + latest + " \u00b5F: below " + limit_words,
+            np.where(
+                carried,
+                "trend carried forward from the last reading has likely passed " + limit_words + " by now",
+                "fitted trend is already below " + limit_words,
+            ),
             "no limit could be evaluated",
             between,
         ],

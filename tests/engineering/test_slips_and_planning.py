@@ -63,7 +63,10 @@ def test_risk_levels_follow_the_early_crossing():
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND, RISK_SOUND]
     assert result.due_days.tolist()[:4] == [7.0, 30.0, 170.0, 870.0]
     assert np.isinf(result.due_days[4])
-    assert result.reason[2] == "trend reaches the tolerance limit (9.40 \u00b5F) between 2027-06 and 2029-02"
+    assert (
+        result.reason[2]
+        == "trend reaches the tolerance limit (9.40 \u00b5F) between 2027-06 and 2029-02 (likely 2028-01)"
+    )
     assert result.reason[4].startswith("trend stays above the tolerance limit")
 
 
@@ -79,7 +82,10 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
 def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
     result = _judge([500.0], [900.0], latest=[0.935])
     assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 14.0
-    assert result.reason[0] == "latest reading 9.35 \u00b5F, below the tolerance limit (9.40 \u00b5F)"
+    assert (
+        result.reason[0]
+        == "latest reading, referred to 25 \u00b0C, 9.35 \u00b5F: below the tolerance limit (9.40 \u00b5F)"
+    )
 
 
 def test_a_defect_is_replace_now_today():

@@ -1,0 +1,61 @@
+"""Every chart page keeps its charts at their set height on a phone, a desktop and after a resize.
+
+A responsive Plotly figure in a box with no height of its own shrank to a strip and drew over
+the page below it on the capacitor and life-data pages; the chart's box now holds the height.
+"""
+
+import datetime as dt
+
+import pytest
+from django.utils import timezone
+
+from fleet.models import FittedCapacitor
+from fleet.services.assessments import refit_installations
+
+from ..conftest import make_installation, make_part, make_user, quarterly_readings
+from .test_technician import sign_in
+
+pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
+
+CHART_SIZES = """() => [...document.querySelectorAll('.js-plotly-plot')].map(gd => ({
+  id: gd.id,
+  set: JSON.parse(document.getElementById(gd.id.replace('-chart', '-data')).textContent).layout.height,
+  box: Math.round(gd.getBoundingClientRect().height),
+  svg: Number(gd.querySelector('.main-svg').getAttribute('height')),
+  page: document.documentElement.scrollWidth, view: window.innerWidth,
+}))"""
+
+
+def _charts_hold(page, expected_ids):
+    for width in (390, 1366, 390):
+        page.set_viewport_size({"width": width, "height": 900})
+        page.wait_for_timeout(600)  # Plotly redraws on the window's resize event
+        sizes = page.evaluate(CHART_SIZES)
+        assert sorted(c["id"] for c in sizes) == sorted(expected_ids)
+        for chart in sizes:
+            assert chart["box"] == chart["svg"] == chart["set"], (width, chart)
+
+
+def test_the_trend_chart_keeps_its_height(phone):
+    installation = make_installation()
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.97, 3.95, 3.92, 3.9])
+    refit_installations([installation.id])
+    sign_in(phone, make_user("reliability engineer"))
+    phone.goto(f"/capacitors/{installation.id}/")
+    phone.wait_for_selector("#trend-chart .main-svg")
+    _charts_hold(phone, ["trend-chart"])
+    phone.shot("trend-chart-after-resize")
+
+
+def test_the_life_data_charts_keep_their_height(phone):
+    part = make_part(code="LIFE-1")
+    for years, reason in [(2.1, "failed"), (3.4, "failed"), (2.8, "failed"), (4.0, "planned"), (1.5, "failed")]:
+        installation = make_installation(part=part, fitted_on=dt.date(2018, 1, 1))
+        FittedCapacitor.objects.filter(id=installation.id).update(
+            removed_on=dt.date(2018, 1, 1) + dt.timedelta(days=int(365.25 * years)), removal_reason=reason
+        )
+    sign_in(phone, make_user("reliability engineer"))
+    phone.goto("/life/?part=LIFE-1")
+    phone.wait_for_selector("#cost-chart .main-svg")
+    _charts_hold(phone, ["weibull-chart", "cost-chart"])
+    phone.shot("life-data-after-resize")
