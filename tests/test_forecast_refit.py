@@ -1,6 +1,7 @@
 """The refit's forecast as stored: late readings used, poison kept out, limits per name, reasons."""
 
 import datetime as dt
+import math
 
 import numpy as np
 import pytest
@@ -140,3 +141,22 @@ def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
     calibration = BandCalibration.objects.get(family="film")
     assert calibration.residuals > 0 and np.isfinite(calibration.slope_spread)
     assert Reading.objects.count() == 30 * 16  # a back-test writes no readings
+
+
+@pytest.mark.django_db
+def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_so():
+    """The second wear sign: capacitance steady, ESR climbing (DF = ESR x 2 pi f C) to the part's 10 %."""
+    part = make_part(max_dissipation_factor=0.10, dielectric="electrolytic", rated_uf=4.0)
+    installation = make_installation(part=part, role="run")
+    now = START + dt.timedelta(days=5 * 91 + 1)
+    for quarter in range(6):
+        dissipation = 0.04 + 0.011 * quarter  # 0.095 at the sixth reading, 0.10 about six weeks on
+        esr = dissipation / (2 * math.pi * 50 * 4.0e-6)
+        make_reading(installation, taken_at=START + dt.timedelta(days=91 * quarter), capacitance_uf=4.0, esr_ohm=esr)
+    refit_installations([installation.id], now=now)
+    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    assert assessment.limit_source == "dissipation factor"
+    assert assessment.risk == "due soon"
+    assert "dissipation-factor maximum" in assessment.reason
+    wear = [limit for limit in assessment.limits if limit["name"] == "dissipation factor"][0]
+    assert wear["maximum"] == pytest.approx(0.10) and wear["p50_on"] is not None

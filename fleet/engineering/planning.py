@@ -65,6 +65,8 @@ def judge(
     evidence,
     evidence_text,
     today: dt.date,
+    wear_days=None,
+    wear_words=None,
     settings: PlanningSettings | None = None,
 ) -> Judgement:
     """Judge every capacitor at once.
@@ -75,6 +77,9 @@ def judge(
     each limit (inf: never within the horizon; <= 0: already). fraction_now: the
     fitted value now; latest_fraction_25c: the newest reading referred to 25 C.
     evidence (G ints, EVIDENCE_*) and evidence_text: what a reading showed.
+    wear_days (3, G) and wear_words: a second wear sign's crossing (the
+    dissipation factor's trend); when it comes before the capacitance limit it
+    sets the risk, the date and the reason, and `governing` is L.
 
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
@@ -98,6 +103,12 @@ def judge(
     evidence = np.where((evidence == EVIDENCE_NONE) & below, EVIDENCE_BELOW, evidence)
     path_past = (days[1] <= 0) | (np.asarray(fraction_now, float) < limit)
     evidence = np.where((evidence == EVIDENCE_NONE) & path_past, EVIDENCE_PATH, evidence)
+    wear_first = np.zeros(n, bool)
+    if wear_days is not None:
+        wear_days = np.asarray(wear_days, float)
+        wear_first = wear_days[0] < days[0]
+        days = np.where(wear_first, wear_days, days)
+        governing = np.where(wear_first, len(names), governing)
     replace_now = evidence != EVIDENCE_NONE
     risk = np.select(
         [replace_now, days[0] <= settings.due_soon_days, days[0] <= settings.watch_days],
@@ -115,6 +126,8 @@ def judge(
     limit_name = np.where(governing >= 0, names[safe], "")
     latest = pd.Series(np.asarray(latest_uf, float)).map("{:.2f}".format).to_numpy(object)
     limit_words = "the " + limit_name + " limit (" + limit_uf + " \u00b5F)"
+    if wear_days is not None:
+        limit_words = np.where(wear_first, np.asarray(wear_words, dtype=object), limit_words)
 
     def month_or(offset, beyond):
         inside = np.isfinite(offset) & (offset <= settings.horizon_days)
@@ -150,7 +163,7 @@ def judge(
             np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF]),
             evidence == EVIDENCE_BELOW,
             evidence == EVIDENCE_PATH,
-            governing < 0,
+            (governing < 0) & ~wear_first,
             np.isfinite(days[0]) & (days[0] <= settings.horizon_days),
         ],
         [

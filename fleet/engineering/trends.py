@@ -572,3 +572,37 @@ def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hou
     if model == MODEL_LOG:
         return np.exp(mid), np.exp(low), np.exp(high)
     return mid, low, high
+
+
+def dissipation_trend(group, time_h, dissipation, n_groups, maximum, now_h, probabilities=(0.1, 0.5, 0.9)):
+    """Hours from now at which each capacitor's dissipation-factor trend reaches its maximum.
+
+    A second sign of wear beside capacitance, for electrolytics above all: as
+    the electrolyte dries out the ESR, and so DF = ESR x 2 pi f C, rises
+    (common practice of the trade, no single source). Per capacitor, ordinary
+    least squares of DF on calendar hours (bincount sums, no loop); the quantile
+    p of the crossing time comes from the slope's own quantile (the level now
+    taken as fitted): earlier for a steeper slope. Capacitors with fewer than
+    three readings carrying ESR, or whose slope is not surely rising at that
+    quantile, get inf; one already at its maximum gets 0. Shape (Q, G).
+    """
+    g = np.asarray(group, np.int64)
+    t = np.asarray(time_h, float)
+    y = np.asarray(dissipation, float)
+    ok = np.isfinite(t) & np.isfinite(y)
+    w = ok.astype(float)
+    n, sx, sy, sxx, sxy = _group_sums(g, np.where(ok, t, 0.0), np.where(ok, y, 0.0), w, n_groups)
+    intercept, slope, sxx_c = _ols(n, sx, sy, sxx, sxy)
+    fitted = np.where(ok, intercept[g] + slope[g] * t, 0.0)
+    scatter = np.bincount(g, weights=np.where(ok, (y - fitted) ** 2, 0.0), minlength=n_groups)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope_se = np.sqrt(scatter / np.maximum(n - 2, 1) / sxx_c)
+        level_now = intercept + slope * np.asarray(now_h, float)
+        enough = (n >= 3) & (sxx_c > 0)
+        rows = []
+        for p in probabilities:
+            steep = slope - float(ndtri(p)) * slope_se  # P10: the slope's 90 % quantile, so the earliest date
+            hours = (np.asarray(maximum, float) - level_now) / steep
+            rows.append(np.where(enough & (level_now >= maximum), 0.0, np.where(enough & (steep > 0), hours, np.inf)))
+    rows = np.stack(rows)
+    return np.where(np.isnan(rows), np.inf, rows)

@@ -50,6 +50,7 @@ from fleet.engineering.trends import (
     TrendFit,
     TrendSettings,
     default_tempco_ppm_per_k,
+    dissipation_trend,
     fit_trends,
 )
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior
@@ -64,6 +65,7 @@ from .selectors import (
 
 MODEL_VERSION = "trend-2"
 ALL_LIMITS = (TOLERANCE_LIMIT, *LIMIT_NAMES)
+DISSIPATION_LIMIT = "dissipation factor"  # the second wear sign, on the ESR readings' trend
 VOLTAGE_DISAGREEMENT = 0.15  # estimated vs measured capacitor voltage, relative
 
 
@@ -275,6 +277,7 @@ class Assessed:
     figures_now: list
     figures_new: list
     terms: np.ndarray  # (6, G) calibration terms of each capacitor's projection
+    wear_days: np.ndarray  # (3, G) days to the dissipation-factor maximum (inf: none in sight)
 
 
 def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
@@ -314,6 +317,30 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
         "",
     )
     return evidence, text
+
+
+def _dissipation_days(inst: pd.DataFrame, usable: pd.DataFrame, now: dt.datetime) -> np.ndarray:
+    """Days from `now` to each capacitor's dissipation-factor maximum on its ESR trend (3, G)."""
+    measured = usable[usable["esr_ohm"].notna()]
+    group = inst.index.get_indexer(measured["installation_id"])
+    frequency = inst["frequency_hz"].to_numpy(float)[group]
+    dissipation = dissipation_factor_from_esr(
+        measured["esr_ohm"].to_numpy(float), measured["capacitance_uf"].to_numpy(float), frequency
+    )
+    fitted_on = inst["fitted_on"].to_numpy()
+    now_h = (
+        (np.datetime64(pd.Timestamp(now).tz_convert("UTC").tz_localize(None), "s") - fitted_on.astype("datetime64[D]"))
+        / np.timedelta64(1, "h")
+    ).astype(float)
+    hours = dissipation_trend(
+        group,
+        _hours_since_fitting(measured, fitted_on[group]),
+        dissipation,
+        len(inst),
+        inst["max_dissipation_factor"].to_numpy(float),
+        now_h,
+    )
+    return hours / 24.0
 
 
 def assess(
@@ -413,6 +440,12 @@ def assess(
         inst["tolerance_plus_pct"].to_numpy(float),
     )
     evidence, evidence_text = _evidence(latest, verdict.code, inst)
+    wear_days = _dissipation_days(inst, readings[~readings["superseded"]], now)
+    wear_words = (
+        "the part's "
+        + pd.Series(100 * inst["max_dissipation_factor"].to_numpy(float)).map("{:.1f}".format).to_numpy(object)
+        + " % dissipation-factor maximum"
+    )
     judgement = judge(
         limit_names=ALL_LIMITS,
         limit_fraction=np.where(limit_used & finite, limit_fraction, np.nan),
@@ -424,6 +457,8 @@ def assess(
         evidence=evidence,
         evidence_text=evidence_text,
         today=now.date(),
+        wear_days=wear_days,
+        wear_words=wear_words,
         settings=PlanningSettings(),
     )
     return Assessed(
@@ -442,6 +477,7 @@ def assess(
         figures_now=figures_now,
         figures_new=figures_new,
         terms=terms,
+        wear_days=wear_days,
     )
 
 
@@ -510,6 +546,7 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
     )
     slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
     governing = judgement.governing
+    max_dissipation = inst["max_dissipation_factor"].to_numpy(float)
     rows = []
     for i, installation_id in enumerate(inst.index):
         aside = bool(result.set_aside[i])
@@ -526,6 +563,17 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
             for k, name in enumerate(ALL_LIMITS)
             if k == 0 or np.isfinite(result.limit_fraction[k, i])
         ]
+        if np.isfinite(max_dissipation[i]):
+            limits.append(
+                {
+                    "name": DISSIPATION_LIMIT,
+                    "fraction_of_rated": None,
+                    "maximum": float(max_dissipation[i]),
+                    "used": True,
+                    "note": "",
+                    **{f"p{q}_on": _iso(day(result.wear_days[k, i])) for k, q in enumerate((10, 50, 90))},
+                }
+            )
         trend = (
             {}
             if aside
@@ -567,10 +615,10 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
                 if np.isfinite(result.latest_fraction_25c[i]) or not aside
                 else 0.0,
                 latest_verdict=VERDICT_NAMES[int(result.verdict_code[i])],
-                limit_fraction=float(result.limit_fraction[max(g, 0), i])
-                if g >= 0
+                limit_fraction=float(result.limit_fraction[g, i])
+                if 0 <= g < len(ALL_LIMITS)
                 else float(result.limit_fraction[0, i]),
-                limit_source=ALL_LIMITS[g] if g >= 0 else TOLERANCE_LIMIT,
+                limit_source=(*ALL_LIMITS, DISSIPATION_LIMIT)[g] if g >= 0 else TOLERANCE_LIMIT,
                 p10_on=day(judgement.days[0, i]),
                 p50_on=day(judgement.days[1, i]),
                 p90_on=day(judgement.days[2, i]),

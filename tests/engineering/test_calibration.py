@@ -133,3 +133,18 @@ def test_without_a_temperature_spread_the_default_coefficient_stays():
     group, time_h, measured, temperature, _, part = _small_fleet(n=100, temperature_spread=0.0, tempco_ppm=900.0)
     fit = _fit(group, time_h, measured, temperature, part, tempco_ppm_per_k=np.full(100, 500.0))
     assert fit.priors.tempco_ppm_per_k[0] == pytest.approx(500.0)
+
+
+def test_a_rising_dissipation_factor_is_projected_to_its_maximum():
+    """[derived] DF = 0.03 + 1e-5 per hour read quarterly: from 0.08 at 5000 h, 0.10 is 2000 h away."""
+    from fleet.engineering.trends import dissipation_trend
+
+    rng = np.random.default_rng(4)
+    time_h = np.arange(1, 13) * 400.0
+    group = np.zeros(12, int)
+    dissipation = 0.03 + 1e-5 * time_h + rng.normal(0, 2e-4, 12)
+    hours = dissipation_trend(group, time_h, dissipation, 1, np.array([0.10]), np.array([5000.0]))
+    assert hours[1, 0] == pytest.approx(2000.0, rel=0.05)
+    assert hours[0, 0] < hours[1, 0] < hours[2, 0]
+    few = dissipation_trend(np.zeros(2, int), time_h[:2], dissipation[:2], 1, np.array([0.10]), np.array([5000.0]))
+    assert np.isinf(few).all()
