@@ -691,6 +691,9 @@ class BandCalibration(models.Model):
     acceleration_per_h = models.FloatField(
         default=0.0, help_text="Relative growth of a capacitor's own slope per calendar hour ahead"
     )
+    trend_model = models.CharField(
+        max_length=12, blank=True, help_text="Trend form with the smaller back-tested error (linear or log-linear)"
+    )
     curvature_per_h2 = models.FloatField(
         default=0.0, help_text="Common bend of the path, fraction of rated per calendar hour squared"
     )

@@ -160,3 +160,21 @@ def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_
     assert "dissipation-factor maximum" in assessment.reason
     wear = [limit for limit in assessment.limits if limit["name"] == "dissipation factor"][0]
     assert wear["maximum"] == pytest.approx(0.10) and wear["p50_on"] is not None
+
+
+@pytest.mark.django_db
+@pytest.mark.parametrize("truth, expected", [("log-linear", "log-linear"), ("linear", "linear")])
+def test_the_back_test_chooses_the_trend_form_that_forecasts_better(truth, expected):
+    """Issue 8: the form is chosen by out-of-sample error, not in-sample noise. Paths of our own,
+    steep enough (a third of the rating lost in four years) for the two forms to part."""
+    part = make_part(tolerance_minus_pct=60)
+    rng = np.random.default_rng(7)
+    for _ in range(40):
+        installation = make_installation(part=part, fitted_on=dt.date(2022, 1, 1))
+        rate = rng.uniform(0.02, 0.035)  # per quarter
+        quarters = np.arange(16)
+        fraction = np.exp(-rate * quarters) if truth == "log-linear" else 1 - rate * quarters
+        quarterly_readings(installation, START, 4.0 * fraction * (1 + rng.normal(0, 0.003, 16)))
+    backtest = run_backtest(start_backtest(quarters=6, queue=False).id)
+    assert backtest.state == "done", backtest.message
+    assert BandCalibration.objects.get(family="film").trend_model == expected

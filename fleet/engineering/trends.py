@@ -217,6 +217,7 @@ def fit_trends(
     priors: PartPriors | None = None,
     tempco_ppm_per_k=None,
     tempco_fixed=None,
+    model_per_capacitor=None,
 ) -> TrendFit:
     """Fit every capacitor's path at once.
 
@@ -229,6 +230,8 @@ def fit_trends(
     not finite or not within 5 %..300 % of rated are never fitted. With `priors`
     (from an earlier fleet-wide fit) the parts' populations and temperature
     coefficients are taken as given, so a handful of capacitors can be refitted alone.
+    `model_per_capacitor` ("linear", "log-linear", or "" to choose by noise) sets
+    the form of each capacitor's part, as a back-test chose it.
     """
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
@@ -297,6 +300,11 @@ def fit_trends(
         linear_noise = fits[MODEL_LINEAR]["part_noise_sd"]
         log_noise = fits[MODEL_LOG]["part_noise_sd"] * fits[MODEL_LOG]["part_mean_fraction"]
         chosen = np.where(log_noise < 0.9 * linear_noise, MODEL_LOG, MODEL_LINEAR)
+        if model_per_capacitor is not None and n_groups:
+            # A form chosen by back-tested (out-of-sample) error overrides the in-sample noise.
+            forced = np.full(n_parts, "", dtype=object)
+            forced[part] = np.asarray(model_per_capacitor, dtype=object)
+            chosen = np.where(np.isin(forced, [MODEL_LINEAR, MODEL_LOG]), forced, chosen)
     model_per_group = chosen[part] if n_groups else np.array([], dtype=object)
     use_log = model_per_group == MODEL_LOG
 

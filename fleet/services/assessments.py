@@ -83,13 +83,22 @@ def _hours_since_fitting(readings: pd.DataFrame, fitted_on: np.ndarray) -> np.nd
     return (taken - fitted) / np.timedelta64(1, "h")
 
 
-def fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors | None, part_ids) -> TrendFit:
-    """Run the trend fit on frames (inst indexed by installation id)."""
+def fit_frames(
+    inst: pd.DataFrame,
+    readings: pd.DataFrame,
+    priors: PartPriors | None,
+    part_ids,
+    forms: dict[str, str] | None = None,
+    settings: TrendSettings | None = None,
+) -> TrendFit:
+    """Run the trend fit on frames (inst indexed by installation id); `forms` maps a dielectric
+    to the trend form its back-test chose (stored ones by default)."""
     group = inst.index.get_indexer(readings["installation_id"])
     part_index = pd.Index(part_ids).get_indexer(inst["part_id"])
     fitted_on = inst["fitted_on"].to_numpy()[group]
-    settings = TrendSettings()
+    settings = settings or TrendSettings()
     own_tempco = inst["part_tempco_ppm_per_k"].to_numpy(float)
+    forms = stored_forms() if forms is None else forms
     return fit_trends(
         group=group,
         part=part_index,
@@ -106,6 +115,7 @@ def fit_frames(inst: pd.DataFrame, readings: pd.DataFrame, priors: PartPriors | 
             np.isnan(own_tempco), default_tempco_ppm_per_k(inst["dielectric"].to_numpy(), settings), own_tempco
         ),
         tempco_fixed=~np.isnan(own_tempco),
+        model_per_capacitor=inst["dielectric"].map(forms).astype(object).fillna("").to_numpy(object),
     )
 
 
@@ -177,6 +187,11 @@ CALIBRATION_FIELDS = (
     "acceleration_per_h",
     "curvature_per_h2",
 )
+
+
+def stored_forms() -> dict[str, str]:
+    """The trend form each dielectric's latest back-test chose."""
+    return dict(BandCalibration.objects.exclude(trend_model="").values_list("family", "trend_model"))
 
 
 def stored_calibration() -> dict[str, tuple[float, ...]]:
@@ -349,6 +364,7 @@ def assess(
     *,
     priors: PartPriors | None,
     calibration: dict[str, tuple[float, ...]],
+    forms: dict[str, str],
     now: dt.datetime,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
@@ -357,7 +373,7 @@ def assess(
     at a past cut-off (and `now` = the cut-off) and scores it against later ones.
     """
     part_ids = np.sort(inst["part_id"].unique())
-    fit = fit_frames(inst, readings, priors, part_ids)
+    fit = fit_frames(inst, readings, priors, part_ids, forms)
     n = len(inst)
     rated_uf = inst["rated_uf"].to_numpy(float)
     limit_fraction = np.full((len(ALL_LIMITS), n), np.nan)
@@ -510,7 +526,14 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     inst = inst.set_index("installation_id", drop=False)
     readings = readings[readings["installation_id"].isin(inst.index)].reset_index(drop=True)
     part_ids = np.sort(inst["part_id"].unique())
-    result = assess(inst, readings, priors=_stored_priors(part_ids.tolist()), calibration=stored_calibration(), now=now)
+    result = assess(
+        inst,
+        readings,
+        priors=_stored_priors(part_ids.tolist()),
+        calibration=stored_calibration(),
+        forms=stored_forms(),
+        now=now,
+    )
     rows = _assessment_rows(result, readings, max_reading_id, now.date())
     with transaction.atomic():
         Assessment.objects.filter(installation_id__in=inst.index.tolist(), is_current=True).update(is_current=False)

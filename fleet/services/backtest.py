@@ -22,10 +22,10 @@ from django.utils import timezone
 
 from fleet.engineering.backtest import first_crossing_day, projection_errors, score
 from fleet.engineering.calibration import estimate_calibration
-from fleet.engineering.trends import MODEL_LOG
+from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
-from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess
+from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames
 from .selectors import installations_frame, readings_frame
 
 VARIANTS = ("default", "calibrated")
@@ -96,6 +96,44 @@ def _estimate(errors: pd.DataFrame, n_families: int, cutoff: pd.Timestamp | None
     )
 
 
+FORMS = (MODEL_LINEAR, MODEL_LOG)
+
+
+def _form_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
+    """Squared projection error of each later reading, in fractions of rated, under each trend form."""
+    part_ids = np.sort(inst["part_id"].unique())
+    hours = _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group])
+    out = {}
+    for form in FORMS:
+        fit = fit_frames(inst, before, None, part_ids, {family: form for family in families})
+        _, _, error, _, fraction = projection_errors(
+            fit,
+            group,
+            hours,
+            later["capacitance_uf"].to_numpy(float),
+            later["case_temperature_c"].to_numpy(float),
+            inst["rated_uf"].to_numpy(float),
+        )
+        predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
+        out[f"sq_{form}"] = (fraction - predicted) ** 2
+    return out
+
+
+def _forms(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None) -> dict[str, str]:
+    """Per family, the trend form whose projections strayed least from the readings that came
+    later (before `cutoff`), among errors small enough to be ageing rather than a slip."""
+    if cutoff is not None:
+        errors = errors[errors["taken"] < cutoff]
+    chosen = {}
+    for k, family in enumerate(families):
+        mine = errors[errors["family"] == k]
+        squared = mine[[f"sq_{form}" for form in FORMS]].to_numpy(float)
+        squared = squared[np.isfinite(squared).all(axis=1) & (squared < 0.25**2).all(axis=1)]
+        if len(squared) >= 100:
+            chosen[family] = FORMS[int(np.argmin(squared.mean(axis=0)))]
+    return chosen
+
+
 def _run(backtest: Backtest) -> None:
     ids = list(FittedCapacitor.objects.filter(readings__isnull=False).distinct().values_list("id", flat=True))
     inst_all = installations_frame(ids).set_index("installation_id", drop=False)
@@ -106,7 +144,7 @@ def _run(backtest: Backtest) -> None:
     part_codes = dict(
         CapacitorPart.objects.filter(id__in=inst_all["part_id"].unique().tolist()).values_list("id", "code")
     )
-    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken"])
+    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken", *[f"sq_{f}" for f in FORMS]])
     forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
     per_cutoff = []
     fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
@@ -120,6 +158,7 @@ def _run(backtest: Backtest) -> None:
             continue
         before = before.reset_index(drop=True)
         terms = _estimate(errors, len(families), cutoff)
+        forms = _forms(errors, families, cutoff)
         calibrations = {
             "default": {},
             "calibrated": {family: tuple(terms.per_capacitor([k])[:, 0]) for k, family in enumerate(families)},
@@ -135,7 +174,9 @@ def _run(backtest: Backtest) -> None:
         family = pd.Index(families).get_indexer(inst["dielectric"].to_numpy())
         summary = {"cutoff": cutoff_text, "capacitors": int(len(inst)), "later_readings": int(len(later))}
         for variant in VARIANTS:
-            result = assess(inst, before, priors=None, calibration=calibrations[variant], now=cutoff.to_pydatetime())
+            result = assess(
+                inst, before, priors=None, calibration=calibrations[variant], forms=forms, now=cutoff.to_pydatetime()
+            )
             change, span, error, variance, fraction = projection_errors(
                 result.fit,
                 group,
@@ -167,8 +208,10 @@ def _run(backtest: Backtest) -> None:
             forecasts[variant].append(frame)
             summary[variant] = _scores(frame, part_codes)["all"]
             if variant == "default":
+                form_errors = _form_errors(inst, before, later, group, families)
                 fresh_errors = pd.DataFrame(
                     {
+                        **form_errors,
                         "family": family[group],
                         "capacitor": inst.index.to_numpy()[group] * 1000 + number,
                         "x": change,
@@ -183,9 +226,11 @@ def _run(backtest: Backtest) -> None:
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
     terms = _estimate(errors, len(families), None)
+    forms = _forms(errors, families, None)
     calibration = {
         family: {
             **dict(zip(CALIBRATION_FIELDS, terms.per_capacitor([k])[:, 0], strict=True)),
+            "trend_model": forms.get(family, ""),
             "capacitors": int(terms.capacitors[k]),
             "residuals": int(terms.residuals[k]),
         }
