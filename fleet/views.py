@@ -100,7 +100,15 @@ def _installation(request, installation_id) -> FittedCapacitor:
 def capacitor_detail(request, installation_id):
     installation = _installation(request, installation_id)
     assessment = installation.assessments.filter(is_current=True).first()
+    successor = (
+        FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
+        .only("id", "fitted_on")
+        .first()
+        if installation.removed_on
+        else None
+    )
     context = {
+        "successor": successor,
         "installation": installation,
         "motor": installation.motor,
         "assessment": assessment,
@@ -145,7 +153,15 @@ def reading_new(request, installation_id):
     else:
         form = ReadingForm()
     assessment = installation.assessments.filter(is_current=True).first()
+    successor = (
+        FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
+        .only("id", "fitted_on")
+        .first()
+        if installation.removed_on
+        else None
+    )
     context = {
+        "successor": successor,
         "installation": installation,
         "motor": installation.motor,
         "part": installation.part,
@@ -424,12 +440,19 @@ def life_data(request):
 
 
 def _float_param(request, name, default) -> float:
-    """A positive, finite number from the query string; anything else gives the default."""
-    try:
-        value = float(request.GET.get(name, default))
-    except ValueError:
+    """A positive, finite number from the query string; anything else gives the default, and says so."""
+    text = request.GET.get(name)
+    if text is None or text == "":
         return default
-    return value if 0 < value < float("inf") else default
+    try:
+        value = float(text.replace(",", ".", 1) if text.count(",") == 1 and "." not in text else text)
+    except ValueError:
+        value = float("nan")
+    if 0 < value < float("inf"):
+        return value
+    label = name.replace("_", " ")
+    messages.warning(request, f"The {label} must be a number above zero; {text!r} was not used, {default:g} was.")
+    return default
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)

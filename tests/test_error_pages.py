@@ -25,3 +25,28 @@ def test_a_missing_page_offers_the_motor_search(client):
     response = client.get("/motors/NO-SUCH-TAG/")
     assert response.status_code == 404
     assert reverse("find") in response.content.decode()
+
+
+@pytest.mark.django_db
+def test_a_removed_capacitor_points_to_the_one_fitted_now(client, technician):
+    import datetime as dt
+
+    from fleet.services.readings import replace_capacitor
+
+    installation = make_installation()
+    successor = replace_capacitor(
+        installation=installation, part=installation.part, removed_on=dt.date(2025, 6, 1), reason="planned"
+    )
+    client.force_login(technician)
+    body = client.get(reverse("capacitor", args=[installation.id])).content.decode()
+    assert "out of service" in body and reverse("capacitor", args=[successor.id]) in body
+    assert "Replace by" not in body
+
+
+@pytest.mark.django_db
+def test_a_cost_that_is_not_a_number_is_named_not_silently_replaced(client, engineer):
+    client.force_login(engineer)
+    response = client.get(reverse("life_data") + "?planned_cost=abc&failure_cost=-1", follow=True)
+    text = response.content.decode()
+    assert "The planned cost must be a number above zero; &#x27;abc&#x27; was not used" in text
+    assert "The failure cost must be a number above zero" in text
