@@ -49,7 +49,8 @@ def home(request):
     context = {"find_form": FindMotorForm(), "sites": scope_to_user(Site.objects.all(), request.user)}
     if request.user.has_perm("fleet.view_assessment"):
         context["risks"] = pages.risk_summary(request.user)
-        context["plan"] = pages.replacement_plan(horizon_days=30, user=request.user)[:15]
+        due = pages.replacement_plan(horizon_days=30, user=request.user)
+        context["plan"], context["plan_total"] = due[:15], due.count()
         context["run"] = pages.latest_refit_run()
     return render(request, "fleet/home.html", context)
 
