@@ -28,6 +28,11 @@ api_patterns = [
         login_not_required(api.CapacitorReadings.as_view()),
         name="api_capacitor_readings",
     ),
+    path(
+        "api/capacitors/<int:pk>/substitutes/",
+        login_not_required(api.CapacitorSubstitutes.as_view()),
+        name="api_capacitor_substitutes",
+    ),
 ]
 
 urlpatterns = [

@@ -41,6 +41,7 @@ from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_installations
 from .services.register import set_route_order
+from .services.substitutes import substitutes_for
 from .services.workorders import issue_visit, open_visits, plan_work_orders
 from .tasks import QueueUnreachable
 
@@ -166,6 +167,16 @@ def _add_errors(form, error: ValidationError) -> None:
         form.add_error(field if shown else None, field_messages)
 
 
+def _stock_message(request, successor) -> None:
+    site = successor.motor.site.code
+    if successor.from_stock:
+        messages.info(request, f"Stock at {site}: {successor.stock_left} of {successor.part.code} left.")
+    else:
+        messages.warning(
+            request, f"No {successor.part.code} was in stock at {site}: the replacement is recorded, the stock shows 0."
+        )
+
+
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
     installation = _installation(request, installation_id)
@@ -180,17 +191,27 @@ def replace(request, installation_id):
                 user=request.user,
                 serial=form.cleaned_data["serial"],
                 notes=form.cleaned_data["notes"],
+                substitute_override=form.cleaned_data["substitute_override"],
+                override_reason=form.cleaned_data["override_reason"],
             )
         except ValidationError as error:
             _add_errors(form, error)
         else:
             messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
+            _stock_message(request, successor)
             return redirect("reading_new", installation_id=successor.id)
+    advice = substitutes_for(installation)
+    choosable = set(form.fields["part"].queryset.values_list("id", flat=True))
+    chosen = str(form["part"].value() or "")
     context = {
         "installation": installation,
         "motor": installation.motor,
         "form": form,
         "energy_j": _energy_j(installation.part),
+        "advice": advice,
+        "singles": [i for i in advice["items"] if i["arrangement"] == "single" and i["part_ids"][0] in choosable],
+        "pairs": [i for i in advice["items"] if i["arrangement"] != "single" and i["verdict"] != "unsuitable"],
+        "chosen": chosen,
     }
     return render(request, "fleet/replace.html", context)
 
