@@ -330,7 +330,7 @@ def advise(
             np.inf,
             limits,
         )
-        fraction = float(np.nan_to_num(window.governing_fraction, nan=0.0))
+        fraction = float(np.nan_to_num(np.ravel(window.governing_fraction)[0], nan=0.0))
         lowest_uf = fraction * position.design_uf
         near = (uf >= lowest_uf) & (uf < lowest_uf * (1 + rules.edge_margin))
         rule(
