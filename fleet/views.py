@@ -40,8 +40,8 @@ from .services.import_jobs import (
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_installations
-from .services.register import set_route_order
-from .services.substitutes import substitutes_for
+from .services.register import set_route_order, set_site_stock
+from .services.substitutes import part_families, substitutes_for
 from .services.workorders import issue_visit, open_visits, plan_work_orders
 from .tasks import QueueUnreachable
 
@@ -495,3 +495,30 @@ def visit_sheet(request, site_code, day):
     if not visits:
         raise Http404("No open work orders for that visit")
     return render(request, "fleet/visit_sheet.html", {"visit": visits[0], "site": site})
+
+
+@permission_required("fleet.view_sitestock", raise_exception=True)
+def site_stock(request, site_code):
+    """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+    errors = {}
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.change_sitestock"):
+            raise PermissionDenied
+        quantities = {int(k[4:]): v for k, v in request.POST.items() if k.startswith("qty-") and k[4:].isdigit()}
+        try:
+            set_site_stock(site=site, quantities=quantities)
+        except ValidationError as error:
+            errors = error.message_dict
+        else:
+            messages.success(request, "Stock saved.")
+            return redirect("site_stock", site_code=site.code)
+    held = dict(site.stock.values_list("part_id", "quantity"))
+    rows = [(part, held.get(part.id, 0)) for part in CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")]
+    return render(request, "fleet/stock.html", {"site": site, "rows": rows, "errors": errors})
+
+
+@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+def stand_in_parts(request):
+    """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
+    return render(request, "fleet/stand_in_parts.html", {"families": part_families(request.user)})

@@ -128,3 +128,33 @@ def test_api_is_scoped_to_the_users_sites(fan_installation):
     SiteMembership.objects.create(user=user, site=make_site())
     url = reverse("api_capacitor_substitutes", args=[fan_installation.id])
     assert client_for(user).get(url).status_code == 404
+
+
+def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planner, technician, fan_installation):
+    site, part = fan_installation.motor.site, fan_installation.part
+    other = make_part(code="FILM-2U0", rated_uf=2.0)
+    url = reverse("site_stock", args=[site.code])
+    signed_in_client(client, planner)
+    refused = client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "-1"})
+    assert f"{other.code}: &#x27;-1&#x27; is not a whole number" in refused.content.decode()
+    assert not SiteStock.objects.exists()
+    assert client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "0"}).status_code == 302
+    assert list(SiteStock.objects.values_list("part__code", "quantity")) == [(part.code, 4)]
+    signed_in_client(client, technician)
+    assert client.get(url).status_code == 200
+    assert client.post(url, {f"qty-{part.id}": "9"}).status_code == 403
+
+
+def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engineer, fan_installation):
+    """[derived] the example fan is one design; its own part and a second 4 uF film part suit it, a 2 uF part
+    does not (it breaks the main-winding current limit), an electrolytic does not (duty, [trade])."""
+    make_part(code="FILM-4U0-B", rated_uf=4.0)
+    make_part(code="FILM-2U0", rated_uf=2.0)
+    make_part(code="ELEC-4U0", rated_uf=4.0, dielectric="electrolytic")
+    signed_in_client(client, engineer)
+    body = client.get(reverse("stand_in_parts")).content.decode()
+    compact = " ".join(body.split())
+    assert f"<td>{fan_installation.part.code}</td>" in compact
+    for code, suited in ((fan_installation.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0), ("ELEC-4U0", 0)):
+        row = compact.split(f"<td>{code}</td>")[1].split("</tr>")[0]
+        assert f"{suited} of 1" in row, (code, row)
