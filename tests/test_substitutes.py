@@ -65,9 +65,11 @@ def test_a_suitable_part_needs_no_override_and_the_screen_lists_it_first_with_th
     signed_in_client(client, technician)
     same = make_part(code="FILM-4U0-B", rated_uf=4.0)
     make_part(code="FILM-2U0", rated_uf=2.0)
+    make_part(code="FILM-4U2", rated_uf=4.2)
+    make_part(code="FILM-4U0-400V", rated_uf=4.0, rated_voltage_v=400)  # nearer the design value, but unsuitable
     SiteStock.objects.create(site=fan_installation.motor.site, part=same, quantity=3)
     body = client.get(reverse("replace", args=[fan_installation.id])).content.decode()
-    assert body.index("FILM-4U0-B") < body.index("FILM-2U0")
+    assert body.index("FILM-4U0-B") < body.index("FILM-4U2") < body.index("FILM-4U0-400V") < body.index("FILM-2U0")
     assert "3 on site" in body and "main 0.91 A" in body
     assert "Caution: capacitors store a charge that can kill" in body
     assert "FILM-2U0 + FILM-2U0" in body and "each must carry the full voltage rating" in body

@@ -176,7 +176,10 @@ def test_a_value_far_above_the_design_is_unsuitable():
     advice = by_code(advise(fan_position(), parts(("THIRTY", 30.0, 450.0, "film"))))
     verdict, reasons, _ = advice["THIRTY"]
     assert verdict == "unsuitable"
-    assert any("main-winding current" in r for r in reasons)
+    assert any("outside the run band" in r for r in reasons)
+    assert any("breaks the motor's limit: main-winding current" in r for r in reasons)
+    wide = advise(fan_position(), parts(("THIRTY", 30.0, 450.0, "film")), SubstituteRules(run_band=10.0))
+    assert wide.verdict.tolist() == ["unsuitable"]  # the motor's limit alone decides
 
 
 def test_near_the_lowest_value_where_the_limits_hold_is_marginal():
