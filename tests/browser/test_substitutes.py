@@ -12,10 +12,12 @@ pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
 def test_replacement_screen_lists_suitable_parts_first_and_records_an_override(phone):
     """[derived] on the example fan (4 uF 450 V film run): a second 4 uF part is suitable, 4.8 uF (outside the
-    +/-10 % run band, [trade]) unsuitable and needs the override with a reason."""
+    +/-10 % run band, [trade]) and a 4 uF 400 V part (below the original's rating, [trade]) unsuitable; the
+    unsuitable one nearer the design value is still listed after the suitable ones."""
     installation = make_installation()
     suitable = make_part(code="FILM-4U0-B", rated_uf=4.0)
     big = make_part(code="FILM-4U8", rated_uf=4.8)
+    make_part(code="FILM-4U0-400V", rated_uf=4.0, rated_voltage_v=400)  # the design value, but a lower rating
     SiteStock.objects.create(site=installation.motor.site, part=suitable, quantity=2)
     sign_in(phone, make_user("technician"))
     phone.goto(f"/capacitors/{installation.id}/replace/")
