@@ -109,6 +109,7 @@ class Advice:
     candidates: Candidates
     verdict: np.ndarray
     reasons: list[list[str]]
+    concerns: list[list[str]]  # the reasons of the rules that made a candidate marginal or unsuitable
     cautions: list[str]
     figures: OperatingFigures | None  # with each candidate fitted; None without a circuit
     design_figures: OperatingFigures | None  # with the design's own value
@@ -197,10 +198,14 @@ def _capacitor_voltage(position: Position, figures: OperatingFigures) -> np.ndar
 
 
 def _levels_and_reasons(levels: list[np.ndarray], reasons: list[list[str | None]]):
-    """Worst level per candidate, and every reason given for it (in rule order)."""
-    verdict = np.max(np.stack(levels), axis=0)
+    """Worst level per candidate, every reason given for it and those that count against it (in rule order)."""
+    stacked = np.stack(levels)
     per_candidate = [[text for text in texts if text] for texts in zip(*reasons, strict=True)]
-    return VERDICTS[verdict], per_candidate
+    concerns = [
+        [text for text, level in zip(texts, column, strict=True) if text and level > 0]
+        for texts, column in zip(zip(*reasons, strict=True), stacked.T, strict=True)
+    ]
+    return VERDICTS[stacked.max(axis=0)], per_candidate, concerns
 
 
 def advise(
@@ -344,13 +349,14 @@ def advise(
             ],
         )
 
-    verdict, per_candidate = _levels_and_reasons(levels, reasons)
+    verdict, per_candidate, concerns = _levels_and_reasons(levels, reasons)
     arrangement = candidates.arrangement if candidates.arrangement is not None else np.full(n, SINGLE)
     cautions = [CAUTION_PARALLEL if a == PARALLEL else CAUTION_SERIES if a == SERIES else "" for a in arrangement]
     return Advice(
         candidates=candidates,
         verdict=verdict,
         reasons=per_candidate,
+        concerns=concerns,
         cautions=cautions,
         figures=figures,
         design_figures=design_figures,

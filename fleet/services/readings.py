@@ -224,7 +224,7 @@ def replace_capacitor(
             raise ValidationError(
                 {
                     "substitute_override": f"{part.code} is {advice['verdict']} here ("
-                    + "; ".join(advice["reasons"])
+                    + "; ".join(advice["concerns"])
                     + "). Tick the override and give a reason to fit it anyway."
                 }
             )

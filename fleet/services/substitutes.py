@@ -155,6 +155,7 @@ def substitutes_for(installation: FittedCapacitor, *, codes: list[str] | None = 
                 "arrangement": str(candidates.arrangement[n]),
                 "verdict": str(advice.verdict[n]),
                 "reasons": advice.reasons[n],
+                "concerns": advice.concerns[n],
                 "caution": advice.cautions[n],
                 "rated_uf": _number(candidates.rated_uf[n]),
                 "rated_voltage_v": _number(candidates.rated_voltage_v[n], 1),

@@ -102,6 +102,7 @@ def test_rated_voltage_below_the_predicted_capacitor_voltage_is_unsuitable_and_s
     assert verdict == "unsuitable"
     assert any(f"below the predicted capacitor voltage {predicted:.0f} V" in r for r in reasons)
     assert advice["HIGH-V"][0] == "suitable"
+    assert advise(position, parts(("HIGH-V", DESIGN_UF, high, "film"))).concerns == [[]]
 
 
 def test_never_a_lower_voltage_rating_than_the_part_it_replaces():
