@@ -9,10 +9,12 @@ import pytest
 from django.urls import reverse
 from django.utils import timezone
 
+from fleet.engineering.motor import MotorCircuit, two_winding_running
 from fleet.models import FittedCapacitor, SiteMembership, SiteStock
 from fleet.roles import TECHNICIAN
+from fleet.services.demo import EXAMPLE_FAN_CIRCUIT
 
-from .conftest import make_part, make_site, make_user
+from .conftest import make_installation, make_motor, make_part, make_site, make_user
 from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
@@ -160,3 +162,53 @@ def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engi
     for code, suited in ((fan_installation.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0), ("ELEC-4U0", 0)):
         row = compact.split(f"<td>{code}</td>")[1].split("</tr>")[0]
         assert f"{suited} of 1" in row, (code, row)
+
+
+def test_a_motor_without_a_circuit_is_judged_by_ratings_alone(client, technician, engineer):
+    """[trade] no model: within the original's marked tolerance (+/-5 %) and ratings; figures are null."""
+    installation = make_installation(motor=make_motor(with_circuit=False))
+    make_part(code="FILM-4U1", rated_uf=4.1)
+    make_part(code="FILM-4U5", rated_uf=4.5)
+    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[installation.id])).json()
+    items = {item["part_code"]: item for item in body["items"]}
+    assert body["has_circuit"] is False and body["design"]["main_current_a"] is None
+    assert items["FILM-4U1"]["verdict"] == "suitable" and items["FILM-4U5"]["verdict"] == "unsuitable"
+    assert any("ratings alone" in reason for reason in items["FILM-4U1"]["reasons"])
+    signed_in_client(client, technician)
+    page = client.get(reverse("replace", args=[installation.id])).content.decode()
+    assert "parts are judged by their ratings alone" in page
+
+
+def test_the_start_capacitor_of_a_two_value_motor_is_judged_with_its_run_capacitor_in_parallel(engineer):
+    """[derived] a two-value motor starts on run + start in parallel: the start candidate's starting torque
+    is the model's with both, and the design's own electrolytic is suitable where a film part is not ([trade])."""
+    motor = make_motor(motor_type="two_value")
+    make_installation(motor=motor, role="run")
+    start = make_installation(
+        motor=motor,
+        role="start",
+        part=make_part(
+            code="ELEC-40",
+            rated_uf=40.0,
+            rated_voltage_v=250,
+            dielectric="electrolytic",
+            tolerance_minus_pct=0,
+            tolerance_plus_pct=20,
+            class_of_operation="",
+        ),
+    )
+    make_part(code="FILM-40", rated_uf=40.0, rated_voltage_v=250, class_of_operation="")
+    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[start.id])).json()
+    items = {item["part_code"]: item for item in body["items"]}
+    assert items["ELEC-40"]["verdict"] == "suitable", items["ELEC-40"]["reasons"]
+    assert items["FILM-40"]["verdict"] == "unsuitable"
+    circuit = MotorCircuit.from_arrays(
+        **{name: EXAMPLE_FAN_CIRCUIT[f"{name}_ohm"] for name in ("r1m", "x1m", "r1a", "x1a", "r2", "x2", "xm")},
+        turns_ratio=EXAMPLE_FAN_CIRCUIT["turns_ratio"],
+        voltage_v=motor.rated_voltage_v,
+        frequency_hz=motor.frequency_hz,
+        poles=motor.poles,
+        rotational_loss_w=EXAMPLE_FAN_CIRCUIT["rotational_loss_w"],
+    )
+    both = two_winding_running(circuit, 4.0 + 40.0, 1.0)  # 4 uF run + 40 uF start, at standstill
+    assert items["ELEC-40"]["starting_torque_nm"] == pytest.approx(float(both.torque_nm), rel=1e-3)
