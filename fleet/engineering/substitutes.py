@@ -37,8 +37,8 @@ CAUTION_SERIES = (
 class SubstituteRules:
     """Thresholds of the advice, each with its source."""
 
-    # Rated voltage at least this times the predicted capacitor voltage.
-    # Common practice of the trade, no single source.
+    # Rated voltage at least this times the predicted capacitor voltage, else marginal (below the predicted
+    # voltage itself: unsuitable). Common practice of the trade, no single source.
     voltage_margin: float = 1.10
     # Run capacitor within this fraction of the design value (either way).
     # Common practice of the trade, no single source (often quoted as +/-5 to 10 %).
@@ -292,16 +292,19 @@ def advise(
         figures = _figures_for(position, uf)
         design_figures = _figures_for(position, np.array([position.design_uf]))
         predicted = _capacitor_voltage(position, figures)
-        # Rated voltage at least the predicted capacitor voltage with the margin.
-        needed = rules.voltage_margin * predicted
-        short = volts < needed
+        # Rated voltage at least the predicted capacitor voltage (the forecast's own limit, DriftLimits), and
+        # marginal without the margin above it.
+        below = volts < limits.capacitor_voltage_ratio * predicted
+        tight = ~below & (volts < rules.voltage_margin * predicted)
         rule(
-            np.where(short, 2, 0),
+            np.where(below, 2, np.where(tight, 1, 0)),
             [
-                f"rated {v:g} V is below the predicted capacitor voltage {p:.0f} V x {rules.voltage_margin:g} margin"
-                if s
+                f"rated {v:g} V is below the predicted capacitor voltage {p:.0f} V"
+                if b
+                else f"rated {v:g} V is within the {rules.voltage_margin - 1:.0%} margin above the predicted {p:.0f} V"
+                if t
                 else f"rated {v:g} V covers the predicted {p:.0f} V with margin"
-                for v, p, s in zip(volts, predicted, short, strict=True)
+                for v, p, b, t in zip(volts, predicted, below, tight, strict=True)
             ],
         )
         # The motor's limits (the forecast's DriftLimits) with the candidate fitted, at its value and at the

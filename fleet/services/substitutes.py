@@ -10,6 +10,7 @@ from django.db.models import Count, Min
 
 from fleet.engineering.drift import ROLE_RUN
 from fleet.engineering.substitutes import (
+    MARGINAL,
     SINGLE,
     SUITABLE,
     Advice,
@@ -189,7 +190,8 @@ def verdict_of_part(installation: FittedCapacitor, part: CapacitorPart) -> dict:
 
 def part_families(user=None) -> list[dict]:
     """Fewer part numbers: per dielectric, each catalogue part with the number of motor designs (distinct
-    circuit, load and design part among the capacitors in service) it would suit as a single substitute.
+    circuit, load and design part among the capacitors in service) it would suit as a single substitute, and
+    for how many more it would be marginal.
 
     One advice call per design (a fleet's motors share designs by the dozen), never per motor.
     """
@@ -202,13 +204,16 @@ def part_families(user=None) -> list[dict]:
     frame = parts_frame()
     singles = candidates_of(frame)
     suits = np.zeros(len(frame), int)
+    marginal = np.zeros(len(frame), int)
     installations = FittedCapacitor.objects.select_related("part", "motor").in_bulk(
         [design["first_id"] for design in designs]
     )
     for design in designs:
         advice = advise(position_of(installations[design["first_id"]]), singles)
         suits += advice.verdict == SUITABLE
+        marginal += advice.verdict == MARGINAL
     frame["designs_suited"] = suits
+    frame["designs_marginal"] = marginal
     frame["designs"] = len(designs)
     return [
         {"dielectric": dielectric, "parts": rows.sort_values("designs_suited", ascending=False).to_dict("records")}

@@ -92,15 +92,19 @@ def test_the_design_value_is_suitable_and_its_figures_are_the_motor_models():
 
 def test_rated_voltage_below_the_predicted_capacitor_voltage_is_unsuitable_and_says_so():
     """[derived] the fan's run capacitor sits near 392 V at 4 uF, well above the 230 V supply (the primer's
-    warning); [trade] a rating at least 1.1 x that voltage. The original is marked 350 V here, so the
-    never-lower rule does not decide: only the predicted voltage does."""
+    warning); [trade] a rating at least that voltage (the forecast's own limit), marginal without a 10 % margin.
+    The original is marked 350 V here, so the never-lower rule does not decide: only the predicted voltage does."""
     position = fan_position(design_voltage_v=350.0)
     predicted = abs(operating_point(position.circuit, DESIGN_UF, position.load).v_capacitor)
-    low, high = 0.99 * predicted, SubstituteRules().voltage_margin * predicted * 1.01
-    advice = by_code(advise(position, parts(("LOW-V", DESIGN_UF, low, "film"), ("HIGH-V", DESIGN_UF, high, "film"))))
+    low, mid, high = 0.99 * predicted, 1.05 * predicted, SubstituteRules().voltage_margin * predicted * 1.01
+    candidates = parts(
+        ("LOW-V", DESIGN_UF, low, "film"), ("MID-V", DESIGN_UF, mid, "film"), ("HIGH-V", DESIGN_UF, high, "film")
+    )
+    advice = by_code(advise(position, candidates))
     verdict, reasons, _ = advice["LOW-V"]
     assert verdict == "unsuitable"
     assert any(f"below the predicted capacitor voltage {predicted:.0f} V" in r for r in reasons)
+    assert advice["MID-V"][0] == "marginal" and "within the 10% margin" in advice["MID-V"][1][0]
     assert advice["HIGH-V"][0] == "suitable"
     assert advise(position, parts(("HIGH-V", DESIGN_UF, high, "film"))).concerns == [[]]
 
