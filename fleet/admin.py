@@ -24,6 +24,7 @@ from .models import (
     RefitRun,
     Site,
     SiteMembership,
+    SiteStock,
     WorkOrder,
 )
 
@@ -86,6 +87,16 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
     list_select_related = ["motor", "part"]
     autocomplete_fields = ["motor", "part"]
     date_hierarchy = "fitted_on"
+
+
+@admin.register(SiteStock)
+class SiteStockAdmin(admin.ModelAdmin):
+    list_display = ["site", "part", "quantity"]
+    list_editable = ["quantity"]
+    list_filter = ["site", "part__dielectric"]
+    search_fields = ["site__code", "part__code"]
+    list_select_related = ["site", "part"]
+    autocomplete_fields = ["part"]
 
 
 class ReadingAdminForm(forms.ModelForm):

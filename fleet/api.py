@@ -16,6 +16,7 @@ from .filters import AssessmentFilter
 from .models import Assessment, FittedCapacitor, Reading
 from .roles import scope_to_user
 from .services.readings import NeedsConfirmation, record_reading
+from .services.substitutes import substitutes_for
 
 
 class ModelPermissionsWithView(permissions.DjangoModelPermissions):
@@ -170,3 +171,24 @@ class CapacitorReadings(generics.ListCreateAPIView):
             return Response(error.message_dict, status=status.HTTP_400_BAD_REQUEST)
         answer = status.HTTP_200_OK if reading.replayed else status.HTTP_201_CREATED
         return Response(self.get_serializer(reading).data, status=answer)
+
+
+class CapacitorSubstitutes(generics.GenericAPIView):
+    """GET /api/capacitors/<id>/substitutes/?parts=CODE1,CODE2: one entry per candidate part (and pair),
+    suitable first, with `verdict`, `reasons` and the operating figures with that part fitted."""
+
+    permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
+    queryset = FittedCapacitor.objects.none()  # for the permission class's model lookup
+
+    def get(self, request, *args, **kwargs):
+        capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), request.user)
+        installation = get_object_or_404(capacitors, pk=self.kwargs["pk"])
+        raw = request.query_params.get("parts")
+        codes = None if raw is None else [code.strip() for code in raw.split(",") if code.strip()]
+        if codes is not None and not codes:
+            return Response({"parts": ["Name at least one part code."]}, status=status.HTTP_400_BAD_REQUEST)
+        try:
+            advice = substitutes_for(installation, codes=codes)
+        except ValidationError as error:
+            return Response(error.message_dict, status=status.HTTP_400_BAD_REQUEST)
+        return Response({"installation_id": installation.id, **advice})

@@ -72,6 +72,15 @@ class ReplacementForm(forms.Form):
         choices=FittedCapacitor.RemovalReason.choices, widget=forms.RadioSelect, label="Why the old one came out"
     )
     notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
+    substitute_override = forms.BooleanField(
+        required=False, label="Fit this part against the advice (marginal or unsuitable here)"
+    )
+    override_reason = forms.CharField(
+        required=False,
+        label="Why, for the engineer",
+        widget=forms.Textarea(attrs={"rows": 2}),
+        help_text="Required with the override; kept on the new capacitor's record.",
+    )
 
     def __init__(self, *args, installation: FittedCapacitor, **kwargs):
         super().__init__(*args, **kwargs)

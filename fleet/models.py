@@ -268,6 +268,10 @@ class FittedCapacitor(models.Model):
     removed_on = models.DateField(null=True, blank=True)
     removal_reason = models.CharField(max_length=10, choices=RemovalReason.choices, blank=True)
     notes = models.TextField(blank=True)
+    substitute_override = models.BooleanField(
+        default=False, help_text="Fitted against the substitute advice (marginal or unsuitable), by a person's choice"
+    )
+    override_reason = models.TextField(blank=True, help_text="Why the advice was overridden")
 
     class Meta:
         ordering = ["motor__asset_tag", "role", "-fitted_on"]
@@ -311,6 +315,31 @@ class FittedCapacitor(models.Model):
                         f"(the last on {later.taken_at:%Y-%m-%d}): the removal date cannot be earlier."
                     }
                 )
+
+
+class SiteStock(models.Model):
+    """Spare capacitors of one part held at one site (kept by the planner, used by replacements)."""
+
+    site = models.ForeignKey(Site, on_delete=models.CASCADE, related_name="stock")
+    part = models.ForeignKey(CapacitorPart, on_delete=models.PROTECT, related_name="stock")
+    quantity = models.IntegerField(default=0)
+
+    CONSTRAINT_FIELDS = {"stock_quantity_not_negative": "quantity"}
+
+    class Meta:
+        ordering = ["site__code", "part__code"]
+        verbose_name_plural = "site stock"
+        constraints = [
+            models.UniqueConstraint(fields=["site", "part"], name="one_stock_row_per_site_and_part"),
+            models.CheckConstraint(
+                condition=Q(quantity__gte=0),
+                name="stock_quantity_not_negative",
+                violation_error_message="The quantity cannot be below zero.",
+            ),
+        ]
+
+    def __str__(self):
+        return f"{self.site.code} {self.part.code}: {self.quantity}"
 
 
 class Reading(models.Model):

@@ -19,10 +19,13 @@ VIEW_ALL = [
     "view_assessment",
     "view_workorder",
     "view_refitrun",
+    "view_sitestock",
 ]
 ROLE_PERMISSIONS = {
     TECHNICIAN: VIEW_ALL + ["add_reading", "add_fittedcapacitor", "change_fittedcapacitor", "change_workorder"],
-    PLANNER: VIEW_ALL + ["add_workorder", "change_workorder", "change_motor", "add_refitrun"],
+    PLANNER: VIEW_ALL
+    + ["add_workorder", "change_workorder", "change_motor", "add_refitrun"]
+    + ["add_sitestock", "change_sitestock", "delete_sitestock"],
     RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun", "add_backtest"],
     ADMINISTRATOR: None,  # every permission of the fleet app, plus users and groups
 }
@@ -70,6 +73,7 @@ SITE_PATHS = {
     "reading": "installation__motor__site",
     "assessment": "installation__motor__site",
     "workorder": "motor__site",
+    "sitestock": "site",
 }
 
 

@@ -28,6 +28,11 @@ api_patterns = [
         login_not_required(api.CapacitorReadings.as_view()),
         name="api_capacitor_readings",
     ),
+    path(
+        "api/capacitors/<int:pk>/substitutes/",
+        login_not_required(api.CapacitorSubstitutes.as_view()),
+        name="api_capacitor_substitutes",
+    ),
 ]
 
 urlpatterns = [
@@ -38,6 +43,8 @@ urlpatterns = [
     path("capacitors/<int:installation_id>/reading/", views.reading_new, name="reading_new"),
     path("capacitors/<int:installation_id>/replace/", views.replace, name="replace"),
     path("sites/<code:site_code>/route/", views.site_route, name="route"),
+    path("sites/<code:site_code>/stock/", views.site_stock, name="site_stock"),
+    path("parts/stand-in/", views.stand_in_parts, name="stand_in_parts"),
     path("sites/<code:site_code>/labels/", views.labels, name="labels"),
     path("plan/", views.plan, name="plan"),
     path("plan.<str:file_format>", views.plan_export, name="plan_export"),

@@ -40,7 +40,8 @@ from .services.import_jobs import (
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_installations
-from .services.register import set_route_order
+from .services.register import set_route_order, set_site_stock
+from .services.substitutes import part_families, substitutes_for
 from .services.workorders import issue_visit, open_visits, plan_work_orders
 from .tasks import QueueUnreachable
 
@@ -183,6 +184,16 @@ def _add_errors(form, error: ValidationError) -> None:
         form.add_error(field if shown else None, field_messages)
 
 
+def _stock_message(request, successor) -> None:
+    site = successor.motor.site.code
+    if successor.from_stock:
+        messages.info(request, f"Stock at {site}: {successor.stock_left} of {successor.part.code} left.")
+    else:
+        messages.warning(
+            request, f"No {successor.part.code} was in stock at {site}: the replacement is recorded, the stock shows 0."
+        )
+
+
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
     installation = _installation(request, installation_id)
@@ -197,17 +208,27 @@ def replace(request, installation_id):
                 user=request.user,
                 serial=form.cleaned_data["serial"],
                 notes=form.cleaned_data["notes"],
+                substitute_override=form.cleaned_data["substitute_override"],
+                override_reason=form.cleaned_data["override_reason"],
             )
         except ValidationError as error:
             _add_errors(form, error)
         else:
             messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
+            _stock_message(request, successor)
             return redirect("reading_new", installation_id=successor.id)
+    advice = substitutes_for(installation)
+    choosable = set(form.fields["part"].queryset.values_list("id", flat=True))
+    chosen = str(form["part"].value() or "")
     context = {
         "installation": installation,
         "motor": installation.motor,
         "form": form,
         "energy_j": _energy_j(installation.part),
+        "advice": advice,
+        "singles": [i for i in advice["items"] if i["arrangement"] == "single" and i["part_ids"][0] in choosable],
+        "pairs": [i for i in advice["items"] if i["arrangement"] != "single" and i["verdict"] != "unsuitable"],
+        "chosen": chosen,
     }
     return render(request, "fleet/replace.html", context)
 
@@ -498,3 +519,30 @@ def visit_sheet(request, site_code, day):
     if not visits:
         raise Http404("No open work orders for that visit")
     return render(request, "fleet/visit_sheet.html", {"visit": visits[0], "site": site})
+
+
+@permission_required("fleet.view_sitestock", raise_exception=True)
+def site_stock(request, site_code):
+    """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+    errors = {}
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.change_sitestock"):
+            raise PermissionDenied
+        quantities = {int(k[4:]): v for k, v in request.POST.items() if k.startswith("qty-") and k[4:].isdigit()}
+        try:
+            set_site_stock(site=site, quantities=quantities)
+        except ValidationError as error:
+            errors = error.message_dict
+        else:
+            messages.success(request, "Stock saved.")
+            return redirect("site_stock", site_code=site.code)
+    held = dict(site.stock.values_list("part_id", "quantity"))
+    rows = [(part, held.get(part.id, 0)) for part in CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")]
+    return render(request, "fleet/stock.html", {"site": site, "rows": rows, "errors": errors})
+
+
+@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+def stand_in_parts(request):
+    """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
+    return render(request, "fleet/stand_in_parts.html", {"families": part_families(request.user)})

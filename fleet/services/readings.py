@@ -14,7 +14,9 @@ from django.utils import timezone
 
 from fleet.audit import audited_update
 from fleet.engineering.rules import check_readings, parse_numbers
-from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder, constraint_errors
+from fleet.engineering.substitutes import SUITABLE
+from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors
+from fleet.services.substitutes import verdict_of_part
 
 log = logging.getLogger(__name__)
 
@@ -205,12 +207,29 @@ def replace_capacitor(
     user=None,
     serial: str = "",
     notes: str = "",
+    substitute_override: bool = False,
+    override_reason: str = "",
 ) -> FittedCapacitor:
-    """Remove a fitted capacitor and fit its successor; close its open work orders.
+    """Remove a fitted capacitor and fit its successor; close its open work orders; take the part
+    from the site's stock (never below zero: `successor.stock_left` is None when none was listed).
 
     The old capacitor's life ends at `removed_on` as a failure or a suspension
-    (by `reason`); the new one's history starts the same day.
+    (by `reason`); the new one's history starts the same day. A part other than the one coming out
+    that the substitute advice does not call suitable needs `substitute_override` and a reason.
     """
+    override_reason = (override_reason or "").strip()
+    if part.pk != installation.part_id:
+        advice = verdict_of_part(installation, part)
+        if advice["verdict"] != SUITABLE and not substitute_override:
+            raise ValidationError(
+                {
+                    "substitute_override": f"{part.code} is {advice['verdict']} here ("
+                    + "; ".join(advice["concerns"])
+                    + "). Tick the override and give a reason to fit it anyway."
+                }
+            )
+    if substitute_override and not override_reason:
+        raise ValidationError({"override_reason": "Say why this part is fitted against the advice."})
     if installation.removed_on is not None:
         raise ValidationError({"installation": f"This capacitor was already removed on {installation.removed_on}."})
     if removed_on < installation.fitted_on:
@@ -227,8 +246,16 @@ def replace_capacitor(
         locked.clean()
         locked.save(update_fields=["removed_on", "removal_reason"])
         successor = FittedCapacitor.objects.create(
-            motor=locked.motor, role=locked.role, part=part, serial=serial, fitted_on=removed_on, notes=notes
+            motor=locked.motor,
+            role=locked.role,
+            part=part,
+            serial=serial,
+            fitted_on=removed_on,
+            notes=notes,
+            substitute_override=substitute_override,
+            override_reason=override_reason if substitute_override else "",
         )
+        successor.stock_left, successor.from_stock = _take_from_stock(site_id=locked.motor.site_id, part=part)
         audited_update(
             WorkOrder.objects.filter(installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]),
             state=WorkOrder.State.DONE,
@@ -237,3 +264,13 @@ def replace_capacitor(
         )
     installation.refresh_from_db()
     return successor
+
+
+def _take_from_stock(*, site_id: int, part) -> tuple[int, bool]:
+    """One of `part` out of the site's stock, never below zero: (quantity left, whether one was in stock)."""
+    row = SiteStock.objects.select_for_update().filter(site_id=site_id, part=part).first()
+    if row is None or row.quantity == 0:
+        return 0, False
+    row.quantity -= 1
+    row.save(update_fields=["quantity"])
+    return row.quantity, True

@@ -1,12 +1,12 @@
-"""Writes to the register that are not readings: the planner's walking order."""
+"""Writes to the register that are not readings: the planner's walking order and site stock."""
 
 from __future__ import annotations
 
 from django.core.exceptions import ValidationError
 from django.db import transaction
 
-from fleet.audit import audited_bulk_update
-from fleet.models import Motor, Site
+from fleet.audit import audited_bulk_create, audited_bulk_update
+from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
 
 def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
@@ -35,3 +35,33 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
     with transaction.atomic():
         audited_bulk_update(list(motors.values()), ["route_order"])
     return len(motors)
+
+
+def set_site_stock(*, site: Site, quantities: dict[int, str]) -> int:
+    """Set the quantity of each part (by id) held at the site from form text: a whole number from 0 to 99999;
+    one bad entry refuses them all, naming the part. Returns the number of rows written."""
+    parts = CapacitorPart.objects.in_bulk(list(quantities))
+    errors, values = {}, {}
+    for part_id, text in quantities.items():
+        part = parts.get(part_id)
+        if part is None:
+            errors[f"part {part_id}"] = "is not in the catalogue."
+            continue
+        try:
+            value = int(str(text).strip() or "0")
+        except ValueError:
+            value = -1
+        if not 0 <= value <= 99999:
+            errors[part.code] = f"{text!r} is not a whole number from 0 to 99999."
+        values[part_id] = value
+    if errors:
+        raise ValidationError(errors)
+    with transaction.atomic():
+        rows = {row.part_id: row for row in SiteStock.objects.select_for_update().filter(site=site, part__in=parts)}
+        changed = [row for part_id, row in rows.items() if row.quantity != values[part_id]]
+        for row in changed:
+            row.quantity = values[row.part_id]
+        audited_bulk_update(changed, ["quantity"])
+        new = [SiteStock(site=site, part_id=i, quantity=v) for i, v in values.items() if i not in rows and v > 0]
+        audited_bulk_create(new)
+    return len(changed) + len(new)

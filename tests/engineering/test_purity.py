@@ -10,7 +10,8 @@ ROOT = Path(__file__).resolve().parents[2]
 def test_engineering_package_imports_without_django():
     code = (
         "import sys, fleet.engineering, fleet.engineering.trends, fleet.engineering.drift, "
-        "fleet.engineering.nameplate, fleet.engineering.planning, fleet.engineering.rules; "
+        "fleet.engineering.nameplate, fleet.engineering.planning, fleet.engineering.rules, "
+        "fleet.engineering.substitutes; "
         "loaded = [m for m in sys.modules if m == 'django' or m.startswith('django.')]; "
         "print(loaded); sys.exit(1 if loaded else 0)"
     )

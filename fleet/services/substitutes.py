@@ -1,0 +1,221 @@
+"""Substitute parts for a fitted capacitor: the motor, its design part and the candidates loaded
+in bulk, judged by the core (`fleet.engineering.substitutes`), with the site's stock beside each."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from django.core.exceptions import ValidationError
+from django.db.models import Count, Min
+
+from fleet.engineering.drift import ROLE_RUN
+from fleet.engineering.substitutes import (
+    MARGINAL,
+    SINGLE,
+    SUITABLE,
+    Advice,
+    Candidates,
+    Position,
+    advise,
+    with_pairs,
+)
+from fleet.models import CapacitorPart, FittedCapacitor, SiteStock
+from fleet.roles import scope_to_user
+from fleet.services.assessments import _motor_circuits
+from fleet.services.selectors import CIRCUIT_FIELDS, installations_frame
+
+PART_FIELDS = [
+    "id",
+    "code",
+    "rated_uf",
+    "rated_voltage_v",
+    "dielectric",
+    "frequency_hz",
+    "class_of_operation",
+    "tolerance_minus_pct",
+    "tolerance_plus_pct",
+]
+DESIGN_FIELDS = [
+    "motor_type",
+    "load_type",
+    "rated_voltage_v",
+    "frequency_hz",
+    "poles",
+    "full_load_current_a",
+    "rated_speed_rpm",
+    *CIRCUIT_FIELDS,
+]
+VERDICT_ORDER = {"suitable": 0, "marginal": 1, "unsuitable": 2}
+# Operating figures shown per candidate: name in the answer (unit in the name) -> OperatingFigures field.
+FIGURES = {
+    "main_current_a": "i_main_a",
+    "aux_current_a": "i_aux_a",
+    "line_current_a": "i_line_a",
+    "phase_shift_deg": "phase_shift_deg",
+    "speed_rpm": "speed_rpm",
+    "starting_torque_nm": "starting_torque_nm",
+}
+
+
+def parts_frame(codes: list[str] | None = None) -> pd.DataFrame:
+    """The catalogue (or the parts named), one row each (one query); an unknown code is refused by name."""
+    parts = CapacitorPart.objects.all()
+    if codes is not None:
+        parts = parts.filter(code__in=codes)
+    frame = pd.DataFrame.from_records(list(parts.order_by("code").values_list(*PART_FIELDS)), columns=PART_FIELDS)
+    if codes is not None:
+        unknown = sorted(set(codes) - set(frame["code"]))
+        if unknown:
+            raise ValidationError({"parts": f"Unknown part code: {', '.join(unknown)}."})
+    return frame
+
+
+def candidates_of(frame: pd.DataFrame) -> Candidates:
+    return Candidates.from_arrays(
+        code=frame["code"].to_numpy(object),
+        rated_uf=frame["rated_uf"].to_numpy(float),
+        rated_voltage_v=frame["rated_voltage_v"].to_numpy(float),
+        dielectric=frame["dielectric"].to_numpy(object),
+        frequency_hz=frame["frequency_hz"].to_numpy(float),
+        class_of_operation=frame["class_of_operation"].to_numpy(object),
+        tolerance_minus_pct=frame["tolerance_minus_pct"].to_numpy(float),
+        tolerance_plus_pct=frame["tolerance_plus_pct"].to_numpy(float),
+    )
+
+
+def position_of(installation: FittedCapacitor) -> Position:
+    """The position of a fitted capacitor: its motor's circuit and load (when it has one) and its design part."""
+    inst = installations_frame([installation.id])
+    with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
+    row = inst.iloc[0]
+    part = installation.part
+    has_circuit = bool(with_circuit[0])
+    companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[0] if has_circuit else 0.0
+    return Position(
+        role=row["role"],
+        motor_kind=row["motor_type"],
+        frequency_hz=float(row["frequency_hz"]),
+        full_load_current_a=float(row["full_load_current_a"]),
+        design_uf=float(part.rated_uf),
+        design_voltage_v=float(part.rated_voltage_v),
+        design_dielectric=part.dielectric,
+        design_class=part.class_of_operation,
+        design_tolerance_minus_pct=float(part.tolerance_minus_pct),
+        design_tolerance_plus_pct=float(part.tolerance_plus_pct),
+        companion_uf=float(np.nan_to_num(companion)),
+        circuit=circuit.take([0]) if has_circuit else None,
+        load=type(load)(load.torque_at_rated_nm[:1], load.rated_speed_rad_s[:1], np.asarray(load.kind)[:1])
+        if has_circuit
+        else None,
+    )
+
+
+def _number(value, digits=3):
+    value = float(np.asarray(value).ravel()[0]) if np.ndim(value) else float(value)
+    return None if not np.isfinite(value) else round(value, digits)
+
+
+def _figures(figures, index, position: Position) -> dict:
+    if figures is None:
+        return {name: None for name in [*FIGURES, "capacitor_voltage_v"]}
+    voltage = figures.v_capacitor_v if position.role == ROLE_RUN else figures.start_capacitor_voltage_v
+    values = {name: _number(np.atleast_1d(getattr(figures, field))[index]) for name, field in FIGURES.items()}
+    values["capacitor_voltage_v"] = _number(np.atleast_1d(voltage)[index], 1)
+    return values
+
+
+def substitutes_for(installation: FittedCapacitor, *, codes: list[str] | None = None, pairs: bool = True) -> dict:
+    """Every candidate (the catalogue, or `codes`) judged for this capacitor's position, suitable first.
+
+    Returns {"design": figures with the design's own value, "lowest_uf", "has_circuit", "items": [...]},
+    each item with part_code, part_ids, arrangement, verdict, reasons, caution, ratings, figures and the
+    quantity on the motor's site (pairs: the smaller of their members' quantities).
+    """
+    frame = parts_frame(codes)
+    position = position_of(installation)
+    singles = candidates_of(frame)
+    candidates = with_pairs(singles, position) if pairs else singles
+    advice: Advice = advise(position, candidates)
+    stock = dict(
+        SiteStock.objects.filter(site_id=installation.motor.site_id, part_id__in=frame["id"].tolist()).values_list(
+            "part_id", "quantity"
+        )
+    )
+    ids = frame["id"].to_numpy()
+    quantity = np.array([stock.get(int(i), 0) for i in ids], int)
+    items = []
+    for n in range(len(candidates)):
+        first, second = int(candidates.first[n]), int(candidates.second[n])
+        members = [first] if second < 0 else [first, second]
+        needed = 2 if second == first else 1
+        on_site = int(min(quantity[m] // needed for m in members))
+        items.append(
+            {
+                "part_code": str(candidates.code[n]),
+                "part_ids": [int(ids[m]) for m in members],
+                "arrangement": str(candidates.arrangement[n]),
+                "verdict": str(advice.verdict[n]),
+                "reasons": advice.reasons[n],
+                "concerns": advice.concerns[n],
+                "caution": advice.cautions[n],
+                "rated_uf": _number(candidates.rated_uf[n]),
+                "rated_voltage_v": _number(candidates.rated_voltage_v[n], 1),
+                "dielectric": str(candidates.dielectric[n]),
+                "class_of_operation": str(candidates.class_of_operation[n]),
+                "frequency_hz": _number(candidates.frequency_hz[n], 0),
+                "on_site": on_site,
+                **_figures(advice.figures, n, position),
+            }
+        )
+    items.sort(
+        key=lambda item: (
+            VERDICT_ORDER[item["verdict"]],
+            item["arrangement"] != SINGLE,
+            abs(item["rated_uf"] - position.design_uf),
+            item["part_code"],
+        )
+    )
+    return {
+        "design": {"rated_uf": position.design_uf, **_figures(advice.design_figures, 0, position)},
+        "lowest_uf": _number(advice.lowest_uf),
+        "has_circuit": position.circuit is not None,
+        "items": items,
+    }
+
+
+def verdict_of_part(installation: FittedCapacitor, part: CapacitorPart) -> dict:
+    """The advice for one part fitted alone in this capacitor's position."""
+    return substitutes_for(installation, codes=[part.code], pairs=False)["items"][0]
+
+
+def part_families(user=None) -> list[dict]:
+    """Fewer part numbers: per dielectric, each catalogue part with the number of motor designs (distinct
+    circuit, load and design part among the capacitors in service) it would suit as a single substitute, and
+    for how many more it would be marginal.
+
+    One advice call per design (a fleet's motors share designs by the dozen), never per motor.
+    """
+    fitted = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
+    designs = (
+        fitted.values("part_id", "role", *(f"motor__{name}" for name in DESIGN_FIELDS))
+        .annotate(capacitors=Count("id"), first_id=Min("id"))
+        .order_by("part__dielectric", "part__code")
+    )
+    frame = parts_frame()
+    singles = candidates_of(frame)
+    suits = np.zeros(len(frame), int)
+    marginal = np.zeros(len(frame), int)
+    installations = FittedCapacitor.objects.select_related("part", "motor").in_bulk(
+        [design["first_id"] for design in designs]
+    )
+    for design in designs:
+        advice = advise(position_of(installations[design["first_id"]]), singles)
+        suits += advice.verdict == SUITABLE
+        marginal += advice.verdict == MARGINAL
+    frame["designs_suited"] = suits
+    frame["designs_marginal"] = marginal
+    frame["designs"] = len(designs)
+    return [
+        {"dielectric": dielectric, "parts": rows.sort_values("designs_suited", ascending=False).to_dict("records")}
+        for dielectric, rows in frame.groupby("dielectric", sort=True)
+    ]
