@@ -178,3 +178,18 @@ def test_the_back_test_chooses_the_trend_form_that_forecasts_better(truth, expec
     backtest = run_backtest(start_backtest(quarters=6, queue=False).id)
     assert backtest.state == "done", backtest.message
     assert BandCalibration.objects.get(family="film").trend_model == expected
+
+
+@pytest.mark.django_db
+def test_a_large_fleet_is_back_tested_on_a_fixed_sample(settings):
+    """Bounded time and memory at plant scale: at most FLEET_BACKTEST_MAX_CAPACITORS, the same ones each run."""
+    settings.FLEET_BACKTEST_MAX_CAPACITORS = 12
+    part = make_part()
+    for _ in range(30):
+        installation = make_installation(part=part, fitted_on=dt.date(2022, 1, 1))
+        quarterly_readings(installation, START, [4.0 - 0.01 * k for k in range(12)])
+    first = run_backtest(start_backtest(quarters=3, queue=False).id)
+    second = run_backtest(start_backtest(quarters=3, queue=False).id)
+    counts = [row["capacitors"] for row in first.results["cutoffs"]]
+    assert max(counts) <= 12
+    assert counts == [row["capacitors"] for row in second.results["cutoffs"]]

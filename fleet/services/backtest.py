@@ -17,6 +17,7 @@ import datetime as dt
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.db import transaction
 from django.utils import timezone
 
@@ -135,7 +136,14 @@ def _forms(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | Non
 
 
 def _run(backtest: Backtest) -> None:
-    ids = list(FittedCapacitor.objects.filter(readings__isnull=False).distinct().values_list("id", flat=True))
+    ids = np.array(
+        FittedCapacitor.objects.filter(readings__isnull=False).distinct().order_by("id").values_list("id", flat=True)
+    )
+    if len(ids) > settings.FLEET_BACKTEST_MAX_CAPACITORS:
+        # A track record is statistics: a fixed random sample keeps a plant's weekly back-test
+        # in bounded time and memory, and the same sample week after week.
+        ids = np.sort(np.random.default_rng(0).choice(ids, settings.FLEET_BACKTEST_MAX_CAPACITORS, replace=False))
+    ids = ids.tolist()
     inst_all = installations_frame(ids).set_index("installation_id", drop=False)
     readings_all = readings_frame(ids)
     readings_all = readings_all[~readings_all["superseded"]].reset_index(drop=True)
