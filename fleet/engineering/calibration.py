@@ -28,7 +28,7 @@ temperature correction is imperfect. Those errors are measured, not assumed:
    then found on a grid of times ahead (`calibrated_crossing_quantiles`). This
    is split conformal prediction in spirit (Vovk, Gammerman and Shafer 2005;
    Angelopoulos and Bates 2021; from memory): held-out errors set the width and
-   the shift, here through a five-number family so that they carry to every
+   the shift, here through a six-number family so that they carry to every
    horizon and limit.
 
 Families with too little history keep conservative defaults (no bias, 35 %
