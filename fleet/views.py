@@ -25,6 +25,7 @@ from .engineering.rules import RULES
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .filters import plan_parameters
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
+from .imports import FileRefused
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from .roles import scope_to_user
 from .services import pages
@@ -431,7 +432,12 @@ def import_rejected(request, job_id):
     job = get_object_or_404(scope_to_user(ImportJob.objects.all(), request.user), pk=job_id)
     if not _may_import(request.user, job.kind):
         raise Http404("No such import")
-    response = HttpResponse(rejected_rows_csv(job), content_type="text/csv; charset=utf-8")
+    try:
+        content = rejected_rows_csv(job)
+    except FileRefused as error:  # the file itself was refused: there are no rows to hand back
+        messages.error(request, f"There are no rows to download: {error}")
+        return redirect("import_detail", job_id=job.pk)
+    response = HttpResponse(content, content_type="text/csv; charset=utf-8")
     stem = job.filename.rsplit(".", 1)[0]
     response["Content-Disposition"] = f'attachment; filename="{stem}-rows-to-fix.csv"'
     return response

@@ -50,3 +50,16 @@ def test_a_cost_that_is_not_a_number_is_named_not_silently_replaced(client, engi
     text = response.content.decode()
     assert "The planned cost must be a number above zero; &#x27;abc&#x27; was not used" in text
     assert "The failure cost must be a number above zero" in text
+
+
+@pytest.mark.django_db
+def test_rows_to_fix_of_a_refused_file_is_a_message_not_a_server_error(client, technician):
+    from fleet.models import ImportJob
+
+    job = ImportJob.objects.create(
+        kind="readings", filename="cut.csv", content=b'asset_tag,role,taken_at\n"M-1,run', created_by=technician
+    )
+    client.force_login(technician)
+    response = client.get(reverse("import_rejected", args=[job.id]), follow=True)
+    assert response.status_code == 200
+    assert "There are no rows to download" in response.content.decode()
