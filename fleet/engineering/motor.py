@@ -18,6 +18,7 @@ from __future__ import annotations
 from dataclasses import dataclass, fields, replace
 
 import numpy as np
+from scipy.optimize.elementwise import find_root
 
 from .capacitor import reactance_ohm
 
@@ -378,8 +379,10 @@ def operating_point(
     """Running point where shaft torque meets load torque, for every motor at once.
 
     A grid over slip finds, per motor, the first slip from synchronous speed at
-    which the motor's shaft torque exceeds the load's; bisection then narrows the
-    bracket. Motors whose torque never meets the load (stalled) get slip nan.
+    which the motor's shaft torque exceeds the load's; scipy's elementwise
+    bracketing root finder (Chandrupatla) then narrows the bracket to 1e-14 in
+    slip. Motors whose torque never meets the load (stalled) get slip nan.
+    `iterations` caps the root finder's iterations.
     """
     omega_s = circuit.synchronous_speed_rad_s
     shape = np.broadcast_shapes(np.shape(circuit.r1m), np.shape(capacitance_uf))
@@ -402,15 +405,51 @@ def operating_point(
         if not np.isnan(lo).any():
             break  # every motor bracketed: the rest of the grid cannot change it
     stalled = np.isnan(lo)
-    lo = np.where(stalled, 0.5, lo)
-    hi = np.where(stalled, 0.6, hi)
-    for _ in range(iterations):
-        mid = 0.5 * (lo + hi)
-        positive = excess(mid) > 0
-        hi = np.where(positive, mid, hi)
-        lo = np.where(positive, lo, mid)
-    slip = np.where(stalled, np.nan, 0.5 * (lo + hi))
+    slip = _root_in_bracket(
+        circuit,
+        capacitance_uf,
+        load,
+        aux_in_circuit,
+        esr_ohm,
+        np.where(stalled, 0.5, lo),
+        np.where(stalled, 0.6, hi),
+        iterations,
+    )
+    slip = np.where(stalled, np.nan, slip)
     return two_winding_running(circuit, capacitance_uf, slip, esr_ohm, aux_in_circuit)
+
+
+_SLIP_TOLERANCES = {"xatol": 1e-14, "xrtol": 0.0, "fatol": 0.0, "frtol": 0.0}
+
+
+def _root_in_bracket(circuit, capacitance_uf, load, aux_in_circuit, esr_ohm, lower, upper, iterations=40):
+    """Slip in [lower, upper] where shaft torque equals load torque, every motor at once.
+
+    The finder calls its function on the motors still converging only, so every
+    per-motor quantity travels as an argument array, broadcast to the brackets.
+    """
+    names = [f.name for f in fields(MotorCircuit)]
+    per_motor = np.broadcast_arrays(
+        lower,
+        *(getattr(circuit, name) for name in names),
+        np.asarray(capacitance_uf, float),
+        np.asarray(esr_ohm, float),
+        np.asarray(aux_in_circuit, float),
+        load.torque_at_rated_nm,
+        load.rated_speed_rad_s,
+        np.asarray(load.kind, float),
+    )[1:]
+
+    def excess(slip, *values):
+        part = MotorCircuit(*values[: len(names)])
+        capacitance, esr, aux, torque_at_rated, rated_speed, kind = values[len(names) :]
+        run = two_winding_running(part, capacitance, slip, esr, aux > 0.5)
+        return run.shaft_torque_nm - Load(torque_at_rated, rated_speed, kind).torque_nm(
+            part.synchronous_speed_rad_s * (1.0 - slip)
+        )
+
+    found = find_root(excess, (lower, upper), args=tuple(per_motor), tolerances=_SLIP_TOLERANCES, maxiter=iterations)
+    return found.x
 
 
 def load_matching_rated_slip(

@@ -10,7 +10,14 @@ from fleet.engineering.drift import (
     capacitance_limits,
     operating_figures,
 )
-from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, MotorCircuit, load_matching_rated_slip, operating_point
+from fleet.engineering.motor import (
+    LOAD_CONSTANT,
+    LOAD_FAN,
+    MotorCircuit,
+    load_matching_rated_slip,
+    operating_point,
+    two_winding_running,
+)
 
 FAN = dict(
     r1m=35.12,
@@ -102,3 +109,32 @@ def test_fleet_of_ten_thousand_in_one_call_gives_a_point_for_every_motor():
     assert point.slip.shape == (n,)
     assert np.isfinite(point.slip).all()
     assert np.all(np.diff(point.slip) < 0)  # more capacitance, less slip, on this fan
+
+
+def test_fleet_root_matches_a_per_motor_brent_solve_to_1e_9():
+    """[pub] SciPy's brentq (Brent 1973), motor by motor, on the same torque balance: the
+    fleet solve agrees to 1e-9 in slip, with the auxiliary in and out and a stalled motor."""
+    from scipy.optimize import brentq
+
+    n = 12
+    rng = np.random.default_rng(11)
+    c = MotorCircuit.from_arrays(**{**FAN, "r2": rng.uniform(45, 65, n), "xm": rng.uniform(250, 340, n)})
+    load = load_matching_rated_slip(c, 4.0, RATED_SLIP, np.where(np.arange(n) % 2, LOAD_FAN, LOAD_CONSTANT))
+    heavy = load.torque_at_rated_nm * np.where(np.arange(n) == 0, 10.0, 1.0)
+    load = type(load)(heavy, load.rated_speed_rad_s, load.kind)
+    caps = rng.uniform(3.0, 4.2, n)
+    aux_in = np.arange(n) % 3 != 0
+    fleet = operating_point(c, caps, load, aux_in_circuit=aux_in)
+    assert np.isnan(fleet.slip[0])
+    for i in range(1, n):
+        one = c.take(i)
+        one_load = type(load)(load.torque_at_rated_nm[i], load.rated_speed_rad_s[i], load.kind[i])
+
+        def excess(slip, one=one, one_load=one_load, i=i):
+            run = two_winding_running(one, caps[i], slip, aux_in_circuit=aux_in[i])
+            return float(run.shaft_torque_nm - one_load.torque_nm(one.synchronous_speed_rad_s * (1 - slip)))
+
+        scan = np.linspace(1e-4, 0.99, 2000)  # the first sign change from synchronous speed
+        first = int(np.argmax([excess(s) > 0 for s in scan]))
+        expected = brentq(excess, scan[first - 1], scan[first], xtol=1e-15)
+        assert fleet.slip[i] == pytest.approx(expected, abs=1e-9)
