@@ -84,6 +84,8 @@ class AsSent(serializers.Field):
 
 class ReadingSerializer(serializers.ModelSerializer):
     confirmed = serializers.BooleanField(write_only=True, required=False, default=False)
+    # Id of the reading this one corrects (same capacitor, not corrected before); both are kept.
+    supersedes = serializers.IntegerField(source="supersedes_id", required=False, allow_null=True, min_value=1)
     capacitance_uf = AsSent(required=False, allow_null=True)
     capacitor_current_a = AsSent(required=False, allow_null=True)
     capacitor_voltage_v = AsSent(required=False, allow_null=True)
@@ -109,7 +111,7 @@ class ReadingSerializer(serializers.ModelSerializer):
             "source",
             "confirmed",
         ]
-        read_only_fields = ["id", "outlier_confirmed", "supersedes", "source"]
+        read_only_fields = ["id", "outlier_confirmed", "source"]
         extra_kwargs = {"taken_at": {"required": False}, "notes": {"trim_whitespace": False}}
 
 
@@ -153,6 +155,7 @@ class CapacitorReadings(generics.ListCreateAPIView):
         serializer.is_valid(raise_exception=True)
         values = dict(serializer.validated_data)
         confirmed = values.pop("confirmed", False)
+        supersedes_id = values.pop("supersedes_id", None)
         key = request.headers.get("Idempotency-Key", "")
         if len(key) > 64 or "\x00" in key:
             return Response({"Idempotency-Key": ["At most 64 characters, no NUL."]}, status=status.HTTP_400_BAD_REQUEST)
@@ -163,6 +166,7 @@ class CapacitorReadings(generics.ListCreateAPIView):
                 user=request.user,
                 confirmed=confirmed,
                 client_key=key,
+                supersedes_id=supersedes_id,
             )
         except NeedsConfirmation as error:
             body = {**error.message_dict, "confirm": ["Send again with confirmed=true if the value is right."]}

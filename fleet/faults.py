@@ -10,10 +10,12 @@ from __future__ import annotations
 
 import sys
 
-from django.db import InterfaceError, OperationalError
+from django.contrib.auth.decorators import login_not_required
+from django.db import InterfaceError, OperationalError, connection
 from django.http import HttpResponse, JsonResponse
 from django.template.loader import render_to_string
 from django.views import defaults
+from django.views.decorators.http import require_GET
 
 DATABASE_ERRORS = (OperationalError, InterfaceError)
 RETRY_AFTER_S = 30
@@ -36,3 +38,14 @@ def database_unavailable(request) -> HttpResponse:
         return JsonResponse(body, status=503, headers=headers)
     html = render_to_string("503.html", {"retry_after_s": RETRY_AFTER_S})
     return HttpResponse(html, status=503, headers=headers)
+
+
+@login_not_required
+@require_GET
+def health(request) -> HttpResponse:
+    """GET /health/: "ok" when the database answers (the compose health check); no sign-in,
+    session or template, so it checks the process and its database, nothing else. An
+    unreachable database raises, and the 500 handler above answers 503."""
+    with connection.cursor() as cursor:
+        cursor.execute("SELECT 1")
+    return HttpResponse("ok", content_type="text/plain")

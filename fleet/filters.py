@@ -14,7 +14,7 @@ class AssessmentFilter(django_filters.FilterSet):
     """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31"""
 
     site = django_filters.CharFilter(field_name="installation__motor__site__code", max_length=20)
-    risk = django_filters.CharFilter(field_name="risk", max_length=20)
+    risk = django_filters.ChoiceFilter(field_name="risk", choices=Assessment.Risk.choices)
     replace_by_before = django_filters.DateFilter(field_name="replace_by", lookup_expr="lte")
 
     class Meta:

@@ -49,6 +49,8 @@ class ReadingForm(forms.Form):
     confirmed = forms.BooleanField(required=False, widget=forms.HiddenInput)
     # One-time key of this page: a second submit of the same page saves nothing (the service checks it).
     client_key = forms.CharField(required=False, max_length=64, widget=forms.HiddenInput)
+    # The reading this one corrects (reached from "Correct" beside a reading on the capacitor page).
+    supersedes = forms.IntegerField(required=False, min_value=1, widget=forms.HiddenInput)
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
@@ -56,7 +58,11 @@ class ReadingForm(forms.Form):
             self.initial["client_key"] = uuid.uuid4().hex
 
     def measured_values(self) -> dict:
-        data = {key: value for key, value in self.cleaned_data.items() if key not in {"confirmed", "client_key"}}
+        data = {
+            key: value
+            for key, value in self.cleaned_data.items()
+            if key not in {"confirmed", "client_key", "supersedes"}
+        }
         if data["method"] == Reading.Method.IN_CIRCUIT:
             data.pop("capacitance_uf", None)
         return data

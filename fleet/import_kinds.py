@@ -206,7 +206,7 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     role = frame["role"].str.lower()
     problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
     has_role = np.where(
-        role.eq("run"),
+        role.eq(FittedCapacitor.Role.RUN),
         motor["motor_type"].isin([Motor.MotorType.PERMANENT_SPLIT, Motor.MotorType.TWO_VALUE]).to_numpy(),
         motor["motor_type"].isin([Motor.MotorType.CAPACITOR_START, Motor.MotorType.TWO_VALUE]).to_numpy(),
     )

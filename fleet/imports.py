@@ -521,7 +521,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         tag = chunk["asset_tag"].str.upper()
         problems.add(~tag.isin(known_tags), "asset_tag", "unknown asset tag: not in the register")
         role = chunk["role"].str.lower()
-        problems.add(~role.isin(["start", "run"]), "role", "must be start or run")
+        problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
         zones = tag.map(zone_of_tag).astype(object).fillna(default_tz)
         taken, unplaced = parse_times(chunk["taken_at"], zones)
         problems.add(unplaced != "", "taken_at", unplaced)
@@ -652,9 +652,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(~frame["site_code"].isin(sites), "site_code", "unknown site code: add the site first")
     for name, allowed in (
-        ("application", ["fan", "pump", "compressor", "conveyor", "other"]),
-        ("motor_type", ["capacitor_start", "permanent_split", "two_value"]),
-        ("load_type", ["fan_law", "constant"]),
+        ("application", Motor.Application.values),
+        ("motor_type", Motor.MotorType.values),
+        ("load_type", Motor.LoadType.values),
     ):
         problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed))
     volts, hertz, poles = numbers["rated_voltage_v"], numbers["frequency_hz"], numbers["poles"]
@@ -726,7 +726,10 @@ def insert_register(good: pd.DataFrame) -> list[int]:
     fitted = []
     for motor, row in zip(motors, good.itertuples(index=False), strict=True):
         fitted_on = dt.date.fromisoformat(row.fitted_on[:10])
-        for role, code in (("run", row.run_part_code), ("start", row.start_part_code)):
+        for role, code in (
+            (FittedCapacitor.Role.RUN, row.run_part_code),
+            (FittedCapacitor.Role.START, row.start_part_code),
+        ):
             if code:
                 fitted.append(FittedCapacitor(motor=motor, role=role, part_id=parts[code], fitted_on=fitted_on))
     FittedCapacitor.objects.bulk_create(fitted, batch_size=2000)

@@ -18,6 +18,20 @@ from django.db.models.functions import Length
 from django.db.models.lookups import LessThanOrEqual
 from django.utils import timezone
 
+from fleet.engineering.capacitor import CLASS_LIFE_HOURS, VERDICT_NAMES
+from fleet.engineering.drift import CAPACITOR_START, LIMIT_NAMES, PERMANENT_SPLIT, ROLE_RUN, ROLE_START, TWO_VALUE
+from fleet.engineering.motor import LOAD_TYPE_CONSTANT, LOAD_TYPE_FAN_LAW
+from fleet.engineering.planning import (
+    DISSIPATION_LIMIT,
+    RISK_DUE_SOON,
+    RISK_REPLACE_NOW,
+    RISK_SOUND,
+    RISK_WATCH,
+    TOLERANCE_LIMIT,
+)
+from fleet.engineering.rules import CONDITION_SOUND, METHOD_IN_CIRCUIT, METHOD_METER
+from fleet.engineering.trends import DIELECTRIC_ELECTROLYTIC, DIELECTRIC_FILM, MODEL_LINEAR, MODEL_LOG
+
 # Asset tags, site codes and part codes: letters, digits, '-', '_' and '.', starting with a letter or
 # digit; no '/', spaces or other signs, so a code prints on a label and sits in a URL unchanged.
 CODE_CHARACTERS = "letters, digits, '-', '_' and '.', starting with a letter or digit"
@@ -115,13 +129,13 @@ class Motor(models.Model):
         OTHER = "other", "Other"
 
     class MotorType(models.TextChoices):
-        CAPACITOR_START = "capacitor_start", "Capacitor-start"
-        PERMANENT_SPLIT = "permanent_split", "Permanent-split capacitor"
-        TWO_VALUE = "two_value", "Two-value capacitor"
+        CAPACITOR_START = CAPACITOR_START, "Capacitor-start"
+        PERMANENT_SPLIT = PERMANENT_SPLIT, "Permanent-split capacitor"
+        TWO_VALUE = TWO_VALUE, "Two-value capacitor"
 
     class LoadType(models.TextChoices):
-        FAN_LAW = "fan_law", "Fan law (torque ~ speed squared)"
-        CONSTANT = "constant", "Constant torque"
+        FAN_LAW = LOAD_TYPE_FAN_LAW, "Fan law (torque ~ speed squared)"
+        CONSTANT = LOAD_TYPE_CONSTANT, "Constant torque"
 
     class Status(models.TextChoices):
         IN_SERVICE = "in_service", "In service"
@@ -186,14 +200,14 @@ class Motor(models.Model):
 
 class CapacitorPart(models.Model):
     class Dielectric(models.TextChoices):
-        FILM = "film", "Metallised film (run)"
-        ELECTROLYTIC = "electrolytic", "Aluminium electrolytic (start)"
+        FILM = DIELECTRIC_FILM, "Metallised film (run)"
+        ELECTROLYTIC = DIELECTRIC_ELECTROLYTIC, "Aluminium electrolytic (start)"
 
     class OperationClass(models.TextChoices):
-        A = "A", "A (30,000 h)"
-        B = "B", "B (10,000 h)"
-        C = "C", "C (3,000 h)"
-        D = "D", "D (1,000 h)"
+        A = "A", f"A ({CLASS_LIFE_HOURS['A']:,.0f} h)"
+        B = "B", f"B ({CLASS_LIFE_HOURS['B']:,.0f} h)"
+        C = "C", f"C ({CLASS_LIFE_HOURS['C']:,.0f} h)"
+        D = "D", f"D ({CLASS_LIFE_HOURS['D']:,.0f} h)"
 
     class SafetyClass(models.TextChoices):
         NONE = "S0", "S0 (no protection)"
@@ -252,8 +266,8 @@ class FittedCapacitor(models.Model):
     """One capacitor fitted to one motor, from fitting to removal: a life-data point."""
 
     class Role(models.TextChoices):
-        START = "start", "Start"
-        RUN = "run", "Run"
+        START = ROLE_START, "Start"
+        RUN = ROLE_RUN, "Run"
 
     class RemovalReason(models.TextChoices):
         FAILED = "failed", "Failed in service"
@@ -359,11 +373,11 @@ class Reading(models.Model):
     )
 
     class Method(models.TextChoices):
-        METER = "meter", "Capacitance meter (isolated)"
-        IN_CIRCUIT = "in_circuit", "In circuit (current and voltage)"
+        METER = METHOD_METER, "Capacitance meter (isolated)"
+        IN_CIRCUIT = METHOD_IN_CIRCUIT, "In circuit (current and voltage)"
 
     class Condition(models.TextChoices):
-        SOUND = "sound", "No visible defect"
+        SOUND = CONDITION_SOUND, "No visible defect"
         BULGED = "bulged", "Bulged or raised top"
         LEAKING = "leaking", "Leaking"
         VENTED = "vented", "Vented"
@@ -425,7 +439,7 @@ class Reading(models.Model):
                 violation_error_message="Capacitance must be a finite number.",
             ),
             models.CheckConstraint(
-                condition=Q(method="meter")
+                condition=Q(method=METHOD_METER)
                 | (Q(capacitor_current_a__isnull=False) & Q(capacitor_voltage_v__isnull=False)),
                 name="in_circuit_needs_current_and_voltage",
             ),
@@ -452,8 +466,35 @@ class Reading(models.Model):
         return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} uF"
 
 
+def choices_of(name: str, values) -> type[models.TextChoices]:
+    """TextChoices over a fixed set of the core's names, each its own label with a capital."""
+    return models.TextChoices(
+        name, [(value.upper().replace(" ", "_").replace("-", "_"), (value, value.capitalize())) for value in values]
+    )
+
+
+class TrendModel(models.TextChoices):
+    """The trend forms the core fits (fleet/engineering/trends.py)."""
+
+    LINEAR = MODEL_LINEAR, "Linear"
+    LOG_LINEAR = MODEL_LOG, "Log-linear"
+
+
 class Assessment(models.Model):
     """A stored fit and plan for one fitted capacitor; a new row per refit."""
+
+    class Risk(models.TextChoices):
+        """The core's risk levels (fleet/engineering/planning.py), most urgent first."""
+
+        REPLACE_NOW = RISK_REPLACE_NOW, "Replace now"
+        DUE_SOON = RISK_DUE_SOON, "Due soon"
+        WATCH = RISK_WATCH, "Watch"
+        SOUND = RISK_SOUND, "Sound"
+
+    # The latest reading against the part's marking (fleet/engineering/capacitor.py).
+    Verdict = choices_of("Verdict", VERDICT_NAMES.values())
+    # The limit that sets the date: tolerance, an operating-point limit (drift.py) or the dissipation factor.
+    LimitSource = choices_of("LimitSource", (TOLERANCE_LIMIT, *LIMIT_NAMES, DISSIPATION_LIMIT))
 
     installation = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="assessments")
     is_current = models.BooleanField(default=True)
@@ -466,18 +507,18 @@ class Assessment(models.Model):
     readings_used = models.PositiveIntegerField()
     readings_flagged = models.PositiveIntegerField(default=0)
     flagged_reading_ids = models.JSONField(default=list, blank=True)
-    trend_model = models.CharField(max_length=12)
+    trend_model = models.CharField(max_length=12, choices=TrendModel.choices)
     slope_pct_per_1000h = models.FloatField()
     slope_sd_pct_per_1000h = models.FloatField()
     low_confidence = models.BooleanField(default=False)
     capacitance_now_uf = models.FloatField()
-    latest_verdict = models.CharField(max_length=40)
+    latest_verdict = models.CharField(max_length=40, choices=Verdict.choices)
     limit_fraction = models.FloatField()
-    limit_source = models.CharField(max_length=40)
+    limit_source = models.CharField(max_length=40, choices=LimitSource.choices)
     p10_on = models.DateField(null=True, blank=True)
     p50_on = models.DateField(null=True, blank=True)
     p90_on = models.DateField(null=True, blank=True)
-    risk = models.CharField(max_length=20)
+    risk = models.CharField(max_length=20, choices=Risk.choices)
     replace_by = models.DateField(null=True, blank=True)
     reason = models.CharField(max_length=300, blank=True, help_text="Why this risk level and date, in words")
     limits = models.JSONField(
@@ -510,7 +551,7 @@ class PartPrior(models.Model):
     """A part's population of ageing paths, fitted across the fleet (empirical Bayes)."""
 
     part = models.OneToOneField(CapacitorPart, on_delete=models.CASCADE, related_name="prior")
-    trend_model = models.CharField(max_length=12)
+    trend_model = models.CharField(max_length=12, choices=TrendModel.choices)
     intercept_mean = models.FloatField()
     intercept_var = models.FloatField()
     slope_mean = models.FloatField()
@@ -721,7 +762,10 @@ class BandCalibration(models.Model):
         default=0.0, help_text="Relative growth of a capacitor's own slope per calendar hour ahead"
     )
     trend_model = models.CharField(
-        max_length=12, blank=True, help_text="Trend form with the smaller back-tested error (linear or log-linear)"
+        max_length=12,
+        blank=True,
+        choices=TrendModel.choices,
+        help_text="Trend form with the smaller back-tested error (linear or log-linear)",
     )
     curvature_per_h2 = models.FloatField(
         default=0.0, help_text="Common bend of the path, fraction of rated per calendar hour squared"

@@ -39,7 +39,7 @@ from .services.import_jobs import (
     rejected_rows_csv,
 )
 from .services.lifedata import part_life
-from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
+from .services.readings import NeedsConfirmation, reading_to_correct, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_installations
 from .services.register import set_route_order, set_site_stock
 from .services.substitutes import part_families, substitutes_for
@@ -135,6 +135,7 @@ def reading_new(request, installation_id):
                     user=request.user,
                     confirmed=form.cleaned_data["confirmed"],
                     client_key=form.cleaned_data["client_key"],
+                    supersedes_id=form.cleaned_data["supersedes"],
                 )
             except NeedsConfirmation as error:
                 needs_confirmation = True
@@ -154,7 +155,12 @@ def reading_new(request, installation_id):
                 # ?saved= tells the page to drop the draft the phone kept of this form.
                 return redirect(f"{reverse('motor', args=[installation.motor.asset_tag])}?saved={installation.id}")
     else:
-        form = ReadingForm()
+        form = ReadingForm(initial={"supersedes": request.GET.get("corrects")})
+    correcting, correction_problem = None, ""
+    try:
+        correcting = reading_to_correct(installation, form["supersedes"].value())
+    except ValidationError as error:
+        correction_problem = " ".join(error.messages)
     assessment = installation.assessments.filter(is_current=True).first()
     successor = (
         FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
@@ -170,6 +176,8 @@ def reading_new(request, installation_id):
         "part": installation.part,
         "form": form,
         "needs_confirmation": needs_confirmation,
+        "correcting": correcting,
+        "correction_problem": correction_problem,
         "assessment": assessment,
         "recent": pages.recent_readings(installation),
         "energy_j": _energy_j(installation.part),

@@ -53,7 +53,9 @@ def test_compose_file_names_the_services_and_the_settings_the_code_reads():
     services = compose["services"]
     assert {"web", "worker", "beat", "db", "redis"} <= set(services)
     for name in ("web", "worker", "beat", "db", "redis"):
-        assert "healthcheck" in services[name] or name == "beat"
+        assert "healthcheck" in services[name], f"{name} has no health check"
+    assert "/health/" in " ".join(services["web"]["healthcheck"]["test"])
+    assert services["web"]["depends_on"]["migrate"]["condition"] == "service_completed_successfully"
     settings_text = (ROOT / "config" / "settings.py").read_text()
     environment = services["web"]["environment"]
     for variable in environment:
@@ -63,3 +65,30 @@ def test_compose_file_names_the_services_and_the_settings_the_code_reads():
     assert "celery" in " ".join(services["worker"]["command"]) and "worker" in services["worker"]["command"]
     assert "beat" in services["beat"]["command"]
     assert compose["volumes"].keys() >= {"pgdata", "redisdata"}
+
+
+@pytest.mark.django_db
+def test_health_answers_ok_without_sign_in_and_behind_the_ssl_redirect(client, settings):
+    """The compose health check's request: no session, the proxy's header, SSL redirect on."""
+    settings.SECURE_SSL_REDIRECT = True
+    settings.SECURE_PROXY_SSL_HEADER = ("HTTP_X_FORWARDED_PROTO", "https")
+    response = client.get("/health/", HTTP_X_FORWARDED_PROTO="https")
+    assert response.status_code == 200 and response.content == b"ok"
+    assert client.get("/health/").status_code == 301  # without the header: sent to HTTPS like any page
+    assert client.post("/health/", HTTP_X_FORWARDED_PROTO="https").status_code == 405
+
+
+def test_lock_file_pins_every_requirement_exactly():
+    """CI and the compose image install with the lock as constraints: each named requirement has one exact version."""
+    locked = {
+        line.split("==")[0].lower().replace("_", "-")
+        for line in (ROOT / "requirements.lock").read_text().splitlines()
+        if "==" in line and not line.startswith("#")
+    }
+    for name in ("requirements.txt", "requirements-dev.txt"):
+        for line in (ROOT / name).read_text().splitlines():
+            if line and not line.startswith(("#", "-r")):
+                package = line.split("~=")[0].split("[")[0].lower().replace("_", "-")
+                assert package in locked, f"{package} of {name} is not in requirements.lock"
+    compose = (ROOT / "docker-compose.yml").read_text()
+    assert "-c requirements.lock" in compose and "-c requirements.lock" in (ROOT / ".ci" / "run").read_text()

@@ -48,11 +48,6 @@ def reactance_ohm(capacitance_uf, frequency_hz):
         return 1.0 / (TWO_PI * np.asarray(frequency_hz, float) * c_f)
 
 
-def esr_from_dissipation_factor(dissipation_factor, capacitance_uf, frequency_hz):
-    """Equivalent series resistance, ohms: ESR = DF x Xc."""
-    return np.asarray(dissipation_factor, float) * reactance_ohm(capacitance_uf, frequency_hz)
-
-
 def dissipation_factor_from_esr(esr_ohm, capacitance_uf, frequency_hz):
     """Dissipation factor (tan delta) from a measured ESR: DF = ESR / Xc."""
     return np.asarray(esr_ohm, float) / reactance_ohm(capacitance_uf, frequency_hz)
@@ -161,32 +156,3 @@ def acceleration_factor(
 
 # Class of operation per IEC 60252-1 (A, B, C published; D from memory).
 CLASS_LIFE_HOURS = {"A": 30000.0, "B": 10000.0, "C": 3000.0, "D": 1000.0}
-
-
-def rated_life_hours(
-    class_of_operation,
-    max_case_temperature_c,
-    case_temperature_c,
-    rated_voltage_v,
-    voltage_v,
-    doubling_k=10.0,
-    voltage_exponent=10.0,
-):
-    """Expected life, hours: L = L_class x 2^((T_max - T)/dT) x (U_N / V)^n.
-
-    `class_of_operation` is an array of letters A-D.
-    """
-    classes = np.asarray(class_of_operation).astype(str)
-    base = np.select(
-        [classes == letter for letter in CLASS_LIFE_HOURS],
-        list(CLASS_LIFE_HOURS.values()),
-        default=np.nan,
-    )
-    return base / acceleration_factor(
-        case_temperature_c,
-        voltage_v,
-        max_case_temperature_c,
-        rated_voltage_v,
-        doubling_k,
-        voltage_exponent,
-    )

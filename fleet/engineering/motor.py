@@ -26,6 +26,13 @@ TWO_PI = 2.0 * np.pi
 
 LOAD_FAN = 0  # torque ~ speed^2 (fans, centrifugal pumps)
 LOAD_CONSTANT = 1  # torque about constant (compressors, conveyors)
+LOAD_TYPE_FAN_LAW = "fan_law"  # the register's names for the two load kinds
+LOAD_TYPE_CONSTANT = "constant"
+
+
+def load_kind_from_type(load_type):
+    """LOAD_FAN or LOAD_CONSTANT for each register load type (LOAD_TYPE_*)."""
+    return np.where(np.asarray(load_type, object) == LOAD_TYPE_FAN_LAW, LOAD_FAN, LOAD_CONSTANT)
 
 
 def synchronous_speed_rad_s(frequency_hz, poles):
@@ -95,17 +102,6 @@ def starting_torque_nm(result: StandstillResult, rotor_resistance_ohm, frequency
     return scale * result.torque_index / synchronous_speed_rad_s(frequency_hz, poles)
 
 
-def phase_shift_from_magnitudes_deg(i_line_a, i_main_a, i_aux_a):
-    """Angle between winding currents from three clamp-meter magnitudes.
-
-    cos(theta) = (|IL|^2 - |Im|^2 - |Ia|^2) / (2 |Im| |Ia|); clipped to [-1, 1]
-    because meter error can push the ratio just outside.
-    """
-    i_line_a, i_main_a, i_aux_a = (np.asarray(x, float) for x in (i_line_a, i_main_a, i_aux_a))
-    cos_theta = (i_line_a**2 - i_main_a**2 - i_aux_a**2) / (2.0 * i_main_a * i_aux_a)
-    return np.degrees(np.arccos(np.clip(cos_theta, -1.0, 1.0)))
-
-
 def _uf_from_reactance(x_c, frequency_hz):
     return 1e6 / (TWO_PI * np.asarray(frequency_hz, float) * x_c)
 
@@ -113,7 +109,8 @@ def _uf_from_reactance(x_c, frequency_hz):
 def quadrature_capacitance_uf(z_main, z_aux, frequency_hz):
     """Capacitance that puts the auxiliary current 90 deg ahead of the main one.
 
-    Xc = Xa + Ra Rm / Xm (derived in the primer, section 2).
+    Xc = Xa + Ra Rm / Xm (docs/engineering.md). Reference value for outside checks (a
+    public entry point); the application itself does not call it.
     """
     z_main, z_aux = np.asarray(z_main), np.asarray(z_aux)
     x_c = z_aux.imag + z_aux.real * z_main.real / z_main.imag
@@ -121,39 +118,14 @@ def quadrature_capacitance_uf(z_main, z_aux, frequency_hz):
 
 
 def max_starting_torque_capacitance_uf(z_main, z_aux, frequency_hz):
-    """Capacitance for the largest starting torque: Xc = Xa + Ra (|Zm| - Xm) / Rm."""
+    """Capacitance for the largest starting torque: Xc = Xa + Ra (|Zm| - Xm) / Rm.
+
+    Reference value for outside checks and the tests (a public entry point); the
+    application itself does not call it.
+    """
     z_main, z_aux = np.asarray(z_main), np.asarray(z_aux)
     x_c = z_aux.imag + z_aux.real * (np.abs(z_main) - z_main.imag) / z_main.real
     return _uf_from_reactance(x_c, frequency_hz)
-
-
-def _golden_section_max(objective, lower, upper, iterations=80):
-    """Vectorised golden-section search for the maximum of a unimodal objective."""
-    ratio = (np.sqrt(5.0) - 1.0) / 2.0
-    lo, hi = np.array(lower, float), np.array(upper, float)
-    for _ in range(iterations):
-        x1 = hi - ratio * (hi - lo)
-        x2 = lo + ratio * (hi - lo)
-        keep_left = objective(x1) > objective(x2)
-        hi = np.where(keep_left, x2, hi)
-        lo = np.where(keep_left, lo, x1)
-    return 0.5 * (lo + hi)
-
-
-def max_torque_per_ampere_capacitance_uf(z_main, z_aux, frequency_hz):
-    """Capacitance for the largest starting torque per line ampere (bounded search).
-
-    No closed form; the search runs between a tenth of the quadrature value and
-    three times the largest-torque value, where the ratio is unimodal.
-    """
-    c_quad = quadrature_capacitance_uf(z_main, z_aux, frequency_hz)
-    c_max = max_starting_torque_capacitance_uf(z_main, z_aux, frequency_hz)
-
-    def torque_per_ampere(c_uf):
-        result = standstill(z_main, z_aux, c_uf, 1.0, frequency_hz)
-        return result.torque_index / np.abs(result.i_line)
-
-    return _golden_section_max(torque_per_ampere, 0.1 * c_quad, 3.0 * c_max)
 
 
 # --- running --------------------------------------------------------------------

@@ -23,8 +23,10 @@ from .capacitor import capacitance_from_current, short_circuit_suspected
 
 TWO_PI = 2.0 * np.pi
 
-METHODS = ("meter", "in_circuit")
-CONDITIONS = ("sound", "bulged", "leaking", "vented")
+METHOD_METER, METHOD_IN_CIRCUIT = "meter", "in_circuit"
+METHODS = (METHOD_METER, METHOD_IN_CIRCUIT)
+CONDITION_SOUND = "sound"
+CONDITIONS = (CONDITION_SOUND, "bulged", "leaking", "vented")
 UNITS = {"uf": "uF", "a": "A", "v": "V", "c": "C", "ohm": "ohm"}
 
 # One decimal separator, point or comma, ASCII digits, an optional exponent.
@@ -317,11 +319,11 @@ def _check_readings(
         values[name] = number
 
     method = _as_objects(method, n).map(lambda v: v if isinstance(v, str) else "").str.strip().str.lower()
-    method = method.where(method != "", "meter").to_numpy(object)
+    method = method.where(method != "", METHOD_METER).to_numpy(object)
     errors.add("method", ~np.isin(method, METHODS), "must be meter or in_circuit")
     if condition is not None:
         text = _as_objects(condition, n).map(lambda v: v if isinstance(v, str) else "?").str.strip().str.lower()
-        text = text.where(text != "", "sound").to_numpy(object)
+        text = text.where(text != "", CONDITION_SOUND).to_numpy(object)
         errors.add("condition", ~np.isin(text, CONDITIONS), f"must be {', '.join(CONDITIONS[:-1])} or {CONDITIONS[-1]}")
         values["condition"] = text
     values["method"] = method
@@ -330,7 +332,7 @@ def _check_readings(
     frequency = _column(frequency_hz, n)
     supply = _column(motor_voltage_v, n)
     full_load = _column(full_load_current_a, n)
-    in_circuit = method == "in_circuit"
+    in_circuit = method == METHOD_IN_CIRCUIT
     current, voltage = values["capacitor_current_a"], values["capacitor_voltage_v"]
     missing_current = in_circuit & np.isnan(current) & ~errors.has("capacitor_current_a")
     missing_voltage = in_circuit & np.isnan(voltage) & ~errors.has("capacitor_voltage_v")

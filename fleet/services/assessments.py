@@ -26,24 +26,33 @@ from fleet.engineering.capacitor import (
     dissipation_factor_from_esr,
     tolerance_verdict,
 )
-from fleet.engineering.drift import LIMIT_NAMES, ROLE_RUN, capacitance_limits, has_run_capacitor, operating_figures
+from fleet.engineering.drift import (
+    LIMIT_NAMES,
+    ROLE_RUN,
+    ROLE_START,
+    capacitance_limits,
+    has_run_capacitor,
+    operating_figures,
+)
 from fleet.engineering.motor import (
-    LOAD_CONSTANT,
-    LOAD_FAN,
     MotorCircuit,
+    load_kind_from_type,
     load_matching_rated_slip,
     synchronous_speed_rad_s,
 )
 from fleet.engineering.planning import (
+    DISSIPATION_LIMIT,
     EVIDENCE_DEFECT,
     EVIDENCE_DF,
     EVIDENCE_NONE,
     EVIDENCE_OPEN_OR_SHORT,
+    RISK_REPLACE_NOW,
     TOLERANCE_LIMIT,
     Judgement,
     PlanningSettings,
     judge,
 )
+from fleet.engineering.rules import CONDITION_SOUND
 from fleet.engineering.trends import (
     MODEL_LOG,
     PartPriors,
@@ -65,7 +74,6 @@ from .selectors import (
 
 MODEL_VERSION = "trend-2"
 ALL_LIMITS = (TOLERANCE_LIMIT, *LIMIT_NAMES)
-DISSIPATION_LIMIT = "dissipation factor"  # the second wear sign, on the ESR readings' trend
 VOLTAGE_DISAGREEMENT = 0.15  # estimated vs measured capacitor voltage, relative
 
 
@@ -221,8 +229,8 @@ def _motor_circuits(inst: pd.DataFrame):
     companions = companion_capacitance_frame(sub["motor_id"].unique())
     own_run = np.where(sub["role"] == ROLE_RUN, sub["rated_uf"], np.nan)
     own_start = np.where(sub["role"] != ROLE_RUN, sub["rated_uf"], np.nan)
-    run_uf = np.where(np.isnan(own_run), companions["run"].reindex(sub["motor_id"]).to_numpy(float), own_run)
-    start_uf = np.where(np.isnan(own_start), companions["start"].reindex(sub["motor_id"]).to_numpy(float), own_start)
+    run_uf = np.where(np.isnan(own_run), companions[ROLE_RUN].reindex(sub["motor_id"]).to_numpy(float), own_run)
+    start_uf = np.where(np.isnan(own_start), companions[ROLE_START].reindex(sub["motor_id"]).to_numpy(float), own_start)
     kind = sub["motor_type"].to_numpy()
     runs = has_run_capacitor(kind)
     run_uf = np.where(runs, np.nan_to_num(run_uf), 0.0)
@@ -231,7 +239,7 @@ def _motor_circuits(inst: pd.DataFrame):
         synchronous_speed_rad_s(sub["frequency_hz"].to_numpy(float), sub["poles"].to_numpy(float)) * 60 / (2 * np.pi)
     )
     rated_slip = 1.0 - sub["rated_speed_rpm"].to_numpy(float) / sync_rpm
-    load_kind = np.where(sub["load_type"] == "fan_law", LOAD_FAN, LOAD_CONSTANT)
+    load_kind = load_kind_from_type(sub["load_type"].to_numpy(object))
     load = load_matching_rated_slip(circuit, run_uf, rated_slip, load_kind, aux_in_circuit=runs)
     return with_circuit, circuit, load, run_uf, start_uf, kind
 
@@ -248,8 +256,8 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
             **{name: sub[name].to_numpy() for name in CIRCUIT_FIELDS},
             "role": role,
             "kind": kind,
-            "run": run_uf,
-            "start": start_uf,
+            ROLE_RUN: run_uf,
+            ROLE_START: start_uf,
             "fla": sub["full_load_current_a"].to_numpy(),
             "cap_v": sub["part_rated_voltage_v"].to_numpy(),
             "torque": np.round(load.torque_at_rated_nm, 9),
@@ -304,7 +312,7 @@ def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.nda
 
 def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     """What the newest reading itself shows, strongest first, with its words."""
-    condition = latest["condition"].fillna("sound").to_numpy(object)
+    condition = latest["condition"].fillna(CONDITION_SOUND).to_numpy(object)
     capacitance = latest["capacitance_uf"].to_numpy(float)
     dissipation = dissipation_factor_from_esr(
         latest["esr_ohm"].to_numpy(float), capacitance, inst["frequency_hz"].to_numpy(float)
@@ -313,7 +321,7 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     with np.errstate(invalid="ignore"):
         df_high = np.isfinite(dissipation) & np.isfinite(max_df) & (dissipation > max_df)
     open_or_short = np.isin(verdict_code, [VERDICT_OPEN, VERDICT_SHORT])
-    defect = condition != "sound"
+    defect = condition != CONDITION_SOUND
     evidence = np.select(
         [defect, open_or_short, df_high], [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF], EVIDENCE_NONE
     )
@@ -648,7 +656,7 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
                 risk=str(judgement.risk[i]),
                 replace_by=day(judgement.due_days[i]),
                 reason=(
-                    result.set_aside[i] if aside and judgement.risk[i] != "replace now" else str(judgement.reason[i])
+                    result.set_aside[i] if aside and judgement.risk[i] != RISK_REPLACE_NOW else str(judgement.reason[i])
                 )[:300],
                 limits=limits,
                 set_aside=str(result.set_aside[i]),

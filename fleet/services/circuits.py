@@ -55,7 +55,9 @@ def estimate_circuits(motor_ids=None) -> int:
     by_design: dict[tuple, list[int]] = {}
     for motor_id, *plate in rows:
         rating = ratings.get(motor_id, {})
-        by_design.setdefault((*plate, rating.get("run", 0.0), rating.get("start", 0.0)), []).append(motor_id)
+        by_design.setdefault(
+            (*plate, rating.get(FittedCapacitor.Role.RUN, 0.0), rating.get(FittedCapacitor.Role.START, 0.0)), []
+        ).append(motor_id)
     updated = []
     for (volts, hertz, poles, output, current, speed, kind, run_uf, start_uf), ids in by_design.items():
         estimate = estimate_parameters(Nameplate(volts, hertz, poles, output, current, speed, kind, run_uf, start_uf))
@@ -87,9 +89,9 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
     if not first:
         return {"fitted": 0, "kept": 0}
     starts = dict(
-        FittedCapacitor.objects.filter(motor_id__in=first, role="start", removed_on__isnull=True).values_list(
-            "motor_id", "part__rated_uf"
-        )
+        FittedCapacitor.objects.filter(
+            motor_id__in=first, role=FittedCapacitor.Role.START, removed_on__isnull=True
+        ).values_list("motor_id", "part__rated_uf")
     )
     fitted, kept = [], 0
     for motor in Motor.objects.filter(id__in=first):

@@ -20,12 +20,15 @@ from django.utils import timezone
 
 from fleet.engineering.capacitor import acceleration_factor
 from fleet.engineering.drift import operating_figures
-from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, load_matching_rated_slip, synchronous_speed_rad_s
+from fleet.engineering.motor import load_kind_from_type, load_matching_rated_slip, synchronous_speed_rad_s
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.circuits import circuit_fields
+
+FILM, ELECTROLYTIC = CapacitorPart.Dielectric.FILM, CapacitorPart.Dielectric.ELECTROLYTIC
+FAN_LAW, CONSTANT_TORQUE = Motor.LoadType.FAN_LAW, Motor.LoadType.CONSTANT
 
 DEMO_SITES = [
     ("PKH", "Packhouse, Riverside Road", "Europe/Dublin"),
@@ -42,13 +45,13 @@ DEMO_USERS = [
 
 # code, rated uF, tol -, tol +, rated V, dielectric, class, safety, max case C, cost
 DEMO_PARTS = [
-    ("RUN-4U0-450", 4.0, 5, 5, 450, "film", "B", "S2", 70, 6.40),
-    ("RUN-8U0-450", 8.0, 5, 5, 450, "film", "B", "S2", 70, 7.90),
-    ("RUN-20U-450", 20.0, 5, 5, 450, "film", "B", "S2", 70, 12.60),
-    ("RUN-30U-450", 30.0, 5, 5, 450, "film", "B", "S2", 85, 16.20),
-    ("START-98U-330", 98.0, 10.2, 10.2, 330, "electrolytic", "", "", 65, 9.10),
-    ("START-145U-330", 143.0, 9.1, 9.1, 330, "electrolytic", "", "", 65, 10.60),
-    ("START-208U-330", 208.0, 9.1, 9.1, 330, "electrolytic", "", "", 65, 12.30),
+    ("RUN-4U0-450", 4.0, 5, 5, 450, FILM, "B", "S2", 70, 6.40),
+    ("RUN-8U0-450", 8.0, 5, 5, 450, FILM, "B", "S2", 70, 7.90),
+    ("RUN-20U-450", 20.0, 5, 5, 450, FILM, "B", "S2", 70, 12.60),
+    ("RUN-30U-450", 30.0, 5, 5, 450, FILM, "B", "S2", 85, 16.20),
+    ("START-98U-330", 98.0, 10.2, 10.2, 330, ELECTROLYTIC, "", "", 65, 9.10),
+    ("START-145U-330", 143.0, 9.1, 9.1, 330, ELECTROLYTIC, "", "", 65, 10.60),
+    ("START-208U-330", 208.0, 9.1, 9.1, 330, ELECTROLYTIC, "", "", 65, 12.30),
 ]
 
 
@@ -77,7 +80,7 @@ DESIGNS = [
         "evaporator fan",
         "fan",
         "permanent_split",
-        "fan_law",
+        FAN_LAW,
         6,
         120,
         0.95,
@@ -93,7 +96,7 @@ DESIGNS = [
         "circulation fan",
         "fan",
         "permanent_split",
-        "fan_law",
+        FAN_LAW,
         4,
         250,
         1.9,
@@ -109,7 +112,7 @@ DESIGNS = [
         "irrigation pump",
         "pump",
         "two_value",
-        "fan_law",
+        FAN_LAW,
         2,
         750,
         5.2,
@@ -125,7 +128,7 @@ DESIGNS = [
         "cooler compressor",
         "compressor",
         "two_value",
-        "constant",
+        CONSTANT_TORQUE,
         2,
         1100,
         7.6,
@@ -141,7 +144,7 @@ DESIGNS = [
         "packing conveyor",
         "conveyor",
         "capacitor_start",
-        "constant",
+        CONSTANT_TORQUE,
         4,
         370,
         3.3,
@@ -163,7 +166,7 @@ VOLTAGE_V, FREQUENCY_HZ = 230.0, 50
 EXAMPLE_FAN_NAMEPLATE = dict(
     application="fan",
     motor_type="permanent_split",
-    load_type="fan_law",
+    load_type=FAN_LAW,
     rated_voltage_v=230,
     frequency_hz=50,
     poles=6,
@@ -216,8 +219,8 @@ def _parts() -> dict[str, CapacitorPart]:
                 safety_class=safety,
                 max_case_temperature_c=tmax,
                 unit_cost=cost,
-                duty="continuous" if dielectric == "film" else "20 starts/h of up to 3 s",
-                max_dissipation_factor=None if dielectric == "film" else 0.10,
+                duty="continuous" if dielectric == FILM else "20 starts/h of up to 3 s",
+                max_dissipation_factor=None if dielectric == FILM else 0.10,
             ),
         )
     return parts
@@ -248,7 +251,7 @@ def _run_capacitor_voltage(design: Design, circuit_info, parts) -> float:
     sync_rpm = synchronous_speed_rad_s(FREQUENCY_HZ, design.poles) * 60 / (2 * np.pi)
     slip = 1 - design.rated_speed_rpm / sync_rpm
     run_uf = parts[design.run_part].rated_uf
-    kind = LOAD_FAN if design.load_type == "fan_law" else LOAD_CONSTANT
+    kind = load_kind_from_type(design.load_type)
     load = load_matching_rated_slip(circuit, run_uf, slip, kind)
     figures = operating_figures(
         circuit, load, run_uf, parts[design.start_part].rated_uf if design.start_part else 0.0, design.motor_type
@@ -296,7 +299,10 @@ def build_demo(*, seed: int = 7, today: dt.date | None = None, scale: float = 1.
                     **circuit_fields,
                 )
                 motors += 1
-                for role, code in (("run", design.run_part), ("start", design.start_part)):
+                for role, code in (
+                    (FittedCapacitor.Role.RUN, design.run_part),
+                    (FittedCapacitor.Role.START, design.start_part),
+                ):
                     if code:
                         reading_rows += _age_capacitor_line(
                             motor, role, parts[code], commissioned, today, design.case_temp_c, v_cap, rng, technician
@@ -310,7 +316,7 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
     ages until it is read below its limit (replaced on plan) or fails (replaced
     as failed); the successor starts fresh. Returns the readings to insert."""
     settings = TrendSettings()
-    film = part.dielectric == "film"
+    film = part.dielectric == FILM
     readings: list[Reading] = []
     fitted_on = commissioned
     first_reading_day = today - dt.timedelta(days=4 * 365)
@@ -371,7 +377,7 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
                     installation=installation,
                     taken_at=taken_at,
                     taken_by=technician,
-                    method="in_circuit" if in_circuit else "meter",
+                    method=Reading.Method.IN_CIRCUIT if in_circuit else Reading.Method.METER,
                     capacitance_uf=round(measured, 3),
                     capacitor_current_a=current,
                     capacitor_voltage_v=cap_v if film else None,

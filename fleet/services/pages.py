@@ -40,7 +40,7 @@ def motor_with_capacitors(asset_tag: str):
 def recent_readings(installation: FittedCapacitor, count: int = RECENT_READINGS):
     return list(
         Reading.objects.filter(installation=installation)
-        .select_related("taken_by", "supersedes")
+        .select_related("taken_by", "supersedes", "superseded_by")
         .order_by("-taken_at", "-id")[:count]
     )
 

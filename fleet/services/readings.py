@@ -124,12 +124,38 @@ def _client_key(user, key: str) -> str:
     return hashlib.sha256(f"{owner}|{key}".encode()).hexdigest()[:40]
 
 
+def reading_to_correct(installation: FittedCapacitor, reading_id: int | str | None) -> Reading | None:
+    """The reading a correction replaces: one of this capacitor's, not corrected already.
+
+    A reading corrected before is refused with the id of its correction, so a chain of
+    corrections always replaces its newest link and no reading is corrected twice.
+    """
+    if reading_id is None or reading_id == "":
+        return None
+    try:
+        reading_id = int(reading_id)
+    except ValueError:
+        raise ValidationError({"supersedes": f"{str(reading_id)[:20]!r} is not a reading number."}) from None
+    reading = Reading.objects.filter(installation=installation, pk=reading_id).select_related("superseded_by").first()
+    if reading is None:
+        raise ValidationError({"supersedes": f"Reading {reading_id} is not a reading of this capacitor."})
+    later = getattr(reading, "superseded_by", None)
+    if later is not None:
+        raise ValidationError(
+            {
+                "supersedes": f"Reading {reading.id} was already corrected by reading {later.id} "
+                f"({later.capacitance_uf:g} uF): correct that one instead."
+            }
+        )
+    return reading
+
+
 def record_reading(
     *,
     installation: FittedCapacitor,
     values: dict,
     user=None,
-    supersedes: Reading | None = None,
+    supersedes_id: int | str | None = None,
     confirmed: bool = False,
     source: str = Reading.Source.FORM,
     client_key: str = "",
@@ -138,16 +164,19 @@ def record_reading(
 
     `client_key` (the form's one-time key, or an API client's idempotency key) makes a
     repeated submission save nothing: the reading saved the first time comes back with
-    `replayed = True`.
+    `replayed = True`. `supersedes_id` makes the reading a correction of an earlier one of the
+    same capacitor (see `reading_to_correct`), taken when that one was unless given: both are
+    kept, the fits use the correction.
     """
     stored_key = _client_key(user, client_key) if client_key else None
     if stored_key:
         earlier = _earlier_submission(installation, stored_key, values)
         if earlier is not None:
             return earlier
+    supersedes = reading_to_correct(installation, supersedes_id)
+    if supersedes is not None and not values.get("taken_at"):
+        values = {**values, "taken_at": supersedes.taken_at}
     checked = check_reading(installation, values, confirmed=confirmed)
-    if supersedes is not None and supersedes.installation_id != installation.id:
-        raise ValidationError({"supersedes": "A correction must be for the same capacitor."})
     try:
         with transaction.atomic():
             reading = Reading.objects.create(
@@ -162,9 +191,10 @@ def record_reading(
             transaction.on_commit(lambda: enqueue_refit([installation.id]))
     except IntegrityError:
         earlier = _earlier_submission(installation, stored_key, values) if stored_key else None
-        if earlier is None:
-            raise
-        return earlier
+        if earlier is not None:
+            return earlier
+        reading_to_correct(installation, supersedes_id)  # corrected meanwhile by someone else: says so by field
+        raise
     reading.replayed = False
     return reading
 

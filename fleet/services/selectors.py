@@ -65,7 +65,7 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     )
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
     table = frame.pivot_table(index="motor_id", columns="role", values="rated_uf", aggfunc="first")
-    return table.reindex(columns=["run", "start"])
+    return table.reindex(columns=[FittedCapacitor.Role.RUN, FittedCapacitor.Role.START])
 
 
 READING_COLUMNS = [

@@ -11,10 +11,13 @@ from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import bundle_visits
-from fleet.models import Assessment, WorkOrder
+from fleet.models import Assessment, FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
 
-KIND_FOR_ROLE = {"run": WorkOrder.Kind.REPLACE_RUN, "start": WorkOrder.Kind.REPLACE_START}
+KIND_FOR_ROLE = {
+    FittedCapacitor.Role.RUN: WorkOrder.Kind.REPLACE_RUN,
+    FittedCapacitor.Role.START: WorkOrder.Kind.REPLACE_START,
+}
 OPEN = [WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
 
 

@@ -19,8 +19,6 @@ from fleet.engineering import (
 )
 from fleet.engineering.motor import (
     MotorCircuit,
-    max_torque_per_ampere_capacitance_uf,
-    phase_shift_from_magnitudes_deg,
     rotor_impedance,
     starting_torque_nm,
     two_winding_running,
@@ -87,22 +85,6 @@ def test_largest_starting_torque_capacitance_matches_a_brute_force_scan():
     scan = grid[np.argmax(standstill(Z_MAIN, Z_AUX, grid, 120.0, 60.0).torque_index)]
     assert closed_form == pytest.approx(scan, abs=0.05)
     assert closed_form > quadrature_capacitance_uf(Z_MAIN, Z_AUX, 60.0)
-
-
-def test_torque_per_ampere_search_matches_a_brute_force_scan():
-    """[derived] the bounded search finds the same maximum as a fine grid."""
-    found = max_torque_per_ampere_capacitance_uf(Z_MAIN, Z_AUX, 60.0)
-    grid = np.linspace(20, 900, 88001)
-    result = standstill(Z_MAIN, Z_AUX, grid, 120.0, 60.0)
-    scan = grid[np.argmax(result.torque_index / np.abs(result.i_line))]
-    assert found == pytest.approx(scan, abs=0.05)
-
-
-def test_phase_shift_from_three_magnitudes():
-    """[derived] cos(theta) = (|IL|^2 - |Im|^2 - |Ia|^2) / (2|Im||Ia|) recovers the angle."""
-    result = standstill(Z_MAIN, Z_AUX, 120.0, 120.0, 60.0)
-    angle = phase_shift_from_magnitudes_deg(abs(result.i_line), abs(result.i_main), abs(result.i_aux))
-    assert angle == pytest.approx(result.phase_shift_deg, abs=1e-9)
 
 
 def test_in_circuit_capacitance_rules_of_thumb():

@@ -36,7 +36,7 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
                 tolerance_minus_pct=5,
                 tolerance_plus_pct=5,
                 rated_voltage_v=450,
-                dielectric="film",
+                dielectric=CapacitorPart.Dielectric.FILM,
                 class_of_operation="B",
             ),
         )
@@ -55,7 +55,8 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
         )
         fitted_on = today - dt.timedelta(days=91 * (readings_each + 1))
         FittedCapacitor.objects.bulk_create(
-            [FittedCapacitor(motor=m, role="run", part=part, fitted_on=fitted_on) for m in motors], batch_size=2000
+            [FittedCapacitor(motor=m, role=FittedCapacitor.Role.RUN, part=part, fitted_on=fitted_on) for m in motors],
+            batch_size=2000,
         )
         ids = list(FittedCapacitor.objects.filter(motor__site=site).order_by("id").values_list("id", flat=True))
         slope = -np.abs(rng.normal(1.2e-6, 4e-7, len(ids)))  # per calendar hour
@@ -69,7 +70,7 @@ def generate_fleet(capacitors: int, readings_each: int, seed: int = 3) -> Site:
                 Reading(
                     installation_id=i,
                     taken_at=taken,
-                    method="meter",
+                    method=Reading.Method.METER,
                     capacitance_uf=float(v),
                     case_temperature_c=35.0,
                     source="demo",

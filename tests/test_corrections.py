@@ -1,0 +1,74 @@
+"""Corrections: a reading entered wrong is corrected from the capacitor page or the API, never edited."""
+
+import datetime as dt
+
+import pytest
+from django.core.exceptions import ValidationError
+from django.urls import reverse
+from django.utils import timezone
+from rest_framework.authtoken.models import Token
+from rest_framework.test import APIClient
+
+from fleet.models import Assessment, Reading
+from fleet.services.assessments import refit_installations
+from fleet.services.readings import record_reading
+
+from .conftest import make_installation, make_reading, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+
+def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correction(
+    client, technician, fan_installation
+):
+    """[derived] append-only: both readings kept; the fit leaves the corrected one out."""
+    readings = quarterly_readings(fan_installation, timezone.now() - dt.timedelta(days=400), [4.0, 3.98, 3.96, 3.94])
+    wrong = make_reading(fan_installation, capacitance_uf=3.2, taken_at=timezone.now() - dt.timedelta(hours=3))
+    client.force_login(technician)
+    page = client.get(reverse("capacitor", args=[fan_installation.id])).content.decode()
+    assert f"?corrects={wrong.id}" in page
+    url = reverse("reading_new", args=[fan_installation.id])
+    form = client.get(url, {"corrects": wrong.id}).content.decode()
+    assert "Correction</strong> of the reading" in form and "Save correction" in form
+    response = client.post(
+        url, {"method": "meter", "capacitance_uf": "3.92", "condition": "sound", "supersedes": str(wrong.id)}
+    )
+    assert response.status_code == 302
+    correction = Reading.objects.get(supersedes=wrong)
+    assert correction.capacitance_uf == 3.92 and correction.taken_at == wrong.taken_at
+    assert Reading.objects.filter(pk=wrong.pk).exists()  # kept, never overwritten
+    refit_installations([fan_installation.id])
+    assessment = Assessment.objects.get(installation=fan_installation, is_current=True)
+    assert assessment.readings_used == len(readings) + 1
+    page = client.get(reverse("capacitor", args=[fan_installation.id])).content.decode()
+    assert "corrected: not used in the trend" in page and f"?corrects={wrong.id}" not in page
+
+
+def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, fan_installation):
+    wrong = make_reading(fan_installation, capacitance_uf=3.2)
+    first = record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": "3.9"},
+                           user=technician, supersedes_id=wrong.id)  # fmt: skip
+    with pytest.raises(ValidationError) as twice:
+        record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": "3.8"},
+                       user=technician, supersedes_id=wrong.id)  # fmt: skip
+    assert f"already corrected by reading {first.id}" in twice.value.message_dict["supersedes"][0]
+    other = make_installation(motor=None)
+    with pytest.raises(ValidationError) as elsewhere:
+        record_reading(installation=other, values={"method": "meter", "capacitance_uf": "3.9"},
+                       user=technician, supersedes_id=first.id)  # fmt: skip
+    assert "not a reading of this capacitor" in elsewhere.value.message_dict["supersedes"][0]
+    assert Reading.objects.count() == 2
+
+
+def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technician, fan_installation):
+    wrong = make_reading(fan_installation, capacitance_uf=3.2)
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=technician).key}")
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    saved = client.post(url, {"method": "meter", "capacitance_uf": 3.9, "supersedes": wrong.id}, format="json")
+    assert saved.status_code == 201 and saved.json()["supersedes"] == wrong.id
+    again = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": wrong.id}, format="json")
+    assert again.status_code == 400 and "already corrected" in again.json()["supersedes"][0]
+    unknown = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": 999999}, format="json")
+    assert unknown.status_code == 400 and "not a reading of this capacitor" in unknown.json()["supersedes"][0]
+    assert Reading.objects.count() == 2
