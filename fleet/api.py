@@ -7,6 +7,7 @@ readings. Write: a reading, through the same service and checks as the form.
 from __future__ import annotations
 
 from django.core.exceptions import ValidationError
+from django.db.models import F
 from django.shortcuts import get_object_or_404
 from django_filters.rest_framework import DjangoFilterBackend
 from rest_framework import generics, permissions, serializers, status
@@ -127,7 +128,7 @@ class AssessmentList(generics.ListAPIView):
         return scope_to_user(
             Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
             .select_related("installation__motor__site", "installation__part")
-            .order_by("replace_by", "installation_id"),
+            .order_by(F("replace_by").asc(nulls_last=True), "installation_id"),
             self.request.user,
         )
 

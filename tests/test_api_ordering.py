@@ -1,0 +1,33 @@
+"""The assessments API lists the soonest replacement first, on SQLite as on PostgreSQL."""
+
+import datetime as dt
+
+import pytest
+from django.urls import reverse
+from django.utils import timezone
+from rest_framework.authtoken.models import Token
+from rest_framework.test import APIClient
+
+from fleet.models import Assessment
+from fleet.services.assessments import refit_installations
+
+from .conftest import make_installation, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+
+def test_capacitors_without_a_replacement_date_come_last(engineer):
+    """[derived] SQL puts NULL first on SQLite and last on PostgreSQL unless told: the API tells."""
+    start = timezone.make_aware(dt.datetime(2024, 1, 8, 9))
+    installations = [make_installation() for _ in range(3)]
+    for installation in installations:
+        quarterly_readings(installation, start, [4.0, 3.98, 3.96])
+    refit_installations([i.id for i in installations])
+    undated, late, soon = installations
+    Assessment.objects.filter(installation=undated).update(replace_by=None)
+    Assessment.objects.filter(installation=late).update(replace_by=dt.date(2030, 1, 1))
+    Assessment.objects.filter(installation=soon).update(replace_by=dt.date(2027, 1, 1))
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=engineer).key}")
+    rows = client.get(reverse("api_assessments")).json()["results"]
+    assert [row["replace_by"] for row in rows] == ["2027-01-01", "2030-01-01", None]
