@@ -5,13 +5,12 @@ import datetime as dt
 import pytest
 from django.urls import reverse
 from django.utils import timezone
-from rest_framework.authtoken.models import Token
-from rest_framework.test import APIClient
 
 from fleet.models import Assessment
 from fleet.services.assessments import refit_installations
 
 from .conftest import make_installation, quarterly_readings
+from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
 
@@ -27,7 +26,6 @@ def test_capacitors_without_a_replacement_date_come_last(engineer):
     Assessment.objects.filter(installation=undated).update(replace_by=None)
     Assessment.objects.filter(installation=late).update(replace_by=dt.date(2030, 1, 1))
     Assessment.objects.filter(installation=soon).update(replace_by=dt.date(2027, 1, 1))
-    client = APIClient()
-    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=engineer).key}")
+    client = client_for(engineer)
     rows = client.get(reverse("api_assessments")).json()["results"]
     assert [row["replace_by"] for row in rows] == ["2027-01-01", "2030-01-01", None]

@@ -6,14 +6,13 @@ import pytest
 from django.core.exceptions import ValidationError
 from django.urls import reverse
 from django.utils import timezone
-from rest_framework.authtoken.models import Token
-from rest_framework.test import APIClient
 
 from fleet.models import Assessment, Reading
 from fleet.services.assessments import refit_installations
 from fleet.services.readings import record_reading
 
 from .conftest import make_installation, make_reading, quarterly_readings
+from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
 
@@ -62,8 +61,7 @@ def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, f
 
 def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technician, fan_installation):
     wrong = make_reading(fan_installation, capacitance_uf=3.2)
-    client = APIClient()
-    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=technician).key}")
+    client = client_for(technician)
     url = reverse("api_capacitor_readings", args=[fan_installation.id])
     saved = client.post(url, {"method": "meter", "capacitance_uf": 3.9, "supersedes": wrong.id}, format="json")
     assert saved.status_code == 201 and saved.json()["supersedes"] == wrong.id

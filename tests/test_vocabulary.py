@@ -5,8 +5,6 @@ import datetime as dt
 import pytest
 from django.urls import reverse
 from django.utils import timezone
-from rest_framework.authtoken.models import Token
-from rest_framework.test import APIClient
 
 from fleet.engineering.capacitor import VERDICT_NAMES
 from fleet.engineering.drift import LIMIT_NAMES, ROLE_RUN, ROLE_START
@@ -17,6 +15,7 @@ from fleet.models import Assessment, FittedCapacitor, Reading, TrendModel
 from fleet.services.assessments import refit_installations
 
 from .conftest import quarterly_readings
+from .test_api import client_for
 
 
 def test_choices_are_the_cores_names_in_the_cores_order():
@@ -42,8 +41,7 @@ def test_a_refit_stores_only_values_of_the_vocabularies(fan_installation):
 
 @pytest.mark.django_db
 def test_an_unknown_risk_in_the_api_query_is_a_400_naming_it(engineer):
-    client = APIClient()
-    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=engineer).key}")
+    client = client_for(engineer)
     response = client.get(reverse("api_assessments"), {"risk": "dangerous"})
     assert response.status_code == 400
     assert "risk" in response.json()
