@@ -28,7 +28,7 @@ def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correcti
     assert f"?corrects={wrong.id}" in page
     url = reverse("reading_new", args=[fan_installation.id])
     form = client.get(url, {"corrects": wrong.id}).content.decode()
-    assert "Correction</strong> of the reading" in form and "Save correction" in form
+    assert "Correcting the reading of" in form and "Save correction" in form
     response = client.post(
         url, {"method": "meter", "capacitance_uf": "3.92", "condition": "sound", "supersedes": str(wrong.id)}
     )
