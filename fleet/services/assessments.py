@@ -54,6 +54,7 @@ from fleet.engineering.planning import (
 )
 from fleet.engineering.rules import CONDITION_SOUND
 from fleet.engineering.trends import (
+    MODEL_LINEAR,
     MODEL_LOG,
     PartPriors,
     TrendFit,
@@ -172,7 +173,7 @@ def _stored_priors(part_ids) -> PartPriors:
         refresh_part_priors(missing)
         frame = part_priors_frame(part_ids)
     frame = frame.reindex(list(part_ids))
-    defaults = {"trend_model": "linear", "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
+    defaults = {"trend_model": MODEL_LINEAR, "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
     defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
     frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
