@@ -40,8 +40,8 @@ class FleetSize:
     readings: int
 
 
-def existing_bench_fleet() -> bool:
-    return Site.objects.filter(code__startswith=SITE_PREFIX).exists()
+def existing_bench_fleet(prefix: str = SITE_PREFIX) -> bool:
+    return Site.objects.filter(code__startswith=prefix).exists()
 
 
 def _next_id(model) -> int:
@@ -57,9 +57,15 @@ def _reset_sequences(*models) -> None:
 
 
 def build_bench_fleet(
-    size: FleetSize, *, seed: int = 11, today: dt.date | None = None, progress: Callable[[str], None] = print
+    size: FleetSize,
+    *,
+    seed: int = 11,
+    today: dt.date | None = None,
+    prefix: str = SITE_PREFIX,
+    progress: Callable[[str], None] = print,
 ) -> dict:
-    """Create the fleet in one transaction; returns the counts written."""
+    """Create the fleet in one transaction (its sites' codes and its asset tags start with
+    `prefix`); returns the counts written."""
     rng = np.random.default_rng(seed)
     today = today or timezone.localdate()
     settings = TrendSettings()
@@ -76,14 +82,14 @@ def build_bench_fleet(
         progress(f"estimating {len(names)} nameplate designs")
         circuits = {name: _circuit_for(designs[name], parts) for name in names}
         sites = [
-            Site.objects.create(code=f"{SITE_PREFIX}{k + 1}", name=f"Benchmark plant {k + 1}", time_zone="UTC")
+            Site.objects.create(code=f"{prefix}{k + 1}", name=f"Benchmark plant {k + 1}", time_zone="UTC")
             for k in range(SITES)
         ]
         motor_ids = np.arange(size.motors) + _next_id(Motor)
         commissioned = np.datetime64(today) - rng.integers(4 * 365, 9 * 365, size.motors).astype("timedelta64[D]")
         motor_columns = {
             "id": motor_ids,
-            "asset_tag": [f"BF-{i:07d}" for i in range(size.motors)],
+            "asset_tag": [f"{prefix}M{i:07d}" for i in range(size.motors)],
             "site_id": np.array([s.id for s in sites])[np.arange(size.motors) % SITES],
             "location": "",
             "route_order": np.arange(size.motors) // SITES,

@@ -48,6 +48,21 @@ def recent_readings(installation: FittedCapacitor, count: int = RECENT_READINGS)
     )
 
 
+def stress_hours_of_readings(installation: FittedCapacitor, readings) -> np.ndarray:
+    """Stress hours at each of one capacitor's readings (a frame of its readings in time order
+    with taken_at, case_temperature_c, capacitor_voltage_v), as its fit computed them."""
+    frame = pd.DataFrame(readings).astype({"case_temperature_c": float, "capacitor_voltage_v": float})
+    frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
+    return reading_stress_hours(
+        np.zeros(len(frame), np.int64),
+        _hours_since_fitting(frame, np.full(len(frame), np.datetime64(installation.fitted_on))),
+        frame["case_temperature_c"].to_numpy(float),
+        frame["capacitor_voltage_v"].to_numpy(float),
+        [installation.part.rated_voltage_v],
+        1,
+    )
+
+
 def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730) -> dict | None:
     """Figure of readings, the stored fitted path and its band, drawn from stored numbers.
 
@@ -64,16 +79,8 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
     )
     if not readings:
         return None
-    frame = pd.DataFrame.from_records(readings).astype({"case_temperature_c": float, "capacitor_voltage_v": float})
-    frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
-    reading_taus = reading_stress_hours(
-        np.zeros(len(frame), np.int64),
-        _hours_since_fitting(frame, np.full(len(frame), np.datetime64(installation.fitted_on))),
-        frame["case_temperature_c"].to_numpy(float),
-        frame["capacitor_voltage_v"].to_numpy(float),
-        [installation.part.rated_voltage_v],
-        1,
-    )
+    frame = pd.DataFrame.from_records(readings)
+    reading_taus = stress_hours_of_readings(installation, frame)
     corrected = normalise_to_25c(
         frame["capacitance_uf"].to_numpy(float),
         frame["case_temperature_c"].to_numpy(float),
