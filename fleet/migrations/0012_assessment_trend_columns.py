@@ -18,28 +18,24 @@ COLUMNS = {
     "stress_rate": "stress_rate",
     "tempco_ppm_per_k": "tempco_ppm_per_k",
 }
+COVARIANCE = ("trend_var_intercept", "trend_cov_intercept_slope", "trend_var_slope")
 
 
 def trend_to_columns(apps, schema_editor):
-    Assessment = apps.get_model("fleet", "Assessment")
-    changed = []
-    for assessment in Assessment.objects.exclude(trend={}).only("id", "trend").iterator(chunk_size=2000):
-        trend = assessment.trend or {}
-        if "intercept" not in trend:
-            continue
-        for key, column in COLUMNS.items():
-            setattr(assessment, column, trend.get(key))
-        (assessment.trend_var_intercept, assessment.trend_cov_intercept_slope, assessment.trend_var_slope) = trend[
-            "covariance"
-        ]
-        changed.append(assessment)
-        if len(changed) >= 2000:
-            Assessment.objects.bulk_update(changed, [*COLUMNS.values(), *COVARIANCE])
-            changed = []
-    Assessment.objects.bulk_update(changed, [*COLUMNS.values(), *COVARIANCE])
+    """One UPDATE in SQL (fine for millions of rows); a row without a fitted path keeps NULLs."""
+    postgresql = schema_editor.connection.vendor == "postgresql"
 
+    def value(key, index=None):
+        if postgresql:
+            path = key if index is None else f"{key},{index}"
+            return f"(trend #>> '{{{path}}}')::double precision"
+        return f"json_extract(trend, '$.{key}{'' if index is None else f'[{index}]'}')"
 
-COVARIANCE = ("trend_var_intercept", "trend_cov_intercept_slope", "trend_var_slope")
+    assignments = [f"{column} = {value(key)}" for key, column in COLUMNS.items()]
+    assignments += [f"{column} = {value('covariance', k)}" for k, column in enumerate(COVARIANCE)]
+    schema_editor.execute(
+        f"UPDATE fleet_assessment SET {', '.join(assignments)} WHERE {value('intercept')} IS NOT NULL"
+    )
 
 
 class Migration(migrations.Migration):
