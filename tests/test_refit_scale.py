@@ -161,3 +161,48 @@ def test_a_chunk_refit_memory_stays_bounded_as_the_fleet_doubles():
     assert Reading.objects.count() >= 2 * size.readings - 100
     at_2n = chunk_peak_bytes(chunk)
     assert at_2n < 1.25 * at_n, (at_n, at_2n)
+
+
+@pytest.mark.django_db(transaction=True)
+def test_the_migration_keeps_a_stored_path_in_its_columns(fan_installation):
+    from django.db import connection
+    from django.db.migrations.executor import MigrationExecutor
+
+    before, after = [("fleet", "0011_substitutes_stock_and_override")], [("fleet", "0012_assessment_trend_columns")]
+    executor = MigrationExecutor(connection)
+    executor.migrate(before)
+    old_apps = executor.loader.project_state(before).apps
+    old_apps.get_model("fleet", "Assessment").objects.create(
+        installation_id=fan_installation.id,
+        model_version="trend-2",
+        fitted_through=NOW,
+        readings_used=4,
+        trend_model="linear",
+        slope_pct_per_1000h=-1.0,
+        slope_sd_pct_per_1000h=0.1,
+        capacitance_now_uf=3.9,
+        latest_verdict="within tolerance",
+        limit_fraction=0.95,
+        limit_source="tolerance",
+        risk="watch",
+        trend={
+            "model": "linear",
+            "intercept": 1.01,
+            "slope_per_hour": -2e-6,
+            "covariance": [1e-4, -1e-9, 1e-13],
+            "noise_sd": 0.004,
+            "stress_hours_now": 9000.0,
+            "stress_rate": 1.2,
+            "tempco_ppm_per_k": -150.0,
+            "rated_uf": 4.0,
+            "points": [[1, 100.0]],
+        },
+    )
+    executor = MigrationExecutor(connection)
+    executor.migrate(after)
+    executor.loader.build_graph()
+    executor.migrate(executor.loader.graph.leaf_nodes())
+    moved = Assessment.objects.get(installation=fan_installation)
+    assert (moved.trend_intercept, moved.trend_slope_per_hour, moved.trend_noise_sd) == (1.01, -2e-6, 0.004)
+    assert (moved.trend_var_intercept, moved.trend_cov_intercept_slope, moved.trend_var_slope) == (1e-4, -1e-9, 1e-13)
+    assert (moved.stress_hours_now, moved.stress_rate, moved.tempco_ppm_per_k) == (9000.0, 1.2, -150.0)
