@@ -85,8 +85,7 @@ def rounded(value):
 
 def current_rows():
     return {
-        row["installation_id"]: rounded(row)
-        for row in Assessment.objects.filter(is_current=True).values(*COMPARED)
+        row["installation_id"]: rounded(row) for row in Assessment.objects.filter(is_current=True).values(*COMPARED)
     }
 
 

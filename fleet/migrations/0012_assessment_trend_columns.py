@@ -39,60 +39,59 @@ def trend_to_columns(apps, schema_editor):
 
 
 class Migration(migrations.Migration):
-
     dependencies = [
-        ('fleet', '0011_substitutes_stock_and_override'),
+        ("fleet", "0011_substitutes_stock_and_override"),
     ]
 
     operations = [
         migrations.AddField(
-            model_name='assessment',
-            name='stress_hours_now',
-            field=models.FloatField(blank=True, help_text='Stress hours at the newest reading', null=True),
+            model_name="assessment",
+            name="stress_hours_now",
+            field=models.FloatField(blank=True, help_text="Stress hours at the newest reading", null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='stress_rate',
-            field=models.FloatField(blank=True, help_text='Stress hours per calendar hour, long run', null=True),
+            model_name="assessment",
+            name="stress_rate",
+            field=models.FloatField(blank=True, help_text="Stress hours per calendar hour, long run", null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='tempco_ppm_per_k',
-            field=models.FloatField(blank=True, help_text='Temperature coefficient used, ppm/K', null=True),
+            model_name="assessment",
+            name="tempco_ppm_per_k",
+            field=models.FloatField(blank=True, help_text="Temperature coefficient used, ppm/K", null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='trend_cov_intercept_slope',
+            model_name="assessment",
+            name="trend_cov_intercept_slope",
             field=models.FloatField(blank=True, null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='trend_intercept',
+            model_name="assessment",
+            name="trend_intercept",
             field=models.FloatField(blank=True, null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='trend_noise_sd',
+            model_name="assessment",
+            name="trend_noise_sd",
             field=models.FloatField(blank=True, null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='trend_slope_per_hour',
+            model_name="assessment",
+            name="trend_slope_per_hour",
             field=models.FloatField(blank=True, null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='trend_var_intercept',
+            model_name="assessment",
+            name="trend_var_intercept",
             field=models.FloatField(blank=True, null=True),
         ),
         migrations.AddField(
-            model_name='assessment',
-            name='trend_var_slope',
+            model_name="assessment",
+            name="trend_var_slope",
             field=models.FloatField(blank=True, null=True),
         ),
         migrations.RunPython(trend_to_columns, migrations.RunPython.noop),
         migrations.RemoveField(
-            model_name='assessment',
-            name='trend',
+            model_name="assessment",
+            name="trend",
         ),
     ]

@@ -414,7 +414,9 @@ def assess(
     limit_fraction[0] = 1.0 - inst["tolerance_minus_pct"].to_numpy(float) / 100.0
     limit_used = np.isfinite(limit_fraction)
     notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
-    figures_now = figures_new = pd.DataFrame(np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__))
+    figures_now = figures_new = pd.DataFrame(
+        np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
+    )
     with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]

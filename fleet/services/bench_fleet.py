@@ -151,7 +151,9 @@ def build_bench_fleet(
         case_by_design = np.array([designs[n].case_temp_c for n in names], float)
         case_c = case_by_design[design_of_motor[motor_index]] + rng.normal(0.0, 4.0, positions)
         v_run = np.array([_run_capacitor_voltage(designs[n], circuits[n], parts) for n in names], float)
-        voltage = np.where(film, v_run[design_of_motor[motor_index]] * rng.normal(1.0, 0.03, positions), VOLTAGE_V * 1.2)
+        voltage = np.where(
+            film, v_run[design_of_motor[motor_index]] * rng.normal(1.0, 0.03, positions), VOLTAGE_V * 1.2
+        )
         rate = np.asarray(
             acceleration_factor(
                 case_c,
@@ -215,8 +217,10 @@ def build_bench_fleet(
 
         reading_parts = []
         for q in range(quarters):
-            day = first_day + np.timedelta64(QUARTER_DAYS * q, "D") + rng.integers(0, 14, positions).astype(
-                "timedelta64[D]"
+            day = (
+                first_day
+                + np.timedelta64(QUARTER_DAYS * q, "D")
+                + rng.integers(0, 14, positions).astype("timedelta64[D]")
             )
             day = np.minimum(day, np.datetime64(today))
             hours = (day - fitted).astype(float) * 24.0
@@ -225,7 +229,9 @@ def build_bench_fleet(
             fraction = np.where(fraction < knee, knee - 3.0 * (knee - fraction), fraction)
             failed = np.flatnonzero((hours > sudden_h) | (fraction < 0.6))
             if len(failed):
-                gone = np.maximum(day[failed] - rng.integers(1, 60, len(failed)).astype("timedelta64[D]"), fitted[failed])
+                gone = np.maximum(
+                    day[failed] - rng.integers(1, 60, len(failed)).astype("timedelta64[D]"), fitted[failed]
+                )
                 remove(failed, gone, "failed")
                 new_capacitors(failed, gone)
                 hours[failed] = (day[failed] - fitted[failed]).astype(float) * 24.0

@@ -96,9 +96,10 @@ def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
     Strings come back as text, so the caller casts what it needs; NULL is NaN or None.
     """
     if on_postgresql():
-        with connection.cursor() as cursor, cursor.cursor.copy(
-            f"COPY ({sql}) TO STDOUT WITH (FORMAT csv)", params
-        ) as copy:
+        with (
+            connection.cursor() as cursor,
+            cursor.cursor.copy(f"COPY ({sql}) TO STDOUT WITH (FORMAT csv)", params) as copy,
+        ):
             data = b"".join(bytes(block) for block in copy)
         if not data:
             return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
