@@ -15,7 +15,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.db import transaction
+from django.db.models import Exists, OuterRef
 from django.utils import timezone
 
 from fleet.engineering.calibration import calibrated_crossing_quantiles, default_calibration
@@ -60,7 +62,7 @@ from fleet.engineering.trends import (
     dissipation_trend,
     fit_trends,
 )
-from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior
+from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
 from .bulk import id_in, insert_frame
 from .selectors import (
@@ -147,14 +149,21 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
 
 
 def refresh_part_priors(part_ids=None) -> int:
-    """Fit every capacitor of the given parts (all parts if None) and store each
-    part's population of paths. Returns the number of parts stored."""
-    installations = FittedCapacitor.objects.all()
+    """Fit capacitors of the given parts (all parts if None) and store each part's population
+    of paths. Returns the number of parts stored.
+
+    A population is statistics: past FLEET_PRIOR_MAX_CAPACITORS_PER_PART capacitors of a part, a
+    fixed random sample of them is fitted, so a plant-size refit starts in bounded time and memory.
+    """
+    installations = FittedCapacitor.objects.filter(Exists(Reading.objects.filter(installation=OuterRef("pk"))))
     if part_ids is not None:
         installations = installations.filter(part_id__in=list(part_ids))
-    ids = list(installations.filter(readings__isnull=False).distinct().values_list("id", flat=True))
-    if not ids:
+    frame = pd.DataFrame.from_records(list(installations.values_list("id", "part_id")), columns=["id", "part_id"])
+    if frame.empty:
         return 0
+    shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))]
+    sample = shuffled.groupby("part_id").cumcount() < settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART
+    ids = np.sort(shuffled.loc[sample.to_numpy(), "id"].to_numpy()).tolist()
     inst = installations_frame(ids).set_index("installation_id", drop=False)
     readings = readings_frame(ids)
     parts = np.sort(inst["part_id"].unique())
@@ -589,7 +598,7 @@ def _json_lines(frame: pd.DataFrame) -> np.ndarray:
     """Each row of the frame as a JSON object (text), nan as null."""
     if frame.empty:
         return np.array([], dtype=object)
-    text = frame.to_json(orient="records", lines=True, double_precision=15)
+    text = frame.to_json(orient="records", lines=True, double_precision=10)
     return np.array(text.rstrip("\n").split("\n"), dtype=object)
 
 

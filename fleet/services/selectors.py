@@ -57,15 +57,17 @@ def installations_frame(installation_ids) -> pd.DataFrame:
 
 
 def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
-    """Rated uF of each motor's capacitors in service, by role (one query).
+    """Rated uF of each motor's capacitors in service, by role (one query), indexed by motor.
 
     A two-value motor starts on run + start in parallel, so judging either
     capacitor needs the other's rating.
     """
-    rows = FittedCapacitor.objects.filter(motor_id__in=list(motor_ids), removed_on__isnull=True).values_list(
+    rows = FittedCapacitor.objects.filter(motor_id__in=id_in(motor_ids), removed_on__isnull=True).values_list(
         "motor_id", "role", "part__rated_uf"
     )
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
+    if frame.empty:
+        return pd.DataFrame(columns=["run", "start"], dtype=float)
     table = frame.pivot_table(index="motor_id", columns="role", values="rated_uf", aggfunc="first")
     return table.reindex(columns=["run", "start"])
 

@@ -10,6 +10,7 @@ memory, and a naive per-capacitor loop on a sample. Prints figures; asserts noth
 from __future__ import annotations
 
 import os
+import resource
 import subprocess
 import sys
 import time
@@ -28,6 +29,19 @@ from fleet.services.bulk import copy_read_floor, on_postgresql
 from fleet.services.refits import start_fleet_refit
 
 ROOT = Path(__file__).resolve().parents[3]
+
+
+def _cpu_seconds(pid: int | None = None) -> float:
+    """User + system CPU seconds of a process so far (this one by default); nan without /proc.
+    Read beside the wall time: on a shared machine it is the steadier figure."""
+    if pid is None:
+        usage = resource.getrusage(resource.RUSAGE_SELF)
+        return usage.ru_utime + usage.ru_stime
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    except OSError:
+        return float("nan")
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
 
 def _peak_rss_mb(pid: int) -> float:
@@ -83,9 +97,11 @@ class Command(BaseCommand):
             self.on_workers(count, floor_s, options["chunk_size"])
         self.naive_loop(options["loop_sample"], readings)
 
-    def timed_refit(self, label: str, floor_s: float, chunk_size: int, eager: bool) -> None:
+    def timed_refit(self, label: str, floor_s: float, chunk_size: int, eager: bool, workers=()) -> None:
         previous = current_app.conf.task_always_eager
         current_app.conf.task_always_eager = eager
+        pids = [None, *(w.pid for w in workers)]
+        cpu_before = [_cpu_seconds(pid) for pid in pids]
         try:
             started = time.perf_counter()
             run = start_fleet_refit(kind="bench", chunk_size=chunk_size, force=True)
@@ -94,11 +110,17 @@ class Command(BaseCommand):
             seconds = time.perf_counter() - started
         finally:
             current_app.conf.task_always_eager = previous
+        cpu = [_cpu_seconds(pid) - before for pid, before in zip(pids, cpu_before, strict=True)]
         run.refresh_from_db()
         self.say(
             f"fleet refit, {label}: {seconds:.1f} s for {run.total:,} capacitors and {run.readings:,} readings "
             f"({run.readings / seconds:,.0f} readings/s; {seconds / floor_s:.1f}x the COPY read floor) "
             f"state {run.state}{': ' + run.message if run.message else ''}"
+        )
+        self.say(
+            f"  CPU: {cpu[0]:.1f} s in this process"
+            + "".join(f", {c:.1f} s in worker {k + 1}" for k, c in enumerate(cpu[1:]))
+            + f" ({sum(cpu) / max(run.readings, 1) * 1e6:.0f} CPU us a reading, database server's not counted)"
         )
 
     def on_workers(self, count: int, floor_s: float, chunk_size: int) -> None:
@@ -119,7 +141,7 @@ class Command(BaseCommand):
             deadline = time.monotonic() + 60
             while len(current_app.control.ping(timeout=0.5) or []) < count and time.monotonic() < deadline:
                 time.sleep(0.5)
-            self.timed_refit(f"{count} worker(s)", floor_s, chunk_size, eager=False)
+            self.timed_refit(f"{count} worker(s)", floor_s, chunk_size, eager=False, workers=workers)
             peaks = ", ".join(f"{_peak_rss_mb(w.pid):.0f} MB" for w in workers)
             self.say(f"  worker peak memory (RSS): {peaks}")
         finally:
