@@ -203,6 +203,8 @@ CELERY_BEAT_SCHEDULE = {
 FLEET_REFIT_CHUNK_SIZE = env_int("FLEET_REFIT_CHUNK_SIZE", 2000)
 # Fitted capacitors a back-test samples at most (a fixed sample): bounded time and memory at plant scale.
 FLEET_BACKTEST_MAX_CAPACITORS = env_int("FLEET_BACKTEST_MAX_CAPACITORS", 20000)
+# Capacitors of one part fitted at most (a fixed sample) to estimate its population of paths before a fleet refit.
+FLEET_PRIOR_MAX_CAPACITORS_PER_PART = env_int("FLEET_PRIOR_MAX_CAPACITORS_PER_PART", 5000)
 
 # Import limits, checked before a file is parsed (an XLSX is a zip: its unpacked size and sheet dimension count).
 FLEET_IMPORT_MAX_FILE_MB = env_int("FLEET_IMPORT_MAX_FILE_MB", 50)

@@ -529,9 +529,17 @@ class Assessment(models.Model):
     )
     figures_now = models.JSONField(default=dict, blank=True)
     figures_new = models.JSONField(default=dict, blank=True)
-    trend = models.JSONField(
-        default=dict, blank=True, help_text="Fitted path: model, coefficients, covariance, stress hours per reading"
-    )
+    # The fitted path in stress hours (none where set aside): the capacitor page redraws it and its band
+    # against that capacitor's readings, whose stress hours it recomputes (trends.reading_stress_hours).
+    trend_intercept = models.FloatField(null=True, blank=True)
+    trend_slope_per_hour = models.FloatField(null=True, blank=True)
+    trend_var_intercept = models.FloatField(null=True, blank=True)
+    trend_cov_intercept_slope = models.FloatField(null=True, blank=True)
+    trend_var_slope = models.FloatField(null=True, blank=True)
+    trend_noise_sd = models.FloatField(null=True, blank=True)
+    stress_hours_now = models.FloatField(null=True, blank=True, help_text="Stress hours at the newest reading")
+    stress_rate = models.FloatField(null=True, blank=True, help_text="Stress hours per calendar hour, long run")
+    tempco_ppm_per_k = models.FloatField(null=True, blank=True, help_text="Temperature coefficient used, ppm/K")
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -545,6 +553,10 @@ class Assessment(models.Model):
 
     def __str__(self):
         return f"{self.installation} {self.risk}"
+
+    @property
+    def has_trend(self) -> bool:
+        return self.trend_intercept is not None
 
 
 class PartPrior(models.Model):

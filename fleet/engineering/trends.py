@@ -614,3 +614,26 @@ def dissipation_trend(group, time_h, dissipation, n_groups, maximum, now_h, prob
             rows.append(np.where(enough & (level_now >= maximum), 0.0, np.where(enough & (steep > 0), hours, np.inf)))
     rows = np.stack(rows)
     return np.where(np.isnan(rows), np.inf, rows)
+
+
+def reading_stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings=None):
+    """Stress hours at each reading as `fit_trends` computes them (input sorted by group, time):
+    missing temperatures and voltages taken from the same capacitor's other readings, then
+    `stress_hours`. Lets a page redraw one capacitor's stored path against its readings
+    without a number per reading being stored."""
+    settings = settings or TrendSettings()
+    group = np.asarray(group, np.int64)
+    temperature = np.asarray(temperature_c, float)
+    voltage = np.asarray(voltage_v, float)
+    with np.errstate(invalid="ignore"):
+        voltage = np.where(voltage > 0, voltage, np.nan)
+    tau, _ = stress_hours(
+        group,
+        np.asarray(time_h, float),
+        _fill_per_group(group, np.where(np.isfinite(temperature), temperature, np.nan), n_groups),
+        _fill_per_group(group, voltage, n_groups),
+        np.asarray(rated_voltage_v, float)[group],
+        n_groups,
+        settings,
+    )
+    return tau

@@ -15,7 +15,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.db import transaction
+from django.db.models import Exists, OuterRef
 from django.utils import timezone
 
 from fleet.engineering.calibration import calibrated_crossing_quantiles, default_calibration
@@ -30,6 +32,7 @@ from fleet.engineering.drift import (
     LIMIT_NAMES,
     ROLE_RUN,
     ROLE_START,
+    OperatingFigures,
     capacitance_limits,
     has_run_capacitor,
     operating_figures,
@@ -63,8 +66,9 @@ from fleet.engineering.trends import (
     dissipation_trend,
     fit_trends,
 )
-from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior
+from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
+from .bulk import id_in, insert_frame
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
@@ -148,14 +152,21 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
 
 
 def refresh_part_priors(part_ids=None) -> int:
-    """Fit every capacitor of the given parts (all parts if None) and store each
-    part's population of paths. Returns the number of parts stored."""
-    installations = FittedCapacitor.objects.all()
+    """Fit capacitors of the given parts (all parts if None) and store each part's population
+    of paths. Returns the number of parts stored.
+
+    A population is statistics: past FLEET_PRIOR_MAX_CAPACITORS_PER_PART capacitors of a part, a
+    fixed random sample of them is fitted, so a plant-size refit starts in bounded time and memory.
+    """
+    installations = FittedCapacitor.objects.filter(Exists(Reading.objects.filter(installation=OuterRef("pk"))))
     if part_ids is not None:
         installations = installations.filter(part_id__in=list(part_ids))
-    ids = list(installations.filter(readings__isnull=False).distinct().values_list("id", flat=True))
-    if not ids:
+    frame = pd.DataFrame.from_records(list(installations.values_list("id", "part_id")), columns=["id", "part_id"])
+    if frame.empty:
         return 0
+    shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))]
+    sample = shuffled.groupby("part_id").cumcount() < settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART
+    ids = np.sort(shuffled.loc[sample.to_numpy(), "id"].to_numpy()).tolist()
     inst = installations_frame(ids).set_index("installation_id", drop=False)
     readings = readings_frame(ids)
     parts = np.sort(inst["part_id"].unique())
@@ -245,16 +256,23 @@ def _motor_circuits(inst: pd.DataFrame):
     return with_circuit, circuit, load, run_uf, start_uf, kind
 
 
+# Limits of the designs this process has met, by design: a fleet has a handful of designs
+# and every chunk of its refit meets them again, so a worker scans each design once.
+_DESIGN_LIMITS: dict[tuple, np.ndarray] = {}
+DESIGN_LIMITS_KEPT = 10_000
+
+
 def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
     """Capacitance limits computed once per distinct design, then spread back.
 
     The limits depend on the circuit, the load and the ratings only, which a
     fleet's motors share by the dozen or the thousand; the scan is the costly
-    part of a refit, so it runs once per distinct combination.
+    part of a refit, so it runs once per distinct combination (and once per
+    process: see _DESIGN_LIMITS).
     """
     key = pd.DataFrame(
         {
-            **{name: sub[name].to_numpy() for name in CIRCUIT_FIELDS},
+            **{name: sub[name].to_numpy() for name in (*CIRCUIT_FIELDS, "voltage_v", "frequency_hz", "poles")},
             "role": role,
             "kind": kind,
             ROLE_RUN: run_uf,
@@ -262,23 +280,33 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
             "fla": sub["full_load_current_a"].to_numpy(),
             "cap_v": sub["part_rated_voltage_v"].to_numpy(),
             "torque": np.round(load.torque_at_rated_nm, 9),
+            "speed": np.round(load.rated_speed_rad_s, 9),
             "load_kind": load.kind,
         }
-    )
+    ).fillna(-1.0)
     design = key.groupby(list(key.columns), sort=False, dropna=False).ngroup().to_numpy()
-    first = np.unique(design, return_index=True)[1]
-    limits = capacitance_limits(
-        circuit.take(first),
-        type(load)(load.torque_at_rated_nm[first], load.rated_speed_rad_s[first], np.asarray(load.kind)[first]),
-        kind[first],
-        role[first],
-        run_uf[first],
-        start_uf[first],
-        sub["full_load_current_a"].to_numpy(float)[first],
-        sub["part_rated_voltage_v"].to_numpy(float)[first],
-    )
     # ngroup numbers designs 0..k-1 and `first` lists them in that order.
-    return limits.fractions[:, design]
+    first = np.unique(design, return_index=True)[1]
+    keys = list(key.iloc[first].itertuples(index=False, name=None))
+    unknown = np.array([k not in _DESIGN_LIMITS for k in keys], bool)
+    if unknown.any():
+        new = first[unknown]
+        limits = capacitance_limits(
+            circuit.take(new),
+            type(load)(load.torque_at_rated_nm[new], load.rated_speed_rad_s[new], np.asarray(load.kind)[new]),
+            kind[new],
+            role[new],
+            run_uf[new],
+            start_uf[new],
+            sub["full_load_current_a"].to_numpy(float)[new],
+            sub["part_rated_voltage_v"].to_numpy(float)[new],
+        )
+        if len(_DESIGN_LIMITS) > DESIGN_LIMITS_KEPT:
+            _DESIGN_LIMITS.clear()
+        for column, position in enumerate(np.flatnonzero(unknown)):
+            _DESIGN_LIMITS[keys[position]] = limits.fractions[:, column]
+    fractions = np.stack([_DESIGN_LIMITS[k] for k in keys], axis=1)
+    return fractions[:, design]
 
 
 @dataclass(frozen=True)
@@ -298,10 +326,19 @@ class Assessed:
     verdict_code: np.ndarray
     newest_at: pd.Series
     set_aside: np.ndarray
-    figures_now: list
-    figures_new: list
+    figures_now: pd.DataFrame  # operating figures with the capacitor as now, a row each (nan: no circuit)
+    figures_new: pd.DataFrame  # and with it as new
+    with_circuit: np.ndarray  # the motor has an equivalent circuit, so the figures exist
     terms: np.ndarray  # (6, G) calibration terms of each capacitor's projection
     wear_days: np.ndarray  # (3, G) days to the dissipation-factor maximum (inf: none in sight)
+
+
+def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.DataFrame:
+    """Operating figures of the motors with a circuit (at `index`) as a frame of n rows, nan elsewhere."""
+    frame = pd.DataFrame(index=range(n), columns=list(OperatingFigures.__dataclass_fields__), dtype=float)
+    for name in frame.columns:
+        frame.loc[index, name] = np.atleast_1d(getattr(figures, name)).astype(float)
+    return frame
 
 
 def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
@@ -389,8 +426,9 @@ def assess(
     limit_fraction[0] = 1.0 - inst["tolerance_minus_pct"].to_numpy(float) / 100.0
     limit_used = np.isfinite(limit_fraction)
     notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
-    figures_now: list = [{} for _ in range(n)]
-    figures_new: list = [{} for _ in range(n)]
+    figures_now = figures_new = pd.DataFrame(
+        np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
+    )
     with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
@@ -420,13 +458,8 @@ def assess(
             "already breached at rated capacitance: a design or data finding, not wear; limit not used",
             np.where(disagree & np.isfinite(drift), voltage_note, ""),
         )
-        for position, row_now, row_new in zip(
-            index,
-            now_figures.as_rows(),
-            operating_figures(circuit, load, run_uf, start_uf, kind).as_rows(),
-            strict=True,
-        ):
-            figures_now[position], figures_new[position] = row_now, row_new
+        figures_now = _figures_frame(now_figures, index, n)
+        figures_new = _figures_frame(operating_figures(circuit, load, run_uf, start_uf, kind), index, n)
 
     finite = (
         np.isfinite(fit.intercept)
@@ -439,7 +472,9 @@ def assess(
     )
     set_aside = np.where(finite, "", "no usable trend: the readings give no finite fit; check them")
     fallback = tuple(default_calibration(1).per_capacitor([0])[:, 0])
-    terms = np.array([calibration.get(d, fallback) for d in inst["dielectric"]], float).reshape(-1, 6).T
+    families = np.unique(inst["dielectric"].to_numpy(str))
+    family_terms = np.array([calibration.get(d, fallback) for d in families], float).reshape(-1, 6)
+    terms = family_terms[np.searchsorted(families, inst["dielectric"].to_numpy(str))].T
     horizon_stress_hours = fit.stress_rate * PlanningSettings().horizon_days * 24.0
     newest_at = pd.to_datetime(readings[~readings["superseded"]].groupby("installation_id")["taken_at"].max(), utc=True)
     newest_at = newest_at.reindex(inst.index)
@@ -501,6 +536,7 @@ def assess(
         set_aside=set_aside,
         figures_now=figures_now,
         figures_new=figures_new,
+        with_circuit=with_circuit,
         terms=terms,
         wear_days=wear_days,
     )
@@ -521,7 +557,7 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
         seen = pd.Series(
             dict(
                 Assessment.objects.filter(
-                    installation_id__in=inst["installation_id"].tolist(), is_current=True, model_version=MODEL_VERSION
+                    installation_id__in=id_in(inst["installation_id"]), is_current=True, model_version=MODEL_VERSION
                 ).values_list("installation_id", "max_reading_id")
             ),
             dtype="float64",
@@ -543,131 +579,137 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
         forms=stored_forms(),
         now=now,
     )
-    rows = _assessment_rows(result, readings, max_reading_id, now.date())
+    rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():
-        Assessment.objects.filter(installation_id__in=inst.index.tolist(), is_current=True).update(is_current=False)
-        Assessment.objects.bulk_create(rows)
+        Assessment.objects.filter(installation_id__in=id_in(inst.index), is_current=True).update(is_current=False)
+        insert_frame(Assessment, rows)
     return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
 
 
-def _finite_or_none(value):
-    value = float(value)
-    return value if np.isfinite(value) else None
+def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
+    """ISO dates `today` + offset (whole days, none before today); None past the planning
+    horizon or not finite (shown as "beyond")."""
+    offset = np.asarray(offset_days, float)
+    with np.errstate(invalid="ignore"):
+        known = np.isfinite(offset) & (offset <= PlanningSettings().horizon_days)
+    days = np.floor(np.maximum(np.where(known, offset, 0.0), 0.0)).astype("timedelta64[D]")
+    text = np.datetime_as_string(np.datetime64(today, "D") + days, unit="D").astype(object)
+    return np.where(known, text, None)
 
 
-def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: pd.Series, today: dt.date):
-    """Assessment rows from a judged batch; non-finite numbers never reach the database."""
-    fit, judgement, inst = result.fit, result.judgement, result.inst
-    horizon = PlanningSettings().horizon_days
-    rated_uf = inst["rated_uf"].to_numpy(float)
+def _json_lines(frame: pd.DataFrame) -> np.ndarray:
+    """Each row of the frame as a JSON object (text), nan as null."""
+    if frame.empty:
+        return np.array([], dtype=object)
+    text = frame.to_json(orient="records", lines=True, double_precision=10)
+    return np.array(text.rstrip("\n").split("\n"), dtype=object)
 
-    def day(offset):
-        """A date from a day offset; None past the planning horizon (shown as "beyond")."""
-        offset = float(offset)
-        return today + dt.timedelta(days=max(offset, 0.0)) if np.isfinite(offset) and offset <= horizon else None
 
-    reading_ids = readings["id"].to_numpy()
-    flagged_by_group = (
-        pd.Series(reading_ids[fit.flagged]).groupby(readings["installation_id"].to_numpy()[fit.flagged]).apply(list)
-    )
-    group_of_reading = inst.index.get_indexer(readings["installation_id"])
-    stress_points = (
-        pd.DataFrame({"group": group_of_reading, "id": reading_ids, "tau": np.round(fit.stress_hours, 1)})
-        .groupby("group")[["id", "tau"]]
-        .apply(lambda frame: frame.to_numpy().tolist())
-    )
-    slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
-    governing = judgement.governing
-    max_dissipation = inst["max_dissipation_factor"].to_numpy(float)
-    rows = []
-    for i, installation_id in enumerate(inst.index):
-        aside = bool(result.set_aside[i])
-        limits = [
+def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
+    """Per capacitor, the JSON list of every limit evaluated (tolerance always; a drift limit
+    where it applies; the dissipation factor where the part has a maximum)."""
+    n = len(result.inst)
+    items = []
+    for k, name in enumerate(ALL_LIMITS):
+        fraction = result.limit_fraction[k]
+        entry = pd.DataFrame(
             {
                 "name": name,
-                "fraction_of_rated": _finite_or_none(result.limit_fraction[k, i]),
-                "used": bool(result.limit_used[k, i]),
-                "note": str(result.limit_notes[k, i]),
-                "p10_on": _iso(day(result.limit_days[0, k, i])),
-                "p50_on": _iso(day(result.limit_days[1, k, i])),
-                "p90_on": _iso(day(result.limit_days[2, k, i])),
-            }
-            for k, name in enumerate(ALL_LIMITS)
-            if k == 0 or np.isfinite(result.limit_fraction[k, i])
-        ]
-        if np.isfinite(max_dissipation[i]):
-            limits.append(
-                {
-                    "name": DISSIPATION_LIMIT,
-                    "fraction_of_rated": None,
-                    "maximum": float(max_dissipation[i]),
-                    "used": True,
-                    "note": "",
-                    **{f"p{q}_on": _iso(day(result.wear_days[k, i])) for k, q in enumerate((10, 50, 90))},
-                }
-            )
-        trend = (
-            {}
-            if aside
-            else {
-                "model": str(fit.model[i]),
-                "intercept": float(fit.intercept[i]),
-                "slope_per_hour": float(fit.slope_per_hour[i]),
-                "covariance": [
-                    float(fit.covariance[i, 0, 0]),
-                    float(fit.covariance[i, 0, 1]),
-                    float(fit.covariance[i, 1, 1]),
-                ],
-                "noise_sd": float(fit.noise_sd[i]),
-                "stress_hours_now": float(fit.stress_hours_now[i]),
-                "stress_rate": float(fit.stress_rate[i]),
-                "tempco_ppm_per_k": float(fit.tempco_ppm_per_k[i]),
-                "rated_uf": float(rated_uf[i]),
-                "points": [[int(r), float(t)] for r, t in stress_points.get(i, [])],
+                "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
+                "used": result.limit_used[k].astype(bool),
+                "note": result.limit_notes[k].astype(str),
+                **{f"p{q}_on": _iso_dates(result.limit_days[j, k], today) for j, q in enumerate((10, 50, 90))},
             }
         )
-        g = int(governing[i])
-        rows.append(
-            Assessment(
-                installation_id=int(installation_id),
-                model_version=MODEL_VERSION,
-                fitted_through=result.newest_at.iloc[i].to_pydatetime(),
-                newest_reading_id=int(result.latest["id"].iloc[i]),
-                max_reading_id=int(max_reading_id[installation_id]),
-                readings_used=int(fit.readings_used[i]),
-                readings_flagged=int(fit.readings_flagged[i]),
-                flagged_reading_ids=[int(x) for x in flagged_by_group.get(installation_id, [])],
-                trend_model=str(fit.model[i]),
-                slope_pct_per_1000h=0.0 if aside else float(fit.slope_per_hour[i] * slope_scale[i]),
-                slope_sd_pct_per_1000h=0.0 if aside else float(fit.slope_sd[i] * slope_scale[i]),
-                low_confidence=bool(fit.low_confidence[i]) or aside,
-                capacitance_now_uf=float(
-                    (result.latest_fraction_25c[i] if aside else fit.fraction_now[i]) * rated_uf[i]
-                )
-                if np.isfinite(result.latest_fraction_25c[i]) or not aside
-                else 0.0,
-                latest_verdict=VERDICT_NAMES[int(result.verdict_code[i])],
-                limit_fraction=float(result.limit_fraction[g, i])
-                if 0 <= g < len(ALL_LIMITS)
-                else float(result.limit_fraction[0, i]),
-                limit_source=(*ALL_LIMITS, DISSIPATION_LIMIT)[g] if g >= 0 else TOLERANCE_LIMIT,
-                p10_on=day(judgement.days[0, i]),
-                p50_on=day(judgement.days[1, i]),
-                p90_on=day(judgement.days[2, i]),
-                risk=str(judgement.risk[i]),
-                replace_by=day(judgement.due_days[i]),
-                reason=(
-                    result.set_aside[i] if aside and judgement.risk[i] != RISK_REPLACE_NOW else str(judgement.reason[i])
-                )[:300],
-                limits=limits,
-                set_aside=str(result.set_aside[i]),
-                figures_now=result.figures_now[i],
-                figures_new=result.figures_new[i],
-                trend=trend,
-            )
-        )
-    return rows
+        items.append((np.ones(n, bool) if k == 0 else np.isfinite(fraction), _json_lines(entry)))
+    maximum = result.inst["max_dissipation_factor"].to_numpy(float)
+    wear = pd.DataFrame(
+        {
+            "name": DISSIPATION_LIMIT,
+            "fraction_of_rated": np.nan,
+            "maximum": maximum,
+            "used": True,
+            "note": "",
+            **{f"p{q}_on": _iso_dates(result.wear_days[j], today) for j, q in enumerate((10, 50, 90))},
+        }
+    )
+    items.append((np.isfinite(maximum), _json_lines(wear)))
+    text = np.full(n, "[", dtype=object) + items[0][1]
+    for shown, entries in items[1:]:
+        text = text + np.where(shown, "," + entries, "")
+    return text + "]"
 
 
-def _iso(day: dt.date | None):
-    return day.isoformat() if day else None
+def _figures_json(figures: pd.DataFrame, with_circuit: np.ndarray) -> np.ndarray:
+    return np.where(with_circuit, _json_lines(figures.round(6)), "{}")
+
+
+def _flagged_json(result: Assessed, readings: pd.DataFrame) -> np.ndarray:
+    """Per capacitor, the JSON list of the reading ids its fit flagged (few capacitors have any)."""
+    flagged = readings.loc[result.fit.flagged, ["installation_id", "id"]]
+    lists = flagged.astype({"id": str}).groupby("installation_id")["id"].agg(",".join)
+    return ("[" + lists.reindex(result.inst.index).fillna("") + "]").to_numpy(object)
+
+
+def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: pd.Series, today: dt.date):
+    """Assessment rows from a judged batch, as columns (no per-capacitor Python);
+    non-finite numbers never reach the database."""
+    fit, judgement, inst = result.fit, result.judgement, result.inst
+    n = len(inst)
+    rated_uf = inst["rated_uf"].to_numpy(float)
+    aside = result.set_aside.astype(bool)
+    slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
+    governing = np.asarray(judgement.governing)
+    limit_rows = np.where((governing >= 0) & (governing < len(ALL_LIMITS)), governing, 0)
+    sources = np.array([*ALL_LIMITS, DISSIPATION_LIMIT], dtype=object)
+    latest_fraction = result.latest_fraction_25c
+    capacitance_now = np.where(aside, latest_fraction, fit.fraction_now) * rated_uf
+    capacitance_now = np.where(aside & ~np.isfinite(latest_fraction), 0.0, capacitance_now)
+    risk = np.asarray(judgement.risk).astype(str)
+    reason = np.where(aside & (risk != RISK_REPLACE_NOW), result.set_aside, np.asarray(judgement.reason).astype(str))
+
+    def unless_aside(values):
+        """The number where a trend was fitted and it is finite; NULL otherwise."""
+        values = np.asarray(values, float)
+        return np.where(aside | ~np.isfinite(values), np.nan, values)
+
+    return pd.DataFrame(
+        {
+            "installation_id": inst.index.to_numpy(np.int64),
+            "is_current": True,
+            "model_version": MODEL_VERSION,
+            "fitted_through": result.newest_at.reset_index(drop=True),
+            "newest_reading_id": result.latest["id"].to_numpy(np.int64),
+            "max_reading_id": max_reading_id.reindex(inst.index).to_numpy(np.int64),
+            "readings_used": np.asarray(fit.readings_used, np.int64),
+            "readings_flagged": np.asarray(fit.readings_flagged, np.int64),
+            "flagged_reading_ids": _flagged_json(result, readings),
+            "trend_model": fit.model.astype(str),
+            "slope_pct_per_1000h": np.where(aside, 0.0, fit.slope_per_hour * slope_scale),
+            "slope_sd_pct_per_1000h": np.where(aside, 0.0, fit.slope_sd * slope_scale),
+            "low_confidence": np.asarray(fit.low_confidence, bool) | aside,
+            "capacitance_now_uf": capacitance_now,
+            "latest_verdict": pd.Series(result.verdict_code).map(VERDICT_NAMES).to_numpy(object),
+            "limit_fraction": result.limit_fraction[limit_rows, np.arange(n)],
+            "limit_source": np.where(governing >= 0, sources[governing], TOLERANCE_LIMIT),
+            "p10_on": _iso_dates(judgement.days[0], today),
+            "p50_on": _iso_dates(judgement.days[1], today),
+            "p90_on": _iso_dates(judgement.days[2], today),
+            "risk": risk,
+            "replace_by": _iso_dates(judgement.due_days, today),
+            "reason": pd.Series(reason).str.slice(0, 300).to_numpy(object),
+            "limits": _limits_json(result, today),
+            "set_aside": result.set_aside.astype(str),
+            "figures_now": _figures_json(result.figures_now, result.with_circuit),
+            "figures_new": _figures_json(result.figures_new, result.with_circuit),
+            "trend_intercept": unless_aside(fit.intercept),
+            "trend_slope_per_hour": unless_aside(fit.slope_per_hour),
+            "trend_var_intercept": unless_aside(fit.covariance[:, 0, 0]),
+            "trend_cov_intercept_slope": unless_aside(fit.covariance[:, 0, 1]),
+            "trend_var_slope": unless_aside(fit.covariance[:, 1, 1]),
+            "trend_noise_sd": unless_aside(fit.noise_sd),
+            "stress_hours_now": unless_aside(fit.stress_hours_now),
+            "stress_rate": unless_aside(fit.stress_rate),
+            "tempco_ppm_per_k": unless_aside(fit.tempco_ppm_per_k),
+        }
+    )

@@ -5,15 +5,18 @@ from __future__ import annotations
 import datetime as dt
 
 import numpy as np
+import pandas as pd
 from django.db.models import Count, F, Max, OuterRef, Prefetch, Q, Subquery, Sum
 from django.utils import timezone
 
 from fleet.charts import trend_figure
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
-from fleet.engineering.trends import default_tempco_ppm_per_k, path_band
+from fleet.engineering.trends import default_tempco_ppm_per_k, path_band, reading_stress_hours
 from fleet.models import Assessment, FittedCapacitor, Motor, Reading, RefitRun, Site
 from fleet.roles import scope_to_user
+
+from .assessments import _hours_since_fitting
 
 RECENT_READINGS = 6
 
@@ -45,24 +48,45 @@ def recent_readings(installation: FittedCapacitor, count: int = RECENT_READINGS)
     )
 
 
+def stress_hours_of_readings(installation: FittedCapacitor, readings) -> np.ndarray:
+    """Stress hours at each of one capacitor's readings (a frame of its readings in time order
+    with taken_at, case_temperature_c, capacitor_voltage_v), as its fit computed them."""
+    frame = pd.DataFrame(readings).astype({"case_temperature_c": float, "capacitor_voltage_v": float})
+    frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
+    return reading_stress_hours(
+        np.zeros(len(frame), np.int64),
+        _hours_since_fitting(frame, np.full(len(frame), np.datetime64(installation.fitted_on))),
+        frame["case_temperature_c"].to_numpy(float),
+        frame["capacitor_voltage_v"].to_numpy(float),
+        [installation.part.rated_voltage_v],
+        1,
+    )
+
+
 def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730) -> dict | None:
-    """Figure of readings, the stored fitted path and its band, drawn from stored numbers."""
-    if assessment is None or not assessment.trend:
+    """Figure of readings, the stored fitted path and its band, drawn from stored numbers.
+
+    The stress hours at each reading are recomputed from the readings the fit saw (one
+    capacitor's, a few dozen at most), exactly as the fit computed them.
+    """
+    if assessment is None or not assessment.has_trend:
         return None
-    trend = assessment.trend
-    rated = trend["rated_uf"]
-    tau_by_id = {reading_id: tau for reading_id, tau in trend["points"]}
+    rated = installation.part.rated_uf
     readings = list(
-        Reading.objects.filter(id__in=tau_by_id)
-        .order_by("taken_at")
-        .values("id", "taken_at", "capacitance_uf", "case_temperature_c")
+        Reading.objects.filter(installation=installation, id__lte=assessment.max_reading_id)
+        .order_by("taken_at", "id")
+        .values("id", "taken_at", "capacitance_uf", "case_temperature_c", "capacitor_voltage_v")
     )
     if not readings:
         return None
+    frame = pd.DataFrame.from_records(readings)
+    reading_taus = stress_hours_of_readings(installation, frame)
     corrected = normalise_to_25c(
-        np.array([r["capacitance_uf"] for r in readings]),
-        np.array([np.nan if r["case_temperature_c"] is None else r["case_temperature_c"] for r in readings]),
-        trend.get("tempco_ppm_per_k", default_tempco_ppm_per_k(installation.part.dielectric)),
+        frame["capacitance_uf"].to_numpy(float),
+        frame["case_temperature_c"].to_numpy(float),
+        default_tempco_ppm_per_k(installation.part.dielectric)
+        if assessment.tempco_ppm_per_k is None
+        else assessment.tempco_ppm_per_k,
     )
     flagged = set(assessment.flagged_reading_ids)
     points = [
@@ -71,18 +95,16 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
     ]
     last = readings[-1]["taken_at"]
     future_days = np.linspace(0, horizon_days, 25)[1:]
-    taus = [tau_by_id[r["id"]] for r in readings] + list(
-        trend["stress_hours_now"] + trend["stress_rate"] * future_days * 24.0
-    )
+    taus = list(reading_taus) + list(assessment.stress_hours_now + assessment.stress_rate * future_days * 24.0)
     dates = [r["taken_at"].date().isoformat() for r in readings] + [
         (last + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
     ]
     mid, low, high = path_band(
-        trend["model"],
-        trend["intercept"],
-        trend["slope_per_hour"],
-        trend["covariance"],
-        trend["noise_sd"],
+        assessment.trend_model,
+        assessment.trend_intercept,
+        assessment.trend_slope_per_hour,
+        [assessment.trend_var_intercept, assessment.trend_cov_intercept_slope, assessment.trend_var_slope],
+        assessment.trend_noise_sd,
         np.array(taus),
     )
     path = {

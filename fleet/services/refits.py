@@ -6,7 +6,7 @@ import datetime as dt
 
 from django.conf import settings
 from django.db import transaction
-from django.db.models import F, OuterRef, Q, Subquery
+from django.db.models import Exists, F, OuterRef, Q, Subquery
 from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading, RefitChunk, RefitRun
@@ -62,8 +62,8 @@ def start_fleet_refit(
     chunk_size = chunk_size or settings.FLEET_REFIT_CHUNK_SIZE
     refresh_part_priors()
     ids = list(
-        FittedCapacitor.objects.filter(removed_on__isnull=True, readings__isnull=False)
-        .distinct()
+        FittedCapacitor.objects.filter(removed_on__isnull=True)
+        .filter(Exists(Reading.objects.filter(installation=OuterRef("pk"))))
         .order_by("id")
         .values_list("id", flat=True)
     )

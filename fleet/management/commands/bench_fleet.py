@@ -1,0 +1,181 @@
+"""Benchmark: the fleet refit against the database's own read floor, in-process and on workers.
+
+Builds (once per database) an invented fleet of the given size in bulk, then
+prints in one run: the COPY read floor of the readings table, the fleet refit
+end to end in-process and with 1 and 2 separate Celery workers (readings per
+second, ratio to the floor, each worker's peak memory), a chunk's peak Python
+memory, and a naive per-capacitor loop on a sample. Prints figures; asserts nothing.
+"""
+
+from __future__ import annotations
+
+import os
+import resource
+import subprocess
+import sys
+import time
+import tracemalloc
+from pathlib import Path
+
+from celery import current_app
+from django.conf import settings
+from django.core.management.base import BaseCommand
+from django.db import connection
+
+from fleet.models import FittedCapacitor, Reading, RefitRun
+from fleet.services.assessments import refit_installations
+from fleet.services.bench_fleet import FleetSize, build_bench_fleet, existing_bench_fleet
+from fleet.services.bulk import copy_read_floor, on_postgresql
+from fleet.services.refits import start_fleet_refit
+
+ROOT = Path(__file__).resolve().parents[3]
+
+
+def _cpu_seconds(pid: int | None = None) -> float:
+    """User + system CPU seconds of a process so far (this one by default); nan without /proc.
+    Read beside the wall time: on a shared machine it is the steadier figure."""
+    if pid is None:
+        usage = resource.getrusage(resource.RUSAGE_SELF)
+        return usage.ru_utime + usage.ru_stime
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    except OSError:
+        return float("nan")
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def _peak_rss_mb(pid: int) -> float:
+    """Peak resident memory of a process (VmHWM), in MB; nan where /proc is not there."""
+    try:
+        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return float("nan")
+
+
+class Command(BaseCommand):
+    help = "Build an invented fleet (once) and print fleet-refit figures against the COPY read floor."
+
+    def add_arguments(self, parser):
+        parser.add_argument("--motors", type=int, default=100_000)
+        parser.add_argument("--capacitors", type=int, default=150_000, help="Capacitors in service (positions).")
+        parser.add_argument("--readings", type=int, default=2_000_000)
+        parser.add_argument("--workers", type=int, nargs="*", default=[1, 2], help="Worker counts to run, e.g. 1 2.")
+        parser.add_argument("--chunk-size", type=int, default=settings.FLEET_REFIT_CHUNK_SIZE)
+        parser.add_argument("--loop-sample", type=int, default=100, help="Capacitors refitted one at a time.")
+        parser.add_argument("--no-in-process", action="store_true", help="Skip the in-process refit.")
+
+    def say(self, text: str) -> None:
+        self.stdout.write(text)
+        self.stdout.flush()
+
+    def handle(self, *args, **options):
+        self.say(f"database: {connection.vendor}, {os.cpu_count()} cores; chunk size {options['chunk_size']}")
+        if existing_bench_fleet():
+            self.say("using the benchmark fleet already in this database")
+        else:
+            started = time.perf_counter()
+            size = FleetSize(options["motors"], options["capacitors"], options["readings"])
+            counts = build_bench_fleet(size, progress=lambda text: self.say(f"  {text}"))
+            self.say(f"fleet built in {time.perf_counter() - started:.1f} s: {counts}")
+        readings = Reading.objects.count()
+        self.say(f"database holds {FittedCapacitor.objects.count():,} capacitors and {readings:,} readings")
+
+        floor_s = float("nan")
+        if on_postgresql():
+            rows, floor_s = copy_read_floor(Reading)
+            self.say(f"COPY read floor: {rows:,} reading rows in {floor_s:.2f} s ({rows / floor_s:,.0f} rows/s)")
+        self.chunk_memory(options["chunk_size"])
+        if not options["no_in_process"]:
+            self.timed_refit("in-process", floor_s, options["chunk_size"], eager=True)
+        for count in options["workers"]:
+            if not settings.CELERY_BROKER_URL:
+                self.say(f"{count} worker(s): skipped (no CELERY_BROKER_URL)")
+                continue
+            self.on_workers(count, floor_s, options["chunk_size"])
+        self.naive_loop(options["loop_sample"], readings)
+
+    def timed_refit(self, label: str, floor_s: float, chunk_size: int, eager: bool, workers=()) -> None:
+        previous = current_app.conf.task_always_eager
+        current_app.conf.task_always_eager = eager
+        pids = [None, *(w.pid for w in workers)]
+        cpu_before = [_cpu_seconds(pid) for pid in pids]
+        try:
+            started = time.perf_counter()
+            run = start_fleet_refit(kind="bench", chunk_size=chunk_size, force=True)
+            while RefitRun.objects.get(pk=run.pk).state in (RefitRun.State.RUNNING, RefitRun.State.QUEUED):
+                time.sleep(0.2)
+            seconds = time.perf_counter() - started
+        finally:
+            current_app.conf.task_always_eager = previous
+        cpu = [_cpu_seconds(pid) - before for pid, before in zip(pids, cpu_before, strict=True)]
+        run.refresh_from_db()
+        self.say(
+            f"fleet refit, {label}: {seconds:.1f} s for {run.total:,} capacitors and {run.readings:,} readings "
+            f"({run.readings / seconds:,.0f} readings/s; {seconds / floor_s:.1f}x the COPY read floor) "
+            f"state {run.state}{': ' + run.message if run.message else ''}"
+        )
+        self.say(
+            f"  CPU: {cpu[0]:.1f} s in this process"
+            + "".join(f", {c:.1f} s in worker {k + 1}" for k, c in enumerate(cpu[1:]))
+            + f" ({sum(cpu) / max(run.readings, 1) * 1e6:.0f} CPU us a reading, database server's not counted)"
+        )
+
+    def on_workers(self, count: int, floor_s: float, chunk_size: int) -> None:
+        """Start `count` solo-pool workers on the configured broker, refit, read their peak memory."""
+        current_app.control.purge()
+        workers = [
+            subprocess.Popen(
+                [sys.executable, "-m", "celery", "-A", "config", "worker", "--pool", "solo", "--loglevel", "WARNING"]
+                + ["-n", f"bench{k}-{os.getpid()}@%h", "--without-gossip", "--without-mingle"],
+                cwd=ROOT,
+                env=dict(os.environ),
+                stdout=subprocess.DEVNULL,
+                stderr=subprocess.DEVNULL,
+            )
+            for k in range(count)
+        ]
+        try:
+            deadline = time.monotonic() + 60
+            while len(current_app.control.ping(timeout=0.5) or []) < count and time.monotonic() < deadline:
+                time.sleep(0.5)
+            self.timed_refit(f"{count} worker(s)", floor_s, chunk_size, eager=False, workers=workers)
+            peaks = ", ".join(f"{_peak_rss_mb(w.pid):.0f} MB" for w in workers)
+            self.say(f"  worker peak memory (RSS): {peaks}")
+        finally:
+            for worker in workers:
+                worker.terminate()
+            for worker in workers:
+                try:
+                    worker.wait(timeout=30)
+                except subprocess.TimeoutExpired:
+                    worker.kill()
+
+    def chunk_memory(self, chunk_size: int) -> None:
+        ids = list(FittedCapacitor.objects.filter(removed_on__isnull=True).order_by("id").values_list("id", flat=True))
+        ids = ids[:chunk_size]
+        refit_installations(ids[:10], force=True)  # imports, stored priors: not the chunk's own memory
+        tracemalloc.start()
+        outcome = refit_installations(ids, force=True)
+        peak = tracemalloc.get_traced_memory()[1]
+        tracemalloc.stop()
+        self.say(
+            f"one chunk of {len(ids):,} capacitors ({outcome.readings:,} readings): "
+            f"peak Python memory {peak / 2**20:.0f} MB (tracemalloc)"
+        )
+
+    def naive_loop(self, sample_size: int, readings: int) -> None:
+        ids = list(FittedCapacitor.objects.filter(removed_on__isnull=True).order_by("id").values_list("id", flat=True))
+        if not ids or sample_size <= 0:
+            return
+        sample = ids[:sample_size]
+        started = time.perf_counter()
+        for installation_id in sample:
+            refit_installations([installation_id], force=True)
+        per_capacitor_s = (time.perf_counter() - started) / len(sample)
+        self.say(
+            f"naive per-capacitor loop: {per_capacitor_s * 1e3:.1f} ms a capacitor; "
+            f"{per_capacitor_s * len(ids):,.0f} s for the {len(ids):,} in service (extrapolated from {len(sample)})"
+        )

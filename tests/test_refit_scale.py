@@ -1,0 +1,207 @@
+"""Fleet refits at scale: a chunk gives the numbers its capacitors give one at a time, and a
+chunk's memory does not grow with the fleet around it. The fleets are the benchmark's
+invented ones (fleet/services/bench_fleet.py), small."""
+
+import datetime as dt
+import json
+import tracemalloc
+
+import numpy as np
+import pytest
+from django.utils import timezone
+
+from fleet.models import Assessment, FittedCapacitor, Reading
+from fleet.services.assessments import fit_frames, refit_installations, refresh_part_priors, stored_forms
+from fleet.services.bench_fleet import FleetSize, build_bench_fleet
+from fleet.services.pages import stress_hours_of_readings
+from fleet.services.selectors import installations_frame, readings_frame
+
+pytestmark = pytest.mark.django_db
+NOW = timezone.make_aware(dt.datetime(2026, 6, 1, 12))
+TODAY = NOW.date()
+
+COMPARED = [
+    "installation_id",
+    "fitted_through",
+    "newest_reading_id",
+    "max_reading_id",
+    "readings_used",
+    "readings_flagged",
+    "flagged_reading_ids",
+    "trend_model",
+    "slope_pct_per_1000h",
+    "slope_sd_pct_per_1000h",
+    "low_confidence",
+    "capacitance_now_uf",
+    "latest_verdict",
+    "limit_fraction",
+    "limit_source",
+    "p10_on",
+    "p50_on",
+    "p90_on",
+    "risk",
+    "replace_by",
+    "reason",
+    "limits",
+    "set_aside",
+    "figures_now",
+    "figures_new",
+    "trend_intercept",
+    "trend_slope_per_hour",
+    "trend_var_intercept",
+    "trend_cov_intercept_slope",
+    "trend_var_slope",
+    "trend_noise_sd",
+    "stress_hours_now",
+    "stress_rate",
+    "tempco_ppm_per_k",
+]
+
+
+def quiet(_text):
+    pass
+
+
+def in_service_ids():
+    return list(
+        FittedCapacitor.objects.filter(removed_on__isnull=True, readings__isnull=False)
+        .distinct()
+        .order_by("id")
+        .values_list("id", flat=True)
+    )
+
+
+def rounded(value):
+    """Floats to 10 significant digits, through lists and dicts: the same computation in a
+    different batch may differ in the last bits of a sum, not in a stored figure."""
+    if isinstance(value, float):
+        return float(f"{value:.10g}")
+    if isinstance(value, list):
+        return [rounded(v) for v in value]
+    if isinstance(value, dict):
+        return {k: rounded(v) for k, v in value.items()}
+    return value
+
+
+def current_rows():
+    return {
+        row["installation_id"]: rounded(row) for row in Assessment.objects.filter(is_current=True).values(*COMPARED)
+    }
+
+
+def test_a_chunk_refit_equals_its_capacitors_refitted_one_at_a_time():
+    # [derived] With the part priors stored, each capacitor's fit, limits and plan depend on its
+    # own readings and motor only, so the batch it is refitted in must not change a number.
+    build_bench_fleet(FleetSize(motors=16, capacitors=24, readings=300), today=TODAY, progress=quiet)
+    refresh_part_priors()
+    ids = in_service_ids()
+    assert len(ids) >= 15
+    refit_installations(ids, now=NOW, force=True)
+    chunk = current_rows()
+    for installation_id in ids:
+        refit_installations([installation_id], now=NOW, force=True)
+    single = current_rows()
+    assert sorted(chunk) == ids
+    assert {row["risk"] for row in chunk.values()} != {""}
+    assert any(row["figures_now"] for row in chunk.values())  # the motors' circuits were used
+    for installation_id in ids:
+        assert chunk[installation_id] == single[installation_id], installation_id
+
+
+def test_the_stored_limits_and_figures_are_json_the_api_can_send():
+    build_bench_fleet(FleetSize(motors=6, capacitors=9, readings=90), today=TODAY, progress=quiet)
+    refit_installations(in_service_ids(), now=NOW, force=True)
+    for limits, figures in Assessment.objects.filter(is_current=True).values_list("limits", "figures_now"):
+        assert limits[0]["name"] == "tolerance" and set(limits[0]) >= {"used", "note", "p10_on", "p90_on"}
+        assert json.loads(json.dumps(figures)) == figures
+
+
+def test_the_capacitor_page_recomputes_the_stress_hours_the_fit_used():
+    # [derived] The page draws the stored path against each reading at the stress hours the fit
+    # gave it; they are recomputed, not stored, so they must be the fit's own.
+    build_bench_fleet(FleetSize(motors=6, capacitors=9, readings=120), today=TODAY, progress=quiet)
+    ids = in_service_ids()
+    inst = installations_frame(ids).set_index("installation_id", drop=False)
+    readings = readings_frame(ids)
+    fit = fit_frames(inst, readings, None, np.sort(inst["part_id"].unique()), stored_forms())
+    checked = 0
+    for installation in FittedCapacitor.objects.filter(id__in=ids).select_related("part"):
+        mine = readings[readings["installation_id"] == installation.id].sort_values(["taken_at", "id"])
+        page = stress_hours_of_readings(
+            installation,
+            Reading.objects.filter(installation=installation)
+            .order_by("taken_at", "id")
+            .values("taken_at", "case_temperature_c", "capacitor_voltage_v"),
+        )
+        np.testing.assert_allclose(page, fit.stress_hours[mine.index.to_numpy()], rtol=1e-9)
+        checked += len(page) > 1
+    assert checked >= 5
+
+
+def chunk_peak_bytes(ids) -> int:
+    peaks = []
+    for _ in range(2):
+        tracemalloc.start()
+        refit_installations(ids, now=NOW, force=True)
+        peaks.append(tracemalloc.get_traced_memory()[1])
+        tracemalloc.stop()
+    return min(peaks)
+
+
+def test_a_chunk_refit_memory_stays_bounded_as_the_fleet_doubles():
+    # [derived] A worker reads only its chunk's capacitors: the same chunk costs the same memory
+    # in a fleet twice the size. Measured with tracemalloc (Python allocations, numpy's included).
+    size = FleetSize(motors=700, capacitors=1000, readings=12_000)
+    build_bench_fleet(size, today=TODAY, progress=quiet)
+    chunk = in_service_ids()[:20]
+    refit_installations(chunk, now=NOW, force=True)  # part priors stored, designs' limits known
+    at_n = chunk_peak_bytes(chunk)
+    build_bench_fleet(size, today=TODAY, prefix="BFLEETB-", seed=12, progress=quiet)
+    assert Reading.objects.count() >= 2 * size.readings - 100
+    at_2n = chunk_peak_bytes(chunk)
+    assert at_2n < 1.25 * at_n, (at_n, at_2n)
+
+
+@pytest.mark.django_db(transaction=True)
+def test_the_migration_keeps_a_stored_path_in_its_columns(fan_installation):
+    from django.db import connection
+    from django.db.migrations.executor import MigrationExecutor
+
+    before, after = [("fleet", "0011_substitutes_stock_and_override")], [("fleet", "0012_assessment_trend_columns")]
+    executor = MigrationExecutor(connection)
+    executor.migrate(before)
+    old_apps = executor.loader.project_state(before).apps
+    old_apps.get_model("fleet", "Assessment").objects.create(
+        installation_id=fan_installation.id,
+        model_version="trend-2",
+        fitted_through=NOW,
+        readings_used=4,
+        trend_model="linear",
+        slope_pct_per_1000h=-1.0,
+        slope_sd_pct_per_1000h=0.1,
+        capacitance_now_uf=3.9,
+        latest_verdict="within tolerance",
+        limit_fraction=0.95,
+        limit_source="tolerance",
+        risk="watch",
+        trend={
+            "model": "linear",
+            "intercept": 1.01,
+            "slope_per_hour": -2e-6,
+            "covariance": [1e-4, -1e-9, 1e-13],
+            "noise_sd": 0.004,
+            "stress_hours_now": 9000.0,
+            "stress_rate": 1.2,
+            "tempco_ppm_per_k": -150.0,
+            "rated_uf": 4.0,
+            "points": [[1, 100.0]],
+        },
+    )
+    executor = MigrationExecutor(connection)
+    executor.migrate(after)
+    executor.loader.build_graph()
+    executor.migrate(executor.loader.graph.leaf_nodes())
+    moved = Assessment.objects.get(installation=fan_installation)
+    assert (moved.trend_intercept, moved.trend_slope_per_hour, moved.trend_noise_sd) == (1.01, -2e-6, 0.004)
+    assert (moved.trend_var_intercept, moved.trend_cov_intercept_slope, moved.trend_var_slope) == (1e-4, -1e-9, 1e-13)
+    assert (moved.stress_hours_now, moved.stress_rate, moved.tempco_ppm_per_k) == (9000.0, 1.2, -150.0)
