@@ -12,11 +12,12 @@ from __future__ import annotations
 
 import json
 
-from django.db.models import Field, Lookup
+from django.db.models import Field, ForeignObject, Lookup
 
 SEPARATOR = "\x1f"  # ASCII unit separator
 
 
+@ForeignObject.register_lookup  # a foreign key keeps lookups of its own: register there too
 @Field.register_lookup
 class AnyOf(Lookup):
     lookup_name = "any_of"
