@@ -8,7 +8,7 @@ class FleetConfig(AppConfig):
     default_auto_field = "django.db.models.BigAutoField"
 
     def ready(self):
-        from . import audit
+        from . import audit, lookups  # noqa: F401 - lookups registers field__any_of
         from .roles import ensure_role_groups
 
         audit.connect()

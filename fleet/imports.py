@@ -21,8 +21,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from django.conf import settings
+from django.db import connection
 from django.utils import timezone
 
+from fleet.bulk import copy_rows
 from fleet.engineering.rules import check_readings as reading_rules
 from fleet.engineering.rules import parse_numbers
 from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
@@ -83,7 +85,7 @@ REGISTER_REQUIRED = (
 )
 REGISTER_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm"]
 
-CHUNK_ROWS = 5000
+CHUNK_ROWS = 50_000  # rows checked per step of the progress bar
 MAX_REPORTED_ERRORS = 2000
 
 
@@ -168,7 +170,7 @@ def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]
     rows = []
     try:
         for row in csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True):
-            if not any(cell.strip() for cell in row):
+            if not "".join(row).strip():
                 continue
             if not rows and len(row) > limits.columns:
                 raise limits.too_many_columns()
@@ -334,13 +336,18 @@ def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
 def mapped_frame(
     header: list[str], rows: list[list[str]], mapping: dict[str, str], ours: dict[str, str]
 ) -> pd.DataFrame:
-    frame = pd.DataFrame(rows, columns=header, dtype=str) if rows else pd.DataFrame(columns=header, dtype=str)
-    out = pd.DataFrame(index=frame.index)
+    """Our fields as text columns (stripped; "" where the file has no such column), and each row's number."""
+    position = {}
+    for number, heading in enumerate(header):
+        position.setdefault(heading, number)
+    columns = list(zip(*rows, strict=True)) if rows else [()] * len(header)
+    out = {}
     for name in ours:
-        column = mapping.get(name)
-        out[name] = frame[column].str.strip() if column in frame.columns else ""
-    out["row"] = np.arange(len(frame)) + 2
-    return out
+        column = position.get(mapping.get(name))
+        cells = columns[column] if column is not None else [""] * len(rows)
+        out[name] = pd.Series(cells, dtype=str).str.strip()
+    out["row"] = np.arange(len(rows)) + 2
+    return pd.DataFrame(out)
 
 
 class _Problems:
@@ -467,76 +474,94 @@ def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
     return problems
 
 
-def reading_key(installation_id, taken_at_utc, method, capacitance_uf) -> str:
-    text = f"{installation_id}|{taken_at_utc}|{method}|{capacitance_uf:.4f}"
-    return hashlib.sha256(text.encode()).hexdigest()[:40]
+def reading_keys(installation_ids, taken_at_utc: pd.Series, methods, capacitance_uf) -> np.ndarray:
+    """Each reading's content key (capacitor, UTC time, method, value): a file imported twice adds nothing.
+
+    The key text is "id|time|method|value" with the time as `Timestamp.isoformat()` writes it,
+    so keys stay those of the readings imported before.
+    """
+    if not len(taken_at_utc):
+        return np.array([], dtype=object)
+    times = pd.Series(taken_at_utc).reset_index(drop=True)
+    whole = times.dt.tz_localize(None).to_numpy("datetime64[ns]")
+    text = np.datetime_as_string(whole.astype("datetime64[s]"), unit="s").astype(object) + "+00:00"
+    fractional = whole != whole.astype("datetime64[s]")
+    if fractional.any():
+        text[fractional] = [moment.isoformat() for moment in times[fractional]]
+    ids = pd.Series(np.asarray(installation_ids, np.int64)).astype(str).to_numpy(object)
+    values = pd.Series(np.asarray(capacitance_uf, float)).map("{:.4f}".format).to_numpy(object)
+    joined = ids + "|" + text + "|" + np.asarray(methods, object) + "|" + values
+    return np.array([hashlib.sha256(key.encode()).hexdigest()[:40] for key in joined], dtype=object)
+
+
+FITTED_COLUMNS = {
+    "id": "installation_id",
+    "motor__asset_tag": "tag",
+    "role": "role",
+    "fitted_on": "fitted_on",
+    "removed_on": "removed_on",
+    "part__rated_uf": "rated_uf",
+    "motor__frequency_hz": "frequency_hz",
+    "motor__rated_voltage_v": "voltage_v",
+    "motor__full_load_current_a": "full_load_a",
+    "motor__site__time_zone": "time_zone",
+}
+
+
+def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
+    """Every capacitor ever fitted to the motors named (upper-case tags), one query."""
+    rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
+    fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
+    fitted["tag"] = fitted["tag"].astype(str).str.upper()
+    fitted["fitted_on"] = pd.to_datetime(fitted["fitted_on"]).astype("datetime64[s]")
+    fitted["removed_on"] = pd.to_datetime(fitted["removed_on"]).astype("datetime64[s]")
+    return fitted
+
+
+def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted: pd.DataFrame) -> pd.DataFrame:
+    """For each row, the capacitor in that role on that motor that day (the latest fitted, if several): NaN if none."""
+    rows = pd.DataFrame(
+        {"i": np.arange(len(tag)), "tag": tag.to_numpy(object), "role": role.to_numpy(object), "day": day}
+    )
+    candidates = rows.merge(fitted.astype({"tag": object, "role": object}), on=["tag", "role"], how="inner")
+    in_window = (candidates["fitted_on"] <= candidates["day"]) & (
+        candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
+    )
+    match = candidates[in_window.to_numpy(bool)].sort_values(["i", "fitted_on"]).drop_duplicates("i", keep="last")
+    return match.set_index("i").reindex(np.arange(len(tag)))
 
 
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
     """Validate mapped reading rows; resolve each to the capacitor fitted at the time.
 
-    A time without an offset is in the time zone of the motor's site (`default_tz` for a tag
-    not in the register, whose row is refused anyway).
+    Vectorised over the whole file (chunks of CHUNK_ROWS for the progress bar), with the
+    rulebook the form and the API use. A time without an offset is in the time zone of the
+    motor's site (`default_tz` for a tag not in the register, whose row is refused anyway).
     """
+    upper_tags = frame["asset_tag"].str.upper()
     # A NUL cannot reach PostgreSQL, not even in a lookup: such a tag is simply unknown.
-    tags = sorted(t for t in set(frame["asset_tag"].str.upper()) - {""} if "\x00" not in t)
-    fitted = pd.DataFrame.from_records(
-        list(
-            FittedCapacitor.objects.filter(motor__asset_tag__in=tags).values_list(
-                "id",
-                "motor__asset_tag",
-                "role",
-                "fitted_on",
-                "removed_on",
-                "part__rated_uf",
-                "motor__frequency_hz",
-                "motor__rated_voltage_v",
-                "motor__full_load_current_a",
-                "motor__site__time_zone",
-            )
-        ),
-        columns=[
-            "installation_id",
-            "tag",
-            "role",
-            "fitted_on",
-            "removed_on",
-            "rated_uf",
-            "frequency_hz",
-            "voltage_v",
-            "full_load_a",
-            "time_zone",
-        ],
-    )
-    fitted["tag"] = fitted["tag"].str.upper()
-    zone_of_tag = dict(zip(fitted["tag"], fitted["time_zone"], strict=True))
-    known_tags = set(fitted["tag"])
-    now = timezone.now()
-    good_parts, errors, seen_keys = [], [], {}
+    wanted = pd.unique(upper_tags[upper_tags.ne("") & ~upper_tags.str.contains("\x00", regex=False)].to_numpy(object))
+    fitted = _fitted_of_tags(np.asarray(wanted, dtype=object))
+    zone_of_tag = fitted.drop_duplicates("tag").set_index("tag")["time_zone"]
+    now = np.datetime64(timezone.now().replace(tzinfo=None), "s")
+    good_parts, errors = [], []
     for start in range(0, len(frame), CHUNK_ROWS):
         chunk = frame.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
         problems = _Problems(chunk)
         for name in READING_REQUIRED:
             problems.add(chunk[name].eq(""), name, "required")
-        tag = chunk["asset_tag"].str.upper()
-        problems.add(~tag.isin(known_tags), "asset_tag", "unknown asset tag: not in the register")
+        tag = upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
+        zones = zone_of_tag.reindex(tag.to_numpy(object))
+        problems.add(zones.isna().to_numpy(), "asset_tag", "unknown asset tag: not in the register")
         role = chunk["role"].str.lower()
         problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
-        zones = tag.map(zone_of_tag).astype(object).fillna(default_tz)
-        taken, unplaced = parse_times(chunk["taken_at"], zones)
+        taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
         problems.add(unplaced != "", "taken_at", unplaced)
         problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
-        # The capacitor fitted at that motor, in that role, on that day.
-        candidates = pd.DataFrame({"i": np.arange(len(chunk)), "tag": tag, "role": role, "day": taken.dt.date}).merge(
-            fitted, on=["tag", "role"], how="left"
-        )
-        in_window = (candidates["fitted_on"] <= candidates["day"]) & (
-            candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
-        )
-        match = candidates[in_window.fillna(False)].sort_values("fitted_on").groupby("i").tail(1).set_index("i")
-        match = match.reindex(np.arange(len(chunk)))
+        taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
+        match = _fitted_on_the_day(tag, role, taken_utc.astype("datetime64[D]").astype("datetime64[s]"), fitted)
         problems.add(
-            match["installation_id"].isna() & taken.notna().to_numpy(),
+            match["installation_id"].isna().to_numpy() & taken.notna().to_numpy(),
             "role",
             "no capacitor in this role was fitted to this motor on that date",
         )
@@ -552,54 +577,52 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             full_load_current_a=match["full_load_a"].to_numpy(float),
             fitted_on=pd.to_datetime(match["fitted_on"]).to_numpy("datetime64[D]"),
             removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
-            taken_at=taken.dt.tz_localize(None).to_numpy("datetime64[s]"),
-            now=np.datetime64(now.replace(tzinfo=None), "s"),
+            taken_at=taken_utc,
+            now=now,
         )
         for name, messages in result.errors.items():
             problems.add(messages != "", name, messages)
         for name, messages in result.confirm.items():
             problems.add(messages != "", name, messages + "; the import cannot confirm it: use the reading form")
-        numbers = {name: result.values[name] for name in READING_NUMBERS}
-        method, condition, capacitance = result.values["method"], result.values["condition"], numbers["capacitance_uf"]
         good = ~problems.bad
         rows = pd.DataFrame(
             {
-                "row": chunk["row"],
-                "installation_id": match["installation_id"],
-                "taken_at": taken,
-                "method": method,
-                "condition": condition,
-                "notes": result.values["notes"],
-                **numbers,
-                "capacitance_uf": np.round(capacitance, 4),
+                "row": chunk["row"].to_numpy()[good],
+                "installation_id": match["installation_id"].to_numpy()[good].astype(np.int64),
+                "taken_at": taken[good].reset_index(drop=True),
+                "method": result.values["method"][good],
+                "condition": result.values["condition"][good],
+                "notes": result.values["notes"][good],
+                **{name: result.values[name][good] for name in READING_NUMBERS},
+                "capacitance_uf": np.round(result.values["capacitance_uf"][good], 4),
             }
-        )[good]
-        rows["import_key"] = [
-            reading_key(int(i), t.isoformat(), m, c)
-            for i, t, m, c in zip(
-                rows["installation_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"], strict=True
-            )
-        ]
-        duplicate_in_file = []
-        for row_number, key in zip(rows["row"], rows["import_key"], strict=True):
-            if key in seen_keys:
-                duplicate_in_file.append(True)
-                problems.items.append((int(row_number), "taken_at", f"the same reading as row {seen_keys[key]}"))
-            else:
-                seen_keys[key] = int(row_number)
-                duplicate_in_file.append(False)
-        rows = rows[~np.array(duplicate_in_file, bool)] if len(rows) else rows
+        )
+        rows["import_key"] = reading_keys(
+            rows["installation_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
+        )
         good_parts.append(rows)
         errors += problems.items
         if on_progress:
             on_progress(min(start + CHUNK_ROWS, len(frame)))
-    good = pd.concat(good_parts, ignore_index=True) if good_parts else pd.DataFrame()
-    existing = set()
-    keys = good["import_key"].tolist() if len(good) else []
-    for start in range(0, len(keys), 5000):
-        existing |= set(
-            Reading.objects.filter(import_key__in=keys[start : start + 5000]).values_list("import_key", flat=True)
+    good = pd.concat(good_parts, ignore_index=True) if good_parts else pd.DataFrame(columns=["row", "import_key"])
+    repeated = good["import_key"].duplicated(keep="first").to_numpy()
+    if repeated.any():
+        first_row = good[~repeated].set_index("import_key")["row"]
+        later = good[repeated]
+        errors += [
+            (int(row), "taken_at", f"the same reading as row {first}")
+            for row, first in zip(later["row"], first_row.reindex(later["import_key"]).to_numpy(), strict=True)
+        ]
+        good = good[~repeated].reset_index(drop=True)
+    existing = (
+        set(
+            Reading.objects.filter(import_key__any_of=good["import_key"].to_numpy(object)).values_list(
+                "import_key", flat=True
+            )
         )
+        if len(good)
+        else set()
+    )
     if existing:
         good = good[~good["import_key"].isin(existing)].reset_index(drop=True)
     errors.sort()
@@ -607,28 +630,56 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
 
 
 def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
-    """Write checked readings (caller holds the transaction); returns the capacitors touched."""
-    objects = [
-        Reading(
-            installation_id=int(row.installation_id),
-            taken_at=row.taken_at.to_pydatetime(),
-            taken_by=user,
-            method=row.method,
-            capacitance_uf=float(row.capacitance_uf),
-            condition=row.condition,
-            notes=row.notes or "",
-            source=Reading.Source.IMPORT,
-            import_key=row.import_key,
-            **{
-                name: (None if np.isnan(getattr(row, name)) else float(getattr(row, name)))
-                for name in READING_NUMBERS
-                if name != "capacitance_uf"
-            },
+    """Write checked readings (caller holds the transaction); returns the capacitors touched.
+
+    PostgreSQL: one COPY (the row triggers of fleet_reading run on each row as for any insert);
+    SQLite: bulk inserts. A reading whose key another import wrote meanwhile is skipped.
+    """
+    if not len(good):
+        return []
+    now = timezone.now()
+    columns = {
+        "installation_id": good["installation_id"].to_numpy(np.int64),
+        "taken_at": good["taken_at"],
+        "taken_by_id": np.full(len(good), np.nan if user is None else float(user.pk)),
+        "method": good["method"].to_numpy(object),
+        **{name: good[name].to_numpy(float) for name in READING_NUMBERS},
+        "condition": good["condition"].to_numpy(object),
+        "notes": good["notes"].fillna("").to_numpy(object),
+        "outlier_confirmed": np.zeros(len(good), bool),
+        "source": np.full(len(good), Reading.Source.IMPORT.value, dtype=object),
+        "import_key": good["import_key"].to_numpy(object),
+        "created_at": pd.Series(np.full(len(good), np.datetime64(now.replace(tzinfo=None), "us"))).dt.tz_localize(
+            "UTC"
+        ),
+    }
+    if connection.vendor == "postgresql":
+        if user is not None:
+            columns["taken_by_id"] = np.full(len(good), int(user.pk), np.int64)
+        copy_rows(Reading._meta.db_table, columns, skip_conflicts_on="import_key")
+    else:
+        Reading.objects.bulk_create(
+            [
+                Reading(
+                    installation_id=int(row.installation_id),
+                    taken_at=row.taken_at.to_pydatetime(),
+                    taken_by=user,
+                    method=row.method,
+                    condition=row.condition,
+                    notes=row.notes or "",
+                    source=Reading.Source.IMPORT,
+                    import_key=row.import_key,
+                    **{
+                        name: None if np.isnan(getattr(row, name)) else float(getattr(row, name))
+                        for name in READING_NUMBERS
+                    },
+                )
+                for row in good.itertuples(index=False)
+            ],
+            batch_size=2000,
+            ignore_conflicts=True,
         )
-        for row in good.itertuples(index=False)
-    ]
-    Reading.objects.bulk_create(objects, batch_size=2000, ignore_conflicts=True)
-    return sorted({int(i) for i in good["installation_id"]}) if len(good) else []
+    return sorted(set(good["installation_id"].astype(int).tolist()))
 
 
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:

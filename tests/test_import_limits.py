@@ -183,7 +183,7 @@ def test_an_exception_mid_import_ends_the_job_failed_with_nothing_in(caplog):
 def test_an_exception_in_the_check_ends_the_job_failed(caplog):
     fleet_of(1)
     job = create_job(kind="readings", filename="q.csv", content=csv_of(good_rows(["IMP-0000"], 1)), user=None)
-    with mock.patch.object(imports, "reading_key", side_effect=KeyError("surprise")):
+    with mock.patch.object(imports, "reading_keys", side_effect=KeyError("surprise")):
         job = check_job(job.id)
     assert job.state == ImportJob.State.FAILED and "(KeyError)" in job.message
 

@@ -15,10 +15,9 @@ motor: the caller de-duplicates nameplates before calling.
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
-from scipy.optimize import least_squares
 
 from .drift import CAPACITOR_START
 from .motor import MotorCircuit, synchronous_speed_rad_s, two_winding_running
@@ -90,8 +89,77 @@ PRIOR_TURNS_RATIO = (1.3, 0.4)
 ROTATIONAL_LOSS_FRACTION = 0.05  # of rated output
 
 
-def _circuit(theta, plate: Nameplate) -> MotorCircuit:
-    r1m, x1, r2, xm, a, k = np.exp(theta)
+THETA_NAMES = ("log_r1m", "log_x1", "log_r2", "log_xm", "log_turns_ratio", "log_aux_resistance_ratio")
+DATA_WEIGHT = 10.0
+# Weight 3: strong enough to rule out designs whose backward field rivals the forward one at
+# rated load (a spurious minimum), weak beside the data (10).
+BALANCE_WEIGHT = 3.0
+# Starts: the problem has local minima (one with the backward field larger than the forward
+# one); every start is solved and the lowest cost wins. (turns ratio, leakage and magnetising
+# reactance as fractions of V / I_full_load.)
+STARTS = np.array(list(itertools.product((1.1, 1.4, 1.8), (0.05, 0.12), (1.5, 4.0))))
+MAX_ITERATIONS = 200
+DESIGNS_PER_BATCH = 400  # bounds the arrays of one solve (designs x starts x residuals x unknowns)
+
+
+@dataclass(frozen=True)
+class _Problems:
+    """Designs (and their readings) as arrays, one entry per least-squares problem; NaN: not measured."""
+
+    voltage_v: np.ndarray
+    frequency_hz: np.ndarray
+    poles: np.ndarray
+    output_w: np.ndarray
+    full_load_current_a: np.ndarray
+    slip: np.ndarray
+    runs: np.ndarray  # the auxiliary winding stays in circuit while running (not capacitor-start)
+    run_uf: np.ndarray  # the run capacitance in circuit (0 for capacitor-start)
+    start_uf: np.ndarray
+    locked_rotor_current_a: np.ndarray
+    no_load_current_a: np.ndarray
+    main_dc_resistance_ohm: np.ndarray
+    aux_dc_resistance_ohm: np.ndarray
+    main_current_a: np.ndarray
+    aux_current_a: np.ndarray
+    balanced: np.ndarray  # the balance prior applies (a run capacitor, no winding currents measured)
+
+    @classmethod
+    def of(cls, plates: list[Nameplate], readings: list[CommissioningReadings]) -> _Problems:
+        def column(values):
+            return np.array([np.nan if v is None else float(v) for v in values])
+
+        runs = np.array([p.motor_kind != CAPACITOR_START for p in plates])
+        measured = np.array([r.main_current_a is not None or r.aux_current_a is not None for r in readings])
+        plate_run_uf = column(p.run_capacitance_uf for p in plates)
+        return cls(
+            voltage_v=column(p.voltage_v for p in plates),
+            frequency_hz=column(p.frequency_hz for p in plates),
+            poles=column(p.poles for p in plates),
+            output_w=column(p.output_w for p in plates),
+            full_load_current_a=column(p.full_load_current_a for p in plates),
+            slip=np.array([_rated_slip(p) for p in plates]),
+            runs=runs,
+            run_uf=np.where(runs, plate_run_uf, 0.0),
+            start_uf=column(p.start_capacitance_uf for p in plates),
+            locked_rotor_current_a=column(r.locked_rotor_current_a for r in readings),
+            no_load_current_a=column(r.no_load_current_a for r in readings),
+            main_dc_resistance_ohm=column(r.main_dc_resistance_ohm for r in readings),
+            aux_dc_resistance_ohm=column(r.aux_dc_resistance_ohm for r in readings),
+            main_current_a=column(r.main_current_a for r in readings),
+            aux_current_a=np.where(runs, column(r.aux_current_a for r in readings), np.nan),
+            balanced=runs & ~measured,
+        )
+
+    def repeat(self, times: int) -> _Problems:
+        """Each problem `times` times in a row (one per start)."""
+        return _Problems(**{f.name: np.repeat(getattr(self, f.name), times) for f in fields(self)})
+
+    def take(self, index) -> _Problems:
+        return _Problems(**{f.name: getattr(self, f.name)[index] for f in fields(self)})
+
+
+def _circuit(theta, problems: _Problems) -> MotorCircuit:
+    r1m, x1, r2, xm, a, k = np.exp(np.moveaxis(np.asarray(theta, float), -1, 0))
     return MotorCircuit.from_arrays(
         r1m=r1m,
         x1m=x1,
@@ -101,10 +169,10 @@ def _circuit(theta, plate: Nameplate) -> MotorCircuit:
         x2=x1,
         xm=xm,
         turns_ratio=a,
-        voltage_v=plate.voltage_v,
-        frequency_hz=plate.frequency_hz,
-        poles=plate.poles,
-        rotational_loss_w=ROTATIONAL_LOSS_FRACTION * plate.output_w,
+        voltage_v=problems.voltage_v,
+        frequency_hz=problems.frequency_hz,
+        poles=problems.poles,
+        rotational_loss_w=ROTATIONAL_LOSS_FRACTION * problems.output_w,
     )
 
 
@@ -113,125 +181,214 @@ def _rated_slip(plate: Nameplate) -> float:
     return float(1.0 - plate.rated_speed_rpm / sync_rpm)
 
 
-def _data_residuals(theta, plate: Nameplate, readings: CommissioningReadings):
-    circuit = _circuit(theta, plate)
-    runs = plate.motor_kind != CAPACITOR_START
-    run_uf = plate.run_capacitance_uf if runs else 0.0
-    rated = two_winding_running(circuit, run_uf, _rated_slip(plate), aux_in_circuit=runs)
-    residuals = [
-        (abs(rated.i_line.item()) - plate.full_load_current_a) / plate.full_load_current_a,
-        (rated.output_power_w.item() - plate.output_w) / plate.output_w,
+def _relative_miss(measured, modelled):
+    """(modelled - measured) / measured; 0 where nothing was measured (a row that weighs nothing)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(np.isnan(measured), 0.0, (modelled - measured) / measured)
+
+
+def _data_residuals(theta, p: _Problems) -> np.ndarray:
+    """Relative misses on the data, (problems, 8): nameplate current and output, then the readings."""
+    circuit = _circuit(theta, p)
+    rated = two_winding_running(circuit, p.run_uf, p.slip, aux_in_circuit=p.runs)
+    misses = [
+        _relative_miss(p.full_load_current_a, np.abs(rated.i_line)),
+        _relative_miss(p.output_w, rated.output_power_w),
+        _relative_miss(p.main_dc_resistance_ohm, circuit.r1m),
+        _relative_miss(p.aux_dc_resistance_ohm, circuit.r1a),
+        _relative_miss(p.main_current_a, np.abs(rated.i_main)),
+        _relative_miss(p.aux_current_a, np.abs(rated.i_aux)),
     ]
-
-    def add(measured, modelled):
-        if measured is not None:
-            residuals.append((modelled - measured) / measured)
-
-    if readings.locked_rotor_current_a is not None:
-        locked = two_winding_running(circuit, run_uf + plate.start_capacitance_uf, 1.0)
-        add(readings.locked_rotor_current_a, abs(locked.i_line.item()))
-    if readings.no_load_current_a is not None:
-        idle = two_winding_running(circuit, run_uf, 0.005, aux_in_circuit=runs)
-        add(readings.no_load_current_a, abs(idle.i_line.item()))
-    add(readings.main_dc_resistance_ohm, circuit.r1m.item())
-    add(readings.aux_dc_resistance_ohm, circuit.r1a.item())
-    add(readings.main_current_a, abs(rated.i_main.item()))
-    if runs:
-        add(readings.aux_current_a, abs(rated.i_aux.item()))
-    return np.array(residuals)
+    if not np.isnan(p.locked_rotor_current_a).all():
+        locked = two_winding_running(circuit, p.run_uf + p.start_uf, 1.0)
+        misses.append(_relative_miss(p.locked_rotor_current_a, np.abs(locked.i_line)))
+    if not np.isnan(p.no_load_current_a).all():
+        idle = two_winding_running(circuit, p.run_uf, 0.005, aux_in_circuit=p.runs)
+        misses.append(_relative_miss(p.no_load_current_a, np.abs(idle.i_line)))
+    return np.stack(misses, axis=-1), rated
 
 
-def _balance_residual(theta, plate: Nameplate, readings: CommissioningReadings):
-    """Designers balance a run capacitor near rated load: a soft pull toward it.
+def _residuals(theta, p: _Problems) -> np.ndarray:
+    """All residuals, (problems, count): weighted data, the balance pull, the priors.
 
-    A prior, not a datum: measured running winding currents say how balanced the
-    motor really is, and then the pull steps aside.
+    Designers balance a run capacitor near rated load: a soft pull toward it. A prior, not a
+    datum: measured running winding currents say how balanced the motor really is, and then
+    the pull steps aside (its residual is 0).
     """
-    measured = readings.main_current_a is not None or readings.aux_current_a is not None
-    if plate.motor_kind == CAPACITOR_START or measured:
-        return np.zeros(0)
-    rated = two_winding_running(_circuit(theta, plate), plate.run_capacitance_uf, _rated_slip(plate))
-    # Weight 3: strong enough to rule out designs whose backward field rivals the
-    # forward one at rated load (a spurious minimum), weak beside the data (10).
-    return np.array([3.0 * rated.backward_ratio.item()])
+    data, rated = _data_residuals(theta, p)
+    balance = np.where(p.balanced, BALANCE_WEIGHT * rated.backward_ratio, 0.0)
+    return np.concatenate([DATA_WEIGHT * data, balance[:, None], _prior_residuals(theta)], axis=-1)
 
 
-def _prior_residuals(theta):
-    log_r1m, log_x1, log_r2, log_xm, log_a, log_k = theta
+def _prior_residuals(theta) -> np.ndarray:
+    log_r1m, log_x1, log_r2, log_xm, log_a, log_k = np.moveaxis(np.asarray(theta, float), -1, 0)
     pairs = [
         (log_r2 - log_r1m, PRIOR_R2_OVER_R1),
         (log_xm - log_x1, PRIOR_XM_OVER_X1),
         (log_k, PRIOR_AUX_RESISTANCE_RATIO),
         (log_a, PRIOR_TURNS_RATIO),
     ]
-    return np.array([(value - np.log(typical)) / spread for value, (typical, spread) in pairs])
+    return np.stack([(value - np.log(typical)) / spread for value, (typical, spread) in pairs], axis=-1)
+
+
+def _jacobian(function, theta, residuals, upper) -> np.ndarray:
+    """Forward differences, (problems, residuals, unknowns); a step that would cross a bound goes backward.
+
+    Every unknown's step is taken in one call `function(thetas, rows)`, `rows` naming the
+    problem (row of `theta`) each of the stacked thetas belongs to.
+    """
+    count, unknowns = theta.shape
+    step = 1e-7 * np.maximum(1.0, np.abs(theta))
+    step = np.where(theta + step > upper, -step, step)
+    moved = np.repeat(theta[None], unknowns, axis=0)  # (unknowns, problems, unknowns)
+    moved[np.arange(unknowns), :, np.arange(unknowns)] += step.T
+    shifted = function(moved.reshape(-1, unknowns), np.tile(np.arange(count), unknowns))
+    shifted = shifted.reshape(unknowns, count, -1)
+    return ((shifted - residuals[None]) / step.T[:, :, None]).transpose(1, 2, 0)
+
+
+def _least_squares(function, theta, lower, upper, max_iterations=MAX_ITERATIONS, tolerance=1e-10):
+    """Levenberg-Marquardt for many independent problems at once, each kept within its bounds.
+
+    `function(theta, index)` gives the residuals of the problems `index`. Every problem moves
+    on its own damping; a step is kept only where it lowers that problem's cost; a problem
+    whose cost no longer falls by more than `tolerance` (relative) drops out of the work.
+    """
+    theta = np.clip(theta, lower, upper)
+    everyone = np.arange(len(theta))
+    # Heavy damping at first (short, gradient-like steps): each start stays in its own basin, as the
+    # trust-region solver this replaced did. Bolder first steps reach spurious minima (a leakage
+    # reactance near the base impedance) that fit the numbers and not the machine.
+    residuals = function(theta, everyone)
+    cost = 0.5 * np.sum(residuals**2, axis=1)
+    damping = np.full(len(theta), 1.0)
+    active = everyone
+    eye = np.eye(theta.shape[1])
+    for _ in range(max_iterations):
+        if not len(active):
+            break
+        here, here_residuals = theta[active], residuals[active]
+        jacobian = _jacobian(
+            lambda t, rows, index=active: function(t, index[rows]), here, here_residuals, upper[active]
+        )
+        transposed = jacobian.transpose(0, 2, 1)
+        normal = transposed @ jacobian
+        gradient = (transposed @ here_residuals[..., None])[..., 0]
+        scale = np.maximum(np.diagonal(normal, axis1=1, axis2=2), 1e-12)
+        lifted = normal + damping[active, None, None] * scale[:, :, None] * eye
+        step = np.linalg.solve(lifted, -gradient[..., None])[..., 0]
+        trial = np.clip(here + step, lower[active], upper[active])
+        trial_residuals = function(trial, active)
+        trial_cost = 0.5 * np.sum(trial_residuals**2, axis=1)
+        better = np.isfinite(trial_cost) & (trial_cost < cost[active])
+        gain = np.where(better, (cost[active] - trial_cost) / np.maximum(cost[active], 1e-300), 0.0)
+        kept = active[better]
+        theta[kept], residuals[kept], cost[kept] = trial[better], trial_residuals[better], trial_cost[better]
+        damping[active] = np.where(better, np.maximum(damping[active] / 3.0, 1e-12), damping[active] * 4.0)
+        settled = (better & (gain < tolerance)) | (damping[active] >= 1e12)
+        active = active[~settled]
+    return theta, cost
+
+
+def _bounds(p: _Problems):
+    z_base = np.log(p.voltage_v / p.full_load_current_a)
+    lower = np.stack(
+        [z_base + np.log(1e-3)] * 4 + [np.full_like(z_base, np.log(0.3)), np.full_like(z_base, np.log(0.2))], -1
+    )
+    upper = np.stack(
+        [z_base + np.log(100.0)] * 4 + [np.full_like(z_base, np.log(4.0)), np.full_like(z_base, np.log(5.0))], -1
+    )
+    return lower, upper
+
+
+def _starts(p: _Problems) -> np.ndarray:
+    """Every start for every problem, (problems x starts, unknowns), problem-major."""
+    z_base = p.voltage_v / p.full_load_current_a
+    turns_ratio, leakage, magnetising = (STARTS[None, :, k] for k in range(3))
+    z = z_base[:, None]
+    one = np.ones_like(z * turns_ratio)
+    start = np.stack(
+        [0.12 * z * one, leakage * z * one, 0.18 * z * one, magnetising * z * one, turns_ratio * one, 1.2 * one], -1
+    )
+    return np.log(start).reshape(-1, 6)
+
+
+def estimate_designs(
+    plates: list[Nameplate], readings: list[CommissioningReadings | None] | None = None
+) -> list[ParameterEstimate]:
+    """Constrained least squares for many designs at once: the data weigh 10 times the priors per residual.
+
+    Every design and every start is one problem of a single vectorised solve (in batches of
+    DESIGNS_PER_BATCH designs); per design the start with the lowest cost wins.
+    """
+    readings = [r or CommissioningReadings() for r in (readings or [None] * len(plates))]
+    estimates: list[ParameterEstimate] = []
+    for first in range(0, len(plates), DESIGNS_PER_BATCH):
+        problems = _Problems.of(plates[first : first + DESIGNS_PER_BATCH], readings[first : first + DESIGNS_PER_BATCH])
+        estimates += _solve(problems)
+    return estimates
+
+
+def _solve(problems: _Problems) -> list[ParameterEstimate]:
+    count, starts = len(problems.slip), len(STARTS)
+    every = problems.repeat(starts)
+    lower, upper = _bounds(every)
+    theta, cost = _least_squares(lambda t, index: _residuals(t, every.take(index)), _starts(problems), lower, upper)
+    best = np.argmin(np.where(np.isfinite(cost), cost, np.inf).reshape(count, starts), axis=1)
+    theta = theta.reshape(count, starts, -1)[np.arange(count), best]
+    lower, upper = _bounds(problems)
+    data, _ = _data_residuals(theta, problems)
+    data_jacobian = _jacobian(
+        lambda t, rows: DATA_WEIGHT * _data_residuals(t, problems.take(rows))[0],
+        theta,
+        DATA_WEIGHT * data,
+        upper,
+    )
+    singular = np.linalg.svd(data_jacobian, compute_uv=False)
+    rank = np.sum(singular > 1e-3 * singular.max(axis=1, keepdims=True), axis=1)
+    circuit = _circuit(theta, problems)
+    fit_error = 100.0 * np.max(np.abs(data), axis=1)
+    balance = balance_capacitance_uf(circuit, problems.slip)
+    return [
+        ParameterEstimate(
+            r1m=float(circuit.r1m[i]),
+            x1m=float(circuit.x1m[i]),
+            r1a=float(circuit.r1a[i]),
+            x1a=float(circuit.x1a[i]),
+            r2=float(circuit.r2[i]),
+            x2=float(circuit.x2[i]),
+            xm=float(circuit.xm[i]),
+            turns_ratio=float(circuit.turns_ratio[i]),
+            rotational_loss_w=float(circuit.rotational_loss_w[i]),
+            unique=bool(rank[i] == theta.shape[1]),
+            data_rank=int(rank[i]),
+            fit_error_pct=float(fit_error[i]),
+            balance_capacitance_uf=float(balance[i]),
+        )
+        for i in range(count)
+    ]
 
 
 def estimate_parameters(plate: Nameplate, readings: CommissioningReadings | None = None) -> ParameterEstimate:
-    """Constrained least squares: the data weigh 10 times the priors per residual."""
-    readings = readings or CommissioningReadings()
-    z_base = plate.voltage_v / plate.full_load_current_a
-
-    def residuals(theta):
-        return np.concatenate(
-            [
-                10.0 * _data_residuals(theta, plate, readings),
-                _balance_residual(theta, plate, readings),
-                _prior_residuals(theta),
-            ]
-        )
-
-    # Several starts: the problem has local minima (one with the backward field
-    # larger than the forward one); the lowest cost wins.
-    best = None
-    starts = itertools.product((1.1, 1.4, 1.8), (0.05, 0.12), (1.5, 4.0))
-    for turns_ratio, leakage, magnetising in starts:
-        theta0 = np.log([0.12 * z_base, leakage * z_base, 0.18 * z_base, magnetising * z_base, turns_ratio, 1.2])
-        bounds = (np.log(z_base) + np.log(1e-3), np.log(z_base) + np.log(100.0))
-        candidate = least_squares(
-            residuals,
-            theta0,
-            bounds=(
-                np.r_[np.full(4, bounds[0]), np.log(0.3), np.log(0.2)],
-                np.r_[np.full(4, bounds[1]), np.log(4.0), np.log(5.0)],
-            ),
-        )
-        if best is None or candidate.cost < best.cost:
-            best = candidate
-    solution = best
-    theta = solution.x
-    data_count = len(_data_residuals(theta, plate, readings))
-    data_jacobian = solution.jac[:data_count]
-    singular = np.linalg.svd(data_jacobian, compute_uv=False)
-    rank = int(np.sum(singular > 1e-3 * singular.max())) if singular.size else 0
-    circuit = _circuit(theta, plate)
-    fit_error = 100.0 * float(np.max(np.abs(_data_residuals(theta, plate, readings))))
-    return ParameterEstimate(
-        r1m=circuit.r1m.item(),
-        x1m=circuit.x1m.item(),
-        r1a=circuit.r1a.item(),
-        x1a=circuit.x1a.item(),
-        r2=circuit.r2.item(),
-        x2=circuit.x2.item(),
-        xm=circuit.xm.item(),
-        turns_ratio=circuit.turns_ratio.item(),
-        rotational_loss_w=circuit.rotational_loss_w.item(),
-        unique=rank == len(theta),
-        data_rank=rank,
-        fit_error_pct=fit_error,
-        balance_capacitance_uf=balance_capacitance_uf(circuit, _rated_slip(plate)),
-    )
+    """One design's estimate (see `estimate_designs`)."""
+    return estimate_designs([plate], [readings])[0]
 
 
-def balance_capacitance_uf(circuit: MotorCircuit, slip) -> float:
-    """Run capacitance that minimises the backward field at a given slip.
+def balance_capacitance_uf(circuit: MotorCircuit, slip) -> np.ndarray | float:
+    """Run capacitance that minimises the backward field at a given slip, for every motor at once.
 
     Cross-check against the nameplate microfarads: a design is normally balanced
     near its rated load, so a large mismatch says the estimate is off.
     """
-    grid = np.geomspace(0.5, 200.0, 400)
-    run = two_winding_running(circuit, grid, slip)
-    coarse = grid[int(np.argmin(run.backward_ratio))]
-    fine = np.linspace(coarse * 0.97, coarse * 1.03, 121)
-    run = two_winding_running(circuit, fine, slip)
-    return float(fine[int(np.argmin(run.backward_ratio))])
+    scalar = np.ndim(circuit.r1m) == 0
+    column = MotorCircuit.from_arrays(
+        **{f.name: np.reshape(getattr(circuit, f.name), (-1, 1)) for f in fields(circuit)}
+    )
+    slip = np.atleast_1d(np.asarray(slip, float))[:, None]
+    grid = np.geomspace(0.5, 200.0, 400)[None, :]
+    run = two_winding_running(column, grid, slip)
+    coarse = grid[0, np.argmin(run.backward_ratio, axis=1)][:, None]
+    fine = coarse * np.linspace(0.97, 1.03, 121)[None, :]
+    run = two_winding_running(column, fine, slip)
+    best = fine[np.arange(len(fine)), np.argmin(run.backward_ratio, axis=1)]
+    return float(best[0]) if scalar else best

@@ -154,11 +154,26 @@ def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
 
 
 def _as_objects(raw, n: int | None = None) -> pd.Series:
+    """Values as a Series: a text column (an import file's) stays text, anything else becomes objects."""
     if isinstance(raw, pd.Series):
-        return raw.reset_index(drop=True).astype(object)
+        raw = raw.reset_index(drop=True)
+        return raw if _is_text_column(raw) else raw.astype(object)
     if isinstance(raw, str) or not np.iterable(raw):
         raw = [raw] * (n or 1)
     return pd.Series(list(raw), dtype=object)
+
+
+def _is_text_column(series: pd.Series) -> bool:
+    """A column of text dtype: every cell is text (or missing), so no value needs a look of its own."""
+    return isinstance(series.dtype, pd.StringDtype)
+
+
+def _texts(raw, n: int | None, other: str) -> pd.Series:
+    """Text values; `other` in place of anything that is not text."""
+    series = _as_objects(raw, n)
+    if _is_text_column(series):
+        return series.fillna(other)
+    return series.map(lambda v: v if isinstance(v, str) else other).astype(object)
 
 
 def _number_or_code(value):
@@ -184,24 +199,34 @@ def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
     series = _as_objects(raw)
     values = np.full(len(series), np.nan)
     messages = np.full(len(series), "", dtype=object)
-    is_text = series.map(lambda v: isinstance(v, str)).to_numpy(bool)
+    if _is_text_column(series):
+        is_text = series.notna().to_numpy(bool)
+    else:
+        is_text = series.map(lambda v: isinstance(v, str)).to_numpy(bool)
     if is_text.any():
-        text = series[is_text].astype(str).str.strip()
-        ok = text.str.fullmatch(NUMBER_TEXT.pattern)
-        parsed = pd.to_numeric(text.where(ok, "").str.replace(",", ".", regex=False), errors="coerce").to_numpy(float)
-        empty = text.eq("").to_numpy()
-        ok = ok.to_numpy(bool)
-        lowered = text.str.lower()
-        why = np.where(
-            lowered.isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
-            MSG_NOT_FINITE,
-            np.where(
-                text.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(), MSG_SEPARATORS, MSG_NOT_A_NUMBER
-            ),
-        )
-        finite = ok & np.isfinite(parsed)
-        values[is_text] = np.where(finite, parsed, np.nan)
-        messages[is_text] = np.where(finite | empty, "", why)
+        text = (series if is_text.all() else series[is_text]).astype(str).str.strip()
+        filled = text.ne("").to_numpy(bool)
+        numbers = np.full(len(text), np.nan)
+        why_not = np.full(len(text), "", dtype=object)
+        if filled.any():  # empty text is missing: only the filled cells are parsed
+            given = text if filled.all() else text[filled]
+            ok = given.str.fullmatch(NUMBER_TEXT.pattern)
+            parsed = pd.to_numeric(given.where(ok, "").str.replace(",", ".", regex=False), errors="coerce").to_numpy(
+                float
+            )
+            ok = ok.to_numpy(bool)
+            why = np.where(
+                given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
+                MSG_NOT_FINITE,
+                np.where(
+                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(), MSG_SEPARATORS, MSG_NOT_A_NUMBER
+                ),
+            )
+            finite = ok & np.isfinite(parsed)
+            numbers[filled] = np.where(finite, parsed, np.nan)
+            why_not[filled] = np.where(finite, "", why)
+        values[is_text] = numbers
+        messages[is_text] = why_not
     if (~is_text).any():
         pairs = [_number_or_code(v) for v in series[~is_text]]
         values[~is_text] = [p[0] for p in pairs]
@@ -318,11 +343,11 @@ def _check_readings(
         errors.add(name, why != "", why)
         values[name] = number
 
-    method = _as_objects(method, n).map(lambda v: v if isinstance(v, str) else "").str.strip().str.lower()
+    method = _texts(method, n, "").str.strip().str.lower()
     method = method.where(method != "", METHOD_METER).to_numpy(object)
     errors.add("method", ~np.isin(method, METHODS), "must be meter or in_circuit")
     if condition is not None:
-        text = _as_objects(condition, n).map(lambda v: v if isinstance(v, str) else "?").str.strip().str.lower()
+        text = _texts(condition, n, "?").str.strip().str.lower()
         text = text.where(text != "", CONDITION_SOUND).to_numpy(object)
         errors.add("condition", ~np.isin(text, CONDITIONS), f"must be {', '.join(CONDITIONS[:-1])} or {CONDITIONS[-1]}")
         values["condition"] = text
@@ -396,7 +421,7 @@ def _check_readings(
     _check_dates(errors, n, taken_at, fitted_on, removed_on, now, rules)
     if notes is not None:
         _check_notes(errors, n, notes, rules)
-        values["notes"] = _as_objects(notes, n).map(lambda v: v.strip() if isinstance(v, str) else "").to_numpy(object)
+        values["notes"] = _texts(notes, n, "").str.strip().to_numpy(object)
 
     if predicted_uf is not None:
         drift = off_trend(values["capacitance_uf"], _column(predicted_uf, n), rated, rules.off_trend_fraction)
@@ -433,8 +458,11 @@ def _check_dates(errors: _Collector, n, taken_at, fitted_on, removed_on, now, ru
 
 def _check_notes(errors: _Collector, n, notes, rules: ReadingRules) -> None:
     series = _as_objects(notes, n)
-    is_text = series.map(lambda v: v is None or isinstance(v, str)).to_numpy(bool)
-    text = series.map(lambda v: v if isinstance(v, str) else "")
+    if _is_text_column(series):
+        is_text = np.ones(len(series), bool)
+    else:
+        is_text = series.map(lambda v: v is None or isinstance(v, str)).to_numpy(bool)
+    text = _texts(series, n, "")
     errors.add("notes", ~is_text, "must be text")
     length = text.str.len().to_numpy()
     too_long = length > rules.notes_max_chars

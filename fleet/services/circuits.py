@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from fleet.engineering.nameplate import CommissioningReadings, Nameplate, ParameterEstimate, estimate_parameters
+import numpy as np
+
+from fleet.engineering.nameplate import CommissioningReadings, Nameplate, ParameterEstimate, estimate_designs
 from fleet.models import FittedCapacitor, Motor, Reading
 
 from .selectors import CIRCUIT_FIELDS
@@ -43,13 +45,13 @@ def estimate_circuits(motor_ids=None) -> int:
     """
     motors = Motor.objects.filter(r1m_ohm__isnull=True)
     if motor_ids is not None:
-        motors = motors.filter(id__in=list(motor_ids))
+        motors = motors.filter(id__any_of=np.asarray(list(motor_ids), np.int64))
     rows = list(motors.values_list("id", *NAMEPLATE_FIELDS))
     if not rows:
         return 0
     ratings = {}
     for motor_id, role, rated_uf in FittedCapacitor.objects.filter(
-        motor_id__in=[r[0] for r in rows], removed_on__isnull=True
+        motor_id__any_of=np.array([r[0] for r in rows], np.int64), removed_on__isnull=True
     ).values_list("motor_id", "role", "part__rated_uf"):
         ratings.setdefault(motor_id, {})[role] = rated_uf
     by_design: dict[tuple, list[int]] = {}
@@ -58,10 +60,12 @@ def estimate_circuits(motor_ids=None) -> int:
         by_design.setdefault(
             (*plate, rating.get(FittedCapacitor.Role.RUN, 0.0), rating.get(FittedCapacitor.Role.START, 0.0)), []
         ).append(motor_id)
-    updated = []
-    for (volts, hertz, poles, output, current, speed, kind, run_uf, start_uf), ids in by_design.items():
-        estimate = estimate_parameters(Nameplate(volts, hertz, poles, output, current, speed, kind, run_uf, start_uf))
-        updated.append(Motor.objects.filter(id__in=ids).update(**circuit_fields(estimate)))
+    designs = list(by_design)
+    estimates = estimate_designs([Nameplate(*design) for design in designs])
+    updated = [
+        Motor.objects.filter(id__in=by_design[design]).update(**circuit_fields(estimate))
+        for design, estimate in zip(designs, estimates, strict=True)
+    ]
     return sum(updated)
 
 
@@ -69,7 +73,7 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
     """Refine motors' circuits from their earliest run-capacitor reading that has both
     winding currents (commissioning data, taken at normal running load).
 
-    One solve per such motor (each has its own data); the estimate must reproduce
+    One problem per such motor (each has its own data), all solved together; the estimate must reproduce
     the nameplate and the currents within `max_error_pct`, otherwise the motor
     keeps its nameplate estimate. Circuits entered by hand are never touched.
     """
@@ -93,10 +97,9 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
             motor_id__in=first, role=FittedCapacitor.Role.START, removed_on__isnull=True
         ).values_list("motor_id", "part__rated_uf")
     )
-    fitted, kept = [], 0
-    for motor in Motor.objects.filter(id__in=first):
-        capacitance_uf, main_a, aux_a = first[motor.id]
-        plate = Nameplate(
+    motors = list(Motor.objects.filter(id__in=first))
+    plates = [
+        Nameplate(
             motor.rated_voltage_v,
             motor.frequency_hz,
             motor.poles,
@@ -104,10 +107,14 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
             motor.full_load_current_a,
             motor.rated_speed_rpm,
             motor.motor_type,
-            capacitance_uf,
+            first[motor.id][0],
             starts.get(motor.id, 0.0),
         )
-        estimate = estimate_parameters(plate, CommissioningReadings(main_current_a=main_a, aux_current_a=aux_a))
+        for motor in motors
+    ]
+    readings = [CommissioningReadings(main_current_a=first[m.id][1], aux_current_a=first[m.id][2]) for m in motors]
+    fitted, kept = [], 0
+    for motor, estimate in zip(motors, estimate_designs(plates, readings), strict=True):
         if estimate.fit_error_pct > max_error_pct:
             kept += 1
             continue
