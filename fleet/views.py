@@ -16,7 +16,6 @@ from django.http import Http404, HttpResponse, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.utils import timezone
-from django.views.decorators.cache import cache_control
 from django.views.decorators.http import require_POST
 
 from .charts import cost_curve_figure, weibull_plot_figure
@@ -355,13 +354,6 @@ def refit_start(request):
     else:
         messages.success(request, "Fleet refit queued. Progress shows below.")
     return redirect("refits")
-
-
-@cache_control(max_age=86400, public=True)
-def plotly_js(request):
-    from plotly.offline import get_plotlyjs
-
-    return HttpResponse(get_plotlyjs(), content_type="application/javascript")
 
 
 IMPORT_PERMISSION = {
