@@ -14,7 +14,7 @@ from django.core.exceptions import ValidationError
 from django.core.validators import RegexValidator
 from django.db import models
 from django.db.models import F, Q
-from django.db.models.functions import Length
+from django.db.models.functions import Length, Upper
 from django.db.models.lookups import LessThanOrEqual
 from django.utils import timezone
 
@@ -159,9 +159,22 @@ class Motor(models.Model):
     circuit_source = models.CharField(
         max_length=20, blank=True, help_text="entered, estimated (nameplate only) or fitted (with readings)"
     )
+    last_read_at = models.DateTimeField(
+        null=True,
+        blank=True,
+        editable=False,
+        help_text="Newest reading of a capacitor while in service; kept by a database trigger on readings",
+    )
 
     class Meta:
         ordering = ["site__code", "route_order", "asset_tag"]
+        # Route and label pages: a site's motors in walking order, a page at a time.
+        indexes = [
+            models.Index(fields=["site", "route_order", "asset_tag"], name="motor_walking_order"),
+            models.Index(fields=["site", "status", "last_read_at"], name="motor_last_read"),
+            # Finding a motor by its tag in any case (the motor page, Find).
+            models.Index(Upper("asset_tag"), name="motor_tag_any_case"),
+        ]
         constraints = [
             models.CheckConstraint(
                 condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000), name="motor_voltage_range"
@@ -446,10 +459,17 @@ class Reading(models.Model):
                 violation_error_message=f"Notes take at most {NOTES_MAX_CHARS} characters.",
             ),
         ]
-        indexes = [models.Index(fields=["installation", "taken_at"])]
+        indexes = [
+            models.Index(fields=["installation", "taken_at"]),
+            # The refits page counts stale capacitors among the readings saved since the last fleet refit.
+            models.Index(fields=["created_at"], name="reading_by_created_at"),
+        ]
 
     def __str__(self):
         return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} uF"
+
+
+IN_SERVICE = Q(is_current=True, capacitor_in_service=True)  # an assessment the plans and lists show
 
 
 class Assessment(models.Model):
@@ -491,6 +511,21 @@ class Assessment(models.Model):
     trend = models.JSONField(
         default=dict, blank=True, help_text="Fitted path: model, coefficients, covariance, stress hours per reading"
     )
+    capacitor_in_service = models.BooleanField(
+        default=True,
+        db_default=True,
+        editable=False,
+        help_text="Its capacitor has no removal date: kept by database triggers, so lists need no join",
+    )
+    risk_was = models.CharField(
+        max_length=20,
+        blank=True,
+        db_default="",
+        help_text="The risk level before its latest change; empty if it never changed",
+    )
+    risk_changed_at = models.DateTimeField(
+        null=True, blank=True, help_text="When the risk level took its present value (carried over by later refits)"
+    )
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -500,7 +535,15 @@ class Assessment(models.Model):
                 fields=["installation"], condition=Q(is_current=True), name="one_current_assessment"
             ),
         ]
-        indexes = [models.Index(fields=["is_current", "risk", "replace_by"])]
+        indexes = [
+            models.Index(fields=["is_current", "risk", "replace_by"]),
+            # The plan and the API: current assessments soonest first, read a page at a time.
+            models.Index(fields=["replace_by", "installation"], condition=IN_SERVICE, name="in_service_by_replace_by"),
+            # Risk counts on the home page and the plan, read from the index alone.
+            models.Index(fields=["risk"], condition=IN_SERVICE, name="in_service_by_risk"),
+            # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
+            models.Index(fields=["risk_changed_at"], condition=IN_SERVICE, name="in_service_by_risk_change"),
+        ]
 
     def __str__(self):
         return f"{self.installation} {self.risk}"
@@ -568,6 +611,12 @@ class WorkOrder(models.Model):
                 name="closed_orders_have_close_time",
             ),
         ]
+        # The work-orders page: open orders by visit day, a page of visits at a time.
+        indexes = [
+            models.Index(
+                fields=["due_on", "motor"], condition=Q(state__in=["planned", "issued"]), name="open_orders_by_day"
+            )
+        ]
 
     def __str__(self):
         return f"{self.get_kind_display()} {self.motor.asset_tag} by {self.due_on}"
@@ -601,6 +650,7 @@ class RefitRun(models.Model):
 
     class Meta:
         ordering = ["-started_at"]
+        indexes = [models.Index(fields=["-started_at"], name="refit_run_newest_first")]
 
     def __str__(self):
         return f"{self.kind} refit {self.started_at:%Y-%m-%d %H:%M} ({self.state})"

@@ -536,9 +536,27 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     )
     rows = _assessment_rows(result, readings, max_reading_id, now.date())
     with transaction.atomic():
+        _carry_risk_history(rows, now)
         Assessment.objects.filter(installation_id__in=inst.index.tolist(), is_current=True).update(is_current=False)
         Assessment.objects.bulk_create(rows)
     return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
+
+
+def _carry_risk_history(rows: list[Assessment], now: dt.datetime) -> None:
+    """Each new assessment keeps when its risk level took its present value and what it was
+    before (one query), so the plan lists recent changes without comparing assessment histories."""
+    before = {
+        installation_id: (risk, risk_was, changed_at)
+        for installation_id, risk, risk_was, changed_at in Assessment.objects.filter(
+            installation_id__in=[row.installation_id for row in rows], is_current=True
+        ).values_list("installation_id", "risk", "risk_was", "risk_changed_at")
+    }
+    for row in rows:
+        risk, risk_was, changed_at = before.get(row.installation_id, ("", "", None))
+        if risk == row.risk:
+            row.risk_was, row.risk_changed_at = risk_was, changed_at or now
+        else:
+            row.risk_was, row.risk_changed_at = risk, now
 
 
 def _finite_or_none(value):
