@@ -123,7 +123,8 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
     read_since = timezone.make_aware(dt.datetime.combine(start, dt.time.min))
     motors = Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
     due = Q(last_read_at__isnull=True) | Q(last_read_at__lt=read_since)
-    counts = motors.aggregate(total=Count("*"), due=Count("*", filter=due))
+    # site_id: a column of the motor_last_read index, never null, so both counts read the index alone.
+    counts = motors.aggregate(total=Count("site"), due=Count("site", filter=due))
     listed = (motors.filter(due) if only_due else motors).annotate(due=ExpressionWrapper(due, BooleanField()))
     return listed.order_by("route_order", "asset_tag"), counts, start
 
