@@ -16,6 +16,7 @@ from rest_framework.response import Response
 from .filters import AssessmentFilter
 from .models import Assessment, FittedCapacitor, Reading
 from .roles import scope_to_user
+from .services.pages import in_service_assessments
 from .services.readings import NeedsConfirmation, record_reading
 from .services.substitutes import substitutes_for
 
@@ -125,11 +126,10 @@ class AssessmentList(generics.ListAPIView):
     filterset_class = AssessmentFilter
 
     def get_queryset(self):
-        return scope_to_user(
-            Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
+        return (
+            in_service_assessments(self.request.user)
             .select_related("installation__motor__site", "installation__part")
-            .order_by(F("replace_by").asc(nulls_last=True), "installation_id"),
-            self.request.user,
+            .order_by(F("replace_by").asc(nulls_last=True), "installation_id")
         )
 
 

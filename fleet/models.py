@@ -14,7 +14,7 @@ from django.core.exceptions import ValidationError
 from django.core.validators import RegexValidator
 from django.db import models
 from django.db.models import F, Q
-from django.db.models.functions import Length
+from django.db.models.functions import Length, Upper
 from django.db.models.lookups import LessThanOrEqual
 from django.utils import timezone
 
@@ -173,9 +173,22 @@ class Motor(models.Model):
     circuit_source = models.CharField(
         max_length=20, blank=True, help_text="entered, estimated (nameplate only) or fitted (with readings)"
     )
+    last_read_at = models.DateTimeField(
+        null=True,
+        blank=True,
+        editable=False,
+        help_text="Newest reading of a capacitor while in service; kept by a database trigger on readings",
+    )
 
     class Meta:
         ordering = ["site__code", "route_order", "asset_tag"]
+        # Route and label pages: a site's motors in walking order, a page at a time.
+        indexes = [
+            models.Index(fields=["site", "route_order", "asset_tag"], name="motor_walking_order"),
+            models.Index(fields=["site", "status", "last_read_at"], name="motor_last_read"),
+            # Finding a motor by its tag in any case (the motor page, Find).
+            models.Index(Upper("asset_tag"), name="motor_tag_any_case"),
+        ]
         constraints = [
             models.CheckConstraint(
                 condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000), name="motor_voltage_range"
@@ -460,7 +473,11 @@ class Reading(models.Model):
                 violation_error_message=f"Notes take at most {NOTES_MAX_CHARS} characters.",
             ),
         ]
-        indexes = [models.Index(fields=["installation", "taken_at"])]
+        indexes = [
+            models.Index(fields=["installation", "taken_at"]),
+            # The refits page counts stale capacitors among the readings saved since the last fleet refit.
+            models.Index(fields=["created_at"], name="reading_by_created_at"),
+        ]
 
     def __str__(self):
         return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} uF"
@@ -478,6 +495,9 @@ class TrendModel(models.TextChoices):
 
     LINEAR = MODEL_LINEAR, "Linear"
     LOG_LINEAR = MODEL_LOG, "Log-linear"
+
+
+IN_SERVICE = Q(is_current=True, capacitor_in_service=True)  # an assessment the plans and lists show
 
 
 class Assessment(models.Model):
@@ -540,6 +560,21 @@ class Assessment(models.Model):
     stress_hours_now = models.FloatField(null=True, blank=True, help_text="Stress hours at the newest reading")
     stress_rate = models.FloatField(null=True, blank=True, help_text="Stress hours per calendar hour, long run")
     tempco_ppm_per_k = models.FloatField(null=True, blank=True, help_text="Temperature coefficient used, ppm/K")
+    capacitor_in_service = models.BooleanField(
+        default=True,
+        db_default=True,
+        editable=False,
+        help_text="Its capacitor has no removal date: kept by database triggers, so lists need no join",
+    )
+    risk_was = models.CharField(
+        max_length=20,
+        blank=True,
+        db_default="",
+        help_text="The risk level before its latest change; empty if it never changed",
+    )
+    risk_changed_at = models.DateTimeField(
+        null=True, blank=True, help_text="When the risk level took its present value (carried over by later refits)"
+    )
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -549,7 +584,15 @@ class Assessment(models.Model):
                 fields=["installation"], condition=Q(is_current=True), name="one_current_assessment"
             ),
         ]
-        indexes = [models.Index(fields=["is_current", "risk", "replace_by"])]
+        indexes = [
+            models.Index(fields=["is_current", "risk", "replace_by"]),
+            # The plan and the API: current assessments soonest first, read a page at a time.
+            models.Index(fields=["replace_by", "installation"], condition=IN_SERVICE, name="in_service_by_replace_by"),
+            # Risk counts on the home page and the plan, read from the index alone.
+            models.Index(fields=["risk"], condition=IN_SERVICE, name="in_service_by_risk"),
+            # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
+            models.Index(fields=["risk_changed_at"], condition=IN_SERVICE, name="in_service_by_risk_change"),
+        ]
 
     def __str__(self):
         return f"{self.installation} {self.risk}"
@@ -621,6 +664,12 @@ class WorkOrder(models.Model):
                 name="closed_orders_have_close_time",
             ),
         ]
+        # The work-orders page: open orders by visit day, a page of visits at a time.
+        indexes = [
+            models.Index(
+                fields=["due_on", "motor"], condition=Q(state__in=["planned", "issued"]), name="open_orders_by_day"
+            )
+        ]
 
     def __str__(self):
         return f"{self.get_kind_display()} {self.motor.asset_tag} by {self.due_on}"
@@ -654,6 +703,7 @@ class RefitRun(models.Model):
 
     class Meta:
         ordering = ["-started_at"]
+        indexes = [models.Index(fields=["-started_at"], name="refit_run_newest_first")]
 
     def __str__(self):
         return f"{self.kind} refit {self.started_at:%Y-%m-%d %H:%M} ({self.state})"

@@ -58,6 +58,5 @@ urlpatterns = [
     path("imports/", views.imports_home, name="imports"),
     path("imports/<int:job_id>/", views.import_detail, name="import_detail"),
     path("imports/<int:job_id>/rows-to-fix.csv", views.import_rejected, name="import_rejected"),
-    path("assets/plotly.js", views.plotly_js, name="plotly_js"),
     *api_patterns,
 ]

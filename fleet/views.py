@@ -16,7 +16,6 @@ from django.http import Http404, HttpResponse, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.utils import timezone
-from django.views.decorators.cache import cache_control
 from django.views.decorators.http import require_POST
 
 from .charts import cost_curve_figure, weibull_plot_figure
@@ -40,10 +39,10 @@ from .services.import_jobs import (
 )
 from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, reading_to_correct, record_reading, replace_capacitor
-from .services.refits import queue_fleet_refit, recent_runs, stale_installations
+from .services.refits import queue_fleet_refit, recent_runs, stale_count
 from .services.register import set_route_order, set_site_stock
 from .services.substitutes import part_families, substitutes_for
-from .services.workorders import issue_visit, open_visits, plan_work_orders
+from .services.workorders import issue_visit, open_visits, open_visits_page, plan_work_orders
 from .tasks import QueueUnreachable
 
 
@@ -242,6 +241,10 @@ def replace(request, installation_id):
     return render(request, "fleet/replace.html", context)
 
 
+ROUTE_PAGE_SIZE = 100  # motors a route page lists
+LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
+
+
 @permission_required("fleet.view_motor", raise_exception=True)
 def site_route(request, site_code):
     site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
@@ -260,17 +263,16 @@ def site_route(request, site_code):
             order_errors = error.message_dict
         else:
             messages.success(request, "Walking order saved.")
-            return redirect("route", site_code=site.code)
-    rows, quarter_start = pages.route_for_site(site)
-    due = sum(1 for row in rows if row["due"])
+            return redirect(f"{reverse('route', args=[site.code])}?{request.GET.urlencode()}")
     only_due = request.GET.get("show") == "due"
+    motors, counts, quarter_start = pages.route_for_site(site, only_due=only_due)
     context = {
         "site": site,
-        "rows": [row for row in rows if row["due"]] if only_due else rows,
-        "total": len(rows),
+        "page": Paginator(motors, ROUTE_PAGE_SIZE).get_page(request.GET.get("page")),
+        "total": counts["total"],
+        "due": counts["due"],
         "only_due": only_due,
         "quarter_start": quarter_start,
-        "due": due,
         "order_errors": order_errors,
     }
     return render(request, "fleet/route.html", context)
@@ -290,8 +292,9 @@ def labels(request, site_code):
     tag = request.GET.get("tag")
     if tag:
         motors = motors.filter(asset_tag=tag)
-    labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in motors]
-    return render(request, "fleet/labels.html", {"site": site, "labels": labels_})
+    page = Paginator(motors, LABELS_PAGE_SIZE).get_page(request.GET.get("page"))
+    labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
+    return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page})
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)
@@ -326,7 +329,7 @@ def plan(request):
         "spares": pages.spares_needed(horizon, site, request.user),
         "risks": pages.risk_summary(request.user),
     }
-    context["worse"], context["better"], context["first_assessed"] = pages.risk_changes(days=7, user=request.user)
+    context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user)
     return render(request, "fleet/plan.html", context)
 
 
@@ -347,7 +350,7 @@ QUEUE_DOWN = (
 def refits(request):
     context = {
         "runs": recent_runs(10),
-        "stale": stale_installations().count(),
+        "stale": stale_count(),
         "abandoned_minutes": round(settings.FLEET_REFIT_ABANDONED_AFTER_S / 60),
     }
     return render(request, "fleet/refits.html", context)
@@ -363,13 +366,6 @@ def refit_start(request):
     else:
         messages.success(request, "Fleet refit queued. Progress shows below.")
     return redirect("refits")
-
-
-@cache_control(max_age=86400, public=True)
-def plotly_js(request):
-    from plotly.offline import get_plotlyjs
-
-    return HttpResponse(get_plotlyjs(), content_type="application/javascript")
 
 
 IMPORT_PERMISSION = {
@@ -519,7 +515,8 @@ def work_orders(request):
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
-    return render(request, "fleet/work_orders.html", {"visits": open_visits(user=request.user)})
+    page = open_visits_page(request.GET.get("page"), user=request.user)
+    return render(request, "fleet/work_orders.html", {"page": page, "visits": page.object_list})
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)

@@ -264,7 +264,7 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
 
 
 def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
-    from fleet.services.workorders import issue_visit, open_visits, plan_work_orders
+    from fleet.services.workorders import issue_visit, open_visits_page, plan_work_orders
 
     installations = ageing_fleet(count=4)
     refit_installations([i.id for i in installations])
@@ -277,26 +277,34 @@ def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
     assert all(o.due_on == replace_by[o.installation_id] for o in WorkOrder.objects.all())
     again = plan_work_orders(horizon_days=90, user=planner)
     assert again["created"] == 0 and again["replanned"] == 4 and WorkOrder.objects.count() == 4
-    first = open_visits()[0]
+    first = open_visits_page(1).object_list[0]
     assert issue_visit(site_id=first["site"].id, due_on=first["day"]) == 1
     assert plan_work_orders(horizon_days=90)["replanned"] == 3
 
 
-def test_risk_changes_compare_with_the_assessment_current_a_week_ago():
+def test_risk_changes_read_the_risk_history_each_refit_carries():
+    """[derived] A refit that moves the risk level records what it was and when it changed; one
+    that keeps it carries both over, so a nightly refit does not hide last week's change."""
     from fleet.services.pages import risk_changes
 
     installation = make_installation()
     quarterly_readings(installation, START, [4.0, 3.99, 3.98])
     refit_installations([installation.id])
-    assert risk_changes(days=7) == ([], [], 1)  # first assessed this week: counted apart
-    Assessment.objects.filter(installation=installation).update(created_at=timezone.now() - dt.timedelta(days=10))
-    assert risk_changes(days=7) == ([], [], 0)  # nothing assessed this week
+    first = Assessment.objects.get(installation=installation, is_current=True)
+    assert risk_changes(days=7)[1:] == ([], {"worse": 0, "better": 0, "first_assessed": 1})
+    Assessment.objects.filter(pk=first.pk).update(risk_changed_at=timezone.now() - dt.timedelta(days=10))
+    assert risk_changes(days=7)[2] == {"worse": 0, "better": 0, "first_assessed": 0}  # nothing moved this week
     quarterly_readings(installation, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
     refit_installations([installation.id])
-    worse, better, first = risk_changes(days=7)
-    assert first == 0
+    worse, better, counts = risk_changes(days=7)
+    assert counts == {"worse": 1, "better": 0, "first_assessed": 0} and better == []
     assert [a.installation_id for a in worse] == [installation.id]
-    assert worse[0].risk == "replace now" and worse[0].previous_risk != "replace now"
+    assert worse[0].risk == "replace now" and worse[0].risk_was == first.risk != "replace now"
+    quarterly_readings(installation, START + dt.timedelta(days=430), [3.69])  # still replace now
+    refit_installations([installation.id])
+    again = Assessment.objects.get(installation=installation, is_current=True)
+    assert again.pk != worse[0].pk
+    assert (again.risk_was, again.risk_changed_at) == (first.risk, worse[0].risk_changed_at)
 
 
 def test_a_reading_with_winding_currents_refines_the_motors_circuit():

@@ -92,3 +92,47 @@ def test_lock_file_pins_every_requirement_exactly():
                 assert package in locked, f"{package} of {name} is not in requirements.lock"
     compose = (ROOT / "docker-compose.yml").read_text()
     assert "-c requirements.lock" in compose and "-c requirements.lock" in (ROOT / ".ci" / "run").read_text()
+
+
+def test_plotly_is_a_static_file_served_by_whitenoise(client, django_user_model):
+    """The chart library comes from the static files (found in the plotly package), not from a view."""
+    from django.templatetags.static import static
+
+    from fleet.staticfiles import PLOTLY_DIRECTORY, PLOTLY_FILE, PLOTLY_STATIC_PATH
+
+    url = static(PLOTLY_STATIC_PATH)
+    response = client.get(url, HTTP_ACCEPT_ENCODING="gzip")
+    assert response.status_code == 200 and response["Content-Type"].startswith("text/javascript")
+    body = b"".join(response.streaming_content)
+    raw = (PLOTLY_DIRECTORY / PLOTLY_FILE).read_bytes()
+    assert body == raw or response.get("Content-Encoding") == "gzip"
+
+
+def test_collectstatic_hashes_and_compresses_plotly_for_a_long_cache(tmp_path):
+    """[trade] Production storage: a content-hashed name (so it can be cached for a year) with gzip and
+    brotli copies beside it; the brotli copy is what a phone downloads, well under the page budget."""
+    from django.core.management import call_command
+    from django.templatetags.static import static
+    from django.test import override_settings
+
+    from fleet.staticfiles import PLOTLY_STATIC_PATH
+
+    storage = {
+        "default": {"BACKEND": "django.core.files.storage.FileSystemStorage"},
+        "staticfiles": {"BACKEND": "whitenoise.storage.CompressedManifestStaticFilesStorage"},
+    }
+    with override_settings(
+        STATIC_ROOT=tmp_path, STORAGES=storage, STATICFILES_FINDERS=["fleet.staticfiles.PlotlyFinder"]
+    ):
+        call_command("collectstatic", interactive=False, verbosity=0)
+        url = static(PLOTLY_STATIC_PATH)
+    hashed = tmp_path / url.removeprefix("/static/")
+    assert (
+        url.startswith("/static/plotly/plotly.min.") and url.endswith(".js") and url != f"/static/{PLOTLY_STATIC_PATH}"
+    )
+    raw = hashed.read_bytes()
+    assert len(raw) > 3_000_000
+    brotli_size = hashed.with_name(hashed.name + ".br").stat().st_size
+    gzip_size = hashed.with_name(hashed.name + ".gz").stat().st_size
+    assert brotli_size < gzip_size < len(raw) / 3
+    assert brotli_size < 1_250_000

@@ -71,11 +71,9 @@ def test_plan_page_lists_spares_risks_and_sites_of_the_users_sites_only(client, 
 
 
 def test_the_plans_risk_changes_list_the_users_sites_only(client, here_and_there):
-    for installation in here_and_there.values():  # a week and more ago each was sound
-        earlier = Assessment.objects.get(installation=installation, is_current=True)
-        earlier.pk, earlier.is_current, earlier.risk = None, False, "sound"
-        earlier.save()
-        Assessment.objects.filter(pk=earlier.pk).update(created_at=timezone.now() - dt.timedelta(days=30))
+    for installation in here_and_there.values():  # each was sound, then a refit found it worn
+        Assessment.objects.filter(installation=installation, is_current=True).update(risk="sound")
+        refit_installations([installation.id], force=True)
     mine = here_and_there["HERE"]
     client.force_login(limited(PLANNER, mine.motor.site))
     worse = client.get(reverse("plan"), {"days": 7}).context["worse"]

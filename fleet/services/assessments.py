@@ -581,9 +581,28 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
     )
     rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():
+        _carry_risk_history(rows, now)
         Assessment.objects.filter(installation_id__in=id_in(inst.index), is_current=True).update(is_current=False)
         insert_frame(Assessment, rows)
     return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
+
+
+def _carry_risk_history(rows: pd.DataFrame, now: dt.datetime) -> None:
+    """Each new assessment keeps when its risk level took its present value and what it was
+    before (one query), so the plan lists recent changes without comparing assessment histories."""
+    before = pd.DataFrame(
+        Assessment.objects.filter(installation_id__in=id_in(rows["installation_id"]), is_current=True).values_list(
+            "installation_id", "risk", "risk_was", "risk_changed_at"
+        ),
+        columns=["installation_id", "risk", "risk_was", "risk_changed_at"],
+    ).set_index("installation_id")
+    before = before.reindex(rows["installation_id"].to_numpy())
+    same = before["risk"].to_numpy(object) == rows["risk"].to_numpy(object)
+    changed_at = before["risk_changed_at"].astype(object).where(before["risk_changed_at"].notna(), now).to_numpy(object)
+    rows["risk_was"] = np.where(
+        same, before["risk_was"].fillna("").to_numpy(object), before["risk"].fillna("").to_numpy(object)
+    )
+    rows["risk_changed_at"] = np.where(same, changed_at, now)
 
 
 def _iso_dates(offset_days, today: dt.date) -> np.ndarray:

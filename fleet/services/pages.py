@@ -6,7 +6,18 @@ import datetime as dt
 
 import numpy as np
 import pandas as pd
-from django.db.models import Count, F, Max, OuterRef, Prefetch, Q, Subquery, Sum
+from django.db.models import (
+    BooleanField,
+    Case,
+    Count,
+    ExpressionWrapper,
+    F,
+    Prefetch,
+    Q,
+    Sum,
+    Value,
+    When,
+)
 from django.utils import timezone
 
 from fleet.charts import trend_figure
@@ -24,6 +35,12 @@ RECENT_READINGS = 6
 def current_assessments(user=None):
     """Current assessments of the capacitors at the user's sites (None: every site)."""
     return scope_to_user(Assessment.objects.filter(is_current=True), user)
+
+
+def in_service_assessments(user=None):
+    """Current assessments of the capacitors in service at the user's sites: what plans and lists show.
+    One table, no join (the in-service flag is kept on the assessment by database triggers)."""
+    return current_assessments(user).filter(capacitor_in_service=True)
 
 
 def motor_with_capacitors(asset_tag: str):
@@ -120,32 +137,22 @@ def quarter_start(day: dt.date) -> dt.date:
     return dt.date(day.year, 3 * ((day.month - 1) // 3) + 1, 1)
 
 
-def route_for_site(site: Site, today: dt.date | None = None):
-    """The site's motors in walking order, each marked due if not read this quarter."""
-    today = today or timezone.localdate()
-    start = quarter_start(today)
-    motors = (
-        Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
-        .annotate(
-            last_read=Max("capacitors__readings__taken_at", filter=Q(capacitors__removed_on__isnull=True)),
-            capacitors_in_service=Count("capacitors", filter=Q(capacitors__removed_on__isnull=True), distinct=True),
-        )
-        .order_by("route_order", "asset_tag")
-    )
-    rows = []
-    for motor in motors:
-        due = motor.last_read is None or timezone.localdate(motor.last_read) < start
-        rows.append({"motor": motor, "due": due})
-    return rows, start
+def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None = None):
+    """The site's motors in service in walking order (a queryset to read a page at a time), each
+    with `due` when none of its capacitors in service was read this quarter, from the stored
+    `last_read_at`; with the counts of all and of the due motors (one aggregate) and the quarter's start."""
+    start = quarter_start(today or timezone.localdate())
+    read_since = timezone.make_aware(dt.datetime.combine(start, dt.time.min))
+    motors = Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
+    due = Q(last_read_at__isnull=True) | Q(last_read_at__lt=read_since)
+    # site_id: a column of the motor_last_read index, never null, so both counts read the index alone.
+    counts = motors.aggregate(total=Count("site"), due=Count("site", filter=due))
+    listed = (motors.filter(due) if only_due else motors).annotate(due=ExpressionWrapper(due, BooleanField()))
+    return listed.order_by("route_order", "asset_tag"), counts, start
 
 
 def risk_summary(user=None):
-    counts = dict(
-        current_assessments(user)
-        .filter(installation__removed_on__isnull=True)
-        .values_list("risk")
-        .annotate(n=Count("id"))
-    )
+    counts = dict(in_service_assessments(user).values_list("risk").annotate(n=Count("*")))
     return [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
 
 
@@ -154,8 +161,8 @@ def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None
     with the newest assessment's figures; one query."""
     until = timezone.localdate() + dt.timedelta(days=horizon_days)
     queryset = (
-        current_assessments(user)
-        .filter(installation__removed_on__isnull=True, replace_by__lte=until)
+        in_service_assessments(user)
+        .filter(replace_by__lte=until)
         .select_related("installation__motor__site", "installation__part")
         .order_by("replace_by", "installation__motor__site__code", "installation__motor__route_order")
     )
@@ -175,7 +182,7 @@ def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None):
             "installation__part__rated_voltage_v",
             "installation__part__dielectric",
         )
-        .annotate(quantity=Count("id"), cost=Sum("installation__part__unit_cost"))
+        .annotate(quantity=Count("*"), cost=Sum("installation__part__unit_cost"))  # COUNT(*): no assessment row read
         .order_by("installation__part__code")
     )
 
@@ -185,30 +192,25 @@ def latest_refit_run():
 
 
 def risk_changes(days: int = 7, limit: int = 50, user=None):
-    """Capacitors whose risk level moved in the last `days`, against the assessment
-    that was current then: (worse, better, first_assessed_count).
+    """Capacitors in service whose risk level changed in the last `days`, read from each current
+    assessment's stored risk history: (worse, better, counts) with at most `limit` of each, soonest
+    replacement first, and counts {"worse", "better", "first_assessed"} of all of them.
 
-    Capacitors first assessed in the window have nothing to compare with; they are
-    counted apart (SQL's NULL <> risk would silently drop them otherwise).
+    A capacitor first assessed in the window has no level to compare with: it is counted apart.
     """
     since = timezone.now() - dt.timedelta(days=days)
-    before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
-        "-created_at"
+    recent = in_service_assessments(user).filter(risk_changed_at__gte=since)
+    rank = {risk: position for position, risk in enumerate(RISK_ORDER)}
+    rank_now = Case(*[When(risk=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
+    rank_was = Case(*[When(risk_was=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
+    ranked = recent.annotate(rank_now=rank_now, rank_was=rank_was)
+    counts = ranked.aggregate(
+        worse=Count("id", filter=~Q(risk_was="") & Q(rank_now__lt=F("rank_was"))),
+        better=Count("id", filter=~Q(risk_was="") & Q(rank_now__gt=F("rank_was"))),
+        first_assessed=Count("id", filter=Q(risk_was="")),
     )
-    recent = (
-        current_assessments(user)
-        .filter(installation__removed_on__isnull=True, created_at__gte=since)
-        .annotate(previous_risk=Subquery(before.values("risk")[:1]))
-    )
-    first_assessed = recent.filter(previous_risk__isnull=True).count()
-    changed = (
-        recent.filter(previous_risk__isnull=False)
-        .exclude(previous_risk=F("risk"))
-        .select_related("installation__motor__site", "installation__part")
-    )
-    severity = {risk: rank for rank, risk in enumerate(RISK_ORDER)}
-    worse, better = [], []
-    for assessment in changed.order_by("replace_by")[: 4 * limit]:
-        was = severity.get(assessment.previous_risk, len(RISK_ORDER))
-        (worse if severity[assessment.risk] < was else better).append(assessment)
-    return worse[:limit], better[:limit], first_assessed
+    listed = ranked.exclude(risk_was="").select_related("installation__motor__site", "installation__part")
+    listed = listed.order_by("replace_by", "installation_id")
+    worse = list(listed.filter(rank_now__lt=F("rank_was"))[:limit])
+    better = list(listed.filter(rank_now__gt=F("rank_was"))[:limit])
+    return worse, better, counts

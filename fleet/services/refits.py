@@ -156,6 +156,27 @@ def stale_installations():
     )
 
 
+def stale_count() -> int:
+    """How many capacitors in service have readings newer than their assessment, for the refits page.
+
+    A fleet refit that finished covered every reading saved before it began, so only the
+    capacitors read since then (less an hour, for a transaction still open at its start) are
+    looked at, through the readings' index on when they were saved: a count that does not read
+    the whole fleet. Without a finished fleet refit, every capacitor is looked at.
+    """
+    finished = (
+        RefitRun.objects.filter(kind="fleet", state=RefitRun.State.DONE)
+        .order_by("-started_at")
+        .values_list("started_at", flat=True)
+        .first()
+    )
+    stale = stale_installations()
+    if finished is not None:
+        read_since = Reading.objects.filter(created_at__gte=finished - dt.timedelta(hours=1))
+        stale = stale.filter(id__in=read_since.values("installation_id"))
+    return stale.count()
+
+
 def stale_installation_ids(limit: int = 5000) -> list[int]:
     return list(stale_installations().order_by("id").values_list("id", flat=True)[:limit])
 

@@ -3,16 +3,22 @@
 from __future__ import annotations
 
 import datetime as dt
-from itertools import groupby
+from functools import reduce
+from operator import or_
 
 import numpy as np
+from django.core.paginator import Paginator
 from django.db import transaction
+from django.db.models import Count, F, Q, Window
+from django.db.models.functions import RowNumber
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import bundle_visits
-from fleet.models import Assessment, FittedCapacitor, WorkOrder
+from fleet.models import FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
+
+from .pages import in_service_assessments
 
 KIND_FOR_ROLE = {
     FittedCapacitor.Role.RUN: WorkOrder.Kind.REPLACE_RUN,
@@ -31,12 +37,8 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     """
     today = today or timezone.localdate()
     due = list(
-        scope_to_user(Assessment.objects.all(), user)
-        .filter(
-            is_current=True,
-            installation__removed_on__isnull=True,
-            replace_by__lte=today + dt.timedelta(days=horizon_days),
-        )
+        in_service_assessments(user)
+        .filter(replace_by__lte=today + dt.timedelta(days=horizon_days))
         .values_list(
             "installation_id",
             "installation__motor_id",
@@ -88,24 +90,80 @@ def issue_visit(*, site_id: int, due_on: dt.date, user=None) -> int:
     return audited_update(planned, state=WorkOrder.State.ISSUED)
 
 
-def open_visits(site_id: int | None = None, day: dt.date | None = None, user=None):
-    """Open orders at the user's sites grouped into visits (site, day), soonest first, with each visit's spares."""
-    orders = (
-        scope_to_user(WorkOrder.objects.all(), user)
-        .filter(state__in=OPEN)
-        .select_related("motor__site", "installation__part")
-        .order_by("due_on", "motor__site__code", "motor__route_order", "motor__asset_tag")
+def _open_orders(user=None):
+    return scope_to_user(WorkOrder.objects.all(), user).filter(state__in=OPEN)
+
+
+def _spares(orders) -> dict[tuple, list[tuple[str, int]]]:
+    """Parts each visit (day, site id) takes, counted in SQL."""
+    spares: dict[tuple, list[tuple[str, int]]] = {}
+    rows = (
+        orders.filter(installation__isnull=False)
+        .values_list("due_on", "motor__site_id", "installation__part__code")
+        .annotate(quantity=Count("id"))
+        .order_by("due_on", "motor__site_id", "installation__part__code")
     )
-    if site_id is not None:
-        orders = orders.filter(motor__site_id=site_id)
-    if day is not None:
-        orders = orders.filter(due_on=day)
-    visits = []
-    for (day, site), group in groupby(orders, key=lambda o: (o.due_on, o.motor.site)):
-        group = list(group)
-        spares: dict[str, int] = {}
-        for order in group:
-            if order.installation_id:
-                spares[order.installation.part.code] = spares.get(order.installation.part.code, 0) + 1
-        visits.append({"day": day, "site": site, "orders": group, "spares": sorted(spares.items())})
-    return visits
+    for day, site_id, code, quantity in rows:
+        spares.setdefault((day, site_id), []).append((code, quantity))
+    return spares
+
+
+def open_visits(site_id: int, day: dt.date, user=None) -> list[dict]:
+    """One visit's open orders at a site the user works at, in walking order, with its spares: the visit sheet."""
+    orders = (
+        _open_orders(user)
+        .filter(motor__site_id=site_id, due_on=day)
+        .select_related("motor__site", "installation__part")
+        .order_by("motor__route_order", "motor__asset_tag")
+    )
+    group = list(orders)
+    if not group:
+        return []
+    spares = _spares(orders).get((day, site_id), [])
+    return [{"day": day, "site": group[0].motor.site, "orders": group, "count": len(group), "spares": spares}]
+
+
+def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
+    """A page of open visits (site, day) at the user's sites, soonest first: each with its order
+    count, its first `orders_shown` orders in walking order and its spares. Five queries, whatever
+    the number of orders: the visits are grouped and counted in SQL, the orders cut per visit by a
+    window function."""
+    orders = _open_orders(user)
+    visits = (
+        orders.values("due_on", "motor__site_id", "motor__site__code")
+        .annotate(count=Count("id"))
+        .order_by("due_on", "motor__site__code")
+    )
+    page = Paginator(visits, per_page).get_page(page_number)
+    keys = [(v["due_on"], v["motor__site_id"]) for v in page.object_list]
+    if not keys:
+        return page
+    in_page = reduce(or_, (Q(due_on=day, motor__site_id=site_id) for day, site_id in keys))
+    position = Window(
+        RowNumber(),
+        partition_by=[F("due_on"), F("motor__site_id")],
+        order_by=[F("motor__route_order").asc(), F("motor__asset_tag").asc()],
+    )
+    listed = (
+        orders.filter(in_page)
+        .select_related("motor__site", "installation__part")
+        .annotate(position=position)
+        .filter(position__lte=orders_shown)
+        .order_by("due_on", "motor__site__code", "position")
+    )
+    by_visit: dict[tuple, list[WorkOrder]] = {}
+    for order in listed:
+        by_visit.setdefault((order.due_on, order.motor.site_id), []).append(order)
+    spares = _spares(orders.filter(in_page))
+    page.object_list = [
+        {
+            "day": day,
+            "site": by_visit[(day, site_id)][0].motor.site,
+            "orders": by_visit[(day, site_id)],
+            "count": visit["count"],
+            "more": visit["count"] - len(by_visit[(day, site_id)]),
+            "spares": spares.get((day, site_id), []),
+        }
+        for visit, (day, site_id) in zip(page.object_list, keys, strict=True)
+    ]
+    return page

@@ -1,0 +1,192 @@
+"""List pages and the API list read a page at a time: their query count does not grow with the fleet.
+
+Each list page is counted at two fleet sizes (5 and 40 motors, with readings, refits through the real
+writer, risk changes, removed capacitors, work orders, refit runs and import jobs) and must issue the
+same number of queries [derived: a list that reads a bounded page of stored rows issues a fixed number
+of queries]. The stored facts the lists read (each assessment's in-service flag, each motor's last
+reading, each assessment's risk history) are checked against the rows they summarise.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import itertools
+
+import pytest
+from django.contrib.auth.models import Group
+from django.db import connection
+from django.test.utils import CaptureQueriesContext
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.models import Assessment, ImportJob, Motor, RefitRun
+from fleet.roles import TECHNICIAN
+from fleet.services.assessments import refit_installations
+from fleet.services.pages import replacement_plan
+from fleet.services.readings import replace_capacitor
+from fleet.services.workorders import plan_work_orders
+from fleet.views import LABELS_PAGE_SIZE
+
+from .conftest import make_installation, make_motor, make_part, make_reading, make_site, make_user, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+WORN = [4.0, 3.8, 3.7, 3.6]  # 4 uF +/-5 %: 10 % low, replace now
+SOUND = [4.0, 4.0, 3.99, 3.99]
+START = timezone.make_aware(dt.datetime(2025, 1, 5, 9))
+
+
+class Fleet:
+    """Our own small fleet on two sites, grown in steps; every motor has what a list page shows."""
+
+    def __init__(self):
+        self.sites = [make_site("NORTH"), make_site("SOUTH")]
+        self.part = make_part(code="RUN-4U")
+        self.serial = itertools.count()
+        self.motors = 0
+
+    def grow_to(self, motors: int, user) -> None:
+        new = []
+        for _ in range(motors - self.motors):
+            n = next(self.serial)
+            motor = make_motor(site=self.sites[n % 2], route_order=n, with_circuit=False)
+            if n % 5 == 0:  # a capacitor in its history, removed before the present one was fitted
+                make_installation(
+                    motor=motor,
+                    part=self.part,
+                    fitted_on=dt.date(2019, 1, 1),
+                    removed_on=dt.date(2021, 12, 31),
+                    removal_reason="failed",
+                )
+            installation = make_installation(motor=motor, part=self.part, fitted_on=dt.date(2022, 1, 1))
+            quarterly_readings(installation, START, WORN if n % 3 == 0 else SOUND)
+            if n % 2 == 0:  # read this quarter
+                make_reading(installation, capacitance_uf=3.99 if n % 3 else 3.6)
+            new.append(installation)
+        refit_installations([i.id for i in new])
+        # Some were judged sound before this refit: their risk level changed this week.
+        changed = [i.id for i in new[::4]]
+        Assessment.objects.filter(installation_id__in=changed, is_current=True).update(risk="sound")
+        refit_installations(changed, force=True)
+        plan_work_orders(horizon_days=365)
+        RefitRun.objects.create(state=RefitRun.State.DONE, total=len(new), done=len(new))
+        ImportJob.objects.create(kind="readings", filename=f"readings-{motors}.csv", content=b"", created_by=user)
+        self.motors = motors
+
+
+LIST_PAGES = {
+    "home": lambda: reverse("home"),
+    "plan": lambda: reverse("plan") + "?days=365",
+    "refits": lambda: reverse("refits"),
+    "work orders": lambda: reverse("work_orders"),
+    "route": lambda: reverse("route", args=["NORTH"]),
+    "route, due only": lambda: reverse("route", args=["NORTH"]) + "?show=due",
+    "labels": lambda: reverse("labels", args=["NORTH"]),
+    "imports": lambda: reverse("imports"),
+    "API assessments": lambda: reverse("api_assessments"),
+    "API assessments, due soon": lambda: reverse("api_assessments") + "?risk=replace+now",
+}
+
+
+@pytest.fixture
+def planner_who_reads(db):
+    """A planner who also logs readings (the imports page needs that)."""
+    user = make_user("planner")
+    user.groups.add(Group.objects.get(name=TECHNICIAN))
+    return user
+
+
+@pytest.mark.parametrize("page", LIST_PAGES)
+def test_a_list_pages_query_count_does_not_grow_with_the_fleet(client, planner_who_reads, page):
+    client.force_login(planner_who_reads)
+    fleet = Fleet()
+    counts, bodies = [], []
+    for motors in (5, 40):
+        fleet.grow_to(motors, planner_who_reads)
+        url = LIST_PAGES[page]()
+        client.get(url)  # the first request fills per-process caches (content types, permissions)
+        with CaptureQueriesContext(connection) as queries:
+            response = client.get(url)
+        assert response.status_code == 200, response.content[:500]
+        counts.append(len(queries))
+        bodies.append(response.content)
+    assert counts[0] == counts[1], f"{page}: {counts[0]} queries at 5 motors, {counts[1]} at 40"
+    assert len(bodies[1]) > len(bodies[0])  # the larger fleet is on the page: the count is of a real list
+
+
+def test_the_in_service_flag_follows_the_capacitors_removal(planner_who_reads):
+    """The flag the plan, the risk counts and the API read is kept by the database on every write path."""
+    fleet = Fleet()
+    fleet.grow_to(3, planner_who_reads)
+    installation = Assessment.objects.filter(is_current=True, risk="replace now").first().installation
+    assert Assessment.objects.get(installation=installation, is_current=True).capacitor_in_service
+    successor = replace_capacitor(
+        installation=installation, part=fleet.part, removed_on=timezone.localdate(), reason="failed"
+    )
+    assert not Assessment.objects.filter(installation=installation, capacitor_in_service=True).exists()
+    plan = set(replacement_plan(horizon_days=3650).values_list("installation_id", flat=True))
+    assert installation.id not in plan and successor.id not in plan
+    installation.removed_on, installation.removal_reason = None, ""  # an administrator undoes a removal
+    successor.delete()
+    installation.save()
+    assert Assessment.objects.get(installation=installation, is_current=True).capacitor_in_service
+    # An assessment written for a capacitor already removed is flagged out of service as it is inserted.
+    removed = make_installation(part=fleet.part, fitted_on=dt.date(2022, 1, 1))
+    quarterly_readings(removed, START, WORN)
+    removed.removed_on, removed.removal_reason = timezone.localdate(), "failed"
+    removed.save()
+    refit_installations([removed.id])
+    assert Assessment.objects.filter(installation=removed).values_list("capacitor_in_service", flat=True).get() is False
+
+
+def test_a_motors_last_reading_is_kept_by_the_database():
+    installation = make_installation()
+    motor = installation.motor
+    assert Motor.objects.get(pk=motor.pk).last_read_at is None
+    newest = timezone.now() - dt.timedelta(days=3)
+    make_reading(installation, taken_at=newest)
+    make_reading(installation, taken_at=newest - dt.timedelta(days=90))  # an older reading, entered late
+    assert Motor.objects.get(pk=motor.pk).last_read_at == newest
+    later = newest + dt.timedelta(days=1)
+    make_reading(installation, taken_at=later)
+    assert Motor.objects.get(pk=motor.pk).last_read_at == later
+
+
+def test_the_route_pages_keep_the_filter_and_count_every_motor(client, planner_who_reads, monkeypatch):
+    monkeypatch.setattr("fleet.views.ROUTE_PAGE_SIZE", 2)
+    site = make_site("EAST")
+    motors = [make_motor(site=site, route_order=n) for n in range(5)]
+    read = make_installation(motor=motors[1])
+    make_reading(read, taken_at=timezone.now() - dt.timedelta(hours=1))
+    client.force_login(planner_who_reads)
+    url = reverse("route", args=["EAST"])
+    first = client.get(url, {"show": "due"}).content.decode()
+    assert "4 of 5 motors still to read" in first
+    assert motors[0].asset_tag in first and motors[2].asset_tag in first and motors[1].asset_tag not in first
+    assert "?show=due&amp;page=2" in first and "Page 1 of 2" in first
+    second = client.get(url, {"show": "due", "page": 2}).content.decode()
+    assert motors[3].asset_tag in second and motors[4].asset_tag in second and motors[0].asset_tag not in second
+
+
+def test_labels_print_a_sheet_at_a_time(client, planner_who_reads):
+    site = make_site("WEST")
+    motors = [make_motor(site=site, route_order=n) for n in range(LABELS_PAGE_SIZE + 1)]
+    client.force_login(planner_who_reads)
+    first = client.get(reverse("labels", args=["WEST"])).content.decode()
+    assert first.count("<svg") == LABELS_PAGE_SIZE and motors[-1].asset_tag not in first
+    second = client.get(reverse("labels", args=["WEST"]), {"page": 2}).content.decode()
+    assert second.count("<svg") == 1 and motors[-1].asset_tag in second
+
+
+def test_the_work_orders_page_lists_a_visits_first_orders_and_counts_them_all(planner_who_reads):
+    from fleet.services import workorders
+
+    fleet = Fleet()
+    fleet.grow_to(12, planner_who_reads)
+    page = workorders.open_visits_page(1, orders_shown=1)
+    for visit in page.object_list:
+        orders = workorders.open_visits(visit["site"].id, visit["day"])[0]
+        assert visit["count"] == orders["count"] == len(orders["orders"])
+        assert [o.id for o in visit["orders"]] == [orders["orders"][0].id]
+        assert visit["more"] == visit["count"] - 1
+        assert visit["spares"] == orders["spares"] == [("RUN-4U", visit["count"])]
