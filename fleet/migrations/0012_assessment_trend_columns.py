@@ -40,7 +40,7 @@ def trend_to_columns(apps, schema_editor):
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0011_substitutes_stock_and_override"),
+        ("fleet", "0012_vocabulary_choices"),
     ]
 
     operations = [

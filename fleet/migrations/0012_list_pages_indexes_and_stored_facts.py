@@ -142,7 +142,7 @@ POSTGRES_BACKWARD = [
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0011_substitutes_stock_and_override"),
+        ("fleet", "0012_assessment_trend_columns"),
         migrations.swappable_dependency(settings.AUTH_USER_MODEL),
     ]
 
