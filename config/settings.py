@@ -119,7 +119,7 @@ AUTH_PASSWORD_VALIDATORS = [
     {"NAME": "django.contrib.auth.password_validation.CommonPasswordValidator"},
 ]
 LOGIN_URL = "login"
-LOGIN_REDIRECT_URL = "home"
+LOGIN_REDIRECT_URL = "after_sign_in"  # planners land on their dashboard
 LOGOUT_REDIRECT_URL = "login"
 
 LANGUAGE_CODE = "en"

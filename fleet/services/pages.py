@@ -162,6 +162,23 @@ def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
 
 
+def assessed_since(since: dt.datetime, user=None):
+    """Current assessments (capacitors in service) written since `since`, each with the risk level and
+    governing limit of the assessment that was current then (`previous_risk`, `previous_limit`; None
+    for a capacitor first assessed since)."""
+    before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
+        "-created_at"
+    )
+    return (
+        current_assessments(user)
+        .filter(installation__removed_on__isnull=True, created_at__gte=since)
+        .annotate(
+            previous_risk=Subquery(before.values("risk")[:1]),
+            previous_limit=Subquery(before.values("limit_source")[:1]),
+        )
+    )
+
+
 def risk_changes(days: int = 7, limit: int = 50, user=None):
     """Capacitors whose risk level moved in the last `days`, against the assessment
     that was current then: (worse, better, first_assessed_count).
@@ -169,15 +186,7 @@ def risk_changes(days: int = 7, limit: int = 50, user=None):
     Capacitors first assessed in the window have nothing to compare with; they are
     counted apart (SQL's NULL <> risk would silently drop them otherwise).
     """
-    since = timezone.now() - dt.timedelta(days=days)
-    before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
-        "-created_at"
-    )
-    recent = (
-        current_assessments(user)
-        .filter(installation__removed_on__isnull=True, created_at__gte=since)
-        .annotate(previous_risk=Subquery(before.values("risk")[:1]))
-    )
+    recent = assessed_since(timezone.now() - dt.timedelta(days=days), user)
     first_assessed = recent.filter(previous_risk__isnull=True).count()
     changed = (
         recent.filter(previous_risk__isnull=False)
