@@ -169,7 +169,7 @@ def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_mo
     changes = response.context["changes"]
     assert changes["moves"]["riskier"] == 1 and changes["moves"]["limit_changed"] == 1 and changes["readings"] == 1
     body = response.content.decode()
-    assert "torque falls short" in body and "governing limit was tolerance, now starting torque" in body
+    assert "Torque falls short" in body and "governing limit was tolerance, now starting torque" in body
 
 
 def test_each_chart_downloads_its_numbers(client):
