@@ -323,20 +323,37 @@ def stock_figure(parts: list[dict]) -> dict:
     codes = [row["code"] for row in parts]
     figure = go.Figure()
     figure.add_trace(
-        go.Bar(y=codes, x=[round(r["need_3_months"], 1) for r in parts], orientation="h", name="need, 3 months",
-               marker_color="#93b7d3")
+        go.Bar(
+            y=codes,
+            x=[round(r["need_3_months"], 1) for r in parts],
+            orientation="h",
+            name="need, 3 months",
+            marker_color="#93b7d3",
+        )
     )
     figure.add_trace(
-        go.Bar(y=codes, x=[round(r["need_12_months"], 1) for r in parts], orientation="h", name="need, 12 months",
-               marker_color=TREND)
+        go.Bar(
+            y=codes,
+            x=[round(r["need_12_months"], 1) for r in parts],
+            orientation="h",
+            name="need, 12 months",
+            marker_color=TREND,
+        )
     )
     figure.add_trace(
-        go.Scatter(y=codes, x=[r["stock"] for r in parts], mode="markers", name="stock held",
-                   marker={"color": LIMIT, "symbol": "line-ns-open", "size": 22, "line": {"width": 4}})
+        go.Scatter(
+            y=codes,
+            x=[r["stock"] for r in parts],
+            mode="markers",
+            name="stock held",
+            marker={"color": LIMIT, "symbol": "line-ns-open", "size": 22, "line": {"width": 4}},
+        )
     )
     figure.update_layout(barmode="group")
     figure.update_yaxes(autorange="reversed")
-    styled = _styled(figure, height=DASHBOARD_HEIGHT_PX, xaxis_title="capacitors")
+    styled = _styled(
+        figure, height=max(DASHBOARD_HEIGHT_PX, 2 * _rows_height(len(parts)) - 160), xaxis_title="capacitors"
+    )
     styled["layout"]["margin"].update(l=120)
     return styled
 
@@ -346,12 +363,22 @@ def risk_mix_figure(sites: list[str], levels: list[str], counts: dict) -> dict:
     figure = go.Figure()
     for level in levels:
         figure.add_trace(
-            go.Bar(y=sites, x=[counts[s][level] for s in sites], orientation="h", name=level,
-                   marker_color=RISK_COLOURS.get(level, INK))
+            go.Bar(
+                y=sites,
+                x=[counts[s][level] for s in sites],
+                orientation="h",
+                name=level,
+                marker_color=RISK_COLOURS.get(level, INK),
+            )
         )
     figure.update_layout(barmode="stack")
     figure.update_yaxes(autorange="reversed")
-    return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="capacitors in service")
+    return _styled(figure, height=_rows_height(len(sites)), xaxis_title="capacitors in service")
+
+
+def _rows_height(rows: int) -> int:
+    """A horizontal bar chart's fixed height: the house height, taller when many rows need it."""
+    return max(CHART_HEIGHT_PX, 160 + 30 * rows)
 
 
 def routes_figure(routes: list[dict]) -> dict:
@@ -363,9 +390,7 @@ def routes_figure(routes: list[dict]) -> dict:
         ("due", "due this quarter", RISK_COLOURS["due soon"]),
         ("read", "read this quarter", RISK_COLOURS["sound"]),
     ):
-        figure.add_trace(
-            go.Bar(y=codes, x=[r[key] for r in routes], orientation="h", name=label, marker_color=colour)
-        )
+        figure.add_trace(go.Bar(y=codes, x=[r[key] for r in routes], orientation="h", name=label, marker_color=colour))
     figure.update_layout(barmode="stack")
     figure.update_yaxes(autorange="reversed")
-    return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="capacitors in service")
+    return _styled(figure, height=_rows_height(len(routes)), xaxis_title="capacitors in service")

@@ -63,9 +63,7 @@ def fleet(per_site: int, sites=None, part=None):
             )
             installations.append(installation)
         SiteStock.objects.create(site=site, part=part, quantity=2)
-    PartLifeFit.objects.update_or_create(
-        part=part, defaults=dict(beta=2.0, eta_years=10.0, failures=3, suspensions=10)
-    )
+    PartLifeFit.objects.update_or_create(part=part, defaults=dict(beta=2.0, eta_years=10.0, failures=3, suspensions=10))
     return installations
 
 

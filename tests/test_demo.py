@@ -1,10 +1,9 @@
 """The demo command builds its invented scenario once and analyses it."""
 
-import pytest
-from django.core.management import call_command
-
 import datetime as dt
 
+import pytest
+from django.core.management import call_command
 from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Motor, Reading, WorkOrder

@@ -160,13 +160,16 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
         )
         until_years = np.clip(until_years, 0.0, None) / DAYS_PER_YEAR
         edges_years = np.array([max((m - today).days, 0) for m in [*months, end]]) / DAYS_PER_YEAR
-        expected = expected_failures(
-            [fits[g["part_id"]]["beta"] for g in fitted],
-            [fits[g["part_id"]]["eta_years"] for g in fitted],
-            np.clip(age_years, 0.0, None),
-            until_years,
-            edges_years,
-        ) * np.array([g["n"] for g in fitted])[:, None]
+        expected = (
+            expected_failures(
+                [fits[g["part_id"]]["beta"] for g in fitted],
+                [fits[g["part_id"]]["eta_years"] for g in fitted],
+                np.clip(age_years, 0.0, None),
+                until_years,
+                edges_years,
+            )
+            * np.array([g["n"] for g in fitted])[:, None]
+        )
         np.add.at(failures, [index[g["part_id"]] for g in fitted], expected)
     need = planned + failures
     unit_cost = np.array([float(parts[p].unit_cost) for p in order])
@@ -223,9 +226,7 @@ def risk_mix(user=None) -> dict:
 
 def last_read_subquery():
     """The newest reading time of the outer fitted capacitor (the (installation, taken_at) index)."""
-    return Subquery(
-        Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1]
-    )
+    return Subquery(Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1])
 
 
 def overdue_capacitors(user=None, today: dt.date | None = None):
@@ -319,7 +320,6 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
         "worse": worse,
         "better": better,
     }
-
 
 
 def dashboard(user=None, today: dt.date | None = None) -> dict:

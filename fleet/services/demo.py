@@ -18,6 +18,7 @@ from django.contrib.auth.models import Group, User
 from django.db import models, transaction
 from django.utils import timezone
 
+from fleet.audit import audited_bulk_create
 from fleet.engineering.capacitor import acceleration_factor
 from fleet.engineering.drift import operating_figures
 from fleet.engineering.motor import LOAD_CONSTANT, LOAD_FAN, load_matching_rated_slip, synchronous_speed_rad_s
@@ -25,7 +26,6 @@ from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
 from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site, SiteStock, WorkOrder
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
-from fleet.audit import audited_bulk_create
 from fleet.services.assessments import refit_installations, refresh_part_priors
 from fleet.services.circuits import circuit_fields
 from fleet.services.readings import replace_capacitor
@@ -320,9 +320,7 @@ def _skip_closed_house(readings: list[Reading], today: dt.date) -> list[Reading]
     """The closed glasshouses' recent readings never happened: their capacitors' readings are overdue."""
     since = today - dt.timedelta(days=CLOSED_SINCE_DAYS)
     return [
-        r
-        for r in readings
-        if not (r.installation.motor.location in CLOSED_LOCATIONS and r.taken_at.date() > since)
+        r for r in readings if not (r.installation.motor.location in CLOSED_LOCATIONS and r.taken_at.date() > since)
     ]
 
 
@@ -494,7 +492,11 @@ def _demo_stock() -> None:
     )
     SiteStock.objects.bulk_create(
         [
-            SiteStock(site_id=row["motor__site_id"], part_id=row["part_id"], quantity=max(1, round(row["n"] * DEMO_STOCK_SHARE)))
+            SiteStock(
+                site_id=row["motor__site_id"],
+                part_id=row["part_id"],
+                quantity=max(1, round(row["n"] * DEMO_STOCK_SHARE)),
+            )
             for row in held
         ],
         ignore_conflicts=True,

@@ -43,9 +43,7 @@ def refresh_life_fits(today: dt.date | None = None) -> int:
                 continue
             PartLifeFit.objects.update_or_create(
                 part_id=int(part_id),
-                defaults=dict(
-                    beta=fit.beta, eta_years=fit.eta, failures=fit.failures, suspensions=fit.suspensions
-                ),
+                defaults=dict(beta=fit.beta, eta_years=fit.eta, failures=fit.failures, suspensions=fit.suspensions),
             )
             kept.append(int(part_id))
         PartLifeFit.objects.exclude(part_id__in=kept).delete()

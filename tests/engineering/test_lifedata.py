@@ -109,5 +109,7 @@ def test_expected_failures_match_scipy_conditional_probabilities():
         want = (weibull.sf(age[unit] + stop[:-1]) - weibull.sf(age[unit] + stop[1:])) / weibull.sf(age[unit])
         assert got[unit] == pytest.approx(want, rel=1e-9, abs=1e-12)
     assert np.all(got[1, 6:] == 0.0)  # replaced after six months
-    assert got[0].sum() == pytest.approx(1 - stats.weibull_min(2.5, scale=8.0).sf(4.0) / stats.weibull_min(2.5, scale=8.0).sf(3.0))
+    assert got[0].sum() == pytest.approx(
+        1 - stats.weibull_min(2.5, scale=8.0).sf(4.0) / stats.weibull_min(2.5, scale=8.0).sf(3.0)
+    )
     assert np.all(got.sum(axis=1) <= 1.0)
