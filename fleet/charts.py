@@ -272,10 +272,12 @@ def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list
             "showgrid": False,
             "title": "visits",
             "tick0": 0,
-            "dtick": max(1, -(-max(visits, default=0) // 4)),  # whole visits
+            "dtick": _whole_step(max(visits, default=0)),
         },
     )
     figure.update_xaxes(type="date", tickformat="%d %b")
+    weekly = np.sum([counts for counts in by_risk.values()], axis=0) if by_risk else [0]
+    figure.update_layout(yaxis={"tick0": 0, "dtick": _whole_step(max(weekly))})
     styled = _styled(figure, height=WORKLOAD_HEIGHT_PX, yaxis_title="replacements")
     styled["layout"]["margin"].update(t=44, r=50)
     return styled
@@ -354,7 +356,10 @@ def stock_figure(parts: list[dict]) -> dict:
     styled = _styled(
         figure, height=max(DASHBOARD_HEIGHT_PX, 2 * _rows_height(len(parts)) - 160), xaxis_title="capacitors"
     )
-    styled["layout"]["margin"].update(l=120)
+    _top_legend(styled, left=120)
+    styled["layout"]["xaxis"].update(
+        tick0=0, dtick=_whole_step(max([r["need_12_months"] for r in parts] + [r["stock"] for r in parts] + [0]))
+    )
     return styled
 
 
@@ -373,12 +378,28 @@ def risk_mix_figure(sites: list[str], levels: list[str], counts: dict) -> dict:
         )
     figure.update_layout(barmode="stack")
     figure.update_yaxes(autorange="reversed")
-    return _styled(figure, height=_rows_height(len(sites)), xaxis_title="capacitors in service")
+    totals = [sum(counts[s].values()) for s in sites]
+    figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
+    return _top_legend(_styled(figure, height=_rows_height(len(sites)), xaxis_title="capacitors in service"))
 
 
 def _rows_height(rows: int) -> int:
     """A horizontal bar chart's fixed height: the house height, taller when many rows need it."""
     return max(CHART_HEIGHT_PX, 160 + 30 * rows)
+
+
+def _whole_step(largest: float) -> int:
+    """A tick step in whole units, 1, 2 or 5 times a power of ten, for about five ticks up to `largest`."""
+    wanted = max(largest / 5.0, 1.0)
+    power = 10 ** int(np.floor(np.log10(wanted)))
+    return int(next(step * power for step in (1, 2, 5, 10) if step * power >= wanted))
+
+
+def _top_legend(styled: dict, left: int = 60) -> dict:
+    """The legend above the plot, for horizontal bars whose axis title sits where it would go."""
+    styled["layout"]["legend"] = {"orientation": "h", "x": 0, "y": 1.0, "yanchor": "bottom"}
+    styled["layout"]["margin"].update(t=40, l=left, b=50)
+    return styled
 
 
 def routes_figure(routes: list[dict]) -> dict:
@@ -393,4 +414,6 @@ def routes_figure(routes: list[dict]) -> dict:
         figure.add_trace(go.Bar(y=codes, x=[r[key] for r in routes], orientation="h", name=label, marker_color=colour))
     figure.update_layout(barmode="stack")
     figure.update_yaxes(autorange="reversed")
-    return _styled(figure, height=_rows_height(len(routes)), xaxis_title="capacitors in service")
+    totals = [r["overdue"] + r["due"] + r["read"] for r in routes]
+    figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
+    return _top_legend(_styled(figure, height=_rows_height(len(routes)), xaxis_title="capacitors in service"))
