@@ -119,7 +119,7 @@ AUTH_PASSWORD_VALIDATORS = [
     {"NAME": "django.contrib.auth.password_validation.CommonPasswordValidator"},
 ]
 LOGIN_URL = "login"
-LOGIN_REDIRECT_URL = "home"
+LOGIN_REDIRECT_URL = "after_sign_in"  # planners land on their dashboard
 LOGOUT_REDIRECT_URL = "login"
 
 LANGUAGE_CODE = "en"
@@ -202,7 +202,24 @@ CELERY_BEAT_SCHEDULE = {
     "sweep-stale-assessments": {"task": "fleet.tasks.sweep_stale", "schedule": crontab(minute="*/15")},
     # Weekly, before a nightly refit: the back-test re-estimates the band calibration the refits use.
     "weekly-backtest": {"task": "fleet.tasks.backtest_fleet", "schedule": crontab(day_of_week=0, hour=1, minute=0)},
+    # Nightly, after the refit: each part's life-data fit, read by the dashboard's spares forecast.
+    "nightly-life-fits": {"task": "fleet.tasks.refresh_life_fits", "schedule": crontab(hour=4, minute=0)},
+    # Every morning: the planners' digest of capacitors newly at the top risk level or overdue a reading.
+    "daily-digest": {"task": "fleet.tasks.send_daily_digest", "schedule": crontab(hour=6, minute=30)},
 }
+
+# Mail: the planners' daily digest. The console backend (mail printed to the log) unless set.
+EMAIL_BACKEND = os.environ.get("EMAIL_BACKEND") or (
+    "django.core.mail.backends.smtp.EmailBackend" if PRODUCTION else "django.core.mail.backends.console.EmailBackend"
+)
+EMAIL_HOST = os.environ.get("EMAIL_HOST", "localhost")
+EMAIL_PORT = env_int("EMAIL_PORT", 25)
+EMAIL_HOST_USER = os.environ.get("EMAIL_HOST_USER", "")
+EMAIL_HOST_PASSWORD = os.environ.get("EMAIL_HOST_PASSWORD", "")
+EMAIL_USE_TLS = env_bool("EMAIL_USE_TLS", False)
+DEFAULT_FROM_EMAIL = os.environ.get("DEFAULT_FROM_EMAIL", "fleet@localhost")
+# The address people open the site at, for links in emails.
+FLEET_SITE_URL = os.environ.get("FLEET_SITE_URL", "http://127.0.0.1:8000").rstrip("/")
 
 # Fleet computations: chunk size of a fleet refit, and the engineering constants.
 FLEET_REFIT_CHUNK_SIZE = env_int("FLEET_REFIT_CHUNK_SIZE", 2000)

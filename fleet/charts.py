@@ -200,3 +200,220 @@ def coverage_figure(cutoffs: list[str], coverage_by_variant: dict[str, list[floa
     figure.update_xaxes(type="date", tickformat="%Y-%m")
     figure.update_yaxes(range=[0, 100], ticksuffix=" %")
     return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="cut-off", yaxis_title="crossings inside P10-P90")
+
+
+# Risk colours as the pages' risk badges (site.css), and a grey for capacitors with no assessment.
+RISK_COLOURS = {
+    "replace now": "#b3261e",
+    "due soon": "#9a5b00",
+    "watch": "#1f5fa8",
+    "sound": "#2f6b3a",
+    "not assessed yet": "#9ca3af",
+}
+SERIES_COLOURS = ("#0b5c8a", "#c2410c", "#4d7c0f", "#7e22ce", "#0f766e", "#a16207", "#be123c", "#475569")
+DASHBOARD_HEIGHT_PX = 360
+WORKLOAD_HEIGHT_PX = 400
+SPARES_HEIGHT_PX = 460  # room for one legend line per part on a phone
+
+
+def _switch(labels: list[str], groups: list[int]) -> list[dict]:
+    """Buttons that show one group of traces at a time (`groups`: the group of each trace)."""
+    return [
+        {
+            "type": "buttons",
+            "direction": "right",
+            "x": 0,
+            "xanchor": "left",
+            "y": 1.02,
+            "yanchor": "bottom",
+            "pad": {"t": 0, "b": 0},
+            "showactive": True,
+            "buttons": [
+                {"label": label, "method": "restyle", "args": [{"visible": [g == shown for g in groups]}]}
+                for shown, label in enumerate(labels)
+            ],
+        }
+    ]
+
+
+def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list[int]) -> dict:
+    """Replacements per week, stacked by risk level (or, by a button, by site), with the site
+    visits of the open work orders on a second axis."""
+    figure = go.Figure()
+    groups = []
+    for risk, counts in by_risk.items():
+        figure.add_trace(go.Bar(x=weeks, y=counts, name=risk, marker_color=RISK_COLOURS.get(risk, INK)))
+        groups.append(0)
+    for (site, counts), colour in zip(by_site.items(), SERIES_COLOURS * 8, strict=False):
+        figure.add_trace(go.Bar(x=weeks, y=counts, name=site, marker_color=colour, visible=False))
+        groups.append(1)
+    figure.add_trace(
+        go.Scatter(
+            x=weeks,
+            y=visits,
+            name="site visits",
+            mode="lines+markers",
+            yaxis="y2",
+            line={"color": INK, "width": 2, "dash": "dot"},
+            marker={"size": 7},
+            hovertemplate="week of %{x|%Y-%m-%d}: %{y} site visits<extra></extra>",
+        )
+    )
+    buttons = _switch(["by risk level", "by site"], [*groups, -1])
+    for button in buttons[0]["buttons"]:
+        button["args"][0]["visible"][-1] = True  # the visits stay
+    figure.update_layout(
+        barmode="stack",
+        updatemenus=buttons,
+        yaxis2={
+            "overlaying": "y",
+            "side": "right",
+            "rangemode": "tozero",
+            "showgrid": False,
+            "title": "visits",
+            "tick0": 0,
+            "dtick": _whole_step(max(visits, default=0)),
+        },
+    )
+    figure.update_xaxes(type="date", tickformat="%d %b")
+    weekly = np.sum([counts for counts in by_risk.values()], axis=0) if by_risk else [0]
+    figure.update_layout(yaxis={"tick0": 0, "dtick": _whole_step(max(weekly))})
+    styled = _styled(figure, height=WORKLOAD_HEIGHT_PX, yaxis_title="replacements")
+    styled["layout"]["margin"].update(t=44, r=50)
+    return styled
+
+
+def spares_figure(months: list[str], parts: list[dict], cost_per_month: list[float]) -> dict:
+    """Spares needed per month, stacked by part (planned replacements plus expected failures),
+    with their cost on a second axis."""
+    figure = go.Figure()
+    for row, colour in zip(parts, SERIES_COLOURS * 8, strict=False):
+        figure.add_trace(
+            go.Bar(
+                x=months,
+                y=[round(v, 2) for v in row["need"]],
+                name=row["code"],
+                marker_color=colour,
+                customdata=[[round(p), round(f, 2)] for p, f in zip(row["planned"], row["failures"], strict=True)],
+                hovertemplate="%{x|%b %Y}: %{y:.1f} (planned %{customdata[0]}, failures %{customdata[1]})"
+                f"<extra>{row['code']}</extra>",
+            )
+        )
+    figure.add_trace(
+        go.Scatter(
+            x=months,
+            y=[round(c, 2) for c in cost_per_month],
+            name="cost",
+            mode="lines+markers",
+            yaxis="y2",
+            line={"color": INK, "width": 2},
+            hovertemplate="%{x|%b %Y}: %{y:,.2f}<extra>cost</extra>",
+        )
+    )
+    figure.update_layout(
+        barmode="stack",
+        yaxis2={"overlaying": "y", "side": "right", "rangemode": "tozero", "showgrid": False, "title": "cost"},
+    )
+    figure.update_xaxes(type="date", tickformat="%b %y", dtick="M2")
+    styled = _styled(figure, height=SPARES_HEIGHT_PX, yaxis_title="capacitors")
+    styled["layout"]["margin"].update(r=60)
+    return styled
+
+
+def stock_figure(parts: list[dict]) -> dict:
+    """Per part: spares needed in the next 3 and 12 months against the stock held."""
+    codes = [row["code"] for row in parts]
+    figure = go.Figure()
+    figure.add_trace(
+        go.Bar(
+            y=codes,
+            x=[round(r["need_3_months"], 1) for r in parts],
+            orientation="h",
+            name="need, 3 months",
+            marker_color="#93b7d3",
+        )
+    )
+    figure.add_trace(
+        go.Bar(
+            y=codes,
+            x=[round(r["need_12_months"], 1) for r in parts],
+            orientation="h",
+            name="need, 12 months",
+            marker_color=TREND,
+        )
+    )
+    figure.add_trace(
+        go.Scatter(
+            y=codes,
+            x=[r["stock"] for r in parts],
+            mode="markers",
+            name="stock held",
+            marker={"color": LIMIT, "symbol": "line-ns-open", "size": 22, "line": {"width": 4}},
+        )
+    )
+    figure.update_layout(barmode="group")
+    figure.update_yaxes(autorange="reversed")
+    styled = _styled(
+        figure, height=max(DASHBOARD_HEIGHT_PX, 2 * _rows_height(len(parts)) - 160), xaxis_title="capacitors"
+    )
+    _top_legend(styled, left=120)
+    styled["layout"]["xaxis"].update(
+        tick0=0, dtick=_whole_step(max([r["need_12_months"] for r in parts] + [r["stock"] for r in parts] + [0]))
+    )
+    return styled
+
+
+def risk_mix_figure(sites: list[str], levels: list[str], counts: dict) -> dict:
+    """Capacitors in service per site, stacked by risk level."""
+    figure = go.Figure()
+    for level in levels:
+        figure.add_trace(
+            go.Bar(
+                y=sites,
+                x=[counts[s][level] for s in sites],
+                orientation="h",
+                name=level,
+                marker_color=RISK_COLOURS.get(level, INK),
+            )
+        )
+    figure.update_layout(barmode="stack")
+    figure.update_yaxes(autorange="reversed")
+    totals = [sum(counts[s].values()) for s in sites]
+    figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
+    return _top_legend(_styled(figure, height=_rows_height(len(sites)), xaxis_title="capacitors in service"))
+
+
+def _rows_height(rows: int) -> int:
+    """A horizontal bar chart's fixed height: the house height, taller when many rows need it."""
+    return max(CHART_HEIGHT_PX, 160 + 30 * rows)
+
+
+def _whole_step(largest: float) -> int:
+    """A tick step in whole units, 1, 2 or 5 times a power of ten, for about five ticks up to `largest`."""
+    wanted = max(largest / 5.0, 1.0)
+    power = 10 ** int(np.floor(np.log10(wanted)))
+    return int(next(step * power for step in (1, 2, 5, 10) if step * power >= wanted))
+
+
+def _top_legend(styled: dict, left: int = 60) -> dict:
+    """The legend above the plot, for horizontal bars whose axis title sits where it would go."""
+    styled["layout"]["legend"] = {"orientation": "h", "x": 0, "y": 1.0, "yanchor": "bottom"}
+    styled["layout"]["margin"].update(t=40, l=left, b=50)
+    return styled
+
+
+def routes_figure(routes: list[dict]) -> dict:
+    """Per site route: capacitors overdue, due this quarter and read this quarter."""
+    codes = [r["code"] for r in routes]
+    figure = go.Figure()
+    for key, label, colour in (
+        ("overdue", "overdue", RISK_COLOURS["replace now"]),
+        ("due", "due this quarter", RISK_COLOURS["due soon"]),
+        ("read", "read this quarter", RISK_COLOURS["sound"]),
+    ):
+        figure.add_trace(go.Bar(y=codes, x=[r[key] for r in routes], orientation="h", name=label, marker_color=colour))
+    figure.update_layout(barmode="stack")
+    figure.update_yaxes(autorange="reversed")
+    totals = [r["overdue"] + r["due"] + r["read"] for r in routes]
+    figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
+    return _top_legend(_styled(figure, height=_rows_height(len(routes)), xaxis_title="capacitors in service"))

@@ -901,3 +901,51 @@ class AuditEntry(models.Model):
 
     def delete(self, *args, **kwargs):
         raise ValueError("Audit entries are append-only: they are never deleted.")
+
+
+class PartLifeFit(models.Model):
+    """A part's stored Weibull fit (failures in service against suspensions), refreshed by a task,
+    so pages that forecast failures read it instead of fitting on a page load."""
+
+    part = models.OneToOneField(CapacitorPart, on_delete=models.CASCADE, related_name="life_fit")
+    beta = models.FloatField(help_text="Weibull shape")
+    eta_years = models.FloatField(help_text="Weibull scale, years")
+    failures = models.PositiveIntegerField()
+    suspensions = models.PositiveIntegerField()
+    fitted_at = models.DateTimeField(auto_now=True)
+
+    class Meta:
+        constraints = [
+            models.CheckConstraint(
+                condition=Q(beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND),
+                name="life_fit_finite_positive",
+            ),
+        ]
+
+    def __str__(self):
+        return f"life of {self.part_id}: beta {self.beta:.2f}, eta {self.eta_years:.1f} y"
+
+
+class DigestEntry(models.Model):
+    """A condition already reported in the planners' daily digest (a capacitor at the top risk
+    level, a capacitor whose reading is overdue). Removed once the condition ends, so a capacitor
+    that enters it again is reported again; while it lasts, it is never reported twice."""
+
+    class Kind(models.TextChoices):
+        TOP_RISK = "top_risk", "Entered the top risk level"
+        OVERDUE = "overdue", "Reading overdue"
+
+    kind = models.CharField(max_length=10, choices=Kind.choices)
+    installation = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="+")
+    reason = models.CharField(max_length=300, blank=True)
+    sent_at = models.DateTimeField(default=timezone.now)
+
+    class Meta:
+        ordering = ["-sent_at"]
+        verbose_name_plural = "digest entries"
+        constraints = [
+            models.UniqueConstraint(fields=["kind", "installation"], name="one_digest_entry_per_condition"),
+        ]
+
+    def __str__(self):
+        return f"{self.get_kind_display()}: {self.installation_id} ({self.sent_at:%Y-%m-%d})"

@@ -16,7 +16,7 @@ from celery.exceptions import SoftTimeLimitExceeded
 from django.conf import settings
 from kombu.exceptions import OperationalError
 
-from fleet.services import assessments, backtest, circuits, import_jobs, refits
+from fleet.services import alerts, assessments, backtest, circuits, import_jobs, lifedata, refits
 
 log = logging.getLogger(__name__)
 
@@ -145,3 +145,13 @@ def run_backtest(backtest_id: int) -> None:
 @shared_task
 def backtest_fleet() -> int:
     return backtest.run_backtest(backtest.start_backtest(queue=False).id).id
+
+
+@shared_task
+def refresh_life_fits() -> int:
+    return lifedata.refresh_life_fits()
+
+
+@shared_task
+def send_daily_digest() -> int:
+    return alerts.send_daily_digest()["emails"]

@@ -1,7 +1,7 @@
 from django.contrib.auth.decorators import login_not_required
 from django.urls import path, register_converter
 
-from . import api, views, views_track_record
+from . import api, views, views_dashboard, views_track_record
 
 
 class StoredCode:
@@ -46,6 +46,9 @@ urlpatterns = [
     path("sites/<code:site_code>/stock/", views.site_stock, name="site_stock"),
     path("parts/stand-in/", views.stand_in_parts, name="stand_in_parts"),
     path("sites/<code:site_code>/labels/", views.labels, name="labels"),
+    path("signed-in/", views_dashboard.after_sign_in, name="after_sign_in"),
+    path("dashboard/", views_dashboard.planner_dashboard, name="dashboard"),
+    path("dashboard/<str:name>.csv", views_dashboard.dashboard_csv, name="dashboard_csv"),
     path("plan/", views.plan, name="plan"),
     path("plan.<str:file_format>", views.plan_export, name="plan_export"),
     path("life/", views.life_data, name="life_data"),

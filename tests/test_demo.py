@@ -1,9 +1,12 @@
 """The demo command builds its invented scenario once and analyses it."""
 
+import datetime as dt
+
 import pytest
 from django.core.management import call_command
+from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, Motor, Reading
+from fleet.models import Assessment, FittedCapacitor, Motor, Reading, WorkOrder
 
 pytestmark = pytest.mark.django_db
 
@@ -20,6 +23,16 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
         FittedCapacitor.objects.filter(removal_reason="failed").exists()
         or FittedCapacitor.objects.filter(removal_reason="planned").exists()
     )
+    # Something true on every page: weeks of assessment history (the week's changes compare with
+    # it), work orders in each state, a visit under way.
+    week_ago = timezone.now() - dt.timedelta(days=7)
+    assert Assessment.objects.filter(created_at__lt=week_ago - dt.timedelta(days=14)).exists()
+    assert Assessment.objects.filter(is_current=True, created_at__lt=week_ago).exists()
+    states = set(WorkOrder.objects.values_list("state", flat=True))
+    assert {"done", "issued"} <= states
+    assert WorkOrder.objects.filter(state="done", closed_at__date=timezone.localdate()).exists()
+    orders = WorkOrder.objects.count()
     call_command("demo", "--no-serve")
     assert "nothing added" in capsys.readouterr().out
+    assert WorkOrder.objects.count() == orders
     assert (Motor.objects.count(), FittedCapacitor.objects.count(), Reading.objects.count()) == first

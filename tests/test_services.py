@@ -276,10 +276,16 @@ def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
     assert counts["visits"] == 4
     assert all(o.due_on == replace_by[o.installation_id] for o in WorkOrder.objects.all())
     again = plan_work_orders(horizon_days=90, user=planner)
-    assert again["created"] == 0 and again["replanned"] == 4 and WorkOrder.objects.count() == 4
+    # Nothing moved: nothing is counted as re-dated (it said "0 created, 4 re-dated" before).
+    assert again["created"] == 0 and again["replanned"] == 0 and WorkOrder.objects.count() == 4
     first = open_visits_page(1).object_list[0]
     assert issue_visit(site_id=first["site"].id, due_on=first["day"]) == 1
-    assert plan_work_orders(horizon_days=90)["replanned"] == 3
+    assert plan_work_orders(horizon_days=90)["replanned"] == 0
+    # A two-day shorter visit window is a real change to every planned order (three; one is issued).
+    assert plan_work_orders(horizon_days=90, window_days=12)["replanned"] == 3
+    moved = WorkOrder.objects.filter(state="planned").first()
+    WorkOrder.objects.filter(id=moved.id).update(due_on=moved.due_on + dt.timedelta(days=20))
+    assert plan_work_orders(horizon_days=90, window_days=12)["replanned"] == 1
 
 
 def test_risk_changes_read_the_risk_history_each_refit_carries():

@@ -100,6 +100,28 @@ def _tight_simplex(function, start, args=(), disp=0):
     return optimize.fmin(function, start, args=args, disp=disp, xtol=1e-8, ftol=1e-10, maxiter=4000, maxfun=8000)
 
 
+def expected_failures(beta, eta, age, until, edges):
+    """Expected failures in each interval between `edges` (time from now, ascending) among units
+    that have survived to `age`, counted only until `until` (their planned replacement; inf: none).
+
+    Per unit, the chance of failing in [s, e] given survival to age a is
+    (R(a + s) - R(a + e)) / R(a), with e cut at `until`; written with the cumulative
+    hazard H(t) = (t / eta)^beta so that old units do not divide 0 by 0. beta, eta, age and
+    until are per unit (broadcast); all in one time unit. Returns (units, intervals).
+    """
+    beta = np.asarray(beta, float)[..., None]
+    eta = np.asarray(eta, float)[..., None]
+    age = np.asarray(age, float)[..., None]
+    until = np.asarray(until, float)[..., None]
+    edges = np.asarray(edges, float)
+    stop = np.minimum(edges[1:], until)
+    start = np.minimum(edges[:-1], stop)
+    hazard_now = (age / eta) ** beta
+    survive_to_start = np.exp(hazard_now - ((age + start) / eta) ** beta)
+    survive_to_stop = np.exp(hazard_now - ((age + stop) / eta) ** beta)
+    return survive_to_start - survive_to_stop
+
+
 def _hessian(function, x, step=1e-4):
     n = len(x)
     h = np.zeros((n, n))

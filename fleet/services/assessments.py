@@ -542,12 +542,20 @@ def assess(
     )
 
 
-def refit_installations(installation_ids, *, now: dt.datetime | None = None, force: bool = False) -> RefitOutcome:
-    """Fit, judge and plan the given fitted capacitors; store one assessment each."""
+def refit_installations(
+    installation_ids, *, now: dt.datetime | None = None, force: bool = False, as_of: bool = False
+) -> RefitOutcome:
+    """Fit, judge and plan the given fitted capacitors; store one assessment each.
+
+    `as_of`: judge as it stood at `now` in the past, from the readings taken by then only (the
+    demo's few weeks of assessment history).
+    """
     now = now or timezone.now()
     ids = sorted({int(i) for i in installation_ids})
     inst = installations_frame(ids)
     readings = readings_frame(ids)
+    if as_of:
+        readings = readings[readings["taken_at"] <= now].reset_index(drop=True)
     usable = readings[~readings["superseded"]]
     max_reading_id = readings.groupby("installation_id")["id"].max()
     inst = inst[inst["installation_id"].isin(usable["installation_id"].unique())]

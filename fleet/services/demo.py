@@ -15,17 +15,21 @@ from dataclasses import dataclass
 
 import numpy as np
 from django.contrib.auth.models import Group, User
-from django.db import transaction
+from django.db import models, transaction
 from django.utils import timezone
 
+from fleet.audit import audited_bulk_create
 from fleet.engineering.capacitor import acceleration_factor
 from fleet.engineering.drift import operating_figures
 from fleet.engineering.motor import load_kind_from_type, load_matching_rated_slip, synchronous_speed_rad_s
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
-from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site, SiteStock, WorkOrder
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
+from fleet.services.assessments import refit_installations, refresh_part_priors
 from fleet.services.circuits import circuit_fields
+from fleet.services.readings import replace_capacitor
+from fleet.services.workorders import KIND_FOR_ROLE, issue_visit, open_visits, plan_work_orders
 
 FILM, ELECTROLYTIC = CapacitorPart.Dielectric.FILM, CapacitorPart.Dielectric.ELECTROLYTIC
 FAN_LAW, CONSTANT_TORQUE = Motor.LoadType.FAN_LAW, Motor.LoadType.CONSTANT
@@ -192,7 +196,9 @@ def ensure_users() -> list[tuple[str, str, str]]:
     """One user per role; returns (username, password, role) to print."""
     logins = []
     for username, first, last, role, password in DEMO_USERS:
-        user, created = User.objects.get_or_create(username=username, defaults={"first_name": first, "last_name": last})
+        user, created = User.objects.get_or_create(
+            username=username, defaults={"first_name": first, "last_name": last, "email": f"{username}@example.org"}
+        )
         if created:
             user.set_password(password)
             user.is_staff = role == ADMINISTRATOR
@@ -307,8 +313,21 @@ def build_demo(*, seed: int = 7, today: dt.date | None = None, scale: float = 1.
                         reading_rows += _age_capacitor_line(
                             motor, role, parts[code], commissioned, today, design.case_temp_c, v_cap, rng, technician
                         )
-        Reading.objects.bulk_create(reading_rows, batch_size=2000)
+        Reading.objects.bulk_create(_skip_closed_house(reading_rows, today), batch_size=2000)
     return {"created": True, "motors": motors, "readings": len(reading_rows)}
+
+
+# The scenario: a glasshouse block closed for re-roofing, its roof fans not read since.
+CLOSED_LOCATIONS = tuple(f"House {n}, roof fan" for n in range(4, 10))
+CLOSED_SINCE_DAYS = 130
+
+
+def _skip_closed_house(readings: list[Reading], today: dt.date) -> list[Reading]:
+    """The closed glasshouses' recent readings never happened: their capacitors' readings are overdue."""
+    since = today - dt.timedelta(days=CLOSED_SINCE_DAYS)
+    return [
+        r for r in readings if not (r.installation.motor.location in CLOSED_LOCATIONS and r.taken_at.date() > since)
+    ]
 
 
 def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_cap, rng, technician):
@@ -397,3 +416,94 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
         installation.removed_on, installation.removal_reason = removed, reason
         installation.save(update_fields=["removed_on", "removal_reason"])
         fitted_on = removed
+
+
+HISTORY_WEEKS = 4
+DEMO_STOCK_SHARE = 0.15  # spares held per site: about this share of the part's capacitors there, at least one
+
+
+def build_assessment_history(*, weeks: int = HISTORY_WEEKS, now: dt.datetime | None = None) -> int:
+    """Weekly assessments for the past few weeks, each from the readings taken by then and dated
+    then, so "what changed this week" compares with something. Returns assessments written."""
+    now = now or timezone.now()
+    refresh_part_priors()
+    ids = list(
+        FittedCapacitor.objects.filter(removed_on__isnull=True, readings__isnull=False)
+        .distinct()
+        .values_list("id", flat=True)
+    )
+    written = 0
+    for week in range(weeks, 0, -1):
+        then = now - dt.timedelta(days=7 * week + 1)
+        started = timezone.now()
+        written += refit_installations(ids, now=then, as_of=True).written
+        Assessment.objects.filter(created_at__gte=started).update(created_at=then)
+    return written
+
+
+def build_work_orders(*, today: dt.date | None = None) -> dict:
+    """Work orders as a running plant has them: done ones for the recent planned replacements, the
+    plan's orders bundled into visits, the first visit at each site issued, and one visit under
+    way (one replacement on it already recorded). Also the spares each site holds."""
+    today = today or timezone.localdate()
+    planner = User.objects.filter(username="planner").first()
+    technician = User.objects.filter(username="tech").first()
+    recent = FittedCapacitor.objects.filter(
+        removal_reason=FittedCapacitor.RemovalReason.PLANNED, removed_on__gte=today - dt.timedelta(days=90)
+    ).select_related("motor")
+    audited_bulk_create(
+        [
+            WorkOrder(
+                motor=c.motor,
+                installation=c,
+                kind=KIND_FOR_ROLE[c.role],
+                due_on=c.removed_on,
+                state=WorkOrder.State.DONE,
+                reason="replaced on plan",
+                created_by=planner,
+                closed_by=technician,
+                closed_at=timezone.make_aware(dt.datetime.combine(c.removed_on, dt.time(15))),
+            )
+            for c in recent
+        ]
+    )
+    counts = plan_work_orders(horizon_days=90, user=planner, today=today)
+    issued = 0
+    first_visits = {}
+    for visit in open_visits():
+        first_visits.setdefault(visit["site"].id, visit)
+    for site_id, visit in first_visits.items():
+        issued += issue_visit(site_id=site_id, due_on=visit["day"], user=planner)
+    under_way = next(iter(first_visits.values()), None)
+    if under_way is not None:
+        order = next(o for o in under_way["orders"] if o.installation_id)
+        replace_capacitor(
+            installation=order.installation,
+            part=order.installation.part,
+            removed_on=today,
+            reason=FittedCapacitor.RemovalReason.PLANNED,
+            user=technician,
+            serial="on the visit",
+        )
+    _demo_stock()
+    return {"done": len(recent), "planned": counts["created"], "issued": issued}
+
+
+def _demo_stock() -> None:
+    """A few spares of each part at each site that uses it (some short of the year's need)."""
+    held = (
+        FittedCapacitor.objects.filter(removed_on__isnull=True)
+        .values("motor__site_id", "part_id")
+        .annotate(n=models.Count("id"))
+    )
+    SiteStock.objects.bulk_create(
+        [
+            SiteStock(
+                site_id=row["motor__site_id"],
+                part_id=row["part_id"],
+                quantity=max(1, round(row["n"] * DEMO_STOCK_SHARE)),
+            )
+            for row in held
+        ],
+        ignore_conflicts=True,
+    )

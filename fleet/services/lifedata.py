@@ -6,24 +6,48 @@ import datetime as dt
 
 import numpy as np
 import pandas as pd
+from django.db import transaction
 from django.utils import timezone
 
 from fleet.engineering.lifedata import WeibullFit, age_replacement, fit_weibull, probability_plot_points
-from fleet.models import FittedCapacitor
+from fleet.models import FittedCapacitor, PartLifeFit
 
 
-def life_table(part_id: int, today: dt.date | None = None) -> pd.DataFrame:
-    """Ages in days of every capacitor of a part (one query): removed ones at
-    removal, those in service today; `failed` only for failures in service."""
+def life_table(part_id: int | None = None, today: dt.date | None = None) -> pd.DataFrame:
+    """Ages in days of every capacitor of a part (None: of every part, with `part_id`; one query):
+    removed ones at removal, those in service today; `failed` only for failures in service."""
     today = today or timezone.localdate()
-    rows = FittedCapacitor.objects.filter(part_id=part_id).values_list("fitted_on", "removed_on", "removal_reason")
-    frame = pd.DataFrame.from_records(list(rows), columns=["fitted_on", "removed_on", "removal_reason"])
+    capacitors = FittedCapacitor.objects.all() if part_id is None else FittedCapacitor.objects.filter(part_id=part_id)
+    columns = ["part_id", "fitted_on", "removed_on", "removal_reason"]
+    frame = pd.DataFrame.from_records(list(capacitors.values_list(*columns)), columns=columns)
     if frame.empty:
         return frame.assign(age_days=[], failed=[])
     end = frame["removed_on"].where(frame["removed_on"].notna(), today)
     frame["age_days"] = (pd.to_datetime(end) - pd.to_datetime(frame["fitted_on"])).dt.days.astype(float)
     frame["failed"] = frame["removal_reason"].eq(FittedCapacitor.RemovalReason.FAILED)
     return frame[frame["age_days"] > 0].reset_index(drop=True)
+
+
+def refresh_life_fits(today: dt.date | None = None) -> int:
+    """Fit and store every part's Weibull (parts with two failures or more; the others' stored fit
+    is removed), for pages that forecast failures without fitting. One loop step per part."""
+    table = life_table(today=today)
+    kept = []
+    with transaction.atomic():
+        for part_id, rows in table.groupby("part_id"):
+            failed = rows["failed"].to_numpy(bool)
+            if failed.sum() < 2:
+                continue
+            fit = fit_weibull(rows["age_days"].to_numpy() / 365.25, failed)
+            if not (np.isfinite(fit.beta) and np.isfinite(fit.eta)):
+                continue
+            PartLifeFit.objects.update_or_create(
+                part_id=int(part_id),
+                defaults=dict(beta=fit.beta, eta_years=fit.eta, failures=fit.failures, suspensions=fit.suspensions),
+            )
+            kept.append(int(part_id))
+        PartLifeFit.objects.exclude(part_id__in=kept).delete()
+    return len(kept)
 
 
 def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:

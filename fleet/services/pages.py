@@ -12,8 +12,10 @@ from django.db.models import (
     Count,
     ExpressionWrapper,
     F,
+    OuterRef,
     Prefetch,
     Q,
+    Subquery,
     Sum,
     Value,
     When,
@@ -189,6 +191,23 @@ def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None):
 
 def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
+
+
+def assessed_since(since: dt.datetime, user=None):
+    """Current assessments (capacitors in service) written since `since`, each with the risk level and
+    governing limit of the assessment that was current then (`previous_risk`, `previous_limit`; None
+    for a capacitor first assessed since)."""
+    before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
+        "-created_at"
+    )
+    return (
+        current_assessments(user)
+        .filter(installation__removed_on__isnull=True, created_at__gte=since)
+        .annotate(
+            previous_risk=Subquery(before.values("risk")[:1]),
+            previous_limit=Subquery(before.values("limit_source")[:1]),
+        )
+    )
 
 
 def risk_changes(days: int = 7, limit: int = 50, user=None):

@@ -33,7 +33,8 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     New orders and the still-planned ones are bundled into site visits (one
     trip per site per window) and dated on their visit's day; overdue ones on
     today. Issued orders are left as they are. Only the sites `user` works at are
-    planned (None: every site). Returns counts.
+    planned (None: every site). Returns counts: `replanned` counts only the open
+    orders whose date or window really moved, and only those are written.
     """
     today = today or timezone.localdate()
     due = list(
@@ -54,6 +55,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
         (o.installation_id, o.kind): o
         for o in WorkOrder.objects.filter(installation_id__in=[d[0] for d in due], state__in=OPEN)
     }
+    was = {o.pk: (o.due_on, o.window_days) for o in open_orders.values()}
     items, new_orders, replanned = [], [], []
     for installation_id, motor_id, site_id, role, replace_by, risk, limit, p10 in due:
         kind = KIND_FOR_ROLE[role]
@@ -76,6 +78,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     for (_, _, order), day in zip(items, visit_day, strict=True):
         order.due_on = today + dt.timedelta(days=int(day))
         order.window_days = window_days
+    replanned = [o for o in replanned if (o.due_on, o.window_days) != was[o.pk]]
     with transaction.atomic():
         audited_bulk_create(new_orders)
         audited_bulk_update(replanned, ["due_on", "window_days"])

@@ -59,3 +59,18 @@ def test_the_life_data_charts_keep_their_height(phone):
     phone.wait_for_selector("#cost-chart .main-svg")
     _charts_hold(phone, ["weibull-chart", "cost-chart"])
     phone.shot("life-data-after-resize")
+
+
+def test_the_dashboard_charts_keep_their_height_and_the_page_its_width(phone):
+    from ..test_dashboard import fleet
+
+    fleet(per_site=4)
+    sign_in(phone, make_user("planner"))
+    phone.goto("/dashboard/")
+    phone.wait_for_selector("#routes-chart .main-svg")
+    _charts_hold(phone, ["workload-chart", "spares-chart", "stock-chart", "mix-chart", "routes-chart"])
+    for width in (390, 1366):
+        phone.set_viewport_size({"width": width, "height": 900})
+        phone.wait_for_timeout(600)
+        assert phone.evaluate("document.documentElement.scrollWidth") <= width
+        phone.shot(f"dashboard-{width}")

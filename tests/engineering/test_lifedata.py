@@ -2,9 +2,15 @@
 
 import numpy as np
 import pytest
-from scipy import optimize
+from scipy import optimize, stats
 
-from fleet.engineering.lifedata import WeibullFit, age_replacement, fit_weibull, probability_plot_points
+from fleet.engineering.lifedata import (
+    WeibullFit,
+    age_replacement,
+    expected_failures,
+    fit_weibull,
+    probability_plot_points,
+)
 
 # Lieblein and Zelen's 23 ball-bearing failure times, millions of revolutions, as
 # reprinted by Lawless and by Meeker and Escobar [pub].
@@ -93,3 +99,25 @@ def test_conditional_failure_probability():
     memoryless = WeibullFit(beta=1.0, eta=100.0, failures=10, suspensions=0, covariance_log=np.eye(2))
     assert memoryless.conditional_failure(500.0, 10.0) == pytest.approx(1 - np.exp(-0.1))
     assert memoryless.conditional_failure(0.5, 10.0) == pytest.approx(1 - np.exp(-0.1))
+
+
+def test_expected_failures_match_scipy_conditional_probabilities():
+    """[pub] scipy.stats.weibull_min: P(fail in [a+s, a+e] | alive at a) = (sf(a+s) - sf(a+e)) / sf(a);
+    [derived] nothing counts after the planned replacement, and a unit fails at most once."""
+    beta = np.array([2.5, 1.0, 3.2])
+    eta = np.array([8.0, 8.0, 6.0])
+    age = np.array([3.0, 5.0, 9.5])  # the third is far past its scale: a large cumulative hazard
+    until = np.array([np.inf, 0.5, np.inf])
+    edges = np.linspace(0.0, 1.0, 13)  # twelve months, in years
+    got = expected_failures(beta, eta, age, until, edges)
+    assert got.shape == (3, 12)
+    for unit in range(3):
+        weibull = stats.weibull_min(beta[unit], scale=eta[unit])
+        stop = np.minimum(edges, until[unit])
+        want = (weibull.sf(age[unit] + stop[:-1]) - weibull.sf(age[unit] + stop[1:])) / weibull.sf(age[unit])
+        assert got[unit] == pytest.approx(want, rel=1e-9, abs=1e-12)
+    assert np.all(got[1, 6:] == 0.0)  # replaced after six months
+    assert got[0].sum() == pytest.approx(
+        1 - stats.weibull_min(2.5, scale=8.0).sf(4.0) / stats.weibull_min(2.5, scale=8.0).sf(3.0)
+    )
+    assert np.all(got.sum(axis=1) <= 1.0)

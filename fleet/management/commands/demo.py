@@ -6,7 +6,8 @@ from django.core.management import call_command
 from django.core.management.base import BaseCommand
 
 from fleet.services.backtest import run_backtest, start_backtest
-from fleet.services.demo import build_demo, ensure_users
+from fleet.services.demo import build_assessment_history, build_demo, build_work_orders, ensure_users
+from fleet.services.lifedata import refresh_life_fits
 from fleet.services.refits import start_fleet_refit
 
 
@@ -35,10 +36,22 @@ class Command(BaseCommand):
                 f"({time.perf_counter() - started:.1f} s)."
             )
             started = time.perf_counter()
+            history = build_assessment_history()
+            self.stdout.write(
+                f"Kept {history} assessments of the past four weeks, each from the readings of its day "
+                f"({time.perf_counter() - started:.1f} s)."
+            )
+            started = time.perf_counter()
             run = start_fleet_refit(kind="demo")
             run.refresh_from_db()
             self.stdout.write(
                 f"Refitted {run.done} capacitors from {run.readings} readings ({time.perf_counter() - started:.1f} s)."
+            )
+            fits = refresh_life_fits()
+            orders = build_work_orders()
+            self.stdout.write(
+                f"Stored the life data of {fits} parts; work orders: {orders['done']} done, "
+                f"{orders['planned']} planned, {orders['issued']} issued, one visit under way."
             )
         else:
             self.stdout.write("The demo fleet is already there; nothing added.")

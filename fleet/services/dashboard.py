@@ -1,0 +1,395 @@
+"""The planner's dashboard: workload, spares, risk mix, overdue readings and the week's changes.
+
+Every figure is read from stored results (current assessments, work orders, readings, site stock,
+stored life fits) by SQL aggregation: a fixed number of queries whatever the fleet's size, and
+result rows bounded by weeks, months, parts and sites, never by capacitors.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+from django.db.models import Case, Count, DateField, F, FilteredRelation, OuterRef, Q, Subquery, Sum, Value, When
+from django.db.models.functions import Cast, TruncMonth, TruncWeek
+from django.utils import timezone
+
+from fleet.charts import risk_mix_figure, routes_figure, spares_figure, stock_figure, workload_figure
+from fleet.engineering.lifedata import expected_failures
+from fleet.engineering.planning import RISK_ORDER
+from fleet.models import CapacitorPart, FittedCapacitor, PartLifeFit, Reading, RefitRun, Site, SiteStock, WorkOrder
+from fleet.roles import scope_to_user
+from fleet.services.pages import assessed_since, current_assessments, quarter_start, risk_changes
+
+WEEKS = 26
+MONTHS = 12
+# Readings are quarterly [trade]; a capacitor not read for a quarter and two weeks more is overdue.
+READING_INTERVAL_DAYS = 91
+OVERDUE_GRACE_DAYS = 14
+NOT_ASSESSED = "not assessed yet"
+DAYS_PER_YEAR = 365.25
+
+
+def overdue_before(today: dt.date) -> dt.date:
+    """A capacitor whose newest reading is older than this day is overdue."""
+    return today - dt.timedelta(days=READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS)
+
+
+def _in_service(user):
+    return current_assessments(user).filter(installation__removed_on__isnull=True)
+
+
+def _clamped(field: str, truncate, first: dt.date):
+    """The field truncated to its week or month, anything earlier counted in the first one."""
+    return Case(
+        When(**{f"{field}__lt": first}, then=Value(first)),
+        default=_day(truncate(field)),
+        output_field=DateField(),
+    )
+
+
+def _day(expression):
+    """A truncated date as a date (PostgreSQL's date_trunc answers a timestamp)."""
+    return Cast(expression, DateField())
+
+
+def _add_months(day: dt.date, months: int) -> dt.date:
+    index = day.year * 12 + day.month - 1 + months
+    return dt.date(index // 12, index % 12 + 1, 1)
+
+
+def weekly_workload(user=None, today: dt.date | None = None) -> dict:
+    """Replacements per week for the next WEEKS weeks by risk level and by site (overdue ones in
+    this week), and the site visits of the open work orders per week (four queries)."""
+    today = today or timezone.localdate()
+    first = today - dt.timedelta(days=today.weekday())
+    weeks = [first + dt.timedelta(weeks=k) for k in range(WEEKS)]
+    end = first + dt.timedelta(weeks=WEEKS)
+    rows = (
+        _in_service(user)
+        .filter(replace_by__lt=end)
+        .annotate(week=_clamped("replace_by", TruncWeek, first))
+        .values("week", "risk", "installation__motor__site__code")
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    sites = list(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
+    position = {week: k for k, week in enumerate(weeks)}
+    by_risk = {risk: [0] * WEEKS for risk in RISK_ORDER}
+    by_site = {code: [0] * WEEKS for code in sites}
+    for row in rows:
+        k = position[row["week"]]
+        by_risk.setdefault(row["risk"], [0] * WEEKS)[k] += row["n"]
+        by_site.setdefault(row["installation__motor__site__code"], [0] * WEEKS)[k] += row["n"]
+    visits = (
+        scope_to_user(WorkOrder.objects.all(), user)
+        .filter(state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], due_on__lt=end)
+        .annotate(week=_clamped("due_on", TruncWeek, first))
+        .values("week", "motor__site_id", "due_on")
+        .annotate(orders=Count("id"))
+        .order_by()
+    )
+    visits_per_week = [0] * WEEKS
+    for visit in visits:
+        visits_per_week[position[visit["week"]]] += 1
+    return {
+        "weeks": weeks,
+        "by_risk": {risk: counts for risk, counts in by_risk.items() if any(counts)},
+        "by_site": {code: counts for code, counts in by_site.items() if any(counts)},
+        "visits": visits_per_week,
+        "total": sum(sum(counts) for counts in by_risk.values()),
+        "past_due": _in_service(user).filter(replace_by__lt=today).count(),
+    }
+
+
+def spares_by_month(user=None, today: dt.date | None = None) -> dict:
+    """Spares per part per month for MONTHS months: the plan's replacements (overdue ones in this
+    month) plus the failures in service expected from each part's stored life fit among the
+    capacitors in service until their planned replacement, with the cost and the stock held at the
+    user's sites (five queries).
+
+    Ages and planned months are grouped by month in SQL; the expected failures of each group come
+    from the core (`expected_failures`), weighted by the group's count.
+    """
+    today = today or timezone.localdate()
+    first = today.replace(day=1)
+    months = [_add_months(first, k) for k in range(MONTHS)]
+    end = _add_months(first, MONTHS)
+    position = {month: k for k, month in enumerate(months)}
+    planned_rows = (
+        _in_service(user)
+        .filter(replace_by__lt=end)
+        .annotate(month=_clamped("replace_by", TruncMonth, first))
+        .values("month", "installation__part_id")
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    groups = list(
+        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True), user)
+        .annotate(current=FilteredRelation("assessments", condition=Q(assessments__is_current=True)))
+        .annotate(
+            fitted_month=_day(TruncMonth("fitted_on")),
+            replace_month=_day(TruncMonth("current__replace_by")),
+        )
+        .values("part_id", "fitted_month", "replace_month")
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    fits = {f["part_id"]: f for f in PartLifeFit.objects.values("part_id", "beta", "eta_years")}
+    part_ids = sorted({row["installation__part_id"] for row in planned_rows} | {g["part_id"] for g in groups})
+    parts = {p.id: p for p in CapacitorPart.objects.filter(id__in=part_ids).order_by("dielectric", "rated_uf", "code")}
+    stock = dict(
+        scope_to_user(SiteStock.objects.filter(part_id__in=part_ids), user)
+        .values("part_id")
+        .annotate(held=Sum("quantity"))
+        .values_list("part_id", "held")
+    )
+    order = list(parts)
+    index = {part_id: i for i, part_id in enumerate(order)}
+    planned = np.zeros((len(order), MONTHS))
+    for row in planned_rows:
+        planned[index[row["installation__part_id"]], position[row["month"]]] += row["n"]
+    failures = np.zeros((len(order), MONTHS))
+    fitted = [g for g in groups if g["part_id"] in fits]
+    if fitted:
+        mid_month = dt.timedelta(days=15)
+        age_years = np.array([(today - (g["fitted_month"] + mid_month)).days for g in fitted]) / DAYS_PER_YEAR
+        until_years = np.array(
+            [np.inf if g["replace_month"] is None else (g["replace_month"] + mid_month - today).days for g in fitted],
+            float,
+        )
+        until_years = np.clip(until_years, 0.0, None) / DAYS_PER_YEAR
+        edges_years = np.array([max((m - today).days, 0) for m in [*months, end]]) / DAYS_PER_YEAR
+        expected = (
+            expected_failures(
+                [fits[g["part_id"]]["beta"] for g in fitted],
+                [fits[g["part_id"]]["eta_years"] for g in fitted],
+                np.clip(age_years, 0.0, None),
+                until_years,
+                edges_years,
+            )
+            * np.array([g["n"] for g in fitted])[:, None]
+        )
+        np.add.at(failures, [index[g["part_id"]] for g in fitted], expected)
+    need = planned + failures
+    unit_cost = np.array([float(parts[p].unit_cost) for p in order])
+    rows = []
+    for i, part_id in enumerate(order):
+        held = int(stock.get(part_id) or 0)
+        cumulative = np.cumsum(need[i])
+        short = np.flatnonzero(np.ceil(cumulative - 1e-9) > held)
+        rows.append(
+            {
+                "part": parts[part_id],
+                "life_fit": part_id in fits,
+                "planned": planned[i].tolist(),
+                "failures": failures[i].tolist(),
+                "need": need[i].tolist(),
+                "cost": (need[i] * unit_cost[i]).tolist(),
+                "stock": held,
+                "need_3_months": float(need[i, :3].sum()),
+                "need_12_months": float(need[i].sum()),
+                "cost_12_months": float(need[i].sum() * unit_cost[i]),
+                "short_from": months[short[0]] if short.size else None,
+            }
+        )
+    return {
+        "months": months,
+        "parts": rows,
+        "quantity_per_month": need.sum(axis=0).tolist(),
+        "cost_per_month": (need * unit_cost[:, None]).sum(axis=0).tolist(),
+        "cost_12_months": float((need * unit_cost[:, None]).sum()),
+        "parts_without_fit": [parts[p].code for p in order if p not in fits],
+    }
+
+
+def risk_mix(user=None) -> dict:
+    """Capacitors in service per site by risk level, and those not assessed yet (two queries)."""
+    sites = list(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
+    mix = {site: dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0) for site in sites}
+    for site, risk, n in (
+        _in_service(user).values_list("installation__motor__site__code", "risk").annotate(n=Count("id")).order_by()
+    ):
+        mix.setdefault(site, dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0))[risk] = n
+    unassessed = (
+        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True), user)
+        .annotate(current=FilteredRelation("assessments", condition=Q(assessments__is_current=True)))
+        .filter(current__id__isnull=True)
+        .values_list("motor__site__code")
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    for site, n in unassessed:
+        mix.setdefault(site, dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0))[NOT_ASSESSED] = n
+    return {"sites": list(mix), "levels": [*RISK_ORDER, NOT_ASSESSED], "counts": mix}
+
+
+def last_read_subquery():
+    """The newest reading time of the outer fitted capacitor (the (installation, taken_at) index)."""
+    return Subquery(Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1])
+
+
+def overdue_capacitors(user=None, today: dt.date | None = None):
+    """Capacitors in service on motors in service whose newest reading (or, never read, their
+    fitting) is older than a quarter and the grace period, with `last_read`."""
+    today = today or timezone.localdate()
+    cutoff = dt.datetime.combine(overdue_before(today), dt.time(), tzinfo=dt.UTC)
+    return (
+        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
+        .annotate(last_read=last_read_subquery())
+        .filter(Q(last_read__lt=cutoff) | Q(last_read__isnull=True, fitted_on__lt=overdue_before(today)))
+    )
+
+
+def readings_by_route(user=None, today: dt.date | None = None) -> dict:
+    """Per site's reading route: capacitors in service overdue, due this quarter (not read since
+    it began) and read this quarter (one query)."""
+    today = today or timezone.localdate()
+    cutoff = dt.datetime.combine(overdue_before(today), dt.time(), tzinfo=dt.UTC)
+    quarter = dt.datetime.combine(quarter_start(today), dt.time(), tzinfo=dt.UTC)
+    never_read_overdue = Q(last_read__isnull=True, fitted_on__lt=overdue_before(today))
+    status = Case(
+        When(Q(last_read__lt=cutoff) | never_read_overdue, then=Value("overdue")),
+        When(Q(last_read__isnull=True) | Q(last_read__lt=quarter), then=Value("due")),
+        default=Value("read"),
+    )
+    rows = (
+        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
+        .annotate(last_read=last_read_subquery())
+        .annotate(status=status)
+        .values("motor__site__code", "motor__site__name", "status")
+        .annotate(n=Count("id"), motors=Count("motor", distinct=True))
+        .order_by("motor__site__code")
+    )
+    routes: dict[str, dict] = {}
+    for row in rows:
+        route = routes.setdefault(
+            row["motor__site__code"],
+            {"code": row["motor__site__code"], "name": row["motor__site__name"], "overdue": 0, "due": 0, "read": 0},
+        )
+        route[row["status"]] = row["n"]
+        if row["status"] == "overdue":
+            route["overdue_motors"] = row["motors"]
+    return {"quarter_start": quarter.date(), "overdue_before": overdue_before(today), "routes": list(routes.values())}
+
+
+def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
+    """What moved in the last `days`: readings taken, refits run, capacitors reassessed and how
+    their risk level and governing limit moved, replacements; the riskier ones with the reason."""
+    since = timezone.now() - dt.timedelta(days=days)
+    readings = scope_to_user(Reading.objects.filter(taken_at__gte=since), user).count()
+    refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
+    severity = {risk: rank for rank, risk in enumerate(RISK_ORDER)}
+    moves = {"riskier": 0, "less_risky": 0, "same_level": 0, "first_assessed": 0, "limit_changed": 0}
+    for previous, risk, limit_changed, n in (
+        assessed_since(since, user)
+        .annotate(
+            limit_changed=Case(
+                When(Q(previous_limit__isnull=False) & ~Q(previous_limit=F("limit_source")), then=1),
+                default=0,
+            )
+        )
+        .values_list("previous_risk", "risk", "limit_changed")
+        .annotate(n=Count("id"))
+        .order_by()
+    ):
+        if previous is None:
+            moves["first_assessed"] += n
+        elif severity.get(risk, len(RISK_ORDER)) < severity.get(previous, len(RISK_ORDER)):
+            moves["riskier"] += n
+        elif severity.get(risk, len(RISK_ORDER)) > severity.get(previous, len(RISK_ORDER)):
+            moves["less_risky"] += n
+        else:
+            moves["same_level"] += n
+        moves["limit_changed"] += n if limit_changed else 0
+    replaced = dict(
+        scope_to_user(FittedCapacitor.objects.filter(removed_on__gte=since.date()), user)
+        .values_list("removal_reason")
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    worse, better, _ = risk_changes(days=days, limit=limit, user=user)
+    return {
+        "days": days,
+        "readings": readings,
+        "refit_runs": refit_runs,
+        "reassessed": sum(v for k, v in moves.items() if k != "limit_changed"),
+        "moves": moves,
+        "replaced": sum(replaced.values()),
+        "failed": replaced.get(FittedCapacitor.RemovalReason.FAILED, 0),
+        "worse": worse,
+        "better": better,
+    }
+
+
+def dashboard(user=None, today: dt.date | None = None) -> dict:
+    """Everything the dashboard shows, with its figures (a fixed number of queries)."""
+    today = today or timezone.localdate()
+    workload = weekly_workload(user, today)
+    spares = spares_by_month(user, today)
+    mix = risk_mix(user)
+    routes = readings_by_route(user, today)
+    weeks = [w.isoformat() for w in workload["weeks"]]
+    months = [m.isoformat() for m in spares["months"]]
+    chart_parts = [{**row, "code": row["part"].code} for row in spares["parts"]]
+    return {
+        "today": today,
+        "workload": workload,
+        "spares": spares,
+        "mix": mix,
+        "routes": routes,
+        "changes": changes_since(7, user),
+        "sites": mix["sites"],
+        "visits_total": sum(workload["visits"]),
+        "overdue_total": sum(r["overdue"] for r in routes["routes"]),
+        "overdue_days": READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS,
+        "workload_chart": workload_figure(weeks, workload["by_risk"], workload["by_site"], workload["visits"]),
+        "spares_chart": spares_figure(months, chart_parts, spares["cost_per_month"]),
+        "stock_chart": stock_figure(chart_parts),
+        "mix_chart": risk_mix_figure(mix["sites"], mix["levels"], mix["counts"]),
+        "routes_chart": routes_figure(routes["routes"]),
+    }
+
+
+TABLES = ("workload", "spares", "risk-mix", "readings")
+
+
+def dashboard_table(name: str, user=None, today: dt.date | None = None) -> tuple[list[str], list[list]]:
+    """One chart's numbers as a table (header, rows) for download."""
+    today = today or timezone.localdate()
+    if name == "workload":
+        data = weekly_workload(user, today)
+        levels, sites = list(data["by_risk"]), list(data["by_site"])
+        header = ["week_starting", *levels, *(f"site {s}" for s in sites), "site_visits"]
+        rows = [
+            [week, *(data["by_risk"][r][k] for r in levels), *(data["by_site"][s][k] for s in sites), data["visits"][k]]
+            for k, week in enumerate(data["weeks"])
+        ]
+        return header, rows
+    if name == "spares":
+        data = spares_by_month(user, today)
+        header = ["month", "part", "planned", "expected_failures", "need", "cost", "stock_held", "short_from"]
+        rows = [
+            [
+                month.strftime("%Y-%m"),
+                row["part"].code,
+                int(row["planned"][k]),
+                round(row["failures"][k], 3),
+                round(row["need"][k], 3),
+                round(row["cost"][k], 2),
+                row["stock"],
+                row["short_from"].strftime("%Y-%m") if row["short_from"] else "",
+            ]
+            for row in data["parts"]
+            for k, month in enumerate(data["months"])
+        ]
+        return header, rows
+    if name == "risk-mix":
+        data = risk_mix(user)
+        header = ["site", *(level.replace(" ", "_") for level in data["levels"])]
+        return header, [[site, *(data["counts"][site][level] for level in data["levels"])] for site in data["sites"]]
+    if name == "readings":
+        data = readings_by_route(user, today)
+        header = ["site", "site_name", "overdue", "due_this_quarter", "read_this_quarter"]
+        return header, [[r["code"], r["name"], r["overdue"], r["due"], r["read"]] for r in data["routes"]]
+    raise KeyError(name)

@@ -1,0 +1,238 @@
+"""The planner's dashboard reads stored results by aggregation; the daily digest by email."""
+
+import datetime as dt
+
+import numpy as np
+import pytest
+from django.core import mail
+from django.db import connection
+from django.test.utils import CaptureQueriesContext
+from django.urls import reverse
+from django.utils import timezone
+from scipy import stats
+
+from fleet.models import Assessment, DigestEntry, PartLifeFit, SiteMembership, SiteStock, WorkOrder
+from fleet.roles import PLANNER, TECHNICIAN
+from fleet.services.alerts import send_daily_digest
+from fleet.services.dashboard import readings_by_route, risk_mix, spares_by_month, weekly_workload
+
+from .conftest import make_installation, make_motor, make_part, make_reading, make_site, make_user
+
+pytestmark = pytest.mark.django_db
+
+TODAY = dt.date(2026, 12, 2)  # a Wednesday; its week starts on Monday 2026-11-30
+
+
+def stored_assessment(installation, risk, replace_by, created_at=None, limit_source="tolerance", reason="because"):
+    """A current assessment as a refit stores it (the dashboard only reads them)."""
+    Assessment.objects.filter(installation=installation, is_current=True).update(is_current=False)
+    assessment = Assessment.objects.create(
+        installation=installation,
+        model_version="test",
+        fitted_through=timezone.now(),
+        readings_used=4,
+        trend_model="linear",
+        slope_pct_per_1000h=-0.1,
+        slope_sd_pct_per_1000h=0.01,
+        capacitance_now_uf=3.9,
+        latest_verdict="within tolerance",
+        limit_fraction=0.95,
+        limit_source=limit_source,
+        risk=risk,
+        replace_by=replace_by,
+        reason=reason,
+    )
+    if created_at is not None:
+        Assessment.objects.filter(id=assessment.id).update(created_at=created_at)
+    return assessment
+
+
+def fleet(per_site: int, sites=None, part=None):
+    """Two sites of capacitors at every risk level, read recently, with work orders and stock."""
+    sites = sites or [make_site(), make_site()]
+    part = part or make_part(unit_cost=10)
+    installations = []
+    for site in sites:
+        for i in range(per_site):
+            installation = make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2020, 1, 1))
+            make_reading(installation, taken_at=timezone.now() - dt.timedelta(days=3))
+            risk = ("replace now", "due soon", "watch", "sound")[i % 4]
+            stored_assessment(installation, risk, timezone.localdate() + dt.timedelta(days=10 * i))
+            WorkOrder.objects.create(
+                motor=installation.motor, installation=installation, kind="replace_run", due_on=timezone.localdate()
+            )
+            installations.append(installation)
+        SiteStock.objects.create(site=site, part=part, quantity=2)
+    PartLifeFit.objects.update_or_create(part=part, defaults=dict(beta=2.0, eta_years=10.0, failures=3, suspensions=10))
+    return installations
+
+
+def test_the_dashboard_takes_as_many_queries_for_a_large_fleet_as_for_a_small_one(client):
+    planner = make_user(PLANNER)
+    client.force_login(planner)
+    fleet(per_site=2)
+    client.get(reverse("dashboard"))  # session and permission caches warm
+    with CaptureQueriesContext(connection) as small:
+        assert client.get(reverse("dashboard")).status_code == 200
+    fleet(per_site=12)
+    with CaptureQueriesContext(connection) as large:
+        response = client.get(reverse("dashboard"))
+    assert response.status_code == 200
+    assert len(large.captured_queries) == len(small.captured_queries)
+    # [derived] every replace-by date of both fleets lies within 110 days: all 28 are in the 26 weeks
+    assert response.context["workload"]["total"] == 2 * 2 + 2 * 12
+
+
+def test_workload_counts_each_week_by_risk_and_site_with_past_dates_in_this_week():
+    here, there = make_site(code="HERE"), make_site(code="THERE")
+    part = make_part()
+    due = [  # (site, risk, replace_by)
+        (here, "replace now", TODAY - dt.timedelta(days=40)),  # past its date: this week
+        (here, "due soon", TODAY + dt.timedelta(days=5)),  # Monday 2026-12-07: the second week
+        (there, "due soon", TODAY + dt.timedelta(days=6)),
+        (there, "watch", TODAY + dt.timedelta(weeks=30)),  # beyond 26 weeks: not counted
+    ]
+    for site, risk, replace_by in due:
+        installation = make_installation(motor=make_motor(site=site), part=part)
+        stored_assessment(installation, risk, replace_by)
+    removed = make_installation(part=part, removed_on=TODAY, removal_reason="planned")
+    stored_assessment(removed, "replace now", TODAY)  # no longer in service: not counted
+    workload = weekly_workload(None, TODAY)
+    assert workload["weeks"][0] == dt.date(2026, 11, 30) and len(workload["weeks"]) == 26
+    assert workload["by_risk"]["replace now"][:2] == [1, 0]
+    assert workload["by_risk"]["due soon"][:2] == [0, 2]
+    assert "watch" not in workload["by_risk"]
+    assert workload["by_site"]["HERE"][:2] == [1, 1] and workload["by_site"]["THERE"][:2] == [0, 1]
+    assert workload["total"] == 3 and workload["past_due"] == 1
+
+
+def test_spares_add_the_plan_and_the_failures_expected_from_life_data_against_stock():
+    site = make_site()
+    part = make_part(unit_cost=10)
+    PartLifeFit.objects.create(part=part, beta=2.5, eta_years=8.0, failures=5, suspensions=20)
+    planned = make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2021, 12, 10))
+    stored_assessment(planned, "due soon", dt.date(2027, 2, 20))  # third month
+    unplanned = make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2021, 12, 10))
+    SiteStock.objects.create(site=site, part=part, quantity=1)
+    spares = spares_by_month(None, TODAY)
+    row = spares["parts"][0]
+    assert spares["months"][0] == dt.date(2026, 12, 1) and len(spares["months"]) == 12
+    assert row["planned"][:4] == [0, 0, 1, 0] and sum(row["planned"]) == 1
+    # [pub] scipy.stats.weibull_min conditional probabilities; ages from mid-month
+    weibull = stats.weibull_min(2.5, scale=8.0)
+    age = (TODAY - dt.date(2021, 12, 16)).days / 365.25  # the 1st of the fitting month and 15 days
+    months = [dt.date(2026, 12, 1)] + [dt.date(2027, m, 1) for m in range(1, 13)]
+    edges = np.array([max((m - TODAY).days, 0) for m in months]) / 365.25
+    unplanned_failures = (weibull.sf(age + edges[:-1]) - weibull.sf(age + edges[1:])) / weibull.sf(age)
+    until = (dt.date(2027, 2, 16) - TODAY).days / 365.25  # the planned one counts until mid-February
+    cut = np.minimum(edges, until)
+    planned_failures = (weibull.sf(age + cut[:-1]) - weibull.sf(age + cut[1:])) / weibull.sf(age)
+    assert row["failures"] == pytest.approx(unplanned_failures + planned_failures, rel=1e-6)
+    assert row["need"][2] == pytest.approx(1 + row["failures"][2])
+    assert row["cost"] == pytest.approx([10 * n for n in row["need"]])
+    assert row["stock"] == 1
+    # [derived] the stock of one runs short in the first month whose cumulative need, rounded up, passes it
+    cumulative = np.ceil(np.cumsum(row["need"]) - 1e-9)
+    assert row["short_from"] == spares["months"][int(np.flatnonzero(cumulative > 1)[0])]
+    assert unplanned.removed_on is None
+
+
+def test_risk_mix_and_readings_by_route():
+    site = make_site(code="R1")
+    part = make_part()
+    fresh = make_installation(motor=make_motor(site=site), part=part)
+    make_reading(fresh, taken_at=timezone.make_aware(dt.datetime(2026, 11, 20, 9)))
+    stored_assessment(fresh, "watch", None)
+    stale = make_installation(motor=make_motor(site=site), part=part)
+    make_reading(stale, taken_at=timezone.make_aware(dt.datetime(2026, 7, 1, 9)))  # 154 days before
+    stored_assessment(stale, "replace now", TODAY)
+    last_quarter = make_installation(motor=make_motor(site=site), part=part)
+    make_reading(last_quarter, taken_at=timezone.make_aware(dt.datetime(2026, 9, 15, 9)))
+    make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2026, 11, 1))  # new, not read
+    mix = risk_mix(None)
+    assert mix["counts"]["R1"]["watch"] == 1 and mix["counts"]["R1"]["replace now"] == 1
+    assert mix["counts"]["R1"]["not assessed yet"] == 2
+    route = readings_by_route(None, TODAY)["routes"][0]
+    # [trade] quarterly readings: overdue after 91 days and 14 of grace; due if not read since 2026-10-01
+    assert (route["overdue"], route["due"], route["read"]) == (1, 2, 1)
+
+
+def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_moved(client):
+    installation = make_installation()
+    make_reading(installation, taken_at=timezone.now() - dt.timedelta(days=2))
+    stored_assessment(installation, "watch", None, created_at=timezone.now() - dt.timedelta(days=9))
+    stored_assessment(installation, "replace now", TODAY, limit_source="starting torque", reason="torque falls short")
+    client.force_login(make_user(PLANNER))
+    response = client.get(reverse("dashboard"))
+    changes = response.context["changes"]
+    assert changes["moves"]["riskier"] == 1 and changes["moves"]["limit_changed"] == 1 and changes["readings"] == 1
+    body = response.content.decode()
+    assert "Torque falls short" in body and "governing limit was tolerance, now starting torque" in body
+
+
+def test_each_chart_downloads_its_numbers(client):
+    fleet(per_site=2)
+    client.force_login(make_user(PLANNER))
+    for name, heading in (
+        ("workload", "week_starting"),
+        ("spares", "month,part,planned"),
+        ("risk-mix", "site,replace_now"),
+        ("readings", "site,site_name,overdue"),
+    ):
+        response = client.get(reverse("dashboard_csv", args=[name]))
+        text = b"".join(response.streaming_content).decode("utf-8-sig")
+        assert text.startswith(heading), name
+    assert client.get(reverse("dashboard_csv", args=["nothing"])).status_code == 404
+
+
+def test_sign_in_lands_planners_on_the_dashboard_and_others_at_home(client):
+    for role, landing in ((PLANNER, "dashboard"), (TECHNICIAN, "home")):
+        user = make_user(role)
+        response = client.post(reverse("login"), {"username": user.username, "password": "a-long-test-password"})
+        assert response.url == reverse("after_sign_in")
+        assert client.get(response.url).url == reverse(landing)
+        client.logout()
+
+
+def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link(settings):
+    settings.FLEET_SITE_URL = "https://fleet.example.org"
+    here, there = make_site(code="HERE"), make_site(code="THERE")
+    everywhere = make_user(PLANNER)
+    everywhere.email = "all@example.org"
+    everywhere.save()
+    limited = make_user(PLANNER)
+    limited.email = "there@example.org"
+    limited.save()
+    SiteMembership.objects.create(user=limited, site=there)
+    no_address = make_user(PLANNER)  # no email address: nothing to send to
+    technician = make_user(TECHNICIAN)
+    technician.email = "tech@example.org"
+    technician.save()
+    worn = make_installation(motor=make_motor(site=here, asset_tag="HERE-0001"))
+    make_reading(worn, taken_at=timezone.now() - dt.timedelta(days=3))
+    stored_assessment(worn, "replace now", TODAY, reason="latest reading below the tolerance limit")
+    unread = make_installation(motor=make_motor(site=there, asset_tag="THERE-0002"))
+    make_reading(unread, taken_at=timezone.make_aware(dt.datetime(2026, 7, 1, 9)))
+    stored_assessment(unread, "sound", None)
+
+    assert send_daily_digest(today=TODAY) == {"new": 2, "ended": 0, "emails": 2}
+    by_recipient = {message.to[0]: message for message in mail.outbox}
+    assert set(by_recipient) == {"all@example.org", "there@example.org"}
+    full = by_recipient["all@example.org"].body
+    assert "HERE-0001 run capacitor" in full and "latest reading below the tolerance limit" in full
+    assert f"https://fleet.example.org{reverse('capacitor', args=[worn.id])}" in full
+    assert "THERE-0002 run capacitor: last read 2026-07-01, 154 days ago" in full
+    assert f"https://fleet.example.org{reverse('route', args=['THERE'])}?show=due" in full
+    assert "charge that can kill" in full
+    assert "1 to replace now, 1 readings overdue" in by_recipient["all@example.org"].subject
+    assert "HERE-0001" not in by_recipient["there@example.org"].body  # another site's capacitor
+    assert no_address.email == ""
+
+    assert send_daily_digest(today=TODAY) == {"new": 0, "ended": 0, "emails": 0}  # the same day again
+    assert len(mail.outbox) == 2
+
+    stored_assessment(worn, "due soon", TODAY)  # leaves the top level ...
+    assert send_daily_digest(today=TODAY)["ended"] == 1 and len(mail.outbox) == 2
+    stored_assessment(worn, "replace now", TODAY)  # ... and enters it again: reported again
+    assert send_daily_digest(today=TODAY) == {"new": 1, "ended": 0, "emails": 1}
+    assert DigestEntry.objects.count() == 2
