@@ -200,3 +200,148 @@ def coverage_figure(cutoffs: list[str], coverage_by_variant: dict[str, list[floa
     figure.update_xaxes(type="date", tickformat="%Y-%m")
     figure.update_yaxes(range=[0, 100], ticksuffix=" %")
     return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="cut-off", yaxis_title="crossings inside P10-P90")
+
+
+PHASOR_HEIGHT_PX = 380
+SWEEP_HEIGHT_PX = 520
+PHASOR_STYLE = {  # label: (name on the chart, colour, unit)
+    "line": ("line current", "#3f7d3a", "A"),
+    "main": ("main winding", INK, "A"),
+    "aux": ("auxiliary winding", TREND, "A"),
+    "supply": ("supply voltage", DEFAULT_BANDS, "V"),
+    "capacitor": ("capacitor voltage", LIMIT, "V"),
+}
+
+
+def phasor_figure(states: dict[str, dict[str, tuple]], where: str) -> dict:
+    """Phasor diagram: currents (A) on the left, voltages (V) on the right, supply at 0 degrees.
+
+    states: "as new" and, if known, "now" -> {line, main, aux, supply, capacitor: (magnitude, angle_deg)};
+    as new dashed, now solid. `where`: "running" or "at standstill" (where the capacitor works).
+    """
+    figure = go.Figure()
+    for state, points in states.items():
+        now = state == "now" or len(states) == 1
+        for label, (magnitude, angle) in points.items():
+            name, color, unit = PHASOR_STYLE[label]
+            if magnitude is None or angle is None:
+                continue
+            figure.add_trace(
+                go.Scatterpolar(
+                    r=[0, magnitude],
+                    theta=[0, angle],
+                    mode="lines+markers",
+                    line={"color": color, "width": 3 if now else 2, "dash": "solid" if now else "dash"},
+                    marker={"symbol": "arrow", "angleref": "previous", "size": [0, 13], "color": color},
+                    name=name,
+                    legendgroup=label,
+                    showlegend=now,
+                    subplot="polar" if unit == "A" else "polar2",
+                    hovertemplate=f"{name}, {state}: %{{r:.3~f}} {unit} at %{{theta:.1f}}\u00b0<extra></extra>",
+                )
+            )
+    polar = {
+        "angularaxis": {"direction": "counterclockwise", "rotation": 0, "gridcolor": GRID, "dtick": 30},
+        "radialaxis": {"gridcolor": GRID, "angle": 0, "tickfont": {"size": 11}},
+        "bgcolor": "white",
+    }
+    figure.update_layout(
+        polar={**polar, "domain": {"x": [0, 0.47], "y": [0.08, 1]}},
+        polar2={**polar, "domain": {"x": [0.53, 1], "y": [0.08, 1]}},
+        annotations=[
+            {"text": "currents (A)", "x": 0.235, "y": 1.0, "xref": "paper", "yref": "paper", "showarrow": False,
+             "yanchor": "bottom"},
+            {"text": "voltages (V)", "x": 0.765, "y": 1.0, "xref": "paper", "yref": "paper", "showarrow": False,
+             "yanchor": "bottom"},
+            {"text": f"{where}; " + ("dashed: as new, solid: now" if len(states) > 1 else "as new"),
+             "x": 0.5, "y": 0.0, "xref": "paper", "yref": "paper", "showarrow": False, "yanchor": "top",
+             "font": {"size": 12, "color": DEFAULT_BANDS}},
+        ],
+    )
+    return _styled(figure, height=PHASOR_HEIGHT_PX)
+
+
+def capacitance_sweep_figure(
+    percent_of_rated: list[float],
+    rated_uf: float,
+    values: dict[str, list],
+    levels: dict[str, float | None],
+    points: dict[str, dict],
+    crossings: list[dict],
+) -> dict:
+    """Starting torque, capacitor voltage and main current against capacitance (% of rated), one panel
+    each, with each limit's level (dashed), where the assessment found it crossed (dotted), and the
+    as-new and present points marked."""
+    from plotly.subplots import make_subplots
+
+    panels = (
+        ("starting_torque_nm", "starting torque (N m)", "least: load break-away"),
+        ("capacitor_voltage_v", "capacitor voltage (V)", "most: capacitor rating"),
+        ("main_current_a", "main current (A)", "most: full-load current x service factor"),
+    )
+    figure = make_subplots(rows=3, cols=1, shared_xaxes=True, vertical_spacing=0.06)
+    for row, (key, title, level_words) in enumerate(panels, start=1):
+        figure.add_trace(
+            go.Scatter(
+                x=percent_of_rated,
+                y=values[key],
+                mode="lines",
+                line={"color": TREND, "width": 2},
+                name=title,
+                showlegend=False,
+                hovertemplate=f"%{{x:.1f}} % of rated: %{{y:.3~f}}<extra>{title}</extra>",
+            ),
+            row=row,
+            col=1,
+        )
+        if levels.get(key) is not None:
+            figure.add_hline(
+                y=levels[key],
+                line={"color": LIMIT, "dash": "dash", "width": 1.5},
+                annotation_text=level_words,
+                annotation_position="top left",
+                annotation_font={"size": 11, "color": LIMIT},
+                row=row,
+                col=1,
+            )
+        for label, point in points.items():
+            figure.add_trace(
+                go.Scatter(
+                    x=[point["percent_of_rated"]],
+                    y=[point[key]],
+                    mode="markers",
+                    marker={
+                        "color": INK if label == "now" else "white",
+                        "line": {"color": INK, "width": 2},
+                        "size": 11,
+                        "symbol": "circle" if label == "now" else "diamond",
+                    },
+                    name=label,
+                    legendgroup=label,
+                    showlegend=row == 1,
+                    hovertemplate=f"{label}: %{{x:.1f}} % of rated, %{{y:.3~f}}<extra></extra>",
+                ),
+                row=row,
+                col=1,
+            )
+        figure.update_yaxes(title_text=title, title_font={"size": 12}, row=row, col=1)
+    for crossing in crossings:
+        if percent_of_rated[0] <= crossing["percent_of_rated"] <= percent_of_rated[-1]:
+            figure.add_vline(x=crossing["percent_of_rated"], line={"color": LIMIT, "dash": "dot", "width": 1})
+            figure.add_annotation(
+                x=crossing["percent_of_rated"],
+                y=1.0,
+                xref="x",
+                yref="paper",
+                text=crossing["name"],
+                showarrow=False,
+                textangle=-90,
+                xanchor="right",
+                yanchor="top",
+                font={"size": 11, "color": LIMIT},
+            )
+    figure.update_xaxes(title_text=f"capacitance, % of rated {rated_uf:g} \u00b5F", row=3, col=1)
+    styled = _styled(figure, height=SWEEP_HEIGHT_PX)
+    styled["layout"]["legend"] = {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 1, "xanchor": "right"}
+    styled["layout"]["margin"]["t"] = 30
+    return styled

@@ -39,6 +39,7 @@ from .services.import_jobs import (
     rejected_rows_csv,
 )
 from .services.lifedata import part_life
+from .services.operating_pictures import motor_pictures
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_installations
 from .services.register import set_route_order, set_site_stock
@@ -83,8 +84,13 @@ def motor_detail(request, asset_tag):
     for capacitor in in_service:
         capacitor.assessment = capacitor.current[0] if capacitor.current else None
         capacitor.recent = pages.recent_readings(capacitor, 4)
+    pictures = motor_pictures(in_service) if motor.has_circuit else {}
+    for capacitor in in_service:
+        picture = pictures.get(capacitor.id)
+        ids = {"phasors_id": f"phasors-{capacitor.id}-data", "sweep_id": f"sweep-{capacitor.id}-data"}
+        capacitor.pictures = {**picture, **ids} if picture else None
     energy = max((_energy_j(c.part) for c in in_service), default=None)
-    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy}
+    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy, "pictures": pictures}
     return render(request, "fleet/motor.html", context)
 
 

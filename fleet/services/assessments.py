@@ -200,7 +200,7 @@ def stored_calibration() -> dict[str, tuple[float, ...]]:
     return {family: tuple(values) for family, *values in rows}
 
 
-def _motor_circuits(inst: pd.DataFrame):
+def motor_circuits(inst: pd.DataFrame):
     """Circuit, load and ratings of the motors that have an equivalent circuit."""
     with_circuit = inst["r1m_ohm"].notna().to_numpy()
     sub = inst[with_circuit]
@@ -382,7 +382,7 @@ def assess(
     notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
     figures_now: list = [{} for _ in range(n)]
     figures_new: list = [{} for _ in range(n)]
-    with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
+    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
         index = np.flatnonzero(with_circuit)
