@@ -204,26 +204,26 @@ def coverage_figure(cutoffs: list[str], coverage_by_variant: dict[str, list[floa
 
 PHASOR_HEIGHT_PX = 380
 SWEEP_HEIGHT_PX = 520
-PHASOR_STYLE = {  # label: (name on the chart, colour, unit)
-    "line": ("line current", "#3f7d3a", "A"),
-    "main": ("main winding", INK, "A"),
-    "aux": ("auxiliary winding", TREND, "A"),
-    "supply": ("supply voltage", DEFAULT_BANDS, "V"),
-    "capacitor": ("capacitor voltage", LIMIT, "V"),
+PHASOR_STYLE = {  # label: (name on the chart, colour)
+    "line": ("line current", "#3f7d3a"),
+    "main": ("main winding", INK),
+    "aux": ("auxiliary winding", TREND),
+    "supply": ("supply voltage", DEFAULT_BANDS),
+    "capacitor": ("capacitor voltage", LIMIT),
 }
 
 
-def phasor_figure(states: dict[str, dict[str, tuple]], where: str) -> dict:
-    """Phasor diagram: currents (A) on the left, voltages (V) on the right, supply at 0 degrees.
+def phasor_figure(states: dict[str, dict[str, tuple]], unit: str, where: str) -> dict:
+    """Phasor diagram of currents (unit "A") or voltages ("V"), the supply voltage at 0 degrees.
 
-    states: "as new" and, if known, "now" -> {line, main, aux, supply, capacitor: (magnitude, angle_deg)};
-    as new dashed, now solid. `where`: "running" or "at standstill" (where the capacitor works).
+    states: "as new" and, if known, "now" -> {label: (magnitude, angle_deg)} with labels from
+    PHASOR_STYLE; as new dashed, now solid. `where`: "running" or "at standstill".
     """
     figure = go.Figure()
     for state, points in states.items():
         now = state == "now" or len(states) == 1
         for label, (magnitude, angle) in points.items():
-            name, color, unit = PHASOR_STYLE[label]
+            name, color = PHASOR_STYLE[label]
             if magnitude is None or angle is None:
                 continue
             figure.add_trace(
@@ -236,29 +236,26 @@ def phasor_figure(states: dict[str, dict[str, tuple]], where: str) -> dict:
                     name=name,
                     legendgroup=label,
                     showlegend=now,
-                    subplot="polar" if unit == "A" else "polar2",
                     hovertemplate=f"{name}, {state}: %{{r:.3~f}} {unit} at %{{theta:.1f}}\u00b0<extra></extra>",
                 )
             )
-    polar = {
-        "angularaxis": {"direction": "counterclockwise", "rotation": 0, "gridcolor": GRID, "dtick": 30},
-        "radialaxis": {"gridcolor": GRID, "angle": 0, "tickfont": {"size": 11}},
-        "bgcolor": "white",
-    }
     figure.update_layout(
-        polar={**polar, "domain": {"x": [0, 0.47], "y": [0.08, 1]}},
-        polar2={**polar, "domain": {"x": [0.53, 1], "y": [0.08, 1]}},
-        annotations=[
-            {"text": "currents (A)", "x": 0.235, "y": 1.0, "xref": "paper", "yref": "paper", "showarrow": False,
-             "yanchor": "bottom"},
-            {"text": "voltages (V)", "x": 0.765, "y": 1.0, "xref": "paper", "yref": "paper", "showarrow": False,
-             "yanchor": "bottom"},
-            {"text": f"{where}; " + ("dashed: as new, solid: now" if len(states) > 1 else "as new"),
-             "x": 0.5, "y": 0.0, "xref": "paper", "yref": "paper", "showarrow": False, "yanchor": "top",
-             "font": {"size": 12, "color": DEFAULT_BANDS}},
-        ],
+        polar={
+            "angularaxis": {"direction": "counterclockwise", "rotation": 0, "gridcolor": GRID, "dtick": 30},
+            "radialaxis": {"gridcolor": GRID, "angle": 135, "tickangle": 45, "nticks": 4, "tickfont": {"size": 11}},
+            "bgcolor": "white",
+        },
     )
-    return _styled(figure, height=PHASOR_HEIGHT_PX)
+    styled = _styled(figure, height=PHASOR_HEIGHT_PX)
+    styled["layout"]["margin"] = {"l": 30, "r": 30, "t": 30, "b": 20}
+    states_words = "dashed: as new, solid: now" if len(states) > 1 else "as new"
+    styled["layout"]["legend"] = {
+        "orientation": "h",
+        "y": -0.1,
+        "yanchor": "top",
+        "title": {"text": f"{unit}, {where}; {states_words}", "side": "top", "font": {"size": 12}},
+    }
+    return styled
 
 
 def capacitance_sweep_figure(

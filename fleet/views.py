@@ -86,9 +86,10 @@ def motor_detail(request, asset_tag):
         capacitor.recent = pages.recent_readings(capacitor, 4)
     pictures = motor_pictures(in_service) if motor.has_circuit else {}
     for capacitor in in_service:
-        picture = pictures.get(capacitor.id)
-        ids = {"phasors_id": f"phasors-{capacitor.id}-data", "sweep_id": f"sweep-{capacitor.id}-data"}
-        capacitor.pictures = {**picture, **ids} if picture else None
+        capacitor.charts = [
+            {"id": f"{name}-{capacitor.id}", "data_id": f"{name}-{capacitor.id}-data", "figure": figure}
+            for name, figure in pictures.get(capacitor.id, {}).items()
+        ]
     energy = max((_energy_j(c.part) for c in in_service), default=None)
     context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy, "pictures": pictures}
     return render(request, "fleet/motor.html", context)

@@ -153,7 +153,9 @@ def capacitor_sweep(
     fraction = np.broadcast_to(np.asarray(fractions, float), np.broadcast_shapes((*motors, 1), np.shape(fractions)))
     run_uf = np.where(is_run, fraction, 1.0) * column(np.asarray(rated_run_uf, float))
     start_uf = np.where(is_run, 1.0, fraction) * column(np.nan_to_num(np.asarray(rated_start_uf, float)))
-    columns = MotorCircuit.from_arrays(**{name: column(getattr(circuit, name)) for name in circuit.__dataclass_fields__})
+    columns = MotorCircuit.from_arrays(
+        **{name: column(getattr(circuit, name)) for name in circuit.__dataclass_fields__}
+    )
     column_load = Load(column(load.torque_at_rated_nm), column(load.rated_speed_rad_s), column(load.kind))
     runs, point, locked = _running_and_locked(columns, column_load, run_uf, start_uf, column(motor_kind))
     figures = _figures(runs, point, locked)

@@ -25,9 +25,12 @@ def _number(value) -> float | None:
     return round(value, 4) if np.isfinite(value) else None
 
 
-def _phasor_points(phasors, column: int) -> dict:
-    """Magnitude and angle (degrees, supply at 0) of each phasor in one column of the sweep."""
-    names = {"supply_v": "supply", "i_main": "main", "i_aux": "aux", "i_line": "line", "v_capacitor": "capacitor"}
+CURRENTS = {"i_line": "line", "i_main": "main", "i_aux": "aux"}
+VOLTAGES = {"supply_v": "supply", "v_capacitor": "capacitor"}
+
+
+def _phasor_points(phasors, column: tuple[int, int], names: dict[str, str]) -> dict:
+    """Magnitude and angle (degrees, supply at 0) of the named phasors at one point of the sweep."""
     return {
         label: (_number(np.abs(value[column])), _number(np.degrees(np.angle(value[column]))))
         for label, value in ((label, getattr(phasors, name)) for name, label in names.items())
@@ -35,7 +38,8 @@ def _phasor_points(phasors, column: int) -> dict:
 
 
 def motor_pictures(capacitors) -> dict[int, dict]:
-    """Per capacitor in service (by id): the phasor figure and the capacitance figure.
+    """Per capacitor in service (by id): phasor figures of currents and voltages, and the figures
+    against capacitance with the limits.
 
     `capacitors` are one motor's fitted capacitors in service, each with `assessment` (the current
     one, or None). Empty when the motor has no equivalent circuit.
@@ -55,41 +59,38 @@ def motor_pictures(capacitors) -> dict[int, dict]:
     has_now = np.isfinite(now_fraction) & (now_fraction > 0)
     role = inst["role"].to_numpy()
     n = len(inst)
-    fractions = np.hstack([np.tile(SWEEP_FRACTIONS, (n, 1)), np.ones((n, 1)), np.where(has_now, now_fraction, 1.0)[:, None]])
+    # Per capacitor: the grid, then as new (rated), then now.
+    now_column = np.where(has_now, now_fraction, 1.0)[:, None]
+    fractions = np.hstack([np.tile(SWEEP_FRACTIONS, (n, 1)), np.ones((n, 1)), now_column])
     sweep = capacitor_sweep(circuit, load, kind, role, run_uf, start_uf, fractions)
     levels = limit_levels(load, role, inst["full_load_current_a"], inst["part_rated_voltage_v"])
-    grid = slice(0, len(SWEEP_FRACTIONS))
     swept = {
         "starting_torque_nm": sweep.figures.starting_torque_nm,
         "capacitor_voltage_v": sweep.capacitor_voltage_v,
         "main_current_a": sweep.figures.i_main_a,
     }
+    steps = len(SWEEP_FRACTIONS)
     pictures = {}
     for i, capacitor in enumerate(ordered):
-        new_column, now_column = len(SWEEP_FRACTIONS), len(SWEEP_FRACTIONS) + 1
-        running = role[i] == ROLE_RUN
-        states = {"as new": _phasor_points(sweep.phasors, (i, new_column))}
-        if has_now[i]:
-            states["now"] = _phasor_points(sweep.phasors, (i, now_column))
+        points = {"as new": steps, **({"now": steps + 1} if has_now[i] else {})}
+        where = "running" if role[i] == ROLE_RUN else "at standstill"
+        currents = {state: _phasor_points(sweep.phasors, (i, k), CURRENTS) for state, k in points.items()}
+        voltages = {state: _phasor_points(sweep.phasors, (i, k), VOLTAGES) for state, k in points.items()}
         limits = capacitor.assessment.limits if capacitor.assessment else []
-
-        def series(values, i=i):
-            return [_number(v) for v in values[i]]
-
-        points = {"as new": new_column, **({"now": now_column} if has_now[i] else {})}
         pictures[capacitor.id] = {
-            "phasors": phasor_figure(states, "running" if running else "at standstill"),
+            "currents": phasor_figure(currents, "A", where),
+            "voltages": phasor_figure(voltages, "V", where),
             "sweep": capacitance_sweep_figure(
-                percent_of_rated=[round(100 * f, 2) for f in sweep.fraction[i, grid]],
+                percent_of_rated=[round(100 * f, 2) for f in SWEEP_FRACTIONS],
                 rated_uf=float(rated_uf[i]),
-                values={name: series(swept[name][:, grid]) for name in QUANTITIES},
+                values={name: [_number(v) for v in swept[name][i, :steps]] for name in QUANTITIES},
                 levels={name: _number(getattr(levels, name)[i]) for name in QUANTITIES},
                 points={
-                    label: {
-                        "percent_of_rated": round(100 * float(sweep.fraction[i, column]), 2),
-                        **{name: _number(swept[name][i, column]) for name in QUANTITIES},
+                    state: {
+                        "percent_of_rated": round(100 * float(sweep.fraction[i, k]), 2),
+                        **{name: _number(swept[name][i, k]) for name in QUANTITIES},
                     }
-                    for label, column in points.items()
+                    for state, k in points.items()
                 },
                 crossings=[
                     {"name": limit["name"], "percent_of_rated": round(100 * limit["fraction_of_rated"], 1)}

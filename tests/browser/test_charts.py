@@ -59,3 +59,14 @@ def test_the_life_data_charts_keep_their_height(phone):
     phone.wait_for_selector("#cost-chart .main-svg")
     _charts_hold(phone, ["weibull-chart", "cost-chart"])
     phone.shot("life-data-after-resize")
+
+
+def test_the_motor_page_operating_point_charts_keep_their_height(phone):
+    installation = make_installation()
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7, 3.6])
+    refit_installations([installation.id])
+    sign_in(phone, make_user("reliability engineer"))
+    phone.goto(f"/motors/{installation.motor.asset_tag}/")
+    phone.wait_for_selector(f"#sweep-{installation.id}-chart .main-svg")
+    _charts_hold(phone, [f"{name}-{installation.id}-chart" for name in ("currents", "voltages", "sweep")])
+    phone.shot("motor-operating-point-after-resize")
