@@ -18,6 +18,12 @@ import tempfile
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 
+from openpyxl import Workbook
+from openpyxl.cell import WriteOnlyCell
+from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+from openpyxl.styles import Font
+from openpyxl.utils import get_column_letter
+
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r", "'")
 TEXT, FLOAT, INT, DATE, DATETIME, BOOL = "text", "float", "int", "date", "datetime", "bool"
 CHUNK_ROWS = 5000  # rows per Parquet row group and per batch held in memory
@@ -105,7 +111,6 @@ def _csv_value(value):
     return "" if value is None else value
 
 
-XLSX_FORMATS = {DATE: "yyyy-mm-dd", DATETIME: "yyyy-mm-dd hh:mm:ss", FLOAT: "General", INT: "0"}
 XLSX_WIDTHS = {DATE: 12, DATETIME: 20, FLOAT: 12, INT: 10, BOOL: 8}
 
 
@@ -113,11 +118,6 @@ def xlsx_file(table: Table):
     """A workbook in a temporary file: typed cells, frozen header row, filters, column widths,
     text as text (a formula-like value stays a visible '=...' string), an "about" sheet with units.
     Returns the open file, positioned at its start."""
-    from openpyxl import Workbook
-    from openpyxl.cell import WriteOnlyCell
-    from openpyxl.styles import Font
-    from openpyxl.utils import get_column_letter
-
     book = Workbook(write_only=True)
     sheet = book.create_sheet(table.title[:31])
     for index, column in enumerate(table.columns, start=1):
@@ -125,17 +125,16 @@ def xlsx_file(table: Table):
         sheet.column_dimensions[get_column_letter(index)].width = max(width, len(column.name) + 2)
     sheet.freeze_panes = "A2"
     bold = Font(bold=True)
-    sheet.append([_xlsx_cell(sheet, WriteOnlyCell, c.name, TEXT, bold) for c in table.columns])
-    kinds = [c.kind for c in table.columns]
+    sheet.append([_xlsx_cell(sheet, c.name, bold) for c in table.columns])
     rows = 0
     for row in table.rows:
-        sheet.append([_xlsx_cell(sheet, WriteOnlyCell, value, kind) for value, kind in zip(row, kinds, strict=True)])
+        sheet.append([_xlsx_value(sheet, value) for value in row])
         rows += 1
     sheet.auto_filter.ref = f"A1:{get_column_letter(len(table.columns))}{rows + 1}"
     about = book.create_sheet("about")
 
     def text_row(values, font=None):
-        about.append([_xlsx_cell(about, WriteOnlyCell, str(v), TEXT, font) for v in values])
+        about.append([_xlsx_cell(about, str(v), font) for v in values])
 
     for key, value in table.describe().items():
         if key != "columns":
@@ -150,18 +149,27 @@ def xlsx_file(table: Table):
     return handle
 
 
-def _xlsx_cell(sheet, cell_class, value, kind, font=None):
-    """A typed cell; text is forced to a string cell so '=...' is never a formula."""
-    if isinstance(value, dt.datetime):
-        value = value.astimezone(dt.UTC).replace(tzinfo=None)  # spreadsheets hold no time zone: UTC
-    cell = cell_class(sheet, value=value)
-    if isinstance(value, str):
-        cell.data_type = "s"
-    elif kind in XLSX_FORMATS and value is not None:
-        cell.number_format = XLSX_FORMATS[kind]
+def _xlsx_cell(sheet, value, font=None):
+    """A header or "about" cell: text kept as text, in bold if asked."""
+    cell = WriteOnlyCell(sheet, value=ILLEGAL_CHARACTERS_RE.sub("\ufffd", value))
+    cell.data_type = "s"
     if font is not None:
         cell.font = font
     return cell
+
+
+def _xlsx_value(sheet, value):
+    """A data cell: numbers, dates and booleans as openpyxl types them (dates formatted), date-times
+    in UTC without a zone, text as text; only text openpyxl would take for a formula needs a cell."""
+    if isinstance(value, str):
+        value = ILLEGAL_CHARACTERS_RE.sub("\ufffd", value)
+        if value.startswith("="):
+            cell = WriteOnlyCell(sheet, value=value)
+            cell.data_type = "s"
+            return cell
+    elif isinstance(value, dt.datetime):
+        return value.astimezone(dt.UTC).replace(tzinfo=None)
+    return value
 
 
 def parquet_file(table: Table):

@@ -150,7 +150,7 @@ def test_xlsx_cells_are_typed_with_a_frozen_filtered_header_and_text_kept_as_tex
     assert formula_like and all(row[header.index("notes")].data_type == "s" for row in formula_like)
     assert notes.data_type == "s"
     taken = sheet.cell(row=2, column=header.index("taken_at") + 1)
-    assert isinstance(taken.value, dt.datetime) and taken.number_format == "yyyy-mm-dd hh:mm:ss"
+    assert isinstance(taken.value, dt.datetime) and taken.is_date and "h:mm" in taken.number_format
     uf = sheet.cell(row=2, column=header.index("capacitance_uf") + 1)
     assert uf.data_type == "n"
     assert sheet.column_dimensions["A"].width >= len("reading_id")
@@ -304,3 +304,18 @@ def test_bulk_readings_api_query_count_is_flat(engineer):
             assert api.get(reverse("api_readings"), {"page_size": 100}).status_code == 200
         counts.append(len(queries))
     assert counts[0] == counts[1]
+
+
+def test_the_plan_and_life_data_pages_link_their_filtered_exports(client, awkward_fleet):
+    import html
+    import re
+
+    sites, installations = awkward_fleet
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    plan = client.get(reverse("plan"), {"site": "SUD", "days": 730}).content.decode()
+    life = client.get(reverse("life_data"), {"part": installations[0].part.code}).content.decode()
+    links = [html.unescape(href) for href in re.findall(r'href="(/exports/[^"]+)"', plan + life)]
+    assert "/exports/assessments.parquet?site=SUD" in links and "/exports/readings.csv?site=SUD" in links
+    assert f"/exports/life-data.xlsx?part={installations[0].part.code}" in links
+    for link in links:
+        assert client.get(link).status_code == 200, link
