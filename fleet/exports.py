@@ -66,6 +66,7 @@ class Column:
     kind: str = TEXT
     unit: str = ""
     description: str = ""
+    source: str = ""  # where a table's query reads it (a values_list path); not written to the file
 
 
 @dataclass

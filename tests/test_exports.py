@@ -20,7 +20,7 @@ from rest_framework.test import APIClient
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
 from fleet.roles import PLANNER, RELIABILITY_ENGINEER
 from fleet.services.assessments import MODEL_VERSION, refit_installations
-from fleet.services.exports import ASSESSMENT_COLUMNS, READING_COLUMNS
+from fleet.services.exports import ASSESSMENT_COLUMNS, LIMIT_COLUMNS, READING_COLUMNS
 
 from .conftest import make_installation, make_motor, make_part, make_site, make_user, quarterly_readings
 
@@ -118,7 +118,7 @@ def test_readings_round_trip_with_awkward_text(client, awkward_fleet, file_forma
 def test_assessments_carry_every_limits_dates_as_stored(client, awkward_fleet, file_format):
     client.force_login(make_user(RELIABILITY_ENGINEER))
     _, content = _download(client, "assessments", file_format)
-    rows = {row["installation_id"]: row for row in _parse(content, file_format, ASSESSMENT_COLUMNS)}
+    rows = {row["installation_id"]: row for row in _parse(content, file_format, ASSESSMENT_COLUMNS + LIMIT_COLUMNS)}
     current = Assessment.objects.filter(is_current=True).select_related("installation__motor")
     assert set(rows) == {a.installation_id for a in current}
     for assessment in current:
