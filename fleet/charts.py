@@ -249,11 +249,12 @@ def phasor_figure(states: dict[str, dict[str, tuple]], unit: str, where: str) ->
     styled = _styled(figure, height=PHASOR_HEIGHT_PX)
     styled["layout"]["margin"] = {"l": 30, "r": 30, "t": 30, "b": 20}
     states_words = "dashed: as new, solid: now" if len(states) > 1 else "as new"
+    quantity = "currents" if unit == "A" else "voltages"
     styled["layout"]["legend"] = {
         "orientation": "h",
         "y": -0.1,
         "yanchor": "top",
-        "title": {"text": f"{unit}, {where}; {states_words}", "side": "top", "font": {"size": 12}},
+        "title": {"text": f"{quantity} ({unit}) {where}; {states_words}", "side": "top", "font": {"size": 12}},
     }
     return styled
 
@@ -274,7 +275,7 @@ def capacitance_sweep_figure(
     panels = (
         ("starting_torque_nm", "starting torque (N m)", "least: load break-away"),
         ("capacitor_voltage_v", "capacitor voltage (V)", "most: capacitor rating"),
-        ("main_current_a", "main current (A)", "most: full-load current x service factor"),
+        ("main_current_a", "main current, running (A)", "most: full-load current x service factor"),
     )
     figure = make_subplots(rows=3, cols=1, shared_xaxes=True, vertical_spacing=0.06)
     for row, (key, title, level_words) in enumerate(panels, start=1):
