@@ -1,7 +1,8 @@
 """JSON API for scripts and the engineer's own tools (token or session auth).
 
 Read: current assessments (filter by site, risk, replace-by date), a capacitor's
-readings. Write: a reading, through the same service and checks as the form.
+readings, readings in bulk (filter by site, part, motor, dates; cursor pages). Write: a
+reading, through the same service and checks as the form, stored with source "api".
 """
 
 from __future__ import annotations
@@ -11,9 +12,10 @@ from django.db.models import F
 from django.shortcuts import get_object_or_404
 from django_filters.rest_framework import DjangoFilterBackend
 from rest_framework import generics, permissions, serializers, status
+from rest_framework.pagination import CursorPagination
 from rest_framework.response import Response
 
-from .filters import AssessmentFilter
+from .filters import AssessmentFilter, ReadingFilter
 from .models import Assessment, FittedCapacitor, Reading
 from .roles import scope_to_user
 from .services.pages import in_service_assessments
@@ -168,6 +170,7 @@ class CapacitorReadings(generics.ListCreateAPIView):
                 confirmed=confirmed,
                 client_key=key,
                 supersedes_id=supersedes_id,
+                source=Reading.Source.API,
             )
         except NeedsConfirmation as error:
             body = {**error.message_dict, "confirm": ["Send again with confirmed=true if the value is right."]}
@@ -176,6 +179,43 @@ class CapacitorReadings(generics.ListCreateAPIView):
             return Response(error.message_dict, status=status.HTTP_400_BAD_REQUEST)
         answer = status.HTTP_200_OK if reading.replayed else status.HTTP_201_CREATED
         return Response(self.get_serializer(reading).data, status=answer)
+
+
+class BulkReadingSerializer(ReadingSerializer):
+    installation_id = serializers.IntegerField()
+    asset_tag = serializers.CharField(source="installation.motor.asset_tag")
+    site = serializers.CharField(source="installation.motor.site.code")
+    role = serializers.CharField(source="installation.role")
+    part_code = serializers.CharField(source="installation.part.code")
+
+    class Meta(ReadingSerializer.Meta):
+        fields = ["installation_id", "asset_tag", "site", "role", "part_code", *ReadingSerializer.Meta.fields]
+        fields.remove("confirmed")
+
+
+class ReadingPages(CursorPagination):
+    """Pages in the order readings were stored: a page never shifts as readings arrive."""
+
+    ordering = "id"
+    page_size = 500
+    page_size_query_param = "page_size"
+    max_page_size = 5000
+
+
+class ReadingList(generics.ListAPIView):
+    """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31:
+    readings at the user's sites, 500 a page (page_size up to 5000), `next` links to the next page."""
+
+    serializer_class = BulkReadingSerializer
+    permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
+    filter_backends = [DjangoFilterBackend]
+    filterset_class = ReadingFilter
+    pagination_class = ReadingPages
+
+    def get_queryset(self):
+        return scope_to_user(
+            Reading.objects.select_related("installation__motor__site", "installation__part"), self.request.user
+        )
 
 
 class CapacitorSubstitutes(generics.GenericAPIView):

@@ -3,10 +3,12 @@ a message naming the parameter (JSON 400 from the API, a note on the page), neve
 
 from __future__ import annotations
 
+import datetime as dt
+
 import django_filters
 from django.core.validators import MaxValueValidator, MinValueValidator
 
-from .models import Assessment, Site
+from .models import Assessment, FittedCapacitor, Reading, Site
 from .roles import scope_to_user
 
 
@@ -20,6 +22,54 @@ class AssessmentFilter(django_filters.FilterSet):
     class Meta:
         model = Assessment
         fields = ["site", "risk", "replace_by_before"]
+
+
+class ReadingFilter(django_filters.FilterSet):
+    """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31
+    (since and until are whole days, inclusive, in UTC)."""
+
+    site = django_filters.CharFilter(field_name="installation__motor__site__code", max_length=20)
+    part = django_filters.CharFilter(field_name="installation__part__code", max_length=40)
+    motor = django_filters.CharFilter(field_name="installation__motor__asset_tag", max_length=40)
+    since = django_filters.DateFilter(method="taken_since")
+    until = django_filters.DateFilter(method="taken_until")
+
+    class Meta:
+        model = Reading
+        fields = ["site", "part", "motor", "since", "until"]
+
+    def taken_since(self, queryset, name, value):
+        return queryset.filter(taken_at__gte=_utc_midnight(value))
+
+    def taken_until(self, queryset, name, value):
+        return queryset.filter(taken_at__lt=_utc_midnight(value + dt.timedelta(days=1)))
+
+
+def _utc_midnight(day: dt.date) -> dt.datetime:
+    return dt.datetime.combine(day, dt.time.min, tzinfo=dt.UTC)
+
+
+class LifeDataFilter(django_filters.FilterSet):
+    """The life-data page's part (and a site, for a narrower pull): ?part=RUN-4U-450&site=CST"""
+
+    part = django_filters.CharFilter(field_name="part__code", max_length=40)
+    site = django_filters.CharFilter(field_name="motor__site__code", max_length=20)
+
+    class Meta:
+        model = FittedCapacitor
+        fields = ["part", "site"]
+
+
+class BadFilter(ValueError):
+    """A query-string value that cannot be read; the message names the parameter."""
+
+
+def filtered(filterset_class, query, queryset, request=None):
+    """`queryset` filtered by the query string, or BadFilter naming each parameter that cannot be read."""
+    parameters = filterset_class(query, queryset=queryset, request=request)
+    if not parameters.is_valid():
+        raise BadFilter("; ".join(f"{name}: {' '.join(errors)}" for name, errors in parameters.errors.items()))
+    return parameters.qs
 
 
 def _sites_of(request):

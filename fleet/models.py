@@ -397,6 +397,7 @@ class Reading(models.Model):
 
     class Source(models.TextChoices):
         FORM = "form", "Reading form"
+        API = "api", "API"
         IMPORT = "import", "File import"
         DEMO = "demo", "Demo data"
 

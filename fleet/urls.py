@@ -23,6 +23,7 @@ register_converter(StoredCode, "code")
 # The API answers 401/403 itself (token or session), instead of redirecting to the login page.
 api_patterns = [
     path("api/assessments/", login_not_required(api.AssessmentList.as_view()), name="api_assessments"),
+    path("api/readings/", login_not_required(api.ReadingList.as_view()), name="api_readings"),
     path(
         "api/capacitors/<int:pk>/readings/",
         login_not_required(api.CapacitorReadings.as_view()),
@@ -52,6 +53,8 @@ urlpatterns = [
     path("plan/", views.plan, name="plan"),
     path("plan.<str:file_format>", views.plan_export, name="plan_export"),
     path("life/", views.life_data, name="life_data"),
+    path("exports/<slug:kind>-about.json", views.export_about, name="export_about"),
+    path("exports/<slug:kind>.<str:file_format>", views.export, name="export"),
     path("work-orders/", views.work_orders, name="work_orders"),
     path("work-orders/<code:site_code>/<str:day>/", views.visit_sheet, name="visit_sheet"),
     path("refits/", views.refits, name="refits"),

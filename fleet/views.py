@@ -12,7 +12,7 @@ from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied, ValidationError
 from django.core.paginator import Paginator
-from django.http import Http404, HttpResponse, StreamingHttpResponse
+from django.http import FileResponse, Http404, HttpResponse, JsonResponse, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.utils import timezone
@@ -21,13 +21,14 @@ from django.views.decorators.http import require_POST
 from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
 from .engineering.rules import RULES
-from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
-from .filters import plan_parameters
+from .exports import parquet_file, stream_csv, xlsx_file
+from .filters import BadFilter, plan_parameters
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import FileRefused
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from .roles import scope_to_user
 from .services import pages
+from .services.exports import TABLES
 from .services.import_jobs import (
     KINDS,
     WORKING,
@@ -38,6 +39,7 @@ from .services.import_jobs import (
     rejected_rows_csv,
 )
 from .services.lifedata import part_life
+from .services.operating_pictures import motor_pictures
 from .services.readings import NeedsConfirmation, reading_to_correct, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_count
 from .services.register import set_route_order, set_site_stock
@@ -82,8 +84,14 @@ def motor_detail(request, asset_tag):
     for capacitor in in_service:
         capacitor.assessment = capacitor.current[0] if capacitor.current else None
         capacitor.recent = pages.recent_readings(capacitor, 4)
+    pictures = motor_pictures(in_service) if motor.has_circuit else {}
+    for capacitor in in_service:
+        capacitor.charts = [
+            {"id": f"{name}-{capacitor.id}", "data_id": f"{name}-{capacitor.id}-data", "figure": figure}
+            for name, figure in pictures.get(capacitor.id, {}).items()
+        ]
     energy = max((_energy_j(c.part) for c in in_service), default=None)
-    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy}
+    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy, "pictures": pictures}
     return render(request, "fleet/motor.html", context)
 
 
@@ -297,21 +305,56 @@ def labels(request, site_code):
     return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page})
 
 
-@permission_required("fleet.view_assessment", raise_exception=True)
-def plan_export(request, file_format):
-    """The replacement plan for the planner's own spreadsheet: CSV streamed, or XLSX."""
-    if file_format not in {"csv", "xlsx"}:
-        raise Http404("The plan downloads as .csv or .xlsx")
-    site, horizon, _ = plan_parameters(request.GET, request=request)
-    rows = plan_rows(pages.replacement_plan(horizon, site, request.user).iterator(chunk_size=2000))
-    name = f"replacement-plan-{timezone.localdate():%Y-%m-%d}-{horizon}d{'-' + site.code if site else ''}"
-    if file_format == "xlsx":
-        content_type = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
-        response = HttpResponse(xlsx_bytes("replacement plan", PLAN_HEADER, rows), content_type=content_type)
+EXPORT_TYPES = {
+    "csv": "text/csv; charset=utf-8",
+    "xlsx": "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet",
+    "parquet": "application/vnd.apache.parquet",
+}
+
+
+def _export_table(request, kind):
+    """The table of an export the user may download, filtered by the query string (404, 403 or 400)."""
+    if kind not in TABLES:
+        raise Http404("No such export")
+    builder, permission = TABLES[kind]
+    if not request.user.has_perm(permission):
+        raise PermissionDenied
+    return builder(request.GET, request.user, request=request)
+
+
+def export(request, kind, file_format):
+    """An export as CSV (streamed), XLSX or Parquet (written a chunk at a time to a temporary file)."""
+    if file_format not in EXPORT_TYPES:
+        raise Http404("Exports download as .csv, .xlsx or .parquet")
+    try:
+        table = _export_table(request, kind)
+    except BadFilter as error:
+        return HttpResponse(f"Cannot read the filter: {error}", status=400, content_type="text/plain; charset=utf-8")
+    name = f"{kind}-{timezone.localdate():%Y-%m-%d}.{file_format}"
+    if file_format == "csv":
+        response = StreamingHttpResponse(stream_csv(table), content_type=EXPORT_TYPES["csv"])
+        response["Content-Disposition"] = f'attachment; filename="{name}"'
     else:
-        response = StreamingHttpResponse(stream_csv(PLAN_HEADER, rows), content_type="text/csv; charset=utf-8")
-    response["Content-Disposition"] = f'attachment; filename="{name}.{file_format}"'
+        handle = xlsx_file(table) if file_format == "xlsx" else parquet_file(table)
+        response = FileResponse(handle, as_attachment=True, filename=name, content_type=EXPORT_TYPES[file_format])
+    about = reverse("export_about", args=[kind])
+    query = request.GET.urlencode()
+    response["Link"] = f'<{about}{"?" + query if query else ""}>; rel="describedby"'
     return response
+
+
+def export_about(request, kind):
+    """The sidecar of an export: each column's type, unit and meaning, the model version, the filters."""
+    try:
+        table = _export_table(request, kind)
+    except BadFilter as error:
+        return JsonResponse({"error": str(error)}, status=400)
+    return JsonResponse(table.describe(), json_dumps_params={"ensure_ascii": False})
+
+
+def plan_export(request, file_format):
+    """The replacement plan for the planner's own spreadsheet (the plan page's site and horizon)."""
+    return export(request, "plan", file_format)
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)

@@ -90,7 +90,8 @@ def test_plan_downloads_hold_the_users_sites_only(client, here_and_there, file_f
             lines = b"".join(response.streaming_content).decode("utf-8-sig").splitlines()[1:]
             tags = {line.split(",")[0] for line in lines}
         else:
-            rows = list(load_workbook(io.BytesIO(response.content)).active.iter_rows(values_only=True))[1:]
+            content = b"".join(response.streaming_content)
+            rows = list(load_workbook(io.BytesIO(content)).active.iter_rows(values_only=True))[1:]
             tags = {row[0] for row in rows}
         assert tags == {mine.motor.asset_tag}
 

@@ -72,14 +72,18 @@ def has_run_capacitor(motor_kind) -> np.ndarray:
     return np.asarray(motor_kind) != CAPACITOR_START
 
 
-def operating_figures(circuit: MotorCircuit, load: Load, run_uf, start_uf, motor_kind) -> OperatingFigures:
-    """Running point (run capacitor in circuit where the motor type has one) and
-    standstill torque with every capacitor of the starting circuit in parallel."""
+def _running_and_locked(circuit: MotorCircuit, load: Load, run_uf, start_uf, motor_kind):
+    """The running point (run capacitor in circuit where the motor type has one) and the
+    standstill with every capacitor of the starting circuit in parallel."""
     runs = has_run_capacitor(motor_kind)
     run_uf = np.where(runs, np.asarray(run_uf, float), 0.0)
     start_total_uf = run_uf + np.nan_to_num(np.asarray(start_uf, float))
     point = operating_point(circuit, run_uf, load, aux_in_circuit=runs)
     locked = two_winding_running(circuit, start_total_uf, 1.0)
+    return runs, point, locked
+
+
+def _figures(runs, point, locked) -> OperatingFigures:
     stalled = np.isnan(point.slip)
     copper = point.copper_loss_main_w + point.copper_loss_aux_w
     rpm = point.speed_rad_s * 60.0 / (2.0 * np.pi)
@@ -99,36 +103,120 @@ def operating_figures(circuit: MotorCircuit, load: Load, run_uf, start_uf, motor
     )
 
 
-def _breakaway_torque_nm(load: Load, limits: DriftLimits):
-    ratio = np.where(
+def operating_figures(circuit: MotorCircuit, load: Load, run_uf, start_uf, motor_kind) -> OperatingFigures:
+    """Running point (run capacitor in circuit where the motor type has one) and
+    standstill torque with every capacitor of the starting circuit in parallel."""
+    return _figures(*_running_and_locked(circuit, load, run_uf, start_uf, motor_kind))
+
+
+@dataclass(frozen=True)
+class CapacitorPhasors:
+    """Phasors where a capacitor works, complex amperes and volts with the supply at 0 deg:
+    the running point for a run capacitor, standstill for a start capacitor (nan if stalled)."""
+
+    supply_v: np.ndarray
+    i_main: np.ndarray
+    i_aux: np.ndarray
+    i_line: np.ndarray
+    v_capacitor: np.ndarray
+
+
+@dataclass(frozen=True)
+class CapacitorSweep:
+    """A motor's figures as one of its capacitors takes each fraction of its rated value
+    (the other capacitor at rated), shape (*motors, fractions)."""
+
+    fraction: np.ndarray
+    capacitance_uf: np.ndarray
+    figures: OperatingFigures
+    capacitor_voltage_v: np.ndarray  # of the swept capacitor, where it works
+    phasors: CapacitorPhasors
+
+
+def _column(values) -> np.ndarray:
+    """A per-motor array as a column, to broadcast against a row of fractions."""
+    return np.asarray(values)[..., np.newaxis]
+
+
+def capacitor_sweep(
+    circuit: MotorCircuit, load: Load, motor_kind, role, rated_run_uf, rated_start_uf, fractions
+) -> CapacitorSweep:
+    """Every motor at every fraction in one solve: `fractions` is a row (k,) shared by all
+    motors or an array (motors, k) of their own; per-motor inputs have shape (motors,)."""
+    per_motor = (circuit.r1m, role, motor_kind, rated_run_uf, rated_start_uf, load.torque_at_rated_nm)
+    motors = np.broadcast_shapes(*(np.shape(x) for x in per_motor))
+
+    def column(values):
+        return _column(np.broadcast_to(np.asarray(values), motors))
+
+    is_run = column(role) == ROLE_RUN
+    fraction = np.broadcast_to(np.asarray(fractions, float), np.broadcast_shapes((*motors, 1), np.shape(fractions)))
+    run_uf = np.where(is_run, fraction, 1.0) * column(np.asarray(rated_run_uf, float))
+    start_uf = np.where(is_run, 1.0, fraction) * column(np.nan_to_num(np.asarray(rated_start_uf, float)))
+    columns = MotorCircuit.from_arrays(
+        **{name: column(getattr(circuit, name)) for name in circuit.__dataclass_fields__}
+    )
+    column_load = Load(column(load.torque_at_rated_nm), column(load.rated_speed_rad_s), column(load.kind))
+    runs, point, locked = _running_and_locked(columns, column_load, run_uf, start_uf, column(motor_kind))
+    figures = _figures(runs, point, locked)
+    at_run = is_run & runs
+
+    def where_it_works(running, standing):
+        return np.where(at_run, running, standing)
+
+    phasors = CapacitorPhasors(
+        supply_v=np.broadcast_to(columns.voltage_v + 0j, fraction.shape),
+        i_main=where_it_works(point.i_main, locked.i_main),
+        i_aux=where_it_works(point.i_aux, locked.i_aux),
+        i_line=where_it_works(point.i_line, locked.i_line),
+        v_capacitor=where_it_works(point.v_capacitor, locked.v_capacitor),
+    )
+    return CapacitorSweep(
+        fraction=fraction,
+        capacitance_uf=np.where(is_run, run_uf, start_uf),
+        figures=figures,
+        capacitor_voltage_v=np.where(is_run, figures.v_capacitor_v, figures.start_capacitor_voltage_v),
+        phasors=phasors,
+    )
+
+
+@dataclass(frozen=True)
+class LimitLevels:
+    """The level each operating-point limit sets, per capacitor (nan where it does not apply)."""
+
+    starting_torque_nm: np.ndarray  # least: the load's break-away torque
+    capacitor_voltage_v: np.ndarray  # most, where the capacitor works
+    main_current_a: np.ndarray  # most, running; nan for a start capacitor
+
+
+def limit_levels(
+    load: Load, role, full_load_current_a, capacitor_rated_voltage_v, limits: DriftLimits | None = None
+) -> LimitLevels:
+    """The levels behind LIMIT_NAMES (the stall has none): one rule for the scan and the charts."""
+    limits = limits or DriftLimits()
+    breakaway_ratio = np.where(
         np.asarray(load.kind) == LOAD_FAN,
         limits.breakaway_torque_ratio_fan,
         limits.breakaway_torque_ratio_constant,
     )
-    return ratio * load.torque_at_rated_nm
+    current = limits.main_current_ratio * np.asarray(full_load_current_a, float)
+    return LimitLevels(
+        starting_torque_nm=breakaway_ratio * load.torque_at_rated_nm,
+        capacitor_voltage_v=limits.capacitor_voltage_ratio * np.asarray(capacitor_rated_voltage_v, float),
+        main_current_a=np.where(np.asarray(role) == ROLE_RUN, current, np.nan),
+    )
 
 
-def _limit_breaches(
-    figures: OperatingFigures,
-    load: Load,
-    limits: DriftLimits,
-    role: np.ndarray,
-    full_load_current_a,
-    capacitor_rated_voltage_v,
-):
-    """Boolean breach per limit (stacked in LIMIT_NAMES order)."""
-    is_run = role == ROLE_RUN
-    v_limit = limits.capacitor_voltage_ratio * np.asarray(capacitor_rated_voltage_v, float)
-    capacitor_voltage = np.where(is_run, figures.v_capacitor_v, figures.start_capacitor_voltage_v)
-    stalled = np.isnan(figures.slip)
+def limit_breaches(figures: OperatingFigures, capacitor_voltage_v, levels: LimitLevels, role):
+    """Boolean breach per limit, stacked in LIMIT_NAMES order; the arguments broadcast together."""
+    is_run = np.asarray(role) == ROLE_RUN
     return np.stack(
-        [
-            figures.starting_torque_nm < _breakaway_torque_nm(load, limits),
-            np.nan_to_num(capacitor_voltage) > v_limit,
-            is_run
-            & (np.nan_to_num(figures.i_main_a) > limits.main_current_ratio * np.asarray(full_load_current_a, float)),
-            is_run & stalled,
-        ]
+        np.broadcast_arrays(
+            figures.starting_torque_nm < levels.starting_torque_nm,
+            np.nan_to_num(capacitor_voltage_v) > levels.capacitor_voltage_v,
+            is_run & (np.nan_to_num(figures.i_main_a) > levels.main_current_a),
+            is_run & np.isnan(figures.slip),
+        )
     )
 
 
@@ -166,21 +254,18 @@ def capacitance_limits(
     first that breaches: resolution (1 - lowest_fraction) / (steps - 1), 5 % of
     rated with the defaults, finer than a field meter resolves.
     """
-    limits = limits or DriftLimits()
-    role = np.asarray(role)
+    shape = np.broadcast_shapes(np.shape(circuit.r1m), np.shape(role), np.shape(rated_run_uf))
+    role = np.broadcast_to(np.asarray(role), shape)
     fractions_grid = np.linspace(1.0, lowest_fraction, steps)
-    shape = np.broadcast_shapes(np.shape(circuit.r1m), role.shape, np.shape(rated_run_uf))
-    crossing = np.full((len(LIMIT_NAMES), *shape), np.nan)
-    previous_fraction = None
-    for fraction in fractions_grid:
-        run_uf = np.where(role == ROLE_RUN, fraction, 1.0) * np.asarray(rated_run_uf, float)
-        start_uf = np.where(role == ROLE_START, fraction, 1.0) * np.nan_to_num(np.asarray(rated_start_uf, float))
-        figures = operating_figures(circuit, load, run_uf, start_uf, motor_kind)
-        breached = _limit_breaches(figures, load, limits, role, full_load_current_a, capacitor_rated_voltage_v)
-        new = breached & np.isnan(crossing)
-        midpoint = fraction if previous_fraction is None else 0.5 * (fraction + previous_fraction)
-        crossing = np.where(new, midpoint, crossing)
-        previous_fraction = fraction
+    sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, fractions_grid)
+    levels = limit_levels(load, role, full_load_current_a, capacitor_rated_voltage_v, limits)
+    column_levels = LimitLevels(*(_column(getattr(levels, name)) for name in levels.__dataclass_fields__))
+    breached = limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, _column(role))
+    breached = breached.reshape(len(LIMIT_NAMES), *shape, steps)
+    first = np.argmax(breached, axis=-1)
+    before = fractions_grid[np.maximum(first - 1, 0)]
+    midpoint = np.where(first == 0, fractions_grid[0], 0.5 * (fractions_grid[first] + before))
+    crossing = np.where(breached.any(axis=-1), midpoint, np.nan)
     with np.errstate(invalid="ignore"):
         governing = np.nanmax(np.where(np.isnan(crossing), -np.inf, crossing), axis=0)
     none = ~np.isfinite(governing)

@@ -14,7 +14,15 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 
-from .drift import LIMIT_NAMES, ROLE_RUN, DriftLimits, OperatingFigures, _limit_breaches, capacitance_limits
+from .drift import (
+    LIMIT_NAMES,
+    ROLE_RUN,
+    DriftLimits,
+    OperatingFigures,
+    capacitance_limits,
+    limit_breaches,
+    limit_levels,
+)
 from .drift import operating_figures as _operating_figures
 from .motor import Load, MotorCircuit
 
@@ -311,8 +319,9 @@ def advise(
         # low end of its own tolerance; the capacitor-voltage limit is the voltage rule above.
         role = np.full(n, position.role)
         low_end = uf * (1 - candidates.tolerance_minus_pct.astype(float) / 100)
+        motor_levels = limit_levels(position.load, role, position.full_load_current_a, np.full(n, np.inf), limits)
         breach_at = [
-            _limit_breaches(f, position.load, limits, role, position.full_load_current_a, np.full(n, np.inf))
+            limit_breaches(f, _capacitor_voltage(position, f), motor_levels, role)
             for f in (figures, _figures_for(position, low_end))
         ]
         names = np.array(LIMIT_NAMES)

@@ -220,7 +220,7 @@ def stored_calibration() -> dict[str, tuple[float, ...]]:
     return {family: tuple(values) for family, *values in rows}
 
 
-def _motor_circuits(inst: pd.DataFrame):
+def motor_circuits(inst: pd.DataFrame):
     """Circuit, load and ratings of the motors that have an equivalent circuit."""
     with_circuit = inst["r1m_ohm"].notna().to_numpy()
     sub = inst[with_circuit]
@@ -429,7 +429,7 @@ def assess(
     figures_now = figures_new = pd.DataFrame(
         np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
     )
-    with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
+    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
         index = np.flatnonzero(with_circuit)

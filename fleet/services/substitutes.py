@@ -21,7 +21,7 @@ from fleet.engineering.substitutes import (
 )
 from fleet.models import CapacitorPart, FittedCapacitor, SiteStock
 from fleet.roles import scope_to_user
-from fleet.services.assessments import _motor_circuits
+from fleet.services.assessments import motor_circuits
 from fleet.services.selectors import CIRCUIT_FIELDS, installations_frame
 
 PART_FIELDS = [
@@ -86,7 +86,7 @@ def candidates_of(frame: pd.DataFrame) -> Candidates:
 def position_of(installation: FittedCapacitor) -> Position:
     """The position of a fitted capacitor: its motor's circuit and load (when it has one) and its design part."""
     inst = installations_frame([installation.id])
-    with_circuit, circuit, load, run_uf, start_uf, kind = _motor_circuits(inst)
+    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     row = inst.iloc[0]
     part = installation.part
     has_circuit = bool(with_circuit[0])

@@ -74,3 +74,14 @@ def test_the_dashboard_charts_keep_their_height_and_the_page_its_width(phone):
         phone.wait_for_timeout(600)
         assert phone.evaluate("document.documentElement.scrollWidth") <= width
         phone.shot(f"dashboard-{width}")
+
+
+def test_the_motor_page_operating_point_charts_keep_their_height(phone):
+    installation = make_installation()
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7, 3.6])
+    refit_installations([installation.id])
+    sign_in(phone, make_user("reliability engineer"))
+    phone.goto(f"/motors/{installation.motor.asset_tag}/")
+    phone.wait_for_selector(f"#sweep-{installation.id}-chart .main-svg")
+    _charts_hold(phone, [f"{name}-{installation.id}-chart" for name in ("currents", "voltages", "sweep")])
+    phone.shot("motor-operating-point-after-resize")

@@ -1,0 +1,239 @@
+"""The engineer's and the planner's exports: readings, current assessments, life data and the plan,
+each as a `Table` (columns with units, rows read in chunks by one query), filtered like the page
+or API list it comes from and limited to the user's sites."""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import replace
+
+from django.utils import timezone
+
+from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, Column, Table
+from fleet.filters import AssessmentFilter, LifeDataFilter, ReadingFilter, filtered, plan_parameters
+from fleet.models import Assessment, FittedCapacitor, Reading
+from fleet.roles import scope_to_user
+
+from . import pages
+from .assessments import ALL_LIMITS, DISSIPATION_LIMIT, MODEL_VERSION
+
+CHUNK = 2000  # rows fetched per database round trip
+
+
+def _about(query, **extra) -> dict:
+    filters = {key: value for key, value in query.items() if key != "page"}
+    return {"model_version": MODEL_VERSION, "generated_at": timezone.now().isoformat(), "filters": filters, **extra}
+
+
+def _capacitor_place(path: str) -> dict[str, Column]:
+    """Columns naming a fitted capacitor and its motor, read through `path` (a fitted capacitor)."""
+    return {
+        column.name: column
+        for column in (
+            Column("installation_id", INT, description="Fitted capacitor id", source=f"{path}id"),
+            Column("site", description="Site code", source=f"{path}motor__site__code"),
+            Column("asset_tag", description="Motor asset tag", source=f"{path}motor__asset_tag"),
+            Column("location", description="Where the motor is", source=f"{path}motor__location"),
+            Column("role", description="run or start", source=f"{path}role"),
+            Column("part_code", description="Capacitor part code", source=f"{path}part__code"),
+            Column("rated_uf", FLOAT, "uF", "Rated capacitance", source=f"{path}part__rated_uf"),
+        )
+    }
+
+
+PLACE = _capacitor_place("installation__")
+MEASURED = {  # Reading.MEASURED_FIELDS: unit and meaning
+    "capacitance_uf": (FLOAT, "uF", "Capacitance as measured (not referred to 25 C)"),
+    "capacitor_current_a": (FLOAT, "A", "Capacitor current (in circuit)"),
+    "capacitor_voltage_v": (FLOAT, "V", "Voltage across the capacitor (in circuit)"),
+    "line_voltage_v": (FLOAT, "V", "Supply voltage"),
+    "main_current_a": (FLOAT, "A", "Main-winding current"),
+    "aux_current_a": (FLOAT, "A", "Auxiliary-winding current"),
+    "line_current_a": (FLOAT, "A", "Line current"),
+    "case_temperature_c": (FLOAT, "degC", "Capacitor case temperature"),
+    "ambient_temperature_c": (FLOAT, "degC", "Ambient temperature"),
+    "esr_ohm": (FLOAT, "ohm", "Equivalent series resistance"),
+}
+READING_COLUMNS = [
+    Column("reading_id", INT, description="Reading id", source="id"),
+    *(PLACE[name] for name in ("site", "asset_tag", "installation_id", "role", "part_code")),
+    Column("taken_at", DATETIME, "UTC", "When the reading was taken", source="taken_at"),
+    Column("method", description="meter (isolated) or in_circuit (current and voltage)", source="method"),
+    *(Column(name, *MEASURED[name], source=name) for name in Reading.MEASURED_FIELDS),
+    Column("condition", description="sound, bulged, leaking or vented", source="condition"),
+    Column(
+        "outlier_confirmed", BOOL, description="Far off the trend, re-checked and confirmed", source="outlier_confirmed"
+    ),
+    Column("supersedes_id", INT, description="The reading this one corrects", source="supersedes_id"),
+    Column("source", description="form, api, import or demo", source="source"),
+    Column("taken_by", description="User name of who logged it", source="taken_by__username"),
+    Column("notes", description="Technician's notes", source="notes"),
+]
+
+
+def _rows(queryset, columns):
+    """The columns' values, one list per row, fetched CHUNK rows at a time by one query."""
+    return (list(row) for row in queryset.values_list(*(c.source for c in columns)).iterator(chunk_size=CHUNK))
+
+
+def readings_table(query, user, request=None) -> Table:
+    """Readings at the user's sites, filtered by site, part, motor and dates, oldest first."""
+    readings = filtered(ReadingFilter, query, scope_to_user(Reading.objects.all(), user), request)
+    return Table(
+        "readings", READING_COLUMNS, _rows(readings.order_by("taken_at", "id"), READING_COLUMNS), _about(query)
+    )
+
+
+def _slug(name: str) -> str:
+    return name.replace(" ", "_").replace("-", "_")
+
+
+EVERY_LIMIT = (*ALL_LIMITS, DISSIPATION_LIMIT)
+JUDGED = {  # an assessment's judgement, by the names the assessment export gives it
+    column.name: column
+    for column in (
+        Column("risk", description="Risk level", source="risk"),
+        Column("replace_by", DATE, description="Replace by this date", source="replace_by"),
+        Column("reason", description="Why this risk and date, in words", source="reason"),
+        Column("capacitance_now_uf", FLOAT, "uF", "Trend value now, referred to 25 C", source="capacitance_now_uf"),
+        Column("latest_verdict", description="Latest reading against the marked tolerance", source="latest_verdict"),
+        Column("governing_limit", description="The limit met first", source="limit_source"),
+        Column(
+            "governing_fraction",
+            FLOAT,
+            "fraction of rated",
+            "Capacitance at which the governing limit is met",
+            source="limit_fraction",
+        ),
+        Column("p10_on", DATE, description="Governing limit: early date (P10)", source="p10_on"),
+        Column("p50_on", DATE, description="Governing limit: likely date (P50)", source="p50_on"),
+        Column("p90_on", DATE, description="Governing limit: late date (P90); empty past 30 years", source="p90_on"),
+        Column(
+            "low_confidence",
+            BOOL,
+            description="Few readings: slope leans on similar capacitors",
+            source="low_confidence",
+        ),
+    )
+}
+ASSESSMENT_COLUMNS = [
+    *(PLACE[name] for name in ("installation_id", "site", "asset_tag", "location", "role", "part_code", "rated_uf")),
+    *(JUDGED[name] for name in ("risk", "replace_by", "reason")),
+    Column("set_aside", description="Why no forecast could be made, if none", source="set_aside"),
+    *(JUDGED[name] for name in list(JUDGED)[3:]),
+    Column("trend_model", description="Trend form", source="trend_model"),
+    Column(
+        "slope_pct_per_1000h", FLOAT, "% of rated per 1000 stress-hours", "Fitted slope", source="slope_pct_per_1000h"
+    ),
+    Column(
+        "slope_sd_pct_per_1000h",
+        FLOAT,
+        "% of rated per 1000 stress-hours",
+        "Standard error of the slope",
+        source="slope_sd_pct_per_1000h",
+    ),
+    Column("readings_used", INT, description="Readings in the fit", source="readings_used"),
+    Column("fitted_through", DATETIME, "UTC", "Time of the newest reading used", source="fitted_through"),
+    Column("model_version", description="Version of the fitting model", source="model_version"),
+]
+LIMIT_COLUMNS = [  # six per limit, from the assessment's `limits`
+    column
+    for name in EVERY_LIMIT
+    for column in (
+        Column(f"{_slug(name)}_fraction", FLOAT, "fraction of rated", f"{name}: capacitance at which it is met"),
+        Column(f"{_slug(name)}_used", BOOL, description=f"{name}: used for the plan (see the note if not)"),
+        Column(f"{_slug(name)}_p10_on", DATE, description=f"{name}: early date (P10)"),
+        Column(f"{_slug(name)}_p50_on", DATE, description=f"{name}: likely date (P50)"),
+        Column(f"{_slug(name)}_p90_on", DATE, description=f"{name}: late date (P90)"),
+        Column(f"{_slug(name)}_note", description=f"{name}: why it was set aside, if it was"),
+    )
+]
+
+
+def _limit_cells(limits: list[dict]) -> list:
+    """The LIMIT_COLUMNS cells of one assessment, empty where a limit was not evaluated."""
+    by_name = {limit["name"]: limit for limit in limits or []}
+    cells = []
+    for name in EVERY_LIMIT:
+        limit = by_name.get(name, {})
+        cells += [
+            limit.get("fraction_of_rated"),
+            limit.get("used") if limit else None,
+            *(dt.date.fromisoformat(limit[key]) if limit.get(key) else None for key in ("p10_on", "p50_on", "p90_on")),
+            limit.get("note") or None,
+        ]
+    return cells
+
+
+def assessments_table(query, user, request=None) -> Table:
+    """Current assessments of capacitors in service at the user's sites, filtered as the API's
+    list (site, risk, replace_by_before), soonest replacement first, each limit's dates in columns."""
+    current = Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
+    assessments = filtered(AssessmentFilter, query, scope_to_user(current, user), request)
+    with_limits = [*ASSESSMENT_COLUMNS, Column("limits", source="limits")]
+    rows = _rows(assessments.order_by("replace_by", "installation_id"), with_limits)
+    return Table(
+        "current assessments",
+        ASSESSMENT_COLUMNS + LIMIT_COLUMNS,
+        ([*row[:-1], *_limit_cells(row[-1])] for row in rows),
+        _about(query),
+    )
+
+
+LIFE_PLACE = _capacitor_place("")
+LIFE_COLUMNS = [
+    *(LIFE_PLACE[name] for name in ("part_code", "installation_id", "site", "asset_tag", "role")),
+    Column("fitted_on", DATE, description="Date fitted", source="fitted_on"),
+    Column("removed_on", DATE, description="Date removed; empty while in service", source="removed_on"),
+    Column("removal_reason", description="failed, planned or other; empty while in service", source="removal_reason"),
+    Column("age_days", INT, "days", "Age at removal, or today while in service"),
+    Column("failed", BOOL, description="A failure (true) or a suspension (false) in the Weibull fit"),
+]
+
+
+def life_data_table(query, user, request=None) -> Table:
+    """The life table (a failure or a suspension per fitted capacitor) of a part, or of every part,
+    as the life-data page fits it, at the user's sites."""
+    today = timezone.localdate()
+    capacitors = filtered(LifeDataFilter, query, scope_to_user(FittedCapacitor.objects.all(), user), request)
+    rows = _rows(capacitors.order_by("part__code", "fitted_on", "id"), LIFE_COLUMNS[:-2])
+
+    def life_rows():
+        for *head, fitted_on, removed_on, reason in rows:
+            age_days = ((removed_on or today) - fitted_on).days
+            failed = reason == FittedCapacitor.RemovalReason.FAILED
+            yield [*head, fitted_on, removed_on, reason or None, age_days, failed]
+
+    return Table("life data", LIFE_COLUMNS, life_rows(), _about(query, as_of=today.isoformat()))
+
+
+def _renamed(column: Column, name: str) -> Column:
+    return replace(column, name=name)
+
+
+PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
+    *(PLACE[name] for name in ("asset_tag", "site", "location", "role", "part_code", "rated_uf")),
+    *(JUDGED[name] for name in ("risk", "replace_by", "reason", "capacitance_now_uf", "latest_verdict")),
+    _renamed(JUDGED["governing_limit"], "limit"),
+    _renamed(JUDGED["governing_fraction"], "limit_fraction"),
+    _renamed(JUDGED["p10_on"], "early_crossing_p10"),
+    _renamed(JUDGED["p50_on"], "likely_crossing_p50"),
+    _renamed(JUDGED["p90_on"], "late_crossing_p90"),
+    JUDGED["low_confidence"],
+]
+
+
+def plan_table(query, user, request=None) -> Table:
+    """The replacement plan as the plan page shows it (site and horizon from the query string)."""
+    site, horizon, problems = plan_parameters(query, request=request)
+    rows = _rows(pages.replacement_plan(horizon, site, user), PLAN_COLUMNS)
+    about = _about(query, horizon_days=horizon, site=site.code if site else None, ignored=problems)
+    return Table("replacement plan", PLAN_COLUMNS, rows, about)
+
+
+TABLES = {  # kind in the address: (builder, permission to download it)
+    "readings": (readings_table, "fleet.view_reading"),
+    "assessments": (assessments_table, "fleet.view_assessment"),
+    "life-data": (life_data_table, "fleet.view_fittedcapacitor"),
+    "plan": (plan_table, "fleet.view_assessment"),
+}

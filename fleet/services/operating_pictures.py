@@ -1,0 +1,102 @@
+"""The motor page's operating-point pictures: phasors as new and now, and the figures against
+capacitance, computed by the core from the motor's stored circuit and the stored assessments.
+
+One motor's capacitors in one core call (a few milliseconds): no trend is fitted on a page load,
+the "now" capacitance is the current assessment's.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from fleet.charts import capacitance_sweep_figure, phasor_figure
+from fleet.engineering.drift import ROLE_RUN, capacitor_sweep, limit_levels
+
+from .assessments import motor_circuits
+from .selectors import installations_frame
+
+QUANTITIES = ("starting_torque_nm", "capacitor_voltage_v", "main_current_a")  # as in LimitLevels
+SWEEP_FRACTIONS = np.linspace(0.5, 1.1, 25)  # 50 % to 110 % of rated, 2.5 % steps
+
+
+def _number(value) -> float | None:
+    """A finite float for the page's JSON, None otherwise (JSON has no NaN)."""
+    value = float(value)
+    return round(value, 4) if np.isfinite(value) else None
+
+
+CURRENTS = {"i_line": "line", "i_main": "main", "i_aux": "aux"}
+VOLTAGES = {"supply_v": "supply", "v_capacitor": "capacitor"}
+
+
+def _phasor_points(phasors, column: tuple[int, int], names: dict[str, str]) -> dict:
+    """Magnitude and angle (degrees, supply at 0) of the named phasors at one point of the sweep."""
+    return {
+        label: (_number(np.abs(value[column])), _number(np.degrees(np.angle(value[column]))))
+        for label, value in ((label, getattr(phasors, name)) for name, label in names.items())
+    }
+
+
+def motor_pictures(capacitors) -> dict[int, dict]:
+    """Per capacitor in service (by id): phasor figures of currents and voltages, and the figures
+    against capacitance with the limits.
+
+    `capacitors` are one motor's fitted capacitors in service, each with `assessment` (the current
+    one, or None). Empty when the motor has no equivalent circuit.
+    """
+    capacitors = list(capacitors)
+    if not capacitors:
+        return {}
+    inst = installations_frame([c.id for c in capacitors])
+    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
+    if not with_circuit.all():
+        return {}
+    by_id = {c.id: c for c in capacitors}
+    ordered = [by_id[int(i)] for i in inst["installation_id"]]
+    rated_uf = inst["rated_uf"].to_numpy(float)
+    now_uf = np.array([c.assessment.capacitance_now_uf if c.assessment else np.nan for c in ordered])
+    now_fraction = now_uf / rated_uf
+    has_now = np.isfinite(now_fraction) & (now_fraction > 0)
+    role = inst["role"].to_numpy()
+    n = len(inst)
+    # Per capacitor: the grid, then as new (rated), then now.
+    now_column = np.where(has_now, now_fraction, 1.0)[:, None]
+    fractions = np.hstack([np.tile(SWEEP_FRACTIONS, (n, 1)), np.ones((n, 1)), now_column])
+    sweep = capacitor_sweep(circuit, load, kind, role, run_uf, start_uf, fractions)
+    levels = limit_levels(load, role, inst["full_load_current_a"], inst["part_rated_voltage_v"])
+    swept = {
+        "starting_torque_nm": sweep.figures.starting_torque_nm,
+        "capacitor_voltage_v": sweep.capacitor_voltage_v,
+        "main_current_a": sweep.figures.i_main_a,
+    }
+    steps = len(SWEEP_FRACTIONS)
+    pictures = {}
+    for i, capacitor in enumerate(ordered):
+        points = {"as new": steps, **({"now": steps + 1} if has_now[i] else {})}
+        where = "running" if role[i] == ROLE_RUN else "at standstill"
+        currents = {state: _phasor_points(sweep.phasors, (i, k), CURRENTS) for state, k in points.items()}
+        voltages = {state: _phasor_points(sweep.phasors, (i, k), VOLTAGES) for state, k in points.items()}
+        limits = capacitor.assessment.limits if capacitor.assessment else []
+        pictures[capacitor.id] = {
+            "currents": phasor_figure(currents, "A", where),
+            "voltages": phasor_figure(voltages, "V", where),
+            "sweep": capacitance_sweep_figure(
+                percent_of_rated=[round(100 * f, 2) for f in SWEEP_FRACTIONS],
+                rated_uf=float(rated_uf[i]),
+                values={name: [_number(v) for v in swept[name][i, :steps]] for name in QUANTITIES},
+                levels={name: _number(getattr(levels, name)[i]) for name in QUANTITIES},
+                points={
+                    state: {
+                        "percent_of_rated": round(100 * float(sweep.fraction[i, k]), 2),
+                        **{name: _number(swept[name][i, k]) for name in QUANTITIES},
+                    }
+                    for state, k in points.items()
+                },
+                crossings=[
+                    {"name": limit["name"], "percent_of_rated": round(100 * limit["fraction_of_rated"], 1)}
+                    for limit in limits
+                    if limit.get("fraction_of_rated") is not None and limit.get("used")
+                ],
+            ),
+        }
+    return pictures

@@ -1,0 +1,321 @@
+"""Exports: what the CSV, XLSX and Parquet files say equals what the database holds (awkward text
+included), typed cells, formulas defused, the user's sites only, a query count flat in the rows.
+Every check is [derived]: the file must hold the database's rows, or [trade] for the spreadsheet
+conventions (OWASP's advice on formula injection: a leading quote in CSV)."""
+
+import csv
+import datetime as dt
+import io
+
+import pyarrow.parquet as pq
+import pytest
+from django.db import connection
+from django.test.utils import CaptureQueriesContext
+from django.urls import reverse
+from django.utils import timezone
+from openpyxl import load_workbook
+from rest_framework.authtoken.models import Token
+from rest_framework.test import APIClient
+
+from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
+from fleet.roles import PLANNER, RELIABILITY_ENGINEER
+from fleet.services.assessments import MODEL_VERSION, refit_installations
+from fleet.services.exports import ASSESSMENT_COLUMNS, LIMIT_COLUMNS, READING_COLUMNS
+
+from .conftest import make_installation, make_motor, make_part, make_site, make_user, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+AWKWARD = [
+    '=HYPERLINK("http://x","y")',
+    "+1+2",
+    "-3.2",
+    "@SUM(A1)",
+    "'quoted already",
+    'comma, "quotes" and\nnewline',
+    "Kühlhaus Süd – ölpumpe µF °C Ω",
+]
+FORMATS = ["csv", "xlsx", "parquet"]
+
+
+@pytest.fixture
+def awkward_fleet(db):
+    """Two sites (one with a non-ASCII name), motors and notes holding text a spreadsheet might run."""
+    sites = [make_site("NORD", name='Gewächshaus Nord, Haus "3"'), make_site("SUD", name="=Süd")]
+    installations = []
+    for i, text in enumerate(AWKWARD):
+        motor = make_motor(site=sites[i % 2], location=text)
+        installation = make_installation(motor=motor)
+        start = timezone.make_aware(dt.datetime(2024, 1, 8, 9, 30))
+        quarterly_readings(installation, start, [4.0, 3.9, 3.8, 3.7], notes=text, esr_ohm=None)
+        installations.append(installation)
+    refit_installations([i.id for i in installations])
+    return sites, installations
+
+
+def _download(client, kind, file_format, query=None):
+    response = client.get(reverse("export", args=[kind, file_format]), query or {})
+    assert response.status_code == 200, response.content
+    content = b"".join(response.streaming_content)
+    return response, content
+
+
+def _unquote_csv(text: str) -> str:
+    """The reading rule the sidecar states: one leading quote was added to defuse the cell."""
+    return text[1:] if text.startswith("'") else text
+
+
+def _parse(content: bytes, file_format: str, columns) -> list[dict]:
+    """Rows of an export as Python values, by column name."""
+    if file_format == "parquet":
+        return pq.read_table(io.BytesIO(content)).to_pylist()
+    kinds = {c.name: c.kind for c in columns}
+    if file_format == "xlsx":  # a spreadsheet date is a date-time at midnight
+        rows = list(load_workbook(io.BytesIO(content)).worksheets[0].iter_rows(values_only=True))
+        return [
+            {k: v.date() if kinds.get(k) == "date" and v is not None else v for k, v in zip(rows[0], row, strict=True)}
+            for row in rows[1:]
+        ]
+    reader = csv.DictReader(io.StringIO(content.decode("utf-8-sig"), newline=""))
+    readers = {
+        "int": int,
+        "float": float,
+        "date": dt.date.fromisoformat,
+        "datetime": dt.datetime.fromisoformat,
+        "bool": lambda v: v == "true",
+        "text": _unquote_csv,
+    }
+    return [{k: None if v == "" else readers[kinds[k]](v) for k, v in row.items()} for row in reader]
+
+
+def _same_time(file_value, db_value):
+    if file_value.tzinfo is None:  # XLSX: UTC without a zone
+        file_value = file_value.replace(tzinfo=dt.UTC)
+    return file_value == db_value
+
+
+@pytest.mark.parametrize("file_format", FORMATS)
+def test_readings_round_trip_with_awkward_text(client, awkward_fleet, file_format):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    _, content = _download(client, "readings", file_format)
+    rows = _parse(content, file_format, READING_COLUMNS)
+    stored = Reading.objects.select_related("installation__motor__site", "installation__part").order_by(
+        "taken_at", "id"
+    )
+    assert len(rows) == stored.count() == 4 * len(AWKWARD)
+    for row, reading in zip(rows, stored, strict=True):
+        assert row["reading_id"] == reading.id and row["installation_id"] == reading.installation_id
+        assert row["site"] == reading.installation.motor.site.code
+        assert row["notes"] == reading.notes  # = + - @ ' commas quotes newline non-ASCII, all as stored
+        assert row["capacitance_uf"] == reading.capacitance_uf and isinstance(row["capacitance_uf"], int | float)
+        assert row["case_temperature_c"] == reading.case_temperature_c and row["esr_ohm"] is None
+        assert _same_time(row["taken_at"], reading.taken_at)
+        assert row["outlier_confirmed"] is False and row["source"] == "demo"
+    assert {row["notes"] for row in rows} == set(AWKWARD)
+
+
+@pytest.mark.parametrize("file_format", FORMATS)
+def test_assessments_carry_every_limits_dates_as_stored(client, awkward_fleet, file_format):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    _, content = _download(client, "assessments", file_format)
+    rows = {row["installation_id"]: row for row in _parse(content, file_format, ASSESSMENT_COLUMNS + LIMIT_COLUMNS)}
+    current = Assessment.objects.filter(is_current=True).select_related("installation__motor")
+    assert set(rows) == {a.installation_id for a in current}
+    for assessment in current:
+        row = rows[assessment.installation_id]
+        assert row["location"] == assessment.installation.motor.location
+        assert row["risk"] == assessment.risk and row["replace_by"] == assessment.replace_by
+        assert row["governing_limit"] == assessment.limit_source and row["model_version"] == MODEL_VERSION
+        assert len(assessment.limits) >= 2
+        for limit in assessment.limits:
+            slug = limit["name"].replace(" ", "_").replace("-", "_")
+            # A spreadsheet keeps 15 significant digits [pub: the XLSX number is an IEEE double, Excel shows 15].
+            assert row[f"{slug}_fraction"] == pytest.approx(limit["fraction_of_rated"], rel=1e-14)
+            assert row[f"{slug}_used"] == limit["used"]
+            for key in ("p10_on", "p50_on", "p90_on"):
+                expected = dt.date.fromisoformat(limit[key]) if limit[key] else None
+                assert row[f"{slug}_{key}"] == expected
+
+
+def test_xlsx_cells_are_typed_with_a_frozen_filtered_header_and_text_kept_as_text(client, awkward_fleet):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    _, content = _download(client, "readings", "xlsx")
+    book = load_workbook(io.BytesIO(content))
+    sheet = book.worksheets[0]
+    assert sheet.freeze_panes == "A2"
+    assert sheet.auto_filter.ref == f"A1:X{1 + 4 * len(AWKWARD)}"
+    header = [cell.value for cell in sheet[1]]
+    notes = sheet.cell(row=2, column=header.index("notes") + 1)
+    formula_like = [row for row in sheet.iter_rows(min_row=2) if str(row[header.index("notes")].value).startswith("=")]
+    assert formula_like and all(row[header.index("notes")].data_type == "s" for row in formula_like)
+    assert notes.data_type == "s"
+    taken = sheet.cell(row=2, column=header.index("taken_at") + 1)
+    assert isinstance(taken.value, dt.datetime) and taken.is_date and "h:mm" in taken.number_format
+    uf = sheet.cell(row=2, column=header.index("capacitance_uf") + 1)
+    assert uf.data_type == "n"
+    assert sheet.column_dimensions["A"].width >= len("reading_id")
+    about = {row[0]: row[1] for row in book["about"].iter_rows(values_only=True) if row[0]}
+    assert about["model_version"] == MODEL_VERSION and about["capacitance_uf"] == "float"
+
+
+def test_csv_defuses_formulas_with_a_quote_and_streams(client, awkward_fleet):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    response, content = _download(client, "readings", "csv")
+    assert response.streaming
+    text = content.decode("utf-8-sig")
+    assert "'=HYPERLINK" in text and "'@SUM" in text and "''quoted already" in text
+    assert ",-3.2\r\n" in text  # a plain number is left alone (notes is the last column)
+    assert response["Link"] == f'<{reverse("export_about", args=["readings"])}>; rel="describedby"'
+
+
+def test_parquet_fields_carry_units_and_the_file_the_model_version(client, awkward_fleet):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    _, content = _download(client, "readings", "parquet", {"site": "NORD"})
+    table = pq.read_table(io.BytesIO(content))
+    assert table.schema.field("capacitance_uf").metadata[b"unit"] == b"uF"
+    assert str(table.schema.field("taken_at").type) == "timestamp[us, tz=UTC]"
+    assert MODEL_VERSION.encode() in table.schema.metadata[b"fleet"] and b'"NORD"' in table.schema.metadata[b"fleet"]
+    assert set(table.column("site").to_pylist()) == {"NORD"}
+
+
+def test_the_sidecar_names_units_model_version_and_filters(client, awkward_fleet):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    about = client.get(reverse("export_about", args=["readings"]), {"site": "SUD"}).json()
+    units = {c["name"]: c["unit"] for c in about["columns"]}
+    assert units["capacitance_uf"] == "uF" and units["case_temperature_c"] == "degC" and units["esr_ohm"] == "ohm"
+    assert about["model_version"] == MODEL_VERSION and about["filters"] == {"site": "SUD"}
+
+
+def test_filters_narrow_like_the_api_and_a_bad_one_is_named(client, awkward_fleet):
+    sites, installations = awkward_fleet
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    part = installations[0].part.code
+    query = {"part": part, "since": "2024-04-01", "until": "2024-07-08"}
+    _, content = _download(client, "readings", "csv", query)
+    rows = _parse(content, "csv", READING_COLUMNS)
+    assert [r["taken_at"].date() for r in rows] == [dt.date(2024, 4, 8), dt.date(2024, 7, 8)]
+    bad = client.get(reverse("export", args=["readings", "csv"]), {"since": "last tuesday"})
+    assert bad.status_code == 400 and "since" in bad.content.decode()
+    assert client.get(reverse("export", args=["readings", "pdf"])).status_code == 404
+    assert client.get(reverse("export", args=["secrets", "csv"])).status_code == 404
+
+
+def test_life_data_rows_are_failures_and_suspensions_of_the_part(client):
+    part = make_part(code="LIFE-EXP")
+    today = timezone.localdate()
+    failed = make_installation(part=part, fitted_on=today - dt.timedelta(days=900))
+    FittedCapacitor.objects.filter(id=failed.id).update(
+        removed_on=today - dt.timedelta(days=100), removal_reason="failed"
+    )
+    running = make_installation(part=part, fitted_on=today - dt.timedelta(days=300))
+    make_installation()  # another part: left out
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    _, content = _download(client, "life-data", "parquet", {"part": "LIFE-EXP"})
+    rows = {r["installation_id"]: r for r in pq.read_table(io.BytesIO(content)).to_pylist()}
+    assert set(rows) == {failed.id, running.id}
+    assert (rows[failed.id]["age_days"], rows[failed.id]["failed"]) == (800, True)
+    assert (rows[running.id]["age_days"], rows[running.id]["failed"], rows[running.id]["removed_on"]) == (
+        300,
+        False,
+        None,
+    )
+
+
+@pytest.mark.parametrize("kind", ["readings", "assessments", "life-data", "plan"])
+@pytest.mark.parametrize("file_format", FORMATS)
+def test_every_export_holds_the_users_sites_only(client, awkward_fleet, kind, file_format):
+    sites, _ = awkward_fleet
+    user = make_user(RELIABILITY_ENGINEER if kind != "plan" else PLANNER)
+    SiteMembership.objects.create(user=user, site=sites[0])
+    client.force_login(user)
+    for query in ({"days": 730}, {"days": 730, "site": "SUD"}):
+        _, content = _download(client, kind, file_format, query)
+        rows = (
+            _parse(content, file_format, [])
+            if file_format != "csv"
+            else list(csv.DictReader(io.StringIO(content.decode("utf-8-sig"), newline="")))
+        )
+        assert {row["site"] for row in rows} <= {"NORD"}
+        if "site" not in query:
+            assert rows  # the user's own site is there
+
+
+def test_a_user_without_the_permission_gets_403(client, awkward_fleet):
+    from django.contrib.auth.models import User
+
+    client.force_login(User.objects.create_user("no-role", password="a-long-test-password"))
+    for kind in ("readings", "assessments", "life-data", "plan"):
+        assert client.get(reverse("export", args=[kind, "csv"])).status_code == 403
+        assert client.get(reverse("export_about", args=[kind])).status_code == 403
+
+
+@pytest.mark.parametrize("file_format", FORMATS)
+def test_query_count_stays_flat_as_the_readings_grow(client, file_format):
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    counts = []
+    for motors in (2, 8):
+        for _ in range(motors):
+            installation = make_installation(motor=make_motor(site=make_site()))
+            quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8)), [4.0, 3.9, 3.8])
+        with CaptureQueriesContext(connection) as queries:
+            _download(client, "readings", file_format)
+        counts.append(len(queries))
+    assert counts[0] == counts[1]
+
+
+def _api(user) -> APIClient:
+    api = APIClient()
+    api.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=user).key}")
+    return api
+
+
+def test_a_reading_posted_through_the_api_is_stored_with_source_api(technician, fan_installation):
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    response = _api(technician).post(url, {"method": "meter", "capacitance_uf": 3.95}, format="json")
+    assert response.status_code == 201 and response.json()["source"] == "api"
+    assert Reading.objects.get().source == Reading.Source.API
+
+
+def test_bulk_readings_api_filters_pages_and_scopes(awkward_fleet):
+    sites, installations = awkward_fleet
+    user = make_user(RELIABILITY_ENGINEER)
+    api = _api(user)
+    seen, url, query = [], reverse("api_readings"), {"site": "NORD", "page_size": 5}
+    while url:
+        body = api.get(url, query).json()
+        seen += body["results"]
+        url, query = body["next"], None
+    nord = Reading.objects.filter(installation__motor__site__code="NORD")
+    assert [r["id"] for r in seen] == sorted(nord.values_list("id", flat=True))
+    assert {r["site"] for r in seen} == {"NORD"} and seen[0]["asset_tag"].startswith("M-")
+    assert api.get(reverse("api_readings"), {"until": "soon"}).status_code == 400
+    SiteMembership.objects.create(user=user, site=sites[1])
+    assert {r["site"] for r in api.get(reverse("api_readings"), {"page_size": 100}).json()["results"]} == {"SUD"}
+
+
+def test_bulk_readings_api_query_count_is_flat(engineer):
+    api = _api(engineer)
+    counts = []
+    for motors in (2, 8):
+        for _ in range(motors):
+            installation = make_installation(motor=make_motor(site=make_site()))
+            quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8)), [4.0, 3.9])
+        with CaptureQueriesContext(connection) as queries:
+            assert api.get(reverse("api_readings"), {"page_size": 100}).status_code == 200
+        counts.append(len(queries))
+    assert counts[0] == counts[1]
+
+
+def test_the_plan_and_life_data_pages_link_their_filtered_exports(client, awkward_fleet):
+    import html
+    import re
+
+    sites, installations = awkward_fleet
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    plan = client.get(reverse("plan"), {"site": "SUD", "days": 730}).content.decode()
+    life = client.get(reverse("life_data"), {"part": installations[0].part.code}).content.decode()
+    links = [html.unescape(href) for href in re.findall(r'href="(/exports/[^"]+)"', plan + life)]
+    assert "/exports/assessments.parquet?site=SUD" in links and "/exports/readings.csv?site=SUD" in links
+    assert f"/exports/life-data.xlsx?part={installations[0].part.code}" in links
+    for link in links:
+        assert client.get(link).status_code == 200, link

@@ -1,0 +1,105 @@
+"""The motor page's operating-point pictures: drawn from the stored circuit and assessment, the
+same numbers the refit stored, a bounded number of queries, nothing without a circuit."""
+
+import datetime as dt
+import json
+
+import numpy as np
+import pytest
+from django.db import connection
+from django.test.utils import CaptureQueriesContext
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.models import Assessment
+from fleet.services.assessments import refit_installations
+from fleet.services.operating_pictures import SWEEP_FRACTIONS, motor_pictures
+
+from .conftest import make_installation, make_motor, make_part, quarterly_readings
+
+pytestmark = pytest.mark.django_db
+
+
+def _assessed_fan(values_uf=(4.0, 3.9, 3.8, 3.7, 3.6)):
+    installation = make_installation()
+    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), list(values_uf))
+    refit_installations([installation.id])
+    installation.assessment = Assessment.objects.get(installation=installation, is_current=True)
+    return installation
+
+
+def _trace(figure, name):
+    return [t for t in figure["data"] if t.get("name") == name]
+
+
+def test_the_pictures_carry_the_stored_as_new_and_now_figures():
+    """[derived] the page's points are the refit's own operating figures: the stored magnitudes of
+    the main, auxiliary and line currents and the capacitor voltage, as new and now."""
+    installation = _assessed_fan()
+    assessment = installation.assessment
+    pictures = motor_pictures([installation])[installation.id]
+    for state, stored in (("as new", assessment.figures_new), ("now", assessment.figures_now)):
+        currents = {
+            t["name"]: t["r"][1]
+            for t in pictures["currents"]["data"]
+            if t["line"]["dash"] == ("dash" if state == "as new" else "solid")
+        }
+        assert currents["main winding"] == pytest.approx(stored["i_main_a"], rel=1e-3)
+        assert currents["auxiliary winding"] == pytest.approx(stored["i_aux_a"], rel=1e-3)
+        assert currents["line current"] == pytest.approx(stored["i_line_a"], rel=1e-3)
+        point = _trace(pictures["sweep"], state)
+        assert point[1]["y"][0] == pytest.approx(stored["v_capacitor_v"], rel=1e-3)  # panel 2: capacitor voltage
+        assert point[2]["y"][0] == pytest.approx(stored["i_main_a"], rel=1e-3)
+    now_x = _trace(pictures["sweep"], "now")[0]["x"][0]
+    assert now_x == pytest.approx(100 * assessment.capacitance_now_uf / 4.0, abs=0.01)
+
+
+def test_the_sweep_spans_half_to_110_percent_with_the_limit_levels():
+    installation = _assessed_fan()
+    figure = motor_pictures([installation])[installation.id]["sweep"]
+    curve = figure["data"][0]
+    assert curve["x"][0] == 50.0 and curve["x"][-1] == 110.0 and len(curve["x"]) == len(SWEEP_FRACTIONS)
+    levels = sorted(shape["y0"] for shape in figure["layout"]["shapes"] if shape.get("y0") == shape.get("y1"))
+    motor = installation.motor
+    assert pytest.approx(1.15 * motor.full_load_current_a) in levels  # [trade] service factor, as DriftLimits
+    assert pytest.approx(450.0) in levels  # the part's rated voltage
+    crossings = [a["text"] for a in figure["layout"]["annotations"] if a.get("textangle") == -90]
+    assert "tolerance" in crossings
+
+
+def test_no_assessment_draws_only_as_new_and_no_circuit_draws_nothing():
+    installation = make_installation()
+    installation.assessment = None
+    pictures = motor_pictures([installation])[installation.id]
+    assert not _trace(pictures["sweep"], "now") and _trace(pictures["sweep"], "as new")
+    bare = make_installation(motor=make_motor(with_circuit=False))
+    bare.assessment = None
+    assert motor_pictures([bare]) == {}
+
+
+def test_a_two_value_motor_gets_pictures_for_both_capacitors_in_a_bounded_number_of_queries():
+    motor = make_motor(motor_type="two_value", load_type="constant")
+    run = make_installation(motor=motor)
+    start = make_installation(
+        motor=motor, role="start", part=make_part(rated_uf=60, dielectric="electrolytic", rated_voltage_v=250)
+    )
+    run.assessment = start.assessment = None
+    with CaptureQueriesContext(connection) as queries:
+        pictures = motor_pictures([run, start])
+    assert len(queries) <= 2
+    assert set(pictures) == {run.id, start.id}
+    start_voltage = _trace(pictures[start.id]["sweep"], "as new")[1]["y"][0]
+    assert np.isfinite(start_voltage) and start_voltage > 0
+    assert "at standstill" in pictures[start.id]["currents"]["layout"]["legend"]["title"]["text"]
+
+
+def test_the_motor_page_embeds_the_charts_as_json(client, engineer):
+    installation = _assessed_fan()
+    client.force_login(engineer)
+    body = client.get(reverse("motor", args=[installation.motor.asset_tag])).content.decode()
+    for name in ("currents", "voltages", "sweep"):
+        assert f'id="{name}-{installation.id}-chart"' in body
+        start = body.index(f'id="{name}-{installation.id}-data"')
+        payload = body[body.index(">", start) + 1 : body.index("</script>", start)]
+        json.loads(payload)  # valid JSON: no NaN reaches the page
+    assert "plotly.js" in body
