@@ -42,7 +42,7 @@ from .services.lifedata import part_life
 from .services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_installations
 from .services.register import set_route_order, set_site_stock
-from .services.substitutes import part_families, substitutes_for
+from .services.substitutes import design_part, part_families, substitutes_for
 from .services.workorders import issue_visit, open_visits, plan_work_orders
 from .tasks import QueueUnreachable
 
@@ -60,14 +60,19 @@ def home(request):
 @permission_required("fleet.view_motor", raise_exception=True)
 def find_motor(request):
     form = FindMotorForm(request.GET or None)
+    matches, more = [], False
     if form.is_valid():
-        tag = form.cleaned_data["tag"].strip()
-        motor = scope_to_user(Motor.objects.filter(asset_tag__iexact=tag), request.user).first()
+        text = form.cleaned_data["tag"]
+        motor, matches, count = pages.find_motors(text, request.user)
         if motor is not None:
             return redirect("motor", asset_tag=motor.asset_tag)
-        form.add_error("tag", f"No motor has the tag {tag!r}. Check the label, or search by site below.")
+        more = count > len(matches)
+        if not matches:
+            form.add_error(
+                "tag", f"No motor's tag, place or site matches {text.strip()!r}. Check the label, or go by site below."
+            )
     sites = scope_to_user(Site.objects.all(), request.user)
-    return render(request, "fleet/find.html", {"find_form": form, "sites": sites})
+    return render(request, "fleet/find.html", {"find_form": form, "sites": sites, "matches": matches, "more": more})
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
@@ -125,8 +130,9 @@ def capacitor_detail(request, installation_id):
 def reading_new(request, installation_id):
     installation = _installation(request, installation_id)
     needs_confirmation = False
+    zone = installation.motor.site.time_zone
     if request.method == "POST":
-        form = ReadingForm(request.POST)
+        form = ReadingForm(request.POST, time_zone=zone)
         if form.is_valid():
             try:
                 reading = record_reading(
@@ -154,7 +160,7 @@ def reading_new(request, installation_id):
                 # ?saved= tells the page to drop the draft the phone kept of this form.
                 return redirect(f"{reverse('motor', args=[installation.motor.asset_tag])}?saved={installation.id}")
     else:
-        form = ReadingForm()
+        form = ReadingForm(time_zone=zone)
     assessment = installation.assessments.filter(is_current=True).first()
     successor = (
         FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
@@ -175,7 +181,8 @@ def reading_new(request, installation_id):
         "energy_j": _energy_j(installation.part),
         "rules": RULES.as_dict(),
     }
-    return render(request, "fleet/reading_form.html", context)
+    with timezone.override(form.zone):  # the last readings in the site's time, as the form takes it
+        return render(request, "fleet/reading_form.html", context)
 
 
 def _add_errors(form, error: ValidationError) -> None:
@@ -198,7 +205,8 @@ def _stock_message(request, successor) -> None:
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
     installation = _installation(request, installation_id)
-    form = ReplacementForm(request.POST or None, installation=installation)
+    design = design_part(installation)
+    form = ReplacementForm(request.POST or None, installation=installation, design=design)
     if request.method == "POST" and form.is_valid():
         try:
             successor = replace_capacitor(
@@ -230,6 +238,7 @@ def replace(request, installation_id):
         "singles": [i for i in advice["items"] if i["arrangement"] == "single" and i["part_ids"][0] in choosable],
         "pairs": [i for i in advice["items"] if i["arrangement"] != "single" and i["verdict"] != "unsuitable"],
         "chosen": chosen,
+        "design": design,
     }
     return render(request, "fleet/replace.html", context)
 
