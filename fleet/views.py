@@ -21,7 +21,7 @@ from django.views.decorators.http import require_POST
 
 from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
-from .engineering.rules import RULES
+from .engineering.rules import RULES, parse_numbers
 from .exports import PLAN_HEADER, plan_rows, stream_csv, xlsx_bytes
 from .filters import plan_parameters
 from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
@@ -481,11 +481,8 @@ def _float_param(request, name, default) -> float:
     text = request.GET.get(name)
     if text is None or text == "":
         return default
-    try:
-        value = float(text.replace(",", ".", 1) if text.count(",") == 1 and "." not in text else text)
-    except ValueError:
-        value = float("nan")
-    if 0 < value < float("inf"):
+    value = float(parse_numbers([text])[0][0])  # the rulebook's number syntax: "60,5" is 60.5
+    if value > 0:
         return value
     label = name.replace("_", " ")
     messages.warning(request, f"The {label} must be a number above zero; {text!r} was not used, {default:g} was.")
