@@ -49,7 +49,7 @@ class ReadingForm(forms.Form):
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
     )
     capacitance_uf = number(
-        "Capacitance", "uF", help_text="From the capacitance meter, capacitor isolated and discharged."
+        "Capacitance", "µF", help_text="From the capacitance meter, capacitor isolated and discharged."
     )
     capacitor_current_a = number("Capacitor current", "A", help_text="True-RMS clamp on the capacitor lead.")
     capacitor_voltage_v = number("Voltage across capacitor", "V")
@@ -57,9 +57,9 @@ class ReadingForm(forms.Form):
     main_current_a = number("Main winding current", "A")
     aux_current_a = number("Auxiliary winding current", "A")
     line_current_a = number("Line current", "A")
-    case_temperature_c = number("Capacitor case temperature", "C")
-    ambient_temperature_c = number("Ambient temperature", "C")
-    esr_ohm = number("ESR", "ohm", help_text="Only where the meter measures it.")
+    case_temperature_c = number("Capacitor case temperature", "°C")
+    ambient_temperature_c = number("Ambient temperature", "°C")
+    esr_ohm = number("ESR", "Ω", help_text="Only where the meter measures it.")
     condition = forms.ChoiceField(
         choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see"
     )

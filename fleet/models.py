@@ -237,7 +237,7 @@ class CapacitorPart(models.Model):
         ]
 
     def __str__(self):
-        return f"{self.code} ({self.rated_uf:g} uF {self.rated_voltage_v:g} V)"
+        return f"{self.code} ({self.rated_uf:g} µF {self.rated_voltage_v:g} V)"
 
     @property
     def lower_limit_uf(self) -> float:
@@ -449,7 +449,7 @@ class Reading(models.Model):
         indexes = [models.Index(fields=["installation", "taken_at"])]
 
     def __str__(self):
-        return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} uF"
+        return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} µF"
 
 
 class Assessment(models.Model):

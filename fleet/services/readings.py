@@ -180,7 +180,7 @@ def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: 
     if not _same_values(earlier, values):
         raise ValidationError(
             {
-                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} uF, "
+                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} µF, "
                 f"{earlier.taken_at:%Y-%m-%d %H:%M} UTC) and these values differ. Save again to log them as "
                 "another reading."
             }
