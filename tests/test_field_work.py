@@ -91,9 +91,10 @@ def test_a_part_fitted_against_the_advice_is_not_the_next_ones_design(client, te
     assert again.status_code == 200 and "FILM-4U8 is unsuitable here" in again.content.decode()
     assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 2
     assert post_replacement(client, wrong, fan_installation.part).status_code == 302
-    assert "Fitted against the substitute advice" not in client.get(
-        reverse("motor", args=[fan_installation.motor.asset_tag])
-    ).content.decode()
+    assert (
+        "Fitted against the substitute advice"
+        not in client.get(reverse("motor", args=[fan_installation.motor.asset_tag])).content.decode()
+    )
 
 
 # Finding a motor
@@ -133,9 +134,7 @@ def test_finding_keeps_to_the_users_sites_and_takes_constant_queries(client, dja
 
 
 @pytest.mark.parametrize("text,expected", [("31,5", 31.5), ("31.5", 31.5), ("3,1,5", None)])
-def test_a_decimal_comma_in_any_measured_field_is_read_alike_by_form_api_and_import(
-    client, technician, text, expected
-):
+def test_a_decimal_comma_in_any_measured_field_is_read_alike_by_form_api_and_import(client, technician, text, expected):
     """The rulebook's number syntax (fleet/engineering/rules.py) for the case temperature, not only the
     capacitance: one decimal comma is a decimal mark, two are refused by name on every path."""
     installations = [make_installation() for _ in range(3)]

@@ -3,9 +3,12 @@ dates that never wrap; the risk and the last reading set side by side in words."
 
 from __future__ import annotations
 
+import re
+
 from django import template
 from django.template.defaultfilters import date as date_format
-from django.utils.html import format_html
+from django.utils.html import conditional_escape, format_html
+from django.utils.safestring import mark_safe
 
 from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
@@ -85,3 +88,16 @@ def verdict_and_risk(assessment):
             "Read it again to confirm."
         )
     return ""
+
+
+# A date, a month or a date and time inside a sentence: "2027-01", "2026-12-02", "2026-03-14 09:30".
+DATE_IN_TEXT = re.compile(r"\b\d{4}-\d{2}(?:-\d{2}(?:[ T]\d{2}:\d{2}(?::\d{2})?)?)?\b")
+
+
+@register.filter
+def nowrap_dates(text):
+    """Text (escaped) with each date in it kept on one line; the words around still wrap."""
+    if text in (None, ""):
+        return text
+    escaped = str(conditional_escape(text))
+    return mark_safe(DATE_IN_TEXT.sub(lambda m: f'<span class="nowrap">{m.group(0)}</span>', escaped))
