@@ -95,6 +95,8 @@ TEMPLATES = [
                 "django.contrib.messages.context_processors.messages",
                 "fleet.context.roles",
             ],
+            # Numbers, dates and units for people, in every template without a {% load %}.
+            "builtins": ["fleet.templatetags.fleet_format"],
         },
     },
 ]

@@ -46,7 +46,7 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
             y=[r["capacitance_uf"] for r in kept],
             mode="markers",
             marker={"color": INK, "size": 9},
-            name="readings (at 25 C)",
+            name="readings (at 25 °C)",
         )
     )
     if stray:
@@ -61,7 +61,7 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
         )
     figure.add_hline(y=limit_uf, line={"color": LIMIT, "dash": "dash"}, annotation_text=f"limit: {limit_label}")
     figure.add_hline(y=rated_uf, line={"color": "#6b7280", "dash": "dot", "width": 1}, annotation_text="rated")
-    return _styled(figure, height=340, yaxis_title="capacitance (uF)")
+    return _styled(figure, height=340, yaxis_title="capacitance (µF)")
 
 
 def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -> dict:

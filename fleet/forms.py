@@ -3,13 +3,19 @@
 from __future__ import annotations
 
 import uuid
+import zoneinfo
 
+import pandas as pd
 from django import forms
 from django.conf import settings
 from django.utils import timezone
 
 from .engineering.rules import RULES
+from .imports import parse_times
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading
+
+# The phone's date-and-time picker sends minutes: "2026-03-14T09:30" (wall-clock time at the site).
+LOCAL_MINUTE = "%Y-%m-%dT%H:%M"
 
 
 def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.CharField:
@@ -24,12 +30,26 @@ def number(label: str, unit: str, required: bool = False, help_text: str = "") -
     )
 
 
+def site_zone(name: str) -> zoneinfo.ZoneInfo:
+    """A site's time zone; one nobody knows falls back to the plant's (settings.TIME_ZONE)."""
+    try:
+        return zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
+        return zoneinfo.ZoneInfo(settings.TIME_ZONE)
+
+
 class ReadingForm(forms.Form):
+    taken_at = forms.CharField(
+        label="Taken at",
+        required=False,
+        max_length=40,
+        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 60}),
+    )
     method = forms.ChoiceField(
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
     )
     capacitance_uf = number(
-        "Capacitance", "uF", help_text="From the capacitance meter, capacitor isolated and discharged."
+        "Capacitance", "µF", help_text="From the capacitance meter, capacitor isolated and discharged."
     )
     capacitor_current_a = number("Capacitor current", "A", help_text="True-RMS clamp on the capacitor lead.")
     capacitor_voltage_v = number("Voltage across capacitor", "V")
@@ -37,9 +57,9 @@ class ReadingForm(forms.Form):
     main_current_a = number("Main winding current", "A")
     aux_current_a = number("Auxiliary winding current", "A")
     line_current_a = number("Line current", "A")
-    case_temperature_c = number("Capacitor case temperature", "C")
-    ambient_temperature_c = number("Ambient temperature", "C")
-    esr_ohm = number("ESR", "ohm", help_text="Only where the meter measures it.")
+    case_temperature_c = number("Capacitor case temperature", "°C")
+    ambient_temperature_c = number("Ambient temperature", "°C")
+    esr_ohm = number("ESR", "Ω", help_text="Only where the meter measures it.")
     condition = forms.ChoiceField(
         choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see"
     )
@@ -52,10 +72,29 @@ class ReadingForm(forms.Form):
     # The reading this one corrects (reached from "Correct" beside a reading on the capacitor page).
     supersedes = forms.IntegerField(required=False, min_value=1, widget=forms.HiddenInput)
 
-    def __init__(self, *args, **kwargs):
+    def __init__(self, *args, time_zone: str = "", **kwargs):
         super().__init__(*args, **kwargs)
+        self.zone = site_zone(time_zone or settings.TIME_ZONE)
+        self.fields["taken_at"].help_text = (
+            f"When you measured, local time at the site ({self.zone.key}). Now unless you change it; "
+            "a reading kept on the phone keeps the time it was measured."
+        )
         if not self.is_bound:
             self.initial["client_key"] = uuid.uuid4().hex
+            self.initial["taken_at"] = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_MINUTE)
+
+    def clean_taken_at(self):
+        """Wall-clock time at the site, read as the import reads it (an offset, if given, wins);
+        empty: now. Future and before-fitting are the rulebook's checks, in the service."""
+        text = self.cleaned_data["taken_at"].strip()
+        if not text:
+            return None
+        moments, problems = parse_times(pd.Series([text]), pd.Series([self.zone.key]))
+        if problems[0]:
+            raise forms.ValidationError(problems[0][:1].upper() + problems[0][1:] + ".")
+        if pd.isna(moments.iloc[0]):
+            raise forms.ValidationError("Not a date and time: use the picker, or 2026-03-14 09:30.")
+        return moments.iloc[0].to_pydatetime()
 
     def measured_values(self) -> dict:
         data = {
@@ -88,16 +127,16 @@ class ReplacementForm(forms.Form):
         help_text="Required with the override; kept on the new capacitor's record.",
     )
 
-    def __init__(self, *args, installation: FittedCapacitor, **kwargs):
+    def __init__(self, *args, installation: FittedCapacitor, design: CapacitorPart, **kwargs):
         super().__init__(*args, **kwargs)
         same_kind = CapacitorPart.objects.filter(dielectric=installation.part.dielectric).order_by("rated_uf", "code")
         self.fields["part"].queryset = same_kind
-        self.fields["part"].initial = installation.part_id
+        self.fields["part"].initial = design.pk
 
 
 class FindMotorForm(forms.Form):
     tag = forms.CharField(
-        label="Asset tag",
+        label="Asset tag, part of it, or where the motor is",
         max_length=40,
         widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
     )

@@ -27,7 +27,7 @@ SITE_REQUIRED = ("code", "name", "time_zone")
 
 PART_COLUMNS = {
     "code": "Part code, unique, up to 40 characters (required)",
-    "rated_uf": "Rated capacitance in uF (required)",
+    "rated_uf": "Rated capacitance in µF (required)",
     "tolerance_minus_pct": "Tolerance below rated, in %, e.g. 5 (required)",
     "tolerance_plus_pct": "Tolerance above rated, in %, e.g. 5 (required)",
     "rated_voltage_v": "Rated voltage in V AC (required)",
@@ -37,7 +37,7 @@ PART_COLUMNS = {
     "class_of_operation": "A, B, C or D: rated life 30,000, 10,000, 3,000 or 1,000 h (IEC 60252-1)",
     "duty": "Duty, up to 80 characters, e.g. continuous, or 20 starts/h of 3 s",
     "safety_class": "S0, S1, S2 or S3 (older markings P0, P1, P2)",
-    "max_case_temperature_c": "Highest permitted case temperature in C (default 70)",
+    "max_case_temperature_c": "Highest permitted case temperature in °C (default 70)",
     "max_dissipation_factor": "Highest dissipation factor (tan delta) as a fraction, e.g. 0.002",
     "unit_cost": "Price of one, in the plant's currency, two decimals (default 0)",
 }
@@ -128,7 +128,7 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         problems.add(frame[name].eq(""), name, "required")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
     rated, minus, plus = numbers["rated_uf"], numbers["tolerance_minus_pct"], numbers["tolerance_plus_pct"]
-    problems.add((rated <= 0) | (rated > 10_000), "rated_uf", "outside 0 to 10,000 uF: check the unit")
+    problems.add((rated <= 0) | (rated > 10_000), "rated_uf", "outside 0 to 10,000 µF: check the unit")
     problems.add((minus < 0) | (minus >= 100), "tolerance_minus_pct", "must be from 0 to below 100 %")
     problems.add((plus < 0) | (plus > 100), "tolerance_plus_pct", "must be from 0 to 100 %")
     volts = numbers["rated_voltage_v"]

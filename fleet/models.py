@@ -264,7 +264,7 @@ class CapacitorPart(models.Model):
         ]
 
     def __str__(self):
-        return f"{self.code} ({self.rated_uf:g} uF {self.rated_voltage_v:g} V)"
+        return f"{self.code} ({self.rated_uf:g} µF {self.rated_voltage_v:g} V)"
 
     @property
     def lower_limit_uf(self) -> float:
@@ -481,7 +481,7 @@ class Reading(models.Model):
         ]
 
     def __str__(self):
-        return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} uF"
+        return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} µF"
 
 
 def choices_of(name: str, values) -> type[models.TextChoices]:

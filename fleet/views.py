@@ -20,10 +20,10 @@ from django.views.decorators.http import require_POST
 
 from .charts import cost_curve_figure, weibull_plot_figure
 from .engineering.capacitor import stored_energy_j
-from .engineering.rules import RULES
+from .engineering.rules import RULES, parse_numbers
 from .exports import parquet_file, stream_csv, xlsx_file
 from .filters import BadFilter, plan_parameters
-from .forms import ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
+from .forms import LOCAL_MINUTE, ColumnMappingForm, FindMotorForm, ImportUploadForm, ReadingForm, ReplacementForm
 from .imports import FileRefused
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from .roles import scope_to_user
@@ -43,7 +43,7 @@ from .services.operating_pictures import motor_pictures
 from .services.readings import NeedsConfirmation, reading_to_correct, record_reading, replace_capacitor
 from .services.refits import queue_fleet_refit, recent_runs, stale_count
 from .services.register import set_route_order, set_site_stock
-from .services.substitutes import part_families, substitutes_for
+from .services.substitutes import design_part, part_families, substitutes_for
 from .services.workorders import issue_visit, open_visits, open_visits_page, plan_work_orders
 from .tasks import QueueUnreachable
 
@@ -61,14 +61,19 @@ def home(request):
 @permission_required("fleet.view_motor", raise_exception=True)
 def find_motor(request):
     form = FindMotorForm(request.GET or None)
+    matches, more = [], False
     if form.is_valid():
-        tag = form.cleaned_data["tag"].strip()
-        motor = scope_to_user(Motor.objects.filter(asset_tag__iexact=tag), request.user).first()
+        text = form.cleaned_data["tag"]
+        motor, matches, count = pages.find_motors(text, request.user)
         if motor is not None:
             return redirect("motor", asset_tag=motor.asset_tag)
-        form.add_error("tag", f"No motor has the tag {tag!r}. Check the label, or search by site below.")
+        more = count > len(matches)
+        if not matches:
+            form.add_error(
+                "tag", f"No motor's tag, place or site matches {text.strip()!r}. Check the label, or go by site below."
+            )
     sites = scope_to_user(Site.objects.all(), request.user)
-    return render(request, "fleet/find.html", {"find_form": form, "sites": sites})
+    return render(request, "fleet/find.html", {"find_form": form, "sites": sites, "matches": matches, "more": more})
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
@@ -132,8 +137,9 @@ def capacitor_detail(request, installation_id):
 def reading_new(request, installation_id):
     installation = _installation(request, installation_id)
     needs_confirmation = False
+    zone = installation.motor.site.time_zone
     if request.method == "POST":
-        form = ReadingForm(request.POST)
+        form = ReadingForm(request.POST, time_zone=zone)
         if form.is_valid():
             try:
                 reading = record_reading(
@@ -162,12 +168,14 @@ def reading_new(request, installation_id):
                 # ?saved= tells the page to drop the draft the phone kept of this form.
                 return redirect(f"{reverse('motor', args=[installation.motor.asset_tag])}?saved={installation.id}")
     else:
-        form = ReadingForm(initial={"supersedes": request.GET.get("corrects")})
+        form = ReadingForm(initial={"supersedes": request.GET.get("corrects")}, time_zone=zone)
     correcting, correction_problem = None, ""
     try:
         correcting = reading_to_correct(installation, form["supersedes"].value())
     except ValidationError as error:
         correction_problem = " ".join(error.messages)
+    if correcting and not form.is_bound:  # a correction is taken when the reading it corrects was
+        form.initial["taken_at"] = timezone.localtime(correcting.taken_at, form.zone).strftime(LOCAL_MINUTE)
     assessment = installation.assessments.filter(is_current=True).first()
     successor = (
         FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
@@ -190,7 +198,8 @@ def reading_new(request, installation_id):
         "energy_j": _energy_j(installation.part),
         "rules": RULES.as_dict(),
     }
-    return render(request, "fleet/reading_form.html", context)
+    with timezone.override(form.zone):  # the last readings in the site's time, as the form takes it
+        return render(request, "fleet/reading_form.html", context)
 
 
 def _add_errors(form, error: ValidationError) -> None:
@@ -213,7 +222,8 @@ def _stock_message(request, successor) -> None:
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
     installation = _installation(request, installation_id)
-    form = ReplacementForm(request.POST or None, installation=installation)
+    design = design_part(installation)
+    form = ReplacementForm(request.POST or None, installation=installation, design=design)
     if request.method == "POST" and form.is_valid():
         try:
             successor = replace_capacitor(
@@ -245,6 +255,7 @@ def replace(request, installation_id):
         "singles": [i for i in advice["items"] if i["arrangement"] == "single" and i["part_ids"][0] in choosable],
         "pairs": [i for i in advice["items"] if i["arrangement"] != "single" and i["verdict"] != "unsuitable"],
         "chosen": chosen,
+        "design": design,
     }
     return render(request, "fleet/replace.html", context)
 
@@ -519,11 +530,8 @@ def _float_param(request, name, default) -> float:
     text = request.GET.get(name)
     if text is None or text == "":
         return default
-    try:
-        value = float(text.replace(",", ".", 1) if text.count(",") == 1 and "." not in text else text)
-    except ValueError:
-        value = float("nan")
-    if 0 < value < float("inf"):
+    value = float(parse_numbers([text])[0][0])  # the rulebook's number syntax: "60,5" is 60.5
+    if value > 0:
         return value
     label = name.replace("_", " ")
     messages.warning(request, f"The {label} must be a number above zero; {text!r} was not used, {default:g} was.")

@@ -160,8 +160,8 @@ def test_tags_and_codes_outside_the_character_set_are_refused_at_entry():
 @pytest.mark.parametrize(
     "field,value,words",
     [
-        ("case_temperature_c", "200", "above 150 C"),
-        ("case_temperature_c", "-100", "-40 C or more"),
+        ("case_temperature_c", "200", "above 150 °C"),
+        ("case_temperature_c", "-100", "-40 °C or more"),
         ("capacitor_voltage_v", "-5", "above 0 V"),
         ("capacitor_current_a", "-0.2", "0 A or more"),
         ("esr_ohm", "inf", "finite"),

@@ -42,7 +42,7 @@ def test_an_unsuitable_part_needs_the_override_and_a_reason_which_are_recorded(c
     big = make_part(code="FILM-4U8", rated_uf=4.8)
     refused = post_replacement(client, fan_installation, big)
     assert refused.status_code == 200
-    assert "FILM-4U8 is unsuitable here (4.8 uF is outside the run band 3.6-4.4 uF). Tick" in refused.content.decode()
+    assert "FILM-4U8 is unsuitable here (4.8 µF is outside the run band 3.6-4.4 µF). Tick" in refused.content.decode()
     fan_installation.refresh_from_db()
     assert fan_installation.removed_on is None  # nothing saved half-way
     no_reason = post_replacement(client, fan_installation, big, substitute_override="on", override_reason="  ")

@@ -43,7 +43,7 @@ def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in
     response = client.get(reverse("find"), {"tag": fan_installation.motor.asset_tag.lower()})
     assert response.status_code == 302 and fan_installation.motor.asset_tag in response["Location"]
     response = client.get(reverse("find"), {"tag": "NO-SUCH"})
-    assert "No motor has the tag" in response.content.decode()
+    assert "No motor&#x27;s tag, place or site matches" in response.content.decode()
 
 
 def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_installation):

@@ -27,7 +27,7 @@ METHOD_METER, METHOD_IN_CIRCUIT = "meter", "in_circuit"
 METHODS = (METHOD_METER, METHOD_IN_CIRCUIT)
 CONDITION_SOUND = "sound"
 CONDITIONS = (CONDITION_SOUND, "bulged", "leaking", "vented")
-UNITS = {"uf": "uF", "a": "A", "v": "V", "c": "C", "ohm": "ohm"}
+UNITS = {"uf": "µF", "a": "A", "v": "V", "c": "°C", "ohm": "Ω"}
 
 # One decimal separator, point or comma, ASCII digits, an optional exponent.
 NUMBER_TEXT = re.compile(r"[+-]?(?:[0-9]+(?:[.,][0-9]*)?|[.,][0-9]+)(?:[eE][+-]?[0-9]+)?")
@@ -121,11 +121,11 @@ def capacitance_unit_slip(capacitance_uf, rated_uf):
     wild = ~nano & (ratio > 3)
     return np.where(
         nano,
-        _messages(nano, "{c:g} looks like nanofarads: {uf:g} uF? (rated {r:g} uF)", c=c, uf=c / 1000, r=rated),
+        _messages(nano, "{c:g} looks like nanofarads: {uf:g} µF? (rated {r:g} µF)", c=c, uf=c / 1000, r=rated),
         np.where(
             milli,
-            _messages(milli, "{c:g} looks like millifarads: {uf:g} uF? (rated {r:g} uF)", c=c, uf=c * 1000, r=rated),
-            _messages(wild, "{c:g} uF is over three times the rated {r:g} uF: wrong capacitor or unit?", c=c, r=rated),
+            _messages(milli, "{c:g} looks like millifarads: {uf:g} µF? (rated {r:g} µF)", c=c, uf=c * 1000, r=rated),
+            _messages(wild, "{c:g} µF is over three times the rated {r:g} µF: wrong capacitor or unit?", c=c, r=rated),
         ),
     )
 
@@ -390,7 +390,7 @@ def _check_readings(
     computed = np.round(np.atleast_1d(capacitance_from_current(current, voltage, frequency)), 3)
     capacitance = np.where(in_circuit, computed, values["capacitance_uf"])
     meter_missing = ~in_circuit & np.isnan(capacitance) & ~errors.has("capacitance_uf")
-    errors.add("capacitance_uf", meter_missing, "enter the capacitance in uF")
+    errors.add("capacitance_uf", meter_missing, "enter the capacitance in µF")
     errors.add("capacitance_uf", ~in_circuit & (capacitance > 0), capacitance_unit_slip(capacitance, rated))
     # Ranges after the slips, so a value typed in another unit is named as such.
     for name in rules.ranges:
@@ -431,7 +431,7 @@ def _check_readings(
             drift,
             _messages(
                 drift,
-                "{c:g} uF is far from this capacitor's trend ({p:.2f} uF). Re-measure, or confirm the value if it "
+                "{c:g} µF is far from this capacitor's trend ({p:.2f} µF). Re-measure, or confirm the value if it "
                 "is right",
                 c=values["capacitance_uf"],
                 p=predicted,

@@ -277,7 +277,7 @@ def advise(
     rule(
         np.where(outside, 2, 0),
         [
-            f"{u:g} uF is outside {band_words} {low:.3g}-{high:.3g} uF" if o else None
+            f"{u:g} µF is outside {band_words} {low:.3g}-{high:.3g} µF" if o else None
             for u, o in zip(uf, outside, strict=True)
         ],
     )
@@ -353,8 +353,8 @@ def advise(
         rule(
             np.where(near, 1, 0),
             [
-                f"{u:g} uF is within {rules.edge_margin:.0%} of the lowest value where the motor's limits hold "
-                f"({lowest_uf:.3g} uF)"
+                f"{u:g} µF is within {rules.edge_margin:.0%} of the lowest value where the motor's limits hold "
+                f"({lowest_uf:.3g} µF)"
                 if e
                 else None
                 for u, e in zip(uf, near, strict=True)

@@ -214,7 +214,7 @@ def _parts() -> dict[str, CapacitorPart]:
         parts[code], _ = CapacitorPart.objects.get_or_create(
             code=code,
             defaults=dict(
-                description=f"{uf:g} uF {volts} V {'film run' if dielectric == 'film' else 'electrolytic start'}",
+                description=f"{uf:g} µF {volts} V {'film run' if dielectric == 'film' else 'electrolytic start'}",
                 rated_uf=uf,
                 tolerance_minus_pct=minus,
                 tolerance_plus_pct=plus,

@@ -59,6 +59,30 @@ def motor_with_capacitors(asset_tag: str):
     )
 
 
+FIND_LIMIT = 50
+
+
+def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
+    """Motors a technician's words point to: (the motor whose tag is exactly `text` or the only match,
+    the matches shown (at most FIND_LIMIT), how many matched).
+
+    A tag matches in part ("0093" finds CST-0093); otherwise every word must appear in the motor's
+    location or its site's name ("cool store condensing"). Two queries, whatever the fleet's size.
+    """
+    text = " ".join(text.split())
+    motors = scope_to_user(Motor.objects.select_related("site"), user)
+    exact = motors.filter(asset_tag__iexact=text).first()
+    if exact is not None or not text:
+        return exact, [], int(exact is not None)
+    words = Q()
+    for word in text.split(" "):
+        words &= Q(location__icontains=word) | Q(site__name__icontains=word) | Q(site__code__iexact=word)
+    matches = list(motors.filter(Q(asset_tag__icontains=text) | words).order_by("asset_tag")[: FIND_LIMIT + 1])
+    if len(matches) == 1:
+        return matches[0], matches, 1
+    return None, matches[:FIND_LIMIT], len(matches)
+
+
 def recent_readings(installation: FittedCapacitor, count: int = RECENT_READINGS):
     return list(
         Reading.objects.filter(installation=installation)

@@ -16,7 +16,7 @@ from fleet.audit import audited_update
 from fleet.engineering.rules import check_readings, parse_numbers
 from fleet.engineering.substitutes import SUITABLE
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors
-from fleet.services.substitutes import verdict_of_part
+from fleet.services.substitutes import design_part, verdict_of_part
 
 log = logging.getLogger(__name__)
 
@@ -210,7 +210,7 @@ def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: 
     if not _same_values(earlier, values):
         raise ValidationError(
             {
-                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} uF, "
+                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} µF, "
                 f"{earlier.taken_at:%Y-%m-%d %H:%M} UTC) and these values differ. Save again to log them as "
                 "another reading."
             }
@@ -245,10 +245,12 @@ def replace_capacitor(
 
     The old capacitor's life ends at `removed_on` as a failure or a suspension
     (by `reason`); the new one's history starts the same day. A part other than the one coming out
-    that the substitute advice does not call suitable needs `substitute_override` and a reason.
+    that the substitute advice does not call suitable needs `substitute_override` and a reason. The
+    design is the position's (`design_part`): refitting a part that itself went on against the advice
+    is judged again, not waved through as "the same part".
     """
     override_reason = (override_reason or "").strip()
-    if part.pk != installation.part_id:
+    if part.pk != design_part(installation).pk:
         advice = verdict_of_part(installation, part)
         if advice["verdict"] != SUITABLE and not substitute_override:
             raise ValidationError(

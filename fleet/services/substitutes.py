@@ -83,12 +83,32 @@ def candidates_of(frame: pd.DataFrame) -> Candidates:
     )
 
 
+def design_part(installation: FittedCapacitor) -> CapacitorPart:
+    """The part this position was designed for: the newest capacitor at this motor and role fitted
+    without an override, so a part fitted against the advice never becomes the next one's design."""
+    if not installation.substitute_override:
+        return installation.part
+    earlier = (
+        FittedCapacitor.objects.filter(
+            motor_id=installation.motor_id,
+            role=installation.role,
+            substitute_override=False,
+            fitted_on__lte=installation.fitted_on,
+        )
+        .exclude(pk=installation.pk)
+        .select_related("part")
+        .order_by("-fitted_on", "-id")
+        .first()
+    )
+    return earlier.part if earlier is not None else installation.part
+
+
 def position_of(installation: FittedCapacitor) -> Position:
     """The position of a fitted capacitor: its motor's circuit and load (when it has one) and its design part."""
     inst = installations_frame([installation.id])
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     row = inst.iloc[0]
-    part = installation.part
+    part = design_part(installation)
     has_circuit = bool(with_circuit[0])
     companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[0] if has_circuit else 0.0
     return Position(

@@ -1,8 +1,18 @@
-"""Numbers for people: shares as whole percentages, counts with thousands separators, a dash for none."""
+"""Numbers for people: shares as whole percentages, counts with thousands separators, a dash for none;
+dates that never wrap; the risk and the last reading set side by side in words."""
 
 from __future__ import annotations
 
+import re
+
 from django import template
+from django.template.defaultfilters import date as date_format
+from django.utils.html import conditional_escape, format_html
+from django.utils.safestring import mark_safe
+
+from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
+from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
+from fleet.services.assessments import DISSIPATION_LIMIT
 
 register = template.Library()
 
@@ -38,3 +48,56 @@ def thousands(count):
 def times(factor):
     """1.523 -> 'x 1.52' with a multiplication sign."""
     return DASH if factor is None else f"{TIMES}{NBSP}{factor:.2f}"
+
+
+@register.filter(expects_localtime=True)
+def day(value, pattern="Y-m-d"):
+    """A date or time that never wraps at its hyphens: '2026-12-02' kept on one line; None -> ''."""
+    if value in (None, ""):
+        return ""
+    return format_html('<span class="nowrap">{}</span>', date_format(value, pattern))
+
+
+@register.filter
+def verdict_and_risk(assessment):
+    """One sentence where the last reading's tolerance verdict and the risk level seem to disagree
+    (a green "within tolerance" beside a red "replace now"), ending with the stored reason; "" where
+    they agree."""
+    if assessment is None:
+        return ""
+    within = assessment.latest_verdict == VERDICT_NAMES[VERDICT_WITHIN]
+    reason = assessment.reason or "no reason stored"
+    if within and assessment.risk in (RISK_REPLACE_NOW, RISK_DUE_SOON):
+        if assessment.limit_source == DISSIPATION_LIMIT:
+            because = "its dissipation factor (from the ESR readings) reaches the part's maximum first"
+        elif assessment.limit_source != TOLERANCE_LIMIT:
+            because = (
+                f"the motor's {assessment.limit_source} limit, crossed at {100 * assessment.limit_fraction:.0f} % "
+                "of the rated capacitance, comes before the tolerance"
+            )
+        else:
+            because = "it judges the readings referred to 25 °C and their trend, not one reading as measured"
+        return (
+            f"As measured, the last reading is within the marked tolerance; the plan still says "
+            f"{assessment.risk} because {because}: {reason}."
+        )
+    if not within and assessment.risk in (RISK_WATCH, RISK_SOUND):
+        return (
+            f"As measured, the last reading is {assessment.latest_verdict}; the plan says only {assessment.risk} "
+            f"because, referred to 25 °C and set against the trend, it is not past the limit: {reason}. "
+            "Read it again to confirm."
+        )
+    return ""
+
+
+# A date, a month or a date and time inside a sentence: "2027-01", "2026-12-02", "2026-03-14 09:30".
+DATE_IN_TEXT = re.compile(r"\b\d{4}-\d{2}(?:-\d{2}(?:[ T]\d{2}:\d{2}(?::\d{2})?)?)?\b")
+
+
+@register.filter
+def nowrap_dates(text):
+    """Text (escaped) with each date in it kept on one line; the words around still wrap."""
+    if text in (None, ""):
+        return text
+    escaped = str(conditional_escape(text))
+    return mark_safe(DATE_IN_TEXT.sub(lambda m: f'<span class="nowrap">{m.group(0)}</span>', escaped))

@@ -15,7 +15,7 @@ def test_a_decimal_comma_is_read_as_the_server_reads_it(phone, motor_with_histor
     phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
     phone.fill("#id_capacitance_uf", "3,94")
     computed = phone.locator("#computed")
-    assert "3.94 uF" in computed.inner_text() and "within tolerance" in computed.inner_text()
+    assert "3.94\u00a0µF" in computed.inner_text() and "within tolerance" in computed.inner_text()
     phone.fill("#id_case_temperature_c", "200")
     assert "outside -40 to 150" in computed.inner_text()
     phone.fill("#id_case_temperature_c", "31")

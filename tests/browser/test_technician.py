@@ -44,7 +44,7 @@ def test_find_by_tag_and_log_an_in_circuit_reading(phone, motor_with_history):
     phone.fill("#id_capacitor_voltage_v", "393")
     computed = phone.locator("#computed")
     # 10^6 x 0.49 / (2 pi 50 x 393) = 3.97 uF
-    assert "3.97 uF" in computed.inner_text() and "within tolerance" in computed.inner_text()
+    assert "3.97\u00a0µF" in computed.inner_text() and "within tolerance" in computed.inner_text()
     phone.shot("02-in-circuit-computed")
     phone.click("#save")
     phone.wait_for_url(f"**/motors/{tag}/?saved=*")

@@ -19,7 +19,7 @@ from fleet.engineering.rules import capacitance_unit_slip, current_unit_slip, of
 def test_nanofarads_typed_for_microfarads_are_named():
     """A 4 uF capacitor typed as 3950 (nF) is caught and the uF value suggested."""
     messages = capacitance_unit_slip([3950.0, 3.95, 15.0, 0.0039], 4.0)
-    assert "nanofarads" in messages[0] and "3.95 uF" in messages[0]
+    assert "nanofarads" in messages[0] and "3.95 µF" in messages[0]
     assert messages[1] == ""
     assert "three times" in messages[2]
     assert "millifarads" in messages[3]

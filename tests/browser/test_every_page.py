@@ -1,0 +1,212 @@
+"""Every page, as each role, on a phone (390 px) and a desktop (1366 px): the page itself never scrolls
+sideways (wide tables scroll in their own box), no date breaks over two lines, no script error; a
+refused reading puts its summary of what to put right in view, above the cautions.
+
+The pages are found as a user finds them: from the home page, following the links each role sees
+(at most two addresses per kind of page), on the demo's own scenario at a twentieth of its size.
+"""
+
+import datetime as dt
+import re
+from urllib.parse import urlsplit
+
+import pytest
+from django.contrib.auth.models import User
+from django.core.management import call_command
+from django.urls import Resolver404, resolve
+
+from fleet.models import FittedCapacitor, ImportJob, Reading
+from fleet.services.import_jobs import create_job
+from fleet.services.workorders import plan_work_orders
+
+from ..conftest import make_installation, make_user
+from .conftest import ARTIFACTS
+from .test_technician import sign_in
+
+pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
+
+# Sign-ins the demo makes (fleet/services/demo.py `ensure_users`).
+ROLES = {
+    "technician": ("tech", "reading-route-7"),
+    "planner": ("planner", "weekly-plan-7"),
+    "reliability engineer": ("engineer", "life-data-7"),
+    "administrator": ("admin", "register-keeper-7"),
+}
+# Not pages of ours to lay out: the register (Django's admin), the API, downloads, the sign-out.
+NOT_PAGES = re.compile(r"^/(admin|api|assets|static)/|\.(csv|xlsx)$|/logout/")
+PER_KIND = 2
+EXPECTED_KINDS = {
+    *("home", "find-tag", "motor", "capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
+    *("plan", "work_orders", "visit_sheet", "life_data", "life_data-part", "track_record", "refits"),
+    *("imports", "import_detail", "site_stock", "stand_in_parts"),
+}
+
+MEASURE = r"""() => {
+  const view = window.innerWidth;
+  const wrapped = [];
+  const date = /\d{4}-\d{2}-\d{2}(?:[ T]\d{2}:\d{2}(?::\d{2})?)?/g;
+  const walker = document.createTreeWalker(document.body, NodeFilter.SHOW_TEXT);
+  while (walker.nextNode()) {
+    const node = walker.currentNode;
+    const parent = node.parentElement;
+    if (!parent || parent.closest("script, style, [hidden], details:not([open]) > :not(summary)")) continue;
+    for (const match of node.data.matchAll(date)) {
+      const range = document.createRange();
+      range.setStart(node, match.index);
+      range.setEnd(node, match.index + match[0].length);
+      const lines = new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)));
+      const where = " in <" + parent.tagName.toLowerCase() + "> " + node.data.trim().slice(0, 60);
+      if (lines.size > 1) wrapped.push(match[0] + where);
+    }
+  }
+  const wide = [...document.querySelectorAll("body *")]
+    .filter((e) => e.getBoundingClientRect().right > view + 1 && !e.closest(".table-scroll"))
+    .slice(0, 3).map((e) => e.tagName.toLowerCase() + "." + e.className);
+  return {page: document.documentElement.scrollWidth, view, wrapped, wide};
+}"""
+
+
+def _kind(path: str) -> str:
+    """A page's kind: its URL name, with the query's parameter names (a plan filtered by site is another view)."""
+    parts = urlsplit(path)
+    try:
+        name = resolve(parts.path).url_name
+    except Resolver404:
+        return path
+    keys = sorted({pair.split("=")[0] for pair in parts.query.split("&") if pair})
+    return "-".join([name, *keys])
+
+
+def _links(page) -> list[str]:
+    hrefs = page.eval_on_selector_all("a[href]", "links => links.map((a) => a.href)")
+    origin = urlsplit(page.url)
+    paths = []
+    for href in hrefs:
+        parts = urlsplit(href)
+        if parts.netloc != origin.netloc or NOT_PAGES.search(parts.path):
+            continue
+        paths.append(parts.path + (f"?{parts.query}" if parts.query else ""))
+    return paths
+
+
+def _measure(page, path, width, problems, shot_name=None):
+    found = page.evaluate(MEASURE)
+    if found["page"] > found["view"]:
+        problems.append(f"{width} px {path}: page {found['page']} px wide ({', '.join(found['wide'])})")
+    for wrapped in found["wrapped"]:
+        problems.append(f"{width} px {path}: date over two lines: {wrapped}")
+    if shot_name:
+        page.screenshot(path=str(ARTIFACTS / "pages" / f"{shot_name}-{width}.png"), full_page=True)
+
+
+def _load(page, path):
+    response = page.goto(path)
+    assert response.status == 200, (path, response.status)
+    page.wait_for_timeout(150)  # Plotly lays its charts out just after the load event
+
+
+def _visit_every_page(page, seeds: list[str], username: str, problems: list[str]) -> list[str]:
+    """Follow the links a signed-in user sees from the home page, measuring each page at phone width;
+    then the same pages at desktop width. A screenshot of the first page of each kind, at both."""
+    queue, seen, per_kind, shots = ["/", *seeds], [], {}, {}
+    while queue:
+        path = queue.pop(0)
+        kind = _kind(path)
+        if path in seen or per_kind.get(kind, 0) >= PER_KIND:
+            continue
+        seen.append(path)
+        per_kind[kind] = per_kind.get(kind, 0) + 1
+        shots.setdefault(kind, path)
+        _load(page, path)
+        _measure(page, path, 390, problems, f"{username}-{kind}" if shots[kind] == path else None)
+        queue.extend(_links(page))
+    page.set_viewport_size({"width": 1366, "height": 900})
+    for path in seen:
+        _load(page, path)
+        kind = _kind(path)
+        _measure(page, path, 1366, problems, f"{username}-{kind}" if shots[kind] == path else None)
+    return sorted(per_kind)
+
+
+@pytest.fixture
+def demo_fleet(transactional_db):
+    """The demo at a twentieth of its size, with work orders planned and an import waiting to be mapped."""
+    call_command("demo", "--no-serve", "--scale", "0.05")
+    plan_work_orders(horizon_days=90)
+    technician = ROLES["technician"][0]
+    create_job(
+        kind=ImportJob.Kind.READINGS,
+        filename="route-cst.csv",
+        content=b'asset_tag,role,taken_at,capacitance_uf\nCST-0001,run,2026-01-05 09:00,"3,9"\n',
+        user=User.objects.get(username=technician),
+    )
+
+
+def test_every_page_fits_a_phone_and_a_desktop_for_every_role(browser, live_server, demo_fleet):
+    (ARTIFACTS / "pages").mkdir(parents=True, exist_ok=True)
+    problems, script_errors, kinds_seen = [], [], set()
+    for role, (username, password) in ROLES.items():
+        context = browser.new_context(viewport={"width": 390, "height": 900}, base_url=live_server.url)
+        page = context.new_page()
+        page.on("pageerror", lambda error, role=role, page=page: script_errors.append(f"{role} {page.url}: {error}"))
+        page.on(
+            "console",
+            lambda message, role=role: message.type == "error" and script_errors.append(f"{role} {message.text}"),
+        )
+        page.goto("/login/")
+        page.fill("#id_username", username)
+        page.fill("#id_password", password)
+        page.click("button[type=submit]")
+        page.wait_for_url("**/")
+        kinds_seen |= set(_visit_every_page(page, ["/find/?tag=unit"], username, problems))
+        context.close()
+    (ARTIFACTS / "pages" / "problems.txt").write_text("\n".join(problems + script_errors) + "\n")
+    assert not problems, "\n".join(problems)
+    assert not script_errors, "\n".join(script_errors)
+    # The crawl reached the pages each role works on (the test is only as good as what it visits).
+    assert kinds_seen >= EXPECTED_KINDS, sorted(EXPECTED_KINDS - kinds_seen)
+
+
+def test_a_refused_reading_shows_what_to_put_right_in_view_above_the_cautions(phone):
+    installation = make_installation(fitted_on=dt.date(2024, 1, 10))
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/capacitors/{installation.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3,9,5")
+    phone.fill("#id_taken_at", "2024-01-09T10:00")
+    phone.click("#save")
+    summary = phone.locator("#error-summary")
+    summary.wait_for(timeout=15000)
+    box, view = summary.bounding_box(), phone.viewport_size
+    assert box["y"] >= 0 and box["y"] + min(box["height"], 200) <= view["height"], box  # on screen, not below
+    text = summary.inner_text()
+    assert "Not saved: 2 to put right" in text
+    assert "decimal separator" in text and "Before this capacitor was fitted on 2024-01-10" in text
+    cautions = phone.locator("details[data-cautions]")
+    assert cautions.bounding_box()["y"] > box["y"] and cautions.get_attribute("open") is not None
+    assert phone.evaluate("() => document.activeElement.id") == "error-summary"
+    phone.shot("reading-refused-summary")
+    # Folded once read, the cautions stay folded on the next page of the session, their heading still shown.
+    phone.click("details[data-cautions] > summary")
+    phone.goto(f"/motors/{installation.motor.asset_tag}/")
+    assert phone.locator("details[data-cautions]").get_attribute("open") is None
+    assert phone.is_visible("text=Caution: capacitors store a charge that can kill")
+    assert not phone.is_visible("text=never a screwdriver")
+    phone.shot("motor-cautions-folded")
+    assert not Reading.objects.exists()
+
+
+def test_a_draft_kept_on_the_phone_keeps_the_time_it_was_measured(phone):
+    installation = make_installation()
+    sign_in(phone, make_user("technician"))
+    url = f"/capacitors/{installation.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_taken_at", "2026-01-05T09:30")  # as if the page had been open since the morning round
+    phone.fill("#id_capacitance_uf", "3.95")
+    phone.goto(url)  # the connection dropped; later, the page again
+    assert phone.is_visible("#draft-note")
+    assert phone.input_value("#id_taken_at") == "2026-01-05T09:30"
+    assert phone.input_value("#id_capacitance_uf") == "3.95"
+    phone.click("#save")
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.get().taken_at == dt.datetime(2026, 1, 5, 9, 30, tzinfo=dt.UTC)  # the site keeps UTC
+    assert FittedCapacitor.objects.count() == 1

@@ -1,0 +1,219 @@
+"""Field work as it happens: the time a reading was measured, a part that is not the design's,
+a motor found by part of its tag or by where it is, the decimal comma everywhere, and the
+risk set beside the last reading in words."""
+
+import datetime as dt
+import zoneinfo
+
+import pytest
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
+from fleet.templatetags.fleet_format import day, verdict_and_risk
+
+from .conftest import make_installation, make_motor, make_part, make_site, make_user
+from .test_rules import api_for, form_post, import_check, import_row
+from .test_substitutes import post_replacement
+
+pytestmark = pytest.mark.django_db
+
+MADRID = zoneinfo.ZoneInfo("Europe/Madrid")
+
+
+@pytest.fixture
+def madrid_installation():
+    site = make_site(time_zone="Europe/Madrid")
+    return make_installation(motor=make_motor(site=site), fitted_on=dt.date(2024, 1, 10))
+
+
+# The time measured
+
+
+def test_taken_at_is_site_time_and_is_stored_on_the_reading(client, technician, madrid_installation):
+    """[trade] a technician writes the wall-clock time where they stand: 09:30 in Madrid in March
+    (UTC+1, before the clocks change on 31 March 2024) is 08:30 UTC."""
+    client.force_login(technician)
+    response = form_post(client, madrid_installation, capacitance_uf="3.95", taken_at="2024-03-14T09:30")
+    assert response.status_code == 302
+    reading = Reading.objects.get()
+    assert reading.taken_at == dt.datetime(2024, 3, 14, 8, 30, tzinfo=dt.UTC)
+    assert reading.created_at > reading.taken_at  # when it reached the server is kept apart
+
+
+def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, technician, madrid_installation):
+    client.force_login(technician)
+    page = client.get(reverse("reading_new", args=[madrid_installation.id]))
+    offered = dt.datetime.fromisoformat(page.context["form"].initial["taken_at"]).replace(tzinfo=MADRID)
+    assert abs((offered - timezone.now()).total_seconds()) < 120
+    assert 'type="datetime-local"' in page.content.decode() and "Europe/Madrid" in page.content.decode()
+    before = timezone.now()
+    assert form_post(client, madrid_installation, capacitance_uf="3.95", taken_at="").status_code == 302
+    assert Reading.objects.get().taken_at >= before
+
+
+@pytest.mark.parametrize(
+    "taken_at,message",
+    [
+        ("2099-01-01T10:00", "In the future"),
+        ("2024-01-09T23:00", "Before this capacitor was fitted on 2024-01-10"),
+        ("2024-03-31T02:30", "skipped or repeated in Europe/Madrid"),  # [pub] EU summer time starts 02:00 -> 03:00
+        ("yesterday", "Not a date and time"),
+    ],
+)
+def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
+    client, technician, madrid_installation, taken_at, message
+):
+    client.force_login(technician)
+    response = form_post(client, madrid_installation, capacitance_uf="3.95", taken_at=taken_at)
+    assert response.status_code == 200 and not Reading.objects.exists()
+    assert message in response.context["form"].errors["taken_at"][0]
+    body = response.content.decode()
+    summary = body.index('id="error-summary"')
+    assert summary < body.index("Caution: capacitors store a charge") and message in body[summary:]
+    assert f'value="{taken_at}"' in body  # what was typed is shown again, not lost
+
+
+# The design part
+
+
+def test_a_part_fitted_against_the_advice_is_not_the_next_ones_design(client, technician, fan_installation):
+    """[derived] 4.8 uF is outside the fan's run band around its 4 uF design (test_substitutes): fitted
+    once with the override, the same 4.8 uF part again needs the override again, and 4 uF is the design."""
+    client.force_login(technician)
+    big = make_part(code="FILM-4U8", rated_uf=4.8)
+    assert post_replacement(client, fan_installation, big, substitute_override="on", override_reason="van").status_code
+    wrong = FittedCapacitor.objects.get(motor=fan_installation.motor, removed_on__isnull=True)
+    page = client.get(reverse("replace", args=[wrong.id]))
+    assert page.context["form"]["part"].value() == fan_installation.part_id
+    assert "not this motor's design part" in page.content.decode()
+    again = post_replacement(client, wrong, big)
+    assert again.status_code == 200 and "FILM-4U8 is unsuitable here" in again.content.decode()
+    assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 2
+    assert post_replacement(client, wrong, fan_installation.part).status_code == 302
+    assert (
+        "Fitted against the substitute advice"
+        not in client.get(reverse("motor", args=[fan_installation.motor.asset_tag])).content.decode()
+    )
+
+
+# Finding a motor
+
+
+def test_a_motor_is_found_by_part_of_its_tag_or_by_words_of_its_place(client, technician):
+    site = make_site(code="CST", name="Cool store")
+    target = make_motor(site=site, asset_tag="CST-0093", location="Condensing unit 3")
+    make_motor(site=site, asset_tag="CST-0094", location="Condensing unit 4")
+    make_motor(site=make_site(name="Packhouse"), asset_tag="PKH-0930", location="Grader line")
+    client.force_login(technician)
+    find = reverse("find")
+    assert client.get(find, {"tag": "0093"})["Location"] == reverse("motor", args=["CST-0093"])
+    assert client.get(find, {"tag": " unit   3 "})["Location"] == reverse("motor", args=[target.asset_tag])
+    both = client.get(find, {"tag": "cool store condensing"})
+    assert both.status_code == 200 and [m.asset_tag for m in both.context["matches"]] == ["CST-0093", "CST-0094"]
+    assert client.get(find, {"tag": "grader"})["Location"] == reverse("motor", args=["PKH-0930"])
+    none = client.get(find, {"tag": "boiler"})
+    assert "matches &#x27;boiler&#x27;" in none.content.decode()
+
+
+def test_finding_keeps_to_the_users_sites_and_takes_constant_queries(client, django_assert_max_num_queries):
+    home, away = make_site(name="Home farm"), make_site(name="Away farm")
+    for n in range(30):
+        make_motor(site=away, asset_tag=f"AWY-{n:04d}", location="Fan row")
+    make_motor(site=home, asset_tag="HOM-0001", location="Fan row")
+    user = make_user("technician")
+    SiteMembership.objects.create(user=user, site=home)
+    client.force_login(user)
+    with django_assert_max_num_queries(12):
+        response = client.get(reverse("find"), {"tag": "fan row"})
+    assert response["Location"] == reverse("motor", args=["HOM-0001"])  # the 30 elsewhere are not offered
+    assert "No motor" in client.get(reverse("find"), {"tag": "AWY"}).content.decode()
+
+
+# The decimal comma, every path
+
+
+@pytest.mark.parametrize("text,expected", [("31,5", 31.5), ("31.5", 31.5), ("3,1,5", None)])
+def test_a_decimal_comma_in_any_measured_field_is_read_alike_by_form_api_and_import(client, technician, text, expected):
+    """The rulebook's number syntax (fleet/engineering/rules.py) for the case temperature, not only the
+    capacitance: one decimal comma is a decimal mark, two are refused by name on every path."""
+    installations = [make_installation() for _ in range(3)]
+    client.force_login(technician)
+    form = form_post(client, installations[0], capacitance_uf="3,95", case_temperature_c=text)
+    api = api_for(technician).post(
+        reverse("api_capacitor_readings", args=[installations[1].id]),
+        {"method": "meter", "capacitance_uf": "3,95", "case_temperature_c": text},
+        format="json",
+    )
+    result = import_check([import_row(installations[2], capacitance_uf="3,95", case_temperature_c=text)])
+    if expected is None:
+        assert "decimal separator" in form.context["form"].errors["case_temperature_c"][0]
+        assert "decimal separator" in api.json()["case_temperature_c"][0]
+        assert "decimal separator" in result.errors[0][2] and result.errors[0][1] == "case_temperature_c"
+        assert not Reading.objects.exists()
+    else:
+        assert (form.status_code, api.status_code, len(result.good)) == (302, 201, 1)
+        stored = sorted(Reading.objects.values_list("capacitance_uf", "case_temperature_c"))
+        assert stored == [(3.95, expected), (3.95, expected)]
+        assert result.good["case_temperature_c"].tolist() == [expected]
+
+
+def test_the_life_data_costs_take_the_rulebooks_numbers(client, engineer):
+    make_part(code="LIFE-1")
+    client.force_login(engineer)
+    page = client.get(reverse("life_data"), {"part": "LIFE-1", "planned_cost": "60,5", "failure_cost": "1.200,5"})
+    assert page.context["planned_cost"] == 60.5
+    assert page.context["failure_cost"] == 400.0  # refused, not guessed as 1.2 or 1200.5
+    assert "1.200,5" in page.content.decode()
+
+
+# The verdict and the risk, in words
+
+
+def _assessment(**fields):
+    values = dict(
+        latest_verdict="within tolerance", risk="replace now", limit_source="tolerance", limit_fraction=0.9, reason="r"
+    )
+    values.update(fields)
+    return Assessment(**values)
+
+
+def test_a_green_verdict_beside_a_red_risk_is_explained():
+    words = verdict_and_risk(_assessment(reason="latest reading, referred to 25 °C, 129.8 µF: below the limit"))
+    assert words.startswith("As measured, the last reading is within the marked tolerance; the plan still says")
+    assert "referred to 25 °C" in words and words.endswith("129.8 µF: below the limit.")
+    torque = verdict_and_risk(_assessment(risk="due soon", limit_source="starting torque", limit_fraction=0.85))
+    assert "starting torque limit, crossed at 85 % of the rated capacitance" in torque
+    assert "dissipation factor" in verdict_and_risk(_assessment(limit_source="dissipation factor"))
+    relaxed = verdict_and_risk(_assessment(latest_verdict="below tolerance", risk="watch"))
+    assert "below tolerance" in relaxed and relaxed.endswith("Read it again to confirm.")
+    assert verdict_and_risk(_assessment(latest_verdict="below tolerance")) == ""
+    assert verdict_and_risk(_assessment(risk="sound")) == ""
+    assert verdict_and_risk(None) == ""
+
+
+def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(client, technician, fan_installation):
+    Assessment.objects.create(
+        installation=fan_installation,
+        model_version="test",
+        fitted_through=timezone.now(),
+        readings_used=4,
+        trend_model="linear",
+        slope_pct_per_1000h=-0.1,
+        slope_sd_pct_per_1000h=0.01,
+        capacitance_now_uf=3.81,
+        latest_verdict="within tolerance",
+        limit_fraction=0.95,
+        limit_source="tolerance",
+        risk="replace now",
+        replace_by=dt.date(2026, 1, 5),
+        reason="latest reading, referred to 25 °C, 3.79 µF: below the tolerance limit (3.80 µF)",
+    )
+    client.force_login(technician)
+    body = client.get(reverse("motor", args=[fan_installation.motor.asset_tag])).content.decode()
+    assert "the plan still says replace now because it judges the readings referred to 25 °C" in body
+
+
+def test_dates_are_kept_on_one_line():
+    assert day(dt.date(2026, 12, 2)) == '<span class="nowrap">2026-12-02</span>'
+    assert day(None) == ""
