@@ -7,7 +7,7 @@ from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import redirect, render
 from django.utils import timezone
 
-from .exports import stream_csv
+from .exports import Column, Table, stream_csv
 from .services.dashboard import TABLES, dashboard, dashboard_table
 
 
@@ -21,7 +21,8 @@ def dashboard_csv(request, name):
     if name not in TABLES:
         raise Http404("No such table")
     header, rows = dashboard_table(name, request.user)
-    response = StreamingHttpResponse(stream_csv(header, rows), content_type="text/csv; charset=utf-8")
+    table = Table(name, [Column(heading) for heading in header], rows)
+    response = StreamingHttpResponse(stream_csv(table), content_type="text/csv; charset=utf-8")
     response["Content-Disposition"] = f'attachment; filename="dashboard-{name}-{timezone.localdate():%Y-%m-%d}.csv"'
     return response
 

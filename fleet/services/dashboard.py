@@ -19,7 +19,7 @@ from fleet.engineering.lifedata import expected_failures
 from fleet.engineering.planning import RISK_ORDER
 from fleet.models import CapacitorPart, FittedCapacitor, PartLifeFit, Reading, RefitRun, Site, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
-from fleet.services.pages import assessed_since, current_assessments, quarter_start, risk_changes
+from fleet.services.pages import assessed_since, current_assessments, quarter_start
 
 WEEKS = 26
 MONTHS = 12
@@ -308,7 +308,18 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
         .annotate(n=Count("id"))
         .order_by()
     )
-    worse, better, _ = risk_changes(days=days, limit=limit, user=user)
+    changed = (
+        assessed_since(since, user)
+        .filter(previous_risk__isnull=False)
+        .exclude(previous_risk=F("risk"))
+        .select_related("installation__motor__site", "installation__part")
+        .order_by("replace_by", "installation_id")
+    )
+    worse, better = [], []
+    for assessment in changed[: 4 * limit]:  # bounded: the page lists at most `limit` of each
+        was = severity.get(assessment.previous_risk, len(RISK_ORDER))
+        (worse if severity.get(assessment.risk, len(RISK_ORDER)) < was else better).append(assessment)
+    worse, better = worse[:limit], better[:limit]
     return {
         "days": days,
         "readings": readings,

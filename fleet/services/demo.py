@@ -29,7 +29,7 @@ from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.assessments import refit_installations, refresh_part_priors
 from fleet.services.circuits import circuit_fields
 from fleet.services.readings import replace_capacitor
-from fleet.services.workorders import KIND_FOR_ROLE, issue_visit, open_visits, plan_work_orders
+from fleet.services.workorders import KIND_FOR_ROLE, issue_visit, open_visits_page, plan_work_orders
 
 FILM, ELECTROLYTIC = CapacitorPart.Dielectric.FILM, CapacitorPart.Dielectric.ELECTROLYTIC
 FAN_LAW, CONSTANT_TORQUE = Motor.LoadType.FAN_LAW, Motor.LoadType.CONSTANT
@@ -470,7 +470,7 @@ def build_work_orders(*, today: dt.date | None = None) -> dict:
     counts = plan_work_orders(horizon_days=90, user=planner, today=today)
     issued = 0
     first_visits = {}
-    for visit in open_visits():
+    for visit in open_visits_page(1, per_page=1000).object_list:
         first_visits.setdefault(visit["site"].id, visit)
     for site_id, visit in first_visits.items():
         issued += issue_visit(site_id=site_id, due_on=visit["day"], user=planner)
