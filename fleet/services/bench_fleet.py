@@ -236,7 +236,7 @@ def build_bench_fleet(
                 fraction[failed] = initial[failed] + slope[failed] * hours[failed] * rate[failed]
             read = (rng.random(positions) >= skip) & (day > fitted)
             which = np.flatnonzero(read)
-            seasonal = 6.0 * np.sin(2 * np.pi * (pd.DatetimeIndex(day[which]).dayofyear.to_numpy() - 100) / 365.0)
+            seasonal = 6.0 * np.sin(2 * np.pi * (pd.DatetimeIndex(day[which]).day_of_year.to_numpy() - 100) / 365.0)
             temperature = np.round(case_c[which] + seasonal + rng.normal(0, 1.5, len(which)), 1)
             measured = (
                 rated_uf[which]
