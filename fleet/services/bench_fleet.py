@@ -172,7 +172,7 @@ def build_bench_fleet(
         first_day = np.datetime64(today) - np.timedelta64(QUARTER_DAYS * quarters, "D")
         commissioned_day = commissioned[motor_index]
 
-        capacitor_rows: dict[str, list] = {k: [] for k in ("position", "fitted_on", "removed_on", "reason")}
+        capacitor_rows: dict[str, list] = {"position": [], "fitted_on": []}
         next_capacitor = [0]
 
         def new_capacitors(which, fitted_day):
@@ -182,8 +182,6 @@ def build_bench_fleet(
             next_capacitor[0] += count
             capacitor_rows["position"].append(which)
             capacitor_rows["fitted_on"].append(fitted_day)
-            capacitor_rows["removed_on"].append(np.full(count, np.datetime64("NaT"), "datetime64[D]"))
-            capacitor_rows["reason"].append(np.full(count, "", dtype=object))
             f = film[which]
             initial[which] = rng.normal(np.where(f, 1.01, 1.0), 0.015)
             slope[which] = -np.abs(rng.normal(np.where(f, 3e-6, 2.5e-6), np.where(f, 1e-6, 0.8e-6)))
@@ -238,7 +236,7 @@ def build_bench_fleet(
                 fraction[failed] = initial[failed] + slope[failed] * hours[failed] * rate[failed]
             read = (rng.random(positions) >= skip) & (day > fitted)
             which = np.flatnonzero(read)
-            seasonal = 6.0 * np.sin(2 * np.pi * (pd.DatetimeIndex(day[which]).dayofyear.to_numpy() - 100) / 365.0)
+            seasonal = 6.0 * np.sin(2 * np.pi * (pd.DatetimeIndex(day[which]).day_of_year.to_numpy() - 100) / 365.0)
             temperature = np.round(case_c[which] + seasonal + rng.normal(0, 1.5, len(which)), 1)
             measured = (
                 rated_uf[which]
