@@ -31,7 +31,9 @@ def _csv(columns: dict) -> bytes:
 
 
 def _copy(cursor, table: str, column_list: str, body: bytes) -> None:
-    with cursor.copy(f"COPY {table} ({column_list}) FROM STDIN WITH (FORMAT csv)") as copy:
+    """COPY the CSV in; a refusal (a constraint, a trigger) is raised as Django's own database error."""
+    statement = f"COPY {table} ({column_list}) FROM STDIN WITH (FORMAT csv)"
+    with connection.wrap_database_errors, cursor.copy(statement) as copy:
         for start in range(0, len(body), 1 << 20):
             copy.write(body[start : start + (1 << 20)])
 
@@ -57,8 +59,9 @@ def copy_rows(table: str, columns: dict, *, skip_conflicts_on: str | None = None
             with transaction.atomic():
                 _copy(cursor, target, column_list, body)
             return
-        except (IntegrityError, UniqueViolation):
-            pass
+        except IntegrityError as error:
+            if not isinstance(error.__cause__, UniqueViolation):
+                raise
         staging = connection.ops.quote_name(f"{table}_staging")
         cursor.execute(
             f"CREATE TEMPORARY TABLE {staging} ON COMMIT DROP AS SELECT {column_list} FROM {target} WITH NO DATA"

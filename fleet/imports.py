@@ -14,6 +14,7 @@ import csv
 import datetime as dt
 import hashlib
 import io
+import operator
 import re
 import zipfile
 from dataclasses import dataclass, field
@@ -340,11 +341,10 @@ def mapped_frame(
     position = {}
     for number, heading in enumerate(header):
         position.setdefault(heading, number)
-    columns = list(zip(*rows, strict=True)) if rows else [()] * len(header)
     out = {}
     for name in ours:
         column = position.get(mapping.get(name))
-        cells = columns[column] if column is not None else [""] * len(rows)
+        cells = list(map(operator.itemgetter(column), rows)) if column is not None else [""] * len(rows)
         out[name] = pd.Series(cells, dtype=str).str.strip()
     out["row"] = np.arange(len(rows)) + 2
     return pd.DataFrame(out)

@@ -295,3 +295,64 @@ def test_an_import_queues_its_refits_in_chunks_not_one_task_per_capacitor(settin
     chunks = [call.args[0] for call in delay.call_args_list]
     assert [len(c) for c in chunks] == [2, 2, 1]
     assert sorted(i for c in chunks for i in c) == sorted(FittedCapacitor.objects.values_list("id", flat=True))
+
+
+def test_reading_keys_are_the_keys_readings_were_imported_with():
+    """[derived] The vectorised keys equal the row-by-row keys of earlier imports
+    (id|Timestamp.isoformat()|method|value to 4 places, SHA-256, 40 hex digits), so a file
+    imported before the change still adds nothing the second time."""
+    import hashlib
+
+    import pandas as pd
+
+    from fleet.imports import reading_keys
+
+    times = pd.Series(
+        pd.to_datetime(
+            ["2024-03-14 08:30:00", "2024-03-14 08:30:00.250000", "2023-12-31 23:59:59.000000001"],
+            utc=True,
+            format="ISO8601",
+        )
+    )
+    ids, methods, values = [7, 12, 123456], ["meter", "in_circuit", "meter"], [3.9, 4.01234, 12.5]
+    expected = [
+        hashlib.sha256(f"{i}|{t.isoformat()}|{m}|{c:.4f}".encode()).hexdigest()[:40]
+        for i, t, m, c in zip(ids, times, methods, values, strict=True)
+    ]
+    assert list(reading_keys(ids, times, methods, values)) == expected
+
+
+def test_a_reading_another_import_wrote_meanwhile_is_skipped_and_the_rest_go_in():
+    """Two jobs importing the same file at once: the second's COPY meets the first's keys."""
+    from django.db import transaction
+
+    from fleet.imports import READING_COLUMNS, check_readings, insert_readings, mapped_frame
+
+    fleet_of(2)
+    rows = good_rows(["IMP-0000", "IMP-0001"], 2)
+    result = check_readings(mapped_frame(HEADER, rows, {n: n for n in HEADER}, READING_COLUMNS))
+    assert len(result.good) == 4
+    with transaction.atomic():
+        insert_readings(result.good.iloc[:1])
+    with transaction.atomic():
+        insert_readings(result.good)
+    assert Reading.objects.count() == 4
+    stored = Reading.objects.get(import_key=result.good["import_key"].iloc[3])
+    assert stored.capacitance_uf == float(rows[3][4]) and stored.case_temperature_c == 31.0
+    assert stored.source == Reading.Source.IMPORT and stored.taken_by is None and stored.notes == ""
+
+
+def test_the_database_still_refuses_a_reading_after_removal_and_nothing_goes_in():
+    """The trigger on fleet_reading runs for rows written in bulk too: a capacitor removed between
+    the check and the write refuses the whole batch."""
+    from django.db import IntegrityError, transaction
+
+    from fleet.imports import READING_COLUMNS, check_readings, insert_readings, mapped_frame
+
+    motors = fleet_of(2)
+    rows = good_rows(["IMP-0000", "IMP-0001"], 2)
+    result = check_readings(mapped_frame(HEADER, rows, {n: n for n in HEADER}, READING_COLUMNS))
+    FittedCapacitor.objects.filter(motor=motors[1]).update(removed_on=dt.date(2021, 6, 15), removal_reason="failed")
+    with pytest.raises(IntegrityError), transaction.atomic():
+        insert_readings(result.good)
+    assert not Reading.objects.exists()

@@ -9,7 +9,9 @@ With nameplate data alone the priors decide part of the answer; `unique` says
 whether the data by themselves pin every parameter down (full-rank Jacobian).
 
 Solved once per distinct design (fleets share a few dozen nameplates), not per
-motor: the caller de-duplicates nameplates before calling.
+motor: the caller de-duplicates nameplates before calling. All designs, each from
+twelve starts, are one vectorised Levenberg-Marquardt solve (`estimate_designs`):
+milliseconds a design instead of a solver call per design and start.
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from .drift import CAPACITOR_START
-from .motor import MotorCircuit, synchronous_speed_rad_s, two_winding_running
+from .motor import MotorCircuit, RunningResult, synchronous_speed_rad_s, two_winding_running
 
 
 @dataclass(frozen=True)
@@ -89,7 +91,6 @@ PRIOR_TURNS_RATIO = (1.3, 0.4)
 ROTATIONAL_LOSS_FRACTION = 0.05  # of rated output
 
 
-THETA_NAMES = ("log_r1m", "log_x1", "log_r2", "log_xm", "log_turns_ratio", "log_aux_resistance_ratio")
 DATA_WEIGHT = 10.0
 # Weight 3: strong enough to rule out designs whose backward field rivals the forward one at
 # rated load (a spurious minimum), weak beside the data (10).
@@ -187,8 +188,9 @@ def _relative_miss(measured, modelled):
         return np.where(np.isnan(measured), 0.0, (modelled - measured) / measured)
 
 
-def _data_residuals(theta, p: _Problems) -> np.ndarray:
-    """Relative misses on the data, (problems, 8): nameplate current and output, then the readings."""
+def _data_residuals(theta, p: _Problems) -> tuple[np.ndarray, RunningResult]:
+    """Relative misses on the data, (problems, 6 to 8): nameplate current and output, then the readings
+    (locked-rotor and no-load columns only when some problem has them); and the rated running point."""
     circuit = _circuit(theta, p)
     rated = two_winding_running(circuit, p.run_uf, p.slip, aux_in_circuit=p.runs)
     misses = [

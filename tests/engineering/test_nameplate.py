@@ -90,175 +90,44 @@ def test_other_motor_types_estimate_without_error(kind, run_uf, start_uf):
 
 # [derived] Estimates recorded from the earlier solver (scipy.optimize.least_squares, trust-region
 # reflective, one design and one start at a time, 12 starts), before the batched solver replaced it:
-# (name, nameplate, readings, (r1m, x1m, r1a, x1a, r2, xm, turns ratio), data rank, balance uF).
+# name, nameplate (V, Hz, poles, W, A, rpm, kind, run uF, start uF), commissioning readings,
+# (r1m, x1m, r1a, x1a, r2, xm, turns ratio), data rank, balance uF.
+# fmt: off
 RECORDED_BY_THE_EARLIER_SOLVER = [
-    (
-        "evaporator fan",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=6,
-            output_w=120,
-            full_load_current_a=0.95,
-            rated_speed_rpm=910,
-            motor_kind=PERMANENT_SPLIT,
-            run_capacitance_uf=4.0,
-            start_capacitance_uf=0.0,
-        ),
-        None,
-        (36.5212, 8.20926, 95.5993, 17.7541, 57.8147, 287.809, 1.47061),
-        2,
-        4.26594,
-    ),
-    (
-        "circulation fan",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=4,
-            output_w=250,
-            full_load_current_a=1.9,
-            rated_speed_rpm=1370,
-            motor_kind=PERMANENT_SPLIT,
-            run_capacitance_uf=8.0,
-            start_capacitance_uf=0.0,
-        ),
-        None,
-        (16.9792, 4.17646, 44.1675, 8.98269, 26.9013, 146.406, 1.46656),
-        2,
-        8.53277,
-    ),
-    (
-        "irrigation pump",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=2,
-            output_w=750,
-            full_load_current_a=5.2,
-            rated_speed_rpm=2830,
-            motor_kind=TWO_VALUE,
-            run_capacitance_uf=20.0,
-            start_capacitance_uf=98.0,
-        ),
-        None,
-        (3.93471, 1.57062, 11.0016, 3.63523, 6.24049, 55.079, 1.52135),
-        2,
-        21.9977,
-    ),
-    (
-        "cooler compressor",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=2,
-            output_w=1100,
-            full_load_current_a=7.6,
-            rated_speed_rpm=2850,
-            motor_kind=TWO_VALUE,
-            run_capacitance_uf=30.0,
-            start_capacitance_uf=145.0,
-        ),
-        None,
-        (2.41264, 1.0557, 6.6954, 2.42403, 3.82403, 37.0282, 1.5153),
-        2,
-        32.8306,
-    ),
-    (
-        "packing conveyor",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=4,
-            output_w=370,
-            full_load_current_a=3.3,
-            rated_speed_rpm=1420,
-            motor_kind=CAPACITOR_START,
-            run_capacitance_uf=0.0,
-            start_capacitance_uf=208.0,
-        ),
-        None,
-        (5.82699, 4.68741, 11.8171, 7.92173, 9.32319, 164.059, 1.3),
-        2,
-        11.8315,
-    ),
-    (
-        "60 Hz fan",
-        Nameplate(
-            voltage_v=115,
-            frequency_hz=60,
-            poles=6,
-            output_w=186,
-            full_load_current_a=2.8,
-            rated_speed_rpm=1075,
-            motor_kind=PERMANENT_SPLIT,
-            run_capacitance_uf=7.5,
-            start_capacitance_uf=0.0,
-        ),
-        None,
-        (5.63647, 1.88075, 24.8793, 6.95804, 9.13813, 66.392, 1.92344),
-        2,
-        10.774,
-    ),
-    (
-        "fan with winding currents",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=6,
-            output_w=120,
-            full_load_current_a=0.95,
-            rated_speed_rpm=910,
-            motor_kind=PERMANENT_SPLIT,
-            run_capacitance_uf=3.8,
-            start_capacitance_uf=0.0,
-        ),
-        CommissioningReadings(
-            locked_rotor_current_a=None,
-            no_load_current_a=None,
-            main_dc_resistance_ohm=None,
-            aux_dc_resistance_ohm=None,
-            main_current_a=0.62,
-            aux_current_a=0.41,
-        ),
-        (38.4324, 12.0765, 85.3573, 19.9491, 52.7812, 426.482, 1.28526),
-        4,
-        4.05152,
-    ),
-    (
-        "fan with locked-rotor and no-load currents",
-        Nameplate(
-            voltage_v=230,
-            frequency_hz=50,
-            poles=6,
-            output_w=120,
-            full_load_current_a=0.95,
-            rated_speed_rpm=910,
-            motor_kind=PERMANENT_SPLIT,
-            run_capacitance_uf=4.0,
-            start_capacitance_uf=0.0,
-        ),
-        CommissioningReadings(
-            locked_rotor_current_a=2.1,
-            no_load_current_a=0.7,
-            main_dc_resistance_ohm=30.0,
-            aux_dc_resistance_ohm=None,
-            main_current_a=None,
-            aux_current_a=None,
-        ),
-        (32.0092, 7.8408, 89.5797, 18.566, 66.4178, 273.292, 1.53879),
-        5,
-        4.08622,
-    ),
+    ("evaporator fan", (230, 50, 6, 120, 0.95, 910, PERMANENT_SPLIT, 4.0, 0.0),
+     {},
+     (36.5212, 8.20926, 95.5993, 17.7541, 57.8147, 287.809, 1.47061), 2, 4.26594),
+    ("circulation fan", (230, 50, 4, 250, 1.9, 1370, PERMANENT_SPLIT, 8.0, 0.0),
+     {},
+     (16.9792, 4.17646, 44.1675, 8.98269, 26.9013, 146.406, 1.46656), 2, 8.53277),
+    ("irrigation pump", (230, 50, 2, 750, 5.2, 2830, TWO_VALUE, 20.0, 98.0),
+     {},
+     (3.93471, 1.57062, 11.0016, 3.63523, 6.24049, 55.079, 1.52135), 2, 21.9977),
+    ("cooler compressor", (230, 50, 2, 1100, 7.6, 2850, TWO_VALUE, 30.0, 145.0),
+     {},
+     (2.41264, 1.0557, 6.6954, 2.42403, 3.82403, 37.0282, 1.5153), 2, 32.8306),
+    ("packing conveyor", (230, 50, 4, 370, 3.3, 1420, CAPACITOR_START, 0.0, 208.0),
+     {},
+     (5.82699, 4.68741, 11.8171, 7.92173, 9.32319, 164.059, 1.3), 2, 11.8315),
+    ("60 Hz fan", (115, 60, 6, 186, 2.8, 1075, PERMANENT_SPLIT, 7.5, 0.0),
+     {},
+     (5.63647, 1.88075, 24.8793, 6.95804, 9.13813, 66.392, 1.92344), 2, 10.774),
+    ("fan with winding currents", (230, 50, 6, 120, 0.95, 910, PERMANENT_SPLIT, 3.8, 0.0),
+     {"main_current_a": 0.62, "aux_current_a": 0.41},
+     (38.4324, 12.0765, 85.3573, 19.9491, 52.7812, 426.482, 1.28526), 4, 4.05152),
+    ("fan with locked-rotor and no-load currents", (230, 50, 6, 120, 0.95, 910, PERMANENT_SPLIT, 4.0, 0.0),
+     {"locked_rotor_current_a": 2.1, "no_load_current_a": 0.7, "main_dc_resistance_ohm": 30.0},
+     (32.0092, 7.8408, 89.5797, 18.566, 66.4178, 273.292, 1.53879), 5, 4.08622),
 ]
+# fmt: on
 
 
 def test_the_batched_solver_matches_the_earlier_solver_design_by_design():
     """All designs in one solve (nameplate only, winding currents, locked-rotor and no-load
     readings side by side) land where the one-at-a-time solver did, within 0.01 %."""
-    estimates = estimate_designs(
-        [case[1] for case in RECORDED_BY_THE_EARLIER_SOLVER], [case[2] for case in RECORDED_BY_THE_EARLIER_SOLVER]
-    )
+    plates = [Nameplate(*plate) for _, plate, _, _, _, _ in RECORDED_BY_THE_EARLIER_SOLVER]
+    readings = [CommissioningReadings(**given) for _, _, given, _, _, _ in RECORDED_BY_THE_EARLIER_SOLVER]
+    estimates = estimate_designs(plates, readings)
     for (name, _, _, parameters, rank, balance_uf), estimate in zip(
         RECORDED_BY_THE_EARLIER_SOLVER, estimates, strict=True
     ):
@@ -270,7 +139,7 @@ def test_the_batched_solver_matches_the_earlier_solver_design_by_design():
 
 def test_one_design_alone_gets_the_same_estimate_as_in_a_batch():
     """[derived] Problems in a batch are independent: solving one alone changes nothing."""
-    plates = [case[1] for case in RECORDED_BY_THE_EARLIER_SOLVER]
+    plates = [Nameplate(*plate) for _, plate, _, _, _, _ in RECORDED_BY_THE_EARLIER_SOLVER]
     alone = estimate_parameters(plates[2])
     together = estimate_designs(plates)[2]
     assert alone.r1m == pytest.approx(together.r1m, rel=1e-6)
