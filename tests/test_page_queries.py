@@ -190,3 +190,20 @@ def test_the_work_orders_page_lists_a_visits_first_orders_and_counts_them_all(pl
         assert [o.id for o in visit["orders"]] == [orders["orders"][0].id]
         assert visit["more"] == visit["count"] - 1
         assert visit["spares"] == orders["spares"] == [("RUN-4U", visit["count"])]
+
+
+def test_the_refits_page_counts_capacitors_read_since_their_assessment():
+    """[derived] A finished fleet refit covered every reading saved before it began; a reading saved
+    since makes its capacitor stale until its own refit."""
+    from fleet.services.refits import stale_count
+
+    installation = make_installation()
+    quarterly_readings(installation, START, SOUND)
+    assert stale_count() == 1  # read, never assessed, and no fleet refit has finished
+    refit_installations([installation.id])
+    assert stale_count() == 0
+    RefitRun.objects.create(kind="fleet", state=RefitRun.State.DONE, total=1, done=1)
+    make_reading(installation, capacitance_uf=3.98)
+    assert stale_count() == 1
+    refit_installations([installation.id])
+    assert stale_count() == 0

@@ -15,6 +15,24 @@ a failed capacitor in its history, four quarterly readings per capacitor in serv
 assessments each (last week's and the current one, a few at another risk level), open work
 orders for the capacitors to replace now. `--explain` prints EXPLAIN ANALYZE of every query
 of each page that took longer than 20 ms.
+
+Measured 2026-12-02 on the 2-core machine shared with other work (load average 10 to 15, so read
+the ratios more than the milliseconds), 100,000 motors, 40 or 20 requests a page after, 5 before:
+
+    page                 queries before/after   KB before/after   p50 ms before/after   p95 ms before/after
+    home                      12 / 12              9 / 9            819 / 165             847 / 198
+    plan                      14 / 15             36 / 36         13216 / 430           14860 / 556
+    plan, page 40             14 / 15             36 / 36         12488 / 593           13639 / 714
+    refits                     8 / 9               4 / 4           5451 / 153            6594 / 169
+    work orders                8 / 11            644 / 63          2529 / 503            2777 / 591
+    route (big site)           9 / 11          16529 / 35         50010 / 91            62034 / 135
+    route, due only            9 / 11           5945 / 35         26783 / 95            31684 / 122
+    labels (big site)          - / 10          50,000 QR codes / 44  (not run) / 320     - / 334
+    imports                    8 / 8              11 / 11           140 / 52              179 / 66
+    motor                     12 / 12              3 / 3            209 / 64              226 / 71
+    capacitor                 10 / 10              3 / 3            171 / 80              212 / 96
+    API assessments            8 / 8              63 / 63           962 / 137             986 / 161
+    API, due soon              8 / 8              63 / 63           383 / 99              519 / 176
 """
 
 from __future__ import annotations
