@@ -435,45 +435,54 @@ def phasor_figure(states: dict[str, dict[str, tuple]], unit: str, where: str) ->
 
     states: "as new" and, if known, "now" -> {label: (magnitude, angle_deg)} with labels from
     PHASOR_STYLE; as new dashed, now solid. `where`: "running" or "at standstill".
+    Built from plain dicts in one go (the motor page draws several: figure-by-figure updates cost
+    a second a page).
     """
-    figure = go.Figure()
+    traces = []
     for state, points in states.items():
         now = state == "now" or len(states) == 1
         for label, (magnitude, angle) in points.items():
             name, color = PHASOR_STYLE[label]
             if magnitude is None or angle is None:
                 continue
-            figure.add_trace(
-                go.Scatterpolar(
-                    r=[0, magnitude],
-                    theta=[0, angle],
-                    mode="lines+markers",
-                    line={"color": color, "width": 3 if now else 2, "dash": "solid" if now else "dash"},
-                    marker={"symbol": "arrow", "angleref": "previous", "size": [0, 13], "color": color},
-                    name=name,
-                    legendgroup=label,
-                    showlegend=now,
-                    hovertemplate=f"{name}, {state}: %{{r:.3~f}} {unit} at %{{theta:.1f}}\u00b0<extra></extra>",
-                )
+            traces.append(
+                {
+                    "type": "scatterpolar",
+                    "r": [0, magnitude],
+                    "theta": [0, angle],
+                    "mode": "lines+markers",
+                    "line": {"color": color, "width": 3 if now else 2, "dash": "solid" if now else "dash"},
+                    "marker": {"symbol": "arrow", "angleref": "previous", "size": [0, 13], "color": color},
+                    "name": name,
+                    "legendgroup": label,
+                    "showlegend": now,
+                    "hovertemplate": f"{name}, {state}: %{{r:.3~f}} {unit} at %{{theta:.1f}}\u00b0<extra></extra>",
+                }
             )
-    figure.update_layout(
-        polar={
+    states_words = "dashed: as new, solid: now" if len(states) > 1 else "as new"
+    quantity = "currents" if unit == "A" else "voltages"
+    layout = {
+        "polar": {
             "angularaxis": {"direction": "counterclockwise", "rotation": 0, "gridcolor": GRID, "dtick": 30},
             "radialaxis": {"gridcolor": GRID, "angle": 135, "tickangle": 45, "nticks": 4, "tickfont": {"size": 11}},
             "bgcolor": "white",
         },
-    )
-    styled = _styled(figure, height=PHASOR_HEIGHT_PX)
-    styled["layout"]["margin"] = {"l": 30, "r": 30, "t": 30, "b": 20}
-    states_words = "dashed: as new, solid: now" if len(states) > 1 else "as new"
-    quantity = "currents" if unit == "A" else "voltages"
-    styled["layout"]["legend"] = {
-        "orientation": "h",
-        "y": -0.1,
-        "yanchor": "top",
-        "title": {"text": f"{quantity} ({unit}) {where}; {states_words}", "side": "top", "font": {"size": 12}},
+        "margin": {"l": 30, "r": 30, "t": 30, "b": 20},
+        "legend": {
+            "orientation": "h",
+            "y": -0.1,
+            "yanchor": "top",
+            "title": {"text": f"{quantity} ({unit}) {where}; {states_words}", "side": "top", "font": {"size": 12}},
+        },
     }
-    return styled
+    return _plain(traces, layout, PHASOR_HEIGHT_PX)
+
+
+SWEEP_PANELS = (  # (value key, axis title, what the limit's level is), top to bottom
+    ("starting_torque_nm", "starting torque (N m)", "least: load break-away"),
+    ("capacitor_voltage_v", "capacitor voltage (V)", "most: capacitor rating"),
+    ("main_current_a", "main current, running (A)", "most: full-load current x service factor"),
+)
 
 
 def capacitance_sweep_figure(
@@ -485,78 +494,123 @@ def capacitance_sweep_figure(
     crossings: list[dict],
 ) -> dict:
     """Starting torque, capacitor voltage and main current against capacitance (% of rated), one panel
-    each, with each limit's level (dashed), where the assessment found it crossed (dotted), and the
-    as-new and present points marked."""
-    from plotly.subplots import make_subplots
-
-    panels = (
-        ("starting_torque_nm", "starting torque (N m)", "least: load break-away"),
-        ("capacitor_voltage_v", "capacitor voltage (V)", "most: capacitor rating"),
-        ("main_current_a", "main current, running (A)", "most: full-load current x service factor"),
-    )
-    figure = make_subplots(rows=3, cols=1, shared_xaxes=True, vertical_spacing=0.06)
-    for row, (key, title, level_words) in enumerate(panels, start=1):
-        figure.add_trace(
-            go.Scatter(
-                x=percent_of_rated,
-                y=values[key],
-                mode="lines",
-                line={"color": TREND, "width": 2},
-                name=title,
-                showlegend=False,
-                hovertemplate=f"%{{x:.1f}} % of rated: %{{y:.3~f}}<extra>{title}</extra>",
-            ),
-            row=row,
-            col=1,
+    each on a shared axis, with each limit's level (dashed), where the assessment found it crossed
+    (dotted), and the as-new and present points marked. Plain dicts, as `phasor_figure`."""
+    traces, shapes, annotations, layout = [], [], [], {}
+    gap = 0.06
+    height = (1 - 2 * gap) / len(SWEEP_PANELS)
+    for row, (key, title, level_words) in enumerate(SWEEP_PANELS):
+        axis = "y" if row == 0 else f"y{row + 1}"
+        top = 1 - row * (height + gap)
+        layout["yaxis" if row == 0 else f"yaxis{row + 1}"] = {
+            "domain": [top - height, top],
+            "anchor": "x",
+            "title": {"text": title, "font": {"size": 12}},
+            "gridcolor": GRID,
+        }
+        traces.append(
+            {
+                "type": "scatter",
+                "x": percent_of_rated,
+                "y": values[key],
+                "yaxis": axis,
+                "mode": "lines",
+                "line": {"color": TREND, "width": 2},
+                "name": title,
+                "showlegend": False,
+                "hovertemplate": f"%{{x:.1f}} % of rated: %{{y:.3~f}}<extra>{title}</extra>",
+            }
         )
         if levels.get(key) is not None:
-            figure.add_hline(
-                y=levels[key],
-                line={"color": LIMIT, "dash": "dash", "width": 1.5},
-                annotation_text=level_words,
-                annotation_position="top left",
-                annotation_font={"size": 11, "color": LIMIT},
-                row=row,
-                col=1,
+            line = {"color": LIMIT, "dash": "dash", "width": 1.5}
+            shapes.append(
+                {
+                    "type": "line",
+                    "xref": "x domain",
+                    "x0": 0,
+                    "x1": 1,
+                    "yref": axis,
+                    "y0": levels[key],
+                    "y1": levels[key],
+                    "line": line,
+                }
+            )
+            annotations.append(
+                {
+                    "xref": "x domain",
+                    "x": 0,
+                    "yref": axis,
+                    "y": levels[key],
+                    "text": level_words,
+                    "showarrow": False,
+                    "xanchor": "left",
+                    "yanchor": "bottom",
+                    "font": {"size": 11, "color": LIMIT},
+                }
             )
         for label, point in points.items():
-            figure.add_trace(
-                go.Scatter(
-                    x=[point["percent_of_rated"]],
-                    y=[point[key]],
-                    mode="markers",
-                    marker={
+            traces.append(
+                {
+                    "type": "scatter",
+                    "x": [point["percent_of_rated"]],
+                    "y": [point[key]],
+                    "yaxis": axis,
+                    "mode": "markers",
+                    "marker": {
                         "color": INK if label == "now" else "white",
                         "line": {"color": INK, "width": 2},
                         "size": 11,
                         "symbol": "circle" if label == "now" else "diamond",
                     },
-                    name=label,
-                    legendgroup=label,
-                    showlegend=row == 1,
-                    hovertemplate=f"{label}: %{{x:.1f}} % of rated, %{{y:.3~f}}<extra></extra>",
-                ),
-                row=row,
-                col=1,
+                    "name": label,
+                    "legendgroup": label,
+                    "showlegend": row == 0,
+                    "hovertemplate": f"{label}: %{{x:.1f}} % of rated, %{{y:.3~f}}<extra></extra>",
+                }
             )
-        figure.update_yaxes(title_text=title, title_font={"size": 12}, row=row, col=1)
     for crossing in crossings:
-        if percent_of_rated[0] <= crossing["percent_of_rated"] <= percent_of_rated[-1]:
-            figure.add_vline(x=crossing["percent_of_rated"], line={"color": LIMIT, "dash": "dot", "width": 1})
-            figure.add_annotation(
-                x=crossing["percent_of_rated"],
-                y=1.0,
-                xref="x",
-                yref="paper",
-                text=crossing["name"],
-                showarrow=False,
-                textangle=-90,
-                xanchor="right",
-                yanchor="top",
-                font={"size": 11, "color": LIMIT},
+        x = crossing["percent_of_rated"]
+        if percent_of_rated[0] <= x <= percent_of_rated[-1]:
+            shapes.append(
+                {
+                    "type": "line",
+                    "xref": "x",
+                    "x0": x,
+                    "x1": x,
+                    "yref": "paper",
+                    "y0": 0,
+                    "y1": 1,
+                    "line": {"color": LIMIT, "dash": "dot", "width": 1},
+                }
             )
-    figure.update_xaxes(title_text=f"capacitance, % of rated {rated_uf:g} \u00b5F", row=3, col=1)
-    styled = _styled(figure, height=SWEEP_HEIGHT_PX)
-    styled["layout"]["legend"] = {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 1, "xanchor": "right"}
-    styled["layout"]["margin"]["t"] = 30
-    return styled
+            annotations.append(
+                {
+                    "x": x,
+                    "y": 1.0,
+                    "xref": "x",
+                    "yref": "paper",
+                    "text": crossing["name"],
+                    "showarrow": False,
+                    "textangle": -90,
+                    "xanchor": "right",
+                    "yanchor": "top",
+                    "font": {"size": 11, "color": LIMIT},
+                }
+            )
+    layout |= {
+        "xaxis": {
+            "anchor": f"y{len(SWEEP_PANELS)}",
+            "title": {"text": f"capacitance, % of rated {rated_uf:g} \u00b5F"},
+            "gridcolor": GRID,
+        },
+        "shapes": shapes,
+        "annotations": annotations,
+        "margin": {"l": 60, "r": 10, "t": 30, "b": 40},
+        "legend": {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 1, "xanchor": "right"},
+    }
+    return _plain(traces, layout, SWEEP_HEIGHT_PX)
+
+
+def _plain(traces: list[dict], layout: dict, height: int) -> dict:
+    """A figure dict in the house style of `_styled`, without building graph objects."""
+    return {"data": traces, "layout": {"height": height, "plot_bgcolor": "white", "font": {"size": 14}, **layout}}

@@ -319,3 +319,9 @@ def test_the_plan_and_life_data_pages_link_their_filtered_exports(client, awkwar
     assert f"/exports/life-data.xlsx?part={installations[0].part.code}" in links
     for link in links:
         assert client.get(link).status_code == 200, link
+
+
+def test_exports_need_a_sign_in(client):
+    for url in (reverse("export", args=["readings", "csv"]), reverse("export_about", args=["readings"])):
+        response = client.get(url)
+        assert response.status_code == 302 and response["Location"].startswith(reverse("login"))

@@ -103,3 +103,12 @@ def test_the_motor_page_embeds_the_charts_as_json(client, engineer):
         payload = body[body.index(">", start) + 1 : body.index("</script>", start)]
         json.loads(payload)  # valid JSON: no NaN reaches the page
     assert "plotly/plotly.min" in body
+
+
+def test_the_figures_are_valid_plotly():
+    """The figures are plain dicts (fast to build): Plotly's own validator must accept every property."""
+    import plotly.graph_objects as go
+
+    installation = _assessed_fan()
+    for figure in motor_pictures([installation])[installation.id].values():
+        go.Figure(figure)  # raises on any property Plotly does not know

@@ -254,14 +254,18 @@ def capacitance_limits(
     first that breaches: resolution (1 - lowest_fraction) / (steps - 1), 5 % of
     rated with the defaults, finer than a field meter resolves.
     """
-    shape = np.broadcast_shapes(np.shape(circuit.r1m), np.shape(role), np.shape(rated_run_uf))
-    role = np.broadcast_to(np.asarray(role), shape)
-    fractions_grid = np.linspace(1.0, lowest_fraction, steps)
-    sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, fractions_grid)
+    role = np.asarray(role)
     levels = limit_levels(load, role, full_load_current_a, capacitor_rated_voltage_v, limits)
     column_levels = LimitLevels(*(_column(getattr(levels, name)) for name in levels.__dataclass_fields__))
-    breached = limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, _column(role))
-    breached = breached.reshape(len(LIMIT_NAMES), *shape, steps)
+    fractions_grid = np.linspace(1.0, lowest_fraction, steps)
+
+    def breached_at(fraction):
+        sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, [fraction])
+        return limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, _column(role))[..., 0]
+
+    # One grid point at a time: a solve that must run its whole slip grid for one stalled point
+    # would otherwise run it for every point, and memory stays that of one fleet-wide solve.
+    breached = np.stack([breached_at(fraction) for fraction in fractions_grid], axis=-1)
     first = np.argmax(breached, axis=-1)
     before = fractions_grid[np.maximum(first - 1, 0)]
     midpoint = np.where(first == 0, fractions_grid[0], 0.5 * (fractions_grid[first] + before))
