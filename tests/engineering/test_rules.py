@@ -78,8 +78,8 @@ def test_secondary_values_out_of_range_are_named_on_meter_readings_too():
             "esr_ohm": ["", "", "", "inf"],
         }
     )
-    assert "above 150 C" in result.errors["case_temperature_c"][0]
-    assert "-40 C or more" in result.errors["case_temperature_c"][1]
+    assert "above 150 °C" in result.errors["case_temperature_c"][0]
+    assert "-40 °C or more" in result.errors["case_temperature_c"][1]
     assert "above 0 V" in result.errors["capacitor_voltage_v"][2]
     assert "0 A or more" in result.errors["capacitor_current_a"][2]
     assert result.errors["esr_ohm"][3] == "not a finite number"
