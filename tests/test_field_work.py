@@ -71,7 +71,8 @@ def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
     assert message in response.context["form"].errors["taken_at"][0]
     body = response.content.decode()
     summary = body.index('id="error-summary"')
-    assert summary < body.index("Caution: capacitors store a charge") and message in strip_tags(body[summary:])
+    assert summary < body.index("Caution: capacitors store a charge")
+    assert message in strip_tags(body[summary : body.index("Caution: capacitors store a charge")])
     assert f'value="{taken_at}"' in body  # what was typed is shown again, not lost
 
 
@@ -89,7 +90,10 @@ def test_a_part_fitted_against_the_advice_is_not_the_next_ones_design(client, te
     assert page.context["form"]["part"].value() == fan_installation.part_id
     assert "not this motor's design part" in page.content.decode()
     again = post_replacement(client, wrong, big)
-    assert again.status_code == 200 and "FILM-4U8 is unsuitable here" in again.content.decode()
+    body = again.content.decode()
+    assert again.status_code == 200 and "FILM-4U8 is unsuitable here" in body
+    cautions = body.index("Caution: capacitors store a charge")
+    assert body.index('id="error-summary"') < cautions < body.index('<form method="post" class="card"')
     assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 2
     assert post_replacement(client, wrong, fan_installation.part).status_code == 302
     assert (

@@ -20,7 +20,8 @@ CHECK_LAYOUT = """() => {
   const dates = [...document.querySelectorAll('.nowrap')].map(td => {
     const range = document.createRange();
     range.selectNodeContents(td);
-    return range.getClientRects().length;
+    // Lines, not boxes: a run of text in two fonts (the micro sign) is two boxes on one line.
+    return new Set([...range.getClientRects()].filter(r => r.width > 0).map(r => Math.round(r.top))).size;
   });
   const boxes = [...document.querySelectorAll(".table-scroll")].map(b => b.scrollWidth > b.clientWidth);
   return {charts, dates, boxes, page: document.documentElement.scrollWidth, view: window.innerWidth};
