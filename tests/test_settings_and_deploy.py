@@ -92,3 +92,19 @@ def test_lock_file_pins_every_requirement_exactly():
                 assert package in locked, f"{package} of {name} is not in requirements.lock"
     compose = (ROOT / "docker-compose.yml").read_text()
     assert "-c requirements.lock" in compose and "-c requirements.lock" in (ROOT / ".ci" / "run").read_text()
+
+
+@pytest.mark.django_db
+def test_health_answers_503_when_the_database_does_not(monkeypatch):
+    """The health check fails, with Retry-After, while the database is unreachable."""
+    from django.db import OperationalError
+    from django.test import Client
+
+    import fleet.faults
+
+    def unreachable():
+        raise OperationalError("connection refused")
+
+    monkeypatch.setattr(fleet.faults.connection, "cursor", unreachable)
+    response = Client(raise_request_exception=False).get("/health/")
+    assert response.status_code == 503 and response.has_header("Retry-After")
