@@ -136,3 +136,19 @@ def test_collectstatic_hashes_and_compresses_plotly_for_a_long_cache(tmp_path):
     gzip_size = hashed.with_name(hashed.name + ".gz").stat().st_size
     assert brotli_size < gzip_size < len(raw) / 3
     assert brotli_size < 1_250_000
+
+
+@pytest.mark.django_db
+def test_health_answers_503_when_the_database_does_not(monkeypatch):
+    """The health check fails, with Retry-After, while the database is unreachable."""
+    from django.db import OperationalError
+    from django.test import Client
+
+    import fleet.faults
+
+    def unreachable():
+        raise OperationalError("connection refused")
+
+    monkeypatch.setattr(fleet.faults.connection, "cursor", unreachable)
+    response = Client(raise_request_exception=False).get("/health/")
+    assert response.status_code == 503 and response.has_header("Retry-After")
