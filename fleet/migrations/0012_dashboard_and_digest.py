@@ -6,40 +6,67 @@ from django.db import migrations, models
 
 
 class Migration(migrations.Migration):
-
     dependencies = [
         ("fleet", "0012_list_pages_indexes_and_stored_facts"),
     ]
 
     operations = [
         migrations.CreateModel(
-            name='DigestEntry',
+            name="DigestEntry",
             fields=[
-                ('id', models.BigAutoField(auto_created=True, primary_key=True, serialize=False, verbose_name='ID')),
-                ('kind', models.CharField(choices=[('top_risk', 'Entered the top risk level'), ('overdue', 'Reading overdue')], max_length=10)),
-                ('reason', models.CharField(blank=True, max_length=300)),
-                ('sent_at', models.DateTimeField(default=django.utils.timezone.now)),
-                ('installation', models.ForeignKey(on_delete=django.db.models.deletion.CASCADE, related_name='+', to='fleet.fittedcapacitor')),
+                ("id", models.BigAutoField(auto_created=True, primary_key=True, serialize=False, verbose_name="ID")),
+                (
+                    "kind",
+                    models.CharField(
+                        choices=[("top_risk", "Entered the top risk level"), ("overdue", "Reading overdue")],
+                        max_length=10,
+                    ),
+                ),
+                ("reason", models.CharField(blank=True, max_length=300)),
+                ("sent_at", models.DateTimeField(default=django.utils.timezone.now)),
+                (
+                    "installation",
+                    models.ForeignKey(
+                        on_delete=django.db.models.deletion.CASCADE, related_name="+", to="fleet.fittedcapacitor"
+                    ),
+                ),
             ],
             options={
-                'verbose_name_plural': 'digest entries',
-                'ordering': ['-sent_at'],
-                'constraints': [models.UniqueConstraint(fields=('kind', 'installation'), name='one_digest_entry_per_condition')],
+                "verbose_name_plural": "digest entries",
+                "ordering": ["-sent_at"],
+                "constraints": [
+                    models.UniqueConstraint(fields=("kind", "installation"), name="one_digest_entry_per_condition")
+                ],
             },
         ),
         migrations.CreateModel(
-            name='PartLifeFit',
+            name="PartLifeFit",
             fields=[
-                ('id', models.BigAutoField(auto_created=True, primary_key=True, serialize=False, verbose_name='ID')),
-                ('beta', models.FloatField(help_text='Weibull shape')),
-                ('eta_years', models.FloatField(help_text='Weibull scale, years')),
-                ('failures', models.PositiveIntegerField()),
-                ('suspensions', models.PositiveIntegerField()),
-                ('fitted_at', models.DateTimeField(auto_now=True)),
-                ('part', models.OneToOneField(on_delete=django.db.models.deletion.CASCADE, related_name='life_fit', to='fleet.capacitorpart')),
+                ("id", models.BigAutoField(auto_created=True, primary_key=True, serialize=False, verbose_name="ID")),
+                ("beta", models.FloatField(help_text="Weibull shape")),
+                ("eta_years", models.FloatField(help_text="Weibull scale, years")),
+                ("failures", models.PositiveIntegerField()),
+                ("suspensions", models.PositiveIntegerField()),
+                ("fitted_at", models.DateTimeField(auto_now=True)),
+                (
+                    "part",
+                    models.OneToOneField(
+                        on_delete=django.db.models.deletion.CASCADE, related_name="life_fit", to="fleet.capacitorpart"
+                    ),
+                ),
             ],
             options={
-                'constraints': [models.CheckConstraint(condition=models.Q(('beta__gt', 0), ('beta__lt', 1000000000.0), ('eta_years__gt', 0), ('eta_years__lt', 1000000000.0)), name='life_fit_finite_positive')],
+                "constraints": [
+                    models.CheckConstraint(
+                        condition=models.Q(
+                            ("beta__gt", 0),
+                            ("beta__lt", 1000000000.0),
+                            ("eta_years__gt", 0),
+                            ("eta_years__lt", 1000000000.0),
+                        ),
+                        name="life_fit_finite_positive",
+                    )
+                ],
             },
         ),
     ]
