@@ -518,6 +518,9 @@ class PartPrior(models.Model):
     noise_var = models.FloatField()
     capacitors = models.PositiveIntegerField()
     tempco_ppm_per_k = models.FloatField(default=0.0, help_text="Temperature coefficient used for the part, ppm/K")
+    curvature_per_h2 = models.FloatField(
+        default=0.0, help_text="Common bend c of the part's paths z = b0 + b1 tau + c tau^2, per stress hour squared"
+    )
     updated_at = models.DateTimeField(auto_now=True)
 
     def __str__(self):

@@ -40,11 +40,11 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     )
     with np.errstate(divide="ignore", invalid="ignore"):
         z = np.where(fit.model[g] == MODEL_LOG, np.log(fraction), fraction)
-    predicted = fit.intercept[g] + fit.slope_per_hour[g] * tau
+    predicted = fit.mean_at(tau, g)
     v00, v01, v11 = fit.covariance[g, 0, 0], fit.covariance[g, 0, 1], fit.covariance[g, 1, 1]
     variance = v00 + 2.0 * tau * v01 + tau * tau * v11 + fit.noise_sd[g] ** 2
     span = tau - fit.stress_hours_now[g]
-    return fit.slope_per_hour[g] * span, span, z - predicted, variance, fraction
+    return fit.slope_now()[g] * span, span, z - predicted, variance, fraction
 
 
 def first_crossing_day(group, day, below, n_groups):

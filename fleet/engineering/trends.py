@@ -17,6 +17,13 @@ Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
    with one or two readings thus gets its part's slope, and says so. Readings
    are discounted with age (weight halving every `recency_half_life_h`): ageing
    paths accelerate late in life, so the recent slope is the one to project.
+   The part's paths also share a curvature c: z = b0 + b1 tau + c tau^2, c the
+   part's pooled mean of its capacitors' own quadratic bends (DerSimonian-Laird,
+   shrunk towards none by its standard error); each capacitor then fits
+   z - c tau^2 with the 2-parameter prior above. A curvature shrunk to the
+   part's, in the spirit of empirical Bayes (Morris, JASA 78, 1983; from
+   memory): a young capacitor's slope is its part's slope at its age, not the
+   steep slope of the worn ones, and every path bends ahead as its part's do.
 4. A stray reading (a unit slip, the wrong capacitor) is flagged when it sits more
    than `outlier_sigma` noise deviations off its capacitor's fit, and the fit is
    redone without it; one reading per capacitor per pass, two passes.
@@ -64,6 +71,7 @@ class TrendSettings:
     outlier_floor_fraction: float = 0.03  # never flag a miss smaller than 3 % of rated
     noise_floor_fraction: float = 0.004  # meter resolution floor for the noise sd
     slope_prior_sd_floor: float = 2e-8  # per stress hour (0.002 % of rated per 1000 h)
+    min_capacitors_for_curvature: int = 5  # rich capacitors of a part before its curvature is estimated
     min_readings_for_confidence: int = 3
     model: str = "auto"  # "linear", "log-linear" or "auto" (per part, smaller noise)
 
@@ -90,6 +98,7 @@ class PartPriors:
     noise_var: np.ndarray
     capacitors: np.ndarray  # capacitors with enough readings behind the estimate
     tempco_ppm_per_k: np.ndarray  # temperature coefficient used for the part
+    curvature: np.ndarray | None = None  # z per stress hour squared (None: straight paths)
 
 
 @dataclass(frozen=True)
@@ -115,6 +124,19 @@ class TrendFit:
     stress_hours: np.ndarray  # per reading
     fraction_25c: np.ndarray  # per reading, C(25 C)/C_rated
     priors: PartPriors
+    curvature: np.ndarray | None = None  # per capacitor, z per stress hour squared (its part's)
+
+    def bend(self) -> np.ndarray:
+        """Per capacitor, the path's curvature c (zeros for straight paths)."""
+        return np.zeros(len(self.intercept)) if self.curvature is None else np.asarray(self.curvature, float)
+
+    def mean_at(self, tau, rows=slice(None)):
+        """The fitted path b0 + b1 tau + c tau^2 at stress hours `tau` (capacitors `rows`)."""
+        return self.intercept[rows] + self.slope_per_hour[rows] * tau + self.bend()[rows] * tau * tau
+
+    def slope_now(self) -> np.ndarray:
+        """dz / d(stress hour) at the newest reading: b1 + 2 c tau_now."""
+        return self.slope_per_hour + 2.0 * self.bend() * self.stress_hours_now
 
     def to_z(self, fraction):
         fraction = np.asarray(fraction, float)
@@ -321,7 +343,8 @@ def fit_trends(
     last = np.r_[np.flatnonzero(g[1:] != g[:-1]), len(g) - 1] if len(g) else np.array([], int)
     tau_now = np.zeros(n_groups)
     tau_now[g[last]] = tau[last]
-    z_now = intercept + slope * tau_now
+    curvature = pick("curvature_part", "part")[part] if n_groups else np.zeros(0)
+    z_now = intercept + slope * tau_now + curvature * tau_now**2
     fraction_now = np.where(use_log, np.exp(z_now), z_now)
     readings_used = np.bincount(g, weights=used.astype(float), minlength=n_groups).astype(int)
     return TrendFit(
@@ -350,7 +373,9 @@ def fit_trends(
                 for name in ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "capacitors")
             },
             tempco_ppm_per_k=part_tempco,
+            curvature=pick("curvature_part", "part"),
         ),
+        curvature=curvature,
     )
 
 
@@ -367,17 +392,16 @@ def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, sett
         w = np.where(used, recency, 0.0)
         count = np.bincount(g, weights=used.astype(float), minlength=n_groups)
         z_safe = np.where(used, z, 0.0)
+        if priors is not None:
+            curvature = _stored_curvature(priors, n_parts)
+        else:
+            curvature = _part_curvature(g, part, tau, z_safe, w, used, count, n_groups, n_parts, settings)
+        # Each capacitor fits its path less its part's bend: z - c tau^2 = b0 + b1 tau.
+        z_safe = np.where(used, z_safe - curvature[part][g] * tau * tau, 0.0)
         n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
         b0_ols, b1_ols, sxx_c = _ols(n, sx, sz, sxx, sxz)
         rich = (count >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
-        # Noise per part from within-capacitor WLS residuals of the rich capacitors.
-        resid = np.where(used & rich[g], z_safe - (b0_ols[g] + b1_ols[g] * tau), 0.0)
-        ss = np.bincount(part[g], weights=w * resid**2, minlength=n_parts)
-        dof = np.bincount(part, weights=np.where(rich, count - 2, 0.0), minlength=n_parts)
-        fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
-        with np.errstate(invalid="ignore", divide="ignore"):
-            raw_noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
-        noise_var = np.maximum(raw_noise_var, settings.noise_floor_fraction**2)
+        noise_var, raw_noise_var = _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings)
         if priors is not None:
             noise_var = np.asarray(priors.noise_var, float)
         # Population of paths per part (method of moments, clipped).
@@ -446,10 +470,77 @@ def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, sett
         "slope_mean": prior_mean1,
         "slope_var": prior_var1,
         "noise_var": noise_var,
+        "curvature_part": curvature,
         "capacitors": np.bincount(part, weights=rich.astype(float), minlength=n_parts).astype(int)
         if priors is None
         else np.asarray(priors.capacitors),
     }
+
+
+def _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings):
+    """Reading noise variance per part from the within-capacitor WLS residuals of
+    the rich capacitors (floored at the meter's resolution), and before the floor."""
+    n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
+    b0_ols, b1_ols, _ = _ols(n, sx, sz, sxx, sxz)
+    with np.errstate(invalid="ignore"):
+        resid = np.where(used & rich[g], z_safe - (b0_ols[g] + b1_ols[g] * tau), 0.0)
+    ss = np.bincount(part[g], weights=w * resid**2, minlength=n_parts)
+    dof = np.bincount(part, weights=np.where(rich, count - 2, 0.0), minlength=n_parts)
+    fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
+    with np.errstate(invalid="ignore", divide="ignore"):
+        raw_noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
+    return np.maximum(raw_noise_var, settings.noise_floor_fraction**2), raw_noise_var
+
+
+def _part_curvature(g, part, tau, z_safe, w, used, count, n_groups, n_parts, settings):
+    """Each part's common curvature c of z against stress hours (never bending up).
+
+    Every capacitor with at least four readings gets its own weighted
+    least-squares quadratic (stress hours centred on its own mean, so the 3x3
+    normal equations stay well conditioned); its curvature and that estimate's
+    sampling variance (noise variance times the inverse's corner) are pooled per
+    part by DerSimonian-Laird, as the slopes are. The pooled mean is then shrunk
+    towards a straight path by its own standard error (positive-part James-Stein
+    factor 1 - (2 se / c)^2, James and Stein 1961): a clear bend is kept nearly
+    whole, one within two standard errors of none is dropped. Within-capacitor
+    bends are used, not how slopes differ between young and old capacitors: the
+    old capacitors still in service are the slow survivors of their cohort.
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weight_sum = np.bincount(g, weights=w, minlength=n_groups)
+        centre = np.bincount(g, weights=w * tau, minlength=n_groups) / np.where(weight_sum > 0, weight_sum, 1.0)
+    u = np.where(used, tau - centre[g], 0.0)
+    scale = np.maximum(np.sqrt(np.bincount(g, weights=w * u * u, minlength=n_groups) / np.maximum(weight_sum, 1e-300)), 1.0)
+    v = u / scale[g]  # unitless, order one
+    moments = [np.bincount(g, weights=w * v**k, minlength=n_groups) for k in range(5)]
+    rhs = np.stack([np.bincount(g, weights=w * v**k * z_safe, minlength=n_groups) for k in range(3)], axis=1)
+    normal = np.stack([np.stack([moments[i + j] for j in range(3)], axis=1) for i in range(3)], axis=1)
+    quadratic = (count >= 4) & (moments[4] > 0)
+    normal = np.where(quadratic[:, None, None], normal, np.eye(3))
+    det = np.linalg.det(normal)
+    quadratic &= np.abs(det) > 1e-6 * np.maximum(moments[0], 1.0) ** 3
+    normal = np.where(quadratic[:, None, None], normal, np.eye(3))
+    inverse = np.linalg.inv(normal)
+    coefficient = np.einsum("gij,gj->gi", inverse, np.where(quadratic[:, None], rhs, 0.0))
+    rich = (count >= 3) & quadratic
+    noise_var, _ = _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings)
+    own = coefficient[:, 2] / scale**2
+    sampling = noise_var[part] * inverse[:, 2, 2] / scale**4
+    mean, between = _part_moments(part, n_parts, own, sampling, quadratic, floor=0.0, default_mean=0.0, default_var=0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weight = np.where(quadratic, 1.0 / (sampling + between[part]), 0.0)
+        mean_var = 1.0 / np.bincount(part, weights=weight, minlength=n_parts)
+        bend = mean * np.maximum(1.0 - 4.0 * mean_var / (mean * mean), 0.0)
+    capacitors = np.bincount(part, weights=quadratic.astype(float), minlength=n_parts)
+    usable = (capacitors >= settings.min_capacitors_for_curvature) & np.isfinite(bend)
+    return np.minimum(np.where(usable, bend, 0.0), 0.0)
+
+
+def _stored_curvature(priors: PartPriors, n_parts: int) -> np.ndarray:
+    """The parts' stored curvatures (zeros where none was stored)."""
+    if priors.curvature is None:
+        return np.zeros(n_parts)
+    return np.nan_to_num(np.asarray(priors.curvature, float), nan=0.0)
 
 
 def _estimate_tempco(g, part, tau, raw_fraction, temperature, keep, n_groups, n_parts, default_ppm, fixed, settings):
@@ -537,10 +628,15 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
     The p-quantile solves (L - m0 - m1 t) = z_p s(t); squaring gives a quadratic
     whose admissible root is the smallest one at which that probability is
     rising. No such root (a slope not surely falling): inf. A root before tau = 0
-    (limit already behind): 0. Shape (len(probabilities), G).
+    (limit already behind): 0. Shape (len(probabilities), G). A bent path (curvature
+    c) is taken along its tangent at the newest reading, b0 - c tau_now^2 +
+    (b1 + 2 c tau_now) t: exact there, and the calibrated grid handles the bend ahead.
     """
-    d = fit.to_z(limit_fraction) - fit.intercept
-    m1 = fit.slope_per_hour
+    bend = getattr(fit, "curvature", None)
+    bend = 0.0 if bend is None else np.asarray(bend, float)
+    t_now = getattr(fit, "stress_hours_now", 0.0)
+    d = fit.to_z(limit_fraction) - (fit.intercept - bend * t_now * t_now)
+    m1 = fit.slope_per_hour + 2.0 * bend * t_now
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
     rows = []
     for p in probabilities:
@@ -564,17 +660,18 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
     return np.maximum(np.stack(rows), 0.0)
 
 
-def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hours, level=0.9):
+def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hours, level=0.9, curvature=0.0):
     """Fitted path and its prediction band (for a new reading) at given stress hours.
 
     Returns (mid, low, high) in fractions of rated capacitance. `covariance` is
     (v00, v01, v11) of (b0, b1); the band adds the reading noise to the path's
     own uncertainty, so about `level` of future readings should fall inside.
+    `curvature` is the part's bend c of the path b0 + b1 tau + c tau^2.
     """
     tau = np.asarray(stress_hours, float)
     v00, v01, v11 = covariance
     z = float(ndtri(0.5 + level / 2.0))
-    mid = intercept + slope_per_hour * tau
+    mid = intercept + slope_per_hour * tau + curvature * tau * tau
     sd = np.sqrt(np.maximum(v00 + 2.0 * tau * v01 + tau * tau * v11, 0.0) + noise_sd**2)
     low, high = mid - z * sd, mid + z * sd
     if model == MODEL_LOG:

@@ -125,6 +125,7 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
     priors = fit.priors
     names = ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "tempco_ppm_per_k")
     values = np.stack([np.asarray(getattr(priors, name), float) for name in names])
+    curvature = np.nan_to_num(np.asarray(priors.curvature if priors.curvature is not None else 0.0, float))
     finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
     return [
         PartPrior(
@@ -132,6 +133,7 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
             trend_model=str(priors.model[i]),
             capacitors=int(priors.capacitors[i]),
             **{name: float(values[k, i]) for k, name in enumerate(names)},
+            curvature_per_h2=float(np.broadcast_to(curvature, len(parts))[i]),
         )
         for i, part_id in enumerate(parts)
         if finite[i]
@@ -166,6 +168,7 @@ def _stored_priors(part_ids) -> PartPriors:
     frame = frame.reindex(list(part_ids))
     defaults = {"trend_model": "linear", "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
     defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
+    defaults["curvature_per_h2"] = 0.0
     frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
         model=frame["trend_model"].to_numpy(),
@@ -176,6 +179,7 @@ def _stored_priors(part_ids) -> PartPriors:
         noise_var=frame["noise_var"].to_numpy(float),
         capacitors=frame["capacitors"].to_numpy(int),
         tempco_ppm_per_k=frame["tempco_ppm_per_k"].to_numpy(float),
+        curvature=frame["curvature_per_h2"].to_numpy(float),
     )
 
 
@@ -568,6 +572,7 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
         .apply(lambda frame: frame.to_numpy().tolist())
     )
     slope_scale = np.where(fit.model == MODEL_LOG, fit.fraction_now, 1.0) * 1e5  # % of rated per 1000 h
+    slope_now = fit.slope_now()
     governing = judgement.governing
     max_dissipation = inst["max_dissipation_factor"].to_numpy(float)
     rows = []
@@ -604,6 +609,7 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
                 "model": str(fit.model[i]),
                 "intercept": float(fit.intercept[i]),
                 "slope_per_hour": float(fit.slope_per_hour[i]),
+                "curvature": float(fit.bend()[i]),
                 "covariance": [
                     float(fit.covariance[i, 0, 0]),
                     float(fit.covariance[i, 0, 1]),
@@ -629,7 +635,7 @@ def _assessment_rows(result: Assessed, readings: pd.DataFrame, max_reading_id: p
                 readings_flagged=int(fit.readings_flagged[i]),
                 flagged_reading_ids=[int(x) for x in flagged_by_group.get(installation_id, [])],
                 trend_model=str(fit.model[i]),
-                slope_pct_per_1000h=0.0 if aside else float(fit.slope_per_hour[i] * slope_scale[i]),
+                slope_pct_per_1000h=0.0 if aside else float(slope_now[i] * slope_scale[i]),
                 slope_sd_pct_per_1000h=0.0 if aside else float(fit.slope_sd[i] * slope_scale[i]),
                 low_confidence=bool(fit.low_confidence[i]) or aside,
                 capacitance_now_uf=float(

@@ -84,6 +84,7 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
         trend["covariance"],
         trend["noise_sd"],
         np.array(taus),
+        curvature=trend.get("curvature", 0.0),
     )
     path = {
         "dates": dates,
