@@ -729,6 +729,9 @@ class BandCalibration(models.Model):
     curvature_per_h2 = models.FloatField(
         default=0.0, help_text="Common bend of the path, fraction of rated per calendar hour squared"
     )
+    alert_quantile = models.FloatField(
+        default=0.1, help_text="Crossing quantile the risk rule flags on, chosen by the back-test (0.1 = P10)"
+    )
     capacitors = models.PositiveIntegerField(default=0)
     residuals = models.PositiveIntegerField(default=0)
     backtest = models.ForeignKey(Backtest, null=True, on_delete=models.SET_NULL, related_name="+")

@@ -35,6 +35,7 @@ from fleet.engineering.motor import (
     synchronous_speed_rad_s,
 )
 from fleet.engineering.planning import (
+    ALERT_LEVELS,
     EVIDENCE_DEFECT,
     EVIDENCE_DF,
     EVIDENCE_NONE,
@@ -198,6 +199,11 @@ def stored_forms() -> dict[str, str]:
     return dict(BandCalibration.objects.exclude(trend_model="").values_list("family", "trend_model"))
 
 
+def stored_alert_levels() -> dict[str, float]:
+    """Per dielectric: the crossing quantile the latest back-test chose for the risk rule."""
+    return dict(BandCalibration.objects.values_list("family", "alert_quantile"))
+
+
 def stored_calibration() -> dict[str, tuple[float, ...]]:
     """Per dielectric: the six projection terms of the latest back-test's calibration."""
     rows = BandCalibration.objects.values_list("family", *CALIBRATION_FIELDS)
@@ -288,6 +294,7 @@ class Assessed:
     limit_used: np.ndarray  # (L, G) False where set aside (note says why)
     limit_notes: np.ndarray  # (L, G) text
     limit_days: np.ndarray  # (3, L, G) days from `now` to P10/P50/P90
+    level_days: np.ndarray  # (K, L, G) days from `now` to the crossing at each of ALERT_LEVELS
     latest: pd.DataFrame  # newest usable reading per capacitor
     latest_fraction_25c: np.ndarray
     verdict_code: np.ndarray
@@ -370,11 +377,13 @@ def assess(
     calibration: dict[str, tuple[float, ...]],
     forms: dict[str, str],
     now: dt.datetime,
+    alert_levels: dict[str, float] | None = None,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
 
     The refit stores the result; the back-test calls it with the readings known
     at a past cut-off (and `now` = the cut-off) and scores it against later ones.
+    `alert_levels` maps a dielectric to the crossing quantile its risk rule flags on.
     """
     part_ids = np.sort(inst["part_id"].unique())
     fit = fit_frames(inst, readings, priors, part_ids, forms)
@@ -440,14 +449,22 @@ def assess(
     newest_at = newest_at.reindex(inst.index)
     elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
     effective = np.where(limit_used, limit_fraction, np.nan)
+    levels = (0.1, 0.5, 0.9, *ALERT_LEVELS)
     quantiles = np.stack(
-        [calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours) for k in range(len(ALL_LIMITS))],
+        [
+            calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours, levels)
+            for k in range(len(ALL_LIMITS))
+        ],
         axis=1,
     )
     with np.errstate(invalid="ignore", over="ignore"):
-        limit_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
-    limit_days = np.where(finite & np.isfinite(effective), limit_days, np.inf)
-    limit_days = np.where(np.isnan(limit_days), np.inf, limit_days)
+        all_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
+    all_days = np.where(finite & np.isfinite(effective), all_days, np.inf)
+    all_days = np.where(np.isnan(all_days), np.inf, all_days)
+    limit_days, level_days = all_days[:3], all_days[3:]
+    chosen = inst["dielectric"].map(alert_levels or {}).fillna(PlanningSettings().alert_level).to_numpy(float)
+    alert_index = np.clip(np.searchsorted(ALERT_LEVELS, chosen - 1e-9), 0, len(ALERT_LEVELS) - 1)
+    alert_days = level_days[alert_index, :, np.arange(n)].T
 
     usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
     latest = usable.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(1)
@@ -479,6 +496,7 @@ def assess(
         today=now.date(),
         wear_days=wear_days,
         wear_words=wear_words,
+        alert_days=alert_days,
         settings=PlanningSettings(),
     )
     return Assessed(
@@ -489,6 +507,7 @@ def assess(
         limit_used=limit_used,
         limit_notes=notes,
         limit_days=limit_days,
+        level_days=level_days,
         latest=latest,
         latest_fraction_25c=latest_fraction,
         verdict_code=verdict.code,
@@ -537,6 +556,7 @@ def refit_installations(installation_ids, *, now: dt.datetime | None = None, for
         calibration=stored_calibration(),
         forms=stored_forms(),
         now=now,
+        alert_levels=stored_alert_levels(),
     )
     rows = _assessment_rows(result, readings, max_reading_id, now.date())
     with transaction.atomic():
