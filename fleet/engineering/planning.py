@@ -190,6 +190,12 @@ def judge(
     return Judgement(risk=risk, due_days=due_days, governing=governing, days=days, reason=reason)
 
 
+def alert_index(level) -> np.ndarray:
+    """Index into ALERT_LEVELS of each capacitor's alert level (nan: the default level)."""
+    level = np.nan_to_num(np.asarray(level, float), nan=PlanningSettings().alert_level)
+    return np.clip(np.searchsorted(ALERT_LEVELS, level - 1e-9), 0, len(ALERT_LEVELS) - 1)
+
+
 def risk_levels(replace_now, alert_days, settings: PlanningSettings | None = None) -> np.ndarray:
     """The risk rule: evidence now is "replace now"; else the crossing at the alert
     quantile within a quarter is "due soon", within a year "watch", else "sound"."""

@@ -510,7 +510,9 @@ def _part_curvature(g, part, tau, z_safe, w, used, count, n_groups, n_parts, set
         weight_sum = np.bincount(g, weights=w, minlength=n_groups)
         centre = np.bincount(g, weights=w * tau, minlength=n_groups) / np.where(weight_sum > 0, weight_sum, 1.0)
     u = np.where(used, tau - centre[g], 0.0)
-    scale = np.maximum(np.sqrt(np.bincount(g, weights=w * u * u, minlength=n_groups) / np.maximum(weight_sum, 1e-300)), 1.0)
+    scale = np.maximum(
+        np.sqrt(np.bincount(g, weights=w * u * u, minlength=n_groups) / np.maximum(weight_sum, 1e-300)), 1.0
+    )
     v = u / scale[g]  # unitless, order one
     moments = [np.bincount(g, weights=w * v**k, minlength=n_groups) for k in range(5)]
     rhs = np.stack([np.bincount(g, weights=w * v**k * z_safe, minlength=n_groups) for k in range(3)], axis=1)

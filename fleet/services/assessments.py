@@ -43,6 +43,7 @@ from fleet.engineering.planning import (
     TOLERANCE_LIMIT,
     Judgement,
     PlanningSettings,
+    alert_index,
     judge,
 )
 from fleet.engineering.trends import (
@@ -462,9 +463,8 @@ def assess(
     all_days = np.where(finite & np.isfinite(effective), all_days, np.inf)
     all_days = np.where(np.isnan(all_days), np.inf, all_days)
     limit_days, level_days = all_days[:3], all_days[3:]
-    chosen = inst["dielectric"].map(alert_levels or {}).fillna(PlanningSettings().alert_level).to_numpy(float)
-    alert_index = np.clip(np.searchsorted(ALERT_LEVELS, chosen - 1e-9), 0, len(ALERT_LEVELS) - 1)
-    alert_days = level_days[alert_index, :, np.arange(n)].T
+    chosen = alert_index(inst["dielectric"].map(alert_levels or {}).to_numpy(float))
+    alert_days = level_days[chosen, :, np.arange(n)].T
 
     usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
     latest = usable.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(1)

@@ -25,8 +25,8 @@ from django.db import transaction
 from django.utils import timezone
 
 from fleet.engineering.backtest import choose_alert_level, first_crossing_day, projection_errors, score
-from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, risk_levels
 from fleet.engineering.calibration import estimate_calibration
+from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, alert_index, risk_levels
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
@@ -167,8 +167,7 @@ def _alert_levels(frame: pd.DataFrame) -> dict[str, tuple[float, list]]:
 
 def _with_alert_risk(frame: pd.DataFrame, levels: dict[str, float]) -> pd.DataFrame:
     """The forecasts with the risk the rule gives at each dielectric's alert level."""
-    chosen = frame["dielectric"].map(levels).fillna(PlanningSettings().alert_level).to_numpy(float)
-    index = np.clip(np.searchsorted(ALERT_LEVELS, chosen - 1e-9), 0, len(ALERT_LEVELS) - 1)
+    index = alert_index(frame["dielectric"].map(levels).to_numpy(float))
     days = frame[ALERT_COLUMNS].to_numpy(float)[np.arange(len(frame)), index]
     return frame.assign(risk=risk_levels(frame["replace_now"].to_numpy(bool), days))
 

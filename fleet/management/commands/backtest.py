@@ -59,5 +59,6 @@ class Command(BaseCommand):
                 f"P{100 * row['level']:.0f} {_pct(row['precision_365d'])}/{_pct(row['recall_365d'])}" for row in table
             )
             self.stdout.write(
-                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f} (365-day precision/recall % by level: {tried})"
+                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f} "
+                f"(365-day precision/recall % by level: {tried})"
             )
