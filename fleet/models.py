@@ -521,6 +521,15 @@ class PartPrior(models.Model):
     curvature_per_h2 = models.FloatField(
         default=0.0, help_text="Common bend c of the part's paths z = b0 + b1 tau + c tau^2, per stress hour squared"
     )
+    curvature_var = models.FloatField(default=0.0, help_text="Variance of the bend between the part's capacitors")
+    slope_per_age = models.FloatField(
+        default=0.0, help_text="Change of the prior slope b1 per stress hour of the readings' mean age"
+    )
+    voltage_ratio = models.FloatField(
+        null=True,
+        blank=True,
+        help_text="Median measured capacitor voltage / rated, for capacitors never read in circuit",
+    )
     updated_at = models.DateTimeField(auto_now=True)
 
     def __str__(self):

@@ -127,7 +127,14 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
     priors = fit.priors
     names = ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "tempco_ppm_per_k")
     values = np.stack([np.asarray(getattr(priors, name), float) for name in names])
-    curvature = np.nan_to_num(np.asarray(priors.curvature if priors.curvature is not None else 0.0, float))
+    extra = {
+        field: np.broadcast_to(np.nan_to_num(np.asarray(0.0 if v is None else v, float)), (len(parts),))
+        for field, v in (
+            ("curvature_per_h2", priors.curvature),
+            ("curvature_var", priors.curvature_var),
+            ("slope_per_age", priors.slope_per_age),
+        )
+    }
     finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
     return [
         PartPrior(
@@ -135,7 +142,10 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
             trend_model=str(priors.model[i]),
             capacitors=int(priors.capacitors[i]),
             **{name: float(values[k, i]) for k, name in enumerate(names)},
-            curvature_per_h2=float(np.broadcast_to(curvature, len(parts))[i]),
+            **{field: float(values[i]) for field, values in extra.items()},
+            voltage_ratio=_finite_or_none(np.broadcast_to(np.asarray(priors.voltage_ratio, float), (len(parts),))[i])
+            if priors.voltage_ratio is not None
+            else None,
         )
         for i, part_id in enumerate(parts)
         if finite[i]
@@ -170,7 +180,7 @@ def _stored_priors(part_ids) -> PartPriors:
     frame = frame.reindex(list(part_ids))
     defaults = {"trend_model": "linear", "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
     defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
-    defaults["curvature_per_h2"] = 0.0
+    defaults.update({"curvature_per_h2": 0.0, "curvature_var": 0.0, "slope_per_age": 0.0})
     frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
         model=frame["trend_model"].to_numpy(),
@@ -182,6 +192,9 @@ def _stored_priors(part_ids) -> PartPriors:
         capacitors=frame["capacitors"].to_numpy(int),
         tempco_ppm_per_k=frame["tempco_ppm_per_k"].to_numpy(float),
         curvature=frame["curvature_per_h2"].to_numpy(float),
+        curvature_var=frame["curvature_var"].to_numpy(float),
+        slope_per_age=frame["slope_per_age"].to_numpy(float),
+        voltage_ratio=frame["voltage_ratio"].to_numpy(float) if "voltage_ratio" in frame else None,
     )
 
 

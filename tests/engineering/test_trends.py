@@ -203,3 +203,27 @@ def test_a_bend_common_to_a_parts_paths_is_recovered_and_straight_paths_keep_non
     rich = sim["count"] >= 10
     assert np.median(np.abs(result.fraction_now[rich] - true_now[rich])) < 0.003
     assert np.all(fit(simulate(), model=MODEL_LINEAR).priors.curvature == 0.0)
+
+
+def test_a_capacitor_never_read_in_circuit_runs_at_its_parts_typical_voltage():
+    """[derived] Two capacitors of one part age alike; one is read in circuit at 300 V
+    on a 400 V part, the other only with a meter after isolation (no voltage). The
+    second is stressed as its part's capacitors are (the median 300 V), not at the
+    rated 400 V, so both get the same stress rate: with a voltage exponent of 10 the
+    rated voltage would have made the meter-read one age 18 times faster."""
+    time_h = np.tile(np.arange(1, 9) * 2190.0, 6)
+    group = np.repeat(np.arange(6), 8)
+    voltage = np.where(group < 3, 300.0, np.nan)
+    result = fit_trends(
+        group,
+        np.zeros(6, int),
+        time_h,
+        10.0 * (1 - 1e-6 * time_h),
+        np.full(6, 10.0),
+        np.full(group.size, 40.0),
+        voltage,
+        np.full(6, 400.0),
+        settings=TrendSettings(model=MODEL_LINEAR),
+    )
+    assert result.stress_rate[3:] == pytest.approx(result.stress_rate[:3], rel=1e-9)
+    assert result.stress_rate[0] == pytest.approx(0.75**10, rel=1e-6)
