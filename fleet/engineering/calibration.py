@@ -22,11 +22,7 @@ temperature correction is imperfect. Those errors are measured, not assumed:
    later, common to the family and so reckoned in calendar time. Per family of
    parts (dielectric): the four mean terms by weighted least squares, the two
    spreads by the method of moments (the excess squared error regressed on
-   x^2 and h^2). A later reading more than four deviations off its projection
-   (a stray: the wrong capacitor, a poor contact) is set aside and the terms
-   re-estimated without it, a rejection rule in the sense of Huber (Robust
-   Statistics, 1981; from memory): one stray 10 % off outweighs ten thousand
-   honest errors of 0.1 % in a mean of squares.
+   x^2 and h^2).
 3. The calibrated forecast's path beyond the newest reading is the fit's plus
    those terms, its variance the fit's plus theirs; the crossing quantiles are
    then found on a grid of times ahead (`calibrated_crossing_quantiles`). This
@@ -61,7 +57,6 @@ class CalibrationSettings:
     max_spread: float = 3.0
     min_capacitors: int = 20  # with later readings, per family, before its own figures are used
     jump_fraction: float = 0.25  # a later reading this far off is a slip or a failure, not ageing
-    outlier_sigma: float = 4.0  # a later reading this many deviations off its projection is a stray
 
 
 @dataclass(frozen=True)
@@ -161,10 +156,8 @@ def estimate_calibration(
     regressors = np.stack([x, np.where(bends, x * d, 0.0), d, np.where(bends, d * d, 0.0)])
     coefficients = np.zeros((len(regressors), n_families))
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        inlier = np.ones(len(e))
         for _ in range(4):  # mean terms with the current spreads, then the spreads about those terms
-            total = v + spread2[family] * x * x + extra2[family] * d * d
-            w = inlier / total
+            w = 1.0 / (v + spread2[family] * x * x + extra2[family] * d * d)
             normal = np.stack([[sums(w * a * b) for b in regressors] for a in regressors]).transpose(2, 0, 1)
             rhs = np.stack([sums(w * a * e) for a in regressors]).T
             scale = np.sqrt(np.abs(np.einsum("fii->fi", normal))) + 1e-300
@@ -174,23 +167,17 @@ def estimate_calibration(
             coefficients[0] = np.clip(coefficients[0], *settings.bias_range)
             coefficients[1] = np.clip(coefficients[1], *settings.acceleration_range)
             coefficients[3] = np.clip(coefficients[3], *settings.curvature_range)
-            residual2 = (e - np.einsum("kn,kn->n", coefficients[:, family], regressors)) ** 2
-            excess = (residual2 - v) * inlier
-            x4, x2d2, d4 = inlier * x**4, inlier * x * x * d * d, inlier * d**4
-            norm = np.sqrt(sums(x4) / np.maximum(sums(d4), 1e-300))
+            excess = (e - np.einsum("kn,kn->n", coefficients[:, family], regressors)) ** 2 - v
+            norm = np.sqrt(sums(x**4) / np.maximum(sums(d**4), 1e-300))
             s2, k2 = _solve_2x2(
-                sums(x4),
-                sums(x2d2) * norm,
-                sums(d4) * norm**2,
+                sums(x**4),
+                sums(x * x * d * d) * norm,
+                sums(d**4) * norm**2,
                 sums(excess * x * x),
                 sums(excess * d * d) * norm,
             )
             spread2 = np.clip(s2, settings.min_spread**2, settings.max_spread**2)
             extra2 = np.maximum(k2 * norm, 0.0)
-            # A later reading more than `outlier_sigma` deviations off is a stray (the wrong
-            # capacitor, a poor contact), not the path: it would set the spreads by itself.
-            limit = settings.outlier_sigma**2 * (v + spread2[family] * x * x + extra2[family] * d * d)
-            inlier = (residual2 <= limit).astype(float)
     bias, acceleration, extra, curvature = coefficients
     enough = capacitors >= settings.min_capacitors
     return ForecastCalibration(
