@@ -119,8 +119,9 @@ def test_forecast_holds_what_it_has_won_on_an_independent_fleet(fleet, cutoff, t
 
 @pytest.mark.xfail(
     strict=True,
-    reason="issue 8 targets not all met yet: the bands are too wide to be sharp (above all for capacitors with "
-    "few readings and for film), so the 365-day precision stays near 20 % and the band holds 95 % of crossings at one cut-off",
+    reason="issue 8 targets not all met yet: the bands are too wide to be sharp (above all for film and for "
+    "capacitors with few readings), so the 365-day precision stays near 20 % and the band holds 95 % of "
+    "crossings at one cut-off",
 )
 @pytest.mark.parametrize("cutoff", CUTOFFS, ids=[str(c) for c in CUTOFFS])
 def test_forecast_meets_the_issue_targets_on_an_independent_fleet(fleet, cutoff, tmp_path):
