@@ -557,6 +557,9 @@ class Assessment(models.Model):
     trend_var_intercept = models.FloatField(null=True, blank=True)
     trend_cov_intercept_slope = models.FloatField(null=True, blank=True)
     trend_var_slope = models.FloatField(null=True, blank=True)
+    trend_curvature = models.FloatField(
+        null=True, blank=True, help_text="Bend of the fitted path per stress hour squared (0: straight)"
+    )
     trend_noise_sd = models.FloatField(null=True, blank=True)
     stress_hours_now = models.FloatField(null=True, blank=True, help_text="Stress hours at the newest reading")
     stress_rate = models.FloatField(null=True, blank=True, help_text="Stress hours per calendar hour, long run")
@@ -615,6 +618,18 @@ class PartPrior(models.Model):
     noise_var = models.FloatField()
     capacitors = models.PositiveIntegerField()
     tempco_ppm_per_k = models.FloatField(default=0.0, help_text="Temperature coefficient used for the part, ppm/K")
+    curvature_per_h2 = models.FloatField(
+        default=0.0, help_text="Common bend c of the part's paths z = b0 + b1 tau + c tau^2, per stress hour squared"
+    )
+    curvature_var = models.FloatField(default=0.0, help_text="Variance of the bend between the part's capacitors")
+    slope_per_age = models.FloatField(
+        default=0.0, help_text="Change of the prior slope b1 per stress hour of the readings' mean age"
+    )
+    voltage_ratio = models.FloatField(
+        null=True,
+        blank=True,
+        help_text="Median measured capacitor voltage / rated, for capacitors never read in circuit",
+    )
     updated_at = models.DateTimeField(auto_now=True)
 
     def __str__(self):
@@ -832,6 +847,9 @@ class BandCalibration(models.Model):
     )
     curvature_per_h2 = models.FloatField(
         default=0.0, help_text="Common bend of the path, fraction of rated per calendar hour squared"
+    )
+    alert_quantile = models.FloatField(
+        default=0.1, help_text="Crossing quantile the risk rule flags on, chosen by the back-test (0.1 = P10)"
     )
     capacitors = models.PositiveIntegerField(default=0)
     residuals = models.PositiveIntegerField(default=0)

@@ -106,20 +106,22 @@ def _forecast_scores(fleet, cutoff, tmp_path) -> dict:
 def test_forecast_holds_what_it_has_won_on_an_independent_fleet(fleet, cutoff, tmp_path):
     """The ground gained on issue 8, held. Before the back-test calibration the band held 29 %
     and 14 % of crossings (66 % and 85 % before P10), the median P50 came 2.3 and 3.0 times
-    the remaining life late, and the 365-day recall was 70 % and 43 %."""
+    the remaining life late, and the 365-day recall was 70 % and 43 %. With straight paths
+    (before the curvature) the median P50 was still 36 % and 75 % late; now within 15 %."""
     overall = _forecast_scores(fleet, cutoff, tmp_path)["all"]
     assert overall["band_scored"] >= 50, "enough capacitors cross after the cut-off to score the band"
     assert overall["inside"] >= 0.73, f"P10-P90 coverage {overall['inside']:.0%}"
     assert overall["below_p10"] <= 0.20, f"{overall['below_p10']:.0%} crossed before P10"
     assert overall["above_p90"] <= 0.15, f"{overall['above_p90']:.0%} crossed after P90"
-    assert abs(overall["p50_error_median"]) <= 1.0, f"median P50 error {overall['p50_error_median']:+.0%} of life"
+    assert abs(overall["p50_error_median"]) <= 0.3, f"median P50 error {overall['p50_error_median']:+.0%} of life"
     assert overall["recall"] >= 0.85, f"365-day recall {overall['recall']:.0%}"
 
 
 @pytest.mark.xfail(
     strict=True,
-    reason="issue 8 targets not all met yet: the bands are too wide to be sharp, so the 365-day precision "
-    "stays near 20 % and the band holds more than 87 % of crossings at one cut-off",
+    reason="issue 8 targets not all met yet: the bands are too wide to be sharp (above all for film and for "
+    "capacitors with few readings), so the 365-day precision stays near 20 % and the band holds 95 % of "
+    "crossings at one cut-off",
 )
 @pytest.mark.parametrize("cutoff", CUTOFFS, ids=[str(c) for c in CUTOFFS])
 def test_forecast_meets_the_issue_targets_on_an_independent_fleet(fleet, cutoff, tmp_path):

@@ -167,7 +167,7 @@ def test_the_migration_keeps_a_stored_path_in_its_columns(fan_installation):
     from django.db import connection
     from django.db.migrations.executor import MigrationExecutor
 
-    before, after = [("fleet", "0011_substitutes_stock_and_override")], [("fleet", "0012_assessment_trend_columns")]
+    before, after = [("fleet", "0012_vocabulary_choices")], [("fleet", "0013_assessment_trend_columns")]
     executor = MigrationExecutor(connection)
     executor.migrate(before)
     old_apps = executor.loader.project_state(before).apps

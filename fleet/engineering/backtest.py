@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from .capacitor import normalise_to_25c
-from .planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_WATCH
+from .planning import ALERT_LEVELS, RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_WATCH, PlanningSettings, risk_levels
 from .trends import MODEL_LOG, TrendFit
 
 QUANTILES = (0.1, 0.5, 0.9)
@@ -40,11 +40,11 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     )
     with np.errstate(divide="ignore", invalid="ignore"):
         z = np.where(fit.model[g] == MODEL_LOG, np.log(fraction), fraction)
-    predicted = fit.intercept[g] + fit.slope_per_hour[g] * tau
+    predicted = fit.mean_at(tau, g)
     v00, v01, v11 = fit.covariance[g, 0, 0], fit.covariance[g, 0, 1], fit.covariance[g, 1, 1]
     variance = v00 + 2.0 * tau * v01 + tau * tau * v11 + fit.noise_sd[g] ** 2
     span = tau - fit.stress_hours_now[g]
-    return fit.slope_per_hour[g] * span, span, z - predicted, variance, fraction
+    return fit.slope_now()[g] * span, span, z - predicted, variance, fraction
 
 
 def first_crossing_day(group, day, below, n_groups):
@@ -61,6 +61,31 @@ def first_crossing_day(group, day, below, n_groups):
     previous = np.zeros(n_groups)
     np.maximum.at(previous, group, np.where(day < first[group], day, 0.0))
     return np.where(np.isfinite(first), 0.5 * (previous + first), np.nan)
+
+
+def choose_alert_level(level_days, replace_now, crossed_day, followed_days, settings: PlanningSettings | None = None):
+    """The crossing quantile the risk rule should flag on, from back-tested forecasts.
+
+    level_days (K, G): days from the cut-off to each capacitor's crossing at each
+    of `ALERT_LEVELS`; replace_now (G): flagged on evidence whatever the level.
+    Each level's rule is scored as `score` does (365-day recall and precision,
+    censoring respected). The level chosen is the most precise of those that
+    catch at least `alert_min_recall` of the crossings; if none does, the one
+    that catches most (the lowest). A threshold chosen on held-out outcomes, as
+    a decision threshold is read off a precision-recall curve (Davis and
+    Goadrich, ICML 2006). Returns (level, [(level, precision, recall), ...]).
+    """
+    settings = settings or PlanningSettings()
+    level_days = np.asarray(level_days, float)
+    table = []
+    for k, level in enumerate(ALERT_LEVELS):
+        risk = risk_levels(replace_now, level_days[k], settings)
+        result = score(level_days[[0, 0, 0]], risk, crossed_day, followed_days, horizons=(365,))
+        table.append((level, result["precision_365d"], result["recall_365d"]))
+    good = [row for row in table if row[2] is not None and row[1] is not None and row[2] >= settings.alert_min_recall]
+    if not good:
+        return ALERT_LEVELS[0], table
+    return max(good, key=lambda row: (row[1], -row[0]))[0], table
 
 
 def score(days, risk, crossed_day, followed_days, horizons=(90, 365)) -> dict:

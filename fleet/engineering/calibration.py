@@ -241,6 +241,7 @@ def _take(fit: TrendFit, rows: slice) -> TrendFit:
         name: getattr(fit, name)[rows]
         for name in ("model", "intercept", "slope_per_hour", "covariance", "stress_hours_now", "stress_rate")
     }
+    per_capacitor["curvature"] = fit.bend()[rows]
     return dataclasses.replace(fit, **per_capacitor)
 
 
@@ -250,12 +251,11 @@ def _probability(fit, limit_fraction, terms, ahead):
 
     bias, spread, extra_slope, extra_sd, acceleration, curvature = terms
     limit = fit.to_z(limit_fraction)
-    m0, m1 = fit.intercept, fit.slope_per_hour
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
     t = fit.stress_hours_now + ahead
     hours = ahead / np.maximum(fit.stress_rate, 1e-9)
-    own = m1 * ahead
-    mean = m0 + m1 * t + (bias + acceleration * hours) * own + extra_slope * hours + curvature * hours**2
+    own = fit.slope_now() * ahead
+    mean = fit.mean_at(t) + (bias + acceleration * hours) * own + extra_slope * hours + curvature * hours**2
     variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * hours) ** 2
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.nan_to_num(ndtr((limit - mean) / np.sqrt(np.maximum(variance, 1e-300))), nan=0.0)

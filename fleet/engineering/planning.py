@@ -21,6 +21,8 @@ RISK_ORDER = (RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND)
 
 TOLERANCE_LIMIT = "tolerance"
 DISSIPATION_LIMIT = "dissipation factor"  # the second wear sign, on the ESR readings' trend
+# Quantiles of the crossing date the risk rule may flag on; the back-test picks one per family.
+ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
 EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
 
 
@@ -34,6 +36,8 @@ class PlanningSettings:
     notice_days: float = 7.0  # without a defect, never sooner than this: spares and a visit need time
     below_limit_days: float = 14.0  # read below its limit: replace within one visit window
     horizon_days: float = 30 * 365.0  # crossings later than this are "beyond"
+    alert_level: float = 0.1  # the crossing quantile the risk rule flags on, until a back-test chose one
+    alert_min_recall: float = 0.85  # a back-tested level must catch this share of the year's crossings
 
 
 @dataclass(frozen=True)
@@ -68,6 +72,7 @@ def judge(
     today: dt.date,
     wear_days=None,
     wear_words=None,
+    alert_days=None,
     settings: PlanningSettings | None = None,
 ) -> Judgement:
     """Judge every capacitor at once.
@@ -81,12 +86,15 @@ def judge(
     wear_days (3, G) and wear_words: a second wear sign's crossing (the
     dissipation factor's trend); when it comes before the capacitance limit it
     sets the risk, the date and the reason, and `governing` is L.
+    alert_days (L, G): days to each limit's crossing at the quantile the risk
+    rule flags on (`risk_levels`; P10 when not given).
 
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
     circuit, a reading below the governing limit, a dissipation factor over its
     maximum, or the fitted path (P50) already past the limit. An early crossing
-    (P10) within a quarter is "due soon", within a year "watch", else "sound".
+    (P10, or the back-tested alert quantile) within a quarter is "due soon",
+    within a year "watch", else "sound".
     """
     settings = settings or PlanningSettings()
     names = np.asarray(limit_names, dtype=object)
@@ -98,6 +106,9 @@ def judge(
     column = np.arange(n)
     safe = np.maximum(governing, 0)
     days = np.where(governing >= 0, all_days[:, safe, column], np.inf)
+    alert = days[0]
+    if alert_days is not None:
+        alert = np.where(governing >= 0, np.asarray(alert_days, float)[safe, column], np.inf)
     limit = np.where(governing >= 0, fractions[safe, column], np.nan)
     evidence = np.asarray(evidence, int).copy()
     below = np.asarray(latest_fraction_25c, float) < limit
@@ -109,13 +120,10 @@ def judge(
         wear_days = np.asarray(wear_days, float)
         wear_first = wear_days[0] < days[0]
         days = np.where(wear_first, wear_days, days)
+        alert = np.where(wear_first, wear_days[0], alert)
         governing = np.where(wear_first, len(names), governing)
     replace_now = evidence != EVIDENCE_NONE
-    risk = np.select(
-        [replace_now, days[0] <= settings.due_soon_days, days[0] <= settings.watch_days],
-        [RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH],
-        default=RISK_SOUND,
-    )
+    risk = risk_levels(replace_now, alert, settings)
     urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
     planned = np.maximum(days[0] - settings.lead_days, settings.notice_days)
     due_days = np.select(
@@ -181,6 +189,24 @@ def judge(
         default="trend stays above " + limit_words + " for the planning horizon",
     )
     return Judgement(risk=risk, due_days=due_days, governing=governing, days=days, reason=reason)
+
+
+def alert_index(level) -> np.ndarray:
+    """Index into ALERT_LEVELS of each capacitor's alert level (nan: the default level)."""
+    level = np.nan_to_num(np.asarray(level, float), nan=PlanningSettings().alert_level)
+    return np.clip(np.searchsorted(ALERT_LEVELS, level - 1e-9), 0, len(ALERT_LEVELS) - 1)
+
+
+def risk_levels(replace_now, alert_days, settings: PlanningSettings | None = None) -> np.ndarray:
+    """The risk rule: evidence now is "replace now"; else the crossing at the alert
+    quantile within a quarter is "due soon", within a year "watch", else "sound"."""
+    settings = settings or PlanningSettings()
+    alert_days = np.asarray(alert_days, float)
+    return np.select(
+        [np.asarray(replace_now, bool), alert_days <= settings.due_soon_days, alert_days <= settings.watch_days],
+        [RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH],
+        default=RISK_SOUND,
+    )
 
 
 def bundle_visits(site, due_day, window_days=14):

@@ -9,7 +9,8 @@ Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
    acceleration factor of the interval's case temperature and capacitor voltage.
    The future is projected at the long-run stress rate (the trailing year, or
    the whole life if shorter), not the last interval's: quarterly readings
-   follow the seasons.
+   follow the seasons. A capacitor never read in circuit is taken at its part's
+   median measured voltage ratio, not at its rating.
 3. Each capacitor's path z = b0 + b1 tau (z = C/C_rated, or its log for the
    log-linear model) is fitted as a Bayesian linear regression whose prior is its
    part's population of paths (empirical Bayes: the prior mean and spread are
@@ -17,6 +18,15 @@ Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
    with one or two readings thus gets its part's slope, and says so. Readings
    are discounted with age (weight halving every `recency_half_life_h`): ageing
    paths accelerate late in life, so the recent slope is the one to project.
+   Paths bend: z = b0 + b1 tau + c tau^2. The part's c is the pooled mean of
+   its capacitors' own quadratic bends (DerSimonian-Laird, shrunk towards none
+   by its standard error); each capacitor's c is its own bend shrunk to the
+   part's (normal-normal posterior mean), and it then fits z - c tau^2 with the
+   2-parameter prior above, whose slope mean is a line in the readings' mean
+   stress age. Parametric empirical Bayes with covariates (Morris, JASA 78,
+   1983; from memory): a young capacitor gets the slope of its part's young
+   ones, not the steep slope of the worn ones, and a path that has started to
+   bend is projected bending.
 4. A stray reading (a unit slip, the wrong capacitor) is flagged when it sits more
    than `outlier_sigma` noise deviations off its capacitor's fit, and the fit is
    redone without it; one reading per capacitor per pass, two passes.
@@ -64,6 +74,7 @@ class TrendSettings:
     outlier_floor_fraction: float = 0.03  # never flag a miss smaller than 3 % of rated
     noise_floor_fraction: float = 0.004  # meter resolution floor for the noise sd
     slope_prior_sd_floor: float = 2e-8  # per stress hour (0.002 % of rated per 1000 h)
+    min_capacitors_for_curvature: int = 5  # rich capacitors of a part before its curvature is estimated
     min_readings_for_confidence: int = 3
     model: str = "auto"  # "linear", "log-linear" or "auto" (per part, smaller noise)
 
@@ -90,6 +101,10 @@ class PartPriors:
     noise_var: np.ndarray
     capacitors: np.ndarray  # capacitors with enough readings behind the estimate
     tempco_ppm_per_k: np.ndarray  # temperature coefficient used for the part
+    curvature: np.ndarray | None = None  # z per stress hour squared (None: straight paths)
+    curvature_var: np.ndarray | None = None  # its variance between the part's capacitors
+    slope_per_age: np.ndarray | None = None  # change of the prior slope b1 per stress hour of mean age
+    voltage_ratio: np.ndarray | None = None  # median measured capacitor voltage / rated (nan: none measured)
 
 
 @dataclass(frozen=True)
@@ -115,6 +130,19 @@ class TrendFit:
     stress_hours: np.ndarray  # per reading
     fraction_25c: np.ndarray  # per reading, C(25 C)/C_rated
     priors: PartPriors
+    curvature: np.ndarray | None = None  # per capacitor, z per stress hour squared (own, shrunk to its part's)
+
+    def bend(self) -> np.ndarray:
+        """Per capacitor, the path's curvature c (zeros for straight paths)."""
+        return np.zeros(len(self.intercept)) if self.curvature is None else np.asarray(self.curvature, float)
+
+    def mean_at(self, tau, rows=slice(None)):
+        """The fitted path b0 + b1 tau + c tau^2 at stress hours `tau` (capacitors `rows`)."""
+        return self.intercept[rows] + self.slope_per_hour[rows] * tau + self.bend()[rows] * tau * tau
+
+    def slope_now(self) -> np.ndarray:
+        """dz / d(stress hour) at the newest reading: b1 + 2 c tau_now."""
+        return self.slope_per_hour + 2.0 * self.bend() * self.stress_hours_now
 
     def to_z(self, fraction):
         fraction = np.asarray(fraction, float)
@@ -178,7 +206,7 @@ def _fill_per_group(group, values, n_groups):
     reading measured them: a meter reading after isolation records no capacitor
     voltage, and must not count as stress at the rated voltage between two
     in-circuit readings at 80 % of it. A capacitor with none keeps nan (the
-    reference conditions).
+    reference conditions) unless its part's typical voltage is known (`fit_trends`).
     """
     values = np.asarray(values, float)
     known = np.isfinite(values)
@@ -186,6 +214,13 @@ def _fill_per_group(group, values, n_groups):
         return values
     median = pd.Series(values[known]).groupby(group[known]).median().reindex(range(n_groups)).to_numpy(float)
     return np.where(known, values, median[group])
+
+
+def _part_median(part_of_reading, values, n_parts):
+    """Median per part of the finite values (nan for a part with none)."""
+    known = np.isfinite(values)
+    series = pd.Series(values[known]).groupby(part_of_reading[known]).median()
+    return series.reindex(range(n_parts)).to_numpy(float)
 
 
 def _group_sums(group, x, z, weight, n_groups):
@@ -250,14 +285,21 @@ def fit_trends(
     temperature = np.asarray(temperature_c, float)[order]
     temperature = np.where(np.isfinite(temperature), temperature, np.nan)
     raw_fraction = np.asarray(capacitance_uf, float)[order] / rated_uf[g]
+    rated_v = np.asarray(rated_voltage_v, float)[g]
+    voltage = np.asarray(voltage_v, float)[order]
+    voltage_ratio = _fill_per_group(g, np.where(voltage > 0, voltage, np.nan) / rated_v, n_groups)
+    if priors is not None:
+        part_voltage_ratio = _stored(priors.voltage_ratio, n_parts, fill=np.nan)
+    else:
+        part_voltage_ratio = _part_median(part[g], voltage_ratio, n_parts)
+    # A capacitor never read in circuit runs at its part's typical voltage, not at the rated one.
+    voltage_ratio = np.where(np.isfinite(voltage_ratio), voltage_ratio, part_voltage_ratio[part][g])
     tau, rate = stress_hours(
         g,
         t,
         _fill_per_group(g, temperature, n_groups),
-        _fill_per_group(
-            g, np.where(np.asarray(voltage_v, float)[order] > 0, np.asarray(voltage_v, float)[order], np.nan), n_groups
-        ),
-        np.asarray(rated_voltage_v, float)[g],
+        voltage_ratio * rated_v,
+        rated_v,
         n_groups,
         settings,
     )
@@ -321,7 +363,8 @@ def fit_trends(
     last = np.r_[np.flatnonzero(g[1:] != g[:-1]), len(g) - 1] if len(g) else np.array([], int)
     tau_now = np.zeros(n_groups)
     tau_now[g[last]] = tau[last]
-    z_now = intercept + slope * tau_now
+    curvature = pick("bend")
+    z_now = intercept + slope * tau_now + curvature * tau_now**2
     fraction_now = np.where(use_log, np.exp(z_now), z_now)
     readings_used = np.bincount(g, weights=used.astype(float), minlength=n_groups).astype(int)
     return TrendFit(
@@ -350,7 +393,12 @@ def fit_trends(
                 for name in ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "capacitors")
             },
             tempco_ppm_per_k=part_tempco,
+            curvature=pick("curvature_part", "part"),
+            curvature_var=pick("curvature_var_part", "part"),
+            slope_per_age=pick("slope_per_age", "part"),
+            voltage_ratio=part_voltage_ratio,
         ),
+        curvature=curvature,
     )
 
 
@@ -367,17 +415,21 @@ def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, sett
         w = np.where(used, recency, 0.0)
         count = np.bincount(g, weights=used.astype(float), minlength=n_groups)
         z_safe = np.where(used, z, 0.0)
+        if priors is not None:
+            curvature, curvature_var = _stored(priors.curvature, n_parts), _stored(priors.curvature_var, n_parts)
+            noise_of = np.asarray(priors.noise_var, float)[part]
+            own, sampling, quadratic = _own_curvature(g, tau, z_safe, w, used, count, n_groups, noise_of)
+        else:
+            curvature, curvature_var, own, sampling, quadratic = _part_curvature(
+                g, part, tau, z_safe, w, used, count, n_groups, n_parts, settings
+            )
+        bend = _capacitor_bend(curvature[part], curvature_var[part], own, sampling, quadratic)
+        # Each capacitor fits its path less its bend: z - c_i tau^2 = b0 + b1 tau.
+        z_safe = np.where(used, z_safe - bend[g] * tau * tau, 0.0)
         n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
         b0_ols, b1_ols, sxx_c = _ols(n, sx, sz, sxx, sxz)
         rich = (count >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
-        # Noise per part from within-capacitor WLS residuals of the rich capacitors.
-        resid = np.where(used & rich[g], z_safe - (b0_ols[g] + b1_ols[g] * tau), 0.0)
-        ss = np.bincount(part[g], weights=w * resid**2, minlength=n_parts)
-        dof = np.bincount(part, weights=np.where(rich, count - 2, 0.0), minlength=n_parts)
-        fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
-        with np.errstate(invalid="ignore", divide="ignore"):
-            raw_noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
-        noise_var = np.maximum(raw_noise_var, settings.noise_floor_fraction**2)
+        noise_var, raw_noise_var = _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings)
         if priors is not None:
             noise_var = np.asarray(priors.noise_var, float)
         # Population of paths per part (method of moments, clipped).
@@ -393,26 +445,22 @@ def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, sett
             default_mean=0.0 if is_log else 1.0,
             default_var=0.05**2,
         )
-        prior_mean1, prior_var1 = _part_moments(
-            part,
-            n_parts,
-            b1_ols,
-            se_b1,
-            rich,
-            floor=settings.slope_prior_sd_floor**2,
-            default_mean=0.0,
-            default_var=1e-5**2,
-        )
+        with np.errstate(invalid="ignore", divide="ignore"):
+            age = np.where(n > 0, sx / np.where(n > 0, n, 1.0), 0.0)
         if priors is not None:
             prior_mean0, prior_var0 = np.asarray(priors.intercept_mean), np.asarray(priors.intercept_var)
             prior_mean1, prior_var1 = np.asarray(priors.slope_mean), np.asarray(priors.slope_var)
+            slope_per_age = _stored(priors.slope_per_age, n_parts)
+        else:
+            prior_mean1, prior_var1, slope_per_age = _slope_prior(part, n_parts, b1_ols, se_b1, rich, age, settings)
         # Posterior per capacitor: precision = prior precision + X'X / sigma^2.
         s2 = noise_var[part]
+        slope_prior_mean = prior_mean1[part] + slope_per_age[part] * age
         p00 = 1.0 / prior_var0[part] + n / s2
         p01 = sx / s2
         p11 = 1.0 / prior_var1[part] + sxx / s2
         r0 = prior_mean0[part] / prior_var0[part] + sz / s2
-        r1 = prior_mean1[part] / prior_var1[part] + sxz / s2
+        r1 = slope_prior_mean / prior_var1[part] + sxz / s2
         det = p00 * p11 - p01 * p01
         cov = np.empty((n_groups, 2, 2))
         cov[:, 0, 0], cov[:, 1, 1] = p11 / det, p00 / det
@@ -446,10 +494,153 @@ def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, sett
         "slope_mean": prior_mean1,
         "slope_var": prior_var1,
         "noise_var": noise_var,
+        "curvature_part": curvature,
+        "curvature_var_part": curvature_var,
+        "bend": bend,
+        "slope_per_age": slope_per_age,
         "capacitors": np.bincount(part, weights=rich.astype(float), minlength=n_parts).astype(int)
         if priors is None
         else np.asarray(priors.capacitors),
     }
+
+
+def _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings):
+    """Reading noise variance per part from the within-capacitor WLS residuals of
+    the rich capacitors (floored at the meter's resolution), and before the floor."""
+    n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
+    b0_ols, b1_ols, _ = _ols(n, sx, sz, sxx, sxz)
+    with np.errstate(invalid="ignore"):
+        resid = np.where(used & rich[g], z_safe - (b0_ols[g] + b1_ols[g] * tau), 0.0)
+    ss = np.bincount(part[g], weights=w * resid**2, minlength=n_parts)
+    dof = np.bincount(part, weights=np.where(rich, count - 2, 0.0), minlength=n_parts)
+    fleet_var = ss.sum() / dof.sum() if dof.sum() > 0 else settings.noise_floor_fraction**2 * 4
+    with np.errstate(invalid="ignore", divide="ignore"):
+        raw_noise_var = np.where(dof >= 10, ss / np.maximum(dof, 1), fleet_var)
+    return np.maximum(raw_noise_var, settings.noise_floor_fraction**2), raw_noise_var
+
+
+def _own_curvature(g, tau, z_safe, w, used, count, n_groups, noise_var):
+    """Each capacitor's own least-squares curvature, its sampling variance, and whether
+    it has one (four readings or more, well spread). `noise_var` per capacitor."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weight_sum = np.bincount(g, weights=w, minlength=n_groups)
+        centre = np.bincount(g, weights=w * tau, minlength=n_groups) / np.where(weight_sum > 0, weight_sum, 1.0)
+    u = np.where(used, tau - centre[g], 0.0)
+    scale = np.maximum(
+        np.sqrt(np.bincount(g, weights=w * u * u, minlength=n_groups) / np.maximum(weight_sum, 1e-300)), 1.0
+    )
+    v = u / scale[g]  # unitless, order one
+    moments = [np.bincount(g, weights=w * v**k, minlength=n_groups) for k in range(5)]
+    rhs = np.stack([np.bincount(g, weights=w * v**k * z_safe, minlength=n_groups) for k in range(3)], axis=1)
+    normal = np.stack([np.stack([moments[i + j] for j in range(3)], axis=1) for i in range(3)], axis=1)
+    quadratic = (count >= 4) & (moments[4] > 0)
+    normal = np.where(quadratic[:, None, None], normal, np.eye(3))
+    det = np.linalg.det(normal)
+    quadratic &= np.abs(det) > 1e-6 * np.maximum(moments[0], 1.0) ** 3
+    normal = np.where(quadratic[:, None, None], normal, np.eye(3))
+    inverse = np.linalg.inv(normal)
+    coefficient = np.einsum("gij,gj->gi", inverse, np.where(quadratic[:, None], rhs, 0.0))
+    return coefficient[:, 2] / scale**2, noise_var * inverse[:, 2, 2] / scale**4, quadratic
+
+
+def _capacitor_bend(part_bend, part_bend_var, own, sampling, quadratic):
+    """Each capacitor's curvature: its own, shrunk to its part's (precision-weighted, the
+    normal-normal posterior mean); the part's alone without a spread or its own estimate."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shrunk = (part_bend / part_bend_var + own / sampling) / (1.0 / part_bend_var + 1.0 / sampling)
+    usable = quadratic & (part_bend_var > 0) & np.isfinite(shrunk)
+    return np.minimum(np.where(usable, shrunk, part_bend), 0.0)
+
+
+def _part_curvature(g, part, tau, z_safe, w, used, count, n_groups, n_parts, settings):
+    """Each part's common curvature c of z against stress hours (never bending up).
+
+    Every capacitor with at least four readings gets its own weighted
+    least-squares quadratic (stress hours centred on its own mean, so the 3x3
+    normal equations stay well conditioned); its curvature and that estimate's
+    sampling variance (noise variance times the inverse's corner) are pooled per
+    part by DerSimonian-Laird, as the slopes are. The pooled mean is then shrunk
+    towards a straight path by its own standard error (positive-part James-Stein
+    factor 1 - (2 se / c)^2, James and Stein 1961): a clear bend is kept nearly
+    whole, one within two standard errors of none is dropped. Within-capacitor
+    bends are used, not how slopes differ between young and old capacitors: the
+    old capacitors still in service are the slow survivors of their cohort.
+    Returns per part the bend and its variance between capacitors, and per
+    capacitor its own estimate, that estimate's sampling variance and whether it has one.
+    """
+    n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
+    _, _, sxx_c = _ols(n, sx, sz, sxx, sxz)
+    rich = (count >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
+    noise_var, _ = _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings)
+    own, sampling, quadratic = _own_curvature(g, tau, z_safe, w, used, count, n_groups, noise_var[part])
+    mean, between = _part_moments(part, n_parts, own, sampling, quadratic, floor=0.0, default_mean=0.0, default_var=0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weight = np.where(quadratic, 1.0 / (sampling + between[part]), 0.0)
+        mean_var = 1.0 / np.bincount(part, weights=weight, minlength=n_parts)
+        bend = mean * np.maximum(1.0 - 4.0 * mean_var / (mean * mean), 0.0)
+    capacitors = np.bincount(part, weights=quadratic.astype(float), minlength=n_parts)
+    usable = (capacitors >= settings.min_capacitors_for_curvature) & np.isfinite(bend)
+    bend = np.minimum(np.where(usable, bend, 0.0), 0.0)
+    spread = np.where((bend < 0) & np.isfinite(between), between, 0.0)  # no bend established: none to spread
+    return bend, spread, own, sampling, quadratic
+
+
+def _stored(values, n_parts: int, fill: float = 0.0) -> np.ndarray:
+    """A stored per-part term (`fill` where none was stored)."""
+    if values is None:
+        return np.full(n_parts, fill)
+    values = np.asarray(values, float)
+    return np.where(np.isfinite(values), values, fill)
+
+
+def _slope_prior(part, n_parts, slope, sampling_var, rich, age, settings):
+    """The part's population of slopes b1, with the readings' mean stress age as a covariate.
+
+    b1 (the slope at tau = 0 once the part's bend is taken out) is extrapolated
+    from where a capacitor's readings sit; any form error of the bend grows
+    with that distance, so b1 drifts with age across the part's capacitors and
+    its spread is inflated for the worn ones. The prior mean is therefore a
+    line in age, a + beta m (parametric empirical Bayes with a covariate,
+    Morris, JASA 78, 1983; from memory): beta by weighted least squares
+    (weights 1 / (sampling + between-capacitor variance)), shrunk towards none by
+    its standard error (positive-part James-Stein), then a and the variance
+    about the line by DerSimonian-Laird. A young capacitor's slope is thus its
+    part's young capacitors' slope. Returns (a, variance, beta) per part.
+    """
+    _, between = _part_moments(
+        part,
+        n_parts,
+        slope,
+        sampling_var,
+        rich,
+        floor=settings.slope_prior_sd_floor**2,
+        default_mean=0.0,
+        default_var=1e-5**2,
+    )
+    weight = np.where(rich, 1.0 / (np.where(rich, sampling_var, 1.0) + between[part]), 0.0)
+    y = np.where(rich, slope, 0.0)
+
+    def s(values):
+        return np.bincount(part, weights=weight * values, minlength=n_parts)
+
+    sw, swx, swy, swxx, swxy = s(np.ones(len(part))), s(age), s(y), s(age * age), s(age * y)
+    count = np.bincount(part, weights=rich.astype(float), minlength=n_parts)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        spread = swxx - swx * swx / sw
+        beta = (swxy - swx * swy / sw) / spread
+        beta = beta * np.maximum(1.0 - 4.0 / (spread * beta * beta), 0.0)
+    beta = np.where((count >= 5) & np.isfinite(beta), beta, 0.0)
+    mean, variance = _part_moments(
+        part,
+        n_parts,
+        slope - beta[part] * age,
+        sampling_var,
+        rich,
+        floor=settings.slope_prior_sd_floor**2,
+        default_mean=0.0,
+        default_var=1e-5**2,
+    )
+    return mean, variance, beta
 
 
 def _estimate_tempco(g, part, tau, raw_fraction, temperature, keep, n_groups, n_parts, default_ppm, fixed, settings):
@@ -537,10 +728,15 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
     The p-quantile solves (L - m0 - m1 t) = z_p s(t); squaring gives a quadratic
     whose admissible root is the smallest one at which that probability is
     rising. No such root (a slope not surely falling): inf. A root before tau = 0
-    (limit already behind): 0. Shape (len(probabilities), G).
+    (limit already behind): 0. Shape (len(probabilities), G). A bent path (curvature
+    c) is taken along its tangent at the newest reading, b0 - c tau_now^2 +
+    (b1 + 2 c tau_now) t: exact there, and the calibrated grid handles the bend ahead.
     """
-    d = fit.to_z(limit_fraction) - fit.intercept
-    m1 = fit.slope_per_hour
+    bend = getattr(fit, "curvature", None)
+    bend = 0.0 if bend is None else np.asarray(bend, float)
+    t_now = getattr(fit, "stress_hours_now", 0.0)
+    d = fit.to_z(limit_fraction) - (fit.intercept - bend * t_now * t_now)
+    m1 = fit.slope_per_hour + 2.0 * bend * t_now
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
     rows = []
     for p in probabilities:
@@ -564,17 +760,18 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
     return np.maximum(np.stack(rows), 0.0)
 
 
-def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hours, level=0.9):
+def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hours, level=0.9, curvature=0.0):
     """Fitted path and its prediction band (for a new reading) at given stress hours.
 
     Returns (mid, low, high) in fractions of rated capacitance. `covariance` is
     (v00, v01, v11) of (b0, b1); the band adds the reading noise to the path's
     own uncertainty, so about `level` of future readings should fall inside.
+    `curvature` is the part's bend c of the path b0 + b1 tau + c tau^2.
     """
     tau = np.asarray(stress_hours, float)
     v00, v01, v11 = covariance
     z = float(ndtri(0.5 + level / 2.0))
-    mid = intercept + slope_per_hour * tau
+    mid = intercept + slope_per_hour * tau + curvature * tau * tau
     sd = np.sqrt(np.maximum(v00 + 2.0 * tau * v01 + tau * tau * v11, 0.0) + noise_sd**2)
     low, high = mid - z * sd, mid + z * sd
     if model == MODEL_LOG:
@@ -616,23 +813,30 @@ def dissipation_trend(group, time_h, dissipation, n_groups, maximum, now_h, prob
     return np.where(np.isnan(rows), np.inf, rows)
 
 
-def reading_stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings=None):
+def reading_stress_hours(
+    group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings=None, part_voltage_ratio=None
+):
     """Stress hours at each reading as `fit_trends` computes them (input sorted by group, time):
-    missing temperatures and voltages taken from the same capacitor's other readings, then
+    missing temperatures and voltages taken from the same capacitor's other readings (a
+    capacitor never read in circuit at its part's stored `part_voltage_ratio`, per group), then
     `stress_hours`. Lets a page redraw one capacitor's stored path against its readings
     without a number per reading being stored."""
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
     temperature = np.asarray(temperature_c, float)
+    rated_v = np.asarray(rated_voltage_v, float)[group]
     voltage = np.asarray(voltage_v, float)
     with np.errstate(invalid="ignore"):
-        voltage = np.where(voltage > 0, voltage, np.nan)
+        voltage_ratio = _fill_per_group(group, np.where(voltage > 0, voltage, np.nan) / rated_v, n_groups)
+    if part_voltage_ratio is not None:
+        fallback = np.broadcast_to(np.asarray(part_voltage_ratio, float), (n_groups,))[group]
+        voltage_ratio = np.where(np.isfinite(voltage_ratio), voltage_ratio, fallback)
     tau, _ = stress_hours(
         group,
         np.asarray(time_h, float),
         _fill_per_group(group, np.where(np.isfinite(temperature), temperature, np.nan), n_groups),
-        _fill_per_group(group, voltage, n_groups),
-        np.asarray(rated_voltage_v, float)[group],
+        voltage_ratio * rated_v,
+        rated_v,
         n_groups,
         settings,
     )

@@ -44,6 +44,7 @@ from fleet.engineering.motor import (
     synchronous_speed_rad_s,
 )
 from fleet.engineering.planning import (
+    ALERT_LEVELS,
     DISSIPATION_LIMIT,
     EVIDENCE_DEFECT,
     EVIDENCE_DF,
@@ -53,6 +54,7 @@ from fleet.engineering.planning import (
     TOLERANCE_LIMIT,
     Judgement,
     PlanningSettings,
+    alert_index,
     judge,
 )
 from fleet.engineering.rules import CONDITION_SOUND
@@ -138,6 +140,14 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
     priors = fit.priors
     names = ("intercept_mean", "intercept_var", "slope_mean", "slope_var", "noise_var", "tempco_ppm_per_k")
     values = np.stack([np.asarray(getattr(priors, name), float) for name in names])
+    extra = {
+        field: np.broadcast_to(np.nan_to_num(np.asarray(0.0 if v is None else v, float)), (len(parts),))
+        for field, v in (
+            ("curvature_per_h2", priors.curvature),
+            ("curvature_var", priors.curvature_var),
+            ("slope_per_age", priors.slope_per_age),
+        )
+    }
     finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
     return [
         PartPrior(
@@ -145,6 +155,10 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
             trend_model=str(priors.model[i]),
             capacitors=int(priors.capacitors[i]),
             **{name: float(values[k, i]) for k, name in enumerate(names)},
+            **{field: float(values[i]) for field, values in extra.items()},
+            voltage_ratio=_finite_or_none(np.broadcast_to(np.asarray(priors.voltage_ratio, float), (len(parts),))[i])
+            if priors.voltage_ratio is not None
+            else None,
         )
         for i, part_id in enumerate(parts)
         if finite[i]
@@ -186,6 +200,7 @@ def _stored_priors(part_ids) -> PartPriors:
     frame = frame.reindex(list(part_ids))
     defaults = {"trend_model": MODEL_LINEAR, "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
     defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
+    defaults.update({"curvature_per_h2": 0.0, "curvature_var": 0.0, "slope_per_age": 0.0})
     frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
         model=frame["trend_model"].to_numpy(),
@@ -196,6 +211,10 @@ def _stored_priors(part_ids) -> PartPriors:
         noise_var=frame["noise_var"].to_numpy(float),
         capacitors=frame["capacitors"].to_numpy(int),
         tempco_ppm_per_k=frame["tempco_ppm_per_k"].to_numpy(float),
+        curvature=frame["curvature_per_h2"].to_numpy(float),
+        curvature_var=frame["curvature_var"].to_numpy(float),
+        slope_per_age=frame["slope_per_age"].to_numpy(float),
+        voltage_ratio=frame["voltage_ratio"].to_numpy(float) if "voltage_ratio" in frame else None,
     )
 
 
@@ -212,6 +231,11 @@ CALIBRATION_FIELDS = (
 def stored_forms() -> dict[str, str]:
     """The trend form each dielectric's latest back-test chose."""
     return dict(BandCalibration.objects.exclude(trend_model="").values_list("family", "trend_model"))
+
+
+def stored_alert_levels() -> dict[str, float]:
+    """Per dielectric: the crossing quantile the latest back-test chose for the risk rule."""
+    return dict(BandCalibration.objects.values_list("family", "alert_quantile"))
 
 
 def stored_calibration() -> dict[str, tuple[float, ...]]:
@@ -321,6 +345,7 @@ class Assessed:
     limit_used: np.ndarray  # (L, G) False where set aside (note says why)
     limit_notes: np.ndarray  # (L, G) text
     limit_days: np.ndarray  # (3, L, G) days from `now` to P10/P50/P90
+    level_days: np.ndarray  # (K, L, G) days from `now` to the crossing at each of ALERT_LEVELS
     latest: pd.DataFrame  # newest usable reading per capacitor
     latest_fraction_25c: np.ndarray
     verdict_code: np.ndarray
@@ -412,11 +437,13 @@ def assess(
     calibration: dict[str, tuple[float, ...]],
     forms: dict[str, str],
     now: dt.datetime,
+    alert_levels: dict[str, float] | None = None,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
 
     The refit stores the result; the back-test calls it with the readings known
     at a past cut-off (and `now` = the cut-off) and scores it against later ones.
+    `alert_levels` maps a dielectric to the crossing quantile its risk rule flags on.
     """
     part_ids = np.sort(inst["part_id"].unique())
     fit = fit_frames(inst, readings, priors, part_ids, forms)
@@ -480,14 +507,21 @@ def assess(
     newest_at = newest_at.reindex(inst.index)
     elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
     effective = np.where(limit_used, limit_fraction, np.nan)
+    levels = (0.1, 0.5, 0.9, *ALERT_LEVELS)
     quantiles = np.stack(
-        [calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours) for k in range(len(ALL_LIMITS))],
+        [
+            calibrated_crossing_quantiles(fit, effective[k], terms, horizon_stress_hours, levels)
+            for k in range(len(ALL_LIMITS))
+        ],
         axis=1,
     )
     with np.errstate(invalid="ignore", over="ignore"):
-        limit_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
-    limit_days = np.where(finite & np.isfinite(effective), limit_days, np.inf)
-    limit_days = np.where(np.isnan(limit_days), np.inf, limit_days)
+        all_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
+    all_days = np.where(finite & np.isfinite(effective), all_days, np.inf)
+    all_days = np.where(np.isnan(all_days), np.inf, all_days)
+    limit_days, level_days = all_days[:3], all_days[3:]
+    chosen = alert_index(inst["dielectric"].map(alert_levels or {}).to_numpy(float))
+    alert_days = level_days[chosen, :, np.arange(n)].T
 
     usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
     latest = usable.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(1)
@@ -519,6 +553,7 @@ def assess(
         today=now.date(),
         wear_days=wear_days,
         wear_words=wear_words,
+        alert_days=alert_days,
         settings=PlanningSettings(),
     )
     return Assessed(
@@ -529,6 +564,7 @@ def assess(
         limit_used=limit_used,
         limit_notes=notes,
         limit_days=limit_days,
+        level_days=level_days,
         latest=latest,
         latest_fraction_25c=latest_fraction,
         verdict_code=verdict.code,
@@ -586,6 +622,7 @@ def refit_installations(
         calibration=stored_calibration(),
         forms=stored_forms(),
         now=now,
+        alert_levels=stored_alert_levels(),
     )
     rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():
@@ -611,6 +648,11 @@ def _carry_risk_history(rows: pd.DataFrame, now: dt.datetime) -> None:
         same, before["risk_was"].fillna("").to_numpy(object), before["risk"].fillna("").to_numpy(object)
     )
     rows["risk_changed_at"] = np.where(same, changed_at, now)
+
+
+def _finite_or_none(value):
+    value = float(value)
+    return value if np.isfinite(value) else None
 
 
 def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
@@ -712,7 +754,7 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "readings_flagged": np.asarray(fit.readings_flagged, np.int64),
             "flagged_reading_ids": _flagged_json(result, readings),
             "trend_model": fit.model.astype(str),
-            "slope_pct_per_1000h": np.where(aside, 0.0, fit.slope_per_hour * slope_scale),
+            "slope_pct_per_1000h": np.where(aside, 0.0, fit.slope_now() * slope_scale),
             "slope_sd_pct_per_1000h": np.where(aside, 0.0, fit.slope_sd * slope_scale),
             "low_confidence": np.asarray(fit.low_confidence, bool) | aside,
             "capacitance_now_uf": capacitance_now,
@@ -734,6 +776,7 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "trend_var_intercept": unless_aside(fit.covariance[:, 0, 0]),
             "trend_cov_intercept_slope": unless_aside(fit.covariance[:, 0, 1]),
             "trend_var_slope": unless_aside(fit.covariance[:, 1, 1]),
+            "trend_curvature": unless_aside(fit.bend()),
             "trend_noise_sd": unless_aside(fit.noise_sd),
             "stress_hours_now": unless_aside(fit.stress_hours_now),
             "stress_rate": unless_aside(fit.stress_rate),

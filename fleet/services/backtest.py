@@ -5,10 +5,13 @@ refitted with only the capacitors and readings known then, through the same
 `assess` the refit uses, and each forecast is scored against the readings and
 removals that came later. Scores are kept twice: with the default band
 calibration, and with the calibration estimated from the errors seen before
-that cut-off only (so the calibrated score is out of sample). A crossing is
+that cut-off only (so the calibrated bands are out of sample). A crossing is
 seen when a later reading is below the limit by more than the meter noise, or
 the capacitor failed in service. At the end the calibration from every error
-is stored for the refits to use.
+is stored for the refits to use, with the crossing quantile the risk rule
+flags on per dielectric (`choose_alert_level`, on the pooled calibrated
+forecasts); the calibrated risk scores are those of that rule, so they are in
+sample for that one choice among five levels.
 """
 
 from __future__ import annotations
@@ -21,8 +24,9 @@ from django.conf import settings
 from django.db import transaction
 from django.utils import timezone
 
-from fleet.engineering.backtest import first_crossing_day, projection_errors, score
+from fleet.engineering.backtest import choose_alert_level, first_crossing_day, projection_errors, score
 from fleet.engineering.calibration import estimate_calibration
+from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, alert_index, risk_levels
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
@@ -135,6 +139,39 @@ def _forms(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | Non
     return chosen
 
 
+ALERT_COLUMNS = [f"alert_{level:.1f}" for level in ALERT_LEVELS]
+
+
+def _governing_level_days(result) -> np.ndarray:
+    """(K, G) days to the governing limit's crossing at each alert level (a wear sign: its P10)."""
+    governing = result.judgement.governing
+    safe = np.clip(governing, 0, result.level_days.shape[1] - 1)
+    days = result.level_days[:, safe, np.arange(len(governing))]
+    days = np.where(governing >= result.level_days.shape[1], result.judgement.days[0], days)
+    return np.where(governing >= 0, days, np.inf)
+
+
+def _alert_levels(frame: pd.DataFrame) -> dict[str, tuple[float, list]]:
+    """Per dielectric, the alert level its pooled back-tested forecasts justify, and
+    the 365-day precision and recall of every level tried."""
+    return {
+        family: choose_alert_level(
+            rows[ALERT_COLUMNS].to_numpy(float).T,
+            rows["replace_now"].to_numpy(bool),
+            rows["crossed_day"].to_numpy(float),
+            rows["followed_days"].to_numpy(float),
+        )
+        for family, rows in frame.groupby("dielectric")
+    }
+
+
+def _with_alert_risk(frame: pd.DataFrame, levels: dict[str, float]) -> pd.DataFrame:
+    """The forecasts with the risk the rule gives at each dielectric's alert level."""
+    index = alert_index(frame["dielectric"].map(levels).to_numpy(float))
+    days = frame[ALERT_COLUMNS].to_numpy(float)[np.arange(len(frame)), index]
+    return frame.assign(risk=risk_levels(frame["replace_now"].to_numpy(bool), days))
+
+
 def _run(backtest: Backtest) -> None:
     ids = np.array(
         FittedCapacitor.objects.filter(readings__isnull=False).distinct().order_by("id").values_list("id", flat=True)
@@ -211,6 +248,8 @@ def _run(backtest: Backtest) -> None:
                     "followed_days": followed,
                     "dielectric": inst["dielectric"].to_numpy(),
                     "part_id": inst["part_id"].to_numpy(),
+                    "replace_now": result.judgement.risk == RISK_REPLACE_NOW,
+                    **dict(zip(ALERT_COLUMNS, _governing_level_days(result), strict=True)),
                 }
             )[above]
             forecasts[variant].append(frame)
@@ -235,10 +274,16 @@ def _run(backtest: Backtest) -> None:
 
     terms = _estimate(errors, len(families), None)
     forms = _forms(errors, families, None)
+    tried = _alert_levels(pd.concat(forecasts["calibrated"])) if forecasts["calibrated"] else {}
+    levels = {family: level for family, (level, _) in tried.items()}
+    forecasts["calibrated"] = [_with_alert_risk(frame, levels) for frame in forecasts["calibrated"]]
+    for summary, frame in zip(per_cutoff, forecasts["calibrated"], strict=True):
+        summary["calibrated"] = _scores(frame, part_codes)["all"]
     calibration = {
         family: {
             **dict(zip(CALIBRATION_FIELDS, terms.per_capacitor([k])[:, 0], strict=True)),
             "trend_model": forms.get(family, ""),
+            "alert_quantile": float(levels.get(family, PlanningSettings().alert_level)),
             "capacitors": int(terms.capacitors[k]),
             "residuals": int(terms.residuals[k]),
         }
@@ -252,6 +297,10 @@ def _run(backtest: Backtest) -> None:
         "cutoffs": per_cutoff,
         "pooled": {v: _scores(pd.concat(forecasts[v]), part_codes) for v in VARIANTS if forecasts[v]},
         "calibration": calibration,
+        "alert_levels": {
+            family: [{"level": level, "precision_365d": p, "recall_365d": r} for level, p, r in table]
+            for family, (_, table) in tried.items()
+        },
     }
     with transaction.atomic():
         for family, values in calibration.items():

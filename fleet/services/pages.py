@@ -26,7 +26,7 @@ from fleet.charts import trend_figure
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, path_band, reading_stress_hours
-from fleet.models import Assessment, FittedCapacitor, Motor, Reading, RefitRun, Site
+from fleet.models import Assessment, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site
 from fleet.roles import scope_to_user
 
 from .assessments import _hours_since_fitting
@@ -103,7 +103,14 @@ def stress_hours_of_readings(installation: FittedCapacitor, readings) -> np.ndar
         frame["capacitor_voltage_v"].to_numpy(float),
         [installation.part.rated_voltage_v],
         1,
+        part_voltage_ratio=_stored_voltage_ratio(installation.part_id),
     )
+
+
+def _stored_voltage_ratio(part_id: int) -> float:
+    """The part's typical capacitor voltage over rated, as its stored prior holds it (nan: none)."""
+    ratio = PartPrior.objects.filter(part_id=part_id).values_list("voltage_ratio", flat=True).first()
+    return np.nan if ratio is None else float(ratio)
 
 
 def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730) -> dict | None:
@@ -149,6 +156,7 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
         [assessment.trend_var_intercept, assessment.trend_cov_intercept_slope, assessment.trend_var_slope],
         assessment.trend_noise_sd,
         np.array(taus),
+        curvature=assessment.trend_curvature or 0.0,
     )
     path = {
         "dates": dates,

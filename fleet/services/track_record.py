@@ -128,6 +128,7 @@ def _calibration_in_force(settings: CalibrationSettings) -> list[dict]:
             "name": dielectric_names.get(row.family, row.family),
             "slope_factor": 1.0 + row.slope_bias,
             "slope_spread": row.slope_spread,
+            "alert_percent": round(100 * row.alert_quantile),
             "capacitors": row.capacitors,
             "residuals": row.residuals,
             "thin": row.capacitors < settings.min_capacitors,

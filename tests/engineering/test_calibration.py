@@ -148,3 +148,27 @@ def test_a_rising_dissipation_factor_is_projected_to_its_maximum():
     assert hours[0, 0] < hours[1, 0] < hours[2, 0]
     few = dissipation_trend(np.zeros(2, int), time_h[:2], dissipation[:2], 1, np.array([0.10]), np.array([5000.0]))
     assert np.isinf(few).all()
+
+
+def test_the_alert_level_is_the_most_precise_that_keeps_the_recall():
+    """[derived] Ten capacitors cross within the year, ninety do not. P10 flags all ten
+    and twenty more; P30 flags nine and two more; P50 five and none. With the recall
+    floor at 85 %, P30 is the most precise level that keeps it; with a floor above
+    every level's recall, the rule falls back to the level that catches most."""
+    from fleet.engineering.backtest import choose_alert_level
+    from fleet.engineering.planning import ALERT_LEVELS, PlanningSettings
+
+    crossed = np.r_[np.full(10, 100.0), np.full(90, np.nan)]
+    followed = np.full(100, 800.0)
+    days = np.full((len(ALERT_LEVELS), 100), 2000.0)
+    days[0, :30] = 200.0  # P10
+    days[1, :25] = 200.0  # P20: ten crossings and fifteen others
+    days[2, :9], days[2, 10:12] = 200.0, 200.0  # P30
+    days[3, :7] = 200.0  # P40
+    days[4, :5] = 200.0  # P50
+    none_now = np.zeros(100, bool)
+    level, table = choose_alert_level(days, none_now, crossed, followed)
+    assert level == 0.3
+    assert table[2][1:] == pytest.approx((9 / 11, 0.9))
+    strict = PlanningSettings(alert_min_recall=1.01)
+    assert choose_alert_level(days, none_now, crossed, followed, strict)[0] == 0.1

@@ -184,3 +184,46 @@ def test_median_crossing_exists_for_a_tight_posterior():
     q = crossing_quantiles(path, 0.95)
     assert q[1, 0] == pytest.approx((0.95 - 1.0342299619950162) / -1.2951398711068078e-05, rel=1e-6)
     assert q[0, 0] < q[1, 0] < q[2, 0]
+
+
+def test_a_bend_common_to_a_parts_paths_is_recovered_and_straight_paths_keep_none():
+    """Paths drawn (ours, invented) as b0 + b1 t + c t^2 with c shared by the part
+    and a 20 % spread between capacitors: the pooled within-capacitor bend recovers
+    c [derived], and the fit projects the bent path, so the fitted value now matches
+    the truth. Straight paths (test_known_slopes_are_recovered) keep c = 0."""
+    rng = np.random.default_rng(5)
+    sim = simulate(n_capacitors=1500, readings=(8, 14), noise=0.003)
+    bend = -4e-11  # per hour squared: about 1.5 % more loss after 20,000 h than a straight line
+    own = bend * rng.normal(1.0, 0.2, len(sim["part"]))
+    sim["capacitance_uf"] = sim["capacitance_uf"] + 10.0 * own[sim["group"]] * sim["time_h"] ** 2
+    result = fit(sim, model=MODEL_LINEAR)
+    assert result.priors.curvature == pytest.approx(np.full(3, bend), rel=0.15)
+    tau_now = result.stress_hours_now
+    true_now = sim["intercept"] + sim["slope"] * tau_now + own * tau_now**2
+    rich = sim["count"] >= 10
+    assert np.median(np.abs(result.fraction_now[rich] - true_now[rich])) < 0.003
+    assert np.all(fit(simulate(), model=MODEL_LINEAR).priors.curvature == 0.0)
+
+
+def test_a_capacitor_never_read_in_circuit_runs_at_its_parts_typical_voltage():
+    """[derived] Two capacitors of one part age alike; one is read in circuit at 300 V
+    on a 400 V part, the other only with a meter after isolation (no voltage). The
+    second is stressed as its part's capacitors are (the median 300 V), not at the
+    rated 400 V, so both get the same stress rate: with a voltage exponent of 10 the
+    rated voltage would have made the meter-read one age 18 times faster."""
+    time_h = np.tile(np.arange(1, 9) * 2190.0, 6)
+    group = np.repeat(np.arange(6), 8)
+    voltage = np.where(group < 3, 300.0, np.nan)
+    result = fit_trends(
+        group,
+        np.zeros(6, int),
+        time_h,
+        10.0 * (1 - 1e-6 * time_h),
+        np.full(6, 10.0),
+        np.full(group.size, 40.0),
+        voltage,
+        np.full(6, 400.0),
+        settings=TrendSettings(model=MODEL_LINEAR),
+    )
+    assert result.stress_rate[3:] == pytest.approx(result.stress_rate[:3], rel=1e-9)
+    assert result.stress_rate[0] == pytest.approx(0.75**10, rel=1e-6)

@@ -47,7 +47,7 @@ from pathlib import Path
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
-STORED_FACTS_MIGRATION = "fleet.migrations.0012_list_pages_indexes_and_stored_facts"
+STORED_FACTS_MIGRATION = "fleet.migrations.0015_list_pages_indexes_and_stored_facts"
 SITES = (("BIG", "Main works"), ("NTH", "North plant"), ("STH", "South plant"), ("EST", "East store"))
 
 

@@ -53,3 +53,12 @@ class Command(BaseCommand):
                 f"spread {values['slope_spread']:.2f} "
                 f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
             )
+        for family, table in results.get("alert_levels", {}).items():
+            chosen = results.get("calibration", {}).get(family, {}).get("alert_quantile")
+            tried = ", ".join(
+                f"P{100 * row['level']:.0f} {_pct(row['precision_365d'])}/{_pct(row['recall_365d'])}" for row in table
+            )
+            self.stdout.write(
+                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f} "
+                f"(365-day precision/recall % by level: {tried})"
+            )

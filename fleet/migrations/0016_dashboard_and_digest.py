@@ -7,7 +7,7 @@ from django.db import migrations, models
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0012_list_pages_indexes_and_stored_facts"),
+        ("fleet", "0015_list_pages_indexes_and_stored_facts"),
     ]
 
     operations = [

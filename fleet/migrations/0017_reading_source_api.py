@@ -6,7 +6,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ("fleet", "0012_dashboard_and_digest"),
+        ("fleet", "0016_dashboard_and_digest"),
     ]
 
     operations = [

@@ -142,7 +142,7 @@ POSTGRES_BACKWARD = [
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0012_assessment_trend_columns"),
+        ("fleet", "0014_forecast_curvature_and_alert_level"),
         migrations.swappable_dependency(settings.AUTH_USER_MODEL),
     ]
 
