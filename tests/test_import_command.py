@@ -246,3 +246,14 @@ def test_a_technician_cannot_import_sites(client, technician):
     upload.name = "sites.csv"
     response = client.post(reverse("imports"), {"kind": "sites", "file": upload})
     assert "Your role cannot import sites" in response.content.decode() and not ImportJob.objects.exists()
+
+
+def test_the_import_benchmark_runs_small_and_leaves_only_its_fleet():
+    """bench_import prints its figures (asserting no speed) and rolls back what it imports."""
+    out = io.StringIO()
+    call_command("bench_import", rows=120, capacitors=30, register=40, designs=3, stdout=out)
+    text = out.getvalue()
+    assert "readings import (check and write, before refits)" in text and "imported 120" in text
+    assert "circuit estimate:" in text and "register import:" in text and "refused: no" in text
+    assert not Reading.objects.exists()
+    assert Motor.objects.count() == 30  # the benchmark's own fleet; the imported register was undone

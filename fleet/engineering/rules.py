@@ -103,8 +103,11 @@ def _messages(condition, template, **columns):
     """A message where `condition` holds, formatted with that row's values; "" elsewhere."""
     condition = np.atleast_1d(np.asarray(condition, bool))
     out = np.full(condition.shape, "", dtype=object)
-    for i in np.flatnonzero(condition):
-        out[i] = template.format(**{k: np.atleast_1d(v)[i if np.size(v) > 1 else 0] for k, v in columns.items()})
+    rows = np.flatnonzero(condition)
+    if len(rows):
+        arrays = {k: np.atleast_1d(v) for k, v in columns.items()}
+        picked = {k: v[rows] if v.size > 1 else np.repeat(v[:1], len(rows)) for k, v in arrays.items()}
+        out[rows] = [template.format(**{k: v[j] for k, v in picked.items()}) for j in range(len(rows))]
     return out
 
 
