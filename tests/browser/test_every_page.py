@@ -33,7 +33,7 @@ ROLES = {
     "administrator": ("admin", "register-keeper-7"),
 }
 # Not pages of ours to lay out: the register (Django's admin), the API, downloads, the sign-out.
-NOT_PAGES = re.compile(r"^/(admin|api|assets|static)/|\.(csv|xlsx)$|/logout/")
+NOT_PAGES = re.compile(r"^/(admin|api|assets|static)/|\.(csv|xlsx|parquet|json)$|/logout/")
 PER_KIND = 2
 EXPECTED_KINDS = {
     *("home", "find-tag", "motor", "capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
