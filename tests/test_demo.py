@@ -27,7 +27,10 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     # it), work orders in each state, a visit under way.
     week_ago = timezone.now() - dt.timedelta(days=7)
     assert Assessment.objects.filter(created_at__lt=week_ago - dt.timedelta(days=14)).exists()
-    assert Assessment.objects.filter(is_current=True, created_at__lt=week_ago).exists()
+    # The current assessments are today's, judged from every reading; the history stays behind them
+    # (a history refit must not leave a weeks-old judgement current, with its replace-by dates past).
+    assert not Assessment.objects.filter(is_current=True, created_at__lt=week_ago).exists()
+    assert Assessment.objects.filter(is_current=False, created_at__lt=week_ago).exists()
     states = set(WorkOrder.objects.values_list("state", flat=True))
     assert {"done", "issued"} <= states
     assert WorkOrder.objects.filter(state="done", closed_at__date=timezone.localdate()).exists()

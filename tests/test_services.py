@@ -122,6 +122,19 @@ def test_refit_writes_one_current_assessment_and_rerunning_adds_nothing():
     assert list(Assessment.objects.order_by("id").values_list("id", "installation_id", "p50_on")) == rows
 
 
+def test_a_judgement_from_an_earlier_day_is_judged_again_without_a_new_reading():
+    """[derived] The risk levels count days from the judgement: the nightly refit re-judges an
+    assessment made on an earlier day, even with no reading since, so its dates never go stale."""
+    installations = ageing_fleet()
+    ids = [i.id for i in installations]
+    refit_installations(ids)
+    Assessment.objects.filter(is_current=True).update(created_at=timezone.now() - dt.timedelta(days=2))
+    again = refit_installations(ids)
+    assert again.written == len(ids) and again.skipped == 0
+    assert not Assessment.objects.filter(is_current=True, created_at__lt=timezone.now() - dt.timedelta(days=1)).exists()
+    assert refit_installations(ids).written == 0  # judged today, nothing newer: nothing written
+
+
 def test_a_forced_refit_reproduces_the_same_figures():
     installations = ageing_fleet()
     ids = [i.id for i in installations]

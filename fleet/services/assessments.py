@@ -596,18 +596,22 @@ def refit_installations(
     max_reading_id = readings.groupby("installation_id")["id"].max()
     inst = inst[inst["installation_id"].isin(usable["installation_id"].unique())]
     if not force and not inst.empty:
-        # Stale means "a reading was added since the fit" (by id), not "a newer
-        # reading date": a backdated or late-imported reading must be used too.
-        seen = pd.Series(
-            dict(
-                Assessment.objects.filter(
-                    installation_id__in=id_in(inst["installation_id"]), is_current=True, model_version=MODEL_VERSION
-                ).values_list("installation_id", "max_reading_id")
-            ),
-            dtype="float64",
-        )
-        seen_id = seen.reindex(inst["installation_id"]).to_numpy()
-        covered = ~np.isnan(seen_id) & (seen_id >= max_reading_id.reindex(inst["installation_id"]).to_numpy())
+        # Due when a reading was added since the fit (by id, not by reading date: a backdated or
+        # late-imported reading must be used too) or when the assessment was judged before the
+        # day of `now` (the risk levels count days from the judgement, and priors and calibration
+        # move): one assessment per capacitor, newest reading and day.
+        seen = pd.DataFrame(
+            Assessment.objects.filter(
+                installation_id__in=id_in(inst["installation_id"]), is_current=True, model_version=MODEL_VERSION
+            ).values_list("installation_id", "max_reading_id", "created_at"),
+            columns=["installation_id", "max_reading_id", "created_at"],
+        ).set_index("installation_id")
+        seen = seen.reindex(inst["installation_id"])
+        day_start = timezone.localtime(now).replace(hour=0, minute=0, second=0, microsecond=0)
+        judged_today = pd.to_datetime(seen["created_at"], utc=True).ge(day_start).to_numpy()
+        seen_id = seen["max_reading_id"].to_numpy(float)
+        newest = max_reading_id.reindex(inst["installation_id"]).to_numpy()
+        covered = ~np.isnan(seen_id) & (seen_id >= newest) & judged_today
         inst = inst[~covered]
     skipped = len(ids) - len(inst)
     if inst.empty:
