@@ -175,7 +175,7 @@ class AssessmentAdmin(admin.ModelAdmin):
         "installation",
         "risk",
         "replace_by",
-        "capacitance_now_uf",
+        "capacitance_now",
         "limit_source",
         "low_confidence",
         "is_current",
@@ -185,6 +185,17 @@ class AssessmentAdmin(admin.ModelAdmin):
     search_fields = ["installation__motor__asset_tag"]
     list_select_related = ["installation__motor", "installation__part"]
     raw_id_fields = ["installation", "newest_reading"]
+
+    @admin.display(description="capacitance now (µF)", ordering="capacitance_now_uf")
+    def capacitance_now(self, assessment):
+        return f"{assessment.capacitance_now_uf:.2f}"
+
+    # Computed by the refit from the readings: to be looked at, never typed over.
+    def has_add_permission(self, request):
+        return False
+
+    def has_change_permission(self, request, obj=None):
+        return obj is None and super().has_change_permission(request, obj)
 
 
 @admin.register(WorkOrder)

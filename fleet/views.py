@@ -387,14 +387,6 @@ def plan(request):
     return render(request, "fleet/plan.html", context)
 
 
-def _int_param(data, name, default, lowest, highest) -> int:
-    """A whole number from GET or POST data, clamped; anything else gives the default."""
-    try:
-        return max(lowest, min(highest, int(data.get(name) or default)))
-    except (TypeError, ValueError):
-        return default
-
-
 QUEUE_DOWN = (
     "The task queue is unreachable ({error}). {what} did not start; nothing is lost. Try again once the queue is back."
 )
@@ -505,7 +497,11 @@ def import_rejected(request, job_id):
 def life_data(request):
     """Weibull analysis of one part's capacitors; costs are the engineer's to set."""
     parts = CapacitorPart.objects.order_by("dielectric", "code")
-    part = parts.filter(code=request.GET.get("part")).first() or parts.first()
+    asked = request.GET.get("part")
+    part = parts.filter(code=asked).first() if asked else None
+    if asked and part is None:
+        messages.warning(request, f"No part with the code {asked}: showing the first part instead.")
+    part = part or parts.first()
     planned_cost = _float_param(request, "planned_cost", 60.0)
     failure_cost = _float_param(request, "failure_cost", 400.0)
     context = {"parts": parts, "part": part, "planned_cost": planned_cost, "failure_cost": failure_cost}
@@ -546,7 +542,10 @@ def work_orders(request):
             raise PermissionDenied
         action = request.POST.get("action")
         if action == "plan":
-            horizon = _int_param(request.POST, "days", 90, 7, 365)
+            _, horizon, problems = plan_parameters(request.POST.dict() | {"site": ""}, request=request)
+            if problems:
+                messages.error(request, f"No work orders planned: {'; '.join(problems)}.")
+                return redirect("work_orders")
             counts = plan_work_orders(horizon_days=horizon, user=request.user)
             messages.success(
                 request,

@@ -273,3 +273,43 @@ def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_installati
     quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0])
     body = signed_in(engineer).get(reverse("refits")).content.decode()
     assert "1 capacitor has readings newer than its assessment" in body
+
+
+def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, planner):
+    """Bad input is named, not taken silently as a default (the plan page's rule for `days`)."""
+    installation = make_installation()
+    quarterly_readings(installation, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.9, 3.8, 3.7, 3.6])
+    refit_installations([installation.id])
+    client.force_login(planner)
+    for days in ("abc", "-5", "99999"):
+        response = client.post("/work-orders/", {"action": "plan", "days": days}, follow=True)
+        assert "No work orders planned: days" in response.content.decode(), days
+    assert not WorkOrder.objects.exists()
+
+
+def test_a_plan_download_refuses_a_horizon_it_cannot_read(client, planner):
+    client.force_login(planner)
+    response = client.get("/plan.csv?days=abc")
+    assert response.status_code == 400 and b"days" in response.content
+
+
+def test_life_data_says_when_the_part_asked_for_does_not_exist(client, engineer):
+    make_installation()
+    client.force_login(engineer)
+    response = client.get("/life/?part=NOPE", follow=True)
+    assert "No part with the code NOPE" in response.content.decode()
+
+
+def test_the_admin_shows_assessments_but_never_lets_them_be_typed_over(client, django_user_model):
+    """Assessments are computed by the refit: the register's admin lists them, read-only."""
+    admin = django_user_model.objects.create_superuser("root", "root@example.invalid", "pw-for-tests-only")
+    installation = make_installation()
+    quarterly_readings(installation, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.9, 3.8, 3.7])
+    refit_installations([installation.id])
+    assessment = Assessment.objects.get(is_current=True)
+    client.force_login(admin)
+    assert client.get("/admin/fleet/assessment/").status_code == 200
+    assert client.get("/admin/fleet/assessment/add/").status_code == 403
+    response = client.post(f"/admin/fleet/assessment/{assessment.id}/change/", {"risk": "sound"})
+    assert response.status_code == 403
+    assert Assessment.objects.get(id=assessment.id).risk == assessment.risk

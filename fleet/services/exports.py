@@ -10,7 +10,7 @@ from dataclasses import replace
 from django.utils import timezone
 
 from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, Column, Table
-from fleet.filters import AssessmentFilter, LifeDataFilter, ReadingFilter, filtered, plan_parameters
+from fleet.filters import AssessmentFilter, BadFilter, LifeDataFilter, ReadingFilter, filtered, plan_parameters
 from fleet.models import Assessment, FittedCapacitor, Reading
 from fleet.roles import scope_to_user
 
@@ -226,8 +226,10 @@ PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
 def plan_table(query, user, request=None) -> Table:
     """The replacement plan as the plan page shows it (site and horizon from the query string)."""
     site, horizon, problems = plan_parameters(query, request=request)
+    if problems:  # a download is not a page that can say what it ignored: refuse, naming the parameter
+        raise BadFilter("; ".join(problems))
     rows = _rows(pages.replacement_plan(horizon, site, user), PLAN_COLUMNS)
-    about = _about(query, horizon_days=horizon, site=site.code if site else None, ignored=problems)
+    about = _about(query, horizon_days=horizon, site=site.code if site else None)
     return Table("replacement plan", PLAN_COLUMNS, rows, about)
 
 
