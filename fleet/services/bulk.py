@@ -89,7 +89,7 @@ def _csv(frame: pd.DataFrame) -> bytes:
     columns = {}
     for name, values in frame.items():
         if isinstance(values.dtype, pd.DatetimeTZDtype):
-            columns[name] = pa.array(values, from_pandas=True).cast(pa.timestamp("us", tz="UTC"))
+            columns[name] = pa.array(values.dt.floor("us"), from_pandas=True).cast(pa.timestamp("us", tz="UTC"))
         else:
             columns[name] = pa.array(values, from_pandas=True)
     buffer = io.BytesIO()
