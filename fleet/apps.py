@@ -8,8 +8,9 @@ class FleetConfig(AppConfig):
     default_auto_field = "django.db.models.BigAutoField"
 
     def ready(self):
-        from . import audit, lookups  # noqa: F401 - lookups registers field__any_of
+        from . import audit
         from .roles import ensure_role_groups
+        from .services import bulk  # noqa: F401 - registers the field__any_of lookup
 
         audit.connect()
         post_migrate.connect(ensure_role_groups, sender=self)

@@ -196,8 +196,9 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     for name in HISTORY_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
     tags = frame["asset_tag"].str.upper()
+    known = Motor.objects.filter(asset_tag__any_of=np.array(sorted(set(tags) - {""}), dtype=object))
     motors = pd.DataFrame.from_records(
-        list(Motor.objects.filter(asset_tag__in=sorted(set(tags) - {""})).values_list("id", "asset_tag", "motor_type")),
+        list(known.values_list("id", "asset_tag", "motor_type")),
         columns=["motor_id", "tag", "motor_type"],
     )
     motors["tag"] = motors["tag"].str.upper()
@@ -253,7 +254,7 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     repeated_in_file(problems, keys.where(~problems.bad), "fitted_on", "the same capacitor (motor, role, fitted_on)")
     register = pd.DataFrame.from_records(
         list(
-            FittedCapacitor.objects.filter(motor_id__in=motors["motor_id"].tolist()).values_list(
+            FittedCapacitor.objects.filter(motor_id__any_of=motors["motor_id"].to_numpy(np.int64)).values_list(
                 "motor_id", "role", "fitted_on", "removed_on"
             )
         ),

@@ -22,14 +22,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from django.conf import settings
-from django.db import connection
 from django.utils import timezone
 
-from fleet.bulk import copy_rows
 from fleet.engineering.rules import check_readings as reading_rules
 from fleet.engineering.rules import parse_numbers
 from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import scope_to_user, visible_site_ids
+from fleet.services.bulk import insert_frame
 
 READING_COLUMNS = {
     "asset_tag": "Motor asset tag (required)",
@@ -632,53 +631,25 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
 def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
     """Write checked readings (caller holds the transaction); returns the capacitors touched.
 
-    PostgreSQL: one COPY (the row triggers of fleet_reading run on each row as for any insert);
-    SQLite: bulk inserts. A reading whose key another import wrote meanwhile is skipped.
+    One `insert_frame` (COPY on PostgreSQL; the row triggers of fleet_reading run on each row as
+    for any insert). A reading whose key another import wrote meanwhile is skipped.
     """
     if not len(good):
         return []
-    now = timezone.now()
-    columns = {
-        "installation_id": good["installation_id"].to_numpy(np.int64),
-        "taken_at": good["taken_at"],
-        "taken_by_id": np.full(len(good), np.nan if user is None else float(user.pk)),
-        "method": good["method"].to_numpy(object),
-        **{name: good[name].to_numpy(float) for name in READING_NUMBERS},
-        "condition": good["condition"].to_numpy(object),
-        "notes": good["notes"].fillna("").to_numpy(object),
-        "outlier_confirmed": np.zeros(len(good), bool),
-        "source": np.full(len(good), Reading.Source.IMPORT.value, dtype=object),
-        "import_key": good["import_key"].to_numpy(object),
-        "created_at": pd.Series(np.full(len(good), np.datetime64(now.replace(tzinfo=None), "us"))).dt.tz_localize(
-            "UTC"
-        ),
-    }
-    if connection.vendor == "postgresql":
-        if user is not None:
-            columns["taken_by_id"] = np.full(len(good), int(user.pk), np.int64)
-        copy_rows(Reading._meta.db_table, columns, skip_conflicts_on="import_key")
-    else:
-        Reading.objects.bulk_create(
-            [
-                Reading(
-                    installation_id=int(row.installation_id),
-                    taken_at=row.taken_at.to_pydatetime(),
-                    taken_by=user,
-                    method=row.method,
-                    condition=row.condition,
-                    notes=row.notes or "",
-                    source=Reading.Source.IMPORT,
-                    import_key=row.import_key,
-                    **{
-                        name: None if np.isnan(getattr(row, name)) else float(getattr(row, name))
-                        for name in READING_NUMBERS
-                    },
-                )
-                for row in good.itertuples(index=False)
-            ],
-            batch_size=2000,
-            ignore_conflicts=True,
-        )
+    rows = pd.DataFrame(
+        {
+            "installation_id": good["installation_id"].to_numpy(np.int64),
+            "taken_at": good["taken_at"].array,
+            "taken_by_id": pd.array(np.full(len(good), None if user is None else user.pk), dtype="Int64"),
+            "method": good["method"].to_numpy(object),
+            **{name: good[name].to_numpy(float) for name in READING_NUMBERS},
+            "condition": good["condition"].to_numpy(object),
+            "notes": good["notes"].fillna("").to_numpy(object),
+            "source": Reading.Source.IMPORT.value,
+            "import_key": good["import_key"].to_numpy(object),
+        }
+    )
+    insert_frame(Reading, rows, skip_conflicts_on="import_key")
     return sorted(set(good["installation_id"].astype(int).tolist()))
 
 

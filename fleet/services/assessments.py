@@ -70,7 +70,7 @@ from fleet.engineering.trends import (
 )
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
-from .bulk import id_in, insert_frame
+from .bulk import insert_frame
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
@@ -602,7 +602,9 @@ def refit_installations(
         # move): one assessment per capacitor, newest reading and day.
         seen = pd.DataFrame(
             Assessment.objects.filter(
-                installation_id__in=id_in(inst["installation_id"]), is_current=True, model_version=MODEL_VERSION
+                installation_id__any_of=inst["installation_id"].to_numpy(np.int64),
+                is_current=True,
+                model_version=MODEL_VERSION,
             ).values_list("installation_id", "max_reading_id", "created_at"),
             columns=["installation_id", "max_reading_id", "created_at"],
         ).set_index("installation_id")
@@ -631,7 +633,9 @@ def refit_installations(
     rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():
         _carry_risk_history(rows, now)
-        Assessment.objects.filter(installation_id__in=id_in(inst.index), is_current=True).update(is_current=False)
+        Assessment.objects.filter(installation_id__any_of=inst.index.to_numpy(np.int64), is_current=True).update(
+            is_current=False
+        )
         insert_frame(Assessment, rows)
     return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
 
@@ -640,9 +644,9 @@ def _carry_risk_history(rows: pd.DataFrame, now: dt.datetime) -> None:
     """Each new assessment keeps when its risk level took its present value and what it was
     before (one query), so the plan lists recent changes without comparing assessment histories."""
     before = pd.DataFrame(
-        Assessment.objects.filter(installation_id__in=id_in(rows["installation_id"]), is_current=True).values_list(
-            "installation_id", "risk", "risk_was", "risk_changed_at"
-        ),
+        Assessment.objects.filter(
+            installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
+        ).values_list("installation_id", "risk", "risk_was", "risk_changed_at"),
         columns=["installation_id", "risk", "risk_was", "risk_changed_at"],
     ).set_index("installation_id")
     before = before.reindex(rows["installation_id"].to_numpy())

@@ -1,23 +1,35 @@
-"""Rows in and out of the database in bulk, without model instances.
+"""Rows in and out of the database in bulk, without model instances, and filters on long lists.
 
-PostgreSQL moves rows by COPY (CSV); other databases (SQLite in development and
-tests) by one batched INSERT or one SELECT. Writes here send no signals and write
-no audit entries: they are for derived rows (assessments) and invented benchmark
-fleets, never for register changes a person made.
+Writes: `insert_frame` sends a frame's columns by COPY on PostgreSQL (one CSV written by
+pyarrow: NULL and empty text stay apart, no per-row Python) and by batched INSERT on other
+databases (SQLite in development and tests). Constraints and row triggers apply to every
+row, as for any INSERT. Writes here send no signals and write no audit entries: they are
+for derived rows (assessments), imported readings and invented benchmark fleets, never for
+register changes a person made.
+
+Reads: `select_frame` (COPY TO STDOUT on PostgreSQL) and `field__any_of=array`, a filter on
+tens of thousands of values sent as one parameter (`field__in` sends one placeholder per
+value, and building that query costs more than running it).
 """
 
 from __future__ import annotations
 
-import csv
+import datetime as dt
 import io
+import json
+import time
 
 import numpy as np
 import pandas as pd
-from django.db import connection
-from django.db.models.expressions import RawSQL
+import pyarrow as pa
+from django.db import IntegrityError, connection, transaction
+from django.db.models import Field, ForeignObject, JSONField, Lookup
 from django.utils import timezone
+from pyarrow import csv as arrow_csv
 
 SQLITE_BATCH_ROWS = 5000
+COPY_BLOCK_BYTES = 1 << 20
+SEPARATOR = "\x1f"  # ASCII unit separator: joins text values for `any_of` on PostgreSQL
 
 
 def on_postgresql() -> bool:
@@ -25,69 +37,159 @@ def on_postgresql() -> bool:
 
 
 def _completed(model, frame: pd.DataFrame) -> pd.DataFrame:
-    """The frame with every other non-null column of the table filled from its field's default."""
+    """The frame with every other non-null column of the table filled from its field's default,
+    and date-times as UTC (aware)."""
     frame = frame.copy()
     for field in model._meta.concrete_fields:
-        if field.column in frame.columns or field.primary_key and "id" not in frame.columns:
+        if field.column in frame.columns:
+            if field.get_internal_type() == "DateTimeField":
+                frame[field.column] = pd.to_datetime(frame[field.column], utc=True)
+            continue
+        if field.primary_key:
             continue
         if getattr(field, "auto_now_add", False) or getattr(field, "auto_now", False):
-            frame[field.column] = timezone.now()
+            frame[field.column] = pd.Timestamp(timezone.now())
         elif field.has_default():
-            frame[field.column] = field.get_db_prep_save(field.get_default(), connection)
+            default = field.get_default()
+            frame[field.column] = (
+                json.dumps(default) if isinstance(field, JSONField) else field.get_db_prep_save(default, connection)
+            )
         elif not field.null:
             raise ValueError(f"{model.__name__}.{field.name} has no value and no default")
     return frame
 
 
-def insert_frame(model, frame: pd.DataFrame) -> int:
-    """Insert the frame's rows (columns named as the table's; NaN or None for NULL). Returns the count.
+def insert_frame(model, frame: pd.DataFrame, *, skip_conflicts_on: str | None = None) -> int:
+    """Insert the frame's rows (columns named as the table's; NaN, NaT or None for NULL), in the
+    caller's transaction. JSON columns are given as JSON text. Returns the rows written.
 
-    Text columns that are JSON are written as given (already JSON text).
+    With `skip_conflicts_on` (a unique column), a row whose value is already there (another
+    writer put it there meanwhile) is skipped instead of refusing them all.
     """
     if frame.empty:
         return 0
     frame = _completed(model, frame)
-    table = connection.ops.quote_name(model._meta.db_table)
-    columns = [connection.ops.quote_name(name) for name in frame.columns]
+    column_list = ", ".join(connection.ops.quote_name(name) for name in frame.columns)
     if on_postgresql():
-        nullable = [connection.ops.quote_name(f.column) for f in model._meta.concrete_fields if f.null]
-        nullable = [name for name in nullable if name in columns]
-        force_null = f", FORCE_NULL ({', '.join(nullable)})" if nullable else ""
-        buffer = io.StringIO()
-        frame.to_csv(buffer, header=False, index=False, na_rep="", quoting=csv.QUOTE_NONNUMERIC)
-        statement = f"COPY {table} ({', '.join(columns)}) FROM STDIN WITH (FORMAT csv{force_null})"
-        with connection.cursor() as cursor, cursor.cursor.copy(statement) as copy:
-            copy.write(buffer.getvalue())
-        return len(frame)
-    for field in model._meta.concrete_fields:
-        if field.column in frame.columns and field.get_internal_type() == "DateTimeField":
-            stamps = pd.to_datetime(frame[field.column], utc=True)  # stored as naive UTC text, as Django does
-            frame[field.column] = stamps.dt.tz_localize(None).dt.strftime("%Y-%m-%d %H:%M:%S.%f")
-    values = frame.astype(object).where(frame.notna(), None)
-    rows = [tuple(_plain(v) for v in row) for row in values.itertuples(index=False, name=None)]
-    statement = f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({', '.join(['%s'] * len(columns))})"
+        return _copy_in(model._meta.db_table, column_list, _csv(frame), len(frame), skip_conflicts_on)
+    table = connection.ops.quote_name(model._meta.db_table)
+    conflict = f" ON CONFLICT ({connection.ops.quote_name(skip_conflicts_on)}) DO NOTHING" if skip_conflicts_on else ""
+    statement = f"INSERT INTO {table} ({column_list}) VALUES ({', '.join(['%s'] * len(frame.columns))}){conflict}"
+    rows = _python_rows(frame)
+    written = 0
     with connection.cursor() as cursor:
         for start in range(0, len(rows), SQLITE_BATCH_ROWS):
             cursor.executemany(statement, rows[start : start + SQLITE_BATCH_ROWS])
-    return len(frame)
+            written += cursor.rowcount
+    return written
+
+
+def _csv(frame: pd.DataFrame) -> bytes:
+    """The frame as CSV for COPY: a missing value is an empty field, empty text is `""`."""
+    columns = {}
+    for name, values in frame.items():
+        if isinstance(values.dtype, pd.DatetimeTZDtype):
+            columns[name] = pa.array(values.dt.floor("us"), from_pandas=True).cast(pa.timestamp("us", tz="UTC"))
+        else:
+            columns[name] = pa.array(values, from_pandas=True)
+    buffer = io.BytesIO()
+    arrow_csv.write_csv(pa.table(columns), buffer, arrow_csv.WriteOptions(include_header=False, quoting_style="needed"))
+    return buffer.getvalue()
+
+
+def _copy(cursor, table: str, column_list: str, body: bytes) -> None:
+    """COPY the CSV in; a refusal (a constraint, a trigger) is raised as Django's own database error."""
+    statement = f"COPY {table} ({column_list}) FROM STDIN WITH (FORMAT csv)"
+    with connection.wrap_database_errors, cursor.copy(statement) as copy:
+        for start in range(0, len(body), COPY_BLOCK_BYTES):
+            copy.write(body[start : start + COPY_BLOCK_BYTES])
+
+
+def _copy_in(table: str, column_list: str, body: bytes, rows: int, skip_conflicts_on: str | None) -> int:
+    """COPY on PostgreSQL. Skipping conflicts, the COPY runs in a savepoint, and only on a unique
+    clash do the rows go again through a temporary table and INSERT ... ON CONFLICT DO NOTHING
+    (slower, so not the first try)."""
+    from psycopg.errors import UniqueViolation  # PostgreSQL's driver: imported only when it is in use
+
+    target = connection.ops.quote_name(table)
+    with connection.cursor() as cursor:
+        raw = cursor.cursor
+        if not skip_conflicts_on:
+            _copy(raw, target, column_list, body)
+            return rows
+        try:
+            with transaction.atomic():
+                _copy(raw, target, column_list, body)
+            return rows
+        except IntegrityError as error:
+            if not isinstance(error.__cause__, UniqueViolation):
+                raise
+        staging = connection.ops.quote_name(f"{table}_staging")
+        cursor.execute(
+            f"CREATE TEMPORARY TABLE {staging} ON COMMIT DROP AS SELECT {column_list} FROM {target} WITH NO DATA"
+        )
+        _copy(raw, staging, column_list, body)
+        cursor.execute(
+            f"INSERT INTO {target} ({column_list}) SELECT {column_list} FROM {staging} "
+            f"ON CONFLICT ({connection.ops.quote_name(skip_conflicts_on)}) DO NOTHING"
+        )
+        written = cursor.rowcount
+        cursor.execute(f"DROP TABLE {staging}")
+        return written
+
+
+def _python_rows(frame: pd.DataFrame) -> list[tuple]:
+    """The rows as DB-API values; date-times as naive UTC text the way Django stores them on SQLite
+    (microseconds only when there are some), so stored and filtered values compare alike."""
+    frame = frame.copy()
+    for name, values in frame.items():
+        if isinstance(values.dtype, pd.DatetimeTZDtype):
+            naive = values.dt.tz_convert("UTC").dt.tz_localize(None)
+            text = naive.dt.strftime("%Y-%m-%d %H:%M:%S").where(
+                naive.dt.microsecond == 0, naive.dt.strftime("%Y-%m-%d %H:%M:%S.%f")
+            )
+            frame[name] = text.where(values.notna(), None)
+    values = frame.astype(object).where(frame.notna(), None)
+    return [tuple(_plain(v) for v in row) for row in values.itertuples(index=False, name=None)]
 
 
 def _plain(value):
-    """numpy scalars and pandas timestamps as the Python values a DB-API driver takes."""
+    """numpy scalars, pandas timestamps and dates as the Python values a DB-API driver takes."""
     if isinstance(value, np.generic):
         return value.item()
     if isinstance(value, pd.Timestamp):
         return value.to_pydatetime()
+    if isinstance(value, dt.date) and not isinstance(value, dt.datetime):  # ISO text, as Django stores it
+        return value.isoformat()
     return value
 
 
-def id_in(ids):
-    """A value for an `__in` lookup that is one array parameter on PostgreSQL (Django prepares
-    a list id by id, which costs more than the query for a chunk of thousands)."""
-    ids = [int(i) for i in ids]
-    if on_postgresql():
-        return RawSQL("SELECT unnest(%s::bigint[])", (ids,))
-    return ids
+@ForeignObject.register_lookup  # a foreign key keeps lookups of its own: register there too
+@Field.register_lookup
+class AnyOf(Lookup):
+    """`field__any_of=values`: the rows `field__in` finds, with the whole list as one parameter.
+
+    PostgreSQL: one text split by the server (`= ANY(string_to_array(...))`; an array when a text
+    value holds the separator); SQLite: one JSON text (`IN (SELECT value FROM json_each(...))`).
+    Pass a numpy array or a pandas Index/Series rather than a list: Django walks a list value by
+    value before the lookup sees it.
+    """
+
+    lookup_name = "any_of"
+    prepare_rhs = False
+
+    def as_sql(self, compiler, connection):
+        lhs, lhs_params = self.process_lhs(compiler, connection)
+        values = self.rhs.tolist() if hasattr(self.rhs, "tolist") else list(self.rhs)
+        if connection.vendor != "postgresql":
+            return f"{lhs} IN (SELECT value FROM json_each(%s))", [*lhs_params, json.dumps(values)]
+        if values and all(isinstance(v, str) for v in values):
+            joined = SEPARATOR.join(values)
+            if joined.count(SEPARATOR) == len(values) - 1:
+                return f"{lhs} = ANY(string_to_array(%s, %s))", [*lhs_params, joined, SEPARATOR]
+        if values and all(isinstance(v, int) and not isinstance(v, bool) for v in values):
+            return f"{lhs} = ANY(string_to_array(%s, ',')::bigint[])", [*lhs_params, ",".join(map(str, values))]
+        return f"{lhs} = ANY(%s)", [*lhs_params, values]
 
 
 def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
@@ -112,8 +214,6 @@ def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
 def copy_read_floor(model) -> tuple[int, float]:
     """Rows of the model's whole table read by COPY TO STDOUT, and the seconds it took:
     what any refit must at least spend reading them (PostgreSQL only)."""
-    import time
-
     table = connection.ops.quote_name(model._meta.db_table)
     started = time.perf_counter()
     rows = 0

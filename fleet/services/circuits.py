@@ -83,7 +83,7 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
         aux_current_a__isnull=False,
     ).exclude(installation__motor__circuit_source="entered")
     if motor_ids is not None:
-        readings = readings.filter(installation__motor_id__in=list(motor_ids))
+        readings = readings.filter(installation__motor_id__any_of=np.asarray(list(motor_ids), np.int64))
     rows = readings.order_by("installation__motor_id", "taken_at").values_list(
         "installation__motor_id", "capacitance_uf", "main_current_a", "aux_current_a"
     )

@@ -7,7 +7,7 @@ import pandas as pd
 
 from fleet.models import FittedCapacitor, PartPrior, Reading
 
-from .bulk import id_in, on_postgresql, select_frame
+from .bulk import on_postgresql, select_frame
 
 CIRCUIT_FIELDS = [
     "r1m_ohm",
@@ -49,7 +49,9 @@ INSTALLATION_COLUMNS = {
 
 def installations_frame(installation_ids) -> pd.DataFrame:
     """Fitted capacitors with their part and motor, one row each (one query)."""
-    rows = FittedCapacitor.objects.filter(id__in=id_in(installation_ids)).values_list(*INSTALLATION_COLUMNS)
+    rows = FittedCapacitor.objects.filter(id__any_of=np.fromiter(installation_ids, np.int64)).values_list(
+        *INSTALLATION_COLUMNS
+    )
     frame = pd.DataFrame.from_records(list(rows), columns=list(INSTALLATION_COLUMNS.values()))
     for column in ("part_tempco_ppm_per_k", "max_dissipation_factor"):
         frame[column] = frame[column].astype(float)
@@ -62,9 +64,9 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     A two-value motor starts on run + start in parallel, so judging either
     capacitor needs the other's rating.
     """
-    rows = FittedCapacitor.objects.filter(motor_id__in=id_in(motor_ids), removed_on__isnull=True).values_list(
-        "motor_id", "role", "part__rated_uf"
-    )
+    rows = FittedCapacitor.objects.filter(
+        motor_id__any_of=np.fromiter(motor_ids, np.int64), removed_on__isnull=True
+    ).values_list("motor_id", "role", "part__rated_uf")
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
     if frame.empty:
         return pd.DataFrame(columns=["run", "start"], dtype=float)
@@ -100,7 +102,7 @@ def readings_frame(installation_ids) -> pd.DataFrame:
         frame = select_frame(READINGS_SQL, [ids], READING_COLUMNS)
         frame["taken_at"] = pd.to_datetime(frame["taken_at"].astype(np.int64), unit="us", utc=True)
     else:
-        rows = Reading.objects.filter(installation_id__in=ids).values_list(*READING_COLUMNS)
+        rows = Reading.objects.filter(installation_id__any_of=np.array(ids, np.int64)).values_list(*READING_COLUMNS)
         frame = pd.DataFrame.from_records(list(rows), columns=READING_COLUMNS)
         frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
     superseded_ids = set(frame["supersedes_id"].dropna().astype(np.int64))

@@ -1,0 +1,100 @@
+"""fleet.services.bulk: `insert_frame` stores what the ORM would, `field__any_of` finds what `field__in` finds.
+
+[derived] the ORM's own reads are the reference: a row written in bulk must read back as the
+values given, and a filter must return the rows `__in` returns.
+"""
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+import pytest
+from django.db import IntegrityError, transaction
+
+from fleet.models import FittedCapacitor, Motor, Reading
+from fleet.services.bulk import SEPARATOR, insert_frame
+
+from .conftest import make_installation, make_motor
+
+
+@pytest.fixture
+def three_motors(db):
+    return [make_installation(motor=make_motor(asset_tag=f"ANY-{n}")) for n in range(3)]
+
+
+@pytest.mark.parametrize(
+    "lookup,values",
+    [
+        ("asset_tag", ["ANY-0", "ANY-2", "NOT-THERE"]),
+        ("asset_tag", ["ANY-1", f"ANY-0{SEPARATOR}ANY-2"]),  # a value holding the separator goes as an array
+        ("asset_tag", []),
+    ],
+)
+def test_text_values_find_what_in_finds(three_motors, lookup, values):
+    expected = set(Motor.objects.filter(**{f"{lookup}__in": values}).values_list("id", flat=True))
+    found = set(
+        Motor.objects.filter(**{f"{lookup}__any_of": np.array(values, dtype=object)}).values_list("id", flat=True)
+    )
+    assert found == expected
+    assert len(found) == sum(value.startswith("ANY-") and SEPARATOR not in value for value in values)
+
+
+def test_numbers_and_foreign_keys_find_what_in_finds(three_motors):
+    motor_ids = [installation.motor_id for installation in three_motors[:2]]
+    by_key = FittedCapacitor.objects.filter(motor_id__any_of=np.array(motor_ids, np.int64))
+    by_join = FittedCapacitor.objects.filter(motor__any_of=np.array(motor_ids, np.int64))
+    assert set(by_key) == set(by_join) == set(FittedCapacitor.objects.filter(motor_id__in=motor_ids))
+    assert by_key.count() == 2
+    assert Motor.objects.filter(id__any_of=np.array([], np.int64)).count() == 0
+
+
+def _readings(installation, keys, capacitance_uf=3.9):
+    return pd.DataFrame(
+        {
+            "installation_id": installation.id,
+            "taken_at": pd.to_datetime(
+                ["2024-03-14 09:30:00", "2024-06-14 10:15:00.250000"][: len(keys)], utc=True, format="ISO8601"
+            ),
+            "method": "meter",
+            "capacitance_uf": capacitance_uf,
+            "esr_ohm": [0.02, np.nan][: len(keys)],
+            "notes": ["", "dusty guard"][: len(keys)],
+            "client_key": [None, "tablet-7"][: len(keys)],
+            "source": "import",
+            "import_key": keys,
+        }
+    )
+
+
+def test_rows_written_in_bulk_read_back_as_given(three_motors):
+    installation = three_motors[0]
+    assert insert_frame(Reading, _readings(installation, ["k-1", "k-2"])) == 2
+    first, second = Reading.objects.order_by("taken_at")
+    assert first.taken_at == dt.datetime(2024, 3, 14, 9, 30, tzinfo=dt.UTC)
+    assert second.taken_at == dt.datetime(2024, 6, 14, 10, 15, 0, 250000, tzinfo=dt.UTC)
+    assert Reading.objects.filter(taken_at=dt.datetime(2024, 3, 14, 9, 30, tzinfo=dt.UTC)).get() == first
+    assert (first.esr_ohm, second.esr_ohm) == (0.02, None)
+    assert (first.notes, second.notes) == ("", "dusty guard")  # empty text is not NULL, and back
+    assert (first.client_key, second.client_key) == (None, "tablet-7")
+    assert first.condition == Reading._meta.get_field("condition").default and first.outlier_confirmed is False
+    assert first.created_at is not None and first.installation == installation
+
+
+def test_skipping_conflicts_skips_only_the_clashing_rows(three_motors):
+    installation = three_motors[0]
+    with transaction.atomic():
+        insert_frame(Reading, _readings(installation, ["k-2"]).assign(taken_at=pd.Timestamp("2024-06-14", tz="UTC")))
+    with transaction.atomic():
+        written = insert_frame(Reading, _readings(installation, ["k-1", "k-2"]), skip_conflicts_on="import_key")
+    assert written == 1
+    assert sorted(Reading.objects.values_list("import_key", flat=True)) == ["k-1", "k-2"]
+    assert Reading.objects.get(import_key="k-2").taken_at == dt.datetime(2024, 6, 14, tzinfo=dt.UTC)  # not overwritten
+    with pytest.raises(IntegrityError), transaction.atomic():
+        insert_frame(Reading, _readings(installation, ["k-3"]))
+        insert_frame(Reading, _readings(installation, ["k-3"]))  # without the option a clash refuses
+
+
+def test_skipping_conflicts_still_refuses_a_row_that_breaks_a_rule(three_motors):
+    with pytest.raises(IntegrityError), transaction.atomic():
+        insert_frame(Reading, _readings(three_motors[0], ["k-1"], capacitance_uf=-1.0), skip_conflicts_on="import_key")
+    assert not Reading.objects.exists()
