@@ -133,9 +133,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     window function."""
     orders = _open_orders(user)
     visits = (
-        orders.values("due_on", "site_id", "site__code")
-        .annotate(count=Count("id"))
-        .order_by("due_on", "site__code")
+        orders.values("due_on", "site_id", "site__code").annotate(count=Count("id")).order_by("due_on", "site__code")
     )
     page = Paginator(visits, per_page).get_page(page_number)
     keys = [(v["due_on"], v["site_id"]) for v in page.object_list]
