@@ -117,7 +117,7 @@ def open_visits(site_id: int, day: dt.date, user=None) -> list[dict]:
         _open_orders(user)
         .filter(site_id=site_id, due_on=day)
         .select_related("motor", "site", "installation__part")
-        .order_by("motor__route_order", "motor__asset_tag")
+        .order_by("motor__route_order", "motor__asset_tag", "id")
     )
     group = list(orders)
     if not group:
@@ -143,7 +143,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     position = Window(
         RowNumber(),
         partition_by=[F("due_on"), F("site_id")],
-        order_by=[F("motor__route_order").asc(), F("motor__asset_tag").asc()],
+        order_by=[F("motor__route_order").asc(), F("motor__asset_tag").asc(), F("id").asc()],
     )
     listed = (
         orders.filter(in_page)
