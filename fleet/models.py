@@ -649,6 +649,15 @@ class WorkOrder(models.Model):
         CANCELLED = "cancelled", "Cancelled"
 
     motor = models.ForeignKey(Motor, on_delete=models.PROTECT, related_name="work_orders")
+    site = models.ForeignKey(
+        Site,
+        null=True,
+        blank=True,
+        editable=False,
+        on_delete=models.PROTECT,
+        related_name="+",
+        help_text="The motor's site; kept by database triggers",
+    )
     installation = models.ForeignKey(
         FittedCapacitor, null=True, blank=True, on_delete=models.PROTECT, related_name="work_orders"
     )
@@ -680,10 +689,10 @@ class WorkOrder(models.Model):
                 name="closed_orders_have_close_time",
             ),
         ]
-        # The work-orders page: open orders by visit day, a page of visits at a time.
+        # The work-orders page: open orders by visit (day, site), a page of visits at a time.
         indexes = [
             models.Index(
-                fields=["due_on", "motor"], condition=Q(state__in=["planned", "issued"]), name="open_orders_by_day"
+                fields=["due_on", "site"], condition=Q(state__in=["planned", "issued"]), name="open_orders_by_visit"
             )
         ]
 

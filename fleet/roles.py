@@ -72,7 +72,7 @@ SITE_PATHS = {
     "fittedcapacitor": "motor__site",
     "reading": "installation__motor__site",
     "assessment": "installation__motor__site",
-    "workorder": "motor__site",
+    "workorder": "site",
     "sitestock": "site",
 }
 

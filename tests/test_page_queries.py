@@ -152,6 +152,22 @@ def test_a_motors_last_reading_is_kept_by_the_database():
     assert Motor.objects.get(pk=motor.pk).last_read_at == later
 
 
+def test_a_work_orders_site_is_its_motors_kept_by_the_database():
+    """The stored site the work-orders page groups by: set on insert, on save, and moved with the motor."""
+    from fleet.models import WorkOrder
+
+    north, south = make_site("N1"), make_site("S1")
+    motor = make_motor(site=north)
+    order = WorkOrder.objects.create(motor=motor, kind="inspect", due_on=dt.date(2026, 1, 5))
+    assert WorkOrder.objects.get(pk=order.pk).site_id == north.id
+    Motor.objects.filter(pk=motor.pk).update(site=south)
+    assert WorkOrder.objects.get(pk=order.pk).site_id == south.id
+    other = make_motor(site=north)
+    order.motor = other
+    order.save()  # the instance still holds the old site: the database corrects it
+    assert WorkOrder.objects.get(pk=order.pk).site_id == north.id
+
+
 def test_the_route_pages_keep_the_filter_and_count_every_motor(client, planner_who_reads, monkeypatch):
     monkeypatch.setattr("fleet.views.ROUTE_PAGE_SIZE", 2)
     site = make_site("EAST")

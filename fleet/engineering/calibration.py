@@ -211,30 +211,28 @@ def calibrated_crossing_quantiles(
     horizon (denser near now), made non-decreasing, and each quantile read off
     by linear interpolation. A quantile already reached at
     d = 0 gives t0 (or the closed-form crossing before it when the fit's own path
-    is past); one never reached gives inf. Shape (len(probabilities), G).
+    is past); one never reached gives inf, as does every quantile of a capacitor
+    whose limit does not apply (NaN limit fraction): the grid is evaluated only
+    over the capacitors whose limit applies. Shape (len(probabilities), G).
     """
     terms = np.asarray(terms, float)
     n = len(fit.intercept)
     horizon = np.broadcast_to(np.asarray(horizon_stress_hours, float), (n,))
     limit_fraction = np.broadcast_to(np.asarray(limit_fraction, float), (n,))
     levels = np.asarray(probabilities, float)
+    result = np.full((len(levels), n), np.inf)
+    applies = np.flatnonzero(np.isfinite(limit_fraction))
     block = 20_000  # capacitors at a time: the grid is (steps x block)
-    parts = [
-        _grid_quantiles(
-            _take(fit, slice(start, start + block)),
-            limit_fraction[start : start + block],
-            terms[:, start : start + block],
-            horizon[start : start + block],
-            levels,
-            steps,
+    for start in range(0, len(applies), block):
+        rows = applies[start : start + block]
+        result[:, rows] = _grid_quantiles(
+            _take(fit, rows), limit_fraction[rows], terms[:, rows], horizon[rows], levels, steps
         )
-        for start in range(0, n, block)
-    ]
-    return np.concatenate(parts, axis=1) if parts else np.zeros((len(levels), 0))
+    return result
 
 
-def _take(fit: TrendFit, rows: slice) -> TrendFit:
-    """The per-capacitor part of a fit for a block of capacitors (per-reading arrays dropped)."""
+def _take(fit: TrendFit, rows: np.ndarray) -> TrendFit:
+    """The per-capacitor part of a fit for some capacitors (positions; per-reading arrays dropped)."""
     import dataclasses
 
     per_capacitor = {

@@ -190,13 +190,18 @@ def risk_summary(user=None):
     return [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
 
 
+# An assessment's per-limit details and operating figures: the capacitor page shows them, lists do not.
+LIST_DEFERRED = ("limits", "figures_now", "figures_new", "flagged_reading_ids")
+
+
 def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None):
     """Capacitors in service at the user's sites to replace within the horizon, soonest first,
-    with the newest assessment's figures; one query."""
+    with the newest assessment's figures (not the per-limit details); one query."""
     until = timezone.localdate() + dt.timedelta(days=horizon_days)
     queryset = (
         in_service_assessments(user)
         .filter(replace_by__lte=until)
+        .defer(*LIST_DEFERRED)
         .select_related("installation__motor__site", "installation__part")
         .order_by("replace_by", "installation__motor__site__code", "installation__motor__route_order")
     )
@@ -247,6 +252,8 @@ def risk_changes(days: int = 7, limit: int = 50, user=None):
     assessment's stored risk history: (worse, better, counts) with at most `limit` of each, soonest
     replacement first, and counts {"worse", "better", "first_assessed"} of all of them.
 
+    worse and better are querysets, read when used (the plan shows the riskier ones only): each
+    picks its `limit` rows from the assessments alone, then joins motors and parts for those.
     A capacitor first assessed in the window has no level to compare with: it is counted apart.
     """
     since = timezone.now() - dt.timedelta(days=days)
@@ -260,8 +267,15 @@ def risk_changes(days: int = 7, limit: int = 50, user=None):
         better=Count("id", filter=~Q(risk_was="") & Q(rank_now__gt=F("rank_was"))),
         first_assessed=Count("id", filter=Q(risk_was="")),
     )
-    listed = ranked.exclude(risk_was="").select_related("installation__motor__site", "installation__part")
-    listed = listed.order_by("replace_by", "installation_id")
-    worse = list(listed.filter(rank_now__lt=F("rank_was"))[:limit])
-    better = list(listed.filter(rank_now__gt=F("rank_was"))[:limit])
-    return worse, better, counts
+    changed = ranked.exclude(risk_was="").order_by("replace_by", "installation_id")
+
+    def listed(direction):
+        first = changed.filter(direction).values("id")[:limit]
+        return (
+            Assessment.objects.filter(id__in=Subquery(first))
+            .defer(*LIST_DEFERRED)
+            .select_related("installation__motor__site", "installation__part")
+            .order_by("replace_by", "installation_id")
+        )
+
+    return listed(Q(rank_now__lt=F("rank_was"))), listed(Q(rank_now__gt=F("rank_was"))), counts

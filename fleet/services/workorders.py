@@ -88,7 +88,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
 def issue_visit(*, site_id: int, due_on: dt.date, user=None) -> int:
     """Hand a visit's planned orders to the technicians: only at a site `user` works at (None: any)."""
     planned = scope_to_user(WorkOrder.objects.all(), user).filter(
-        motor__site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED
+        site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED
     )
     return audited_update(planned, state=WorkOrder.State.ISSUED)
 
@@ -102,9 +102,9 @@ def _spares(orders) -> dict[tuple, list[tuple[str, int]]]:
     spares: dict[tuple, list[tuple[str, int]]] = {}
     rows = (
         orders.filter(installation__isnull=False)
-        .values_list("due_on", "motor__site_id", "installation__part__code")
+        .values_list("due_on", "site_id", "installation__part__code")
         .annotate(quantity=Count("id"))
-        .order_by("due_on", "motor__site_id", "installation__part__code")
+        .order_by("due_on", "site_id", "installation__part__code")
     )
     for day, site_id, code, quantity in rows:
         spares.setdefault((day, site_id), []).append((code, quantity))
@@ -115,15 +115,15 @@ def open_visits(site_id: int, day: dt.date, user=None) -> list[dict]:
     """One visit's open orders at a site the user works at, in walking order, with its spares: the visit sheet."""
     orders = (
         _open_orders(user)
-        .filter(motor__site_id=site_id, due_on=day)
-        .select_related("motor__site", "installation__part")
-        .order_by("motor__route_order", "motor__asset_tag")
+        .filter(site_id=site_id, due_on=day)
+        .select_related("motor", "site", "installation__part")
+        .order_by("motor__route_order", "motor__asset_tag", "id")
     )
     group = list(orders)
     if not group:
         return []
     spares = _spares(orders).get((day, site_id), [])
-    return [{"day": day, "site": group[0].motor.site, "orders": group, "count": len(group), "spares": spares}]
+    return [{"day": day, "site": group[0].site, "orders": group, "count": len(group), "spares": spares}]
 
 
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
@@ -133,35 +133,33 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     window function."""
     orders = _open_orders(user)
     visits = (
-        orders.values("due_on", "motor__site_id", "motor__site__code")
-        .annotate(count=Count("id"))
-        .order_by("due_on", "motor__site__code")
+        orders.values("due_on", "site_id", "site__code").annotate(count=Count("id")).order_by("due_on", "site__code")
     )
     page = Paginator(visits, per_page).get_page(page_number)
-    keys = [(v["due_on"], v["motor__site_id"]) for v in page.object_list]
+    keys = [(v["due_on"], v["site_id"]) for v in page.object_list]
     if not keys:
         return page
-    in_page = reduce(or_, (Q(due_on=day, motor__site_id=site_id) for day, site_id in keys))
+    in_page = reduce(or_, (Q(due_on=day, site_id=site_id) for day, site_id in keys))
     position = Window(
         RowNumber(),
-        partition_by=[F("due_on"), F("motor__site_id")],
-        order_by=[F("motor__route_order").asc(), F("motor__asset_tag").asc()],
+        partition_by=[F("due_on"), F("site_id")],
+        order_by=[F("motor__route_order").asc(), F("motor__asset_tag").asc(), F("id").asc()],
     )
     listed = (
         orders.filter(in_page)
-        .select_related("motor__site", "installation__part")
+        .select_related("motor", "site", "installation__part")
         .annotate(position=position)
         .filter(position__lte=orders_shown)
-        .order_by("due_on", "motor__site__code", "position")
+        .order_by("due_on", "site__code", "position")
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
-        by_visit.setdefault((order.due_on, order.motor.site_id), []).append(order)
+        by_visit.setdefault((order.due_on, order.site_id), []).append(order)
     spares = _spares(orders.filter(in_page))
     page.object_list = [
         {
             "day": day,
-            "site": by_visit[(day, site_id)][0].motor.site,
+            "site": by_visit[(day, site_id)][0].site,
             "orders": by_visit[(day, site_id)],
             "count": visit["count"],
             "more": visit["count"] - len(by_visit[(day, site_id)]),

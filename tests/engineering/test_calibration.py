@@ -172,3 +172,33 @@ def test_the_alert_level_is_the_most_precise_that_keeps_the_recall():
     assert table[2][1:] == pytest.approx((9 / 11, 0.9))
     strict = PlanningSettings(alert_min_recall=1.01)
     assert choose_alert_level(days, none_now, crossed, followed, strict)[0] == 0.1
+
+
+def test_grid_over_the_capacitors_whose_limit_applies_equals_the_grid_over_all():
+    """[derived] Evaluating the grid only where the limit applies changes no number: where it
+    applies the quantiles equal the grid over every capacitor (blocks of any split), and where
+    it does not (NaN limit) the full grid never reaches any level either (inf)."""
+    from fleet.engineering import calibration
+
+    group, time_h, measured, temperature, _, part = _small_fleet(n=60, seed=11)
+    fit = _fit(group, time_h, measured, temperature, part)
+    rng = np.random.default_rng(4)
+    limit = np.where(rng.random(60) < 0.5, rng.uniform(0.8, 0.95, 60), np.nan)
+    terms = np.vstack(
+        [
+            rng.normal(0.3, 0.1, 60),
+            rng.uniform(0, 0.4, 60),
+            np.full(60, -1e-6),
+            np.full(60, 5e-7),
+            np.full(60, 1e-5),
+            np.zeros(60),
+        ]
+    )
+    horizon = rng.uniform(1e5, 4e5, 60)
+    levels = np.array([0.1, 0.5, 0.9, 0.05, 0.2])
+    full = calibration._grid_quantiles(calibration._take(fit, np.arange(60)), limit, terms, horizon, levels, 240)
+    subset = calibrated_crossing_quantiles(fit, limit, terms, horizon, tuple(levels))
+    applies = np.isfinite(limit)
+    assert 0 < applies.sum() < 60 and np.isfinite(full[:, applies]).any()
+    np.testing.assert_array_equal(subset, full)
+    assert np.isinf(subset[:, ~applies]).all()
