@@ -1,0 +1,155 @@
+"""Two copies of one request at the same moment: the second is answered as a replay of the
+first (or refused by name), never with a server error, and nothing is saved twice or lost.
+
+Each race is made deterministic: a barrier holds both threads just before their write, so
+both have passed every "was this done already?" check before either writes. On SQLite the
+writes then queue on the database's one write lock; on PostgreSQL the second insert waits
+on the first's unique index entry until it commits. [derived]
+"""
+
+import datetime as dt
+import threading
+from contextlib import contextmanager
+from unittest import mock
+
+import pytest
+from django.db import close_old_connections, connection
+from django.test import Client
+from django.utils import timezone
+
+from fleet.models import Assessment, Reading
+from fleet.services import readings as reading_service
+from tests.conftest import make_installation, make_user, quarterly_readings
+
+pytestmark = pytest.mark.django_db(transaction=True)
+
+# The test database on SQLite is one shared in-memory cache: a second connection meets table
+# locks that wait for nothing ("database table is locked"), which a database file in WAL mode,
+# as deployed, does not. The threaded races run on PostgreSQL (as in CI); SQLite takes every
+# write transaction in turn (BEGIN IMMEDIATE), and the interleavings it allows are forced in
+# one thread below.
+threads_race = pytest.mark.skipif(
+    connection.vendor != "postgresql",
+    reason="two connections at once: PostgreSQL (the SQLite test database is one in-memory cache)",
+)
+
+
+def in_threads(*calls, timeout_s=30.0):
+    """Run each call in its own thread with its own connection; their results or exceptions."""
+    results = [None] * len(calls)
+
+    def run(index, call):
+        try:
+            results[index] = call()
+        except BaseException as error:  # reported to the test, not swallowed
+            results[index] = error
+        finally:
+            close_old_connections()
+            connection.close()
+
+    threads = [threading.Thread(target=run, args=(i, c)) for i, c in enumerate(calls)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(timeout_s)
+    assert not any(t.is_alive() for t in threads), "a thread hung"
+    return results
+
+
+@contextmanager
+def held_before(target, name, parties):
+    """Patch `target.name` so `parties` callers all arrive before any goes on."""
+    barrier = threading.Barrier(parties, timeout=20)
+    original = getattr(target, name)
+
+    def wait_then_call(*args, **kwargs):
+        result = original(*args, **kwargs)
+        barrier.wait()
+        return result
+
+    with mock.patch.object(target, name, wait_then_call):
+        yield barrier
+
+
+@pytest.fixture
+def capacitor():
+    installation = make_installation()
+    quarterly_readings(installation, dt.datetime(2025, 1, 1, tzinfo=dt.UTC), [4.0, 3.99, 3.98])
+    return installation
+
+
+@threads_race
+def test_the_reading_form_sent_twice_at_once_saves_one_reading(capacitor):
+    user = make_user("technician")
+    form = {
+        "taken_at": timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M"),
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        "condition": "sound",
+        "client_key": "page-1",
+    }
+    before = Reading.objects.count()
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        return client.post(f"/capacitors/{capacitor.id}/reading/", form)
+
+    with held_before(reading_service, "check_reading", 2):
+        answers = in_threads(send, send)
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert Reading.objects.count() == before + 1
+
+
+@threads_race
+def test_two_readings_of_one_capacitor_at_once_leave_one_current_assessment(capacitor):
+    """Two technicians (or a phone and the API) save a reading of the same capacitor at the
+    same moment: both refits run (in-process here, two workers in production) and must
+    not both insert a current assessment (one per capacitor, a unique constraint)."""
+    from fleet.services import assessments
+
+    refit = assessments.refit_installations([capacitor.id])
+    assert refit.written == 1
+    user = make_user("technician")
+
+    def send(key, value):
+        def post():
+            client = Client()
+            client.force_login(user)
+            form = {"method": "meter", "capacitance_uf": value, "condition": "sound", "client_key": key}
+            return client.post(f"/capacitors/{capacitor.id}/reading/", form)
+
+        return post
+
+    with held_before(assessments, "_assessment_frame", 2):
+        answers = in_threads(send("page-a", "3.96"), send("page-b", "3.97"))
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    current = Assessment.objects.filter(installation=capacitor, is_current=True)
+    assert current.count() == 1
+    newest = Reading.objects.filter(installation=capacitor).order_by("-id").first()
+    assert current.get().max_reading_id == newest.id
+
+
+def test_a_refit_that_read_fewer_readings_writes_nothing_over_a_newer_one(capacitor):
+    """A refit that read the readings, then lost the race to one that read a newer reading,
+    leaves the newer assessment current (forced in one thread: the other refit runs at the
+    moment the first has computed and not yet written)."""
+    from fleet.services import assessments
+
+    original = assessments._assessment_frame
+    newer = {}
+
+    def meanwhile_a_newer_reading_is_refit(*args, **kwargs):
+        rows = original(*args, **kwargs)
+        if "reading" not in newer:
+            newer["reading"] = None  # the inner refit goes straight through
+            newer["reading"] = reading_service.record_reading(
+                installation=capacitor, values={"method": "meter", "capacitance_uf": "3.96", "condition": "sound"}
+            )
+        return rows
+
+    with mock.patch.object(assessments, "_assessment_frame", meanwhile_a_newer_reading_is_refit):
+        outcome = assessments.refit_installations([capacitor.id])
+    assert outcome.written == 0
+    current = Assessment.objects.get(installation=capacitor, is_current=True)
+    assert current.max_reading_id == newer["reading"].id
