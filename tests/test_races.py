@@ -17,7 +17,7 @@ from django.db import close_old_connections, connection
 from django.test import Client
 from django.utils import timezone
 
-from fleet.models import Assessment, Reading
+from fleet.models import Assessment, FittedCapacitor, Reading
 from fleet.services import readings as reading_service
 from tests.conftest import make_installation, make_user, quarterly_readings
 
@@ -153,3 +153,57 @@ def test_a_refit_that_read_fewer_readings_writes_nothing_over_a_newer_one(capaci
     assert outcome.written == 0
     current = Assessment.objects.get(installation=capacitor, is_current=True)
     assert current.max_reading_id == newer["reading"].id
+
+
+def replacement_form(installation, serial="X1"):
+    return {
+        "part": installation.part_id,
+        "removed_on": timezone.localdate().isoformat(),
+        "removal_reason": "failed",
+        "serial": serial,
+    }
+
+
+def stock_of(installation, quantity):
+    from fleet.models import SiteStock
+
+    return SiteStock.objects.create(site=installation.motor.site, part=installation.part, quantity=quantity)
+
+
+def test_the_replacement_form_sent_again_is_answered_as_already_recorded(capacitor):
+    """A double tap on "Replace", or the page sent again after a lost answer: one successor, one
+    part out of stock, and the technician is sent on to the new capacitor's reading form."""
+    stock = stock_of(capacitor, 3)
+    client = Client()
+    client.force_login(make_user("technician"))
+    url = f"/capacitors/{capacitor.id}/replace/"
+    first = client.post(url, replacement_form(capacitor))
+    again = client.post(url, replacement_form(capacitor), follow=True)
+    successor = FittedCapacitor.objects.get(motor=capacitor.motor, removed_on__isnull=True)
+    assert first["Location"].endswith(f"/capacitors/{successor.id}/reading/")
+    assert again.redirect_chain[-1][0].endswith(f"/capacitors/{successor.id}/reading/")
+    assert "already recorded (sent twice)" in again.content.decode()
+    stock.refresh_from_db()
+    assert stock.quantity == 2
+    other = client.post(url, replacement_form(capacitor, serial="X2"))
+    assert other.status_code == 200 and "already removed on" in other.content.decode()
+    assert FittedCapacitor.objects.filter(motor=capacitor.motor).count() == 2
+
+
+@threads_race
+def test_the_replacement_form_sent_twice_at_once_fits_one_successor(capacitor):
+    stock = stock_of(capacitor, 3)
+    user = make_user("technician")
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        return client.post(f"/capacitors/{capacitor.id}/replace/", replacement_form(capacitor))
+
+    with held_before(reading_service, "design_part", 2):
+        answers = in_threads(send, send)
+    successor = FittedCapacitor.objects.get(motor=capacitor.motor, removed_on__isnull=True)
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert {a["Location"] for a in answers} == {f"/capacitors/{successor.id}/reading/"}
+    stock.refresh_from_db()
+    assert stock.quantity == 2
