@@ -207,3 +207,26 @@ def test_the_replacement_form_sent_twice_at_once_fits_one_successor(capacitor):
     assert {a["Location"] for a in answers} == {f"/capacitors/{successor.id}/reading/"}
     stock.refresh_from_db()
     assert stock.quantity == 2
+
+
+@threads_race
+def test_an_api_post_sent_twice_at_once_with_one_idempotency_key_saves_one_reading(capacitor):
+    user = make_user("technician")
+    before = Reading.objects.count()
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        body = {"method": "meter", "capacitance_uf": 3.95, "condition": "sound"}
+        return client.post(
+            f"/api/capacitors/{capacitor.id}/readings/",
+            body,
+            content_type="application/json",
+            HTTP_IDEMPOTENCY_KEY="k-1",
+        )
+
+    with held_before(reading_service, "check_reading", 2):
+        answers = in_threads(send, send)
+    assert sorted(getattr(a, "status_code", a) for a in answers) == [200, 201]
+    assert len({a.json()["id"] for a in answers}) == 1
+    assert Reading.objects.count() == before + 1
