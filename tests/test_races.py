@@ -57,14 +57,20 @@ def in_threads(*calls, timeout_s=30.0):
 
 
 @contextmanager
-def held_before(target, name, parties):
-    """Patch `target.name` so `parties` callers all arrive before any goes on."""
-    barrier = threading.Barrier(parties, timeout=20)
+def held_before(target, name, parties, *, give_up_after_s=None):
+    """Patch `target.name` so `parties` callers all arrive before any goes on. With
+    `give_up_after_s`, a caller waits that long at most and goes on: for a point that is
+    outside a lock before a fix and inside it after (the others wait on the lock)."""
+    barrier = threading.Barrier(parties, timeout=give_up_after_s or 20)
     original = getattr(target, name)
 
     def wait_then_call(*args, **kwargs):
         result = original(*args, **kwargs)
-        barrier.wait()
+        try:
+            barrier.wait()
+        except threading.BrokenBarrierError:
+            if give_up_after_s is None:
+                raise
         return result
 
     with mock.patch.object(target, name, wait_then_call):
@@ -230,3 +236,64 @@ def test_an_api_post_sent_twice_at_once_with_one_idempotency_key_saves_one_readi
     assert sorted(getattr(a, "status_code", a) for a in answers) == [200, 201]
     assert len({a.json()["id"] for a in answers}) == 1
     assert Reading.objects.count() == before + 1
+
+
+def stock_edit(user, site, part, quantity):
+    def post():
+        client = Client()
+        client.force_login(user)
+        return client.post(f"/sites/{site.code}/stock/", {f"qty-{part.id}": str(quantity)})
+
+    return post
+
+
+@threads_race
+def test_the_first_stock_of_a_part_set_twice_at_once_keeps_one_row(capacitor):
+    from fleet.models import SiteStock
+    from fleet.services import register
+
+    site, part = capacitor.motor.site, capacitor.part
+    planner = make_user("planner")
+    with held_before(register.CapacitorPart.objects, "in_bulk", 2):
+        answers = in_threads(stock_edit(planner, site, part, 4), stock_edit(planner, site, part, 5))
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert SiteStock.objects.get(site=site, part=part).quantity in {4, 5}
+
+
+def test_a_stock_form_naming_a_part_number_beyond_any_id_is_refused_by_name(capacitor):
+    client = Client()
+    client.force_login(make_user("planner"))
+    answer = client.post(f"/sites/{capacitor.motor.site.code}/stock/", {"qty-99999999999999999999": "3"})
+    assert answer.status_code == 200
+    assert "is not in the catalogue" in answer.content.decode()
+
+
+@threads_race
+def test_the_work_order_plan_run_twice_at_once_creates_each_order_once(capacitor):
+    """Two planners press "Plan" together: one open order per capacitor, both answered."""
+    from fleet.models import WorkOrder
+    from fleet.services import assessments, workorders
+
+    quarterly_readings(capacitor, dt.datetime(2025, 10, 1, tzinfo=dt.UTC), [3.5, 3.3])  # well past its limit
+    assessments.refit_installations([capacitor.id])
+    planner = make_user("planner")
+
+    def plan():
+        client = Client()
+        client.force_login(planner)
+        return client.post("/work-orders/", {"action": "plan", "days": "365"})
+
+    with held_before(workorders, "bundle_visits", 2, give_up_after_s=3):
+        answers = in_threads(plan, plan)
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert WorkOrder.objects.filter(installation=capacitor).count() == 1
+
+
+def test_a_visit_issued_with_a_site_number_beyond_any_id_is_answered_not_found(capacitor):
+    client = Client()
+    client.force_login(make_user("planner"))
+    answer = client.post(
+        "/work-orders/", {"action": "issue", "day": "2026-01-05", "site": "99999999999999999999"}, follow=True
+    )
+    assert answer.status_code == 200
+    assert "no planned work orders" in answer.content.decode()

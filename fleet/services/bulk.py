@@ -81,6 +81,15 @@ def _plain(value):
     return value
 
 
+ROW_ID_MAX = 2**63 - 1  # the largest id a row can have (a signed 64-bit column)
+
+
+def storable_ids(ids) -> list[int]:
+    """The ids that could be a row's: a number from a form beyond them is no row (SQLite cannot
+    even compare one, and stops the query with an overflow)."""
+    return [int(i) for i in ids if 0 < int(i) <= ROW_ID_MAX]
+
+
 def id_in(ids):
     """A value for an `__in` lookup that is one array parameter on PostgreSQL (Django prepares
     a list id by id, which costs more than the query for a chunk of thousands)."""
