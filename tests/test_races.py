@@ -297,3 +297,39 @@ def test_a_visit_issued_with_a_site_number_beyond_any_id_is_answered_not_found(c
     )
     assert answer.status_code == 200
     assert "no planned work orders" in answer.content.decode()
+
+
+def test_the_import_button_pressed_twice_at_once_imports_once_and_keeps_the_count():
+    """Both presses read the job as checked; the one that comes second must not queue a second
+    run (which would find every row a duplicate and record "0 imported" over the first's count).
+    Forced in one thread: the other press is answered whole between this one's read and its queueing."""
+    from fleet import views
+    from fleet.models import ImportJob
+    from fleet.services.import_jobs import check_job, create_job
+    from tests.test_imports import csv_of, fleet_of, good_rows
+
+    fleet_of(2)
+    technician = make_user("technician")
+    job = check_job(
+        create_job(
+            kind="readings", filename="q.csv", content=csv_of(good_rows(["IMP-0000", "IMP-0001"], 2)), user=technician
+        ).id
+    )
+    assert job.state == ImportJob.State.CHECKED and job.good_rows == 4
+    client = Client()
+    client.force_login(technician)
+    url = f"/imports/{job.id}/"
+    original, other = views.queue_import, []
+
+    def the_other_press_first(*args, **kwargs):
+        if not other:
+            other.append(None)  # the other press goes straight through
+            other[0] = client.post(url, {"action": "all"})
+        return original(*args, **kwargs)
+
+    with mock.patch.object(views, "queue_import", the_other_press_first):
+        answer = client.post(url, {"action": "all"})
+    assert answer.status_code == 302 and other[0].status_code == 302
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.DONE and job.imported_rows == 4
+    assert Reading.objects.count() == 4
