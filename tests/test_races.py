@@ -333,3 +333,27 @@ def test_the_import_button_pressed_twice_at_once_imports_once_and_keeps_the_coun
     job.refresh_from_db()
     assert job.state == ImportJob.State.DONE and job.imported_rows == 4
     assert Reading.objects.count() == 4
+
+
+def test_the_other_copy_saved_between_the_check_and_the_insert_is_answered_as_the_replay(capacitor):
+    """The reading form's race forced in one thread (both databases): the other copy of the page
+    is saved after this one looked for its key and before it inserts; the unique key's clash is
+    answered as that copy's replay, not a 500."""
+    user = make_user("technician")
+    values = {"method": "meter", "capacitance_uf": "3.95", "condition": "sound"}
+    original, other = reading_service.check_reading, []
+
+    def the_other_copy_first(*args, **kwargs):
+        if not other:
+            other.append(None)  # the other copy goes straight through
+            other[0] = reading_service.record_reading(
+                installation=capacitor, values=dict(values), user=user, client_key="page-1"
+            )
+        return original(*args, **kwargs)
+
+    with mock.patch.object(reading_service, "check_reading", the_other_copy_first):
+        reading = reading_service.record_reading(
+            installation=capacitor, values=dict(values), user=user, client_key="page-1"
+        )
+    assert reading.replayed and reading.pk == other[0].pk and not other[0].replayed
+    assert Reading.objects.filter(installation=capacitor).count() == 4
