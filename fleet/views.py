@@ -240,8 +240,14 @@ def replace(request, installation_id):
         except ValidationError as error:
             _add_errors(form, error)
         else:
-            messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
-            _stock_message(request, successor)
+            if successor.replayed:
+                messages.success(
+                    request,
+                    "This replacement was already recorded (sent twice). Log the new capacitor's first reading now.",
+                )
+            else:
+                messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
+                _stock_message(request, successor)
             return redirect("reading_new", installation_id=successor.id)
     advice = substitutes_for(installation)
     choosable = set(form.fields["part"].queryset.values_list("id", flat=True))

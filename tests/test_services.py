@@ -213,9 +213,13 @@ def test_replacement_closes_open_orders_and_starts_a_new_history(fan_installatio
     assert fan_installation.removal_reason == "failed"
     assert successor.removed_on is None and successor.fitted_on == timezone.localdate()
     assert order.state == WorkOrder.State.DONE and order.closed_by == technician
+    again = replace_capacitor(
+        installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed"
+    )
+    assert again.replayed and again.pk == successor.pk  # the same replacement sent twice
     with pytest.raises(ValidationError):
         replace_capacitor(
-            installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed"
+            installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="planned"
         )
 
 

@@ -632,12 +632,38 @@ def refit_installations(
     )
     rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():
-        _carry_risk_history(rows, now)
-        Assessment.objects.filter(installation_id__any_of=inst.index.to_numpy(np.int64), is_current=True).update(
-            is_current=False
+        # Two refits of one capacitor at once (two readings saved together, two workers) take
+        # turns from here: the second then sees the first's assessment, marks it superseded
+        # instead of inserting a second current one, and writes nothing older over it.
+        list(
+            FittedCapacitor.objects.select_for_update()
+            .filter(pk__any_of=inst.index.to_numpy(np.int64))
+            .order_by("pk")
+            .values("pk")
         )
+        if not as_of:
+            rows = _not_older_than_stored(rows)
+        _carry_risk_history(rows, now)
+        Assessment.objects.filter(
+            installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
+        ).update(is_current=False)
         insert_frame(Assessment, rows)
-    return RefitOutcome(written=len(rows), skipped=skipped, readings=int(len(readings)))
+    return RefitOutcome(written=len(rows), skipped=len(ids) - len(rows), readings=int(len(readings)))
+
+
+def _not_older_than_stored(rows: pd.DataFrame) -> pd.DataFrame:
+    """The new assessments less those whose capacitor's current one already covers a newer
+    reading (written meanwhile by a refit that started later)."""
+    stored = pd.Series(
+        dict(
+            Assessment.objects.filter(
+                installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
+            ).values_list("installation_id", "max_reading_id")
+        ),
+        dtype="float64",
+    )
+    newer = stored.reindex(rows["installation_id"].to_numpy()).to_numpy() > rows["max_reading_id"].to_numpy(float)
+    return rows[~newer].reset_index(drop=True)
 
 
 CURRENT_RISK_SQL = (

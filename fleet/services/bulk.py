@@ -192,6 +192,15 @@ class AnyOf(Lookup):
         return f"{lhs} = ANY(%s)", [*lhs_params, values]
 
 
+ROW_ID_MAX = 2**63 - 1  # the largest id a row can have (a signed 64-bit column)
+
+
+def storable_ids(ids) -> list[int]:
+    """The ids that could be a row's: a number from a form beyond them is no row (SQLite cannot
+    even compare one, and stops the query with an overflow)."""
+    return [int(i) for i in ids if 0 < int(i) <= ROW_ID_MAX]
+
+
 def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
     """The rows of one SELECT as a frame: COPY TO STDOUT on PostgreSQL, one fetch elsewhere.
 

@@ -202,14 +202,30 @@ def _queue(task_name: str, job_id: int, *args) -> None:
         )
 
 
-def queue_check(job: ImportJob, mapping: dict) -> None:
-    _update(job.pk, mapping=mapping, state=ImportJob.State.CHECKING, done_rows=0)
-    transaction.on_commit(lambda: _queue("check_import", job.pk))
+def queue_check(job: ImportJob, mapping: dict) -> bool:
+    """Queue a dry run unless one step of the job is under way (decided in the UPDATE itself, so
+    the button pressed twice at once queues one). Whether this call queued it."""
+    claimed = _claim(ImportJob.objects.exclude(state__in=WORKING), job, mapping=mapping, state=ImportJob.State.CHECKING)
+    if claimed:
+        transaction.on_commit(lambda: _queue("check_import", job.pk))
+    return claimed
 
 
-def queue_import(job: ImportJob, mode: str) -> None:
-    _update(job.pk, mode=mode, state=ImportJob.State.IMPORTING, done_rows=0)
-    transaction.on_commit(lambda: _queue("run_import", job.pk, mode))
+def queue_import(job: ImportJob, mode: str) -> bool:
+    """Queue the import of a checked job, once: the button pressed twice at once (or again while
+    it runs) queues one run, so the job's record is not overwritten by a run that finds every
+    row a duplicate. Whether this call queued it."""
+    claimed = _claim(
+        ImportJob.objects.filter(state=ImportJob.State.CHECKED), job, mode=mode, state=ImportJob.State.IMPORTING
+    )
+    if claimed:
+        transaction.on_commit(lambda: _queue("run_import", job.pk, mode))
+    return claimed
+
+
+def _claim(jobs, job: ImportJob, **values) -> bool:
+    """Move the job to its next step if it is among `jobs` (one conditional UPDATE)."""
+    return bool(jobs.filter(pk=job.pk).update(updated_at=timezone.now(), done_rows=0, **values))
 
 
 def _update(job_id: int, **values) -> None:

@@ -247,7 +247,8 @@ def replace_capacitor(
     (by `reason`); the new one's history starts the same day. A part other than the one coming out
     that the substitute advice does not call suitable needs `substitute_override` and a reason. The
     design is the position's (`design_part`): refitting a part that itself went on against the advice
-    is judged again, not waved through as "the same part".
+    is judged again, not waved through as "the same part". The same replacement sent again
+    (a double tap, two copies at once) returns the successor fitted the first time, `replayed`.
     """
     override_reason = (override_reason or "").strip()
     if part.pk != design_part(installation).pk:
@@ -262,8 +263,9 @@ def replace_capacitor(
             )
     if substitute_override and not override_reason:
         raise ValidationError({"override_reason": "Say why this part is fitted against the advice."})
+    sent = {"part": part, "serial": serial, "notes": notes, "removed_on": removed_on, "reason": reason}
     if installation.removed_on is not None:
-        raise ValidationError({"installation": f"This capacitor was already removed on {installation.removed_on}."})
+        return _replacement_sent_before(installation, **sent)
     if removed_on < installation.fitted_on:
         raise ValidationError({"removed_on": f"Removal date is before the fitting date {installation.fitted_on}."})
     if removed_on > timezone.localdate():
@@ -272,8 +274,8 @@ def replace_capacitor(
         raise ValidationError({"removal_reason": "Choose why the capacitor was removed."})
     with transaction.atomic():
         locked = FittedCapacitor.objects.select_for_update().get(pk=installation.pk)
-        if locked.removed_on is not None:
-            raise ValidationError({"installation": f"This capacitor was already removed on {locked.removed_on}."})
+        if locked.removed_on is not None:  # replaced meanwhile (the same form sent twice at once?)
+            return _replacement_sent_before(locked, **sent)
         locked.removed_on, locked.removal_reason = removed_on, reason
         locked.clean()
         locked.save(update_fields=["removed_on", "removal_reason"])
@@ -288,6 +290,7 @@ def replace_capacitor(
             override_reason=override_reason if substitute_override else "",
         )
         successor.stock_left, successor.from_stock = _take_from_stock(site_id=locked.motor.site_id, part=part)
+        successor.replayed = False
         audited_update(
             WorkOrder.objects.filter(installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]),
             state=WorkOrder.State.DONE,
@@ -295,6 +298,29 @@ def replace_capacitor(
             closed_by=user if user and user.is_authenticated else None,
         )
     installation.refresh_from_db()
+    return successor
+
+
+def _replacement_sent_before(
+    removed: FittedCapacitor, *, part, serial: str, notes: str, removed_on: dt.date, reason: str
+) -> FittedCapacitor:
+    """The successor fitted when this capacitor came out, if this replacement is the one recorded
+    (the same page sent twice): returned with `replayed = True`. Another replacement of a capacitor
+    already out is refused by name, so nothing typed is silently dropped."""
+    successor = (
+        FittedCapacitor.objects.filter(motor_id=removed.motor_id, role=removed.role, fitted_on=removed.removed_on)
+        .exclude(pk=removed.pk)
+        .order_by("pk")
+        .first()
+    )
+    same = (
+        successor is not None
+        and (removed.removed_on, removed.removal_reason) == (removed_on, reason)
+        and (successor.part_id, successor.serial, successor.notes) == (part.pk, serial, notes)
+    )
+    if not same:
+        raise ValidationError({"installation": f"This capacitor was already removed on {removed.removed_on}."})
+    successor.replayed, successor.stock_left, successor.from_stock = True, None, False
     return successor
 
 

@@ -8,6 +8,8 @@ from django.db import transaction
 from fleet.audit import audited_bulk_create, audited_bulk_update
 from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
+from .bulk import storable_ids
+
 
 def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
     """Set each motor's place on the site's reading route from form text.
@@ -15,7 +17,7 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
     Every position must be a whole number from 0 to 99999; one bad entry refuses
     them all, naming the motor. Returns the number of motors updated.
     """
-    motors = {m.id: m for m in Motor.objects.filter(site=site, id__in=list(positions))}
+    motors = {m.id: m for m in Motor.objects.filter(site=site, id__in=storable_ids(positions))}
     errors = {}
     for motor_id, text in positions.items():
         motor = motors.get(motor_id)
@@ -40,7 +42,7 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
 def set_site_stock(*, site: Site, quantities: dict[int, str]) -> int:
     """Set the quantity of each part (by id) held at the site from form text: a whole number from 0 to 99999;
     one bad entry refuses them all, naming the part. Returns the number of rows written."""
-    parts = CapacitorPart.objects.in_bulk(list(quantities))
+    parts = CapacitorPart.objects.in_bulk(storable_ids(quantities))
     errors, values = {}, {}
     for part_id, text in quantities.items():
         part = parts.get(part_id)
@@ -57,6 +59,9 @@ def set_site_stock(*, site: Site, quantities: dict[int, str]) -> int:
     if errors:
         raise ValidationError(errors)
     with transaction.atomic():
+        # Two stock edits of one site at once take turns (the site's row locked): the second then
+        # updates the rows the first created instead of creating them again (a unique pair).
+        list(Site.objects.select_for_update().filter(pk=site.pk).values_list("pk", flat=True))
         rows = {row.part_id: row for row in SiteStock.objects.select_for_update().filter(site=site, part__in=parts)}
         changed = [row for part_id, row in rows.items() if row.quantity != values[part_id]]
         for row in changed:

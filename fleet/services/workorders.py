@@ -18,6 +18,7 @@ from fleet.engineering.planning import bundle_visits
 from fleet.models import FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
 
+from .bulk import storable_ids
 from .pages import in_service_assessments
 
 KIND_FOR_ROLE = {
@@ -51,35 +52,41 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             "p10_on",
         )
     )
-    open_orders = {
-        (o.installation_id, o.kind): o
-        for o in WorkOrder.objects.filter(installation_id__in=[d[0] for d in due], state__in=OPEN)
-    }
-    was = {o.pk: (o.due_on, o.window_days) for o in open_orders.values()}
-    items, new_orders, replanned = [], [], []
-    for installation_id, motor_id, site_id, role, replace_by, risk, limit, p10 in due:
-        kind = KIND_FOR_ROLE[role]
-        existing = open_orders.get((installation_id, kind))
-        if existing is not None and existing.state == WorkOrder.State.ISSUED:
-            continue
-        when = max(replace_by, today)
-        order = existing or WorkOrder(
-            motor_id=motor_id,
-            installation_id=installation_id,
-            kind=kind,
-            created_by=user,
-            reason=f"{risk}: {limit} limit" + (f", early crossing {p10:%Y-%m-%d}" if p10 else ""),
-        )
-        items.append((site_id, (when - today).days, order))
-        (replanned if existing else new_orders).append(order)
-    if not items:
-        return {"created": 0, "replanned": 0, "visits": 0}
-    visit, visit_day = bundle_visits(np.array([i[0] for i in items]), np.array([i[1] for i in items]), window_days)
-    for (_, _, order), day in zip(items, visit_day, strict=True):
-        order.due_on = today + dt.timedelta(days=int(day))
-        order.window_days = window_days
-    replanned = [o for o in replanned if (o.due_on, o.window_days) != was[o.pk]]
+    due_ids = [d[0] for d in due]
     with transaction.atomic():
+        # Two plans at once take turns per capacitor (its row locked) and read the open orders
+        # after: the second re-dates the orders the first created instead of creating them
+        # again (one open order per capacitor and kind).
+        locked = FittedCapacitor.objects.select_for_update().filter(pk__any_of=np.asarray(due_ids, np.int64))
+        list(locked.order_by("pk").values_list("pk", flat=True))
+        open_orders = {
+            (o.installation_id, o.kind): o
+            for o in WorkOrder.objects.filter(installation_id__any_of=np.asarray(due_ids, np.int64), state__in=OPEN)
+        }
+        was = {o.pk: (o.due_on, o.window_days) for o in open_orders.values()}
+        items, new_orders, replanned = [], [], []
+        for installation_id, motor_id, site_id, role, replace_by, risk, limit, p10 in due:
+            kind = KIND_FOR_ROLE[role]
+            existing = open_orders.get((installation_id, kind))
+            if existing is not None and existing.state == WorkOrder.State.ISSUED:
+                continue
+            when = max(replace_by, today)
+            order = existing or WorkOrder(
+                motor_id=motor_id,
+                installation_id=installation_id,
+                kind=kind,
+                created_by=user,
+                reason=f"{risk}: {limit} limit" + (f", early crossing {p10:%Y-%m-%d}" if p10 else ""),
+            )
+            items.append((site_id, (when - today).days, order))
+            (replanned if existing else new_orders).append(order)
+        if not items:
+            return {"created": 0, "replanned": 0, "visits": 0}
+        visit, visit_day = bundle_visits(np.array([i[0] for i in items]), np.array([i[1] for i in items]), window_days)
+        for (_, _, order), day in zip(items, visit_day, strict=True):
+            order.due_on = today + dt.timedelta(days=int(day))
+            order.window_days = window_days
+        replanned = [o for o in replanned if (o.due_on, o.window_days) != was[o.pk]]
         audited_bulk_create(new_orders)
         audited_bulk_update(replanned, ["due_on", "window_days"])
     return {"created": len(new_orders), "replanned": len(replanned), "visits": len(set(visit.tolist()))}
@@ -88,7 +95,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
 def issue_visit(*, site_id: int, due_on: dt.date, user=None) -> int:
     """Hand a visit's planned orders to the technicians: only at a site `user` works at (None: any)."""
     planned = scope_to_user(WorkOrder.objects.all(), user).filter(
-        site_id=site_id, due_on=due_on, state=WorkOrder.State.PLANNED
+        site_id__in=storable_ids([site_id]), due_on=due_on, state=WorkOrder.State.PLANNED
     )
     return audited_update(planned, state=WorkOrder.State.ISSUED)
 

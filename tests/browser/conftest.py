@@ -2,12 +2,37 @@
 
 import os
 import shutil
+import threading
 from pathlib import Path
 
 import pytest
+from django.core.servers.basehttp import ThreadedWSGIServer
+from django.db import connection
+from django.test.testcases import LiveServerThread
 
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+class OneRequestAtATimeOnSQLite(ThreadedWSGIServer):
+    """The live server, answering one request at a time on SQLite. Its test database is one
+    in-memory cache shared by the request threads' connections, whose table locks fail at once
+    ("database table is locked", a 503) instead of waiting as a deployment's database file in
+    WAL mode does. On PostgreSQL requests overlap, as deployed."""
+
+    def set_app(self, application):
+        turn = threading.Lock()
+
+        def one_at_a_time_on_sqlite(environ, start_response):
+            if connection.vendor != "sqlite":
+                return application(environ, start_response)
+            with turn:
+                return application(environ, start_response)
+
+        return super().set_app(one_at_a_time_on_sqlite)
+
+
+LiveServerThread.server_class = OneRequestAtATimeOnSQLite
 
 
 @pytest.fixture(scope="session")

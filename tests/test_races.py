@@ -1,0 +1,359 @@
+"""Two copies of one request at the same moment: the second is answered as a replay of the
+first (or refused by name), never with a server error, and nothing is saved twice or lost.
+
+Each race is made deterministic: a barrier holds both threads just before their write, so
+both have passed every "was this done already?" check before either writes. On SQLite the
+writes then queue on the database's one write lock; on PostgreSQL the second insert waits
+on the first's unique index entry until it commits. [derived]
+"""
+
+import datetime as dt
+import threading
+from contextlib import contextmanager
+from unittest import mock
+
+import pytest
+from django.db import close_old_connections, connection
+from django.test import Client
+from django.utils import timezone
+
+from fleet.models import Assessment, FittedCapacitor, Reading
+from fleet.services import readings as reading_service
+from tests.conftest import make_installation, make_user, quarterly_readings
+
+pytestmark = pytest.mark.django_db(transaction=True)
+
+# The test database on SQLite is one shared in-memory cache: a second connection meets table
+# locks that wait for nothing ("database table is locked"), which a database file in WAL mode,
+# as deployed, does not. The threaded races run on PostgreSQL (as in CI); SQLite takes every
+# write transaction in turn (BEGIN IMMEDIATE), and the interleavings it allows are forced in
+# one thread below.
+threads_race = pytest.mark.skipif(
+    connection.vendor != "postgresql",
+    reason="two connections at once: PostgreSQL (the SQLite test database is one in-memory cache)",
+)
+
+
+def in_threads(*calls, timeout_s=30.0):
+    """Run each call in its own thread with its own connection; their results or exceptions."""
+    results = [None] * len(calls)
+
+    def run(index, call):
+        try:
+            results[index] = call()
+        except Exception as error:  # noqa: BLE001 - returned to the test, which asserts on it
+            results[index] = error
+        finally:
+            close_old_connections()
+            connection.close()
+
+    threads = [threading.Thread(target=run, args=(i, c)) for i, c in enumerate(calls)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(timeout_s)
+    assert not any(t.is_alive() for t in threads), "a thread hung"
+    return results
+
+
+@contextmanager
+def held_before(target, name, parties, *, give_up_after_s=None):
+    """Patch `target.name` so `parties` callers all arrive before any goes on. With
+    `give_up_after_s`, a caller waits that long at most and goes on: for a point that is
+    outside a lock before a fix and inside it after (the others wait on the lock)."""
+    barrier = threading.Barrier(parties, timeout=give_up_after_s or 20)
+    original = getattr(target, name)
+
+    def wait_then_call(*args, **kwargs):
+        result = original(*args, **kwargs)
+        try:
+            barrier.wait()
+        except threading.BrokenBarrierError:
+            if give_up_after_s is None:
+                raise
+        return result
+
+    with mock.patch.object(target, name, wait_then_call):
+        yield barrier
+
+
+@pytest.fixture
+def capacitor():
+    installation = make_installation()
+    quarterly_readings(installation, dt.datetime(2025, 1, 1, tzinfo=dt.UTC), [4.0, 3.99, 3.98])
+    return installation
+
+
+@threads_race
+def test_the_reading_form_sent_twice_at_once_saves_one_reading(capacitor):
+    user = make_user("technician")
+    form = {
+        "taken_at": timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M"),
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        "condition": "sound",
+        "client_key": "page-1",
+    }
+    before = Reading.objects.count()
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        return client.post(f"/capacitors/{capacitor.id}/reading/", form)
+
+    with held_before(reading_service, "check_reading", 2):
+        answers = in_threads(send, send)
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert Reading.objects.count() == before + 1
+
+
+@threads_race
+def test_two_readings_of_one_capacitor_at_once_leave_one_current_assessment(capacitor):
+    """Two technicians (or a phone and the API) save a reading of the same capacitor at the
+    same moment: both refits run (in-process here, two workers in production) and must
+    not both insert a current assessment (one per capacitor, a unique constraint)."""
+    from fleet.services import assessments
+
+    refit = assessments.refit_installations([capacitor.id])
+    assert refit.written == 1
+    user = make_user("technician")
+
+    def send(key, value):
+        def post():
+            client = Client()
+            client.force_login(user)
+            form = {"method": "meter", "capacitance_uf": value, "condition": "sound", "client_key": key}
+            return client.post(f"/capacitors/{capacitor.id}/reading/", form)
+
+        return post
+
+    with held_before(assessments, "_assessment_frame", 2):
+        answers = in_threads(send("page-a", "3.96"), send("page-b", "3.97"))
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    current = Assessment.objects.filter(installation=capacitor, is_current=True)
+    assert current.count() == 1
+    newest = Reading.objects.filter(installation=capacitor).order_by("-id").first()
+    assert current.get().max_reading_id == newest.id
+
+
+def test_a_refit_that_read_fewer_readings_writes_nothing_over_a_newer_one(capacitor):
+    """A refit that read the readings, then lost the race to one that read a newer reading,
+    leaves the newer assessment current (forced in one thread: the other refit runs at the
+    moment the first has computed and not yet written)."""
+    from fleet.services import assessments
+
+    original = assessments._assessment_frame
+    newer = {}
+
+    def meanwhile_a_newer_reading_is_refit(*args, **kwargs):
+        rows = original(*args, **kwargs)
+        if "reading" not in newer:
+            newer["reading"] = None  # the inner refit goes straight through
+            newer["reading"] = reading_service.record_reading(
+                installation=capacitor, values={"method": "meter", "capacitance_uf": "3.96", "condition": "sound"}
+            )
+        return rows
+
+    with mock.patch.object(assessments, "_assessment_frame", meanwhile_a_newer_reading_is_refit):
+        outcome = assessments.refit_installations([capacitor.id])
+    assert outcome.written == 0
+    current = Assessment.objects.get(installation=capacitor, is_current=True)
+    assert current.max_reading_id == newer["reading"].id
+
+
+def replacement_form(installation, serial="X1"):
+    return {
+        "part": installation.part_id,
+        "removed_on": timezone.localdate().isoformat(),
+        "removal_reason": "failed",
+        "serial": serial,
+    }
+
+
+def stock_of(installation, quantity):
+    from fleet.models import SiteStock
+
+    return SiteStock.objects.create(site=installation.motor.site, part=installation.part, quantity=quantity)
+
+
+def test_the_replacement_form_sent_again_is_answered_as_already_recorded(capacitor):
+    """A double tap on "Replace", or the page sent again after a lost answer: one successor, one
+    part out of stock, and the technician is sent on to the new capacitor's reading form."""
+    stock = stock_of(capacitor, 3)
+    client = Client()
+    client.force_login(make_user("technician"))
+    url = f"/capacitors/{capacitor.id}/replace/"
+    first = client.post(url, replacement_form(capacitor))
+    again = client.post(url, replacement_form(capacitor), follow=True)
+    successor = FittedCapacitor.objects.get(motor=capacitor.motor, removed_on__isnull=True)
+    assert first["Location"].endswith(f"/capacitors/{successor.id}/reading/")
+    assert again.redirect_chain[-1][0].endswith(f"/capacitors/{successor.id}/reading/")
+    assert "already recorded (sent twice)" in again.content.decode()
+    stock.refresh_from_db()
+    assert stock.quantity == 2
+    other = client.post(url, replacement_form(capacitor, serial="X2"))
+    assert other.status_code == 200 and "already removed on" in other.content.decode()
+    assert FittedCapacitor.objects.filter(motor=capacitor.motor).count() == 2
+
+
+@threads_race
+def test_the_replacement_form_sent_twice_at_once_fits_one_successor(capacitor):
+    stock = stock_of(capacitor, 3)
+    user = make_user("technician")
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        return client.post(f"/capacitors/{capacitor.id}/replace/", replacement_form(capacitor))
+
+    with held_before(reading_service, "design_part", 2):
+        answers = in_threads(send, send)
+    successor = FittedCapacitor.objects.get(motor=capacitor.motor, removed_on__isnull=True)
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert {a["Location"] for a in answers} == {f"/capacitors/{successor.id}/reading/"}
+    stock.refresh_from_db()
+    assert stock.quantity == 2
+
+
+@threads_race
+def test_an_api_post_sent_twice_at_once_with_one_idempotency_key_saves_one_reading(capacitor):
+    user = make_user("technician")
+    before = Reading.objects.count()
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        body = {"method": "meter", "capacitance_uf": 3.95, "condition": "sound"}
+        return client.post(
+            f"/api/capacitors/{capacitor.id}/readings/",
+            body,
+            content_type="application/json",
+            HTTP_IDEMPOTENCY_KEY="k-1",
+        )
+
+    with held_before(reading_service, "check_reading", 2):
+        answers = in_threads(send, send)
+    assert sorted(getattr(a, "status_code", a) for a in answers) == [200, 201]
+    assert len({a.json()["id"] for a in answers}) == 1
+    assert Reading.objects.count() == before + 1
+
+
+def stock_edit(user, site, part, quantity):
+    def post():
+        client = Client()
+        client.force_login(user)
+        return client.post(f"/sites/{site.code}/stock/", {f"qty-{part.id}": str(quantity)})
+
+    return post
+
+
+@threads_race
+def test_the_first_stock_of_a_part_set_twice_at_once_keeps_one_row(capacitor):
+    from fleet.models import SiteStock
+    from fleet.services import register
+
+    site, part = capacitor.motor.site, capacitor.part
+    planner = make_user("planner")
+    with held_before(register.CapacitorPart.objects, "in_bulk", 2):
+        answers = in_threads(stock_edit(planner, site, part, 4), stock_edit(planner, site, part, 5))
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert SiteStock.objects.get(site=site, part=part).quantity in {4, 5}
+
+
+def test_a_stock_form_naming_a_part_number_beyond_any_id_is_refused_by_name(capacitor):
+    client = Client()
+    client.force_login(make_user("planner"))
+    answer = client.post(f"/sites/{capacitor.motor.site.code}/stock/", {"qty-99999999999999999999": "3"})
+    assert answer.status_code == 200
+    assert "is not in the catalogue" in answer.content.decode()
+
+
+@threads_race
+def test_the_work_order_plan_run_twice_at_once_creates_each_order_once(capacitor):
+    """Two planners press "Plan" together: one open order per capacitor, both answered."""
+    from fleet.models import WorkOrder
+    from fleet.services import assessments, workorders
+
+    quarterly_readings(capacitor, dt.datetime(2025, 10, 1, tzinfo=dt.UTC), [3.5, 3.3])  # well past its limit
+    assessments.refit_installations([capacitor.id])
+    planner = make_user("planner")
+
+    def plan():
+        client = Client()
+        client.force_login(planner)
+        return client.post("/work-orders/", {"action": "plan", "days": "365"})
+
+    with held_before(workorders, "bundle_visits", 2, give_up_after_s=3):
+        answers = in_threads(plan, plan)
+    assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
+    assert WorkOrder.objects.filter(installation=capacitor).count() == 1
+
+
+def test_a_visit_issued_with_a_site_number_beyond_any_id_is_answered_not_found(capacitor):
+    client = Client()
+    client.force_login(make_user("planner"))
+    answer = client.post(
+        "/work-orders/", {"action": "issue", "day": "2026-01-05", "site": "99999999999999999999"}, follow=True
+    )
+    assert answer.status_code == 200
+    assert "no planned work orders" in answer.content.decode()
+
+
+def test_the_import_button_pressed_twice_at_once_imports_once_and_keeps_the_count():
+    """Both presses read the job as checked; the one that comes second must not queue a second
+    run (which would find every row a duplicate and record "0 imported" over the first's count).
+    Forced in one thread: the other press is answered whole between this one's read and its queueing."""
+    from fleet import views
+    from fleet.models import ImportJob
+    from fleet.services.import_jobs import check_job, create_job
+    from tests.test_imports import csv_of, fleet_of, good_rows
+
+    fleet_of(2)
+    technician = make_user("technician")
+    job = check_job(
+        create_job(
+            kind="readings", filename="q.csv", content=csv_of(good_rows(["IMP-0000", "IMP-0001"], 2)), user=technician
+        ).id
+    )
+    assert job.state == ImportJob.State.CHECKED and job.good_rows == 4
+    client = Client()
+    client.force_login(technician)
+    url = f"/imports/{job.id}/"
+    original, other = views.queue_import, []
+
+    def the_other_press_first(*args, **kwargs):
+        if not other:
+            other.append(None)  # the other press goes straight through
+            other[0] = client.post(url, {"action": "all"})
+        return original(*args, **kwargs)
+
+    with mock.patch.object(views, "queue_import", the_other_press_first):
+        answer = client.post(url, {"action": "all"})
+    assert answer.status_code == 302 and other[0].status_code == 302
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.DONE and job.imported_rows == 4
+    assert Reading.objects.count() == 4
+
+
+def test_the_other_copy_saved_between_the_check_and_the_insert_is_answered_as_the_replay(capacitor):
+    """The reading form's race forced in one thread (both databases): the other copy of the page
+    is saved after this one looked for its key and before it inserts; the unique key's clash is
+    answered as that copy's replay, not a 500."""
+    user = make_user("technician")
+    values = {"method": "meter", "capacitance_uf": "3.95", "condition": "sound"}
+    original, other = reading_service.check_reading, []
+
+    def the_other_copy_first(*args, **kwargs):
+        if not other:
+            other.append(None)  # the other copy goes straight through
+            other[0] = reading_service.record_reading(
+                installation=capacitor, values=dict(values), user=user, client_key="page-1"
+            )
+        return original(*args, **kwargs)
+
+    with mock.patch.object(reading_service, "check_reading", the_other_copy_first):
+        reading = reading_service.record_reading(
+            installation=capacitor, values=dict(values), user=user, client_key="page-1"
+        )
+    assert reading.replayed and reading.pk == other[0].pk and not other[0].replayed
+    assert Reading.objects.filter(installation=capacitor).count() == 4
