@@ -214,6 +214,7 @@ SERIES_COLOURS = ("#0b5c8a", "#c2410c", "#4d7c0f", "#7e22ce", "#0f766e", "#a1620
 DASHBOARD_HEIGHT_PX = 360
 WORKLOAD_HEIGHT_PX = 400
 SPARES_HEIGHT_PX = 460  # room for one legend line per part on a phone
+SPARES_COST_TITLE = "cost (unit of the parts' prices)"  # prices are entered without a currency
 
 
 def _switch(labels: list[str], groups: list[int]) -> list[dict]:
@@ -312,9 +313,18 @@ def spares_figure(months: list[str], parts: list[dict], cost_per_month: list[flo
     )
     figure.update_layout(
         barmode="stack",
-        yaxis2={"overlaying": "y", "side": "right", "rangemode": "tozero", "showgrid": False, "title": "cost"},
+        yaxis2={
+            "overlaying": "y",
+            "side": "right",
+            "rangemode": "tozero",
+            "showgrid": False,
+            "title": SPARES_COST_TITLE,
+            "tickmode": "linear",
+            "tick0": 0,
+            "dtick": _whole_step(max(cost_per_month, default=0)),
+        },
     )
-    figure.update_xaxes(type="date", tickformat="%b %y", dtick="M2")
+    figure.update_xaxes(type="date", tickformat="%b %Y", dtick="M2")
     styled = _styled(figure, height=SPARES_HEIGHT_PX, yaxis_title="capacitors")
     styled["layout"]["margin"].update(r=60)
     return styled
@@ -481,7 +491,7 @@ def phasor_figure(states: dict[str, dict[str, tuple]], unit: str, where: str) ->
 SWEEP_PANELS = (  # (value key, axis title, what the limit's level is), top to bottom
     ("starting_torque_nm", "starting torque (N m)", "least: load break-away"),
     ("capacitor_voltage_v", "capacitor voltage (V)", "most: capacitor rating"),
-    ("main_current_a", "main current, running (A)", "most: full-load current x service factor"),
+    ("main_current_a", "main current, running (A)", "most: full-load current \u00d7 service factor"),
 )
 
 

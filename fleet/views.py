@@ -111,17 +111,22 @@ def _installation(request, installation_id) -> FittedCapacitor:
     return get_object_or_404(capacitors, pk=installation_id)
 
 
+def _successor(installation) -> FittedCapacitor | None:
+    """The capacitor fitted now in a removed capacitor's position (None while it is in service)."""
+    if not installation.removed_on:
+        return None
+    return (
+        FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
+        .only("id", "fitted_on")
+        .first()
+    )
+
+
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)
 def capacitor_detail(request, installation_id):
     installation = _installation(request, installation_id)
     assessment = installation.assessments.filter(is_current=True).first()
-    successor = (
-        FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
-        .only("id", "fitted_on")
-        .first()
-        if installation.removed_on
-        else None
-    )
+    successor = _successor(installation)
     context = {
         "successor": successor,
         "installation": installation,
@@ -177,13 +182,7 @@ def reading_new(request, installation_id):
     if correcting and not form.is_bound:  # a correction is taken when the reading it corrects was
         form.initial["taken_at"] = timezone.localtime(correcting.taken_at, form.zone).strftime(LOCAL_MINUTE)
     assessment = installation.assessments.filter(is_current=True).first()
-    successor = (
-        FittedCapacitor.objects.filter(motor_id=installation.motor_id, role=installation.role, removed_on__isnull=True)
-        .only("id", "fitted_on")
-        .first()
-        if installation.removed_on
-        else None
-    )
+    successor = _successor(installation)
     context = {
         "successor": successor,
         "installation": installation,
@@ -222,6 +221,9 @@ def _stock_message(request, successor) -> None:
 @permission_required("fleet.add_fittedcapacitor", raise_exception=True)
 def replace(request, installation_id):
     installation = _installation(request, installation_id)
+    if installation.removed_on and request.method != "POST":  # a POST is refused by the service, with the form
+        context = {"installation": installation, "motor": installation.motor, "successor": _successor(installation)}
+        return render(request, "fleet/replace.html", context)
     design = design_part(installation)
     form = ReplacementForm(request.POST or None, installation=installation, design=design)
     if request.method == "POST" and form.is_valid():
@@ -319,7 +321,7 @@ def labels(request, site_code):
         motors = motors.filter(asset_tag=tag)
     page = Paginator(motors, LABELS_PAGE_SIZE).get_page(request.GET.get("page"))
     labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
-    return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page})
+    return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page, "tag": tag})
 
 
 EXPORT_TYPES = {

@@ -64,6 +64,16 @@ def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_inst
     )
 
 
+def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why(technician, fan_installation):
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    client = client_for(technician)
+    missing = client.post(url, {"capacitance_uf": 3.9}, format="json")
+    assert missing.status_code == 400 and "method" in missing.json()
+    malformed = client.post(url, '{"method": "meter", "capacitance_uf": 3.9,', content_type="application/json")
+    assert malformed.status_code == 400 and "JSON parse error" in malformed.json()["detail"]
+    assert not Reading.objects.exists()
+
+
 def test_a_planner_cannot_post_readings(planner, fan_installation):
     url = reverse("api_capacitor_readings", args=[fan_installation.id])
     assert client_for(planner).post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json").status_code == 403

@@ -11,6 +11,7 @@ from django.urls import reverse
 from django.utils import timezone
 from scipy import stats
 
+from fleet.charts import spares_figure
 from fleet.models import Assessment, DigestEntry, PartLifeFit, SiteMembership, SiteStock, WorkOrder
 from fleet.roles import PLANNER, TECHNICIAN
 from fleet.services.alerts import send_daily_digest
@@ -135,6 +136,18 @@ def test_spares_add_the_plan_and_the_failures_expected_from_life_data_against_st
     cumulative = np.ceil(np.cumsum(row["need"]) - 1e-9)
     assert row["short_from"] == spares["months"][int(np.flatnonzero(cumulative > 1)[0])]
     assert unplanned.removed_on is None
+
+
+def test_the_spares_chart_names_months_with_their_year_and_steps_the_cost_in_round_numbers():
+    months = [dt.date(2026, 12, 1).isoformat()] + [dt.date(2027, m, 1).isoformat() for m in range(1, 12)]
+    parts = [{"code": "P1", "need": [1.0] * 12, "planned": [1] * 12, "failures": [0.0] * 12}]
+    figure = spares_figure(months, parts, [926.4, 231.6, 463.2] + [0.0] * 9)
+    layout = figure["layout"]
+    assert layout["xaxis"]["tickformat"] == "%b %Y"  # "Jan 2027", never "Jan 27" (read as a day)
+    cost_axis = layout["yaxis2"]
+    # [derived] about five ticks up to 926: a step of 1, 2 or 5 times a power of ten, from zero
+    assert (cost_axis["tickmode"], cost_axis["tick0"], cost_axis["dtick"]) == ("linear", 0, 200)
+    assert "parts' prices" in cost_axis["title"]["text"]  # no currency is known: the unit prices are entered in
 
 
 def test_risk_mix_and_readings_by_route():

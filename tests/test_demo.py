@@ -17,6 +17,7 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     first = (Motor.objects.count(), FittedCapacitor.objects.count(), Reading.objects.count())
     out = capsys.readouterr().out
     assert "Built the demo fleet" in out and "tech" in out and "planner" in out
+    assert f"{first[2]} readings" in out  # the count printed is the count stored
     assert first[0] > 5 and first[2] > 50
     assert Assessment.objects.filter(is_current=True).exists()
     assert (

@@ -112,6 +112,34 @@ def test_replacement_from_the_form_fits_the_successor(signed_in, technician, fan
     assert successor.serial == "X1" and response["Location"].endswith(f"/capacitors/{successor.id}/reading/")
 
 
+def test_the_replacement_page_of_a_removed_capacitor_points_to_the_one_fitted_now(
+    signed_in, technician, fan_installation
+):
+    url = reverse("replace", args=[fan_installation.id])
+    client = signed_in(technician)
+    form = {
+        "part": fan_installation.part_id,
+        "removed_on": timezone.localdate().isoformat(),
+        "removal_reason": "failed",
+    }
+    assert client.post(url, form).status_code == 302
+    successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_installation.motor)
+    body = client.get(url).content.decode()
+    assert "already removed on" in body and reverse("replace", args=[successor.id]) in body
+    assert "Save replacement" not in body  # no form to fill in for nothing
+    refused = client.post(url, {**form, "serial": "X2"})  # a POST all the same is refused, with the form
+    assert refused.status_code == 200 and "already removed" in refused.content.decode()
+    assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 2
+
+
+def test_labels_for_a_tag_not_at_the_site_say_so(signed_in, technician, fan_installation):
+    site = fan_installation.motor.site.code
+    body = signed_in(technician).get(reverse("labels", args=[site]), {"tag": "NOPE"}).content.decode()
+    assert "No motor has the tag <b>NOPE</b> at" in body
+    body = signed_in(technician).get(reverse("labels", args=[site]), {"tag": fan_installation.motor.asset_tag})
+    assert "No motor has the tag" not in body.content.decode()
+
+
 def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, django_assert_max_num_queries):
     part = make_part()
     installations = [make_installation(part=part) for _ in range(6)]
@@ -216,6 +244,8 @@ def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(sign
     day = WorkOrder.objects.get(installation=installations[0]).due_on.isoformat()
     sheet = client.get(reverse("visit_sheet", args=[site.code, day])).content.decode()
     assert "never a screwdriver" in sheet and installations[0].part.code in sheet
+    code = installations[0].part.code
+    assert f'&times;&nbsp;<span class="nowrap">{code}</span>' in sheet and f" x {code}" not in sheet
     client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day})
     assert "Issued" in client.get(reverse("work_orders")).content.decode()
     assert signed_in(technician).post(reverse("work_orders"), {"action": "plan"}).status_code == 403

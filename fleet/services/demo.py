@@ -313,7 +313,8 @@ def build_demo(*, seed: int = 7, today: dt.date | None = None, scale: float = 1.
                         reading_rows += _age_capacitor_line(
                             motor, role, parts[code], commissioned, today, design.case_temp_c, v_cap, rng, technician
                         )
-        Reading.objects.bulk_create(_skip_closed_house(reading_rows, today), batch_size=2000)
+        reading_rows = _skip_closed_house(reading_rows, today)
+        Reading.objects.bulk_create(reading_rows, batch_size=2000)
     return {"created": True, "motors": motors, "readings": len(reading_rows)}
 
 

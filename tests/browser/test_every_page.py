@@ -15,7 +15,7 @@ from django.contrib.auth.models import User
 from django.core.management import call_command
 from django.urls import Resolver404, resolve
 
-from fleet.models import FittedCapacitor, ImportJob, Reading
+from fleet.models import FittedCapacitor, ImportJob, Reading, WorkOrder
 from fleet.services.import_jobs import create_job
 from fleet.services.workorders import plan_work_orders
 
@@ -210,3 +210,42 @@ def test_a_draft_kept_on_the_phone_keeps_the_time_it_was_measured(phone):
     phone.wait_for_url("**/motors/**")
     assert Reading.objects.get().taken_at == dt.datetime(2026, 1, 5, 9, 30, tzinfo=dt.UTC)  # the site keeps UTC
     assert FittedCapacitor.objects.count() == 1
+
+
+IN_VIEW_ON_ONE_LINE = r"""(selector) => [...document.querySelectorAll(selector)].map((e) => {
+  const range = document.createRange();
+  range.selectNodeContents(e);
+  const lines = new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)));
+  const box = e.getBoundingClientRect();
+  return {text: e.textContent.trim(), lines: lines.size, inView: box.left >= 0 && box.right <= window.innerWidth};
+})"""
+
+
+def test_on_a_phone_the_columns_that_matter_are_in_view_and_codes_stay_whole(browser, live_server, demo_fleet):
+    """At 390 px: the stock page's quantities (its only editable column), the home page's replace-by dates
+    and the visit sheet's part codes are on screen without scrolling the table, and no code breaks."""
+    context = browser.new_context(viewport={"width": 390, "height": 900}, base_url=live_server.url)
+    page = context.new_page()
+    username, password = ROLES["planner"]
+    page.goto("/login/")
+    page.fill("#id_username", username)
+    page.fill("#id_password", password)
+    page.click("button[type=submit]")
+    page.wait_for_url("**/")
+    site = FittedCapacitor.objects.filter(removed_on__isnull=True).values_list("motor__site__code", flat=True)[0]
+    visit = WorkOrder.objects.filter(
+        state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], installation__motor__site__code=site
+    ).first()
+    checks = [
+        (f"/sites/{site}/stock/", "tbody input[type=number]"),
+        (f"/sites/{site}/stock/", "tbody td:first-child"),
+        ("/", "tbody .replace-by"),
+        (f"/work-orders/{site}/{visit.due_on.isoformat()}/", "tbody .part-code"),
+    ]
+    for path, selector in checks:
+        _load(page, path)
+        found = page.evaluate(IN_VIEW_ON_ONE_LINE, selector)
+        assert found, (path, selector)
+        bad = [f for f in found if not f["inView"] or f["lines"] > 1]
+        assert not bad, (path, selector, bad[:3])
+    context.close()
