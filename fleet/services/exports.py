@@ -226,10 +226,13 @@ PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
 def plan_table(query, user, request=None) -> Table:
     """The replacement plan as the plan page shows it (site and horizon from the query string)."""
     site, horizon, problems = plan_parameters(query, request=request)
-    if problems:  # a download is not a page that can say what it ignored: refuse, naming the parameter
-        raise BadFilter("; ".join(problems))
+    unreadable = [problem for problem in problems if not problem.startswith("site:")]
+    if unreadable:  # a horizon that cannot be read is refused by name, never taken as the default
+        raise BadFilter("; ".join(unreadable))
     rows = _rows(pages.replacement_plan(horizon, site, user), PLAN_COLUMNS)
-    about = _about(query, horizon_days=horizon, site=site.code if site else None)
+    # A site the user does not work at is ignored as on the plan page (the rows stay the user's own); the
+    # sidecar says so.
+    about = _about(query, horizon_days=horizon, site=site.code if site else None, ignored=problems)
     return Table("replacement plan", PLAN_COLUMNS, rows, about)
 
 
