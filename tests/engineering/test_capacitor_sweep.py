@@ -168,15 +168,16 @@ def _fan_and_two_value_fleet():
 def test_the_scanned_crossing_is_where_the_drawn_curve_meets_the_level(limit, quantity, level_name, second_role):
     """[derived] the fraction that schedules a replacement is the one the picture shows: the motor
     solved at the reported crossing has the limit's figure at the limit's level (1.15 x full-load
-    current; break-away 0.3 (fan) and 1.25 (constant torque) x rated torque [trade]), and a step of 1e-4 of rated either side
-    lands on the passing and breaching sides. A grid-midpoint placement misses by up to half a
-    grid step (2.5 % of rated), several per cent in the figure. The two-value motor's start
-    capacitor carries its starting torque, so that limit is scanned on its start capacitor."""
+    current; break-away 0.3 (fan) and 1.25 (constant torque) x rated torque [trade]), and a step
+    of 1e-4 of rated either side lands on the passing and breaching sides. A grid-midpoint
+    placement misses by up to half a grid step (2.5 % of rated), several per cent in the figure.
+    The two-value motor's start capacitor carries its starting torque, so that limit is scanned
+    on its start capacitor."""
     c, load, kind, start_uf = _fan_and_two_value_fleet()
     role = np.array([ROLE_RUN, second_role])
     limits = capacitance_limits(c, load, kind, role, 4.0, start_uf, 0.95, 450.0)
     crossing = dict(zip(LIMIT_NAMES, limits.fractions, strict=True))[limit]
-    assert np.all((0.2 < crossing) & (crossing < 1.0))
+    assert np.all((crossing > 0.2) & (crossing < 1.0))
     levels = limit_levels(load, role, np.full(2, 0.95), np.full(2, 450.0))
     step = np.array([[1e-4, 0.0, -1e-4]])
     sweep = capacitor_sweep(c, load, kind, role, 4.0, start_uf, crossing[:, None] + step)
