@@ -272,7 +272,7 @@ def capacitance_limits(
     first = np.argmax(breached, axis=-1)
     breaching = fractions_grid[first]
     passing = np.where(first == 0, breaching, fractions_grid[np.maximum(first - 1, 0)])
-    for k in np.flatnonzero(crossed.any(axis=-1)):
+    for k in range(len(LIMIT_NAMES)):  # one limit at a time (the motors may have no axis)
         narrowing = crossed[k] & (first[k] > 0)
         while np.any(narrowing & (passing[k] - breaching[k] > tolerance)):
             middle = np.where(narrowing, 0.5 * (passing[k] + breaching[k]), 1.0)
