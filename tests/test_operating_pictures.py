@@ -112,3 +112,27 @@ def test_the_figures_are_valid_plotly():
     installation = _assessed_fan()
     for figure in motor_pictures([installation])[installation.id].values():
         go.Figure(figure)  # raises on any property Plotly does not know
+
+
+def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, engineer):
+    """[derived] a start capacitor is out of circuit when running: its page says so in one line and
+    lists the standstill figures (which do change) instead of running figures equal as new and now."""
+    motor = make_motor(motor_type="two_value", load_type="constant")
+    run = make_installation(motor=motor)
+    start = make_installation(
+        motor=motor, role="start", part=make_part(rated_uf=60, dielectric="electrolytic", rated_voltage_v=250)
+    )
+    when = timezone.make_aware(dt.datetime(2024, 1, 8, 9))
+    quarterly_readings(run, when, [4.0, 3.95, 3.9, 3.85, 3.8])
+    quarterly_readings(start, when, [60.0, 58.0, 56.0, 54.0, 52.0])
+    refit_installations([run.id, start.id])
+    stored = Assessment.objects.get(installation=start, is_current=True)
+    assert stored.figures_new["i_main_a"] == pytest.approx(stored.figures_now["i_main_a"], rel=1e-12)
+    assert stored.figures_new["starting_torque_nm"] != pytest.approx(stored.figures_now["starting_torque_nm"], rel=1e-3)
+    client.force_login(engineer)
+    start_page = client.get(reverse("capacitor", args=[start.id])).content.decode()
+    assert "out of circuit once the motor runs" in start_page
+    assert "Running speed" not in start_page and "Starting torque" in start_page
+    assert "Start capacitor voltage at standstill" in start_page
+    run_page = client.get(reverse("capacitor", args=[run.id])).content.decode()
+    assert "Running speed" in run_page and "out of circuit once the motor runs" not in run_page

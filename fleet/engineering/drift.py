@@ -247,12 +247,13 @@ def capacitance_limits(
     limits: DriftLimits | None = None,
     lowest_fraction=0.2,
     steps=17,
+    tolerance=1e-6,
 ) -> CapacitanceLimits:
     """Scan the capacitor of `role` down from its rated value, whole fleet at once.
 
-    A crossing is placed midway between the last grid fraction that passes and the
-    first that breaches: resolution (1 - lowest_fraction) / (steps - 1), 5 % of
-    rated with the defaults, finer than a field meter resolves.
+    The grid (5 % of rated with the defaults) finds the first fraction that breaches each
+    limit; bisection on the same breach rule then narrows that step to `tolerance` of rated,
+    so the crossing is where the curve drawn against capacitance meets the limit's level.
     """
     role = np.asarray(role)
     levels = limit_levels(load, role, full_load_current_a, capacitor_rated_voltage_v, limits)
@@ -260,16 +261,25 @@ def capacitance_limits(
     fractions_grid = np.linspace(1.0, lowest_fraction, steps)
 
     def breached_at(fraction):
-        sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, [fraction])
+        """Breach per limit and motor, `fraction` a scalar or one per motor."""
+        sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, _column(fraction))
         return limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, _column(role))[..., 0]
 
-    # One grid point at a time: a solve that must run its whole slip grid for one stalled point
+    # One fraction per solve: a solve that must run its whole slip grid for one stalled point
     # would otherwise run it for every point, and memory stays that of one fleet-wide solve.
     breached = np.stack([breached_at(fraction) for fraction in fractions_grid], axis=-1)
+    crossed = breached.any(axis=-1)
     first = np.argmax(breached, axis=-1)
-    before = fractions_grid[np.maximum(first - 1, 0)]
-    midpoint = np.where(first == 0, fractions_grid[0], 0.5 * (fractions_grid[first] + before))
-    crossing = np.where(breached.any(axis=-1), midpoint, np.nan)
+    breaching = fractions_grid[first]
+    passing = np.where(first == 0, breaching, fractions_grid[np.maximum(first - 1, 0)])
+    for k in range(len(LIMIT_NAMES)):  # one limit at a time (the motors may have no axis)
+        narrowing = crossed[k] & (first[k] > 0)
+        while np.any(narrowing & (passing[k] - breaching[k] > tolerance)):
+            middle = np.where(narrowing, 0.5 * (passing[k] + breaching[k]), 1.0)
+            breaches = breached_at(middle)[k]
+            breaching[k] = np.where(narrowing & breaches, middle, breaching[k])
+            passing[k] = np.where(narrowing & ~breaches, middle, passing[k])
+    crossing = np.where(crossed, 0.5 * (passing + breaching), np.nan)
     with np.errstate(invalid="ignore"):
         governing = np.nanmax(np.where(np.isnan(crossing), -np.inf, crossing), axis=0)
     none = ~np.isfinite(governing)
