@@ -10,7 +10,7 @@ import pytest
 from django.contrib.auth.models import Group, User
 from django.utils import timezone
 
-from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.demo import EXAMPLE_FAN_CIRCUIT, EXAMPLE_FAN_NAMEPLATE
 
@@ -181,3 +181,29 @@ def administrator(db):
 def fan_installation(db):
     """A PSC fan with a 4 uF +/-5 % 450 V run capacitor fitted on 2022-01-01."""
     return make_installation()
+
+
+def stored_assessment(
+    installation, risk, replace_by, created_at=None, limit_source="tolerance", reason="because", capacitance_now_uf=3.9
+):
+    """A current assessment as a refit stores it, for pages that only read them."""
+    Assessment.objects.filter(installation=installation, is_current=True).update(is_current=False)
+    assessment = Assessment.objects.create(
+        installation=installation,
+        model_version="test",
+        fitted_through=timezone.now(),
+        readings_used=4,
+        trend_model="linear",
+        slope_pct_per_1000h=-0.1,
+        slope_sd_pct_per_1000h=0.01,
+        capacitance_now_uf=capacitance_now_uf,
+        latest_verdict="within tolerance",
+        limit_fraction=0.95,
+        limit_source=limit_source,
+        risk=risk,
+        replace_by=replace_by,
+        reason=reason,
+    )
+    if created_at is not None:
+        Assessment.objects.filter(id=assessment.id).update(created_at=created_at)
+    return assessment

@@ -12,40 +12,16 @@ from django.utils import timezone
 from scipy import stats
 
 from fleet.charts import spares_figure
-from fleet.models import Assessment, DigestEntry, PartLifeFit, SiteMembership, SiteStock, WorkOrder
+from fleet.models import DigestEntry, PartLifeFit, SiteMembership, SiteStock, WorkOrder
 from fleet.roles import PLANNER, TECHNICIAN
 from fleet.services.alerts import send_daily_digest
 from fleet.services.dashboard import readings_by_route, risk_mix, spares_by_month, weekly_workload
 
-from .conftest import make_installation, make_motor, make_part, make_reading, make_site, make_user
+from .conftest import make_installation, make_motor, make_part, make_reading, make_site, make_user, stored_assessment
 
 pytestmark = pytest.mark.django_db
 
 TODAY = dt.date(2026, 12, 2)  # a Wednesday; its week starts on Monday 2026-11-30
-
-
-def stored_assessment(installation, risk, replace_by, created_at=None, limit_source="tolerance", reason="because"):
-    """A current assessment as a refit stores it (the dashboard only reads them)."""
-    Assessment.objects.filter(installation=installation, is_current=True).update(is_current=False)
-    assessment = Assessment.objects.create(
-        installation=installation,
-        model_version="test",
-        fitted_through=timezone.now(),
-        readings_used=4,
-        trend_model="linear",
-        slope_pct_per_1000h=-0.1,
-        slope_sd_pct_per_1000h=0.01,
-        capacitance_now_uf=3.9,
-        latest_verdict="within tolerance",
-        limit_fraction=0.95,
-        limit_source=limit_source,
-        risk=risk,
-        replace_by=replace_by,
-        reason=reason,
-    )
-    if created_at is not None:
-        Assessment.objects.filter(id=assessment.id).update(created_at=created_at)
-    return assessment
 
 
 def fleet(per_site: int, sites=None, part=None):

@@ -13,7 +13,7 @@ from django.utils.html import strip_tags
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
 from fleet.templatetags.fleet_format import day, verdict_and_risk
 
-from .conftest import make_installation, make_motor, make_part, make_site, make_user
+from .conftest import make_installation, make_motor, make_part, make_site, make_user, stored_assessment
 from .test_rules import api_for, form_post, import_check, import_row
 from .test_substitutes import post_replacement
 
@@ -198,21 +198,12 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
 
 
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(client, technician, fan_installation):
-    Assessment.objects.create(
-        installation=fan_installation,
-        model_version="test",
-        fitted_through=timezone.now(),
-        readings_used=4,
-        trend_model="linear",
-        slope_pct_per_1000h=-0.1,
-        slope_sd_pct_per_1000h=0.01,
-        capacitance_now_uf=3.81,
-        latest_verdict="within tolerance",
-        limit_fraction=0.95,
-        limit_source="tolerance",
-        risk="replace now",
-        replace_by=dt.date(2026, 1, 5),
+    stored_assessment(
+        fan_installation,
+        "replace now",
+        dt.date(2026, 1, 5),
         reason="latest reading, referred to 25 °C, 3.79 µF: below the tolerance limit (3.80 µF)",
+        capacitance_now_uf=3.81,
     )
     client.force_login(technician)
     body = client.get(reverse("motor", args=[fan_installation.motor.asset_tag])).content.decode()
