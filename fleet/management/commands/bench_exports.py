@@ -1,7 +1,7 @@
 """Benchmark: the readings export in each format, time and peak memory, at two fleet sizes.
 
-Generates (once, under their own sites) the benchmark fleets of `bench_refit`, then writes the
-readings of each as CSV, XLSX and Parquet through the same code the download uses: time on a
+Builds (once, under their own sites) an invented fleet per size with `bench_fleet`'s builder, then
+writes the readings of its first site as CSV, XLSX and Parquet through the same code the download uses: time on a
 plain run, peak Python memory (tracemalloc) on a second; a bounded writer keeps it flat as rows grow.
 Prints figures; asserts nothing.
 """
@@ -13,9 +13,9 @@ from django.core.management.base import BaseCommand
 from django.http import QueryDict
 
 from fleet.exports import parquet_file, stream_csv, xlsx_file
+from fleet.models import Reading, Site
+from fleet.services.bench_fleet import FleetSize, build_bench_fleet, existing_bench_fleet
 from fleet.services.exports import readings_table
-
-from .bench_refit import generate_fleet
 
 
 def _consume(file_format, table) -> int:
@@ -41,7 +41,12 @@ class Command(BaseCommand):
 
         self.stdout.write(f"{'rows':>8} {'format':>8} {'seconds':>8} {'MB out':>8} {'peak MB':>8}")
         for count in capacitors:
-            site = generate_fleet(count, readings_each)
+            prefix = f"BEXP{count}-"
+            if not existing_bench_fleet(prefix):
+                size = FleetSize(motors=count, capacitors=count, readings=count * readings_each)
+                build_bench_fleet(size, prefix=prefix, progress=lambda _: None)
+            site = Site.objects.filter(code__startswith=prefix).order_by("code").first()
+            rows = Reading.objects.filter(installation__motor__site=site).count()
             query = QueryDict(mutable=True)
             query["site"] = site.code
             for file_format in ("csv", "xlsx", "parquet"):
@@ -54,7 +59,6 @@ class Command(BaseCommand):
                     _consume(file_format, readings_table(query, None))
                     peak = f"{tracemalloc.get_traced_memory()[1] / 1e6:.1f}"
                     tracemalloc.stop()
-                rows = count * readings_each
                 self.stdout.write(f"{rows:>8} {file_format:>8} {seconds:>8.2f} {size / 1e6:>8.1f} {peak:>8}")
         arrow_mb = pa.default_memory_pool().max_memory() / 1e6
         self.stdout.write(f"Arrow's own allocations, largest at any time in this process: {arrow_mb:.1f} MB")
