@@ -325,3 +325,48 @@ def test_exports_need_a_sign_in(client):
     for url in (reverse("export", args=["readings", "csv"]), reverse("export_about", args=["readings"])):
         response = client.get(url)
         assert response.status_code == 302 and response["Location"].startswith(reverse("login"))
+
+
+def test_xlsx_keeps_every_value_kind_and_opens_in_both_reading_modes():
+    """[derived] The workbook written here holds what the table held: text with markup, a carriage
+    return and a control character (replaced, as XML cannot hold it), numbers, dates, date-times,
+    booleans; empty and non-finite numbers leave the cell empty."""
+    from decimal import Decimal
+
+    from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, Column, Table, xlsx_file
+
+    columns = [
+        Column("text"),
+        Column("number", FLOAT),
+        Column("count", INT),
+        Column("day", DATE),
+        Column("at", DATETIME),
+        Column("flag", BOOL),
+    ]
+    at = dt.datetime(2025, 3, 30, 1, 30, 15, tzinfo=dt.timezone(dt.timedelta(hours=2)))
+    rows = [
+        ['a < b & "c"\r\nnext', 0.1 + 0.2, 7, dt.date(2025, 2, 28), at, True],
+        ["=1+1 \x01", float("nan"), None, None, None, False],
+        ["", Decimal("2.5"), -3, dt.date(1999, 12, 31), None, None],
+    ]
+    with xlsx_file(Table("values", columns, iter(rows), {"model_version": "test"})) as handle:
+        content = handle.read()
+    for read_only in (False, True):
+        book = load_workbook(io.BytesIO(content), read_only=read_only)
+        # read-only rows end at their last cell (the sheet states no dimension: it is written before its rows)
+        cells = [row + (None,) * (6 - len(row)) for row in book["values"].iter_rows(values_only=True)]
+        assert cells[0] == ("text", "number", "count", "day", "at", "flag")
+        assert cells[1] == (
+            'a < b & "c"\r\nnext',
+            0.1 + 0.2,
+            7,
+            dt.datetime(2025, 2, 28),
+            dt.datetime(2025, 3, 29, 23, 30, 15),
+            True,
+        )
+        assert cells[2] == ("=1+1 \ufffd", None, None, None, None, False)
+        assert cells[3] == (None, 2.5, -3, dt.datetime(1999, 12, 31), None, None)
+        about = {row[0]: row[1] for row in book["about"].iter_rows(values_only=True) if row and row[0]}
+        assert about["model_version"] == "test" and about["at"] == "datetime"
+    sheet = load_workbook(io.BytesIO(content))["values"]
+    assert sheet["A1"].font.b and sheet["A3"].data_type == "s" and sheet.auto_filter.ref == "A1:F4"
