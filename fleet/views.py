@@ -594,20 +594,30 @@ def visit_sheet(request, site_code, day):
 def site_stock(request, site_code):
     """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
     site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
-    errors = {}
+    errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_sitestock"):
             raise PermissionDenied
-        quantities = {int(k[4:]): v for k, v in request.POST.items() if k.startswith("qty-") and k[4:].isdigit()}
+        # qty-<part id>: the quantity typed; was-<part id>: the quantity the page showed
+        quantities, shown = (
+            {int(k[4:]): v for k, v in request.POST.items() if k[:4] == prefix and k[4:].isdigit()}
+            for prefix in ("qty-", "was-")
+        )
         try:
-            set_site_stock(site=site, quantities=quantities)
+            set_site_stock(site=site, quantities=quantities, shown=shown)
         except ValidationError as error:
             errors = error.message_dict
+            typed = {i: text for i, text in quantities.items() if text.strip() != shown.get(i, "").strip()}
         else:
             messages.success(request, "Stock saved.")
             return redirect("site_stock", site_code=site.code)
     held = dict(site.stock.values_list("part_id", "quantity"))
-    rows = [(part, held.get(part.id, 0)) for part in CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")]
+    # Each row: the part, the quantity in its box (as typed when the save was refused), the quantity held now
+    # (sent back as what the page showed, so a replacement meanwhile is not undone).
+    rows = [
+        (part, typed.get(part.id, held.get(part.id, 0)), held.get(part.id, 0))
+        for part in CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")
+    ]
     return render(request, "fleet/stock.html", {"site": site, "rows": rows, "errors": errors})
 
 

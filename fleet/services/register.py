@@ -39,9 +39,13 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
     return len(motors)
 
 
-def set_site_stock(*, site: Site, quantities: dict[int, str]) -> int:
+def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, str] | None = None) -> int:
     """Set the quantity of each part (by id) held at the site from form text: a whole number from 0 to 99999;
-    one bad entry refuses them all, naming the part. Returns the number of rows written."""
+    one bad entry refuses them all, naming the part. Returns the number of rows written.
+
+    `shown` is the quantity of each part as the form showed it. A part left as shown is not written, so
+    a replacement that took one meanwhile is not undone; a part typed over while its quantity moved is
+    refused by name, nothing saved, so the planner counts again. Without `shown` every quantity is set."""
     parts = CapacitorPart.objects.in_bulk(storable_ids(quantities))
     errors, values = {}, {}
     for part_id, text in quantities.items():
@@ -49,20 +53,30 @@ def set_site_stock(*, site: Site, quantities: dict[int, str]) -> int:
         if part is None:
             errors[f"part {part_id}"] = "is not in the catalogue."
             continue
-        try:
-            value = int(str(text).strip() or "0")
-        except ValueError:
-            value = -1
+        value = _whole_number(text)
         if not 0 <= value <= 99999:
             errors[part.code] = f"{text!r} is not a whole number from 0 to 99999."
         values[part_id] = value
     if errors:
         raise ValidationError(errors)
+    before = {part_id: _whole_number(text) for part_id, text in (shown or {}).items() if part_id in values}
+    values = {part_id: value for part_id, value in values.items() if before.get(part_id) != value}
     with transaction.atomic():
         # Two stock edits of one site at once take turns (the site's row locked): the second then
-        # updates the rows the first created instead of creating them again (a unique pair).
+        # updates the rows the first created instead of creating them again (a unique pair). A
+        # replacement takes its part with the stock row locked: the quantities compared here are final.
         list(Site.objects.select_for_update().filter(pk=site.pk).values_list("pk", flat=True))
-        rows = {row.part_id: row for row in SiteStock.objects.select_for_update().filter(site=site, part__in=parts)}
+        rows = {row.part_id: row for row in SiteStock.objects.select_for_update().filter(site=site, part__in=values)}
+        moved = {}
+        for part_id in values:
+            now = rows[part_id].quantity if part_id in rows else 0
+            if before.get(part_id, -1) >= 0 and before[part_id] != now:
+                moved[parts[part_id].code] = (
+                    f"changed from {before[part_id]} to {now} while this page was open (a replacement takes one "
+                    "from stock); count again and save."
+                )
+        if moved:
+            raise ValidationError(moved)
         changed = [row for part_id, row in rows.items() if row.quantity != values[part_id]]
         for row in changed:
             row.quantity = values[row.part_id]
@@ -70,3 +84,11 @@ def set_site_stock(*, site: Site, quantities: dict[int, str]) -> int:
         new = [SiteStock(site=site, part_id=i, quantity=v) for i, v in values.items() if i not in rows and v > 0]
         audited_bulk_create(new)
     return len(changed) + len(new)
+
+
+def _whole_number(text) -> int:
+    """A quantity typed on the stock form; -1 where it is not a whole number."""
+    try:
+        return int(str(text).strip() or "0")
+    except ValueError:
+        return -1
