@@ -11,7 +11,7 @@ from fleet.models import Assessment, Reading
 from fleet.services.assessments import refit_installations
 from fleet.services.readings import record_reading
 
-from .conftest import make_installation, make_reading, quarterly_readings
+from .conftest import make_installation, make_reading, make_user, quarterly_readings
 from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
@@ -69,4 +69,26 @@ def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technicia
     assert again.status_code == 400 and "already corrected" in again.json()["supersedes"][0]
     unknown = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": 999999}, format="json")
     assert unknown.status_code == 400 and "not a reading of this capacitor" in unknown.json()["supersedes"][0]
+    assert Reading.objects.count() == 2
+
+
+@pytest.mark.parametrize("key", ["", "correction-1"])
+def test_the_same_api_correction_sent_again_is_answered_as_the_replay(technician, fan_installation, key):
+    """A script that sends its correction again (no answer the first time), with or without an
+    Idempotency-Key: one correction stored, the second answer 200 with it. Another correction of the
+    same reading, or the same one from another user, is still refused by name. [derived]"""
+    wrong = make_reading(fan_installation, capacitance_uf=3.2)
+    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    headers = {"HTTP_IDEMPOTENCY_KEY": key} if key else {}
+    body = {"method": "meter", "capacitance_uf": 3.9, "notes": "re-measured", "supersedes": wrong.id}
+    client = client_for(technician)
+    first = client.post(url, body, format="json", **headers)
+    again = client.post(url, body, format="json", **headers)
+    assert (first.status_code, again.status_code) == (201, 200)
+    assert again.json()["id"] == first.json()["id"] and again.json()["supersedes"] == wrong.id
+    assert Reading.objects.filter(supersedes=wrong).count() == 1 and Reading.objects.count() == 2
+    other = client.post(url, {**body, "capacitance_uf": 3.8}, format="json")
+    assert other.status_code == 400 and "already corrected" in other.json()["supersedes"][0]
+    colleague = client_for(make_user("technician")).post(url, body, format="json")
+    assert colleague.status_code == 400 and "already corrected" in colleague.json()["supersedes"][0]
     assert Reading.objects.count() == 2

@@ -462,3 +462,28 @@ def test_a_stock_save_and_a_replacement_at_once_lose_neither(capacitor, planner_
     else:  # the draw went first: the count typed over a moved quantity is refused by name, nothing saved
         assert "changed from 3 to 2 while this page was open" in saved.content.decode()
         assert stock.quantity == 2 and not SiteStock.objects.filter(site=site, part=other).exists()
+
+
+@threads_race
+@pytest.mark.parametrize("key", ["", "correction-1"])
+def test_an_api_correction_sent_twice_at_once_stores_one_and_answers_the_other_as_its_replay(capacitor, key):
+    """Two copies of one correction at once, held past every check: the second insert meets the
+    first's on the corrected reading (a reading is corrected once) and is answered 200 with it."""
+    user = make_user("technician")
+    wrong = Reading.objects.filter(installation=capacitor).order_by("id").last()
+    headers = {"HTTP_IDEMPOTENCY_KEY": key} if key else {}
+
+    def send():
+        client = Client()
+        client.force_login(user)
+        body = {"method": "meter", "capacitance_uf": 3.97, "condition": "sound", "supersedes": wrong.id}
+        return client.post(
+            f"/api/capacitors/{capacitor.id}/readings/", body, content_type="application/json", **headers
+        )
+
+    with held_before(reading_service, "check_reading", 2):
+        answers = in_threads(send, send)
+    assert sorted(getattr(a, "status_code", a) for a in answers) == [200, 201]
+    assert len({a.json()["id"] for a in answers}) == 1
+    assert Reading.objects.filter(supersedes=wrong).count() == 1
+    assert Reading.objects.filter(installation=capacitor).count() == 4

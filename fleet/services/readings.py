@@ -173,6 +173,9 @@ def record_reading(
         earlier = _earlier_submission(installation, stored_key, values)
         if earlier is not None:
             return earlier
+    earlier = _correction_sent_before(installation, supersedes_id, values, user)
+    if earlier is not None:
+        return earlier
     supersedes = reading_to_correct(installation, supersedes_id)
     if supersedes is not None and not values.get("taken_at"):
         values = {**values, "taken_at": supersedes.taken_at}
@@ -191,6 +194,7 @@ def record_reading(
             transaction.on_commit(lambda: enqueue_refit([installation.id]))
     except IntegrityError:
         earlier = _earlier_submission(installation, stored_key, values) if stored_key else None
+        earlier = earlier or _correction_sent_before(installation, supersedes_id, values, user)
         if earlier is not None:
             return earlier
         reading_to_correct(installation, supersedes_id)  # corrected meanwhile by someone else: says so by field
@@ -215,6 +219,32 @@ def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: 
                 "another reading."
             }
         )
+    earlier.replayed = True
+    return earlier
+
+
+def _correction_sent_before(installation: FittedCapacitor, supersedes_id, values: dict, user) -> Reading | None:
+    """The correction this user stored already for that reading, if it is the one sent now (the same
+    correction sent twice, with or without a key): it comes back with `replayed = True`, as a reading
+    can be corrected once. Any other correction is left to `reading_to_correct` to refuse by name."""
+    if supersedes_id is None or supersedes_id == "":
+        return None
+    try:
+        corrected_id = int(supersedes_id)
+    except (TypeError, ValueError):
+        return None
+    earlier = Reading.objects.filter(installation=installation, supersedes_id=corrected_id).first()
+    owner = user.pk if user is not None and user.is_authenticated else None
+    same = (
+        earlier is not None
+        and earlier.taken_by_id == owner
+        and (values.get("method") or earlier.method) == earlier.method
+        and (values.get("condition") or earlier.condition) == earlier.condition
+        and (values.get("taken_at") or earlier.taken_at) == earlier.taken_at
+        and _same_values(earlier, values)
+    )
+    if not same:
+        return None
     earlier.replayed = True
     return earlier
 
