@@ -18,13 +18,11 @@ On SQLite, a later migration that rebuilds fleet_reading, fleet_fittedcapacitor 
 drops their triggers: reinstall these too (SQLITE_FORWARD below), as 0009 and 0011 do theirs.
 """
 
-import importlib
-
 from django.conf import settings
 from django.db import migrations, models
 from django.db.models.functions import Upper
 
-TRIGGERS_0002 = importlib.import_module("fleet.migrations.0002_reading_triggers")
+from ._triggers import plpgsql_trigger, postgres_drops, run, sqlite_drops
 
 # Window functions and UPDATE ... FROM: PostgreSQL, and SQLite 3.33 or newer.
 FILL_RISK_HISTORY = """
@@ -83,61 +81,52 @@ SQLITE_FORWARD = [
     END;
     """,
 ]
-SQLITE_BACKWARD = [
-    "DROP TRIGGER IF EXISTS fleet_motor_last_read;",
-    "DROP TRIGGER IF EXISTS fleet_assessment_in_service;",
-    "DROP TRIGGER IF EXISTS fleet_capacitor_in_service;",
-]
+SQLITE_BACKWARD = sqlite_drops("fleet_motor_last_read", "fleet_assessment_in_service", "fleet_capacitor_in_service")
 POSTGRES_FORWARD = [
-    """
-    CREATE OR REPLACE FUNCTION fleet_assessment_in_service() RETURNS trigger AS $$
-    BEGIN
-      UPDATE fleet_assessment a SET capacitor_in_service = (c.removed_on IS NULL)
-      FROM new_assessments n JOIN fleet_fittedcapacitor c ON c.id = n.installation_id
-      WHERE a.id = n.id AND a.capacitor_in_service <> (c.removed_on IS NULL);
-      RETURN NULL;
-    END $$ LANGUAGE plpgsql;
-    """,
-    """
-    CREATE TRIGGER fleet_assessment_in_service AFTER INSERT ON fleet_assessment
-    REFERENCING NEW TABLE AS new_assessments FOR EACH STATEMENT EXECUTE FUNCTION fleet_assessment_in_service();
-    """,
-    """
-    CREATE OR REPLACE FUNCTION fleet_capacitor_in_service() RETURNS trigger AS $$
-    BEGIN
-      UPDATE fleet_assessment SET capacitor_in_service = (NEW.removed_on IS NULL)
-      WHERE installation_id = NEW.id AND capacitor_in_service <> (NEW.removed_on IS NULL);
-      RETURN NULL;
-    END $$ LANGUAGE plpgsql;
-    """,
-    """
-    CREATE TRIGGER fleet_capacitor_in_service AFTER UPDATE OF removed_on ON fleet_fittedcapacitor
-    FOR EACH ROW EXECUTE FUNCTION fleet_capacitor_in_service();
-    """,
-    """
-    CREATE OR REPLACE FUNCTION fleet_motor_last_read() RETURNS trigger AS $$
-    BEGIN
-      UPDATE fleet_motor m SET last_read_at = n.taken_at
-      FROM (SELECT c.motor_id, MAX(r.taken_at) AS taken_at
-            FROM new_readings r JOIN fleet_fittedcapacitor c ON c.id = r.installation_id
-            WHERE c.removed_on IS NULL GROUP BY c.motor_id) AS n
-      WHERE m.id = n.motor_id AND (m.last_read_at IS NULL OR m.last_read_at < n.taken_at);
-      RETURN NULL;
-    END $$ LANGUAGE plpgsql;
-    """,
-    """
-    CREATE TRIGGER fleet_motor_last_read AFTER INSERT ON fleet_reading
-    REFERENCING NEW TABLE AS new_readings FOR EACH STATEMENT EXECUTE FUNCTION fleet_motor_last_read();
-    """,
+    *plpgsql_trigger(
+        "fleet_assessment_in_service",
+        "AFTER INSERT",
+        "fleet_assessment",
+        """
+        UPDATE fleet_assessment a SET capacitor_in_service = (c.removed_on IS NULL)
+        FROM new_assessments n JOIN fleet_fittedcapacitor c ON c.id = n.installation_id
+        WHERE a.id = n.id AND a.capacitor_in_service <> (c.removed_on IS NULL);
+        RETURN NULL;
+        """,
+        level="STATEMENT",
+        referencing="new_assessments",
+    ),
+    *plpgsql_trigger(
+        "fleet_capacitor_in_service",
+        "AFTER UPDATE OF removed_on",
+        "fleet_fittedcapacitor",
+        """
+        UPDATE fleet_assessment SET capacitor_in_service = (NEW.removed_on IS NULL)
+        WHERE installation_id = NEW.id AND capacitor_in_service <> (NEW.removed_on IS NULL);
+        RETURN NULL;
+        """,
+    ),
+    *plpgsql_trigger(
+        "fleet_motor_last_read",
+        "AFTER INSERT",
+        "fleet_reading",
+        """
+        UPDATE fleet_motor m SET last_read_at = n.taken_at
+        FROM (SELECT c.motor_id, MAX(r.taken_at) AS taken_at
+              FROM new_readings r JOIN fleet_fittedcapacitor c ON c.id = r.installation_id
+              WHERE c.removed_on IS NULL GROUP BY c.motor_id) AS n
+        WHERE m.id = n.motor_id AND (m.last_read_at IS NULL OR m.last_read_at < n.taken_at);
+        RETURN NULL;
+        """,
+        level="STATEMENT",
+        referencing="new_readings",
+    ),
 ]
-POSTGRES_BACKWARD = [
-    "DROP TRIGGER IF EXISTS fleet_assessment_in_service ON fleet_assessment;",
-    "DROP FUNCTION IF EXISTS fleet_assessment_in_service();",
-    "DROP TRIGGER IF EXISTS fleet_capacitor_in_service ON fleet_fittedcapacitor;",
-    "DROP FUNCTION IF EXISTS fleet_capacitor_in_service();",
-    "DROP TRIGGER IF EXISTS fleet_motor_last_read ON fleet_reading;",
-    "DROP FUNCTION IF EXISTS fleet_motor_last_read();",
-]
+POSTGRES_BACKWARD = postgres_drops(
+    ("fleet_assessment_in_service", "fleet_assessment"),
+    ("fleet_capacitor_in_service", "fleet_fittedcapacitor"),
+    ("fleet_motor_last_read", "fleet_reading"),
+)
 
 
 class Migration(migrations.Migration):
@@ -242,7 +231,7 @@ class Migration(migrations.Migration):
         migrations.RunSQL(FILL_LAST_READ, migrations.RunSQL.noop),
         migrations.RunSQL(FILL_IN_SERVICE, migrations.RunSQL.noop),
         migrations.RunPython(
-            TRIGGERS_0002._run({"sqlite": SQLITE_FORWARD, "postgresql": POSTGRES_FORWARD}),
-            TRIGGERS_0002._run({"sqlite": SQLITE_BACKWARD, "postgresql": POSTGRES_BACKWARD}),
+            run({"sqlite": SQLITE_FORWARD, "postgresql": POSTGRES_FORWARD}),
+            run({"sqlite": SQLITE_BACKWARD, "postgresql": POSTGRES_BACKWARD}),
         ),
     ]

@@ -9,12 +9,10 @@ On SQLite, a later migration that rebuilds fleet_workorder or fleet_motor drops 
 reinstall them (SQLITE_FORWARD below), as 0009 and 0011 do theirs.
 """
 
-import importlib
-
 import django.db.models.deletion
 from django.db import migrations, models
 
-TRIGGERS_0002 = importlib.import_module("fleet.migrations.0002_reading_triggers")
+from ._triggers import plpgsql_trigger, postgres_drops, run, sqlite_drops
 
 FILL_SITE = """
 UPDATE fleet_workorder SET site_id = (SELECT m.site_id FROM fleet_motor m WHERE m.id = fleet_workorder.motor_id)
@@ -44,41 +42,33 @@ SQLITE_FORWARD = [
     END;
     """,
 ]
-SQLITE_BACKWARD = [
-    "DROP TRIGGER IF EXISTS fleet_workorder_site_on_insert;",
-    "DROP TRIGGER IF EXISTS fleet_workorder_site_on_update;",
-    "DROP TRIGGER IF EXISTS fleet_motor_moves_work_orders;",
-]
+SQLITE_BACKWARD = sqlite_drops(
+    "fleet_workorder_site_on_insert", "fleet_workorder_site_on_update", "fleet_motor_moves_work_orders"
+)
 POSTGRES_FORWARD = [
-    """
-    CREATE OR REPLACE FUNCTION fleet_workorder_site() RETURNS trigger AS $$
-    BEGIN
-      NEW.site_id := (SELECT m.site_id FROM fleet_motor m WHERE m.id = NEW.motor_id);
-      RETURN NEW;
-    END $$ LANGUAGE plpgsql;
-    """,
-    """
-    CREATE TRIGGER fleet_workorder_site BEFORE INSERT OR UPDATE ON fleet_workorder
-    FOR EACH ROW EXECUTE FUNCTION fleet_workorder_site();
-    """,
-    """
-    CREATE OR REPLACE FUNCTION fleet_motor_moves_work_orders() RETURNS trigger AS $$
-    BEGIN
-      UPDATE fleet_workorder SET site_id = NEW.site_id WHERE motor_id = NEW.id;
-      RETURN NULL;
-    END $$ LANGUAGE plpgsql;
-    """,
-    """
-    CREATE TRIGGER fleet_motor_moves_work_orders AFTER UPDATE OF site_id ON fleet_motor
-    FOR EACH ROW WHEN (OLD.site_id IS DISTINCT FROM NEW.site_id) EXECUTE FUNCTION fleet_motor_moves_work_orders();
-    """,
+    *plpgsql_trigger(
+        "fleet_workorder_site",
+        "BEFORE INSERT OR UPDATE",
+        "fleet_workorder",
+        """
+        NEW.site_id := (SELECT m.site_id FROM fleet_motor m WHERE m.id = NEW.motor_id);
+        RETURN NEW;
+        """,
+    ),
+    *plpgsql_trigger(
+        "fleet_motor_moves_work_orders",
+        "AFTER UPDATE OF site_id",
+        "fleet_motor",
+        """
+        UPDATE fleet_workorder SET site_id = NEW.site_id WHERE motor_id = NEW.id;
+        RETURN NULL;
+        """,
+        when="OLD.site_id IS DISTINCT FROM NEW.site_id",
+    ),
 ]
-POSTGRES_BACKWARD = [
-    "DROP TRIGGER IF EXISTS fleet_workorder_site ON fleet_workorder;",
-    "DROP FUNCTION IF EXISTS fleet_workorder_site();",
-    "DROP TRIGGER IF EXISTS fleet_motor_moves_work_orders ON fleet_motor;",
-    "DROP FUNCTION IF EXISTS fleet_motor_moves_work_orders();",
-]
+POSTGRES_BACKWARD = postgres_drops(
+    ("fleet_workorder_site", "fleet_workorder"), ("fleet_motor_moves_work_orders", "fleet_motor")
+)
 
 
 class Migration(migrations.Migration):
@@ -109,7 +99,7 @@ class Migration(migrations.Migration):
         ),
         migrations.RunSQL(FILL_SITE, migrations.RunSQL.noop),
         migrations.RunPython(
-            TRIGGERS_0002._run({"sqlite": SQLITE_FORWARD, "postgresql": POSTGRES_FORWARD}),
-            TRIGGERS_0002._run({"sqlite": SQLITE_BACKWARD, "postgresql": POSTGRES_BACKWARD}),
+            run({"sqlite": SQLITE_FORWARD, "postgresql": POSTGRES_FORWARD}),
+            run({"sqlite": SQLITE_BACKWARD, "postgresql": POSTGRES_BACKWARD}),
         ),
     ]

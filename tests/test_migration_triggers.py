@@ -1,0 +1,30 @@
+"""The migrations that build their trigger SQL with fleet/migrations/_triggers.py run the same SQL as
+when they were written: a change to the shared helpers must not rewrite history. [derived] The
+digests were taken from the migrations' literal SQL before it moved to the helpers."""
+
+import hashlib
+import importlib
+
+import pytest
+from django.db.migrations.loader import MigrationLoader
+
+FROZEN = {  # SHA-256 of every statement, SQLite forward and backward then PostgreSQL's, joined by NUL
+    "0015_list_pages_indexes_and_stored_facts": "28b4e201db8c686584e2978b59d284cce78ed55480b2daada370deff5e859e02",
+    "0018_work_order_site": "baeaaadaaa68dadbad011785f47a9d6714d778375e5f4ef0d548d182e3dbd761",
+}
+
+
+@pytest.mark.parametrize("name", FROZEN)
+def test_a_migration_runs_the_trigger_sql_it_was_written_with(name):
+    migration = importlib.import_module(f"fleet.migrations.{name}")
+    statements = [
+        *migration.SQLITE_FORWARD,
+        *migration.SQLITE_BACKWARD,
+        *migration.POSTGRES_FORWARD,
+        *migration.POSTGRES_BACKWARD,
+    ]
+    assert hashlib.sha256("\x00".join(statements).encode()).hexdigest() == FROZEN[name]
+
+
+def test_the_shared_helpers_are_not_a_migration():
+    assert ("fleet", "_triggers") not in MigrationLoader(None, ignore_no_migrations=True).disk_migrations
