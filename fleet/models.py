@@ -501,6 +501,22 @@ class TrendModel(models.TextChoices):
 IN_SERVICE = Q(is_current=True, capacitor_in_service=True)  # an assessment the plans and lists show
 
 
+def kept_by_triggers(model, help_text: str) -> models.ForeignKey:
+    """A copy of a related row's key that database triggers keep true, for lists that aggregate
+    without a join: no foreign-key constraint or index of its own (partial indexes read it)."""
+    return models.ForeignKey(
+        model,
+        null=True,
+        blank=True,
+        editable=False,
+        on_delete=models.DO_NOTHING,
+        db_constraint=False,
+        db_index=False,
+        related_name="+",
+        help_text=help_text,
+    )
+
+
 class Assessment(models.Model):
     """A stored fit and plan for one fitted capacitor; a new row per refit."""
 
@@ -581,29 +597,8 @@ class Assessment(models.Model):
     )
     # Its capacitor's site and part, kept by database triggers (migration 0019), so the plan's spares,
     # the risk counts and the dashboard aggregate one table's index instead of joining every capacitor.
-    # No foreign-key constraint or index of their own: the triggers keep them, the partial indexes read them.
-    site = models.ForeignKey(
-        Site,
-        null=True,
-        blank=True,
-        editable=False,
-        on_delete=models.DO_NOTHING,
-        db_constraint=False,
-        db_index=False,
-        related_name="+",
-        help_text="Its capacitor's motor's site; kept by database triggers",
-    )
-    part = models.ForeignKey(
-        CapacitorPart,
-        null=True,
-        blank=True,
-        editable=False,
-        on_delete=models.DO_NOTHING,
-        db_constraint=False,
-        db_index=False,
-        related_name="+",
-        help_text="Its capacitor's part; kept by database triggers",
-    )
+    site = kept_by_triggers(Site, "Its capacitor's motor's site; kept by database triggers")
+    part = kept_by_triggers(CapacitorPart, "Its capacitor's part; kept by database triggers")
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
