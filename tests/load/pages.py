@@ -14,7 +14,11 @@ other one a start capacitor as well (150,000 in service at 100,000 motors), one 
 a failed capacitor in its history, four quarterly readings per capacitor in service, two
 assessments each (last week's and the current one, a few at another risk level), open work
 orders for the capacitors to replace now. `--explain` prints EXPLAIN ANALYZE of every query
-of each page that took longer than 20 ms.
+of each page that took longer than 20 ms. The planner's pages are timed too: the dashboard and its
+four CSV downloads, a visit sheet, a site's stock, the stand-in parts and the life data (the build
+adds spares at every site and each part's stored life fit for them; `--only WORD...` times the pages
+whose name holds a word). The latest figures, with the query plans that changed, are in the README
+("Page figures").
 
 Measured 2026-12-02 on the 2-core machine shared with other work (load average 10 to 15, so read
 the ratios more than the milliseconds), 100,000 motors, 40 or 20 requests a page after, 5 before:
