@@ -390,7 +390,7 @@ def risk_mix_figure(sites: list[str], levels: list[str], counts: dict) -> dict:
     figure.update_yaxes(autorange="reversed")
     totals = [sum(counts[s].values()) for s in sites]
     figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
-    return _top_legend(_styled(figure, height=_rows_height(len(sites)), xaxis_title="capacitors in service"))
+    return _top_legend(_styled(figure, height=_rows_height(len(sites)), xaxis_title="motors in service"))
 
 
 def _rows_height(rows: int) -> int:
@@ -413,7 +413,7 @@ def _top_legend(styled: dict, left: int = 60) -> dict:
 
 
 def routes_figure(routes: list[dict]) -> dict:
-    """Per site route: capacitors overdue, due this quarter and read this quarter."""
+    """Per site route: motors overdue, due this quarter and read this quarter."""
     codes = [r["code"] for r in routes]
     figure = go.Figure()
     for key, label, colour in (
@@ -426,7 +426,7 @@ def routes_figure(routes: list[dict]) -> dict:
     figure.update_yaxes(autorange="reversed")
     totals = [r["overdue"] + r["due"] + r["read"] for r in routes]
     figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
-    return _top_legend(_styled(figure, height=_rows_height(len(routes)), xaxis_title="capacitors in service"))
+    return _top_legend(_styled(figure, height=_rows_height(len(routes)), xaxis_title="motors in service"))
 
 
 PHASOR_HEIGHT_PX = 380

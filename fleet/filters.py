@@ -15,7 +15,7 @@ from .roles import scope_to_user
 class AssessmentFilter(django_filters.FilterSet):
     """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31"""
 
-    site = django_filters.CharFilter(field_name="installation__motor__site__code", max_length=20)
+    site = django_filters.CharFilter(field_name="site__code", max_length=20)  # the stored site (triggers, 0019)
     risk = django_filters.ChoiceFilter(field_name="risk", choices=Assessment.Risk.choices)
     replace_by_before = django_filters.DateFilter(field_name="replace_by", lookup_expr="lte")
 

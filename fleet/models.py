@@ -502,6 +502,22 @@ class TrendModel(models.TextChoices):
 IN_SERVICE = Q(is_current=True, capacitor_in_service=True)  # an assessment the plans and lists show
 
 
+def kept_by_triggers(model, help_text: str) -> models.ForeignKey:
+    """A copy of a related row's key that database triggers keep true, for lists that aggregate
+    without a join: no foreign-key constraint or index of its own (partial indexes read it)."""
+    return models.ForeignKey(
+        model,
+        null=True,
+        blank=True,
+        editable=False,
+        on_delete=models.DO_NOTHING,
+        db_constraint=False,
+        db_index=False,
+        related_name="+",
+        help_text=help_text,
+    )
+
+
 class Assessment(models.Model):
     """A stored fit and plan for one fitted capacitor; a new row per refit."""
 
@@ -580,6 +596,10 @@ class Assessment(models.Model):
     risk_changed_at = models.DateTimeField(
         null=True, blank=True, help_text="When the risk level took its present value (carried over by later refits)"
     )
+    # Its capacitor's site and part, kept by database triggers (migration 0019), so the plan's spares,
+    # the risk counts and the dashboard aggregate one table's index instead of joining every capacitor.
+    site = kept_by_triggers(Site, "Its capacitor's motor's site; kept by database triggers")
+    part = kept_by_triggers(CapacitorPart, "Its capacitor's part; kept by database triggers")
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -597,6 +617,12 @@ class Assessment(models.Model):
             models.Index(fields=["risk"], condition=IN_SERVICE, name="in_service_by_risk"),
             # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
             models.Index(fields=["risk_changed_at"], condition=IN_SERVICE, name="in_service_by_risk_change"),
+            # Totals by date, site, part and risk (plan spares, dashboard workload and spares), index only.
+            models.Index(
+                fields=["replace_by"], include=["site", "part", "risk"], condition=IN_SERVICE, name="in_service_totals"
+            ),
+            # Risk counts by site (dashboard, home and plan for a user limited to sites), index only.
+            models.Index(fields=["site", "risk"], condition=IN_SERVICE, name="in_service_by_site_risk"),
         ]
 
     def __str__(self):

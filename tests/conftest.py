@@ -186,8 +186,16 @@ def fan_installation(db):
 def stored_assessment(
     installation, risk, replace_by, created_at=None, limit_source="tolerance", reason="because", capacitance_now_uf=3.9
 ):
-    """A current assessment as a refit stores it, for pages that only read them."""
-    Assessment.objects.filter(installation=installation, is_current=True).update(is_current=False)
+    """A current assessment as a refit stores it, for pages that only read them: the risk history
+    carried from the assessment it replaces as the refit carries it (`_carry_risk_history`)."""
+    current = Assessment.objects.filter(installation=installation, is_current=True)
+    before = current.values("risk", "risk_was", "risk_changed_at").first()
+    when = created_at or timezone.now()
+    if before is not None and before["risk"] == risk:
+        risk_was, risk_changed_at = before["risk_was"], before["risk_changed_at"] or when
+    else:
+        risk_was, risk_changed_at = ("" if before is None else before["risk"]), when
+    current.update(is_current=False)
     assessment = Assessment.objects.create(
         installation=installation,
         model_version="test",
@@ -203,6 +211,8 @@ def stored_assessment(
         risk=risk,
         replace_by=replace_by,
         reason=reason,
+        risk_was=risk_was,
+        risk_changed_at=risk_changed_at,
     )
     if created_at is not None:
         Assessment.objects.filter(id=assessment.id).update(created_at=created_at)

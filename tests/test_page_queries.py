@@ -15,6 +15,7 @@ import itertools
 import pytest
 from django.contrib.auth.models import Group
 from django.db import connection
+from django.db.models import Count
 from django.test.utils import CaptureQueriesContext
 from django.urls import reverse
 from django.utils import timezone
@@ -223,3 +224,69 @@ def test_the_refits_page_counts_capacitors_read_since_their_assessment():
     assert stale_count() == 1
     refit_installations([installation.id])
     assert stale_count() == 0
+
+
+def _fresh_totals():
+    """The figures the stored site and part give, counted afresh through the capacitors and motors."""
+    in_service = Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
+    return {
+        "facts": sorted(Assessment.objects.values_list("id", "installation__motor__site_id", "installation__part_id")),
+        "by_site_and_risk": sorted(
+            in_service.values_list("installation__motor__site__code", "risk").annotate(n=Count("id")).order_by()
+        ),
+        "spares": sorted(
+            in_service.filter(replace_by__lte=timezone.localdate() + dt.timedelta(days=365))
+            .values_list("installation__part__code")
+            .annotate(n=Count("id"))
+            .order_by()
+        ),
+    }
+
+
+def _stored_totals():
+    from fleet.services.dashboard import risk_mix
+    from fleet.services.pages import spares_needed
+
+    mix = risk_mix(None)
+    return {
+        "facts": sorted(Assessment.objects.values_list("id", "site_id", "part_id")),
+        "by_site_and_risk": sorted(
+            (site, risk, n)
+            for site, counts in mix["counts"].items()
+            for risk, n in counts.items()
+            if n and risk in RISKS
+        ),
+        "spares": sorted((row["part"].code, row["quantity"]) for row in spares_needed(horizon_days=365)),
+    }
+
+
+RISKS = [choice.value for choice in Assessment.Risk]
+
+
+def test_each_assessments_stored_site_and_part_stay_true_through_readings_refits_and_replacements(planner_who_reads):
+    """[derived] The site and part stored on each assessment (kept by triggers) give the same risk
+    counts and spares as a fresh count through the capacitors and motors, after every kind of write."""
+    fleet = Fleet()
+    fleet.grow_to(8, planner_who_reads)
+    assert _stored_totals() == _fresh_totals()
+    assert Assessment.objects.filter(site__isnull=True).count() == 0  # the comparison is of real values
+    # A reading and its refit: a new current assessment, inserted by the refit's writer.
+    worn = Assessment.objects.filter(is_current=True, risk="replace now").first().installation
+    make_reading(worn, capacitance_uf=3.5)
+    refit_installations([worn.id])
+    # A replacement: the old capacitor leaves service, its successor is read and assessed.
+    other_part = make_part(code="RUN-4U-B")
+    successor = replace_capacitor(installation=worn, part=other_part, removed_on=timezone.localdate(), reason="failed")
+    quarterly_readings(successor, timezone.now() - dt.timedelta(days=400), SOUND)
+    refit_installations([successor.id])
+    assert Assessment.objects.get(installation=successor, is_current=True).part_id == other_part.id
+    # A motor moves to the other site; a capacitor's part is corrected in the register.
+    moved = Motor.objects.filter(site=fleet.sites[0]).exclude(capacitors=worn).first()
+    moved.site = fleet.sites[1]
+    moved.save()
+    corrected = Assessment.objects.filter(is_current=True).exclude(installation=successor).first().installation
+    corrected.part = other_part
+    corrected.save()
+    stored, fresh = _stored_totals(), _fresh_totals()
+    assert stored == fresh
+    assert {a.installation_id for a in Assessment.objects.filter(part=other_part)} == {successor.id, corrected.id}

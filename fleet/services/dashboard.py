@@ -17,9 +17,20 @@ from django.utils import timezone
 from fleet.charts import risk_mix_figure, routes_figure, spares_figure, stock_figure, workload_figure
 from fleet.engineering.lifedata import expected_failures
 from fleet.engineering.planning import RISK_ORDER
-from fleet.models import CapacitorPart, FittedCapacitor, PartLifeFit, Reading, RefitRun, Site, SiteStock, WorkOrder
+from fleet.models import (
+    Assessment,
+    CapacitorPart,
+    FittedCapacitor,
+    Motor,
+    PartLifeFit,
+    Reading,
+    RefitRun,
+    Site,
+    SiteStock,
+    WorkOrder,
+)
 from fleet.roles import scope_to_user
-from fleet.services.pages import assessed_since, current_assessments, quarter_start
+from fleet.services.pages import in_service_assessments, quarter_start, risk_changes
 
 WEEKS = 26
 MONTHS = 12
@@ -33,10 +44,6 @@ DAYS_PER_YEAR = 365.25
 def overdue_before(today: dt.date) -> dt.date:
     """A capacitor whose newest reading is older than this day is overdue."""
     return today - dt.timedelta(days=READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS)
-
-
-def _in_service(user):
-    return current_assessments(user).filter(installation__removed_on__isnull=True)
 
 
 def _clamped(field: str, truncate, first: dt.date):
@@ -58,6 +65,11 @@ def _add_months(day: dt.date, months: int) -> dt.date:
     return dt.date(index // 12, index % 12 + 1, 1)
 
 
+def _site_codes(user) -> dict[int, str]:
+    """The user's sites' codes by id, in the sites' order."""
+    return dict(scope_to_user(Site.objects.all(), user).values_list("id", "code"))
+
+
 def weekly_workload(user=None, today: dt.date | None = None) -> dict:
     """Replacements per week for the next WEEKS weeks by risk level and by site (overdue ones in
     this week), and the site visits of the open work orders per week (four queries)."""
@@ -66,27 +78,27 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
     weeks = [first + dt.timedelta(weeks=k) for k in range(WEEKS)]
     end = first + dt.timedelta(weeks=WEEKS)
     rows = (
-        _in_service(user)
+        in_service_assessments(user)
         .filter(replace_by__lt=end)
         .annotate(week=_clamped("replace_by", TruncWeek, first))
-        .values("week", "risk", "installation__motor__site__code")
-        .annotate(n=Count("id"))
+        .values("week", "risk", "site_id")
+        .annotate(n=Count("*"))  # the in_service_totals index alone: no capacitor or motor joined
         .order_by()
     )
-    sites = list(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
+    sites = _site_codes(user)
     position = {week: k for k, week in enumerate(weeks)}
     by_risk = {risk: [0] * WEEKS for risk in RISK_ORDER}
-    by_site = {code: [0] * WEEKS for code in sites}
+    by_site = {code: [0] * WEEKS for code in sites.values()}
     for row in rows:
         k = position[row["week"]]
         by_risk.setdefault(row["risk"], [0] * WEEKS)[k] += row["n"]
-        by_site.setdefault(row["installation__motor__site__code"], [0] * WEEKS)[k] += row["n"]
+        by_site.setdefault(sites.get(row["site_id"]), [0] * WEEKS)[k] += row["n"]
     visits = (
         scope_to_user(WorkOrder.objects.all(), user)
         .filter(state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], due_on__lt=end)
         .annotate(week=_clamped("due_on", TruncWeek, first))
-        .values("week", "motor__site_id", "due_on")
-        .annotate(orders=Count("id"))
+        .values("week", "site_id", "due_on")  # the work order's stored site: the open_orders_by_visit index
+        .annotate(orders=Count("*"))
         .order_by()
     )
     visits_per_week = [0] * WEEKS
@@ -98,7 +110,7 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
         "by_site": {code: counts for code, counts in by_site.items() if any(counts)},
         "visits": visits_per_week,
         "total": sum(sum(counts) for counts in by_risk.values()),
-        "past_due": _in_service(user).filter(replace_by__lt=today).count(),
+        "past_due": in_service_assessments(user).filter(replace_by__lt=today).count(),
     }
 
 
@@ -117,11 +129,11 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     end = _add_months(first, MONTHS)
     position = {month: k for k, month in enumerate(months)}
     planned_rows = (
-        _in_service(user)
+        in_service_assessments(user)
         .filter(replace_by__lt=end)
         .annotate(month=_clamped("replace_by", TruncMonth, first))
-        .values("month", "installation__part_id")
-        .annotate(n=Count("id"))
+        .values("month", "part_id")
+        .annotate(n=Count("*"))  # the in_service_totals index alone
         .order_by()
     )
     groups = list(
@@ -136,7 +148,7 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
         .order_by()
     )
     fits = {f["part_id"]: f for f in PartLifeFit.objects.values("part_id", "beta", "eta_years")}
-    part_ids = sorted({row["installation__part_id"] for row in planned_rows} | {g["part_id"] for g in groups})
+    part_ids = sorted({row["part_id"] for row in planned_rows} | {g["part_id"] for g in groups})
     parts = {p.id: p for p in CapacitorPart.objects.filter(id__in=part_ids).order_by("dielectric", "rated_uf", "code")}
     stock = dict(
         scope_to_user(SiteStock.objects.filter(part_id__in=part_ids), user)
@@ -148,7 +160,7 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     index = {part_id: i for i, part_id in enumerate(order)}
     planned = np.zeros((len(order), MONTHS))
     for row in planned_rows:
-        planned[index[row["installation__part_id"]], position[row["month"]]] += row["n"]
+        planned[index[row["part_id"]], position[row["month"]]] += row["n"]
     failures = np.zeros((len(order), MONTHS))
     fitted = [g for g in groups if g["part_id"] in fits]
     if fitted:
@@ -205,12 +217,12 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
 
 def risk_mix(user=None) -> dict:
     """Capacitors in service per site by risk level, and those not assessed yet (two queries)."""
-    sites = list(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
-    mix = {site: dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0) for site in sites}
-    for site, risk, n in (
-        _in_service(user).values_list("installation__motor__site__code", "risk").annotate(n=Count("id")).order_by()
-    ):
-        mix.setdefault(site, dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0))[risk] = n
+    sites = _site_codes(user)
+    mix = {site: dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0) for site in sites.values()}
+    for site_id, risk, n in (
+        in_service_assessments(user).values_list("site_id", "risk").annotate(n=Count("*")).order_by()
+    ):  # the in_service_by_site_risk index alone
+        mix.setdefault(sites.get(site_id), dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0))[risk] = n
     unassessed = (
         scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True), user)
         .annotate(current=FilteredRelation("assessments", condition=Q(assessments__is_current=True)))
@@ -242,94 +254,86 @@ def overdue_capacitors(user=None, today: dt.date | None = None):
 
 
 def readings_by_route(user=None, today: dt.date | None = None) -> dict:
-    """Per site's reading route: capacitors in service overdue, due this quarter (not read since
-    it began) and read this quarter (one query)."""
+    """Per site's reading route: motors in service overdue, due this quarter (not read since it
+    began) and read this quarter, as the route page counts them: from each motor's stored newest
+    reading (`Motor.last_read_at`, kept by a trigger on readings), one aggregate over the
+    (site, status, last_read_at) index. A motor never read is overdue once commissioned before
+    the overdue day, due otherwise."""
     today = today or timezone.localdate()
     cutoff = dt.datetime.combine(overdue_before(today), dt.time(), tzinfo=dt.UTC)
     quarter = dt.datetime.combine(quarter_start(today), dt.time(), tzinfo=dt.UTC)
-    never_read_overdue = Q(last_read__isnull=True, fitted_on__lt=overdue_before(today))
-    status = Case(
-        When(Q(last_read__lt=cutoff) | never_read_overdue, then=Value("overdue")),
-        When(Q(last_read__isnull=True) | Q(last_read__lt=quarter), then=Value("due")),
-        default=Value("read"),
-    )
-    rows = (
-        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
-        .annotate(last_read=last_read_subquery())
-        .annotate(status=status)
-        .values("motor__site__code", "motor__site__name", "status")
-        .annotate(n=Count("id"), motors=Count("motor", distinct=True))
-        .order_by("motor__site__code")
-    )
-    routes: dict[str, dict] = {}
-    for row in rows:
-        route = routes.setdefault(
-            row["motor__site__code"],
-            {"code": row["motor__site__code"], "name": row["motor__site__name"], "overdue": 0, "due": 0, "read": 0},
+    never_read = Q(last_read_at__isnull=True)
+    overdue = Q(last_read_at__lt=cutoff) | (never_read & Q(commissioned_on__lt=overdue_before(today)))
+    due = ~overdue & (never_read | Q(last_read_at__lt=quarter))
+    counts = (
+        scope_to_user(Motor.objects.filter(status=Motor.Status.IN_SERVICE), user)
+        .values("site_id")
+        .annotate(
+            overdue=Count("site", filter=overdue),
+            due=Count("site", filter=due),
+            read=Count("site", filter=Q(last_read_at__gte=quarter)),
         )
-        route[row["status"]] = row["n"]
-        if row["status"] == "overdue":
-            route["overdue_motors"] = row["motors"]
-    return {"quarter_start": quarter.date(), "overdue_before": overdue_before(today), "routes": list(routes.values())}
+        .order_by()
+    )
+    by_site = {row["site_id"]: row for row in counts}
+    routes = [
+        {"code": site.code, "name": site.name, **{k: by_site[site.id][k] for k in ("overdue", "due", "read")}}
+        for site in scope_to_user(Site.objects.filter(id__in=by_site), user).order_by("code")
+    ]
+    return {"quarter_start": quarter.date(), "overdue_before": overdue_before(today), "routes": routes}
 
 
 def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     """What moved in the last `days`: readings taken, refits run, capacitors reassessed and how
-    their risk level and governing limit moved, replacements; the riskier ones with the reason."""
+    their risk level moved, replacements; the riskier ones with the reason and the governing limit
+    they had before.
+
+    Read from each current assessment's stored risk history (`risk_was`, `risk_changed_at`, as the
+    plan's list of changes): a capacitor whose level changed within the window moved from
+    `risk_was`, whatever it was judged in between; reassessed but not changed, it stayed at its level.
+    """
     since = timezone.now() - dt.timedelta(days=days)
     readings = scope_to_user(Reading.objects.filter(taken_at__gte=since), user).count()
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
-    severity = {risk: rank for rank, risk in enumerate(RISK_ORDER)}
-    moves = {"riskier": 0, "less_risky": 0, "same_level": 0, "first_assessed": 0, "limit_changed": 0}
-    for previous, risk, limit_changed, n in (
-        assessed_since(since, user)
-        .annotate(
-            limit_changed=Case(
-                When(Q(previous_limit__isnull=False) & ~Q(previous_limit=F("limit_source")), then=1),
-                default=0,
-            )
-        )
-        .values_list("previous_risk", "risk", "limit_changed")
-        .annotate(n=Count("id"))
-        .order_by()
-    ):
-        if previous is None:
-            moves["first_assessed"] += n
-        elif severity.get(risk, len(RISK_ORDER)) < severity.get(previous, len(RISK_ORDER)):
-            moves["riskier"] += n
-        elif severity.get(risk, len(RISK_ORDER)) > severity.get(previous, len(RISK_ORDER)):
-            moves["less_risky"] += n
-        else:
-            moves["same_level"] += n
-        moves["limit_changed"] += n if limit_changed else 0
+    reassessed = in_service_assessments(user).filter(created_at__gte=since).count()
+    worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
+    before_change = Assessment.objects.filter(
+        installation=OuterRef("installation"), created_at__lt=OuterRef("risk_changed_at")
+    ).order_by("-created_at", "-id")
+    previous_limit = Subquery(before_change.values("limit_source")[:1])
+    worse = list(worse.annotate(previous_limit=previous_limit))
+    # Among the capacitors whose level changed only (one look-up each, not one per capacitor reassessed).
+    limit_changed = (
+        in_service_assessments(user)
+        .filter(risk_changed_at__gte=since)
+        .exclude(risk_was="")
+        .annotate(previous_limit=previous_limit)
+        .filter(previous_limit__isnull=False)
+        .exclude(previous_limit=F("limit_source"))
+        .count()
+    )
+    moves = {
+        "riskier": counts["worse"],
+        "less_risky": counts["better"],
+        "same_level": reassessed - counts["worse"] - counts["better"] - counts["first_assessed"],
+        "first_assessed": counts["first_assessed"],
+        "limit_changed": limit_changed,
+    }
     replaced = dict(
         scope_to_user(FittedCapacitor.objects.filter(removed_on__gte=since.date()), user)
         .values_list("removal_reason")
         .annotate(n=Count("id"))
         .order_by()
     )
-    changed = (
-        assessed_since(since, user)
-        .filter(previous_risk__isnull=False)
-        .exclude(previous_risk=F("risk"))
-        .select_related("installation__motor__site", "installation__part")
-        .order_by("replace_by", "installation_id")
-    )
-    worse, better = [], []
-    for assessment in changed[: 4 * limit]:  # bounded: the page lists at most `limit` of each
-        was = severity.get(assessment.previous_risk, len(RISK_ORDER))
-        (worse if severity.get(assessment.risk, len(RISK_ORDER)) < was else better).append(assessment)
-    worse, better = worse[:limit], better[:limit]
     return {
         "days": days,
         "readings": readings,
         "refit_runs": refit_runs,
-        "reassessed": sum(v for k, v in moves.items() if k != "limit_changed"),
+        "reassessed": reassessed,
         "moves": moves,
         "replaced": sum(replaced.values()),
         "failed": replaced.get(FittedCapacitor.RemovalReason.FAILED, 0),
         "worse": worse,
-        "better": better,
     }
 
 

@@ -12,11 +12,9 @@ from django.db.models import (
     Count,
     ExpressionWrapper,
     F,
-    OuterRef,
     Prefetch,
     Q,
     Subquery,
-    Sum,
     Value,
     When,
 )
@@ -26,7 +24,7 @@ from fleet.charts import trend_figure
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, path_band, reading_stress_hours
-from fleet.models import Assessment, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site
+from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site
 from fleet.roles import scope_to_user
 
 from .assessments import _hours_since_fitting
@@ -206,48 +204,26 @@ def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None
         .order_by("replace_by", "installation__motor__site__code", "installation__motor__route_order")
     )
     if site is not None:
-        queryset = queryset.filter(installation__motor__site=site)
+        queryset = queryset.filter(site=site)
     return queryset
 
 
-def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None):
-    """Parts to hold for the plan's replacements (same window, same sites), with their cost."""
-    return (
-        replacement_plan(horizon_days, site, user)
-        .order_by()
-        .values(
-            "installation__part__code",
-            "installation__part__rated_uf",
-            "installation__part__rated_voltage_v",
-            "installation__part__dielectric",
-        )
-        .annotate(quantity=Count("*"), cost=Sum("installation__part__unit_cost"))  # COUNT(*): no assessment row read
-        .order_by("installation__part__code")
+def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None) -> list[dict]:
+    """Parts to hold for the plan's replacements (same window, same sites), with their cost: each
+    `{"part", "quantity", "cost"}`, by part code. Counted on each assessment's stored part (the
+    in_service_totals index alone, whatever the fleet's size), then the few parts are read."""
+    quantities = dict(
+        replacement_plan(horizon_days, site, user).order_by().values_list("part_id").annotate(n=Count("*"))
     )
+    parts = CapacitorPart.objects.filter(id__in=[p for p in quantities if p is not None]).order_by("code")
+    return [{"part": p, "quantity": quantities[p.id], "cost": quantities[p.id] * p.unit_cost} for p in parts]
 
 
 def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
 
 
-def assessed_since(since: dt.datetime, user=None):
-    """Current assessments (capacitors in service) written since `since`, each with the risk level and
-    governing limit of the assessment that was current then (`previous_risk`, `previous_limit`; None
-    for a capacitor first assessed since)."""
-    before = Assessment.objects.filter(installation=OuterRef("installation"), created_at__lt=since).order_by(
-        "-created_at"
-    )
-    return (
-        current_assessments(user)
-        .filter(installation__removed_on__isnull=True, created_at__gte=since)
-        .annotate(
-            previous_risk=Subquery(before.values("risk")[:1]),
-            previous_limit=Subquery(before.values("limit_source")[:1]),
-        )
-    )
-
-
-def risk_changes(days: int = 7, limit: int = 50, user=None):
+def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime | None = None):
     """Capacitors in service whose risk level changed in the last `days`, read from each current
     assessment's stored risk history: (worse, better, counts) with at most `limit` of each, soonest
     replacement first, and counts {"worse", "better", "first_assessed"} of all of them.
@@ -256,7 +232,7 @@ def risk_changes(days: int = 7, limit: int = 50, user=None):
     picks its `limit` rows from the assessments alone, then joins motors and parts for those.
     A capacitor first assessed in the window has no level to compare with: it is counted apart.
     """
-    since = timezone.now() - dt.timedelta(days=days)
+    since = since or timezone.now() - dt.timedelta(days=days)
     recent = in_service_assessments(user).filter(risk_changed_at__gte=since)
     rank = {risk: position for position, risk in enumerate(RISK_ORDER)}
     rank_now = Case(*[When(risk=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
