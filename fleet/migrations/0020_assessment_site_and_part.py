@@ -128,7 +128,7 @@ POSTGRES_BACKWARD = [
 
 
 class Migration(migrations.Migration):
-    dependencies = [("fleet", "0018_work_order_site")]
+    dependencies = [("fleet", "0019_unit_labels")]
 
     operations = [
         migrations.AddField(
