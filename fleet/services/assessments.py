@@ -668,8 +668,8 @@ CURRENT_SQL = (
 
 
 def _current_assessments(installation_ids: np.ndarray) -> pd.DataFrame:
-    """The current assessments of these capacitors (one query; COPY on PostgreSQL, times as
-    microseconds so no datetime is parsed row by row), indexed by capacitor."""
+    """The current assessments of these capacitors (one query; on PostgreSQL one text value with
+    times as microseconds, so no datetime is parsed row by row), indexed by capacitor."""
     if not len(installation_ids):
         return pd.DataFrame(columns=CURRENT_COLUMNS).set_index("installation_id")
     if on_postgresql():
