@@ -1,4 +1,5 @@
-"""fleet.services.bulk: `insert_frame` stores what the ORM would, `field__any_of` finds what `field__in` finds.
+"""fleet.services.bulk: `insert_frame` stores what the ORM would, `field__any_of` finds what `field__in` finds,
+`select_frame` reads back what the ORM reads.
 
 [derived] the ORM's own reads are the reference: a row written in bulk must read back as the
 values given, and a filter must return the rows `__in` returns.
@@ -12,7 +13,7 @@ import pytest
 from django.db import IntegrityError, transaction
 
 from fleet.models import FittedCapacitor, Motor, Reading
-from fleet.services.bulk import SEPARATOR, insert_frame
+from fleet.services.bulk import SEPARATOR, insert_frame, select_frame
 
 from .conftest import make_installation, make_motor
 
@@ -98,3 +99,40 @@ def test_skipping_conflicts_still_refuses_a_row_that_breaks_a_rule(three_motors)
     with pytest.raises(IntegrityError), transaction.atomic():
         insert_frame(Reading, _readings(three_motors[0], ["k-1"], capacitance_uf=-1.0), skip_conflicts_on="import_key")
     assert not Reading.objects.exists()
+
+
+AWKWARD_NOTES = ["", "a, b", 'said "open"', "C:\\motors\\(fan)", "two\nlines", "  spaced  ", "NULL", "\u00b5F"]
+
+
+def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
+    # Text that CSV or a row's text form must quote (commas, quotes, backslashes, parentheses, line
+    # breaks, edge spaces), empty text apart from NULL, numbers exact to the last digit.
+    installation = three_motors[0]
+    frame = pd.DataFrame(
+        {
+            "installation_id": installation.id,
+            "taken_at": pd.date_range("2024-01-01", periods=len(AWKWARD_NOTES), freq="D", tz="UTC"),
+            "method": "meter",
+            "capacitance_uf": 3.9 + np.arange(len(AWKWARD_NOTES)) / 3,
+            "esr_ohm": [0.1 / 3, np.nan] * (len(AWKWARD_NOTES) // 2),
+            "notes": AWKWARD_NOTES,
+            "client_key": [None if n % 2 == 0 else f"k,{n}" for n in range(len(AWKWARD_NOTES))],
+            "source": "import",
+        }
+    )
+    insert_frame(Reading, frame)
+    columns = ["id", "notes", "client_key", "capacitance_uf", "esr_ohm", "supersedes_id"]
+    read = select_frame(
+        "SELECT id, notes, client_key, capacitance_uf, esr_ohm, supersedes_id FROM fleet_reading"
+        " WHERE installation_id = %s",
+        [installation.id],
+        columns,
+    ).sort_values("id")
+    expected = list(Reading.objects.filter(installation=installation).order_by("id").values_list(*columns))
+    assert len(read) == len(expected) == len(AWKWARD_NOTES)
+    for row, want in zip(read.itertuples(index=False), expected, strict=True):
+        assert row.id == want[0] and row.notes == want[1] and row.capacitance_uf == want[3]
+        assert row.client_key == want[2] if want[2] is not None else pd.isna(row.client_key)
+        assert row.esr_ohm == want[4] if want[4] is not None else pd.isna(row.esr_ohm)
+        assert pd.isna(row.supersedes_id) and want[5] is None
+    assert select_frame("SELECT id FROM fleet_reading WHERE id < 0", [], ["id"]).empty

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from django.conf import settings
-from django.db import transaction
+from django.db import connection, transaction
 from django.db.models import Exists, OuterRef
 from django.utils import timezone
 
@@ -605,7 +605,9 @@ def refit_installations(
                 installation_id__any_of=inst["installation_id"].to_numpy(np.int64),
                 is_current=True,
                 model_version=MODEL_VERSION,
-            ).values_list("installation_id", "max_reading_id", "created_at"),
+            )
+            .order_by()
+            .values_list("installation_id", "max_reading_id", "created_at"),
             columns=["installation_id", "max_reading_id", "created_at"],
         ).set_index("installation_id")
         seen = seen.reindex(inst["installation_id"])
@@ -632,6 +634,12 @@ def refit_installations(
     )
     rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():
+        if on_postgresql():
+            # Derived rows, recomputed by the next refit if a crash lost them: the commit need not
+            # wait for the disk. The chunk's progress record commits after, durably, and that
+            # flushes this one with it.
+            with connection.cursor() as cursor:
+                cursor.execute("SET LOCAL synchronous_commit TO OFF")
         # Two refits of one capacitor at once (two readings saved together, two workers) take
         # turns from here: the second then sees the first's assessment, marks it superseded
         # instead of inserting a second current one, and writes nothing older over it.
@@ -639,11 +647,12 @@ def refit_installations(
             FittedCapacitor.objects.select_for_update()
             .filter(pk__any_of=inst.index.to_numpy(np.int64))
             .order_by("pk")
-            .values("pk")
+            .values_list("pk", flat=True)
         )
+        current = _current_assessments(rows["installation_id"].to_numpy(np.int64))
         if not as_of:
-            rows = _not_older_than_stored(rows)
-        _carry_risk_history(rows, now)
+            rows = _not_older_than(rows, current)
+        _carry_risk_history(rows, current, now)
         Assessment.objects.filter(
             installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
         ).update(is_current=False)
@@ -651,45 +660,44 @@ def refit_installations(
     return RefitOutcome(written=len(rows), skipped=len(ids) - len(rows), readings=int(len(readings)))
 
 
-def _not_older_than_stored(rows: pd.DataFrame) -> pd.DataFrame:
-    """The new assessments less those whose capacitor's current one already covers a newer
-    reading (written meanwhile by a refit that started later)."""
-    stored = pd.Series(
-        dict(
-            Assessment.objects.filter(
-                installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
-            ).values_list("installation_id", "max_reading_id")
-        ),
-        dtype="float64",
-    )
-    newer = stored.reindex(rows["installation_id"].to_numpy()).to_numpy() > rows["max_reading_id"].to_numpy(float)
-    return rows[~newer].reset_index(drop=True)
-
-
-CURRENT_RISK_SQL = (
-    "SELECT installation_id, risk, risk_was, (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
-    " FROM fleet_assessment WHERE is_current AND installation_id = ANY(%s)"
+CURRENT_COLUMNS = ["installation_id", "max_reading_id", "risk", "risk_was", "risk_changed_at"]
+CURRENT_SQL = (
+    "SELECT installation_id, max_reading_id, risk, risk_was, (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
+    " FROM fleet_assessment WHERE is_current AND installation_id BETWEEN %s AND %s AND installation_id = ANY(%s)"
 )
 
 
-def _carry_risk_history(rows: pd.DataFrame, now: dt.datetime) -> None:
-    """Each new assessment keeps when its risk level took its present value and what it was
-    before (one query), so the plan lists recent changes without comparing assessment histories."""
-    columns = ["installation_id", "risk", "risk_was", "risk_changed_at"]
-    if on_postgresql():  # COPY, times as microseconds: no datetime parsed row by row
-        before = select_frame(CURRENT_RISK_SQL, [[int(i) for i in rows["installation_id"]]], columns)
-        before["risk_changed_at"] = pd.to_datetime(before["risk_changed_at"], unit="us", utc=True)
+def _current_assessments(installation_ids: np.ndarray) -> pd.DataFrame:
+    """The current assessments of these capacitors (one query; on PostgreSQL one text value with
+    times as microseconds, so no datetime is parsed row by row), indexed by capacitor."""
+    if not len(installation_ids):
+        return pd.DataFrame(columns=CURRENT_COLUMNS).set_index("installation_id")
+    if on_postgresql():
+        ids = installation_ids.tolist()
+        frame = select_frame(CURRENT_SQL, [min(ids), max(ids), ids], CURRENT_COLUMNS)
+        frame["risk_changed_at"] = pd.to_datetime(frame["risk_changed_at"], unit="us", utc=True)
     else:
-        before = pd.DataFrame(
-            Assessment.objects.filter(
-                installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
-            ).values_list(*columns),
-            columns=columns,
+        frame = pd.DataFrame(
+            Assessment.objects.filter(installation_id__any_of=installation_ids, is_current=True)
+            .order_by()
+            .values_list(*CURRENT_COLUMNS),
+            columns=CURRENT_COLUMNS,
         )
-    before = before.astype({"installation_id": np.int64, "risk": object, "risk_was": object}).set_index(
-        "installation_id"
-    )
-    before = before.reindex(rows["installation_id"].to_numpy())
+    frame = frame.astype({"installation_id": np.int64, "max_reading_id": float, "risk": object, "risk_was": object})
+    return frame.set_index("installation_id")
+
+
+def _not_older_than(rows: pd.DataFrame, current: pd.DataFrame) -> pd.DataFrame:
+    """The new assessments less those whose capacitor's current one already covers a newer
+    reading (written meanwhile by a refit that started later)."""
+    stored = current["max_reading_id"].reindex(rows["installation_id"].to_numpy()).to_numpy(float)
+    return rows[~(stored > rows["max_reading_id"].to_numpy(float))].reset_index(drop=True)
+
+
+def _carry_risk_history(rows: pd.DataFrame, current: pd.DataFrame, now: dt.datetime) -> None:
+    """Each new assessment keeps when its risk level took its present value and what it was
+    before, so the plan lists recent changes without comparing assessment histories."""
+    before = current.reindex(rows["installation_id"].to_numpy())
     same = before["risk"].to_numpy(object) == rows["risk"].to_numpy(object)
     changed_at = before["risk_changed_at"].astype(object).where(before["risk_changed_at"].notna(), now).to_numpy(object)
     rows["risk_was"] = np.where(

@@ -7,7 +7,7 @@ row, as for any INSERT. Writes here send no signals and write no audit entries: 
 for derived rows (assessments), imported readings and invented benchmark fleets, never for
 register changes a person made.
 
-Reads: `select_frame` (COPY TO STDOUT on PostgreSQL) and `field__any_of=array`, a filter on
+Reads: `select_frame` (one text value parsed by pyarrow on PostgreSQL) and `field__any_of=array`, a filter on
 tens of thousands of values sent as one parameter (`field__in` sends one placeholder per
 value, and building that query costs more than running it).
 """
@@ -188,7 +188,12 @@ class AnyOf(Lookup):
             if joined.count(SEPARATOR) == len(values) - 1:
                 return f"{lhs} = ANY(string_to_array(%s, %s))", [*lhs_params, joined, SEPARATOR]
         if values and all(isinstance(v, int) and not isinstance(v, bool) for v in values):
-            return f"{lhs} = ANY(string_to_array(%s, ',')::bigint[])", [*lhs_params, ",".join(map(str, values))]
+            # The range lets the planner see how few rows a chunk of neighbouring ids is: without
+            # it, it guesses from the table's size and scans all of it (in parallel).
+            return (
+                f"({lhs} BETWEEN %s AND %s AND {lhs} = ANY(string_to_array(%s, ',')::bigint[]))",
+                [*lhs_params, min(values), max(values), *lhs_params, ",".join(map(str, values))],
+            )
         return f"{lhs} = ANY(%s)", [*lhs_params, values]
 
 
@@ -202,22 +207,42 @@ def storable_ids(ids) -> list[int]:
 
 
 def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
-    """The rows of one SELECT as a frame: COPY TO STDOUT on PostgreSQL, one fetch elsewhere.
+    """The rows of one SELECT as a frame, for chunk-sized selects (at most a few million values).
 
-    Strings come back as text, so the caller casts what it needs; NULL is NaN or None.
+    PostgreSQL: the server writes every row as CSV text into one value (`string_agg` of each row's
+    text form), and pyarrow parses it in one pass: no Python per row, where reading a COPY gives
+    one message, and so one Python call, per row. Elsewhere, one fetch. Strings come back as
+    text, so the caller casts what it needs; NULL is NaN or None.
     """
     if on_postgresql():
-        with (
-            connection.cursor() as cursor,
-            cursor.cursor.copy(f"COPY ({sql}) TO STDOUT WITH (FORMAT csv)", params) as copy,
-        ):
-            data = b"".join(bytes(block) for block in copy)
-        if not data:
+        with connection.cursor() as cursor:
+            cursor.execute(f"SELECT string_agg(btrim(q::text, '()'), E'\\n') FROM ({sql}) AS q", params)
+            text = cursor.fetchone()[0]
+        if not text:
             return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
-        return pd.read_csv(io.BytesIO(data), header=None, names=columns, keep_default_na=False, na_values=[""])
+        return _row_texts_frame(text.encode(), columns)
     with connection.cursor() as cursor:
         cursor.execute(sql, params)
         return pd.DataFrame.from_records(cursor.fetchall(), columns=columns)
+
+
+def _row_texts_frame(data: bytes, columns: list[str]) -> pd.DataFrame:
+    """Rows in PostgreSQL's text form of a row, less its parentheses, one a line: CSV where a
+    value that is empty or holds a comma, quote, backslash, parenthesis or white space is quoted,
+    with its quotes and backslashes doubled; NULL is an empty field."""
+    table = arrow_csv.read_csv(
+        io.BytesIO(data),
+        read_options=arrow_csv.ReadOptions(column_names=columns, use_threads=False),
+        parse_options=arrow_csv.ParseOptions(escape_char="\\", double_quote=True, newlines_in_values=True),
+        convert_options=arrow_csv.ConvertOptions(
+            null_values=[""], strings_can_be_null=True, quoted_strings_can_be_null=False
+        ),
+    )
+    frame = table.to_pandas()
+    for name, kind in zip(table.column_names, table.schema.types, strict=True):
+        if pa.types.is_null(kind):  # every value NULL: NaN, as a CSV reader gives
+            frame[name] = frame[name].astype(float)
+    return frame
 
 
 def copy_read_floor(model) -> tuple[int, float]:

@@ -49,8 +49,10 @@ INSTALLATION_COLUMNS = {
 
 def installations_frame(installation_ids) -> pd.DataFrame:
     """Fitted capacitors with their part and motor, one row each (one query)."""
-    rows = FittedCapacitor.objects.filter(id__any_of=np.fromiter(installation_ids, np.int64)).values_list(
-        *INSTALLATION_COLUMNS
+    rows = (
+        FittedCapacitor.objects.filter(id__any_of=np.fromiter(installation_ids, np.int64))
+        .order_by()  # sorted below: the model's own order would sort by the motors' tags
+        .values_list(*INSTALLATION_COLUMNS)
     )
     frame = pd.DataFrame.from_records(list(rows), columns=list(INSTALLATION_COLUMNS.values()))
     for column in ("part_tempco_ppm_per_k", "max_dissipation_factor"):
@@ -64,9 +66,11 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     A two-value motor starts on run + start in parallel, so judging either
     capacitor needs the other's rating.
     """
-    rows = FittedCapacitor.objects.filter(
-        motor_id__any_of=np.fromiter(motor_ids, np.int64), removed_on__isnull=True
-    ).values_list("motor_id", "role", "part__rated_uf")
+    rows = (
+        FittedCapacitor.objects.filter(motor_id__any_of=np.fromiter(motor_ids, np.int64), removed_on__isnull=True)
+        .order_by()  # one capacitor in service per motor and role: no order needed, and no join to sort by
+        .values_list("motor_id", "role", "part__rated_uf")
+    )
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
     if frame.empty:
         return pd.DataFrame(columns=["run", "start"], dtype=float)
@@ -90,7 +94,7 @@ READING_COLUMNS = [
 READINGS_SQL = (
     "SELECT id, installation_id, (EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint, capacitance_uf,"
     " case_temperature_c, capacitor_voltage_v, esr_ohm, supersedes_id, condition"
-    " FROM fleet_reading WHERE installation_id = ANY(%s)"
+    " FROM fleet_reading WHERE installation_id BETWEEN %s AND %s AND installation_id = ANY(%s)"
 )
 
 
@@ -99,7 +103,7 @@ def readings_frame(installation_ids) -> pd.DataFrame:
     with `taken_at` in UTC and a `superseded` column."""
     ids = [int(i) for i in installation_ids]
     if on_postgresql():
-        frame = select_frame(READINGS_SQL, [ids], READING_COLUMNS)
+        frame = select_frame(READINGS_SQL, [min(ids, default=0), max(ids, default=0), ids], READING_COLUMNS)
         frame["taken_at"] = pd.to_datetime(frame["taken_at"].astype(np.int64), unit="us", utc=True)
     else:
         rows = Reading.objects.filter(installation_id__any_of=np.array(ids, np.int64)).values_list(*READING_COLUMNS)
