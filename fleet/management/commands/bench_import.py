@@ -17,10 +17,7 @@ import contextlib
 import datetime as dt
 import hashlib
 import io
-import os
-import resource
 import time
-from pathlib import Path
 
 import numpy as np
 from django.core.management.base import BaseCommand
@@ -29,6 +26,7 @@ from django.utils import timezone
 
 from fleet.engineering.nameplate import Nameplate, estimate_designs, estimate_parameters
 from fleet.imports import insert_readings
+from fleet.management.commands.bench_fleet import _cpu_seconds
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from fleet.services.circuits import estimate_circuits
 from fleet.services.demo import DEMO_PARTS, DESIGNS, EXAMPLE_FAN_CIRCUIT, EXAMPLE_FAN_NAMEPLATE, FREQUENCY_HZ, VOLTAGE_V
@@ -233,19 +231,20 @@ class Command(BaseCommand):
                 cursor.execute("VACUUM fleet_reading, fleet_motor")
 
     def _cpu(self) -> tuple[float, float]:
-        """CPU seconds so far of this process and of its database server process (on this machine)."""
-        usage = resource.getrusage(resource.RUSAGE_SELF)
+        """CPU seconds so far of this process and of its database server process (PostgreSQL on this machine)."""
         server = 0.0
         if connection.vendor == "postgresql":
             with connection.cursor() as cursor:
                 cursor.execute("SELECT pg_backend_pid()")
                 (pid,) = cursor.fetchone()
-            try:
-                fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-                server = (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
-            except OSError:
-                server = float("nan")
-        return usage.ru_utime + usage.ru_stime, server
+            server = _cpu_seconds(pid)
+        return _cpu_seconds(), server
+
+    def _commit_checks(self) -> None:
+        """Run now the deferred foreign-key checks a commit would run (the runs here are rolled back)."""
+        if connection.vendor == "postgresql":
+            with connection.cursor() as cursor:
+                cursor.execute("SET CONSTRAINTS ALL IMMEDIATE")
 
     def _since(self, before: tuple[float, float]) -> tuple[float, float]:
         now = self._cpu()
@@ -272,7 +271,7 @@ class Command(BaseCommand):
                 with cursor.copy(f"COPY fleet_reading ({READING_COPY_COLUMNS}) FROM STDIN") as copy:
                     for start in range(0, rows, 10_000):
                         copy.write("".join(lines[start : start + 10_000]))
-                cursor.execute("SET CONSTRAINTS ALL IMMEDIATE")  # the foreign-key checks a commit would run
+                self._commit_checks()
                 seconds = time.perf_counter() - started
                 if seconds < best[trigger_off]:
                     best[trigger_off], cpu[trigger_off] = seconds, self._since(before)
@@ -293,9 +292,7 @@ class Command(BaseCommand):
         with rolled_back():
             started, before = time.perf_counter(), self._cpu()
             outcome = _import_all(ImportJob.Kind.READINGS, content)
-            if connection.vendor == "postgresql":
-                with connection.cursor() as cursor:
-                    cursor.execute("SET CONSTRAINTS ALL IMMEDIATE")
+            self._commit_checks()
             self._report(
                 "readings import (check and write, before refits)",
                 time.perf_counter() - started,
@@ -307,9 +304,7 @@ class Command(BaseCommand):
         with rolled_back():
             started, before = time.perf_counter(), self._cpu()
             insert_readings(result.good)
-            if connection.vendor == "postgresql":
-                with connection.cursor() as cursor:
-                    cursor.execute("SET CONSTRAINTS ALL IMMEDIATE")
+            self._commit_checks()
             self._report(
                 "  of which the write (COPY, triggers on)",
                 time.perf_counter() - started,
