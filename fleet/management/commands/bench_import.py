@@ -225,8 +225,8 @@ class Command(BaseCommand):
 
     def _vacuum(self) -> None:
         """Rolled-back inserts leave dead rows and index entries that the next insert of the same keys
-        must step over: clear them so every timed run starts alike (PostgreSQL)."""
-        if connection.vendor == "postgresql":
+        must step over: clear them so every timed run starts alike (PostgreSQL, outside a transaction)."""
+        if connection.vendor == "postgresql" and not connection.in_atomic_block:
             with connection.cursor() as cursor:
                 cursor.execute("VACUUM fleet_reading, fleet_motor")
 
