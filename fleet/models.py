@@ -596,7 +596,7 @@ class Assessment(models.Model):
     risk_changed_at = models.DateTimeField(
         null=True, blank=True, help_text="When the risk level took its present value (carried over by later refits)"
     )
-    # Its capacitor's site and part, kept by database triggers (migration 0019), so the plan's spares,
+    # Its capacitor's site and part, kept by database triggers (migration 0020), so the plan's spares,
     # the risk counts and the dashboard aggregate one table's index instead of joining every capacitor.
     site = kept_by_triggers(Site, "Its capacitor's motor's site; kept by database triggers")
     part = kept_by_triggers(CapacitorPart, "Its capacitor's part; kept by database triggers")

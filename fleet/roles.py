@@ -71,7 +71,7 @@ SITE_PATHS = {
     "motor": "site",
     "fittedcapacitor": "motor__site",
     "reading": "installation__motor__site",
-    "assessment": "site",  # stored on the assessment, kept by triggers (migration 0019)
+    "assessment": "site",  # stored on the assessment, kept by triggers (migration 0020)
     "workorder": "site",
     "sitestock": "site",
 }

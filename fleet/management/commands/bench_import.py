@@ -3,10 +3,12 @@
 Builds (once, under its own site) motors with run capacitors, writes a readings file of
 `--rows` rows and a register file of `--register` motors, then times, each inside a
 transaction that is rolled back (so the command can run again on the same database):
-the COPY floor of the readings table (PostgreSQL; with and without the insert trigger),
+the COPY floor of the readings table (PostgreSQL; with and without the insert trigger; with the
+foreign-key checks a commit runs, forced before the rollback),
 the check of the readings file (the dry run), its import (check and write, before the
 refits it queues), the nameplate circuit estimate per design, and the register import
-with its circuit estimates. Prints figures; asserts nothing.
+with its circuit estimates. Prints wall seconds and, beside them, the CPU seconds of this process and
+of its database server process (on a shared machine the steadier figure). Prints figures; asserts nothing.
 """
 
 from __future__ import annotations
@@ -24,6 +26,7 @@ from django.utils import timezone
 
 from fleet.engineering.nameplate import Nameplate, estimate_designs, estimate_parameters
 from fleet.imports import insert_readings
+from fleet.management.commands.bench_fleet import _cpu_seconds
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from fleet.services.circuits import estimate_circuits
 from fleet.services.demo import DEMO_PARTS, DESIGNS, EXAMPLE_FAN_CIRCUIT, EXAMPLE_FAN_NAMEPLATE, FREQUENCY_HZ, VOLTAGE_V
@@ -198,8 +201,9 @@ class Command(BaseCommand):
         parser.add_argument("--capacitors", type=int, default=12_500, help="capacitors the readings belong to")
         parser.add_argument("--register", type=int, default=10_000, help="motors in the register file")
         parser.add_argument("--designs", type=int, default=100, help="distinct nameplates in the register file")
+        parser.add_argument("--readings-only", action="store_true", help="skip circuit estimates and the register")
 
-    def handle(self, *args, rows, capacitors, register, designs, **options):
+    def handle(self, *args, rows, capacitors, register, designs, readings_only, **options):
         self.stdout.write(f"database: {connection.vendor}; {dt.datetime.now(dt.UTC):%Y-%m-%d %H:%M} UTC")
         started = time.perf_counter()
         site = bench_fleet(capacitors)
@@ -210,11 +214,41 @@ class Command(BaseCommand):
         if connection.vendor == "postgresql":
             self._copy_floor(site, rows)
         self._readings(content, rows)
+        if readings_only:
+            return
         self._designs(bench_designs(designs))
         self._register(site, register, bench_designs(designs))
 
-    def _report(self, what: str, seconds: float, rows: int) -> None:
-        self.stdout.write(f"{what}: {seconds:.2f} s for {rows:,} rows ({rows / seconds:,.0f} rows/s)")
+    def _report(self, what: str, seconds: float, rows: int, cpu: tuple[float, float] | None = None) -> None:
+        used = f"; CPU {cpu[0]:.2f} s here + {cpu[1]:.2f} s database, {rows / sum(cpu):,.0f} rows/CPU-s" if cpu else ""
+        self.stdout.write(f"{what}: {seconds:.2f} s for {rows:,} rows ({rows / seconds:,.0f} rows/s{used})")
+
+    def _vacuum(self) -> None:
+        """Rolled-back inserts leave dead rows and index entries that the next insert of the same keys
+        must step over: clear them so every timed run starts alike (PostgreSQL, outside a transaction)."""
+        if connection.vendor == "postgresql" and not connection.in_atomic_block:
+            with connection.cursor() as cursor:
+                cursor.execute("VACUUM fleet_reading, fleet_motor")
+
+    def _cpu(self) -> tuple[float, float]:
+        """CPU seconds so far of this process and of its database server process (PostgreSQL on this machine)."""
+        server = 0.0
+        if connection.vendor == "postgresql":
+            with connection.cursor() as cursor:
+                cursor.execute("SELECT pg_backend_pid()")
+                (pid,) = cursor.fetchone()
+            server = _cpu_seconds(pid)
+        return _cpu_seconds(), server
+
+    def _commit_checks(self) -> None:
+        """Run now the deferred foreign-key checks a commit would run (the runs here are rolled back)."""
+        if connection.vendor == "postgresql":
+            with connection.cursor() as cursor:
+                cursor.execute("SET CONSTRAINTS ALL IMMEDIATE")
+
+    def _since(self, before: tuple[float, float]) -> tuple[float, float]:
+        now = self._cpu()
+        return now[0] - before[0], now[1] - before[1]
 
     def _copy_floor(self, site: Site, rows: int) -> None:
         """COPY IN of as many reading rows, with the insert trigger and with it off (rolled back both times)."""
@@ -227,37 +261,56 @@ class Command(BaseCommand):
             for n in range(rows)
         ]
         best = {False: float("inf"), True: float("inf")}
+        cpu = {}
         for trigger_off in (False, True) * 3:  # alternated, best of three: other work on the machine varies
+            self._vacuum()
             with rolled_back(), connection.cursor() as cursor:
                 if trigger_off:
                     cursor.execute("ALTER TABLE fleet_reading DISABLE TRIGGER fleet_reading_not_after_removal")
-                started = time.perf_counter()
+                started, before = time.perf_counter(), self._cpu()
                 with cursor.copy(f"COPY fleet_reading ({READING_COPY_COLUMNS}) FROM STDIN") as copy:
                     for start in range(0, rows, 10_000):
                         copy.write("".join(lines[start : start + 10_000]))
-                best[trigger_off] = min(best[trigger_off], time.perf_counter() - started)
-        self._report("COPY IN floor (best of 3), insert trigger on", best[False], rows)
-        self._report("COPY IN (best of 3), insert trigger off", best[True], rows)
+                self._commit_checks()
+                seconds = time.perf_counter() - started
+                if seconds < best[trigger_off]:
+                    best[trigger_off], cpu[trigger_off] = seconds, self._since(before)
+        self._report("COPY IN floor (best of 3), insert trigger on", best[False], rows, cpu[False])
+        self._report("COPY IN (best of 3), insert trigger off", best[True], rows, cpu[True])
         self.stdout.write(f"  the insert trigger's cost: {(best[False] - best[True]) / rows * 1e6:+.1f} us a row")
 
     def _readings(self, content: bytes, rows: int) -> None:
         for run in ("first", "again"):
-            started = time.perf_counter()
+            started, before = time.perf_counter(), self._cpu()
             outcome = check_file(kind=ImportJob.Kind.READINGS, filename="bench.csv", content=content)
-            self._report(f"readings check (dry run, {run})", time.perf_counter() - started, rows)
+            self._report(f"readings check (dry run, {run})", time.perf_counter() - started, rows, self._since(before))
         result = outcome.result
         self.stdout.write(
             f"  {len(result.good):,} good, {result.error_rows} with problems, {result.duplicates} already in"
         )
+        self._vacuum()
         with rolled_back():
-            started = time.perf_counter()
+            started, before = time.perf_counter(), self._cpu()
             outcome = _import_all(ImportJob.Kind.READINGS, content)
-            self._report("readings import (check and write, before refits)", time.perf_counter() - started, rows)
+            self._commit_checks()
+            self._report(
+                "readings import (check and write, before refits)",
+                time.perf_counter() - started,
+                rows,
+                self._since(before),
+            )
             self.stdout.write(f"  imported {outcome.imported:,}; refused: {outcome.refused or 'no'}")
+        self._vacuum()
         with rolled_back():
-            started = time.perf_counter()
+            started, before = time.perf_counter(), self._cpu()
             insert_readings(result.good)
-            self._report("  of which the write (COPY, triggers on)", time.perf_counter() - started, len(result.good))
+            self._commit_checks()
+            self._report(
+                "  of which the write (COPY, triggers on)",
+                time.perf_counter() - started,
+                len(result.good),
+                self._since(before),
+            )
 
     def _designs(self, designs: list[dict]) -> None:
         plates = [
