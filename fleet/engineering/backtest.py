@@ -47,6 +47,29 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     return fit.slope_now()[g] * span, span, z - predicted, variance, fraction
 
 
+def isolated_off_trend(group, day, fraction, projected_fraction, off_trend_fraction=0.08):
+    """Later readings that are strays: off their capacitor's projected trend by more than
+    `off_trend_fraction` of the rating, with neither neighbouring reading off it the same way.
+
+    Such a reading is the one the technician is asked to confirm or re-measure
+    (`rules.off_trend`, 8 % of the rating by default): the wrong capacitor, a poor
+    contact, a slip. Scored as a crossing it would count as ageing that no
+    forecast could catch; a sudden real fall shows again in the capacitor's next
+    (or previous) reading and stays.
+    Arrays per later reading (fractions of rated); the order does not matter.
+    """
+    group = np.asarray(group, np.int64)
+    with np.errstate(invalid="ignore"):
+        off = np.asarray(fraction, float) - np.asarray(projected_fraction, float)
+    side = np.where(off > off_trend_fraction, 1, np.where(off < -off_trend_fraction, -1, 0))
+    order = np.lexsort((np.asarray(day, float), group))
+    g, s = group[order], side[order]
+    same = g[1:] == g[:-1]
+    confirmed = np.zeros(len(group), bool)
+    confirmed[order] = np.r_[same & (s[1:] == s[:-1]), False] | np.r_[False, same & (s[:-1] == s[1:])]
+    return (side != 0) & ~confirmed
+
+
 def first_crossing_day(group, day, below, n_groups):
     """Day each capacitor was first seen below its limit (nan: not seen).
 

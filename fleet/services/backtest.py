@@ -6,7 +6,8 @@ refitted with only the capacitors and readings known then, through the same
 removals that came later. Scores are kept twice: with the default band
 calibration, and with the calibration estimated from the errors seen before
 that cut-off only (so the calibrated bands are out of sample). A crossing is
-seen when a later reading is below the limit by more than the meter noise, or
+seen when a later reading is below the limit by more than the meter noise (a
+stray reading far off the trend, not confirmed by its neighbours, is not), or
 the capacitor failed in service. At the end the calibration from every error
 is stored for the refits to use, with the crossing quantile the risk rule
 flags on per dielectric (`choose_alert_level`, on the pooled calibrated
@@ -24,9 +25,16 @@ from django.conf import settings
 from django.db import transaction
 from django.utils import timezone
 
-from fleet.engineering.backtest import choose_alert_level, first_crossing_day, projection_errors, score
-from fleet.engineering.calibration import estimate_calibration
+from fleet.engineering.backtest import (
+    choose_alert_level,
+    first_crossing_day,
+    isolated_off_trend,
+    projection_errors,
+    score,
+)
+from fleet.engineering.calibration import CalibrationSettings, estimate_calibration
 from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, alert_index, risk_levels
+from fleet.engineering.rules import ReadingRules
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
@@ -153,16 +161,25 @@ def _governing_level_days(result) -> np.ndarray:
 
 def _alert_levels(frame: pd.DataFrame) -> dict[str, tuple[float, list]]:
     """Per dielectric, the alert level its pooled back-tested forecasts justify, and
-    the 365-day precision and recall of every level tried."""
-    return {
-        family: choose_alert_level(
+    the 365-day precision and recall of every level tried.
+
+    The level is chosen on the forecasts made as the refit now makes them: at the
+    cut-offs where the family's bands were calibrated on its own earlier errors
+    (`own_calibration`), not on the first cut-offs that had only the default bands,
+    whose crossings come early and would hold the rule at its loosest level.
+    Where no cut-off had its own calibration yet, all are used.
+    """
+    chosen = {}
+    for family, rows in frame.groupby("dielectric"):
+        own = rows[rows["own_calibration"].to_numpy(bool)]
+        rows = own if np.isfinite(own["crossed_day"].to_numpy(float)).any() else rows
+        chosen[family] = choose_alert_level(
             rows[ALERT_COLUMNS].to_numpy(float).T,
             rows["replace_now"].to_numpy(bool),
             rows["crossed_day"].to_numpy(float),
             rows["followed_days"].to_numpy(float),
         )
-        for family, rows in frame.groupby("dielectric")
-    }
+    return chosen
 
 
 def _with_alert_risk(frame: pd.DataFrame, levels: dict[str, float]) -> pd.DataFrame:
@@ -217,6 +234,7 @@ def _run(backtest: Backtest) -> None:
         np.maximum.at(last_seen, group, later_day)
         followed = np.fmax(last_seen, np.nan_to_num(removal_day, nan=0.0))
         family = pd.Index(families).get_indexer(inst["dielectric"].to_numpy())
+        own_calibration = terms.capacitors >= CalibrationSettings().min_capacitors
         summary = {"cutoff": cutoff_text, "capacitors": int(len(inst)), "later_readings": int(len(later))}
         for variant in VARIANTS:
             result = assess(
@@ -234,7 +252,9 @@ def _run(backtest: Backtest) -> None:
             # A reading counts as seen below the limit when it is clear of the meter noise (one
             # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
             noise = result.fit.noise_sd * np.where(result.fit.model == MODEL_LOG, tolerance, 1.0)
-            below = fraction < (tolerance - noise)[group]
+            projected = np.where(result.fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
+            stray = isolated_off_trend(group, later_day, fraction, projected, ReadingRules().off_trend_fraction)
+            below = (fraction < (tolerance - noise)[group]) & ~stray
             crossed = first_crossing_day(group, later_day, below, len(inst))
             crossed = np.fmin(crossed, np.where(failed, removal_day, np.nan))
             above = result.latest_fraction_25c >= tolerance
@@ -249,6 +269,7 @@ def _run(backtest: Backtest) -> None:
                     "dielectric": inst["dielectric"].to_numpy(),
                     "part_id": inst["part_id"].to_numpy(),
                     "replace_now": result.judgement.risk == RISK_REPLACE_NOW,
+                    "own_calibration": own_calibration[family] if variant == "calibrated" else False,
                     **dict(zip(ALERT_COLUMNS, _governing_level_days(result), strict=True)),
                 }
             )[above]

@@ -202,3 +202,28 @@ def test_grid_over_the_capacitors_whose_limit_applies_equals_the_grid_over_all()
     assert 0 < applies.sum() < 60 and np.isfinite(full[:, applies]).any()
     np.testing.assert_array_equal(subset, full)
     assert np.isinf(subset[:, ~applies]).all()
+
+
+def test_a_stray_reading_is_not_scored_as_the_crossing():
+    """[trade] rule (the off-trend check of the reading rules: a reading more than 8 % of
+    the rating from the trend is re-measured). Capacitor 0 drifts through its 0.95 limit:
+    nothing is a stray and its first reading below dates the crossing. Capacitor 1 shows
+    one stray 0.80 on a trend at 0.98, then reads 0.98 again: a stray, no crossing.
+    Capacitor 2 falls suddenly to 0.80 and stays there: each of its two readings confirms
+    the other. Capacitor 3's stray high reading is its only one. Readings are given out
+    of order, as a database returns them."""
+    from fleet.engineering.backtest import first_crossing_day, isolated_off_trend
+
+    group = np.array([0, 0, 0, 1, 1, 1, 2, 2, 3])
+    day = np.array([30.0, 120.0, 210.0, 30.0, 120.0, 210.0, 120.0, 30.0, 30.0])
+    fraction = np.array([0.96, 0.945, 0.94, 0.98, 0.80, 0.98, 0.79, 0.80, 1.10])
+    projected = np.array([0.958, 0.950, 0.943, 0.98, 0.98, 0.98, 0.97, 0.975, 0.98])
+    stray = isolated_off_trend(group, day, fraction, projected)
+    assert stray.tolist() == [False, False, False, False, True, False, False, False, True]
+    below = (fraction < 0.95) & ~stray
+    crossed = first_crossing_day(group, day, below, 4)
+    assert crossed[0] == pytest.approx(75.0)  # midway between days 30 and 120
+    assert np.isnan(crossed[1]) and np.isnan(crossed[3])
+    assert crossed[2] == pytest.approx(15.0)  # between the cut-off and its first reading
+    # With a threshold wider than every miss, nothing is a stray.
+    assert not isolated_off_trend(group, day, fraction, projected, 0.5).any()
