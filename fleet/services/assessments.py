@@ -674,8 +674,10 @@ def refit_installations(
 
 CURRENT_COLUMNS = ["installation_id", "max_reading_id", "risk", "risk_was", "risk_changed_at"]
 CURRENT_SQL = (
-    "SELECT installation_id, max_reading_id, risk, risk_was, (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
-    " FROM fleet_assessment WHERE is_current AND installation_id BETWEEN %s AND %s AND installation_id = ANY(%s)"
+    "SELECT installation_id, max_reading_id, risk, risk_was,"
+    " (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
+    " FROM fleet_assessment WHERE is_current"
+    " AND installation_id BETWEEN %s AND %s AND installation_id = ANY(%s)"
 )
 
 
