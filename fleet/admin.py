@@ -105,7 +105,7 @@ class ReadingAdminForm(forms.ModelForm):
     class Meta:
         model = Reading
         fields = [
-            "installation",
+            "fitted_capacitor",
             "taken_at",
             "taken_by",
             "method",
@@ -121,11 +121,11 @@ class ReadingAdminForm(forms.ModelForm):
         from .services.readings import NeedsConfirmation, check_reading
 
         data = super().clean()
-        installation = data.get("installation")
-        if installation is None or self.errors:
+        fitted_capacitor = data.get("fitted_capacitor")
+        if fitted_capacitor is None or self.errors:
             return data
         try:
-            check_reading(installation, data, confirmed=bool(data.get("outlier_confirmed")))
+            check_reading(fitted_capacitor, data, confirmed=bool(data.get("outlier_confirmed")))
         except NeedsConfirmation as error:
             raise ValidationError(
                 [*error.messages, "Tick 'outlier confirmed' if the value is right."], code="needs_confirmation"
@@ -147,7 +147,7 @@ class ReadingAdmin(admin.ModelAdmin):
     form = ReadingAdminForm
 
     list_display = [
-        "installation",
+        "fitted_capacitor",
         "taken_at",
         "method",
         "capacitance_uf",
@@ -156,10 +156,10 @@ class ReadingAdmin(admin.ModelAdmin):
         "source",
         "outlier_confirmed",
     ]
-    list_filter = ["method", "source", "condition", "outlier_confirmed", "installation__motor__site"]
-    search_fields = ["installation__motor__asset_tag", "notes"]
-    list_select_related = ["installation__motor", "installation__part", "taken_by"]
-    raw_id_fields = ["installation", "supersedes"]
+    list_filter = ["method", "source", "condition", "outlier_confirmed", "fitted_capacitor__motor__site"]
+    search_fields = ["fitted_capacitor__motor__asset_tag", "notes"]
+    list_select_related = ["fitted_capacitor__motor", "fitted_capacitor__part", "taken_by"]
+    raw_id_fields = ["fitted_capacitor", "supersedes"]
     date_hierarchy = "taken_at"
 
     def has_change_permission(self, request, obj=None):
@@ -172,7 +172,7 @@ class ReadingAdmin(admin.ModelAdmin):
 @admin.register(Assessment)
 class AssessmentAdmin(admin.ModelAdmin):
     list_display = [
-        "installation",
+        "fitted_capacitor",
         "risk",
         "replace_by",
         "capacitance_now",
@@ -182,9 +182,9 @@ class AssessmentAdmin(admin.ModelAdmin):
         "created_at",
     ]
     list_filter = ["is_current", "risk", "limit_source", "low_confidence", "trend_model"]
-    search_fields = ["installation__motor__asset_tag"]
-    list_select_related = ["installation__motor", "installation__part"]
-    raw_id_fields = ["installation", "newest_reading"]
+    search_fields = ["fitted_capacitor__motor__asset_tag"]
+    list_select_related = ["fitted_capacitor__motor", "fitted_capacitor__part"]
+    raw_id_fields = ["fitted_capacitor", "newest_reading"]
 
     @admin.display(description="capacitance now (µF)", ordering="capacitance_now_uf")
     def capacitance_now(self, assessment):
@@ -204,7 +204,7 @@ class WorkOrderAdmin(admin.ModelAdmin):
     list_filter = ["state", "kind", "motor__site"]
     search_fields = ["motor__asset_tag", "reason"]
     list_select_related = ["motor"]
-    raw_id_fields = ["motor", "installation"]
+    raw_id_fields = ["motor", "fitted_capacitor"]
 
 
 admin.site.register(PartPrior)

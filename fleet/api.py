@@ -34,17 +34,17 @@ class ModelPermissionsWithView(permissions.DjangoModelPermissions):
 
 
 class AssessmentSerializer(serializers.ModelSerializer):
-    asset_tag = serializers.CharField(source="installation.motor.asset_tag")
-    site = serializers.CharField(source="installation.motor.site.code")
-    role = serializers.CharField(source="installation.role")
-    part_code = serializers.CharField(source="installation.part.code")
-    rated_uf = serializers.FloatField(source="installation.part.rated_uf")
-    installation_id = serializers.IntegerField()
+    asset_tag = serializers.CharField(source="fitted_capacitor.motor.asset_tag")
+    site = serializers.CharField(source="fitted_capacitor.motor.site.code")
+    role = serializers.CharField(source="fitted_capacitor.role")
+    part_code = serializers.CharField(source="fitted_capacitor.part.code")
+    rated_uf = serializers.FloatField(source="fitted_capacitor.part.rated_uf")
+    fitted_capacitor_id = serializers.IntegerField()
 
     class Meta:
         model = Assessment
         fields = [
-            "installation_id",
+            "fitted_capacitor_id",
             "asset_tag",
             "site",
             "role",
@@ -130,8 +130,8 @@ class AssessmentList(generics.ListAPIView):
     def get_queryset(self):
         return (
             in_service_assessments(self.request.user)
-            .select_related("installation__motor__site", "installation__part")
-            .order_by(F("replace_by").asc(nulls_last=True), "installation_id")
+            .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
+            .order_by(F("replace_by").asc(nulls_last=True), "fitted_capacitor_id")
         )
 
 
@@ -146,12 +146,12 @@ class CapacitorReadings(generics.ListCreateAPIView):
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
     queryset = Reading.objects.none()  # for the permission class's model lookup
 
-    def installation(self) -> FittedCapacitor:
+    def fitted_capacitor(self) -> FittedCapacitor:
         capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), self.request.user)
         return get_object_or_404(capacitors, pk=self.kwargs["pk"])
 
     def get_queryset(self):
-        return Reading.objects.filter(installation=self.installation()).order_by("taken_at", "id")
+        return Reading.objects.filter(fitted_capacitor=self.fitted_capacitor()).order_by("taken_at", "id")
 
     def create(self, request, *args, **kwargs):
         serializer = self.get_serializer(data=request.data)
@@ -164,7 +164,7 @@ class CapacitorReadings(generics.ListCreateAPIView):
             return Response({"Idempotency-Key": ["At most 64 characters, no NUL."]}, status=status.HTTP_400_BAD_REQUEST)
         try:
             reading = record_reading(
-                installation=self.installation(),
+                fitted_capacitor=self.fitted_capacitor(),
                 values=values,
                 user=request.user,
                 confirmed=confirmed,
@@ -182,14 +182,14 @@ class CapacitorReadings(generics.ListCreateAPIView):
 
 
 class BulkReadingSerializer(ReadingSerializer):
-    installation_id = serializers.IntegerField()
-    asset_tag = serializers.CharField(source="installation.motor.asset_tag")
-    site = serializers.CharField(source="installation.motor.site.code")
-    role = serializers.CharField(source="installation.role")
-    part_code = serializers.CharField(source="installation.part.code")
+    fitted_capacitor_id = serializers.IntegerField()
+    asset_tag = serializers.CharField(source="fitted_capacitor.motor.asset_tag")
+    site = serializers.CharField(source="fitted_capacitor.motor.site.code")
+    role = serializers.CharField(source="fitted_capacitor.role")
+    part_code = serializers.CharField(source="fitted_capacitor.part.code")
 
     class Meta(ReadingSerializer.Meta):
-        fields = ["installation_id", "asset_tag", "site", "role", "part_code", *ReadingSerializer.Meta.fields]
+        fields = ["fitted_capacitor_id", "asset_tag", "site", "role", "part_code", *ReadingSerializer.Meta.fields]
         fields.remove("confirmed")
 
 
@@ -214,7 +214,7 @@ class ReadingList(generics.ListAPIView):
 
     def get_queryset(self):
         return scope_to_user(
-            Reading.objects.select_related("installation__motor__site", "installation__part"), self.request.user
+            Reading.objects.select_related("fitted_capacitor__motor__site", "fitted_capacitor__part"), self.request.user
         )
 
 
@@ -227,13 +227,13 @@ class CapacitorSubstitutes(generics.GenericAPIView):
 
     def get(self, request, *args, **kwargs):
         capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), request.user)
-        installation = get_object_or_404(capacitors, pk=self.kwargs["pk"])
+        fitted_capacitor = get_object_or_404(capacitors, pk=self.kwargs["pk"])
         raw = request.query_params.get("parts")
         codes = None if raw is None else [code.strip() for code in raw.split(",") if code.strip()]
         if codes is not None and not codes:
             return Response({"parts": ["Name at least one part code."]}, status=status.HTTP_400_BAD_REQUEST)
         try:
-            advice = substitutes_for(installation, codes=codes)
+            advice = substitutes_for(fitted_capacitor, codes=codes)
         except ValidationError as error:
             return Response(error.message_dict, status=status.HTTP_400_BAD_REQUEST)
-        return Response({"installation_id": installation.id, **advice})
+        return Response({"fitted_capacitor_id": fitted_capacitor.id, **advice})

@@ -6,8 +6,12 @@ from __future__ import annotations
 import datetime as dt
 
 import django_filters
+from django import forms
+from django.contrib import messages
+from django.core.exceptions import ValidationError
 from django.core.validators import MaxValueValidator, MinValueValidator
 
+from .engineering.rules import parse_numbers
 from .models import Assessment, FittedCapacitor, Reading, Site
 from .roles import scope_to_user
 
@@ -28,9 +32,9 @@ class ReadingFilter(django_filters.FilterSet):
     """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31
     (since and until are whole days, inclusive, in UTC)."""
 
-    site = django_filters.CharFilter(field_name="installation__motor__site__code", max_length=20)
-    part = django_filters.CharFilter(field_name="installation__part__code", max_length=40)
-    motor = django_filters.CharFilter(field_name="installation__motor__asset_tag", max_length=40)
+    site = django_filters.CharFilter(field_name="fitted_capacitor__motor__site__code", max_length=20)
+    part = django_filters.CharFilter(field_name="fitted_capacitor__part__code", max_length=40)
+    motor = django_filters.CharFilter(field_name="fitted_capacitor__motor__asset_tag", max_length=40)
     since = django_filters.DateFilter(method="taken_since")
     until = django_filters.DateFilter(method="taken_until")
 
@@ -72,12 +76,85 @@ def filtered(filterset_class, query, queryset, request=None):
     return parameters.qs
 
 
+def page_parameters(filterset_class, query, request=None) -> tuple[dict, dict[str, str]]:
+    """(the values a page's query string gives, the message on each parameter that cannot be read): a
+    page uses its default for a value missing or unread, and says so; it never answers a 500."""
+    parameters = filterset_class(query, queryset=filterset_class._meta.model.objects.none(), request=request)
+    refused = {} if parameters.is_valid() else {name: " ".join(errors) for name, errors in parameters.errors.items()}
+    data = parameters.form.cleaned_data
+    return {k: v for k, v in data.items() if k not in refused and v not in (None, "")}, refused
+
+
+def page_values(filterset_class, request) -> dict:
+    """The values of a page's query string; each parameter that cannot be read is named in a note on the page."""
+    values, refused = page_parameters(filterset_class, request.GET, request)
+    for name, message in refused.items():
+        messages.warning(request, f"Ignored {name}: {message}")
+    return values
+
+
+class _PageParameters(django_filters.FilterSet):
+    """Parameters a page reads (its list comes from a service): each filter keeps the queryset as it is."""
+
+    def keep(self, queryset, name, value):
+        return queryset
+
+
+class PositiveNumberField(forms.CharField):
+    """A number above zero in the rulebook's syntax: "60,5" is 60.5; "1.200,5" is refused, not guessed."""
+
+    def clean(self, value):
+        text = super().clean(value)
+        if text in (None, ""):
+            return None
+        number = float(parse_numbers([text])[0][0])
+        if not number > 0:
+            raise ValidationError("must be a number above zero")
+        return number
+
+
+class PositiveNumberFilter(django_filters.Filter):
+    field_class = PositiveNumberField
+
+
+class LifeDataPage(_PageParameters):
+    """The life-data page: ?part=RUN-4U-450&planned_cost=60&failure_cost=400 (the engineer's costs)."""
+
+    part = django_filters.CharFilter(method="keep", max_length=40)
+    planned_cost = PositiveNumberFilter(method="keep")
+    failure_cost = PositiveNumberFilter(method="keep")
+
+    class Meta:
+        model = FittedCapacitor
+        fields = ["part", "planned_cost", "failure_cost"]
+
+
+class RoutePage(_PageParameters):
+    """A site's route: ?show=due lists only the motors still to read this quarter."""
+
+    show = django_filters.ChoiceFilter(method="keep", choices=[("due", "due"), ("all", "all")])
+
+    class Meta:
+        model = Site
+        fields = ["show"]
+
+
+class LabelsPage(_PageParameters):
+    """A site's labels: ?tag=CST-0093 prints one motor's label."""
+
+    tag = django_filters.CharFilter(method="keep", max_length=40)
+
+    class Meta:
+        model = Site
+        fields = ["tag"]
+
+
 def _sites_of(request):
     """The sites a plan may be asked for: the requesting user's."""
     return scope_to_user(Site.objects.all(), request.user if request is not None else None)
 
 
-class PlanParameters(django_filters.FilterSet):
+class PlanParameters(_PageParameters):
     """The plan page's and its downloads' site and horizon (the plan itself comes from a service)."""
 
     site = django_filters.ModelChoiceFilter(queryset=_sites_of, to_field_name="code", method="keep")
@@ -89,17 +166,10 @@ class PlanParameters(django_filters.FilterSet):
         model = Assessment
         fields = ["site", "days"]
 
-    def keep(self, queryset, name, value):
-        return queryset
-
 
 def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site | None, int, list[str]]:
     """(site, horizon in days, messages on what was ignored) from a plan query string; a site
     the requesting user does not work at is ignored like an unknown one."""
-    parameters = PlanParameters(query, queryset=Assessment.objects.none(), request=request)
-    if parameters.is_valid():
-        data = parameters.form.cleaned_data
-        return data.get("site"), int(data.get("days") or default_days), []
-    problems = [f"{name}: {' '.join(errors)}" for name, errors in parameters.errors.items()]
-    data = {k: v for k, v in parameters.form.cleaned_data.items() if k not in parameters.errors}
-    return data.get("site"), int(data.get("days") or default_days), problems
+    values, refused = page_parameters(PlanParameters, query, request)
+    problems = [f"{name}: {message}" for name, message in refused.items()]
+    return values.get("site"), int(values.get("days") or default_days), problems

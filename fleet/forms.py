@@ -10,8 +10,9 @@ from django import forms
 from django.conf import settings
 from django.utils import timezone
 
+from fleet.imports.columns import parse_times
+
 from .engineering.rules import RULES
-from .imports import parse_times
 from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading
 
 # The phone's date-and-time picker sends minutes: "2026-03-14T09:30" (wall-clock time at the site).
@@ -127,9 +128,11 @@ class ReplacementForm(forms.Form):
         help_text="Required with the override; kept on the new capacitor's record.",
     )
 
-    def __init__(self, *args, installation: FittedCapacitor, design: CapacitorPart, **kwargs):
+    def __init__(self, *args, fitted_capacitor: FittedCapacitor, design: CapacitorPart, **kwargs):
         super().__init__(*args, **kwargs)
-        same_kind = CapacitorPart.objects.filter(dielectric=installation.part.dielectric).order_by("rated_uf", "code")
+        same_kind = CapacitorPart.objects.filter(dielectric=fitted_capacitor.part.dielectric).order_by(
+            "rated_uf", "code"
+        )
         self.fields["part"].queryset = same_kind
         self.fields["part"].initial = design.pk
 

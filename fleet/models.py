@@ -402,7 +402,7 @@ class Reading(models.Model):
         IMPORT = "import", "File import"
         DEMO = "demo", "Demo data"
 
-    installation = models.ForeignKey(FittedCapacitor, on_delete=models.PROTECT, related_name="readings")
+    fitted_capacitor = models.ForeignKey(FittedCapacitor, on_delete=models.PROTECT, related_name="readings")
     taken_at = models.DateTimeField()
     taken_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.PROTECT)
     method = models.CharField(max_length=12, choices=Method.choices)
@@ -445,7 +445,7 @@ class Reading(models.Model):
     }
 
     class Meta:
-        ordering = ["installation_id", "taken_at", "id"]
+        ordering = ["fitted_capacitor_id", "taken_at", "id"]
         constraints = [
             models.CheckConstraint(condition=Q(capacitance_uf__gt=0), name="reading_capacitance_positive"),
             models.CheckConstraint(
@@ -476,13 +476,13 @@ class Reading(models.Model):
             ),
         ]
         indexes = [
-            models.Index(fields=["installation", "taken_at"]),
+            models.Index(fields=["fitted_capacitor", "taken_at"]),
             # The refits page counts stale capacitors among the readings saved since the last fleet refit.
             models.Index(fields=["created_at"], name="reading_by_created_at"),
         ]
 
     def __str__(self):
-        return f"{self.installation} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} µF"
+        return f"{self.fitted_capacitor} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} µF"
 
 
 def choices_of(name: str, values) -> type[models.TextChoices]:
@@ -534,7 +534,7 @@ class Assessment(models.Model):
     # The limit that sets the date: tolerance, an operating-point limit (drift.py) or the dissipation factor.
     LimitSource = choices_of("LimitSource", (TOLERANCE_LIMIT, *LIMIT_NAMES, DISSIPATION_LIMIT))
 
-    installation = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="assessments")
+    fitted_capacitor = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="assessments")
     is_current = models.BooleanField(default=True)
     model_version = models.CharField(max_length=20)
     fitted_through = models.DateTimeField(help_text="Time of the newest reading used")
@@ -606,13 +606,15 @@ class Assessment(models.Model):
         ordering = ["-created_at"]
         constraints = [
             models.UniqueConstraint(
-                fields=["installation"], condition=Q(is_current=True), name="one_current_assessment"
+                fields=["fitted_capacitor"], condition=Q(is_current=True), name="one_current_assessment"
             ),
         ]
         indexes = [
             models.Index(fields=["is_current", "risk", "replace_by"]),
             # The plan and the API: current assessments soonest first, read a page at a time.
-            models.Index(fields=["replace_by", "installation"], condition=IN_SERVICE, name="in_service_by_replace_by"),
+            models.Index(
+                fields=["replace_by", "fitted_capacitor"], condition=IN_SERVICE, name="in_service_by_replace_by"
+            ),
             # Risk counts on the home page and the plan, read from the index alone.
             models.Index(fields=["risk"], condition=IN_SERVICE, name="in_service_by_risk"),
             # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
@@ -626,7 +628,7 @@ class Assessment(models.Model):
         ]
 
     def __str__(self):
-        return f"{self.installation} {self.risk}"
+        return f"{self.fitted_capacitor} {self.risk}"
 
     @property
     def has_trend(self) -> bool:
@@ -685,7 +687,7 @@ class WorkOrder(models.Model):
         related_name="+",
         help_text="The motor's site; kept by database triggers",
     )
-    installation = models.ForeignKey(
+    fitted_capacitor = models.ForeignKey(
         FittedCapacitor, null=True, blank=True, on_delete=models.PROTECT, related_name="work_orders"
     )
     kind = models.CharField(max_length=20, choices=Kind.choices)
@@ -706,7 +708,7 @@ class WorkOrder(models.Model):
         ordering = ["due_on", "motor__asset_tag"]
         constraints = [
             models.UniqueConstraint(
-                fields=["installation", "kind"],
+                fields=["fitted_capacitor", "kind"],
                 condition=Q(state__in=["planned", "issued"]),
                 name="one_open_order_per_capacitor_and_kind",
             ),
@@ -991,7 +993,7 @@ class DigestEntry(models.Model):
         OVERDUE = "overdue", "Reading overdue"
 
     kind = models.CharField(max_length=10, choices=Kind.choices)
-    installation = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="+")
+    fitted_capacitor = models.ForeignKey(FittedCapacitor, on_delete=models.CASCADE, related_name="+")
     reason = models.CharField(max_length=300, blank=True)
     sent_at = models.DateTimeField(default=timezone.now)
 
@@ -999,8 +1001,8 @@ class DigestEntry(models.Model):
         ordering = ["-sent_at"]
         verbose_name_plural = "digest entries"
         constraints = [
-            models.UniqueConstraint(fields=["kind", "installation"], name="one_digest_entry_per_condition"),
+            models.UniqueConstraint(fields=["kind", "fitted_capacitor"], name="one_digest_entry_per_condition"),
         ]
 
     def __str__(self):
-        return f"{self.get_kind_display()}: {self.installation_id} ({self.sent_at:%Y-%m-%d})"
+        return f"{self.get_kind_display()}: {self.fitted_capacitor_id} ({self.sent_at:%Y-%m-%d})"

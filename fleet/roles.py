@@ -70,7 +70,7 @@ SITE_PATHS = {
     "site": "id",
     "motor": "site",
     "fittedcapacitor": "motor__site",
-    "reading": "installation__motor__site",
+    "reading": "fitted_capacitor__motor__site",
     "assessment": "site",  # stored on the assessment, kept by triggers (migration 0020)
     "workorder": "site",
     "sitestock": "site",

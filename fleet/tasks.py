@@ -50,7 +50,7 @@ def _merging() -> bool:
     )
 
 
-def claim_refits(installation_ids: list[int]) -> list[int]:
+def claim_refits(fitted_capacitor_ids: list[int]) -> list[int]:
     """The capacitors that have no refit waiting in the queue, now marked as waiting.
 
     Repeated readings of one capacitor are merged into the refit already queued:
@@ -61,33 +61,35 @@ def claim_refits(installation_ids: list[int]) -> list[int]:
     before it reads, so a reading saved while it runs queues a fresh refit. With
     tasks in-process there is no queue and nothing to merge.
     """
-    ids = [int(i) for i in installation_ids]
+    ids = [int(i) for i in fitted_capacitor_ids]
     if not ids or not _merging():
         return ids
     try:
         pipe = _pending_store(current_app.conf.broker_write_url).pipeline(transaction=False)
-        for installation_id in ids:
-            pipe.set(f"{PENDING_PREFIX}{installation_id}", 1, nx=True, ex=PENDING_TTL_S)
+        for fitted_capacitor_id in ids:
+            pipe.set(f"{PENDING_PREFIX}{fitted_capacitor_id}", 1, nx=True, ex=PENDING_TTL_S)
         claimed = pipe.execute()
     except redis.RedisError as error:
         raise QueueUnreachable(str(error)) from error
-    return [installation_id for installation_id, fresh in zip(ids, claimed, strict=True) if fresh]
+    return [fitted_capacitor_id for fitted_capacitor_id, fresh in zip(ids, claimed, strict=True) if fresh]
 
 
-def release_refits(installation_ids: list[int]) -> None:
+def release_refits(fitted_capacitor_ids: list[int]) -> None:
     """Clear the waiting marks (best effort: a mark left behind expires by itself)."""
-    if not installation_ids or not _merging():
+    if not fitted_capacitor_ids or not _merging():
         return
     try:
-        _pending_store(current_app.conf.broker_write_url).delete(*(f"{PENDING_PREFIX}{i}" for i in installation_ids))
+        _pending_store(current_app.conf.broker_write_url).delete(
+            *(f"{PENDING_PREFIX}{i}" for i in fitted_capacitor_ids)
+        )
     except redis.RedisError:
-        log.warning("refit marks of %d capacitors not cleared; they expire by themselves", len(installation_ids))
+        log.warning("refit marks of %d capacitors not cleared; they expire by themselves", len(fitted_capacitor_ids))
 
 
 @shared_task(acks_late=True)
-def refit_capacitors(installation_ids: list[int]) -> int:
-    release_refits(installation_ids)
-    return assessments.refit_installations(installation_ids).written
+def refit_capacitors(fitted_capacitor_ids: list[int]) -> int:
+    release_refits(fitted_capacitor_ids)
+    return assessments.refit_fitted_capacitors(fitted_capacitor_ids).written
 
 
 @shared_task(
@@ -95,9 +97,9 @@ def refit_capacitors(installation_ids: list[int]) -> int:
     soft_time_limit=settings.FLEET_REFIT_CHUNK_SOFT_LIMIT_S,
     time_limit=settings.FLEET_REFIT_CHUNK_TIME_LIMIT_S,
 )
-def refit_chunk(run_id: int, number: int, installation_ids: list[int], force: bool = False) -> None:
+def refit_chunk(run_id: int, number: int, fitted_capacitor_ids: list[int], force: bool = False) -> None:
     try:
-        refits.refit_chunk(run_id, number, installation_ids, force)
+        refits.refit_chunk(run_id, number, fitted_capacitor_ids, force)
     except SoftTimeLimitExceeded:
         refits.fail_run(run_id, f"Chunk {number + 1} ran past its time limit; start the refit again.")
         raise

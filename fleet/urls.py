@@ -1,7 +1,10 @@
 from django.contrib.auth.decorators import login_not_required
 from django.urls import path, register_converter
+from django.views.generic import RedirectView
 
-from . import api, views, views_dashboard, views_track_record
+from fleet.views import field, imports, planning, register, reliability
+
+from . import api
 
 
 class StoredCode:
@@ -20,6 +23,20 @@ class StoredCode:
 
 register_converter(StoredCode, "code")
 
+
+def _moved_to(name: str):
+    """A permanent redirect to where a fitted capacitor's page lives now, the query string kept."""
+    return RedirectView.as_view(pattern_name=name, permanent=True, query_string=True)
+
+
+# The addresses of a fitted capacitor's pages before they moved under fitted-capacitors/: printed
+# labels, QR codes and bookmarks in the field point to them, so they keep working.
+old_capacitor_paths = [
+    path("capacitors/<int:fitted_capacitor_id>/", _moved_to("fitted_capacitor")),
+    path("capacitors/<int:fitted_capacitor_id>/reading/", _moved_to("reading_new")),
+    path("capacitors/<int:fitted_capacitor_id>/replace/", _moved_to("replace")),
+]
+
 # The API answers 401/403 itself (token or session), instead of redirecting to the login page.
 api_patterns = [
     path("api/assessments/", login_not_required(api.AssessmentList.as_view()), name="api_assessments"),
@@ -37,32 +54,33 @@ api_patterns = [
 ]
 
 urlpatterns = [
-    path("", views.home, name="home"),
-    path("find/", views.find_motor, name="find"),
-    path("motors/<code:asset_tag>/", views.motor_detail, name="motor"),
-    path("capacitors/<int:installation_id>/", views.capacitor_detail, name="capacitor"),
-    path("capacitors/<int:installation_id>/reading/", views.reading_new, name="reading_new"),
-    path("capacitors/<int:installation_id>/replace/", views.replace, name="replace"),
-    path("sites/<code:site_code>/route/", views.site_route, name="route"),
-    path("sites/<code:site_code>/stock/", views.site_stock, name="site_stock"),
-    path("parts/stand-in/", views.stand_in_parts, name="stand_in_parts"),
-    path("sites/<code:site_code>/labels/", views.labels, name="labels"),
-    path("signed-in/", views_dashboard.after_sign_in, name="after_sign_in"),
-    path("dashboard/", views_dashboard.planner_dashboard, name="dashboard"),
-    path("dashboard/<str:name>.csv", views_dashboard.dashboard_csv, name="dashboard_csv"),
-    path("plan/", views.plan, name="plan"),
-    path("plan.<str:file_format>", views.plan_export, name="plan_export"),
-    path("life/", views.life_data, name="life_data"),
-    path("exports/<slug:kind>-about.json", views.export_about, name="export_about"),
-    path("exports/<slug:kind>.<str:file_format>", views.export, name="export"),
-    path("work-orders/", views.work_orders, name="work_orders"),
-    path("work-orders/<code:site_code>/<str:day>/", views.visit_sheet, name="visit_sheet"),
-    path("refits/", views.refits, name="refits"),
-    path("refits/start/", views.refit_start, name="refit_start"),
-    path("forecast/track-record/", views_track_record.track_record, name="track_record"),
-    path("forecast/track-record/run/", views_track_record.track_record_run, name="track_record_run"),
-    path("imports/", views.imports_home, name="imports"),
-    path("imports/<int:job_id>/", views.import_detail, name="import_detail"),
-    path("imports/<int:job_id>/rows-to-fix.csv", views.import_rejected, name="import_rejected"),
+    path("", register.home, name="home"),
+    path("find/", register.find_motor, name="find"),
+    path("motors/<code:asset_tag>/", register.motor_detail, name="motor"),
+    path("fitted-capacitors/<int:fitted_capacitor_id>/", register.fitted_capacitor_detail, name="fitted_capacitor"),
+    path("fitted-capacitors/<int:fitted_capacitor_id>/reading/", field.reading_new, name="reading_new"),
+    path("fitted-capacitors/<int:fitted_capacitor_id>/replace/", field.replace, name="replace"),
+    *old_capacitor_paths,
+    path("sites/<code:site_code>/route/", field.site_route, name="route"),
+    path("sites/<code:site_code>/stock/", field.site_stock, name="site_stock"),
+    path("parts/stand-in/", planning.stand_in_parts, name="stand_in_parts"),
+    path("sites/<code:site_code>/labels/", field.labels, name="labels"),
+    path("signed-in/", planning.after_sign_in, name="after_sign_in"),
+    path("dashboard/", planning.planner_dashboard, name="dashboard"),
+    path("dashboard/<str:name>.csv", planning.dashboard_csv, name="dashboard_csv"),
+    path("plan/", planning.plan, name="plan"),
+    path("plan.<str:file_format>", reliability.plan_export, name="plan_export"),
+    path("life/", reliability.life_data, name="life_data"),
+    path("exports/<slug:kind>-about.json", reliability.export_about, name="export_about"),
+    path("exports/<slug:kind>.<str:file_format>", reliability.export, name="export"),
+    path("work-orders/", planning.work_orders, name="work_orders"),
+    path("work-orders/<code:site_code>/<str:day>/", planning.visit_sheet, name="visit_sheet"),
+    path("refits/", reliability.refits, name="refits"),
+    path("refits/start/", reliability.refit_start, name="refit_start"),
+    path("forecast/track-record/", reliability.track_record, name="track_record"),
+    path("forecast/track-record/run/", reliability.track_record_run, name="track_record_run"),
+    path("imports/", imports.imports_home, name="imports"),
+    path("imports/<int:job_id>/", imports.import_detail, name="import_detail"),
+    path("imports/<int:job_id>/rows-to-fix.csv", imports.import_rejected, name="import_rejected"),
     *api_patterns,
 ]

@@ -9,8 +9,8 @@ import pytest
 from django.urls import reverse
 
 from fleet.models import Assessment, CapacitorPart, Motor, Reading
+from tests.factories import make_reading
 
-from .conftest import make_reading
 from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
@@ -39,14 +39,14 @@ def _texts(response) -> str:
     return html.unescape(re.sub(r"<[^>]+>", " ", response.content.decode()))
 
 
-def test_admin_lists_forms_and_view_pages_show_units(client, administrator, fan_installation):
-    reading = make_reading(fan_installation, case_temperature_c=31.0, esr_ohm=0.2)
+def test_admin_lists_forms_and_view_pages_show_units(client, administrator, fan_fitted_capacitor):
+    reading = make_reading(fan_fitted_capacitor, case_temperature_c=31.0, esr_ohm=0.2)
     client.force_login(administrator)
     parts = _texts(client.get(reverse("admin:fleet_capacitorpart_changelist")))
     assert "Rated capacitance (µF)" in parts and "Rated uf" not in parts
-    part_form = _texts(client.get(reverse("admin:fleet_capacitorpart_change", args=[fan_installation.part_id])))
+    part_form = _texts(client.get(reverse("admin:fleet_capacitorpart_change", args=[fan_fitted_capacitor.part_id])))
     assert "Highest case temperature (°C)" in part_form and "Tolerance minus (%)" in part_form
-    motor_form = _texts(client.get(reverse("admin:fleet_motor_change", args=[fan_installation.motor_id])))
+    motor_form = _texts(client.get(reverse("admin:fleet_motor_change", args=[fan_fitted_capacitor.motor_id])))
     assert "Rotor resistance R2 (Ω)" in motor_form and "Full-load current (A)" in motor_form
     new_reading = _texts(client.get(reverse("admin:fleet_reading_add")))
     assert "Case temperature (°C)" in new_reading and "ESR (Ω)" in new_reading
@@ -57,8 +57,8 @@ def test_admin_lists_forms_and_view_pages_show_units(client, administrator, fan_
     assert "(µF)" in str(Assessment._meta.get_field("capacitance_now_uf").verbose_name)
 
 
-def test_api_keys_and_export_headings_stay_ascii(client, engineer, fan_installation):
-    make_reading(fan_installation, esr_ohm=0.2)
+def test_api_keys_and_export_headings_stay_ascii(client, engineer, fan_fitted_capacitor):
+    make_reading(fan_fitted_capacitor, esr_ohm=0.2)
     body = client_for(engineer).get(reverse("api_readings")).json()
     keys = set(body["results"][0])
     assert {"capacitance_uf", "case_temperature_c", "esr_ohm"} <= keys and all(key.isascii() for key in keys)

@@ -9,9 +9,8 @@ from rest_framework.authtoken.models import Token
 from rest_framework.test import APIClient
 
 from fleet.models import Reading
-from fleet.services.assessments import refit_installations
-
-from .conftest import quarterly_readings
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -22,26 +21,26 @@ def client_for(user) -> APIClient:
     return client
 
 
-def test_no_token_no_data(fan_installation):
+def test_no_token_no_data(fan_fitted_capacitor):
     response = APIClient().get(reverse("api_assessments"))
     assert response.status_code == 401
 
 
-def test_engineer_reads_current_assessments_filtered_by_site(engineer, fan_installation):
-    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
-    refit_installations([fan_installation.id])
+def test_engineer_reads_current_assessments_filtered_by_site(engineer, fan_fitted_capacitor):
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
     client = client_for(engineer)
-    body = client.get(reverse("api_assessments"), {"site": fan_installation.motor.site.code}).json()
+    body = client.get(reverse("api_assessments"), {"site": fan_fitted_capacitor.motor.site.code}).json()
     assert body["count"] == 1
     row = body["results"][0]
-    assert row["asset_tag"] == fan_installation.motor.asset_tag and row["rated_uf"] == 4.0
+    assert row["asset_tag"] == fan_fitted_capacitor.motor.asset_tag and row["rated_uf"] == 4.0
     assert row["risk"] in {"replace now", "due soon", "watch", "sound"}
     assert client.get(reverse("api_assessments"), {"site": "ELSEWHERE"}).json()["count"] == 0
 
 
-def test_technician_posts_a_reading_with_the_forms_checks(technician, fan_installation):
+def test_technician_posts_a_reading_with_the_forms_checks(technician, fan_fitted_capacitor):
     client = client_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     bad = client.post(url, {"method": "meter", "capacitance_uf": 3950}, format="json")
     assert bad.status_code == 400 and "nanofarads" in bad.json()["capacitance_uf"][0]
     good = client.post(
@@ -52,11 +51,11 @@ def test_technician_posts_a_reading_with_the_forms_checks(technician, fan_instal
     assert len(client.get(url).json()["results"]) == 1
 
 
-def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_installation):
-    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.97])
-    refit_installations([fan_installation.id])
+def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_fitted_capacitor):
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.97])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
     client = client_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     assert client.post(url, {"method": "meter", "capacitance_uf": 3.2}, format="json").status_code == 409
     assert (
         client.post(url, {"method": "meter", "capacitance_uf": 3.2, "confirmed": True}, format="json").status_code
@@ -64,8 +63,8 @@ def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_inst
     )
 
 
-def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why(technician, fan_installation):
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why(technician, fan_fitted_capacitor):
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     client = client_for(technician)
     missing = client.post(url, {"capacitance_uf": 3.9}, format="json")
     assert missing.status_code == 400 and "method" in missing.json()
@@ -74,6 +73,6 @@ def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why
     assert not Reading.objects.exists()
 
 
-def test_a_planner_cannot_post_readings(planner, fan_installation):
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+def test_a_planner_cannot_post_readings(planner, fan_fitted_capacitor):
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     assert client_for(planner).post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json").status_code == 403

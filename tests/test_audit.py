@@ -9,8 +9,7 @@ from django.urls import reverse
 from fleet.audit import HIDDEN
 from fleet.models import AuditEntry, FittedCapacitor, SiteMembership, WorkOrder
 from fleet.roles import ADMINISTRATOR, PLANNER, TECHNICIAN
-
-from .conftest import make_installation, make_motor, make_part, make_site, make_user
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user
 
 pytestmark = pytest.mark.django_db
 
@@ -39,18 +38,18 @@ def test_a_nameplate_change_outside_a_request_is_the_systems_with_old_and_new():
 
 def test_a_replacement_through_the_page_names_the_technician_for_every_row_it_touched(client):
     technician = make_user(TECHNICIAN)
-    installation = make_installation(fitted_on=dt.date(2022, 1, 1))
+    fitted_capacitor = make_fitted_capacitor(fitted_on=dt.date(2022, 1, 1))
     order = WorkOrder.objects.create(
-        motor=installation.motor, installation=installation, kind="replace_run", due_on=dt.date(2026, 1, 1)
+        motor=fitted_capacitor.motor, fitted_capacitor=fitted_capacitor, kind="replace_run", due_on=dt.date(2026, 1, 1)
     )
     client.force_login(technician)
     response = client.post(
-        reverse("replace", args=[installation.id]),
-        {"part": installation.part.pk, "removed_on": "2025-06-01", "removal_reason": "failed", "serial": "NEW-1"},
+        reverse("replace", args=[fitted_capacitor.id]),
+        {"part": fitted_capacitor.part.pk, "removed_on": "2025-06-01", "removal_reason": "failed", "serial": "NEW-1"},
     )
     assert response.status_code == 302
     successor = FittedCapacitor.objects.get(removed_on__isnull=True)
-    [removal] = entries("fleet.fittedcapacitor", installation.pk, "update")
+    [removal] = entries("fleet.fittedcapacitor", fitted_capacitor.pk, "update")
     assert removal.changes["removed_on"] == [None, "2025-06-01"] and removal.username == technician.username
     [fitted] = entries("fleet.fittedcapacitor", successor.pk, "create")
     assert fitted.user_id == technician.pk and fitted.changes["serial"] == [None, "NEW-1"]

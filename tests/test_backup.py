@@ -19,8 +19,7 @@ from rest_framework.authtoken.models import Token
 from fleet.models import FittedCapacitor, ImportJob, Reading, SiteMembership, WorkOrder
 from fleet.roles import ADMINISTRATOR, PLANNER, TECHNICIAN, ensure_role_groups
 from fleet.services.backup import LEFT_OUT
-
-from .conftest import make_installation, make_motor, make_reading, make_site, make_user, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_reading, make_site, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 ROOT = Path(__file__).resolve().parents[1]
@@ -32,13 +31,13 @@ def plant(db, django_capture_on_commit_callbacks):
     users with roles, sites, a token, a work order, an import job with its file, audit entries."""
     site = make_site("CST")
     motor = make_motor(site=site, asset_tag="CST-FAN-01")
-    old = make_installation(motor=motor, fitted_on=dt.date(2021, 3, 1))
+    old = make_fitted_capacitor(motor=motor, fitted_on=dt.date(2021, 3, 1))
     start = timezone.make_aware(dt.datetime(2021, 4, 6, 9, 30))
     readings = quarterly_readings(old, start, [4.02, 3.99, 3.97, 3.93], case_temperature_c=31.5)
     make_reading(old, taken_at=start + dt.timedelta(days=300), capacitance_uf=3.95, supersedes=readings[-1])
     old.removed_on, old.removal_reason = dt.date(2022, 6, 1), "failed"
     old.save()
-    new = make_installation(motor=motor, part=old.part, fitted_on=dt.date(2022, 6, 1))
+    new = make_fitted_capacitor(motor=motor, part=old.part, fitted_on=dt.date(2022, 6, 1))
     quarterly_readings(new, timezone.make_aware(dt.datetime(2022, 7, 4, 8)), [4.05, 4.03, 4.0, 3.99, 3.97])
     with django_capture_on_commit_callbacks(execute=True):
         call_command("refit")  # assessments, part priors, a refit run
@@ -51,7 +50,7 @@ def plant(db, django_capture_on_commit_callbacks):
     ensure_role_groups()
     SiteMembership.objects.create(user=technician, site=site)
     Token.objects.create(user=technician)
-    WorkOrder.objects.create(motor=motor, installation=new, kind="replace_run", due_on=dt.date(2027, 1, 4))
+    WorkOrder.objects.create(motor=motor, fitted_capacitor=new, kind="replace_run", due_on=dt.date(2027, 1, 4))
     ImportJob.objects.create(
         kind="readings", filename="q1.csv", content=b"tag,uf\nCST-FAN-01,3.9\n", created_by=technician
     )
@@ -125,7 +124,7 @@ def test_the_round_trip_into_a_new_database_loses_nothing(plant, tmp_path):
     reading = Reading.objects.filter(supersedes__isnull=False).get()
     fields = by_key[("fleet.reading", reading.pk)]
     assert fields["capacitance_uf"] == 3.95 and fields["supersedes"] == reading.supersedes_id
-    assert fields["installation"] == plant["old"].pk
+    assert fields["fitted_capacitor"] == plant["old"].pk
     old = by_key[("fleet.fittedcapacitor", plant["old"].pk)]
     assert (old["removed_on"], old["removal_reason"]) == ("2022-06-01", "failed")
     technician = next(f for (model, _), f in by_key.items() if model == "auth.user" and f["username"] == "tech-cst")
@@ -151,7 +150,9 @@ def test_the_reading_triggers_hold_during_a_restore(plant, tmp_path):
     backup = tmp_path / "fleet.json.gz"
     call_command("backup", str(backup))
     objects = read_backup(backup)
-    late = next(o for o in objects if o["model"] == "fleet.reading" and o["fields"]["installation"] == plant["old"].pk)
+    late = next(
+        o for o in objects if o["model"] == "fleet.reading" and o["fields"]["fitted_capacitor"] == plant["old"].pk
+    )
     late["fields"]["taken_at"] = "2023-01-01T00:00:00Z"
     tampered = tmp_path / "tampered.json.gz"
     with gzip.open(tampered, "wt") as file:

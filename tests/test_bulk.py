@@ -14,13 +14,12 @@ from django.db import IntegrityError, transaction
 
 from fleet.models import FittedCapacitor, Motor, Reading
 from fleet.services.bulk import SEPARATOR, insert_frame, select_frame
-
-from .conftest import make_installation, make_motor
+from tests.factories import make_fitted_capacitor, make_motor
 
 
 @pytest.fixture
 def three_motors(db):
-    return [make_installation(motor=make_motor(asset_tag=f"ANY-{n}")) for n in range(3)]
+    return [make_fitted_capacitor(motor=make_motor(asset_tag=f"ANY-{n}")) for n in range(3)]
 
 
 @pytest.mark.parametrize(
@@ -41,7 +40,7 @@ def test_text_values_find_what_in_finds(three_motors, lookup, values):
 
 
 def test_numbers_and_foreign_keys_find_what_in_finds(three_motors):
-    motor_ids = [installation.motor_id for installation in three_motors[:2]]
+    motor_ids = [fitted_capacitor.motor_id for fitted_capacitor in three_motors[:2]]
     by_key = FittedCapacitor.objects.filter(motor_id__any_of=np.array(motor_ids, np.int64))
     by_join = FittedCapacitor.objects.filter(motor__any_of=np.array(motor_ids, np.int64))
     assert set(by_key) == set(by_join) == set(FittedCapacitor.objects.filter(motor_id__in=motor_ids))
@@ -49,10 +48,10 @@ def test_numbers_and_foreign_keys_find_what_in_finds(three_motors):
     assert Motor.objects.filter(id__any_of=np.array([], np.int64)).count() == 0
 
 
-def _readings(installation, keys, capacitance_uf=3.9):
+def _readings(fitted_capacitor, keys, capacitance_uf=3.9):
     return pd.DataFrame(
         {
-            "installation_id": installation.id,
+            "fitted_capacitor_id": fitted_capacitor.id,
             "taken_at": pd.to_datetime(
                 ["2024-03-14 09:30:00", "2024-06-14 10:15:00.250000"][: len(keys)], utc=True, format="ISO8601"
             ),
@@ -68,8 +67,8 @@ def _readings(installation, keys, capacitance_uf=3.9):
 
 
 def test_rows_written_in_bulk_read_back_as_given(three_motors):
-    installation = three_motors[0]
-    assert insert_frame(Reading, _readings(installation, ["k-1", "k-2"])) == 2
+    fitted_capacitor = three_motors[0]
+    assert insert_frame(Reading, _readings(fitted_capacitor, ["k-1", "k-2"])) == 2
     first, second = Reading.objects.order_by("taken_at")
     assert first.taken_at == dt.datetime(2024, 3, 14, 9, 30, tzinfo=dt.UTC)
     assert second.taken_at == dt.datetime(2024, 6, 14, 10, 15, 0, 250000, tzinfo=dt.UTC)
@@ -78,21 +77,23 @@ def test_rows_written_in_bulk_read_back_as_given(three_motors):
     assert (first.notes, second.notes) == ("", "dusty guard")  # empty text is not NULL, and back
     assert (first.client_key, second.client_key) == (None, "tablet-7")
     assert first.condition == Reading._meta.get_field("condition").default and first.outlier_confirmed is False
-    assert first.created_at is not None and first.installation == installation
+    assert first.created_at is not None and first.fitted_capacitor == fitted_capacitor
 
 
 def test_skipping_conflicts_skips_only_the_clashing_rows(three_motors):
-    installation = three_motors[0]
+    fitted_capacitor = three_motors[0]
     with transaction.atomic():
-        insert_frame(Reading, _readings(installation, ["k-2"]).assign(taken_at=pd.Timestamp("2024-06-14", tz="UTC")))
+        insert_frame(
+            Reading, _readings(fitted_capacitor, ["k-2"]).assign(taken_at=pd.Timestamp("2024-06-14", tz="UTC"))
+        )
     with transaction.atomic():
-        written = insert_frame(Reading, _readings(installation, ["k-1", "k-2"]), skip_conflicts_on="import_key")
+        written = insert_frame(Reading, _readings(fitted_capacitor, ["k-1", "k-2"]), skip_conflicts_on="import_key")
     assert written == 1
     assert sorted(Reading.objects.values_list("import_key", flat=True)) == ["k-1", "k-2"]
     assert Reading.objects.get(import_key="k-2").taken_at == dt.datetime(2024, 6, 14, tzinfo=dt.UTC)  # not overwritten
     with pytest.raises(IntegrityError), transaction.atomic():
-        insert_frame(Reading, _readings(installation, ["k-3"]))
-        insert_frame(Reading, _readings(installation, ["k-3"]))  # without the option a clash refuses
+        insert_frame(Reading, _readings(fitted_capacitor, ["k-3"]))
+        insert_frame(Reading, _readings(fitted_capacitor, ["k-3"]))  # without the option a clash refuses
 
 
 def test_skipping_conflicts_still_refuses_a_row_that_breaks_a_rule(three_motors):
@@ -107,10 +108,10 @@ AWKWARD_NOTES = ["", "a, b", 'said "open"', "C:\\motors\\(fan)", "two\nlines", "
 def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
     # Text that CSV or a row's text form must quote (commas, quotes, backslashes, parentheses, line
     # breaks, edge spaces), empty text apart from NULL, numbers exact to the last digit.
-    installation = three_motors[0]
+    fitted_capacitor = three_motors[0]
     frame = pd.DataFrame(
         {
-            "installation_id": installation.id,
+            "fitted_capacitor_id": fitted_capacitor.id,
             "taken_at": pd.date_range("2024-01-01", periods=len(AWKWARD_NOTES), freq="D", tz="UTC"),
             "method": "meter",
             "capacitance_uf": 3.9 + np.arange(len(AWKWARD_NOTES)) / 3,
@@ -124,11 +125,11 @@ def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
     columns = ["id", "notes", "client_key", "capacitance_uf", "esr_ohm", "supersedes_id"]
     read = select_frame(
         "SELECT id, notes, client_key, capacitance_uf, esr_ohm, supersedes_id FROM fleet_reading"
-        " WHERE installation_id = %s",
-        [installation.id],
+        " WHERE fitted_capacitor_id = %s",
+        [fitted_capacitor.id],
         columns,
     ).sort_values("id")
-    expected = list(Reading.objects.filter(installation=installation).order_by("id").values_list(*columns))
+    expected = list(Reading.objects.filter(fitted_capacitor=fitted_capacitor).order_by("id").values_list(*columns))
     assert len(read) == len(expected) == len(AWKWARD_NOTES)
     for row, want in zip(read.itertuples(index=False), expected, strict=True):
         assert row.id == want[0] and row.notes == want[1] and row.capacitance_uf == want[3]
@@ -136,14 +137,16 @@ def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
         assert row.esr_ohm == want[4] if want[4] is not None else pd.isna(row.esr_ohm)
         assert pd.isna(row.supersedes_id) and want[5] is None
     assert select_frame("SELECT id FROM fleet_reading WHERE id < 0", [], ["id"]).empty
+
+
 def test_a_bulk_insert_holding_one_reading_after_its_capacitors_removal_writes_nothing(three_motors):
     """The database's rule, per row on SQLite and per statement on PostgreSQL (migration 0021): one reading
     dated after the removal refuses the whole insert with the same message; the day of the removal itself
     (in UTC) is still allowed."""
     removed = three_motors[1]
 
-    def readings(installation, keys):
-        return _readings(installation, keys).drop(columns="client_key")
+    def readings(fitted_capacitor, keys):
+        return _readings(fitted_capacitor, keys).drop(columns="client_key")
 
     FittedCapacitor.objects.filter(pk=removed.pk).update(removed_on=dt.date(2024, 6, 13), removal_reason="failed")
     with pytest.raises(IntegrityError, match="reading taken after its capacitor was removed"), transaction.atomic():

@@ -8,25 +8,27 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.models import Assessment, Reading
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import record_reading
+from tests.factories import make_fitted_capacitor, make_reading, make_user, quarterly_readings
 
-from .conftest import make_installation, make_reading, make_user, quarterly_readings
 from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
 
 
 def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correction(
-    client, technician, fan_installation
+    client, technician, fan_fitted_capacitor
 ):
     """[derived] append-only: both readings kept; the fit leaves the corrected one out."""
-    readings = quarterly_readings(fan_installation, timezone.now() - dt.timedelta(days=400), [4.0, 3.98, 3.96, 3.94])
-    wrong = make_reading(fan_installation, capacitance_uf=3.2, taken_at=timezone.now() - dt.timedelta(hours=3))
+    readings = quarterly_readings(
+        fan_fitted_capacitor, timezone.now() - dt.timedelta(days=400), [4.0, 3.98, 3.96, 3.94]
+    )
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2, taken_at=timezone.now() - dt.timedelta(hours=3))
     client.force_login(technician)
-    page = client.get(reverse("capacitor", args=[fan_installation.id])).content.decode()
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
     assert f"?corrects={wrong.id}" in page
-    url = reverse("reading_new", args=[fan_installation.id])
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     form = client.get(url, {"corrects": wrong.id}).content.decode()
     assert "Correcting the reading of" in form and "Save correction" in form
     response = client.post(
@@ -36,33 +38,33 @@ def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correcti
     correction = Reading.objects.get(supersedes=wrong)
     assert correction.capacitance_uf == 3.92 and correction.taken_at == wrong.taken_at
     assert Reading.objects.filter(pk=wrong.pk).exists()  # kept, never overwritten
-    refit_installations([fan_installation.id])
-    assessment = Assessment.objects.get(installation=fan_installation, is_current=True)
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=fan_fitted_capacitor, is_current=True)
     assert assessment.readings_used == len(readings) + 1
-    page = client.get(reverse("capacitor", args=[fan_installation.id])).content.decode()
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
     assert "corrected: not used in the trend" in page and f"?corrects={wrong.id}" not in page
 
 
-def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, fan_installation):
-    wrong = make_reading(fan_installation, capacitance_uf=3.2)
-    first = record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": "3.9"},
+def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, fan_fitted_capacitor):
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
+    first = record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.9"},
                            user=technician, supersedes_id=wrong.id)  # fmt: skip
     with pytest.raises(ValidationError) as twice:
-        record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": "3.8"},
+        record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.8"},
                        user=technician, supersedes_id=wrong.id)  # fmt: skip
     assert f"already corrected by reading {first.id}" in twice.value.message_dict["supersedes"][0]
-    other = make_installation(motor=None)
+    other = make_fitted_capacitor(motor=None)
     with pytest.raises(ValidationError) as elsewhere:
-        record_reading(installation=other, values={"method": "meter", "capacitance_uf": "3.9"},
+        record_reading(fitted_capacitor=other, values={"method": "meter", "capacitance_uf": "3.9"},
                        user=technician, supersedes_id=first.id)  # fmt: skip
     assert "not a reading of this capacitor" in elsewhere.value.message_dict["supersedes"][0]
     assert Reading.objects.count() == 2
 
 
-def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technician, fan_installation):
-    wrong = make_reading(fan_installation, capacitance_uf=3.2)
+def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technician, fan_fitted_capacitor):
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
     client = client_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     saved = client.post(url, {"method": "meter", "capacitance_uf": 3.9, "supersedes": wrong.id}, format="json")
     assert saved.status_code == 201 and saved.json()["supersedes"] == wrong.id
     again = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": wrong.id}, format="json")
@@ -73,12 +75,12 @@ def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technicia
 
 
 @pytest.mark.parametrize("key", ["", "correction-1"])
-def test_the_same_api_correction_sent_again_is_answered_as_the_replay(technician, fan_installation, key):
+def test_the_same_api_correction_sent_again_is_answered_as_the_replay(technician, fan_fitted_capacitor, key):
     """A script that sends its correction again (no answer the first time), with or without an
     Idempotency-Key: one correction stored, the second answer 200 with it. Another correction of the
     same reading, or the same one from another user, is still refused by name. [derived]"""
-    wrong = make_reading(fan_installation, capacitance_uf=3.2)
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     headers = {"HTTP_IDEMPOTENCY_KEY": key} if key else {}
     body = {"method": "meter", "capacitance_uf": 3.9, "notes": "re-measured", "supersedes": wrong.id}
     client = client_for(technician)

@@ -16,8 +16,15 @@ from fleet.models import DigestEntry, PartLifeFit, SiteMembership, SiteStock, Wo
 from fleet.roles import PLANNER, TECHNICIAN
 from fleet.services.alerts import send_daily_digest
 from fleet.services.dashboard import readings_by_route, risk_mix, spares_by_month, weekly_workload
-
-from .conftest import make_installation, make_motor, make_part, make_reading, make_site, make_user, stored_assessment
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_reading,
+    make_site,
+    make_user,
+    stored_assessment,
+)
 
 pytestmark = pytest.mark.django_db
 
@@ -28,20 +35,25 @@ def fleet(per_site: int, sites=None, part=None):
     """Two sites of capacitors at every risk level, read recently, with work orders and stock."""
     sites = sites or [make_site(), make_site()]
     part = part or make_part(unit_cost=10)
-    installations = []
+    fitted_capacitors = []
     for site in sites:
         for i in range(per_site):
-            installation = make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2020, 1, 1))
-            make_reading(installation, taken_at=timezone.now() - dt.timedelta(days=3))
-            risk = ("replace now", "due soon", "watch", "sound")[i % 4]
-            stored_assessment(installation, risk, timezone.localdate() + dt.timedelta(days=10 * i))
-            WorkOrder.objects.create(
-                motor=installation.motor, installation=installation, kind="replace_run", due_on=timezone.localdate()
+            fitted_capacitor = make_fitted_capacitor(
+                motor=make_motor(site=site), part=part, fitted_on=dt.date(2020, 1, 1)
             )
-            installations.append(installation)
+            make_reading(fitted_capacitor, taken_at=timezone.now() - dt.timedelta(days=3))
+            risk = ("replace now", "due soon", "watch", "sound")[i % 4]
+            stored_assessment(fitted_capacitor, risk, timezone.localdate() + dt.timedelta(days=10 * i))
+            WorkOrder.objects.create(
+                motor=fitted_capacitor.motor,
+                fitted_capacitor=fitted_capacitor,
+                kind="replace_run",
+                due_on=timezone.localdate(),
+            )
+            fitted_capacitors.append(fitted_capacitor)
         SiteStock.objects.create(site=site, part=part, quantity=2)
     PartLifeFit.objects.update_or_create(part=part, defaults=dict(beta=2.0, eta_years=10.0, failures=3, suspensions=10))
-    return installations
+    return fitted_capacitors
 
 
 def test_the_dashboard_takes_as_many_queries_for_a_large_fleet_as_for_a_small_one(client):
@@ -70,9 +82,9 @@ def test_workload_counts_each_week_by_risk_and_site_with_past_dates_in_this_week
         (there, "watch", TODAY + dt.timedelta(weeks=30)),  # beyond 26 weeks: not counted
     ]
     for site, risk, replace_by in due:
-        installation = make_installation(motor=make_motor(site=site), part=part)
-        stored_assessment(installation, risk, replace_by)
-    removed = make_installation(part=part, removed_on=TODAY, removal_reason="planned")
+        fitted_capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=part)
+        stored_assessment(fitted_capacitor, risk, replace_by)
+    removed = make_fitted_capacitor(part=part, removed_on=TODAY, removal_reason="planned")
     stored_assessment(removed, "replace now", TODAY)  # no longer in service: not counted
     workload = weekly_workload(None, TODAY)
     assert workload["weeks"][0] == dt.date(2026, 11, 30) and len(workload["weeks"]) == 26
@@ -87,9 +99,9 @@ def test_spares_add_the_plan_and_the_failures_expected_from_life_data_against_st
     site = make_site()
     part = make_part(unit_cost=10)
     PartLifeFit.objects.create(part=part, beta=2.5, eta_years=8.0, failures=5, suspensions=20)
-    planned = make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2021, 12, 10))
+    planned = make_fitted_capacitor(motor=make_motor(site=site), part=part, fitted_on=dt.date(2021, 12, 10))
     stored_assessment(planned, "due soon", dt.date(2027, 2, 20))  # third month
-    unplanned = make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2021, 12, 10))
+    unplanned = make_fitted_capacitor(motor=make_motor(site=site), part=part, fitted_on=dt.date(2021, 12, 10))
     SiteStock.objects.create(site=site, part=part, quantity=1)
     spares = spares_by_month(None, TODAY)
     row = spares["parts"][0]
@@ -129,15 +141,15 @@ def test_the_spares_chart_names_months_with_their_year_and_steps_the_cost_in_rou
 def test_risk_mix_and_readings_by_route():
     site = make_site(code="R1")
     part = make_part()
-    fresh = make_installation(motor=make_motor(site=site), part=part)
+    fresh = make_fitted_capacitor(motor=make_motor(site=site), part=part)
     make_reading(fresh, taken_at=timezone.make_aware(dt.datetime(2026, 11, 20, 9)))
     stored_assessment(fresh, "watch", None)
-    stale = make_installation(motor=make_motor(site=site), part=part)
+    stale = make_fitted_capacitor(motor=make_motor(site=site), part=part)
     make_reading(stale, taken_at=timezone.make_aware(dt.datetime(2026, 7, 1, 9)))  # 154 days before
     stored_assessment(stale, "replace now", TODAY)
-    last_quarter = make_installation(motor=make_motor(site=site), part=part)
+    last_quarter = make_fitted_capacitor(motor=make_motor(site=site), part=part)
     make_reading(last_quarter, taken_at=timezone.make_aware(dt.datetime(2026, 9, 15, 9)))
-    make_installation(motor=make_motor(site=site), part=part, fitted_on=dt.date(2026, 11, 1))  # new, not read
+    make_fitted_capacitor(motor=make_motor(site=site), part=part, fitted_on=dt.date(2026, 11, 1))  # new, not read
     mix = risk_mix(None)
     assert mix["counts"]["R1"]["watch"] == 1 and mix["counts"]["R1"]["replace now"] == 1
     assert mix["counts"]["R1"]["not assessed yet"] == 2
@@ -147,10 +159,12 @@ def test_risk_mix_and_readings_by_route():
 
 
 def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_moved(client):
-    installation = make_installation()
-    make_reading(installation, taken_at=timezone.now() - dt.timedelta(days=2))
-    stored_assessment(installation, "watch", None, created_at=timezone.now() - dt.timedelta(days=9))
-    stored_assessment(installation, "replace now", TODAY, limit_source="starting torque", reason="torque falls short")
+    fitted_capacitor = make_fitted_capacitor()
+    make_reading(fitted_capacitor, taken_at=timezone.now() - dt.timedelta(days=2))
+    stored_assessment(fitted_capacitor, "watch", None, created_at=timezone.now() - dt.timedelta(days=9))
+    stored_assessment(
+        fitted_capacitor, "replace now", TODAY, limit_source="starting torque", reason="torque falls short"
+    )
     client.force_login(make_user(PLANNER))
     response = client.get(reverse("dashboard"))
     changes = response.context["changes"]
@@ -197,10 +211,10 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     technician = make_user(TECHNICIAN)
     technician.email = "tech@example.org"
     technician.save()
-    worn = make_installation(motor=make_motor(site=here, asset_tag="HERE-0001"))
+    worn = make_fitted_capacitor(motor=make_motor(site=here, asset_tag="HERE-0001"))
     make_reading(worn, taken_at=timezone.now() - dt.timedelta(days=3))
     stored_assessment(worn, "replace now", TODAY, reason="latest reading below the tolerance limit")
-    unread = make_installation(motor=make_motor(site=there, asset_tag="THERE-0002"))
+    unread = make_fitted_capacitor(motor=make_motor(site=there, asset_tag="THERE-0002"))
     make_reading(unread, taken_at=timezone.make_aware(dt.datetime(2026, 7, 1, 9)))
     stored_assessment(unread, "sound", None)
 
@@ -209,7 +223,7 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     assert set(by_recipient) == {"all@example.org", "there@example.org"}
     full = by_recipient["all@example.org"].body
     assert "HERE-0001 run capacitor" in full and "latest reading below the tolerance limit" in full
-    assert f"https://fleet.example.org{reverse('capacitor', args=[worn.id])}" in full
+    assert f"https://fleet.example.org{reverse('fitted_capacitor', args=[worn.id])}" in full
     assert "THERE-0002 run capacitor: last read 2026-07-01, 154 days ago" in full
     assert f"https://fleet.example.org{reverse('route', args=['THERE'])}?show=due" in full
     assert "charge that can kill" in full

@@ -4,15 +4,15 @@ import pytest
 from django.test import override_settings
 from django.urls import reverse
 
-from tests.conftest import make_installation, make_user
+from tests.factories import make_fitted_capacitor, make_user
 
 
 @pytest.mark.django_db
 @override_settings(DEBUG=False)
 def test_a_refused_page_says_why_and_leads_back(client):
-    installation = make_installation()
+    fitted_capacitor = make_fitted_capacitor()
     client.force_login(make_user("planner"))
-    response = client.get(reverse("replace", args=[installation.id]))
+    response = client.get(reverse("replace", args=[fitted_capacitor.id]))
     assert response.status_code == 403
     body = response.content.decode()
     assert "Not allowed for your role" in body and reverse("home") in body
@@ -33,13 +33,13 @@ def test_a_removed_capacitor_points_to_the_one_fitted_now(client, technician):
 
     from fleet.services.readings import replace_capacitor
 
-    installation = make_installation()
+    fitted_capacitor = make_fitted_capacitor()
     successor = replace_capacitor(
-        installation=installation, part=installation.part, removed_on=dt.date(2025, 6, 1), reason="planned"
+        fitted_capacitor=fitted_capacitor, part=fitted_capacitor.part, removed_on=dt.date(2025, 6, 1), reason="planned"
     )
     client.force_login(technician)
-    body = client.get(reverse("capacitor", args=[installation.id])).content.decode()
-    assert "out of service" in body and reverse("capacitor", args=[successor.id]) in body
+    body = client.get(reverse("fitted_capacitor", args=[fitted_capacitor.id])).content.decode()
+    assert "out of service" in body and reverse("fitted_capacitor", args=[successor.id]) in body
     assert "Replace by" not in body
 
 

@@ -19,10 +19,9 @@ from rest_framework.test import APIClient
 
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
 from fleet.roles import PLANNER, RELIABILITY_ENGINEER
-from fleet.services.assessments import MODEL_VERSION, refit_installations
+from fleet.services.assessments import MODEL_VERSION, refit_fitted_capacitors
 from fleet.services.exports import ASSESSMENT_COLUMNS, LIMIT_COLUMNS, READING_COLUMNS
-
-from .conftest import make_installation, make_motor, make_part, make_site, make_user, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -42,15 +41,15 @@ FORMATS = ["csv", "xlsx", "parquet"]
 def awkward_fleet(db):
     """Two sites (one with a non-ASCII name), motors and notes holding text a spreadsheet might run."""
     sites = [make_site("NORD", name='Gewächshaus Nord, Haus "3"'), make_site("SUD", name="=Süd")]
-    installations = []
+    fitted_capacitors = []
     for i, text in enumerate(AWKWARD):
         motor = make_motor(site=sites[i % 2], location=text)
-        installation = make_installation(motor=motor)
+        fitted_capacitor = make_fitted_capacitor(motor=motor)
         start = timezone.make_aware(dt.datetime(2024, 1, 8, 9, 30))
-        quarterly_readings(installation, start, [4.0, 3.9, 3.8, 3.7], notes=text, esr_ohm=None)
-        installations.append(installation)
-    refit_installations([i.id for i in installations])
-    return sites, installations
+        quarterly_readings(fitted_capacitor, start, [4.0, 3.9, 3.8, 3.7], notes=text, esr_ohm=None)
+        fitted_capacitors.append(fitted_capacitor)
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
+    return sites, fitted_capacitors
 
 
 def _download(client, kind, file_format, query=None):
@@ -99,13 +98,13 @@ def test_readings_round_trip_with_awkward_text(client, awkward_fleet, file_forma
     client.force_login(make_user(RELIABILITY_ENGINEER))
     _, content = _download(client, "readings", file_format)
     rows = _parse(content, file_format, READING_COLUMNS)
-    stored = Reading.objects.select_related("installation__motor__site", "installation__part").order_by(
+    stored = Reading.objects.select_related("fitted_capacitor__motor__site", "fitted_capacitor__part").order_by(
         "taken_at", "id"
     )
     assert len(rows) == stored.count() == 4 * len(AWKWARD)
     for row, reading in zip(rows, stored, strict=True):
-        assert row["reading_id"] == reading.id and row["installation_id"] == reading.installation_id
-        assert row["site"] == reading.installation.motor.site.code
+        assert row["reading_id"] == reading.id and row["fitted_capacitor_id"] == reading.fitted_capacitor_id
+        assert row["site"] == reading.fitted_capacitor.motor.site.code
         assert row["notes"] == reading.notes  # = + - @ ' commas quotes newline non-ASCII, all as stored
         assert row["capacitance_uf"] == reading.capacitance_uf and isinstance(row["capacitance_uf"], int | float)
         assert row["case_temperature_c"] == reading.case_temperature_c and row["esr_ohm"] is None
@@ -118,12 +117,12 @@ def test_readings_round_trip_with_awkward_text(client, awkward_fleet, file_forma
 def test_assessments_carry_every_limits_dates_as_stored(client, awkward_fleet, file_format):
     client.force_login(make_user(RELIABILITY_ENGINEER))
     _, content = _download(client, "assessments", file_format)
-    rows = {row["installation_id"]: row for row in _parse(content, file_format, ASSESSMENT_COLUMNS + LIMIT_COLUMNS)}
-    current = Assessment.objects.filter(is_current=True).select_related("installation__motor")
-    assert set(rows) == {a.installation_id for a in current}
+    rows = {row["fitted_capacitor_id"]: row for row in _parse(content, file_format, ASSESSMENT_COLUMNS + LIMIT_COLUMNS)}
+    current = Assessment.objects.filter(is_current=True).select_related("fitted_capacitor__motor")
+    assert set(rows) == {a.fitted_capacitor_id for a in current}
     for assessment in current:
-        row = rows[assessment.installation_id]
-        assert row["location"] == assessment.installation.motor.location
+        row = rows[assessment.fitted_capacitor_id]
+        assert row["location"] == assessment.fitted_capacitor.motor.location
         assert row["risk"] == assessment.risk and row["replace_by"] == assessment.replace_by
         assert row["governing_limit"] == assessment.limit_source and row["model_version"] == MODEL_VERSION
         assert len(assessment.limits) >= 2
@@ -187,9 +186,9 @@ def test_the_sidecar_names_units_model_version_and_filters(client, awkward_fleet
 
 
 def test_filters_narrow_like_the_api_and_a_bad_one_is_named(client, awkward_fleet):
-    sites, installations = awkward_fleet
+    sites, fitted_capacitors = awkward_fleet
     client.force_login(make_user(RELIABILITY_ENGINEER))
-    part = installations[0].part.code
+    part = fitted_capacitors[0].part.code
     query = {"part": part, "since": "2024-04-01", "until": "2024-07-08"}
     _, content = _download(client, "readings", "csv", query)
     rows = _parse(content, "csv", READING_COLUMNS)
@@ -203,15 +202,15 @@ def test_filters_narrow_like_the_api_and_a_bad_one_is_named(client, awkward_flee
 def test_life_data_rows_are_failures_and_suspensions_of_the_part(client):
     part = make_part(code="LIFE-EXP")
     today = timezone.localdate()
-    failed = make_installation(part=part, fitted_on=today - dt.timedelta(days=900))
+    failed = make_fitted_capacitor(part=part, fitted_on=today - dt.timedelta(days=900))
     FittedCapacitor.objects.filter(id=failed.id).update(
         removed_on=today - dt.timedelta(days=100), removal_reason="failed"
     )
-    running = make_installation(part=part, fitted_on=today - dt.timedelta(days=300))
-    make_installation()  # another part: left out
+    running = make_fitted_capacitor(part=part, fitted_on=today - dt.timedelta(days=300))
+    make_fitted_capacitor()  # another part: left out
     client.force_login(make_user(RELIABILITY_ENGINEER))
     _, content = _download(client, "life-data", "parquet", {"part": "LIFE-EXP"})
-    rows = {r["installation_id"]: r for r in pq.read_table(io.BytesIO(content)).to_pylist()}
+    rows = {r["fitted_capacitor_id"]: r for r in pq.read_table(io.BytesIO(content)).to_pylist()}
     assert set(rows) == {failed.id, running.id}
     assert (rows[failed.id]["age_days"], rows[failed.id]["failed"]) == (800, True)
     assert (rows[running.id]["age_days"], rows[running.id]["failed"], rows[running.id]["removed_on"]) == (
@@ -255,8 +254,8 @@ def test_query_count_stays_flat_as_the_readings_grow(client, file_format):
     counts = []
     for motors in (2, 8):
         for _ in range(motors):
-            installation = make_installation(motor=make_motor(site=make_site()))
-            quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8)), [4.0, 3.9, 3.8])
+            fitted_capacitor = make_fitted_capacitor(motor=make_motor(site=make_site()))
+            quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8)), [4.0, 3.9, 3.8])
         with CaptureQueriesContext(connection) as queries:
             _download(client, "readings", file_format)
         counts.append(len(queries))
@@ -269,15 +268,15 @@ def _api(user) -> APIClient:
     return api
 
 
-def test_a_reading_posted_through_the_api_is_stored_with_source_api(technician, fan_installation):
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+def test_a_reading_posted_through_the_api_is_stored_with_source_api(technician, fan_fitted_capacitor):
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     response = _api(technician).post(url, {"method": "meter", "capacitance_uf": 3.95}, format="json")
     assert response.status_code == 201 and response.json()["source"] == "api"
     assert Reading.objects.get().source == Reading.Source.API
 
 
 def test_bulk_readings_api_filters_pages_and_scopes(awkward_fleet):
-    sites, installations = awkward_fleet
+    sites, fitted_capacitors = awkward_fleet
     user = make_user(RELIABILITY_ENGINEER)
     api = _api(user)
     seen, url, query = [], reverse("api_readings"), {"site": "NORD", "page_size": 5}
@@ -285,7 +284,7 @@ def test_bulk_readings_api_filters_pages_and_scopes(awkward_fleet):
         body = api.get(url, query).json()
         seen += body["results"]
         url, query = body["next"], None
-    nord = Reading.objects.filter(installation__motor__site__code="NORD")
+    nord = Reading.objects.filter(fitted_capacitor__motor__site__code="NORD")
     assert [r["id"] for r in seen] == sorted(nord.values_list("id", flat=True))
     assert {r["site"] for r in seen} == {"NORD"} and seen[0]["asset_tag"].startswith("M-")
     assert api.get(reverse("api_readings"), {"until": "soon"}).status_code == 400
@@ -298,8 +297,8 @@ def test_bulk_readings_api_query_count_is_flat(engineer):
     counts = []
     for motors in (2, 8):
         for _ in range(motors):
-            installation = make_installation(motor=make_motor(site=make_site()))
-            quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8)), [4.0, 3.9])
+            fitted_capacitor = make_fitted_capacitor(motor=make_motor(site=make_site()))
+            quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8)), [4.0, 3.9])
         with CaptureQueriesContext(connection) as queries:
             assert api.get(reverse("api_readings"), {"page_size": 100}).status_code == 200
         counts.append(len(queries))
@@ -310,13 +309,13 @@ def test_the_plan_and_life_data_pages_link_their_filtered_exports(client, awkwar
     import html
     import re
 
-    sites, installations = awkward_fleet
+    sites, fitted_capacitors = awkward_fleet
     client.force_login(make_user(RELIABILITY_ENGINEER))
     plan = client.get(reverse("plan"), {"site": "SUD", "days": 730}).content.decode()
-    life = client.get(reverse("life_data"), {"part": installations[0].part.code}).content.decode()
+    life = client.get(reverse("life_data"), {"part": fitted_capacitors[0].part.code}).content.decode()
     links = [html.unescape(href) for href in re.findall(r'href="(/exports/[^"]+)"', plan + life)]
     assert "/exports/assessments.parquet?site=SUD" in links and "/exports/readings.csv?site=SUD" in links
-    assert f"/exports/life-data.xlsx?part={installations[0].part.code}" in links
+    assert f"/exports/life-data.xlsx?part={fitted_capacitors[0].part.code}" in links
     for link in links:
         assert client.get(link).status_code == 200, link
 

@@ -39,12 +39,12 @@ from fleet.services.refits import (
     mark_abandoned_runs,
     queue_fleet_refit,
     refit_chunk,
-    stale_installation_ids,
+    stale_fitted_capacitor_ids,
     start_fleet_refit,
     sweep_stale,
 )
+from tests.factories import make_fitted_capacitor, make_part, make_user, quarterly_readings
 
-from .conftest import make_installation, make_part, make_user, quarterly_readings
 from .test_imports import HEADER, csv_of, fleet_of, good_rows
 from .test_services import ageing_fleet
 from .test_worker import wait_for
@@ -165,8 +165,8 @@ def stop(process: subprocess.Popen) -> None:
             process.wait()
 
 
-def post_reading(client, installation, capacitance_uf: float):
-    url = reverse("reading_new", args=[installation.id])
+def post_reading(client, fitted_capacitor, capacitance_uf: float):
+    url = reverse("reading_new", args=[fitted_capacitor.id])
     return client.post(url, {"method": "meter", "capacitance_uf": capacitance_uf, "condition": "sound"})
 
 
@@ -186,17 +186,17 @@ def dead_broker():
 
 @pytest.mark.django_db(transaction=True)
 def test_with_the_broker_down_a_reading_is_saved_and_the_sweep_refits_it(client, technician, dead_broker):
-    installation = make_installation()
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.96])
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.96])
     client.force_login(technician)
     started = time.perf_counter()
-    response = post_reading(client, installation, 3.95)
+    response = post_reading(client, fitted_capacitor, 3.95)
     print(f"reading saved with the broker refusing connections in {time.perf_counter() - started:.2f} s")
     assert response.status_code == 302
-    assert Reading.objects.filter(installation=installation, capacitance_uf=3.95).count() == 1
-    assert stale_installation_ids() == [installation.id]
+    assert Reading.objects.filter(fitted_capacitor=fitted_capacitor, capacitance_uf=3.95).count() == 1
+    assert stale_fitted_capacitor_ids() == [fitted_capacitor.id]
     assert sweep_stale() == 1
-    assert Assessment.objects.get(installation=installation, is_current=True).readings_used == 4
+    assert Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True).readings_used == 4
 
 
 @pytest.mark.django_db(transaction=True)
@@ -245,18 +245,18 @@ def test_with_the_broker_down_import_steps_say_so_and_import_nothing(
 def test_many_readings_of_one_capacitor_queue_one_refit(own_redis, technician):
     from fleet.services.readings import record_reading
 
-    first, second = make_installation(), make_installation()
+    first, second = make_fitted_capacitor(), make_fitted_capacitor()
     with broker_at(own_redis.url):
         for k in range(20):
-            for installation in (first, second):
+            for fitted_capacitor in (first, second):
                 record_reading(
-                    installation=installation, values={"method": "meter", "capacitance_uf": 3.99 - 0.001 * k}
+                    fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.99 - 0.001 * k}
                 )
         assert own_redis.queued() == 2
         from fleet.tasks import refit_capacitors
 
         refit_capacitors([first.id])  # what the worker runs: the mark is cleared, the next reading queues again
-        record_reading(installation=first, values={"method": "meter", "capacitance_uf": 3.97})
+        record_reading(fitted_capacitor=first, values={"method": "meter", "capacitance_uf": 3.97})
         assert own_redis.queued() == 3
     assert Reading.objects.count() == 41
 
@@ -266,8 +266,8 @@ def test_many_readings_of_one_capacitor_queue_one_refit(own_redis, technician):
 
 @pytest.mark.django_db
 def test_a_chunk_delivered_twice_counts_once():
-    installations = ageing_fleet(count=7)
-    ids = [i.id for i in installations]
+    fitted_capacitors = ageing_fleet(count=7)
+    ids = [i.id for i in fitted_capacitors]
     run = start_fleet_refit(chunk_size=3)  # chunks are dispatched on commit: none run inside this test
     refit_chunk(run.id, 0, ids[:3])
     refit_chunk(run.id, 0, ids[:3])  # redelivered after its worker died (acks_late)
@@ -282,8 +282,8 @@ def test_a_chunk_delivered_twice_counts_once():
 
 @pytest.mark.django_db
 def test_a_run_that_lost_its_worker_is_abandoned_on_the_refits_page_and_a_rerun_completes(client, engineer):
-    installations = ageing_fleet(count=5)
-    ids = [i.id for i in installations]
+    fitted_capacitors = ageing_fleet(count=5)
+    ids = [i.id for i in fitted_capacitors]
     lost = start_fleet_refit(chunk_size=2)
     refit_chunk(lost.id, 0, ids[:2])  # then the worker died
     queued = RefitRun.objects.create(state=RefitRun.State.QUEUED, progress_at=timezone.now())  # never started
@@ -333,8 +333,8 @@ def test_the_visibility_timeout_outlasts_every_task():
 
 def assessment_numbers() -> dict:
     fields = ["capacitance_now_uf", "slope_pct_per_1000h", "risk", "replace_by", "p10_on", "p50_on", "p90_on"]
-    rows = Assessment.objects.filter(is_current=True).values("installation_id", *fields)
-    return {row.pop("installation_id"): row for row in rows}
+    rows = Assessment.objects.filter(is_current=True).values("fitted_capacitor_id", *fields)
+    return {row.pop("fitted_capacitor_id"): row for row in rows}
 
 
 def waiting_on_a_lock() -> bool:
@@ -409,38 +409,38 @@ def _kill_mid_chunk_then_rerun(broker_url: str, expected) -> None:
 @pytest.mark.django_db(transaction=True)
 def test_readings_saved_while_the_broker_is_down_or_hung_are_refitted_when_it_returns(client, own_redis):
     part = make_part()
-    installations = [make_installation(part=part) for _ in range(3)]
-    for installation in installations:
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.96])
+    fitted_capacitors = [make_fitted_capacitor(part=part) for _ in range(3)]
+    for fitted_capacitor in fitted_capacitors:
+        quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.96])
     technician = make_user("technician")
     client.force_login(technician)
     with broker_at(own_redis.url):
         own_redis.stop()
-        for installation in installations[:2]:
+        for fitted_capacitor in fitted_capacitors[:2]:
             started = time.perf_counter()
-            assert post_reading(client, installation, 3.94).status_code == 302
+            assert post_reading(client, fitted_capacitor, 3.94).status_code == 302
             print(f"reading saved with the broker stopped in {time.perf_counter() - started:.2f} s")
         own_redis.start()
         own_redis.pause()  # up but not answering: the publish must time out, not wait for ever
         started = time.perf_counter()
-        assert post_reading(client, installations[2], 3.94).status_code == 302
+        assert post_reading(client, fitted_capacitors[2], 3.94).status_code == 302
         elapsed = time.perf_counter() - started
         print(f"reading saved with the broker hung in {elapsed:.2f} s")
         own_redis.resume()
         assert elapsed < 10, "the save waited on a hung broker"  # a hang detector, not a speed target
         assert Reading.objects.filter(capacitance_uf=3.94).count() == 3
-        assert sorted(stale_installation_ids()) == sorted(i.id for i in installations)
+        assert sorted(stale_fitted_capacitor_ids()) == sorted(i.id for i in fitted_capacitors)
 
         from fleet.tasks import send, sweep_stale
 
         worker = start_worker(own_redis.url)
         try:
             send(sweep_stale.s())  # what beat sends every 15 minutes
-            assert wait_for(lambda: stale_installation_ids() == [], seconds=90), "the sweep did not refit them"
+            assert wait_for(lambda: stale_fitted_capacitor_ids() == [], seconds=90), "the sweep did not refit them"
         finally:
             stop(worker)
-    for installation in installations:
-        assert Assessment.objects.get(installation=installation, is_current=True).readings_used == 4
+    for fitted_capacitor in fitted_capacitors:
+        assert Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True).readings_used == 4
 
 
 # --- the database ------------------------------------------------------------------------------------------

@@ -12,8 +12,8 @@ from django.utils.html import strip_tags
 
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
 from fleet.templatetags.fleet_format import day, verdict_and_risk
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, stored_assessment
 
-from .conftest import make_installation, make_motor, make_part, make_site, make_user, stored_assessment
 from .test_rules import api_for, form_post, import_check, import_row
 from .test_substitutes import post_replacement
 
@@ -23,33 +23,33 @@ MADRID = zoneinfo.ZoneInfo("Europe/Madrid")
 
 
 @pytest.fixture
-def madrid_installation():
+def madrid_fitted_capacitor():
     site = make_site(time_zone="Europe/Madrid")
-    return make_installation(motor=make_motor(site=site), fitted_on=dt.date(2024, 1, 10))
+    return make_fitted_capacitor(motor=make_motor(site=site), fitted_on=dt.date(2024, 1, 10))
 
 
 # The time measured
 
 
-def test_taken_at_is_site_time_and_is_stored_on_the_reading(client, technician, madrid_installation):
+def test_taken_at_is_site_time_and_is_stored_on_the_reading(client, technician, madrid_fitted_capacitor):
     """[trade] a technician writes the wall-clock time where they stand: 09:30 in Madrid in March
     (UTC+1, before the clocks change on 31 March 2024) is 08:30 UTC."""
     client.force_login(technician)
-    response = form_post(client, madrid_installation, capacitance_uf="3.95", taken_at="2024-03-14T09:30")
+    response = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at="2024-03-14T09:30")
     assert response.status_code == 302
     reading = Reading.objects.get()
     assert reading.taken_at == dt.datetime(2024, 3, 14, 8, 30, tzinfo=dt.UTC)
     assert reading.created_at > reading.taken_at  # when it reached the server is kept apart
 
 
-def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, technician, madrid_installation):
+def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, technician, madrid_fitted_capacitor):
     client.force_login(technician)
-    page = client.get(reverse("reading_new", args=[madrid_installation.id]))
+    page = client.get(reverse("reading_new", args=[madrid_fitted_capacitor.id]))
     offered = dt.datetime.fromisoformat(page.context["form"].initial["taken_at"]).replace(tzinfo=MADRID)
     assert abs((offered - timezone.now()).total_seconds()) < 120
     assert 'type="datetime-local"' in page.content.decode() and "Europe/Madrid" in page.content.decode()
     before = timezone.now()
-    assert form_post(client, madrid_installation, capacitance_uf="3.95", taken_at="").status_code == 302
+    assert form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at="").status_code == 302
     assert Reading.objects.get().taken_at >= before
 
 
@@ -63,10 +63,10 @@ def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, t
     ],
 )
 def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
-    client, technician, madrid_installation, taken_at, message
+    client, technician, madrid_fitted_capacitor, taken_at, message
 ):
     client.force_login(technician)
-    response = form_post(client, madrid_installation, capacitance_uf="3.95", taken_at=taken_at)
+    response = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at=taken_at)
     assert response.status_code == 200 and not Reading.objects.exists()
     assert message in response.context["form"].errors["taken_at"][0]
     body = response.content.decode()
@@ -79,26 +79,28 @@ def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
 # The design part
 
 
-def test_a_part_fitted_against_the_advice_is_not_the_next_ones_design(client, technician, fan_installation):
+def test_a_part_fitted_against_the_advice_is_not_the_next_ones_design(client, technician, fan_fitted_capacitor):
     """[derived] 4.8 uF is outside the fan's run band around its 4 uF design (test_substitutes): fitted
     once with the override, the same 4.8 uF part again needs the override again, and 4 uF is the design."""
     client.force_login(technician)
     big = make_part(code="FILM-4U8", rated_uf=4.8)
-    assert post_replacement(client, fan_installation, big, substitute_override="on", override_reason="van").status_code
-    wrong = FittedCapacitor.objects.get(motor=fan_installation.motor, removed_on__isnull=True)
+    assert post_replacement(
+        client, fan_fitted_capacitor, big, substitute_override="on", override_reason="van"
+    ).status_code
+    wrong = FittedCapacitor.objects.get(motor=fan_fitted_capacitor.motor, removed_on__isnull=True)
     page = client.get(reverse("replace", args=[wrong.id]))
-    assert page.context["form"]["part"].value() == fan_installation.part_id
+    assert page.context["form"]["part"].value() == fan_fitted_capacitor.part_id
     assert "not this motor's design part" in page.content.decode()
     again = post_replacement(client, wrong, big)
     body = again.content.decode()
     assert again.status_code == 200 and "FILM-4U8 is unsuitable here" in body
     cautions = body.index("Caution: capacitors store a charge")
     assert body.index('id="error-summary"') < cautions < body.index('<form method="post" class="card"')
-    assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 2
-    assert post_replacement(client, wrong, fan_installation.part).status_code == 302
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 2
+    assert post_replacement(client, wrong, fan_fitted_capacitor.part).status_code == 302
     assert (
         "Fitted against the substitute advice"
-        not in client.get(reverse("motor", args=[fan_installation.motor.asset_tag])).content.decode()
+        not in client.get(reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag])).content.decode()
     )
 
 
@@ -142,15 +144,15 @@ def test_finding_keeps_to_the_users_sites_and_takes_constant_queries(client, dja
 def test_a_decimal_comma_in_any_measured_field_is_read_alike_by_form_api_and_import(client, technician, text, expected):
     """The rulebook's number syntax (fleet/engineering/rules.py) for the case temperature, not only the
     capacitance: one decimal comma is a decimal mark, two are refused by name on every path."""
-    installations = [make_installation() for _ in range(3)]
+    fitted_capacitors = [make_fitted_capacitor() for _ in range(3)]
     client.force_login(technician)
-    form = form_post(client, installations[0], capacitance_uf="3,95", case_temperature_c=text)
+    form = form_post(client, fitted_capacitors[0], capacitance_uf="3,95", case_temperature_c=text)
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[installations[1].id]),
+        reverse("api_capacitor_readings", args=[fitted_capacitors[1].id]),
         {"method": "meter", "capacitance_uf": "3,95", "case_temperature_c": text},
         format="json",
     )
-    result = import_check([import_row(installations[2], capacitance_uf="3,95", case_temperature_c=text)])
+    result = import_check([import_row(fitted_capacitors[2], capacitance_uf="3,95", case_temperature_c=text)])
     if expected is None:
         assert "decimal separator" in form.context["form"].errors["case_temperature_c"][0]
         assert "decimal separator" in api.json()["case_temperature_c"][0]
@@ -197,16 +199,18 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
     assert verdict_and_risk(None) == ""
 
 
-def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(client, technician, fan_installation):
+def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(
+    client, technician, fan_fitted_capacitor
+):
     stored_assessment(
-        fan_installation,
+        fan_fitted_capacitor,
         "replace now",
         dt.date(2026, 1, 5),
         reason="latest reading, referred to 25 °C, 3.79 µF: below the tolerance limit (3.80 µF)",
         capacitance_now_uf=3.81,
     )
     client.force_login(technician)
-    body = client.get(reverse("motor", args=[fan_installation.motor.asset_tag])).content.decode()
+    body = client.get(reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag])).content.decode()
     assert "the plan still says replace now because it judges the readings referred to 25 °C" in body
 
 

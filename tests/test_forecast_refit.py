@@ -9,29 +9,29 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.models import Assessment, BandCalibration, PartPrior, Reading
-from fleet.services.assessments import refit_installations, refresh_part_priors
+from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import default_cutoffs, run_backtest, start_backtest
-from tests.conftest import make_installation, make_part, make_reading, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_part, make_reading, quarterly_readings
 
 START = timezone.make_aware(dt.datetime(2023, 1, 10, 9, 0))
 
 
-def _ageing(installation, losses_pct, **kwargs):
-    rated = installation.part.rated_uf
-    return quarterly_readings(installation, START, [rated * (1 - loss / 100) for loss in losses_pct], **kwargs)
+def _ageing(fitted_capacitor, losses_pct, **kwargs):
+    rated = fitted_capacitor.part.rated_uf
+    return quarterly_readings(fitted_capacitor, START, [rated * (1 - loss / 100) for loss in losses_pct], **kwargs)
 
 
 @pytest.mark.django_db
 def test_a_backdated_reading_added_after_the_fit_is_used():
     """Stale means "a reading was added since", not "a newer date": a reading
     entered late with an old date must reach the assessment."""
-    installation = make_installation()
-    _ageing(installation, [0, 0.5, 1.0, 1.5, 2.0])
-    refit_installations([installation.id])
-    before = Assessment.objects.get(installation=installation, is_current=True)
-    make_reading(installation, taken_at=START + dt.timedelta(days=45), capacitance_uf=3.99)
-    outcome = refit_installations([installation.id])
-    after = Assessment.objects.get(installation=installation, is_current=True)
+    fitted_capacitor = make_fitted_capacitor()
+    _ageing(fitted_capacitor, [0, 0.5, 1.0, 1.5, 2.0])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    before = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    make_reading(fitted_capacitor, taken_at=START + dt.timedelta(days=45), capacitance_uf=3.99)
+    outcome = refit_fitted_capacitors([fitted_capacitor.id])
+    after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert outcome.written == 1
     assert after.readings_used == before.readings_used + 1
 
@@ -41,15 +41,15 @@ def test_one_absurd_reading_cannot_poison_the_part_priors_or_block_a_refit():
     """A capacitor voltage of 1e6 V (or a capacitance a thousand times rated) on
     one capacitor leaves every stored prior finite and every refit working."""
     part = make_part()
-    installations = [make_installation(part=part) for _ in range(6)]
-    for installation in installations:
-        _ageing(installation, [0, 0.4, 0.9, 1.3, 1.8, 2.2])
-    make_reading(installations[0], capacitance_uf=4000.0, capacitor_voltage_v=1e6, case_temperature_c=149.0)
+    fitted_capacitors = [make_fitted_capacitor(part=part) for _ in range(6)]
+    for fitted_capacitor in fitted_capacitors:
+        _ageing(fitted_capacitor, [0, 0.4, 0.9, 1.3, 1.8, 2.2])
+    make_reading(fitted_capacitors[0], capacitance_uf=4000.0, capacitor_voltage_v=1e6, case_temperature_c=149.0)
     refresh_part_priors()
     prior = PartPrior.objects.get(part=part)
     values = [prior.intercept_mean, prior.intercept_var, prior.slope_mean, prior.slope_var, prior.noise_var]
     assert np.isfinite(values).all() and np.isfinite(prior.tempco_ppm_per_k)
-    outcome = refit_installations([i.id for i in installations])
+    outcome = refit_fitted_capacitors([i.id for i in fitted_capacitors])
     assert outcome.written == 6
     for assessment in Assessment.objects.filter(is_current=True):
         assert np.isfinite([assessment.slope_pct_per_1000h, assessment.capacitance_now_uf]).all()
@@ -58,9 +58,9 @@ def test_one_absurd_reading_cannot_poison_the_part_priors_or_block_a_refit():
 
 @pytest.mark.django_db
 def test_every_assessment_lists_the_tolerance_limit_with_dates_and_says_why(engineer, client):
-    installation = make_installation()
-    _ageing(installation, [0, 0.8, 1.6, 2.4, 3.2, 4.0])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor()
+    _ageing(fitted_capacitor, [0, 0.8, 1.6, 2.4, 3.2, 4.0])
+    refit_fitted_capacitors([fitted_capacitor.id])
     client.force_login(engineer)
     item = client.get(reverse("api_assessments")).json()["results"][0]
     tolerance = [limit for limit in item["limits"] if limit["name"] == "tolerance"]
@@ -73,10 +73,10 @@ def test_every_assessment_lists_the_tolerance_limit_with_dates_and_says_why(engi
 
 @pytest.mark.django_db
 def test_a_reading_below_tolerance_gives_replace_now_with_the_reason_and_not_today():
-    installation = make_installation()
-    _ageing(installation, [0, 1, 2, 3, 4, 5.5])
-    refit_installations([installation.id], now=START + dt.timedelta(days=5 * 91 + 1))
-    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    fitted_capacitor = make_fitted_capacitor()
+    _ageing(fitted_capacitor, [0, 1, 2, 3, 4, 5.5])
+    refit_fitted_capacitors([fitted_capacitor.id], now=START + dt.timedelta(days=5 * 91 + 1))
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert assessment.risk == "replace now"
     assert "below the tolerance limit (3.80 \u00b5F)" in assessment.reason
     assert assessment.replace_by > (START + dt.timedelta(days=5 * 91 + 1)).date()
@@ -87,10 +87,10 @@ def test_a_limit_breached_at_rated_capacitance_is_a_finding_not_wear():
     """A circuit estimate that puts more than its rating across a new capacitor
     must not condemn it: the limit is set aside with a note."""
     part = make_part(rated_voltage_v=150)  # far below what the example fan puts across it
-    installation = make_installation(part=part)
-    _ageing(installation, [0, 0.2, 0.4, 0.6])
-    refit_installations([installation.id])
-    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    fitted_capacitor = make_fitted_capacitor(part=part)
+    _ageing(fitted_capacitor, [0, 0.2, 0.4, 0.6])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     voltage = [limit for limit in assessment.limits if limit["name"] == "capacitor voltage"][0]
     assert voltage["used"] is False and "rated capacitance" in voltage["note"]
     assert assessment.risk != "replace now"
@@ -102,13 +102,15 @@ def test_a_limit_inside_the_parts_own_tolerance_is_a_design_finding_not_wear():
     """A motor limit reached above the part's lower tolerance could be breached by a new capacitor in
     tolerance: replacing cannot cure it, so it is set aside with a note and never plans a replacement.
     (Common practice of the trade, no single source: a capacitor inside its marked tolerance is good.)"""
-    narrow = make_installation()
+    narrow = make_fitted_capacitor()
     _ageing(narrow, [0, 0.2, 0.4, 0.6])
-    wide = make_installation(part=make_part(tolerance_minus_pct=40))  # lower tolerance at 0.60 of rated
+    wide = make_fitted_capacitor(part=make_part(tolerance_minus_pct=40))  # lower tolerance at 0.60 of rated
     _ageing(wide, [0, 0.2, 0.4, 0.6])
-    refit_installations([narrow.id, wide.id])
+    refit_fitted_capacitors([narrow.id, wide.id])
     by_name = {
-        inst.id: {limit["name"]: limit for limit in Assessment.objects.get(installation=inst, is_current=True).limits}
+        inst.id: {
+            limit["name"]: limit for limit in Assessment.objects.get(fitted_capacitor=inst, is_current=True).limits
+        }
         for inst in (narrow, wide)
     }
     main_current = by_name[narrow.id]["main-winding current"]["fraction_of_rated"]
@@ -122,10 +124,12 @@ def test_a_limit_inside_the_parts_own_tolerance_is_a_design_finding_not_wear():
 
 @pytest.mark.django_db
 def test_estimated_capacitor_voltage_far_from_the_measured_one_sets_the_motor_limits_aside():
-    installation = make_installation()
-    _ageing(installation, [0, 0.2, 0.4, 0.6], method="in_circuit", capacitor_current_a=0.1, capacitor_voltage_v=90.0)
-    refit_installations([installation.id])
-    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    fitted_capacitor = make_fitted_capacitor()
+    _ageing(
+        fitted_capacitor, [0, 0.2, 0.4, 0.6], method="in_circuit", capacitor_current_a=0.1, capacitor_voltage_v=90.0
+    )
+    refit_fitted_capacitors([fitted_capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     notes = [limit["note"] for limit in assessment.limits if limit["name"] != "tolerance"]
     assert notes and all("measured 90 V" in note for note in notes if note)
     assert all(not limit["used"] for limit in assessment.limits if limit["name"] != "tolerance")
@@ -135,11 +139,11 @@ def test_estimated_capacitor_voltage_far_from_the_measured_one_sets_the_motor_li
 def test_a_dissipation_factor_over_the_parts_maximum_is_evidence_to_replace():
     """ESR = DF / (2 pi f C) (common practice of the trade): 4 uF at 50 Hz and DF 0.10 is 79.6 ohm."""
     part = make_part(max_dissipation_factor=0.10)
-    installation = make_installation(part=part)
-    _ageing(installation, [0, 0.2, 0.4])
-    make_reading(installation, capacitance_uf=3.98, esr_ohm=100.0)
-    refit_installations([installation.id])
-    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    fitted_capacitor = make_fitted_capacitor(part=part)
+    _ageing(fitted_capacitor, [0, 0.2, 0.4])
+    make_reading(fitted_capacitor, capacitance_uf=3.98, esr_ohm=100.0)
+    refit_fitted_capacitors([fitted_capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert assessment.risk == "replace now"
     assert "dissipation factor 12.5 %" in assessment.reason  # 100 x 2 pi x 50 x 3.98e-6 = 0.125
 
@@ -153,10 +157,10 @@ def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
     part = make_part()
     rng = np.random.default_rng(3)
     for _ in range(30):
-        installation = make_installation(part=part, fitted_on=dt.date(2022, 1, 1))
+        fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
         rate = rng.uniform(0.08, 0.3)  # % of rated a quarter, accelerating: some cross after each cut-off
         losses = [rate * k * (1 + 0.08 * k) for k in range(16)]
-        quarterly_readings(installation, START, [4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
+        quarterly_readings(fitted_capacitor, START, [4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
     backtest = run_backtest(start_backtest(quarters=4, queue=False).id)
     assert backtest.state == "done", backtest.message
     assert len(backtest.results["cutoffs"]) == 4
@@ -170,14 +174,16 @@ def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
 def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_so():
     """The second wear sign: capacitance steady, ESR climbing (DF = ESR x 2 pi f C) to the part's 10 %."""
     part = make_part(max_dissipation_factor=0.10, dielectric="electrolytic", rated_uf=4.0)
-    installation = make_installation(part=part, role="run")
+    fitted_capacitor = make_fitted_capacitor(part=part, role="run")
     now = START + dt.timedelta(days=5 * 91 + 1)
     for quarter in range(6):
         dissipation = 0.04 + 0.011 * quarter  # 0.095 at the sixth reading, 0.10 about six weeks on
         esr = dissipation / (2 * math.pi * 50 * 4.0e-6)
-        make_reading(installation, taken_at=START + dt.timedelta(days=91 * quarter), capacitance_uf=4.0, esr_ohm=esr)
-    refit_installations([installation.id], now=now)
-    assessment = Assessment.objects.get(installation=installation, is_current=True)
+        make_reading(
+            fitted_capacitor, taken_at=START + dt.timedelta(days=91 * quarter), capacitance_uf=4.0, esr_ohm=esr
+        )
+    refit_fitted_capacitors([fitted_capacitor.id], now=now)
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert assessment.limit_source == "dissipation factor"
     assert assessment.risk == "due soon"
     assert "dissipation-factor maximum" in assessment.reason
@@ -193,11 +199,11 @@ def test_the_back_test_chooses_the_trend_form_that_forecasts_better(truth, expec
     part = make_part(tolerance_minus_pct=60)
     rng = np.random.default_rng(7)
     for _ in range(40):
-        installation = make_installation(part=part, fitted_on=dt.date(2022, 1, 1))
+        fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
         rate = rng.uniform(0.02, 0.035)  # per quarter
         quarters = np.arange(16)
         fraction = np.exp(-rate * quarters) if truth == "log-linear" else 1 - rate * quarters
-        quarterly_readings(installation, START, 4.0 * fraction * (1 + rng.normal(0, 0.003, 16)))
+        quarterly_readings(fitted_capacitor, START, 4.0 * fraction * (1 + rng.normal(0, 0.003, 16)))
     backtest = run_backtest(start_backtest(quarters=6, queue=False).id)
     assert backtest.state == "done", backtest.message
     assert BandCalibration.objects.get(family="film").trend_model == expected
@@ -209,8 +215,8 @@ def test_a_large_fleet_is_back_tested_on_a_fixed_sample(settings):
     settings.FLEET_BACKTEST_MAX_CAPACITORS = 12
     part = make_part()
     for _ in range(30):
-        installation = make_installation(part=part, fitted_on=dt.date(2022, 1, 1))
-        quarterly_readings(installation, START, [4.0 - 0.01 * k for k in range(12)])
+        fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
+        quarterly_readings(fitted_capacitor, START, [4.0 - 0.01 * k for k in range(12)])
     first = run_backtest(start_backtest(quarters=3, queue=False).id)
     second = run_backtest(start_backtest(quarters=3, queue=False).id)
     counts = [row["capacitors"] for row in first.results["cutoffs"]]

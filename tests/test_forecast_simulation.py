@@ -27,7 +27,7 @@ from rest_framework.test import APIClient
 
 from fleet.models import FittedCapacitor, Reading
 from fleet.roles import RELIABILITY_ENGINEER
-from fleet.services.assessments import refit_installations, refresh_part_priors
+from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import run_backtest, start_backtest
 from tests.simulation import fleet as simulated
 from tests.simulation import scoring
@@ -93,7 +93,7 @@ def _forecast_scores(fleet, cutoff, tmp_path) -> dict:
         .distinct()
         .values_list("id", flat=True)
     )
-    refit_installations(ids, now=dt.datetime.combine(cutoff, dt.time(0), tzinfo=dt.UTC), force=True)
+    refit_fitted_capacitors(ids, now=dt.datetime.combine(cutoff, dt.time(0), tzinfo=dt.UTC), force=True)
     forecasts = scoring.forecasts_from_api(_assessments())
     results = scoring.score_by(truth, cutoff, forecasts)
     print(f"\nforecast against the simulated fleet, seed {SEED}, cut-off {cutoff}")

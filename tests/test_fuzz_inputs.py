@@ -15,10 +15,10 @@ from hypothesis import strategies as st
 from rest_framework.authtoken.models import Token
 from rest_framework.test import APIClient
 
-from fleet.imports import READING_COLUMNS, check_readings, insert_readings, mapped_frame
+from fleet.imports.columns import READING_COLUMNS, mapped_frame
 from fleet.models import Reading
-
-from .conftest import make_installation, make_user
+from fleet.services.import_checks import check_readings, insert_readings
+from tests.factories import make_fitted_capacitor, make_user
 
 pytestmark = pytest.mark.django_db
 
@@ -76,19 +76,20 @@ def assert_all_stored_values_finite():
 
 @pytest.fixture
 def fuzz_target(db):
-    installation = make_installation()
+    fitted_capacitor = make_fitted_capacitor()
     technician = make_user("technician")
-    return installation, technician
+    return fitted_capacitor, technician
 
 
 @FUZZ
 @given(data=measured_text, method=methods, note=notes)
 def test_the_reading_form_never_fails_and_never_stores_a_non_finite_number(client, fuzz_target, data, method, note):
-    installation, technician = fuzz_target
+    fitted_capacitor, technician = fuzz_target
     client.force_login(technician)
     before = Reading.objects.count()
     response = client.post(
-        reverse("reading_new", args=[installation.id]), {**data, "method": method, "notes": note, "condition": "sound"}
+        reverse("reading_new", args=[fitted_capacitor.id]),
+        {**data, "method": method, "notes": note, "condition": "sound"},
     )
     assert response.status_code in {200, 302}
     assert Reading.objects.count() == before + (1 if response.status_code == 302 else 0)
@@ -111,14 +112,14 @@ def test_the_reading_form_never_fails_and_never_stores_a_non_finite_number(clien
     ),
 )
 def test_the_api_never_fails_and_never_stores_a_non_finite_number(fuzz_target, data, method, note, taken_at):
-    installation, technician = fuzz_target
+    fitted_capacitor, technician = fuzz_target
     client = APIClient()
     client.force_authenticate(technician)
     body = {**data, "method": method, "notes": note}
     if taken_at is not None:
         body["taken_at"] = taken_at
     before = Reading.objects.count()
-    response = client.post(reverse("api_capacitor_readings", args=[installation.id]), body, format="json")
+    response = client.post(reverse("api_capacitor_readings", args=[fitted_capacitor.id]), body, format="json")
     assert response.status_code in {201, 400, 409}, response.content[:300]
     assert Reading.objects.count() == before + (1 if response.status_code == 201 else 0)
     assert_all_stored_values_finite()
@@ -127,11 +128,11 @@ def test_the_api_never_fails_and_never_stores_a_non_finite_number(fuzz_target, d
 @FUZZ
 @given(body=st.binary(max_size=200))
 def test_the_api_survives_a_body_that_is_not_json(fuzz_target, body):
-    installation, technician = fuzz_target
+    fitted_capacitor, technician = fuzz_target
     client = APIClient()
     client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.get_or_create(user=technician)[0].key}")
     response = client.post(
-        reverse("api_capacitor_readings", args=[installation.id]), body, content_type="application/json"
+        reverse("api_capacitor_readings", args=[fitted_capacitor.id]), body, content_type="application/json"
     )
     assert response.status_code in {201, 400, 409}
 
@@ -155,9 +156,9 @@ row_values = st.fixed_dictionaries(
 @FUZZ
 @given(rows=st.lists(row_values, min_size=1, max_size=8))
 def test_the_importer_never_fails_and_writes_only_checked_rows(fuzz_target, rows):
-    installation, _ = fuzz_target
+    fitted_capacitor, _ = fuzz_target
     header = list(READING_COLUMNS)
-    base = {"asset_tag": installation.motor.asset_tag, "role": "run", "taken_at": "2024-03-01 09:00"}
+    base = {"asset_tag": fitted_capacitor.motor.asset_tag, "role": "run", "taken_at": "2024-03-01 09:00"}
     body = [[{**base, **row}.get(name, "") for name in header] for row in rows]
     result = check_readings(mapped_frame(header, body, {n: n for n in header}, READING_COLUMNS))
     bad_rows = {r for r, _, _ in result.errors}

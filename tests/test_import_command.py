@@ -90,7 +90,7 @@ def test_a_whole_migration_imports_each_kind_and_a_second_run_adds_nothing(tmp_p
         (dt.date(2023, 3, 1), None, ""),
     ]
     # Each reading goes to the capacitor fitted on its date: 2020 to the second, 2024 to the one in service.
-    assert sorted(Reading.objects.values_list("installation__fitted_on", flat=True)) == [
+    assert sorted(Reading.objects.values_list("fitted_capacitor__fitted_on", flat=True)) == [
         dt.date(2019, 8, 20),
         dt.date(2023, 3, 1),
     ]

@@ -13,12 +13,12 @@ from django.urls import reverse
 from django.utils import timezone
 from openpyxl import Workbook
 
-from fleet import imports
-from fleet.imports import FileRefused, read_table
+from fleet.imports.files import FileRefused, read_table
 from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
+from fleet.services import import_checks
 from fleet.services.import_jobs import check_job, create_job, read_job, run_job
+from tests.factories import make_part, make_site
 
-from .conftest import make_part, make_site
 from .test_imports import HEADER, csv_of, fleet_of, good_rows
 
 pytestmark = pytest.mark.django_db
@@ -101,7 +101,10 @@ def test_the_parser_stops_at_the_row_limit_too(settings):
     """Should a sheet's rows escape the count before parsing, reading stops at the limit all the same."""
     settings.FLEET_IMPORT_MAX_ROWS = 100
     content = workbook_with_sheet(huge_sheet(5_000, 3, dimension=False))
-    with mock.patch.object(imports, "_count_row_tags", return_value=0), pytest.raises(FileRefused, match="101 rows"):
+    with (
+        mock.patch("fleet.imports.files._count_row_tags", return_value=0),
+        pytest.raises(FileRefused, match="101 rows"),
+    ):
         read_table(content, "undeclared.xlsx")
 
 
@@ -165,14 +168,14 @@ def test_an_exception_mid_import_ends_the_job_failed_with_nothing_in(caplog):
     job = create_job(
         kind="readings", filename="q.csv", content=csv_of(good_rows(["IMP-0000", "IMP-0001"], 3)), user=None
     )
-    real_insert = imports.insert_readings
+    real_insert = import_checks.insert_readings
 
     def insert_then_fail(good, user=None):
         real_insert(good, user)
         assert Reading.objects.count() == 6  # the rows are in, inside the transaction
         raise RuntimeError("disk on fire")
 
-    with mock.patch.object(imports, "insert_readings", insert_then_fail), caplog.at_level(logging.ERROR):
+    with mock.patch("fleet.services.import_checks.insert_readings", insert_then_fail), caplog.at_level(logging.ERROR):
         job = run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
     assert job.state == ImportJob.State.FAILED
     assert "unexpected error (RuntimeError)" in job.message and "Nothing was imported" in job.message
@@ -183,7 +186,7 @@ def test_an_exception_mid_import_ends_the_job_failed_with_nothing_in(caplog):
 def test_an_exception_in_the_check_ends_the_job_failed(caplog):
     fleet_of(1)
     job = create_job(kind="readings", filename="q.csv", content=csv_of(good_rows(["IMP-0000"], 1)), user=None)
-    with mock.patch.object(imports, "reading_keys", side_effect=KeyError("surprise")):
+    with mock.patch("fleet.services.import_checks.reading_keys", side_effect=KeyError("surprise")):
         job = check_job(job.id)
     assert job.state == ImportJob.State.FAILED and "(KeyError)" in job.message
 
@@ -193,7 +196,7 @@ def test_the_upload_request_only_stores_the_file_and_queues_the_job(client, tech
     upload = io.BytesIO(b"asset_tag,role,taken_at\nA,run,2024-01-01 09:00\n")
     upload.name = "q.csv"
     with (
-        mock.patch.object(imports, "read_table", never_parsed),
+        mock.patch("fleet.imports.files.read_table", never_parsed),
         mock.patch("fleet.tasks.read_import.delay") as queued,
         mock.patch("django.db.transaction.on_commit", lambda callback: callback()),
     ):

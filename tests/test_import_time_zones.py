@@ -7,8 +7,7 @@ import pytest
 
 from fleet.models import ImportJob, Reading
 from fleet.services.import_jobs import check_job, create_job, run_job
-
-from .conftest import make_installation, make_motor, make_site
+from tests.factories import make_fitted_capacitor, make_motor, make_site
 
 pytestmark = pytest.mark.django_db
 
@@ -16,7 +15,7 @@ UTC = dt.UTC
 
 
 def capacitor_at(zone: str):
-    return make_installation(motor=make_motor(site=make_site(time_zone=zone)), fitted_on=dt.date(2022, 1, 1))
+    return make_fitted_capacitor(motor=make_motor(site=make_site(time_zone=zone)), fitted_on=dt.date(2022, 1, 1))
 
 
 def import_readings(times, tag, mode=ImportJob.Mode.GOOD_ROWS):
@@ -25,25 +24,25 @@ def import_readings(times, tag, mode=ImportJob.Mode.GOOD_ROWS):
     return run_job(create_job(kind="readings", filename="times.csv", content=content, user=None).id, mode)
 
 
-def stored_times(installation):
+def stored_times(fitted_capacitor):
     """Stored times in the file's row order (each row's capacitance is lower than the one before)."""
-    readings = Reading.objects.filter(installation=installation).order_by("-capacitance_uf")
+    readings = Reading.objects.filter(fitted_capacitor=fitted_capacitor).order_by("-capacitance_uf")
     return [taken_at.astimezone(UTC) for taken_at in readings.values_list("taken_at", flat=True)]
 
 
 def test_a_time_without_offset_is_site_time_brisbane_is_ten_hours_ahead_of_utc():
     # [pub] IANA time zone database: Australia/Brisbane is UTC+10:00 all year (Queensland keeps no daylight saving).
-    installation = capacitor_at("Australia/Brisbane")
-    job = import_readings(["2025-03-15 08:00"], installation.motor.asset_tag)
+    fitted_capacitor = capacitor_at("Australia/Brisbane")
+    job = import_readings(["2025-03-15 08:00"], fitted_capacitor.motor.asset_tag)
     assert job.state == ImportJob.State.DONE and job.errors == []
-    assert stored_times(installation) == [dt.datetime(2025, 3, 14, 22, 0, tzinfo=UTC)]
+    assert stored_times(fitted_capacitor) == [dt.datetime(2025, 3, 14, 22, 0, tzinfo=UTC)]
 
 
 def test_a_time_with_an_offset_is_used_as_given_whatever_the_sites_zone():
-    installation = capacitor_at("Australia/Brisbane")
-    job = import_readings(["2025-03-15T08:00+00:00", "2025-03-16T08:00Z"], installation.motor.asset_tag)
+    fitted_capacitor = capacitor_at("Australia/Brisbane")
+    job = import_readings(["2025-03-15T08:00+00:00", "2025-03-16T08:00Z"], fitted_capacitor.motor.asset_tag)
     assert job.errors == [] and job.imported_rows == 2
-    assert stored_times(installation) == [
+    assert stored_times(fitted_capacitor) == [
         dt.datetime(2025, 3, 15, 8, 0, tzinfo=UTC),
         dt.datetime(2025, 3, 16, 8, 0, tzinfo=UTC),
     ]
@@ -52,11 +51,11 @@ def test_a_time_with_an_offset_is_used_as_given_whatever_the_sites_zone():
 def test_offsets_that_change_within_a_file_across_daylight_saving_import_both():
     # [pub] EU Directive 2000/84/EC: summer time ends at 01:00 UTC on the last Sunday of October
     # (27 October 2024); Central European time is UTC+2 before, UTC+1 after.
-    installation = capacitor_at("Europe/Berlin")
+    fitted_capacitor = capacitor_at("Europe/Berlin")
     times = ["2024-10-25T09:00+02:00", "2024-10-28T09:00+01:00", "2024-10-25 10:00", "2024-10-28 10:00"]
-    job = import_readings(times, installation.motor.asset_tag, ImportJob.Mode.ALL_OR_NOTHING)
+    job = import_readings(times, fitted_capacitor.motor.asset_tag, ImportJob.Mode.ALL_OR_NOTHING)
     assert job.state == ImportJob.State.DONE and job.errors == [] and job.imported_rows == 4
-    assert stored_times(installation) == [
+    assert stored_times(fitted_capacitor) == [
         dt.datetime(2024, 10, 25, 7, 0, tzinfo=UTC),
         dt.datetime(2024, 10, 28, 8, 0, tzinfo=UTC),
         dt.datetime(2024, 10, 25, 8, 0, tzinfo=UTC),  # site time, summer
@@ -67,12 +66,12 @@ def test_offsets_that_change_within_a_file_across_daylight_saving_import_both():
 def test_a_bad_time_and_a_local_time_the_clocks_skip_are_named_by_row_and_field():
     # [pub] EU Directive 2000/84/EC: summer time begins at 01:00 UTC on the last Sunday of March
     # (31 March 2024), so 02:30 that night does not exist in Berlin.
-    installation = capacitor_at("Europe/Berlin")
+    fitted_capacitor = capacitor_at("Europe/Berlin")
     content = (
         "asset_tag,role,taken_at,method,capacitance_uf\n"
-        f"{installation.motor.asset_tag},run,2024-13-45 08:00,meter,3.99\n"
-        f"{installation.motor.asset_tag},run,2024-03-31 02:30,meter,3.98\n"
-        f"{installation.motor.asset_tag},run,2024-03-31 03:30,meter,3.97\n"
+        f"{fitted_capacitor.motor.asset_tag},run,2024-13-45 08:00,meter,3.99\n"
+        f"{fitted_capacitor.motor.asset_tag},run,2024-03-31 02:30,meter,3.98\n"
+        f"{fitted_capacitor.motor.asset_tag},run,2024-03-31 03:30,meter,3.97\n"
     ).encode()
     job = check_job(create_job(kind="readings", filename="bad.csv", content=content, user=None).id)
     assert job.state == ImportJob.State.CHECKED and job.good_rows == 1

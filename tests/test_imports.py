@@ -10,11 +10,10 @@ from django.utils import timezone
 from openpyxl import Workbook
 
 from fleet.exports import safe_cell
-from fleet.imports import FileRefused, read_table
+from fleet.imports.files import FileRefused, read_table
 from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
 from fleet.services.import_jobs import check_job, create_job, rejected_rows_csv, run_job
-
-from .conftest import make_installation, make_motor, make_part, make_site
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site
 
 pytestmark = pytest.mark.django_db
 
@@ -128,19 +127,21 @@ def test_in_circuit_rows_compute_capacitance_and_milliamps_are_named():
 
 
 def test_a_reading_is_given_to_the_capacitor_fitted_on_its_date():
-    installation = make_installation(fitted_on=dt.date(2020, 1, 1))
-    installation.removed_on, installation.removal_reason = dt.date(2023, 6, 1), "failed"
-    installation.save()
-    successor = make_installation(motor=installation.motor, part=installation.part, fitted_on=dt.date(2023, 6, 1))
-    tag = installation.motor.asset_tag
+    fitted_capacitor = make_fitted_capacitor(fitted_on=dt.date(2020, 1, 1))
+    fitted_capacitor.removed_on, fitted_capacitor.removal_reason = dt.date(2023, 6, 1), "failed"
+    fitted_capacitor.save()
+    successor = make_fitted_capacitor(
+        motor=fitted_capacitor.motor, part=fitted_capacitor.part, fitted_on=dt.date(2023, 6, 1)
+    )
+    tag = fitted_capacitor.motor.asset_tag
     rows = [
         [tag, "run", "2023-03-01 09:00", "meter", "3.9", "", "", "", ""],
         [tag, "run", "2023-09-01 09:00", "meter", "4.0", "", "", "", ""],
     ]
     job = create_job(kind="readings", filename="history.csv", content=csv_of(rows), user=None)
     run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
-    assert set(Reading.objects.values_list("installation_id", "capacitance_uf")) == {
-        (installation.id, 3.9),
+    assert set(Reading.objects.values_list("fitted_capacitor_id", "capacitance_uf")) == {
+        (fitted_capacitor.id, 3.9),
         (successor.id, 4.0),
     }
 
@@ -305,7 +306,7 @@ def test_reading_keys_are_the_keys_readings_were_imported_with():
 
     import pandas as pd
 
-    from fleet.imports import reading_keys
+    from fleet.imports.columns import reading_keys
 
     times = pd.Series(
         pd.to_datetime(
@@ -326,7 +327,8 @@ def test_a_reading_another_import_wrote_meanwhile_is_skipped_and_the_rest_go_in(
     """Two jobs importing the same file at once: the second's COPY meets the first's keys."""
     from django.db import transaction
 
-    from fleet.imports import READING_COLUMNS, check_readings, insert_readings, mapped_frame
+    from fleet.imports.columns import READING_COLUMNS, mapped_frame
+    from fleet.services.import_checks import check_readings, insert_readings
 
     fleet_of(2)
     rows = good_rows(["IMP-0000", "IMP-0001"], 2)
@@ -347,7 +349,8 @@ def test_the_database_still_refuses_a_reading_after_removal_and_nothing_goes_in(
     the check and the write refuses the whole batch."""
     from django.db import IntegrityError, transaction
 
-    from fleet.imports import READING_COLUMNS, check_readings, insert_readings, mapped_frame
+    from fleet.imports.columns import READING_COLUMNS, mapped_frame
+    from fleet.services.import_checks import check_readings, insert_readings
 
     motors = fleet_of(2)
     rows = good_rows(["IMP-0000", "IMP-0001"], 2)

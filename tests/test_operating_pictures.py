@@ -12,20 +12,19 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.models import Assessment
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.operating_pictures import SWEEP_FRACTIONS, motor_pictures
-
-from .conftest import make_installation, make_motor, make_part, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
 
 def _assessed_fan(values_uf=(4.0, 3.9, 3.8, 3.7, 3.6)):
-    installation = make_installation()
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), list(values_uf))
-    refit_installations([installation.id])
-    installation.assessment = Assessment.objects.get(installation=installation, is_current=True)
-    return installation
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), list(values_uf))
+    refit_fitted_capacitors([fitted_capacitor.id])
+    fitted_capacitor.assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    return fitted_capacitor
 
 
 def _trace(figure, name):
@@ -35,9 +34,9 @@ def _trace(figure, name):
 def test_the_pictures_carry_the_stored_as_new_and_now_figures():
     """[derived] the page's points are the refit's own operating figures: the stored magnitudes of
     the main, auxiliary and line currents and the capacitor voltage, as new and now."""
-    installation = _assessed_fan()
-    assessment = installation.assessment
-    pictures = motor_pictures([installation])[installation.id]
+    fitted_capacitor = _assessed_fan()
+    assessment = fitted_capacitor.assessment
+    pictures = motor_pictures([fitted_capacitor])[fitted_capacitor.id]
     for state, stored in (("as new", assessment.figures_new), ("now", assessment.figures_now)):
         currents = {
             t["name"]: t["r"][1]
@@ -55,12 +54,12 @@ def test_the_pictures_carry_the_stored_as_new_and_now_figures():
 
 
 def test_the_sweep_spans_half_to_110_percent_with_the_limit_levels():
-    installation = _assessed_fan()
-    figure = motor_pictures([installation])[installation.id]["sweep"]
+    fitted_capacitor = _assessed_fan()
+    figure = motor_pictures([fitted_capacitor])[fitted_capacitor.id]["sweep"]
     curve = figure["data"][0]
     assert curve["x"][0] == 50.0 and curve["x"][-1] == 110.0 and len(curve["x"]) == len(SWEEP_FRACTIONS)
     levels = sorted(shape["y0"] for shape in figure["layout"]["shapes"] if shape.get("y0") == shape.get("y1"))
-    motor = installation.motor
+    motor = fitted_capacitor.motor
     assert pytest.approx(1.15 * motor.full_load_current_a) in levels  # [trade] service factor, as DriftLimits
     assert pytest.approx(450.0) in levels  # the part's rated voltage
     crossings = [a["text"] for a in figure["layout"]["annotations"] if a.get("textangle") == -90]
@@ -68,19 +67,19 @@ def test_the_sweep_spans_half_to_110_percent_with_the_limit_levels():
 
 
 def test_no_assessment_draws_only_as_new_and_no_circuit_draws_nothing():
-    installation = make_installation()
-    installation.assessment = None
-    pictures = motor_pictures([installation])[installation.id]
+    fitted_capacitor = make_fitted_capacitor()
+    fitted_capacitor.assessment = None
+    pictures = motor_pictures([fitted_capacitor])[fitted_capacitor.id]
     assert not _trace(pictures["sweep"], "now") and _trace(pictures["sweep"], "as new")
-    bare = make_installation(motor=make_motor(with_circuit=False))
+    bare = make_fitted_capacitor(motor=make_motor(with_circuit=False))
     bare.assessment = None
     assert motor_pictures([bare]) == {}
 
 
 def test_a_two_value_motor_gets_pictures_for_both_capacitors_in_a_bounded_number_of_queries():
     motor = make_motor(motor_type="two_value", load_type="constant")
-    run = make_installation(motor=motor)
-    start = make_installation(
+    run = make_fitted_capacitor(motor=motor)
+    start = make_fitted_capacitor(
         motor=motor, role="start", part=make_part(rated_uf=60, dielectric="electrolytic", rated_voltage_v=250)
     )
     run.assessment = start.assessment = None
@@ -94,12 +93,12 @@ def test_a_two_value_motor_gets_pictures_for_both_capacitors_in_a_bounded_number
 
 
 def test_the_motor_page_embeds_the_charts_as_json(client, engineer):
-    installation = _assessed_fan()
+    fitted_capacitor = _assessed_fan()
     client.force_login(engineer)
-    body = client.get(reverse("motor", args=[installation.motor.asset_tag])).content.decode()
+    body = client.get(reverse("motor", args=[fitted_capacitor.motor.asset_tag])).content.decode()
     for name in ("currents", "voltages", "sweep"):
-        assert f'id="{name}-{installation.id}-chart"' in body
-        start = body.index(f'id="{name}-{installation.id}-data"')
+        assert f'id="{name}-{fitted_capacitor.id}-chart"' in body
+        start = body.index(f'id="{name}-{fitted_capacitor.id}-data"')
         payload = body[body.index(">", start) + 1 : body.index("</script>", start)]
         json.loads(payload)  # valid JSON: no NaN reaches the page
     assert "plotly/plotly.min" in body
@@ -109,8 +108,8 @@ def test_the_figures_are_valid_plotly():
     """The figures are plain dicts (fast to build): Plotly's own validator must accept every property."""
     import plotly.graph_objects as go
 
-    installation = _assessed_fan()
-    for figure in motor_pictures([installation])[installation.id].values():
+    fitted_capacitor = _assessed_fan()
+    for figure in motor_pictures([fitted_capacitor])[fitted_capacitor.id].values():
         go.Figure(figure)  # raises on any property Plotly does not know
 
 
@@ -118,21 +117,21 @@ def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, e
     """[derived] a start capacitor is out of circuit when running: its page says so in one line and
     lists the standstill figures (which do change) instead of running figures equal as new and now."""
     motor = make_motor(motor_type="two_value", load_type="constant")
-    run = make_installation(motor=motor)
-    start = make_installation(
+    run = make_fitted_capacitor(motor=motor)
+    start = make_fitted_capacitor(
         motor=motor, role="start", part=make_part(rated_uf=60, dielectric="electrolytic", rated_voltage_v=250)
     )
     when = timezone.make_aware(dt.datetime(2024, 1, 8, 9))
     quarterly_readings(run, when, [4.0, 3.95, 3.9, 3.85, 3.8])
     quarterly_readings(start, when, [60.0, 58.0, 56.0, 54.0, 52.0])
-    refit_installations([run.id, start.id])
-    stored = Assessment.objects.get(installation=start, is_current=True)
+    refit_fitted_capacitors([run.id, start.id])
+    stored = Assessment.objects.get(fitted_capacitor=start, is_current=True)
     assert stored.figures_new["i_main_a"] == pytest.approx(stored.figures_now["i_main_a"], rel=1e-12)
     assert stored.figures_new["starting_torque_nm"] != pytest.approx(stored.figures_now["starting_torque_nm"], rel=1e-3)
     client.force_login(engineer)
-    start_page = client.get(reverse("capacitor", args=[start.id])).content.decode()
+    start_page = client.get(reverse("fitted_capacitor", args=[start.id])).content.decode()
     assert "out of circuit once the motor runs" in start_page
     assert "Running speed" not in start_page and "Starting torque" in start_page
     assert "Start capacitor voltage at standstill" in start_page
-    run_page = client.get(reverse("capacitor", args=[run.id])).content.decode()
+    run_page = client.get(reverse("fitted_capacitor", args=[run.id])).content.decode()
     assert "Running speed" in run_page and "out of circuit once the motor runs" not in run_page

@@ -22,13 +22,20 @@ from django.utils import timezone
 
 from fleet.models import Assessment, ImportJob, Motor, RefitRun
 from fleet.roles import TECHNICIAN
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.pages import replacement_plan
 from fleet.services.readings import replace_capacitor
 from fleet.services.workorders import plan_work_orders
-from fleet.views import LABELS_PAGE_SIZE
-
-from .conftest import make_installation, make_motor, make_part, make_reading, make_site, make_user, quarterly_readings
+from fleet.views.field import LABELS_PAGE_SIZE
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_reading,
+    make_site,
+    make_user,
+    quarterly_readings,
+)
 
 pytestmark = pytest.mark.django_db
 
@@ -52,23 +59,23 @@ class Fleet:
             n = next(self.serial)
             motor = make_motor(site=self.sites[n % 2], route_order=n, with_circuit=False)
             if n % 5 == 0:  # a capacitor in its history, removed before the present one was fitted
-                make_installation(
+                make_fitted_capacitor(
                     motor=motor,
                     part=self.part,
                     fitted_on=dt.date(2019, 1, 1),
                     removed_on=dt.date(2021, 12, 31),
                     removal_reason="failed",
                 )
-            installation = make_installation(motor=motor, part=self.part, fitted_on=dt.date(2022, 1, 1))
-            quarterly_readings(installation, START, WORN if n % 3 == 0 else SOUND)
+            fitted_capacitor = make_fitted_capacitor(motor=motor, part=self.part, fitted_on=dt.date(2022, 1, 1))
+            quarterly_readings(fitted_capacitor, START, WORN if n % 3 == 0 else SOUND)
             if n % 2 == 0:  # read this quarter
-                make_reading(installation, capacitance_uf=3.99 if n % 3 else 3.6)
-            new.append(installation)
-        refit_installations([i.id for i in new])
+                make_reading(fitted_capacitor, capacitance_uf=3.99 if n % 3 else 3.6)
+            new.append(fitted_capacitor)
+        refit_fitted_capacitors([i.id for i in new])
         # Some were judged sound before this refit: their risk level changed this week.
         changed = [i.id for i in new[::4]]
-        Assessment.objects.filter(installation_id__in=changed, is_current=True).update(risk="sound")
-        refit_installations(changed, force=True)
+        Assessment.objects.filter(fitted_capacitor_id__in=changed, is_current=True).update(risk="sound")
+        refit_fitted_capacitors(changed, force=True)
         plan_work_orders(horizon_days=365)
         RefitRun.objects.create(state=RefitRun.State.DONE, total=len(new), done=len(new))
         ImportJob.objects.create(kind="readings", filename=f"readings-{motors}.csv", content=b"", created_by=user)
@@ -119,37 +126,40 @@ def test_the_in_service_flag_follows_the_capacitors_removal(planner_who_reads):
     """The flag the plan, the risk counts and the API read is kept by the database on every write path."""
     fleet = Fleet()
     fleet.grow_to(3, planner_who_reads)
-    installation = Assessment.objects.filter(is_current=True, risk="replace now").first().installation
-    assert Assessment.objects.get(installation=installation, is_current=True).capacitor_in_service
+    fitted_capacitor = Assessment.objects.filter(is_current=True, risk="replace now").first().fitted_capacitor
+    assert Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True).capacitor_in_service
     successor = replace_capacitor(
-        installation=installation, part=fleet.part, removed_on=timezone.localdate(), reason="failed"
+        fitted_capacitor=fitted_capacitor, part=fleet.part, removed_on=timezone.localdate(), reason="failed"
     )
-    assert not Assessment.objects.filter(installation=installation, capacitor_in_service=True).exists()
-    plan = set(replacement_plan(horizon_days=3650).values_list("installation_id", flat=True))
-    assert installation.id not in plan and successor.id not in plan
-    installation.removed_on, installation.removal_reason = None, ""  # an administrator undoes a removal
+    assert not Assessment.objects.filter(fitted_capacitor=fitted_capacitor, capacitor_in_service=True).exists()
+    plan = set(replacement_plan(horizon_days=3650).values_list("fitted_capacitor_id", flat=True))
+    assert fitted_capacitor.id not in plan and successor.id not in plan
+    fitted_capacitor.removed_on, fitted_capacitor.removal_reason = None, ""  # an administrator undoes a removal
     successor.delete()
-    installation.save()
-    assert Assessment.objects.get(installation=installation, is_current=True).capacitor_in_service
+    fitted_capacitor.save()
+    assert Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True).capacitor_in_service
     # An assessment written for a capacitor already removed is flagged out of service as it is inserted.
-    removed = make_installation(part=fleet.part, fitted_on=dt.date(2022, 1, 1))
+    removed = make_fitted_capacitor(part=fleet.part, fitted_on=dt.date(2022, 1, 1))
     quarterly_readings(removed, START, WORN)
     removed.removed_on, removed.removal_reason = timezone.localdate(), "failed"
     removed.save()
-    refit_installations([removed.id])
-    assert Assessment.objects.filter(installation=removed).values_list("capacitor_in_service", flat=True).get() is False
+    refit_fitted_capacitors([removed.id])
+    assert (
+        Assessment.objects.filter(fitted_capacitor=removed).values_list("capacitor_in_service", flat=True).get()
+        is False
+    )
 
 
 def test_a_motors_last_reading_is_kept_by_the_database():
-    installation = make_installation()
-    motor = installation.motor
+    fitted_capacitor = make_fitted_capacitor()
+    motor = fitted_capacitor.motor
     assert Motor.objects.get(pk=motor.pk).last_read_at is None
     newest = timezone.now() - dt.timedelta(days=3)
-    make_reading(installation, taken_at=newest)
-    make_reading(installation, taken_at=newest - dt.timedelta(days=90))  # an older reading, entered late
+    make_reading(fitted_capacitor, taken_at=newest)
+    make_reading(fitted_capacitor, taken_at=newest - dt.timedelta(days=90))  # an older reading, entered late
     assert Motor.objects.get(pk=motor.pk).last_read_at == newest
     later = newest + dt.timedelta(days=1)
-    make_reading(installation, taken_at=later)
+    make_reading(fitted_capacitor, taken_at=later)
     assert Motor.objects.get(pk=motor.pk).last_read_at == later
 
 
@@ -170,10 +180,10 @@ def test_a_work_orders_site_is_its_motors_kept_by_the_database():
 
 
 def test_the_route_pages_keep_the_filter_and_count_every_motor(client, planner_who_reads, monkeypatch):
-    monkeypatch.setattr("fleet.views.ROUTE_PAGE_SIZE", 2)
+    monkeypatch.setattr("fleet.views.field.ROUTE_PAGE_SIZE", 2)
     site = make_site("EAST")
     motors = [make_motor(site=site, route_order=n) for n in range(5)]
-    read = make_installation(motor=motors[1])
+    read = make_fitted_capacitor(motor=motors[1])
     make_reading(read, taken_at=timezone.now() - dt.timedelta(hours=1))
     client.force_login(planner_who_reads)
     url = reverse("route", args=["EAST"])
@@ -214,29 +224,31 @@ def test_the_refits_page_counts_capacitors_read_since_their_assessment():
     since makes its capacitor stale until its own refit."""
     from fleet.services.refits import stale_count
 
-    installation = make_installation()
-    quarterly_readings(installation, START, SOUND)
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, START, SOUND)
     assert stale_count() == 1  # read, never assessed, and no fleet refit has finished
-    refit_installations([installation.id])
+    refit_fitted_capacitors([fitted_capacitor.id])
     assert stale_count() == 0
     RefitRun.objects.create(kind="fleet", state=RefitRun.State.DONE, total=1, done=1)
-    make_reading(installation, capacitance_uf=3.98)
+    make_reading(fitted_capacitor, capacitance_uf=3.98)
     assert stale_count() == 1
-    refit_installations([installation.id])
+    refit_fitted_capacitors([fitted_capacitor.id])
     assert stale_count() == 0
 
 
 def _fresh_totals():
     """The figures the stored site and part give, counted afresh through the capacitors and motors."""
-    in_service = Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
+    in_service = Assessment.objects.filter(is_current=True, fitted_capacitor__removed_on__isnull=True)
     return {
-        "facts": sorted(Assessment.objects.values_list("id", "installation__motor__site_id", "installation__part_id")),
+        "facts": sorted(
+            Assessment.objects.values_list("id", "fitted_capacitor__motor__site_id", "fitted_capacitor__part_id")
+        ),
         "by_site_and_risk": sorted(
-            in_service.values_list("installation__motor__site__code", "risk").annotate(n=Count("id")).order_by()
+            in_service.values_list("fitted_capacitor__motor__site__code", "risk").annotate(n=Count("id")).order_by()
         ),
         "spares": sorted(
             in_service.filter(replace_by__lte=timezone.localdate() + dt.timedelta(days=365))
-            .values_list("installation__part__code")
+            .values_list("fitted_capacitor__part__code")
             .annotate(n=Count("id"))
             .order_by()
         ),
@@ -271,22 +283,24 @@ def test_each_assessments_stored_site_and_part_stay_true_through_readings_refits
     assert _stored_totals() == _fresh_totals()
     assert Assessment.objects.filter(site__isnull=True).count() == 0  # the comparison is of real values
     # A reading and its refit: a new current assessment, inserted by the refit's writer.
-    worn = Assessment.objects.filter(is_current=True, risk="replace now").first().installation
+    worn = Assessment.objects.filter(is_current=True, risk="replace now").first().fitted_capacitor
     make_reading(worn, capacitance_uf=3.5)
-    refit_installations([worn.id])
+    refit_fitted_capacitors([worn.id])
     # A replacement: the old capacitor leaves service, its successor is read and assessed.
     other_part = make_part(code="RUN-4U-B")
-    successor = replace_capacitor(installation=worn, part=other_part, removed_on=timezone.localdate(), reason="failed")
+    successor = replace_capacitor(
+        fitted_capacitor=worn, part=other_part, removed_on=timezone.localdate(), reason="failed"
+    )
     quarterly_readings(successor, timezone.now() - dt.timedelta(days=400), SOUND)
-    refit_installations([successor.id])
-    assert Assessment.objects.get(installation=successor, is_current=True).part_id == other_part.id
+    refit_fitted_capacitors([successor.id])
+    assert Assessment.objects.get(fitted_capacitor=successor, is_current=True).part_id == other_part.id
     # A motor moves to the other site; a capacitor's part is corrected in the register.
     moved = Motor.objects.filter(site=fleet.sites[0]).exclude(capacitors=worn).first()
     moved.site = fleet.sites[1]
     moved.save()
-    corrected = Assessment.objects.filter(is_current=True).exclude(installation=successor).first().installation
+    corrected = Assessment.objects.filter(is_current=True).exclude(fitted_capacitor=successor).first().fitted_capacitor
     corrected.part = other_part
     corrected.save()
     stored, fresh = _stored_totals(), _fresh_totals()
     assert stored == fresh
-    assert {a.installation_id for a in Assessment.objects.filter(part=other_part)} == {successor.id, corrected.id}
+    assert {a.fitted_capacitor_id for a in Assessment.objects.filter(part=other_part)} == {successor.id, corrected.id}

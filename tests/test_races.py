@@ -20,7 +20,7 @@ from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading
 from fleet.services import readings as reading_service
-from tests.conftest import make_installation, make_user, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db(transaction=True)
 
@@ -80,9 +80,9 @@ def held_before(target, name, parties, *, give_up_after_s=None):
 
 @pytest.fixture
 def capacitor():
-    installation = make_installation()
-    quarterly_readings(installation, dt.datetime(2025, 1, 1, tzinfo=dt.UTC), [4.0, 3.99, 3.98])
-    return installation
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, dt.datetime(2025, 1, 1, tzinfo=dt.UTC), [4.0, 3.99, 3.98])
+    return fitted_capacitor
 
 
 @threads_race
@@ -100,7 +100,7 @@ def test_the_reading_form_sent_twice_at_once_saves_one_reading(capacitor):
     def send():
         client = Client()
         client.force_login(user)
-        return client.post(f"/capacitors/{capacitor.id}/reading/", form)
+        return client.post(f"/fitted-capacitors/{capacitor.id}/reading/", form)
 
     with held_before(reading_service, "check_reading", 2):
         answers = in_threads(send, send)
@@ -115,7 +115,7 @@ def test_two_readings_of_one_capacitor_at_once_leave_one_current_assessment(capa
     not both insert a current assessment (one per capacitor, a unique constraint)."""
     from fleet.services import assessments
 
-    refit = assessments.refit_installations([capacitor.id])
+    refit = assessments.refit_fitted_capacitors([capacitor.id])
     assert refit.written == 1
     user = make_user("technician")
 
@@ -124,16 +124,16 @@ def test_two_readings_of_one_capacitor_at_once_leave_one_current_assessment(capa
             client = Client()
             client.force_login(user)
             form = {"method": "meter", "capacitance_uf": value, "condition": "sound", "client_key": key}
-            return client.post(f"/capacitors/{capacitor.id}/reading/", form)
+            return client.post(f"/fitted-capacitors/{capacitor.id}/reading/", form)
 
         return post
 
     with held_before(assessments, "_assessment_frame", 2):
         answers = in_threads(send("page-a", "3.96"), send("page-b", "3.97"))
     assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
-    current = Assessment.objects.filter(installation=capacitor, is_current=True)
+    current = Assessment.objects.filter(fitted_capacitor=capacitor, is_current=True)
     assert current.count() == 1
-    newest = Reading.objects.filter(installation=capacitor).order_by("-id").first()
+    newest = Reading.objects.filter(fitted_capacitor=capacitor).order_by("-id").first()
     assert current.get().max_reading_id == newest.id
 
 
@@ -151,30 +151,30 @@ def test_a_refit_that_read_fewer_readings_writes_nothing_over_a_newer_one(capaci
         if "reading" not in newer:
             newer["reading"] = None  # the inner refit goes straight through
             newer["reading"] = reading_service.record_reading(
-                installation=capacitor, values={"method": "meter", "capacitance_uf": "3.96", "condition": "sound"}
+                fitted_capacitor=capacitor, values={"method": "meter", "capacitance_uf": "3.96", "condition": "sound"}
             )
         return rows
 
     with mock.patch.object(assessments, "_assessment_frame", meanwhile_a_newer_reading_is_refit):
-        outcome = assessments.refit_installations([capacitor.id])
+        outcome = assessments.refit_fitted_capacitors([capacitor.id])
     assert outcome.written == 0
-    current = Assessment.objects.get(installation=capacitor, is_current=True)
+    current = Assessment.objects.get(fitted_capacitor=capacitor, is_current=True)
     assert current.max_reading_id == newer["reading"].id
 
 
-def replacement_form(installation, serial="X1"):
+def replacement_form(fitted_capacitor, serial="X1"):
     return {
-        "part": installation.part_id,
+        "part": fitted_capacitor.part_id,
         "removed_on": timezone.localdate().isoformat(),
         "removal_reason": "failed",
         "serial": serial,
     }
 
 
-def stock_of(installation, quantity):
+def stock_of(fitted_capacitor, quantity):
     from fleet.models import SiteStock
 
-    return SiteStock.objects.create(site=installation.motor.site, part=installation.part, quantity=quantity)
+    return SiteStock.objects.create(site=fitted_capacitor.motor.site, part=fitted_capacitor.part, quantity=quantity)
 
 
 def test_the_replacement_form_sent_again_is_answered_as_already_recorded(capacitor):
@@ -183,12 +183,12 @@ def test_the_replacement_form_sent_again_is_answered_as_already_recorded(capacit
     stock = stock_of(capacitor, 3)
     client = Client()
     client.force_login(make_user("technician"))
-    url = f"/capacitors/{capacitor.id}/replace/"
+    url = f"/fitted-capacitors/{capacitor.id}/replace/"
     first = client.post(url, replacement_form(capacitor))
     again = client.post(url, replacement_form(capacitor), follow=True)
     successor = FittedCapacitor.objects.get(motor=capacitor.motor, removed_on__isnull=True)
-    assert first["Location"].endswith(f"/capacitors/{successor.id}/reading/")
-    assert again.redirect_chain[-1][0].endswith(f"/capacitors/{successor.id}/reading/")
+    assert first["Location"].endswith(f"/fitted-capacitors/{successor.id}/reading/")
+    assert again.redirect_chain[-1][0].endswith(f"/fitted-capacitors/{successor.id}/reading/")
     assert "already recorded (sent twice)" in again.content.decode()
     stock.refresh_from_db()
     assert stock.quantity == 2
@@ -205,13 +205,13 @@ def test_the_replacement_form_sent_twice_at_once_fits_one_successor(capacitor):
     def send():
         client = Client()
         client.force_login(user)
-        return client.post(f"/capacitors/{capacitor.id}/replace/", replacement_form(capacitor))
+        return client.post(f"/fitted-capacitors/{capacitor.id}/replace/", replacement_form(capacitor))
 
     with held_before(reading_service, "design_part", 2):
         answers = in_threads(send, send)
     successor = FittedCapacitor.objects.get(motor=capacitor.motor, removed_on__isnull=True)
     assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
-    assert {a["Location"] for a in answers} == {f"/capacitors/{successor.id}/reading/"}
+    assert {a["Location"] for a in answers} == {f"/fitted-capacitors/{successor.id}/reading/"}
     stock.refresh_from_db()
     assert stock.quantity == 2
 
@@ -276,7 +276,7 @@ def test_the_work_order_plan_run_twice_at_once_creates_each_order_once(capacitor
     from fleet.services import assessments, workorders
 
     quarterly_readings(capacitor, dt.datetime(2025, 10, 1, tzinfo=dt.UTC), [3.5, 3.3])  # well past its limit
-    assessments.refit_installations([capacitor.id])
+    assessments.refit_fitted_capacitors([capacitor.id])
     planner = make_user("planner")
 
     def plan():
@@ -287,7 +287,7 @@ def test_the_work_order_plan_run_twice_at_once_creates_each_order_once(capacitor
     with held_before(workorders, "bundle_visits", 2, give_up_after_s=3):
         answers = in_threads(plan, plan)
     assert [getattr(a, "status_code", a) for a in answers] == [302, 302]
-    assert WorkOrder.objects.filter(installation=capacitor).count() == 1
+    assert WorkOrder.objects.filter(fitted_capacitor=capacitor).count() == 1
 
 
 def test_a_visit_issued_with_a_site_number_beyond_any_id_is_answered_not_found(capacitor):
@@ -304,9 +304,9 @@ def test_the_import_button_pressed_twice_at_once_imports_once_and_keeps_the_coun
     """Both presses read the job as checked; the one that comes second must not queue a second
     run (which would find every row a duplicate and record "0 imported" over the first's count).
     Forced in one thread: the other press is answered whole between this one's read and its queueing."""
-    from fleet import views
     from fleet.models import ImportJob
     from fleet.services.import_jobs import check_job, create_job
+    from fleet.views import imports as views
     from tests.test_imports import csv_of, fleet_of, good_rows
 
     fleet_of(2)
@@ -348,16 +348,16 @@ def test_the_other_copy_saved_between_the_check_and_the_insert_is_answered_as_th
         if not other:
             other.append(None)  # the other copy goes straight through
             other[0] = reading_service.record_reading(
-                installation=capacitor, values=dict(values), user=user, client_key="page-1"
+                fitted_capacitor=capacitor, values=dict(values), user=user, client_key="page-1"
             )
         return original(*args, **kwargs)
 
     with mock.patch.object(reading_service, "check_reading", the_other_copy_first):
         reading = reading_service.record_reading(
-            installation=capacitor, values=dict(values), user=user, client_key="page-1"
+            fitted_capacitor=capacitor, values=dict(values), user=user, client_key="page-1"
         )
     assert reading.replayed and reading.pk == other[0].pk and not other[0].replayed
-    assert Reading.objects.filter(installation=capacitor).count() == 4
+    assert Reading.objects.filter(fitted_capacitor=capacitor).count() == 4
 
 
 def stock_form(client, site) -> dict:
@@ -375,8 +375,7 @@ def test_a_replacement_between_the_stock_page_and_its_save_is_not_undone(capacit
     replacement takes one, then the planner saves a change to another part: the draw stays (2 left),
     the other part is saved. A quantity the planner changed while it moved is refused by name."""
     from fleet.models import SiteStock
-
-    from .conftest import make_part
+    from tests.factories import make_part
 
     site, part, other = capacitor.motor.site, capacitor.part, make_part(code="SPARE-B")
     stock = stock_of(capacitor, 3)
@@ -385,7 +384,7 @@ def test_a_replacement_between_the_stock_page_and_its_save_is_not_undone(capacit
     form = stock_form(planner, site)
     assert form[f"qty-{part.id}"] == "3"
     successor = reading_service.replace_capacitor(
-        installation=capacitor, part=part, serial="X1", notes="", removed_on=timezone.localdate(), reason="failed"
+        fitted_capacitor=capacitor, part=part, serial="X1", notes="", removed_on=timezone.localdate(), reason="failed"
     )
     assert successor.from_stock and successor.stock_left == 2
     assert planner.post(f"/sites/{site.code}/stock/", {**form, f"qty-{other.id}": "6"}).status_code == 302
@@ -393,7 +392,7 @@ def test_a_replacement_between_the_stock_page_and_its_save_is_not_undone(capacit
     assert stock.quantity == 2 and SiteStock.objects.get(site=site, part=other).quantity == 6
     form = stock_form(planner, site)
     reading_service.replace_capacitor(
-        installation=successor, part=part, serial="X2", notes="", removed_on=timezone.localdate(), reason="failed"
+        fitted_capacitor=successor, part=part, serial="X2", notes="", removed_on=timezone.localdate(), reason="failed"
     )
     refused = planner.post(f"/sites/{site.code}/stock/", {**form, f"qty-{part.id}": "5", f"qty-{other.id}": "7"})
     assert refused.status_code == 200
@@ -418,8 +417,7 @@ def test_a_stock_save_and_a_replacement_at_once_lose_neither(capacitor, planner_
     goes first). Either order is right; losing the draw is not. [derived]"""
     from fleet.models import SiteStock
     from fleet.services import register
-
-    from .conftest import make_part
+    from tests.factories import make_part
 
     site, part, other = capacitor.motor.site, capacitor.part, make_part(code="SPARE-B")
     stock = stock_of(capacitor, 3)
@@ -448,7 +446,7 @@ def test_a_stock_save_and_a_replacement_at_once_lose_neither(capacitor, planner_
     ):
         saved, replaced = in_threads(
             lambda: planner.post(f"/sites/{site.code}/stock/", form),
-            lambda: technician.post(f"/capacitors/{capacitor.id}/replace/", replacement_form(capacitor)),
+            lambda: technician.post(f"/fitted-capacitors/{capacitor.id}/replace/", replacement_form(capacitor)),
         )
     assert getattr(replaced, "status_code", replaced) == 302
     assert FittedCapacitor.objects.filter(motor=capacitor.motor, removed_on__isnull=True).count() == 1
@@ -470,7 +468,7 @@ def test_an_api_correction_sent_twice_at_once_stores_one_and_answers_the_other_a
     """Two copies of one correction at once, held past every check: the second insert meets the
     first's on the corrected reading (a reading is corrected once) and is answered 200 with it."""
     user = make_user("technician")
-    wrong = Reading.objects.filter(installation=capacitor).order_by("id").last()
+    wrong = Reading.objects.filter(fitted_capacitor=capacitor).order_by("id").last()
     headers = {"HTTP_IDEMPOTENCY_KEY": key} if key else {}
 
     def send():
@@ -486,4 +484,4 @@ def test_an_api_correction_sent_twice_at_once_stores_one_and_answers_the_other_a
     assert sorted(getattr(a, "status_code", a) for a in answers) == [200, 201]
     assert len({a.json()["id"] for a in answers}) == 1
     assert Reading.objects.filter(supersedes=wrong).count() == 1
-    assert Reading.objects.filter(installation=capacitor).count() == 4
+    assert Reading.objects.filter(fitted_capacitor=capacitor).count() == 4

@@ -11,17 +11,17 @@ import pytest
 from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading
-from fleet.services.assessments import fit_frames, refit_installations, refresh_part_priors, stored_forms
+from fleet.services.assessments import fit_frames, refit_fitted_capacitors, refresh_part_priors, stored_forms
 from fleet.services.bench_fleet import FleetSize, build_bench_fleet
 from fleet.services.pages import stress_hours_of_readings
-from fleet.services.selectors import installations_frame, readings_frame
+from fleet.services.selectors import fitted_capacitors_frame, readings_frame
 
 pytestmark = pytest.mark.django_db
 NOW = timezone.make_aware(dt.datetime(2026, 6, 1, 12))
 TODAY = NOW.date()
 
 COMPARED = [
-    "installation_id",
+    "fitted_capacitor_id",
     "fitted_through",
     "newest_reading_id",
     "max_reading_id",
@@ -85,7 +85,7 @@ def rounded(value):
 
 def current_rows():
     return {
-        row["installation_id"]: rounded(row) for row in Assessment.objects.filter(is_current=True).values(*COMPARED)
+        row["fitted_capacitor_id"]: rounded(row) for row in Assessment.objects.filter(is_current=True).values(*COMPARED)
     }
 
 
@@ -96,21 +96,21 @@ def test_a_chunk_refit_equals_its_capacitors_refitted_one_at_a_time():
     refresh_part_priors()
     ids = in_service_ids()
     assert len(ids) >= 15
-    refit_installations(ids, now=NOW, force=True)
+    refit_fitted_capacitors(ids, now=NOW, force=True)
     chunk = current_rows()
-    for installation_id in ids:
-        refit_installations([installation_id], now=NOW, force=True)
+    for fitted_capacitor_id in ids:
+        refit_fitted_capacitors([fitted_capacitor_id], now=NOW, force=True)
     single = current_rows()
     assert sorted(chunk) == ids
     assert {row["risk"] for row in chunk.values()} != {""}
     assert any(row["figures_now"] for row in chunk.values())  # the motors' circuits were used
-    for installation_id in ids:
-        assert chunk[installation_id] == single[installation_id], installation_id
+    for fitted_capacitor_id in ids:
+        assert chunk[fitted_capacitor_id] == single[fitted_capacitor_id], fitted_capacitor_id
 
 
 def test_the_stored_limits_and_figures_are_json_the_api_can_send():
     build_bench_fleet(FleetSize(motors=6, capacitors=9, readings=90), today=TODAY, progress=quiet)
-    refit_installations(in_service_ids(), now=NOW, force=True)
+    refit_fitted_capacitors(in_service_ids(), now=NOW, force=True)
     for limits, figures in Assessment.objects.filter(is_current=True).values_list("limits", "figures_now"):
         assert limits[0]["name"] == "tolerance" and set(limits[0]) >= {"used", "note", "p10_on", "p90_on"}
         assert json.loads(json.dumps(figures)) == figures
@@ -121,15 +121,15 @@ def test_the_capacitor_page_recomputes_the_stress_hours_the_fit_used():
     # gave it; they are recomputed, not stored, so they must be the fit's own.
     build_bench_fleet(FleetSize(motors=6, capacitors=9, readings=120), today=TODAY, progress=quiet)
     ids = in_service_ids()
-    inst = installations_frame(ids).set_index("installation_id", drop=False)
+    inst = fitted_capacitors_frame(ids).set_index("fitted_capacitor_id", drop=False)
     readings = readings_frame(ids)
     fit = fit_frames(inst, readings, None, np.sort(inst["part_id"].unique()), stored_forms())
     checked = 0
-    for installation in FittedCapacitor.objects.filter(id__in=ids).select_related("part"):
-        mine = readings[readings["installation_id"] == installation.id].sort_values(["taken_at", "id"])
+    for fitted_capacitor in FittedCapacitor.objects.filter(id__in=ids).select_related("part"):
+        mine = readings[readings["fitted_capacitor_id"] == fitted_capacitor.id].sort_values(["taken_at", "id"])
         page = stress_hours_of_readings(
-            installation,
-            Reading.objects.filter(installation=installation)
+            fitted_capacitor,
+            Reading.objects.filter(fitted_capacitor=fitted_capacitor)
             .order_by("taken_at", "id")
             .values("taken_at", "case_temperature_c", "capacitor_voltage_v"),
         )
@@ -142,7 +142,7 @@ def chunk_peak_bytes(ids) -> int:
     peaks = []
     for _ in range(2):
         tracemalloc.start()
-        refit_installations(ids, now=NOW, force=True)
+        refit_fitted_capacitors(ids, now=NOW, force=True)
         peaks.append(tracemalloc.get_traced_memory()[1])
         tracemalloc.stop()
     return min(peaks)
@@ -154,7 +154,7 @@ def test_a_chunk_refit_memory_stays_bounded_as_the_fleet_doubles():
     size = FleetSize(motors=700, capacitors=1000, readings=12_000)
     build_bench_fleet(size, today=TODAY, progress=quiet)
     chunk = in_service_ids()[:20]
-    refit_installations(chunk, now=NOW, force=True)  # part priors stored, designs' limits known
+    refit_fitted_capacitors(chunk, now=NOW, force=True)  # part priors stored, designs' limits known
     at_n = chunk_peak_bytes(chunk)
     build_bench_fleet(size, today=TODAY, prefix="BFLEETB-", seed=12, progress=quiet)
     assert Reading.objects.count() >= 2 * size.readings - 100
@@ -163,7 +163,7 @@ def test_a_chunk_refit_memory_stays_bounded_as_the_fleet_doubles():
 
 
 @pytest.mark.django_db(transaction=True)
-def test_the_migration_keeps_a_stored_path_in_its_columns(fan_installation):
+def test_the_migration_keeps_a_stored_path_in_its_columns(fan_fitted_capacitor):
     from django.db import connection
     from django.db.migrations.executor import MigrationExecutor
 
@@ -172,7 +172,7 @@ def test_the_migration_keeps_a_stored_path_in_its_columns(fan_installation):
     executor.migrate(before)
     old_apps = executor.loader.project_state(before).apps
     old_apps.get_model("fleet", "Assessment").objects.create(
-        installation_id=fan_installation.id,
+        fitted_capacitor_id=fan_fitted_capacitor.id,
         model_version="trend-2",
         fitted_through=NOW,
         readings_used=4,
@@ -201,7 +201,7 @@ def test_the_migration_keeps_a_stored_path_in_its_columns(fan_installation):
     executor.migrate(after)
     executor.loader.build_graph()
     executor.migrate(executor.loader.graph.leaf_nodes())
-    moved = Assessment.objects.get(installation=fan_installation)
+    moved = Assessment.objects.get(fitted_capacitor=fan_fitted_capacitor)
     assert (moved.trend_intercept, moved.trend_slope_per_hour, moved.trend_noise_sd) == (1.01, -2e-6, 0.004)
     assert (moved.trend_var_intercept, moved.trend_cov_intercept_slope, moved.trend_var_slope) == (1e-4, -1e-9, 1e-13)
     assert (moved.stress_hours_now, moved.stress_rate, moved.tempco_ppm_per_k) == (9000.0, 1.2, -150.0)

@@ -12,12 +12,12 @@ from django.utils import timezone
 from rest_framework.authtoken.models import Token
 from rest_framework.test import APIClient
 
-from fleet.imports import READING_COLUMNS, REGISTER_COLUMNS, check_readings, check_register, mapped_frame
+from fleet.imports.columns import READING_COLUMNS, REGISTER_COLUMNS, mapped_frame
 from fleet.models import FittedCapacitor, Motor, Reading, Site, WorkOrder, constraint_errors
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
+from fleet.services.import_checks import check_readings, check_register
 from fleet.services.readings import record_reading, replace_capacitor
-
-from .conftest import make_installation, make_motor, make_part, make_reading, make_site, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_reading, make_site, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -28,9 +28,9 @@ def api_for(user) -> APIClient:
     return client
 
 
-def form_post(client, installation, **values):
+def form_post(client, fitted_capacitor, **values):
     data = {"method": "meter", "condition": "sound", **values}
-    return client.post(reverse("reading_new", args=[installation.id]), data)
+    return client.post(reverse("reading_new", args=[fitted_capacitor.id]), data)
 
 
 def import_check(rows: list[dict]):
@@ -39,10 +39,10 @@ def import_check(rows: list[dict]):
     return check_readings(mapped_frame(header, body, {n: n for n in header}, READING_COLUMNS))
 
 
-def import_row(installation, **values):
+def import_row(fitted_capacitor, **values):
     return {
-        "asset_tag": installation.motor.asset_tag,
-        "role": installation.role,
+        "asset_tag": fitted_capacitor.motor.asset_tag,
+        "role": fitted_capacitor.role,
         "taken_at": "2024-03-01 09:00",
         "method": "meter",
         "capacitance_uf": "3.95",
@@ -53,26 +53,26 @@ def import_row(installation, **values):
 # critical: one absurd reading poisoned every refit
 
 
-def test_a_million_volts_is_refused_by_the_form_the_api_and_the_import(client, technician, fan_installation):
+def test_a_million_volts_is_refused_by_the_form_the_api_and_the_import(client, technician, fan_fitted_capacitor):
     client.force_login(technician)
-    response = form_post(client, fan_installation, capacitance_uf="3.95", capacitor_voltage_v="1000000")
+    response = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", capacitor_voltage_v="1000000")
     assert response.status_code == 200 and "above 5000 V" in response.content.decode()
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, "capacitor_voltage_v": 1e6},
         format="json",
     )
     assert api.status_code == 400 and "above 5000 V" in api.json()["capacitor_voltage_v"][0]
-    result = import_check([import_row(fan_installation, capacitor_voltage_v="inf")])
+    result = import_check([import_row(fan_fitted_capacitor, capacitor_voltage_v="inf")])
     assert result.errors == [(2, "capacitor_voltage_v", "not a finite number")] and result.good.empty
     assert not Reading.objects.exists()
 
 
-def test_infinity_never_reaches_the_database_even_past_the_rulebook(fan_installation):
+def test_infinity_never_reaches_the_database_even_past_the_rulebook(fan_fitted_capacitor):
     """[derived] the CHECK bounds refuse infinity on SQLite and NaN/infinity on PostgreSQL."""
     for name in ("capacitor_voltage_v", "esr_ohm", "main_current_a", "ambient_temperature_c"):
         with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
-            make_reading(fan_installation, **{name: float("inf")})
+            make_reading(fan_fitted_capacitor, **{name: float("inf")})
     assert not Reading.objects.exists()
 
 
@@ -80,9 +80,9 @@ def test_infinity_never_reaches_the_database_even_past_the_rulebook(fan_installa
 
 
 @pytest.mark.parametrize("taken_at", ["0001-01-01T00:00:00Z", "2019-06-01T09:00:00Z"])
-def test_the_api_refuses_a_reading_dated_before_fitting(technician, fan_installation, taken_at):
+def test_the_api_refuses_a_reading_dated_before_fitting(technician, fan_fitted_capacitor, taken_at):
     response = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, "taken_at": taken_at},
         format="json",
     )
@@ -97,10 +97,12 @@ def test_the_api_refuses_a_reading_dated_before_fitting(technician, fan_installa
 def test_a_tag_with_a_slash_cannot_take_pages_down(client, planner, technician):
     site = make_site(code="NORTH/2")  # inserted directly: validators bypassed, as an old register would
     motor = make_motor(site=site, asset_tag="P-12/A")
-    installation = make_installation(motor=motor)
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.6, 3.4])
-    refit_installations([installation.id])
-    WorkOrder.objects.create(motor=motor, installation=installation, kind="replace_run", due_on=timezone.localdate())
+    fitted_capacitor = make_fitted_capacitor(motor=motor)
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.6, 3.4])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    WorkOrder.objects.create(
+        motor=motor, fitted_capacitor=fitted_capacitor, kind="replace_run", due_on=timezone.localdate()
+    )
     client.force_login(planner)
     motor_url = reverse("motor", args=[motor.asset_tag])
     for url in (
@@ -167,37 +169,39 @@ def test_tags_and_codes_outside_the_character_set_are_refused_at_entry():
         ("esr_ohm", "inf", "finite"),
     ],
 )
-def test_out_of_range_secondary_values_come_back_by_field(client, technician, fan_installation, field, value, words):
+def test_out_of_range_secondary_values_come_back_by_field(
+    client, technician, fan_fitted_capacitor, field, value, words
+):
     client.force_login(technician)
-    response = form_post(client, fan_installation, capacitance_uf="3.95", **{field: value})
+    response = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", **{field: value})
     assert response.status_code == 200
     assert response.context["form"].errors[field] and words in response.context["form"].errors[field][0]
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, field: value},
         format="json",
     )
     assert api.status_code == 400 and words in api.json()[field][0]
-    result = import_check([import_row(fan_installation, **{field: value})])
+    result = import_check([import_row(fan_fitted_capacitor, **{field: value})])
     assert [(f, words in m) for _, f, m in result.errors] == [(field, True)]
     assert not Reading.objects.exists()
 
 
-def test_database_constraints_surface_as_field_errors(fan_installation):
+def test_database_constraints_surface_as_field_errors(fan_fitted_capacitor):
     reading = Reading(
-        installation=fan_installation, taken_at=timezone.now(), method="meter", capacitance_uf=4.0, esr_ohm=-1.0
+        fitted_capacitor=fan_fitted_capacitor, taken_at=timezone.now(), method="meter", capacitance_uf=4.0, esr_ohm=-1.0
     )
     reading.notes = "x" * 2001
     errors = constraint_errors(reading)
     assert set(errors) == {"esr_ohm", "notes"}
 
 
-def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_installation):
+def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_fitted_capacitor):
     client.force_login(technician)
     data = {"capacitance_uf": "3.95", "capacitor_voltage_v": "2300"}
-    response = form_post(client, fan_installation, **data)
+    response = form_post(client, fan_fitted_capacitor, **data)
     assert "missed decimal point" in response.content.decode() and not Reading.objects.exists()
-    response = form_post(client, fan_installation, **data, confirmed="on")
+    response = form_post(client, fan_fitted_capacitor, **data, confirmed="on")
     assert response.status_code == 302
     assert Reading.objects.get().outlier_confirmed
 
@@ -205,8 +209,8 @@ def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_ins
 # medium: DELETE of a reading; a removal date earlier than readings
 
 
-def test_a_reading_cannot_be_deleted(fan_installation):
-    reading = make_reading(fan_installation)
+def test_a_reading_cannot_be_deleted(fan_fitted_capacitor):
+    reading = make_reading(fan_fitted_capacitor)
     with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
         Reading.objects.filter(pk=reading.pk).delete()
     with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic(), connection.cursor() as cursor:
@@ -214,19 +218,21 @@ def test_a_reading_cannot_be_deleted(fan_installation):
     assert Reading.objects.filter(pk=reading.pk).exists()
 
 
-def test_a_removal_date_before_readings_is_refused_everywhere(fan_installation):
-    make_reading(fan_installation, taken_at=timezone.make_aware(dt.datetime(2024, 6, 1, 9)))
+def test_a_removal_date_before_readings_is_refused_everywhere(fan_fitted_capacitor):
+    make_reading(fan_fitted_capacitor, taken_at=timezone.make_aware(dt.datetime(2024, 6, 1, 9)))
     early = dt.date(2024, 5, 1)
     with pytest.raises(ValidationError) as error:
-        replace_capacitor(installation=fan_installation, part=fan_installation.part, removed_on=early, reason="failed")
+        replace_capacitor(
+            fitted_capacitor=fan_fitted_capacitor, part=fan_fitted_capacitor.part, removed_on=early, reason="failed"
+        )
     assert "removed_on" in error.value.message_dict
-    fan_installation.removed_on, fan_installation.removal_reason = early, "failed"
+    fan_fitted_capacitor.removed_on, fan_fitted_capacitor.removal_reason = early, "failed"
     with pytest.raises(ValidationError) as error:  # the admin's form runs the model's clean()
-        fan_installation.full_clean()
+        fan_fitted_capacitor.full_clean()
     assert "2024-06-01" in error.value.message_dict["removed_on"][0]
     with pytest.raises((IntegrityError, DatabaseError)), transaction.atomic():
-        FittedCapacitor.objects.filter(pk=fan_installation.pk).update(removed_on=early, removal_reason="failed")
-    FittedCapacitor.objects.filter(pk=fan_installation.pk).update(
+        FittedCapacitor.objects.filter(pk=fan_fitted_capacitor.pk).update(removed_on=early, removal_reason="failed")
+    FittedCapacitor.objects.filter(pk=fan_fitted_capacitor.pk).update(
         removed_on=dt.date(2024, 6, 1), removal_reason="failed"
     )
 
@@ -234,7 +240,7 @@ def test_a_removal_date_before_readings_is_refused_everywhere(fan_installation):
 # low: NUL bytes, bad filters, double submit, huge notes, the decimal comma
 
 
-def test_nul_in_an_address_is_a_400_not_a_500(client, planner, engineer, fan_installation):
+def test_nul_in_an_address_is_a_400_not_a_500(client, planner, engineer, fan_fitted_capacitor):
     client.force_login(planner)
     for url in ("/plan/?site=%00", "/motors/%00/", "/sites/%00/route/", "/life/?part=%00"):
         assert client.get(url).status_code == 400, url
@@ -255,59 +261,61 @@ def test_bad_plan_parameters_show_a_message(client, planner):
     assert response.status_code == 200 and "Ignored days" in body and "Ignored site" in body
 
 
-def test_a_double_submit_saves_one_reading(client, technician, fan_installation):
+def test_a_double_submit_saves_one_reading(client, technician, fan_fitted_capacitor):
     client.force_login(technician)
-    page = client.get(reverse("reading_new", args=[fan_installation.id]))
+    page = client.get(reverse("reading_new", args=[fan_fitted_capacitor.id]))
     key = page.context["form"]["client_key"].value()
     assert key and f'value="{key}"' in page.content.decode()
-    first = form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
-    second = form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
+    first = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", client_key=key)
+    second = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", client_key=key)
     assert first.status_code == second.status_code == 302
     assert Reading.objects.count() == 1
 
 
-def test_an_api_idempotency_key_saves_one_reading(technician, fan_installation):
+def test_an_api_idempotency_key_saves_one_reading(technician, fan_fitted_capacitor):
     client = api_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     body = {"method": "meter", "capacitance_uf": 3.95}
     first = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3")
     second = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3")
     assert (first.status_code, second.status_code) == (201, 200)
     assert first.json()["id"] == second.json()["id"] and Reading.objects.count() == 1
-    other = make_installation()
+    other = make_fitted_capacitor()
     elsewhere = client.post(
         reverse("api_capacitor_readings", args=[other.id]), body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3"
     )
     assert elsewhere.status_code == 400 and Reading.objects.count() == 1
 
 
-def test_a_two_megabyte_note_is_refused(client, technician, fan_installation):
+def test_a_two_megabyte_note_is_refused(client, technician, fan_fitted_capacitor):
     note = "n" * 2_000_000
     client.force_login(technician)
-    response = form_post(client, fan_installation, capacitance_uf="3.95", notes=note)
+    response = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", notes=note)
     assert "at most 2000" in response.context["form"].errors["notes"][0]
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_installation.id]),
+        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, "notes": note},
         format="json",
     )
     assert api.status_code == 400 and "at most 2000" in api.json()["notes"][0]
     with pytest.raises(ValidationError):
-        record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.9, "notes": note})
+        record_reading(
+            fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.9, "notes": note}
+        )
     assert not Reading.objects.exists()
 
 
 @pytest.mark.parametrize("text,expected", [("3,93", 3.93), ("3.93", 3.93), ("3,9,3", None), ("1.003,9", None)])
 def test_the_decimal_comma_is_read_the_same_by_form_api_and_import(client, technician, text, expected):
-    installations = [make_installation() for _ in range(3)]
+    fitted_capacitors = [make_fitted_capacitor() for _ in range(3)]
     client.force_login(technician)
-    form = form_post(client, installations[0], capacitance_uf=text)
+    form = form_post(client, fitted_capacitors[0], capacitance_uf=text)
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[installations[1].id]),
+        reverse("api_capacitor_readings", args=[fitted_capacitors[1].id]),
         {"method": "meter", "capacitance_uf": text},
         format="json",
     )
-    result = import_check([import_row(installations[2], capacitance_uf=text)])
+    result = import_check([import_row(fitted_capacitors[2], capacitance_uf=text)])
     if expected is None:
         message = "decimal separator"
         assert message in form.context["form"].errors["capacitance_uf"][0]
@@ -320,33 +328,33 @@ def test_the_decimal_comma_is_read_the_same_by_form_api_and_import(client, techn
         assert stored == [expected, expected] and result.good["capacitance_uf"].tolist() == [expected]
 
 
-def test_imported_readings_keep_their_checked_values(fan_installation):
-    result = import_check([import_row(fan_installation, case_temperature_c="31,5", notes="  ok  ")])
+def test_imported_readings_keep_their_checked_values(fan_fitted_capacitor):
+    result = import_check([import_row(fan_fitted_capacitor, case_temperature_c="31,5", notes="  ok  ")])
     assert result.errors == []
     row = result.good.iloc[0]
     assert (row["case_temperature_c"], row["notes"], row["method"]) == (31.5, "ok", "meter")
     assert isinstance(row["taken_at"], pd.Timestamp)
 
 
-def test_a_saved_page_sent_again_with_other_values_is_not_silently_dropped(client, technician, fan_installation):
+def test_a_saved_page_sent_again_with_other_values_is_not_silently_dropped(client, technician, fan_fitted_capacitor):
     client.force_login(technician)
-    key = client.get(reverse("reading_new", args=[fan_installation.id])).context["form"]["client_key"].value()
-    form_post(client, fan_installation, capacitance_uf="3.95", client_key=key)
-    again = form_post(client, fan_installation, capacitance_uf="3.91", client_key=key)
+    key = client.get(reverse("reading_new", args=[fan_fitted_capacitor.id])).context["form"]["client_key"].value()
+    form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", client_key=key)
+    again = form_post(client, fan_fitted_capacitor, capacitance_uf="3.91", client_key=key)
     assert again.status_code == 200 and "these values differ" in again.content.decode()
     fresh = again.context["form"]["client_key"].value()
     assert fresh != key and 'value="3.91"' in again.content.decode()
-    assert form_post(client, fan_installation, capacitance_uf="3.91", client_key=fresh).status_code == 302
+    assert form_post(client, fan_fitted_capacitor, capacitance_uf="3.91", client_key=fresh).status_code == 302
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.91, 3.95]
 
 
-def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administrator, fan_installation):
+def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administrator, fan_fitted_capacitor):
     from django.contrib.auth.models import Permission
 
     administrator.user_permissions.add(Permission.objects.get(codename="add_reading"))
     client.force_login(administrator)
     data = {
-        "installation": fan_installation.id,
+        "fitted_capacitor": fan_fitted_capacitor.id,
         "taken_at_0": "2024-03-01",
         "taken_at_1": "09:00",
         "method": "meter",
@@ -362,7 +370,7 @@ def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administr
     assert response.status_code == 302 and Reading.objects.count() == 1
 
 
-def test_a_nul_in_imported_notes_is_a_row_error_not_a_stuck_import(fan_installation):
-    result = import_check([import_row(fan_installation, notes="belt\x00squeals"), import_row(fan_installation)])
+def test_a_nul_in_imported_notes_is_a_row_error_not_a_stuck_import(fan_fitted_capacitor):
+    result = import_check([import_row(fan_fitted_capacitor, notes="belt\x00squeals"), import_row(fan_fitted_capacitor)])
     assert [(row, field) for row, field, _ in result.errors] == [(2, "notes")]
     assert result.good["row"].tolist() == [3]

@@ -20,9 +20,8 @@ from rest_framework.throttling import UserRateThrottle
 
 from fleet.models import ImportJob, Reading, SiteMembership
 from fleet.roles import ADMINISTRATOR, TECHNICIAN
-from fleet.services.assessments import refit_installations
-
-from .conftest import make_installation, make_motor, make_site, make_user, quarterly_readings
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import make_fitted_capacitor, make_motor, make_site, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 ROOT = Path(__file__).resolve().parents[1]
@@ -73,8 +72,8 @@ def test_the_register_sign_in_is_no_side_door(client, administrator):
 # API throttles --------------------------------------------------------------------------------------
 
 
-def test_bad_tokens_are_throttled_per_address(technician, fan_installation):
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+def test_bad_tokens_are_throttled_per_address(technician, fan_fitted_capacitor):
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     guesser = APIClient(REMOTE_ADDR="10.0.0.9")
     statuses = []
     for number in range(50):
@@ -90,11 +89,11 @@ def test_bad_tokens_are_throttled_per_address(technician, fan_installation):
     assert other.get(url).status_code == 200
 
 
-def test_signed_in_api_users_are_throttled(monkeypatch, technician, fan_installation):
+def test_signed_in_api_users_are_throttled(monkeypatch, technician, fan_fitted_capacitor):
     monkeypatch.setattr(UserRateThrottle, "THROTTLE_RATES", {"user": "5/minute"})
     client = APIClient()
     client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=technician).key}")
-    url = reverse("api_capacitor_readings", args=[fan_installation.id])
+    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
     statuses = [client.get(url).status_code for _ in range(7)]
     assert statuses == [200] * 5 + [429] * 2
     assert set(settings.REST_FRAMEWORK["DEFAULT_THROTTLE_RATES"]) == {"anon", "user"}
@@ -182,14 +181,14 @@ def test_a_superusers_account_is_out_of_an_administrators_reach(client, administ
 # Content-Security-Policy, proxy trust, HSTS preload -----------------------------------------------
 
 
-def test_pages_carry_a_policy_that_forbids_inline_script(client, technician, fan_installation):
-    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
-    refit_installations([fan_installation.id])
+def test_pages_carry_a_policy_that_forbids_inline_script(client, technician, fan_fitted_capacitor):
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
     client.force_login(technician)
     for url in [
-        reverse("capacitor", args=[fan_installation.id]),
-        reverse("reading_new", args=[fan_installation.id]),
-        reverse("motor", args=[fan_installation.motor.asset_tag]) + f"?saved={fan_installation.id}",
+        reverse("fitted_capacitor", args=[fan_fitted_capacitor.id]),
+        reverse("reading_new", args=[fan_fitted_capacitor.id]),
+        reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag]) + f"?saved={fan_fitted_capacitor.id}",
     ]:
         response = client.get(url)
         policy = response["Content-Security-Policy"]
@@ -257,13 +256,13 @@ def test_compose_puts_a_proxy_in_front_and_only_then_trusts_its_header():
 def two_sites(db):
     """A capacitor with readings and an assessment at each of two sites."""
     here, there = make_site("HERE"), make_site("THERE")
-    installations = {}
+    fitted_capacitors = {}
     for site in (here, there):
-        installation = make_installation(motor=make_motor(site=site))
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
-        installations[site.code] = installation
-    refit_installations([i.id for i in installations.values()])
-    return installations
+        fitted_capacitor = make_fitted_capacitor(motor=make_motor(site=site))
+        quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.96])
+        fitted_capacitors[site.code] = fitted_capacitor
+    refit_fitted_capacitors([i.id for i in fitted_capacitors.values()])
+    return fitted_capacitors
 
 
 def test_a_technician_limited_to_a_site_sees_and_writes_only_there(client, two_sites):
@@ -272,16 +271,16 @@ def test_a_technician_limited_to_a_site_sees_and_writes_only_there(client, two_s
     client.force_login(technician)
     mine, theirs = two_sites["HERE"], two_sites["THERE"]
     reading = {"method": "meter", "capacitance_uf": "3.95", "case_temperature_c": "25", "condition": "sound"}
-    for installation, expected in ((mine, 200), (theirs, 404)):
-        motor = installation.motor
+    for fitted_capacitor, expected in ((mine, 200), (theirs, 404)):
+        motor = fitted_capacitor.motor
         assert client.get(reverse("motor", args=[motor.asset_tag])).status_code == expected
-        assert client.get(reverse("capacitor", args=[installation.id])).status_code == expected
-        assert client.get(reverse("reading_new", args=[installation.id])).status_code == expected
+        assert client.get(reverse("fitted_capacitor", args=[fitted_capacitor.id])).status_code == expected
+        assert client.get(reverse("reading_new", args=[fitted_capacitor.id])).status_code == expected
         assert client.get(reverse("route", args=[motor.site.code])).status_code == expected
         assert client.get(reverse("labels", args=[motor.site.code])).status_code == expected
-        assert client.post(reverse("reading_new", args=[installation.id]), reading).status_code in {302, 404}
-    assert Reading.objects.filter(installation=theirs, taken_by=technician).count() == 0
-    assert Reading.objects.filter(installation=mine, taken_by=technician).count() == 1
+        assert client.post(reverse("reading_new", args=[fitted_capacitor.id]), reading).status_code in {302, 404}
+    assert Reading.objects.filter(fitted_capacitor=theirs, taken_by=technician).count() == 0
+    assert Reading.objects.filter(fitted_capacitor=mine, taken_by=technician).count() == 1
     assert client.get(reverse("find"), {"tag": theirs.motor.asset_tag}).status_code == 200  # not found, no redirect
 
     api = APIClient()
@@ -291,7 +290,7 @@ def test_a_technician_limited_to_a_site_sees_and_writes_only_there(client, two_s
     posted = api.post(reverse("api_capacitor_readings", args=[theirs.id]), {"capacitance_uf": 3.9}, format="json")
     assert posted.status_code == 404
     rows = api.get(reverse("api_assessments")).json()["results"]
-    assert [row["installation_id"] for row in rows] == [mine.id]
+    assert [row["fitted_capacitor_id"] for row in rows] == [mine.id]
 
 
 def test_without_memberships_and_for_administrators_every_site_is_open(client, two_sites):
@@ -299,8 +298,8 @@ def test_without_memberships_and_for_administrators_every_site_is_open(client, t
     SiteMembership.objects.create(user=administrator, site=two_sites["HERE"].motor.site)
     for user in (technician, administrator):
         client.force_login(user)
-        for installation in two_sites.values():
-            assert client.get(reverse("motor", args=[installation.motor.asset_tag])).status_code == 200
+        for fitted_capacitor in two_sites.values():
+            assert client.get(reverse("motor", args=[fitted_capacitor.motor.asset_tag])).status_code == 200
 
 
 def test_import_jobs_are_seen_by_their_owner_and_administrators_only(client):

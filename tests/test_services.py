@@ -9,11 +9,10 @@ from django.core.exceptions import ValidationError
 from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, WorkOrder
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
-from fleet.services.refits import stale_installation_ids, start_fleet_refit, sweep_stale
-
-from .conftest import make_installation, make_motor, make_part, quarterly_readings
+from fleet.services.refits import stale_fitted_capacitor_ids, start_fleet_refit, sweep_stale
+from tests.factories import make_fitted_capacitor, make_motor, make_part, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 START = timezone.make_aware(dt.datetime(2023, 1, 10, 10))
@@ -22,49 +21,49 @@ START = timezone.make_aware(dt.datetime(2023, 1, 10, 10))
 def ageing_fleet(count=12, part=None):
     """Capacitors of one part losing about 1 % of rating a quarter, at rated conditions."""
     part = part or make_part()
-    installations = []
+    fitted_capacitors = []
     for i in range(count):
-        installation = make_installation(part=part)
+        fitted_capacitor = make_fitted_capacitor(part=part)
         values = [4.0 * (1.0 - 0.01 * q - 0.001 * i) for q in range(8)]
-        quarterly_readings(installation, START, values, case_temperature_c=25.0)
-        installations.append(installation)
-    return installations
+        quarterly_readings(fitted_capacitor, START, values, case_temperature_c=25.0)
+        fitted_capacitors.append(fitted_capacitor)
+    return fitted_capacitors
 
 
 def test_saving_a_reading_queues_its_refit_after_commit(
-    fan_installation, technician, django_capture_on_commit_callbacks
+    fan_fitted_capacitor, technician, django_capture_on_commit_callbacks
 ):
     with (
         mock.patch("fleet.tasks.refit_capacitors.delay") as delay,
         django_capture_on_commit_callbacks(execute=True) as callbacks,
     ):
         record_reading(
-            installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
+            fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
         )
     assert len(callbacks) == 1
-    delay.assert_called_once_with([fan_installation.id])
+    delay.assert_called_once_with([fan_fitted_capacitor.id])
 
 
 def test_a_broker_that_is_down_does_not_lose_the_reading(
-    fan_installation, technician, django_capture_on_commit_callbacks
+    fan_fitted_capacitor, technician, django_capture_on_commit_callbacks
 ):
     with (
         mock.patch("fleet.tasks.refit_capacitors.delay", side_effect=ConnectionError("broker down")),
         django_capture_on_commit_callbacks(execute=True),
     ):
         reading = record_reading(
-            installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
+            fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.95}, user=technician
         )
     assert Reading.objects.filter(pk=reading.pk).exists()
-    assert fan_installation.id in stale_installation_ids()
+    assert fan_fitted_capacitor.id in stale_fitted_capacitor_ids()
     assert sweep_stale() == 1
-    assert stale_installation_ids() == []
+    assert stale_fitted_capacitor_ids() == []
 
 
-def test_in_circuit_reading_computes_capacitance(fan_installation):
+def test_in_circuit_reading_computes_capacitance(fan_fitted_capacitor):
     """[trade] C = 10^6 I / (2 pi f V): 0.5 A at 400 V, 50 Hz is 3.979 uF."""
     reading = record_reading(
-        installation=fan_installation,
+        fitted_capacitor=fan_fitted_capacitor,
         values={"method": "in_circuit", "capacitor_current_a": 0.5, "capacitor_voltage_v": 400.0},
     )
     assert reading.capacitance_uf == pytest.approx(3.979, abs=0.001)
@@ -93,55 +92,55 @@ def test_in_circuit_reading_computes_capacitance(fan_installation):
         ),
     ],
 )
-def test_bad_readings_are_refused_by_field_and_nothing_is_saved(fan_installation, values, field, words):
+def test_bad_readings_are_refused_by_field_and_nothing_is_saved(fan_fitted_capacitor, values, field, words):
     with pytest.raises(ValidationError) as error:
-        record_reading(installation=fan_installation, values=values)
+        record_reading(fitted_capacitor=fan_fitted_capacitor, values=values)
     assert words in " ".join(error.value.message_dict[field])
     assert not Reading.objects.exists()
 
 
-def test_a_jump_off_the_trend_needs_confirmation_and_is_then_kept(fan_installation):
-    quarterly_readings(fan_installation, START, [4.0, 3.98, 3.97, 3.95])
-    refit_installations([fan_installation.id])
+def test_a_jump_off_the_trend_needs_confirmation_and_is_then_kept(fan_fitted_capacitor):
+    quarterly_readings(fan_fitted_capacitor, START, [4.0, 3.98, 3.97, 3.95])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
     with pytest.raises(NeedsConfirmation):
-        record_reading(installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2})
+        record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.2})
     reading = record_reading(
-        installation=fan_installation, values={"method": "meter", "capacitance_uf": 3.2}, confirmed=True
+        fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.2}, confirmed=True
     )
     assert reading.outlier_confirmed
 
 
 def test_refit_writes_one_current_assessment_and_rerunning_adds_nothing():
-    installations = ageing_fleet()
-    ids = [i.id for i in installations]
-    first = refit_installations(ids)
+    fitted_capacitors = ageing_fleet()
+    ids = [i.id for i in fitted_capacitors]
+    first = refit_fitted_capacitors(ids)
     assert first.written == len(ids)
-    rows = list(Assessment.objects.order_by("id").values_list("id", "installation_id", "p50_on"))
-    second = refit_installations(ids)
+    rows = list(Assessment.objects.order_by("id").values_list("id", "fitted_capacitor_id", "p50_on"))
+    second = refit_fitted_capacitors(ids)
     assert second.written == 0 and second.skipped == len(ids)
-    assert list(Assessment.objects.order_by("id").values_list("id", "installation_id", "p50_on")) == rows
+    assert list(Assessment.objects.order_by("id").values_list("id", "fitted_capacitor_id", "p50_on")) == rows
 
 
 def test_a_judgement_from_an_earlier_day_is_judged_again_without_a_new_reading():
     """[derived] The risk levels count days from the judgement: the nightly refit re-judges an
     assessment made on an earlier day, even with no reading since, so its dates never go stale."""
-    installations = ageing_fleet()
-    ids = [i.id for i in installations]
-    refit_installations(ids)
+    fitted_capacitors = ageing_fleet()
+    ids = [i.id for i in fitted_capacitors]
+    refit_fitted_capacitors(ids)
     Assessment.objects.filter(is_current=True).update(created_at=timezone.now() - dt.timedelta(days=2))
-    again = refit_installations(ids)
+    again = refit_fitted_capacitors(ids)
     assert again.written == len(ids) and again.skipped == 0
     assert not Assessment.objects.filter(is_current=True, created_at__lt=timezone.now() - dt.timedelta(days=1)).exists()
-    assert refit_installations(ids).written == 0  # judged today, nothing newer: nothing written
+    assert refit_fitted_capacitors(ids).written == 0  # judged today, nothing newer: nothing written
 
 
 def test_a_forced_refit_reproduces_the_same_figures():
-    installations = ageing_fleet()
-    ids = [i.id for i in installations]
-    refit_installations(ids)
-    before = dict(Assessment.objects.filter(is_current=True).values_list("installation_id", "slope_pct_per_1000h"))
-    refit_installations(ids, force=True)
-    after = dict(Assessment.objects.filter(is_current=True).values_list("installation_id", "slope_pct_per_1000h"))
+    fitted_capacitors = ageing_fleet()
+    ids = [i.id for i in fitted_capacitors]
+    refit_fitted_capacitors(ids)
+    before = dict(Assessment.objects.filter(is_current=True).values_list("fitted_capacitor_id", "slope_pct_per_1000h"))
+    refit_fitted_capacitors(ids, force=True)
+    after = dict(Assessment.objects.filter(is_current=True).values_list("fitted_capacitor_id", "slope_pct_per_1000h"))
     assert after == pytest.approx(before)
     assert Assessment.objects.filter(is_current=False).count() == len(ids)
 
@@ -149,9 +148,9 @@ def test_a_forced_refit_reproduces_the_same_figures():
 def test_refit_recovers_the_known_loss_rate_and_plans_before_the_limit():
     """1 % of rating per quarter (2184 h) at rated conditions is about 0.46 % per 1000 h of
     stress at 25 C case temperature (acceleration 2^((25-40)/10) = 0.354 per calendar hour)."""
-    installations = ageing_fleet()
-    refit_installations([i.id for i in installations])
-    assessment = Assessment.objects.get(installation=installations[0], is_current=True)
+    fitted_capacitors = ageing_fleet()
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitors[0], is_current=True)
     calendar_rate = -1.0 / (91 * 24) * 1000  # % per 1000 calendar hours
     assert assessment.slope_pct_per_1000h == pytest.approx(calendar_rate / 2 ** (-1.5), rel=0.1)
     # 8 quarters: about 7 % lost, below the -5 % tolerance: replace now.
@@ -165,10 +164,10 @@ def test_refit_recovers_the_known_loss_rate_and_plans_before_the_limit():
 def test_a_capacitor_with_one_reading_gets_a_pooled_low_confidence_forecast():
     part = make_part()
     ageing_fleet(part=part)
-    newcomer = make_installation(part=part, fitted_on=dt.date(2025, 1, 1))
+    newcomer = make_fitted_capacitor(part=part, fitted_on=dt.date(2025, 1, 1))
     quarterly_readings(newcomer, timezone.make_aware(dt.datetime(2025, 6, 1)), [3.98])
-    refit_installations([newcomer.id])
-    assessment = Assessment.objects.get(installation=newcomer, is_current=True)
+    refit_fitted_capacitors([newcomer.id])
+    assessment = Assessment.objects.get(fitted_capacitor=newcomer, is_current=True)
     assert assessment.low_confidence
     assert assessment.slope_pct_per_1000h < 0
     assert assessment.p50_on is not None
@@ -176,8 +175,8 @@ def test_a_capacitor_with_one_reading_gets_a_pooled_low_confidence_forecast():
 
 
 def test_operating_point_figures_are_stored_for_motors_with_a_circuit():
-    installations = ageing_fleet(count=6)
-    refit_installations([i.id for i in installations])
+    fitted_capacitors = ageing_fleet(count=6)
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
     assessment = Assessment.objects.filter(is_current=True).first()
     assert assessment.figures_new["i_main_a"] < assessment.figures_now["i_main_a"]
     assert assessment.figures_new["i_aux_a"] > assessment.figures_now["i_aux_a"]
@@ -197,37 +196,46 @@ def test_fleet_refit_records_progress_to_done_in_eager_mode():
     assert Assessment.objects.filter(is_current=True).count() == 7
 
 
-def test_replacement_closes_open_orders_and_starts_a_new_history(fan_installation, technician):
+def test_replacement_closes_open_orders_and_starts_a_new_history(fan_fitted_capacitor, technician):
     order = WorkOrder.objects.create(
-        motor=fan_installation.motor, installation=fan_installation, kind="replace_run", due_on=dt.date(2026, 1, 1)
+        motor=fan_fitted_capacitor.motor,
+        fitted_capacitor=fan_fitted_capacitor,
+        kind="replace_run",
+        due_on=dt.date(2026, 1, 1),
     )
     successor = replace_capacitor(
-        installation=fan_installation,
-        part=fan_installation.part,
+        fitted_capacitor=fan_fitted_capacitor,
+        part=fan_fitted_capacitor.part,
         removed_on=timezone.localdate(),
         reason="failed",
         user=technician,
     )
-    fan_installation.refresh_from_db()
+    fan_fitted_capacitor.refresh_from_db()
     order.refresh_from_db()
-    assert fan_installation.removal_reason == "failed"
+    assert fan_fitted_capacitor.removal_reason == "failed"
     assert successor.removed_on is None and successor.fitted_on == timezone.localdate()
     assert order.state == WorkOrder.State.DONE and order.closed_by == technician
     again = replace_capacitor(
-        installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="failed"
+        fitted_capacitor=fan_fitted_capacitor,
+        part=fan_fitted_capacitor.part,
+        removed_on=timezone.localdate(),
+        reason="failed",
     )
     assert again.replayed and again.pk == successor.pk  # the same replacement sent twice
     with pytest.raises(ValidationError):
         replace_capacitor(
-            installation=fan_installation, part=fan_installation.part, removed_on=timezone.localdate(), reason="planned"
+            fitted_capacitor=fan_fitted_capacitor,
+            part=fan_fitted_capacitor.part,
+            removed_on=timezone.localdate(),
+            reason="planned",
         )
 
 
-def test_replacement_dated_in_the_future_is_refused(fan_installation):
+def test_replacement_dated_in_the_future_is_refused(fan_fitted_capacitor):
     with pytest.raises(ValidationError) as error:
         replace_capacitor(
-            installation=fan_installation,
-            part=fan_installation.part,
+            fitted_capacitor=fan_fitted_capacitor,
+            part=fan_fitted_capacitor.part,
             removed_on=timezone.localdate() + dt.timedelta(days=3),
             reason="planned",
         )
@@ -236,10 +244,10 @@ def test_replacement_dated_in_the_future_is_refused(fan_installation):
 
 def test_motor_without_a_circuit_is_judged_on_tolerance_alone():
     motor = make_motor(with_circuit=False)
-    installation = make_installation(motor=motor)
-    quarterly_readings(installation, START, [4.0, 3.99, 3.98])
-    refit_installations([installation.id])
-    assessment = Assessment.objects.get(installation=installation)
+    fitted_capacitor = make_fitted_capacitor(motor=motor)
+    quarterly_readings(fitted_capacitor, START, [4.0, 3.99, 3.98])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor)
     assert assessment.limit_source == "tolerance" and assessment.figures_now == {}
 
 
@@ -251,12 +259,12 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
 
     # A wide tolerance, so the motor's own limit governs and differs by design.
     small, large = make_part(rated_uf=4.0, tolerance_minus_pct=45), make_part(rated_uf=3.0, tolerance_minus_pct=45)
-    installations = [make_installation(part=small if i % 2 else large) for i in range(6)]
-    for installation in installations:
-        quarterly_readings(installation, START, [installation.part.rated_uf * f for f in (1.0, 0.99, 0.98)])
-    refit_installations([i.id for i in installations])
-    for installation in installations[:2]:
-        motor = installation.motor
+    fitted_capacitors = [make_fitted_capacitor(part=small if i % 2 else large) for i in range(6)]
+    for fitted_capacitor in fitted_capacitors:
+        quarterly_readings(fitted_capacitor, START, [fitted_capacitor.part.rated_uf * f for f in (1.0, 0.99, 0.98)])
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
+    for fitted_capacitor in fitted_capacitors[:2]:
+        motor = fitted_capacitor.motor
         circuit = MotorCircuit.from_arrays(
             r1m=motor.r1m_ohm,
             x1m=motor.x1m_ohm,
@@ -271,10 +279,10 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
             poles=6,
             rotational_loss_w=motor.rotational_loss_w,
         )
-        rated = installation.part.rated_uf
+        rated = fitted_capacitor.part.rated_uf
         load = load_matching_rated_slip(circuit, rated, 0.09, LOAD_FAN)
         direct = capacitance_limits(circuit, load, "permanent_split", "run", rated, 0.0, 0.95, 450.0)
-        stored = Assessment.objects.get(installation=installation, is_current=True)
+        stored = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
         assert np.isfinite(direct.governing_fraction) and direct.governing_fraction > 0.55
         assert stored.limit_fraction == pytest.approx(float(direct.governing_fraction))
         assert stored.limit_source != "tolerance"
@@ -283,15 +291,15 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
 def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
     from fleet.services.workorders import issue_visit, open_visits_page, plan_work_orders
 
-    installations = ageing_fleet(count=4)
-    refit_installations([i.id for i in installations])
+    fitted_capacitors = ageing_fleet(count=4)
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
     counts = plan_work_orders(horizon_days=90, user=planner)
     assert counts["created"] == 4 and counts["replanned"] == 0
     assert WorkOrder.objects.filter(state="planned", kind="replace_run").count() == 4
     # Four motors on four sites (the factory makes a site per motor): four visits, each on its replace-by date.
-    replace_by = dict(Assessment.objects.filter(is_current=True).values_list("installation_id", "replace_by"))
+    replace_by = dict(Assessment.objects.filter(is_current=True).values_list("fitted_capacitor_id", "replace_by"))
     assert counts["visits"] == 4
-    assert all(o.due_on == replace_by[o.installation_id] for o in WorkOrder.objects.all())
+    assert all(o.due_on == replace_by[o.fitted_capacitor_id] for o in WorkOrder.objects.all())
     again = plan_work_orders(horizon_days=90, user=planner)
     # Nothing moved: nothing is counted as re-dated (it said "0 created, 4 re-dated" before).
     assert again["created"] == 0 and again["replanned"] == 0 and WorkOrder.objects.count() == 4
@@ -310,23 +318,23 @@ def test_risk_changes_read_the_risk_history_each_refit_carries():
     that keeps it carries both over, so a nightly refit does not hide last week's change."""
     from fleet.services.pages import risk_changes
 
-    installation = make_installation()
-    quarterly_readings(installation, START, [4.0, 3.99, 3.98])
-    refit_installations([installation.id])
-    first = Assessment.objects.get(installation=installation, is_current=True)
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, START, [4.0, 3.99, 3.98])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    first = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     _, better, counts = risk_changes(days=7)
     assert (list(better), counts) == ([], {"worse": 0, "better": 0, "first_assessed": 1})
     Assessment.objects.filter(pk=first.pk).update(risk_changed_at=timezone.now() - dt.timedelta(days=10))
     assert risk_changes(days=7)[2] == {"worse": 0, "better": 0, "first_assessed": 0}  # nothing moved this week
-    quarterly_readings(installation, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
-    refit_installations([installation.id])
+    quarterly_readings(fitted_capacitor, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
+    refit_fitted_capacitors([fitted_capacitor.id])
     worse, better, counts = risk_changes(days=7)
     assert counts == {"worse": 1, "better": 0, "first_assessed": 0} and list(better) == []
-    assert [a.installation_id for a in worse] == [installation.id]
+    assert [a.fitted_capacitor_id for a in worse] == [fitted_capacitor.id]
     assert worse[0].risk == "replace now" and worse[0].risk_was == first.risk != "replace now"
-    quarterly_readings(installation, START + dt.timedelta(days=430), [3.69])  # still replace now
-    refit_installations([installation.id])
-    again = Assessment.objects.get(installation=installation, is_current=True)
+    quarterly_readings(fitted_capacitor, START + dt.timedelta(days=430), [3.69])  # still replace now
+    refit_fitted_capacitors([fitted_capacitor.id])
+    again = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert again.pk != worse[0].pk
     assert (again.risk_was, again.risk_changed_at) == (first.risk, worse[0].risk_changed_at)
 
@@ -345,10 +353,10 @@ def test_a_reading_with_winding_currents_refines_the_motors_circuit():
     motor = make_motor(
         output_w=float(rated.output_power_w), full_load_current_a=float(abs(rated.i_line)), rated_speed_rpm=910.0
     )
-    installation = make_installation(motor=motor)
+    fitted_capacitor = make_fitted_capacitor(motor=motor)
     main_a, aux_a = float(abs(rated.i_main)), float(abs(rated.i_aux))
-    quarterly_readings(installation, START, [4.0], main_current_a=main_a, aux_current_a=aux_a)
-    entered = make_installation(motor=make_motor(circuit_source="entered"))
+    quarterly_readings(fitted_capacitor, START, [4.0], main_current_a=main_a, aux_current_a=aux_a)
+    entered = make_fitted_capacitor(motor=make_motor(circuit_source="entered"))
     quarterly_readings(entered, START, [4.0], main_current_a=1.0, aux_current_a=0.5)
     assert fit_circuits_from_readings() == {"fitted": 1, "kept": 0}
     motor.refresh_from_db()

@@ -14,11 +14,10 @@ from openpyxl import load_workbook
 
 from fleet.models import Assessment, ImportJob, Reading, SiteMembership, WorkOrder
 from fleet.roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.import_jobs import check_file, create_job, run_job
 from fleet.services.workorders import plan_work_orders
-
-from .conftest import make_installation, make_motor, make_part, make_site, make_user, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -26,11 +25,11 @@ WORN = [4.0, 3.8, 3.7, 3.6]  # a 4 uF +/-5 % run capacitor 10 % low: due for rep
 
 
 def worn_capacitors(site, count, part=None):
-    installations = [make_installation(motor=make_motor(site=site), part=part) for _ in range(count)]
-    for installation in installations:
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), WORN)
-    refit_installations([i.id for i in installations])
-    return installations
+    fitted_capacitors = [make_fitted_capacitor(motor=make_motor(site=site), part=part) for _ in range(count)]
+    for fitted_capacitor in fitted_capacitors:
+        quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), WORN)
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
+    return fitted_capacitors
 
 
 @pytest.fixture
@@ -71,13 +70,13 @@ def test_plan_page_lists_spares_risks_and_sites_of_the_users_sites_only(client, 
 
 
 def test_the_plans_risk_changes_list_the_users_sites_only(client, here_and_there):
-    for installation in here_and_there.values():  # each was sound, then a refit found it worn
-        Assessment.objects.filter(installation=installation, is_current=True).update(risk="sound")
-        refit_installations([installation.id], force=True)
+    for fitted_capacitor in here_and_there.values():  # each was sound, then a refit found it worn
+        Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True).update(risk="sound")
+        refit_fitted_capacitors([fitted_capacitor.id], force=True)
     mine = here_and_there["HERE"]
     client.force_login(limited(PLANNER, mine.motor.site))
     worse = client.get(reverse("plan"), {"days": 7}).context["worse"]
-    assert [assessment.installation_id for assessment in worse] == [mine.id]
+    assert [assessment.fitted_capacitor_id for assessment in worse] == [mine.id]
 
 
 @pytest.mark.parametrize("file_format", ["csv", "xlsx"])
@@ -116,12 +115,12 @@ def test_a_limited_planner_plans_lists_and_issues_only_their_sites_visits(client
     planner = limited(PLANNER, mine.motor.site)
     client.force_login(planner)
     client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
-    assert set(WorkOrder.objects.values_list("installation_id", flat=True)) == {mine.id}
+    assert set(WorkOrder.objects.values_list("fitted_capacitor_id", flat=True)) == {mine.id}
 
     plan_work_orders(horizon_days=90)  # the system plans every site
     body = client.get(reverse("work_orders")).content.decode()
     assert mine.motor.asset_tag in body and theirs.motor.asset_tag not in body
-    their_order = WorkOrder.objects.get(installation=theirs)
+    their_order = WorkOrder.objects.get(fitted_capacitor=theirs)
     day = their_order.due_on.isoformat()
     assert client.get(reverse("visit_sheet", args=["THERE", day])).status_code == 404
     response = client.post(
@@ -130,7 +129,7 @@ def test_a_limited_planner_plans_lists_and_issues_only_their_sites_visits(client
     assert "no planned work orders at your sites" in response.content.decode()
     their_order.refresh_from_db()
     assert their_order.state == WorkOrder.State.PLANNED
-    my_order = WorkOrder.objects.get(installation=mine)
+    my_order = WorkOrder.objects.get(fitted_capacitor=mine)
     client.post(reverse("work_orders"), {"action": "issue", "site": mine.motor.site_id, "day": my_order.due_on})
     my_order.refresh_from_db()
     assert my_order.state == WorkOrder.State.ISSUED
@@ -156,7 +155,7 @@ def test_a_limited_technician_imports_readings_for_their_sites_only(here_and_the
         [3, "asset_tag", f"motor {theirs.motor.asset_tag} is at site THERE, which you do not work at"]
     ]
     assert done.imported_rows == 1
-    assert list(Reading.objects.filter(source="import").values_list("installation_id", flat=True)) == [mine.id]
+    assert list(Reading.objects.filter(source="import").values_list("fitted_capacitor_id", flat=True)) == [mine.id]
     refused = run_job(create_job(kind="readings", filename="q.csv", content=content, user=technician).id, "all")
     assert refused.state == ImportJob.State.REFUSED
     unlimited = run_job(create_job(kind="readings", filename="q.csv", content=content, user=None).id, "good")

@@ -12,22 +12,21 @@ from django.utils import timezone
 from fleet.engineering.motor import MotorCircuit, two_winding_running
 from fleet.models import FittedCapacitor, SiteMembership, SiteStock
 from fleet.roles import TECHNICIAN
-from fleet.services.demo import EXAMPLE_FAN_CIRCUIT
+from tests.factories import EXAMPLE_FAN_CIRCUIT, make_fitted_capacitor, make_motor, make_part, make_site, make_user
 
-from .conftest import make_installation, make_motor, make_part, make_site, make_user
 from .test_api import client_for
 
 pytestmark = pytest.mark.django_db
 
 
-def post_replacement(client, installation, part, **extra):
+def post_replacement(client, fitted_capacitor, part, **extra):
     data = {
         "part": part.id,
         "removed_on": timezone.localdate().isoformat(),
         "removal_reason": "failed",
         **extra,
     }
-    return client.post(reverse("replace", args=[installation.id]), data)
+    return client.post(reverse("replace", args=[fitted_capacitor.id]), data)
 
 
 def signed_in_client(client, user):
@@ -35,32 +34,34 @@ def signed_in_client(client, user):
     return client
 
 
-def test_an_unsuitable_part_needs_the_override_and_a_reason_which_are_recorded(client, technician, fan_installation):
+def test_an_unsuitable_part_needs_the_override_and_a_reason_which_are_recorded(
+    client, technician, fan_fitted_capacitor
+):
     """[derived] 4.8 uF on the fan is outside the run band (+/-10 %, [trade]): unsuitable, so the form refuses it
     without the tick box, then without a reason, and keeps both once given."""
     signed_in_client(client, technician)
     big = make_part(code="FILM-4U8", rated_uf=4.8)
-    refused = post_replacement(client, fan_installation, big)
+    refused = post_replacement(client, fan_fitted_capacitor, big)
     assert refused.status_code == 200
     assert "FILM-4U8 is unsuitable here (4.8 µF is outside the run band 3.6-4.4 µF). Tick" in refused.content.decode()
-    fan_installation.refresh_from_db()
-    assert fan_installation.removed_on is None  # nothing saved half-way
-    no_reason = post_replacement(client, fan_installation, big, substitute_override="on", override_reason="  ")
+    fan_fitted_capacitor.refresh_from_db()
+    assert fan_fitted_capacitor.removed_on is None  # nothing saved half-way
+    no_reason = post_replacement(client, fan_fitted_capacitor, big, substitute_override="on", override_reason="  ")
     assert "Say why this part is fitted against the advice." in no_reason.content.decode()
-    assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 1
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
     saved = post_replacement(
-        client, fan_installation, big, substitute_override="on", override_reason="only part in the van"
+        client, fan_fitted_capacitor, big, substitute_override="on", override_reason="only part in the van"
     )
     assert saved.status_code == 302
-    successor = FittedCapacitor.objects.get(motor=fan_installation.motor, removed_on__isnull=True)
+    successor = FittedCapacitor.objects.get(motor=fan_fitted_capacitor.motor, removed_on__isnull=True)
     assert successor.part == big and successor.substitute_override
     assert successor.override_reason == "only part in the van"
-    page = client.get(reverse("capacitor", args=[successor.id])).content.decode()
+    page = client.get(reverse("fitted_capacitor", args=[successor.id])).content.decode()
     assert "Fitted against the substitute advice" in page and "only part in the van" in page
 
 
 def test_a_suitable_part_needs_no_override_and_the_screen_lists_it_first_with_the_stock(
-    client, technician, fan_installation
+    client, technician, fan_fitted_capacitor
 ):
     """[derived] a second 4 uF 450 V film part is suitable; it is listed before the unsuitable ones, with
     its figures, the quantity on site and the cautions."""
@@ -69,28 +70,28 @@ def test_a_suitable_part_needs_no_override_and_the_screen_lists_it_first_with_th
     make_part(code="FILM-2U0", rated_uf=2.0)
     make_part(code="FILM-4U2", rated_uf=4.2)
     make_part(code="FILM-4U0-400V", rated_uf=4.0, rated_voltage_v=400)  # nearer the design value, but unsuitable
-    SiteStock.objects.create(site=fan_installation.motor.site, part=same, quantity=3)
-    body = client.get(reverse("replace", args=[fan_installation.id])).content.decode()
+    SiteStock.objects.create(site=fan_fitted_capacitor.motor.site, part=same, quantity=3)
+    body = client.get(reverse("replace", args=[fan_fitted_capacitor.id])).content.decode()
     assert body.index("FILM-4U0-B") < body.index("FILM-4U2") < body.index("FILM-4U0-400V") < body.index("FILM-2U0")
     assert "3 on site" in body and "main 0.91 A" in body
     assert "Caution: capacitors store a charge that can kill" in body
     assert "FILM-2U0 + FILM-2U0" in body and "each must carry the full voltage rating" in body
-    assert post_replacement(client, fan_installation, same).status_code == 302
-    successor = FittedCapacitor.objects.get(motor=fan_installation.motor, removed_on__isnull=True)
+    assert post_replacement(client, fan_fitted_capacitor, same).status_code == 302
+    successor = FittedCapacitor.objects.get(motor=fan_fitted_capacitor.motor, removed_on__isnull=True)
     assert successor.part == same and not successor.substitute_override
 
 
-def test_stock_is_decremented_and_never_below_zero(client, technician, fan_installation):
+def test_stock_is_decremented_and_never_below_zero(client, technician, fan_fitted_capacitor):
     """A replacement takes one from the site's stock; with none there it is still recorded, the stock stays 0
     and the message says so."""
     signed_in_client(client, technician)
-    site, part = fan_installation.motor.site, fan_installation.part
+    site, part = fan_fitted_capacitor.motor.site, fan_fitted_capacitor.part
     stock = SiteStock.objects.create(site=site, part=part, quantity=1)
-    response = post_replacement(client, fan_installation, part)
+    response = post_replacement(client, fan_fitted_capacitor, part)
     stock.refresh_from_db()
     assert stock.quantity == 0
     assert f"Stock at {site.code}: 0 of {part.code} left." in client.get(response.url).content.decode()
-    successor = FittedCapacitor.objects.get(motor=fan_installation.motor, removed_on__isnull=True)
+    successor = FittedCapacitor.objects.get(motor=fan_fitted_capacitor.motor, removed_on__isnull=True)
     again = post_replacement(client, successor, part)
     assert again.status_code == 302
     stock.refresh_from_db()
@@ -99,12 +100,12 @@ def test_stock_is_decremented_and_never_below_zero(client, technician, fan_insta
     assert f"No {part.code} was in stock at {site.code}: the replacement is recorded, the stock shows 0." in page
 
 
-def test_api_answers_one_entry_per_candidate_with_units_in_the_names(engineer, fan_installation):
+def test_api_answers_one_entry_per_candidate_with_units_in_the_names(engineer, fan_fitted_capacitor):
     make_part(code="FILM-2U0", rated_uf=2.0)
     make_part(code="ELEC-4U0", rated_uf=4.0, dielectric="electrolytic")
-    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[fan_installation.id])).json()
+    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[fan_fitted_capacitor.id])).json()
     items = {item["part_code"]: item for item in body["items"]}
-    design = items[fan_installation.part.code]
+    design = items[fan_fitted_capacitor.part.code]
     assert design["verdict"] == "suitable"
     for name in ("main_current_a", "aux_current_a", "line_current_a", "capacitor_voltage_v", "starting_torque_nm"):
         assert isinstance(design[name], float)
@@ -115,11 +116,11 @@ def test_api_answers_one_entry_per_candidate_with_units_in_the_names(engineer, f
     assert body["design"]["capacitor_voltage_v"] == pytest.approx(design["capacitor_voltage_v"])
 
 
-def test_api_parts_limits_the_candidates_and_names_an_unknown_code(engineer, fan_installation):
+def test_api_parts_limits_the_candidates_and_names_an_unknown_code(engineer, fan_fitted_capacitor):
     make_part(code="FILM-2U0", rated_uf=2.0)
     make_part(code="FILM-8U0", rated_uf=8.0)
     client = client_for(engineer)
-    url = reverse("api_capacitor_substitutes", args=[fan_installation.id])
+    url = reverse("api_capacitor_substitutes", args=[fan_fitted_capacitor.id])
     body = client.get(url, {"parts": "FILM-8U0"}).json()
     assert [item["part_code"] for item in body["items"]] == ["FILM-8U0"]
     answer = client.get(url, {"parts": "FILM-8U0,NO-SUCH"})
@@ -127,15 +128,15 @@ def test_api_parts_limits_the_candidates_and_names_an_unknown_code(engineer, fan
     assert "NO-SUCH" in answer.json()["parts"][0]
 
 
-def test_api_is_scoped_to_the_users_sites(fan_installation):
+def test_api_is_scoped_to_the_users_sites(fan_fitted_capacitor):
     user = make_user(TECHNICIAN)
     SiteMembership.objects.create(user=user, site=make_site())
-    url = reverse("api_capacitor_substitutes", args=[fan_installation.id])
+    url = reverse("api_capacitor_substitutes", args=[fan_fitted_capacitor.id])
     assert client_for(user).get(url).status_code == 404
 
 
-def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planner, technician, fan_installation):
-    site, part = fan_installation.motor.site, fan_installation.part
+def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planner, technician, fan_fitted_capacitor):
+    site, part = fan_fitted_capacitor.motor.site, fan_fitted_capacitor.part
     other = make_part(code="FILM-2U0", rated_uf=2.0)
     url = reverse("site_stock", args=[site.code])
     signed_in_client(client, planner)
@@ -149,7 +150,7 @@ def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planne
     assert client.post(url, {f"qty-{part.id}": "9"}).status_code == 403
 
 
-def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engineer, fan_installation):
+def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engineer, fan_fitted_capacitor):
     """[derived] the example fan is one design; its own part and a second 4 uF film part suit it, a 2 uF part
     does not (it breaks the main-winding current limit), an electrolytic does not (duty, [trade])."""
     make_part(code="FILM-4U0-B", rated_uf=4.0)
@@ -158,24 +159,24 @@ def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engi
     signed_in_client(client, engineer)
     body = client.get(reverse("stand_in_parts")).content.decode()
     compact = " ".join(body.split())
-    assert f"<td>{fan_installation.part.code}</td>" in compact
-    for code, suited in ((fan_installation.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0), ("ELEC-4U0", 0)):
+    assert f"<td>{fan_fitted_capacitor.part.code}</td>" in compact
+    for code, suited in ((fan_fitted_capacitor.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0), ("ELEC-4U0", 0)):
         row = compact.split(f"<td>{code}</td>")[1].split("</tr>")[0]
         assert f"{suited} of 1" in row, (code, row)
 
 
 def test_a_motor_without_a_circuit_is_judged_by_ratings_alone(client, technician, engineer):
     """[trade] no model: within the original's marked tolerance (+/-5 %) and ratings; figures are null."""
-    installation = make_installation(motor=make_motor(with_circuit=False))
+    fitted_capacitor = make_fitted_capacitor(motor=make_motor(with_circuit=False))
     make_part(code="FILM-4U1", rated_uf=4.1)
     make_part(code="FILM-4U5", rated_uf=4.5)
-    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[installation.id])).json()
+    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[fitted_capacitor.id])).json()
     items = {item["part_code"]: item for item in body["items"]}
     assert body["has_circuit"] is False and body["design"]["main_current_a"] is None
     assert items["FILM-4U1"]["verdict"] == "suitable" and items["FILM-4U5"]["verdict"] == "unsuitable"
     assert any("ratings alone" in reason for reason in items["FILM-4U1"]["reasons"])
     signed_in_client(client, technician)
-    page = client.get(reverse("replace", args=[installation.id])).content.decode()
+    page = client.get(reverse("replace", args=[fitted_capacitor.id])).content.decode()
     assert "parts are judged by their ratings alone" in page
 
 
@@ -183,8 +184,8 @@ def test_the_start_capacitor_of_a_two_value_motor_is_judged_with_its_run_capacit
     """[derived] a two-value motor starts on run + start in parallel: the start candidate's starting torque
     is the model's with both, and the design's own electrolytic is suitable where a film part is not ([trade])."""
     motor = make_motor(motor_type="two_value")
-    make_installation(motor=motor, role="run")
-    start = make_installation(
+    make_fitted_capacitor(motor=motor, role="run")
+    start = make_fitted_capacitor(
         motor=motor,
         role="start",
         part=make_part(

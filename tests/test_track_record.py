@@ -19,8 +19,7 @@ from fleet.charts import CHART_HEIGHT_PX, calibration_figure, coverage_figure
 from fleet.models import Backtest, BandCalibration
 from fleet.services.backtest import run_backtest, start_backtest
 from fleet.templatetags.fleet_format import percent, signed_percent, thousands, times
-
-from .conftest import make_user, straight_line_fleet
+from tests.factories import make_user, straight_line_fleet
 
 pytestmark = pytest.mark.django_db
 NBSP = "\u00a0"

@@ -7,9 +7,8 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
-from fleet.services.assessments import refit_installations
-
-from .conftest import make_installation, make_part, quarterly_readings
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -30,24 +29,24 @@ def test_every_page_needs_a_login(client, name, kwargs):
     assert response["Location"].startswith(reverse("login"))
 
 
-def test_motor_page_shows_the_cautions_and_the_capacitors(signed_in, technician, fan_installation):
-    response = signed_in(technician).get(reverse("motor", args=[fan_installation.motor.asset_tag]))
+def test_motor_page_shows_the_cautions_and_the_capacitors(signed_in, technician, fan_fitted_capacitor):
+    response = signed_in(technician).get(reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag]))
     body = response.content.decode()
     assert response.status_code == 200
     assert "lockout" in body and "never a screwdriver" in body and "Local codes" in body
-    assert fan_installation.part.code in body
+    assert fan_fitted_capacitor.part.code in body
 
 
-def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in, technician, fan_installation):
+def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in, technician, fan_fitted_capacitor):
     client = signed_in(technician)
-    response = client.get(reverse("find"), {"tag": fan_installation.motor.asset_tag.lower()})
-    assert response.status_code == 302 and fan_installation.motor.asset_tag in response["Location"]
+    response = client.get(reverse("find"), {"tag": fan_fitted_capacitor.motor.asset_tag.lower()})
+    assert response.status_code == 302 and fan_fitted_capacitor.motor.asset_tag in response["Location"]
     response = client.get(reverse("find"), {"tag": "NO-SUCH"})
     assert "No motor&#x27;s tag, place or site matches" in response.content.decode()
 
 
-def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_installation):
-    url = reverse("reading_new", args=[fan_installation.id])
+def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_fitted_capacitor):
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     response = signed_in(technician).post(
         url, {"method": "meter", "capacitance_uf": "3.96", "case_temperature_c": "31", "condition": "sound"}
     )
@@ -56,8 +55,8 @@ def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_
     assert (reading.capacitance_uf, reading.case_temperature_c, reading.taken_by) == (3.96, 31.0, technician)
 
 
-def test_a_unit_slip_comes_back_named_with_everything_still_filled(signed_in, technician, fan_installation):
-    url = reverse("reading_new", args=[fan_installation.id])
+def test_a_unit_slip_comes_back_named_with_everything_still_filled(signed_in, technician, fan_fitted_capacitor):
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     response = signed_in(technician).post(
         url,
         {
@@ -75,11 +74,11 @@ def test_a_unit_slip_comes_back_named_with_everything_still_filled(signed_in, te
     assert not Reading.objects.exists()
 
 
-def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, technician, fan_installation):
-    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.97])
-    refit_installations([fan_installation.id])
+def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, technician, fan_fitted_capacitor):
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.97])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
     client = signed_in(technician)
-    url = reverse("reading_new", args=[fan_installation.id])
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     data = {"method": "meter", "capacitance_uf": "3.3", "condition": "sound"}
     response = client.post(url, data)
     assert "confirm" in response.content.decode().lower()
@@ -90,84 +89,84 @@ def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, 
 
 
 def test_planner_cannot_log_readings_and_technician_cannot_start_a_refit(
-    signed_in, planner, technician, fan_installation
+    signed_in, planner, technician, fan_fitted_capacitor
 ):
-    assert signed_in(planner).get(reverse("reading_new", args=[fan_installation.id])).status_code == 403
+    assert signed_in(planner).get(reverse("reading_new", args=[fan_fitted_capacitor.id])).status_code == 403
     assert signed_in(technician).post(reverse("refit_start")).status_code == 403
 
 
-def test_replacement_from_the_form_fits_the_successor(signed_in, technician, fan_installation):
-    url = reverse("replace", args=[fan_installation.id])
+def test_replacement_from_the_form_fits_the_successor(signed_in, technician, fan_fitted_capacitor):
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
     response = signed_in(technician).post(
         url,
         {
-            "part": fan_installation.part_id,
+            "part": fan_fitted_capacitor.part_id,
             "removed_on": timezone.localdate().isoformat(),
             "removal_reason": "failed",
             "serial": "X1",
         },
     )
     assert response.status_code == 302
-    successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_installation.motor)
-    assert successor.serial == "X1" and response["Location"].endswith(f"/capacitors/{successor.id}/reading/")
+    successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_fitted_capacitor.motor)
+    assert successor.serial == "X1" and response["Location"].endswith(f"/fitted-capacitors/{successor.id}/reading/")
 
 
 def test_the_replacement_page_of_a_removed_capacitor_points_to_the_one_fitted_now(
-    signed_in, technician, fan_installation
+    signed_in, technician, fan_fitted_capacitor
 ):
-    url = reverse("replace", args=[fan_installation.id])
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
     client = signed_in(technician)
     form = {
-        "part": fan_installation.part_id,
+        "part": fan_fitted_capacitor.part_id,
         "removed_on": timezone.localdate().isoformat(),
         "removal_reason": "failed",
     }
     assert client.post(url, form).status_code == 302
-    successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_installation.motor)
+    successor = FittedCapacitor.objects.get(removed_on__isnull=True, motor=fan_fitted_capacitor.motor)
     body = client.get(url).content.decode()
     assert "already removed on" in body and reverse("replace", args=[successor.id]) in body
     assert "Save replacement" not in body  # no form to fill in for nothing
     refused = client.post(url, {**form, "serial": "X2"})  # a POST all the same is refused, with the form
     assert refused.status_code == 200 and "already removed" in refused.content.decode()
-    assert FittedCapacitor.objects.filter(motor=fan_installation.motor).count() == 2
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 2
 
 
-def test_labels_for_a_tag_not_at_the_site_say_so(signed_in, technician, fan_installation):
-    site = fan_installation.motor.site.code
+def test_labels_for_a_tag_not_at_the_site_say_so(signed_in, technician, fan_fitted_capacitor):
+    site = fan_fitted_capacitor.motor.site.code
     body = signed_in(technician).get(reverse("labels", args=[site]), {"tag": "NOPE"}).content.decode()
     assert "No motor has the tag <b>NOPE</b> at" in body
-    body = signed_in(technician).get(reverse("labels", args=[site]), {"tag": fan_installation.motor.asset_tag})
+    body = signed_in(technician).get(reverse("labels", args=[site]), {"tag": fan_fitted_capacitor.motor.asset_tag})
     assert "No motor has the tag" not in body.content.decode()
 
 
 def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, django_assert_max_num_queries):
     part = make_part()
-    installations = [make_installation(part=part) for _ in range(6)]
-    for i, installation in enumerate(installations):
+    fitted_capacitors = [make_fitted_capacitor(part=part) for _ in range(6)]
+    for i, fitted_capacitor in enumerate(fitted_capacitors):
         quarterly_readings(
-            installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.9 - 0.01 * i, 3.8, 3.7]
+            fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.9 - 0.01 * i, 3.8, 3.7]
         )
-    refit_installations([i.id for i in installations])
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
     client = signed_in(planner)
     with django_assert_max_num_queries(15):
         response = client.get(reverse("plan"), {"days": 365})
     assert response.status_code == 200
-    assert installations[0].motor.asset_tag in response.content.decode()
-    response = client.get(reverse("capacitor", args=[installations[0].id]))
+    assert fitted_capacitors[0].motor.asset_tag in response.content.decode()
+    response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
     assert Assessment.objects.filter(is_current=True).count() == 6
 
 
-def test_route_lists_the_sites_motors_in_walking_order(signed_in, technician, fan_installation):
-    site = fan_installation.motor.site
+def test_route_lists_the_sites_motors_in_walking_order(signed_in, technician, fan_fitted_capacitor):
+    site = fan_fitted_capacitor.motor.site
     response = signed_in(technician).get(reverse("route", args=[site.code]))
-    assert fan_installation.motor.asset_tag in response.content.decode()
+    assert fan_fitted_capacitor.motor.asset_tag in response.content.decode()
     labels = signed_in(technician).get(reverse("labels", args=[site.code]))
     assert "<svg" in labels.content.decode()
 
 
 def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in, planner, technician):
-    from .conftest import make_motor, make_site
+    from tests.factories import make_motor, make_site
 
     site = make_site()
     first, second = make_motor(site=site, route_order=1), make_motor(site=site, route_order=2)
@@ -186,43 +185,44 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
 
 
 def test_route_can_show_only_the_motors_still_to_read(signed_in, technician):
-    from .conftest import make_motor, make_reading, make_site
+    from tests.factories import make_motor, make_reading, make_site
 
     site = make_site()
-    read = make_installation(motor=make_motor(site=site))
-    unread = make_installation(motor=make_motor(site=site))
+    read = make_fitted_capacitor(motor=make_motor(site=site))
+    unread = make_fitted_capacitor(motor=make_motor(site=site))
     make_reading(read, taken_at=timezone.now() - dt.timedelta(hours=2))
     body = signed_in(technician).get(reverse("route", args=[site.code]), {"show": "due"}).content.decode()
     assert unread.motor.asset_tag in body and read.motor.asset_tag not in body
 
 
 def test_plan_downloads_as_a_streamed_csv_with_formulas_defused(signed_in, planner):
-    from .conftest import make_motor
+    from tests.factories import make_motor
 
-    installation = make_installation(motor=make_motor(location="=cmd|' /C calc'!A0"))
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor(motor=make_motor(location="=cmd|' /C calc'!A0"))
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+    refit_fitted_capacitors([fitted_capacitor.id])
     response = signed_in(planner).get(reverse("plan_export", args=["csv"]), {"days": 365})
     assert response.streaming and response["Content-Type"].startswith("text/csv")
     lines = b"".join(response.streaming_content).decode("utf-8-sig").splitlines()
     assert lines[0].startswith("asset_tag,site,location")
-    assert installation.motor.asset_tag in lines[1] and "'=cmd" in lines[1]
+    assert fitted_capacitor.motor.asset_tag in lines[1] and "'=cmd" in lines[1]
 
 
 def test_life_data_counts_failures_and_suspensions_from_the_register(signed_in, engineer):
     from fleet.services.lifedata import life_table
-
-    from .conftest import make_motor
+    from tests.factories import make_motor
 
     part = make_part()
     ages_days = [400, 800, 1200, 1500, 2000, 2600]
     today = timezone.localdate()
     for i, age in enumerate(ages_days):
-        installation = make_installation(motor=make_motor(), part=part, fitted_on=today - dt.timedelta(days=age))
+        fitted_capacitor = make_fitted_capacitor(
+            motor=make_motor(), part=part, fitted_on=today - dt.timedelta(days=age)
+        )
         if i < 4:  # four removed: three failed, one replaced on plan
-            installation.removed_on = today - dt.timedelta(days=1)
-            installation.removal_reason = "failed" if i < 3 else "planned"
-            installation.save()
+            fitted_capacitor.removed_on = today - dt.timedelta(days=1)
+            fitted_capacitor.removal_reason = "failed" if i < 3 else "planned"
+            fitted_capacitor.save()
     table = life_table(part.id, today=today)
     assert table["failed"].sum() == 3 and len(table) == 6
     assert sorted(table["age_days"]) == sorted([a - 1 for a in ages_days[:4]] + ages_days[4:])
@@ -232,19 +232,19 @@ def test_life_data_counts_failures_and_suspensions_from_the_register(signed_in, 
 
 
 def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(signed_in, planner, technician):
-    installations = [make_installation() for _ in range(2)]
-    for installation in installations:
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
-    refit_installations([i.id for i in installations])
+    fitted_capacitors = [make_fitted_capacitor() for _ in range(2)]
+    for fitted_capacitor in fitted_capacitors:
+        quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+    refit_fitted_capacitors([i.id for i in fitted_capacitors])
     client = signed_in(planner)
     client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
     body = client.get(reverse("work_orders")).content.decode()
-    assert installations[0].motor.asset_tag in body and "Visit sheet" in body
-    site = installations[0].motor.site
-    day = WorkOrder.objects.get(installation=installations[0]).due_on.isoformat()
+    assert fitted_capacitors[0].motor.asset_tag in body and "Visit sheet" in body
+    site = fitted_capacitors[0].motor.site
+    day = WorkOrder.objects.get(fitted_capacitor=fitted_capacitors[0]).due_on.isoformat()
     sheet = client.get(reverse("visit_sheet", args=[site.code, day])).content.decode()
-    assert "never a screwdriver" in sheet and installations[0].part.code in sheet
-    code = installations[0].part.code
+    assert "never a screwdriver" in sheet and fitted_capacitors[0].part.code in sheet
+    code = fitted_capacitors[0].part.code
     assert f'&times;&nbsp;<span class="nowrap">{code}</span>' in sheet and f" x {code}" not in sheet
     client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day})
     assert "Issued" in client.get(reverse("work_orders")).content.decode()
@@ -256,28 +256,28 @@ def test_plan_downloads_as_xlsx_with_formulas_defused(signed_in, planner):
 
     from openpyxl import load_workbook
 
-    from .conftest import make_motor
+    from tests.factories import make_motor
 
-    installation = make_installation(motor=make_motor(location="=1+1"))
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor(motor=make_motor(location="=1+1"))
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+    refit_fitted_capacitors([fitted_capacitor.id])
     response = signed_in(planner).get(reverse("plan_export", args=["xlsx"]), {"days": 365})
     sheet = load_workbook(io.BytesIO(b"".join(response.streaming_content))).active
     rows = list(sheet.iter_rows(values_only=True))
     assert rows[0][:3] == ("asset_tag", "site", "location")
     # A text cell holding the formula's text, no visible quote (openpyxl reads a formula as "=..." with type f).
-    assert rows[1][0] == installation.motor.asset_tag and rows[1][2] == "=1+1" and sheet["C2"].data_type == "s"
+    assert rows[1][0] == fitted_capacitor.motor.asset_tag and rows[1][2] == "=1+1" and sheet["C2"].data_type == "s"
     assert rows[1][5] == 4 and not isinstance(rows[1][5], str)  # numbers stay numbers
 
 
 def test_plan_spares_follow_the_chosen_site_and_unknown_formats_are_not_found(signed_in, planner):
-    from .conftest import make_motor, make_site
+    from tests.factories import make_motor, make_site
 
     here, there = make_site(), make_site()
     for site, part_code in ((here, "HERE-4U"), (there, "THERE-4U")):
-        installation = make_installation(motor=make_motor(site=site), part=make_part(code=part_code))
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
-        refit_installations([installation.id])
+        fitted_capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=make_part(code=part_code))
+        quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.8, 3.7, 3.6])
+        refit_fitted_capacitors([fitted_capacitor.id])
     client = signed_in(planner)
     body = client.get(reverse("plan"), {"days": 365, "site": here.code}).content.decode()
     spares = body[body.index("Spares for this window") :]
@@ -291,7 +291,7 @@ def test_only_planners_issue_visits_and_bad_input_is_a_message(signed_in, planne
     assert response.status_code == 200 and "No work orders planned: days" in response.content.decode()
     response = client.post(reverse("work_orders"), {"action": "issue", "site": "x", "day": "soon"}, follow=True)
     assert "could not be found" in response.content.decode()
-    site = make_installation().motor.site
+    site = make_fitted_capacitor().motor.site
     day = timezone.localdate().isoformat()
     assert (
         signed_in(technician).post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day}).status_code
@@ -299,17 +299,17 @@ def test_only_planners_issue_visits_and_bad_input_is_a_message(signed_in, planne
     )
 
 
-def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_installation):
-    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0])
+def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_fitted_capacitor):
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0])
     body = signed_in(engineer).get(reverse("refits")).content.decode()
     assert "1 capacitor has readings newer than its assessment" in body
 
 
 def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, planner):
     """Bad input is named, not taken silently as a default (the plan page's rule for `days`)."""
-    installation = make_installation()
-    quarterly_readings(installation, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.9, 3.8, 3.7, 3.6])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.9, 3.8, 3.7, 3.6])
+    refit_fitted_capacitors([fitted_capacitor.id])
     client.force_login(planner)
     for days in ("abc", "-5", "99999"):
         response = client.post("/work-orders/", {"action": "plan", "days": days}, follow=True)
@@ -324,7 +324,7 @@ def test_a_plan_download_refuses_a_horizon_it_cannot_read(client, planner):
 
 
 def test_life_data_says_when_the_part_asked_for_does_not_exist(client, engineer):
-    make_installation()
+    make_fitted_capacitor()
     client.force_login(engineer)
     response = client.get("/life/?part=NOPE", follow=True)
     assert "No part with the code NOPE" in response.content.decode()
@@ -333,9 +333,9 @@ def test_life_data_says_when_the_part_asked_for_does_not_exist(client, engineer)
 def test_the_admin_shows_assessments_but_never_lets_them_be_typed_over(client, django_user_model):
     """Assessments are computed by the refit: the register's admin lists them, read-only."""
     admin = django_user_model.objects.create_superuser("root", "root@example.invalid", "pw-for-tests-only")
-    installation = make_installation()
-    quarterly_readings(installation, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.9, 3.8, 3.7])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.9, 3.8, 3.7])
+    refit_fitted_capacitors([fitted_capacitor.id])
     assessment = Assessment.objects.get(is_current=True)
     client.force_login(admin)
     assert client.get("/admin/fleet/assessment/").status_code == 200

@@ -12,9 +12,9 @@ from fleet.engineering.planning import DISSIPATION_LIMIT, RISK_ORDER, TOLERANCE_
 from fleet.engineering.rules import CONDITIONS, METHODS
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Assessment, FittedCapacitor, Reading, TrendModel
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import quarterly_readings
 
-from .conftest import quarterly_readings
 from .test_api import client_for
 
 
@@ -30,12 +30,12 @@ def test_choices_are_the_cores_names_in_the_cores_order():
 
 
 @pytest.mark.django_db
-def test_a_refit_stores_only_values_of_the_vocabularies(fan_installation):
+def test_a_refit_stores_only_values_of_the_vocabularies(fan_fitted_capacitor):
     """[derived] a stored assessment passes its own field choices (full_clean checks them)."""
-    quarterly_readings(fan_installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7])
-    refit_installations([fan_installation.id])
-    assessment = Assessment.objects.get(installation=fan_installation, is_current=True)
-    assessment.full_clean(exclude=["installation", "newest_reading"])
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=fan_fitted_capacitor, is_current=True)
+    assessment.full_clean(exclude=["fitted_capacitor", "newest_reading"])
     assert assessment.get_risk_display() == assessment.risk.capitalize()
 
 

@@ -19,8 +19,7 @@ from django.utils import timezone
 from fleet.models import Assessment, RefitRun
 from fleet.services.readings import record_reading
 from fleet.services.refits import start_fleet_refit
-
-from .conftest import make_installation, make_part, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -81,21 +80,23 @@ def wait_for(condition, seconds=90):
 
 def test_a_saved_reading_is_refitted_by_a_worker(worker):
     part = make_part()
-    installation = make_installation(part=part)
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.97, 3.95, 3.92])
-    record_reading(installation=installation, values={"method": "meter", "capacitance_uf": 3.90})
-    assert wait_for(lambda: Assessment.objects.filter(installation=installation, is_current=True).exists()), (
+    fitted_capacitor = make_fitted_capacitor(part=part)
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.97, 3.95, 3.92])
+    record_reading(fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": 3.90})
+    assert wait_for(lambda: Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True).exists()), (
         worker.stdout.read() if worker.poll() is not None else "worker did not refit in time"
     )
-    assessment = Assessment.objects.get(installation=installation, is_current=True)
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert assessment.readings_used == 5
 
 
 def test_a_fleet_refit_runs_in_chunks_on_the_worker(worker):
     part = make_part()
     for i in range(5):
-        installation = make_installation(part=part)
-        quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98 - 0.002 * i, 3.96])
+        fitted_capacitor = make_fitted_capacitor(part=part)
+        quarterly_readings(
+            fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98 - 0.002 * i, 3.96]
+        )
     run = start_fleet_refit(chunk_size=2)
     assert wait_for(lambda: RefitRun.objects.get(pk=run.pk).state == RefitRun.State.DONE)
     run.refresh_from_db()

@@ -37,25 +37,25 @@ def current_conditions(today: dt.date) -> dict[tuple[str, int], dict]:
     conditions = {}
     for row in (
         current_assessments()
-        .filter(installation__removed_on__isnull=True, risk=TOP_RISK)
+        .filter(fitted_capacitor__removed_on__isnull=True, risk=TOP_RISK)
         .values(
-            "installation_id",
-            "installation__role",
-            "installation__part__code",
-            "installation__motor__asset_tag",
-            "installation__motor__site_id",
+            "fitted_capacitor_id",
+            "fitted_capacitor__role",
+            "fitted_capacitor__part__code",
+            "fitted_capacitor__motor__asset_tag",
+            "fitted_capacitor__motor__site_id",
             "replace_by",
             "reason",
         )
-        .order_by("replace_by", "installation__motor__asset_tag")
+        .order_by("replace_by", "fitted_capacitor__motor__asset_tag")
     ):
         replace_by = f", replace by {row['replace_by']:%Y-%m-%d}" if row["replace_by"] else ""
-        conditions[(DigestEntry.Kind.TOP_RISK, row["installation_id"])] = {
-            "site_id": row["installation__motor__site_id"],
+        conditions[(DigestEntry.Kind.TOP_RISK, row["fitted_capacitor_id"])] = {
+            "site_id": row["fitted_capacitor__motor__site_id"],
             "reason": row["reason"][:300],
-            "line": f"{row['installation__motor__asset_tag']} {row['installation__role']} capacitor "
-            f"{row['installation__part__code']}{replace_by}: {row['reason']}",
-            "link": _link(reverse("capacitor", args=[row["installation_id"]])),
+            "line": f"{row['fitted_capacitor__motor__asset_tag']} {row['fitted_capacitor__role']} capacitor "
+            f"{row['fitted_capacitor__part__code']}{replace_by}: {row['reason']}",
+            "link": _link(reverse("fitted_capacitor", args=[row["fitted_capacitor_id"]])),
         }
     for row in (
         overdue_capacitors(None, today)
@@ -99,7 +99,7 @@ def send_daily_digest(*, today: dt.date | None = None) -> dict:
     sites they work at; nothing new, no email. Returns counts."""
     today = today or timezone.localdate()
     conditions = current_conditions(today)
-    known = set(DigestEntry.objects.values_list("kind", "installation_id"))
+    known = set(DigestEntry.objects.values_list("kind", "fitted_capacitor_id"))
     new = [{"kind": kind, "id": capacitor_id, **conditions[(kind, capacitor_id)]} for kind, capacitor_id in conditions]
     new = [item for item in new if (item["kind"], item["id"]) not in known]
     ended = [key for key in known if key not in conditions]
@@ -119,9 +119,9 @@ def send_daily_digest(*, today: dt.date | None = None) -> dict:
     with transaction.atomic():
         for kind in DigestEntry.Kind.values:
             gone = [capacitor_id for k, capacitor_id in ended if k == kind]
-            DigestEntry.objects.filter(kind=kind, installation_id__in=gone).delete()
+            DigestEntry.objects.filter(kind=kind, fitted_capacitor_id__in=gone).delete()
         DigestEntry.objects.bulk_create(
-            [DigestEntry(kind=item["kind"], installation_id=item["id"], reason=item["reason"]) for item in new],
+            [DigestEntry(kind=item["kind"], fitted_capacitor_id=item["id"], reason=item["reason"]) for item in new],
             ignore_conflicts=True,
         )
     return {"new": len(new), "ended": len(ended), "emails": len(messages)}

@@ -74,7 +74,7 @@ from .bulk import insert_frame, on_postgresql, select_frame
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
-    installations_frame,
+    fitted_capacitors_frame,
     part_priors_frame,
     readings_frame,
 )
@@ -106,9 +106,9 @@ def fit_frames(
     forms: dict[str, str] | None = None,
     settings: TrendSettings | None = None,
 ) -> TrendFit:
-    """Run the trend fit on frames (inst indexed by installation id); `forms` maps a dielectric
+    """Run the trend fit on frames (inst indexed by fitted capacitor id); `forms` maps a dielectric
     to the trend form its back-test chose (stored ones by default)."""
-    group = inst.index.get_indexer(readings["installation_id"])
+    group = inst.index.get_indexer(readings["fitted_capacitor_id"])
     part_index = pd.Index(part_ids).get_indexer(inst["part_id"])
     fitted_on = inst["fitted_on"].to_numpy()[group]
     settings = settings or TrendSettings()
@@ -172,16 +172,16 @@ def refresh_part_priors(part_ids=None) -> int:
     A population is statistics: past FLEET_PRIOR_MAX_CAPACITORS_PER_PART capacitors of a part, a
     fixed random sample of them is fitted, so a plant-size refit starts in bounded time and memory.
     """
-    installations = FittedCapacitor.objects.filter(Exists(Reading.objects.filter(installation=OuterRef("pk"))))
+    fitted_capacitors = FittedCapacitor.objects.filter(Exists(Reading.objects.filter(fitted_capacitor=OuterRef("pk"))))
     if part_ids is not None:
-        installations = installations.filter(part_id__in=list(part_ids))
-    frame = pd.DataFrame.from_records(list(installations.values_list("id", "part_id")), columns=["id", "part_id"])
+        fitted_capacitors = fitted_capacitors.filter(part_id__in=list(part_ids))
+    frame = pd.DataFrame.from_records(list(fitted_capacitors.values_list("id", "part_id")), columns=["id", "part_id"])
     if frame.empty:
         return 0
     shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))]
     sample = shuffled.groupby("part_id").cumcount() < settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART
     ids = np.sort(shuffled.loc[sample.to_numpy(), "id"].to_numpy()).tolist()
-    inst = installations_frame(ids).set_index("installation_id", drop=False)
+    inst = fitted_capacitors_frame(ids).set_index("fitted_capacitor_id", drop=False)
     readings = readings_frame(ids)
     parts = np.sort(inst["part_id"].unique())
     rows = _finite_prior_rows(fit_frames(inst, readings, None, parts), parts)
@@ -336,7 +336,7 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
 @dataclass(frozen=True)
 class Assessed:
     """A batch judged: every figure an assessment row or a back-test needs, per
-    capacitor in the order of `inst` (indexed by installation id)."""
+    capacitor in the order of `inst` (indexed by fitted capacitor id)."""
 
     inst: pd.DataFrame
     fit: TrendFit
@@ -369,8 +369,8 @@ def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.D
 def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
     """Median of each capacitor's last four measured capacitor voltages (nan if none)."""
     measured = readings[readings["capacitor_voltage_v"].notna() & ~readings["superseded"]]
-    recent = measured.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(4)
-    return recent.groupby("installation_id")["capacitor_voltage_v"].median().reindex(index).to_numpy(float)
+    recent = measured.sort_values(["fitted_capacitor_id", "taken_at", "id"]).groupby("fitted_capacitor_id").tail(4)
+    return recent.groupby("fitted_capacitor_id")["capacitor_voltage_v"].median().reindex(index).to_numpy(float)
 
 
 def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
@@ -408,7 +408,7 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
 def _dissipation_days(inst: pd.DataFrame, usable: pd.DataFrame, now: dt.datetime) -> np.ndarray:
     """Days from `now` to each capacitor's dissipation-factor maximum on its ESR trend (3, G)."""
     measured = usable[usable["esr_ohm"].notna()]
-    group = inst.index.get_indexer(measured["installation_id"])
+    group = inst.index.get_indexer(measured["fitted_capacitor_id"])
     frequency = inst["frequency_hz"].to_numpy(float)[group]
     dissipation = dissipation_factor_from_esr(
         measured["esr_ohm"].to_numpy(float), measured["capacitance_uf"].to_numpy(float), frequency
@@ -515,7 +515,9 @@ def assess(
     family_terms = np.array([calibration.get(d, fallback) for d in families], float).reshape(-1, 6)
     terms = family_terms[np.searchsorted(families, inst["dielectric"].to_numpy(str))].T
     horizon_stress_hours = fit.stress_rate * PlanningSettings().horizon_days * 24.0
-    newest_at = pd.to_datetime(readings[~readings["superseded"]].groupby("installation_id")["taken_at"].max(), utc=True)
+    newest_at = pd.to_datetime(
+        readings[~readings["superseded"]].groupby("fitted_capacitor_id")["taken_at"].max(), utc=True
+    )
     newest_at = newest_at.reindex(inst.index)
     elapsed_h = ((pd.Timestamp(now) - newest_at) / pd.Timedelta(hours=1)).to_numpy(float)
     effective = np.where(limit_used, limit_fraction, np.nan)
@@ -536,8 +538,8 @@ def assess(
     alert_days = level_days[chosen, :, np.arange(n)].T
 
     usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
-    latest = usable.sort_values(["installation_id", "taken_at", "id"]).groupby("installation_id").tail(1)
-    latest = latest.set_index("installation_id").reindex(inst.index)
+    latest = usable.sort_values(["fitted_capacitor_id", "taken_at", "id"]).groupby("fitted_capacitor_id").tail(1)
+    latest = latest.set_index("fitted_capacitor_id").reindex(inst.index)
     latest_fraction = fit.fraction_25c[latest["position"].to_numpy(int)]
     verdict = tolerance_verdict(
         latest["capacitance_uf"].to_numpy(float),
@@ -590,8 +592,8 @@ def assess(
     )
 
 
-def refit_installations(
-    installation_ids, *, now: dt.datetime | None = None, force: bool = False, as_of: bool = False
+def refit_fitted_capacitors(
+    fitted_capacitor_ids, *, now: dt.datetime | None = None, force: bool = False, as_of: bool = False
 ) -> RefitOutcome:
     """Fit, judge and plan the given fitted capacitors; store one assessment each.
 
@@ -599,14 +601,14 @@ def refit_installations(
     demo's few weeks of assessment history).
     """
     now = now or timezone.now()
-    ids = sorted({int(i) for i in installation_ids})
-    inst = installations_frame(ids)
+    ids = sorted({int(i) for i in fitted_capacitor_ids})
+    inst = fitted_capacitors_frame(ids)
     readings = readings_frame(ids)
     if as_of:
         readings = readings[readings["taken_at"] <= now].reset_index(drop=True)
     usable = readings[~readings["superseded"]]
-    max_reading_id = readings.groupby("installation_id")["id"].max()
-    inst = inst[inst["installation_id"].isin(usable["installation_id"].unique())]
+    max_reading_id = readings.groupby("fitted_capacitor_id")["id"].max()
+    inst = inst[inst["fitted_capacitor_id"].isin(usable["fitted_capacitor_id"].unique())]
     if not force and not inst.empty:
         # Due when a reading was added since the fit (by id, not by reading date: a backdated or
         # late-imported reading must be used too) or when the assessment was judged before the
@@ -614,26 +616,26 @@ def refit_installations(
         # move): one assessment per capacitor, newest reading and day.
         seen = pd.DataFrame(
             Assessment.objects.filter(
-                installation_id__any_of=inst["installation_id"].to_numpy(np.int64),
+                fitted_capacitor_id__any_of=inst["fitted_capacitor_id"].to_numpy(np.int64),
                 is_current=True,
                 model_version=MODEL_VERSION,
             )
             .order_by()
-            .values_list("installation_id", "max_reading_id", "created_at"),
-            columns=["installation_id", "max_reading_id", "created_at"],
-        ).set_index("installation_id")
-        seen = seen.reindex(inst["installation_id"])
+            .values_list("fitted_capacitor_id", "max_reading_id", "created_at"),
+            columns=["fitted_capacitor_id", "max_reading_id", "created_at"],
+        ).set_index("fitted_capacitor_id")
+        seen = seen.reindex(inst["fitted_capacitor_id"])
         day_start = timezone.localtime(now).replace(hour=0, minute=0, second=0, microsecond=0)
         judged_today = pd.to_datetime(seen["created_at"], utc=True).ge(day_start).to_numpy()
         seen_id = seen["max_reading_id"].to_numpy(float)
-        newest = max_reading_id.reindex(inst["installation_id"]).to_numpy()
+        newest = max_reading_id.reindex(inst["fitted_capacitor_id"]).to_numpy()
         covered = ~np.isnan(seen_id) & (seen_id >= newest) & judged_today
         inst = inst[~covered]
     skipped = len(ids) - len(inst)
     if inst.empty:
         return RefitOutcome(written=0, skipped=skipped, readings=0)
-    inst = inst.set_index("installation_id", drop=False)
-    readings = readings[readings["installation_id"].isin(inst.index)].reset_index(drop=True)
+    inst = inst.set_index("fitted_capacitor_id", drop=False)
+    readings = readings[readings["fitted_capacitor_id"].isin(inst.index)].reset_index(drop=True)
     part_ids = np.sort(inst["part_id"].unique())
     result = assess(
         inst,
@@ -661,57 +663,57 @@ def refit_installations(
             .order_by("pk")
             .values_list("pk", flat=True)
         )
-        current = _current_assessments(rows["installation_id"].to_numpy(np.int64))
+        current = _current_assessments(rows["fitted_capacitor_id"].to_numpy(np.int64))
         if not as_of:
             rows = _not_older_than(rows, current)
         _carry_risk_history(rows, current, now)
         Assessment.objects.filter(
-            installation_id__any_of=rows["installation_id"].to_numpy(np.int64), is_current=True
+            fitted_capacitor_id__any_of=rows["fitted_capacitor_id"].to_numpy(np.int64), is_current=True
         ).update(is_current=False)
         insert_frame(Assessment, rows)
     return RefitOutcome(written=len(rows), skipped=len(ids) - len(rows), readings=int(len(readings)))
 
 
-CURRENT_COLUMNS = ["installation_id", "max_reading_id", "risk", "risk_was", "risk_changed_at"]
+CURRENT_COLUMNS = ["fitted_capacitor_id", "max_reading_id", "risk", "risk_was", "risk_changed_at"]
 CURRENT_SQL = (
-    "SELECT installation_id, max_reading_id, risk, risk_was,"
+    "SELECT fitted_capacitor_id, max_reading_id, risk, risk_was,"
     " (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
     " FROM fleet_assessment WHERE is_current"
-    " AND installation_id BETWEEN %s AND %s AND installation_id = ANY(%s)"
+    " AND fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY(%s)"
 )
 
 
-def _current_assessments(installation_ids: np.ndarray) -> pd.DataFrame:
+def _current_assessments(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
     """The current assessments of these capacitors (one query; on PostgreSQL one text value with
     times as microseconds, so no datetime is parsed row by row), indexed by capacitor."""
-    if not len(installation_ids):
-        return pd.DataFrame(columns=CURRENT_COLUMNS).set_index("installation_id")
+    if not len(fitted_capacitor_ids):
+        return pd.DataFrame(columns=CURRENT_COLUMNS).set_index("fitted_capacitor_id")
     if on_postgresql():
-        ids = installation_ids.tolist()
+        ids = fitted_capacitor_ids.tolist()
         frame = select_frame(CURRENT_SQL, [min(ids), max(ids), ids], CURRENT_COLUMNS)
         frame["risk_changed_at"] = pd.to_datetime(frame["risk_changed_at"], unit="us", utc=True)
     else:
         frame = pd.DataFrame(
-            Assessment.objects.filter(installation_id__any_of=installation_ids, is_current=True)
+            Assessment.objects.filter(fitted_capacitor_id__any_of=fitted_capacitor_ids, is_current=True)
             .order_by()
             .values_list(*CURRENT_COLUMNS),
             columns=CURRENT_COLUMNS,
         )
-    frame = frame.astype({"installation_id": np.int64, "max_reading_id": float, "risk": object, "risk_was": object})
-    return frame.set_index("installation_id")
+    frame = frame.astype({"fitted_capacitor_id": np.int64, "max_reading_id": float, "risk": object, "risk_was": object})
+    return frame.set_index("fitted_capacitor_id")
 
 
 def _not_older_than(rows: pd.DataFrame, current: pd.DataFrame) -> pd.DataFrame:
     """The new assessments less those whose capacitor's current one already covers a newer
     reading (written meanwhile by a refit that started later)."""
-    stored = current["max_reading_id"].reindex(rows["installation_id"].to_numpy()).to_numpy(float)
+    stored = current["max_reading_id"].reindex(rows["fitted_capacitor_id"].to_numpy()).to_numpy(float)
     return rows[~(stored > rows["max_reading_id"].to_numpy(float))].reset_index(drop=True)
 
 
 def _carry_risk_history(rows: pd.DataFrame, current: pd.DataFrame, now: dt.datetime) -> None:
     """Each new assessment keeps when its risk level took its present value and what it was
     before, so the plan lists recent changes without comparing assessment histories."""
-    before = current.reindex(rows["installation_id"].to_numpy())
+    before = current.reindex(rows["fitted_capacitor_id"].to_numpy())
     same = before["risk"].to_numpy(object) == rows["risk"].to_numpy(object)
     changed_at = before["risk_changed_at"].astype(object).where(before["risk_changed_at"].notna(), now).to_numpy(object)
     rows["risk_was"] = np.where(
@@ -785,8 +787,8 @@ def _figures_json(figures: pd.DataFrame, with_circuit: np.ndarray) -> np.ndarray
 
 def _flagged_json(result: Assessed, readings: pd.DataFrame) -> np.ndarray:
     """Per capacitor, the JSON list of the reading ids its fit flagged (few capacitors have any)."""
-    flagged = readings.loc[result.fit.flagged, ["installation_id", "id"]]
-    lists = flagged.astype({"id": str}).groupby("installation_id")["id"].agg(",".join)
+    flagged = readings.loc[result.fit.flagged, ["fitted_capacitor_id", "id"]]
+    lists = flagged.astype({"id": str}).groupby("fitted_capacitor_id")["id"].agg(",".join)
     return ("[" + lists.reindex(result.inst.index).fillna("") + "]").to_numpy(object)
 
 
@@ -814,7 +816,7 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
 
     return pd.DataFrame(
         {
-            "installation_id": inst.index.to_numpy(np.int64),
+            "fitted_capacitor_id": inst.index.to_numpy(np.int64),
             "is_current": True,
             "model_version": MODEL_VERSION,
             "fitted_through": result.newest_at.reset_index(drop=True),

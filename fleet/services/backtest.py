@@ -39,7 +39,7 @@ from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
 from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames
-from .selectors import installations_frame, readings_frame
+from .selectors import fitted_capacitors_frame, readings_frame
 
 VARIANTS = ("default", "calibrated")
 
@@ -198,7 +198,7 @@ def _run(backtest: Backtest) -> None:
         # in bounded time and memory, and the same sample week after week.
         ids = np.sort(np.random.default_rng(0).choice(ids, settings.FLEET_BACKTEST_MAX_CAPACITORS, replace=False))
     ids = ids.tolist()
-    inst_all = installations_frame(ids).set_index("installation_id", drop=False)
+    inst_all = fitted_capacitors_frame(ids).set_index("fitted_capacitor_id", drop=False)
     readings_all = readings_frame(ids)
     readings_all = readings_all[~readings_all["superseded"]].reset_index(drop=True)
     taken = pd.to_datetime(readings_all["taken_at"], utc=True)
@@ -214,8 +214,10 @@ def _run(backtest: Backtest) -> None:
     for number, cutoff_text in enumerate(backtest.cutoffs):
         cutoff = pd.Timestamp(cutoff_text, tz="UTC")
         alive = (fitted < cutoff) & (removed.isna() | (removed >= cutoff))
-        before = readings_all[(taken < cutoff).to_numpy() & readings_all["installation_id"].isin(inst_all.index[alive])]
-        inst = inst_all.loc[np.sort(before["installation_id"].unique())]
+        before = readings_all[
+            (taken < cutoff).to_numpy() & readings_all["fitted_capacitor_id"].isin(inst_all.index[alive])
+        ]
+        inst = inst_all.loc[np.sort(before["fitted_capacitor_id"].unique())]
         if inst.empty:
             continue
         before = before.reset_index(drop=True)
@@ -225,8 +227,8 @@ def _run(backtest: Backtest) -> None:
             "default": {},
             "calibrated": {family: tuple(terms.per_capacitor([k])[:, 0]) for k, family in enumerate(families)},
         }
-        later = readings_all[(taken >= cutoff).to_numpy() & readings_all["installation_id"].isin(inst.index)]
-        group = inst.index.get_indexer(later["installation_id"])
+        later = readings_all[(taken >= cutoff).to_numpy() & readings_all["fitted_capacitor_id"].isin(inst.index)]
+        group = inst.index.get_indexer(later["fitted_capacitor_id"])
         later_day = ((pd.to_datetime(later["taken_at"], utc=True) - cutoff) / pd.Timedelta(days=1)).to_numpy(float)
         removal_day = ((removed.reindex(inst.index) - cutoff) / pd.Timedelta(days=1)).to_numpy(float)
         failed = (inst["removal_reason"] == FittedCapacitor.RemovalReason.FAILED).to_numpy() & np.isfinite(removal_day)

@@ -300,7 +300,7 @@ def build_bench_fleet(
         progress(f"capacitors: {capacitor_count:,} ({positions:,} in service)")
 
         readings = pd.concat(reading_parts, ignore_index=True)
-        readings["installation_id"] = readings.pop("capacitor") + first_capacitor_id
+        readings["fitted_capacitor_id"] = readings.pop("capacitor") + first_capacitor_id
         readings["taken_at"] = pd.to_datetime(readings["taken_at"]).dt.tz_localize("UTC")
         readings["source"] = Reading.Source.DEMO
         readings["notes"] = ""

@@ -78,14 +78,14 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
     keeps its nameplate estimate. Circuits entered by hand are never touched.
     """
     readings = Reading.objects.filter(
-        installation__role=FittedCapacitor.Role.RUN,
+        fitted_capacitor__role=FittedCapacitor.Role.RUN,
         main_current_a__isnull=False,
         aux_current_a__isnull=False,
-    ).exclude(installation__motor__circuit_source="entered")
+    ).exclude(fitted_capacitor__motor__circuit_source="entered")
     if motor_ids is not None:
-        readings = readings.filter(installation__motor_id__any_of=np.asarray(list(motor_ids), np.int64))
-    rows = readings.order_by("installation__motor_id", "taken_at").values_list(
-        "installation__motor_id", "capacitance_uf", "main_current_a", "aux_current_a"
+        readings = readings.filter(fitted_capacitor__motor_id__any_of=np.asarray(list(motor_ids), np.int64))
+    rows = readings.order_by("fitted_capacitor__motor_id", "taken_at").values_list(
+        "fitted_capacitor__motor_id", "capacitance_uf", "main_current_a", "aux_current_a"
     )
     first = {}
     for motor_id, capacitance_uf, main_a, aux_a in rows:

@@ -237,8 +237,10 @@ def risk_mix(user=None) -> dict:
 
 
 def last_read_subquery():
-    """The newest reading time of the outer fitted capacitor (the (installation, taken_at) index)."""
-    return Subquery(Reading.objects.filter(installation=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1])
+    """The newest reading time of the outer fitted capacitor (the (fitted capacitor, taken_at) index)."""
+    return Subquery(
+        Reading.objects.filter(fitted_capacitor=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1]
+    )
 
 
 def overdue_capacitors(user=None, today: dt.date | None = None):
@@ -298,7 +300,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     reassessed = in_service_assessments(user).filter(created_at__gte=since).count()
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
     before_change = Assessment.objects.filter(
-        installation=OuterRef("installation"), created_at__lt=OuterRef("risk_changed_at")
+        fitted_capacitor=OuterRef("fitted_capacitor"), created_at__lt=OuterRef("risk_changed_at")
     ).order_by("-created_at", "-id")
     previous_limit = Subquery(before_change.values("limit_source")[:1])
     worse = list(worse.annotate(previous_limit=previous_limit))

@@ -26,7 +26,7 @@ from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
 from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site, SiteStock, WorkOrder
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
-from fleet.services.assessments import refit_installations, refresh_part_priors
+from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.circuits import circuit_fields
 from fleet.services.readings import replace_capacitor
 from fleet.services.workorders import KIND_FOR_ROLE, issue_visit, open_visits_page, plan_work_orders
@@ -327,7 +327,7 @@ def _skip_closed_house(readings: list[Reading], today: dt.date) -> list[Reading]
     """The closed glasshouses' recent readings never happened: their capacitors' readings are overdue."""
     since = today - dt.timedelta(days=CLOSED_SINCE_DAYS)
     return [
-        r for r in readings if not (r.installation.motor.location in CLOSED_LOCATIONS and r.taken_at.date() > since)
+        r for r in readings if not (r.fitted_capacitor.motor.location in CLOSED_LOCATIONS and r.taken_at.date() > since)
     ]
 
 
@@ -341,7 +341,7 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
     fitted_on = commissioned
     first_reading_day = today - dt.timedelta(days=4 * 365)
     while True:
-        installation = FittedCapacitor.objects.create(
+        fitted_capacitor = FittedCapacitor.objects.create(
             motor=motor,
             role=role,
             part=part,
@@ -394,7 +394,7 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
             current = round(measured * 1e-6 * 2 * np.pi * FREQUENCY_HZ * cap_v, 4) if in_circuit else None
             readings.append(
                 Reading(
-                    installation=installation,
+                    fitted_capacitor=fitted_capacitor,
                     taken_at=taken_at,
                     taken_by=technician,
                     method=Reading.Method.IN_CIRCUIT if in_circuit else Reading.Method.METER,
@@ -411,11 +411,11 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
                 break
         if removed is None:
             return readings
-        if removed < installation.fitted_on:
-            removed = installation.fitted_on
-        readings = [r for r in readings if r.installation_id != installation.id or r.taken_at.date() <= removed]
-        installation.removed_on, installation.removal_reason = removed, reason
-        installation.save(update_fields=["removed_on", "removal_reason"])
+        if removed < fitted_capacitor.fitted_on:
+            removed = fitted_capacitor.fitted_on
+        readings = [r for r in readings if r.fitted_capacitor_id != fitted_capacitor.id or r.taken_at.date() <= removed]
+        fitted_capacitor.removed_on, fitted_capacitor.removal_reason = removed, reason
+        fitted_capacitor.save(update_fields=["removed_on", "removal_reason"])
         fitted_on = removed
 
 
@@ -437,7 +437,7 @@ def build_assessment_history(*, weeks: int = HISTORY_WEEKS, now: dt.datetime | N
     for week in range(weeks, 0, -1):
         then = now - dt.timedelta(days=7 * week + 1)
         started = timezone.now()
-        written += refit_installations(ids, now=then, as_of=True).written
+        written += refit_fitted_capacitors(ids, now=then, as_of=True).written
         Assessment.objects.filter(created_at__gte=started).update(created_at=then)
     return written
 
@@ -456,7 +456,7 @@ def build_work_orders(*, today: dt.date | None = None) -> dict:
         [
             WorkOrder(
                 motor=c.motor,
-                installation=c,
+                fitted_capacitor=c,
                 kind=KIND_FOR_ROLE[c.role],
                 due_on=c.removed_on,
                 state=WorkOrder.State.DONE,
@@ -477,10 +477,10 @@ def build_work_orders(*, today: dt.date | None = None) -> dict:
         issued += issue_visit(site_id=site_id, due_on=visit["day"], user=planner)
     under_way = next(iter(first_visits.values()), None)
     if under_way is not None:
-        order = next(o for o in under_way["orders"] if o.installation_id)
+        order = next(o for o in under_way["orders"] if o.fitted_capacitor_id)
         replace_capacitor(
-            installation=order.installation,
-            part=order.installation.part,
+            fitted_capacitor=order.fitted_capacitor,
+            part=order.fitted_capacitor.part,
             removed_on=today,
             reason=FittedCapacitor.RemovalReason.PLANNED,
             user=technician,

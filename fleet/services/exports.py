@@ -30,7 +30,7 @@ def _capacitor_place(path: str) -> dict[str, Column]:
     return {
         column.name: column
         for column in (
-            Column("installation_id", INT, description="Fitted capacitor id", source=f"{path}id"),
+            Column("fitted_capacitor_id", INT, description="Fitted capacitor id", source=f"{path}id"),
             Column("site", description="Site code", source=f"{path}motor__site__code"),
             Column("asset_tag", description="Motor asset tag", source=f"{path}motor__asset_tag"),
             Column("location", description="Where the motor is", source=f"{path}motor__location"),
@@ -41,7 +41,7 @@ def _capacitor_place(path: str) -> dict[str, Column]:
     }
 
 
-PLACE = _capacitor_place("installation__")
+PLACE = _capacitor_place("fitted_capacitor__")
 MEASURED = {  # Reading.MEASURED_FIELDS: unit and meaning
     "capacitance_uf": (FLOAT, "uF", "Capacitance as measured (not referred to 25 C)"),
     "capacitor_current_a": (FLOAT, "A", "Capacitor current (in circuit)"),
@@ -56,7 +56,7 @@ MEASURED = {  # Reading.MEASURED_FIELDS: unit and meaning
 }
 READING_COLUMNS = [
     Column("reading_id", INT, description="Reading id", source="id"),
-    *(PLACE[name] for name in ("site", "asset_tag", "installation_id", "role", "part_code")),
+    *(PLACE[name] for name in ("site", "asset_tag", "fitted_capacitor_id", "role", "part_code")),
     Column("taken_at", DATETIME, "UTC", "When the reading was taken", source="taken_at"),
     Column("method", description="meter (isolated) or in_circuit (current and voltage)", source="method"),
     *(Column(name, *MEASURED[name], source=name) for name in Reading.MEASURED_FIELDS),
@@ -117,7 +117,10 @@ JUDGED = {  # an assessment's judgement, by the names the assessment export give
     )
 }
 ASSESSMENT_COLUMNS = [
-    *(PLACE[name] for name in ("installation_id", "site", "asset_tag", "location", "role", "part_code", "rated_uf")),
+    *(
+        PLACE[name]
+        for name in ("fitted_capacitor_id", "site", "asset_tag", "location", "role", "part_code", "rated_uf")
+    ),
     *(JUDGED[name] for name in ("risk", "replace_by", "reason")),
     Column("set_aside", description="Why no forecast could be made, if none", source="set_aside"),
     *(JUDGED[name] for name in list(JUDGED)[3:]),
@@ -168,10 +171,10 @@ def _limit_cells(limits: list[dict]) -> list:
 def assessments_table(query, user, request=None) -> Table:
     """Current assessments of capacitors in service at the user's sites, filtered as the API's
     list (site, risk, replace_by_before), soonest replacement first, each limit's dates in columns."""
-    current = Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
+    current = Assessment.objects.filter(is_current=True, fitted_capacitor__removed_on__isnull=True)
     assessments = filtered(AssessmentFilter, query, scope_to_user(current, user), request)
     with_limits = [*ASSESSMENT_COLUMNS, Column("limits", source="limits")]
-    rows = _rows(assessments.order_by("replace_by", "installation_id"), with_limits)
+    rows = _rows(assessments.order_by("replace_by", "fitted_capacitor_id"), with_limits)
     return Table(
         "current assessments",
         ASSESSMENT_COLUMNS + LIMIT_COLUMNS,
@@ -182,7 +185,7 @@ def assessments_table(query, user, request=None) -> Table:
 
 LIFE_PLACE = _capacitor_place("")
 LIFE_COLUMNS = [
-    *(LIFE_PLACE[name] for name in ("part_code", "installation_id", "site", "asset_tag", "role")),
+    *(LIFE_PLACE[name] for name in ("part_code", "fitted_capacitor_id", "site", "asset_tag", "role")),
     Column("fitted_on", DATE, description="Date fitted", source="fitted_on"),
     Column("removed_on", DATE, description="Date removed; empty while in service", source="removed_on"),
     Column("removal_reason", description="failed, planned or other; empty while in service", source="removal_reason"),

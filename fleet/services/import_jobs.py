@@ -19,9 +19,10 @@ from django.conf import settings
 from django.db import DatabaseError, connection, transaction
 from django.utils import timezone
 
-from fleet import import_kinds, imports
 from fleet.exports import csv_bytes
+from fleet.imports import columns, files
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
+from fleet.services import import_checks
 
 from .readings import enqueue_refit
 
@@ -46,60 +47,65 @@ def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
 
 
 def _write_readings(good, user):
-    touched = imports.insert_readings(good, user)
+    touched = import_checks.insert_readings(good, user)
     transaction.on_commit(lambda: enqueue_refit(touched))
 
 
 def _write_register(good, user):
-    motor_ids = imports.insert_register(good)
+    motor_ids = import_checks.insert_register(good)
     transaction.on_commit(lambda: _estimate_later(motor_ids))
 
 
 def _write_history(good, user):
-    installation_ids = import_kinds.insert_history(good)
-    transaction.on_commit(lambda: enqueue_refit(installation_ids))
+    fitted_capacitor_ids = import_checks.insert_history(good)
+    transaction.on_commit(lambda: enqueue_refit(fitted_capacitor_ids))
 
 
 KINDS = {
     ImportJob.Kind.SITES: Kind(
-        import_kinds.SITE_COLUMNS,
-        import_kinds.SITE_REQUIRED,
-        import_kinds.check_sites,
-        lambda good, user: import_kinds.insert_sites(good),
+        columns.SITE_COLUMNS,
+        columns.SITE_REQUIRED,
+        import_checks.check_sites,
+        lambda good, user: import_checks.insert_sites(good),
         _max_lengths(Site, {"code": "code", "name": "name", "time_zone": "time_zone"}),
     ),
     ImportJob.Kind.PARTS: Kind(
-        import_kinds.PART_COLUMNS,
-        import_kinds.PART_REQUIRED,
-        import_kinds.check_parts,
-        lambda good, user: import_kinds.insert_parts(good),
+        columns.PART_COLUMNS,
+        columns.PART_REQUIRED,
+        import_checks.check_parts,
+        lambda good, user: import_checks.insert_parts(good),
         _max_lengths(CapacitorPart, {"code": "code", "description": "description", "duty": "duty"}),
     ),
     ImportJob.Kind.REGISTER: Kind(
-        imports.REGISTER_COLUMNS,
-        imports.REGISTER_REQUIRED,
-        imports.check_register,
+        columns.REGISTER_COLUMNS,
+        columns.REGISTER_REQUIRED,
+        import_checks.check_register,
         _write_register,
         _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location"}),
         "site_code",
     ),
     ImportJob.Kind.HISTORY: Kind(
-        import_kinds.HISTORY_COLUMNS,
-        import_kinds.HISTORY_REQUIRED,
-        import_kinds.check_history,
+        columns.HISTORY_COLUMNS,
+        columns.HISTORY_REQUIRED,
+        import_checks.check_history,
         _write_history,
         _max_lengths(FittedCapacitor, {"serial": "serial"}),
         "asset_tag",
     ),
     ImportJob.Kind.READINGS: Kind(
-        imports.READING_COLUMNS, imports.READING_REQUIRED, imports.check_readings, _write_readings, {}, "asset_tag"
+        columns.READING_COLUMNS,
+        columns.READING_REQUIRED,
+        import_checks.check_readings,
+        _write_readings,
+        {},
+        "asset_tag",
     ),
 }
 
 
 @dataclass
 class Outcome:
-    result: imports.CheckResult
+    result: columns.CheckResult
     header: list[str]
     rows: list[list[str]]
     imported: int = 0
@@ -116,20 +122,20 @@ def check_file(
     sites outside the sites `user` works at are refused (None: a command, every site).
     """
     spec = KINDS[kind]
-    header, rows = imports.read_table(content, filename)
-    mapping = mapping or imports.suggest_mapping(header, spec.columns)
+    header, rows = files.read_table(content, filename)
+    mapping = mapping or columns.suggest_mapping(header, spec.columns)
     missing = [name for name in spec.required if mapping.get(name) not in header]
     if missing:
-        raise imports.FileRefused(
+        raise files.FileRefused(
             "No column holds the required field" + ("s " if len(missing) > 1 else " ") + ", ".join(missing) + ": "
             "name the headings as documented, or match the columns by hand on the import page."
         )
     if on_progress:
         on_progress(0, len(rows))
-    frame = imports.mapped_frame(header, rows, mapping, spec.columns)
-    unstorable = imports.text_problems(frame, spec.max_lengths)
+    frame = columns.mapped_frame(header, rows, mapping, spec.columns)
+    unstorable = columns.text_problems(frame, spec.max_lengths)
     storable = frame[~unstorable.bad].reset_index(drop=True)
-    elsewhere = imports.outside_sites(storable, user, spec.site_column)
+    elsewhere = import_checks.outside_sites(storable, user, spec.site_column)
     result = spec.check(
         storable[~elsewhere.bad].reset_index(drop=True),
         on_progress=(lambda done: on_progress(done, len(rows))) if on_progress else None,
@@ -257,14 +263,14 @@ def _progress(job_id: int):
     return report
 
 
-def _summary(result: imports.CheckResult) -> dict:
+def _summary(result: columns.CheckResult) -> dict:
     return dict(
         total_rows=result.total,
         done_rows=result.total,
         good_rows=len(result.good),
         duplicate_rows=result.duplicates,
         error_rows=result.error_rows,
-        errors=[list(e) for e in result.errors[: imports.MAX_REPORTED_ERRORS]],
+        errors=[list(e) for e in result.errors[: columns.MAX_REPORTED_ERRORS]],
     )
 
 
@@ -277,7 +283,7 @@ def _guarded(step: Callable[[ImportJob], None]) -> Callable[[int], ImportJob | N
             return None
         try:
             step(job, *args)
-        except imports.FileRefused as error:
+        except files.FileRefused as error:
             _update(job.pk, state=ImportJob.State.REFUSED, message=str(error))
         except Exception as error:  # noqa: BLE001 - whatever happens, the job must not stay in progress
             log.exception("import job %s (%s, %s) failed", job.pk, job.kind, job.filename)
@@ -302,12 +308,12 @@ def _mark_failed(job_id: int, error: Exception) -> None:
 def _read(job: ImportJob) -> None:
     """Read the file within the limits; keep its headings and propose a mapping by name."""
     _update(job.pk, state=ImportJob.State.RECEIVED, message="")
-    header, rows = imports.read_table(bytes(job.content), job.filename)
+    header, rows = files.read_table(bytes(job.content), job.filename)
     _update(
         job.pk,
         state=ImportJob.State.UPLOADED,
         columns=header,
-        mapping=imports.suggest_mapping(header, KINDS[job.kind].columns),
+        mapping=columns.suggest_mapping(header, KINDS[job.kind].columns),
         total_rows=len(rows),
     )
 

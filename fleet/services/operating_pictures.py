@@ -13,7 +13,7 @@ from fleet.charts import capacitance_sweep_figure, phasor_figure
 from fleet.engineering.drift import ROLE_RUN, capacitor_sweep, limit_levels
 
 from .assessments import motor_circuits
-from .selectors import installations_frame
+from .selectors import fitted_capacitors_frame
 
 QUANTITIES = ("starting_torque_nm", "capacitor_voltage_v", "main_current_a")  # as in LimitLevels
 SWEEP_FRACTIONS = np.linspace(0.5, 1.1, 25)  # 50 % to 110 % of rated, 2.5 % steps
@@ -47,12 +47,12 @@ def motor_pictures(capacitors) -> dict[int, dict]:
     capacitors = list(capacitors)
     if not capacitors:
         return {}
-    inst = installations_frame([c.id for c in capacitors])
+    inst = fitted_capacitors_frame([c.id for c in capacitors])
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     if not with_circuit.all():
         return {}
     by_id = {c.id: c for c in capacitors}
-    ordered = [by_id[int(i)] for i in inst["installation_id"]]
+    ordered = [by_id[int(i)] for i in inst["fitted_capacitor_id"]]
     rated_uf = inst["rated_uf"].to_numpy(float)
     now_uf = np.array([c.assessment.capacitance_now_uf if c.assessment else np.nan for c in ordered])
     now_fraction = now_uf / rated_uf

@@ -81,27 +81,27 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     return None, matches[:FIND_LIMIT], len(matches)
 
 
-def recent_readings(installation: FittedCapacitor, count: int = RECENT_READINGS):
+def recent_readings(fitted_capacitor: FittedCapacitor, count: int = RECENT_READINGS):
     return list(
-        Reading.objects.filter(installation=installation)
+        Reading.objects.filter(fitted_capacitor=fitted_capacitor)
         .select_related("taken_by", "supersedes", "superseded_by")
         .order_by("-taken_at", "-id")[:count]
     )
 
 
-def stress_hours_of_readings(installation: FittedCapacitor, readings) -> np.ndarray:
+def stress_hours_of_readings(fitted_capacitor: FittedCapacitor, readings) -> np.ndarray:
     """Stress hours at each of one capacitor's readings (a frame of its readings in time order
     with taken_at, case_temperature_c, capacitor_voltage_v), as its fit computed them."""
     frame = pd.DataFrame(readings).astype({"case_temperature_c": float, "capacitor_voltage_v": float})
     frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
     return reading_stress_hours(
         np.zeros(len(frame), np.int64),
-        _hours_since_fitting(frame, np.full(len(frame), np.datetime64(installation.fitted_on))),
+        _hours_since_fitting(frame, np.full(len(frame), np.datetime64(fitted_capacitor.fitted_on))),
         frame["case_temperature_c"].to_numpy(float),
         frame["capacitor_voltage_v"].to_numpy(float),
-        [installation.part.rated_voltage_v],
+        [fitted_capacitor.part.rated_voltage_v],
         1,
-        part_voltage_ratio=_stored_voltage_ratio(installation.part_id),
+        part_voltage_ratio=_stored_voltage_ratio(fitted_capacitor.part_id),
     )
 
 
@@ -111,7 +111,9 @@ def _stored_voltage_ratio(part_id: int) -> float:
     return np.nan if ratio is None else float(ratio)
 
 
-def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730) -> dict | None:
+def trend_chart(
+    fitted_capacitor: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730
+) -> dict | None:
     """Figure of readings, the stored fitted path and its band, drawn from stored numbers.
 
     The stress hours at each reading are recomputed from the readings the fit saw (one
@@ -119,20 +121,20 @@ def trend_chart(installation: FittedCapacitor, assessment: Assessment | None, ho
     """
     if assessment is None or not assessment.has_trend:
         return None
-    rated = installation.part.rated_uf
+    rated = fitted_capacitor.part.rated_uf
     readings = list(
-        Reading.objects.filter(installation=installation, id__lte=assessment.max_reading_id)
+        Reading.objects.filter(fitted_capacitor=fitted_capacitor, id__lte=assessment.max_reading_id)
         .order_by("taken_at", "id")
         .values("id", "taken_at", "capacitance_uf", "case_temperature_c", "capacitor_voltage_v")
     )
     if not readings:
         return None
     frame = pd.DataFrame.from_records(readings)
-    reading_taus = stress_hours_of_readings(installation, frame)
+    reading_taus = stress_hours_of_readings(fitted_capacitor, frame)
     corrected = normalise_to_25c(
         frame["capacitance_uf"].to_numpy(float),
         frame["case_temperature_c"].to_numpy(float),
-        default_tempco_ppm_per_k(installation.part.dielectric)
+        default_tempco_ppm_per_k(fitted_capacitor.part.dielectric)
         if assessment.tempco_ppm_per_k is None
         else assessment.tempco_ppm_per_k,
     )
@@ -200,8 +202,8 @@ def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None
         in_service_assessments(user)
         .filter(replace_by__lte=until)
         .defer(*LIST_DEFERRED)
-        .select_related("installation__motor__site", "installation__part")
-        .order_by("replace_by", "installation__motor__site__code", "installation__motor__route_order")
+        .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
+        .order_by("replace_by", "fitted_capacitor__motor__site__code", "fitted_capacitor__motor__route_order")
     )
     if site is not None:
         queryset = queryset.filter(site=site)
@@ -243,15 +245,15 @@ def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime |
         better=Count("id", filter=~Q(risk_was="") & Q(rank_now__gt=F("rank_was"))),
         first_assessed=Count("id", filter=Q(risk_was="")),
     )
-    changed = ranked.exclude(risk_was="").order_by("replace_by", "installation_id")
+    changed = ranked.exclude(risk_was="").order_by("replace_by", "fitted_capacitor_id")
 
     def listed(direction):
         first = changed.filter(direction).values("id")[:limit]
         return (
             Assessment.objects.filter(id__in=Subquery(first))
             .defer(*LIST_DEFERRED)
-            .select_related("installation__motor__site", "installation__part")
-            .order_by("replace_by", "installation_id")
+            .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
+            .order_by("replace_by", "fitted_capacitor_id")
         )
 
     return listed(Q(rank_now__lt=F("rank_was"))), listed(Q(rank_now__gt=F("rank_was"))), counts

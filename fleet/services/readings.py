@@ -25,7 +25,7 @@ class NeedsConfirmation(ValidationError):
     """The reading is far off the capacitor's trend, or a voltage far above the motor's: confirm or re-measure."""
 
 
-def enqueue_refit(installation_ids: list[int]) -> None:
+def enqueue_refit(fitted_capacitor_ids: list[int]) -> None:
     """Queue refits in chunks (one bulk refit per chunk, not one task per capacitor).
 
     Capacitors whose refit already waits in the queue are left out (claim_refits
@@ -36,15 +36,17 @@ def enqueue_refit(installation_ids: list[int]) -> None:
     from fleet.tasks import QUEUE_ERRORS, QueueUnreachable, claim_refits, refit_capacitors, release_refits
 
     try:
-        installation_ids = claim_refits(installation_ids)
+        fitted_capacitor_ids = claim_refits(fitted_capacitor_ids)
     except QueueUnreachable as error:
         log.warning(
-            "refit of %d capacitors not queued (%s); the stale sweep will pick them up", len(installation_ids), error
+            "refit of %d capacitors not queued (%s); the stale sweep will pick them up",
+            len(fitted_capacitor_ids),
+            error,
         )
         return
     size = settings.FLEET_REFIT_CHUNK_SIZE
-    for start in range(0, len(installation_ids), size):
-        chunk = list(installation_ids[start : start + size])
+    for start in range(0, len(fitted_capacitor_ids), size):
+        chunk = list(fitted_capacitor_ids[start : start + size])
         try:
             refit_capacitors.delay(chunk)
         except QUEUE_ERRORS as error:
@@ -64,7 +66,7 @@ def _sentence(message: str) -> str:
     return message[:1].upper() + message[1:]
 
 
-def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:
+def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:
     """Validate and complete one reading's values with the rulebook; raises ValidationError by field.
 
     Values come as typed or sent (text, numbers or None). In-circuit readings get their
@@ -72,10 +74,10 @@ def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: boo
     the motor's raises NeedsConfirmation unless `confirmed`; the database's constraints
     are checked last, so they too come back by field.
     """
-    part, motor = installation.part, installation.motor
+    part, motor = fitted_capacitor.part, fitted_capacitor.motor
     now = timezone.now()
     taken_at = values.get("taken_at") or now
-    assessment = Assessment.objects.filter(installation=installation, is_current=True).first()
+    assessment = Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True).first()
     result = check_readings(
         {name: [values.get(name)] for name in Reading.MEASURED_FIELDS},
         method=[values.get("method")],
@@ -85,17 +87,17 @@ def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: boo
         frequency_hz=motor.frequency_hz,
         motor_voltage_v=motor.rated_voltage_v,
         full_load_current_a=motor.full_load_current_a,
-        fitted_on=np.datetime64(installation.fitted_on, "D"),
-        removed_on=np.datetime64(installation.removed_on or "NaT", "D"),
+        fitted_on=np.datetime64(fitted_capacitor.fitted_on, "D"),
+        removed_on=np.datetime64(fitted_capacitor.removed_on or "NaT", "D"),
         taken_at=_utc64(taken_at),
         now=_utc64(now),
         predicted_uf=assessment.capacitance_now_uf if assessment else np.nan,
         confirmed=confirmed,
     )
     errors = {name: _sentence(message) for name, message in result.row(0).items()}
-    if installation.removed_on is not None:
-        errors["installation"] = (
-            f"This capacitor was removed on {installation.removed_on}; log the reading on the one fitted now."
+    if fitted_capacitor.removed_on is not None:
+        errors["fitted_capacitor"] = (
+            f"This capacitor was removed on {fitted_capacitor.removed_on}; log the reading on the one fitted now."
         )
     if errors:
         raise ValidationError(errors)
@@ -112,7 +114,7 @@ def check_reading(installation: FittedCapacitor, values: dict, *, confirmed: boo
         notes=str(result.values["notes"][0]),
         taken_at=taken_at,
     )
-    broken = constraint_errors(Reading(installation=installation, **checked))
+    broken = constraint_errors(Reading(fitted_capacitor=fitted_capacitor, **checked))
     if broken:
         raise ValidationError(broken)
     return checked
@@ -124,7 +126,7 @@ def _client_key(user, key: str) -> str:
     return hashlib.sha256(f"{owner}|{key}".encode()).hexdigest()[:40]
 
 
-def reading_to_correct(installation: FittedCapacitor, reading_id: int | str | None) -> Reading | None:
+def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str | None) -> Reading | None:
     """The reading a correction replaces: one of this capacitor's, not corrected already.
 
     A reading corrected before is refused with the id of its correction, so a chain of
@@ -136,7 +138,9 @@ def reading_to_correct(installation: FittedCapacitor, reading_id: int | str | No
         reading_id = int(reading_id)
     except ValueError:
         raise ValidationError({"supersedes": f"{str(reading_id)[:20]!r} is not a reading number."}) from None
-    reading = Reading.objects.filter(installation=installation, pk=reading_id).select_related("superseded_by").first()
+    reading = (
+        Reading.objects.filter(fitted_capacitor=fitted_capacitor, pk=reading_id).select_related("superseded_by").first()
+    )
     if reading is None:
         raise ValidationError({"supersedes": f"Reading {reading_id} is not a reading of this capacitor."})
     later = getattr(reading, "superseded_by", None)
@@ -152,7 +156,7 @@ def reading_to_correct(installation: FittedCapacitor, reading_id: int | str | No
 
 def record_reading(
     *,
-    installation: FittedCapacitor,
+    fitted_capacitor: FittedCapacitor,
     values: dict,
     user=None,
     supersedes_id: int | str | None = None,
@@ -170,20 +174,20 @@ def record_reading(
     """
     stored_key = _client_key(user, client_key) if client_key else None
     if stored_key:
-        earlier = _earlier_submission(installation, stored_key, values)
+        earlier = _earlier_submission(fitted_capacitor, stored_key, values)
         if earlier is not None:
             return earlier
-    earlier = _correction_sent_before(installation, supersedes_id, values, user)
+    earlier = _correction_sent_before(fitted_capacitor, supersedes_id, values, user)
     if earlier is not None:
         return earlier
-    supersedes = reading_to_correct(installation, supersedes_id)
+    supersedes = reading_to_correct(fitted_capacitor, supersedes_id)
     if supersedes is not None and not values.get("taken_at"):
         values = {**values, "taken_at": supersedes.taken_at}
-    checked = check_reading(installation, values, confirmed=confirmed)
+    checked = check_reading(fitted_capacitor, values, confirmed=confirmed)
     try:
         with transaction.atomic():
             reading = Reading.objects.create(
-                installation=installation,
+                fitted_capacitor=fitted_capacitor,
                 taken_by=user if user is not None and user.is_authenticated else None,
                 supersedes=supersedes,
                 outlier_confirmed=confirmed,
@@ -191,25 +195,25 @@ def record_reading(
                 client_key=stored_key,
                 **checked,
             )
-            transaction.on_commit(lambda: enqueue_refit([installation.id]))
+            transaction.on_commit(lambda: enqueue_refit([fitted_capacitor.id]))
     except IntegrityError:
-        earlier = _earlier_submission(installation, stored_key, values) if stored_key else None
-        earlier = earlier or _correction_sent_before(installation, supersedes_id, values, user)
+        earlier = _earlier_submission(fitted_capacitor, stored_key, values) if stored_key else None
+        earlier = earlier or _correction_sent_before(fitted_capacitor, supersedes_id, values, user)
         if earlier is not None:
             return earlier
-        reading_to_correct(installation, supersedes_id)  # corrected meanwhile by someone else: says so by field
+        reading_to_correct(fitted_capacitor, supersedes_id)  # corrected meanwhile by someone else: says so by field
         raise
     reading.replayed = False
     return reading
 
 
-def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: dict) -> Reading | None:
+def _earlier_submission(fitted_capacitor: FittedCapacitor, stored_key: str, values: dict) -> Reading | None:
     """The reading saved under this key before, if the values are the same; a key sent again
     with other values is refused by name, so nothing typed is silently dropped."""
     earlier = Reading.objects.filter(client_key=stored_key).first()
     if earlier is None:
         return None
-    if earlier.installation_id != installation.id:
+    if earlier.fitted_capacitor_id != fitted_capacitor.id:
         raise ValidationError({"client_key": "This key was already used for a reading of another capacitor."})
     if not _same_values(earlier, values):
         raise ValidationError(
@@ -223,7 +227,7 @@ def _earlier_submission(installation: FittedCapacitor, stored_key: str, values: 
     return earlier
 
 
-def _correction_sent_before(installation: FittedCapacitor, supersedes_id, values: dict, user) -> Reading | None:
+def _correction_sent_before(fitted_capacitor: FittedCapacitor, supersedes_id, values: dict, user) -> Reading | None:
     """The correction this user stored already for that reading, if it is the one sent now (the same
     correction sent twice, with or without a key): it comes back with `replayed = True`, as a reading
     can be corrected once. Any other correction is left to `reading_to_correct` to refuse by name."""
@@ -233,7 +237,7 @@ def _correction_sent_before(installation: FittedCapacitor, supersedes_id, values
         corrected_id = int(supersedes_id)
     except (TypeError, ValueError):
         return None
-    earlier = Reading.objects.filter(installation=installation, supersedes_id=corrected_id).first()
+    earlier = Reading.objects.filter(fitted_capacitor=fitted_capacitor, supersedes_id=corrected_id).first()
     owner = user.pk if user is not None and user.is_authenticated else None
     same = (
         earlier is not None
@@ -260,7 +264,7 @@ def _same_values(reading: Reading, values: dict) -> bool:
 
 def replace_capacitor(
     *,
-    installation: FittedCapacitor,
+    fitted_capacitor: FittedCapacitor,
     part,
     removed_on: dt.date,
     reason: str,
@@ -281,8 +285,8 @@ def replace_capacitor(
     (a double tap, two copies at once) returns the successor fitted the first time, `replayed`.
     """
     override_reason = (override_reason or "").strip()
-    if part.pk != design_part(installation).pk:
-        advice = verdict_of_part(installation, part)
+    if part.pk != design_part(fitted_capacitor).pk:
+        advice = verdict_of_part(fitted_capacitor, part)
         if advice["verdict"] != SUITABLE and not substitute_override:
             raise ValidationError(
                 {
@@ -294,16 +298,16 @@ def replace_capacitor(
     if substitute_override and not override_reason:
         raise ValidationError({"override_reason": "Say why this part is fitted against the advice."})
     sent = {"part": part, "serial": serial, "notes": notes, "removed_on": removed_on, "reason": reason}
-    if installation.removed_on is not None:
-        return _replacement_sent_before(installation, **sent)
-    if removed_on < installation.fitted_on:
-        raise ValidationError({"removed_on": f"Removal date is before the fitting date {installation.fitted_on}."})
+    if fitted_capacitor.removed_on is not None:
+        return _replacement_sent_before(fitted_capacitor, **sent)
+    if removed_on < fitted_capacitor.fitted_on:
+        raise ValidationError({"removed_on": f"Removal date is before the fitting date {fitted_capacitor.fitted_on}."})
     if removed_on > timezone.localdate():
         raise ValidationError({"removed_on": "The removal date is in the future."})
     if reason not in FittedCapacitor.RemovalReason.values:
         raise ValidationError({"removal_reason": "Choose why the capacitor was removed."})
     with transaction.atomic():
-        locked = FittedCapacitor.objects.select_for_update().get(pk=installation.pk)
+        locked = FittedCapacitor.objects.select_for_update().get(pk=fitted_capacitor.pk)
         if locked.removed_on is not None:  # replaced meanwhile (the same form sent twice at once?)
             return _replacement_sent_before(locked, **sent)
         locked.removed_on, locked.removal_reason = removed_on, reason
@@ -322,12 +326,14 @@ def replace_capacitor(
         successor.stock_left, successor.from_stock = _take_from_stock(site_id=locked.motor.site_id, part=part)
         successor.replayed = False
         audited_update(
-            WorkOrder.objects.filter(installation=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]),
+            WorkOrder.objects.filter(
+                fitted_capacitor=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
+            ),
             state=WorkOrder.State.DONE,
             closed_at=timezone.now(),
             closed_by=user if user and user.is_authenticated else None,
         )
-    installation.refresh_from_db()
+    fitted_capacitor.refresh_from_db()
     return successor
 
 
@@ -349,7 +355,7 @@ def _replacement_sent_before(
         and (successor.part_id, successor.serial, successor.notes) == (part.pk, serial, notes)
     )
     if not same:
-        raise ValidationError({"installation": f"This capacitor was already removed on {removed.removed_on}."})
+        raise ValidationError({"fitted_capacitor": f"This capacitor was already removed on {removed.removed_on}."})
     successor.replayed, successor.stock_left, successor.from_stock = True, None, False
     return successor
 

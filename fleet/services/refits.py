@@ -11,7 +11,7 @@ from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading, RefitChunk, RefitRun
 
-from .assessments import refit_installations, refresh_part_priors
+from .assessments import refit_fitted_capacitors, refresh_part_priors
 
 QUEUE_DOWN = (
     "The task queue is unreachable ({error}), so the fleet refit did not start. Every reading is saved: once the "
@@ -63,7 +63,7 @@ def start_fleet_refit(
     refresh_part_priors()
     ids = list(
         FittedCapacitor.objects.filter(removed_on__isnull=True)
-        .filter(Exists(Reading.objects.filter(installation=OuterRef("pk"))))
+        .filter(Exists(Reading.objects.filter(fitted_capacitor=OuterRef("pk"))))
         .order_by("id")
         .values_list("id", flat=True)
     )
@@ -86,25 +86,27 @@ def start_fleet_refit(
     return RefitRun.objects.get(id=run_id)
 
 
-def refit_chunk(run_id: int, number: int, installation_ids: list[int], force: bool = False) -> None:
+def refit_chunk(run_id: int, number: int, fitted_capacitor_ids: list[int], force: bool = False) -> None:
     """One chunk: refit (idempotent unless forced), then record it once.
 
     The chunk's row is unique by (run, number); the run's counts move only when
     that row is new, in the same transaction, so a chunk delivered again after
     its worker died (acks_late) refits nothing new and counts nothing twice.
     """
-    outcome = refit_installations(installation_ids, force=force)
+    outcome = refit_fitted_capacitors(fitted_capacitor_ids, force=force)
     now = timezone.now()
     with transaction.atomic():
         if not list(RefitRun.objects.select_for_update().filter(id=run_id).values_list("id", flat=True)):
             return  # the run was deleted while its chunk waited
         _, new = RefitChunk.objects.get_or_create(
-            run_id=run_id, number=number, defaults={"capacitors": len(installation_ids), "readings": outcome.readings}
+            run_id=run_id,
+            number=number,
+            defaults={"capacitors": len(fitted_capacitor_ids), "readings": outcome.readings},
         )
         if not new:
             return
         RefitRun.objects.filter(id=run_id).update(
-            done=F("done") + len(installation_ids), readings=F("readings") + outcome.readings, progress_at=now
+            done=F("done") + len(fitted_capacitor_ids), readings=F("readings") + outcome.readings, progress_at=now
         )
         RefitRun.objects.filter(id=run_id, done__gte=F("total")).exclude(state=RefitRun.State.DONE).update(
             state=RefitRun.State.DONE, finished_at=now, message=""
@@ -140,14 +142,14 @@ def recent_runs(count: int = 10) -> list[RefitRun]:
     return list(RefitRun.objects.order_by("-started_at")[:count])
 
 
-def stale_installations():
+def stale_fitted_capacitors():
     """Capacitors in service with a reading added after their assessment was fitted.
 
     Two correlated subqueries on indexed columns (reading id, current
     assessment), not an aggregate over readings x assessment history.
     """
-    newest = Reading.objects.filter(installation=OuterRef("pk")).order_by("-id").values("id")[:1]
-    assessed = Assessment.objects.filter(installation=OuterRef("pk"), is_current=True).values("max_reading_id")[:1]
+    newest = Reading.objects.filter(fitted_capacitor=OuterRef("pk")).order_by("-id").values("id")[:1]
+    assessed = Assessment.objects.filter(fitted_capacitor=OuterRef("pk"), is_current=True).values("max_reading_id")[:1]
     return (
         FittedCapacitor.objects.filter(removed_on__isnull=True)
         .annotate(newest=Subquery(newest), assessed=Subquery(assessed))
@@ -170,21 +172,21 @@ def stale_count() -> int:
         .values_list("started_at", flat=True)
         .first()
     )
-    stale = stale_installations()
+    stale = stale_fitted_capacitors()
     if finished is not None:
         read_since = Reading.objects.filter(created_at__gte=finished - dt.timedelta(hours=1))
-        stale = stale.filter(id__in=read_since.values("installation_id"))
+        stale = stale.filter(id__in=read_since.values("fitted_capacitor_id"))
     return stale.count()
 
 
-def stale_installation_ids(limit: int = 5000) -> list[int]:
-    return list(stale_installations().order_by("id").values_list("id", flat=True)[:limit])
+def stale_fitted_capacitor_ids(limit: int = 5000) -> list[int]:
+    return list(stale_fitted_capacitors().order_by("id").values_list("id", flat=True)[:limit])
 
 
 def sweep_stale(limit: int = 5000) -> int:
     """Refit what a lost task left stale (the broker was down when it was saved); mark lost runs abandoned."""
     mark_abandoned_runs()
-    ids = stale_installation_ids(limit)
+    ids = stale_fitted_capacitor_ids(limit)
     if ids:
-        refit_installations(ids)
+        refit_fitted_capacitors(ids)
     return len(ids)

@@ -21,8 +21,8 @@ CIRCUIT_FIELDS = [
     "rotational_loss_w",
 ]
 
-INSTALLATION_COLUMNS = {
-    "id": "installation_id",
+FITTED_CAPACITOR_COLUMNS = {
+    "id": "fitted_capacitor_id",
     "role": "role",
     "fitted_on": "fitted_on",
     "part_id": "part_id",
@@ -47,17 +47,17 @@ INSTALLATION_COLUMNS = {
 }
 
 
-def installations_frame(installation_ids) -> pd.DataFrame:
+def fitted_capacitors_frame(fitted_capacitor_ids) -> pd.DataFrame:
     """Fitted capacitors with their part and motor, one row each (one query)."""
     rows = (
-        FittedCapacitor.objects.filter(id__any_of=np.fromiter(installation_ids, np.int64))
+        FittedCapacitor.objects.filter(id__any_of=np.fromiter(fitted_capacitor_ids, np.int64))
         .order_by()  # sorted below: the model's own order would sort by the motors' tags
-        .values_list(*INSTALLATION_COLUMNS)
+        .values_list(*FITTED_CAPACITOR_COLUMNS)
     )
-    frame = pd.DataFrame.from_records(list(rows), columns=list(INSTALLATION_COLUMNS.values()))
+    frame = pd.DataFrame.from_records(list(rows), columns=list(FITTED_CAPACITOR_COLUMNS.values()))
     for column in ("part_tempco_ppm_per_k", "max_dissipation_factor"):
         frame[column] = frame[column].astype(float)
-    return frame.sort_values("installation_id").reset_index(drop=True)
+    return frame.sort_values("fitted_capacitor_id").reset_index(drop=True)
 
 
 def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
@@ -80,7 +80,7 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
 
 READING_COLUMNS = [
     "id",
-    "installation_id",
+    "fitted_capacitor_id",
     "taken_at",
     "capacitance_uf",
     "case_temperature_c",
@@ -92,28 +92,28 @@ READING_COLUMNS = [
 
 
 READINGS_SQL = (
-    "SELECT id, installation_id, (EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint, capacitance_uf,"
+    "SELECT id, fitted_capacitor_id, (EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint, capacitance_uf,"
     " case_temperature_c, capacitor_voltage_v, esr_ohm, supersedes_id, condition"
-    " FROM fleet_reading WHERE installation_id BETWEEN %s AND %s AND installation_id = ANY(%s)"
+    " FROM fleet_reading WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY(%s)"
 )
 
 
-def readings_frame(installation_ids) -> pd.DataFrame:
+def readings_frame(fitted_capacitor_ids) -> pd.DataFrame:
     """Every reading of the given capacitors (one query, straight into arrays: COPY on PostgreSQL),
     with `taken_at` in UTC and a `superseded` column."""
-    ids = [int(i) for i in installation_ids]
+    ids = [int(i) for i in fitted_capacitor_ids]
     if on_postgresql():
         frame = select_frame(READINGS_SQL, [min(ids, default=0), max(ids, default=0), ids], READING_COLUMNS)
         frame["taken_at"] = pd.to_datetime(frame["taken_at"].astype(np.int64), unit="us", utc=True)
     else:
-        rows = Reading.objects.filter(installation_id__any_of=np.array(ids, np.int64)).values_list(*READING_COLUMNS)
+        rows = Reading.objects.filter(fitted_capacitor_id__any_of=np.array(ids, np.int64)).values_list(*READING_COLUMNS)
         frame = pd.DataFrame.from_records(list(rows), columns=READING_COLUMNS)
         frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
     superseded_ids = set(frame["supersedes_id"].dropna().astype(np.int64))
     frame["superseded"] = frame["id"].isin(superseded_ids)
     for column in ("capacitance_uf", "case_temperature_c", "capacitor_voltage_v", "esr_ohm"):
         frame[column] = frame[column].astype(float)
-    for column in ("id", "installation_id"):
+    for column in ("id", "fitted_capacitor_id"):
         frame[column] = frame[column].astype(np.int64)
     return frame
 
@@ -121,3 +121,16 @@ def readings_frame(installation_ids) -> pd.DataFrame:
 def part_priors_frame(part_ids) -> pd.DataFrame:
     rows = PartPrior.objects.filter(part_id__in=list(part_ids)).values()
     return pd.DataFrame.from_records(list(rows)).set_index("part_id") if rows else pd.DataFrame()
+
+
+def successor_of(fitted_capacitor) -> FittedCapacitor | None:
+    """The capacitor fitted now in a removed capacitor's position (None while it is in service)."""
+    if not fitted_capacitor.removed_on:
+        return None
+    return (
+        FittedCapacitor.objects.filter(
+            motor_id=fitted_capacitor.motor_id, role=fitted_capacitor.role, removed_on__isnull=True
+        )
+        .only("id", "fitted_on")
+        .first()
+    )

@@ -22,7 +22,7 @@ from fleet.engineering.substitutes import (
 from fleet.models import CapacitorPart, FittedCapacitor, SiteStock
 from fleet.roles import scope_to_user
 from fleet.services.assessments import motor_circuits
-from fleet.services.selectors import CIRCUIT_FIELDS, installations_frame
+from fleet.services.selectors import CIRCUIT_FIELDS, fitted_capacitors_frame
 
 PART_FIELDS = [
     "id",
@@ -83,32 +83,32 @@ def candidates_of(frame: pd.DataFrame) -> Candidates:
     )
 
 
-def design_part(installation: FittedCapacitor) -> CapacitorPart:
+def design_part(fitted_capacitor: FittedCapacitor) -> CapacitorPart:
     """The part this position was designed for: the newest capacitor at this motor and role fitted
     without an override, so a part fitted against the advice never becomes the next one's design."""
-    if not installation.substitute_override:
-        return installation.part
+    if not fitted_capacitor.substitute_override:
+        return fitted_capacitor.part
     earlier = (
         FittedCapacitor.objects.filter(
-            motor_id=installation.motor_id,
-            role=installation.role,
+            motor_id=fitted_capacitor.motor_id,
+            role=fitted_capacitor.role,
             substitute_override=False,
-            fitted_on__lte=installation.fitted_on,
+            fitted_on__lte=fitted_capacitor.fitted_on,
         )
-        .exclude(pk=installation.pk)
+        .exclude(pk=fitted_capacitor.pk)
         .select_related("part")
         .order_by("-fitted_on", "-id")
         .first()
     )
-    return earlier.part if earlier is not None else installation.part
+    return earlier.part if earlier is not None else fitted_capacitor.part
 
 
-def position_of(installation: FittedCapacitor) -> Position:
+def position_of(fitted_capacitor: FittedCapacitor) -> Position:
     """The position of a fitted capacitor: its motor's circuit and load (when it has one) and its design part."""
-    inst = installations_frame([installation.id])
+    inst = fitted_capacitors_frame([fitted_capacitor.id])
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     row = inst.iloc[0]
-    part = design_part(installation)
+    part = design_part(fitted_capacitor)
     has_circuit = bool(with_circuit[0])
     companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[0] if has_circuit else 0.0
     return Position(
@@ -144,7 +144,7 @@ def _figures(figures, index, position: Position) -> dict:
     return values
 
 
-def substitutes_for(installation: FittedCapacitor, *, codes: list[str] | None = None, pairs: bool = True) -> dict:
+def substitutes_for(fitted_capacitor: FittedCapacitor, *, codes: list[str] | None = None, pairs: bool = True) -> dict:
     """Every candidate (the catalogue, or `codes`) judged for this capacitor's position, suitable first.
 
     Returns {"design": figures with the design's own value, "lowest_uf", "has_circuit", "items": [...]},
@@ -152,12 +152,12 @@ def substitutes_for(installation: FittedCapacitor, *, codes: list[str] | None = 
     quantity on the motor's site (pairs: the smaller of their members' quantities).
     """
     frame = parts_frame(codes)
-    position = position_of(installation)
+    position = position_of(fitted_capacitor)
     singles = candidates_of(frame)
     candidates = with_pairs(singles, position) if pairs else singles
     advice: Advice = advise(position, candidates)
     stock = dict(
-        SiteStock.objects.filter(site_id=installation.motor.site_id, part_id__in=frame["id"].tolist()).values_list(
+        SiteStock.objects.filter(site_id=fitted_capacitor.motor.site_id, part_id__in=frame["id"].tolist()).values_list(
             "part_id", "quantity"
         )
     )
@@ -203,9 +203,9 @@ def substitutes_for(installation: FittedCapacitor, *, codes: list[str] | None = 
     }
 
 
-def verdict_of_part(installation: FittedCapacitor, part: CapacitorPart) -> dict:
+def verdict_of_part(fitted_capacitor: FittedCapacitor, part: CapacitorPart) -> dict:
     """The advice for one part fitted alone in this capacitor's position."""
-    return substitutes_for(installation, codes=[part.code], pairs=False)["items"][0]
+    return substitutes_for(fitted_capacitor, codes=[part.code], pairs=False)["items"][0]
 
 
 def part_families(user=None) -> list[dict]:
@@ -225,11 +225,11 @@ def part_families(user=None) -> list[dict]:
     singles = candidates_of(frame)
     suits = np.zeros(len(frame), int)
     marginal = np.zeros(len(frame), int)
-    installations = FittedCapacitor.objects.select_related("part", "motor").in_bulk(
+    fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(
         [design["first_id"] for design in designs]
     )
     for design in designs:
-        advice = advise(position_of(installations[design["first_id"]]), singles)
+        advice = advise(position_of(fitted_capacitors[design["first_id"]]), singles)
         suits += advice.verdict == SUITABLE
         marginal += advice.verdict == MARGINAL
     frame["designs_suited"] = suits

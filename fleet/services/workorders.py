@@ -42,10 +42,10 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
         in_service_assessments(user)
         .filter(replace_by__lte=today + dt.timedelta(days=horizon_days))
         .values_list(
-            "installation_id",
-            "installation__motor_id",
-            "installation__motor__site_id",
-            "installation__role",
+            "fitted_capacitor_id",
+            "fitted_capacitor__motor_id",
+            "fitted_capacitor__motor__site_id",
+            "fitted_capacitor__role",
             "replace_by",
             "risk",
             "limit_source",
@@ -60,20 +60,20 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
         locked = FittedCapacitor.objects.select_for_update().filter(pk__any_of=np.asarray(due_ids, np.int64))
         list(locked.order_by("pk").values_list("pk", flat=True))
         open_orders = {
-            (o.installation_id, o.kind): o
-            for o in WorkOrder.objects.filter(installation_id__any_of=np.asarray(due_ids, np.int64), state__in=OPEN)
+            (o.fitted_capacitor_id, o.kind): o
+            for o in WorkOrder.objects.filter(fitted_capacitor_id__any_of=np.asarray(due_ids, np.int64), state__in=OPEN)
         }
         was = {o.pk: (o.due_on, o.window_days) for o in open_orders.values()}
         items, new_orders, replanned = [], [], []
-        for installation_id, motor_id, site_id, role, replace_by, risk, limit, p10 in due:
+        for fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, limit, p10 in due:
             kind = KIND_FOR_ROLE[role]
-            existing = open_orders.get((installation_id, kind))
+            existing = open_orders.get((fitted_capacitor_id, kind))
             if existing is not None and existing.state == WorkOrder.State.ISSUED:
                 continue
             when = max(replace_by, today)
             order = existing or WorkOrder(
                 motor_id=motor_id,
-                installation_id=installation_id,
+                fitted_capacitor_id=fitted_capacitor_id,
                 kind=kind,
                 created_by=user,
                 reason=f"{risk}: {limit} limit" + (f", early crossing {p10:%Y-%m-%d}" if p10 else ""),
@@ -108,10 +108,10 @@ def _spares(orders) -> dict[tuple, list[tuple[str, int]]]:
     """Parts each visit (day, site id) takes, counted in SQL."""
     spares: dict[tuple, list[tuple[str, int]]] = {}
     rows = (
-        orders.filter(installation__isnull=False)
-        .values_list("due_on", "site_id", "installation__part__code")
+        orders.filter(fitted_capacitor__isnull=False)
+        .values_list("due_on", "site_id", "fitted_capacitor__part__code")
         .annotate(quantity=Count("id"))
-        .order_by("due_on", "site_id", "installation__part__code")
+        .order_by("due_on", "site_id", "fitted_capacitor__part__code")
     )
     for day, site_id, code, quantity in rows:
         spares.setdefault((day, site_id), []).append((code, quantity))
@@ -123,7 +123,7 @@ def open_visits(site_id: int, day: dt.date, user=None) -> list[dict]:
     orders = (
         _open_orders(user)
         .filter(site_id=site_id, due_on=day)
-        .select_related("motor", "site", "installation__part")
+        .select_related("motor", "site", "fitted_capacitor__part")
         .order_by("motor__route_order", "motor__asset_tag", "id")
     )
     group = list(orders)
@@ -154,7 +154,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     )
     listed = (
         orders.filter(in_page)
-        .select_related("motor", "site", "installation__part")
+        .select_related("motor", "site", "fitted_capacitor__part")
         .annotate(position=position)
         .filter(position__lte=orders_shown)
         .order_by("due_on", "site__code", "position")

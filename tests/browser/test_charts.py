@@ -10,9 +10,9 @@ import pytest
 from django.utils import timezone
 
 from fleet.models import FittedCapacitor
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import make_fitted_capacitor, make_part, make_user, quarterly_readings
 
-from ..conftest import make_installation, make_part, make_user, quarterly_readings
 from .test_technician import sign_in
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
@@ -37,11 +37,11 @@ def _charts_hold(page, expected_ids):
 
 
 def test_the_trend_chart_keeps_its_height(phone):
-    installation = make_installation()
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.97, 3.95, 3.92, 3.9])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.97, 3.95, 3.92, 3.9])
+    refit_fitted_capacitors([fitted_capacitor.id])
     sign_in(phone, make_user("reliability engineer"))
-    phone.goto(f"/capacitors/{installation.id}/")
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/")
     phone.wait_for_selector("#trend-chart .main-svg")
     _charts_hold(phone, ["trend-chart"])
     phone.shot("trend-chart-after-resize")
@@ -50,8 +50,8 @@ def test_the_trend_chart_keeps_its_height(phone):
 def test_the_life_data_charts_keep_their_height(phone):
     part = make_part(code="LIFE-1")
     for years, reason in [(2.1, "failed"), (3.4, "failed"), (2.8, "failed"), (4.0, "planned"), (1.5, "failed")]:
-        installation = make_installation(part=part, fitted_on=dt.date(2018, 1, 1))
-        FittedCapacitor.objects.filter(id=installation.id).update(
+        fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2018, 1, 1))
+        FittedCapacitor.objects.filter(id=fitted_capacitor.id).update(
             removed_on=dt.date(2018, 1, 1) + dt.timedelta(days=int(365.25 * years)), removal_reason=reason
         )
     sign_in(phone, make_user("reliability engineer"))
@@ -77,11 +77,11 @@ def test_the_dashboard_charts_keep_their_height_and_the_page_its_width(phone):
 
 
 def test_the_motor_page_operating_point_charts_keep_their_height(phone):
-    installation = make_installation()
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7, 3.6])
-    refit_installations([installation.id])
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7, 3.6])
+    refit_fitted_capacitors([fitted_capacitor.id])
     sign_in(phone, make_user("reliability engineer"))
-    phone.goto(f"/motors/{installation.motor.asset_tag}/")
-    phone.wait_for_selector(f"#sweep-{installation.id}-chart .main-svg")
-    _charts_hold(phone, [f"{name}-{installation.id}-chart" for name in ("currents", "voltages", "sweep")])
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    phone.wait_for_selector(f"#sweep-{fitted_capacitor.id}-chart .main-svg")
+    _charts_hold(phone, [f"{name}-{fitted_capacitor.id}-chart" for name in ("currents", "voltages", "sweep")])
     phone.shot("motor-operating-point-after-resize")

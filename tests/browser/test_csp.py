@@ -5,9 +5,9 @@ import datetime as dt
 import pytest
 from django.utils import timezone
 
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
 
-from ..conftest import make_installation, make_motor, make_part, make_site, make_user, quarterly_readings
 from .test_technician import sign_in
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
@@ -20,16 +20,16 @@ def part_with_history(transactional_db):
     for years in (2, 3, 4, 5, 6):
         fitted = dt.date(2015, 1, 1)
         motor = make_motor(site=site)
-        make_installation(
+        make_fitted_capacitor(
             motor=motor,
             part=part,
             fitted_on=fitted,
             removed_on=fitted + dt.timedelta(days=365 * years),
             removal_reason="failed",
         )
-    live = make_installation(part=part, motor=make_motor(site=site))
+    live = make_fitted_capacitor(part=part, motor=make_motor(site=site))
     quarterly_readings(live, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97])
-    refit_installations([live.id])
+    refit_fitted_capacitors([live.id])
     return part, live
 
 
@@ -40,7 +40,7 @@ def test_charts_draw_and_nothing_is_blocked(phone, part_with_history):
         "console", lambda message: blocked.append(message.text) if "Content Security Policy" in message.text else None
     )
     sign_in(phone, make_user("reliability engineer"))
-    phone.goto(f"/capacitors/{live.id}/")
+    phone.goto(f"/fitted-capacitors/{live.id}/")
     phone.wait_for_selector("#trend-chart .main-svg")
     phone.goto(f"/life/?part={part.code}")
     phone.wait_for_selector("#weibull-chart .main-svg")

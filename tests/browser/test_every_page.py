@@ -18,8 +18,8 @@ from django.urls import Resolver404, resolve
 from fleet.models import FittedCapacitor, ImportJob, Reading, WorkOrder
 from fleet.services.import_jobs import create_job
 from fleet.services.workorders import plan_work_orders
+from tests.factories import make_fitted_capacitor, make_user
 
-from ..conftest import make_installation, make_user
 from .conftest import ARTIFACTS
 from .test_technician import sign_in
 
@@ -168,9 +168,9 @@ def test_every_page_fits_a_phone_and_a_desktop_for_every_role(browser, live_serv
 
 
 def test_a_refused_reading_shows_what_to_put_right_in_view_above_the_cautions(phone):
-    installation = make_installation(fitted_on=dt.date(2024, 1, 10))
+    fitted_capacitor = make_fitted_capacitor(fitted_on=dt.date(2024, 1, 10))
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{installation.id}/reading/")
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
     phone.fill("#id_capacitance_uf", "3,9,5")
     phone.fill("#id_taken_at", "2024-01-09T10:00")
     phone.click("#save")
@@ -187,7 +187,7 @@ def test_a_refused_reading_shows_what_to_put_right_in_view_above_the_cautions(ph
     phone.shot("reading-refused-summary")
     # Folded once read, the cautions stay folded on the next page of the session, their heading still shown.
     phone.click("details[data-cautions] > summary")
-    phone.goto(f"/motors/{installation.motor.asset_tag}/")
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
     assert phone.locator("details[data-cautions]").get_attribute("open") is None
     assert phone.is_visible("text=Caution: capacitors store a charge that can kill")
     assert not phone.is_visible("text=never a screwdriver")
@@ -196,9 +196,9 @@ def test_a_refused_reading_shows_what_to_put_right_in_view_above_the_cautions(ph
 
 
 def test_a_draft_kept_on_the_phone_keeps_the_time_it_was_measured(phone):
-    installation = make_installation()
+    fitted_capacitor = make_fitted_capacitor()
     sign_in(phone, make_user("technician"))
-    url = f"/capacitors/{installation.id}/reading/"
+    url = f"/fitted-capacitors/{fitted_capacitor.id}/reading/"
     phone.goto(url)
     phone.fill("#id_taken_at", "2026-01-05T09:30")  # as if the page had been open since the morning round
     phone.fill("#id_capacitance_uf", "3.95")
@@ -234,7 +234,7 @@ def test_on_a_phone_the_columns_that_matter_are_in_view_and_codes_stay_whole(bro
     page.wait_for_url("**/")
     site = FittedCapacitor.objects.filter(removed_on__isnull=True).values_list("motor__site__code", flat=True)[0]
     visit = WorkOrder.objects.filter(
-        state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], installation__motor__site__code=site
+        state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], fitted_capacitor__motor__site__code=site
     ).first()
     checks = [
         (f"/sites/{site}/stock/", "tbody input[type=number]"),

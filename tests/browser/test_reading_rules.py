@@ -3,8 +3,8 @@
 import pytest
 
 from fleet.models import Reading
+from tests.factories import make_user
 
-from ..conftest import make_user
 from .test_technician import motor_with_history, sign_in  # noqa: F401 - the fixture is used by name
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
@@ -12,7 +12,7 @@ pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
 def test_a_decimal_comma_is_read_as_the_server_reads_it(phone, motor_with_history):  # noqa: F811
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.fill("#id_capacitance_uf", "3,94")
     computed = phone.locator("#computed")
     assert "3.94\u00a0µF" in computed.inner_text() and "within tolerance" in computed.inner_text()
@@ -26,7 +26,7 @@ def test_a_decimal_comma_is_read_as_the_server_reads_it(phone, motor_with_histor
 
 def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_history):  # noqa: F811
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.check("input[value=in_circuit]")
     phone.fill("#id_capacitor_current_a", "0.49")
     phone.fill("#id_capacitor_voltage_v", "2300")
@@ -39,7 +39,7 @@ def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_hist
 
 def test_the_same_page_sent_twice_saves_one_reading(phone, motor_with_history):  # noqa: F811
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.fill("#id_capacitance_uf", "3.95")
     before = Reading.objects.count()
     statuses = phone.evaluate(

@@ -3,8 +3,8 @@
 import pytest
 
 from fleet.models import FittedCapacitor, SiteStock
+from tests.factories import make_fitted_capacitor, make_part, make_user
 
-from ..conftest import make_installation, make_part, make_user
 from .test_technician import sign_in
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
@@ -14,13 +14,13 @@ def test_replacement_screen_lists_suitable_parts_first_and_records_an_override(p
     """[derived] on the example fan (4 uF 450 V film run): a second 4 uF part is suitable, 4.8 uF (outside the
     +/-10 % run band, [trade]) and a 4 uF 400 V part (below the original's rating, [trade]) unsuitable; the
     unsuitable one nearer the design value is still listed after the suitable ones."""
-    installation = make_installation()
+    fitted_capacitor = make_fitted_capacitor()
     suitable = make_part(code="FILM-4U0-B", rated_uf=4.0)
     big = make_part(code="FILM-4U8", rated_uf=4.8)
     make_part(code="FILM-4U0-400V", rated_uf=4.0, rated_voltage_v=400)  # the design value, but a lower rating
-    SiteStock.objects.create(site=installation.motor.site, part=suitable, quantity=2)
+    SiteStock.objects.create(site=fitted_capacitor.motor.site, part=suitable, quantity=2)
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{installation.id}/replace/")
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/replace/")
     choices = phone.locator("label.part-choice")
     assert choices.first.get_attribute("data-verdict") == "suitable"
     verdicts = [choices.nth(i).get_attribute("data-verdict") for i in range(choices.count())]
@@ -38,9 +38,9 @@ def test_replacement_screen_lists_suitable_parts_first_and_records_an_override(p
     phone.fill("#id_override_reason", "only part in the van; order the 4 uF")
     phone.click("text=Save replacement")
     phone.wait_for_selector("text=Replacement recorded", timeout=15000)
-    successor = FittedCapacitor.objects.get(motor=installation.motor, removed_on__isnull=True)
+    successor = FittedCapacitor.objects.get(motor=fitted_capacitor.motor, removed_on__isnull=True)
     assert successor.part == big and successor.substitute_override
     assert successor.override_reason == "only part in the van; order the 4 uF"
-    phone.goto(f"/capacitors/{successor.id}/")
+    phone.goto(f"/fitted-capacitors/{successor.id}/")
     assert phone.is_visible("text=Fitted against the substitute advice")
     phone.shot("substitutes-02-capacitor-override")

@@ -6,19 +6,18 @@ import pytest
 from django.utils import timezone
 
 from fleet.models import FittedCapacitor, Reading
-from fleet.services.assessments import refit_installations
-
-from ..conftest import make_installation, make_user, quarterly_readings
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import make_fitted_capacitor, make_user, quarterly_readings
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
 
 @pytest.fixture
 def motor_with_history(transactional_db):
-    installation = make_installation()
-    quarterly_readings(installation, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97, 3.96])
-    refit_installations([installation.id])
-    return installation
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97, 3.96])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    return fitted_capacitor
 
 
 def sign_in(page, user):
@@ -56,7 +55,7 @@ def test_find_by_tag_and_log_an_in_circuit_reading(phone, motor_with_history):
 
 def test_a_validation_error_keeps_what_was_typed(phone, motor_with_history):
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.fill("#id_capacitance_uf", "3960")
     phone.fill("#id_case_temperature_c", "33")
     phone.fill("#id_notes", "fan belt squeals")
@@ -72,7 +71,7 @@ def test_a_validation_error_keeps_what_was_typed(phone, motor_with_history):
 
 def test_an_outlier_is_confirmed_and_saved_flagged(phone, motor_with_history):
     sign_in(phone, make_user("technician"))
-    phone.goto(f"/capacitors/{motor_with_history.id}/reading/")
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.fill("#id_capacitance_uf", "3.3")
     phone.click("#save")
     phone.wait_for_selector("text=far from this capacitor's trend", timeout=15000)  # the answer page, once it is back
@@ -105,7 +104,7 @@ def test_what_was_typed_survives_a_lost_connection(phone, motor_with_history):
     """The phone keeps a draft: leave the page unsaved (signal lost, tab closed), come
     back, and the values are there to save; once saved, the draft is gone."""
     sign_in(phone, make_user("technician"))
-    url = f"/capacitors/{motor_with_history.id}/reading/"
+    url = f"/fitted-capacitors/{motor_with_history.id}/reading/"
     phone.goto(url)
     phone.fill("#id_capacitance_uf", "3.94")
     phone.fill("#id_notes", "cover cracked")

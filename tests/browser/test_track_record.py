@@ -4,8 +4,8 @@ import pytest
 
 from fleet.models import Backtest
 from fleet.services.backtest import run_backtest, start_backtest
+from tests.factories import make_user, straight_line_fleet
 
-from ..conftest import make_user, straight_line_fleet
 from .conftest import ARTIFACTS
 from .test_technician import sign_in
 

@@ -25,11 +25,11 @@ django.setup()
 import numpy as np  # noqa: E402
 from django.db import connection, transaction  # noqa: E402
 
-from fleet.imports import READING_NUMBERS, insert_readings  # noqa: E402
 from fleet.management.commands.bench_import import bench_fleet, readings_file, rolled_back  # noqa: E402
 from fleet.models import Assessment, FittedCapacitor, ImportJob, Reading  # noqa: E402
 from fleet.services import assessments  # noqa: E402
 from fleet.services.bulk import insert_frame  # noqa: E402
+from fleet.services.import_checks import READING_NUMBERS, insert_readings  # noqa: E402
 from fleet.services.import_jobs import check_file  # noqa: E402
 
 READINGS = 50_000
@@ -76,11 +76,11 @@ def main() -> None:
         len(good),
     )
     frame = good.assign(source=Reading.Source.IMPORT.value)[
-        ["installation_id", "taken_at", "method", *READING_NUMBERS, "condition", "notes", "source", "import_key"]
+        ["fitted_capacitor_id", "taken_at", "method", *READING_NUMBERS, "condition", "notes", "source", "import_key"]
     ]
     report("readings write, no conflict option", best_rolled_back(lambda: insert_frame(Reading, frame)), len(frame))
 
-    if not Reading.objects.filter(installation__motor__site=site).exists():
+    if not Reading.objects.filter(fitted_capacitor__motor__site=site).exists():
         with transaction.atomic():  # kept: the readings the refit below fits
             insert_readings(checked_readings(site, seed=5))
     ids = list(FittedCapacitor.objects.filter(motor__site=site).values_list("id", flat=True))
@@ -89,14 +89,14 @@ def main() -> None:
         rolled_back(),
         mock.patch.object(assessments, "insert_frame", side_effect=lambda _, rows: written.update(rows=rows)),
     ):
-        assessments.refit_installations(ids, force=True)
+        assessments.refit_fitted_capacitors(ids, force=True)
     rows = written["rows"]
     report("assessments write", best_rolled_back(lambda: insert_frame(Assessment, rows)), len(rows))
 
     ids = np.array(ids, np.int64)
     for count in (1_000, 10_000):
         compare_filters(FittedCapacitor, "id", ids[:count], "ids")
-    keys = np.array(Reading.objects.filter(installation__motor__site=site).values_list("import_key", flat=True))
+    keys = np.array(Reading.objects.filter(fitted_capacitor__motor__site=site).values_list("import_key", flat=True))
     for count in (10_000, 50_000):
         compare_filters(Reading, "import_key", keys[:count], "text keys")
 

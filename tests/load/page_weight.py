@@ -46,7 +46,7 @@ def production_env(port: int) -> dict[str, str]:
 def first_capacitor_id(env: dict[str, str]) -> int:
     code = (
         "from fleet.models import Assessment; "
-        "print(Assessment.objects.filter(is_current=True).order_by('id')[0].installation_id)"
+        "print(Assessment.objects.filter(is_current=True).order_by('id')[0].fitted_capacitor_id)"
     )
     result = subprocess.run(
         [sys.executable, "manage.py", "shell", "-c", code],
@@ -145,7 +145,7 @@ def main() -> None:
     )
     try:
         wait_for(base + "/login/")
-        path = f"/capacitors/{capacitor}/"
+        path = f"/fitted-capacitors/{capacitor}/"
         print(f"capacitor page {path} at 390 px, Chromium as it is (brotli):")
         measure(base, path, args.user, args.password, {})
         print("the same for a browser that takes gzip only:")

@@ -96,7 +96,7 @@ SELECT 'start', '', date '2018-01-01', NULL, '', '', %(start_part)s, m.id, '', f
 FROM fleet_motor m WHERE m.motor_type = 'two_value';
 
 INSERT INTO fleet_reading (taken_at, method, capacitance_uf, condition, notes, outlier_confirmed, source, created_at,
-    installation_id, case_temperature_c)
+    fitted_capacitor_id, case_temperature_c)
 SELECT now() - make_interval(days => k * 91 + (c.id %% 120)::int), 'meter', 10.0 - 0.05 * (4 - k) - (c.id %% 7) * 0.01,
     'sound', '', false, 'demo', now() - make_interval(days => k * 91 + (c.id %% 120)::int), c.id, 30
 FROM fleet_fittedcapacitor c CROSS JOIN generate_series(0, 3) AS k
@@ -105,7 +105,7 @@ WHERE c.removed_on IS NULL;
 INSERT INTO fleet_assessment (is_current, model_version, fitted_through, readings_used, readings_flagged,
     flagged_reading_ids, trend_model, slope_pct_per_1000h, slope_sd_pct_per_1000h, low_confidence, capacitance_now_uf,
     latest_verdict, limit_fraction, limit_source, p10_on, p50_on, p90_on, risk, replace_by, figures_now, figures_new,
-    created_at, installation_id, limits, max_reading_id, reason, set_aside)
+    created_at, fitted_capacitor_id, limits, max_reading_id, reason, set_aside)
 SELECT v.is_current, 'bench', now() - interval '10 days', 4, 0, '[]', 'linear', -0.1, 0.02, false, 9.6,
     'within tolerance', 0.9, 'tolerance', current_date + v.days, current_date + v.days + 200,
     current_date + v.days + 400, v.risk, current_date + v.days, '{}', '{}', v.created_at, v.id, '[]',
@@ -124,10 +124,10 @@ FROM (
     WHERE c.removed_on IS NULL
 ) AS v;
 
-INSERT INTO fleet_workorder (kind, due_on, window_days, state, reason, created_at, installation_id, motor_id)
+INSERT INTO fleet_workorder (kind, due_on, window_days, state, reason, created_at, fitted_capacitor_id, motor_id)
 SELECT 'replace_' || c.role, current_date + (c.motor_id %% 4)::int * 14, 14, 'planned', 'replace now: tolerance limit',
     now(), c.id, c.motor_id
-FROM fleet_assessment a JOIN fleet_fittedcapacitor c ON c.id = a.installation_id
+FROM fleet_assessment a JOIN fleet_fittedcapacitor c ON c.id = a.fitted_capacitor_id
 WHERE a.is_current AND a.risk = 'replace now';
 """
 
@@ -219,7 +219,7 @@ def page_urls() -> list[tuple[str, str]]:
         ("labels (big site)", reverse("labels", args=[big])),
         ("imports", reverse("imports")),
         ("motor", reverse("motor", args=[capacitor.motor.asset_tag])),
-        ("capacitor", reverse("capacitor", args=[capacitor.id])),
+        ("capacitor", reverse("fitted_capacitor", args=[capacitor.id])),
         ("API assessments", reverse("api_assessments")),
         ("API assessments, due soon", reverse("api_assessments") + "?risk=due+soon"),
     ]

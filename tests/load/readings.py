@@ -65,11 +65,11 @@ def targets(count: int) -> list[tuple[int, float]]:
     from fleet.models import Assessment
 
     rows = (
-        Assessment.objects.filter(is_current=True, installation__removed_on__isnull=True)
-        .order_by("installation_id")
-        .values_list("installation_id", "capacitance_now_uf")[:count]
+        Assessment.objects.filter(is_current=True, fitted_capacitor__removed_on__isnull=True)
+        .order_by("fitted_capacitor_id")
+        .values_list("fitted_capacitor_id", "capacitance_now_uf")[:count]
     )
-    return [(installation_id, round(capacitance, 3)) for installation_id, capacitance in rows]
+    return [(fitted_capacitor_id, round(capacitance, 3)) for fitted_capacitor_id, capacitance in rows]
 
 
 def listening(port: int) -> bool:
@@ -92,13 +92,13 @@ def start_gunicorn(port: int, workers: int) -> subprocess.Popen:
     return process
 
 
-def warm_up(port: int, key: str, installation_id: int, requests: int) -> None:
+def warm_up(port: int, key: str, fitted_capacitor_id: int, requests: int) -> None:
     """Let every gunicorn worker load the application (its first request imports the whole stack)."""
 
     def read():
         connection = http.client.HTTPConnection("127.0.0.1", port, timeout=60)
         connection.request(
-            "GET", f"/api/capacitors/{installation_id}/readings/", headers={"Authorization": f"Token {key}"}
+            "GET", f"/api/capacitors/{fitted_capacitor_id}/readings/", headers={"Authorization": f"Token {key}"}
         )
         connection.getresponse().read()
         connection.close()
@@ -115,13 +115,13 @@ def technician(port, key, plan, start, deadline, results, lock):
     connection = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
     headers = {"Authorization": f"Token {key}", "Content-Type": "application/json"}
     start.wait()
-    for installation_id, capacitance_uf, marker in plan:
+    for fitted_capacitor_id, capacitance_uf, marker in plan:
         if time.monotonic() > deadline:
             break
         body = {"method": "meter", "capacitance_uf": capacitance_uf, "notes": marker, "confirmed": True}
         began = time.perf_counter()
         try:
-            connection.request("POST", f"/api/capacitors/{installation_id}/readings/", json.dumps(body), headers)
+            connection.request("POST", f"/api/capacitors/{fitted_capacitor_id}/readings/", json.dumps(body), headers)
             response = connection.getresponse()
             response.read()
             status = response.status

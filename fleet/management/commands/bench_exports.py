@@ -46,7 +46,7 @@ class Command(BaseCommand):
                 size = FleetSize(motors=count, capacitors=count, readings=count * readings_each)
                 build_bench_fleet(size, prefix=prefix, progress=lambda _: None)
             site = Site.objects.filter(code__startswith=prefix).order_by("code").first()
-            rows = Reading.objects.filter(installation__motor__site=site).count()
+            rows = Reading.objects.filter(fitted_capacitor__motor__site=site).count()
             query = QueryDict(mutable=True)
             query["site"] = site.code
             for file_format in ("csv", "xlsx", "parquet"):

@@ -23,7 +23,7 @@ from django.core.management.base import BaseCommand
 from django.db import connection
 
 from fleet.models import Assessment, FittedCapacitor, Motor, Reading, RefitRun
-from fleet.services.assessments import refit_installations
+from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.bench_fleet import FleetSize, build_bench_fleet, existing_bench_fleet
 from fleet.services.bulk import copy_read_floor, on_postgresql
 from fleet.services.refits import start_fleet_refit
@@ -189,9 +189,9 @@ class Command(BaseCommand):
     def chunk_memory(self, chunk_size: int) -> None:
         ids = list(FittedCapacitor.objects.filter(removed_on__isnull=True).order_by("id").values_list("id", flat=True))
         ids = ids[:chunk_size]
-        refit_installations(ids[:10], force=True)  # imports, stored priors: not the chunk's own memory
+        refit_fitted_capacitors(ids[:10], force=True)  # imports, stored priors: not the chunk's own memory
         tracemalloc.start()
-        outcome = refit_installations(ids, force=True)
+        outcome = refit_fitted_capacitors(ids, force=True)
         peak = tracemalloc.get_traced_memory()[1]
         tracemalloc.stop()
         self.say(
@@ -205,8 +205,8 @@ class Command(BaseCommand):
             return
         sample = ids[:sample_size]
         started = time.perf_counter()
-        for installation_id in sample:
-            refit_installations([installation_id], force=True)
+        for fitted_capacitor_id in sample:
+            refit_fitted_capacitors([fitted_capacitor_id], force=True)
         per_capacitor_s = (time.perf_counter() - started) / len(sample)
         self.say(
             f"naive per-capacitor loop: {per_capacitor_s * 1e3:.1f} ms a capacitor; "

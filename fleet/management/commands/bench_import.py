@@ -25,11 +25,11 @@ from django.db import connection, transaction
 from django.utils import timezone
 
 from fleet.engineering.nameplate import Nameplate, estimate_designs, estimate_parameters
-from fleet.imports import insert_readings
 from fleet.management.commands.bench_fleet import _cpu_seconds
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from fleet.services.circuits import estimate_circuits
 from fleet.services.demo import DEMO_PARTS, DESIGNS, EXAMPLE_FAN_CIRCUIT, EXAMPLE_FAN_NAMEPLATE, FREQUENCY_HZ, VOLTAGE_V
+from fleet.services.import_checks import insert_readings
 from fleet.services.import_jobs import check_file, import_file
 
 SITE_CODE = "BENCHIMP"
@@ -188,7 +188,7 @@ def _import_all(kind: str, content: bytes):
 
 
 READING_COPY_COLUMNS = (
-    "installation_id, taken_at, method, capacitance_uf, condition, notes, outlier_confirmed, source, import_key, "
+    "fitted_capacitor_id, taken_at, method, capacitance_uf, condition, notes, outlier_confirmed, source, import_key, "
     "created_at"
 )
 

@@ -4,7 +4,7 @@ from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 
-from fleet.imports import FileRefused
+from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
 from fleet.services.import_jobs import KINDS, import_file
 

@@ -1,0 +1,334 @@
+"""The columns of each import kind and the vectorised column rules (numbers, dates, times,
+texts, repeats within the file): whole frames at once, no database. The ORM side is
+fleet/services/import_checks.py."""
+
+from __future__ import annotations
+
+import hashlib
+import operator
+import zoneinfo
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from fleet.engineering.rules import parse_numbers
+from fleet.imports.files import TextColumns
+
+READING_COLUMNS = {
+    "asset_tag": "Motor asset tag (required)",
+    "role": "start or run (required)",
+    "taken_at": "Date and time, ISO 8601, e.g. 2026-03-14 09:30 (required; site time if no offset)",
+    "method": "meter or in_circuit (default meter)",
+    "capacitance_uf": "Capacitance in µF (meter readings)",
+    "capacitor_current_a": "Capacitor current in A (in-circuit readings)",
+    "capacitor_voltage_v": "Voltage across the capacitor in V (in-circuit readings)",
+    "line_voltage_v": "Line voltage in V",
+    "main_current_a": "Main winding current in A",
+    "aux_current_a": "Auxiliary winding current in A",
+    "line_current_a": "Line current in A",
+    "case_temperature_c": "Capacitor case temperature in °C",
+    "ambient_temperature_c": "Ambient temperature in °C",
+    "esr_ohm": "ESR in Ω",
+    "condition": "sound, bulged, leaking or vented (default sound)",
+    "notes": "Free text",
+}
+READING_REQUIRED = ("asset_tag", "role", "taken_at")
+
+
+REGISTER_COLUMNS = {
+    "asset_tag": "Motor asset tag, unique (required)",
+    "site_code": "Site code, as in the register (required)",
+    "location": "Where the motor is",
+    "application": "fan, pump, compressor, conveyor or other (required)",
+    "motor_type": "capacitor_start, permanent_split or two_value (required)",
+    "load_type": "fan_law or constant (required)",
+    "rated_voltage_v": "Nameplate voltage in V (required)",
+    "frequency_hz": "50 or 60 (required)",
+    "poles": "2, 4, 6, 8, 10 or 12 (required)",
+    "output_w": "Rated output in W (required)",
+    "full_load_current_a": "Full-load current in A (required)",
+    "rated_speed_rpm": "Rated speed in rpm (required)",
+    "commissioned_on": "Date commissioned, ISO 8601",
+    "run_part_code": "Part code of the run capacitor fitted (PSC and two-value motors)",
+    "start_part_code": "Part code of the start capacitor fitted (capacitor-start and two-value motors)",
+    "fitted_on": "Date the capacitors were fitted, ISO 8601 (required)",
+}
+REGISTER_REQUIRED = (
+    "asset_tag",
+    "site_code",
+    "application",
+    "motor_type",
+    "load_type",
+    "rated_voltage_v",
+    "frequency_hz",
+    "poles",
+    "output_w",
+    "full_load_current_a",
+    "rated_speed_rpm",
+    "fitted_on",
+)
+REGISTER_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "output_w", "full_load_current_a", "rated_speed_rpm"]
+CHUNK_ROWS = 50_000  # rows checked per step of the progress bar
+MAX_REPORTED_ERRORS = 2000
+
+
+@dataclass
+class CheckResult:
+    good: pd.DataFrame  # one row per good line, with resolved ids and parsed values
+    errors: list[tuple[int, str, str]] = field(default_factory=list)  # (row, field, message)
+    duplicates: int = 0  # rows already in the database (skipped, not errors)
+    total: int = 0
+
+    @property
+    def error_rows(self) -> int:
+        return len({row for row, _, _ in self.errors})
+
+
+def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
+    """Our field -> the file's column, matching names regardless of case, spaces, dashes."""
+
+    def norm(name):
+        return "".join(ch for ch in name.lower() if ch.isalnum())
+
+    by_norm = {norm(c): c for c in columns}
+    return {name: by_norm[norm(name)] for name in ours if norm(name) in by_norm}
+
+
+def mapped_frame(
+    header: list[str], rows: list[list[str]] | TextColumns, mapping: dict[str, str], ours: dict[str, str]
+) -> pd.DataFrame:
+    """Our fields as text columns (stripped; "" where the file has no such column), and each row's number."""
+    position = {}
+    for number, heading in enumerate(header):
+        position.setdefault(heading, number)
+    out = {}
+    for name in ours:
+        column = position.get(mapping.get(name))
+        if column is None:
+            out[name] = pd.Series([""] * len(rows), dtype=str)
+        elif isinstance(rows, TextColumns):
+            out[name] = rows.column(column).str.strip()
+        else:
+            out[name] = pd.Series(list(map(operator.itemgetter(column), rows)), dtype=str).str.strip()
+    out["row"] = np.arange(len(rows)) + 2
+    return pd.DataFrame(out)
+
+
+class _Problems:
+    """Collects (row, field, message) from boolean masks over a chunk."""
+
+    def __init__(self, chunk: pd.DataFrame):
+        self.chunk = chunk
+        self.bad = np.zeros(len(chunk), bool)
+        self.items: list[tuple[int, str, str]] = []
+
+    def add(self, mask, field_name: str, message):
+        mask = np.asarray(mask, bool) & ~self.bad
+        rows = self.chunk["row"].to_numpy()[mask]
+        messages = message[mask] if isinstance(message, np.ndarray) else [message] * int(mask.sum())
+        self.items += [(int(r), field_name, str(m)) for r, m in zip(rows, messages, strict=True)]
+        self.bad |= mask
+
+
+def _numbers(chunk, names, problems):
+    """Numbers by the rulebook's one parser (decimal comma, finite only)."""
+    values = {}
+    for name in names:
+        values[name], messages = parse_numbers(chunk[name])
+        problems.add(messages != "", name, messages)
+    return values
+
+
+def text_problems(frame: pd.DataFrame, max_lengths: dict[str, int]) -> _Problems:
+    """Cells the database cannot hold: a NUL character in any field, text longer than its column."""
+    problems = _Problems(frame)
+    for name in frame.columns.drop("row"):
+        problems.add(frame[name].str.contains("\x00", regex=False), name, "holds a NUL character (byte 0): remove it")
+    for name, limit in max_lengths.items():
+        problems.add(frame[name].str.len() > limit, name, f"longer than {limit} characters")
+    return problems
+
+
+def finite_numbers(chunk: pd.DataFrame, names, problems: _Problems) -> dict[str, np.ndarray]:
+    """Numbers (point or comma decimal mark); infinities refused. Blank cells are NaN."""
+    values = _numbers(chunk, names, problems)
+    for name in names:
+        problems.add(np.isinf(values[name]), name, "not a finite number")
+    return values
+
+
+def repeated_in_file(problems: _Problems, keys: pd.Series, field_name: str, what: str) -> None:
+    """A key seen on an earlier row of the file: reported on the later row, naming the first."""
+    keys = keys.reset_index(drop=True)
+    rows = problems.chunk["row"].reset_index(drop=True)
+    repeated = keys.duplicated(keep="first") & keys.notna()
+    first_row = dict(zip(keys[~repeated], rows[~repeated], strict=True))
+    messages = np.array([f"{what} as row {first_row.get(k)}" for k in keys], dtype=object)
+    problems.add(repeated.to_numpy(), field_name, messages)
+
+
+def parse_dates(texts: pd.Series) -> pd.Series:
+    """ISO 8601 dates (a time part is ignored); blanks and bad values are NaT."""
+    return pd.to_datetime(texts.str.slice(0, 10), errors="coerce", format="%Y-%m-%d")
+
+
+# A time of day followed by an offset or Z: "09:30+02:00", "09:30:15.5 -0500", "09:30Z".
+_OFFSET_AT_END = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
+
+
+def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarray]:
+    """ISO 8601 date-times as UTC, and a message for each row whose local time cannot be placed ("" if fine).
+
+    A time with an offset (or Z) is taken as given; offsets may differ from row to row (a file
+    across a daylight-saving change), hence one parse with utc=True. A time without one is
+    wall-clock time in the row's zone (`zones`: its site's), localised one zone at a time; a
+    local time the clocks skip or repeat there, or a zone nobody knows, gets a message.
+    """
+    parsed = pd.to_datetime(texts, errors="coerce", format="ISO8601", utc=True)
+    local = (~texts.str.contains(_OFFSET_AT_END, regex=True)).to_numpy() & parsed.notna().to_numpy()
+    wall = parsed.dt.tz_localize(None)
+    messages = np.full(len(texts), "", dtype=object)
+    for zone in pd.unique(zones[local]):
+        rows = local & zones.eq(zone).to_numpy()
+        try:
+            placed = wall[rows].dt.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+        except (KeyError, ValueError):  # the site's zone is not a known name (zoneinfo raises a KeyError subclass)
+            parsed[rows] = pd.NaT
+            messages[rows] = f"the site's time zone {zone!r} is unknown: add the offset, e.g. +01:00, or fix the site"
+            continue
+        parsed[rows] = placed.dt.tz_convert("UTC")
+        messages[rows & parsed.isna().to_numpy()] = (
+            f"this local time is skipped or repeated in {zone} (clocks changed): add the offset, e.g. +01:00"
+        )
+    return parsed, messages
+
+
+def reading_keys(fitted_capacitor_ids, taken_at_utc: pd.Series, methods, capacitance_uf) -> np.ndarray:
+    """Each reading's content key (capacitor, UTC time, method, value): a file imported twice adds nothing.
+
+    The key text is "id|time|method|value" with the time as `Timestamp.isoformat()` writes it,
+    so keys stay those of the readings imported before.
+    """
+    if not len(taken_at_utc):
+        return np.array([], dtype=object)
+    times = pd.Series(taken_at_utc).reset_index(drop=True)
+    whole = times.dt.tz_localize(None).to_numpy("datetime64[ns]")
+    text = np.datetime_as_string(whole.astype("datetime64[s]"), unit="s").astype(object) + "+00:00"
+    fractional = whole != whole.astype("datetime64[s]")
+    if fractional.any():
+        text[fractional] = [moment.isoformat() for moment in times[fractional]]
+    ids = pd.Series(np.asarray(fitted_capacitor_ids, np.int64)).astype(str).to_numpy(object)
+    values = pd.Series(np.asarray(capacitance_uf, float)).map("{:.4f}".format).to_numpy(object)
+    joined = ids + "|" + text + "|" + np.asarray(methods, object) + "|" + values
+    return np.array([hashlib.sha256(key.encode()).hexdigest()[:40] for key in joined], dtype=object)
+
+
+SITE_COLUMNS = {
+    "code": "Site code, unique, up to 20 characters (required)",
+    "name": "Site name, up to 120 characters (required)",
+    "time_zone": "Time zone name, e.g. Europe/Madrid or UTC; readings without an offset are in this zone (required)",
+}
+SITE_REQUIRED = ("code", "name", "time_zone")
+PART_COLUMNS = {
+    "code": "Part code, unique, up to 40 characters (required)",
+    "rated_uf": "Rated capacitance in µF (required)",
+    "tolerance_minus_pct": "Tolerance below rated, in %, e.g. 5 (required)",
+    "tolerance_plus_pct": "Tolerance above rated, in %, e.g. 5 (required)",
+    "rated_voltage_v": "Rated voltage in V AC (required)",
+    "dielectric": "film (run capacitors) or electrolytic (start capacitors) (required)",
+    "frequency_hz": "Rated frequency, 50 or 60 Hz (required)",
+    "description": "Free text, up to 200 characters",
+    "class_of_operation": "A, B, C or D: rated life 30,000, 10,000, 3,000 or 1,000 h (IEC 60252-1)",
+    "duty": "Duty, up to 80 characters, e.g. continuous, or 20 starts/h of 3 s",
+    "safety_class": "S0, S1, S2 or S3 (older markings P0, P1, P2)",
+    "max_case_temperature_c": "Highest permitted case temperature in °C (default 70)",
+    "max_dissipation_factor": "Highest dissipation factor (tan delta) as a fraction, e.g. 0.002",
+    "unit_cost": "Price of one, in the plant's currency, two decimals (default 0)",
+}
+PART_REQUIRED = (
+    "code",
+    "rated_uf",
+    "tolerance_minus_pct",
+    "tolerance_plus_pct",
+    "rated_voltage_v",
+    "dielectric",
+    "frequency_hz",
+)
+PART_NUMBERS = [
+    "rated_uf",
+    "tolerance_minus_pct",
+    "tolerance_plus_pct",
+    "rated_voltage_v",
+    "frequency_hz",
+    "max_case_temperature_c",
+    "max_dissipation_factor",
+    "unit_cost",
+]
+HISTORY_COLUMNS = {
+    "asset_tag": "Motor asset tag, as in the register (required)",
+    "role": "start or run (required)",
+    "part_code": "Part code of the capacitor, as in the parts catalogue (required)",
+    "fitted_on": "Date fitted, ISO 8601, e.g. 2019-05-02 (required)",
+    "removed_on": "Date removed, ISO 8601; empty while the capacitor is in service",
+    "removal_reason": "failed, planned or other: given exactly when removed_on is",
+    "serial": "Serial number or date code, up to 60 characters",
+    "notes": "Free text",
+}
+HISTORY_REQUIRED = ("asset_tag", "role", "part_code", "fitted_on")
+EARLIEST_DATE = pd.Timestamp("1950-01-01")
+OPEN_END = pd.Timestamp("2200-01-01")  # the end of a capacitor still in service, for overlap tests
+
+
+def _known_zone(name: str) -> bool:
+    try:
+        zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
+        return False
+    return True
+
+
+def _result(frame: pd.DataFrame, problems: _Problems, already: np.ndarray, on_progress) -> CheckResult:
+    good_mask = ~problems.bad & ~already
+    if on_progress:
+        on_progress(len(frame))
+    return CheckResult(
+        good=frame[good_mask].reset_index(drop=True),
+        errors=sorted(problems.items),
+        duplicates=int((already & ~problems.bad).sum()),
+        total=len(frame),
+    )
+
+
+def _refuse_overlaps(problems: _Problems, rows: pd.DataFrame, register: pd.DataFrame) -> None:
+    """Each row whose time on the motor overlaps another capacitor's in the same role, naming that one."""
+    everyone = pd.concat([register, rows], ignore_index=True)  # a clash with the register is named first
+    pairs = rows.merge(everyone, on=["motor_id", "role"], suffixes=("", "_other"))
+    pairs = pairs[
+        (pairs["row"] != pairs["row_other"])
+        & (pairs["start"] < pairs["end_other"])
+        & (pairs["start_other"] < pairs["end"])
+    ].drop_duplicates("row")
+    if pairs.empty:
+        return
+
+    def described(pair) -> str:
+        where = f"row {pair.row_other}" if pair.row_other else "the register"
+        until = "in service" if pair.end_other == OPEN_END else f"removed {pair.end_other.date()}"
+        return f"the {pair.role} capacitor fitted {pair.start_other.date()} ({until}, {where})"
+
+    both_open = ((pairs["end"] == OPEN_END) & (pairs["end_other"] == OPEN_END)).to_numpy()
+    found = pd.DataFrame(
+        {
+            "field": np.where(both_open, "removed_on", "fitted_on"),
+            "message": [
+                f"another {pair.role} capacitor is in service on this motor: {described(pair)}"
+                if open_ended
+                else f"overlaps {described(pair)}"
+                for pair, open_ended in zip(pairs.itertuples(index=False), both_open, strict=True)
+            ],
+        },
+        index=pairs["row"].to_numpy(),
+    ).reindex(problems.chunk["row"].to_numpy())
+    for field_name in ("fitted_on", "removed_on"):
+        problems.add(found["field"].eq(field_name).to_numpy(), field_name, found["message"].to_numpy(dtype=object))

@@ -1,0 +1,322 @@
+"""Reading an import file within its limits: CSV (delimiter found from the header line) or
+XLSX (first sheet, sizes checked before parsing). Bytes in, headings and rows of text out; no database."""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import functools
+import io
+import re
+import zipfile
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+from django.conf import settings
+from pyarrow import csv as arrow_csv
+
+
+class TextColumns(Sequence):
+    """A file's data rows held as text columns (pyarrow), as the fast CSV reader leaves them.
+
+    Reads like the list of rows the exact reader gives (`len`, `rows[i]` is a list of text), so a
+    report can quote a row as uploaded; `column(j)` gives a whole column at once, without rows.
+    """
+
+    def __init__(self, columns: list[pa.Array]):
+        self.columns = columns
+
+    def __len__(self) -> int:
+        return len(self.columns[0]) if self.columns else 0
+
+    def __getitem__(self, index: int) -> list[str]:
+        if not -len(self) <= index < len(self):
+            raise IndexError(index)
+        return [column[index].as_py() for column in self.columns]
+
+    def column(self, position: int) -> pd.Series:
+        return pd.Series(self.columns[position], dtype=str)
+
+
+class FileRefused(Exception):
+    """The file as a whole cannot be read (cut off, wrong format, no header)."""
+
+
+@dataclass(frozen=True)
+class Limits:
+    """What a file may hold; checked before it is parsed (settings FLEET_IMPORT_MAX_*)."""
+
+    file_bytes: int
+    unpacked_bytes: int
+    rows: int
+    columns: int
+
+    @classmethod
+    def from_settings(cls) -> Limits:
+        return cls(
+            file_bytes=settings.FLEET_IMPORT_MAX_FILE_MB * 1024 * 1024,
+            unpacked_bytes=settings.FLEET_IMPORT_MAX_UNPACKED_MB * 1024 * 1024,
+            rows=settings.FLEET_IMPORT_MAX_ROWS,
+            columns=settings.FLEET_IMPORT_MAX_COLUMNS,
+        )
+
+    def too_many_rows(self, rows: int) -> FileRefused:
+        return FileRefused(
+            f"The file has {rows:,} rows or more; the limit is {self.rows:,} rows (FLEET_IMPORT_MAX_ROWS). "
+            "Split it into smaller files."
+        )
+
+    def too_many_columns(self) -> FileRefused:
+        return FileRefused(
+            f"The file has more than {self.columns} columns, the limit (FLEET_IMPORT_MAX_COLUMNS). "
+            "Remove the columns that are not imported."
+        )
+
+
+def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]] | TextColumns]:
+    """Header and rows as text, within the limits, which are checked before parsing.
+
+    A ragged row (a file cut off mid-row) or a heading given twice refuses the file.
+    """
+    limits = Limits.from_settings()
+    if len(content) > limits.file_bytes:
+        raise FileRefused(
+            f"The file is {len(content) / 2**20:.1f} MB; the limit is {settings.FLEET_IMPORT_MAX_FILE_MB} MB "
+            "(FLEET_IMPORT_MAX_FILE_MB). Split it into smaller files."
+        )
+    if filename.lower().endswith(".xlsx"):
+        header, body = _read_xlsx(content, limits)
+    else:
+        header, body = _read_csv(content, limits)
+    _refuse_repeated_headings(header)
+    return header, body
+
+
+def csv_delimiter(first_line: str) -> str:
+    """Comma, semicolon (where the decimal mark is a comma) or tab: whichever the header line holds most of."""
+    return max((",", ";", "\t"), key=first_line.count)
+
+
+def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]] | TextColumns]:
+    try:
+        text = content.decode("utf-8-sig")
+    except UnicodeDecodeError as error:
+        raise FileRefused(f"The file is not UTF-8 text (byte {error.start}). Save it as CSV UTF-8.") from error
+    end_of_header = text.find("\n")
+    delimiter = csv_delimiter(text[: end_of_header if end_of_header >= 0 else len(text)])
+    fast = _read_csv_columns(content, text, delimiter, limits)
+    return fast if fast is not None else _read_csv_rows(text, delimiter, limits)
+
+
+# Cells that may be blank to Python's str.strip (a superset of its whitespace, for pyarrow's regular expressions).
+_MAYBE_BLANK = r"^[\s\x{1c}-\x{1f}\x{85}\x{a0}\x{1680}\x{2000}-\x{200a}\x{2028}\x{2029}\x{202f}\x{205f}\x{3000}]*$"
+# A quoted field (one starting at the start of a line or after a delimiter, `D`) whose closing quote is
+# followed by anything but a delimiter or a line end, or that the file ends inside: Python's strict reader
+# refuses both, pyarrow's does not. It may also match where the file is fine (a quote inside a quoted field
+# after `D`): that only sends the file the slow, exact way.
+_LOOSE_QUOTES = r'(?:\A|(?<=[D\r\n]))"(?:[^"]|"")*+(?:"(?=[^D\r\n"])|\Z)'
+
+
+def _read_csv_columns(
+    content: bytes, text: str, delimiter: str, limits: Limits
+) -> tuple[list[str], TextColumns] | None:
+    """The file parsed by pyarrow into text columns: the same header and cells as `_read_csv_rows`, at a
+    fraction of the cost. None when the file needs the exact reader: rows of other widths, blank-looking
+    lines, fields too long for it, or loose quotes (the exact reader names what is wrong, by row)."""
+    if '"' in text and re.search(_LOOSE_QUOTES.replace("D", re.escape(delimiter)), text):
+        return None
+    first = next(csv.reader(io.StringIO(text[:1_000_000], newline=""), delimiter=delimiter), [])
+    if len(first) > limits.columns:
+        raise limits.too_many_columns()
+    try:
+        table = arrow_csv.read_csv(
+            io.BytesIO(content.removeprefix(b"\xef\xbb\xbf")),
+            read_options=arrow_csv.ReadOptions(autogenerate_column_names=True, use_threads=False),
+            parse_options=arrow_csv.ParseOptions(delimiter=delimiter, newlines_in_values=True),
+            convert_options=arrow_csv.ConvertOptions(
+                column_types={f"f{i}": pa.string() for i in range(limits.columns + 1)},
+                strings_can_be_null=False,
+                quoted_strings_can_be_null=False,
+            ),
+        )
+    except (pa.ArrowInvalid, UnicodeDecodeError):
+        return None
+    if table.num_columns > limits.columns:
+        raise limits.too_many_columns()
+    columns = [table.column(i).combine_chunks().cast(pa.string()) for i in range(table.num_columns)]
+    if not columns or max(pc.max(pc.utf8_length(c)).as_py() or 0 for c in columns) > csv.field_size_limit():
+        return None
+    maybe_blank = functools.reduce(pc.and_, [pc.match_substring_regex(c, _MAYBE_BLANK) for c in columns])
+    if pc.any(maybe_blank).as_py():  # rare: the exact test on those rows only
+        candidates = np.flatnonzero(maybe_blank.to_numpy(zero_copy_only=False))
+        cells = [c.take(candidates).to_pylist() for c in columns]
+        blank = np.zeros(len(columns[0]), bool)
+        blank[candidates] = [not "".join(row).strip() for row in zip(*cells, strict=True)]
+        columns = [c.filter(pa.array(~blank)) for c in columns]
+    if not len(columns[0]):
+        raise FileRefused("The file is empty.")
+    if len(columns[0]) - 1 > limits.rows:
+        raise limits.too_many_rows(min(len(columns[0]) - 1, limits.rows + 1))
+    return [c[0].as_py().strip() for c in columns], TextColumns([c.slice(1) for c in columns])
+
+
+def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str], list[list[str]]]:
+    """The exact reader, row by row: what the fast one leaves to it, with its messages."""
+    rows = []
+    try:
+        for row in csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True):
+            if not "".join(row).strip():
+                continue
+            if not rows and len(row) > limits.columns:
+                raise limits.too_many_columns()
+            rows.append(row)
+            if len(rows) > limits.rows + 1:
+                raise limits.too_many_rows(len(rows) - 1)
+    except csv.Error as error:
+        raise FileRefused(f"The CSV cannot be read: {error}. The file may be cut off inside a quoted field.") from error
+    if not rows:
+        raise FileRefused("The file is empty.")
+    header, body = [h.strip() for h in rows[0]], rows[1:]
+    for number, row in enumerate(body, start=2):
+        if len(row) != len(header):
+            raise FileRefused(
+                f"Row {number} has {len(row)} fields where the header has {len(header)}: the file looks cut off "
+                f"or a field holds an unquoted {'semicolon' if delimiter == ';' else 'comma'}. Nothing was imported."
+            )
+    return header, body
+
+
+def _refuse_repeated_headings(header: list[str]) -> None:
+    seen: dict[str, int] = {}
+    for number, heading in enumerate(header, start=1):
+        key = heading.strip().lower()
+        if key and key in seen:
+            raise FileRefused(
+                f"The heading {heading!r} appears twice (columns {seen[key]} and {number}): "
+                "keep one of them or rename the other."
+            )
+        seen.setdefault(key, number)
+
+
+_DIMENSION = re.compile(rb"<(?:\w+:)?dimension\s+ref=\"([A-Za-z0-9:$]+)\"")
+_RELATIONSHIP_ID = "{http://schemas.openxmlformats.org/officeDocument/2006/relationships}id"
+
+
+def _check_workbook_size(content: bytes, limits: Limits) -> None:
+    """Refuse a workbook by its zip directory and its first sheet's declared dimension, before parsing it."""
+    try:
+        archive = zipfile.ZipFile(io.BytesIO(content))
+    except zipfile.BadZipFile as error:
+        raise FileRefused("The workbook cannot be read: it is not an XLSX file (not a zip archive).") from error
+    unpacked = sum(info.file_size for info in archive.infolist())
+    if unpacked > limits.unpacked_bytes:
+        raise FileRefused(
+            f"The workbook unpacks to {unpacked / 2**20:,.0f} MB; the limit is "
+            f"{settings.FLEET_IMPORT_MAX_UNPACKED_MB} MB (FLEET_IMPORT_MAX_UNPACKED_MB). "
+            "Split it, or save it as CSV."
+        )
+    sheet = _first_sheet_path(archive)
+    if sheet is None:
+        return
+    with archive.open(sheet) as stream:
+        head = stream.read(64 * 1024)
+    found = _DIMENSION.search(head)
+    if found:
+        from openpyxl.utils.cell import range_boundaries
+
+        try:
+            min_col, min_row, max_col, max_row = range_boundaries(found.group(1).decode().replace("$", ""))
+        except (ValueError, TypeError):
+            min_col = min_row = max_col = max_row = None
+        if max_row is not None and max_row - (min_row or 1) > limits.rows:
+            raise limits.too_many_rows(max_row - (min_row or 1))
+        if max_col is not None and max_col - (min_col or 1) + 1 > limits.columns:
+            raise limits.too_many_columns()
+    rows = _count_row_tags(archive, sheet, stop_after=limits.rows + 1)
+    if rows > limits.rows + 1:
+        raise limits.too_many_rows(rows - 1)
+
+
+_ROW_TAG = re.compile(rb"<(?:\w+:)?row[\s/>]")
+
+
+def _count_row_tags(archive: zipfile.ZipFile, sheet: str, stop_after: int) -> int:
+    """Rows in the sheet's XML, counted on the unpacked stream (a dimension may be missing or wrong).
+
+    A tag that straddles two chunks is counted once: each pass counts the tags that start
+    before the last 32 bytes and carries those bytes into the next pass.
+    """
+    count, carried = 0, b""
+    with archive.open(sheet) as stream:
+        while chunk := stream.read(1024 * 1024):
+            text = carried + chunk
+            cut = max(len(text) - 32, 0)
+            count += sum(1 for found in _ROW_TAG.finditer(text) if found.start() < cut)
+            carried = text[cut:]
+            if count > stop_after:
+                return count
+    return count + len(_ROW_TAG.findall(carried))
+
+
+def _first_sheet_path(archive: zipfile.ZipFile) -> str | None:
+    """The zip member of the workbook's first sheet, from workbook.xml and its relationships."""
+    from xml.etree import ElementTree
+
+    try:
+        for name in ("xl/workbook.xml", "xl/_rels/workbook.xml.rels"):
+            if archive.getinfo(name).file_size > 1024 * 1024:
+                return None
+        book = ElementTree.fromstring(archive.read("xl/workbook.xml"))
+        relations = ElementTree.fromstring(archive.read("xl/_rels/workbook.xml.rels"))
+    except (KeyError, ElementTree.ParseError):
+        return None
+    first = next((e for e in book.iter() if e.tag.endswith("}sheet")), None)
+    if first is None:
+        return None
+    target = next(
+        (e.get("Target", "") for e in relations if e.get("Id") == first.get(_RELATIONSHIP_ID)),
+        "",
+    )
+    path = target.lstrip("/") if target.startswith("/") else f"xl/{target}"
+    return path if path in archive.namelist() else None
+
+
+def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]]]:
+    _check_workbook_size(content, limits)
+    from openpyxl import load_workbook
+
+    try:
+        sheet = load_workbook(io.BytesIO(content), read_only=True, data_only=True).worksheets[0]
+    except Exception as error:  # noqa: BLE001 - any unreadable workbook is refused the same way
+        raise FileRefused(f"The workbook cannot be read: {error}") from error
+
+    def text(value):
+        if value is None:
+            return ""
+        if isinstance(value, dt.datetime | dt.date):
+            return value.isoformat()
+        return str(value)
+
+    header: list[str] = []
+    body: list[list[str]] = []
+    width = 0
+    for values in sheet.iter_rows(values_only=True, max_col=limits.columns + 1):
+        row = [text(v) for v in values]
+        if not any(cell.strip() for cell in row):
+            continue
+        if not header:
+            width = max(i for i, cell in enumerate(row) if cell.strip()) + 1
+            if width > limits.columns:
+                raise limits.too_many_columns()
+            header = [h.strip() for h in row[:width]]
+            continue
+        body.append(row[:width] + [""] * (width - len(row)))
+        if len(body) > limits.rows:
+            raise limits.too_many_rows(len(body))
+    if not header:
+        raise FileRefused("The first sheet is empty.")
+    return header, body

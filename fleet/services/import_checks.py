@@ -1,0 +1,545 @@
+"""Import checks that need the register, and the writes: each kind's rows checked against
+the database (sites, parts, motors, fitted capacitors, readings already stored) and inserted in
+bulk inside the caller's transaction. Parsing and column rules are in fleet/imports/."""
+
+from __future__ import annotations
+
+import datetime as dt
+from decimal import Decimal
+
+import numpy as np
+import pandas as pd
+from django.utils import timezone
+
+from fleet.engineering.rules import check_readings as reading_rules
+from fleet.imports.columns import (
+    CHUNK_ROWS,
+    EARLIEST_DATE,
+    HISTORY_REQUIRED,
+    OPEN_END,
+    PART_NUMBERS,
+    PART_REQUIRED,
+    READING_REQUIRED,
+    REGISTER_COLUMNS,
+    REGISTER_NUMBERS,
+    REGISTER_REQUIRED,
+    SITE_REQUIRED,
+    CheckResult,
+    _known_zone,
+    _numbers,
+    _Problems,
+    _refuse_overlaps,
+    _result,
+    finite_numbers,
+    parse_dates,
+    parse_times,
+    reading_keys,
+    repeated_in_file,
+)
+from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.roles import scope_to_user, visible_site_ids
+from fleet.services.bulk import insert_frame
+
+READING_NUMBERS = list(Reading.MEASURED_FIELDS)
+
+
+def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
+    """Rows for a motor (by `asset_tag`) or a site (by `site_code`) outside the sites `user` works at.
+
+    A user limited to some sites imports only there; `user=None` (a command) and unlimited users
+    are never refused here.
+    """
+    problems = _Problems(frame)
+    if not column or user is None or visible_site_ids(user) is None:
+        return problems
+    mine = set(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
+    if column == "site_code":
+        codes = frame["site_code"]
+        messages = codes.map("site {}, which you do not work at".format).to_numpy(dtype=object)
+        problems.add(codes.ne("") & ~codes.isin(mine), "site_code", messages)
+        return problems
+    tags = frame[column].str.upper()
+    wanted = sorted(t for t in set(tags) - {""} if "\x00" not in t)
+    site_of = {}
+    for start in range(0, len(wanted), 5000):
+        site_of |= {
+            tag.upper(): code
+            for tag, code in Motor.objects.filter(asset_tag__in=wanted[start : start + 5000])
+            .exclude(site__code__in=mine)
+            .values_list("asset_tag", "site__code")
+        }
+    if not site_of:
+        return problems
+    elsewhere = tags.map(site_of).astype(object)
+    messages = (
+        "motor " + frame[column] + " is at site " + elsewhere.fillna("") + ", which you do not work at"
+    ).to_numpy(dtype=object)
+    problems.add(elsewhere.notna().to_numpy(), column, messages)
+    return problems
+
+
+FITTED_COLUMNS = {
+    "id": "fitted_capacitor_id",
+    "motor__asset_tag": "tag",
+    "role": "role",
+    "fitted_on": "fitted_on",
+    "removed_on": "removed_on",
+    "part__rated_uf": "rated_uf",
+    "motor__frequency_hz": "frequency_hz",
+    "motor__rated_voltage_v": "voltage_v",
+    "motor__full_load_current_a": "full_load_a",
+    "motor__site__time_zone": "time_zone",
+}
+
+
+def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
+    """Every capacitor ever fitted to the motors named (upper-case tags), one query."""
+    rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
+    fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
+    fitted["tag"] = fitted["tag"].astype(str).str.upper()
+    fitted["fitted_on"] = pd.to_datetime(fitted["fitted_on"]).astype("datetime64[s]")
+    fitted["removed_on"] = pd.to_datetime(fitted["removed_on"]).astype("datetime64[s]")
+    return fitted
+
+
+def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted: pd.DataFrame) -> pd.DataFrame:
+    """For each row, the capacitor in that role on that motor that day (the latest fitted, if several): NaN if none."""
+    rows = pd.DataFrame(
+        {"i": np.arange(len(tag)), "tag": tag.to_numpy(object), "role": role.to_numpy(object), "day": day}
+    )
+    candidates = rows.merge(fitted.astype({"tag": object, "role": object}), on=["tag", "role"], how="inner")
+    in_window = (candidates["fitted_on"] <= candidates["day"]) & (
+        candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
+    )
+    match = candidates[in_window.to_numpy(bool)].sort_values(["i", "fitted_on"]).drop_duplicates("i", keep="last")
+    return match.set_index("i").reindex(np.arange(len(tag)))
+
+
+def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
+    """Validate mapped reading rows; resolve each to the capacitor fitted at the time.
+
+    Vectorised over the whole file (chunks of CHUNK_ROWS for the progress bar), with the
+    rulebook the form and the API use. A time without an offset is in the time zone of the
+    motor's site (`default_tz` for a tag not in the register, whose row is refused anyway).
+    """
+    upper_tags = frame["asset_tag"].str.upper()
+    # A NUL cannot reach PostgreSQL, not even in a lookup: such a tag is simply unknown.
+    wanted = pd.unique(upper_tags[upper_tags.ne("") & ~upper_tags.str.contains("\x00", regex=False)].to_numpy(object))
+    fitted = _fitted_of_tags(np.asarray(wanted, dtype=object))
+    zone_of_tag = fitted.drop_duplicates("tag").set_index("tag")["time_zone"]
+    now = np.datetime64(timezone.now().replace(tzinfo=None), "s")
+    good_parts, errors = [], []
+    for start in range(0, len(frame), CHUNK_ROWS):
+        chunk = frame.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
+        problems = _Problems(chunk)
+        for name in READING_REQUIRED:
+            problems.add(chunk[name].eq(""), name, "required")
+        tag = upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
+        zones = zone_of_tag.reindex(tag.to_numpy(object))
+        problems.add(zones.isna().to_numpy(), "asset_tag", "unknown asset tag: not in the register")
+        role = chunk["role"].str.lower()
+        problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
+        taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
+        problems.add(unplaced != "", "taken_at", unplaced)
+        problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
+        taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
+        match = _fitted_on_the_day(tag, role, taken_utc.astype("datetime64[D]").astype("datetime64[s]"), fitted)
+        problems.add(
+            match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy(),
+            "role",
+            "no capacitor in this role was fitted to this motor on that date",
+        )
+        # Every rule of a reading, from the one rulebook the form and the API use.
+        result = reading_rules(
+            {name: chunk[name] for name in READING_NUMBERS},
+            method=chunk["method"],
+            condition=chunk["condition"],
+            notes=chunk["notes"],
+            rated_uf=match["rated_uf"].to_numpy(float),
+            frequency_hz=match["frequency_hz"].to_numpy(float),
+            motor_voltage_v=match["voltage_v"].to_numpy(float),
+            full_load_current_a=match["full_load_a"].to_numpy(float),
+            fitted_on=pd.to_datetime(match["fitted_on"]).to_numpy("datetime64[D]"),
+            removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
+            taken_at=taken_utc,
+            now=now,
+        )
+        for name, messages in result.errors.items():
+            problems.add(messages != "", name, messages)
+        for name, messages in result.confirm.items():
+            problems.add(messages != "", name, messages + "; the import cannot confirm it: use the reading form")
+        good = ~problems.bad
+        rows = pd.DataFrame(
+            {
+                "row": chunk["row"].to_numpy()[good],
+                "fitted_capacitor_id": match["fitted_capacitor_id"].to_numpy()[good].astype(np.int64),
+                "taken_at": taken[good].reset_index(drop=True),
+                "method": result.values["method"][good],
+                "condition": result.values["condition"][good],
+                "notes": result.values["notes"][good],
+                **{name: result.values[name][good] for name in READING_NUMBERS},
+                "capacitance_uf": np.round(result.values["capacitance_uf"][good], 4),
+            }
+        )
+        rows["import_key"] = reading_keys(
+            rows["fitted_capacitor_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
+        )
+        good_parts.append(rows)
+        errors += problems.items
+        if on_progress:
+            on_progress(min(start + CHUNK_ROWS, len(frame)))
+    good = pd.concat(good_parts, ignore_index=True) if good_parts else pd.DataFrame(columns=["row", "import_key"])
+    repeated = good["import_key"].duplicated(keep="first").to_numpy()
+    if repeated.any():
+        first_row = good[~repeated].set_index("import_key")["row"]
+        later = good[repeated]
+        errors += [
+            (int(row), "taken_at", f"the same reading as row {first}")
+            for row, first in zip(later["row"], first_row.reindex(later["import_key"]).to_numpy(), strict=True)
+        ]
+        good = good[~repeated].reset_index(drop=True)
+    existing = (
+        set(
+            Reading.objects.filter(import_key__any_of=good["import_key"].to_numpy(object)).values_list(
+                "import_key", flat=True
+            )
+        )
+        if len(good)
+        else set()
+    )
+    if existing:
+        good = good[~good["import_key"].isin(existing)].reset_index(drop=True)
+    errors.sort()
+    return CheckResult(good=good, errors=errors, duplicates=len(existing), total=len(frame))
+
+
+def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
+    """Write checked readings (caller holds the transaction); returns the capacitors touched.
+
+    One `insert_frame` (COPY on PostgreSQL; the row triggers of fleet_reading run on each row as
+    for any insert). A reading whose key another import wrote meanwhile is skipped.
+    """
+    if not len(good):
+        return []
+    rows = pd.DataFrame(
+        {
+            "fitted_capacitor_id": good["fitted_capacitor_id"].to_numpy(np.int64),
+            "taken_at": good["taken_at"].array,
+            "taken_by_id": pd.array(np.full(len(good), None if user is None else user.pk), dtype="Int64"),
+            "method": good["method"].to_numpy(object),
+            **{name: good[name].to_numpy(float) for name in READING_NUMBERS},
+            "condition": good["condition"].to_numpy(object),
+            "notes": good["notes"].fillna("").to_numpy(object),
+            "source": Reading.Source.IMPORT.value,
+            "import_key": good["import_key"].to_numpy(object),
+        }
+    )
+    insert_frame(Reading, rows, skip_conflicts_on="import_key")
+    return sorted(set(good["fitted_capacitor_id"].astype(int).tolist()))
+
+
+def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
+    """Validate a motor register: sites and parts must exist; tags already there are skipped."""
+    sites = dict(Site.objects.values_list("code", "id"))
+    parts = dict(CapacitorPart.objects.values_list("code", "id"))
+    existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
+    problems = _Problems(frame)
+    for name in REGISTER_REQUIRED:
+        problems.add(frame[name].eq(""), name, "required")
+    for name in REGISTER_COLUMNS:
+        problems.add(frame[name].str.contains("\x00", regex=False), name, "contains a NUL character: remove it")
+    too_long = frame["asset_tag"].str.len() > Motor._meta.get_field("asset_tag").max_length
+    problems.add(
+        frame["asset_tag"].ne("") & ~frame["asset_tag"].str.fullmatch(CODE_PATTERN),
+        "asset_tag",
+        f"use {CODE_CHARACTERS}",
+    )
+    problems.add(too_long, "asset_tag", "longer than 40 characters")
+    problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
+    numbers = _numbers(frame, REGISTER_NUMBERS, problems)
+    problems.add(~frame["site_code"].isin(sites), "site_code", "unknown site code: add the site first")
+    for name, allowed in (
+        ("application", Motor.Application.values),
+        ("motor_type", Motor.MotorType.values),
+        ("load_type", Motor.LoadType.values),
+    ):
+        problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed))
+    volts, hertz, poles = numbers["rated_voltage_v"], numbers["frequency_hz"], numbers["poles"]
+    problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
+    problems.add(~np.isin(hertz, [50, 60]), "frequency_hz", "must be 50 or 60")
+    problems.add(~np.isin(poles, [2, 4, 6, 8, 10, 12]), "poles", "must be 2, 4, 6, 8, 10 or 12")
+    for name in ("output_w", "full_load_current_a"):
+        problems.add(numbers[name] <= 0, name, "must be above zero")
+    synchronous = 120.0 * hertz / np.where(poles > 0, poles, np.nan)
+    problems.add(
+        numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)"
+    )
+    kind = frame["motor_type"].str.lower()
+    needs_run = kind.isin(["permanent_split", "two_value"])
+    needs_start = kind.isin(["capacitor_start", "two_value"])
+    problems.add(needs_run & frame["run_part_code"].eq(""), "run_part_code", "this motor type has a run capacitor")
+    problems.add(
+        needs_start & frame["start_part_code"].eq(""), "start_part_code", "this motor type has a start capacitor"
+    )
+    for name in ("run_part_code", "start_part_code"):
+        problems.add(frame[name].ne("") & ~frame[name].isin(parts), name, "unknown part code: add the part first")
+    for name in ("fitted_on", "commissioned_on"):
+        parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
+        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
+        problems.add(parsed > pd.Timestamp(timezone.localdate()), name, "in the future")
+    tags = frame["asset_tag"].str.upper()
+    repeated = tags.duplicated(keep="first") & tags.ne("")
+    first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
+    problems.add(
+        repeated, "asset_tag", np.array([f"the same tag as row {first_row.get(t)}" for t in tags], dtype=object)
+    )
+    already = tags.isin(existing).to_numpy() & ~problems.bad
+    good_mask = ~problems.bad & ~already
+    good = frame[good_mask].copy()
+    for name in REGISTER_NUMBERS:
+        good[name] = numbers[name][good_mask]
+    good["site_id"] = good["site_code"].map(sites)
+    if on_progress:
+        on_progress(len(frame))
+    return CheckResult(
+        good=good.reset_index(drop=True), errors=sorted(problems.items), duplicates=int(already.sum()), total=len(frame)
+    )
+
+
+def insert_register(good: pd.DataFrame) -> list[int]:
+    """Create motors and their fitted capacitors (caller holds the transaction)."""
+    parts = dict(CapacitorPart.objects.values_list("code", "id"))
+    motors = Motor.objects.bulk_create(
+        [
+            Motor(
+                asset_tag=row.asset_tag,
+                site_id=int(row.site_id),
+                location=row.location,
+                application=row.application.lower(),
+                motor_type=row.motor_type.lower(),
+                load_type=row.load_type.lower(),
+                rated_voltage_v=row.rated_voltage_v,
+                frequency_hz=int(row.frequency_hz),
+                poles=int(row.poles),
+                output_w=row.output_w,
+                full_load_current_a=row.full_load_current_a,
+                rated_speed_rpm=row.rated_speed_rpm,
+                commissioned_on=dt.date.fromisoformat(row.commissioned_on[:10]) if row.commissioned_on else None,
+            )
+            for row in good.itertuples(index=False)
+        ],
+        batch_size=2000,
+    )
+    fitted = []
+    for motor, row in zip(motors, good.itertuples(index=False), strict=True):
+        fitted_on = dt.date.fromisoformat(row.fitted_on[:10])
+        for role, code in (
+            (FittedCapacitor.Role.RUN, row.run_part_code),
+            (FittedCapacitor.Role.START, row.start_part_code),
+        ):
+            if code:
+                fitted.append(FittedCapacitor(motor=motor, role=role, part_id=parts[code], fitted_on=fitted_on))
+    FittedCapacitor.objects.bulk_create(fitted, batch_size=2000)
+    return [m.id for m in motors]
+
+
+def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
+    """Sites: code, name and a time zone zoneinfo knows; codes already in the register are skipped."""
+    problems = _Problems(frame)
+    for name in SITE_REQUIRED:
+        problems.add(frame[name].eq(""), name, "required")
+    zones = {name: _known_zone(name) for name in set(frame["time_zone"])}
+    problems.add(
+        ~frame["time_zone"].map(zones).astype(bool),
+        "time_zone",
+        "not a time zone name: use one like Europe/Madrid, America/Chicago or UTC",
+    )
+    repeated_in_file(problems, frame["code"].where(frame["code"].ne("")), "code", "the same site code")
+    already = frame["code"].isin(set(Site.objects.values_list("code", flat=True))).to_numpy()
+    return _result(frame, problems, already, on_progress)
+
+
+def insert_sites(good: pd.DataFrame) -> int:
+    Site.objects.bulk_create(
+        [Site(code=row.code, name=row.name, time_zone=row.time_zone) for row in good.itertuples(index=False)],
+        batch_size=2000,
+    )
+    return len(good)
+
+
+def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
+    """Capacitor parts with the catalogue's field names; the database's constraints checked first."""
+    problems = _Problems(frame)
+    for name in PART_REQUIRED:
+        problems.add(frame[name].eq(""), name, "required")
+    numbers = finite_numbers(frame, PART_NUMBERS, problems)
+    rated, minus, plus = numbers["rated_uf"], numbers["tolerance_minus_pct"], numbers["tolerance_plus_pct"]
+    problems.add((rated <= 0) | (rated > 10_000), "rated_uf", "outside 0 to 10,000 µF: check the unit")
+    problems.add((minus < 0) | (minus >= 100), "tolerance_minus_pct", "must be from 0 to below 100 %")
+    problems.add((plus < 0) | (plus > 100), "tolerance_plus_pct", "must be from 0 to 100 %")
+    volts = numbers["rated_voltage_v"]
+    problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
+    problems.add(~np.isin(numbers["frequency_hz"], [50, 60]), "frequency_hz", "must be 50 or 60")
+    case = numbers["max_case_temperature_c"]
+    problems.add((case < 0) | (case > 150), "max_case_temperature_c", "outside 0 to 150 C")
+    factor = numbers["max_dissipation_factor"]
+    problems.add((factor <= 0) | (factor >= 1), "max_dissipation_factor", "must be a fraction above 0 and below 1")
+    cost = numbers["unit_cost"]
+    problems.add((cost < 0) | (cost >= 1e8), "unit_cost", "must be from 0 to below 100,000,000")
+    for name, choices in (
+        ("dielectric", CapacitorPart.Dielectric.values),
+        ("class_of_operation", CapacitorPart.OperationClass.values),
+        ("safety_class", CapacitorPart.SafetyClass.values),
+    ):
+        given = frame[name].str.lower() if name == "dielectric" else frame[name].str.upper()
+        problems.add(given.ne("") & ~given.isin(choices), name, "must be one of " + ", ".join(choices))
+    repeated_in_file(problems, frame["code"].where(frame["code"].ne("")), "code", "the same part code")
+    already = frame["code"].isin(set(CapacitorPart.objects.values_list("code", flat=True))).to_numpy()
+    good = frame.copy()
+    for name in PART_NUMBERS:
+        good[name] = numbers[name]
+    return _result(good, problems, already, on_progress)
+
+
+def insert_parts(good: pd.DataFrame) -> int:
+    def optional(value, default=None):
+        return default if np.isnan(value) else float(value)
+
+    CapacitorPart.objects.bulk_create(
+        [
+            CapacitorPart(
+                code=row.code,
+                description=row.description,
+                rated_uf=float(row.rated_uf),
+                tolerance_minus_pct=float(row.tolerance_minus_pct),
+                tolerance_plus_pct=float(row.tolerance_plus_pct),
+                rated_voltage_v=float(row.rated_voltage_v),
+                frequency_hz=int(row.frequency_hz),
+                dielectric=row.dielectric.lower(),
+                class_of_operation=row.class_of_operation.upper(),
+                duty=row.duty,
+                safety_class=row.safety_class.upper(),
+                max_case_temperature_c=optional(row.max_case_temperature_c, 70.0),
+                max_dissipation_factor=optional(row.max_dissipation_factor),
+                unit_cost=Decimal(f"{optional(row.unit_cost, 0.0):.2f}"),
+            )
+            for row in good.itertuples(index=False)
+        ],
+        batch_size=2000,
+    )
+    return len(good)
+
+
+def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
+    """Past (and present) fitted capacitors, the failures and suspensions of life data.
+
+    Dates must hang together: removed on or after fitting, a reason exactly when
+    removed, no overlap with another capacitor of the same motor and role (in the
+    file or in the register), so at most one in service. A capacitor already in
+    the register (same motor, role and fitting date) is skipped.
+    """
+    problems = _Problems(frame)
+    for name in HISTORY_REQUIRED:
+        problems.add(frame[name].eq(""), name, "required")
+    tags = frame["asset_tag"].str.upper()
+    known = Motor.objects.filter(asset_tag__any_of=np.array(sorted(set(tags) - {""}), dtype=object))
+    motors = pd.DataFrame.from_records(
+        list(known.values_list("id", "asset_tag", "motor_type")),
+        columns=["motor_id", "tag", "motor_type"],
+    )
+    motors["tag"] = motors["tag"].str.upper()
+    motor = motors.drop_duplicates("tag").set_index("tag").reindex(tags)
+    problems.add(motor["motor_id"].isna().to_numpy(), "asset_tag", "unknown asset tag: not in the register")
+    role = frame["role"].str.lower()
+    problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
+    has_role = np.where(
+        role.eq(FittedCapacitor.Role.RUN),
+        motor["motor_type"].isin([Motor.MotorType.PERMANENT_SPLIT, Motor.MotorType.TWO_VALUE]).to_numpy(),
+        motor["motor_type"].isin([Motor.MotorType.CAPACITOR_START, Motor.MotorType.TWO_VALUE]).to_numpy(),
+    )
+    problems.add(
+        ~has_role,
+        "role",
+        np.array(
+            [
+                f"a {t} motor has no {r} capacitor"
+                for t, r in zip(motor["motor_type"].fillna("").str.replace("_", "-"), role, strict=True)
+            ],
+            dtype=object,
+        ),
+    )
+    parts = dict(CapacitorPart.objects.values_list("code", "id"))
+    problems.add(~frame["part_code"].isin(parts), "part_code", "unknown part code: add the part first")
+    today = pd.Timestamp(timezone.localdate())
+    fitted, removed = parse_dates(frame["fitted_on"]), parse_dates(frame["removed_on"])
+    for name, parsed in (("fitted_on", fitted), ("removed_on", removed)):
+        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
+        problems.add(parsed > today, name, "in the future")
+        problems.add(parsed < EARLIEST_DATE, name, "before 1950: check the date")
+    problems.add(removed < fitted, "removed_on", "before fitted_on")
+    reason = frame["removal_reason"].str.lower()
+    problems.add(removed.notna() & reason.eq(""), "removal_reason", "required when removed_on is given")
+    problems.add(
+        removed.isna() & reason.ne(""), "removal_reason", "given for a capacitor still in service: add removed_on"
+    )
+    problems.add(
+        reason.ne("") & ~reason.isin(FittedCapacitor.RemovalReason.values),
+        "removal_reason",
+        "must be failed, planned or other",
+    )
+    rows = pd.DataFrame(
+        {
+            "row": frame["row"].to_numpy(),
+            "motor_id": motor["motor_id"].to_numpy(float),
+            "role": role.to_numpy(),
+            "start": fitted.astype("datetime64[ns]").to_numpy(),
+            "end": removed.astype("datetime64[ns]").fillna(OPEN_END).to_numpy(),
+        }
+    )
+    keys = rows["motor_id"].astype(str) + "|" + rows["role"] + "|" + rows["start"].astype(str)
+    repeated_in_file(problems, keys.where(~problems.bad), "fitted_on", "the same capacitor (motor, role, fitted_on)")
+    register = pd.DataFrame.from_records(
+        list(
+            FittedCapacitor.objects.filter(motor_id__any_of=motors["motor_id"].to_numpy(np.int64)).values_list(
+                "motor_id", "role", "fitted_on", "removed_on"
+            )
+        ),
+        columns=["motor_id", "role", "start", "end"],
+    )
+    register = register.astype({"motor_id": float})
+    register["start"] = pd.to_datetime(register["start"]).astype("datetime64[ns]")
+    register["end"] = pd.to_datetime(register["end"]).astype("datetime64[ns]").fillna(OPEN_END)
+    register["row"] = 0  # not a row of the file
+    keys_in_register = register[["motor_id", "role", "start"]].drop_duplicates().assign(found=True)
+    already = rows.merge(keys_in_register, on=["motor_id", "role", "start"], how="left")["found"].notna().to_numpy()
+    _refuse_overlaps(problems, rows[~problems.bad & ~already], register)
+    good = frame.assign(
+        motor_id=rows["motor_id"],
+        role=role,
+        part_id=frame["part_code"].map(parts),
+        fitted_on=fitted.dt.date,
+        removed_on=removed.dt.date,
+        removal_reason=reason,
+    )
+    return _result(good, problems, already, on_progress)
+
+
+def insert_history(good: pd.DataFrame) -> list[int]:
+    """Create the fitted capacitors; returns their ids (their refits are queued by the caller)."""
+    created = FittedCapacitor.objects.bulk_create(
+        [
+            FittedCapacitor(
+                motor_id=int(row.motor_id),
+                role=row.role,
+                part_id=int(row.part_id),
+                serial=row.serial,
+                fitted_on=row.fitted_on,
+                removed_on=None if pd.isna(row.removed_on) else row.removed_on,
+                removal_reason=row.removal_reason,
+                notes=row.notes,
+            )
+            for row in good.itertuples(index=False)
+        ],
+        batch_size=2000,
+    )
+    return [c.id for c in created]

@@ -1,0 +1,252 @@
+"""Field work: a reading, a replacement, a site's route, labels and spares held."""
+
+from __future__ import annotations
+
+import io
+import uuid
+
+import segno
+from django.contrib import messages
+from django.contrib.auth.decorators import permission_required
+from django.core.exceptions import PermissionDenied, ValidationError
+from django.core.paginator import Paginator
+from django.shortcuts import get_object_or_404, redirect, render
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.engineering.rules import RULES
+from fleet.filters import LabelsPage, RoutePage, page_values
+from fleet.forms import LOCAL_MINUTE, ReadingForm, ReplacementForm
+from fleet.models import CapacitorPart, Motor, Site
+from fleet.roles import scope_to_user
+from fleet.services import pages
+from fleet.services.readings import NeedsConfirmation, reading_to_correct, record_reading, replace_capacitor
+from fleet.services.register import set_route_order, set_site_stock
+from fleet.services.selectors import successor_of
+from fleet.services.substitutes import design_part, substitutes_for
+from fleet.views.register import fitted_capacitor_or_404, worst_case_energy_j
+
+
+@permission_required("fleet.add_reading", raise_exception=True)
+def reading_new(request, fitted_capacitor_id):
+    fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
+    needs_confirmation = False
+    zone = fitted_capacitor.motor.site.time_zone
+    if request.method == "POST":
+        form = ReadingForm(request.POST, time_zone=zone)
+        if form.is_valid():
+            try:
+                reading = record_reading(
+                    fitted_capacitor=fitted_capacitor,
+                    values=form.measured_values(),
+                    user=request.user,
+                    confirmed=form.cleaned_data["confirmed"],
+                    client_key=form.cleaned_data["client_key"],
+                    supersedes_id=form.cleaned_data["supersedes"],
+                )
+            except NeedsConfirmation as error:
+                needs_confirmation = True
+                form.add_error(None, error)
+            except ValidationError as error:
+                _add_errors(form, error)
+                if "client_key" in error.message_dict:  # a page saved before, sent with new values: a new key
+                    form.data = form.data.copy()
+                    form.data["client_key"] = uuid.uuid4().hex
+            else:
+                saved = "was already saved (sent twice)" if reading.replayed else "saved"
+                messages.success(
+                    request,
+                    f"Reading {saved} for {fitted_capacitor.motor.asset_tag} "
+                    f"({fitted_capacitor.get_role_display().lower()} capacitor).",
+                )
+                # ?saved= tells the page to drop the draft the phone kept of this form.
+                return redirect(
+                    f"{reverse('motor', args=[fitted_capacitor.motor.asset_tag])}?saved={fitted_capacitor.id}"
+                )
+    else:
+        form = ReadingForm(initial={"supersedes": request.GET.get("corrects")}, time_zone=zone)
+    correcting, correction_problem = None, ""
+    try:
+        correcting = reading_to_correct(fitted_capacitor, form["supersedes"].value())
+    except ValidationError as error:
+        correction_problem = " ".join(error.messages)
+    if correcting and not form.is_bound:  # a correction is taken when the reading it corrects was
+        form.initial["taken_at"] = timezone.localtime(correcting.taken_at, form.zone).strftime(LOCAL_MINUTE)
+    assessment = fitted_capacitor.assessments.filter(is_current=True).first()
+    successor = successor_of(fitted_capacitor)
+    context = {
+        "successor": successor,
+        "fitted_capacitor": fitted_capacitor,
+        "motor": fitted_capacitor.motor,
+        "part": fitted_capacitor.part,
+        "form": form,
+        "needs_confirmation": needs_confirmation,
+        "correcting": correcting,
+        "correction_problem": correction_problem,
+        "assessment": assessment,
+        "recent": pages.recent_readings(fitted_capacitor),
+        "energy_j": worst_case_energy_j(fitted_capacitor.part),
+        "rules": RULES.as_dict(),
+    }
+    with timezone.override(form.zone):  # the last readings in the site's time, as the form takes it
+        return render(request, "fleet/reading_form.html", context)
+
+
+def _add_errors(form, error: ValidationError) -> None:
+    """Attach a service's errors to the form's fields (unknown and hidden fields to the top)."""
+    for field, field_messages in error.message_dict.items():
+        shown = field in form.fields and not form.fields[field].widget.is_hidden
+        form.add_error(field if shown else None, field_messages)
+
+
+def _stock_message(request, successor) -> None:
+    site = successor.motor.site.code
+    if successor.from_stock:
+        messages.info(request, f"Stock at {site}: {successor.stock_left} of {successor.part.code} left.")
+    else:
+        messages.warning(
+            request, f"No {successor.part.code} was in stock at {site}: the replacement is recorded, the stock shows 0."
+        )
+
+
+@permission_required("fleet.add_fittedcapacitor", raise_exception=True)
+def replace(request, fitted_capacitor_id):
+    fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
+    if fitted_capacitor.removed_on and request.method != "POST":  # a POST is refused by the service, with the form
+        context = {
+            "fitted_capacitor": fitted_capacitor,
+            "motor": fitted_capacitor.motor,
+            "successor": successor_of(fitted_capacitor),
+        }
+        return render(request, "fleet/replace.html", context)
+    design = design_part(fitted_capacitor)
+    form = ReplacementForm(request.POST or None, fitted_capacitor=fitted_capacitor, design=design)
+    if request.method == "POST" and form.is_valid():
+        try:
+            successor = replace_capacitor(
+                fitted_capacitor=fitted_capacitor,
+                part=form.cleaned_data["part"],
+                removed_on=form.cleaned_data["removed_on"],
+                reason=form.cleaned_data["removal_reason"],
+                user=request.user,
+                serial=form.cleaned_data["serial"],
+                notes=form.cleaned_data["notes"],
+                substitute_override=form.cleaned_data["substitute_override"],
+                override_reason=form.cleaned_data["override_reason"],
+            )
+        except ValidationError as error:
+            _add_errors(form, error)
+        else:
+            if successor.replayed:
+                messages.success(
+                    request,
+                    "This replacement was already recorded (sent twice). Log the new capacitor's first reading now.",
+                )
+            else:
+                messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
+                _stock_message(request, successor)
+            return redirect("reading_new", fitted_capacitor_id=successor.id)
+    advice = substitutes_for(fitted_capacitor)
+    choosable = set(form.fields["part"].queryset.values_list("id", flat=True))
+    chosen = str(form["part"].value() or "")
+    context = {
+        "fitted_capacitor": fitted_capacitor,
+        "motor": fitted_capacitor.motor,
+        "form": form,
+        "energy_j": worst_case_energy_j(fitted_capacitor.part),
+        "advice": advice,
+        "singles": [i for i in advice["items"] if i["arrangement"] == "single" and i["part_ids"][0] in choosable],
+        "pairs": [i for i in advice["items"] if i["arrangement"] != "single" and i["verdict"] != "unsuitable"],
+        "chosen": chosen,
+        "design": design,
+    }
+    return render(request, "fleet/replace.html", context)
+
+
+ROUTE_PAGE_SIZE = 100  # motors a route page lists
+LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def site_route(request, site_code):
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+    order_errors = {}
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.change_motor"):
+            raise PermissionDenied
+        positions = {
+            int(k.removeprefix("order-")): v
+            for k, v in request.POST.items()
+            if k.startswith("order-") and k[6:].isdigit()
+        }
+        try:
+            set_route_order(site=site, positions=positions)
+        except ValidationError as error:
+            order_errors = error.message_dict
+        else:
+            messages.success(request, "Walking order saved.")
+            return redirect(f"{reverse('route', args=[site.code])}?{request.GET.urlencode()}")
+    values = page_values(RoutePage, request)
+    only_due = values.get("show") == "due"
+    motors, counts, quarter_start = pages.route_for_site(site, only_due=only_due)
+    context = {
+        "site": site,
+        "page": Paginator(motors, ROUTE_PAGE_SIZE).get_page(request.GET.get("page")),
+        "total": counts["total"],
+        "due": counts["due"],
+        "only_due": only_due,
+        "quarter_start": quarter_start,
+        "order_errors": order_errors,
+    }
+    return render(request, "fleet/route.html", context)
+
+
+def _qr_svg(request, motor: Motor) -> str:
+    url = request.build_absolute_uri(reverse("motor", kwargs={"asset_tag": motor.asset_tag}))
+    buffer = io.BytesIO()
+    segno.make(url, error="m").save(buffer, kind="svg", scale=4, border=1, xmldecl=False, svgns=True)
+    return buffer.getvalue().decode()
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def labels(request, site_code):
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+    motors = Motor.objects.filter(site=site).order_by("route_order", "asset_tag")
+    values = page_values(LabelsPage, request)
+    tag = values.get("tag")
+    if tag:
+        motors = motors.filter(asset_tag=tag)
+    page = Paginator(motors, LABELS_PAGE_SIZE).get_page(request.GET.get("page"))
+    labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
+    return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page, "tag": tag})
+
+
+@permission_required("fleet.view_sitestock", raise_exception=True)
+def site_stock(request, site_code):
+    """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+    errors, typed = {}, {}
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.change_sitestock"):
+            raise PermissionDenied
+        # qty-<part id>: the quantity typed; was-<part id>: the quantity the page showed
+        quantities, shown = (
+            {int(k[4:]): v for k, v in request.POST.items() if k[:4] == prefix and k[4:].isdigit()}
+            for prefix in ("qty-", "was-")
+        )
+        try:
+            set_site_stock(site=site, quantities=quantities, shown=shown)
+        except ValidationError as error:
+            errors = error.message_dict
+            typed = {i: text for i, text in quantities.items() if text.strip() != shown.get(i, "").strip()}
+        else:
+            messages.success(request, "Stock saved.")
+            return redirect("site_stock", site_code=site.code)
+    held = dict(site.stock.values_list("part_id", "quantity"))
+    # Each row: the part, the quantity in its box (as typed when the save was refused), the quantity held now
+    # (sent back as what the page showed, so a replacement meanwhile is not undone).
+    rows = [
+        (part, typed.get(part.id, held.get(part.id, 0)), held.get(part.id, 0))
+        for part in CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")
+    ]
+    return render(request, "fleet/stock.html", {"site": site, "rows": rows, "errors": errors})

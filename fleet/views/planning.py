@@ -1,0 +1,117 @@
+"""Planning: the plan, work orders and visit sheets, the dashboard, stand-in parts."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+from django.contrib import messages
+from django.contrib.auth.decorators import permission_required
+from django.core.exceptions import PermissionDenied
+from django.core.paginator import Paginator
+from django.http import Http404, StreamingHttpResponse
+from django.shortcuts import get_object_or_404, redirect, render
+from django.utils import timezone
+
+from fleet.exports import Column, Table, stream_csv
+from fleet.filters import plan_parameters
+from fleet.models import Site
+from fleet.roles import scope_to_user
+from fleet.services import pages
+from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
+from fleet.services.dashboard import dashboard, dashboard_table
+from fleet.services.substitutes import part_families
+from fleet.services.workorders import issue_visit, open_visits, open_visits_page, plan_work_orders
+
+
+@permission_required("fleet.view_assessment", raise_exception=True)
+def plan(request):
+    site, horizon, problems = plan_parameters(request.GET, request=request)
+    for problem in problems:
+        messages.warning(request, f"Ignored {problem}")
+    paginator = Paginator(pages.replacement_plan(horizon, site, request.user), 50)
+    page = paginator.get_page(request.GET.get("page"))
+    context = {
+        "page": page,
+        "horizon": horizon,
+        "site": site,
+        "sites": scope_to_user(Site.objects.all(), request.user),
+        "spares": pages.spares_needed(horizon, site, request.user),
+        "risks": pages.risk_summary(request.user),
+    }
+    context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user)
+    return render(request, "fleet/plan.html", context)
+
+
+@permission_required("fleet.view_workorder", raise_exception=True)
+def work_orders(request):
+    """Open work orders by site visit; planners create them from the plan and issue visits."""
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.add_workorder"):  # planning and issuing are the planner's
+            raise PermissionDenied
+        action = request.POST.get("action")
+        if action == "plan":
+            _, horizon, problems = plan_parameters(request.POST.dict() | {"site": ""}, request=request)
+            if problems:
+                messages.error(request, f"No work orders planned: {'; '.join(problems)}.")
+                return redirect("work_orders")
+            counts = plan_work_orders(horizon_days=horizon, user=request.user)
+            messages.success(
+                request,
+                f"{counts['created']} work orders created, {counts['replanned']} re-dated, "
+                f"in {counts['visits']} site visits.",
+            )
+        elif action == "issue":
+            try:
+                day = dt.date.fromisoformat(request.POST.get("day", ""))
+                site_id = int(request.POST.get("site", ""))
+            except ValueError:
+                messages.error(request, "That visit could not be found: reload the page and try again.")
+            else:
+                issued = issue_visit(site_id=site_id, due_on=day, user=request.user)
+                if issued:
+                    messages.success(request, f"{issued} work orders issued to the technicians.")
+                else:
+                    messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
+        return redirect("work_orders")
+    page = open_visits_page(request.GET.get("page"), user=request.user)
+    return render(request, "fleet/work_orders.html", {"page": page, "visits": page.object_list})
+
+
+@permission_required("fleet.view_workorder", raise_exception=True)
+def visit_sheet(request, site_code, day):
+    """A printable sheet for one site visit: the orders, the spares, the cautions."""
+    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+    try:
+        visits = open_visits(site.id, dt.date.fromisoformat(day), user=request.user)
+    except ValueError:
+        visits = []
+    if not visits:
+        raise Http404("No open work orders for that visit")
+    return render(request, "fleet/visit_sheet.html", {"visit": visits[0], "site": site})
+
+
+@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+def stand_in_parts(request):
+    """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
+    return render(request, "fleet/stand_in_parts.html", {"families": part_families(request.user)})
+
+
+@permission_required("fleet.view_assessment", raise_exception=True)
+def planner_dashboard(request):
+    return render(request, "fleet/dashboard.html", dashboard(request.user))
+
+
+@permission_required("fleet.view_assessment", raise_exception=True)
+def dashboard_csv(request, name):
+    if name not in DASHBOARD_TABLES:
+        raise Http404("No such table")
+    header, rows = dashboard_table(name, request.user)
+    table = Table(name, [Column(heading) for heading in header], rows)
+    response = StreamingHttpResponse(stream_csv(table), content_type="text/csv; charset=utf-8")
+    response["Content-Disposition"] = f'attachment; filename="dashboard-{name}-{timezone.localdate():%Y-%m-%d}.csv"'
+    return response
+
+
+def after_sign_in(request):
+    """Where sign-in lands: planners (who plan work orders) on their dashboard, everyone else home."""
+    return redirect("dashboard" if request.user.has_perm("fleet.add_workorder") else "home")

@@ -1,0 +1,94 @@
+"""Pages of the register: home, find a motor, a motor, a fitted capacitor."""
+
+from __future__ import annotations
+
+from django.contrib.auth.decorators import permission_required
+from django.http import Http404
+from django.shortcuts import get_object_or_404, redirect, render
+
+from fleet.engineering.capacitor import stored_energy_j
+from fleet.forms import FindMotorForm
+from fleet.models import FittedCapacitor, Motor, Site
+from fleet.roles import scope_to_user
+from fleet.services import pages
+from fleet.services.operating_pictures import motor_pictures
+from fleet.services.selectors import successor_of
+
+
+def home(request):
+    context = {"find_form": FindMotorForm(), "sites": scope_to_user(Site.objects.all(), request.user)}
+    if request.user.has_perm("fleet.view_assessment"):
+        context["risks"] = pages.risk_summary(request.user)
+        due = pages.replacement_plan(horizon_days=30, user=request.user)
+        context["plan"], context["plan_total"] = due[:15], due.count()
+        context["run"] = pages.latest_refit_run()
+    return render(request, "fleet/home.html", context)
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def find_motor(request):
+    form = FindMotorForm(request.GET or None)
+    matches, more = [], False
+    if form.is_valid():
+        text = form.cleaned_data["tag"]
+        motor, matches, count = pages.find_motors(text, request.user)
+        if motor is not None:
+            return redirect("motor", asset_tag=motor.asset_tag)
+        more = count > len(matches)
+        if not matches:
+            form.add_error(
+                "tag", f"No motor's tag, place or site matches {text.strip()!r}. Check the label, or go by site below."
+            )
+    sites = scope_to_user(Site.objects.all(), request.user)
+    return render(request, "fleet/find.html", {"find_form": form, "sites": sites, "matches": matches, "more": more})
+
+
+@permission_required("fleet.view_motor", raise_exception=True)
+def motor_detail(request, asset_tag):
+    try:
+        motor = pages.motor_with_capacitors(asset_tag)
+    except Motor.DoesNotExist as error:
+        raise Http404(f"No motor {asset_tag}") from error
+    if not scope_to_user(Motor.objects.filter(pk=motor.pk), request.user).exists():
+        raise Http404(f"No motor {asset_tag}")
+    in_service = [c for c in motor.fitted if c.removed_on is None]
+    removed = [c for c in motor.fitted if c.removed_on is not None]
+    for capacitor in in_service:
+        capacitor.assessment = capacitor.current[0] if capacitor.current else None
+        capacitor.recent = pages.recent_readings(capacitor, 4)
+    pictures = motor_pictures(in_service) if motor.has_circuit else {}
+    for capacitor in in_service:
+        capacitor.charts = [
+            {"id": f"{name}-{capacitor.id}", "data_id": f"{name}-{capacitor.id}-data", "figure": figure}
+            for name, figure in pictures.get(capacitor.id, {}).items()
+        ]
+    energy = max((worst_case_energy_j(c.part) for c in in_service), default=None)
+    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy, "pictures": pictures}
+    return render(request, "fleet/motor.html", context)
+
+
+def worst_case_energy_j(part) -> float:
+    """Worst-case stored energy: the part charged to the peak of its rated voltage."""
+    return float(stored_energy_j(part.rated_uf, part.rated_voltage_v))
+
+
+def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:
+    """A fitted capacitor at one of the user's sites, or 404."""
+    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor__site", "part"), request.user)
+    return get_object_or_404(capacitors, pk=fitted_capacitor_id)
+
+
+@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+def fitted_capacitor_detail(request, fitted_capacitor_id):
+    fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
+    assessment = fitted_capacitor.assessments.filter(is_current=True).first()
+    successor = successor_of(fitted_capacitor)
+    context = {
+        "successor": successor,
+        "fitted_capacitor": fitted_capacitor,
+        "motor": fitted_capacitor.motor,
+        "assessment": assessment,
+        "chart": pages.trend_chart(fitted_capacitor, assessment),
+        "readings": pages.recent_readings(fitted_capacitor, 40),
+    }
+    return render(request, "fleet/capacitor.html", context)

@@ -1,0 +1,80 @@
+"""The layout's promises: one name for a fitted capacitor (old addresses still reach its pages, a
+phone's unsent draft keeps its key), page parameters read by django-filter (a bad value is named,
+never a 500), and import parsing that needs no database."""
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from django.urls import reverse
+
+from tests.factories import make_fitted_capacitor
+
+pytestmark = pytest.mark.django_db
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.mark.parametrize("tail", ["", "reading/", "replace/"])
+def test_the_old_addresses_of_a_fitted_capacitor_redirect_for_good(client, technician, tail):
+    """Printed labels, QR codes and bookmarks carry /capacitors/<id>/...: they must keep working."""
+    fitted = make_fitted_capacitor()
+    client.force_login(technician)
+    response = client.get(f"/capacitors/{fitted.id}/{tail}?corrects=7")
+    assert response.status_code == 301
+    assert response["Location"] == f"/fitted-capacitors/{fitted.id}/{tail}?corrects=7"
+
+
+def test_the_fitted_capacitor_page_lives_under_its_own_name(client, engineer):
+    fitted = make_fitted_capacitor()
+    client.force_login(engineer)
+    assert reverse("fitted_capacitor", args=[fitted.id]) == f"/fitted-capacitors/{fitted.id}/"
+    page = client.get(reverse("fitted_capacitor", args=[fitted.id])).content.decode()
+    assert f"fitted {fitted.get_role_display().lower()} capacitor {fitted.part.code}" in page
+
+
+def test_the_reading_form_keeps_the_key_of_a_draft_saved_before_the_rename(client, technician):
+    """A technician's unsent draft sits in the phone under "reading-draft-<id>": the key must not change."""
+    fitted = make_fitted_capacitor()
+    client.force_login(technician)
+    page = client.get(reverse("reading_new", args=[fitted.id])).content.decode()
+    assert f'data-fitted-capacitor="{fitted.id}"' in page
+    assert '"reading-draft-" + form.dataset.fittedCapacitor' in page
+
+
+@pytest.mark.parametrize(
+    "url,parameter",
+    [
+        ("/sites/{site}/route/?show=everything", "show"),
+        ("/sites/{site}/labels/?tag=" + "X" * 41, "tag"),
+        ("/life/?part=" + "P" * 41, "part"),
+        ("/life/?planned_cost=1.200,5", "planned cost"),
+    ],
+)
+def test_a_page_parameter_it_cannot_read_is_named_on_the_page(client, administrator, url, parameter):
+    fitted = make_fitted_capacitor()
+    client.force_login(administrator)
+    response = client.get(url.format(site=fitted.motor.site.code), follow=True)
+    assert response.status_code == 200
+    notes = [str(m) for m in response.context["messages"]]
+    assert any(parameter in note for note in notes), notes
+
+
+def test_a_route_parameter_it_reads_still_filters(client, administrator):
+    fitted = make_fitted_capacitor()
+    client.force_login(administrator)
+    response = client.get(f"/sites/{fitted.motor.site.code}/route/?show=due")
+    assert response.status_code == 200 and response.context["only_due"] is True
+    assert not list(response.context["messages"])
+
+
+def test_import_parsing_and_column_rules_load_without_the_database_layer():
+    """fleet/imports/ holds no ORM access: importing it must not load django.db."""
+    code = (
+        "import os, sys; os.environ['DJANGO_SETTINGS_MODULE'] = 'config.settings'; "
+        "import fleet.imports.files, fleet.imports.columns; "
+        "loaded = [m for m in sys.modules if m == 'django.db' or m.startswith('django.db.')]; "
+        "print(loaded); sys.exit(1 if loaded else 0)"
+    )
+    result = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True)
+    assert result.returncode == 0, result.stdout + result.stderr
