@@ -98,31 +98,6 @@ def test_a_limit_breached_at_rated_capacitance_is_a_finding_not_wear():
 
 
 @pytest.mark.django_db
-def test_a_limit_inside_the_parts_own_tolerance_is_a_design_finding_not_wear():
-    """A motor limit reached above the part's lower tolerance could be breached by a new capacitor in
-    tolerance: replacing cannot cure it, so it is set aside with a note and never plans a replacement.
-    (Common practice of the trade, no single source: a capacitor inside its marked tolerance is good.)"""
-    narrow = make_fitted_capacitor()
-    _ageing(narrow, [0, 0.2, 0.4, 0.6])
-    wide = make_fitted_capacitor(part=make_part(tolerance_minus_pct=40))  # lower tolerance at 0.60 of rated
-    _ageing(wide, [0, 0.2, 0.4, 0.6])
-    refit_fitted_capacitors([narrow.id, wide.id])
-    by_name = {
-        inst.id: {
-            limit["name"]: limit for limit in Assessment.objects.get(fitted_capacitor=inst, is_current=True).limits
-        }
-        for inst in (narrow, wide)
-    }
-    main_current = by_name[narrow.id]["main-winding current"]["fraction_of_rated"]
-    torque = by_name[narrow.id]["starting torque"]["fraction_of_rated"]
-    assert torque < 0.60 < main_current < 0.95  # the example fan's limits straddle the wide part's tolerance
-    assert by_name[narrow.id]["main-winding current"]["used"] is True
-    inside = by_name[wide.id]["main-winding current"]
-    assert inside["used"] is False and "inside the part's tolerance" in inside["note"] and "0.600" in inside["note"]
-    assert by_name[wide.id]["starting torque"]["used"] is True and by_name[wide.id]["starting torque"]["note"] == ""
-
-
-@pytest.mark.django_db
 def test_estimated_capacitor_voltage_far_from_the_measured_one_sets_the_motor_limits_aside():
     fitted_capacitor = make_fitted_capacitor()
     _ageing(

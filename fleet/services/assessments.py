@@ -471,12 +471,8 @@ def assess(
         with np.errstate(invalid="ignore", divide="ignore"):
             disagree = np.isfinite(measured_v) & (np.abs(predicted_v / measured_v - 1.0) > VOLTAGE_DISAGREEMENT)
         at_rated = np.nan_to_num(drift, nan=0.0) >= 0.999
-        # A limit the motor meets only above the part's own lower tolerance: a new capacitor that is
-        # in tolerance may already breach it, so a replacement cannot be relied on to cure it. The
-        # design (or its estimated circuit) is marginal: a finding for the engineer, not wear to plan.
-        inside_tolerance = ~at_rated & (np.nan_to_num(drift, nan=0.0) > limit_fraction[0, index])
         limit_fraction[1:, index] = drift
-        limit_used[1:, index] = np.isfinite(drift) & ~at_rated & ~inside_tolerance & ~disagree
+        limit_used[1:, index] = np.isfinite(drift) & ~at_rated & ~disagree
         voltage_note = (
             "estimated capacitor voltage "
             + pd.Series(predicted_v).map("{:.0f}".format).to_numpy(object)
@@ -484,18 +480,10 @@ def assess(
             + pd.Series(measured_v).map("{:.0f}".format).to_numpy(object)
             + " V: the motor's estimated circuit disagrees with the readings; limit not used"
         )
-        tolerance_note = (
-            "reached at "
-            + pd.Series(drift.ravel()).map("{:.3f}".format).to_numpy(object).reshape(drift.shape)
-            + " of rated, inside the part's tolerance (down to "
-            + pd.Series(limit_fraction[0, index]).map("{:.3f}".format).to_numpy(object)
-            + "): a new capacitor in tolerance may breach it too, so this is a design finding, not wear;"
-            " limit not used"
-        )
         notes[1:, index] = np.where(
             at_rated,
             "already breached at rated capacitance: a design or data finding, not wear; limit not used",
-            np.where(inside_tolerance, tolerance_note, np.where(disagree & np.isfinite(drift), voltage_note, "")),
+            np.where(disagree & np.isfinite(drift), voltage_note, ""),
         )
         figures_now = _figures_frame(now_figures, index, n)
         figures_new = _figures_frame(operating_figures(circuit, load, run_uf, start_uf, kind), index, n)
