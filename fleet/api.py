@@ -135,8 +135,8 @@ class AssessmentList(generics.ListAPIView):
         )
 
 
-class CapacitorReadings(generics.ListCreateAPIView):
-    """GET or POST /api/capacitors/<id>/readings/ (POST: the form's checks; 400 names the field).
+class FittedCapacitorReadings(generics.ListCreateAPIView):
+    """GET or POST /api/fitted-capacitors/<id>/readings/ (POST: the form's checks; 400 names the field).
 
     An `Idempotency-Key` header (any client-made string up to 64 characters) makes a repeated
     POST save nothing: the reading saved the first time comes back with 200.
@@ -218,8 +218,8 @@ class ReadingList(generics.ListAPIView):
         )
 
 
-class CapacitorSubstitutes(generics.GenericAPIView):
-    """GET /api/capacitors/<id>/substitutes/?parts=CODE1,CODE2: one entry per candidate part (and pair),
+class FittedCapacitorSubstitutes(generics.GenericAPIView):
+    """GET /api/fitted-capacitors/<id>/substitutes/?parts=CODE1,CODE2: one entry per candidate part (and pair),
     suitable first, with `verdict`, `reasons` and the operating figures with that part fitted."""
 
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]

@@ -37,20 +37,24 @@ old_capacitor_paths = [
     path("capacitors/<int:fitted_capacitor_id>/replace/", _moved_to("replace")),
 ]
 
-# The API answers 401/403 itself (token or session), instead of redirecting to the login page.
+# The API answers 401/403 itself (token or session), instead of redirecting to the login page. A fitted
+# capacitor's endpoints moved under fitted-capacitors/; the old api/capacitors/ addresses serve the same
+# views (a script that posts readings there must not be turned into a GET by a redirect).
 api_patterns = [
     path("api/assessments/", login_not_required(api.AssessmentList.as_view()), name="api_assessments"),
     path("api/readings/", login_not_required(api.ReadingList.as_view()), name="api_readings"),
     path(
-        "api/capacitors/<int:pk>/readings/",
-        login_not_required(api.CapacitorReadings.as_view()),
-        name="api_capacitor_readings",
+        "api/fitted-capacitors/<int:pk>/readings/",
+        login_not_required(api.FittedCapacitorReadings.as_view()),
+        name="api_fitted_capacitor_readings",
     ),
     path(
-        "api/capacitors/<int:pk>/substitutes/",
-        login_not_required(api.CapacitorSubstitutes.as_view()),
-        name="api_capacitor_substitutes",
+        "api/fitted-capacitors/<int:pk>/substitutes/",
+        login_not_required(api.FittedCapacitorSubstitutes.as_view()),
+        name="api_fitted_capacitor_substitutes",
     ),
+    path("api/capacitors/<int:pk>/readings/", login_not_required(api.FittedCapacitorReadings.as_view())),
+    path("api/capacitors/<int:pk>/substitutes/", login_not_required(api.FittedCapacitorSubstitutes.as_view())),
 ]
 
 urlpatterns = [

@@ -25,6 +25,24 @@ def test_the_old_addresses_of_a_fitted_capacitor_redirect_for_good(client, techn
     assert response["Location"] == f"/fitted-capacitors/{fitted.id}/{tail}?corrects=7"
 
 
+@pytest.mark.parametrize("old", [False, True])
+def test_the_api_of_a_fitted_capacitor_answers_at_its_name_and_at_its_old_address(technician, old):
+    """A script posting readings to /api/capacitors/<id>/readings/ keeps working: the same view, no redirect
+    (a client following a 301 may turn a POST into a GET)."""
+    from rest_framework.test import APIClient
+
+    fitted = make_fitted_capacitor()
+    api = APIClient()
+    api.force_authenticate(technician)
+    url = f"/api/capacitors/{fitted.id}/readings/" if old else reverse("api_fitted_capacitor_readings", args=[fitted.id])
+    assert url.startswith("/api/capacitors/" if old else "/api/fitted-capacitors/")
+    posted = api.post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json")
+    assert posted.status_code == 201, posted.content[:300]
+    listed = api.get(url).json()
+    readings = listed["results"] if isinstance(listed, dict) else listed
+    assert [r["capacitance_uf"] for r in readings] == [3.9]
+
+
 def test_the_fitted_capacitor_page_lives_under_its_own_name(client, engineer):
     fitted = make_fitted_capacitor()
     client.force_login(engineer)

@@ -226,7 +226,7 @@ def test_an_api_post_sent_twice_at_once_with_one_idempotency_key_saves_one_readi
         client.force_login(user)
         body = {"method": "meter", "capacitance_uf": 3.95, "condition": "sound"}
         return client.post(
-            f"/api/capacitors/{capacitor.id}/readings/",
+            f"/api/fitted-capacitors/{capacitor.id}/readings/",
             body,
             content_type="application/json",
             HTTP_IDEMPOTENCY_KEY="k-1",
@@ -476,7 +476,7 @@ def test_an_api_correction_sent_twice_at_once_stores_one_and_answers_the_other_a
         client.force_login(user)
         body = {"method": "meter", "capacitance_uf": 3.97, "condition": "sound", "supersedes": wrong.id}
         return client.post(
-            f"/api/capacitors/{capacitor.id}/readings/", body, content_type="application/json", **headers
+            f"/api/fitted-capacitors/{capacitor.id}/readings/", body, content_type="application/json", **headers
         )
 
     with held_before(reading_service, "check_reading", 2):

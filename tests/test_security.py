@@ -73,7 +73,7 @@ def test_the_register_sign_in_is_no_side_door(client, administrator):
 
 
 def test_bad_tokens_are_throttled_per_address(technician, fan_fitted_capacitor):
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     guesser = APIClient(REMOTE_ADDR="10.0.0.9")
     statuses = []
     for number in range(50):
@@ -93,7 +93,7 @@ def test_signed_in_api_users_are_throttled(monkeypatch, technician, fan_fitted_c
     monkeypatch.setattr(UserRateThrottle, "THROTTLE_RATES", {"user": "5/minute"})
     client = APIClient()
     client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=technician).key}")
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     statuses = [client.get(url).status_code for _ in range(7)]
     assert statuses == [200] * 5 + [429] * 2
     assert set(settings.REST_FRAMEWORK["DEFAULT_THROTTLE_RATES"]) == {"anon", "user"}
@@ -285,9 +285,9 @@ def test_a_technician_limited_to_a_site_sees_and_writes_only_there(client, two_s
 
     api = APIClient()
     api.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=technician).key}")
-    assert api.get(reverse("api_capacitor_readings", args=[mine.id])).status_code == 200
-    assert api.get(reverse("api_capacitor_readings", args=[theirs.id])).status_code == 404
-    posted = api.post(reverse("api_capacitor_readings", args=[theirs.id]), {"capacitance_uf": 3.9}, format="json")
+    assert api.get(reverse("api_fitted_capacitor_readings", args=[mine.id])).status_code == 200
+    assert api.get(reverse("api_fitted_capacitor_readings", args=[theirs.id])).status_code == 404
+    posted = api.post(reverse("api_fitted_capacitor_readings", args=[theirs.id]), {"capacitance_uf": 3.9}, format="json")
     assert posted.status_code == 404
     rows = api.get(reverse("api_assessments")).json()["results"]
     assert [row["fitted_capacitor_id"] for row in rows] == [mine.id]

@@ -103,7 +103,7 @@ def test_stock_is_decremented_and_never_below_zero(client, technician, fan_fitte
 def test_api_answers_one_entry_per_candidate_with_units_in_the_names(engineer, fan_fitted_capacitor):
     make_part(code="FILM-2U0", rated_uf=2.0)
     make_part(code="ELEC-4U0", rated_uf=4.0, dielectric="electrolytic")
-    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[fan_fitted_capacitor.id])).json()
+    body = client_for(engineer).get(reverse("api_fitted_capacitor_substitutes", args=[fan_fitted_capacitor.id])).json()
     items = {item["part_code"]: item for item in body["items"]}
     design = items[fan_fitted_capacitor.part.code]
     assert design["verdict"] == "suitable"
@@ -120,7 +120,7 @@ def test_api_parts_limits_the_candidates_and_names_an_unknown_code(engineer, fan
     make_part(code="FILM-2U0", rated_uf=2.0)
     make_part(code="FILM-8U0", rated_uf=8.0)
     client = client_for(engineer)
-    url = reverse("api_capacitor_substitutes", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_substitutes", args=[fan_fitted_capacitor.id])
     body = client.get(url, {"parts": "FILM-8U0"}).json()
     assert [item["part_code"] for item in body["items"]] == ["FILM-8U0"]
     answer = client.get(url, {"parts": "FILM-8U0,NO-SUCH"})
@@ -131,7 +131,7 @@ def test_api_parts_limits_the_candidates_and_names_an_unknown_code(engineer, fan
 def test_api_is_scoped_to_the_users_sites(fan_fitted_capacitor):
     user = make_user(TECHNICIAN)
     SiteMembership.objects.create(user=user, site=make_site())
-    url = reverse("api_capacitor_substitutes", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_substitutes", args=[fan_fitted_capacitor.id])
     assert client_for(user).get(url).status_code == 404
 
 
@@ -170,7 +170,7 @@ def test_a_motor_without_a_circuit_is_judged_by_ratings_alone(client, technician
     fitted_capacitor = make_fitted_capacitor(motor=make_motor(with_circuit=False))
     make_part(code="FILM-4U1", rated_uf=4.1)
     make_part(code="FILM-4U5", rated_uf=4.5)
-    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[fitted_capacitor.id])).json()
+    body = client_for(engineer).get(reverse("api_fitted_capacitor_substitutes", args=[fitted_capacitor.id])).json()
     items = {item["part_code"]: item for item in body["items"]}
     assert body["has_circuit"] is False and body["design"]["main_current_a"] is None
     assert items["FILM-4U1"]["verdict"] == "suitable" and items["FILM-4U5"]["verdict"] == "unsuitable"
@@ -199,7 +199,7 @@ def test_the_start_capacitor_of_a_two_value_motor_is_judged_with_its_run_capacit
         ),
     )
     make_part(code="FILM-40", rated_uf=40.0, rated_voltage_v=250, class_of_operation="")
-    body = client_for(engineer).get(reverse("api_capacitor_substitutes", args=[start.id])).json()
+    body = client_for(engineer).get(reverse("api_fitted_capacitor_substitutes", args=[start.id])).json()
     items = {item["part_code"]: item for item in body["items"]}
     assert items["ELEC-40"]["verdict"] == "suitable", items["ELEC-40"]["reasons"]
     assert items["FILM-40"]["verdict"] == "unsuitable"

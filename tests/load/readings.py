@@ -98,7 +98,7 @@ def warm_up(port: int, key: str, fitted_capacitor_id: int, requests: int) -> Non
     def read():
         connection = http.client.HTTPConnection("127.0.0.1", port, timeout=60)
         connection.request(
-            "GET", f"/api/capacitors/{fitted_capacitor_id}/readings/", headers={"Authorization": f"Token {key}"}
+            "GET", f"/api/fitted-capacitors/{fitted_capacitor_id}/readings/", headers={"Authorization": f"Token {key}"}
         )
         connection.getresponse().read()
         connection.close()
@@ -121,7 +121,7 @@ def technician(port, key, plan, start, deadline, results, lock):
         body = {"method": "meter", "capacitance_uf": capacitance_uf, "notes": marker, "confirmed": True}
         began = time.perf_counter()
         try:
-            connection.request("POST", f"/api/capacitors/{fitted_capacitor_id}/readings/", json.dumps(body), headers)
+            connection.request("POST", f"/api/fitted-capacitors/{fitted_capacitor_id}/readings/", json.dumps(body), headers)
             response = connection.getresponse()
             response.read()
             status = response.status
