@@ -34,7 +34,9 @@ def test_the_api_of_a_fitted_capacitor_answers_at_its_name_and_at_its_old_addres
     fitted = make_fitted_capacitor()
     api = APIClient()
     api.force_authenticate(technician)
-    url = f"/api/capacitors/{fitted.id}/readings/" if old else reverse("api_fitted_capacitor_readings", args=[fitted.id])
+    url = (
+        f"/api/capacitors/{fitted.id}/readings/" if old else reverse("api_fitted_capacitor_readings", args=[fitted.id])
+    )
     assert url.startswith("/api/capacitors/" if old else "/api/fitted-capacitors/")
     posted = api.post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json")
     assert posted.status_code == 201, posted.content[:300]

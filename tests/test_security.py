@@ -287,7 +287,9 @@ def test_a_technician_limited_to_a_site_sees_and_writes_only_there(client, two_s
     api.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=technician).key}")
     assert api.get(reverse("api_fitted_capacitor_readings", args=[mine.id])).status_code == 200
     assert api.get(reverse("api_fitted_capacitor_readings", args=[theirs.id])).status_code == 404
-    posted = api.post(reverse("api_fitted_capacitor_readings", args=[theirs.id]), {"capacitance_uf": 3.9}, format="json")
+    posted = api.post(
+        reverse("api_fitted_capacitor_readings", args=[theirs.id]), {"capacitance_uf": 3.9}, format="json"
+    )
     assert posted.status_code == 404
     rows = api.get(reverse("api_assessments")).json()["results"]
     assert [row["fitted_capacitor_id"] for row in rows] == [mine.id]

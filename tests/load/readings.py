@@ -121,7 +121,9 @@ def technician(port, key, plan, start, deadline, results, lock):
         body = {"method": "meter", "capacitance_uf": capacitance_uf, "notes": marker, "confirmed": True}
         began = time.perf_counter()
         try:
-            connection.request("POST", f"/api/fitted-capacitors/{fitted_capacitor_id}/readings/", json.dumps(body), headers)
+            connection.request(
+                "POST", f"/api/fitted-capacitors/{fitted_capacitor_id}/readings/", json.dumps(body), headers
+            )
             response = connection.getresponse()
             response.read()
             status = response.status
