@@ -40,7 +40,7 @@ def test_engineer_reads_current_assessments_filtered_by_site(engineer, fan_fitte
 
 def test_technician_posts_a_reading_with_the_forms_checks(technician, fan_fitted_capacitor):
     client = client_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     bad = client.post(url, {"method": "meter", "capacitance_uf": 3950}, format="json")
     assert bad.status_code == 400 and "nanofarads" in bad.json()["capacitance_uf"][0]
     good = client.post(
@@ -55,7 +55,7 @@ def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_fitt
     quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.98, 3.97])
     refit_fitted_capacitors([fan_fitted_capacitor.id])
     client = client_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     assert client.post(url, {"method": "meter", "capacitance_uf": 3.2}, format="json").status_code == 409
     assert (
         client.post(url, {"method": "meter", "capacitance_uf": 3.2, "confirmed": True}, format="json").status_code
@@ -64,7 +64,7 @@ def test_an_off_trend_value_over_the_api_needs_confirmation(technician, fan_fitt
 
 
 def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why(technician, fan_fitted_capacitor):
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     client = client_for(technician)
     missing = client.post(url, {"capacitance_uf": 3.9}, format="json")
     assert missing.status_code == 400 and "method" in missing.json()
@@ -74,5 +74,5 @@ def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why
 
 
 def test_a_planner_cannot_post_readings(planner, fan_fitted_capacitor):
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     assert client_for(planner).post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json").status_code == 403

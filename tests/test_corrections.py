@@ -64,7 +64,7 @@ def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, f
 def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technician, fan_fitted_capacitor):
     wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
     client = client_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     saved = client.post(url, {"method": "meter", "capacitance_uf": 3.9, "supersedes": wrong.id}, format="json")
     assert saved.status_code == 201 and saved.json()["supersedes"] == wrong.id
     again = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": wrong.id}, format="json")
@@ -80,7 +80,7 @@ def test_the_same_api_correction_sent_again_is_answered_as_the_replay(technician
     Idempotency-Key: one correction stored, the second answer 200 with it. Another correction of the
     same reading, or the same one from another user, is still refused by name. [derived]"""
     wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     headers = {"HTTP_IDEMPOTENCY_KEY": key} if key else {}
     body = {"method": "meter", "capacitance_uf": 3.9, "notes": "re-measured", "supersedes": wrong.id}
     client = client_for(technician)

@@ -269,7 +269,7 @@ def _api(user) -> APIClient:
 
 
 def test_a_reading_posted_through_the_api_is_stored_with_source_api(technician, fan_fitted_capacitor):
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     response = _api(technician).post(url, {"method": "meter", "capacitance_uf": 3.95}, format="json")
     assert response.status_code == 201 and response.json()["source"] == "api"
     assert Reading.objects.get().source == Reading.Source.API

@@ -148,7 +148,7 @@ def test_a_decimal_comma_in_any_measured_field_is_read_alike_by_form_api_and_imp
     client.force_login(technician)
     form = form_post(client, fitted_capacitors[0], capacitance_uf="3,95", case_temperature_c=text)
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fitted_capacitors[1].id]),
+        reverse("api_fitted_capacitor_readings", args=[fitted_capacitors[1].id]),
         {"method": "meter", "capacitance_uf": "3,95", "case_temperature_c": text},
         format="json",
     )

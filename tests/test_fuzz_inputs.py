@@ -119,7 +119,7 @@ def test_the_api_never_fails_and_never_stores_a_non_finite_number(fuzz_target, d
     if taken_at is not None:
         body["taken_at"] = taken_at
     before = Reading.objects.count()
-    response = client.post(reverse("api_capacitor_readings", args=[fitted_capacitor.id]), body, format="json")
+    response = client.post(reverse("api_fitted_capacitor_readings", args=[fitted_capacitor.id]), body, format="json")
     assert response.status_code in {201, 400, 409}, response.content[:300]
     assert Reading.objects.count() == before + (1 if response.status_code == 201 else 0)
     assert_all_stored_values_finite()
@@ -132,7 +132,7 @@ def test_the_api_survives_a_body_that_is_not_json(fuzz_target, body):
     client = APIClient()
     client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.get_or_create(user=technician)[0].key}")
     response = client.post(
-        reverse("api_capacitor_readings", args=[fitted_capacitor.id]), body, content_type="application/json"
+        reverse("api_fitted_capacitor_readings", args=[fitted_capacitor.id]), body, content_type="application/json"
     )
     assert response.status_code in {201, 400, 409}
 

@@ -58,7 +58,7 @@ def test_a_million_volts_is_refused_by_the_form_the_api_and_the_import(client, t
     response = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", capacitor_voltage_v="1000000")
     assert response.status_code == 200 and "above 5000 V" in response.content.decode()
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
+        reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, "capacitor_voltage_v": 1e6},
         format="json",
     )
@@ -82,7 +82,7 @@ def test_infinity_never_reaches_the_database_even_past_the_rulebook(fan_fitted_c
 @pytest.mark.parametrize("taken_at", ["0001-01-01T00:00:00Z", "2019-06-01T09:00:00Z"])
 def test_the_api_refuses_a_reading_dated_before_fitting(technician, fan_fitted_capacitor, taken_at):
     response = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
+        reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, "taken_at": taken_at},
         format="json",
     )
@@ -177,7 +177,7 @@ def test_out_of_range_secondary_values_come_back_by_field(
     assert response.status_code == 200
     assert response.context["form"].errors[field] and words in response.context["form"].errors[field][0]
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
+        reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, field: value},
         format="json",
     )
@@ -274,7 +274,7 @@ def test_a_double_submit_saves_one_reading(client, technician, fan_fitted_capaci
 
 def test_an_api_idempotency_key_saves_one_reading(technician, fan_fitted_capacitor):
     client = api_for(technician)
-    url = reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     body = {"method": "meter", "capacitance_uf": 3.95}
     first = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3")
     second = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3")
@@ -282,7 +282,10 @@ def test_an_api_idempotency_key_saves_one_reading(technician, fan_fitted_capacit
     assert first.json()["id"] == second.json()["id"] and Reading.objects.count() == 1
     other = make_fitted_capacitor()
     elsewhere = client.post(
-        reverse("api_capacitor_readings", args=[other.id]), body, format="json", HTTP_IDEMPOTENCY_KEY="batch-7-row-3"
+        reverse("api_fitted_capacitor_readings", args=[other.id]),
+        body,
+        format="json",
+        HTTP_IDEMPOTENCY_KEY="batch-7-row-3",
     )
     assert elsewhere.status_code == 400 and Reading.objects.count() == 1
 
@@ -293,7 +296,7 @@ def test_a_two_megabyte_note_is_refused(client, technician, fan_fitted_capacitor
     response = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", notes=note)
     assert "at most 2000" in response.context["form"].errors["notes"][0]
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fan_fitted_capacitor.id]),
+        reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id]),
         {"method": "meter", "capacitance_uf": 3.95, "notes": note},
         format="json",
     )
@@ -311,7 +314,7 @@ def test_the_decimal_comma_is_read_the_same_by_form_api_and_import(client, techn
     client.force_login(technician)
     form = form_post(client, fitted_capacitors[0], capacitance_uf=text)
     api = api_for(technician).post(
-        reverse("api_capacitor_readings", args=[fitted_capacitors[1].id]),
+        reverse("api_fitted_capacitor_readings", args=[fitted_capacitors[1].id]),
         {"method": "meter", "capacitance_uf": text},
         format="json",
     )
