@@ -172,7 +172,7 @@ def test_the_migration_keeps_a_stored_path_in_its_columns(fan_fitted_capacitor):
     executor.migrate(before)
     old_apps = executor.loader.project_state(before).apps
     old_apps.get_model("fleet", "Assessment").objects.create(
-        fitted_capacitor_id=fan_fitted_capacitor.id,
+        installation_id=fan_fitted_capacitor.id,  # the field's name in that migration's state
         model_version="trend-2",
         fitted_through=NOW,
         readings_used=4,

@@ -36,7 +36,7 @@ ROLES = {
 NOT_PAGES = re.compile(r"^/(admin|api|assets|static)/|\.(csv|xlsx|parquet|json)$|/logout/")
 PER_KIND = 2
 EXPECTED_KINDS = {
-    *("home", "find-tag", "motor", "capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
+    *("home", "find-tag", "motor", "fitted_capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
     *("plan", "work_orders", "visit_sheet", "life_data", "life_data-part", "track_record", "refits"),
     *("imports", "import_detail", "site_stock", "stand_in_parts"),
 }
