@@ -184,6 +184,22 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
     assert signed_in(technician).post(url, {f"order-{first.id}": "1"}).status_code == 403
 
 
+@pytest.mark.parametrize("name", ["order-²", "order-١٢", "qty-²", "was-³"])
+def test_a_field_name_with_non_ascii_digits_is_ignored_not_a_server_error(signed_in, planner, name):
+    """Unicode superscripts and Arabic-Indic digits pass str.isdigit but not int(): a hand-made POST
+    to the route or stock page must not answer 500 (common practice of the trade, no single source)."""
+    from tests.factories import make_motor, make_site
+
+    site = make_site()
+    motor = make_motor(site=site, route_order=1)
+    page = "route" if name.startswith("order-") else "site_stock"
+    response = signed_in(planner).post(reverse(page, args=[site.code]), {name: "4", f"order-{motor.id}": "7"})
+    assert response.status_code in (200, 302)
+    if page == "route":
+        motor.refresh_from_db()
+        assert motor.route_order == 7  # the well-named field still counts
+
+
 def test_route_can_show_only_the_motors_still_to_read(signed_in, technician):
     from tests.factories import make_motor, make_reading, make_site
 

@@ -174,11 +174,7 @@ def site_route(request, site_code):
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
             raise PermissionDenied
-        positions = {
-            int(k.removeprefix("order-")): v
-            for k, v in request.POST.items()
-            if k.startswith("order-") and k[6:].isdigit()
-        }
+        positions = _values_by_id(request.POST, "order-")
         try:
             set_route_order(site=site, positions=positions)
         except ValidationError as error:
@@ -199,6 +195,16 @@ def site_route(request, site_code):
         "order_errors": order_errors,
     }
     return render(request, "fleet/route.html", context)
+
+
+def _values_by_id(post, prefix: str) -> dict[int, str]:
+    """The form's fields named <prefix><id>, by id. Only ASCII digits make an id: '²' counts as a digit to
+    str.isdigit but not to int(), and a field name is whatever the sender typed."""
+    return {
+        int(name[len(prefix) :]): value
+        for name, value in post.items()
+        if name.startswith(prefix) and name[len(prefix) :].isascii() and name[len(prefix) :].isdigit()
+    }
 
 
 def _qr_svg(request, motor: Motor) -> str:
@@ -230,10 +236,7 @@ def site_stock(request, site_code):
         if not request.user.has_perm("fleet.change_sitestock"):
             raise PermissionDenied
         # qty-<part id>: the quantity typed; was-<part id>: the quantity the page showed
-        quantities, shown = (
-            {int(k[4:]): v for k, v in request.POST.items() if k[:4] == prefix and k[4:].isdigit()}
-            for prefix in ("qty-", "was-")
-        )
+        quantities, shown = _values_by_id(request.POST, "qty-"), _values_by_id(request.POST, "was-")
         try:
             set_site_stock(site=site, quantities=quantities, shown=shown)
         except ValidationError as error:
