@@ -100,7 +100,7 @@ def test_a_limit_breached_at_rated_capacitance_is_a_finding_not_wear():
 @pytest.mark.parametrize("circuit_source, governs", [("estimated", False), ("fitted", True), ("entered", True)])
 @pytest.mark.django_db
 def test_a_starting_torque_limit_near_rated_governs_only_when_the_circuit_is_more_than_a_nameplate_estimate(
-    circuit_source, governs
+    circuit_source, governs, engineer, client
 ):
     """The example fan on a 1.2 uF capacitor: a new capacitor gives 1.08 times the break-away
     torque, so the starting-torque limit sits at 93 % of rated, above the 90 % tolerance limit.
@@ -120,6 +120,9 @@ def test_a_starting_torque_limit_near_rated_governs_only_when_the_circuit_is_mor
         assert assessment.limit_source == "tolerance"
         assert torque["finding"] == "near rated on a nameplate estimate"
         assert "nameplate alone" in torque["note"] and "winding currents" in torque["note"]
+        client.force_login(engineer)
+        page = client.get(reverse("fitted_capacitor", args=[fitted_capacitor.id])).content.decode()
+        assert "Starting torque limit: at 93 % of rated, from a circuit estimated from the nameplate alone" in page
 
 
 @pytest.mark.django_db
