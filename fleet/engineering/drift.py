@@ -289,3 +289,147 @@ def capacitance_limits(
         governing_fraction=np.where(none, np.nan, governing),
         governing_limit=governing_index,
     )
+
+
+CIRCUIT_ESTIMATED = "estimated"  # a motor's circuit estimated from its nameplate alone (Motor.circuit_source)
+
+FINDING_AT_RATED = "breached at rated"
+FINDING_NEAR_RATED = "near rated on a nameplate estimate"
+FINDING_VOLTAGE_DISAGREES = "capacitor voltage disagrees with readings"
+
+
+@dataclass(frozen=True)
+class EstimateResolution:
+    """How close to a limit's level a circuit estimated from the nameplate alone can place a
+    figure with a new capacitor; nearer than this, the limit cannot be told from one already
+    breached at rated capacitance (a finding for the engineer, never wear).
+
+    A nameplate gives full-load current and output at rated speed: two numbers for seven
+    circuit parameters, the rest from typical ratios (nameplate.py). The estimate cannot know
+    a figure better than the motor itself is built to, so these are lower bounds."""
+
+    # IEC 60034-1, tolerances on declared values: locked-rotor torque -15 % of the guaranteed
+    # value (from memory, unverified): a motor built to the design may start with 15 % less.
+    starting_torque: float = 0.15
+    # Ours: the estimated capacitor voltage counts as agreeing with a measured one within 15 %
+    # (measured_voltage_disagreement), so it resolves no finer than that.
+    capacitor_voltage: float = 0.15
+    # None: the main-current limit's level is already 1.15 x the nameplate's full-load current,
+    # the datum the estimate reproduces, and no published tolerance says more (ours).
+    main_current: float = 0.0
+    measured_voltage_disagreement: float = 0.15  # estimated vs measured capacitor voltage, relative (ours)
+    at_rated_fraction: float = 0.999  # a crossing this close to rated is breached at rated (the scan's step)
+
+
+@dataclass(frozen=True)
+class LimitFindings:
+    """Per operating-point limit (LIMIT_NAMES order) and capacitor: whether it may govern the
+    risk, the finding that set it aside ("" if none) and the note shown to the engineer."""
+
+    used: np.ndarray
+    finding: np.ndarray
+    note: np.ndarray
+
+
+def _numbers(values, fmt: str) -> np.ndarray:
+    return np.array([fmt.format(v) for v in np.ravel(np.asarray(values, float))], dtype=object).reshape(
+        np.shape(values)
+    )
+
+
+def judge_limits(
+    fractions,
+    figures_at_rated: OperatingFigures,
+    levels: LimitLevels,
+    role,
+    nameplate_only,
+    estimated_voltage_v,
+    measured_voltage_v,
+    resolution: EstimateResolution | None = None,
+) -> LimitFindings:
+    """Which operating-point limits may govern a capacitor's risk, and why not the others.
+
+    fractions (len(LIMIT_NAMES), n): each limit's crossing as a fraction of rated capacitance
+    (nan: not crossed). figures_at_rated: the motor with its capacitors at rated; levels: the
+    limits' levels (`limit_levels`). nameplate_only: the circuit was estimated from the
+    nameplate alone. estimated_voltage_v / measured_voltage_v: the capacitor voltage the circuit
+    gives now and the one the readings measured (nan: none measured).
+
+    Set aside, with a note: a limit breached already at rated capacitance; every limit of a
+    circuit whose capacitor voltage disagrees with the measured one; and, for a nameplate-only
+    circuit, a limit whose figure with a new capacitor sits within the estimate's resolution of
+    its level (starting torque, capacitor voltage, main current): such a limit may lie anywhere
+    from rated down, so a capacitor well inside its tolerance could be judged near failing the
+    motor. A limit of an entered circuit, or of one refined from measured winding currents,
+    keeps governing wherever it lies. The tolerance limit then governs, as it always may.
+    """
+    resolution = resolution or EstimateResolution()
+    fractions = np.asarray(fractions, float)
+    n = fractions.shape[1]
+    is_run = np.asarray(role) == ROLE_RUN
+    crossed = np.isfinite(fractions)
+    at_rated = np.nan_to_num(fractions, nan=0.0) >= resolution.at_rated_fraction
+    estimated_v = np.asarray(estimated_voltage_v, float)
+    measured_v = np.asarray(measured_voltage_v, float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        disagree = np.isfinite(measured_v) & (
+            np.abs(estimated_v / measured_v - 1.0) > resolution.measured_voltage_disagreement
+        )
+    voltage_new = np.where(is_run, figures_at_rated.v_capacitor_v, figures_at_rated.start_capacitor_voltage_v)
+    torque_ratio = figures_at_rated.starting_torque_nm / levels.starting_torque_nm
+    voltage_ratio = voltage_new / levels.capacitor_voltage_v
+    current_ratio = figures_at_rated.i_main_a / levels.main_current_a
+    with np.errstate(invalid="ignore"):
+        near = np.stack(
+            np.broadcast_arrays(
+                torque_ratio * (1.0 - resolution.starting_torque) < 1.0,
+                voltage_ratio * (1.0 + resolution.capacitor_voltage) > 1.0,
+                is_run & (current_ratio * (1.0 + resolution.main_current) > 1.0),
+                np.zeros(n, bool),  # the stall has no level: only "breached at rated" applies
+            )
+        )
+    near = near & crossed & ~at_rated & np.asarray(nameplate_only, bool)
+    finding = np.select(
+        [at_rated, crossed & disagree, near],
+        [FINDING_AT_RATED, FINDING_VOLTAGE_DISAGREES, FINDING_NEAR_RATED],
+        default="",
+    ).astype(object)
+    voltage_note = (
+        "estimated capacitor voltage "
+        + _numbers(estimated_v, "{:.0f}")
+        + " V, measured "
+        + _numbers(measured_v, "{:.0f}")
+        + " V: the motor's estimated circuit disagrees with the readings; limit not used"
+    )
+    percent = _numbers(100.0 * fractions, "{:.0f}")
+    figure_words = np.stack(
+        [
+            "starting torque " + _numbers(torque_ratio, "{:.2f}") + " times the load's break-away torque",
+            "capacitor voltage " + _numbers(100.0 * voltage_ratio, "{:.0f}") + " % of its rating",
+            "main-winding current " + _numbers(100.0 * current_ratio, "{:.0f}") + " % of its limit",
+            np.full(n, "", dtype=object),
+        ]
+    )
+    margin = np.array([resolution.starting_torque, resolution.capacitor_voltage, resolution.main_current, np.nan])[
+        :, None
+    ]
+    near_note = (
+        "at "
+        + percent
+        + " % of rated, from a circuit estimated from the nameplate alone: a new capacitor gives "
+        + figure_words
+        + ", within the "
+        + _numbers(np.broadcast_to(100.0 * margin, fractions.shape), "{:.0f}")
+        + " % such an estimate cannot resolve; a design or data finding, not wear: confirm with measured"
+        " winding currents; the tolerance limit governs meanwhile"
+    )
+    note = np.select(
+        [finding == FINDING_AT_RATED, finding == FINDING_VOLTAGE_DISAGREES, finding == FINDING_NEAR_RATED],
+        [
+            "already breached at rated capacitance: a design or data finding, not wear; limit not used",
+            np.broadcast_to(voltage_note, fractions.shape),
+            near_note,
+        ],
+        default="",
+    ).astype(object)
+    return LimitFindings(used=crossed & (finding == ""), finding=finding, note=note)

@@ -29,12 +29,15 @@ from fleet.engineering.capacitor import (
     tolerance_verdict,
 )
 from fleet.engineering.drift import (
+    CIRCUIT_ESTIMATED,
     LIMIT_NAMES,
     ROLE_RUN,
     ROLE_START,
     OperatingFigures,
     capacitance_limits,
     has_run_capacitor,
+    judge_limits,
+    limit_levels,
     operating_figures,
 )
 from fleet.engineering.motor import (
@@ -81,7 +84,6 @@ from .selectors import (
 
 MODEL_VERSION = "trend-2"
 ALL_LIMITS = (TOLERANCE_LIMIT, *LIMIT_NAMES)
-VOLTAGE_DISAGREEMENT = 0.15  # estimated vs measured capacitor voltage, relative
 
 
 @dataclass(frozen=True)
@@ -344,6 +346,7 @@ class Assessed:
     limit_fraction: np.ndarray  # (L, G) as evaluated, nan where not applicable
     limit_used: np.ndarray  # (L, G) False where set aside (note says why)
     limit_notes: np.ndarray  # (L, G) text
+    limit_findings: np.ndarray  # (L, G) the finding that set a limit aside ("" if none)
     limit_days: np.ndarray  # (3, L, G) days from `now` to P10/P50/P90
     level_days: np.ndarray  # (K, L, G) days from `now` to the crossing at each of ALERT_LEVELS
     latest: pd.DataFrame  # newest usable reading per capacitor
@@ -453,6 +456,7 @@ def assess(
     limit_fraction[0] = 1.0 - inst["tolerance_minus_pct"].to_numpy(float) / 100.0
     limit_used = np.isfinite(limit_fraction)
     notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
+    limit_findings = np.full((len(ALL_LIMITS), n), "", dtype=object)
     figures_now = figures_new = pd.DataFrame(
         np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
     )
@@ -466,27 +470,27 @@ def assess(
         now_figures = operating_figures(
             circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
         )
-        predicted_v = np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v)
-        measured_v = _latest_capacitor_voltage(readings, inst.index[index])
-        with np.errstate(invalid="ignore", divide="ignore"):
-            disagree = np.isfinite(measured_v) & (np.abs(predicted_v / measured_v - 1.0) > VOLTAGE_DISAGREEMENT)
-        at_rated = np.nan_to_num(drift, nan=0.0) >= 0.999
+        new_figures = operating_figures(circuit, load, run_uf, start_uf, kind)
+        findings = judge_limits(
+            drift,
+            new_figures,
+            limit_levels(
+                load,
+                role,
+                inst["full_load_current_a"].to_numpy(float)[index],
+                inst["part_rated_voltage_v"].to_numpy(float)[index],
+            ),
+            role,
+            nameplate_only=inst["circuit_source"].to_numpy(object)[index] == CIRCUIT_ESTIMATED,
+            estimated_voltage_v=np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v),
+            measured_voltage_v=_latest_capacitor_voltage(readings, inst.index[index]),
+        )
         limit_fraction[1:, index] = drift
-        limit_used[1:, index] = np.isfinite(drift) & ~at_rated & ~disagree
-        voltage_note = (
-            "estimated capacitor voltage "
-            + pd.Series(predicted_v).map("{:.0f}".format).to_numpy(object)
-            + " V, measured "
-            + pd.Series(measured_v).map("{:.0f}".format).to_numpy(object)
-            + " V: the motor's estimated circuit disagrees with the readings; limit not used"
-        )
-        notes[1:, index] = np.where(
-            at_rated,
-            "already breached at rated capacitance: a design or data finding, not wear; limit not used",
-            np.where(disagree & np.isfinite(drift), voltage_note, ""),
-        )
+        limit_used[1:, index] = findings.used
+        notes[1:, index] = findings.note
+        limit_findings[1:, index] = findings.finding
         figures_now = _figures_frame(now_figures, index, n)
-        figures_new = _figures_frame(operating_figures(circuit, load, run_uf, start_uf, kind), index, n)
+        figures_new = _figures_frame(new_figures, index, n)
 
     finite = (
         np.isfinite(fit.intercept)
@@ -565,6 +569,7 @@ def assess(
         limit_fraction=limit_fraction,
         limit_used=limit_used,
         limit_notes=notes,
+        limit_findings=limit_findings,
         limit_days=limit_days,
         level_days=level_days,
         latest=latest,
@@ -747,6 +752,7 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
                 "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
                 "used": result.limit_used[k].astype(bool),
                 "note": result.limit_notes[k].astype(str),
+                "finding": result.limit_findings[k].astype(str),
                 **{f"p{q}_on": _iso_dates(result.limit_days[j, k], today) for j, q in enumerate((10, 50, 90))},
             }
         )
@@ -759,6 +765,7 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
             "maximum": maximum,
             "used": True,
             "note": "",
+            "finding": "",
             **{f"p{q}_on": _iso_dates(result.wear_days[j], today) for j, q in enumerate((10, 50, 90))},
         }
     )

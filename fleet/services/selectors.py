@@ -44,6 +44,7 @@ FITTED_CAPACITOR_COLUMNS = {
     "motor__full_load_current_a": "full_load_current_a",
     "motor__rated_speed_rpm": "rated_speed_rpm",
     **{f"motor__{name}": name for name in CIRCUIT_FIELDS},
+    "motor__circuit_source": "circuit_source",
 }
 
 
