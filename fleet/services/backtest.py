@@ -38,7 +38,7 @@ from fleet.engineering.rules import ReadingRules
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
-from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames
+from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames, in_circuit
 from .selectors import fitted_capacitors_frame, readings_frame
 
 VARIANTS = ("default", "calibrated")
@@ -126,6 +126,7 @@ def _form_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
             later["capacitance_uf"].to_numpy(float),
             later["case_temperature_c"].to_numpy(float),
             inst["rated_uf"].to_numpy(float),
+            in_circuit(later),
         )
         predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
         out[f"sq_{form}"] = (fraction - predicted) ** 2
@@ -249,6 +250,7 @@ def _run(backtest: Backtest) -> None:
                 later["capacitance_uf"].to_numpy(float),
                 later["case_temperature_c"].to_numpy(float),
                 inst["rated_uf"].to_numpy(float),
+                in_circuit(later),
             )
             tolerance = result.limit_fraction[0]
             # A reading counts as seen below the limit when it is clear of the meter noise (one
