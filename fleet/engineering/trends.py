@@ -226,22 +226,6 @@ def _fill_per_group(group, values, n_groups):
     return np.where(known, values, median[group])
 
 
-def _median_per_group(group, values, n_groups):
-    """Each capacitor's median of its finite values, at every one of its readings (nan: none).
-
-    The voltage across a capacitor is set by its motor's circuit and supply; what
-    moves it from one reading to the next is mostly the line's swing and the
-    meter's error (a few per cent), which the voltage exponent of the stress
-    clock would multiply tenfold into the time axis.
-    """
-    values = np.asarray(values, float)
-    known = np.isfinite(values)
-    if not known.any():
-        return values
-    median = pd.Series(values[known]).groupby(group[known]).median().reindex(range(n_groups)).to_numpy(float)
-    return median[group]
-
-
 def _part_median(part_of_reading, values, n_parts):
     """Median per part of the finite values (nan for a part with none)."""
     known = np.isfinite(values)
@@ -318,7 +302,7 @@ def fit_trends(
     raw_fraction = np.asarray(capacitance_uf, float)[order] / rated_uf[g]
     rated_v = np.asarray(rated_voltage_v, float)[g]
     voltage = np.asarray(voltage_v, float)[order]
-    voltage_ratio = _median_per_group(g, np.where(voltage > 0, voltage, np.nan) / rated_v, n_groups)
+    voltage_ratio = _fill_per_group(g, np.where(voltage > 0, voltage, np.nan) / rated_v, n_groups)
     if priors is not None:
         part_voltage_ratio = _stored(priors.voltage_ratio, n_parts, fill=np.nan)
     else:
@@ -916,7 +900,7 @@ def reading_stress_hours(
     rated_v = np.asarray(rated_voltage_v, float)[group]
     voltage = np.asarray(voltage_v, float)
     with np.errstate(invalid="ignore"):
-        voltage_ratio = _median_per_group(group, np.where(voltage > 0, voltage, np.nan) / rated_v, n_groups)
+        voltage_ratio = _fill_per_group(group, np.where(voltage > 0, voltage, np.nan) / rated_v, n_groups)
     if part_voltage_ratio is not None:
         fallback = np.broadcast_to(np.asarray(part_voltage_ratio, float), (n_groups,))[group]
         voltage_ratio = np.where(np.isfinite(voltage_ratio), voltage_ratio, fallback)
