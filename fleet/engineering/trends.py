@@ -438,7 +438,11 @@ def _in_circuit_variance_ratio(g, part, tau, fraction, keep, in_circuit, n_group
     residual of its two kinds of reading, pooled per part (the fleet's where a part
     has fewer than `min_residuals` of either kind, 1 where the fleet has too), is
     the variance ratio for a normal error (medians: a stray reading moves it little).
-    Clipped to 1/16..16.
+    Its logarithm is shrunk towards none by its standard error (a sample median of
+    squared normal errors has a relative standard error of about 2.33 / sqrt(n), from
+    its asymptotic variance 1 / (4 n f(m)^2); positive-part James-Stein factor
+    1 - (2 se / log ratio)^2, as the part's curvature is), and it is kept within
+    1..16: an in-circuit reading is never weighted above a meter reading (ours).
     """
     ratio = np.ones(n_parts)
     if not in_circuit.any() or in_circuit[keep].all():
@@ -460,9 +464,13 @@ def _in_circuit_variance_ratio(g, part, tau, fraction, keep, in_circuit, n_group
         stats = frame.groupby([*groups, "circuit"])["sq"].agg(["median", "size"]).unstack("circuit")
         if True not in stats["median"] or False not in stats["median"]:
             return None
-        enough = (stats["size"][True] >= min_residuals) & (stats["size"][False] >= min_residuals)
+        size_in, size_meter = stats["size"][True], stats["size"][False]
+        enough = (size_in >= min_residuals) & (size_meter >= min_residuals)
         with np.errstate(invalid="ignore", divide="ignore"):
-            return (stats["median"][True] / stats["median"][False]).where(enough)
+            log_ratio = np.log(stats["median"][True] / stats["median"][False])
+            se = 2.33 * np.sqrt(1.0 / size_in + 1.0 / size_meter)
+            shrink = np.maximum(1.0 - (2.0 * se / log_ratio) ** 2, 0.0)
+            return np.exp(log_ratio * shrink).where(enough)
 
     fleet = ratio_of([frame["part"] * 0])
     fleet_ratio = float(fleet.iloc[0]) if fleet is not None and np.isfinite(fleet.iloc[0]) else 1.0
@@ -472,7 +480,7 @@ def _in_circuit_variance_ratio(g, part, tau, fraction, keep, in_circuit, n_group
     ratio = np.where(np.isfinite(ratio), ratio, fleet_ratio)
     parts_with = np.bincount(frame["part"].to_numpy(int), weights=frame["circuit"].to_numpy(float), minlength=n_parts)
     ratio = np.where(parts_with > 0, ratio, fleet_ratio)  # a part never read in circuit: the fleet's, if it ever is
-    return np.clip(ratio, 1.0 / 16.0, 16.0)
+    return np.clip(ratio, 1.0, 16.0)
 
 
 def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, is_log, priors=None):
