@@ -253,12 +253,14 @@ def _run(backtest: Backtest) -> None:
                 in_circuit(later),
             )
             tolerance = result.limit_fraction[0]
-            # A reading counts as seen below the limit when it is clear of the meter noise (one
-            # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
+            # A reading counts as seen below the limit when it is clear of its own noise (one noise
+            # sd below; an in-circuit reading's at its ratio): the forecast is of the path, and a
+            # single noisy dip is not its crossing.
             noise = result.fit.noise_sd * np.where(result.fit.model == MODEL_LOG, tolerance, 1.0)
+            noise = noise[group] * np.sqrt(result.fit.reading_variance_ratio(group, in_circuit(later)))
             projected = np.where(result.fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
             stray = isolated_off_trend(group, later_day, fraction, projected, ReadingRules().off_trend_fraction)
-            below = (fraction < (tolerance - noise)[group]) & ~stray
+            below = (fraction < tolerance[group] - noise) & ~stray
             crossed = first_crossing_day(group, later_day, below, len(inst))
             crossed = np.fmin(crossed, np.where(failed, removal_day, np.nan))
             above = result.latest_fraction_25c >= tolerance
