@@ -434,34 +434,47 @@ def _in_circuit_variance_ratio(g, part, tau, fraction, keep, in_circuit, n_group
     resolution, a capacitance meter's only its own (common practice of the trade:
     the in-circuit test is the quick check, the meter the accurate one); how much
     worse is measured, not assumed. Each capacitor with four readings or more gets
-    a straight line (ordinary least squares); the ratio of the median squared
-    residual of its two kinds of reading, pooled per part (the fleet's where a part
-    has fewer than `min_residuals` of either kind, 1 where the fleet has too), is
-    the variance ratio for a normal error (medians: a stray reading moves it little).
-    Its logarithm is shrunk towards none by its standard error (a sample median of
-    squared normal errors has a relative standard error of about 2.33 / sqrt(n), from
-    its asymptotic variance 1 / (4 n f(m)^2); positive-part James-Stein factor
-    1 - (2 se / log ratio)^2, as the part's curvature is), and it is kept within
-    1..16: an in-circuit reading is never weighted above a meter reading (ours).
+    a straight line by weighted least squares (weights from the ratio so far, three
+    rounds from equal weights); each squared residual is divided by one minus its
+    reading's leverage, so that it estimates that reading's own variance. The ratio
+    of the median of those of its two kinds of reading, pooled per part (the
+    fleet's where a part has fewer than `min_residuals` of either kind, 1 where the
+    fleet has too), is the variance ratio for a normal error (medians: a stray
+    reading moves it little). Its logarithm is shrunk towards none by its standard
+    error (a sample median of squared normal errors has a relative standard error
+    of about 2.33 / sqrt(n), from its asymptotic variance 1 / (4 n f(m)^2);
+    positive-part James-Stein factor 1 - (2 se / log ratio)^2, as the part's
+    curvature is), and it is kept within 1..16: an in-circuit reading is never
+    weighted above a meter reading (ours).
     """
     ratio = np.ones(n_parts)
     if not in_circuit.any() or in_circuit[keep].all():
         return ratio
     ok = keep & np.isfinite(fraction)
-    w = ok.astype(float)
     safe = np.where(ok, fraction, 0.0)
-    n, sx, sz, sxx, sxz = _group_sums(g, tau, safe, w, n_groups)
-    b0, b1, sxx_c = _ols(n, sx, sz, sxx, sxz)
-    rich = (n >= 4) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
-    use = ok & rich[g]
-    frame = pd.DataFrame(
-        {"part": part[g][use], "circuit": in_circuit[use], "sq": (safe - b0[g] - b1[g] * tau)[use] ** 2}
-    )
-    if frame.empty:
-        return ratio
+    for _ in range(3):
+        w = np.where(ok, np.where(in_circuit, 1.0 / ratio[part][g], 1.0), 0.0)
+        n, sx, sz, sxx, sxz = _group_sums(g, tau, safe, w, n_groups)
+        b0, b1, sxx_c = _ols(n, sx, sz, sxx, sxz)
+        count = np.bincount(g, weights=ok.astype(float), minlength=n_groups)
+        rich = (count >= 4) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
+        use = ok & rich[g]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            leverage = w * (1.0 / n[g] + (tau - sx[g] / n[g]) ** 2 / sxx_c[g])
+            sq = (safe - b0[g] - b1[g] * tau) ** 2 / (1.0 - leverage)
+        use &= np.isfinite(sq) & (leverage < 1.0)
+        frame = pd.DataFrame({"part": part[g][use], "circuit": in_circuit[use], "sq": sq[use]})
+        if frame.empty:
+            return np.ones(n_parts)
+        ratio = _ratio_per_part(frame, n_parts, min_residuals)
+    return ratio
+
+
+def _ratio_per_part(frame: pd.DataFrame, n_parts: int, min_residuals: int) -> np.ndarray:
+    """In-circuit over meter median squared residual per part (see `_in_circuit_variance_ratio`)."""
 
     def ratio_of(groups):
-        stats = frame.groupby([*groups, "circuit"])["sq"].agg(["median", "size"]).unstack("circuit")
+        stats = frame.groupby([*groups, "circuit"])["sq"].agg(["median", "size"]).unstack("circuit")  # noqa: PD010
         if True not in stats["median"] or False not in stats["median"]:
             return None
         size_in, size_meter = stats["size"][True], stats["size"][False]
@@ -472,6 +485,7 @@ def _in_circuit_variance_ratio(g, part, tau, fraction, keep, in_circuit, n_group
             shrink = np.maximum(1.0 - (2.0 * se / log_ratio) ** 2, 0.0)
             return np.exp(log_ratio * shrink).where(enough)
 
+    ratio = np.ones(n_parts)
     fleet = ratio_of([frame["part"] * 0])
     fleet_ratio = float(fleet.iloc[0]) if fleet is not None and np.isfinite(fleet.iloc[0]) else 1.0
     per_part = ratio_of(["part"])

@@ -155,7 +155,9 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
         )
     }
     ratio = 1.0 if priors.in_circuit_variance_ratio is None else priors.in_circuit_variance_ratio
-    extra["in_circuit_variance_ratio"] = np.broadcast_to(np.nan_to_num(np.asarray(ratio, float), nan=1.0), (len(parts),))
+    extra["in_circuit_variance_ratio"] = np.broadcast_to(
+        np.nan_to_num(np.asarray(ratio, float), nan=1.0), (len(parts),)
+    )
     finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
     return [
         PartPrior(
