@@ -659,9 +659,6 @@ class PartPrior(models.Model):
         blank=True,
         help_text="Median measured capacitor voltage / rated, for capacitors never read in circuit",
     )
-    in_circuit_variance_ratio = models.FloatField(
-        default=1.0, help_text="Noise variance of an in-circuit reading over a meter reading's, from the fleet"
-    )
     updated_at = models.DateTimeField(auto_now=True)
 
     def __str__(self):

@@ -18,7 +18,6 @@ precision >= 60 %. Run with -s to see the figures.
 from __future__ import annotations
 
 import datetime as dt
-import os
 
 import numpy as np
 import pytest
@@ -33,7 +32,7 @@ from fleet.services.backtest import run_backtest, start_backtest
 from tests.simulation import fleet as simulated
 from tests.simulation import scoring
 
-SEED = int(os.environ.get("FLEET_SIMULATION_SEED", "20261202"))  # other seeds: a check the fix is no fluke
+SEED = 20261202
 CUTOFFS = (dt.date(2024, 1, 1), dt.date(2025, 1, 1))
 
 pytestmark = [pytest.mark.simulation, pytest.mark.django_db]
@@ -95,14 +94,7 @@ def _forecast_scores(fleet, cutoff, tmp_path) -> dict:
         .values_list("id", flat=True)
     )
     refit_fitted_capacitors(ids, now=dt.datetime.combine(cutoff, dt.time(0), tzinfo=dt.UTC), force=True)
-    items = _assessments()
-    forecasts = scoring.forecasts_from_api(items)
-    if os.environ.get("FLEET_SIMULATION_DUMP"):
-        import json, pickle
-        from fleet.models import BandCalibration
-        with open(f"{os.environ['FLEET_SIMULATION_DUMP']}_{SEED}_{cutoff}.pkl", "wb") as out:
-            pickle.dump({"items": items, "truth": truth, "forecasts": forecasts, "backtest": backtest.results,
-                         "calibration": list(BandCalibration.objects.values())}, out)
+    forecasts = scoring.forecasts_from_api(_assessments())
     results = scoring.score_by(truth, cutoff, forecasts)
     print(f"\nforecast against the simulated fleet, seed {SEED}, cut-off {cutoff}")
     print(scoring.table(results))

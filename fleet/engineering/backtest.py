@@ -19,7 +19,7 @@ QUANTILES = (0.1, 0.5, 0.9)
 FLAGGED_WITHIN = {90: (RISK_REPLACE_NOW, RISK_DUE_SOON), 365: (RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH)}
 
 
-def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_c, rated_uf, in_circuit=None):
+def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_c, rated_uf):
     """Errors of the fitted paths projected to later readings, in the fit's z units.
 
     group: the capacitor (index into the fit) of each later reading; time_h its
@@ -27,9 +27,8 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     rate from the newest fitted reading, as the forecast does. Returns
     (projected_change, projected_stress_hours, error, known_variance,
     fraction_25c) per reading; the
-    known variance is the path's own plus the reading noise (an in-circuit
-    reading's at its part's variance ratio, `in_circuit` per later reading). Also
-    returns the projected stress hours since the newest fitted reading.
+    known variance is the path's own plus the reading noise. Also returns the
+    projected stress hours since the newest fitted reading.
     """
     g = np.asarray(group, np.int64)
     t = np.asarray(time_h, float)
@@ -43,8 +42,7 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
         z = np.where(fit.model[g] == MODEL_LOG, np.log(fraction), fraction)
     predicted = fit.mean_at(tau, g)
     v00, v01, v11 = fit.covariance[g, 0, 0], fit.covariance[g, 0, 1], fit.covariance[g, 1, 1]
-    noise = fit.noise_sd[g] ** 2 * fit.reading_variance_ratio(g, in_circuit)
-    variance = v00 + 2.0 * tau * v01 + tau * tau * v11 + noise
+    variance = v00 + 2.0 * tau * v01 + tau * tau * v11 + fit.noise_sd[g] ** 2
     span = tau - fit.stress_hours_now[g]
     return fit.slope_now()[g] * span, span, z - predicted, variance, fraction
 

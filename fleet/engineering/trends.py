@@ -105,7 +105,6 @@ class PartPriors:
     curvature_var: np.ndarray | None = None  # its variance between the part's capacitors
     slope_per_age: np.ndarray | None = None  # change of the prior slope b1 per stress hour of mean age
     voltage_ratio: np.ndarray | None = None  # median measured capacitor voltage / rated (nan: none measured)
-    in_circuit_variance_ratio: np.ndarray | None = None  # noise variance of an in-circuit reading / a meter's
 
 
 @dataclass(frozen=True)
@@ -132,15 +131,6 @@ class TrendFit:
     fraction_25c: np.ndarray  # per reading, C(25 C)/C_rated
     priors: PartPriors
     curvature: np.ndarray | None = None  # per capacitor, z per stress hour squared (own, shrunk to its part's)
-    in_circuit_variance_ratio: np.ndarray | None = None  # per capacitor, its part's (None: readings alike)
-
-    def reading_variance_ratio(self, group, in_circuit) -> np.ndarray:
-        """Noise variance of each reading relative to `noise_sd`^2 (a meter reading's): its
-        capacitor's in-circuit ratio where the capacitance came from current and voltage."""
-        group = np.asarray(group, np.int64)
-        if self.in_circuit_variance_ratio is None or in_circuit is None:
-            return np.ones(len(group))
-        return np.where(np.asarray(in_circuit, bool), np.asarray(self.in_circuit_variance_ratio, float)[group], 1.0)
 
     def bend(self) -> np.ndarray:
         """Per capacitor, the path's curvature c (zeros for straight paths)."""
@@ -263,7 +253,6 @@ def fit_trends(
     tempco_ppm_per_k=None,
     tempco_fixed=None,
     model_per_capacitor=None,
-    in_circuit=None,
 ) -> TrendFit:
     """Fit every capacitor's path at once.
 
@@ -277,11 +266,7 @@ def fit_trends(
     (from an earlier fleet-wide fit) the parts' populations and temperature
     coefficients are taken as given, so a handful of capacitors can be refitted alone.
     `model_per_capacitor` ("linear", "log-linear", or "" to choose by noise) sets
-    the form of each capacitor's part, as a back-test chose it. `in_circuit` (per
-    reading) marks capacitances computed from a measured current and voltage: they
-    carry two instruments' errors, so each part's noise variance of such readings
-    relative to meter readings is estimated from the fleet (`_in_circuit_variance_ratio`)
-    and they are weighted by its inverse.
+    the form of each capacitor's part, as a back-test chose it.
     """
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
@@ -338,13 +323,6 @@ def fit_trends(
     if len(g):
         last_time[g] = t  # sorted by time within each group: the last write is the newest
     recency = np.exp2(-np.maximum(last_time[g] - t, 0.0) / settings.recency_half_life_h)
-    circuit = np.zeros(len(g), bool) if in_circuit is None else np.asarray(in_circuit, bool)[order]
-    if priors is not None:
-        variance_ratio = _stored(priors.in_circuit_variance_ratio, n_parts, fill=1.0)
-    else:
-        variance_ratio = _in_circuit_variance_ratio(g, part, tau, fraction, keep, circuit, n_groups, n_parts)
-    # Weighted least squares: a reading of variance ratio r counts 1/r of a meter reading.
-    recency = recency / np.where(circuit, variance_ratio[part][g], 1.0)
 
     fits = {}
     wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}
@@ -419,82 +397,9 @@ def fit_trends(
             curvature_var=pick("curvature_var_part", "part"),
             slope_per_age=pick("slope_per_age", "part"),
             voltage_ratio=part_voltage_ratio,
-            in_circuit_variance_ratio=variance_ratio,
         ),
         curvature=curvature,
-        in_circuit_variance_ratio=variance_ratio[part] if n_groups else np.zeros(0),
     )
-
-
-def _in_circuit_variance_ratio(g, part, tau, fraction, keep, in_circuit, n_groups, n_parts, min_residuals=30):
-    """Per part, the noise variance of in-circuit readings over that of meter readings.
-
-    A capacitance computed from a clamp meter's current and a voltmeter's voltage
-    (C = I / (2 pi f V)) carries both instruments' errors and the current's
-    resolution, a capacitance meter's only its own (common practice of the trade:
-    the in-circuit test is the quick check, the meter the accurate one); how much
-    worse is measured, not assumed. Each capacitor with four readings or more gets
-    a straight line by weighted least squares (weights from the ratio so far, three
-    rounds from equal weights); each squared residual is divided by one minus its
-    reading's leverage, so that it estimates that reading's own variance. The ratio
-    of the median of those of its two kinds of reading, pooled per part (the
-    fleet's where a part has fewer than `min_residuals` of either kind, 1 where the
-    fleet has too), is the variance ratio for a normal error (medians: a stray
-    reading moves it little). Its logarithm is shrunk towards none by its standard
-    error (a sample median of squared normal errors has a relative standard error
-    of about 2.33 / sqrt(n), from its asymptotic variance 1 / (4 n f(m)^2);
-    positive-part James-Stein factor 1 - (2 se / log ratio)^2, as the part's
-    curvature is), and it is kept within 1..16: an in-circuit reading is never
-    weighted above a meter reading (ours).
-    """
-    ratio = np.ones(n_parts)
-    if not in_circuit.any() or in_circuit[keep].all():
-        return ratio
-    ok = keep & np.isfinite(fraction)
-    safe = np.where(ok, fraction, 0.0)
-    for _ in range(3):
-        w = np.where(ok, np.where(in_circuit, 1.0 / ratio[part][g], 1.0), 0.0)
-        n, sx, sz, sxx, sxz = _group_sums(g, tau, safe, w, n_groups)
-        b0, b1, sxx_c = _ols(n, sx, sz, sxx, sxz)
-        count = np.bincount(g, weights=ok.astype(float), minlength=n_groups)
-        rich = (count >= 4) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
-        use = ok & rich[g]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            leverage = w * (1.0 / n[g] + (tau - sx[g] / n[g]) ** 2 / sxx_c[g])
-            sq = (safe - b0[g] - b1[g] * tau) ** 2 / (1.0 - leverage)
-        use &= np.isfinite(sq) & (leverage < 1.0)
-        frame = pd.DataFrame({"part": part[g][use], "circuit": in_circuit[use], "sq": sq[use]})
-        if frame.empty:
-            return np.ones(n_parts)
-        ratio = _ratio_per_part(frame, n_parts, min_residuals)
-    return ratio
-
-
-def _ratio_per_part(frame: pd.DataFrame, n_parts: int, min_residuals: int) -> np.ndarray:
-    """In-circuit over meter median squared residual per part (see `_in_circuit_variance_ratio`)."""
-
-    def ratio_of(groups):
-        stats = frame.groupby([*groups, "circuit"])["sq"].agg(["median", "size"]).unstack("circuit")  # noqa: PD010
-        if True not in stats["median"] or False not in stats["median"]:
-            return None
-        size_in, size_meter = stats["size"][True], stats["size"][False]
-        enough = (size_in >= min_residuals) & (size_meter >= min_residuals)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            log_ratio = np.log(stats["median"][True] / stats["median"][False])
-            se = 2.33 * np.sqrt(1.0 / size_in + 1.0 / size_meter)
-            shrink = np.maximum(1.0 - (2.0 * se / log_ratio) ** 2, 0.0)
-            return np.exp(log_ratio * shrink).where(enough)
-
-    ratio = np.ones(n_parts)
-    fleet = ratio_of([frame["part"] * 0])
-    fleet_ratio = float(fleet.iloc[0]) if fleet is not None and np.isfinite(fleet.iloc[0]) else 1.0
-    per_part = ratio_of(["part"])
-    if per_part is not None:
-        ratio[per_part.index.to_numpy(int)] = per_part.fillna(fleet_ratio).to_numpy(float)
-    ratio = np.where(np.isfinite(ratio), ratio, fleet_ratio)
-    parts_with = np.bincount(frame["part"].to_numpy(int), weights=frame["circuit"].to_numpy(float), minlength=n_parts)
-    ratio = np.where(parts_with > 0, ratio, fleet_ratio)  # a part never read in circuit: the fleet's, if it ever is
-    return np.clip(ratio, 1.0, 16.0)
 
 
 def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, is_log, priors=None):

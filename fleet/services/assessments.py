@@ -57,7 +57,7 @@ from fleet.engineering.planning import (
     alert_index,
     judge,
 )
-from fleet.engineering.rules import CONDITION_SOUND, METHOD_IN_CIRCUIT
+from fleet.engineering.rules import CONDITION_SOUND
 from fleet.engineering.trends import (
     MODEL_LINEAR,
     MODEL_LOG,
@@ -131,13 +131,7 @@ def fit_frames(
         ),
         tempco_fixed=~np.isnan(own_tempco),
         model_per_capacitor=inst["dielectric"].map(forms).astype(object).fillna("").to_numpy(object),
-        in_circuit=None if __import__("os").environ.get("FILM_NOW") else in_circuit(readings),
     )
-
-
-def in_circuit(readings: pd.DataFrame) -> np.ndarray:
-    """Per reading, whether its capacitance was computed from a measured current and voltage."""
-    return (readings["method"] == METHOD_IN_CIRCUIT).to_numpy(bool)
 
 
 def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
@@ -154,10 +148,6 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
             ("slope_per_age", priors.slope_per_age),
         )
     }
-    ratio = 1.0 if priors.in_circuit_variance_ratio is None else priors.in_circuit_variance_ratio
-    extra["in_circuit_variance_ratio"] = np.broadcast_to(
-        np.nan_to_num(np.asarray(ratio, float), nan=1.0), (len(parts),)
-    )
     finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
     return [
         PartPrior(
@@ -211,7 +201,6 @@ def _stored_priors(part_ids) -> PartPriors:
     defaults = {"trend_model": MODEL_LINEAR, "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
     defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
     defaults.update({"curvature_per_h2": 0.0, "curvature_var": 0.0, "slope_per_age": 0.0})
-    defaults.update({"in_circuit_variance_ratio": 1.0})
     frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
         model=frame["trend_model"].to_numpy(),
@@ -226,7 +215,6 @@ def _stored_priors(part_ids) -> PartPriors:
         curvature_var=frame["curvature_var"].to_numpy(float),
         slope_per_age=frame["slope_per_age"].to_numpy(float),
         voltage_ratio=frame["voltage_ratio"].to_numpy(float) if "voltage_ratio" in frame else None,
-        in_circuit_variance_ratio=frame["in_circuit_variance_ratio"].to_numpy(float),
     )
 
 

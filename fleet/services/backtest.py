@@ -38,7 +38,7 @@ from fleet.engineering.rules import ReadingRules
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
-from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames, in_circuit
+from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames
 from .selectors import fitted_capacitors_frame, readings_frame
 
 VARIANTS = ("default", "calibrated")
@@ -126,7 +126,6 @@ def _form_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
             later["capacitance_uf"].to_numpy(float),
             later["case_temperature_c"].to_numpy(float),
             inst["rated_uf"].to_numpy(float),
-            in_circuit(later),
         )
         predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
         out[f"sq_{form}"] = (fraction - predicted) ** 2
@@ -250,17 +249,14 @@ def _run(backtest: Backtest) -> None:
                 later["capacitance_uf"].to_numpy(float),
                 later["case_temperature_c"].to_numpy(float),
                 inst["rated_uf"].to_numpy(float),
-                in_circuit(later),
             )
             tolerance = result.limit_fraction[0]
-            # A reading counts as seen below the limit when it is clear of its own noise (one noise
-            # sd below; an in-circuit reading's at its ratio): the forecast is of the path, and a
-            # single noisy dip is not its crossing.
+            # A reading counts as seen below the limit when it is clear of the meter noise (one
+            # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
             noise = result.fit.noise_sd * np.where(result.fit.model == MODEL_LOG, tolerance, 1.0)
-            noise = noise[group] * np.sqrt(result.fit.reading_variance_ratio(group, in_circuit(later)))
             projected = np.where(result.fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
             stray = isolated_off_trend(group, later_day, fraction, projected, ReadingRules().off_trend_fraction)
-            below = (fraction < tolerance[group] - noise) & ~stray
+            below = (fraction < (tolerance - noise)[group]) & ~stray
             crossed = first_crossing_day(group, later_day, below, len(inst))
             crossed = np.fmin(crossed, np.where(failed, removal_day, np.nan))
             above = result.latest_fraction_25c >= tolerance

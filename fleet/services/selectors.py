@@ -88,13 +88,12 @@ READING_COLUMNS = [
     "esr_ohm",
     "supersedes_id",
     "condition",
-    "method",
 ]
 
 
 READINGS_SQL = (
     "SELECT id, fitted_capacitor_id, (EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint, capacitance_uf,"
-    " case_temperature_c, capacitor_voltage_v, esr_ohm, supersedes_id, condition, method"
+    " case_temperature_c, capacitor_voltage_v, esr_ohm, supersedes_id, condition"
     " FROM fleet_reading WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY(%s)"
 )
 

@@ -54,7 +54,7 @@ def simulate(n_capacitors=3000, seed=11, readings=(1, 13), noise=0.006, log_path
     )
 
 
-def fit(sim, temperature_as_reference=True, in_circuit=None, **kwargs):
+def fit(sim, temperature_as_reference=True, **kwargs):
     n = len(sim["part"])
     # Hold stress time = calendar time: acceleration 1 at 40 C, rated voltage.
     return fit_trends(
@@ -67,7 +67,6 @@ def fit(sim, temperature_as_reference=True, in_circuit=None, **kwargs):
         np.full(sim["group"].size, 400.0),
         np.full(n, 400.0),
         settings=TrendSettings(doubling_k=1e9, **kwargs),
-        in_circuit=in_circuit,
     )
 
 
@@ -228,55 +227,3 @@ def test_a_capacitor_never_read_in_circuit_runs_at_its_parts_typical_voltage():
     )
     assert result.stress_rate[3:] == pytest.approx(result.stress_rate[:3], rel=1e-9)
     assert result.stress_rate[0] == pytest.approx(0.75**10, rel=1e-6)
-
-
-def _with_in_circuit_noise(sim, in_circuit_sd, seed=5):
-    """Half the readings computed in circuit, carrying `in_circuit_sd` of noise instead of the meter's."""
-    rng = np.random.default_rng(seed)
-    in_circuit = rng.random(sim["group"].size) < 0.5
-    true_fraction = sim["intercept"][sim["group"]] + sim["slope"][sim["group"]] * sim["time_h"]
-    exact = 10.0 * true_fraction * (1 + TEMPCO * (sim["temperature_c"] - 25))
-    extra = exact * rng.normal(0, in_circuit_sd, sim["group"].size)
-    measured = np.where(in_circuit, exact + extra, sim["capacitance_uf"])
-    return {**sim, "capacitance_uf": measured}, in_circuit
-
-
-def test_in_circuit_readings_twice_as_noisy_get_a_quarter_of_the_weight():
-    """[derived] Ours: in-circuit readings with 1.2 % noise beside meter readings with 0.6 %. The variance
-    ratio is recovered from the fleet's own residuals (4, within about a fifth), and weighting by it makes
-    the slopes of capacitors with many readings closer to the truth than equal weights do."""
-    sim, in_circuit = _with_in_circuit_noise(simulate(seed=3), in_circuit_sd=0.012)
-    weighted = fit(sim, model=MODEL_LINEAR, in_circuit=in_circuit)
-    equal = fit(sim, model=MODEL_LINEAR)
-    ratio = weighted.priors.in_circuit_variance_ratio
-    assert np.all(ratio == pytest.approx(4.0, rel=0.2)), ratio
-    rich = sim["count"] >= 8
-
-    def slope_error(result):
-        return np.sqrt(np.mean((result.slope_per_hour[rich] - sim["slope"][rich]) ** 2))
-
-    assert slope_error(weighted) < 0.93 * slope_error(equal)
-    # A later in-circuit reading's noise is its part's meter noise times the ratio.
-    assert weighted.reading_variance_ratio([0, 0], [True, False]) == pytest.approx([ratio[sim["part"][0]], 1.0])
-
-
-def test_in_circuit_readings_as_precise_as_the_meters_keep_equal_weight():
-    """[derived] Ours: with the same noise in both kinds of reading the estimated ratio is shrunk to one
-    (never below: an in-circuit reading is not weighted above a meter reading), and stored priors carry it."""
-    sim, in_circuit = _with_in_circuit_noise(simulate(seed=4), in_circuit_sd=0.006)
-    result = fit(sim, model=MODEL_LINEAR, in_circuit=in_circuit)
-    assert np.all(result.priors.in_circuit_variance_ratio == pytest.approx(1.0, abs=0.15))
-    again = fit_trends(
-        sim["group"],
-        sim["part"],
-        sim["time_h"],
-        sim["capacitance_uf"],
-        np.full(len(sim["part"]), 10.0),
-        sim["temperature_c"],
-        np.full(sim["group"].size, 400.0),
-        np.full(len(sim["part"]), 400.0),
-        settings=TrendSettings(doubling_k=1e9, model=MODEL_LINEAR),
-        priors=result.priors,
-        in_circuit=in_circuit,
-    )
-    assert np.array_equal(again.in_circuit_variance_ratio, result.in_circuit_variance_ratio)
