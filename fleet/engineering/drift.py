@@ -308,8 +308,9 @@ class EstimateResolution:
     circuit parameters, the rest from typical ratios (nameplate.py). The estimate cannot know
     a figure better than the motor itself is built to, so these are lower bounds."""
 
-    # IEC 60034-1, tolerances on declared values: locked-rotor torque -15 % of the guaranteed
-    # value (from memory, unverified): a motor built to the design may start with 15 % less.
+    # IEC 60034-1, tolerances on declared values: locked-rotor torque -15 % to +25 % of the
+    # guaranteed torque (as tabled in the Industrial Power Engineering and Applications Handbook,
+    # Table 11.9): a motor built to the design may start with 15 % less.
     starting_torque: float = 0.15
     # Ours: the estimated capacitor voltage counts as agreeing with a measured one within 15 %
     # (measured_voltage_disagreement), so it resolves no finer than that.

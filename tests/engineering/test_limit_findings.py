@@ -58,7 +58,8 @@ def _fractions(torque, voltage=np.nan, current=np.nan):
 
 def test_a_nameplate_only_starting_torque_limit_within_the_torque_tolerance_is_a_finding():
     """IEC 60034-1 lets a motor start with 15 % less than its guaranteed locked-rotor torque
-    (tolerances on declared values; from memory, unverified): a nameplate estimate that gives a new
+    (tolerances on declared values, -15 % to +25 %; Industrial Power Engineering and Applications
+    Handbook, Table 11.9, quoting IEC 60034-1): a nameplate estimate that gives a new
     capacitor 1.10 times the break-away torque cannot tell the limit from breached (1.10 x 0.85 < 1);
     at 1.25 times it can (1.25 x 0.85 > 1); the boundary is 1 / 0.85 = 1.176 [derived]."""
     findings = _judge([1.10, 1.17, 1.18, 1.25], [0.8] * 4, _fractions([0.982, 0.97, 0.96, 0.93]), True)
