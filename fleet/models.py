@@ -1006,3 +1006,25 @@ class DigestEntry(models.Model):
 
     def __str__(self):
         return f"{self.get_kind_display()}: {self.fitted_capacitor_id} ({self.sent_at:%Y-%m-%d})"
+
+
+class InServiceCount(models.Model):
+    """Append-only ledger of the counts of capacitors in service, kept on write by database triggers
+    (migration 0023), so pages sum a few rows instead of counting the fleet.
+
+    Each row is a change to one count. A capacitor in service adds 1 at (its motor's site, its part,
+    the month it was fitted, risk ""); its current assessment adds 1 at (site, part, its risk level,
+    the UTC day it was judged), fitted month empty. A write adds the new rows' share and takes away
+    the old rows'; each statement's changes are summed per key first, so a refit chunk adds a few
+    rows and locks none. `services.counts.compact_counts` replaces the rows by their sums.
+    """
+
+    site = kept_by_triggers(Site, "The capacitors' motor's site")
+    part = kept_by_triggers(CapacitorPart, "The capacitors' part")
+    risk = models.CharField(max_length=20, blank=True, help_text='Current risk level; "" counts capacitors in service')
+    fitted_month = models.DateField(null=True, blank=True, help_text="First day of the month fitted (capacitors)")
+    assessed_on = models.DateField(null=True, blank=True, help_text="UTC day of the current assessment (risk levels)")
+    n = models.IntegerField(help_text="Change to the count")
+
+    def __str__(self):
+        return f"{self.site_id} {self.part_id} {self.risk or self.fitted_month} {self.n:+d}"

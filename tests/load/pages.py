@@ -173,7 +173,8 @@ def build(motors: int) -> None:
                     cursor.execute(statement % params)
                     print(f"  {cursor.rowcount:>9,} rows  {time.perf_counter() - step:6.1f} s  {statement.split()[2]}")
         with connection.cursor() as cursor:  # each current assessment's latest change of risk, as refits keep it
-            cursor.execute(importlib.import_module(STORED_FACTS_MIGRATION).FILL_RISK_HISTORY)
+            fill = importlib.import_module(STORED_FACTS_MIGRATION).FILL_RISK_HISTORY
+            cursor.execute(fill.replace("installation_id", "fitted_capacitor_id"))  # the column's name since 0022
         add_stock_and_life_fits()
     with connection.cursor() as cursor:
         cursor.execute("VACUUM ANALYZE")
