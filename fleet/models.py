@@ -600,6 +600,10 @@ class Assessment(models.Model):
     # the risk counts and the dashboard aggregate one table's index instead of joining every capacitor.
     site = kept_by_triggers(Site, "Its capacitor's motor's site; kept by database triggers")
     part = kept_by_triggers(CapacitorPart, "Its capacitor's part; kept by database triggers")
+    # Its capacitor's fitting date, kept the same way (migration 0023): the spares forecast's ages.
+    fitted_on = models.DateField(
+        null=True, blank=True, editable=False, help_text="Its capacitor's fitting date; kept by database triggers"
+    )
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -619,9 +623,13 @@ class Assessment(models.Model):
             models.Index(fields=["risk"], condition=IN_SERVICE, name="in_service_by_risk"),
             # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
             models.Index(fields=["risk_changed_at"], condition=IN_SERVICE, name="in_service_by_risk_change"),
-            # Totals by date, site, part and risk (plan spares, dashboard workload and spares), index only.
+            # Totals by date, site, part, risk and fitting date (plan spares, dashboard workload and spares),
+            # index only.
             models.Index(
-                fields=["replace_by"], include=["site", "part", "risk"], condition=IN_SERVICE, name="in_service_totals"
+                fields=["replace_by"],
+                include=["site", "part", "risk", "fitted_on"],
+                condition=IN_SERVICE,
+                name="in_service_totals",
             ),
             # Risk counts by site (dashboard, home and plan for a user limited to sites), index only.
             models.Index(fields=["site", "risk"], condition=IN_SERVICE, name="in_service_by_site_risk"),

@@ -9,7 +9,7 @@ import datetime as dt
 
 import pytest
 from django.db import connection
-from django.db.models import Count
+from django.db.models import Count, F
 from django.db.models.functions import TruncDate, TruncMonth
 from django.utils import timezone
 
@@ -73,6 +73,8 @@ def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_pa
     def check(step):
         checks.append(step)
         assert from_ledger() == from_scratch(), step
+        stored = Assessment.objects.exclude(fitted_on=F("fitted_capacitor__fitted_on"))
+        assert not stored.exists(), f"{step}: an assessment's stored fitting date differs from its capacitor's"
 
     fleet = Fleet()
     fleet.grow_to(8, planner)  # readings, two refits (one forced), work orders

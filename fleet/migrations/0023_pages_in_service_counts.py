@@ -16,10 +16,17 @@ share less the old rows' share:
   UPDATE after the insert: the update trigger moves that row's share, so the sum is right in either
   order.
 
+Each assessment also stores its capacitor's fitting date (`Assessment.fitted_on`), set by 0020's
+row trigger with the site and part and carried along when the date is corrected, and the
+`in_service_totals` index includes it: the dashboard's spares forecast groups the plan's window by
+part, month fitted and month of replacement from that index alone, instead of joining every capacitor.
+
 Counts are summed with `services.counts`, compacted there (rows replaced by their sums). Existing
 rows are counted once here. On SQLite, a later migration that rebuilds fleet_assessment,
 fleet_fittedcapacitor or fleet_motor drops these triggers: reinstall them (SQLITE_FORWARD below).
 """
+
+import importlib
 
 from django.db import migrations, models
 
@@ -221,6 +228,90 @@ POSTGRES_BACKWARD = postgres_drops(
 )
 
 
+SITE_AND_PART_0020 = importlib.import_module("fleet.migrations.0020_assessment_site_and_part")
+FILL_FITTED_ON = """
+UPDATE fleet_assessment SET fitted_on = (
+  SELECT c.fitted_on FROM fleet_fittedcapacitor c WHERE c.id = fleet_assessment.fitted_capacitor_id)
+"""
+FACTS_SQLITE_FORWARD = [
+    "DROP TRIGGER IF EXISTS fleet_assessment_site_and_part;",
+    """
+    CREATE TRIGGER fleet_assessment_site_and_part AFTER INSERT ON fleet_assessment
+    BEGIN
+      UPDATE fleet_assessment SET
+        site_id = (SELECT m.site_id FROM fleet_fittedcapacitor c JOIN fleet_motor m ON m.id = c.motor_id
+                   WHERE c.id = NEW.fitted_capacitor_id),
+        part_id = (SELECT c.part_id FROM fleet_fittedcapacitor c WHERE c.id = NEW.fitted_capacitor_id),
+        fitted_on = (SELECT c.fitted_on FROM fleet_fittedcapacitor c WHERE c.id = NEW.fitted_capacitor_id)
+      WHERE id = NEW.id;
+    END;
+    """,
+    "DROP TRIGGER IF EXISTS fleet_capacitor_moves_assessments;",
+    """
+    CREATE TRIGGER fleet_capacitor_moves_assessments AFTER UPDATE OF part_id, motor_id, fitted_on
+    ON fleet_fittedcapacitor
+    WHEN NEW.part_id IS NOT OLD.part_id OR NEW.motor_id IS NOT OLD.motor_id OR NEW.fitted_on IS NOT OLD.fitted_on
+    BEGIN
+      UPDATE fleet_assessment SET part_id = NEW.part_id, fitted_on = NEW.fitted_on,
+        site_id = (SELECT m.site_id FROM fleet_motor m WHERE m.id = NEW.motor_id)
+      WHERE fitted_capacitor_id = NEW.id;
+    END;
+    """,
+]
+FACTS_SQLITE_BACKWARD = [
+    "DROP TRIGGER IF EXISTS fleet_assessment_site_and_part;",
+    "DROP TRIGGER IF EXISTS fleet_capacitor_moves_assessments;",
+    *(s.replace("installation_id", "fitted_capacitor_id") for s in SITE_AND_PART_0020.SQLITE_FORWARD[:2]),
+]
+FACTS_POSTGRES_FORWARD = [
+    """
+    CREATE OR REPLACE FUNCTION fleet_assessment_capacitor_facts() RETURNS trigger AS $$
+    DECLARE
+      in_service boolean;
+      site bigint;
+      part bigint;
+      fitted date;
+    BEGIN
+      SELECT c.removed_on IS NULL, m.site_id, c.part_id, c.fitted_on INTO in_service, site, part, fitted
+      FROM fleet_fittedcapacitor c JOIN fleet_motor m ON m.id = c.motor_id WHERE c.id = NEW.fitted_capacitor_id;
+      IF FOUND THEN  -- otherwise the foreign key refuses the row
+        NEW.capacitor_in_service := in_service;
+        NEW.site_id := site;
+        NEW.part_id := part;
+        NEW.fitted_on := fitted;
+      END IF;
+      RETURN NEW;
+    END $$ LANGUAGE plpgsql;
+    """,
+    "DROP TRIGGER IF EXISTS fleet_capacitor_moves_assessments ON fleet_fittedcapacitor;",
+    """
+    CREATE OR REPLACE FUNCTION fleet_capacitor_moves_assessments() RETURNS trigger AS $$
+    BEGIN
+      UPDATE fleet_assessment SET part_id = NEW.part_id, fitted_on = NEW.fitted_on,
+        site_id = (SELECT m.site_id FROM fleet_motor m WHERE m.id = NEW.motor_id)
+      WHERE fitted_capacitor_id = NEW.id;
+      RETURN NULL;
+    END $$ LANGUAGE plpgsql;
+    """,
+    """
+    CREATE TRIGGER fleet_capacitor_moves_assessments AFTER UPDATE OF part_id, motor_id, fitted_on
+    ON fleet_fittedcapacitor FOR EACH ROW
+    WHEN (OLD.part_id IS DISTINCT FROM NEW.part_id OR OLD.motor_id IS DISTINCT FROM NEW.motor_id
+          OR OLD.fitted_on IS DISTINCT FROM NEW.fitted_on)
+    EXECUTE FUNCTION fleet_capacitor_moves_assessments();
+    """,
+]
+FACTS_POSTGRES_BACKWARD = [
+    "DROP TRIGGER IF EXISTS fleet_capacitor_moves_assessments ON fleet_fittedcapacitor;",
+    *(
+        s.replace("installation_id", "fitted_capacitor_id")
+        for s in SITE_AND_PART_0020.POSTGRES_FORWARD
+        if "fleet_assessment_capacitor_facts()" in s and "CREATE OR REPLACE" in s
+        or "fleet_capacitor_moves_assessments" in s
+    ),
+]
+
+
 class Migration(migrations.Migration):
     dependencies = [("fleet", "0022_fitted_capacitor_name")]
 
@@ -278,6 +369,28 @@ class Migration(migrations.Migration):
         ),
         migrations.RunPython(
             run({"sqlite": fill("sqlite"), "postgresql": fill("postgresql")}), migrations.RunPython.noop
+        ),
+        migrations.AddField(
+            model_name="assessment",
+            name="fitted_on",
+            field=models.DateField(
+                blank=True, editable=False, help_text="Its capacitor's fitting date; kept by database triggers", null=True
+            ),
+        ),
+        migrations.RunSQL(FILL_FITTED_ON, migrations.RunSQL.noop),
+        migrations.RunPython(
+            run({"sqlite": FACTS_SQLITE_FORWARD, "postgresql": FACTS_POSTGRES_FORWARD}),
+            run({"sqlite": FACTS_SQLITE_BACKWARD, "postgresql": FACTS_POSTGRES_BACKWARD}),
+        ),
+        migrations.RemoveIndex(model_name="assessment", name="in_service_totals"),
+        migrations.AddIndex(
+            model_name="assessment",
+            index=models.Index(
+                condition=models.Q(("capacitor_in_service", True), ("is_current", True)),
+                fields=["replace_by"],
+                include=("site", "part", "risk", "fitted_on"),
+                name="in_service_totals",
+            ),
         ),
         migrations.RunPython(
             run({"sqlite": SQLITE_FORWARD, "postgresql": POSTGRES_FORWARD}),
