@@ -977,6 +977,14 @@ class PartLifeFit(models.Model):
     eta_years = models.FloatField(help_text="Weibull scale, years")
     failures = models.PositiveIntegerField()
     suspensions = models.PositiveIntegerField()
+    # What the life-data page shows besides the fit (migration 0023), so it never fits on a page load:
+    # the covariance of (ln beta, ln eta) for the Fisher bounds, the Weibull plot's points (thinned) and
+    # the mean chance that a capacitor in service fails within a year, on the day of the fit.
+    var_log_beta = models.FloatField(null=True, blank=True)
+    cov_log_beta_eta = models.FloatField(null=True, blank=True)
+    var_log_eta = models.FloatField(null=True, blank=True)
+    plot_points = models.JSONField(default=list, blank=True, help_text="[[age in years, fraction failed], ...]")
+    next_year_failure = models.FloatField(null=True, blank=True)
     fitted_at = models.DateTimeField(auto_now=True)
 
     class Meta:

@@ -167,3 +167,27 @@ def test_every_trigger_of_the_ledger_is_installed():
         else:
             cursor.execute("SELECT tgname FROM pg_trigger WHERE NOT tgisinternal")
         assert names <= {row[0] for row in cursor.fetchall()}
+
+
+def test_the_life_data_page_shows_the_stored_fit_as_a_fit_on_request_would(tmp_path):
+    """[derived] The stored fit, its bounds, B10, plot points and next-year chance are those of a fit of
+    the part's life table made now with the core (IEC 61649 methods in fleet/engineering/lifedata.py)."""
+    import numpy as np
+
+    from fleet.engineering.lifedata import fit_weibull, probability_plot_points
+    from fleet.models import CapacitorPart
+    from fleet.services.lifedata import life_table, part_life, refresh_life_fits
+
+    migrate_all(tmp_path)
+    part = CapacitorPart.objects.get(code="RUN-8")
+    refresh_life_fits()
+    stored = part_life(part.id, planned_cost=60, failure_cost=400)
+    table = life_table(part.id)
+    years, failed = table["age_days"].to_numpy() / 365.25, table["failed"].to_numpy(bool)
+    fresh = fit_weibull(years, failed)
+    assert stored["fit"].beta == pytest.approx(fresh.beta) and stored["fit"].eta == pytest.approx(fresh.eta)
+    assert np.allclose(stored["fit"].covariance_log, fresh.covariance_log)
+    assert stored["b10_bounds"] == pytest.approx(fresh.b_life_bounds())
+    plot_t, plot_f = probability_plot_points(years, failed)
+    assert np.allclose(stored["plot_points"][0], plot_t) and np.allclose(stored["plot_points"][1], plot_f)
+    assert stored["next_year_failure"] == pytest.approx(np.mean(fresh.conditional_failure(years[~failed], 1.0)))

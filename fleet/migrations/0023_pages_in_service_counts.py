@@ -21,6 +21,11 @@ row trigger with the site and part and carried along when the date is corrected,
 `in_service_totals` index includes it: the dashboard's spares forecast groups the plan's window by
 part, month fitted and month of replacement from that index alone, instead of joining every capacitor.
 
+Each part's stored life fit (`PartLifeFit`) gains what the life-data page shows besides the fit (the
+covariance for the bounds, the plot's points, the chance of failing within a year), so that page reads
+it instead of fitting a part's capacitors on request; fits stored before have none and are not shown
+until the nightly refresh (`refresh_life_fits`) stores them again.
+
 Counts are summed with `services.counts`, compacted there (rows replaced by their sums). Existing
 rows are counted once here. On SQLite, a later migration that rebuilds fleet_assessment,
 fleet_fittedcapacitor or fleet_motor drops these triggers: reinstall them (SQLITE_FORWARD below).
@@ -382,6 +387,11 @@ class Migration(migrations.Migration):
             run({"sqlite": FACTS_SQLITE_FORWARD, "postgresql": FACTS_POSTGRES_FORWARD}),
             run({"sqlite": FACTS_SQLITE_BACKWARD, "postgresql": FACTS_POSTGRES_BACKWARD}),
         ),
+        migrations.AddField(model_name="partlifefit", name="var_log_beta", field=models.FloatField(blank=True, null=True)),
+        migrations.AddField(model_name="partlifefit", name="cov_log_beta_eta", field=models.FloatField(blank=True, null=True)),
+        migrations.AddField(model_name="partlifefit", name="var_log_eta", field=models.FloatField(blank=True, null=True)),
+        migrations.AddField(model_name="partlifefit", name="plot_points", field=models.JSONField(blank=True, default=list, help_text="[[age in years, fraction failed], ...]")),
+        migrations.AddField(model_name="partlifefit", name="next_year_failure", field=models.FloatField(blank=True, null=True)),
         migrations.RemoveIndex(model_name="assessment", name="in_service_totals"),
         migrations.AddIndex(
             model_name="assessment",

@@ -215,6 +215,7 @@ def page_urls() -> list[tuple[str, str]]:
         ("site stock", reverse("site_stock", args=[big])),
         ("stand-in parts", reverse("stand_in_parts")),
         ("life data", reverse("life_data")),
+        ("life data, fitted part", reverse("life_data") + "?part=BENCH-RUN-10"),
         ("route (big site)", reverse("route", args=[big])),
         ("route, due only", reverse("route", args=[big]) + "?show=due"),
         ("labels (big site)", reverse("labels", args=[big])),
