@@ -15,7 +15,8 @@ a failed capacitor in its history, four quarterly readings per capacitor in serv
 assessments each (last week's and the current one, a few at another risk level), open work
 orders for the capacitors to replace now. `--explain` prints EXPLAIN ANALYZE of every query
 of each page that took longer than 20 ms. The planner's pages are timed too: the dashboard and its
-four CSV downloads, a visit sheet, a site's stock, the stand-in parts and the life data (the build
+four CSV downloads, a visit sheet, a site's stock, the stand-in parts and the life data of a part
+without and of one with a stored fit (the build
 adds spares at every site and each part's stored life fit for them; `--only WORD...` times the pages
 whose name holds a word). The latest figures, with the query plans that changed, are in the README
 ("Page figures").
