@@ -604,6 +604,10 @@ class Assessment(models.Model):
     # the risk counts and the dashboard aggregate one table's index instead of joining every capacitor.
     site = kept_by_triggers(Site, "Its capacitor's motor's site; kept by database triggers")
     part = kept_by_triggers(CapacitorPart, "Its capacitor's part; kept by database triggers")
+    # Its capacitor's fitting date, kept the same way (migration 0023): the spares forecast's ages.
+    fitted_on = models.DateField(
+        null=True, blank=True, editable=False, help_text="Its capacitor's fitting date; kept by database triggers"
+    )
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -623,9 +627,13 @@ class Assessment(models.Model):
             models.Index(fields=["risk"], condition=IN_SERVICE, name="in_service_by_risk"),
             # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
             models.Index(fields=["risk_changed_at"], condition=IN_SERVICE, name="in_service_by_risk_change"),
-            # Totals by date, site, part and risk (plan spares, dashboard workload and spares), index only.
+            # Totals by date, site, part, risk and fitting date (plan spares, dashboard workload and spares),
+            # index only.
             models.Index(
-                fields=["replace_by"], include=["site", "part", "risk"], condition=IN_SERVICE, name="in_service_totals"
+                fields=["replace_by"],
+                include=["site", "part", "risk", "fitted_on"],
+                condition=IN_SERVICE,
+                name="in_service_totals",
             ),
             # Risk counts by site (dashboard, home and plan for a user limited to sites), index only.
             models.Index(fields=["site", "risk"], condition=IN_SERVICE, name="in_service_by_site_risk"),
@@ -973,6 +981,14 @@ class PartLifeFit(models.Model):
     eta_years = models.FloatField(help_text="Weibull scale, years")
     failures = models.PositiveIntegerField()
     suspensions = models.PositiveIntegerField()
+    # What the life-data page shows besides the fit (migration 0023), so it never fits on a page load:
+    # the covariance of (ln beta, ln eta) for the Fisher bounds, the Weibull plot's points (thinned) and
+    # the mean chance that a capacitor in service fails within a year, on the day of the fit.
+    var_log_beta = models.FloatField(null=True, blank=True)
+    cov_log_beta_eta = models.FloatField(null=True, blank=True)
+    var_log_eta = models.FloatField(null=True, blank=True)
+    plot_points = models.JSONField(default=list, blank=True, help_text="[[age in years, fraction failed], ...]")
+    next_year_failure = models.FloatField(null=True, blank=True)
     fitted_at = models.DateTimeField(auto_now=True)
 
     class Meta:
@@ -1010,3 +1026,25 @@ class DigestEntry(models.Model):
 
     def __str__(self):
         return f"{self.get_kind_display()}: {self.fitted_capacitor_id} ({self.sent_at:%Y-%m-%d})"
+
+
+class InServiceCount(models.Model):
+    """Append-only ledger of the counts of capacitors in service, kept on write by database triggers
+    (migration 0023), so pages sum a few rows instead of counting the fleet.
+
+    Each row is a change to one count. A capacitor in service adds 1 at (its motor's site, its part,
+    the month it was fitted, risk ""); its current assessment adds 1 at (site, part, its risk level,
+    the UTC day it was judged), fitted month empty. A write adds the new rows' share and takes away
+    the old rows'; each statement's changes are summed per key first, so a refit chunk adds a few
+    rows and locks none. `services.counts.compact_counts` replaces the rows by their sums.
+    """
+
+    site = kept_by_triggers(Site, "The capacitors' motor's site")
+    part = kept_by_triggers(CapacitorPart, "The capacitors' part")
+    risk = models.CharField(max_length=20, blank=True, help_text='Current risk level; "" counts capacitors in service')
+    fitted_month = models.DateField(null=True, blank=True, help_text="First day of the month fitted (capacitors)")
+    assessed_on = models.DateField(null=True, blank=True, help_text="UTC day of the current assessment (risk levels)")
+    n = models.IntegerField(help_text="Change to the count")
+
+    def __str__(self):
+        return f"{self.site_id} {self.part_id} {self.risk or self.fitted_month} {self.n:+d}"

@@ -72,6 +72,7 @@ SITE_PATHS = {
     "fittedcapacitor": "motor__site",
     "reading": "fitted_capacitor__motor__site",
     "assessment": "site",  # stored on the assessment, kept by triggers (migration 0020)
+    "inservicecount": "site",  # counts by site, kept by triggers (migration 0023)
     "workorder": "site",
     "sitestock": "site",
 }

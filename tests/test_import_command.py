@@ -10,7 +10,7 @@ from django.core.management.base import CommandError
 from django.urls import reverse
 
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Reading, Site
-from fleet.services.lifedata import life_table, part_life
+from fleet.services.lifedata import life_table, part_life, refresh_life_fits
 
 pytestmark = pytest.mark.django_db
 
@@ -113,6 +113,9 @@ def test_history_rows_become_failures_and_suspensions_of_life_data(tmp_path):
         (dt.date(2023, 3, 1) - dt.date(2021, 2, 11)).days,
         (dt.date(2026, 3, 1) - dt.date(2023, 3, 1)).days,
     ]
+    life = part_life(part.id, planned_cost=60, failure_cost=400)
+    assert (life["failures"], life["suspensions"]) == (2, 2) and life["fit"] is None  # counted; fitted nightly
+    refresh_life_fits()
     life = part_life(part.id, planned_cost=60, failure_cost=400)
     assert (life["failures"], life["suspensions"]) == (2, 2) and life["fit"] is not None
 

@@ -23,6 +23,7 @@ from django.utils import timezone
 from fleet.models import Assessment, ImportJob, Motor, RefitRun
 from fleet.roles import TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
+from fleet.services.lifedata import refresh_life_fits
 from fleet.services.pages import replacement_plan
 from fleet.services.readings import replace_capacitor
 from fleet.services.workorders import plan_work_orders
@@ -58,7 +59,7 @@ class Fleet:
         for _ in range(motors - self.motors):
             n = next(self.serial)
             motor = make_motor(site=self.sites[n % 2], route_order=n, with_circuit=False)
-            if n % 5 == 0:  # a capacitor in its history, removed before the present one was fitted
+            if n % 5 in (0, 3):  # a capacitor in its history, removed before the present one was fitted
                 make_fitted_capacitor(
                     motor=motor,
                     part=self.part,
@@ -79,6 +80,7 @@ class Fleet:
         plan_work_orders(horizon_days=365)
         RefitRun.objects.create(state=RefitRun.State.DONE, total=len(new), done=len(new))
         ImportJob.objects.create(kind="readings", filename=f"readings-{motors}.csv", content=b"", created_by=user)
+        refresh_life_fits()  # as the nightly task does
         self.motors = motors
 
 
@@ -91,9 +93,22 @@ LIST_PAGES = {
     "route, due only": lambda: reverse("route", args=["NORTH"]) + "?show=due",
     "labels": lambda: reverse("labels", args=["NORTH"]),
     "imports": lambda: reverse("imports"),
+    "visit sheet": lambda: reverse("visit_sheet", args=["NORTH", _first_visit_day("NORTH")]),
+    "life data": lambda: reverse("life_data") + "?part=RUN-4U",
     "API assessments": lambda: reverse("api_assessments"),
     "API assessments, due soon": lambda: reverse("api_assessments") + "?risk=replace+now",
 }
+
+
+def _first_visit_day(site_code: str) -> str:
+    from fleet.models import WorkOrder
+
+    return (
+        WorkOrder.objects.filter(site__code=site_code)
+        .order_by("due_on")
+        .values_list("due_on", flat=True)[0]
+        .isoformat()
+    )
 
 
 @pytest.fixture
@@ -212,8 +227,8 @@ def test_the_work_orders_page_lists_a_visits_first_orders_and_counts_them_all(pl
     fleet.grow_to(12, planner_who_reads)
     page = workorders.open_visits_page(1, orders_shown=1)
     for visit in page.object_list:
-        orders = workorders.open_visits(visit["site"].id, visit["day"])[0]
-        assert visit["count"] == orders["count"] == len(orders["orders"])
+        orders = workorders.open_visit(visit["site"].id, visit["day"])
+        assert visit["count"] == orders["orders"].count() == len(orders["orders"])
         assert [o.id for o in visit["orders"]] == [orders["orders"][0].id]
         assert visit["more"] == visit["count"] - 1
         assert visit["spares"] == orders["spares"] == [("RUN-4U", visit["count"])]
@@ -304,3 +319,21 @@ def test_each_assessments_stored_site_and_part_stay_true_through_readings_refits
     stored, fresh = _stored_totals(), _fresh_totals()
     assert stored == fresh
     assert {a.fitted_capacitor_id for a in Assessment.objects.filter(part=other_part)} == {successor.id, corrected.id}
+
+
+def test_a_visit_sheet_lists_a_page_of_orders_and_the_spares_of_the_whole_visit(client, planner_who_reads, monkeypatch):
+    from fleet.models import WorkOrder
+
+    monkeypatch.setattr("fleet.views.planning.VISIT_SHEET_PAGE_SIZE", 2)
+    fleet = Fleet()
+    fleet.grow_to(40, planner_who_reads)
+    day = _first_visit_day("NORTH")
+    orders = WorkOrder.objects.filter(site__code="NORTH", due_on=day).count()
+    assert orders > 2  # the visit has more than a page
+    client.force_login(planner_who_reads)
+    url = reverse("visit_sheet", args=["NORTH", day])
+    first = client.get(url).content.decode()
+    assert first.count("&#9744;") == 2 and f"Orders 1 to 2 of {orders}" in first and "page=2" in first
+    assert f'{orders}&nbsp;&times;&nbsp;<span class="nowrap">RUN-4U' in first  # spares for every order
+    last = client.get(url, {"page": (orders + 1) // 2}).content.decode()
+    assert last.count("&#9744;") == orders - 2 * ((orders - 1) // 2)

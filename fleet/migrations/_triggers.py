@@ -47,3 +47,24 @@ def postgres_drops(*triggers: tuple[str, str]) -> list[str]:
 def sqlite_drops(*names: str) -> list[str]:
     """SQLite: drop each named trigger."""
     return [f"DROP TRIGGER IF EXISTS {name};" for name in names]
+
+
+def plpgsql_statement_trigger(name: str, event: str, table: str, body: str, *, old_rows="", new_rows="") -> list:
+    """PostgreSQL: the trigger function `name` and the trigger of the same name that runs it once per
+    statement on `event` ("AFTER UPDATE") of `table`, with the statement's old and new rows as the tables
+    `old_rows` and `new_rows` (either may be left out; an UPDATE may name both)."""
+    statements = textwrap.indent(textwrap.dedent(body).strip("\n"), "      ")
+    tables = [f"OLD TABLE AS {old_rows}"] * bool(old_rows) + [f"NEW TABLE AS {new_rows}"] * bool(new_rows)
+    referencing = f"REFERENCING {' '.join(tables)} " if tables else ""
+    return [
+        f"""
+    CREATE OR REPLACE FUNCTION {name}() RETURNS trigger AS $$
+    BEGIN
+{statements}
+    END $$ LANGUAGE plpgsql;
+    """,
+        f"""
+    CREATE TRIGGER {name} {event} ON {table}
+    {referencing}FOR EACH STATEMENT EXECUTE FUNCTION {name}();
+    """,
+    ]

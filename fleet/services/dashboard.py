@@ -8,9 +8,10 @@ result rows bounded by weeks, months, parts and sites, never by capacitors.
 from __future__ import annotations
 
 import datetime as dt
+from collections import Counter
 
 import numpy as np
-from django.db.models import Case, Count, DateField, F, FilteredRelation, OuterRef, Q, Subquery, Sum, Value, When
+from django.db.models import Case, Count, DateField, F, OuterRef, Q, Subquery, Sum, Value, When
 from django.db.models.functions import Cast, TruncMonth, TruncWeek
 from django.utils import timezone
 
@@ -30,6 +31,7 @@ from fleet.models import (
     WorkOrder,
 )
 from fleet.roles import scope_to_user
+from fleet.services.counts import in_service_counts
 from fleet.services.pages import in_service_assessments, quarter_start, risk_changes
 
 WEEKS = 26
@@ -128,25 +130,36 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     months = [_add_months(first, k) for k in range(MONTHS)]
     end = _add_months(first, MONTHS)
     position = {month: k for k, month in enumerate(months)}
-    planned_rows = (
+    # The plan's replacements within the months by part, month fitted and month of replacement (each
+    # assessment stores its capacitor's fitting date); every capacitor in service by part and month
+    # fitted comes from the ledger of counts.
+    window = (
         in_service_assessments(user)
         .filter(replace_by__lt=end)
-        .annotate(month=_clamped("replace_by", TruncMonth, first))
-        .values("month", "part_id")
-        .annotate(n=Count("*"))  # the in_service_totals index alone
-        .order_by()
-    )
-    groups = list(
-        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True), user)
-        .annotate(current=FilteredRelation("assessments", condition=Q(assessments__is_current=True)))
+        .values("part_id")
         .annotate(
-            fitted_month=_day(TruncMonth("fitted_on")),
-            replace_month=_day(TruncMonth("current__replace_by")),
+            fitted_month=_day(TruncMonth("fitted_on")),  # stored: the in_service_totals index alone
+            replace_month=_day(TruncMonth("replace_by")),
+            n=Count("*"),
         )
-        .values("part_id", "fitted_month", "replace_month")
-        .annotate(n=Count("id"))
         .order_by()
     )
+    # Each capacitor in service counts once: at its planned replacement month if it falls within
+    # the months, otherwise with none (it stays in service to the end of them).
+    counted = Counter(
+        {(part, month, None): n for (part, month), n in in_service_counts(user).by_part_fitted_month().items()}
+    )
+    planned_rows = []
+    for row in window:
+        part, fitted_month, replace_month, n = row["part_id"], row["fitted_month"], row["replace_month"], row["n"]
+        planned_rows.append({"part_id": part, "month": max(replace_month, first), "n": n})
+        counted[(part, fitted_month, None)] -= n
+        counted[(part, fitted_month, replace_month)] += n
+    groups = [
+        {"part_id": part, "fitted_month": fitted, "replace_month": replace, "n": n}
+        for (part, fitted, replace), n in counted.items()
+        if n
+    ]
     fits = {f["part_id"]: f for f in PartLifeFit.objects.values("part_id", "beta", "eta_years")}
     part_ids = sorted({row["part_id"] for row in planned_rows} | {g["part_id"] for g in groups})
     parts = {p.id: p for p in CapacitorPart.objects.filter(id__in=part_ids).order_by("dielectric", "rated_uf", "code")}
@@ -216,24 +229,17 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
 
 
 def risk_mix(user=None) -> dict:
-    """Capacitors in service per site by risk level, and those not assessed yet (two queries)."""
+    """Capacitors in service per site by risk level, and those not assessed yet (two queries: the
+    sites, and the ledger of counts kept on write)."""
     sites = _site_codes(user)
-    mix = {site: dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0) for site in sites.values()}
-    for site_id, risk, n in (
-        in_service_assessments(user).values_list("site_id", "risk").annotate(n=Count("*")).order_by()
-    ):  # the in_service_by_site_risk index alone
-        mix.setdefault(sites.get(site_id), dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0))[risk] = n
-    unassessed = (
-        scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True), user)
-        .annotate(current=FilteredRelation("assessments", condition=Q(assessments__is_current=True)))
-        .filter(current__id__isnull=True)
-        .values_list("motor__site__code")
-        .annotate(n=Count("id"))
-        .order_by()
-    )
-    for site, n in unassessed:
-        mix.setdefault(site, dict.fromkeys([*RISK_ORDER, NOT_ASSESSED], 0))[NOT_ASSESSED] = n
-    return {"sites": list(mix), "levels": [*RISK_ORDER, NOT_ASSESSED], "counts": mix}
+    levels = [*RISK_ORDER, NOT_ASSESSED]
+    mix = {site: dict.fromkeys(levels, 0) for site in sites.values()}
+    counts = in_service_counts(user)
+    for (site_id, risk), n in counts.by_site_risk().items():
+        mix.setdefault(sites.get(site_id), dict.fromkeys(levels, 0))[risk] = n
+    for site_id, n in counts.not_assessed_by_site().items():
+        mix.setdefault(sites.get(site_id), dict.fromkeys(levels, 0))[NOT_ASSESSED] = n
+    return {"sites": list(mix), "levels": levels, "counts": mix}
 
 
 def last_read_subquery():
@@ -294,10 +300,12 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     plan's list of changes): a capacitor whose level changed within the window moved from
     `risk_was`, whatever it was judged in between; reassessed but not changed, it stayed at its level.
     """
-    since = timezone.now() - dt.timedelta(days=days)
+    # From the start of a UTC day, as the ledger of counts dates assessments (reassessed: summed there).
+    since_day = timezone.now().astimezone(dt.UTC).date() - dt.timedelta(days=days)
+    since = dt.datetime.combine(since_day, dt.time(), tzinfo=dt.UTC)
     readings = scope_to_user(Reading.objects.filter(taken_at__gte=since), user).count()
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
-    reassessed = in_service_assessments(user).filter(created_at__gte=since).count()
+    reassessed = in_service_counts(user).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
     before_change = Assessment.objects.filter(
         fitted_capacitor=OuterRef("fitted_capacitor"), created_at__lt=OuterRef("risk_changed_at")
@@ -329,6 +337,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     )
     return {
         "days": days,
+        "since": since,
         "readings": readings,
         "refit_runs": refit_runs,
         "reassessed": reassessed,

@@ -7,10 +7,13 @@ import datetime as dt
 import numpy as np
 import pandas as pd
 from django.db import transaction
+from django.db.models import Count, Q
 from django.utils import timezone
 
 from fleet.engineering.lifedata import WeibullFit, age_replacement, fit_weibull, probability_plot_points
 from fleet.models import FittedCapacitor, PartLifeFit
+
+DAYS_PER_YEAR = 365.25
 
 
 def life_table(part_id: int | None = None, today: dt.date | None = None) -> pd.DataFrame:
@@ -28,38 +31,78 @@ def life_table(part_id: int | None = None, today: dt.date | None = None) -> pd.D
     return frame[frame["age_days"] > 0].reset_index(drop=True)
 
 
+PLOT_POINTS = 400  # the Weibull plot's points kept per part: every failure up to this many, evenly spread beyond
+
+
 def refresh_life_fits(today: dt.date | None = None) -> int:
     """Fit and store every part's Weibull (parts with two failures or more; the others' stored fit
-    is removed), for pages that forecast failures without fitting. One loop step per part."""
+    is removed) with what the life-data page shows besides it, for pages that must not fit on a
+    page load. One loop step per part."""
     table = life_table(today=today)
     kept = []
     with transaction.atomic():
         for part_id, rows in table.groupby("part_id"):
+            years = rows["age_days"].to_numpy() / DAYS_PER_YEAR
             failed = rows["failed"].to_numpy(bool)
             if failed.sum() < 2:
                 continue
-            fit = fit_weibull(rows["age_days"].to_numpy() / 365.25, failed)
+            fit = fit_weibull(years, failed)
             if not (np.isfinite(fit.beta) and np.isfinite(fit.eta)):
                 continue
+            plot_t, plot_f = probability_plot_points(years, failed)
+            shown = np.unique(np.linspace(0, len(plot_t) - 1, min(len(plot_t), PLOT_POINTS)).round().astype(int))
+            in_service = years[~failed]
             PartLifeFit.objects.update_or_create(
                 part_id=int(part_id),
-                defaults=dict(beta=fit.beta, eta_years=fit.eta, failures=fit.failures, suspensions=fit.suspensions),
+                defaults=dict(
+                    beta=fit.beta,
+                    eta_years=fit.eta,
+                    failures=fit.failures,
+                    suspensions=fit.suspensions,
+                    var_log_beta=float(fit.covariance_log[0, 0]),
+                    cov_log_beta_eta=float(fit.covariance_log[0, 1]),
+                    var_log_eta=float(fit.covariance_log[1, 1]),
+                    plot_points=[[float(t), float(f)] for t, f in zip(plot_t[shown], plot_f[shown], strict=True)],
+                    next_year_failure=float(np.mean(fit.conditional_failure(in_service, 1.0)))
+                    if in_service.size
+                    else None,
+                ),
             )
             kept.append(int(part_id))
         PartLifeFit.objects.exclude(part_id__in=kept).delete()
     return len(kept)
 
 
+def stored_fit(stored: PartLifeFit) -> WeibullFit:
+    """A part's stored fit as the core's WeibullFit (bounds, B-lives, age replacement)."""
+    covariance = np.array(
+        [[stored.var_log_beta, stored.cov_log_beta_eta], [stored.cov_log_beta_eta, stored.var_log_eta]], float
+    )
+    return WeibullFit(
+        beta=stored.beta,
+        eta=stored.eta_years,
+        failures=stored.failures,
+        suspensions=stored.suspensions,
+        covariance_log=covariance,
+    )
+
+
 def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
-    """Weibull fit, plot points and the age-replacement curve for one part, in years."""
-    table = life_table(part_id)
-    years = table["age_days"].to_numpy() / 365.25
-    failed = table["failed"].to_numpy(bool)
-    result = {"failures": int(failed.sum()), "suspensions": int((~failed).sum()), "fit": None}
-    if failed.sum() < 2:
-        return result
-    fit: WeibullFit = fit_weibull(years, failed)
-    plot_t, plot_f = probability_plot_points(years, failed)
+    """A part's stored Weibull fit (refreshed nightly by `refresh_life_fits`, never fitted here), its
+    plot points and the age-replacement curve for these costs, in years; without a stored fit, the
+    part's failures and suspensions counted from the register (one query either way, or two)."""
+    stored = PartLifeFit.objects.filter(part_id=part_id, var_log_beta__isnull=False).first()
+    if stored is None:
+        counts = FittedCapacitor.objects.filter(part_id=part_id).aggregate(
+            failures=Count("id", filter=Q(removal_reason=FittedCapacitor.RemovalReason.FAILED)), units=Count("id")
+        )
+        return {
+            "failures": counts["failures"],
+            "suspensions": counts["units"] - counts["failures"],
+            "fit": None,
+            "fitted_at": None,
+        }
+    fit = stored_fit(stored)
     ages = np.linspace(0.05, 3.0, 240) * fit.eta
     replacement = age_replacement(fit, planned_cost, failure_cost, ages=ages)
     (beta_low, beta_high), (eta_low, eta_high) = fit.parameter_bounds()
@@ -70,15 +113,18 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
         pattern = "early failures: the youngest fail most"
     else:
         pattern = "cannot tell from random failures yet"
-    result.update(
-        fit=fit,
-        pattern=pattern,
-        beta_bounds=(beta_low, beta_high),
-        eta_bounds=(eta_low, eta_high),
-        b10=fit.b_life(),
-        b10_bounds=(b10_low, b10_high),
-        next_year_failure=float(np.mean(fit.conditional_failure(years[~failed], 1.0))) if (~failed).any() else None,
-        plot_points=(plot_t, plot_f),
-        replacement=replacement,
-    )
-    return result
+    points = np.array(stored.plot_points, float).reshape(-1, 2)
+    return {
+        "failures": fit.failures,
+        "suspensions": fit.suspensions,
+        "fit": fit,
+        "fitted_at": stored.fitted_at,
+        "pattern": pattern,
+        "beta_bounds": (beta_low, beta_high),
+        "eta_bounds": (eta_low, eta_high),
+        "b10": fit.b_life(),
+        "b10_bounds": (b10_low, b10_high),
+        "next_year_failure": stored.next_year_failure,
+        "plot_points": (points[:, 0], points[:, 1]),
+        "replacement": replacement,
+    }

@@ -12,6 +12,7 @@ from django.utils import timezone
 from fleet.models import Assessment, FittedCapacitor, Reading, RefitChunk, RefitRun
 
 from .assessments import refit_fitted_capacitors, refresh_part_priors
+from .counts import compact_counts
 
 QUEUE_DOWN = (
     "The task queue is unreachable ({error}), so the fleet refit did not start. Every reading is saved: once the "
@@ -108,9 +109,13 @@ def refit_chunk(run_id: int, number: int, fitted_capacitor_ids: list[int], force
         RefitRun.objects.filter(id=run_id).update(
             done=F("done") + len(fitted_capacitor_ids), readings=F("readings") + outcome.readings, progress_at=now
         )
-        RefitRun.objects.filter(id=run_id, done__gte=F("total")).exclude(state=RefitRun.State.DONE).update(
-            state=RefitRun.State.DONE, finished_at=now, message=""
+        finished = (
+            RefitRun.objects.filter(id=run_id, done__gte=F("total"))
+            .exclude(state=RefitRun.State.DONE)
+            .update(state=RefitRun.State.DONE, finished_at=now, message="")
         )
+    if finished:
+        compact_counts()  # the run's chunks added their changes to the counts: sum them up
 
 
 def fail_run(run_id: int, message: str) -> None:
@@ -184,8 +189,10 @@ def stale_fitted_capacitor_ids(limit: int = 5000) -> list[int]:
 
 
 def sweep_stale(limit: int = 5000) -> int:
-    """Refit what a lost task left stale (the broker was down when it was saved); mark lost runs abandoned."""
+    """Refit what a lost task left stale (the broker was down when it was saved); mark lost runs
+    abandoned; sum up the ledger of counts the refits and other writes added to since."""
     mark_abandoned_runs()
+    compact_counts()
     ids = stale_fitted_capacitor_ids(limit)
     if ids:
         refit_fitted_capacitors(ids)

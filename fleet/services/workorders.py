@@ -118,19 +118,16 @@ def _spares(orders) -> dict[tuple, list[tuple[str, int]]]:
     return spares
 
 
-def open_visits(site_id: int, day: dt.date, user=None) -> list[dict]:
-    """One visit's open orders at a site the user works at, in walking order, with its spares: the visit sheet."""
+def open_visit(site_id: int, day: dt.date, user=None) -> dict:
+    """One visit's open orders at a site the user works at: the visit sheet. `orders` is a queryset in
+    walking order, to read a page at a time (empty: no such visit); `spares` covers the whole visit."""
     orders = (
         _open_orders(user)
         .filter(site_id=site_id, due_on=day)
         .select_related("motor", "site", "fitted_capacitor__part")
         .order_by("motor__route_order", "motor__asset_tag", "id")
     )
-    group = list(orders)
-    if not group:
-        return []
-    spares = _spares(orders).get((day, site_id), [])
-    return [{"day": day, "site": group[0].site, "orders": group, "count": len(group), "spares": spares}]
+    return {"day": day, "orders": orders, "spares": _spares(orders).get((day, site_id), [])}
 
 
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):

@@ -20,7 +20,9 @@ from fleet.services import pages
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
 from fleet.services.substitutes import part_families
-from fleet.services.workorders import issue_visit, open_visits, open_visits_page, plan_work_orders
+from fleet.services.workorders import issue_visit, open_visit, open_visits_page, plan_work_orders
+
+VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)
@@ -79,15 +81,16 @@ def work_orders(request):
 
 @permission_required("fleet.view_workorder", raise_exception=True)
 def visit_sheet(request, site_code, day):
-    """A printable sheet for one site visit: the orders, the spares, the cautions."""
+    """A printable sheet for one site visit: the orders (a page at a time), the spares, the cautions."""
     site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     try:
-        visits = open_visits(site.id, dt.date.fromisoformat(day), user=request.user)
+        visit = open_visit(site.id, dt.date.fromisoformat(day), user=request.user)
     except ValueError:
-        visits = []
-    if not visits:
+        raise Http404("No open work orders for that visit") from None
+    page = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE).get_page(request.GET.get("page"))
+    if not page.paginator.count:
         raise Http404("No open work orders for that visit")
-    return render(request, "fleet/visit_sheet.html", {"visit": visits[0], "site": site})
+    return render(request, "fleet/visit_sheet.html", {"visit": visit, "site": site, "page": page})
 
 
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)

@@ -11,6 +11,7 @@ from django.utils import timezone
 
 from fleet.models import FittedCapacitor
 from fleet.services.assessments import refit_fitted_capacitors
+from fleet.services.lifedata import refresh_life_fits
 from tests.factories import make_fitted_capacitor, make_part, make_user, quarterly_readings
 
 from .test_technician import sign_in
@@ -54,6 +55,7 @@ def test_the_life_data_charts_keep_their_height(phone):
         FittedCapacitor.objects.filter(id=fitted_capacitor.id).update(
             removed_on=dt.date(2018, 1, 1) + dt.timedelta(days=int(365.25 * years)), removal_reason=reason
         )
+    refresh_life_fits()
     sign_in(phone, make_user("reliability engineer"))
     phone.goto("/life/?part=LIFE-1")
     phone.wait_for_selector("#cost-chart .main-svg")

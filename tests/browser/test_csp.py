@@ -6,6 +6,7 @@ import pytest
 from django.utils import timezone
 
 from fleet.services.assessments import refit_fitted_capacitors
+from fleet.services.lifedata import refresh_life_fits
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
 
 from .test_technician import sign_in
@@ -30,6 +31,7 @@ def part_with_history(transactional_db):
     live = make_fitted_capacitor(part=part, motor=make_motor(site=site))
     quarterly_readings(live, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97])
     refit_fitted_capacitors([live.id])
+    refresh_life_fits()
     return part, live
 
 

@@ -15,7 +15,8 @@ a failed capacitor in its history, four quarterly readings per capacitor in serv
 assessments each (last week's and the current one, a few at another risk level), open work
 orders for the capacitors to replace now. `--explain` prints EXPLAIN ANALYZE of every query
 of each page that took longer than 20 ms. The planner's pages are timed too: the dashboard and its
-four CSV downloads, a visit sheet, a site's stock, the stand-in parts and the life data (the build
+four CSV downloads, a visit sheet, a site's stock, the stand-in parts and the life data of a part
+without and of one with a stored fit (the build
 adds spares at every site and each part's stored life fit for them; `--only WORD...` times the pages
 whose name holds a word). The latest figures, with the query plans that changed, are in the README
 ("Page figures").
@@ -173,7 +174,8 @@ def build(motors: int) -> None:
                     cursor.execute(statement % params)
                     print(f"  {cursor.rowcount:>9,} rows  {time.perf_counter() - step:6.1f} s  {statement.split()[2]}")
         with connection.cursor() as cursor:  # each current assessment's latest change of risk, as refits keep it
-            cursor.execute(importlib.import_module(STORED_FACTS_MIGRATION).FILL_RISK_HISTORY)
+            fill = importlib.import_module(STORED_FACTS_MIGRATION).FILL_RISK_HISTORY
+            cursor.execute(fill.replace("installation_id", "fitted_capacitor_id"))  # the column's name since 0022
         add_stock_and_life_fits()
     with connection.cursor() as cursor:
         cursor.execute("VACUUM ANALYZE")
@@ -214,6 +216,7 @@ def page_urls() -> list[tuple[str, str]]:
         ("site stock", reverse("site_stock", args=[big])),
         ("stand-in parts", reverse("stand_in_parts")),
         ("life data", reverse("life_data")),
+        ("life data, fitted part", reverse("life_data") + "?part=BENCH-RUN-10"),
         ("route (big site)", reverse("route", args=[big])),
         ("route, due only", reverse("route", args=[big]) + "?show=due"),
         ("labels (big site)", reverse("labels", args=[big])),

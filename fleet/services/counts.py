@@ -1,0 +1,101 @@
+"""Counts of capacitors in service, read from the ledger the database's triggers keep on every write
+(`InServiceCount`, migration 0023): one query over a few rows, whatever the fleet's size.
+
+A capacitor in service counts at (site, part, month fitted); its current assessment at (site, part,
+risk level, UTC day made). Capacitors in service without a current assessment are the difference.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections import defaultdict
+from dataclasses import dataclass
+
+from django.db import connection, transaction
+from django.db.models import Max, Sum
+
+from fleet.models import InServiceCount
+from fleet.roles import scope_to_user
+
+KEY = ("site_id", "part_id", "risk", "fitted_month", "assessed_on")
+
+
+@dataclass(frozen=True)
+class InServiceCounts:
+    """The ledger summed per key: `assessed` {(site_id, part_id, risk, assessed_on): n} counts current
+    assessments of capacitors in service, `fitted` {(site_id, part_id, fitted_month): n} capacitors in service."""
+
+    assessed: dict[tuple, int]
+    fitted: dict[tuple, int]
+
+    def by_risk(self) -> dict[str, int]:
+        return _summed((risk, n) for (_, _, risk, _), n in self.assessed.items())
+
+    def by_site_risk(self) -> dict[tuple[int, str], int]:
+        return _summed(((site, risk), n) for (site, _, risk, _), n in self.assessed.items())
+
+    def not_assessed_by_site(self) -> dict[int, int]:
+        """Capacitors in service without a current assessment, per site (sites with none left out)."""
+        left = _summed((site, n) for (site, _, _), n in self.fitted.items())
+        for (site, _, _, _), n in self.assessed.items():
+            left[site] = left.get(site, 0) - n
+        return {site: n for site, n in left.items() if n}
+
+    def by_part_fitted_month(self) -> dict[tuple[int, dt.date], int]:
+        return _summed(((part, month), n) for (_, part, month), n in self.fitted.items())
+
+    def assessed_since(self, day: dt.date) -> int:
+        """Current assessments of capacitors in service made on `day` (UTC) or later."""
+        return sum(n for (_, _, _, assessed_on), n in self.assessed.items() if assessed_on >= day)
+
+
+def _summed(pairs) -> dict:
+    totals = defaultdict(int)
+    for key, n in pairs:
+        totals[key] += n
+    return {key: n for key, n in totals.items() if n}
+
+
+def in_service_counts(user=None) -> InServiceCounts:
+    """The counts at the user's sites (None: every site), one query."""
+    rows = (
+        scope_to_user(InServiceCount.objects.all(), user)
+        .values_list(*KEY)
+        .annotate(total=Sum("n"))
+        .exclude(total=0)
+        .order_by()
+    )
+    assessed, fitted = {}, {}
+    for site, part, risk, fitted_month, assessed_on, n in rows:
+        if risk:
+            assessed[(site, part, risk, assessed_on)] = n
+        else:
+            fitted[(site, part, fitted_month)] = n
+    return InServiceCounts(assessed=assessed, fitted=fitted)
+
+
+COMPACT_SQL = f"""
+WITH gone AS (DELETE FROM fleet_inservicecount RETURNING {", ".join(KEY)}, n)
+INSERT INTO fleet_inservicecount ({", ".join(KEY)}, n)
+SELECT {", ".join(KEY)}, SUM(n) FROM gone GROUP BY {", ".join(KEY)} HAVING SUM(n) <> 0
+"""
+
+
+def compact_counts() -> int:
+    """Replace the ledger's rows by their sums per key (keys that sum to nought go); returns the rows
+    left. Sums are unchanged, so readers never see a difference. On PostgreSQL one statement deletes the
+    rows it can see and inserts their sums: rows a concurrent write adds meanwhile stay as they are,
+    and two compactions at once each sum only the rows they deleted."""
+    if connection.vendor == "postgresql":
+        with connection.cursor() as cursor:
+            cursor.execute(COMPACT_SQL)
+            return cursor.rowcount
+    with transaction.atomic():
+        last = InServiceCount.objects.aggregate(last=Max("id"))["last"]
+        if last is None:
+            return 0
+        sums = InServiceCount.objects.filter(id__lte=last).values(*KEY).annotate(total=Sum("n")).exclude(total=0)
+        rows = [InServiceCount(**{k: row[k] for k in KEY}, n=row["total"]) for row in sums.order_by()]
+        InServiceCount.objects.filter(id__lte=last).delete()
+        InServiceCount.objects.bulk_create(rows)
+        return len(rows)

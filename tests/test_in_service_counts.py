@@ -1,0 +1,193 @@
+"""The ledger of counts kept by triggers (`InServiceCount`, migration 0023) equals a count from scratch
+after every kind of write: refits, readings and corrections, replacements, removals, a motor moving,
+register corrections, deletions and imports. [derived: the ledger is the sum of each row's share, so
+it must equal the shares of the rows as they stand.] Runs on SQLite and PostgreSQL alike."""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import pytest
+from django.db import connection
+from django.db.models import Count, F
+from django.db.models.functions import TruncDate, TruncMonth
+from django.utils import timezone
+
+from fleet.models import Assessment, FittedCapacitor, InServiceCount, Motor
+from fleet.services.assessments import refit_fitted_capacitors
+from fleet.services.counts import compact_counts, in_service_counts
+from fleet.services.readings import record_reading, replace_capacitor
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    quarterly_readings,
+    stored_assessment,
+)
+from tests.test_import_command import migrate_all
+from tests.test_page_queries import SOUND, Fleet
+
+pytestmark = pytest.mark.django_db
+
+
+def from_scratch() -> dict:
+    """Capacitors in service and their current assessments, counted through capacitors and motors
+    (not through any stored copy of the site or part)."""
+    assessed = (
+        Assessment.objects.filter(is_current=True, fitted_capacitor__removed_on__isnull=True)
+        .values_list(
+            "fitted_capacitor__motor__site_id",
+            "fitted_capacitor__part_id",
+            "risk",
+            TruncDate("created_at", tzinfo=dt.UTC),
+        )
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    fitted = (
+        FittedCapacitor.objects.filter(removed_on__isnull=True)
+        .values_list("motor__site_id", "part_id", TruncMonth("fitted_on"))
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    return {
+        "assessed": {tuple(row[:-1]): row[-1] for row in assessed},
+        "fitted": {tuple(row[:-1]): row[-1] for row in fitted},
+    }
+
+
+def from_ledger() -> dict:
+    counts = in_service_counts()
+    return {"assessed": counts.assessed, "fitted": counts.fitted}
+
+
+def refit_all() -> None:
+    refit_fitted_capacitors(list(FittedCapacitor.objects.values_list("id", flat=True)), force=True)
+
+
+def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_path, django_user_model):
+    planner = django_user_model.objects.create_user("ledger-planner", password="a-long-test-password")
+    checks = []
+
+    def check(step):
+        checks.append(step)
+        assert from_ledger() == from_scratch(), step
+        stored = Assessment.objects.exclude(fitted_on=F("fitted_capacitor__fitted_on"))
+        assert not stored.exists(), f"{step}: an assessment's stored fitting date differs from its capacitor's"
+
+    fleet = Fleet()
+    fleet.grow_to(8, planner)  # readings, two refits (one forced), work orders
+    check("refits")
+    assert sum(from_scratch()["assessed"].values()) == 8  # the comparison is of real values
+
+    fitted = FittedCapacitor.objects.filter(removed_on__isnull=True, assessments__risk="replace now").first()
+    wrong = record_reading(
+        fitted_capacitor=fitted, values={"capacitance_uf": "3.1", "case_temperature_c": "25"}, confirmed=True
+    )
+    record_reading(
+        fitted_capacitor=fitted,
+        values={"capacitance_uf": "3.6", "case_temperature_c": "25"},
+        supersedes_id=wrong.id,
+        confirmed=True,
+    )
+    refit_fitted_capacitors([fitted.id])
+    check("a reading, its correction and the refit")
+
+    other_part = make_part(code="RUN-4U-B")
+    successor = replace_capacitor(
+        fitted_capacitor=fitted, part=other_part, removed_on=timezone.localdate(), reason="failed"
+    )
+    check("a replacement")
+    quarterly_readings(successor, timezone.now() - dt.timedelta(days=400), SOUND)
+    refit_fitted_capacitors([successor.id])
+    check("the successor's refit")
+
+    in_service = FittedCapacitor.objects.filter(removed_on__isnull=True).exclude(pk=successor.pk)
+    removed = list(in_service.values_list("id", flat=True)[:2])
+    FittedCapacitor.objects.filter(id__in=removed).update(removed_on=timezone.localdate(), removal_reason="failed")
+    check("two removals in one statement")
+    FittedCapacitor.objects.filter(id=removed[0]).update(removed_on=None, removal_reason="")
+    check("a removal undone")
+
+    moved = Motor.objects.filter(site=fleet.sites[0]).first()
+    moved.site = fleet.sites[1]
+    moved.save()
+    Motor.objects.filter(site=fleet.sites[1]).update(site=fleet.sites[0])
+    check("motors moving to another site")
+
+    corrected = FittedCapacitor.objects.filter(removed_on__isnull=True).exclude(pk=successor.pk)
+    first, second = corrected[:2]
+    first.part, first.fitted_on = other_part, dt.date(2021, 3, 15)
+    first.save()
+    FittedCapacitor.objects.filter(pk=second.pk).update(motor=make_motor(site=make_site("THIRD")))
+    check("a capacitor's part and fitting date corrected, another moved to a motor elsewhere")
+
+    unread = make_fitted_capacitor(motor=make_motor(site=fleet.sites[0]), part=fleet.part)
+    stored_assessment(unread, "watch", timezone.localdate() + dt.timedelta(days=90))
+    check("a capacitor fitted and assessed")
+    unread.delete()  # entered by mistake: its assessment goes with it
+    Motor.objects.filter(pk=unread.motor_id).delete()
+    check("a capacitor and a motor deleted")
+
+    migrate_all(tmp_path)  # sites, parts, register, history and readings through the import path
+    check("imports")
+    refit_all()
+    check("a fleet refit")
+
+    rows = compact_counts()
+    check("compacted")
+    assert InServiceCount.objects.count() == rows == len(from_scratch()["assessed"]) + len(from_scratch()["fitted"])
+    assert len(checks) == 13
+
+
+def test_pages_read_the_counts_at_the_users_sites_only(django_user_model):
+    from fleet.models import SiteMembership
+
+    fleet = Fleet()
+    planner = django_user_model.objects.create_user("ledger-scoped", password="a-long-test-password")
+    fleet.grow_to(6, planner)
+    SiteMembership.objects.create(user=planner, site=fleet.sites[0])
+    scoped = in_service_counts(planner)
+    assert {site for site, _, _, _ in scoped.assessed} == {fleet.sites[0].id}
+    expected = Assessment.objects.filter(is_current=True, site=fleet.sites[0], capacitor_in_service=True).count()
+    assert sum(scoped.by_risk().values()) == expected > 0
+
+
+def test_every_trigger_of_the_ledger_is_installed():
+    """A migration that rebuilds a table on SQLite drops its triggers: this notices."""
+    names = {
+        f"fleet_{table}_counts_{event}"
+        for table in ("assessment", "capacitor")
+        for event in ("insert", "update", "delete")
+    } | {"fleet_motor_moves_counts"}
+    with connection.cursor() as cursor:
+        if connection.vendor == "sqlite":
+            cursor.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")
+        else:
+            cursor.execute("SELECT tgname FROM pg_trigger WHERE NOT tgisinternal")
+        assert names <= {row[0] for row in cursor.fetchall()}
+
+
+def test_the_life_data_page_shows_the_stored_fit_as_a_fit_on_request_would(tmp_path):
+    """[derived] The stored fit, its bounds, B10, plot points and next-year chance are those of a fit of
+    the part's life table made now with the core (IEC 61649 methods in fleet/engineering/lifedata.py)."""
+    import numpy as np
+
+    from fleet.engineering.lifedata import fit_weibull, probability_plot_points
+    from fleet.models import CapacitorPart
+    from fleet.services.lifedata import life_table, part_life, refresh_life_fits
+
+    migrate_all(tmp_path)
+    part = CapacitorPart.objects.get(code="RUN-8")
+    refresh_life_fits()
+    stored = part_life(part.id, planned_cost=60, failure_cost=400)
+    table = life_table(part.id)
+    years, failed = table["age_days"].to_numpy() / 365.25, table["failed"].to_numpy(bool)
+    fresh = fit_weibull(years, failed)
+    assert stored["fit"].beta == pytest.approx(fresh.beta) and stored["fit"].eta == pytest.approx(fresh.eta)
+    assert np.allclose(stored["fit"].covariance_log, fresh.covariance_log)
+    assert stored["b10_bounds"] == pytest.approx(fresh.b_life_bounds())
+    plot_t, plot_f = probability_plot_points(years, failed)
+    assert np.allclose(stored["plot_points"][0], plot_t) and np.allclose(stored["plot_points"][1], plot_f)
+    assert stored["next_year_failure"] == pytest.approx(np.mean(fresh.conditional_failure(years[~failed], 1.0)))
