@@ -40,7 +40,7 @@ def create_index(apps, schema_editor):
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0022_fitted_capacitor_name"),
+        ("fleet", "0023_pages_in_service_counts"),
     ]
 
     operations = [
