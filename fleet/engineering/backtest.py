@@ -86,6 +86,28 @@ def first_crossing_day(group, day, below, n_groups):
     return np.where(np.isfinite(first), 0.5 * (previous + first), np.nan)
 
 
+def choose_by_projection_error(squared_error, min_readings: int = 100, slip_fraction: float = 0.25):
+    """The candidate path model whose projections strayed least from the readings that came later.
+
+    squared_error (N, K): for each of N later readings, the squared error (in
+    fractions of rated) of its projection by each of K candidate models (trend
+    form and path shape), each fitted only to the readings before the reading's
+    cut-off. Readings off by `slip_fraction` of the rating or more under any
+    candidate are a slip or the wrong capacitor rather than ageing, and are left
+    out, as are readings some candidate did not project. The criterion is the
+    mean squared error of every out-of-sample projection, not of crossings:
+    model choice by rolling-origin error (Tashman, Int. J. Forecasting 16, 2000;
+    from memory). Returns (index of the chosen candidate, or None when fewer than
+    `min_readings` readings count; mean squared error per candidate, nan when none count).
+    """
+    squared = np.asarray(squared_error, float)
+    squared = squared[np.isfinite(squared).all(axis=1) & (squared < slip_fraction**2).all(axis=1)]
+    if not len(squared):
+        return None, np.full(np.shape(squared_error)[1], np.nan)
+    mean = squared.mean(axis=0)
+    return (int(np.argmin(mean)) if len(squared) >= min_readings else None), mean
+
+
 def choose_alert_level(level_days, replace_now, crossed_day, followed_days, settings: PlanningSettings | None = None):
     """The crossing quantile the risk rule should flag on, from back-tested forecasts.
 

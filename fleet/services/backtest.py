@@ -27,6 +27,7 @@ from django.utils import timezone
 
 from fleet.engineering.backtest import (
     choose_alert_level,
+    choose_by_projection_error,
     first_crossing_day,
     isolated_off_trend,
     projection_errors,
@@ -35,7 +36,7 @@ from fleet.engineering.backtest import (
 from fleet.engineering.calibration import CalibrationSettings, estimate_calibration
 from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, alert_index, risk_levels
 from fleet.engineering.rules import ReadingRules
-from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
+from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG, PATH_BENT, PATH_STRAIGHT
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
 from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames
@@ -109,16 +110,20 @@ def _estimate(errors: pd.DataFrame, n_families: int, cutoff: pd.Timestamp | None
     )
 
 
-FORMS = (MODEL_LINEAR, MODEL_LOG)
+# The candidate path models, (trend form, path shape): the bent paths first, so a tie keeps the bend.
+PATH_MODELS = tuple((form, shape) for shape in (PATH_BENT, PATH_STRAIGHT) for form in (MODEL_LINEAR, MODEL_LOG))
+PATH_MODEL_COLUMNS = [f"sq_{form}_{shape}" for form, shape in PATH_MODELS]
 
 
-def _form_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
-    """Squared projection error of each later reading, in fractions of rated, under each trend form."""
+def _path_model_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
+    """Squared projection error of each later reading, in fractions of rated, under each path model."""
     part_ids = np.sort(inst["part_id"].unique())
     hours = _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group])
     out = {}
-    for form in FORMS:
-        fit = fit_frames(inst, before, None, part_ids, {family: form for family in families})
+    for (form, shape), column in zip(PATH_MODELS, PATH_MODEL_COLUMNS, strict=True):
+        fit = fit_frames(
+            inst, before, None, part_ids, dict.fromkeys(families, form), shapes=dict.fromkeys(families, shape)
+        )
         _, _, error, _, fraction = projection_errors(
             fit,
             group,
@@ -128,23 +133,23 @@ def _form_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
             inst["rated_uf"].to_numpy(float),
         )
         predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
-        out[f"sq_{form}"] = (fraction - predicted) ** 2
+        out[column] = (fraction - predicted) ** 2
     return out
 
 
-def _forms(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None) -> dict[str, str]:
-    """Per family, the trend form whose projections strayed least from the readings that came
-    later (before `cutoff`), among errors small enough to be ageing rather than a slip."""
+def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None):
+    """Per family, the trend form and path shape whose projections strayed least from the readings
+    that came later (taken before `cutoff`; None: all), and each candidate's mean squared error.
+    Returns (forms, shapes, errors): a family with too few later readings is in neither choice."""
     if cutoff is not None:
         errors = errors[errors["taken"] < cutoff]
-    chosen = {}
+    forms, shapes, mean_errors = {}, {}, {}
     for k, family in enumerate(families):
-        mine = errors[errors["family"] == k]
-        squared = mine[[f"sq_{form}" for form in FORMS]].to_numpy(float)
-        squared = squared[np.isfinite(squared).all(axis=1) & (squared < 0.25**2).all(axis=1)]
-        if len(squared) >= 100:
-            chosen[family] = FORMS[int(np.argmin(squared.mean(axis=0)))]
-    return chosen
+        chosen, mean = choose_by_projection_error(errors.loc[errors["family"] == k, PATH_MODEL_COLUMNS])
+        mean_errors[family] = mean
+        if chosen is not None:
+            forms[family], shapes[family] = PATH_MODELS[chosen]
+    return forms, shapes, mean_errors
 
 
 ALERT_COLUMNS = [f"alert_{level:.1f}" for level in ALERT_LEVELS]
@@ -206,7 +211,7 @@ def _run(backtest: Backtest) -> None:
     part_codes = dict(
         CapacitorPart.objects.filter(id__in=inst_all["part_id"].unique().tolist()).values_list("id", "code")
     )
-    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken", *[f"sq_{f}" for f in FORMS]])
+    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken", *PATH_MODEL_COLUMNS])
     forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
     per_cutoff = []
     fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
@@ -222,7 +227,7 @@ def _run(backtest: Backtest) -> None:
             continue
         before = before.reset_index(drop=True)
         terms = _estimate(errors, len(families), cutoff)
-        forms = _forms(errors, families, cutoff)
+        forms, shapes, _ = _path_models(errors, families, cutoff)
         calibrations = {
             "default": {},
             "calibrated": {family: tuple(terms.per_capacitor([k])[:, 0]) for k, family in enumerate(families)},
@@ -240,7 +245,13 @@ def _run(backtest: Backtest) -> None:
         summary = {"cutoff": cutoff_text, "capacitors": int(len(inst)), "later_readings": int(len(later))}
         for variant in VARIANTS:
             result = assess(
-                inst, before, priors=None, calibration=calibrations[variant], forms=forms, now=cutoff.to_pydatetime()
+                inst,
+                before,
+                priors=None,
+                calibration=calibrations[variant],
+                forms=forms,
+                now=cutoff.to_pydatetime(),
+                shapes=shapes,
             )
             change, span, error, variance, fraction = projection_errors(
                 result.fit,
@@ -278,10 +289,10 @@ def _run(backtest: Backtest) -> None:
             forecasts[variant].append(frame)
             summary[variant] = _scores(frame, part_codes)["all"]
             if variant == "default":
-                form_errors = _form_errors(inst, before, later, group, families)
+                model_errors = _path_model_errors(inst, before, later, group, families)
                 fresh_errors = pd.DataFrame(
                     {
-                        **form_errors,
+                        **model_errors,
                         "family": family[group],
                         "capacitor": inst.index.to_numpy()[group] * 1000 + number,
                         "x": change,
@@ -296,7 +307,7 @@ def _run(backtest: Backtest) -> None:
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
     terms = _estimate(errors, len(families), None)
-    forms = _forms(errors, families, None)
+    forms, shapes, mean_errors = _path_models(errors, families, None)
     tried = _alert_levels(pd.concat(forecasts["calibrated"])) if forecasts["calibrated"] else {}
     levels = {family: level for family, (level, _) in tried.items()}
     forecasts["calibrated"] = [_with_alert_risk(frame, levels) for frame in forecasts["calibrated"]]
@@ -306,6 +317,7 @@ def _run(backtest: Backtest) -> None:
         family: {
             **dict(zip(CALIBRATION_FIELDS, terms.per_capacitor([k])[:, 0], strict=True)),
             "trend_model": forms.get(family, ""),
+            "path_shape": shapes.get(family, ""),
             "alert_quantile": float(levels.get(family, PlanningSettings().alert_level)),
             "capacitors": int(terms.capacitors[k]),
             "residuals": int(terms.residuals[k]),
@@ -323,6 +335,13 @@ def _run(backtest: Backtest) -> None:
         "alert_levels": {
             family: [{"level": level, "precision_365d": p, "recall_365d": r} for level, p, r in table]
             for family, (_, table) in tried.items()
+        },
+        "path_models": {
+            family: [
+                {"form": form, "shape": shape, "rms_error": None if np.isnan(mse) else float(np.sqrt(mse))}
+                for (form, shape), mse in zip(PATH_MODELS, mean, strict=True)
+            ]
+            for family, mean in mean_errors.items()
         },
     }
     with transaction.atomic():
