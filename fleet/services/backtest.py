@@ -95,23 +95,52 @@ def run_backtest(backtest_id: int) -> Backtest | None:
     return backtest
 
 
-def _estimate(errors: pd.DataFrame, n_families: int, cutoff: pd.Timestamp | None):
-    """Projection terms per family from the errors of readings taken before `cutoff` (None: all)."""
+SHAPES = (PATH_BENT, PATH_STRAIGHT)
+
+
+def _estimate(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None, shapes: dict[str, str]):
+    """Projection terms per family from the errors of readings taken before `cutoff` (None: all),
+    each family's from the projections of the path shape it uses (`shapes`; bent by default)."""
     if cutoff is not None:
         errors = errors[errors["taken"] < cutoff]
+    family = errors["family"].to_numpy(int)
+    straight = np.array([shapes.get(name) == PATH_STRAIGHT for name in families], bool)[family]
+
+    def of(name):
+        return np.where(straight, errors[f"{name}_{PATH_STRAIGHT}"], errors[f"{name}_{PATH_BENT}"]).astype(float)
+
     return estimate_calibration(
-        errors["family"].to_numpy(int),
-        errors["capacitor"].to_numpy(),
-        errors["x"].to_numpy(float),
-        errors["h"].to_numpy(float),
-        errors["e"].to_numpy(float),
-        errors["v"].to_numpy(float),
-        n_families,
+        family, errors["capacitor"].to_numpy(), of("x"), of("h"), of("e"), of("v"), len(families)
     )
 
 
+def _calibration_errors(inst, before, later, group, families, forms) -> dict[str, np.ndarray]:
+    """Per later reading and path shape: the projected change x, the calendar hours ahead h, the
+    error e and its known variance v, under the trend forms in use, for the band calibration."""
+    part_ids = np.sort(inst["part_id"].unique())
+    hours = _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group])
+    out = {}
+    for shape in SHAPES:
+        fit = fit_frames(inst, before, None, part_ids, forms, shapes=dict.fromkeys(families, shape))
+        change, span, error, variance, _ = projection_errors(
+            fit,
+            group,
+            hours,
+            later["capacitance_uf"].to_numpy(float),
+            later["case_temperature_c"].to_numpy(float),
+            inst["rated_uf"].to_numpy(float),
+        )
+        out |= {
+            f"x_{shape}": change,
+            f"h_{shape}": span / fit.stress_rate[group],
+            f"e_{shape}": error,
+            f"v_{shape}": variance,
+        }
+    return out
+
+
 # The candidate path models, (trend form, path shape): the bent paths first, so a tie keeps the bend.
-PATH_MODELS = tuple((form, shape) for shape in (PATH_BENT, PATH_STRAIGHT) for form in (MODEL_LINEAR, MODEL_LOG))
+PATH_MODELS = tuple((form, shape) for shape in SHAPES for form in (MODEL_LINEAR, MODEL_LOG))
 PATH_MODEL_COLUMNS = [f"sq_{form}_{shape}" for form, shape in PATH_MODELS]
 
 
@@ -211,7 +240,9 @@ def _run(backtest: Backtest) -> None:
     part_codes = dict(
         CapacitorPart.objects.filter(id__in=inst_all["part_id"].unique().tolist()).values_list("id", "code")
     )
-    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken", *PATH_MODEL_COLUMNS])
+    errors = pd.DataFrame(
+        columns=["family", "capacitor", "taken", *[f"{n}_{s}" for s in SHAPES for n in "xhev"], *PATH_MODEL_COLUMNS]
+    )
     forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
     per_cutoff = []
     fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
@@ -226,8 +257,8 @@ def _run(backtest: Backtest) -> None:
         if inst.empty:
             continue
         before = before.reset_index(drop=True)
-        terms = _estimate(errors, len(families), cutoff)
         forms, shapes, _ = _path_models(errors, families, cutoff)
+        terms = _estimate(errors, families, cutoff, shapes)
         calibrations = {
             "default": {},
             "calibrated": {family: tuple(terms.per_capacitor([k])[:, 0]) for k, family in enumerate(families)},
@@ -253,7 +284,7 @@ def _run(backtest: Backtest) -> None:
                 now=cutoff.to_pydatetime(),
                 shapes=shapes,
             )
-            change, span, error, variance, fraction = projection_errors(
+            _, _, error, _, fraction = projection_errors(
                 result.fit,
                 group,
                 _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
@@ -289,16 +320,12 @@ def _run(backtest: Backtest) -> None:
             forecasts[variant].append(frame)
             summary[variant] = _scores(frame, part_codes)["all"]
             if variant == "default":
-                model_errors = _path_model_errors(inst, before, later, group, families)
                 fresh_errors = pd.DataFrame(
                     {
-                        **model_errors,
+                        **_path_model_errors(inst, before, later, group, families),
+                        **_calibration_errors(inst, before, later, group, families, forms),
                         "family": family[group],
                         "capacitor": inst.index.to_numpy()[group] * 1000 + number,
-                        "x": change,
-                        "h": span / result.fit.stress_rate[group],
-                        "e": error,
-                        "v": variance,
                         "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                     }
                 )
@@ -306,8 +333,8 @@ def _run(backtest: Backtest) -> None:
         per_cutoff.append(summary)
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
-    terms = _estimate(errors, len(families), None)
     forms, shapes, mean_errors = _path_models(errors, families, None)
+    terms = _estimate(errors, families, None, shapes)
     tried = _alert_levels(pd.concat(forecasts["calibrated"])) if forecasts["calibrated"] else {}
     levels = {family: level for family, (level, _) in tried.items()}
     forecasts["calibrated"] = [_with_alert_risk(frame, levels) for frame in forecasts["calibrated"]]
