@@ -86,26 +86,49 @@ def first_crossing_day(group, day, below, n_groups):
     return np.where(np.isfinite(first), 0.5 * (previous + first), np.nan)
 
 
-def choose_by_projection_error(squared_error, min_readings: int = 100, slip_fraction: float = 0.25):
-    """The candidate path model whose projections strayed least from the readings that came later.
+def choose_path_model(
+    squared_error, cluster, z: float = 2.0, min_readings: int = 100, slip_fraction: float = 0.25
+) -> tuple[int | None, bool, np.ndarray]:
+    """The trend form and path shape whose projections came closest to the readings that came later.
 
-    squared_error (N, K): for each of N later readings, the squared error (in
-    fractions of rated) of its projection by each of K candidate models (trend
-    form and path shape), each fitted only to the readings before the reading's
-    cut-off. Readings off by `slip_fraction` of the rating or more under any
-    candidate are a slip or the wrong capacitor rather than ageing, and are left
-    out, as are readings some candidate did not project. The criterion is the
-    mean squared error of every out-of-sample projection, not of crossings:
-    model choice by rolling-origin error (Tashman, Int. J. Forecasting 16, 2000;
-    from memory). Returns (index of the chosen candidate, or None when fewer than
-    `min_readings` readings count; mean squared error per candidate, nan when none count).
+    squared_error (N, 2K): for each of N later readings, the squared error (in
+    fractions of rated) of its projection under K trend forms on bent paths, then
+    the same K forms on straight paths, each fitted only to the readings before
+    the reading's cut-off; cluster (N): the capacitor each reading belongs to.
+    Readings off by `slip_fraction` of the rating or more under any candidate are
+    a slip or the wrong capacitor rather than ageing, and are left out, as are
+    readings some candidate did not project. Model choice by rolling-origin error
+    of every later reading, not of crossings (Tashman, Int. J. Forecasting 16, 2000;
+    from memory):
+
+    - the form is the one of smallest mean squared error on bent paths;
+    - straight paths replace bent ones only where their mean squared error is
+      lower by more than `z` standard errors of the mean difference: a test of
+      equal predictive accuracy on the loss differential (Diebold and Mariano,
+      J. Business & Economic Statistics 13, 1995; from memory), its standard error
+      from sums per capacitor, whose readings share one path's error (cluster-robust
+      variance, Liang and Zeger, Biometrika 73, 1986; from memory). A difference
+      within chance keeps the bend, the product's default.
+
+    Returns (index of the form, or None under `min_readings` usable readings;
+    whether straight; mean squared error per candidate, nan when none count).
     """
     squared = np.asarray(squared_error, float)
-    squared = squared[np.isfinite(squared).all(axis=1) & (squared < slip_fraction**2).all(axis=1)]
+    cluster = np.asarray(cluster)
+    forms = squared.shape[1] // 2
+    usable = np.isfinite(squared).all(axis=1) & (squared < slip_fraction**2).all(axis=1)
+    squared, cluster = squared[usable], cluster[usable]
     if not len(squared):
-        return None, np.full(np.shape(squared_error)[1], np.nan)
+        return None, False, np.full(2 * forms, np.nan)
     mean = squared.mean(axis=0)
-    return (int(np.argmin(mean)) if len(squared) >= min_readings else None), mean
+    if len(squared) < min_readings:
+        return None, False, mean
+    form = int(np.argmin(mean[:forms]))
+    difference = squared[:, forms + form] - squared[:, form]
+    _, which = np.unique(cluster, return_inverse=True)
+    residual_sums = np.bincount(which, weights=difference - difference.mean())
+    standard_error = np.sqrt((residual_sums**2).sum()) / len(difference)
+    return form, bool(difference.mean() < -z * standard_error), mean
 
 
 def choose_alert_level(level_days, replace_now, crossed_day, followed_days, settings: PlanningSettings | None = None):

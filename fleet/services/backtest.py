@@ -27,7 +27,7 @@ from django.utils import timezone
 
 from fleet.engineering.backtest import (
     choose_alert_level,
-    choose_by_projection_error,
+    choose_path_model,
     first_crossing_day,
     isolated_off_trend,
     projection_errors,
@@ -139,8 +139,9 @@ def _calibration_errors(inst, before, later, group, families, forms) -> dict[str
     return out
 
 
-# The candidate path models, (trend form, path shape): the bent paths first, so a tie keeps the bend.
-PATH_MODELS = tuple((form, shape) for shape in SHAPES for form in (MODEL_LINEAR, MODEL_LOG))
+# The candidate path models, (trend form, path shape): each form on bent paths, then on straight ones.
+FORMS = (MODEL_LINEAR, MODEL_LOG)
+PATH_MODELS = tuple((form, shape) for shape in SHAPES for form in FORMS)
 PATH_MODEL_COLUMNS = [f"sq_{form}_{shape}" for form, shape in PATH_MODELS]
 
 
@@ -174,10 +175,13 @@ def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp
         errors = errors[errors["taken"] < cutoff]
     forms, shapes, mean_errors = {}, {}, {}
     for k, family in enumerate(families):
-        chosen, mean = choose_by_projection_error(errors.loc[errors["family"] == k, PATH_MODEL_COLUMNS])
-        mean_errors[family] = mean
-        if chosen is not None:
-            forms[family], shapes[family] = PATH_MODELS[chosen]
+        mine = errors[errors["family"] == k]
+        # A capacitor's readings at every cut-off share its path's error: one cluster (the id before x 1000).
+        form, straight, mean_errors[family] = choose_path_model(
+            mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64) // 1000
+        )
+        if form is not None:
+            forms[family], shapes[family] = FORMS[form], PATH_STRAIGHT if straight else PATH_BENT
     return forms, shapes, mean_errors
 
 
