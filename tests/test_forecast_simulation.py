@@ -94,7 +94,8 @@ def _forecast_scores(fleet, cutoff, tmp_path) -> dict:
             f"{row['form']} {row['shape']} {row['rms_error'] or 0:.4f}"
             for row in backtest.results["path_models"][family]
         )
-        print(f"\nback-test paths {family}: {values['trend_model']} {values['path_shape']} (rms error {errors})")
+        z = backtest.results["straight_z"][family]
+        print(f"\nback-test paths {family}: {values['trend_model']} {values['path_shape']} (rms error {errors}; z {z})")
     refresh_part_priors()
     ids = list(
         FittedCapacitor.objects.filter(removed_on__isnull=True, readings__isnull=False)

@@ -169,20 +169,21 @@ def _path_model_errors(inst, before, later, group, families) -> dict[str, np.nda
 
 def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None):
     """Per family, the trend form and path shape whose projections strayed least from the readings
-    that came later (taken before `cutoff`; None: all), and each candidate's mean squared error.
-    Returns (forms, shapes, errors): a family with too few later readings is in neither choice."""
+    that came later (taken before `cutoff`; None: all), and the figures of the choice.
+    Returns (forms, shapes, choices): a family with too few later readings is in neither choice."""
     if cutoff is not None:
         errors = errors[errors["taken"] < cutoff]
-    forms, shapes, mean_errors = {}, {}, {}
+    forms, shapes, choices = {}, {}, {}
     for k, family in enumerate(families):
         mine = errors[errors["family"] == k]
         # A capacitor's readings at every cut-off share its path's error: one cluster (the id before x 1000).
-        form, straight, mean_errors[family] = choose_path_model(
+        choices[family] = choice = choose_path_model(
             mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64) // 1000
         )
-        if form is not None:
-            forms[family], shapes[family] = FORMS[form], PATH_STRAIGHT if straight else PATH_BENT
-    return forms, shapes, mean_errors
+        if choice.form is not None:
+            forms[family] = FORMS[choice.form]
+            shapes[family] = PATH_STRAIGHT if choice.straight else PATH_BENT
+    return forms, shapes, choices
 
 
 ALERT_COLUMNS = [f"alert_{level:.1f}" for level in ALERT_LEVELS]
@@ -337,7 +338,7 @@ def _run(backtest: Backtest) -> None:
         per_cutoff.append(summary)
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
-    forms, shapes, mean_errors = _path_models(errors, families, None)
+    forms, shapes, choices = _path_models(errors, families, None)
     terms = _estimate(errors, families, None, shapes)
     tried = _alert_levels(pd.concat(forecasts["calibrated"])) if forecasts["calibrated"] else {}
     levels = {family: level for family, (level, _) in tried.items()}
@@ -370,9 +371,12 @@ def _run(backtest: Backtest) -> None:
         "path_models": {
             family: [
                 {"form": form, "shape": shape, "rms_error": None if np.isnan(mse) else float(np.sqrt(mse))}
-                for (form, shape), mse in zip(PATH_MODELS, mean, strict=True)
+                for (form, shape), mse in zip(PATH_MODELS, choice.mean_squared_error, strict=True)
             ]
-            for family, mean in mean_errors.items()
+            for family, choice in choices.items()
+        },
+        "straight_z": {
+            family: None if np.isnan(choice.straight_z) else choice.straight_z for family, choice in choices.items()
         },
     }
     with transaction.atomic():

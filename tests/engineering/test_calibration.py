@@ -192,11 +192,13 @@ def test_the_path_model_chosen_is_the_one_that_projected_the_later_readings_best
     unprojected[:, 0] = np.nan
     squared = np.vstack([errors, slips, unprojected]) ** 2
     cluster = np.r_[capacitor, np.arange(35)]
-    form, straight, mean = choose_path_model(squared, cluster)
-    assert (form, straight) == (1, True)
-    assert np.sqrt(mean) == pytest.approx([0.02, 0.015, 0.01, 0.005], rel=0.15)
+    choice = choose_path_model(squared, cluster)
+    assert (choice.form, choice.straight) == (1, True)
+    assert choice.straight_z < -2
+    assert np.sqrt(choice.mean_squared_error) == pytest.approx([0.02, 0.015, 0.01, 0.005], rel=0.15)
     assert np.argmin(np.nanmean(np.where(np.isfinite(squared), squared, np.nan), axis=0)) != 3
-    assert choose_path_model(squared[:99], cluster[:99])[:2] == (None, False)
+    few = choose_path_model(squared[:99], cluster[:99])
+    assert (few.form, few.straight) == (None, False)
 
 
 def test_straight_paths_within_chance_of_bent_ones_keep_the_bend():
@@ -212,14 +214,16 @@ def test_straight_paths_within_chance_of_bent_ones_keep_the_bend():
     bent = rng.normal(0.0, 0.01, 300)
     straight = bent * np.where(capacitor % 2 == 0, 0.9, 1.09)
     squared = np.column_stack([bent, bent * 2, straight, straight * 2]) ** 2
-    form, chosen_straight, mean = choose_path_model(squared, capacitor)
-    assert mean[2] < mean[0]
-    assert (form, chosen_straight) == (0, False)
+    choice = choose_path_model(squared, capacitor)
+    assert choice.mean_squared_error[2] < choice.mean_squared_error[0]
+    assert (choice.form, choice.straight) == (0, False)
+    assert -2 < choice.straight_z < 0
 
     capacitor = np.repeat(np.arange(300), 10)
     bent = rng.normal(0.0, 0.01, 3000)
     squared = np.column_stack([bent, bent * 2, 0.9 * bent, 1.8 * bent]) ** 2
-    assert choose_path_model(squared, capacitor)[:2] == (0, True)
+    choice = choose_path_model(squared, capacitor)
+    assert (choice.form, choice.straight) == (0, True)
 
 
 def test_grid_over_the_capacitors_whose_limit_applies_equals_the_grid_over_all():

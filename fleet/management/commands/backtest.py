@@ -11,6 +11,10 @@ def _pct(value, decimals=1):
     return "  -  " if value is None else f"{100 * value:5.{decimals}f}"
 
 
+def _z(value):
+    return "-" if value is None else f"{value:+.1f}"
+
+
 class Command(BaseCommand):
     help = "Refit at past quarter starts with only what was known then, score against what came later, calibrate."
 
@@ -58,7 +62,9 @@ class Command(BaseCommand):
             tried = ", ".join(f"{row['form']} {row['shape']} {_pct(row['rms_error'], 2)}" for row in candidates)
             self.stdout.write(
                 f"paths {family}: {chosen.get('trend_model') or 'form by noise'}, {chosen.get('path_shape') or 'bent'} "
-                f"(root-mean-square error of projected later readings, % of rated: {tried})"
+                f"(root-mean-square error of projected later readings, % of rated: {tried}; "
+                f"straight less bent: {_z(results.get('straight_z', {}).get(family))} standard errors, "
+                "straight if below -2)"
             )
         for family, table in results.get("alert_levels", {}).items():
             chosen = results.get("calibration", {}).get(family, {}).get("alert_quantile")
