@@ -114,22 +114,26 @@ def _estimate(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | 
     )
 
 
+def _project(fit, inst: pd.DataFrame, later: pd.DataFrame, group) -> tuple[np.ndarray, ...]:
+    """`projection_errors` of the later readings (of capacitors `group` in `inst`) under one fit."""
+    return projection_errors(
+        fit,
+        group,
+        _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
+        later["capacitance_uf"].to_numpy(float),
+        later["case_temperature_c"].to_numpy(float),
+        inst["rated_uf"].to_numpy(float),
+    )
+
+
 def _calibration_errors(inst, before, later, group, families, forms) -> dict[str, np.ndarray]:
     """Per later reading and path shape: the projected change x, the calendar hours ahead h, the
     error e and its known variance v, under the trend forms in use, for the band calibration."""
     part_ids = np.sort(inst["part_id"].unique())
-    hours = _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group])
     out = {}
     for shape in SHAPES:
         fit = fit_frames(inst, before, None, part_ids, forms, shapes=dict.fromkeys(families, shape))
-        change, span, error, variance, _ = projection_errors(
-            fit,
-            group,
-            hours,
-            later["capacitance_uf"].to_numpy(float),
-            later["case_temperature_c"].to_numpy(float),
-            inst["rated_uf"].to_numpy(float),
-        )
+        change, span, error, variance, _ = _project(fit, inst, later, group)
         out |= {
             f"x_{shape}": change,
             f"h_{shape}": span / fit.stress_rate[group],
@@ -148,20 +152,12 @@ PATH_MODEL_COLUMNS = [f"sq_{form}_{shape}" for form, shape in PATH_MODELS]
 def _path_model_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
     """Squared projection error of each later reading, in fractions of rated, under each path model."""
     part_ids = np.sort(inst["part_id"].unique())
-    hours = _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group])
     out = {}
     for (form, shape), column in zip(PATH_MODELS, PATH_MODEL_COLUMNS, strict=True):
         fit = fit_frames(
             inst, before, None, part_ids, dict.fromkeys(families, form), shapes=dict.fromkeys(families, shape)
         )
-        _, _, error, _, fraction = projection_errors(
-            fit,
-            group,
-            hours,
-            later["capacitance_uf"].to_numpy(float),
-            later["case_temperature_c"].to_numpy(float),
-            inst["rated_uf"].to_numpy(float),
-        )
+        _, _, error, _, fraction = _project(fit, inst, later, group)
         predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
         out[column] = (fraction - predicted) ** 2
     return out
@@ -289,14 +285,7 @@ def _run(backtest: Backtest) -> None:
                 now=cutoff.to_pydatetime(),
                 shapes=shapes,
             )
-            _, _, error, _, fraction = projection_errors(
-                result.fit,
-                group,
-                _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
-                later["capacitance_uf"].to_numpy(float),
-                later["case_temperature_c"].to_numpy(float),
-                inst["rated_uf"].to_numpy(float),
-            )
+            _, _, error, _, fraction = _project(result.fit, inst, later, group)
             tolerance = result.limit_fraction[0]
             # A reading counts as seen below the limit when it is clear of the meter noise (one
             # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
