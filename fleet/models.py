@@ -30,7 +30,14 @@ from fleet.engineering.planning import (
     TOLERANCE_LIMIT,
 )
 from fleet.engineering.rules import CONDITION_SOUND, METHOD_IN_CIRCUIT, METHOD_METER
-from fleet.engineering.trends import DIELECTRIC_ELECTROLYTIC, DIELECTRIC_FILM, MODEL_LINEAR, MODEL_LOG
+from fleet.engineering.trends import (
+    DIELECTRIC_ELECTROLYTIC,
+    DIELECTRIC_FILM,
+    MODEL_LINEAR,
+    MODEL_LOG,
+    PATH_BENT,
+    PATH_STRAIGHT,
+)
 
 # Asset tags, site codes and part codes: letters, digits, '-', '_' and '.', starting with a letter or
 # digit; no '/', spaces or other signs, so a code prints on a label and sits in a URL unchanged.
@@ -503,6 +510,13 @@ class TrendModel(models.TextChoices):
     LOG_LINEAR = MODEL_LOG, "Log-linear"
 
 
+class PathShape(models.TextChoices):
+    """Whether a family's paths are fitted with a bend (fleet/engineering/trends.py)."""
+
+    BENT = PATH_BENT, "Bent"
+    STRAIGHT = PATH_STRAIGHT, "Straight"
+
+
 IN_SERVICE = Q(is_current=True, capacitor_in_service=True)  # an assessment the plans and lists show
 
 
@@ -894,6 +908,12 @@ class BandCalibration(models.Model):
         blank=True,
         choices=TrendModel.choices,
         help_text="Trend form with the smaller back-tested error (linear or log-linear)",
+    )
+    path_shape = models.CharField(
+        max_length=10,
+        blank=True,
+        choices=PathShape.choices,
+        help_text="Bent or straight paths, whichever projected the later readings better in the back-test",
     )
     curvature_per_h2 = models.FloatField(
         default=0.0, help_text="Common bend of the path, fraction of rated per calendar hour squared"

@@ -1,14 +1,16 @@
 """The refit's forecast as stored: late readings used, poison kept out, limits per name, reasons."""
 
 import datetime as dt
+import io
 import math
 
 import numpy as np
 import pytest
+from django.core.management import call_command
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, BandCalibration, PartPrior, Reading
+from fleet.models import Assessment, Backtest, BandCalibration, PartPrior, Reading
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import default_cutoffs, run_backtest, start_backtest
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_reading, quarterly_readings
@@ -225,3 +227,54 @@ def test_a_large_fleet_is_back_tested_on_a_fixed_sample(settings):
     counts = [row["capacitors"] for row in first.results["cutoffs"]]
     assert max(counts) <= 12
     assert counts == [row["capacitors"] for row in second.results["cutoffs"]]
+
+
+def _accelerating_film_fleet(rng) -> list:
+    """Our own film paths that lose rated capacitance faster as they age (loss a q^2 at quarter q)."""
+    part = make_part(tolerance_minus_pct=30)
+    fitted_capacitors = []
+    for _ in range(30):
+        fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
+        losses_pct = rng.uniform(0.04, 0.08) * np.arange(14) ** 2 + rng.normal(0, 0.2, 14)
+        _ageing(fitted_capacitor, losses_pct)
+        fitted_capacitors.append(fitted_capacitor)
+    return fitted_capacitors
+
+
+@pytest.mark.django_db
+def test_the_refit_fits_the_path_shape_the_back_test_stored():
+    """Issue 8: the path shape (bent or straight) chosen per dielectric by the back-test is the one the
+    part priors and the refit use: stored straight, no capacitor keeps a bend; stored bent, they bend."""
+    fitted_capacitors = _accelerating_film_fleet(np.random.default_rng(5))
+    ids = [fitted_capacitor.id for fitted_capacitor in fitted_capacitors]
+    BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, path_shape="bent")
+    refresh_part_priors()
+    refit_fitted_capacitors(ids, force=True)
+    bends = Assessment.objects.filter(is_current=True).values_list("trend_curvature", flat=True)
+    assert PartPrior.objects.get().curvature_per_h2 < 0
+    assert sum(bend < 0 for bend in bends) >= 25
+
+    BandCalibration.objects.filter(family="film").update(path_shape="straight")
+    refresh_part_priors()
+    refit_fitted_capacitors(ids, force=True)
+    assert PartPrior.objects.get().curvature_per_h2 == 0
+    assert set(Assessment.objects.filter(is_current=True).values_list("trend_curvature", flat=True)) == {0.0}
+
+
+@pytest.mark.django_db
+def test_the_back_test_chooses_and_shows_the_path_shape(client, engineer):
+    """Issue 8: on paths that accelerate, the bent path projects the later readings better than a
+    straight one; the back-test stores that choice, and the track record and the command show it."""
+    _accelerating_film_fleet(np.random.default_rng(6))
+    output = io.StringIO()
+    call_command("backtest", "--quarters", "6", stdout=output)
+    stored = BandCalibration.objects.get(family="film")
+    assert stored.path_shape == "bent"
+    errors = {
+        (row["form"], row["shape"]): row["rms_error"] for row in Backtest.objects.get().results["path_models"]["film"]
+    }
+    assert errors[(stored.trend_model, "bent")] < errors[(stored.trend_model, "straight")]
+    assert f"paths film: {stored.trend_model}, bent" in output.getvalue()
+    client.force_login(engineer)
+    page = client.get(reverse("track_record")).content.decode()
+    assert f"{stored.get_trend_model_display().lower()} trend on bent paths" in page

@@ -89,6 +89,13 @@ def _forecast_scores(fleet, cutoff, tmp_path) -> dict:
     # As the product runs: the weekly back-test calibrates the bands, then the fleet refit.
     backtest = run_backtest(start_backtest(queue=False).id)
     assert backtest.state == "done", backtest.message
+    for family, values in backtest.results["calibration"].items():
+        errors = ", ".join(
+            f"{row['form']} {row['shape']} {row['rms_error'] or 0:.4f}"
+            for row in backtest.results["path_models"][family]
+        )
+        z = backtest.results["straight_z"][family]
+        print(f"\nback-test paths {family}: {values['trend_model']} {values['path_shape']} (rms error {errors}; z {z})")
     refresh_part_priors()
     ids = list(
         FittedCapacitor.objects.filter(removed_on__isnull=True, readings__isnull=False)

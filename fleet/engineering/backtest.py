@@ -9,6 +9,8 @@ if it crossed, or was followed at least that long.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from .capacitor import normalise_to_25c
@@ -84,6 +86,62 @@ def first_crossing_day(group, day, below, n_groups):
     previous = np.zeros(n_groups)
     np.maximum.at(previous, group, np.where(day < first[group], day, 0.0))
     return np.where(np.isfinite(first), 0.5 * (previous + first), np.nan)
+
+
+@dataclass(frozen=True)
+class PathModelChoice:
+    """What `choose_path_model` chose, and the figures it chose on."""
+
+    form: int | None  # index of the trend form; None: too few readings to choose
+    straight: bool  # straight paths rather than bent ones
+    mean_squared_error: np.ndarray  # per candidate (nan: no reading counts)
+    straight_z: float  # mean (straight - bent) squared error in standard errors (nan: not compared)
+
+
+def choose_path_model(
+    squared_error, cluster, z: float = 2.0, min_readings: int = 100, slip_fraction: float = 0.25
+) -> PathModelChoice:
+    """The trend form and path shape whose projections came closest to the readings that came later.
+
+    squared_error (N, 2K): for each of N later readings, the squared error (in
+    fractions of rated) of its projection under K trend forms on bent paths, then
+    the same K forms on straight paths, each fitted only to the readings before
+    the reading's cut-off; cluster (N): the capacitor each reading belongs to.
+    Readings off by `slip_fraction` of the rating or more under any candidate are
+    a slip or the wrong capacitor rather than ageing, and are left out, as are
+    readings some candidate did not project. Model choice by rolling-origin error
+    of every later reading, not of crossings (Tashman, Int. J. Forecasting 16, 2000;
+    from memory):
+
+    - the form is the one of smallest mean squared error on bent paths;
+    - straight paths replace bent ones only where their mean squared error is
+      lower by more than `z` standard errors of the mean difference: a test of
+      equal predictive accuracy on the loss differential (Diebold and Mariano,
+      J. Business & Economic Statistics 13, 1995; from memory), its standard error
+      from sums per capacitor, whose readings share one path's error (cluster-robust
+      variance, Liang and Zeger, Biometrika 73, 1986; from memory). A difference
+      within chance keeps the bend, the product's default.
+
+    Under `min_readings` usable readings nothing is chosen (form None).
+    """
+    squared = np.asarray(squared_error, float)
+    cluster = np.asarray(cluster)
+    forms = squared.shape[1] // 2
+    usable = np.isfinite(squared).all(axis=1) & (squared < slip_fraction**2).all(axis=1)
+    squared, cluster = squared[usable], cluster[usable]
+    if not len(squared):
+        return PathModelChoice(None, False, np.full(2 * forms, np.nan), np.nan)
+    mean = squared.mean(axis=0)
+    if len(squared) < min_readings:
+        return PathModelChoice(None, False, mean, np.nan)
+    form = int(np.argmin(mean[:forms]))
+    difference = squared[:, forms + form] - squared[:, form]
+    _, which = np.unique(cluster, return_inverse=True)
+    residual_sums = np.bincount(which, weights=difference - difference.mean())
+    standard_error = np.sqrt((residual_sums**2).sum()) / len(difference)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        straight_z = float(difference.mean() / standard_error)
+    return PathModelChoice(form, bool(straight_z < -z), mean, straight_z)
 
 
 def choose_alert_level(level_days, replace_now, crossed_day, followed_days, settings: PlanningSettings | None = None):

@@ -51,6 +51,10 @@ from .capacitor import acceleration_factor, normalise_to_25c
 MODEL_LINEAR = "linear"
 MODEL_LOG = "log-linear"
 
+# The path's shape: bent (each capacitor's own quadratic bend shrunk to its part's) or
+# straight (no bend: the band calibration's terms alone carry any acceleration).
+PATH_BENT = "bent"
+PATH_STRAIGHT = "straight"
 
 DIELECTRIC_FILM = "film"
 DIELECTRIC_ELECTROLYTIC = "electrolytic"
@@ -253,6 +257,7 @@ def fit_trends(
     tempco_ppm_per_k=None,
     tempco_fixed=None,
     model_per_capacitor=None,
+    straight_per_capacitor=None,
 ) -> TrendFit:
     """Fit every capacitor's path at once.
 
@@ -266,7 +271,8 @@ def fit_trends(
     (from an earlier fleet-wide fit) the parts' populations and temperature
     coefficients are taken as given, so a handful of capacitors can be refitted alone.
     `model_per_capacitor` ("linear", "log-linear", or "" to choose by noise) sets
-    the form of each capacitor's part, as a back-test chose it.
+    the form of each capacitor's part, as a back-test chose it; `straight_per_capacitor`
+    (bool) marks capacitors whose part is fitted without a bend (`PATH_STRAIGHT`, likewise).
     """
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
@@ -324,6 +330,9 @@ def fit_trends(
         last_time[g] = t  # sorted by time within each group: the last write is the newest
     recency = np.exp2(-np.maximum(last_time[g] - t, 0.0) / settings.recency_half_life_h)
 
+    straight_part = np.zeros(n_parts, bool)
+    if straight_per_capacitor is not None and n_groups:
+        straight_part[part[np.asarray(straight_per_capacitor, bool)]] = True
     fits = {}
     wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}
     for model in (MODEL_LINEAR, MODEL_LOG):
@@ -331,7 +340,19 @@ def fit_trends(
             continue
         z = np.log(np.where(fraction > 0, fraction, np.nan)) if model == MODEL_LOG else fraction
         fits[model] = _fit_model(
-            g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, model == MODEL_LOG, priors
+            g,
+            part,
+            tau,
+            z,
+            fraction,
+            keep,
+            recency,
+            n_groups,
+            n_parts,
+            settings,
+            model == MODEL_LOG,
+            priors,
+            straight_part,
         )
     if priors is not None:
         chosen = np.asarray(priors.model)
@@ -402,8 +423,12 @@ def fit_trends(
     )
 
 
-def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, is_log, priors=None):
+def _fit_model(
+    g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, is_log, priors=None, straight_part=None
+):
     """One model (linear or log-linear) for the fleet: prior, posterior, flags.
+
+    Parts marked in `straight_part` get no bend: neither the part's nor their capacitors' own.
 
     A reading of recency weight w counts as one of variance sigma^2 / w
     (weighted least squares), in the population estimates and the posterior alike.
@@ -423,7 +448,12 @@ def _fit_model(g, part, tau, z, fraction, keep, recency, n_groups, n_parts, sett
             curvature, curvature_var, own, sampling, quadratic = _part_curvature(
                 g, part, tau, z_safe, w, used, count, n_groups, n_parts, settings
             )
+        if straight_part is not None:
+            curvature = np.where(straight_part, 0.0, curvature)
+            curvature_var = np.where(straight_part, 0.0, curvature_var)
         bend = _capacitor_bend(curvature[part], curvature_var[part], own, sampling, quadratic)
+        if straight_part is not None:
+            bend = np.where(straight_part[part], 0.0, bend)
         # Each capacitor fits its path less its bend: z - c_i tau^2 = b0 + b1 tau.
         z_safe = np.where(used, z_safe - bend[g] * tau * tau, 0.0)
         n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)

@@ -64,6 +64,7 @@ from fleet.engineering.rules import CONDITION_SOUND
 from fleet.engineering.trends import (
     MODEL_LINEAR,
     MODEL_LOG,
+    PATH_STRAIGHT,
     PartPriors,
     TrendFit,
     TrendSettings,
@@ -107,15 +108,17 @@ def fit_frames(
     part_ids,
     forms: dict[str, str] | None = None,
     settings: TrendSettings | None = None,
+    shapes: dict[str, str] | None = None,
 ) -> TrendFit:
-    """Run the trend fit on frames (inst indexed by fitted capacitor id); `forms` maps a dielectric
-    to the trend form its back-test chose (stored ones by default)."""
+    """Run the trend fit on frames (inst indexed by fitted capacitor id); `forms` and `shapes` map a
+    dielectric to the trend form and the path shape its back-test chose (stored ones by default)."""
     group = inst.index.get_indexer(readings["fitted_capacitor_id"])
     part_index = pd.Index(part_ids).get_indexer(inst["part_id"])
     fitted_on = inst["fitted_on"].to_numpy()[group]
     settings = settings or TrendSettings()
     own_tempco = inst["part_tempco_ppm_per_k"].to_numpy(float)
     forms = stored_forms() if forms is None else forms
+    shapes = stored_shapes() if shapes is None else shapes
     return fit_trends(
         group=group,
         part=part_index,
@@ -133,6 +136,7 @@ def fit_frames(
         ),
         tempco_fixed=~np.isnan(own_tempco),
         model_per_capacitor=inst["dielectric"].map(forms).astype(object).fillna("").to_numpy(object),
+        straight_per_capacitor=(inst["dielectric"].map(shapes) == PATH_STRAIGHT).to_numpy(bool),
     )
 
 
@@ -233,6 +237,11 @@ CALIBRATION_FIELDS = (
 def stored_forms() -> dict[str, str]:
     """The trend form each dielectric's latest back-test chose."""
     return dict(BandCalibration.objects.exclude(trend_model="").values_list("family", "trend_model"))
+
+
+def stored_shapes() -> dict[str, str]:
+    """The path shape (bent or straight) each dielectric's latest back-test chose."""
+    return dict(BandCalibration.objects.exclude(path_shape="").values_list("family", "path_shape"))
 
 
 def stored_alert_levels() -> dict[str, float]:
@@ -441,15 +450,17 @@ def assess(
     forms: dict[str, str],
     now: dt.datetime,
     alert_levels: dict[str, float] | None = None,
+    shapes: dict[str, str] | None = None,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
 
     The refit stores the result; the back-test calls it with the readings known
     at a past cut-off (and `now` = the cut-off) and scores it against later ones.
-    `alert_levels` maps a dielectric to the crossing quantile its risk rule flags on.
+    `alert_levels` maps a dielectric to the crossing quantile its risk rule flags on, `shapes` to
+    its path shape (stored ones by default).
     """
     part_ids = np.sort(inst["part_id"].unique())
-    fit = fit_frames(inst, readings, priors, part_ids, forms)
+    fit = fit_frames(inst, readings, priors, part_ids, forms, shapes=shapes)
     n = len(inst)
     rated_uf = inst["rated_uf"].to_numpy(float)
     limit_fraction = np.full((len(ALL_LIMITS), n), np.nan)
@@ -638,6 +649,7 @@ def refit_fitted_capacitors(
         forms=stored_forms(),
         now=now,
         alert_levels=stored_alert_levels(),
+        shapes=stored_shapes(),
     )
     rows = _assessment_frame(result, readings, max_reading_id, now.date())
     with transaction.atomic():

@@ -27,6 +27,7 @@ from django.utils import timezone
 
 from fleet.engineering.backtest import (
     choose_alert_level,
+    choose_path_model,
     first_crossing_day,
     isolated_off_trend,
     projection_errors,
@@ -35,7 +36,7 @@ from fleet.engineering.backtest import (
 from fleet.engineering.calibration import CalibrationSettings, estimate_calibration
 from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, alert_index, risk_levels
 from fleet.engineering.rules import ReadingRules
-from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG
+from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG, PATH_BENT, PATH_STRAIGHT
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
 
 from .assessments import CALIBRATION_FIELDS, _hours_since_fitting, assess, fit_frames
@@ -94,57 +95,91 @@ def run_backtest(backtest_id: int) -> Backtest | None:
     return backtest
 
 
-def _estimate(errors: pd.DataFrame, n_families: int, cutoff: pd.Timestamp | None):
-    """Projection terms per family from the errors of readings taken before `cutoff` (None: all)."""
+SHAPES = (PATH_BENT, PATH_STRAIGHT)
+
+
+def _estimate(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None, shapes: dict[str, str]):
+    """Projection terms per family from the errors of readings taken before `cutoff` (None: all),
+    each family's from the projections of the path shape it uses (`shapes`; bent by default)."""
     if cutoff is not None:
         errors = errors[errors["taken"] < cutoff]
+    family = errors["family"].to_numpy(int)
+    straight = np.array([shapes.get(name) == PATH_STRAIGHT for name in families], bool)[family]
+
+    def of(name):
+        return np.where(straight, errors[f"{name}_{PATH_STRAIGHT}"], errors[f"{name}_{PATH_BENT}"]).astype(float)
+
     return estimate_calibration(
-        errors["family"].to_numpy(int),
-        errors["capacitor"].to_numpy(),
-        errors["x"].to_numpy(float),
-        errors["h"].to_numpy(float),
-        errors["e"].to_numpy(float),
-        errors["v"].to_numpy(float),
-        n_families,
+        family, errors["capacitor"].to_numpy(), of("x"), of("h"), of("e"), of("v"), len(families)
     )
 
 
-FORMS = (MODEL_LINEAR, MODEL_LOG)
+def _project(fit, inst: pd.DataFrame, later: pd.DataFrame, group) -> tuple[np.ndarray, ...]:
+    """`projection_errors` of the later readings (of capacitors `group` in `inst`) under one fit."""
+    return projection_errors(
+        fit,
+        group,
+        _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
+        later["capacitance_uf"].to_numpy(float),
+        later["case_temperature_c"].to_numpy(float),
+        inst["rated_uf"].to_numpy(float),
+    )
 
 
-def _form_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
-    """Squared projection error of each later reading, in fractions of rated, under each trend form."""
+def _calibration_errors(inst, before, later, group, families, forms) -> dict[str, np.ndarray]:
+    """Per later reading and path shape: the projected change x, the calendar hours ahead h, the
+    error e and its known variance v, under the trend forms in use, for the band calibration."""
     part_ids = np.sort(inst["part_id"].unique())
-    hours = _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group])
     out = {}
-    for form in FORMS:
-        fit = fit_frames(inst, before, None, part_ids, {family: form for family in families})
-        _, _, error, _, fraction = projection_errors(
-            fit,
-            group,
-            hours,
-            later["capacitance_uf"].to_numpy(float),
-            later["case_temperature_c"].to_numpy(float),
-            inst["rated_uf"].to_numpy(float),
-        )
-        predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
-        out[f"sq_{form}"] = (fraction - predicted) ** 2
+    for shape in SHAPES:
+        fit = fit_frames(inst, before, None, part_ids, forms, shapes=dict.fromkeys(families, shape))
+        change, span, error, variance, _ = _project(fit, inst, later, group)
+        out |= {
+            f"x_{shape}": change,
+            f"h_{shape}": span / fit.stress_rate[group],
+            f"e_{shape}": error,
+            f"v_{shape}": variance,
+        }
     return out
 
 
-def _forms(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None) -> dict[str, str]:
-    """Per family, the trend form whose projections strayed least from the readings that came
-    later (before `cutoff`), among errors small enough to be ageing rather than a slip."""
+# The candidate path models, (trend form, path shape): each form on bent paths, then on straight ones.
+FORMS = (MODEL_LINEAR, MODEL_LOG)
+PATH_MODELS = tuple((form, shape) for shape in SHAPES for form in FORMS)
+PATH_MODEL_COLUMNS = [f"sq_{form}_{shape}" for form, shape in PATH_MODELS]
+
+
+def _path_model_errors(inst, before, later, group, families) -> dict[str, np.ndarray]:
+    """Squared projection error of each later reading, in fractions of rated, under each path model."""
+    part_ids = np.sort(inst["part_id"].unique())
+    out = {}
+    for (form, shape), column in zip(PATH_MODELS, PATH_MODEL_COLUMNS, strict=True):
+        fit = fit_frames(
+            inst, before, None, part_ids, dict.fromkeys(families, form), shapes=dict.fromkeys(families, shape)
+        )
+        _, _, error, _, fraction = _project(fit, inst, later, group)
+        predicted = np.where(fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
+        out[column] = (fraction - predicted) ** 2
+    return out
+
+
+def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp | None):
+    """Per family, the trend form and path shape whose projections strayed least from the readings
+    that came later (taken before `cutoff`; None: all), and the figures of the choice.
+    Returns (forms, shapes, choices): a family with too few later readings is in neither choice."""
     if cutoff is not None:
         errors = errors[errors["taken"] < cutoff]
-    chosen = {}
+    forms, shapes, choices = {}, {}, {}
     for k, family in enumerate(families):
         mine = errors[errors["family"] == k]
-        squared = mine[[f"sq_{form}" for form in FORMS]].to_numpy(float)
-        squared = squared[np.isfinite(squared).all(axis=1) & (squared < 0.25**2).all(axis=1)]
-        if len(squared) >= 100:
-            chosen[family] = FORMS[int(np.argmin(squared.mean(axis=0)))]
-    return chosen
+        # A capacitor's readings at every cut-off share its path's error: one cluster (the id before x 1000).
+        choices[family] = choice = choose_path_model(
+            mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64) // 1000
+        )
+        if choice.form is not None:
+            forms[family] = FORMS[choice.form]
+            shapes[family] = PATH_STRAIGHT if choice.straight else PATH_BENT
+    return forms, shapes, choices
 
 
 ALERT_COLUMNS = [f"alert_{level:.1f}" for level in ALERT_LEVELS]
@@ -206,7 +241,9 @@ def _run(backtest: Backtest) -> None:
     part_codes = dict(
         CapacitorPart.objects.filter(id__in=inst_all["part_id"].unique().tolist()).values_list("id", "code")
     )
-    errors = pd.DataFrame(columns=["family", "capacitor", "x", "h", "e", "v", "taken", *[f"sq_{f}" for f in FORMS]])
+    errors = pd.DataFrame(
+        columns=["family", "capacitor", "taken", *[f"{n}_{s}" for s in SHAPES for n in "xhev"], *PATH_MODEL_COLUMNS]
+    )
     forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
     per_cutoff = []
     fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
@@ -221,8 +258,8 @@ def _run(backtest: Backtest) -> None:
         if inst.empty:
             continue
         before = before.reset_index(drop=True)
-        terms = _estimate(errors, len(families), cutoff)
-        forms = _forms(errors, families, cutoff)
+        forms, shapes, _ = _path_models(errors, families, cutoff)
+        terms = _estimate(errors, families, cutoff, shapes)
         calibrations = {
             "default": {},
             "calibrated": {family: tuple(terms.per_capacitor([k])[:, 0]) for k, family in enumerate(families)},
@@ -240,16 +277,15 @@ def _run(backtest: Backtest) -> None:
         summary = {"cutoff": cutoff_text, "capacitors": int(len(inst)), "later_readings": int(len(later))}
         for variant in VARIANTS:
             result = assess(
-                inst, before, priors=None, calibration=calibrations[variant], forms=forms, now=cutoff.to_pydatetime()
+                inst,
+                before,
+                priors=None,
+                calibration=calibrations[variant],
+                forms=forms,
+                now=cutoff.to_pydatetime(),
+                shapes=shapes,
             )
-            change, span, error, variance, fraction = projection_errors(
-                result.fit,
-                group,
-                _hours_since_fitting(later, inst["fitted_on"].to_numpy()[group]),
-                later["capacitance_uf"].to_numpy(float),
-                later["case_temperature_c"].to_numpy(float),
-                inst["rated_uf"].to_numpy(float),
-            )
+            _, _, error, _, fraction = _project(result.fit, inst, later, group)
             tolerance = result.limit_fraction[0]
             # A reading counts as seen below the limit when it is clear of the meter noise (one
             # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
@@ -278,16 +314,12 @@ def _run(backtest: Backtest) -> None:
             forecasts[variant].append(frame)
             summary[variant] = _scores(frame, part_codes)["all"]
             if variant == "default":
-                form_errors = _form_errors(inst, before, later, group, families)
                 fresh_errors = pd.DataFrame(
                     {
-                        **form_errors,
+                        **_path_model_errors(inst, before, later, group, families),
+                        **_calibration_errors(inst, before, later, group, families, forms),
                         "family": family[group],
                         "capacitor": inst.index.to_numpy()[group] * 1000 + number,
-                        "x": change,
-                        "h": span / result.fit.stress_rate[group],
-                        "e": error,
-                        "v": variance,
                         "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                     }
                 )
@@ -295,8 +327,8 @@ def _run(backtest: Backtest) -> None:
         per_cutoff.append(summary)
         Backtest.objects.filter(id=backtest.id).update(done_cutoffs=number + 1, results={"cutoffs": per_cutoff})
 
-    terms = _estimate(errors, len(families), None)
-    forms = _forms(errors, families, None)
+    forms, shapes, choices = _path_models(errors, families, None)
+    terms = _estimate(errors, families, None, shapes)
     tried = _alert_levels(pd.concat(forecasts["calibrated"])) if forecasts["calibrated"] else {}
     levels = {family: level for family, (level, _) in tried.items()}
     forecasts["calibrated"] = [_with_alert_risk(frame, levels) for frame in forecasts["calibrated"]]
@@ -306,6 +338,7 @@ def _run(backtest: Backtest) -> None:
         family: {
             **dict(zip(CALIBRATION_FIELDS, terms.per_capacitor([k])[:, 0], strict=True)),
             "trend_model": forms.get(family, ""),
+            "path_shape": shapes.get(family, ""),
             "alert_quantile": float(levels.get(family, PlanningSettings().alert_level)),
             "capacitors": int(terms.capacitors[k]),
             "residuals": int(terms.residuals[k]),
@@ -323,6 +356,16 @@ def _run(backtest: Backtest) -> None:
         "alert_levels": {
             family: [{"level": level, "precision_365d": p, "recall_365d": r} for level, p, r in table]
             for family, (_, table) in tried.items()
+        },
+        "path_models": {
+            family: [
+                {"form": form, "shape": shape, "rms_error": None if np.isnan(mse) else float(np.sqrt(mse))}
+                for (form, shape), mse in zip(PATH_MODELS, choice.mean_squared_error, strict=True)
+            ]
+            for family, choice in choices.items()
+        },
+        "straight_z": {
+            family: None if np.isnan(choice.straight_z) else choice.straight_z for family, choice in choices.items()
         },
     }
     with transaction.atomic():

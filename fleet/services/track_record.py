@@ -129,6 +129,8 @@ def _calibration_in_force(settings: CalibrationSettings) -> list[dict]:
             "slope_factor": 1.0 + row.slope_bias,
             "slope_spread": row.slope_spread,
             "alert_percent": round(100 * row.alert_quantile),
+            "trend_model": row.get_trend_model_display().lower() if row.trend_model else "",
+            "path_shape": row.get_path_shape_display().lower() if row.path_shape else "",
             "capacitors": row.capacitors,
             "residuals": row.residuals,
             "thin": row.capacitors < settings.min_capacitors,

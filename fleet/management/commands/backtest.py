@@ -7,8 +7,12 @@ from django.core.management.base import BaseCommand
 from fleet.services.backtest import run_backtest, start_backtest
 
 
-def _pct(value):
-    return "  -  " if value is None else f"{100 * value:5.1f}"
+def _pct(value, decimals=1):
+    return "  -  " if value is None else f"{100 * value:5.{decimals}f}"
+
+
+def _z(value):
+    return "-" if value is None else f"{value:+.1f}"
 
 
 class Command(BaseCommand):
@@ -52,6 +56,15 @@ class Command(BaseCommand):
                 f"acceleration {8766 * values['acceleration_per_h']:.2f} a year ahead, "
                 f"spread {values['slope_spread']:.2f} "
                 f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
+            )
+        for family, candidates in results.get("path_models", {}).items():
+            chosen = results.get("calibration", {}).get(family, {})
+            tried = ", ".join(f"{row['form']} {row['shape']} {_pct(row['rms_error'], 2)}" for row in candidates)
+            self.stdout.write(
+                f"paths {family}: {chosen.get('trend_model') or 'form by noise'}, {chosen.get('path_shape') or 'bent'} "
+                f"(root-mean-square error of projected later readings, % of rated: {tried}; "
+                f"straight less bent: {_z(results.get('straight_z', {}).get(family))} standard errors, "
+                "straight if below -2)"
             )
         for family, table in results.get("alert_levels", {}).items():
             chosen = results.get("calibration", {}).get(family, {}).get("alert_quantile")
