@@ -6,7 +6,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('fleet', '0023_main_reading_capacitor_index'),
+        ('fleet', '0024_reading_capacitor_index'),
     ]
 
     operations = [
