@@ -73,7 +73,7 @@ from fleet.engineering.trends import (
 )
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
-from .bulk import insert_frame, on_postgresql, select_frame
+from .bulk import ID_ARRAY_SQL, id_array_text, insert_frame, on_postgresql, select_frame
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
@@ -672,7 +672,7 @@ CURRENT_SQL = (
     "SELECT fitted_capacitor_id, max_reading_id, risk, risk_was,"
     " (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
     " FROM fleet_assessment WHERE is_current"
-    " AND fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY(%s)"
+    f" AND fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
 )
 
 
@@ -683,7 +683,7 @@ def _current_assessments(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
         return pd.DataFrame(columns=CURRENT_COLUMNS).set_index("fitted_capacitor_id")
     if on_postgresql():
         ids = fitted_capacitor_ids.tolist()
-        frame = select_frame(CURRENT_SQL, [min(ids), max(ids), ids], CURRENT_COLUMNS)
+        frame = select_frame(CURRENT_SQL, [min(ids), max(ids), id_array_text(ids)], CURRENT_COLUMNS)
         frame["risk_changed_at"] = pd.to_datetime(frame["risk_changed_at"], unit="us", utc=True)
     else:
         frame = pd.DataFrame(
