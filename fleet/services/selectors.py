@@ -75,8 +75,8 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
     if frame.empty:
         return pd.DataFrame(columns=["run", "start"], dtype=float)
-    table = frame.pivot_table(index="motor_id", columns="role", values="rated_uf", aggfunc="first")
-    return table.reindex(columns=[FittedCapacitor.Role.RUN, FittedCapacitor.Role.START])
+    table = frame.drop_duplicates(["motor_id", "role"]).pivot(index="motor_id", columns="role", values="rated_uf")
+    return table.reindex(columns=[FittedCapacitor.Role.RUN, FittedCapacitor.Role.START]).astype(float)
 
 
 READING_COLUMNS = [
