@@ -726,9 +726,10 @@ def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
     offset = np.asarray(offset_days, float)
     with np.errstate(invalid="ignore"):
         known = np.isfinite(offset) & (offset <= PlanningSettings().horizon_days)
-    days = np.floor(np.maximum(np.where(known, offset, 0.0), 0.0)).astype("timedelta64[D]")
-    text = np.datetime_as_string(np.datetime64(today, "D") + days, unit="D").astype(object)
-    return np.where(known, text, None)
+    days = np.floor(np.maximum(np.where(known, offset, 0.0), 0.0)).astype(np.int64)
+    distinct, position = np.unique(days, return_inverse=True)  # a few hundred dates: each written once
+    text = np.datetime_as_string(np.datetime64(today, "D") + distinct.astype("timedelta64[D]"), unit="D")
+    return np.where(known, text.astype(object)[position.reshape(days.shape)], None)
 
 
 def _json_lines(frame: pd.DataFrame) -> np.ndarray:
@@ -743,20 +744,22 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
     """Per capacitor, the JSON list of every limit evaluated (tolerance always; a drift limit
     where it applies; the dissipation factor where the part has a maximum)."""
     n = len(result.inst)
-    items = []
-    for k, name in enumerate(ALL_LIMITS):
-        fraction = result.limit_fraction[k]
-        entry = pd.DataFrame(
-            {
-                "name": name,
-                "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
-                "used": result.limit_used[k].astype(bool),
-                "note": result.limit_notes[k].astype(str),
-                "finding": result.limit_findings[k].astype(str),
-                **{f"p{q}_on": _iso_dates(result.limit_days[j, k], today) for j, q in enumerate((10, 50, 90))},
-            }
-        )
-        items.append((np.ones(n, bool) if k == 0 else np.isfinite(fraction), _json_lines(entry)))
+    count = len(ALL_LIMITS)
+    fraction = result.limit_fraction.ravel()  # limit by limit: every capacitor's entry for one, then the next
+    entries = pd.DataFrame(
+        {
+            "name": np.repeat(np.asarray(ALL_LIMITS, dtype=object), n),
+            "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
+            "used": result.limit_used.ravel().astype(bool),
+            "note": result.limit_notes.ravel().astype(str),
+            "finding": result.limit_findings.ravel().astype(str),
+            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel(), today) for j, q in enumerate((10, 50, 90))},
+        }
+    )
+    limit_text = _json_lines(entries).reshape(count, n)
+    applies = np.isfinite(result.limit_fraction)
+    applies[0] = True  # the tolerance limit always
+    items = [(applies[k], limit_text[k]) for k in range(count)]
     maximum = result.inst["max_dissipation_factor"].to_numpy(float)
     wear = pd.DataFrame(
         {

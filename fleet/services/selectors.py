@@ -75,8 +75,10 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
     if frame.empty:
         return pd.DataFrame(columns=["run", "start"], dtype=float)
-    table = frame.drop_duplicates(["motor_id", "role"]).pivot(index="motor_id", columns="role", values="rated_uf")
-    return table.reindex(columns=[FittedCapacitor.Role.RUN, FittedCapacitor.Role.START]).astype(float)
+    first = frame.drop_duplicates(["motor_id", "role"]).set_index("motor_id")
+    roles = [FittedCapacitor.Role.RUN, FittedCapacitor.Role.START]
+    table = pd.DataFrame({role: first.loc[first["role"] == role, "rated_uf"] for role in roles}, columns=roles)
+    return table.astype(float).rename_axis(columns="role")
 
 
 READING_COLUMNS = [
