@@ -112,7 +112,7 @@ def fit_frames(
     to the trend form its back-test chose (stored ones by default)."""
     group = inst.index.get_indexer(readings["fitted_capacitor_id"])
     part_index = pd.Index(part_ids).get_indexer(inst["part_id"])
-    fitted_on = inst["fitted_on"].to_numpy()[group]
+    fitted_on = np.asarray(inst["fitted_on"].to_numpy(), dtype="datetime64[D]")[group]  # dates converted once each
     settings = settings or TrendSettings()
     own_tempco = inst["part_tempco_ppm_per_k"].to_numpy(float)
     forms = stored_forms() if forms is None else forms
@@ -416,10 +416,9 @@ def _dissipation_days(inst: pd.DataFrame, usable: pd.DataFrame, now: dt.datetime
     dissipation = dissipation_factor_from_esr(
         measured["esr_ohm"].to_numpy(float), measured["capacitance_uf"].to_numpy(float), frequency
     )
-    fitted_on = inst["fitted_on"].to_numpy()
+    fitted_on = np.asarray(inst["fitted_on"].to_numpy(), dtype="datetime64[D]")
     now_h = (
-        (np.datetime64(pd.Timestamp(now).tz_convert("UTC").tz_localize(None), "s") - fitted_on.astype("datetime64[D]"))
-        / np.timedelta64(1, "h")
+        (np.datetime64(pd.Timestamp(now).tz_convert("UTC").tz_localize(None), "s") - fitted_on) / np.timedelta64(1, "h")
     ).astype(float)
     hours = dissipation_trend(
         group,
