@@ -192,9 +192,8 @@ class AnyOf(Lookup):
         values = self.rhs.tolist() if hasattr(self.rhs, "tolist") else list(self.rhs)
         if connection.vendor != "postgresql":
             return f"{lhs} IN (SELECT value FROM json_each(%s))", [*lhs_params, json.dumps(values)]
-        integers = np.asarray(self.rhs).dtype.kind in "iu" if hasattr(self.rhs, "dtype") else None
-        if integers is None:
-            integers = bool(values) and all(isinstance(v, int) and not isinstance(v, bool) for v in values)
+        kind = getattr(getattr(self.rhs, "dtype", None), "kind", "O")  # an integer array needs no look at each value
+        integers = kind in "iu" or (kind == "O" and all(isinstance(v, int) and not isinstance(v, bool) for v in values))
         if values and integers:
             # The range lets the planner see how few rows a chunk of neighbouring ids is: without
             # it, it guesses from the table's size and scans all of it (in parallel).
