@@ -207,13 +207,19 @@ def calibrated_crossing_quantiles(
     path's mean is the fit's plus (bias + acceleration h) x + extra_slope h +
     curvature h^2, x = slope d, and its variance the fit's plus (spread x)^2 +
     (extra_sd h)^2. P(crossed by t0 + d) =
-    Phi((L - mean) / sd) is evaluated on a grid of d up to each capacitor's
+    Phi((L - mean) / sd) on a grid of `steps` times d up to each capacitor's
     horizon (denser near now), made non-decreasing, and each quantile read off
     by linear interpolation. A quantile already reached at
     d = 0 gives t0 (or the closed-form crossing before it when the fit's own path
     is past); one never reached gives inf, as does every quantile of a capacitor
     whose limit does not apply (NaN limit fraction): the grid is evaluated only
     over the capacitors whose limit applies. Shape (len(probabilities), G).
+
+    The grid is not evaluated whole (`_grid_quantiles`): every `COARSE_STRIDE`-th
+    point first, then every point only inside the stride where each quantile is
+    first reached. That gives the dense grid's numbers unless the probability
+    rises above a level and falls back between two coarse points (a path that
+    turns back within a stride), which the tests bound on varied fits.
     """
     terms = np.asarray(terms, float)
     n = len(fit.intercept)
@@ -231,6 +237,9 @@ def calibrated_crossing_quantiles(
     return result
 
 
+COARSE_STRIDE = 8  # grid points a coarse step spans; about sqrt(steps / levels) costs least
+
+
 def _take(fit: TrendFit, rows: np.ndarray) -> TrendFit:
     """The per-capacitor part of a fit for some capacitors (positions; per-reading arrays dropped)."""
     import dataclasses
@@ -243,41 +252,83 @@ def _take(fit: TrendFit, rows: np.ndarray) -> TrendFit:
     return dataclasses.replace(fit, **per_capacitor)
 
 
-def _probability(fit, limit_fraction, terms, ahead):
-    """Phi((L - mean) / sd) of the calibrated path at `ahead` (K, G) stress hours past t0."""
-    from scipy.special import ndtr
+def _score_polynomials(fit, limit_fraction, terms, horizon):
+    """(3, G) coefficients of L - mean and of the variance as quadratics in u = d / horizon.
 
+    With s the fit's slope now and r the stress rate, the mean is
+    m(t0) + (s (1 + bias) + extra_slope / r) d + (c + acceleration s / r + curvature / r^2) d^2,
+    the variance var(t0) + 2 (v01 + t0 v11) d + (v11 + (spread s)^2 + (extra_sd / r)^2) d^2.
+    """
     bias, spread, extra_slope, extra_sd, acceleration, curvature = terms
-    limit = fit.to_z(limit_fraction)
+    t0 = fit.stress_hours_now
     v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
-    t = fit.stress_hours_now + ahead
-    hours = ahead / np.maximum(fit.stress_rate, 1e-9)
-    own = fit.slope_now() * ahead
-    mean = fit.mean_at(t) + (bias + acceleration * hours) * own + extra_slope * hours + curvature * hours**2
-    variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * hours) ** 2
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.nan_to_num(ndtr((limit - mean) / np.sqrt(np.maximum(variance, 1e-300))), nan=0.0)
+    rate = np.maximum(fit.stress_rate, 1e-9)
+    slope = fit.slope_now()
+    gap = np.stack(
+        [
+            fit.to_z(limit_fraction) - fit.mean_at(t0),
+            -(slope * (1.0 + bias) + extra_slope / rate) * horizon,
+            -(fit.bend() + acceleration * slope / rate + curvature / rate**2) * horizon**2,
+        ]
+    )
+    variance = np.stack(
+        [
+            v00 + 2.0 * t0 * v01 + t0 * t0 * v11,
+            2.0 * (v01 + t0 * v11) * horizon,
+            (v11 + (spread * slope) ** 2 + (extra_sd / rate) ** 2) * horizon**2,
+        ]
+    )
+    return gap, variance
+
+
+def _scores(gap, variance, u, columns=slice(None)):
+    """(L - mean) / sd at grid fractions u (K, G); not a number (no finite score) as -inf."""
+    g = gap[:, columns]
+    v = variance[:, columns]
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        score = (g[0] + u * (g[1] + u * g[2])) / np.sqrt(np.maximum(v[0] + u * (v[1] + u * v[2]), 1e-300))
+    return np.where(np.isnan(score), -np.inf, score)
 
 
 def _grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, levels, steps):
+    """The quantiles of `calibrated_crossing_quantiles` for capacitors whose limit applies.
+
+    Phi is monotone, so the running maximum and the first point at or above each level are
+    taken on the score (L - mean) / sd against Phi^-1(p); Phi is evaluated only at the two
+    points each quantile is interpolated between.
+    """
+    from scipy.special import ndtr, ndtri
+
     t0 = fit.stress_hours_now
+    n = len(t0)
     horizon = np.maximum(np.asarray(horizon_stress_hours, float), 1.0)
-    ahead = horizon[None, :] * (np.linspace(0.0, 1.0, steps) ** 2)[:, None]  # (K, G)
-    probability = np.maximum.accumulate(_probability(fit, limit_fraction, terms, ahead), axis=0)
-    before = crossing_quantiles(fit, limit_fraction, tuple(levels))  # where the fit itself is already past
-    rows = []
-    columns = np.arange(probability.shape[1])
-    for k, p in enumerate(levels):
-        reached = probability >= p
-        first = np.argmax(reached, axis=0)
-        never = ~reached.any(axis=0)
-        previous = np.maximum(first - 1, 0)
-        p_low, p_high = probability[previous, columns], probability[first, columns]
+    fractions = np.linspace(0.0, 1.0, steps) ** 2  # of the horizon: denser near now
+    gap, variance = _score_polynomials(fit, limit_fraction, terms, horizon)
+    coarse_index = np.unique(np.append(np.arange(0, steps, COARSE_STRIDE), steps - 1))
+    coarse = np.maximum.accumulate(_scores(gap, variance, fractions[coarse_index, None]), axis=0)
+    unique_levels, level_of = np.unique(levels, return_inverse=True)
+    before = crossing_quantiles(fit, limit_fraction, tuple(unique_levels))  # where the fit itself is past
+    found = np.empty((len(unique_levels), n))
+    for k, p in enumerate(unique_levels):
+        target = float(ndtri(p))
+        stride = (coarse < target).sum(axis=0)  # coarse points below the level: it is reached after them
+        never = stride == len(coarse_index)
+        inside = np.flatnonzero((stride > 0) & ~never)
+        low = coarse_index[stride[inside] - 1]
+        points = np.minimum(low + np.arange(COARSE_STRIDE + 1)[:, None], coarse_index[stride[inside]])
+        envelope = np.maximum.accumulate(
+            np.vstack(
+                [coarse[stride[inside] - 1, inside][None], _scores(gap, variance, fractions[points[1:]], inside)]
+            ),
+            axis=0,
+        )
+        first = (envelope < target).sum(axis=0)  # >= 1: the stride's low point is below the level
+        span = np.arange(len(inside))
+        p_low, p_high = ndtr(envelope[first - 1, span]), ndtr(envelope[first, span])
         with np.errstate(invalid="ignore", divide="ignore"):
             share = np.clip((p - p_low) / (p_high - p_low), 0.0, 1.0)
-        d = np.where(
-            first == 0, 0.0, ahead[previous, columns] + share * (ahead[first, columns] - ahead[previous, columns])
-        )
-        result = np.where(never, np.inf, t0 + d)
-        rows.append(np.where((first == 0) & ~never, np.minimum(before[k], t0), result))
-    return np.stack(rows)
+        u_low, u_high = fractions[points[first - 1, span]], fractions[points[first, span]]
+        value = np.where(never, np.inf, np.minimum(before[k], t0))
+        value[inside] = t0[inside] + horizon[inside] * (u_low + share * (u_high - u_low))
+        found[k] = value
+    return found[level_of]

@@ -395,42 +395,41 @@ def judge_limits(
         [FINDING_AT_RATED, FINDING_VOLTAGE_DISAGREES, FINDING_NEAR_RATED],
         default="",
     ).astype(object)
-    voltage_note = (
+    # Notes are written only where a finding is (few capacitors): text is formatted value by value.
+    note = np.full(fractions.shape, "", dtype=object)
+    note[finding == FINDING_AT_RATED] = (
+        "already breached at rated capacitance: a design or data finding, not wear; limit not used"
+    )
+    limit, capacitor = np.nonzero(finding == FINDING_VOLTAGE_DISAGREES)
+    note[limit, capacitor] = (
         "estimated capacitor voltage "
-        + _numbers(estimated_v, "{:.0f}")
+        + _numbers(np.broadcast_to(estimated_v, (n,))[capacitor], "{:.0f}")
         + " V, measured "
-        + _numbers(measured_v, "{:.0f}")
+        + _numbers(np.broadcast_to(measured_v, (n,))[capacitor], "{:.0f}")
         + " V: the motor's estimated circuit disagrees with the readings; limit not used"
     )
-    percent = _numbers(100.0 * fractions, "{:.0f}")
-    figure_words = np.stack(
+    limit, capacitor = np.nonzero(finding == FINDING_NEAR_RATED)
+    ratio = np.stack(
+        np.broadcast_arrays(torque_ratio, 100.0 * voltage_ratio, 100.0 * current_ratio, np.full(n, np.nan))
+    )[limit, capacitor]
+    figure_words = np.select(
+        [limit == 0, limit == 1, limit == 2],
         [
-            "starting torque " + _numbers(torque_ratio, "{:.2f}") + " times the load's break-away torque",
-            "capacitor voltage " + _numbers(100.0 * voltage_ratio, "{:.0f}") + " % of its rating",
-            "main-winding current " + _numbers(100.0 * current_ratio, "{:.0f}") + " % of its limit",
-            np.full(n, "", dtype=object),
-        ]
+            "starting torque " + _numbers(ratio, "{:.2f}") + " times the load's break-away torque",
+            "capacitor voltage " + _numbers(ratio, "{:.0f}") + " % of its rating",
+            "main-winding current " + _numbers(ratio, "{:.0f}") + " % of its limit",
+        ],
+        default="",
     )
-    margin = np.array([resolution.starting_torque, resolution.capacitor_voltage, resolution.main_current, np.nan])[
-        :, None
-    ]
-    near_note = (
+    margin = np.array([resolution.starting_torque, resolution.capacitor_voltage, resolution.main_current, np.nan])
+    note[limit, capacitor] = (
         "at "
-        + percent
+        + _numbers(100.0 * fractions[limit, capacitor], "{:.0f}")
         + " % of rated, from a circuit estimated from the nameplate alone: a new capacitor gives "
         + figure_words
         + ", within the "
-        + _numbers(np.broadcast_to(100.0 * margin, fractions.shape), "{:.0f}")
+        + _numbers(100.0 * margin[limit], "{:.0f}")
         + " % such an estimate cannot resolve; a design or data finding, not wear: confirm with measured"
         " winding currents; the tolerance limit governs meanwhile"
     )
-    note = np.select(
-        [finding == FINDING_AT_RATED, finding == FINDING_VOLTAGE_DISAGREES, finding == FINDING_NEAR_RATED],
-        [
-            "already breached at rated capacitance: a design or data finding, not wear; limit not used",
-            np.broadcast_to(voltage_note, fractions.shape),
-            near_note,
-        ],
-        default="",
-    ).astype(object)
     return LimitFindings(used=crossed & (finding == ""), finding=finding, note=note)

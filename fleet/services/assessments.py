@@ -74,7 +74,7 @@ from fleet.engineering.trends import (
 )
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
-from .bulk import insert_frame, on_postgresql, select_frame
+from .bulk import ID_ARRAY_SQL, id_array_text, insert_frame, on_postgresql, select_frame
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
@@ -114,7 +114,7 @@ def fit_frames(
     dielectric to the trend form and the path shape its back-test chose (stored ones by default)."""
     group = inst.index.get_indexer(readings["fitted_capacitor_id"])
     part_index = pd.Index(part_ids).get_indexer(inst["part_id"])
-    fitted_on = inst["fitted_on"].to_numpy()[group]
+    fitted_on = np.asarray(inst["fitted_on"].to_numpy(), dtype="datetime64[D]")[group]  # dates converted once each
     settings = settings or TrendSettings()
     own_tempco = inst["part_tempco_ppm_per_k"].to_numpy(float)
     forms = stored_forms() if forms is None else forms
@@ -425,10 +425,9 @@ def _dissipation_days(inst: pd.DataFrame, usable: pd.DataFrame, now: dt.datetime
     dissipation = dissipation_factor_from_esr(
         measured["esr_ohm"].to_numpy(float), measured["capacitance_uf"].to_numpy(float), frequency
     )
-    fitted_on = inst["fitted_on"].to_numpy()
+    fitted_on = np.asarray(inst["fitted_on"].to_numpy(), dtype="datetime64[D]")
     now_h = (
-        (np.datetime64(pd.Timestamp(now).tz_convert("UTC").tz_localize(None), "s") - fitted_on.astype("datetime64[D]"))
-        / np.timedelta64(1, "h")
+        (np.datetime64(pd.Timestamp(now).tz_convert("UTC").tz_localize(None), "s") - fitted_on) / np.timedelta64(1, "h")
     ).astype(float)
     hours = dissipation_trend(
         group,
@@ -684,7 +683,7 @@ CURRENT_SQL = (
     "SELECT fitted_capacitor_id, max_reading_id, risk, risk_was,"
     " (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
     " FROM fleet_assessment WHERE is_current"
-    " AND fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY(%s)"
+    f" AND fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
 )
 
 
@@ -695,7 +694,7 @@ def _current_assessments(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
         return pd.DataFrame(columns=CURRENT_COLUMNS).set_index("fitted_capacitor_id")
     if on_postgresql():
         ids = fitted_capacitor_ids.tolist()
-        frame = select_frame(CURRENT_SQL, [min(ids), max(ids), ids], CURRENT_COLUMNS)
+        frame = select_frame(CURRENT_SQL, [min(ids), max(ids), id_array_text(ids)], CURRENT_COLUMNS)
         frame["risk_changed_at"] = pd.to_datetime(frame["risk_changed_at"], unit="us", utc=True)
     else:
         frame = pd.DataFrame(
@@ -738,9 +737,10 @@ def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
     offset = np.asarray(offset_days, float)
     with np.errstate(invalid="ignore"):
         known = np.isfinite(offset) & (offset <= PlanningSettings().horizon_days)
-    days = np.floor(np.maximum(np.where(known, offset, 0.0), 0.0)).astype("timedelta64[D]")
-    text = np.datetime_as_string(np.datetime64(today, "D") + days, unit="D").astype(object)
-    return np.where(known, text, None)
+    days = np.floor(np.maximum(np.where(known, offset, 0.0), 0.0)).astype(np.int64)
+    distinct, position = np.unique(days, return_inverse=True)  # a few hundred dates: each written once
+    text = np.datetime_as_string(np.datetime64(today, "D") + distinct.astype("timedelta64[D]"), unit="D")
+    return np.where(known, text.astype(object)[position.reshape(days.shape)], None)
 
 
 def _json_lines(frame: pd.DataFrame) -> np.ndarray:
@@ -755,20 +755,22 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
     """Per capacitor, the JSON list of every limit evaluated (tolerance always; a drift limit
     where it applies; the dissipation factor where the part has a maximum)."""
     n = len(result.inst)
-    items = []
-    for k, name in enumerate(ALL_LIMITS):
-        fraction = result.limit_fraction[k]
-        entry = pd.DataFrame(
-            {
-                "name": name,
-                "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
-                "used": result.limit_used[k].astype(bool),
-                "note": result.limit_notes[k].astype(str),
-                "finding": result.limit_findings[k].astype(str),
-                **{f"p{q}_on": _iso_dates(result.limit_days[j, k], today) for j, q in enumerate((10, 50, 90))},
-            }
-        )
-        items.append((np.ones(n, bool) if k == 0 else np.isfinite(fraction), _json_lines(entry)))
+    count = len(ALL_LIMITS)
+    fraction = result.limit_fraction.ravel()  # limit by limit: every capacitor's entry for one, then the next
+    entries = pd.DataFrame(
+        {
+            "name": np.repeat(np.asarray(ALL_LIMITS, dtype=object), n),
+            "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
+            "used": result.limit_used.ravel().astype(bool),
+            "note": result.limit_notes.ravel().astype(str),
+            "finding": result.limit_findings.ravel().astype(str),
+            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel(), today) for j, q in enumerate((10, 50, 90))},
+        }
+    )
+    limit_text = _json_lines(entries).reshape(count, n)
+    applies = np.isfinite(result.limit_fraction)
+    applies[0] = True  # the tolerance limit always
+    items = [(applies[k], limit_text[k]) for k in range(count)]
     maximum = result.inst["max_dissipation_factor"].to_numpy(float)
     wear = pd.DataFrame(
         {

@@ -164,6 +164,15 @@ def _plain(value):
     return value
 
 
+ID_ARRAY_SQL = "string_to_array(%s, ',')::bigint[]"
+
+
+def id_array_text(ids) -> str:
+    """Integer ids as the one text parameter of `ID_ARRAY_SQL` (PostgreSQL): psycopg adapts a list
+    parameter value by value in Python, the server splits this text in C."""
+    return ",".join(map(str, np.asarray(ids, np.int64).tolist()))
+
+
 @ForeignObject.register_lookup  # a foreign key keeps lookups of its own: register there too
 @Field.register_lookup
 class AnyOf(Lookup):
@@ -183,17 +192,19 @@ class AnyOf(Lookup):
         values = self.rhs.tolist() if hasattr(self.rhs, "tolist") else list(self.rhs)
         if connection.vendor != "postgresql":
             return f"{lhs} IN (SELECT value FROM json_each(%s))", [*lhs_params, json.dumps(values)]
+        kind = getattr(getattr(self.rhs, "dtype", None), "kind", "O")  # an integer array needs no look at each value
+        integers = kind in "iu" or (kind == "O" and all(isinstance(v, int) and not isinstance(v, bool) for v in values))
+        if values and integers:
+            # The range lets the planner see how few rows a chunk of neighbouring ids is: without
+            # it, it guesses from the table's size and scans all of it (in parallel).
+            return (
+                f"({lhs} BETWEEN %s AND %s AND {lhs} = ANY({ID_ARRAY_SQL}))",
+                [*lhs_params, min(values), max(values), *lhs_params, id_array_text(values)],
+            )
         if values and all(isinstance(v, str) for v in values):
             joined = SEPARATOR.join(values)
             if joined.count(SEPARATOR) == len(values) - 1:
                 return f"{lhs} = ANY(string_to_array(%s, %s))", [*lhs_params, joined, SEPARATOR]
-        if values and all(isinstance(v, int) and not isinstance(v, bool) for v in values):
-            # The range lets the planner see how few rows a chunk of neighbouring ids is: without
-            # it, it guesses from the table's size and scans all of it (in parallel).
-            return (
-                f"({lhs} BETWEEN %s AND %s AND {lhs} = ANY(string_to_array(%s, ',')::bigint[]))",
-                [*lhs_params, min(values), max(values), *lhs_params, ",".join(map(str, values))],
-            )
         return f"{lhs} = ANY(%s)", [*lhs_params, values]
 
 

@@ -7,7 +7,7 @@ import pandas as pd
 
 from fleet.models import FittedCapacitor, PartPrior, Reading
 
-from .bulk import on_postgresql, select_frame
+from .bulk import ID_ARRAY_SQL, id_array_text, on_postgresql, select_frame
 
 CIRCUIT_FIELDS = [
     "r1m_ohm",
@@ -75,8 +75,10 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
     if frame.empty:
         return pd.DataFrame(columns=["run", "start"], dtype=float)
-    table = frame.pivot_table(index="motor_id", columns="role", values="rated_uf", aggfunc="first")
-    return table.reindex(columns=[FittedCapacitor.Role.RUN, FittedCapacitor.Role.START])
+    first = frame.drop_duplicates(["motor_id", "role"]).set_index("motor_id")
+    roles = [FittedCapacitor.Role.RUN, FittedCapacitor.Role.START]
+    table = pd.DataFrame({role: first.loc[first["role"] == role, "rated_uf"] for role in roles}, columns=roles)
+    return table.astype(float).rename_axis(columns="role")
 
 
 READING_COLUMNS = [
@@ -95,7 +97,7 @@ READING_COLUMNS = [
 READINGS_SQL = (
     "SELECT id, fitted_capacitor_id, (EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint, capacitance_uf,"
     " case_temperature_c, capacitor_voltage_v, esr_ohm, supersedes_id, condition"
-    " FROM fleet_reading WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY(%s)"
+    f" FROM fleet_reading WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
 )
 
 
@@ -104,7 +106,9 @@ def readings_frame(fitted_capacitor_ids) -> pd.DataFrame:
     with `taken_at` in UTC and a `superseded` column."""
     ids = [int(i) for i in fitted_capacitor_ids]
     if on_postgresql():
-        frame = select_frame(READINGS_SQL, [min(ids, default=0), max(ids, default=0), ids], READING_COLUMNS)
+        frame = select_frame(
+            READINGS_SQL, [min(ids, default=0), max(ids, default=0), id_array_text(ids)], READING_COLUMNS
+        )
         frame["taken_at"] = pd.to_datetime(frame["taken_at"].astype(np.int64), unit="us", utc=True)
     else:
         rows = Reading.objects.filter(fitted_capacitor_id__any_of=np.array(ids, np.int64)).values_list(*READING_COLUMNS)

@@ -5,6 +5,8 @@ independent check of the forecast, on a fleet simulated without the fitter's
 assumptions, is tests/test_forecast_simulation.py.
 """
 
+import dataclasses
+
 import numpy as np
 import pytest
 
@@ -254,6 +256,92 @@ def test_grid_over_the_capacitors_whose_limit_applies_equals_the_grid_over_all()
     assert 0 < applies.sum() < 60 and np.isfinite(full[:, applies]).any()
     np.testing.assert_array_equal(subset, full)
     assert np.isinf(subset[:, ~applies]).all()
+
+
+def _dense_grid_quantiles(fit, limit_fraction, terms, horizon_stress_hours, levels, steps=240):
+    """The reference: P(crossed) by Phi on every point of the grid, its running maximum, each
+    level read off by linear interpolation (as `calibrated_crossing_quantiles` describes it)."""
+    from scipy.special import ndtr
+
+    bias, spread, extra_slope, extra_sd, acceleration, curvature = terms
+    t0 = fit.stress_hours_now
+    horizon = np.maximum(np.asarray(horizon_stress_hours, float), 1.0)
+    ahead = horizon[None, :] * (np.linspace(0.0, 1.0, steps) ** 2)[:, None]
+    v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
+    t = t0 + ahead
+    hours = ahead / np.maximum(fit.stress_rate, 1e-9)
+    own = fit.slope_now() * ahead
+    mean = fit.mean_at(t) + (bias + acceleration * hours) * own + extra_slope * hours + curvature * hours**2
+    variance = v00 + 2.0 * t * v01 + t * t * v11 + (spread * own) ** 2 + (extra_sd * hours) ** 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        score = (fit.to_z(limit_fraction) - mean) / np.sqrt(np.maximum(variance, 1e-300))
+    probability = np.maximum.accumulate(np.nan_to_num(ndtr(score), nan=0.0), axis=0)
+    before = crossing_quantiles(fit, limit_fraction, tuple(levels))
+    columns = np.arange(len(t0))
+    rows = []
+    for k, p in enumerate(levels):
+        reached = probability >= p
+        first = np.argmax(reached, axis=0)
+        previous = np.maximum(first - 1, 0)
+        p_low, p_high = probability[previous, columns], probability[first, columns]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.clip((p - p_low) / (p_high - p_low), 0.0, 1.0)
+        d = ahead[previous, columns] + share * (ahead[first, columns] - ahead[previous, columns])
+        value = np.where(first == 0, np.minimum(before[k], t0), t0 + d)
+        rows.append(np.where(reached.any(axis=0), value, np.inf))
+    return np.stack(rows)
+
+
+def test_the_strided_grid_gives_the_dense_grids_quantiles():
+    """[derived] The quantiles read from the coarse grid refined inside one stride against
+    Phi on all 240 points (`_dense_grid_quantiles`), on varied fits: falling and rising paths,
+    bends both ways, log-linear and linear, limits already behind, never reached within the
+    horizon, and limits that do not apply (NaN). The same quantiles at t0, finite and infinite,
+    and the rest within a millionth of each capacitor's horizon (rounding: the two read the same
+    grid points; an interpolation a hundredth of a grid step off shows at about a hundred times that)."""
+    from fleet.engineering import calibration
+    from fleet.engineering.trends import MODEL_LOG
+
+    n = 600
+    group, time_h, measured, temperature, _, part = _small_fleet(n=n, seed=21)
+    fit = calibration._take(_fit(group, time_h, measured, temperature, part), np.arange(n))
+    rng = np.random.default_rng(8)
+    log = rng.random(n) < 0.3
+    fit = dataclasses.replace(
+        fit,
+        model=np.where(log, MODEL_LOG, fit.model),
+        intercept=np.where(log, np.log(fit.intercept), fit.intercept),
+        slope_per_hour=fit.slope_per_hour * rng.uniform(-1.5, 5.0, n),
+        curvature=rng.normal(0.0, 2e-10, n),
+        stress_rate=rng.uniform(0.3, 2.0, n),
+    )
+    limit = rng.uniform(0.75, 0.97, n)  # the paths stand near 0.93 now: some limits already behind
+    limit[rng.random(n) < 0.15] = np.nan
+    terms = np.vstack(
+        [
+            rng.normal(0.3, 0.4, n),
+            rng.uniform(0.0, 0.8, n),
+            rng.normal(-1e-6, 2e-6, n),
+            rng.uniform(0.0, 2e-6, n),
+            rng.uniform(0.0, 1e-4, n),
+            rng.uniform(-1e-10, 0.0, n),
+        ]
+    )
+    horizon = rng.uniform(2e3, 3e4, n)
+    levels = (0.1, 0.5, 0.9, 0.1, 0.2, 0.3, 0.4, 0.5)
+    strided = calibrated_crossing_quantiles(fit, limit, terms, horizon, levels)
+    applies = np.isfinite(limit)
+    dense = np.full_like(strided, np.inf)
+    dense[:, applies] = _dense_grid_quantiles(
+        calibration._take(fit, np.flatnonzero(applies)), limit[applies], terms[:, applies], horizon[applies], levels
+    )
+    finite = np.isfinite(dense)
+    at_now = dense == fit.stress_hours_now
+    assert finite.sum() > 1000 and (~finite[:, applies]).sum() > 50 and at_now.sum() > 50
+    np.testing.assert_array_equal(np.isfinite(strided), finite)
+    np.testing.assert_array_equal(strided == fit.stress_hours_now, at_now)
+    error = np.abs(np.where(finite, strided, 0.0) - np.where(finite, dense, 0.0)) / horizon
+    assert error.max() <= 1e-6
 
 
 def test_a_stray_reading_is_not_scored_as_the_crossing():
