@@ -490,6 +490,8 @@ class Reading(models.Model):
             models.Index(fields=["fitted_capacitor", "taken_at"]),
             # The refits page counts stale capacitors among the readings saved since the last fleet refit.
             models.Index(fields=["created_at"], name="reading_by_created_at"),
+            # The dashboard counts the readings taken in the last week: a range of this index, not every reading.
+            models.Index(fields=["taken_at"], name="reading_by_taken_at"),
         ]
 
     def __str__(self):

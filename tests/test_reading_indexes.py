@@ -1,7 +1,12 @@
 """The readings table's indexes: one per way it is read, none that only costs writes."""
 
+import datetime as dt
+
 import pytest
 from django.db import connection
+from django.utils import timezone
+
+from fleet.models import Reading
 
 pytestmark = pytest.mark.django_db
 
@@ -19,3 +24,16 @@ def test_readings_by_capacitor_have_one_index_in_date_order():
     indexes = _indexes_of("fleet_reading")
     assert ["fitted_capacitor_id", "taken_at"] in indexes.values()
     assert ["fitted_capacitor_id"] not in indexes.values(), indexes
+
+
+def test_the_dashboards_week_of_readings_is_counted_from_an_index():
+    """The dashboard counts the readings taken in the last seven days: with two million readings
+    a scan of the table takes a third of a second, a range of an index on taken_at a few
+    milliseconds (common practice: a range condition on an indexed column). PostgreSQL is told
+    not to scan the table so that the plan shows whether an index can serve the count at all."""
+    since = timezone.now() - dt.timedelta(days=7)
+    if connection.vendor == "postgresql":
+        with connection.cursor() as cursor:
+            cursor.execute("SET LOCAL enable_seqscan = off")
+    plan = Reading.objects.filter(taken_at__gte=since).order_by().explain()  # a count has no order
+    assert "reading_by_taken_at" in plan, plan
