@@ -201,6 +201,17 @@ class ReadingPages(CursorPagination):
     page_size_query_param = "page_size"
     max_page_size = 5000
 
+    def get_page_size(self, request):
+        """The asked page size, or a 400 naming `page_size` when it is not a whole number from 1 to 5000."""
+        asked = request.query_params.get(self.page_size_query_param)
+        if asked is None:
+            return self.page_size
+        if not (asked.isascii() and asked.isdigit() and 1 <= int(asked) <= self.max_page_size):
+            raise serializers.ValidationError(
+                {self.page_size_query_param: f"A whole number from 1 to {self.max_page_size}."}
+            )
+        return int(asked)
+
 
 class ReadingList(generics.ListAPIView):
     """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31:

@@ -16,10 +16,21 @@ from .models import Assessment, FittedCapacitor, Reading, Site
 from .roles import scope_to_user
 
 
+def _sites_of(request):
+    """The sites a request may ask for: the requesting user's (every site for a command or a task)."""
+    return scope_to_user(Site.objects.all(), request.user if request is not None else None)
+
+
+def _site_filter(field_name: str) -> django_filters.ModelChoiceFilter:
+    """A site by its code, among the requesting user's sites: an unknown code, or a site the user
+    does not work at, is a message naming the parameter, not an empty answer."""
+    return django_filters.ModelChoiceFilter(field_name=field_name, queryset=_sites_of, to_field_name="code")
+
+
 class AssessmentFilter(django_filters.FilterSet):
     """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31"""
 
-    site = django_filters.CharFilter(field_name="site__code", max_length=20)  # the stored site (triggers, 0019)
+    site = _site_filter("site")  # the stored site (triggers, 0019)
     risk = django_filters.ChoiceFilter(field_name="risk", choices=Assessment.Risk.choices)
     replace_by_before = django_filters.DateFilter(field_name="replace_by", lookup_expr="lte")
 
@@ -32,7 +43,7 @@ class ReadingFilter(django_filters.FilterSet):
     """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31
     (since and until are whole days, inclusive, in UTC)."""
 
-    site = django_filters.CharFilter(field_name="fitted_capacitor__motor__site__code", max_length=20)
+    site = _site_filter("fitted_capacitor__motor__site")
     part = django_filters.CharFilter(field_name="fitted_capacitor__part__code", max_length=40)
     motor = django_filters.CharFilter(field_name="fitted_capacitor__motor__asset_tag", max_length=40)
     since = django_filters.DateFilter(method="taken_since")
@@ -57,7 +68,7 @@ class LifeDataFilter(django_filters.FilterSet):
     """The life-data page's part (and a site, for a narrower pull): ?part=RUN-4U-450&site=CST"""
 
     part = django_filters.CharFilter(field_name="part__code", max_length=40)
-    site = django_filters.CharFilter(field_name="motor__site__code", max_length=20)
+    site = _site_filter("motor__site")
 
     class Meta:
         model = FittedCapacitor
@@ -147,11 +158,6 @@ class LabelsPage(_PageParameters):
     class Meta:
         model = Site
         fields = ["tag"]
-
-
-def _sites_of(request):
-    """The sites a plan may be asked for: the requesting user's."""
-    return scope_to_user(Site.objects.all(), request.user if request is not None else None)
 
 
 class PlanParameters(_PageParameters):

@@ -35,7 +35,37 @@ def test_engineer_reads_current_assessments_filtered_by_site(engineer, fan_fitte
     row = body["results"][0]
     assert row["asset_tag"] == fan_fitted_capacitor.motor.asset_tag and row["rated_uf"] == 4.0
     assert row["risk"] in {"replace now", "due soon", "watch", "sound"}
-    assert client.get(reverse("api_assessments"), {"site": "ELSEWHERE"}).json()["count"] == 0
+    unknown = client.get(reverse("api_assessments"), {"site": "ELSEWHERE"})
+    assert unknown.status_code == 400 and "site" in unknown.json(), "an unknown site is named, not an empty answer"
+
+
+def test_a_browser_opening_the_api_gets_json(engineer, fan_fitted_capacitor, client):
+    """The API answers JSON to a browser too (a browser asks for HTML first): no framework page,
+    whose filter form needed templates the project does not install and answered 500."""
+    client.force_login(engineer)
+    for url in (reverse("api_assessments"), reverse("api_readings")):
+        response = client.get(url, {"site": fan_fitted_capacitor.motor.site.code}, HTTP_ACCEPT="text/html,*/*;q=0.8")
+        assert response.status_code == 200, url
+        assert response["Content-Type"].startswith("application/json")
+
+
+@pytest.mark.parametrize("page_size", ["abc", "0", "-1", "999999", "１０"])
+def test_a_readings_page_size_that_cannot_be_used_is_named(engineer, fan_fitted_capacitor, page_size):
+    """page_size takes a whole number from 1 to 5000; anything else answers 400 naming it (full-width
+    digits are not ASCII digits)."""
+    response = client_for(engineer).get(reverse("api_readings"), {"page_size": page_size})
+    assert response.status_code == 400 and "page_size" in response.json()
+
+
+def test_a_site_the_user_does_not_work_at_is_named_like_an_unknown_one(engineer, fan_fitted_capacitor):
+    from fleet.models import Site, SiteMembership
+
+    other = Site.objects.create(code="ELSE", name="Elsewhere", time_zone="UTC")
+    SiteMembership.objects.create(user=engineer, site=fan_fitted_capacitor.motor.site)
+    client = client_for(engineer)
+    assert client.get(reverse("api_readings"), {"site": fan_fitted_capacitor.motor.site.code}).status_code == 200
+    refused = client.get(reverse("api_readings"), {"site": other.code})
+    assert refused.status_code == 400 and "site" in refused.json()
 
 
 def test_technician_posts_a_reading_with_the_forms_checks(technician, fan_fitted_capacitor):
