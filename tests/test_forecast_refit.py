@@ -277,4 +277,4 @@ def test_the_back_test_chooses_and_shows_the_path_shape(client, engineer):
     assert f"paths film: {stored.trend_model}, bent" in output.getvalue()
     client.force_login(engineer)
     page = client.get(reverse("track_record")).content.decode()
-    assert f"{stored.get_trend_model_display().lower()} trend on bent paths" in page
+    assert f"trend form {stored.get_trend_model_display().lower()}, path shape bent" in page
