@@ -7,7 +7,7 @@ import datetime as dt
 import numpy as np
 import pandas as pd
 from django.db import transaction
-from django.db.models import Count, Q
+from django.db.models import Count, F, Q
 from django.utils import timezone
 
 from fleet.engineering.lifedata import WeibullFit, age_replacement, fit_weibull, probability_plot_points
@@ -93,7 +93,9 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
     part's failures and suspensions counted from the register (one query either way, or two)."""
     stored = PartLifeFit.objects.filter(part_id=part_id, var_log_beta__isnull=False).first()
     if stored is None:
-        counts = FittedCapacitor.objects.filter(part_id=part_id).aggregate(
+        # The life table's units: those with an age (removed after fitting, or in service since before today).
+        aged = Q(removed_on__gt=F("fitted_on")) | Q(removed_on__isnull=True, fitted_on__lt=timezone.localdate())
+        counts = FittedCapacitor.objects.filter(aged, part_id=part_id).aggregate(
             failures=Count("id", filter=Q(removal_reason=FittedCapacitor.RemovalReason.FAILED)), units=Count("id")
         )
         return {
