@@ -214,7 +214,8 @@ SERIES_COLOURS = ("#0b5c8a", "#c2410c", "#4d7c0f", "#7e22ce", "#0f766e", "#a1620
 DASHBOARD_HEIGHT_PX = 360
 WORKLOAD_HEIGHT_PX = 400
 SPARES_HEIGHT_PX = 460  # room for one legend line per part on a phone
-SPARES_COST_TITLE = "cost (unit of the parts' prices)"  # prices are entered without a currency
+# Prices are entered without a currency, so the unit is the parts' prices; short enough for a phone's chart.
+SPARES_COST_TITLE = "cost (parts' prices)"
 
 
 def _switch(labels: list[str], groups: list[int]) -> list[dict]:
