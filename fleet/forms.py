@@ -154,8 +154,19 @@ class ImportUploadForm(forms.Form):
     )
     file = forms.FileField(label="CSV or XLSX file")
 
-    def __init__(self, *args, **kwargs):
+    def __init__(self, *args, kinds=None, **kwargs):
+        """`kinds`: the kinds of file this user may import (all when not given)."""
         super().__init__(*args, **kwargs)
+        if kinds is not None:
+            kind = self.fields["kind"]
+            kind.choices = [(value, label) for value, label in ImportJob.Kind.choices if value in kinds]
+            kind.error_messages["invalid_choice"] = (
+                "Your role cannot import this kind of file; you may import: "
+                + ", ".join(label.lower() for _, label in kind.choices)
+                + ". Ask an administrator for the others."
+            )
+            if kind.initial not in kinds:
+                kind.initial = kinds[0] if kinds else None
         self.fields["file"].help_text = (
             f"Up to {settings.FLEET_IMPORT_MAX_FILE_MB} MB and {settings.FLEET_IMPORT_MAX_ROWS:,} rows. "
             "First row: column headings. Comma, semicolon or tab between fields."

@@ -856,6 +856,14 @@ class ImportJob(models.Model):
 
     class Meta:
         ordering = ["-created_at"]
+        # Who may bring in which kind of file, apart from who may add such records one by one.
+        permissions = [
+            ("import_readings", "Can import readings"),
+            ("import_register", "Can import the motor register"),
+            ("import_sites", "Can import sites"),
+            ("import_parts", "Can import capacitor parts"),
+            ("import_history", "Can import past fitted capacitors"),
+        ]
 
     def __str__(self):
         return f"{self.get_kind_display()} {self.filename}"

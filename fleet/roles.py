@@ -21,12 +21,18 @@ VIEW_ALL = [
     "view_refitrun",
     "view_sitestock",
 ]
+# Imports by role: technicians bring in readings (a logger's or another team's sheet); planners keep the
+# register and its past capacitors; reliability engineers bring in the past capacitors that life data needs.
+# Sites and parts (the catalogue) stay with the administrator.
 ROLE_PERMISSIONS = {
-    TECHNICIAN: VIEW_ALL + ["add_reading", "add_fittedcapacitor", "change_fittedcapacitor", "change_workorder"],
+    TECHNICIAN: VIEW_ALL
+    + ["add_reading", "add_fittedcapacitor", "change_fittedcapacitor", "change_workorder"]
+    + ["import_readings"],
     PLANNER: VIEW_ALL
     + ["add_workorder", "change_workorder", "change_motor", "add_refitrun"]
-    + ["add_sitestock", "change_sitestock", "delete_sitestock"],
-    RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun", "add_backtest"],
+    + ["add_sitestock", "change_sitestock", "delete_sitestock"]
+    + ["import_readings", "import_register", "import_history"],
+    RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun", "add_backtest", "import_readings", "import_history"],
     ADMINISTRATOR: None,  # every permission of the fleet app, plus users and groups
 }
 
@@ -59,6 +65,18 @@ def roles_of(user) -> set[str]:
     if user.is_superuser:
         names.add(ADMINISTRATOR)
     return names & set(ROLES)
+
+
+def may_import(user, kind: str) -> bool:
+    """Whether the user may bring in a file of this kind (sites, parts, register, history, readings)."""
+    return user.has_perm(f"fleet.import_{kind}")
+
+
+def importable_kinds(user) -> list[str]:
+    """The kinds of file the user may import, in the import page's order."""
+    from .models import ImportJob
+
+    return [kind for kind in ImportJob.Kind.values if may_import(user, kind)]
 
 
 def is_administrator(user) -> bool:

@@ -281,7 +281,43 @@ def test_a_technician_cannot_import_a_register(client, technician):
     upload = io.BytesIO(b"asset_tag,site_code\nX,Y\n")
     upload.name = "register.csv"
     response = client.post(reverse("imports"), {"kind": "register", "file": upload})
-    assert "cannot import motor register" in response.content.decode()
+    assert response.status_code == 200 and not ImportJob.objects.exists()
+    assert "Your role cannot import this kind of file; you may import: readings." in response.content.decode()
+
+
+@pytest.mark.parametrize(
+    "role, allowed",
+    [
+        ("technician", {"readings"}),
+        ("planner", {"readings", "register", "history"}),
+        ("engineer", {"readings", "history"}),
+        ("administrator", {"readings", "register", "sites", "parts", "history"}),
+    ],
+)
+def test_each_role_reaches_the_import_page_and_may_upload_only_its_kinds(client, request, role, allowed):
+    """The menu, the page's choices and the upload all follow one rule per role (fleet/roles.py)."""
+    user = request.getfixturevalue(role)
+    client.force_login(user)
+    page = client.get(reverse("imports"))
+    assert page.status_code == 200
+    offered = {choice[0] for choice in page.context["form"].fields["kind"].choices}
+    assert offered == allowed
+    assert f'href="{reverse("imports")}"' in client.get(reverse("home")).content.decode()
+    for kind in ImportJob.Kind.values:
+        upload = io.BytesIO(b"code\nX\n")
+        upload.name = f"{kind}.csv"
+        client.post(reverse("imports"), {"kind": kind, "file": upload})
+        assert ImportJob.objects.filter(kind=kind, created_by=user).exists() == (kind in allowed), kind
+
+
+def test_a_user_without_any_import_right_gets_no_menu_entry_and_a_refusal(client, technician):
+    from django.contrib.auth.models import Permission
+
+    technician.groups.clear()
+    technician.user_permissions.add(Permission.objects.get(codename="view_motor"))
+    client.force_login(technician)
+    assert client.get(reverse("imports")).status_code == 403
+    assert f'href="{reverse("imports")}"' not in client.get(reverse("home")).content.decode()
 
 
 def test_an_import_queues_its_refits_in_chunks_not_one_task_per_capacitor(settings, django_capture_on_commit_callbacks):

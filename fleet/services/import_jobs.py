@@ -59,6 +59,7 @@ def _write_register(good, user):
 def _write_history(good, user):
     fitted_capacitor_ids = import_checks.insert_history(good)
     transaction.on_commit(lambda: enqueue_refit(fitted_capacitor_ids))
+    transaction.on_commit(_refresh_life_data_later)
 
 
 KINDS = {
@@ -366,6 +367,18 @@ def _estimate_later(motor_ids):
     from fleet.tasks import estimate_circuits
 
     estimate_circuits.delay(motor_ids)
+
+
+def _refresh_life_data_later():
+    """Past capacitors change every part's life data: refit the stored Weibull fits now rather than
+    leave the life-data page on "no fit yet" until the nightly refresh. A broker that is down
+    leaves it to that refresh."""
+    from fleet.tasks import QueueUnreachable, refresh_life_fits, send
+
+    try:
+        send(refresh_life_fits.s())
+    except QueueUnreachable as error:
+        log.warning("life data refresh not queued (%s); the nightly refresh will do it", error)
 
 
 def rejected_rows_csv(job: ImportJob) -> bytes:

@@ -2,15 +2,17 @@
 
 from __future__ import annotations
 
+from functools import wraps
+
 from django.contrib import messages
-from django.contrib.auth.decorators import permission_required
+from django.core.exceptions import PermissionDenied
 from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 
 from fleet.forms import ColumnMappingForm, ImportUploadForm
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
-from fleet.roles import scope_to_user
+from fleet.roles import importable_kinds, may_import, scope_to_user
 from fleet.services.import_jobs import (
     KINDS,
     WORKING,
@@ -21,42 +23,42 @@ from fleet.services.import_jobs import (
     rejected_rows_csv,
 )
 
-IMPORT_PERMISSION = {
-    ImportJob.Kind.READINGS: "fleet.add_reading",
-    ImportJob.Kind.REGISTER: "fleet.add_motor",
-    ImportJob.Kind.SITES: "fleet.add_site",
-    ImportJob.Kind.PARTS: "fleet.add_capacitorpart",
-    ImportJob.Kind.HISTORY: "fleet.add_motor",
-}
+
+def _may_import_something(view):
+    """The import pages are open to anyone who may import at least one kind of file."""
+
+    @wraps(view)
+    def guarded(request, *args, **kwargs):
+        if not importable_kinds(request.user):
+            raise PermissionDenied
+        return view(request, *args, **kwargs)
+
+    return guarded
 
 
-def _may_import(user, kind) -> bool:
-    return user.has_perm(IMPORT_PERMISSION[kind])
-
-
-@permission_required("fleet.add_reading", raise_exception=True)
+@_may_import_something
 def imports_home(request):
-    form = ImportUploadForm(request.POST or None, request.FILES or None)
+    kinds = importable_kinds(request.user)
+    form = ImportUploadForm(request.POST or None, request.FILES or None, kinds=kinds)
     if request.method == "POST" and form.is_valid():
-        kind = form.cleaned_data["kind"]
-        if not _may_import(request.user, kind):
-            label = ImportJob.Kind(kind).label.lower()
-            form.add_error("kind", f"Your role cannot import {label}; ask an administrator.")
-        else:
-            upload = form.cleaned_data["file"]
-            job = create_job(kind=kind, filename=upload.name, content=upload.read(), user=request.user)
-            return redirect("import_detail", job_id=job.id)
+        upload = form.cleaned_data["file"]
+        job = create_job(kind=form.cleaned_data["kind"], filename=upload.name, content=upload.read(), user=request.user)
+        return redirect("import_detail", job_id=job.id)
     end_stalled_jobs()
     jobs = scope_to_user(ImportJob.objects.defer("content"), request.user).order_by("-created_at")[:15]
-    context = {"form": form, "jobs": jobs, "kinds": [(ImportJob.Kind(k).label, v.columns) for k, v in KINDS.items()]}
+    context = {
+        "form": form,
+        "jobs": jobs,
+        "kinds": [(ImportJob.Kind(k).label, v.columns) for k, v in KINDS.items() if k in kinds],
+    }
     return render(request, "fleet/imports.html", context)
 
 
-@permission_required("fleet.add_reading", raise_exception=True)
+@_may_import_something
 def import_detail(request, job_id):
     end_stalled_jobs()
     job = get_object_or_404(scope_to_user(ImportJob.objects.defer("content"), request.user), pk=job_id)
-    if not _may_import(request.user, job.kind):
+    if not may_import(request.user, job.kind):
         raise Http404("No such import")
     kind = KINDS[job.kind]
     form = ColumnMappingForm(
@@ -84,10 +86,10 @@ def import_detail(request, job_id):
     return render(request, "fleet/import_detail.html", context)
 
 
-@permission_required("fleet.add_reading", raise_exception=True)
+@_may_import_something
 def import_rejected(request, job_id):
     job = get_object_or_404(scope_to_user(ImportJob.objects.all(), request.user), pk=job_id)
-    if not _may_import(request.user, job.kind):
+    if not may_import(request.user, job.kind):
         raise Http404("No such import")
     try:
         content = rejected_rows_csv(job)
