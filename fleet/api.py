@@ -12,7 +12,8 @@ from django.db.models import F
 from django.shortcuts import get_object_or_404
 from django_filters.rest_framework import DjangoFilterBackend
 from rest_framework import generics, permissions, serializers, status
-from rest_framework.pagination import CursorPagination
+from rest_framework.exceptions import NotFound
+from rest_framework.pagination import CursorPagination, PageNumberPagination
 from rest_framework.response import Response
 
 from .filters import AssessmentFilter, ReadingFilter
@@ -31,6 +32,20 @@ class ModelPermissionsWithView(permissions.DjangoModelPermissions):
         "GET": ["%(app_label)s.view_%(model_name)s"],
         "HEAD": ["%(app_label)s.view_%(model_name)s"],
     }
+
+
+class NumberedPages(PageNumberPagination):
+    """Numbered pages (the API's default): a page that is not a whole number from 1 to the last is a 400
+    naming `page`, as a bad `page_size` or filter is, instead of a 404 for the whole address."""
+
+    def paginate_queryset(self, queryset, request, view=None):
+        try:
+            return super().paginate_queryset(queryset, request, view)
+        except NotFound:
+            last = self.django_paginator_class(queryset, self.get_page_size(request)).num_pages
+            raise serializers.ValidationError(
+                {self.page_query_param: f"A whole number from 1 to {last} (the last page)."}
+            ) from None
 
 
 class AssessmentSerializer(serializers.ModelSerializer):
@@ -126,6 +141,7 @@ class AssessmentList(generics.ListAPIView):
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
     filter_backends = [DjangoFilterBackend]
     filterset_class = AssessmentFilter
+    pagination_class = NumberedPages
 
     def get_queryset(self):
         return (
@@ -145,6 +161,7 @@ class FittedCapacitorReadings(generics.ListCreateAPIView):
     serializer_class = ReadingSerializer
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
     queryset = Reading.objects.none()  # for the permission class's model lookup
+    pagination_class = NumberedPages
 
     def fitted_capacitor(self) -> FittedCapacitor:
         capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), self.request.user)
@@ -211,6 +228,15 @@ class ReadingPages(CursorPagination):
                 {self.page_size_query_param: f"A whole number from 1 to {self.max_page_size}."}
             )
         return int(asked)
+
+    def decode_cursor(self, request):
+        """The position a `cursor` holds, or a 400 naming `cursor` when it is not one this list gave."""
+        try:
+            return super().decode_cursor(request)
+        except NotFound:
+            raise serializers.ValidationError(
+                {self.cursor_query_param: "Not a cursor from this list: follow its next and previous links."}
+            ) from None
 
 
 class ReadingList(generics.ListAPIView):

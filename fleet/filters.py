@@ -4,11 +4,13 @@ a message naming the parameter (JSON 400 from the API, a note on the page), neve
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Callable
 
 import django_filters
 from django import forms
 from django.contrib import messages
 from django.core.exceptions import ValidationError
+from django.core.paginator import Page
 from django.core.validators import MaxValueValidator, MinValueValidator
 
 from .engineering.rules import parse_numbers
@@ -179,3 +181,35 @@ def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site |
     values, refused = page_parameters(PlanParameters, query, request)
     problems = [f"{name}: {message}" for name, message in refused.items()]
     return values.get("site"), int(values.get("days") or default_days), problems
+
+
+class WholeNumberFilter(django_filters.NumberFilter):
+    """A whole number ("2"; "1.5" and "abc" are refused by name)."""
+
+    field_class = forms.IntegerField
+
+
+class ListPage(_PageParameters):
+    """Which page of a long list: ?page=2 (a whole number from 1)."""
+
+    page = WholeNumberFilter(method="keep", validators=[MinValueValidator(1)])
+
+    class Meta:
+        model = Site
+        fields = ["page"]
+
+
+def list_page(request, page_of: Callable[[int], Page]) -> Page:
+    """The page of a list the query string's `page` asks for, from `page_of` (a Paginator's get_page, or a
+    service that pages): a number that cannot be read is named in a note and page 1 shown; one past the
+    end is named too, and the last page shown. Never a silent fallback, never a 500."""
+    asked = page_values(ListPage, request).get("page", 1)
+    page = page_of(asked)
+    if page.number != asked:
+        last = page.paginator.num_pages
+        messages.warning(
+            request,
+            f"Ignored page: there {'is' if last == 1 else 'are'} only {last} page{'' if last == 1 else 's'}; "
+            f"showing page {page.number}, not {asked}.",
+        )
+    return page

@@ -2,14 +2,19 @@
 phone's unsent draft keeps its key), page parameters read by django-filter (a bad value is named,
 never a 500), and import parsing that needs no database."""
 
+import datetime as dt
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
 from django.urls import reverse
+from django.utils import timezone
+from rest_framework.test import APIClient
 
-from tests.factories import make_fitted_capacitor
+from fleet.models import Assessment, WorkOrder
+from fleet.services.workorders import plan_work_orders
+from tests.factories import make_fitted_capacitor, stored_assessment
 
 pytestmark = pytest.mark.django_db
 ROOT = Path(__file__).resolve().parents[1]
@@ -86,6 +91,66 @@ def test_a_route_parameter_it_reads_still_filters(client, administrator):
     response = client.get(f"/sites/{fitted.motor.site.code}/route/?show=due")
     assert response.status_code == 200 and response.context["only_due"] is True
     assert not list(response.context["messages"])
+
+
+@pytest.fixture
+def one_visit(db):
+    """One capacitor to replace now, planned into one site visit: every paged list has one page."""
+    fitted = make_fitted_capacitor()
+    stored_assessment(fitted, Assessment.Risk.REPLACE_NOW, timezone.localdate() + dt.timedelta(days=5))
+    plan_work_orders(horizon_days=90)
+    return WorkOrder.objects.get()
+
+
+PAGED_LISTS = [
+    "/plan/?days=30",
+    "/work-orders/",
+    "/work-orders/{site}/{day}/",
+    "/sites/{site}/route/",
+    "/sites/{site}/labels/",
+]
+
+
+@pytest.mark.parametrize("url", PAGED_LISTS)
+@pytest.mark.parametrize(
+    "page,says", [("abc", "whole number"), ("-1", "greater than or equal to 1"), ("99999", "only 1 page")]
+)
+def test_a_page_number_it_cannot_use_is_named_on_the_page(client, administrator, one_visit, url, page, says):
+    """A page that is not a number, below 1 or past the end was answered with the first or last page
+    without a word; the note names `page` and says why, and the list still shows."""
+    client.force_login(administrator)
+    address = url.format(site=one_visit.site.code, day=one_visit.due_on.isoformat())
+    response = client.get(address + ("&" if "?" in address else "?") + f"page={page}")
+    assert response.status_code == 200
+    notes = [str(m) for m in response.context["messages"]]
+    assert any(note.startswith("Ignored page") and says in note for note in notes), notes
+    assert response.context["page"].number == 1
+
+
+@pytest.mark.parametrize("url", PAGED_LISTS)
+def test_a_page_number_it_can_use_brings_no_note(client, administrator, one_visit, url):
+    client.force_login(administrator)
+    address = url.format(site=one_visit.site.code, day=one_visit.due_on.isoformat())
+    response = client.get(address + ("&" if "?" in address else "?") + "page=1")
+    assert response.status_code == 200 and not list(response.context["messages"])
+
+
+@pytest.mark.parametrize("page", ["abc", "-1", "0", "99999"])
+def test_the_api_refuses_a_page_it_cannot_use_by_name(administrator, one_visit, page):
+    """As with page_size and the filters: a 400 naming the parameter (it was a 404 for the whole address)."""
+    api = APIClient()
+    api.force_authenticate(administrator)
+    for url in ("/api/assessments/", f"/api/fitted-capacitors/{one_visit.fitted_capacitor_id}/readings/"):
+        response = api.get(url, {"page": page})
+        assert response.status_code == 400 and "page" in response.json(), (url, response.content)
+    assert api.get("/api/assessments/", {"page": 1}).status_code == 200
+
+
+def test_the_api_refuses_a_cursor_it_did_not_give_by_name(administrator, one_visit):
+    api = APIClient()
+    api.force_authenticate(administrator)
+    response = api.get("/api/readings/", {"cursor": "not-a-cursor"})
+    assert response.status_code == 400 and "cursor" in response.json(), response.content
 
 
 def test_import_parsing_and_column_rules_load_without_the_database_layer():

@@ -83,7 +83,9 @@ def test_the_plans_risk_changes_list_the_users_sites_only(client, here_and_there
 def test_plan_downloads_hold_the_users_sites_only(client, here_and_there, file_format):
     mine = here_and_there["HERE"]
     client.force_login(limited(PLANNER, mine.motor.site))
-    for query in ({"days": 365}, {"days": 365, "site": "THERE"}):
+    elsewhere = client.get(reverse("plan_export", args=[file_format]), {"days": 365, "site": "THERE"})
+    assert elsewhere.status_code == 400 and b"site" in elsewhere.content  # refused by name, not the whole plan
+    for query in ({"days": 365}, {"days": 365, "site": "HERE"}):
         response = client.get(reverse("plan_export", args=[file_format]), query)
         if file_format == "csv":
             lines = b"".join(response.streaming_content).decode("utf-8-sig").splitlines()[1:]

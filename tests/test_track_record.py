@@ -104,7 +104,7 @@ def test_a_finished_back_test_shows_its_stored_figures(client, engineer):
     ]
 
     for cutoff in results["cutoffs"]:
-        assert f'<td class="nowrap">{cutoff["cutoff"]}</td>' in body
+        assert f'<td class="nowrap" data-label="Cut-off">{cutoff["cutoff"]}</td>' in body
     assert ">-</td>" in body  # later cut-offs saw no crossing: a dash, not "None"
     assert "None" not in body
     for code in results["pooled"]["calibrated"]["part"]:

@@ -261,6 +261,7 @@ def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(sign
     client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
     body = client.get(reverse("work_orders")).content.decode()
     assert fitted_capacitors[0].motor.asset_tag in body and "Visit sheet" in body
+    assert "never a screwdriver" in body and "Local codes" in body  # the orders send technicians to motors
     site = fitted_capacitors[0].motor.site
     day = WorkOrder.objects.get(fitted_capacitor=fitted_capacitors[0]).due_on.isoformat()
     sheet = client.get(reverse("visit_sheet", args=[site.code, day])).content.decode()

@@ -229,13 +229,10 @@ PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
 def plan_table(query, user, request=None) -> Table:
     """The replacement plan as the plan page shows it (site and horizon from the query string)."""
     site, horizon, problems = plan_parameters(query, request=request)
-    unreadable = [problem for problem in problems if not problem.startswith("site:")]
-    if unreadable:  # a horizon that cannot be read is refused by name, never taken as the default
-        raise BadFilter("; ".join(unreadable))
+    if problems:  # a file cannot carry the page's note: a horizon or site it cannot use is refused by name,
+        raise BadFilter("; ".join(problems))  # as the other exports refuse theirs, never taken as the default
     rows = _rows(pages.replacement_plan(horizon, site, user), PLAN_COLUMNS)
-    # A site the user does not work at is ignored as on the plan page (the rows stay the user's own); the
-    # sidecar says so.
-    about = _about(query, horizon_days=horizon, site=site.code if site else None, ignored=problems)
+    about = _about(query, horizon_days=horizon, site=site.code if site else None)
     return Table("replacement plan", PLAN_COLUMNS, rows, about)
 
 

@@ -15,7 +15,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.rules import RULES
-from fleet.filters import LabelsPage, RoutePage, page_values
+from fleet.filters import LabelsPage, RoutePage, list_page, page_values
 from fleet.forms import LOCAL_MINUTE, ReadingForm, ReplacementForm
 from fleet.models import CapacitorPart, Motor, Site
 from fleet.roles import scope_to_user
@@ -187,7 +187,7 @@ def site_route(request, site_code):
     motors, counts, quarter_start = pages.route_for_site(site, only_due=only_due)
     context = {
         "site": site,
-        "page": Paginator(motors, ROUTE_PAGE_SIZE).get_page(request.GET.get("page")),
+        "page": list_page(request, Paginator(motors, ROUTE_PAGE_SIZE).get_page),
         "total": counts["total"],
         "due": counts["due"],
         "only_due": only_due,
@@ -222,7 +222,7 @@ def labels(request, site_code):
     tag = values.get("tag")
     if tag:
         motors = motors.filter(asset_tag=tag)
-    page = Paginator(motors, LABELS_PAGE_SIZE).get_page(request.GET.get("page"))
+    page = list_page(request, Paginator(motors, LABELS_PAGE_SIZE).get_page)
     labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
     return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page, "tag": tag})
 

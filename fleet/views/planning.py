@@ -13,7 +13,7 @@ from django.shortcuts import get_object_or_404, redirect, render
 from django.utils import timezone
 
 from fleet.exports import Column, Table, stream_csv
-from fleet.filters import plan_parameters
+from fleet.filters import list_page, plan_parameters
 from fleet.models import Site
 from fleet.roles import scope_to_user
 from fleet.services import pages
@@ -30,8 +30,7 @@ def plan(request):
     site, horizon, problems = plan_parameters(request.GET, request=request)
     for problem in problems:
         messages.warning(request, f"Ignored {problem}")
-    paginator = Paginator(pages.replacement_plan(horizon, site, request.user), 50)
-    page = paginator.get_page(request.GET.get("page"))
+    page = list_page(request, Paginator(pages.replacement_plan(horizon, site, request.user), 50).get_page)
     context = {
         "page": page,
         "horizon": horizon,
@@ -75,7 +74,7 @@ def work_orders(request):
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
-    page = open_visits_page(request.GET.get("page"), user=request.user)
+    page = list_page(request, lambda number: open_visits_page(number, user=request.user))
     return render(request, "fleet/work_orders.html", {"page": page, "visits": page.object_list})
 
 
@@ -87,9 +86,10 @@ def visit_sheet(request, site_code, day):
         visit = open_visit(site.id, dt.date.fromisoformat(day), user=request.user)
     except ValueError:
         raise Http404("No open work orders for that visit") from None
-    page = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE).get_page(request.GET.get("page"))
-    if not page.paginator.count:
+    paginator = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE)
+    if not paginator.count:
         raise Http404("No open work orders for that visit")
+    page = list_page(request, paginator.get_page)
     return render(request, "fleet/visit_sheet.html", {"visit": visit, "site": site, "page": page})
 
 

@@ -120,3 +120,47 @@ def test_what_was_typed_survives_a_lost_connection(phone, motor_with_history):
     phone.goto(url)
     assert not phone.is_visible("#draft-note")
     assert phone.input_value("#id_capacitance_uf") == ""
+
+
+MENU = r"""() => {
+  const shown = [...document.querySelectorAll("header a, header summary, header button")].filter((e) =>
+    e.checkVisibility({visibilityProperty: true, contentVisibilityAuto: true}));
+  return {
+    rows: new Set(shown.map((e) => Math.round(e.getBoundingClientRect().top))).size,
+    targets: shown.map((e) => {
+      const box = e.getBoundingClientRect();
+      return {text: e.textContent.trim(), width: box.width, height: box.height};
+    }),
+    page: document.documentElement.scrollWidth,
+  };
+}"""
+
+
+def test_the_technicians_menu_fits_two_rows_of_glove_sized_targets_on_a_phone(phone, browser, live_server):
+    """At 390 px the menu wrapped to three rows of 42 px links and a 30 px sign-out button. Now: at most two
+    rows, every target at least 44 px (WCAG 2.2 target size, enhanced), the field pages in front and the
+    others one tap away under More; at 1366 px every link in view without a tap."""
+    user = make_user("technician")
+    sign_in(phone, user)
+    menu = phone.evaluate(MENU)
+    texts = [target["text"] for target in menu["targets"]]
+    assert menu["rows"] <= 2, menu
+    assert all(t["height"] >= 44 and t["width"] >= 44 for t in menu["targets"]), menu["targets"]
+    assert {"Fleet", "Find motor", "Work orders", "Import", "Sign out"} <= set(texts), texts
+    assert "Track record" not in texts and menu["page"] <= 390
+    phone.shot("menu-technician-390")
+    phone.click("header >> text=More")
+    opened = [target["text"] for target in phone.evaluate(MENU)["targets"]]
+    assert {"Dashboard", "Replacement plan", "Life data", "Track record", "Refits"} <= set(opened), opened
+    phone.shot("menu-technician-390-more")
+    phone.click("header >> text=Track record")
+    phone.wait_for_url("**/forecast/track-record/")
+
+    desktop = browser.new_context(viewport={"width": 1366, "height": 900}, base_url=live_server.url).new_page()
+    sign_in(desktop, user)
+    every = [target["text"] for target in desktop.evaluate(MENU)["targets"]]
+    assert "More" not in every
+    assert {"Find motor", "Work orders", "Import", "Dashboard", "Replacement plan", "Track record", "Refits"} <= set(
+        every
+    ), every
+    desktop.context.close()
