@@ -21,7 +21,9 @@ Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
    Paths bend: z = b0 + b1 tau + c tau^2. The part's c is the pooled mean of
    its capacitors' own quadratic bends (DerSimonian-Laird, shrunk towards none
    by its standard error); each capacitor's c is its own bend shrunk to the
-   part's (normal-normal posterior mean), and it then fits z - c tau^2 with the
+   part's (normal-normal posterior mean) or, for film, to the part's bend
+   conditioned on the capacitor's own slope (random-coefficient paths, Lu and
+   Meeker, Technometrics 35, 1993; from memory), and it then fits z - c tau^2 with the
    2-parameter prior above, whose slope mean is a line in the readings' mean
    stress age. Parametric empirical Bayes with covariates (Morris, JASA 78,
    1983; from memory): a young capacitor gets the slope of its part's young

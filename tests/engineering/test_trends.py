@@ -55,7 +55,7 @@ def simulate(n_capacitors=3000, seed=11, readings=(1, 13), noise=0.006, log_path
     )
 
 
-def fit(sim, temperature_as_reference=True, **kwargs):
+def fit(sim, temperature_as_reference=True, dielectric=None, **kwargs):
     n = len(sim["part"])
     # Hold stress time = calendar time: acceleration 1 at 40 C, rated voltage.
     return fit_trends(
@@ -68,6 +68,7 @@ def fit(sim, temperature_as_reference=True, **kwargs):
         np.full(sim["group"].size, 400.0),
         np.full(n, 400.0),
         settings=TrendSettings(doubling_k=1e9, **kwargs),
+        dielectric=dielectric,
     )
 
 
@@ -272,19 +273,7 @@ def test_film_paths_whose_bend_grows_with_their_slope_are_projected_closer_condi
     sim["capacitance_uf"] = sim["capacitance_uf"] + 10.0 * own[sim["group"]] * sim["time_h"] ** 2
 
     def year_ahead_error(dielectric):
-        n = len(sim["part"])
-        result = fit_trends(
-            sim["group"],
-            sim["part"],
-            sim["time_h"],
-            sim["capacitance_uf"],
-            np.full(n, 10.0),
-            sim["temperature_c"],
-            np.full(sim["group"].size, 400.0),
-            np.full(n, 400.0),
-            settings=TrendSettings(doubling_k=1e9, model=MODEL_LINEAR),
-            dielectric=dielectric,
-        )
+        result = fit(sim, dielectric=dielectric, model=MODEL_LINEAR)
         tau = result.stress_hours_now + 8766.0
         truth = sim["intercept"] + sim["slope"] * tau + own * tau**2
         return np.median(np.abs(result.mean_at(tau) - truth)), np.corrcoef(result.bend(), own)[0, 1]
