@@ -687,6 +687,13 @@ class PartPrior(models.Model):
         blank=True,
         help_text="Median measured capacitor voltage / rated, for capacitors never read in circuit",
     )
+    bend_slope_mean = models.FloatField(
+        default=0.0, help_text="Mean of the capacitors' own slopes at their readings' centre, per stress hour"
+    )
+    bend_slope_var = models.FloatField(default=0.0, help_text="Variance of those slopes between the part's capacitors")
+    bend_slope_cov = models.FloatField(
+        default=0.0, help_text="Covariance of the bend with that slope between the part's capacitors (0: bend alone)"
+    )
     updated_at = models.DateTimeField(auto_now=True)
 
     def __str__(self):

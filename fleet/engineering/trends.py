@@ -21,7 +21,9 @@ Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
    Paths bend: z = b0 + b1 tau + c tau^2. The part's c is the pooled mean of
    its capacitors' own quadratic bends (DerSimonian-Laird, shrunk towards none
    by its standard error); each capacitor's c is its own bend shrunk to the
-   part's (normal-normal posterior mean), and it then fits z - c tau^2 with the
+   part's (normal-normal posterior mean) or, for film, to the part's bend
+   conditioned on the capacitor's own slope (random-coefficient paths, Lu and
+   Meeker, Technometrics 35, 1993; from memory), and it then fits z - c tau^2 with the
    2-parameter prior above, whose slope mean is a line in the readings' mean
    stress age. Parametric empirical Bayes with covariates (Morris, JASA 78,
    1983; from memory): a young capacitor gets the slope of its part's young
@@ -81,6 +83,10 @@ class TrendSettings:
     min_capacitors_for_curvature: int = 5  # rich capacitors of a part before its curvature is estimated
     min_readings_for_confidence: int = 3
     model: str = "auto"  # "linear", "log-linear" or "auto" (per part, smaller noise)
+    # Dielectrics whose prior bend is conditioned on the capacitor's own slope (`_conditional_bend`):
+    # film, whose self-healing clears area faster the more it has lost; an electrolytic's drying-out
+    # sets in late whatever its early slope, and conditioned it lost recall (docs/engineering.md 7).
+    bend_given_slope_dielectrics: tuple[str, ...] = (DIELECTRIC_FILM,)
 
 
 def default_tempco_ppm_per_k(dielectric, settings: TrendSettings | None = None) -> np.ndarray:
@@ -109,6 +115,9 @@ class PartPriors:
     curvature_var: np.ndarray | None = None  # its variance between the part's capacitors
     slope_per_age: np.ndarray | None = None  # change of the prior slope b1 per stress hour of mean age
     voltage_ratio: np.ndarray | None = None  # median measured capacitor voltage / rated (nan: none measured)
+    bend_slope_mean: np.ndarray | None = None  # mean of the capacitors' own slopes at their readings' centre
+    bend_slope_var: np.ndarray | None = None  # their variance between capacitors
+    bend_slope_cov: np.ndarray | None = None  # covariance of the bend with that slope between capacitors
 
 
 @dataclass(frozen=True)
@@ -258,6 +267,7 @@ def fit_trends(
     tempco_fixed=None,
     model_per_capacitor=None,
     straight_per_capacitor=None,
+    dielectric=None,
 ) -> TrendFit:
     """Fit every capacitor's path at once.
 
@@ -273,6 +283,8 @@ def fit_trends(
     `model_per_capacitor` ("linear", "log-linear", or "" to choose by noise) sets
     the form of each capacitor's part, as a back-test chose it; `straight_per_capacitor`
     (bool) marks capacitors whose part is fitted without a bend (`PATH_STRAIGHT`, likewise).
+    `dielectric` per capacitor: parts of `settings.bend_given_slope_dielectrics` get each
+    capacitor's prior bend conditioned on its own slope (None: no part does).
     """
     settings = settings or TrendSettings()
     group = np.asarray(group, np.int64)
@@ -333,6 +345,9 @@ def fit_trends(
     straight_part = np.zeros(n_parts, bool)
     if straight_per_capacitor is not None and n_groups:
         straight_part[part[np.asarray(straight_per_capacitor, bool)]] = True
+    conditional_part = np.zeros(n_parts, bool)
+    if dielectric is not None and n_groups:
+        conditional_part[part[np.isin(np.asarray(dielectric), settings.bend_given_slope_dielectrics)]] = True
     fits = {}
     wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}
     for model in (MODEL_LINEAR, MODEL_LOG):
@@ -353,6 +368,7 @@ def fit_trends(
             model == MODEL_LOG,
             priors,
             straight_part,
+            conditional_part,
         )
     if priors is not None:
         chosen = np.asarray(priors.model)
@@ -418,17 +434,34 @@ def fit_trends(
             curvature_var=pick("curvature_var_part", "part"),
             slope_per_age=pick("slope_per_age", "part"),
             voltage_ratio=part_voltage_ratio,
+            bend_slope_mean=pick("bend_slope_mean", "part"),
+            bend_slope_var=pick("bend_slope_var", "part"),
+            bend_slope_cov=pick("bend_slope_cov", "part"),
         ),
         curvature=curvature,
     )
 
 
 def _fit_model(
-    g, part, tau, z, fraction, keep, recency, n_groups, n_parts, settings, is_log, priors=None, straight_part=None
+    g,
+    part,
+    tau,
+    z,
+    fraction,
+    keep,
+    recency,
+    n_groups,
+    n_parts,
+    settings,
+    is_log,
+    priors=None,
+    straight_part=None,
+    conditional_part=None,
 ):
     """One model (linear or log-linear) for the fleet: prior, posterior, flags.
 
     Parts marked in `straight_part` get no bend: neither the part's nor their capacitors' own.
+    Parts marked in `conditional_part` condition each capacitor's prior bend on its own slope.
 
     A reading of recency weight w counts as one of variance sigma^2 / w
     (weighted least squares), in the population estimates and the posterior alike.
@@ -442,16 +475,23 @@ def _fit_model(
         z_safe = np.where(used, z, 0.0)
         if priors is not None:
             curvature, curvature_var = _stored(priors.curvature, n_parts), _stored(priors.curvature_var, n_parts)
+            stored_joint = (priors.bend_slope_mean, priors.bend_slope_var, priors.bend_slope_cov)
+            joint = tuple(_stored(v, n_parts) for v in stored_joint)
             noise_of = np.asarray(priors.noise_var, float)[part]
             own, sampling, quadratic = _own_curvature(g, tau, z_safe, w, used, count, n_groups, noise_of)
+            own_slope, own_slope_var = _own_slope(g, tau, z_safe, w, count, n_groups, noise_of)
         else:
-            curvature, curvature_var, own, sampling, quadratic = _part_curvature(
+            curvature, curvature_var, own, sampling, quadratic, own_slope, own_slope_var, joint = _part_curvature(
                 g, part, tau, z_safe, w, used, count, n_groups, n_parts, settings
             )
         if straight_part is not None:
             curvature = np.where(straight_part, 0.0, curvature)
             curvature_var = np.where(straight_part, 0.0, curvature_var)
-        bend = _capacitor_bend(curvature[part], curvature_var[part], own, sampling, quadratic)
+            joint = tuple(np.where(straight_part, 0.0, v) for v in joint)
+        if conditional_part is not None:
+            joint = tuple(np.where(conditional_part, v, 0.0) for v in joint)
+        part_bend, part_bend_var = _conditional_bend(part, curvature, curvature_var, *joint, own_slope, own_slope_var)
+        bend = _capacitor_bend(part_bend, part_bend_var, own, sampling, quadratic)
         if straight_part is not None:
             bend = np.where(straight_part[part], 0.0, bend)
         # Each capacitor fits its path less its bend: z - c_i tau^2 = b0 + b1 tau.
@@ -526,6 +566,9 @@ def _fit_model(
         "noise_var": noise_var,
         "curvature_part": curvature,
         "curvature_var_part": curvature_var,
+        "bend_slope_mean": joint[0],
+        "bend_slope_var": joint[1],
+        "bend_slope_cov": joint[2],
         "bend": bend,
         "slope_per_age": slope_per_age,
         "capacitors": np.bincount(part, weights=rich.astype(float), minlength=n_parts).astype(int)
@@ -612,7 +655,60 @@ def _part_curvature(g, part, tau, z_safe, w, used, count, n_groups, n_parts, set
     usable = (capacitors >= settings.min_capacitors_for_curvature) & np.isfinite(bend)
     bend = np.minimum(np.where(usable, bend, 0.0), 0.0)
     spread = np.where((bend < 0) & np.isfinite(between), between, 0.0)  # no bend established: none to spread
-    return bend, spread, own, sampling, quadratic
+    own_slope, own_slope_var = _own_slope(g, tau, z_safe, w, count, n_groups, noise_var[part])
+    joint = _bend_slope_moments(part, n_parts, own, sampling, quadratic, own_slope, own_slope_var, between, settings)
+    joint = tuple(np.where(bend < 0, v, 0.0) for v in joint)  # no bend established: none to condition
+    return bend, spread, own, sampling, quadratic, own_slope, own_slope_var, joint
+
+
+def _own_slope(g, tau, z_safe, w, count, n_groups, noise_var):
+    """Each capacitor's own weighted least-squares slope at its readings' centre and its
+    sampling variance (inf with fewer than three readings or no spread in stress time)."""
+    n, sx, sz, sxx, sxz = _group_sums(g, tau, z_safe, w, n_groups)
+    _, slope, sxx_c = _ols(n, sx, sz, sxx, sxz)
+    rich = (count >= 3) & (sxx_c > 1e-9 * np.maximum(sxx, 1.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(rich, slope, 0.0), np.where(rich, noise_var / sxx_c, np.inf)
+
+
+def _bend_slope_moments(part, n_parts, own, sampling, quadratic, slope, slope_var, bend_between, settings):
+    """Per part, the joint population of the capacitors' bends and slopes (random coefficients,
+    Lu and Meeker, Technometrics 35, 1993; from memory): the slopes' mean and variance between
+    capacitors (DerSimonian-Laird, as `_part_moments`), and the covariance of bend and slope
+    by the method of moments over the capacitors with their own quadratic, weighted
+    1 / (sampling + between) on the bend. Returns (slope mean, slope variance, covariance)."""
+    rich = np.isfinite(slope_var)
+    mean, variance = _part_moments(
+        part, n_parts, slope, np.where(rich, slope_var, 1.0), rich, floor=0.0, default_mean=0.0, default_var=0.0
+    )
+    both = quadratic & rich
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weight = np.where(both, 1.0 / (sampling + bend_between[part]), 0.0)
+        sw = np.bincount(part, weights=weight, minlength=n_parts)
+        bend_mean = np.bincount(part, weights=weight * np.where(both, own, 0.0), minlength=n_parts) / sw
+        cross = np.where(both, (own - bend_mean[part]) * (slope - mean[part]), 0.0)
+        covariance = np.bincount(part, weights=weight * cross, minlength=n_parts) / sw
+        # A covariance cannot exceed the product of the two spreads.
+        bound = 0.95 * np.sqrt(np.maximum(variance, 0.0) * np.maximum(bend_between, 0.0))
+    count = np.bincount(part, weights=both.astype(float), minlength=n_parts)
+    usable = (count >= settings.min_capacitors_for_curvature) & np.isfinite(covariance) & np.isfinite(bound)
+    covariance = np.where(usable, np.clip(covariance, -bound, bound), 0.0)
+    return np.where(usable, mean, 0.0), np.where(usable, variance, 0.0), covariance
+
+
+def _conditional_bend(part, bend, bend_var, slope_mean, slope_var, covariance, own_slope, own_slope_var):
+    """Each capacitor's prior bend: its part's, conditioned on its own observed slope under the
+    joint normal population of bend and slope (the conditional mean and variance of a
+    bivariate normal, the slope observed with its sampling error). A flat capacitor is
+    thus not pulled towards its part's bend as far as a steep one. Per capacitor."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        total = slope_var[part] + own_slope_var
+        gain = np.where((total > 0) & np.isfinite(total), covariance[part] / total, 0.0)
+        mean = bend[part] + gain * (own_slope - slope_mean[part])
+        variance = np.maximum(bend_var[part] - gain * covariance[part], 0.0)
+    return np.minimum(np.where(np.isfinite(mean), mean, bend[part]), 0.0), np.where(
+        np.isfinite(mean), variance, bend_var[part]
+    )
 
 
 def _stored(values, n_parts: int, fill: float = 0.0) -> np.ndarray:

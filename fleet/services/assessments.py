@@ -137,6 +137,7 @@ def fit_frames(
         tempco_fixed=~np.isnan(own_tempco),
         model_per_capacitor=inst["dielectric"].map(forms).astype(object).fillna("").to_numpy(object),
         straight_per_capacitor=(inst["dielectric"].map(shapes) == PATH_STRAIGHT).to_numpy(bool),
+        dielectric=inst["dielectric"].to_numpy(str),
     )
 
 
@@ -152,6 +153,9 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
             ("curvature_per_h2", priors.curvature),
             ("curvature_var", priors.curvature_var),
             ("slope_per_age", priors.slope_per_age),
+            ("bend_slope_mean", priors.bend_slope_mean),
+            ("bend_slope_var", priors.bend_slope_var),
+            ("bend_slope_cov", priors.bend_slope_cov),
         )
     }
     finite = np.isfinite(values).all(axis=0) & (values[[1, 3, 4]] > 0).all(axis=0)
@@ -207,6 +211,7 @@ def _stored_priors(part_ids) -> PartPriors:
     defaults = {"trend_model": MODEL_LINEAR, "intercept_mean": 1.0, "intercept_var": 0.05**2, "slope_mean": 0.0}
     defaults.update({"slope_var": 1e-10, "noise_var": 1e-4, "capacitors": 0, "tempco_ppm_per_k": 0.0})
     defaults.update({"curvature_per_h2": 0.0, "curvature_var": 0.0, "slope_per_age": 0.0})
+    defaults.update({"bend_slope_mean": 0.0, "bend_slope_var": 0.0, "bend_slope_cov": 0.0})
     frame = frame.fillna(defaults)  # a part whose every capacitor was unusable: broad defaults
     return PartPriors(
         model=frame["trend_model"].to_numpy(),
@@ -220,6 +225,9 @@ def _stored_priors(part_ids) -> PartPriors:
         curvature=frame["curvature_per_h2"].to_numpy(float),
         curvature_var=frame["curvature_var"].to_numpy(float),
         slope_per_age=frame["slope_per_age"].to_numpy(float),
+        bend_slope_mean=frame["bend_slope_mean"].to_numpy(float),
+        bend_slope_var=frame["bend_slope_var"].to_numpy(float),
+        bend_slope_cov=frame["bend_slope_cov"].to_numpy(float),
         voltage_ratio=frame["voltage_ratio"].to_numpy(float) if "voltage_ratio" in frame else None,
     )
 
