@@ -6,7 +6,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('fleet', '0026_reading_by_taken_at'),
+        ('fleet', '0027_import_permissions'),
     ]
 
     operations = [
