@@ -191,3 +191,29 @@ def test_the_life_data_page_shows_the_stored_fit_as_a_fit_on_request_would(tmp_p
     plot_t, plot_f = probability_plot_points(years, failed)
     assert np.allclose(stored["plot_points"][0], plot_t) and np.allclose(stored["plot_points"][1], plot_f)
     assert stored["next_year_failure"] == pytest.approx(np.mean(fresh.conditional_failure(years[~failed], 1.0)))
+
+
+def test_an_assessment_holds_its_capacitors_facts_whether_the_refit_sends_them_or_the_database_looks_them_up():
+    """[derived] A refit sends each row's in-service flag, site, part and fitting date (read under its
+    lock); a row written without them gets them from the database's trigger. Either way they are the
+    capacitor's own, as a join gives them."""
+    site, elsewhere = make_site("FACTS-A"), make_site("FACTS-B")
+    refitted = make_fitted_capacitor(motor=make_motor(site=site), fitted_on=dt.date(2022, 4, 1))
+    quarterly_readings(refitted, timezone.now() - dt.timedelta(days=400), SOUND)
+    refit_fitted_capacitors([refitted.id], force=True)
+    unread = make_fitted_capacitor(motor=make_motor(site=elsewhere), part=make_part(code="RUN-6U-F"))
+    looked_up = stored_assessment(unread, "watch", timezone.localdate() + dt.timedelta(days=90))
+    stored = Assessment.objects.values_list(
+        "fitted_capacitor_id", "capacitor_in_service", "site_id", "part_id", "fitted_on"
+    ).order_by("id")
+    joined = Assessment.objects.values_list(
+        "fitted_capacitor_id",
+        "fitted_capacitor__removed_on",
+        "fitted_capacitor__motor__site_id",
+        "fitted_capacitor__part_id",
+        "fitted_capacitor__fitted_on",
+    ).order_by("id")
+    expected = [(c, removed is None, s, p, f) for c, removed, s, p, f in joined]
+    assert list(stored) == expected
+    assert [row[0] for row in stored] == [refitted.id, unread.id]  # sent by the refit, looked up
+    assert Assessment.objects.filter(pk=looked_up.pk, site=elsewhere).exists()

@@ -235,6 +235,9 @@ class CapacitanceLimits:
     governing_limit: np.ndarray
 
 
+SCAN_POINTS_PER_SOLVE = 20_000
+
+
 def capacitance_limits(
     circuit: MotorCircuit,
     load: Load,
@@ -254,31 +257,47 @@ def capacitance_limits(
     The grid (5 % of rated with the defaults) finds the first fraction that breaches each
     limit; bisection on the same breach rule then narrows that step to `tolerance` of rated,
     so the crossing is where the curve drawn against capacitance meets the limit's level.
+    Each solve takes many fractions of every motor at once (the whole grid, then one bisection
+    step of every limit): a fleet has few designs, so the number of solves is what costs.
     """
     role = np.asarray(role)
     levels = limit_levels(load, role, full_load_current_a, capacitor_rated_voltage_v, limits)
     column_levels = LimitLevels(*(_column(getattr(levels, name)) for name in levels.__dataclass_fields__))
     fractions_grid = np.linspace(1.0, lowest_fraction, steps)
+    per_motor = (circuit.r1m, role, motor_kind, rated_run_uf, rated_start_uf, load.torque_at_rated_nm)
+    motors = np.broadcast_shapes(*(np.shape(x) for x in (*per_motor, *vars(levels).values())))
+    # Columns per solve: memory stays about that of SCAN_POINTS_PER_SOLVE points at once.
+    columns_per_solve = max(1, SCAN_POINTS_PER_SOLVE // max(int(np.prod(motors)), 1))
 
-    def breached_at(fraction):
-        """Breach per limit and motor, `fraction` a scalar or one per motor."""
-        sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, _column(fraction))
-        return limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, _column(role))[..., 0]
+    def breached_at(fractions):
+        """Breach per limit, motor and column of `fractions` (*motors, j): shape (limits, *motors, j).
+        Each point is solved on its own (the solver is elementwise), so the blocks change no figure."""
+        fractions = np.broadcast_to(np.asarray(fractions, float), (*motors, np.shape(fractions)[-1]))
+        blocks = []
+        for start in range(0, fractions.shape[-1], columns_per_solve):
+            block = fractions[..., start : start + columns_per_solve]
+            sweep = capacitor_sweep(circuit, load, motor_kind, role, rated_run_uf, rated_start_uf, block)
+            blocks.append(limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, _column(role)))
+        return np.concatenate(blocks, axis=-1)
 
-    # One fraction per solve: a solve that must run its whole slip grid for one stalled point
-    # would otherwise run it for every point, and memory stays that of one fleet-wide solve.
-    breached = np.stack([breached_at(fraction) for fraction in fractions_grid], axis=-1)
+    breached = breached_at(fractions_grid)
     crossed = breached.any(axis=-1)
     first = np.argmax(breached, axis=-1)
     breaching = fractions_grid[first]
     passing = np.where(first == 0, breaching, fractions_grid[np.maximum(first - 1, 0)])
-    for k in range(len(LIMIT_NAMES)):  # one limit at a time (the motors may have no axis)
-        narrowing = crossed[k] & (first[k] > 0)
-        while np.any(narrowing & (passing[k] - breaching[k] > tolerance)):
-            middle = np.where(narrowing, 0.5 * (passing[k] + breaching[k]), 1.0)
-            breaches = breached_at(middle)[k]
-            breaching[k] = np.where(narrowing & breaches, middle, breaching[k])
-            passing[k] = np.where(narrowing & ~breaches, middle, passing[k])
+    narrowing = crossed & (first > 0)
+    per_limit = (len(LIMIT_NAMES),) + (1,) * len(motors)
+    limit_index = np.arange(len(LIMIT_NAMES))
+    while True:
+        # A limit is narrowed, all its crossing motors together, until each is within tolerance.
+        open_limits = (narrowing & (passing - breaching > tolerance)).reshape(len(LIMIT_NAMES), -1).any(axis=1)
+        if not open_limits.any():
+            break
+        stepping = narrowing & open_limits.reshape(per_limit)
+        middle = np.where(stepping, 0.5 * (passing + breaching), 1.0)
+        breaches = breached_at(np.moveaxis(middle, 0, -1))[limit_index, ..., limit_index]
+        breaching = np.where(stepping & breaches, middle, breaching)
+        passing = np.where(stepping & ~breaches, middle, passing)
     crossing = np.where(crossed, 0.5 * (passing + breaching), np.nan)
     with np.errstate(invalid="ignore"):
         governing = np.nanmax(np.where(np.isnan(crossing), -np.inf, crossing), axis=0)

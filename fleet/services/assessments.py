@@ -380,10 +380,11 @@ class Assessed:
 
 def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.DataFrame:
     """Operating figures of the motors with a circuit (at `index`) as a frame of n rows, nan elsewhere."""
-    frame = pd.DataFrame(index=range(n), columns=list(OperatingFigures.__dataclass_fields__), dtype=float)
-    for name in frame.columns:
-        frame.loc[index, name] = np.atleast_1d(getattr(figures, name)).astype(float)
-    return frame
+    names = list(OperatingFigures.__dataclass_fields__)
+    values = np.full((n, len(names)), np.nan)
+    for column, name in enumerate(names):
+        values[index, column] = np.atleast_1d(getattr(figures, name)).astype(float)
+    return pd.DataFrame(values, columns=names)
 
 
 def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
@@ -669,12 +670,7 @@ def refit_fitted_capacitors(
         # Two refits of one capacitor at once (two readings saved together, two workers) take
         # turns from here: the second then sees the first's assessment, marks it superseded
         # instead of inserting a second current one, and writes nothing older over it.
-        list(
-            FittedCapacitor.objects.select_for_update()
-            .filter(pk__any_of=inst.index.to_numpy(np.int64))
-            .order_by("pk")
-            .values_list("pk", flat=True)
-        )
+        facts = _capacitor_facts_locked(inst.index.to_numpy(np.int64))
         current = _current_assessments(rows["fitted_capacitor_id"].to_numpy(np.int64))
         if not as_of:
             rows = _not_older_than(rows, current)
@@ -682,8 +678,35 @@ def refit_fitted_capacitors(
         Assessment.objects.filter(
             fitted_capacitor_id__any_of=rows["fitted_capacitor_id"].to_numpy(np.int64), is_current=True
         ).update(is_current=False)
-        insert_frame(Assessment, rows)
+        insert_frame(Assessment, _with_capacitor_facts(rows, facts))
     return RefitOutcome(written=len(rows), skipped=len(ids) - len(rows), readings=int(len(readings)))
+
+
+FACT_COLUMNS = ["capacitor_in_service", "site_id", "part_id", "fitted_on"]
+
+
+def _capacitor_facts_locked(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
+    """Lock the capacitors' rows (in id order) and read what each new assessment stores of its
+    capacitor: in service, its motor's site, its part, its fitting date; indexed by capacitor.
+
+    Read under the lock, so a capacitor removed or moved meanwhile is seen as it is now: the same
+    facts the database's trigger would look up for a row sent without them (migration 0027).
+    """
+    rows = (
+        FittedCapacitor.objects.select_for_update(of=("self",))
+        .filter(pk__any_of=fitted_capacitor_ids)
+        .order_by("pk")
+        .values_list("pk", "removed_on", "motor__site_id", "part_id", "fitted_on")
+    )
+    frame = pd.DataFrame.from_records(list(rows), columns=["fitted_capacitor_id", "removed_on", *FACT_COLUMNS[1:]])
+    frame["capacitor_in_service"] = frame.pop("removed_on").isna()
+    return frame.set_index("fitted_capacitor_id")[FACT_COLUMNS]
+
+
+def _with_capacitor_facts(rows: pd.DataFrame, facts: pd.DataFrame) -> pd.DataFrame:
+    """The assessment rows with their capacitors' facts as columns (the row trigger then skips them)."""
+    found = facts.reindex(rows["fitted_capacitor_id"].to_numpy())
+    return rows.assign(**{name: found[name].to_numpy() for name in FACT_COLUMNS})
 
 
 CURRENT_COLUMNS = ["fitted_capacitor_id", "max_reading_id", "risk", "risk_was", "risk_changed_at"]

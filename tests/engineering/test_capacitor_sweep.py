@@ -193,3 +193,19 @@ def test_a_start_capacitor_sets_no_main_current_level():
     levels = limit_levels(load, np.array([ROLE_RUN, ROLE_START]), 0.95, 450.0)
     assert np.isfinite(levels.main_current_a[0]) and np.isnan(levels.main_current_a[1])
     assert levels.starting_torque_nm == pytest.approx(0.3 * load.torque_at_rated_nm)  # fan break-away [trade]
+
+
+def test_the_scan_gives_the_same_crossings_whatever_it_solves_at_once(monkeypatch):
+    """[derived] the solver is elementwise, so solving every grid point and every limit's bisection
+    step together gives bit for bit the crossings of solving one fraction at a time
+    (a speed-only change must change no figure)."""
+    from fleet.engineering import drift
+
+    c, load, kind, start_uf = _fan_and_two_value_fleet()
+    role = np.array([ROLE_RUN, ROLE_START])
+    together = capacitance_limits(c, load, kind, role, 4.0, start_uf, 0.95, 450.0)
+    monkeypatch.setattr(drift, "SCAN_POINTS_PER_SOLVE", 1)
+    one_at_a_time = capacitance_limits(c, load, kind, role, 4.0, start_uf, 0.95, 450.0)
+    assert np.isfinite(together.fractions).sum() >= 2
+    for name in ("fractions", "governing_fraction", "governing_limit"):
+        assert np.array_equal(getattr(together, name), getattr(one_at_a_time, name), equal_nan=True)
