@@ -38,7 +38,7 @@ POSTGRES_BACKWARD = [
 
 
 class Migration(migrations.Migration):
-    dependencies = [("fleet", "0026_reading_by_taken_at")]
+    dependencies = [("fleet", "0028_bend_given_slope")]
 
     operations = [
         migrations.RunPython(run({"postgresql": POSTGRES_FORWARD}), run({"postgresql": POSTGRES_BACKWARD})),
