@@ -690,7 +690,7 @@ def _capacitor_facts_locked(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
     capacitor: in service, its motor's site, its part, its fitting date; indexed by capacitor.
 
     Read under the lock, so a capacitor removed or moved meanwhile is seen as it is now: the same
-    facts the database's trigger would look up for a row sent without them (migration 0027).
+    facts the database's trigger would look up for a row sent without them (migration 0029).
     """
     rows = (
         FittedCapacitor.objects.select_for_update(of=("self",))
