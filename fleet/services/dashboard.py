@@ -8,13 +8,19 @@ result rows bounded by weeks, months, parts and sites, never by capacitors.
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
+import json
 from collections import Counter
+from pathlib import Path
 
 import numpy as np
+from django.core.cache import cache
+from django.core.serializers.json import DjangoJSONEncoder
 from django.db.models import Case, Count, DateField, F, OuterRef, Q, Subquery, Sum, Value, When
 from django.db.models.functions import Cast, TruncMonth, TruncWeek
 from django.utils import timezone
 
+from fleet import charts
 from fleet.charts import risk_mix_figure, routes_figure, spares_figure, stock_figure, workload_figure
 from fleet.engineering.lifedata import expected_failures
 from fleet.engineering.planning import RISK_ORDER
@@ -348,6 +354,25 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     }
 
 
+# The chart builders' own code is part of each cached figure's key: a new release builds them anew.
+CHARTS_CODE = hashlib.sha256(Path(charts.__file__).read_bytes()).hexdigest()[:16]
+FIGURE_CACHE_SECONDS = 24 * 3600
+
+
+def cached_figure(builder, *numbers) -> dict:
+    """The figure `builder(*numbers)` from Django's cache, keyed by a digest of the numbers it is
+    built from (and the chart code): building one through Plotly's graph objects takes tens of
+    milliseconds, the numbers change only with a reading, refit, order or stock change, and any
+    change to them is a new key (in their order too), so a cached figure is never stale."""
+    digest = hashlib.sha256(json.dumps(numbers, cls=DjangoJSONEncoder).encode()).hexdigest()
+    key = f"figure:{builder.__name__}:{CHARTS_CODE}:{digest}"
+    figure = cache.get(key)
+    if figure is None:
+        figure = builder(*numbers)
+        cache.set(key, figure, FIGURE_CACHE_SECONDS)
+    return figure
+
+
 def dashboard(user=None, today: dt.date | None = None) -> dict:
     """Everything the dashboard shows, with its figures (a fixed number of queries)."""
     today = today or timezone.localdate()
@@ -357,7 +382,11 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
     routes = readings_by_route(user, today)
     weeks = [w.isoformat() for w in workload["weeks"]]
     months = [m.isoformat() for m in spares["months"]]
-    chart_parts = [{**row, "code": row["part"].code} for row in spares["parts"]]
+    # The charts' numbers only (no model instance), so that they key the cached figures.
+    chart_parts = [
+        {**{key: value for key, value in row.items() if key != "part"}, "code": row["part"].code}
+        for row in spares["parts"]
+    ]
     return {
         "today": today,
         "workload": workload,
@@ -369,11 +398,13 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
         "visits_total": sum(workload["visits"]),
         "overdue_total": sum(r["overdue"] for r in routes["routes"]),
         "overdue_days": READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS,
-        "workload_chart": workload_figure(weeks, workload["by_risk"], workload["by_site"], workload["visits"]),
-        "spares_chart": spares_figure(months, chart_parts, spares["cost_per_month"]),
-        "stock_chart": stock_figure(chart_parts),
-        "mix_chart": risk_mix_figure(mix["sites"], mix["levels"], mix["counts"]),
-        "routes_chart": routes_figure(routes["routes"]),
+        "workload_chart": cached_figure(
+            workload_figure, weeks, workload["by_risk"], workload["by_site"], workload["visits"]
+        ),
+        "spares_chart": cached_figure(spares_figure, months, chart_parts, spares["cost_per_month"]),
+        "stock_chart": cached_figure(stock_figure, chart_parts),
+        "mix_chart": cached_figure(risk_mix_figure, mix["sites"], mix["levels"], mix["counts"]),
+        "routes_chart": cached_figure(routes_figure, routes["routes"]),
     }
 
 
