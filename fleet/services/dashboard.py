@@ -17,7 +17,7 @@ import numpy as np
 from django.core.cache import cache
 from django.core.serializers.json import DjangoJSONEncoder
 from django.db.models import Case, Count, DateField, F, OuterRef, Q, Subquery, Sum, Value, When
-from django.db.models.functions import Cast, TruncMonth, TruncWeek
+from django.db.models.functions import Cast, Coalesce, TruncMonth, TruncWeek
 from django.utils import timezone
 
 from fleet import charts
@@ -28,7 +28,7 @@ from fleet.models import (
     Assessment,
     CapacitorPart,
     FittedCapacitor,
-    Motor,
+    MotorReadCount,
     PartLifeFit,
     Reading,
     RefitRun,
@@ -269,32 +269,32 @@ def overdue_capacitors(user=None, today: dt.date | None = None):
 
 def readings_by_route(user=None, today: dt.date | None = None) -> dict:
     """Per site's reading route: motors in service overdue, due this quarter (not read since it
-    began) and read this quarter, as the route page counts them: from each motor's stored newest
-    reading (`Motor.last_read_at`, kept by a trigger on readings), one aggregate over the
-    (site, status, last_read_at) index. A motor never read is overdue once commissioned before
-    the overdue day, due otherwise."""
+    began) and read this quarter, as the route page counts them from each motor's stored newest
+    reading (`Motor.last_read_at`, kept by a trigger on readings), summed from the ledger of motors
+    by site and UTC day of that reading (`MotorReadCount`, kept by triggers on motors): a few hundred
+    rows whatever the fleet's size. A motor never read is overdue once commissioned before the
+    overdue day, due otherwise."""
     today = today or timezone.localdate()
-    cutoff = dt.datetime.combine(overdue_before(today), dt.time(), tzinfo=dt.UTC)
-    quarter = dt.datetime.combine(quarter_start(today), dt.time(), tzinfo=dt.UTC)
-    never_read = Q(last_read_at__isnull=True)
-    overdue = Q(last_read_at__lt=cutoff) | (never_read & Q(commissioned_on__lt=overdue_before(today)))
-    due = ~overdue & (never_read | Q(last_read_at__lt=quarter))
+    cutoff, quarter = overdue_before(today), quarter_start(today)
+    never_read = Q(last_read_on__isnull=True)
+    overdue = Q(last_read_on__lt=cutoff) | (never_read & Q(commissioned_on__lt=cutoff))
+    due = ~overdue & (never_read | Q(last_read_on__lt=quarter))
     counts = (
-        scope_to_user(Motor.objects.filter(status=Motor.Status.IN_SERVICE), user)
+        scope_to_user(MotorReadCount.objects.all(), user)
         .values("site_id")
         .annotate(
-            overdue=Count("site", filter=overdue),
-            due=Count("site", filter=due),
-            read=Count("site", filter=Q(last_read_at__gte=quarter)),
+            overdue=Coalesce(Sum("n", filter=overdue), 0),
+            due=Coalesce(Sum("n", filter=due), 0),
+            read=Coalesce(Sum("n", filter=Q(last_read_on__gte=quarter)), 0),
         )
         .order_by()
     )
-    by_site = {row["site_id"]: row for row in counts}
+    by_site = {row["site_id"]: row for row in counts if row["overdue"] or row["due"] or row["read"]}
     routes = [
         {"code": site.code, "name": site.name, **{k: by_site[site.id][k] for k in ("overdue", "due", "read")}}
         for site in scope_to_user(Site.objects.filter(id__in=by_site), user).order_by("code")
     ]
-    return {"quarter_start": quarter.date(), "overdue_before": overdue_before(today), "routes": routes}
+    return {"quarter_start": quarter, "overdue_before": cutoff, "routes": routes}
 
 
 def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
