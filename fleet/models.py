@@ -193,14 +193,6 @@ class Motor(models.Model):
         indexes = [
             models.Index(fields=["site", "route_order", "asset_tag"], name="motor_walking_order"),
             models.Index(fields=["site", "status", "last_read_at"], name="motor_last_read"),
-            # The dashboard's readings by route: overdue, due and read motors in service per site, counted
-            # from this index alone (PostgreSQL; SQLite leaves out the included column).
-            models.Index(
-                fields=["site", "last_read_at"],
-                include=["commissioned_on"],
-                condition=Q(status="in_service"),
-                name="motor_in_service_last_read",
-            ),
             # Finding a motor by its tag in any case (the motor page, Find).
             models.Index(Upper("asset_tag"), name="motor_tag_any_case"),
         ]

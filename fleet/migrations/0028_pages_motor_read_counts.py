@@ -118,7 +118,7 @@ def fill(vendor: str) -> list[str]:
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0027_pages_dashboard_indexes"),
+        ("fleet", "0027_pages_capacitor_removals"),
     ]
 
     operations = [
