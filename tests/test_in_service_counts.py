@@ -223,3 +223,39 @@ def test_the_life_data_page_shows_the_stored_fit_as_a_fit_on_request_would(tmp_p
     plot_t, plot_f = probability_plot_points(years, failed)
     assert np.allclose(stored["plot_points"][0], plot_t) and np.allclose(stored["plot_points"][1], plot_f)
     assert stored["next_year_failure"] == pytest.approx(np.mean(fresh.conditional_failure(years[~failed], 1.0)))
+
+
+def test_the_api_counts_its_list_from_the_ledger_as_the_list_counts_itself(client, django_user_model):
+    """The assessments API's total (and so its pages) equals the filtered list's own count, for every
+    site and risk level, for a user limited to one site, and with a replace-by date (counted directly)."""
+    from django.urls import reverse
+
+    from fleet.models import SiteMembership
+    from fleet.roles import PLANNER
+    from fleet.services.pages import in_service_assessments
+    from tests.factories import make_user
+
+    planner = make_user(PLANNER)
+    fleet = Fleet()
+    fleet.grow_to(12, planner)
+    limited = make_user(PLANNER)
+    SiteMembership.objects.create(user=limited, site=fleet.sites[1])
+    until = timezone.localdate() + dt.timedelta(days=200)
+    for user in (planner, limited):
+        client.force_login(user)
+        for site in (None, *fleet.sites[user is limited :]):
+            for risk in (None, *Assessment.Risk.values):
+                for replace_by_before in (None, until):
+                    params = {"site": site and site.code, "risk": risk, "replace_by_before": replace_by_before}
+                    params = {k: v for k, v in params.items() if v}
+                    listed = in_service_assessments(user).filter(
+                        **{
+                            k: v
+                            for k, v in (("site", site), ("risk", risk), ("replace_by__lte", replace_by_before))
+                            if v
+                        }
+                    )
+                    answer = client.get(reverse("api_assessments"), params)
+                    assert answer.status_code == 200, answer.content[:300]
+                    assert answer.json()["count"] == listed.count(), params
+    assert in_service_assessments(limited).count() < in_service_assessments(planner).count()

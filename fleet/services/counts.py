@@ -49,6 +49,17 @@ class InServiceCounts:
         return sum(n for (_, _, _, assessed_on), n in self.assessed.items() if assessed_on >= day)
 
 
+def assessed_total(user=None, site_code: str | None = None, risk: str | None = None) -> int:
+    """Current assessments of capacitors in service at the user's sites, of one site and one risk level
+    when given: what `pages.in_service_assessments(user)` so filtered counts, summed from the ledger."""
+    rows = scope_to_user(InServiceCount.objects.exclude(risk=""), user)
+    if site_code:
+        rows = rows.filter(site__code=site_code)
+    if risk:
+        rows = rows.filter(risk=risk)
+    return rows.aggregate(total=Sum("n"))["total"] or 0
+
+
 def _summed(pairs) -> dict:
     totals = defaultdict(int)
     for key, n in pairs:
