@@ -19,7 +19,14 @@ fleet_motor drops these triggers: reinstall them (SQLITE_FORWARD below).
 import django.db.models.deletion
 from django.db import migrations, models
 
-from ._triggers import plpgsql_statement_trigger, postgres_drops, run, sqlite_drops
+from ._triggers import (
+    plpgsql_statement_trigger,
+    postgres_drops,
+    run,
+    sqlite_drops,
+    sqlite_row_trigger,
+    summed_insert,
+)
 
 LEDGER = "fleet_motorreadcount (site_id, last_read_on, commissioned_on, n)"
 KEY = "site_id, last_read_on, commissioned_on"
@@ -40,22 +47,11 @@ def motor_share(vendor: str, rows: str, sign: int) -> str:
 
 
 def summed(*shares: str) -> str:
-    """One INSERT of the shares summed per key, leaving out the keys whose changes cancel."""
-    union = "\n          UNION ALL ".join(shares)
-    return (
-        f"INSERT INTO {LEDGER}\n        SELECT {KEY}, SUM(n) FROM (\n          {union}\n        )"
-        f" AS changes\n        GROUP BY {KEY} HAVING SUM(n) <> 0;"
-    )
+    return summed_insert(LEDGER, KEY, *shares)
 
 
 def _sqlite_trigger(name: str, event: str, when: str, statement: str) -> str:
-    return f"""
-    CREATE TRIGGER {name} {event} ON fleet_motor
-    WHEN {when}
-    BEGIN
-      {statement}
-    END;
-    """
+    return sqlite_row_trigger(name, event, "fleet_motor", when, statement)
 
 
 CHANGED = f"({', '.join('OLD.' + c for c in MOTOR_COLUMNS)}) IS NOT ({', '.join('NEW.' + c for c in MOTOR_COLUMNS)})"
