@@ -165,10 +165,13 @@ def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_mo
     stored_assessment(
         fitted_capacitor, "replace now", TODAY, limit_source="starting torque", reason="torque falls short"
     )
+    same_limit = make_fitted_capacitor()  # riskier too, under the same governing limit: not counted
+    stored_assessment(same_limit, "watch", None, created_at=timezone.now() - dt.timedelta(days=9))
+    stored_assessment(same_limit, "due soon", TODAY + dt.timedelta(days=30))
     client.force_login(make_user(PLANNER))
     response = client.get(reverse("dashboard"))
     changes = response.context["changes"]
-    assert changes["moves"]["riskier"] == 1 and changes["moves"]["limit_changed"] == 1 and changes["readings"] == 1
+    assert changes["moves"]["riskier"] == 2 and changes["moves"]["limit_changed"] == 1 and changes["readings"] == 1
     body = response.content.decode()
     assert "Torque falls short" in body and "governing limit was tolerance, now starting torque" in body
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 from django.core.cache import cache
 from django.core.serializers.json import DjangoJSONEncoder
-from django.db.models import Case, Count, DateField, F, OuterRef, Q, Subquery, Sum, Value, When
+from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Q, Subquery, Sum, Value, When
 from django.db.models.functions import Cast, Coalesce, TruncMonth, TruncWeek
 from django.utils import timezone
 
@@ -297,6 +297,15 @@ def readings_by_route(user=None, today: dt.date | None = None) -> dict:
     return {"quarter_start": quarter, "overdue_before": cutoff, "routes": routes}
 
 
+class Differs(Func):
+    """`a <> b` as a condition, false when either is null (SQL's own rule): a subquery on either side
+    is evaluated once, where `isnull` and `exclude` would each run it."""
+
+    arg_joiner = " <> "
+    template = "(%(expressions)s)"
+    output_field = BooleanField()
+
+
 def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     """What moved in the last `days`: readings taken, refits run, capacitors reassessed and how
     their risk level moved, replacements; the riskier ones with the reason and the governing limit
@@ -323,9 +332,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
         in_service_assessments(user)
         .filter(risk_changed_at__gte=since)
         .exclude(risk_was="")
-        .annotate(previous_limit=previous_limit)
-        .filter(previous_limit__isnull=False)
-        .exclude(previous_limit=F("limit_source"))
+        .filter(Differs(previous_limit, F("limit_source")))  # the look-up runs once per capacitor
         .count()
     )
     moves = {
