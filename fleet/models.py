@@ -324,7 +324,15 @@ class FittedCapacitor(models.Model):
                 name="removal_reason_with_removal",
             ),
         ]
-        indexes = [models.Index(fields=["motor", "role"])]
+        indexes = [
+            models.Index(fields=["motor", "role"]),
+            # The dashboard's replacements this week: the few removed lately, not every capacitor.
+            models.Index(
+                fields=["removed_on", "removal_reason"],
+                condition=Q(removed_on__isnull=False),
+                name="capacitor_removals",
+            ),
+        ]
 
     def __str__(self):
         return f"{self.motor.asset_tag} {self.role} {self.part.code}"
@@ -1085,3 +1093,19 @@ class InServiceCount(models.Model):
 
     def __str__(self):
         return f"{self.site_id} {self.part_id} {self.risk or self.fitted_month} {self.n:+d}"
+
+
+class MotorReadCount(models.Model):
+    """Append-only ledger of the counts of motors in service by site and the UTC day of their newest
+    reading (never read: by the day commissioned), kept on write by database triggers on motors
+    (migration 0031), so the dashboard's readings by route sums a few hundred rows instead of
+    counting every motor. Each row is a change to one count; `services.counts.compact_counts`
+    replaces the rows by their sums."""
+
+    site = kept_by_triggers(Site, "The motors' site")
+    last_read_on = models.DateField(null=True, blank=True, help_text="UTC day of the motors' newest reading")
+    commissioned_on = models.DateField(null=True, blank=True, help_text="Day commissioned, of motors never read")
+    n = models.IntegerField(help_text="Change to the count")
+
+    def __str__(self):
+        return f"{self.site_id} {self.last_read_on or self.commissioned_on} {self.n:+d}"

@@ -91,6 +91,7 @@ SITE_PATHS = {
     "reading": "fitted_capacitor__motor__site",
     "assessment": "site",  # stored on the assessment, kept by triggers (migration 0020)
     "inservicecount": "site",  # counts by site, kept by triggers (migration 0023)
+    "motorreadcount": "site",  # counts by site, kept by triggers (migration 0028)
     "workorder": "site",
     "sitestock": "site",
 }

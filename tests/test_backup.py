@@ -14,6 +14,7 @@ import pytest
 from django.apps import apps
 from django.contrib.auth.models import Group, User
 from django.core.management import CommandError, call_command
+from django.db import connection
 from django.utils import timezone
 from rest_framework.authtoken.models import Token
 
@@ -99,6 +100,26 @@ def restored_counts(tmp_path) -> set:
         )
 
 
+MOTOR_COUNTS_SQL = (
+    "SELECT site_id, last_read_on, commissioned_on, SUM(n) FROM fleet_motorreadcount"
+    " GROUP BY site_id, last_read_on, commissioned_on HAVING SUM(n) <> 0"
+)
+
+
+def motor_counts_here() -> set:
+    """The ledger of motors by newest reading summed per key, dates as text."""
+    with connection.cursor() as cursor:
+        cursor.execute(MOTOR_COUNTS_SQL)
+        return {
+            (site, day and str(day), commissioned and str(commissioned), n) for site, day, commissioned, n in cursor
+        }
+
+
+def restored_motor_counts(tmp_path) -> set:
+    with sqlite3.connect(tmp_path / "restored.sqlite3") as database:
+        return set(database.execute(MOTOR_COUNTS_SQL))
+
+
 def in_new_database(tmp_path, *commands) -> None:
     """Run manage.py commands against a new SQLite database file."""
     env = {**os.environ, "DATABASE_URL": f"sqlite:///{tmp_path / 'restored.sqlite3'}"}
@@ -141,6 +162,8 @@ def test_the_round_trip_into_a_new_database_loses_nothing(plant, tmp_path):
     # The ledger of counts is not in the file: the restored database's triggers counted the rows again.
     assert not any(o["model"] == "fleet.inservicecount" for o in written)
     assert restored_counts(tmp_path) == counts_here() and counts_here()
+    assert not any(o["model"] == "fleet.motorreadcount" for o in written)
+    assert restored_motor_counts(tmp_path) == motor_counts_here() and motor_counts_here()
 
     # A sample of values, read back from the restored database's own backup.
     by_key = {(o["model"], o.get("pk")): o["fields"] for o in restored}

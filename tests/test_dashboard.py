@@ -165,12 +165,62 @@ def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_mo
     stored_assessment(
         fitted_capacitor, "replace now", TODAY, limit_source="starting torque", reason="torque falls short"
     )
+    same_limit = make_fitted_capacitor()  # riskier too, under the same governing limit: not counted
+    stored_assessment(same_limit, "watch", None, created_at=timezone.now() - dt.timedelta(days=9))
+    stored_assessment(same_limit, "due soon", TODAY + dt.timedelta(days=30))
     client.force_login(make_user(PLANNER))
     response = client.get(reverse("dashboard"))
     changes = response.context["changes"]
-    assert changes["moves"]["riskier"] == 1 and changes["moves"]["limit_changed"] == 1 and changes["readings"] == 1
+    assert changes["moves"]["riskier"] == 2 and changes["moves"]["limit_changed"] == 1 and changes["readings"] == 1
     body = response.content.decode()
     assert "Torque falls short" in body and "governing limit was tolerance, now starting torque" in body
+
+
+def test_charts_are_built_once_for_the_same_numbers_and_follow_a_new_assessment_and_reading(client, monkeypatch):
+    """The charts are cached by the numbers they show: a second visit builds none, and after a new
+    assessment and a new reading the cached charts are those built afresh from the new numbers."""
+    from fleet.charts import routes_figure, workload_figure
+    from fleet.services import dashboard as dashboard_service
+
+    built = []
+
+    def counted(builder):
+        def build(*numbers):
+            built.append(builder.__name__)
+            return builder(*numbers)
+
+        build.__name__ = builder.__name__
+        return build
+
+    for name in ("workload_figure", "spares_figure", "stock_figure", "risk_mix_figure", "routes_figure"):
+        monkeypatch.setattr(dashboard_service, name, counted(getattr(dashboard_service, name)))
+    fitted_capacitors = fleet(per_site=2)
+    client.force_login(make_user(PLANNER))
+    before = client.get(reverse("dashboard")).context
+    first_builds = len(built)
+    again = client.get(reverse("dashboard")).context
+    assert len(built) == first_builds, "the same numbers built a chart again"
+    assert again["workload_chart"] == before["workload_chart"]
+
+    # A refit moves a sound capacitor's replacement into this week; a new motor is read today.
+    sound = fitted_capacitors[3]
+    stored_assessment(sound, "replace now", timezone.localdate())
+    make_reading(make_fitted_capacitor(motor=make_motor(site=sound.motor.site)))
+    after = client.get(reverse("dashboard")).context
+    assert after["workload_chart"] != before["workload_chart"]
+    weeks = [w.isoformat() for w in after["workload"]["weeks"]]
+    workload = after["workload"]
+    assert after["workload_chart"] == workload_figure(
+        weeks, workload["by_risk"], workload["by_site"], workload["visits"]
+    )
+    assert after["routes_chart"] == routes_figure(after["routes"]["routes"])
+    assert after["routes_chart"] != before["routes_chart"]
+    shown_this_week = sum(
+        trace["y"][0]
+        for trace in after["workload_chart"]["data"]
+        if trace.get("visible", True) and trace["type"] == "bar"
+    )
+    assert shown_this_week == sum(counts[0] for counts in workload["by_risk"].values())
 
 
 def test_each_chart_downloads_its_numbers(client):

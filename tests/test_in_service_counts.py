@@ -1,7 +1,8 @@
-"""The ledger of counts kept by triggers (`InServiceCount`, migration 0023) equals a count from scratch
-after every kind of write: refits, readings and corrections, replacements, removals, a motor moving,
-register corrections, deletions and imports. [derived: the ledger is the sum of each row's share, so
-it must equal the shares of the rows as they stand.] Runs on SQLite and PostgreSQL alike."""
+"""The ledgers of counts kept by triggers (`InServiceCount`, migration 0023; `MotorReadCount`, migration 0028)
+equal a count from scratch after every kind of write: refits, readings and corrections, replacements,
+removals, a motor moving or retiring, register corrections, deletions and imports. [derived: the ledger is the
+sum of each row's share, so it must equal the shares of the rows as they stand.] Runs on SQLite and PostgreSQL
+alike."""
 
 from __future__ import annotations
 
@@ -9,11 +10,11 @@ import datetime as dt
 
 import pytest
 from django.db import connection
-from django.db.models import Count, F
+from django.db.models import Case, Count, DateField, F, Sum, When
 from django.db.models.functions import TruncDate, TruncMonth
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, InServiceCount, Motor
+from fleet.models import Assessment, FittedCapacitor, InServiceCount, Motor, MotorReadCount
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.counts import compact_counts, in_service_counts
 from fleet.services.readings import record_reading, replace_capacitor
@@ -62,6 +63,28 @@ def from_ledger() -> dict:
     return {"assessed": counts.assessed, "fitted": counts.fitted}
 
 
+def motors_from_scratch() -> dict:
+    """Motors in service by site, UTC day of the newest reading and (never read) day commissioned."""
+    never_read_since = Case(When(last_read_at__isnull=True, then=F("commissioned_on")), output_field=DateField())
+    rows = (
+        Motor.objects.filter(status=Motor.Status.IN_SERVICE)
+        .values_list("site_id", TruncDate("last_read_at", tzinfo=dt.UTC), never_read_since)
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    return {tuple(row[:-1]): row[-1] for row in rows}
+
+
+def motors_from_ledger() -> dict:
+    rows = (
+        MotorReadCount.objects.values_list("site_id", "last_read_on", "commissioned_on")
+        .annotate(total=Sum("n"))
+        .exclude(total=0)
+        .order_by()
+    )
+    return {tuple(row[:-1]): row[-1] for row in rows}
+
+
 def refit_all() -> None:
     refit_fitted_capacitors(list(FittedCapacitor.objects.values_list("id", flat=True)), force=True)
 
@@ -73,6 +96,7 @@ def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_pa
     def check(step):
         checks.append(step)
         assert from_ledger() == from_scratch(), step
+        assert motors_from_ledger() == motors_from_scratch(), f"{step}: motors by newest reading"
         stored = Assessment.objects.exclude(fitted_on=F("fitted_capacitor__fitted_on"))
         assert not stored.exists(), f"{step}: an assessment's stored fitting date differs from its capacitor's"
 
@@ -115,6 +139,10 @@ def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_pa
     moved.save()
     Motor.objects.filter(site=fleet.sites[1]).update(site=fleet.sites[0])
     check("motors moving to another site")
+    Motor.objects.filter(pk=moved.pk).update(status=Motor.Status.RETIRED)
+    never_read = make_motor(site=fleet.sites[1], commissioned_on=dt.date(2026, 1, 5))
+    Motor.objects.filter(pk=never_read.pk).update(commissioned_on=dt.date(2025, 6, 1))
+    check("a motor retired, another commissioned and its date corrected")
 
     corrected = FittedCapacitor.objects.filter(removed_on__isnull=True).exclude(pk=successor.pk)
     first, second = corrected[:2]
@@ -137,8 +165,12 @@ def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_pa
 
     rows = compact_counts()
     check("compacted")
-    assert InServiceCount.objects.count() == rows == len(from_scratch()["assessed"]) + len(from_scratch()["fitted"])
-    assert len(checks) == 13
+    in_service_rows = len(from_scratch()["assessed"]) + len(from_scratch()["fitted"])
+    assert InServiceCount.objects.count() == in_service_rows
+    assert MotorReadCount.objects.count() == len(motors_from_scratch())
+    assert rows == in_service_rows + len(motors_from_scratch())
+    assert sum(motors_from_scratch().values()) > 5  # the comparison is of real values
+    assert len(checks) == 14
 
 
 def test_pages_read_the_counts_at_the_users_sites_only(django_user_model):
@@ -160,7 +192,7 @@ def test_every_trigger_of_the_ledger_is_installed():
         f"fleet_{table}_counts_{event}"
         for table in ("assessment", "capacitor")
         for event in ("insert", "update", "delete")
-    } | {"fleet_motor_moves_counts"}
+    } | {"fleet_motor_moves_counts", *(f"fleet_motor_read_counts_{event}" for event in ("insert", "update", "delete"))}
     with connection.cursor() as cursor:
         if connection.vendor == "sqlite":
             cursor.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")
@@ -217,3 +249,39 @@ def test_an_assessment_holds_its_capacitors_facts_whether_the_refit_sends_them_o
     assert list(stored) == expected
     assert [row[0] for row in stored] == [refitted.id, unread.id]  # sent by the refit, looked up
     assert Assessment.objects.filter(pk=looked_up.pk, site=elsewhere).exists()
+
+
+def test_the_api_counts_its_list_from_the_ledger_as_the_list_counts_itself(client, django_user_model):
+    """The assessments API's total (and so its pages) equals the filtered list's own count, for every
+    site and risk level, for a user limited to one site, and with a replace-by date (counted directly)."""
+    from django.urls import reverse
+
+    from fleet.models import SiteMembership
+    from fleet.roles import PLANNER
+    from fleet.services.pages import in_service_assessments
+    from tests.factories import make_user
+
+    planner = make_user(PLANNER)
+    fleet = Fleet()
+    fleet.grow_to(12, planner)
+    limited = make_user(PLANNER)
+    SiteMembership.objects.create(user=limited, site=fleet.sites[1])
+    until = timezone.localdate() + dt.timedelta(days=200)
+    for user in (planner, limited):
+        client.force_login(user)
+        for site in (None, *fleet.sites[user is limited :]):
+            for risk in (None, *Assessment.Risk.values):
+                for replace_by_before in (None, until):
+                    params = {"site": site and site.code, "risk": risk, "replace_by_before": replace_by_before}
+                    params = {k: v for k, v in params.items() if v}
+                    listed = in_service_assessments(user).filter(
+                        **{
+                            k: v
+                            for k, v in (("site", site), ("risk", risk), ("replace_by__lte", replace_by_before))
+                            if v
+                        }
+                    )
+                    answer = client.get(reverse("api_assessments"), params)
+                    assert answer.status_code == 200, answer.content[:300]
+                    assert answer.json()["count"] == listed.count(), params
+    assert in_service_assessments(limited).count() < in_service_assessments(planner).count()

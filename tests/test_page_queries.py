@@ -86,6 +86,7 @@ class Fleet:
 
 LIST_PAGES = {
     "home": lambda: reverse("home"),
+    "dashboard": lambda: reverse("dashboard"),
     "plan": lambda: reverse("plan") + "?days=365",
     "refits": lambda: reverse("refits"),
     "work orders": lambda: reverse("work_orders"),

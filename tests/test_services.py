@@ -12,7 +12,7 @@ from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitR
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from fleet.services.refits import stale_fitted_capacitor_ids, start_fleet_refit, sweep_stale
-from tests.factories import make_fitted_capacitor, make_motor, make_part, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 START = timezone.make_aware(dt.datetime(2023, 1, 10, 10))
@@ -371,3 +371,22 @@ def test_a_reading_with_winding_currents_refines_the_motors_circuit():
     assert abs(again.i_aux) == pytest.approx(aux_a, rel=0.02)
     entered.motor.refresh_from_db()
     assert entered.motor.circuit_source == "entered"
+
+
+def test_a_page_of_visits_lists_each_visits_first_orders_in_walking_order_with_its_spares():
+    """[derived] A visit of 30 orders shows the 25 first in walking order (route order, then tag) and
+    5 more; its spares count every order's part, the ones not listed too."""
+    from fleet.services.workorders import open_visits_page
+
+    site = make_site(code="WALK")
+    run, start = make_part(code="RUN-A"), make_part(code="RUN-B")
+    day = timezone.localdate()
+    for n in range(30):  # created against walking order: the last made is walked first
+        motor = make_motor(site=site, route_order=100 - n)
+        fitted_capacitor = make_fitted_capacitor(motor=motor, part=run if n % 3 else start)
+        WorkOrder.objects.create(motor=motor, fitted_capacitor=fitted_capacitor, kind="replace_run", due_on=day)
+    visit = open_visits_page(1).object_list[0]
+    assert (visit["site"].code, visit["day"], visit["count"], visit["more"]) == ("WALK", day, 30, 5)
+    walked = [order.motor.route_order for order in visit["orders"]]
+    assert walked == sorted(walked) and walked[0] == 71 and walked[-1] == 95
+    assert visit["spares"] == [("RUN-A", 20), ("RUN-B", 10)]

@@ -68,3 +68,25 @@ def plpgsql_statement_trigger(name: str, event: str, table: str, body: str, *, o
     {referencing}FOR EACH STATEMENT EXECUTE FUNCTION {name}();
     """,
     ]
+
+
+def summed_insert(ledger: str, key: str, *shares: str) -> str:
+    """One INSERT into `ledger` ("table (columns)") of the `shares` (SELECTs of the key's columns and n)
+    summed per `key`, leaving out the keys whose changes cancel: a ledger of counts kept by triggers."""
+    union = "\n          UNION ALL ".join(shares)
+    return (
+        f"INSERT INTO {ledger}\n        SELECT {key}, SUM(n) FROM (\n          {union}\n        )"
+        f" AS changes\n        GROUP BY {key} HAVING SUM(n) <> 0;"
+    )
+
+
+def sqlite_row_trigger(name: str, event: str, table: str, when: str, *statements: str) -> str:
+    """SQLite: the trigger `name` on `event` ("AFTER UPDATE") of `table`, when `when` holds, running `statements`."""
+    body = "\n      ".join(statements)
+    return f"""
+    CREATE TRIGGER {name} {event} ON {table}
+    WHEN {when}
+    BEGIN
+      {body}
+    END;
+    """

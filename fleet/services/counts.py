@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from django.db import connection, transaction
 from django.db.models import Max, Sum
 
-from fleet.models import InServiceCount
+from fleet.models import InServiceCount, MotorReadCount
 from fleet.roles import scope_to_user
 
 KEY = ("site_id", "part_id", "risk", "fitted_month", "assessed_on")
@@ -49,6 +49,17 @@ class InServiceCounts:
         return sum(n for (_, _, _, assessed_on), n in self.assessed.items() if assessed_on >= day)
 
 
+def assessed_total(user=None, site_code: str | None = None, risk: str | None = None) -> int:
+    """Current assessments of capacitors in service at the user's sites, of one site and one risk level
+    when given: what `pages.in_service_assessments(user)` so filtered counts, summed from the ledger."""
+    rows = scope_to_user(InServiceCount.objects.exclude(risk=""), user)
+    if site_code:
+        rows = rows.filter(site__code=site_code)
+    if risk:
+        rows = rows.filter(risk=risk)
+    return rows.aggregate(total=Sum("n"))["total"] or 0
+
+
 def _summed(pairs) -> dict:
     totals = defaultdict(int)
     for key, n in pairs:
@@ -74,28 +85,37 @@ def in_service_counts(user=None) -> InServiceCounts:
     return InServiceCounts(assessed=assessed, fitted=fitted)
 
 
-COMPACT_SQL = f"""
-WITH gone AS (DELETE FROM fleet_inservicecount RETURNING {", ".join(KEY)}, n)
-INSERT INTO fleet_inservicecount ({", ".join(KEY)}, n)
-SELECT {", ".join(KEY)}, SUM(n) FROM gone GROUP BY {", ".join(KEY)} HAVING SUM(n) <> 0
-"""
+LEDGERS = (  # each ledger kept by triggers, with its key
+    (InServiceCount, KEY),
+    (MotorReadCount, ("site_id", "last_read_on", "commissioned_on")),
+)
 
 
 def compact_counts() -> int:
-    """Replace the ledger's rows by their sums per key (keys that sum to nought go); returns the rows
-    left. Sums are unchanged, so readers never see a difference. On PostgreSQL one statement deletes the
-    rows it can see and inserts their sums: rows a concurrent write adds meanwhile stay as they are,
-    and two compactions at once each sum only the rows they deleted."""
+    """Replace the rows of each ledger (`InServiceCount`, `MotorReadCount`) by their sums per key (keys
+    that sum to nought go); returns the rows left in both. Sums are unchanged, so readers never see a
+    difference. On PostgreSQL one statement per ledger deletes the rows it can see and inserts their
+    sums: rows a concurrent write adds meanwhile stay as they are, and two compactions at once each
+    sum only the rows they deleted."""
+    return sum(_compact(model, key) for model, key in LEDGERS)
+
+
+def _compact(model, key) -> int:
+    columns = ", ".join(key)
     if connection.vendor == "postgresql":
         with connection.cursor() as cursor:
-            cursor.execute(COMPACT_SQL)
+            cursor.execute(
+                f"WITH gone AS (DELETE FROM {model._meta.db_table} RETURNING {columns}, n)"
+                f" INSERT INTO {model._meta.db_table} ({columns}, n)"
+                f" SELECT {columns}, SUM(n) FROM gone GROUP BY {columns} HAVING SUM(n) <> 0"
+            )
             return cursor.rowcount
     with transaction.atomic():
-        last = InServiceCount.objects.aggregate(last=Max("id"))["last"]
+        last = model.objects.aggregate(last=Max("id"))["last"]
         if last is None:
             return 0
-        sums = InServiceCount.objects.filter(id__lte=last).values(*KEY).annotate(total=Sum("n")).exclude(total=0)
-        rows = [InServiceCount(**{k: row[k] for k in KEY}, n=row["total"]) for row in sums.order_by()]
-        InServiceCount.objects.filter(id__lte=last).delete()
-        InServiceCount.objects.bulk_create(rows)
+        sums = model.objects.filter(id__lte=last).values(*key).annotate(total=Sum("n")).exclude(total=0)
+        rows = [model(**{k: row[k] for k in key}, n=row["total"]) for row in sums.order_by()]
+        model.objects.filter(id__lte=last).delete()
+        model.objects.bulk_create(rows)
         return len(rows)

@@ -8,13 +8,19 @@ result rows bounded by weeks, months, parts and sites, never by capacitors.
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
+import json
 from collections import Counter
+from pathlib import Path
 
 import numpy as np
-from django.db.models import Case, Count, DateField, F, OuterRef, Q, Subquery, Sum, Value, When
-from django.db.models.functions import Cast, TruncMonth, TruncWeek
+from django.core.cache import cache
+from django.core.serializers.json import DjangoJSONEncoder
+from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Q, Subquery, Sum, Value, When
+from django.db.models.functions import Cast, Coalesce, TruncMonth, TruncWeek
 from django.utils import timezone
 
+from fleet import charts
 from fleet.charts import risk_mix_figure, routes_figure, spares_figure, stock_figure, workload_figure
 from fleet.engineering.lifedata import expected_failures
 from fleet.engineering.planning import RISK_ORDER
@@ -22,7 +28,7 @@ from fleet.models import (
     Assessment,
     CapacitorPart,
     FittedCapacitor,
-    Motor,
+    MotorReadCount,
     PartLifeFit,
     Reading,
     RefitRun,
@@ -263,32 +269,41 @@ def overdue_capacitors(user=None, today: dt.date | None = None):
 
 def readings_by_route(user=None, today: dt.date | None = None) -> dict:
     """Per site's reading route: motors in service overdue, due this quarter (not read since it
-    began) and read this quarter, as the route page counts them: from each motor's stored newest
-    reading (`Motor.last_read_at`, kept by a trigger on readings), one aggregate over the
-    (site, status, last_read_at) index. A motor never read is overdue once commissioned before
-    the overdue day, due otherwise."""
+    began) and read this quarter, as the route page counts them from each motor's stored newest
+    reading (`Motor.last_read_at`, kept by a trigger on readings), summed from the ledger of motors
+    by site and UTC day of that reading (`MotorReadCount`, kept by triggers on motors): a few hundred
+    rows whatever the fleet's size. A motor never read is overdue once commissioned before the
+    overdue day, due otherwise."""
     today = today or timezone.localdate()
-    cutoff = dt.datetime.combine(overdue_before(today), dt.time(), tzinfo=dt.UTC)
-    quarter = dt.datetime.combine(quarter_start(today), dt.time(), tzinfo=dt.UTC)
-    never_read = Q(last_read_at__isnull=True)
-    overdue = Q(last_read_at__lt=cutoff) | (never_read & Q(commissioned_on__lt=overdue_before(today)))
-    due = ~overdue & (never_read | Q(last_read_at__lt=quarter))
+    cutoff, quarter = overdue_before(today), quarter_start(today)
+    never_read = Q(last_read_on__isnull=True)
+    overdue = Q(last_read_on__lt=cutoff) | (never_read & Q(commissioned_on__lt=cutoff))
+    due = ~overdue & (never_read | Q(last_read_on__lt=quarter))
     counts = (
-        scope_to_user(Motor.objects.filter(status=Motor.Status.IN_SERVICE), user)
+        scope_to_user(MotorReadCount.objects.all(), user)
         .values("site_id")
         .annotate(
-            overdue=Count("site", filter=overdue),
-            due=Count("site", filter=due),
-            read=Count("site", filter=Q(last_read_at__gte=quarter)),
+            overdue=Coalesce(Sum("n", filter=overdue), 0),
+            due=Coalesce(Sum("n", filter=due), 0),
+            read=Coalesce(Sum("n", filter=Q(last_read_on__gte=quarter)), 0),
         )
         .order_by()
     )
-    by_site = {row["site_id"]: row for row in counts}
+    by_site = {row["site_id"]: row for row in counts if row["overdue"] or row["due"] or row["read"]}
     routes = [
         {"code": site.code, "name": site.name, **{k: by_site[site.id][k] for k in ("overdue", "due", "read")}}
         for site in scope_to_user(Site.objects.filter(id__in=by_site), user).order_by("code")
     ]
-    return {"quarter_start": quarter.date(), "overdue_before": overdue_before(today), "routes": routes}
+    return {"quarter_start": quarter, "overdue_before": cutoff, "routes": routes}
+
+
+class Differs(Func):
+    """`a <> b` as a condition, false when either is null (SQL's own rule): a subquery on either side
+    is evaluated once, where `isnull` and `exclude` would each run it."""
+
+    arg_joiner = " <> "
+    template = "(%(expressions)s)"
+    output_field = BooleanField()
 
 
 def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
@@ -317,9 +332,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
         in_service_assessments(user)
         .filter(risk_changed_at__gte=since)
         .exclude(risk_was="")
-        .annotate(previous_limit=previous_limit)
-        .filter(previous_limit__isnull=False)
-        .exclude(previous_limit=F("limit_source"))
+        .filter(Differs(previous_limit, F("limit_source")))  # the look-up runs once per capacitor
         .count()
     )
     moves = {
@@ -348,6 +361,25 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     }
 
 
+# The chart builders' own code is part of each cached figure's key: a new release builds them anew.
+CHARTS_CODE = hashlib.sha256(Path(charts.__file__).read_bytes()).hexdigest()[:16]
+FIGURE_CACHE_SECONDS = 24 * 3600
+
+
+def cached_figure(builder, *numbers) -> dict:
+    """The figure `builder(*numbers)` from Django's cache, keyed by a digest of the numbers it is
+    built from (and the chart code): building one through Plotly's graph objects takes tens of
+    milliseconds, the numbers change only with a reading, refit, order or stock change, and any
+    change to them is a new key (in their order too), so a cached figure is never stale."""
+    digest = hashlib.sha256(json.dumps(numbers, cls=DjangoJSONEncoder).encode()).hexdigest()
+    key = f"figure:{builder.__name__}:{CHARTS_CODE}:{digest}"
+    figure = cache.get(key)
+    if figure is None:
+        figure = builder(*numbers)
+        cache.set(key, figure, FIGURE_CACHE_SECONDS)
+    return figure
+
+
 def dashboard(user=None, today: dt.date | None = None) -> dict:
     """Everything the dashboard shows, with its figures (a fixed number of queries)."""
     today = today or timezone.localdate()
@@ -357,7 +389,11 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
     routes = readings_by_route(user, today)
     weeks = [w.isoformat() for w in workload["weeks"]]
     months = [m.isoformat() for m in spares["months"]]
-    chart_parts = [{**row, "code": row["part"].code} for row in spares["parts"]]
+    # The charts' numbers only (no model instance), so that they key the cached figures.
+    chart_parts = [
+        {**{key: value for key, value in row.items() if key != "part"}, "code": row["part"].code}
+        for row in spares["parts"]
+    ]
     return {
         "today": today,
         "workload": workload,
@@ -369,11 +405,13 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
         "visits_total": sum(workload["visits"]),
         "overdue_total": sum(r["overdue"] for r in routes["routes"]),
         "overdue_days": READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS,
-        "workload_chart": workload_figure(weeks, workload["by_risk"], workload["by_site"], workload["visits"]),
-        "spares_chart": spares_figure(months, chart_parts, spares["cost_per_month"]),
-        "stock_chart": stock_figure(chart_parts),
-        "mix_chart": risk_mix_figure(mix["sites"], mix["levels"], mix["counts"]),
-        "routes_chart": routes_figure(routes["routes"]),
+        "workload_chart": cached_figure(
+            workload_figure, weeks, workload["by_risk"], workload["by_site"], workload["visits"]
+        ),
+        "spares_chart": cached_figure(spares_figure, months, chart_parts, spares["cost_per_month"]),
+        "stock_chart": cached_figure(stock_figure, chart_parts),
+        "mix_chart": cached_figure(risk_mix_figure, mix["sites"], mix["levels"], mix["counts"]),
+        "routes_chart": cached_figure(routes_figure, routes["routes"]),
     }
 
 

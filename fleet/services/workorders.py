@@ -9,13 +9,13 @@ from operator import or_
 import numpy as np
 from django.core.paginator import Paginator
 from django.db import transaction
-from django.db.models import Count, F, Q, Window
+from django.db.models import Count, F, OuterRef, Q, Subquery, Window
 from django.db.models.functions import RowNumber
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import bundle_visits
-from fleet.models import FittedCapacitor, WorkOrder
+from fleet.models import FittedCapacitor, Motor, WorkOrder
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
@@ -105,13 +105,18 @@ def _open_orders(user=None):
 
 
 def _spares(orders) -> dict[tuple, list[tuple[str, int]]]:
-    """Parts each visit (day, site id) takes, counted in SQL."""
+    """Parts each visit (day, site id) takes, counted in SQL; each order's part looked up by its
+    capacitor's key (a join read every fitted capacitor for a few thousand orders)."""
     spares: dict[tuple, list[tuple[str, int]]] = {}
+    part_code = Subquery(
+        FittedCapacitor.objects.filter(pk=OuterRef("fitted_capacitor_id")).order_by().values("part__code")
+    )
     rows = (
         orders.filter(fitted_capacitor__isnull=False)
-        .values_list("due_on", "site_id", "fitted_capacitor__part__code")
+        .annotate(part_code=part_code)
+        .values_list("due_on", "site_id", "part_code")
         .annotate(quantity=Count("id"))
-        .order_by("due_on", "site_id", "fitted_capacitor__part__code")
+        .order_by("due_on", "site_id", "part_code")
     )
     for day, site_id, code, quantity in rows:
         spares.setdefault((day, site_id), []).append((code, quantity))
@@ -132,9 +137,10 @@ def open_visit(site_id: int, day: dt.date, user=None) -> dict:
 
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
     """A page of open visits (site, day) at the user's sites, soonest first: each with its order
-    count, its first `orders_shown` orders in walking order and its spares. Five queries, whatever
+    count, its first `orders_shown` orders in walking order and its spares. Six queries, whatever
     the number of orders: the visits are grouped and counted in SQL, the orders cut per visit by a
-    window function."""
+    window function over the orders alone (each one's motor looked up by its key: joining the motors
+    first read every motor), then the orders shown are read with their motors."""
     orders = _open_orders(user)
     visits = (
         orders.values("due_on", "site_id", "site__code").annotate(count=Count("id")).order_by("due_on", "site__code")
@@ -144,17 +150,27 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     if not keys:
         return page
     in_page = reduce(or_, (Q(due_on=day, site_id=site_id) for day, site_id in keys))
+    motor = Motor.objects.filter(pk=OuterRef("motor_id")).order_by()  # no default ordering: a key look-up
     position = Window(
         RowNumber(),
         partition_by=[F("due_on"), F("site_id")],
-        order_by=[F("motor__route_order").asc(), F("motor__asset_tag").asc(), F("id").asc()],
+        order_by=[
+            Subquery(motor.values("route_order")).asc(),
+            Subquery(motor.values("asset_tag")).asc(),
+            F("id").asc(),
+        ],
     )
-    listed = (
+    shown = list(
         orders.filter(in_page)
-        .select_related("motor", "site", "fitted_capacitor__part")
         .annotate(position=position)
         .filter(position__lte=orders_shown)
-        .order_by("due_on", "site__code", "position")
+        .order_by()
+        .values_list("id", flat=True)
+    )
+    listed = (
+        WorkOrder.objects.filter(id__in=shown)
+        .select_related("motor", "site", "fitted_capacitor__part")
+        .order_by("due_on", "site__code", "motor__route_order", "motor__asset_tag", "id")
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
