@@ -80,6 +80,20 @@ def test_rows_written_in_bulk_read_back_as_given(three_motors):
     assert first.created_at is not None and first.fitted_capacitor == fitted_capacitor
 
 
+def test_a_time_in_another_zone_is_stored_as_the_same_instant(three_motors):
+    """COPY gets each time as UTC text with its offset, whatever zone the frame's column is in."""
+    madrid = _readings(three_motors[0], ["k-1", "k-2"]).assign(
+        taken_at=pd.to_datetime(["2024-03-31 01:59:59.999999", "2024-03-31 03:00:00.000001"]).tz_localize(
+            "Europe/Madrid"
+        )
+    )
+    insert_frame(Reading, madrid)
+    assert list(Reading.objects.order_by("taken_at").values_list("taken_at", flat=True)) == [
+        dt.datetime(2024, 3, 31, 0, 59, 59, 999999, tzinfo=dt.UTC),  # before the clocks went forward (UTC+1)
+        dt.datetime(2024, 3, 31, 1, 0, 0, 1, tzinfo=dt.UTC),  # after (UTC+2)
+    ]
+
+
 def test_skipping_conflicts_skips_only_the_clashing_rows(three_motors):
     fitted_capacitor = three_motors[0]
     with transaction.atomic():

@@ -22,6 +22,7 @@ import time
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 from django.db import IntegrityError, connection, transaction
 from django.db.models import Field, ForeignObject, JSONField, Lookup
 from django.utils import timezone
@@ -85,11 +86,16 @@ def insert_frame(model, frame: pd.DataFrame, *, skip_conflicts_on: str | None = 
 
 
 def _csv(frame: pd.DataFrame) -> bytes:
-    """The frame as CSV for COPY: a missing value is an empty field, empty text is `""`."""
+    """The frame as CSV for COPY: a missing value is an empty field, empty text is `""`.
+
+    Date-times go as UTC text with its offset, made by pyarrow's cast of the naive UTC time
+    (its CSV writer formats a time-zone-aware column about twenty times slower)."""
     columns = {}
     for name, values in frame.items():
         if isinstance(values.dtype, pd.DatetimeTZDtype):
-            columns[name] = pa.array(values.dt.floor("us"), from_pandas=True).cast(pa.timestamp("us", tz="UTC"))
+            utc = pa.array(values.dt.tz_convert("UTC").dt.tz_localize(None).dt.floor("us"), from_pandas=True)
+            text = pc.cast(utc.cast(pa.timestamp("us")), pa.string())
+            columns[name] = pc.binary_join_element_wise(text, pa.scalar("+00:00"), "")
         else:
             columns[name] = pa.array(values, from_pandas=True)
     buffer = io.BytesIO()
