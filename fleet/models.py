@@ -29,7 +29,7 @@ from fleet.engineering.planning import (
     RISK_WATCH,
     TOLERANCE_LIMIT,
 )
-from fleet.engineering.rules import CONDITION_SOUND, METHOD_IN_CIRCUIT, METHOD_METER
+from fleet.engineering.rules import CONDITION_SOUND, METHOD_IN_CIRCUIT, METHOD_METER, nameplate_problems
 from fleet.engineering.trends import (
     DIELECTRIC_ELECTROLYTIC,
     DIELECTRIC_FILM,
@@ -212,6 +212,20 @@ class Motor(models.Model):
 
     def __str__(self):
         return self.asset_tag
+
+    def clean(self):
+        """Nameplate figures no capacitor motor has are refused at their field, by the register import's rule."""
+        super().clean()
+        if None in (self.rated_voltage_v, self.full_load_current_a, self.output_w):
+            return  # a missing figure is the field's own error
+        errors = {}
+        for rows, field_name, message in nameplate_problems(
+            self.rated_voltage_v, self.full_load_current_a, self.output_w
+        ):
+            if rows[0] and field_name not in errors:
+                errors[field_name] = message[0].upper() + message[1:] + "."
+        if errors:
+            raise ValidationError(errors)
 
     @property
     def has_circuit(self) -> bool:

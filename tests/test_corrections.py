@@ -71,6 +71,9 @@ def test_the_api_takes_a_correction_and_names_the_field_when_it_cannot(technicia
     assert again.status_code == 400 and "already corrected" in again.json()["supersedes"][0]
     unknown = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": 999999}, format="json")
     assert unknown.status_code == 400 and "not a reading of this capacitor" in unknown.json()["supersedes"][0]
+    for beyond in (2**63, 10**23):  # past any row's id: SQLite cannot even look one up (it was a 500)
+        answer = client.post(url, {"method": "meter", "capacitance_uf": 3.8, "supersedes": beyond}, format="json")
+        assert answer.status_code == 400 and "not a reading of this capacitor" in answer.json()["supersedes"][0]
     assert Reading.objects.count() == 2
 
 

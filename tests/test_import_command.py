@@ -263,3 +263,42 @@ def test_the_import_benchmark_runs_small_and_leaves_only_its_fleet():
     assert "circuit estimate:" in text and "register import:" in text and "refused: no" in text
     assert not Reading.objects.exists()
     assert Motor.objects.count() == 30  # the benchmark's own fleet; the imported register was undone
+
+
+def test_nameplate_figures_no_capacitor_motor_has_are_refused_by_row_and_field(tmp_path):
+    """A 1e30 W output or a 1e30 A current imported as they were (and a motor page then showed them);
+    bounds: common practice of the trade, no single source; output below V x I [derived]."""
+    for kind in ("sites", "parts"):
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS}[kind]))
+    header = REGISTER.splitlines()[0] + "\n"
+    rows = [
+        "BIG-1,PK,fan,permanent_split,fan_law,230,50,4,1e30,1.9,1370,RUN-8,,2023-03-01",
+        "BIG-2,PK,fan,permanent_split,fan_law,230,50,4,250,1e30,1370,RUN-8,,2023-03-01",
+        "BIG-3,PK,fan,permanent_split,fan_law,230,50,4,500,1.9,1370,RUN-8,,2023-03-01",
+        "OK-1,PK,fan,permanent_split,fan_law,230,50,4,250,1.9,1370,RUN-8,,2023-03-01",
+    ]
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="3 rows have problems"):
+        call_command("import", "register", str(write(tmp_path, "r.csv", header + "\n".join(rows))), stdout=out)
+    report = out.getvalue()
+    assert "row 2, output_w: over 15,000 W: not a capacitor motor" in report
+    assert "row 3, full_load_current_a: over 150 A: check the unit" in report
+    assert "row 4, output_w: at or above rated voltage times full-load current" in report  # 500 W > 437 VA
+    assert "row 5" not in report and not Motor.objects.exists()
+
+
+def test_the_admin_refuses_the_same_nameplates_at_their_field():
+    """The register (admin) runs the import's rule through Motor.clean."""
+    from django.core.exceptions import ValidationError
+
+    from tests.factories import make_motor
+
+    motor = make_motor()
+    motor.output_w = 1e30
+    with pytest.raises(ValidationError) as refused:
+        motor.full_clean()
+    assert "Over 15,000 W" in refused.value.message_dict["output_w"][0]
+    motor.output_w, motor.full_load_current_a = 250.0, 0.5  # 250 W from 115 VA at 230 V
+    with pytest.raises(ValidationError) as refused:
+        motor.full_clean()
+    assert "less than it draws" in refused.value.message_dict["output_w"][0]

@@ -145,6 +145,9 @@ def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planne
     assert not SiteStock.objects.exists()
     assert client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "0"}).status_code == 302
     assert list(SiteStock.objects.values_list("part__code", "quantity")) == [(part.code, 4)]
+    emptied = client.post(url, {f"qty-{part.id}": " ", f"was-{part.id}": "4"})  # a box cleared by a glove
+    assert f"{part.code}: is empty: type 0 if none are held" in emptied.content.decode()
+    assert list(SiteStock.objects.values_list("part__code", "quantity")) == [(part.code, 4)]
     signed_in_client(client, technician)
     assert client.get(url).status_code == 200
     assert client.post(url, {f"qty-{part.id}": "9"}).status_code == 403

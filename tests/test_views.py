@@ -37,6 +37,17 @@ def test_motor_page_shows_the_cautions_and_the_capacitors(signed_in, technician,
     assert fan_fitted_capacitor.part.code in body
 
 
+def test_a_capacitor_in_service_carries_the_cautions_with_its_own_stored_energy(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """Its page links to the reading form and gives a replace-by date: it sends someone to the motor.
+    Energy 1/2 C V_peak^2 at the rating: 4 uF at the peak of 450 V rms (636 V) holds 0.81 J [textbook]."""
+    body = signed_in(technician).get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    assert "never a screwdriver" in body and "Local codes" in body
+    assert "This one can hold about 0.8 J at the peak of its rated voltage" in body
+    assert "rated 450 V" in body
+
+
 def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in, technician, fan_fitted_capacitor):
     client = signed_in(technician)
     response = client.get(reverse("find"), {"tag": fan_fitted_capacitor.motor.asset_tag.lower()})

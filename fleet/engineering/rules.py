@@ -111,6 +111,39 @@ def _messages(condition, template, **columns):
     return out
 
 
+# Nameplate bounds for the single-phase capacitor motors this tool tracks (fractional horsepower up to the
+# largest single-phase capacitor motors made, about 10 kW; common practice of the trade, no single source).
+NAMEPLATE_MAX_OUTPUT_W = 15_000.0
+NAMEPLATE_MAX_CURRENT_A = 150.0
+
+
+def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for nameplate figures no capacitor motor has, vectorised over a register:
+    output and full-load current above zero and within the bounds above, and an output below the
+    volt-amperes drawn at full load (efficiency times power factor is under one [derived])."""
+    volts, amps, watts = (np.atleast_1d(np.asarray(v, float)) for v in (rated_voltage_v, full_load_current_a, output_w))
+    with np.errstate(invalid="ignore"):
+        return [
+            (~(watts > 0), "output_w", "must be above zero"),
+            (
+                watts > NAMEPLATE_MAX_OUTPUT_W,
+                "output_w",
+                f"over {NAMEPLATE_MAX_OUTPUT_W:,.0f} W: not a capacitor motor",
+            ),
+            (~(amps > 0), "full_load_current_a", "must be above zero"),
+            (
+                amps > NAMEPLATE_MAX_CURRENT_A,
+                "full_load_current_a",
+                f"over {NAMEPLATE_MAX_CURRENT_A:.0f} A: check the unit",
+            ),
+            (
+                (watts > 0) & (amps > 0) & (watts >= volts * amps),
+                "output_w",
+                "at or above rated voltage times full-load current: a motor puts out less than it draws",
+            ),
+        ]
+
+
 def capacitance_unit_slip(capacitance_uf, rated_uf):
     """A value 300-3000 times the rating was typed in nanofarads; 1000x too small
     in millifarads; more than three times the rating is not this capacitor

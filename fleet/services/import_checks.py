@@ -12,6 +12,7 @@ import pandas as pd
 from django.utils import timezone
 
 from fleet.engineering.rules import check_readings as reading_rules
+from fleet.engineering.rules import nameplate_problems
 from fleet.imports.columns import (
     CHUNK_ROWS,
     EARLIEST_DATE,
@@ -268,8 +269,8 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
     problems.add(~np.isin(hertz, [50, 60]), "frequency_hz", "must be 50 or 60")
     problems.add(~np.isin(poles, [2, 4, 6, 8, 10, 12]), "poles", "must be 2, 4, 6, 8, 10 or 12")
-    for name in ("output_w", "full_load_current_a"):
-        problems.add(numbers[name] <= 0, name, "must be above zero")
+    for rows, name, message in nameplate_problems(volts, numbers["full_load_current_a"], numbers["output_w"]):
+        problems.add(rows, name, message)
     synchronous = 120.0 * hertz / np.where(poles > 0, poles, np.nan)
     problems.add(
         numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)"

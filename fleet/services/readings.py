@@ -16,6 +16,7 @@ from fleet.audit import audited_update
 from fleet.engineering.rules import check_readings, parse_numbers
 from fleet.engineering.substitutes import SUITABLE
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors
+from fleet.services.bulk import storable_ids
 from fleet.services.substitutes import design_part, verdict_of_part
 
 log = logging.getLogger(__name__)
@@ -138,6 +139,8 @@ def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str 
         reading_id = int(reading_id)
     except ValueError:
         raise ValidationError({"supersedes": f"{str(reading_id)[:20]!r} is not a reading number."}) from None
+    if not storable_ids([reading_id]):  # no row has such an id (SQLite cannot even look one up)
+        raise ValidationError({"supersedes": f"Reading {str(reading_id)[:24]} is not a reading of this capacitor."})
     reading = (
         Reading.objects.filter(fitted_capacitor=fitted_capacitor, pk=reading_id).select_related("superseded_by").first()
     )
@@ -236,6 +239,8 @@ def _correction_sent_before(fitted_capacitor: FittedCapacitor, supersedes_id, va
     try:
         corrected_id = int(supersedes_id)
     except (TypeError, ValueError):
+        return None
+    if not storable_ids([corrected_id]):
         return None
     earlier = Reading.objects.filter(fitted_capacitor=fitted_capacitor, supersedes_id=corrected_id).first()
     owner = user.pk if user is not None and user.is_authenticated else None

@@ -54,7 +54,9 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
             errors[f"part {part_id}"] = "is not in the catalogue."
             continue
         value = _whole_number(text)
-        if not 0 <= value <= 99999:
+        if not str(text).strip():
+            errors[part.code] = "is empty: type 0 if none are held (an emptied box is not taken as 0)."
+        elif not 0 <= value <= 99999:
             errors[part.code] = f"{text!r} is not a whole number from 0 to 99999."
         values[part_id] = value
     if errors:
@@ -87,8 +89,8 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
 
 
 def _whole_number(text) -> int:
-    """A quantity typed on the stock form; -1 where it is not a whole number."""
+    """A quantity typed on the stock form; -1 where it is not a whole number (empty included)."""
     try:
-        return int(str(text).strip() or "0")
+        return int(str(text).strip())
     except ValueError:
         return -1

@@ -63,7 +63,14 @@ def motor_detail(request, asset_tag):
             for name, figure in pictures.get(capacitor.id, {}).items()
         ]
     energy = max((worst_case_energy_j(c.part) for c in in_service), default=None)
-    context = {"motor": motor, "in_service": in_service, "removed": removed, "energy_j": energy, "pictures": pictures}
+    context = {
+        "motor": motor,
+        "in_service": in_service,
+        "removed": removed,
+        "energy_j": energy,
+        "energy_of": "The largest capacitor on this motor" if len(in_service) > 1 else "",
+        "pictures": pictures,
+    }
     return render(request, "fleet/motor.html", context)
 
 
@@ -90,5 +97,6 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "assessment": assessment,
         "chart": pages.trend_chart(fitted_capacitor, assessment),
         "readings": pages.recent_readings(fitted_capacitor, 40),
+        "energy_j": worst_case_energy_j(fitted_capacitor.part),
     }
     return render(request, "fleet/capacitor.html", context)

@@ -142,3 +142,24 @@ def test_many_readings_are_checked_in_one_call():
     values[::1000] = "nan"
     result = check({"capacitance_uf": values})
     assert result.bad.sum() == n // 1000
+
+
+def test_nameplate_problems_bound_a_capacitor_motors_output_and_current():
+    """Bounds: common practice of the trade, no single source (single-phase capacitor motors are made up to
+    about 10 kW); output below V x I: efficiency times power factor is under one [derived]."""
+    from fleet.engineering.rules import nameplate_problems
+
+    volts = np.array([230.0, 230.0, 230.0, 115.0, 230.0, 230.0])
+    amps = np.array([1.9, 1e30, 1.9, 6.0, 0.0, 40.0])
+    watts = np.array([250.0, 250.0, 1e30, 700.0, 250.0, 7500.0])
+    flagged = {}
+    for rows, field, message in nameplate_problems(volts, amps, watts):
+        for row in np.flatnonzero(rows):
+            flagged.setdefault(int(row), []).append((field, message))
+    assert 0 not in flagged and 5 not in flagged  # a 250 W fan at 1.9 A; a 7.5 kW compressor motor at 40 A
+    assert ("full_load_current_a", "over 150 A: check the unit") in flagged[1]
+    assert flagged[2][0][0] == "output_w" and "over 15,000 W" in flagged[2][0][1]
+    assert flagged[3] == [
+        ("output_w", "at or above rated voltage times full-load current: a motor puts out less than it draws")
+    ]
+    assert flagged[4][0] == ("full_load_current_a", "must be above zero")
