@@ -13,6 +13,7 @@ from django.core.exceptions import ValidationError
 from django.core.paginator import Page
 from django.core.validators import MaxValueValidator, MinValueValidator
 
+from .engineering.lifedata import MAX_REPLACEMENT_COST
 from .engineering.rules import parse_numbers
 from .models import Assessment, FittedCapacitor, Reading, Site
 from .roles import scope_to_user
@@ -114,7 +115,12 @@ class _PageParameters(django_filters.FilterSet):
 
 
 class PositiveNumberField(forms.CharField):
-    """A number above zero in the rulebook's syntax: "60,5" is 60.5; "1.200,5" is refused, not guessed."""
+    """A number above zero in the rulebook's syntax: "60,5" is 60.5; "1.200,5" is refused, not guessed;
+    `highest` (when given) is the most it takes."""
+
+    def __init__(self, *args, highest: float | None = None, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.highest = highest
 
     def clean(self, value):
         text = super().clean(value)
@@ -123,6 +129,8 @@ class PositiveNumberField(forms.CharField):
         number = float(parse_numbers([text])[0][0])
         if not number > 0:
             raise ValidationError("must be a number above zero")
+        if self.highest is not None and number > self.highest:
+            raise ValidationError(f"must be at most {self.highest:,.0f}")
         return number
 
 
@@ -134,8 +142,8 @@ class LifeDataPage(_PageParameters):
     """The life-data page: ?part=RUN-4U-450&planned_cost=60&failure_cost=400 (the engineer's costs)."""
 
     part = django_filters.CharFilter(method="keep", max_length=40)
-    planned_cost = PositiveNumberFilter(method="keep")
-    failure_cost = PositiveNumberFilter(method="keep")
+    planned_cost = PositiveNumberFilter(method="keep", highest=MAX_REPLACEMENT_COST)
+    failure_cost = PositiveNumberFilter(method="keep", highest=MAX_REPLACEMENT_COST)
 
     class Meta:
         model = FittedCapacitor

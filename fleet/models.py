@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import datetime as dt
 
+import numpy as np
+
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.core.validators import RegexValidator
@@ -29,7 +31,16 @@ from fleet.engineering.planning import (
     RISK_WATCH,
     TOLERANCE_LIMIT,
 )
-from fleet.engineering.rules import CONDITION_SOUND, METHOD_IN_CIRCUIT, METHOD_METER, nameplate_problems
+from fleet.engineering.rules import (
+    CONDITION_SOUND,
+    METHOD_IN_CIRCUIT,
+    METHOD_METER,
+    first_problem_by_field,
+    known_time_zone,
+    nameplate_problems,
+    part_problems,
+    service_date_problems,
+)
 from fleet.engineering.trends import (
     DIELECTRIC_ELECTROLYTIC,
     DIELECTRIC_FILM,
@@ -126,6 +137,14 @@ class Site(models.Model):
     def __str__(self):
         return f"{self.code} {self.name}"
 
+    def clean(self):
+        """A time zone the tz database does not know is refused, by the sites import's rule."""
+        super().clean()
+        if not known_time_zone(self.time_zone):
+            raise ValidationError(
+                {"time_zone": "Not a time zone name: use one like Europe/Madrid, America/Chicago or UTC."}
+            )
+
 
 class Motor(models.Model):
     class Application(models.TextChoices):
@@ -218,12 +237,9 @@ class Motor(models.Model):
         super().clean()
         if None in (self.rated_voltage_v, self.full_load_current_a, self.output_w):
             return  # a missing figure is the field's own error
-        errors = {}
-        for rows, field_name, message in nameplate_problems(
-            self.rated_voltage_v, self.full_load_current_a, self.output_w
-        ):
-            if rows[0] and field_name not in errors:
-                errors[field_name] = message[0].upper() + message[1:] + "."
+        errors = first_problem_by_field(
+            nameplate_problems(self.rated_voltage_v, self.full_load_current_a, self.output_w)
+        )
         if errors:
             raise ValidationError(errors)
 
@@ -287,6 +303,25 @@ class CapacitorPart(models.Model):
 
     def __str__(self):
         return f"{self.code} ({self.rated_uf:g} µF {self.rated_voltage_v:g} V)"
+
+    def clean(self):
+        """Catalogue figures no motor capacitor has are refused at their field, by the parts import's rule."""
+        super().clean()
+        required = (self.rated_uf, self.tolerance_minus_pct, self.tolerance_plus_pct, self.rated_voltage_v)
+        if None in required or self.frequency_hz is None:
+            return  # a missing figure is the field's own error
+        errors = first_problem_by_field(
+            part_problems(
+                *required,
+                self.frequency_hz,
+                self.max_case_temperature_c if self.max_case_temperature_c is not None else np.nan,
+                self.max_dissipation_factor if self.max_dissipation_factor is not None else np.nan,
+                float(self.unit_cost) if self.unit_cost is not None else np.nan,
+                self.tempco_ppm_per_k if self.tempco_ppm_per_k is not None else np.nan,
+            )
+        )
+        if errors:
+            raise ValidationError(errors)
 
     @property
     def lower_limit_uf(self) -> float:
@@ -361,8 +396,15 @@ class FittedCapacitor(models.Model):
         return self.readings.filter(taken_at__gte=next_day)
 
     def clean(self):
-        """A removal date earlier than a reading of this capacitor is refused (the trigger holds it too)."""
+        """Service dates no record has (the history import's rule), and a removal date earlier than a
+        reading of this capacitor (the trigger holds it too), are refused at their field."""
         super().clean()
+        if self.fitted_on is not None:
+            errors = first_problem_by_field(
+                service_date_problems(self.fitted_on, self.removed_on or "NaT", timezone.localdate())
+            )
+            if errors:
+                raise ValidationError(errors)
         if self.pk and self.removed_on is not None:
             later = self.readings_after(self.removed_on).order_by("-taken_at").first()
             if later is not None:
@@ -382,6 +424,8 @@ class SiteStock(models.Model):
     quantity = models.IntegerField(default=0)
 
     CONSTRAINT_FIELDS = {"stock_quantity_not_negative": "quantity"}
+    # More spares of one part than any site's store holds is a typing slip (ours); the stock page's rule too.
+    MAX_QUANTITY = 99999
 
     class Meta:
         ordering = ["site__code", "part__code"]
@@ -397,6 +441,12 @@ class SiteStock(models.Model):
 
     def __str__(self):
         return f"{self.site.code} {self.part.code}: {self.quantity}"
+
+    def clean(self):
+        """A quantity past any store is refused at its field, by the stock page's rule."""
+        super().clean()
+        if self.quantity is not None and self.quantity > self.MAX_QUANTITY:
+            raise ValidationError({"quantity": f"{self.quantity} is not a whole number from 0 to {self.MAX_QUANTITY}."})
 
 
 class Reading(models.Model):

@@ -174,6 +174,19 @@ def test_the_life_data_costs_take_the_rulebooks_numbers(client, engineer):
     assert "1.200,5" in page.content.decode()
 
 
+def test_the_life_data_costs_past_any_replacement_are_refused_by_name(client, engineer):
+    """A cost of 1e300 went into the age-replacement curve (costs overflow there); the page now says which
+    cost it did not use and why (MAX_REPLACEMENT_COST, ours)."""
+    make_part(code="LIFE-2")
+    client.force_login(engineer)
+    page = client.get(reverse("life_data"), {"part": "LIFE-2", "planned_cost": "1e300", "failure_cost": "5000"})
+    assert page.status_code == 200
+    assert page.context["planned_cost"] == 60.0 and page.context["failure_cost"] == 5000.0
+    assert "The planned cost must be at most 1,000,000; &#x27;1e300&#x27; was not used, 60 was." in (
+        page.content.decode()
+    )
+
+
 # The verdict and the risk, in words
 
 

@@ -163,6 +163,12 @@ class AgeReplacement:
     run_to_failure_cost_per_time: float
 
 
+# The cost of one replacement, planned or after a failure, in the plant's currency: labour, part and lost
+# production come to tens to thousands; past a million is a slip of the decimal point (ours). The life-data
+# page refuses costs above it by name.
+MAX_REPLACEMENT_COST = 1_000_000.0
+
+
 def age_replacement(fit: WeibullFit, planned_cost, failure_cost, ages=None) -> AgeReplacement:
     """Cost per unit time of replacing at age T or at failure, whichever comes first.
 

@@ -13,6 +13,7 @@ confirmation (a voltage far above the motor's, a value far off the trend).
 from __future__ import annotations
 
 import re
+import zoneinfo
 from dataclasses import asdict, dataclass, field, fields
 from types import MappingProxyType
 
@@ -142,6 +143,132 @@ def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[t
                 "at or above rated voltage times full-load current: a motor puts out less than it draws",
             ),
         ]
+
+
+# Catalogue bounds of a motor capacitor part (IEC 60252-1 covers motor capacitors of rated voltages up to
+# 660 V; the register's 1000 V motor limit is kept so a part never refuses a motor it is fitted to; from
+# memory, unverified). Largest start capacitors are about 1500 uF, and 5000 uF is the reading rulebook's
+# own capacitance limit (common practice of the trade, no single source).
+PART_MAX_RATED_UF = 5000.0
+PART_MAX_RATED_VOLTAGE_V = 1000.0
+# Tolerances in IEC 60252-1 markings run from +/-5 % for run capacitors to -0/+30 % for start ones; old
+# electrolytics are marked -20/+80 %. A minus tolerance past 50 % puts the end-of-life limit so low no
+# forecast reaches it (from memory, unverified).
+PART_MAX_TOLERANCE_MINUS_PCT = 50.0
+PART_MAX_TOLERANCE_PLUS_PCT = 100.0
+PART_FREQUENCIES_HZ = (50, 60)
+# Upper category temperatures marked on motor capacitors: 70, 85 or 100 C; lower: -40 or -25 C (IEC 60252-1
+# categories, from memory, unverified). The plausible span of a marking, with room either side.
+PART_CASE_TEMPERATURE_C = (0.0, 150.0)
+# Film and electrolytic coefficients are a few hundred ppm/K (common practice of the trade, no single source).
+PART_MAX_TEMPCO_PPM_PER_K = 5000.0
+PART_MAX_UNIT_COST = 100_000.0  # a motor capacitor costs tens, a slip of the decimal point millions (ours)
+
+
+def part_problems(
+    rated_uf,
+    tolerance_minus_pct,
+    tolerance_plus_pct,
+    rated_voltage_v,
+    frequency_hz,
+    max_case_temperature_c=np.nan,
+    max_dissipation_factor=np.nan,
+    unit_cost=np.nan,
+    tempco_ppm_per_k=np.nan,
+) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for catalogue figures no motor capacitor has, vectorised over a parts file;
+    the optional figures pass where missing (nan). One rule for the parts import and the register's form."""
+    rated, minus, plus, volts, hertz, case, factor, cost, tempco = (
+        np.atleast_1d(np.asarray(v, float))
+        for v in (
+            rated_uf,
+            tolerance_minus_pct,
+            tolerance_plus_pct,
+            rated_voltage_v,
+            frequency_hz,
+            max_case_temperature_c,
+            max_dissipation_factor,
+            unit_cost,
+            tempco_ppm_per_k,
+        )
+    )
+    low_case, high_case = PART_CASE_TEMPERATURE_C
+    with np.errstate(invalid="ignore"):
+        return [
+            (
+                ~((rated > 0) & (rated <= PART_MAX_RATED_UF)),
+                "rated_uf",
+                f"must be above 0 and at most {PART_MAX_RATED_UF:,.0f} µF: check the unit",
+            ),
+            (
+                ~((minus >= 0) & (minus <= PART_MAX_TOLERANCE_MINUS_PCT)),
+                "tolerance_minus_pct",
+                f"must be from 0 to {PART_MAX_TOLERANCE_MINUS_PCT:g} % (5 for a run capacitor marked ±5 %)",
+            ),
+            (
+                ~((plus >= 0) & (plus <= PART_MAX_TOLERANCE_PLUS_PCT)),
+                "tolerance_plus_pct",
+                f"must be from 0 to {PART_MAX_TOLERANCE_PLUS_PCT:g} %",
+            ),
+            (
+                ~((volts > 0) & (volts <= PART_MAX_RATED_VOLTAGE_V)),
+                "rated_voltage_v",
+                f"must be above 0 and at most {PART_MAX_RATED_VOLTAGE_V:,.0f} V",
+            ),
+            (~np.isin(hertz, PART_FREQUENCIES_HZ), "frequency_hz", "must be 50 or 60"),
+            (
+                (case < low_case) | (case > high_case),
+                "max_case_temperature_c",
+                f"must be from {low_case:g} to {high_case:g} °C",
+            ),
+            ((factor <= 0) | (factor >= 1), "max_dissipation_factor", "must be a fraction above 0 and below 1"),
+            (
+                (cost < 0) | (cost > PART_MAX_UNIT_COST),
+                "unit_cost",
+                f"must be from 0 to {PART_MAX_UNIT_COST:,.0f}: check the decimal point",
+            ),
+            (
+                np.abs(tempco) > PART_MAX_TEMPCO_PPM_PER_K,
+                "tempco_ppm_per_k",
+                f"must be from -{PART_MAX_TEMPCO_PPM_PER_K:,.0f} to {PART_MAX_TEMPCO_PPM_PER_K:,.0f} ppm/K",
+            ),
+        ]
+
+
+def first_problem_by_field(problems: list[tuple[np.ndarray, str, str]]) -> dict[str, str]:
+    """For one record (row 0): the first problem of each field as a sentence, for a model's clean()."""
+    errors: dict[str, str] = {}
+    for rows, field_name, message in problems:
+        if rows[0] and field_name not in errors:
+            errors[field_name] = message[0].upper() + message[1:] + "."
+    return errors
+
+
+# A capacitor fitted before 1950 predates the motors and records this tool keeps (ours); a date ahead of
+# today is a slip of the year.
+EARLIEST_SERVICE_DAY = np.datetime64("1950-01-01", "D")
+
+
+def service_date_problems(fitted_on, removed_on, today) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for a capacitor's service dates no record has: ahead of `today`, before
+    1950, removed before fitted (NaT: not given). One rule for the history import and the register's form."""
+    fitted, removed = (np.atleast_1d(np.asarray(v, "datetime64[D]")) for v in (fitted_on, removed_on))
+    today = np.datetime64(today, "D")
+    problems = []
+    for name, day in (("fitted_on", fitted), ("removed_on", removed)):
+        problems.append((day > today, name, "in the future"))
+        problems.append((day < EARLIEST_SERVICE_DAY, name, "before 1950: check the date"))
+    problems.append((removed < fitted, "removed_on", "before fitted_on"))
+    return problems
+
+
+def known_time_zone(name) -> bool:
+    """A time zone name the tz database knows (Europe/Madrid, UTC): one rule for the sites import and form."""
+    try:
+        zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
+        return False
+    return True
 
 
 def capacitance_unit_slip(capacitance_uf, rated_uf):

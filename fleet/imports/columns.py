@@ -276,16 +276,7 @@ HISTORY_COLUMNS = {
     "notes": "Free text",
 }
 HISTORY_REQUIRED = ("asset_tag", "role", "part_code", "fitted_on")
-EARLIEST_DATE = pd.Timestamp("1950-01-01")
 OPEN_END = pd.Timestamp("2200-01-01")  # the end of a capacitor still in service, for overlap tests
-
-
-def _known_zone(name: str) -> bool:
-    try:
-        zoneinfo.ZoneInfo(name)
-    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
-        return False
-    return True
 
 
 def _result(frame: pd.DataFrame, problems: _Problems, already: np.ndarray, on_progress) -> CheckResult:

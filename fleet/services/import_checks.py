@@ -12,10 +12,9 @@ import pandas as pd
 from django.utils import timezone
 
 from fleet.engineering.rules import check_readings as reading_rules
-from fleet.engineering.rules import nameplate_problems
+from fleet.engineering.rules import known_time_zone, nameplate_problems, part_problems, service_date_problems
 from fleet.imports.columns import (
     CHUNK_ROWS,
-    EARLIEST_DATE,
     HISTORY_REQUIRED,
     OPEN_END,
     PART_NUMBERS,
@@ -26,7 +25,6 @@ from fleet.imports.columns import (
     REGISTER_REQUIRED,
     SITE_REQUIRED,
     CheckResult,
-    _known_zone,
     _numbers,
     _Problems,
     _refuse_overlaps,
@@ -349,7 +347,7 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in SITE_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
-    zones = {name: _known_zone(name) for name in set(frame["time_zone"])}
+    zones = {name: known_time_zone(name) for name in set(frame["time_zone"])}
     problems.add(
         ~frame["time_zone"].map(zones).astype(bool),
         "time_zone",
@@ -374,19 +372,8 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     for name in PART_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
-    rated, minus, plus = numbers["rated_uf"], numbers["tolerance_minus_pct"], numbers["tolerance_plus_pct"]
-    problems.add((rated <= 0) | (rated > 10_000), "rated_uf", "outside 0 to 10,000 µF: check the unit")
-    problems.add((minus < 0) | (minus >= 100), "tolerance_minus_pct", "must be from 0 to below 100 %")
-    problems.add((plus < 0) | (plus > 100), "tolerance_plus_pct", "must be from 0 to 100 %")
-    volts = numbers["rated_voltage_v"]
-    problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
-    problems.add(~np.isin(numbers["frequency_hz"], [50, 60]), "frequency_hz", "must be 50 or 60")
-    case = numbers["max_case_temperature_c"]
-    problems.add((case < 0) | (case > 150), "max_case_temperature_c", "outside 0 to 150 C")
-    factor = numbers["max_dissipation_factor"]
-    problems.add((factor <= 0) | (factor >= 1), "max_dissipation_factor", "must be a fraction above 0 and below 1")
-    cost = numbers["unit_cost"]
-    problems.add((cost < 0) | (cost >= 1e8), "unit_cost", "must be from 0 to below 100,000,000")
+    for rows, name, message in part_problems(*(numbers[name] for name in PART_NUMBERS)):
+        problems.add(rows, name, message)
     for name, choices in (
         ("dielectric", CapacitorPart.Dielectric.values),
         ("class_of_operation", CapacitorPart.OperationClass.values),
@@ -475,9 +462,8 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     fitted, removed = parse_dates(frame["fitted_on"]), parse_dates(frame["removed_on"])
     for name, parsed in (("fitted_on", fitted), ("removed_on", removed)):
         problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
-        problems.add(parsed > today, name, "in the future")
-        problems.add(parsed < EARLIEST_DATE, name, "before 1950: check the date")
-    problems.add(removed < fitted, "removed_on", "before fitted_on")
+    for rows, name, message in service_date_problems(fitted.to_numpy(), removed.to_numpy(), today.to_datetime64()):
+        problems.add(rows, name, message)
     reason = frame["removal_reason"].str.lower()
     problems.add(removed.notna() & reason.eq(""), "removal_reason", "required when removed_on is given")
     problems.add(

@@ -40,8 +40,8 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
 
 
 def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, str] | None = None) -> int:
-    """Set the quantity of each part (by id) held at the site from form text: a whole number from 0 to 99999;
-    one bad entry refuses them all, naming the part. Returns the number of rows written.
+    """Set the quantity of each part (by id) held at the site from form text: a whole number from 0 to
+    SiteStock.MAX_QUANTITY; one bad entry refuses them all, naming the part. Returns the number of rows written.
 
     `shown` is the quantity of each part as the form showed it. A part left as shown is not written, so
     a replacement that took one meanwhile is not undone; a part typed over while its quantity moved is
@@ -56,8 +56,8 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
         value = _whole_number(text)
         if not str(text).strip():
             errors[part.code] = "is empty: type 0 if none are held (an emptied box is not taken as 0)."
-        elif not 0 <= value <= 99999:
-            errors[part.code] = f"{text!r} is not a whole number from 0 to 99999."
+        elif not 0 <= value <= SiteStock.MAX_QUANTITY:
+            errors[part.code] = f"{text!r} is not a whole number from 0 to {SiteStock.MAX_QUANTITY}."
         values[part_id] = value
     if errors:
         raise ValidationError(errors)
