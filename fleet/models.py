@@ -10,7 +10,6 @@ from __future__ import annotations
 import datetime as dt
 
 import numpy as np
-
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.core.validators import RegexValidator

@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import hashlib
 import operator
-import zoneinfo
 from dataclasses import dataclass, field
 
 import numpy as np
