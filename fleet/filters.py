@@ -170,12 +170,18 @@ class LabelsPage(_PageParameters):
         fields = ["tag"]
 
 
+HORIZON_WORDS = "type a whole number of days from 7 to 730, e.g. 90"
+
+
 class PlanParameters(_PageParameters):
     """The plan page's and its downloads' site and horizon (the plan itself comes from a service)."""
 
     site = django_filters.ModelChoiceFilter(queryset=_sites_of, to_field_name="code", method="keep")
     days = django_filters.NumberFilter(
-        method="keep", validators=[MinValueValidator(7), MaxValueValidator(730)], label="Horizon (days)"
+        method="keep",
+        validators=[MinValueValidator(7, HORIZON_WORDS), MaxValueValidator(730, HORIZON_WORDS)],
+        label="Horizon (days)",
+        error_messages={"invalid": HORIZON_WORDS},
     )
 
     class Meta:
@@ -187,7 +193,7 @@ def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site |
     """(site, horizon in days, messages on what was ignored) from a plan query string; a site
     the requesting user does not work at is ignored like an unknown one."""
     values, refused = page_parameters(PlanParameters, query, request)
-    problems = [f"{name}: {message}" for name, message in refused.items()]
+    problems = [f"{name}: {message.rstrip('.')}" for name, message in refused.items()]
     return values.get("site"), int(values.get("days") or default_days), problems
 
 

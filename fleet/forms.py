@@ -109,13 +109,25 @@ class ReadingForm(forms.Form):
 
 
 class ReplacementForm(forms.Form):
-    part = forms.ModelChoiceField(queryset=CapacitorPart.objects.none(), label="Part fitted now")
+    part = forms.ModelChoiceField(
+        queryset=CapacitorPart.objects.none(),
+        label="Part fitted now",
+        error_messages={"required": "Choose the part you fitted, as on the new capacitor's label."},
+    )
     serial = forms.CharField(required=False, label="Serial or date code of the new capacitor")
     removed_on = forms.DateField(
-        initial=timezone.localdate, label="Replaced on", widget=forms.DateInput(attrs={"type": "date"})
+        initial=timezone.localdate,
+        label="Replaced on",
+        widget=forms.DateInput(attrs={"type": "date"}),
+        error_messages={"required": "Enter the day you replaced it, e.g. 2026-03-14."},
     )
     removal_reason = forms.ChoiceField(
-        choices=FittedCapacitor.RemovalReason.choices, widget=forms.RadioSelect, label="Why the old one came out"
+        choices=FittedCapacitor.RemovalReason.choices,
+        widget=forms.RadioSelect,
+        label="Why the old one came out",
+        error_messages={
+            "required": "Choose why the old capacitor came out: failed in service, replaced on plan, or other."
+        },
     )
     notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
     substitute_override = forms.BooleanField(
@@ -141,6 +153,9 @@ class FindMotorForm(forms.Form):
     tag = forms.CharField(
         label="Asset tag, part of it, or where the motor is",
         max_length=40,
+        error_messages={
+            "required": "Type the asset tag from the motor's label (or part of it), or where the motor is.",
+        },
         widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
     )
 

@@ -56,6 +56,24 @@ def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in
     assert "No motor&#x27;s tag, place or site matches" in response.content.decode()
 
 
+def test_an_empty_search_says_what_to_type(signed_in, technician):
+    """Django's stock "This field is required." told a technician nothing about what to type."""
+    page = signed_in(technician).get(reverse("find"), {"tag": "  "}).content.decode()
+    assert "This field is required" not in page
+    assert "Type the asset tag from the motor&#x27;s label (or part of it), or where the motor is." in page
+
+
+def test_a_replacement_without_a_reason_says_what_to_choose(signed_in, technician, fan_fitted_capacitor):
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
+    response = signed_in(technician).post(
+        url, {"part": fan_fitted_capacitor.part_id, "removed_on": timezone.localdate().isoformat()}
+    )
+    page = response.content.decode()
+    assert response.status_code == 200 and "This field is required" not in page
+    assert "Choose why the old capacitor came out: failed in service, replaced on plan, or other." in page
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1  # nothing saved
+
+
 def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_fitted_capacitor):
     url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     response = signed_in(technician).post(
@@ -346,7 +364,9 @@ def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, 
     client.force_login(planner)
     for days in ("abc", "-5", "99999"):
         response = client.post("/work-orders/", {"action": "plan", "days": days}, follow=True)
-        assert "No work orders planned: days" in response.content.decode(), days
+        page = response.content.decode()
+        assert "No work orders planned: days: type a whole number of days from 7 to 730, e.g. 90." in page, days
+        assert ".." not in page.replace("...", ""), days  # one full stop, not Django's "Enter a number.."
     assert not WorkOrder.objects.exists()
 
 
