@@ -17,4 +17,5 @@ urlpatterns = [
     path("", include("fleet.urls")),
 ]
 
+handler404 = "fleet.faults.page_not_found"
 handler500 = "fleet.faults.server_error"

@@ -10,7 +10,6 @@ from __future__ import annotations
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.db.models import F
-from django.shortcuts import get_object_or_404
 from django_filters.rest_framework import DjangoFilterBackend
 from rest_framework import generics, permissions, serializers, status
 from rest_framework.exceptions import NotFound
@@ -20,6 +19,7 @@ from rest_framework.response import Response
 from .filters import AssessmentFilter, ReadingFilter
 from .models import Assessment, FittedCapacitor, Reading
 from .roles import scope_to_user
+from .services.bulk import storable_ids
 from .services.counts import assessed_total
 from .services.pages import in_service_assessments
 from .services.readings import NeedsConfirmation, record_reading
@@ -34,6 +34,15 @@ class ModelPermissionsWithView(permissions.DjangoModelPermissions):
         "GET": ["%(app_label)s.view_%(model_name)s"],
         "HEAD": ["%(app_label)s.view_%(model_name)s"],
     }
+
+
+def fitted_capacitor_or_not_found(request, pk) -> FittedCapacitor:
+    """The fitted capacitor `pk` at the requesting user's sites, or a 404 saying so in plain words."""
+    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), request.user)
+    found = capacitors.filter(pk__in=storable_ids([pk])).first()
+    if found is None:
+        raise NotFound(f"No fitted capacitor {pk} at the sites you work at.")
+    return found
 
 
 class NumberedPages(PageNumberPagination):
@@ -187,8 +196,7 @@ class FittedCapacitorReadings(generics.ListCreateAPIView):
     pagination_class = NumberedPages
 
     def fitted_capacitor(self) -> FittedCapacitor:
-        capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), self.request.user)
-        return get_object_or_404(capacitors, pk=self.kwargs["pk"])
+        return fitted_capacitor_or_not_found(self.request, self.kwargs["pk"])
 
     def get_queryset(self):
         return Reading.objects.filter(fitted_capacitor=self.fitted_capacitor()).order_by("taken_at", "id")
@@ -286,8 +294,7 @@ class FittedCapacitorSubstitutes(generics.GenericAPIView):
     queryset = FittedCapacitor.objects.none()  # for the permission class's model lookup
 
     def get(self, request, *args, **kwargs):
-        capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), request.user)
-        fitted_capacitor = get_object_or_404(capacitors, pk=self.kwargs["pk"])
+        fitted_capacitor = fitted_capacitor_or_not_found(request, self.kwargs["pk"])
         raw = request.query_params.get("parts")
         codes = None if raw is None else [code.strip() for code in raw.split(",") if code.strip()]
         if codes is not None and not codes:

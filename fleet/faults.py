@@ -3,7 +3,8 @@
 Installed as the site's 500 handler, so it also covers failures in middleware
 (the session and the login check touch the database before any view runs).
 Pages get a friendly page that retries by itself, the API a JSON body; both
-say when to retry. Any other error keeps Django's 500 page.
+say when to retry. Any other error keeps Django's 500 page (JSON under /api/). The 404
+handler answers JSON under /api/ too.
 """
 
 from __future__ import annotations
@@ -23,11 +24,30 @@ API_PREFIX = "/api/"
 
 
 def server_error(request, template_name: str = defaults.ERROR_500_TEMPLATE_NAME):
-    """Django's handler500, called while the exception is being handled."""
+    """Django's handler500, called while the exception is being handled; the API answers JSON."""
     error = sys.exc_info()[1]
     if isinstance(error, DATABASE_ERRORS):
         return database_unavailable(request)
+    if request.path.startswith(API_PREFIX):
+        return JsonResponse({"detail": "The server failed on this request; it has been logged."}, status=500)
     return defaults.server_error(request, template_name)
+
+
+def page_not_found(request, exception, template_name: str = defaults.ERROR_404_TEMPLATE_NAME):
+    """Django's handler404: an address under /api/ that names nothing answers JSON (the API answers JSON
+    only), saying which addresses there are; pages keep the page that offers the motor search."""
+    if request.path.startswith(API_PREFIX):
+        body = {
+            "detail": f"No API address {request.path}.",
+            "addresses": [
+                "/api/assessments/",
+                "/api/readings/",
+                "/api/fitted-capacitors/<id>/readings/",
+                "/api/fitted-capacitors/<id>/substitutes/",
+            ],
+        }
+        return JsonResponse(body, status=404)
+    return defaults.page_not_found(request, exception, template_name)
 
 
 def database_unavailable(request) -> HttpResponse:

@@ -106,3 +106,29 @@ def test_a_reading_without_its_method_or_as_malformed_json_is_refused_naming_why
 def test_a_planner_cannot_post_readings(planner, fan_fitted_capacitor):
     url = reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id])
     assert client_for(planner).post(url, {"method": "meter", "capacitance_uf": 3.9}, format="json").status_code == 403
+
+
+def test_a_fitted_capacitor_that_is_not_there_is_named_in_plain_words(engineer):
+    client = client_for(engineer)
+    for address in (
+        "/api/fitted-capacitors/987654/readings/",
+        "/api/fitted-capacitors/987654/substitutes/",
+        "/api/fitted-capacitors/99999999999999999999999/readings/",  # past any row id: no overflow
+    ):
+        response = client.get(address)
+        assert response.status_code == 404 and response["Content-Type"] == "application/json", address
+        number = address.split("/")[3]
+        assert response.json()["detail"] == f"No fitted capacitor {number} at the sites you work at.", address
+        assert "FittedCapacitor" not in response.content.decode()
+
+
+@pytest.mark.parametrize("address", ["/api/", "/api/nope/", "/api/fitted-capacitors/abc/readings/"])
+@pytest.mark.parametrize("signed_in", [True, False])
+def test_every_api_address_answers_json_even_one_that_names_nothing(engineer, address, signed_in):
+    """The README: the API answers JSON only. A 404 under /api/ was Django's HTML page."""
+    client = client_for(engineer) if signed_in else APIClient()
+    response = client.get(address)
+    assert response.status_code == 404
+    assert response["Content-Type"] == "application/json"
+    body = response.json()
+    assert body["detail"] == f"No API address {address}." and "/api/assessments/" in body["addresses"]
