@@ -156,7 +156,7 @@ FAN-1,run,RUN-8,2008-01-01,2009-01-01,worn
     assert "row 11, removal_reason: must be failed, planned or other" in report
     assert FittedCapacitor.objects.count() == 2
     out = run("history", tmp_path / "history.csv", "--good-rows-only")
-    assert "Imported 1 rows." in out and FittedCapacitor.objects.filter(fitted_on=dt.date(2010, 1, 1)).exists()
+    assert "Imported 1 row." in out and FittedCapacitor.objects.filter(fitted_on=dt.date(2010, 1, 1)).exists()
 
 
 def test_a_bad_row_is_named_by_row_and_field_and_good_rows_only_imports_the_rest(tmp_path):

@@ -395,3 +395,52 @@ def test_the_database_still_refuses_a_reading_after_removal_and_nothing_goes_in(
     with pytest.raises(IntegrityError), transaction.atomic():
         insert_readings(result.good)
     assert not Reading.objects.exists()
+
+
+def test_a_file_with_headings_and_no_rows_is_refused_as_having_no_data_rows(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """It was "Checked" and offered "All or nothing: import 0 rows"; now it says so and offers nothing."""
+    for content, name in ((csv_of([]), "empty.csv"), (b"asset_tag;role\r\n\r\n", "blank-lines.csv")):
+        with pytest.raises(FileRefused, match="column headings but no data rows"):
+            read_table(content, name)
+    workbook = Workbook()
+    workbook.active.append(HEADER)
+    saved = io.BytesIO()
+    workbook.save(saved)
+    with pytest.raises(FileRefused, match="column headings but no data rows"):
+        read_table(saved.getvalue(), "empty.xlsx")
+    client.force_login(technician)
+    upload = io.BytesIO(csv_of([]))
+    upload.name = "empty.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get()
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert job.state == ImportJob.State.REFUSED and "no data rows" in page
+    assert 'value="all"' not in page and "import 0 rows" not in page
+
+
+def test_a_malformed_csv_names_the_line_it_stopped_at():
+    """Python's "',' expected after '\"'" with no line; now the line and what to do."""
+    content = b'asset_tag,notes\nA,fine\nB,"closed" then more\nC,fine\n'
+    with pytest.raises(FileRefused) as refused:
+        read_table(content, "quotes.csv")
+    message = str(refused.value)
+    assert message.startswith("The CSV cannot be read at line 3: a field in quotes is closed by")
+    assert 'two quotes ("")' in message and "expected after" not in message
+
+
+def test_the_check_page_says_in_words_why_all_or_nothing_is_not_offered_and_counts_in_proper_english(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """The disabled button explained itself only in a tooltip (phones show none); "the 1 good rows"."""
+    fleet_of(1)
+    rows = good_rows(["IMP-0000"], 1) + [["NO-SUCH", "run", "2021-06-01 09:00", "meter", "4.0", "", "", "31", ""]]
+    job = check_job(create_job(kind="readings", filename="q.csv", content=csv_of(rows), user=technician).id)
+    client.force_login(technician)
+    assert (job.state, job.good_rows, job.error_rows) == (ImportJob.State.CHECKED, 1, 1)
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert "All or nothing is not possible:</strong> 1 row has problems. Fix it in the file" in page
+    assert 'aria-describedby="import-why-not-all"' in page and "title=" not in page.split('value="all"')[1][:80]
+    assert "Import the 1 good row, leave 1 out" in page and "1 good rows" not in page

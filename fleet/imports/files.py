@@ -93,6 +93,11 @@ def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]
     else:
         header, body = _read_csv(content, limits)
     _refuse_repeated_headings(header)
+    if not len(body):
+        raise FileRefused(
+            "The file has column headings but no data rows, so there is nothing to import: "
+            "add the rows under the headings."
+        )
     return header, body
 
 
@@ -167,8 +172,9 @@ def _read_csv_columns(
 def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str], list[list[str]]]:
     """The exact reader, row by row: what the fast one leaves to it, with its messages."""
     rows = []
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
     try:
-        for row in csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True):
+        for row in reader:
             if not "".join(row).strip():
                 continue
             if not rows and len(row) > limits.columns:
@@ -177,7 +183,7 @@ def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str]
             if len(rows) > limits.rows + 1:
                 raise limits.too_many_rows(len(rows) - 1)
     except csv.Error as error:
-        raise FileRefused(f"The CSV cannot be read: {error}. The file may be cut off inside a quoted field.") from error
+        raise FileRefused(_csv_error_words(error, reader.line_num, delimiter)) from error
     if not rows:
         raise FileRefused("The file is empty.")
     header, body = [h.strip() for h in rows[0]], rows[1:]
@@ -188,6 +194,19 @@ def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str]
                 f"or a field holds an unquoted {'semicolon' if delimiter == ';' else 'comma'}. Nothing was imported."
             )
     return header, body
+
+
+def _csv_error_words(error: csv.Error, line: int, delimiter: str) -> str:
+    """Python's CSV error, with the line it stopped at and what to do about it."""
+    separator = {",": "comma", ";": "semicolon", "\t": "tab"}[delimiter]
+    if "expected after" in str(error):
+        what = (
+            f'a field in quotes is closed by " and followed by other text instead of a {separator}: write a quote '
+            'inside a quoted field as two quotes ("")'
+        )
+    else:
+        what = f"{error}; the file may be cut off inside a quoted field"
+    return f"The CSV cannot be read at line {line}: {what}. Nothing was imported."
 
 
 def _refuse_repeated_headings(header: list[str]) -> None:

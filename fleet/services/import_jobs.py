@@ -17,6 +17,7 @@ from dataclasses import dataclass
 
 from django.conf import settings
 from django.db import DatabaseError, connection, transaction
+from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
 from fleet.exports import csv_bytes
@@ -169,7 +170,10 @@ def import_file(
     )
     result = outcome.result
     if result.errors and mode == ImportJob.Mode.ALL_OR_NOTHING:
-        outcome.refused = f"{result.error_rows} rows have problems, so nothing was imported (all or nothing)."
+        outcome.refused = (
+            f"{result.error_rows} row{pluralize(result.error_rows)} {pluralize(result.error_rows, 'has,have')} "
+            "problems, so nothing was imported (all or nothing)."
+        )
         return outcome
     if dry_run:
         return outcome

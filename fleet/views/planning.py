@@ -10,6 +10,7 @@ from django.core.exceptions import PermissionDenied
 from django.core.paginator import Paginator
 from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
+from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
 from fleet.exports import Column, Table, stream_csv
@@ -56,10 +57,11 @@ def work_orders(request):
                 messages.error(request, f"No work orders planned: {'; '.join(problems)}.")
                 return redirect("work_orders")
             counts = plan_work_orders(horizon_days=horizon, user=request.user)
+            created, replanned, visits = counts["created"], counts["replanned"], counts["visits"]
             messages.success(
                 request,
-                f"{counts['created']} work orders created, {counts['replanned']} re-dated, "
-                f"in {counts['visits']} site visits.",
+                f"{created} work order{pluralize(created)} created, {replanned} re-dated, "
+                f"in {visits} site visit{pluralize(visits)}.",
             )
         elif action == "issue":
             try:
@@ -70,7 +72,7 @@ def work_orders(request):
             else:
                 issued = issue_visit(site_id=site_id, due_on=day, user=request.user)
                 if issued:
-                    messages.success(request, f"{issued} work orders issued to the technicians.")
+                    messages.success(request, f"{issued} work order{pluralize(issued)} issued to the technicians.")
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")

@@ -3,6 +3,7 @@
 from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
+from django.template.defaultfilters import pluralize
 
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
@@ -37,8 +38,8 @@ class Command(BaseCommand):
             raise CommandError(f"{file}: refused. {error}") from error
         result = outcome.result
         self.stdout.write(
-            f"{file}: {result.total} rows: {len(result.good)} good, {result.duplicates} already imported, "
-            f"{result.error_rows} with problems."
+            f"{file}: {result.total} row{pluralize(result.total)}: {len(result.good)} good, "
+            f"{result.duplicates} already imported, {result.error_rows} with problems."
         )
         for row, field_name, message in result.errors:
             self.stdout.write(f"  row {row}, {field_name}: {message}")
@@ -47,8 +48,9 @@ class Command(BaseCommand):
         if dry_run:
             if not len(result.good):
                 raise CommandError("Dry run: nothing would be imported.")
-            self.stdout.write(f"Dry run: nothing was saved; {len(result.good)} rows would be imported.")
+            good = len(result.good)
+            self.stdout.write(f"Dry run: nothing was saved; {good} row{pluralize(good)} would be imported.")
             return
         if not outcome.imported:
             raise CommandError("Nothing was imported.")
-        self.stdout.write(self.style.SUCCESS(f"Imported {outcome.imported} rows."))
+        self.stdout.write(self.style.SUCCESS(f"Imported {outcome.imported} row{pluralize(outcome.imported)}."))
