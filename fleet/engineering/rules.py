@@ -93,7 +93,10 @@ class ReadingRules:
     def as_dict(self) -> dict:
         """Plain numbers for the page's live hint (json_script)."""
         out = {f.name: getattr(self, f.name) for f in fields(self) if f.name != "ranges"}
-        out["ranges"] = {name: asdict(r) for name, r in self.ranges.items()}
+        out["ranges"] = {
+            name: asdict(r) | dict(zip(("too_low", "too_high"), range_words(name, r), strict=True))
+            for name, r in self.ranges.items()
+        }
         return out
 
 
@@ -401,19 +404,22 @@ def _unit(name: str) -> str:
     return UNITS.get(name.rsplit("_", 1)[-1], "")
 
 
+def range_words(name: str, r: Range) -> tuple[str, str]:
+    """What a value below and above the field's range is told (after the value itself), for the
+    server's messages and the page's live check alike."""
+    unit = _unit(name)
+    below = f"must be above {r.lowest:g} {unit}" if r.above else f"must be {r.lowest:g} {unit} or more"
+    return below, f"is above {r.highest:g} {unit}, the most a reading of a small motor shows"
+
+
 def range_messages(name: str, values, rules: ReadingRules = RULES) -> np.ndarray:
     """Messages for values outside the field's plausible range (missing values pass)."""
     r = rules.ranges[name]
     v = np.atleast_1d(np.asarray(values, float))
-    unit = _unit(name)
     low = (v <= r.lowest) if r.above else (v < r.lowest)
     high = v > r.highest
-    below = f"must be above {r.lowest:g} {unit}" if r.above else f"must be {r.lowest:g} {unit} or more"
-    return np.where(
-        low,
-        _messages(low, "{v:g} " + below, v=v),
-        _messages(high, "{v:g} is above " + f"{r.highest:g} {unit}, the most a reading of a small motor shows", v=v),
-    )
+    below, above = range_words(name, r)
+    return np.where(low, _messages(low, "{v:g} " + below, v=v), _messages(high, "{v:g} " + above, v=v))
 
 
 @dataclass(frozen=True)

@@ -17,11 +17,22 @@ def test_a_decimal_comma_is_read_as_the_server_reads_it(phone, motor_with_histor
     computed = phone.locator("#computed")
     assert "3.94\u00a0µF" in computed.inner_text() and "within tolerance" in computed.inner_text()
     phone.fill("#id_case_temperature_c", "200")
-    assert "outside -40 to 150" in computed.inner_text()
+    assert "Capacitor case temperature (°C): 200 is above 150 °C, the most a reading" in computed.inner_text()
     phone.fill("#id_case_temperature_c", "31")
     phone.click("#save")
     phone.wait_for_url("**/motors/**")
     assert Reading.objects.order_by("-id").first().capacitance_uf == 3.94
+
+
+def test_the_hint_says_a_voltage_of_zero_must_be_above_zero_as_the_server_does(phone, motor_with_history):  # noqa: F811
+    """It said "outside 0 to 5000" for 0 V, which reads as if 0 were allowed."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.check("input[value=in_circuit]")
+    phone.fill("#id_capacitor_current_a", "0.49")
+    phone.fill("#id_capacitor_voltage_v", "0")
+    text = phone.locator("#computed").inner_text()
+    assert "Voltage across capacitor (V): 0 must be above 0 V" in text and "outside" not in text
 
 
 def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_history):  # noqa: F811

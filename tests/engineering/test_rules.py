@@ -163,3 +163,24 @@ def test_nameplate_problems_bound_a_capacitor_motors_output_and_current():
         ("output_w", "at or above rated voltage times full-load current: a motor puts out less than it draws")
     ]
     assert flagged[4][0] == ("full_load_current_a", "must be above zero")
+
+
+def test_the_live_checks_words_for_a_range_are_the_servers():
+    """The page's hint said a 0 V reading was "outside 0 to 5000"; it now carries the server's own words."""
+    hint = RULES.as_dict()["ranges"]
+    assert hint["capacitor_voltage_v"]["too_low"] == "must be above 0 V"
+    assert hint["capacitor_voltage_v"]["too_high"] == "is above 5000 V, the most a reading of a small motor shows"
+    assert hint["case_temperature_c"]["too_low"] == "must be -40 °C or more"
+    result = check_readings(
+        {"capacitance_uf": ["4.0"], "line_voltage_v": ["0"]},
+        method=["meter"],
+        rated_uf=4.0,
+        frequency_hz=50.0,
+        motor_voltage_v=230.0,
+        full_load_current_a=1.9,
+        fitted_on=np.datetime64("2020-01-01"),
+        removed_on=np.datetime64("NaT"),
+        taken_at=np.array(["2024-01-01T09:00"], "datetime64[s]"),
+        now=np.datetime64("2024-06-01T00:00"),
+    )
+    assert result.errors["line_voltage_v"][0] == "0 " + hint["line_voltage_v"]["too_low"] == "0 must be above 0 V"
