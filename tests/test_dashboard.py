@@ -1,6 +1,7 @@
 """The planner's dashboard reads stored results by aggregation; the daily digest by email."""
 
 import datetime as dt
+import re
 
 import numpy as np
 import pytest
@@ -235,6 +236,12 @@ def test_each_chart_downloads_its_numbers(client):
         response = client.get(reverse("dashboard_csv", args=[name]))
         text = b"".join(response.streaming_content).decode("utf-8-sig")
         assert text.startswith(heading), name
+        headings = text.splitlines()[0].split(",")
+        assert all(re.fullmatch(r"[A-Za-z0-9_.-]+", h) for h in headings), headings  # snake_case, no spaces
+    workload = b"".join(client.get(reverse("dashboard_csv", args=["workload"])).streaming_content).decode("utf-8-sig")
+    header = workload.splitlines()[0].split(",")
+    assert header[:3] == ["week_starting", "replace_now", "due_soon"], header  # was "replace now"
+    assert header[-1] == "site_visits" and any(h.startswith("site_") and h != "site_visits" for h in header)
     assert client.get(reverse("dashboard_csv", args=["nothing"])).status_code == 404
 
 
@@ -277,7 +284,7 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     assert "THERE-0002 run capacitor: last read 2026-07-01, 154 days ago" in full
     assert f"https://fleet.example.org{reverse('route', args=['THERE'])}?show=due" in full
     assert "charge that can kill" in full
-    assert "1 to replace now, 1 readings overdue" in by_recipient["all@example.org"].subject
+    assert "1 to replace now, 1 reading overdue" in by_recipient["all@example.org"].subject
     assert "HERE-0001" not in by_recipient["there@example.org"].body  # another site's capacitor
     assert no_address.email == ""
 

@@ -10,6 +10,7 @@ from django.conf import settings
 from django.contrib.auth.models import User
 from django.core.mail import EmailMessage, get_connection
 from django.db import transaction
+from django.template.defaultfilters import pluralize
 from django.urls import reverse
 from django.utils import timezone
 
@@ -112,7 +113,7 @@ def send_daily_digest(*, today: dt.date | None = None) -> dict:
             continue
         top = sum(item["kind"] == DigestEntry.Kind.TOP_RISK for item in mine)
         overdue = len(mine) - top
-        subject = f"Fleet digest {today:%Y-%m-%d}: {top} to {TOP_RISK}, {overdue} readings overdue"
+        subject = f"Fleet digest {today:%Y-%m-%d}: {top} to {TOP_RISK}, {overdue} reading{pluralize(overdue)} overdue"
         messages.append(EmailMessage(subject, _body(mine, today), settings.DEFAULT_FROM_EMAIL, [planner.email]))
     if messages:
         get_connection().send_messages(messages)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import json
+import re
 from collections import Counter
 from pathlib import Path
 
@@ -418,13 +419,19 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
 TABLES = ("workload", "spares", "risk-mix", "readings")
 
 
+def column_heading(words: str) -> str:
+    """A download's column heading in snake_case, as every dashboard CSV writes them ("replace now" is
+    replace_now, site CST's column site_CST): no spaces, so a script reads it as a name."""
+    return re.sub(r"\s+", "_", words.strip())
+
+
 def dashboard_table(name: str, user=None, today: dt.date | None = None) -> tuple[list[str], list[list]]:
-    """One chart's numbers as a table (header, rows) for download."""
+    """One chart's numbers as a table (header, rows) for download; headings in snake_case."""
     today = today or timezone.localdate()
     if name == "workload":
         data = weekly_workload(user, today)
         levels, sites = list(data["by_risk"]), list(data["by_site"])
-        header = ["week_starting", *levels, *(f"site {s}" for s in sites), "site_visits"]
+        header = ["week_starting", *map(column_heading, levels), *(f"site_{s}" for s in sites), "site_visits"]
         rows = [
             [week, *(data["by_risk"][r][k] for r in levels), *(data["by_site"][s][k] for s in sites), data["visits"][k]]
             for k, week in enumerate(data["weeks"])
@@ -450,7 +457,7 @@ def dashboard_table(name: str, user=None, today: dt.date | None = None) -> tuple
         return header, rows
     if name == "risk-mix":
         data = risk_mix(user)
-        header = ["site", *(level.replace(" ", "_") for level in data["levels"])]
+        header = ["site", *map(column_heading, data["levels"])]
         return header, [[site, *(data["counts"][site][level] for level in data["levels"])] for site in data["sites"]]
     if name == "readings":
         data = readings_by_route(user, today)
