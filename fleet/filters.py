@@ -14,6 +14,7 @@ from django.core.paginator import Page
 from django.core.validators import MaxValueValidator, MinValueValidator
 
 from .engineering.lifedata import MAX_REPLACEMENT_COST
+from .engineering.planning import PLAN_HORIZON_DAYS
 from .engineering.rules import parse_numbers
 from .models import Assessment, FittedCapacitor, Reading, Site
 from .roles import scope_to_user
@@ -170,7 +171,8 @@ class LabelsPage(_PageParameters):
         fields = ["tag"]
 
 
-HORIZON_WORDS = "type a whole number of days from 7 to 730, e.g. 90"
+SHORTEST_DAYS, LONGEST_DAYS = PLAN_HORIZON_DAYS
+HORIZON_WORDS = f"type a whole number of days from {SHORTEST_DAYS} to {LONGEST_DAYS}, e.g. 90"
 
 
 class PlanParameters(_PageParameters):
@@ -179,7 +181,7 @@ class PlanParameters(_PageParameters):
     site = django_filters.ModelChoiceFilter(queryset=_sites_of, to_field_name="code", method="keep")
     days = django_filters.NumberFilter(
         method="keep",
-        validators=[MinValueValidator(7, HORIZON_WORDS), MaxValueValidator(730, HORIZON_WORDS)],
+        validators=[MinValueValidator(SHORTEST_DAYS, HORIZON_WORDS), MaxValueValidator(LONGEST_DAYS, HORIZON_WORDS)],
         label="Horizon (days)",
         error_messages={"invalid": HORIZON_WORDS},
     )

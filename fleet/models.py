@@ -29,6 +29,7 @@ from fleet.engineering.planning import (
     RISK_SOUND,
     RISK_WATCH,
     TOLERANCE_LIMIT,
+    work_order_problems,
 )
 from fleet.engineering.rules import (
     CONDITION_SOUND,
@@ -833,6 +834,14 @@ class WorkOrder(models.Model):
 
     def __str__(self):
         return f"{self.get_kind_display()} {self.motor.asset_tag} by {self.due_on}"
+
+    def clean(self):
+        """A due date past the plan's reach or a visit window no plan makes is refused at its field."""
+        super().clean()
+        if self.due_on is not None and self.window_days is not None:
+            errors = first_problem_by_field(work_order_problems(self.due_on, self.window_days, timezone.localdate()))
+            if errors:
+                raise ValidationError(errors)
 
 
 class RefitRun(models.Model):

@@ -400,3 +400,24 @@ def test_a_stock_quantity_past_any_stores_is_refused_in_the_admin_as_on_the_stoc
     assert "99999" in refused.value.message_dict["quantity"][0]
     stock.quantity = 12
     stock.full_clean()
+
+
+def test_a_work_order_no_plan_makes_is_refused_in_the_admin():
+    """The admin took a work order due in 9999 or a visit window of 100,000 days (the plan reaches 730
+    days ahead and bundles fortnights: fleet/engineering/planning.py, ours)."""
+    from django.core.exceptions import ValidationError
+
+    from fleet.models import WorkOrder
+    from tests.factories import make_fitted_capacitor
+
+    fitted = make_fitted_capacitor()
+    order = WorkOrder(motor=fitted.motor, fitted_capacitor=fitted, kind="replace_run", due_on=dt.date(2026, 1, 5))
+    order.full_clean()
+    order.due_on = dt.date(9999, 1, 1)
+    with pytest.raises(ValidationError) as refused:
+        order.full_clean()
+    assert "More than 730 days ahead, past the plan's reach." == refused.value.message_dict["due_on"][0]
+    order.due_on, order.window_days = dt.date(2026, 1, 5), 100_000
+    with pytest.raises(ValidationError) as refused:
+        order.full_clean()
+    assert "from 1 to 90 days" in refused.value.message_dict["window_days"][0]

@@ -22,6 +22,28 @@ RISK_ORDER = (RISK_REPLACE_NOW, RISK_DUE_SOON, RISK_WATCH, RISK_SOUND)
 TOLERANCE_LIMIT = "tolerance"
 DISSIPATION_LIMIT = "dissipation factor"  # the second wear sign, on the ESR readings' trend
 # Quantiles of the crossing date the risk rule may flag on; the back-test picks one per family.
+# The replacement plan looks from a week to two years ahead (ours): further, a forecast's band is wider than
+# the plan is long. Work orders are dated within that reach and bundled into visits of at most a quarter.
+PLAN_HORIZON_DAYS = (7, 730)
+WORK_ORDER_MAX_WINDOW_DAYS = 90
+
+
+def work_order_problems(due_on, window_days, today) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for work orders no plan makes: due past the plan's reach, or a visit window
+    of no days or more than a quarter. One rule for the register's form (the planner keeps to it by design)."""
+    due = np.atleast_1d(np.asarray(due_on, "datetime64[D]"))
+    window = np.atleast_1d(np.asarray(window_days, float))
+    furthest = np.datetime64(today, "D") + np.timedelta64(PLAN_HORIZON_DAYS[1], "D")
+    return [
+        (due > furthest, "due_on", f"more than {PLAN_HORIZON_DAYS[1]} days ahead, past the plan's reach"),
+        (
+            ~((window >= 1) & (window <= WORK_ORDER_MAX_WINDOW_DAYS)),
+            "window_days",
+            f"must be from 1 to {WORK_ORDER_MAX_WINDOW_DAYS} days",
+        ),
+    ]
+
+
 ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
 EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
 
