@@ -29,99 +29,76 @@ REMOVAL_BEFORE_READINGS = importlib.import_module(
 READING = ("fleet_reading_not_after_removal", "fleet_reading")
 REMOVAL = ("fleet_removal_not_before_readings", "fleet_fittedcapacitor")
 
-SQLITE_FORWARD = [
-    *sqlite_drops(READING[0], REMOVAL[0]),
-    sqlite_row_trigger(
-        READING[0],
-        "BEFORE INSERT",
-        READING[1],
-        "EXISTS (SELECT 1 FROM fleet_fittedcapacitor f WHERE f.id = NEW.fitted_capacitor_id\n"
-        "                 AND f.removed_on IS NOT NULL AND julianday(NEW.taken_at) >= julianday(f.removed_on) + 1.5)",
-        f"SELECT RAISE(ABORT, '{AFTER_REMOVAL}');",
-    ),
-    sqlite_row_trigger(
-        REMOVAL[0],
-        "BEFORE UPDATE OF removed_on",
-        REMOVAL[1],
-        "NEW.removed_on IS NOT NULL AND EXISTS (SELECT 1 FROM fleet_reading r WHERE r.fitted_capacitor_id = NEW.id\n"
-        "                 AND julianday(r.taken_at) >= julianday(NEW.removed_on) + 1.5)",
-        f"SELECT RAISE(ABORT, '{REMOVAL_BEFORE_READINGS}');",
-    ),
-]
-SQLITE_BACKWARD = [  # the rules as 0009 left them, with the column's name since 0022
-    *sqlite_drops(READING[0], REMOVAL[0]),
-    f"""
-    CREATE TRIGGER fleet_reading_not_after_removal BEFORE INSERT ON fleet_reading
-    WHEN EXISTS (SELECT 1 FROM fleet_fittedcapacitor f WHERE f.id = NEW.fitted_capacitor_id
-                 AND f.removed_on IS NOT NULL AND date(NEW.taken_at) > f.removed_on)
-    BEGIN SELECT RAISE(ABORT, '{AFTER_REMOVAL}'); END;
-    """,
-    f"""
-    CREATE TRIGGER fleet_removal_not_before_readings BEFORE UPDATE OF removed_on ON fleet_fittedcapacitor
-    WHEN NEW.removed_on IS NOT NULL AND EXISTS (SELECT 1 FROM fleet_reading r WHERE r.fitted_capacitor_id = NEW.id
-                                                AND date(r.taken_at) > NEW.removed_on)
-    BEGIN SELECT RAISE(ABORT, '{REMOVAL_BEFORE_READINGS}'); END;
-    """,
-]
-POSTGRES_FORWARD = [
-    *postgres_drops(READING, REMOVAL),
-    *plpgsql_statement_trigger(
-        READING[0],
-        "AFTER INSERT",
-        READING[1],
-        f"""
-        IF EXISTS (SELECT 1 FROM new_readings r JOIN fleet_fittedcapacitor f ON f.id = r.fitted_capacitor_id
-                   WHERE f.removed_on IS NOT NULL
-                   AND r.taken_at >= (f.removed_on + interval '36 hours') AT TIME ZONE 'UTC') THEN
-          RAISE EXCEPTION '{AFTER_REMOVAL}' USING ERRCODE = 'check_violation';
-        END IF;
-        RETURN NULL;
-        """,
-        new_rows="new_readings",
-    ),
-    *plpgsql_trigger(
-        REMOVAL[0],
-        "BEFORE UPDATE OF removed_on",
-        REMOVAL[1],
-        f"""
-        IF NEW.removed_on IS NOT NULL AND EXISTS (
-            SELECT 1 FROM fleet_reading r WHERE r.fitted_capacitor_id = NEW.id
-            AND r.taken_at >= (NEW.removed_on + interval '36 hours') AT TIME ZONE 'UTC') THEN
-          RAISE EXCEPTION '{REMOVAL_BEFORE_READINGS}' USING ERRCODE = 'check_violation';
-        END IF;
-        RETURN NEW;
-        """,
-    ),
-]
-POSTGRES_BACKWARD = [
-    *postgres_drops(READING, REMOVAL),
-    *plpgsql_statement_trigger(
-        READING[0],
-        "AFTER INSERT",
-        READING[1],
-        f"""
-        IF EXISTS (SELECT 1 FROM new_readings r JOIN fleet_fittedcapacitor f ON f.id = r.fitted_capacitor_id
-                   WHERE f.removed_on IS NOT NULL AND (r.taken_at AT TIME ZONE 'UTC')::date > f.removed_on) THEN
-          RAISE EXCEPTION '{AFTER_REMOVAL}' USING ERRCODE = 'check_violation';
-        END IF;
-        RETURN NULL;
-        """,
-        new_rows="new_readings",
-    ),
-    *plpgsql_trigger(
-        REMOVAL[0],
-        "BEFORE UPDATE OF removed_on",
-        REMOVAL[1],
-        f"""
-        IF NEW.removed_on IS NOT NULL AND EXISTS (
-            SELECT 1 FROM fleet_reading r WHERE r.fitted_capacitor_id = NEW.id
-            AND (r.taken_at AT TIME ZONE 'UTC')::date > NEW.removed_on) THEN
-          RAISE EXCEPTION '{REMOVAL_BEFORE_READINGS}' USING ERRCODE = 'check_violation';
-        END IF;
-        RETURN NEW;
-        """,
-    ),
-]
+
+def _sqlite(later_than_removal: str) -> list[str]:
+    """SQLite: both triggers, a reading counting as after the removal where `later_than_removal`
+    (on `taken_at` and `removed_on`) holds."""
+    reading_after = later_than_removal.format(taken_at="NEW.taken_at", removed_on="f.removed_on")
+    removal_before = later_than_removal.format(taken_at="r.taken_at", removed_on="NEW.removed_on")
+    return [
+        *sqlite_drops(READING[0], REMOVAL[0]),
+        sqlite_row_trigger(
+            READING[0],
+            "BEFORE INSERT",
+            READING[1],
+            "EXISTS (SELECT 1 FROM fleet_fittedcapacitor f WHERE f.id = NEW.fitted_capacitor_id\n"
+            f"                 AND f.removed_on IS NOT NULL AND {reading_after})",
+            f"SELECT RAISE(ABORT, '{AFTER_REMOVAL}');",
+        ),
+        sqlite_row_trigger(
+            REMOVAL[0],
+            "BEFORE UPDATE OF removed_on",
+            REMOVAL[1],
+            "NEW.removed_on IS NOT NULL AND EXISTS (SELECT 1 FROM fleet_reading r\n"
+            f"                 WHERE r.fitted_capacitor_id = NEW.id AND {removal_before})",
+            f"SELECT RAISE(ABORT, '{REMOVAL_BEFORE_READINGS}');",
+        ),
+    ]
+
+
+# From 36 hours after the removal date's UTC midnight on; before, the reading's UTC date after it (0009;
+# backwards with the column's name since 0022).
+SQLITE_FORWARD = _sqlite("julianday({taken_at}) >= julianday({removed_on}) + 1.5")
+SQLITE_BACKWARD = _sqlite("date({taken_at}) > {removed_on}")
+
+
+def _postgres(later_than_removal: str) -> list[str]:
+    """PostgreSQL: both triggers, a reading counting as after the removal where `later_than_removal`
+    (on `taken_at` and `removed_on`) holds."""
+    reading_after = later_than_removal.format(taken_at="r.taken_at", removed_on="f.removed_on")
+    removal_before = later_than_removal.format(taken_at="r.taken_at", removed_on="NEW.removed_on")
+    return [
+        *postgres_drops(READING, REMOVAL),
+        *plpgsql_statement_trigger(
+            READING[0],
+            "AFTER INSERT",
+            READING[1],
+            f"""
+            IF EXISTS (SELECT 1 FROM new_readings r JOIN fleet_fittedcapacitor f ON f.id = r.fitted_capacitor_id
+                       WHERE f.removed_on IS NOT NULL AND {reading_after}) THEN
+              RAISE EXCEPTION '{AFTER_REMOVAL}' USING ERRCODE = 'check_violation';
+            END IF;
+            RETURN NULL;
+            """,
+            new_rows="new_readings",
+        ),
+        *plpgsql_trigger(
+            REMOVAL[0],
+            "BEFORE UPDATE OF removed_on",
+            REMOVAL[1],
+            f"""
+            IF NEW.removed_on IS NOT NULL AND EXISTS (
+                SELECT 1 FROM fleet_reading r WHERE r.fitted_capacitor_id = NEW.id AND {removal_before}) THEN
+              RAISE EXCEPTION '{REMOVAL_BEFORE_READINGS}' USING ERRCODE = 'check_violation';
+            END IF;
+            RETURN NEW;
+            """,
+        ),
+    ]
+
+
+POSTGRES_FORWARD = _postgres("{taken_at} >= ({removed_on} + interval '36 hours') AT TIME ZONE 'UTC'")
+POSTGRES_BACKWARD = _postgres("({taken_at} AT TIME ZONE 'UTC')::date > {removed_on}")
 
 
 class Migration(migrations.Migration):
