@@ -377,8 +377,8 @@ class FittedCapacitor(models.Model):
         super().clean()
         if self.pk and self.removed_on is not None:
             later = self.readings_after(self.removed_on).order_by("-taken_at").first()
-            zone = site_zone(self.motor.site.time_zone)
             if later is not None:
+                zone = site_zone(self.motor.site.time_zone)
                 raise ValidationError(
                     {
                         "removed_on": f"This capacitor has readings after {self.removed_on} "

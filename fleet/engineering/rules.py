@@ -482,6 +482,10 @@ def _check_readings(
     return RuleResult(values=values, errors=errors.by_field, confirm=kept_confirm)
 
 
+# The start of the rulebook's message for a reading after its capacitor's removal day.
+AFTER_REMOVAL = "after this capacitor was removed"
+
+
 def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_on, now, rules: ReadingRules) -> None:
     taken = _column(taken_at, n, "datetime64[s]")
     day = taken.astype("datetime64[D]") if taken_on is None else _column(taken_on, n, "datetime64[D]")
@@ -492,7 +496,7 @@ def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_o
     before = day < fitted
     errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=_day_text(fitted)))
     after = ~np.isnat(removed) & (day > removed)
-    removal = "after this capacitor was removed on {d} (site time: readings of that day are still its own)"
+    removal = AFTER_REMOVAL + " on {d} (site time: readings of that day are still its own)"
     errors.add("taken_at", after, _messages(after, removal, d=_day_text(removed)))
     errors.add("taken_at", taken > latest, "in the future")
 

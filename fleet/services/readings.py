@@ -14,7 +14,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_update
-from fleet.engineering.rules import check_readings, parse_numbers
+from fleet.engineering.rules import AFTER_REMOVAL, check_readings, parse_numbers
 from fleet.engineering.substitutes import SUITABLE
 from fleet.imports.columns import local_days
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors, site_zone
@@ -101,7 +101,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         confirmed=confirmed,
     )
     errors = {name: _sentence(message) for name, message in result.row(0).items()}
-    if "taken_at" in errors and fitted_capacitor.removed_on is not None:
+    if result.errors["taken_at"][0].startswith(AFTER_REMOVAL):
         errors["taken_at"] += ". " + _fitted_now(fitted_capacitor)
     if errors:
         raise ValidationError(errors)
