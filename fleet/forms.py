@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import uuid
-import zoneinfo
 
 import pandas as pd
 from django import forms
@@ -13,7 +12,7 @@ from django.utils import timezone
 from fleet.imports.columns import parse_times
 
 from .engineering.rules import RULES
-from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading
+from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
 
 # The phone's date-and-time picker sends minutes: "2026-03-14T09:30" (wall-clock time at the site).
 LOCAL_MINUTE = "%Y-%m-%dT%H:%M"
@@ -29,14 +28,6 @@ def number(label: str, unit: str, required: bool = False, help_text: str = "") -
         max_length=40,
         widget=forms.TextInput(attrs={"inputmode": "decimal", "autocomplete": "off"}),
     )
-
-
-def site_zone(name: str) -> zoneinfo.ZoneInfo:
-    """A site's time zone; one nobody knows falls back to the plant's (settings.TIME_ZONE)."""
-    try:
-        return zoneinfo.ZoneInfo(name)
-    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
-        return zoneinfo.ZoneInfo(settings.TIME_ZONE)
 
 
 class ReadingForm(forms.Form):

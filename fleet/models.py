@@ -8,6 +8,7 @@ readings never edited) are triggers installed by migration 0002.
 from __future__ import annotations
 
 import datetime as dt
+import zoneinfo
 
 import numpy as np
 from django.conf import settings
@@ -124,6 +125,14 @@ def constraint_errors(instance: models.Model) -> dict[str, list[str]]:
         except ValidationError as error:
             errors.setdefault(fields.get(constraint.name, "__all__"), []).extend(error.messages)
     return errors
+
+
+def site_zone(name: str) -> zoneinfo.ZoneInfo:
+    """A site's time zone; one nobody knows falls back to the plant's (settings.TIME_ZONE)."""
+    try:
+        return zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
+        return zoneinfo.ZoneInfo(settings.TIME_ZONE)
 
 
 class Site(models.Model):
@@ -391,8 +400,11 @@ class FittedCapacitor(models.Model):
         return self.removed_on is None
 
     def readings_after(self, day):
-        """Readings taken after `day` (UTC dates, as the database trigger compares them)."""
-        next_day = dt.datetime.combine(day + dt.timedelta(days=1), dt.time(), tzinfo=dt.UTC)
+        """Readings taken after `day` ended at the motor's site (its local midnight): a reading taken
+        during the removal day is the removed capacitor's."""
+        next_day = dt.datetime.combine(
+            day + dt.timedelta(days=1), dt.time(), tzinfo=site_zone(self.motor.site.time_zone)
+        )
         return self.readings.filter(taken_at__gte=next_day)
 
     def clean(self):
@@ -408,10 +420,12 @@ class FittedCapacitor(models.Model):
         if self.pk and self.removed_on is not None:
             later = self.readings_after(self.removed_on).order_by("-taken_at").first()
             if later is not None:
+                zone = site_zone(self.motor.site.time_zone)
                 raise ValidationError(
                     {
                         "removed_on": f"This capacitor has readings after {self.removed_on} "
-                        f"(the last on {later.taken_at:%Y-%m-%d}): the removal date cannot be earlier."
+                        f"(the last on {timezone.localtime(later.taken_at, zone):%Y-%m-%d}, site time): "
+                        "the removal date cannot be earlier."
                     }
                 )
 

@@ -154,20 +154,21 @@ def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
 
 
 def test_a_bulk_insert_holding_one_reading_after_its_capacitors_removal_writes_nothing(three_motors):
-    """The database's rule, per row on SQLite and per statement on PostgreSQL (migration 0021): one reading
-    dated after the removal refuses the whole insert with the same message; the day of the removal itself
-    (in UTC) is still allowed."""
+    """The database's rule, per row on SQLite and per statement on PostgreSQL (migrations 0021, 0032): one
+    reading dated after the removal refuses the whole insert with the same message; the removal day itself
+    is still allowed, to its end in the last zone to finish it (UTC-12: 12:00 UTC the next day)."""
     removed = three_motors[1]
 
     def readings(fitted_capacitor, keys):
         return _readings(fitted_capacitor, keys).drop(columns="client_key")
 
-    FittedCapacitor.objects.filter(pk=removed.pk).update(removed_on=dt.date(2024, 6, 13), removal_reason="failed")
+    FittedCapacitor.objects.filter(pk=removed.pk).update(removed_on=dt.date(2024, 6, 12), removal_reason="failed")
     with pytest.raises(IntegrityError, match="reading taken after its capacitor was removed"), transaction.atomic():
         insert_frame(Reading, pd.concat([readings(three_motors[0], ["a-1", "a-2"]), readings(removed, ["r-1", "r-2"])]))
     assert not Reading.objects.exists()
+    FittedCapacitor.objects.filter(pk=removed.pk).update(removed_on=dt.date(2024, 6, 13))
     late = readings(removed, ["r-1", "r-2"]).assign(
-        taken_at=pd.to_datetime(["2024-06-13 23:59:59", "2024-06-14 00:00:01"], utc=True)
+        taken_at=pd.to_datetime(["2024-06-14 11:59:59", "2024-06-14 12:00:00"], utc=True)
     )
     with pytest.raises(IntegrityError, match="after its capacitor was removed"), transaction.atomic():
         insert_frame(Reading, pd.concat([readings(three_motors[2], ["c-1"]), late]))

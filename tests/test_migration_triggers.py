@@ -13,6 +13,7 @@ FROZEN = {  # SHA-256 of every statement, SQLite forward and backward then Postg
     "0018_work_order_site": "baeaaadaaa68dadbad011785f47a9d6714d778375e5f4ef0d548d182e3dbd761",
     "0023_pages_in_service_counts": "85f1caaac135e2c929773a24713b8dfac03415dd0707d8bc3f23995f81055423",
     "0031_motor_read_counts": "4f2ca284015710ade4b46758eb915cec1d8d2d25468211a86c018acc50d10831",
+    "0032_removal_reading_on_removal_day": "36fac8f43dd01c1269daa98d0bead0a29ef95dc0e57705a927daaf443ba5b945",
 }
 
 

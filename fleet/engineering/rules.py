@@ -491,6 +491,7 @@ def _check_readings(
     removed_on,
     taken_at,
     now,
+    taken_on=None,
     condition=None,
     notes=None,
     predicted_uf=None,
@@ -502,7 +503,10 @@ def _check_readings(
     `raw` maps measured field names to values as typed or sent (text, numbers,
     None); the capacitor's and motor's figures are per reading (arrays) or shared
     (scalars). Dates: `taken_at` as datetime64 (UTC, NaT where unreadable),
-    `fitted_on`/`removed_on` as datetime64[D] (NaT: not removed), `now` one instant.
+    `fitted_on`/`removed_on` as datetime64[D] (NaT: not removed), `now` one instant;
+    `taken_on` the reading's calendar day at its site (datetime64[D]; None: the UTC day). A capacitor's
+    window is whole days: from its fitting day to the end of its removal day, so a reading taken
+    during the removal day is the removed capacitor's.
     """
     n = len(np.atleast_1d(method)) if np.ndim(method) else max((len(_as_objects(v)) for v in raw.values()), default=1)
     errors, confirm = _Collector(n), _Collector(n)
@@ -587,7 +591,7 @@ def _check_readings(
             ),
         )
 
-    _check_dates(errors, n, taken_at, fitted_on, removed_on, now, rules)
+    _check_dates(errors, n, taken_at, taken_on, fitted_on, removed_on, now, rules)
     if notes is not None:
         _check_notes(errors, n, notes, rules)
         values["notes"] = _texts(notes, n, "").str.strip().to_numpy(object)
@@ -611,9 +615,13 @@ def _check_readings(
     return RuleResult(values=values, errors=errors.by_field, confirm=kept_confirm)
 
 
-def _check_dates(errors: _Collector, n, taken_at, fitted_on, removed_on, now, rules: ReadingRules) -> None:
+# The start of the rulebook's message for a reading after its capacitor's removal day.
+AFTER_REMOVAL = "after this capacitor was removed"
+
+
+def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_on, now, rules: ReadingRules) -> None:
     taken = _column(taken_at, n, "datetime64[s]")
-    day = taken.astype("datetime64[D]")
+    day = taken.astype("datetime64[D]") if taken_on is None else _column(taken_on, n, "datetime64[D]")
     fitted = _column(fitted_on, n, "datetime64[D]")
     removed = _column(removed_on, n, "datetime64[D]")
     latest = np.datetime64(now, "s") + np.timedelta64(int(rules.future_tolerance_s), "s")
@@ -621,7 +629,8 @@ def _check_dates(errors: _Collector, n, taken_at, fitted_on, removed_on, now, ru
     before = day < fitted
     errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=_day_text(fitted)))
     after = ~np.isnat(removed) & (day > removed)
-    errors.add("taken_at", after, _messages(after, "after this capacitor was removed on {d}", d=_day_text(removed)))
+    removal = AFTER_REMOVAL + " on {d} (site time: readings of that day are still its own)"
+    errors.add("taken_at", after, _messages(after, removal, d=_day_text(removed)))
     errors.add("taken_at", taken > latest, "in the future")
 
 

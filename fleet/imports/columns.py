@@ -203,6 +203,21 @@ def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarr
     return parsed, messages
 
 
+def local_days(taken_utc, zones, fallback: str = "UTC") -> np.ndarray:
+    """Each instant's calendar day in its row's time zone (datetime64[D], NaT where the instant is): the day
+    a person at the site calls it, which a fitting or removal date names. Converted one zone at a time; a
+    zone nobody knows counts as `fallback`."""
+    taken = pd.Series(np.asarray(taken_utc, "datetime64[s]")).dt.tz_localize("UTC")
+    zones = pd.Series(np.asarray(zones, object))
+    days = np.full(len(taken), np.datetime64("NaT"), "datetime64[D]")
+    for zone in pd.unique(zones):
+        rows = zones.eq(zone).to_numpy()
+        name = zone if _known_zone(zone) else fallback
+        local = taken[rows].dt.tz_convert(name).dt.tz_localize(None)
+        days[rows] = local.to_numpy("datetime64[s]").astype("datetime64[D]")
+    return days
+
+
 def reading_keys(fitted_capacitor_ids, taken_at_utc: pd.Series, methods, capacitance_uf) -> np.ndarray:
     """Each reading's content key (capacitor, UTC time, method, value): a file imported twice adds nothing.
 

@@ -9,6 +9,7 @@ from decimal import Decimal
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.utils import timezone
 
 from fleet.engineering.rules import check_readings as reading_rules
@@ -30,6 +31,7 @@ from fleet.imports.columns import (
     _refuse_overlaps,
     _result,
     finite_numbers,
+    local_days,
     parse_dates,
     parse_times,
     reading_keys,
@@ -102,7 +104,11 @@ def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
 
 
 def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted: pd.DataFrame) -> pd.DataFrame:
-    """For each row, the capacitor in that role on that motor that day (the latest fitted, if several): NaN if none."""
+    """For each row, the capacitor in that role on that motor that day (`day`: the site's calendar day), NaN if none.
+
+    On a replacement day two capacitors held the position; the reading is the one removed that day's
+    (its window runs to the end of its removal day; a reading of the new one taken that day goes in
+    by the reading form or the API, which name the capacitor)."""
     rows = pd.DataFrame(
         {"i": np.arange(len(tag)), "tag": tag.to_numpy(object), "role": role.to_numpy(object), "day": day}
     )
@@ -110,7 +116,11 @@ def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted:
     in_window = (candidates["fitted_on"] <= candidates["day"]) & (
         candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
     )
-    match = candidates[in_window.to_numpy(bool)].sort_values(["i", "fitted_on"]).drop_duplicates("i", keep="last")
+    match = (
+        candidates[in_window.to_numpy(bool)]
+        .sort_values(["i", "fitted_on", "fitted_capacitor_id"])
+        .drop_duplicates("i", keep="first")
+    )
     return match.set_index("i").reindex(np.arange(len(tag)))
 
 
@@ -142,7 +152,8 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         problems.add(unplaced != "", "taken_at", unplaced)
         problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
         taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
-        match = _fitted_on_the_day(tag, role, taken_utc.astype("datetime64[D]").astype("datetime64[s]"), fitted)
+        taken_on = local_days(taken_utc, zones.fillna(default_tz).to_numpy(object), fallback=settings.TIME_ZONE)
+        match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted)
         problems.add(
             match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy(),
             "role",
@@ -161,6 +172,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             fitted_on=pd.to_datetime(match["fitted_on"]).to_numpy("datetime64[D]"),
             removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
             taken_at=taken_utc,
+            taken_on=taken_on,
             now=now,
         )
         for name, messages in result.errors.items():

@@ -10,13 +10,16 @@ import numpy as np
 from django.conf import settings
 from django.core.exceptions import ValidationError
 from django.db import IntegrityError, transaction
+from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_update
-from fleet.engineering.rules import check_readings, parse_numbers
+from fleet.engineering.rules import AFTER_REMOVAL, check_readings, parse_numbers
 from fleet.engineering.substitutes import SUITABLE
-from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors
+from fleet.imports.columns import local_days
+from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors, site_zone
 from fleet.services.bulk import storable_ids
+from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, verdict_of_part
 
 log = logging.getLogger(__name__)
@@ -78,6 +81,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
     part, motor = fitted_capacitor.part, fitted_capacitor.motor
     now = timezone.now()
     taken_at = values.get("taken_at") or now
+    zone = site_zone(motor.site.time_zone)
     assessment = Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True).first()
     result = check_readings(
         {name: [values.get(name)] for name in Reading.MEASURED_FIELDS},
@@ -91,15 +95,14 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         fitted_on=np.datetime64(fitted_capacitor.fitted_on, "D"),
         removed_on=np.datetime64(fitted_capacitor.removed_on or "NaT", "D"),
         taken_at=_utc64(taken_at),
+        taken_on=local_days([_utc64(taken_at)], [zone.key]),
         now=_utc64(now),
         predicted_uf=assessment.capacitance_now_uf if assessment else np.nan,
         confirmed=confirmed,
     )
     errors = {name: _sentence(message) for name, message in result.row(0).items()}
-    if fitted_capacitor.removed_on is not None:
-        errors["fitted_capacitor"] = (
-            f"This capacitor was removed on {fitted_capacitor.removed_on}; log the reading on the one fitted now."
-        )
+    if result.errors["taken_at"][0].startswith(AFTER_REMOVAL):
+        errors["taken_at"] += ". " + _fitted_now(fitted_capacitor)
     if errors:
         raise ValidationError(errors)
     confirm = result.row(0, "confirm")
@@ -119,6 +122,15 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
     if broken:
         raise ValidationError(broken)
     return checked
+
+
+def _fitted_now(fitted_capacitor: FittedCapacitor) -> str:
+    """Where a reading refused on a removed capacitor goes: the capacitor fitted now in its position."""
+    successor = successor_of(fitted_capacitor)
+    if successor is None:
+        return "No capacitor is recorded in this position now: see the motor's page."
+    address = reverse("reading_new", args=[successor.id])
+    return f"Log a later reading on the capacitor fitted now (fitted on {successor.fitted_on}): {address}"
 
 
 def _client_key(user, key: str) -> str:
@@ -307,7 +319,7 @@ def replace_capacitor(
         return _replacement_sent_before(fitted_capacitor, **sent)
     if removed_on < fitted_capacitor.fitted_on:
         raise ValidationError({"removed_on": f"Removal date is before the fitting date {fitted_capacitor.fitted_on}."})
-    if removed_on > timezone.localdate():
+    if removed_on > timezone.localdate(timezone=site_zone(fitted_capacitor.motor.site.time_zone)):
         raise ValidationError({"removed_on": "The removal date is in the future."})
     if reason not in FittedCapacitor.RemovalReason.values:
         raise ValidationError({"removal_reason": "Choose why the capacitor was removed."})

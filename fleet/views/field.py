@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+import re
 import uuid
 
 import segno
@@ -13,6 +14,8 @@ from django.core.paginator import Paginator
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.utils import timezone
+from django.utils.html import conditional_escape
+from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
 from fleet.filters import LabelsPage, RoutePage, list_page, page_values
@@ -92,11 +95,22 @@ def reading_new(request, fitted_capacitor_id):
         return render(request, "fleet/reading_form.html", context)
 
 
+# A reading form's address inside a service's message (a refused reading names the one to use instead).
+READING_FORM_ADDRESS = re.compile(r"(/fitted-capacitors/\d+/reading/)")
+
+
+def _linked(message: str) -> str:
+    """A message with each reading form's address in it made a link."""
+    if not READING_FORM_ADDRESS.search(message):
+        return message
+    return mark_safe(READING_FORM_ADDRESS.sub(r'<a href="\1">open its reading form</a>', conditional_escape(message)))
+
+
 def _add_errors(form, error: ValidationError) -> None:
     """Attach a service's errors to the form's fields (unknown and hidden fields to the top)."""
     for field, field_messages in error.message_dict.items():
         shown = field in form.fields and not form.fields[field].widget.is_hidden
-        form.add_error(field if shown else None, field_messages)
+        form.add_error(field if shown else None, [_linked(message) for message in field_messages])
 
 
 def _stock_message(request, successor) -> None:

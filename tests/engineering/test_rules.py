@@ -120,6 +120,22 @@ def test_dates_stay_inside_the_fitting_window_and_out_of_the_future():
     assert "removed on 2024-02-01" in removed.errors["taken_at"][0]
 
 
+def test_a_removal_date_is_a_whole_day_at_the_site():
+    """[derived] a capacitor's window runs to the end of its removal day as the site counts days
+    (`taken_on`): 20:00 on 2024-02-01 in a zone six hours west of UTC is 02:00 UTC on the 2nd, still
+    the removal day there; 08:00 on the 2nd at the site is after it. The fitting day is counted alike:
+    00:30 on the 1st at a site thirteen hours east of UTC is 11:30 UTC the day before."""
+    taken = np.array(["2024-02-02T02:00", "2024-02-02T14:00", "2024-01-31T11:30"], "datetime64[s]")
+    taken_on = np.array(["2024-02-01", "2024-02-02", "2024-02-01"], "datetime64[D]")
+    window = dict(fitted_on=np.datetime64("2024-02-01", "D"), removed_on=np.datetime64("2024-02-01", "D"))
+    result = check({"capacitance_uf": ["4"] * 3}, taken_at=taken, taken_on=taken_on, **window)
+    messages = result.errors["taken_at"]
+    assert messages[0] == "" and messages[2] == ""
+    assert "removed on 2024-02-01" in messages[1] and "readings of that day are still its own" in messages[1]
+    by_utc_day = check({"capacitance_uf": ["4"] * 3}, taken_at=taken, **window).errors["taken_at"]
+    assert "removed on" in by_utc_day[0] and "fitted on" in by_utc_day[2]  # without the site's day
+
+
 def test_notes_are_bounded_and_free_of_nul():
     result = check({"capacitance_uf": ["4"] * 3}, notes=["ok", "x" * 2_000_000, "a\x00b"])
     assert result.errors["notes"][0] == ""
