@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from fleet.engineering.rules import parse_numbers
+from fleet.engineering.rules import known_time_zone, parse_numbers
 from fleet.imports.files import TextColumns
 
 READING_COLUMNS = {
@@ -212,7 +212,7 @@ def local_days(taken_utc, zones, fallback: str = "UTC") -> np.ndarray:
     days = np.full(len(taken), np.datetime64("NaT"), "datetime64[D]")
     for zone in pd.unique(zones):
         rows = zones.eq(zone).to_numpy()
-        name = zone if _known_zone(zone) else fallback
+        name = zone if known_time_zone(zone) else fallback
         local = taken[rows].dt.tz_convert(name).dt.tz_localize(None)
         days[rows] = local.to_numpy("datetime64[s]").astype("datetime64[D]")
     return days
