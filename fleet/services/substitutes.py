@@ -6,7 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 from django.core.exceptions import ValidationError
-from django.db.models import Count, Min
+from django.db.models import FloatField, OuterRef, Subquery, Sum, Value
+from django.db.models.functions import Coalesce
 
 from fleet.engineering.drift import ROLE_RUN
 from fleet.engineering.substitutes import (
@@ -19,7 +20,7 @@ from fleet.engineering.substitutes import (
     advise,
     with_pairs,
 )
-from fleet.models import CapacitorPart, FittedCapacitor, SiteStock
+from fleet.models import CapacitorPart, DesignCount, FittedCapacitor, SiteStock
 from fleet.roles import scope_to_user
 from fleet.services.assessments import motor_circuits
 from fleet.services.selectors import CIRCUIT_FIELDS, fitted_capacitors_frame
@@ -45,6 +46,9 @@ DESIGN_FIELDS = [
     "rated_speed_rpm",
     *CIRCUIT_FIELDS,
 ]
+# Stands for an empty design column (a motor without an equivalent circuit) where the designs are
+# matched, so that empty matches empty: no circuit figure is negative.
+_NO_VALUE = Value(-1.0, output_field=FloatField())
 VERDICT_ORDER = {"suitable": 0, "marginal": 1, "unsuitable": 2}
 # Operating figures shown per candidate: name in the answer (unit in the name) -> OperatingFigures field.
 FIGURES = {
@@ -208,28 +212,59 @@ def verdict_of_part(fitted_capacitor: FittedCapacitor, part: CapacitorPart) -> d
     return substitutes_for(fitted_capacitor, codes=[part.code], pairs=False)["items"][0]
 
 
+def designs_in_service(user=None) -> dict[tuple, int]:
+    """The position designs among the capacitors in service at the user's sites (None: every site):
+    {(part_id, role, *DESIGN_FIELDS): id of the design's first capacitor in service}.
+
+    The designs come from the ledger the database keeps on write (`DesignCount`, migration 0032), a few
+    rows per design and site; each design's first capacitor from an index walk that stops at the first
+    capacitor of its part and role on a motor of that design. One query, whatever the fleet's size.
+    """
+    key = ["part_id", "role", *DESIGN_FIELDS]
+    first = (
+        FittedCapacitor.objects.filter(
+            removed_on__isnull=True,
+            motor__status="in_service",
+            motor__site_id=OuterRef("site_id"),
+            part_id=OuterRef("part_id"),
+            role=OuterRef("role"),
+            **{f"motor__{name}": OuterRef(name) for name in DESIGN_FIELDS if name not in CIRCUIT_FIELDS},
+        )
+        .alias(**{f"design_{name}": Coalesce(f"motor__{name}", _NO_VALUE) for name in CIRCUIT_FIELDS})
+        .filter(**{f"design_{name}": Coalesce(OuterRef(name), _NO_VALUE) for name in CIRCUIT_FIELDS})
+        .order_by("id")
+        .values("id")[:1]
+    )
+    groups = (
+        scope_to_user(DesignCount.objects.all(), user)
+        .values("site_id", *key)
+        .annotate(capacitors=Sum("n"))
+        .filter(capacitors__gt=0)
+        .order_by()
+    )
+    designs: dict[tuple, int] = {}
+    for row in groups.annotate(first_id=Subquery(first)).values_list(*key, "first_id"):
+        design, first_id = row[:-1], row[-1]
+        designs[design] = min(first_id, designs.get(design, first_id))
+    return designs
+
+
 def part_families(user=None) -> list[dict]:
     """Fewer part numbers: per dielectric, each catalogue part with the number of motor designs (distinct
     circuit, load and design part among the capacitors in service) it would suit as a single substitute, and
     for how many more it would be marginal.
 
-    One advice call per design (a fleet's motors share designs by the dozen), never per motor.
+    One advice call per design (a fleet's motors share designs by the dozen), never per motor; the
+    designs read from the ledger kept on write (`designs_in_service`), never by joining the fleet.
     """
-    fitted = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
-    designs = (
-        fitted.values("part_id", "role", *(f"motor__{name}" for name in DESIGN_FIELDS))
-        .annotate(capacitors=Count("id"), first_id=Min("id"))
-        .order_by("part__dielectric", "part__code")
-    )
+    designs = designs_in_service(user)
     frame = parts_frame()
     singles = candidates_of(frame)
     suits = np.zeros(len(frame), int)
     marginal = np.zeros(len(frame), int)
-    fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(
-        [design["first_id"] for design in designs]
-    )
-    for design in designs:
-        advice = advise(position_of(fitted_capacitors[design["first_id"]]), singles)
+    fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(designs.values())
+    for first_id in designs.values():
+        advice = advise(position_of(fitted_capacitors[first_id]), singles)
         suits += advice.verdict == SUITABLE
         marginal += advice.verdict == MARGINAL
     frame["designs_suited"] = suits
