@@ -346,6 +346,10 @@ class FittedCapacitor(models.Model):
                 condition=Q(removed_on__isnull=False),
                 name="capacitor_removals",
             ),
+            # The stand-in parts page's first capacitor of each design: a part and role's in service, by id.
+            models.Index(
+                fields=["part", "role", "id"], condition=Q(removed_on__isnull=True), name="in_service_by_part"
+            ),
         ]
 
     def __str__(self):

@@ -96,6 +96,7 @@ LIST_PAGES = {
     "imports": lambda: reverse("imports"),
     "visit sheet": lambda: reverse("visit_sheet", args=["NORTH", _first_visit_day("NORTH")]),
     "life data": lambda: reverse("life_data") + "?part=RUN-4U",
+    "stand-in parts": lambda: reverse("stand_in_parts"),
     "API assessments": lambda: reverse("api_assessments"),
     "API assessments, due soon": lambda: reverse("api_assessments") + "?risk=replace+now",
 }

@@ -197,6 +197,12 @@ class Migration(migrations.Migration):
                 ('site', models.ForeignKey(blank=True, db_constraint=False, db_index=False, editable=False, help_text="The motors' site", null=True, on_delete=django.db.models.deletion.DO_NOTHING, related_name='+', to='fleet.site')),
             ],
         ),
+        migrations.AddIndex(
+            model_name="fittedcapacitor",
+            index=models.Index(
+                condition=models.Q(("removed_on__isnull", True)), fields=["part", "role", "id"], name="in_service_by_part"
+            ),
+        ),
         migrations.RunPython(
             run({"sqlite": SQLITE_FORWARD, "postgresql": POSTGRES_FORWARD}),
             run({"sqlite": SQLITE_BACKWARD, "postgresql": POSTGRES_BACKWARD}),

@@ -6,8 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 from django.core.exceptions import ValidationError
-from django.db.models import FloatField, OuterRef, Subquery, Sum, Value
-from django.db.models.functions import Coalesce
+from django.db import connection
+from django.db.models import Sum
 
 from fleet.engineering.drift import ROLE_RUN
 from fleet.engineering.substitutes import (
@@ -21,7 +21,7 @@ from fleet.engineering.substitutes import (
     with_pairs,
 )
 from fleet.models import CapacitorPart, DesignCount, FittedCapacitor, SiteStock
-from fleet.roles import scope_to_user
+from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.assessments import motor_circuits
 from fleet.services.selectors import CIRCUIT_FIELDS, fitted_capacitors_frame
 
@@ -46,9 +46,6 @@ DESIGN_FIELDS = [
     "rated_speed_rpm",
     *CIRCUIT_FIELDS,
 ]
-# Stands for an empty design column (a motor without an equivalent circuit) where the designs are
-# matched, so that empty matches empty: no circuit figure is negative.
-_NO_VALUE = Value(-1.0, output_field=FloatField())
 VERDICT_ORDER = {"suitable": 0, "marginal": 1, "unsuitable": 2}
 # Operating figures shown per candidate: name in the answer (unit in the name) -> OperatingFigures field.
 FIGURES = {
@@ -217,36 +214,39 @@ def designs_in_service(user=None) -> dict[tuple, int]:
     {(part_id, role, *DESIGN_FIELDS): id of the design's first capacitor in service}.
 
     The designs come from the ledger the database keeps on write (`DesignCount`, migration 0032), a few
-    rows per design and site; each design's first capacitor from an index walk that stops at the first
-    capacitor of its part and role on a motor of that design. One query, whatever the fleet's size.
+    rows per design and site. Each design's first capacitor is found by walking its part and role's
+    capacitors in service in id order (index `in_service_by_part`), looking each one's motor up by key,
+    and stopping at the first on a motor of that design at one of the user's sites: the motor is looked
+    up in a scalar subquery so that the database cannot start from the motors (it would read every motor,
+    its estimate of a match on 16 columns being one). One query, whatever the fleet's size.
     """
-    key = ["part_id", "role", *DESIGN_FIELDS]
-    first = (
-        FittedCapacitor.objects.filter(
-            removed_on__isnull=True,
-            motor__status="in_service",
-            motor__site_id=OuterRef("site_id"),
-            part_id=OuterRef("part_id"),
-            role=OuterRef("role"),
-            **{f"motor__{name}": OuterRef(name) for name in DESIGN_FIELDS if name not in CIRCUIT_FIELDS},
-        )
-        .alias(**{f"design_{name}": Coalesce(f"motor__{name}", _NO_VALUE) for name in CIRCUIT_FIELDS})
-        .filter(**{f"design_{name}": Coalesce(OuterRef(name), _NO_VALUE) for name in CIRCUIT_FIELDS})
-        .order_by("id")
-        .values("id")[:1]
-    )
-    groups = (
+    columns = ["part_id", "role", *DESIGN_FIELDS]
+    site_ids = sorted(visible_site_ids(user) or []) if user is not None else []
+    at_sites = f" AND m.site_id IN ({', '.join(['%s'] * len(site_ids))})" if site_ids else ""
+    motor = ["m.status", *(f"m.{name}" for name in DESIGN_FIELDS)]
+    wanted = ["CAST('in_service' AS varchar(20))", *(f"g.{name}" for name in DESIGN_FIELDS)]
+    if connection.vendor == "postgresql":  # one record each, equal when every field is (empty ones too)
+        motor, wanted, same = f"ROW({', '.join(motor)})", f"ROW({', '.join(wanted)})", "IS NOT DISTINCT FROM"
+    else:  # SQLite compares row values
+        motor, wanted, same = ", ".join(motor), f"({', '.join(wanted)})", "IS"
+    ledger = (
         scope_to_user(DesignCount.objects.all(), user)
-        .values("site_id", *key)
+        .values(*columns)
         .annotate(capacitors=Sum("n"))
         .filter(capacitors__gt=0)
         .order_by()
     )
-    designs: dict[tuple, int] = {}
-    for row in groups.annotate(first_id=Subquery(first)).values_list(*key, "first_id"):
-        design, first_id = row[:-1], row[-1]
-        designs[design] = min(first_id, designs.get(design, first_id))
-    return designs
+    ledger_sql, ledger_params = ledger.query.sql_with_params()
+    sql = f"""
+        SELECT {", ".join(f"g.{name}" for name in columns)}, (
+            SELECT c.id FROM fleet_fittedcapacitor c
+            WHERE c.part_id = g.part_id AND c.role = g.role AND c.removed_on IS NULL
+              AND (SELECT {motor} FROM fleet_motor m WHERE m.id = c.motor_id{at_sites}) {same} {wanted}
+            ORDER BY c.id LIMIT 1
+        ) FROM ({ledger_sql}) g"""
+    with connection.cursor() as cursor:
+        cursor.execute(sql, [*site_ids, *ledger_params])
+        return {tuple(row[:-1]): row[-1] for row in cursor.fetchall()}
 
 
 def part_families(user=None) -> list[dict]:
