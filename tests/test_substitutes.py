@@ -13,6 +13,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.motor import MotorCircuit, two_winding_running
+from fleet.engineering.substitutes import advise
 from fleet.models import FittedCapacitor, Motor, SiteMembership, SiteStock
 from fleet.roles import scope_to_user
 from fleet.services import substitutes
@@ -238,6 +239,12 @@ def assert_the_page_reads_the_designs_it_would_join(monkeypatch, users):
     for user in users:
         scratch = designs_from_scratch(user)
         assert substitutes.designs_in_service(user) == scratch
+        # The positions judged together are those judged one at a time.
+        firsts = list(FittedCapacitor.objects.in_bulk(scratch.values()).values())
+        singles = substitutes.candidates_of(substitutes.parts_frame())
+        together = [advise(p, singles) for p in substitutes.positions_of(firsts)]
+        alone = [advise(substitutes.position_of(f), singles) for f in firsts]
+        assert [(a.verdict.tolist(), a.reasons) for a in together] == [(a.verdict.tolist(), a.reasons) for a in alone]
         kept = substitutes.part_families(user)
         with monkeypatch.context() as patched:
             patched.setattr(substitutes, "designs_in_service", lambda user=None: designs_from_scratch(user))

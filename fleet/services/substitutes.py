@@ -106,29 +106,47 @@ def design_part(fitted_capacitor: FittedCapacitor) -> CapacitorPart:
 
 def position_of(fitted_capacitor: FittedCapacitor) -> Position:
     """The position of a fitted capacitor: its motor's circuit and load (when it has one) and its design part."""
-    inst = fitted_capacitors_frame([fitted_capacitor.id])
+    return positions_of([fitted_capacitor])[0]
+
+
+def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
+    """The positions of fitted capacitors, in their order: one frame and one circuit computation for all
+    (a few queries, whatever their number), the design part looked up for those fitted against the advice."""
+    if not fitted_capacitors:
+        return []
+    inst = fitted_capacitors_frame([fitted_capacitor.id for fitted_capacitor in fitted_capacitors])
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
-    row = inst.iloc[0]
-    part = design_part(fitted_capacitor)
-    has_circuit = bool(with_circuit[0])
-    companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[0] if has_circuit else 0.0
-    return Position(
-        role=row["role"],
-        motor_kind=row["motor_type"],
-        frequency_hz=float(row["frequency_hz"]),
-        full_load_current_a=float(row["full_load_current_a"]),
-        design_uf=float(part.rated_uf),
-        design_voltage_v=float(part.rated_voltage_v),
-        design_dielectric=part.dielectric,
-        design_class=part.class_of_operation,
-        design_tolerance_minus_pct=float(part.tolerance_minus_pct),
-        design_tolerance_plus_pct=float(part.tolerance_plus_pct),
-        companion_uf=float(np.nan_to_num(companion)),
-        circuit=circuit.take([0]) if has_circuit else None,
-        load=type(load)(load.torque_at_rated_nm[:1], load.rated_speed_rad_s[:1], np.asarray(load.kind)[:1])
-        if has_circuit
-        else None,
-    )
+    in_circuits = np.cumsum(with_circuit) - 1  # each row's place among the rows with a circuit
+    load_kind = np.asarray(load.kind)
+    row_of = {int(fitted_capacitor_id): k for k, fitted_capacitor_id in enumerate(inst["fitted_capacitor_id"])}
+    positions = []
+    for fitted_capacitor in fitted_capacitors:
+        k = row_of[fitted_capacitor.id]
+        row = inst.iloc[k]
+        part = design_part(fitted_capacitor)
+        has_circuit = bool(with_circuit[k])
+        j = int(in_circuits[k])
+        companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[j] if has_circuit else 0.0
+        positions.append(
+            Position(
+                role=row["role"],
+                motor_kind=row["motor_type"],
+                frequency_hz=float(row["frequency_hz"]),
+                full_load_current_a=float(row["full_load_current_a"]),
+                design_uf=float(part.rated_uf),
+                design_voltage_v=float(part.rated_voltage_v),
+                design_dielectric=part.dielectric,
+                design_class=part.class_of_operation,
+                design_tolerance_minus_pct=float(part.tolerance_minus_pct),
+                design_tolerance_plus_pct=float(part.tolerance_plus_pct),
+                companion_uf=float(np.nan_to_num(companion)),
+                circuit=circuit.take([j]) if has_circuit else None,
+                load=type(load)(load.torque_at_rated_nm[j : j + 1], load.rated_speed_rad_s[j : j + 1], load_kind[j : j + 1])
+                if has_circuit
+                else None,
+            )
+        )
+    return positions
 
 
 def _number(value, digits=3):
@@ -263,8 +281,8 @@ def part_families(user=None) -> list[dict]:
     suits = np.zeros(len(frame), int)
     marginal = np.zeros(len(frame), int)
     fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(designs.values())
-    for first_id in designs.values():
-        advice = advise(position_of(fitted_capacitors[first_id]), singles)
+    for position in positions_of([fitted_capacitors[first_id] for first_id in designs.values()]):
+        advice = advise(position, singles)
         suits += advice.verdict == SUITABLE
         marginal += advice.verdict == MARGINAL
     frame["designs_suited"] = suits
