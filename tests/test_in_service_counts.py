@@ -17,8 +17,8 @@ from django.utils import timezone
 from fleet.models import Assessment, DesignCount, FittedCapacitor, InServiceCount, Motor, MotorReadCount
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.counts import compact_counts, in_service_counts
-from fleet.services.substitutes import DESIGN_FIELDS
 from fleet.services.readings import record_reading, replace_capacitor
+from fleet.services.substitutes import DESIGN_FIELDS
 from tests.factories import (
     make_fitted_capacitor,
     make_motor,

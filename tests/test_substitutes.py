@@ -15,11 +15,10 @@ from django.utils import timezone
 from fleet.engineering.motor import MotorCircuit, two_winding_running
 from fleet.engineering.substitutes import advise
 from fleet.models import FittedCapacitor, Motor, SiteMembership, SiteStock
-from fleet.roles import scope_to_user
+from fleet.roles import RELIABILITY_ENGINEER, TECHNICIAN, scope_to_user
 from fleet.services import substitutes
 from fleet.services.counts import compact_counts
 from fleet.services.readings import replace_capacitor
-from fleet.roles import RELIABILITY_ENGINEER, TECHNICIAN
 from tests.factories import EXAMPLE_FAN_CIRCUIT, make_fitted_capacitor, make_motor, make_part, make_site, make_user
 
 from .test_api import client_for
@@ -272,8 +271,12 @@ def test_the_stand_in_designs_kept_on_write_are_those_a_join_of_the_fleet_finds(
             make_fitted_capacitor(motor=motor, role="start", part=start)
         if n % 4 == 2:  # a capacitor in its history, removed
             make_fitted_capacitor(
-                motor=motor, part=run_5, fitted_on=dt.date(2019, 1, 1), removed_on=dt.date(2021, 12, 31),
-                removal_reason="failed", role="start",
+                motor=motor,
+                part=run_5,
+                fitted_on=dt.date(2019, 1, 1),
+                removed_on=dt.date(2021, 12, 31),
+                removal_reason="failed",
+                role="start",
             )
         motors.append(motor)
     Motor.objects.filter(pk=motors[5].pk).update(status="standby")
@@ -291,8 +294,12 @@ def test_the_stand_in_designs_kept_on_write_are_those_a_join_of_the_fleet_finds(
     Motor.objects.filter(pk=motors[6].pk).update(status="retired")
     replaced = FittedCapacitor.objects.get(motor=motors[7], removed_on__isnull=True)
     replace_capacitor(
-        fitted_capacitor=replaced, part=run_5, removed_on=timezone.localdate(), reason="failed",
-        substitute_override=True, override_reason="the only part on the shelf",
+        fitted_capacitor=replaced,
+        part=run_5,
+        removed_on=timezone.localdate(),
+        reason="failed",
+        substitute_override=True,
+        override_reason="the only part on the shelf",
     )
     FittedCapacitor.objects.filter(motor=motors[9], role="start").delete()
     FittedCapacitor.objects.filter(motor__in=motors[10:], removed_on__isnull=True).update(part=run_4)

@@ -126,6 +126,7 @@ def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
         part = design_part(fitted_capacitor)
         has_circuit = bool(with_circuit[k])
         j = int(in_circuits[k])
+        one = slice(j, j + 1)
         companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[j] if has_circuit else 0.0
         positions.append(
             Position(
@@ -141,7 +142,7 @@ def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
                 design_tolerance_plus_pct=float(part.tolerance_plus_pct),
                 companion_uf=float(np.nan_to_num(companion)),
                 circuit=circuit.take([j]) if has_circuit else None,
-                load=type(load)(load.torque_at_rated_nm[j : j + 1], load.rated_speed_rad_s[j : j + 1], load_kind[j : j + 1])
+                load=type(load)(load.torque_at_rated_nm[one], load.rated_speed_rad_s[one], load_kind[one])
                 if has_circuit
                 else None,
             )
