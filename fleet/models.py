@@ -390,6 +390,10 @@ class FittedCapacitor(models.Model):
                 condition=Q(removed_on__isnull=False),
                 name="capacitor_removals",
             ),
+            # The stand-in parts page's first capacitor of each design: a part and role's in service, by id.
+            models.Index(
+                fields=["part", "role", "id"], condition=Q(removed_on__isnull=True), name="in_service_by_part"
+            ),
         ]
 
     def __str__(self):
@@ -1195,3 +1199,37 @@ class MotorReadCount(models.Model):
 
     def __str__(self):
         return f"{self.site_id} {self.last_read_on or self.commissioned_on} {self.n:+d}"
+
+
+class DesignCount(models.Model):
+    """Append-only ledger of the capacitors in service per position design, kept on write by database
+    triggers on fitted capacitors and motors (migration 0032), so the stand-in parts page reads the
+    distinct designs from a few hundred rows instead of joining every capacitor with its motor.
+
+    A capacitor in service on a motor in service adds 1 at (the motor's site, the capacitor's part
+    and role, the motor's design: type, load, ratings and equivalent circuit). Each row is a change
+    to one count; `services.counts.compact_counts` replaces the rows by their sums."""
+
+    site = kept_by_triggers(Site, "The motors' site")
+    part = kept_by_triggers(CapacitorPart, "The capacitors' part")
+    role = models.CharField(max_length=5)
+    motor_type = models.CharField(max_length=20)
+    load_type = models.CharField(max_length=20)
+    rated_voltage_v = models.FloatField()
+    frequency_hz = models.PositiveSmallIntegerField()
+    poles = models.PositiveSmallIntegerField()
+    full_load_current_a = models.FloatField()
+    rated_speed_rpm = models.FloatField()
+    r1m_ohm = models.FloatField(null=True, blank=True)
+    x1m_ohm = models.FloatField(null=True, blank=True)
+    r1a_ohm = models.FloatField(null=True, blank=True)
+    x1a_ohm = models.FloatField(null=True, blank=True)
+    r2_ohm = models.FloatField(null=True, blank=True)
+    x2_ohm = models.FloatField(null=True, blank=True)
+    xm_ohm = models.FloatField(null=True, blank=True)
+    turns_ratio = models.FloatField(null=True, blank=True)
+    rotational_loss_w = models.FloatField(null=True, blank=True)
+    n = models.IntegerField(help_text="Change to the count")
+
+    def __str__(self):
+        return f"{self.site_id} {self.part_id} {self.role} {self.motor_type} {self.n:+d}"

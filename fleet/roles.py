@@ -92,6 +92,7 @@ SITE_PATHS = {
     "assessment": "site",  # stored on the assessment, kept by triggers (migration 0020)
     "inservicecount": "site",  # counts by site, kept by triggers (migration 0023)
     "motorreadcount": "site",  # counts by site, kept by triggers (migration 0028)
+    "designcount": "site",  # counts by site, kept by triggers (migration 0032)
     "workorder": "site",
     "sitestock": "site",
 }

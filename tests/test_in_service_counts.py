@@ -14,10 +14,11 @@ from django.db.models import Case, Count, DateField, F, Sum, When
 from django.db.models.functions import TruncDate, TruncMonth
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, InServiceCount, Motor, MotorReadCount
+from fleet.models import Assessment, DesignCount, FittedCapacitor, InServiceCount, Motor, MotorReadCount
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.counts import compact_counts, in_service_counts
 from fleet.services.readings import record_reading, replace_capacitor
+from fleet.services.substitutes import DESIGN_FIELDS
 from tests.factories import (
     make_fitted_capacitor,
     make_motor,
@@ -85,6 +86,25 @@ def motors_from_ledger() -> dict:
     return {tuple(row[:-1]): row[-1] for row in rows}
 
 
+DESIGN_KEY = ["site_id", "part_id", "role", *DESIGN_FIELDS]
+
+
+def designs_from_scratch() -> dict:
+    """Capacitors in service on motors in service by site, part, role and the motor's design."""
+    rows = (
+        FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status=Motor.Status.IN_SERVICE)
+        .values_list("motor__site_id", "part_id", "role", *(f"motor__{name}" for name in DESIGN_FIELDS))
+        .annotate(n=Count("id"))
+        .order_by()
+    )
+    return {tuple(row[:-1]): row[-1] for row in rows}
+
+
+def designs_from_ledger() -> dict:
+    rows = DesignCount.objects.values_list(*DESIGN_KEY).annotate(total=Sum("n")).exclude(total=0).order_by()
+    return {tuple(row[:-1]): row[-1] for row in rows}
+
+
 def refit_all() -> None:
     refit_fitted_capacitors(list(FittedCapacitor.objects.values_list("id", flat=True)), force=True)
 
@@ -97,6 +117,7 @@ def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_pa
         checks.append(step)
         assert from_ledger() == from_scratch(), step
         assert motors_from_ledger() == motors_from_scratch(), f"{step}: motors by newest reading"
+        assert designs_from_ledger() == designs_from_scratch(), f"{step}: capacitors by design"
         stored = Assessment.objects.exclude(fitted_on=F("fitted_capacitor__fitted_on"))
         assert not stored.exists(), f"{step}: an assessment's stored fitting date differs from its capacitor's"
 
@@ -168,7 +189,9 @@ def test_the_ledger_equals_a_count_from_scratch_after_every_kind_of_write(tmp_pa
     in_service_rows = len(from_scratch()["assessed"]) + len(from_scratch()["fitted"])
     assert InServiceCount.objects.count() == in_service_rows
     assert MotorReadCount.objects.count() == len(motors_from_scratch())
-    assert rows == in_service_rows + len(motors_from_scratch())
+    assert DesignCount.objects.count() == len(designs_from_scratch())
+    assert rows == in_service_rows + len(motors_from_scratch()) + len(designs_from_scratch())
+    assert len(designs_from_scratch()) > 2  # the comparison is of real values
     assert sum(motors_from_scratch().values()) > 5  # the comparison is of real values
     assert len(checks) == 14
 

@@ -5,13 +5,20 @@ tests/engineering/test_operating_point.py, with its 4 uF 450 V film run capacito
 the model's [derived]; the rules' sources sit in fleet/engineering/substitutes.py and its tests.
 """
 
+import datetime as dt
+
 import pytest
+from django.db.models import Min
 from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.motor import MotorCircuit, two_winding_running
-from fleet.models import FittedCapacitor, SiteMembership, SiteStock
-from fleet.roles import TECHNICIAN
+from fleet.engineering.substitutes import advise
+from fleet.models import FittedCapacitor, Motor, SiteMembership, SiteStock
+from fleet.roles import RELIABILITY_ENGINEER, TECHNICIAN, scope_to_user
+from fleet.services import substitutes
+from fleet.services.counts import compact_counts
+from fleet.services.readings import replace_capacitor
 from tests.factories import EXAMPLE_FAN_CIRCUIT, make_fitted_capacitor, make_motor, make_part, make_site, make_user
 
 from .test_api import client_for
@@ -216,3 +223,87 @@ def test_the_start_capacitor_of_a_two_value_motor_is_judged_with_its_run_capacit
     )
     both = two_winding_running(circuit, 4.0 + 40.0, 1.0)  # 4 uF run + 40 uF start, at standstill
     assert items["ELEC-40"]["starting_torque_nm"] == pytest.approx(float(both.torque_nm), rel=1e-3)
+
+
+def designs_from_scratch(user=None) -> dict[tuple, int]:
+    """[derived] The designs as the page found them before the ledger: every capacitor in service on a
+    motor in service joined with its motor, grouped by part, role and design, the first capacitor of each."""
+    fitted = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
+    key = ["part_id", "role", *(f"motor__{name}" for name in substitutes.DESIGN_FIELDS)]
+    rows = fitted.values(*key).annotate(first_id=Min("id")).order_by().values_list(*key, "first_id")
+    return {tuple(row[:-1]): row[-1] for row in rows}
+
+
+def assert_the_page_reads_the_designs_it_would_join(monkeypatch, users):
+    for user in users:
+        scratch = designs_from_scratch(user)
+        assert substitutes.designs_in_service(user) == scratch
+        # The positions judged together are those judged one at a time.
+        firsts = list(FittedCapacitor.objects.in_bulk(scratch.values()).values())
+        singles = substitutes.candidates_of(substitutes.parts_frame())
+        together = [advise(p, singles) for p in substitutes.positions_of(firsts)]
+        alone = [advise(substitutes.position_of(f), singles) for f in firsts]
+        assert [(a.verdict.tolist(), a.reasons) for a in together] == [(a.verdict.tolist(), a.reasons) for a in alone]
+        kept = substitutes.part_families(user)
+        with monkeypatch.context() as patched:
+            patched.setattr(substitutes, "designs_in_service", lambda user=None: designs_from_scratch(user))
+            assert kept == substitutes.part_families(user)
+
+
+def test_the_stand_in_designs_kept_on_write_are_those_a_join_of_the_fleet_finds(monkeypatch, engineer):
+    """[derived] The designs read from the ledger kept by the database (migration 0032) equal those of a join
+    of every capacitor in service with its motor, and the page's table with them, for every site and for a
+    user of one site: on a varied fleet, and after motors are added, moved, re-rated, retired, their
+    capacitors replaced, removed or deleted, in statements of one row and of many, and after compaction."""
+    north, south = make_site("DN"), make_site("DS")
+    user = make_user(RELIABILITY_ENGINEER)
+    SiteMembership.objects.create(user=user, site=south)
+    run_4, run_5 = make_part(code="RUN-4", rated_uf=4.0), make_part(code="RUN-5", rated_uf=5.0)
+    start = make_part(code="START-40", rated_uf=40.0, rated_voltage_v=250, dielectric="electrolytic")
+    motors = []
+    for n in range(12):
+        kind = "two_value" if n % 3 == 0 else "permanent_split"
+        motor = make_motor(site=(north, south)[n % 2], with_circuit=n % 4 != 1, motor_type=kind)
+        motor.full_load_current_a += 0.1 * (n % 2)
+        motor.save()
+        make_fitted_capacitor(motor=motor, part=(run_4, run_5)[n % 5 == 0])
+        if kind == "two_value":
+            make_fitted_capacitor(motor=motor, role="start", part=start)
+        if n % 4 == 2:  # a capacitor in its history, removed
+            make_fitted_capacitor(
+                motor=motor,
+                part=run_5,
+                fitted_on=dt.date(2019, 1, 1),
+                removed_on=dt.date(2021, 12, 31),
+                removal_reason="failed",
+                role="start",
+            )
+        motors.append(motor)
+    Motor.objects.filter(pk=motors[5].pk).update(status="standby")
+    users = (None, user, engineer)
+    assert len(designs_from_scratch()) >= 6
+    assert_the_page_reads_the_designs_it_would_join(monkeypatch, users)
+
+    added = make_motor(site=south, motor_type="two_value", rated_speed_rpm=930)
+    make_fitted_capacitor(motor=added, part=run_5)
+    moved = motors[0]
+    moved.site = south
+    moved.save()
+    Motor.objects.filter(pk__in=[m.pk for m in motors[1:4]]).update(rated_speed_rpm=920, r1m_ohm=None)
+    Motor.objects.filter(pk=motors[5].pk).update(status="in_service")
+    Motor.objects.filter(pk=motors[6].pk).update(status="retired")
+    replaced = FittedCapacitor.objects.get(motor=motors[7], removed_on__isnull=True)
+    replace_capacitor(
+        fitted_capacitor=replaced,
+        part=run_5,
+        removed_on=timezone.localdate(),
+        reason="failed",
+        substitute_override=True,
+        override_reason="the only part on the shelf",
+    )
+    FittedCapacitor.objects.filter(motor=motors[9], role="start").delete()
+    FittedCapacitor.objects.filter(motor__in=motors[10:], removed_on__isnull=True).update(part=run_4)
+    assert_the_page_reads_the_designs_it_would_join(monkeypatch, users)
+
+    compact_counts()
+    assert_the_page_reads_the_designs_it_would_join(monkeypatch, users)

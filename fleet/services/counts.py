@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from django.db import connection, transaction
 from django.db.models import Max, Sum
 
-from fleet.models import InServiceCount, MotorReadCount
+from fleet.models import DesignCount, InServiceCount, MotorReadCount
 from fleet.roles import scope_to_user
 
 KEY = ("site_id", "part_id", "risk", "fitted_month", "assessed_on")
@@ -88,11 +88,12 @@ def in_service_counts(user=None) -> InServiceCounts:
 LEDGERS = (  # each ledger kept by triggers, with its key
     (InServiceCount, KEY),
     (MotorReadCount, ("site_id", "last_read_on", "commissioned_on")),
+    (DesignCount, tuple(f.attname for f in DesignCount._meta.concrete_fields if f.name not in ("id", "n"))),
 )
 
 
 def compact_counts() -> int:
-    """Replace the rows of each ledger (`InServiceCount`, `MotorReadCount`) by their sums per key (keys
+    """Replace the rows of each ledger (`InServiceCount`, `MotorReadCount`, `DesignCount`) by their sums per key (keys
     that sum to nought go); returns the rows left in both. Sums are unchanged, so readers never see a
     difference. On PostgreSQL one statement per ledger deletes the rows it can see and inserts their
     sums: rows a concurrent write adds meanwhile stay as they are, and two compactions at once each

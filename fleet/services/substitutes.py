@@ -6,7 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 from django.core.exceptions import ValidationError
-from django.db.models import Count, Min
+from django.db import connection
+from django.db.models import Sum
 
 from fleet.engineering.drift import ROLE_RUN
 from fleet.engineering.substitutes import (
@@ -19,8 +20,8 @@ from fleet.engineering.substitutes import (
     advise,
     with_pairs,
 )
-from fleet.models import CapacitorPart, FittedCapacitor, SiteStock
-from fleet.roles import scope_to_user
+from fleet.models import CapacitorPart, DesignCount, FittedCapacitor, SiteStock
+from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.assessments import motor_circuits
 from fleet.services.selectors import CIRCUIT_FIELDS, fitted_capacitors_frame
 
@@ -105,29 +106,48 @@ def design_part(fitted_capacitor: FittedCapacitor) -> CapacitorPart:
 
 def position_of(fitted_capacitor: FittedCapacitor) -> Position:
     """The position of a fitted capacitor: its motor's circuit and load (when it has one) and its design part."""
-    inst = fitted_capacitors_frame([fitted_capacitor.id])
+    return positions_of([fitted_capacitor])[0]
+
+
+def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
+    """The positions of fitted capacitors, in their order: one frame and one circuit computation for all
+    (a few queries, whatever their number), the design part looked up for those fitted against the advice."""
+    if not fitted_capacitors:
+        return []
+    inst = fitted_capacitors_frame([fitted_capacitor.id for fitted_capacitor in fitted_capacitors])
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
-    row = inst.iloc[0]
-    part = design_part(fitted_capacitor)
-    has_circuit = bool(with_circuit[0])
-    companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[0] if has_circuit else 0.0
-    return Position(
-        role=row["role"],
-        motor_kind=row["motor_type"],
-        frequency_hz=float(row["frequency_hz"]),
-        full_load_current_a=float(row["full_load_current_a"]),
-        design_uf=float(part.rated_uf),
-        design_voltage_v=float(part.rated_voltage_v),
-        design_dielectric=part.dielectric,
-        design_class=part.class_of_operation,
-        design_tolerance_minus_pct=float(part.tolerance_minus_pct),
-        design_tolerance_plus_pct=float(part.tolerance_plus_pct),
-        companion_uf=float(np.nan_to_num(companion)),
-        circuit=circuit.take([0]) if has_circuit else None,
-        load=type(load)(load.torque_at_rated_nm[:1], load.rated_speed_rad_s[:1], np.asarray(load.kind)[:1])
-        if has_circuit
-        else None,
-    )
+    in_circuits = np.cumsum(with_circuit) - 1  # each row's place among the rows with a circuit
+    load_kind = np.asarray(load.kind)
+    row_of = {int(fitted_capacitor_id): k for k, fitted_capacitor_id in enumerate(inst["fitted_capacitor_id"])}
+    positions = []
+    for fitted_capacitor in fitted_capacitors:
+        k = row_of[fitted_capacitor.id]
+        row = inst.iloc[k]
+        part = design_part(fitted_capacitor)
+        has_circuit = bool(with_circuit[k])
+        j = int(in_circuits[k])
+        one = slice(j, j + 1)
+        companion = (start_uf if row["role"] == ROLE_RUN else run_uf)[j] if has_circuit else 0.0
+        positions.append(
+            Position(
+                role=row["role"],
+                motor_kind=row["motor_type"],
+                frequency_hz=float(row["frequency_hz"]),
+                full_load_current_a=float(row["full_load_current_a"]),
+                design_uf=float(part.rated_uf),
+                design_voltage_v=float(part.rated_voltage_v),
+                design_dielectric=part.dielectric,
+                design_class=part.class_of_operation,
+                design_tolerance_minus_pct=float(part.tolerance_minus_pct),
+                design_tolerance_plus_pct=float(part.tolerance_plus_pct),
+                companion_uf=float(np.nan_to_num(companion)),
+                circuit=circuit.take([j]) if has_circuit else None,
+                load=type(load)(load.torque_at_rated_nm[one], load.rated_speed_rad_s[one], load_kind[one])
+                if has_circuit
+                else None,
+            )
+        )
+    return positions
 
 
 def _number(value, digits=3):
@@ -208,28 +228,62 @@ def verdict_of_part(fitted_capacitor: FittedCapacitor, part: CapacitorPart) -> d
     return substitutes_for(fitted_capacitor, codes=[part.code], pairs=False)["items"][0]
 
 
+def designs_in_service(user=None) -> dict[tuple, int]:
+    """The position designs among the capacitors in service at the user's sites (None: every site):
+    {(part_id, role, *DESIGN_FIELDS): id of the design's first capacitor in service}.
+
+    The designs come from the ledger the database keeps on write (`DesignCount`, migration 0032), a few
+    rows per design and site. Each design's first capacitor is found by walking its part and role's
+    capacitors in service in id order (index `in_service_by_part`), looking each one's motor up by key,
+    and stopping at the first on a motor of that design at one of the user's sites: the motor is looked
+    up in a scalar subquery so that the database cannot start from the motors (it would read every motor,
+    its estimate of a match on 16 columns being one). One query, whatever the fleet's size.
+    """
+    columns = ["part_id", "role", *DESIGN_FIELDS]
+    site_ids = sorted(visible_site_ids(user) or []) if user is not None else []
+    at_sites = f" AND m.site_id IN ({', '.join(['%s'] * len(site_ids))})" if site_ids else ""
+    motor = ["m.status", *(f"m.{name}" for name in DESIGN_FIELDS)]
+    wanted = ["CAST('in_service' AS varchar(20))", *(f"g.{name}" for name in DESIGN_FIELDS)]
+    if connection.vendor == "postgresql":  # one record each, equal when every field is (empty ones too)
+        motor, wanted, same = f"ROW({', '.join(motor)})", f"ROW({', '.join(wanted)})", "IS NOT DISTINCT FROM"
+    else:  # SQLite compares row values
+        motor, wanted, same = ", ".join(motor), f"({', '.join(wanted)})", "IS"
+    ledger = (
+        scope_to_user(DesignCount.objects.all(), user)
+        .values(*columns)
+        .annotate(capacitors=Sum("n"))
+        .filter(capacitors__gt=0)
+        .order_by()
+    )
+    ledger_sql, ledger_params = ledger.query.sql_with_params()
+    sql = f"""
+        SELECT {", ".join(f"g.{name}" for name in columns)}, (
+            SELECT c.id FROM fleet_fittedcapacitor c
+            WHERE c.part_id = g.part_id AND c.role = g.role AND c.removed_on IS NULL
+              AND (SELECT {motor} FROM fleet_motor m WHERE m.id = c.motor_id{at_sites}) {same} {wanted}
+            ORDER BY c.id LIMIT 1
+        ) FROM ({ledger_sql}) g"""
+    with connection.cursor() as cursor:
+        cursor.execute(sql, [*site_ids, *ledger_params])
+        return {tuple(row[:-1]): row[-1] for row in cursor.fetchall()}
+
+
 def part_families(user=None) -> list[dict]:
     """Fewer part numbers: per dielectric, each catalogue part with the number of motor designs (distinct
     circuit, load and design part among the capacitors in service) it would suit as a single substitute, and
     for how many more it would be marginal.
 
-    One advice call per design (a fleet's motors share designs by the dozen), never per motor.
+    One advice call per design (a fleet's motors share designs by the dozen), never per motor; the
+    designs read from the ledger kept on write (`designs_in_service`), never by joining the fleet.
     """
-    fitted = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
-    designs = (
-        fitted.values("part_id", "role", *(f"motor__{name}" for name in DESIGN_FIELDS))
-        .annotate(capacitors=Count("id"), first_id=Min("id"))
-        .order_by("part__dielectric", "part__code")
-    )
+    designs = designs_in_service(user)
     frame = parts_frame()
     singles = candidates_of(frame)
     suits = np.zeros(len(frame), int)
     marginal = np.zeros(len(frame), int)
-    fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(
-        [design["first_id"] for design in designs]
-    )
-    for design in designs:
-        advice = advise(position_of(fitted_capacitors[design["first_id"]]), singles)
+    fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(designs.values())
+    for position in positions_of([fitted_capacitors[first_id] for first_id in designs.values()]):
+        advice = advise(position, singles)
         suits += advice.verdict == SUITABLE
         marginal += advice.verdict == MARGINAL
     frame["designs_suited"] = suits
