@@ -1203,7 +1203,7 @@ class MotorReadCount(models.Model):
 
 class DesignCount(models.Model):
     """Append-only ledger of the capacitors in service per position design, kept on write by database
-    triggers on fitted capacitors and motors (migration 0032), so the stand-in parts page reads the
+    triggers on fitted capacitors and motors (migration 0033), so the stand-in parts page reads the
     distinct designs from a few hundred rows instead of joining every capacitor with its motor.
 
     A capacitor in service on a motor in service adds 1 at (the motor's site, the capacitor's part

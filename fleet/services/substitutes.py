@@ -232,7 +232,7 @@ def designs_in_service(user=None) -> dict[tuple, int]:
     """The position designs among the capacitors in service at the user's sites (None: every site):
     {(part_id, role, *DESIGN_FIELDS): id of the design's first capacitor in service}.
 
-    The designs come from the ledger the database keeps on write (`DesignCount`, migration 0032), a few
+    The designs come from the ledger the database keeps on write (`DesignCount`, migration 0033), a few
     rows per design and site. Each design's first capacitor is found by walking its part and role's
     capacitors in service in id order (index `in_service_by_part`), looking each one's motor up by key,
     and stopping at the first on a motor of that design at one of the user's sites: the motor is looked

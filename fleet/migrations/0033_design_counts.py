@@ -167,7 +167,7 @@ def fill() -> list[str]:
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('fleet', '0031_motor_read_counts'),
+        ('fleet', '0032_removal_reading_on_removal_day'),
     ]
 
     operations = [
