@@ -43,5 +43,8 @@
       }, 250);
     });
   }
-  window.addEventListener("beforeprint", () => cautions.forEach((box) => { box.open = true; }));
+  // Printed, every folded box shows what it holds (the cautions, the work orders' visits).
+  window.addEventListener("beforeprint", () => {
+    document.querySelectorAll("details[data-cautions], details.visit").forEach((box) => { box.open = true; });
+  });
 })();
