@@ -60,6 +60,8 @@ def csrf_failure(request, reason: str = "") -> HttpResponse:
     another tab, most often) was not saved. 403, in the product's look, with a way back to the
     page the form was on when that page is on this site, else to the start page."""
     back = request.META.get("HTTP_REFERER", "")
-    if not url_has_allowed_host_and_scheme(back, allowed_hosts={request.get_host()}, require_https=request.is_secure()):
-        back = reverse("home")
-    return render(request, "csrf_failure.html", {"back": back}, status=403)
+    came_from_here = url_has_allowed_host_and_scheme(
+        back, allowed_hosts={request.get_host()}, require_https=request.is_secure()
+    )
+    context = {"back": back if came_from_here else reverse("home"), "came_from_here": came_from_here}
+    return render(request, "csrf_failure.html", context, status=403)

@@ -89,4 +89,4 @@ def test_a_form_with_a_stale_sign_in_is_refused_plainly_with_a_way_back():
     elsewhere = client.post(form_page, {"capacitance_uf": "4.1"}, HTTP_REFERER="https://elsewhere.example/page")
     assert elsewhere.status_code == 403
     assert "elsewhere.example" not in elsewhere.content.decode()
-    assert f'href="{reverse("home")}"' in elsewhere.content.decode()
+    assert f'href="{reverse("home")}">Back to the start page</a>' in elsewhere.content.decode()
