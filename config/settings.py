@@ -56,6 +56,7 @@ if PRODUCTION and (not SECRET_KEY or SECRET_KEY == DEVELOPMENT_SECRET_KEY or len
 DEBUG = env_bool("DEBUG", not PRODUCTION)
 ALLOWED_HOSTS = env_list("ALLOWED_HOSTS", "127.0.0.1,localhost")
 CSRF_TRUSTED_ORIGINS = env_list("CSRF_TRUSTED_ORIGINS", "")
+CSRF_FAILURE_VIEW = "fleet.faults.csrf_failure"  # a plain page that says nothing was saved
 
 INSTALLED_APPS = [
     "django.contrib.admin",

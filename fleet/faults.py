@@ -1,4 +1,5 @@
-"""What a request answers when the database cannot be reached: 503, not a bare 500.
+"""What a request answers when the database cannot be reached: 503, not a bare 500; and what a
+form answers when its CSRF check fails: a plain page that says nothing was saved, not Django's.
 
 Installed as the site's 500 handler, so it also covers failures in middleware
 (the session and the login check touch the database before any view runs).
@@ -14,6 +15,9 @@ import sys
 from django.contrib.auth.decorators import login_not_required
 from django.db import InterfaceError, OperationalError, connection
 from django.http import HttpResponse, JsonResponse
+from django.shortcuts import render
+from django.urls import reverse
+from django.utils.http import url_has_allowed_host_and_scheme
 from django.template.loader import render_to_string
 from django.views import defaults
 from django.views.decorators.http import require_GET
@@ -69,3 +73,15 @@ def health(request) -> HttpResponse:
     with connection.cursor() as cursor:
         cursor.execute("SELECT 1")
     return HttpResponse("ok", content_type="text/plain")
+
+
+def csrf_failure(request, reason: str = "") -> HttpResponse:
+    """settings.CSRF_FAILURE_VIEW: a form sent with a stale token (signed out and in again in
+    another tab, most often) was not saved. 403, in the product's look, with a way back to the
+    page the form was on when that page is on this site, else to the start page."""
+    back = request.META.get("HTTP_REFERER", "")
+    came_from_here = url_has_allowed_host_and_scheme(
+        back, allowed_hosts={request.get_host()}, require_https=request.is_secure()
+    )
+    context = {"back": back if came_from_here else reverse("home"), "came_from_here": came_from_here}
+    return render(request, "csrf_failure.html", context, status=403)

@@ -63,3 +63,30 @@ def test_rows_to_fix_of_a_refused_file_is_a_message_not_a_server_error(client, t
     response = client.get(reverse("import_rejected", args=[job.id]), follow=True)
     assert response.status_code == 200
     assert "There are no rows to download" in response.content.decode()
+
+
+@pytest.mark.django_db
+@override_settings(DEBUG=False)
+def test_a_form_with_a_stale_sign_in_is_refused_plainly_with_a_way_back():
+    """A form posted without a valid CSRF token (signed out and in again in another tab) answers
+    403 with the product's page, not Django's "CSRF verification failed", and leads back to the
+    page it came from when that is on this site, else to the start page."""
+    from django.test import Client
+
+    fitted_capacitor = make_fitted_capacitor()
+    client = Client(enforce_csrf_checks=True)
+    client.force_login(make_user("technician"))
+    form_page = reverse("reading_new", args=[fitted_capacitor.id])
+    response = client.post(form_page, {"capacitance_uf": "4.1"}, HTTP_REFERER=f"http://testserver{form_page}")
+    assert response.status_code == 403
+    body = response.content.decode()
+    assert "CSRF verification failed" not in body
+    assert "Your sign-in changed since this page was opened, so it was not saved." in body
+    assert "A reading you were typing is kept on this device: open the form again." in body
+    assert f'href="http://testserver{form_page}"' in body
+    assert fitted_capacitor.readings.count() == 0
+
+    elsewhere = client.post(form_page, {"capacitance_uf": "4.1"}, HTTP_REFERER="https://elsewhere.example/page")
+    assert elsewhere.status_code == 403
+    assert "elsewhere.example" not in elsewhere.content.decode()
+    assert f'href="{reverse("home")}">Back to the start page</a>' in elsewhere.content.decode()

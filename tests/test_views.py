@@ -396,3 +396,27 @@ def test_the_admin_shows_assessments_but_never_lets_them_be_typed_over(client, d
     response = client.post(f"/admin/fleet/assessment/{assessment.id}/change/", {"risk": "sound"})
     assert response.status_code == 403
     assert Assessment.objects.get(id=assessment.id).risk == assessment.risk
+
+
+def test_work_orders_fold_each_visit_to_a_line_and_open_those_due(signed_in, technician):
+    """On a phone every visit unfolded made the page 34,000 px tall: each visit is a summary line
+    (site, day, count), opened on a tap; those due today or earlier (and the soonest) come open. The
+    cautions stay on the page."""
+    import re
+
+    today = timezone.localdate()
+    days = [today - dt.timedelta(days=5), today, today + dt.timedelta(days=20)]
+    for offset, day in enumerate(days):
+        fitted_capacitor = make_fitted_capacitor()
+        kind = WorkOrder.Kind.REPLACE_RUN
+        WorkOrder.objects.create(motor=fitted_capacitor.motor, fitted_capacitor=fitted_capacitor, kind=kind, due_on=day)
+        if offset == 2:  # a second order on the last visit: its count says so
+            other = make_fitted_capacitor(motor=fitted_capacitor.motor, role="start")
+            WorkOrder.objects.create(motor=other.motor, fitted_capacitor=other, kind=kind, due_on=day)
+    body = signed_in(technician).get(reverse("work_orders")).content.decode()
+    visits = re.findall(r'<details class="card visit"( open)?>\s*<summary>(.*?)</summary>', body, flags=re.S)
+    assert [bool(opened) for opened, _ in visits] == [True, True, False]
+    summaries = [re.sub(r"<[^>]+>", "", summary) for _, summary in visits]
+    assert "1 order, past its day" in summaries[0] and "1 order, today" in summaries[1]
+    assert "2 orders" in summaries[2] and days[2].isoformat() in summaries[2]
+    assert "never a screwdriver" in body and "Local codes" in body

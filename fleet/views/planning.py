@@ -77,7 +77,11 @@ def work_orders(request):
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
     page = list_page(request, lambda number: open_visits_page(number, user=request.user))
-    return render(request, "fleet/work_orders.html", {"page": page, "visits": page.object_list})
+    return render(
+        request,
+        "fleet/work_orders.html",
+        {"page": page, "visits": page.object_list, "today": timezone.localdate()},
+    )
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)

@@ -27,6 +27,23 @@ CHART_SIZES = """() => [...document.querySelectorAll('.js-plotly-plot')].map(gd 
 }))"""
 
 
+# Each chart's legend against its plot area (Plotly's drag layer covers exactly the plot area).
+LEGENDS_CLEAR = """() => [...document.querySelectorAll('.js-plotly-plot')].map(gd => {
+  const legend = gd.querySelector('.legend'), plot = gd.querySelector('.nsewdrag');
+  if (!legend || !plot) return {id: gd.id, overlap: 0};
+  const a = legend.querySelector('.bg').getBoundingClientRect(), b = plot.getBoundingClientRect();
+  const wide = Math.min(a.right, b.right) - Math.max(a.left, b.left);
+  const tall = Math.min(a.bottom, b.bottom) - Math.max(a.top, b.top);
+  return {id: gd.id, overlap: wide > 0 && tall > 0 ? Math.round(tall) : 0};
+})"""
+
+
+def _legends_clear(page):
+    """No chart's legend lies over its plot (more than a pixel's rounding)."""
+    for chart in page.evaluate(LEGENDS_CLEAR):
+        assert chart["overlap"] <= 1, chart
+
+
 def _charts_hold(page, expected_ids):
     for width in (390, 1366, 390):
         page.set_viewport_size({"width": width, "height": 900})
@@ -71,10 +88,13 @@ def test_the_dashboard_charts_keep_their_height_and_the_page_its_width(phone):
     phone.goto("/dashboard/")
     phone.wait_for_selector("#routes-chart .main-svg")
     _charts_hold(phone, ["workload-chart", "spares-chart", "stock-chart", "mix-chart", "routes-chart"])
+    _legends_clear(phone)
     for width in (390, 1366):
         phone.set_viewport_size({"width": width, "height": 900})
         phone.wait_for_timeout(600)
         assert phone.evaluate("document.documentElement.scrollWidth") <= width
+        # Back at a desktop width the legends wrapped for the phone must not stay over the bars.
+        _legends_clear(phone)
         phone.shot(f"dashboard-{width}")
 
 

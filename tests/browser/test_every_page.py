@@ -1,6 +1,7 @@
 """Every page, as each role, on a phone (390 px) and a desktop (1366 px): the page itself never scrolls
-sideways (wide tables scroll in their own box), no date breaks over two lines, no script error; a
-refused reading puts its summary of what to put right in view, above the cautions.
+sideways (wide tables scroll in their own box), no date or asset tag breaks over two lines, back links
+are 44 px tall targets, the menu keeps to one row at 1366 px, no script error; a refused
+reading puts its summary of what to put right in view, above the cautions.
 
 The pages are found as a user finds them: from the home page, following the links each role sees
 (at most two addresses per kind of page), on the demo's own scenario at a twentieth of its size.
@@ -45,12 +46,13 @@ MEASURE = r"""() => {
   const view = window.innerWidth;
   const wrapped = [];
   const date = /\d{4}-\d{2}-\d{2}(?:[ T]\d{2}:\d{2}(?::\d{2})?)?/g;
+  const tag = /\b[A-Z]{2,5}-\d{3,5}\b/g;  // an asset tag (site code, dash, number): never broken
   const walker = document.createTreeWalker(document.body, NodeFilter.SHOW_TEXT);
   while (walker.nextNode()) {
     const node = walker.currentNode;
     const parent = node.parentElement;
     if (!parent || parent.closest("script, style, [hidden], details:not([open]) > :not(summary)")) continue;
-    for (const match of node.data.matchAll(date)) {
+    for (const match of [...node.data.matchAll(date), ...node.data.matchAll(tag)]) {
       const range = document.createRange();
       range.setStart(node, match.index);
       range.setEnd(node, match.index + match[0].length);
@@ -59,10 +61,19 @@ MEASURE = r"""() => {
       if (lines.size > 1) wrapped.push(match[0] + where);
     }
   }
+  // Back links ("← ...") are targets for gloves: at least 44 px tall.
+  const lowBacks = [...document.querySelectorAll("a")]
+    .filter((a) => a.textContent.trim().startsWith("←") && a.getClientRects().length)
+    .filter((a) => a.getBoundingClientRect().height < 44)
+    .map((a) => a.textContent.trim() + " " + Math.round(a.getBoundingClientRect().height) + " px");
+  // The menu's rows: the vertical centres of the header's visible items.
+  const items = [...document.querySelectorAll("header > *, header details.more > a")]
+    .map((e) => e.getBoundingClientRect()).filter((r) => r.width > 0 && r.height > 0);
+  const menuRows = new Set(items.map((r) => Math.round((r.top + r.bottom) / 20))).size;
   const wide = [...document.querySelectorAll("body *")]
     .filter((e) => e.getBoundingClientRect().right > view + 1 && !e.closest(".table-scroll"))
     .slice(0, 3).map((e) => e.tagName.toLowerCase() + "." + e.className);
-  return {page: document.documentElement.scrollWidth, view, wrapped, wide};
+  return {page: document.documentElement.scrollWidth, view, wrapped, wide, lowBacks, menuRows};
 }"""
 
 
@@ -94,7 +105,11 @@ def _measure(page, path, width, problems, shot_name=None):
     if found["page"] > found["view"]:
         problems.append(f"{width} px {path}: page {found['page']} px wide ({', '.join(found['wide'])})")
     for wrapped in found["wrapped"]:
-        problems.append(f"{width} px {path}: date over two lines: {wrapped}")
+        problems.append(f"{width} px {path}: date or tag over two lines: {wrapped}")
+    for back in found["lowBacks"]:
+        problems.append(f"{width} px {path}: back link under 44 px tall: {back}")
+    if width >= 1366 and found["menuRows"] > 1:
+        problems.append(f"{width} px {path}: the menu takes {found['menuRows']} rows")
     if shot_name:
         page.screenshot(path=str(ARTIFACTS / "pages" / f"{shot_name}-{width}.png"), full_page=True)
 

@@ -18,5 +18,33 @@
       try { sessionStorage.setItem(FOLDED, box.open ? "0" : "1"); } catch (error) { /* storage off */ }
     });
   });
-  window.addEventListener("beforeprint", () => cautions.forEach((box) => { box.open = true; }));
+  // Charts: each box names the JSON of its figure (data-figure). Plotly's own resize leaves a
+  // wrapped legend where the narrower layout put it (over the bars once the window is wide again),
+  // so when the width changes each chart is drawn again from its figure as sent: the layout of the
+  // new width, as a fresh load gives it. The shown group of a chart with buttons is kept.
+  const charts = [...document.querySelectorAll("[data-figure]")];
+  if (charts.length && window.Plotly) {
+    const figure = (box) => JSON.parse(document.getElementById(box.dataset.figure).textContent);
+    const options = { responsive: true, displaylogo: false };
+    charts.forEach((box) => { const fig = figure(box); Plotly.newPlot(box, fig.data, fig.layout, options); });
+    let drawnWidth = window.innerWidth;
+    let pending = null;
+    window.addEventListener("resize", () => {
+      clearTimeout(pending);
+      pending = setTimeout(() => {
+        if (window.innerWidth === drawnWidth) return;
+        drawnWidth = window.innerWidth;
+        charts.forEach((box) => {
+          const fig = figure(box);
+          if (box.layout && box.layout.updatemenus) fig.layout.updatemenus = box.layout.updatemenus;
+          (box.data || []).forEach((trace, k) => { if (fig.data[k]) fig.data[k].visible = trace.visible; });
+          Plotly.react(box, fig.data, fig.layout, options);
+        });
+      }, 250);
+    });
+  }
+  // Printed, every folded box shows what it holds (the cautions, the work orders' visits).
+  window.addEventListener("beforeprint", () => {
+    document.querySelectorAll("details[data-cautions], details.visit").forEach((box) => { box.open = true; });
+  });
 })();
