@@ -16,9 +16,9 @@ from django.contrib.auth.decorators import login_not_required
 from django.db import InterfaceError, OperationalError, connection
 from django.http import HttpResponse, JsonResponse
 from django.shortcuts import render
+from django.template.loader import render_to_string
 from django.urls import reverse
 from django.utils.http import url_has_allowed_host_and_scheme
-from django.template.loader import render_to_string
 from django.views import defaults
 from django.views.decorators.http import require_GET
 
