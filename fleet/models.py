@@ -714,6 +714,14 @@ class Assessment(models.Model):
     fitted_on = models.DateField(
         null=True, blank=True, editable=False, help_text="Its capacitor's fitting date; kept by database triggers"
     )
+    # Its capacitor's motor's place on the site's reading route (migration 0034): the plan lists a day's
+    # replacements in walking order from an index of the assessments instead of joining every one's motor.
+    route_order = models.IntegerField(
+        null=True,
+        blank=True,
+        editable=False,
+        help_text="Its capacitor's motor's route order (Motor.route_order); kept by database triggers while current",
+    )
     created_at = models.DateTimeField(auto_now_add=True)
 
     class Meta:
@@ -743,6 +751,12 @@ class Assessment(models.Model):
             ),
             # Risk counts by site (dashboard, home and plan for a user limited to sites), index only.
             models.Index(fields=["site", "risk"], condition=IN_SERVICE, name="in_service_by_site_risk"),
+            # The plan and home: a day's replacements by site and walking order, read a page at a time.
+            models.Index(
+                fields=["replace_by", "site", "route_order", "fitted_capacitor"],
+                condition=IN_SERVICE,
+                name="in_service_walking_order",
+            ),
         ]
 
     def __str__(self):

@@ -26,6 +26,7 @@ from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.lifedata import refresh_life_fits
 from fleet.services.pages import replacement_plan
 from fleet.services.readings import replace_capacitor
+from fleet.services.register import set_route_order
 from fleet.services.workorders import plan_work_orders
 from fleet.views.field import LABELS_PAGE_SIZE
 from tests.factories import (
@@ -347,3 +348,59 @@ def test_a_visit_sheet_lists_a_page_of_orders_and_the_spares_of_the_whole_visit(
     assert f'{orders}&nbsp;&times;&nbsp;<span class="nowrap">RUN-4U' in first  # spares for every order
     last = client.get(url, {"page": (orders + 1) // 2}).content.decode()
     assert last.count("&#9744;") == orders - 2 * ((orders - 1) // 2)
+
+
+def _route_orders() -> tuple[dict, dict]:
+    """Each current assessment's stored route order, and its capacitor's motor's route order now."""
+    current = Assessment.objects.filter(is_current=True)
+    stored = dict(current.values_list("id", "route_order"))
+    return stored, dict(current.values_list("id", "fitted_capacitor__motor__route_order"))
+
+
+def _plan_ordered_through_the_motors() -> list[int]:
+    """The plan's order as each request used to compute it: every assessment due joined to its motor
+    and site to sort (the capacitor's id breaks the ties the old order left open)."""
+    return list(
+        Assessment.objects.filter(is_current=True, capacitor_in_service=True, replace_by__isnull=False)
+        .order_by(
+            "replace_by",
+            "fitted_capacitor__motor__site__code",
+            "fitted_capacitor__motor__route_order",
+            "fitted_capacitor",
+        )
+        .values_list("id", flat=True)
+    )
+
+
+def test_each_current_assessments_stored_route_order_follows_its_motor_and_orders_the_plan(planner_who_reads):
+    """[derived] The route order stored on each current assessment (kept by triggers and sent by the
+    refit) equals its capacitor's motor's after every write that moves it, and the plan ordered by it
+    lists the capacitors in the order the join through the motors gives."""
+    fleet = Fleet()
+    fleet.grow_to(12, planner_who_reads)
+    stored, fresh = _route_orders()
+    assert stored == fresh and None not in stored.values()
+    # The planner walks the north site the other way round (the route page's service).
+    north = list(Motor.objects.filter(site=fleet.sites[0]).order_by("route_order"))
+    set_route_order(site=fleet.sites[0], positions={m.id: str(100 - m.route_order) for m in north})
+    stored, fresh = _route_orders()
+    assert stored == fresh
+    # A reading and its refit: a new current assessment from the refit's writer, which sends the order.
+    worn = Assessment.objects.filter(is_current=True, risk="replace now").first().fitted_capacitor
+    make_reading(worn, capacitance_uf=3.5)
+    refit_fitted_capacitors([worn.id])
+    # A capacitor recorded on the wrong motor is corrected in the register.
+    moved = Assessment.objects.filter(is_current=True).exclude(fitted_capacitor=worn).last().fitted_capacitor
+    moved.motor = make_motor(site=fleet.sites[1], route_order=77, with_circuit=False)
+    moved.save()
+    # An assessment written without the order (the database looks it up).
+    another = Assessment.objects.filter(is_current=True).exclude(fitted_capacitor__in=[worn, moved.pk]).first()
+    Assessment.objects.filter(pk=another.pk).update(is_current=False)
+    another.pk, another.route_order, another.is_current = None, None, True
+    another.save()
+    stored, fresh = _route_orders()
+    assert stored == fresh and None not in stored.values()
+    assert Assessment.objects.get(pk=another.pk).route_order == another.fitted_capacitor.motor.route_order
+    plan = list(replacement_plan(horizon_days=3650).values_list("id", flat=True))
+    assert plan == _plan_ordered_through_the_motors()
+    assert len({day for day in Assessment.objects.filter(pk__in=plan).values_list("replace_by", flat=True)}) < len(plan)

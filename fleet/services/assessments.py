@@ -682,12 +682,13 @@ def refit_fitted_capacitors(
     return RefitOutcome(written=len(rows), skipped=len(ids) - len(rows), readings=int(len(readings)))
 
 
-FACT_COLUMNS = ["capacitor_in_service", "site_id", "part_id", "fitted_on"]
+FACT_COLUMNS = ["capacitor_in_service", "site_id", "part_id", "fitted_on", "route_order"]
 
 
 def _capacitor_facts_locked(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
     """Lock the capacitors' rows (in id order) and read what each new assessment stores of its
-    capacitor: in service, its motor's site, its part, its fitting date; indexed by capacitor.
+    capacitor: in service, its motor's site, its part, its fitting date, its motor's route order;
+    indexed by capacitor.
 
     Read under the lock, so a capacitor removed or moved meanwhile is seen as it is now: the same
     facts the database's trigger would look up for a row sent without them (migration 0029).
@@ -696,7 +697,7 @@ def _capacitor_facts_locked(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
         FittedCapacitor.objects.select_for_update(of=("self",))
         .filter(pk__any_of=fitted_capacitor_ids)
         .order_by("pk")
-        .values_list("pk", "removed_on", "motor__site_id", "part_id", "fitted_on")
+        .values_list("pk", "removed_on", "motor__site_id", "part_id", "fitted_on", "motor__route_order")
     )
     frame = pd.DataFrame.from_records(list(rows), columns=["fitted_capacitor_id", "removed_on", *FACT_COLUMNS[1:]])
     frame["capacitor_in_service"] = frame.pop("removed_on").isna()

@@ -195,18 +195,24 @@ def risk_summary(user=None):
 
 # An assessment's per-limit details and operating figures: the capacitor page shows them, lists do not.
 LIST_DEFERRED = ("limits", "figures_now", "figures_new", "flagged_reading_ids")
+# A list's capacitors with their motors, sites and parts, read for the rows of a page only (one query):
+# joined into the list's own query, they were joined for every row the sort had to see.
+LISTED_CAPACITORS = Prefetch(
+    "fitted_capacitor", queryset=FittedCapacitor.objects.select_related("motor__site", "part").order_by()
+)
 
 
 def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None):
-    """Capacitors in service at the user's sites to replace within the horizon, soonest first,
-    with the newest assessment's figures (not the per-limit details); one query."""
+    """Capacitors in service at the user's sites to replace within the horizon, soonest first, then by
+    site and walking order, with the newest assessment's figures (not the per-limit details); one
+    query, ordered by the assessment's stored site and route order (the in_service_walking_order index)."""
     until = timezone.localdate() + dt.timedelta(days=horizon_days)
     queryset = (
         in_service_assessments(user)
         .filter(replace_by__lte=until)
         .defer(*LIST_DEFERRED)
-        .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
-        .order_by("replace_by", "fitted_capacitor__motor__site__code", "fitted_capacitor__motor__route_order")
+        .prefetch_related(LISTED_CAPACITORS)
+        .order_by("replace_by", "site__code", "route_order", "fitted_capacitor_id")
     )
     if site is not None:
         queryset = queryset.filter(site=site)
