@@ -11,6 +11,7 @@ from django.core.paginator import Paginator
 from django.db import transaction
 from django.db.models import Count, F, OuterRef, Q, Subquery, Window
 from django.db.models.functions import RowNumber
+from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
@@ -135,9 +136,26 @@ def open_visit(site_id: int, day: dt.date, user=None) -> dict:
     return {"day": day, "orders": orders, "spares": _spares(orders).get((day, site_id), [])}
 
 
+# What the work-orders page shows of an order, its motor, site and part: a few of their columns.
+LISTED_ORDER_FIELDS = (
+    "due_on",
+    "site_id",
+    "kind",
+    "state",
+    "reason",
+    "motor__asset_tag",
+    "motor__location",
+    "motor__route_order",
+    "site__code",
+    "site__name",
+    "fitted_capacitor__part__code",
+)
+
+
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
     """A page of open visits (site, day) at the user's sites, soonest first: each with its order
-    count, its first `orders_shown` orders in walking order and its spares. Six queries, whatever
+    count, its first `orders_shown` orders in walking order (each with its motor's `motor_url`) and its
+    spares. Six queries, whatever
     the number of orders: the visits are grouped and counted in SQL, the orders cut per visit by a
     window function over the orders alone (each one's motor looked up by its key: joining the motors
     first read every motor), then the orders shown are read with their motors."""
@@ -170,10 +188,12 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     listed = (
         WorkOrder.objects.filter(id__in=shown)
         .select_related("motor", "site", "fitted_capacitor__part")
+        .only(*LISTED_ORDER_FIELDS)
         .order_by("due_on", "site__code", "motor__route_order", "motor__asset_tag", "id")
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
+        order.motor_url = reverse("motor", args=[order.motor.asset_tag])
         by_visit.setdefault((order.due_on, order.site_id), []).append(order)
     spares = _spares(orders.filter(in_page))
     page.object_list = [
