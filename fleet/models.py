@@ -842,6 +842,21 @@ class WorkOrder(models.Model):
         settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+"
     )
     closed_at = models.DateTimeField(null=True, blank=True)
+    # Its motor's place on the route and tag, and its capacitor's part, kept by database triggers
+    # (migration 0035): the work-orders page and the visit sheet walk a visit's orders and count its
+    # spares from the open orders' index instead of looking up every order's motor and capacitor.
+    route_order = models.IntegerField(
+        null=True, blank=True, editable=False, help_text="Its motor's route order; kept by database triggers"
+    )
+    # Null allowed so that SQLite adds the column in place: rebuilding the table would drop its triggers.
+    asset_tag = models.CharField(  # noqa: DJ001
+        max_length=40,
+        null=True,
+        blank=True,
+        editable=False,
+        help_text="Its motor's asset tag; kept by database triggers",
+    )
+    part = kept_by_triggers(CapacitorPart, "Its capacitor's part (none for an inspection); kept by database triggers")
 
     class Meta:
         ordering = ["due_on", "motor__asset_tag"]
@@ -857,10 +872,14 @@ class WorkOrder(models.Model):
                 name="closed_orders_have_close_time",
             ),
         ]
-        # The work-orders page: open orders by visit (day, site), a page of visits at a time.
+        # The work-orders page: open orders by visit (day, site), a page of visits at a time, each visit's
+        # orders in walking order and its spares by part, from the index alone.
         indexes = [
             models.Index(
-                fields=["due_on", "site"], condition=Q(state__in=["planned", "issued"]), name="open_orders_by_visit"
+                fields=["due_on", "site", "route_order", "asset_tag", "id"],
+                include=["part"],
+                condition=Q(state__in=["planned", "issued"]),
+                name="open_orders_by_visit_walk",
             )
         ]
 

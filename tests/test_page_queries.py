@@ -404,3 +404,49 @@ def test_each_current_assessments_stored_route_order_follows_its_motor_and_order
     plan = list(replacement_plan(horizon_days=3650).values_list("id", flat=True))
     assert plan == _plan_ordered_through_the_motors()
     assert len({day for day in Assessment.objects.filter(pk__in=plan).values_list("replace_by", flat=True)}) < len(plan)
+
+
+def _work_order_facts() -> tuple[list, list]:
+    """Each work order's stored walking order and part, and its motor's and capacitor's now."""
+    from fleet.models import WorkOrder
+
+    orders = WorkOrder.objects.order_by("id")
+    stored = list(orders.values_list("id", "route_order", "asset_tag", "part_id"))
+    fresh = list(orders.values_list("id", "motor__route_order", "motor__asset_tag", "fitted_capacitor__part_id"))
+    return stored, fresh
+
+
+def test_each_work_orders_stored_walking_order_and_part_follow_its_motor_and_capacitor(planner_who_reads):
+    """[derived] The route order, tag and part stored on each work order (kept by triggers) equal its
+    motor's and capacitor's after every write that moves them, and a visit lists its orders in the
+    order the join through the motors gives, with the spares counted through the capacitors."""
+    from fleet.models import WorkOrder
+    from fleet.services import workorders
+
+    fleet = Fleet()
+    fleet.grow_to(12, planner_who_reads)
+    stored, fresh = _work_order_facts()
+    assert stored == fresh and len(stored) > 2 and all(row[1] is not None and row[2] for row in stored)
+    order = WorkOrder.objects.select_related("motor").first()  # read before the route changes below
+    north = list(Motor.objects.filter(site=fleet.sites[0]).order_by("route_order"))
+    set_route_order(site=fleet.sites[0], positions={m.id: str(7) for m in north})  # ties: the tag decides
+    renamed = WorkOrder.objects.filter(site=fleet.sites[0]).exclude(motor=order.motor).order_by("-id")[0].motor
+    renamed.asset_tag = "A-" + renamed.asset_tag  # walked first of its visit now, though its order is the newest
+    renamed.save()
+    corrected = WorkOrder.objects.exclude(fitted_capacitor=None).last().fitted_capacitor
+    corrected.part = make_part(code="RUN-4U-B")
+    corrected.save()
+    order.reason = "edited in the admin"
+    order.save()  # writes back every column it read, the old route order too
+    assert _work_order_facts()[0] == _work_order_facts()[1]
+    visits = workorders.open_visits_page(1, per_page=100, orders_shown=100).object_list
+    assert any(visit["orders"][0].motor == renamed and len(visit["orders"]) > 1 for visit in visits)
+    for visit in visits:
+        by_join = WorkOrder.objects.filter(
+            site_id=visit["site"].id, due_on=visit["day"], state__in=workorders.OPEN
+        ).order_by("motor__route_order", "motor__asset_tag", "id")
+        assert [o.id for o in visit["orders"]] == [o.id for o in by_join]
+        parts = by_join.exclude(fitted_capacitor=None).values_list("fitted_capacitor__part__code")
+        assert visit["spares"] == sorted(parts.annotate(n=Count("id")).order_by())
+        sheet = workorders.open_visit(visit["site"].id, visit["day"])
+        assert [o.id for o in sheet["orders"]] == [o.id for o in by_join] and sheet["spares"] == visit["spares"]

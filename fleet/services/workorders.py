@@ -9,14 +9,14 @@ from operator import or_
 import numpy as np
 from django.core.paginator import Paginator
 from django.db import transaction
-from django.db.models import Count, F, OuterRef, Q, Subquery, Window
+from django.db.models import Count, F, Q, Window
 from django.db.models.functions import RowNumber
 from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import bundle_visits
-from fleet.models import FittedCapacitor, Motor, WorkOrder
+from fleet.models import FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
@@ -106,18 +106,14 @@ def _open_orders(user=None):
 
 
 def _spares(orders) -> dict[tuple, list[tuple[str, int]]]:
-    """Parts each visit (day, site id) takes, counted in SQL; each order's part looked up by its
-    capacitor's key (a join read every fitted capacitor for a few thousand orders)."""
+    """Parts each visit (day, site id) takes, counted in SQL from each order's stored part (the open
+    orders' index alone), then named from the few parts."""
     spares: dict[tuple, list[tuple[str, int]]] = {}
-    part_code = Subquery(
-        FittedCapacitor.objects.filter(pk=OuterRef("fitted_capacitor_id")).order_by().values("part__code")
-    )
     rows = (
         orders.filter(fitted_capacitor__isnull=False)
-        .annotate(part_code=part_code)
-        .values_list("due_on", "site_id", "part_code")
+        .values_list("due_on", "site_id", "part__code")
         .annotate(quantity=Count("id"))
-        .order_by("due_on", "site_id", "part_code")
+        .order_by("due_on", "site_id", "part__code")
     )
     for day, site_id, code, quantity in rows:
         spares.setdefault((day, site_id), []).append((code, quantity))
@@ -131,10 +127,13 @@ def open_visit(site_id: int, day: dt.date, user=None) -> dict:
         _open_orders(user)
         .filter(site_id=site_id, due_on=day)
         .select_related("motor", "site", "fitted_capacitor__part")
-        .order_by("motor__route_order", "motor__asset_tag", "id")
+        .order_by(*WALKING_ORDER)
     )
     return {"day": day, "orders": orders, "spares": _spares(orders).get((day, site_id), [])}
 
+
+# A visit's orders as the technician walks them: the motors' route order, then tag (stored on each order).
+WALKING_ORDER = ("route_order", "asset_tag", "id")
 
 # What the work-orders page shows of an order, its motor, site and part: a few of their columns.
 LISTED_ORDER_FIELDS = (
@@ -157,8 +156,8 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     count, its first `orders_shown` orders in walking order (each with its motor's `motor_url`) and its
     spares. Six queries, whatever
     the number of orders: the visits are grouped and counted in SQL, the orders cut per visit by a
-    window function over the orders alone (each one's motor looked up by its key: joining the motors
-    first read every motor), then the orders shown are read with their motors."""
+    window function over the orders alone (by their stored walking order, from the open orders' index),
+    then the orders shown are read with their motors."""
     orders = _open_orders(user)
     visits = (
         orders.values("due_on", "site_id", "site__code").annotate(count=Count("id")).order_by("due_on", "site__code")
@@ -168,15 +167,8 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     if not keys:
         return page
     in_page = reduce(or_, (Q(due_on=day, site_id=site_id) for day, site_id in keys))
-    motor = Motor.objects.filter(pk=OuterRef("motor_id")).order_by()  # no default ordering: a key look-up
     position = Window(
-        RowNumber(),
-        partition_by=[F("due_on"), F("site_id")],
-        order_by=[
-            Subquery(motor.values("route_order")).asc(),
-            Subquery(motor.values("asset_tag")).asc(),
-            F("id").asc(),
-        ],
+        RowNumber(), partition_by=[F("due_on"), F("site_id")], order_by=[F(name).asc() for name in WALKING_ORDER]
     )
     shown = list(
         orders.filter(in_page)
@@ -189,7 +181,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
         WorkOrder.objects.filter(id__in=shown)
         .select_related("motor", "site", "fitted_capacitor__part")
         .only(*LISTED_ORDER_FIELDS)
-        .order_by("due_on", "site__code", "motor__route_order", "motor__asset_tag", "id")
+        .order_by("due_on", "site__code", *WALKING_ORDER)
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
