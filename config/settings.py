@@ -97,7 +97,7 @@ TEMPLATES = [
                 "fleet.context.roles",
             ],
             # Numbers, dates and units for people, in every template without a {% load %}.
-            "builtins": ["fleet.templatetags.fleet_format"],
+            "builtins": ["fleet.templatetags.fleet_format", "fleet.templatetags.fleet_rows"],
         },
     },
 ]

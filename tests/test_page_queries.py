@@ -24,7 +24,7 @@ from fleet.models import Assessment, ImportJob, Motor, RefitRun
 from fleet.roles import TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.lifedata import refresh_life_fits
-from fleet.services.pages import replacement_plan
+from fleet.services.pages import LISTED_CAPACITORS, replacement_plan
 from fleet.services.readings import replace_capacitor
 from fleet.services.register import set_route_order
 from fleet.services.workorders import plan_work_orders
@@ -450,3 +450,39 @@ def test_each_work_orders_stored_walking_order_and_part_follow_its_motor_and_cap
         assert visit["spares"] == sorted(parts.annotate(n=Count("id")).order_by())
         sheet = workorders.open_visit(visit["site"].id, visit["day"])
         assert [o.id for o in sheet["orders"]] == [o.id for o in by_join] and sheet["spares"] == visit["spares"]
+
+
+PLAN_ROW_TEMPLATE = """{% for a in rows %}
+<tr>
+  <td data-label="Motor, capacitor"><a class="nowrap" href="{% url 'motor' a.fitted_capacitor.motor.asset_tag %}">{{ a.fitted_capacitor.motor.asset_tag }}</a><br><span class="muted">{{ a.fitted_capacitor.motor.location }}</span><br><a href="{% url 'fitted_capacitor' a.fitted_capacitor.id %}">{{ a.fitted_capacitor.get_role_display }} <span class="nowrap">{{ a.fitted_capacitor.part.code }}</span></a></td>
+  <td data-label="Risk, replace by"><span class="risk risk-{{ a.risk|slugify }}">{{ a.risk }}</span><br><span class="nowrap replace-by">{{ a.replace_by|date:"Y-m-d"|default:"-" }}</span>{% if a.low_confidence %}<br><span class="muted">few readings</span>{% endif %}</td>
+  <td class="num" data-label="Now (&micro;F)">{{ a.capacitance_now_uf|floatformat:2 }}</td>
+  <td data-label="Limit">{{ a.limit_source }}</td>
+  <td data-label="Why">{{ a.reason|default:"-"|nowrap_dates }}</td>
+  <td data-label="Early / likely crossing"><span class="nowrap">{{ a.p10_on|date:"Y-m-d"|default:"-" }}</span> / <span class="nowrap">{{ a.p50_on|date:"Y-m-d"|default:"beyond" }}</span></td>
+  <td data-label="Site">{{ a.fitted_capacitor.motor.site.code }}</td>
+</tr>
+{% empty %}<tr><td colspan="7">Nothing due in this window.</td></tr>{% endfor %}"""  # noqa: E501
+
+
+def test_the_plan_rows_written_in_python_are_the_markup_the_template_wrote(planner_who_reads):
+    """[derived] The plan table's rows, now written by a template tag, equal what the template loop
+    they replaced renders for the same assessments: dates and their dashes, few readings, a reason
+    with a date in it and none, markup in a part code and a location escaped, and no rows at all."""
+    from django.template import engines
+
+    from fleet.templatetags.fleet_rows import plan_rows
+
+    fleet = Fleet()
+    fleet.grow_to(6, planner_who_reads)
+    first, second, third = Assessment.objects.filter(is_current=True).order_by("id")[:3]
+    Assessment.objects.filter(pk=first.pk).update(low_confidence=True, p50_on=None, reason="")
+    Assessment.objects.filter(pk=second.pk).update(p10_on=None, replace_by=None, reason="replace by 2027-03-01 <b>")
+    Motor.objects.filter(pk=third.fitted_capacitor.motor_id).update(location="Bay <3 & pumps")
+    rows = list(replacement_plan(horizon_days=3650)) + list(
+        Assessment.objects.filter(pk=second.pk).prefetch_related(LISTED_CAPACITORS)
+    )
+    assert len(rows) > 3
+    reference = engines["django"].from_string(PLAN_ROW_TEMPLATE)
+    assert plan_rows(rows) == reference.render({"rows": rows})
+    assert plan_rows([]) == reference.render({"rows": []})

@@ -1,0 +1,65 @@
+"""Rows of the plan's table written in Python: through the template engine a page of 50 rows cost
+about 11 ms of CPU (two url tags and five filters a row, each cell's variable looked up through four
+objects); written here with one format_html a row, the same markup costs about a tenth of that."""
+
+from __future__ import annotations
+
+from django import template
+from django.template.defaultfilters import floatformat
+from django.urls import reverse
+from django.utils.html import format_html
+from django.utils.safestring import mark_safe
+from django.utils.text import slugify
+
+from .fleet_format import nowrap_dates
+
+register = template.Library()
+
+PLAN_ROW = """
+<tr>
+  <td data-label="Motor, capacitor"><a class="nowrap" href="{motor_url}">{tag}</a><br><span class="muted">{location}</span><br><a href="{capacitor_url}">{role} <span class="nowrap">{part}</span></a></td>
+  <td data-label="Risk, replace by"><span class="risk risk-{risk_slug}">{risk}</span><br><span class="nowrap replace-by">{replace_by}</span>{few}</td>
+  <td class="num" data-label="Now (&micro;F)">{capacitance}</td>
+  <td data-label="Limit">{limit}</td>
+  <td data-label="Why">{reason}</td>
+  <td data-label="Early / likely crossing"><span class="nowrap">{p10}</span> / <span class="nowrap">{p50}</span></td>
+  <td data-label="Site">{site}</td>
+</tr>
+"""  # noqa: E501 (one line a cell, as the page's source shows it)
+FEW_READINGS = mark_safe('<br><span class="muted">few readings</span>')
+NOTHING_DUE = mark_safe('<tr><td colspan="7">Nothing due in this window.</td></tr>')
+
+
+def _iso(day, none: str) -> str:
+    return none if day is None else day.isoformat()
+
+
+@register.simple_tag
+def plan_rows(assessments):
+    """The plan table's body rows for `assessments` (with their capacitors, motors, sites and parts)."""
+    rows = []
+    for a in assessments:
+        capacitor = a.fitted_capacitor
+        motor = capacitor.motor
+        rows.append(
+            format_html(
+                PLAN_ROW,
+                motor_url=reverse("motor", args=[motor.asset_tag]),
+                tag=motor.asset_tag,
+                location=motor.location,
+                capacitor_url=reverse("fitted_capacitor", args=[capacitor.id]),
+                role=capacitor.get_role_display(),
+                part=capacitor.part.code,
+                risk_slug=slugify(a.risk),
+                risk=a.risk,
+                replace_by=_iso(a.replace_by, "-"),
+                few=FEW_READINGS if a.low_confidence else "",
+                capacitance=floatformat(a.capacitance_now_uf, 2),
+                limit=a.limit_source,
+                reason=nowrap_dates(a.reason or "-"),
+                p10=_iso(a.p10_on, "-"),
+                p50=_iso(a.p50_on, "beyond"),
+                site=motor.site.code,
+            )
+        )
+    return mark_safe("".join(rows)) if rows else NOTHING_DUE
