@@ -486,3 +486,33 @@ def test_the_plan_rows_written_in_python_are_the_markup_the_template_wrote(plann
     reference = engines["django"].from_string(PLAN_ROW_TEMPLATE)
     assert plan_rows(rows) == reference.render({"rows": rows})
     assert plan_rows([]) == reference.render({"rows": []})
+
+
+WORK_ORDER_ROW_TEMPLATE = """{% for order in orders %}<tr>
+    <td data-label="Motor"><a href="{% url 'motor' order.motor.asset_tag %}">{{ order.motor.asset_tag }}</a><br><span class="muted">{{ order.motor.location }}</span></td>
+    <td data-label="Work">{{ order.get_kind_display }}</td><td data-label="Part"><span class="nowrap">{{ order.fitted_capacitor.part.code }}</span></td><td data-label="State">{{ order.get_state_display }}</td><td data-label="Why">{{ order.reason|nowrap_dates }}</td></tr>
+  {% endfor %}"""  # noqa: E501
+
+
+def test_the_work_order_rows_written_in_python_are_the_markup_the_template_wrote(planner_who_reads):
+    """[derived] A visit's rows, now written by a template tag, equal what the template loop they
+    replaced renders: an inspection without a capacitor, a reason with a date and none, markup escaped."""
+    from django.template import engines
+
+    from fleet.models import WorkOrder
+    from fleet.services import workorders
+    from fleet.templatetags.fleet_rows import work_order_rows
+
+    fleet = Fleet()
+    fleet.grow_to(6, planner_who_reads)
+    first = WorkOrder.objects.order_by("id").first()
+    WorkOrder.objects.filter(pk=first.pk).update(reason="")
+    Motor.objects.filter(pk=first.motor_id).update(location="Bay <3 & pumps")
+    WorkOrder.objects.create(
+        motor=first.motor, kind=WorkOrder.Kind.INSPECT, due_on=first.due_on, reason="seen 2026-01-05 <b>"
+    )
+    visits = workorders.open_visits_page(1, per_page=100).object_list
+    orders = [order for visit in visits for order in visit["orders"]]
+    assert any(order.fitted_capacitor is None for order in orders) and len(orders) > 2
+    reference = engines["django"].from_string(WORK_ORDER_ROW_TEMPLATE)
+    assert work_order_rows(orders) == reference.render({"orders": orders})

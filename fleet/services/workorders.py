@@ -11,7 +11,6 @@ from django.core.paginator import Paginator
 from django.db import transaction
 from django.db.models import Count, F, Q, Window
 from django.db.models.functions import RowNumber
-from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
@@ -153,8 +152,7 @@ LISTED_ORDER_FIELDS = (
 
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
     """A page of open visits (site, day) at the user's sites, soonest first: each with its order
-    count, its first `orders_shown` orders in walking order (each with its motor's `motor_url`) and its
-    spares. Six queries, whatever
+    count, its first `orders_shown` orders in walking order and its spares. Six queries, whatever
     the number of orders: the visits are grouped and counted in SQL, the orders cut per visit by a
     window function over the orders alone (by their stored walking order, from the open orders' index),
     then the orders shown are read with their motors."""
@@ -185,7 +183,6 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
-        order.motor_url = reverse("motor", args=[order.motor.asset_tag])
         by_visit.setdefault((order.due_on, order.site_id), []).append(order)
     spares = _spares(orders.filter(in_page))
     page.object_list = [
