@@ -106,7 +106,7 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
         scope_to_user(WorkOrder.objects.all(), user)
         .filter(state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], due_on__lt=end)
         .annotate(week=_clamped("due_on", TruncWeek, first))
-        .values("week", "site_id", "due_on")  # the work order's stored site: the open_orders_by_visit index
+        .values("week", "site_id", "due_on")  # the work order's stored site: the open_orders_by_visit_walk index
         .annotate(orders=Count("*"))
         .order_by()
     )
