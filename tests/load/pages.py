@@ -2,7 +2,8 @@
 
 Not part of pytest; it prints figures and asserts nothing. Build an invented fleet in an
 empty, migrated database (SQL set operations: 100,000 motors take about a minute), then time
-each page through Django's test client, in-process, signed in as a planner who also reads (technician):
+each page through Django's test client, in-process, signed in as a planner who also reads (technician),
+with the median CPU time of this process per request (view, template and database driver):
 
     export DATABASE_URL=postgres://postgres@127.0.0.1:5432/fleet_bench
     .venv/bin/python manage.py migrate
@@ -244,7 +245,7 @@ def measure(requests: int, explain: bool, skip: list[str], only: list[str]) -> N
         f"fleet: {Motor.objects.count():,} motors, {FittedCapacitor.objects.count():,} fitted capacitors, "
         f"{Assessment.objects.count():,} assessments ({connection.vendor})"
     )
-    print(f"{'page':<28}{'queries':>8}{'KB':>9}{'p50 ms':>9}{'p95 ms':>9}")
+    print(f"{'page':<28}{'queries':>8}{'KB':>9}{'p50 ms':>9}{'p95 ms':>9}{'CPU ms':>9}")
     for name, url in page_urls():
         if any(word in name for word in skip) or (only and not any(word in name for word in only)):
             continue
@@ -254,13 +255,15 @@ def measure(requests: int, explain: bool, skip: list[str], only: list[str]) -> N
         queries = list(captured.captured_queries)  # read now: a later request may empty the log
         assert status == 200, (name, status)
         size_kb = len(body) / 1024
-        times = []
+        times, cpu_times = [], []
         for _ in range(requests):
-            start = time.perf_counter()
+            start, cpu_start = time.perf_counter(), time.process_time()
             fetch(client, url)
             times.append((time.perf_counter() - start) * 1000)
+            cpu_times.append((time.process_time() - cpu_start) * 1000)
         p50, p95 = np.percentile(times, [50, 95])
-        print(f"{name:<28}{len(queries):>8}{size_kb:>9.0f}{p50:>9.0f}{p95:>9.0f}", flush=True)
+        cpu = np.median(cpu_times)  # this process's CPU a request: steadier than the wall time on a shared machine
+        print(f"{name:<28}{len(queries):>8}{size_kb:>9.0f}{p50:>9.0f}{p95:>9.0f}{cpu:>9.0f}", flush=True)
         if explain:
             explain_slow(queries)
 
