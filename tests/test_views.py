@@ -74,6 +74,29 @@ def test_a_replacement_without_a_reason_says_what_to_choose(signed_in, technicia
     assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1  # nothing saved
 
 
+def test_a_serial_longer_than_the_register_holds_is_named_and_nothing_is_saved(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """A pasted 61-character serial was saved whole on SQLite (and failed the insert on PostgreSQL's
+    varchar(60)); it is named on its field and neither capacitor changes."""
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
+    response = signed_in(technician).post(
+        url,
+        {
+            "part": fan_fitted_capacitor.part_id,
+            "removed_on": timezone.localdate().isoformat(),
+            "removal_reason": "planned",
+            "serial": "S" * 61,
+        },
+    )
+    page = response.content.decode()
+    assert response.status_code == 200
+    assert "61 characters: a serial or date code takes at most 60" in page
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
+    fan_fitted_capacitor.refresh_from_db()
+    assert fan_fitted_capacitor.removed_on is None
+
+
 def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_fitted_capacitor):
     url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     response = signed_in(technician).post(
