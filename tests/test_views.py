@@ -8,7 +8,14 @@ from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_reading,
+    make_site,
+    quarterly_readings,
+)
 
 pytestmark = pytest.mark.django_db
 
@@ -46,6 +53,42 @@ def test_a_capacitor_in_service_carries_the_cautions_with_its_own_stored_energy(
     assert "never a screwdriver" in body and "Local codes" in body
     assert "This one can hold about 0.8 J at the peak of its rated voltage" in body
     assert "rated 450 V" in body
+
+
+def test_the_motor_and_capacitor_pages_give_reading_times_in_the_sites_time(signed_in, technician):
+    """The reading form and its correction banner speak the site's time; the capacitor page listed the
+    same reading an hour earlier (UTC, unlabelled), and "corrects the reading of 11:25" followed
+    "Correcting the reading of 12:25". Dublin keeps UTC+1 in July (IANA tz database)."""
+    site = make_site(time_zone="Europe/Dublin")
+    capacitor = make_fitted_capacitor(motor=make_motor(site=site))
+    make_reading(capacitor, taken_at=dt.datetime(2026, 7, 1, 23, 25, tzinfo=dt.UTC))
+    client = signed_in(technician)
+    page = client.get(reverse("fitted_capacitor", args=[capacitor.id])).content.decode()
+    assert "2026-07-02 00:25" in page and "2026-07-01 23:25" not in page
+    assert "Europe/Dublin" in page
+    motor_page = client.get(reverse("motor", args=[capacitor.motor.asset_tag])).content.decode()
+    assert "2026-07-02" in motor_page and "2026-07-01" not in motor_page
+
+
+def test_the_capacitor_page_links_its_reading_form_and_replacement_while_in_service(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """A technician on a capacitor's trend page had to go back to the motor to log a reading."""
+    client = signed_in(technician)
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    assert f'href="{reverse("reading_new", args=[fan_fitted_capacitor.id])}"' in page
+    assert f'href="{reverse("replace", args=[fan_fitted_capacitor.id])}"' in page
+    fan_fitted_capacitor.removed_on, fan_fitted_capacitor.removal_reason = dt.date(2023, 1, 1), "planned"
+    fan_fitted_capacitor.save()
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    assert f'href="{reverse("replace", args=[fan_fitted_capacitor.id])}"' not in page
+
+
+def test_the_motor_pages_log_reading_comes_before_the_readings_and_charts(signed_in, technician, fan_fitted_capacitor):
+    """On a phone the button sat under the readings and three charts, about 2,000 px down."""
+    page = signed_in(technician).get(reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag])).content.decode()
+    log_reading = page.index(f'href="{reverse("reading_new", args=[fan_fitted_capacitor.id])}"')
+    assert log_reading < page.index("<th>Taken")
 
 
 def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in, technician, fan_fitted_capacitor):
