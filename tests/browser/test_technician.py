@@ -20,6 +20,15 @@ def motor_with_history(transactional_db):
     return fitted_capacitor
 
 
+def test_a_readings_correct_link_is_a_glove_sized_target(phone, motor_with_history):
+    """On the capacitor page at 390 px each "Correct" link was a 62 x 20 px line of text in a table cell;
+    44 px is the WCAG 2.2 enhanced target size the menu and the back links keep."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/")
+    heights = phone.eval_on_selector_all("a.correct-reading", "as => as.map(a => a.getBoundingClientRect().height)")
+    assert len(heights) == 5 and min(heights) >= 44, heights
+
+
 def sign_in(page, user):
     page.goto("/login/")
     page.fill("#id_username", user.username)
