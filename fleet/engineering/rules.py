@@ -97,10 +97,16 @@ class ReadingRules:
             name: asdict(r) | dict(zip(("too_low", "too_high"), range_words(name, r), strict=True))
             for name, r in self.ranges.items()
         }
+        out["short_circuit_words"] = SHORT_CIRCUIT_WORDS
         return out
 
 
 RULES = ReadingRules()
+
+SHORT_CIRCUIT_WORDS = (
+    "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
+    "discharge, check the capacitor with a meter, and record a replacement if it is shorted"
+)
 
 
 def _messages(condition, template, **columns):
@@ -542,12 +548,7 @@ def _check_readings(
     shorted = (
         in_circuit & (voltage >= 0) & short_circuit_suspected(current, voltage, supply, rules.short_circuit_fraction)
     )
-    errors.add(
-        "capacitor_voltage_v",
-        shorted,
-        "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
-        "discharge, check the capacitor with a meter, and record a replacement if it is shorted",
-    )
+    errors.add("capacitor_voltage_v", shorted, SHORT_CIRCUIT_WORDS)
     errors.add("capacitor_current_a", in_circuit & ~shorted, current_unit_slip(current, voltage, rated, frequency))
     for name in ("main_current_a", "aux_current_a", "line_current_a"):
         ratio = values[name] / full_load
