@@ -273,6 +273,10 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
     assert second.asset_tag in response.content.decode() and "not a whole number" in response.content.decode()
     first.refresh_from_db()
     assert first.route_order == 1
+    emptied = client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": " "}).content.decode()
+    assert "is empty: type its place on the round" in emptied
+    first.refresh_from_db()
+    assert first.route_order == 1
     client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "3"})
     first.refresh_from_db()
     assert first.route_order == 5
