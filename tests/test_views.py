@@ -428,6 +428,18 @@ def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_fitted_cap
     assert "1 capacitor has readings newer than its assessment" in body
 
 
+def test_a_finished_run_that_refitted_nothing_says_all_were_up_to_date(signed_in, engineer):
+    """"342 of 342, Readings 0" read as if nothing had been fitted; every capacitor was current."""
+    from fleet.models import RefitRun
+
+    now = timezone.now()
+    RefitRun.objects.create(kind="fleet", state="done", total=342, done=342, readings=0, finished_at=now)
+    RefitRun.objects.create(kind="fleet", state="done", total=10, done=10, readings=57, finished_at=now)
+    body = signed_in(engineer).get(reverse("refits")).content.decode()
+    assert body.count("(all were up to date)") == 1
+    assert "Readings fitted" in body
+
+
 def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, planner):
     """Bad input is named, not taken silently as a default (the plan page's rule for `days`)."""
     fitted_capacitor = make_fitted_capacitor()
