@@ -429,7 +429,7 @@ def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_fitted_cap
 
 
 def test_a_finished_run_that_refitted_nothing_says_all_were_up_to_date(signed_in, engineer):
-    """"342 of 342, Readings 0" read as if nothing had been fitted; every capacitor was current."""
+    """ "342 of 342, Readings 0" read as if nothing had been fitted; every capacitor was current."""
     from fleet.models import RefitRun
 
     now = timezone.now()
