@@ -37,6 +37,9 @@ NOT_FINITE_WORDS = {"nan", "inf", "infinity", "+inf", "-inf", "+infinity", "-inf
 MSG_NOT_A_NUMBER = "not a number"
 MSG_NOT_FINITE = "not a finite number"
 MSG_SEPARATORS = "use one decimal separator (3.8 or 3,8) and no thousands separators"
+MSG_WITH_UNIT = "type the number alone, in the unit the field names (no unit after it)"
+# A number with letters or a symbol after it: "28500 nF", "3.9uF", "230 V", "45 °C".
+NUMBER_WITH_UNIT = r"[+-]?[0-9][0-9.,]*\s*[^\s0-9.,+-][^0-9]*"
 
 
 @dataclass(frozen=True)
@@ -98,6 +101,7 @@ class ReadingRules:
             for name, r in self.ranges.items()
         }
         out["short_circuit_words"] = SHORT_CIRCUIT_WORDS
+        out["with_unit_words"] = MSG_WITH_UNIT
         return out
 
 
@@ -391,7 +395,9 @@ def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
                 given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
                 MSG_NOT_FINITE,
                 np.where(
-                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(), MSG_SEPARATORS, MSG_NOT_A_NUMBER
+                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
+                    MSG_SEPARATORS,
+                    np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
                 ),
             )
             finite = ok & np.isfinite(parsed)
