@@ -103,7 +103,15 @@ TEMPLATES = [
 ]
 WSGI_APPLICATION = "config.wsgi.application"
 
-DATABASE_URL = os.environ.get("DATABASE_URL", f"sqlite:///{BASE_DIR / 'fleet.sqlite3'}")
+# An empty DATABASE_URL (`DATABASE_URL= command`) means "none set": the embedded default.
+DATABASE_URL = os.environ.get("DATABASE_URL") or f"sqlite:///{BASE_DIR / 'fleet.sqlite3'}"
+try:
+    dj_database_url.parse(DATABASE_URL)
+except ValueError as error:
+    raise ImproperlyConfigured(
+        f"DATABASE_URL {DATABASE_URL.split('@')[-1]!r} is not a database address ({error}); "
+        "use postgres://user@host:5432/name, or leave it unset for the embedded SQLite file"
+    ) from error
 # Health checks: a kept connection that died (database restarted) is replaced at the
 # start of the next request instead of failing it.
 DATABASES = {

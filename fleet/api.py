@@ -45,9 +45,29 @@ def fitted_capacitor_or_not_found(request, pk) -> FittedCapacitor:
     return found
 
 
-class NumberedPages(PageNumberPagination):
-    """Numbered pages (the API's default): a page that is not a whole number from 1 to the last is a 400
-    naming `page`, as a bad `page_size` or filter is, instead of a 404 for the whole address."""
+class CheckedPageSize:
+    """`page_size` asked in the query: a whole number from 1 to `max_page_size`, else a 400 naming it
+    (never silently the default while `next` echoes the asked size back)."""
+
+    page_size_query_param = "page_size"
+
+    def get_page_size(self, request):
+        asked = request.query_params.get(self.page_size_query_param)
+        if asked is None:
+            return self.page_size
+        if not (asked.isascii() and asked.isdigit() and 1 <= int(asked) <= self.max_page_size):
+            raise serializers.ValidationError(
+                {self.page_size_query_param: f"A whole number from 1 to {self.max_page_size}."}
+            )
+        return int(asked)
+
+
+class NumberedPages(CheckedPageSize, PageNumberPagination):
+    """Numbered pages (the API's default, 100 a page, `page_size` up to 1000): a page that is not a whole
+    number from 1 to the last is a 400 naming `page`, as a bad `page_size` or filter is, instead of a 404
+    for the whole address."""
+
+    max_page_size = 1000
 
     def paginate_queryset(self, queryset, request, view=None):
         try:
@@ -241,24 +261,12 @@ class BulkReadingSerializer(ReadingSerializer):
         fields.remove("confirmed")
 
 
-class ReadingPages(CursorPagination):
+class ReadingPages(CheckedPageSize, CursorPagination):
     """Pages in the order readings were stored: a page never shifts as readings arrive."""
 
     ordering = "id"
     page_size = 500
-    page_size_query_param = "page_size"
     max_page_size = 5000
-
-    def get_page_size(self, request):
-        """The asked page size, or a 400 naming `page_size` when it is not a whole number from 1 to 5000."""
-        asked = request.query_params.get(self.page_size_query_param)
-        if asked is None:
-            return self.page_size
-        if not (asked.isascii() and asked.isdigit() and 1 <= int(asked) <= self.max_page_size):
-            raise serializers.ValidationError(
-                {self.page_size_query_param: f"A whole number from 1 to {self.max_page_size}."}
-            )
-        return int(asked)
 
     def decode_cursor(self, request):
         """The position a `cursor` holds, or a 400 naming `cursor` when it is not one this list gave."""

@@ -175,11 +175,18 @@ SHORTEST_DAYS, LONGEST_DAYS = PLAN_HORIZON_DAYS
 HORIZON_WORDS = f"type a whole number of days from {SHORTEST_DAYS} to {LONGEST_DAYS}, e.g. 90"
 
 
+class BoundedNumberFilter(django_filters.NumberFilter):
+    """A number whose bounds are its own validators' (the library's 1e+50 cap, in its words, left off)."""
+
+    def get_max_validator(self):
+        return None
+
+
 class PlanParameters(_PageParameters):
     """The plan page's and its downloads' site and horizon (the plan itself comes from a service)."""
 
     site = django_filters.ModelChoiceFilter(queryset=_sites_of, to_field_name="code", method="keep")
-    days = django_filters.NumberFilter(
+    days = BoundedNumberFilter(
         method="keep",
         validators=[MinValueValidator(SHORTEST_DAYS, HORIZON_WORDS), MaxValueValidator(LONGEST_DAYS, HORIZON_WORDS)],
         label="Horizon (days)",
@@ -199,8 +206,8 @@ def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site |
     return values.get("site"), int(values.get("days") or default_days), problems
 
 
-class WholeNumberFilter(django_filters.NumberFilter):
-    """A whole number ("2"; "1.5" and "abc" are refused by name)."""
+class WholeNumberFilter(BoundedNumberFilter):
+    """A whole number ("2"; "1.5" and "abc" are refused by name); one past a list's end is the list's to name."""
 
     field_class = forms.IntegerField
 

@@ -10,7 +10,7 @@ from rest_framework.test import APIClient
 
 from fleet.models import Reading
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import quarterly_readings
+from tests.factories import make_fitted_capacitor, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -47,6 +47,21 @@ def test_a_browser_opening_the_api_gets_json(engineer, fan_fitted_capacitor, cli
         response = client.get(url, {"site": fan_fitted_capacitor.motor.site.code}, HTTP_ACCEPT="text/html,*/*;q=0.8")
         assert response.status_code == 200, url
         assert response["Content-Type"].startswith("application/json")
+
+
+def test_the_assessments_take_a_page_size_and_name_one_they_cannot_use(engineer):
+    """page_size was ignored on the assessments (100 a page whatever was asked) while `next` echoed it."""
+    for n in range(3):
+        capacitor = make_fitted_capacitor()
+        quarterly_readings(capacitor, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.95 - 0.01 * n, 3.9])
+        refit_fitted_capacitors([capacitor.id])
+    client = client_for(engineer)
+    body = client.get(reverse("api_assessments"), {"page_size": 2}).json()
+    assert body["count"] == 3 and len(body["results"]) == 2 and "page_size=2" in body["next"]
+    assert len(client.get(body["next"]).json()["results"]) == 1
+    for bad in ("0", "1001", "two"):
+        response = client.get(reverse("api_assessments"), {"page_size": bad})
+        assert response.status_code == 400 and response.json()["page_size"] == "A whole number from 1 to 1000."
 
 
 @pytest.mark.parametrize("page_size", ["abc", "0", "-1", "999999", "１０"])

@@ -127,6 +127,17 @@ def test_a_page_number_it_cannot_use_is_named_on_the_page(client, administrator,
     assert response.context["page"].number == 1
 
 
+def test_a_huge_page_or_horizon_is_named_in_the_pages_own_words(client, administrator, one_visit):
+    """A 60-digit page or horizon drew the filter library's "less than or equal to 1e+50"."""
+    client.force_login(administrator)
+    huge = "9" * 60
+    response = client.get("/plan/", {"days": huge, "page": huge})
+    notes = [str(m) for m in response.context["messages"]]
+    assert response.status_code == 200 and not any("1e+50" in note for note in notes), notes
+    assert any(note.startswith("Ignored days: type a whole number of days from") for note in notes), notes
+    assert any(note.startswith("Ignored page: there is only 1 page") for note in notes), notes
+
+
 @pytest.mark.parametrize("url", PAGED_LISTS)
 def test_a_page_number_it_can_use_brings_no_note(client, administrator, one_visit, url):
     client.force_login(administrator)

@@ -95,7 +95,7 @@ def test_a_reading_the_day_after_the_removal_is_refused_by_every_path_with_the_w
     assert result.good["fitted_capacitor_id"].tolist() == [new.id]
     FittedCapacitor.objects.filter(pk=new.pk).update(removed_on=REMOVED_ON, removal_reason="failed")
     result = import_check([import_row(old, taken_at="2024-06-14 00:30")])
-    assert result.errors == [(2, "role", "no capacitor in this role was fitted to this motor on that date")]
+    assert result.errors == [(2, "taken_at", "no capacitor in this role was fitted to this motor on that date")]
     assert not Reading.objects.exists()
 
 
@@ -137,3 +137,15 @@ def test_a_removal_date_is_refused_only_before_the_site_day_of_a_reading():
     FittedCapacitor.objects.filter(pk=late.pk).update(
         removed_on=REMOVED_ON + dt.timedelta(days=1), removal_reason="failed"
     )
+
+
+def test_an_import_names_the_date_of_a_reading_from_before_the_first_fitting_and_the_role_a_motor_never_had():
+    """The row and the field to put right: a reading dated before the motor's first capacitor in that role
+    was fitted is wrong in `taken_at` (the date is named), not in `role`; a role the motor never had is."""
+    old, _ = replaced("Europe/Madrid")
+    result = import_check([import_row(old, taken_at="2019-03-01 09:00"), import_row(old, role="start")])
+    assert result.errors == [
+        (2, "taken_at", f"before the first capacitor in this role was fitted to this motor ({old.fitted_on})"),
+        (3, "role", "this motor has had no capacitor in this role"),
+    ]
+    assert not Reading.objects.exists()

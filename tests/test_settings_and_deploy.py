@@ -41,6 +41,14 @@ def test_production_refuses_to_start_without_a_secret_key():
     assert "SECRET_KEY" in result.stderr
 
 
+def test_an_empty_database_url_means_the_embedded_default_and_a_wrong_one_is_named():
+    result = run_check({"DATABASE_URL": ""})
+    assert result.returncode == 0, result.stderr
+    result = run_check({"DATABASE_URL": "postgress://postgres@127.0.0.1:5432/fleet"})
+    assert result.returncode != 0
+    assert "DATABASE_URL '127.0.0.1:5432/fleet' is not a database address" in result.stderr
+
+
 def test_production_settings_pass_the_deployment_checks():
     result = run_check(
         {"FLEET_PROFILE": "production", "SECRET_KEY": secrets.token_urlsafe(48)}, "--deploy", "--fail-level", "WARNING"

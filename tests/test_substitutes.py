@@ -169,9 +169,9 @@ def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engi
     signed_in_client(client, engineer)
     body = client.get(reverse("stand_in_parts")).content.decode()
     compact = " ".join(body.split())
-    assert f"<td>{fan_fitted_capacitor.part.code}</td>" in compact
+    assert f'<td class="nowrap">{fan_fitted_capacitor.part.code}</td>' in compact
     for code, suited in ((fan_fitted_capacitor.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0), ("ELEC-4U0", 0)):
-        row = compact.split(f"<td>{code}</td>")[1].split("</tr>")[0]
+        row = compact.split(f'<td class="nowrap">{code}</td>')[1].split("</tr>")[0]
         assert f"{suited} of 1" in row, (code, row)
 
 
@@ -234,16 +234,24 @@ def designs_from_scratch(user=None) -> dict[tuple, int]:
     return {tuple(row[:-1]): row[-1] for row in rows}
 
 
-def assert_the_page_reads_the_designs_it_would_join(monkeypatch, users):
+def assert_the_page_reads_the_designs_it_would_join(monkeypatch, users, judged=False):
+    """The designs for every user; with `judged`, also the positions judged together against one at a
+    time, and the page's whole table against the table of the joined designs (judging is the slow part,
+    and both follow from the designs being equal, so they are checked on one state of the fleet)."""
     for user in users:
         scratch = designs_from_scratch(user)
         assert substitutes.designs_in_service(user) == scratch
-        # The positions judged together are those judged one at a time.
-        firsts = list(FittedCapacitor.objects.in_bulk(scratch.values()).values())
-        singles = substitutes.candidates_of(substitutes.parts_frame())
-        together = [advise(p, singles) for p in substitutes.positions_of(firsts)]
-        alone = [advise(substitutes.position_of(f), singles) for f in firsts]
-        assert [(a.verdict.tolist(), a.reasons) for a in together] == [(a.verdict.tolist(), a.reasons) for a in alone]
+        if not judged:
+            continue
+        if user is users[0]:
+            # The positions judged together are those judged one at a time.
+            firsts = list(FittedCapacitor.objects.in_bulk(scratch.values()).values())
+            singles = substitutes.candidates_of(substitutes.parts_frame())
+            together = [advise(p, singles) for p in substitutes.positions_of(firsts)]
+            alone = [advise(substitutes.position_of(f), singles) for f in firsts]
+            assert [(a.verdict.tolist(), a.reasons) for a in together] == [
+                (a.verdict.tolist(), a.reasons) for a in alone
+            ]
         kept = substitutes.part_families(user)
         with monkeypatch.context() as patched:
             patched.setattr(substitutes, "designs_in_service", lambda user=None: designs_from_scratch(user))
@@ -306,4 +314,4 @@ def test_the_stand_in_designs_kept_on_write_are_those_a_join_of_the_fleet_finds(
     assert_the_page_reads_the_designs_it_would_join(monkeypatch, users)
 
     compact_counts()
-    assert_the_page_reads_the_designs_it_would_join(monkeypatch, users)
+    assert_the_page_reads_the_designs_it_would_join(monkeypatch, users, judged=True)

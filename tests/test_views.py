@@ -8,7 +8,14 @@ from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_reading,
+    make_site,
+    quarterly_readings,
+)
 
 pytestmark = pytest.mark.django_db
 
@@ -45,7 +52,45 @@ def test_a_capacitor_in_service_carries_the_cautions_with_its_own_stored_energy(
     body = signed_in(technician).get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
     assert "never a screwdriver" in body and "Local codes" in body
     assert "This one can hold about 0.8 J at the peak of its rated voltage" in body
-    assert "rated 450 V" in body
+    assert "this one is rated 450 V" in body
+    # Run and start capacitors alike: a start capacitor can reach well over the supply during a start [trade].
+    assert "a start capacitor can reach well over it during a start" in body
+
+
+def test_the_motor_and_capacitor_pages_give_reading_times_in_the_sites_time(signed_in, technician):
+    """The reading form and its correction banner speak the site's time; the capacitor page listed the
+    same reading an hour earlier (UTC, unlabelled), and "corrects the reading of 11:25" followed
+    "Correcting the reading of 12:25". Dublin keeps UTC+1 in July (IANA tz database)."""
+    site = make_site(time_zone="Europe/Dublin")
+    capacitor = make_fitted_capacitor(motor=make_motor(site=site))
+    make_reading(capacitor, taken_at=dt.datetime(2026, 7, 1, 23, 25, tzinfo=dt.UTC))
+    client = signed_in(technician)
+    page = client.get(reverse("fitted_capacitor", args=[capacitor.id])).content.decode()
+    assert "2026-07-02 00:25" in page and "2026-07-01 23:25" not in page
+    assert "Europe/Dublin" in page
+    motor_page = client.get(reverse("motor", args=[capacitor.motor.asset_tag])).content.decode()
+    assert "2026-07-02" in motor_page and "2026-07-01" not in motor_page
+
+
+def test_the_capacitor_page_links_its_reading_form_and_replacement_while_in_service(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """A technician on a capacitor's trend page had to go back to the motor to log a reading."""
+    client = signed_in(technician)
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    assert f'href="{reverse("reading_new", args=[fan_fitted_capacitor.id])}"' in page
+    assert f'href="{reverse("replace", args=[fan_fitted_capacitor.id])}"' in page
+    fan_fitted_capacitor.removed_on, fan_fitted_capacitor.removal_reason = dt.date(2023, 1, 1), "planned"
+    fan_fitted_capacitor.save()
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    assert f'href="{reverse("replace", args=[fan_fitted_capacitor.id])}"' not in page
+
+
+def test_the_motor_pages_log_reading_comes_before_the_readings_and_charts(signed_in, technician, fan_fitted_capacitor):
+    """On a phone the button sat under the readings and three charts, about 2,000 px down."""
+    page = signed_in(technician).get(reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag])).content.decode()
+    log_reading = page.index(f'href="{reverse("reading_new", args=[fan_fitted_capacitor.id])}"')
+    assert log_reading < page.index("<th>Taken")
 
 
 def test_find_by_tag_is_case_insensitive_and_says_when_nothing_matches(signed_in, technician, fan_fitted_capacitor):
@@ -72,6 +117,29 @@ def test_a_replacement_without_a_reason_says_what_to_choose(signed_in, technicia
     assert response.status_code == 200 and "This field is required" not in page
     assert "Choose why the old capacitor came out: failed in service, replaced on plan, or other." in page
     assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1  # nothing saved
+
+
+def test_a_serial_longer_than_the_register_holds_is_named_and_nothing_is_saved(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """A pasted 61-character serial was saved whole on SQLite (and failed the insert on PostgreSQL's
+    varchar(60)); it is named on its field and neither capacitor changes."""
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
+    response = signed_in(technician).post(
+        url,
+        {
+            "part": fan_fitted_capacitor.part_id,
+            "removed_on": timezone.localdate().isoformat(),
+            "removal_reason": "planned",
+            "serial": "S" * 61,
+        },
+    )
+    page = response.content.decode()
+    assert response.status_code == 200
+    assert "61 characters: a serial or date code takes at most 60" in page
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
+    fan_fitted_capacitor.refresh_from_db()
+    assert fan_fitted_capacitor.removed_on is None
 
 
 def test_reading_form_saves_and_returns_to_the_motor(signed_in, technician, fan_fitted_capacitor):
@@ -203,6 +271,10 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
     client = signed_in(planner)
     response = client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "two"})
     assert second.asset_tag in response.content.decode() and "not a whole number" in response.content.decode()
+    first.refresh_from_db()
+    assert first.route_order == 1
+    emptied = client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": " "}).content.decode()
+    assert "is empty: type its place on the round" in emptied
     first.refresh_from_db()
     assert first.route_order == 1
     client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "3"})
@@ -354,6 +426,18 @@ def test_refits_page_counts_stale_capacitors(signed_in, engineer, fan_fitted_cap
     quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0])
     body = signed_in(engineer).get(reverse("refits")).content.decode()
     assert "1 capacitor has readings newer than its assessment" in body
+
+
+def test_a_finished_run_that_refitted_nothing_says_all_were_up_to_date(signed_in, engineer):
+    """ "342 of 342, Readings 0" read as if nothing had been fitted; every capacitor was current."""
+    from fleet.models import RefitRun
+
+    now = timezone.now()
+    RefitRun.objects.create(kind="fleet", state="done", total=342, done=342, readings=0, finished_at=now)
+    RefitRun.objects.create(kind="fleet", state="done", total=10, done=10, readings=57, finished_at=now)
+    body = signed_in(engineer).get(reverse("refits")).content.decode()
+    assert body.count("(all were up to date)") == 1
+    assert "Readings fitted" in body
 
 
 def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, planner):

@@ -37,6 +37,9 @@ NOT_FINITE_WORDS = {"nan", "inf", "infinity", "+inf", "-inf", "+infinity", "-inf
 MSG_NOT_A_NUMBER = "not a number"
 MSG_NOT_FINITE = "not a finite number"
 MSG_SEPARATORS = "use one decimal separator (3.8 or 3,8) and no thousands separators"
+MSG_WITH_UNIT = "type the number alone, in the unit the field names (no unit after it)"
+# A number with letters or a symbol after it: "28500 nF", "3.9uF", "230 V", "45 °C".
+NUMBER_WITH_UNIT = r"[+-]?[0-9][0-9.,]*\s*[^\s0-9.,+-][^0-9]*"
 
 
 @dataclass(frozen=True)
@@ -97,10 +100,17 @@ class ReadingRules:
             name: asdict(r) | dict(zip(("too_low", "too_high"), range_words(name, r), strict=True))
             for name, r in self.ranges.items()
         }
+        out["short_circuit_words"] = SHORT_CIRCUIT_WORDS
+        out["with_unit_words"] = MSG_WITH_UNIT
         return out
 
 
 RULES = ReadingRules()
+
+SHORT_CIRCUIT_WORDS = (
+    "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
+    "discharge, check the capacitor with a meter, and record a replacement if it is shorted"
+)
 
 
 def _messages(condition, template, **columns):
@@ -385,7 +395,9 @@ def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
                 given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
                 MSG_NOT_FINITE,
                 np.where(
-                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(), MSG_SEPARATORS, MSG_NOT_A_NUMBER
+                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
+                    MSG_SEPARATORS,
+                    np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
                 ),
             )
             finite = ok & np.isfinite(parsed)
@@ -542,12 +554,7 @@ def _check_readings(
     shorted = (
         in_circuit & (voltage >= 0) & short_circuit_suspected(current, voltage, supply, rules.short_circuit_fraction)
     )
-    errors.add(
-        "capacitor_voltage_v",
-        shorted,
-        "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
-        "discharge, check the capacitor with a meter, and record a replacement if it is shorted",
-    )
+    errors.add("capacitor_voltage_v", shorted, SHORT_CIRCUIT_WORDS)
     errors.add("capacitor_current_a", in_circuit & ~shorted, current_unit_slip(current, voltage, rated, frequency))
     for name in ("main_current_a", "aux_current_a", "line_current_a"):
         ratio = values[name] / full_load

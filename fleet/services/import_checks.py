@@ -154,9 +154,24 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
         taken_on = local_days(taken_utc, zones.fillna(default_tz).to_numpy(object), fallback=settings.TIME_ZONE)
         match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted)
+        unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
+        # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
+        first_fitted = fitted.groupby(["tag", "role"])["fitted_on"].min()
+        first = pd.MultiIndex.from_arrays([tag.to_numpy(object), role.to_numpy(object)]).map(first_fitted.get)
+        first = pd.to_datetime(pd.Series(first, dtype=object)).to_numpy("datetime64[s]")
+        known_position = ~np.isnat(first)
+        before_first = known_position & (taken_on.astype("datetime64[s]") < first)
+        problems.add(unmatched & ~known_position, "role", "this motor has had no capacitor in this role")
         problems.add(
-            match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy(),
-            "role",
+            unmatched & before_first,
+            "taken_at",
+            "before the first capacitor in this role was fitted to this motor ("
+            + pd.Series(np.datetime_as_string(first, unit="D")).to_numpy(object)
+            + ")",
+        )
+        problems.add(
+            unmatched & known_position & ~before_first,
+            "taken_at",
             "no capacitor in this role was fitted to this motor on that date",
         )
         # Every rule of a reading, from the one rulebook the form and the API use.

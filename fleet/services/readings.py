@@ -314,6 +314,11 @@ def replace_capacitor(
             )
     if substitute_override and not override_reason:
         raise ValidationError({"override_reason": "Say why this part is fitted against the advice."})
+    serial_max_chars = FittedCapacitor._meta.get_field("serial").max_length
+    if len(serial) > serial_max_chars:
+        raise ValidationError(
+            {"serial": f"{len(serial)} characters: a serial or date code takes at most {serial_max_chars}."}
+        )
     sent = {"part": part, "serial": serial, "notes": notes, "removed_on": removed_on, "reason": reason}
     if fitted_capacitor.removed_on is not None:
         return _replacement_sent_before(fitted_capacitor, **sent)

@@ -28,7 +28,9 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
             value = int(str(text).strip())
         except ValueError:
             value = -1
-        if not 0 <= value <= 99999:
+        if not str(text).strip():
+            errors[motor.asset_tag] = "is empty: type its place on the round, a whole number from 0 to 99999."
+        elif not 0 <= value <= 99999:
             errors[motor.asset_tag] = f"{text!r} is not a whole number from 0 to 99999."
         else:
             motor.route_order = value

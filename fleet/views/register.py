@@ -5,10 +5,11 @@ from __future__ import annotations
 from django.contrib.auth.decorators import permission_required
 from django.http import Http404
 from django.shortcuts import get_object_or_404, redirect, render
+from django.utils import timezone
 
 from fleet.engineering.capacitor import stored_energy_j
 from fleet.forms import FindMotorForm
-from fleet.models import FittedCapacitor, Motor, Site
+from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import scope_to_user
 from fleet.services import pages
 from fleet.services.operating_pictures import motor_pictures
@@ -71,7 +72,8 @@ def motor_detail(request, asset_tag):
         "energy_of": "The largest capacitor on this motor" if len(in_service) > 1 else "",
         "pictures": pictures,
     }
-    return render(request, "fleet/motor.html", context)
+    with timezone.override(site_zone(motor.site.time_zone)):  # readings in the site's time, as the form takes them
+        return render(request, "fleet/motor.html", context)
 
 
 def worst_case_energy_j(part) -> float:
@@ -99,4 +101,5 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "readings": pages.recent_readings(fitted_capacitor, 40),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
     }
-    return render(request, "fleet/capacitor.html", context)
+    with timezone.override(site_zone(fitted_capacitor.motor.site.time_zone)):  # as the reading form shows them
+        return render(request, "fleet/capacitor.html", context)

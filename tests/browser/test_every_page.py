@@ -8,6 +8,7 @@ The pages are found as a user finds them: from the home page, following the link
 """
 
 import datetime as dt
+import os
 import re
 from urllib.parse import urlsplit
 
@@ -36,6 +37,9 @@ ROLES = {
 # Not pages of ours to lay out: the register (Django's admin), the API, downloads, the sign-out.
 NOT_PAGES = re.compile(r"^/(admin|api|assets|static)/|\.(csv|xlsx|parquet|json)$|/logout/")
 PER_KIND = 2
+# A full-page screenshot of the first page of each kind, at both widths, for people to look at
+# (test-artifacts/pages/); FLEET_TEST_SCREENSHOTS=0 skips them where nobody will (CI: a third of the time).
+SCREENSHOTS = os.environ.get("FLEET_TEST_SCREENSHOTS", "1") != "0"
 EXPECTED_KINDS = {
     *("home", "find-tag", "motor", "fitted_capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
     *("plan", "work_orders", "visit_sheet", "life_data", "life_data-part", "track_record", "refits"),
@@ -110,14 +114,15 @@ def _measure(page, path, width, problems, shot_name=None):
         problems.append(f"{width} px {path}: back link under 44 px tall: {back}")
     if width >= 1366 and found["menuRows"] > 1:
         problems.append(f"{width} px {path}: the menu takes {found['menuRows']} rows")
-    if shot_name:
+    if shot_name and SCREENSHOTS:
         page.screenshot(path=str(ARTIFACTS / "pages" / f"{shot_name}-{width}.png"), full_page=True)
 
 
 def _load(page, path):
     response = page.goto(path)
     assert response.status == 200, (path, response.status)
-    page.wait_for_timeout(150)  # Plotly lays its charts out just after the load event
+    if page.locator("[data-figure]").count():
+        page.wait_for_timeout(150)  # Plotly lays its charts out just after the load event
 
 
 def _visit_every_page(page, seeds: list[str], username: str, problems: list[str]) -> list[str]:

@@ -29,10 +29,26 @@ def test_the_hint_says_a_voltage_of_zero_must_be_above_zero_as_the_server_does(p
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.check("input[value=in_circuit]")
-    phone.fill("#id_capacitor_current_a", "0.49")
     phone.fill("#id_capacitor_voltage_v", "0")
     text = phone.locator("#computed").inner_text()
     assert "Voltage across capacitor (V): 0 must be above 0 V" in text and "outside" not in text
+
+
+def test_current_with_no_voltage_is_hinted_as_the_short_circuit_the_server_names(phone, motor_with_history):  # noqa: F811
+    """With 0.49 A flowing the hint said "0 must be above 0 V" (a typo, it seemed) while the server
+    refused the same values as a suspected short circuit, with what to do about it."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.check("input[value=in_circuit]")
+    phone.fill("#id_capacitor_current_a", "0.49")
+    phone.fill("#id_capacitor_voltage_v", "0")
+    hint = phone.locator("#computed").inner_text()
+    assert "short circuit suspected. Isolate, lock out, discharge" in hint and "must be above 0 V" not in hint
+    readings_before = Reading.objects.count()
+    phone.click("#save")
+    phone.wait_for_selector("#id_capacitor_voltage_v_error, .errorlist", timeout=15000)
+    assert "short circuit suspected" in phone.locator(".errorlist").first.inner_text()
+    assert Reading.objects.count() == readings_before
 
 
 def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_history):  # noqa: F811

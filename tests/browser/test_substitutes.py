@@ -44,3 +44,16 @@ def test_replacement_screen_lists_suitable_parts_first_and_records_an_override(p
     phone.goto(f"/fitted-capacitors/{successor.id}/")
     assert phone.is_visible("text=Fitted against the substitute advice")
     phone.shot("substitutes-02-capacitor-override")
+
+
+def test_the_stand_in_parts_keep_each_part_code_on_one_line_on_a_phone(phone):
+    """At 390 px "RUN-30U-450" broke at its hyphens over two lines, as an asset tag never does."""
+    make_fitted_capacitor(part=make_part(code="RUN-30U-450"))
+    sign_in(phone, make_user("planner"))
+    phone.goto("/parts/stand-in/")
+    lines = phone.evaluate(
+        """() => [...document.querySelectorAll("main table tbody tr td:first-child")].map((cell) => {
+          const range = document.createRange(); range.selectNodeContents(cell);
+          return new Set([...range.getClientRects()].map((r) => Math.round(r.top))).size; })"""
+    )
+    assert lines and max(lines) == 1, lines

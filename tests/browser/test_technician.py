@@ -20,6 +20,23 @@ def motor_with_history(transactional_db):
     return fitted_capacitor
 
 
+def test_a_readings_correct_link_is_a_glove_sized_target(phone, motor_with_history):
+    """On the capacitor page at 390 px each "Correct" link was a 62 x 20 px line of text in a table cell;
+    44 px is the WCAG 2.2 enhanced target size the menu and the back links keep."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/")
+    heights = phone.eval_on_selector_all("a.correct-reading", "as => as.map(a => a.getBoundingClientRect().height)")
+    assert len(heights) == 5 and min(heights) >= 44, heights
+
+
+def test_a_long_serial_or_override_reason_wraps_on_a_phone(phone, transactional_db):
+    """A 60-character date code (the register's most, with no spaces) pushed the motor page to 683 px at 390."""
+    make_fitted_capacitor(serial="SN" + "7" * 58, substitute_override=True, override_reason="R" * 200)
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/motors/{FittedCapacitor.objects.get().motor.asset_tag}/")
+    assert phone.evaluate("document.documentElement.scrollWidth") <= 390
+
+
 def sign_in(page, user):
     page.goto("/login/")
     page.fill("#id_username", user.username)

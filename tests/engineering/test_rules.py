@@ -6,7 +6,7 @@ beside it: [trade] common practice of the trade, [mem] from memory (unverified).
 
 import numpy as np
 
-from fleet.engineering.rules import RULES, ReadingRules, check_readings, parse_numbers
+from fleet.engineering.rules import MSG_WITH_UNIT, RULES, ReadingRules, check_readings, parse_numbers
 
 NOW = np.datetime64("2026-06-01T12:00", "s")
 FAN = dict(
@@ -200,3 +200,11 @@ def test_the_live_checks_words_for_a_range_are_the_servers():
         now=np.datetime64("2024-06-01T00:00"),
     )
     assert result.errors["line_voltage_v"][0] == "0 " + hint["line_voltage_v"]["too_low"] == "0 must be above 0 V"
+
+
+def test_a_number_typed_with_its_unit_is_asked_for_alone():
+    """ "28500 nF" in a microfarad box was "not a number": the field names its unit, so say to drop it
+    (ours). A number the unit check can then read as nanofarads is asked about as such."""
+    values, messages = parse_numbers(["28500 nF", "3.9uF", "230 V", "45 °C", "-4 A", "3.9 3.8", "x9"])
+    assert np.isnan(values).all()
+    assert messages.tolist() == [MSG_WITH_UNIT] * 5 + ["not a number"] * 2

@@ -133,6 +133,17 @@ ELECTROLYTIC_TEMPCO_HOT = 8e-4  # per K above 25 C: about +5 % at 85 C (from mem
 ELECTROLYTIC_TEMPCO_COLD = 1.5e-3  # per K below 25 C: about -5 % at -8 C (from memory, unverified)
 CAPACITOR_VOLTAGE_EXPONENT = 0.3  # V_cap ~ C^-0.3 at a fixed aux current share (from memory, unverified)
 GENERATIONS = 10  # capacitors per motor position over the span, at most
+# Unit-to-unit spread of the ageing paths (ours): see `simulate`.
+INITIAL_SPREAD = {"film": 0.015, "electrolytic": 0.035}  # factory spread of the initial capacitance, one sigma
+RATE_SPREAD = 0.35  # lognormal sigma of each unit's life scale
+FILM_KNEE = 0.008  # median film a in loss = a (exp(S / scale) - 1)
+FILM_KNEE_SPREAD = 0.5  # its lognormal sigma
+ELECTROLYTIC_LINEAR = (0.005, 0.02)  # uniform range of b in loss = b x + c x^p
+ELECTROLYTIC_DRYING = 0.10  # median c
+ELECTROLYTIC_DRYING_SPREAD = 0.2  # its lognormal sigma
+ELECTROLYTIC_POWER = (2.5, 4.0)  # uniform range of p
+# Instruments (one sigma, relative; from memory, unverified): capacitance meter, clamp, voltmeter.
+METER_SD, CLAMP_SD, VOLTMETER_SD = 0.006, 0.012, 0.005
 
 
 @dataclass(repr=False)
@@ -145,6 +156,10 @@ class Fleet:
     units: pd.DataFrame  # every capacitor ever fitted, with its truth
     readings: pd.DataFrame  # every reading, with its unit id (dropped in the files)
     end: dt.date
+    # With `simulate(..., record_stress=True)`: each unit's reference hours at the end of every
+    # day (days since START x units) and the simulation's own truth behind them (see `bound.py`).
+    stress_h: np.ndarray | None = None
+    latent: dict | None = None
 
     def __repr__(self):
         return f"Fleet({len(self.register)} motors, {len(self.units)} capacitors, {len(self.readings)} readings)"
@@ -162,8 +177,11 @@ def _lognormal(rng, n, sigma):
     return np.exp(rng.normal(0.0, sigma, n))
 
 
-def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) -> Fleet:
-    """Simulate the fleet from START to `end` (about 500 capacitors in service at a time)."""
+def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END, record_stress: bool = False) -> Fleet:
+    """Simulate the fleet from START to `end` (about 500 capacitors in service at a time).
+
+    `record_stress` keeps every unit's stress history and latent path (about 120 MB at the
+    default size) for the information bound; the fleet itself is the same either way."""
     n_days = _day(end) + 1
     sites, parts = SITES, PARTS.set_index("code")
 
@@ -230,7 +248,7 @@ def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) ->
     u_film = film[u_slot]
     # Initial capacitance inside the tolerance (factory spread; from memory, unverified):
     # film about rated with 1.5 % spread; electrolytics about the middle with 3.5 %.
-    spread = np.where(u_film, 0.015, 0.035)
+    spread = np.where(u_film, INITIAL_SPREAD["film"], INITIAL_SPREAD["electrolytic"])
     c0 = rated[u_slot] * (1 + rng.normal(0.0, 1.0, n_units) * spread)
     c0 = np.clip(c0, lower[u_slot] * 1.005, upper[u_slot] * 0.995)
     # Film: loss = a (exp(S / tau) - 1): self-healing clears area at a rate that
@@ -239,11 +257,11 @@ def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) ->
     # Electrolytic: loss = b S/theta + c (S/theta)^p: slow early loss, then the
     # electrolyte runs short and capacitance falls away (drying out; TDK primer
     # vol. 7; form ours). Unit-to-unit spread of rate and knee (ours).
-    scale = life_scale[u_slot] * _lognormal(rng, n_units, 0.35)
-    film_a = 0.008 * _lognormal(rng, n_units, 0.5)
-    ely_b = rng.uniform(0.005, 0.02, n_units)
-    ely_c = 0.10 * _lognormal(rng, n_units, 0.2)
-    ely_p = rng.uniform(2.5, 4.0, n_units)
+    scale = life_scale[u_slot] * _lognormal(rng, n_units, RATE_SPREAD)
+    film_a = FILM_KNEE * _lognormal(rng, n_units, FILM_KNEE_SPREAD)
+    ely_b = rng.uniform(*ELECTROLYTIC_LINEAR, n_units)
+    ely_c = ELECTROLYTIC_DRYING * _lognormal(rng, n_units, ELECTROLYTIC_DRYING_SPREAD)
+    ely_p = rng.uniform(*ELECTROLYTIC_POWER, n_units)
 
     def loss(stress_h, idx):
         x = stress_h / scale[idx]
@@ -317,6 +335,7 @@ def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) ->
         tags=tags,
         slot_role=slot_role,
     )
+    stress_log = np.zeros((n_days, n_units), np.float32) if record_stress else None
     for t in range(n_days):
         active = fitted_day <= t  # every unit ever fitted keeps its latent path
         amb = ambient[slot_site, t]
@@ -327,6 +346,8 @@ def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) ->
         ely_rate = 24 * np.exp2((case_idle - REFERENCE_CASE_C) / ELECTROLYTIC_HALVING_K)
         rate = np.where(film, film_rate, ely_rate)
         stress[active] += rate[u_slot[active]]
+        if stress_log is not None:
+            stress_log[t] = stress
         idx = np.flatnonzero(active & (crossed_day == never))
         if len(idx):
             c_true = c0[idx] * (1 - loss(stress[idx], idx))
@@ -426,6 +447,19 @@ def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) ->
             "commissioned_on": pd.to_datetime(_date(commissioned)),
         }
     )
+    latent = None
+    if record_stress:
+        latent = {
+            "film": u_film,
+            "life_scale_h": life_scale[u_slot],
+            "tempco_per_k": tempco[u_slot],
+            "initial_uf": c0,
+            "scale_h": scale,
+            "film_a": film_a,
+            "electrolytic_b": ely_b,
+            "electrolytic_c": ely_c,
+            "electrolytic_p": ely_p,
+        }
     return Fleet(
         sites=sites[["code", "name", "time_zone"]].copy(),
         parts=PARTS[PART_COLUMNS].copy(),
@@ -433,6 +467,8 @@ def simulate(rng: np.random.Generator, motors: int = 450, end: dt.date = END) ->
         units=units,
         readings=readings,
         end=end,
+        stress_h=stress_log,
+        latent=latent,
     )
 
 
@@ -456,7 +492,7 @@ def _read(rng, t, slots, units, v) -> pd.DataFrame:
     c_case = c25 * tempco_factor
     # Meter: about 1 % of reading (one sigma 0.6 %), 0.01 uF resolution below
     # 100 uF, 0.1 uF above (handheld capacitance ranges; from memory, unverified).
-    meter = c_case * (1 + rng.normal(0, 0.006, n))
+    meter = c_case * (1 + rng.normal(0, METER_SD, n))
     meter = np.where(v["rated"][slots] < 100, np.round(meter, 2), np.round(meter, 1))
     # In circuit: line voltage within a few % of nominal; capacitor voltage from
     # the motor's ratio, a little higher as capacitance falls; current I = 2 pi f C V.
@@ -468,8 +504,8 @@ def _read(rng, t, slots, units, v) -> pd.DataFrame:
         * (v["rated"][slots] / c_case) ** CAPACITOR_VOLTAGE_EXPONENT
     )
     current = 2 * np.pi * v["slot_freq"][slots] * c_case * 1e-6 * vcap
-    vcap_read = np.round(vcap * (1 + rng.normal(0, 0.005, n)))  # true-RMS meter, 1 V
-    current_read = np.round(current * (1 + rng.normal(0, 0.012, n)), 2)  # clamp, 0.01 A
+    vcap_read = np.round(vcap * (1 + rng.normal(0, VOLTMETER_SD, n)))  # true-RMS meter, 1 V
+    current_read = np.round(current * (1 + rng.normal(0, CLAMP_SD, n)), 2)  # clamp, 0.01 A
     with np.errstate(invalid="ignore", divide="ignore"):
         computed_uf = current_read / (2 * np.pi * v["slot_freq"][slots] * vcap_read) * 1e6
     technician_uf = np.where(in_circuit, computed_uf, meter)
