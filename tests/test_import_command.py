@@ -454,3 +454,13 @@ CMP-1,start,RUN-8,2019-01-01,2020-01-01,failed
         call_command("import", "history", str(write(tmp_path, "history.csv", history)), stdout=out)
     assert "row 2, part_code: ST-100 is an electrolytic (start) capacitor: a run position needs film" in out.getvalue()
     assert "row 3, part_code: RUN-8 is a film (run) capacitor: a start position needs an electrolytic" in out.getvalue()
+
+
+def test_columns_no_field_takes_are_named_so_a_misspelt_heading_is_not_lost_unseen(tmp_path):
+    for kind in ("sites", "parts"):
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS}[kind]))
+    text = REGISTER.replace("fitted_on\n", "fitted_on,comissioned_on,remarks\n", 1)
+    text = text.replace("2023-03-01\n", "2023-03-01,2016-04-01,noisy\n").replace("2024-01-10\n", "2024-01-10,,\n")
+    out = run("register", write(tmp_path, "register.csv", text), "--dry-run")
+    assert "Columns left out (no field of a register file has these headings): comissioned_on, remarks" in out
+    assert "left out" not in run("register", write(tmp_path, "plain.csv", REGISTER), "--dry-run")
