@@ -464,3 +464,18 @@ def test_columns_no_field_takes_are_named_so_a_misspelt_heading_is_not_lost_unse
     out = run("register", write(tmp_path, "register.csv", text), "--dry-run")
     assert "Columns left out (no field of a register file has these headings): comissioned_on, remarks" in out
     assert "left out" not in run("register", write(tmp_path, "plain.csv", REGISTER), "--dry-run")
+
+
+def test_a_readings_export_imported_again_adds_nothing_as_xlsx_as_as_csv(tmp_path, client, engineer):
+    """The XLSX export's date-times are UTC in cells that hold no zone: imported again, they were read
+    as site time and every reading came in a second time, hours off (the CSV's carry +00:00)."""
+    migrate_all(tmp_path)
+    client.force_login(engineer)
+    for fmt in ("csv", "xlsx"):
+        path = tmp_path / f"export.{fmt}"
+        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
+        report = io.StringIO()
+        with pytest.raises(CommandError, match="nothing would be imported"):
+            call_command("import", "readings", str(path), "--dry-run", stdout=report)
+        assert ": 2 rows: 0 good, 2 already imported, 0 with problems." in report.getvalue(), fmt
+    assert Reading.objects.count() == 2
