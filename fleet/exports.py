@@ -118,7 +118,7 @@ XLSX_CONTENT = "application/vnd.openxmlformats-officedocument.spreadsheetml"
 XLSX_BOLD, XLSX_DATE, XLSX_DATETIME = 1, 2, 3  # cell formats in XLSX_STYLES, by position
 XLSX_STYLES = (  # fonts: plain, bold; cell formats: plain, bold, date, date-time
     f'<styleSheet xmlns="{XLSX_MAIN}"><numFmts count="2"><numFmt numFmtId="164" formatCode="yyyy-mm-dd"/>'
-    '<numFmt numFmtId="165" formatCode="yyyy-mm-dd h:mm:ss"/></numFmts><fonts count="2">'
+    '<numFmt numFmtId="165" formatCode="yyyy-mm-dd h:mm:ss&quot; UTC&quot;"/></numFmts><fonts count="2">'
     '<font><sz val="11"/><name val="Calibri"/><family val="2"/></font>'
     '<font><b/><sz val="11"/><name val="Calibri"/><family val="2"/></font></fonts>'
     '<fills count="2"><fill><patternFill patternType="none"/></fill><fill><patternFill patternType="gray125"/></fill>'
@@ -257,9 +257,10 @@ def _xml_text(text: str) -> str:
 
 
 def _xlsx_row(number: int, letters: list[str], values, text_style: str = "") -> str:
-    """One <row>: numbers and booleans typed, dates and date-times (in UTC, without a zone) as serial
-    numbers in a date format, text as an inline string (so nothing is ever read as a formula);
-    empty, None and non-finite values leave the cell out."""
+    """One <row>: numbers and booleans typed, dates and date-times (in UTC, a cell holds no zone: its
+    format shows " UTC", which the import reads back as UTC) as serial numbers in a date format, text
+    as an inline string (so nothing is ever read as a formula); empty, None and non-finite values leave
+    the cell out."""
     cells = []
     for letter, value in zip(letters, values, strict=False):
         kind = type(value)

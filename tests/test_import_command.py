@@ -421,3 +421,61 @@ def test_a_work_order_no_plan_makes_is_refused_in_the_admin():
     with pytest.raises(ValidationError) as refused:
         order.full_clean()
     assert "from 1 to 90 days" in refused.value.message_dict["window_days"][0]
+
+
+def test_a_part_in_a_position_the_motor_or_its_dielectric_cannot_fill_is_refused_by_row_and_field(tmp_path):
+    # A capacitor-start motor has no run capacitor, a permanent-split motor no start capacitor (the
+    # history import's rule); a run capacitor is film (continuous duty), a start capacitor an
+    # electrolytic (short duty): common practice of the trade, no single source.
+    for kind in ("sites", "parts"):
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS}[kind]))
+    bad = REGISTER + (
+        "CMP-2,CS,compressor,capacitor_start,constant,230,50,4,550,4.1,1420,RUN-8,ST-100,2024-01-10\n"
+        "FAN-2,PK,fan,permanent_split,fan_law,230,50,4,250,1.9,1370,RUN-8,ST-100,2023-03-01\n"
+        "FAN-3,PK,fan,permanent_split,fan_law,230,50,4,250,1.9,1370,ST-100,,2023-03-01\n"
+        "CMP-3,CS,compressor,capacitor_start,constant,230,50,4,550,4.1,1420,,RUN-8,2024-01-10\n"
+    )
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="4 rows have problems"):
+        call_command("import", "register", str(write(tmp_path, "register.csv", bad)), stdout=out)
+    report = out.getvalue()
+    assert "row 4, run_part_code: a capacitor-start motor has no run capacitor: leave it empty" in report
+    assert "row 5, start_part_code: a permanent-split motor has no start capacitor: leave it empty" in report
+    assert "row 6, run_part_code: ST-100 is an electrolytic (start) capacitor: a run position needs film" in report
+    assert "row 7, start_part_code: RUN-8 is a film (run) capacitor: a start position needs an electrolytic" in report
+    assert not Motor.objects.exists()
+    run("register", write(tmp_path, "register.csv", REGISTER))
+    history = """asset_tag,role,part_code,fitted_on,removed_on,removal_reason
+FAN-1,run,ST-100,2019-01-01,2020-01-01,failed
+CMP-1,start,RUN-8,2019-01-01,2020-01-01,failed
+"""
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="2 rows have problems"):
+        call_command("import", "history", str(write(tmp_path, "history.csv", history)), stdout=out)
+    assert "row 2, part_code: ST-100 is an electrolytic (start) capacitor: a run position needs film" in out.getvalue()
+    assert "row 3, part_code: RUN-8 is a film (run) capacitor: a start position needs an electrolytic" in out.getvalue()
+
+
+def test_columns_no_field_takes_are_named_so_a_misspelt_heading_is_not_lost_unseen(tmp_path):
+    for kind in ("sites", "parts"):
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS}[kind]))
+    text = REGISTER.replace("fitted_on\n", "fitted_on,comissioned_on,remarks\n", 1)
+    text = text.replace("2023-03-01\n", "2023-03-01,2016-04-01,noisy\n").replace("2024-01-10\n", "2024-01-10,,\n")
+    out = run("register", write(tmp_path, "register.csv", text), "--dry-run")
+    assert "Columns left out (no field of a register file has these headings): comissioned_on, remarks" in out
+    assert "left out" not in run("register", write(tmp_path, "plain.csv", REGISTER), "--dry-run")
+
+
+def test_a_readings_export_imported_again_adds_nothing_as_xlsx_as_as_csv(tmp_path, client, engineer):
+    """The XLSX export's date-times are UTC in cells that hold no zone: imported again, they were read
+    as site time and every reading came in a second time, hours off (the CSV's carry +00:00)."""
+    migrate_all(tmp_path)
+    client.force_login(engineer)
+    for fmt in ("csv", "xlsx"):
+        path = tmp_path / f"export.{fmt}"
+        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
+        report = io.StringIO()
+        with pytest.raises(CommandError, match="nothing would be imported"):
+            call_command("import", "readings", str(path), "--dry-run", stdout=report)
+        assert ": 2 rows: 0 good, 2 already imported, 0 with problems." in report.getvalue(), fmt
+    assert Reading.objects.count() == 2

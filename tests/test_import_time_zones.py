@@ -79,3 +79,22 @@ def test_a_bad_time_and_a_local_time_the_clocks_skip_are_named_by_row_and_field(
     assert "not a date and time" in job.errors[0][2]
     assert "skipped or repeated in Europe/Berlin" in job.errors[1][2]
     assert not Reading.objects.exists()
+
+
+def test_a_local_time_the_clocks_repeat_or_skip_is_asked_for_with_the_sites_own_offsets():
+    # [pub] US Energy Policy Act of 2005, 15 U.S.C. 260a: daylight time ends at 02:00 local time on the
+    # first Sunday of November (2 November 2025) and begins on the second Sunday of March (8 March 2026);
+    # Central time is UTC-5 in summer, UTC-6 in winter. So 01:30 on 2 November 2025 happens twice
+    # in Chicago, and 02:30 on 8 March 2026 not at all.
+    fitted_capacitor = capacitor_at("America/Chicago")
+    tag = fitted_capacitor.motor.asset_tag
+    content = (
+        "asset_tag,role,taken_at,method,capacitance_uf\n"
+        f"{tag},run,2025-11-02 01:30,meter,3.99\n"
+        f"{tag},run,2026-03-08 02:30,meter,3.98\n"
+    ).encode()
+    job = check_job(create_job(kind="readings", filename="dst.csv", content=content, user=None).id)
+    assert [error[:2] for error in job.errors] == [[2, "taken_at"], [3, "taken_at"]]
+    assert job.errors[0][2].endswith("add its offset, -05:00 or -06:00")
+    assert job.errors[1][2].endswith("add its offset, -06:00 or -05:00")
+    assert "+01:00" not in job.errors[0][2] + job.errors[1][2]

@@ -129,12 +129,15 @@ def _messages(condition, template, **columns):
 # largest single-phase capacitor motors made, about 10 kW; common practice of the trade, no single source).
 NAMEPLATE_MAX_OUTPUT_W = 15_000.0
 NAMEPLATE_MAX_CURRENT_A = 150.0
+# The least efficient small capacitor motors put out about a tenth of the volt-amperes they draw; an output
+# under 2 % of them is a slip of unit, kW typed as W (common practice of the trade, no single source).
+NAMEPLATE_MIN_OUTPUT_FRACTION_OF_VA = 0.02
 
 
 def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[tuple[np.ndarray, str, str]]:
     """(rows, field, message) for nameplate figures no capacitor motor has, vectorised over a register:
     output and full-load current above zero and within the bounds above, and an output below the
-    volt-amperes drawn at full load (efficiency times power factor is under one [derived])."""
+    volt-amperes drawn at full load (efficiency times power factor is under one [derived]) but not far below."""
     volts, amps, watts = (np.atleast_1d(np.asarray(v, float)) for v in (rated_voltage_v, full_load_current_a, output_w))
     with np.errstate(invalid="ignore"):
         return [
@@ -154,6 +157,12 @@ def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[t
                 (watts > 0) & (amps > 0) & (watts >= volts * amps),
                 "output_w",
                 "at or above rated voltage times full-load current: a motor puts out less than it draws",
+            ),
+            (
+                (watts > 0) & (amps > 0) & (watts < NAMEPLATE_MIN_OUTPUT_FRACTION_OF_VA * volts * amps),
+                "output_w",
+                f"under {NAMEPLATE_MIN_OUTPUT_FRACTION_OF_VA * 100:g} % of rated voltage times full-load current: "
+                "give the output in W, not kW",
             ),
         ]
 

@@ -197,10 +197,21 @@ def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarr
             messages[rows] = f"the site's time zone {zone!r} is unknown: add the offset, e.g. +01:00, or fix the site"
             continue
         parsed[rows] = placed.dt.tz_convert("UTC")
-        messages[rows & parsed.isna().to_numpy()] = (
-            f"this local time is skipped or repeated in {zone} (clocks changed): add the offset, e.g. +01:00"
-        )
+        unplaced = rows & parsed.isna().to_numpy()
+        if unplaced.any():
+            before, after = (_offsets(wall[unplaced] + pd.Timedelta(hours=h), zone) for h in (-3, 3))
+            messages[unplaced] = [
+                f"this local time is skipped or repeated in {zone} (clocks changed): add its offset, {b} or {a}"
+                for b, a in zip(before, after, strict=True)
+            ]
     return parsed, messages
+
+
+def _offsets(wall: pd.Series, zone: str) -> list[str]:
+    """The UTC offset ("-06:00") in force at each wall-clock time in `zone` (times the clocks keep)."""
+    placed = wall.dt.tz_localize(zone)
+    minutes = (placed.dt.tz_localize(None) - placed.dt.tz_convert("UTC").dt.tz_localize(None)).dt.total_seconds() // 60
+    return [f"{'-' if m < 0 else '+'}{int(abs(m)) // 60:02d}:{int(abs(m)) % 60:02d}" for m in minutes]
 
 
 def local_days(taken_utc, zones, fallback: str = "UTC") -> np.ndarray:

@@ -304,6 +304,10 @@ def _first_sheet_path(archive: zipfile.ZipFile) -> str | None:
     return path if path in archive.namelist() else None
 
 
+# A date-time cell whose format ends in a literal UTC or Z (as the exports write them) holds a UTC time.
+_UTC_FORMAT = re.compile(r'(?:"\s*(?:UTC|Z)"|\\Z)$')
+
+
 def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]]]:
     _check_workbook_size(content, limits)
     from openpyxl import load_workbook
@@ -313,9 +317,12 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str
     except Exception as error:  # noqa: BLE001 - any unreadable workbook is refused the same way
         raise FileRefused(f"The workbook cannot be read: {error}") from error
 
-    def text(value):
+    def text(cell):
+        value = getattr(cell, "value", None)
         if value is None:
             return ""
+        if isinstance(value, dt.datetime) and _UTC_FORMAT.search(cell.number_format or ""):
+            return value.isoformat() + "+00:00"
         if isinstance(value, dt.datetime | dt.date):
             return value.isoformat()
         return str(value)
@@ -323,8 +330,8 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str
     header: list[str] = []
     body: list[list[str]] = []
     width = 0
-    for values in sheet.iter_rows(values_only=True, max_col=limits.columns + 1):
-        row = [text(v) for v in values]
+    for cells in sheet.iter_rows(max_col=limits.columns + 1):
+        row = [text(c) for c in cells]
         if not any(cell.strip() for cell in row):
             continue
         if not header:

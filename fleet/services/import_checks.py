@@ -264,6 +264,26 @@ def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
     return sorted(set(good["fitted_capacitor_id"].astype(int).tolist()))
 
 
+_WRONG_DIELECTRIC = {
+    CapacitorPart.Dielectric.FILM: "is a film (run) capacitor: a start position needs an electrolytic",
+    CapacitorPart.Dielectric.ELECTROLYTIC: "is an electrolytic (start) capacitor: a run position needs film",
+}
+
+
+def _wrong_dielectric(role: np.ndarray, part_code: pd.Series, dielectrics: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Rows whose known part is of the other dielectric than the role needs (film runs, an electrolytic
+    starts), with the message for each."""
+    needed = np.where(
+        role == FittedCapacitor.Role.RUN, CapacitorPart.Dielectric.FILM, CapacitorPart.Dielectric.ELECTROLYTIC
+    )
+    dielectric = part_code.map(dielectrics).fillna("").to_numpy(object)
+    wrong = (dielectric != "") & (dielectric != needed)
+    messages = np.array(
+        [f"{c} {_WRONG_DIELECTRIC.get(d, '')}" for c, d in zip(part_code, dielectric, strict=True)], object
+    )
+    return wrong, messages
+
+
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites and parts must exist; tags already there are skipped."""
     sites = dict(Site.objects.values_list("code", "id"))
@@ -307,8 +327,20 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems.add(
         needs_start & frame["start_part_code"].eq(""), "start_part_code", "this motor type has a start capacitor"
     )
-    for name in ("run_part_code", "start_part_code"):
-        problems.add(frame[name].ne("") & ~frame[name].isin(parts), name, "unknown part code: add the part first")
+    dielectrics = dict(CapacitorPart.objects.values_list("code", "dielectric"))
+    for name, role, has_role in (
+        ("run_part_code", FittedCapacitor.Role.RUN, needs_run),
+        ("start_part_code", FittedCapacitor.Role.START, needs_start),
+    ):
+        given = frame[name].ne("")
+        problems.add(given & ~frame[name].isin(parts), name, "unknown part code: add the part first")
+        problems.add(
+            given & kind.isin(Motor.MotorType.values) & ~has_role,
+            name,
+            np.array([f"a {t.replace('_', '-')} motor has no {role} capacitor: leave it empty" for t in kind], object),
+        )
+        wrong, messages = _wrong_dielectric(np.full(len(frame), role), frame[name], dielectrics)
+        problems.add(wrong, name, messages)
     for name in ("fitted_on", "commissioned_on"):
         parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
         problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
@@ -485,6 +517,9 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     )
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
     problems.add(~frame["part_code"].isin(parts), "part_code", "unknown part code: add the part first")
+    dielectrics = dict(CapacitorPart.objects.values_list("code", "dielectric"))
+    wrong, messages = _wrong_dielectric(role.to_numpy(object), frame["part_code"], dielectrics)
+    problems.add(wrong, "part_code", messages)
     today = pd.Timestamp(timezone.localdate())
     fitted, removed = parse_dates(frame["fitted_on"]), parse_dates(frame["removed_on"])
     for name, parsed in (("fitted_on", fitted), ("removed_on", removed)):

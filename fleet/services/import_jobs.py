@@ -13,7 +13,7 @@ import functools
 import logging
 from collections import defaultdict
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from django.conf import settings
 from django.db import DatabaseError, connection, transaction
@@ -110,8 +110,14 @@ class Outcome:
     result: columns.CheckResult
     header: list[str]
     rows: list[list[str]]
+    mapping: dict = field(default_factory=dict)
     imported: int = 0
     refused: str = ""  # why nothing was imported though the file was read
+
+    @property
+    def left_out(self) -> list[str]:
+        """The file's columns no field was mapped to: their values are not imported."""
+        return [column for column in self.header if column not in set(self.mapping.values())]
 
 
 def check_file(
@@ -144,7 +150,7 @@ def check_file(
     )
     result.errors = sorted(result.errors + unstorable.items + elsewhere.items)
     result.total = len(frame)
-    return Outcome(result=result, header=header, rows=rows)
+    return Outcome(result=result, header=header, rows=rows, mapping=mapping)
 
 
 def import_file(

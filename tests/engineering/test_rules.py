@@ -208,3 +208,21 @@ def test_a_number_typed_with_its_unit_is_asked_for_alone():
     values, messages = parse_numbers(["28500 nF", "3.9uF", "230 V", "45 °C", "-4 A", "3.9 3.8", "x9"])
     assert np.isnan(values).all()
     assert messages.tolist() == [MSG_WITH_UNIT] * 5 + ["not a number"] * 2
+
+
+def test_an_output_typed_in_kilowatts_is_refused_as_far_below_what_the_motor_draws():
+    """0.18 typed for a 180 W fan drawing 1.2 A at 230 V is 0.07 % of its volt-amperes; the least efficient
+    small capacitor motors put out about a tenth of what they draw (a 6 W fan at 0.25 A and 230 V), so
+    under 2 % is a slip of unit (common practice of the trade, no single source)."""
+    from fleet.engineering.rules import nameplate_problems
+
+    volts = np.array([230.0, 230.0, 230.0])
+    amps = np.array([1.2, 1.2, 0.25])
+    watts = np.array([0.18, 180.0, 6.0])
+    flagged = {}
+    for rows, field, message in nameplate_problems(volts, amps, watts):
+        for row in np.flatnonzero(rows):
+            flagged.setdefault(int(row), []).append((field, message))
+    assert flagged == {
+        0: [("output_w", "under 2 % of rated voltage times full-load current: give the output in W, not kW")]
+    }

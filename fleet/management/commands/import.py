@@ -41,6 +41,10 @@ class Command(BaseCommand):
             f"{file}: {result.total} row{pluralize(result.total)}: {len(result.good)} good, "
             f"{result.duplicates} already imported, {result.error_rows} with problems."
         )
+        if outcome.left_out:
+            self.stdout.write(
+                f"Columns left out (no field of a {kind} file has these headings): {', '.join(outcome.left_out)}"
+            )
         for row, field_name, message in result.errors:
             self.stdout.write(f"  row {row}, {field_name}: {message}")
         if outcome.refused:
