@@ -264,22 +264,15 @@ def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
     return sorted(set(good["fitted_capacitor_id"].astype(int).tolist()))
 
 
-_WRONG_DIELECTRIC = {
-    CapacitorPart.Dielectric.FILM: "is a film (run) capacitor: a start position needs an electrolytic",
-    CapacitorPart.Dielectric.ELECTROLYTIC: "is an electrolytic (start) capacitor: a run position needs film",
-}
-
-
 def _wrong_dielectric(role: np.ndarray, part_code: pd.Series, dielectrics: dict) -> tuple[np.ndarray, np.ndarray]:
-    """Rows whose known part is of the other dielectric than the role needs (film runs, an electrolytic
-    starts), with the message for each."""
-    needed = np.where(
-        role == FittedCapacitor.Role.RUN, CapacitorPart.Dielectric.FILM, CapacitorPart.Dielectric.ELECTROLYTIC
-    )
+    """Rows that put a known electrolytic part in a run position, with the message for each: an aluminium
+    electrolytic is rated for the seconds of a start, not for continuous AC duty (common practice of the
+    trade, no single source). A film capacitor in a start position is unusual, not wrong, and is taken."""
     dielectric = part_code.map(dielectrics).fillna("").to_numpy(object)
-    wrong = (dielectric != "") & (dielectric != needed)
-    messages = np.array(
-        [f"{c} {_WRONG_DIELECTRIC.get(d, '')}" for c, d in zip(part_code, dielectric, strict=True)], object
+    wrong = (np.asarray(role) == FittedCapacitor.Role.RUN) & (dielectric == CapacitorPart.Dielectric.ELECTROLYTIC)
+    messages = (
+        part_code.astype(str).to_numpy(object)
+        + " is an electrolytic (start) capacitor: a run position needs film (continuous duty)"
     )
     return wrong, messages
 
