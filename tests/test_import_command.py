@@ -480,3 +480,24 @@ def test_a_readings_export_imported_again_adds_nothing_as_xlsx_as_as_csv(tmp_pat
             call_command("import", "readings", str(path), "--dry-run", stdout=report)
         assert ": 2 rows: 0 good, 2 already imported, 0 with problems." in report.getvalue(), fmt
     assert Reading.objects.count() == 2
+
+
+def test_a_design_capacitor_rated_below_the_motors_supply_is_refused_by_row_and_field(tmp_path):
+    """A capacitor sees at least the supply voltage (a start capacitor over it during a start): a 125 V start
+    capacitor on a 230 V motor imported without a word (common practice of the trade, no single source)."""
+    for kind in ("sites", "parts"):
+        extra = "ST-125,150,0,20,125,electrolytic,50,,,,\n" if kind == "parts" else ""
+        run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS + extra}[kind]))
+    bad = REGISTER + "CMP-2,CS,compressor,capacitor_start,constant,230,50,4,550,4.1,1420,,ST-125,2024-01-10\n"
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="1 row has problems"):
+        call_command("import", "register", str(write(tmp_path, "register.csv", bad)), stdout=out)
+    assert (
+        "row 4, start_part_code: ST-125 is rated 125 V, below this motor's 230 V supply: "
+        "a capacitor sees at least the supply voltage" in out.getvalue()
+    )
+    assert not Motor.objects.exists()
+    # On a 115 V motor the same part is sound.
+    fine = REGISTER + "CMP-2,CS,compressor,capacitor_start,constant,115,50,4,370,6.2,1420,,ST-125,2024-01-10\n"
+    run("register", write(tmp_path, "register.csv", fine))
+    assert Motor.objects.filter(asset_tag="CMP-2").exists()

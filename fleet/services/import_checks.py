@@ -321,6 +321,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         needs_start & frame["start_part_code"].eq(""), "start_part_code", "this motor type has a start capacitor"
     )
     dielectrics = dict(CapacitorPart.objects.values_list("code", "dielectric"))
+    part_voltages = dict(CapacitorPart.objects.values_list("code", "rated_voltage_v"))
     for name, role, has_role in (
         ("run_part_code", FittedCapacitor.Role.RUN, needs_run),
         ("start_part_code", FittedCapacitor.Role.START, needs_start),
@@ -334,6 +335,20 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         )
         wrong, messages = _wrong_dielectric(np.full(len(frame), role), frame[name], dielectrics)
         problems.add(wrong, name, messages)
+        # A capacitor sees at least the supply voltage (a run capacitor well above it, a start capacitor
+        # over it during a start): one rated below the motor's supply is a wrong code or a dangerous fit
+        # (common practice of the trade, no single source). Past fits in the history are what happened.
+        part_volts = frame[name].map(part_voltages).to_numpy(float)
+        problems.add(
+            given.to_numpy(bool) & (part_volts < volts),
+            name,
+            frame[name].astype(str).to_numpy(object)
+            + " is rated "
+            + pd.Series(part_volts).map("{:g}".format).to_numpy(object)
+            + " V, below this motor's "
+            + pd.Series(volts).map("{:g}".format).to_numpy(object)
+            + " V supply: a capacitor sees at least the supply voltage",
+        )
     for name in ("fitted_on", "commissioned_on"):
         parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
         problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
