@@ -16,7 +16,7 @@ from django.core.validators import MaxValueValidator, MinValueValidator
 from .engineering.lifedata import MAX_REPLACEMENT_COST
 from .engineering.planning import PLAN_HORIZON_DAYS
 from .engineering.rules import parse_numbers
-from .models import Assessment, FittedCapacitor, Reading, Site
+from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from .roles import scope_to_user
 
 
@@ -29,6 +29,17 @@ def _site_filter(field_name: str) -> django_filters.ModelChoiceFilter:
     """A site by its code, among the requesting user's sites: an unknown code, or a site the user
     does not work at, is a message naming the parameter, not an empty answer."""
     return django_filters.ModelChoiceFilter(field_name=field_name, queryset=_sites_of, to_field_name="code")
+
+
+def _part_filter(field_name: str) -> django_filters.ModelChoiceFilter:
+    """A catalogue part by its code: an unknown code is a message naming the parameter, not an empty answer."""
+    return django_filters.ModelChoiceFilter(
+        field_name=field_name, queryset=CapacitorPart.objects.all(), to_field_name="code"
+    )
+
+
+def _motors_of(request):
+    return scope_to_user(Motor.objects.all(), request.user if request is not None else None)
 
 
 class AssessmentFilter(django_filters.FilterSet):
@@ -48,8 +59,11 @@ class ReadingFilter(django_filters.FilterSet):
     (since and until are whole days, inclusive, in UTC)."""
 
     site = _site_filter("fitted_capacitor__motor__site")
-    part = django_filters.CharFilter(field_name="fitted_capacitor__part__code", max_length=40)
-    motor = django_filters.CharFilter(field_name="fitted_capacitor__motor__asset_tag", max_length=40)
+    part = _part_filter("fitted_capacitor__part")
+    # A motor by its tag, among the user's sites (an unknown tag, or one elsewhere, is named).
+    motor = django_filters.ModelChoiceFilter(
+        field_name="fitted_capacitor__motor", queryset=_motors_of, to_field_name="asset_tag"
+    )
     since = django_filters.DateFilter(method="taken_since")
     until = django_filters.DateFilter(method="taken_until")
 
@@ -71,7 +85,7 @@ def _utc_midnight(day: dt.date) -> dt.datetime:
 class LifeDataFilter(django_filters.FilterSet):
     """The life-data page's part (and a site, for a narrower pull): ?part=RUN-4U-450&site=CST"""
 
-    part = django_filters.CharFilter(field_name="part__code", max_length=40)
+    part = _part_filter("part")
     site = _site_filter("motor__site")
 
     class Meta:

@@ -197,6 +197,10 @@ def test_filters_narrow_like_the_api_and_a_bad_one_is_named(client, awkward_flee
     assert bad.status_code == 400 and "since" in bad.content.decode()
     assert client.get(reverse("export", args=["readings", "pdf"])).status_code == 404
     assert client.get(reverse("export", args=["secrets", "csv"])).status_code == 404
+    # An unknown part or motor is named, not answered with an empty file that looks like "no readings".
+    for kind, name in (("readings", "part"), ("readings", "motor"), ("life-data", "part")):
+        unknown = client.get(reverse("export", args=[kind, "csv"]), {name: "NOPE-0000"})
+        assert unknown.status_code == 400 and name in unknown.content.decode(), (kind, name)
 
 
 def test_life_data_rows_are_failures_and_suspensions_of_the_part(client):
