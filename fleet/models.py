@@ -558,6 +558,7 @@ class Reading(models.Model):
                 condition=Q(method=METHOD_METER)
                 | (Q(capacitor_current_a__isnull=False) & Q(capacitor_voltage_v__isnull=False)),
                 name="in_circuit_needs_current_and_voltage",
+                violation_error_message="An in-circuit reading needs the capacitor current and the capacitor voltage.",
             ),
             models.CheckConstraint(
                 condition=Q(case_temperature_c__isnull=True)

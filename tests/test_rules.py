@@ -194,6 +194,11 @@ def test_database_constraints_surface_as_field_errors(fan_fitted_capacitor):
     reading.notes = "x" * 2001
     errors = constraint_errors(reading)
     assert set(errors) == {"esr_ohm", "notes"}
+    # In words at the field, not "Constraint ... is violated." (the admin's form showed the latter).
+    in_circuit = Reading(fitted_capacitor=fan_fitted_capacitor, taken_at=timezone.now(), method="in_circuit")
+    assert constraint_errors(in_circuit)["capacitor_current_a"] == [
+        "An in-circuit reading needs the capacitor current and the capacitor voltage."
+    ]
 
 
 def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_fitted_capacitor):
