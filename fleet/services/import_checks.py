@@ -145,7 +145,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             problems.add(chunk[name].eq(""), name, "required")
         tag = upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
         zones = zone_of_tag.reindex(tag.to_numpy(object))
-        problems.add(zones.isna().to_numpy(), "asset_tag", "unknown asset tag: not in the register")
+        problems.add(
+            zones.isna().to_numpy(), "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register")
+        )
         role = chunk["role"].str.lower()
         problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
         taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
@@ -264,6 +266,11 @@ def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
     return sorted(set(good["fitted_capacitor_id"].astype(int).tolist()))
 
 
+def _unknown(what: str, typed: pd.Series, hint: str) -> np.ndarray:
+    """Per row, "unknown part code RUN-9X: add the part first": what was typed, so a near miss shows."""
+    return ("unknown " + what + " " + typed.astype(str).str.slice(0, 40) + ": " + hint).to_numpy(object)
+
+
 def _wrong_dielectric(role: np.ndarray, part_code: pd.Series, dielectrics: dict) -> tuple[np.ndarray, np.ndarray]:
     """Rows that put a known electrolytic part in a run position, with the message for each: an aluminium
     electrolytic is rated for the seconds of a start, not for continuous AC duty (common practice of the
@@ -296,7 +303,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems.add(too_long, "asset_tag", "longer than 40 characters")
     problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
-    problems.add(~frame["site_code"].isin(sites), "site_code", "unknown site code: add the site first")
+    problems.add(
+        ~frame["site_code"].isin(sites), "site_code", _unknown("site code", frame["site_code"], "add the site first")
+    )
     for name, allowed in (
         ("application", Motor.Application.values),
         ("motor_type", Motor.MotorType.values),
@@ -327,7 +336,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ("start_part_code", FittedCapacitor.Role.START, needs_start),
     ):
         given = frame[name].ne("")
-        problems.add(given & ~frame[name].isin(parts), name, "unknown part code: add the part first")
+        problems.add(given & ~frame[name].isin(parts), name, _unknown("part code", frame[name], "add the part first"))
         problems.add(
             given & kind.isin(Motor.MotorType.values) & ~has_role,
             name,
@@ -504,7 +513,11 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     )
     motors["tag"] = motors["tag"].str.upper()
     motor = motors.drop_duplicates("tag").set_index("tag").reindex(tags)
-    problems.add(motor["motor_id"].isna().to_numpy(), "asset_tag", "unknown asset tag: not in the register")
+    problems.add(
+        motor["motor_id"].isna().to_numpy(),
+        "asset_tag",
+        _unknown("asset tag", frame["asset_tag"], "not in the register"),
+    )
     role = frame["role"].str.lower()
     problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
     has_role = np.where(
@@ -524,7 +537,9 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ),
     )
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
-    problems.add(~frame["part_code"].isin(parts), "part_code", "unknown part code: add the part first")
+    problems.add(
+        ~frame["part_code"].isin(parts), "part_code", _unknown("part code", frame["part_code"], "add the part first")
+    )
     dielectrics = dict(CapacitorPart.objects.values_list("code", "dielectric"))
     wrong, messages = _wrong_dielectric(role.to_numpy(object), frame["part_code"], dielectrics)
     problems.add(wrong, "part_code", messages)
