@@ -501,3 +501,16 @@ def test_a_design_capacitor_rated_below_the_motors_supply_is_refused_by_row_and_
     fine = REGISTER + "CMP-2,CS,compressor,capacitor_start,constant,115,50,4,370,6.2,1420,,ST-125,2024-01-10\n"
     run("register", write(tmp_path, "register.csv", fine))
     assert Motor.objects.filter(asset_tag="CMP-2").exists()
+
+
+def test_a_start_capacitors_marked_range_is_answered_with_the_rating_and_tolerances_to_give(tmp_path):
+    """Start capacitors are marked with a range: 189-227 uF is 208 uF -9.1/+9.1 % (common practice of the
+    trade, no single source; [derived] middle 208, half-width 19 / 208 = 9.1 %). It was "not a number"."""
+    parts = PARTS + "ST-208,189-227 uF,,,125,electrolytic,60,,,,\n"
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="1 row has problems"):
+        call_command("import", "parts", str(write(tmp_path, "parts.csv", parts)), stdout=out)
+    assert (
+        "row 4, rated_uf: a marked range: give its middle as rated_uf (208) and half its width as "
+        "tolerance_minus_pct and tolerance_plus_pct (9.1)" in out.getvalue()
+    )

@@ -5,6 +5,7 @@ bulk inside the caller's transaction. Parsing and column rules are in fleet/impo
 from __future__ import annotations
 
 import datetime as dt
+import re
 from decimal import Decimal
 
 import numpy as np
@@ -442,9 +443,36 @@ def insert_sites(good: pd.DataFrame) -> int:
     return len(good)
 
 
+MARKED_RANGE = r"^\s*([0-9]+(?:[.,][0-9]+)?)\s*[-\u2013]\s*([0-9]+(?:[.,][0-9]+)?)\s*(?:[u\u00b5]F|MFD)?\s*$"
+
+
+def _marked_ranges(rated_uf: pd.Series, problems: _Problems) -> None:
+    """A start capacitor is marked with a range ("189-227 uF"); the catalogue takes its middle as the rating
+    and half its width as the tolerances: say so with the numbers, not "not a number" (common practice of
+    the trade, no single source: 189-227 uF is 208 uF -9.1/+9.1 %)."""
+    bounds = rated_uf.astype(str).str.extract(MARKED_RANGE, flags=re.IGNORECASE)
+    low = pd.to_numeric(bounds[0].str.replace(",", ".", regex=False), errors="coerce")
+    high = pd.to_numeric(bounds[1].str.replace(",", ".", regex=False), errors="coerce")
+    is_range = (low.notna() & high.notna() & (high > low) & (low > 0)).to_numpy(bool)
+    middle = (low + high) / 2
+    half_pct = (high - low) / 2 / middle * 100
+    problems.add(
+        is_range,
+        "rated_uf",
+        (
+            "a marked range: give its middle as rated_uf ("
+            + middle.map("{:.4g}".format)
+            + ") and half its width as tolerance_minus_pct and tolerance_plus_pct ("
+            + half_pct.map("{:.1f}".format)
+            + ")"
+        ).to_numpy(object),
+    )
+
+
 def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Capacitor parts with the catalogue's field names; the database's constraints checked first."""
     problems = _Problems(frame)
+    _marked_ranges(frame["rated_uf"], problems)  # first: it also says what the tolerances should be
     for name in PART_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
