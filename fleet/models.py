@@ -399,6 +399,26 @@ class FittedCapacitor(models.Model):
     def __str__(self):
         return f"{self.motor.asset_tag} {self.role} {self.part.code}"
 
+    def _fitting_rules(self):
+        """The fitting rules the register import applies (`rules.fitting_problems`), for the admin."""
+        from .engineering.rules import ELECTROLYTIC_RUN_WORDS, UNDER_VOLTAGE_WORDS, fitting_problems
+
+        if self.part_id is None or self.motor_id is None:
+            return
+        part, motor = self.part, self.motor
+        electrolytic_run, under_voltage = fitting_problems(
+            [self.role], [part.dielectric], [part.rated_voltage_v], [motor.rated_voltage_v]
+        )
+        if electrolytic_run[0]:
+            raise ValidationError({"part": f"{part.code} {ELECTROLYTIC_RUN_WORDS}"})
+        if under_voltage[0]:
+            raise ValidationError(
+                {
+                    "part": f"{part.code} is rated {part.rated_voltage_v:g} V, below this motor's "
+                    f"{motor.rated_voltage_v:g} V {UNDER_VOLTAGE_WORDS}"
+                }
+            )
+
     @property
     def in_service(self) -> bool:
         return self.removed_on is None
@@ -415,6 +435,7 @@ class FittedCapacitor(models.Model):
         """Service dates no record has (the history import's rule), and a removal date earlier than a
         reading of this capacitor (the trigger holds it too), are refused at their field."""
         super().clean()
+        self._fitting_rules()
         if self.fitted_on is not None:
             errors = first_problem_by_field(
                 service_date_problems(self.fitted_on, self.removed_on or "NaT", timezone.localdate())

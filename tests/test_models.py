@@ -90,3 +90,21 @@ def test_a_correction_supersedes_and_both_are_kept(fan_fitted_capacitor):
 
 def test_in_circuit_reading_needs_current_and_voltage(fan_fitted_capacitor):
     refused(make_reading, fan_fitted_capacitor, method="in_circuit", capacitor_current_a=0.5)
+
+
+def test_a_fitted_capacitor_in_the_admin_keeps_the_register_imports_fitting_rules():
+    """The import refuses an electrolytic run capacitor and a part rated below the motor's supply; the
+    admin's fitted capacitor (full_clean) applies the same rule (common practice of the trade, no single source)."""
+    from django.core.exceptions import ValidationError
+
+    motor = make_motor()
+    electrolytic = make_part(dielectric="electrolytic", rated_uf=100.0, rated_voltage_v=330)
+    low = make_part(rated_voltage_v=motor.rated_voltage_v - 10)
+    for part, words in ((electrolytic, "a run position needs film"), (low, "below this motor's")):
+        fitted = make_fitted_capacitor(motor=make_motor(), part=make_part())
+        fitted.motor, fitted.part = motor, part
+        with pytest.raises(ValidationError) as refused:
+            fitted.full_clean()
+        assert words in refused.value.message_dict["part"][0]
+    fitted.part = make_part(rated_voltage_v=450)
+    fitted.full_clean()

@@ -134,6 +134,23 @@ NAMEPLATE_MAX_CURRENT_A = 150.0
 NAMEPLATE_MIN_OUTPUT_FRACTION_OF_VA = 0.02
 
 
+def fitting_problems(role, dielectric, part_rated_voltage_v, motor_voltage_v) -> tuple[np.ndarray, np.ndarray]:
+    """Per fitting (arrays): (an electrolytic in a run position, a part rated below the motor's supply).
+
+    An aluminium electrolytic is rated for the seconds of a start, not for continuous AC duty; a capacitor
+    sees at least the supply voltage (a run capacitor well above it, a start capacitor over it during a
+    start): common practice of the trade, no single source. A film start capacitor is unusual, not wrong.
+    The register import and the admin's fitted capacitor apply this one rule."""
+    electrolytic_run = (np.asarray(role, object) == "run") & (np.asarray(dielectric, object) == "electrolytic")
+    with np.errstate(invalid="ignore"):
+        under_voltage = np.asarray(part_rated_voltage_v, float) < np.asarray(motor_voltage_v, float)
+    return electrolytic_run, under_voltage
+
+
+ELECTROLYTIC_RUN_WORDS = "is an electrolytic (start) capacitor: a run position needs film (continuous duty)"
+UNDER_VOLTAGE_WORDS = "supply: a capacitor sees at least the supply voltage"
+
+
 def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[tuple[np.ndarray, str, str]]:
     """(rows, field, message) for nameplate figures no capacitor motor has, vectorised over a register:
     output and full-load current above zero and within the bounds above, and an output below the

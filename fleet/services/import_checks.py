@@ -13,8 +13,16 @@ import pandas as pd
 from django.conf import settings
 from django.utils import timezone
 
+from fleet.engineering.rules import (
+    ELECTROLYTIC_RUN_WORDS,
+    UNDER_VOLTAGE_WORDS,
+    fitting_problems,
+    known_time_zone,
+    nameplate_problems,
+    part_problems,
+    service_date_problems,
+)
 from fleet.engineering.rules import check_readings as reading_rules
-from fleet.engineering.rules import known_time_zone, nameplate_problems, part_problems, service_date_problems
 from fleet.imports.columns import (
     CHUNK_ROWS,
     HISTORY_REQUIRED,
@@ -277,12 +285,8 @@ def _wrong_dielectric(role: np.ndarray, part_code: pd.Series, dielectrics: dict)
     electrolytic is rated for the seconds of a start, not for continuous AC duty (common practice of the
     trade, no single source). A film capacitor in a start position is unusual, not wrong, and is taken."""
     dielectric = part_code.map(dielectrics).fillna("").to_numpy(object)
-    wrong = (np.asarray(role) == FittedCapacitor.Role.RUN) & (dielectric == CapacitorPart.Dielectric.ELECTROLYTIC)
-    messages = (
-        part_code.astype(str).to_numpy(object)
-        + " is an electrolytic (start) capacitor: a run position needs film (continuous duty)"
-    )
-    return wrong, messages
+    wrong, _ = fitting_problems(role, dielectric, np.nan, np.nan)
+    return wrong, part_code.astype(str).to_numpy(object) + " " + ELECTROLYTIC_RUN_WORDS
 
 
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
@@ -349,15 +353,17 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         # over it during a start): one rated below the motor's supply is a wrong code or a dangerous fit
         # (common practice of the trade, no single source). Past fits in the history are what happened.
         part_volts = frame[name].map(part_voltages).to_numpy(float)
+        _, under_voltage = fitting_problems(np.full(len(frame), role), "", part_volts, volts)
         problems.add(
-            given.to_numpy(bool) & (part_volts < volts),
+            given.to_numpy(bool) & under_voltage,
             name,
             frame[name].astype(str).to_numpy(object)
             + " is rated "
             + pd.Series(part_volts).map("{:g}".format).to_numpy(object)
             + " V, below this motor's "
             + pd.Series(volts).map("{:g}".format).to_numpy(object)
-            + " V supply: a capacitor sees at least the supply voltage",
+            + " V "
+            + UNDER_VOLTAGE_WORDS,
         )
     for name in ("fitted_on", "commissioned_on"):
         parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
