@@ -485,3 +485,40 @@ def test_an_api_correction_sent_twice_at_once_stores_one_and_answers_the_other_a
     assert len({a.json()["id"] for a in answers}) == 1
     assert Reading.objects.filter(supersedes=wrong).count() == 1
     assert Reading.objects.filter(fitted_capacitor=capacitor).count() == 4
+
+
+@threads_race
+def test_a_walking_order_edited_while_a_refit_runs_reaches_the_new_assessment(capacitor):
+    """The route form saves a new walking order while a refit of the motor's capacitor has read
+    its motor's order and not yet written: the assessment the refit writes ends with the new
+    order, as the plan sorts by it (the route form waits for the refit's lock; before, the refit
+    wrote the order it had read, and the new one reached nothing until the next refit). [derived]"""
+    from fleet.services import assessments
+    from fleet.services.register import set_route_order
+
+    assessments.refit_fitted_capacitors([capacitor.id])
+    motor = capacitor.motor
+    facts_read, route_saved = threading.Event(), threading.Event()
+    original = assessments._capacitor_facts_locked
+
+    def read_then_give_the_route_form_its_chance(ids):
+        facts = original(ids)
+        facts_read.set()
+        route_saved.wait(2.0)  # before the fix the form saves here; after, it waits for this commit
+        return facts
+
+    def refit():
+        with mock.patch.object(assessments, "_capacitor_facts_locked", read_then_give_the_route_form_its_chance):
+            return assessments.refit_fitted_capacitors([capacitor.id], force=True)
+
+    def edit_route():
+        assert facts_read.wait(10.0)
+        count = set_route_order(site=motor.site, positions={motor.id: str(motor.route_order + 7)})
+        route_saved.set()
+        return count
+
+    outcome, saved = in_threads(refit, edit_route)
+    assert getattr(outcome, "written", outcome) == 1 and saved == 1
+    motor.refresh_from_db()
+    current = Assessment.objects.get(fitted_capacitor=capacitor, is_current=True)
+    assert current.route_order == motor.route_order

@@ -692,7 +692,20 @@ def _capacitor_facts_locked(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
 
     Read under the lock, so a capacitor removed or moved meanwhile is seen as it is now: the same
     facts the database's trigger would look up for a row sent without them (migration 0029).
+
+    On PostgreSQL the motors' rows are share-locked first, in id order: a walking order edited
+    meanwhile is either read here or waits until this chunk commits, and its trigger then copies it
+    onto the new assessments (it could not see them before). Refits share the lock; the route
+    form locks its motors in the same order, so neither waits on the other in a cycle.
     """
+    if on_postgresql():
+        ids = np.asarray(fitted_capacitor_ids, np.int64).tolist()
+        with connection.cursor() as cursor:
+            cursor.execute(
+                "SELECT m.id FROM fleet_motor m WHERE m.id IN (SELECT motor_id FROM fleet_fittedcapacitor"
+                f" WHERE id BETWEEN %s AND %s AND id = ANY({ID_ARRAY_SQL})) ORDER BY m.id FOR SHARE",
+                [min(ids, default=0), max(ids, default=0), id_array_text(ids)],
+            )
     rows = (
         FittedCapacitor.objects.select_for_update(of=("self",))
         .filter(pk__any_of=fitted_capacitor_ids)

@@ -37,6 +37,8 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
     if errors:
         raise ValidationError(errors)
     with transaction.atomic():
+        # In id order, as a refit share-locks them (`assessments._capacitor_facts_locked`).
+        list(Motor.objects.select_for_update().filter(id__in=list(motors)).order_by("id").values_list("id"))
         audited_bulk_update(list(motors.values()), ["route_order"])
     return len(motors)
 
