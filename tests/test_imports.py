@@ -276,6 +276,26 @@ def test_import_pages_map_check_and_import(client, technician, django_capture_on
     assert Reading.objects.count() == 4
 
 
+def test_the_import_page_names_the_columns_it_does_not_read(client, technician, django_capture_on_commit_callbacks):
+    """A misspelt optional heading matches no field: its column is named on the page after the
+    check (as `manage.py import` names it), not dropped unseen."""
+    fleet_of(1)
+    client.force_login(technician)
+    header = [("case_temprature_c" if name == "case_temperature_c" else name) for name in HEADER]
+    upload = io.BytesIO(csv_of(good_rows(["IMP-0000"], 2), header=header))
+    upload.name = "quarter.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get()
+    with django_capture_on_commit_callbacks(execute=True):
+        mapping = {name: name for name in HEADER if name in header}  # as the form suggests them
+        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **mapping})
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.CHECKED
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert "not imported (no field is read from it): <strong>case_temprature_c</strong>" in page
+
+
 def test_a_technician_cannot_import_a_register(client, technician):
     client.force_login(technician)
     upload = io.BytesIO(b"asset_tag,site_code\nX,Y\n")

@@ -116,8 +116,14 @@ class Outcome:
 
     @property
     def left_out(self) -> list[str]:
-        """The file's columns no field was mapped to: their values are not imported."""
-        return [column for column in self.header if column not in set(self.mapping.values())]
+        return columns_left_out(self.header, self.mapping)
+
+
+def columns_left_out(header, mapping) -> list[str]:
+    """The file's columns no field was mapped to: their values are not imported (a misspelt
+    optional heading would otherwise drop its column unseen)."""
+    mapped = set((mapping or {}).values())
+    return [column for column in header if column not in mapped]
 
 
 def check_file(

@@ -16,6 +16,7 @@ from fleet.roles import importable_kinds, may_import, scope_to_user
 from fleet.services.import_jobs import (
     KINDS,
     WORKING,
+    columns_left_out,
     create_job,
     end_stalled_jobs,
     queue_check,
@@ -82,6 +83,7 @@ def import_detail(request, job_id):
         "working": job.state in WORKING,
         "can_map": bool(job.columns) and job.state not in {*WORKING, ImportJob.State.DONE},
         "errors": job.errors[:200],
+        "left_out": columns_left_out(job.columns, job.mapping) if job.mapping else [],
     }
     return render(request, "fleet/import_detail.html", context)
 
