@@ -482,6 +482,31 @@ def test_a_readings_export_imported_again_adds_nothing_as_xlsx_as_as_csv(tmp_pat
     assert Reading.objects.count() == 2
 
 
+def test_readings_from_the_form_and_the_api_exported_and_imported_again_add_nothing(tmp_path, client, engineer):
+    """Only imported readings carry an import key: the export of readings logged on the form or sent by
+    the API (a meter value and an in-circuit one) was taken as new and every one came in a second time."""
+    from fleet.services.readings import record_reading
+
+    migrate_all(tmp_path)
+    fan = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    starter = FittedCapacitor.objects.get(motor__asset_tag="CMP-1", removed_on__isnull=True)
+    record_reading(fitted_capacitor=fan, values={"method": "meter", "capacitance_uf": "7.77", "condition": "sound"})
+    in_circuit = {"method": "in_circuit", "capacitor_current_a": "0.83", "capacitor_voltage_v": "341",
+                  "case_temperature_c": "38", "condition": "sound"}  # fmt: skip
+    record_reading(fitted_capacitor=fan, values=in_circuit, source=Reading.Source.API)
+    record_reading(fitted_capacitor=starter, values={"method": "meter", "capacitance_uf": "101.3"})
+    assert Reading.objects.count() == 5
+    client.force_login(engineer)
+    for fmt in ("csv", "xlsx"):
+        path = tmp_path / f"export.{fmt}"
+        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
+        report = io.StringIO()
+        with pytest.raises(CommandError, match="nothing would be imported"):
+            call_command("import", "readings", str(path), "--dry-run", stdout=report)
+        assert ": 5 rows: 0 good, 5 already imported, 0 with problems." in report.getvalue(), fmt
+    assert Reading.objects.count() == 5
+
+
 def test_a_design_capacitor_rated_below_the_motors_supply_is_refused_by_row_and_field(tmp_path):
     """A capacitor sees at least the supply voltage (a start capacitor over it during a start): a 125 V start
     capacitor on a 230 V motor imported without a word (common practice of the trade, no single source)."""

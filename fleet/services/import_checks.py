@@ -235,19 +235,55 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             for row, first in zip(later["row"], first_row.reindex(later["import_key"]).to_numpy(), strict=True)
         ]
         good = good[~repeated].reset_index(drop=True)
-    existing = (
-        set(
+    stored = _already_stored(good)
+    if stored.any():
+        good = good[~stored].reset_index(drop=True)
+    errors.sort()
+    return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
+
+
+def _already_stored(good: pd.DataFrame) -> np.ndarray:
+    """Per good row: the database holds the same reading (capacitor, time, method, value), whether it
+    came by an earlier import (its key) or by the form, the API or the demo (the same content;
+    times compared to the second, as a spreadsheet cell keeps them): a readings export imported again
+    adds nothing."""
+    if not len(good):
+        return np.zeros(0, bool)
+    keyed = np.isin(
+        good["import_key"].to_numpy(object),
+        list(
             Reading.objects.filter(import_key__any_of=good["import_key"].to_numpy(object)).values_list(
                 "import_key", flat=True
             )
-        )
-        if len(good)
-        else set()
+        ),
     )
-    if existing:
-        good = good[~good["import_key"].isin(existing)].reset_index(drop=True)
-    errors.sort()
-    return CheckResult(good=good, errors=errors, duplicates=len(existing), total=len(frame))
+    times = pd.to_datetime(good["taken_at"], utc=True)
+    same_span = (
+        Reading.objects.filter(
+            fitted_capacitor_id__any_of=good["fitted_capacitor_id"].unique(),
+            taken_at__gte=times.min().floor("s"),
+            taken_at__lt=times.max().floor("s") + pd.Timedelta(seconds=1),
+        )
+        .order_by()
+        .values_list("fitted_capacitor_id", "taken_at", "method", "capacitance_uf")
+    )
+    stored = pd.DataFrame.from_records(list(same_span), columns=["fitted_capacitor_id", "taken_at", "method", "uf"])
+    if not len(stored):
+        return keyed
+
+    def to_the_second(ids, when, methods, uf):
+        return reading_keys(ids, pd.to_datetime(when, utc=True).dt.floor("s"), methods, np.round(uf, 4))
+
+    unkeyed = to_the_second(
+        stored["fitted_capacitor_id"],
+        stored["taken_at"],
+        stored["method"].to_numpy(object),
+        stored["uf"].to_numpy(float),
+    )
+    mine = to_the_second(
+        good["fitted_capacitor_id"], times, good["method"].to_numpy(object), good["capacitance_uf"].to_numpy(float)
+    )
+    return keyed | np.isin(mine, unkeyed)
 
 
 def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
