@@ -370,7 +370,7 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
         reason = ""
         while True:
             day = day + dt.timedelta(days=int(rng.integers(84, 98)))
-            if day > today:
+            if day >= today:  # a reading later today would be in the future (refused by every form)
                 break
             hours = (day - fitted_on).days * 24.0
             stress = hours * rate
