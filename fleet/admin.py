@@ -186,7 +186,7 @@ class AssessmentAdmin(admin.ModelAdmin):
     list_select_related = ["fitted_capacitor__motor", "fitted_capacitor__part"]
     raw_id_fields = ["fitted_capacitor", "newest_reading"]
 
-    @admin.display(description="capacitance now (µF)", ordering="capacitance_now_uf")
+    @admin.display(description="trend at newest reading, 25 °C (µF)", ordering="capacitance_now_uf")
     def capacitance_now(self, assessment):
         return f"{assessment.capacitance_now_uf:.2f}"
 

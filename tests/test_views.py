@@ -249,6 +249,11 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
         response = client.get(reverse("plan"), {"days": 365})
     assert response.status_code == 200
     assert fitted_capacitors[0].motor.asset_tag in response.content.decode()
+    # The replace-by rule is stated with the figures the plan uses (a planner could not find it).
+    assert (
+        "any other 30 days before its early (P10) crossing, never sooner than 7 days from today"
+        in response.content.decode()
+    )
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
     assert Assessment.objects.filter(is_current=True).count() == 6
@@ -351,6 +356,16 @@ def test_life_data_counts_failures_and_suspensions_from_the_register(signed_in, 
     body = client.get(reverse("life_data"), {"part": part.code}).content.decode()
     assert "<b>3</b> failed in service" in body and "<b>3</b> replaced on plan or still in service" in body
     assert 'id="weibull-data"' in body and "B10 life" in body
+    # Two with no age (fitted today; removed as failed the day it was fitted) are named, not dropped unseen.
+    make_fitted_capacitor(motor=make_motor(), part=part, fitted_on=today)
+    make_fitted_capacitor(
+        motor=make_motor(), part=part, fitted_on=today - dt.timedelta(days=9), removed_on=today - dt.timedelta(days=9),
+        removal_reason="failed",
+    )  # fmt: skip
+    body = client.get(reverse("life_data"), {"part": part.code}).content.decode()
+    assert "<b>3</b> failed in service" in body and "<b>3</b> replaced on plan or still in service" in body
+    assert 'Not in these counts: <b id="life-no-age">2</b> with no age yet' in body
+    assert "1 of them failed that day: dead on arrival, not wear-out" in body
 
 
 def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(signed_in, planner, technician):

@@ -95,7 +95,13 @@ JUDGED = {  # an assessment's judgement, by the names the assessment export give
         Column("risk", description="Risk level", source="risk"),
         Column("replace_by", DATE, description="Replace by this date", source="replace_by"),
         Column("reason", description="Why this risk and date, in words", source="reason"),
-        Column("capacitance_now_uf", FLOAT, "uF", "Trend value now, referred to 25 C", source="capacitance_now_uf"),
+        Column(
+            "capacitance_now_uf",
+            FLOAT,
+            "uF",
+            "Trend value at the newest reading (the reading itself where the trend is set aside), at 25 C",
+            source="capacitance_now_uf",
+        ),
         Column("latest_verdict", description="Latest reading against the marked tolerance", source="latest_verdict"),
         Column("governing_limit", description="The limit met first", source="limit_source"),
         Column(

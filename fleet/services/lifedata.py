@@ -28,6 +28,7 @@ def life_table(part_id: int | None = None, today: dt.date | None = None) -> pd.D
     end = frame["removed_on"].where(frame["removed_on"].notna(), today)
     frame["age_days"] = (pd.to_datetime(end) - pd.to_datetime(frame["fitted_on"])).dt.days.astype(float)
     frame["failed"] = frame["removal_reason"].eq(FittedCapacitor.RemovalReason.FAILED)
+    frame["in_service"] = frame["removed_on"].isna()
     return frame[frame["age_days"] > 0].reset_index(drop=True)
 
 
@@ -51,7 +52,7 @@ def refresh_life_fits(today: dt.date | None = None) -> int:
                 continue
             plot_t, plot_f = probability_plot_points(years, failed)
             shown = np.unique(np.linspace(0, len(plot_t) - 1, min(len(plot_t), PLOT_POINTS)).round().astype(int))
-            in_service = years[~failed]
+            in_service = years[rows["in_service"].to_numpy(bool)]  # not those removed on plan (suspensions too)
             PartLifeFit.objects.update_or_create(
                 part_id=int(part_id),
                 defaults=dict(
@@ -92,17 +93,24 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
     plot points and the age-replacement curve for these costs, in years; without a stored fit, the
     part's failures and suspensions counted from the register (one query either way, or two)."""
     stored = PartLifeFit.objects.filter(part_id=part_id, var_log_beta__isnull=False).first()
+    # The life table's units: those with an age (removed after fitting, or in service since before today).
+    # Those fitted today or removed on the day they were fitted have none: counted apart, not fitted.
+    aged = Q(removed_on__gt=F("fitted_on")) | Q(removed_on__isnull=True, fitted_on__lt=timezone.localdate())
+    failed = Q(removal_reason=FittedCapacitor.RemovalReason.FAILED)
+    counts = FittedCapacitor.objects.filter(part_id=part_id).aggregate(
+        failures=Count("id", filter=aged & failed),
+        units=Count("id", filter=aged),
+        no_age=Count("id", filter=~aged),
+        no_age_failures=Count("id", filter=~aged & failed),
+    )
+    unaged = {"no_age": counts["no_age"], "no_age_failures": counts["no_age_failures"]}
     if stored is None:
-        # The life table's units: those with an age (removed after fitting, or in service since before today).
-        aged = Q(removed_on__gt=F("fitted_on")) | Q(removed_on__isnull=True, fitted_on__lt=timezone.localdate())
-        counts = FittedCapacitor.objects.filter(aged, part_id=part_id).aggregate(
-            failures=Count("id", filter=Q(removal_reason=FittedCapacitor.RemovalReason.FAILED)), units=Count("id")
-        )
         return {
             "failures": counts["failures"],
             "suspensions": counts["units"] - counts["failures"],
             "fit": None,
             "fitted_at": None,
+            **unaged,
         }
     fit = stored_fit(stored)
     ages = np.linspace(0.05, 3.0, 240) * fit.eta
@@ -127,6 +135,7 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
         "b10": fit.b_life(),
         "b10_bounds": (b10_low, b10_high),
         "next_year_failure": stored.next_year_failure,
+        **unaged,
         "plot_points": (points[:, 0], points[:, 1]),
         "replacement": replacement,
     }

@@ -13,6 +13,7 @@ from django.shortcuts import get_object_or_404, redirect, render
 from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
+from fleet.engineering.planning import PlanningSettings
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import list_page, plan_parameters
 from fleet.models import Site
@@ -39,6 +40,7 @@ def plan(request):
         "sites": scope_to_user(Site.objects.all(), request.user),
         "spares": pages.spares_needed(horizon, site, request.user),
         "risks": pages.risk_summary(request.user),
+        "rules": PlanningSettings(),
     }
     context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user)
     return render(request, "fleet/plan.html", context)
