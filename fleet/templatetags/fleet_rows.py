@@ -20,10 +20,10 @@ PLAN_ROW = """
 <tr>
   <td data-label="Motor, capacitor"><a class="nowrap" href="{motor_url}">{tag}</a><br><span class="muted">{location}</span><br><a href="{capacitor_url}">{role} <span class="nowrap">{part}</span></a></td>
   <td data-label="Risk, replace by"><span class="risk risk-{risk_slug}">{risk}</span><br><span class="nowrap replace-by">{replace_by}</span>{few}</td>
-  <td class="num" data-label="Now (&micro;F)">{capacitance}</td>
+  <td class="num" data-label="Trend (&micro;F)">{capacitance}</td>
   <td data-label="Limit">{limit}</td>
   <td data-label="Why">{reason}</td>
-  <td data-label="Early / likely crossing"><span class="nowrap">{p10}</span> / <span class="nowrap">{p50}</span></td>
+  <td data-label="Trend crosses: early / likely"><span class="nowrap">{p10}</span> / <span class="nowrap">{p50}</span></td>
   <td data-label="Site">{site}</td>
 </tr>
 """  # noqa: E501 (one line a cell, as the page's source shows it)
