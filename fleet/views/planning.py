@@ -14,6 +14,7 @@ from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
 from fleet.engineering.planning import PlanningSettings
+from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import list_page, plan_parameters
 from fleet.models import Site
@@ -104,7 +105,9 @@ def visit_sheet(request, site_code, day):
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)
 def stand_in_parts(request):
     """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
-    return render(request, "fleet/stand_in_parts.html", {"families": part_families(request.user)})
+    margin_pct = round((SubstituteRules().voltage_margin - 1) * 100)
+    context = {"families": part_families(request.user), "voltage_margin_pct": margin_pct}
+    return render(request, "fleet/stand_in_parts.html", context)
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)
