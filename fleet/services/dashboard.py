@@ -42,10 +42,12 @@ from fleet.services.counts import in_service_counts
 from fleet.services.pages import (
     OVERDUE_GRACE_DAYS,
     READING_INTERVAL_DAYS,
+    due_within,
     in_service_assessments,
     overdue_before,
     quarter_start,
     reading_status,
+    replace_by_until,
     risk_changes,
 )
 
@@ -81,14 +83,16 @@ def _site_codes(user) -> dict[int, str]:
 
 def weekly_workload(user=None, today: dt.date | None = None) -> dict:
     """Replacements per week for the next WEEKS weeks by risk level and by site (overdue ones in
-    this week), and the site visits of the open work orders per week (four queries)."""
+    this week), and the site visits of the open work orders per week (four queries). The weeks end on
+    the Sunday `until`, `horizon_days` from today: the plan's window (`pages.due_within`) that the
+    dashboard links to."""
     today = today or timezone.localdate()
     first = today - dt.timedelta(days=today.weekday())
     weeks = [first + dt.timedelta(weeks=k) for k in range(WEEKS)]
     end = first + dt.timedelta(weeks=WEEKS)
+    horizon_days = (end - today).days - 1
     rows = (
-        in_service_assessments(user)
-        .filter(replace_by__lt=end)
+        due_within(horizon_days, user, today)
         .annotate(week=_clamped("replace_by", TruncWeek, first))
         .values("week", "risk", "site_id")
         .annotate(n=Count("*"))  # the in_service_totals index alone: no capacitor or motor joined
@@ -119,6 +123,8 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
         "by_site": {code: counts for code, counts in by_site.items() if any(counts)},
         "visits": visits_per_week,
         "total": sum(sum(counts) for counts in by_risk.values()),
+        "horizon_days": horizon_days,
+        "until": replace_by_until(horizon_days, today),
         "past_due": in_service_assessments(user).filter(replace_by__lt=today).count(),
     }
 

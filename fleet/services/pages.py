@@ -243,14 +243,24 @@ LISTED_CAPACITORS = Prefetch(
 )
 
 
+def replace_by_until(horizon_days: int, today: dt.date | None = None) -> dt.date:
+    """The last replace-by day within `horizon_days` of today (that day included): the one window of the
+    plan, its downloads, the work orders planned from it and the dashboard's count of replacements."""
+    return (today or timezone.localdate()) + dt.timedelta(days=horizon_days)
+
+
+def due_within(horizon_days: int, user=None, today: dt.date | None = None):
+    """Current assessments of the capacitors in service at the user's sites to replace within the
+    horizon (`replace_by_until`), those already past their date included."""
+    return in_service_assessments(user).filter(replace_by__lte=replace_by_until(horizon_days, today))
+
+
 def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None):
     """Capacitors in service at the user's sites to replace within the horizon, soonest first, then by
     site and walking order, with the newest assessment's figures (not the per-limit details); one
     query, ordered by the assessment's stored site and route order (the in_service_walking_order index)."""
-    until = timezone.localdate() + dt.timedelta(days=horizon_days)
     queryset = (
-        in_service_assessments(user)
-        .filter(replace_by__lte=until)
+        due_within(horizon_days, user)
         .defer(*LIST_DEFERRED)
         .prefetch_related(LISTED_CAPACITORS)
         .order_by("replace_by", "site__code", "route_order", "fitted_capacitor_id")
