@@ -212,7 +212,8 @@ class Motor(models.Model):
         null=True,
         blank=True,
         editable=False,
-        help_text="Newest reading of a capacitor while in service; kept by a database trigger on readings",
+        help_text="Newest reading of any capacitor fitted to the motor, in service or removed since; "
+        "kept by database triggers on readings and on a capacitor's motor",
     )
 
     class Meta:

@@ -281,7 +281,7 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     full = by_recipient["all@example.org"].body
     assert "HERE-0001 run capacitor" in full and "latest reading below the tolerance limit" in full
     assert f"https://fleet.example.org{reverse('fitted_capacitor', args=[worn.id])}" in full
-    assert "THERE-0002 run capacitor: last read 2026-07-01, 154 days ago" in full
+    assert "THERE-0002 run capacitor: motor last read 2026-07-01, 154 days ago" in full
     assert f"https://fleet.example.org{reverse('route', args=['THERE'])}?show=due" in full
     assert "charge that can kill" in full
     assert "1 to replace now, 1 reading overdue" in by_recipient["all@example.org"].subject
@@ -296,3 +296,21 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     stored_assessment(worn, "replace now", TODAY)  # ... and enters it again: reported again
     assert send_daily_digest(today=TODAY) == {"new": 1, "ended": 0, "emails": 1}
     assert DigestEntry.objects.count() == 2
+
+
+def test_the_replacements_count_is_the_plan_it_links_to_with_one_due_on_the_windows_last_day(client):
+    """[derived] The dashboard's count of replacements in the weeks it shows and the plan it links to
+    take one window: a capacitor due on its last day (the Sunday that ends the 26th week) is in both,
+    one due the day after in neither."""
+    today = timezone.localdate()
+    last_day = today - dt.timedelta(days=today.weekday()) + dt.timedelta(weeks=26, days=-1)
+    site, part = make_site(), make_part()
+    for replace_by in (today, last_day, last_day + dt.timedelta(days=1), today + dt.timedelta(days=182)):
+        stored_assessment(make_fitted_capacitor(motor=make_motor(site=site), part=part), "watch", replace_by)
+    client.force_login(make_user(PLANNER))
+    page = client.get(reverse("dashboard"))
+    link = re.search(r'href="(/plan/\?days=\d+)"', page.content.decode()).group(1)
+    plan = client.get(link)
+    assert page.context["workload"]["total"] == plan.context["page"].paginator.count == 2
+    assert {a.replace_by for a in plan.context["page"].object_list} == {today, last_day}
+    assert f'to replace by <span class="nowrap">{last_day:%Y-%m-%d}</span>' in plan.content.decode()

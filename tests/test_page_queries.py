@@ -20,7 +20,7 @@ from django.test.utils import CaptureQueriesContext
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, ImportJob, Motor, RefitRun
+from fleet.models import Assessment, FittedCapacitor, ImportJob, Motor, RefitRun
 from fleet.roles import TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.lifedata import refresh_life_fits
@@ -187,6 +187,21 @@ def test_a_motors_last_reading_is_kept_by_the_database():
     later = newest + dt.timedelta(days=1)
     make_reading(fitted_capacitor, taken_at=later)
     assert Motor.objects.get(pk=motor.pk).last_read_at == later
+    # Removed that day, then a reading of that day entered: still the motor's newest reading.
+    fitted_capacitor.removed_on, fitted_capacitor.removal_reason = later.date(), "failed"
+    fitted_capacitor.save()
+    removal_day = later + dt.timedelta(minutes=5)
+    make_reading(fitted_capacitor, taken_at=removal_day)
+    assert Motor.objects.get(pk=motor.pk).last_read_at == removal_day
+    # A capacitor moved to another motor (a register correction) takes its readings along.
+    other = make_fitted_capacitor(motor=motor, role="start", fitted_on=dt.date(2022, 1, 1))
+    make_reading(other, taken_at=removal_day - dt.timedelta(days=30))
+    elsewhere = make_motor(site=motor.site)
+    FittedCapacitor.objects.filter(pk=fitted_capacitor.pk).update(motor=elsewhere)
+    assert Motor.objects.get(pk=motor.pk).last_read_at == removal_day - dt.timedelta(days=30)
+    assert Motor.objects.get(pk=elsewhere.pk).last_read_at == removal_day
+    FittedCapacitor.objects.filter(pk=other.pk).update(motor=elsewhere)
+    assert Motor.objects.get(pk=motor.pk).last_read_at is None
 
 
 def test_a_work_orders_site_is_its_motors_kept_by_the_database():

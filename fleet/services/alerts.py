@@ -17,8 +17,8 @@ from django.utils import timezone
 from fleet.engineering.planning import RISK_ORDER
 from fleet.models import DigestEntry
 from fleet.roles import PLANNER, visible_site_ids
-from fleet.services.dashboard import READING_INTERVAL_DAYS, overdue_before, overdue_capacitors
-from fleet.services.pages import current_assessments
+from fleet.services.dashboard import overdue_capacitors
+from fleet.services.pages import READING_INTERVAL_DAYS, current_assessments, overdue_before
 
 TOP_RISK = RISK_ORDER[0]
 CAUTION = (
@@ -33,7 +33,7 @@ def _link(path: str) -> str:
 
 
 def current_conditions(today: dt.date) -> dict[tuple[str, int], dict]:
-    """Every capacitor now at the top risk level or overdue a reading, by (kind, capacitor id),
+    """Every capacitor now at the top risk level or on a motor overdue a reading, by (kind, capacitor id),
     with its site, the line for the digest and the reason (two queries)."""
     conditions = {}
     for row in (
@@ -60,14 +60,22 @@ def current_conditions(today: dt.date) -> dict[tuple[str, int], dict]:
         }
     for row in (
         overdue_capacitors(None, today)
-        .values("id", "role", "fitted_on", "last_read", "motor__asset_tag", "motor__site_id", "motor__site__code")
-        .order_by("motor__site__code", "motor__route_order", "motor__asset_tag")
+        .values(
+            "id",
+            "role",
+            "last_read",
+            "motor__commissioned_on",
+            "motor__asset_tag",
+            "motor__site_id",
+            "motor__site__code",
+        )
+        .order_by("motor__site__code", "motor__route_order", "motor__asset_tag", "role")
     ):
         if row["last_read"] is None:
-            reason = f"never read since it was fitted on {row['fitted_on']:%Y-%m-%d}"
+            reason = f"motor never read since it was commissioned on {row['motor__commissioned_on']:%Y-%m-%d}"
         else:
             last = timezone.localdate(row["last_read"])
-            reason = f"last read {last:%Y-%m-%d}, {(today - last).days} days ago"
+            reason = f"motor last read {last:%Y-%m-%d}, {(today - last).days} days ago"
         conditions[(DigestEntry.Kind.OVERDUE, row["id"])] = {
             "site_id": row["motor__site_id"],
             "reason": reason,

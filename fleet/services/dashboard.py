@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 from django.core.cache import cache
 from django.core.serializers.json import DjangoJSONEncoder
-from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Q, Subquery, Sum, Value, When
+from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Subquery, Sum, Value, When
 from django.db.models.functions import Cast, Coalesce, TruncMonth, TruncWeek
 from django.utils import timezone
 
@@ -39,20 +39,22 @@ from fleet.models import (
 )
 from fleet.roles import scope_to_user
 from fleet.services.counts import in_service_counts
-from fleet.services.pages import in_service_assessments, quarter_start, risk_changes
+from fleet.services.pages import (
+    OVERDUE_GRACE_DAYS,
+    READING_INTERVAL_DAYS,
+    due_within,
+    in_service_assessments,
+    overdue_before,
+    quarter_start,
+    reading_status,
+    replace_by_until,
+    risk_changes,
+)
 
 WEEKS = 26
 MONTHS = 12
-# Readings are quarterly [trade]; a capacitor not read for a quarter and two weeks more is overdue.
-READING_INTERVAL_DAYS = 91
-OVERDUE_GRACE_DAYS = 14
 NOT_ASSESSED = "not assessed yet"
 DAYS_PER_YEAR = 365.25
-
-
-def overdue_before(today: dt.date) -> dt.date:
-    """A capacitor whose newest reading is older than this day is overdue."""
-    return today - dt.timedelta(days=READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS)
 
 
 def _clamped(field: str, truncate, first: dt.date):
@@ -81,14 +83,16 @@ def _site_codes(user) -> dict[int, str]:
 
 def weekly_workload(user=None, today: dt.date | None = None) -> dict:
     """Replacements per week for the next WEEKS weeks by risk level and by site (overdue ones in
-    this week), and the site visits of the open work orders per week (four queries)."""
+    this week), and the site visits of the open work orders per week (four queries). The weeks end on
+    the Sunday `until`, `horizon_days` from today: the plan's window (`pages.due_within`) that the
+    dashboard links to."""
     today = today or timezone.localdate()
     first = today - dt.timedelta(days=today.weekday())
     weeks = [first + dt.timedelta(weeks=k) for k in range(WEEKS)]
     end = first + dt.timedelta(weeks=WEEKS)
+    horizon_days = (end - today).days - 1
     rows = (
-        in_service_assessments(user)
-        .filter(replace_by__lt=end)
+        due_within(horizon_days, user, today)
         .annotate(week=_clamped("replace_by", TruncWeek, first))
         .values("week", "risk", "site_id")
         .annotate(n=Count("*"))  # the in_service_totals index alone: no capacitor or motor joined
@@ -119,6 +123,8 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
         "by_site": {code: counts for code, counts in by_site.items() if any(counts)},
         "visits": visits_per_week,
         "total": sum(sum(counts) for counts in by_risk.values()),
+        "horizon_days": horizon_days,
+        "until": replace_by_until(horizon_days, today),
         "past_due": in_service_assessments(user).filter(replace_by__lt=today).count(),
     }
 
@@ -249,45 +255,28 @@ def risk_mix(user=None) -> dict:
     return {"sites": list(mix), "levels": levels, "counts": mix}
 
 
-def last_read_subquery():
-    """The newest reading time of the outer fitted capacitor (the (fitted capacitor, taken_at) index)."""
-    return Subquery(
-        Reading.objects.filter(fitted_capacitor=OuterRef("pk")).order_by("-taken_at").values("taken_at")[:1]
-    )
-
-
 def overdue_capacitors(user=None, today: dt.date | None = None):
-    """Capacitors in service on motors in service whose newest reading (or, never read, their
-    fitting) is older than a quarter and the grace period, with `last_read`."""
-    today = today or timezone.localdate()
-    cutoff = dt.datetime.combine(overdue_before(today), dt.time(), tzinfo=dt.UTC)
+    """Capacitors in service on the motors in service overdue a reading (`pages.reading_status` on the
+    motor's stored newest reading), with the motor's `last_read`."""
+    overdue = reading_status(today or timezone.localdate(), "motor__last_read_at", "motor__commissioned_on")
     return (
         scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
-        .annotate(last_read=last_read_subquery())
-        .filter(Q(last_read__lt=cutoff) | Q(last_read__isnull=True, fitted_on__lt=overdue_before(today)))
+        .filter(overdue["overdue"])
+        .annotate(last_read=F("motor__last_read_at"))
     )
 
 
 def readings_by_route(user=None, today: dt.date | None = None) -> dict:
-    """Per site's reading route: motors in service overdue, due this quarter (not read since it
-    began) and read this quarter, as the route page counts them from each motor's stored newest
-    reading (`Motor.last_read_at`, kept by a trigger on readings), summed from the ledger of motors
-    by site and UTC day of that reading (`MotorReadCount`, kept by triggers on motors): a few hundred
-    rows whatever the fleet's size. A motor never read is overdue once commissioned before the
-    overdue day, due otherwise."""
+    """Per site's reading route: motors in service overdue, due this quarter and read this quarter, by
+    the rule the route page counts with (`pages.reading_status`), summed from the ledger of motors by
+    site and UTC day of their stored newest reading (`MotorReadCount`, kept by triggers on motors): a
+    few hundred rows whatever the fleet's size."""
     today = today or timezone.localdate()
-    cutoff, quarter = overdue_before(today), quarter_start(today)
-    never_read = Q(last_read_on__isnull=True)
-    overdue = Q(last_read_on__lt=cutoff) | (never_read & Q(commissioned_on__lt=cutoff))
-    due = ~overdue & (never_read | Q(last_read_on__lt=quarter))
+    status = reading_status(today, "last_read_on")
     counts = (
         scope_to_user(MotorReadCount.objects.all(), user)
         .values("site_id")
-        .annotate(
-            overdue=Coalesce(Sum("n", filter=overdue), 0),
-            due=Coalesce(Sum("n", filter=due), 0),
-            read=Coalesce(Sum("n", filter=Q(last_read_on__gte=quarter)), 0),
-        )
+        .annotate(**{name: Coalesce(Sum("n", filter=status[name]), 0) for name in ("overdue", "due", "read")})
         .order_by()
     )
     by_site = {row["site_id"]: row for row in counts if row["overdue"] or row["due"] or row["read"]}
@@ -295,7 +284,7 @@ def readings_by_route(user=None, today: dt.date | None = None) -> dict:
         {"code": site.code, "name": site.name, **{k: by_site[site.id][k] for k in ("overdue", "due", "read")}}
         for site in scope_to_user(Site.objects.filter(id__in=by_site), user).order_by("code")
     ]
-    return {"quarter_start": quarter, "overdue_before": cutoff, "routes": routes}
+    return {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today), "routes": routes}
 
 
 class Differs(Func):

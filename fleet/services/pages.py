@@ -168,22 +168,63 @@ def trend_chart(
     return trend_figure(points, path, assessment.limit_fraction * rated, assessment.limit_source, rated)
 
 
+# Readings are quarterly [trade]; a motor not read for a quarter and two weeks more is overdue.
+READING_INTERVAL_DAYS = 91
+OVERDUE_GRACE_DAYS = 14
+
+
 def quarter_start(day: dt.date) -> dt.date:
     return dt.date(day.year, 3 * ((day.month - 1) // 3) + 1, 1)
 
 
+def overdue_before(today: dt.date) -> dt.date:
+    """A motor whose newest reading (never read: its commissioning) is older than this day is overdue."""
+    return today - dt.timedelta(days=READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS)
+
+
+def reading_status(today: dt.date, newest: str = "last_read_at", commissioned: str = "commissioned_on") -> dict:
+    """The one rule for whether a motor was read, as conditions on `newest`, its newest reading, and
+    `commissioned`, its commissioning day: "overdue" (that reading or, never read, the commissioning
+    before `overdue_before`), "due" (not read since the quarter began, not overdue), "to_read" (either),
+    "read" (read since the quarter began). Its newest reading is that of any capacitor fitted to it, in
+    service or removed since (`Motor.last_read_at`, kept by triggers; by UTC day in `MotorReadCount`):
+    `newest` names a time (`..._at`, compared from UTC midnight) or a UTC day (`..._on`)."""
+    commissioned_before = overdue_before(today)
+    cutoff, quarter = commissioned_before, quarter_start(today)
+    if newest.endswith("_at"):
+        cutoff, quarter = (dt.datetime.combine(day, dt.time.min, tzinfo=dt.UTC) for day in (cutoff, quarter))
+    never_read = Q((f"{newest}__isnull", True))
+    overdue = Q((f"{newest}__lt", cutoff)) | never_read & Q((f"{commissioned}__lt", commissioned_before))
+    due = Q((f"{newest}__gte", cutoff), (f"{newest}__lt", quarter)) | never_read & (
+        Q((f"{commissioned}__isnull", True)) | Q((f"{commissioned}__gte", commissioned_before))
+    )
+    return {
+        "overdue": overdue,
+        "due": due,
+        "to_read": never_read | Q((f"{newest}__lt", quarter)),
+        "read": Q((f"{newest}__gte", quarter)),
+    }
+
+
 def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None = None):
-    """The site's motors in service in walking order (a queryset to read a page at a time), each
-    with `due` when none of its capacitors in service was read this quarter, from the stored
-    `last_read_at`; with the counts of all and of the due motors (one aggregate) and the quarter's start."""
-    start = quarter_start(today or timezone.localdate())
-    read_since = timezone.make_aware(dt.datetime.combine(start, dt.time.min))
+    """The site's motors in service in walking order (a queryset to read a page at a time), each with
+    `due` when it was not read this quarter and `overdue` when its reading is overdue (`reading_status`,
+    on the stored `last_read_at`); with the counts of all, the due and the overdue motors (one aggregate)
+    and the days the rule counts from (`quarter_start`, `overdue_before`)."""
+    today = today or timezone.localdate()
+    status = reading_status(today)
     motors = Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
-    due = Q(last_read_at__isnull=True) | Q(last_read_at__lt=read_since)
-    # site_id: a column of the motor_last_read index, never null, so both counts read the index alone.
-    counts = motors.aggregate(total=Count("site"), due=Count("site", filter=due))
-    listed = (motors.filter(due) if only_due else motors).annotate(due=ExpressionWrapper(due, BooleanField()))
-    return listed.order_by("route_order", "asset_tag"), counts, start
+    counts = motors.aggregate(
+        total=Count("site"),
+        due=Count("site", filter=status["to_read"]),
+        overdue=Count("site", filter=status["overdue"]),
+    )
+    listed = (motors.filter(status["to_read"]) if only_due else motors).annotate(
+        due=ExpressionWrapper(status["to_read"], BooleanField()),
+        overdue=ExpressionWrapper(status["overdue"], BooleanField()),
+    )
+    days = {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today)}
+    return listed.order_by("route_order", "asset_tag"), counts, days
 
 
 def risk_summary(user=None):
@@ -202,14 +243,24 @@ LISTED_CAPACITORS = Prefetch(
 )
 
 
+def replace_by_until(horizon_days: int, today: dt.date | None = None) -> dt.date:
+    """The last replace-by day within `horizon_days` of today (that day included): the one window of the
+    plan, its downloads, the work orders planned from it and the dashboard's count of replacements."""
+    return (today or timezone.localdate()) + dt.timedelta(days=horizon_days)
+
+
+def due_within(horizon_days: int, user=None, today: dt.date | None = None):
+    """Current assessments of the capacitors in service at the user's sites to replace within the
+    horizon (`replace_by_until`), those already past their date included."""
+    return in_service_assessments(user).filter(replace_by__lte=replace_by_until(horizon_days, today))
+
+
 def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None):
     """Capacitors in service at the user's sites to replace within the horizon, soonest first, then by
     site and walking order, with the newest assessment's figures (not the per-limit details); one
     query, ordered by the assessment's stored site and route order (the in_service_walking_order index)."""
-    until = timezone.localdate() + dt.timedelta(days=horizon_days)
     queryset = (
-        in_service_assessments(user)
-        .filter(replace_by__lte=until)
+        due_within(horizon_days, user)
         .defer(*LIST_DEFERRED)
         .prefetch_related(LISTED_CAPACITORS)
         .order_by("replace_by", "site__code", "route_order", "fitted_capacitor_id")

@@ -19,7 +19,7 @@ from fleet.models import FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
-from .pages import in_service_assessments
+from .pages import due_within
 
 KIND_FOR_ROLE = {
     FittedCapacitor.Role.RUN: WorkOrder.Kind.REPLACE_RUN,
@@ -39,9 +39,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     """
     today = today or timezone.localdate()
     due = list(
-        in_service_assessments(user)
-        .filter(replace_by__lte=today + dt.timedelta(days=horizon_days))
-        .values_list(
+        due_within(horizon_days, user, today).values_list(
             "fitted_capacitor_id",
             "fitted_capacitor__motor_id",
             "fitted_capacitor__motor__site_id",

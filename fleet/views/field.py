@@ -198,14 +198,15 @@ def site_route(request, site_code):
             return redirect(f"{reverse('route', args=[site.code])}?{request.GET.urlencode()}")
     values = page_values(RoutePage, request)
     only_due = values.get("show") == "due"
-    motors, counts, quarter_start = pages.route_for_site(site, only_due=only_due)
+    motors, counts, days = pages.route_for_site(site, only_due=only_due)
     context = {
         "site": site,
         "page": list_page(request, Paginator(motors, ROUTE_PAGE_SIZE).get_page),
         "total": counts["total"],
         "due": counts["due"],
+        "overdue": counts["overdue"],
         "only_due": only_due,
-        "quarter_start": quarter_start,
+        **days,
         "order_errors": order_errors,
     }
     return render(request, "fleet/route.html", context)

@@ -37,6 +37,7 @@ def plan(request):
     context = {
         "page": page,
         "horizon": horizon,
+        "until": pages.replace_by_until(horizon),
         "site": site,
         "sites": scope_to_user(Site.objects.all(), request.user),
         "spares": pages.spares_needed(horizon, site, request.user),
