@@ -97,3 +97,23 @@ def test_the_same_api_correction_sent_again_is_answered_as_the_replay(technician
     colleague = client_for(make_user("technician")).post(url, body, format="json")
     assert colleague.status_code == 400 and "already corrected" in colleague.json()["supersedes"][0]
     assert Reading.objects.count() == 2
+
+
+def test_the_admin_refuses_a_correction_of_another_capacitors_reading(fan_fitted_capacitor):
+    """In the admin, a reading saved as the correction of another capacitor's reading took that reading out
+    of the other capacitor's trend; the form and the API refuse it (one rule, `Reading.clean`)."""
+    other = make_fitted_capacitor()
+    theirs = make_reading(other, capacitance_uf=3.9)
+    correction = Reading(
+        fitted_capacitor=fan_fitted_capacitor,
+        taken_at=theirs.taken_at,
+        method="meter",
+        capacitance_uf=3.95,
+        condition="sound",
+        supersedes=theirs,
+    )
+    with pytest.raises(ValidationError) as refused:
+        correction.full_clean()
+    assert refused.value.message_dict["supersedes"] == [f"Reading {theirs.id} is not a reading of this capacitor."]
+    correction.supersedes = make_reading(fan_fitted_capacitor, capacitance_uf=3.9)
+    correction.full_clean()
