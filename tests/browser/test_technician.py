@@ -139,6 +139,23 @@ def test_what_was_typed_survives_a_lost_connection(phone, motor_with_history):
     assert phone.input_value("#id_capacitance_uf") == ""
 
 
+def test_a_new_readings_draft_never_fills_a_correction(phone, motor_with_history):
+    """A new reading typed and left unsaved came back in the correction form of an old reading (its time
+    too), and saving it replaced that reading in the trend. Each form keeps its own draft."""
+    sign_in(phone, make_user("technician"))
+    url = f"/fitted-capacitors/{motor_with_history.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.71")
+    phone.fill("#id_notes", "new reading, not saved")
+    old = Reading.objects.filter(fitted_capacitor=motor_with_history).order_by("taken_at").first()
+    phone.goto(f"{url}?corrects={old.id}")
+    assert not phone.is_visible("#draft-note")
+    assert phone.input_value("#id_capacitance_uf") != "3.71"
+    assert phone.input_value("#id_notes") != "new reading, not saved"
+    phone.goto(url)  # the new reading's draft is still there to save
+    assert phone.is_visible("#draft-note") and phone.input_value("#id_capacitance_uf") == "3.71"
+
+
 MENU = r"""() => {
   const shown = [...document.querySelectorAll("header a, header summary, header button")].filter((e) =>
     e.checkVisibility({visibilityProperty: true, contentVisibilityAuto: true}));
