@@ -210,5 +210,23 @@ class ColumnMappingForm(forms.Form):
                 initial=initial_mapping.get(name, ""),
             )
 
+    def clean(self):
+        """One column holds one field: a column chosen twice (case temperature read as capacitance,
+        40 °C taken as 40 µF) is refused at each field but the first that names it."""
+        cleaned = super().clean()
+        first_field: dict[str, str] = {}
+        for name in self.fields:
+            column = cleaned.get(name)
+            if not column:
+                continue
+            if column in first_field:
+                self.add_error(
+                    name,
+                    f"The column {column!r} is already chosen for {first_field[column]}: one column holds one field.",
+                )
+            else:
+                first_field[column] = name
+        return cleaned
+
     def mapping(self) -> dict[str, str]:
         return {name: column for name, column in self.cleaned_data.items() if column}

@@ -296,6 +296,26 @@ def test_the_import_page_names_the_columns_it_does_not_read(client, technician, 
     assert "not imported (no field is read from it): <strong>case_temprature_c</strong>" in page
 
 
+def test_one_column_chosen_for_two_fields_is_refused_at_the_second(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """Case temperature chosen as the capacitance column too was checked: 40 °C became 40 µF."""
+    fleet_of(1)
+    client.force_login(technician)
+    upload = io.BytesIO(csv_of(good_rows(["IMP-0000"], 2)))
+    upload.name = "quarter.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get()
+    mapping = {name: name for name in HEADER} | {"capacitance_uf": "case_temperature_c"}
+    with django_capture_on_commit_callbacks(execute=True):
+        page = client.post(reverse("import_detail", args=[job.id]), {"action": "check", **mapping})
+    assert page.status_code == 200
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.UPLOADED
+    assert "already chosen for capacitance_uf: one column holds one field." in page.content.decode()
+
+
 def test_a_technician_cannot_import_a_register(client, technician):
     client.force_login(technician)
     upload = io.BytesIO(b"asset_tag,site_code\nX,Y\n")
