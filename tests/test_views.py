@@ -519,3 +519,35 @@ def test_work_orders_fold_each_visit_to_a_line_and_open_those_due(signed_in, tec
     assert "1 order, past its day" in summaries[0] and "1 order, today" in summaries[1]
     assert "2 orders" in summaries[2] and days[2].isoformat() in summaries[2]
     assert "never a screwdriver" in body and "Local codes" in body
+
+
+def test_a_capacitor_with_thousands_of_readings_sends_a_chart_a_phone_can_draw(signed_in, technician):
+    """200,000 readings of one capacitor (a data logger's file) made its page 17.5 MB: the trend chart drew
+    every one. It draws at most `CHART_READINGS_MAX` of them, spread over the history, the newest included."""
+    import json
+    import re
+
+    from fleet.models import Reading
+    from fleet.services.pages import CHART_READINGS_MAX
+
+    fitted_capacitor = make_fitted_capacitor(fitted_on=dt.date(2020, 1, 1))
+    start = timezone.make_aware(dt.datetime(2020, 2, 1, 9))
+    count = 3 * CHART_READINGS_MAX
+    Reading.objects.bulk_create(
+        Reading(
+            fitted_capacitor=fitted_capacitor,
+            taken_at=start + dt.timedelta(hours=12 * i),
+            method="meter",
+            capacitance_uf=4.0 - 0.0001 * i,
+            case_temperature_c=25.0,
+            source="demo",
+        )
+        for i in range(count)
+    )
+    refit_fitted_capacitors([fitted_capacitor.id])
+    page = signed_in(technician).get(reverse("fitted_capacitor", args=[fitted_capacitor.id])).content.decode()
+    figure = json.loads(re.search(r'<script id="trend-data" type="application/json">(.*?)</script>', page, re.S)[1])
+    drawn = [trace for trace in figure["data"] if trace.get("name", "").startswith("readings")][0]
+    assert len(drawn["x"]) <= CHART_READINGS_MAX
+    newest = (start + dt.timedelta(hours=12 * (count - 1))).date().isoformat()
+    assert drawn["x"][-1] == newest and drawn["x"][0] == start.date().isoformat()

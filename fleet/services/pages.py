@@ -140,11 +140,14 @@ def trend_chart(
         else assessment.tempco_ppm_per_k,
     )
     flagged = set(assessment.flagged_reading_ids)
+    last = readings[-1]["taken_at"]
+    shown = _chart_rows(frame["id"].to_numpy(np.int64), flagged)
+    readings = [readings[i] for i in shown]
+    corrected, reading_taus = np.asarray(corrected)[shown], np.asarray(reading_taus)[shown]
     points = [
         {"date": r["taken_at"].date().isoformat(), "capacitance_uf": round(float(c), 3), "flagged": r["id"] in flagged}
         for r, c in zip(readings, corrected, strict=True)
     ]
-    last = readings[-1]["taken_at"]
     future_days = np.linspace(0, horizon_days, 25)[1:]
     taus = list(reading_taus) + list(assessment.stress_hours_now + assessment.stress_rate * future_days * 24.0)
     dates = [r["taken_at"].date().isoformat() for r in readings] + [
@@ -166,6 +169,21 @@ def trend_chart(
         "high_uf": [round(float(v) * rated, 3) for v in high],
     }
     return trend_figure(points, path, assessment.limit_fraction * rated, assessment.limit_source, rated)
+
+
+CHART_READINGS_MAX = 400  # a phone draws this many readings quickly; quarterly readings take a century to reach it
+
+
+def _chart_rows(reading_ids: np.ndarray, flagged: set) -> np.ndarray:
+    """Which of a capacitor's readings (in time order) the trend chart draws: all of them up to
+    `CHART_READINGS_MAX`; beyond, that many spread evenly, the first and the newest, and every flagged
+    one, so a capacitor logged by a data logger does not send megabytes to a phone."""
+    n = len(reading_ids)
+    if n <= CHART_READINGS_MAX:
+        return np.arange(n)
+    spread = np.linspace(0, n - 1, CHART_READINGS_MAX).round().astype(int)
+    marked = np.flatnonzero(np.isin(reading_ids, list(flagged))) if flagged else np.array([], int)
+    return np.union1d(spread, marked)
 
 
 # Readings are quarterly [trade]; a motor not read for a quarter and two weeks more is overdue.
