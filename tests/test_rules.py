@@ -382,3 +382,26 @@ def test_a_nul_in_imported_notes_is_a_row_error_not_a_stuck_import(fan_fitted_ca
     result = import_check([import_row(fan_fitted_capacitor, notes="belt\x00squeals"), import_row(fan_fitted_capacitor)])
     assert [(row, field) for row, field, _ in result.errors] == [(2, "notes")]
     assert result.good["row"].tolist() == [3]
+
+
+def test_no_current_in_circuit_is_named_as_an_open_capacitor_or_a_misplaced_clamp():
+    """0 A through a capacitor with 330 V across it was answered "gives 0 must be above 0 µF" (common
+    practice of the trade, no single source: no current with voltage across it is an open circuit)."""
+    import numpy as np
+
+    from fleet.engineering.rules import check_readings
+
+    result = check_readings(
+        {"capacitor_current_a": ["0", "0.9"], "capacitor_voltage_v": ["330", "330"]},
+        method=np.array(["in_circuit", "in_circuit"], object),
+        rated_uf=8.0,
+        frequency_hz=50.0,
+        motor_voltage_v=230.0,
+        full_load_current_a=1.9,
+        fitted_on=np.datetime64("2025-01-01"),
+        removed_on=np.datetime64("NaT"),
+        taken_at=np.array(["2026-01-05T10:00"] * 2, "datetime64[ns]"),
+        now=np.datetime64("2026-02-01T00:00", "ns"),
+    )
+    assert result.errors["capacitor_current_a"][0].startswith("0 A with voltage across the capacitor: the clamp")
+    assert result.errors["capacitor_current_a"][1] == ""

@@ -605,7 +605,17 @@ def _check_readings(
     circuit_ok = in_circuit & ~errors.has("capacitor_current_a") & ~errors.has("capacitor_voltage_v")
     derived = range_messages("capacitance_uf", capacitance, rules)
     derived = np.where(derived != "", derived, capacitance_unit_slip(capacitance, rated))
-    errors.add("capacitor_current_a", circuit_ok & (derived != ""), "gives " + derived.astype(str))
+    # No current through a capacitor with voltage across it: an open capacitor (or the clamp on the wrong
+    # lead), not a capacitance of 0 µF (common practice of the trade, no single source).
+    no_current = circuit_ok & (current == 0) & (voltage > 0)
+    errors.add(
+        "capacitor_current_a",
+        no_current,
+        "0 A with voltage across the capacitor: the clamp is not on the capacitor's lead, or the capacitor "
+        "is open (isolate and discharge it and read it with the meter: an open capacitor reads near 0 µF)",
+    )
+    words = "gives a capacitance of " + derived.astype(str)
+    errors.add("capacitor_current_a", circuit_ok & ~no_current & (derived != ""), words)
     values["capacitance_uf"] = np.where(np.isfinite(capacitance), capacitance, np.nan)
 
     for name in ("capacitor_voltage_v", "line_voltage_v"):
