@@ -272,3 +272,13 @@ def test_losing_the_database_connection_mid_insert_leaves_nothing_half_in():
     assert job.state == ImportJob.State.FAILED, job.message
     assert "database connection" in job.message
     assert Motor.objects.count() == 0 and FittedCapacitor.objects.count() == 0
+
+
+def test_a_file_in_another_encoding_is_refused_naming_its_line():
+    """A Latin-1 file was refused as "not UTF-8 text (byte 118)", a UTF-16 one as "(byte 0)": no line a
+    spreadsheet user could find."""
+    latin = "asset_tag,role,notes\nFAN-1,run,ok\nFAN-1,run,tamb\u00e9 caliente\n".encode("latin-1")
+    with pytest.raises(FileRefused, match=r"not UTF-8 text: line 3, after 'FAN-1,run,tamb', byte 0xE9"):
+        read_table(latin, "r.csv")
+    with pytest.raises(FileRefused, match=r"UTF-16 text"):
+        read_table("asset_tag,role\nFAN-1,run\n".encode("utf-16"), "r.csv")

@@ -101,6 +101,20 @@ def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]
     return header, body
 
 
+def _not_utf8(content: bytes, start: int) -> str:
+    """Where a file stops being UTF-8, in words a spreadsheet user can find: its line and the
+    character there (a UTF-16 file, as some spreadsheets save "Unicode text", is named as such)."""
+    if content[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        return 'The file is UTF-16 text ("Unicode text"). Save it as CSV UTF-8.'
+    line = content.count(b"\n", 0, start) + 1
+    row_start = content.rfind(b"\n", 0, start) + 1
+    before = content[row_start:start].decode("utf-8", "replace")[-20:]
+    return (
+        f"The file is not UTF-8 text: line {line}, after {before!r}, byte 0x{content[start]:02X} "
+        "(a letter saved in another encoding). Save it as CSV UTF-8."
+    )
+
+
 def csv_delimiter(first_line: str) -> str:
     """Comma, semicolon (where the decimal mark is a comma) or tab: whichever the header line holds most of."""
     return max((",", ";", "\t"), key=first_line.count)
@@ -110,7 +124,7 @@ def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]
     try:
         text = content.decode("utf-8-sig")
     except UnicodeDecodeError as error:
-        raise FileRefused(f"The file is not UTF-8 text (byte {error.start}). Save it as CSV UTF-8.") from error
+        raise FileRefused(_not_utf8(content, error.start)) from error
     end_of_header = text.find("\n")
     delimiter = csv_delimiter(text[: end_of_header if end_of_header >= 0 else len(text)])
     fast = _read_csv_columns(content, text, delimiter, limits)
