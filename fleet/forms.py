@@ -12,7 +12,7 @@ from django.utils import timezone
 from fleet.imports.columns import parse_times
 
 from .engineering.rules import RULES
-from .models import CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
+from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
 
 # The phone's date-and-time picker sends minutes: "2026-03-14T09:30" (wall-clock time at the site).
 LOCAL_MINUTE = "%Y-%m-%dT%H:%M"
@@ -120,7 +120,12 @@ class ReplacementForm(forms.Form):
             "required": "Choose why the old capacitor came out: failed in service, replaced on plan, or other."
         },
     )
-    notes = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 2}))
+    notes = forms.CharField(
+        required=False,
+        widget=forms.Textarea(attrs={"rows": 2}),
+        max_length=NOTES_MAX_CHARS,
+        error_messages={"max_length": f"Notes take at most {NOTES_MAX_CHARS} characters (a reading's do too)."},
+    )
     substitute_override = forms.BooleanField(
         required=False, label="Fit this part against the advice (marginal or unsuitable here)"
     )
@@ -129,6 +134,8 @@ class ReplacementForm(forms.Form):
         label="Why, for the engineer",
         widget=forms.Textarea(attrs={"rows": 2}),
         help_text="Required with the override; kept on the new capacitor's record.",
+        max_length=NOTES_MAX_CHARS,
+        error_messages={"max_length": f"The reason takes at most {NOTES_MAX_CHARS} characters."},
     )
 
     def __init__(self, *args, fitted_capacitor: FittedCapacitor, design: CapacitorPart, **kwargs):

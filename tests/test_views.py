@@ -119,6 +119,20 @@ def test_a_replacement_without_a_reason_says_what_to_choose(signed_in, technicia
     assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1  # nothing saved
 
 
+def test_replacement_notes_are_bounded_like_a_readings(signed_in, technician, fan_fitted_capacitor):
+    """The replacement form took 200,000 characters of notes; a reading's stop at 2,000."""
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
+    form = {
+        "part": fan_fitted_capacitor.part_id,
+        "removed_on": timezone.localdate().isoformat(),
+        "removal_reason": "failed",
+        "notes": "x" * 2001,
+    }
+    page = signed_in(technician).post(url, form).content.decode()
+    assert "Notes take at most 2000 characters" in page
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1  # nothing saved
+
+
 def test_a_serial_longer_than_the_register_holds_is_named_and_nothing_is_saved(
     signed_in, technician, fan_fitted_capacitor
 ):
