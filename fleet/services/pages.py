@@ -58,6 +58,18 @@ def motor_with_capacitors(asset_tag: str):
     )
 
 
+def label_motors(site, tag: str | None = None):
+    """The site's motors in walking order (or the one with `tag`), each with its capacitors in service
+    and their parts (`in_service`), as the labels print them: one query more, whatever the page's size."""
+    capacitors = FittedCapacitor.objects.filter(removed_on__isnull=True).select_related("part").order_by("role", "id")
+    motors = (
+        Motor.objects.filter(site=site)
+        .prefetch_related(Prefetch("capacitors", queryset=capacitors, to_attr="in_service"))
+        .order_by("route_order", "asset_tag")
+    )
+    return motors.filter(asset_tag=tag) if tag else motors
+
+
 FIND_LIMIT = 50
 
 
