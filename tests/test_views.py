@@ -2,6 +2,7 @@
 
 import datetime as dt
 import html
+import re
 
 import pytest
 from django.urls import reverse
@@ -16,6 +17,7 @@ from tests.factories import (
     make_reading,
     make_site,
     quarterly_readings,
+    stored_assessment,
 )
 
 pytestmark = pytest.mark.django_db
@@ -272,6 +274,21 @@ def test_labels_and_motor_page_name_the_motor_type_and_each_capacitors_own_ratin
     assert f'class="back" href="{reverse("route", args=["LBL"])}"' in every
     motor_page = text(reverse("motor", args=["LBL-0001"]))
     assert "Two-value capacitor motor</b>" in motor_page and "230 V 50 Hz supply" in motor_page
+
+
+def test_home_links_the_plan_that_lists_every_replacement_it_cuts_short(signed_in, planner):
+    """ "The first 15 of 16 ...; the replacement plan lists them all" was plain text: it links the plan of
+    the same 30 days, which lists all 16."""
+    part = make_part()
+    for n in range(16):
+        stored_assessment(make_fitted_capacitor(part=part), "due soon", timezone.localdate() + dt.timedelta(days=n))
+    client = signed_in(planner)
+    home = client.get(reverse("home")).content.decode()
+    assert "The first 15 of 16" in home
+    link = re.search(r'<a href="([^"]+)">replacement plan of the next 30 days</a> lists them all', home)
+    assert link, home
+    listed = client.get(html.unescape(link.group(1)))
+    assert listed.context["horizon"] == 30 and listed.context["page"].paginator.count == 16
 
 
 def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, django_assert_max_num_queries):
