@@ -95,6 +95,7 @@ TEMPLATES = [
                 "django.contrib.auth.context_processors.auth",
                 "django.contrib.messages.context_processors.messages",
                 "fleet.context.roles",
+                "fleet.context.cautions_fold_key",
             ],
             # Numbers, dates and units for people, in every template without a {% load %}.
             "builtins": ["fleet.templatetags.fleet_format", "fleet.templatetags.fleet_rows"],

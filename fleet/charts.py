@@ -391,7 +391,7 @@ def risk_mix_figure(sites: list[str], levels: list[str], counts: dict) -> dict:
     figure.update_yaxes(autorange="reversed")
     totals = [sum(counts[s].values()) for s in sites]
     figure.update_xaxes(tick0=0, dtick=_whole_step(max(totals, default=0)))
-    return _top_legend(_styled(figure, height=_rows_height(len(sites)), xaxis_title="motors in service"))
+    return _top_legend(_styled(figure, height=_rows_height(len(sites)), xaxis_title="capacitors in service"))
 
 
 def _rows_height(rows: int) -> int:

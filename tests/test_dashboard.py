@@ -159,6 +159,26 @@ def test_risk_mix_and_readings_by_route():
     assert (route["overdue"], route["due"], route["read"]) == (1, 2, 1)
 
 
+def test_the_risk_mix_says_it_counts_capacitors_on_the_chart_page_and_download(client):
+    """The chart was titled "motors in service" while it counts capacitors: a two-value motor carries a
+    start and a run capacitor [trade], each assessed on its own, so one motor counts twice."""
+    site = make_site(code="TWO")
+    motor = make_motor(site=site, with_circuit=False, motor_type="two_value")
+    run = make_fitted_capacitor(motor=motor, part=make_part(), role="run")
+    start = make_fitted_capacitor(motor=motor, part=make_part(rated_uf=100, dielectric="electrolytic"), role="start")
+    stored_assessment(run, "watch", None)
+    stored_assessment(start, "replace now", TODAY)
+    client.force_login(make_user(PLANNER))
+    response = client.get(reverse("dashboard"))
+    assert response.context["mix_chart"]["layout"]["xaxis"]["title"]["text"] == "capacitors in service"
+    assert "Capacitors in service at each site by risk level" in response.content.decode()
+    text = b"".join(client.get(reverse("dashboard_csv", args=["risk-mix"])).streaming_content).decode("utf-8-sig")
+    rows = [line.split(",") for line in text.splitlines()]
+    assert rows[0][-1] == "capacitors_in_service"
+    two = dict(zip(rows[0], next(row for row in rows if row[0] == "TWO"), strict=True))
+    assert (two["watch"], two["replace_now"], two["capacitors_in_service"]) == ("1", "1", "2")
+
+
 def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_moved(client):
     fitted_capacitor = make_fitted_capacitor()
     make_reading(fitted_capacitor, taken_at=timezone.now() - dt.timedelta(days=2))

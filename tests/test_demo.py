@@ -1,6 +1,7 @@
 """The demo command builds its invented scenario once and analyses it."""
 
 import datetime as dt
+import re
 
 import pytest
 from django.core.management import call_command
@@ -18,6 +19,11 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     out = capsys.readouterr().out
     assert "Built the demo fleet" in out and "tech" in out and "planner" in out
     assert f"{first[2]} readings" in out  # the count printed is the count stored
+    # So are the work orders of each state, counted once the demo is built (issuing visits and the
+    # replacement on the visit under way move orders on after they were planned).
+    printed = {state: int(n) for n, state in re.findall(r"(\d+) (done|issued|planned)\b", out.split("work orders:")[1])}
+    stored = {state: WorkOrder.objects.filter(state=state).count() for state in ("done", "issued", "planned")}
+    assert printed == stored, (printed, stored)
     assert first[0] > 5 and first[2] > 50
     assert Assessment.objects.filter(is_current=True).exists()
     assert (

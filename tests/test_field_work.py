@@ -6,11 +6,14 @@ import datetime as dt
 import zoneinfo
 
 import pytest
+from django.db import connection
+from django.test.utils import CaptureQueriesContext
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import strip_tags
 
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
+from fleet.services import pages
 from fleet.templatetags.fleet_format import day, verdict_and_risk
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, stored_assessment
 
@@ -121,6 +124,48 @@ def test_a_motor_is_found_by_part_of_its_tag_or_by_words_of_its_place(client, te
     assert client.get(find, {"tag": "grader"})["Location"] == reverse("motor", args=["PKH-0930"])
     none = client.get(find, {"tag": "boiler"})
     assert "matches &#x27;boiler&#x27;" in none.content.decode()
+
+
+@pytest.mark.parametrize(
+    "typed", ["CST 0093", "cst 0093", " CST  0093 ", "CST_0093", "cst.0093", "CST/0093", "CST - 0093", "CST-0093"]
+)
+def test_a_tag_is_found_whatever_separator_is_typed_between_its_parts(client, technician, typed):
+    """ "CST 0093" (a space where the label has a hyphen) found nothing while "cst-0093" and "0093" did:
+    a space, '-', '_', '.' and '/' between a tag's parts are read alike, in any case."""
+    site = make_site(code="CST", name="Cool store")
+    make_motor(site=site, asset_tag="CST-0093", location="Condensing unit 3")
+    make_motor(site=site, asset_tag="CST-0094", location="Condensing unit 4")
+    make_motor(site=site, asset_tag="CST-00931", location="Condensing unit 31")
+    client.force_login(technician)
+    assert client.get(reverse("find"), {"tag": typed})["Location"] == reverse("motor", args=["CST-0093"])
+
+
+def test_a_tag_with_underscores_or_dots_is_found_by_a_space_and_in_part(client, technician):
+    site = make_site(code="GH2", name="Glasshouse 2")
+    make_motor(site=site, asset_tag="GH2_F.017", location="Bay 1")
+    make_motor(site=site, asset_tag="GH2_F.018", location="Bay 2")
+    client.force_login(technician)
+    find = reverse("find")
+    for typed in ("gh2 f 017", "GH2-F-017", "gh2 f.017", "f 017"):
+        assert client.get(find, {"tag": typed})["Location"] == reverse("motor", args=["GH2_F.017"]), typed
+    both = client.get(find, {"tag": "gh2 f 01"})
+    assert [m.asset_tag for m in both.context["matches"]] == ["GH2_F.017", "GH2_F.018"]
+
+
+def test_a_whole_tag_typed_with_a_space_is_looked_up_by_the_tag_index():
+    """The usual look-up stays cheap at 100,000 motors: a whole tag, however its separators were typed,
+    is found by the index on the tags' capitals, not by reading every tag. PostgreSQL is told not to
+    scan the table so that the plan shows whether the index can serve the look-up at all."""
+    make_motor(site=make_site(code="CST"), asset_tag="CST-0093")
+    with CaptureQueriesContext(connection) as queries:
+        found, _, _ = pages.find_motors("cst 0093")
+    assert found.asset_tag == "CST-0093" and len(queries.captured_queries) == 1
+    with connection.cursor() as cursor:
+        if connection.vendor == "postgresql":
+            cursor.execute("SET LOCAL enable_seqscan = off")
+        cursor.execute(("EXPLAIN " if connection.vendor == "postgresql" else "EXPLAIN QUERY PLAN ") + queries[0]["sql"])
+        plan = str(cursor.fetchall())
+    assert "motor_tag_any_case" in plan, plan
 
 
 def test_finding_keeps_to_the_users_sites_and_takes_constant_queries(client, django_assert_max_num_queries):

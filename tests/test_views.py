@@ -1,6 +1,8 @@
 """Pages: login everywhere, roles enforced, the technician's forms keep what was typed."""
 
 import datetime as dt
+import html
+import re
 
 import pytest
 from django.urls import reverse
@@ -15,6 +17,7 @@ from tests.factories import (
     make_reading,
     make_site,
     quarterly_readings,
+    stored_assessment,
 )
 
 pytestmark = pytest.mark.django_db
@@ -248,6 +251,58 @@ def test_labels_for_a_tag_not_at_the_site_say_so(signed_in, technician, fan_fitt
     assert "No motor has the tag <b>NOPE</b> at" in body
     body = signed_in(technician).get(reverse("labels", args=[site]), {"tag": fan_fitted_capacitor.motor.asset_tag})
     assert "No motor has the tag" not in body.content.decode()
+
+
+def test_labels_and_motor_page_name_the_motor_type_and_each_capacitors_own_rating(signed_in, technician):
+    """ "Two-value capacitor, 230 V" on a label read as the capacitor's rating (the run capacitor is 450 V):
+    the type is the motor's, the voltage its supply's, and each capacitor in service is named with its
+    part, capacitance and rated voltage. Run capacitors on 230 V motors are rated 400-450 V [trade]."""
+    site = make_site(code="LBL")
+    motor = make_motor(site=site, with_circuit=False, motor_type="two_value", asset_tag="LBL-0001")
+    run = make_fitted_capacitor(motor=motor, part=make_part(code="RUN-8-450", rated_uf=8, rated_voltage_v=450))
+    start = make_part(code="START-100-250", rated_uf=100, rated_voltage_v=250, dielectric="electrolytic")
+    make_fitted_capacitor(motor=motor, part=start, role="start")
+    removed = make_part(code="OLD-6-400", rated_uf=6, rated_voltage_v=400)
+    make_fitted_capacitor(
+        motor=motor,
+        part=removed,
+        fitted_on=dt.date(2020, 1, 1),
+        removed_on=dt.date(2021, 12, 31),
+        removal_reason="failed",
+    )
+    assert run.removed_on is None
+    client = signed_in(technician)
+
+    def text(url, **query):
+        return html.unescape(client.get(url, query).content.decode()).replace("\xa0", " ")
+
+    for body in (text(reverse("labels", args=["LBL"])), text(reverse("labels", args=["LBL"]), tag="LBL-0001")):
+        assert "Two-value capacitor motor, 230 V supply" in body
+        assert "Two-value capacitor, 230 V" not in body
+        assert "Run capacitor RUN-8-450: 8 µF, 450 V" in body
+        assert "Start capacitor START-100-250: 100 µF, 250 V" in body
+        assert "OLD-6-400" not in body  # removed: no longer on the motor
+    single = client.get(reverse("labels", args=["LBL"]), {"tag": "LBL-0001"}).content.decode()
+    assert f'class="back" href="{reverse("motor", args=["LBL-0001"])}"' in single
+    every = client.get(reverse("labels", args=["LBL"])).content.decode()
+    assert f'class="back" href="{reverse("route", args=["LBL"])}"' in every
+    motor_page = text(reverse("motor", args=["LBL-0001"]))
+    assert "Two-value capacitor motor</b>" in motor_page and "230 V 50 Hz supply" in motor_page
+
+
+def test_home_links_the_plan_that_lists_every_replacement_it_cuts_short(signed_in, planner):
+    """ "The first 15 of 16 ...; the replacement plan lists them all" was plain text: it links the plan of
+    the same 30 days, which lists all 16."""
+    part = make_part()
+    for n in range(16):
+        stored_assessment(make_fitted_capacitor(part=part), "due soon", timezone.localdate() + dt.timedelta(days=n))
+    client = signed_in(planner)
+    home = client.get(reverse("home")).content.decode()
+    assert "The first 15 of 16" in home
+    link = re.search(r'<a href="([^"]+)">replacement plan of the next 30 days</a> lists them all', home)
+    assert link, home
+    listed = client.get(html.unescape(link.group(1)))
+    assert listed.context["horizon"] == 30 and listed.context["page"].paginator.count == 16
 
 
 def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, django_assert_max_num_queries):

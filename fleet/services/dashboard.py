@@ -446,8 +446,12 @@ def dashboard_table(name: str, user=None, today: dt.date | None = None) -> tuple
         return header, rows
     if name == "risk-mix":
         data = risk_mix(user)
-        header = ["site", *map(column_heading, data["levels"])]
-        return header, [[site, *(data["counts"][site][level] for level in data["levels"])] for site in data["sites"]]
+        # Counts of capacitors (a two-value motor has two), not of motors: the last column says so.
+        header = ["site", *map(column_heading, data["levels"]), "capacitors_in_service"]
+        return header, [
+            [site, *(data["counts"][site][level] for level in data["levels"]), sum(data["counts"][site].values())]
+            for site in data["sites"]
+        ]
     if name == "readings":
         data = readings_by_route(user, today)
         header = ["site", "site_name", "overdue", "due_this_quarter", "read_this_quarter"]

@@ -442,7 +442,7 @@ def build_assessment_history(*, weeks: int = HISTORY_WEEKS, now: dt.datetime | N
     return written
 
 
-def build_work_orders(*, today: dt.date | None = None) -> dict:
+def build_work_orders(*, today: dt.date | None = None) -> None:
     """Work orders as a running plant has them: done ones for the recent planned replacements, the
     plan's orders bundled into visits, the first visit at each site issued, and one visit under
     way (one replacement on it already recorded). Also the spares each site holds."""
@@ -468,13 +468,12 @@ def build_work_orders(*, today: dt.date | None = None) -> dict:
             for c in recent
         ]
     )
-    counts = plan_work_orders(horizon_days=90, user=planner, today=today)
-    issued = 0
+    plan_work_orders(horizon_days=90, user=planner, today=today)
     first_visits = {}
     for visit in open_visits_page(1, per_page=1000).object_list:
         first_visits.setdefault(visit["site"].id, visit)
     for site_id, visit in first_visits.items():
-        issued += issue_visit(site_id=site_id, due_on=visit["day"], user=planner)
+        issue_visit(site_id=site_id, due_on=visit["day"], user=planner)
     under_way = next(iter(first_visits.values()), None)
     if under_way is not None:
         order = next(o for o in under_way["orders"] if o.fitted_capacitor_id)
@@ -487,7 +486,12 @@ def build_work_orders(*, today: dt.date | None = None) -> dict:
             serial="on the visit",
         )
     _demo_stock()
-    return {"done": len(recent), "planned": counts["created"], "issued": issued}
+
+
+def work_orders_by_state() -> dict[str, int]:
+    """How many work orders the database holds in each state (every state, zero included)."""
+    held = dict(WorkOrder.objects.order_by().values_list("state").annotate(n=models.Count("id")))
+    return {state: held.get(state, 0) for state in WorkOrder.State.values}
 
 
 def _demo_stock() -> None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import re
 
 import numpy as np
 import pandas as pd
@@ -18,6 +19,7 @@ from django.db.models import (
     Value,
     When,
 )
+from django.db.models.functions import Replace, Upper
 from django.utils import timezone
 
 from fleet.charts import trend_figure
@@ -58,25 +60,70 @@ def motor_with_capacitors(asset_tag: str):
     )
 
 
+def label_motors(site, tag: str | None = None):
+    """The site's motors in walking order (or the one with `tag`), each with its capacitors in service
+    and their parts (`in_service`), as the labels print them: one query more, whatever the page's size."""
+    capacitors = FittedCapacitor.objects.filter(removed_on__isnull=True).select_related("part").order_by("role", "id")
+    motors = (
+        Motor.objects.filter(site=site)
+        .prefetch_related(Prefetch("capacitors", queryset=capacitors, to_attr="in_service"))
+        .order_by("route_order", "asset_tag")
+    )
+    return motors.filter(asset_tag=tag) if tag else motors
+
+
 FIND_LIMIT = 50
+# What a technician may type between the parts of a tag: a space, or any separator a tag may hold
+# ('-', '_', '.': CODE_PATTERN) or a label's print might suggest ('/'). All read alike, as '-'.
+TAG_SEPARATORS = re.compile(r"[\s._/-]+")
+
+
+def tag_key(text: str) -> str:
+    """A tag as typed, in capitals with each run of separators as one '-': "cst 0093" -> "CST-0093"."""
+    return TAG_SEPARATORS.sub("-", text.strip()).upper()
+
+
+def _stored_tag_key():
+    """`tag_key` of the stored tag, in SQL: a tag holds no space or '/' and its separators come singly
+    as typed on the register, so capitals with '_' and '.' as '-' are its key."""
+    return Replace(Replace(Upper("asset_tag"), Value("_"), Value("-")), Value("."), Value("-"))
 
 
 def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
-    """Motors a technician's words point to: (the motor whose tag is exactly `text` or the only match,
-    the matches shown (at most FIND_LIMIT), how many matched).
+    """Motors a technician's words point to: (the motor whose tag is `text` or the only match, the
+    matches shown (at most FIND_LIMIT), how many matched).
 
-    A tag matches in part ("0093" finds CST-0093); otherwise every word must appear in the motor's
-    location or its site's name ("cool store condensing"). Two queries, whatever the fleet's size.
+    Tags match ignoring case, with a space, '-', '_', '.' and '/' read alike ("CST 0093", "cst_0093"
+    and "CST-0093" find CST-0093), whole or in part ("0093", "cst 009"); otherwise every word must
+    appear in the motor's location or its site's name ("cool store condensing"). Two queries, whatever
+    the fleet's size. The whole tag is looked up by the index on its capitals (`motor_tag_any_case`):
+    the text as typed, and its key with each separator a tag may hold ("CST-0093", "CST_0093",
+    "CST.0093"), so the usual look-up stays an index probe at 100,000 motors. Only when that finds
+    nothing are the keys compared, in part, with `_stored_tag_key`: a scan of the tags, as the
+    part-of-a-tag search always was (a LIKE '%...%' no b-tree serves).
     """
     text = " ".join(text.split())
+    if not text:
+        return None, [], 0
     motors = scope_to_user(Motor.objects.select_related("site"), user)
-    exact = motors.filter(asset_tag__iexact=text).first()
-    if exact is not None or not text:
-        return exact, [], int(exact is not None)
+    key = tag_key(text)
+    whole = {text.upper(), key, key.replace("-", "_"), key.replace("-", ".")}
+    exact = list(
+        motors.annotate(tag_upper=Upper("asset_tag"))
+        .filter(tag_upper__in=whole)
+        .order_by("asset_tag")[: len(whole) + 1]
+    )
+    as_typed = [motor for motor in exact if motor.tag_upper == text.upper()]
+    if len(exact) == 1 or len(as_typed) == 1:
+        return (as_typed or exact)[0], [], 1
     words = Q()
     for word in text.split(" "):
         words &= Q(location__icontains=word) | Q(site__name__icontains=word) | Q(site__code__iexact=word)
-    matches = list(motors.filter(Q(asset_tag__icontains=text) | words).order_by("asset_tag")[: FIND_LIMIT + 1])
+    matches = list(
+        motors.annotate(tag_key=_stored_tag_key())
+        .filter(Q(tag_key__contains=key) | words)
+        .order_by("asset_tag")[: FIND_LIMIT + 1]
+    )
     if len(matches) == 1:
         return matches[0], matches, 1
     return None, matches[:FIND_LIMIT], len(matches)

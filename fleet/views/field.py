@@ -232,12 +232,8 @@ def _qr_svg(request, motor: Motor) -> str:
 @permission_required("fleet.view_motor", raise_exception=True)
 def labels(request, site_code):
     site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
-    motors = Motor.objects.filter(site=site).order_by("route_order", "asset_tag")
-    values = page_values(LabelsPage, request)
-    tag = values.get("tag")
-    if tag:
-        motors = motors.filter(asset_tag=tag)
-    page = list_page(request, Paginator(motors, LABELS_PAGE_SIZE).get_page)
+    tag = page_values(LabelsPage, request).get("tag")
+    page = list_page(request, Paginator(pages.label_motors(site, tag), LABELS_PAGE_SIZE).get_page)
     labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
     return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page, "tag": tag})
 

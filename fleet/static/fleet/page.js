@@ -6,16 +6,33 @@
     summary.scrollIntoView({ block: "start" });
     summary.focus({ preventScroll: true });
   }
-  // The cautions stay on every page that sends someone to a motor; folded once read, they stay
-  // folded for the rest of this session (the heading still shows), and open again to print.
+  // The cautions stay on every page that sends someone to a motor. Folded once read, they stay
+  // folded in this tab for the rest of this sign-in only: the fold is kept under the key of the
+  // user's present sign-in (a meta tag the server fills; empty when signed out), and every fold
+  // kept under another key (another user, an earlier sign-in) is dropped, as are all of them on
+  // Sign out. The heading and the capacitor's stored energy stay in view; printed, they open.
   const FOLDED = "cautions-folded";
-  const cautions = document.querySelectorAll("details[data-cautions]");
+  const signIn = (document.querySelector('meta[name="cautions-fold-key"]') || {}).content || "";
+  const mine = signIn ? `${FOLDED}:${signIn}` : "";
+  const forgetFolds = (keep) => {
+    try {
+      for (let k = sessionStorage.length - 1; k >= 0; k -= 1) {
+        const key = sessionStorage.key(k);
+        if (key && key.startsWith(FOLDED) && key !== keep) sessionStorage.removeItem(key);
+      }
+    } catch (error) { /* storage off */ }
+  };
+  forgetFolds(mine);
+  document.querySelectorAll("form[data-sign-out]").forEach((form) => {
+    form.addEventListener("submit", () => forgetFolds(""));
+  });
   let folded = false;
-  try { folded = sessionStorage.getItem(FOLDED) === "1"; } catch (error) { /* storage off */ }
-  cautions.forEach((box) => {
+  try { folded = Boolean(mine) && sessionStorage.getItem(mine) === "1"; } catch (error) { /* storage off */ }
+  document.querySelectorAll("details[data-cautions]").forEach((box) => {
     if (folded) box.open = false;
     box.addEventListener("toggle", () => {
-      try { sessionStorage.setItem(FOLDED, box.open ? "0" : "1"); } catch (error) { /* storage off */ }
+      if (!mine) return;
+      try { sessionStorage.setItem(mine, box.open ? "0" : "1"); } catch (error) { /* storage off */ }
     });
   });
   // Charts: each box names the JSON of its figure (data-figure). Plotly's own resize leaves a

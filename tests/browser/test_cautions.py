@@ -1,0 +1,69 @@
+"""The electrical-safety cautions: folded only by the person who folded them, in that sign-in."""
+
+import pytest
+
+from tests.factories import make_fitted_capacitor, make_user
+
+pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
+
+CAUTIONS = "details[data-cautions]"
+# [trade] lockout, discharge through a rated tool and a check for zero before touching: the body of the cautions
+LOCKOUT = "text=never a screwdriver"
+
+
+def sign_in(page, user):
+    """Sign in from the login page and wait until the sign-in has landed (the login page's own URL ends in
+    a slash too, so waiting for "**/" can return before the new session exists)."""
+    page.goto("/login/")
+    page.fill("#id_username", user.username)
+    page.fill("#id_password", "a-long-test-password")
+    page.click("main button[type=submit]")  # not the header's Sign out, there while signed in
+    page.wait_for_url(lambda url: "/login/" not in url)
+
+
+def sign_out(page):
+    page.click("form[data-sign-out] button")
+    page.wait_for_url("**/login/**")
+
+
+def test_cautions_folded_by_one_user_are_open_for_the_next_one_in_the_same_tab(phone):
+    """A technician folded the cautions on a reading page, signed out, and an engineer signing in on the
+    same tab found the motor page's cautions folded: the fold was kept for the tab, not the person."""
+    fitted_capacitor = make_fitted_capacitor()
+    technician, engineer = make_user("technician"), make_user("reliability engineer")
+    sign_in(phone, technician)
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.click(f"{CAUTIONS} > summary")
+    assert phone.locator(CAUTIONS).get_attribute("open") is None
+    # The capacitor in hand's stored energy stays in view, folded.
+    assert phone.is_visible("[data-stored-energy]") and not phone.is_visible(LOCKOUT)
+    assert "can hold about" in phone.inner_text("[data-stored-energy]")
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    assert phone.locator(CAUTIONS).get_attribute("open") is None  # folded for the rest of this sign-in
+    phone.shot("cautions-folded-energy-shown")
+
+    sign_out(phone)
+    sign_in(phone, engineer)
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    assert phone.locator(CAUTIONS).get_attribute("open") is not None
+    assert phone.is_visible(LOCKOUT)
+
+    # The same person signing in again reads them afresh too.
+    sign_out(phone)
+    sign_in(phone, technician)
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    assert phone.locator(CAUTIONS).get_attribute("open") is not None
+    assert phone.is_visible(LOCKOUT)
+
+
+def test_a_fold_is_not_carried_to_a_sign_in_that_never_signed_out_here(phone):
+    """Another user signing in (in another tab of the same browser, say) makes a new sign-in: the fold
+    the first user left in this tab does not apply to it."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    phone.click(f"{CAUTIONS} > summary")
+    sign_in(phone, make_user("planner"))  # the login page, straight over the first sign-in
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    assert phone.locator(CAUTIONS).get_attribute("open") is not None
+    assert phone.is_visible(LOCKOUT)
