@@ -610,6 +610,19 @@ class Reading(models.Model):
     def __str__(self):
         return f"{self.fitted_capacitor} {self.taken_at:%Y-%m-%d} {self.capacitance_uf:.2f} µF"
 
+    def clean(self):
+        """A correction replaces a reading of the same capacitor (the form's and the API's rule,
+        `readings.reading_to_correct`): in the admin, one of another capacitor's readings was taken
+        out of that capacitor's trend without a word."""
+        super().clean()
+        corrected = self.supersedes
+        if (
+            corrected is not None
+            and self.fitted_capacitor_id
+            and corrected.fitted_capacitor_id != self.fitted_capacitor_id
+        ):
+            raise ValidationError({"supersedes": f"Reading {corrected.id} is not a reading of this capacitor."})
+
 
 def choices_of(name: str, values) -> type[models.TextChoices]:
     """TextChoices over a fixed set of the core's names, each its own label with a capital."""
