@@ -17,7 +17,8 @@ from rest_framework.pagination import CursorPagination, PageNumberPagination
 from rest_framework.response import Response
 
 from .filters import AssessmentFilter, ReadingFilter
-from .models import Assessment, FittedCapacitor, Reading
+from .imports.columns import parse_site_time
+from .models import Assessment, FittedCapacitor, Reading, site_zone
 from .roles import scope_to_user
 from .services.bulk import storable_ids
 from .services.counts import assessed_total
@@ -38,7 +39,7 @@ class ModelPermissionsWithView(permissions.DjangoModelPermissions):
 
 def fitted_capacitor_or_not_found(request, pk) -> FittedCapacitor:
     """The fitted capacitor `pk` at the requesting user's sites, or a 404 saying so in plain words."""
-    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), request.user)
+    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor__site", "part"), request.user)
     found = capacitors.filter(pk__in=storable_ids([pk])).first()
     if found is None:
         raise NotFound(f"No fitted capacitor {pk} at the sites you work at.")
@@ -132,7 +133,22 @@ class AsSent(serializers.Field):
         return value
 
 
+class SiteTime(serializers.DateTimeField):
+    """A reading's time as the form and the import read it (`parse_site_time`): without an offset it is
+    wall-clock time at the capacitor's site (the serializer's `time_zone`); a time the clocks skip or
+    repeat there is refused with the site's offsets; a date alone is refused."""
+
+    def to_internal_value(self, value):
+        if not isinstance(value, str):
+            raise serializers.ValidationError("Send the time as text: 2026-03-14T09:30 (site time), or with an offset.")
+        try:
+            return parse_site_time(value, self.context["time_zone"])
+        except ValueError as error:
+            raise serializers.ValidationError(str(error)) from None
+
+
 class ReadingSerializer(serializers.ModelSerializer):
+    taken_at = SiteTime(required=False)
     confirmed = serializers.BooleanField(write_only=True, required=False, default=False)
     # Id of the reading this one corrects (same capacitor, not corrected before); both are kept.
     supersedes = serializers.IntegerField(source="supersedes_id", required=False, allow_null=True, min_value=1)
@@ -222,7 +238,11 @@ class FittedCapacitorReadings(generics.ListCreateAPIView):
         return Reading.objects.filter(fitted_capacitor=self.fitted_capacitor()).order_by("taken_at", "id")
 
     def create(self, request, *args, **kwargs):
-        serializer = self.get_serializer(data=request.data)
+        fitted_capacitor = self.fitted_capacitor()
+        zone = site_zone(fitted_capacitor.motor.site.time_zone).key
+        serializer = self.get_serializer_class()(
+            data=request.data, context={**self.get_serializer_context(), "time_zone": zone}
+        )
         serializer.is_valid(raise_exception=True)
         values = dict(serializer.validated_data)
         confirmed = values.pop("confirmed", False)
@@ -232,7 +252,7 @@ class FittedCapacitorReadings(generics.ListCreateAPIView):
             return Response({"Idempotency-Key": ["At most 64 characters, no NUL."]}, status=status.HTTP_400_BAD_REQUEST)
         try:
             reading = record_reading(
-                fitted_capacitor=self.fitted_capacitor(),
+                fitted_capacitor=fitted_capacitor,
                 values=values,
                 user=request.user,
                 confirmed=confirmed,

@@ -1,0 +1,108 @@
+"""Inputs the careful tester found read differently (or not at all) at the API, the exports and the
+imports: reading times, dates at the edges of what pandas and Python hold, JSON bodies, unknown
+parameters. Each is answered as the form and the other entries answer it: by name, never a 500."""
+
+import datetime as dt
+
+import pytest
+from django.urls import reverse
+from rest_framework.authtoken.models import Token
+from rest_framework.test import APIClient
+
+from fleet.models import ImportJob, Reading
+from fleet.services.import_jobs import check_job, create_job
+from tests.factories import make_fitted_capacitor, make_motor, make_site
+
+pytestmark = pytest.mark.django_db
+
+UTC = dt.UTC
+
+
+def api_for(user) -> APIClient:
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Token {Token.objects.create(user=user).key}")
+    return client
+
+
+def capacitor_at(zone: str):
+    return make_fitted_capacitor(motor=make_motor(site=make_site(time_zone=zone)), fitted_on=dt.date(2022, 1, 1))
+
+
+def readings_url(fitted_capacitor) -> str:
+    return f"/api/fitted-capacitors/{fitted_capacitor.id}/readings/"
+
+
+def checked_readings(fitted_capacitor, taken_at: str) -> ImportJob:
+    tag = fitted_capacitor.motor.asset_tag
+    content = f"asset_tag,role,taken_at,method,capacitance_uf\n{tag},run,{taken_at},meter,3.9\n"
+    return check_job(create_job(kind="readings", filename="r.csv", content=content.encode(), user=None).id)
+
+
+# Reading times: the API reads them as the form and the import do.
+# [pub] IANA time zone database: Europe/Dublin keeps UTC+01:00 (Irish Standard Time) in summer and UTC+00:00
+# in winter; [pub] EU Directive 2000/84/EC: summer time begins at 01:00 UTC on the last Sunday of March
+# (29 March 2026), so 01:30 that night does not happen in Dublin.
+
+
+def test_the_api_reads_a_time_without_offset_as_the_sites_time_as_the_form_does(client, technician):
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    response = api_for(technician).post(
+        readings_url(fitted_capacitor),
+        {"method": "meter", "capacitance_uf": 3.95, "taken_at": "2026-07-15T10:00"},
+        format="json",
+    )
+    assert response.status_code == 201, response.json()
+    client.force_login(technician)
+    client.post(
+        reverse("reading_new", args=[fitted_capacitor.id]),
+        {"method": "meter", "condition": "sound", "capacitance_uf": "3.94", "taken_at": "2026-07-16T10:00"},
+    )
+    stored = sorted(t.astimezone(UTC) for t in Reading.objects.values_list("taken_at", flat=True))
+    assert stored == [dt.datetime(2026, 7, 15, 9, 0, tzinfo=UTC), dt.datetime(2026, 7, 16, 9, 0, tzinfo=UTC)]
+
+
+def test_the_api_takes_an_offset_as_given(technician):
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    response = api_for(technician).post(
+        readings_url(fitted_capacitor),
+        {"method": "meter", "capacitance_uf": 3.95, "taken_at": "2026-07-15T10:00Z"},
+        format="json",
+    )
+    assert response.status_code == 201
+    assert Reading.objects.get().taken_at == dt.datetime(2026, 7, 15, 10, 0, tzinfo=UTC)
+
+
+def test_the_api_refuses_a_local_time_the_clocks_skip_with_the_sites_offsets(technician):
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    response = api_for(technician).post(
+        readings_url(fitted_capacitor),
+        {"method": "meter", "capacitance_uf": 3.95, "taken_at": "2026-03-29T01:30"},
+        format="json",
+    )
+    assert response.status_code == 400
+    (message,) = response.json()["taken_at"]
+    assert "skipped or repeated in Europe/Dublin" in message and message.endswith("+00:00 or +01:00.")
+    assert not Reading.objects.exists()
+
+
+# A date alone is not a reading's time (the README documents no rule for one).
+
+
+def test_a_date_alone_is_refused_at_taken_at_by_the_import_the_api_and_the_form(client, technician):
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    job = checked_readings(fitted_capacitor, "2026-11-30")
+    assert [error[:2] for error in job.errors] == [[2, "taken_at"]] and "time of day" in job.errors[0][2]
+    response = api_for(technician).post(
+        readings_url(fitted_capacitor),
+        {"method": "meter", "capacitance_uf": 3.95, "taken_at": "2026-11-30"},
+        format="json",
+    )
+    assert response.status_code == 400 and "time of day" in response.json()["taken_at"][0]
+    client.force_login(technician)
+    page = client.post(
+        reverse("reading_new", args=[fitted_capacitor.id]),
+        {"method": "meter", "condition": "sound", "capacitance_uf": "3.94", "taken_at": "2026-11-30"},
+    )
+    assert page.status_code == 200 and "time of day" in page.content.decode()
+    assert not Reading.objects.exists()
+    assert checked_readings(fitted_capacitor, "2026-11-30 00:00").errors == []
