@@ -106,3 +106,46 @@ def test_a_date_alone_is_refused_at_taken_at_by_the_import_the_api_and_the_form(
     assert page.status_code == 200 and "time of day" in page.content.decode()
     assert not Reading.objects.exists()
     assert checked_readings(fitted_capacitor, "2026-11-30 00:00").errors == []
+
+
+# Date filters at the edges of what Python and pandas hold: a 400 naming the parameter, never a 500.
+# [pub] Python's datetime.date holds years 1 to 9999; pandas' nanosecond timestamps end at 2262-04-11
+# (pandas documentation, "Timestamp limitations").
+
+EDGE_DAYS = ["9999-12-31", "0001-01-01", "2262-05-01"]
+
+
+@pytest.mark.parametrize("day", EDGE_DAYS)
+@pytest.mark.parametrize("name", ["since", "until"])
+def test_an_api_reading_date_filter_out_of_range_is_a_400_naming_it(engineer, fan_fitted_capacitor, name, day):
+    response = api_for(engineer).get("/api/readings/", {name: day})
+    assert response.status_code == 400, response.content[:300]
+    message = " ".join(response.json()[name])
+    assert "1900-01-01 to 2199-12-31" in message
+
+
+@pytest.mark.parametrize("day", EDGE_DAYS)
+def test_an_api_replace_by_filter_out_of_range_is_a_400_naming_it(engineer, day):
+    response = api_for(engineer).get("/api/assessments/", {"replace_by_before": day})
+    assert response.status_code == 400 and "replace_by_before" in response.json()
+
+
+@pytest.mark.parametrize("address", ["readings.csv", "readings.xlsx", "readings.parquet", "readings-about.json"])
+@pytest.mark.parametrize("query", ["until=9999-12-31", "since=0001-01-01", "until=2262-05-01"])
+def test_an_export_date_filter_out_of_range_is_a_400_naming_it(client, engineer, fan_fitted_capacitor, address, query):
+    client.force_login(engineer)
+    response = client.get(f"/exports/{address}?{query}")
+    assert response.status_code == 400
+    assert query.split("=")[0] in response.content.decode() and "2199-12-31" in response.content.decode()
+
+
+@pytest.mark.parametrize("address", ["assessments.csv", "assessments-about.json"])
+def test_an_assessment_export_date_filter_out_of_range_is_a_400(client, engineer, address):
+    client.force_login(engineer)
+    response = client.get(f"/exports/{address}?replace_by_before=9999-12-31")
+    assert response.status_code == 400 and "replace_by_before" in response.content.decode()
+
+
+def test_the_last_day_a_filter_takes_still_answers(engineer, fan_fitted_capacitor):
+    response = api_for(engineer).get("/api/readings/", {"since": "1900-01-01", "until": "2199-12-31"})
+    assert response.status_code == 200
