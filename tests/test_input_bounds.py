@@ -3,14 +3,16 @@ imports: reading times, dates at the edges of what pandas and Python hold, JSON 
 parameters. Each is answered as the form and the other entries answer it: by name, never a 500."""
 
 import datetime as dt
+import io
 
 import pytest
+from django.core.management import CommandError, call_command
 from django.urls import reverse
 from rest_framework.authtoken.models import Token
 from rest_framework.test import APIClient
 
 from fleet.models import ImportJob, Reading
-from fleet.services.import_jobs import check_job, create_job
+from fleet.services.import_jobs import check_file, check_job, create_job
 from tests.factories import make_fitted_capacitor, make_motor, make_site
 
 pytestmark = pytest.mark.django_db
@@ -149,3 +151,65 @@ def test_an_assessment_export_date_filter_out_of_range_is_a_400(client, engineer
 def test_the_last_day_a_filter_takes_still_answers(engineer, fan_fitted_capacitor):
     response = api_for(engineer).get("/api/readings/", {"since": "1900-01-01", "until": "2199-12-31"})
     assert response.status_code == 200
+
+
+# Import dates beyond pandas' nanosecond timestamps (1677-09-21 to 2262-04-11) or at Python's edges.
+
+
+def history_errors(fitted_capacitor, fitted_on: str, removed_on: str = "", reason: str = ""):
+    tag, part = fitted_capacitor.motor.asset_tag, fitted_capacitor.part.code
+    header = "asset_tag,role,part_code,fitted_on,removed_on,removal_reason\n"
+    content = header + f"{tag},run,{part},{fitted_on},{removed_on},{reason}\n"
+    return check_file(kind="history", filename="history.csv", content=content.encode()).result.errors
+
+
+@pytest.mark.parametrize(
+    ("fitted_on", "removed_on", "field", "words"),
+    [
+        ("2019-01-01", "9999-12-31", "removed_on", "in the future"),
+        ("2019-01-01", "2262-05-01", "removed_on", "in the future"),
+        ("0001-01-01", "", "fitted_on", "before 1950"),
+        ("2262-05-01", "", "fitted_on", "in the future"),
+        ("1800-01-01", "", "fitted_on", "before 1950"),
+    ],
+)
+def test_a_history_date_out_of_range_is_named_by_row_and_field(
+    fan_fitted_capacitor, fitted_on, removed_on, field, words
+):
+    errors = history_errors(fan_fitted_capacitor, fitted_on, removed_on, "planned" if removed_on else "")
+    assert (2, field) in [error[:2] for error in errors]
+    assert any(words in message for _, name, message in errors if name == field)
+
+
+def test_the_history_command_prints_the_row_not_a_traceback(tmp_path, fan_fitted_capacitor):
+    tag, part = fan_fitted_capacitor.motor.asset_tag, fan_fitted_capacitor.part.code
+    path = tmp_path / "h.csv"
+    path.write_text(
+        f"asset_tag,role,part_code,fitted_on,removed_on,removal_reason,serial,notes\n{tag},run,{part},2019-01-01,9999-12-31,planned,,\n"
+    )
+    out = io.StringIO()
+    with pytest.raises(CommandError):
+        call_command("import", "history", str(path), stdout=out, stderr=out)
+    assert "removed_on" in out.getvalue() and "in the future" in out.getvalue()
+
+
+@pytest.mark.parametrize("day", ["0001-01-01", "1800-01-01", "2262-05-01", "9999-12-31"])
+def test_a_register_date_out_of_range_is_named_by_row_and_field(fan_fitted_capacitor, day):
+    site, part = fan_fitted_capacitor.motor.site.code, fan_fitted_capacitor.part.code
+    content = (
+        "asset_tag,site_code,location,application,motor_type,load_type,rated_voltage_v,frequency_hz,poles,output_w,"
+        "full_load_current_a,rated_speed_rpm,commissioned_on,run_part_code,start_part_code,fitted_on\n"
+        f"T-Y1,{site},bay,fan,permanent_split,fan_law,230,50,4,370,2.6,1400,{day},{part},,{day}\n"
+    )
+    errors = check_file(kind="register", filename="register.csv", content=content.encode()).result.errors
+    assert {error[:2] for error in errors} >= {(2, "commissioned_on")} or {error[:2] for error in errors} >= {
+        (2, "fitted_on")
+    }
+    assert all(name in ("commissioned_on", "fitted_on") for _, name, _ in errors)
+
+
+@pytest.mark.parametrize("taken_at", ["0001-01-01 09:00", "2262-05-01 09:00", "9999-12-31 09:00", "1800-01-01 09:00"])
+def test_a_reading_time_out_of_range_is_named_at_taken_at(taken_at):
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    job = checked_readings(fitted_capacitor, taken_at)
+    assert [error[:2] for error in job.errors] == [[2, "taken_at"]], job.errors
