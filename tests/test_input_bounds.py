@@ -213,3 +213,24 @@ def test_a_reading_time_out_of_range_is_named_at_taken_at(taken_at):
     fitted_capacitor = capacitor_at("Europe/Dublin")
     job = checked_readings(fitted_capacitor, taken_at)
     assert [error[:2] for error in job.errors] == [[2, "taken_at"]], job.errors
+
+
+# JSON bodies the parser cannot read, and bodies past the size limit: a JSON answer with `detail`.
+
+
+@pytest.mark.parametrize("depth", [900, 1000, 100_000])
+def test_deeply_nested_json_is_a_json_400(technician, fan_fitted_capacitor, depth):
+    body = '{"a": ' + "[" * depth + "]" * depth + "}"
+    response = api_for(technician).post(readings_url(fan_fitted_capacitor), body, content_type="application/json")
+    assert response.status_code == 400 and response["Content-Type"].startswith("application/json")
+    assert response.json()["detail"]
+    assert not Reading.objects.exists()
+
+
+def test_a_body_past_the_size_limit_is_a_json_answer_with_detail(technician, fan_fitted_capacitor, settings):
+    settings.DATA_UPLOAD_MAX_MEMORY_SIZE = 1000
+    body = '{"method": "meter", "capacitance_uf": 3.95, "notes": "' + "x" * 5000 + '"}'
+    response = api_for(technician).post(readings_url(fan_fitted_capacitor), body, content_type="application/json")
+    assert response.status_code in (400, 413) and response["Content-Type"].startswith("application/json")
+    assert "1000" in response.json()["detail"] or "large" in response.json()["detail"]
+    assert not Reading.objects.exists()
