@@ -15,6 +15,7 @@ from rest_framework import generics, permissions, serializers, status
 from rest_framework.exceptions import NotFound
 from rest_framework.pagination import CursorPagination, PageNumberPagination
 from rest_framework.response import Response
+from rest_framework.settings import api_settings
 
 from .filters import AssessmentFilter, ReadingFilter
 from .imports.columns import parse_site_time
@@ -78,6 +79,33 @@ class NumberedPages(CheckedPageSize, PageNumberPagination):
             raise serializers.ValidationError(
                 {self.page_query_param: f"A whole number from 1 to {last} (the last page)."}
             ) from None
+
+
+class KnownParametersOnly:
+    """A list view that refuses a query parameter it does not know (a misspelt filter, `risks=watch`, would
+    otherwise list everything) with a 400 naming it and the ones it takes: its filters, its pager's (`page`,
+    `page_size`, `cursor`: whichever it uses), an ordering or search backend's, and `format`."""
+
+    def known_parameters(self) -> set[str]:
+        known = {api_settings.URL_FORMAT_OVERRIDE}
+        filterset_class = getattr(self, "filterset_class", None)
+        if filterset_class is not None:
+            known |= set(filterset_class.base_filters)
+        sources = [self.paginator, *(backend() for backend in self.filter_backends)]
+        for source in sources:
+            for attribute in ("page_query_param", "page_size_query_param", "cursor_query_param", "ordering_param"):
+                known.add(getattr(source, attribute, None))
+        return known - {None}
+
+    def list(self, request, *args, **kwargs):
+        known = self.known_parameters()
+        unknown = sorted(set(request.query_params) - known)
+        if unknown:
+            takes = ", ".join(sorted(known))
+            raise serializers.ValidationError(
+                {name: f"Not a parameter of this list, which takes: {takes}." for name in unknown}
+            )
+        return super().list(request, *args, **kwargs)
 
 
 class AssessmentSerializer(serializers.ModelSerializer):
@@ -202,7 +230,7 @@ class AssessmentPages(NumberedPages):
         return paginator
 
 
-class AssessmentList(generics.ListAPIView):
+class AssessmentList(KnownParametersOnly, generics.ListAPIView):
     """GET /api/assessments/?site=CST&risk=replace+now&replace_by_before=2027-01-01"""
 
     serializer_class = AssessmentSerializer
@@ -219,7 +247,7 @@ class AssessmentList(generics.ListAPIView):
         )
 
 
-class FittedCapacitorReadings(generics.ListCreateAPIView):
+class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):
     """GET or POST /api/fitted-capacitors/<id>/readings/ (POST: the form's checks; 400 names the field).
 
     An `Idempotency-Key` header (any client-made string up to 64 characters) makes a repeated
@@ -298,7 +326,7 @@ class ReadingPages(CheckedPageSize, CursorPagination):
             ) from None
 
 
-class ReadingList(generics.ListAPIView):
+class ReadingList(KnownParametersOnly, generics.ListAPIView):
     """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31:
     readings at the user's sites, 500 a page (page_size up to 5000), `next` links to the next page."""
 

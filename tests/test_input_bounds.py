@@ -234,3 +234,38 @@ def test_a_body_past_the_size_limit_is_a_json_answer_with_detail(technician, fan
     assert response.status_code in (400, 413) and response["Content-Type"].startswith("application/json")
     assert "1000" in response.json()["detail"] or "large" in response.json()["detail"]
     assert not Reading.objects.exists()
+
+
+# Unknown query parameters: a 400 naming the parameter and the ones the list takes, not the whole list.
+
+
+@pytest.mark.parametrize(
+    ("address", "query", "takes"),
+    [
+        ("/api/assessments/", {"risks": "watch"}, {"risk", "site", "replace_by_before", "page", "page_size", "format"}),
+        ("/api/readings/", {"sites": "CST"}, {"site", "part", "motor", "since", "until", "cursor", "page_size"}),
+        ("/api/readings/", {"page": "-1"}, {"cursor", "page_size"}),
+    ],
+)
+def test_an_unknown_list_parameter_is_a_400_naming_it_and_the_known_ones(engineer, address, query, takes):
+    response = api_for(engineer).get(address, query)
+    assert response.status_code == 400, response.content[:300]
+    (name,) = query
+    message = response.json()[name]
+    listed = set(message.rsplit(": ", 1)[1].rstrip(".").split(", "))
+    assert takes <= listed and name not in listed
+
+
+def test_an_unknown_parameter_of_a_capacitors_readings_is_a_400(engineer, fan_fitted_capacitor):
+    response = api_for(engineer).get(readings_url(fan_fitted_capacitor), {"since": "2026-01-01"})
+    assert response.status_code == 400 and "since" in response.json()
+
+
+def test_known_list_parameters_still_work(engineer, fan_fitted_capacitor):
+    client = api_for(engineer)
+    assert client.get("/api/assessments/", {"risk": "watch", "page": "1", "page_size": "5"}).status_code == 200
+    assert client.get("/api/assessments/", {"format": "json"}).status_code == 200
+    first = client.get("/api/readings/", {"page_size": "1", "site": fan_fitted_capacitor.motor.site.code})
+    assert first.status_code == 200
+    assert client.get(readings_url(fan_fitted_capacitor), {"page": "1", "page_size": "10"}).status_code == 200
+    assert client.get(readings_url(fan_fitted_capacitor), {"page": "-1"}).status_code == 400
