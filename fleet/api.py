@@ -15,9 +15,11 @@ from rest_framework import generics, permissions, serializers, status
 from rest_framework.exceptions import NotFound
 from rest_framework.pagination import CursorPagination, PageNumberPagination
 from rest_framework.response import Response
+from rest_framework.settings import api_settings
 
 from .filters import AssessmentFilter, ReadingFilter
-from .models import Assessment, FittedCapacitor, Reading
+from .imports.columns import parse_site_time
+from .models import Assessment, FittedCapacitor, Reading, site_zone
 from .roles import scope_to_user
 from .services.bulk import storable_ids
 from .services.counts import assessed_total
@@ -38,7 +40,7 @@ class ModelPermissionsWithView(permissions.DjangoModelPermissions):
 
 def fitted_capacitor_or_not_found(request, pk) -> FittedCapacitor:
     """The fitted capacitor `pk` at the requesting user's sites, or a 404 saying so in plain words."""
-    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor", "part"), request.user)
+    capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor__site", "part"), request.user)
     found = capacitors.filter(pk__in=storable_ids([pk])).first()
     if found is None:
         raise NotFound(f"No fitted capacitor {pk} at the sites you work at.")
@@ -77,6 +79,33 @@ class NumberedPages(CheckedPageSize, PageNumberPagination):
             raise serializers.ValidationError(
                 {self.page_query_param: f"A whole number from 1 to {last} (the last page)."}
             ) from None
+
+
+class KnownParametersOnly:
+    """A list view that refuses a query parameter it does not know (a misspelt filter, `risks=watch`, would
+    otherwise list everything) with a 400 naming it and the ones it takes: its filters, its pager's (`page`,
+    `page_size`, `cursor`: whichever it uses), an ordering or search backend's, and `format`."""
+
+    def known_parameters(self) -> set[str]:
+        known = {api_settings.URL_FORMAT_OVERRIDE}
+        filterset_class = getattr(self, "filterset_class", None)
+        if filterset_class is not None:
+            known |= set(filterset_class.base_filters)
+        sources = [self.paginator, *(backend() for backend in self.filter_backends)]
+        for source in sources:
+            for attribute in ("page_query_param", "page_size_query_param", "cursor_query_param", "ordering_param"):
+                known.add(getattr(source, attribute, None))
+        return known - {None}
+
+    def list(self, request, *args, **kwargs):
+        known = self.known_parameters()
+        unknown = sorted(set(request.query_params) - known)
+        if unknown:
+            takes = ", ".join(sorted(known))
+            raise serializers.ValidationError(
+                {name: f"Not a parameter of this list, which takes: {takes}." for name in unknown}
+            )
+        return super().list(request, *args, **kwargs)
 
 
 class AssessmentSerializer(serializers.ModelSerializer):
@@ -132,7 +161,22 @@ class AsSent(serializers.Field):
         return value
 
 
+class SiteTime(serializers.DateTimeField):
+    """A reading's time as the form and the import read it (`parse_site_time`): without an offset it is
+    wall-clock time at the capacitor's site (the serializer's `time_zone`); a time the clocks skip or
+    repeat there is refused with the site's offsets; a date alone is refused."""
+
+    def to_internal_value(self, value):
+        if not isinstance(value, str):
+            raise serializers.ValidationError("Send the time as text: 2026-03-14T09:30 (site time), or with an offset.")
+        try:
+            return parse_site_time(value, self.context["time_zone"])
+        except ValueError as error:
+            raise serializers.ValidationError(str(error)) from None
+
+
 class ReadingSerializer(serializers.ModelSerializer):
+    taken_at = SiteTime(required=False)
     confirmed = serializers.BooleanField(write_only=True, required=False, default=False)
     # Id of the reading this one corrects (same capacitor, not corrected before); both are kept.
     supersedes = serializers.IntegerField(source="supersedes_id", required=False, allow_null=True, min_value=1)
@@ -186,7 +230,7 @@ class AssessmentPages(NumberedPages):
         return paginator
 
 
-class AssessmentList(generics.ListAPIView):
+class AssessmentList(KnownParametersOnly, generics.ListAPIView):
     """GET /api/assessments/?site=CST&risk=replace+now&replace_by_before=2027-01-01"""
 
     serializer_class = AssessmentSerializer
@@ -203,7 +247,7 @@ class AssessmentList(generics.ListAPIView):
         )
 
 
-class FittedCapacitorReadings(generics.ListCreateAPIView):
+class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):
     """GET or POST /api/fitted-capacitors/<id>/readings/ (POST: the form's checks; 400 names the field).
 
     An `Idempotency-Key` header (any client-made string up to 64 characters) makes a repeated
@@ -222,7 +266,11 @@ class FittedCapacitorReadings(generics.ListCreateAPIView):
         return Reading.objects.filter(fitted_capacitor=self.fitted_capacitor()).order_by("taken_at", "id")
 
     def create(self, request, *args, **kwargs):
-        serializer = self.get_serializer(data=request.data)
+        fitted_capacitor = self.fitted_capacitor()
+        zone = site_zone(fitted_capacitor.motor.site.time_zone).key
+        serializer = self.get_serializer_class()(
+            data=request.data, context={**self.get_serializer_context(), "time_zone": zone}
+        )
         serializer.is_valid(raise_exception=True)
         values = dict(serializer.validated_data)
         confirmed = values.pop("confirmed", False)
@@ -232,7 +280,7 @@ class FittedCapacitorReadings(generics.ListCreateAPIView):
             return Response({"Idempotency-Key": ["At most 64 characters, no NUL."]}, status=status.HTTP_400_BAD_REQUEST)
         try:
             reading = record_reading(
-                fitted_capacitor=self.fitted_capacitor(),
+                fitted_capacitor=fitted_capacitor,
                 values=values,
                 user=request.user,
                 confirmed=confirmed,
@@ -278,7 +326,7 @@ class ReadingPages(CheckedPageSize, CursorPagination):
             ) from None
 
 
-class ReadingList(generics.ListAPIView):
+class ReadingList(KnownParametersOnly, generics.ListAPIView):
     """GET /api/readings/?site=CST&part=RUN-4U-450&motor=CST-0093&since=2026-01-01&until=2026-03-31:
     readings at the user's sites, 500 a page (page_size up to 5000), `next` links to the next page."""
 

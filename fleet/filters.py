@@ -42,12 +42,30 @@ def _motors_of(request):
     return scope_to_user(Motor.objects.all(), request.user if request is not None else None)
 
 
+# The days a date filter takes: wide of every record (nothing is recorded before 1950 nor planned past the
+# 30-year horizon), and well inside what Python's dates and pandas' timestamps hold (to 2262-04-11), so a
+# day after `until` or a column of filter days never overflows.
+FIRST_FILTER_DAY, LAST_FILTER_DAY = dt.date(1900, 1, 1), dt.date(2199, 12, 31)
+FILTER_DAY_WORDS = f"a date from {FIRST_FILTER_DAY} to {LAST_FILTER_DAY} (YYYY-MM-DD)"
+
+
+class DayFilter(django_filters.DateFilter):
+    """A whole day (YYYY-MM-DD) from FIRST_FILTER_DAY to LAST_FILTER_DAY; another is a message naming the parameter."""
+
+    def __init__(self, *args, **kwargs):
+        bounds = [
+            MinValueValidator(FIRST_FILTER_DAY, FILTER_DAY_WORDS),
+            MaxValueValidator(LAST_FILTER_DAY, FILTER_DAY_WORDS),
+        ]
+        super().__init__(*args, validators=bounds, error_messages={"invalid": FILTER_DAY_WORDS}, **kwargs)
+
+
 class AssessmentFilter(django_filters.FilterSet):
     """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31"""
 
     site = _site_filter("site")  # the stored site (triggers, 0019)
     risk = django_filters.ChoiceFilter(field_name="risk", choices=Assessment.Risk.choices)
-    replace_by_before = django_filters.DateFilter(field_name="replace_by", lookup_expr="lte")
+    replace_by_before = DayFilter(field_name="replace_by", lookup_expr="lte")
 
     class Meta:
         model = Assessment
@@ -64,8 +82,8 @@ class ReadingFilter(django_filters.FilterSet):
     motor = django_filters.ModelChoiceFilter(
         field_name="fitted_capacitor__motor", queryset=_motors_of, to_field_name="asset_tag"
     )
-    since = django_filters.DateFilter(method="taken_since")
-    until = django_filters.DateFilter(method="taken_until")
+    since = DayFilter(method="taken_since")
+    until = DayFilter(method="taken_until")
 
     class Meta:
         model = Reading

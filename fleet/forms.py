@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import uuid
 
-import pandas as pd
 from django import forms
 from django.conf import settings
 from django.utils import timezone
 
-from fleet.imports.columns import parse_times
+from fleet.imports.columns import parse_site_time
 
 from .engineering.rules import RULES
 from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
@@ -81,12 +80,10 @@ class ReadingForm(forms.Form):
         text = self.cleaned_data["taken_at"].strip()
         if not text:
             return None
-        moments, problems = parse_times(pd.Series([text]), pd.Series([self.zone.key]))
-        if problems[0]:
-            raise forms.ValidationError(problems[0][:1].upper() + problems[0][1:] + ".")
-        if pd.isna(moments.iloc[0]):
-            raise forms.ValidationError("Not a date and time: use the picker, or 2026-03-14 09:30.")
-        return moments.iloc[0].to_pydatetime()
+        try:
+            return parse_site_time(text, self.zone.key)
+        except ValueError as error:
+            raise forms.ValidationError(str(error)) from None
 
     def measured_values(self) -> dict:
         data = {

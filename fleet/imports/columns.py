@@ -4,6 +4,7 @@ fleet/services/import_checks.py."""
 
 from __future__ import annotations
 
+import datetime as dt
 import hashlib
 import operator
 from dataclasses import dataclass, field
@@ -176,18 +177,29 @@ def parse_dates(texts: pd.Series) -> pd.Series:
 _OFFSET_AT_END = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
 
 
+# A day with no time of day: "2026-11-30", "20261130", "2026-11-30Z".
+_DAY_ALONE = r"^\d{4}-?\d{2}-?\d{2}\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)?$"
+DAY_ALONE_WORDS = "a date alone: give the time of day too, e.g. 2026-03-14 09:30 (site time)"
+
+
 def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarray]:
-    """ISO 8601 date-times as UTC, and a message for each row whose local time cannot be placed ("" if fine).
+    """ISO 8601 date-times as UTC, and a message for each row whose time cannot be placed ("" if fine).
 
     A time with an offset (or Z) is taken as given; offsets may differ from row to row (a file
     across a daylight-saving change), hence one parse with utc=True. A time without one is
     wall-clock time in the row's zone (`zones`: its site's), localised one zone at a time; a
-    local time the clocks skip or repeat there, or a zone nobody knows, gets a message.
+    local time the clocks skip or repeat there, or a zone nobody knows, gets a message. A date
+    without a time of day gets one too: midnight is not a time anyone measured at.
     """
+    texts = texts.reset_index(drop=True)
+    zones = zones.reset_index(drop=True)
     parsed = pd.to_datetime(texts, errors="coerce", format="ISO8601", utc=True)
+    messages = np.full(len(texts), "", dtype=object)
+    day_alone = texts.str.strip().str.contains(_DAY_ALONE, regex=True).to_numpy() & parsed.notna().to_numpy()
+    parsed[day_alone] = pd.NaT
+    messages[day_alone] = DAY_ALONE_WORDS
     local = (~texts.str.contains(_OFFSET_AT_END, regex=True)).to_numpy() & parsed.notna().to_numpy()
     wall = parsed.dt.tz_localize(None)
-    messages = np.full(len(texts), "", dtype=object)
     for zone in pd.unique(zones[local]):
         rows = local & zones.eq(zone).to_numpy()
         try:
@@ -205,6 +217,17 @@ def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarr
                 for b, a in zip(before, after, strict=True)
             ]
     return parsed, messages
+
+
+def parse_site_time(text: str, zone: str) -> dt.datetime:
+    """One reading time typed or sent (the form's and the API's), read by `parse_times`'s rule: an aware
+    UTC datetime, or ValueError with the sentence to show at `taken_at`."""
+    moments, problems = parse_times(pd.Series([text], dtype=object), pd.Series([zone], dtype=object))
+    if problems[0]:
+        raise ValueError(problems[0][:1].upper() + problems[0][1:] + ".")
+    if pd.isna(moments.iloc[0]):
+        raise ValueError("Not a date and time: use 2026-03-14 09:30 (site time), or add an offset.")
+    return moments.iloc[0].to_pydatetime()
 
 
 def _offsets(wall: pd.Series, zone: str) -> list[str]:

@@ -405,7 +405,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     for name in ("fitted_on", "commissioned_on"):
         parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
         problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
-        problems.add(parsed > pd.Timestamp(timezone.localdate()), name, "in the future")
+        # the history's rule for a service date (no motor or capacitor recorded here predates 1950)
+        for rows, _, message in service_date_problems(parsed.to_numpy(), "NaT", timezone.localdate())[:2]:
+            problems.add(rows, name, message)
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
@@ -637,8 +639,10 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
             "row": frame["row"].to_numpy(),
             "motor_id": motor["motor_id"].to_numpy(float),
             "role": role.to_numpy(),
-            "start": fitted.astype("datetime64[ns]").to_numpy(),
-            "end": removed.astype("datetime64[ns]").fillna(OPEN_END).to_numpy(),
+            # a row refused above (a date in the future, before 1950) takes no part in the overlap tests, and
+            # its date may be one nanosecond timestamps cannot hold (9999-12-31)
+            "start": fitted.where(~problems.bad).astype("datetime64[ns]").to_numpy(),
+            "end": removed.where(~problems.bad).astype("datetime64[ns]").fillna(OPEN_END).to_numpy(),
         }
     )
     keys = rows["motor_id"].astype(str) + "|" + rows["role"] + "|" + rows["start"].astype(str)

@@ -1,0 +1,39 @@
+"""The API's request bodies: JSON the parser cannot read, and bodies Django refuses, answered in JSON with
+`detail` (settings: DEFAULT_PARSER_CLASSES, EXCEPTION_HANDLER). Apart from api.py, which rest_framework's
+views import through the settings."""
+
+from __future__ import annotations
+
+from django.conf import settings
+from django.core.exceptions import RequestDataTooBig, TooManyFieldsSent, TooManyFilesSent
+from rest_framework import status
+from rest_framework.exceptions import ParseError
+from rest_framework.parsers import JSONParser
+from rest_framework.response import Response
+
+
+class ReadableJSONParser(JSONParser):
+    """DRF's JSON parser, with JSON nested deeper than Python's parser goes (1000 arrays in about 2 KB) a 400
+    like any other JSON it cannot read, not a RecursionError."""
+
+    def parse(self, stream, media_type=None, parser_context=None):
+        try:
+            return super().parse(stream, media_type, parser_context)
+        except RecursionError:
+            raise ParseError("JSON parse error - nested too deeply: send a flat object of the fields.") from None
+
+
+def api_exception_handler(exc, context):
+    """DRF's answers, and a JSON one with `detail` for a body Django refuses before any parser (past
+    DATA_UPLOAD_MAX_MEMORY_SIZE: 413; too many form fields or files: 400) where Django answers an HTML 400."""
+    if isinstance(exc, RequestDataTooBig):
+        limit = settings.DATA_UPLOAD_MAX_MEMORY_SIZE
+        return Response(
+            {"detail": f"The body is too large: at most {limit:,} bytes."},
+            status=status.HTTP_413_REQUEST_ENTITY_TOO_LARGE,
+        )
+    if isinstance(exc, TooManyFieldsSent | TooManyFilesSent):
+        return Response({"detail": f"The body cannot be read: {exc}"}, status=status.HTTP_400_BAD_REQUEST)
+    from rest_framework.views import exception_handler  # here: rest_framework.views loads this module's parser
+
+    return exception_handler(exc, context)
