@@ -325,6 +325,11 @@ def _wrong_dielectric(role: np.ndarray, part_code: pd.Series, dielectrics: dict)
     return wrong, part_code.astype(str).to_numpy(object) + " " + ELECTROLYTIC_RUN_WORDS
 
 
+def code_problems(problems: _Problems, codes: pd.Series, field_name: str) -> None:
+    """Codes (asset tags, site and part codes) outside the admin's character rule (models.CODE_PATTERN)."""
+    problems.add(codes.ne("") & ~codes.str.fullmatch(CODE_PATTERN), field_name, f"use {CODE_CHARACTERS}")
+
+
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites and parts must exist; tags already there are skipped."""
     sites = dict(Site.objects.values_list("code", "id"))
@@ -336,11 +341,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     for name in REGISTER_COLUMNS:
         problems.add(frame[name].str.contains("\x00", regex=False), name, "contains a NUL character: remove it")
     too_long = frame["asset_tag"].str.len() > Motor._meta.get_field("asset_tag").max_length
-    problems.add(
-        frame["asset_tag"].ne("") & ~frame["asset_tag"].str.fullmatch(CODE_PATTERN),
-        "asset_tag",
-        f"use {CODE_CHARACTERS}",
-    )
+    code_problems(problems, frame["asset_tag"], "asset_tag")
     problems.add(too_long, "asset_tag", "longer than 40 characters")
     problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
@@ -466,6 +467,7 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in SITE_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
+    code_problems(problems, frame["code"], "code")
     zones = {name: known_time_zone(name) for name in set(frame["time_zone"])}
     problems.add(
         ~frame["time_zone"].map(zones).astype(bool),
@@ -517,6 +519,7 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     _marked_ranges(frame["rated_uf"], problems)  # first: it also says what the tolerances should be
     for name in PART_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
+    code_problems(problems, frame["code"], "code")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
     for rows, name, message in part_problems(*(numbers[name] for name in PART_NUMBERS)):
         problems.add(rows, name, message)
