@@ -1,9 +1,14 @@
 """Codes and register figures: one rule at the admin and every import, the database behind them."""
 
-import pytest
+import datetime as dt
 
-from fleet.imports.columns import PART_COLUMNS, SITE_COLUMNS, mapped_frame
-from fleet.services.import_checks import check_parts, check_sites
+import pytest
+from django.core.exceptions import ValidationError
+
+from fleet.imports.columns import PART_COLUMNS, REGISTER_COLUMNS, SITE_COLUMNS, mapped_frame
+from fleet.models import CapacitorPart, FittedCapacitor, Motor, Site, constraint_errors
+from fleet.services.import_checks import check_parts, check_register, check_sites, insert_register
+from tests.factories import make_motor, make_part, make_site
 
 pytestmark = pytest.mark.django_db
 
@@ -47,3 +52,110 @@ def test_the_parts_import_refuses_codes_the_admin_refuses():
     result = check_parts(frame_of(PART_COLUMNS, [part_row(code=c) for c in ("P/1", "-P2", "P 3", "P.4")]))
     assert errors_of(result) == [(2, "code"), (3, "code"), (4, "code")]
     assert result.good["code"].tolist() == ["P.4"]
+
+
+def register_row(**values):
+    row = dict(
+        asset_tag="T-1",
+        site_code="CST",
+        application="fan",
+        motor_type="permanent_split",
+        load_type="fan_law",
+        rated_voltage_v="230",
+        frequency_hz="50",
+        poles="4",
+        output_w="370",
+        full_load_current_a="2.6",
+        rated_speed_rpm="1400",
+        commissioned_on="2020-01-01",
+        run_part_code="RUN-30U-450",
+        fitted_on="2020-01-01",
+    )
+    return row | values
+
+
+@pytest.fixture
+def register_world():
+    make_site(code="CST")
+    make_part(code="RUN-30U-450", rated_uf=30)
+
+
+# Register import: every database constraint of a motor checked first, by row and field; figures and dates
+# no motor has refused by the rulebook (rules.motor_problems, rules.commissioning_problems).
+
+
+@pytest.mark.parametrize(
+    "field,value,words",
+    [
+        ("rated_speed_rpm", "0", "above zero"),  # the database's motor_speed_below_synchronous [derived]
+        ("rated_speed_rpm", "-10", "above zero"),
+        ("rated_speed_rpm", "1", "under half of synchronous speed (1500 rpm)"),  # [trade]
+        ("rated_speed_rpm", "1500", "at or above synchronous"),  # 120 f / p = 1500 rpm at 50 Hz, 4 poles [pub]
+        ("poles", "3", "2, 4, 6"),
+        ("frequency_hz", "55", "50 or 60"),
+        ("rated_voltage_v", "0", "above 0"),
+        ("commissioned_on", "1800-01-01", ""),
+        ("commissioned_on", "0001-01-01", ""),
+        ("commissioned_on", "1949-12-31", "before 1950"),
+        ("fitted_on", "1800-01-01", ""),
+        ("fitted_on", "1949-12-31", "before 1950"),
+    ],
+)
+def test_the_register_import_refuses_what_no_motor_has_by_row_and_field(register_world, field, value, words):
+    result = check_register(frame_of(REGISTER_COLUMNS, [register_row(**{field: value}), register_row(asset_tag="T-2")]))
+    assert [(row, name) for row, name, _ in result.errors] == [(2, field)]
+    assert words in result.errors[0][2]
+    assert result.good["asset_tag"].tolist() == ["T-2"]
+    insert_register(result.good)  # what passes the checks passes the database
+    assert Motor.objects.filter(asset_tag="T-2").exists()
+
+
+# The admin's motor form: the same rulebook, at the field.
+
+
+@pytest.mark.parametrize(
+    "field,value,words",
+    [
+        ("r1m_ohm", -5.0, "above 0"),
+        ("xm_ohm", 0.0, "above 0"),
+        ("turns_ratio", 0.0, "from 0.2 to 5"),
+        ("turns_ratio", -1.0, "from 0.2 to 5"),
+        ("turns_ratio", 1e9, "from 0.2 to 5"),
+        ("rotational_loss_w", -10.0, "from 0"),
+        ("rotational_loss_w", 1e9, "from 0"),
+        ("commissioned_on", dt.date(2030, 1, 1), "in the future"),
+        ("commissioned_on", dt.date(1, 1, 1), "before 1950"),
+        ("route_order", 99999999999, "from 0 to 99999"),
+        ("rated_speed_rpm", 1.0, "under half of synchronous"),
+        ("rated_speed_rpm", 0.0, "above zero"),
+    ],
+)
+def test_the_admin_refuses_a_motor_figure_no_motor_has_at_its_field(field, value, words):
+    motor = make_motor()
+    setattr(motor, field, value)
+    with pytest.raises(ValidationError) as error:
+        motor.full_clean()
+    assert list(error.value.message_dict) == [field]
+    assert words in error.value.message_dict[field][0].lower()
+
+
+def test_a_part_of_a_ten_millionth_of_a_microfarad_is_refused_in_the_admin_and_the_import():
+    part = make_part()
+    part.rated_uf = 0.0000001
+    with pytest.raises(ValidationError) as error:
+        part.full_clean()
+    assert "0.1 to 5,000 µF" in error.value.message_dict["rated_uf"][0]
+    result = check_parts(frame_of(PART_COLUMNS, [part_row(rated_uf="0.0000001")]))
+    assert errors_of(result) == [(2, "rated_uf")]
+
+
+def test_the_database_constraints_read_in_words_naming_the_field():
+    motor = make_motor()
+    motor.rated_speed_rpm = 0
+    errors = constraint_errors(motor)
+    assert errors["rated_speed_rpm"] == [
+        "The rated speed must be above zero and below synchronous speed (120 × frequency / poles)."
+    ]
+    for model in (Motor, CapacitorPart, FittedCapacitor, Site):
+        for constraint in model._meta.constraints:
+            assert "is violated" not in str(constraint.get_violation_error_message()), constraint.name

@@ -16,9 +16,10 @@ from django.utils import timezone
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
+    commissioning_problems,
     fitting_problems,
     known_time_zone,
-    nameplate_problems,
+    motor_problems,
     part_problems,
     service_date_problems,
 )
@@ -51,6 +52,8 @@ from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.bulk import insert_frame
 
 READING_NUMBERS = list(Reading.MEASURED_FIELDS)
+# The register's numbers in the order `rules.motor_problems` takes them.
+MOTOR_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "rated_speed_rpm", "full_load_current_a", "output_w"]
 
 
 def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
@@ -354,16 +357,10 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ("load_type", Motor.LoadType.values),
     ):
         problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed))
-    volts, hertz, poles = numbers["rated_voltage_v"], numbers["frequency_hz"], numbers["poles"]
-    problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
-    problems.add(~np.isin(hertz, [50, 60]), "frequency_hz", "must be 50 or 60")
-    problems.add(~np.isin(poles, [2, 4, 6, 8, 10, 12]), "poles", "must be 2, 4, 6, 8, 10 or 12")
-    for rows, name, message in nameplate_problems(volts, numbers["full_load_current_a"], numbers["output_w"]):
+    volts = numbers["rated_voltage_v"]
+    # Every check constraint of a motor and the rulebook's bounds, by row and field, before any write.
+    for rows, name, message in motor_problems(*(numbers[name] for name in MOTOR_NUMBERS)):
         problems.add(rows, name, message)
-    synchronous = 120.0 * hertz / np.where(poles > 0, poles, np.nan)
-    problems.add(
-        numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)"
-    )
     kind = frame["motor_type"].str.lower()
     needs_run = kind.isin(["permanent_split", "two_value"])
     needs_start = kind.isin(["capacitor_start", "two_value"])
@@ -402,10 +399,17 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
             + " V "
             + UNDER_VOLTAGE_WORDS,
         )
+    today = np.datetime64(timezone.localdate(), "D")
+    dates = {}
     for name in ("fitted_on", "commissioned_on"):
-        parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
-        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
-        problems.add(parsed > pd.Timestamp(timezone.localdate()), name, "in the future")
+        dates[name] = parse_dates(frame[name])
+        problems.add(frame[name].ne("") & dates[name].isna(), name, "not a date (use 2026-03-14)")
+    no_removal = np.full(len(frame), np.datetime64("NaT"), "datetime64[D]")
+    for rows, name, message in (
+        *service_date_problems(dates["fitted_on"].to_numpy("datetime64[D]"), no_removal, today),
+        *commissioning_problems(dates["commissioned_on"].to_numpy("datetime64[D]"), today),
+    ):
+        problems.add(rows, name, message)
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
