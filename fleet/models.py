@@ -129,6 +129,32 @@ def constraint_errors(instance: models.Model) -> dict[str, list[str]]:
     return errors
 
 
+def unique_any_case(field_name: str, name: str, what: str) -> models.UniqueConstraint:
+    """A code unique whatever its case: CST-0093 and cst-0093 name one thing (the imports' rule)."""
+    return models.UniqueConstraint(
+        Upper(field_name),
+        name=name,
+        violation_error_message=f"The {what} is taken already, in another case: codes are unique in any case.",
+    )
+
+
+def same_code_in_any_case(instance: models.Model, field_name: str, what: str) -> dict[str, str]:
+    """The field's error when another row holds the same code in another case (or the same), for clean()."""
+    value = getattr(instance, field_name)
+    if not value:
+        return {}
+    other = (
+        type(instance)
+        .objects.filter(**{f"{field_name}__iexact": value})
+        .exclude(pk=instance.pk)
+        .values_list(field_name, flat=True)
+        .first()
+    )
+    if other is None or other == value:
+        return {}  # none, or the exact duplicate the field's own unique check names
+    return {field_name: f"{other} is in the register already: {what}s are unique in any case."}
+
+
 def site_zone(name: str) -> zoneinfo.ZoneInfo:
     """A site's time zone; one nobody knows falls back to the plant's (settings.TIME_ZONE)."""
     try:
@@ -144,17 +170,20 @@ class Site(models.Model):
 
     class Meta:
         ordering = ["code"]
+        constraints = [unique_any_case("code", "site_code_unique_any_case", "site code")]
 
     def __str__(self):
         return f"{self.code} {self.name}"
 
     def clean(self):
-        """A time zone the tz database does not know is refused, by the sites import's rule."""
+        """A time zone the tz database does not know is refused, by the sites import's rule; a code another
+        site holds in another case is refused at the field."""
         super().clean()
+        errors = same_code_in_any_case(self, "code", "site code")
         if not known_time_zone(self.time_zone):
-            raise ValidationError(
-                {"time_zone": "Not a time zone name: use one like Europe/Madrid, America/Chicago or UTC."}
-            )
+            errors["time_zone"] = "Not a time zone name: use one like Europe/Madrid, America/Chicago or UTC."
+        if errors:
+            raise ValidationError(errors)
 
 
 class Motor(models.Model):
@@ -228,6 +257,7 @@ class Motor(models.Model):
             models.Index(Upper("asset_tag"), name="motor_tag_any_case"),
         ]
         constraints = [
+            unique_any_case("asset_tag", "motor_tag_unique_any_case", "asset tag"),
             models.CheckConstraint(
                 condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000),
                 name="motor_voltage_range",
@@ -277,6 +307,9 @@ class Motor(models.Model):
         """Figures and dates no capacitor motor has are refused at their field, by the register import's rule
         (`rules.motor_problems`, `rules.commissioning_problems`)."""
         super().clean()
+        same_tag = same_code_in_any_case(self, "asset_tag", "asset tag")
+        if same_tag:
+            raise ValidationError(same_tag)
         nameplate = (
             self.rated_voltage_v,
             self.frequency_hz,
@@ -348,6 +381,7 @@ class CapacitorPart(models.Model):
     class Meta:
         ordering = ["code"]
         constraints = [
+            unique_any_case("code", "part_code_unique_any_case", "part code"),
             models.CheckConstraint(
                 condition=Q(rated_uf__gt=0),
                 name="part_capacitance_positive",
@@ -383,6 +417,9 @@ class CapacitorPart(models.Model):
     def clean(self):
         """Catalogue figures no motor capacitor has are refused at their field, by the parts import's rule."""
         super().clean()
+        same_code = same_code_in_any_case(self, "code", "part code")
+        if same_code:
+            raise ValidationError(same_code)
         required = (self.rated_uf, self.tolerance_minus_pct, self.tolerance_plus_pct, self.rated_voltage_v)
         if None in required or self.frequency_hz is None:
             return  # a missing figure is the field's own error

@@ -4,11 +4,13 @@ import datetime as dt
 
 import pytest
 from django.core.exceptions import ValidationError
+from django.db import IntegrityError, transaction
+from django.urls import reverse
 
 from fleet.imports.columns import PART_COLUMNS, REGISTER_COLUMNS, SITE_COLUMNS, mapped_frame
 from fleet.models import CapacitorPart, FittedCapacitor, Motor, Site, constraint_errors
 from fleet.services.import_checks import check_parts, check_register, check_sites, insert_register
-from tests.factories import make_motor, make_part, make_site
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site
 
 pytestmark = pytest.mark.django_db
 
@@ -159,3 +161,70 @@ def test_the_database_constraints_read_in_words_naming_the_field():
     for model in (Motor, CapacitorPart, FittedCapacitor, Site):
         for constraint in model._meta.constraints:
             assert "is violated" not in str(constraint.get_violation_error_message()), constraint.name
+
+
+# Codes unique in any case: CST-0093 and cst-0093 would be one motor to a technician typing it, to Find and
+# to the register import (which skips a tag it holds in any case) [derived].
+
+
+def test_a_tag_differing_only_in_case_is_refused_at_the_field_and_by_the_database():
+    first = make_motor(asset_tag="CST-0093")
+    motor = Motor(**{f.attname: getattr(first, f.attname) for f in Motor._meta.concrete_fields if f.attname != "id"})
+    motor.asset_tag = "cst-0093"
+    with pytest.raises(ValidationError) as error:
+        motor.full_clean()
+    assert "CST-0093 is in the register already" in error.value.message_dict["asset_tag"][0]
+    with pytest.raises(IntegrityError), transaction.atomic():
+        motor.save()
+    site = Site(code=first.site.code.lower(), name="Again", time_zone="UTC")
+    with pytest.raises(ValidationError) as error:
+        site.full_clean()
+    assert "is in the register already" in error.value.message_dict["code"][0]
+    part = make_part(code="RUN-30U-450")
+    part.pk, part.code = None, "run-30u-450"
+    with pytest.raises(ValidationError) as error:
+        part.full_clean()
+    assert "RUN-30U-450 is in the register already" in error.value.message_dict["code"][0]
+
+
+def test_the_motor_page_and_find_answer_for_a_tag_in_any_case(client, technician):
+    make_fitted_capacitor(motor=make_motor(asset_tag="CST-0093"))
+    client.force_login(technician)
+    for tag in ("CST-0093", "cst-0093"):
+        assert client.get(reverse("motor", args=[tag])).status_code == 200
+    assert client.get(reverse("find"), {"tag": "cst-0093"}).status_code in (200, 302)
+
+
+def test_the_sites_and_parts_imports_refuse_a_code_held_in_another_case():
+    make_site(code="CST")
+    make_part(code="RUN-30U-450")
+    sites = check_sites(
+        frame_of(SITE_COLUMNS, [{"code": c, "name": "A site", "time_zone": "UTC"} for c in ("cst", "NEW7", "new7")])
+    )
+    assert errors_of(sites) == [(2, "code"), (4, "code")]
+    assert "CST is in the register already" in sites.errors[0][2]
+    assert sites.good["code"].tolist() == ["NEW7"]
+    again = check_sites(frame_of(SITE_COLUMNS, [{"code": "CST", "name": "A site", "time_zone": "UTC"}]))
+    assert again.errors == [] and again.duplicates == 1
+    parts = check_parts(frame_of(PART_COLUMNS, [part_row(code="run-30u-450")]))
+    assert errors_of(parts) == [(2, "code")] and parts.good.empty
+    assert "RUN-30U-450 is in the register already" in parts.errors[0][2]
+    assert check_parts(frame_of(PART_COLUMNS, [part_row(code="RUN-30U-450")])).duplicates == 1
+
+
+def test_the_migration_stops_naming_codes_that_differ_only_in_case():
+    from importlib import import_module
+
+    from django.apps import apps
+    from django.db import connection
+
+    migration = import_module("fleet.migrations.0039_codes_codes_unique_any_case")
+    make_motor(asset_tag="CST-0093")
+    with transaction.atomic():
+        with connection.cursor() as cursor:  # the unique index, gone inside this transaction only
+            cursor.execute('DROP INDEX "motor_tag_unique_any_case"')
+        Motor.objects.filter(pk=make_motor(asset_tag="X-1").pk).update(asset_tag="cst-0093")
+        with pytest.raises(RuntimeError) as error:
+            migration.refuse_codes_differing_only_in_case(apps, None)
+        transaction.set_rollback(True)
+    assert "asset tags: CST-0093, cst-0093" in str(error.value)

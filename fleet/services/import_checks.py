@@ -333,6 +333,23 @@ def code_problems(problems: _Problems, codes: pd.Series, field_name: str) -> Non
     problems.add(codes.ne("") & ~codes.str.fullmatch(CODE_PATTERN), field_name, f"use {CODE_CHARACTERS}")
 
 
+def codes_in_any_case(problems: _Problems, codes: pd.Series, stored, what: str) -> np.ndarray:
+    """Codes unique in any case (the database's `*_unique_any_case`): a repeat in the file in any case, or a
+    code the register holds in another case, is refused at `code`; one it holds exactly is already there
+    (returned, to skip)."""
+    upper = codes.str.upper()
+    repeated_in_file(problems, upper.where(codes.ne("")), "code", f"the same {what} (in any case)")
+    stored_by_upper = {code.upper(): code for code in stored}
+    held = upper.map(stored_by_upper)
+    other_case = held.notna() & held.ne(codes)
+    problems.add(
+        other_case.to_numpy(bool),
+        "code",
+        (held.fillna("") + f" is in the register already: {what}s are unique in any case").to_numpy(object),
+    )
+    return (held.notna() & ~other_case).to_numpy(bool)
+
+
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites and parts must exist; tags already there are skipped."""
     sites = dict(Site.objects.values_list("code", "id"))
@@ -478,8 +495,7 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         "time_zone",
         "not a time zone name: use one like Europe/Madrid, America/Chicago or UTC",
     )
-    repeated_in_file(problems, frame["code"].where(frame["code"].ne("")), "code", "the same site code")
-    already = frame["code"].isin(set(Site.objects.values_list("code", flat=True))).to_numpy()
+    already = codes_in_any_case(problems, frame["code"], Site.objects.values_list("code", flat=True), "site code")
     return _result(frame, problems, already, on_progress)
 
 
@@ -534,8 +550,9 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     ):
         given = frame[name].str.lower() if name == "dielectric" else frame[name].str.upper()
         problems.add(given.ne("") & ~given.isin(choices), name, "must be one of " + ", ".join(choices))
-    repeated_in_file(problems, frame["code"].where(frame["code"].ne("")), "code", "the same part code")
-    already = frame["code"].isin(set(CapacitorPart.objects.values_list("code", flat=True))).to_numpy()
+    already = codes_in_any_case(
+        problems, frame["code"], CapacitorPart.objects.values_list("code", flat=True), "part code"
+    )
     good = frame.copy()
     for name in PART_NUMBERS:
         good[name] = numbers[name]
