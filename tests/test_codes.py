@@ -138,7 +138,8 @@ def test_the_admin_refuses_a_motor_figure_no_motor_has_at_its_field(field, value
     with pytest.raises(ValidationError) as error:
         motor.full_clean()
     assert list(error.value.message_dict) == [field]
-    assert words in error.value.message_dict[field][0].lower()
+    # PostgreSQL's integer range adds Django's own message on route_order; the rulebook's is there too.
+    assert any(words in message.lower() for message in error.value.message_dict[field])
 
 
 def test_a_part_of_a_ten_millionth_of_a_microfarad_is_refused_in_the_admin_and_the_import():
