@@ -96,10 +96,10 @@ def register_world():
         ("poles", "3", "2, 4, 6"),
         ("frequency_hz", "55", "50 or 60"),
         ("rated_voltage_v", "0", "above 0"),
-        ("commissioned_on", "1800-01-01", ""),
-        ("commissioned_on", "0001-01-01", ""),
+        ("commissioned_on", "1800-01-01", "before 1950"),
+        ("commissioned_on", "0001-01-01", "before 1950"),
         ("commissioned_on", "1949-12-31", "before 1950"),
-        ("fitted_on", "1800-01-01", ""),
+        ("fitted_on", "1800-01-01", "before 1950"),
         ("fitted_on", "1949-12-31", "before 1950"),
     ],
 )
