@@ -307,28 +307,22 @@ class Motor(models.Model):
         """Figures and dates no capacitor motor has are refused at their field, by the register import's rule
         (`rules.motor_problems`, `rules.commissioning_problems`)."""
         super().clean()
-        same_tag = same_code_in_any_case(self, "asset_tag", "asset tag")
-        if same_tag:
-            raise ValidationError(same_tag)
-        nameplate = (
-            self.rated_voltage_v,
-            self.frequency_hz,
-            self.poles,
-            self.rated_speed_rpm,
-            self.full_load_current_a,
-            self.output_w,
+        errors = same_code_in_any_case(self, "asset_tag", "asset tag")
+        nameplate = ("rated_voltage_v", "frequency_hz", "poles", "rated_speed_rpm", "full_load_current_a", "output_w")
+        optional = (*CIRCUIT_OHM_FIELDS, "turns_ratio", "rotational_loss_w", "route_order")
+        value = {name: np.nan if getattr(self, name) is None else getattr(self, name) for name in nameplate + optional}
+        problems = motor_problems(
+            *(value[name] for name in nameplate),
+            circuit={name: value[name] for name in optional[:-1]},
+            route_order=value["route_order"],
         )
-        if None in nameplate:
-            return  # a missing figure is the field's own error
-        circuit = {
-            name: np.nan if getattr(self, name) is None else getattr(self, name)
-            for name in (*CIRCUIT_OHM_FIELDS, "turns_ratio", "rotational_loss_w")
-        }
-        route_order = np.nan if self.route_order is None else self.route_order
-        problems = motor_problems(*nameplate, circuit=circuit, route_order=route_order)
         if self.commissioned_on is not None:
             problems += commissioning_problems(self.commissioned_on, timezone.localdate())
-        errors = first_problem_by_field(problems)
+        # A missing nameplate figure is its field's own error ("required"); no second word on it or from it.
+        if not any(getattr(self, name) is None for name in nameplate):
+            errors = first_problem_by_field(problems) | errors
+        else:
+            errors = first_problem_by_field([p for p in problems if p[1] not in nameplate]) | errors
         if errors:
             raise ValidationError(errors)
 

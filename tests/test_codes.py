@@ -229,3 +229,12 @@ def test_the_migration_stops_naming_codes_that_differ_only_in_case():
             migration.refuse_codes_differing_only_in_case(apps, None)
         transaction.set_rollback(True)
     assert "asset tags: CST-0093, cst-0093" in str(error.value)
+
+
+def test_the_admin_names_every_field_wrong_at_once_even_with_a_figure_missing():
+    make_motor(asset_tag="CST-0093")
+    motor = make_motor()
+    motor.asset_tag, motor.rated_speed_rpm, motor.commissioned_on = "cst-0093", None, dt.date(2030, 1, 1)
+    with pytest.raises(ValidationError) as error:
+        motor.full_clean()
+    assert {"asset_tag", "rated_speed_rpm", "commissioned_on"} <= set(error.value.message_dict)
