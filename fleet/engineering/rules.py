@@ -351,7 +351,7 @@ def part_problems(
             (
                 ~((rated >= PART_MIN_RATED_UF) & (rated <= PART_MAX_RATED_UF)),
                 "rated_uf",
-                f"must be from {PART_MIN_RATED_UF:g} to {PART_MAX_RATED_UF:,.0f} µF: check the unit",
+                f"must be at least {PART_MIN_RATED_UF:g} and at most {PART_MAX_RATED_UF:,.0f} µF: check the unit",
             ),
             (
                 ~((minus >= 0) & (minus <= PART_MAX_TOLERANCE_MINUS_PCT)),

@@ -338,7 +338,7 @@ def codes_in_any_case(problems: _Problems, codes: pd.Series, stored, what: str) 
     code the register holds in another case, is refused at `code`; one it holds exactly is already there
     (returned, to skip)."""
     upper = codes.str.upper()
-    repeated_in_file(problems, upper.where(codes.ne("")), "code", f"the same {what} (in any case)")
+    repeated_in_file(problems, upper.where(codes.ne("")), "code", f"the same {what}")
     stored_by_upper = {code.upper(): code for code in stored}
     held = upper.map(stored_by_upper)
     other_case = held.notna() & held.ne(codes)
