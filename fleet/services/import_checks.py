@@ -345,7 +345,9 @@ def codes_in_any_case(problems: _Problems, codes: pd.Series, stored, what: str) 
     problems.add(
         other_case.to_numpy(bool),
         "code",
-        (held.fillna("") + f" is in the register already: {what}s are unique in any case").to_numpy(object),
+        (held.astype(object).fillna("") + f" is in the register already: {what}s are unique in any case").to_numpy(
+            object
+        ),
     )
     return (held.notna() & ~other_case).to_numpy(bool)
 
