@@ -33,12 +33,14 @@ from fleet.engineering.planning import (
     work_order_problems,
 )
 from fleet.engineering.rules import (
+    CIRCUIT_OHM_FIELDS,
     CONDITION_SOUND,
     METHOD_IN_CIRCUIT,
     METHOD_METER,
+    commissioning_problems,
     first_problem_by_field,
     known_time_zone,
-    nameplate_problems,
+    motor_problems,
     part_problems,
     service_date_problems,
 )
@@ -127,6 +129,32 @@ def constraint_errors(instance: models.Model) -> dict[str, list[str]]:
     return errors
 
 
+def unique_any_case(field_name: str, name: str, what: str) -> models.UniqueConstraint:
+    """A code unique whatever its case: CST-0093 and cst-0093 name one thing (the imports' rule)."""
+    return models.UniqueConstraint(
+        Upper(field_name),
+        name=name,
+        violation_error_message=f"The {what} is taken already, in another case: codes are unique in any case.",
+    )
+
+
+def same_code_in_any_case(instance: models.Model, field_name: str, what: str) -> dict[str, str]:
+    """The field's error when another row holds the same code in another case (or the same), for clean()."""
+    value = getattr(instance, field_name)
+    if not value:
+        return {}
+    other = (
+        type(instance)
+        .objects.filter(**{f"{field_name}__iexact": value})
+        .exclude(pk=instance.pk)
+        .values_list(field_name, flat=True)
+        .first()
+    )
+    if other is None or other == value:
+        return {}  # none, or the exact duplicate the field's own unique check names
+    return {field_name: f"{other} is in the register already: {what}s are unique in any case."}
+
+
 def site_zone(name: str) -> zoneinfo.ZoneInfo:
     """A site's time zone; one nobody knows falls back to the plant's (settings.TIME_ZONE)."""
     try:
@@ -142,17 +170,20 @@ class Site(models.Model):
 
     class Meta:
         ordering = ["code"]
+        constraints = [unique_any_case("code", "site_code_unique_any_case", "site code")]
 
     def __str__(self):
         return f"{self.code} {self.name}"
 
     def clean(self):
-        """A time zone the tz database does not know is refused, by the sites import's rule."""
+        """A time zone the tz database does not know is refused, by the sites import's rule; a code another
+        site holds in another case is refused at the field."""
         super().clean()
+        errors = same_code_in_any_case(self, "code", "site code")
         if not known_time_zone(self.time_zone):
-            raise ValidationError(
-                {"time_zone": "Not a time zone name: use one like Europe/Madrid, America/Chicago or UTC."}
-            )
+            errors["time_zone"] = "Not a time zone name: use one like Europe/Madrid, America/Chicago or UTC."
+        if errors:
+            raise ValidationError(errors)
 
 
 class Motor(models.Model):
@@ -226,30 +257,72 @@ class Motor(models.Model):
             models.Index(Upper("asset_tag"), name="motor_tag_any_case"),
         ]
         constraints = [
+            unique_any_case("asset_tag", "motor_tag_unique_any_case", "asset tag"),
             models.CheckConstraint(
-                condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000), name="motor_voltage_range"
+                condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000),
+                name="motor_voltage_range",
+                violation_error_message="The rated voltage must be above 0 and at most 1,000 V.",
             ),
-            models.CheckConstraint(condition=Q(frequency_hz__in=[50, 60]), name="motor_frequency_50_or_60"),
-            models.CheckConstraint(condition=Q(poles__in=[2, 4, 6, 8, 10, 12]), name="motor_poles_even"),
-            models.CheckConstraint(condition=Q(output_w__gt=0), name="motor_output_positive"),
-            models.CheckConstraint(condition=Q(full_load_current_a__gt=0), name="motor_current_positive"),
+            models.CheckConstraint(
+                condition=Q(frequency_hz__in=[50, 60]),
+                name="motor_frequency_50_or_60",
+                violation_error_message="The frequency must be 50 or 60 Hz.",
+            ),
+            models.CheckConstraint(
+                condition=Q(poles__in=[2, 4, 6, 8, 10, 12]),
+                name="motor_poles_even",
+                violation_error_message="The poles must be 2, 4, 6, 8, 10 or 12.",
+            ),
+            models.CheckConstraint(
+                condition=Q(output_w__gt=0),
+                name="motor_output_positive",
+                violation_error_message="The rated output must be above zero.",
+            ),
+            models.CheckConstraint(
+                condition=Q(full_load_current_a__gt=0),
+                name="motor_current_positive",
+                violation_error_message="The full-load current must be above zero.",
+            ),
             models.CheckConstraint(
                 condition=Q(rated_speed_rpm__gt=0) & Q(rated_speed_rpm__lt=120 * F("frequency_hz") / F("poles")),
                 name="motor_speed_below_synchronous",
+                violation_error_message="The rated speed must be above zero and below synchronous speed "
+                "(120 × frequency / poles).",
             ),
         ]
+
+    CONSTRAINT_FIELDS = {
+        "motor_voltage_range": "rated_voltage_v",
+        "motor_frequency_50_or_60": "frequency_hz",
+        "motor_poles_even": "poles",
+        "motor_output_positive": "output_w",
+        "motor_current_positive": "full_load_current_a",
+        "motor_speed_below_synchronous": "rated_speed_rpm",
+    }
 
     def __str__(self):
         return self.asset_tag
 
     def clean(self):
-        """Nameplate figures no capacitor motor has are refused at their field, by the register import's rule."""
+        """Figures and dates no capacitor motor has are refused at their field, by the register import's rule
+        (`rules.motor_problems`, `rules.commissioning_problems`)."""
         super().clean()
-        if None in (self.rated_voltage_v, self.full_load_current_a, self.output_w):
-            return  # a missing figure is the field's own error
-        errors = first_problem_by_field(
-            nameplate_problems(self.rated_voltage_v, self.full_load_current_a, self.output_w)
+        errors = same_code_in_any_case(self, "asset_tag", "asset tag")
+        nameplate = ("rated_voltage_v", "frequency_hz", "poles", "rated_speed_rpm", "full_load_current_a", "output_w")
+        optional = (*CIRCUIT_OHM_FIELDS, "turns_ratio", "rotational_loss_w", "route_order")
+        value = {name: np.nan if getattr(self, name) is None else getattr(self, name) for name in nameplate + optional}
+        problems = motor_problems(
+            *(value[name] for name in nameplate),
+            circuit={name: value[name] for name in optional[:-1]},
+            route_order=value["route_order"],
         )
+        if self.commissioned_on is not None:
+            problems += commissioning_problems(self.commissioned_on, timezone.localdate())
+        # A missing nameplate figure is its field's own error ("required"); no second word on it or from it.
+        if not any(getattr(self, name) is None for name in nameplate):
+            errors = first_problem_by_field(problems) | errors
+        else:
+            errors = first_problem_by_field([p for p in problems if p[1] not in nameplate]) | errors
         if errors:
             raise ValidationError(errors)
 
@@ -302,14 +375,35 @@ class CapacitorPart(models.Model):
     class Meta:
         ordering = ["code"]
         constraints = [
-            models.CheckConstraint(condition=Q(rated_uf__gt=0), name="part_capacitance_positive"),
+            unique_any_case("code", "part_code_unique_any_case", "part code"),
+            models.CheckConstraint(
+                condition=Q(rated_uf__gt=0),
+                name="part_capacitance_positive",
+                violation_error_message="The rated capacitance must be above zero.",
+            ),
             models.CheckConstraint(
                 condition=Q(tolerance_minus_pct__gte=0, tolerance_minus_pct__lt=100, tolerance_plus_pct__gte=0),
                 name="part_tolerance_sane",
+                violation_error_message="The tolerances must be 0 or more, the minus tolerance under 100 %%.",
             ),
-            models.CheckConstraint(condition=Q(rated_voltage_v__gt=0), name="part_voltage_positive"),
-            models.CheckConstraint(condition=Q(unit_cost__gte=0), name="part_cost_not_negative"),
+            models.CheckConstraint(
+                condition=Q(rated_voltage_v__gt=0),
+                name="part_voltage_positive",
+                violation_error_message="The rated voltage must be above zero.",
+            ),
+            models.CheckConstraint(
+                condition=Q(unit_cost__gte=0),
+                name="part_cost_not_negative",
+                violation_error_message="The unit cost cannot be below zero.",
+            ),
         ]
+
+    CONSTRAINT_FIELDS = {
+        "part_capacitance_positive": "rated_uf",
+        "part_tolerance_sane": "tolerance_minus_pct",
+        "part_voltage_positive": "rated_voltage_v",
+        "part_cost_not_negative": "unit_cost",
+    }
 
     def __str__(self):
         return f"{self.code} ({self.rated_uf:g} µF {self.rated_voltage_v:g} V)"
@@ -317,6 +411,9 @@ class CapacitorPart(models.Model):
     def clean(self):
         """Catalogue figures no motor capacitor has are refused at their field, by the parts import's rule."""
         super().clean()
+        same_code = same_code_in_any_case(self, "code", "part code")
+        if same_code:
+            raise ValidationError(same_code)
         required = (self.rated_uf, self.tolerance_minus_pct, self.tolerance_plus_pct, self.rated_voltage_v)
         if None in required or self.frequency_hz is None:
             return  # a missing figure is the field's own error
@@ -371,16 +468,22 @@ class FittedCapacitor(models.Model):
         ordering = ["motor__asset_tag", "role", "-fitted_on"]
         constraints = [
             models.UniqueConstraint(
-                fields=["motor", "role"], condition=Q(removed_on__isnull=True), name="one_active_capacitor_per_role"
+                fields=["motor", "role"],
+                condition=Q(removed_on__isnull=True),
+                name="one_active_capacitor_per_role",
+                violation_error_message="This motor has a capacitor in service in this role already: "
+                "give that one a removal date first.",
             ),
             models.CheckConstraint(
                 condition=Q(removed_on__isnull=True) | Q(removed_on__gte=F("fitted_on")),
                 name="removed_after_fitted",
+                violation_error_message="The removal date cannot be before the fitting date.",
             ),
             models.CheckConstraint(
                 condition=(Q(removed_on__isnull=True) & Q(removal_reason=""))
                 | (Q(removed_on__isnull=False) & ~Q(removal_reason="")),
                 name="removal_reason_with_removal",
+                violation_error_message="A removal reason goes with a removal date: give both or neither.",
             ),
         ]
         indexes = [
@@ -396,6 +499,8 @@ class FittedCapacitor(models.Model):
                 fields=["part", "role", "id"], condition=Q(removed_on__isnull=True), name="in_service_by_part"
             ),
         ]
+
+    CONSTRAINT_FIELDS = {"removed_after_fitted": "removed_on", "removal_reason_with_removal": "removal_reason"}
 
     def __str__(self):
         return f"{self.motor.asset_tag} {self.role} {self.part.code}"

@@ -322,7 +322,7 @@ def test_catalogue_figures_no_motor_capacitor_has_are_refused_by_row_and_field(t
         call_command("import", "parts", str(write(tmp_path, "parts.csv", text)), stdout=out)
     report = out.getvalue()
     assert "row 4, tolerance_minus_pct: must be from 0 to 50 %" in report
-    assert "row 5, rated_uf: must be above 0 and at most 5,000 µF" in report
+    assert "row 5, rated_uf: must be at least 0.1 and at most 5,000 µF" in report
     assert "row 6, unit_cost: must be from 0 to 100,000: check the decimal point" in report
     assert "row 7, rated_voltage_v: must be above 0 and at most 1,000 V" in report
     assert not CapacitorPart.objects.exists()  # nothing saved half-way

@@ -184,11 +184,125 @@ def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[t
         ]
 
 
+# Ratings the database holds too (the motor's check constraints): rated voltage above 0 up to 1000 V, the
+# supply frequencies of the grid, an even number of poles (a winding has pole pairs) [derived].
+MOTOR_MAX_RATED_VOLTAGE_V = 1000.0
+MOTOR_FREQUENCIES_HZ = (50, 60)
+MOTOR_POLES = (2, 4, 6, 8, 10, 12)
+# A small induction motor runs a few per cent below synchronous speed at full load, high-slip fan motors up
+# to about a quarter below; under half of synchronous speed is a typing slip, not a motor (common practice
+# of the trade, no single source).
+MOTOR_MIN_SPEED_FRACTION_OF_SYNCHRONOUS = 0.5
+# Equivalent circuit: every resistance and reactance above zero; the nameplate estimator searches a thousandth
+# to a hundred times the base impedance (volts / amps), which stays under a megaohm for any motor here [derived].
+MOTOR_MAX_CIRCUIT_OHM = 1e6
+CIRCUIT_OHM_FIELDS = ("r1m_ohm", "x1m_ohm", "r1a_ohm", "x1a_ohm", "r2_ohm", "x2_ohm", "xm_ohm")
+# Auxiliary-to-main effective turns ratio: about 1 to 2 in capacitor motors; the estimator searches 0.3 to 4
+# (common practice of the trade, no single source). Rotational loss is a few per cent of output [trade]:
+# zero or more, and never above the largest output of a capacitor motor (NAMEPLATE_MAX_OUTPUT_W).
+MOTOR_TURNS_RATIO = (0.2, 5.0)
+# A site's reading route: places 0 to 99999 (the route page's rule, ours).
+ROUTE_ORDER_MAX = 99999
+
+
+def motor_problems(
+    rated_voltage_v,
+    frequency_hz,
+    poles,
+    rated_speed_rpm,
+    full_load_current_a,
+    output_w,
+    circuit: dict | None = None,
+    route_order=np.nan,
+) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for a motor no plant has, vectorised over a register: the database's check
+    constraints, the nameplate bounds, the speed's floor, the equivalent circuit (optional figures pass where
+    missing, nan) and the route order. One rule for the register import and the admin."""
+    volts, hertz, poles, rpm, order = (
+        np.atleast_1d(np.asarray(v, float))
+        for v in (rated_voltage_v, frequency_hz, poles, rated_speed_rpm, route_order)
+    )
+    circuit = {name: np.atleast_1d(np.asarray(v, float)) for name, v in (circuit or {}).items()}
+    low_ratio, high_ratio = MOTOR_TURNS_RATIO
+    with np.errstate(invalid="ignore", divide="ignore"):
+        synchronous = 120.0 * hertz / np.where(np.isin(poles, MOTOR_POLES), poles, np.nan)
+        problems = [
+            (
+                ~((volts > 0) & (volts <= MOTOR_MAX_RATED_VOLTAGE_V)),
+                "rated_voltage_v",
+                f"must be above 0 and at most {MOTOR_MAX_RATED_VOLTAGE_V:,.0f} V",
+            ),
+            (~np.isin(hertz, MOTOR_FREQUENCIES_HZ), "frequency_hz", "must be 50 or 60"),
+            (~np.isin(poles, MOTOR_POLES), "poles", "must be 2, 4, 6, 8, 10 or 12"),
+            (~(rpm > 0), "rated_speed_rpm", "must be above zero"),
+            (rpm >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 × frequency / poles)"),
+            (
+                (rpm > 0) & (rpm < MOTOR_MIN_SPEED_FRACTION_OF_SYNCHRONOUS * synchronous),
+                "rated_speed_rpm",
+                _messages(
+                    (rpm > 0) & (rpm < MOTOR_MIN_SPEED_FRACTION_OF_SYNCHRONOUS * synchronous),
+                    "under half of synchronous speed ({sync:g} rpm): a capacitor motor runs a few per cent below it",
+                    sync=synchronous,
+                ),
+            ),
+            *nameplate_problems(volts, full_load_current_a, output_w),
+            *(
+                (
+                    ~np.isnan(circuit[name]) & ~((circuit[name] > 0) & (circuit[name] <= MOTOR_MAX_CIRCUIT_OHM)),
+                    name,
+                    f"must be above 0 and at most {MOTOR_MAX_CIRCUIT_OHM:,.0f} Ω",
+                )
+                for name in CIRCUIT_OHM_FIELDS
+                if name in circuit
+            ),
+        ]
+        if "turns_ratio" in circuit:
+            ratio = circuit["turns_ratio"]
+            problems.append(
+                (
+                    ~np.isnan(ratio) & ~((ratio >= low_ratio) & (ratio <= high_ratio)),
+                    "turns_ratio",
+                    f"must be from {low_ratio:g} to {high_ratio:g} (auxiliary to main turns, about 1 to 2)",
+                )
+            )
+        if "rotational_loss_w" in circuit:
+            loss = circuit["rotational_loss_w"]
+            problems.append(
+                (
+                    ~np.isnan(loss) & ~((loss >= 0) & (loss <= NAMEPLATE_MAX_OUTPUT_W)),
+                    "rotational_loss_w",
+                    f"must be from 0 to {NAMEPLATE_MAX_OUTPUT_W:,.0f} W",
+                )
+            )
+        problems.append(
+            (
+                ~np.isnan(order) & ~((order >= 0) & (order <= ROUTE_ORDER_MAX) & (order == np.round(order))),
+                "route_order",
+                f"must be a whole number from 0 to {ROUTE_ORDER_MAX}",
+            )
+        )
+    return problems
+
+
+def commissioning_problems(commissioned_on, today) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for a commissioning date no motor has: ahead of `today` or before 1950 (NaT: not
+    given). One rule for the register import and the admin."""
+    day = np.atleast_1d(np.asarray(commissioned_on, "datetime64[D]"))
+    today = np.datetime64(today, "D")
+    return [
+        (day > today, "commissioned_on", "in the future"),
+        (day < EARLIEST_SERVICE_DAY, "commissioned_on", "before 1950: check the date"),
+    ]
+
+
 # Catalogue bounds of a motor capacitor part (IEC 60252-1 covers motor capacitors of rated voltages up to
 # 660 V; the register's 1000 V motor limit is kept so a part never refuses a motor it is fitted to; from
 # memory, unverified). Largest start capacitors are about 1500 uF, and 5000 uF is the reading rulebook's
 # own capacitance limit (common practice of the trade, no single source).
 PART_MAX_RATED_UF = 5000.0
+# The smallest motor capacitors are run capacitors of about 1 uF on small fans; under 0.1 uF is a slip of the
+# unit (nF or pF typed as uF) (common practice of the trade, no single source).
+PART_MIN_RATED_UF = 0.1
 PART_MAX_RATED_VOLTAGE_V = 1000.0
 # Tolerances in IEC 60252-1 markings run from +/-5 % for run capacitors to -0/+30 % for start ones; old
 # electrolytics are marked -20/+80 %. A minus tolerance past 50 % puts the end-of-life limit so low no
@@ -235,9 +349,9 @@ def part_problems(
     with np.errstate(invalid="ignore"):
         return [
             (
-                ~((rated > 0) & (rated <= PART_MAX_RATED_UF)),
+                ~((rated >= PART_MIN_RATED_UF) & (rated <= PART_MAX_RATED_UF)),
                 "rated_uf",
-                f"must be above 0 and at most {PART_MAX_RATED_UF:,.0f} µF: check the unit",
+                f"must be at least {PART_MIN_RATED_UF:g} and at most {PART_MAX_RATED_UF:,.0f} µF: check the unit",
             ),
             (
                 ~((minus >= 0) & (minus <= PART_MAX_TOLERANCE_MINUS_PCT)),
@@ -279,7 +393,8 @@ def first_problem_by_field(problems: list[tuple[np.ndarray, str, str]]) -> dict[
     errors: dict[str, str] = {}
     for rows, field_name, message in problems:
         if rows[0] and field_name not in errors:
-            errors[field_name] = message[0].upper() + message[1:] + "."
+            text = message if isinstance(message, str) else str(np.atleast_1d(message)[0])
+            errors[field_name] = text[0].upper() + text[1:] + "."
     return errors
 
 

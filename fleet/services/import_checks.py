@@ -16,9 +16,10 @@ from django.utils import timezone
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
+    commissioning_problems,
     fitting_problems,
     known_time_zone,
-    nameplate_problems,
+    motor_problems,
     part_problems,
     service_date_problems,
 )
@@ -51,6 +52,8 @@ from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.bulk import insert_frame
 
 READING_NUMBERS = list(Reading.MEASURED_FIELDS)
+# The register's numbers in the order `rules.motor_problems` takes them.
+MOTOR_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "rated_speed_rpm", "full_load_current_a", "output_w"]
 
 
 def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
@@ -330,6 +333,25 @@ def code_problems(problems: _Problems, codes: pd.Series, field_name: str) -> Non
     problems.add(codes.ne("") & ~codes.str.fullmatch(CODE_PATTERN), field_name, f"use {CODE_CHARACTERS}")
 
 
+def codes_in_any_case(problems: _Problems, codes: pd.Series, stored, what: str) -> np.ndarray:
+    """Codes unique in any case (the database's `*_unique_any_case`): a repeat in the file in any case, or a
+    code the register holds in another case, is refused at `code`; one it holds exactly is already there
+    (returned, to skip)."""
+    upper = codes.str.upper()
+    repeated_in_file(problems, upper.where(codes.ne("")), "code", f"the same {what}")
+    stored_by_upper = {code.upper(): code for code in stored}
+    held = upper.map(stored_by_upper)
+    other_case = held.notna() & held.ne(codes)
+    problems.add(
+        other_case.to_numpy(bool),
+        "code",
+        (held.astype(object).fillna("") + f" is in the register already: {what}s are unique in any case").to_numpy(
+            object
+        ),
+    )
+    return (held.notna() & ~other_case).to_numpy(bool)
+
+
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites and parts must exist; tags already there are skipped."""
     sites = dict(Site.objects.values_list("code", "id"))
@@ -354,16 +376,10 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ("load_type", Motor.LoadType.values),
     ):
         problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed))
-    volts, hertz, poles = numbers["rated_voltage_v"], numbers["frequency_hz"], numbers["poles"]
-    problems.add((volts <= 0) | (volts > 1000), "rated_voltage_v", "outside 1 to 1000 V")
-    problems.add(~np.isin(hertz, [50, 60]), "frequency_hz", "must be 50 or 60")
-    problems.add(~np.isin(poles, [2, 4, 6, 8, 10, 12]), "poles", "must be 2, 4, 6, 8, 10 or 12")
-    for rows, name, message in nameplate_problems(volts, numbers["full_load_current_a"], numbers["output_w"]):
+    volts = numbers["rated_voltage_v"]
+    # Every check constraint of a motor and the rulebook's bounds, by row and field, before any write.
+    for rows, name, message in motor_problems(*(numbers[name] for name in MOTOR_NUMBERS)):
         problems.add(rows, name, message)
-    synchronous = 120.0 * hertz / np.where(poles > 0, poles, np.nan)
-    problems.add(
-        numbers["rated_speed_rpm"] >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 f / poles)"
-    )
     kind = frame["motor_type"].str.lower()
     needs_run = kind.isin(["permanent_split", "two_value"])
     needs_start = kind.isin(["capacitor_start", "two_value"])
@@ -402,12 +418,20 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
             + " V "
             + UNDER_VOLTAGE_WORDS,
         )
+    today = np.datetime64(timezone.localdate(), "D")
+    dates = {}
     for name in ("fitted_on", "commissioned_on"):
-        parsed = pd.to_datetime(frame[name], errors="coerce", format="ISO8601")
-        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
-        # the history's rule for a service date (no motor or capacitor recorded here predates 1950)
-        for rows, _, message in service_date_problems(parsed.to_numpy(), "NaT", timezone.localdate())[:2]:
-            problems.add(rows, name, message)
+        dates[name] = parse_dates(frame[name])
+        # A date before 1678 is past pandas' range (NaT): say what is wrong with it, not "not a date".
+        ancient = frame[name].str.fullmatch(r"0*1[0-6][0-9]{2}-[0-9]{2}-[0-9]{2}|0[0-9]{3}-[0-9]{2}-[0-9]{2}")
+        problems.add(ancient & dates[name].isna(), name, "before 1950: check the date")
+        problems.add(frame[name].ne("") & dates[name].isna(), name, "not a date (use 2026-03-14)")
+    no_removal = np.full(len(frame), np.datetime64("NaT"), "datetime64[D]")
+    for rows, name, message in (
+        *service_date_problems(dates["fitted_on"].to_numpy("datetime64[D]"), no_removal, today),
+        *commissioning_problems(dates["commissioned_on"].to_numpy("datetime64[D]"), today),
+    ):
+        problems.add(rows, name, message)
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
@@ -476,8 +500,7 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         "time_zone",
         "not a time zone name: use one like Europe/Madrid, America/Chicago or UTC",
     )
-    repeated_in_file(problems, frame["code"].where(frame["code"].ne("")), "code", "the same site code")
-    already = frame["code"].isin(set(Site.objects.values_list("code", flat=True))).to_numpy()
+    already = codes_in_any_case(problems, frame["code"], Site.objects.values_list("code", flat=True), "site code")
     return _result(frame, problems, already, on_progress)
 
 
@@ -532,8 +555,9 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     ):
         given = frame[name].str.lower() if name == "dielectric" else frame[name].str.upper()
         problems.add(given.ne("") & ~given.isin(choices), name, "must be one of " + ", ".join(choices))
-    repeated_in_file(problems, frame["code"].where(frame["code"].ne("")), "code", "the same part code")
-    already = frame["code"].isin(set(CapacitorPart.objects.values_list("code", flat=True))).to_numpy()
+    already = codes_in_any_case(
+        problems, frame["code"], CapacitorPart.objects.values_list("code", flat=True), "part code"
+    )
     good = frame.copy()
     for name in PART_NUMBERS:
         good[name] = numbers[name]

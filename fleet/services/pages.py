@@ -53,11 +53,18 @@ def motor_with_capacitors(asset_tag: str):
         .prefetch_related(Prefetch("assessments", queryset=current_assessments(), to_attr="current"))
         .order_by("removed_on", "role", "-fitted_on")
     )
-    return (
+    tag = asset_tag.strip()
+    # Tags are unique in any case (motor_tag_unique_any_case); should two ever differ only in case,
+    # the one typed exactly is shown, never a server error.
+    matches = list(
         Motor.objects.select_related("site")
         .prefetch_related(Prefetch("capacitors", queryset=capacitors, to_attr="fitted"))
-        .get(asset_tag__iexact=asset_tag.strip())
+        .filter(asset_tag__iexact=tag)
+        .order_by("id")[:2]
     )
+    if not matches:
+        raise Motor.DoesNotExist(f"No motor {tag}")
+    return next((motor for motor in matches if motor.asset_tag == tag), matches[0])
 
 
 def label_motors(site, tag: str | None = None):

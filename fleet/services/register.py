@@ -6,6 +6,7 @@ from django.core.exceptions import ValidationError
 from django.db import transaction
 
 from fleet.audit import audited_bulk_create, audited_bulk_update
+from fleet.engineering.rules import ROUTE_ORDER_MAX
 from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
 from .bulk import storable_ids
@@ -29,9 +30,11 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
         except ValueError:
             value = -1
         if not str(text).strip():
-            errors[motor.asset_tag] = "is empty: type its place on the round, a whole number from 0 to 99999."
-        elif not 0 <= value <= 99999:
-            errors[motor.asset_tag] = f"{text!r} is not a whole number from 0 to 99999."
+            errors[motor.asset_tag] = (
+                f"is empty: type its place on the round, a whole number from 0 to {ROUTE_ORDER_MAX}."
+            )
+        elif not 0 <= value <= ROUTE_ORDER_MAX:
+            errors[motor.asset_tag] = f"{text!r} is not a whole number from 0 to {ROUTE_ORDER_MAX}."
         else:
             motor.route_order = value
     if errors:
