@@ -253,10 +253,9 @@ class Motor(models.Model):
         indexes = [
             models.Index(fields=["site", "route_order", "asset_tag"], name="motor_walking_order"),
             models.Index(fields=["site", "status", "last_read_at"], name="motor_last_read"),
-            # Finding a motor by its tag in any case (the motor page, Find).
-            models.Index(Upper("asset_tag"), name="motor_tag_any_case"),
         ]
         constraints = [
+            # Also the index that finds a motor by its tag in any case (the motor page, Find).
             unique_any_case("asset_tag", "motor_tag_unique_any_case", "asset tag"),
             models.CheckConstraint(
                 condition=Q(rated_voltage_v__gt=0, rated_voltage_v__lte=1000),

@@ -165,7 +165,7 @@ def test_a_whole_tag_typed_with_a_space_is_looked_up_by_the_tag_index():
             cursor.execute("SET LOCAL enable_seqscan = off")
         cursor.execute(("EXPLAIN " if connection.vendor == "postgresql" else "EXPLAIN QUERY PLAN ") + queries[0]["sql"])
         plan = str(cursor.fetchall())
-    assert "motor_tag_any_case" in plan, plan
+    assert "motor_tag_unique_any_case" in plan, plan
 
 
 def test_finding_keeps_to_the_users_sites_and_takes_constant_queries(client, django_assert_max_num_queries):

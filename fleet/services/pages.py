@@ -103,7 +103,7 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     Tags match ignoring case, with a space, '-', '_', '.' and '/' read alike ("CST 0093", "cst_0093"
     and "CST-0093" find CST-0093), whole or in part ("0093", "cst 009"); otherwise every word must
     appear in the motor's location or its site's name ("cool store condensing"). Two queries, whatever
-    the fleet's size. The whole tag is looked up by the index on its capitals (`motor_tag_any_case`):
+    the fleet's size. The whole tag is looked up by the index on its capitals (`motor_tag_unique_any_case`):
     the text as typed, and its key with each separator a tag may hold ("CST-0093", "CST_0093",
     "CST.0093"), so the usual look-up stays an index probe at 100,000 motors. Only when that finds
     nothing are the keys compared, in part, with `_stored_tag_key`: a scan of the tags, as the
