@@ -91,8 +91,20 @@ def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -
     )
     ticks = np.array([0.01, 0.05, 0.1, 0.2, 0.5, 0.9, 0.99])
     figure.update_yaxes(tickvals=np.log(-np.log1p(-ticks)).tolist(), ticktext=[f"{100 * t:g} %" for t in ticks])
-    figure.update_xaxes(type="log")
+    ages = _log_ticks(line_t[0], line_t[-1])
+    figure.update_xaxes(type="log", tickvals=ages, ticktext=[f"{age:g}" for age in ages])
     return _styled(figure, height=360, xaxis_title="age (years)", yaxis_title="fraction failed")
+
+
+def _log_ticks(low: float, high: float) -> list[float]:
+    """Ticks of a log axis from `low` to `high`, each label a number in full (where Plotly's own read
+    "5 0.1 2 5 1"): the powers of ten over more than 2.5 decades, 1, 2 and 5 times them over more than
+    one, every whole step within one."""
+    decades = np.log10(high / low)
+    steps = (1,) if decades > 2.5 else (1, 2, 5) if decades > 1 else range(1, 10)
+    powers = range(int(np.floor(np.log10(low))), int(np.ceil(np.log10(high))) + 1)
+    ticks = [float(f"{step}e{power}") for power in powers for step in steps]
+    return [tick for tick in ticks if low <= tick <= high]
 
 
 def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_age: float | None) -> dict:
@@ -218,24 +230,11 @@ SPARES_HEIGHT_PX = 460  # room for one legend line per part on a phone
 SPARES_COST_TITLE = "cost (parts' prices)"
 
 
-def _switch(labels: list[str], groups: list[int]) -> list[dict]:
-    """Buttons that show one group of traces at a time (`groups`: the group of each trace)."""
-    return [
-        {
-            "type": "buttons",
-            "direction": "right",
-            "x": 0,
-            "xanchor": "left",
-            "y": 1.02,
-            "yanchor": "bottom",
-            "pad": {"t": 0, "b": 0},
-            "showactive": True,
-            "buttons": [
-                {"label": label, "method": "restyle", "args": [{"visible": [g == shown for g in groups]}]}
-                for shown, label in enumerate(labels)
-            ],
-        }
-    ]
+def _switch(labels: list[str], groups: list[int]) -> dict:
+    """A switch that shows one group of traces at a time (`groups`: the group of each trace), the first
+    shown at first: the page draws it above the chart as buttons a gloved finger can hit (page.js), where
+    Plotly's own in-chart buttons are 33 px tall."""
+    return {"switch": [{"label": label, "visible": [g == shown for g in groups]} for shown, label in enumerate(labels)]}
 
 
 def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list[int]) -> dict:
@@ -261,12 +260,12 @@ def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list
             hovertemplate="week of %{x|%Y-%m-%d}: %{y} site visits<extra></extra>",
         )
     )
-    buttons = _switch(["by risk level", "by site"], [*groups, -1])
-    for button in buttons[0]["buttons"]:
-        button["args"][0]["visible"][-1] = True  # the visits stay
+    switch = _switch(["by risk level", "by site"], [*groups, -1])
+    for option in switch["switch"]:
+        option["visible"][-1] = True  # the visits stay
     figure.update_layout(
         barmode="stack",
-        updatemenus=buttons,
+        meta=switch,
         yaxis2={
             "overlaying": "y",
             "side": "right",
@@ -281,7 +280,7 @@ def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list
     weekly = np.sum([counts for counts in by_risk.values()], axis=0) if by_risk else [0]
     figure.update_layout(yaxis={"tick0": 0, "dtick": _whole_step(max(weekly))})
     styled = _styled(figure, height=WORKLOAD_HEIGHT_PX, yaxis_title="replacements")
-    styled["layout"]["margin"].update(t=44, r=50)
+    styled["layout"]["margin"].update(r=50)
     return styled
 
 

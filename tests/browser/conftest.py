@@ -6,12 +6,26 @@ import threading
 from pathlib import Path
 
 import pytest
+from django.contrib.auth.models import User
+from django.core.management import call_command
 from django.core.servers.basehttp import ThreadedWSGIServer
 from django.db import connection
 from django.test.testcases import LiveServerThread
 
+from fleet.models import ImportJob
+from fleet.services.import_jobs import create_job
+from fleet.services.workorders import plan_work_orders
+
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+# Sign-ins the demo makes (fleet/services/demo.py `ensure_users`).
+ROLES = {
+    "technician": ("tech", "reading-route-7"),
+    "planner": ("planner", "weekly-plan-7"),
+    "reliability engineer": ("engineer", "life-data-7"),
+    "administrator": ("admin", "register-keeper-7"),
+}
 
 
 class OneRequestAtATimeOnSQLite(ThreadedWSGIServer):
@@ -78,3 +92,30 @@ def phone(browser, live_server):
     page.shot = shot
     yield page
     context.close()
+
+
+@pytest.fixture
+def demo_fleet(transactional_db):
+    """The demo at a twentieth of its size, with work orders planned and an import waiting to be mapped."""
+    call_command("demo", "--no-serve", "--scale", "0.05")
+    plan_work_orders(horizon_days=90)
+    technician = ROLES["technician"][0]
+    create_job(
+        kind=ImportJob.Kind.READINGS,
+        filename="route-cst.csv",
+        content=b'asset_tag,role,taken_at,capacitance_uf\nCST-0001,run,2026-01-05 09:00,"3,9"\n',
+        user=User.objects.get(username=technician),
+    )
+
+
+def demo_page(browser, live_server, role: str, width: int = 390, height: int = 844):
+    """A new browser context at `width` x `height` px, signed in as the demo's user of `role`: (context, page)."""
+    context = browser.new_context(viewport={"width": width, "height": height}, base_url=live_server.url)
+    page = context.new_page()
+    username, password = ROLES[role]
+    page.goto("/login/")
+    page.fill("#id_username", username)
+    page.fill("#id_password", password)
+    page.click("button[type=submit]")
+    page.wait_for_url("**/")
+    return context, page

@@ -13,27 +13,16 @@ import re
 from urllib.parse import urlsplit
 
 import pytest
-from django.contrib.auth.models import User
-from django.core.management import call_command
 from django.urls import Resolver404, resolve
 
-from fleet.models import FittedCapacitor, ImportJob, Reading, WorkOrder
-from fleet.services.import_jobs import create_job
-from fleet.services.workorders import plan_work_orders
+from fleet.models import FittedCapacitor, Reading, WorkOrder
 from tests.factories import make_fitted_capacitor, make_user
 
-from .conftest import ARTIFACTS
+from .conftest import ARTIFACTS, ROLES, demo_page
 from .test_technician import sign_in
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
-# Sign-ins the demo makes (fleet/services/demo.py `ensure_users`).
-ROLES = {
-    "technician": ("tech", "reading-route-7"),
-    "planner": ("planner", "weekly-plan-7"),
-    "reliability engineer": ("engineer", "life-data-7"),
-    "administrator": ("admin", "register-keeper-7"),
-}
 # Not pages of ours to lay out: the register (Django's admin), the API, downloads, the sign-out.
 NOT_PAGES = re.compile(r"^/(admin|api|assets|static)/|\.(csv|xlsx|parquet|json)$|/logout/")
 PER_KIND = 2
@@ -148,20 +137,6 @@ def _visit_every_page(page, seeds: list[str], username: str, problems: list[str]
     return sorted(per_kind)
 
 
-@pytest.fixture
-def demo_fleet(transactional_db):
-    """The demo at a twentieth of its size, with work orders planned and an import waiting to be mapped."""
-    call_command("demo", "--no-serve", "--scale", "0.05")
-    plan_work_orders(horizon_days=90)
-    technician = ROLES["technician"][0]
-    create_job(
-        kind=ImportJob.Kind.READINGS,
-        filename="route-cst.csv",
-        content=b'asset_tag,role,taken_at,capacitance_uf\nCST-0001,run,2026-01-05 09:00,"3,9"\n',
-        user=User.objects.get(username=technician),
-    )
-
-
 def test_every_page_fits_a_phone_and_a_desktop_for_every_role(browser, live_server, demo_fleet):
     (ARTIFACTS / "pages").mkdir(parents=True, exist_ok=True)
     problems, script_errors, kinds_seen = [], [], set()
@@ -244,14 +219,7 @@ IN_VIEW_ON_ONE_LINE = r"""(selector) => [...document.querySelectorAll(selector)]
 def test_on_a_phone_the_columns_that_matter_are_in_view_and_codes_stay_whole(browser, live_server, demo_fleet):
     """At 390 px: the stock page's quantities (its only editable column), the home page's replace-by dates
     and the visit sheet's part codes are on screen without scrolling the table, and no code breaks."""
-    context = browser.new_context(viewport={"width": 390, "height": 900}, base_url=live_server.url)
-    page = context.new_page()
-    username, password = ROLES["planner"]
-    page.goto("/login/")
-    page.fill("#id_username", username)
-    page.fill("#id_password", password)
-    page.click("button[type=submit]")
-    page.wait_for_url("**/")
+    context, page = demo_page(browser, live_server, "planner", width=390, height=900)
     site = FittedCapacitor.objects.filter(removed_on__isnull=True).values_list("motor__site__code", flat=True)[0]
     visit = WorkOrder.objects.filter(
         state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], fitted_capacitor__motor__site__code=site

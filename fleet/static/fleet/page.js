@@ -35,15 +35,44 @@
       try { sessionStorage.setItem(mine, box.open ? "0" : "1"); } catch (error) { /* storage off */ }
     });
   });
-  // Charts: each box names the JSON of its figure (data-figure). Plotly's own resize leaves a
-  // wrapped legend where the narrower layout put it (over the bars once the window is wide again),
-  // so when the width changes each chart is drawn again from its figure as sent: the layout of the
-  // new width, as a fresh load gives it. The shown group of a chart with buttons is kept.
+  // Charts: each box names the JSON of its figure (data-figure); every chart is drawn here, with one
+  // set of options. On a phone (the width site.css calls one) the mode bar is off: a tap showed it over
+  // the legends and notes at the chart's top. Plotly's own resize leaves a wrapped legend where the
+  // narrower layout put it (over the bars once the window is wide again), so when the width changes
+  // each chart is drawn again from its figure as sent, with the options of the new width: the layout
+  // a fresh load gives. The group of traces a chart's switch shows is kept.
   const charts = [...document.querySelectorAll("[data-figure]")];
   if (charts.length && window.Plotly) {
     const figure = (box) => JSON.parse(document.getElementById(box.dataset.figure).textContent);
-    const options = { responsive: true, displaylogo: false };
-    charts.forEach((box) => { const fig = figure(box); Plotly.newPlot(box, fig.data, fig.layout, options); });
+    const phone = window.matchMedia("(max-width: 640px)");
+    const options = () => ({ responsive: true, displaylogo: false, displayModeBar: phone.matches ? false : "hover" });
+    // A figure's switch (layout.meta.switch: each option's label and the traces it shows) is a row of
+    // buttons above its chart.
+    const addSwitch = (box, fig) => {
+      const switchOptions = (fig.layout.meta || {}).switch || [];
+      if (!switchOptions.length) return;
+      const row = document.createElement("div");
+      row.className = "chart-switch no-print";
+      row.setAttribute("role", "group");
+      switchOptions.forEach((option, k) => {
+        const button = document.createElement("button");
+        button.type = "button";
+        button.className = "button secondary";
+        button.textContent = option.label;
+        button.setAttribute("aria-pressed", String(k === 0));
+        button.addEventListener("click", () => {
+          Plotly.restyle(box, { visible: option.visible });
+          row.querySelectorAll("button").forEach((b) => b.setAttribute("aria-pressed", String(b === button)));
+        });
+        row.appendChild(button);
+      });
+      box.before(row);
+    };
+    charts.forEach((box) => {
+      const fig = figure(box);
+      addSwitch(box, fig);
+      Plotly.newPlot(box, fig.data, fig.layout, options());
+    });
     let drawnWidth = window.innerWidth;
     let pending = null;
     window.addEventListener("resize", () => {
@@ -53,9 +82,8 @@
         drawnWidth = window.innerWidth;
         charts.forEach((box) => {
           const fig = figure(box);
-          if (box.layout && box.layout.updatemenus) fig.layout.updatemenus = box.layout.updatemenus;
           (box.data || []).forEach((trace, k) => { if (fig.data[k]) fig.data[k].visible = trace.visible; });
-          Plotly.react(box, fig.data, fig.layout, options);
+          Plotly.react(box, fig.data, fig.layout, options());
         });
       }, 250);
     });

@@ -1,0 +1,209 @@
+"""Pages a technician or planner works from on a phone (390 x 844 px), measured with getBoundingClientRect:
+every table cell readable (nothing cut off by its box, no word broken), targets a gloved finger can hit
+(44 px tall: the WCAG 2.2 enhanced target size [pub] the menu and back links keep), the visit sheet's
+links and its tick boxes kept for paper. At 1366 px the desktop tables keep their compact rows.
+"""
+
+import datetime as dt
+
+import pytest
+from django.utils import timezone
+
+from fleet.models import FittedCapacitor, Reading, WorkOrder
+from fleet.services.assessments import refit_fitted_capacitors
+from tests.factories import make_fitted_capacitor, make_part, make_user, quarterly_readings
+
+from .conftest import ARTIFACTS, demo_page
+from .test_every_page import _load
+from .test_technician import sign_in
+
+pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
+
+GLOVE_PX = 44
+
+# Each visible table cell under `selector`: inside its scrolling box and the window, each word on one line.
+CELLS_UNREADABLE = r"""(selector) => {
+  const problems = [];
+  for (const cell of document.querySelectorAll(selector)) {
+    if (!cell.getClientRects().length) continue;
+    const frame = cell.closest(".table-scroll");
+    const edges = frame ? frame.getBoundingClientRect() : {left: 0, right: window.innerWidth};
+    const left = Math.max(edges.left, 0) - 1, right = Math.min(edges.right, window.innerWidth) + 1;
+    const box = cell.getBoundingClientRect();
+    const text = cell.textContent.trim().replace(/\s+/g, " ").slice(0, 40);
+    if (box.left < left || box.right > right)
+      problems.push(`cut off: "${text}" at ${Math.round(box.left)}-${Math.round(box.right)} px`);
+    const walker = document.createTreeWalker(cell, NodeFilter.SHOW_TEXT);
+    while (walker.nextNode()) {
+      const node = walker.currentNode;
+      for (const word of node.data.matchAll(/[^\s/_-]+/g)) {  // a break after a hyphen is no cut
+        const range = document.createRange();
+        range.setStart(node, word.index);
+        range.setEnd(node, word.index + word[0].length);
+        const rects = [...range.getClientRects()].filter((r) => r.width > 0);
+        if (new Set(rects.map((r) => Math.round(r.top))).size > 1) problems.push(`word broken: "${word[0]}"`);
+      }
+    }
+  }
+  return problems;
+}"""
+
+# The box a finger can hit for each visible element: a control wrapped in its label takes the label's box.
+TARGETS = r"""([selector, text]) => [...document.querySelectorAll(selector)]
+  .filter((e) => e.getClientRects().length && (!text || e.textContent.trim() === text))
+  .map((e) => {
+    const box = (e.closest("label") || e).getBoundingClientRect();
+    return {what: e.outerHTML.slice(0, 80), height: Math.round(box.height * 10) / 10};
+  })"""
+
+
+ONE_LINE_LINK_HEIGHTS = """(selector) => [...document.querySelectorAll(selector)]
+  .filter((a) => a.getClientRects().length === 1).map((a) => a.getBoundingClientRect().height)"""
+
+
+def _small_targets(page, selector, text=None):
+    found = page.evaluate(TARGETS, [selector, text])
+    assert found, f"nothing matches {selector} {text or ''} on {page.url}"
+    return [f for f in found if f["height"] < GLOVE_PX]
+
+
+def test_every_cell_of_the_route_the_last_readings_and_the_imports_is_readable(browser, live_server, demo_fleet):
+    """At 390 px the route's Status column showed "t r", the reading form's How column was off-screen, the
+    imports' "Imported" heading read "Importe" and their headings tables cut descriptions: the boxes
+    scrolled with no sign of it. Every cell is now inside its box at 390 px, and still at 1366 px and
+    after resizing 1366 -> 390 -> 1366."""
+    site = FittedCapacitor.objects.filter(removed_on__isnull=True).values_list("motor__site__code", flat=True)[0]
+    fitted_capacitor = FittedCapacitor.objects.filter(removed_on__isnull=True, readings__isnull=False).first()
+    paths = [f"/sites/{site}/route/", f"/fitted-capacitors/{fitted_capacitor.id}/reading/", "/imports/"]
+    context, page = demo_page(browser, live_server, "administrator", width=1366, height=900)
+    problems = []
+    for path in paths:
+        _load(page, path)
+        for width in (1366, 390, 1366, 390):
+            page.set_viewport_size({"width": width, "height": 844 if width < 600 else 900})
+            assert page.locator("main td").count(), path
+            problems += [(width, path, problem) for problem in page.evaluate(CELLS_UNREADABLE, "main td, main th")]
+            if page.evaluate("document.documentElement.scrollWidth") > width:
+                problems.append((width, path, "the page scrolls sideways"))
+        page.screenshot(path=str(ARTIFACTS / f"phone-cells-{path.strip('/').split('/')[-1]}.png"), full_page=True)
+    assert not problems, "\n".join(str(p) for p in problems[::3])
+    # The last readings take a few lines each, not a tall column of wrapped words.
+    _load(page, paths[1])
+    heights = page.eval_on_selector_all("main tbody tr", "rows => rows.map((r) => r.getBoundingClientRect().height)")
+    assert heights and max(heights) < 95, heights
+    context.close()
+
+
+def test_links_in_the_lists_are_glove_sized_on_a_phone_and_compact_on_a_desktop(browser, live_server, demo_fleet):
+    """The motor-tag and part links of the home, plan, work-order and motor pages were 20 px tall lines of
+    text at 390 px. At 1366 px they stay lines of text, so the desktop tables keep their rows."""
+    removed = FittedCapacitor.objects.filter(removed_on__isnull=False).select_related("motor").first()
+    site = FittedCapacitor.objects.filter(removed_on__isnull=True).values_list("motor__site__code", flat=True)[0]
+    visit = WorkOrder.objects.filter(
+        state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], fitted_capacitor__motor__site__code=site
+    ).first()
+    paths = ["/", "/plan/", "/work-orders/", f"/motors/{removed.motor.asset_tag}/"]
+    paths.append(f"/work-orders/{site}/{visit.due_on.isoformat()}/")
+    context, page = demo_page(browser, live_server, "planner")
+    small = []
+    for path in paths:
+        _load(page, path)
+        small += [(path, target) for target in _small_targets(page, "main td a")[:2]]
+    assert not small, small
+    page.set_viewport_size({"width": 1366, "height": 900})
+    for path in paths[:2]:
+        _load(page, path)
+        one_line = page.evaluate(ONE_LINE_LINK_HEIGHTS, "main td a")
+        assert one_line and max(one_line) < GLOVE_PX, (path, one_line)
+    context.close()
+
+
+def test_the_replacement_and_import_forms_have_glove_sized_controls(phone):
+    """At 390 px: "Why the old one came out" rows 36 px (radios 26 px), the override checkbox 26 px,
+    "Pairs that make up the value" 25 px, the import's file picker 21 px."""
+    fitted_capacitor = make_fitted_capacitor()
+    make_part(code="FILM-2U0", rated_uf=2.0)  # two in parallel make the fan's 4 uF: a pair is listed
+    sign_in(phone, make_user("administrator"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/replace/")
+    assert phone.locator("details.pairs").count()
+    small = [_small_targets(phone, s) for s in ("input[name=removal_reason]", "#id_substitute_override")]
+    small.append(_small_targets(phone, "details.pairs > summary"))
+    phone.shot("phone-replace-targets")
+    phone.goto("/imports/")
+    small += [_small_targets(phone, "input[type=file]"), _small_targets(phone, "input[name=kind]")]
+    phone.shot("phone-import-targets")
+    assert not any(small), small
+    phone.go_back()
+    phone.click("text=Fit this part against the advice")  # the label's text ticks the box
+    assert phone.is_checked("#id_substitute_override")
+    phone.click("details.pairs > summary")
+    assert phone.locator("details.pairs").get_attribute("open") is not None
+
+
+def test_a_reading_far_from_its_trend_is_confirmed_with_a_button_in_the_summary(phone):
+    """ "Confirm it" in the summary was a line of text linking down the page; it is a button that saves."""
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.3")
+    phone.click("#save")
+    phone.wait_for_selector("text=far from this capacitor's trend", timeout=15000)
+    assert not _small_targets(phone, "#error-summary button")
+    phone.shot("phone-confirm-in-summary")
+    phone.click("#error-summary button")
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.filter(capacitance_uf=3.3, outlier_confirmed=True).count() == 1
+
+
+def test_the_dashboard_switch_is_glove_sized_and_switches(phone):
+    """The workload chart's "by risk level" and "by site" were Plotly's 33 px in-chart buttons."""
+    from ..test_dashboard import fleet
+
+    fleet(per_site=2)  # two sites
+    sign_in(phone, make_user("planner"))
+    phone.goto("/dashboard/")
+    phone.wait_for_selector("#workload-chart .main-svg")
+    for label in ("by risk level", "by site"):
+        assert not _small_targets(phone, "button, .updatemenu-button", label), label
+    phone.get_by_role("button", name="by site").click()
+    shown = "() => document.getElementById('workload-chart').data.filter((t) => t.visible !== false).map((t) => t.name)"
+    for width in (390, 1366, 390):  # the group shown stays through a redraw for another width
+        phone.set_viewport_size({"width": width, "height": 900})
+        phone.wait_for_timeout(600)
+        names = phone.evaluate(shown)
+        assert "replace now" not in names and "site visits" in names and len(names) == 3, (width, names)
+    assert phone.get_by_role("button", name="by site").get_attribute("aria-pressed") == "true"
+    phone.shot("phone-dashboard-switch")
+
+
+def test_the_visit_sheet_links_its_motors_and_parts_and_keeps_tick_boxes_for_paper(browser, live_server, demo_fleet):
+    """On screen each row's "Done" box looked tappable and did nothing, and the motor tags were plain text."""
+    order = (
+        WorkOrder.objects.filter(state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED])
+        .select_related("motor", "fitted_capacitor")
+        .first()
+    )
+    sheet = f"/work-orders/{order.motor.site.code}/{order.due_on.isoformat()}/"
+    replace = f"main td a[href='/fitted-capacitors/{order.fitted_capacitor_id}/replace/']"
+    boxes = """() => [...document.querySelectorAll("main td, main th")]
+      .filter((c) => c.textContent.includes("\u2610") && c.getClientRects().length).length"""
+    context, page = demo_page(browser, live_server, "planner")  # who cannot record a replacement: no part link
+    _load(page, sheet)
+    assert page.locator(f"main td a[href='/motors/{order.motor.asset_tag}/']").count() == 1
+    assert page.locator(replace).count() == 0
+    context.close()
+    context, page = demo_page(browser, live_server, "technician")
+    _load(page, sheet)
+    for width in (390, 1366):
+        page.set_viewport_size({"width": width, "height": 900})
+        assert page.evaluate(boxes) == 0, width
+        assert page.locator(f"main td a[href='/motors/{order.motor.asset_tag}/']").count() == 1
+        assert page.locator(replace).count() == 1
+        page.screenshot(path=str(ARTIFACTS / f"visit-sheet-screen-{width}.png"), full_page=True)
+    page.emulate_media(media="print")
+    rows = page.locator("main tbody tr").count()
+    assert page.evaluate(boxes) == rows, rows
+    page.screenshot(path=str(ARTIFACTS / "visit-sheet-print.png"), full_page=True)
+    context.close()
