@@ -35,10 +35,13 @@ from fleet.engineering.planning import (
 from fleet.engineering.rules import (
     CIRCUIT_OHM_FIELDS,
     CONDITION_SOUND,
+    ELECTROLYTIC_RUN_WORDS,
     METHOD_IN_CIRCUIT,
     METHOD_METER,
+    UNDER_VOLTAGE_WORDS,
     commissioning_problems,
     first_problem_by_field,
+    fitting_problems,
     known_time_zone,
     motor_problems,
     part_problems,
@@ -506,8 +509,6 @@ class FittedCapacitor(models.Model):
 
     def _fitting_rules(self):
         """The fitting rules the register import applies (`rules.fitting_problems`), for the admin."""
-        from .engineering.rules import ELECTROLYTIC_RUN_WORDS, UNDER_VOLTAGE_WORDS, fitting_problems
-
         if self.part_id is None or self.motor_id is None:
             return
         part, motor = self.part, self.motor
