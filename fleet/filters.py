@@ -90,13 +90,14 @@ class ReadingFilter(django_filters.FilterSet):
         fields = ["site", "part", "motor", "since", "until"]
 
     def taken_since(self, queryset, name, value):
-        return queryset.filter(taken_at__gte=_utc_midnight(value))
+        return queryset.filter(taken_at__gte=utc_midnight(value))
 
     def taken_until(self, queryset, name, value):
-        return queryset.filter(taken_at__lt=_utc_midnight(value + dt.timedelta(days=1)))
+        return queryset.filter(taken_at__lt=utc_midnight(value + dt.timedelta(days=1)))
 
 
-def _utc_midnight(day: dt.date) -> dt.datetime:
+def utc_midnight(day: dt.date) -> dt.datetime:
+    """The start of `day` at UTC: where a filter's day, and the reading rule's quarter, begin."""
     return dt.datetime.combine(day, dt.time.min, tzinfo=dt.UTC)
 
 

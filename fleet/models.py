@@ -246,8 +246,9 @@ class Motor(models.Model):
         null=True,
         blank=True,
         editable=False,
-        help_text="Newest reading of any capacitor fitted to the motor, in service or removed since; "
-        "kept by database triggers on readings and on a capacitor's motor",
+        help_text="When every capacitor in service on the motor had last been read: the oldest of its "
+        "positions' newest readings (a position's predecessors included, corrected readings left out); "
+        "empty while a position was never read; kept by database triggers on readings and capacitors",
     )
 
     class Meta:

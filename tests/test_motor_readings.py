@@ -1,9 +1,11 @@
-"""When a motor was read: when any capacitor fitted to it (either role, in service or removed since) was
-read; its last reading is the newest such reading, stored as `Motor.last_read_at`. The dashboard, the
-route pages it links to, the ledger behind the dashboard and the daily digest follow that one rule.
-[trade] readings are quarterly; overdue after 91 days and 14 of grace (the dashboard's words). The
-rule on removed capacitors is ours: a reading is a visit to the motor, whatever became of the
-capacitor read."""
+"""When a motor was read: when every capacitor in service on it was read. Its last reading, stored as
+`Motor.last_read_at`, is the oldest of its positions' newest readings; a position is a role on the motor,
+the capacitors it replaced included, and a reading a correction superseded does not count. The route
+pages, the dashboard, the ledger behind it and the daily digest follow that one rule.
+[trade] readings are quarterly, of every capacitor (the electrolytic start capacitor, which dries out,
+included); overdue after 91 days and 14 of grace (the dashboard's words). Counting a reading of the
+replaced capacitor for its successor's place is ours: a reading on the removal day is a visit to that
+place, whatever became of the capacitor read."""
 
 from __future__ import annotations
 
@@ -23,10 +25,14 @@ from tests.factories import make_fitted_capacitor, make_motor, make_part, make_r
 pytestmark = pytest.mark.django_db
 
 
-def remove(fitted_capacitor: FittedCapacitor, day: dt.date) -> FittedCapacitor:
-    """Take the capacitor out on `day` and fit its successor the same day."""
+def remove(fitted_capacitor: FittedCapacitor, day: dt.date, successor: bool = True) -> FittedCapacitor | None:
+    """Take the capacitor out on `day` and (`successor`) fit another in its place the same day."""
     FittedCapacitor.objects.filter(pk=fitted_capacitor.pk).update(removed_on=day, removal_reason="failed")
-    return make_fitted_capacitor(motor=fitted_capacitor.motor, part=fitted_capacitor.part, fitted_on=day)
+    if successor:
+        return make_fitted_capacitor(
+            motor=fitted_capacitor.motor, part=fitted_capacitor.part, role=fitted_capacitor.role, fitted_on=day
+        )
+    return None
 
 
 class Round:
@@ -38,40 +44,54 @@ class Round:
         self.today = timezone.localdate()
         midnight = dt.datetime.combine(self.today, dt.time(), tzinfo=dt.UTC)
         self.read_today = midnight + (now - midnight) / 2  # today, before now
-        long_ago = now - dt.timedelta(days=200)
+        self.long_ago = now - dt.timedelta(days=200)
         self.site = make_site(code)
-        part, start_part = make_part(), make_part(rated_uf=80.0, dielectric="electrolytic")
+        self.part, self.start_part = make_part(), make_part(rated_uf=80.0, dielectric="electrolytic")
 
         def motor(n):
             return make_motor(site=self.site, route_order=n, commissioned_on=dt.date(2020, 1, 1))
 
-        # Read today on its run capacitor, which came out today (read below its limit and replaced);
-        # its start capacitor, in service, was last read 200 days ago.
+        # Both places read today: the run capacitor's reading was taken as it came out (read below its
+        # limit and replaced) and counts for its successor's place.
         self.replaced = motor(1)
-        run = make_fitted_capacitor(motor=self.replaced, part=part)
-        make_reading(run, taken_at=long_ago)
-        self.replaced_start = make_fitted_capacitor(motor=self.replaced, part=start_part, role="start")
-        make_reading(self.replaced_start, taken_at=long_ago)
+        run = make_fitted_capacitor(motor=self.replaced, part=self.part)
+        make_reading(run, taken_at=self.long_ago)
+        start = make_fitted_capacitor(motor=self.replaced, part=self.start_part, role="start")
+        make_reading(start, taken_at=self.read_today)
         remove(run, self.today)
         make_reading(run, taken_at=self.read_today, capacitance_uf=3.5)
 
-        # Last read 120 days ago on the start capacitor in service, 10 days ago on a run capacitor
-        # removed that day: the removed one's reading is the newer.
-        self.newer_on_removed = motor(2)
-        self.newer_start = make_fitted_capacitor(motor=self.newer_on_removed, part=start_part, role="start")
-        make_reading(self.newer_start, taken_at=now - dt.timedelta(days=120))
-        removed = make_fitted_capacitor(motor=self.newer_on_removed, part=part)
+        # Half read: the run capacitor today, the start capacitor 200 days ago. Overdue for its start.
+        self.half_read = motor(2)
+        self.half_read_run = make_fitted_capacitor(motor=self.half_read, part=self.part)
+        make_reading(self.half_read_run, taken_at=self.read_today)
+        self.half_read_start = make_fitted_capacitor(motor=self.half_read, part=self.start_part, role="start")
+        make_reading(self.half_read_start, taken_at=self.long_ago)
+
+        # Its start capacitor was taken out 10 days ago and not replaced (last read 200 days ago): only
+        # the run capacitor, read 10 days ago, is left to read.
+        self.start_taken_out = motor(3)
         self.ten_days_ago = now - dt.timedelta(days=10)
-        remove(removed, timezone.localdate(self.ten_days_ago))
-        make_reading(removed, taken_at=self.ten_days_ago)
+        run = make_fitted_capacitor(motor=self.start_taken_out, part=self.part)
+        make_reading(run, taken_at=self.ten_days_ago)
+        self.taken_out = make_fitted_capacitor(motor=self.start_taken_out, part=self.start_part, role="start")
+        make_reading(self.taken_out, taken_at=self.long_ago)
+        remove(self.taken_out, timezone.localdate(self.ten_days_ago), successor=False)
+
+        # Read "today" by a mistyped date, corrected to 120 days ago: overdue.
+        self.corrected = motor(4)
+        self.corrected_run = make_fitted_capacitor(motor=self.corrected, part=self.part)
+        self.mistyped = make_reading(self.corrected_run, taken_at=self.read_today)
+        self.hundred_twenty_days_ago = now - dt.timedelta(days=120)
+        make_reading(self.corrected_run, taken_at=self.hundred_twenty_days_ago, supersedes=self.mistyped)
 
         # Overdue: read 200 days ago only; and never read since commissioned in 2020.
-        self.stale = motor(3)
-        self.stale_run = make_fitted_capacitor(motor=self.stale, part=part)
-        make_reading(self.stale_run, taken_at=long_ago)
-        self.never = motor(4)
-        self.never_run = make_fitted_capacitor(motor=self.never, part=part)
-        self.overdue = {self.stale.asset_tag, self.never.asset_tag}
+        self.stale = motor(5)
+        self.stale_run = make_fitted_capacitor(motor=self.stale, part=self.part)
+        make_reading(self.stale_run, taken_at=self.long_ago)
+        self.never = motor(6)
+        self.never_run = make_fitted_capacitor(motor=self.never, part=self.part)
+        self.overdue = {self.half_read.asset_tag, self.corrected.asset_tag, self.stale.asset_tag, self.never.asset_tag}
 
 
 def route_rows(html: str) -> dict[str, str]:
@@ -85,26 +105,59 @@ def route_rows(html: str) -> dict[str, str]:
     return rows
 
 
-def test_a_motors_last_reading_is_the_newest_of_any_capacitor_fitted_to_it():
+def test_a_motors_last_reading_is_the_oldest_of_its_places_newest_readings():
     scene = Round()
     last_read = dict(Motor.objects.values_list("asset_tag", "last_read_at"))
-    assert last_read[scene.replaced.asset_tag] == scene.read_today
-    assert last_read[scene.newer_on_removed.asset_tag] == scene.ten_days_ago
+    assert last_read[scene.replaced.asset_tag] == scene.read_today  # the run place: its predecessor's reading
+    assert last_read[scene.half_read.asset_tag] == scene.long_ago  # its start capacitor's
+    assert last_read[scene.start_taken_out.asset_tag] == scene.ten_days_ago  # a place no longer in service
+    assert last_read[scene.corrected.asset_tag] == scene.hundred_twenty_days_ago  # not the superseded date
     assert last_read[scene.never.asset_tag] is None
+
+
+def test_fitting_moving_removing_and_deleting_a_capacitor_works_its_motors_last_reading_out_again():
+    scene = Round()
+
+    def last_read(motor):
+        return Motor.objects.get(pk=motor.pk).last_read_at
+
+    # A start capacitor fitted again where one was taken out: its place was last read 200 days ago.
+    refitted = make_fitted_capacitor(motor=scene.start_taken_out, part=scene.start_part, role="start")
+    assert last_read(scene.start_taken_out) == scene.long_ago
+    refitted.delete()
+    assert last_read(scene.start_taken_out) == scene.ten_days_ago
+    # A capacitor in a place the motor never had: a place never read.
+    added = make_fitted_capacitor(motor=scene.stale, part=scene.start_part, role="start", fitted_on=scene.today)
+    assert last_read(scene.stale) is None
+    added.delete()
+    assert last_read(scene.stale) == scene.long_ago
+    # The half-read motor's start capacitor taken out, not replaced: read today.
+    FittedCapacitor.objects.filter(pk=scene.half_read_start.pk).update(removed_on=scene.today, removal_reason="other")
+    assert last_read(scene.half_read) == scene.read_today
+    # A capacitor moved to another motor (a register correction) takes its readings along.
+    FittedCapacitor.objects.filter(pk=scene.stale_run.pk).update(role="start")
+    assert last_read(scene.stale) == scene.long_ago
+    FittedCapacitor.objects.filter(pk=scene.never_run.pk).update(motor=scene.stale)
+    assert last_read(scene.stale) is None  # its run place (the moved capacitor) was never read
+    assert last_read(scene.never) is None  # no capacitor, no reading
+    FittedCapacitor.objects.filter(pk=scene.never_run.pk).update(motor=scene.never)
+    assert last_read(scene.stale) == scene.long_ago
 
 
 def test_a_motor_read_on_a_capacitor_removed_since_counts_as_read_on_the_dashboard_and_its_route(client):
     scene = Round()
     route = readings_by_route(None, scene.today)["routes"][0]
-    assert route["overdue"] == 2  # stale and never read; not the two read on capacitors removed since
-    assert route["read"] >= 1  # read today, on a capacitor that came out today
-    assert route["overdue"] + route["due"] + route["read"] == 4
+    assert route["overdue"] == 4  # half read, corrected, stale and never read
+    assert route["read"] == 2  # both places read today, one on a capacitor that came out today; read 10 days ago
+    assert route["overdue"] + route["due"] + route["read"] == 6
 
     client.force_login(make_user(TECHNICIAN))
     rows = route_rows(client.get(reverse("route", args=[scene.site.code])).content.decode())
     assert rows[scene.replaced.asset_tag] == f"done {scene.today:%Y-%m-%d}"
     newer = timezone.localdate(scene.ten_days_ago)
-    assert rows[scene.newer_on_removed.asset_tag].endswith(f"{newer:%Y-%m-%d}")
+    assert rows[scene.start_taken_out.asset_tag] == f"done {newer:%Y-%m-%d}"
+    long_ago = timezone.localdate(scene.long_ago)
+    assert rows[scene.half_read.asset_tag] == f"overdueRun read, Start to read {long_ago:%Y-%m-%d}"
     assert rows[scene.stale.asset_tag].startswith("overdue") and rows[scene.never.asset_tag] == "overdue never"
 
 
@@ -119,12 +172,16 @@ def test_the_dashboards_overdue_count_is_the_overdue_rows_of_the_route_pages_it_
     for link in links:
         rows = route_rows(client.get(link).content.decode())
         overdue_rows += [tag for tag, cells in rows.items() if cells.startswith("overdue")]
-    assert page.context["overdue_total"] == len(overdue_rows) == 3
-    assert set(overdue_rows) == scenes[0].overdue | {scenes[1].never.asset_tag}
+    assert page.context["overdue_total"] == len(overdue_rows) == 7
+    assert set(overdue_rows) == scenes[0].overdue | scenes[1].overdue - {scenes[1].stale.asset_tag}
 
 
-def test_the_digest_reports_the_capacitors_of_the_overdue_motors_only():
+def test_the_digest_reports_the_overdue_capacitors_of_the_overdue_motors_only():
     scene = Round()
-    overdue = {key[1] for key in current_conditions(scene.today) if key[0] == DigestEntry.Kind.OVERDUE}
-    # The start capacitors not read for 200 and 120 days sit on motors read today and 10 days ago.
-    assert overdue == {scene.stale_run.id, scene.never_run.id}
+    conditions = {
+        key[1]: value for key, value in current_conditions(scene.today).items() if key[0] == DigestEntry.Kind.OVERDUE
+    }
+    # The half-read motor's run capacitor, read today, is not reported with its start capacitor.
+    assert set(conditions) == {scene.half_read_start.id, scene.corrected_run.id, scene.stale_run.id, scene.never_run.id}
+    days = (scene.today - timezone.localdate(scene.long_ago)).days
+    assert conditions[scene.half_read_start.id]["reason"].endswith(f"{days} days ago")

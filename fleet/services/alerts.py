@@ -72,10 +72,10 @@ def current_conditions(today: dt.date) -> dict[tuple[str, int], dict]:
         .order_by("motor__site__code", "motor__route_order", "motor__asset_tag", "role")
     ):
         if row["last_read"] is None:
-            reason = f"motor never read since it was commissioned on {row['motor__commissioned_on']:%Y-%m-%d}"
+            reason = f"never read since the motor was commissioned on {row['motor__commissioned_on']:%Y-%m-%d}"
         else:
             last = timezone.localdate(row["last_read"])
-            reason = f"motor last read {last:%Y-%m-%d}, {(today - last).days} days ago"
+            reason = f"last read {last:%Y-%m-%d}, {(today - last).days} days ago"
         conditions[(DigestEntry.Kind.OVERDUE, row["id"])] = {
             "site_id": row["motor__site_id"],
             "reason": reason,

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 from django.core.cache import cache
 from django.core.serializers.json import DjangoJSONEncoder
-from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Subquery, Sum, Value, When
+from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Q, Subquery, Sum, Value, When
 from django.db.models.functions import Cast, Coalesce, TruncMonth, TruncWeek
 from django.utils import timezone
 
@@ -25,6 +25,7 @@ from fleet import charts
 from fleet.charts import risk_mix_figure, routes_figure, spares_figure, stock_figure, workload_figure
 from fleet.engineering.lifedata import expected_failures
 from fleet.engineering.planning import RISK_ORDER
+from fleet.filters import utc_midnight
 from fleet.models import (
     Assessment,
     CapacitorPart,
@@ -45,6 +46,7 @@ from fleet.services.pages import (
     due_within,
     in_service_assessments,
     overdue_before,
+    position_readings,
     quarter_start,
     reading_status,
     replace_by_until,
@@ -257,12 +259,17 @@ def risk_mix(user=None) -> dict:
 
 def overdue_capacitors(user=None, today: dt.date | None = None):
     """Capacitors in service on the motors in service overdue a reading (`pages.reading_status` on the
-    motor's stored newest reading), with the motor's `last_read`."""
-    overdue = reading_status(today or timezone.localdate(), "motor__last_read_at", "motor__commissioned_on")
+    motor's stored last reading) that are themselves overdue: their position's newest reading
+    (`pages.position_readings`), as `last_read`, is older than the rule's day or missing. A motor overdue
+    for its start capacitor alone does not report its run capacitor read last week."""
+    today = today or timezone.localdate()
+    overdue = reading_status(today, "motor__last_read_at", "motor__commissioned_on")
+    newest = position_readings().order_by("-taken_at").values("taken_at")[:1]
     return (
         scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
         .filter(overdue["overdue"])
-        .annotate(last_read=F("motor__last_read_at"))
+        .annotate(last_read=Subquery(newest))
+        .filter(Q(last_read__isnull=True) | Q(last_read__lt=utc_midnight(overdue_before(today))))
     )
 
 

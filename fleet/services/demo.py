@@ -278,6 +278,7 @@ def build_demo(*, seed: int = 7, today: dt.date | None = None, scale: float = 1.
         counters = {code: 0 for code in sites}
         reading_rows: list[Reading] = []
         motors = 0
+        first_reading_day = today - dt.timedelta(days=4 * 365)  # four years of quarterly readings
         for design in DESIGNS:
             info = _circuit_for(design, parts)
             v_cap = _run_capacitor_voltage(design, info, parts)
@@ -305,13 +306,23 @@ def build_demo(*, seed: int = 7, today: dt.date | None = None, scale: float = 1.
                     **circuit_fields,
                 )
                 motors += 1
+                visits = _visit_days(commissioned, today, rng)
                 for role, code in (
                     (FittedCapacitor.Role.RUN, design.run_part),
                     (FittedCapacitor.Role.START, design.start_part),
                 ):
                     if code:
                         reading_rows += _age_capacitor_line(
-                            motor, role, parts[code], commissioned, today, design.case_temp_c, v_cap, rng, technician
+                            motor,
+                            role,
+                            parts[code],
+                            commissioned,
+                            visits,
+                            first_reading_day,
+                            design.case_temp_c,
+                            v_cap,
+                            rng,
+                            technician,
                         )
         reading_rows = _skip_closed_house(reading_rows, today)
         Reading.objects.bulk_create(reading_rows, batch_size=2000)
@@ -331,15 +342,25 @@ def _skip_closed_house(readings: list[Reading], today: dt.date) -> list[Reading]
     ]
 
 
-def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_cap, rng, technician):
+def _visit_days(commissioned: dt.date, today: dt.date, rng) -> list[dt.date]:
+    """The days a motor is visited, from commissioning to before today, every 12 to 14 weeks: a visit
+    reads every capacitor fitted to it (a reading later today would be in the future)."""
+    days, day = [], commissioned
+    while (day := day + dt.timedelta(days=int(rng.integers(84, 98)))) < today:
+        days.append(day)
+    return days
+
+
+def _age_capacitor_line(
+    motor, role, part, commissioned, visits, first_reading_day, case_temp_c, v_cap, rng, technician
+):
     """Simulate one motor position from commissioning to today: each capacitor
-    ages until it is read below its limit (replaced on plan) or fails (replaced
-    as failed); the successor starts fresh. Returns the readings to insert."""
+    ages until it is read below its limit at a visit (replaced on plan) or fails
+    (replaced as failed); the successor starts fresh. Returns the readings to insert."""
     settings = TrendSettings()
     film = part.dielectric == FILM
     readings: list[Reading] = []
     fitted_on = commissioned
-    first_reading_day = today - dt.timedelta(days=4 * 365)
     while True:
         fitted_capacitor = FittedCapacitor.objects.create(
             motor=motor,
@@ -365,13 +386,9 @@ def _age_capacitor_line(motor, role, part, commissioned, today, case_temp_c, v_c
         slope = -abs(rng.normal(3e-6 if film else 2.5e-6, 1e-6 if film else 0.8e-6))
         knee = 0.93 if film else 0.95
         sudden_hours = rng.exponential(12 * 8760) if not film else np.inf
-        day = fitted_on
         removed = None
         reason = ""
-        while True:
-            day = day + dt.timedelta(days=int(rng.integers(84, 98)))
-            if day >= today:  # a reading later today would be in the future (refused by every form)
-                break
+        for day in (visit for visit in visits if visit > fitted_on):
             hours = (day - fitted_on).days * 24.0
             stress = hours * rate
             fraction = initial + slope * stress

@@ -11,8 +11,10 @@ from django.db.models import (
     BooleanField,
     Case,
     Count,
+    Exists,
     ExpressionWrapper,
     F,
+    OuterRef,
     Prefetch,
     Q,
     Subquery,
@@ -26,6 +28,7 @@ from fleet.charts import trend_figure
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, path_band, reading_stress_hours
+from fleet.filters import utc_midnight
 from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site
 from fleet.roles import scope_to_user
 
@@ -255,16 +258,17 @@ def overdue_before(today: dt.date) -> dt.date:
 
 
 def reading_status(today: dt.date, newest: str = "last_read_at", commissioned: str = "commissioned_on") -> dict:
-    """The one rule for whether a motor was read, as conditions on `newest`, its newest reading, and
+    """The one rule for whether a motor was read, as conditions on `newest`, when it was last read, and
     `commissioned`, its commissioning day: "overdue" (that reading or, never read, the commissioning
     before `overdue_before`), "due" (not read since the quarter began, not overdue), "to_read" (either),
-    "read" (read since the quarter began). Its newest reading is that of any capacitor fitted to it, in
-    service or removed since (`Motor.last_read_at`, kept by triggers; by UTC day in `MotorReadCount`):
-    `newest` names a time (`..._at`, compared from UTC midnight) or a UTC day (`..._on`)."""
+    "read" (read since the quarter began). A motor was last read when every capacitor in service on it
+    had been: the oldest of its positions' newest readings, a position's predecessors included, corrected
+    readings left out (`Motor.last_read_at`, kept by triggers, migration 0041; by UTC day in
+    `MotorReadCount`): `newest` names a time (`..._at`, compared from UTC midnight) or a UTC day (`..._on`)."""
     commissioned_before = overdue_before(today)
     cutoff, quarter = commissioned_before, quarter_start(today)
     if newest.endswith("_at"):
-        cutoff, quarter = (dt.datetime.combine(day, dt.time.min, tzinfo=dt.UTC) for day in (cutoff, quarter))
+        cutoff, quarter = utc_midnight(cutoff), utc_midnight(quarter)
     never_read = Q((f"{newest}__isnull", True))
     overdue = Q((f"{newest}__lt", cutoff)) | never_read & Q((f"{commissioned}__lt", commissioned_before))
     due = Q((f"{newest}__gte", cutoff), (f"{newest}__lt", quarter)) | never_read & (
@@ -296,7 +300,27 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
         overdue=ExpressionWrapper(status["overdue"], BooleanField()),
     )
     days = {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today)}
-    return listed.order_by("route_order", "asset_tag"), counts, days
+    positions = Prefetch(
+        "capacitors", queryset=positions_read_since(utc_midnight(days["quarter_start"])), to_attr="positions"
+    )
+    return listed.order_by("route_order", "asset_tag").prefetch_related(positions), counts, days
+
+
+def positions_read_since(since: dt.datetime):
+    """Capacitors in service in position order, each with `read`: whether its position (its motor and
+    role, predecessors included) has a reading since `since` that no correction superseded. For the
+    rows of one page (a prefetch): a motor half read this quarter names the capacitor still to read."""
+    read = position_readings().filter(taken_at__gte=since)
+    return FittedCapacitor.objects.filter(removed_on__isnull=True).annotate(read=Exists(read)).order_by("role")
+
+
+def position_readings():
+    """The readings that count for the position of the outer query's capacitor: its motor and role, the
+    capacitors it replaced included, a reading a correction superseded left out (the rule of migration
+    0041's triggers, for one position)."""
+    return Reading.objects.filter(
+        fitted_capacitor__motor=OuterRef("motor"), fitted_capacitor__role=OuterRef("role"), superseded_by__isnull=True
+    )
 
 
 def risk_summary(user=None):
