@@ -157,7 +157,8 @@ def test_a_motor_read_on_a_capacitor_removed_since_counts_as_read_on_the_dashboa
     newer = timezone.localdate(scene.ten_days_ago)
     assert rows[scene.start_taken_out.asset_tag] == f"done {newer:%Y-%m-%d}"
     long_ago = timezone.localdate(scene.long_ago)
-    assert rows[scene.half_read.asset_tag] == f"overdueRun read, Start to read {long_ago:%Y-%m-%d}"
+    assert rows[scene.half_read.asset_tag] == f"overduestart capacitor still to read {long_ago:%Y-%m-%d}"
+    assert rows[scene.stale.asset_tag].startswith("overdue") and "still to read" not in rows[scene.stale.asset_tag]
     assert rows[scene.stale.asset_tag].startswith("overdue") and rows[scene.never.asset_tag] == "overdue never"
 
 

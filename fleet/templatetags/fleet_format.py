@@ -101,3 +101,11 @@ def nowrap_dates(text):
         return text
     escaped = str(conditional_escape(text))
     return mark_safe(DATE_IN_TEXT.sub(lambda m: f'<span class="nowrap">{m.group(0)}</span>', escaped))
+
+
+@register.filter
+def still_to_read(positions):
+    """A half-read motor's capacitors still to read this quarter ("start capacitor"), from its route
+    row's `positions` (`pages.positions_read_since`); nothing when all or none were read."""
+    unread = [position.get_role_display().lower() for position in positions if not position.read]
+    return [f"{role} capacitor" for role in unread] if 0 < len(unread) < len(positions) else []
