@@ -67,3 +67,20 @@ def test_a_fold_is_not_carried_to_a_sign_in_that_never_signed_out_here(phone):
     phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
     assert phone.locator(CAUTIONS).get_attribute("open") is not None
     assert phone.is_visible(LOCKOUT)
+
+
+def test_folded_cautions_print_whole_where_no_beforeprint_event_runs(phone):
+    """A planner folded the cautions, then printed a visit sheet from a browser that sends no
+    "beforeprint" (a print to PDF from a share menu, a headless print): the sheet carried the heading
+    alone, without the lockout and discharge steps. Printed, the folded box shows its body."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("planner"))
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    phone.click(f"{CAUTIONS} > summary")
+    phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+    assert phone.locator(CAUTIONS).get_attribute("open") is None and not phone.is_visible(LOCKOUT)
+    phone.emulate_media(media="print")  # print media alone: no event runs
+    assert phone.locator(CAUTIONS).get_attribute("open") is None
+    assert phone.is_visible(LOCKOUT)
+    phone.emulate_media(media="screen")
+    assert not phone.is_visible(LOCKOUT)  # folded on screen still
