@@ -74,6 +74,16 @@ class ReadingForm(forms.Form):
             self.initial["client_key"] = uuid.uuid4().hex
             self.initial["taken_at"] = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_MINUTE)
 
+    def start_from(self, reading: Reading) -> None:
+        """A correction starts from the reading it corrects: its time (in the site's time), method,
+        every value and the notes it holds, so only the mistake is typed again. A blank form lost what
+        was right: a corrected capacitance was stored without its case temperature, unreferred to 25 C."""
+        self.initial["taken_at"] = timezone.localtime(reading.taken_at, self.zone).strftime(LOCAL_MINUTE)
+        for name in ("method", "condition", "notes", *Reading.MEASURED_FIELDS):
+            value = getattr(reading, name)
+            if value is not None:
+                self.initial[name] = str(value)  # a float's shortest exact text: 28.17, not 28.170000000000002
+
     def clean_taken_at(self):
         """Wall-clock time at the site, read as the import reads it (an offset, if given, wins);
         empty: now. Future and before-fitting are the rulebook's checks, in the service."""

@@ -45,6 +45,41 @@ def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correcti
     assert "corrected: not used in the trend" in page and f"?corrects={wrong.id}" not in page
 
 
+def test_a_correction_starts_from_the_reading_it_corrects_and_the_chart_draws_the_correction_only(
+    client, technician, fan_fitted_capacitor
+):
+    """A correction form that opened blank lost what was right: a capacitance typed again was stored
+    without its case temperature (38 C), so the trend took it as if at 25 C [derived]. The form now
+    holds every value of the reading it corrects; the chart draws the correction, not the reading it
+    superseded (the fit leaves that one out)."""
+    quarterly_readings(fan_fitted_capacitor, timezone.now() - dt.timedelta(days=400), [4.0, 3.98, 3.96, 3.94])
+    wrong = make_reading(
+        fan_fitted_capacitor,
+        capacitance_uf=3.19,
+        case_temperature_c=38.0,
+        ambient_temperature_c=21.5,
+        notes="hot cabinet",
+        taken_at=timezone.now() - dt.timedelta(hours=3),
+    )
+    client.force_login(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    form = client.get(url, {"corrects": wrong.id}).context["form"]
+    assert form.initial["capacitance_uf"] == "3.19" and form.initial["case_temperature_c"] == "38.0"
+    assert form.initial["ambient_temperature_c"] == "21.5" and form.initial["notes"] == "hot cabinet"
+    assert form.initial["method"] == "meter" and "esr_ohm" not in form.initial
+    fields = {name: value for name, value in form.initial.items() if name not in {"taken_at"}}
+    response = client.post(url, {**fields, "capacitance_uf": "3.91", "taken_at": form.initial["taken_at"]})
+    assert response.status_code == 302
+    correction = Reading.objects.get(supersedes=wrong)
+    assert (correction.capacitance_uf, correction.case_temperature_c) == (3.91, 38.0)
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
+    page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id]))
+    figure = page.context["chart"]
+    drawn = [y for trace in figure["data"] if trace.get("mode") == "markers" for y in trace["y"]]
+    assert len(drawn) == 5  # four quarterly readings and the correction
+    assert min(drawn) > 3.5  # the superseded 3.19 (3.2 at 25 C) is not among them
+
+
 def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, fan_fitted_capacitor):
     wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
     first = record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.9"},

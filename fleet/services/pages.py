@@ -182,8 +182,9 @@ def trend_chart(
     rated = fitted_capacitor.part.rated_uf
     readings = list(
         Reading.objects.filter(fitted_capacitor=fitted_capacitor, id__lte=assessment.max_reading_id)
+        .annotate(superseded=Exists(Reading.objects.filter(supersedes=OuterRef("pk"))))
         .order_by("taken_at", "id")
-        .values("id", "taken_at", "capacitance_uf", "case_temperature_c", "capacitor_voltage_v")
+        .values("id", "taken_at", "capacitance_uf", "case_temperature_c", "capacitor_voltage_v", "superseded")
     )
     if not readings:
         return None
@@ -198,7 +199,9 @@ def trend_chart(
     )
     flagged = set(assessment.flagged_reading_ids)
     last = readings[-1]["taken_at"]
-    shown = _chart_rows(frame["id"].to_numpy(np.int64), flagged)
+    # A reading a correction superseded is not drawn (the fit left it out too; its correction is drawn).
+    standing = np.flatnonzero(~frame["superseded"].to_numpy(bool))
+    shown = standing[_chart_rows(frame["id"].to_numpy(np.int64)[standing], flagged)]
     readings = [readings[i] for i in shown]
     corrected, reading_taus = np.asarray(corrected)[shown], np.asarray(reading_taus)[shown]
     points = [

@@ -19,7 +19,7 @@ from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
 from fleet.filters import LabelsPage, RoutePage, list_page, page_values
-from fleet.forms import LOCAL_MINUTE, ReadingForm, ReplacementForm
+from fleet.forms import ReadingForm, ReplacementForm
 from fleet.models import CapacitorPart, Motor, Site
 from fleet.roles import scope_to_user
 from fleet.services import pages
@@ -73,8 +73,8 @@ def reading_new(request, fitted_capacitor_id):
         correcting = reading_to_correct(fitted_capacitor, form["supersedes"].value())
     except ValidationError as error:
         correction_problem = " ".join(error.messages)
-    if correcting and not form.is_bound:  # a correction is taken when the reading it corrects was
-        form.initial["taken_at"] = timezone.localtime(correcting.taken_at, form.zone).strftime(LOCAL_MINUTE)
+    if correcting and not form.is_bound:
+        form.start_from(correcting)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()
     successor = successor_of(fitted_capacitor)
     context = {
