@@ -54,6 +54,13 @@ def page_not_found(request, exception, template_name: str = defaults.ERROR_404_T
     return defaults.page_not_found(request, exception, template_name)
 
 
+@login_not_required
+def api_address_unknown(request, rest: str = "") -> JsonResponse:
+    """The last API route: an address under /api/ that names nothing. Django answers a 404 from its
+    own debug page while DEBUG is on, not from handler404; this answers the same JSON either way."""
+    return page_not_found(request, None)
+
+
 def database_unavailable(request) -> HttpResponse:
     """503 with Retry-After; rendered without the request, so without touching the session or the user."""
     headers = {"Retry-After": str(RETRY_AFTER_S)}

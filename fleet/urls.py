@@ -1,10 +1,10 @@
 from django.contrib.auth.decorators import login_not_required
-from django.urls import path, register_converter
+from django.urls import path, re_path, register_converter
 from django.views.generic import RedirectView
 
 from fleet.views import field, imports, planning, register, reliability
 
-from . import api
+from . import api, faults
 
 
 class StoredCode:
@@ -55,6 +55,7 @@ api_patterns = [
     ),
     path("api/capacitors/<int:pk>/readings/", login_not_required(api.FittedCapacitorReadings.as_view())),
     path("api/capacitors/<int:pk>/substitutes/", login_not_required(api.FittedCapacitorSubstitutes.as_view())),
+    re_path(r"^api/(?P<rest>.*)$", faults.api_address_unknown),  # last: JSON, with DEBUG on too
 ]
 
 urlpatterns = [

@@ -139,8 +139,11 @@ def test_a_fitted_capacitor_that_is_not_there_is_named_in_plain_words(engineer):
 
 @pytest.mark.parametrize("address", ["/api/", "/api/nope/", "/api/fitted-capacitors/abc/readings/"])
 @pytest.mark.parametrize("signed_in", [True, False])
-def test_every_api_address_answers_json_even_one_that_names_nothing(engineer, address, signed_in):
-    """The README: the API answers JSON only. A 404 under /api/ was Django's HTML page."""
+@pytest.mark.parametrize("debug", [False, True])
+def test_every_api_address_answers_json_even_one_that_names_nothing(engineer, address, signed_in, debug, settings):
+    """The README: the API answers JSON only. A 404 under /api/ was Django's HTML page, and with DEBUG
+    on (the embedded default) its debug page."""
+    settings.DEBUG = debug
     client = client_for(engineer) if signed_in else APIClient()
     response = client.get(address)
     assert response.status_code == 404
