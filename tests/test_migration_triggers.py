@@ -17,7 +17,7 @@ FROZEN = {  # SHA-256 of every statement, SQLite forward and backward then Postg
     "0034_pages_assessment_route_order": "b7fcf86d3e2112145cebcd6f1e68736ea964a2e139a2566e22af7a0d888567a9",
     "0035_pages_work_order_walk": "f44638702503ac2fc353342eaa49a2416917a1d7c11276d38662d96c27886658",
     "0037_rounds_motor_last_read": "7366c02d9ee9457f5fb3e88c6ac13b44036a92ae4c785c1672a27575b1f100b4",
-    "0041_rounds_every_position_read": "c5814dea5296c1ebc74dc3c0879095fe78204f39784e41b17bb506b40ee2f9f6",
+    "0041_rounds_every_position_read": "01fb48371cfb577852254dfc839dcef017d3ac5e3ba41e6d744c0d2cb04d484f",
 }
 
 

@@ -39,14 +39,25 @@ FITTED = ("fleet_capacitor_fitted_last_read", "fleet_fittedcapacitor")
 DELETED = ("fleet_capacitor_deleted_last_read", "fleet_fittedcapacitor")
 
 # A capacitor's newest reading that counts (one not superseded by a correction; readings are
-# append-only, so a correction is a later row naming it, `supersedes_id` unique): a backward walk of the
-# (capacitor, time) index that stops at the first such reading.
-NEWEST = (
-    "(SELECT r.taken_at FROM fleet_reading r WHERE r.fitted_capacitor_id = p.id"
-    " AND NOT EXISTS (SELECT 1 FROM fleet_reading s WHERE s.supersedes_id = r.id) ORDER BY r.taken_at DESC LIMIT 1)"
-)
-# The newest counting reading of the position (motor, role) of capacitor `c`, removed capacitors included.
-POSITION = f"(SELECT MAX({NEWEST}) FROM fleet_fittedcapacitor p WHERE p.motor_id = c.motor_id AND p.role = c.role)"
+# append-only, so a correction is a later row naming it, `supersedes_id` unique). PostgreSQL walks the
+# (capacitor, time) index backwards and stops at the first such reading; SQLite, given that ORDER BY,
+# may walk the whole time index instead (minutes for a 50,000-row import), so it takes the MAX of the
+# capacitor's readings on the (capacitor, time) index, each probed once on `supersedes_id`.
+COUNTS = "NOT EXISTS (SELECT 1 FROM fleet_reading s WHERE s.supersedes_id = r.id)"
+NEWEST = {
+    "postgresql": "(SELECT r.taken_at FROM fleet_reading r WHERE r.fitted_capacitor_id = p.id"
+    f" AND {COUNTS} ORDER BY r.taken_at DESC LIMIT 1)",
+    "sqlite": f"(SELECT MAX(r.taken_at) FROM fleet_reading r WHERE r.fitted_capacitor_id = p.id AND {COUNTS})",
+}
+
+
+def position(vendor: str) -> str:
+    """The newest counting reading of the position (motor, role) of capacitor `c`, removed capacitors included."""
+    return (
+        f"(SELECT MAX({NEWEST[vendor]}) FROM fleet_fittedcapacitor p WHERE p.motor_id = c.motor_id AND p.role = c.role)"
+    )
+
+
 # Stands for "never read" under MIN, before the oldest reading: a position never read wins the MIN.
 NEVER = {"postgresql": "'-infinity'::timestamptz", "sqlite": "''"}
 
@@ -56,8 +67,8 @@ def rule(vendor: str) -> str:
     in service was never read); with no capacitor in service, the newest reading of any capacitor it had."""
     return (
         "(SELECT CASE WHEN COUNT(*) = 0"
-        f" THEN (SELECT MAX({NEWEST}) FROM fleet_fittedcapacitor p WHERE p.motor_id = fleet_motor.id)"
-        f" ELSE NULLIF(MIN(COALESCE({POSITION}, {NEVER[vendor]})), {NEVER[vendor]}) END"
+        f" THEN (SELECT MAX({NEWEST[vendor]}) FROM fleet_fittedcapacitor p WHERE p.motor_id = fleet_motor.id)"
+        f" ELSE NULLIF(MIN(COALESCE({position(vendor)}, {NEVER[vendor]})), {NEVER[vendor]}) END"
         " FROM fleet_fittedcapacitor c WHERE c.motor_id = fleet_motor.id AND c.removed_on IS NULL)"
     )
 
