@@ -276,11 +276,19 @@ def advise(
     # Capacitance band: the trade's band around the design value, or the marked tolerance without a circuit.
     low, high = _band(position, rules)
     outside = (uf < low * (1 - 1e-9)) | (uf > high * (1 + 1e-9))
-    band_words = "the design's marked tolerance" if position.circuit is None else f"the {position.role} band"
+    if position.circuit is None:
+        band_words = "the design's marked tolerance"
+    elif position.role == ROLE_RUN:
+        band_words = f"the run band (the design value {position.design_uf:g} µF ± {rules.run_band:.0%})"
+    else:
+        band_words = (
+            f"the start band (the design value {position.design_uf:g} µF to {rules.start_band_above:.0%} above, "
+            "as start capacitors are replaced)"
+        )
     rule(
         np.where(outside, 2, 0),
         [
-            f"{u:g} µF is outside {band_words} {low:.3g}-{high:.3g} µF" if o else None
+            f"{u:g} µF is outside {band_words}, {low:.3g}-{high:.3g} µF" if o else None
             for u, o in zip(uf, outside, strict=True)
         ],
     )

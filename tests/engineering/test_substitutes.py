@@ -244,4 +244,4 @@ def test_without_a_circuit_judged_by_ratings_alone_within_the_marked_tolerance()
     assert advice.verdict.tolist() == ["suitable", "unsuitable"]
     assert advice.figures is None and np.isnan(advice.predicted_voltage_v).all()
     assert all(any("ratings alone" in r for r in reasons) for reasons in advice.reasons)
-    assert "marked tolerance 3.8-4.2 µF" in advice.reasons[1][0]
+    assert "marked tolerance, 3.8-4.2 µF" in advice.reasons[1][0]
