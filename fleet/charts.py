@@ -319,6 +319,7 @@ def spares_figure(months: list[str], parts: list[dict], cost_per_month: list[flo
             "rangemode": "tozero",
             "showgrid": False,
             "title": SPARES_COST_TITLE,
+            "automargin": True,  # the title beside wide tick labels ("1,500") was cut to "ost (parts' prices)"
             "tickmode": "linear",
             "tick0": 0,
             "dtick": _whole_step(max(cost_per_month, default=0)),

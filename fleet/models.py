@@ -951,6 +951,7 @@ class WorkOrder(models.Model):
         REPLACE_START = "replace_start", "Replace start capacitor"
         REPLACE_RUN = "replace_run", "Replace run capacitor"
         INSPECT = "inspect", "Inspect"
+        READ_AGAIN = "read_again", "Read again; replace if past its limit"
 
     class State(models.TextChoices):
         PLANNED = "planned", "Planned"

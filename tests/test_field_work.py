@@ -217,6 +217,10 @@ def test_the_life_data_costs_take_the_rulebooks_numbers(client, engineer):
     assert page.context["planned_cost"] == 60.5
     assert page.context["failure_cost"] == 400.0  # refused, not guessed as 1.2 or 1200.5
     assert "1.200,5" in page.content.decode()
+    # A number input refuses "60,5" in a browser set to English before it is sent: a text box with the
+    # decimal keypad takes what the rulebook takes.
+    for name in ("planned_cost", "failure_cost"):
+        assert f'type="text" inputmode="decimal" autocomplete="off" name="{name}"' in page.content.decode()
 
 
 def test_the_life_data_costs_past_any_replacement_are_refused_by_name(client, engineer):

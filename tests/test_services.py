@@ -12,7 +12,14 @@ from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitR
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from fleet.services.refits import stale_fitted_capacitor_ids, start_fleet_refit, sweep_stale
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    quarterly_readings,
+    stored_assessment,
+)
 
 pytestmark = pytest.mark.django_db
 START = timezone.make_aware(dt.datetime(2023, 1, 10, 10))
@@ -311,6 +318,43 @@ def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):
     moved = WorkOrder.objects.filter(state="planned").first()
     WorkOrder.objects.filter(id=moved.id).update(due_on=moved.due_on + dt.timedelta(days=20))
     assert plan_work_orders(horizon_days=90, window_days=12)["replanned"] == 1
+
+
+def test_a_capacitor_the_plan_says_to_read_again_gets_a_read_again_order_that_a_reading_closes(planner):
+    """The plan said "read it again" (the trend's early crossing has passed, no reading shows the limit
+    passed) while the work order and visit sheet said "Replace run capacitor". [trade] confirm a
+    suspect reading before replacing. The order now says read again, carries the plan's words, becomes
+    a replacement once the plan says replace, and a reading closes it."""
+    from fleet.services.workorders import plan_work_orders
+
+    today = timezone.localdate()
+    suspect, worn = make_fitted_capacitor(), make_fitted_capacitor()
+    words = "trend may already have reached the tolerance limit (3.80 µF) (likely 2027-01): read it again"
+    stored_assessment(suspect, "due soon", today + dt.timedelta(days=7), reason=words)
+    stored_assessment(worn, "due soon", today + dt.timedelta(days=30), reason="trend reaches the limit soon")
+    Assessment.objects.filter(fitted_capacitor=suspect).update(p10_on=today - dt.timedelta(days=3))
+    Assessment.objects.filter(fitted_capacitor=worn).update(p10_on=today + dt.timedelta(days=60))
+    assert plan_work_orders(horizon_days=90, user=planner)["created"] == 2
+    orders = {o.fitted_capacitor_id: o for o in WorkOrder.objects.all()}
+    assert orders[suspect.id].kind == WorkOrder.Kind.READ_AGAIN and orders[worn.id].kind == WorkOrder.Kind.REPLACE_RUN
+    assert orders[suspect.id].reason == f"due soon: {words}"
+    assert orders[suspect.id].get_kind_display() == "Read again; replace if past its limit"
+
+    # Read below its limit: the plan now says replace, and the planned order follows (one order still).
+    stored_assessment(suspect, "replace now", today + dt.timedelta(days=7), reason="latest reading below")
+    assert plan_work_orders(horizon_days=90, user=planner)["replanned"] == 1
+    assert WorkOrder.objects.get(fitted_capacitor=suspect, state="planned").kind == WorkOrder.Kind.REPLACE_RUN
+
+    # Back to "read again" on the next assessment, then a reading closes the order.
+    stored_assessment(suspect, "due soon", today + dt.timedelta(days=7), reason=words)
+    Assessment.objects.filter(fitted_capacitor=suspect, is_current=True).update(p10_on=today)
+    plan_work_orders(horizon_days=90, user=planner)
+    order = WorkOrder.objects.get(fitted_capacitor=suspect)
+    assert order.kind == WorkOrder.Kind.READ_AGAIN and order.state == "planned"
+    record_reading(fitted_capacitor=suspect, values={"method": "meter", "capacitance_uf": "3.9"}, user=planner)
+    order.refresh_from_db()
+    assert order.state == "done" and order.closed_by == planner
+    assert WorkOrder.objects.get(fitted_capacitor=worn).state == "planned"  # a replacement stays open
 
 
 def test_risk_changes_read_the_risk_history_each_refit_carries():

@@ -50,7 +50,8 @@ def test_an_unsuitable_part_needs_the_override_and_a_reason_which_are_recorded(
     big = make_part(code="FILM-4U8", rated_uf=4.8)
     refused = post_replacement(client, fan_fitted_capacitor, big)
     assert refused.status_code == 200
-    assert "FILM-4U8 is unsuitable here (4.8 µF is outside the run band 3.6-4.4 µF). Tick" in refused.content.decode()
+    expected = "FILM-4U8 is unsuitable here (4.8 µF is outside the run band (the design value 4 µF ± 10%), 3.6-4.4 µF)."
+    assert f"{expected} Tick" in refused.content.decode()
     fan_fitted_capacitor.refresh_from_db()
     assert fan_fitted_capacitor.removed_on is None  # nothing saved half-way
     no_reason = post_replacement(client, fan_fitted_capacitor, big, substitute_override="on", override_reason="  ")

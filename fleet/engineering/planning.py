@@ -213,6 +213,13 @@ def judge(
     return Judgement(risk=risk, due_days=due_days, governing=governing, days=days, reason=reason)
 
 
+def read_again(risk, early_days) -> np.ndarray:
+    """Where the plan's word is "read it again" before replacing: the trend's early (P10) crossing has
+    passed (`early_days` from today at or below 0) while no reading shows the capacitor past its limit
+    or damaged (not "replace now"); `judge` says so in its reason. A reading settles it either way."""
+    return (np.asarray(risk) != RISK_REPLACE_NOW) & (np.asarray(early_days, float) <= 0)
+
+
 def alert_index(level) -> np.ndarray:
     """Index into ALERT_LEVELS of each capacitor's alert level (nan: the default level)."""
     level = np.nan_to_num(np.asarray(level, float), nan=PlanningSettings().alert_level)

@@ -88,6 +88,11 @@ class ReadingRules:
     short_circuit_fraction: float = 0.05
     # Off the fitted trend by more than this fraction of the rating: confirm or re-measure (trade).
     off_trend_fraction: float = 0.08
+    # A capacitance this many times the rating was typed in nanofarads, or in millifarads; more than
+    # `wrong_capacitor_ratio` times it is not this capacitor (common practice of the trade, no single source).
+    nanofarad_ratio: tuple = (300.0, 3000.0)
+    millifarad_ratio: tuple = (3e-4, 3e-3)
+    wrong_capacitor_ratio: float = 3.0
     # Clocks of phones drift: a reading up to this far in the future is accepted (ours).
     future_tolerance_s: float = 600.0
     # A note is a line or two from the field; a page of text is a paste gone wrong (ours).
@@ -425,17 +430,17 @@ def known_time_zone(name) -> bool:
     return True
 
 
-def capacitance_unit_slip(capacitance_uf, rated_uf):
+def capacitance_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES):
     """A value 300-3000 times the rating was typed in nanofarads; 1000x too small
     in millifarads; more than three times the rating is not this capacitor
-    (common practice of the trade, no single source)."""
+    (`ReadingRules`; the reading form's live hint applies the same ratios)."""
     c = np.atleast_1d(np.asarray(capacitance_uf, float))
     rated = np.atleast_1d(np.asarray(rated_uf, float))
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = c / rated
-    nano = (ratio > 300) & (ratio < 3000)
-    milli = (ratio > 3e-4) & (ratio < 3e-3)
-    wild = ~nano & (ratio > 3)
+    nano = (ratio > rules.nanofarad_ratio[0]) & (ratio < rules.nanofarad_ratio[1])
+    milli = (ratio > rules.millifarad_ratio[0]) & (ratio < rules.millifarad_ratio[1])
+    wild = ~nano & (ratio > rules.wrong_capacitor_ratio)
     return np.where(
         nano,
         _messages(nano, "{c:g} looks like nanofarads: {uf:g} µF? (rated {r:g} µF)", c=c, uf=c / 1000, r=rated),

@@ -18,6 +18,7 @@ from .drift import (
     LIMIT_NAMES,
     ROLE_RUN,
     DriftLimits,
+    EstimateResolution,
     OperatingFigures,
     capacitance_limits,
     limit_breaches,
@@ -79,6 +80,7 @@ class Position:
     companion_uf: float = 0.0  # the other role's rated uF (two-value motors), 0 if none
     circuit: MotorCircuit | None = None
     load: Load | None = None
+    nameplate_only: bool = False  # the circuit was estimated from the nameplate alone
 
 
 @dataclass(frozen=True)
@@ -225,6 +227,7 @@ def advise(
     """Judge every candidate for the position in one call (see the module docstring)."""
     rules = rules or SubstituteRules()
     limits = limits or DriftLimits()
+    resolution = EstimateResolution()
     n = len(candidates)
     uf = candidates.rated_uf.astype(float)
     volts = candidates.rated_voltage_v.astype(float)
@@ -273,11 +276,19 @@ def advise(
     # Capacitance band: the trade's band around the design value, or the marked tolerance without a circuit.
     low, high = _band(position, rules)
     outside = (uf < low * (1 - 1e-9)) | (uf > high * (1 + 1e-9))
-    band_words = "the design's marked tolerance" if position.circuit is None else f"the {position.role} band"
+    if position.circuit is None:
+        band_words = "the design's marked tolerance"
+    elif position.role == ROLE_RUN:
+        band_words = f"the run band (the design value {position.design_uf:g} µF ± {rules.run_band:.0%})"
+    else:
+        band_words = (
+            f"the start band (the design value {position.design_uf:g} µF to {rules.start_band_above:.0%} above, "
+            "as start capacitors are replaced)"
+        )
     rule(
         np.where(outside, 2, 0),
         [
-            f"{u:g} µF is outside {band_words} {low:.3g}-{high:.3g} µF" if o else None
+            f"{u:g} µF is outside {band_words}, {low:.3g}-{high:.3g} µF" if o else None
             for u, o in zip(uf, outside, strict=True)
         ],
     )
@@ -304,15 +315,22 @@ def advise(
         # marginal without the margin above it.
         below = volts < limits.capacitor_voltage_ratio * predicted
         tight = ~below & (volts < rules.voltage_margin * predicted)
+        # A circuit estimated from the nameplate alone resolves the capacitor voltage no finer than
+        # EstimateResolution (the forecast sets such a limit aside the same way, drift.judge_limits):
+        # a rating that short of its estimate is marginal (confirm with a measured voltage), not unsuitable.
+        unresolved = below & position.nameplate_only & (volts * (1 + resolution.capacitor_voltage) >= predicted)
         rule(
-            np.where(below, 2, np.where(tight, 1, 0)),
+            np.where(below & ~unresolved, 2, np.where(tight | unresolved, 1, 0)),
             [
-                f"rated {v:g} V is below the predicted capacitor voltage {p:.0f} V"
+                f"rated {v:g} V is under the {p:.0f} V a nameplate-only estimate puts across it, within what such "
+                "an estimate can resolve: a design finding; confirm with a measured capacitor voltage"
+                if u
+                else f"rated {v:g} V is below the predicted capacitor voltage {p:.0f} V"
                 if b
                 else f"rated {v:g} V is within the {rules.voltage_margin - 1:.0%} margin above the predicted {p:.0f} V"
                 if t
                 else f"rated {v:g} V covers the predicted {p:.0f} V with margin"
-                for v, p, b, t in zip(volts, predicted, below, tight, strict=True)
+                for v, p, b, t, u in zip(volts, predicted, below, tight, unresolved, strict=True)
             ],
         )
         # The motor's limits (the forecast's DriftLimits) with the candidate fitted, at its value and at the

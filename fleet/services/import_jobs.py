@@ -26,6 +26,7 @@ from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
 from fleet.services import import_checks
 
 from .readings import enqueue_refit
+from .workorders import close_read_again_orders
 
 log = logging.getLogger(__name__)
 
@@ -49,6 +50,7 @@ def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
 
 def _write_readings(good, user):
     touched = import_checks.insert_readings(good, user)
+    close_read_again_orders(fitted_capacitor_ids=touched, user=user)
     transaction.on_commit(lambda: enqueue_refit(touched))
 
 

@@ -21,6 +21,7 @@ from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOr
 from fleet.services.bulk import storable_ids
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, verdict_of_part
+from fleet.services.workorders import close_read_again_orders
 
 log = logging.getLogger(__name__)
 
@@ -210,6 +211,7 @@ def record_reading(
                 client_key=stored_key,
                 **checked,
             )
+            close_read_again_orders(fitted_capacitor_ids=[fitted_capacitor.id], user=user)
             transaction.on_commit(lambda: enqueue_refit([fitted_capacitor.id]))
     except IntegrityError:
         earlier = _earlier_submission(fitted_capacitor, stored_key, values) if stored_key else None

@@ -9,7 +9,7 @@ from django.core.exceptions import ValidationError
 from django.db import connection
 from django.db.models import Sum
 
-from fleet.engineering.drift import ROLE_RUN
+from fleet.engineering.drift import CIRCUIT_ESTIMATED, ROLE_RUN
 from fleet.engineering.substitutes import (
     MARGINAL,
     SINGLE,
@@ -145,6 +145,7 @@ def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
                 load=type(load)(load.torque_at_rated_nm[one], load.rated_speed_rad_s[one], load_kind[one])
                 if has_circuit
                 else None,
+                nameplate_only=has_circuit and row["circuit_source"] == CIRCUIT_ESTIMATED,
             )
         )
     return positions

@@ -14,7 +14,7 @@ from django.db.models.functions import RowNumber
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
-from fleet.engineering.planning import bundle_visits
+from fleet.engineering.planning import bundle_visits, read_again
 from fleet.models import FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
 
@@ -26,16 +26,20 @@ KIND_FOR_ROLE = {
     FittedCapacitor.Role.START: WorkOrder.Kind.REPLACE_START,
 }
 OPEN = [WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
+# The kinds of order the plan gives a capacitor: replace it, or read it again first.
+CAPACITOR_KINDS = [*KIND_FOR_ROLE.values(), WorkOrder.Kind.READ_AGAIN]
 
 
 def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None, today: dt.date | None = None) -> dict:
     """Create planned orders for capacitors to replace within the horizon.
 
-    New orders and the still-planned ones are bundled into site visits (one
-    trip per site per window) and dated on their visit's day; overdue ones on
-    today. Issued orders are left as they are. Only the sites `user` works at are
-    planned (None: every site). Returns counts: `replanned` counts only the open
-    orders whose date or window really moved, and only those are written.
+    A capacitor whose plan says "read it again" (its trend's early crossing has passed, no reading
+    shows it past its limit: `planning.read_again`) gets a "read again" order, any other one a
+    replacement; each order carries the plan's reason in words. New orders and the still-planned ones
+    are bundled into site visits (one trip per site per window) and dated on their visit's day; overdue
+    ones on today. Issued orders are left as they are. Only the sites `user` works at are planned
+    (None: every site). Returns counts: `replanned` counts only the open orders whose date, window or
+    kind really moved; those and the ones whose reason changed are written.
     """
     today = today or timezone.localdate()
     due = list(
@@ -46,10 +50,12 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             "fitted_capacitor__role",
             "replace_by",
             "risk",
-            "limit_source",
+            "reason",
             "p10_on",
         )
     )
+    early_days = [np.inf if d[7] is None else (d[7] - today).days for d in due]
+    again = read_again([d[5] for d in due], early_days) if due else np.zeros(0, bool)
     due_ids = [d[0] for d in due]
     with transaction.atomic():
         # Two plans at once take turns per capacitor (its row locked) and read the open orders
@@ -57,26 +63,25 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
         # again (one open order per capacitor and kind).
         locked = FittedCapacitor.objects.select_for_update().filter(pk__any_of=np.asarray(due_ids, np.int64))
         list(locked.order_by("pk").values_list("pk", flat=True))
-        open_orders = {
-            (o.fitted_capacitor_id, o.kind): o
-            for o in WorkOrder.objects.filter(fitted_capacitor_id__any_of=np.asarray(due_ids, np.int64), state__in=OPEN)
-        }
-        was = {o.pk: (o.due_on, o.window_days) for o in open_orders.values()}
+        # A capacitor's open order: an issued one is left as it is; a planned one follows the plan
+        # (its kind too: "read again" becomes "replace" once a reading shows the capacitor past its limit).
+        open_orders = {}
+        for o in WorkOrder.objects.filter(
+            fitted_capacitor_id__any_of=np.asarray(due_ids, np.int64), state__in=OPEN, kind__in=CAPACITOR_KINDS
+        ).order_by("state"):  # "issued" before "planned": an issued order wins
+            open_orders.setdefault(o.fitted_capacitor_id, o)
+        was = {o.pk: (o.due_on, o.window_days, o.kind, o.reason) for o in open_orders.values()}
         items, new_orders, replanned = [], [], []
-        for fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, limit, p10 in due:
-            kind = KIND_FOR_ROLE[role]
-            existing = open_orders.get((fitted_capacitor_id, kind))
+        for (fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, reason, _), reread in zip(
+            due, again, strict=True
+        ):
+            existing = open_orders.get(fitted_capacitor_id)
             if existing is not None and existing.state == WorkOrder.State.ISSUED:
                 continue
-            when = max(replace_by, today)
-            order = existing or WorkOrder(
-                motor_id=motor_id,
-                fitted_capacitor_id=fitted_capacitor_id,
-                kind=kind,
-                created_by=user,
-                reason=f"{risk}: {limit} limit" + (f", early crossing {p10:%Y-%m-%d}" if p10 else ""),
-            )
-            items.append((site_id, (when - today).days, order))
+            order = existing or WorkOrder(motor_id=motor_id, fitted_capacitor_id=fitted_capacitor_id, created_by=user)
+            order.kind = WorkOrder.Kind.READ_AGAIN if reread else KIND_FOR_ROLE[role]
+            order.reason = f"{risk}: {reason}"[: WorkOrder._meta.get_field("reason").max_length]
+            items.append((site_id, (max(replace_by, today) - today).days, order))
             (replanned if existing else new_orders).append(order)
         if not items:
             return {"created": 0, "replanned": 0, "visits": 0}
@@ -84,10 +89,27 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
         for (_, _, order), day in zip(items, visit_day, strict=True):
             order.due_on = today + dt.timedelta(days=int(day))
             order.window_days = window_days
-        replanned = [o for o in replanned if (o.due_on, o.window_days) != was[o.pk]]
+        changed = [o for o in replanned if (o.due_on, o.window_days, o.kind, o.reason) != was[o.pk]]
+        replanned = [o for o in changed if (o.due_on, o.window_days, o.kind) != was[o.pk][:3]]
         audited_bulk_create(new_orders)
-        audited_bulk_update(replanned, ["due_on", "window_days"])
+        audited_bulk_update(changed, ["due_on", "window_days", "kind", "reason"])
     return {"created": len(new_orders), "replanned": len(replanned), "visits": len(set(visit.tolist()))}
+
+
+def close_read_again_orders(*, fitted_capacitor_ids, user=None) -> int:
+    """A reading is what a "read again" order asks for: close the open ones of the capacitors just read
+    (by the form, the API or an import; the refit that follows judges the readings, and the next plan
+    orders a replacement where they show the limit passed). In the caller's transaction."""
+    return audited_update(
+        WorkOrder.objects.filter(
+            fitted_capacitor_id__any_of=np.asarray(fitted_capacitor_ids, np.int64),
+            kind=WorkOrder.Kind.READ_AGAIN,
+            state__in=OPEN,
+        ),
+        state=WorkOrder.State.DONE,
+        closed_at=timezone.now(),
+        closed_by=user if user is not None and user.is_authenticated else None,
+    )
 
 
 def issue_visit(*, site_id: int, due_on: dt.date, user=None) -> int:

@@ -79,3 +79,24 @@ def test_the_same_page_sent_twice_saves_one_reading(phone, motor_with_history): 
     )
     assert statuses == [200, 200]  # both followed their redirect to the motor page
     assert Reading.objects.count() == before + 1
+
+
+def test_a_value_in_nanofarads_is_hinted_as_the_server_names_it_not_judged_as_microfarads(
+    phone,
+    motor_with_history,  # noqa: F811
+):
+    """147600 typed on a capacitor rated in tens of uF: the server names the nanofarad slip, the hint
+    said "147600.00 uF - above tolerance" and "above 5000 uF" in 30 px bold. [trade] the slip first."""
+    from fleet.engineering.rules import capacitance_unit_slip
+
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    rated = motor_with_history.part.rated_uf
+    typed = rated * 1000
+    phone.fill("#id_capacitance_uf", f"{typed:g}")
+    hint = phone.locator("#computed").inner_text()
+    server = capacitance_unit_slip([typed], rated)[0]
+    assert "looks like nanofarads" in server and server in hint
+    assert "tolerance" not in hint and "5000" not in hint
+    size = phone.eval_on_selector("#computed .check", "e => parseFloat(getComputedStyle(e).fontSize)")
+    assert size < 20  # a sentence to read, not the figure's 30 px

@@ -109,6 +109,26 @@ def test_rated_voltage_below_the_predicted_capacitor_voltage_is_unsuitable_and_s
     assert advise(position, parts(("HIGH-V", DESIGN_UF, high, "film"))).concerns == [[]]
 
 
+def test_a_nameplate_only_circuit_makes_a_rating_just_under_its_estimate_marginal_not_unsuitable():
+    """A technician replacing like for like saw the design's own 370 V part in red as "unsuitable": a
+    circuit estimated from the nameplate alone put 414 V across it. Such an estimate resolves the
+    capacitor voltage no finer than 15 % (EstimateResolution, the forecast's rule for setting such a
+    limit aside [derived]): a rating that close under it is marginal, a design finding to confirm with
+    a measured voltage; further under, unsuitable as before; an entered circuit keeps its verdict."""
+    from dataclasses import replace
+
+    entered = fan_position(design_voltage_v=300.0)  # under both: the never-lower rule does not decide
+    estimated = replace(entered, nameplate_only=True)
+    predicted = abs(operating_point(entered.circuit, DESIGN_UF, entered.load).v_capacitor)
+    near, far = predicted / 1.12, predicted / 1.2  # 12 % and 20 % under the estimate
+    candidates = parts(("NEAR", DESIGN_UF, near, "film"), ("FAR", DESIGN_UF, far, "film"))
+    nameplate = by_code(advise(estimated, candidates))
+    assert nameplate["NEAR"][0] == "marginal"
+    assert any("a nameplate-only estimate puts across it" in r for r in nameplate["NEAR"][1])
+    assert nameplate["FAR"][0] == "unsuitable"
+    assert by_code(advise(entered, candidates))["NEAR"][0] == "unsuitable"
+
+
 def test_never_a_lower_voltage_rating_than_the_part_it_replaces():
     """[trade] a substitute's voltage rating is never lower than the original's, even if the model allows."""
     advice = by_code(advise(fan_position(), parts(("440V", DESIGN_UF, 440.0, "film"))))
@@ -224,4 +244,4 @@ def test_without_a_circuit_judged_by_ratings_alone_within_the_marked_tolerance()
     assert advice.verdict.tolist() == ["suitable", "unsuitable"]
     assert advice.figures is None and np.isnan(advice.predicted_voltage_v).all()
     assert all(any("ratings alone" in r for r in reasons) for reasons in advice.reasons)
-    assert "marked tolerance 3.8-4.2 µF" in advice.reasons[1][0]
+    assert "marked tolerance, 3.8-4.2 µF" in advice.reasons[1][0]
