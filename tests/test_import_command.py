@@ -579,3 +579,28 @@ def test_a_failure_after_an_import_commits_is_named_beside_the_rows_imported(
     assert job.message.startswith("Imported 4 rows; they are saved. Afterwards the life-data refresh failed")
     page = client.get(reverse("import_detail", args=[job.id])).content.decode()
     assert "Nothing was imported" not in page and "the life-data refresh failed" in page
+
+
+def test_imported_readings_name_no_taker_whether_imported_on_the_page_or_by_the_command(
+    tmp_path, client, planner, django_capture_on_commit_callbacks
+):
+    """A readings import on the page stored the planner who imported the file as each reading's taker ("By pat"
+    on the motor page and in the export); the command stored none. Who measured is not who imported: both paths
+    leave the taker empty [trade]."""
+    import csv
+
+    migrate_all(tmp_path)  # the command's two readings
+    client.force_login(planner)
+    upload = io.BytesIO(b"asset_tag,role,taken_at,capacitance_uf\nFAN-1,run,2024-08-04 10:00,7.7\n")
+    upload.name = "more.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get(kind="readings")
+    for action in ({"action": "check", **job.mapping}, {"action": "all"}):
+        with django_capture_on_commit_callbacks(execute=True):
+            client.post(reverse("import_detail", args=[job.id]), action)
+    job.refresh_from_db()
+    assert (job.state, job.imported_rows, Reading.objects.count()) == (ImportJob.State.DONE, 1, 3)
+    export = b"".join(client.get("/exports/readings.csv").streaming_content).decode("utf-8-sig")
+    assert [row["taken_by"] for row in csv.DictReader(io.StringIO(export))] == ["", "", ""]
+    assert not Reading.objects.filter(taken_by__isnull=False).exists()

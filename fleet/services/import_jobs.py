@@ -76,7 +76,7 @@ def _write_parts(good, user):
 
 
 def _write_readings(good, user):
-    return [_refits(import_checks.insert_readings(good, user))]
+    return [_refits(import_checks.insert_readings(good))]
 
 
 def _write_register(good, user):
