@@ -465,5 +465,6 @@ def rejected_rows_csv(job: ImportJob) -> bytes:
     problems = defaultdict(list)
     for row, field_name, message in outcome.result.errors:
         problems[row].append(f"{field_name}: {message}")
-    picked = [outcome.rows[number - 2] + ["; ".join(problems[number])] for number in sorted(problems)]
+    position = {int(number): i for i, number in enumerate(files.row_numbers(outcome.rows))}
+    picked = [outcome.rows[position[number]] + ["; ".join(problems[number])] for number in sorted(problems)]
     return csv_bytes(outcome.header + ["problems"], picked)
