@@ -1285,16 +1285,19 @@ class AuditEntry(models.Model):
 
 class PartLifeFit(models.Model):
     """A part's stored Weibull fit (failures in service against suspensions), refreshed by a task,
-    so pages that forecast failures read it instead of fitting on a page load."""
+    so pages that forecast failures read it instead of fitting on a page load; or, for a part with
+    two failures or more whose data hold no estimate, why not (no shape nor scale then)."""
 
     part = models.OneToOneField(CapacitorPart, on_delete=models.CASCADE, related_name="life_fit")
-    beta = models.FloatField(help_text="Weibull shape")
-    eta_years = models.FloatField(help_text="Weibull scale, years")
+    beta = models.FloatField(null=True, blank=True, help_text="Weibull shape; empty when there is no estimate")
+    eta_years = models.FloatField(null=True, blank=True, help_text="Weibull scale, years")
+    no_fit_reason = models.CharField(max_length=300, blank=True, help_text="Why the data hold no estimate")
     failures = models.PositiveIntegerField()
     suspensions = models.PositiveIntegerField()
     # What the life-data page shows besides the fit (migration 0023), so it never fits on a page load:
-    # the covariance of (ln beta, ln eta) for the Fisher bounds, the Weibull plot's points (thinned) and
-    # the mean chance that a capacitor in service fails within a year, on the day of the fit.
+    # the covariance of (ln beta, ln eta) for the Fisher bounds (empty where the information matrix could
+    # not be inverted: the estimate without bounds), the Weibull plot's points (thinned) and the mean
+    # chance that a capacitor in service fails within a year, on the day of the fit.
     var_log_beta = models.FloatField(null=True, blank=True)
     cov_log_beta_eta = models.FloatField(null=True, blank=True)
     var_log_eta = models.FloatField(null=True, blank=True)
@@ -1305,12 +1308,17 @@ class PartLifeFit(models.Model):
     class Meta:
         constraints = [
             models.CheckConstraint(
-                condition=Q(beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND),
-                name="life_fit_finite_positive",
+                condition=Q(
+                    beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND, no_fit_reason=""
+                )
+                | (Q(beta__isnull=True, eta_years__isnull=True) & ~Q(no_fit_reason="")),
+                name="life_fit_finite_positive_or_why_not",
             ),
         ]
 
     def __str__(self):
+        if self.beta is None:
+            return f"life of {self.part_id}: no estimate"
         return f"life of {self.part_id}: beta {self.beta:.2f}, eta {self.eta_years:.1f} y"
 
 

@@ -170,8 +170,8 @@ def test_an_exception_mid_import_ends_the_job_failed_with_nothing_in(caplog):
     )
     real_insert = import_checks.insert_readings
 
-    def insert_then_fail(good, user=None):
-        real_insert(good, user)
+    def insert_then_fail(good):
+        real_insert(good)
         assert Reading.objects.count() == 6  # the rows are in, inside the transaction
         raise RuntimeError("disk on fire")
 

@@ -484,3 +484,59 @@ def test_the_check_page_says_in_words_why_all_or_nothing_is_not_offered_and_coun
     assert "All or nothing is not possible:</strong> 1 row has problems. Fix it in the file" in page
     assert 'aria-describedby="import-why-not-all"' in page and "title=" not in page.split('value="all"')[1][:80]
     assert "Import the 1 good row, leave 1 out" in page and "1 good rows" not in page
+
+
+# A sites file with a row of empty cells (line 3), an empty line (5) and a name over two lines (7-8): rows are
+# numbered as the file shows them, the CSV's line where the row starts and the sheet's row (ours).
+NUMBERED_ROWS = [
+    (2, ["AAA", "Site A", "UTC"]),
+    (3, ["", "", ""]),
+    (4, ["BBB", "Site B", "Mars/Olympus"]),
+    (6, ["AAA", "Again", "UTC"]),
+    (7, ["CCC", "Site C\non two lines", "Europe/Nowhere"]),
+    (9, ["DDD", "", "UTC"]),
+]
+
+
+def _numbered_file(fmt: str) -> bytes:
+    if fmt == "csv":
+        lines = ["code,name,time_zone", "AAA,Site A,UTC", ",,", "BBB,Site B,Mars/Olympus", "", "AAA,Again,UTC"]
+        lines += ['CCC,"Site C\non two lines",Europe/Nowhere', "DDD,,UTC"]
+        return ("\n".join(lines) + "\n").encode()
+    book = Workbook()
+    sheet = book.active
+    sheet.append(["code", "name", "time_zone"])
+    for number, cells in NUMBERED_ROWS:
+        for column, value in enumerate(cells, start=1):
+            sheet.cell(row=number, column=column, value=value)
+    saved = io.BytesIO()
+    book.save(saved)
+    return saved.getvalue()
+
+
+@pytest.mark.parametrize("fmt", ["csv", "xlsx"])
+def test_rows_are_numbered_as_the_file_shows_them_after_blank_rows(tmp_path, fmt):
+    """After a blank row every problem was reported one row too high ("row 4" for line 6 of a CSV), in the
+    command, on the page, in "the same ... as row N" and in the rows to fix [derived: the file's own lines]."""
+    from django.core.management import call_command
+    from django.core.management.base import CommandError
+
+    content = _numbered_file(fmt)
+    expected = {(4, "time_zone"), (6, "code"), (7, "time_zone"), (9, "name")}
+    path = tmp_path / f"sites.{fmt}"
+    path.write_bytes(content)
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="4 rows have problems"):
+        call_command("import", "sites", str(path), stdout=out)
+    report = out.getvalue()
+    assert all(f"row {row}, {field}:" in report for row, field in expected), report
+    assert "row 6, code: the same site code as row 2" in report
+
+    job = check_job(create_job(kind="sites", filename=f"sites.{fmt}", content=content, user=None).id)
+    assert {(row, field) for row, field, _ in job.errors} == expected
+    done = run_job(job.id, ImportJob.Mode.GOOD_ROWS)
+    assert done.imported_rows == 1
+    fix_file = list(csv.reader(io.StringIO(rejected_rows_csv(done).decode("utf-8-sig"))))
+    uploaded = dict(NUMBERED_ROWS)
+    assert [row[:3] for row in fix_file[1:]] == [uploaded[4], uploaded[6], uploaded[7], uploaded[9]]
+    assert [row[3].split(":")[0] for row in fix_file[1:]] == ["time_zone", "code", "time_zone", "name"]

@@ -2,6 +2,7 @@
 
 import datetime as dt
 
+import numpy as np
 import pytest
 from django.utils import timezone
 
@@ -32,3 +33,89 @@ def test_counts_without_a_fit_are_the_life_tables():
     assert life["fit"] is None
     assert (life["failures"], life["suspensions"]) == (int(table["failed"].sum()), int((~table["failed"]).sum()))
     assert (life["failures"], life["suspensions"]) == (1, 1)
+
+
+def _capacitors(part, spans):
+    """Fitted capacitors of `part` on motors of their own: (fitted, removed or None, failed)."""
+    for fitted_on, removed_on, failed in spans:
+        reason = "" if removed_on is None else ("failed" if failed else "planned")
+        make_fitted_capacitor(
+            motor=make_motor(), part=part, fitted_on=fitted_on, removed_on=removed_on, removal_reason=reason
+        )
+
+
+def _tied_and_fittable_parts(today):
+    """A part whose two failures share the oldest age (with a suspension at it: no estimate) and a part
+    with four failures at three ages (the fresh-eyes import's two start-capacitor parts, ours)."""
+    tied, fittable = make_part(code="TIED"), make_part(code="FITTABLE")
+    _capacitors(tied, [(dt.date(2020, 1, 20), dt.date(2024, 6, 3), failed) for failed in (True, True, False)])
+    _capacitors(tied, [(dt.date(2024, 6, 3), None, False)] * 3)
+    _capacitors(
+        fittable,
+        [
+            (dt.date(2021, 3, 8), dt.date(2023, 10, 10), True),
+            (dt.date(2021, 3, 8), dt.date(2022, 5, 1), True),
+            (dt.date(2022, 5, 1), dt.date(2023, 10, 10), True),
+            (dt.date(2021, 3, 8), dt.date(2023, 10, 10), True),
+        ]
+        + [(dt.date(2023, 10, 10), None, False)] * 3,
+    )
+    return tied, fittable
+
+
+def test_a_part_with_no_estimate_says_why_and_the_other_parts_are_fitted(client, engineer, planner):
+    """[derived] Every failure at the oldest age holds no Weibull estimate (tests/engineering/test_lifedata.py):
+    the refresh stores why for that part and fits the others; the pages name the reason, not "not fitted yet"
+    nor "fewer than two failures"."""
+    from django.urls import reverse
+
+    from fleet.engineering.lifedata import fit_weibull
+    from fleet.models import PartLifeFit
+    from fleet.services.lifedata import DAYS_PER_YEAR, refresh_life_fits
+
+    tied, fittable = _tied_and_fittable_parts(timezone.localdate())
+    assert refresh_life_fits() == 1
+    stored = PartLifeFit.objects.get(part=fittable)
+    table = life_table(fittable.id)
+    fit = fit_weibull(table["age_days"] / DAYS_PER_YEAR, table["failed"])
+    assert (stored.beta, stored.eta_years, stored.failures) == (fit.beta, fit.eta, 4)
+    assert stored.var_log_beta == fit.covariance_log[0, 0]
+    no_fit = PartLifeFit.objects.get(part=tied)
+    assert no_fit.beta is None and "no capacitor has outlived it" in no_fit.no_fit_reason
+    client.force_login(engineer)
+    body = client.get(reverse("life_data"), {"part": tied.code}).content.decode()
+    assert "No Weibull fit: every failure is at the same age" in body and "Not fitted yet" not in body
+    body = client.get(reverse("life_data"), {"part": fittable.code}).content.decode()
+    assert "B10 life" in body and "<b>4</b> failed in service" in body
+    client.force_login(planner)
+    dashboard = client.get(reverse("dashboard")).content.decode()
+    assert f"the life-data page says which) for {tied.code}: only the plan" in dashboard  # not for {fittable.code}
+
+
+def test_a_part_whose_refresh_fails_keeps_its_fit_and_does_not_stop_the_others(monkeypatch, caplog):
+    """One part's unexpected error (a stand-in for any bug in a fit) is logged; that part keeps the fit it had,
+    and every other part is refitted on the same run [derived]."""
+    from fleet.models import PartLifeFit
+    from fleet.services import lifedata
+
+    today = timezone.localdate()
+    tied, fittable = _tied_and_fittable_parts(today)
+    broken = make_part(code="BROKEN")
+    _capacitors(broken, [(dt.date(2019, 1, 1), dt.date(2020 + i, 1, 1), True) for i in range(3)])
+    lifedata.refresh_life_fits()
+    before = PartLifeFit.objects.get(part=broken)
+    _capacitors(fittable, [(dt.date(2022, 1, 1), dt.date(2022, 9, 1), True)])  # a fifth failure since
+    real_fit = lifedata.fit_weibull
+
+    def fails_on_three_failures(years, failed):
+        if failed.sum() == 3:
+            raise np.linalg.LinAlgError("Singular matrix")
+        return real_fit(years, failed)
+
+    monkeypatch.setattr(lifedata, "fit_weibull", fails_on_three_failures)
+    lifedata.refresh_life_fits()
+    assert "life fit of part" in caplog.text
+    kept = PartLifeFit.objects.get(part=broken)
+    assert (kept.beta, kept.eta_years, kept.fitted_at) == (before.beta, before.eta_years, before.fitted_at)
+    assert PartLifeFit.objects.get(part=fittable).failures == 5
+    assert PartLifeFit.objects.get(part=tied).no_fit_reason

@@ -160,3 +160,22 @@ def test_health_answers_503_when_the_database_does_not(monkeypatch):
     monkeypatch.setattr(fleet.faults.connection, "cursor", unreachable)
     response = Client(raise_request_exception=False).get("/health/")
     assert response.status_code == 503 and response.has_header("Retry-After")
+
+
+def test_a_task_run_in_process_without_a_broker_logs_nothing_about_a_broker_address():
+    """Without CELERY_BROKER_URL tasks run in-process; Celery still took a producer for an eager task, on its
+    default broker address, and `manage.py import readings` printed "No hostname was supplied. Reverting to
+    default 'localhost'" on stderr for every task [derived]."""
+    env = {k: v for k, v in os.environ.items() if k not in {"CELERY_BROKER_URL", "DJANGO_ALLOW_ASYNC_UNSAFE"}}
+    script = (
+        "import django\n"
+        "django.setup()\n"
+        "from config.celery import app\n"
+        "@app.task\n"
+        "def twice(x):\n"
+        "    return 2 * x\n"
+        "assert app.conf.task_always_eager\n"
+        "print(twice.delay(21).get())\n"
+    )
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, env=env, capture_output=True, text=True)
+    assert (done.returncode, done.stdout, done.stderr) == (0, "42\n", "")

@@ -15,13 +15,23 @@ from scipy import integrate, optimize, stats
 from scipy.special import gamma, ndtri
 
 
+class NoWeibullEstimate(ValueError):
+    """The data hold no maximum-likelihood Weibull estimate; the message says why, in words for a page."""
+
+
 @dataclass(frozen=True)
 class WeibullFit:
     beta: float  # shape
     eta: float  # scale, same unit as the times
     failures: int
     suspensions: int
-    covariance_log: np.ndarray  # of (ln beta, ln eta), inverse observed information
+    covariance_log: np.ndarray  # of (ln beta, ln eta), inverse observed information; NaN: no bounds
+
+    @property
+    def bounds_available(self) -> bool:
+        """Whether the observed information could be inverted (Fisher bounds exist); without it the
+        bounds are NaN and only the estimate stands."""
+        return bool(np.all(np.isfinite(self.covariance_log)))
 
     def reliability(self, t):
         return np.exp(-((np.asarray(t, float) / self.eta) ** self.beta))
@@ -35,7 +45,7 @@ class WeibullFit:
         return 1.0 - self.reliability(np.asarray(age, float) + interval) / self.reliability(age)
 
     def b_life_bounds(self, fraction_failed=0.10, confidence=0.90):
-        """Two-sided Fisher-matrix bounds on a B-life (delta method on ln B)."""
+        """Two-sided Fisher-matrix bounds on a B-life (delta method on ln B); NaN without bounds."""
         k = -np.log1p(-fraction_failed)
         # ln B = ln eta + ln(k) / beta; gradient in (ln beta, ln eta)
         gradient = np.array([-np.log(k) / self.beta, 1.0])
@@ -66,33 +76,55 @@ def _negative_log_likelihood(params, t, failed):
 def fit_weibull(times, failed) -> WeibullFit:
     """Maximum-likelihood Weibull fit; `failed` False marks a suspension.
 
-    Needs at least two failures. SciPy's censored-data fit (`weibull_min.fit` on
-    `CensoredData`, location fixed at zero) finds the estimate, started from a
-    least-squares line through the median-rank plot; the covariance comes from
-    the numerical Hessian of the log-likelihood in (ln beta, ln eta).
+    Needs at least two failures, not all at the oldest age in the data (NoWeibullEstimate
+    otherwise). SciPy's censored-data fit (`weibull_min.fit` on `CensoredData`, location
+    fixed at zero) finds the estimate, started from a least-squares line through the
+    median-rank plot; the covariance comes from the numerical Hessian of the log-likelihood
+    in (ln beta, ln eta), NaN where that is not positive definite (the estimate without bounds).
     """
     t = np.asarray(times, float)
     failed = np.asarray(failed, bool)
-    if failed.sum() < 2:
-        raise ValueError("a Weibull fit needs at least two failures")
     if np.any(t <= 0):
         raise ValueError("life times must be positive")
+    if failed.sum() < 2:
+        raise NoWeibullEstimate("fewer than two failures in service")
+    if np.all(t[failed] == t.max()):
+        # The profile log-likelihood is then r ln(beta) + a constant as beta grows: it has no maximum.
+        raise NoWeibullEstimate(
+            "every failure is at the same age and no capacitor has outlived it, so the likelihood has no "
+            "maximum (the shape grows without bound); a fit needs failures at different ages"
+        )
     plot_t, plot_f = probability_plot_points(t, failed)
-    slope, intercept = np.polyfit(np.log(plot_t), np.log(-np.log1p(-plot_f)), 1)
-    beta_start = max(slope, 0.2)
+    if np.ptp(plot_t) > 0:
+        slope, intercept = np.polyfit(np.log(plot_t), np.log(-np.log1p(-plot_f)), 1)
+        beta_start = max(slope, 0.2)
+        scale_start = np.exp(-intercept / beta_start)
+    else:  # every failure at one age: no line through the plot, start at an exponential with that scale
+        beta_start, scale_start = 1.0, plot_t[0]
     data = stats.CensoredData.right_censored(t, ~failed)
-    beta, _, eta = stats.weibull_min.fit(
-        data, beta_start, floc=0, scale=np.exp(-intercept / beta_start), optimizer=_tight_simplex
-    )
+    beta, _, eta = stats.weibull_min.fit(data, beta_start, floc=0, scale=scale_start, optimizer=_tight_simplex)
     estimate = np.log([beta, eta])
-    hessian = _hessian(lambda p: _negative_log_likelihood(p, t, failed), estimate)
+    with np.errstate(over="ignore", invalid="ignore"):  # a huge shape overflows to inf: no bounds, below
+        hessian = _hessian(lambda p: _negative_log_likelihood(p, t, failed), estimate)
     return WeibullFit(
         beta=float(beta),
         eta=float(eta),
         failures=int(failed.sum()),
         suspensions=int((~failed).sum()),
-        covariance_log=np.linalg.inv(hessian),
+        covariance_log=_covariance(hessian),
     )
+
+
+def _covariance(hessian: np.ndarray) -> np.ndarray:
+    """The inverse of the observed information (the Hessian of the negative log-likelihood) where it is
+    finite and positive definite; NaN otherwise (a singular or indefinite matrix gives no bounds)."""
+    if np.all(np.isfinite(hessian)):
+        try:
+            np.linalg.cholesky(hessian)
+            return np.linalg.inv(hessian)
+        except np.linalg.LinAlgError:
+            pass
+    return np.full(hessian.shape, np.nan)
 
 
 def _tight_simplex(function, start, args=(), disp=0):

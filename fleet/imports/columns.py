@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from fleet.engineering.rules import known_time_zone, parse_numbers
-from fleet.imports.files import TextColumns
+from fleet.imports.files import TextColumns, row_numbers
 
 READING_COLUMNS = {
     "asset_tag": "Motor asset tag (required)",
@@ -98,7 +98,8 @@ def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
 def mapped_frame(
     header: list[str], rows: list[list[str]] | TextColumns, mapping: dict[str, str], ours: dict[str, str]
 ) -> pd.DataFrame:
-    """Our fields as text columns (stripped; "" where the file has no such column), and each row's number."""
+    """Our fields as text columns (stripped; "" where the file has no such column), and each row's number
+    as the file shows it (`files.row_numbers`)."""
     position = {}
     for number, heading in enumerate(header):
         position.setdefault(heading, number)
@@ -111,7 +112,7 @@ def mapped_frame(
             out[name] = rows.column(column).str.strip()
         else:
             out[name] = pd.Series(list(map(operator.itemgetter(column), rows)), dtype=str).str.strip()
-    out["row"] = np.arange(len(rows)) + 2
+    out["row"] = row_numbers(rows)
     return pd.DataFrame(out)
 
 

@@ -24,11 +24,13 @@ class TextColumns(Sequence):
     """A file's data rows held as text columns (pyarrow), as the fast CSV reader leaves them.
 
     Reads like the list of rows the exact reader gives (`len`, `rows[i]` is a list of text), so a
-    report can quote a row as uploaded; `column(j)` gives a whole column at once, without rows.
+    report can quote a row as uploaded; `column(j)` gives a whole column at once, without rows;
+    `numbers` holds each row's number in the file (`row_numbers`).
     """
 
-    def __init__(self, columns: list[pa.Array]):
+    def __init__(self, columns: list[pa.Array], numbers: np.ndarray):
         self.columns = columns
+        self.numbers = numbers
 
     def __len__(self) -> int:
         return len(self.columns[0]) if self.columns else 0
@@ -40,6 +42,23 @@ class TextColumns(Sequence):
 
     def column(self, position: int) -> pd.Series:
         return pd.Series(self.columns[position], dtype=str)
+
+
+class NumberedRows(list):
+    """A file's data rows as lists of text (the exact CSV reader's and the workbook's), with each row's
+    number in the file (`row_numbers`)."""
+
+    def __init__(self, rows: list[list[str]], numbers):
+        super().__init__(rows)
+        self.numbers = np.asarray(numbers, np.int64)
+
+
+def row_numbers(rows) -> np.ndarray:
+    """Each data row's number as the file shows it: a CSV's line where the row starts (the headings on
+    line 1; blank lines and line breaks inside quoted fields count), an XLSX sheet's row. A plain list
+    of rows (no file) is numbered 2, 3, ... under its headings."""
+    numbers = getattr(rows, "numbers", None)
+    return np.arange(len(rows), dtype=np.int64) + 2 if numbers is None else numbers
 
 
 class FileRefused(Exception):
@@ -77,8 +96,9 @@ class Limits:
         )
 
 
-def read_table(content: bytes, filename: str) -> tuple[list[str], list[list[str]] | TextColumns]:
-    """Header and rows as text, within the limits, which are checked before parsing.
+def read_table(content: bytes, filename: str) -> tuple[list[str], NumberedRows | TextColumns]:
+    """Header and rows as text, within the limits, which are checked before parsing; blank rows left
+    out, each row numbered as the file shows it (`row_numbers`).
 
     A ragged row (a file cut off mid-row) or a heading given twice refuses the file.
     """
@@ -120,7 +140,7 @@ def csv_delimiter(first_line: str) -> str:
     return max((",", ";", "\t"), key=first_line.count)
 
 
-def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]] | TextColumns]:
+def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows | TextColumns]:
     try:
         text = content.decode("utf-8-sig")
     except UnicodeDecodeError as error:
@@ -155,7 +175,10 @@ def _read_csv_columns(
         table = arrow_csv.read_csv(
             io.BytesIO(content.removeprefix(b"\xef\xbb\xbf")),
             read_options=arrow_csv.ReadOptions(autogenerate_column_names=True, use_threads=False),
-            parse_options=arrow_csv.ParseOptions(delimiter=delimiter, newlines_in_values=True),
+            # Blank lines are kept as rows (of empty cells), so that each row's line can be counted.
+            parse_options=arrow_csv.ParseOptions(
+                delimiter=delimiter, newlines_in_values=True, ignore_empty_lines=False
+            ),
             convert_options=arrow_csv.ConvertOptions(
                 column_types={f"f{i}": pa.string() for i in range(limits.columns + 1)},
                 strings_can_be_null=False,
@@ -169,6 +192,11 @@ def _read_csv_columns(
     columns = [table.column(i).combine_chunks().cast(pa.string()) for i in range(table.num_columns)]
     if not columns or max(pc.max(pc.utf8_length(c)).as_py() or 0 for c in columns) > csv.field_size_limit():
         return None
+    lines = np.ones(len(columns[0]), np.int64)  # the lines each record spans
+    if '"' in text:  # a quoted field may hold line breaks
+        for column in columns:
+            lines += pc.count_substring(column, "\n").to_numpy(zero_copy_only=False)
+    starts = np.cumsum(lines) - lines + 1  # the line each record starts on
     maybe_blank = functools.reduce(pc.and_, [pc.match_substring_regex(c, _MAYBE_BLANK) for c in columns])
     if pc.any(maybe_blank).as_py():  # rare: the exact test on those rows only
         candidates = np.flatnonzero(maybe_blank.to_numpy(zero_copy_only=False))
@@ -176,32 +204,35 @@ def _read_csv_columns(
         blank = np.zeros(len(columns[0]), bool)
         blank[candidates] = [not "".join(row).strip() for row in zip(*cells, strict=True)]
         columns = [c.filter(pa.array(~blank)) for c in columns]
+        starts = starts[~blank]
     if not len(columns[0]):
         raise FileRefused("The file is empty.")
     if len(columns[0]) - 1 > limits.rows:
         raise limits.too_many_rows(min(len(columns[0]) - 1, limits.rows + 1))
-    return [c[0].as_py().strip() for c in columns], TextColumns([c.slice(1) for c in columns])
+    return [c[0].as_py().strip() for c in columns], TextColumns([c.slice(1) for c in columns], starts[1:])
 
 
-def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str], list[list[str]]]:
+def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str], NumberedRows]:
     """The exact reader, row by row: what the fast one leaves to it, with its messages."""
-    rows = []
+    rows, starts = [], []
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
     try:
         for row in reader:
+            start = reader.line_num - sum(cell.count("\n") for cell in row)  # the line the row starts on
             if not "".join(row).strip():
                 continue
             if not rows and len(row) > limits.columns:
                 raise limits.too_many_columns()
             rows.append(row)
+            starts.append(start)
             if len(rows) > limits.rows + 1:
                 raise limits.too_many_rows(len(rows) - 1)
     except csv.Error as error:
         raise FileRefused(_csv_error_words(error, reader.line_num, delimiter)) from error
     if not rows:
         raise FileRefused("The file is empty.")
-    header, body = [h.strip() for h in rows[0]], rows[1:]
-    for number, row in enumerate(body, start=2):
+    header, body = [h.strip() for h in rows[0]], NumberedRows(rows[1:], starts[1:])
+    for number, row in zip(body.numbers, body, strict=True):
         if len(row) != len(header):
             raise FileRefused(
                 f"Row {number} has {len(row)} fields where the header has {len(header)}: the file looks cut off "
@@ -322,7 +353,7 @@ def _first_sheet_path(archive: zipfile.ZipFile) -> str | None:
 _UTC_FORMAT = re.compile(r'(?:"\s*(?:UTC|Z)"|\\Z)$')
 
 
-def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str]]]:
+def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]:
     _check_workbook_size(content, limits)
     from openpyxl import load_workbook
 
@@ -343,8 +374,10 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str
 
     header: list[str] = []
     body: list[list[str]] = []
+    numbers: list[int] = []
     width = 0
-    for cells in sheet.iter_rows(max_col=limits.columns + 1):
+    # Read-only sheets yield every row from the first, missing ones as empty: the count is the sheet's row.
+    for number, cells in enumerate(sheet.iter_rows(max_col=limits.columns + 1), start=1):
         row = [text(c) for c in cells]
         if not any(cell.strip() for cell in row):
             continue
@@ -355,8 +388,9 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], list[list[str
             header = [h.strip() for h in row[:width]]
             continue
         body.append(row[:width] + [""] * (width - len(row)))
+        numbers.append(number)
         if len(body) > limits.rows:
             raise limits.too_many_rows(len(body))
     if not header:
         raise FileRefused("The first sheet is empty.")
-    return header, body
+    return header, NumberedRows(body, numbers)

@@ -175,7 +175,9 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
         for (part, fitted, replace), n in counted.items()
         if n
     ]
-    fits = {f["part_id"]: f for f in PartLifeFit.objects.values("part_id", "beta", "eta_years")}
+    fits = {
+        f["part_id"]: f for f in PartLifeFit.objects.filter(beta__isnull=False).values("part_id", "beta", "eta_years")
+    }
     part_ids = sorted({row["part_id"] for row in planned_rows} | {g["part_id"] for g in groups})
     parts = {p.id: p for p in CapacitorPart.objects.filter(id__in=part_ids).order_by("dielectric", "rated_uf", "code")}
     stock = dict(

@@ -66,7 +66,11 @@ READING_COLUMNS = [
     ),
     Column("supersedes_id", INT, description="The reading this one corrects", source="supersedes_id"),
     Column("source", description="form, api, import or demo", source="source"),
-    Column("taken_by", description="User name of who logged it", source="taken_by__username"),
+    Column(
+        "taken_by",
+        description="User name of who took it (on the form or by the API); empty for an imported reading",
+        source="taken_by__username",
+    ),
     Column("notes", description="Technician's notes", source="notes"),
 ]
 

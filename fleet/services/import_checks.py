@@ -289,8 +289,10 @@ def _already_stored(good: pd.DataFrame) -> np.ndarray:
     return keyed | np.isin(mine, unkeyed)
 
 
-def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
+def insert_readings(good: pd.DataFrame) -> list[int]:
     """Write checked readings (caller holds the transaction); returns the capacitors touched.
+
+    An imported reading has no taker (`taken_by`): whoever imports the file did not measure it.
 
     One `insert_frame` (COPY on PostgreSQL; the row triggers of fleet_reading run on each row as
     for any insert). A reading whose key another import wrote meanwhile is skipped.
@@ -301,7 +303,7 @@ def insert_readings(good: pd.DataFrame, user=None) -> list[int]:
         {
             "fitted_capacitor_id": good["fitted_capacitor_id"].to_numpy(np.int64),
             "taken_at": good["taken_at"].array,
-            "taken_by_id": pd.array(np.full(len(good), None if user is None else user.pk), dtype="Int64"),
+            "taken_by_id": pd.array(np.full(len(good), None), dtype="Int64"),
             "method": good["method"].to_numpy(object),
             **{name: good[name].to_numpy(float) for name in READING_NUMBERS},
             "condition": good["condition"].to_numpy(object),

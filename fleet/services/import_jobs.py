@@ -32,13 +32,23 @@ log = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
+class FollowUp:
+    """Work an import starts once it has committed (queue refits, refresh life data): its failure is
+    reported beside the rows imported, never taken for the import's."""
+
+    what: str  # "the life-data refresh", as a report names it
+    step: Callable[[], None]
+    retry: str  # what does it later, or how to do it by hand
+
+
+@dataclass(frozen=True)
 class Kind:
     """What one kind of file holds, how it is checked and how its good rows are written."""
 
     columns: dict[str, str]
     required: tuple[str, ...]
     check: Callable
-    write: Callable  # (good rows, user) -> None, inside the import's transaction
+    write: Callable  # (good rows, user) -> [FollowUp], inside the import's transaction
     max_lengths: dict[str, int]
     site_column: str = ""  # names a row's motor (asset_tag) or site (site_code): a limited user imports there only
 
@@ -48,21 +58,46 @@ def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
     return {column: model._meta.get_field(name).max_length for column, name in fields.items()}
 
 
+def _refits(fitted_capacitor_ids) -> FollowUp:
+    return FollowUp(
+        "the refit of the capacitors imported",
+        lambda: enqueue_refit(fitted_capacitor_ids),
+        "the sweep every 15 minutes refits them",
+    )
+
+
+def _write_sites(good, user):
+    import_checks.insert_sites(good)
+    return []
+
+
+def _write_parts(good, user):
+    import_checks.insert_parts(good)
+    return []
+
+
 def _write_readings(good, user):
-    touched = import_checks.insert_readings(good, user)
+    touched = import_checks.insert_readings(good)
     close_read_again_orders(fitted_capacitor_ids=touched, user=user)
-    transaction.on_commit(lambda: enqueue_refit(touched))
+    return [_refits(touched)]
 
 
 def _write_register(good, user):
     motor_ids = import_checks.insert_register(good)
-    transaction.on_commit(lambda: _estimate_later(motor_ids))
+    return [
+        FollowUp(
+            "the motors' circuit estimates",
+            lambda: _estimate_later(motor_ids),
+            "run manage.py estimate_circuits to estimate them",
+        )
+    ]
 
 
 def _write_history(good, user):
-    fitted_capacitor_ids = import_checks.insert_history(good)
-    transaction.on_commit(lambda: enqueue_refit(fitted_capacitor_ids))
-    transaction.on_commit(_refresh_life_data_later)
+    return [
+        _refits(import_checks.insert_history(good)),
+        FollowUp("the life-data refresh", _refresh_life_data_later, "the nightly life-data refresh runs it again"),
+    ]
 
 
 KINDS = {
@@ -70,14 +105,14 @@ KINDS = {
         columns.SITE_COLUMNS,
         columns.SITE_REQUIRED,
         import_checks.check_sites,
-        lambda good, user: import_checks.insert_sites(good),
+        _write_sites,
         _max_lengths(Site, {"code": "code", "name": "name", "time_zone": "time_zone"}),
     ),
     ImportJob.Kind.PARTS: Kind(
         columns.PART_COLUMNS,
         columns.PART_REQUIRED,
         import_checks.check_parts,
-        lambda good, user: import_checks.insert_parts(good),
+        _write_parts,
         _max_lengths(CapacitorPart, {"code": "code", "description": "description", "duty": "duty"}),
     ),
     ImportJob.Kind.REGISTER: Kind(
@@ -115,6 +150,18 @@ class Outcome:
     mapping: dict = field(default_factory=dict)
     imported: int = 0
     refused: str = ""  # why nothing was imported though the file was read
+    failed_afterwards: list[str] = field(default_factory=list)  # follow-ups that failed once the import was in
+
+    @property
+    def afterwards(self) -> str:
+        """The follow-ups that failed, in words, after the rows imported ("" when none did)."""
+        if not self.failed_afterwards:
+            return ""
+        return (
+            f"Imported {self.imported} row{pluralize(self.imported)}; they are saved. Afterwards "
+            + "; ".join(self.failed_afterwards)
+            + ". The details are in the server log."
+        )
 
     @property
     def left_out(self) -> list[str]:
@@ -178,6 +225,8 @@ def import_file(
     All or nothing: any bad row refuses the whole file. Good rows only: the bad rows
     stay out. Rows already in the database are skipped, so a second run adds
     nothing. `on_written(outcome)` runs inside the transaction (the job's own record).
+    The kind's follow-ups run once the transaction has committed; one that fails is
+    logged and named in `outcome.failed_afterwards`, and the rows stay imported.
     """
     outcome = check_file(
         kind=kind, filename=filename, content=content, mapping=mapping, on_progress=on_progress, user=user
@@ -193,11 +242,21 @@ def import_file(
         return outcome
     with transaction.atomic():
         if len(result.good):
-            KINDS[kind].write(result.good, user if user and user.is_authenticated else None)
+            for follow_up in KINDS[kind].write(result.good, user if user and user.is_authenticated else None):
+                transaction.on_commit(functools.partial(_follow, follow_up, outcome))
         outcome.imported = len(result.good)
         if on_written:
             on_written(outcome)
     return outcome
+
+
+def _follow(follow_up: FollowUp, outcome: Outcome) -> None:
+    """Run one follow-up of a committed import; a failure is logged and named on the outcome, never raised."""
+    try:
+        follow_up.step()
+    except Exception as error:  # noqa: BLE001 - the import is in: whatever fails after it must not undo its report
+        log.exception("after importing %s: %s failed", outcome.imported, follow_up.what)
+        outcome.failed_afterwards.append(f"{follow_up.what} failed ({type(error).__name__}): {follow_up.retry}")
 
 
 def create_job(*, kind: str, filename: str, content: bytes, user) -> ImportJob:
@@ -374,6 +433,8 @@ def _run(job: ImportJob, mode: str) -> None:
         _update(
             job.pk, state=ImportJob.State.REFUSED, imported_rows=0, message=outcome.refused, **_summary(outcome.result)
         )
+    elif outcome.afterwards:
+        _update(job.pk, message=outcome.afterwards)
 
 
 read_job = _guarded(_read)
@@ -407,5 +468,6 @@ def rejected_rows_csv(job: ImportJob) -> bytes:
     problems = defaultdict(list)
     for row, field_name, message in outcome.result.errors:
         problems[row].append(f"{field_name}: {message}")
-    picked = [outcome.rows[number - 2] + ["; ".join(problems[number])] for number in sorted(problems)]
+    position = {int(number): i for i, number in enumerate(files.row_numbers(outcome.rows))}
+    picked = [outcome.rows[position[number]] + ["; ".join(problems[number])] for number in sorted(problems)]
     return csv_bytes(outcome.header + ["problems"], picked)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import logging
 
 import numpy as np
 import pandas as pd
@@ -10,8 +11,16 @@ from django.db import transaction
 from django.db.models import Count, F, Q
 from django.utils import timezone
 
-from fleet.engineering.lifedata import WeibullFit, age_replacement, fit_weibull, probability_plot_points
+from fleet.engineering.lifedata import (
+    NoWeibullEstimate,
+    WeibullFit,
+    age_replacement,
+    fit_weibull,
+    probability_plot_points,
+)
 from fleet.models import FittedCapacitor, PartLifeFit
+
+log = logging.getLogger(__name__)
 
 DAYS_PER_YEAR = 365.25
 
@@ -38,47 +47,68 @@ PLOT_POINTS = 400  # the Weibull plot's points kept per part: every failure up t
 def refresh_life_fits(today: dt.date | None = None) -> int:
     """Fit and store every part's Weibull (parts with two failures or more; the others' stored fit
     is removed) with what the life-data page shows besides it, for pages that must not fit on a
-    page load. One loop step per part."""
+    page load; a part whose data hold no estimate gets the reason instead. One loop step per part,
+    each in its own savepoint: a part that fails unexpectedly keeps the fit it had (logged) and the
+    others are refreshed all the same. Returns the parts fitted."""
     table = life_table(today=today)
-    kept = []
+    kept, fitted = [], 0
     with transaction.atomic():
         for part_id, rows in table.groupby("part_id"):
             years = rows["age_days"].to_numpy() / DAYS_PER_YEAR
             failed = rows["failed"].to_numpy(bool)
             if failed.sum() < 2:
                 continue
-            fit = fit_weibull(years, failed)
-            if not (np.isfinite(fit.beta) and np.isfinite(fit.eta)):
-                continue
-            plot_t, plot_f = probability_plot_points(years, failed)
-            shown = np.unique(np.linspace(0, len(plot_t) - 1, min(len(plot_t), PLOT_POINTS)).round().astype(int))
-            in_service = years[rows["in_service"].to_numpy(bool)]  # not those removed on plan (suspensions too)
-            PartLifeFit.objects.update_or_create(
-                part_id=int(part_id),
-                defaults=dict(
-                    beta=fit.beta,
-                    eta_years=fit.eta,
-                    failures=fit.failures,
-                    suspensions=fit.suspensions,
-                    var_log_beta=float(fit.covariance_log[0, 0]),
-                    cov_log_beta_eta=float(fit.covariance_log[0, 1]),
-                    var_log_eta=float(fit.covariance_log[1, 1]),
-                    plot_points=[[float(t), float(f)] for t, f in zip(plot_t[shown], plot_f[shown], strict=True)],
-                    next_year_failure=float(np.mean(fit.conditional_failure(in_service, 1.0)))
-                    if in_service.size
-                    else None,
-                ),
-            )
+            try:
+                with transaction.atomic():
+                    values = _life_fit_values(years, failed, years[rows["in_service"].to_numpy(bool)])
+                    PartLifeFit.objects.update_or_create(part_id=int(part_id), defaults=values)
+            except Exception:  # noqa: BLE001 - one part's failure must not leave every other part's fit stale
+                log.exception("life fit of part %s failed; its stored fit is kept as it was", part_id)
+            else:
+                fitted += values["beta"] is not None
             kept.append(int(part_id))
         PartLifeFit.objects.exclude(part_id__in=kept).delete()
-    return len(kept)
+    return fitted
+
+
+# PartLifeFit's covariance fields: their place in the core's covariance of (ln beta, ln eta).
+COVARIANCE_FIELDS = {"var_log_beta": (0, 0), "cov_log_beta_eta": (0, 1), "var_log_eta": (1, 1)}
+
+
+def _life_fit_values(years: np.ndarray, failed: np.ndarray, in_service_years: np.ndarray) -> dict:
+    """A part's PartLifeFit fields from its life table: the fit, its covariance (empty without bounds),
+    plot points and next-year chance; or no estimate and why."""
+    counts = dict(failures=int(failed.sum()), suspensions=int((~failed).sum()))
+    try:
+        fit = fit_weibull(years, failed)
+    except NoWeibullEstimate as reason:
+        return dict(
+            beta=None, eta_years=None, no_fit_reason=str(reason), **counts, **dict.fromkeys(COVARIANCE_FIELDS),
+            plot_points=[], next_year_failure=None,
+        )  # fmt: skip
+    plot_t, plot_f = probability_plot_points(years, failed)
+    shown = np.unique(np.linspace(0, len(plot_t) - 1, min(len(plot_t), PLOT_POINTS)).round().astype(int))
+    return dict(
+        beta=fit.beta,
+        eta_years=fit.eta,
+        no_fit_reason="",
+        **counts,
+        **{
+            name: float(fit.covariance_log[place]) if fit.bounds_available else None
+            for name, place in COVARIANCE_FIELDS.items()
+        },
+        plot_points=[[float(t), float(f)] for t, f in zip(plot_t[shown], plot_f[shown], strict=True)],
+        next_year_failure=float(np.mean(fit.conditional_failure(in_service_years, 1.0)))
+        if in_service_years.size
+        else None,
+    )
 
 
 def stored_fit(stored: PartLifeFit) -> WeibullFit:
     """A part's stored fit as the core's WeibullFit (bounds, B-lives, age replacement)."""
     covariance = np.array(
         [[stored.var_log_beta, stored.cov_log_beta_eta], [stored.cov_log_beta_eta, stored.var_log_eta]], float
-    )
+    )  # None (no bounds) becomes NaN
     return WeibullFit(
         beta=stored.beta,
         eta=stored.eta_years,
@@ -91,8 +121,9 @@ def stored_fit(stored: PartLifeFit) -> WeibullFit:
 def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
     """A part's stored Weibull fit (refreshed nightly by `refresh_life_fits`, never fitted here), its
     plot points and the age-replacement curve for these costs, in years; without a stored fit, the
-    part's failures and suspensions counted from the register (one query either way, or two)."""
-    stored = PartLifeFit.objects.filter(part_id=part_id, var_log_beta__isnull=False).first()
+    part's failures and suspensions counted from the register, and why its data hold no estimate if
+    the refresh found none (one query either way, or two)."""
+    stored = PartLifeFit.objects.filter(part_id=part_id).first()
     # The life table's units: those with an age (removed after fitting, or in service since before today).
     # Those fitted today or removed on the day they were fitted have none: counted apart, not fitted.
     aged = Q(removed_on__gt=F("fitted_on")) | Q(removed_on__isnull=True, fitted_on__lt=timezone.localdate())
@@ -104,12 +135,13 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
         no_age_failures=Count("id", filter=~aged & failed),
     )
     unaged = {"no_age": counts["no_age"], "no_age_failures": counts["no_age_failures"]}
-    if stored is None:
+    if stored is None or stored.beta is None:
         return {
             "failures": counts["failures"],
             "suspensions": counts["units"] - counts["failures"],
             "fit": None,
             "fitted_at": None,
+            "no_fit_reason": "" if stored is None else stored.no_fit_reason,
             **unaged,
         }
     fit = stored_fit(stored)
@@ -117,7 +149,9 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
     replacement = age_replacement(fit, planned_cost, failure_cost, ages=ages)
     (beta_low, beta_high), (eta_low, eta_high) = fit.parameter_bounds()
     b10_low, b10_high = fit.b_life_bounds()
-    if beta_low > 1.0:
+    if not fit.bounds_available:
+        pattern = "no bounds: the information matrix could not be inverted (failures bunched at one age)"
+    elif beta_low > 1.0:
         pattern = "wear-out: failures come with age"
     elif beta_high < 1.0:
         pattern = "early failures: the youngest fail most"

@@ -5,6 +5,7 @@ import pytest
 from scipy import optimize, stats
 
 from fleet.engineering.lifedata import (
+    NoWeibullEstimate,
     WeibullFit,
     age_replacement,
     expected_failures,
@@ -121,3 +122,89 @@ def test_expected_failures_match_scipy_conditional_probabilities():
         1 - stats.weibull_min(2.5, scale=8.0).sf(4.0) / stats.weibull_min(2.5, scale=8.0).sf(3.0)
     )
     assert np.all(got.sum(axis=1) <= 1.0)
+
+
+def _lawless_estimate(observed, failed, highest_shape=20.0):
+    """[pub] Lawless, Statistical Models and Methods for Lifetime Data: the Weibull likelihood equations
+    with right censoring (see above), solved with brentq; ages scaled by the oldest so that t^b stays finite."""
+    scaled = observed / observed.max()
+
+    def profile_score(b):
+        weights = scaled**b
+        return np.sum(weights * np.log(scaled)) / np.sum(weights) - 1.0 / b - np.log(scaled[failed]).mean()
+
+    beta = optimize.brentq(profile_score, 0.2, highest_shape, xtol=1e-14)
+    return beta, observed.max() * (np.sum(scaled**beta) / failed.sum()) ** (1.0 / beta)
+
+
+def _observed_information(beta, eta, observed, failed):
+    """[derived] Minus the Hessian of the right-censored Weibull log-likelihood in (ln beta, ln eta), in closed
+    form: with s = ln t - ln eta and w = exp(beta s), l = r ln beta - r ln eta + (beta - 1) sum_f s - sum w."""
+    s = np.log(observed) - np.log(eta)
+    w = np.exp(beta * s)
+    r = failed.sum()
+    d_uu = beta * s[failed].sum() - np.sum(beta * s * w * (1.0 + beta * s))
+    d_vv = -(beta**2) * w.sum()
+    d_uv = -beta * r + beta * np.sum(w * (1.0 + beta * s))
+    return -np.array([[d_uu, d_uv], [d_uv, d_vv]])
+
+
+def test_tied_ages_give_the_likelihood_solution_and_bounds_from_the_information():
+    """Failures tied with each other and with a suspension (several capacitors fitted and removed on the same
+    days): the estimate solves Lawless's equations [pub] and the covariance is the inverse of the closed-form
+    observed information [derived]."""
+    observed = np.array([2.0, 2.0, 3.0, 5.0, 5.0, 2.0, 4.0, 6.0])
+    failed = np.array([True, True, True, True, True, False, False, False])
+    beta, eta = _lawless_estimate(observed, failed)
+    ours = fit_weibull(observed, failed)
+    assert ours.beta == pytest.approx(beta, rel=1e-6)
+    assert ours.eta == pytest.approx(eta, rel=1e-6)
+    assert ours.bounds_available
+    covariance = np.linalg.inv(_observed_information(beta, eta, observed, failed))
+    assert ours.covariance_log == pytest.approx(covariance, rel=1e-3, abs=1e-6)
+    low, high = ours.b_life_bounds()
+    assert low < ours.b_life() < high
+
+
+# Ages in days of one part's seven capacitors: three fitted on one day and removed on one day (two failed,
+# one replaced on plan), four in service since later days (ours, after a fresh-eyes import that broke the fit).
+TIED_AT_THE_OLDEST = np.array([1596.0, 1596.0, 1596.0, 913.0, 913.0, 913.0, 1150.0])
+TIED_FAILED = np.array([True, True, False, False, False, False, False])
+
+
+def test_failures_all_at_the_oldest_age_have_no_estimate_and_say_why():
+    """[derived] With every failure at the oldest age, the profile log-likelihood is r ln(beta) plus a term
+    that tends to a constant: it grows without bound, so there is no maximum to report, nor bounds."""
+    t, failed = TIED_AT_THE_OLDEST, TIED_FAILED
+
+    def profile_log_likelihood(b):
+        scaled = t / t.max()
+        return (
+            failed.sum() * np.log(b)
+            + (b - 1) * np.log(scaled[failed]).sum()
+            - failed.sum() * np.log(np.sum(scaled**b) / failed.sum())
+        )
+
+    assert np.all(np.diff([profile_log_likelihood(b) for b in (10.0, 100.0, 1e3, 1e4)]) > 0)
+    with pytest.raises(NoWeibullEstimate, match="same age and no capacitor has outlived it"):
+        fit_weibull(t, failed)
+    # One capacitor a day older than the failures (still in service) gives the likelihood its maximum.
+    older, still = np.append(t, 1597.0), np.append(failed, False)
+    beta, eta = _lawless_estimate(older, still, highest_shape=1e6)
+    fit = fit_weibull(older, still)
+    assert (fit.beta, fit.eta) == (pytest.approx(beta, rel=1e-5), pytest.approx(eta, rel=1e-9))
+    assert fit.bounds_available
+
+
+def test_an_information_matrix_that_cannot_be_inverted_gives_the_estimate_without_bounds():
+    """A capacitor a few seconds older than two tied failures: the estimate exists (Lawless's equations [pub])
+    but its shape is so steep that the information matrix overflows; the fit reports the estimate and NaN
+    bounds (`bounds_available` false) instead of an error [derived]."""
+    older, still = np.append(TIED_AT_THE_OLDEST, 1596.0001), np.append(TIED_FAILED, False)
+    beta, eta = _lawless_estimate(older, still, highest_shape=1e9)
+    fit = fit_weibull(older, still)
+    assert fit.beta == pytest.approx(beta, rel=1e-3)
+    assert fit.eta == pytest.approx(eta, rel=1e-9)
+    assert not fit.bounds_available
+    assert np.isnan(fit.b_life_bounds()).all() and np.isnan(fit.parameter_bounds()).all()
+    assert fit.b_life() == pytest.approx(eta * (-np.log(0.9)) ** (1 / beta), rel=1e-6)

@@ -57,4 +57,7 @@ class Command(BaseCommand):
             return
         if not outcome.imported:
             raise CommandError("Nothing was imported.")
+        if outcome.afterwards:
+            self.stderr.write(self.style.WARNING(outcome.afterwards))
+            return
         self.stdout.write(self.style.SUCCESS(f"Imported {outcome.imported} row{pluralize(outcome.imported)}."))
