@@ -148,6 +148,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     wanted = pd.unique(upper_tags[upper_tags.ne("") & ~upper_tags.str.contains("\x00", regex=False)].to_numpy(object))
     fitted = _fitted_of_tags(np.asarray(wanted, dtype=object))
     zone_of_tag = fitted.drop_duplicates("tag").set_index("tag")["time_zone"]
+    first_fitted = fitted.groupby(["tag", "role"])["fitted_on"].min()
     now = np.datetime64(timezone.now().replace(tzinfo=None), "s")
     good_parts, errors = [], []
     for start in range(0, len(frame), CHUNK_ROWS):
@@ -170,9 +171,8 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted)
         unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
         # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
-        first_fitted = fitted.groupby(["tag", "role"])["fitted_on"].min()
-        first = pd.MultiIndex.from_arrays([tag.to_numpy(object), role.to_numpy(object)]).map(first_fitted.get)
-        first = pd.to_datetime(pd.Series(first, dtype=object)).to_numpy("datetime64[s]")
+        position = pd.MultiIndex.from_arrays([tag.to_numpy(object), role.to_numpy(object)])
+        first = first_fitted.reindex(position).to_numpy("datetime64[s]")
         known_position = ~np.isnat(first)
         before_first = known_position & (taken_on.astype("datetime64[s]") < first)
         problems.add(unmatched & ~known_position, "role", "this motor has had no capacitor in this role")
