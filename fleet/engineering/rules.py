@@ -506,6 +506,19 @@ def _number_or_code(value):
     return (number, "") if np.isfinite(number) else (np.nan, MSG_NOT_FINITE)
 
 
+def _why_not_a_number(given: pd.Series, ok: np.ndarray) -> np.ndarray:
+    """Why each text (not blank) gives no finite number; `ok`: it has the syntax of one (so it overflowed)."""
+    return np.where(
+        given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | ok,
+        MSG_NOT_FINITE,
+        np.where(
+            given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
+            MSG_SEPARATORS,
+            np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
+        ),
+    )
+
+
 def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
     """Numbers typed, sent or imported -> (floats with nan where missing or bad, messages).
 
@@ -531,19 +544,11 @@ def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
             parsed = pd.to_numeric(given.where(ok, "").str.replace(",", ".", regex=False), errors="coerce").to_numpy(
                 float
             )
-            ok = ok.to_numpy(bool)
-            why = np.where(
-                given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
-                MSG_NOT_FINITE,
-                np.where(
-                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
-                    MSG_SEPARATORS,
-                    np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
-                ),
-            )
-            finite = ok & np.isfinite(parsed)
+            finite = ok.to_numpy(bool) & np.isfinite(parsed)
             numbers[filled] = np.where(finite, parsed, np.nan)
-            why_not[filled] = np.where(finite, "", why)
+            if not finite.all():  # words only for the cells refused
+                refused = np.flatnonzero(filled)[~finite]
+                why_not[refused] = _why_not_a_number(given[~finite], ok.to_numpy(bool)[~finite])
         values[is_text] = numbers
         messages[is_text] = why_not
     if (~is_text).any():
