@@ -270,10 +270,14 @@ def reading_keys(fitted_capacitor_ids, taken_at_utc: pd.Series, methods, capacit
     fractional = whole != whole.astype("datetime64[s]")
     if fractional.any():
         text[fractional] = [moment.isoformat() for moment in times[fractional]]
-    ids = pd.Series(np.asarray(fitted_capacitor_ids, np.int64)).astype(str).to_numpy(object)
-    values = pd.Series(np.asarray(capacitance_uf, float)).map("{:.4f}".format).to_numpy(object)
-    joined = ids + "|" + text + "|" + np.asarray(methods, object) + "|" + values
-    return np.array([hashlib.sha256(key.encode()).hexdigest()[:40] for key in joined], dtype=object)
+    columns = (
+        np.asarray(fitted_capacitor_ids, np.int64).tolist(),
+        text.tolist(),
+        np.asarray(methods, object).tolist(),
+        np.asarray(capacitance_uf, float).tolist(),
+    )
+    keys = (f"{i}|{moment}|{method}|{uf:.4f}" for i, moment, method, uf in zip(*columns, strict=True))
+    return np.array([hashlib.sha256(key.encode()).hexdigest()[:40] for key in keys], dtype=object)
 
 
 SITE_COLUMNS = {
