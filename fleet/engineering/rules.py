@@ -114,7 +114,8 @@ SHORT_CIRCUIT_WORDS = (
 
 
 def _messages(condition, template, **columns):
-    """A message where `condition` holds, formatted with that row's values; "" elsewhere."""
+    """A message where `condition` holds, formatted with that row's values ("{d}" of a datetime64[D] is its ISO
+    date); "" elsewhere. Only those rows are formatted: a column costs nothing where every row passes."""
     condition = np.atleast_1d(np.asarray(condition, bool))
     out = np.full(condition.shape, "", dtype=object)
     rows = np.flatnonzero(condition)
@@ -627,10 +628,6 @@ def _column(values, n, dtype=float):
     return np.broadcast_to(np.asarray(values, dtype), (n,)) if np.ndim(values) == 0 else np.asarray(values, dtype)
 
 
-def _day_text(days) -> np.ndarray:
-    return np.datetime_as_string(np.asarray(days, "datetime64[D]"), unit="D")
-
-
 def check_readings(raw: dict, **kwargs) -> RuleResult:
     """Check many readings at once (see `_check_readings`); overflow in a hostile value is a message, not a warning."""
     with np.errstate(all="ignore"):
@@ -790,10 +787,10 @@ def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_o
     latest = np.datetime64(now, "s") + np.timedelta64(int(rules.future_tolerance_s), "s")
     errors.add("taken_at", np.isnat(taken), "not a date and time")
     before = day < fitted
-    errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=_day_text(fitted)))
+    errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=fitted))
     after = ~np.isnat(removed) & (day > removed)
     removal = AFTER_REMOVAL + " on {d} (site time: readings of that day are still its own)"
-    errors.add("taken_at", after, _messages(after, removal, d=_day_text(removed)))
+    errors.add("taken_at", after, _messages(after, removal, d=removed))
     errors.add("taken_at", taken > latest, "in the future")
 
 

@@ -16,6 +16,7 @@ from django.utils import timezone
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
+    _messages,
     commissioning_problems,
     fitting_problems,
     known_time_zone,
@@ -158,9 +159,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             problems.add(chunk[name].eq(""), name, "required")
         tag = upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
         zones = zone_of_tag.reindex(tag.to_numpy(object))
-        problems.add(
-            zones.isna().to_numpy(), "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register")
-        )
+        unknown_tag = zones.isna().to_numpy()
+        if unknown_tag.any():  # the words are built for every row: only when one needs them
+            problems.add(unknown_tag, "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register"))
         role = chunk["role"].str.lower()
         problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
         taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
@@ -176,12 +177,15 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         known_position = ~np.isnat(first)
         before_first = known_position & (taken_on.astype("datetime64[s]") < first)
         problems.add(unmatched & ~known_position, "role", "this motor has had no capacitor in this role")
+        early = unmatched & before_first
         problems.add(
-            unmatched & before_first,
+            early,
             "taken_at",
-            "before the first capacitor in this role was fitted to this motor ("
-            + pd.Series(np.datetime_as_string(first, unit="D")).to_numpy(object)
-            + ")",
+            _messages(
+                early,
+                "before the first capacitor in this role was fitted to this motor ({d})",
+                d=first.astype("datetime64[D]"),
+            ),
         )
         problems.add(
             unmatched & known_position & ~before_first,
