@@ -111,6 +111,7 @@ def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
     rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
     fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
     fitted["tag"] = fitted["tag"].astype(str).str.upper()
+    fitted["role"] = fitted["role"].astype(str)
     fitted["fitted_on"] = pd.to_datetime(fitted["fitted_on"]).astype("datetime64[s]")
     fitted["removed_on"] = pd.to_datetime(fitted["removed_on"]).astype("datetime64[s]")
     return fitted
@@ -123,9 +124,9 @@ def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted:
     (its window runs to the end of its removal day; a reading of the new one taken that day goes in
     by the reading form or the API, which name the capacitor)."""
     rows = pd.DataFrame(
-        {"i": np.arange(len(tag)), "tag": tag.to_numpy(object), "role": role.to_numpy(object), "day": day}
+        {"i": np.arange(len(tag)), "tag": tag.astype(str).array, "role": role.astype(str).array, "day": day}
     )
-    candidates = rows.merge(fitted.astype({"tag": object, "role": object}), on=["tag", "role"], how="inner")
+    candidates = rows.merge(fitted, on=["tag", "role"], how="inner")  # text keys both sides: merged without objects
     in_window = (candidates["fitted_on"] <= candidates["day"]) & (
         candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
     )
@@ -172,7 +173,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted)
         unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
         # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
-        position = pd.MultiIndex.from_arrays([tag.to_numpy(object), role.to_numpy(object)])
+        position = pd.MultiIndex.from_arrays([tag, role])
         first = first_fitted.reindex(position).to_numpy("datetime64[s]")
         known_position = ~np.isnat(first)
         before_first = known_position & (taken_on.astype("datetime64[s]") < first)
