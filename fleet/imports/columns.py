@@ -106,7 +106,7 @@ def mapped_frame(
     for name in ours:
         column = position.get(mapping.get(name))
         if column is None:
-            out[name] = pd.Series([""] * len(rows), dtype=str)
+            out[name] = pd.Series("", index=range(len(rows)), dtype=str)
         elif isinstance(rows, TextColumns):
             out[name] = rows.column(column).str.strip()
         else:
