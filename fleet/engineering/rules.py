@@ -610,18 +610,28 @@ class _Collector:
     def __init__(self, n: int):
         self.n = n
         self.by_field: dict[str, np.ndarray] = {}
+        self.flagged: dict[str, np.ndarray] = {}  # by_field[name] != "", kept as it changes (no text compared)
 
     def add(self, name: str, mask, message) -> None:
         mask = np.broadcast_to(np.asarray(mask, bool), (self.n,))
-        current = self.by_field.setdefault(name, np.full(self.n, "", dtype=object))
-        fresh = mask & (current == "")
+        if name not in self.by_field:
+            self.by_field[name] = np.full(self.n, "", dtype=object)
+            self.flagged[name] = np.zeros(self.n, bool)
+        fresh = mask & ~self.flagged[name]
         if isinstance(message, np.ndarray):
-            current[fresh] = message[fresh]
-        else:
-            current[fresh] = message
+            self.by_field[name][fresh] = message[fresh]
+            self.flagged[name][fresh] = message[fresh] != ""
+        elif message:
+            self.by_field[name][fresh] = message
+            self.flagged[name][fresh] = True
+
+    def clear(self, name: str, mask) -> None:
+        """No message for these rows (a field the rows do not use)."""
+        self.by_field[name][mask] = ""
+        self.flagged[name][mask] = False
 
     def has(self, name: str) -> np.ndarray:
-        return self.by_field[name] != "" if name in self.by_field else np.zeros(self.n, bool)
+        return self.flagged[name].copy() if name in self.flagged else np.zeros(self.n, bool)
 
 
 def _column(values, n, dtype=float):
@@ -709,7 +719,7 @@ def _check_readings(
         )
 
     # In circuit, the capacitance is computed; what the meter field holds is ignored.
-    errors.by_field["capacitance_uf"][in_circuit] = ""
+    errors.clear("capacitance_uf", in_circuit)
     computed = np.round(np.atleast_1d(capacitance_from_current(current, voltage, frequency)), 3)
     capacitance = np.where(in_circuit, computed, values["capacitance_uf"])
     meter_missing = ~in_circuit & np.isnan(capacitance) & ~errors.has("capacitance_uf")
