@@ -2,9 +2,13 @@
 offset is taken as given, and offsets may change within a file (a daylight-saving change)."""
 
 import datetime as dt
+import re
 
+import pyarrow as pa
+import pyarrow.compute as pc
 import pytest
 
+from fleet.imports.columns import SPACE
 from fleet.models import ImportJob, Reading
 from fleet.services.import_jobs import check_job, create_job, run_job
 from tests.factories import make_fitted_capacitor, make_motor, make_site
@@ -98,3 +102,15 @@ def test_a_local_time_the_clocks_repeat_or_skip_is_asked_for_with_the_sites_own_
     assert job.errors[0][2].endswith("add its offset, -05:00 or -06:00")
     assert job.errors[1][2].endswith("add its offset, -06:00 or -05:00")
     assert "+01:00" not in job.errors[0][2] + job.errors[1][2]
+
+
+def test_space_is_pythons_white_space_in_python_and_in_pyarrow():
+    # [pub] Python's re documentation: \s in a str pattern matches Unicode white space. The time patterns
+    # spell it out as SPACE so pyarrow can run them: both engines must find exactly those characters.
+    characters = [chr(code) for code in range(0x110000) if not 0xD800 <= code < 0xE000]  # no lone surrogates
+    white = {c for c in characters if re.fullmatch(r"\s", c)}
+    assert {c for c in characters if re.fullmatch(SPACE, c)} == white
+    found = pc.match_substring_regex(pa.array(characters), f"^{SPACE}$").to_pylist()
+    assert {c for c, hit in zip(characters, found, strict=True) if hit} == white
+    # [pub] Unicode's White_Space property: no-break and ideographic spaces are white space, zero width space is not.
+    assert {" ", "\t", "\x0b", "\x1f", "\xa0", "\u3000"} <= white and "\u200b" not in white

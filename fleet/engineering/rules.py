@@ -119,7 +119,8 @@ SHORT_CIRCUIT_WORDS = (
 
 
 def _messages(condition, template, **columns):
-    """A message where `condition` holds, formatted with that row's values; "" elsewhere."""
+    """A message where `condition` holds, formatted with that row's values ("{d}" of a datetime64[D] is its ISO
+    date); "" elsewhere. Only those rows are formatted: a column costs nothing where every row passes."""
     condition = np.atleast_1d(np.asarray(condition, bool))
     out = np.full(condition.shape, "", dtype=object)
     rows = np.flatnonzero(condition)
@@ -511,6 +512,19 @@ def _number_or_code(value):
     return (number, "") if np.isfinite(number) else (np.nan, MSG_NOT_FINITE)
 
 
+def _why_not_a_number(given: pd.Series, ok: np.ndarray) -> np.ndarray:
+    """Why each text (not blank) gives no finite number; `ok`: it has the syntax of one (so it overflowed)."""
+    return np.where(
+        given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | ok,
+        MSG_NOT_FINITE,
+        np.where(
+            given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
+            MSG_SEPARATORS,
+            np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
+        ),
+    )
+
+
 def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
     """Numbers typed, sent or imported -> (floats with nan where missing or bad, messages).
 
@@ -536,19 +550,11 @@ def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
             parsed = pd.to_numeric(given.where(ok, "").str.replace(",", ".", regex=False), errors="coerce").to_numpy(
                 float
             )
-            ok = ok.to_numpy(bool)
-            why = np.where(
-                given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | (ok & ~np.isfinite(parsed)),
-                MSG_NOT_FINITE,
-                np.where(
-                    given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
-                    MSG_SEPARATORS,
-                    np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
-                ),
-            )
-            finite = ok & np.isfinite(parsed)
+            finite = ok.to_numpy(bool) & np.isfinite(parsed)
             numbers[filled] = np.where(finite, parsed, np.nan)
-            why_not[filled] = np.where(finite, "", why)
+            if not finite.all():  # words only for the cells refused
+                refused = np.flatnonzero(filled)[~finite]
+                why_not[refused] = _why_not_a_number(given[~finite], ok.to_numpy(bool)[~finite])
         values[is_text] = numbers
         messages[is_text] = why_not
     if (~is_text).any():
@@ -609,26 +615,32 @@ class _Collector:
     def __init__(self, n: int):
         self.n = n
         self.by_field: dict[str, np.ndarray] = {}
+        self.flagged: dict[str, np.ndarray] = {}  # by_field[name] != "", kept as it changes (no text compared)
 
     def add(self, name: str, mask, message) -> None:
         mask = np.broadcast_to(np.asarray(mask, bool), (self.n,))
-        current = self.by_field.setdefault(name, np.full(self.n, "", dtype=object))
-        fresh = mask & (current == "")
+        if name not in self.by_field:
+            self.by_field[name] = np.full(self.n, "", dtype=object)
+            self.flagged[name] = np.zeros(self.n, bool)
+        fresh = mask & ~self.flagged[name]
         if isinstance(message, np.ndarray):
-            current[fresh] = message[fresh]
-        else:
-            current[fresh] = message
+            self.by_field[name][fresh] = message[fresh]
+            self.flagged[name][fresh] = message[fresh] != ""
+        elif message:
+            self.by_field[name][fresh] = message
+            self.flagged[name][fresh] = True
+
+    def clear(self, name: str, mask) -> None:
+        """No message for these rows (a field the rows do not use)."""
+        self.by_field[name][mask] = ""
+        self.flagged[name][mask] = False
 
     def has(self, name: str) -> np.ndarray:
-        return self.by_field[name] != "" if name in self.by_field else np.zeros(self.n, bool)
+        return self.flagged[name].copy() if name in self.flagged else np.zeros(self.n, bool)
 
 
 def _column(values, n, dtype=float):
     return np.broadcast_to(np.asarray(values, dtype), (n,)) if np.ndim(values) == 0 else np.asarray(values, dtype)
-
-
-def _day_text(days) -> np.ndarray:
-    return np.datetime_as_string(np.asarray(days, "datetime64[D]"), unit="D")
 
 
 def check_readings(raw: dict, **kwargs) -> RuleResult:
@@ -712,7 +724,7 @@ def _check_readings(
         )
 
     # In circuit, the capacitance is computed; what the meter field holds is ignored.
-    errors.by_field["capacitance_uf"][in_circuit] = ""
+    errors.clear("capacitance_uf", in_circuit)
     computed = np.round(np.atleast_1d(capacitance_from_current(current, voltage, frequency)), 3)
     capacitance = np.where(in_circuit, computed, values["capacitance_uf"])
     meter_missing = ~in_circuit & np.isnan(capacitance) & ~errors.has("capacitance_uf")
@@ -790,10 +802,10 @@ def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_o
     latest = np.datetime64(now, "s") + np.timedelta64(int(rules.future_tolerance_s), "s")
     errors.add("taken_at", np.isnat(taken), "not a date and time")
     before = day < fitted
-    errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=_day_text(fitted)))
+    errors.add("taken_at", before, _messages(before, "before this capacitor was fitted on {d}", d=fitted))
     after = ~np.isnat(removed) & (day > removed)
     removal = AFTER_REMOVAL + " on {d} (site time: readings of that day are still its own)"
-    errors.add("taken_at", after, _messages(after, removal, d=_day_text(removed)))
+    errors.add("taken_at", after, _messages(after, removal, d=removed))
     errors.add("taken_at", taken > latest, "in the future")
 
 

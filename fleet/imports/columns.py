@@ -107,7 +107,7 @@ def mapped_frame(
     for name in ours:
         column = position.get(mapping.get(name))
         if column is None:
-            out[name] = pd.Series([""] * len(rows), dtype=str)
+            out[name] = pd.Series("", index=range(len(rows)), dtype=str)
         elif isinstance(rows, TextColumns):
             out[name] = rows.column(column).str.strip()
         else:
@@ -174,12 +174,16 @@ def parse_dates(texts: pd.Series) -> pd.Series:
     return pd.to_datetime(texts.str.slice(0, 10), errors="coerce", format="%Y-%m-%d")
 
 
+# Python's \s for text (the characters str.isspace() finds), spelt out: pyarrow's regular expressions know
+# no \s of that meaning, so pandas sends a pattern with \s through Python's re, a call per row.
+SPACE = "[\t\n\x0b\x0c\r\x1c-\x1f \x85\xa0\u1680\u2000-\u200a\u2028\u2029\u202f\u205f\u3000]"
+
 # A time of day followed by an offset or Z: "09:30+02:00", "09:30:15.5 -0500", "09:30Z".
-_OFFSET_AT_END = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
+_OFFSET_AT_END = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?" + SPACE + r"*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)$"
 
 
 # A day with no time of day: "2026-11-30", "20261130", "2026-11-30Z".
-_DAY_ALONE = r"^\d{4}-?\d{2}-?\d{2}\s*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)?$"
+_DAY_ALONE = r"^\d{4}-?\d{2}-?\d{2}" + SPACE + r"*(?:[zZ]|[+-]\d{2}(?::?\d{2})?)?$"
 DAY_ALONE_WORDS = "a date alone: give the time of day too, e.g. 2026-03-14 09:30 (site time)"
 
 
@@ -267,10 +271,14 @@ def reading_keys(fitted_capacitor_ids, taken_at_utc: pd.Series, methods, capacit
     fractional = whole != whole.astype("datetime64[s]")
     if fractional.any():
         text[fractional] = [moment.isoformat() for moment in times[fractional]]
-    ids = pd.Series(np.asarray(fitted_capacitor_ids, np.int64)).astype(str).to_numpy(object)
-    values = pd.Series(np.asarray(capacitance_uf, float)).map("{:.4f}".format).to_numpy(object)
-    joined = ids + "|" + text + "|" + np.asarray(methods, object) + "|" + values
-    return np.array([hashlib.sha256(key.encode()).hexdigest()[:40] for key in joined], dtype=object)
+    columns = (
+        np.asarray(fitted_capacitor_ids, np.int64).tolist(),
+        text.tolist(),
+        np.asarray(methods, object).tolist(),
+        np.asarray(capacitance_uf, float).tolist(),
+    )
+    keys = (f"{i}|{moment}|{method}|{uf:.4f}" for i, moment, method, uf in zip(*columns, strict=True))
+    return np.array([hashlib.sha256(key.encode()).hexdigest()[:40] for key in keys], dtype=object)
 
 
 SITE_COLUMNS = {

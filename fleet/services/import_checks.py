@@ -16,6 +16,7 @@ from django.utils import timezone
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
+    _messages,
     commissioning_problems,
     fitting_problems,
     known_time_zone,
@@ -110,6 +111,7 @@ def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
     rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
     fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
     fitted["tag"] = fitted["tag"].astype(str).str.upper()
+    fitted["role"] = fitted["role"].astype(str)
     fitted["fitted_on"] = pd.to_datetime(fitted["fitted_on"]).astype("datetime64[s]")
     fitted["removed_on"] = pd.to_datetime(fitted["removed_on"]).astype("datetime64[s]")
     return fitted
@@ -122,9 +124,9 @@ def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted:
     (its window runs to the end of its removal day; a reading of the new one taken that day goes in
     by the reading form or the API, which name the capacitor)."""
     rows = pd.DataFrame(
-        {"i": np.arange(len(tag)), "tag": tag.to_numpy(object), "role": role.to_numpy(object), "day": day}
+        {"i": np.arange(len(tag)), "tag": tag.astype(str).array, "role": role.astype(str).array, "day": day}
     )
-    candidates = rows.merge(fitted.astype({"tag": object, "role": object}), on=["tag", "role"], how="inner")
+    candidates = rows.merge(fitted, on=["tag", "role"], how="inner")  # text keys both sides: merged without objects
     in_window = (candidates["fitted_on"] <= candidates["day"]) & (
         candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
     )
@@ -148,6 +150,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     wanted = pd.unique(upper_tags[upper_tags.ne("") & ~upper_tags.str.contains("\x00", regex=False)].to_numpy(object))
     fitted = _fitted_of_tags(np.asarray(wanted, dtype=object))
     zone_of_tag = fitted.drop_duplicates("tag").set_index("tag")["time_zone"]
+    first_fitted = fitted.groupby(["tag", "role"])["fitted_on"].min()
     now = np.datetime64(timezone.now().replace(tzinfo=None), "s")
     good_parts, errors = [], []
     for start in range(0, len(frame), CHUNK_ROWS):
@@ -157,9 +160,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             problems.add(chunk[name].eq(""), name, "required")
         tag = upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
         zones = zone_of_tag.reindex(tag.to_numpy(object))
-        problems.add(
-            zones.isna().to_numpy(), "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register")
-        )
+        unknown_tag = zones.isna().to_numpy()
+        if unknown_tag.any():  # the words are built for every row: only when one needs them
+            problems.add(unknown_tag, "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register"))
         role = chunk["role"].str.lower()
         problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
         taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
@@ -170,18 +173,20 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted)
         unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
         # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
-        first_fitted = fitted.groupby(["tag", "role"])["fitted_on"].min()
-        first = pd.MultiIndex.from_arrays([tag.to_numpy(object), role.to_numpy(object)]).map(first_fitted.get)
-        first = pd.to_datetime(pd.Series(first, dtype=object)).to_numpy("datetime64[s]")
+        position = pd.MultiIndex.from_arrays([tag, role])
+        first = first_fitted.reindex(position).to_numpy("datetime64[s]")
         known_position = ~np.isnat(first)
         before_first = known_position & (taken_on.astype("datetime64[s]") < first)
         problems.add(unmatched & ~known_position, "role", "this motor has had no capacitor in this role")
+        early = unmatched & before_first
         problems.add(
-            unmatched & before_first,
+            early,
             "taken_at",
-            "before the first capacitor in this role was fitted to this motor ("
-            + pd.Series(np.datetime_as_string(first, unit="D")).to_numpy(object)
-            + ")",
+            _messages(
+                early,
+                "before the first capacitor in this role was fitted to this motor ({d})",
+                d=first.astype("datetime64[D]"),
+            ),
         )
         problems.add(
             unmatched & known_position & ~before_first,
