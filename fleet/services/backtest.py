@@ -172,9 +172,9 @@ def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp
     forms, shapes, choices = {}, {}, {}
     for k, family in enumerate(families):
         mine = errors[errors["family"] == k]
-        # A capacitor's readings at every cut-off share its path's error: one cluster (the id before x 1000).
+        # A capacitor's readings at every cut-off share its path's error: one cluster.
         choices[family] = choice = choose_path_model(
-            mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64) // 1000
+            mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64)
         )
         if choice.form is not None:
             forms[family] = FORMS[choice.form]
@@ -319,7 +319,9 @@ def _run(backtest: Backtest) -> None:
                         **_path_model_errors(inst, before, later, group, families),
                         **_calibration_errors(inst, before, later, group, families, forms),
                         "family": family[group],
-                        "capacitor": inst.index.to_numpy()[group] * 1000 + number,
+                        # The capacitor itself, not the capacitor at this cut-off: the thin-history
+                        # default holds until enough distinct capacitors stand behind the calibration.
+                        "capacitor": inst.index.to_numpy()[group],
                         "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                     }
                 )

@@ -10,7 +10,7 @@ import dataclasses
 import numpy as np
 import pytest
 
-from fleet.engineering.calibration import calibrated_crossing_quantiles, estimate_calibration
+from fleet.engineering.calibration import calibrated_crossing_quantiles, estimate_calibration, path_quantiles
 from fleet.engineering.trends import MODEL_LINEAR, TrendSettings, crossing_quantiles, fit_trends, stress_hours
 
 
@@ -63,6 +63,46 @@ def test_calibrated_crossing_quantiles_match_a_monte_carlo_of_the_calibrated_pat
         first = np.where(below.any(axis=1), ahead[np.argmax(below, axis=1)], np.inf)
         sampled = t0 + np.quantile(first, [0.1, 0.5, 0.9])
         assert grid[:, i] == pytest.approx(sampled, rel=0.03)
+
+
+def test_the_drawn_band_meets_the_limit_on_the_crossing_quantiles():
+    """[derived] P(crossed by t) = P(path below L at t): the calibrated path's P10, P50 and P90 (the
+    capacitor page's band and trend) are at the limit exactly at the crossing's P10, P50 and P90 (its
+    dates), with every calibration term in play, on bent and straight fits alike."""
+    group, time_h, measured, temperature, _, part = _small_fleet(n=30)
+    fit = _fit(group, time_h, measured, temperature, part)
+    fit = dataclasses.replace(fit, curvature=np.linspace(-4e-12, 0.0, 30))
+    terms = np.tile(np.array([[0.3], [0.25], [-4e-7], [1e-7], [3e-5], [-2e-12]]), (1, 30))
+    quantiles = calibrated_crossing_quantiles(fit, 0.85, terms, np.full(30, 4e5), steps=3000)
+    drawn = path_quantiles(
+        MODEL_LINEAR,
+        fit.intercept,
+        fit.slope_per_hour,
+        fit.bend(),
+        fit.covariance,
+        fit.stress_hours_now,
+        fit.stress_rate,
+        terms,
+        quantiles,
+    )
+    drawn = drawn[[0, 1, 2], [0, 1, 2]]  # each probability's path quantile at its own crossing quantile
+    reached = np.isfinite(quantiles) & (quantiles > fit.stress_hours_now)
+    assert reached.sum() >= 60
+    assert drawn[reached] == pytest.approx(np.full(reached.sum(), 0.85), abs=2e-4)
+    # Up to the newest reading the drawn trend is the fitted path itself, whatever the terms.
+    past = path_quantiles(
+        MODEL_LINEAR,
+        fit.intercept,
+        fit.slope_per_hour,
+        fit.bend(),
+        fit.covariance,
+        fit.stress_hours_now,
+        fit.stress_rate,
+        terms,
+        fit.stress_hours_now * 0.5,
+        probabilities=(0.5,),
+    )[0]
+    assert past == pytest.approx(fit.mean_at(fit.stress_hours_now * 0.5), rel=1e-12)
 
 
 def test_with_no_calibration_terms_the_grid_equals_the_closed_form():
