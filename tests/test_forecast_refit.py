@@ -345,3 +345,31 @@ def test_a_calibration_from_too_few_capacitors_keeps_the_thin_history_default(cl
     client.force_login(engineer)
     page = client.get(reverse("track_record")).content.decode()
     assert "too little history (12 capacitors with later readings, 20 needed)" in page
+
+
+@pytest.mark.django_db
+def test_the_back_test_counts_a_start_capacitor_read_below_its_limit_as_crossed():
+    """A 250 uF start capacitor (-10 %: 225 uF) read 224.6 uF at 33 C, 223.71 uF at 25 C (500 ppm/K,
+    the electrolytic default [mem]): the capacitor page judges it below its limit and asks for its
+    replacement, so the back-test counts it as crossed at both cut-offs that saw it before. Before, it
+    wanted a reading one noise deviation (2 uF) below, and the track record showed no crossing at all."""
+    part = make_part(dielectric="electrolytic", rated_uf=250.0, tolerance_minus_pct=10, rated_voltage_v=330)
+    worn = make_fitted_capacitor(part=part, role="start", fitted_on=dt.date(2024, 6, 3))
+    for day, value, temperature in (
+        (dt.date(2025, 12, 9), 230.7, 32.0),
+        (dt.date(2026, 3, 10), 227.8, 38.0),
+        (dt.date(2026, 6, 9), 226.3, 34.0),
+        (dt.date(2026, 9, 8), 224.6, 33.0),
+    ):
+        taken_at = timezone.make_aware(dt.datetime.combine(day, dt.time(10)))
+        make_reading(worn, taken_at=taken_at, capacitance_uf=value, case_temperature_c=temperature)
+    for k in range(4):  # sound ones of the same part
+        sound = make_fitted_capacitor(part=part, role="start", fitted_on=dt.date(2024, 6, 3))
+        for quarter, day in enumerate((dt.date(2025, 12, 9), dt.date(2026, 3, 10), dt.date(2026, 6, 9))):
+            taken_at = timezone.make_aware(dt.datetime.combine(day, dt.time(10)))
+            make_reading(sound, taken_at=taken_at, capacitance_uf=252.0 - k - 0.5 * quarter)
+    backtest = run_backtest(start_backtest(queue=False).id)
+    assert backtest.state == "done", backtest.message
+    rows = {row["cutoff"]: row for row in backtest.results["cutoffs"]}
+    assert set(rows) == {"2026-01-01", "2026-04-01"}
+    assert [rows[cutoff]["default"]["crossed"] for cutoff in sorted(rows)] == [1, 1]
