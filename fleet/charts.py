@@ -16,10 +16,11 @@ GRID = "#e5e7eb"
 
 
 def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label: str, rated_uf: float) -> dict:
-    """Capacitance readings, the fitted path with its 90 % prediction band, the limit.
+    """Capacitance readings, the path (P50) with its P10-P90 band, the limit.
 
     readings: dicts with date, capacitance_uf, flagged (bool).
-    path: dates, mid_uf, low_uf, high_uf (past and forecast).
+    path: dates, mid_uf, low_uf, high_uf (past and forecast; ahead, the calibrated path whose
+    crossings of the limit are the forecast's dates).
     """
     kept = [r for r in readings if not r["flagged"]]
     stray = [r for r in readings if r["flagged"]]
@@ -32,12 +33,16 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
             fillcolor=BAND,
             line={"width": 0},
             hoverinfo="skip",
-            name="90 % prediction band",
+            name="trend, P10-P90 (early to late)",
         )
     )
     figure.add_trace(
         go.Scatter(
-            x=path["dates"], y=path["mid_uf"], mode="lines", line={"color": TREND, "width": 2}, name="fitted trend"
+            x=path["dates"],
+            y=path["mid_uf"],
+            mode="lines",
+            line={"color": TREND, "width": 2},
+            name="trend, P50 (likely)",
         )
     )
     figure.add_trace(

@@ -833,6 +833,12 @@ class Assessment(models.Model):
     stress_hours_now = models.FloatField(null=True, blank=True, help_text="Stress hours at the newest reading")
     stress_rate = models.FloatField(null=True, blank=True, help_text="Stress hours per calendar hour, long run")
     tempco_ppm_per_k = models.FloatField(null=True, blank=True, help_text="Temperature coefficient used, ppm/K")
+    calibration_terms = models.JSONField(
+        null=True,
+        blank=True,
+        help_text="The band calibration's six terms this forecast was made with (BandCalibration's fields), "
+        "so the page draws the same calibrated path its dates come from",
+    )
     capacitor_in_service = models.BooleanField(
         default=True,
         db_default=True,

@@ -115,7 +115,37 @@ def test_a_finished_back_test_shows_its_stored_figures(client, engineer):
         stored = BandCalibration.objects.get(family=family)
         assert stored.residuals == values["residuals"]
         factor, spread = 1 + values["slope_bias"], 100 * values["slope_spread"]
-        assert f"future slope \u00d7{NBSP}{factor:.2f}, relative spread {spread:.0f}{NBSP}%" in body
+        assert f"future slope \u00d7{NBSP}{factor:.2f} " in body and f"relative spread {spread:.0f}{NBSP}%" in body
+
+
+def test_the_calibration_in_force_is_stated_term_by_term(client, engineer):
+    """Every term the forecast applies (calibration.path_polynomials) is on the page, in % of rated a
+    year [derived: 8766 hours a year]: a common extra slope of -1.33e-6 per hour is -1.16 % a year.
+    Before, the page gave the slope factor and the relative spread only."""
+    BandCalibration.objects.create(
+        family="film",
+        slope_bias=0.06,
+        slope_spread=0.1,
+        extra_slope_per_h=-1.3254e-6,
+        extra_sd_per_h=2.2e-7,
+        acceleration_per_h=3.1e-5,
+        curvature_per_h2=-4e-12,
+        capacitors=24,
+        residuals=60,
+    )
+    client.force_login(engineer)
+    body = client.get(reverse("track_record")).content.decode()
+    year = 8766.0
+    for words in (
+        f"future slope \u00d7{NBSP}1.06 \u2212{100 * year * 1.3254e-6:.2f}{NBSP}% of rated a year",
+        f"bending \u2212{100 * year * year * 4e-12:.2f}{NBSP}% of rated a year squared",
+        f"common spread {100 * year * 2.2e-7:.2f}{NBSP}% of rated a year",
+        f"acceleration {year * 3.1e-5:.2f} of the slope a year ahead",
+        f"relative spread 10{NBSP}%",
+        "from 60 later readings of 24 capacitors",
+    ):
+        assert words in body, words
+    assert "\u22121.16" in body
 
 
 def test_the_query_count_does_not_grow_with_the_number_of_parts(client, engineer):

@@ -14,7 +14,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from .capacitor import normalise_to_25c
-from .planning import ALERT_LEVELS, RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_WATCH, PlanningSettings, risk_levels
+from .planning import (
+    ALERT_LEVELS,
+    RISK_DUE_SOON,
+    RISK_REPLACE_NOW,
+    RISK_WATCH,
+    PlanningSettings,
+    reads_below,
+    risk_levels,
+)
 from .trends import MODEL_LOG, TrendFit
 
 QUANTILES = (0.1, 0.5, 0.9)
@@ -86,6 +94,27 @@ def first_crossing_day(group, day, below, n_groups):
     previous = np.zeros(n_groups)
     np.maximum.at(previous, group, np.where(day < first[group], day, 0.0))
     return np.where(np.isfinite(first), 0.5 * (previous + first), np.nan)
+
+
+def observed_crossings(
+    group, day, fraction_25c, projected_fraction, limit_fraction, failed_day, n_groups, margin=0.0, **stray
+):
+    """Day each capacitor was seen to cross its limit after the cut-off (nan: not seen), judged as the
+    application judges a reading: the first later reading referred to 25 C below the capacitance limit
+    that governs the capacitor (`planning.reads_below`, by any margin: that reading asks for its
+    replacement), dated by `first_crossing_day`, or its removal as failed in service (`failed_day`, nan
+    if not), whichever came first. A stray reading (`isolated_off_trend`, with `stray` its keyword
+    arguments) is not a crossing. `margin` (per capacitor, fraction of rated) asks for a reading that
+    far below instead: the risk rule's level is chosen on crossings clear of the meter noise.
+
+    Arrays per later reading: group, day (from the cut-off), fraction_25c, projected_fraction; per
+    capacitor: limit_fraction, failed_day, margin.
+    """
+    group = np.asarray(group, np.int64)
+    limit = np.asarray(limit_fraction, float) - np.broadcast_to(np.asarray(margin, float), np.shape(limit_fraction))
+    below = reads_below(fraction_25c, limit[group])
+    below &= ~isolated_off_trend(group, day, fraction_25c, projected_fraction, **stray)
+    return np.fmin(first_crossing_day(group, day, below, n_groups), np.asarray(failed_day, float))
 
 
 @dataclass(frozen=True)

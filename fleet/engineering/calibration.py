@@ -42,7 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .trends import TrendFit, crossing_quantiles
+from .trends import MODEL_LOG, TrendFit, crossing_quantiles
 
 
 @dataclass(frozen=True)
@@ -252,33 +252,97 @@ def _take(fit: TrendFit, rows: np.ndarray) -> TrendFit:
     return dataclasses.replace(fit, **per_capacitor)
 
 
-def _score_polynomials(fit, limit_fraction, terms, horizon):
-    """(3, G) coefficients of L - mean and of the variance as quadratics in u = d / horizon.
+def path_polynomials(intercept, slope_per_hour, curvature, covariance, stress_hours_now, stress_rate, terms):
+    """The calibrated path ahead of the newest reading, as quadratics in d, the stress hours ahead of it.
 
-    With s the fit's slope now and r the stress rate, the mean is
-    m(t0) + (s (1 + bias) + extra_slope / r) d + (c + acceleration s / r + curvature / r^2) d^2,
-    the variance var(t0) + 2 (v01 + t0 v11) d + (v11 + (spread s)^2 + (extra_sd / r)^2) d^2.
+    Returns (mean, variance), each (3, G): z(d) = mean[0] + mean[1] d + mean[2] d^2, and its variance
+    likewise. With s = b1 + 2 c t0 the fit's slope now and r the stress rate, the mean is
+    m(t0) + (s (1 + bias) + extra_slope / r) d + (c + acceleration s / r + curvature / r^2) d^2, the variance
+    var(t0) + 2 (v01 + t0 v11) d + (v11 + (spread s)^2 + (extra_sd / r)^2) d^2. The one description of the
+    calibrated path: the crossing quantiles and the capacitor page's chart both read it. With all six terms
+    zero it is the fitted path itself, for d of either sign. `covariance` is (G, 2, 2) or (v00, v01, v11).
     """
-    bias, spread, extra_slope, extra_sd, acceleration, curvature = terms
-    t0 = fit.stress_hours_now
-    v00, v01, v11 = fit.covariance[:, 0, 0], fit.covariance[:, 0, 1], fit.covariance[:, 1, 1]
-    rate = np.maximum(fit.stress_rate, 1e-9)
-    slope = fit.slope_now()
-    gap = np.stack(
-        [
-            fit.to_z(limit_fraction) - fit.mean_at(t0),
-            -(slope * (1.0 + bias) + extra_slope / rate) * horizon,
-            -(fit.bend() + acceleration * slope / rate + curvature / rate**2) * horizon**2,
-        ]
+    bias, spread, extra_slope, extra_sd, acceleration, curvature_term = np.asarray(terms, float)
+    t0 = np.asarray(stress_hours_now, float)
+    c = np.asarray(curvature, float)
+    covariance = np.asarray(covariance, float)
+    if covariance.ndim == 3:
+        v00, v01, v11 = covariance[:, 0, 0], covariance[:, 0, 1], covariance[:, 1, 1]
+    else:
+        v00, v01, v11 = covariance
+    rate = np.maximum(np.asarray(stress_rate, float), 1e-9)
+    slope = np.asarray(slope_per_hour, float) + 2.0 * c * t0
+    mean = np.stack(
+        np.broadcast_arrays(
+            np.asarray(intercept, float) + slope * t0 - c * t0 * t0,
+            slope * (1.0 + bias) + extra_slope / rate,
+            c + acceleration * slope / rate + curvature_term / rate**2,
+        )
     )
     variance = np.stack(
-        [
+        np.broadcast_arrays(
             v00 + 2.0 * t0 * v01 + t0 * t0 * v11,
-            2.0 * (v01 + t0 * v11) * horizon,
-            (v11 + (spread * slope) ** 2 + (extra_sd / rate) ** 2) * horizon**2,
-        ]
+            2.0 * (v01 + t0 * v11),
+            v11 + (spread * slope) ** 2 + (extra_sd / rate) ** 2,
+        )
     )
-    return gap, variance
+    return mean, variance
+
+
+def path_quantiles(
+    model,
+    intercept,
+    slope_per_hour,
+    curvature,
+    covariance,
+    stress_hours_now,
+    stress_rate,
+    terms,
+    stress_hours,
+    probabilities=(0.1, 0.5, 0.9),
+):
+    """The path's quantiles (fraction of rated) at stress hours `stress_hours`, per probability.
+
+    Up to the newest reading (t0) the fitted path; beyond it the calibrated one (`path_polynomials`).
+    The path's p-quantile reaches a limit L on the crossing's p-quantile date (P(crossed by t) =
+    P(path below L at t)), so the P10-P90 band drawn from here meets the limit on the forecast's P10
+    and P90 dates and the P50 line on its P50 (`calibrated_crossing_quantiles`, for a path that does
+    not turn back). The band is of the path,
+    not of a new reading: a reading adds its meter noise. Shape (len(probabilities), *stress_hours' shape).
+    """
+    from scipy.special import ndtri
+
+    args = (intercept, slope_per_hour, curvature, covariance, stress_hours_now, stress_rate)
+    d = np.asarray(stress_hours, float) - np.asarray(stress_hours_now, float)
+    fitted_mean, fitted_variance = path_polynomials(*args, np.zeros(6))
+    mean, variance = path_polynomials(*args, terms)
+    ahead = d > 0
+    centre = np.where(ahead, _quadratic(mean, d), _quadratic(fitted_mean, d))
+    sd = np.sqrt(np.maximum(np.where(ahead, _quadratic(variance, d), _quadratic(fitted_variance, d)), 0.0))
+    rows = np.stack([centre + float(ndtri(p)) * sd for p in probabilities])
+    return np.exp(rows) if model == MODEL_LOG else rows
+
+
+def _quadratic(coefficients, d):
+    return coefficients[0] + d * (coefficients[1] + d * coefficients[2])
+
+
+def _score_polynomials(fit, limit_fraction, terms, horizon):
+    """(3, G) coefficients of L - mean and of the variance as quadratics in u = d / horizon
+    (`path_polynomials`)."""
+    mean, variance = path_polynomials(
+        fit.intercept,
+        fit.slope_per_hour,
+        fit.bend(),
+        fit.covariance,
+        fit.stress_hours_now,
+        fit.stress_rate,
+        terms,
+    )
+    scale = np.stack([np.ones_like(horizon), horizon, horizon**2])
+    gap = -mean * scale
+    gap[0] += fit.to_z(limit_fraction)
+    return gap, variance * scale
 
 
 def _scores(gap, variance, u, columns=slice(None)):

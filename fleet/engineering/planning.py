@@ -65,13 +65,25 @@ class PlanningSettings:
 @dataclass(frozen=True)
 class Judgement:
     """Per capacitor: risk level, days to the replacement (inf: none planned),
-    the governing limit's index (-1: none), days to its P10/P50/P90 and the reason."""
+    the governing limit's index (-1: none; L: the second wear sign), days to its P10/P50/P90 and the
+    reason; `limit_index` and `limit_fraction`, the capacitance limit that governs (-1 and nan: none),
+    the one a reading is judged against (`reads_below`)."""
 
     risk: np.ndarray
     due_days: np.ndarray
     governing: np.ndarray
     days: np.ndarray  # (3, G)
     reason: np.ndarray
+    limit_index: np.ndarray
+    limit_fraction: np.ndarray
+
+
+def reads_below(fraction_25c, limit_fraction) -> np.ndarray:
+    """A reading is below its limit when its value referred to 25 C is under the capacitance limit that
+    governs its capacitor (`Judgement.limit_fraction`), by any margin: the one rule for "a reading below
+    its limit", which asks for a replacement (`judge`) and which the back-test counts as a crossing seen."""
+    with np.errstate(invalid="ignore"):
+        return np.asarray(fraction_25c, float) < np.asarray(limit_fraction, float)
 
 
 def _month(today: dt.date, days) -> np.ndarray:
@@ -125,6 +137,7 @@ def judge(
     n = fractions.shape[1]
     evaluated = np.isfinite(fractions)
     governing = np.where(evaluated.any(axis=0), np.argmax(np.where(evaluated, fractions, -np.inf), axis=0), -1)
+    limit_index = governing.copy()
     column = np.arange(n)
     safe = np.maximum(governing, 0)
     days = np.where(governing >= 0, all_days[:, safe, column], np.inf)
@@ -133,7 +146,7 @@ def judge(
         alert = np.where(governing >= 0, np.asarray(alert_days, float)[safe, column], np.inf)
     limit = np.where(governing >= 0, fractions[safe, column], np.nan)
     evidence = np.asarray(evidence, int).copy()
-    below = np.asarray(latest_fraction_25c, float) < limit
+    below = reads_below(latest_fraction_25c, limit)
     evidence = np.where((evidence == EVIDENCE_NONE) & below, EVIDENCE_BELOW, evidence)
     path_past = (days[1] <= 0) | (np.asarray(fraction_now, float) < limit)
     evidence = np.where((evidence == EVIDENCE_NONE) & path_past, EVIDENCE_PATH, evidence)
@@ -210,7 +223,15 @@ def judge(
         ],
         default="trend stays above " + limit_words + " for the planning horizon",
     )
-    return Judgement(risk=risk, due_days=due_days, governing=governing, days=days, reason=reason)
+    return Judgement(
+        risk=risk,
+        due_days=due_days,
+        governing=governing,
+        days=days,
+        reason=reason,
+        limit_index=limit_index,
+        limit_fraction=limit,
+    )
 
 
 def read_again(risk, early_days) -> np.ndarray:

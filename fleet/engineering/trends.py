@@ -886,25 +886,6 @@ def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0
     return np.maximum(np.stack(rows), 0.0)
 
 
-def path_band(model, intercept, slope_per_hour, covariance, noise_sd, stress_hours, level=0.9, curvature=0.0):
-    """Fitted path and its prediction band (for a new reading) at given stress hours.
-
-    Returns (mid, low, high) in fractions of rated capacitance. `covariance` is
-    (v00, v01, v11) of (b0, b1); the band adds the reading noise to the path's
-    own uncertainty, so about `level` of future readings should fall inside.
-    `curvature` is the part's bend c of the path b0 + b1 tau + c tau^2.
-    """
-    tau = np.asarray(stress_hours, float)
-    v00, v01, v11 = covariance
-    z = float(ndtri(0.5 + level / 2.0))
-    mid = intercept + slope_per_hour * tau + curvature * tau * tau
-    sd = np.sqrt(np.maximum(v00 + 2.0 * tau * v01 + tau * tau * v11, 0.0) + noise_sd**2)
-    low, high = mid - z * sd, mid + z * sd
-    if model == MODEL_LOG:
-        return np.exp(mid), np.exp(low), np.exp(high)
-    return mid, low, high
-
-
 def dissipation_trend(group, time_h, dissipation, n_groups, maximum, now_h, probabilities=(0.1, 0.5, 0.9)):
     """Hours from now at which each capacitor's dissipation-factor trend reaches its maximum.
 

@@ -240,6 +240,7 @@ CALIBRATION_FIELDS = (
     "acceleration_per_h",
     "curvature_per_h2",
 )
+DEFAULT_TERMS = tuple(default_calibration(1).per_capacitor([0])[:, 0])  # a family with no stored calibration
 
 
 def stored_forms() -> dict[str, str]:
@@ -261,6 +262,14 @@ def stored_calibration() -> dict[str, tuple[float, ...]]:
     """Per dielectric: the six projection terms of the latest back-test's calibration."""
     rows = BandCalibration.objects.values_list("family", *CALIBRATION_FIELDS)
     return {family: tuple(values) for family, *values in rows}
+
+
+def assessment_terms(assessment: Assessment, dielectric: str) -> tuple[float, ...]:
+    """The six calibration terms an assessment's dates were worked out with; for one stored before they
+    were kept, the dielectric's stored calibration (or the thin-history default)."""
+    if assessment.calibration_terms:
+        return tuple(float(assessment.calibration_terms[name]) for name in CALIBRATION_FIELDS)
+    return stored_calibration().get(dielectric, DEFAULT_TERMS)
 
 
 def motor_circuits(inst: pd.DataFrame):
@@ -521,9 +530,8 @@ def assess(
         & (fit.readings_used > 0)
     )
     set_aside = np.where(finite, "", "no usable trend: the readings give no finite fit; check them")
-    fallback = tuple(default_calibration(1).per_capacitor([0])[:, 0])
     families = np.unique(inst["dielectric"].to_numpy(str))
-    family_terms = np.array([calibration.get(d, fallback) for d in families], float).reshape(-1, 6)
+    family_terms = np.array([calibration.get(d, DEFAULT_TERMS) for d in families], float).reshape(-1, 6)
     terms = family_terms[np.searchsorted(families, inst["dielectric"].to_numpy(str))].T
     horizon_stress_hours = fit.stress_rate * PlanningSettings().horizon_days * 24.0
     newest_at = pd.to_datetime(
@@ -907,5 +915,6 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "stress_hours_now": unless_aside(fit.stress_hours_now),
             "stress_rate": unless_aside(fit.stress_rate),
             "tempco_ppm_per_k": unless_aside(fit.tempco_ppm_per_k),
+            "calibration_terms": _json_lines(pd.DataFrame(result.terms.T, columns=list(CALIBRATION_FIELDS))),
         }
     )

@@ -6,9 +6,11 @@ refitted with only the capacitors and readings known then, through the same
 removals that came later. Scores are kept twice: with the default band
 calibration, and with the calibration estimated from the errors seen before
 that cut-off only (so the calibrated bands are out of sample). A crossing is
-seen when a later reading is below the limit by more than the meter noise (a
-stray reading far off the trend, not confirmed by its neighbours, is not), or
-the capacitor failed in service. At the end the calibration from every error
+seen as the application judges a reading (`observed_crossings`): a later reading
+referred to 25 C below the capacitance limit that governs the capacitor, by any
+margin (a stray reading far off the trend, not confirmed by its neighbours, is
+not), or the capacitor's removal as failed in service; the forecast scored is
+that limit's. At the end the calibration from every error
 is stored for the refits to use, with the crossing quantile the risk rule
 flags on per dielectric (`choose_alert_level`, on the pooled calibrated
 forecasts); the calibrated risk scores are those of that rule, so they are in
@@ -28,13 +30,19 @@ from django.utils import timezone
 from fleet.engineering.backtest import (
     choose_alert_level,
     choose_path_model,
-    first_crossing_day,
-    isolated_off_trend,
+    observed_crossings,
     projection_errors,
     score,
 )
 from fleet.engineering.calibration import CalibrationSettings, estimate_calibration
-from fleet.engineering.planning import ALERT_LEVELS, RISK_REPLACE_NOW, PlanningSettings, alert_index, risk_levels
+from fleet.engineering.planning import (
+    ALERT_LEVELS,
+    RISK_REPLACE_NOW,
+    PlanningSettings,
+    alert_index,
+    reads_below,
+    risk_levels,
+)
 from fleet.engineering.rules import ReadingRules
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG, PATH_BENT, PATH_STRAIGHT
 from fleet.models import Backtest, BandCalibration, CapacitorPart, FittedCapacitor
@@ -172,9 +180,9 @@ def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp
     forms, shapes, choices = {}, {}, {}
     for k, family in enumerate(families):
         mine = errors[errors["family"] == k]
-        # A capacitor's readings at every cut-off share its path's error: one cluster (the id before x 1000).
+        # A capacitor's readings at every cut-off share its path's error: one cluster.
         choices[family] = choice = choose_path_model(
-            mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64) // 1000
+            mine[PATH_MODEL_COLUMNS].to_numpy(float), mine["capacitor"].to_numpy(np.int64)
         )
         if choice.form is not None:
             forms[family] = FORMS[choice.form]
@@ -183,6 +191,14 @@ def _path_models(errors: pd.DataFrame, families: list[str], cutoff: pd.Timestamp
 
 
 ALERT_COLUMNS = [f"alert_{level:.1f}" for level in ALERT_LEVELS]
+
+
+def _governing_limit_days(result) -> np.ndarray:
+    """(3, G) days to the P10/P50/P90 crossing of the capacitance limit that governs each capacitor
+    (inf where none does)."""
+    index = result.judgement.limit_index
+    days = result.limit_days[:, np.maximum(index, 0), np.arange(len(index))]
+    return np.where(index >= 0, days, np.inf)
 
 
 def _governing_level_days(result) -> np.ndarray:
@@ -202,16 +218,17 @@ def _alert_levels(frame: pd.DataFrame) -> dict[str, tuple[float, list]]:
     cut-offs where the family's bands were calibrated on its own earlier errors
     (`own_calibration`), not on the first cut-offs that had only the default bands,
     whose crossings come early and would hold the rule at its loosest level.
-    Where no cut-off had its own calibration yet, all are used.
+    Where no cut-off had its own calibration yet, all are used. Crossings count
+    here only clear of the meter noise (`crossed_clear_day`).
     """
     chosen = {}
     for family, rows in frame.groupby("dielectric"):
         own = rows[rows["own_calibration"].to_numpy(bool)]
-        rows = own if np.isfinite(own["crossed_day"].to_numpy(float)).any() else rows
+        rows = own if np.isfinite(own["crossed_clear_day"].to_numpy(float)).any() else rows
         chosen[family] = choose_alert_level(
             rows[ALERT_COLUMNS].to_numpy(float).T,
             rows["replace_now"].to_numpy(bool),
-            rows["crossed_day"].to_numpy(float),
+            rows["crossed_clear_day"].to_numpy(float),
             rows["followed_days"].to_numpy(float),
         )
     return chosen
@@ -286,23 +303,28 @@ def _run(backtest: Backtest) -> None:
                 shapes=shapes,
             )
             _, _, error, _, fraction = _project(result.fit, inst, later, group)
-            tolerance = result.limit_fraction[0]
-            # A reading counts as seen below the limit when it is clear of the meter noise (one
-            # noise sd below): the forecast is of the path, and a single noisy dip is not its crossing.
-            noise = result.fit.noise_sd * np.where(result.fit.model == MODEL_LOG, tolerance, 1.0)
+            # Scored against the limit the capacitor's forecast and its page judge it by, as the
+            # application judges a reading (`observed_crossings`).
+            limit = result.judgement.limit_fraction
             projected = np.where(result.fit.model[group] == MODEL_LOG, fraction * np.exp(-error), fraction - error)
-            stray = isolated_off_trend(group, later_day, fraction, projected, ReadingRules().off_trend_fraction)
-            below = (fraction < (tolerance - noise)[group]) & ~stray
-            crossed = first_crossing_day(group, later_day, below, len(inst))
-            crossed = np.fmin(crossed, np.where(failed, removal_day, np.nan))
-            above = result.latest_fraction_25c >= tolerance
+            seen = (group, later_day, fraction, projected, limit, np.where(failed, removal_day, np.nan), len(inst))
+            off_trend = ReadingRules().off_trend_fraction
+            crossed = observed_crossings(*seen, off_trend_fraction=off_trend)
+            # The risk rule's level is chosen on crossings clear of the meter noise (one noise sd below):
+            # no forecast of the path can anticipate a single noisy dip, and on the simulated fleets
+            # levels chosen on every dip caught fewer true crossings (docs/engineering.md section 7).
+            noise = result.fit.noise_sd * np.where(result.fit.model == MODEL_LOG, limit, 1.0)
+            crossed_clear = observed_crossings(*seen, margin=noise, off_trend_fraction=off_trend)
+            above = np.isfinite(limit) & ~reads_below(result.latest_fraction_25c, limit)
+            days = _governing_limit_days(result)
             frame = pd.DataFrame(
                 {
-                    "p10": result.limit_days[0, 0],
-                    "p50": result.limit_days[1, 0],
-                    "p90": result.limit_days[2, 0],
+                    "p10": days[0],
+                    "p50": days[1],
+                    "p90": days[2],
                     "risk": result.judgement.risk,
                     "crossed_day": crossed,
+                    "crossed_clear_day": crossed_clear,
                     "followed_days": followed,
                     "dielectric": inst["dielectric"].to_numpy(),
                     "part_id": inst["part_id"].to_numpy(),
@@ -319,7 +341,9 @@ def _run(backtest: Backtest) -> None:
                         **_path_model_errors(inst, before, later, group, families),
                         **_calibration_errors(inst, before, later, group, families, forms),
                         "family": family[group],
-                        "capacitor": inst.index.to_numpy()[group] * 1000 + number,
+                        # The capacitor itself, not the capacitor at this cut-off: the thin-history
+                        # default holds until enough distinct capacitors stand behind the calibration.
+                        "capacitor": inst.index.to_numpy()[group],
                         "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
                     }
                 )

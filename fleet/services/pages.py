@@ -25,14 +25,15 @@ from django.db.models.functions import Replace, Upper
 from django.utils import timezone
 
 from fleet.charts import trend_figure
+from fleet.engineering.calibration import path_quantiles
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
-from fleet.engineering.trends import default_tempco_ppm_per_k, path_band, reading_stress_hours
+from fleet.engineering.trends import default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
 from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site
 from fleet.roles import scope_to_user
 
-from .assessments import _hours_since_fitting
+from .assessments import _hours_since_fitting, assessment_terms
 from .counts import in_service_counts
 
 RECENT_READINGS = 6
@@ -172,10 +173,13 @@ def _stored_voltage_ratio(part_id: int) -> float:
 def trend_chart(
     fitted_capacitor: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730
 ) -> dict | None:
-    """Figure of readings, the stored fitted path and its band, drawn from stored numbers.
+    """Figure of readings, the stored path and its P10-P90 band, drawn from stored numbers.
 
-    The stress hours at each reading are recomputed from the readings the fit saw (one
-    capacitor's, a few dozen at most), exactly as the fit computed them.
+    Ahead of the newest reading the path is the calibrated one the assessment's dates come from
+    (`calibration.path_quantiles`, with the terms it was made with): the band's edges and the P50 line
+    meet the limit on the page's early, likely and late dates. The stress hours at each reading are
+    recomputed from the readings the fit saw (one capacitor's, a few dozen at most), exactly as the fit
+    computed them.
     """
     if assessment is None or not assessment.has_trend:
         return None
@@ -213,14 +217,16 @@ def trend_chart(
     dates = [r["taken_at"].date().isoformat() for r in readings] + [
         (last + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
     ]
-    mid, low, high = path_band(
+    low, mid, high = path_quantiles(
         assessment.trend_model,
         assessment.trend_intercept,
         assessment.trend_slope_per_hour,
-        [assessment.trend_var_intercept, assessment.trend_cov_intercept_slope, assessment.trend_var_slope],
-        assessment.trend_noise_sd,
+        assessment.trend_curvature or 0.0,
+        (assessment.trend_var_intercept, assessment.trend_cov_intercept_slope, assessment.trend_var_slope),
+        assessment.stress_hours_now,
+        assessment.stress_rate,
+        assessment_terms(assessment, fitted_capacitor.part.dielectric),
         np.array(taus),
-        curvature=assessment.trend_curvature or 0.0,
     )
     path = {
         "dates": dates,

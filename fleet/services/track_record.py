@@ -12,7 +12,9 @@ from fleet.charts import calibration_figure, coverage_figure
 from fleet.engineering.backtest import FLAGGED_WITHIN, QUANTILES
 from fleet.engineering.calibration import CalibrationSettings
 from fleet.models import Backtest, BandCalibration, CapacitorPart
+from fleet.templatetags.fleet_format import MINUS, NBSP, percent, times
 
+from .assessments import CALIBRATION_FIELDS
 from .backtest import start_backtest
 
 log = logging.getLogger(__name__)
@@ -120,14 +122,32 @@ def _figures(results: dict) -> dict:
     return figures
 
 
+HOURS_A_YEAR = 8766.0
+
+
+def calibration_words(values) -> str:
+    """Every term of a band calibration in words, as the forecast applies it (`calibration.path_polynomials`):
+    the future slope's factor, the common slope, bend and their spread in % of rated, the acceleration,
+    the relative spread. `values` maps the six `CALIBRATION_FIELDS` to numbers (a stored row's or a back-test's)."""
+    per_year = 100 * HOURS_A_YEAR
+    extra = per_year * values["extra_slope_per_h"]
+    bend = per_year * HOURS_A_YEAR * values["curvature_per_h2"]
+    return (
+        f"future slope {times(1 + values['slope_bias'])} {'+' if extra >= 0 else MINUS}{abs(extra):.2f}{NBSP}% "
+        f"of rated a year, bending {'+' if bend >= 0 else MINUS}{abs(bend):.2f}{NBSP}% of rated a year squared; "
+        f"common spread {per_year * values['extra_sd_per_h']:.2f}{NBSP}% of rated a year; "
+        f"acceleration {HOURS_A_YEAR * values['acceleration_per_h']:.2f} of the slope a year ahead; "
+        f"relative spread {percent(values['slope_spread'])}"
+    )
+
+
 def _calibration_in_force(settings: CalibrationSettings) -> list[dict]:
     """The band calibration the refits use now, per dielectric, with whether it is the thin-history default."""
     dielectric_names = dict(CapacitorPart.Dielectric.choices)
     return [
         {
             "name": dielectric_names.get(row.family, row.family),
-            "slope_factor": 1.0 + row.slope_bias,
-            "slope_spread": row.slope_spread,
+            "terms": calibration_words({name: getattr(row, name) for name in CALIBRATION_FIELDS}),
             "alert_percent": round(100 * row.alert_quantile),
             "trend_model": row.get_trend_model_display().lower() if row.trend_model else "",
             "path_shape": row.get_path_shape_display().lower() if row.path_shape else "",

@@ -6,11 +6,12 @@ assumptions, is tests/test_forecast_simulation.py.
 """
 
 import dataclasses
+import datetime as dt
 
 import numpy as np
 import pytest
 
-from fleet.engineering.calibration import calibrated_crossing_quantiles, estimate_calibration
+from fleet.engineering.calibration import calibrated_crossing_quantiles, estimate_calibration, path_quantiles
 from fleet.engineering.trends import MODEL_LINEAR, TrendSettings, crossing_quantiles, fit_trends, stress_hours
 
 
@@ -63,6 +64,46 @@ def test_calibrated_crossing_quantiles_match_a_monte_carlo_of_the_calibrated_pat
         first = np.where(below.any(axis=1), ahead[np.argmax(below, axis=1)], np.inf)
         sampled = t0 + np.quantile(first, [0.1, 0.5, 0.9])
         assert grid[:, i] == pytest.approx(sampled, rel=0.03)
+
+
+def test_the_drawn_band_meets_the_limit_on_the_crossing_quantiles():
+    """[derived] P(crossed by t) = P(path below L at t): the calibrated path's P10, P50 and P90 (the
+    capacitor page's band and trend) are at the limit exactly at the crossing's P10, P50 and P90 (its
+    dates), with every calibration term in play, on bent and straight fits alike."""
+    group, time_h, measured, temperature, _, part = _small_fleet(n=30)
+    fit = _fit(group, time_h, measured, temperature, part)
+    fit = dataclasses.replace(fit, curvature=np.linspace(-4e-12, 0.0, 30))
+    terms = np.tile(np.array([[0.3], [0.25], [-4e-7], [1e-7], [3e-5], [-2e-12]]), (1, 30))
+    quantiles = calibrated_crossing_quantiles(fit, 0.85, terms, np.full(30, 4e5), steps=3000)
+    drawn = path_quantiles(
+        MODEL_LINEAR,
+        fit.intercept,
+        fit.slope_per_hour,
+        fit.bend(),
+        fit.covariance,
+        fit.stress_hours_now,
+        fit.stress_rate,
+        terms,
+        quantiles,
+    )
+    drawn = drawn[[0, 1, 2], [0, 1, 2]]  # each probability's path quantile at its own crossing quantile
+    reached = np.isfinite(quantiles) & (quantiles > fit.stress_hours_now)
+    assert reached.sum() >= 60
+    assert drawn[reached] == pytest.approx(np.full(reached.sum(), 0.85), abs=2e-4)
+    # Up to the newest reading the drawn trend is the fitted path itself, whatever the terms.
+    past = path_quantiles(
+        MODEL_LINEAR,
+        fit.intercept,
+        fit.slope_per_hour,
+        fit.bend(),
+        fit.covariance,
+        fit.stress_hours_now,
+        fit.stress_rate,
+        terms,
+        fit.stress_hours_now * 0.5,
+        probabilities=(0.5,),
+    )[0]
+    assert past == pytest.approx(fit.mean_at(fit.stress_hours_now * 0.5), rel=1e-12)
 
 
 def test_with_no_calibration_terms_the_grid_equals_the_closed_form():
@@ -367,3 +408,62 @@ def test_a_stray_reading_is_not_scored_as_the_crossing():
     assert crossed[2] == pytest.approx(15.0)  # between the cut-off and its first reading
     # With a threshold wider than every miss, nothing is a stray.
     assert not isolated_off_trend(group, day, fraction, projected, 0.5).any()
+
+
+def test_the_back_test_sees_a_crossing_where_the_judgement_sees_a_reading_below_its_limit():
+    """The back-test's crossing is the application's own "reading below its limit" [trade: a capacitor
+    read below its rated tolerance is replaced]: the reading referred to 25 C (`normalise_to_25c`,
+    500 ppm/K for an electrolytic), against the capacitance limit that governs the capacitor, by any
+    margin; or its removal as failed, whichever first. Before, the back-test wanted a reading one noise
+    deviation (2 uF here) below the tolerance limit alone, and a start capacitor the judgement had
+    already sent for replacement counted as never crossed.
+
+    Capacitor 0: a 250 uF start capacitor read 226.3 uF at 34 C (225.28 at 25 C), then 224.6 at 33 C
+    (223.71), under its 225 uF limit (-10 %). Capacitor 1: 224.0 uF read cold, at 10 C, is 225.69 at
+    25 C: not below. Capacitor 2: an operating-point limit at 93 % governs; 0.92 of rated is below it,
+    though within tolerance. Capacitor 3: never read below, removed as failed on day 200."""
+    from fleet.engineering.backtest import observed_crossings
+    from fleet.engineering.capacitor import normalise_to_25c
+    from fleet.engineering.planning import EVIDENCE_NONE, judge
+
+    group = np.array([0, 0, 1, 2, 3])
+    day = np.array([160.0, 251.0, 90.0, 120.0, 100.0])
+    fraction = np.array(
+        [
+            normalise_to_25c(226.3, 34.0, 500.0) / 250,
+            normalise_to_25c(224.6, 33.0, 500.0) / 250,
+            normalise_to_25c(224.0, 10.0, 500.0) / 250,
+            0.92,
+            0.97,
+        ]
+    )
+    assert 250 * fraction[1] == pytest.approx(223.71, abs=0.01)  # the capacitor page's figure
+    limit = np.array([0.90, 0.90, 0.93, 0.90])
+    failed_day = np.array([np.nan, np.nan, np.nan, 200.0])
+    crossed = observed_crossings(group, day, fraction, fraction, limit, failed_day, 4)
+    assert crossed[0] == pytest.approx((160.0 + 251.0) / 2)  # midway: last reading above, first below
+    assert np.isnan(crossed[1])
+    assert crossed[2] == pytest.approx(60.0)
+    assert crossed[3] == pytest.approx(200.0)
+    # The risk rule's level is chosen on crossings clear of the meter noise (0.8 % here): 223.71 uF is not.
+    clear = observed_crossings(group, day, fraction, fraction, limit, failed_day, 4, margin=np.full(4, 0.008))
+    assert np.isnan(clear[0]) and clear[2] == pytest.approx(60.0) and clear[3] == pytest.approx(200.0)
+
+    # The judgement of the same readings, each capacitor's newest: "below" exactly where a crossing was seen.
+    newest = np.array([1, 2, 3, 4])
+    limits = np.stack([np.array([0.90, 0.90, 0.90, 0.90]), np.array([np.nan, np.nan, 0.93, np.nan])])
+    judged = judge(
+        limit_names=["tolerance", "starting torque"],
+        limit_fraction=limits,
+        limit_days=np.full((3, 2, 4), 900.0),
+        fraction_now=np.full(4, 0.99),
+        rated_uf=np.full(4, 250.0),
+        latest_uf=250 * fraction[newest],
+        latest_fraction_25c=fraction[newest],
+        evidence=np.full(4, EVIDENCE_NONE),
+        evidence_text=np.full(4, ""),
+        today=dt.date(2026, 12, 3),
+    )
+    assert judged.limit_fraction.tolist() == [0.90, 0.90, 0.93, 0.90]
+    assert (judged.risk == "replace now").tolist() == [True, False, True, False]
+    assert "below the tolerance limit (225.00 \u00b5F)" in judged.reason[0]

@@ -5,6 +5,7 @@ import time
 from django.core.management.base import BaseCommand
 
 from fleet.services.backtest import run_backtest, start_backtest
+from fleet.services.track_record import calibration_words
 
 
 def _pct(value, decimals=1):
@@ -49,13 +50,8 @@ class Command(BaseCommand):
                 self.stdout.write(f"{label:<10}" + "".join(cells))
         for family, values in results.get("calibration", {}).items():
             self.stdout.write(
-                f"calibration {family}: slope x (1 {values['slope_bias']:+.2f}) "
-                f"{876600 * values['extra_slope_per_h']:+.2f} % a year "
-                f"{876600 * 8766 * values['curvature_per_h2']:+.2f} % a year squared, "
-                f"common spread {876600 * values['extra_sd_per_h']:.2f} % a year, "
-                f"acceleration {8766 * values['acceleration_per_h']:.2f} a year ahead, "
-                f"spread {values['slope_spread']:.2f} "
-                f"({values['capacitors']} capacitor-cut-offs, {values['residuals']} later readings)"
+                f"calibration {family}: {calibration_words(values)} "
+                f"({values['capacitors']} capacitors, {values['residuals']} later readings)"
             )
         for family, candidates in results.get("path_models", {}).items():
             chosen = results.get("calibration", {}).get(family, {})
