@@ -9,7 +9,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('fleet', '0041_rounds_every_position_read'),
+        ('fleet', '0043_life_fit_without_estimate'),
     ]
 
     operations = [
