@@ -299,19 +299,20 @@ def motor_circuits(inst: pd.DataFrame):
     return with_circuit, circuit, load, run_uf, start_uf, kind
 
 
-# Limits of the designs this process has met, by design: a fleet has a handful of designs
-# and every chunk of its refit meets them again, so a worker scans each design once.
-_DESIGN_LIMITS: dict[tuple, np.ndarray] = {}
-DESIGN_LIMITS_KEPT = 10_000
+# Limits and figures as new of the designs this process has met, by design: a fleet has a handful
+# of designs and every chunk of its refit meets them again, so a worker works each design out once.
+_DESIGNS: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
+DESIGNS_KEPT = 10_000
+FIGURE_NAMES = list(OperatingFigures.__dataclass_fields__)
 
 
-def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
-    """Capacitance limits computed once per distinct design, then spread back.
+def _per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
+    """Capacitance limits and operating figures as new, computed once per distinct design, then
+    spread back: (limits (L, n), OperatingFigures of n motors).
 
-    The limits depend on the circuit, the load and the ratings only, which a
-    fleet's motors share by the dozen or the thousand; the scan is the costly
-    part of a refit, so it runs once per distinct combination (and once per
-    process: see _DESIGN_LIMITS).
+    Both depend on the circuit, the load and the ratings only, which a fleet's motors share by the
+    dozen or the thousand; the limits' scan is the costly part of a refit, so it runs once per
+    distinct combination (and once per process: see _DESIGNS).
     """
     key = pd.DataFrame(
         {
@@ -331,12 +332,14 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
     # ngroup numbers designs 0..k-1 and `first` lists them in that order.
     first = np.unique(design, return_index=True)[1]
     keys = list(key.iloc[first].itertuples(index=False, name=None))
-    unknown = np.array([k not in _DESIGN_LIMITS for k in keys], bool)
+    unknown = np.array([k not in _DESIGNS for k in keys], bool)
     if unknown.any():
         new = first[unknown]
+        new_circuit = circuit.take(new)
+        new_load = type(load)(load.torque_at_rated_nm[new], load.rated_speed_rad_s[new], np.asarray(load.kind)[new])
         limits = capacitance_limits(
-            circuit.take(new),
-            type(load)(load.torque_at_rated_nm[new], load.rated_speed_rad_s[new], np.asarray(load.kind)[new]),
+            new_circuit,
+            new_load,
             kind[new],
             role[new],
             run_uf[new],
@@ -344,12 +347,15 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
             sub["full_load_current_a"].to_numpy(float)[new],
             sub["part_rated_voltage_v"].to_numpy(float)[new],
         )
-        if len(_DESIGN_LIMITS) > DESIGN_LIMITS_KEPT:
-            _DESIGN_LIMITS.clear()
+        as_new = operating_figures(new_circuit, new_load, run_uf[new], start_uf[new], kind[new])
+        figures = np.stack([np.atleast_1d(getattr(as_new, name)).astype(float) for name in FIGURE_NAMES])
+        if len(_DESIGNS) > DESIGNS_KEPT:
+            _DESIGNS.clear()
         for column, position in enumerate(np.flatnonzero(unknown)):
-            _DESIGN_LIMITS[keys[position]] = limits.fractions[:, column]
-    fractions = np.stack([_DESIGN_LIMITS[k] for k in keys], axis=1)
-    return fractions[:, design]
+            _DESIGNS[keys[position]] = (limits.fractions[:, column], figures[:, column])
+    fractions = np.stack([_DESIGNS[k][0] for k in keys], axis=1)[:, design]
+    figures = np.stack([_DESIGNS[k][1] for k in keys], axis=1)[:, design]
+    return fractions, OperatingFigures(**dict(zip(FIGURE_NAMES, figures, strict=True)))
 
 
 @dataclass(frozen=True)
@@ -483,13 +489,12 @@ def assess(
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
         index = np.flatnonzero(with_circuit)
-        drift = _limits_per_design(inst[with_circuit], circuit, load, kind, role, run_uf, start_uf)
+        drift, new_figures = _per_design(inst[with_circuit], circuit, load, kind, role, run_uf, start_uf)
         scale = np.nan_to_num(fit.fraction_now[index], nan=1.0)
         is_run = role == ROLE_RUN
         now_figures = operating_figures(
             circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
         )
-        new_figures = operating_figures(circuit, load, run_uf, start_uf, kind)
         findings = judge_limits(
             drift,
             new_figures,
