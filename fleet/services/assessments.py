@@ -794,11 +794,19 @@ def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
 
 
 def _json_lines(frame: pd.DataFrame) -> np.ndarray:
-    """Each row of the frame as a JSON object (text), nan as null."""
+    """Each row of the frame as a JSON object (text), nan as null.
+
+    A chunk's rows repeat (a design's figures as new, a limit beyond the horizon on every motor of
+    a design), so each distinct row is written once and spread back."""
     if frame.empty:
         return np.array([], dtype=object)
-    text = frame.to_json(orient="records", lines=True, double_precision=10)
-    return np.array(text.rstrip("\n").split("\n"), dtype=object)
+    row = np.zeros(len(frame), np.int64)
+    for name in frame.columns:
+        codes, distinct = pd.factorize(frame[name], use_na_sentinel=False)
+        row = pd.factorize(row * len(distinct) + codes)[0]  # numbered again: stays below the row count
+    first = np.unique(row, return_index=True)[1]  # factorize numbers rows in order of first sight
+    text = frame.iloc[first].to_json(orient="records", lines=True, double_precision=10)
+    return np.array(text.rstrip("\n").split("\n"), dtype=object)[row]
 
 
 def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
@@ -806,37 +814,43 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
     where it applies; the dissipation factor where the part has a maximum)."""
     n = len(result.inst)
     count = len(ALL_LIMITS)
-    fraction = result.limit_fraction.ravel()  # limit by limit: every capacitor's entry for one, then the next
-    entries = pd.DataFrame(
-        {
-            "name": np.repeat(np.asarray(ALL_LIMITS, dtype=object), n),
-            "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
-            "used": result.limit_used.ravel().astype(bool),
-            "note": result.limit_notes.ravel().astype(str),
-            "finding": result.limit_findings.ravel().astype(str),
-            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel(), today) for j, q in enumerate((10, 50, 90))},
-        }
-    )
-    limit_text = _json_lines(entries).reshape(count, n)
     applies = np.isfinite(result.limit_fraction)
     applies[0] = True  # the tolerance limit always
+    shown = applies.ravel()  # limit by limit: every capacitor's entry for one, then the next
+    fraction = result.limit_fraction.ravel()[shown]
+    entries = pd.DataFrame(
+        {
+            "name": np.repeat(np.asarray(ALL_LIMITS, dtype=object), n)[shown],
+            "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
+            "used": result.limit_used.ravel()[shown].astype(bool),
+            "note": result.limit_notes.ravel()[shown].astype(str),
+            "finding": result.limit_findings.ravel()[shown].astype(str),
+            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel()[shown], today) for j, q in enumerate((10, 50, 90))},
+        }
+    )
+    limit_text = np.full(count * n, "", dtype=object)
+    limit_text[shown] = _json_lines(entries)
+    limit_text = limit_text.reshape(count, n)
     items = [(applies[k], limit_text[k]) for k in range(count)]
     maximum = result.inst["max_dissipation_factor"].to_numpy(float)
+    has_maximum = np.isfinite(maximum)
     wear = pd.DataFrame(
         {
             "name": DISSIPATION_LIMIT,
             "fraction_of_rated": np.nan,
-            "maximum": maximum,
+            "maximum": maximum[has_maximum],
             "used": True,
             "note": "",
             "finding": "",
-            **{f"p{q}_on": _iso_dates(result.wear_days[j], today) for j, q in enumerate((10, 50, 90))},
+            **{f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today) for j, q in enumerate((10, 50, 90))},
         }
     )
-    items.append((np.isfinite(maximum), _json_lines(wear)))
+    wear_text = np.full(n, "", dtype=object)
+    wear_text[has_maximum] = _json_lines(wear)
+    items.append((has_maximum, wear_text))
     text = np.full(n, "[", dtype=object) + items[0][1]
-    for shown, entries in items[1:]:
-        text = text + np.where(shown, "," + entries, "")
+    for shown_here, entries_here in items[1:]:
+        text = text + np.where(shown_here, "," + entries_here, "")
     return text + "]"
 
 
