@@ -393,11 +393,20 @@ def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.D
     return pd.DataFrame(values, columns=names)
 
 
-def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
-    """Median of each capacitor's last four measured capacitor voltages (nan if none)."""
-    measured = readings[readings["capacitor_voltage_v"].notna() & ~readings["superseded"]]
-    recent = measured.sort_values(["fitted_capacitor_id", "taken_at", "id"]).groupby("fitted_capacitor_id").tail(4)
+def _latest_capacitor_voltage(usable: pd.DataFrame, index: pd.Index) -> np.ndarray:
+    """Median of each capacitor's last four measured capacitor voltages (nan if none); `usable` is
+    the readings not superseded, in time order (`_in_time_order`)."""
+    measured = usable[usable["capacitor_voltage_v"].notna()]
+    recent = measured.groupby("fitted_capacitor_id").tail(4)
     return recent.groupby("fitted_capacitor_id")["capacitor_voltage_v"].median().reindex(index).to_numpy(float)
+
+
+def _in_time_order(readings: pd.DataFrame) -> pd.DataFrame:
+    """The readings not superseded, with their `position` in `readings`, sorted by capacitor, time
+    taken and id: sorted once for the newest reading and the recent voltages."""
+    superseded = readings["superseded"].to_numpy(bool)
+    usable = readings[~superseded].assign(position=np.flatnonzero(~superseded))
+    return usable.sort_values(["fitted_capacitor_id", "taken_at", "id"])
 
 
 def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
@@ -486,6 +495,7 @@ def assess(
         np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
     )
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
+    in_time_order = _in_time_order(readings)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
         index = np.flatnonzero(with_circuit)
@@ -507,7 +517,7 @@ def assess(
             role,
             nameplate_only=inst["circuit_source"].to_numpy(object)[index] == CIRCUIT_ESTIMATED,
             estimated_voltage_v=np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v),
-            measured_voltage_v=_latest_capacitor_voltage(readings, inst.index[index]),
+            measured_voltage_v=_latest_capacitor_voltage(in_time_order, inst.index[index]),
         )
         limit_fraction[1:, index] = drift
         limit_used[1:, index] = findings.used
@@ -553,8 +563,7 @@ def assess(
     chosen = alert_index(inst["dielectric"].map(alert_levels or {}).to_numpy(float))
     alert_days = level_days[chosen, :, np.arange(n)].T
 
-    usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
-    latest = usable.sort_values(["fitted_capacitor_id", "taken_at", "id"]).groupby("fitted_capacitor_id").tail(1)
+    latest = in_time_order[~in_time_order["fitted_capacitor_id"].duplicated(keep="last")]  # each one's newest
     latest = latest.set_index("fitted_capacitor_id").reindex(inst.index)
     latest_fraction = fit.fraction_25c[latest["position"].to_numpy(int)]
     verdict = tolerance_verdict(
