@@ -409,6 +409,17 @@ def _in_time_order(readings: pd.DataFrame) -> pd.DataFrame:
     return usable.sort_values(["fitted_capacitor_id", "taken_at", "id"])
 
 
+def _format_each(values, spec: str, where=None) -> np.ndarray:
+    """Numbers as text by `spec` ("{:.2f}"), each distinct value (bit for bit) formatted once; only
+    `where` it is true ("" elsewhere) when given."""
+    values = np.asarray(values, float)
+    text = np.full(values.shape, "", dtype=object)
+    chosen = np.ones(values.shape, bool) if where is None else np.asarray(where, bool)
+    _, first, position = np.unique(values[chosen].view(np.int64), return_index=True, return_inverse=True)
+    text[chosen] = np.array([spec.format(value) for value in values[chosen][first]], dtype=object)[position]
+    return text
+
+
 def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     """What the newest reading itself shows, strongest first, with its words."""
     condition = latest["condition"].fillna(CONDITION_SOUND).to_numpy(object)
@@ -424,11 +435,11 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     evidence = np.select(
         [defect, open_or_short, df_high], [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF], EVIDENCE_NONE
     )
-    uf = pd.Series(capacitance).map("{:.2f}".format).to_numpy(object)
+    uf = _format_each(capacitance, "{:.2f}", open_or_short)  # numbers only where their words are used
     verdict_words = np.array([VERDICT_NAMES[int(code)] for code in np.unique(verdict_code)], dtype=object)
     verdict_words = verdict_words[np.searchsorted(np.unique(verdict_code), verdict_code)] if len(verdict_code) else []
-    df_pct = pd.Series(100 * dissipation).map("{:.1f}".format).to_numpy(object)
-    max_pct = pd.Series(100 * max_df).map("{:.1f}".format).to_numpy(object)
+    df_pct = _format_each(100 * dissipation, "{:.1f}", df_high)
+    max_pct = _format_each(100 * max_df, "{:.1f}", df_high)
     text = np.select(
         [defect, open_or_short, df_high],
         [
@@ -576,7 +587,7 @@ def assess(
     wear_days = _dissipation_days(inst, readings[~readings["superseded"]], now)
     wear_words = (
         "the part's "
-        + pd.Series(100 * inst["max_dissipation_factor"].to_numpy(float)).map("{:.1f}".format).to_numpy(object)
+        + _format_each(100 * inst["max_dissipation_factor"].to_numpy(float), "{:.1f}")
         + " % dissipation-factor maximum"
     )
     judgement = judge(
