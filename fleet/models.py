@@ -790,7 +790,12 @@ class Assessment(models.Model):
     is_current = models.BooleanField(default=True)
     model_version = models.CharField(max_length=20)
     fitted_through = models.DateTimeField(help_text="Time of the newest reading used")
-    newest_reading = models.ForeignKey(Reading, null=True, on_delete=models.SET_NULL, related_name="+")
+    # No constraint in the database: readings are append-only (triggers refuse UPDATE and DELETE), and
+    # checking it locked and dirtied the newest reading of every capacitor a refit wrote. No index
+    # either: nothing looks assessments up by it, and each refit wrote two entries a capacitor.
+    newest_reading = models.ForeignKey(
+        Reading, null=True, on_delete=models.SET_NULL, related_name="+", db_constraint=False, db_index=False
+    )
     max_reading_id = models.BigIntegerField(
         default=0, help_text="Highest reading id seen by this fit: a reading added later makes it stale"
     )

@@ -13,7 +13,7 @@ import pytest
 from django.db import IntegrityError, transaction
 
 from fleet.models import FittedCapacitor, Motor, Reading
-from fleet.services.bulk import SEPARATOR, insert_frame, select_frame
+from fleet.services.bulk import SEPARATOR, csv_line_sql, insert_frame, on_postgresql, select_frame, select_lines
 from tests.factories import make_fitted_capacitor, make_motor
 
 
@@ -151,6 +151,15 @@ def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
         assert row.esr_ohm == want[4] if want[4] is not None else pd.isna(row.esr_ohm)
         assert pd.isna(row.supersedes_id) and want[5] is None
     assert select_frame("SELECT id FROM fleet_reading WHERE id < 0", [], ["id"]).empty
+    if on_postgresql():  # [derived] the same rows as CSV lines the server joins itself
+        lines = select_lines(
+            f"SELECT {csv_line_sql(columns, text=('notes', 'client_key'))} FROM fleet_reading"
+            " WHERE fitted_capacitor_id = %s",
+            [fitted_capacitor.id],
+            columns,
+        ).sort_values("id")
+        pd.testing.assert_frame_equal(lines, read)
+        assert select_lines("SELECT 'x' FROM fleet_reading WHERE id < 0", [], ["id"]).empty
 
 
 def test_a_bulk_insert_holding_one_reading_after_its_capacitors_removal_writes_nothing(three_motors):

@@ -259,9 +259,9 @@ def test_motor_without_a_circuit_is_judged_on_tolerance_alone():
 
 
 def test_limits_computed_per_design_equal_limits_computed_per_motor():
-    """Motors of two designs, interleaved: the per-design shortcut gives each motor
-    the limit a direct per-motor computation gives."""
-    from fleet.engineering.drift import capacitance_limits
+    """[derived] Motors of two designs, interleaved: the per-design shortcut gives each motor
+    the limit and the figures as new that a direct per-motor computation gives."""
+    from fleet.engineering.drift import capacitance_limits, operating_figures
     from fleet.engineering.motor import LOAD_FAN, MotorCircuit, load_matching_rated_slip
 
     # A wide tolerance, so the motor's own limit governs and differs by design.
@@ -293,6 +293,8 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
         assert np.isfinite(direct.governing_fraction) and direct.governing_fraction > 0.55
         assert stored.limit_fraction == pytest.approx(float(direct.governing_fraction))
         assert stored.limit_source != "tolerance"
+        as_new = operating_figures(circuit, load, rated, 0.0, "permanent_split").as_rows()[0]
+        assert stored.figures_new == pytest.approx(as_new, rel=1e-9)
 
 
 def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):

@@ -308,19 +308,20 @@ def motor_circuits(inst: pd.DataFrame):
     return with_circuit, circuit, load, run_uf, start_uf, kind
 
 
-# Limits of the designs this process has met, by design: a fleet has a handful of designs
-# and every chunk of its refit meets them again, so a worker scans each design once.
-_DESIGN_LIMITS: dict[tuple, np.ndarray] = {}
-DESIGN_LIMITS_KEPT = 10_000
+# Limits and figures as new of the designs this process has met, by design: a fleet has a handful
+# of designs and every chunk of its refit meets them again, so a worker works each design out once.
+_DESIGNS: dict[tuple, tuple[np.ndarray, np.ndarray]] = {}
+DESIGNS_KEPT = 10_000
+FIGURE_NAMES = list(OperatingFigures.__dataclass_fields__)
 
 
-def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
-    """Capacitance limits computed once per distinct design, then spread back.
+def _per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
+    """Capacitance limits and operating figures as new, computed once per distinct design, then
+    spread back: (limits (L, n), OperatingFigures of n motors).
 
-    The limits depend on the circuit, the load and the ratings only, which a
-    fleet's motors share by the dozen or the thousand; the scan is the costly
-    part of a refit, so it runs once per distinct combination (and once per
-    process: see _DESIGN_LIMITS).
+    Both depend on the circuit, the load and the ratings only, which a fleet's motors share by the
+    dozen or the thousand; the limits' scan is the costly part of a refit, so it runs once per
+    distinct combination (and once per process: see _DESIGNS).
     """
     key = pd.DataFrame(
         {
@@ -340,12 +341,14 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
     # ngroup numbers designs 0..k-1 and `first` lists them in that order.
     first = np.unique(design, return_index=True)[1]
     keys = list(key.iloc[first].itertuples(index=False, name=None))
-    unknown = np.array([k not in _DESIGN_LIMITS for k in keys], bool)
+    unknown = np.array([k not in _DESIGNS for k in keys], bool)
     if unknown.any():
         new = first[unknown]
+        new_circuit = circuit.take(new)
+        new_load = type(load)(load.torque_at_rated_nm[new], load.rated_speed_rad_s[new], np.asarray(load.kind)[new])
         limits = capacitance_limits(
-            circuit.take(new),
-            type(load)(load.torque_at_rated_nm[new], load.rated_speed_rad_s[new], np.asarray(load.kind)[new]),
+            new_circuit,
+            new_load,
             kind[new],
             role[new],
             run_uf[new],
@@ -353,12 +356,15 @@ def _limits_per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, sta
             sub["full_load_current_a"].to_numpy(float)[new],
             sub["part_rated_voltage_v"].to_numpy(float)[new],
         )
-        if len(_DESIGN_LIMITS) > DESIGN_LIMITS_KEPT:
-            _DESIGN_LIMITS.clear()
+        as_new = operating_figures(new_circuit, new_load, run_uf[new], start_uf[new], kind[new])
+        figures = np.stack([np.atleast_1d(getattr(as_new, name)).astype(float) for name in FIGURE_NAMES])
+        if len(_DESIGNS) > DESIGNS_KEPT:
+            _DESIGNS.clear()
         for column, position in enumerate(np.flatnonzero(unknown)):
-            _DESIGN_LIMITS[keys[position]] = limits.fractions[:, column]
-    fractions = np.stack([_DESIGN_LIMITS[k] for k in keys], axis=1)
-    return fractions[:, design]
+            _DESIGNS[keys[position]] = (limits.fractions[:, column], figures[:, column])
+    fractions = np.stack([_DESIGNS[k][0] for k in keys], axis=1)[:, design]
+    figures = np.stack([_DESIGNS[k][1] for k in keys], axis=1)[:, design]
+    return fractions, OperatingFigures(**dict(zip(FIGURE_NAMES, figures, strict=True)))
 
 
 @dataclass(frozen=True)
@@ -396,11 +402,31 @@ def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.D
     return pd.DataFrame(values, columns=names)
 
 
-def _latest_capacitor_voltage(readings: pd.DataFrame, index: pd.Index) -> np.ndarray:
-    """Median of each capacitor's last four measured capacitor voltages (nan if none)."""
-    measured = readings[readings["capacitor_voltage_v"].notna() & ~readings["superseded"]]
-    recent = measured.sort_values(["fitted_capacitor_id", "taken_at", "id"]).groupby("fitted_capacitor_id").tail(4)
+def _latest_capacitor_voltage(usable: pd.DataFrame, index: pd.Index) -> np.ndarray:
+    """Median of each capacitor's last four measured capacitor voltages (nan if none); `usable` is
+    the readings not superseded, in time order (`_in_time_order`)."""
+    measured = usable[usable["capacitor_voltage_v"].notna()]
+    recent = measured.groupby("fitted_capacitor_id").tail(4)
     return recent.groupby("fitted_capacitor_id")["capacitor_voltage_v"].median().reindex(index).to_numpy(float)
+
+
+def _in_time_order(readings: pd.DataFrame) -> pd.DataFrame:
+    """The readings not superseded, with their `position` in `readings`, sorted by capacitor, time
+    taken and id: sorted once for the newest reading and the recent voltages."""
+    superseded = readings["superseded"].to_numpy(bool)
+    usable = readings[~superseded].assign(position=np.flatnonzero(~superseded))
+    return usable.sort_values(["fitted_capacitor_id", "taken_at", "id"])
+
+
+def _format_each(values, spec: str, where=None) -> np.ndarray:
+    """Numbers as text by `spec` ("{:.2f}"), each distinct value (bit for bit) formatted once; only
+    `where` it is true ("" elsewhere) when given."""
+    values = np.asarray(values, float)
+    text = np.full(values.shape, "", dtype=object)
+    chosen = np.ones(values.shape, bool) if where is None else np.asarray(where, bool)
+    _, first, position = np.unique(values[chosen].view(np.int64), return_index=True, return_inverse=True)
+    text[chosen] = np.array([spec.format(value) for value in values[chosen][first]], dtype=object)[position]
+    return text
 
 
 def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
@@ -418,11 +444,11 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     evidence = np.select(
         [defect, open_or_short, df_high], [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF], EVIDENCE_NONE
     )
-    uf = pd.Series(capacitance).map("{:.2f}".format).to_numpy(object)
+    uf = _format_each(capacitance, "{:.2f}", open_or_short)  # numbers only where their words are used
     verdict_words = np.array([VERDICT_NAMES[int(code)] for code in np.unique(verdict_code)], dtype=object)
     verdict_words = verdict_words[np.searchsorted(np.unique(verdict_code), verdict_code)] if len(verdict_code) else []
-    df_pct = pd.Series(100 * dissipation).map("{:.1f}".format).to_numpy(object)
-    max_pct = pd.Series(100 * max_df).map("{:.1f}".format).to_numpy(object)
+    df_pct = _format_each(100 * dissipation, "{:.1f}", df_high)
+    max_pct = _format_each(100 * max_df, "{:.1f}", df_high)
     text = np.select(
         [defect, open_or_short, df_high],
         [
@@ -489,16 +515,16 @@ def assess(
         np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
     )
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
+    in_time_order = _in_time_order(readings)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
         index = np.flatnonzero(with_circuit)
-        drift = _limits_per_design(inst[with_circuit], circuit, load, kind, role, run_uf, start_uf)
+        drift, new_figures = _per_design(inst[with_circuit], circuit, load, kind, role, run_uf, start_uf)
         scale = np.nan_to_num(fit.fraction_now[index], nan=1.0)
         is_run = role == ROLE_RUN
         now_figures = operating_figures(
             circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
         )
-        new_figures = operating_figures(circuit, load, run_uf, start_uf, kind)
         findings = judge_limits(
             drift,
             new_figures,
@@ -511,7 +537,7 @@ def assess(
             role,
             nameplate_only=inst["circuit_source"].to_numpy(object)[index] == CIRCUIT_ESTIMATED,
             estimated_voltage_v=np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v),
-            measured_voltage_v=_latest_capacitor_voltage(readings, inst.index[index]),
+            measured_voltage_v=_latest_capacitor_voltage(in_time_order, inst.index[index]),
         )
         limit_fraction[1:, index] = drift
         limit_used[1:, index] = findings.used
@@ -556,8 +582,7 @@ def assess(
     chosen = alert_index(inst["dielectric"].map(alert_levels or {}).to_numpy(float))
     alert_days = level_days[chosen, :, np.arange(n)].T
 
-    usable = readings[~readings["superseded"]].assign(position=np.arange(len(readings))[~readings["superseded"]])
-    latest = usable.sort_values(["fitted_capacitor_id", "taken_at", "id"]).groupby("fitted_capacitor_id").tail(1)
+    latest = in_time_order[~in_time_order["fitted_capacitor_id"].duplicated(keep="last")]  # each one's newest
     latest = latest.set_index("fitted_capacitor_id").reindex(inst.index)
     latest_fraction = fit.fraction_25c[latest["position"].to_numpy(int)]
     verdict = tolerance_verdict(
@@ -570,7 +595,7 @@ def assess(
     wear_days = _dissipation_days(inst, readings[~readings["superseded"]], now)
     wear_words = (
         "the part's "
-        + pd.Series(100 * inst["max_dissipation_factor"].to_numpy(float)).map("{:.1f}".format).to_numpy(object)
+        + _format_each(100 * inst["max_dissipation_factor"].to_numpy(float), "{:.1f}")
         + " % dissipation-factor maximum"
     )
     judgement = judge(
@@ -797,11 +822,19 @@ def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
 
 
 def _json_lines(frame: pd.DataFrame) -> np.ndarray:
-    """Each row of the frame as a JSON object (text), nan as null."""
+    """Each row of the frame as a JSON object (text), nan as null.
+
+    A chunk's rows repeat (a design's figures as new, a limit beyond the horizon on every motor of
+    a design), so each distinct row is written once and spread back."""
     if frame.empty:
         return np.array([], dtype=object)
-    text = frame.to_json(orient="records", lines=True, double_precision=10)
-    return np.array(text.rstrip("\n").split("\n"), dtype=object)
+    row = np.zeros(len(frame), np.int64)
+    for name in frame.columns:
+        codes, distinct = pd.factorize(frame[name], use_na_sentinel=False)
+        row = pd.factorize(row * len(distinct) + codes)[0]  # numbered again: stays below the row count
+    first = np.unique(row, return_index=True)[1]  # factorize numbers rows in order of first sight
+    text = frame.iloc[first].to_json(orient="records", lines=True, double_precision=10)
+    return np.array(text.rstrip("\n").split("\n"), dtype=object)[row]
 
 
 def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
@@ -809,37 +842,43 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
     where it applies; the dissipation factor where the part has a maximum)."""
     n = len(result.inst)
     count = len(ALL_LIMITS)
-    fraction = result.limit_fraction.ravel()  # limit by limit: every capacitor's entry for one, then the next
-    entries = pd.DataFrame(
-        {
-            "name": np.repeat(np.asarray(ALL_LIMITS, dtype=object), n),
-            "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
-            "used": result.limit_used.ravel().astype(bool),
-            "note": result.limit_notes.ravel().astype(str),
-            "finding": result.limit_findings.ravel().astype(str),
-            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel(), today) for j, q in enumerate((10, 50, 90))},
-        }
-    )
-    limit_text = _json_lines(entries).reshape(count, n)
     applies = np.isfinite(result.limit_fraction)
     applies[0] = True  # the tolerance limit always
+    shown = applies.ravel()  # limit by limit: every capacitor's entry for one, then the next
+    fraction = result.limit_fraction.ravel()[shown]
+    entries = pd.DataFrame(
+        {
+            "name": np.repeat(np.asarray(ALL_LIMITS, dtype=object), n)[shown],
+            "fraction_of_rated": np.where(np.isfinite(fraction), fraction, np.nan),
+            "used": result.limit_used.ravel()[shown].astype(bool),
+            "note": result.limit_notes.ravel()[shown].astype(str),
+            "finding": result.limit_findings.ravel()[shown].astype(str),
+            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel()[shown], today) for j, q in enumerate((10, 50, 90))},
+        }
+    )
+    limit_text = np.full(count * n, "", dtype=object)
+    limit_text[shown] = _json_lines(entries)
+    limit_text = limit_text.reshape(count, n)
     items = [(applies[k], limit_text[k]) for k in range(count)]
     maximum = result.inst["max_dissipation_factor"].to_numpy(float)
+    has_maximum = np.isfinite(maximum)
     wear = pd.DataFrame(
         {
             "name": DISSIPATION_LIMIT,
             "fraction_of_rated": np.nan,
-            "maximum": maximum,
+            "maximum": maximum[has_maximum],
             "used": True,
             "note": "",
             "finding": "",
-            **{f"p{q}_on": _iso_dates(result.wear_days[j], today) for j, q in enumerate((10, 50, 90))},
+            **{f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today) for j, q in enumerate((10, 50, 90))},
         }
     )
-    items.append((np.isfinite(maximum), _json_lines(wear)))
+    wear_text = np.full(n, "", dtype=object)
+    wear_text[has_maximum] = _json_lines(wear)
+    items.append((has_maximum, wear_text))
     text = np.full(n, "[", dtype=object) + items[0][1]
-    for shown, entries in items[1:]:
-        text = text + np.where(shown, "," + entries, "")
+    for shown_here, entries_here in items[1:]:
+        text = text + np.where(shown_here, "," + entries_here, "")
     return text + "]"
 
 

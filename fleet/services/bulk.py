@@ -232,15 +232,28 @@ def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
     text, so the caller casts what it needs; NULL is NaN or None.
     """
     if on_postgresql():
-        with connection.cursor() as cursor:
-            cursor.execute(f"SELECT string_agg(btrim(q::text, '()'), E'\\n') FROM ({sql}) AS q", params)
-            text = cursor.fetchone()[0]
-        if not text:
-            return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
-        return _row_texts_frame(text.encode(), columns)
+        return select_lines(f"SELECT btrim(q::text, '()') FROM ({sql}) AS q", params, columns)
     with connection.cursor() as cursor:
         cursor.execute(sql, params)
         return pd.DataFrame.from_records(cursor.fetchall(), columns=columns)
+
+
+def csv_line_sql(expressions: list[str], text: tuple[str, ...] = ()) -> str:
+    """SQL for a row as one CSV line, for `select_lines`: the values joined by commas, NULL an empty
+    field, the `text` expressions quoted (quotes doubled, backslashes escaped)."""
+    quoted = {name: f"'\"' || replace(replace({name}, '\\', '\\\\'), '\"', '\"\"') || '\"'" for name in text}
+    return "concat(" + ", ',', ".join(quoted.get(name, name) for name in expressions) + ")"
+
+
+def select_lines(sql: str, params, columns: list[str]) -> pd.DataFrame:
+    """Like `select_frame`, for a SELECT of one column that is each row as a CSV line (`csv_line_sql`):
+    the server joins a row's values faster than it writes the row's text form (PostgreSQL only)."""
+    with connection.cursor() as cursor:
+        cursor.execute(f"SELECT string_agg(q.line, E'\\n') FROM ({sql}) AS q (line)", params)
+        text = cursor.fetchone()[0]
+    if not text:
+        return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
+    return _row_texts_frame(text.encode(), columns)
 
 
 def _row_texts_frame(data: bytes, columns: list[str]) -> pd.DataFrame:

@@ -7,7 +7,7 @@ import pandas as pd
 
 from fleet.models import FittedCapacitor, PartPrior, Reading
 
-from .bulk import ID_ARRAY_SQL, id_array_text, on_postgresql, select_frame
+from .bulk import ID_ARRAY_SQL, csv_line_sql, id_array_text, on_postgresql, select_lines
 
 CIRCUIT_FIELDS = [
     "r1m_ohm",
@@ -94,10 +94,15 @@ READING_COLUMNS = [
 ]
 
 
+READING_EXPRESSIONS = [
+    "id",
+    "fitted_capacitor_id",
+    "(EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint",  # microseconds: no time parsed row by row
+    *READING_COLUMNS[3:],
+]
 READINGS_SQL = (
-    "SELECT id, fitted_capacitor_id, (EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint, capacitance_uf,"
-    " case_temperature_c, capacitor_voltage_v, esr_ohm, supersedes_id, condition"
-    f" FROM fleet_reading WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
+    f"SELECT {csv_line_sql(READING_EXPRESSIONS, text=('condition',))} FROM fleet_reading"
+    f" WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
 )
 
 
@@ -106,7 +111,7 @@ def readings_frame(fitted_capacitor_ids) -> pd.DataFrame:
     with `taken_at` in UTC and a `superseded` column."""
     ids = [int(i) for i in fitted_capacitor_ids]
     if on_postgresql():
-        frame = select_frame(
+        frame = select_lines(
             READINGS_SQL, [min(ids, default=0), max(ids, default=0), id_array_text(ids)], READING_COLUMNS
         )
         frame["taken_at"] = pd.to_datetime(frame["taken_at"].astype(np.int64), unit="us", utc=True)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import resource
+import statistics
 import subprocess
 import sys
 import time
@@ -115,6 +116,7 @@ class Command(BaseCommand):
             rows, floor_s = copy_read_floor(Reading)
             self.say(f"COPY read floor: {rows:,} reading rows in {floor_s:.2f} s ({rows / floor_s:,.0f} rows/s)")
         self.chunk_memory(options["chunk_size"])
+        self.chunk_cpu(options["chunk_size"])
         if not options["no_in_process"]:
             self.timed_refit("in-process", floor_s, options["chunk_size"], eager=True)
         for count in options["workers"]:
@@ -206,6 +208,30 @@ class Command(BaseCommand):
         self.say(
             f"one chunk of {len(ids):,} capacitors ({outcome.readings:,} readings): "
             f"peak Python memory {peak / 2**20:.0f} MB (tracemalloc)"
+        )
+
+    def chunk_cpu(self, chunk_size: int, chunks: int = 5) -> None:
+        """CPU seconds of a chunk in this process and in its database server process (median of a few
+        chunks after the first): the two sides a worker's chunk costs, steadier than wall time on a
+        shared machine."""
+        ids = list(FittedCapacitor.objects.filter(removed_on__isnull=True).order_by("id").values_list("id", flat=True))
+        server_pid = None
+        if on_postgresql():
+            with connection.cursor() as cursor:
+                cursor.execute("SELECT pg_backend_pid()")
+                server_pid = cursor.fetchone()[0]
+        worker_s, server_s = [], []
+        for start in range(0, min(len(ids), chunk_size * chunks), chunk_size):
+            before = time.process_time(), _cpu_seconds(server_pid) if server_pid else float("nan")
+            refit_fitted_capacitors(ids[start : start + chunk_size], force=True)
+            worker_s.append(time.process_time() - before[0])
+            server_s.append((_cpu_seconds(server_pid) if server_pid else float("nan")) - before[1])
+        if len(worker_s) < 2:
+            return
+        self.say(
+            f"one chunk of {chunk_size:,} capacitors, CPU (median of {len(worker_s) - 1} after the first): "
+            f"{statistics.median(worker_s[1:]):.2f} s in this process, "
+            f"{statistics.median(server_s[1:]):.2f} s in its database server process"
         )
 
     def naive_loop(self, sample_size: int, readings: int) -> None:
