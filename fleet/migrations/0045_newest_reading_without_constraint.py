@@ -42,7 +42,7 @@ def add_constraint(apps, schema_editor):
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0040_drop_second_tag_index"),
+        ("fleet", "0044_assessment_calibration_terms"),
     ]
 
     operations = [

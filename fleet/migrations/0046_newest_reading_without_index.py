@@ -39,7 +39,7 @@ def create_index(apps, schema_editor):
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0041_newest_reading_without_constraint"),
+        ("fleet", "0045_newest_reading_without_constraint"),
     ]
 
     operations = [
