@@ -604,3 +604,49 @@ def test_imported_readings_name_no_taker_whether_imported_on_the_page_or_by_the_
     export = b"".join(client.get("/exports/readings.csv").streaming_content).decode("utf-8-sig")
     assert [row["taken_by"] for row in csv.DictReader(io.StringIO(export))] == ["", "", ""]
     assert not Reading.objects.filter(taken_by__isnull=False).exists()
+
+
+def test_a_readings_export_with_a_replacement_day_reading_imported_again_adds_nothing(tmp_path, client, engineer):
+    """The README's promise, on a replacement day [derived]: a file that does not say which capacitor a reading
+    of that day is gives it to the one removed that day, so the new capacitor's first reading, exported and
+    imported again, came in a second time on the removed one. The same reading is now recognised on whichever
+    capacitor of the motor's position it is stored, and the export's `fitted_capacitor_id` names the capacitor."""
+    from zoneinfo import ZoneInfo
+
+    from fleet.services.readings import replace_capacitor
+    from tests.factories import make_reading
+
+    migrate_all(tmp_path)
+    madrid = ZoneInfo("Europe/Madrid")  # FAN-1's site
+    old = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    make_reading(old, taken_at=dt.datetime(2025, 6, 2, 8, 30, tzinfo=madrid), capacitance_uf=6.1, source="form")
+    new = replace_capacitor(fitted_capacitor=old, part=old.part, removed_on=dt.date(2025, 6, 2), reason="failed")
+    make_reading(new, taken_at=dt.datetime(2025, 6, 2, 15, 0, tzinfo=madrid), capacitance_uf=8.02, source="form")
+    stored = Reading.objects.count()
+    client.force_login(engineer)
+    for fmt in ("csv", "xlsx"):
+        path = tmp_path / f"export.{fmt}"
+        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
+        report = io.StringIO()
+        with pytest.raises(CommandError, match="nothing would be imported"):
+            call_command("import", "readings", str(path), "--dry-run", stdout=report)
+        assert f": {stored} rows: 0 good, {stored} already imported, 0 with problems." in report.getvalue(), fmt
+    # Without the capacitor's id (a file that lost the column) the reading is still known on its position.
+    export = (tmp_path / "export.csv").read_text(encoding="utf-8-sig").replace(",fitted_capacitor_id,", ",left_out,")
+    with pytest.raises(CommandError, match="Nothing was imported"):
+        run("readings", write(tmp_path, "no_id.csv", export))
+    # A new reading that names the new capacitor goes to it, on the replacement day; one naming a capacitor
+    # that never held that position is refused at that field.
+    other = FittedCapacitor.objects.get(motor__asset_tag="CMP-1", removed_on__isnull=True)
+    text = "asset_tag,role,taken_at,capacitance_uf,fitted_capacitor_id\n"
+    text += f"FAN-1,run,2025-06-02 16:00,8.03,{new.id}\nFAN-1,run,2025-06-02 16:30,8.04,{other.id}\n"
+    text += "FAN-1,run,2025-06-02 17:00,8.05,the new one\n"
+    report = io.StringIO()
+    call_command("import", "readings", str(write(tmp_path, "named.csv", text)), "--good-rows-only", stdout=report)
+    assert (
+        f"row 3, fitted_capacitor_id: fitted capacitor {other.id} has never been the run capacitor of motor FAN-1"
+        in (report.getvalue())
+    )
+    assert "row 4, fitted_capacitor_id: not a whole number" in report.getvalue()
+    assert Reading.objects.get(capacitance_uf=8.03).fitted_capacitor == new
+    assert Reading.objects.count() == stored + 1

@@ -32,6 +32,8 @@ READING_COLUMNS = {
     "esr_ohm": "ESR in Ω",
     "condition": "sound, bulged, leaking or vented (default sound)",
     "notes": "Free text",
+    "fitted_capacitor_id": "The capacitor read, by its id in the readings export (optional: it must be this motor's "
+    "capacitor in this role; empty: the one fitted that day)",
 }
 READING_REQUIRED = ("asset_tag", "role", "taken_at")
 

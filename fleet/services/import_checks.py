@@ -107,22 +107,28 @@ FITTED_COLUMNS = {
 
 
 def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
-    """Every capacitor ever fitted to the motors named (upper-case tags), one query."""
+    """Every capacitor ever fitted to the motors named (upper-case tags), one query; `position_id` names
+    its motor position (motor and role) by the position's first capacitor's id, so that a reading has one
+    key for its position whichever of its capacitors holds it."""
     rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
     fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
     fitted["tag"] = fitted["tag"].astype(str).str.upper()
     fitted["role"] = fitted["role"].astype(str)
     fitted["fitted_on"] = pd.to_datetime(fitted["fitted_on"]).astype("datetime64[s]")
     fitted["removed_on"] = pd.to_datetime(fitted["removed_on"]).astype("datetime64[s]")
+    fitted["position_id"] = fitted.groupby(["tag", "role"])["fitted_capacitor_id"].transform("min")
     return fitted
 
 
-def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted: pd.DataFrame) -> pd.DataFrame:
+def _fitted_on_the_day(
+    tag: pd.Series, role: pd.Series, day: np.ndarray, fitted: pd.DataFrame, named: np.ndarray
+) -> pd.DataFrame:
     """For each row, the capacitor in that role on that motor that day (`day`: the site's calendar day), NaN if none.
 
     On a replacement day two capacitors held the position; the reading is the one removed that day's
-    (its window runs to the end of its removal day; a reading of the new one taken that day goes in
-    by the reading form or the API, which name the capacitor)."""
+    (its window runs to the end of its removal day) unless the row names the new one. A row that names
+    its capacitor (`named`: an id of that position, -1 for none) gets that one whatever the day: the
+    rulebook then holds the day to its fitting and removal dates."""
     rows = pd.DataFrame(
         {"i": np.arange(len(tag)), "tag": tag.astype(str).array, "role": role.astype(str).array, "day": day}
     )
@@ -130,12 +136,42 @@ def _fitted_on_the_day(tag: pd.Series, role: pd.Series, day: np.ndarray, fitted:
     in_window = (candidates["fitted_on"] <= candidates["day"]) & (
         candidates["removed_on"].isna() | (candidates["day"] <= candidates["removed_on"])
     )
-    match = (
-        candidates[in_window.to_numpy(bool)]
-        .sort_values(["i", "fitted_on", "fitted_capacitor_id"])
-        .drop_duplicates("i", keep="first")
-    )
+    wanted = named[candidates["i"].to_numpy()]
+    chosen = np.where(wanted >= 0, candidates["fitted_capacitor_id"].to_numpy() == wanted, in_window.to_numpy(bool))
+    match = candidates[chosen].sort_values(["i", "fitted_on", "fitted_capacitor_id"]).drop_duplicates("i", keep="first")
     return match.set_index("i").reindex(np.arange(len(tag)))
+
+
+def _named_capacitors(
+    chunk: pd.DataFrame, tag: pd.Series, role: pd.Series, fitted: pd.DataFrame, problems
+) -> np.ndarray:
+    """The capacitor each row names in `fitted_capacitor_id` (the readings export's column; -1 where the cell
+    is empty), refused at that field unless it is a whole number naming a capacitor of the row's motor and role."""
+    texts = chunk["fitted_capacitor_id"].reset_index(drop=True)
+    given = texts.ne("").to_numpy()
+    if not given.any():  # the usual file: no such column
+        return np.full(len(texts), -1, np.int64)
+    whole = texts.str.fullmatch(r"\d{1,18}(?:\.0*)?")
+    problems.add(
+        given & ~whole.to_numpy(bool),
+        "fitted_capacitor_id",
+        "not a whole number: the fitted capacitor's id from the readings export, or empty",
+    )
+    ids = pd.to_numeric(texts.where(whole), errors="coerce").fillna(-1).astype(np.int64).to_numpy()
+    held = pd.MultiIndex.from_frame(fitted[["fitted_capacitor_id", "tag", "role"]].astype({"tag": object}))
+    known = pd.MultiIndex.from_arrays([ids, tag.to_numpy(object), role.to_numpy(object)]).isin(held)
+    elsewhere = (ids >= 0) & ~known
+    if elsewhere.any():
+        problems.add(
+            elsewhere,
+            "fitted_capacitor_id",
+            (
+                "fitted capacitor " + pd.Series(ids).astype(str) + " has never been the " + role
+                + " capacitor of motor " + chunk["asset_tag"].reset_index(drop=True)
+                + ": give one that was, or leave it empty"
+            ).to_numpy(object),
+        )  # fmt: skip
+    return np.where(elsewhere, -1, ids)
 
 
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
@@ -170,7 +206,8 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
         taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
         taken_on = local_days(taken_utc, zones.fillna(default_tz).to_numpy(object), fallback=settings.TIME_ZONE)
-        match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted)
+        named = _named_capacitors(chunk, tag, role, fitted, problems)
+        match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted, named)
         unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
         # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
         position = pd.MultiIndex.from_arrays([tag, role])
@@ -218,6 +255,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             {
                 "row": chunk["row"].to_numpy()[good],
                 "fitted_capacitor_id": match["fitted_capacitor_id"].to_numpy()[good].astype(np.int64),
+                "position_id": match["position_id"].to_numpy()[good].astype(np.int64),
                 "taken_at": taken[good].reset_index(drop=True),
                 "method": result.values["method"][good],
                 "condition": result.values["condition"][good],
@@ -229,32 +267,40 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         rows["import_key"] = reading_keys(
             rows["fitted_capacitor_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
         )
+        rows["position_key"] = reading_keys(
+            rows["position_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
+        )
         good_parts.append(rows)
         errors += problems.items
         if on_progress:
             on_progress(min(start + CHUNK_ROWS, len(frame)))
-    good = pd.concat(good_parts, ignore_index=True) if good_parts else pd.DataFrame(columns=["row", "import_key"])
-    repeated = good["import_key"].duplicated(keep="first").to_numpy()
+    good = (
+        pd.concat(good_parts, ignore_index=True)
+        if good_parts
+        else pd.DataFrame(columns=["row", "import_key", "position_key"])
+    )
+    repeated = good["position_key"].duplicated(keep="first").to_numpy()
     if repeated.any():
-        first_row = good[~repeated].set_index("import_key")["row"]
+        first_row = good[~repeated].set_index("position_key")["row"]
         later = good[repeated]
         errors += [
             (int(row), "taken_at", f"the same reading as row {first}")
-            for row, first in zip(later["row"], first_row.reindex(later["import_key"]).to_numpy(), strict=True)
+            for row, first in zip(later["row"], first_row.reindex(later["position_key"]).to_numpy(), strict=True)
         ]
         good = good[~repeated].reset_index(drop=True)
-    stored = _already_stored(good)
+    stored = _already_stored(good, fitted)
     if stored.any():
         good = good[~stored].reset_index(drop=True)
     errors.sort()
     return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
 
 
-def _already_stored(good: pd.DataFrame) -> np.ndarray:
-    """Per good row: the database holds the same reading (capacitor, time, method, value), whether it
+def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> np.ndarray:
+    """Per good row: the database holds the same reading (motor position, time, method, value), whether it
     came by an earlier import (its key) or by the form, the API or the demo (the same content;
-    times compared to the second, as a spreadsheet cell keeps them): a readings export imported again
-    adds nothing."""
+    times compared to the second, as a spreadsheet cell keeps them), and on whichever capacitor of that
+    position (`fitted`'s `position_id`) it is stored: a readings export imported again adds nothing, even
+    a new capacitor's reading taken on the day it replaced the old one."""
     if not len(good):
         return np.zeros(0, bool)
     keyed = np.isin(
@@ -266,9 +312,10 @@ def _already_stored(good: pd.DataFrame) -> np.ndarray:
         ),
     )
     times = pd.to_datetime(good["taken_at"], utc=True)
+    position_of = fitted.set_index("fitted_capacitor_id")["position_id"]
     same_span = (
         Reading.objects.filter(
-            fitted_capacitor_id__any_of=good["fitted_capacitor_id"].unique(),
+            fitted_capacitor_id__any_of=position_of.index[position_of.isin(good["position_id"])].to_numpy(np.int64),
             taken_at__gte=times.min().floor("s"),
             taken_at__lt=times.max().floor("s") + pd.Timedelta(seconds=1),
         )
@@ -283,13 +330,13 @@ def _already_stored(good: pd.DataFrame) -> np.ndarray:
         return reading_keys(ids, pd.to_datetime(when, utc=True).dt.floor("s"), methods, np.round(uf, 4))
 
     unkeyed = to_the_second(
-        stored["fitted_capacitor_id"],
+        position_of.reindex(stored["fitted_capacitor_id"]).to_numpy(),
         stored["taken_at"],
         stored["method"].to_numpy(object),
         stored["uf"].to_numpy(float),
     )
     mine = to_the_second(
-        good["fitted_capacitor_id"], times, good["method"].to_numpy(object), good["capacitance_uf"].to_numpy(float)
+        good["position_id"], times, good["method"].to_numpy(object), good["capacitance_uf"].to_numpy(float)
     )
     return keyed | np.isin(mine, unkeyed)
 
