@@ -885,7 +885,6 @@ class Assessment(models.Model):
             ),
         ]
         indexes = [
-            models.Index(fields=["is_current", "risk", "replace_by"]),
             # The plan and the API: current assessments soonest first, read a page at a time.
             models.Index(
                 fields=["replace_by", "fitted_capacitor"], condition=IN_SERVICE, name="in_service_by_replace_by"

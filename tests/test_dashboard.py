@@ -13,7 +13,7 @@ from django.utils import timezone
 from scipy import stats
 
 from fleet.charts import spares_figure
-from fleet.models import DigestEntry, PartLifeFit, SiteMembership, SiteStock, WorkOrder
+from fleet.models import DigestEntry, FittedCapacitor, PartLifeFit, SiteMembership, SiteStock, WorkOrder
 from fleet.roles import PLANNER, TECHNICIAN
 from fleet.services.alerts import send_daily_digest
 from fleet.services.dashboard import readings_by_route, risk_mix, spares_by_month, weekly_workload
@@ -294,6 +294,12 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     unread = make_fitted_capacitor(motor=make_motor(site=there, asset_tag="THERE-0002"))
     make_reading(unread, taken_at=timezone.make_aware(dt.datetime(2026, 7, 1, 9)))
     stored_assessment(unread, "sound", None)
+    gone = make_fitted_capacitor(motor=make_motor(site=here, asset_tag="HERE-0003"))
+    make_reading(gone, taken_at=timezone.now() - dt.timedelta(days=3))
+    stored_assessment(gone, "replace now", TODAY)
+    FittedCapacitor.objects.filter(pk=gone.pk).update(
+        removed_on=TODAY, removal_reason=FittedCapacitor.RemovalReason.PLANNED
+    )
 
     assert send_daily_digest(today=TODAY) == {"new": 2, "ended": 0, "emails": 2}
     by_recipient = {message.to[0]: message for message in mail.outbox}
@@ -306,6 +312,7 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     assert "charge that can kill" in full
     assert "1 to replace now, 1 reading overdue" in by_recipient["all@example.org"].subject
     assert "HERE-0001" not in by_recipient["there@example.org"].body  # another site's capacitor
+    assert "HERE-0003" not in full  # removed since its assessment: out of service, not reported
     assert no_address.email == ""
 
     assert send_daily_digest(today=TODAY) == {"new": 0, "ended": 0, "emails": 0}  # the same day again

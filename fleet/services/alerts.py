@@ -18,7 +18,7 @@ from fleet.engineering.planning import RISK_ORDER
 from fleet.models import DigestEntry
 from fleet.roles import PLANNER, visible_site_ids
 from fleet.services.dashboard import overdue_capacitors
-from fleet.services.pages import READING_INTERVAL_DAYS, current_assessments, overdue_before
+from fleet.services.pages import READING_INTERVAL_DAYS, in_service_assessments, overdue_before
 
 TOP_RISK = RISK_ORDER[0]
 CAUTION = (
@@ -37,8 +37,8 @@ def current_conditions(today: dt.date) -> dict[tuple[str, int], dict]:
     with its site, the line for the digest and the reason (two queries)."""
     conditions = {}
     for row in (
-        current_assessments()
-        .filter(fitted_capacitor__removed_on__isnull=True, risk=TOP_RISK)
+        in_service_assessments()
+        .filter(risk=TOP_RISK)
         .values(
             "fitted_capacitor_id",
             "fitted_capacitor__role",
