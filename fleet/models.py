@@ -943,6 +943,20 @@ class PartPrior(models.Model):
         blank=True,
         help_text="Median measured capacitor voltage / rated, for capacitors never read in circuit",
     )
+    stress_rate = models.FloatField(
+        null=True,
+        blank=True,
+        help_text="Typical long-run stress hours per calendar hour of the part's capacitors read over a year: "
+        "a young capacitor's future runs mostly at it",
+    )
+    stress_rate_log_var = models.FloatField(
+        null=True, blank=True, help_text="Variance of the log long-run stress rates between the part's capacitors"
+    )
+    reading_log_var = models.FloatField(
+        null=True,
+        blank=True,
+        help_text="Variance of a reading's log ageing factor about its capacitor's mean (seasons, day, duty)",
+    )
     bend_slope_mean = models.FloatField(
         default=0.0, help_text="Mean of the capacitors' own slopes at their readings' centre, per stress hour"
     )

@@ -373,3 +373,30 @@ def test_the_back_test_counts_a_start_capacitor_read_below_its_limit_as_crossed(
     rows = {row["cutoff"]: row for row in backtest.results["cutoffs"]}
     assert set(rows) == {"2026-01-01", "2026-04-01"}
     assert [rows[cutoff]["default"]["crossed"] for cutoff in sorted(rows)] == [1, 1]
+
+
+@pytest.mark.django_db
+def test_a_new_capacitor_refitted_alone_runs_at_its_parts_stored_stress_rate():
+    """A capacitor read once has no year of seasons: refitted alone after its first reading (the reading
+    form's refit), its rate is drawn towards its part's stored typical rate from that of its one cool
+    reading (2^((22 - 40) / 10) = 0.29 by the 10-K rule [trade]), and its band carries the rest."""
+    part = make_part(dielectric="electrolytic", rated_uf=100.0, tolerance_minus_pct=10, rated_voltage_v=330)
+    for k in range(6):  # read for a year and a half at 30-40 C case, the seasons swinging
+        fitted_capacitor = make_fitted_capacitor(part=part, role="start", fitted_on=dt.date(2022, 1, 1))
+        for quarter in range(7):
+            make_reading(
+                fitted_capacitor,
+                taken_at=START + dt.timedelta(days=91 * quarter),
+                capacitance_uf=103.0 - 0.4 * quarter - 0.1 * k,
+                case_temperature_c=30.0 + 2 * k + 6.0 * math.sin(quarter * math.pi / 2),
+            )
+    refresh_part_priors()
+    prior = PartPrior.objects.get(part=part)
+    assert 0.35 < prior.stress_rate < 1.0 and prior.stress_rate_log_var > 0 and prior.reading_log_var > 0
+    new = make_fitted_capacitor(part=part, role="start", fitted_on=(START + dt.timedelta(days=640)).date())
+    make_reading(new, taken_at=START + dt.timedelta(days=640), capacitance_uf=103.5, case_temperature_c=22.0)
+    refit_fitted_capacitors([new.id], now=START + dt.timedelta(days=641))
+    assessment = Assessment.objects.get(fitted_capacitor=new, is_current=True)
+    cool = 2 ** ((22.0 - 40.0) / 10.0)
+    assert 1.25 * cool < assessment.stress_rate < prior.stress_rate  # the stored figures weigh the one reading
+    assert assessment.trend_var_slope > prior.slope_var  # the part's spread of slopes and of rates

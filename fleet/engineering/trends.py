@@ -9,12 +9,15 @@ Method (degradation-path analysis, Meeker and Escobar 1998 ch. 13, from memory):
    acceleration factor of the interval's case temperature and capacitor voltage.
    The future is projected at the long-run stress rate (the trailing year, or
    the whole life if shorter), not the last interval's: quarterly readings
-   follow the seasons. A capacitor never read in circuit is taken at its part's
-   median measured voltage ratio, not at its rating.
+   follow the seasons; a capacitor whose readings have not yet sampled the
+   seasons is drawn towards its part's typical rate, with what is still
+   unknown of its rate in its band (`_borrowed_stress_rate`). A capacitor never read
+   in circuit is taken at its part's median measured voltage ratio, not at its rating.
 3. Each capacitor's path z = b0 + b1 tau (z = C/C_rated, or its log for the
    log-linear model) is fitted as a Bayesian linear regression whose prior is its
    part's population of paths (empirical Bayes: the prior mean and spread are
-   estimated from the capacitors of that part with enough readings). A capacitor
+   estimated from the capacitors of that part with enough readings, or of its
+   dielectric where the part has too few). A capacitor
    with one or two readings thus gets its part's slope, and says so. Readings
    are discounted with age (weight halving every `recency_half_life_h`): ageing
    paths accelerate late in life, so the recent slope is the one to project.
@@ -115,6 +118,9 @@ class PartPriors:
     curvature_var: np.ndarray | None = None  # its variance between the part's capacitors
     slope_per_age: np.ndarray | None = None  # change of the prior slope b1 per stress hour of mean age
     voltage_ratio: np.ndarray | None = None  # median measured capacitor voltage / rated (nan: none measured)
+    stress_rate: np.ndarray | None = None  # typical long-run stress rate of the part's capacitors (nan: none known)
+    stress_rate_log_var: np.ndarray | None = None  # variance of their log rates between capacitors
+    reading_log_var: np.ndarray | None = None  # variance of a reading's log ageing factor within a capacitor
     bend_slope_mean: np.ndarray | None = None  # mean of the capacitors' own slopes at their readings' centre
     bend_slope_var: np.ndarray | None = None  # their variance between capacitors
     bend_slope_cov: np.ndarray | None = None  # covariance of the bend with that slope between capacitors
@@ -163,6 +169,20 @@ class TrendFit:
             return np.where(self.model == MODEL_LOG, np.log(fraction), fraction)
 
 
+def reading_factors(temperature_c, voltage_v, rated_voltage_v, settings):
+    """The ageing factor at each reading (section 1's acceleration), clipped to 1e-3..1e3 so a wild
+    reading cannot make the stress time non-finite."""
+    factor = acceleration_factor(
+        temperature_c,
+        voltage_v,
+        settings.reference_temperature_c,
+        rated_voltage_v,
+        settings.doubling_k,
+        settings.voltage_exponent,
+    )
+    return np.clip(np.nan_to_num(factor, nan=1.0, posinf=1e3), 1e-3, 1e3)
+
+
 def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_groups, settings):
     """Cumulative stress-equivalent hours per reading, and each capacitor's
     long-run stress rate; input sorted by group, time.
@@ -174,15 +194,7 @@ def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_gro
     the last quarter's interval alone is not. Factors are clipped to 1e-3..1e3 so
     a wild reading cannot make the stress time non-finite.
     """
-    factor = acceleration_factor(
-        temperature_c,
-        voltage_v,
-        settings.reference_temperature_c,
-        rated_voltage_v,
-        settings.doubling_k,
-        settings.voltage_exponent,
-    )
-    factor = np.clip(np.nan_to_num(factor, nan=1.0, posinf=1e3), 1e-3, 1e3)
+    factor = reading_factors(temperature_c, voltage_v, rated_voltage_v, settings)
     first = np.r_[True, group[1:] != group[:-1]]
     previous_time = np.where(first, 0.0, np.r_[0.0, time_h[:-1]])
     previous_factor = np.where(first, factor, np.r_[factor[:1], factor[:-1]])
@@ -210,6 +222,93 @@ def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_gro
         last_factor[group[last_index]] = factor[last_index]
         rate = np.where(span > 0, long_run, last_factor)
     return tau, rate
+
+
+def _borrowed_stress_rate(g, t, rate, log_factor, part, n_groups, n_parts, part_family, settings, stored=None):
+    """Each capacitor's long-run stress rate, a young one's drawn towards its part's.
+
+    A capacitor's own rate is a mean over the seasons once its readings have sampled them all: four
+    quarterly readings, spanning two thirds of the trailing `projection_window_h` or more (rounds
+    come early or late). Before, the mean ageing factor of its k readings samples a season or two,
+    each reading's log factor off the capacitor's long-run log rate with the within-capacitor
+    variance s2 (the seasons, the day, the motor running or stopped), and the log mean factors of its
+    part's capacitors read for a whole year spread about their median m with the between-capacitor
+    variance p2. Its log rate is the normal-normal posterior mean (k / s2 own + m / p2) /
+    (k / s2 + 1 / p2), and 1 / (k / s2 + 1 / p2) the variance still unknown (empirical Bayes, as for
+    the slopes; ours): one reading counts for little where the seasons swing more than the part's
+    capacitors differ, for much where they differ more. `log_factor`: each reading's log ageing
+    factor. The three figures (`stored`: m as a rate, p2, s2; or estimated here) are over the part's
+    capacitors read for a whole year: the median and a robust variance, (1.4826 MAD)^2, of their log
+    mean factors (three or more), and the pooled variance of their readings' log factors about each
+    one's mean; a part without them takes its family's (`part_family`, the dielectric), and with none
+    there either (nan) each capacitor keeps its own. Input sorted by group, time. Returns per
+    capacitor the rate and the variance of its log still unknown; per part the three figures.
+    """
+    window = settings.projection_window_h
+    first = np.full(n_groups, np.inf)
+    newest = np.full(n_groups, -np.inf)
+    np.minimum.at(first, g, t)
+    np.maximum.at(newest, g, t)
+    count = np.bincount(g, minlength=n_groups).astype(float)
+    whole = ~(newest - first < 2.0 / 3.0 * window)  # a capacitor without readings keeps its own (1.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        own_mean = np.bincount(g, weights=np.exp(log_factor), minlength=n_groups) / count  # its readings' mean
+    if stored is not None:
+        part_rate, between, within = (_stored(values, n_parts, fill=np.nan) for values in stored)
+    else:
+        family = part_family[part]
+        n_families = int(part_family.max(initial=0)) + 1
+        log_rate = np.log(np.where(whole, own_mean, np.nan))
+        mean_log = np.bincount(g, weights=log_factor, minlength=n_groups) / np.maximum(count, 1.0)
+        squares = np.bincount(g, weights=(log_factor - mean_log[g]) ** 2, minlength=n_groups)
+        dof = np.where(whole & (count >= 2), count - 1.0, 0.0)
+
+        def pooled(index, n_bins):
+            with np.errstate(invalid="ignore", divide="ignore"):
+                return np.bincount(index, weights=np.where(dof > 0, squares, 0.0), minlength=n_bins) / np.bincount(
+                    index, weights=dof, minlength=n_bins
+                )
+
+        part_log_rate, between = _median_and_spread(part, log_rate, n_parts)
+        family_log_rate, family_between = _median_and_spread(family, log_rate, n_families)
+        within, family_within = pooled(part, n_parts), pooled(family, n_families)
+        own_figures = np.isfinite(part_log_rate) & np.isfinite(between) & np.isfinite(within) & (within > 0)
+        part_rate = np.exp(np.where(own_figures, part_log_rate, family_log_rate[part_family]))
+        between = np.where(own_figures, between, family_between[part_family])
+        within = np.where(own_figures, within, family_within[part_family])
+    m, p2, s2 = (values[part] if n_groups else np.zeros(0) for values in (np.log(part_rate), between, within))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        precision = count / s2 + 1.0 / np.maximum(p2, 1e-12)
+        blended = np.exp((count / s2 * np.log(own_mean) + m / np.maximum(p2, 1e-12)) / precision)
+    young = ~whole & np.isfinite(blended) & (blended > 0) & np.isfinite(precision)
+    return np.where(young, blended, rate), np.where(young, 1.0 / precision, 0.0), part_rate, between, within
+
+
+def _with_rate_spread(covariance, slope_now, tau_now, rate_log_var):
+    """The path's covariance with the spread of a borrowed stress rate (`_borrowed_stress_rate`).
+
+    Projected at a rate r (1 + e) instead of r, a path of slope s moves s e more per stress hour ahead
+    of the newest reading: a slope variance s^2 var(e) pivoting there (b0 takes tau_now^2 of it and
+    (b0, b1) -tau_now), so the band widens ahead by the part's spread of rates, and not at the readings.
+    """
+    rate_log_var = np.asarray(rate_log_var, float)
+    with np.errstate(invalid="ignore", over="ignore"):
+        added = np.where(rate_log_var > 0, rate_log_var * np.asarray(slope_now, float) ** 2, 0.0)
+    pivot = np.stack(
+        [np.stack([tau_now**2, -tau_now], axis=-1), np.stack([-tau_now, np.ones_like(tau_now)], axis=-1)], axis=-2
+    )
+    return covariance + added[:, None, None] * pivot
+
+
+def _median_and_spread(index, values, n_bins):
+    """Per bin, the median of the finite values and a robust variance, (1.4826 MAD)^2, from three or more."""
+    known = np.isfinite(values)
+    series = pd.Series(values[known]).groupby(np.asarray(index)[known])
+    median = series.median().reindex(range(n_bins)).to_numpy(float)
+    deviation = pd.Series(np.abs(values[known] - median[np.asarray(index)[known]])).groupby(np.asarray(index)[known])
+    mad = deviation.median().reindex(range(n_bins)).to_numpy(float)
+    count = series.size().reindex(range(n_bins)).fillna(0).to_numpy(float)
+    return median, np.where(count >= 3, (1.4826 * mad) ** 2, np.nan)
 
 
 def _fill_per_group(group, values, n_groups):
@@ -312,15 +411,8 @@ def fit_trends(
         part_voltage_ratio = _part_median(part[g], voltage_ratio, n_parts)
     # A capacitor never read in circuit runs at its part's typical voltage, not at the rated one.
     voltage_ratio = np.where(np.isfinite(voltage_ratio), voltage_ratio, part_voltage_ratio[part][g])
-    tau, rate = stress_hours(
-        g,
-        t,
-        _fill_per_group(g, temperature, n_groups),
-        voltage_ratio * rated_v,
-        rated_v,
-        n_groups,
-        settings,
-    )
+    case_temperature = _fill_per_group(g, temperature, n_groups)
+    tau, rate = stress_hours(g, t, case_temperature, voltage_ratio * rated_v, rated_v, n_groups, settings)
     keep = np.ones(len(g), bool) if excluded is None else ~np.asarray(excluded, bool)[order]
     keep &= np.isfinite(raw_fraction) & (raw_fraction > 0.05) & (raw_fraction < 3.0) & np.isfinite(t)
     if priors is not None:
@@ -346,8 +438,22 @@ def fit_trends(
     if straight_per_capacitor is not None and n_groups:
         straight_part[part[np.asarray(straight_per_capacitor, bool)]] = True
     conditional_part = np.zeros(n_parts, bool)
+    part_family = np.zeros(n_parts, np.int64)
     if dielectric is not None and n_groups:
         conditional_part[part[np.isin(np.asarray(dielectric), settings.bend_given_slope_dielectrics)]] = True
+        part_family[part] = np.unique(np.asarray(dielectric).astype(str), return_inverse=True)[1]
+    rate, rate_log_var, part_rate, part_rate_log_var, part_reading_log_var = _borrowed_stress_rate(
+        g,
+        t,
+        rate,
+        np.log(reading_factors(case_temperature, voltage_ratio * rated_v, rated_v, settings)),
+        part,
+        n_groups,
+        n_parts,
+        part_family,
+        settings,
+        None if priors is None else (priors.stress_rate, priors.stress_rate_log_var, priors.reading_log_var),
+    )
     fits = {}
     wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}
     for model in (MODEL_LINEAR, MODEL_LOG):
@@ -369,6 +475,7 @@ def fit_trends(
             priors,
             straight_part,
             conditional_part,
+            part_family,
         )
     if priors is not None:
         chosen = np.asarray(priors.model)
@@ -401,6 +508,7 @@ def fit_trends(
     tau_now = np.zeros(n_groups)
     tau_now[g[last]] = tau[last]
     curvature = pick("bend")
+    cov = _with_rate_spread(cov, slope + 2.0 * curvature * tau_now, tau_now, rate_log_var)
     z_now = intercept + slope * tau_now + curvature * tau_now**2
     fraction_now = np.where(use_log, np.exp(z_now), z_now)
     readings_used = np.bincount(g, weights=used.astype(float), minlength=n_groups).astype(int)
@@ -434,6 +542,9 @@ def fit_trends(
             curvature_var=pick("curvature_var_part", "part"),
             slope_per_age=pick("slope_per_age", "part"),
             voltage_ratio=part_voltage_ratio,
+            stress_rate=part_rate,
+            stress_rate_log_var=part_rate_log_var,
+            reading_log_var=part_reading_log_var,
             bend_slope_mean=pick("bend_slope_mean", "part"),
             bend_slope_var=pick("bend_slope_var", "part"),
             bend_slope_cov=pick("bend_slope_cov", "part"),
@@ -457,11 +568,13 @@ def _fit_model(
     priors=None,
     straight_part=None,
     conditional_part=None,
+    part_family=None,
 ):
     """One model (linear or log-linear) for the fleet: prior, posterior, flags.
 
     Parts marked in `straight_part` get no bend: neither the part's nor their capacitors' own.
     Parts marked in `conditional_part` condition each capacitor's prior bend on its own slope.
+    `part_family` (per part): the family a part with few capacitors borrows its population from.
 
     A reading of recency weight w counts as one of variance sigma^2 / w
     (weighted least squares), in the population estimates and the posterior alike.
@@ -514,6 +627,7 @@ def _fit_model(
             floor=1e-6,
             default_mean=0.0 if is_log else 1.0,
             default_var=0.05**2,
+            family=part_family,
         )
         with np.errstate(invalid="ignore", divide="ignore"):
             age = np.where(n > 0, sx / np.where(n > 0, n, 1.0), 0.0)
@@ -522,7 +636,9 @@ def _fit_model(
             prior_mean1, prior_var1 = np.asarray(priors.slope_mean), np.asarray(priors.slope_var)
             slope_per_age = _stored(priors.slope_per_age, n_parts)
         else:
-            prior_mean1, prior_var1, slope_per_age = _slope_prior(part, n_parts, b1_ols, se_b1, rich, age, settings)
+            prior_mean1, prior_var1, slope_per_age = _slope_prior(
+                part, n_parts, b1_ols, se_b1, rich, age, settings, part_family
+            )
         # Posterior per capacitor: precision = prior precision + X'X / sigma^2.
         s2 = noise_var[part]
         slope_prior_mean = prior_mean1[part] + slope_per_age[part] * age
@@ -719,7 +835,7 @@ def _stored(values, n_parts: int, fill: float = 0.0) -> np.ndarray:
     return np.where(np.isfinite(values), values, fill)
 
 
-def _slope_prior(part, n_parts, slope, sampling_var, rich, age, settings):
+def _slope_prior(part, n_parts, slope, sampling_var, rich, age, settings, family=None):
     """The part's population of slopes b1, with the readings' mean stress age as a covariate.
 
     b1 (the slope at tau = 0 once the part's bend is taken out) is extrapolated
@@ -731,7 +847,9 @@ def _slope_prior(part, n_parts, slope, sampling_var, rich, age, settings):
     (weights 1 / (sampling + between-capacitor variance)), shrunk towards none by
     its standard error (positive-part James-Stein), then a and the variance
     about the line by DerSimonian-Laird. A young capacitor's slope is thus its
-    part's young capacitors' slope. Returns (a, variance, beta) per part.
+    part's young capacitors' slope. A part with fewer than five capacitors takes
+    its family's line and moments (`family`, per part; `_part_moments`).
+    Returns (a, variance, beta) per part.
     """
     _, between = _part_moments(
         part,
@@ -742,20 +860,31 @@ def _slope_prior(part, n_parts, slope, sampling_var, rich, age, settings):
         floor=settings.slope_prior_sd_floor**2,
         default_mean=0.0,
         default_var=1e-5**2,
+        family=family,
     )
     weight = np.where(rich, 1.0 / (np.where(rich, sampling_var, 1.0) + between[part]), 0.0)
     y = np.where(rich, slope, 0.0)
 
-    def s(values):
-        return np.bincount(part, weights=weight * values, minlength=n_parts)
+    def line(index, n_bins):
+        """The shrunk slope of b1 on age per bin, zero for a bin of fewer than five capacitors."""
 
-    sw, swx, swy, swxx, swxy = s(np.ones(len(part))), s(age), s(y), s(age * age), s(age * y)
-    count = np.bincount(part, weights=rich.astype(float), minlength=n_parts)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        spread = swxx - swx * swx / sw
-        beta = (swxy - swx * swy / sw) / spread
-        beta = beta * np.maximum(1.0 - 4.0 / (spread * beta * beta), 0.0)
-    beta = np.where((count >= 5) & np.isfinite(beta), beta, 0.0)
+        def s(values):
+            return np.bincount(index, weights=weight * values, minlength=n_bins)
+
+        sw, swx, swy, swxx, swxy = s(np.ones(len(index))), s(age), s(y), s(age * age), s(age * y)
+        count = np.bincount(index, weights=rich.astype(float), minlength=n_bins)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            spread = swxx - swx * swx / sw
+            beta = (swxy - swx * swy / sw) / spread
+            beta = beta * np.maximum(1.0 - 4.0 / (spread * beta * beta), 0.0)
+        return np.where((count >= 5) & np.isfinite(beta), beta, 0.0), count
+
+    beta, count = line(part, n_parts)
+    if family is not None and n_parts:
+        # A part with too few capacitors of its own borrows its family's line, as it borrows its moments.
+        family = np.asarray(family, np.int64)
+        family_beta, family_count = line(family[part], int(family.max()) + 1)
+        beta = np.where((count < 5) & (family_count[family] >= 5), family_beta[family], beta)
     mean, variance = _part_moments(
         part,
         n_parts,
@@ -765,6 +894,7 @@ def _slope_prior(part, n_parts, slope, sampling_var, rich, age, settings):
         floor=settings.slope_prior_sd_floor**2,
         default_mean=0.0,
         default_var=1e-5**2,
+        family=family,
     )
     return mean, variance, beta
 
@@ -810,15 +940,17 @@ def _estimate_tempco(g, part, tau, raw_fraction, temperature, keep, n_groups, n_
     return np.where(fixed | ~usable, default_ppm, posterior * 1e6)
 
 
-def _part_moments(part, n_parts, estimate, sampling_var, rich, floor, default_mean, default_var):
+def _part_moments(part, n_parts, estimate, sampling_var, rich, floor, default_mean, default_var, family=None):
     """Population mean and between-capacitor variance of an estimate, per part.
 
     DerSimonian-Laird: with weights w = 1/se^2, Q = sum w (b - b_w)^2 and
     tau^2 = (Q - (k - 1)) / (sum w - sum w^2 / sum w), never below `floor`; the
     mean is then re-weighted by 1/(se^2 + tau^2). It copes with sampling errors
     that differ a hundredfold between capacitors with 3 and 12 readings. Parts
-    with fewer than five rich capacitors borrow the fleet's figures; a fleet with
-    fewer than two falls back to the broad defaults.
+    with fewer than five rich capacitors borrow their family's figures (`family`,
+    per part: the dielectric; an electrolytic start capacitor's ageing is not a
+    film run capacitor's) where it has five, else the fleet's; a fleet with fewer
+    than two falls back to the broad defaults.
     """
 
     def pooled(index, n_bins):
@@ -843,8 +975,15 @@ def _part_moments(part, n_parts, estimate, sampling_var, rich, floor, default_me
         fleet_mean, fleet_var = fleet_mean[0], fleet_tau2[0]
     else:
         fleet_mean, fleet_var = default_mean, default_var
+    borrowed_mean, borrowed_var = np.full(n_parts, fleet_mean), np.full(n_parts, fleet_var)
+    if family is not None and n_parts:
+        family = np.asarray(family, np.int64)
+        family_mean, family_tau2, family_count = pooled(family[part], int(family.max()) + 1)
+        own_family = family_count[family] >= 5
+        borrowed_mean = np.where(own_family, family_mean[family], borrowed_mean)
+        borrowed_var = np.where(own_family, family_tau2[family], borrowed_var)
     enough = count >= 5
-    return np.where(enough, mean, fleet_mean), np.maximum(np.where(enough, tau2, fleet_var), floor)
+    return np.where(enough, mean, borrowed_mean), np.maximum(np.where(enough, tau2, borrowed_var), floor)
 
 
 def crossing_quantiles(fit: TrendFit, limit_fraction, probabilities=(0.1, 0.5, 0.9)):

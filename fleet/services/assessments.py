@@ -169,6 +169,16 @@ def _finite_prior_rows(fit: TrendFit, parts) -> list[PartPrior]:
             voltage_ratio=_finite_or_none(np.broadcast_to(np.asarray(priors.voltage_ratio, float), (len(parts),))[i])
             if priors.voltage_ratio is not None
             else None,
+            **{
+                field: _finite_or_none(np.broadcast_to(np.asarray(values, float), (len(parts),))[i])
+                if values is not None
+                else None
+                for field, values in (
+                    ("stress_rate", priors.stress_rate),
+                    ("stress_rate_log_var", priors.stress_rate_log_var),
+                    ("reading_log_var", priors.reading_log_var),
+                )
+            },
         )
         for i, part_id in enumerate(parts)
         if finite[i]
@@ -229,6 +239,10 @@ def _stored_priors(part_ids) -> PartPriors:
         bend_slope_var=frame["bend_slope_var"].to_numpy(float),
         bend_slope_cov=frame["bend_slope_cov"].to_numpy(float),
         voltage_ratio=frame["voltage_ratio"].to_numpy(float) if "voltage_ratio" in frame else None,
+        **{
+            name: frame[name].to_numpy(float) if name in frame else None
+            for name in ("stress_rate", "stress_rate_log_var", "reading_log_var")
+        },
     )
 
 
