@@ -11,7 +11,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('fleet', '0046_newest_reading_without_index'),
+        ('fleet', '0047_assessment_drop_current_risk_index'),
     ]
 
     operations = [
