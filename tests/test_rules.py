@@ -211,6 +211,29 @@ def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_fit
     assert Reading.objects.get().outlier_confirmed
 
 
+def test_a_case_temperature_in_fahrenheit_asks_for_confirmation_everywhere(client, technician, fan_fitted_capacitor):
+    """100 °F (38 °C) typed as 100 °C would age the capacitor about 70 times over the stress clock's interval.
+    Above the part's highest case temperature (70 °C by default, its IEC 60252-1 category) by more than
+    10 K the form and the API ask to confirm, and the import refuses the row (it cannot confirm)."""
+    client.force_login(technician)
+    hot = {"capacitance_uf": "3.95", "case_temperature_c": "100"}
+    response = form_post(client, fan_fitted_capacitor, **hot)
+    assert "in °F it would be 38 °C" in response.content.decode() and not Reading.objects.exists()
+    api = api_for(technician).post(
+        reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id]),
+        {"method": "meter", "capacitance_uf": 3.95, "case_temperature_c": 100},
+        format="json",
+    )
+    # As every confirmation: 409, the reasons by field, "confirmed": true to keep the value.
+    assert api.status_code == 409 and "highest case temperature of 70 °C" in str(api.json())
+    result = import_check([import_row(fan_fitted_capacitor, case_temperature_c="100")])
+    assert [(f, "°F" in m) for _, f, m in result.errors] == [("case_temperature_c", True)]
+    # Within the margin, or confirmed as a hot capacitor, the value is kept.
+    assert form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", case_temperature_c="79").status_code == 302
+    assert form_post(client, fan_fitted_capacitor, **hot, confirmed="on").status_code == 302
+    assert sorted(Reading.objects.values_list("case_temperature_c", flat=True)) == [79.0, 100.0]
+
+
 # medium: DELETE of a reading; a removal date earlier than readings
 
 

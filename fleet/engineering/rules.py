@@ -88,6 +88,10 @@ class ReadingRules:
     short_circuit_fraction: float = 0.05
     # Off the fitted trend by more than this fraction of the rating: confirm or re-measure (trade).
     off_trend_fraction: float = 0.08
+    # A case this far above the highest case temperature marked on the part (its IEC 60252-1 category) is
+    # a capacitor overheating, or a thermometer set to °F (100 °F, 38 °C, typed as 100 °C): confirm. Unconfirmed,
+    # it would age the capacitor 2^(62/10), about 70 times, over the stress clock's interval (ours).
+    case_over_rating_k: float = 10.0
     # A capacitance this many times the rating was typed in nanofarads, or in millifarads; more than
     # `wrong_capacitor_ratio` times it is not this capacitor (common practice of the trade, no single source).
     nanofarad_ratio: tuple = (300.0, 3000.0)
@@ -665,6 +669,7 @@ def _check_readings(
     condition=None,
     notes=None,
     predicted_uf=None,
+    max_case_temperature_c=None,
     confirmed=False,
     rules: ReadingRules = RULES,
 ) -> RuleResult:
@@ -763,6 +768,23 @@ def _check_readings(
                 v=v,
                 k=rules.voltage_confirm_factor,
                 s=supply,
+            ),
+        )
+
+    if max_case_temperature_c is not None:
+        case = values["case_temperature_c"]
+        highest = _column(max_case_temperature_c, n)
+        hot = (case > highest + rules.case_over_rating_k) & ~errors.has("case_temperature_c")
+        confirm.add(
+            "case_temperature_c",
+            hot,
+            _messages(
+                hot,
+                "{t:g} °C is above this capacitor's highest case temperature of {m:g} °C; read in °F it would be "
+                "{c:.0f} °C. Re-measure in °C, or confirm the value if the capacitor is that hot",
+                t=case,
+                m=highest,
+                c=(case - 32.0) * 5.0 / 9.0,
             ),
         )
 

@@ -99,6 +99,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         taken_on=local_days([_utc64(taken_at)], [zone.key]),
         now=_utc64(now),
         predicted_uf=assessment.capacitance_now_uf if assessment else np.nan,
+        max_case_temperature_c=part.max_case_temperature_c,
         confirmed=confirmed,
     )
     errors = {name: _sentence(message) for name, message in result.row(0).items()}

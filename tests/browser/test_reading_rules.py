@@ -64,6 +64,19 @@ def test_the_hint_warns_of_a_voltage_far_above_the_motors(phone, motor_with_hist
     assert phone.is_visible("text=missed decimal point")
 
 
+def test_the_hint_names_a_case_temperature_that_reads_as_fahrenheit(phone, motor_with_history):  # noqa: F811
+    """As the server: above the part's highest case temperature by more than the rulebook's margin, the
+    hint says what the value would be in °F and that the server will ask to confirm."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.95")
+    phone.fill("#id_case_temperature_c", "100")
+    hint = phone.locator("#computed").inner_text()
+    assert "read in °F it would be 38 °C: you will be asked to confirm" in hint
+    phone.fill("#id_case_temperature_c", "38")
+    assert "°F" not in phone.locator("#computed").inner_text()
+
+
 def test_the_same_page_sent_twice_saves_one_reading(phone, motor_with_history):  # noqa: F811
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
