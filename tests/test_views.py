@@ -202,6 +202,23 @@ def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, 
     assert Reading.objects.filter(outlier_confirmed=True, capacitance_uf=3.3).exists()
 
 
+def test_a_value_jumped_back_to_the_rating_asks_whether_the_capacitor_was_changed(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """A worn capacitor that suddenly reads its rating was most often changed and not recorded: the
+    confirmation says to record the replacement instead (confirmed, the new capacitor's value would
+    bend the old one's trend); a value far below the trend does not say so."""
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [3.66, 3.63, 3.6])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
+    client = signed_in(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    jumped = client.post(url, {"method": "meter", "capacitance_uf": "4.01", "condition": "sound"}).content.decode()
+    assert "far from this capacitor&#x27;s trend" in jumped and "record the replacement instead" in jumped
+    fell = client.post(url, {"method": "meter", "capacitance_uf": "3.1", "condition": "sound"}).content.decode()
+    assert "far from this capacitor&#x27;s trend" in fell and "record the replacement" not in fell
+    assert Reading.objects.count() == 3
+
+
 def test_planner_cannot_log_readings_and_technician_cannot_start_a_refit(
     signed_in, planner, technician, fan_fitted_capacitor
 ):

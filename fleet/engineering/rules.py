@@ -796,6 +796,9 @@ def _check_readings(
     if predicted_uf is not None:
         drift = off_trend(values["capacitance_uf"], _column(predicted_uf, n), rated, rules.off_trend_fraction)
         predicted = _column(predicted_uf, n)
+        # A capacitance that jumped up towards the rating is most often a capacitor changed and not recorded:
+        # confirmed as a reading, the new capacitor's value would bend the old one's trend (trade).
+        jumped = drift & (values["capacitance_uf"] > predicted)
         confirm.add(
             "capacitance_uf",
             drift,
@@ -805,6 +808,11 @@ def _check_readings(
                 "is right",
                 c=values["capacitance_uf"],
                 p=predicted,
+            )
+            + np.where(
+                jumped,
+                ". If the capacitor was changed, record the replacement instead: the new one starts its own trend",
+                "",
             ),
         )
     confirmed = _column(confirmed, n, bool)
