@@ -109,7 +109,7 @@ def test_readings_round_trip_with_awkward_text(client, awkward_fleet, file_forma
         assert row["capacitance_uf"] == reading.capacitance_uf and isinstance(row["capacitance_uf"], int | float)
         assert row["case_temperature_c"] == reading.case_temperature_c and row["esr_ohm"] is None
         assert _same_time(row["taken_at"], reading.taken_at)
-        assert row["outlier_confirmed"] is False and row["source"] == "demo"
+        assert row["confirmed"] is False and row["source"] == "demo"
     assert {row["notes"] for row in rows} == set(AWKWARD)
 
 

@@ -60,6 +60,17 @@ def run(*args):
     return out.getvalue()
 
 
+def export_imported_again_adds_nothing(tmp_path, client, rows: int) -> None:
+    """The readings export, as CSV and as XLSX, checked by the import: every row already there."""
+    for fmt in ("csv", "xlsx"):
+        path = tmp_path / f"export.{fmt}"
+        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
+        report = io.StringIO()
+        with pytest.raises(CommandError, match="nothing would be imported"):
+            call_command("import", "readings", str(path), "--dry-run", stdout=report)
+        assert f": {rows} rows: 0 good, {rows} already imported, 0 with problems." in report.getvalue(), fmt
+
+
 def migrate_all(tmp_path):
     for kind, text in (
         ("sites", SITES),
@@ -472,13 +483,7 @@ def test_a_readings_export_imported_again_adds_nothing_as_xlsx_as_as_csv(tmp_pat
     as site time and every reading came in a second time, hours off (the CSV's carry +00:00)."""
     migrate_all(tmp_path)
     client.force_login(engineer)
-    for fmt in ("csv", "xlsx"):
-        path = tmp_path / f"export.{fmt}"
-        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
-        report = io.StringIO()
-        with pytest.raises(CommandError, match="nothing would be imported"):
-            call_command("import", "readings", str(path), "--dry-run", stdout=report)
-        assert ": 2 rows: 0 good, 2 already imported, 0 with problems." in report.getvalue(), fmt
+    export_imported_again_adds_nothing(tmp_path, client, 2)
     assert Reading.objects.count() == 2
 
 
@@ -497,13 +502,7 @@ def test_readings_from_the_form_and_the_api_exported_and_imported_again_add_noth
     record_reading(fitted_capacitor=starter, values={"method": "meter", "capacitance_uf": "101.3"})
     assert Reading.objects.count() == 5
     client.force_login(engineer)
-    for fmt in ("csv", "xlsx"):
-        path = tmp_path / f"export.{fmt}"
-        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
-        report = io.StringIO()
-        with pytest.raises(CommandError, match="nothing would be imported"):
-            call_command("import", "readings", str(path), "--dry-run", stdout=report)
-        assert ": 5 rows: 0 good, 5 already imported, 0 with problems." in report.getvalue(), fmt
+    export_imported_again_adds_nothing(tmp_path, client, 5)
     assert Reading.objects.count() == 5
 
 
@@ -624,13 +623,7 @@ def test_a_readings_export_with_a_replacement_day_reading_imported_again_adds_no
     make_reading(new, taken_at=dt.datetime(2025, 6, 2, 15, 0, tzinfo=madrid), capacitance_uf=8.02, source="form")
     stored = Reading.objects.count()
     client.force_login(engineer)
-    for fmt in ("csv", "xlsx"):
-        path = tmp_path / f"export.{fmt}"
-        path.write_bytes(b"".join(client.get(f"/exports/readings.{fmt}").streaming_content))
-        report = io.StringIO()
-        with pytest.raises(CommandError, match="nothing would be imported"):
-            call_command("import", "readings", str(path), "--dry-run", stdout=report)
-        assert f": {stored} rows: 0 good, {stored} already imported, 0 with problems." in report.getvalue(), fmt
+    export_imported_again_adds_nothing(tmp_path, client, stored)
     # Without the capacitor's id (a file that lost the column) the reading is still known on its position.
     export = (tmp_path / "export.csv").read_text(encoding="utf-8-sig").replace(",fitted_capacitor_id,", ",left_out,")
     with pytest.raises(CommandError, match="Nothing was imported"):
@@ -650,3 +643,23 @@ def test_a_readings_export_with_a_replacement_day_reading_imported_again_adds_no
     assert "row 4, fitted_capacitor_id: not a whole number" in report.getvalue()
     assert Reading.objects.get(capacitance_uf=8.03).fitted_capacitor == new
     assert Reading.objects.count() == stored + 1
+
+
+def test_a_reading_confirmed_off_its_trend_exported_and_imported_again_adds_nothing(tmp_path, client, engineer):
+    """The import now holds a reading to its capacitor's trend as the reading form does: a reading confirmed
+    off the trend on the form came back from its own export refused ("the import cannot confirm it"), as the
+    export's column was not one the import reads. The export writes the import's `confirmed` column."""
+    from fleet.services.assessments import refit_fitted_capacitors
+    from fleet.services.readings import record_reading
+
+    migrate_all(tmp_path)
+    fan = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    refit_fitted_capacitors([fan.id])  # its trend runs through the 7.8 µF reading of 2024-05-04
+    record_reading(fitted_capacitor=fan, values={"method": "meter", "capacitance_uf": "6.1"}, confirmed=True)
+    client.force_login(engineer)
+    export_imported_again_adds_nothing(tmp_path, client, 3)
+    text = "asset_tag,role,taken_at,capacitance_uf\nFAN-1,run,2025-06-02 16:00,6.0\n"
+    report = io.StringIO()
+    with pytest.raises(CommandError):
+        call_command("import", "readings", str(write(tmp_path, "unconfirmed.csv", text)), "--dry-run", stdout=report)
+    assert "row 2, capacitance_uf: 6 µF is far from this capacitor's trend" in report.getvalue()

@@ -428,3 +428,59 @@ def test_no_current_in_circuit_is_named_as_an_open_capacitor_or_a_misplaced_clam
     )
     assert result.errors["capacitor_current_a"][0].startswith("0 A with voltage across the capacitor: the clamp")
     assert result.errors["capacitor_current_a"][1] == ""
+
+
+# high: a tenfold slip came in through the import, which held no reading to the capacitor's trend
+
+
+def test_a_tenfold_slip_off_the_trend_is_refused_by_the_import_unless_its_row_confirms_it():
+    """1.19 µF typed for 11.9 µF on a 12 µF film run capacitor with a trend: the reading form asks to confirm
+    it (more than 8 % of the rating off the trend, `ReadingRules.off_trend_fraction`, common practice of the
+    trade, no single source); the import took it without a word, and the next refit judged the capacitor open.
+    The import now holds the row to the same trend value as the form, and keeps it only when its `confirmed`
+    column says yes."""
+    from fleet.services.import_checks import insert_readings
+    from fleet.services.readings import NeedsConfirmation, check_reading
+
+    fitted = make_fitted_capacitor(part=make_part(rated_uf=12.0))
+    quarterly_readings(fitted, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [11.95, 11.93, 11.92])
+    refit_fitted_capacitors([fitted.id])
+    with pytest.raises(NeedsConfirmation) as asked:
+        check_reading(
+            fitted,
+            {"method": "meter", "capacitance_uf": "1.19", "taken_at": timezone.make_aware(dt.datetime(2025, 3, 1, 9))},
+            confirmed=False,
+        )
+    form_words = asked.value.message_dict["capacitance_uf"][0]
+    result = import_check(
+        [
+            import_row(fitted, taken_at="2025-03-01 09:00", capacitance_uf="1.19"),
+            import_row(fitted, taken_at="2025-03-02 09:00", capacitance_uf="1.19", confirmed="Yes"),
+            import_row(fitted, taken_at="2025-03-03 09:00", capacitance_uf="11.9", confirmed="maybe"),
+            import_row(fitted, taken_at="2025-03-04 09:00", capacitance_uf="11.9", confirmed="0"),
+        ]
+    )
+    assert [(row, field) for row, field, _ in result.errors] == [(2, "capacitance_uf"), (4, "confirmed")]
+    refused = result.errors[0][2]
+    assert refused.startswith(form_words[:1].lower() + form_words[1:]) and "confirmed column says yes" in refused
+    assert result.errors[1][2] == "maybe is not yes or no (true or false, 1 or 0; empty is no)"
+    assert result.good["row"].tolist() == [3, 5]
+    insert_readings(result.good)
+    kept = dict(Reading.objects.filter(source=Reading.Source.IMPORT).values_list("capacitance_uf", "outlier_confirmed"))
+    assert kept == {1.19: True, 11.9: False}
+
+
+def test_an_imported_reading_older_than_the_trends_newest_is_not_held_to_todays_value():
+    """A back-filled reading from before the trend's newest reading was held to today's value: a capacitor that
+    lost 2 µF since would have had every old reading refused ([derived]: the trend's value then is not stored)."""
+    fitted = make_fitted_capacitor(part=make_part(rated_uf=12.0))
+    quarterly_readings(fitted, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [11.0, 10.5, 10.0])
+    refit_fitted_capacitors([fitted.id])
+    result = import_check(
+        [
+            import_row(fitted, taken_at="2023-10-05 09:00", capacitance_uf="12.0"),
+            import_row(fitted, taken_at="2025-03-01 09:00", capacitance_uf="12.0"),
+        ]
+    )
+    assert [(row, field) for row, field, _ in result.errors] == [(3, "capacitance_uf")]
+    assert result.good["row"].tolist() == [2]

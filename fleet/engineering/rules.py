@@ -480,6 +480,18 @@ def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
         return np.isfinite(predicted) & (np.abs(c - predicted) > threshold_fraction * np.asarray(rated_uf, float))
 
 
+def trend_value_held_to(capacitance_now_uf, fitted_through, taken_at) -> np.ndarray:
+    """Per reading, the trend value `off_trend` holds it to (`predicted_uf`): its capacitor's current assessment's
+    capacitance now, the trend at the newest reading it used (`fitted_through`, datetime64 UTC), for a reading
+    taken after that one; nan for a reading taken at or before it (the trend's value then is not stored, so a
+    back-filled reading or a readings export imported again is not held to today's value) or without an
+    assessment (NaT). One rule for the reading form, the API, the admin and the import."""
+    now_uf = np.atleast_1d(np.asarray(capacitance_now_uf, float))
+    through = np.atleast_1d(np.asarray(fitted_through, "datetime64[s]"))
+    taken = np.atleast_1d(np.asarray(taken_at, "datetime64[s]"))
+    return np.where(taken > through, now_uf, np.nan)
+
+
 def _as_objects(raw, n: int | None = None) -> pd.Series:
     """Values as a Series: a text column (an import file's) stays text, anything else becomes objects."""
     if isinstance(raw, pd.Series):

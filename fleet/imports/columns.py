@@ -34,6 +34,9 @@ READING_COLUMNS = {
     "notes": "Free text",
     "fitted_capacitor_id": "The capacitor read, by its id in the readings export (optional: it must be this motor's "
     "capacitor in this role; empty: the one fitted that day)",
+    "confirmed": "yes to keep a value the reading form would ask to confirm (far off the capacitor's trend, a "
+    "voltage far above the motor's, a case far above the part's highest), as re-checked; no or empty: such a row "
+    "is refused (also true/false, 1/0)",
 }
 READING_REQUIRED = ("asset_tag", "role", "taken_at")
 
@@ -141,6 +144,18 @@ def _numbers(chunk, names, problems):
         values[name], messages = parse_numbers(chunk[name])
         problems.add(messages != "", name, messages)
     return values
+
+
+YES_WORDS = ("yes", "true", "1")
+NO_WORDS = ("no", "false", "0", "")
+
+
+def yes_or_no(texts: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """A yes/no column, any case: (yes, unreadable) per row. yes, true or 1 is yes; no, false, 0 or an empty
+    cell is no; anything else is unreadable, for a row-and-field message (never taken as no)."""
+    words = texts.str.strip().str.lower()
+    yes = words.isin(YES_WORDS).to_numpy(bool)
+    return yes, ~(yes | words.isin(NO_WORDS).to_numpy(bool))
 
 
 def text_problems(frame: pd.DataFrame, max_lengths: dict[str, int]) -> _Problems:

@@ -62,7 +62,11 @@ READING_COLUMNS = [
     *(Column(name, *MEASURED[name], source=name) for name in Reading.MEASURED_FIELDS),
     Column("condition", description="sound, bulged, leaking or vented", source="condition"),
     Column(
-        "outlier_confirmed", BOOL, description="Far off the trend, re-checked and confirmed", source="outlier_confirmed"
+        "confirmed",
+        BOOL,
+        description="Far off the trend (or a voltage far above the motor's), re-checked and confirmed: the import's "
+        "confirmed column, so the export imports again",
+        source="outlier_confirmed",
     ),
     Column("supersedes_id", INT, description="The reading this one corrects", source="supersedes_id"),
     Column("source", description="form, api, import or demo", source="source"),

@@ -23,6 +23,7 @@ from fleet.engineering.rules import (
     motor_problems,
     part_problems,
     service_date_problems,
+    trend_value_held_to,
 )
 from fleet.engineering.rules import check_readings as reading_rules
 from fleet.imports.columns import (
@@ -47,8 +48,18 @@ from fleet.imports.columns import (
     parse_times,
     reading_keys,
     repeated_in_file,
+    yes_or_no,
 )
-from fleet.models import CODE_CHARACTERS, CODE_PATTERN, CapacitorPart, FittedCapacitor, Motor, Reading, Site
+from fleet.models import (
+    CODE_CHARACTERS,
+    CODE_PATTERN,
+    Assessment,
+    CapacitorPart,
+    FittedCapacitor,
+    Motor,
+    Reading,
+    Site,
+)
 from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.bulk import insert_frame
 
@@ -175,6 +186,29 @@ def _named_capacitors(
     return np.where(elsewhere, -1, ids)
 
 
+def _trend_values_held_to(fitted_capacitor_ids: pd.Series, taken_utc: np.ndarray) -> np.ndarray:
+    """Per row, the trend value the rulebook holds the reading to, from the current assessments of the
+    capacitors the rows resolved to (NaN: none), as the reading form reads it (`rules.trend_value_held_to`):
+    one query for the chunk."""
+    given = fitted_capacitor_ids.to_numpy(float)
+    ids = np.where(np.isfinite(given), given, -1).astype(np.int64)
+    wanted = np.unique(ids[ids >= 0])
+    current = (
+        Assessment.objects.filter(is_current=True, fitted_capacitor_id__any_of=wanted)
+        .order_by()
+        .values_list("fitted_capacitor_id", "capacitance_now_uf", "fitted_through")
+    )
+    stored = pd.DataFrame.from_records(
+        list(current) if len(wanted) else [],
+        columns=["fitted_capacitor_id", "capacitance_now_uf", "fitted_through"],
+    ).set_index("fitted_capacitor_id")
+    of_row = stored.reindex(ids)
+    through = pd.to_datetime(of_row["fitted_through"], utc=True).dt.tz_localize(None)
+    return trend_value_held_to(
+        of_row["capacitance_now_uf"].to_numpy(float), through.to_numpy("datetime64[s]"), taken_utc
+    )
+
+
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
     """Validate mapped reading rows; resolve each to the capacitor fitted at the time.
 
@@ -231,6 +265,14 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             "taken_at",
             "no capacitor in this role was fitted to this motor on that date",
         )
+        confirmed, unreadable = yes_or_no(chunk["confirmed"])
+        problems.add(
+            unreadable,
+            "confirmed",
+            (chunk["confirmed"].str.slice(0, 20) + " is not yes or no (true or false, 1 or 0; empty is no)").to_numpy(
+                object
+            ),
+        )
         # Every rule of a reading, from the one rulebook the form and the API use.
         result = reading_rules(
             {name: chunk[name] for name in READING_NUMBERS},
@@ -247,11 +289,17 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             taken_at=taken_utc,
             taken_on=taken_on,
             now=now,
+            predicted_uf=_trend_values_held_to(match["fitted_capacitor_id"], taken_utc),
+            confirmed=confirmed,
         )
         for name, messages in result.errors.items():
             problems.add(messages != "", name, messages)
         for name, messages in result.confirm.items():
-            problems.add(messages != "", name, messages + "; the import cannot confirm it: use the reading form")
+            problems.add(
+                messages != "",
+                name,
+                messages + "; the import cannot confirm it unless the row's confirmed column says yes",
+            )
         good = ~problems.bad
         rows = pd.DataFrame(
             {
@@ -262,6 +310,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 "method": result.values["method"][good],
                 "condition": result.values["condition"][good],
                 "notes": result.values["notes"][good],
+                "outlier_confirmed": confirmed[good],
                 **{name: result.values[name][good] for name in READING_NUMBERS},
                 "capacitance_uf": np.round(result.values["capacitance_uf"][good], 4),
             }
@@ -368,6 +417,7 @@ def insert_readings(good: pd.DataFrame) -> list[int]:
             **{name: good[name].to_numpy(float) for name in READING_NUMBERS},
             "condition": good["condition"].to_numpy(object),
             "notes": good["notes"].fillna("").to_numpy(object),
+            "outlier_confirmed": good["outlier_confirmed"].to_numpy(bool),
             "source": Reading.Source.IMPORT.value,
             "import_key": good["import_key"].to_numpy(object),
         }

@@ -14,7 +14,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_update
-from fleet.engineering.rules import AFTER_REMOVAL, check_readings, parse_numbers
+from fleet.engineering.rules import AFTER_REMOVAL, check_readings, parse_numbers, trend_value_held_to
 from fleet.engineering.substitutes import SUITABLE
 from fleet.imports.columns import local_days
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors, site_zone
@@ -98,7 +98,11 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         taken_at=_utc64(taken_at),
         taken_on=local_days([_utc64(taken_at)], [zone.key]),
         now=_utc64(now),
-        predicted_uf=assessment.capacitance_now_uf if assessment else np.nan,
+        predicted_uf=trend_value_held_to(
+            assessment.capacitance_now_uf if assessment else np.nan,
+            _utc64(assessment.fitted_through) if assessment else np.datetime64("NaT", "s"),
+            _utc64(taken_at),
+        ),
         max_case_temperature_c=part.max_case_temperature_c,
         confirmed=confirmed,
     )

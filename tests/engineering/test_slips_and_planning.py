@@ -13,7 +13,7 @@ from fleet.engineering.planning import (
     RISK_WATCH,
     judge,
 )
-from fleet.engineering.rules import capacitance_unit_slip, current_unit_slip, off_trend
+from fleet.engineering.rules import capacitance_unit_slip, current_unit_slip, off_trend, trend_value_held_to
 
 
 def test_nanofarads_typed_for_microfarads_are_named():
@@ -34,6 +34,15 @@ def test_milliamperes_typed_for_amperes_are_named():
 
 def test_off_trend_uses_a_fraction_of_the_rating():
     assert off_trend([3.5, 3.9, 3.8], [3.9, 3.9, np.nan], 4.0).tolist() == [True, False, False]
+
+
+def test_a_reading_is_held_to_the_trend_now_only_when_taken_after_its_newest_reading():
+    """[derived] The stored trend value is the one at the newest reading it used: a later reading is held to
+    it; one taken then or before (back-filled, or an export imported again), or with no assessment, is not."""
+    through = np.array(["2025-06-01T09:00", "2025-06-01T09:00", "2025-06-01T09:00", "NaT"], "datetime64[s]")
+    taken = np.array(["2025-09-01T09:00", "2025-06-01T09:00", "2024-01-01T09:00", "2025-09-01T09:00"], "datetime64[s]")
+    held = trend_value_held_to([11.9, 11.9, 11.9, np.nan], through, taken)
+    assert held[0] == 11.9 and np.isnan(held[1:]).all()
 
 
 def _judge(p10, p50, p90=None, *, evidence=None, latest=None, now=None, limits=(0.94,), today=dt.date(2026, 12, 1)):
