@@ -428,6 +428,7 @@ class CapacitorPart(models.Model):
                 self.max_dissipation_factor if self.max_dissipation_factor is not None else np.nan,
                 float(self.unit_cost) if self.unit_cost is not None else np.nan,
                 self.tempco_ppm_per_k if self.tempco_ppm_per_k is not None else np.nan,
+                dielectric=self.dielectric,
             )
         )
         if errors:

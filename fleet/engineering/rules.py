@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from .capacitor import capacitance_from_current, short_circuit_suspected
+from .trends import DIELECTRIC_ELECTROLYTIC, DIELECTRIC_FILM
 
 TWO_PI = 2.0 * np.pi
 
@@ -313,6 +314,24 @@ PART_MAX_RATED_UF = 5000.0
 # The smallest motor capacitors are run capacitors of about 1 uF on small fans; under 0.1 uF is a slip of the
 # unit (nF or pF typed as uF) (common practice of the trade, no single source).
 PART_MIN_RATED_UF = 0.1
+# Ratings motor capacitors are made in, by dielectric and so by role: motor-start aluminium electrolytics from
+# roughly 20 uF to about 1,500 uF, motor-run metallised film from roughly 1 to 100 uF (common practice of the
+# trade, no single source). A rating outside its dielectric's span is a slip of the unit or the decimal point
+# (0.25 typed for a 250 uF start capacitor) far more often than a part.
+PART_RATED_UF_BY_DIELECTRIC = MappingProxyType(
+    {
+        DIELECTRIC_ELECTROLYTIC: (20.0, 1500.0, "motor-start electrolytics"),
+        DIELECTRIC_FILM: (1.0, 100.0, "motor-run film capacitors"),
+    }
+)
+# The slips a rating outside its span is read as, in the order tried: the unit (millifarads or nanofarads typed
+# as microfarads), then the decimal point one place off (ours).
+RATING_SLIPS = (
+    (1000.0, "millifarads typed as µF"),
+    (0.001, "nanofarads typed as µF"),
+    (10.0, "the decimal point one place off"),
+    (0.1, "the decimal point one place off"),
+)
 PART_MAX_RATED_VOLTAGE_V = 1000.0
 # Tolerances in IEC 60252-1 markings run from +/-5 % for run capacitors to -0/+30 % for start ones; old
 # electrolytics are marked -20/+80 %. A minus tolerance past 50 % puts the end-of-life limit so low no
@@ -338,9 +357,11 @@ def part_problems(
     max_dissipation_factor=np.nan,
     unit_cost=np.nan,
     tempco_ppm_per_k=np.nan,
+    dielectric=None,
 ) -> list[tuple[np.ndarray, str, str]]:
     """(rows, field, message) for catalogue figures no motor capacitor has, vectorised over a parts file;
-    the optional figures pass where missing (nan). One rule for the parts import and the register's form."""
+    the optional figures pass where missing (nan), the rating is held to its dielectric's span where the
+    dielectric is known (`rating_problems`). One rule for the parts import and the register's form (admin)."""
     rated, minus, plus, volts, hertz, case, factor, cost, tempco = (
         np.atleast_1d(np.asarray(v, float))
         for v in (
@@ -358,11 +379,7 @@ def part_problems(
     low_case, high_case = PART_CASE_TEMPERATURE_C
     with np.errstate(invalid="ignore"):
         return [
-            (
-                ~((rated >= PART_MIN_RATED_UF) & (rated <= PART_MAX_RATED_UF)),
-                "rated_uf",
-                f"must be at least {PART_MIN_RATED_UF:g} and at most {PART_MAX_RATED_UF:,.0f} µF: check the unit",
-            ),
+            rating_problems(rated, dielectric),
             (
                 ~((minus >= 0) & (minus <= PART_MAX_TOLERANCE_MINUS_PCT)),
                 "tolerance_minus_pct",
@@ -396,6 +413,41 @@ def part_problems(
                 f"must be from -{PART_MAX_TEMPCO_PPM_PER_K:,.0f} to {PART_MAX_TEMPCO_PPM_PER_K:,.0f} ppm/K",
             ),
         ]
+
+
+def rating_problems(rated_uf, dielectric=None) -> tuple[np.ndarray, str, np.ndarray]:
+    """(rows, "rated_uf", messages) for ratings no motor capacitor of its dielectric is made in
+    (`PART_RATED_UF_BY_DIELECTRIC`), each naming the span and the likely slip ("0.25 µF ...: 250 µF?") where
+    one lands in it; a dielectric not known (nan rating, or none given) is held to the catalogue's bounds."""
+    rated = np.atleast_1d(np.asarray(rated_uf, float))
+    kind = np.broadcast_to(np.asarray("" if dielectric is None else dielectric, object), rated.shape)
+    low = np.full(rated.shape, PART_MIN_RATED_UF)
+    high = np.full(rated.shape, PART_MAX_RATED_UF)
+    made = np.full(rated.shape, "", dtype=object)
+    for name, (lowest, highest, words) in PART_RATED_UF_BY_DIELECTRIC.items():
+        rows = kind == name
+        low[rows], high[rows], made[rows] = lowest, highest, words
+    with np.errstate(invalid="ignore"):
+        outside = ~((rated >= low) & (rated <= high))
+        likely = np.full(rated.shape, np.nan)
+        slip = np.full(rated.shape, "", dtype=object)
+        for factor, words in RATING_SLIPS:
+            fits = np.isnan(likely) & (rated * factor >= low) & (rated * factor <= high)
+            likely[fits], slip[fits] = rated[fits] * factor, words
+    general = f"must be at least {PART_MIN_RATED_UF:g} and at most {PART_MAX_RATED_UF:,.0f} µF: check the unit"
+    span = "{v:g} µF is not a rating {made} are made in (about {low:,g} to {high:,g} µF)"
+    messages = np.where(
+        made == "",
+        general,
+        np.where(
+            np.isnan(likely),
+            _messages(outside, span + ": check the unit and the decimal point", v=rated, made=made, low=low, high=high),
+            _messages(
+                outside, span + ": {uf:.4g} µF? ({slip})", v=rated, made=made, low=low, high=high, uf=likely, slip=slip
+            ),
+        ),
+    )
+    return outside, "rated_uf", np.where(outside, messages, "")
 
 
 def first_problem_by_field(problems: list[tuple[np.ndarray, str, str]]) -> dict[str, str]:

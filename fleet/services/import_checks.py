@@ -655,7 +655,8 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         problems.add(frame[name].eq(""), name, "required")
     code_problems(problems, frame["code"], "code")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
-    for rows, name, message in part_problems(*(numbers[name] for name in PART_NUMBERS)):
+    dielectric = frame["dielectric"].str.lower().to_numpy(object)
+    for rows, name, message in part_problems(*(numbers[name] for name in PART_NUMBERS), dielectric=dielectric):
         problems.add(rows, name, message)
     for name, choices in (
         ("dielectric", CapacitorPart.Dielectric.values),
