@@ -540,3 +540,44 @@ def test_rows_are_numbered_as_the_file_shows_them_after_blank_rows(tmp_path, fmt
     uploaded = dict(NUMBERED_ROWS)
     assert [row[:3] for row in fix_file[1:]] == [uploaded[4], uploaded[6], uploaded[7], uploaded[9]]
     assert [row[3].split(":")[0] for row in fix_file[1:]] == ["time_zone", "code", "time_zone", "name"]
+
+
+def test_the_rows_to_fix_of_a_workbook_keep_its_dates_as_typed_and_import_once_fixed():
+    """The rows to fix of an XLSX upload wrote its date cells as Python does (2015-05-02T00:00:00, a date-time
+    2021-06-01T09:30:00): nobody typed them so. A date cell comes back as 2015-05-02, a date-time as
+    2021-06-01 09:30, and the file, once fixed, imports ([derived]: ISO 8601 as the import reads it)."""
+    site = make_site(code="FIX")
+    part = make_part(code="RUN-8", rated_uf=8.0)
+    motor = make_motor(site=site, asset_tag="FAN-9")
+    make_fitted_capacitor(motor=motor, part=part, fitted_on=dt.date(2020, 1, 1))
+    history = [
+        ["asset_tag", "role", "part_code", "fitted_on", "removed_on", "removal_reason"],
+        ["FAN-9", "run", "RUN-8", dt.date(2010, 1, 1), dt.date(2015, 5, 2), "failed"],
+        ["FAN-9", "run", "NO-SUCH", dt.date(2015, 5, 2), dt.date(2019, 12, 31), "failed"],
+    ]
+    readings = [
+        ["asset_tag", "role", "taken_at", "capacitance_uf"],
+        ["FAN-9", "run", dt.datetime(2021, 6, 1, 9, 30), 7950],
+        ["FAN-9", "run", dt.datetime(2021, 9, 1, 9, 30, 15), 7.9],
+    ]
+    for kind, rows, field, fixed, expected in (
+        ("history", history, "part_code", "RUN-8", ["FAN-9", "run", "NO-SUCH", "2015-05-02", "2019-12-31", "failed"]),
+        ("readings", readings, "capacitance_uf", "7.95", ["FAN-9", "run", "2021-06-01 09:30", "7950"]),
+    ):
+        book = Workbook()
+        for row in rows:
+            book.active.append(row)
+        saved = io.BytesIO()
+        book.save(saved)
+        job = create_job(kind=kind, filename=f"{kind}.xlsx", content=saved.getvalue(), user=None)
+        done = run_job(job.id, ImportJob.Mode.GOOD_ROWS)
+        assert done.imported_rows == 1, kind
+        fix_file = list(csv.reader(io.StringIO(rejected_rows_csv(done).decode("utf-8-sig"))))
+        assert fix_file[1][:-1] == expected, kind
+        fix_file[1][fix_file[0].index(field)] = fixed
+        content = csv_of([row[:-1] for row in fix_file[1:]], header=fix_file[0][:-1])
+        again = create_job(kind=kind, filename=f"{kind}-fixed.csv", content=content, user=None)
+        again = run_job(again.id, ImportJob.Mode.ALL_OR_NOTHING)
+        assert (again.state, again.imported_rows) == (ImportJob.State.DONE, 1), (kind, again.errors)
+    assert FittedCapacitor.objects.filter(motor=motor).count() == 3
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [7.9, 7.95]

@@ -353,6 +353,23 @@ def _first_sheet_path(archive: zipfile.ZipFile) -> str | None:
 _UTC_FORMAT = re.compile(r'(?:"\s*(?:UTC|Z)"|\\Z)$')
 
 
+def date_text(value: dt.date, number_format: str) -> str:
+    """A date or date-time cell as a person types it and the import reads it back (the rows to fix carry it),
+    never Python's 2025-03-01T00:00:00: a date cell at midnight as 2025-03-01; a date-time as 2025-03-01 09:30
+    (its seconds, and their fraction, where it has them), with +00:00 where its format ends in UTC or Z (as the
+    exports write a UTC time)."""
+    from openpyxl.styles.numbers import is_datetime
+
+    if not isinstance(value, dt.datetime):
+        return value.isoformat()
+    if value.time() == dt.time() and is_datetime(number_format) != "datetime":
+        return value.date().isoformat()
+    text = f"{value:%Y-%m-%d %H:%M}"
+    if value.second or value.microsecond:
+        text += f":{value:%S}" + f".{value.microsecond:06d}".rstrip("0").rstrip(".")
+    return text + ("+00:00" if _UTC_FORMAT.search(number_format) else "")
+
+
 def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]:
     _check_workbook_size(content, limits)
     from openpyxl import load_workbook
@@ -366,10 +383,8 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]
         value = getattr(cell, "value", None)
         if value is None:
             return ""
-        if isinstance(value, dt.datetime) and _UTC_FORMAT.search(cell.number_format or ""):
-            return value.isoformat() + "+00:00"
         if isinstance(value, dt.datetime | dt.date):
-            return value.isoformat()
+            return date_text(value, cell.number_format or "")
         return str(value)
 
     header: list[str] = []
