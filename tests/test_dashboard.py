@@ -197,6 +197,29 @@ def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_mo
     assert "Torque falls short" in body and "governing limit was tolerance, now starting torque" in body
 
 
+def test_the_week_counts_a_reading_and_its_corrections_as_one_change(client):
+    """A typo and its correction were counted as two readings taken: a correction supersedes the reading it
+    corrects (both kept, the trend uses the correction), so the week saw one reading [derived]."""
+    from fleet.services.readings import record_reading
+
+    fitted_capacitor = make_fitted_capacitor()
+    make_reading(fitted_capacitor, taken_at=timezone.now() - dt.timedelta(days=20))  # before the week
+    typo = record_reading(fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.59"})
+    fixed = record_reading(
+        fitted_capacitor=fitted_capacitor,
+        values={"method": "meter", "capacitance_uf": "3.95"},
+        supersedes_id=typo.id,
+    )
+    record_reading(
+        fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.94"}, supersedes_id=fixed.id
+    )
+    record_reading(fitted_capacitor=make_fitted_capacitor(), values={"method": "meter", "capacitance_uf": "3.97"})
+    client.force_login(make_user(PLANNER))
+    response = client.get(reverse("dashboard"))
+    assert response.context["changes"]["readings"] == 2
+    assert "2 readings taken" in response.content.decode()
+
+
 def test_charts_are_built_once_for_the_same_numbers_and_follow_a_new_assessment_and_reading(client, monkeypatch):
     """The charts are cached by the numbers they show: a second visit builds none, and after a new
     assessment and a new reading the cached charts are those built afresh from the new numbers."""

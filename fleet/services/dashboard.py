@@ -306,9 +306,9 @@ class Differs(Func):
 
 
 def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
-    """What moved in the last `days`: readings taken, refits run, capacitors reassessed and how
-    their risk level moved, replacements; the riskier ones with the reason and the governing limit
-    they had before.
+    """What moved in the last `days`: readings taken (a reading and its corrections counted once), refits
+    run, capacitors reassessed and how their risk level moved, replacements; the riskier ones with the
+    reason and the governing limit they had before.
 
     Read from each current assessment's stored risk history (`risk_was`, `risk_changed_at`, as the
     plan's list of changes): a capacitor whose level changed within the window moved from
@@ -317,7 +317,8 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     # From the start of a UTC day, as the ledger of counts dates assessments (reassessed: summed there).
     since_day = timezone.now().astimezone(dt.UTC).date() - dt.timedelta(days=days)
     since = dt.datetime.combine(since_day, dt.time(), tzinfo=dt.UTC)
-    readings = scope_to_user(Reading.objects.filter(taken_at__gte=since), user).count()
+    # A reading and its correction are one change: a reading a later one supersedes is left out.
+    readings = scope_to_user(Reading.objects.filter(taken_at__gte=since, superseded_by__isnull=True), user).count()
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
     reassessed = in_service_counts(user).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
