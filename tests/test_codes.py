@@ -148,7 +148,7 @@ def test_a_part_of_a_ten_millionth_of_a_microfarad_is_refused_in_the_admin_and_t
     with pytest.raises(ValidationError) as error:
         part.full_clean()
     assert (
-        "not a rating motor-run film capacitors are made in (about 1 to 100 µF)"
+        "not a rating motor-run film capacitors are made in (about 0.4 to 150 µF)"
         in error.value.message_dict["rated_uf"][0]
     )
     result = check_parts(frame_of(PART_COLUMNS, [part_row(rated_uf="0.0000001")]))

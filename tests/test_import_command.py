@@ -334,7 +334,7 @@ def test_catalogue_figures_no_motor_capacitor_has_are_refused_by_row_and_field(t
     report = out.getvalue()
     assert "row 4, tolerance_minus_pct: must be from 0 to 50 %" in report
     assert (
-        "row 5, rated_uf: 8000 µF is not a rating motor-run film capacitors are made in (about 1 to 100 µF): "
+        "row 5, rated_uf: 8000 µF is not a rating motor-run film capacitors are made in (about 0.4 to 150 µF): "
         "8 µF? (nanofarads typed as µF)"
     ) in report
     assert "row 6, unit_cost: must be from 0 to 100,000: check the decimal point" in report
@@ -347,13 +347,13 @@ def test_a_start_electrolytic_rated_a_quarter_microfarad_is_refused_naming_the_l
 ):
     """An electrolytic start capacitor rated 0.25 uF was taken by the parts import and the admin alike (any rating
     from 0.1 to 5,000 uF passed): 250 uF typed in millifarads. Motor-start electrolytics are made from roughly
-    20 to about 1,500 uF, motor-run film capacitors from roughly 1 to 100 uF (common practice of the trade, no
+    20 to about 1,500 uF, motor-run film capacitors from roughly 0.4 to 150 uF (common practice of the trade, no
     single source): each path holds a rating to its dielectric's span and names the likely slip."""
     text = PARTS + "\n".join(
         [
             "ST-025,0.25,0,20,250,electrolytic,50,,,,",
             "ST-250,250,0,20,250,electrolytic,50,,,,",
-            "RUN-470,470,5,5,450,film,50,B,S2,,",
+            "RUN-330,330,5,5,450,film,50,B,S2,,",
             "RUN-47,47,5,5,450,film,50,B,S2,,",
             "ST-12,12,0,20,250,electrolytic,50,,,,",
         ]
@@ -366,8 +366,8 @@ def test_a_start_electrolytic_rated_a_quarter_microfarad_is_refused_naming_the_l
         "row 4, rated_uf: 0.25 µF is not a rating motor-start electrolytics are made in (about 20 to 1,500 µF): "
         "250 µF? (millifarads typed as µF)"
     ) in report
-    assert "row 6, rated_uf: 470 µF is not a rating motor-run film capacitors are made in" in report
-    assert "47 µF? (the decimal point one place off)" in report
+    assert "row 6, rated_uf: 330 µF is not a rating motor-run film capacitors are made in" in report
+    assert "33 µF? (the decimal point one place off)" in report
     assert "row 8, rated_uf: 12 µF is not a rating motor-start electrolytics are made in" in report
     assert "row 5" not in report and "row 7" not in report
     assert not CapacitorPart.objects.exists()
@@ -399,7 +399,7 @@ def test_the_admin_refuses_the_same_catalogue_figures_at_their_field():
     part = make_part()
     part.full_clean()  # a real part passes
     for name, value, words in (
-        ("rated_uf", 1e30, "is not a rating motor-run film capacitors are made in (about 1 to 100 µF)"),
+        ("rated_uf", 1e30, "is not a rating motor-run film capacitors are made in (about 0.4 to 150 µF)"),
         ("tolerance_plus_pct", 500.0, "from 0 to 100 %"),
         ("rated_voltage_v", 1e9, "at most 1,000 V"),
         ("frequency_hz", 7, "50 or 60"),

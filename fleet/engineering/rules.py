@@ -315,13 +315,14 @@ PART_MAX_RATED_UF = 5000.0
 # unit (nF or pF typed as uF) (common practice of the trade, no single source).
 PART_MIN_RATED_UF = 0.1
 # Ratings motor capacitors are made in, by dielectric and so by role: motor-start aluminium electrolytics from
-# roughly 20 uF to about 1,500 uF, motor-run metallised film from roughly 1 to 100 uF (common practice of the
-# trade, no single source). A rating outside its dielectric's span is a slip of the unit or the decimal point
-# (0.25 typed for a 250 uF start capacitor) far more often than a part.
+# roughly 20 uF to about 1,500 uF, motor-run metallised film from roughly 0.5 uF (small fans) to about 100 uF
+# (large compressors), with room either side (common practice of the trade, no single source). A rating
+# outside its dielectric's span is a slip of the unit or the decimal point (0.25 typed for a 250 uF start
+# capacitor) far more often than a part.
 PART_RATED_UF_BY_DIELECTRIC = MappingProxyType(
     {
         DIELECTRIC_ELECTROLYTIC: (20.0, 1500.0, "motor-start electrolytics"),
-        DIELECTRIC_FILM: (1.0, 100.0, "motor-run film capacitors"),
+        DIELECTRIC_FILM: (0.4, 150.0, "motor-run film capacitors"),
     }
 )
 # The slips a rating outside its span is read as, in the order tried: the unit (millifarads or nanofarads typed
