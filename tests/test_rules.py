@@ -234,6 +234,32 @@ def test_a_case_temperature_in_fahrenheit_asks_for_confirmation_everywhere(clien
     assert sorted(Reading.objects.values_list("case_temperature_c", flat=True)) == [79.0, 100.0]
 
 
+def test_a_value_far_above_the_tolerance_asks_for_confirmation_everywhere(client, technician, fan_fitted_capacitor):
+    """A capacitor does not gain capacitance as it ages (common practice of the trade, no single source): 4.6 uF
+    on a 4 uF +5 % part (4.20 at most, 4.52 with the rulebook's 8 % of rating) is another capacitor on the
+    meter's leads; in circuit, 0.70 A at 230 V and 50 Hz gives 9.7 uF: the voltage read across the line, not
+    the capacitor. The form and the API ask to confirm, the import refuses the row unless it is confirmed."""
+    client.force_login(technician)
+    response = form_post(client, fan_fitted_capacitor, capacitance_uf="4.6")
+    assert "above this capacitor&#x27;s tolerance (4.20 µF at most)" in response.content.decode()
+    circuit = {"method": "in_circuit", "capacitor_current_a": "0.70", "capacitor_voltage_v": "230"}
+    response = form_post(client, fan_fitted_capacitor, **circuit)
+    assert "give 9.69 µF, above this capacitor&#x27;s tolerance" in response.content.decode()
+    api = api_for(technician).post(
+        reverse("api_fitted_capacitor_readings", args=[fan_fitted_capacitor.id]),
+        {"method": "meter", "capacitance_uf": 4.6},
+        format="json",
+    )
+    assert api.status_code == 409 and "a capacitor does not gain capacitance" in str(api.json())
+    result = import_check([import_row(fan_fitted_capacitor, capacitance_uf="4.6")])
+    assert [f for _, f, _ in result.errors] == ["capacitance_uf"]
+    assert not Reading.objects.exists()
+    # Within the margin the value is kept; confirmed, a high one is kept too.
+    assert form_post(client, fan_fitted_capacitor, capacitance_uf="4.5").status_code == 302
+    assert form_post(client, fan_fitted_capacitor, capacitance_uf="4.6", confirmed="on").status_code == 302
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [4.5, 4.6]
+
+
 # medium: DELETE of a reading; a removal date earlier than readings
 
 

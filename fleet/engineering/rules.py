@@ -93,6 +93,11 @@ class ReadingRules:
     # a capacitor overheating, or a thermometer set to °F (100 °F, 38 °C, typed as 100 °C): confirm. Unconfirmed,
     # it would age the capacitor 2^(62/10), about 70 times, over the stress clock's interval (ours).
     case_over_rating_k: float = 10.0
+    # A capacitor does not gain capacitance as it ages (common practice of the trade, no single source): a value
+    # above the top of its tolerance by more than this fraction of the rating is another capacitor on the meter's
+    # leads, or in circuit a voltage read across the line instead of the capacitor: confirm (ours). Taken as read,
+    # a first reading far above the rating sets the trend's starting level.
+    above_tolerance_fraction: float = 0.08
     # A capacitance this many times the rating was typed in nanofarads, or in millifarads; more than
     # `wrong_capacitor_ratio` times it is not this capacitor (common practice of the trade, no single source).
     nanofarad_ratio: tuple = (300.0, 3000.0)
@@ -735,6 +740,7 @@ def _check_readings(
     notes=None,
     predicted_uf=None,
     max_case_temperature_c=None,
+    tolerance_plus_pct=None,
     confirmed=False,
     rules: ReadingRules = RULES,
 ) -> RuleResult:
@@ -836,6 +842,35 @@ def _check_readings(
             ),
         )
 
+    if tolerance_plus_pct is not None:
+        top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)
+        checked = ~errors.has("capacitance_uf") & ~errors.has("capacitor_current_a") & ~errors.has("capacitor_voltage_v")
+        high = checked & (values["capacitance_uf"] > top + rules.above_tolerance_fraction * rated)
+        confirm.add(
+            "capacitance_uf",
+            high & ~in_circuit,
+            _messages(
+                high & ~in_circuit,
+                "{c:g} µF is above this capacitor's tolerance ({t:.2f} µF at most), and a capacitor does not gain "
+                "capacitance as it ages: is the meter on this capacitor alone? Re-measure, or confirm the value if "
+                "it is right",
+                c=values["capacitance_uf"],
+                t=top,
+            ),
+        )
+        confirm.add(
+            "capacitor_voltage_v",
+            high & in_circuit,
+            _messages(
+                high & in_circuit,
+                "current and voltage give {c:.2f} µF, above this capacitor's tolerance ({t:.2f} µF at most): was "
+                "{v:g} V read across the capacitor (a run capacitor sits above the line voltage), and the current "
+                "on the capacitor's own lead? Re-measure, or confirm the values if they are right",
+                c=values["capacitance_uf"],
+                t=top,
+                v=values["capacitor_voltage_v"],
+            ),
+        )
     if max_case_temperature_c is not None:
         case = values["case_temperature_c"]
         highest = _column(max_case_temperature_c, n)

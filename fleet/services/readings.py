@@ -104,6 +104,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
             _utc64(taken_at),
         ),
         max_case_temperature_c=part.max_case_temperature_c,
+        tolerance_plus_pct=part.tolerance_plus_pct,
         confirmed=confirmed,
     )
     errors = {name: _sentence(message) for name, message in result.row(0).items()}
