@@ -163,7 +163,7 @@ MENU = r"""() => {
     rows: new Set(shown.map((e) => Math.round(e.getBoundingClientRect().top))).size,
     targets: shown.map((e) => {
       const box = e.getBoundingClientRect();
-      return {text: e.textContent.trim(), width: box.width, height: box.height};
+      return {text: e.textContent.trim(), width: box.width, height: box.height, top: Math.round(box.top)};
     }),
     page: document.documentElement.scrollWidth,
   };
@@ -187,6 +187,12 @@ def test_the_technicians_menu_fits_two_rows_of_glove_sized_targets_on_a_phone(ph
     opened = [target["text"] for target in phone.evaluate(MENU)["targets"]]
     assert {"Dashboard", "Replacement plan", "Life data", "Track record", "Refits"} <= set(opened), opened
     phone.shot("menu-technician-390-more")
+    # Opened on a phone and widened (a tablet turned, a window resized): the desktop's one row, not the
+    # phone's folded rows with Sign out alone on a third.
+    phone.set_viewport_size({"width": 1366, "height": 900})
+    tops = [target["top"] for target in phone.evaluate(MENU)["targets"]]
+    assert max(tops) - min(tops) < 22, tops  # one row (Sign out, a shorter button, sits centred in it)
+    phone.set_viewport_size({"width": 390, "height": 844})
     phone.click("header >> text=Track record")
     phone.wait_for_url("**/forecast/track-record/")
 
