@@ -319,18 +319,26 @@ def advise(
         # EstimateResolution (the forecast sets such a limit aside the same way, drift.judge_limits):
         # a rating that short of its estimate is marginal (confirm with a measured voltage), not unsuitable.
         unresolved = below & position.nameplate_only & (volts * (1 + resolution.capacitor_voltage) >= predicted)
+        # Above such an estimate, a margin finer than it resolves cannot fault a rating the motor's maker chose:
+        # at least the design part's rating, it is as designed (the stand-in parts page showed every run part,
+        # the design's own included, as marginal on a 450 V part over a 414-421 V estimate).
+        as_designed = tight & position.nameplate_only & (volts >= position.design_voltage_v)
         rule(
-            np.where(below & ~unresolved, 2, np.where(tight | unresolved, 1, 0)),
+            np.where(below & ~unresolved, 2, np.where((tight & ~as_designed) | unresolved, 1, 0)),
             [
                 f"rated {v:g} V is under the {p:.0f} V a nameplate-only estimate puts across it, within what such "
                 "an estimate can resolve: a design finding; confirm with a measured capacitor voltage"
                 if u
                 else f"rated {v:g} V is below the predicted capacitor voltage {p:.0f} V"
                 if b
+                else f"rated {v:g} V, at least the design part's, is above the {p:.0f} V a nameplate-only estimate "
+                f"puts across it by less than the {rules.voltage_margin - 1:.0%} margin, finer than such an estimate "
+                "resolves: as designed"
+                if d
                 else f"rated {v:g} V is within the {rules.voltage_margin - 1:.0%} margin above the predicted {p:.0f} V"
                 if t
                 else f"rated {v:g} V covers the predicted {p:.0f} V with margin"
-                for v, p, b, t, u in zip(volts, predicted, below, tight, unresolved, strict=True)
+                for v, p, b, t, u, d in zip(volts, predicted, below, tight, unresolved, as_designed, strict=True)
             ],
         )
         # The motor's limits (the forecast's DriftLimits) with the candidate fitted, at its value and at the

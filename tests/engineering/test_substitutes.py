@@ -129,6 +129,25 @@ def test_a_nameplate_only_circuit_makes_a_rating_just_under_its_estimate_margina
     assert by_code(advise(entered, candidates))["NEAR"][0] == "unsuitable"
 
 
+def test_a_nameplate_only_margin_does_not_fault_a_rating_at_least_the_design_parts():
+    """Every run part on the stand-in parts page, the design's own included, showed as marginal: a 450 V
+    rating over a 414-421 V nameplate-only estimate is inside the 10 % margin [trade], but such an estimate
+    resolves the voltage no finer than 15 % [derived]: a rating at least the design part's is as designed.
+    A lower rating than the design's keeps the margin rule, and so does an entered circuit."""
+    from dataclasses import replace
+
+    entered = fan_position(design_voltage_v=300.0)
+    predicted = abs(operating_point(entered.circuit, DESIGN_UF, entered.load).v_capacitor)
+    tight = 1.05 * predicted  # inside the 10 % margin, above the estimate
+    as_designed = replace(entered, design_voltage_v=tight, nameplate_only=True)
+    candidates = parts(("DESIGN", DESIGN_UF, tight, "film"))
+    verdict, reasons, _ = by_code(advise(as_designed, candidates))["DESIGN"]
+    assert verdict == "suitable" and any("finer than such an estimate resolves: as designed" in r for r in reasons)
+    lower_design = replace(as_designed, design_voltage_v=tight * 1.01)  # the candidate is rated under the design
+    assert by_code(advise(lower_design, candidates))["DESIGN"][0] == "unsuitable"  # the never-lower rule
+    assert by_code(advise(replace(entered, design_voltage_v=tight), candidates))["DESIGN"][0] == "marginal"
+
+
 def test_never_a_lower_voltage_rating_than_the_part_it_replaces():
     """[trade] a substitute's voltage rating is never lower than the original's, even if the model allows."""
     advice = by_code(advise(fan_position(), parts(("440V", DESIGN_UF, 440.0, "film"))))
