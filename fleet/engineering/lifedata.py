@@ -154,6 +154,33 @@ def expected_failures(beta, eta, age, until, edges):
     return survive_to_start - survive_to_stop
 
 
+def successor_failures(beta, eta, installed, edges, generations: int = 4):
+    """Expected failures in each interval between `edges` of the new units fitted during them, and of
+    the units fitted in their place when those fail (a renewal process, e.g. Ross, *Introduction to
+    Probability Models*, ch. 7 [mem]).
+
+    beta, eta (P,): each row's Weibull; installed (P, M): new units fitted in each interval, taken as
+    fitted at its midpoint; edges (M + 1,): time from now, ascending, in eta's unit. A unit fitted at
+    m fails in interval j with R(s_j - m) - R(e_j - m) (s, e the interval's ends, clipped at 0), and
+    each failure is itself a new unit at its interval's midpoint: `generations` rounds of that (the
+    next round is smaller by the chance of failing within the horizon). Returns (P, M).
+    """
+    beta = np.asarray(beta, float)[:, None, None]
+    eta = np.asarray(eta, float)[:, None, None]
+    edges = np.asarray(edges, float)
+    start, end = edges[:-1], edges[1:]
+    fitted = 0.5 * (start + end)[:, None]  # (M, 1): interval k's midpoint
+    age_start = np.clip(start[None, :] - fitted, 0.0, None)  # (M, M): ages at interval j's ends
+    age_end = np.clip(end[None, :] - fitted, 0.0, None)
+    chance = np.exp(-((age_start / eta) ** beta)) - np.exp(-((age_end / eta) ** beta))  # (P, M, M)
+    new = np.asarray(installed, float)
+    total = np.zeros_like(new)
+    for _ in range(generations):
+        new = np.einsum("pk,pkj->pj", new, chance)
+        total += new
+    return total
+
+
 def _hessian(function, x, step=1e-4):
     n = len(x)
     h = np.zeros((n, n))

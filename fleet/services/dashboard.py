@@ -23,7 +23,7 @@ from django.utils import timezone
 
 from fleet import charts
 from fleet.charts import risk_mix_figure, routes_figure, spares_figure, stock_figure, workload_figure
-from fleet.engineering.lifedata import expected_failures
+from fleet.engineering.lifedata import expected_failures, successor_failures
 from fleet.engineering.planning import RISK_ORDER
 from fleet.filters import utc_midnight
 from fleet.models import (
@@ -134,8 +134,9 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
 def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     """Spares per part per month for MONTHS months: the plan's replacements (overdue ones in this
     month) plus the failures in service expected from each part's stored life fit among the
-    capacitors in service until their planned replacement, with the cost and the stock held at the
-    user's sites (five queries).
+    capacitors in service until their planned replacement, and among the new ones fitted by the plan
+    or in place of a failure (`successor_failures`), with the cost and the stock held at the user's
+    sites (five queries).
 
     Ages and planned months are grouped by month in SQL; the expected failures of each group come
     from the core (`expected_failures`), weighted by the group's count.
@@ -213,6 +214,14 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
             * np.array([g["n"] for g in fitted])[:, None]
         )
         np.add.at(failures, [index[g["part_id"]] for g in fitted], expected)
+        # The new capacitors fitted by the plan and in place of failures can fail within the months too.
+        with_fit = np.array([part_id in fits for part_id in order])
+        failures[with_fit] += successor_failures(
+            [fits[p]["beta"] for p in np.array(order)[with_fit]],
+            [fits[p]["eta_years"] for p in np.array(order)[with_fit]],
+            (planned + failures)[with_fit],
+            edges_years,
+        )
     need = planned + failures
     unit_cost = np.array([float(parts[p].unit_cost) for p in order])
     rows = []
