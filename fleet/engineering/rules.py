@@ -844,7 +844,9 @@ def _check_readings(
 
     if tolerance_plus_pct is not None:
         top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)
-        checked = ~errors.has("capacitance_uf") & ~errors.has("capacitor_current_a") & ~errors.has("capacitor_voltage_v")
+        checked = (
+            ~errors.has("capacitance_uf") & ~errors.has("capacitor_current_a") & ~errors.has("capacitor_voltage_v")
+        )
         high = checked & (values["capacitance_uf"] > top + rules.above_tolerance_fraction * rated)
         confirm.add(
             "capacitance_uf",

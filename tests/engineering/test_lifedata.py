@@ -242,8 +242,8 @@ def test_successor_failures_of_wearing_units_match_a_simulated_renewal_process()
         while alive.any():
             clock[alive] += stats.weibull_min(beta, scale=eta).rvs(size=int(alive.sum()), random_state=rng)
             alive &= clock < 1.0
-            counts += units * np.bincount(np.searchsorted(edges, clock[alive], side="right") - 1, minlength=12)[
-                :12
-            ] / draws
+            counts += (
+                units * np.bincount(np.searchsorted(edges, clock[alive], side="right") - 1, minlength=12)[:12] / draws
+            )
     assert got.sum() == pytest.approx(counts.sum(), rel=0.03)
     assert np.abs(got - counts).max() < 0.01
