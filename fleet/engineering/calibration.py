@@ -323,6 +323,48 @@ def path_quantiles(
     return np.exp(rows) if model == MODEL_LOG else rows
 
 
+HOURS_PER_DAY = 24.0
+
+
+def crossing_days_ahead(crossing_stress_hours, stress_hours_now, stress_rate):
+    """Calendar days from the newest reading to crossing quantiles given in stress hours (from tau = 0),
+    at the long-run stress rate: the one mapping the stated dates and the drawn band share."""
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        return (np.asarray(crossing_stress_hours, float) - np.asarray(stress_hours_now, float)) / (
+            np.asarray(stress_rate, float) * HOURS_PER_DAY
+        )
+
+
+def path_quantiles_ahead(
+    model,
+    intercept,
+    slope_per_hour,
+    curvature,
+    covariance,
+    stress_hours_now,
+    stress_rate,
+    terms,
+    days_ahead,
+    probabilities=(0.1, 0.5, 0.9),
+):
+    """`path_quantiles` at calendar days ahead of the newest reading (the stress hours
+    `crossing_days_ahead` maps back): what the capacitor page draws beyond its readings."""
+    days = np.asarray(days_ahead, float)
+    stress_hours = np.asarray(stress_hours_now, float) + np.asarray(stress_rate, float) * days * HOURS_PER_DAY
+    return path_quantiles(
+        model,
+        intercept,
+        slope_per_hour,
+        curvature,
+        covariance,
+        stress_hours_now,
+        stress_rate,
+        terms,
+        stress_hours,
+        probabilities,
+    )
+
+
 def _quadratic(coefficients, d):
     return coefficients[0] + d * (coefficients[1] + d * coefficients[2])
 
