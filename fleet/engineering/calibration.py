@@ -335,34 +335,11 @@ def crossing_days_ahead(crossing_stress_hours, stress_hours_now, stress_rate):
         )
 
 
-def path_quantiles_ahead(
-    model,
-    intercept,
-    slope_per_hour,
-    curvature,
-    covariance,
-    stress_hours_now,
-    stress_rate,
-    terms,
-    days_ahead,
-    probabilities=(0.1, 0.5, 0.9),
-):
-    """`path_quantiles` at calendar days ahead of the newest reading (the stress hours
-    `crossing_days_ahead` maps back): what the capacitor page draws beyond its readings."""
+def stress_hours_ahead(days_ahead, stress_hours_now, stress_rate):
+    """Stress hours (from tau = 0) `days_ahead` calendar days after the newest reading, at the long-run
+    stress rate: the inverse of `crossing_days_ahead`, where the capacitor page draws the path ahead."""
     days = np.asarray(days_ahead, float)
-    stress_hours = np.asarray(stress_hours_now, float) + np.asarray(stress_rate, float) * days * HOURS_PER_DAY
-    return path_quantiles(
-        model,
-        intercept,
-        slope_per_hour,
-        curvature,
-        covariance,
-        stress_hours_now,
-        stress_rate,
-        terms,
-        stress_hours,
-        probabilities,
-    )
+    return np.asarray(stress_hours_now, float) + np.asarray(stress_rate, float) * days * HOURS_PER_DAY
 
 
 def _quadratic(coefficients, d):

@@ -25,7 +25,7 @@ from django.db.models.functions import Replace, Upper
 from django.utils import timezone
 
 from fleet.charts import trend_figure
-from fleet.engineering.calibration import path_quantiles, path_quantiles_ahead
+from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, reading_stress_hours
@@ -180,9 +180,9 @@ def trend_chart(
     """Figure of readings, the stored path and its P10-P90 band, drawn from stored numbers.
 
     Ahead of the newest reading the path is the calibrated one the assessment's dates come from
-    (`calibration.path_quantiles_ahead`, with the terms it was made with, counted in days from the
-    newest reading the fit used, as `crossing_days_ahead` counts the dates): the band's edges and the
-    P50 line meet the limit on the page's early, likely and late dates. It is drawn at least
+    (`calibration.path_quantiles`, with the terms it was made with, at `stress_hours_ahead` of the
+    newest reading the fit used, the inverse of `crossing_days_ahead` that counts the dates): the
+    band's edges and the P50 line meet the limit on the page's early, likely and late dates. It is drawn at least
     `horizon_days` ahead and on to a quarter past the late date (up to `CHART_HORIZON_MAX_DAYS`). The
     stress hours at each reading are recomputed from the readings the fit saw (one capacitor's, a few
     dozen at most), exactly as the fit computed them.
@@ -231,9 +231,8 @@ def trend_chart(
         assessment.stress_rate,
         assessment_terms(assessment, fitted_capacitor.part.dielectric),
     )
-    past = path_quantiles(assessment.trend_model, *stored, reading_taus)
-    ahead = path_quantiles_ahead(assessment.trend_model, *stored, future_days)
-    low, mid, high = np.concatenate([past, ahead], axis=1)
+    ahead_taus = stress_hours_ahead(future_days, assessment.stress_hours_now, assessment.stress_rate)
+    low, mid, high = path_quantiles(assessment.trend_model, *stored, np.concatenate([reading_taus, ahead_taus]))
     dates = [r["taken_at"].date().isoformat() for r in readings] + [
         (newest + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
     ]

@@ -1,9 +1,9 @@
 """The drawn band against the stated dates: crossings read off the chart's own numbers.
 
 The capacitor page draws the calibrated path's P10, P50 and P90 at points `CHART_STEP_DAYS` apart
-(`calibration.path_quantiles_ahead`) beside the dates the assessment states (the crossing quantiles
-of `calibration.calibrated_crossing_quantiles` on the planning horizon's grid, in days by
-`calibration.crossing_days_ahead`). For a path that falls monotonically, P(crossed by t) =
+(`calibration.path_quantiles` at `calibration.stress_hours_ahead`) beside the dates the assessment
+states (the crossing quantiles of `calibration.calibrated_crossing_quantiles` on the planning
+horizon's grid, in days by `calibration.crossing_days_ahead`). For a path that falls monotonically, P(crossed by t) =
 P(path below L at t) [derived], so the band's q-quantile meets the limit on the crossing's
 q-quantile date: a reader who interpolates the drawn points finds the stated dates to within the
 chart's resolution. The fits are ours (invented readings), varied in form, bend, terms and horizon.
@@ -14,7 +14,12 @@ import dataclasses
 import numpy as np
 import pytest
 
-from fleet.engineering.calibration import calibrated_crossing_quantiles, crossing_days_ahead, path_quantiles_ahead
+from fleet.engineering.calibration import (
+    calibrated_crossing_quantiles,
+    crossing_days_ahead,
+    path_quantiles,
+    stress_hours_ahead,
+)
 from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.trends import MODEL_LINEAR, MODEL_LOG, TrendSettings, fit_trends
 
@@ -98,7 +103,13 @@ def test_the_band_read_off_the_chart_meets_the_limit_on_the_stated_dates(model, 
         fit.stress_rate,
         per_capacitor,
     )
-    drawn = np.stack([path_quantiles_ahead(model, *stored, np.full(n, day)) for day in drawn_days], axis=-1)
+    drawn = np.stack(
+        [
+            path_quantiles(model, *stored, stress_hours_ahead(day, fit.stress_hours_now, fit.stress_rate))
+            for day in drawn_days
+        ],
+        axis=-1,
+    )
     read = _read_off(drawn_days, drawn, limit)  # (3, n): P10, P50, P90 as read off the chart
     shown = np.isfinite(stated) & (stated > 0) & (stated < drawn_days[-1] - 91)
     assert shown.sum() >= 2 * n  # most of the three dates of most capacitors are on the chart
