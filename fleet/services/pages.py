@@ -183,7 +183,7 @@ def trend_chart(
     (`calibration.path_quantiles`, with the terms it was made with, at `stress_hours_ahead` of the
     newest reading the fit used, the inverse of `crossing_days_ahead` that counts the dates): the
     band's edges and the P50 line meet the limit on the page's early, likely and late dates. It is drawn at least
-    `horizon_days` ahead and on to a quarter past the late date (up to `CHART_HORIZON_MAX_DAYS`). The
+    `horizon_days` ahead and on to a quarter past the latest stated date (up to `CHART_HORIZON_MAX_DAYS`). The
     stress hours at each reading are recomputed from the readings the fit saw (one capacitor's, a few
     dozen at most), exactly as the fit computed them.
     """
@@ -218,9 +218,10 @@ def trend_chart(
         for r, c in zip(readings, corrected, strict=True)
     ]
     newest = assessment.fitted_through
-    if assessment.p90_on is not None:
-        late_days = (assessment.p90_on - newest.date()).days + 91
-        horizon_days = min(max(horizon_days, late_days), CHART_HORIZON_MAX_DAYS)
+    stated = [day for day in (assessment.p10_on, assessment.p50_on, assessment.p90_on) if day is not None]
+    if stated:
+        latest_days = (max(stated) - newest.date()).days + 91
+        horizon_days = min(max(horizon_days, latest_days), CHART_HORIZON_MAX_DAYS)
     future_days = np.linspace(0, horizon_days, int(np.ceil(horizon_days / CHART_STEP_DAYS)) + 1)[1:]
     stored = (
         assessment.trend_intercept,
