@@ -325,6 +325,54 @@ def test_the_chart_draws_the_calibrated_path_its_dates_come_from():
     assert assessment.calibration_terms["extra_slope_per_h"] == pytest.approx(-2e-7)  # the terms it was made with
 
 
+# The six terms at the magnitudes the demo's back-test gave each family on 2026-12-03 (ours, invented
+# fleet): the curvature per calendar hour squared of about 1e-11 is what ten decimal places lost.
+DEMO_FILM_TERMS = dict(
+    slope_bias=0.41,
+    slope_spread=0.478,
+    extra_slope_per_h=3.1112256557355733e-07,
+    extra_sd_per_h=2.7513551073624673e-07,
+    acceleration_per_h=0.0,
+    curvature_per_h2=-1.9540598670446392e-11,
+)
+DEMO_ELECTROLYTIC_TERMS = dict(
+    slope_bias=0.769,
+    slope_spread=1.164,
+    extra_slope_per_h=4.014144552726015e-07,
+    extra_sd_per_h=4.902878677961227e-07,
+    acceleration_per_h=0.0,
+    curvature_per_h2=-5.718748710737097e-11,
+)
+
+
+@pytest.mark.django_db
+@pytest.mark.parametrize("terms", [DEMO_FILM_TERMS, DEMO_ELECTROLYTIC_TERMS], ids=["film", "electrolytic"])
+def test_the_stored_assessment_keeps_its_terms_and_the_chart_its_dates(terms):
+    """[derived] P(crossed by t) = P(path below the limit at t): the stored assessment's chart, read as a
+    reader reads it (linear between its points), meets the limit on its stated P10, P50 and P90 to within
+    the chart's resolution (points 30 days apart), and the terms it keeps are the ones it was made with, to
+    the last digit. Before, the terms were kept to ten decimal places: a curvature of -5.7e-11 was read back
+    as -1e-10 and -2.0e-11 as 0, and on the demo the band crossed the limit up to months from the dates."""
+    from fleet.services.pages import trend_chart
+
+    fitted_capacitor = make_fitted_capacitor(part=make_part(tolerance_minus_pct=6))
+    _ageing(fitted_capacitor, [0, 0.4, 0.7, 1.3, 1.5, 2.0, 2.4, 2.7, 3.3])
+    BandCalibration.objects.create(family="film", **terms)
+    refit_fitted_capacitors([fitted_capacitor.id], now=START + dt.timedelta(days=8 * 91 + 3))
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    assert assessment.calibration_terms == terms
+    assert assessment.p90_on is not None and assessment.p10_on < assessment.p50_on < assessment.p90_on
+    figure = trend_chart(fitted_capacitor, assessment)
+    band, trend = figure["data"][0], figure["data"][1]
+    half = len(band["x"]) // 2
+    high, low = band["y"][:half], band["y"][half:][::-1]
+    limit_uf = assessment.limit_fraction * fitted_capacitor.part.rated_uf
+    assert dt.date.fromisoformat(trend["x"][-1]) > assessment.p90_on  # drawn on past the late date
+    for drawn, stated in ((low, assessment.p10_on), (trend["y"], assessment.p50_on), (high, assessment.p90_on)):
+        crossed = _dates_where_crossing(trend["x"], drawn, limit_uf)
+        assert crossed is not None and abs((crossed - stated).days) <= 3, (crossed, stated)
+
+
 @pytest.mark.django_db
 def test_a_calibration_from_too_few_capacitors_keeps_the_thin_history_default(client, engineer):
     """Ours: the calibration's own terms need `min_capacitors` (20) distinct capacitors with later readings.

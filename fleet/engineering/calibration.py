@@ -323,6 +323,25 @@ def path_quantiles(
     return np.exp(rows) if model == MODEL_LOG else rows
 
 
+HOURS_PER_DAY = 24.0
+
+
+def crossing_days_ahead(crossing_stress_hours, stress_hours_now, stress_rate):
+    """Calendar days from the newest reading to crossing quantiles given in stress hours (from tau = 0),
+    at the long-run stress rate: the one mapping the stated dates and the drawn band share."""
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        return (np.asarray(crossing_stress_hours, float) - np.asarray(stress_hours_now, float)) / (
+            np.asarray(stress_rate, float) * HOURS_PER_DAY
+        )
+
+
+def stress_hours_ahead(days_ahead, stress_hours_now, stress_rate):
+    """Stress hours (from tau = 0) `days_ahead` calendar days after the newest reading, at the long-run
+    stress rate: the inverse of `crossing_days_ahead`, where the capacitor page draws the path ahead."""
+    days = np.asarray(days_ahead, float)
+    return np.asarray(stress_hours_now, float) + np.asarray(stress_rate, float) * days * HOURS_PER_DAY
+
+
 def _quadratic(coefficients, d):
     return coefficients[0] + d * (coefficients[1] + d * coefficients[2])
 

@@ -11,6 +11,7 @@ worker died writes the same rows once.
 from __future__ import annotations
 
 import datetime as dt
+import json
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,7 +21,12 @@ from django.db import connection, transaction
 from django.db.models import Exists, OuterRef
 from django.utils import timezone
 
-from fleet.engineering.calibration import calibrated_crossing_quantiles, default_calibration
+from fleet.engineering.calibration import (
+    HOURS_PER_DAY,
+    calibrated_crossing_quantiles,
+    crossing_days_ahead,
+    default_calibration,
+)
 from fleet.engineering.capacitor import (
     VERDICT_NAMES,
     VERDICT_OPEN,
@@ -588,8 +594,7 @@ def assess(
         ],
         axis=1,
     )
-    with np.errstate(invalid="ignore", over="ignore"):
-        all_days = ((quantiles - fit.stress_hours_now) / fit.stress_rate - elapsed_h) / 24.0
+    all_days = crossing_days_ahead(quantiles, fit.stress_hours_now, fit.stress_rate) - elapsed_h / HOURS_PER_DAY
     all_days = np.where(finite & np.isfinite(effective), all_days, np.inf)
     all_days = np.where(np.isnan(all_days), np.inf, all_days)
     limit_days, level_days = all_days[:3], all_days[3:]
@@ -835,11 +840,14 @@ def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
     return np.where(known, text.astype(object)[position.reshape(days.shape)], None)
 
 
-def _json_lines(frame: pd.DataFrame) -> np.ndarray:
+def _json_lines(frame: pd.DataFrame, exact: bool = False) -> np.ndarray:
     """Each row of the frame as a JSON object (text), nan as null.
 
     A chunk's rows repeat (a design's figures as new, a limit beyond the horizon on every motor of
-    a design), so each distinct row is written once and spread back."""
+    a design), so each distinct row is written once and spread back. Numbers keep ten decimal
+    places; `exact` (finite numbers only) keeps every digit of each, for numbers read back into a
+    computation: the calibration terms per calendar hour squared are about 1e-11, which ten decimal
+    places turned into 0 or 1e-10 and bent the page's drawn band away from its stated dates."""
     if frame.empty:
         return np.array([], dtype=object)
     row = np.zeros(len(frame), np.int64)
@@ -847,6 +855,10 @@ def _json_lines(frame: pd.DataFrame) -> np.ndarray:
         codes, distinct = pd.factorize(frame[name], use_na_sentinel=False)
         row = pd.factorize(row * len(distinct) + codes)[0]  # numbered again: stays below the row count
     first = np.unique(row, return_index=True)[1]  # factorize numbers rows in order of first sight
+    if exact:
+        rows = frame.iloc[first].values.tolist()
+        lines = [json.dumps(dict(zip(frame.columns, values, strict=True)), allow_nan=False) for values in rows]
+        return np.array(lines, dtype=object)[row]
     text = frame.iloc[first].to_json(orient="records", lines=True, double_precision=10)
     return np.array(text.rstrip("\n").split("\n"), dtype=object)[row]
 
@@ -968,6 +980,8 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "stress_hours_now": unless_aside(fit.stress_hours_now),
             "stress_rate": unless_aside(fit.stress_rate),
             "tempco_ppm_per_k": unless_aside(fit.tempco_ppm_per_k),
-            "calibration_terms": _json_lines(pd.DataFrame(result.terms.T, columns=list(CALIBRATION_FIELDS))),
+            "calibration_terms": _json_lines(
+                pd.DataFrame(result.terms.T, columns=list(CALIBRATION_FIELDS)), exact=True
+            ),
         }
     )

@@ -25,7 +25,7 @@ from django.db.models.functions import Replace, Upper
 from django.utils import timezone
 
 from fleet.charts import trend_figure
-from fleet.engineering.calibration import path_quantiles
+from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, reading_stress_hours
@@ -170,16 +170,22 @@ def _stored_voltage_ratio(part_id: int) -> float:
     return np.nan if ratio is None else float(ratio)
 
 
+CHART_STEP_DAYS = 30  # the drawn path's points ahead: a crossing read off it is within a day or two
+CHART_HORIZON_MAX_DAYS = 10 * 365  # the farthest ahead the page draws, to reach a late P90
+
+
 def trend_chart(
     fitted_capacitor: FittedCapacitor, assessment: Assessment | None, horizon_days: int = 730
 ) -> dict | None:
     """Figure of readings, the stored path and its P10-P90 band, drawn from stored numbers.
 
     Ahead of the newest reading the path is the calibrated one the assessment's dates come from
-    (`calibration.path_quantiles`, with the terms it was made with): the band's edges and the P50 line
-    meet the limit on the page's early, likely and late dates. The stress hours at each reading are
-    recomputed from the readings the fit saw (one capacitor's, a few dozen at most), exactly as the fit
-    computed them.
+    (`calibration.path_quantiles`, with the terms it was made with, at `stress_hours_ahead` of the
+    newest reading the fit used, the inverse of `crossing_days_ahead` that counts the dates): the
+    band's edges and the P50 line meet the limit on the page's early, likely and late dates. It is drawn at least
+    `horizon_days` ahead and on to a quarter past the latest stated date (up to `CHART_HORIZON_MAX_DAYS`). The
+    stress hours at each reading are recomputed from the readings the fit saw (one capacitor's, a few
+    dozen at most), exactly as the fit computed them.
     """
     if assessment is None or not assessment.has_trend:
         return None
@@ -202,7 +208,6 @@ def trend_chart(
         else assessment.tempco_ppm_per_k,
     )
     flagged = set(assessment.flagged_reading_ids)
-    last = readings[-1]["taken_at"]
     # A reading a correction superseded is not drawn (the fit left it out too; its correction is drawn).
     standing = np.flatnonzero(~frame["superseded"].to_numpy(bool))
     shown = standing[_chart_rows(frame["id"].to_numpy(np.int64)[standing], flagged)]
@@ -212,13 +217,13 @@ def trend_chart(
         {"date": r["taken_at"].date().isoformat(), "capacitance_uf": round(float(c), 3), "flagged": r["id"] in flagged}
         for r, c in zip(readings, corrected, strict=True)
     ]
-    future_days = np.linspace(0, horizon_days, 25)[1:]
-    taus = list(reading_taus) + list(assessment.stress_hours_now + assessment.stress_rate * future_days * 24.0)
-    dates = [r["taken_at"].date().isoformat() for r in readings] + [
-        (last + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
-    ]
-    low, mid, high = path_quantiles(
-        assessment.trend_model,
+    newest = assessment.fitted_through
+    stated = [day for day in (assessment.p10_on, assessment.p50_on, assessment.p90_on) if day is not None]
+    if stated:
+        latest_days = (max(stated) - newest.date()).days + 91
+        horizon_days = min(max(horizon_days, latest_days), CHART_HORIZON_MAX_DAYS)
+    future_days = np.linspace(0, horizon_days, int(np.ceil(horizon_days / CHART_STEP_DAYS)) + 1)[1:]
+    stored = (
         assessment.trend_intercept,
         assessment.trend_slope_per_hour,
         assessment.trend_curvature or 0.0,
@@ -226,8 +231,12 @@ def trend_chart(
         assessment.stress_hours_now,
         assessment.stress_rate,
         assessment_terms(assessment, fitted_capacitor.part.dielectric),
-        np.array(taus),
     )
+    ahead_taus = stress_hours_ahead(future_days, assessment.stress_hours_now, assessment.stress_rate)
+    low, mid, high = path_quantiles(assessment.trend_model, *stored, np.concatenate([reading_taus, ahead_taus]))
+    dates = [r["taken_at"].date().isoformat() for r in readings] + [
+        (newest + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
+    ]
     path = {
         "dates": dates,
         "mid_uf": [round(float(v) * rated, 3) for v in mid],
