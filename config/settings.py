@@ -170,12 +170,9 @@ REST_FRAMEWORK = {
     "DEFAULT_PERMISSION_CLASSES": ["rest_framework.permissions.IsAuthenticated"],
     # JSON to every client, a browser too: the API is for scripts, and the pages are the screens.
     "DEFAULT_RENDERER_CLASSES": ["rest_framework.renderers.JSONRenderer"],
-    # JSON the parser cannot read (nested too deep) and a body past the size limit answer JSON too.
-    "DEFAULT_PARSER_CLASSES": [
-        "fleet.api_bodies.ReadableJSONParser",
-        "rest_framework.parsers.FormParser",
-        "rest_framework.parsers.MultiPartParser",
-    ],
+    # Bodies are JSON objects only (another content type answers 415); JSON the parser cannot read (nested
+    # too deep) and a body past the size limit answer JSON too.
+    "DEFAULT_PARSER_CLASSES": ["fleet.api_bodies.ReadableJSONParser"],
     "EXCEPTION_HANDLER": "fleet.api_bodies.api_exception_handler",
     "DEFAULT_PAGINATION_CLASS": "rest_framework.pagination.PageNumberPagination",
     "PAGE_SIZE": 100,

@@ -7,6 +7,8 @@ reading, through the same service and checks as the form, stored with source "ap
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.db.models import F
@@ -17,14 +19,14 @@ from rest_framework.pagination import CursorPagination, PageNumberPagination
 from rest_framework.response import Response
 from rest_framework.settings import api_settings
 
-from .filters import AssessmentFilter, ReadingFilter
+from .filters import AssessmentFilter, ReadingFilter, parameter_problems
 from .imports.columns import parse_site_time
 from .models import Assessment, FittedCapacitor, Reading, site_zone
 from .roles import scope_to_user
 from .services.bulk import storable_ids
 from .services.counts import assessed_total
 from .services.pages import in_service_assessments
-from .services.readings import NeedsConfirmation, record_reading
+from .services.readings import KeyUsedBefore, NeedsConfirmation, record_reading
 from .services.substitutes import substitutes_for
 
 
@@ -82,12 +84,16 @@ class NumberedPages(CheckedPageSize, PageNumberPagination):
 
 
 class KnownParametersOnly:
-    """A list view that refuses a query parameter it does not know (a misspelt filter, `risks=watch`, would
-    otherwise list everything) with a 400 naming it and the ones it takes: its filters, its pager's (`page`,
-    `page_size`, `cursor`: whichever it uses), an ordering or search backend's, and `format`."""
+    """A view that refuses a query parameter it does not take (a misspelt filter, `risks=watch`, would
+    otherwise list everything) or one given twice, with a 400 naming it (`filters.parameter_problems`, the
+    exports' rule too): it takes its filters, its pager's (`page`, `page_size`, `cursor`: whichever it
+    uses), an ordering backend's, the parameters it reads itself (`query_parameters`), and `format`,
+    which must name a format it answers in (`json`), not a bare 404."""
+
+    query_parameters: tuple[str, ...] = ()
 
     def known_parameters(self) -> set[str]:
-        known = {api_settings.URL_FORMAT_OVERRIDE}
+        known = {api_settings.URL_FORMAT_OVERRIDE, *self.query_parameters}
         filterset_class = getattr(self, "filterset_class", None)
         if filterset_class is not None:
             known |= set(filterset_class.base_filters)
@@ -97,15 +103,25 @@ class KnownParametersOnly:
                 known.add(getattr(source, attribute, None))
         return known - {None}
 
-    def list(self, request, *args, **kwargs):
-        known = self.known_parameters()
-        unknown = sorted(set(request.query_params) - known)
-        if unknown:
-            takes = ", ".join(sorted(known))
-            raise serializers.ValidationError(
-                {name: f"Not a parameter of this list, which takes: {takes}." for name in unknown}
-            )
-        return super().list(request, *args, **kwargs)
+    def formats_answered(self) -> list[str]:
+        return sorted({renderer.format for renderer in self.get_renderers()})
+
+    def asked_format_unknown(self, request) -> bool:
+        asked = request.query_params.get(api_settings.URL_FORMAT_OVERRIDE)
+        return bool(asked) and asked not in self.formats_answered()
+
+    def perform_content_negotiation(self, request, force=False):
+        """JSON for a `format` the API does not answer in, so that `initial` can name it after sign-in."""
+        return super().perform_content_negotiation(request, force=force or self.asked_format_unknown(request))
+
+    def initial(self, request, *args, **kwargs):
+        super().initial(request, *args, **kwargs)  # sign-in and permissions first
+        problems = parameter_problems(request.query_params, self.known_parameters())
+        if "format" not in problems and self.asked_format_unknown(request):
+            formats = ", ".join(self.formats_answered())
+            problems["format"] = f"Not a format of the API, which answers in: {formats}."
+        if problems:
+            raise serializers.ValidationError(problems)
 
 
 class AssessmentSerializer(serializers.ModelSerializer):
@@ -175,7 +191,21 @@ class SiteTime(serializers.DateTimeField):
             raise serializers.ValidationError(str(error)) from None
 
 
-class ReadingSerializer(serializers.ModelSerializer):
+class KnownFieldsOnly:
+    """A body field the serializer does not take (a misspelt `case_temprature_c`, an `id` or `source` it
+    sets itself) is a 400 naming it with the fields it takes, never dropped unseen."""
+
+    def to_internal_value(self, data):
+        if isinstance(data, Mapping):
+            takes = sorted(name for name, field in self.fields.items() if not field.read_only)
+            unknown = sorted(set(data) - set(takes))
+            if unknown:
+                words = f"Not a field of this call, which takes: {', '.join(takes)}."
+                raise serializers.ValidationError({name: [words] for name in unknown})
+        return super().to_internal_value(data)
+
+
+class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
     taken_at = SiteTime(required=False)
     confirmed = serializers.BooleanField(write_only=True, required=False, default=False)
     # Id of the reading this one corrects (same capacitor, not corrected before); both are kept.
@@ -288,6 +318,8 @@ class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):
                 supersedes_id=supersedes_id,
                 source=Reading.Source.API,
             )
+        except KeyUsedBefore as error:
+            return Response({"Idempotency-Key": [key_used_words(error.earlier)]}, status=status.HTTP_400_BAD_REQUEST)
         except NeedsConfirmation as error:
             body = {**error.message_dict, "confirm": ["Send again with confirmed=true if the value is right."]}
             return Response(body, status=status.HTTP_409_CONFLICT)
@@ -295,6 +327,17 @@ class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):
             return Response(error.message_dict, status=status.HTTP_400_BAD_REQUEST)
         answer = status.HTTP_200_OK if reading.replayed else status.HTTP_201_CREATED
         return Response(self.get_serializer(reading).data, status=answer)
+
+
+def key_used_words(earlier: Reading) -> str:
+    """An Idempotency-Key sent again with other values, or for another capacitor, in the API's words."""
+    taken = f"{earlier.capacitance_uf:g} µF taken {earlier.taken_at:%Y-%m-%dT%H:%MZ}"
+    where = f"reading {earlier.id} ({taken}) of fitted capacitor {earlier.fitted_capacitor_id}"
+    return (
+        f"This Idempotency-Key already saved {where}, with other values: nothing was saved now. To log these "
+        f"values as another reading send them under a new key; to correct that reading, add "
+        f'"supersedes": {earlier.id}.'
+    )
 
 
 class BulkReadingSerializer(ReadingSerializer):
@@ -342,11 +385,13 @@ class ReadingList(KnownParametersOnly, generics.ListAPIView):
         )
 
 
-class FittedCapacitorSubstitutes(generics.GenericAPIView):
+class FittedCapacitorSubstitutes(KnownParametersOnly, generics.GenericAPIView):
     """GET /api/fitted-capacitors/<id>/substitutes/?parts=CODE1,CODE2: one entry per candidate part (and pair),
     suitable first, with `verdict`, `reasons` and the operating figures with that part fitted."""
 
     permission_classes = [permissions.IsAuthenticated, ModelPermissionsWithView]
+    pagination_class = None  # one answer, not pages
+    query_parameters = ("parts",)
     queryset = FittedCapacitor.objects.none()  # for the permission class's model lookup
 
     def get(self, request, *args, **kwargs):

@@ -1,13 +1,13 @@
-"""The API's request bodies: JSON the parser cannot read, and bodies Django refuses, answered in JSON with
-`detail` (settings: DEFAULT_PARSER_CLASSES, EXCEPTION_HANDLER). Apart from api.py, which rest_framework's
-views import through the settings."""
+"""The API's request bodies: JSON the parser cannot read, bodies of another content type, and bodies Django
+refuses, answered in JSON with `detail` (settings: DEFAULT_PARSER_CLASSES, EXCEPTION_HANDLER). Apart from
+api.py, which rest_framework's views import through the settings."""
 
 from __future__ import annotations
 
 from django.conf import settings
 from django.core.exceptions import RequestDataTooBig, TooManyFieldsSent, TooManyFilesSent
 from rest_framework import status
-from rest_framework.exceptions import ParseError
+from rest_framework.exceptions import ParseError, UnsupportedMediaType
 from rest_framework.parsers import JSONParser
 from rest_framework.response import Response
 
@@ -25,7 +25,14 @@ class ReadableJSONParser(JSONParser):
 
 def api_exception_handler(exc, context):
     """DRF's answers, and a JSON one with `detail` for a body Django refuses before any parser (past
-    DATA_UPLOAD_MAX_MEMORY_SIZE: 413; too many form fields or files: 400) where Django answers an HTML 400."""
+    DATA_UPLOAD_MAX_MEMORY_SIZE: 413; too many form fields or files: 400) where Django answers an HTML 400;
+    a body that is not JSON (a form's, say) answers 415 saying what to send."""
+    if isinstance(exc, UnsupportedMediaType):
+        sent = context["request"].content_type or "no Content-Type"
+        return Response(
+            {"detail": f"The body was sent as {sent}: send a JSON object, with Content-Type: application/json."},
+            status=status.HTTP_415_UNSUPPORTED_MEDIA_TYPE,
+        )
     if isinstance(exc, RequestDataTooBig):
         limit = settings.DATA_UPLOAD_MAX_MEMORY_SIZE
         return Response(

@@ -15,7 +15,7 @@ from django.core.validators import MaxValueValidator, MinValueValidator
 
 from .engineering.lifedata import MAX_REPLACEMENT_COST
 from .engineering.planning import PLAN_HORIZON_DAYS
-from .engineering.rules import parse_numbers
+from .engineering.rules import ACCEPTED_DAYS_WORDS, FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY, parse_numbers
 from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from .roles import scope_to_user
 
@@ -25,16 +25,40 @@ def _sites_of(request):
     return scope_to_user(Site.objects.all(), request.user if request is not None else None)
 
 
+# What a filter says of a value it does not know: the value, and where the valid ones are listed.
+UNKNOWN_SITE_WORDS = (
+    "No site %(value)s among the sites you work at (codes are exact, capitals included): the plan page, /plan/, "
+    "lists them."
+)
+UNKNOWN_PART_WORDS = (
+    "No part %(value)s in the catalogue (codes are exact, capitals included): the life-data page, /life/, lists them."
+)
+UNKNOWN_MOTOR_WORDS = (
+    "No motor %(value)s at the sites you work at (tags are exact, capitals included): find it by part of its tag "
+    "at /find/."
+)
+UNKNOWN_RISK_WORDS = "%(value)s is not a risk level: " + ", ".join(Assessment.Risk.values) + "."
+
+
 def _site_filter(field_name: str) -> django_filters.ModelChoiceFilter:
     """A site by its code, among the requesting user's sites: an unknown code, or a site the user
-    does not work at, is a message naming the parameter, not an empty answer."""
-    return django_filters.ModelChoiceFilter(field_name=field_name, queryset=_sites_of, to_field_name="code")
+    does not work at, is a message naming the parameter and the code, not an empty answer."""
+    return django_filters.ModelChoiceFilter(
+        field_name=field_name,
+        queryset=_sites_of,
+        to_field_name="code",
+        error_messages={"invalid_choice": UNKNOWN_SITE_WORDS},
+    )
 
 
 def _part_filter(field_name: str) -> django_filters.ModelChoiceFilter:
-    """A catalogue part by its code: an unknown code is a message naming the parameter, not an empty answer."""
+    """A catalogue part by its code: an unknown code is a message naming the parameter and the code, not an
+    empty answer."""
     return django_filters.ModelChoiceFilter(
-        field_name=field_name, queryset=CapacitorPart.objects.all(), to_field_name="code"
+        field_name=field_name,
+        queryset=CapacitorPart.objects.all(),
+        to_field_name="code",
+        error_messages={"invalid_choice": UNKNOWN_PART_WORDS},
     )
 
 
@@ -42,11 +66,9 @@ def _motors_of(request):
     return scope_to_user(Motor.objects.all(), request.user if request is not None else None)
 
 
-# The days a date filter takes: wide of every record (nothing is recorded before 1950 nor planned past the
-# 30-year horizon), and well inside what Python's dates and pandas' timestamps hold (to 2262-04-11), so a
-# day after `until` or a column of filter days never overflows.
-FIRST_FILTER_DAY, LAST_FILTER_DAY = dt.date(1900, 1, 1), dt.date(2199, 12, 31)
-FILTER_DAY_WORDS = f"a date from {FIRST_FILTER_DAY} to {LAST_FILTER_DAY} (YYYY-MM-DD)"
+# The days a date filter takes: the rulebook's accepted span.
+FIRST_FILTER_DAY, LAST_FILTER_DAY = FIRST_ACCEPTED_DAY.astype(dt.date), LAST_ACCEPTED_DAY.astype(dt.date)
+FILTER_DAY_WORDS = f"a date {ACCEPTED_DAYS_WORDS} (YYYY-MM-DD)"
 
 
 class DayFilter(django_filters.DateFilter):
@@ -64,12 +86,27 @@ class AssessmentFilter(django_filters.FilterSet):
     """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31"""
 
     site = _site_filter("site")  # the stored site (triggers, 0019)
-    risk = django_filters.ChoiceFilter(field_name="risk", choices=Assessment.Risk.choices)
+    risk = django_filters.ChoiceFilter(
+        field_name="risk", choices=Assessment.Risk.choices, error_messages={"invalid_choice": UNKNOWN_RISK_WORDS}
+    )
     replace_by_before = DayFilter(field_name="replace_by", lookup_expr="lte")
 
     class Meta:
         model = Assessment
         fields = ["site", "risk", "replace_by_before"]
+
+
+class DaySpanForm(forms.Form):
+    """A `since` later than its `until` is named at both (it would list nothing, unexplained)."""
+
+    def clean(self):
+        data = super().clean()
+        since, until = data.get("since"), data.get("until")
+        if since and until and since > until:
+            words = f"since ({since}) is later than until ({until}): nothing lies between; swap them?"
+            self.add_error("since", words)
+            self.add_error("until", words)
+        return data
 
 
 class ReadingFilter(django_filters.FilterSet):
@@ -80,7 +117,10 @@ class ReadingFilter(django_filters.FilterSet):
     part = _part_filter("fitted_capacitor__part")
     # A motor by its tag, among the user's sites (an unknown tag, or one elsewhere, is named).
     motor = django_filters.ModelChoiceFilter(
-        field_name="fitted_capacitor__motor", queryset=_motors_of, to_field_name="asset_tag"
+        field_name="fitted_capacitor__motor",
+        queryset=_motors_of,
+        to_field_name="asset_tag",
+        error_messages={"invalid_choice": UNKNOWN_MOTOR_WORDS},
     )
     since = DayFilter(method="taken_since")
     until = DayFilter(method="taken_until")
@@ -88,6 +128,7 @@ class ReadingFilter(django_filters.FilterSet):
     class Meta:
         model = Reading
         fields = ["site", "part", "motor", "since", "until"]
+        form = DaySpanForm
 
     def taken_since(self, queryset, name, value):
         return queryset.filter(taken_at__gte=utc_midnight(value))
@@ -116,8 +157,34 @@ class BadFilter(ValueError):
     """A query-string value that cannot be read; the message names the parameter."""
 
 
+def parameter_problems(query, known) -> dict[str, str]:
+    """The one rule of the API's lists and the exports on the parameters of a query string: the message on
+    each one not taken (a misspelt filter, `risks=watch`, would otherwise list everything), with the ones
+    taken, and on each one given more than once (`site=CST&site=PKH` would otherwise use one of them
+    silently). {} when every parameter is taken and given once."""
+    takes = ", ".join(sorted(known))
+    problems = {}
+    for name in query:
+        values = query.getlist(name)
+        if name not in known:
+            problems[name] = f"Not a parameter of this list, which takes: {takes}."
+        elif len(values) > 1:
+            given = ", ".join(values)
+            problems[name] = f"Give {name} once (given {len(values)} times: {given}); one value per call."
+    return problems
+
+
+def problems_text(problems: dict[str, str]) -> str:
+    """Problems by parameter as one line: "site: ...; risk: ..."."""
+    return "; ".join(f"{name}: {message}" for name, message in problems.items())
+
+
 def filtered(filterset_class, query, queryset, request=None):
-    """`queryset` filtered by the query string, or BadFilter naming each parameter that cannot be read."""
+    """`queryset` filtered by the query string, or BadFilter naming each parameter that cannot be read, is
+    not one of the filterset's, or is given twice."""
+    problems = parameter_problems(query, set(filterset_class.base_filters))
+    if problems:
+        raise BadFilter(problems_text(problems))
     parameters = filterset_class(query, queryset=queryset, request=request)
     if not parameters.is_valid():
         raise BadFilter("; ".join(f"{name}: {' '.join(errors)}" for name, errors in parameters.errors.items()))
@@ -218,7 +285,9 @@ class BoundedNumberFilter(django_filters.NumberFilter):
 class PlanParameters(_PageParameters):
     """The plan page's and its downloads' site and horizon (the plan itself comes from a service)."""
 
-    site = django_filters.ModelChoiceFilter(queryset=_sites_of, to_field_name="code", method="keep")
+    site = django_filters.ModelChoiceFilter(
+        queryset=_sites_of, to_field_name="code", method="keep", error_messages={"invalid_choice": UNKNOWN_SITE_WORDS}
+    )
     days = BoundedNumberFilter(
         method="keep",
         validators=[MinValueValidator(SHORTEST_DAYS, HORIZON_WORDS), MaxValueValidator(LONGEST_DAYS, HORIZON_WORDS)],

@@ -231,7 +231,8 @@ def test_every_export_holds_the_users_sites_only(client, awkward_fleet, kind, fi
     user = make_user(RELIABILITY_ENGINEER if kind != "plan" else PLANNER)
     SiteMembership.objects.create(user=user, site=sites[0])
     client.force_login(user)
-    for query in ({"days": 730}, {"days": 730, "site": "SUD"}):
+    horizon = {"days": 730} if kind == "plan" else {}  # only the plan takes a horizon; the others refuse `days`
+    for query in (horizon, {**horizon, "site": "SUD"}):
         if "site" in query:
             # A site the user does not work at is refused like an unknown one, naming the parameter (the
             # plan too: its page notes it and shows every site, but a file cannot carry the note).
@@ -379,3 +380,30 @@ def test_xlsx_keeps_every_value_kind_and_opens_in_both_reading_modes():
         assert about["model_version"] == "test" and about["at"] == "datetime"
     sheet = load_workbook(io.BytesIO(content))["values"]
     assert sheet["A1"].font.b and sheet["A3"].data_type == "s" and sheet.auto_filter.ref == "A1:F4"
+
+
+@pytest.mark.parametrize(
+    "kind, takes",
+    [
+        ("readings", "motor, part, since, site, until"),
+        ("assessments", "replace_by_before, risk, site"),
+        ("life-data", "part, site"),
+        ("plan", "days, site"),
+    ],
+)
+def test_an_export_refuses_a_parameter_it_does_not_take_or_one_given_twice(client, awkward_fleet, kind, takes):
+    """The README: the exports refuse what the API lists refuse, through the same rule
+    (`filters.parameter_problems`). Before: ?bogus=1 answered 200 with every row, and a site given twice used one."""
+    client.force_login(make_user(RELIABILITY_ENGINEER))
+    address = reverse("export", args=[kind, "csv"])
+    unknown = client.get(address, {"bogus": "1"})
+    assert unknown.status_code == 400
+    assert (
+        unknown.content.decode()
+        == f"Cannot read the filter: bogus: Not a parameter of this list, which takes: {takes}."
+    )
+    twice = client.get(f"{address}?site=NORD&site=SUD")
+    assert twice.status_code == 400
+    assert "site: Give site once (given 2 times: NORD, SUD)" in twice.content.decode()
+    about = client.get(reverse("export_about", args=[kind]), {"bogus": "1"})
+    assert about.status_code == 400 and "bogus" in about.json()["error"]

@@ -105,6 +105,11 @@ def test_a_finished_back_test_shows_its_stored_figures(client, engineer):
 
     for cutoff in results["cutoffs"]:
         assert f'<td class="nowrap" data-label="Cut-off">{cutoff["cutoff"]}</td>' in body
+        # Each count under the heading of what it counts: every capacitor in service with readings, and the
+        # forecasts (those not yet past their limit); "Capacitors" headed the one and the command the other.
+        assert f'data-label="In service">{thousands(cutoff["capacitors"])}</td>' in body
+        assert f'data-label="Forecasts">{thousands(cutoff["default"]["capacitors"])}</td>' in body
+    assert ">Capacitors</th>" not in body
     assert ">-</td>" in body  # later cut-offs saw no crossing: a dash, not "None"
     assert "None" not in body
     for code in results["pooled"]["calibrated"]["part"]:
@@ -270,3 +275,25 @@ def test_the_figures_have_a_fixed_height_and_the_nominal_references():
     assert coverage["layout"]["height"] == CHART_HEIGHT_PX
     assert coverage["layout"]["shapes"][0]["y0"] == coverage["layout"]["shapes"][0]["y1"] == 80
     assert list(coverage["data"][0]["y"]) == [80, None]
+
+
+def test_the_command_heads_each_count_for_what_it_counts(db):
+    """The command's "capacitors" counted the forecasts (capacitors not yet past their limit) while the page's
+    counted every capacitor in service with readings: 325 against 345 a cut-off on the demo under one word.
+    Now each is under its own heading, on every cut-off's line, as the page has them."""
+    import io
+
+    from django.core.management import call_command
+
+    straight_line_fleet()
+    output = io.StringIO()
+    call_command("backtest", "--quarters", "4", stdout=output)
+    text = output.getvalue()
+    assert "capacitors" not in text.split("\n\ndefault bands")[1].split("\n")[1], "no column headed capacitors"
+    results = Backtest.objects.get().results
+    for variant in ("default", "calibrated"):
+        table = text.split(f"\n{variant} bands (scores in %)\n")[1].split("\n")
+        assert table[0].split()[:4] == ["cut-off", "in", "service", "forecasts"]
+        for line, cutoff in zip(table[1:], results["cutoffs"], strict=False):
+            cells = line.split()
+            assert cells[:3] == [cutoff["cutoff"], str(cutoff["capacitors"]), str(cutoff[variant]["capacitors"])]

@@ -466,6 +466,12 @@ def first_problem_by_field(problems: list[tuple[np.ndarray, str, str]]) -> dict[
     return errors
 
 
+# The days any date or time sent or typed may name (filters, reading times): wide of every record (nothing is
+# recorded before 1950 nor planned past the 30-year horizon), and well inside what Python's dates and pandas'
+# timestamps hold (to 2262-04-11), so a day after the last or a column of such days never overflows (ours).
+FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY = np.datetime64("1900-01-01", "D"), np.datetime64("2199-12-31", "D")
+ACCEPTED_DAYS_WORDS = f"from {FIRST_ACCEPTED_DAY} to {LAST_ACCEPTED_DAY}"
+
 # A capacitor fitted before 1950 predates the motors and records this tool keeps (ours); a date ahead of
 # today is a slip of the year.
 EARLIEST_SERVICE_DAY = np.datetime64("1950-01-01", "D")

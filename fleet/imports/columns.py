@@ -12,7 +12,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from fleet.engineering.rules import known_time_zone, parse_numbers
+from fleet.engineering.rules import (
+    ACCEPTED_DAYS_WORDS,
+    FIRST_ACCEPTED_DAY,
+    LAST_ACCEPTED_DAY,
+    known_time_zone,
+    parse_numbers,
+)
 from fleet.imports.files import TextColumns, row_numbers
 
 READING_COLUMNS = {
@@ -211,7 +217,8 @@ def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarr
     across a daylight-saving change), hence one parse with utc=True. A time without one is
     wall-clock time in the row's zone (`zones`: its site's), localised one zone at a time; a
     local time the clocks skip or repeat there, or a zone nobody knows, gets a message. A date
-    without a time of day gets one too: midnight is not a time anyone measured at.
+    without a time of day gets one too: midnight is not a time anyone measured at; so does a time outside the
+    rulebook's accepted span (year 0001 at +14:00 is in year 0 at UTC).
     """
     texts = texts.reset_index(drop=True)
     zones = zones.reset_index(drop=True)
@@ -238,6 +245,10 @@ def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarr
                 f"this local time is skipped or repeated in {zone} (clocks changed): add its offset, {b} or {a}"
                 for b, a in zip(before, after, strict=True)
             ]
+    first, after_last = (pd.Timestamp(day, tz="UTC") for day in (FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY + 1))
+    outside = (parsed.notna() & ((parsed < first) | (parsed >= after_last))).to_numpy()
+    parsed[outside] = pd.NaT
+    messages[outside] = f"the date is outside the span accepted, {ACCEPTED_DAYS_WORDS} (UTC): check the year"
     return parsed, messages
 
 

@@ -10,7 +10,17 @@ from dataclasses import replace
 from django.utils import timezone
 
 from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, Column, Table
-from fleet.filters import AssessmentFilter, BadFilter, LifeDataFilter, ReadingFilter, filtered, plan_parameters
+from fleet.filters import (
+    AssessmentFilter,
+    BadFilter,
+    LifeDataFilter,
+    PlanParameters,
+    ReadingFilter,
+    filtered,
+    parameter_problems,
+    plan_parameters,
+    problems_text,
+)
 from fleet.models import Assessment, FittedCapacitor, Reading
 from fleet.roles import scope_to_user
 
@@ -242,6 +252,9 @@ PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
 
 def plan_table(query, user, request=None) -> Table:
     """The replacement plan as the plan page shows it (site and horizon from the query string)."""
+    unknown_or_repeated = parameter_problems(query, set(PlanParameters.base_filters))
+    if unknown_or_repeated:
+        raise BadFilter(problems_text(unknown_or_repeated))
     site, horizon, problems = plan_parameters(query, request=request)
     if problems:  # a file cannot carry the page's note: a horizon or site it cannot use is refused by name,
         raise BadFilter("; ".join(problems))  # as the other exports refuse theirs, never taken as the default

@@ -230,6 +230,15 @@ def record_reading(
     return reading
 
 
+class KeyUsedBefore(ValidationError):
+    """A client key sent again with other values, or for another capacitor: at `client_key` in the reading
+    form's words; `earlier` is the reading saved under the key, for the API's own words."""
+
+    def __init__(self, earlier: Reading, form_words: str):
+        super().__init__({"client_key": form_words})
+        self.earlier = earlier
+
+
 def _earlier_submission(fitted_capacitor: FittedCapacitor, stored_key: str, values: dict) -> Reading | None:
     """The reading saved under this key before, if the values are the same; a key sent again
     with other values is refused by name, so nothing typed is silently dropped."""
@@ -237,14 +246,13 @@ def _earlier_submission(fitted_capacitor: FittedCapacitor, stored_key: str, valu
     if earlier is None:
         return None
     if earlier.fitted_capacitor_id != fitted_capacitor.id:
-        raise ValidationError({"client_key": "This key was already used for a reading of another capacitor."})
+        raise KeyUsedBefore(earlier, "This key was already used for a reading of another capacitor.")
     if not _same_values(earlier, values):
-        raise ValidationError(
-            {
-                "client_key": f"This page was already saved as a reading ({earlier.capacitance_uf:g} µF, "
-                f"{earlier.taken_at:%Y-%m-%d %H:%M} UTC) and these values differ. Save again to log them as "
-                "another reading."
-            }
+        raise KeyUsedBefore(
+            earlier,
+            f"This page was already saved as a reading ({earlier.capacitance_uf:g} µF, "
+            f"{earlier.taken_at:%Y-%m-%d %H:%M} UTC) and these values differ. Save again to log them as "
+            "another reading.",
         )
     earlier.replayed = True
     return earlier

@@ -37,17 +37,23 @@ class Command(BaseCommand):
             "recall_365d",
             "precision_365d",
         )
-        header = "cut-off     capacitors  crossed  in P10-P90  before P10  after P90  recall 365 d  precision 365 d"
+        self.stdout.write(
+            "in service: capacitors in service with readings at the cut-off; forecasts: those of them not yet past "
+            "their limit, each given a forecast of its crossing; crossed: of the forecasts, how many crossed later"
+        )
+        header = (
+            "cut-off   in service  forecasts  crossed  in P10-P90  before P10  after P90  recall 365 d  precision 365 d"
+        )
         for variant in ("default", "calibrated"):
             self.stdout.write(f"\n{variant} bands (scores in %)\n{header}")
-            rows = [(row["cutoff"], row.get(variant, {})) for row in results.get("cutoffs", [])]
+            rows = [(row["cutoff"], row["capacitors"], row.get(variant, {})) for row in results.get("cutoffs", [])]
             pooled = results.get("pooled", {}).get(variant, {}).get("all")
-            rows += [("pooled", pooled)] if pooled else []
-            for label, scores in rows:
+            rows += [("pooled", None, pooled)] if pooled else []
+            for label, in_service, scores in rows:
                 cells = [
                     f"{scores.get(c, 0):>10d}" if c in columns[:2] else f"{_pct(scores.get(c)):>11}" for c in columns
                 ]
-                self.stdout.write(f"{label:<10}" + "".join(cells))
+                self.stdout.write(f"{label:<10}{'-' if in_service is None else in_service:>10}" + "".join(cells))
         for family, values in results.get("calibration", {}).items():
             self.stdout.write(
                 f"calibration {family}: {calibration_words(values)} "
