@@ -227,7 +227,19 @@ RISK_COLOURS = {
     "sound": "#2f6b3a",
     "not assessed yet": "#9ca3af",
 }
-SERIES_COLOURS = ("#0b5c8a", "#c2410c", "#4d7c0f", "#7e22ce", "#0f766e", "#a16207", "#be123c", "#475569")
+# Sites and parts: hues apart from the risk colours above (no red, amber, blue or green, which the same
+# dashboard uses for risk levels), each with its own bar pattern so that neither colour vision nor a grey
+# printout has to tell them apart.
+SERIES_COLOURS = ("#6d28d9", "#0891b2", "#a21caf", "#475569", "#0d9488", "#86198f", "#1e293b", "#3f3f46")
+SERIES_PATTERNS = ("", "/", ".", "x", "\\", "+", "-", "|")
+
+
+def _series_marker(k: int) -> dict:
+    """The k-th site's or part's bar marker: a colour and a pattern, both cycling."""
+    return {
+        "color": SERIES_COLOURS[k % len(SERIES_COLOURS)],
+        "pattern": {"shape": SERIES_PATTERNS[k % len(SERIES_PATTERNS)], "fgcolor": "#ffffff", "size": 7},
+    }
 DASHBOARD_HEIGHT_PX = 360
 WORKLOAD_HEIGHT_PX = 400
 SPARES_HEIGHT_PX = 460  # room for one legend line per part on a phone
@@ -250,8 +262,8 @@ def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list
     for risk, counts in by_risk.items():
         figure.add_trace(go.Bar(x=weeks, y=counts, name=risk, marker_color=RISK_COLOURS.get(risk, INK)))
         groups.append(0)
-    for (site, counts), colour in zip(by_site.items(), SERIES_COLOURS * 8, strict=False):
-        figure.add_trace(go.Bar(x=weeks, y=counts, name=site, marker_color=colour, visible=False))
+    for k, (site, counts) in enumerate(by_site.items()):
+        figure.add_trace(go.Bar(x=weeks, y=counts, name=site, marker=_series_marker(k), visible=False))
         groups.append(1)
     figure.add_trace(
         go.Scatter(
@@ -293,13 +305,13 @@ def spares_figure(months: list[str], parts: list[dict], cost_per_month: list[flo
     """Spares needed per month, stacked by part (planned replacements plus expected failures),
     with their cost on a second axis."""
     figure = go.Figure()
-    for row, colour in zip(parts, SERIES_COLOURS * 8, strict=False):
+    for k, row in enumerate(parts):
         figure.add_trace(
             go.Bar(
                 x=months,
                 y=[round(v, 2) for v in row["need"]],
                 name=row["code"],
-                marker_color=colour,
+                marker=_series_marker(k),
                 customdata=[[round(p), round(f, 2)] for p, f in zip(row["planned"], row["failures"], strict=True)],
                 hovertemplate="%{x|%b %Y}: %{y:.1f} (planned %{customdata[0]}, failures %{customdata[1]})"
                 f"<extra>{row['code']}</extra>",

@@ -146,6 +146,29 @@ def test_the_spares_chart_names_months_with_their_year_and_steps_the_cost_in_rou
     assert "parts' prices" in cost_axis["title"]["text"]  # no currency is known: the unit prices are entered in
 
 
+def test_parts_and_sites_never_wear_a_risk_colour_and_each_has_its_own_pattern():
+    """The spares chart drew one part in the "replace now" red and another in the "sound" green, on the page
+    whose risk badges use those colours (ours): parts and sites take hues apart from every risk colour (no
+    channel within 40 of one), and a bar pattern of their own, so neither colour vision nor grey print decides."""
+    from fleet.charts import RISK_COLOURS, workload_figure
+
+    months = [dt.date(2027, m, 1).isoformat() for m in range(1, 13)]
+    parts = [{"code": f"P{k}", "need": [1.0] * 12, "planned": [1] * 12, "failures": [0.0] * 12} for k in range(8)]
+    bars = [t for t in spares_figure(months, parts, [0.0] * 12)["data"] if t["type"] == "bar"]
+    sites = {f"S{k}": [1] * 12 for k in range(8)}
+    workload = workload_figure(months, {"watch": [1] * 12}, sites, [0] * 12)["data"]
+    site_bars = [t for t in workload if t["type"] == "bar" and t["name"] in sites]
+
+    def rgb(colour):
+        return np.array([int(colour[i : i + 2], 16) for i in (1, 3, 5)])
+
+    for trace in bars + site_bars:
+        colour = trace["marker"]["color"]
+        assert all(np.abs(rgb(colour) - rgb(risk)).max() > 40 for risk in RISK_COLOURS.values()), colour
+    assert len({t["marker"]["pattern"]["shape"] for t in bars}) == 8
+    assert len({(t["marker"]["color"], t["marker"]["pattern"]["shape"]) for t in site_bars}) == 8
+
+
 def test_risk_mix_and_readings_by_route():
     site = make_site(code="R1")
     part = make_part()
