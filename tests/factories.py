@@ -38,7 +38,8 @@ def make_part(**kwargs) -> CapacitorPart:
     return CapacitorPart.objects.create(**values)
 
 
-def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
+def motor_values(site=None, with_circuit=True, **kwargs) -> dict:
+    """A motor's fields: the example fan at `site` (a new site if none), with its circuit unless not."""
     values = dict(
         asset_tag=f"M-{next(_serial):05d}",
         site=site or make_site(),
@@ -48,7 +49,11 @@ def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
     if with_circuit:
         values.update(EXAMPLE_FAN_CIRCUIT)
     values.update(kwargs)
-    return Motor.objects.create(**values)
+    return values
+
+
+def make_motor(site=None, with_circuit=True, **kwargs) -> Motor:
+    return Motor.objects.create(**motor_values(site, with_circuit, **kwargs))
 
 
 def make_fitted_capacitor(

@@ -7,6 +7,7 @@ import zoneinfo
 
 import pytest
 from django.db import connection
+from django.template.defaultfilters import date as date_format
 from django.test.utils import CaptureQueriesContext
 from django.urls import reverse
 from django.utils import timezone
@@ -279,3 +280,6 @@ def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(
 def test_dates_are_kept_on_one_line():
     assert day(dt.date(2026, 12, 2)) == '<span class="nowrap">2026-12-02</span>'
     assert day(None) == ""
+    evening = dt.datetime(2026, 12, 2, 23, 59, tzinfo=dt.timezone(dt.timedelta(hours=-5)))
+    for value in (evening, dt.date(999, 1, 2)):  # [derived] the ISO day as Django's own "Y-m-d" writes it
+        assert day(value) == f'<span class="nowrap">{date_format(value, "Y-m-d")}</span>'

@@ -146,17 +146,19 @@ def _copy_in(table: str, column_list: str, body: bytes, rows: int, skip_conflict
 
 def _python_rows(frame: pd.DataFrame) -> list[tuple]:
     """The rows as DB-API values; date-times as naive UTC text the way Django stores them on SQLite
-    (microseconds only when there are some), so stored and filtered values compare alike."""
-    frame = frame.copy()
-    for name, values in frame.items():
+    (microseconds only when there are some), so stored and filtered values compare alike. Built a
+    column at a time: only a column of Python objects (text, dates) is looked at value by value."""
+    columns = []
+    for _, values in frame.items():
         if isinstance(values.dtype, pd.DatetimeTZDtype):
             naive = values.dt.tz_convert("UTC").dt.tz_localize(None)
             text = naive.dt.strftime("%Y-%m-%d %H:%M:%S").where(
                 naive.dt.microsecond == 0, naive.dt.strftime("%Y-%m-%d %H:%M:%S.%f")
             )
-            frame[name] = text.where(values.notna(), None)
-    values = frame.astype(object).where(frame.notna(), None)
-    return [tuple(_plain(v) for v in row) for row in values.itertuples(index=False, name=None)]
+            values = text.where(values.notna(), None)
+        column = values.astype(object).where(values.notna(), None).tolist()  # numbers as Python's own
+        columns.append([_plain(v) for v in column] if values.dtype == object else column)
+    return list(zip(*columns, strict=True))
 
 
 def _plain(value):

@@ -18,7 +18,7 @@ import numpy as np
 from django.core.cache import cache
 from django.core.serializers.json import DjangoJSONEncoder
 from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Q, Subquery, Sum, Value, When
-from django.db.models.functions import Cast, Coalesce, TruncMonth, TruncWeek
+from django.db.models.functions import Cast, TruncMonth, TruncWeek
 from django.utils import timezone
 
 from fleet import charts
@@ -30,7 +30,6 @@ from fleet.models import (
     Assessment,
     CapacitorPart,
     FittedCapacitor,
-    MotorReadCount,
     PartLifeFit,
     Reading,
     RefitRun,
@@ -45,6 +44,7 @@ from fleet.services.pages import (
     READING_INTERVAL_DAYS,
     due_within,
     in_service_assessments,
+    motors_by_reading_status,
     overdue_before,
     position_readings,
     quarter_start,
@@ -285,21 +285,12 @@ def overdue_capacitors(user=None, today: dt.date | None = None):
 
 
 def readings_by_route(user=None, today: dt.date | None = None) -> dict:
-    """Per site's reading route: motors in service overdue, due this quarter and read this quarter, by
-    the rule the route page counts with (`pages.reading_status`), summed from the ledger of motors by
-    site and UTC day of their stored newest reading (`MotorReadCount`, kept by triggers on motors): a
-    few hundred rows whatever the fleet's size."""
+    """Per site's reading route: motors in service overdue, due this quarter and read this quarter, as
+    the route page counts them (`pages.motors_by_reading_status`, summed from the ledger)."""
     today = today or timezone.localdate()
-    status = reading_status(today, "last_read_on")
-    counts = (
-        scope_to_user(MotorReadCount.objects.all(), user)
-        .values("site_id")
-        .annotate(**{name: Coalesce(Sum("n", filter=status[name]), 0) for name in ("overdue", "due", "read")})
-        .order_by()
-    )
-    by_site = {row["site_id"]: row for row in counts if row["overdue"] or row["due"] or row["read"]}
+    by_site = motors_by_reading_status(user, today=today)
     routes = [
-        {"code": site.code, "name": site.name, **{k: by_site[site.id][k] for k in ("overdue", "due", "read")}}
+        {"code": site.code, "name": site.name, **by_site[site.id]}
         for site in scope_to_user(Site.objects.filter(id__in=by_site), user).order_by("code")
     ]
     return {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today), "routes": routes}

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from collections import defaultdict
 
 import numpy as np
 import pandas as pd
@@ -18,10 +19,11 @@ from django.db.models import (
     Prefetch,
     Q,
     Subquery,
+    Sum,
     Value,
     When,
 )
-from django.db.models.functions import Replace, Upper
+from django.db.models.functions import Coalesce, Replace, Upper
 from django.utils import timezone
 
 from fleet.charts import trend_figure
@@ -30,7 +32,17 @@ from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER
 from fleet.engineering.trends import default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
-from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, PartPrior, Reading, RefitRun, Site
+from fleet.models import (
+    Assessment,
+    CapacitorPart,
+    FittedCapacitor,
+    Motor,
+    MotorReadCount,
+    PartPrior,
+    Reading,
+    RefitRun,
+    Site,
+)
 from fleet.roles import scope_to_user
 
 from .assessments import _hours_since_fitting, assessment_terms
@@ -300,36 +312,96 @@ def reading_status(today: dt.date, newest: str = "last_read_at", commissioned: s
     }
 
 
+READING_STATES = ("overdue", "due", "read")  # `reading_status`'s parts: every motor in service is in one
+ROUTE_COLUMNS = ("asset_tag", "location", "route_order", "application", "last_read_at")  # what a route row shows
+
+
+def motors_by_reading_status(user=None, site: Site | None = None, today: dt.date | None = None) -> dict:
+    """Motors in service per site at the user's sites (`site` alone when given), {site_id: {state: n}} for
+    each of `READING_STATES` by `reading_status`, sites with none left out: summed from the ledger of
+    motors by site and UTC day of their stored last reading (`MotorReadCount`, kept by triggers on
+    motors), a few hundred rows whatever the fleet's size."""
+    status = reading_status(today or timezone.localdate(), "last_read_on")
+    rows = scope_to_user(MotorReadCount.objects.all(), user)
+    if site is not None:
+        rows = rows.filter(site=site)
+    sums = {name: Coalesce(Sum("n", filter=status[name]), 0) for name in READING_STATES}
+    counts = rows.values("site_id").annotate(**sums).order_by()
+    return {row.pop("site_id"): row for row in counts if any(row.values())}
+
+
 def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None = None):
-    """The site's motors in service in walking order (a queryset to read a page at a time), each with
+    """The site's motors in service in walking order (`RouteRows`, to read a page at a time), each with
     `due` when it was not read this quarter and `overdue` when its reading is overdue (`reading_status`,
-    on the stored `last_read_at`); with the counts of all, the due and the overdue motors (one aggregate)
-    and the days the rule counts from (`quarter_start`, `overdue_before`)."""
+    on the stored `last_read_at`); with the counts of all, the due and the overdue motors (from the
+    ledger, `motors_by_reading_status`) and the days the rule counts from (`quarter_start`, `overdue_before`)."""
     today = today or timezone.localdate()
     status = reading_status(today)
+    by_state = motors_by_reading_status(site=site, today=today).get(site.id, dict.fromkeys(READING_STATES, 0))
+    counts = {
+        "total": sum(by_state.values()),
+        "due": by_state["overdue"] + by_state["due"],
+        "overdue": by_state["overdue"],
+    }
     motors = Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
-    counts = motors.aggregate(
-        total=Count("site"),
-        due=Count("site", filter=status["to_read"]),
-        overdue=Count("site", filter=status["overdue"]),
-    )
     listed = (motors.filter(status["to_read"]) if only_due else motors).annotate(
         due=ExpressionWrapper(status["to_read"], BooleanField()),
         overdue=ExpressionWrapper(status["overdue"], BooleanField()),
     )
     days = {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today)}
-    positions = Prefetch(
-        "capacitors", queryset=positions_read_since(utc_midnight(days["quarter_start"])), to_attr="positions"
+    rows = RouteRows(
+        listed.order_by("route_order", "asset_tag").only(*ROUTE_COLUMNS),
+        counts["due"] if only_due else counts["total"],
+        since=utc_midnight(days["quarter_start"]),
     )
-    return listed.order_by("route_order", "asset_tag").prefetch_related(positions), counts, days
+    return rows, counts, days
 
 
-def positions_read_since(since: dt.datetime):
-    """Capacitors in service in position order, each with `read`: whether its position (its motor and
-    role, predecessors included) has a reading since `since` that no correction superseded. For the
-    rows of one page (a prefetch): a motor half read this quarter names the capacitor still to read."""
+class RouteRows:
+    """A route's motors as a Paginator pages them: their number as the ledger counts it (no count of the
+    site's motors), a page's motors read in one query, each with `still_to_read`
+    (`positions_still_to_read` since the quarter began, one more query of values)."""
+
+    def __init__(self, motors, count: int, since: dt.datetime):
+        self.motors, self.length, self.since = motors, count, since
+
+    def count(self) -> int:
+        return self.length
+
+    def __len__(self) -> int:
+        return self.length
+
+    def __getitem__(self, window: slice) -> list:
+        motors = list(self.motors[window])
+        unread = positions_still_to_read([motor.id for motor in motors], self.since) if motors else {}
+        for motor in motors:
+            motor.still_to_read = unread.get(motor.id, [])
+        return motors
+
+
+ROLE_NAMES = {role: f"{label.lower()} capacitor" for role, label in FittedCapacitor.Role.choices}
+
+
+def positions_still_to_read(motor_ids: list[int], since: dt.datetime) -> dict[int, list[str]]:
+    """The capacitors still to read on each half-read motor of `motor_ids` ("start capacitor"): those in
+    service whose position (its motor and role, predecessors included) has no reading since `since` that
+    no correction superseded; none for a motor all or none of whose capacitors were read. One query of
+    values, in role order: a route page's rows name the capacitor still to read on a motor half read."""
     read = position_readings().filter(taken_at__gte=since)
-    return FittedCapacitor.objects.filter(removed_on__isnull=True).annotate(read=Exists(read)).order_by("role")
+    rows = (
+        FittedCapacitor.objects.filter(removed_on__isnull=True, motor_id__in=motor_ids)
+        .annotate(read=Exists(read))
+        .order_by("motor_id", "role")
+        .values_list("motor_id", "role", "read")
+    )
+    positions = defaultdict(list)
+    for motor_id, role, was_read in rows:
+        positions[motor_id].append((role, was_read))
+    unread = {
+        motor_id: [ROLE_NAMES[role] for role, was_read in roles if not was_read]
+        for motor_id, roles in positions.items()
+    }
+    return {motor_id: roles for motor_id, roles in unread.items() if 0 < len(roles) < len(positions[motor_id])}
 
 
 def position_readings():
