@@ -240,6 +240,8 @@ def _series_marker(k: int) -> dict:
         "color": SERIES_COLOURS[k % len(SERIES_COLOURS)],
         "pattern": {"shape": SERIES_PATTERNS[k % len(SERIES_PATTERNS)], "fgcolor": "#ffffff", "size": 7},
     }
+
+
 DASHBOARD_HEIGHT_PX = 360
 WORKLOAD_HEIGHT_PX = 400
 SPARES_HEIGHT_PX = 460  # room for one legend line per part on a phone
