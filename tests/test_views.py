@@ -541,6 +541,17 @@ def test_a_finished_run_that_refitted_nothing_says_all_were_up_to_date(signed_in
     assert "Readings fitted" in body
 
 
+@pytest.mark.django_db(transaction=True)
+def test_a_refit_without_a_broker_says_it_is_done_not_queued(client, engineer, fan_fitted_capacitor):
+    """Without a broker the run happens inside the request: the page said "queued. Progress shows below."
+    over a run already done."""
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98])
+    client.force_login(engineer)
+    response = client.post(reverse("refit_start"), follow=True)
+    body = response.content.decode()
+    assert "Fleet refit done: 1 of 1 capacitors refitted." in body and "queued" not in body
+
+
 def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, planner):
     """Bad input is named, not taken silently as a default (the plan page's rule for `days`)."""
     fitted_capacitor = make_fitted_capacitor()

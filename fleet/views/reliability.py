@@ -15,7 +15,7 @@ from django.views.decorators.http import require_POST
 from fleet.charts import cost_curve_figure, weibull_plot_figure
 from fleet.exports import parquet_file, stream_csv, xlsx_file
 from fleet.filters import BadFilter, LifeDataPage, page_parameters
-from fleet.models import Backtest, CapacitorPart
+from fleet.models import Backtest, CapacitorPart, RefitRun
 from fleet.services.exports import TABLES
 from fleet.services.lifedata import part_life
 from fleet.services.refits import queue_fleet_refit, recent_runs, stale_count
@@ -94,9 +94,15 @@ def refits(request):
 @permission_required("fleet.add_refitrun", raise_exception=True)
 def refit_start(request):
     try:
-        queue_fleet_refit()
+        run = queue_fleet_refit()
     except QueueUnreachable as error:
         messages.error(request, QUEUE_DOWN.format(error=error, what="The fleet refit"))
+        return redirect("refits")
+    run.refresh_from_db()  # without a broker the run has already happened
+    if run.state == RefitRun.State.DONE:
+        messages.success(request, f"Fleet refit done: {run.done} of {run.total} capacitors refitted.")
+    elif run.state == RefitRun.State.FAILED:
+        messages.error(request, f"The fleet refit failed: {run.message}")
     else:
         messages.success(request, "Fleet refit queued. Progress shows below.")
     return redirect("refits")
