@@ -340,7 +340,7 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
         "any other 30 days before its early (P10) crossing, never sooner than 7 days from today"
         in response.content.decode()
     )
-    assert "(columns and units)." in response.content.decode()  # no stray space before the full stop
+    assert "columns and units</a>). Every reading" in response.content.decode()  # no stray space before "."
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
     assert Assessment.objects.filter(is_current=True).count() == 6
