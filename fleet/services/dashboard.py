@@ -40,6 +40,7 @@ from fleet.models import (
 from fleet.roles import scope_to_user
 from fleet.services.counts import in_service_counts
 from fleet.services.pages import (
+    NOT_ASSESSED,
     OVERDUE_GRACE_DAYS,
     READING_INTERVAL_DAYS,
     due_within,
@@ -55,7 +56,6 @@ from fleet.services.pages import (
 
 WEEKS = 26
 MONTHS = 12
-NOT_ASSESSED = "not assessed yet"
 DAYS_PER_YEAR = 365.25
 
 

@@ -413,11 +413,19 @@ def position_readings():
     )
 
 
+# Capacitors in service without a current assessment, beside the risk levels of the counts.
+NOT_ASSESSED = "not assessed yet"
+
+
 def risk_summary(user=None):
-    """Capacitors in service at the user's sites per risk level, most urgent first (the ledger kept on
-    write: a few rows summed, whatever the fleet's size)."""
-    counts = in_service_counts(user).by_risk()
-    return [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
+    """Capacitors in service at the user's sites per risk level, most urgent first, then those not
+    assessed yet (never read, or waiting for their first refit) where there are any, so the counts add
+    up to the capacitors in service (the ledger kept on write: a few rows summed, whatever the fleet's size)."""
+    ledger = in_service_counts(user)
+    counts = ledger.by_risk()
+    summary = [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
+    not_assessed = sum(ledger.not_assessed_by_site().values())
+    return summary + [(NOT_ASSESSED, not_assessed)] if not_assessed else summary
 
 
 # An assessment's per-limit details and operating figures: the capacitor page shows them, lists do not.
