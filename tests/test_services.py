@@ -334,8 +334,8 @@ def test_a_capacitor_the_plan_says_to_read_again_gets_a_read_again_order_that_a_
     words = "trend may already have reached the tolerance limit (3.80 µF) (likely 2027-01): read it again"
     stored_assessment(suspect, "due soon", today + dt.timedelta(days=7), reason=words)
     stored_assessment(worn, "due soon", today + dt.timedelta(days=30), reason="trend reaches the limit soon")
-    Assessment.objects.filter(fitted_capacitor=suspect).update(p10_on=today - dt.timedelta(days=3))
-    Assessment.objects.filter(fitted_capacitor=worn).update(p10_on=today + dt.timedelta(days=60))
+    Assessment.objects.filter(fitted_capacitor=suspect).update(read_again=True)
+    Assessment.objects.filter(fitted_capacitor=worn).update(read_again=False)
     assert plan_work_orders(horizon_days=90, user=planner)["created"] == 2
     orders = {o.fitted_capacitor_id: o for o in WorkOrder.objects.all()}
     assert orders[suspect.id].kind == WorkOrder.Kind.READ_AGAIN and orders[worn.id].kind == WorkOrder.Kind.REPLACE_RUN
@@ -349,7 +349,7 @@ def test_a_capacitor_the_plan_says_to_read_again_gets_a_read_again_order_that_a_
 
     # Back to "read again" on the next assessment, then a reading closes the order.
     stored_assessment(suspect, "due soon", today + dt.timedelta(days=7), reason=words)
-    Assessment.objects.filter(fitted_capacitor=suspect, is_current=True).update(p10_on=today)
+    Assessment.objects.filter(fitted_capacitor=suspect, is_current=True).update(read_again=True)
     plan_work_orders(horizon_days=90, user=planner)
     order = WorkOrder.objects.get(fitted_capacitor=suspect)
     assert order.kind == WorkOrder.Kind.READ_AGAIN and order.state == "planned"

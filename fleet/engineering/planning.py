@@ -76,6 +76,7 @@ class Judgement:
     reason: np.ndarray
     limit_index: np.ndarray
     limit_fraction: np.ndarray
+    read_again: np.ndarray  # the plan's word is "read it again" (`read_again`)
 
 
 def reads_below(fraction_25c, limit_fraction) -> np.ndarray:
@@ -107,6 +108,7 @@ def judge(
     wear_days=None,
     wear_words=None,
     alert_days=None,
+    latest_on=None,
     settings: PlanningSettings | None = None,
 ) -> Judgement:
     """Judge every capacitor at once.
@@ -121,14 +123,17 @@ def judge(
     dissipation factor's trend); when it comes before the capacitance limit it
     sets the risk, the date and the reason, and `governing` is L.
     alert_days (L, G): days to each limit's crossing at the quantile the risk
-    rule flags on (`risk_levels`; P10 when not given).
+    rule flags on (`risk_levels`; P10 when not given). latest_on (G dates): the newest reading's day
+    (NaT or not given: unknown).
 
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
     circuit, a reading below the governing limit, a dissipation factor over its
     maximum, or the fitted path (P50) already past the limit. An early crossing
     (P10, or the back-tested alert quantile) within a quarter is "due soon",
-    within a year "watch", else "sound".
+    within a year "watch", else "sound". An early crossing already passed asks to read the capacitor
+    again (`read_again`); a reading taken since that still reads above the limit settles it: the
+    capacitor sits at the edge of its limit by its trend, replace it at the next visit.
     """
     settings = settings or PlanningSettings()
     names = np.asarray(limit_names, dtype=object)
@@ -159,6 +164,13 @@ def judge(
         governing = np.where(wear_first, len(names), governing)
     replace_now = evidence != EVIDENCE_NONE
     risk = risk_levels(replace_now, alert, settings)
+    latest_days = np.full(n, np.nan)
+    if latest_on is not None:
+        latest_day = np.asarray(latest_on, "datetime64[D]")
+        latest_days = (latest_day - np.datetime64(today, "D")).astype(float)
+        latest_days[np.isnat(latest_day)] = np.nan
+    again = read_again(risk, days[0], latest_days)
+    read_since = ~replace_now & (days[0] <= 0) & ~again
     urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
     planned = np.maximum(days[0] - settings.lead_days, settings.notice_days)
     due_days = np.select(
@@ -180,6 +192,18 @@ def judge(
     beyond = f"beyond {settings.horizon_days / 365:.0f} years"
     likely = month_or(days[1], beyond)
     late = month_or(days[2], "")
+    read_on = np.datetime_as_string(
+        np.datetime64(today, "D") + np.nan_to_num(latest_days, nan=0.0).astype("int64").astype("timedelta64[D]"),
+        unit="D",
+    ).astype(object)
+    settled = (
+        "read on "
+        + read_on
+        + np.where(wear_first, ", within " + limit_words, " at " + latest + " \u00b5F, above " + limit_words)
+        + ", but its trend crosses it now (likely "
+        + likely
+        + "): replace at the next visit"
+    )
     between = np.select(
         [(days[0] > 0) & (late != ""), days[0] > 0],
         [
@@ -208,6 +232,7 @@ def judge(
             evidence == EVIDENCE_BELOW,
             evidence == EVIDENCE_PATH,
             (governing < 0) & ~wear_first,
+            read_since,
             np.isfinite(days[0]) & (days[0] <= settings.horizon_days),
         ],
         [
@@ -219,6 +244,7 @@ def judge(
                 "fitted trend is already below " + limit_words,
             ),
             "no limit could be evaluated",
+            settled,
             between,
         ],
         default="trend stays above " + limit_words + " for the planning horizon",
@@ -231,14 +257,21 @@ def judge(
         reason=reason,
         limit_index=limit_index,
         limit_fraction=limit,
+        read_again=again,
     )
 
 
-def read_again(risk, early_days) -> np.ndarray:
+def read_again(risk, early_days, latest_days) -> np.ndarray:
     """Where the plan's word is "read it again" before replacing: the trend's early (P10) crossing has
-    passed (`early_days` from today at or below 0) while no reading shows the capacitor past its limit
-    or damaged (not "replace now"); `judge` says so in its reason. A reading settles it either way."""
-    return (np.asarray(risk) != RISK_REPLACE_NOW) & (np.asarray(early_days, float) <= 0)
+    passed (`early_days` from today at or below 0), no reading shows the capacitor past its limit or
+    damaged (not "replace now"), and none was taken on or after the crossing's day (`latest_days`, days
+    from today to the newest reading; nan: unknown). A reading since settles it either way: below the
+    limit it is "replace now", above it `judge` says replace at the next visit; never a second
+    "read again" for a question a reading answered. The work orders follow the stored word."""
+    early_days = np.asarray(early_days, float)
+    with np.errstate(invalid="ignore"):
+        read_since = np.asarray(latest_days, float) >= np.floor(early_days)
+    return (np.asarray(risk) != RISK_REPLACE_NOW) & (early_days <= 0) & ~read_since
 
 
 def alert_index(level) -> np.ndarray:

@@ -14,7 +14,7 @@ from django.db.models.functions import RowNumber
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
-from fleet.engineering.planning import bundle_visits, read_again
+from fleet.engineering.planning import bundle_visits
 from fleet.models import FittedCapacitor, WorkOrder
 from fleet.roles import scope_to_user
 
@@ -34,7 +34,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     """Create planned orders for capacitors to replace within the horizon.
 
     A capacitor whose plan says "read it again" (its trend's early crossing has passed, no reading
-    shows it past its limit: `planning.read_again`) gets a "read again" order, any other one a
+    since: `planning.read_again`, stored by the refit) gets a "read again" order, any other one a
     replacement; each order carries the plan's reason in words. New orders and the still-planned ones
     are bundled into site visits (one trip per site per window) and dated on their visit's day; overdue
     ones on today. Issued orders are left as they are. Only the sites `user` works at are planned
@@ -51,11 +51,9 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             "replace_by",
             "risk",
             "reason",
-            "p10_on",
+            "read_again",
         )
     )
-    early_days = [np.inf if d[7] is None else (d[7] - today).days for d in due]
-    again = read_again([d[5] for d in due], early_days) if due else np.zeros(0, bool)
     due_ids = [d[0] for d in due]
     with transaction.atomic():
         # Two plans at once take turns per capacitor (its row locked) and read the open orders
@@ -72,9 +70,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             open_orders.setdefault(o.fitted_capacitor_id, o)
         was = {o.pk: (o.due_on, o.window_days, o.kind, o.reason) for o in open_orders.values()}
         items, new_orders, replanned = [], [], []
-        for (fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, reason, _), reread in zip(
-            due, again, strict=True
-        ):
+        for fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, reason, reread in due:
             existing = open_orders.get(fitted_capacitor_id)
             if existing is not None and existing.state == WorkOrder.State.ISSUED:
                 continue

@@ -45,7 +45,18 @@ def test_a_reading_is_held_to_the_trend_now_only_when_taken_after_its_newest_rea
     assert held[0] == 11.9 and np.isnan(held[1:]).all()
 
 
-def _judge(p10, p50, p90=None, *, evidence=None, latest=None, now=None, limits=(0.94,), today=dt.date(2026, 12, 1)):
+def _judge(
+    p10,
+    p50,
+    p90=None,
+    *,
+    evidence=None,
+    latest=None,
+    now=None,
+    limits=(0.94,),
+    today=dt.date(2026, 12, 1),
+    read_on=None,
+):
     """One limit (tolerance at 94 % of a 10 uF rating); days to its P10/P50/P90."""
     p10, p50 = np.asarray(p10, float), np.asarray(p50, float)
     p90 = p50 * 2 if p90 is None else np.asarray(p90, float)
@@ -63,6 +74,7 @@ def _judge(p10, p50, p90=None, *, evidence=None, latest=None, now=None, limits=(
         evidence=np.full(n, EVIDENCE_NONE) if evidence is None else np.asarray(evidence),
         evidence_text=np.full(n, "", dtype=object),
         today=today,
+        latest_on=None if read_on is None else np.asarray(read_on, "datetime64[D]"),
     )
 
 
@@ -86,6 +98,30 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
     assert result.due_days.tolist() == [7.0, 7.0]  # no defect seen: a week's notice for spares and the visit
     assert result.reason[0].startswith("trend may already have reached the tolerance limit")
+
+
+def test_a_reading_since_the_early_crossing_settles_read_again():
+    """[trade] A suspect capacitor is read once more before it is condemned, not again and again: a reading
+    taken on or after the trend's early (P10) crossing that is still above the limit answers the question
+    (the capacitor sits at the edge of its limit by its trend: replace it at the next visit). Read before
+    the crossing, or never, the plan still says read it again."""
+    result = _judge(
+        [-20.0, -20.0, -20.0, -20.0],
+        [18.0, 18.0, 18.0, 18.0],
+        latest=[0.945, 0.945, 0.945, 0.945],
+        read_on=["2026-12-01", "2026-11-11", "2026-11-05", "NaT"],
+    )
+    assert result.read_again.tolist() == [False, False, True, True]
+    assert result.risk.tolist() == [RISK_DUE_SOON] * 4
+    assert result.due_days.tolist() == [7.0] * 4  # the next visit: a week's notice for spares
+    assert result.reason[0] == (
+        "read on 2026-12-01 at 9.45 \u00b5F, above the tolerance limit (9.40 \u00b5F), but its trend crosses it now "
+        "(likely 2026-12): replace at the next visit"
+    )
+    assert result.reason[1].startswith("read on 2026-11-11 at 9.45")  # on the crossing's day
+    assert result.reason[2].endswith("): read it again") and result.reason[3].endswith("): read it again")
+    below = _judge([-20.0], [18.0], latest=[0.935], read_on=["2026-12-01"])
+    assert below.risk[0] == RISK_REPLACE_NOW and not below.read_again[0]
 
 
 def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
