@@ -8,7 +8,7 @@ import pytest
 from django.core.exceptions import ValidationError
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, WorkOrder
+from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, SiteStock, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from fleet.services.refits import stale_fitted_capacitor_ids, start_fleet_refit, sweep_stale
@@ -421,7 +421,8 @@ def test_a_reading_with_winding_currents_refines_the_motors_circuit():
 
 def test_a_page_of_visits_lists_each_visits_first_orders_in_walking_order_with_its_spares():
     """[derived] A visit of 30 orders shows the 25 first in walking order (route order, then tag) and
-    5 more; its spares count every order's part, the ones not listed too."""
+    5 more; its spares count every order's part, the ones not listed too, against what the site holds
+    (a part it holds none of is short by all)."""
     from fleet.services.workorders import open_visits_page
 
     site = make_site(code="WALK")
@@ -435,4 +436,51 @@ def test_a_page_of_visits_lists_each_visits_first_orders_in_walking_order_with_i
     assert (visit["site"].code, visit["day"], visit["count"], visit["more"]) == ("WALK", day, 30, 5)
     walked = [order.motor.route_order for order in visit["orders"]]
     assert walked == sorted(walked) and walked[0] == 71 and walked[-1] == 95
-    assert visit["spares"] == [("RUN-A", 20), ("RUN-B", 10)]
+    assert visit["spares"] == [
+        {"code": "RUN-A", "quantity": 20, "held": 0, "short": 20},
+        {"code": "RUN-B", "quantity": 10, "held": 0, "short": 10},
+    ]
+    SiteStock.objects.create(site=site, part=run, quantity=3)
+    SiteStock.objects.create(site=site, part=start, quantity=12)
+    SiteStock.objects.create(site=make_site(code="ELSEWHERE"), part=start, quantity=50)
+    assert open_visits_page(1).object_list[0]["spares"] == [
+        {"code": "RUN-A", "quantity": 20, "held": 3, "short": 17},
+        {"code": "RUN-B", "quantity": 10, "held": 12, "short": 0},
+    ]
+    assert visit["planned"] == 30
+
+
+def test_an_open_order_the_plan_no_longer_asks_for_says_what_the_plan_says_now(planner):
+    """An issued "replace now" order stayed on the page and the visit sheet after new readings made its
+    capacitor "watch", replace by a date a year on. [trade] the planner decides to cancel or keep it: the
+    order says what the plan asks now, in words; one that the plan still asks for says nothing more."""
+    from fleet.services.workorders import open_visit, open_visits_page, with_plan_now
+
+    today = timezone.localdate()
+    site = make_site(code="MOVED")
+    later, kept, settled = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2, 3))
+    for fitted_capacitor, kind in ((later, "replace_run"), (kept, "replace_run"), (settled, "read_again")):
+        WorkOrder.objects.create(
+            motor=fitted_capacitor.motor,
+            fitted_capacitor=fitted_capacitor,
+            kind=kind,
+            due_on=today + dt.timedelta(days=7),
+            window_days=14,
+            state="issued",
+        )
+    stored_assessment(later, "watch", today + dt.timedelta(days=400))
+    stored_assessment(kept, "due soon", today + dt.timedelta(days=20))  # within the visit's window
+    stored_assessment(settled, "due soon", today + dt.timedelta(days=7))
+    Assessment.objects.filter(is_current=True).update(read_again=False)
+    expected = [
+        f"plan now: watch, replace by {(today + dt.timedelta(days=400)).isoformat()}",
+        "",
+        f"plan now: due soon, replace by {(today + dt.timedelta(days=7)).isoformat()}",
+    ]
+    visit = open_visits_page(1).object_list[0]
+    assert [order.plan_now for order in visit["orders"]] == expected
+    assert visit["planned"] == 0
+    sheet = with_plan_now(open_visit(site.id, today + dt.timedelta(days=7))["orders"])
+    assert [order.plan_now for order in sheet] == expected
+    stored_assessment(later, "sound", None)
+    assert open_visits_page(1).object_list[0]["orders"][0].plan_now == "plan now: sound, no replacement planned"

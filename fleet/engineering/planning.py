@@ -60,6 +60,9 @@ class PlanningSettings:
     horizon_days: float = 30 * 365.0  # crossings later than this are "beyond"
     alert_level: float = 0.1  # the crossing quantile the risk rule flags on, until a back-test chose one
     alert_min_recall: float = 0.85  # a back-tested level must catch this share of the year's crossings
+    # Days a visit may fall on, Monday to Sunday (numpy's weekmask): public holidays are local, the planner
+    # moves a visit that falls on one.
+    working_days: str = "1111100"
 
 
 @dataclass(frozen=True)
@@ -292,14 +295,46 @@ def risk_levels(replace_now, alert_days, settings: PlanningSettings | None = Non
     )
 
 
-def bundle_visits(site, due_day, window_days=14):
+def plan_moved_words(
+    *, order_reads_again, order_due_days, window_days, plan_risk, plan_read_again, plan_due_days, today: dt.date
+) -> np.ndarray:
+    """Per open work order, in words, what its capacitor's current plan asks where that is no longer the
+    order's work in its visit ("plan now: watch, replace by 2027-01-03"); empty where it still is.
+
+    The plan no longer asks for the order's work when it plans no replacement, asks for the other kind
+    (read again or replace), or dates the replacement after the order's visit window (due day plus
+    `window_days`: the plan would not put it in this visit). Days count from `today` (inf: none)."""
+    order_due = np.asarray(order_due_days, float)
+    plan_due = np.asarray(plan_due_days, float)
+    plan_again = np.asarray(plan_read_again, bool)
+    no_date = ~np.isfinite(plan_due)
+    moved = (
+        no_date
+        | (np.asarray(order_reads_again, bool) != plan_again)
+        | (plan_due > order_due + np.asarray(window_days, float))
+    )
+    when = np.where(
+        no_date,
+        "no replacement planned",
+        np.where(plan_again, "read it again by ", "replace by ")
+        + np.datetime_as_string(
+            np.datetime64(today, "D") + np.where(no_date, 0, plan_due).astype("int64").astype("timedelta64[D]"),
+            unit="D",
+        ).astype(object),
+    )
+    return np.where(moved, "plan now: " + np.asarray(plan_risk, dtype=object) + ", " + when, "")
+
+
+def bundle_visits(site, due_day, window_days=14, *, today: dt.date | None = None, weekmask: str = "1111100"):
     """Group replacements into site visits: one trip per site per window.
 
     Per site, the earliest due replacement opens a visit dated on its due day;
     everything at that site due within `window_days` after it joins the visit
     (replaced a little early rather than sending a second trip); the next item
     opens the next visit. Returns (visit number per item, visit day per item).
-    The loop runs over visits, not over items.
+    The loop runs over visits, not over items. Given `today` (day 0), a visit day
+    that falls outside `weekmask`'s working days moves to the working day before
+    it, or after it where that would be before today.
     """
     site = np.asarray(site)
     due_day = np.asarray(due_day, float)
@@ -318,4 +353,18 @@ def bundle_visits(site, due_day, window_days=14):
             visit_day[order[position:end]] = opens
             next_visit += 1
             position = end
+    if today is not None and due_day.size:
+        visit_day = working_visit_days(visit_day, today, weekmask)
     return visit, visit_day
+
+
+def working_visit_days(visit_day, today: dt.date, weekmask: str = "1111100") -> np.ndarray:
+    """Visit days (days from `today`) moved onto working days: back to the working day before, or on to the
+    one after where going back would be before today (a weekend's overdue visit goes on Monday)."""
+    day = np.asarray(visit_day, float)
+    base = np.datetime64(today, "D")
+    dates = base + np.nan_to_num(day, nan=0.0).astype("int64").astype("timedelta64[D]")
+    earlier = np.busday_offset(dates, 0, roll="backward", weekmask=weekmask)
+    later = np.busday_offset(dates, 0, roll="forward", weekmask=weekmask)
+    moved = np.where(earlier >= base, earlier, later)
+    return np.where(np.isnan(day), np.nan, (moved - base).astype(float))

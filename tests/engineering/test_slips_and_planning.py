@@ -156,3 +156,23 @@ def test_replacements_are_bundled_into_one_visit_per_site_and_window():
     assert day.tolist() == [3.0, 3.0, 30.0, 5.0, 3.0, 40.0]
     assert len(set(visit.tolist())) == 4
     assert visit[3] != visit[5]
+
+
+def test_visit_days_fall_on_working_days():
+    """[derived] Visits moved off days outside the working week: back to the working day before, or on to
+    the next where that is before today. Weekdays checked with Python's calendar (datetime.date.weekday),
+    not numpy's; 2026-12-03 is a Thursday, 2026-12-25 a Friday."""
+    from fleet.engineering.planning import bundle_visits
+
+    today = dt.date(2026, 12, 3)
+    site = np.array(["A", "B", "C", "D", "E"])
+    due = np.array([22.0, 23.0, 24.0, 2.0, 4.0])  # Fri 25, Sat 26, Sun 27, Sat 5, Mon 7
+    _, day = bundle_visits(site, due, 14, today=today)
+    dates = [today + dt.timedelta(days=int(d)) for d in day]
+    assert all(d.weekday() < 5 for d in dates)
+    assert day.tolist() == [22.0, 22.0, 22.0, 1.0, 4.0]
+    saturday = dt.date(2026, 12, 5)  # planned on a Saturday: today's overdue visit goes on Monday
+    _, day = bundle_visits(np.array(["A"]), np.array([0.0]), 14, today=saturday)
+    assert (saturday + dt.timedelta(days=int(day[0]))).weekday() == 0
+    _, day = bundle_visits(np.array(["A"]), np.array([0.0]), 14, today=saturday, weekmask="1111110")
+    assert day.tolist() == [0.0]  # a site that works Saturdays
