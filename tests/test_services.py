@@ -16,6 +16,7 @@ from tests.factories import (
     make_fitted_capacitor,
     make_motor,
     make_part,
+    make_reading,
     make_site,
     quarterly_readings,
     stored_assessment,
@@ -484,3 +485,37 @@ def test_an_open_order_the_plan_no_longer_asks_for_says_what_the_plan_says_now(p
     assert [order.plan_now for order in sheet] == expected
     stored_assessment(later, "sound", None)
     assert open_visits_page(1).object_list[0]["orders"][0].plan_now == "plan now: sound, no replacement planned"
+
+
+@pytest.mark.parametrize("read_uf", ["28.55", "28.60"])
+def test_a_reading_taken_for_a_read_again_order_never_brings_another_read_again(planner, read_uf):
+    """A run capacitor whose trend's early crossing had passed got "Read again; replace if past its limit";
+    read at 28.62 µF (above its 28.50 µF limit), the plan still said "read it again" and the next plan
+    made a new "read again" order: a loop. [trade] a suspect capacitor is read once more, then replaced or
+    kept: the reading answers it, now and at the nightly refits after, and the next order is a replacement."""
+    from fleet.services.workorders import plan_work_orders
+
+    now = timezone.now()
+    fitted_capacitor = make_fitted_capacitor(
+        part=make_part(rated_uf=30.0, tolerance_minus_pct=5), fitted_on=(now - dt.timedelta(days=330)).date()
+    )
+    for i, value in enumerate([29.9, 29.45, 29.1, 28.75]):  # the last 40 days ago
+        make_reading(fitted_capacitor, taken_at=now - dt.timedelta(days=40 + 91 * (3 - i)), capacitance_uf=value)
+    refit_fitted_capacitors([fitted_capacitor.id], now=now)
+    before = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    assert before.read_again and before.reason.endswith("read it again")
+    plan_work_orders(horizon_days=90, user=planner)
+    assert WorkOrder.objects.get(fitted_capacitor=fitted_capacitor).kind == WorkOrder.Kind.READ_AGAIN
+    record_reading(
+        fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": read_uf}, user=planner
+    )
+    for days_later in (0, 10, 20):  # the refit after the reading, then nightly ones
+        when = now + dt.timedelta(days=days_later)
+        refit_fitted_capacitors([fitted_capacitor.id], now=when, force=True)
+        after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+        assert not after.read_again and "read it again" not in after.reason
+        if after.risk != "replace now" and after.p10_on <= when.date():
+            assert after.reason.startswith("read on ") and after.reason.endswith("replace at the next visit")
+        plan_work_orders(horizon_days=90, user=planner, today=when.date())
+        open_orders = WorkOrder.objects.filter(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
+        assert [order.kind for order in open_orders] == [WorkOrder.Kind.REPLACE_RUN]

@@ -57,6 +57,9 @@ class PlanningSettings:
     watch_days: float = 365.0
     notice_days: float = 7.0  # without a defect, never sooner than this: spares and a visit need time
     below_limit_days: float = 14.0  # read below its limit: replace within one visit window
+    # A reading this close before the trend's early crossing, or after it, answers whether the capacitor has
+    # passed its limit (it moves little within one visit window): no "read it again" after it.
+    reading_answers_days: float = 14.0
     horizon_days: float = 30 * 365.0  # crossings later than this are "beyond"
     alert_level: float = 0.1  # the crossing quantile the risk rule flags on, until a back-test chose one
     alert_min_recall: float = 0.85  # a back-tested level must catch this share of the year's crossings
@@ -172,7 +175,7 @@ def judge(
         latest_day = np.asarray(latest_on, "datetime64[D]")
         latest_days = (latest_day - np.datetime64(today, "D")).astype(float)
         latest_days[np.isnat(latest_day)] = np.nan
-    again = read_again(risk, days[0], latest_days)
+    again = read_again(risk, days[0], latest_days, settings.reading_answers_days)
     read_since = ~replace_now & (days[0] <= 0) & ~again
     urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
     planned = np.maximum(days[0] - settings.lead_days, settings.notice_days)
@@ -264,16 +267,18 @@ def judge(
     )
 
 
-def read_again(risk, early_days, latest_days) -> np.ndarray:
+def read_again(
+    risk, early_days, latest_days, answers_days: float = PlanningSettings.reading_answers_days
+) -> np.ndarray:
     """Where the plan's word is "read it again" before replacing: the trend's early (P10) crossing has
     passed (`early_days` from today at or below 0), no reading shows the capacitor past its limit or
-    damaged (not "replace now"), and none was taken on or after the crossing's day (`latest_days`, days
-    from today to the newest reading; nan: unknown). A reading since settles it either way: below the
-    limit it is "replace now", above it `judge` says replace at the next visit; never a second
-    "read again" for a question a reading answered. The work orders follow the stored word."""
+    damaged (not "replace now"), and none was taken since the crossing, or `answers_days` before it
+    (`latest_days`, days from today to the newest reading; nan: unknown). Such a reading settles it
+    either way: below the limit it is "replace now", above it `judge` says replace at the next visit;
+    never a second "read again" for a question a reading answered. The work orders follow the stored word."""
     early_days = np.asarray(early_days, float)
     with np.errstate(invalid="ignore"):
-        read_since = np.asarray(latest_days, float) >= np.floor(early_days)
+        read_since = np.asarray(latest_days, float) >= np.floor(early_days) - answers_days
     return (np.asarray(risk) != RISK_REPLACE_NOW) & (early_days <= 0) & ~read_since
 
 

@@ -102,14 +102,15 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
 
 def test_a_reading_since_the_early_crossing_settles_read_again():
     """[trade] A suspect capacitor is read once more before it is condemned, not again and again: a reading
-    taken on or after the trend's early (P10) crossing that is still above the limit answers the question
+    taken after the trend's early (P10) crossing, or within a visit window before it, that is still above the
+    limit answers the question
     (the capacitor sits at the edge of its limit by its trend: replace it at the next visit). Read before
     the crossing, or never, the plan still says read it again."""
     result = _judge(
         [-20.0, -20.0, -20.0, -20.0],
         [18.0, 18.0, 18.0, 18.0],
         latest=[0.945, 0.945, 0.945, 0.945],
-        read_on=["2026-12-01", "2026-11-11", "2026-11-05", "NaT"],
+        read_on=["2026-12-01", "2026-10-28", "2026-10-27", "NaT"],
     )
     assert result.read_again.tolist() == [False, False, True, True]
     assert result.risk.tolist() == [RISK_DUE_SOON] * 4
@@ -118,7 +119,8 @@ def test_a_reading_since_the_early_crossing_settles_read_again():
         "read on 2026-12-01 at 9.45 \u00b5F, above the tolerance limit (9.40 \u00b5F), but its trend crosses it now "
         "(likely 2026-12): replace at the next visit"
     )
-    assert result.reason[1].startswith("read on 2026-11-11 at 9.45")  # on the crossing's day
+    # Two weeks before the crossing (2026-11-11) still answers it (a capacitor moves little in a visit window).
+    assert result.reason[1].startswith("read on 2026-10-28 at 9.45")
     assert result.reason[2].endswith("): read it again") and result.reason[3].endswith("): read it again")
     below = _judge([-20.0], [18.0], latest=[0.935], read_on=["2026-12-01"])
     assert below.risk[0] == RISK_REPLACE_NOW and not below.read_again[0]
