@@ -330,7 +330,9 @@ def plan_moved_words(
     return np.where(moved, "plan now: " + np.asarray(plan_risk, dtype=object) + ", " + when, "")
 
 
-def bundle_visits(site, due_day, window_days=14, *, today: dt.date | None = None, weekmask: str = "1111100"):
+def bundle_visits(
+    site, due_day, window_days=14, *, today: dt.date | None = None, weekmask: str = PlanningSettings.working_days
+):
     """Group replacements into site visits: one trip per site per window.
 
     Per site, the earliest due replacement opens a visit dated on its due day;
@@ -363,7 +365,7 @@ def bundle_visits(site, due_day, window_days=14, *, today: dt.date | None = None
     return visit, visit_day
 
 
-def working_visit_days(visit_day, today: dt.date, weekmask: str = "1111100") -> np.ndarray:
+def working_visit_days(visit_day, today: dt.date, weekmask: str = PlanningSettings.working_days) -> np.ndarray:
     """Visit days (days from `today`) moved onto working days: back to the working day before, or on to the
     one after where going back would be before today (a weekend's overdue visit goes on Monday)."""
     day = np.asarray(visit_day, float)

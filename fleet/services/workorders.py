@@ -159,7 +159,7 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
         today=today,
     )
     for order, text in zip(orders, words, strict=True):
-        order.plan_now = "" if order.plan_risk is None else text
+        order.plan_now = "" if order.plan_risk is None or order.kind not in CAPACITOR_KINDS else text
     return orders
 
 
