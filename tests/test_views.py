@@ -477,7 +477,7 @@ def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(sign
     body = client.get(reverse("work_orders")).content.decode()
     # A visit with nothing left to issue offers no button (it said "no planned work orders ... reload").
     assert "Issued" in body and body.count('value="issue">Issue this visit') == 1
-    assert "All 1 issued to the technicians" in body
+    assert "Its order is issued to the technicians" in body
     assert signed_in(technician).post(reverse("work_orders"), {"action": "plan"}).status_code == 403
 
 
