@@ -144,6 +144,7 @@ class AssessmentSerializer(serializers.ModelSerializer):
             "risk",
             "replace_by",
             "reason",
+            "read_again",
             "limits",
             "set_aside",
             "capacitance_now_uf",

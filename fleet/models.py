@@ -817,6 +817,13 @@ class Assessment(models.Model):
     risk = models.CharField(max_length=20, choices=Risk.choices)
     replace_by = models.DateField(null=True, blank=True)
     reason = models.CharField(max_length=300, blank=True, help_text="Why this risk level and date, in words")
+    # Nullable so the column is added without rebuilding the table (and its triggers) on SQLite.
+    read_again = models.BooleanField(
+        null=True,
+        blank=True,
+        help_text="The plan says read it again before replacing (planning.read_again); empty: judged before this "
+        "was stored",
+    )
     limits = models.JSONField(
         default=list, blank=True, help_text="Every limit evaluated: name, fraction of rated, P10/P50/P90 dates"
     )

@@ -8,7 +8,7 @@ import pytest
 from django.core.exceptions import ValidationError
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, WorkOrder
+from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, SiteStock, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from fleet.services.refits import stale_fitted_capacitor_ids, start_fleet_refit, sweep_stale
@@ -16,6 +16,7 @@ from tests.factories import (
     make_fitted_capacitor,
     make_motor,
     make_part,
+    make_reading,
     make_site,
     quarterly_readings,
     stored_assessment,
@@ -334,8 +335,8 @@ def test_a_capacitor_the_plan_says_to_read_again_gets_a_read_again_order_that_a_
     words = "trend may already have reached the tolerance limit (3.80 µF) (likely 2027-01): read it again"
     stored_assessment(suspect, "due soon", today + dt.timedelta(days=7), reason=words)
     stored_assessment(worn, "due soon", today + dt.timedelta(days=30), reason="trend reaches the limit soon")
-    Assessment.objects.filter(fitted_capacitor=suspect).update(p10_on=today - dt.timedelta(days=3))
-    Assessment.objects.filter(fitted_capacitor=worn).update(p10_on=today + dt.timedelta(days=60))
+    Assessment.objects.filter(fitted_capacitor=suspect).update(read_again=True)
+    Assessment.objects.filter(fitted_capacitor=worn).update(read_again=False)
     assert plan_work_orders(horizon_days=90, user=planner)["created"] == 2
     orders = {o.fitted_capacitor_id: o for o in WorkOrder.objects.all()}
     assert orders[suspect.id].kind == WorkOrder.Kind.READ_AGAIN and orders[worn.id].kind == WorkOrder.Kind.REPLACE_RUN
@@ -349,7 +350,7 @@ def test_a_capacitor_the_plan_says_to_read_again_gets_a_read_again_order_that_a_
 
     # Back to "read again" on the next assessment, then a reading closes the order.
     stored_assessment(suspect, "due soon", today + dt.timedelta(days=7), reason=words)
-    Assessment.objects.filter(fitted_capacitor=suspect, is_current=True).update(p10_on=today)
+    Assessment.objects.filter(fitted_capacitor=suspect, is_current=True).update(read_again=True)
     plan_work_orders(horizon_days=90, user=planner)
     order = WorkOrder.objects.get(fitted_capacitor=suspect)
     assert order.kind == WorkOrder.Kind.READ_AGAIN and order.state == "planned"
@@ -421,7 +422,8 @@ def test_a_reading_with_winding_currents_refines_the_motors_circuit():
 
 def test_a_page_of_visits_lists_each_visits_first_orders_in_walking_order_with_its_spares():
     """[derived] A visit of 30 orders shows the 25 first in walking order (route order, then tag) and
-    5 more; its spares count every order's part, the ones not listed too."""
+    5 more; its spares count every order's part, the ones not listed too, against what the site holds
+    (a part it holds none of is short by all)."""
     from fleet.services.workorders import open_visits_page
 
     site = make_site(code="WALK")
@@ -435,4 +437,85 @@ def test_a_page_of_visits_lists_each_visits_first_orders_in_walking_order_with_i
     assert (visit["site"].code, visit["day"], visit["count"], visit["more"]) == ("WALK", day, 30, 5)
     walked = [order.motor.route_order for order in visit["orders"]]
     assert walked == sorted(walked) and walked[0] == 71 and walked[-1] == 95
-    assert visit["spares"] == [("RUN-A", 20), ("RUN-B", 10)]
+    assert visit["spares"] == [
+        {"code": "RUN-A", "quantity": 20, "held": 0, "short": 20},
+        {"code": "RUN-B", "quantity": 10, "held": 0, "short": 10},
+    ]
+    SiteStock.objects.create(site=site, part=run, quantity=3)
+    SiteStock.objects.create(site=site, part=start, quantity=12)
+    SiteStock.objects.create(site=make_site(code="ELSEWHERE"), part=start, quantity=50)
+    assert open_visits_page(1).object_list[0]["spares"] == [
+        {"code": "RUN-A", "quantity": 20, "held": 3, "short": 17},
+        {"code": "RUN-B", "quantity": 10, "held": 12, "short": 0},
+    ]
+    assert visit["planned"] == 30
+
+
+def test_an_open_order_the_plan_no_longer_asks_for_says_what_the_plan_says_now(planner):
+    """An issued "replace now" order stayed on the page and the visit sheet after new readings made its
+    capacitor "watch", replace by a date a year on. [trade] the planner decides to cancel or keep it: the
+    order says what the plan asks now, in words; one that the plan still asks for says nothing more."""
+    from fleet.services.workorders import open_visit, open_visits_page, with_plan_now
+
+    today = timezone.localdate()
+    site = make_site(code="MOVED")
+    later, kept, settled = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2, 3))
+    for fitted_capacitor, kind in ((later, "replace_run"), (kept, "replace_run"), (settled, "read_again")):
+        WorkOrder.objects.create(
+            motor=fitted_capacitor.motor,
+            fitted_capacitor=fitted_capacitor,
+            kind=kind,
+            due_on=today + dt.timedelta(days=7),
+            window_days=14,
+            state="issued",
+        )
+    stored_assessment(later, "watch", today + dt.timedelta(days=400))
+    stored_assessment(kept, "due soon", today + dt.timedelta(days=20))  # within the visit's window
+    stored_assessment(settled, "due soon", today + dt.timedelta(days=7))
+    Assessment.objects.filter(is_current=True).update(read_again=False)
+    expected = [
+        f"plan now: watch, replace by {(today + dt.timedelta(days=400)).isoformat()}",
+        "",
+        f"plan now: due soon, replace by {(today + dt.timedelta(days=7)).isoformat()}",
+    ]
+    visit = open_visits_page(1).object_list[0]
+    assert [order.plan_now for order in visit["orders"]] == expected
+    assert visit["planned"] == 0
+    sheet = with_plan_now(open_visit(site.id, today + dt.timedelta(days=7))["orders"])
+    assert [order.plan_now for order in sheet] == expected
+    stored_assessment(later, "sound", None)
+    assert open_visits_page(1).object_list[0]["orders"][0].plan_now == "plan now: sound, no replacement planned"
+
+
+@pytest.mark.parametrize("read_uf", ["28.55", "28.60"])
+def test_a_reading_taken_for_a_read_again_order_never_brings_another_read_again(planner, read_uf):
+    """A run capacitor whose trend's early crossing had passed got "Read again; replace if past its limit";
+    read at 28.62 µF (above its 28.50 µF limit), the plan still said "read it again" and the next plan
+    made a new "read again" order: a loop. [trade] a suspect capacitor is read once more, then replaced or
+    kept: the reading answers it, now and at the nightly refits after, and the next order is a replacement."""
+    from fleet.services.workorders import plan_work_orders
+
+    now = timezone.now()
+    fitted_capacitor = make_fitted_capacitor(
+        part=make_part(rated_uf=30.0, tolerance_minus_pct=5), fitted_on=(now - dt.timedelta(days=330)).date()
+    )
+    for i, value in enumerate([29.9, 29.45, 29.1, 28.75]):  # the last 40 days ago
+        make_reading(fitted_capacitor, taken_at=now - dt.timedelta(days=40 + 91 * (3 - i)), capacitance_uf=value)
+    refit_fitted_capacitors([fitted_capacitor.id], now=now)
+    before = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    assert before.read_again and before.reason.endswith("read it again")
+    plan_work_orders(horizon_days=90, user=planner)
+    assert WorkOrder.objects.get(fitted_capacitor=fitted_capacitor).kind == WorkOrder.Kind.READ_AGAIN
+    record_reading(
+        fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": read_uf}, user=planner
+    )
+    for days_later in (0, 10, 20):  # the refit after the reading, then nightly ones
+        when = now + dt.timedelta(days=days_later)
+        refit_fitted_capacitors([fitted_capacitor.id], now=when, force=True)
+        after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+        assert not after.read_again and "read it again" not in after.reason
+        if after.risk != "replace now" and after.p10_on <= when.date():
+            assert after.reason.startswith("read on ") and after.reason.endswith("replace at the next visit")
+        plan_work_orders(horizon_days=90, user=planner, today=when.date())
+        open_orders = WorkOrder.objects.filter(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
+        assert [order.kind for order in open_orders] == [WorkOrder.Kind.REPLACE_RUN]

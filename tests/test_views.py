@@ -482,9 +482,15 @@ def test_planner_plans_and_issues_visits_and_the_sheet_carries_the_cautions(sign
     sheet = client.get(reverse("visit_sheet", args=[site.code, day])).content.decode()
     assert "never a screwdriver" in sheet and fitted_capacitors[0].part.code in sheet
     code = fitted_capacitors[0].part.code
-    assert f'&times;&nbsp;<span class="nowrap">{code}</span>' in sheet and f" x {code}" not in sheet
+    assert f'<span class="nowrap">{code}</span></td><td class="num" data-label="To take">1</td>' in sheet
+    assert '<td class="num" data-label="Site holds">0</td>' in sheet and "1 short" in sheet
+    assert f" x {code}" not in sheet
+    assert body.count('value="issue">Issue this visit') == 2
     client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day})
-    assert "Issued" in client.get(reverse("work_orders")).content.decode()
+    body = client.get(reverse("work_orders")).content.decode()
+    # A visit with nothing left to issue offers no button (it said "no planned work orders ... reload").
+    assert "Issued" in body and body.count('value="issue">Issue this visit') == 1
+    assert "Its order is issued to the technicians" in body
     assert signed_in(technician).post(reverse("work_orders"), {"action": "plan"}).status_code == 403
 
 

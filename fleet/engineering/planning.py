@@ -57,9 +57,15 @@ class PlanningSettings:
     watch_days: float = 365.0
     notice_days: float = 7.0  # without a defect, never sooner than this: spares and a visit need time
     below_limit_days: float = 14.0  # read below its limit: replace within one visit window
+    # A reading this close before the trend's early crossing, or after it, answers whether the capacitor has
+    # passed its limit (it moves little within one visit window): no "read it again" after it.
+    reading_answers_days: float = 14.0
     horizon_days: float = 30 * 365.0  # crossings later than this are "beyond"
     alert_level: float = 0.1  # the crossing quantile the risk rule flags on, until a back-test chose one
     alert_min_recall: float = 0.85  # a back-tested level must catch this share of the year's crossings
+    # Days a visit may fall on, Monday to Sunday (numpy's weekmask): public holidays are local, the planner
+    # moves a visit that falls on one.
+    working_days: str = "1111100"
 
 
 @dataclass(frozen=True)
@@ -76,6 +82,7 @@ class Judgement:
     reason: np.ndarray
     limit_index: np.ndarray
     limit_fraction: np.ndarray
+    read_again: np.ndarray  # the plan's word is "read it again" (`read_again`)
 
 
 def reads_below(fraction_25c, limit_fraction) -> np.ndarray:
@@ -107,6 +114,7 @@ def judge(
     wear_days=None,
     wear_words=None,
     alert_days=None,
+    latest_on=None,
     settings: PlanningSettings | None = None,
 ) -> Judgement:
     """Judge every capacitor at once.
@@ -121,14 +129,17 @@ def judge(
     dissipation factor's trend); when it comes before the capacitance limit it
     sets the risk, the date and the reason, and `governing` is L.
     alert_days (L, G): days to each limit's crossing at the quantile the risk
-    rule flags on (`risk_levels`; P10 when not given).
+    rule flags on (`risk_levels`; P10 when not given). latest_on (G dates): the newest reading's day
+    (NaT or not given: unknown).
 
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
     circuit, a reading below the governing limit, a dissipation factor over its
     maximum, or the fitted path (P50) already past the limit. An early crossing
     (P10, or the back-tested alert quantile) within a quarter is "due soon",
-    within a year "watch", else "sound".
+    within a year "watch", else "sound". An early crossing already passed asks to read the capacitor
+    again (`read_again`); a reading taken since that still reads above the limit settles it: the
+    capacitor sits at the edge of its limit by its trend, replace it at the next visit.
     """
     settings = settings or PlanningSettings()
     names = np.asarray(limit_names, dtype=object)
@@ -159,6 +170,13 @@ def judge(
         governing = np.where(wear_first, len(names), governing)
     replace_now = evidence != EVIDENCE_NONE
     risk = risk_levels(replace_now, alert, settings)
+    latest_days = np.full(n, np.nan)
+    if latest_on is not None:
+        latest_day = np.asarray(latest_on, "datetime64[D]")
+        latest_days = (latest_day - np.datetime64(today, "D")).astype(float)
+        latest_days[np.isnat(latest_day)] = np.nan
+    again = read_again(risk, days[0], latest_days, settings.reading_answers_days)
+    read_since = ~replace_now & (days[0] <= 0) & ~again
     urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
     planned = np.maximum(days[0] - settings.lead_days, settings.notice_days)
     due_days = np.select(
@@ -180,6 +198,18 @@ def judge(
     beyond = f"beyond {settings.horizon_days / 365:.0f} years"
     likely = month_or(days[1], beyond)
     late = month_or(days[2], "")
+    read_on = np.datetime_as_string(
+        np.datetime64(today, "D") + np.nan_to_num(latest_days, nan=0.0).astype("int64").astype("timedelta64[D]"),
+        unit="D",
+    ).astype(object)
+    settled = (
+        "read on "
+        + read_on
+        + np.where(wear_first, ", within " + limit_words, " at " + latest + " \u00b5F, above " + limit_words)
+        + ", but its trend crosses it now (likely "
+        + likely
+        + "): replace at the next visit"
+    )
     between = np.select(
         [(days[0] > 0) & (late != ""), days[0] > 0],
         [
@@ -208,6 +238,7 @@ def judge(
             evidence == EVIDENCE_BELOW,
             evidence == EVIDENCE_PATH,
             (governing < 0) & ~wear_first,
+            read_since,
             np.isfinite(days[0]) & (days[0] <= settings.horizon_days),
         ],
         [
@@ -219,6 +250,7 @@ def judge(
                 "fitted trend is already below " + limit_words,
             ),
             "no limit could be evaluated",
+            settled,
             between,
         ],
         default="trend stays above " + limit_words + " for the planning horizon",
@@ -231,14 +263,23 @@ def judge(
         reason=reason,
         limit_index=limit_index,
         limit_fraction=limit,
+        read_again=again,
     )
 
 
-def read_again(risk, early_days) -> np.ndarray:
+def read_again(
+    risk, early_days, latest_days, answers_days: float = PlanningSettings.reading_answers_days
+) -> np.ndarray:
     """Where the plan's word is "read it again" before replacing: the trend's early (P10) crossing has
-    passed (`early_days` from today at or below 0) while no reading shows the capacitor past its limit
-    or damaged (not "replace now"); `judge` says so in its reason. A reading settles it either way."""
-    return (np.asarray(risk) != RISK_REPLACE_NOW) & (np.asarray(early_days, float) <= 0)
+    passed (`early_days` from today at or below 0), no reading shows the capacitor past its limit or
+    damaged (not "replace now"), and none was taken since the crossing, or `answers_days` before it
+    (`latest_days`, days from today to the newest reading; nan: unknown). Such a reading settles it
+    either way: below the limit it is "replace now", above it `judge` says replace at the next visit;
+    never a second "read again" for a question a reading answered. The work orders follow the stored word."""
+    early_days = np.asarray(early_days, float)
+    with np.errstate(invalid="ignore"):
+        read_since = np.asarray(latest_days, float) >= np.floor(early_days) - answers_days
+    return (np.asarray(risk) != RISK_REPLACE_NOW) & (early_days <= 0) & ~read_since
 
 
 def alert_index(level) -> np.ndarray:
@@ -259,14 +300,48 @@ def risk_levels(replace_now, alert_days, settings: PlanningSettings | None = Non
     )
 
 
-def bundle_visits(site, due_day, window_days=14):
+def plan_moved_words(
+    *, order_reads_again, order_due_days, window_days, plan_risk, plan_read_again, plan_due_days, today: dt.date
+) -> np.ndarray:
+    """Per open work order, in words, what its capacitor's current plan asks where that is no longer the
+    order's work in its visit ("plan now: watch, replace by 2027-01-03"); empty where it still is.
+
+    The plan no longer asks for the order's work when it plans no replacement, asks for the other kind
+    (read again or replace), or dates the replacement after the order's visit window (due day plus
+    `window_days`: the plan would not put it in this visit). Days count from `today` (inf: none)."""
+    order_due = np.asarray(order_due_days, float)
+    plan_due = np.asarray(plan_due_days, float)
+    plan_again = np.asarray(plan_read_again, bool)
+    no_date = ~np.isfinite(plan_due)
+    moved = (
+        no_date
+        | (np.asarray(order_reads_again, bool) != plan_again)
+        | (plan_due > order_due + np.asarray(window_days, float))
+    )
+    when = np.where(
+        no_date,
+        "no replacement planned",
+        np.where(plan_again, "read it again by ", "replace by ")
+        + np.datetime_as_string(
+            np.datetime64(today, "D") + np.where(no_date, 0, plan_due).astype("int64").astype("timedelta64[D]"),
+            unit="D",
+        ).astype(object),
+    )
+    return np.where(moved, "plan now: " + np.asarray(plan_risk, dtype=object) + ", " + when, "")
+
+
+def bundle_visits(
+    site, due_day, window_days=14, *, today: dt.date | None = None, weekmask: str = PlanningSettings.working_days
+):
     """Group replacements into site visits: one trip per site per window.
 
     Per site, the earliest due replacement opens a visit dated on its due day;
     everything at that site due within `window_days` after it joins the visit
     (replaced a little early rather than sending a second trip); the next item
     opens the next visit. Returns (visit number per item, visit day per item).
-    The loop runs over visits, not over items.
+    The loop runs over visits, not over items. Given `today` (day 0), a visit day
+    that falls outside `weekmask`'s working days moves to the working day before
+    it, or after it where that would be before today.
     """
     site = np.asarray(site)
     due_day = np.asarray(due_day, float)
@@ -285,4 +360,18 @@ def bundle_visits(site, due_day, window_days=14):
             visit_day[order[position:end]] = opens
             next_visit += 1
             position = end
+    if today is not None and due_day.size:
+        visit_day = working_visit_days(visit_day, today, weekmask)
     return visit, visit_day
+
+
+def working_visit_days(visit_day, today: dt.date, weekmask: str = PlanningSettings.working_days) -> np.ndarray:
+    """Visit days (days from `today`) moved onto working days: back to the working day before, or on to the
+    one after where going back would be before today (a weekend's overdue visit goes on Monday)."""
+    day = np.asarray(visit_day, float)
+    base = np.datetime64(today, "D")
+    dates = base + np.nan_to_num(day, nan=0.0).astype("int64").astype("timedelta64[D]")
+    earlier = np.busday_offset(dates, 0, roll="backward", weekmask=weekmask)
+    later = np.busday_offset(dates, 0, roll="forward", weekmask=weekmask)
+    moved = np.where(earlier >= base, earlier, later)
+    return np.where(np.isnan(day), np.nan, (moved - base).astype(float))

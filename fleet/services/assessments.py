@@ -631,6 +631,7 @@ def assess(
         wear_days=wear_days,
         wear_words=wear_words,
         alert_days=alert_days,
+        latest_on=newest_at.dt.tz_convert("UTC").dt.tz_localize(None).to_numpy().astype("datetime64[D]"),
         settings=PlanningSettings(),
     )
     return Assessed(
@@ -966,6 +967,7 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "risk": risk,
             "replace_by": _iso_dates(judgement.due_days, today),
             "reason": pd.Series(reason).str.slice(0, 300).to_numpy(object),
+            "read_again": np.asarray(judgement.read_again, bool),
             "limits": _limits_json(result, today),
             "set_aside": result.set_aside.astype(str),
             "figures_now": _figures_json(result.figures_now, result.with_circuit),

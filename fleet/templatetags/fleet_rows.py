@@ -69,8 +69,9 @@ def plan_rows(assessments):
 
 WORK_ORDER_ROW = """<tr>
     <td data-label="Motor"><a href="{motor_url}">{tag}</a><br><span class="muted">{location}</span></td>
-    <td data-label="Work">{kind}</td><td data-label="Part"><span class="nowrap">{part}</span></td><td data-label="State">{state}</td><td data-label="Why">{reason}</td></tr>
+    <td data-label="Work">{kind}</td><td data-label="Part"><span class="nowrap">{part}</span></td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
   """  # noqa: E501 (as the page's source shows it)
+PLAN_NOW = '<br><b class="plan-now">{}</b>'
 
 
 @register.simple_tag
@@ -89,6 +90,7 @@ def work_order_rows(orders):
                 part="" if capacitor is None else capacitor.part.code,
                 state=order.get_state_display(),
                 reason=nowrap_dates(order.reason),
+                plan_now=format_html(PLAN_NOW, nowrap_dates(order.plan_now)) if getattr(order, "plan_now", "") else "",
             )
         )
     return mark_safe("".join(rows))

@@ -23,7 +23,7 @@ from fleet.services import pages
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
 from fleet.services.substitutes import part_families
-from fleet.services.workorders import issue_visit, open_visit, open_visits_page, plan_work_orders
+from fleet.services.workorders import issue_visit, open_visit, open_visits_page, plan_work_orders, with_plan_now
 
 VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 
@@ -100,6 +100,7 @@ def visit_sheet(request, site_code, day):
     if not paginator.count:
         raise Http404("No open work orders for that visit")
     page = list_page(request, paginator.get_page)
+    page.object_list = with_plan_now(page.object_list)
     return render(request, "fleet/visit_sheet.html", {"visit": visit, "site": site, "page": page})
 
 

@@ -45,7 +45,18 @@ def test_a_reading_is_held_to_the_trend_now_only_when_taken_after_its_newest_rea
     assert held[0] == 11.9 and np.isnan(held[1:]).all()
 
 
-def _judge(p10, p50, p90=None, *, evidence=None, latest=None, now=None, limits=(0.94,), today=dt.date(2026, 12, 1)):
+def _judge(
+    p10,
+    p50,
+    p90=None,
+    *,
+    evidence=None,
+    latest=None,
+    now=None,
+    limits=(0.94,),
+    today=dt.date(2026, 12, 1),
+    read_on=None,
+):
     """One limit (tolerance at 94 % of a 10 uF rating); days to its P10/P50/P90."""
     p10, p50 = np.asarray(p10, float), np.asarray(p50, float)
     p90 = p50 * 2 if p90 is None else np.asarray(p90, float)
@@ -63,6 +74,7 @@ def _judge(p10, p50, p90=None, *, evidence=None, latest=None, now=None, limits=(
         evidence=np.full(n, EVIDENCE_NONE) if evidence is None else np.asarray(evidence),
         evidence_text=np.full(n, "", dtype=object),
         today=today,
+        latest_on=None if read_on is None else np.asarray(read_on, "datetime64[D]"),
     )
 
 
@@ -86,6 +98,32 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
     assert result.due_days.tolist() == [7.0, 7.0]  # no defect seen: a week's notice for spares and the visit
     assert result.reason[0].startswith("trend may already have reached the tolerance limit")
+
+
+def test_a_reading_since_the_early_crossing_settles_read_again():
+    """[trade] A suspect capacitor is read once more before it is condemned, not again and again: a reading
+    taken after the trend's early (P10) crossing, or within a visit window before it, that is still above the
+    limit answers the question
+    (the capacitor sits at the edge of its limit by its trend: replace it at the next visit). Read before
+    the crossing, or never, the plan still says read it again."""
+    result = _judge(
+        [-20.0, -20.0, -20.0, -20.0],
+        [18.0, 18.0, 18.0, 18.0],
+        latest=[0.945, 0.945, 0.945, 0.945],
+        read_on=["2026-12-01", "2026-10-28", "2026-10-27", "NaT"],
+    )
+    assert result.read_again.tolist() == [False, False, True, True]
+    assert result.risk.tolist() == [RISK_DUE_SOON] * 4
+    assert result.due_days.tolist() == [7.0] * 4  # the next visit: a week's notice for spares
+    assert result.reason[0] == (
+        "read on 2026-12-01 at 9.45 \u00b5F, above the tolerance limit (9.40 \u00b5F), but its trend crosses it now "
+        "(likely 2026-12): replace at the next visit"
+    )
+    # Two weeks before the crossing (2026-11-11) still answers it (a capacitor moves little in a visit window).
+    assert result.reason[1].startswith("read on 2026-10-28 at 9.45")
+    assert result.reason[2].endswith("): read it again") and result.reason[3].endswith("): read it again")
+    below = _judge([-20.0], [18.0], latest=[0.935], read_on=["2026-12-01"])
+    assert below.risk[0] == RISK_REPLACE_NOW and not below.read_again[0]
 
 
 def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
@@ -120,3 +158,23 @@ def test_replacements_are_bundled_into_one_visit_per_site_and_window():
     assert day.tolist() == [3.0, 3.0, 30.0, 5.0, 3.0, 40.0]
     assert len(set(visit.tolist())) == 4
     assert visit[3] != visit[5]
+
+
+def test_visit_days_fall_on_working_days():
+    """[derived] Visits moved off days outside the working week: back to the working day before, or on to
+    the next where that is before today. Weekdays checked with Python's calendar (datetime.date.weekday),
+    not numpy's; 2026-12-03 is a Thursday, 2026-12-25 a Friday."""
+    from fleet.engineering.planning import bundle_visits
+
+    today = dt.date(2026, 12, 3)
+    site = np.array(["A", "B", "C", "D", "E"])
+    due = np.array([22.0, 23.0, 24.0, 2.0, 4.0])  # Fri 25, Sat 26, Sun 27, Sat 5, Mon 7
+    _, day = bundle_visits(site, due, 14, today=today)
+    dates = [today + dt.timedelta(days=int(d)) for d in day]
+    assert all(d.weekday() < 5 for d in dates)
+    assert day.tolist() == [22.0, 22.0, 22.0, 1.0, 4.0]
+    saturday = dt.date(2026, 12, 5)  # planned on a Saturday: today's overdue visit goes on Monday
+    _, day = bundle_visits(np.array(["A"]), np.array([0.0]), 14, today=saturday)
+    assert (saturday + dt.timedelta(days=int(day[0]))).weekday() == 0
+    _, day = bundle_visits(np.array(["A"]), np.array([0.0]), 14, today=saturday, weekmask="1111110")
+    assert day.tolist() == [0.0]  # a site that works Saturdays
