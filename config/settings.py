@@ -196,6 +196,10 @@ CELERY_RESULT_BACKEND_TRANSPORT_OPTIONS = {"retry_policy": {"max_retries": 1, "i
 CELERY_TASK_ACKS_LATE = True
 CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1
+# Connections are closed around tasks as around requests (config/celery.py: past DB_CONN_MAX_AGE, or
+# unusable); Celery's fix-up would otherwise close them after every task. It still closes them after
+# this many tasks.
+CELERY_DB_REUSE_MAX = 1000
 CELERY_TASK_TIME_LIMIT = 30 * 60
 CELERY_TASK_SOFT_TIME_LIMIT = 25 * 60
 # A chunk of a fleet refit (FLEET_REFIT_CHUNK_SIZE capacitors) takes seconds; past

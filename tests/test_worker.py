@@ -14,9 +14,10 @@ from pathlib import Path
 import pytest
 from django.conf import settings
 from django.db import connection
+from django.db.models import Min
 from django.utils import timezone
 
-from fleet.models import Assessment, RefitRun
+from fleet.models import Assessment, RefitChunk, RefitRun
 from fleet.services.readings import record_reading
 from fleet.services.refits import start_fleet_refit
 from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
@@ -102,3 +103,25 @@ def test_a_fleet_refit_runs_in_chunks_on_the_worker(worker):
     run.refresh_from_db()
     assert (run.done, run.total) == (5, 5)
     assert Assessment.objects.filter(is_current=True).count() == 5
+
+
+def test_the_worker_keeps_its_database_connection_from_task_to_task(worker):
+    # [derived] As a web server keeps its connection from request to request (DB_CONN_MAX_AGE):
+    # the connection that ran the first chunk is still open after the last. Closed after every
+    # task, none would be left, or one opened after the first chunk.
+    part = make_part()
+    for i in range(6):
+        fitted_capacitor = make_fitted_capacitor(part=part)
+        quarterly_readings(
+            fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98 - 0.002 * i, 3.96]
+        )
+    run = start_fleet_refit(chunk_size=2)
+    assert wait_for(lambda: RefitRun.objects.get(pk=run.pk).state == RefitRun.State.DONE)
+    first_chunk_done = RefitChunk.objects.filter(run=run).aggregate(first=Min("finished_at"))["first"]
+    assert RefitChunk.objects.filter(run=run).count() == 3
+    with connection.cursor() as cursor:
+        cursor.execute(
+            "SELECT backend_start FROM pg_stat_activity WHERE datname = current_database() AND pid <> pg_backend_pid()"
+        )
+        opened = [row[0] for row in cursor.fetchall()]
+    assert any(started < first_chunk_done for started in opened), (first_chunk_done, opened)
