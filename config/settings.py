@@ -249,6 +249,11 @@ FLEET_SITE_URL = os.environ.get("FLEET_SITE_URL", "http://127.0.0.1:8000").rstri
 
 # Fleet computations: chunk size of a fleet refit, and the engineering constants.
 FLEET_REFIT_CHUNK_SIZE = env_int("FLEET_REFIT_CHUNK_SIZE", 2000)
+# A chunk larger than this is refitted in parts of this many capacitors, each judged on a second thread
+# while the next is read and the one before written (0: in one piece). It pays where a worker and its
+# database server process have cores of their own (one worker, a refit in-process, a database host of
+# its own), not with two workers on the database's own two cores (README, fleet refit figures).
+FLEET_REFIT_PART_SIZE = env_int("FLEET_REFIT_PART_SIZE", 0)
 # Fitted capacitors a back-test samples at most (a fixed sample): bounded time and memory at plant scale.
 FLEET_BACKTEST_MAX_CAPACITORS = env_int("FLEET_BACKTEST_MAX_CAPACITORS", 20000)
 # Capacitors of one part fitted at most (a fixed sample) to estimate its population of paths before a fleet refit.

@@ -108,6 +108,28 @@ def test_a_chunk_refit_equals_its_capacitors_refitted_one_at_a_time():
         assert chunk[fitted_capacitor_id] == single[fitted_capacitor_id], fitted_capacitor_id
 
 
+def test_a_chunk_refitted_in_parts_writes_what_its_parts_write_refitted_alone():
+    # [derived] In parts, each part is judged on a second thread while the next is read and the
+    # one before written: the same batches, so the same numbers to the last bit, each capacitor
+    # written once. The second thread reads nothing (here it could not see the test's rows).
+    build_bench_fleet(FleetSize(motors=16, capacitors=24, readings=300), today=TODAY, progress=quiet)
+    refresh_part_priors()
+    ids = in_service_ids()
+    assert len(ids) >= 15
+    for start in range(0, len(ids), 4):
+        refit_fitted_capacitors(ids[start : start + 4], now=NOW, force=True)
+    alone = {row["fitted_capacitor_id"]: row for row in Assessment.objects.filter(is_current=True).values(*COMPARED)}
+    assessments_before = Assessment.objects.count()
+    outcome = refit_fitted_capacitors(ids, now=NOW, force=True, part_size=4)
+    assert (outcome.written, outcome.skipped) == (len(ids), 0)
+    assert outcome.readings == Reading.objects.filter(fitted_capacitor_id__in=ids).count()
+    assert Assessment.objects.count() == assessments_before + len(ids)
+    in_parts = {row["fitted_capacitor_id"]: row for row in Assessment.objects.filter(is_current=True).values(*COMPARED)}
+    assert in_parts == alone
+    again = refit_fitted_capacitors(ids, now=NOW, part_size=4)  # nothing newer, judged today: nothing to write
+    assert (again.written, again.skipped, again.readings) == (0, len(ids), 0)
+
+
 def test_the_stored_limits_and_figures_are_json_the_api_can_send():
     build_bench_fleet(FleetSize(motors=6, capacitors=9, readings=90), today=TODAY, progress=quiet)
     refit_fitted_capacitors(in_service_ids(), now=NOW, force=True)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -292,9 +293,15 @@ def assessment_terms(assessment: Assessment, dielectric: str) -> tuple[float, ..
     return stored_calibration().get(dielectric, DEFAULT_TERMS)
 
 
-def motor_circuits(inst: pd.DataFrame):
-    """Circuit, load and ratings of the motors that have an equivalent circuit."""
-    with_circuit = inst["r1m_ohm"].notna().to_numpy()
+def _with_circuit(inst: pd.DataFrame) -> np.ndarray:
+    """Which rows' motors have an equivalent circuit."""
+    return inst["r1m_ohm"].notna().to_numpy()
+
+
+def motor_circuits(inst: pd.DataFrame, companions: pd.DataFrame | None = None):
+    """Circuit, load and ratings of the motors that have an equivalent circuit; `companions` are
+    their motors' capacitors' ratings by role (`companion_capacitance_frame`), read if not given."""
+    with_circuit = _with_circuit(inst)
     sub = inst[with_circuit]
     circuit = MotorCircuit.from_arrays(
         r1m=sub["r1m_ohm"],
@@ -310,7 +317,8 @@ def motor_circuits(inst: pd.DataFrame):
         poles=sub["poles"],
         rotational_loss_w=sub["rotational_loss_w"].fillna(0.0),
     )
-    companions = companion_capacitance_frame(sub["motor_id"].unique())
+    if companions is None:
+        companions = companion_capacitance_frame(sub["motor_id"].unique())
     own_run = np.where(sub["role"] == ROLE_RUN, sub["rated_uf"], np.nan)
     own_start = np.where(sub["role"] != ROLE_RUN, sub["rated_uf"], np.nan)
     run_uf = np.where(np.isnan(own_run), companions[ROLE_RUN].reindex(sub["motor_id"]).to_numpy(float), own_run)
@@ -514,13 +522,15 @@ def assess(
     now: dt.datetime,
     alert_levels: dict[str, float] | None = None,
     shapes: dict[str, str] | None = None,
+    companions: pd.DataFrame | None = None,
 ) -> Assessed:
     """Fit, judge and plan a batch of capacitors from frames; nothing is read or written.
 
     The refit stores the result; the back-test calls it with the readings known
     at a past cut-off (and `now` = the cut-off) and scores it against later ones.
     `alert_levels` maps a dielectric to the crossing quantile its risk rule flags on, `shapes` to
-    its path shape (stored ones by default).
+    its path shape (stored ones by default); `companions` are the motors' capacitor ratings
+    (`motor_circuits`: read if not given).
     """
     part_ids = np.sort(inst["part_id"].unique())
     fit = fit_frames(inst, readings, priors, part_ids, forms, shapes=shapes)
@@ -534,7 +544,7 @@ def assess(
     figures_now = figures_new = pd.DataFrame(
         np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
     )
-    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
+    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst, companions)
     in_time_order = _in_time_order(readings)
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
@@ -657,16 +667,80 @@ def assess(
     )
 
 
+@dataclass(frozen=True)
+class _Batch:
+    """A batch as read for its refit: the capacitors with something to refit (indexed by fitted
+    capacitor id), their readings, and what their fit reads besides (nothing more is read to judge
+    them)."""
+
+    inst: pd.DataFrame
+    readings: pd.DataFrame
+    max_reading_id: pd.Series
+    priors: PartPriors
+    companions: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class _Stored:
+    """What every batch of a refit reads alike: the latest back-test's calibration and choices."""
+
+    calibration: dict[str, tuple[float, ...]]
+    forms: dict[str, str]
+    alert_levels: dict[str, float]
+    shapes: dict[str, str]
+
+    @classmethod
+    def read(cls) -> _Stored:
+        return cls(stored_calibration(), stored_forms(), stored_alert_levels(), stored_shapes())
+
+
 def refit_fitted_capacitors(
-    fitted_capacitor_ids, *, now: dt.datetime | None = None, force: bool = False, as_of: bool = False
+    fitted_capacitor_ids,
+    *,
+    now: dt.datetime | None = None,
+    force: bool = False,
+    as_of: bool = False,
+    part_size: int | None = None,
 ) -> RefitOutcome:
     """Fit, judge and plan the given fitted capacitors; store one assessment each.
 
     `as_of`: judge as it stood at `now` in the past, from the readings taken by then only (the
     demo's few weeks of assessment history).
+
+    `part_size` (a fleet refit's chunk): refit the capacitors in parts of this many, each part
+    judged on a second thread while this one reads the next part and writes the one before, so
+    the database's work and the fit's overlap. Each part is written in a transaction of its own,
+    with the numbers a single batch gives. The second thread reads and writes nothing.
     """
     now = now or timezone.now()
     ids = sorted({int(i) for i in fitted_capacitor_ids})
+    if not part_size or len(ids) <= part_size:
+        batch = _read_batch(ids, now, force=force, as_of=as_of)
+        written = _store_rows(_judged_rows(batch, _Stored.read(), now), now, as_of=as_of) if batch else 0
+        return RefitOutcome(written=written, skipped=len(ids) - written, readings=_readings_of(batch))
+    written = readings = 0
+    stored = judging = None  # judging: the part on the second thread (its future rows)
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="refit-judge") as judge_thread:
+        for start in range(0, len(ids) + part_size, part_size):
+            batch = _read_batch(ids[start : start + part_size], now, force=force, as_of=as_of)
+            previous, judging = judging, None
+            if batch is not None:
+                stored = stored or _Stored.read()
+                judging = judge_thread.submit(_judged_rows, batch, stored, now)
+                readings += _readings_of(batch)
+            if previous is not None:
+                written += _store_rows(previous.result(), now, as_of=as_of)
+    return RefitOutcome(written=written, skipped=len(ids) - written, readings=readings)
+
+
+def _readings_of(batch: _Batch | None) -> int:
+    return 0 if batch is None else int(len(batch.readings))
+
+
+def _read_batch(ids: list[int], now: dt.datetime, *, force: bool, as_of: bool) -> _Batch | None:
+    """The capacitors among `ids` with something to refit, and all their fit reads; None if none."""
+    if not ids:
+        return None
     inst = fitted_capacitors_frame(ids)
     readings = readings_frame(ids)
     if as_of:
@@ -696,23 +770,37 @@ def refit_fitted_capacitors(
         newest = max_reading_id.reindex(inst["fitted_capacitor_id"]).to_numpy()
         covered = ~np.isnan(seen_id) & (seen_id >= newest) & judged_today
         inst = inst[~covered]
-    skipped = len(ids) - len(inst)
     if inst.empty:
-        return RefitOutcome(written=0, skipped=skipped, readings=0)
+        return None
     inst = inst.set_index("fitted_capacitor_id", drop=False)
-    readings = readings[readings["fitted_capacitor_id"].isin(inst.index)].reset_index(drop=True)
-    part_ids = np.sort(inst["part_id"].unique())
-    result = assess(
-        inst,
-        readings,
-        priors=_stored_priors(part_ids.tolist()),
-        calibration=stored_calibration(),
-        forms=stored_forms(),
-        now=now,
-        alert_levels=stored_alert_levels(),
-        shapes=stored_shapes(),
+    return _Batch(
+        inst=inst,
+        readings=readings[readings["fitted_capacitor_id"].isin(inst.index)].reset_index(drop=True),
+        max_reading_id=max_reading_id,
+        priors=_stored_priors(np.sort(inst["part_id"].unique()).tolist()),
+        companions=companion_capacitance_frame(inst.loc[_with_circuit(inst), "motor_id"].unique()),
     )
-    rows = _assessment_frame(result, readings, max_reading_id, now.date())
+
+
+def _judged_rows(batch: _Batch, stored: _Stored, now: dt.datetime) -> pd.DataFrame:
+    """The batch's assessment rows: the core's calls on what was read, nothing read or written."""
+    result = assess(
+        batch.inst,
+        batch.readings,
+        priors=batch.priors,
+        calibration=stored.calibration,
+        forms=stored.forms,
+        now=now,
+        alert_levels=stored.alert_levels,
+        shapes=stored.shapes,
+        companions=batch.companions,
+    )
+    return _assessment_frame(result, batch.readings, batch.max_reading_id, now.date())
+
+
+def _store_rows(rows: pd.DataFrame, now: dt.datetime, *, as_of: bool) -> int:
+    """Write the new assessments in one transaction, each capacitor's current one retired; returns
+    how many were written (none over an assessment that saw a newer reading)."""
     with transaction.atomic():
         if on_postgresql():
             # Derived rows, recomputed by the next refit if a crash lost them: the commit need not
@@ -723,8 +811,9 @@ def refit_fitted_capacitors(
         # Two refits of one capacitor at once (two readings saved together, two workers) take
         # turns from here: the second then sees the first's assessment, marks it superseded
         # instead of inserting a second current one, and writes nothing older over it.
-        facts = _capacitor_facts_locked(inst.index.to_numpy(np.int64))
-        current = _current_assessments(rows["fitted_capacitor_id"].to_numpy(np.int64))
+        ids = rows["fitted_capacitor_id"].to_numpy(np.int64)
+        facts = _capacitor_facts_locked(ids)
+        current = _current_assessments(ids)
         if not as_of:
             rows = _not_older_than(rows, current)
         _carry_risk_history(rows, current, now)
@@ -732,7 +821,7 @@ def refit_fitted_capacitors(
             fitted_capacitor_id__any_of=rows["fitted_capacitor_id"].to_numpy(np.int64), is_current=True
         ).update(is_current=False)
         insert_frame(Assessment, _with_capacitor_facts(rows, facts))
-    return RefitOutcome(written=len(rows), skipped=len(ids) - len(rows), readings=int(len(readings)))
+    return len(rows)
 
 
 FACT_COLUMNS = ["capacitor_in_service", "site_id", "part_id", "fitted_on", "route_order"]

@@ -94,7 +94,7 @@ def refit_chunk(run_id: int, number: int, fitted_capacitor_ids: list[int], force
     that row is new, in the same transaction, so a chunk delivered again after
     its worker died (acks_late) refits nothing new and counts nothing twice.
     """
-    outcome = refit_fitted_capacitors(fitted_capacitor_ids, force=force)
+    outcome = refit_fitted_capacitors(fitted_capacitor_ids, force=force, part_size=settings.FLEET_REFIT_PART_SIZE)
     now = timezone.now()
     with transaction.atomic():
         if not list(RefitRun.objects.select_for_update().filter(id=run_id).values_list("id", flat=True)):

@@ -96,7 +96,8 @@ class Command(BaseCommand):
         self.stdout.flush()
 
     def handle(self, *args, **options):
-        self.say(f"database: {connection.vendor}, {os.cpu_count()} cores; chunk size {options['chunk_size']}")
+        parts = f", in parts of {settings.FLEET_REFIT_PART_SIZE}" if settings.FLEET_REFIT_PART_SIZE else ""
+        self.say(f"database: {connection.vendor}, {os.cpu_count()} cores; chunk size {options['chunk_size']}{parts}")
         if existing_bench_fleet():
             self.say("using the benchmark fleet already in this database")
         else:
@@ -202,7 +203,7 @@ class Command(BaseCommand):
         ids = ids[:chunk_size]
         refit_fitted_capacitors(ids[:10], force=True)  # imports, stored priors: not the chunk's own memory
         tracemalloc.start()
-        outcome = refit_fitted_capacitors(ids, force=True)
+        outcome = refit_fitted_capacitors(ids, force=True, part_size=settings.FLEET_REFIT_PART_SIZE)
         peak = tracemalloc.get_traced_memory()[1]
         tracemalloc.stop()
         self.say(
@@ -212,8 +213,8 @@ class Command(BaseCommand):
 
     def chunk_cpu(self, chunk_size: int, chunks: int = 5) -> None:
         """CPU seconds of a chunk in this process and in its database server process (median of a few
-        chunks after the first): the two sides a worker's chunk costs, steadier than wall time on a
-        shared machine."""
+        chunks after the first), in parts as a worker refits it: the two sides a worker's chunk costs,
+        steadier than wall time on a shared machine."""
         ids = list(FittedCapacitor.objects.filter(removed_on__isnull=True).order_by("id").values_list("id", flat=True))
         server_pid = None
         if on_postgresql():
@@ -223,7 +224,9 @@ class Command(BaseCommand):
         worker_s, server_s = [], []
         for start in range(0, min(len(ids), chunk_size * chunks), chunk_size):
             before = time.process_time(), _cpu_seconds(server_pid) if server_pid else float("nan")
-            refit_fitted_capacitors(ids[start : start + chunk_size], force=True)
+            refit_fitted_capacitors(
+                ids[start : start + chunk_size], force=True, part_size=settings.FLEET_REFIT_PART_SIZE
+            )
             worker_s.append(time.process_time() - before[0])
             server_s.append((_cpu_seconds(server_pid) if server_pid else float("nan")) - before[1])
         if len(worker_s) < 2:
