@@ -1,19 +1,29 @@
 """fleet.services.bulk: `insert_frame` stores what the ORM would, `field__any_of` finds what `field__in` finds,
-`select_frame` reads back what the ORM reads.
+`select_frame` reads back what the ORM reads, `side_by_side` reads what this connection would.
 
 [derived] the ORM's own reads are the reference: a row written in bulk must read back as the
 values given, and a filter must return the rows `__in` returns.
 """
 
 import datetime as dt
+import threading
+import time
 
 import numpy as np
 import pandas as pd
 import pytest
-from django.db import IntegrityError, transaction
+from django.db import IntegrityError, connection, transaction
 
 from fleet.models import FittedCapacitor, Motor, Reading
-from fleet.services.bulk import SEPARATOR, csv_line_sql, insert_frame, on_postgresql, select_frame, select_lines
+from fleet.services.bulk import (
+    SEPARATOR,
+    csv_line_sql,
+    insert_frame,
+    on_postgresql,
+    select_frame,
+    select_lines,
+    side_by_side,
+)
 from tests.factories import make_fitted_capacitor, make_motor
 
 
@@ -183,3 +193,42 @@ def test_a_bulk_insert_holding_one_reading_after_its_capacitors_removal_writes_n
         insert_frame(Reading, pd.concat([readings(three_motors[2], ["c-1"]), late]))
     assert not Reading.objects.exists()
     assert insert_frame(Reading, pd.concat([readings(three_motors[0], ["a-1", "a-2"]), late.iloc[:1]])) == 3
+
+
+def test_reads_side_by_side_within_a_transaction_see_its_rows(three_motors):
+    # [derived] Inside a transaction (here the test's) another connection would not see the rows
+    # written in it: every read runs on this connection, one after the other.
+    tags = ["ANY-0", "ANY-1", "ANY-2"]
+    counts = side_by_side(*(lambda tag=tag: Motor.objects.filter(asset_tag=tag).count() for tag in tags))
+    assert counts == [1, 1, 1]
+
+
+def _backend_pid() -> int:
+    with connection.cursor() as cursor:
+        cursor.execute("SELECT pg_backend_pid()")
+        return cursor.fetchone()[0]
+
+
+@pytest.mark.django_db(transaction=True)
+@pytest.mark.skipif(not on_postgresql(), reason="reads run side by side on PostgreSQL only")
+def test_outside_a_transaction_reads_run_at_once_each_on_a_connection_of_its_own():
+    # [derived] Each read waits at a barrier until the other arrives: run one after the other, the
+    # first would wait alone and the barrier break. The other read's connection is closed after.
+    arrived = threading.Barrier(2, timeout=10)
+
+    def backend_once_both_arrived():
+        arrived.wait()
+        return _backend_pid()
+
+    mine, other = side_by_side(backend_once_both_arrived, backend_once_both_arrived)
+    assert mine == _backend_pid() and other != mine
+
+    def other_still_connected() -> bool:
+        with connection.cursor() as cursor:
+            cursor.execute("SELECT count(*) FROM pg_stat_activity WHERE pid = %s", [other])
+            return cursor.fetchone()[0] > 0
+
+    deadline = time.monotonic() + 5
+    while other_still_connected() and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert not other_still_connected()

@@ -81,7 +81,7 @@ from fleet.engineering.trends import (
 )
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
-from .bulk import ID_ARRAY_SQL, id_array_text, insert_frame, on_postgresql, select_frame
+from .bulk import ID_ARRAY_SQL, id_array_text, insert_frame, on_postgresql, select_frame, side_by_side
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
@@ -208,8 +208,8 @@ def refresh_part_priors(part_ids=None) -> int:
     shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))]
     sample = shuffled.groupby("part_id").cumcount() < settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART
     ids = np.sort(shuffled.loc[sample.to_numpy(), "id"].to_numpy()).tolist()
-    inst = fitted_capacitors_frame(ids).set_index("fitted_capacitor_id", drop=False)
-    readings = readings_frame(ids)
+    inst, readings = side_by_side(lambda: fitted_capacitors_frame(ids), lambda: readings_frame(ids))
+    inst = inst.set_index("fitted_capacitor_id", drop=False)
     parts = np.sort(inst["part_id"].unique())
     rows = _finite_prior_rows(fit_frames(inst, readings, None, parts), parts)
     with transaction.atomic():

@@ -18,6 +18,8 @@ import datetime as dt
 import io
 import json
 import time
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import pandas as pd
@@ -275,6 +277,28 @@ def _row_texts_frame(data: bytes, columns: list[str]) -> pd.DataFrame:
         if pa.types.is_null(kind):  # every value NULL: NaN, as a CSV reader gives
             frame[name] = frame[name].astype(float)
     return frame
+
+
+def side_by_side(first: Callable, *reads: Callable) -> list:
+    """The results of `first` (on this connection, in this thread) and of `reads`, each read on a
+    connection of its own at the same time, where those see what this one sees: on PostgreSQL
+    outside a transaction, so that there is only committed data to see. Elsewhere (SQLite, or
+    within a transaction: a caller's, a test's) all run here, one after the other.
+
+    The server works on the reads on other cores meanwhile; for reads of a few hundred
+    milliseconds (a new connection costs a few)."""
+    if not reads or not on_postgresql() or connection.in_atomic_block:
+        return [first(), *(read() for read in reads)]
+
+    def on_own_connection(read: Callable):
+        try:
+            return read()
+        finally:
+            connection.close()  # this thread's own connection
+
+    with ThreadPoolExecutor(max_workers=len(reads), thread_name_prefix="side-read") as pool:
+        beside = [pool.submit(on_own_connection, read) for read in reads]
+        return [first(), *(future.result() for future in beside)]
 
 
 def copy_read_floor(model) -> tuple[int, float]:

@@ -12,6 +12,7 @@ from django.utils import timezone
 from fleet.models import Assessment, FittedCapacitor, Reading, RefitChunk, RefitRun
 
 from .assessments import refit_fitted_capacitors, refresh_part_priors
+from .bulk import side_by_side
 from .counts import compact_counts
 
 QUEUE_DOWN = (
@@ -61,13 +62,7 @@ def start_fleet_refit(
     if run_id is not None and RefitRun.objects.filter(id=run_id, state=RefitRun.State.DONE).exists():
         return RefitRun.objects.get(id=run_id)
     chunk_size = chunk_size or settings.FLEET_REFIT_CHUNK_SIZE
-    refresh_part_priors()
-    ids = list(
-        FittedCapacitor.objects.filter(removed_on__isnull=True)
-        .filter(Exists(Reading.objects.filter(fitted_capacitor=OuterRef("pk"))))
-        .order_by("id")
-        .values_list("id", flat=True)
-    )
+    _, ids = side_by_side(refresh_part_priors, _read_capacitors_to_refit)
     now = timezone.now()
     started = dict(state=RefitRun.State.RUNNING, total=len(ids), progress_at=now, finished_at=None, message="")
     if run_id is None or not RefitRun.objects.filter(id=run_id).update(**started):
@@ -85,6 +80,16 @@ def start_fleet_refit(
 
     transaction.on_commit(dispatch)
     return RefitRun.objects.get(id=run_id)
+
+
+def _read_capacitors_to_refit() -> list[int]:
+    """The capacitors in service with a reading, in id order."""
+    return list(
+        FittedCapacitor.objects.filter(removed_on__isnull=True)
+        .filter(Exists(Reading.objects.filter(fitted_capacitor=OuterRef("pk"))))
+        .order_by("id")
+        .values_list("id", flat=True)
+    )
 
 
 def refit_chunk(run_id: int, number: int, fitted_capacitor_ids: list[int], force: bool = False) -> None:
