@@ -91,9 +91,10 @@ def test_a_saved_reading_is_refitted_by_a_worker(worker):
     assert assessment.readings_used == 5
 
 
-def test_a_fleet_refit_runs_in_chunks_on_the_worker(worker):
+def fleet_refit_in_chunks_of_two(capacitors: int) -> RefitRun:
+    """A fleet refit of that many read capacitors, in chunks of two, once the worker has done it."""
     part = make_part()
-    for i in range(5):
+    for i in range(capacitors):
         fitted_capacitor = make_fitted_capacitor(part=part)
         quarterly_readings(
             fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98 - 0.002 * i, 3.96]
@@ -101,6 +102,11 @@ def test_a_fleet_refit_runs_in_chunks_on_the_worker(worker):
     run = start_fleet_refit(chunk_size=2)
     assert wait_for(lambda: RefitRun.objects.get(pk=run.pk).state == RefitRun.State.DONE)
     run.refresh_from_db()
+    return run
+
+
+def test_a_fleet_refit_runs_in_chunks_on_the_worker(worker):
+    run = fleet_refit_in_chunks_of_two(5)
     assert (run.done, run.total) == (5, 5)
     assert Assessment.objects.filter(is_current=True).count() == 5
 
@@ -109,14 +115,7 @@ def test_the_worker_keeps_its_database_connection_from_task_to_task(worker):
     # [derived] As a web server keeps its connection from request to request (DB_CONN_MAX_AGE):
     # the connection that ran the first chunk is still open after the last. Closed after every
     # task, none would be left, or one opened after the first chunk.
-    part = make_part()
-    for i in range(6):
-        fitted_capacitor = make_fitted_capacitor(part=part)
-        quarterly_readings(
-            fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98 - 0.002 * i, 3.96]
-        )
-    run = start_fleet_refit(chunk_size=2)
-    assert wait_for(lambda: RefitRun.objects.get(pk=run.pk).state == RefitRun.State.DONE)
+    run = fleet_refit_in_chunks_of_two(6)
     first_chunk_done = RefitChunk.objects.filter(run=run).aggregate(first=Min("finished_at"))["first"]
     assert RefitChunk.objects.filter(run=run).count() == 3
     with connection.cursor() as cursor:
