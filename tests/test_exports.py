@@ -248,6 +248,9 @@ def test_every_export_holds_the_users_sites_only(client, awkward_fleet, kind, fi
         assert {row["site"] for row in rows} <= {"NORD"}
         if "site" not in query:
             assert rows  # the user's own site is there
+            # Every table carries the key that joins it to the others (the plan had none).
+            ids = {str(fitted.id) for fitted in FittedCapacitor.objects.filter(motor__site__code="NORD")}
+            assert {str(row["fitted_capacitor_id"]).removesuffix(".0") for row in rows} <= ids
 
 
 def test_a_user_without_the_permission_gets_403(client, awkward_fleet):

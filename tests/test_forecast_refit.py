@@ -194,6 +194,21 @@ def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_
     assert "dissipation-factor maximum" in assessment.reason
     wear = [limit for limit in assessment.limits if limit["name"] == "dissipation factor"][0]
     assert wear["maximum"] == pytest.approx(0.10) and wear["p50_on"] is not None
+    assert wear["used"] and wear["note"] == ""
+
+
+@pytest.mark.django_db
+def test_a_dissipation_factor_limit_without_an_esr_reading_is_listed_not_used():
+    """The export showed `dissipation_factor_used` true for 106 start capacitors never read with ESR, with
+    no fraction and no dates: without a reading that carries ESR there is no trend to judge."""
+    part = make_part(max_dissipation_factor=0.10, dielectric="electrolytic", rated_uf=4.0)
+    fitted_capacitor = make_fitted_capacitor(part=part, role="run")
+    quarterly_readings(fitted_capacitor, START, [4.0, 3.99, 3.98])
+    refit_fitted_capacitors([fitted_capacitor.id], now=START + dt.timedelta(days=3 * 91))
+    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    wear = [limit for limit in assessment.limits if limit["name"] == "dissipation factor"][0]
+    assert wear["used"] is False and wear["note"] == "no reading with ESR yet"
+    assert assessment.limit_source != "dissipation factor"
 
 
 @pytest.mark.django_db

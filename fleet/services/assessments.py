@@ -419,6 +419,7 @@ class Assessed:
     with_circuit: np.ndarray  # the motor has an equivalent circuit, so the figures exist
     terms: np.ndarray  # (6, G) calibration terms of each capacitor's projection
     wear_days: np.ndarray  # (3, G) days to the dissipation-factor maximum (inf: none in sight)
+    esr_readings: np.ndarray | None = None  # (G,) readings with ESR behind each dissipation-factor trend
 
 
 def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.DataFrame:
@@ -622,6 +623,10 @@ def assess(
     )
     evidence, evidence_text = _evidence(latest, verdict.code, inst)
     wear_days = _dissipation_days(inst, readings[~readings["superseded"]], now)
+    with_esr = inst.index.get_indexer(
+        readings.loc[~readings["superseded"] & readings["esr_ohm"].notna(), "fitted_capacitor_id"]
+    )
+    esr_readings = np.bincount(with_esr[with_esr >= 0], minlength=len(inst))
     wear_words = (
         "the part's "
         + _format_each(100 * inst["max_dissipation_factor"].to_numpy(float), "{:.1f}")
@@ -664,6 +669,7 @@ def assess(
         with_circuit=with_circuit,
         terms=terms,
         wear_days=wear_days,
+        esr_readings=esr_readings,
     )
 
 
@@ -978,13 +984,15 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
     items = [(applies[k], limit_text[k]) for k in range(count)]
     maximum = result.inst["max_dissipation_factor"].to_numpy(float)
     has_maximum = np.isfinite(maximum)
+    # Judged only on a trend of ESR readings: without one the limit is listed, not used.
+    measured = (result.esr_readings if result.esr_readings is not None else np.zeros(n, int))[has_maximum] > 0
     wear = pd.DataFrame(
         {
             "name": DISSIPATION_LIMIT,
             "fraction_of_rated": np.nan,
             "maximum": maximum[has_maximum],
-            "used": True,
-            "note": "",
+            "used": measured,
+            "note": np.where(measured, "", "no reading with ESR yet"),
             "finding": "",
             **{f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today) for j, q in enumerate((10, 50, 90))},
         }

@@ -167,7 +167,13 @@ LIMIT_COLUMNS = [  # six per limit, from the assessment's `limits`
     column
     for name in EVERY_LIMIT
     for column in (
-        Column(f"{_slug(name)}_fraction", FLOAT, "fraction of rated", f"{name}: capacitance at which it is met"),
+        Column(
+            f"{_slug(name)}_fraction",
+            FLOAT,
+            "fraction of rated",
+            f"{name}: capacitance at which it is met"
+            + (" (always empty: a limit on the ESR readings' dissipation factor)" if name == DISSIPATION_LIMIT else ""),
+        ),
         Column(f"{_slug(name)}_used", BOOL, description=f"{name}: used for the plan (see the note if not)"),
         Column(f"{_slug(name)}_p10_on", DATE, description=f"{name}: early date (P10)"),
         Column(f"{_slug(name)}_p50_on", DATE, description=f"{name}: likely date (P50)"),
@@ -247,6 +253,7 @@ PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
     _renamed(JUDGED["p50_on"], "likely_crossing_p50"),
     _renamed(JUDGED["p90_on"], "late_crossing_p90"),
     JUDGED["low_confidence"],
+    PLACE["fitted_capacitor_id"],  # last: the planners' columns keep their places; the key to the other exports
 ]
 
 
