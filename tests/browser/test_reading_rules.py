@@ -77,6 +77,18 @@ def test_the_hint_names_a_case_temperature_that_reads_as_fahrenheit(phone, motor
     assert "°F" not in phone.locator("#computed").inner_text()
 
 
+def test_the_hint_says_a_value_far_above_the_tolerance_will_be_asked_to_confirm(phone, motor_with_history):  # noqa: F811
+    """As the server: 4.6 uF on a 4 uF +5 % part (4.20 at most, 4.52 with the rulebook's 8 % of rating)."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "4.6")
+    assert "4.60 µF is above this capacitor's tolerance (4.20 µF at most): you will be asked to confirm" in (
+        phone.locator("#computed").inner_text()
+    )
+    phone.fill("#id_capacitance_uf", "4.5")
+    assert "asked to confirm" not in phone.locator("#computed").inner_text()
+
+
 def test_the_same_page_sent_twice_saves_one_reading(phone, motor_with_history):  # noqa: F811
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
