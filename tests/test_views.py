@@ -8,7 +8,7 @@ import pytest
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, Reading, WorkOrder
+from fleet.models import Assessment, BandCalibration, FittedCapacitor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
 from tests.factories import (
     make_fitted_capacitor,
@@ -343,15 +343,18 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
         )
     refit_fitted_capacitors([i.id for i in fitted_capacitors])
     client = signed_in(planner)
-    with django_assert_max_num_queries(16):  # the page's capacitors, motors and parts: one query of their own
+    with django_assert_max_num_queries(17):  # the page's capacitors, motors and parts: one query of their own
         response = client.get(reverse("plan"), {"days": 365})
     assert response.status_code == 200
     assert fitted_capacitors[0].motor.asset_tag in response.content.decode()
     # The replace-by rule is stated with the figures the plan uses (a planner could not find it).
     assert (
-        "any other 30 days before its early (P10) crossing, never sooner than 7 days from today"
+        "any other 30 days before the crossing its risk level is judged on (P10), never sooner than 7 days from today"
         in response.content.decode()
     )
+    # A back-tested level per dielectric is named with it: the date follows the risk level's crossing.
+    BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, alert_quantile=0.5)
+    assert "judged on (P50 for metallised film (run))" in client.get(reverse("plan")).content.decode()
     assert "columns and units</a>). Every reading" in response.content.decode()  # no stray space before "."
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()

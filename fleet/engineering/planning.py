@@ -135,10 +135,12 @@ def judge(
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
     circuit, a reading below the governing limit, a dissipation factor over its
-    maximum, or the fitted path (P50) already past the limit. An early crossing
-    (P10, or the back-tested alert quantile) within a quarter is "due soon",
-    within a year "watch", else "sound". An early crossing already passed asks to read the capacitor
-    again (`read_again`); a reading taken since that still reads above the limit settles it: the
+    maximum, or the fitted path (P50) already past the limit. The crossing at the
+    alert quantile (P10, or the back-tested one) within a quarter is "due soon",
+    within a year "watch", else "sound"; the same crossing dates the replacement
+    (`lead_days` before it), so the risk level and the replace-by date never
+    disagree. That crossing already passed asks to read the capacitor again
+    (`read_again`); a reading taken since that still reads above the limit settles it: the
     capacitor sits at the edge of its limit by its trend, replace it at the next visit.
     """
     settings = settings or PlanningSettings()
@@ -175,12 +177,15 @@ def judge(
         latest_day = np.asarray(latest_on, "datetime64[D]")
         latest_days = (latest_day - np.datetime64(today, "D")).astype(float)
         latest_days[np.isnat(latest_day)] = np.nan
-    again = read_again(risk, days[0], latest_days, settings.reading_answers_days)
-    read_since = ~replace_now & (days[0] <= 0) & ~again
+    # One decision threshold: the crossing the risk level is judged on also dates the replacement and asks
+    # for a reading once passed, so a "sound" capacitor (its crossing over a year away) has no replacement
+    # within the next eleven months.
+    again = read_again(risk, alert, latest_days, settings.reading_answers_days)
+    read_since = ~replace_now & (alert <= 0) & ~again
     urgent = np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT])
-    planned = np.maximum(days[0] - settings.lead_days, settings.notice_days)
+    planned = np.maximum(alert - settings.lead_days, settings.notice_days)
     due_days = np.select(
-        [urgent, replace_now, np.isfinite(days[0]) & (days[0] <= settings.horizon_days)],
+        [urgent, replace_now, np.isfinite(alert) & (alert <= settings.horizon_days)],
         [0.0, np.clip(planned, settings.notice_days, settings.below_limit_days), planned],
         default=np.inf,
     )
@@ -211,7 +216,7 @@ def judge(
         + "): replace at the next visit"
     )
     between = np.select(
-        [(days[0] > 0) & (late != ""), days[0] > 0],
+        [(alert > 0) & (late != ""), alert > 0],
         [
             "trend reaches "
             + limit_words
@@ -270,10 +275,11 @@ def judge(
 def read_again(
     risk, early_days, latest_days, answers_days: float = PlanningSettings.reading_answers_days
 ) -> np.ndarray:
-    """Where the plan's word is "read it again" before replacing: the trend's early (P10) crossing has
-    passed (`early_days` from today at or below 0), no reading shows the capacitor past its limit or
-    damaged (not "replace now"), and none was taken since the crossing, or `answers_days` before it
-    (`latest_days`, days from today to the newest reading; nan: unknown). Such a reading settles it
+    """Where the plan's word is "read it again" before replacing: the trend's crossing at the risk rule's
+    quantile (its early one, P10, by default) has passed (`early_days` from today at or below 0), no
+    reading shows the capacitor past its limit or damaged (not "replace now"), and none was taken since the
+    crossing, or `answers_days` before it (`latest_days`, days from today to the newest reading; nan:
+    unknown). Such a reading settles it
     either way: below the limit it is "replace now", above it `judge` says replace at the next visit;
     never a second "read again" for a question a reading answered. The work orders follow the stored word."""
     early_days = np.asarray(early_days, float)

@@ -29,7 +29,7 @@ from django.utils import timezone
 from fleet.charts import trend_figure
 from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
 from fleet.engineering.capacitor import normalise_to_25c
-from fleet.engineering.planning import RISK_ORDER
+from fleet.engineering.planning import RISK_ORDER, PlanningSettings
 from fleet.engineering.trends import default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
 from fleet.models import (
@@ -45,7 +45,7 @@ from fleet.models import (
 )
 from fleet.roles import scope_to_user
 
-from .assessments import _hours_since_fitting, assessment_terms
+from .assessments import _hours_since_fitting, assessment_terms, stored_alert_levels
 from .counts import in_service_counts
 
 RECENT_READINGS = 6
@@ -511,3 +511,15 @@ def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime |
         )
 
     return listed(Q(rank_now__lt=F("rank_was"))), listed(Q(rank_now__gt=F("rank_was"))), counts
+
+
+def alert_level_words() -> str:
+    """The crossing quantile the risk level and the replace-by date follow, per dielectric, in words:
+    "P50 for metallised film (run), P10 for aluminium electrolytic (start)"; P10 before any back-test."""
+    levels = stored_alert_levels()
+    if not levels:
+        return f"P{round(100 * PlanningSettings().alert_level)}"
+    names = dict(CapacitorPart.Dielectric.choices)
+    return ", ".join(
+        f"P{round(100 * level)} for {names.get(family, family).lower()}" for family, level in sorted(levels.items())
+    )

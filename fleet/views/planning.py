@@ -43,6 +43,7 @@ def plan(request):
         "spares": pages.spares_needed(horizon, site, request.user),
         "risks": pages.risk_summary(request.user),
         "rules": PlanningSettings(),
+        "alert_levels": pages.alert_level_words(),
     }
     context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user)
     return render(request, "fleet/plan.html", context)

@@ -2,10 +2,10 @@
 on every page, the cautions."""
 
 import datetime as dt
-import subprocess
 
 import pytest
 from django.utils import timezone
+from pypdf import PdfReader
 
 from fleet.models import WorkOrder
 from tests.browser.test_cautions import sign_in
@@ -35,8 +35,7 @@ def test_a_printed_visit_sheet_keeps_rows_whole_and_names_the_visit_and_page_on_
     phone.goto(f"/work-orders/PRN/{day.isoformat()}/")
     pdf = tmp_path / "sheet.pdf"
     phone.pdf(path=str(pdf), format="A4")
-    text = subprocess.run(["pdftotext", "-layout", str(pdf), "-"], capture_output=True, text=True, check=True).stdout
-    pages = text.split("\f")
+    pages = [page.extract_text(extraction_mode="layout") for page in PdfReader(pdf).pages]
     pages = [page for page in pages if page.strip()]
     assert len(pages) > 2
     heading = f"Site visit PRN, {day.strftime('%a')} {day.isoformat()}"

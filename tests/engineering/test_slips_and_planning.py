@@ -56,8 +56,10 @@ def _judge(
     limits=(0.94,),
     today=dt.date(2026, 12, 1),
     read_on=None,
+    alert=None,
 ):
-    """One limit (tolerance at 94 % of a 10 uF rating); days to its P10/P50/P90."""
+    """One limit (tolerance at 94 % of a 10 uF rating); days to its P10/P50/P90; `alert`: days to the
+    crossing at the risk rule's quantile (P10 when not given)."""
     p10, p50 = np.asarray(p10, float), np.asarray(p50, float)
     p90 = p50 * 2 if p90 is None else np.asarray(p90, float)
     n = len(p10)
@@ -75,6 +77,7 @@ def _judge(
         evidence_text=np.full(n, "", dtype=object),
         today=today,
         latest_on=None if read_on is None else np.asarray(read_on, "datetime64[D]"),
+        alert_days=None if alert is None else np.tile(np.asarray(alert, float), (len(limits), 1)),
     )
 
 
@@ -89,6 +92,22 @@ def test_risk_levels_follow_the_early_crossing():
         == "trend reaches the tolerance limit (9.40 \u00b5F) between 2027-06 and 2029-02 (likely 2028-01)"
     )
     assert result.reason[4].startswith("trend stays above the tolerance limit")
+
+
+def test_the_replacement_and_the_reading_again_follow_the_risk_rules_quantile():
+    """Planning rule of our own: one decision threshold. Where a back-test chose a later quantile than P10
+    for the risk rule, the replace-by date is 30 days before that crossing (never sooner than 7 days), so a
+    "sound" capacitor has none within the next eleven months, and only that crossing passed asks for a reading
+    again; the P10 crossing stays in the reason's band."""
+    result = _judge([200.0, 60.0, -10.0, -10.0], [800.0, 300.0, 90.0, 10.0], alert=[500.0, 150.0, 40.0, -5.0])
+    assert result.risk.tolist() == [RISK_SOUND, RISK_WATCH, RISK_DUE_SOON, RISK_DUE_SOON]
+    assert result.due_days.tolist() == [470.0, 120.0, 10.0, 7.0]
+    assert result.read_again.tolist() == [False, False, False, True]
+    assert result.reason[0].startswith("trend reaches the tolerance limit (9.40 \u00b5F) between 2027-06 and ")
+    assert result.reason[2].startswith("trend reaches the tolerance limit (9.40 \u00b5F) between 2026-11 and ")
+    assert result.reason[3].endswith("): read it again")
+    default = _judge([200.0], [800.0])  # no back-tested level: P10, as before
+    assert default.risk[0] == RISK_WATCH and default.due_days[0] == 170.0
 
 
 def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
