@@ -51,6 +51,20 @@ def times(factor):
     return DASH if factor is None else f"{TIMES}{NBSP}{factor:.2f}"
 
 
+@register.filter
+def age_in_years(years):
+    """An age given in years, in the unit a planner reads it in: 2.93 -> '2.9 years', 0.29 -> '3.5 months',
+    0.02 -> '7 days'; None -> '-'."""
+    if years is None:
+        return DASH
+    if years >= 1.0:
+        return f"{years:.1f}{NBSP}years"
+    if years >= 1.0 / 12.0:
+        return f"{12.0 * years:.1f}{NBSP}months"
+    days = round(365.25 * years)
+    return f"{days}{NBSP}day{'' if days == 1 else 's'}"
+
+
 ISO_DAY = "Y-m-d"
 
 
