@@ -276,6 +276,9 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
     assert verdict_and_risk(_assessment(latest_verdict="below tolerance")) == ""
     assert verdict_and_risk(_assessment(risk="sound")) == ""
     assert verdict_and_risk(None) == ""
+    # The capacitor page prints the reason as its "Why" just above: the sentence points to it, not again.
+    above = verdict_and_risk(_assessment(reason="latest reading, referred to 25 °C, 129.8 µF"), "above")
+    assert "129.8" not in above and above.endswith(": see Why, above.")
 
 
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(

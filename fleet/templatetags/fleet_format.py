@@ -81,14 +81,16 @@ def day(value, pattern=ISO_DAY):
 
 
 @register.filter
-def verdict_and_risk(assessment):
+def verdict_and_risk(assessment, reason_shown_above=""):
     """One sentence where the last reading's tolerance verdict and the risk level seem to disagree
-    (a green "within tolerance" beside a red "replace now"), ending with the stored reason; "" where
-    they agree."""
+    (a green "within tolerance" beside a red "replace now"), ending with the stored reason, or pointing
+    to it where the page shows it just above (`verdict_and_risk:"above"`); "" where they agree."""
     if assessment is None:
         return ""
     within = assessment.latest_verdict == VERDICT_NAMES[VERDICT_WITHIN]
     reason = assessment.reason or "no reason stored"
+    if reason_shown_above:
+        reason = "see Why, above"
     if within and assessment.risk in (RISK_REPLACE_NOW, RISK_DUE_SOON):
         if assessment.limit_source == DISSIPATION_LIMIT:
             because = "its dissipation factor (from the ESR readings) reaches the part's maximum first"
