@@ -148,8 +148,14 @@ def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planne
     other = make_part(code="FILM-2U0", rated_uf=2.0)
     url = reverse("site_stock", args=[site.code])
     signed_in_client(client, planner)
-    refused = client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "-1"})
-    assert f"{other.code}: &#x27;-1&#x27; is not a whole number" in refused.content.decode()
+    refused = client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "two"})
+    assert f"{other.code}: &#x27;two&#x27; is not a whole number" in refused.content.decode()
+    # Nothing saved, and the boxes come back as typed (text boxes: a number box shows "two" as empty), the
+    # refused one marked and its message tied to it (as the route page's walking order).
+    page = refused.content.decode()
+    assert f'name="qty-{other.id}" id="qty-{other.code}" value="two"' in page
+    assert f'name="qty-{part.id}" id="qty-{part.code}" value="4"' in page
+    assert f'aria-describedby="qty-{other.code}-error"' in page and f'href="#qty-{other.code}"' in page
     assert not SiteStock.objects.exists()
     assert client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "0"}).status_code == 302
     assert list(SiteStock.objects.values_list("part__code", "quantity")) == [(part.code, 4)]

@@ -260,9 +260,9 @@ def site_stock(request, site_code):
             return redirect("site_stock", site_code=site.code)
     held = dict(site.stock.values_list("part_id", "quantity"))
     # Each row: the part, the quantity in its box (as typed when the save was refused), the quantity held now
-    # (sent back as what the page showed, so a replacement meanwhile is not undone).
+    # (sent back as what the page showed, so a replacement meanwhile is not undone), and why its box was refused.
     rows = [
-        (part, typed.get(part.id, held.get(part.id, 0)), held.get(part.id, 0))
+        (part, typed.get(part.id, held.get(part.id, 0)), held.get(part.id, 0), errors.get(part.code))
         for part in CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")
     ]
     return render(request, "fleet/stock.html", {"site": site, "rows": rows, "errors": errors})

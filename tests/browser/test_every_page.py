@@ -225,7 +225,7 @@ def test_on_a_phone_the_columns_that_matter_are_in_view_and_codes_stay_whole(bro
         state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], fitted_capacitor__motor__site__code=site
     ).first()
     checks = [
-        (f"/sites/{site}/stock/", "tbody input[type=number]"),
+        (f"/sites/{site}/stock/", "tbody input[inputmode=numeric]"),
         (f"/sites/{site}/stock/", "tbody td:first-child"),
         ("/", "tbody .replace-by"),
         (f"/work-orders/{site}/{visit.due_on.isoformat()}/", "tbody .part-code"),
