@@ -66,13 +66,15 @@ class ReadingForm(forms.Form):
     def __init__(self, *args, time_zone: str = "", **kwargs):
         super().__init__(*args, **kwargs)
         self.zone = site_zone(time_zone or settings.TIME_ZONE)
+        # The site's clock as the page was made: the live hint holds "taken at" to it as the rulebook does.
+        self.site_now = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_MINUTE)
         self.fields["taken_at"].help_text = (
             f"When you measured, local time at the site ({self.zone.key}). Now unless you change it; "
             "a reading kept on the phone keeps the time it was measured."
         )
         if not self.is_bound:
             self.initial["client_key"] = uuid.uuid4().hex
-            self.initial["taken_at"] = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_MINUTE)
+            self.initial["taken_at"] = self.site_now
 
     def start_from(self, reading: Reading) -> None:
         """A correction starts from the reading it corrects: its time (in the site's time), method,

@@ -7,7 +7,7 @@ from django.core.exceptions import ValidationError
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, Reading
+from fleet.models import Assessment, Reading, site_zone
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.readings import record_reading
 from tests.factories import make_fitted_capacitor, make_reading, make_user, quarterly_readings
@@ -87,7 +87,12 @@ def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, f
     with pytest.raises(ValidationError) as twice:
         record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.8"},
                        user=technician, supersedes_id=wrong.id)  # fmt: skip
-    assert f"already corrected by reading {first.id}" in twice.value.message_dict["supersedes"][0]
+    # [ours] a technician knows a reading by its time and value, not by an internal id; both at the site's clock
+    taken = timezone.localtime(wrong.taken_at, site_zone(fan_fitted_capacitor.motor.site.time_zone))
+    assert twice.value.message_dict["supersedes"][0] == (
+        f"The reading of {taken:%Y-%m-%d %H:%M} (3.20 µF) was already corrected by the reading of "
+        f"{taken:%Y-%m-%d %H:%M} (3.90 µF): correct that one instead."
+    )
     other = make_fitted_capacitor(motor=None)
     with pytest.raises(ValidationError) as elsewhere:
         record_reading(fitted_capacitor=other, values={"method": "meter", "capacitance_uf": "3.9"},

@@ -62,7 +62,7 @@ def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, t
 @pytest.mark.parametrize(
     "taken_at,message",
     [
-        ("2099-01-01T10:00", "In the future"),
+        ("2099-01-01T10:00", "Taken at 2099-01-01 10:00 is after now at the site ("),
         ("2024-01-09T23:00", "Before this capacitor was fitted on 2024-01-10"),
         ("2024-03-31T02:30", "skipped or repeated in Europe/Madrid"),  # [pub] EU summer time starts 02:00 -> 03:00
         ("yesterday", "Not a date and time"),
@@ -80,6 +80,19 @@ def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
     assert summary < body.index("Caution: capacitors store a charge")
     assert message in strip_tags(body[summary : body.index("Caution: capacitors store a charge")])
     assert f'value="{taken_at}"' in body  # what was typed is shown again, not lost
+
+
+def test_a_time_in_the_future_names_the_sites_clock_now(client, technician, madrid_fitted_capacitor):
+    """[ours] "In the future" alone: the technician could not tell whether the date or the hour was wrong, nor
+    which clock it was held to. The site's time now and its zone are named."""
+    client.force_login(technician)
+    response = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at="2099-01-01T10:00")
+    now = timezone.localtime(timezone.now(), MADRID)
+    message = response.context["form"].errors["taken_at"][0]
+    assert message.startswith("Taken at 2099-01-01 10:00 is after now at the site (")
+    assert message.endswith(", Europe/Madrid): check the date and the time")
+    said = dt.datetime.strptime(message.split("(")[1].split(",")[0], "%Y-%m-%d %H:%M").replace(tzinfo=MADRID)
+    assert abs((said - now).total_seconds()) < 120
 
 
 # The design part
@@ -155,13 +168,36 @@ def test_a_tag_with_underscores_or_dots_is_found_by_a_space_and_in_part(client, 
     assert [m.asset_tag for m in both.context["matches"]] == ["GH2_F.017", "GH2_F.018"]
 
 
-def test_a_whole_tag_typed_with_a_space_is_looked_up_by_the_tag_index():
-    """The usual look-up stays cheap at 100,000 motors: a whole tag, however its separators were typed,
-    is found by the index on the tags' capitals, not by reading every tag. PostgreSQL is told not to
-    scan the table so that the plan shows whether the index can serve the look-up at all."""
+@pytest.mark.parametrize("typed", ["cst0093", "CST0093", "Cst0093", "st0093"])
+def test_a_tag_typed_without_its_separator_is_found(client, technician, typed):
+    """[ours] "cst 0093" opened the motor while "cst0093" (the separator left out where letters meet digits,
+    as a phone keyboard invites) found nothing. Whole, it is looked up by the index; in part, compared without
+    separators; a tag stored without a separator is still found as typed."""
+    site = make_site(code="CST", name="Cool store")
+    make_motor(site=site, asset_tag="CST-0093", location="Condensing unit 3")
+    make_motor(site=site, asset_tag="CST-00931", location="Condensing unit 31")
+    make_motor(site=site, asset_tag="GH2_F.017", location="Bay 1")
+    client.force_login(technician)
+    find = reverse("find")
+    if typed == "st0093":  # part of a tag: both that hold it are offered
+        listed = client.get(find, {"tag": typed})
+        assert [m.asset_tag for m in listed.context["matches"]] == ["CST-0093", "CST-00931"]
+    else:
+        assert client.get(find, {"tag": typed})["Location"] == reverse("motor", args=["CST-0093"])
+    assert client.get(find, {"tag": "gh2f017"})["Location"] == reverse("motor", args=["GH2_F.017"])
+    make_motor(site=site, asset_tag="CST0093", location="Condensing unit 3b")
+    assert client.get(find, {"tag": "cst0093"})["Location"] == reverse("motor", args=["CST0093"])
+
+
+@pytest.mark.parametrize("typed", ["cst 0093", "cst0093"])
+def test_a_whole_tag_typed_with_a_space_is_looked_up_by_the_tag_index(typed):
+    """The usual look-up stays cheap at 100,000 motors: a whole tag, however its separators were typed (or
+    left out where letters meet digits), is found by the index on the tags' capitals, not by reading every
+    tag. PostgreSQL is told not to scan the table so that the plan shows whether the index can serve the
+    look-up at all."""
     make_motor(site=make_site(code="CST"), asset_tag="CST-0093")
     with CaptureQueriesContext(connection) as queries:
-        found, _, _ = pages.find_motors("cst 0093")
+        found, _, _ = pages.find_motors(typed)
     assert found.asset_tag == "CST-0093" and len(queries.captured_queries) == 1
     with connection.cursor() as cursor:
         if connection.vendor == "postgresql":

@@ -87,7 +87,7 @@ def test_fifty_thousand_rows_with_a_sprinkle_of_bad_ones():
     assert reported == {(12, "capacitance_uf"), (2002, "asset_tag"), (30002, "taken_at"), (45002, "taken_at")}
     messages = {row: message for row, _, message in job.errors}
     assert "nanofarads" in messages[12] and messages[2002] == "unknown asset tag NO-SUCH-TAG: not in the register"
-    assert "future" in messages[30002] and "row 45001" in messages[45002]
+    assert "is after now at the site" in messages[30002] and "row 45001" in messages[45002]
     assert not Reading.objects.exists()
 
     refused = run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)

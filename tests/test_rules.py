@@ -516,3 +516,43 @@ def test_an_imported_reading_older_than_the_trends_newest_is_not_held_to_todays_
     )
     assert [(row, field) for row, field, _ in result.errors] == [(3, "capacitance_uf")]
     assert result.good["row"].tolist() == [2]
+
+
+def test_a_capacitance_in_farads_is_named_and_asked_everywhere_first_and_back_dated_readings_too(client, technician):
+    """A meter on its F range shows a 30 µF run capacitor as 0.00003 (common practice of the trade, no single
+    source: meters range F, mF, µF, nF). A new capacitor's first reading, and a reading dated before the trend's
+    newest, have no trend to be held to: 0.00003 was saved as an open capacitor without a question, and the
+    brand-new part planned "replace now". The form and the API ask to confirm naming the slip, the import
+    refuses the row unless confirmed; an open capacitor's 0.02 µF is still kept as read."""
+    fitted = make_fitted_capacitor(part=make_part(rated_uf=30.0))
+    client.force_login(technician)
+    first = form_post(client, fitted, capacitance_uf="0.00003")
+    assert first.status_code == 200 and "0.00003 looks like farads: 30 µF? (rated 30 µF)" in first.content.decode()
+    assert not Reading.objects.exists()
+    quarterly_readings(fitted, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [30.0, 29.9, 29.8])
+    refit_fitted_capacitors([fitted.id])
+    url = reverse("api_fitted_capacitor_readings", args=[fitted.id])
+    api = api_for(technician)
+    back_dated = {"method": "meter", "capacitance_uf": 0.0000301, "taken_at": "2024-02-01T09:00:00Z"}
+    answer = api.post(url, back_dated, format="json")
+    assert answer.status_code == 409
+    assert answer.json()["capacitance_uf"][0].startswith("0.0000301 looks like farads: 30.1 µF?")
+    later = api.post(url, {"method": "meter", "capacitance_uf": 0.00003}, format="json")
+    assert later.status_code == 409 and "looks like farads" in later.json()["capacitance_uf"][0]
+    result = import_check(
+        [
+            import_row(fitted, taken_at="2024-02-02 09:00", capacitance_uf="0,00003"),
+            import_row(fitted, taken_at="2024-02-03 09:00", capacitance_uf="0.00003", confirmed="yes"),
+            import_row(fitted, taken_at="2024-02-04 09:00", capacitance_uf="0.03"),
+        ]
+    )
+    assert [(row, field) for row, field, _ in result.errors] == [(2, "capacitance_uf"), (4, "capacitance_uf")]
+    assert "looks like farads" in result.errors[0][2] and "looks like millifarads" in result.errors[1][2]
+    assert result.good["row"].tolist() == [3]
+    assert api.post(url, {**back_dated, "confirmed": True}, format="json").status_code == 201
+    open_one = form_post(client, fitted, capacitance_uf="0.02", taken_at="2024-02-05T09:00", confirmed="on")
+    assert open_one.status_code == 302
+    assert sorted(Reading.objects.filter(capacitance_uf__lt=1).values_list("capacitance_uf", flat=True)) == [
+        0.0000301,
+        0.02,
+    ]

@@ -96,7 +96,7 @@ def test_in_circuit_reading_computes_capacitance(fan_fitted_capacitor):
         (
             {"method": "meter", "capacitance_uf": 4.0, "taken_at": timezone.now() + dt.timedelta(days=2)},
             "taken_at",
-            "future",
+            "is after now at the site",
         ),
     ],
 )

@@ -202,6 +202,26 @@ def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, 
     assert Reading.objects.filter(outlier_confirmed=True, capacitance_uf=3.3).exists()
 
 
+def test_a_confirmed_reading_is_marked_for_the_engineer_on_the_capacitor_page(
+    signed_in, technician, engineer, fan_fitted_capacitor
+):
+    """[ours] "Value is right: save it" tells the technician the engineer will look at the value; the capacitor
+    page's readings did not mark which one. A reading confirmed where nothing asked is not marked."""
+    quarterly_readings(fan_fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 5, 9)), [4.0, 3.98, 3.97])
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
+    client = signed_in(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    data = {"method": "meter", "condition": "sound", "confirmed": "on"}
+    assert client.post(url, {**data, "capacitance_uf": "3.3"}).status_code == 302
+    assert client.post(url, {**data, "capacitance_uf": "3.96", "client_key": "second"}).status_code == 302
+    marked = dict(Reading.objects.values_list("capacitance_uf", "outlier_confirmed"))
+    assert marked[3.3] is True and marked[3.96] is False
+    page = signed_in(engineer).get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    assert page.count("confirmed on site") == 1
+    (row,) = [row for row in page.split("<tr>") if "confirmed on site" in row]
+    assert ">3.30</td>" in row  # the mark is on the 3.30 µF reading's row
+
+
 def test_a_value_jumped_back_to_the_rating_asks_whether_the_capacitor_was_changed(
     signed_in, technician, fan_fitted_capacitor
 ):

@@ -98,11 +98,21 @@ class ReadingRules:
     # leads, or in circuit a voltage read across the line instead of the capacitor: confirm (ours). Taken as read,
     # a first reading far above the rating sets the trend's starting level.
     above_tolerance_fraction: float = 0.08
-    # A capacitance this many times the rating was typed in nanofarads, or in millifarads; more than
-    # `wrong_capacitor_ratio` times it is not this capacitor (common practice of the trade, no single source).
+    # A capacitance this many times the rating was typed in nanofarads (refused: no capacitor reads that); more
+    # than `wrong_capacitor_ratio` times it is not this capacitor (common practice of the trade, no single source).
     nanofarad_ratio: tuple = (300.0, 3000.0)
-    millifarad_ratio: tuple = (3e-4, 3e-3)
     wrong_capacitor_ratio: float = 3.0
+    # A capacitance that lands within this band of the rating once multiplied by 1e6 was typed in farads, by 1e3
+    # in millifarads (the meter showed the rating in another unit): confirm, as an open capacitor reads near
+    # 0 µF too and must stay recordable (0.02 µF on a 30 µF part is open, 0.00003 is 30 µF in farads). The
+    # band is a capacitor still in use, its tolerance and some ageing (common practice of the trade, no single
+    # source; the band's edges are ours).
+    low_unit_slip_band: tuple = (0.75, 1.25)
+    low_unit_slips: tuple = ((1e6, "farads"), (1e3, "millifarads"))
+    # A capacitor voltage under the short-circuit fraction of the supply that, read as kilovolts, gives with the
+    # current a capacitance within `1 / wrong_capacitor_ratio` to `wrong_capacitor_ratio` times the rating was
+    # typed in kV (as the nanofarad slip's band; ours).
+    kilovolt_factor: float = 1000.0
     # Clocks of phones drift: a reading up to this far in the future is accepted (ours).
     future_tolerance_s: float = 600.0
     # A note is a line or two from the field; a page of text is a paste gone wrong (ours).
@@ -128,15 +138,27 @@ SHORT_CIRCUIT_WORDS = (
 )
 
 
-def _messages(condition, template, **columns):
+def plain_number(value) -> str:
+    """A number as the site writes a typed value back: up to six significant digits, never an exponent
+    (0.00003, not 3e-05; 29958.6, not 29958.577523180298). The live hint's `plain` does the same."""
+    value = float(value)
+    if not np.isfinite(value):
+        return str(value)
+    return np.format_float_positional(value, precision=6, unique=False, fractional=False, trim="-")
+
+
+def _messages(condition, template, plain=(), **columns):
     """A message where `condition` holds, formatted with that row's values ("{d}" of a datetime64[D] is its ISO
-    date); "" elsewhere. Only those rows are formatted: a column costs nothing where every row passes."""
+    date; the columns named in `plain` as `plain_number`, "{c}"); "" elsewhere. Only those rows are formatted:
+    a column costs nothing where every row passes."""
     condition = np.atleast_1d(np.asarray(condition, bool))
     out = np.full(condition.shape, "", dtype=object)
     rows = np.flatnonzero(condition)
     if len(rows):
         arrays = {k: np.atleast_1d(v) for k, v in columns.items()}
         picked = {k: v[rows] if v.size > 1 else np.repeat(v[:1], len(rows)) for k, v in arrays.items()}
+        for name in plain:
+            picked[name] = np.array([plain_number(v) for v in picked[name]], dtype=object)
         out[rows] = [template.format(**{k: v[j] for k, v in picked.items()}) for j in range(len(rows))]
     return out
 
@@ -500,25 +522,56 @@ def known_time_zone(name) -> bool:
 
 
 def capacitance_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES):
-    """A value 300-3000 times the rating was typed in nanofarads; 1000x too small
-    in millifarads; more than three times the rating is not this capacitor
-    (`ReadingRules`; the reading form's live hint applies the same ratios)."""
+    """Refused: a value 300-3000 times the rating was typed in nanofarads; more than three times the rating is
+    not this capacitor (`ReadingRules`; the reading form's live hint applies the same ratios). A value far below
+    the rating may be an open capacitor: `capacitance_low_unit_slip` asks to confirm instead."""
     c = np.atleast_1d(np.asarray(capacitance_uf, float))
     rated = np.atleast_1d(np.asarray(rated_uf, float))
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = c / rated
     nano = (ratio > rules.nanofarad_ratio[0]) & (ratio < rules.nanofarad_ratio[1])
-    milli = (ratio > rules.millifarad_ratio[0]) & (ratio < rules.millifarad_ratio[1])
     wild = ~nano & (ratio > rules.wrong_capacitor_ratio)
     return np.where(
         nano,
-        _messages(nano, "{c:g} looks like nanofarads: {uf:g} µF? (rated {r:g} µF)", c=c, uf=c / 1000, r=rated),
-        np.where(
-            milli,
-            _messages(milli, "{c:g} looks like millifarads: {uf:g} µF? (rated {r:g} µF)", c=c, uf=c * 1000, r=rated),
-            _messages(wild, "{c:g} µF is over three times the rated {r:g} µF: wrong capacitor or unit?", c=c, r=rated),
+        _messages(
+            nano, "{c} looks like nanofarads: {uf} µF? (rated {r} µF)", plain=("c", "uf", "r"), c=c, uf=c / 1e3, r=rated
+        ),
+        _messages(
+            wild,
+            "{c} µF is over three times the rated {r} µF: wrong capacitor or unit?",
+            plain=("c", "r"),
+            c=c,
+            r=rated,
         ),
     )
+
+
+def capacitance_low_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES):
+    """To confirm: a value that is the rating typed in farads or millifarads (times 1e6 or 1e3 it lands within
+    `low_unit_slip_band` of the rating): "0.00003 looks like farads: 30 µF?". A value near 0 that lands
+    nowhere near the rating (an open capacitor, 0.02 µF on a 30 µF part) is not named."""
+    c = np.atleast_1d(np.asarray(capacitance_uf, float))
+    rated = np.atleast_1d(np.asarray(rated_uf, float))
+    low, high = rules.low_unit_slip_band
+    out = np.full(np.broadcast(c, rated).shape, "", dtype=object)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for factor, unit in rules.low_unit_slips:
+            ratio = c * factor / rated
+            slip = (out == "") & (c > 0) & (ratio >= low) & (ratio <= high)
+            out = np.where(
+                slip,
+                _messages(
+                    slip,
+                    "{c} looks like " + unit + ": {uf} µF? (rated {r} µF). Type it in µF, or confirm the value if "
+                    "the meter shows {c} µF (an open capacitor reads near 0 µF)",
+                    plain=("c", "uf", "r"),
+                    c=c,
+                    uf=c * factor,
+                    r=rated,
+                ),
+                out,
+            )
+    return out
 
 
 def current_unit_slip(current_a, voltage_v, rated_uf, frequency_hz):
@@ -531,7 +584,43 @@ def current_unit_slip(current_a, voltage_v, rated_uf, frequency_hz):
         ratio = i / np.atleast_1d(expected)
     milli = (ratio > 300) & (ratio < 3000)
     return _messages(
-        milli, "{i:g} looks like milliamperes: {a:g} A? (expected about {e:.2f} A)", i=i, a=i / 1000, e=expected
+        milli,
+        "{i} looks like milliamperes: {a} A? (expected about {e:.2f} A)",
+        plain=("i", "a"),
+        i=i,
+        a=i / 1000,
+        e=expected,
+    )
+
+
+def voltage_unit_slip(current_a, voltage_v, rated_uf, frequency_hz, rules: ReadingRules = RULES):
+    """A capacitor voltage typed in kV: read as volts it is almost none (a short circuit, `short_circuit_suspected`),
+    read as kilovolts it gives with the current a capacitance near the rating (the nanofarad slip's band). The
+    message names the slip and, should the meter really show that, the short circuit."""
+    i = np.atleast_1d(np.asarray(current_a, float))
+    v = np.atleast_1d(np.asarray(voltage_v, float))
+    rated = np.atleast_1d(np.asarray(rated_uf, float))
+    volts = v * rules.kilovolt_factor
+    with np.errstate(invalid="ignore", divide="ignore"):
+        as_kv = np.atleast_1d(capacitance_from_current(i, volts, frequency_hz))
+        ratio = as_kv / rated
+    kilo = (
+        (v > 0)
+        & (i > 0)
+        & (volts <= rules.ranges["capacitor_voltage_v"].highest)
+        & (ratio > 1.0 / rules.wrong_capacitor_ratio)
+        & (ratio < rules.wrong_capacitor_ratio)
+    )
+    return _messages(
+        kilo,
+        "{v} looks like kilovolts: {kv} V? (with {i} A that gives {c:.2f} µF, rated {r} µF). If the meter shows "
+        "{v} V: " + SHORT_CIRCUIT_WORDS,
+        plain=("v", "kv", "i", "r"),
+        v=v,
+        kv=volts,
+        i=i,
+        c=as_kv,
+        r=rated,
     )
 
 
@@ -673,6 +762,7 @@ class RuleResult:
     values: dict
     errors: dict  # field -> messages: the value is refused
     confirm: dict  # field -> messages: the value is kept only when confirmed
+    asked: np.ndarray | None = None  # per reading: a confirmation was asked (given or not), for the record's mark
 
     @property
     def bad(self) -> np.ndarray:
@@ -742,6 +832,7 @@ def _check_readings(
     taken_at,
     now,
     taken_on=None,
+    time_zone=None,
     condition=None,
     notes=None,
     predicted_uf=None,
@@ -756,7 +847,8 @@ def _check_readings(
     None); the capacitor's and motor's figures are per reading (arrays) or shared
     (scalars). Dates: `taken_at` as datetime64 (UTC, NaT where unreadable),
     `fitted_on`/`removed_on` as datetime64[D] (NaT: not removed), `now` one instant;
-    `taken_on` the reading's calendar day at its site (datetime64[D]; None: the UTC day). A capacitor's
+    `taken_on` the reading's calendar day at its site (datetime64[D]; None: the UTC day), `time_zone` the site's
+    zone name (per reading or shared; None: UTC), in which a time in the future is told. A capacitor's
     window is whole days: from its fitting day to the end of its removal day, so a reading taken
     during the removal day is the removed capacitor's.
     """
@@ -790,11 +882,29 @@ def _check_readings(
     errors.add(
         "capacitor_voltage_v", missing_voltage, "in-circuit reading: enter the voltage across the capacitor in V"
     )
-    # Short circuit first: a healthy current over a near-zero voltage would otherwise read as a unit slip.
+    # A voltage typed in kV first (it names the short circuit too), then the short circuit: a healthy current
+    # over a near-zero voltage would otherwise read as a unit slip of the current.
+    errors.add("capacitor_voltage_v", in_circuit, voltage_unit_slip(current, voltage, rated, frequency, rules))
     shorted = (
         in_circuit & (voltage >= 0) & short_circuit_suspected(current, voltage, supply, rules.short_circuit_fraction)
     )
     errors.add("capacitor_voltage_v", shorted, SHORT_CIRCUIT_WORDS)
+    line = values["line_voltage_v"]
+    line_kv = (line * rules.kilovolt_factor >= 0.5 * supply) & (
+        line * rules.kilovolt_factor <= rules.voltage_confirm_factor * supply
+    )
+    errors.add(
+        "line_voltage_v",
+        line_kv,
+        _messages(
+            line_kv,
+            "{v} looks like kilovolts: {kv} V? (motor {s} V)",
+            plain=("v", "kv", "s"),
+            v=line,
+            kv=line * rules.kilovolt_factor,
+            s=supply,
+        ),
+    )
     errors.add("capacitor_current_a", in_circuit & ~shorted, current_unit_slip(current, voltage, rated, frequency))
     for name in ("main_current_a", "aux_current_a", "line_current_a"):
         ratio = values[name] / full_load
@@ -802,7 +912,9 @@ def _check_readings(
         errors.add(
             name,
             milli,
-            _messages(milli, "{i:g} looks like milliamperes: {a:g} A?", i=values[name], a=values[name] / 1e3),
+            _messages(
+                milli, "{i} looks like milliamperes: {a} A?", plain=("i", "a"), i=values[name], a=values[name] / 1e3
+            ),
         )
 
     # In circuit, the capacitance is computed; what the meter field holds is ignored.
@@ -818,7 +930,6 @@ def _check_readings(
         errors.add(name, ~skip, range_messages(name, values[name], rules))
     circuit_ok = in_circuit & ~errors.has("capacitor_current_a") & ~errors.has("capacitor_voltage_v")
     derived = range_messages("capacitance_uf", capacitance, rules)
-    derived = np.where(derived != "", derived, capacitance_unit_slip(capacitance, rated))
     # No current through a capacitor with voltage across it: an open capacitor (or the clamp on the wrong
     # lead), not a capacitance of 0 µF (common practice of the trade, no single source).
     no_current = circuit_ok & (current == 0) & (voltage > 0)
@@ -828,8 +939,24 @@ def _check_readings(
         "0 A with voltage across the capacitor: the clamp is not on the capacitor's lead, or the capacitor "
         "is open (isolate and discharge it and read it with the meter: an open capacitor reads near 0 µF)",
     )
-    words = "gives a capacitance of " + derived.astype(str)
-    errors.add("capacitor_current_a", circuit_ok & ~no_current & (derived != ""), words)
+    judged = circuit_ok & ~no_current
+    outside = judged & (derived != "")
+    errors.add("capacitor_current_a", outside, _messages(outside, "gives a capacitance of {d}", d=derived))
+    # Computed, a capacitance far above the rating is no slip of its unit but of the current's or the voltage's,
+    # or a current and voltage of another part of the circuit (as `capacitance_unit_slip`'s wrong capacitor).
+    far = judged & (capacitance > rules.wrong_capacitor_ratio * rated)
+    errors.add(
+        "capacitor_current_a",
+        far,
+        _messages(
+            far,
+            "current and voltage give {c} µF, over three times the rated {r} µF: are they in A and V, the current "
+            "on this capacitor's lead and the voltage across it?",
+            plain=("c", "r"),
+            c=capacitance,
+            r=rated,
+        ),
+    )
     values["capacitance_uf"] = np.where(np.isfinite(capacitance), capacitance, np.nan)
 
     for name in ("capacitor_voltage_v", "line_voltage_v"):
@@ -848,6 +975,8 @@ def _check_readings(
             ),
         )
 
+    low_slip = ~in_circuit & ~errors.has("capacitance_uf")
+    confirm.add("capacitance_uf", low_slip, capacitance_low_unit_slip(values["capacitance_uf"], rated, rules))
     if tolerance_plus_pct is not None:
         top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)
         checked = (
@@ -896,7 +1025,7 @@ def _check_readings(
             ),
         )
 
-    _check_dates(errors, n, taken_at, taken_on, fitted_on, removed_on, now, rules)
+    _check_dates(errors, n, taken_at, taken_on, fitted_on, removed_on, now, rules, time_zone)
     if notes is not None:
         _check_notes(errors, n, notes, rules)
         values["notes"] = _texts(notes, n, "").str.strip().to_numpy(object)
@@ -925,14 +1054,17 @@ def _check_readings(
         )
     confirmed = _column(confirmed, n, bool)
     kept_confirm = {name: np.where(confirmed, "", m) for name, m in confirm.by_field.items()}
-    return RuleResult(values=values, errors=errors.by_field, confirm=kept_confirm)
+    asked = np.logical_or.reduce([*confirm.flagged.values(), np.zeros(n, bool)])
+    return RuleResult(values=values, errors=errors.by_field, confirm=kept_confirm, asked=asked)
 
 
 # The start of the rulebook's message for a reading after its capacitor's removal day.
 AFTER_REMOVAL = "after this capacitor was removed"
 
 
-def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_on, now, rules: ReadingRules) -> None:
+def _check_dates(
+    errors: _Collector, n, taken_at, taken_on, fitted_on, removed_on, now, rules: ReadingRules, time_zone=None
+) -> None:
     taken = _column(taken_at, n, "datetime64[s]")
     day = taken.astype("datetime64[D]") if taken_on is None else _column(taken_on, n, "datetime64[D]")
     fitted = _column(fitted_on, n, "datetime64[D]")
@@ -944,7 +1076,29 @@ def _check_dates(errors: _Collector, n, taken_at, taken_on, fitted_on, removed_o
     after = ~np.isnat(removed) & (day > removed)
     removal = AFTER_REMOVAL + " on {d} (site time: readings of that day are still its own)"
     errors.add("taken_at", after, _messages(after, removal, d=removed))
-    errors.add("taken_at", taken > latest, "in the future")
+    future = taken > latest
+    errors.add("taken_at", future, _future_words(future, taken, now, time_zone))
+
+
+def _future_words(future, taken, now, time_zone) -> np.ndarray:
+    """For a reading taken after now: both times as the site's clock shows them, and its time zone (UTC where
+    none is given or known), so the date or the hour typed wrong shows at a glance."""
+    out = np.full(future.shape, "", dtype=object)
+    rows = np.flatnonzero(future)
+    if not len(rows):
+        return out
+    zones = np.broadcast_to(np.asarray("UTC" if time_zone is None else time_zone, object), future.shape)
+    stamps = pd.Series(taken[rows]).dt.tz_localize("UTC")
+    now_utc = pd.Timestamp(np.datetime64(now, "s")).tz_localize("UTC")
+    for zone in pd.unique(zones[rows]):
+        name = zone if known_time_zone(zone) else "UTC"
+        picked = zones[rows] == zone
+        local = stamps[picked].dt.tz_convert(name).dt.strftime("%Y-%m-%d %H:%M").to_numpy(object)
+        site_now = f"{now_utc.tz_convert(name):%Y-%m-%d %H:%M}, {name}"
+        out[rows[picked]] = [
+            f"taken at {at} is after now at the site ({site_now}): check the date and the time" for at in local
+        ]
+    return out
 
 
 def _check_notes(errors: _Collector, n, notes, rules: ReadingRules) -> None:

@@ -290,6 +290,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
             taken_at=taken_utc,
             taken_on=taken_on,
+            time_zone=zones.fillna(default_tz).to_numpy(object),
             now=now,
             predicted_uf=_trend_values_held_to(match["fitted_capacitor_id"], taken_utc),
             confirmed=confirmed,

@@ -99,6 +99,8 @@ FIND_LIMIT = 50
 # What a technician may type between the parts of a tag: a space, or any separator a tag may hold
 # ('-', '_', '.': CODE_PATTERN) or a label's print might suggest ('/'). All read alike, as '-'.
 TAG_SEPARATORS = re.compile(r"[\s._/-]+")
+# Where letters meet digits a technician leaves the separator out ("cst0093" for CST-0093): there it is optional.
+LETTERS_THEN_DIGITS = re.compile(r"(?<=[A-Z])(?=[0-9])")
 
 
 def tag_key(text: str) -> str:
@@ -106,10 +108,11 @@ def tag_key(text: str) -> str:
     return TAG_SEPARATORS.sub("-", text.strip()).upper()
 
 
-def _stored_tag_key():
-    """`tag_key` of the stored tag, in SQL: a tag holds no space or '/' and its separators come singly
-    as typed on the register, so capitals with '_' and '.' as '-' are its key."""
-    return Replace(Replace(Upper("asset_tag"), Value("_"), Value("-")), Value("."), Value("-"))
+def _stored_bare_tag():
+    """The stored tag in capitals without its separators, in SQL ("CST-0093" -> "CST0093"): a tag holds no space
+    or '/', so '-', '_' and '.' are all it may hold between its parts."""
+    upper = Upper("asset_tag")
+    return Replace(Replace(Replace(upper, Value("-"), Value("")), Value("_"), Value("")), Value("."), Value(""))
 
 
 def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
@@ -117,20 +120,23 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     matches shown (at most FIND_LIMIT), how many matched).
 
     Tags match ignoring case, with a space, '-', '_', '.' and '/' read alike ("CST 0093", "cst_0093"
-    and "CST-0093" find CST-0093), whole or in part ("0093", "cst 009"); otherwise every word must
-    appear in the motor's location or its site's name ("cool store condensing"). Two queries, whatever
-    the fleet's size. The whole tag is looked up by the index on its capitals (`motor_tag_unique_any_case`):
-    the text as typed, and its key with each separator a tag may hold ("CST-0093", "CST_0093",
-    "CST.0093"), so the usual look-up stays an index probe at 100,000 motors. Only when that finds
-    nothing are the keys compared, in part, with `_stored_tag_key`: a scan of the tags, as the
-    part-of-a-tag search always was (a LIKE '%...%' no b-tree serves).
+    and "CST-0093" find CST-0093), and with the separator where letters meet digits left out ("cst0093"),
+    whole or in part ("0093", "cst 009"); otherwise every word must appear in the motor's location or its
+    site's name ("cool store condensing"). Two queries, whatever the fleet's size. The whole tag is looked
+    up by the index on its capitals (`motor_tag_unique_any_case`): the text as typed, and its key with each
+    separator a tag may hold ("CST-0093", "CST_0093", "CST.0093"), a separator put where letters meet
+    digits too, so the usual look-up stays an index probe at 100,000 motors. Only when that finds nothing
+    are the tags compared, in part, without their separators (`_stored_bare_tag`): a scan of the tags, as
+    the part-of-a-tag search always was (a LIKE '%...%' no b-tree serves).
     """
     text = " ".join(text.split())
     if not text:
         return None, [], 0
     motors = scope_to_user(Motor.objects.select_related("site"), user)
     key = tag_key(text)
-    whole = {text.upper(), key, key.replace("-", "_"), key.replace("-", ".")}
+    whole = {text.upper()}
+    for keyed in (key, LETTERS_THEN_DIGITS.sub("-", key)):
+        whole |= {keyed, keyed.replace("-", "_"), keyed.replace("-", ".")}
     exact = list(
         motors.annotate(tag_upper=Upper("asset_tag"))
         .filter(tag_upper__in=whole)
@@ -142,9 +148,10 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     words = Q()
     for word in text.split(" "):
         words &= Q(location__icontains=word) | Q(site__name__icontains=word) | Q(site__code__iexact=word)
+    bare = key.replace("-", "")
     matches = list(
-        motors.annotate(tag_key=_stored_tag_key())
-        .filter(Q(tag_key__contains=key) | words)
+        motors.annotate(bare_tag=_stored_bare_tag())
+        .filter((Q(bare_tag__contains=bare) if bare else Q(pk__in=[])) | words)
         .order_by("asset_tag")[: FIND_LIMIT + 1]
     )
     if len(matches) == 1:

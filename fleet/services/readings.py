@@ -97,6 +97,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         removed_on=np.datetime64(fitted_capacitor.removed_on or "NaT", "D"),
         taken_at=_utc64(taken_at),
         taken_on=local_days([_utc64(taken_at)], [zone.key]),
+        time_zone=zone.key,
         now=_utc64(now),
         predicted_uf=trend_value_held_to(
             assessment.capacitance_now_uf if assessment else np.nan,
@@ -124,6 +125,8 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         condition=str(result.values["condition"][0]),
         notes=str(result.values["notes"][0]),
         taken_at=taken_at,
+        # Marked only where a confirmation was asked and given: the engineer looks at these (capacitor page).
+        outlier_confirmed=bool(confirmed and result.asked[0]),
     )
     broken = constraint_errors(Reading(fitted_capacitor=fitted_capacitor, **checked))
     if broken:
@@ -149,7 +152,7 @@ def _client_key(user, key: str) -> str:
 def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str | None) -> Reading | None:
     """The reading a correction replaces: one of this capacitor's, not corrected already.
 
-    A reading corrected before is refused with the id of its correction, so a chain of
+    A reading corrected before is refused naming its correction (time and value), so a chain of
     corrections always replaces its newest link and no reading is corrected twice.
     """
     if reading_id is None or reading_id == "":
@@ -167,13 +170,20 @@ def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str 
         raise ValidationError({"supersedes": f"Reading {reading_id} is not a reading of this capacitor."})
     later = getattr(reading, "superseded_by", None)
     if later is not None:
+        zone = site_zone(fitted_capacitor.motor.site.time_zone)
         raise ValidationError(
             {
-                "supersedes": f"Reading {reading.id} was already corrected by reading {later.id} "
-                f"({later.capacitance_uf:g} uF): correct that one instead."
+                "supersedes": f"The reading of {_reading_words(reading, zone)} was already corrected by the reading "
+                f"of {_reading_words(later, zone)}: correct that one instead."
             }
         )
     return reading
+
+
+def _reading_words(reading: Reading, zone) -> str:
+    """A reading as a technician knows it: when it was taken at the site, and its value ("2026-11-02 09:15
+    (143.00 µF)", as the readings tables show them)."""
+    return f"{timezone.localtime(reading.taken_at, zone):%Y-%m-%d %H:%M} ({reading.capacitance_uf:.2f} µF)"
 
 
 def record_reading(
@@ -212,7 +222,6 @@ def record_reading(
                 fitted_capacitor=fitted_capacitor,
                 taken_by=user if user is not None and user.is_authenticated else None,
                 supersedes=supersedes,
-                outlier_confirmed=confirmed,
                 source=source,
                 client_key=stored_key,
                 **checked,

@@ -125,3 +125,72 @@ def test_a_value_in_nanofarads_is_hinted_as_the_server_names_it_not_judged_as_mi
     assert "tolerance" not in hint and "5000" not in hint
     size = phone.eval_on_selector("#computed .check", "e => parseFloat(getComputedStyle(e).fontSize)")
     assert size < 20  # a sentence to read, not the figure's 30 px
+
+
+def test_a_value_in_farads_is_hinted_as_the_server_names_it_not_as_an_open_capacitor(
+    phone,
+    motor_with_history,  # noqa: F811
+):
+    """0.000004 typed on a 4 uF capacitor (a meter on its F range): the hint said "0.00 µF - below tolerance" and
+    the server kept it as an open capacitor. Both name the slip now; 0.02 (an open capacitor) is judged. [trade]"""
+    from fleet.engineering.rules import capacitance_low_unit_slip
+
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "0.000004")
+    hint = phone.locator("#computed").inner_text()
+    server = capacitance_low_unit_slip([0.000004], motor_with_history.part.rated_uf)[0]
+    assert server.startswith("0.000004 looks like farads: 4 µF?") and server in hint
+    assert "asked to confirm" in hint and "tolerance" not in hint
+    phone.fill("#id_capacitance_uf", "0.02")
+    hint = phone.locator("#computed").inner_text()
+    assert "farads" not in hint and "below tolerance" in hint
+
+
+def test_a_current_or_voltage_typed_in_another_unit_is_named_on_its_own_field(phone, motor_with_history):  # noqa: F811
+    """In circuit, 289 A (4 uF at 230 V, 50 Hz draws 0.289 A) or 0.23 V (230 V in kV) were hinted as
+    "28966.497... looks like nanofarads": the capacitance computed from them, not the value typed. The hint
+    names the field's slip, with the server's words and its rounding. [trade]"""
+    from fleet.engineering.rules import current_unit_slip, voltage_unit_slip
+
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.check("input[value=in_circuit]")
+    rated = motor_with_history.part.rated_uf
+    phone.fill("#id_capacitor_current_a", "289")
+    phone.fill("#id_capacitor_voltage_v", "230")
+    hint = phone.locator("#computed").inner_text()
+    server = current_unit_slip([289.0], 230.0, rated, 50.0)[0]
+    assert server.startswith("289 looks like milliamperes: 0.289 A?") and server in hint
+    assert "nanofarads" not in hint and "Capacitor current" in hint
+    phone.fill("#id_capacitor_current_a", "0.29")
+    phone.fill("#id_capacitor_voltage_v", "0,23")
+    hint = phone.locator("#computed").inner_text()
+    server = voltage_unit_slip([0.29], [0.23], rated, 50.0)[0]
+    assert server.startswith("0.23 looks like kilovolts: 230 V?") and server in hint
+    assert "nanofarads" not in hint and "Voltage across capacitor" in hint
+    phone.click("#save")
+    phone.wait_for_selector(".errorlist", timeout=15000)
+    assert "looks like kilovolts: 230 V?" in phone.locator(".errorlist").first.inner_text()
+
+
+def test_a_time_in_the_future_is_hinted_with_the_sites_clock_and_again_when_the_draft_comes_back(
+    phone,
+    motor_with_history,  # noqa: F811
+):
+    """The server said only "In the future"; the phone's draft then brought the bad date back on the next
+    visit with no word. The hint names both times and the zone, on the visit and when the draft returns. [ours]"""
+    sign_in(phone, make_user("technician"))
+    url = f"/fitted-capacitors/{motor_with_history.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.95")
+    phone.fill("#id_taken_at", "2099-01-01T10:00")
+    expected = "Taken at 2099-01-01 10:00 is after now at the site ("
+    assert expected in phone.locator("#computed").inner_text()
+    phone.click("#save")
+    phone.wait_for_selector(".errorlist", timeout=15000)
+    assert expected in phone.locator(".errorlist").first.inner_text()
+    phone.goto(url)
+    assert phone.is_visible("#draft-note")
+    assert phone.input_value("#id_taken_at") == "2099-01-01T10:00"
+    assert expected in phone.locator("#computed").inner_text()

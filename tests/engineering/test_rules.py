@@ -115,9 +115,32 @@ def test_dates_stay_inside_the_fitting_window_and_out_of_the_future():
     result = check({"capacitance_uf": ["4"] * 5}, taken_at=taken)
     messages = result.errors["taken_at"]
     assert "fitted on 2022-01-01" in messages[0] and "fitted on 2022-01-01" in messages[1]
-    assert messages[2] == "" and messages[3] == "in the future" and messages[4] == "not a date and time"
+    assert messages[2] == "" and messages[4] == "not a date and time"
+    assert messages[3] == (
+        "taken at 2026-06-02 00:00 is after now at the site (2026-06-01 12:00, UTC): check the date and the time"
+    )
     removed = check({"capacitance_uf": ["4"]}, taken_at="2024-03-01", removed_on=np.datetime64("2024-02-01", "D"))
     assert "removed on 2024-02-01" in removed.errors["taken_at"][0]
+
+
+def test_a_time_in_the_future_is_told_as_the_sites_clock_shows_it():
+    """[ours] "In the future" alone left the technician to guess which of date and hour was wrong: both
+    times are told in the site's zone. [pub] Europe/Dublin is UTC+0 in winter, Asia/Kolkata UTC+5:30."""
+    taken = np.array(["2026-12-05T09:00", "2026-12-05T09:00"], "datetime64[s]")
+    result = check(
+        {"capacitance_uf": ["4", "4"]},
+        taken_at=taken,
+        now=np.datetime64("2026-12-03T16:20", "s"),
+        time_zone=np.array(["Europe/Dublin", "Asia/Kolkata"], object),
+    )
+    assert list(result.errors["taken_at"]) == [
+        "taken at 2026-12-05 09:00 is after now at the site (2026-12-03 16:20, Europe/Dublin): check the date and "
+        "the time",
+        "taken at 2026-12-05 14:30 is after now at the site (2026-12-03 21:50, Asia/Kolkata): check the date and "
+        "the time",
+    ]
+    within_clock_drift = check({"capacitance_uf": ["4"]}, taken_at="2026-06-01T12:09")
+    assert within_clock_drift.errors["taken_at"][0] == ""
 
 
 def test_a_removal_date_is_a_whole_day_at_the_site():
@@ -226,3 +249,29 @@ def test_an_output_typed_in_kilowatts_is_refused_as_far_below_what_the_motor_dra
     assert flagged == {
         0: [("output_w", "under 2 % of rated voltage times full-load current: give the output in W, not kW")]
     }
+
+
+def test_a_capacitance_in_farads_asks_to_confirm_first_readings_and_back_dated_ones_alike():
+    """[trade] 0.0000039 typed on a 4 uF part is 3.9 uF read in farads: with no trend (a first reading, a reading
+    before the trend's newest) it was saved as an open capacitor. It asks to confirm, ahead of the off-trend words,
+    and is kept once confirmed; an open capacitor's 0.02 is never named as a slip."""
+    first = check({"capacitance_uf": ["0.0000039", "0,0039", "0.02", "0"]})
+    assert not first.bad[:3].any()
+    words = first.confirm["capacitance_uf"]
+    assert words[0].startswith("0.0000039 looks like farads: 3.9 µF? (rated 4 µF)")
+    assert words[1].startswith("0.0039 looks like millifarads: 3.9 µF?")
+    assert words[2] == ""
+    trend = check({"capacitance_uf": ["0.0000039"]}, predicted_uf=3.9)
+    assert trend.confirm["capacitance_uf"][0].startswith("0.0000039 looks like farads")
+    kept = check({"capacitance_uf": ["0.0000039"]}, confirmed=True)
+    assert not kept.needs_confirmation.any() and kept.values["capacitance_uf"][0] == 3.9e-6
+
+
+def test_a_current_or_voltage_slip_in_circuit_is_named_on_its_own_field():
+    """[trade] 4 uF at 230 V, 50 Hz draws 0.29 A: 290 typed is mA; 0.23 typed for the voltage is kV."""
+    amps = check({"capacitor_current_a": ["290"], "capacitor_voltage_v": ["230"]}, method="in_circuit")
+    assert amps.errors["capacitor_current_a"][0].startswith("290 looks like milliamperes: 0.29 A?")
+    volts = check({"capacitor_current_a": ["0.29"], "capacitor_voltage_v": ["0.23"]}, method="in_circuit")
+    assert volts.errors["capacitor_voltage_v"][0].startswith("0.23 looks like kilovolts: 230 V?")
+    line = check({"capacitance_uf": ["4"], "line_voltage_v": ["0.23"]})
+    assert line.errors["line_voltage_v"][0] == "0.23 looks like kilovolts: 230 V? (motor 230 V)"

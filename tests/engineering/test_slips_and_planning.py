@@ -13,7 +13,14 @@ from fleet.engineering.planning import (
     RISK_WATCH,
     judge,
 )
-from fleet.engineering.rules import capacitance_unit_slip, current_unit_slip, off_trend, trend_value_held_to
+from fleet.engineering.rules import (
+    capacitance_low_unit_slip,
+    capacitance_unit_slip,
+    current_unit_slip,
+    off_trend,
+    trend_value_held_to,
+    voltage_unit_slip,
+)
 
 
 def test_nanofarads_typed_for_microfarads_are_named():
@@ -22,7 +29,29 @@ def test_nanofarads_typed_for_microfarads_are_named():
     assert "nanofarads" in messages[0] and "3.95 µF" in messages[0]
     assert messages[1] == ""
     assert "three times" in messages[2]
-    assert "millifarads" in messages[3]
+    assert messages[3] == ""  # far below: maybe an open capacitor, asked by capacitance_low_unit_slip
+
+
+def test_farads_and_millifarads_typed_for_microfarads_are_named_and_an_open_capacitor_is_not():
+    """[trade] a meter on its F or mF range shows a 30 uF capacitor as 0.00003 or 0.03; an open capacitor
+    reads near 0 uF (0.00, 0.02), which times 1e6 or 1e3 lands nowhere near the rating."""
+    typed = [0.00003, 0.0000301, 0.03, 0.00014, 0.000139, 0.02, 0.0, 0.0000001, 28.5]
+    rated = [30, 30, 30, 143, 143, 30, 30, 30, 30]
+    messages = capacitance_low_unit_slip(typed, rated)
+    assert messages[0].startswith("0.00003 looks like farads: 30 µF? (rated 30 µF)")
+    assert messages[1].startswith("0.0000301 looks like farads: 30.1 µF?")
+    assert messages[2].startswith("0.03 looks like millifarads: 30 µF?")
+    assert messages[3].startswith("0.00014 looks like farads: 140 µF? (rated 143 µF)")
+    assert messages[4].startswith("0.000139 looks like farads: 139 µF?")
+    assert list(messages[5:]) == ["", "", "", ""]
+
+
+def test_a_voltage_typed_in_kilovolts_is_named_with_the_short_circuit_it_would_be():
+    """[trade] 15 uF at 50 Hz and 425 V draws 2.0 A (I = 2 pi f C V); 0.425 typed is 425 V in kV."""
+    messages = voltage_unit_slip([2.0, 2.0, 2.0], [0.425, 425.0, 0.002], 15.0, 50.0)
+    assert messages[0].startswith("0.425 looks like kilovolts: 425 V? (with 2 A that gives 14.98 µF, rated 15 µF)")
+    assert "short circuit suspected" in messages[0]
+    assert list(messages[1:]) == ["", ""]  # 0.002 as kV is 2 V: 2 A over it is 3183 µF, not this capacitor
 
 
 def test_milliamperes_typed_for_amperes_are_named():
