@@ -231,3 +231,4 @@ def test_the_plans_counts_changes_and_spares_follow_the_site_chosen_and_say_whic
     assert worse_count == 4 and worse_sites == {"HERE", "THERE"}
     assert ">HERE-4U<" in spares and ">THERE-4U<" in spares and ">AWAY-4U<" not in spares
     assert '<h2 id="risk-counts">Capacitors in service at your sites HERE, THERE</h2>' in body
+    assert '<option value="">All your sites</option>' in body  # not "All sites": AWAY is not theirs

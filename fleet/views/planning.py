@@ -18,7 +18,7 @@ from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import list_page, plan_parameters
 from fleet.models import Site
-from fleet.roles import scope_to_user
+from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services import pages
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
@@ -42,6 +42,7 @@ def plan(request):
         "site": site,
         "sites": sites,
         "where": pages.counted_where(site, sites, request.user),
+        "all_sites_label": "All sites" if visible_site_ids(request.user) is None else "All your sites",
         "spares": pages.spares_needed(horizon, site, request.user),
         "risks": pages.risk_summary(request.user, site),
         "rules": PlanningSettings(),
