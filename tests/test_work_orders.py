@@ -283,7 +283,9 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
         model="fleet.workorder", object_id=str(order.pk), action="update", changes__has_key="state"
     )
     assert entry.user_id == planner.id  # who cancelled it, from the request as for every change
-    assert client.get(cancel).status_code == 404  # closed now
+    response = client.post(cancel, {"reason": "sent twice"}, follow=True)  # a double tap: said, not refused
+    assert "That work order is cancelled already." in response.content.decode()
+    assert WorkOrder.objects.get(pk=order.pk).cancel_reason == "motor replaced whole last week"
     assert client.get(reverse("work_order_cancel", args=[10**30])).status_code == 404
     client.force_login(technician)
     other = WorkOrder.objects.get(fitted_capacitor=capacitors[1])

@@ -26,6 +26,7 @@ from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
 from fleet.services.substitutes import part_families
 from fleet.services.workorders import (
+    OPEN,
     cancel_order,
     issue_visit,
     move_visit,
@@ -159,8 +160,13 @@ def visit_sheet(request, site_code, day):
 def work_order_cancel(request, order_id):
     """The planner cancels one open work order, saying why (kept with the order; it is never deleted)."""
     order = get_object_or_404(
-        open_orders(request.user).select_related("motor", "site").filter(pk__in=storable_ids([order_id]))
+        scope_to_user(WorkOrder.objects.select_related("motor", "site"), request.user).filter(
+            pk__in=storable_ids([order_id])
+        )
     )
+    if order.state not in OPEN:  # sent twice, or closed since the page was opened
+        messages.info(request, f"That work order is {order.get_state_display().lower()} already.")
+        return redirect("work_orders")
     form = CancelOrderForm(request.POST or None)
     if request.method == "POST" and form.is_valid():
         try:
