@@ -105,7 +105,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             new_orders = [o for o in new_orders if o.fitted_capacitor_id not in kept]
         counts["kept_cancelled"] = len(kept)
         if items:
-            visit, visit_day = bundle_visits(
+            _, visit_day = bundle_visits(
                 np.array([i[0] for i in items]),
                 np.array([i[1] for i in items]),
                 window_days,
