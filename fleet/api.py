@@ -61,7 +61,7 @@ class CheckedPageSize:
             return self.page_size
         if not (asked.isascii() and asked.isdigit() and 1 <= int(asked) <= self.max_page_size):
             raise serializers.ValidationError(
-                {self.page_size_query_param: f"A whole number from 1 to {self.max_page_size}."}
+                {self.page_size_query_param: [f"A whole number from 1 to {self.max_page_size}."]}
             )
         return int(asked)
 
@@ -79,7 +79,7 @@ class NumberedPages(CheckedPageSize, PageNumberPagination):
         except NotFound:
             last = self.django_paginator_class(queryset, self.get_page_size(request)).num_pages
             raise serializers.ValidationError(
-                {self.page_query_param: f"A whole number from 1 to {last} (the last page)."}
+                {self.page_query_param: [f"A whole number from 1 to {last} (the last page)."]}
             ) from None
 
 
@@ -121,7 +121,7 @@ class KnownParametersOnly:
             formats = ", ".join(self.formats_answered())
             problems["format"] = f"Not a format of the API, which answers in: {formats}."
         if problems:
-            raise serializers.ValidationError(problems)
+            raise serializers.ValidationError({name: [words] for name, words in problems.items()})
 
 
 class AssessmentSerializer(serializers.ModelSerializer):
@@ -366,7 +366,7 @@ class ReadingPages(CheckedPageSize, CursorPagination):
             return super().decode_cursor(request)
         except NotFound:
             raise serializers.ValidationError(
-                {self.cursor_query_param: "Not a cursor from this list: follow its next and previous links."}
+                {self.cursor_query_param: ["Not a cursor from this list: follow its next and previous links."]}
             ) from None
 
 

@@ -61,7 +61,7 @@ def test_the_assessments_take_a_page_size_and_name_one_they_cannot_use(engineer)
     assert len(client.get(body["next"]).json()["results"]) == 1
     for bad in ("0", "1001", "two"):
         response = client.get(reverse("api_assessments"), {"page_size": bad})
-        assert response.status_code == 400 and response.json()["page_size"] == "A whole number from 1 to 1000."
+        assert response.status_code == 400 and response.json()["page_size"] == ["A whole number from 1 to 1000."]
 
 
 @pytest.mark.parametrize("page_size", ["abc", "0", "-1", "999999", "１０"])

@@ -75,7 +75,8 @@ def test_a_parameter_given_twice_is_named_not_one_value_used(engineer, fan_fitte
     name = query.split("=")[0]
     response = client_for(engineer).get(f"{reverse(address)}?{query}")
     assert response.status_code == 400
-    assert response.json()[name].startswith(f"Give {name} once (given 2 times: ")
+    [words] = response.json()[name]  # a list of messages per field, as every field error of the API
+    assert words.startswith(f"Give {name} once (given 2 times: ")
 
 
 def test_the_substitutes_refuse_a_parameter_they_do_not_take(engineer, fan_fitted_capacitor):
@@ -84,7 +85,7 @@ def test_the_substitutes_refuse_a_parameter_they_do_not_take(engineer, fan_fitte
     client = client_for(engineer)
     response = client.get(url, {"x": "1"})
     assert response.status_code == 400
-    assert response.json() == {"x": "Not a parameter of this list, which takes: format, parts."}
+    assert response.json() == {"x": ["Not a parameter of this list, which takes: format, parts."]}
     twice = client.get(f"{url}?parts=A&parts=B")
     assert twice.status_code == 400 and "parts" in twice.json()
 
@@ -95,7 +96,7 @@ def test_a_format_the_api_does_not_answer_in_is_named(engineer, fan_fitted_capac
     client = client_for(engineer)
     response = client.get(reverse(address), {"format": "xml"})
     assert response.status_code == 400
-    assert response.json() == {"format": "Not a format of the API, which answers in: json."}
+    assert response.json() == {"format": ["Not a format of the API, which answers in: json."]}
     assert client.get(reverse(address), {"format": "json"}).status_code == 200
 
 

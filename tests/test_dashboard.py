@@ -361,6 +361,8 @@ def test_the_daily_digest_mails_planners_once_per_condition_with_reason_and_link
     assert "HERE-0001 run capacitor" in full and "latest reading below the tolerance limit" in full
     assert f"https://fleet.example.org{reverse('fitted_capacitor', args=[worn.id])}" in full
     assert "THERE-0002 run capacitor: last read 2026-07-01, 154 days ago" in full
+    # [trade] quarterly readings, overdue after 91 days and 14 of grace: the heading says both figures.
+    assert "(due every 91 days, overdue 14 days after that: none since " in full
     assert f"https://fleet.example.org{reverse('route', args=['THERE'])}?show=due" in full
     assert "charge that can kill" in full
     assert "1 to replace now, 1 reading overdue" in by_recipient["all@example.org"].subject

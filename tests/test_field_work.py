@@ -3,6 +3,8 @@ a motor found by part of its tag or by where it is, the decimal comma everywhere
 risk set beside the last reading in words."""
 
 import datetime as dt
+import math
+import re
 import zoneinfo
 
 import pytest
@@ -13,7 +15,7 @@ from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import strip_tags
 
-from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
+from fleet.models import Assessment, FittedCapacitor, PartLifeFit, Reading, SiteMembership
 from fleet.services import pages
 from fleet.templatetags.fleet_format import day, verdict_and_risk
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, stored_assessment
@@ -237,6 +239,20 @@ def test_the_life_data_costs_past_any_replacement_are_refused_by_name(client, en
     )
 
 
+def test_the_life_data_page_finds_a_short_replacement_age_when_failures_cost_far_more(client, engineer):
+    """[pub] Barlow and Proschan's age replacement (checked against their optimality condition in
+    tests/engineering/test_lifedata.py): for beta 1.48, eta 5.5 years, a planned change at 60 against a
+    failure at 10,000, about 3.5 months; the page said no replacement age beat running to failure."""
+    part = make_part(code="LIFE-3")
+    points = [[age, 1.0 - math.exp(-((age / 5.5) ** 1.48))] for age in (0.8, 1.6, 2.4, 3.5, 4.7)]
+    PartLifeFit.objects.create(part=part, beta=1.48, eta_years=5.5, failures=12, suspensions=40, plot_points=points)
+    client.force_login(engineer)
+    page = client.get(reverse("life_data"), {"part": "LIFE-3", "planned_cost": "60", "failure_cost": "10000"})
+    text = page.content.decode()
+    assert "No replacement age beats running to failure" not in text
+    assert re.search(r"Replacing at <b>3\.[45]\xa0months</b>", text), text[text.find("Replacement age") :][:400]
+
+
 # The verdict and the risk, in words
 
 
@@ -260,6 +276,9 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
     assert verdict_and_risk(_assessment(latest_verdict="below tolerance")) == ""
     assert verdict_and_risk(_assessment(risk="sound")) == ""
     assert verdict_and_risk(None) == ""
+    # The capacitor page prints the reason as its "Why" just above: the sentence points to it, not again.
+    above = verdict_and_risk(_assessment(reason="latest reading, referred to 25 °C, 129.8 µF"), "above")
+    assert "129.8" not in above and above.endswith(": see Why, above.")
 
 
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(

@@ -389,6 +389,33 @@ def test_the_stored_assessment_keeps_its_terms_and_the_chart_its_dates(terms):
 
 
 @pytest.mark.django_db
+def test_an_early_crossing_already_passed_keeps_its_day():
+    """[derived] The crossing dates count from the newest reading, whatever day the refit runs: refitted
+    on a day between the early (P10) and likely (P50) crossings, the early one keeps its day, in the past,
+    and the chart's band still meets the limit on it. Before, a past crossing was stored as the refit's
+    own day (the page said "early 2026-12-03" under a band that crossed on 2026-11-16)."""
+    from fleet.services.pages import trend_chart
+
+    fitted_capacitor = make_fitted_capacitor(part=make_part(tolerance_minus_pct=6))
+    _ageing(fitted_capacitor, [0, 0.4, 0.7, 1.3, 1.5, 2.0, 2.4, 2.7, 3.3])
+    BandCalibration.objects.create(family="film", **DEMO_FILM_TERMS)
+    refit_fitted_capacitors([fitted_capacitor.id], now=START + dt.timedelta(days=8 * 91 + 3))
+    first = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    between = first.p10_on + (first.p50_on - first.p10_on) / 2
+    refit_fitted_capacitors(
+        [fitted_capacitor.id], now=dt.datetime.combine(between, dt.time(12), tzinfo=dt.UTC), force=True
+    )
+    later = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    assert later.id != first.id and later.p10_on < between
+    assert abs((later.p10_on - first.p10_on).days) <= 1 and abs((later.p50_on - first.p50_on).days) <= 1
+    figure = trend_chart(fitted_capacitor, later)
+    band, trend = figure["data"][0], figure["data"][1]
+    low = band["y"][len(band["x"]) // 2 :][::-1]
+    crossed = _dates_where_crossing(trend["x"], low, later.limit_fraction * fitted_capacitor.part.rated_uf)
+    assert crossed is not None and abs((crossed - later.p10_on).days) <= 3, (crossed, later.p10_on)
+
+
+@pytest.mark.django_db
 def test_a_calibration_from_too_few_capacitors_keeps_the_thin_history_default(client, engineer):
     """Ours: the calibration's own terms need `min_capacitors` (20) distinct capacitors with later readings.
     Twelve capacitors read at four cut-offs are twelve paths, not 48: their errors at every cut-off share

@@ -89,6 +89,7 @@ LIST_PAGES = {
     "home": lambda: reverse("home"),
     "dashboard": lambda: reverse("dashboard"),
     "plan": lambda: reverse("plan") + "?days=365",
+    "plan, one site": lambda: reverse("plan") + "?days=365&site=NORTH",
     "refits": lambda: reverse("refits"),
     "work orders": lambda: reverse("work_orders"),
     "route": lambda: reverse("route", args=["NORTH"]),

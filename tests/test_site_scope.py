@@ -3,6 +3,7 @@ only there. Every check is [derived]: it follows from the rule that a limited us
 
 import datetime as dt
 import io
+import re
 
 import pytest
 from django.contrib.auth.models import Permission
@@ -17,7 +18,15 @@ from fleet.roles import PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.import_jobs import check_file, create_job, run_job
 from fleet.services.workorders import plan_work_orders
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    make_user,
+    quarterly_readings,
+    stored_assessment,
+)
 
 pytestmark = pytest.mark.django_db
 
@@ -184,3 +193,41 @@ def test_a_limited_user_imports_register_rows_for_their_sites_only(here_and_ther
     assert result.errors == [
         (2, "asset_tag", f"motor {theirs.motor.asset_tag} is at site THERE, which you do not work at")
     ]
+
+
+def test_the_plans_counts_changes_and_spares_follow_the_site_chosen_and_say_which(client):
+    """/plan/?site=CST listed CST's capacitors under the whole fleet's risk counts and week of changes:
+    every figure on the page counts the site chosen (the user's sites without one) and names it."""
+    here, there, elsewhere = make_site("HERE"), make_site("THERE"), make_site("AWAY")
+    soon = timezone.localdate() + dt.timedelta(days=20)
+    levels = {here: ["replace now", "watch"], there: ["replace now", "replace now", "sound"], elsewhere: ["watch"]}
+    parts = {site: make_part(code=f"{site.code}-4U") for site in levels}
+    for site, risks in levels.items():
+        for risk in risks:
+            fitted_capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=parts[site])
+            stored_assessment(fitted_capacitor, "sound", soon, created_at=timezone.now() - dt.timedelta(days=30))
+            stored_assessment(fitted_capacitor, risk, soon)  # sound a month ago: riskier this week, but one
+    user = limited(PLANNER, here)
+    SiteMembership.objects.create(user=user, site=there)
+    client.force_login(user)
+
+    def shown(query):
+        response = client.get(reverse("plan"), query)
+        body = response.content.decode()
+        counts = dict(re.findall(r'<span class="risk risk-[a-z-]+">([a-z ]+)</span><b>(\d+)</b>', body))
+        worse = {a.fitted_capacitor.motor.site.code for a in response.context["worse"]}
+        spares = body[body.index("Spares for this window") :]
+        return body, counts, response.context["changes"]["worse"], worse, spares
+
+    body, counts, worse_count, worse_sites, spares = shown({"days": 90, "site": "THERE"})
+    assert counts == {"replace now": "2", "due soon": "0", "watch": "0", "sound": "1"}
+    assert worse_count == 2 and worse_sites == {"THERE"}
+    assert ">THERE-4U<" in spares and ">HERE-4U<" not in spares
+    for heading in ("risk-counts", "risk-changes", "spares"):
+        assert re.search(rf'<h2 id="{heading}">[^<]* at THERE \(Site THERE\)</h2>', body), heading
+
+    body, counts, worse_count, worse_sites, spares = shown({"days": 90})  # every site of the user's, not AWAY
+    assert counts == {"replace now": "3", "due soon": "0", "watch": "1", "sound": "1"}
+    assert worse_count == 4 and worse_sites == {"HERE", "THERE"}
+    assert ">HERE-4U<" in spares and ">THERE-4U<" in spares and ">AWAY-4U<" not in spares
+    assert '<h2 id="risk-counts">Capacitors in service at your sites HERE, THERE</h2>' in body

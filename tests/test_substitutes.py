@@ -161,6 +161,19 @@ def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planne
     assert client.post(url, {f"qty-{part.id}": "9"}).status_code == 403
 
 
+def start_part_40_uf():
+    """A 40 uF 250 V motor-start electrolytic (0/+20 %, no class marked): a two-value motor's start part."""
+    return make_part(
+        code="ELEC-40",
+        rated_uf=40.0,
+        rated_voltage_v=250,
+        dielectric="electrolytic",
+        tolerance_minus_pct=0,
+        tolerance_plus_pct=20,
+        class_of_operation="",
+    )
+
+
 def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engineer, fan_fitted_capacitor):
     """[derived] the example fan is one design; its own part and a second 4 uF film part suit it, a 2 uF part
     does not (it breaks the main-winding current limit), an electrolytic does not (duty, [trade])."""
@@ -171,9 +184,34 @@ def test_parts_that_can_stand_in_counts_the_designs_each_part_suits(client, engi
     body = client.get(reverse("stand_in_parts")).content.decode()
     compact = " ".join(body.split())
     assert f'<td class="nowrap">{fan_fitted_capacitor.part.code}</td>' in compact
-    for code, suited in ((fan_fitted_capacitor.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0), ("ELEC-4U0", 0)):
+    for code, suited in ((fan_fitted_capacitor.part.code, 1), ("FILM-4U0-B", 1), ("FILM-2U0", 0)):
         row = compact.split(f'<td class="nowrap">{code}</td>')[1].split("</tr>")[0]
         assert f"{suited} of 1" in row, (code, row)
+    row = compact.split('<td class="nowrap">ELEC-4U0</td>')[1].split("</tr>")[0]
+    assert "no start positions in service" in row, row  # the fan has a run position only
+
+
+def test_a_stand_in_part_is_counted_against_the_designs_of_its_own_role_only(client, engineer, fan_fitted_capacitor):
+    """Every part "suited 1 of 7 designs": the count took in the designs of the other role, which a part never
+    stands in for (film for run, electrolytic for start, [trade]). The example fan (a run position) and a
+    two-value motor (a run and a start position) make two run designs and one start design: a film part
+    counts out of the two, an electrolytic one out of the one, each table's heading naming the role."""
+    motor = make_motor(motor_type="two_value")
+    make_fitted_capacitor(motor=motor, role="run", part=fan_fitted_capacitor.part)
+    make_fitted_capacitor(motor=motor, role="start", part=start_part_40_uf())
+    families = {family["dielectric"]: family for family in substitutes.part_families()}
+    film = {part["code"]: part for part in families["film"]["parts"]}[fan_fitted_capacitor.part.code]
+    electrolytic = {part["code"]: part for part in families["electrolytic"]["parts"]}["ELEC-40"]
+    assert film["designs"] == 2 and film["designs_suited"] + film["designs_marginal"] <= 2
+    assert electrolytic["designs"] == 1 and electrolytic["designs_suited"] == 1  # its own design
+    assert families["film"]["role"] == "run" and families["electrolytic"]["role"] == "start"
+    signed_in_client(client, engineer)
+    compact = " ".join(client.get(reverse("stand_in_parts")).content.decode().split())
+    assert '<th class="num">Run designs it suits</th>' in compact
+    assert '<th class="num">Start designs it suits</th>' in compact
+    row = compact.split('<td class="nowrap">ELEC-40</td>')[1].split("</tr>")[0]
+    assert "1 of 1</td>" in row, row
+    assert "of 3" not in compact
 
 
 def test_a_motor_without_a_circuit_is_judged_by_ratings_alone(client, technician, engineer):
@@ -199,15 +237,7 @@ def test_the_start_capacitor_of_a_two_value_motor_is_judged_with_its_run_capacit
     start = make_fitted_capacitor(
         motor=motor,
         role="start",
-        part=make_part(
-            code="ELEC-40",
-            rated_uf=40.0,
-            rated_voltage_v=250,
-            dielectric="electrolytic",
-            tolerance_minus_pct=0,
-            tolerance_plus_pct=20,
-            class_of_operation="",
-        ),
+        part=start_part_40_uf(),
     )
     make_part(code="FILM-40", rated_uf=40.0, rated_voltage_v=250, class_of_operation="")
     body = client_for(engineer).get(reverse("api_fitted_capacitor_substitutes", args=[start.id])).json()

@@ -11,8 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import integrate, optimize, stats
-from scipy.special import gamma, ndtri
+from scipy import optimize, stats
+from scipy.special import gamma, gammainc, ndtri
 
 
 class NoWeibullEstimate(ValueError):
@@ -228,27 +228,49 @@ class AgeReplacement:
 MAX_REPLACEMENT_COST = 1_000_000.0
 
 
+def mean_time_to_age(beta, eta, age):
+    """Expected length of a replacement cycle at age T, the integral of R(t) from 0 to T, in closed form:
+    (eta / beta) Gamma(1/beta) P(1/beta, (T/eta)^beta), P the regularised lower incomplete gamma function
+    [derived from the Weibull survivor function by the substitution u = (t/eta)^beta]."""
+    age = np.asarray(age, float)
+    shape = 1.0 / beta
+    return eta * shape * gamma(shape) * gammainc(shape, (np.maximum(age, 0.0) / eta) ** beta)
+
+
 def age_replacement(fit: WeibullFit, planned_cost, failure_cost, ages=None) -> AgeReplacement:
     """Cost per unit time of replacing at age T or at failure, whichever comes first.
 
     C(T) = [Cp R(T) + Cf (1 - R(T))] / integral_0^T R(t) dt (Barlow and Proschan).
     Run to failure costs Cf / MTTF. A finite optimum exists only when beta > 1
-    and Cf > Cp.
+    and Cf > Cp; with a rising hazard it is the one minimum of C(T) (Barlow and
+    Proschan), found on the logarithm of the age from a ten-thousandth of eta up,
+    so an optimum far below eta (failures that cost far more than a planned change)
+    is found as surely as one near it. `ages`: where the curve is drawn (by default
+    from half the optimum, or 5 % of eta, to three times eta).
     """
-    if ages is None:
-        ages = np.linspace(0.05, 3.0, 240) * fit.eta
-    ages = np.asarray(ages, float)
-    grid = np.linspace(0.0, ages.max(), 4001)
-    reliability = fit.reliability(grid)
-    cumulative = integrate.cumulative_trapezoid(reliability, grid, initial=0.0)
-    expected_cycle = np.interp(ages, grid, cumulative)
-    r = fit.reliability(ages)
-    cost = (planned_cost * r + failure_cost * (1.0 - r)) / expected_cycle
+
+    def cost_at(age):
+        r = fit.reliability(age)
+        return (planned_cost * r + failure_cost * (1.0 - r)) / mean_time_to_age(fit.beta, fit.eta, age)
+
     mttf = fit.eta * gamma(1.0 + 1.0 / fit.beta)
     run_to_failure = failure_cost / mttf
     optimum_age = optimum_cost = None
     if fit.beta > 1.0 and failure_cost > planned_cost:
-        best = int(np.argmin(cost))
-        if 0 < best < len(ages) - 1 and cost[best] < run_to_failure:
-            optimum_age, optimum_cost = float(ages[best]), float(cost[best])
-    return AgeReplacement(ages, cost, optimum_age, optimum_cost, float(run_to_failure))
+        log_ages = np.linspace(np.log(1e-4), np.log(3.0), 400) + np.log(fit.eta)
+        coarse = cost_at(np.exp(log_ages))
+        best = int(np.argmin(coarse))
+        if 0 < best < len(log_ages) - 1:
+            found = optimize.minimize_scalar(
+                lambda log_age: float(cost_at(np.exp(log_age))),
+                bounds=(log_ages[best - 1], log_ages[best + 1]),
+                method="bounded",
+                options={"xatol": 1e-9},
+            )
+            if found.fun < run_to_failure:
+                optimum_age, optimum_cost = float(np.exp(found.x)), float(found.fun)
+    if ages is None:
+        low = 0.05 * fit.eta if optimum_age is None else min(0.05 * fit.eta, 0.5 * optimum_age)
+        ages = np.linspace(low, 3.0 * fit.eta, 240)
+    ages = np.asarray(ages, float)
+    return AgeReplacement(ages, cost_at(ages), optimum_age, optimum_cost, float(run_to_failure))

@@ -17,6 +17,7 @@ import numpy as np
 from .drift import (
     LIMIT_NAMES,
     ROLE_RUN,
+    ROLE_START,
     DriftLimits,
     EstimateResolution,
     OperatingFigures,
@@ -26,11 +27,15 @@ from .drift import (
 )
 from .drift import operating_figures as _operating_figures
 from .motor import Load, MotorCircuit
+from .trends import DIELECTRIC_ELECTROLYTIC, DIELECTRIC_FILM
 
 SUITABLE, MARGINAL, UNSUITABLE = "suitable", "marginal", "unsuitable"
 VERDICTS = np.array([SUITABLE, MARGINAL, UNSUITABLE])
 SINGLE, PARALLEL, SERIES = "single", "parallel", "series"
 CLASS_ORDER = {"A": 0, "B": 1, "C": 2, "D": 3}  # IEC 60252-1 classes of operation, longest life first
+# The one role each dielectric serves: film for run (continuous duty), electrolytic for start (short duty),
+# never the other way (common practice of the trade, no single source; the duty rule of `advise`).
+ROLE_OF_DIELECTRIC = {DIELECTRIC_FILM: ROLE_RUN, DIELECTRIC_ELECTROLYTIC: ROLE_START}
 
 CAUTION_PARALLEL = (
     "Two capacitors in parallel: each must carry the full voltage rating; mount and wire them as one, "

@@ -18,7 +18,7 @@ from fleet.engineering.planning import RISK_ORDER
 from fleet.models import DigestEntry
 from fleet.roles import PLANNER, visible_site_ids
 from fleet.services.dashboard import overdue_capacitors
-from fleet.services.pages import READING_INTERVAL_DAYS, in_service_assessments, overdue_before
+from fleet.services.pages import OVERDUE_GRACE_DAYS, READING_INTERVAL_DAYS, in_service_assessments, overdue_before
 
 TOP_RISK = RISK_ORDER[0]
 CAUTION = (
@@ -91,8 +91,8 @@ def _body(items: list[dict], today: dt.date) -> str:
         (DigestEntry.Kind.TOP_RISK, f"Capacitors that entered the top risk level ({TOP_RISK}):"),
         (
             DigestEntry.Kind.OVERDUE,
-            f"Readings that fell overdue (readings are due every {READING_INTERVAL_DAYS} days; "
-            f"none since {overdue_before(today):%Y-%m-%d}):",
+            f"Readings that fell overdue (due every {READING_INTERVAL_DAYS} days, overdue "
+            f"{OVERDUE_GRACE_DAYS} days after that: none since {overdue_before(today):%Y-%m-%d}):",
         ),
     ):
         lines = [f"- {item['line']}\n  {item['link']}" for item in items if item["kind"] == kind]

@@ -924,13 +924,17 @@ def _finite_or_none(value):
     return value if np.isfinite(value) else None
 
 
-def _iso_dates(offset_days, today: dt.date) -> np.ndarray:
-    """ISO dates `today` + offset (whole days, none before today); None past the planning
-    horizon or not finite (shown as "beyond")."""
+def _iso_dates(offset_days, today: dt.date, past: bool = False) -> np.ndarray:
+    """ISO dates `today` + offset (whole days; none before today unless `past`: a crossing the trend
+    has already made keeps its day, a replace-by date does not); None past the planning horizon or not
+    finite (shown as "beyond")."""
     offset = np.asarray(offset_days, float)
     with np.errstate(invalid="ignore"):
         known = np.isfinite(offset) & (offset <= PlanningSettings().horizon_days)
-    days = np.floor(np.maximum(np.where(known, offset, 0.0), 0.0)).astype(np.int64)
+        if past:
+            known &= offset >= -PlanningSettings().horizon_days
+    days = np.floor(np.where(known, offset, 0.0) if past else np.maximum(np.where(known, offset, 0.0), 0.0))
+    days = days.astype(np.int64)
     distinct, position = np.unique(days, return_inverse=True)  # a few hundred dates: each written once
     text = np.datetime_as_string(np.datetime64(today, "D") + distinct.astype("timedelta64[D]"), unit="D")
     return np.where(known, text.astype(object)[position.reshape(days.shape)], None)
@@ -975,7 +979,10 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
             "used": result.limit_used.ravel()[shown].astype(bool),
             "note": result.limit_notes.ravel()[shown].astype(str),
             "finding": result.limit_findings.ravel()[shown].astype(str),
-            **{f"p{q}_on": _iso_dates(result.limit_days[j].ravel()[shown], today) for j, q in enumerate((10, 50, 90))},
+            **{
+                f"p{q}_on": _iso_dates(result.limit_days[j].ravel()[shown], today, past=True)
+                for j, q in enumerate((10, 50, 90))
+            },
         }
     )
     limit_text = np.full(count * n, "", dtype=object)
@@ -994,7 +1001,10 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
             "used": measured,
             "note": np.where(measured, "", "no reading with ESR yet"),
             "finding": "",
-            **{f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today) for j, q in enumerate((10, 50, 90))},
+            **{
+                f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today, past=True)
+                for j, q in enumerate((10, 50, 90))
+            },
         }
     )
     wear_text = np.full(n, "", dtype=object)
@@ -1058,9 +1068,9 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "latest_verdict": pd.Series(result.verdict_code).map(VERDICT_NAMES).to_numpy(object),
             "limit_fraction": result.limit_fraction[limit_rows, np.arange(n)],
             "limit_source": np.where(governing >= 0, sources[governing], TOLERANCE_LIMIT),
-            "p10_on": _iso_dates(judgement.days[0], today),
-            "p50_on": _iso_dates(judgement.days[1], today),
-            "p90_on": _iso_dates(judgement.days[2], today),
+            "p10_on": _iso_dates(judgement.days[0], today, past=True),
+            "p50_on": _iso_dates(judgement.days[1], today, past=True),
+            "p90_on": _iso_dates(judgement.days[2], today, past=True),
             "risk": risk,
             "replace_by": _iso_dates(judgement.due_days, today),
             "reason": pd.Series(reason).str.slice(0, 300).to_numpy(object),

@@ -67,21 +67,18 @@ def _summed(pairs) -> dict:
     return {key: n for key, n in totals.items() if n}
 
 
-def in_service_counts(user=None) -> InServiceCounts:
-    """The counts at the user's sites (None: every site), one query."""
-    rows = (
-        scope_to_user(InServiceCount.objects.all(), user)
-        .values_list(*KEY)
-        .annotate(total=Sum("n"))
-        .exclude(total=0)
-        .order_by()
-    )
+def in_service_counts(user=None, site=None) -> InServiceCounts:
+    """The counts at the user's sites (None: every site), of one of them when `site` is given; one query."""
+    rows = scope_to_user(InServiceCount.objects.all(), user)
+    if site is not None:
+        rows = rows.filter(site=site)
+    rows = rows.values_list(*KEY).annotate(total=Sum("n")).exclude(total=0).order_by()
     assessed, fitted = {}, {}
-    for site, part, risk, fitted_month, assessed_on, n in rows:
+    for site_id, part, risk, fitted_month, assessed_on, n in rows:
         if risk:
-            assessed[(site, part, risk, assessed_on)] = n
+            assessed[(site_id, part, risk, assessed_on)] = n
         else:
-            fitted[(site, part, fitted_month)] = n
+            fitted[(site_id, part, fitted_month)] = n
     return InServiceCounts(assessed=assessed, fitted=fitted)
 
 

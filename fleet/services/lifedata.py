@@ -145,8 +145,7 @@ def part_life(part_id: int, planned_cost: float, failure_cost: float) -> dict:
             **unaged,
         }
     fit = stored_fit(stored)
-    ages = np.linspace(0.05, 3.0, 240) * fit.eta
-    replacement = age_replacement(fit, planned_cost, failure_cost, ages=ages)
+    replacement = age_replacement(fit, planned_cost, failure_cost)
     (beta_low, beta_high), (eta_low, eta_high) = fit.parameter_bounds()
     b10_low, b10_high = fit.b_life_bounds()
     if not fit.bounds_available:

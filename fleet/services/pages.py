@@ -43,7 +43,7 @@ from fleet.models import (
     RefitRun,
     Site,
 )
-from fleet.roles import scope_to_user
+from fleet.roles import scope_to_user, visible_site_ids
 
 from .assessments import _hours_since_fitting, assessment_terms, stored_alert_levels
 from .counts import in_service_counts
@@ -417,15 +417,26 @@ def position_readings():
 NOT_ASSESSED = "not assessed yet"
 
 
-def risk_summary(user=None):
-    """Capacitors in service at the user's sites per risk level, most urgent first, then those not
-    assessed yet (never read, or waiting for their first refit) where there are any, so the counts add
-    up to the capacitors in service (the ledger kept on write: a few rows summed, whatever the fleet's size)."""
-    ledger = in_service_counts(user)
+def risk_summary(user=None, site: Site | None = None):
+    """Capacitors in service at the user's sites (at `site` alone when given) per risk level, most urgent
+    first, then those not assessed yet (never read, or waiting for their first refit) where there are any,
+    so the counts add up to the capacitors in service (the ledger kept on write: a few rows summed,
+    whatever the fleet's size)."""
+    ledger = in_service_counts(user, site)
     counts = ledger.by_risk()
     summary = [(risk, counts.get(risk, 0)) for risk in RISK_ORDER]
     not_assessed = sum(ledger.not_assessed_by_site().values())
     return summary + [(NOT_ASSESSED, not_assessed)] if not_assessed else summary
+
+
+def counted_where(site: Site | None, sites, user) -> str:
+    """Which sites a page's counts are of, in words: "at CST (Cool store)", "at your sites GLH, PKH" (the
+    user's `sites`, already listed for the page) or "at every site"."""
+    if site is not None:
+        return f"at {site.code} ({site.name})"
+    if visible_site_ids(user) is None:
+        return "at every site"
+    return f"at your site{'s' if len(sites) > 1 else ''} {', '.join(s.code for s in sites)}"
 
 
 # An assessment's per-limit details and operating figures: the capacitor page shows them, lists do not.
@@ -479,10 +490,11 @@ def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
 
 
-def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime | None = None):
-    """Capacitors in service whose risk level changed in the last `days`, read from each current
-    assessment's stored risk history: (worse, better, counts) with at most `limit` of each, soonest
-    replacement first, and counts {"worse", "better", "first_assessed"} of all of them.
+def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime | None = None, site: Site | None = None):
+    """Capacitors in service (at the user's sites; at `site` alone when given) whose risk level changed in
+    the last `days`, read from each current assessment's stored risk history: (worse, better, counts) with
+    at most `limit` of each, soonest replacement first, and counts {"worse", "better", "first_assessed"}
+    of all of them.
 
     worse and better are querysets, read when used (the plan shows the riskier ones only): each
     picks its `limit` rows from the assessments alone, then joins motors and parts for those.
@@ -490,6 +502,8 @@ def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime |
     """
     since = since or timezone.now() - dt.timedelta(days=days)
     recent = in_service_assessments(user).filter(risk_changed_at__gte=since)
+    if site is not None:
+        recent = recent.filter(site=site)
     rank = {risk: position for position, risk in enumerate(RISK_ORDER)}
     rank_now = Case(*[When(risk=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
     rank_was = Case(*[When(risk_was=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))

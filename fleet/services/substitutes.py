@@ -12,6 +12,7 @@ from django.db.models import Sum
 from fleet.engineering.drift import CIRCUIT_ESTIMATED, ROLE_RUN
 from fleet.engineering.substitutes import (
     MARGINAL,
+    ROLE_OF_DIELECTRIC,
     SINGLE,
     SUITABLE,
     Advice,
@@ -270,9 +271,11 @@ def designs_in_service(user=None) -> dict[tuple, int]:
 
 
 def part_families(user=None) -> list[dict]:
-    """Fewer part numbers: per dielectric, each catalogue part with the number of motor designs (distinct
-    circuit, load and design part among the capacitors in service) it would suit as a single substitute, and
-    for how many more it would be marginal.
+    """Fewer part numbers: per dielectric (with the role it serves, `ROLE_OF_DIELECTRIC`), each catalogue
+    part with the number of motor designs of its own role (distinct circuit, load and design part among the
+    capacitors in service in that role) it would suit as a single substitute, for how many more it would be
+    marginal, and how many designs of its role there are: a run part is never counted against a start
+    position, nor a start part against a run one.
 
     One advice call per design (a fleet's motors share designs by the dozen), never per motor; the
     designs read from the ledger kept on write (`designs_in_service`), never by joining the fleet.
@@ -280,17 +283,25 @@ def part_families(user=None) -> list[dict]:
     designs = designs_in_service(user)
     frame = parts_frame()
     singles = candidates_of(frame)
+    part_roles = frame["dielectric"].map(ROLE_OF_DIELECTRIC).to_numpy(object)
     suits = np.zeros(len(frame), int)
     marginal = np.zeros(len(frame), int)
+    of_role = np.zeros(len(frame), int)
     fitted_capacitors = FittedCapacitor.objects.select_related("part", "motor").in_bulk(designs.values())
     for position in positions_of([fitted_capacitors[first_id] for first_id in designs.values()]):
+        own_role = part_roles == position.role
         advice = advise(position, singles)
-        suits += advice.verdict == SUITABLE
-        marginal += advice.verdict == MARGINAL
+        suits += (advice.verdict == SUITABLE) & own_role
+        marginal += (advice.verdict == MARGINAL) & own_role
+        of_role += own_role
     frame["designs_suited"] = suits
     frame["designs_marginal"] = marginal
-    frame["designs"] = len(designs)
+    frame["designs"] = of_role
     return [
-        {"dielectric": dielectric, "parts": rows.sort_values("designs_suited", ascending=False).to_dict("records")}
+        {
+            "dielectric": dielectric,
+            "role": ROLE_OF_DIELECTRIC.get(dielectric, ""),
+            "parts": rows.sort_values("designs_suited", ascending=False).to_dict("records"),
+        }
         for dielectric, rows in frame.groupby("dielectric", sort=True)
     ]

@@ -51,6 +51,20 @@ def times(factor):
     return DASH if factor is None else f"{TIMES}{NBSP}{factor:.2f}"
 
 
+@register.filter
+def age_in_years(years):
+    """An age given in years, in the unit a planner reads it in: 2.93 -> '2.9 years', 0.29 -> '3.5 months',
+    0.02 -> '7 days'; None -> '-'."""
+    if years is None:
+        return DASH
+    if years >= 1.0:
+        return f"{years:.1f}{NBSP}years"
+    if years >= 1.0 / 12.0:
+        return f"{12.0 * years:.1f}{NBSP}months"
+    days = round(365.25 * years)
+    return f"{days}{NBSP}day{'' if days == 1 else 's'}"
+
+
 ISO_DAY = "Y-m-d"
 
 
@@ -67,14 +81,16 @@ def day(value, pattern=ISO_DAY):
 
 
 @register.filter
-def verdict_and_risk(assessment):
+def verdict_and_risk(assessment, reason_shown_above=""):
     """One sentence where the last reading's tolerance verdict and the risk level seem to disagree
-    (a green "within tolerance" beside a red "replace now"), ending with the stored reason; "" where
-    they agree."""
+    (a green "within tolerance" beside a red "replace now"), ending with the stored reason, or pointing
+    to it where the page shows it just above (`verdict_and_risk:"above"`); "" where they agree."""
     if assessment is None:
         return ""
     within = assessment.latest_verdict == VERDICT_NAMES[VERDICT_WITHIN]
     reason = assessment.reason or "no reason stored"
+    if reason_shown_above:
+        reason = "see Why, above"
     if within and assessment.risk in (RISK_REPLACE_NOW, RISK_DUE_SOON):
         if assessment.limit_source == DISSIPATION_LIMIT:
             because = "its dissipation factor (from the ESR readings) reaches the part's maximum first"

@@ -97,35 +97,53 @@ def work_order_rows(orders):
 
 
 ROUTE_ROW = """
-<tr><td class="num">{order}</td>
+<tr{row_class}><td class="num">{order}</td>
   <td><a class="button nowrap {read}" href="{motor_url}">{tag}</a></td>
   <td>{location}<br><span class="muted">{application}</span></td>
   <td>{status}{unread}</td>
   <td data-label="Last read">{last_read}</td></tr>
 """
+# Text, not a number field: a refused entry ("two", "-1") comes back in its box exactly as typed.
 ROUTE_ORDER_INPUT = (
-    '<input type="number" inputmode="numeric" name="order-{}" value="{}" style="width:4.5em" '
-    'aria-label="Place of {} on the route">'
+    '<input type="text" inputmode="numeric" name="order-{id}" id="place-{tag}" value="{value}" style="width:4.5em" '
+    'aria-label="Place of {tag} on the route"{invalid}>'
 )
+ROUTE_ORDER_INVALID = ' aria-invalid="true" aria-describedby="place-{}-error"'
+# A refused place's message: a row of its own under the motor's, tied to the box it is about.
+ROUTE_ORDER_ERROR = (
+    '<tr class="order-error"><td colspan="5" id="place-{tag}-error"><ul class="errorlist"><li>'
+    "{tag}: {message}</li></ul></td></tr>\n"
+)
+HAS_ERROR = mark_safe(' class="has-error"')
 OVERDUE = mark_safe('<b class="error-text">overdue</b>')
 TO_READ = mark_safe("<b>to read</b>")
 
 
 @register.simple_tag
-def route_rows(motors, can_order):
+def route_rows(motors, can_order, typed=None, errors=None):
     """A route page's rows for `motors` (`pages.RouteRows`: with `due`, `overdue` and `still_to_read`),
-    each with its place on the route as a field when the user may change the walking order (`can_order`)."""
+    each with its place on the route as a field when the user may change the walking order (`can_order`).
+    After a refused save, `typed` {motor id: text} fills the boxes as they were sent and `errors`
+    {asset tag: [message]} marks each refused box, its message in a row under it."""
+    typed, errors = typed or {}, errors or {}
     rows = []
     for motor in motors:
         unread = " and ".join(motor.still_to_read)
+        problems = errors.get(motor.asset_tag)
+        order = motor.route_order
+        if can_order:
+            order = format_html(
+                ROUTE_ORDER_INPUT,
+                id=motor.id,
+                tag=motor.asset_tag,
+                value=typed.get(motor.id, motor.route_order),
+                invalid=format_html(ROUTE_ORDER_INVALID, motor.asset_tag) if problems else "",
+            )
         rows.append(
             format_html(
                 ROUTE_ROW,
-                order=(
-                    format_html(ROUTE_ORDER_INPUT, motor.id, motor.route_order, motor.asset_tag)
-                    if can_order
-                    else motor.route_order
-                ),
+                row_class=HAS_ERROR if problems else "",
+                order=order,
                 read="" if motor.due else "secondary",
                 motor_url=reverse("motor", args=[motor.asset_tag]),
                 tag=motor.asset_tag,
@@ -136,4 +154,6 @@ def route_rows(motors, can_order):
                 last_read=day(template_localtime(motor.last_read_at)) or "never",
             )
         )
+        if problems:
+            rows.append(format_html(ROUTE_ORDER_ERROR, tag=motor.asset_tag, message=" ".join(problems)))
     return mark_safe("".join(rows))

@@ -184,7 +184,7 @@ LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
 @permission_required("fleet.view_motor", raise_exception=True)
 def site_route(request, site_code):
     site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
-    order_errors = {}
+    order_errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
             raise PermissionDenied
@@ -192,7 +192,8 @@ def site_route(request, site_code):
         try:
             set_route_order(site=site, positions=positions)
         except ValidationError as error:
-            order_errors = error.message_dict
+            # Nothing saved; the boxes come back as typed (as the stock page's do), the refused ones marked.
+            order_errors, typed = error.message_dict, positions
         else:
             messages.success(request, "Walking order saved.")
             return redirect(f"{reverse('route', args=[site.code])}?{request.GET.urlencode()}")
@@ -208,6 +209,7 @@ def site_route(request, site_code):
         "only_due": only_due,
         **days,
         "order_errors": order_errors,
+        "typed": typed,
     }
     return render(request, "fleet/route.html", context)
 

@@ -47,18 +47,20 @@ def plan(request):
     for problem in problems:
         messages.warning(request, f"Ignored {problem}")
     page = list_page(request, Paginator(pages.replacement_plan(horizon, site, request.user), 50).get_page)
+    sites = list(scope_to_user(Site.objects.all(), request.user))
     context = {
         "page": page,
         "horizon": horizon,
         "until": pages.replace_by_until(horizon),
         "site": site,
-        "sites": scope_to_user(Site.objects.all(), request.user),
+        "sites": sites,
+        "where": pages.counted_where(site, sites, request.user),
         "spares": pages.spares_needed(horizon, site, request.user),
-        "risks": pages.risk_summary(request.user),
+        "risks": pages.risk_summary(request.user, site),
         "rules": PlanningSettings(),
         "alert_levels": pages.alert_level_words(),
     }
-    context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user)
+    context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user, site=site)
     return render(request, "fleet/plan.html", context)
 
 

@@ -9,9 +9,9 @@ import datetime as dt
 import pytest
 from django.utils import timezone
 
-from fleet.models import FittedCapacitor, Reading, WorkOrder
+from fleet.models import FittedCapacitor, Motor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_part, make_user, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
 
 from .conftest import ARTIFACTS, demo_page
 from .test_every_page import _load
@@ -207,3 +207,58 @@ def test_the_visit_sheet_links_its_motors_and_parts_and_keeps_tick_boxes_for_pap
     assert page.evaluate(boxes) == rows, rows
     page.screenshot(path=str(ARTIFACTS / "visit-sheet-print.png"), full_page=True)
     context.close()
+
+
+def test_a_refused_walking_order_keeps_what_was_typed_in_view_with_the_save_button_in_reach(phone):
+    """On a phone the route's "Save walking order" was 16,000 px down the page; a refused save came back
+    with every box at its stored place and its message below the first screen. The save button now stays
+    at the foot of the screen; a refused save opens on what to put right, the boxes as typed."""
+    site = make_site("WLK")
+    motors = [make_motor(site=site, route_order=n + 1) for n in range(40)]
+    sign_in(phone, make_user("planner"))
+    phone.goto(f"/sites/{site.code}/route/")
+    save = phone.locator("button", has_text="Save walking order")
+    view = phone.viewport_size
+
+    def on_screen(locator):
+        box = locator.bounding_box()
+        return box is not None and box["y"] >= 0 and box["y"] + box["height"] <= view["height"]
+
+    assert phone.evaluate("document.documentElement.scrollHeight") > 4 * view["height"]
+
+    def type_into(motor, text):  # as a planner does: the row scrolled to mid-screen, its box tapped
+        box = phone.locator(f"#place-{motor.asset_tag}")
+        box.evaluate("(e) => e.scrollIntoView({block: 'center'})")
+        box.fill(text)
+        assert on_screen(save) and box.bounding_box()["y"] + box.bounding_box()["height"] < save.bounding_box()["y"]
+
+    type_into(motors[0], "2")
+    type_into(motors[20], "-1")
+    save.click()
+    summary = phone.locator("#error-summary")
+    summary.wait_for(timeout=15000)
+    assert on_screen(summary) and "Walking order not saved: 1 to put right" in summary.inner_text()
+    assert phone.input_value(f"#place-{motors[0].asset_tag}") == "2"
+    assert phone.input_value(f"#place-{motors[20].asset_tag}") == "-1"
+    message = phone.locator(f"#place-{motors[20].asset_tag}-error")
+    assert "'-1' is not a whole number" in message.inner_text()
+    assert phone.evaluate("document.documentElement.scrollWidth") <= view["width"]
+    phone.screenshot(path=str(ARTIFACTS / "route-order-refused-screen.png"))  # what the planner sees first
+    phone.shot("route-order-refused")
+    summary.locator("a").click()  # to the box, clear of the bar at the foot of the screen
+    box = phone.locator(f"#place-{motors[20].asset_tag}")
+    phone.screenshot(path=str(ARTIFACTS / "route-order-refused-box.png"))
+    assert on_screen(box) and box.bounding_box()["y"] + box.bounding_box()["height"] < save.bounding_box()["y"]
+    phone.fill(f"#place-{motors[20].asset_tag}", "4")
+    save.click()
+    saved = phone.locator("text=Walking order saved.")
+    saved.wait_for(timeout=15000)
+    assert on_screen(saved)  # the page opens at its top again, not at the box the summary linked
+    assert dict(Motor.objects.filter(id__in=[motors[0].id, motors[20].id]).values_list("id", "route_order")) == {
+        motors[0].id: 2,
+        motors[20].id: 4,
+    }
+    phone.set_viewport_size({"width": 1366, "height": 900})
+    view = phone.viewport_size
+    type_into(motors[30], "31")
+    phone.screenshot(path=str(ARTIFACTS / "route-order-1366.png"))

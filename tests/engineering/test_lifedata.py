@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from scipy import optimize, stats
+from scipy import integrate, optimize, stats
 
 from fleet.engineering.lifedata import (
     NoWeibullEstimate,
@@ -92,6 +92,31 @@ def test_age_replacement_has_an_optimum_only_for_wear_out():
     random_failures = WeibullFit(beta=1.0, eta=100.0, failures=10, suspensions=0, covariance_log=np.eye(2))
     assert age_replacement(random_failures, 1.0, 10.0).optimum_age is None
     assert age_replacement(wear_out, planned_cost=10.0, failure_cost=5.0).optimum_age is None
+
+
+@pytest.mark.parametrize(
+    ("beta", "eta", "planned_cost", "failure_cost"),
+    [(1.48, 5.5, 60.0, 10_000.0), (1.48, 5.5, 60.0, 100_000.0), (1.48, 5.5, 10.0, 2_500.0), (1.48, 5.5, 60.0, 400.0),
+     (3.0, 10.0, 1.0, 5.0), (1.1, 2.0, 1.0, 1_000.0)],
+)  # fmt: skip
+def test_the_optimum_age_solves_the_barlow_proschan_condition(beta, eta, planned_cost, failure_cost):
+    """[pub] Barlow and Proschan, Mathematical Theory of Reliability (1965): with a rising hazard h, the
+    optimum age T* solves h(T) integral_0^T R dt - F(T) = Cp / (Cf - Cp). Solved here with scipy's quad and
+    brentq, apart from the product's search. Failures that cost far more than a planned change put T* far
+    below eta (0.29 years for beta 1.48, eta 5.5 years, 60 against 10,000): the search missed such ages
+    and said that no replacement age beat running to failure."""
+    fit = WeibullFit(beta=beta, eta=eta, failures=10, suspensions=0, covariance_log=np.eye(2))
+
+    def condition(age):
+        hazard = beta / eta * (age / eta) ** (beta - 1)
+        area = integrate.quad(lambda t: np.exp(-((t / eta) ** beta)), 0.0, age, epsabs=1e-13, epsrel=1e-12)[0]
+        return hazard * area - (1.0 - np.exp(-((age / eta) ** beta))) - planned_cost / (failure_cost - planned_cost)
+
+    expected = optimize.brentq(condition, 1e-6 * eta, 50.0 * eta, xtol=1e-12)
+    plan = age_replacement(fit, planned_cost, failure_cost)
+    assert plan.optimum_age == pytest.approx(expected, rel=1e-4)
+    assert plan.optimum_cost_per_time < plan.run_to_failure_cost_per_time
+    assert plan.ages.min() <= plan.optimum_age <= plan.ages.max()  # the curve drawn shows its minimum
 
 
 def test_conditional_failure_probability():
