@@ -156,6 +156,30 @@ class ReplacementForm(forms.Form):
         self.fields["part"].initial = design.pk
 
 
+class MoveVisitForm(forms.Form):
+    """The day to move a whole site visit to; `workorders.move_visit` holds the rules (working day, not past)."""
+
+    to_day = forms.DateField(
+        label="Move this visit to",
+        widget=forms.DateInput(attrs={"type": "date"}),
+        error_messages={
+            "required": "Enter the day to move the visit to, e.g. 2026-12-24.",
+            "invalid": "Enter the day as year-month-day, e.g. 2026-12-24.",
+        },
+    )
+
+
+class CancelOrderForm(forms.Form):
+    """Why the planner cancels an open work order; `workorders.cancel_order` holds the rules."""
+
+    reason = forms.CharField(
+        label="Why cancel it",
+        widget=forms.Textarea(attrs={"rows": 2}),
+        help_text="Kept with the cancelled order, e.g. 'plan now says watch; read again next quarter'.",
+        required=False,  # the service names an empty reason, as it does for the API and the shell
+    )
+
+
 class FindMotorForm(forms.Form):
     tag = forms.CharField(
         label="Asset tag, part of it, or where the motor is",

@@ -1017,6 +1017,15 @@ class WorkOrder(models.Model):
         settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL, related_name="+"
     )
     closed_at = models.DateTimeField(null=True, blank=True)
+    # Null allowed so that SQLite adds these columns in place: rebuilding the table would drop its triggers.
+    cancel_reason = models.CharField(  # noqa: DJ001
+        max_length=200, null=True, blank=True, help_text="Why the planner cancelled it, in their words"
+    )
+    moved_from = models.DateField(
+        null=True,
+        blank=True,
+        help_text="The day the plan put its visit on before the planner moved it (a re-plan keeps the move)",
+    )
     # Its motor's place on the route and tag, and its capacitor's part, kept by database triggers
     # (migration 0035): the work-orders page and the visit sheet walk a visit's orders and count its
     # spares from the open orders' index instead of looking up every order's motor and capacitor.
@@ -1060,6 +1069,11 @@ class WorkOrder(models.Model):
 
     def __str__(self):
         return f"{self.get_kind_display()} {self.motor.asset_tag} by {self.due_on}"
+
+    @property
+    def reads_again(self) -> bool:
+        """The order asks for a reading first (replace only if past its limit)."""
+        return self.kind == self.Kind.READ_AGAIN
 
     def clean(self):
         """A due date past the plan's reach or a visit window no plan makes is refused at its field."""

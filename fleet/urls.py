@@ -79,6 +79,7 @@ urlpatterns = [
     path("exports/<slug:kind>-about.json", reliability.export_about, name="export_about"),
     path("exports/<slug:kind>.<str:file_format>", reliability.export, name="export"),
     path("work-orders/", planning.work_orders, name="work_orders"),
+    path("work-orders/<int:order_id>/cancel/", planning.work_order_cancel, name="work_order_cancel"),
     path("work-orders/<code:site_code>/<str:day>/", planning.visit_sheet, name="visit_sheet"),
     path("refits/", reliability.refits, name="refits"),
     path("refits/start/", reliability.refit_start, name="refit_start"),

@@ -44,6 +44,26 @@ def work_order_problems(due_on, window_days, today) -> list[tuple[np.ndarray, st
     ]
 
 
+WEEKDAY_NAMES = ("Monday", "Tuesday", "Wednesday", "Thursday", "Friday", "Saturday", "Sunday")
+
+
+def visit_day_problem(day: dt.date, today: dt.date, weekmask: str | None = None) -> str:
+    """Why a visit cannot be moved to `day`, in words ("" where it can): a day before `today`, a day that
+    is not a working day (`PlanningSettings.working_days`, numpy's weekmask), or one past the plan's reach."""
+    weekmask = PlanningSettings.working_days if weekmask is None else weekmask
+    if day < today:
+        return f"{day.isoformat()} is in the past: choose today or a later working day."
+    if weekmask[day.weekday()] != "1":
+        working = [name for name, flag in zip(WEEKDAY_NAMES, weekmask, strict=True) if flag == "1"]
+        return (
+            f"{day.isoformat()} is a {WEEKDAY_NAMES[day.weekday()]}: visits are on working days ({', '.join(working)})."
+        )
+    for rows, _, message in work_order_problems(day, 1, today):
+        if rows.any():
+            return f"{day.isoformat()} is {message}."
+    return ""
+
+
 ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
 EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
 

@@ -7,6 +7,7 @@ from functools import reduce
 from operator import or_
 
 import numpy as np
+from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.db import transaction
 from django.db.models import Count, F, OuterRef, Q, Subquery, Window
@@ -14,7 +15,13 @@ from django.db.models.functions import RowNumber
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
-from fleet.engineering.planning import PlanningSettings, bundle_visits, plan_moved_words
+from fleet.engineering.planning import (
+    WORK_ORDER_MAX_WINDOW_DAYS,
+    PlanningSettings,
+    bundle_visits,
+    plan_moved_words,
+    visit_day_problem,
+)
 from fleet.models import Assessment, FittedCapacitor, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
 
@@ -38,8 +45,17 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     replacement; each order carries the plan's reason in words. New orders and the still-planned ones
     are bundled into site visits (one trip per site per window) and dated on their visit's day; overdue
     ones on today. Issued orders are left as they are. Only the sites `user` works at are planned
-    (None: every site). Returns counts: `replanned` counts only the open orders whose date, window or
-    kind really moved; those and the ones whose reason changed are written.
+    (None: every site).
+
+    The planner's decisions hold: a visit the planner moved (`move_visit`) stays moved, every order the
+    plan dates on the day it was moved from (new ones too) goes on the day it was moved to; an order the
+    planner cancelled is not created again while the plan asks for the same work in the cancelled order's
+    visit (`planning.plan_moved_words` says nothing) and that visit's window has not passed.
+
+    Returns counts: `created`; `replanned`, the open orders whose date, window or kind really moved
+    (those and the ones whose reason changed are written); `visits`, the visits those orders are in;
+    `open_visits`, every open visit at the user's sites after the plan (the work-orders page's count);
+    `kept_cancelled`, capacitors not ordered again; `kept_moved`, orders put on a moved visit's day.
     """
     today = today or timezone.localdate()
     due = list(
@@ -54,48 +70,112 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             "read_again",
         )
     )
-    due_ids = [d[0] for d in due]
+    due_ids = np.asarray([d[0] for d in due], np.int64)
+    counts = {"created": 0, "replanned": 0, "visits": 0, "kept_cancelled": 0, "kept_moved": 0}
     with transaction.atomic():
         # Two plans at once take turns per capacitor (its row locked) and read the open orders
         # after: the second re-dates the orders the first created instead of creating them
         # again (one open order per capacitor and kind).
-        locked = FittedCapacitor.objects.select_for_update().filter(pk__any_of=np.asarray(due_ids, np.int64))
+        locked = FittedCapacitor.objects.select_for_update().filter(pk__any_of=due_ids)
         list(locked.order_by("pk").values_list("pk", flat=True))
         # A capacitor's open order: an issued one is left as it is; a planned one follows the plan
         # (its kind too: "read again" becomes "replace" once a reading shows the capacitor past its limit).
-        open_orders = {}
+        open_by_capacitor = {}
         for o in WorkOrder.objects.filter(
-            fitted_capacitor_id__any_of=np.asarray(due_ids, np.int64), state__in=OPEN, kind__in=CAPACITOR_KINDS
+            fitted_capacitor_id__any_of=due_ids, state__in=OPEN, kind__in=CAPACITOR_KINDS
         ).order_by("state"):  # "issued" before "planned": an issued order wins
-            open_orders.setdefault(o.fitted_capacitor_id, o)
-        was = {o.pk: (o.due_on, o.window_days, o.kind, o.reason) for o in open_orders.values()}
-        items, new_orders, replanned = [], [], []
+            open_by_capacitor.setdefault(o.fitted_capacitor_id, o)
+        cancelled = _cancelled_orders(due_ids, today)
+        was = {o.pk: (o.due_on, o.window_days, o.kind, o.moved_from, o.reason) for o in open_by_capacitor.values()}
+        items, new_orders, replanned, not_again = [], [], [], []
         for fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, reason, reread in due:
-            existing = open_orders.get(fitted_capacitor_id)
+            existing = open_by_capacitor.get(fitted_capacitor_id)
             if existing is not None and existing.state == WorkOrder.State.ISSUED:
                 continue
             order = existing or WorkOrder(motor_id=motor_id, fitted_capacitor_id=fitted_capacitor_id, created_by=user)
             order.kind = WorkOrder.Kind.READ_AGAIN if reread else KIND_FOR_ROLE[role]
             order.reason = f"{risk}: {reason}"[: WorkOrder._meta.get_field("reason").max_length]
+            if existing is None and fitted_capacitor_id in cancelled:
+                not_again.append((cancelled[fitted_capacitor_id], order.kind, risk, reread, replace_by))
             items.append((site_id, (max(replace_by, today) - today).days, order))
             (replanned if existing else new_orders).append(order)
-        if not items:
-            return {"created": 0, "replanned": 0, "visits": 0}
-        visit, visit_day = bundle_visits(
-            np.array([i[0] for i in items]),
-            np.array([i[1] for i in items]),
-            window_days,
-            today=today,
-            weekmask=PlanningSettings().working_days,
-        )
-        for (_, _, order), day in zip(items, visit_day, strict=True):
-            order.due_on = today + dt.timedelta(days=int(day))
-            order.window_days = window_days
-        changed = [o for o in replanned if (o.due_on, o.window_days, o.kind, o.reason) != was[o.pk]]
-        replanned = [o for o in changed if (o.due_on, o.window_days, o.kind) != was[o.pk][:3]]
-        audited_bulk_create(new_orders)
-        audited_bulk_update(changed, ["due_on", "window_days", "kind", "reason"])
-    return {"created": len(new_orders), "replanned": len(replanned), "visits": len(set(visit.tolist()))}
+        kept = _still_cancelled(not_again, today)
+        if kept:
+            items = [item for item in items if item[2].fitted_capacitor_id not in kept]
+            new_orders = [o for o in new_orders if o.fitted_capacitor_id not in kept]
+        counts["kept_cancelled"] = len(kept)
+        if items:
+            _, visit_day = bundle_visits(
+                np.array([i[0] for i in items]),
+                np.array([i[1] for i in items]),
+                window_days,
+                today=today,
+                weekmask=PlanningSettings().working_days,
+            )
+            moves = _moved_visits({i[0] for i in items}, today)
+            for (site_id, _, order), day in zip(items, visit_day, strict=True):
+                planned_on = today + dt.timedelta(days=int(day))
+                moved_to = moves.get((site_id, planned_on))
+                order.due_on, order.moved_from = (planned_on, None) if moved_to is None else (moved_to, planned_on)
+                order.window_days = window_days
+                counts["kept_moved"] += moved_to is not None
+            changed = [o for o in replanned if (o.due_on, o.window_days, o.kind, o.moved_from, o.reason) != was[o.pk]]
+            replanned = [o for o in changed if (o.due_on, o.window_days, o.kind) != was[o.pk][:3]]
+            audited_bulk_create(new_orders)
+            audited_bulk_update(changed, ["due_on", "window_days", "kind", "moved_from", "reason"])
+            counts["created"], counts["replanned"] = len(new_orders), len(replanned)
+            counts["visits"] = len(_visits_of(items, new_orders + replanned))
+    counts["open_visits"] = open_orders(user).values("due_on", "site_id").distinct().count()
+    return counts
+
+
+def _visits_of(items, orders) -> set[tuple]:
+    """The visits (site id, day) that `orders` (some of the plan's `items`) are in."""
+    written = {id(o) for o in orders}
+    return {(site_id, order.due_on) for site_id, _, order in items if id(order) in written}
+
+
+def _cancelled_orders(fitted_capacitor_ids, today: dt.date) -> dict[int, WorkOrder]:
+    """Each capacitor's latest order the planner cancelled whose visit's window has not passed."""
+    latest = {}
+    for order in WorkOrder.objects.filter(
+        fitted_capacitor_id__any_of=fitted_capacitor_ids,
+        state=WorkOrder.State.CANCELLED,
+        kind__in=CAPACITOR_KINDS,
+        due_on__gte=today - dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS),
+    ).order_by("closed_at", "id"):
+        if order.due_on + dt.timedelta(days=order.window_days) >= today:
+            latest[order.fitted_capacitor_id] = order
+    return latest
+
+
+def _still_cancelled(candidates, today: dt.date) -> set[int]:
+    """The capacitors whose cancelled order the plan asks for again, same work in the same visit: the
+    planner's cancellation holds for them (`planning.plan_moved_words`, the rule that says where an open
+    order is no longer what the plan asks)."""
+    if not candidates:
+        return set()
+    words = plan_moved_words(
+        order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o, *_ in candidates],
+        order_due_days=[(o.due_on - today).days for o, *_ in candidates],
+        window_days=[o.window_days for o, *_ in candidates],
+        plan_risk=[risk for _, _, risk, _, _ in candidates],
+        plan_read_again=[bool(reread) for *_, reread, _ in candidates],
+        plan_due_days=[(replace_by - today).days for *_, replace_by in candidates],
+        today=today,
+    )
+    return {
+        o.fitted_capacitor_id
+        for (o, kind, *_), text in zip(candidates, words, strict=True)
+        if not text and o.kind == kind
+    }
+
+
+def _moved_visits(site_ids, today: dt.date) -> dict[tuple, dt.date]:
+    """(site id, day the plan had put a visit on) -> the day the planner moved it to, from the open orders
+    of moved visits at these sites (a move to a day now past is left to the plan)."""
+    moved = WorkOrder.objects.filter(site_id__in=site_ids, state__in=OPEN, moved_from__isnull=False, due_on__gte=today)
+    return {(site_id, was): day for site_id, was, day in moved.values_list("site_id", "moved_from", "due_on")}
 
 
 def close_read_again_orders(*, fitted_capacitor_ids, user=None) -> int:
@@ -122,11 +202,69 @@ def issue_visit(*, site_id: int, due_on: dt.date, user=None) -> int:
     return audited_update(planned, state=WorkOrder.State.ISSUED)
 
 
-def _open_orders(user=None):
+def cancel_order(*, order_id: int, reason: str, user=None) -> WorkOrder:
+    """Cancel one open order at a site `user` works at (None: any), keeping it as cancelled with the
+    planner's reason, who and when (never deleted: the audit trail and the re-plan read it). Bad input is a
+    ValidationError by field: `reason` (required, at most the field's length), `order` (none such open)."""
+    reason = (reason or "").strip()
+    limit = WorkOrder._meta.get_field("cancel_reason").max_length
+    if not reason:
+        raise ValidationError({"reason": "Say why it is cancelled (kept with the order, for whoever plans next)."})
+    if len(reason) > limit:
+        raise ValidationError({"reason": f"The reason takes at most {limit} characters ({len(reason)} given)."})
+    with transaction.atomic():
+        order = open_orders(user).select_for_update(of=("self",)).filter(pk__in=storable_ids([order_id])).first()
+        if order is None:
+            raise ValidationError({"order": "That work order is not open at your sites: it was closed or cancelled."})
+        audited_update(
+            WorkOrder.objects.filter(pk=order.pk),
+            state=WorkOrder.State.CANCELLED,
+            closed_at=timezone.now(),
+            closed_by=user if user is not None and user.is_authenticated else None,
+            cancel_reason=reason,
+        )
+    order.refresh_from_db()
+    return order
+
+
+def move_visit(
+    *, site_id: int, due_on: dt.date, to_day: dt.date | None, user=None, today: dt.date | None = None
+) -> int:
+    """Move a whole visit, every open order of a site on `due_on`, to `to_day` (a working day, not in the
+    past, within the plan's reach: `planning.visit_day_problem`), at a site `user` works at (None: any).
+    Each order keeps all else and remembers the day the plan had put it on (`moved_from`, kept through a
+    second move), so the next plan keeps the move. Onto a day the site already has a visit, the two become
+    one. Returns the number of orders moved; bad input is a ValidationError by field (`to_day`, `visit`)."""
+    today = today or timezone.localdate()
+    if to_day is None:
+        raise ValidationError({"to_day": "Enter the day to move the visit to, e.g. 2026-12-24."})
+    problem = visit_day_problem(to_day, today, PlanningSettings().working_days)
+    if not problem and to_day == due_on:
+        problem = f"The visit is on {to_day.isoformat()} already: choose another day."
+    if problem:
+        raise ValidationError({"to_day": problem})
+    with transaction.atomic():
+        orders = list(
+            open_orders(user)
+            .select_for_update(of=("self",))
+            .filter(site_id__in=storable_ids([site_id]), due_on=due_on)
+            .order_by("pk")
+        )
+        if not orders:
+            raise ValidationError({"visit": "That visit has no open work orders at your sites: reload the page."})
+        for order in orders:
+            order.moved_from = order.moved_from or order.due_on
+            order.due_on = to_day
+        audited_bulk_update(orders, ["due_on", "moved_from"])
+    return len(orders)
+
+
+def open_orders(user=None):
+    """The open (planned or issued) orders at the sites `user` works at (None: every site)."""
     return scope_to_user(WorkOrder.objects.all(), user).filter(state__in=OPEN)
 
 
-def _with_current_plan(orders):
+def with_current_plan(orders):
     """`orders` with their capacitor's current assessment's risk, replace-by date and "read again" word
     (one subquery each, in the same query)."""
     current = Assessment.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), is_current=True)
@@ -138,7 +276,7 @@ def _with_current_plan(orders):
 
 
 def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
-    """The orders (read by `_with_current_plan`) as a list, each with `plan_now`: in words, what the
+    """The orders (read by `with_current_plan`) as a list, each with `plan_now`: in words, what the
     capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
     where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule."""
     orders = list(orders)
@@ -163,13 +301,22 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
     return orders
 
 
-def _spares(orders) -> dict[tuple, list[dict]]:
-    """Parts each visit (day, site id) takes, counted in SQL from each order's stored part (the open
-    orders' index alone), then named from the few parts, with what the site holds (`SiteStock`, one
-    query) and the shortfall: each `{"code", "quantity", "held", "short"}`."""
-    spares: dict[tuple, list[dict]] = {}
+def _spares(orders, visits) -> dict[tuple, list[dict]]:
+    """Parts each visit (day, site id) of `visits` takes, counted in SQL from each order's stored part (the
+    open orders' index alone), then named from the few parts, with what the site holds (`SiteStock`, one
+    query) and the shortfall: each `{"code", "quantity", "held", "earlier", "left", "short"}`. The site's
+    stock goes to its open visits in date order: `earlier` is what its earlier open visits take of the part,
+    `left` what the stock leaves for this visit, `short` what it lacks ([trade] spares are drawn from one
+    store visit after visit; our rule: the earliest visit first)."""
+    if not visits:
+        return {}
+    wanted = set(visits)
     rows = list(
-        orders.filter(fitted_capacitor__isnull=False)
+        orders.filter(
+            fitted_capacitor__isnull=False,
+            site_id__in={site_id for _, site_id in wanted},
+            due_on__lte=max(day for day, _ in wanted),
+        )
         .values_list("due_on", "site_id", "part_id", "part__code")
         .annotate(quantity=Count("id"))
         .order_by("due_on", "site_id", "part__code")
@@ -180,10 +327,23 @@ def _spares(orders) -> dict[tuple, list[dict]]:
             site_id__in={site_id for site_id, _ in held}, part_id__in={part_id for _, part_id in held}
         ).values_list("site_id", "part_id", "quantity")
         held.update({(site_id, part_id): quantity for site_id, part_id, quantity in stock})
+    taken = dict.fromkeys(held, 0)
+    spares: dict[tuple, list[dict]] = {}
     for day, site_id, part_id, code, quantity in rows:
-        on_site = held[(site_id, part_id)]
+        on_site, earlier = held[(site_id, part_id)], taken[(site_id, part_id)]
+        taken[(site_id, part_id)] += quantity
+        if (day, site_id) not in wanted:
+            continue
+        left = max(on_site - earlier, 0)
         spares.setdefault((day, site_id), []).append(
-            {"code": code, "quantity": quantity, "held": on_site, "short": max(quantity - on_site, 0)}
+            {
+                "code": code,
+                "quantity": quantity,
+                "held": on_site,
+                "earlier": earlier,
+                "left": left,
+                "short": max(quantity - left, 0),
+            }
         )
     return spares
 
@@ -192,13 +352,13 @@ def open_visit(site_id: int, day: dt.date, user=None) -> dict:
     """One visit's open orders at a site the user works at: the visit sheet. `orders` is a queryset in
     walking order, to read a page at a time (empty: no such visit); `spares` covers the whole visit."""
     orders = (
-        _open_orders(user)
+        open_orders(user)
         .filter(site_id=site_id, due_on=day)
         .select_related("motor", "site", "fitted_capacitor__part")
         .order_by(*WALKING_ORDER)
     )
-    spares = _spares(orders).get((day, site_id), [])
-    return {"day": day, "orders": _with_current_plan(orders), "spares": spares}
+    spares = _spares(open_orders(user), [(day, site_id)]).get((day, site_id), [])
+    return {"day": day, "orders": with_current_plan(orders), "spares": spares}
 
 
 # A visit's orders as the technician walks them: the motors' route order, then tag (stored on each order).
@@ -229,7 +389,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     the visits are grouped and counted in SQL, the orders cut per visit by a window function over the
     orders alone (by their stored walking order, from the open orders' index), then the orders shown are
     read with their motors and current plans."""
-    orders = _open_orders(user)
+    orders = open_orders(user)
     visits = (
         orders.values("due_on", "site_id", "site__code")
         .annotate(count=Count("id"), planned=Count("id", filter=Q(state=WorkOrder.State.PLANNED)))
@@ -251,7 +411,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
         .values_list("id", flat=True)
     )
     listed = with_plan_now(
-        _with_current_plan(
+        with_current_plan(
             WorkOrder.objects.filter(id__in=shown)
             .select_related("motor", "site", "fitted_capacitor__part")
             .only(*LISTED_ORDER_FIELDS)
@@ -261,7 +421,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
         by_visit.setdefault((order.due_on, order.site_id), []).append(order)
-    spares = _spares(orders.filter(in_page))
+    spares = _spares(orders, keys)
     page.object_list = [
         {
             "day": day,

@@ -6,7 +6,7 @@ import datetime as dt
 
 from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
-from django.core.exceptions import PermissionDenied
+from django.core.exceptions import PermissionDenied, ValidationError
 from django.core.paginator import Paginator
 from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
@@ -17,13 +17,26 @@ from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import list_page, plan_parameters
-from fleet.models import Site
+from fleet.forms import CancelOrderForm, MoveVisitForm
+from fleet.models import Site, WorkOrder
 from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services import pages
+from fleet.services.bulk import storable_ids
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
 from fleet.services.substitutes import part_families
-from fleet.services.workorders import issue_visit, open_visit, open_visits_page, plan_work_orders, with_plan_now
+from fleet.services.workorders import (
+    OPEN,
+    cancel_order,
+    issue_visit,
+    move_visit,
+    open_orders,
+    open_visit,
+    open_visits_page,
+    plan_work_orders,
+    with_current_plan,
+    with_plan_now,
+)
 
 VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 
@@ -64,13 +77,7 @@ def work_orders(request):
             if problems:
                 messages.error(request, f"No work orders planned: {'; '.join(problems)}.")
                 return redirect("work_orders")
-            counts = plan_work_orders(horizon_days=horizon, user=request.user)
-            created, replanned, visits = counts["created"], counts["replanned"], counts["visits"]
-            messages.success(
-                request,
-                f"{created} work order{pluralize(created)} created, {replanned} re-dated, "
-                f"in {visits} site visit{pluralize(visits)}.",
-            )
+            messages.success(request, plan_message(plan_work_orders(horizon_days=horizon, user=request.user)))
         elif action == "issue":
             try:
                 day = dt.date.fromisoformat(request.POST.get("day", ""))
@@ -92,20 +99,92 @@ def work_orders(request):
     )
 
 
+def plan_message(counts: dict) -> str:
+    """What a plan did, in words that agree with the work-orders page: the visits its new and re-dated
+    orders are in, then every open visit the page lists; the planner's cancellations and moves it kept."""
+    created, replanned, touched, listed = (counts[k] for k in ("created", "replanned", "visits", "open_visits"))
+    if created or replanned:
+        done = (
+            f"{created} work order{pluralize(created)} created and {replanned} re-dated, "
+            f"in {touched} site visit{pluralize(touched)}"
+        )
+    else:
+        done = "No work orders created or re-dated"
+    words = [f"{done}; {listed} open site visit{pluralize(listed)} in all."]
+    if counts["kept_cancelled"]:
+        n = counts["kept_cancelled"]
+        words.append(f"{n} order{pluralize(n)} you cancelled not created again (the plan asks the same in that visit).")
+    if counts["kept_moved"]:
+        n = counts["kept_moved"]
+        words.append(f"{n} order{pluralize(n)} kept on the day {pluralize(n, 'its,their')} visit was moved to.")
+    return " ".join(words)
+
+
 @permission_required("fleet.view_workorder", raise_exception=True)
 def visit_sheet(request, site_code, day):
-    """A printable sheet for one site visit: the orders (a page at a time), the spares, the cautions."""
+    """A printable sheet for one site visit: the orders (a page at a time), the spares, the cautions; the
+    planner moves the whole visit to another day from it (a public holiday: visits skip weekends only)."""
     site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     try:
-        visit = open_visit(site.id, dt.date.fromisoformat(day), user=request.user)
+        day = dt.date.fromisoformat(day)
     except ValueError:
         raise Http404("No open work orders for that visit") from None
+    move_form = MoveVisitForm(request.POST if request.method == "POST" else None)
+    if request.method == "POST":
+        if not request.user.has_perm("fleet.add_workorder"):  # planning is the planner's
+            raise PermissionDenied
+        if move_form.is_valid():
+            to_day = move_form.cleaned_data["to_day"]
+            try:
+                moved = move_visit(site_id=site.id, due_on=day, to_day=to_day, user=request.user)
+            except ValidationError as error:
+                if "visit" in error.message_dict:
+                    messages.error(request, " ".join(error.message_dict["visit"]))
+                    return redirect("work_orders")
+                move_form.add_error("to_day", error.message_dict["to_day"])
+            else:
+                messages.success(
+                    request,
+                    f"Visit moved from {day:%a %Y-%m-%d} to {to_day:%a %Y-%m-%d}: "
+                    f"{moved} work order{pluralize(moved)}. A new plan keeps the move.",
+                )
+                return redirect("visit_sheet", site_code=site.code, day=to_day.isoformat())
+    visit = open_visit(site.id, day, user=request.user)
     paginator = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE)
     if not paginator.count:
         raise Http404("No open work orders for that visit")
     page = list_page(request, paginator.get_page)
     page.object_list = with_plan_now(page.object_list)
-    return render(request, "fleet/visit_sheet.html", {"visit": visit, "site": site, "page": page})
+    context = {"visit": visit, "site": site, "page": page, "move_form": move_form}
+    return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
+
+
+@permission_required("fleet.add_workorder", raise_exception=True)
+def work_order_cancel(request, order_id):
+    """The planner cancels one open work order, saying why (kept with the order; it is never deleted)."""
+    order = get_object_or_404(
+        scope_to_user(WorkOrder.objects.select_related("motor", "site"), request.user).filter(
+            pk__in=storable_ids([order_id])
+        )
+    )
+    if order.state not in OPEN:  # sent twice, or closed since the page was opened
+        messages.info(request, f"That work order is {order.get_state_display().lower()} already.")
+        return redirect("work_orders")
+    form = CancelOrderForm(request.POST or None)
+    if request.method == "POST" and form.is_valid():
+        try:
+            cancel_order(order_id=order.id, reason=form.cleaned_data["reason"], user=request.user)
+        except ValidationError as error:
+            for field, field_messages in error.message_dict.items():
+                form.add_error("reason" if field == "reason" else None, field_messages)
+        else:
+            messages.success(request, f"Work order cancelled: {order.get_kind_display()} {order.motor.asset_tag}.")
+            if open_orders(request.user).filter(site_id=order.site_id, due_on=order.due_on).exists():
+                return redirect("visit_sheet", site_code=order.site.code, day=order.due_on.isoformat())
+            return redirect("work_orders")
+    order = with_plan_now(with_current_plan(WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site")))[0]
+    context = {"order": order, "form": form}
+    return render(request, "fleet/work_order_cancel.html", context, status=400 if form.errors else 200)
 
 
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)

@@ -1,6 +1,6 @@
 """Every page, as each role, on a phone (390 px) and a desktop (1366 px): the page itself never scrolls
-sideways (wide tables scroll in their own box), no date or asset tag breaks over two lines, back links
-are 44 px tall targets, the menu keeps to one row at 1366 px, no script error; a refused
+sideways (wide tables scroll in their own box), no date or asset tag breaks over two lines, no markup in
+the title, back links are 44 px tall targets, the menu keeps to one row at 1366 px, no script error; a refused
 reading puts its summary of what to put right in view, above the cautions.
 
 The pages are found as a user finds them: from the home page, following the links each role sees
@@ -31,7 +31,8 @@ PER_KIND = 2
 SCREENSHOTS = os.environ.get("FLEET_TEST_SCREENSHOTS", "1") != "0"
 EXPECTED_KINDS = {
     *("home", "find-tag", "motor", "fitted_capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
-    *("plan", "work_orders", "visit_sheet", "life_data", "life_data-part", "track_record", "refits"),
+    *("plan", "work_orders", "visit_sheet", "work_order_cancel", "life_data", "life_data-part", "track_record"),
+    "refits",
     *("imports", "import_detail", "site_stock", "stand_in_parts"),
 }
 
@@ -66,7 +67,7 @@ MEASURE = r"""() => {
   const wide = [...document.querySelectorAll("body *")]
     .filter((e) => e.getBoundingClientRect().right > view + 1 && !e.closest(".table-scroll"))
     .slice(0, 3).map((e) => e.tagName.toLowerCase() + "." + e.className);
-  return {page: document.documentElement.scrollWidth, view, wrapped, wide, lowBacks, menuRows};
+  return {page: document.documentElement.scrollWidth, view, wrapped, wide, lowBacks, menuRows, title: document.title};
 }"""
 
 
@@ -101,6 +102,8 @@ def _measure(page, path, width, problems, shot_name=None):
         problems.append(f"{width} px {path}: date or tag over two lines: {wrapped}")
     for back in found["lowBacks"]:
         problems.append(f"{width} px {path}: back link under 44 px tall: {back}")
+    if re.search(r"<|&[a-z]+;|&#", found["title"]):  # the tab read `Visit CST <span class="nowrap">...`
+        problems.append(f"{width} px {path}: markup in the title: {found['title']}")
     if width >= 1366 and found["menuRows"] > 1:
         problems.append(f"{width} px {path}: the menu takes {found['menuRows']} rows")
     if shot_name and SCREENSHOTS:

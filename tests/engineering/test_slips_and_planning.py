@@ -226,3 +226,21 @@ def test_visit_days_fall_on_working_days():
     assert (saturday + dt.timedelta(days=int(day[0]))).weekday() == 0
     _, day = bundle_visits(np.array(["A"]), np.array([0.0]), 14, today=saturday, weekmask="1111110")
     assert day.tolist() == [0.0]  # a site that works Saturdays
+
+
+def test_a_visit_moves_only_to_a_working_day_from_today_within_the_plans_reach():
+    """[trade] a visit is sent on a working day, never into the past; our reach: the plan's 730 days.
+    Where the working week is Sunday to Thursday (numpy's weekmask, Monday first), a Friday is refused."""
+    from fleet.engineering.planning import PLAN_HORIZON_DAYS, visit_day_problem
+
+    thursday = dt.date(2026, 12, 24)
+    assert visit_day_problem(thursday, thursday) == ""
+    assert "is a Saturday" in visit_day_problem(dt.date(2026, 12, 26), thursday)
+    assert "is in the past" in visit_day_problem(thursday - dt.timedelta(days=1), thursday)
+    far = thursday + dt.timedelta(days=PLAN_HORIZON_DAYS[1] + 7)
+    while far.weekday() >= 5:
+        far += dt.timedelta(days=1)
+    assert "past the plan's reach" in visit_day_problem(far, thursday)
+    sunday_to_thursday = "1111001"
+    assert "is a Friday" in visit_day_problem(dt.date(2026, 12, 25), thursday, sunday_to_thursday)
+    assert visit_day_problem(dt.date(2026, 12, 27), thursday, sunday_to_thursday) == ""

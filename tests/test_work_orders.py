@@ -1,0 +1,294 @@
+"""Work orders as the planner handles them: the spares a site's visits take in turn, cancelling an order,
+moving a whole visit, what a plan says it did, a "read again" order's link, the visit page's title."""
+
+import datetime as dt
+import re
+
+import pytest
+from django.core.exceptions import ValidationError
+from django.urls import reverse
+from django.utils import timezone
+
+from fleet.models import Assessment, AuditEntry, SiteStock, WorkOrder
+from fleet.services.workorders import (
+    cancel_order,
+    move_visit,
+    open_visit,
+    open_visits_page,
+    plan_work_orders,
+)
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, stored_assessment
+
+pytestmark = pytest.mark.django_db
+
+# A Monday three weeks before a Friday that is a public holiday in many countries (our scenario).
+MONDAY = dt.date(2026, 12, 7)
+HOLIDAY = dt.date(2026, 12, 25)
+
+
+def _orders(site, part, day, count, state="planned"):
+    for _ in range(count):
+        capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=part)
+        WorkOrder.objects.create(
+            motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=day, state=state
+        )
+
+
+def _due(site, replace_by, count, read_again=False):
+    """Capacitors at `site` whose current plan says replace (or read again) by `replace_by`."""
+    capacitors = [make_fitted_capacitor(motor=make_motor(site=site)) for _ in range(count)]
+    for capacitor in capacitors:
+        stored_assessment(capacitor, "due soon", replace_by)
+        Assessment.objects.filter(fitted_capacitor=capacitor, is_current=True).update(read_again=read_again)
+    return capacitors
+
+
+def test_a_sites_stock_goes_to_its_open_visits_in_date_order():
+    """The cool store held 2 run capacitors; its 12-10 visit took 6 ("4 short") and its 12-25 visit 2,
+    shown as "holds 2, not short": the first visit uses the stock up. [trade] spares come from one site
+    store, visit after visit; our rule: the earliest open visit draws first. Another site's visits and
+    another part do not count."""
+    site, elsewhere = make_site(code="CST"), make_site(code="GH1")
+    run, start = make_part(code="RUN-30U-450"), make_part(code="START-143U-330")
+    first, second = MONDAY + dt.timedelta(days=3), HOLIDAY
+    _orders(site, run, first, 6)
+    _orders(site, start, first, 1)
+    _orders(site, run, second, 2, state="issued")
+    _orders(elsewhere, run, first, 5)
+    SiteStock.objects.create(site=site, part=run, quantity=2)
+    SiteStock.objects.create(site=site, part=start, quantity=3)
+    SiteStock.objects.create(site=elsewhere, part=run, quantity=9)
+    visits = {(v["site"].code, v["day"]): v["spares"] for v in open_visits_page(1).object_list}
+    assert visits[("CST", first)] == [
+        {"code": "RUN-30U-450", "quantity": 6, "held": 2, "earlier": 0, "left": 2, "short": 4},
+        {"code": "START-143U-330", "quantity": 1, "held": 3, "earlier": 0, "left": 3, "short": 0},
+    ]
+    later = [{"code": "RUN-30U-450", "quantity": 2, "held": 2, "earlier": 6, "left": 0, "short": 2}]
+    assert visits[("CST", second)] == later
+    assert visits[("GH1", first)][0]["short"] == 0
+    # The later visit alone, on its own page of visits and on its visit sheet, still counts the earlier one.
+    one_a_page = [open_visits_page(n, per_page=1).object_list[0] for n in (1, 2, 3)]
+    assert [v["spares"] for v in one_a_page if v["day"] == second] == [later]
+    assert open_visit(site.id, second)["spares"] == later
+
+
+def test_the_planner_cancels_an_order_with_a_reason_and_the_plan_does_not_order_it_again(planner):
+    """The README promised an open order the plan no longer asks for is "for the planner to cancel or
+    keep", with no way to cancel. [trade] a cancelled work order is kept, with why, who and when (never
+    deleted). Our rule: the next plan does not order the same work for the same visit again, and says so;
+    it orders again when the plan asks for other work or a later visit."""
+    today = timezone.localdate()
+    site = make_site(code="CAN")
+    (capacitor,) = _due(site, today + dt.timedelta(days=10), 1)
+    plan_work_orders(horizon_days=90, user=planner, today=today)
+    order = WorkOrder.objects.get(fitted_capacitor=capacitor)
+    for reason, says in (("  ", "Say why"), ("x" * 201, "at most 200 characters")):
+        with pytest.raises(ValidationError) as refused:
+            cancel_order(order_id=order.id, reason=reason, user=planner)
+        assert says in refused.value.message_dict["reason"][0]
+    assert WorkOrder.objects.get(pk=order.pk).state == "planned"
+    cancelled = cancel_order(order_id=order.id, reason="motor to be scrapped in January", user=planner)
+    assert (cancelled.state, cancelled.cancel_reason, cancelled.closed_by) == (
+        "cancelled",
+        "motor to be scrapped in January",
+        planner,
+    )
+    assert cancelled.closed_at is not None and WorkOrder.objects.filter(pk=order.pk).exists()
+    entry = AuditEntry.objects.get(model="fleet.workorder", object_id=str(order.pk), action="update")
+    assert entry.changes["state"] == ["planned", "cancelled"]
+    assert entry.changes["cancel_reason"] == [None, "motor to be scrapped in January"]
+    with pytest.raises(ValidationError) as twice:
+        cancel_order(order_id=order.id, reason="again", user=planner)
+    assert "not open" in twice.value.message_dict["order"][0]
+
+    again = plan_work_orders(horizon_days=90, user=planner, today=today)
+    assert (again["created"], again["kept_cancelled"]) == (0, 1)
+    assert not WorkOrder.objects.filter(fitted_capacitor=capacitor, state__in=["planned", "issued"]).exists()
+    # The plan now asks for other work (read it again first): that is a new order.
+    Assessment.objects.filter(fitted_capacitor=capacitor, is_current=True).update(read_again=True)
+    assert plan_work_orders(horizon_days=90, user=planner, today=today)["created"] == 1
+    assert WorkOrder.objects.get(fitted_capacitor=capacitor, state="planned").kind == "read_again"
+
+
+def test_a_cancelled_order_is_ordered_again_for_a_later_visit(planner):
+    """[derived] The cancellation holds for its visit only: once the plan dates the capacitor past that
+    visit's window, the plan orders it again."""
+    today = timezone.localdate()
+    (capacitor,) = _due(make_site(code="LATER"), today + dt.timedelta(days=10), 1)
+    plan_work_orders(horizon_days=90, user=planner, today=today)
+    cancel_order(order_id=WorkOrder.objects.get().id, reason="parts not in yet", user=planner)
+    stored_assessment(capacitor, "due soon", today + dt.timedelta(days=60))
+    counts = plan_work_orders(horizon_days=90, user=planner, today=today)
+    assert (counts["created"], counts["kept_cancelled"]) == (1, 0)
+    assert WorkOrder.objects.get(state="planned").due_on > today + dt.timedelta(days=24)
+
+
+def test_the_planner_moves_a_visit_off_a_holiday_and_the_plan_keeps_the_move(planner):
+    """The demo put all three sites' visits on Fri 2026-12-25 (visits skip weekends only) and nothing
+    moved them. [trade] a visit is not sent on a public holiday; the planner moves it. Our rules: the whole
+    visit moves (every open order, nothing else changes), to a working day not in the past; the next plan
+    keeps the move and puts orders it adds to that visit on the new day too."""
+    site = make_site(code="XMAS")
+    capacitors = _due(site, HOLIDAY, 2)
+    plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {HOLIDAY}
+    WorkOrder.objects.filter(fitted_capacitor=capacitors[1]).update(state="issued")
+    before = {o.pk: (o.kind, o.reason, o.state, o.window_days) for o in WorkOrder.objects.all()}
+    saturday, past = dt.date(2026, 12, 19), MONDAY - dt.timedelta(days=1)
+    problems = {
+        saturday: "is a Saturday: visits are on working days",
+        past: "is in the past",
+        HOLIDAY: "on 2026-12-25 already",
+        MONDAY + dt.timedelta(days=800): "past the plan's reach",
+    }
+    for day, says in problems.items():
+        with pytest.raises(ValidationError) as refused:
+            move_visit(site_id=site.id, due_on=HOLIDAY, to_day=day, user=planner, today=MONDAY)
+        assert says in refused.value.message_dict["to_day"][0], day
+    with pytest.raises(ValidationError) as unknown:
+        move_visit(site_id=site.id, due_on=HOLIDAY - dt.timedelta(days=1), to_day=HOLIDAY, user=planner, today=MONDAY)
+    assert "no open work orders" in unknown.value.message_dict["visit"][0]
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {HOLIDAY}  # nothing moved half-way
+
+    eve = HOLIDAY - dt.timedelta(days=1)
+    assert move_visit(site_id=site.id, due_on=HOLIDAY, to_day=eve, user=planner, today=MONDAY) == 2
+    orders = list(WorkOrder.objects.all())
+    assert {(o.due_on, o.moved_from) for o in orders} == {(eve, HOLIDAY)}
+    assert {o.pk: (o.kind, o.reason, o.state, o.window_days) for o in orders} == before
+    assert AuditEntry.objects.filter(model="fleet.workorder", action="update", changes__has_key="due_on").count() == 2
+
+    # The plan run again: nothing re-dated, and a capacitor it adds to that visit goes on the new day.
+    (added,) = _due(site, HOLIDAY + dt.timedelta(days=3), 1)
+    counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert (counts["created"], counts["replanned"], counts["kept_moved"]) == (1, 0, 2)
+    assert WorkOrder.objects.get(fitted_capacitor=added).due_on == eve
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {eve}
+    # Moved again, it still remembers the plan's day; the plan still keeps it.
+    move_visit(site_id=site.id, due_on=eve, to_day=eve - dt.timedelta(days=1), user=planner, today=MONDAY)
+    assert set(WorkOrder.objects.values_list("moved_from", flat=True)) == {HOLIDAY}
+    assert plan_work_orders(horizon_days=90, user=planner, today=MONDAY)["replanned"] == 0
+    # The plan changes (a later replace-by for all): the orders follow the plan, and the move is let go.
+    for capacitor in [*capacitors, added]:
+        stored_assessment(capacitor, "due soon", HOLIDAY + dt.timedelta(days=30))
+    counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert counts["replanned"] == 2 and counts["kept_moved"] == 0
+    assert WorkOrder.objects.filter(state="planned", moved_from__isnull=True).count() == 2
+
+
+def test_the_plans_message_counts_what_the_page_lists(client, planner):
+    """ "0 work orders created, 2 re-dated, in 9 site visits" stood over a page of 10 visits: the 9 were
+    the visits of the orders the plan looked at. [derived] the message names the visits its new and
+    re-dated orders are in, then every open visit the page lists."""
+    today = timezone.localdate()
+    _due(make_site(code="NEW"), today + dt.timedelta(days=10), 2)
+    issued = make_fitted_capacitor(motor=make_motor(site=make_site(code="OLD")))
+    WorkOrder.objects.create(
+        motor=issued.motor, fitted_capacitor=issued, kind="replace_run", due_on=today, state="issued"
+    )
+    client.force_login(planner)
+    response = client.post(reverse("work_orders"), {"action": "plan", "days": "90"}, follow=True)
+    body = response.content.decode()
+    listed = len(re.findall(r'<details class="card visit"', body))
+    assert listed == 2
+    assert "2 work orders created and 0 re-dated, in 1 site visit; 2 open site visits in all." in body
+    body = client.post(reverse("work_orders"), {"action": "plan", "days": "90"}, follow=True).content.decode()
+    assert "No work orders created or re-dated; 2 open site visits in all." in body
+
+
+def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
+    """A "Read again; replace if past its limit" order linked its part to "Record a replacement". [trade]
+    a suspect reading is confirmed before the capacitor is replaced: the part opens the reading form, and
+    the replacement stays one tap away for after the reading. A replacement order still opens the
+    replacement."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    site = make_site(code="READ")
+    suspect, worn = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2))
+    for capacitor, kind in ((suspect, "read_again"), (worn, "replace_run")):
+        WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind=kind, due_on=day)
+    client.force_login(technician)
+    sheet = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
+    rows = sheet[sheet.index("<tbody>", sheet.index("visit-orders")) :].split("</tr>")
+    assert f'href="{reverse("reading_new", args=[suspect.id])}">{suspect.part.code}</a>' in rows[0]
+    assert f'href="{reverse("replace", args=[suspect.id])}"' in rows[0]  # reachable, after the reading
+    assert f'href="{reverse("replace", args=[worn.id])}">{worn.part.code}</a>' in rows[1]
+    assert "Cancel this order" not in sheet and 'id="move-visit"' not in sheet  # the planner's, not the technician's
+
+
+def test_page_titles_are_plain_text(client, planner):
+    """The visit page's tab read `Visit CST <span class="nowrap">2026-12-10</span>`: a title shows no
+    markup. [derived] every template's title block is checked for the filters that write HTML."""
+    from pathlib import Path
+
+    day = timezone.localdate() + dt.timedelta(days=3)
+    capacitor = make_fitted_capacitor()
+    WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=day)
+    client.force_login(planner)
+    site = capacitor.motor.site
+    for url in (
+        reverse("visit_sheet", args=[site.code, day.isoformat()]),
+        reverse("work_order_cancel", args=[WorkOrder.objects.get().id]),
+    ):
+        title = re.search(r"<title>(.*?)</title>", client.get(url).content.decode(), flags=re.S).group(1)
+        assert "<" not in title and "&lt;" not in title and "nowrap" not in title, title
+    html_filters = re.compile(r"\|(day|nowrap_dates|safe|linebreaks|urlize)\b")
+    for template in Path("templates").rglob("*.html"):
+        for block in re.findall(r"{% block title %}(.*?){% endblock", template.read_text(), flags=re.S):
+            assert not html_filters.search(block) and "<" not in block, (template, block)
+
+
+def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(client, planner, technician):
+    """Bad input is named at its field, never a server error; only the planner moves and cancels."""
+    today = timezone.localdate()
+    site = make_site(code="PAGE")
+    capacitors = _due(site, today + dt.timedelta(days=10), 2)
+    plan_work_orders(horizon_days=90, user=planner, today=today)
+    day = WorkOrder.objects.first().due_on
+    url = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    client.force_login(planner)
+    saturday = today + dt.timedelta(days=(5 - today.weekday()) % 7 or 7)
+    for typed, says in (
+        ("", "Enter the day to move the visit to"),
+        ("soon", "Enter the day as year-month-day"),
+        ((today - dt.timedelta(days=3)).isoformat(), "is in the past"),
+        (saturday.isoformat(), "is a Saturday"),
+    ):
+        response = client.post(url, {"to_day": typed})
+        body = response.content.decode()
+        assert response.status_code == 400, typed
+        field = body[body.index('id="wrap_to_day"') :]
+        assert says in field[: field.index("</ul>")], typed
+    gone = reverse("visit_sheet", args=[site.code, (day + dt.timedelta(days=1)).isoformat()])
+    response = client.post(gone, {"to_day": day.isoformat()}, follow=True)
+    assert response.status_code == 200 and "That visit has no open work orders" in response.content.decode()
+    assert client.post(reverse("visit_sheet", args=[site.code, "2026-02-30"]), {"to_day": "x"}).status_code == 404
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {day}
+
+    working = day + dt.timedelta(days=1)
+    while working.weekday() >= 5:
+        working += dt.timedelta(days=1)
+    response = client.post(url, {"to_day": working.isoformat()}, follow=True)
+    assert response.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, working.isoformat()])
+    assert "Visit moved from" in response.content.decode()
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {working}
+
+    order = WorkOrder.objects.get(fitted_capacitor=capacitors[0])
+    cancel = reverse("work_order_cancel", args=[order.id])
+    assert cancel in response.content.decode()
+    response = client.post(cancel, {"reason": ""})
+    assert response.status_code == 400 and "Say why it is cancelled" in response.content.decode()
+    response = client.post(cancel, {"reason": "motor replaced whole last week"}, follow=True)
+    assert "Work order cancelled" in response.content.decode()
+    assert WorkOrder.objects.get(pk=order.pk).state == "cancelled"
+    entry = AuditEntry.objects.get(
+        model="fleet.workorder", object_id=str(order.pk), action="update", changes__has_key="state"
+    )
+    assert entry.user_id == planner.id  # who cancelled it, from the request as for every change
+    response = client.post(cancel, {"reason": "sent twice"}, follow=True)  # a double tap: said, not refused
+    assert "That work order is cancelled already." in response.content.decode()
+    assert WorkOrder.objects.get(pk=order.pk).cancel_reason == "motor replaced whole last week"
+    assert client.get(reverse("work_order_cancel", args=[10**30])).status_code == 404
+    client.force_login(technician)
+    other = WorkOrder.objects.get(fitted_capacitor=capacitors[1])
+    assert client.post(reverse("work_order_cancel", args=[other.id]), {"reason": "no"}).status_code == 403
+    assert client.post(url, {"to_day": working.isoformat()}).status_code == 403
+    assert WorkOrder.objects.get(pk=other.pk).state == "planned"
