@@ -251,7 +251,7 @@ def test_an_unknown_list_parameter_is_a_400_naming_it_and_the_known_ones(enginee
     response = api_for(engineer).get(address, query)
     assert response.status_code == 400, response.content[:300]
     (name,) = query
-    message = response.json()[name]
+    [message] = response.json()[name]  # a list of messages per field, as every field error of the API
     listed = set(message.rsplit(": ", 1)[1].rstrip(".").split(", "))
     assert takes <= listed and name not in listed
 
