@@ -908,7 +908,7 @@ class Assessment(models.Model):
             ),
         ]
         # Each partial index on current assessments costs every refit an entry a capacitor (about 7 ms of
-        # server CPU a 2,000-capacitor chunk): only the ones the pages read are kept (migration 0050).
+        # server CPU a 2,000-capacitor chunk): only the ones the pages read are kept (migration 0051).
         indexes = [
             # The plan and the API: current assessments soonest first, read a page at a time; totals by
             # date, site, part, risk and fitting date (plan spares, dashboard workload and spares), index only.

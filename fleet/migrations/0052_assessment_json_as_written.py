@@ -33,7 +33,7 @@ def as_jsonb(apps, schema_editor):
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0050_assessment_fewer_current_indexes"),
+        ("fleet", "0051_assessment_fewer_current_indexes"),
     ]
 
     operations = [

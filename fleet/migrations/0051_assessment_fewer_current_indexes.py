@@ -15,7 +15,7 @@ from django.db import migrations, models
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0049_assessment_read_again"),
+        ("fleet", "0050_workorder_cancel_reason_and_visit_moved_from"),
     ]
 
     operations = [
