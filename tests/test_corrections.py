@@ -80,6 +80,23 @@ def test_a_correction_starts_from_the_reading_it_corrects_and_the_chart_draws_th
     assert min(drawn) > 3.5  # the superseded 3.19 (3.2 at 25 C) is not among them
 
 
+def test_the_form_for_a_reading_corrected_before_leads_to_its_newest_correction(
+    client, technician, fan_fitted_capacitor
+):
+    """A technician who opens "correct" on a reading corrected twice is led to the newest correction, the
+    one a correction may replace (a save there would have logged one more reading beside it)."""
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
+    first = record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.9"},
+                           user=technician, supersedes_id=wrong.id)  # fmt: skip
+    second = record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.8"},
+                            user=technician, supersedes_id=first.id)  # fmt: skip
+    client.force_login(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    page = client.get(url, {"corrects": wrong.id}).content.decode()
+    assert "already corrected" in page and f'href="{url}?corrects={second.id}"' in page
+    assert 'id="correct-instead"' not in client.get(url, {"corrects": second.id}).content.decode()
+
+
 def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, fan_fitted_capacitor):
     wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2)
     first = record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.9"},

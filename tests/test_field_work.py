@@ -317,6 +317,17 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
     assert "129.8" not in above and above.endswith(": see Why, above.")
 
 
+def test_the_capacitor_page_reconciles_verdict_and_risk_once(client, engineer, fan_fitted_capacitor):
+    """A green verdict beside a "due soon": one sentence says why (pointing to the Why above it), and the
+    verdict as measured is not stated a second time in the line after it."""
+    stored_assessment(fan_fitted_capacitor, "due soon", timezone.localdate(), reason="trend reaches the limit")
+    client.force_login(engineer)
+    page = strip_tags(client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode())
+    assert page.count("within the marked tolerance") == 1 and "see Why, above" in page
+    assert "Latest reading as measured, against the marking" not in page
+    assert page.lower().count("trend reaches the limit") == 1
+
+
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(
     client, technician, fan_fitted_capacitor
 ):

@@ -212,6 +212,9 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     assert f'href="{reverse("replace", args=[suspect.id])}"' in rows[0]  # reachable, after the reading
     assert f'href="{reverse("replace", args=[worn.id])}">{worn.part.code}</a>' in rows[1]
     assert "Cancel this order" not in sheet and 'id="move-visit"' not in sheet  # the planner's, not the technician's
+    # The work-orders page lists the same orders: there too the read-again part opens the reading form.
+    listed = client.get(reverse("work_orders")).content.decode()
+    assert f'href="{reverse("reading_new", args=[suspect.id])}">{suspect.part.code}</a>' in listed
 
 
 def test_page_titles_are_plain_text(client, planner):
@@ -270,6 +273,10 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
     assert response.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, working.isoformat()])
     assert "Visit moved from" in response.content.decode()
     assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {working}
+    # The sheet printed or bookmarked before the move still leads to the visit, on its new day.
+    old_sheet = client.get(url, follow=True)
+    assert old_sheet.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, working.isoformat()])
+    assert f"was moved to {working:%a %Y-%m-%d}" in old_sheet.content.decode()
 
     order = WorkOrder.objects.get(fitted_capacitor=capacitors[0])
     cancel = reverse("work_order_cancel", args=[order.id])

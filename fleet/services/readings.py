@@ -180,6 +180,19 @@ def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str 
     return reading
 
 
+def newest_correction(fitted_capacitor: FittedCapacitor, reading_id) -> Reading | None:
+    """The last link of the chain of corrections that starts at this capacitor's reading `reading_id`
+    (None where there is no such reading or it was never corrected): the one a correction may replace."""
+    if not (isinstance(reading_id, int) or str(reading_id).isdigit()) or not storable_ids([int(reading_id)]):
+        return None
+    reading = Reading.objects.filter(fitted_capacitor=fitted_capacitor, pk=int(reading_id)).first()
+    newest = None
+    while reading is not None:
+        reading = Reading.objects.filter(supersedes=reading).first()
+        newest = reading or newest
+    return newest
+
+
 def _reading_words(reading: Reading, zone) -> str:
     """A reading as a technician knows it: when it was taken at the site, and its value ("2026-11-02 09:15
     (143.00 µF)", as the readings tables show them)."""

@@ -378,6 +378,7 @@ LISTED_ORDER_FIELDS = (
     "motor__route_order",
     "site__code",
     "site__name",
+    "fitted_capacitor__removed_on",  # a read-again order in service links to the reading form
     "fitted_capacitor__part__code",
 )
 

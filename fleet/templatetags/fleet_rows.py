@@ -74,12 +74,20 @@ WORK_ORDER_ROW = """<tr>
 PLAN_NOW = '<br><b class="plan-now">{}</b>'
 
 
+READING_LINK = '<a class="nowrap part-code" href="{}">{}</a>'
+
+
 @register.simple_tag
-def work_order_rows(orders):
-    """A visit's rows on the work-orders page for `orders` (with their motors and capacitors' parts)."""
+def work_order_rows(orders, can_read=False):
+    """A visit's rows on the work-orders page for `orders` (with their motors and capacitors' parts); a
+    "read again" order's part opens the capacitor's reading form where the user may log one (`can_read`),
+    as the visit sheet's does."""
     rows = []
     for order in orders:
         capacitor = order.fitted_capacitor
+        part = "" if capacitor is None else capacitor.part.code
+        if part and can_read and order.reads_again and capacitor.removed_on is None:
+            part = format_html(READING_LINK, reverse("reading_new", args=[capacitor.id]), part)
         rows.append(
             format_html(
                 WORK_ORDER_ROW,
@@ -87,7 +95,7 @@ def work_order_rows(orders):
                 tag=order.motor.asset_tag,
                 location=order.motor.location,
                 kind=order.get_kind_display(),
-                part="" if capacitor is None else capacitor.part.code,
+                part=part,
                 state=order.get_state_display(),
                 reason=nowrap_dates(order.reason),
                 plan_now=format_html(PLAN_NOW, nowrap_dates(order.plan_now)) if getattr(order, "plan_now", "") else "",

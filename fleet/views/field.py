@@ -23,7 +23,13 @@ from fleet.forms import ReadingForm, ReplacementForm
 from fleet.models import CapacitorPart, Motor, Site
 from fleet.roles import scope_to_user
 from fleet.services import pages
-from fleet.services.readings import NeedsConfirmation, reading_to_correct, record_reading, replace_capacitor
+from fleet.services.readings import (
+    NeedsConfirmation,
+    newest_correction,
+    reading_to_correct,
+    record_reading,
+    replace_capacitor,
+)
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, substitutes_for
@@ -73,6 +79,7 @@ def reading_new(request, fitted_capacitor_id):
         correcting = reading_to_correct(fitted_capacitor, form["supersedes"].value())
     except ValidationError as error:
         correction_problem = " ".join(error.messages)
+    correct_instead = newest_correction(fitted_capacitor, form["supersedes"].value()) if correction_problem else None
     if correcting and not form.is_bound:
         form.start_from(correcting)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()
@@ -86,6 +93,7 @@ def reading_new(request, fitted_capacitor_id):
         "needs_confirmation": needs_confirmation,
         "correcting": correcting,
         "correction_problem": correction_problem,
+        "correct_instead": correct_instead,
         "assessment": assessment,
         "recent": pages.recent_readings(fitted_capacitor),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),

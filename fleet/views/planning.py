@@ -152,6 +152,16 @@ def visit_sheet(request, site_code, day):
     visit = open_visit(site.id, day, user=request.user)
     paginator = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE)
     if not paginator.count:
+        # A printed or bookmarked sheet of a visit the planner moved: on to the day it went to.
+        moved_to = (
+            WorkOrder.objects.filter(site=site, moved_from=day, state__in=OPEN)
+            .order_by("due_on")
+            .values_list("due_on", flat=True)
+            .first()
+        )
+        if moved_to is not None:
+            messages.info(request, f"The visit of {day:%a %Y-%m-%d} was moved to {moved_to:%a %Y-%m-%d}.")
+            return redirect("visit_sheet", site_code=site.code, day=moved_to.isoformat())
         raise Http404("No open work orders for that visit")
     page = list_page(request, paginator.get_page)
     page.object_list = with_plan_now(page.object_list)

@@ -47,6 +47,7 @@ def test_a_printed_visit_sheet_keeps_rows_whole_and_names_the_visit_and_page_on_
     for number, page in enumerate(pages, start=1):
         assert heading in page and f"Page {number} of {len(pages)}" in page
         assert "lethal charge" in page  # the caution runs on every page
+        assert "Move the whole visit" not in page  # the planner's controls stay on the screen, off the paper
     with_orders = [page for page in pages if "PRN-0" in page]
     assert len(with_orders) > 1
     for page in with_orders:
