@@ -64,9 +64,31 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
                 name="set aside (off trend)",
             )
         )
-    figure.add_hline(y=limit_uf, line={"color": LIMIT, "dash": "dash"}, annotation_text=f"limit: {limit_label}")
-    figure.add_hline(y=rated_uf, line={"color": "#6b7280", "dash": "dot", "width": 1}, annotation_text="rated")
+    figure.add_hline(
+        y=limit_uf,
+        line={"color": LIMIT, "dash": "dash"},
+        annotation_text=f"limit: {limit_label}",
+        annotation_position="bottom right",
+    )
+    figure.add_hline(
+        y=rated_uf,
+        line={"color": "#6b7280", "dash": "dot", "width": 1},
+        annotation_text="rated",
+        annotation_position="top left",
+    )
+    figure.update_yaxes(range=trend_axis_range(kept, limit_uf, rated_uf))
     return _styled(figure, height=340, yaxis_title="capacitance (µF)")
+
+
+def trend_axis_range(readings: list[dict], limit_uf: float, rated_uf: float) -> list[float]:
+    """The capacitance axis of a trend chart: the readings kept, the rating and the limit with room below it
+    (60 % of the rating's distance to the limit), not the band's far tail (a start capacitor's P10 edge ran
+    to -14 uF, squeezing the 13 uF between its rating and its limit into a strip)."""
+    values = [r["capacitance_uf"] for r in readings] + [limit_uf, rated_uf]
+    span = max(rated_uf - limit_uf, 0.02 * rated_uf)
+    low = min(min(values), limit_uf - 0.6 * span) - 0.01 * rated_uf
+    high = max(values) + 0.03 * rated_uf
+    return [max(low, 0.0), high]
 
 
 def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -> dict:
