@@ -6,6 +6,7 @@ import re
 
 import pytest
 from django.core.exceptions import ValidationError
+from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
 
@@ -100,6 +101,14 @@ def test_the_planner_cancels_an_order_with_a_reason_and_the_plan_does_not_order_
     with pytest.raises(ValidationError) as twice:
         cancel_order(order_id=order.id, reason="again", user=planner)
     assert "not open" in twice.value.message_dict["order"][0]
+    # The planner sees it again on the work-orders page: what, from which visit, why, by whom (a fresh-eyes
+    # walk found the reason kept but shown nowhere).
+    client = Client()
+    client.force_login(planner)
+    listed = client.get(reverse("work_orders")).content.decode()
+    cancelled_part = listed[listed.index('id="cancelled"') :]
+    assert "motor to be scrapped in January" in cancelled_part and capacitor.motor.asset_tag in cancelled_part
+    assert planner.username in cancelled_part
 
     again = plan_work_orders(horizon_days=90, user=planner, today=today)
     assert (again["created"], again["kept_cancelled"]) == (0, 1)

@@ -383,6 +383,22 @@ LISTED_ORDER_FIELDS = (
 )
 
 
+CANCELLED_SHOWN_DAYS = 30  # the work-orders page lists the orders cancelled this long ago or later
+CANCELLED_SHOWN = 20
+
+
+def recently_cancelled(user=None, days: int = CANCELLED_SHOWN_DAYS, limit: int = CANCELLED_SHOWN) -> list:
+    """The orders cancelled in the last `days` at the user's sites, newest first (at most `limit`, one
+    query): what was cancelled, from which visit, why, by whom and when, for the planner to look back on."""
+    since = timezone.now() - dt.timedelta(days=days)
+    return list(
+        scope_to_user(WorkOrder.objects.all(), user)
+        .filter(state=WorkOrder.State.CANCELLED, closed_at__gte=since)
+        .select_related("motor", "site", "closed_by", "fitted_capacitor__part")
+        .order_by("-closed_at", "-id")[:limit]
+    )
+
+
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
     """A page of open visits (site, day) at the user's sites, soonest first: each with its order
     count, how many are still planned (to issue), its first `orders_shown` orders in walking order (each

@@ -26,6 +26,7 @@ from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
 from fleet.services.substitutes import part_families
 from fleet.services.workorders import (
+    CANCELLED_SHOWN_DAYS,
     OPEN,
     cancel_order,
     issue_visit,
@@ -34,6 +35,7 @@ from fleet.services.workorders import (
     open_visit,
     open_visits_page,
     plan_work_orders,
+    recently_cancelled,
     with_current_plan,
     with_plan_now,
 )
@@ -95,7 +97,13 @@ def work_orders(request):
     return render(
         request,
         "fleet/work_orders.html",
-        {"page": page, "visits": page.object_list, "today": timezone.localdate()},
+        {
+            "page": page,
+            "visits": page.object_list,
+            "today": timezone.localdate(),
+            "cancelled": recently_cancelled(request.user) if request.user.has_perm("fleet.add_workorder") else [],
+            "cancelled_days": CANCELLED_SHOWN_DAYS,
+        },
     )
 
 
