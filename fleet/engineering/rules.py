@@ -147,6 +147,13 @@ def plain_number(value) -> str:
     return np.format_float_positional(value, precision=6, unique=False, fractional=False, trim="-")
 
 
+def microfarad_text(value) -> str:
+    """A capacitance as the pages write it: two decimals ("3.95"), but a value too small for them as typed
+    ("0.00003", a slip confirmed as read, not "0.00"), so what was stored can be seen."""
+    value = float(value)
+    return f"{value:.2f}" if value == 0 or not np.isfinite(value) or abs(value) >= 0.005 else plain_number(value)
+
+
 def _messages(condition, template, plain=(), **columns):
     """A message where `condition` holds, formatted with that row's values ("{d}" of a datetime64[D] is its ISO
     date; the columns named in `plain` as `plain_number`, "{c}"); "" elsewhere. Only those rows are formatted:

@@ -67,7 +67,7 @@ from fleet.engineering.planning import (
     alert_index,
     judge,
 )
-from fleet.engineering.rules import CONDITION_SOUND
+from fleet.engineering.rules import CONDITION_SOUND, microfarad_text
 from fleet.engineering.trends import (
     MODEL_LINEAR,
     MODEL_LOG,
@@ -448,13 +448,15 @@ def _in_time_order(readings: pd.DataFrame) -> pd.DataFrame:
 
 
 def _format_each(values, spec: str, where=None) -> np.ndarray:
-    """Numbers as text by `spec` ("{:.2f}"), each distinct value (bit for bit) formatted once; only
+    """Numbers as text by `spec` ("{:.2f}", or a function of the number), each distinct value (bit for bit)
+    formatted once; only
     `where` it is true ("" elsewhere) when given."""
     values = np.asarray(values, float)
     text = np.full(values.shape, "", dtype=object)
     chosen = np.ones(values.shape, bool) if where is None else np.asarray(where, bool)
     _, first, position = np.unique(values[chosen].view(np.int64), return_index=True, return_inverse=True)
-    text[chosen] = np.array([spec.format(value) for value in values[chosen][first]], dtype=object)[position]
+    write = spec.format if isinstance(spec, str) else spec
+    text[chosen] = np.array([write(value) for value in values[chosen][first]], dtype=object)[position]
     return text
 
 
@@ -473,7 +475,7 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     evidence = np.select(
         [defect, open_or_short, df_high], [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF], EVIDENCE_NONE
     )
-    uf = _format_each(capacitance, "{:.2f}", open_or_short)  # numbers only where their words are used
+    uf = _format_each(capacitance, microfarad_text, open_or_short)  # numbers only where their words are used
     verdict_words = np.array([VERDICT_NAMES[int(code)] for code in np.unique(verdict_code)], dtype=object)
     verdict_words = verdict_words[np.searchsorted(np.unique(verdict_code), verdict_code)] if len(verdict_code) else []
     df_pct = _format_each(100 * dissipation, "{:.1f}", df_high)

@@ -13,6 +13,7 @@ from django.utils.safestring import mark_safe
 
 from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
+from fleet.engineering.rules import microfarad_text
 from fleet.services.assessments import DISSIPATION_LIMIT
 
 register = template.Library()
@@ -63,6 +64,12 @@ def age_in_years(years):
         return f"{12.0 * years:.1f}{NBSP}months"
     days = round(365.25 * years)
     return f"{days}{NBSP}day{'' if days == 1 else 's'}"
+
+
+@register.filter
+def microfarads(value):
+    """A capacitance in µF as the pages write it (`rules.microfarad_text`): '3.95', '0.00003'; None -> '-'."""
+    return DASH if value is None else microfarad_text(value)
 
 
 ISO_DAY = "Y-m-d"

@@ -275,3 +275,13 @@ def test_a_current_or_voltage_slip_in_circuit_is_named_on_its_own_field():
     assert volts.errors["capacitor_voltage_v"][0].startswith("0.23 looks like kilovolts: 230 V?")
     line = check({"capacitance_uf": ["4"], "line_voltage_v": ["0.23"]})
     assert line.errors["line_voltage_v"][0] == "0.23 looks like kilovolts: 230 V? (motor 230 V)"
+
+
+def test_a_capacitance_too_small_for_two_decimals_is_written_as_typed():
+    """Ours: a farads slip confirmed as read (0.00003 uF) showed as "0.00" on every page, hiding what was
+    typed; two decimals stay for every value they can show."""
+    from fleet.engineering.rules import microfarad_text
+
+    assert [microfarad_text(v) for v in (3.949, 0.0, 0.02, 0.00003, 0.0000301, 129.99)] == [
+        "3.95", "0.00", "0.02", "0.00003", "0.0000301", "129.99",
+    ]  # fmt: skip
