@@ -189,6 +189,17 @@ def test_a_tag_typed_without_its_separator_is_found(client, technician, typed):
     assert client.get(find, {"tag": "cst0093"})["Location"] == reverse("motor", args=["CST0093"])
 
 
+@pytest.mark.parametrize("typed", ["cst93", "CST 93", "cst-93", "cst_093"])
+def test_a_short_number_with_its_site_code_finds_the_tag_with_its_zeros(client, technician, typed):
+    """[ours] "93" found CST-0093 (and GLH-0093) in part, but "cst93" and "CST 93" found nothing: a number
+    read off a label without its leading zeros is padded as plants number motors, and looked up whole."""
+    site = make_site(code="CST", name="Cool store")
+    make_motor(site=site, asset_tag="CST-0093", location="Condensing unit 3")
+    make_motor(site=make_site(code="GLH"), asset_tag="GLH-0093", location="Bay 9")
+    client.force_login(technician)
+    assert client.get(reverse("find"), {"tag": typed})["Location"] == reverse("motor", args=["CST-0093"])
+
+
 @pytest.mark.parametrize("typed", ["cst 0093", "cst0093"])
 def test_a_whole_tag_typed_with_a_space_is_looked_up_by_the_tag_index(typed):
     """The usual look-up stays cheap at 100,000 motors: a whole tag, however its separators were typed (or

@@ -115,6 +115,19 @@ def _stored_bare_tag():
     return Replace(Replace(Replace(upper, Value("-"), Value("")), Value("_"), Value("")), Value("."), Value(""))
 
 
+TAG_NUMBER = re.compile(r"^(.*-)([0-9]{1,5})$")
+
+
+def _zero_padded(key: str) -> list[str]:
+    """A tag key whose last part is a short number, with that number padded to 3-6 digits as plants number
+    motors ("CST-93" -> "CST-093", "CST-0093", ...): a technician reading "93" off a label types no zeros."""
+    found = TAG_NUMBER.match(key)
+    if found is None or not found.group(1).strip("-"):
+        return []
+    prefix, number = found.groups()
+    return [prefix + number.zfill(width) for width in range(max(len(number) + 1, 3), 7)]
+
+
 def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     """Motors a technician's words point to: (the motor whose tag is `text` or the only match, the
     matches shown (at most FIND_LIMIT), how many matched).
@@ -125,7 +138,8 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     site's name ("cool store condensing"). Two queries, whatever the fleet's size. The whole tag is looked
     up by the index on its capitals (`motor_tag_unique_any_case`): the text as typed, and its key with each
     separator a tag may hold ("CST-0093", "CST_0093", "CST.0093"), a separator put where letters meet
-    digits too, so the usual look-up stays an index probe at 100,000 motors. Only when that finds nothing
+    digits too, and a short number padded with zeros ("cst93" -> "CST-0093"), so the usual look-up stays an
+    index probe at 100,000 motors. Only when that finds nothing
     are the tags compared, in part, without their separators (`_stored_bare_tag`): a scan of the tags, as
     the part-of-a-tag search always was (a LIKE '%...%' no b-tree serves).
     """
@@ -135,7 +149,9 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     motors = scope_to_user(Motor.objects.select_related("site"), user)
     key = tag_key(text)
     whole = {text.upper()}
-    for keyed in (key, LETTERS_THEN_DIGITS.sub("-", key)):
+    spelled = {key, LETTERS_THEN_DIGITS.sub("-", key)}
+    spelled |= {padded for keyed in spelled for padded in _zero_padded(keyed)}
+    for keyed in spelled:
         whole |= {keyed, keyed.replace("-", "_"), keyed.replace("-", ".")}
     exact = list(
         motors.annotate(tag_upper=Upper("asset_tag"))
