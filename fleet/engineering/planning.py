@@ -44,6 +44,7 @@ def work_order_problems(due_on, window_days, today) -> list[tuple[np.ndarray, st
     ]
 
 
+# Not calendar.day_name: it follows the process's locale, and the pages' words are English.
 WEEKDAY_NAMES = ("Monday", "Tuesday", "Wednesday", "Thursday", "Friday", "Saturday", "Sunday")
 
 
@@ -158,8 +159,8 @@ def judge(
     maximum, or the fitted path (P50) already past the limit. The crossing at the
     alert quantile (P10, or the back-tested one) within a quarter is "due soon",
     within a year "watch", else "sound"; the same crossing dates the replacement
-    (`lead_days` before it), so the risk level and the replace-by date never
-    disagree. That crossing already passed asks to read the capacitor again
+    (`lead_days` before it), so the risk level and the replace-by date follow
+    one crossing ("sound" has none inside eleven months). That crossing already passed asks to read the capacitor again
     (`read_again`); a reading taken since that still reads above the limit settles it: the
     capacitor sits at the edge of its limit by its trend, replace it at the next visit.
     """
@@ -299,9 +300,9 @@ def read_again(
     quantile (its early one, P10, by default) has passed (`early_days` from today at or below 0), no
     reading shows the capacitor past its limit or damaged (not "replace now"), and none was taken since the
     crossing, or `answers_days` before it (`latest_days`, days from today to the newest reading; nan:
-    unknown). Such a reading settles it
-    either way: below the limit it is "replace now", above it `judge` says replace at the next visit;
-    never a second "read again" for a question a reading answered. The work orders follow the stored word."""
+    unknown). Such a reading settles it either way: below the limit it is "replace now", above it `judge`
+    says replace at the next visit; never a second "read again" for a question a reading answered. The work
+    orders follow the stored word."""
     early_days = np.asarray(early_days, float)
     with np.errstate(invalid="ignore"):
         read_since = np.asarray(latest_days, float) >= np.floor(early_days) - answers_days
