@@ -337,6 +337,7 @@ def test_the_capacitor_page_reconciles_verdict_and_risk_once(client, engineer, f
     assert page.count("within the marked tolerance") == 1 and "see Why, above" in page
     assert "Latest reading as measured, against the marking" not in page
     assert page.lower().count("trend reaches the limit") == 1
+    assert "a straight fit can be drawn curving" in page  # why a "linear" trend's chart bends ahead
 
 
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(
