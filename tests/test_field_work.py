@@ -218,6 +218,29 @@ def test_a_whole_tag_typed_with_a_space_is_looked_up_by_the_tag_index(typed):
     assert "motor_tag_unique_any_case" in plan, plan
 
 
+@pytest.mark.skipif(connection.vendor != "postgresql", reason="trigram indexes are PostgreSQL's (pg_trgm)")
+@pytest.mark.parametrize("typed", ["009", "condensing unit"])
+def test_part_of_a_tag_or_a_location_is_looked_up_by_the_trigram_indexes(typed):
+    """What no whole tag matches is compared in part with every tag (without its separators) and location:
+    a LIKE '%...%' that reads all 100,000 motors unless pg_trgm's indexes serve it (PostgreSQL documentation,
+    F.35 pg_trgm, "Index Support"). The plan must name the indexes of migration 0053, so the query's
+    expressions and the indexes' must stay the same; PostgreSQL is told not to scan the table, so the plan
+    shows whether the indexes can serve the search at all (nor to walk the tags' b-tree in order, which a table
+    of two motors makes the cheaper plan)."""
+    site = make_site(code="CST", name="Cool store")
+    make_motor(site=site, asset_tag="CST-0093", location="Condensing unit 3")
+    make_motor(site=site, asset_tag="CST-0094", location="Condensing unit 4")
+    with CaptureQueriesContext(connection) as queries:
+        found, matches, count = pages.find_motors(typed)
+    assert found is None and count == 2 and [m.asset_tag for m in matches] == ["CST-0093", "CST-0094"]
+    with connection.cursor() as cursor:
+        cursor.execute("SET LOCAL enable_seqscan = off")
+        cursor.execute("SET LOCAL enable_indexscan = off")
+        cursor.execute("EXPLAIN " + queries.captured_queries[-1]["sql"])
+        plan = str(cursor.fetchall())
+    assert "motor_bare_tag_trigram" in plan and "motor_location_trigram" in plan, plan
+
+
 def test_finding_keeps_to_the_users_sites_and_takes_constant_queries(client, django_assert_max_num_queries):
     home, away = make_site(name="Home farm"), make_site(name="Away farm")
     for n in range(30):
