@@ -1024,9 +1024,15 @@ def _figures_json(figures: pd.DataFrame, with_circuit: np.ndarray) -> np.ndarray
 
 def _flagged_json(result: Assessed, readings: pd.DataFrame) -> np.ndarray:
     """Per capacitor, the JSON list of the reading ids its fit flagged (few capacitors have any)."""
-    flagged = readings.loc[result.fit.flagged, ["fitted_capacitor_id", "id"]]
-    lists = flagged.astype({"id": str}).groupby("fitted_capacitor_id")["id"].agg(",".join)
-    return ("[" + lists.reindex(result.inst.index).fillna("") + "]").to_numpy(object)
+    lists = np.full(len(result.inst), "[]", dtype=object)
+    flagged = np.asarray(result.fit.flagged, bool)
+    if flagged.any():
+        where = result.inst.index.get_indexer(readings["fitted_capacitor_id"].to_numpy()[flagged])
+        order = np.argsort(where, kind="stable")  # each capacitor's ids in the order of its readings
+        where, ids = where[order], readings["id"].to_numpy()[flagged][order].astype(str)
+        starts = np.flatnonzero(np.r_[True, where[1:] != where[:-1]])
+        lists[where[starts]] = ["[" + ",".join(each) + "]" for each in np.split(ids, starts[1:])]
+    return lists
 
 
 def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: pd.Series, today: dt.date):

@@ -58,6 +58,8 @@ def fitted_capacitors_frame(fitted_capacitor_ids) -> pd.DataFrame:
     frame = pd.DataFrame.from_records(list(rows), columns=list(FITTED_CAPACITOR_COLUMNS.values()))
     for column in ("part_tempco_ppm_per_k", "max_dissipation_factor"):
         frame[column] = frame[column].astype(float)
+    for column in ("fitted_on", "removed_on"):  # days as datetime64 (NaT: not removed), not one date object a row
+        frame[column] = pd.to_datetime(frame[column]).astype("datetime64[s]")
     return frame.sort_values("fitted_capacitor_id").reset_index(drop=True)
 
 
