@@ -143,7 +143,11 @@ def test_a_motor_is_found_by_part_of_its_tag_or_by_words_of_its_place(client, te
 
 
 @pytest.mark.parametrize(
-    "typed", ["CST 0093", "cst 0093", " CST  0093 ", "CST_0093", "cst.0093", "CST/0093", "CST - 0093", "CST-0093"]
+    "typed",
+    [
+        *("CST 0093", "cst 0093", " CST  0093 ", "CST_0093", "cst.0093", "CST/0093", "CST - 0093", "CST-0093"),
+        *("CST\u20130093", "cst\u20140093", "CST\u22120093", "CST\u20110093"),  # the dashes a phone puts for '-'
+    ],
 )
 def test_a_tag_is_found_whatever_separator_is_typed_between_its_parts(client, technician, typed):
     """ "CST 0093" (a space where the label has a hyphen) found nothing while "cst-0093" and "0093" did:

@@ -157,8 +157,12 @@ def test_the_planner_sets_the_stock_and_a_bad_entry_saves_nothing(client, planne
     assert f'name="qty-{part.id}" id="qty-{part.code}" value="4"' in page
     assert f'aria-describedby="qty-{other.code}-error"' in page and f'href="#qty-{other.code}"' in page
     assert not SiteStock.objects.exists()
-    assert client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "0"}).status_code == 302
+    saved = client.post(url, {f"qty-{part.id}": "4", f"qty-{other.id}": "0"}, follow=True)
+    assert "Stock saved: 1 quantity changed." in saved.content.decode()
     assert list(SiteStock.objects.values_list("part__code", "quantity")) == [(part.code, 4)]
+    # A save that changes nothing says so: "Stock saved." for a page sent back untouched read as a change made.
+    unchanged = client.post(url, {f"qty-{part.id}": "4", f"was-{part.id}": "4"}, follow=True).content.decode()
+    assert "Nothing to save: every quantity is as it was." in unchanged and "Stock saved" not in unchanged
     emptied = client.post(url, {f"qty-{part.id}": " ", f"was-{part.id}": "4"})  # a box cleared by a glove
     assert f"{part.code}: is empty: type 0 if none are held" in emptied.content.decode()
     assert list(SiteStock.objects.values_list("part__code", "quantity")) == [(part.code, 4)]

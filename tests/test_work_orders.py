@@ -6,6 +6,7 @@ import re
 
 import pytest
 from django.core.exceptions import ValidationError
+from django.template.loader import render_to_string
 from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
@@ -71,6 +72,10 @@ def test_a_sites_stock_goes_to_its_open_visits_in_date_order():
     one_a_page = [open_visits_page(n, per_page=1).object_list[0] for n in (1, 2, 3)]
     assert [v["spares"] for v in one_a_page if v["day"] == second] == [later]
     assert open_visit(site.id, second)["spares"] == later
+    # On the visit sheet: the 2 held all go to the earlier visit, which takes 6 (not "2 held, 6 to earlier
+    # visits", which read as if 6 had been handed out of 2).
+    sheet = render_to_string("fleet/_visit_spares.html", {"spares": later})
+    assert "2 held, all to earlier visits (they take 6)" in sheet and "6 to earlier" not in sheet
 
 
 def test_the_planner_cancels_an_order_with_a_reason_and_the_plan_does_not_order_it_again(planner):

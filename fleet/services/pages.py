@@ -97,8 +97,9 @@ def label_motors(site, tag: str | None = None):
 
 FIND_LIMIT = 50
 # What a technician may type between the parts of a tag: a space, or any separator a tag may hold
-# ('-', '_', '.': CODE_PATTERN) or a label's print might suggest ('/'). All read alike, as '-'.
-TAG_SEPARATORS = re.compile(r"[\s._/-]+")
+# ('-', '_', '.': CODE_PATTERN) or a label's print might suggest ('/'), and the dashes a phone's keyboard puts for
+# '-' (hyphen, non-breaking hyphen, figure, en and em dashes, minus sign: U+2010-2015, U+2212). All read alike, as '-'.
+TAG_SEPARATORS = re.compile(r"[\s._/\u2010-\u2015\u2212-]+")
 # Where letters meet digits a technician leaves the separator out ("cst0093" for CST-0093): there it is optional.
 LETTERS_THEN_DIGITS = re.compile(r"(?<=[A-Z])(?=[0-9])")
 

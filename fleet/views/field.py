@@ -12,6 +12,7 @@ from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied, ValidationError
 from django.core.paginator import Paginator
 from django.shortcuts import get_object_or_404, redirect, render
+from django.template.defaultfilters import pluralize
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import conditional_escape
@@ -259,12 +260,15 @@ def site_stock(request, site_code):
         # qty-<part id>: the quantity typed; was-<part id>: the quantity the page showed
         quantities, shown = _values_by_id(request.POST, "qty-"), _values_by_id(request.POST, "was-")
         try:
-            set_site_stock(site=site, quantities=quantities, shown=shown)
+            changed = set_site_stock(site=site, quantities=quantities, shown=shown)
         except ValidationError as error:
             errors = error.message_dict
             typed = {i: text for i, text in quantities.items() if text.strip() != shown.get(i, "").strip()}
         else:
-            messages.success(request, "Stock saved.")
+            if changed:
+                messages.success(request, f"Stock saved: {changed} quantit{pluralize(changed, 'y,ies')} changed.")
+            else:
+                messages.info(request, "Nothing to save: every quantity is as it was.")
             return redirect("site_stock", site_code=site.code)
     held = dict(site.stock.values_list("part_id", "quantity"))
     # Each row: the part, the quantity in its box (as typed when the save was refused), the quantity held now
