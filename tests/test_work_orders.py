@@ -225,6 +225,9 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     assert f'href="{reverse("reading_new", args=[suspect.id])}">{suspect.part.code}</a>' in rows[0]
     assert f'href="{reverse("replace", args=[suspect.id])}"' in rows[0]  # reachable, after the reading
     assert f'href="{reverse("replace", args=[worn.id])}">{worn.part.code}</a>' in rows[1]
+    # On paper the read-again row has lines to write the reading on (the walk found no room for it); a
+    # replacement's row needs none.
+    assert "write-ins" in rows[0] and "&micro;F" in rows[0].split("write-ins")[1] and "write-ins" not in rows[1]
     assert "Cancel this order" not in sheet and 'id="move-visit"' not in sheet  # the planner's, not the technician's
     # The work-orders page lists the same orders: there too the read-again part opens the reading form.
     listed = client.get(reverse("work_orders")).content.decode()
