@@ -96,19 +96,20 @@ def test_every_cell_of_the_route_the_last_readings_and_the_imports_is_readable(b
 
 def test_links_in_the_lists_are_glove_sized_on_a_phone_and_compact_on_a_desktop(browser, live_server, demo_fleet):
     """The motor-tag and part links of the home, plan, work-order and motor pages were 20 px tall lines of
-    text at 390 px. At 1366 px they stay lines of text, so the desktop tables keep their rows."""
+    text at 390 px, and so were the download links (CSV, XLSX) and the links in the dashboard's lists. At
+    1366 px they stay lines of text, so the desktop tables keep their rows."""
     removed = FittedCapacitor.objects.filter(removed_on__isnull=False).select_related("motor").first()
     site = FittedCapacitor.objects.filter(removed_on__isnull=True).values_list("motor__site__code", flat=True)[0]
     visit = WorkOrder.objects.filter(
         state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED], fitted_capacitor__motor__site__code=site
     ).first()
-    paths = ["/", "/plan/", "/work-orders/", f"/motors/{removed.motor.asset_tag}/"]
+    paths = ["/", "/plan/", "/work-orders/", f"/motors/{removed.motor.asset_tag}/", "/dashboard/"]
     paths.append(f"/work-orders/{site}/{visit.due_on.isoformat()}/")
     context, page = demo_page(browser, live_server, "planner")
     small = []
     for path in paths:
         _load(page, path)
-        small += [(path, target) for target in _small_targets(page, "main td a")[:2]]
+        small += [(path, target) for target in _small_targets(page, "main td a, main li > a, a.glove")[:2]]
     assert not small, small
     page.set_viewport_size({"width": 1366, "height": 900})
     for path in paths[:2]:
