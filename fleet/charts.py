@@ -366,7 +366,8 @@ def spares_figure(months: list[str], parts: list[dict], cost_per_month: list[flo
             "dtick": _whole_step(max(cost_per_month, default=0)),
         },
     )
-    figure.update_xaxes(type="date", tickformat="%b %Y", dtick="M2")
+    # Every other month labelled from the first (counted from January, a December start had no label).
+    figure.update_xaxes(type="date", tickformat="%b %Y", dtick="M2", tick0=months[0] if months else None)
     styled = _styled(figure, height=SPARES_HEIGHT_PX, yaxis_title="capacitors")
     styled["layout"]["margin"].update(r=60)
     return styled

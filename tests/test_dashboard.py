@@ -140,6 +140,8 @@ def test_the_spares_chart_names_months_with_their_year_and_steps_the_cost_in_rou
     figure = spares_figure(months, parts, [926.4, 231.6, 463.2] + [0.0] * 9)
     layout = figure["layout"]
     assert layout["xaxis"]["tickformat"] == "%b %Y"  # "Jan 2027", never "Jan 27" (read as a day)
+    # Every other month is labelled, from the first: counted from January, "Dec 2026" had no label.
+    assert (layout["xaxis"]["dtick"], layout["xaxis"]["tick0"]) == ("M2", months[0])
     cost_axis = layout["yaxis2"]
     # [derived] about five ticks up to 926: a step of 1, 2 or 5 times a power of ten, from zero
     assert (cost_axis["tickmode"], cost_axis["tick0"], cost_axis["dtick"]) == ("linear", 0, 200)
