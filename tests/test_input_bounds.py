@@ -227,6 +227,21 @@ def test_deeply_nested_json_is_a_json_400(technician, fan_fitted_capacitor, dept
     assert not Reading.objects.exists()
 
 
+def test_a_field_given_twice_in_a_json_body_is_refused_by_name(technician, fan_fitted_capacitor):
+    """Python's JSON parser keeps the last of a key given twice: a script's "capacitance_uf": 30 then 3 was
+    saved as 3 uF, the 30 dropped unsaid. [RFC 8259 section 4: names within an object SHOULD be unique; what a
+    parser does with duplicates is unpredictable] Refused by name, nothing saved."""
+    body = '{"method": "meter", "capacitance_uf": 30, "case_temperature_c": 25, "capacitance_uf": 3}'
+    api = api_for(technician)
+    response = api.post(readings_url(fan_fitted_capacitor), body, content_type="application/json")
+    assert response.status_code == 400, response.content
+    assert response.json() == {"capacitance_uf": ["Given twice in the body (30 and 3): send it once."]}
+    assert not Reading.objects.exists()
+    nan = '{"method": "meter", "capacitance_uf": NaN}'  # still refused as DRF's strict parser refuses it
+    refused = api.post(readings_url(fan_fitted_capacitor), nan, content_type="application/json")
+    assert refused.status_code == 400 and "JSON parse error" in refused.json()["detail"]
+
+
 def test_a_body_past_the_size_limit_is_a_json_answer_with_detail(technician, fan_fitted_capacitor, settings):
     settings.DATA_UPLOAD_MAX_MEMORY_SIZE = 1000
     body = '{"method": "meter", "capacitance_uf": 3.95, "notes": "' + "x" * 5000 + '"}'
