@@ -384,7 +384,8 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
     by the same rule) and the days the rule counts from (`quarter_start`, `overdue_before`)."""
     today = today or timezone.localdate()
     status = reading_status(today)
-    to_read = status["to_read"] | Q(Exists(read_again_orders().filter(motor=OuterRef("pk"))))
+    # The site's few motors asked to read again, as one set the database reads once (not a probe per motor).
+    to_read = status["to_read"] | Q(pk__in=read_again_orders().filter(site=site).values("motor_id"))
     by_state = motors_by_reading_status(site=site, today=today).get(site.id, dict.fromkeys(READING_STATES, 0))
     counts = {
         "total": sum(by_state.values()),
