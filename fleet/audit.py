@@ -15,6 +15,7 @@ import decimal
 
 from django.contrib.auth import get_user_model
 from django.contrib.auth.models import Group
+from django.db import transaction
 from django.db.models.signals import m2m_changed, post_delete, post_save, pre_save
 
 _request = contextvars.ContextVar("fleet_audit_request", default=None)
@@ -164,19 +165,23 @@ def _m2m_accessor(instance, through) -> str:
 
 
 def audited_update(queryset, **values) -> int:
-    """`queryset.update(**values)`, with an entry for each row it changes."""
+    """`queryset.update(**values)`, with an entry for each row it changes. The rows are read locked, in
+    one transaction with the update: a writer that changes one meanwhile (a cancel while a reading closes
+    the order) is waited for and the row read again, so no entry is written for a row the update then
+    no longer matches."""
     fields = list(values)
-    rows = list(queryset.values("pk", *fields))
-    count = queryset.filter(pk__in=[row["pk"] for row in rows]).update(**values)
-    if not _suspended.get():
-        model = queryset.model
-        after = {name: getattr(value, "pk", value) for name, value in values.items()}
-        entries = [
-            _entry(model, row["pk"], f"{model._meta.verbose_name} {row['pk']}", "update", changes)
-            for row in rows
-            if (changes := _diff(row, after))
-        ]
-        _bulk_write(entries)
+    model = queryset.model
+    with transaction.atomic():
+        rows = list(queryset.select_for_update(of=("self",)).values("pk", *fields))
+        count = queryset.filter(pk__in=[row["pk"] for row in rows]).update(**values)
+        if not _suspended.get():
+            after = {name: getattr(value, "pk", value) for name, value in values.items()}
+            entries = [
+                _entry(model, row["pk"], f"{model._meta.verbose_name} {row['pk']}", "update", changes)
+                for row in rows
+                if (changes := _diff(row, after))
+            ]
+            _bulk_write(entries)
     return count
 
 

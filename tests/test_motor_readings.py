@@ -214,3 +214,50 @@ def test_the_route_rows_written_in_python_are_the_markup_the_template_wrote(can_
     assert len(rows) == 6 and [motor.still_to_read for motor in rows if motor.still_to_read] == [["start capacitor"]]
     reference = engines["django"].from_string(ROUTE_ROW_TEMPLATE)
     assert route_rows(rows, can_order) == reference.render({"motors": rows, "can_order": can_order})
+
+
+def test_a_motor_read_this_quarter_with_an_open_read_again_order_is_still_to_read_and_counted_so(client):
+    """The plan raises "read again" where a trend's early crossing passed with no reading since; until a
+    reading closes it, its motor is still to read, whenever it was last read: the route row says why and
+    links to the reading form, and the route's counts, its "only the ones to read" list and the
+    dashboard's readings by route count it as its row shows it [derived: one rule for every count]."""
+    from fleet.models import WorkOrder
+
+    scene = Round()
+    start = FittedCapacitor.objects.get(motor=scene.replaced, role="start", removed_on__isnull=True)
+    removed_run = FittedCapacitor.objects.get(motor=scene.replaced, role="run", removed_on__isnull=False)
+    still_run = FittedCapacitor.objects.get(motor=scene.start_taken_out, removed_on__isnull=True)
+    due_on = scene.today + dt.timedelta(days=3)
+
+    def order(fitted_capacitor, state):
+        closed = timezone.now() if state in ("done", "cancelled") else None
+        return WorkOrder.objects.create(
+            motor=fitted_capacitor.motor,
+            fitted_capacitor=fitted_capacitor,
+            kind=WorkOrder.Kind.READ_AGAIN,
+            state=state,
+            due_on=due_on,
+            closed_at=closed,
+        )
+
+    asked = order(start, "issued")
+    order(removed_run, "planned")  # of a capacitor taken out: no longer asks anything of the motor
+    order(still_run, "done")  # a reading closed it: read
+    client.force_login(make_user(TECHNICIAN))
+    url = reverse("route", args=[scene.site.code])
+    page = client.get(url).content.decode()
+    rows = route_rows(page)
+    assert rows[scene.replaced.asset_tag].startswith(
+        f"to readread again: work order {asked.id} for the start capacitor, visit {due_on:%Y-%m-%d} Record the reading"
+    )
+    assert f'href="{reverse("reading_new", args=[start.id])}"' in page
+    assert rows[scene.start_taken_out.asset_tag].startswith("done")
+    assert "5 of 6 motors still to read" in page  # four overdue, and the one to read again
+    only_due = route_rows(client.get(url, {"show": "due"}).content.decode())
+    assert len(only_due) == 5 and scene.replaced.asset_tag in only_due
+    route = readings_by_route(None, scene.today)["routes"][0]
+    assert (route["overdue"], route["due"], route["read"]) == (4, 1, 1)
+    # A reading closes the order (`close_read_again_orders`): the motor is read.
+    WorkOrder.objects.filter(pk=asked.pk).update(state="done", closed_at=timezone.now())
+    assert route_rows(client.get(url).content.decode())[scene.replaced.asset_tag].startswith("done")
+    assert "4 of 6 motors still to read" in client.get(url).content.decode()

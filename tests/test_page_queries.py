@@ -20,7 +20,7 @@ from django.test.utils import CaptureQueriesContext
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, FittedCapacitor, ImportJob, Motor, RefitRun
+from fleet.models import Assessment, FittedCapacitor, ImportJob, Motor, RefitRun, WorkOrder
 from fleet.roles import TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.lifedata import refresh_life_fits
@@ -56,7 +56,7 @@ class Fleet:
         self.motors = 0
 
     def grow_to(self, motors: int, user) -> None:
-        new = []
+        new, reread = [], []
         for _ in range(motors - self.motors):
             n = next(self.serial)
             motor = make_motor(site=self.sites[n % 2], route_order=n, with_circuit=False)
@@ -73,12 +73,26 @@ class Fleet:
             if n % 2 == 0:  # read this quarter
                 make_reading(fitted_capacitor, capacitance_uf=3.99 if n % 3 else 3.6)
             new.append(fitted_capacitor)
+            if n % 4 == 2:  # read this quarter at NORTH, and asked to read again
+                reread.append(fitted_capacitor)
         refit_fitted_capacitors([i.id for i in new])
         # Some were judged sound before this refit: their risk level changed this week.
         changed = [i.id for i in new[::4]]
         Assessment.objects.filter(fitted_capacitor_id__in=changed, is_current=True).update(risk="sound")
         refit_fitted_capacitors(changed, force=True)
         plan_work_orders(horizon_days=365)
+        for fitted_capacitor in reread:  # asked to read again (issued: a new plan leaves it as it is)
+            WorkOrder.objects.update_or_create(
+                fitted_capacitor=fitted_capacitor,
+                kind=WorkOrder.Kind.READ_AGAIN,
+                state__in=WorkOrder.OPEN_STATES,
+                defaults={"state": WorkOrder.State.ISSUED},
+                create_defaults={
+                    "motor_id": fitted_capacitor.motor_id,
+                    "state": WorkOrder.State.ISSUED,
+                    "due_on": timezone.localdate(),
+                },
+            )
         RefitRun.objects.create(state=RefitRun.State.DONE, total=len(new), done=len(new))
         ImportJob.objects.create(kind="readings", filename=f"readings-{motors}.csv", content=b"", created_by=user)
         refresh_life_fits()  # as the nightly task does
@@ -143,6 +157,8 @@ def test_a_list_pages_query_count_does_not_grow_with_the_fleet(client, planner_w
         counts.append(len(queries))
         bodies.append(response.content)
     assert counts[0] == counts[1], f"{page}: {counts[0]} queries at 5 motors, {counts[1]} at 40"
+    if page.startswith("route"):  # motors asked to read again are on the page, with their order
+        assert b"read again: work order" in bodies[0] and b"read again: work order" in bodies[1]
     if page in SUMMARIES:  # a summary of the fleet's designs: the count is of a real summary
         assert SUMMARIES[page] in bodies[1]
     else:  # the larger fleet is on the page: the count is of a real list
@@ -523,6 +539,7 @@ def test_the_work_order_rows_written_in_python_are_the_markup_the_template_wrote
 
     fleet = Fleet()
     fleet.grow_to(6, planner_who_reads)
+    WorkOrder.objects.filter(kind=WorkOrder.Kind.READ_AGAIN).delete()  # the reference shows no "plan now"
     first = WorkOrder.objects.order_by("id").first()
     WorkOrder.objects.filter(pk=first.pk).update(reason="")
     Motor.objects.filter(pk=first.motor_id).update(location="Bay <3 & pumps")

@@ -10,6 +10,7 @@ on the first's unique index entry until it commits. [derived]
 import datetime as dt
 import re
 import threading
+import time
 from contextlib import contextmanager
 from unittest import mock
 
@@ -522,3 +523,141 @@ def test_a_walking_order_edited_while_a_refit_runs_reaches_the_new_assessment(ca
     motor.refresh_from_db()
     current = Assessment.objects.get(fitted_capacitor=capacitor, is_current=True)
     assert current.route_order == motor.route_order
+
+
+def _read_again_order(capacitor, state="planned"):
+    from fleet.models import WorkOrder
+
+    return WorkOrder.objects.create(
+        motor=capacitor.motor,
+        fitted_capacitor=capacitor,
+        kind=WorkOrder.Kind.READ_AGAIN,
+        state=state,
+        due_on=timezone.localdate() + dt.timedelta(days=3),
+    )
+
+
+def _reading_form(key: str) -> dict:
+    return {
+        "taken_at": timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M"),
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        "condition": "sound",
+        "client_key": key,
+    }
+
+
+@threads_race
+@pytest.mark.parametrize("first", ["cancel", "reading"])
+def test_a_cancel_while_a_reading_closes_the_read_again_order_leaves_one_end_and_its_trail(capacitor, first):
+    """The planner cancels a "read again" order as the technician's reading closes it. One of them
+    closes it, the other is waited for and finds it closed: the reading is saved either way, the order
+    ends cancelled or done, and the audit trail holds that one change only. The cancel that came second
+    is told who closed it and when. [derived] Forced: the first writer holds its row, uncommitted,
+    until the second has started its own write."""
+    from fleet.models import AuditEntry, WorkOrder
+    from fleet.services import workorders
+    from fleet.views import planning
+
+    order = _read_again_order(capacitor)
+    planner, technician = make_user("planner"), make_user("technician")
+    first_wrote, second_started = threading.Event(), threading.Event()
+    write, start_cancel = workorders.audited_update, planning.cancel_order
+
+    def holding(call):  # the first writer writes, then keeps its row uncommitted until the second starts
+        count = call()
+        first_wrote.set()
+        second_started.wait(20)
+        time.sleep(0.5)  # the second is at its read of the row: a wait on the first's lock
+        return count
+
+    def after_first(call):  # the second writer starts once the first has written
+        assert first_wrote.wait(20)
+        second_started.set()
+        return call()
+
+    def audited_update(queryset, **values):
+        def call():
+            return write(queryset, **values)
+
+        if "cancel_reason" in values:  # the cancel's write
+            return holding(call) if first == "cancel" else call()
+        return holding(call) if first == "reading" else after_first(call)
+
+    def cancel_order(**kwargs):
+        return after_first(lambda: start_cancel(**kwargs)) if first == "reading" else start_cancel(**kwargs)
+
+    def cancel():
+        client = Client()
+        client.force_login(planner)
+        return client.post(f"/work-orders/{order.id}/cancel/", {"reason": "motor to be scrapped"}, follow=True)
+
+    def read():
+        client = Client()
+        client.force_login(technician)
+        return client.post(f"/fitted-capacitors/{capacitor.id}/reading/", _reading_form("race-1"))
+
+    readings = Reading.objects.count()
+    with (
+        mock.patch.object(workorders, "audited_update", audited_update),
+        mock.patch.object(planning, "cancel_order", cancel_order),
+    ):
+        cancelled, read_answer = in_threads(cancel, read)
+    assert getattr(read_answer, "status_code", read_answer) == 302
+    assert Reading.objects.count() == readings + 1  # the technician's reading is kept whatever happened
+    order.refresh_from_db()
+    assert order.state == ("cancelled" if first == "cancel" else "done")
+    trail = AuditEntry.objects.filter(
+        model="fleet.workorder", object_id=str(order.id), action="update", changes__has_key="state"
+    )
+    assert [entry.changes["state"] for entry in trail] == [["planned", order.state]]
+    text = cancelled.content.decode()
+    if first == "reading":
+        assert f"it was done, closed by {technician.username} on " in text and "Nothing changed." in text
+        assert WorkOrder.objects.get(pk=order.id).cancel_reason is None
+    else:
+        assert "Work order cancelled" in text
+
+
+@threads_race
+def test_two_planners_moving_one_visit_at_once_move_it_once_and_the_other_is_told_where(capacitor):
+    """Two planners move the same visit, to different days, at the same moment. [derived] The orders are
+    locked before they move: one move wins whole (every order on its day, one audit entry each), the other
+    finds the visit gone and is told where it went and by whom; nothing is split between the two days."""
+    from fleet.models import AuditEntry, WorkOrder
+    from fleet.services import workorders
+    from tests.factories import make_fitted_capacitor, make_motor
+
+    today = timezone.localdate()
+    day = today + dt.timedelta(days=7)
+    while day.weekday() >= 5:
+        day += dt.timedelta(days=1)
+    days = [d for d in (day + dt.timedelta(days=n) for n in range(1, 10)) if d.weekday() < 5][:2]
+    others = [make_fitted_capacitor(motor=make_motor(site=capacitor.motor.site)) for _ in range(3)]
+    for fitted_capacitor in [capacitor, *others]:
+        WorkOrder.objects.create(
+            motor=fitted_capacitor.motor, fitted_capacitor=fitted_capacitor, kind="replace_run", due_on=day
+        )
+    planners = [make_user("planner"), make_user("planner")]
+    sheet = f"/work-orders/{capacitor.motor.site.code}/{day.isoformat()}/"
+
+    def move(planner, to_day):
+        def send():
+            client = Client()
+            client.force_login(planner)
+            return client.post(sheet, {"to_day": to_day.isoformat()}, follow=True)
+
+        return send
+
+    with held_before(workorders, "visit_day_problem", 2):
+        answers = in_threads(move(planners[0], days[0]), move(planners[1], days[1]))
+    on_days = set(WorkOrder.objects.values_list("due_on", flat=True))
+    assert len(on_days) == 1 and on_days <= set(days)  # whole, on one of the two days
+    (won,) = on_days
+    winner, loser = (answers[0], answers[1]) if won == days[0] else (answers[1], answers[0])
+    assert "Visit moved from" in winner.content.decode()
+    told = loser.content.decode()
+    winner_name = planners[days.index(won)].username
+    assert f"to {won:%a %Y-%m-%d} by {winner_name} on " in told and "nothing moved" in told
+    moves = AuditEntry.objects.filter(model="fleet.workorder", action="update", changes__has_key="due_on")
+    assert moves.count() == 4 and {tuple(e.changes["due_on"]) for e in moves} == {(day.isoformat(), won.isoformat())}

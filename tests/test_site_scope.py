@@ -84,7 +84,7 @@ def test_the_plans_risk_changes_list_the_users_sites_only(client, here_and_there
         refit_fitted_capacitors([fitted_capacitor.id], force=True)
     mine = here_and_there["HERE"]
     client.force_login(limited(PLANNER, mine.motor.site))
-    worse = client.get(reverse("plan"), {"days": 7}).context["worse"]
+    worse = client.get(reverse("plan"), {"days": 7}).context["change_lists"][0]["rows"]
     assert [assessment.fitted_capacitor_id for assessment in worse] == [mine.id]
 
 
@@ -215,7 +215,7 @@ def test_the_plans_counts_changes_and_spares_follow_the_site_chosen_and_say_whic
         response = client.get(reverse("plan"), query)
         body = response.content.decode()
         counts = dict(re.findall(r'<span class="risk risk-[a-z-]+">([a-z ]+)</span><b>(\d+)</b>', body))
-        worse = {a.fitted_capacitor.motor.site.code for a in response.context["worse"]}
+        worse = {a.fitted_capacitor.motor.site.code for a in response.context["change_lists"][0]["rows"]}
         spares = body[body.index("Spares for this window") :]
         return body, counts, response.context["changes"]["worse"], worse, spares
 

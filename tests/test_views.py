@@ -363,7 +363,7 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
         )
     refit_fitted_capacitors([i.id for i in fitted_capacitors])
     client = signed_in(planner)
-    with django_assert_max_num_queries(17):  # the page's capacitors, motors and parts: one query of their own
+    with django_assert_max_num_queries(18):  # the page's capacitors, motors and parts; the week's changes, each way
         response = client.get(reverse("plan"), {"days": 365})
     assert response.status_code == 200
     assert fitted_capacitors[0].motor.asset_tag in response.content.decode()
@@ -727,3 +727,30 @@ def test_a_capacitor_with_thousands_of_readings_sends_a_chart_a_phone_can_draw(s
     assert len(drawn["x"]) <= CHART_READINGS_MAX
     newest = (start + dt.timedelta(hours=12 * (count - 1))).date().isoformat()
     assert drawn["x"][-1] == newest and drawn["x"][0] == start.date().isoformat()
+
+
+def test_the_plan_lists_the_weeks_riskier_and_less_risky_capacitors_each_labelled_and_capped(client, monkeypatch):
+    """A planner sees what got riskier and what got less risky this week (a reassuring reading), each
+    under its heading with its count, and the first few of a long list only, saying so [derived]."""
+    from fleet.roles import PLANNER
+    from tests.factories import make_user
+
+    monkeypatch.setattr("fleet.views.planning.PLAN_CHANGES_SHOWN", 2)
+    soon, month_ago = timezone.localdate() + dt.timedelta(days=30), timezone.now() - dt.timedelta(days=30)
+    moved = {"worse": [], "better": []}
+    for direction, was, now, n in (("worse", "sound", "replace now", 3), ("better", "replace now", "watch", 1)):
+        for _ in range(n):
+            fitted_capacitor = make_fitted_capacitor(motor=make_motor())
+            stored_assessment(fitted_capacitor, was, soon, created_at=month_ago)
+            stored_assessment(fitted_capacitor, now, soon, reason=f"{direction} on the reading of this week")
+            moved[direction].append(fitted_capacitor.motor.asset_tag)
+    client.force_login(make_user(PLANNER))
+    body = client.get(reverse("plan"), {"days": 90}).content.decode()
+    assert "3 capacitors got riskier and 1 less risky" in body
+    riskier = body[body.index('id="risk-worse-heading"') : body.index('id="risk-better-heading"')]
+    less_risky = body[body.index('id="risk-better-heading"') : body.index("Capacitors to replace within")]
+    assert "Riskier: 3" in riskier and "(the first 2, soonest replacement first)" in riskier
+    assert sum(tag in riskier for tag in moved["worse"]) == 2
+    assert "Less risky: 1" in less_risky and "the first" not in less_risky
+    assert moved["better"][0] in less_risky and "better on the reading of this week" in less_risky
+    assert not any(tag in less_risky for tag in moved["worse"])

@@ -165,7 +165,7 @@ def test_the_planner_moves_a_visit_off_a_holiday_and_the_plan_keeps_the_move(pla
     assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {HOLIDAY}  # nothing moved half-way
 
     eve = HOLIDAY - dt.timedelta(days=1)
-    assert move_visit(site_id=site.id, due_on=HOLIDAY, to_day=eve, user=planner, today=MONDAY) == 2
+    assert move_visit(site_id=site.id, due_on=HOLIDAY, to_day=eve, user=planner, today=MONDAY).moved == 2
     orders = list(WorkOrder.objects.all())
     assert {(o.due_on, o.moved_from) for o in orders} == {(eve, HOLIDAY)}
     assert {o.pk: (o.kind, o.reason, o.state, o.window_days) for o in orders} == before
@@ -311,7 +311,7 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
     )
     assert entry.user_id == planner.id  # who cancelled it, from the request as for every change
     response = client.post(cancel, {"reason": "sent twice"}, follow=True)  # a double tap: said, not refused
-    assert "That work order is cancelled already." in response.content.decode()
+    assert f"it was cancelled by {planner.username} on " in response.content.decode()
     assert WorkOrder.objects.get(pk=order.pk).cancel_reason == "motor replaced whole last week"
     assert client.get(reverse("work_order_cancel", args=[10**30])).status_code == 404
     client.force_login(technician)
@@ -319,3 +319,57 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
     assert client.post(reverse("work_order_cancel", args=[other.id]), {"reason": "no"}).status_code == 403
     assert client.post(url, {"to_day": working.isoformat()}).status_code == 403
     assert WorkOrder.objects.get(pk=other.pk).state == "planned"
+
+
+def test_a_move_or_a_cancel_sent_twice_says_it_was_done_already_by_whom_and_when(client, planner):
+    """A double tap (or a form sent again) on "Move the whole visit" answered "That visit has no open work
+    orders": the first copy had moved it. [derived] the second copy finds the visit on the day it asks
+    for and says so, by whom and when, on that day's sheet; nothing is written twice. A planner whose page
+    was open while another moved the visit elsewhere is told where it went, and nothing moves. A cancel
+    sent again names who cancelled it, when and why."""
+    from fleet.roles import PLANNER
+    from tests.factories import make_user
+
+    today = timezone.localdate()
+    site = make_site(code="TWICE")
+    _due(site, today + dt.timedelta(days=10), 2)
+    plan_work_orders(horizon_days=90, user=planner, today=today)
+    day = WorkOrder.objects.first().due_on
+    working = [day + dt.timedelta(days=n) for n in range(1, 9) if (day + dt.timedelta(days=n)).weekday() < 5]
+    url = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    client.force_login(planner)
+    assert client.post(url, {"to_day": working[0].isoformat()}).status_code == 302
+    entries = AuditEntry.objects.filter(model="fleet.workorder", changes__has_key="due_on").count()
+    again = client.post(url, {"to_day": working[0].isoformat()}, follow=True)
+    assert again.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, working[0].isoformat()])
+    text = again.content.decode()
+    assert f"moved from {day:%a %Y-%m-%d} to {working[0]:%a %Y-%m-%d} already, by {planner.username} on " in text
+    assert "no open work orders" not in text
+    assert AuditEntry.objects.filter(model="fleet.workorder", changes__has_key="due_on").count() == entries
+    # Another planner, with the first day's sheet still open, moves it elsewhere: told where it went.
+    other = Client()
+    other.force_login(make_user(PLANNER))
+    late = other.post(url, {"to_day": working[1].isoformat()}, follow=True).content.decode()
+    assert f"moved from {day:%a %Y-%m-%d} to {working[0]:%a %Y-%m-%d} by {planner.username} on " in late
+    assert "nothing moved" in late
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {working[0]}
+    # Moved again from its new day, the second move's double tap is recognised too.
+    second = reverse("visit_sheet", args=[site.code, working[0].isoformat()])
+    assert other.post(second, {"to_day": working[2].isoformat()}).status_code == 302
+    text = other.post(second, {"to_day": working[2].isoformat()}, follow=True).content.decode()
+    assert f"to {working[2]:%a %Y-%m-%d} already" in text
+    for sheet in (url, second):  # a sheet of either earlier day, printed or kept open, leads to the visit
+        arrived = client.get(sheet, follow=True)
+        assert arrived.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, working[2].isoformat()])
+        assert f"was moved to {working[2]:%a %Y-%m-%d} by " in arrived.content.decode()
+
+    order = WorkOrder.objects.first()
+    cancel = reverse("work_order_cancel", args=[order.id])
+    assert client.post(cancel, {"reason": "motor scrapped"}).status_code == 302
+    closed_at = timezone.localtime(WorkOrder.objects.get(pk=order.pk).closed_at)
+    text = other.post(cancel, {"reason": "sent again"}, follow=True).content.decode()
+    assert f"it was cancelled by {planner.username} on {closed_at:%Y-%m-%d %H:%M} (motor scrapped)" in text
+    assert WorkOrder.objects.get(pk=order.pk).cancel_reason == "motor scrapped"
+    with pytest.raises(ValidationError) as refused:  # the service says the same
+        cancel_order(order_id=order.id, reason="again", user=planner)
+    assert f"cancelled by {planner.username} on {closed_at:%Y-%m-%d %H:%M}" in refused.value.message_dict["order"][0]

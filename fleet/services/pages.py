@@ -42,6 +42,7 @@ from fleet.models import (
     Reading,
     RefitRun,
     Site,
+    WorkOrder,
 )
 from fleet.roles import scope_to_user, visible_site_ids
 
@@ -346,27 +347,52 @@ READING_STATES = ("overdue", "due", "read")  # `reading_status`'s parts: every m
 ROUTE_COLUMNS = ("asset_tag", "location", "route_order", "application", "last_read_at")  # what a route row shows
 
 
+def read_again_orders():
+    """The open "read again" orders of capacitors in service: each asks for a new reading of its capacitor
+    (the plan raises one where the trend's early crossing passed with no reading since, `planning.read_again`;
+    the next reading closes it, `workorders.close_read_again_orders`), so its motor is still to read."""
+    return WorkOrder.objects.filter(
+        kind=WorkOrder.Kind.READ_AGAIN, state__in=WorkOrder.OPEN_STATES, fitted_capacitor__removed_on__isnull=True
+    )
+
+
 def motors_by_reading_status(user=None, site: Site | None = None, today: dt.date | None = None) -> dict:
     """Motors in service per site at the user's sites (`site` alone when given), {site_id: {state: n}} for
     each of `READING_STATES` by `reading_status`, sites with none left out: summed from the ledger of
     motors by site and UTC day of their stored last reading (`MotorReadCount`, kept by triggers on
-    motors), a few hundred rows whatever the fleet's size."""
-    status = reading_status(today or timezone.localdate(), "last_read_on")
+    motors), a few hundred rows whatever the fleet's size. A motor read this quarter with an open "read
+    again" order (`read_again_orders`) counts as due, as its route row shows it: one more query, over
+    those orders alone."""
+    today = today or timezone.localdate()
+    status = reading_status(today, "last_read_on")
     rows = scope_to_user(MotorReadCount.objects.all(), user)
+    orders = scope_to_user(read_again_orders(), user).filter(
+        reading_status(today, "motor__last_read_at", "motor__commissioned_on")["read"],
+        motor__status=Motor.Status.IN_SERVICE,
+    )
     if site is not None:
-        rows = rows.filter(site=site)
+        rows, orders = rows.filter(site=site), orders.filter(site=site)
     sums = {name: Coalesce(Sum("n", filter=status[name]), 0) for name in READING_STATES}
-    counts = rows.values("site_id").annotate(**sums).order_by()
-    return {row.pop("site_id"): row for row in counts if any(row.values())}
+    counts = {row.pop("site_id"): row for row in rows.values("site_id").annotate(**sums).order_by()}
+    read_again = orders.values("motor__site_id").annotate(n=Count("motor_id", distinct=True)).order_by()
+    for row in read_again:
+        by_state = counts.get(row["motor__site_id"])
+        if by_state is not None:
+            moved = min(row["n"], by_state["read"])
+            by_state["read"], by_state["due"] = by_state["read"] - moved, by_state["due"] + moved
+    return {site_id: row for site_id, row in counts.items() if any(row.values())}
 
 
 def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None = None):
     """The site's motors in service in walking order (`RouteRows`, to read a page at a time), each with
     `due` when it was not read this quarter and `overdue` when its reading is overdue (`reading_status`,
-    on the stored `last_read_at`); with the counts of all, the due and the overdue motors (from the
-    ledger, `motors_by_reading_status`) and the days the rule counts from (`quarter_start`, `overdue_before`)."""
+    on the stored `last_read_at`, or an open "read again" order of one of its capacitors: `read_again_orders`);
+    with the counts of all, the due and the overdue motors (from the ledger, `motors_by_reading_status`,
+    by the same rule) and the days the rule counts from (`quarter_start`, `overdue_before`)."""
     today = today or timezone.localdate()
     status = reading_status(today)
+    # The site's few motors asked to read again, as one set the database reads once (not a probe per motor).
+    to_read = status["to_read"] | Q(pk__in=read_again_orders().filter(site=site).values("motor_id"))
     by_state = motors_by_reading_status(site=site, today=today).get(site.id, dict.fromkeys(READING_STATES, 0))
     counts = {
         "total": sum(by_state.values()),
@@ -374,8 +400,8 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
         "overdue": by_state["overdue"],
     }
     motors = Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
-    listed = (motors.filter(status["to_read"]) if only_due else motors).annotate(
-        due=ExpressionWrapper(status["to_read"], BooleanField()),
+    listed = (motors.filter(to_read) if only_due else motors).annotate(
+        due=ExpressionWrapper(to_read, BooleanField()),
         overdue=ExpressionWrapper(status["overdue"], BooleanField()),
     )
     days = {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today)}
@@ -390,7 +416,8 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
 class RouteRows:
     """A route's motors as a Paginator pages them: their number as the ledger counts it (no count of the
     site's motors), a page's motors read in one query, each with `still_to_read`
-    (`positions_still_to_read` since the quarter began, one more query of values)."""
+    (`positions_still_to_read` since the quarter began, one more query of values) and `read_again`
+    (`read_again_by_motor`, one more)."""
 
     def __init__(self, motors, count: int, since: dt.datetime):
         self.motors, self.length, self.since = motors, count, since
@@ -403,9 +430,11 @@ class RouteRows:
 
     def __getitem__(self, window: slice) -> list:
         motors = list(self.motors[window])
-        unread = positions_still_to_read([motor.id for motor in motors], self.since) if motors else {}
+        motor_ids = [motor.id for motor in motors]
+        unread = positions_still_to_read(motor_ids, self.since) if motors else {}
+        reread = read_again_by_motor(motor_ids) if motors else {}
         for motor in motors:
-            motor.still_to_read = unread.get(motor.id, [])
+            motor.still_to_read, motor.read_again = unread.get(motor.id, []), reread.get(motor.id, [])
         return motors
 
 
@@ -432,6 +461,29 @@ def positions_still_to_read(motor_ids: list[int], since: dt.datetime) -> dict[in
         for motor_id, roles in positions.items()
     }
     return {motor_id: roles for motor_id, roles in unread.items() if 0 < len(roles) < len(positions[motor_id])}
+
+
+def read_again_by_motor(motor_ids: list[int]) -> dict[int, list[dict]]:
+    """The open "read again" orders (`read_again_orders`) of each of `motor_ids`, in role order: each
+    {"order_id", "fitted_capacitor_id", "capacitor" (its role in words), "due_on"}; one query of values,
+    for a route row's "read again: work order ..." and its link to the reading form."""
+    rows = (
+        read_again_orders()
+        .filter(motor_id__in=motor_ids)
+        .order_by("motor_id", "fitted_capacitor__role", "id")
+        .values_list("motor_id", "id", "fitted_capacitor_id", "fitted_capacitor__role", "due_on")
+    )
+    orders = defaultdict(list)
+    for motor_id, order_id, fitted_capacitor_id, role, due_on in rows:
+        orders[motor_id].append(
+            {
+                "order_id": order_id,
+                "fitted_capacitor_id": fitted_capacitor_id,
+                "capacitor": ROLE_NAMES[role],
+                "due_on": due_on,
+            }
+        )
+    return dict(orders)
 
 
 def position_readings():

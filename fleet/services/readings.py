@@ -386,9 +386,7 @@ def replace_capacitor(
         successor.stock_left, successor.from_stock = _take_from_stock(site_id=locked.motor.site_id, part=part)
         successor.replayed = False
         audited_update(
-            WorkOrder.objects.filter(
-                fitted_capacitor=locked, state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
-            ),
+            WorkOrder.objects.filter(fitted_capacitor=locked, state__in=WorkOrder.OPEN_STATES),
             state=WorkOrder.State.DONE,
             closed_at=timezone.now(),
             closed_by=user if user and user.is_authenticated else None,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+from dataclasses import dataclass
 from functools import reduce
 from operator import or_
 
@@ -22,7 +23,7 @@ from fleet.engineering.planning import (
     plan_moved_words,
     visit_day_problem,
 )
-from fleet.models import Assessment, FittedCapacitor, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
@@ -32,7 +33,7 @@ KIND_FOR_ROLE = {
     FittedCapacitor.Role.RUN: WorkOrder.Kind.REPLACE_RUN,
     FittedCapacitor.Role.START: WorkOrder.Kind.REPLACE_START,
 }
-OPEN = [WorkOrder.State.PLANNED, WorkOrder.State.ISSUED]
+OPEN = list(WorkOrder.OPEN_STATES)
 # The kinds of order the plan gives a capacitor: replace it, or read it again first.
 CAPACITOR_KINDS = [*KIND_FOR_ROLE.values(), WorkOrder.Kind.READ_AGAIN]
 
@@ -215,7 +216,14 @@ def cancel_order(*, order_id: int, reason: str, user=None) -> WorkOrder:
     with transaction.atomic():
         order = open_orders(user).select_for_update(of=("self",)).filter(pk__in=storable_ids([order_id])).first()
         if order is None:
-            raise ValidationError({"order": "That work order is not open at your sites: it was closed or cancelled."})
+            closed = (
+                scope_to_user(WorkOrder.objects.select_related("closed_by"), user)
+                .filter(pk__in=storable_ids([order_id]))
+                .first()
+            )
+            if closed is None:
+                raise ValidationError({"order": "That work order is not open at your sites: reload the page."})
+            raise ValidationError({"order": f"That work order is not open: it was {closed_words(closed)}."})
         audited_update(
             WorkOrder.objects.filter(pk=order.pk),
             state=WorkOrder.State.CANCELLED,
@@ -227,14 +235,39 @@ def cancel_order(*, order_id: int, reason: str, user=None) -> WorkOrder:
     return order
 
 
+def closed_words(order: WorkOrder) -> str:
+    """How a closed order was closed, by whom and when, in words: "cancelled by alice on 2026-12-03 14:05
+    (parts not in yet)", "done, closed by bob on 2026-12-03 14:05" (with `closed_by` read)."""
+    who = order.closed_by.get_username() if order.closed_by is not None else "the system"
+    when = timezone.localtime(order.closed_at).strftime("%Y-%m-%d %H:%M") if order.closed_at else "an unknown time"
+    if order.state == WorkOrder.State.CANCELLED:
+        return f"cancelled by {who} on {when}" + (f" ({order.cancel_reason})" if order.cancel_reason else "")
+    return f"{order.get_state_display().lower()}, closed by {who} on {when}"
+
+
+@dataclass(frozen=True)
+class VisitMove:
+    """What `move_visit` did: `moved` orders put on `to_day`; `already`, the visit was on that day before
+    this request (a move sent twice: a double tap, a form sent again; none moved now), moved by `by` on `at`."""
+
+    moved: int
+    to_day: dt.date
+    already: bool = False
+    by: str = ""
+    at: str = ""
+
+
 def move_visit(
     *, site_id: int, due_on: dt.date, to_day: dt.date | None, user=None, today: dt.date | None = None
-) -> int:
+) -> VisitMove:
     """Move a whole visit, every open order of a site on `due_on`, to `to_day` (a working day, not in the
     past, within the plan's reach: `planning.visit_day_problem`), at a site `user` works at (None: any).
     Each order keeps all else and remembers the day the plan had put it on (`moved_from`, kept through a
     second move), so the next plan keeps the move. Onto a day the site already has a visit, the two become
-    one. Returns the number of orders moved; bad input is a ValidationError by field (`to_day`, `visit`)."""
+    one. The orders are locked before they move: two moves at once take turns, and the second finds the
+    visit gone. A move of a visit already moved to `to_day` is answered as done (`already`, nothing
+    written); one moved elsewhere meanwhile is refused, saying where, by whom and when (`visit_moved_to`).
+    Bad input is a ValidationError by field (`to_day`, `visit`)."""
     today = today or timezone.localdate()
     if to_day is None:
         raise ValidationError({"to_day": "Enter the day to move the visit to, e.g. 2026-12-24."})
@@ -251,12 +284,63 @@ def move_visit(
             .order_by("pk")
         )
         if not orders:
-            raise ValidationError({"visit": "That visit has no open work orders at your sites: reload the page."})
+            moved = visit_moved_to(site_id, due_on, user)
+            if moved is None:
+                raise ValidationError({"visit": "That visit has no open work orders at your sites: reload the page."})
+            if moved.to_day == to_day:
+                return moved
+            raise ValidationError(
+                {
+                    "visit": f"That visit was moved from {due_on:%a %Y-%m-%d} to {moved.to_day:%a %Y-%m-%d} by "
+                    f"{moved.by} on {moved.at} while your page was open: nothing moved. Move it from its "
+                    "new day if it should go elsewhere."
+                }
+            )
         for order in orders:
             order.moved_from = order.moved_from or order.due_on
             order.due_on = to_day
         audited_bulk_update(orders, ["due_on", "moved_from"])
-    return len(orders)
+    return VisitMove(moved=len(orders), to_day=to_day)
+
+
+def visit_moved_to(site_id: int, due_on: dt.date, user=None) -> VisitMove | None:
+    """Where a visit a planner moved off `due_on` is now, from the newest move of its open orders in the
+    audit trail (who, when; the orders' `moved_from` keeps the plan's day, not the day of a second move),
+    else from an open order the plan had put on that day (`moved_from`, no trail: who and when unknown);
+    None where no open order at the site was moved off that day. Reads the site's moved open orders and
+    their entries: a few rows."""
+    rows = (
+        open_orders(user)
+        .filter(site_id__in=storable_ids([site_id]), moved_from__isnull=False)
+        .exclude(due_on=due_on)
+        .order_by("due_on")
+        .values_list("pk", "due_on", "moved_from")
+    )
+    moved, plan_day = {}, []
+    for pk, day, moved_from in rows:
+        moved[pk] = day
+        if moved_from == due_on:
+            plan_day.append(day)
+    if not moved:
+        return None
+    entries = AuditEntry.objects.filter(
+        model=WorkOrder._meta.label_lower,
+        object_id__in=[str(pk) for pk in moved],
+        action=AuditEntry.Action.UPDATE,
+        changes__has_key="due_on",
+    ).order_by("-at", "-id")
+    for entry in entries:
+        if entry.changes["due_on"][0] == due_on.isoformat():
+            return VisitMove(
+                moved=0,
+                to_day=moved[int(entry.object_id)],
+                already=True,
+                by=entry.username or "the system",
+                at=timezone.localtime(entry.at).strftime("%Y-%m-%d %H:%M"),
+            )
+    if plan_day:
+        return VisitMove(moved=0, to_day=plan_day[0], already=True, by="a planner", at="an earlier day")
+    return None
 
 
 def open_orders(user=None):

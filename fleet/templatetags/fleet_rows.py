@@ -122,15 +122,22 @@ ROUTE_ORDER_ERROR = (
     '<tr class="order-error"><td colspan="5" id="place-{tag}-error"><ul class="errorlist"><li>'
     "{tag}: {message}</li></ul></td></tr>\n"
 )
+# An open "read again" order on the motor: why a motor read this quarter is still to read, with the reading form.
+READ_AGAIN_LINE = (
+    '<br><span class="read-again">read again: work order {order_id} for the {capacitor}, visit {due_on}</span>'
+)
+READ_AGAIN_FORM = ' <a class="nowrap" href="{}">Record the reading</a>'
 HAS_ERROR = mark_safe(' class="has-error"')
 OVERDUE = mark_safe('<b class="error-text">overdue</b>')
 TO_READ = mark_safe("<b>to read</b>")
 
 
 @register.simple_tag
-def route_rows(motors, can_order, typed=None, errors=None):
-    """A route page's rows for `motors` (`pages.RouteRows`: with `due`, `overdue` and `still_to_read`),
-    each with its place on the route as a field when the user may change the walking order (`can_order`).
+def route_rows(motors, can_order, typed=None, errors=None, can_read=False):
+    """A route page's rows for `motors` (`pages.RouteRows`: with `due`, `overdue`, `still_to_read` and
+    `read_again`), each with its place on the route as a field when the user may change the walking order
+    (`can_order`); an open "read again" order says so, with a link to the reading form where the user may
+    log one (`can_read`).
     After a refused save, `typed` {motor id: text} fills the boxes as they were sent and `errors`
     {asset tag: [message]} marks each refused box, its message in a row under it."""
     typed, errors = typed or {}, errors or {}
@@ -158,10 +165,31 @@ def route_rows(motors, can_order, typed=None, errors=None):
                 location=motor.location,
                 application=motor.get_application_display(),
                 status=OVERDUE if motor.overdue else TO_READ if motor.due else "done",
-                unread=format_html('<br><span class="muted">{} still to read</span>', unread) if unread else "",
+                unread=format_html(
+                    "{}{}",
+                    format_html('<br><span class="muted">{} still to read</span>', unread) if unread else "",
+                    _read_again_lines(motor.read_again, can_read),
+                ),
                 last_read=day(template_localtime(motor.last_read_at)) or "never",
             )
         )
         if problems:
             rows.append(format_html(ROUTE_ORDER_ERROR, tag=motor.asset_tag, message=" ".join(problems)))
     return mark_safe("".join(rows))
+
+
+def _read_again_lines(orders, can_read: bool) -> str:
+    """A route row's lines for its motor's open "read again" orders (`pages.read_again_by_motor`)."""
+    lines = []
+    for order in orders:
+        link = format_html(READ_AGAIN_FORM, reverse("reading_new", args=[order["fitted_capacitor_id"]]))
+        lines.append(
+            format_html(
+                READ_AGAIN_LINE + "{link}",
+                order_id=order["order_id"],
+                capacitor=order["capacitor"],
+                due_on=day(order["due_on"]),
+                link=link if can_read else "",
+            )
+        )
+    return mark_safe("".join(lines))

@@ -29,6 +29,7 @@ from fleet.services.workorders import (
     CANCELLED_SHOWN_DAYS,
     OPEN,
     cancel_order,
+    closed_words,
     issue_visit,
     move_visit,
     open_orders,
@@ -36,6 +37,7 @@ from fleet.services.workorders import (
     open_visits_page,
     plan_work_orders,
     recently_cancelled,
+    visit_moved_to,
     with_current_plan,
     with_plan_now,
 )
@@ -63,8 +65,16 @@ def plan(request):
         "rules": PlanningSettings(),
         "alert_levels": pages.alert_level_words(),
     }
-    context["worse"], context["better"], context["changes"] = pages.risk_changes(days=7, user=request.user, site=site)
+    worse, better, changes = pages.risk_changes(days=7, limit=PLAN_CHANGES_SHOWN, user=request.user, site=site)
+    context["changes"] = changes
+    context["change_lists"] = [
+        {"id": "risk-worse", "title": "Riskier", "rows": list(worse), "count": changes["worse"]},
+        {"id": "risk-better", "title": "Less risky", "rows": list(better), "count": changes["better"]},
+    ]
     return render(request, "fleet/plan.html", context)
+
+
+PLAN_CHANGES_SHOWN = 20  # the plan lists this many riskier and as many less risky capacitors of the week
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)
@@ -144,32 +154,37 @@ def visit_sheet(request, site_code, day):
         if move_form.is_valid():
             to_day = move_form.cleaned_data["to_day"]
             try:
-                moved = move_visit(site_id=site.id, due_on=day, to_day=to_day, user=request.user)
+                move = move_visit(site_id=site.id, due_on=day, to_day=to_day, user=request.user)
             except ValidationError as error:
                 if "visit" in error.message_dict:
                     messages.error(request, " ".join(error.message_dict["visit"]))
                     return redirect("work_orders")
                 move_form.add_error("to_day", error.message_dict["to_day"])
             else:
-                messages.success(
-                    request,
-                    f"Visit moved from {day:%a %Y-%m-%d} to {to_day:%a %Y-%m-%d}: "
-                    f"{moved} work order{pluralize(moved)}. A new plan keeps the move.",
-                )
+                if move.already:  # sent twice: the first one moved it
+                    messages.info(
+                        request,
+                        f"The visit was moved from {day:%a %Y-%m-%d} to {to_day:%a %Y-%m-%d} already, by "
+                        f"{move.by} on {move.at}: nothing moved again.",
+                    )
+                else:
+                    messages.success(
+                        request,
+                        f"Visit moved from {day:%a %Y-%m-%d} to {to_day:%a %Y-%m-%d}: "
+                        f"{move.moved} work order{pluralize(move.moved)}. A new plan keeps the move.",
+                    )
                 return redirect("visit_sheet", site_code=site.code, day=to_day.isoformat())
     visit = open_visit(site.id, day, user=request.user)
     paginator = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE)
     if not paginator.count:
-        # A printed or bookmarked sheet of a visit the planner moved: on to the day it went to.
-        moved_to = (
-            WorkOrder.objects.filter(site=site, moved_from=day, state__in=OPEN)
-            .order_by("due_on")
-            .values_list("due_on", flat=True)
-            .first()
-        )
-        if moved_to is not None:
-            messages.info(request, f"The visit of {day:%a %Y-%m-%d} was moved to {moved_to:%a %Y-%m-%d}.")
-            return redirect("visit_sheet", site_code=site.code, day=moved_to.isoformat())
+        # A printed or bookmarked sheet of a visit the planner moved (once or more): on to the day it went to.
+        moved = visit_moved_to(site.id, day, user=request.user)
+        if moved is not None:
+            messages.info(
+                request,
+                f"The visit of {day:%a %Y-%m-%d} was moved to {moved.to_day:%a %Y-%m-%d} by {moved.by} on {moved.at}.",
+            )
+            return redirect("visit_sheet", site_code=site.code, day=moved.to_day.isoformat())
         raise Http404("No open work orders for that visit")
     page = list_page(request, paginator.get_page)
     page.object_list = with_plan_now(page.object_list)
@@ -181,20 +196,22 @@ def visit_sheet(request, site_code, day):
 def work_order_cancel(request, order_id):
     """The planner cancels one open work order, saying why (kept with the order; it is never deleted)."""
     order = get_object_or_404(
-        scope_to_user(WorkOrder.objects.select_related("motor", "site"), request.user).filter(
+        scope_to_user(WorkOrder.objects.select_related("motor", "site", "closed_by"), request.user).filter(
             pk__in=storable_ids([order_id])
         )
     )
     if order.state not in OPEN:  # sent twice, or closed since the page was opened
-        messages.info(request, f"That work order is {order.get_state_display().lower()} already.")
+        messages.info(request, f"That work order is not open: it was {closed_words(order)}. Nothing changed.")
         return redirect("work_orders")
     form = CancelOrderForm(request.POST or None)
     if request.method == "POST" and form.is_valid():
         try:
             cancel_order(order_id=order.id, reason=form.cleaned_data["reason"], user=request.user)
         except ValidationError as error:
-            for field, field_messages in error.message_dict.items():
-                form.add_error("reason" if field == "reason" else None, field_messages)
+            if "order" in error.message_dict:  # closed meanwhile (a reading, a replacement, another planner)
+                messages.info(request, f"{' '.join(error.message_dict['order'])} Nothing changed.")
+                return redirect("work_orders")
+            form.add_error("reason", error.message_dict["reason"])
         else:
             messages.success(request, f"Work order cancelled: {order.get_kind_display()} {order.motor.asset_tag}.")
             if open_orders(request.user).filter(site_id=order.site_id, due_on=order.due_on).exists():
