@@ -373,3 +373,27 @@ def test_a_move_or_a_cancel_sent_twice_says_it_was_done_already_by_whom_and_when
     with pytest.raises(ValidationError) as refused:  # the service says the same
         cancel_order(order_id=order.id, reason="again", user=planner)
     assert f"cancelled by {planner.username} on {closed_at:%Y-%m-%d %H:%M}" in refused.value.message_dict["order"][0]
+
+
+def test_a_visit_whose_orders_are_all_closed_says_what_became_of_each(client, planner):
+    """A visit whose only order the planner cancelled answered a 404 listing the site's addresses, while its
+    printed sheet and the "cancelled in the last 30 days" list still named it. [derived] the visit's address
+    says there is nothing open, and what became of each order (cancelled, by whom, why; done); a day with no
+    order at all is still a 404."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    site = make_site(code="SHUT")
+    part = make_part(code="RUN-30U-450")
+    _orders(site, part, day, 2)
+    first, second = WorkOrder.objects.filter(site=site).order_by("id")
+    cancel_order(order_id=first.id, reason="motor to be scrapped", user=planner)
+    WorkOrder.objects.filter(pk=second.pk).update(state=WorkOrder.State.DONE, closed_at=timezone.now())
+    client.force_login(planner)
+    response = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()]))
+    assert response.status_code == 200
+    text = response.content.decode()
+    assert "No open work orders for this visit: all 2 are closed." in text
+    assert f"Cancelled by {planner.username} on " in text and "(motor to be scrapped)" in text
+    assert "Done, closed by the system on " in text
+    assert "Move the whole visit" not in text  # nothing left to move
+    empty = client.get(reverse("visit_sheet", args=[site.code, (day + dt.timedelta(days=1)).isoformat()]))
+    assert empty.status_code == 404

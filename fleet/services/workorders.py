@@ -303,6 +303,27 @@ def move_visit(
     return VisitMove(moved=len(orders), to_day=to_day)
 
 
+CLOSED_VISIT_SHOWN = 100  # a closed visit's orders listed at most (a visit holds tens)
+
+
+def closed_visit(site_id: int, day: dt.date, user=None) -> dict:
+    """A visit with no open order left (each done or cancelled): its closed orders in walking order, each with
+    how it was closed in words (`closed_words`), at most CLOSED_VISIT_SHOWN, and how many there are. A printed
+    sheet or a bookmark of it then says what became of the visit, not that it never was."""
+    orders = (
+        scope_to_user(WorkOrder.objects.all(), user)
+        .filter(site_id=site_id, due_on=day)
+        .exclude(state__in=OPEN)
+        .select_related("motor", "fitted_capacitor__part", "closed_by")
+        .order_by(*WALKING_ORDER)
+    )
+    listed = list(orders[: CLOSED_VISIT_SHOWN + 1])
+    for order in listed:
+        order.closed_words = closed_words(order)
+    count = len(listed) if len(listed) <= CLOSED_VISIT_SHOWN else orders.count()
+    return {"day": day, "orders": listed[:CLOSED_VISIT_SHOWN], "count": count}
+
+
 def visit_moved_to(site_id: int, due_on: dt.date, user=None) -> VisitMove | None:
     """Where a visit a planner moved off `due_on` is now, from the newest move of its open orders in the
     audit trail (who, when; the orders' `moved_from` keeps the plan's day, not the day of a second move),

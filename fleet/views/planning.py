@@ -29,6 +29,7 @@ from fleet.services.workorders import (
     CANCELLED_SHOWN_DAYS,
     OPEN,
     cancel_order,
+    closed_visit,
     closed_words,
     issue_visit,
     move_visit,
@@ -185,7 +186,11 @@ def visit_sheet(request, site_code, day):
                 f"The visit of {day:%a %Y-%m-%d} was moved to {moved.to_day:%a %Y-%m-%d} by {moved.by} on {moved.at}.",
             )
             return redirect("visit_sheet", site_code=site.code, day=moved.to_day.isoformat())
-        raise Http404("No open work orders for that visit")
+        closed = closed_visit(site.id, day, user=request.user)
+        if not closed["count"]:
+            raise Http404("No work orders for that visit")
+        # Every order done or cancelled: the sheet says what became of each (a bookmark or a printed sheet).
+        return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
     page = list_page(request, paginator.get_page)
     page.object_list = with_plan_now(page.object_list)
     context = {"visit": visit, "site": site, "page": page, "move_form": move_form}
