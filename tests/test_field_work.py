@@ -68,17 +68,22 @@ def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, t
         ("yesterday", "Not a date and time"),
     ],
 )
-def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
+def test_a_taken_at_the_rulebook_refuses_is_said_once_at_its_field_and_linked_from_the_summary(
     client, technician, madrid_fitted_capacitor, taken_at, message
 ):
+    """Ours: the summary, the field and the live hint said the same thing three times. The message stands once,
+    at the field; the summary above the cautions names the field and links to it."""
     client.force_login(technician)
     response = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at=taken_at)
     assert response.status_code == 200 and not Reading.objects.exists()
     assert message in response.context["form"].errors["taken_at"][0]
     body = response.content.decode()
-    summary = body.index('id="error-summary"')
-    assert summary < body.index("Caution: capacitors store a charge")
-    assert message in strip_tags(body[summary : body.index("Caution: capacitors store a charge")])
+    summary = body[body.index('id="error-summary"') : body.index("Caution: capacitors store a charge")]
+    assert re.search(r'<a href="#wrap_taken_at">Taken at</a>', summary)
+    assert message not in strip_tags(summary)
+    assert strip_tags(body).count(message) == 1
+    field = body[body.index('id="wrap_taken_at"') :]
+    assert message in strip_tags(field[: field.index("</ul>")])
     assert f'value="{taken_at}"' in body  # what was typed is shown again, not lost
 
 

@@ -269,9 +269,10 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
         assert response.status_code == 400, typed
         field = body[body.index('id="wrap_to_day"') :]
         assert says in field[: field.index("</ul>")], typed
-        # Also at the top of the page, which scrolls to it: on a phone the form sits below the first screen.
+        # Named at the top of the page, which scrolls to it (on a phone the form sits below the first screen),
+        # with a link to the field: the message itself is said once, at the field.
         summary = body[body.index('id="error-summary"') : body.index('id="wrap_to_day"')]
-        assert 'href="#wrap_to_day"' in summary and says in summary, typed
+        assert 'href="#wrap_to_day"' in summary and says not in summary, typed
     gone = reverse("visit_sheet", args=[site.code, (day + dt.timedelta(days=1)).isoformat()])
     response = client.post(gone, {"to_day": day.isoformat()}, follow=True)
     assert response.status_code == 200 and "That visit has no open work orders" in response.content.decode()
