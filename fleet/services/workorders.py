@@ -21,6 +21,7 @@ from fleet.engineering.planning import (
     bundle_visits,
     plan_moved_words,
     visit_day_problem,
+    working_days_near,
 )
 from fleet.models import Assessment, FittedCapacitor, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
@@ -257,6 +258,11 @@ def move_visit(
             order.due_on = to_day
         audited_bulk_update(orders, ["due_on", "moved_from"])
     return len(orders)
+
+
+def move_choices(due_on: dt.date, today: dt.date | None = None) -> list[dt.date]:
+    """The working days next to a visit on `due_on` that `move_visit` takes (`planning.working_days_near`)."""
+    return working_days_near(due_on, today or timezone.localdate(), weekmask=PlanningSettings().working_days)
 
 
 def open_orders(user=None):

@@ -30,6 +30,7 @@ from fleet.services.workorders import (
     OPEN,
     cancel_order,
     issue_visit,
+    move_choices,
     move_visit,
     open_orders,
     open_visit,
@@ -173,7 +174,13 @@ def visit_sheet(request, site_code, day):
         raise Http404("No open work orders for that visit")
     page = list_page(request, paginator.get_page)
     page.object_list = with_plan_now(page.object_list)
-    context = {"visit": visit, "site": site, "page": page, "move_form": move_form}
+    context = {
+        "visit": visit,
+        "site": site,
+        "page": page,
+        "move_form": move_form,
+        "move_choices": move_choices(day),
+    }
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
 
 
