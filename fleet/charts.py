@@ -6,6 +6,7 @@ import numpy as np
 import plotly.graph_objects as go
 
 from .engineering.backtest import QUANTILES
+from .engineering.lifedata import age_in_words, age_unit
 
 INK = "#1d2a33"
 TREND = "#2563a8"
@@ -134,13 +135,28 @@ def _log_ticks(low: float, high: float) -> list[float]:
     return [tick for tick in ticks if low <= tick <= high]
 
 
+# A best age in this first share of the curve's ages stood on the cost axis: the axis then ends at
+# `BEST_AGE_SHOWN_TO` times it, which puts the best age a fifth of the way along (ours).
+BEST_AGE_CROWDED_SHARE = 0.1
+BEST_AGE_SHOWN_TO = 5.0
+
+
 def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_age: float | None) -> dict:
-    """Cost per year of replacing at each age, against running every capacitor to failure."""
+    """Cost per year of replacing at each age, against running every capacitor to failure. The age axis is in
+    the unit the best age is read in (`lifedata.age_unit`: months for one under a year), and labelled as the
+    page words it; a best age early in the curve is shown with the ages up to a few times it only, so that
+    its marker stands clear of the cost axis."""
+    ages, cost = np.asarray(ages_years, float), np.asarray(cost_per_year, float)
+    unit, per_year = ("years", 1.0) if optimum_age is None else age_unit(optimum_age)
+    shown_to = ages.max()
+    if optimum_age is not None and optimum_age < BEST_AGE_CROWDED_SHARE * ages.max():
+        shown_to = BEST_AGE_SHOWN_TO * optimum_age
+    shown = ages <= shown_to
     figure = go.Figure()
     figure.add_trace(
         go.Scatter(
-            x=ages_years,
-            y=cost_per_year,
+            x=(per_year * ages[shown]).tolist(),
+            y=cost[shown].tolist(),
             mode="lines",
             line={"color": TREND, "width": 2},
             name="replace at this age or at failure",
@@ -149,9 +165,14 @@ def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_
     figure.add_hline(y=run_to_failure, line={"color": LIMIT, "dash": "dash"}, annotation_text="run to failure")
     if optimum_age is not None:
         figure.add_vline(
-            x=optimum_age, line={"color": INK, "dash": "dot"}, annotation_text=f"best: {optimum_age:.1f} y"
+            x=per_year * optimum_age,
+            line={"color": INK, "dash": "dot"},
+            annotation_text=f"best: {age_in_words(optimum_age)}",
+            # Its words on the side with the room: past the middle, the run-to-failure words hold the right.
+            annotation_position="top right" if optimum_age < 0.5 * shown_to else "top left",
         )
-    return _styled(figure, height=320, xaxis_title="replacement age (years)", yaxis_title="cost per capacitor-year")
+    figure.update_xaxes(range=[0.0, per_year * shown_to])
+    return _styled(figure, height=320, xaxis_title=f"replacement age ({unit})", yaxis_title="cost per capacitor-year")
 
 
 def _styled(figure: go.Figure, height: int, **titles) -> dict:
