@@ -294,3 +294,18 @@ def test_the_move_visit_box_says_its_day_in_words_and_a_working_day_is_one_tap(p
     assert "is a Saturday" in phone.locator("#wrap_to_day .errorlist").inner_text()
     assert phone.locator("#to-day-words").inner_text() == f"Saturday {saturday.isoformat()}"
     assert phone.evaluate("document.documentElement.scrollWidth") <= 390
+
+
+def test_the_admin_motor_page_with_its_capacitors_fits_a_desktop_screen(phone):
+    """Ours: the fitted capacitors' inline (six boxes, the serial box 610 px wide) pushed the admin's motor
+    page to 1513 px at 1366. It fits; the removal is read on the row and edited on the capacitor's page."""
+    fitted_capacitor = make_fitted_capacitor(serial="2002-55408")
+    make_fitted_capacitor(motor=fitted_capacitor.motor, role="start", part=make_part(code="START-1"))
+    sign_in(phone, make_user("administrator"))
+    for width in (1366, 390):
+        phone.set_viewport_size({"width": width, "height": 900})
+        phone.goto(f"/admin/fleet/motor/{fitted_capacitor.motor.id}/change/")
+        phone.locator(".inline-group").scroll_into_view_if_needed()
+        assert phone.evaluate("document.documentElement.scrollWidth") <= width
+        assert phone.input_value("#id_capacitors-0-serial") == "2002-55408"
+        phone.screenshot(path=str(ARTIFACTS / f"admin-motor-{width}.png"))
