@@ -10,6 +10,7 @@ from django.contrib.auth import get_user_model
 from django.contrib.auth.admin import GroupAdmin, UserAdmin
 from django.contrib.auth.models import Group
 from django.core.exceptions import ValidationError
+from django.db import models
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
@@ -38,10 +39,17 @@ class SiteAdmin(admin.ModelAdmin):
 
 
 class FittedCapacitorInline(admin.TabularInline):
+    """The motor's capacitors, one row each, within a 1366 px screen (six boxes overflowed it by 150 px): the
+    serial box sized to a date code, the removal shown as text and recorded on the capacitor's own page
+    ("Change" on its row), where its day and reason are edited together."""
+
     model = FittedCapacitor
     extra = 0
     fields = ["role", "part", "serial", "fitted_on", "removed_on", "removal_reason"]
+    readonly_fields = ["removed_on", "removal_reason"]
     autocomplete_fields = ["part"]
+    show_change_link = True
+    formfield_overrides = {models.CharField: {"widget": forms.TextInput(attrs={"size": 14})}}
 
 
 @admin.register(Motor)

@@ -6,6 +6,7 @@ import numpy as np
 import plotly.graph_objects as go
 
 from .engineering.backtest import QUANTILES
+from .engineering.lifedata import age_in_words, age_unit
 
 INK = "#1d2a33"
 TREND = "#2563a8"
@@ -134,13 +135,28 @@ def _log_ticks(low: float, high: float) -> list[float]:
     return [tick for tick in ticks if low <= tick <= high]
 
 
+# A best age in this first share of the curve's ages stood on the cost axis: the axis then ends at
+# `BEST_AGE_SHOWN_TO` times it, which puts the best age a fifth of the way along (ours).
+BEST_AGE_CROWDED_SHARE = 0.1
+BEST_AGE_SHOWN_TO = 5.0
+
+
 def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_age: float | None) -> dict:
-    """Cost per year of replacing at each age, against running every capacitor to failure."""
+    """Cost per year of replacing at each age, against running every capacitor to failure. The age axis is in
+    the unit the best age is read in (`lifedata.age_unit`: months for one under a year), and labelled as the
+    page words it; a best age early in the curve is shown with the ages up to a few times it only, so that
+    its marker stands clear of the cost axis."""
+    ages, cost = np.asarray(ages_years, float), np.asarray(cost_per_year, float)
+    unit, per_year = ("years", 1.0) if optimum_age is None else age_unit(optimum_age)
+    shown_to = ages.max()
+    if optimum_age is not None and optimum_age < BEST_AGE_CROWDED_SHARE * ages.max():
+        shown_to = BEST_AGE_SHOWN_TO * optimum_age
+    shown = ages <= shown_to
     figure = go.Figure()
     figure.add_trace(
         go.Scatter(
-            x=ages_years,
-            y=cost_per_year,
+            x=(per_year * ages[shown]).tolist(),
+            y=cost[shown].tolist(),
             mode="lines",
             line={"color": TREND, "width": 2},
             name="replace at this age or at failure",
@@ -149,9 +165,14 @@ def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_
     figure.add_hline(y=run_to_failure, line={"color": LIMIT, "dash": "dash"}, annotation_text="run to failure")
     if optimum_age is not None:
         figure.add_vline(
-            x=optimum_age, line={"color": INK, "dash": "dot"}, annotation_text=f"best: {optimum_age:.1f} y"
+            x=per_year * optimum_age,
+            line={"color": INK, "dash": "dot"},
+            annotation_text=f"best: {age_in_words(optimum_age)}",
+            # Its words on the side with the room: past the middle, the run-to-failure words hold the right.
+            annotation_position="top right" if optimum_age < 0.5 * shown_to else "top left",
         )
-    return _styled(figure, height=320, xaxis_title="replacement age (years)", yaxis_title="cost per capacitor-year")
+    figure.update_xaxes(range=[0.0, per_year * shown_to])
+    return _styled(figure, height=320, xaxis_title=f"replacement age ({unit})", yaxis_title="cost per capacitor-year")
 
 
 def _styled(figure: go.Figure, height: int, **titles) -> dict:
@@ -514,10 +535,19 @@ def phasor_figure(states: dict[str, dict[str, tuple]], unit: str, where: str) ->
             )
     states_words = "dashed: as new, solid: now" if len(states) > 1 else "as new"
     quantity = "currents" if unit == "A" else "voltages"
+    # The radial axis and its numbers in the widest gap between the phasors: at a fixed 135 degrees they lay
+    # over any phasor that pointed there.
+    axis_angle = _widest_gap_deg([trace["theta"][1] for trace in traces])
     layout = {
         "polar": {
             "angularaxis": {"direction": "counterclockwise", "rotation": 0, "gridcolor": GRID, "dtick": 30},
-            "radialaxis": {"gridcolor": GRID, "angle": 135, "tickangle": 45, "nticks": 4, "tickfont": {"size": 11}},
+            "radialaxis": {
+                "gridcolor": GRID,
+                "angle": axis_angle,
+                "tickangle": axis_angle % 180.0 - 90.0,  # as Plotly drew them at 135 degrees: 45
+                "nticks": 4,
+                "tickfont": {"size": 11},
+            },
             "bgcolor": "white",
         },
         "margin": {"l": 30, "r": 30, "t": 30, "b": 20},
@@ -529,6 +559,64 @@ def phasor_figure(states: dict[str, dict[str, tuple]], unit: str, where: str) ->
         },
     }
     return _plain(traces, layout, PHASOR_HEIGHT_PX)
+
+
+def _widest_gap_deg(angles_deg) -> float:
+    """The middle of the widest angle between neighbouring directions (degrees, 0 to 360); 135 with none."""
+    if not len(angles_deg):
+        return 135.0
+    around = np.sort(np.mod(np.asarray(angles_deg, float), 360.0))
+    gaps = np.diff(np.r_[around, around[0] + 360.0])
+    widest = int(np.argmax(gaps))
+    return float(np.mod(around[widest] + gaps[widest] / 2.0, 360.0))
+
+
+# The sweep's words, measured for the narrowest screen it is drawn on (a 390 px phone: the plot about 290 px
+# wide, 11 px text about 6.2 px a character, 15 px a line); ours.
+SWEEP_PLOT_WIDTH_PX = 290.0
+SWEEP_CHAR_PX = 6.2
+SWEEP_LINE_PX = 15.0
+SWEEP_MARGIN_PX = {"l": 60, "r": 10, "t": 12, "b": 40}
+
+
+def _level_words_place(x, ys, level, words, panel_px):
+    """Where a limit's level is named clear of the data: (x in the domain, xanchor, yanchor) for the first of
+    left-above, right-above, left-below and right-below whose box holds no point of the curve or the markers
+    (the fewest, where each holds some), and the panel's y range with room for the words beyond the data."""
+    x, ys = np.asarray(x, float), np.asarray(ys, float)
+    kept = np.isfinite(x) & np.isfinite(ys)
+    x, ys = x[kept], ys[kept]
+    low, high = float(np.min(ys, initial=level)), float(np.max(ys, initial=level))
+    share_h = SWEEP_LINE_PX / panel_px
+    span = (high - low or abs(level) or 1.0) / (1.0 - 2.0 * share_h)
+    words_h = share_h * span
+    share_w = min(1.0, len(words) * SWEEP_CHAR_PX / SWEEP_PLOT_WIDTH_PX)
+    x_low, x_high = float(x.min()), float(x.max())
+    reach = share_w * (x_high - x_low)
+    candidates = []
+    for vertical, y_low, y_high in (("bottom", level, level + words_h), ("top", level - words_h, level)):
+        for edge, anchor, x_from, x_to in ((0, "left", x_low, x_low + reach), (1, "right", x_high - reach, x_high)):
+            inside = (x >= x_from) & (x <= x_to) & (ys >= y_low) & (ys <= y_high)
+            candidates.append((int(inside.sum()), len(candidates), (edge, anchor, vertical)))
+    place = min(candidates)[2]
+    return place, [low - words_h, high + words_h]
+
+
+def _crossing_rows(xs_share, words) -> list[int]:
+    """A row above the plot for each crossing's name (0: the lowest), so that no two names in a row overlap."""
+    ends: list[float] = []
+    rows = []
+    for share, text in sorted(zip(xs_share, words, strict=True)):
+        width = len(text) * SWEEP_CHAR_PX / SWEEP_PLOT_WIDTH_PX
+        left = min(max(share - width / 2.0, 0.0), 1.0 - width)
+        row = next((k for k, end in enumerate(ends) if end < left), len(ends))
+        ends[row : row + 1] = [left + width + 0.02]
+        rows.append(row)
+    order = np.argsort(xs_share, kind="stable")
+    placed = [0] * len(rows)
+    for k, index in enumerate(order):
+        placed[int(index)] = rows[k]
+    return placed
 
 
 SWEEP_PANELS = (  # (value key, axis title, what the limit's level is), top to bottom
@@ -552,6 +640,13 @@ def capacitance_sweep_figure(
     traces, shapes, annotations, layout = [], [], [], {}
     gap = 0.06
     height = (1 - 2 * gap) / len(SWEEP_PANELS)
+    inside = [c for c in crossings if percent_of_rated[0] <= c["percent_of_rated"] <= percent_of_rated[-1]]
+    span = percent_of_rated[-1] - percent_of_rated[0]
+    rows = _crossing_rows(
+        [(c["percent_of_rated"] - percent_of_rated[0]) / span for c in inside], [c["name"] for c in inside]
+    )
+    margin = SWEEP_MARGIN_PX | {"t": SWEEP_MARGIN_PX["t"] + SWEEP_LINE_PX * (max(rows, default=-1) + 1)}
+    panel_px = (SWEEP_HEIGHT_PX - margin["t"] - margin["b"] - 60) * height  # 60: the legend below
     for row, (key, title, level_words) in enumerate(SWEEP_PANELS):
         axis = "y" if row == 0 else f"y{row + 1}"
         top = 1 - row * (height + gap)
@@ -575,6 +670,11 @@ def capacitance_sweep_figure(
             }
         )
         if levels.get(key) is not None:
+            marked = [point[key] for point in points.values()], [point["percent_of_rated"] for point in points.values()]
+            (edge, x_anchor, y_anchor), y_range = _level_words_place(
+                [*percent_of_rated, *marked[1]], [*values[key], *marked[0]], levels[key], level_words, panel_px
+            )
+            layout["yaxis" if row == 0 else f"yaxis{row + 1}"]["range"] = y_range
             line = {"color": LIMIT, "dash": "dash", "width": 1.5}
             shapes.append(
                 {
@@ -591,13 +691,13 @@ def capacitance_sweep_figure(
             annotations.append(
                 {
                     "xref": "x domain",
-                    "x": 0,
+                    "x": edge,
                     "yref": axis,
                     "y": levels[key],
                     "text": level_words,
                     "showarrow": False,
-                    "xanchor": "left",
-                    "yanchor": "bottom",
+                    "xanchor": x_anchor,
+                    "yanchor": y_anchor,
                     "font": {"size": 11, "color": LIMIT},
                 }
             )
@@ -621,35 +721,39 @@ def capacitance_sweep_figure(
                     "hovertemplate": f"{label}: %{{x:.1f}} % of rated, %{{y:.3~f}}<extra></extra>",
                 }
             )
-    for crossing in crossings:
+    # Each crossing's name above the plot, level, on a row of its own where names would meet: drawn down the
+    # top panel they crossed its curve.
+    for crossing, words_row in zip(inside, rows, strict=True):
         x = crossing["percent_of_rated"]
-        if percent_of_rated[0] <= x <= percent_of_rated[-1]:
-            shapes.append(
-                {
-                    "type": "line",
-                    "xref": "x",
-                    "x0": x,
-                    "x1": x,
-                    "yref": "paper",
-                    "y0": 0,
-                    "y1": 1,
-                    "line": {"color": LIMIT, "dash": "dot", "width": 1},
-                }
-            )
-            annotations.append(
-                {
-                    "x": x,
-                    "y": 1.0,
-                    "xref": "x",
-                    "yref": "paper",
-                    "text": crossing["name"],
-                    "showarrow": False,
-                    "textangle": -90,
-                    "xanchor": "right",
-                    "yanchor": "top",
-                    "font": {"size": 11, "color": LIMIT},
-                }
-            )
+        share = (x - percent_of_rated[0]) / span
+        half = len(crossing["name"]) * SWEEP_CHAR_PX / SWEEP_PLOT_WIDTH_PX / 2.0
+        x_anchor = "left" if share < half else "right" if share > 1.0 - half else "center"
+        shapes.append(
+            {
+                "type": "line",
+                "xref": "x",
+                "x0": x,
+                "x1": x,
+                "yref": "paper",
+                "y0": 0,
+                "y1": 1,
+                "line": {"color": LIMIT, "dash": "dot", "width": 1},
+            }
+        )
+        annotations.append(
+            {
+                "x": x,
+                "y": 1.0,
+                "xref": "x",
+                "yref": "paper",
+                "text": crossing["name"],
+                "showarrow": False,
+                "xanchor": x_anchor,
+                "yanchor": "bottom",
+                "yshift": SWEEP_LINE_PX * words_row,
+                "font": {"size": 11, "color": LIMIT},
+            }
+        )
     layout |= {
         "xaxis": {
             "anchor": f"y{len(SWEEP_PANELS)}",
@@ -658,8 +762,9 @@ def capacitance_sweep_figure(
         },
         "shapes": shapes,
         "annotations": annotations,
-        "margin": {"l": 60, "r": 10, "t": 30, "b": 40},
-        "legend": {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 1, "xanchor": "right"},
+        "margin": margin,
+        # Below the plot: above it the legend met the crossings' names.
+        "legend": {"orientation": "h", "y": -0.2, "yanchor": "top", "x": 0, "xanchor": "left"},
     }
     return _plain(traces, layout, SWEEP_HEIGHT_PX)
 

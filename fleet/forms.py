@@ -161,7 +161,9 @@ class MoveVisitForm(forms.Form):
 
     to_day = forms.DateField(
         label="Move this visit to",
-        widget=forms.DateInput(attrs={"type": "date"}),
+        # The box is written in the browser's order of day, month and year: page.js says its day in words
+        # beside it (the element named by data-day-words).
+        widget=forms.DateInput(attrs={"type": "date", "data-day-words": "to-day-words"}),
         error_messages={
             "required": "Enter the day to move the visit to, e.g. 2026-12-24.",
             "invalid": "Enter the day as year-month-day, e.g. 2026-12-24.",

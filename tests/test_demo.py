@@ -59,3 +59,43 @@ def test_the_demo_built_early_in_the_day_holds_no_reading_later_than_its_buildin
             call_command("demo", "--no-serve", "--scale", "0.2")
         assert Reading.objects.exists()
         assert not Reading.objects.filter(taken_at__gt=early).exists()
+
+
+def test_the_scenarios_holidays_follow_the_calendar():
+    """Easter Sunday by the Gregorian computus against dates published in calendars (2000-04-23, 2019-04-21,
+    2024-03-31, 2025-04-20, 2026-04-05, 2027-03-28: from memory, unverified); the scenario's holidays (Irish,
+    from memory, unverified): 26 December 2026 is a Saturday, taken on Monday 28; 2027's 25 and 26 December
+    (Saturday and Sunday) on Monday 27 and Tuesday 28."""
+    from fleet.services.demo import _easter_sunday, scenario_holidays
+
+    published = {2000: (4, 23), 2019: (4, 21), 2024: (3, 31), 2025: (4, 20), 2026: (4, 5), 2027: (3, 28)}
+    assert {year: (d.month, d.day) for year, d in ((y, _easter_sunday(y)) for y in published)} == published
+    days = scenario_holidays([2026, 2027])
+    assert all(day.weekday() < 5 for day in days)
+    assert {dt.date(2026, 12, 25), dt.date(2026, 12, 28), dt.date(2026, 4, 6), dt.date(2026, 10, 26)} <= days
+    assert dt.date(2026, 12, 26) not in days and dt.date(2026, 12, 24) not in days
+    assert {dt.date(2027, 12, 27), dt.date(2027, 12, 28), dt.date(2027, 3, 29)} <= days
+
+
+def test_the_demos_visits_on_a_holiday_are_moved_to_the_working_day_before():
+    """Ours: the demo's plan put a visit on Friday 25 December (replace-by dates on Saturday 26 move back to the
+    working day before). Moved as its planner would: to Thursday 24, keeping the plan's day as `moved_from`;
+    a visit on Monday 28 (the Saturday holiday taken on the Monday) goes back over the weekend and Christmas
+    to Thursday 24 as well, where the two become one. A visit on a working day stays."""
+    from fleet.services.demo import move_visits_off_holidays
+    from fleet.services.workorders import plan_work_orders
+    from tests.factories import make_fitted_capacitor, make_motor, make_site, stored_assessment
+
+    today = dt.date(2026, 12, 3)
+    site = make_site(code="HOL")
+    for replace_by in (dt.date(2026, 12, 26), dt.date(2026, 12, 28), dt.date(2026, 12, 11)):
+        stored_assessment(make_fitted_capacitor(motor=make_motor(site=site)), "due soon", replace_by)
+    plan_work_orders(horizon_days=90, today=today, window_days=1)
+    planned = set(WorkOrder.objects.values_list("due_on", flat=True))
+    assert dt.date(2026, 12, 25) in planned, planned
+    assert move_visits_off_holidays(today=today) >= 1
+    days = sorted(WorkOrder.objects.values_list("due_on", "moved_from"))
+    assert all(day.weekday() < 5 for day, _ in days)
+    assert not {day for day, _ in days} & {dt.date(2026, 12, 25), dt.date(2026, 12, 28)}
+    assert (dt.date(2026, 12, 24), dt.date(2026, 12, 25)) in days
+    assert dt.date(2026, 12, 11) in {day for day, _ in days}  # a working day's visit is left where it is

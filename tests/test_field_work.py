@@ -68,17 +68,22 @@ def test_taken_at_defaults_to_now_and_the_page_offers_now_in_site_time(client, t
         ("yesterday", "Not a date and time"),
     ],
 )
-def test_a_taken_at_the_rulebook_refuses_is_named_in_the_summary(
+def test_a_taken_at_the_rulebook_refuses_is_said_once_at_its_field_and_linked_from_the_summary(
     client, technician, madrid_fitted_capacitor, taken_at, message
 ):
+    """Ours: the summary, the field and the live hint said the same thing three times. The message stands once,
+    at the field; the summary above the cautions names the field and links to it."""
     client.force_login(technician)
     response = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at=taken_at)
     assert response.status_code == 200 and not Reading.objects.exists()
     assert message in response.context["form"].errors["taken_at"][0]
     body = response.content.decode()
-    summary = body.index('id="error-summary"')
-    assert summary < body.index("Caution: capacitors store a charge")
-    assert message in strip_tags(body[summary : body.index("Caution: capacitors store a charge")])
+    summary = body[body.index('id="error-summary"') : body.index("Caution: capacitors store a charge")]
+    assert re.search(r'<a href="#wrap_taken_at">Taken at</a>', summary)
+    assert message not in strip_tags(summary)
+    assert strip_tags(body).count(message) == 1
+    field = body[body.index('id="wrap_taken_at"') :]
+    assert message in strip_tags(field[: field.index("</ul>")])
     assert f'value="{taken_at}"' in body  # what was typed is shown again, not lost
 
 
@@ -325,6 +330,51 @@ def test_the_life_data_page_finds_a_short_replacement_age_when_failures_cost_far
     text = page.content.decode()
     assert "No replacement age beats running to failure" not in text
     assert re.search(r"Replacing at <b>3\.[45]\xa0months</b>", text), text[text.find("Replacement age") :][:400]
+
+
+def test_a_short_best_replacement_age_is_marked_clear_of_the_cost_axis_in_the_unit_the_page_words_it(client, engineer):
+    """[pub] Barlow and Proschan's age replacement, as above: about 3.5 months. The chart drew its marker at
+    0.3 on an axis of years running to 16.5, on the cost axis, labelled "best: 0.3 y" beside "3.5 months" in
+    the text. Its axis is now in months, running from 0 to five times the best age (ours), and the marker is
+    labelled as the text words it. A best age of years keeps the axis in years over the whole curve."""
+    part = make_part(code="LIFE-3")
+    points = [[age, 1.0 - math.exp(-((age / 5.5) ** 1.48))] for age in (0.8, 1.6, 2.4, 3.5, 4.7)]
+    PartLifeFit.objects.create(part=part, beta=1.48, eta_years=5.5, failures=12, suspensions=40, plot_points=points)
+    client.force_login(engineer)
+    page = client.get(reverse("life_data"), {"part": "LIFE-3", "planned_cost": "60", "failure_cost": "10000"})
+    best = page.context["life"]["replacement"].optimum_age
+    layout = page.context["cost_chart"]["layout"]
+    (marker,) = [shape for shape in layout["shapes"] if shape["x0"] == shape["x1"]]
+    (label,) = [note["text"] for note in layout["annotations"] if note["text"].startswith("best: ")]
+    assert layout["xaxis"]["title"]["text"] == "replacement age (months)"
+    assert marker["x0"] == pytest.approx(12.0 * best) and label == f"best: {12.0 * best:.1f}\xa0months"
+    assert f"Replacing at <b>{12.0 * best:.1f}\xa0months</b>" in page.content.decode()
+    low, high = layout["xaxis"]["range"]
+    assert low == 0.0 and 0.15 <= marker["x0"] / high <= 0.25
+    assert max(page.context["cost_chart"]["data"][0]["x"]) <= high
+    years = client.get(reverse("life_data"), {"part": "LIFE-3", "planned_cost": "60", "failure_cost": "400"})
+    layout = years.context["cost_chart"]["layout"]
+    assert layout["xaxis"]["title"]["text"] == "replacement age (years)"
+    assert layout["xaxis"]["range"][1] == pytest.approx(max(years.context["cost_chart"]["data"][0]["x"]))
+    assert any(note["text"].endswith("\xa0years") for note in layout["annotations"])
+
+
+def test_the_life_data_part_menu_lists_codes_under_their_dielectric(client, engineer):
+    """Ours: each part was "code (dielectric)", cut off in the box at 390 px: "START-143U-330 (Aluminium ele".
+    The codes stand alone under a group named for their dielectric; the chosen part's dielectric is written
+    under the heading."""
+    make_part(code="RUN-1", dielectric="film")
+    make_part(code="START-1", dielectric="electrolytic")
+    client.force_login(engineer)
+    body = client.get(reverse("life_data"), {"part": "START-1"}).content.decode()
+    menu = body[body.index('<select id="part"') : body.index("</select>")]
+    groups = re.findall(r'<optgroup label="([^"]+)">(.*?)</optgroup>', menu)
+    assert [(label, re.findall(r">([^<]+)</option>", options)) for label, options in groups] == [
+        ("Aluminium electrolytic (start)", ["START-1"]),
+        ("Metallised film (run)", ["RUN-1"]),
+    ]
+    assert '<option value="START-1" selected>' in menu
+    assert '<p class="muted">Aluminium electrolytic (start)</p>' in body
 
 
 # The verdict and the risk, in words

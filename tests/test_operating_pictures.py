@@ -62,7 +62,7 @@ def test_the_sweep_spans_half_to_110_percent_with_the_limit_levels():
     motor = fitted_capacitor.motor
     assert pytest.approx(1.15 * motor.full_load_current_a) in levels  # [trade] service factor, as DriftLimits
     assert pytest.approx(450.0) in levels  # the part's rated voltage
-    crossings = [a["text"] for a in figure["layout"]["annotations"] if a.get("textangle") == -90]
+    crossings = [a["text"] for a in figure["layout"]["annotations"] if a.get("yref") == "paper"]  # above the plot
     assert "tolerance" in crossings
 
 
@@ -135,3 +135,35 @@ def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, e
     assert "Start capacitor voltage at standstill" in start_page
     run_page = client.get(reverse("fitted_capacitor", args=[run.id])).content.decode()
     assert "Running speed" in run_page and "out of circuit once the motor runs" not in run_page
+
+
+def test_the_sweeps_crossing_names_that_would_meet_go_on_rows_of_their_own():
+    """Ours: two crossings 2 % of rated apart would print their names over each other above the plot; the
+    second goes a row higher, and the top margin makes room for it. A limit's name goes on the side of its
+    level away from the curve."""
+    from fleet.charts import SWEEP_LINE_PX, SWEEP_MARGIN_PX, capacitance_sweep_figure
+
+    x = [50.0 + k for k in range(61)]
+    values = {
+        "starting_torque_nm": [0.01 * v for v in x],
+        "capacitor_voltage_v": [400.0 + v for v in x],
+        "main_current_a": [1.15 - 0.01 * (v - 50.0) for v in x],
+    }
+    levels = {"starting_torque_nm": 0.4, "capacitor_voltage_v": 450.0, "main_current_a": 1.1}
+    crossings = [
+        {"name": "tolerance", "percent_of_rated": 95.0},
+        {"name": "capacitor voltage", "percent_of_rated": 93.0},
+    ]
+    figure = capacitance_sweep_figure(x, 4.0, values, levels, {}, crossings)
+    names = {a["text"]: a for a in figure["layout"]["annotations"] if a.get("yref") == "paper"}
+    assert sorted(a["yshift"] for a in names.values()) == [0, SWEEP_LINE_PX]
+    assert figure["layout"]["margin"]["t"] == SWEEP_MARGIN_PX["t"] + 2 * SWEEP_LINE_PX
+    apart = capacitance_sweep_figure(
+        x, 4.0, values, levels, {}, [crossings[0], {**crossings[1], "percent_of_rated": 55.0}]
+    )
+    assert [a["yshift"] for a in apart["layout"]["annotations"] if a.get("yref") == "paper"] == [0, 0]
+    level_names = {a["text"]: a for a in figure["layout"]["annotations"] if a.get("yref") != "paper"}
+    # Main current falls from 1.15 to 0.55 A, crossing its 1.1 A level at 55 %: the name (most of the plot's
+    # width on a phone) goes on the right, above the line, where the curve runs below it.
+    current = level_names["most: full-load current \u00d7 service factor"]
+    assert (current["x"], current["xanchor"], current["yanchor"]) == (1, "right", "bottom")

@@ -256,6 +256,40 @@ def test_page_titles_are_plain_text(client, planner):
             assert not html_filters.search(block) and "<" not in block, (template, block)
 
 
+def test_the_visit_page_offers_the_working_days_next_to_the_visit_by_weekday_and_date(client, planner, technician):
+    """Ours: the date box shows a day in the browser's own order of day, month and year while the page writes
+    days as weekday and year-month-day. The box names the element that says its day in words (page.js), and
+    the working days next to the visit are offered as buttons written as the page writes days, each a day
+    the move takes. A technician, who cannot move visits, is offered none."""
+    today = timezone.localdate()
+    site = make_site(code="DAYS")
+    WorkOrder.objects.create(
+        motor=make_motor(site=site), kind="read_again", due_on=today + dt.timedelta(days=20), reason="read it again"
+    )
+    day = WorkOrder.objects.get().due_on
+    url = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    client.force_login(planner)
+    body = client.get(url).content.decode()
+    box = re.search(r'<input type="date" name="to_day"[^>]*>', body).group(0)
+    assert 'data-day-words="to-day-words"' in box and 'id="to-day-words"' in body
+    offered = re.findall(
+        r'<button type="button" class="button secondary" data-fills="id_to_day" value="([0-9-]+)">'
+        r'<span class="nowrap">(\w{3}) ([0-9-]+)</span></button>',
+        body,
+    )
+    assert len(offered) == 5
+    for value, weekday, written in offered:
+        offered_day = dt.date.fromisoformat(value)
+        assert written == value and weekday == offered_day.strftime("%a") and offered_day.weekday() < 5
+        assert offered_day != day and offered_day >= today
+    first = dt.date.fromisoformat(offered[0][0])
+    moved = client.post(url, {"to_day": first.isoformat()}, follow=True)
+    assert moved.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, first.isoformat()])
+    client.force_login(technician)
+    sheet = client.get(reverse("visit_sheet", args=[site.code, first.isoformat()]))
+    assert sheet.status_code == 200 and "data-fills" not in sheet.content.decode()
+
+
 def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(client, planner, technician):
     """Bad input is named at its field, never a server error; only the planner moves and cancels."""
     today = timezone.localdate()
@@ -277,9 +311,10 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
         assert response.status_code == 400, typed
         field = body[body.index('id="wrap_to_day"') :]
         assert says in field[: field.index("</ul>")], typed
-        # Also at the top of the page, which scrolls to it: on a phone the form sits below the first screen.
+        # Named at the top of the page, which scrolls to it (on a phone the form sits below the first screen),
+        # with a link to the field: the message itself is said once, at the field.
         summary = body[body.index('id="error-summary"') : body.index('id="wrap_to_day"')]
-        assert 'href="#wrap_to_day"' in summary and says in summary, typed
+        assert 'href="#wrap_to_day"' in summary and says not in summary, typed
     gone = reverse("visit_sheet", args=[site.code, (day + dt.timedelta(days=1)).isoformat()])
     response = client.post(gone, {"to_day": day.isoformat()}, follow=True)
     assert response.status_code == 200 and "That visit has no open work orders" in response.content.decode()

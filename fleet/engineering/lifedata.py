@@ -246,7 +246,7 @@ def age_replacement(fit: WeibullFit, planned_cost, failure_cost, ages=None) -> A
     Proschan), found on the logarithm of the age from a ten-thousandth of eta up,
     so an optimum far below eta (failures that cost far more than a planned change)
     is found as surely as one near it. `ages`: where the curve is drawn (by default
-    from half the optimum, or 5 % of eta, to three times eta).
+    from half the optimum, or 5 % of eta, to three times eta, evenly in the logarithm).
     """
 
     def cost_at(age):
@@ -271,6 +271,27 @@ def age_replacement(fit: WeibullFit, planned_cost, failure_cost, ages=None) -> A
                 optimum_age, optimum_cost = float(np.exp(found.x)), float(found.fun)
     if ages is None:
         low = 0.05 * fit.eta if optimum_age is None else min(0.05 * fit.eta, 0.5 * optimum_age)
-        ages = np.linspace(low, 3.0 * fit.eta, 240)
+        # Spaced evenly in the logarithm: a best age far below eta is drawn with as many points as one near it.
+        ages = np.geomspace(low, 3.0 * fit.eta, 240)
     ages = np.asarray(ages, float)
     return AgeReplacement(ages, cost_at(ages), optimum_age, optimum_cost, float(run_to_failure))
+
+
+# The units an age is read in, longest first: (name, how many in a year, the least age in years written in it).
+AGE_UNITS = (("years", 1.0, 1.0), ("months", 12.0, 1.0 / 12.0), ("days", 365.25, 0.0))
+
+
+def age_unit(years: float) -> tuple[str, float]:
+    """The unit a planner reads an age of `years` in, and how many of it make a year: years from one year,
+    months from one month, days below."""
+    return next((name, per_year) for name, per_year, least in AGE_UNITS if years >= least or name == "days")
+
+
+def age_in_words(years: float) -> str:
+    """An age in the unit it is read in (`age_unit`): 2.93 -> '2.9 years', 0.29 -> '3.5 months', 0.02 ->
+    '7 days', a no-break space before the unit."""
+    name, per_year = age_unit(years)
+    if name == "days":
+        days = round(per_year * years)
+        return f"{days}\u00a0day{'' if days == 1 else 's'}"
+    return f"{per_year * years:.1f}\u00a0{name}"

@@ -65,6 +65,22 @@ def visit_day_problem(day: dt.date, today: dt.date, weekmask: str | None = None)
     return ""
 
 
+def working_days_near(
+    day: dt.date, today: dt.date, *, before: int = 2, after: int = 3, weekmask: str | None = None
+) -> list[dt.date]:
+    """The working days next to a visit's `day` that it may be moved to (`visit_day_problem` finds nothing
+    against them): up to `before` working days before it and `after` after it, in date order. The choices the
+    visit sheet offers, so that a planner picks a day by its weekday and date rather than in a date box
+    written in the browser's own order of day, month and year."""
+    weekmask = PlanningSettings.working_days if weekmask is None else weekmask
+    start = np.datetime64(day, "D")
+    # A `day` off work is rolled towards the side counted from first: one step back is the working day before it.
+    earlier = np.busday_offset(start, -np.arange(before, 0, -1), roll="forward", weekmask=weekmask)
+    later = np.busday_offset(start, np.arange(1, after + 1), roll="backward", weekmask=weekmask)
+    days = np.concatenate([earlier, later]).astype(dt.date)
+    return [d for d in days if not visit_day_problem(d, today, weekmask)]
+
+
 ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
 EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
 

@@ -1043,22 +1043,20 @@ def _check_readings(
         # A capacitance that jumped up towards the rating is most often a capacitor changed and not recorded:
         # confirmed as a reading, the new capacitor's value would bend the old one's trend (trade).
         jumped = drift & (values["capacitance_uf"] > predicted)
-        confirm.add(
-            "capacitance_uf",
+        drift_words = _messages(
             drift,
-            _messages(
-                drift,
-                "{c:g} µF is far from this capacitor's trend ({p:.2f} µF). Re-measure, or confirm the value if it "
-                "is right",
-                c=values["capacitance_uf"],
-                p=predicted,
-            )
-            + np.where(
-                jumped,
-                ". If the capacitor was changed, record the replacement instead: the new one starts its own trend",
-                "",
-            ),
+            "{c:g} µF is far from this capacitor's trend ({p:.2f} µF). Re-measure, or confirm the value if it is right",
+            c=values["capacitance_uf"],
+            p=predicted,
+        ) + np.where(
+            jumped,
+            ". If the capacitor was changed, record the replacement instead: the new one starts its own trend",
+            "",
         )
+        # In circuit the capacitance is computed: the message goes where the tolerance's does, on the voltage
+        # read across the capacitor (the meter's field is not in use, nor shown on the form).
+        confirm.add("capacitance_uf", drift & ~in_circuit, drift_words)
+        confirm.add("capacitor_voltage_v", drift & in_circuit, drift_words)
     confirmed = _column(confirmed, n, bool)
     kept_confirm = {name: np.where(confirmed, "", m) for name, m in confirm.by_field.items()}
     asked = np.logical_or.reduce([*confirm.flagged.values(), np.zeros(n, bool)])

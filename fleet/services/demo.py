@@ -29,7 +29,14 @@ from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.circuits import circuit_fields
 from fleet.services.readings import replace_capacitor
-from fleet.services.workorders import KIND_FOR_ROLE, issue_visit, open_visits_page, plan_work_orders
+from fleet.services.workorders import (
+    KIND_FOR_ROLE,
+    issue_visit,
+    move_choices,
+    move_visit,
+    open_visits_page,
+    plan_work_orders,
+)
 
 FILM, ELECTROLYTIC = CapacitorPart.Dielectric.FILM, CapacitorPart.Dielectric.ELECTROLYTIC
 FAN_LAW, CONSTANT_TORQUE = Motor.LoadType.FAN_LAW, Motor.LoadType.CONSTANT
@@ -486,6 +493,7 @@ def build_work_orders(*, today: dt.date | None = None) -> None:
         ]
     )
     plan_work_orders(horizon_days=90, user=planner, today=today)
+    move_visits_off_holidays(today=today, user=planner)
     first_visits = {}
     for visit in open_visits_page(1, per_page=1000).object_list:
         first_visits.setdefault(visit["site"].id, visit)
@@ -503,6 +511,61 @@ def build_work_orders(*, today: dt.date | None = None) -> None:
             serial="on the visit",
         )
     _demo_stock()
+
+
+def scenario_holidays(years) -> set[dt.date]:
+    """The public holidays of the scenario's country (its sites keep Irish time) in `years`: 1 January, 17 March,
+    Easter Monday, the first Monday of February, May, June and August, the last Monday of October, 25 and 26
+    December; one falling on a weekend is taken on the next weekday not already a holiday. From memory,
+    unverified, and for the demo only: the plan knows working weekdays, and a planner moves a visit that falls
+    on a local holiday (the visit sheet's "Move the whole visit")."""
+    days = set()
+    for year in years:
+        fixed = [dt.date(year, 1, 1), dt.date(year, 3, 17), dt.date(year, 12, 25), dt.date(year, 12, 26)]
+        mondays = [_first_monday(year, month) for month in (2, 5, 6, 8)]
+        last_october = _first_monday(year, 11) - dt.timedelta(days=7)
+        for day in sorted([*fixed, *mondays, last_october, _easter_sunday(year) + dt.timedelta(days=1)]):
+            while day.weekday() >= 5 or day in days:
+                day += dt.timedelta(days=1)
+            days.add(day)
+    return days
+
+
+def _first_monday(year: int, month: int) -> dt.date:
+    first = dt.date(year, month, 1)
+    return first + dt.timedelta(days=(7 - first.weekday()) % 7)
+
+
+def _easter_sunday(year: int) -> dt.date:
+    """Easter Sunday of the Gregorian calendar (the anonymous Gregorian algorithm, Meeus/Jones/Butcher)."""
+    a, b, c = year % 19, year // 100, year % 100
+    d, e = divmod(b, 4)
+    g = (8 * b + 13) // 25
+    h = (19 * a + b - d - g + 15) % 30
+    i, k = divmod(c, 4)
+    weekday_shift = (32 + 2 * e + 2 * i - h - k) % 7
+    m = (a + 11 * h + 19 * weekday_shift) // 433
+    month, day = divmod(h + weekday_shift - 7 * m + 114, 31)
+    return dt.date(year, month, day + 1)
+
+
+def move_visits_off_holidays(*, today: dt.date, user=None) -> int:
+    """Move every open visit that falls on one of the scenario's holidays, as its planner would: to the nearest
+    working day before it that is no holiday (the plan dates a visit by its replace-by dates), or after it where
+    none is left before (today or later). Returns the number of visits moved."""
+    visits = list(open_visits_page(1, per_page=10_000, orders_shown=1).object_list)
+    holidays = scenario_holidays(range(today.year, max([today.year, *(v["day"].year for v in visits)]) + 2))
+    moved = 0
+    for visit in visits:
+        if visit["day"] not in holidays:
+            continue
+        choices = [day for day in move_choices(visit["day"], today) if day not in holidays]
+        earlier = [day for day in choices if day < visit["day"]]
+        to_day = earlier[-1] if earlier else next(iter(choices), None)
+        if to_day is not None:
+            move_visit(site_id=visit["site"].id, due_on=visit["day"], to_day=to_day, user=user, today=today)
+            moved += 1
+    return moved
 
 
 def work_orders_by_state() -> dict[str, int]:

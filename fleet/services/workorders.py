@@ -22,6 +22,7 @@ from fleet.engineering.planning import (
     bundle_visits,
     plan_moved_words,
     visit_day_problem,
+    working_days_near,
 )
 from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
@@ -362,6 +363,11 @@ def visit_moved_to(site_id: int, due_on: dt.date, user=None) -> VisitMove | None
     if plan_day:
         return VisitMove(moved=0, to_day=plan_day[0], already=True, by="a planner", at="an earlier day")
     return None
+
+
+def move_choices(due_on: dt.date, today: dt.date | None = None) -> list[dt.date]:
+    """The working days next to a visit on `due_on` that `move_visit` takes (`planning.working_days_near`)."""
+    return working_days_near(due_on, today or timezone.localdate(), weekmask=PlanningSettings().working_days)
 
 
 def open_orders(user=None):

@@ -12,6 +12,7 @@ from django.utils.html import conditional_escape, format_html
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
+from fleet.engineering.lifedata import age_in_words
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
 from fleet.engineering.rules import microfarad_text
 from fleet.services.assessments import DISSIPATION_LIMIT
@@ -54,16 +55,9 @@ def times(factor):
 
 @register.filter
 def age_in_years(years):
-    """An age given in years, in the unit a planner reads it in: 2.93 -> '2.9 years', 0.29 -> '3.5 months',
-    0.02 -> '7 days'; None -> '-'."""
-    if years is None:
-        return DASH
-    if years >= 1.0:
-        return f"{years:.1f}{NBSP}years"
-    if years >= 1.0 / 12.0:
-        return f"{12.0 * years:.1f}{NBSP}months"
-    days = round(365.25 * years)
-    return f"{days}{NBSP}day{'' if days == 1 else 's'}"
+    """An age given in years, in the unit a planner reads it in (`lifedata.age_in_words`): 2.93 -> '2.9 years',
+    0.29 -> '3.5 months', 0.02 -> '7 days'; None -> '-'."""
+    return DASH if years is None else age_in_words(years)
 
 
 @register.filter

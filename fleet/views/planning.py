@@ -32,6 +32,7 @@ from fleet.services.workorders import (
     closed_visit,
     closed_words,
     issue_visit,
+    move_choices,
     move_visit,
     open_orders,
     open_visit,
@@ -193,7 +194,13 @@ def visit_sheet(request, site_code, day):
         return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
     page = list_page(request, paginator.get_page)
     page.object_list = with_plan_now(page.object_list)
-    context = {"visit": visit, "site": site, "page": page, "move_form": move_form}
+    context = {
+        "visit": visit,
+        "site": site,
+        "page": page,
+        "move_form": move_form,
+        "move_choices": move_choices(day),
+    }
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
 
 

@@ -185,3 +185,53 @@ def test_the_weibull_plot_labels_its_age_axis_in_whole_numbers(phone):
         mantissa = value / 10 ** math.floor(math.log10(value) + 1e-9)
         assert round(mantissa, 6) in (1, 2, 5), labels
     phone.shot("phone-weibull-ticks")
+
+
+# Every point along each drawn curve (a trace's line, sampled every 2 px) and each marker, against the box
+# of each word on the chart (annotations, axis tick numbers of the polar charts, the legend): a name or a
+# number laid over the data is counted with the first point it covers.
+WORDS_OVER_DATA = """(id) => {
+  const gd = document.getElementById(id);
+  const boxes = [...gd.querySelectorAll('.annotation-text-g, .legend .bg, .polarlayer .radial-axis .tick text')]
+    .map((e) => [e.textContent || 'legend', e.getBoundingClientRect()]);
+  const points = [];
+  gd.querySelectorAll('.scatterlayer .js-line, .scatterlayer path.js-line').forEach((path) => {
+    const length = path.getTotalLength(), matrix = path.getScreenCTM();
+    for (let s = 0; s <= length; s += 2) {
+      const p = path.getPointAtLength(s);
+      points.push([matrix.a * p.x + matrix.c * p.y + matrix.e, matrix.b * p.x + matrix.d * p.y + matrix.f]);
+    }
+  });
+  gd.querySelectorAll('.scatterlayer .point').forEach((marker) => {
+    const r = marker.getBoundingClientRect();
+    points.push([r.left + r.width / 2, r.top + r.height / 2]);
+  });
+  const over = [];
+  for (const [text, box] of boxes)
+    for (const [x, y] of points)
+      if (x > box.left + 1 && x < box.right - 1 && y > box.top + 1 && y < box.bottom - 1) {
+        over.push(`${text.trim().slice(0, 30)} at ${Math.round(x)},${Math.round(y)}`); break;
+      }
+  return over;
+}"""
+
+
+def test_the_motor_page_charts_keep_their_words_off_the_curves_on_a_phone_and_after_a_resize(phone):
+    """Ours: at 390 px the sweep's crossing names ran down the top panel across the torque curve, a limit's
+    name lay over the main current's curve, and the phasors' radial numbers stood at a fixed angle whatever
+    pointed there. Loaded at 390, and loaded at 1366 then narrowed to 390, no word lies on a curve or a
+    marker."""
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.0, 3.9, 3.8, 3.7, 3.6])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    sign_in(phone, make_user("reliability engineer"))
+    charts = [f"{name}-{fitted_capacitor.id}-chart" for name in ("currents", "voltages", "sweep")]
+    for first_width in (390, 1366):
+        phone.set_viewport_size({"width": first_width, "height": 900})
+        phone.goto(f"/motors/{fitted_capacitor.motor.asset_tag}/")
+        phone.wait_for_selector(f"#sweep-{fitted_capacitor.id}-chart .main-svg")
+        phone.set_viewport_size({"width": 390, "height": 900})
+        phone.wait_for_timeout(800)  # page.js draws the charts again once the width has settled
+        for chart in charts:
+            assert phone.evaluate(WORDS_OVER_DATA, chart) == [], (first_width, chart)
+        phone.shot(f"motor-charts-words-clear-from-{first_width}")

@@ -178,7 +178,11 @@ def test_a_refused_reading_shows_what_to_put_right_in_view_above_the_cautions(ph
     assert box["y"] >= 0 and box["y"] + min(box["height"], 200) <= view["height"], box  # on screen, not below
     text = summary.inner_text()
     assert "Not saved: 2 to put right" in text
-    assert "decimal separator" in text and "Before this capacitor was fitted on 2024-01-10" in text
+    # The summary names the fields, each a link; each message stands once, at its field.
+    assert "decimal separator" not in text and "Before this capacitor was fitted" not in text
+    assert [a.inner_text() for a in summary.locator("a").all()] == ["Taken at", "Capacitance (µF)"]
+    assert "decimal separator" in phone.locator("#wrap_capacitance_uf .errorlist").inner_text()
+    assert "Before this capacitor was fitted on 2024-01-10" in phone.locator("#wrap_taken_at .errorlist").inner_text()
     cautions = phone.locator("details[data-cautions]")
     assert cautions.bounding_box()["y"] > box["y"] and cautions.get_attribute("open") is not None
     assert phone.evaluate("() => document.activeElement.id") == "error-summary"

@@ -263,3 +263,50 @@ def test_a_refused_walking_order_keeps_what_was_typed_in_view_with_the_save_butt
     view = phone.viewport_size
     type_into(motors[30], "31")
     phone.screenshot(path=str(ARTIFACTS / "route-order-1366.png"))
+
+
+def test_the_move_visit_box_says_its_day_in_words_and_a_working_day_is_one_tap(phone):
+    """Ours: the date box shows the browser's order of day, month and year (12/28/2026 here) while the page
+    writes days as weekday and year-month-day. The day chosen is said beside the box in words, whether typed
+    or picked from the working days offered next to the visit (glove-sized, shown pressed)."""
+    site = make_site(code="MOVE")
+    day = timezone.localdate() + dt.timedelta(days=20)
+    WorkOrder.objects.create(motor=make_motor(site=site), kind="read_again", due_on=day, reason="read it again")
+    sign_in(phone, make_user("planner"))
+    phone.goto(f"/work-orders/MOVE/{day.isoformat()}/")
+    words = phone.locator("#to-day-words")
+    assert words.inner_text() == ""
+    choices = phone.locator("button[data-fills=id_to_day]")
+    assert choices.count() == 5 and not _small_targets(phone, "button[data-fills]")
+    third = choices.nth(2)
+    third.click()
+    picked = dt.date.fromisoformat(third.get_attribute("value"))
+    assert phone.input_value("#id_to_day") == picked.isoformat()
+    assert words.inner_text() == f"{picked:%A} {picked.isoformat()}"
+    assert third.get_attribute("aria-pressed") == "true" and choices.nth(0).get_attribute("aria-pressed") == "false"
+    saturday = day + dt.timedelta(days=(5 - day.weekday()) % 7)
+    phone.fill("#id_to_day", saturday.isoformat())
+    assert words.inner_text() == f"Saturday {saturday.isoformat()}"
+    assert third.get_attribute("aria-pressed") == "false"
+    phone.locator("#move-visit").scroll_into_view_if_needed()
+    phone.shot("move-visit-day-in-words")
+    phone.click("#move-visit button[type=submit]")
+    phone.locator("#error-summary").wait_for(timeout=15000)
+    assert "is a Saturday" in phone.locator("#wrap_to_day .errorlist").inner_text()
+    assert phone.locator("#to-day-words").inner_text() == f"Saturday {saturday.isoformat()}"
+    assert phone.evaluate("document.documentElement.scrollWidth") <= 390
+
+
+def test_the_admin_motor_page_with_its_capacitors_fits_a_desktop_screen(phone):
+    """Ours: the fitted capacitors' inline (six boxes, the serial box 610 px wide) pushed the admin's motor
+    page to 1513 px at 1366. It fits; the removal is read on the row and edited on the capacitor's page."""
+    fitted_capacitor = make_fitted_capacitor(serial="2002-55408")
+    make_fitted_capacitor(motor=fitted_capacitor.motor, role="start", part=make_part(code="START-1"))
+    sign_in(phone, make_user("administrator"))
+    for width in (1366, 390):
+        phone.set_viewport_size({"width": width, "height": 900})
+        phone.goto(f"/admin/fleet/motor/{fitted_capacitor.motor.id}/change/")
+        phone.locator(".inline-group").scroll_into_view_if_needed()
+        assert phone.evaluate("document.documentElement.scrollWidth") <= width
+        assert phone.input_value("#id_capacitors-0-serial") == "2002-55408"
+        phone.screenshot(path=str(ARTIFACTS / f"admin-motor-{width}.png"))

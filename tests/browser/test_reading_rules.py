@@ -194,3 +194,46 @@ def test_a_time_in_the_future_is_hinted_with_the_sites_clock_and_again_when_the_
     assert phone.is_visible("#draft-note")
     assert phone.input_value("#id_taken_at") == "2099-01-01T10:00"
     assert expected in phone.locator("#computed").inner_text()
+
+
+def test_a_refused_value_is_said_once_at_its_field_until_it_is_changed(phone, motor_with_history):  # noqa: F811
+    """Ours: the summary, the field and the live hint all said the same refusal. Back from the server, the
+    summary links to the field, the message stands at the field and the hint is silent on it; once the value
+    is changed the server's message (about a value no longer there) goes and the hint speaks for the field."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3,9,5")
+    phone.click("#save")
+    summary = phone.locator("#error-summary")
+    summary.wait_for(timeout=15000)
+    server_says = phone.locator("#wrap_capacitance_uf .errorlist")
+    assert "decimal separator" in server_says.inner_text() and server_says.is_visible()
+    assert "decimal separator" not in summary.inner_text()
+    assert summary.locator('a[href="#wrap_capacitance_uf"]').inner_text() == "Capacitance (µF)"
+    assert phone.locator("#computed .check").inner_text() == ""
+    phone.shot("11-refused-said-once")
+    phone.fill("#id_capacitance_uf", "3,9,6")
+    assert not server_says.is_visible()
+    assert "Capacitance (µF): not a number" in phone.locator("#computed .check").inner_text()
+    phone.fill("#id_capacitance_uf", "3,9,5")  # back to what the server judged: its message again, the hint silent
+    assert server_says.is_visible() and phone.locator("#computed .check").inner_text() == ""
+    phone.fill("#id_capacitance_uf", "3.95")
+    assert not server_says.is_visible() and phone.locator("#computed .check").inner_text() == ""
+
+
+def test_an_in_circuit_reading_far_from_its_trend_is_asked_at_a_field_in_view(phone, motor_with_history):  # noqa: F811
+    """[trade] C = 10^6 I / (2 pi f V): 0.4147 A at 400 V, 50 Hz is 3.30 uF, far from the 3.96 uF trend. The
+    question was put on the meter's field, hidden in circuit: it showed nowhere but in the summary."""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.check("input[value=in_circuit]")
+    phone.fill("#id_capacitor_current_a", "0.4147")
+    phone.fill("#id_capacitor_voltage_v", "400")
+    phone.click("#save")
+    phone.locator("#error-summary").wait_for(timeout=15000)
+    asked = phone.locator("#wrap_capacitor_voltage_v .errorlist")
+    assert asked.is_visible() and "far from this capacitor's trend" in asked.inner_text()
+    assert "far from this capacitor's trend" not in phone.locator("#error-summary").inner_text()
+    phone.click("#error-summary button")
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.filter(outlier_confirmed=True, method="in_circuit").count() == 1

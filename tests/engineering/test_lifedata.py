@@ -272,3 +272,16 @@ def test_successor_failures_of_wearing_units_match_a_simulated_renewal_process()
             )
     assert got.sum() == pytest.approx(counts.sum(), rel=0.03)
     assert np.abs(got - counts).max() < 0.01
+
+
+def test_an_age_is_written_in_the_unit_it_is_read_in():
+    """[derived] 0.29 years is 3.48 months, 0.02 years 7.3 days (365.25 days a year, 12 months); from one year
+    on, years; from one month (1/12 year) on, months; below, whole days."""
+    from fleet.engineering.lifedata import age_in_words, age_unit
+
+    assert [age_in_words(y) for y in (2.93, 1.0, 0.29, 1 / 12, 0.02, 1 / 365.25)] == [
+        "2.9\u00a0years", "1.0\u00a0years", "3.5\u00a0months", "1.0\u00a0months", "7\u00a0days", "1\u00a0day",
+    ]  # fmt: skip
+    assert [age_unit(y) for y in (2.93, 0.29, 0.02, 0.0)] == [
+        ("years", 1.0), ("months", 12.0), ("days", 365.25), ("days", 365.25),
+    ]  # fmt: skip

@@ -244,3 +244,41 @@ def test_a_visit_moves_only_to_a_working_day_from_today_within_the_plans_reach()
     sunday_to_thursday = "1111001"
     assert "is a Friday" in visit_day_problem(dt.date(2026, 12, 25), thursday, sunday_to_thursday)
     assert visit_day_problem(dt.date(2026, 12, 27), thursday, sunday_to_thursday) == ""
+
+
+def test_the_working_days_offered_next_to_a_visit_are_the_days_it_may_move_to():
+    """[derived] The working days either side of a visit, counted with Python's calendar (datetime.date.weekday),
+    not numpy's: 2026-12-25 is a Friday, so Wed 23 and Thu 24 before it, Mon 28 to Wed 30 after (the weekend
+    skipped). A day off work is neither its own day before nor after; a day before today is not offered; a
+    Sunday-to-Thursday week (numpy's weekmask, Monday first) offers its Sunday."""
+    from fleet.engineering.planning import visit_day_problem, working_days_near
+
+    def by_calendar(day, today, before, after, working=range(5)):
+        earlier, later, d = [], [], day
+        while len(earlier) < before:
+            d -= dt.timedelta(days=1)
+            if d.weekday() in working:
+                earlier.insert(0, d)
+        d = day
+        while len(later) < after:
+            d += dt.timedelta(days=1)
+            if d.weekday() in working:
+                later.append(d)
+        return [d for d in earlier + later if d >= today]
+
+    today = dt.date(2026, 12, 3)
+    christmas = dt.date(2026, 12, 25)
+    offered = working_days_near(christmas, today)
+    assert offered == by_calendar(christmas, today, 2, 3)
+    assert [d.isoformat() for d in offered] == ["2026-12-23", "2026-12-24", "2026-12-28", "2026-12-29", "2026-12-30"]
+    assert all(visit_day_problem(d, today) == "" for d in offered)
+    saturday = dt.date(2026, 12, 26)
+    assert working_days_near(saturday, today, before=1, after=1) == [dt.date(2026, 12, 25), dt.date(2026, 12, 28)]
+    monday = dt.date(2026, 12, 7)
+    assert working_days_near(monday, dt.date(2026, 12, 4)) == by_calendar(monday, dt.date(2026, 12, 4), 2, 3)
+    assert dt.date(2026, 12, 3) not in working_days_near(monday, dt.date(2026, 12, 4))
+    sunday_to_thursday = "1111001"
+    assert working_days_near(christmas, today, before=1, after=1, weekmask=sunday_to_thursday) == [
+        dt.date(2026, 12, 24),
+        dt.date(2026, 12, 27),
+    ]

@@ -88,6 +88,24 @@
       }, 250);
     });
   }
+  // A date box shows its day in the browser's own order of day, month and year: the day it holds is said
+  // beside it in words, as the pages write days (weekday, year-month-day). A button with data-fills puts
+  // its value, a day, into the box it names; the one matching the box is shown pressed.
+  document.querySelectorAll("input[type=date][data-day-words]").forEach((box) => {
+    const words = document.getElementById(box.dataset.dayWords);
+    const choices = document.querySelectorAll(`button[data-fills="${box.id}"]`);
+    const say = () => {
+      const day = new Date(`${box.value}T00:00:00Z`);
+      words.textContent = isNaN(day) ? "" : `${day.toLocaleDateString("en-GB", { weekday: "long", timeZone: "UTC" })} ${box.value}`;
+      choices.forEach((choice) => choice.setAttribute("aria-pressed", String(choice.value === box.value)));
+    };
+    choices.forEach((choice) => {
+      choice.addEventListener("click", () => { box.value = choice.value; say(); });
+    });
+    box.addEventListener("input", say);
+    box.addEventListener("change", say);
+    say();
+  });
   // Printed, every folded box shows what it holds (the cautions, the work orders' visits).
   window.addEventListener("beforeprint", () => {
     document.querySelectorAll("details[data-cautions], details.visit").forEach((box) => { box.open = true; });
