@@ -196,6 +196,10 @@ def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, 
     data = {"method": "meter", "capacitance_uf": "3.3", "condition": "sound"}
     response = client.post(url, data)
     assert "confirm" in response.content.decode().lower()
+    # The summary's confirm button stands beside the reason (ours): nothing is confirmed unread.
+    page = response.content.decode()
+    summary = page[page.index('id="error-summary"') :].split("</div>")[0]
+    assert "Value is right: save it" in summary and "far from this capacitor" in summary, summary
     assert Reading.objects.count() == 3
     response = client.post(url, {**data, "confirmed": "on"})
     assert response.status_code == 302
