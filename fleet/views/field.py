@@ -11,7 +11,7 @@ from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied, ValidationError
 from django.core.paginator import Paginator
-from django.shortcuts import get_object_or_404, redirect, render
+from django.shortcuts import redirect, render
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import conditional_escape
@@ -20,8 +20,7 @@ from django.utils.safestring import mark_safe
 from fleet.engineering.rules import RULES
 from fleet.filters import LabelsPage, RoutePage, list_page, page_values
 from fleet.forms import ReadingForm, ReplacementForm
-from fleet.models import CapacitorPart, Motor, Site
-from fleet.roles import scope_to_user
+from fleet.models import CapacitorPart, Motor
 from fleet.services import pages
 from fleet.services.readings import (
     NeedsConfirmation,
@@ -33,7 +32,7 @@ from fleet.services.readings import (
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, substitutes_for
-from fleet.views.register import fitted_capacitor_or_404, worst_case_energy_j
+from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
 @permission_required("fleet.add_reading", raise_exception=True)
@@ -190,8 +189,8 @@ LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
-def site_route(request, site_code):
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+@site_in_any_case
+def site_route(request, site):
     order_errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
@@ -240,8 +239,8 @@ def _qr_svg(request, motor: Motor) -> str:
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
-def labels(request, site_code):
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+@site_in_any_case
+def labels(request, site):
     tag = page_values(LabelsPage, request).get("tag")
     page = list_page(request, Paginator(pages.label_motors(site, tag), LABELS_PAGE_SIZE).get_page)
     labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
@@ -249,9 +248,9 @@ def labels(request, site_code):
 
 
 @permission_required("fleet.view_sitestock", raise_exception=True)
-def site_stock(request, site_code):
+@site_in_any_case
+def site_stock(request, site):
     """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_sitestock"):
