@@ -93,7 +93,8 @@ def permission_words(user, permissions) -> str:
         else:
             thing = model._meta.verbose_name_plural
         others = roles_holding(codename)[:-1]
-        needs = f"the {' or '.join(others)} role (or {ADMINISTRATOR})" if others else f"the {ADMINISTRATOR} role"
+        listed = ", ".join(others[:-1]) + " or " + others[-1] if len(others) > 1 else "".join(others)
+        needs = f"the {listed} role (or {ADMINISTRATOR})" if others else f"the {ADMINISTRATOR} role"
         words.append(f"{ACTION_WORDS.get(action, action.capitalize())} {thing} needs {needs}")
     held = ", ".join(sorted(roles_of(user))) or "none"
     return f"{'; '.join(words)}; your roles: {held}."

@@ -214,6 +214,10 @@ def test_the_roles_named_are_the_roles_granted():
     """The words follow the role table in roles.py, not a copy of it."""
     assert roles_holding("add_reading") == [TECHNICIAN, "administrator"]
     assert roles_holding("import_readings")[:-1] == [TECHNICIAN, "planner", RELIABILITY_ENGINEER]
+    assert permission_words(make_user(TECHNICIAN), ["fleet.add_refitrun"]) == (
+        "Recording refit runs needs the planner or reliability engineer role (or administrator); your roles: "
+        "technician."
+    )
     assert permission_words(make_user(TECHNICIAN), ["fleet.add_backtest"]).startswith(
         "Recording backtests needs the reliability engineer role (or administrator); your roles: technician."
     )
