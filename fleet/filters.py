@@ -224,6 +224,15 @@ def page_parameters(filterset_class, query, request=None) -> tuple[dict, dict[st
     return {k: v for k, v in data.items() if k not in refused and v not in (None, "")}, refused
 
 
+def named_if_repeated(request, names) -> bool:
+    """Whether the query string gives any of `names` more than once, each such named in a note on the page
+    (for a page that reads a parameter without a filterset: the find box, the reading form's `corrects`)."""
+    repeated = repeated_parameters(request.GET, names)
+    for name, words in repeated.items():
+        messages.warning(request, f"Ignored {name}: {words}")
+    return bool(repeated)
+
+
 def page_values(filterset_class, request) -> dict:
     """The values of a page's query string; each parameter that cannot be read is named in a note on the page."""
     values, refused = page_parameters(filterset_class, request.GET, request)

@@ -71,6 +71,25 @@ def test_every_page_names_a_parameter_given_twice(client, administrator, two_sit
     )
 
 
+def test_the_reading_form_names_a_reading_to_correct_given_twice(client, technician, fan_fitted_capacitor):
+    """Before: ?corrects=1&corrects=2 opened a correction of the second reading, without a word."""
+    first, second = (
+        Reading.objects.create(
+            fitted_capacitor=fan_fitted_capacitor,
+            taken_at=timezone.now() - dt.timedelta(days=days),
+            method="meter",
+            capacitance_uf=3.9,
+        )
+        for days in (20, 10)
+    )
+    client.force_login(technician)
+    address = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    response = client.get(f"{address}?corrects={first.id}&corrects={second.id}")
+    assert response.status_code == 200 and response.context["correcting"] is None
+    assert f"Ignored corrects: Give corrects once (given 2 times: {first.id}, {second.id})" in notes(response)
+    assert client.get(f"{address}?corrects={second.id}").context["correcting"] == second
+
+
 def test_the_find_page_does_not_search_a_tag_given_twice(client, administrator, two_sites):
     client.force_login(administrator)
     response = client.get("/find/?tag=CST&tag=PKH")

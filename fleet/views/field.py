@@ -18,7 +18,7 @@ from django.utils.html import conditional_escape
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
-from fleet.filters import LabelsPage, RoutePage, list_page, page_values
+from fleet.filters import LabelsPage, RoutePage, list_page, named_if_repeated, page_values, query_value
 from fleet.forms import ReadingForm, ReplacementForm
 from fleet.models import CapacitorPart, Motor
 from fleet.services import pages
@@ -72,7 +72,8 @@ def reading_new(request, fitted_capacitor_id):
                     f"{reverse('motor', args=[fitted_capacitor.motor.asset_tag])}?saved={fitted_capacitor.id}"
                 )
     else:
-        form = ReadingForm(initial={"supersedes": request.GET.get("corrects")}, time_zone=zone)
+        corrects = None if named_if_repeated(request, ["corrects"]) else query_value(request.GET, "corrects")
+        form = ReadingForm(initial={"supersedes": corrects}, time_zone=zone)
     correcting, correction_problem = None, ""
     try:
         correcting = reading_to_correct(fitted_capacitor, form["supersedes"].value())

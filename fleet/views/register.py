@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import functools
 
-from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.http import Http404
 from django.shortcuts import get_object_or_404, redirect, render
@@ -12,7 +11,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.capacitor import stored_energy_j
-from fleet.filters import query_value, repeated_parameters
+from fleet.filters import named_if_repeated, query_value
 from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import scope_to_user
@@ -33,10 +32,8 @@ def home(request):
 
 @permission_required("fleet.view_motor", raise_exception=True)
 def find_motor(request):
-    repeated = repeated_parameters(request.GET, ["tag"])
-    for name, words in repeated.items():
-        messages.warning(request, f"Ignored {name}: {words}")
     # An empty or repeated tag is not a search: the empty box, as on a first visit.
+    repeated = named_if_repeated(request, ["tag"])
     form = FindMotorForm(None if repeated or query_value(request.GET, "tag") is None else request.GET)
     matches, more = [], False
     if form.is_valid():
