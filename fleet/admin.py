@@ -9,7 +9,7 @@ from django.contrib import admin
 from django.contrib.auth import get_user_model
 from django.contrib.auth.admin import GroupAdmin, UserAdmin
 from django.contrib.auth.models import Group
-from django.core.exceptions import ValidationError
+from django.core.exceptions import PermissionDenied, ValidationError
 from django.db import models
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
@@ -175,6 +175,17 @@ class ReadingAdmin(admin.ModelAdmin):
 
     def has_delete_permission(self, request, obj=None):
         return False
+
+    def delete_view(self, request, object_id, extra_context=None):
+        """Refused in words that say why: no role may delete a reading (asking an administrator would not help)."""
+        raise PermissionDenied(READINGS_KEPT_WORDS)
+
+
+READINGS_KEPT_WORDS = (
+    "Readings are never deleted, by any role: the forecast and the audit rest on every value measured. To put a "
+    'wrong reading right, record a correction from the capacitor\'s page ("Correct"): both are kept, and the '
+    "trend uses the correction."
+)
 
 
 @admin.register(Assessment)

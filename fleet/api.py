@@ -19,10 +19,10 @@ from rest_framework.pagination import CursorPagination, PageNumberPagination
 from rest_framework.response import Response
 from rest_framework.settings import api_settings
 
-from .filters import AssessmentFilter, ReadingFilter, parameter_problems
+from .filters import AssessmentFilter, ReadingFilter, parameter_problems, query_value
 from .imports.columns import parse_site_time
 from .models import Assessment, FittedCapacitor, Reading, site_zone
-from .roles import scope_to_user
+from .roles import permission_words, scope_to_user
 from .services.bulk import storable_ids
 from .services.counts import assessed_total
 from .services.pages import in_service_assessments
@@ -31,13 +31,21 @@ from .services.substitutes import substitutes_for
 
 
 class ModelPermissionsWithView(permissions.DjangoModelPermissions):
-    """Django model permissions, reads included (view_*), as the roles grant them."""
+    """Django model permissions, reads included (view_*), as the roles grant them; a 403 says which
+    roles may do it and which the user holds."""
 
     perms_map = {
         **permissions.DjangoModelPermissions.perms_map,
         "GET": ["%(app_label)s.view_%(model_name)s"],
         "HEAD": ["%(app_label)s.view_%(model_name)s"],
     }
+
+    def has_permission(self, request, view):
+        allowed = super().has_permission(request, view)
+        if not allowed and request.user and request.user.is_authenticated:
+            model = self._queryset(view).model
+            self.message = permission_words(request.user, self.get_required_permissions(request.method, model))
+        return allowed
 
 
 def fitted_capacitor_or_not_found(request, pk) -> FittedCapacitor:
@@ -56,7 +64,7 @@ class CheckedPageSize:
     page_size_query_param = "page_size"
 
     def get_page_size(self, request):
-        asked = request.query_params.get(self.page_size_query_param)
+        asked = query_value(request.query_params, self.page_size_query_param)
         if asked is None:
             return self.page_size
         if not (asked.isascii() and asked.isdigit() and 1 <= int(asked) <= self.max_page_size):
@@ -107,8 +115,8 @@ class KnownParametersOnly:
         return sorted({renderer.format for renderer in self.get_renderers()})
 
     def asked_format_unknown(self, request) -> bool:
-        asked = request.query_params.get(api_settings.URL_FORMAT_OVERRIDE)
-        return bool(asked) and asked not in self.formats_answered()
+        asked = query_value(request.query_params, api_settings.URL_FORMAT_OVERRIDE)
+        return asked is not None and asked not in self.formats_answered()
 
     def perform_content_negotiation(self, request, force=False):
         """JSON for a `format` the API does not answer in, so that `initial` can name it after sign-in."""
@@ -206,11 +214,29 @@ class KnownFieldsOnly:
         return super().to_internal_value(data)
 
 
+SUPERSEDES_WORDS = 'The id of the reading this one corrects: a whole number from 1, as the API gave it ("id").'
+
+
 class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
-    taken_at = SiteTime(required=False)
-    confirmed = serializers.BooleanField(write_only=True, required=False, default=False)
+    taken_at = SiteTime(required=False, allow_null=True)  # null is left out: now
+    confirmed = serializers.BooleanField(
+        write_only=True,
+        required=False,
+        default=False,
+        error_messages={"invalid": "true or false: true keeps a value the checks asked to confirm."},
+    )
     # Id of the reading this one corrects (same capacitor, not corrected before); both are kept.
-    supersedes = serializers.IntegerField(source="supersedes_id", required=False, allow_null=True, min_value=1)
+    supersedes = serializers.IntegerField(
+        source="supersedes_id",
+        required=False,
+        allow_null=True,
+        min_value=1,
+        error_messages={
+            "invalid": SUPERSEDES_WORDS,
+            "min_value": SUPERSEDES_WORDS,
+            "max_string_length": SUPERSEDES_WORDS,
+        },
+    )
     capacitance_uf = AsSent(required=False, allow_null=True)
     capacitor_current_a = AsSent(required=False, allow_null=True)
     capacitor_voltage_v = AsSent(required=False, allow_null=True)
@@ -239,6 +265,15 @@ class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
         read_only_fields = ["id", "outlier_confirmed", "source"]
         extra_kwargs = {"taken_at": {"required": False}, "notes": {"trim_whitespace": False}}
 
+    def get_fields(self):
+        """A value outside a field's fixed vocabulary (`method`, `condition`) is named with the valid ones."""
+        fields = super().get_fields()
+        for name, field in fields.items():
+            if isinstance(field, serializers.ChoiceField):
+                valid = ", ".join(str(value) for value in field.choices)
+                field.error_messages["invalid_choice"] = f'"{{input}}" is not a {name}: one of {valid}.'
+        return fields
+
 
 class AssessmentPages(NumberedPages):
     """100 a page. The total of a list filtered by site and risk level only (or not at all) is summed
@@ -249,8 +284,8 @@ class AssessmentPages(NumberedPages):
         params = request.query_params  # valid here: the filters answered 400 to a bad value before
         self.ledger_total = (
             None
-            if params.get("replace_by_before")
-            else assessed_total(request.user, params.get("site") or None, params.get("risk") or None)
+            if query_value(params, "replace_by_before")
+            else assessed_total(request.user, query_value(params, "site"), query_value(params, "risk"))
         )
         return super().paginate_queryset(queryset, request, view)
 
@@ -304,6 +339,8 @@ class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):
         )
         serializer.is_valid(raise_exception=True)
         values = dict(serializer.validated_data)
+        if values.get("taken_at") is None:  # null, as left out: now (or the corrected reading's time)
+            values.pop("taken_at", None)
         confirmed = values.pop("confirmed", False)
         supersedes_id = values.pop("supersedes_id", None)
         key = request.headers.get("Idempotency-Key", "")
@@ -397,7 +434,7 @@ class FittedCapacitorSubstitutes(KnownParametersOnly, generics.GenericAPIView):
 
     def get(self, request, *args, **kwargs):
         fitted_capacitor = fitted_capacitor_or_not_found(request, self.kwargs["pk"])
-        raw = request.query_params.get("parts")
+        raw = query_value(request.query_params, "parts")
         codes = None if raw is None else [code.strip() for code in raw.split(",") if code.strip()]
         if codes is not None and not codes:
             return Response({"parts": ["Name at least one part code."]}, status=status.HTTP_400_BAD_REQUEST)

@@ -12,6 +12,7 @@ from django.contrib import messages
 from django.core.exceptions import ValidationError
 from django.core.paginator import Page
 from django.core.validators import MaxValueValidator, MinValueValidator
+from django.http import HttpResponse
 
 from .engineering.lifedata import MAX_REPLACEMENT_COST
 from .engineering.planning import PLAN_HORIZON_DAYS
@@ -157,26 +158,47 @@ class BadFilter(ValueError):
     """A query-string value that cannot be read; the message names the parameter."""
 
 
+def query_value(query, name: str) -> str | None:
+    """The value a query string gives `name`, None when it is left out or empty: the one rule of every
+    page, export and API list (an HTML form sends `site=` for "all sites")."""
+    return query.get(name) or None
+
+
+def repeated_words(name: str, values: list[str]) -> str:
+    """What the rulebook says of a single-valued parameter given more than once."""
+    return f"Give {name} once (given {len(values)} times: {', '.join(values)})"
+
+
+def repeated_parameters(query, names) -> dict[str, str]:
+    """The message on each of `names` the query string gives more than once (`site=CST&site=PKH` would
+    otherwise use one of them silently); a plain dict (a form's values) holds one value a name."""
+    getlist = getattr(query, "getlist", None)
+    if getlist is None:
+        return {}
+    return {name: repeated_words(name, getlist(name)) for name in names if len(getlist(name)) > 1}
+
+
 def parameter_problems(query, known) -> dict[str, str]:
-    """The one rule of the API's lists and the exports on the parameters of a query string: the message on
-    each one not taken (a misspelt filter, `risks=watch`, would otherwise list everything), with the ones
-    taken, and on each one given more than once (`site=CST&site=PKH` would otherwise use one of them
-    silently). {} when every parameter is taken and given once."""
-    takes = ", ".join(sorted(known))
-    problems = {}
-    for name in query:
-        values = query.getlist(name)
-        if name not in known:
-            problems[name] = f"Not a parameter of this list, which takes: {takes}."
-        elif len(values) > 1:
-            given = ", ".join(values)
-            problems[name] = f"Give {name} once (given {len(values)} times: {given}); one value per call."
+    """The one rule of the API's lists and the exports (and the dashboard's downloads) on the parameters of
+    a query string: the message on each one not taken (a misspelt filter, `risks=watch`, would otherwise
+    list everything), with the ones taken, and on each one given more than once. {} when every parameter
+    is taken and given once."""
+    takes = f"which takes: {', '.join(sorted(known))}" if known else "which takes none"
+    problems = {name: f"Not a parameter of this list, {takes}." for name in query if name not in known}
+    for name, words in repeated_parameters(query, [name for name in query if name in known]).items():
+        problems[name] = f"{words}; one value per call."
     return problems
 
 
 def problems_text(problems: dict[str, str]) -> str:
     """Problems by parameter as one line: "site: ...; risk: ..."."""
     return "; ".join(f"{name}: {message}" for name, message in problems.items())
+
+
+def refused_download(error: str) -> HttpResponse:
+    """A download's answer to a query string it cannot use (an export's, the dashboard's tables'): a 400 in
+    plain text naming each parameter."""
+    return HttpResponse(f"Cannot read the filter: {error}", status=400, content_type="text/plain; charset=utf-8")
 
 
 def filtered(filterset_class, query, queryset, request=None):
@@ -192,12 +214,23 @@ def filtered(filterset_class, query, queryset, request=None):
 
 
 def page_parameters(filterset_class, query, request=None) -> tuple[dict, dict[str, str]]:
-    """(the values a page's query string gives, the message on each parameter that cannot be read): a
-    page uses its default for a value missing or unread, and says so; it never answers a 500."""
+    """(the values a page's query string gives, the message on each parameter that cannot be read or is
+    given more than once): a page uses its default for a value missing, empty or unread, and says so when
+    it was unread or repeated; it never answers a 500."""
     parameters = filterset_class(query, queryset=filterset_class._meta.model.objects.none(), request=request)
     refused = {} if parameters.is_valid() else {name: " ".join(errors) for name, errors in parameters.errors.items()}
+    refused |= repeated_parameters(query, filterset_class.base_filters)
     data = parameters.form.cleaned_data
     return {k: v for k, v in data.items() if k not in refused and v not in (None, "")}, refused
+
+
+def named_if_repeated(request, names) -> bool:
+    """Whether the query string gives any of `names` more than once, each such named in a note on the page
+    (for a page that reads a parameter without a filterset: the find box, the reading form's `corrects`)."""
+    repeated = repeated_parameters(request.GET, names)
+    for name, words in repeated.items():
+        messages.warning(request, f"Ignored {name}: {words}")
+    return bool(repeated)
 
 
 def page_values(filterset_class, request) -> dict:
@@ -254,7 +287,14 @@ class LifeDataPage(_PageParameters):
 class RoutePage(_PageParameters):
     """A site's route: ?show=due lists only the motors still to read this quarter."""
 
-    show = django_filters.ChoiceFilter(method="keep", choices=[("due", "due"), ("all", "all")])
+    show = django_filters.ChoiceFilter(
+        method="keep",
+        choices=[("due", "due"), ("all", "all")],
+        error_messages={
+            "invalid_choice": "%(value)s is not one of its values: due (the motors still to read this quarter) or "
+            "all; showing all"
+        },
+    )
 
     class Meta:
         model = Site
@@ -314,10 +354,17 @@ class WholeNumberFilter(BoundedNumberFilter):
     field_class = forms.IntegerField
 
 
+PAGE_WORDS = "pages start at 1; showing page 1"
+
+
 class ListPage(_PageParameters):
     """Which page of a long list: ?page=2 (a whole number from 1)."""
 
-    page = WholeNumberFilter(method="keep", validators=[MinValueValidator(1)])
+    page = WholeNumberFilter(
+        method="keep",
+        validators=[MinValueValidator(1, PAGE_WORDS)],
+        error_messages={"invalid": f"pages are whole numbers; {PAGE_WORDS}"},
+    )
 
     class Meta:
         model = Site

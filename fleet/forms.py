@@ -188,6 +188,8 @@ class FindMotorForm(forms.Form):
         max_length=40,
         error_messages={
             "required": "Type the asset tag from the motor's label (or part of it), or where the motor is.",
+            "max_length": "The box takes a tag (or part of one) or words of a place, at most %(limit_value)d "
+            "characters (this has %(show_value)d).",
         },
         widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
     )

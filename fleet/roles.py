@@ -67,6 +67,39 @@ def roles_of(user) -> set[str]:
     return names & set(ROLES)
 
 
+ACTION_WORDS = {"view": "Seeing", "add": "Recording", "change": "Changing", "delete": "Deleting"}
+
+
+def roles_holding(codename: str) -> list[str]:
+    """The roles granted a fleet permission (by codename), the administrator last: it holds every one."""
+    return [role for role, codenames in ROLE_PERMISSIONS.items() if codenames and codename in codenames] + [
+        ADMINISTRATOR
+    ]
+
+
+def permission_words(user, permissions) -> str:
+    """Why a user is refused an action, in words: which roles may do it, and which the user holds
+    ("Recording readings needs the technician role (or administrator); your roles: reliability engineer.")."""
+    from django.apps import apps
+
+    words = []
+    for permission in permissions:
+        app_label, codename = permission.split(".", 1)
+        action, _, model_name = codename.partition("_")
+        try:
+            model = apps.get_model(app_label, model_name)
+        except LookupError:
+            thing = model_name
+        else:
+            thing = model._meta.verbose_name_plural
+        others = roles_holding(codename)[:-1]
+        listed = ", ".join(others[:-1]) + " or " + others[-1] if len(others) > 1 else "".join(others)
+        needs = f"the {listed} role (or {ADMINISTRATOR})" if others else f"the {ADMINISTRATOR} role"
+        words.append(f"{ACTION_WORDS.get(action, action.capitalize())} {thing} needs {needs}")
+    held = ", ".join(sorted(roles_of(user))) or "none"
+    return f"{'; '.join(words)}; your roles: {held}."
+
+
 def may_import(user, kind: str) -> bool:
     """Whether the user may bring in a file of this kind (sites, parts, register, history, readings)."""
     return user.has_perm(f"fleet.import_{kind}")

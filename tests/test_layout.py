@@ -113,7 +113,7 @@ PAGED_LISTS = [
 
 @pytest.mark.parametrize("url", PAGED_LISTS)
 @pytest.mark.parametrize(
-    "page,says", [("abc", "whole number"), ("-1", "greater than or equal to 1"), ("99999", "only 1 page")]
+    "page,says", [("abc", "whole number"), ("-1", "pages start at 1; showing page 1"), ("99999", "only 1 page")]
 )
 def test_a_page_number_it_cannot_use_is_named_on_the_page(client, administrator, one_visit, url, page, says):
     """A page that is not a number, below 1 or past the end was answered with the first or last page

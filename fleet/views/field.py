@@ -19,10 +19,9 @@ from django.utils.html import conditional_escape
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
-from fleet.filters import LabelsPage, RoutePage, list_page, page_values
+from fleet.filters import LabelsPage, RoutePage, list_page, named_if_repeated, page_values, query_value
 from fleet.forms import ReadingForm, ReplacementForm
-from fleet.models import CapacitorPart, Motor, Site
-from fleet.roles import scope_to_user
+from fleet.models import CapacitorPart, Motor
 from fleet.services import pages
 from fleet.services.readings import (
     NeedsConfirmation,
@@ -34,7 +33,7 @@ from fleet.services.readings import (
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, substitutes_for
-from fleet.views.register import fitted_capacitor_or_404, worst_case_energy_j
+from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
 @permission_required("fleet.add_reading", raise_exception=True)
@@ -74,7 +73,8 @@ def reading_new(request, fitted_capacitor_id):
                     f"{reverse('motor', args=[fitted_capacitor.motor.asset_tag])}?saved={fitted_capacitor.id}"
                 )
     else:
-        form = ReadingForm(initial={"supersedes": request.GET.get("corrects")}, time_zone=zone)
+        corrects = None if named_if_repeated(request, ["corrects"]) else query_value(request.GET, "corrects")
+        form = ReadingForm(initial={"supersedes": corrects}, time_zone=zone)
     correcting, correction_problem = None, ""
     try:
         correcting = reading_to_correct(fitted_capacitor, form["supersedes"].value())
@@ -191,8 +191,8 @@ LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
-def site_route(request, site_code):
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+@site_in_any_case
+def site_route(request, site):
     order_errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
@@ -241,8 +241,8 @@ def _qr_svg(request, motor: Motor) -> str:
 
 
 @permission_required("fleet.view_motor", raise_exception=True)
-def labels(request, site_code):
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
+@site_in_any_case
+def labels(request, site):
     tag = page_values(LabelsPage, request).get("tag")
     page = list_page(request, Paginator(pages.label_motors(site, tag), LABELS_PAGE_SIZE).get_page)
     labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
@@ -250,9 +250,9 @@ def labels(request, site_code):
 
 
 @permission_required("fleet.view_sitestock", raise_exception=True)
-def site_stock(request, site_code):
+@site_in_any_case
+def site_stock(request, site):
     """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_sitestock"):

@@ -16,7 +16,7 @@ from django.utils import timezone
 from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
-from fleet.filters import list_page, plan_parameters
+from fleet.filters import list_page, parameter_problems, plan_parameters, problems_text, refused_download
 from fleet.forms import CancelOrderForm, MoveVisitForm
 from fleet.models import Site, WorkOrder
 from fleet.roles import scope_to_user, visible_site_ids
@@ -43,6 +43,7 @@ from fleet.services.workorders import (
     with_current_plan,
     with_plan_now,
 )
+from fleet.views.register import site_in_any_case
 
 VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 
@@ -141,10 +142,10 @@ def plan_message(counts: dict) -> str:
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)
-def visit_sheet(request, site_code, day):
+@site_in_any_case
+def visit_sheet(request, site, day):
     """A printable sheet for one site visit: the orders (a page at a time), the spares, the cautions; the
     planner moves the whole visit to another day from it (a public holiday: visits skip weekends only)."""
-    site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code=site_code)
     try:
         day = dt.date.fromisoformat(day)
     except ValueError:
@@ -251,6 +252,9 @@ def planner_dashboard(request):
 def dashboard_csv(request, name):
     if name not in DASHBOARD_TABLES:
         raise Http404("No such table")
+    problems = parameter_problems(request.GET, set())  # every site the user works at, no filter: none taken
+    if problems:
+        return refused_download(problems_text(problems))
     header, rows = dashboard_table(name, request.user)
     table = Table(name, [Column(heading) for heading in header], rows)
     response = StreamingHttpResponse(stream_csv(table), content_type="text/csv; charset=utf-8")

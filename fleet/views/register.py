@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
+import functools
+
 from django.contrib.auth.decorators import permission_required
 from django.http import Http404
 from django.shortcuts import get_object_or_404, redirect, render
+from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.capacitor import stored_energy_j
+from fleet.filters import named_if_repeated, query_value
 from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import scope_to_user
@@ -28,7 +32,9 @@ def home(request):
 
 @permission_required("fleet.view_motor", raise_exception=True)
 def find_motor(request):
-    form = FindMotorForm(request.GET or None)
+    # An empty or repeated tag is not a search: the empty box, as on a first visit.
+    repeated = named_if_repeated(request, ["tag"])
+    form = FindMotorForm(None if repeated or query_value(request.GET, "tag") is None else request.GET)
     matches, more = [], False
     if form.is_valid():
         text = form.cleaned_data["tag"]
@@ -79,6 +85,24 @@ def motor_detail(request, asset_tag):
 def worst_case_energy_j(part) -> float:
     """Worst-case stored energy: the part charged to the peak of its rated voltage."""
     return float(stored_energy_j(part.rated_uf, part.rated_voltage_v))
+
+
+def site_in_any_case(view):
+    """A page of one site (`site_code` in its address) gets the site itself: found by its code in any case
+    among the user's sites (codes are unique in any case), else a 404; a GET that spells the code in
+    another case than the register's goes to the register's spelling, its query string kept, as a motor's
+    page finds its tag in any case. The API keeps codes exact."""
+
+    @functools.wraps(view)
+    def with_site(request, site_code, **kwargs):
+        site = get_object_or_404(scope_to_user(Site.objects.all(), request.user), code__iexact=site_code)
+        if site.code != site_code and request.method in ("GET", "HEAD"):
+            address = reverse(request.resolver_match.view_name, kwargs={**kwargs, "site_code": site.code})
+            query = request.GET.urlencode()
+            return redirect(f"{address}?{query}" if query else address)
+        return view(request, site, **kwargs)
+
+    return with_site
 
 
 def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:

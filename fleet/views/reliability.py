@@ -6,7 +6,7 @@ from django.conf import settings
 from django.contrib import messages
 from django.contrib.auth.decorators import permission_required
 from django.core.exceptions import PermissionDenied
-from django.http import FileResponse, Http404, HttpResponse, JsonResponse, StreamingHttpResponse
+from django.http import FileResponse, Http404, JsonResponse, StreamingHttpResponse
 from django.shortcuts import redirect, render
 from django.urls import reverse
 from django.utils import timezone
@@ -14,7 +14,7 @@ from django.views.decorators.http import require_POST
 
 from fleet.charts import cost_curve_figure, weibull_plot_figure
 from fleet.exports import parquet_file, stream_csv, xlsx_file
-from fleet.filters import BadFilter, LifeDataPage, page_parameters
+from fleet.filters import BadFilter, LifeDataPage, page_parameters, refused_download
 from fleet.models import Backtest, CapacitorPart, RefitRun
 from fleet.services.exports import TABLES
 from fleet.services.lifedata import part_life
@@ -47,7 +47,7 @@ def export(request, kind, file_format):
     try:
         table = _export_table(request, kind)
     except BadFilter as error:
-        return HttpResponse(f"Cannot read the filter: {error}", status=400, content_type="text/plain; charset=utf-8")
+        return refused_download(str(error))
     name = f"{kind}-{timezone.localdate():%Y-%m-%d}.{file_format}"
     if file_format == "csv":
         response = StreamingHttpResponse(stream_csv(table), content_type=EXPORT_TYPES["csv"])
@@ -126,7 +126,9 @@ def life_data(request):
     costs = {}
     for name, default in LIFE_DATA_COSTS.items():
         costs[name] = values.get(name, default)
-        if name in refused:
+        if name in refused and len(request.GET.getlist(name)) > 1:
+            messages.warning(request, f"Ignored {name}: {refused[name]}; {default:g} was used.")
+        elif name in refused:
             label, text = name.replace("_", " "), request.GET[name]
             messages.warning(request, f"The {label} {refused[name]}; {text!r} was not used, {default:g} was.")
     planned_cost, failure_cost = costs["planned_cost"], costs["failure_cost"]
