@@ -174,3 +174,16 @@ def test_import_parsing_and_column_rules_load_without_the_database_layer():
     )
     result = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True)
     assert result.returncode == 0, result.stdout + result.stderr
+
+
+def test_no_template_comment_spans_lines():
+    """Django's {# ... #} comment holds on one line only: one over two lines was printed, as text, at the top of
+    every form's error summary. [Django documentation, "The Django template language": comments] A comment
+    over several lines is {% comment %}."""
+    spanning = [
+        f"{path.name}:{number}"
+        for path in (Path(__file__).resolve().parent.parent / "templates").rglob("*.html")
+        for number, line in enumerate(path.read_text().splitlines(), start=1)
+        if "{#" in line and "#}" not in line[line.index("{#") :]
+    ]
+    assert not spanning, spanning
