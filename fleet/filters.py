@@ -182,9 +182,14 @@ def parameter_problems(query, known) -> dict[str, str]:
     """The one rule of the API's lists and the exports (and the dashboard's downloads) on the parameters of
     a query string: the message on each one not taken (a misspelt filter, `risks=watch`, would otherwise
     list everything), with the ones taken, and on each one given more than once. {} when every parameter
-    is taken and given once."""
+    is taken and given once. A parameter given empty is left out (`query_value`), a name not taken too."""
     takes = f"which takes: {', '.join(sorted(known))}" if known else "which takes none"
-    problems = {name: f"Not a parameter of this list, {takes}." for name in query if name not in known}
+    getlist = getattr(query, "getlist", lambda name: [query[name]])
+    problems = {
+        name: f"Not a parameter of this list, {takes}."
+        for name in query
+        if name not in known and any(str(value).strip() for value in getlist(name))
+    }
     for name, words in repeated_parameters(query, [name for name in query if name in known]).items():
         problems[name] = f"{words}; one value per call."
     return problems

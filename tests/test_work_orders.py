@@ -432,3 +432,23 @@ def test_a_visit_whose_orders_are_all_closed_says_what_became_of_each(client, pl
     assert "Move the whole visit" not in text  # nothing left to move
     empty = client.get(reverse("visit_sheet", args=[site.code, (day + dt.timedelta(days=1)).isoformat()]))
     assert empty.status_code == 404
+
+
+def test_the_old_address_of_a_visit_moved_then_closed_leads_to_what_became_of_it(client, planner):
+    """A visit moved to another day and then cancelled order by order: its old address answered a 404, where a
+    visit moved and still open leads on to its new day. [derived] it leads on too, to the closed visit's page."""
+    today = timezone.localdate()
+    day = today + dt.timedelta(days=14)
+    while day.weekday() != 2:  # a Wednesday: the Tuesday before is a working day too
+        day += dt.timedelta(days=1)
+    site = make_site(code="GONE")
+    _orders(site, make_part(code="RUN-30U-450"), day, 2)
+    client.force_login(planner)
+    earlier = day - dt.timedelta(days=1)
+    moved = client.post(reverse("visit_sheet", args=[site.code, day.isoformat()]), {"to_day": earlier.isoformat()})
+    assert moved.status_code == 302
+    for order in WorkOrder.objects.filter(site=site):
+        cancel_order(order_id=order.id, reason="motor scrapped", user=planner)
+    response = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()]), follow=True)
+    assert response.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, earlier.isoformat()])
+    assert "No open work orders for this visit: all 2 are closed." in response.content.decode()

@@ -325,14 +325,15 @@ def closed_visit(site_id: int, day: dt.date, user=None) -> dict:
     return {"day": day, "orders": listed[:CLOSED_VISIT_SHOWN], "count": count}
 
 
-def visit_moved_to(site_id: int, due_on: dt.date, user=None) -> VisitMove | None:
+def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool = False) -> VisitMove | None:
     """Where a visit a planner moved off `due_on` is now, from the newest move of its open orders in the
     audit trail (who, when; the orders' `moved_from` keeps the plan's day, not the day of a second move),
     else from an open order the plan had put on that day (`moved_from`, no trail: who and when unknown);
-    None where no open order at the site was moved off that day. Reads the site's moved open orders and
-    their entries: a few rows."""
+    None where no open order at the site was moved off that day. `closed_too`: its orders done or cancelled
+    since count as well (an old address of a visit moved, then closed, leads to what became of it). Reads
+    the site's moved orders and their entries: a few rows."""
     rows = (
-        open_orders(user)
+        (scope_to_user(WorkOrder.objects.all(), user) if closed_too else open_orders(user))
         .filter(site_id__in=storable_ids([site_id]), moved_from__isnull=False)
         .exclude(due_on=due_on)
         .order_by("due_on")

@@ -190,6 +190,10 @@ def visit_sheet(request, site, day):
             return redirect("visit_sheet", site_code=site.code, day=moved.to_day.isoformat())
         closed = closed_visit(site.id, day, user=request.user)
         if not closed["count"]:
+            moved = visit_moved_to(site.id, day, user=request.user, closed_too=True)  # moved, then closed
+            if moved is not None:
+                messages.info(request, f"The visit of {day:%a %Y-%m-%d} was moved to {moved.to_day:%a %Y-%m-%d}.")
+                return redirect("visit_sheet", site_code=site.code, day=moved.to_day.isoformat())
             raise Http404("No work orders for that visit")
         # Every order done or cancelled: the sheet says what became of each (a bookmark or a printed sheet).
         return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
