@@ -338,7 +338,7 @@ def workload_figure(weeks: list[str], by_risk: dict, by_site: dict, visits: list
             "dtick": _whole_step(max(visits, default=0)),
         },
     )
-    figure.update_xaxes(type="date", tickformat="%d %b")
+    figure.update_xaxes(type="date", tickformat="%d %b %Y")  # a week in January is of next year: say so
     weekly = np.sum([counts for counts in by_risk.values()], axis=0) if by_risk else [0]
     figure.update_layout(yaxis={"tick0": 0, "dtick": _whole_step(max(weekly))})
     styled = _styled(figure, height=WORKLOAD_HEIGHT_PX, yaxis_title="replacements")

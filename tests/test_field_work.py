@@ -365,12 +365,15 @@ def test_the_life_data_part_menu_lists_codes_under_their_dielectric(client, engi
     under the heading."""
     make_part(code="RUN-1", dielectric="film")
     make_part(code="START-1", dielectric="electrolytic")
+    # Within a group by rating, not by text: START-98U before START-143U ("START-143U" sorts first as text).
+    make_part(code="START-143U", dielectric="electrolytic", rated_uf=143)
+    make_part(code="START-98U", dielectric="electrolytic", rated_uf=98)
     client.force_login(engineer)
     body = client.get(reverse("life_data"), {"part": "START-1"}).content.decode()
     menu = body[body.index('<select id="part"') : body.index("</select>")]
     groups = re.findall(r'<optgroup label="([^"]+)">(.*?)</optgroup>', menu)
     assert [(label, re.findall(r">([^<]+)</option>", options)) for label, options in groups] == [
-        ("Aluminium electrolytic (start)", ["START-1"]),
+        ("Aluminium electrolytic (start)", ["START-1", "START-98U", "START-143U"]),
         ("Metallised film (run)", ["RUN-1"]),
     ]
     assert '<option value="START-1" selected>' in menu

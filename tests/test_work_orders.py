@@ -232,6 +232,11 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     # The work-orders page lists the same orders: there too the read-again part opens the reading form.
     listed = client.get(reverse("work_orders")).content.decode()
     assert f'href="{reverse("reading_new", args=[suspect.id])}">{suspect.part.code}</a>' in listed
+    # The reading closes the order, and its message says so (it said only "Reading saved").
+    data = {"method": "meter", "capacitance_uf": "3.95", "case_temperature_c": "25", "condition": "sound"}
+    saved = client.post(reverse("reading_new", args=[suspect.id]), data, follow=True).content.decode()
+    assert "; its read-again work order is done." in saved, saved[:2000]
+    assert WorkOrder.objects.get(fitted_capacitor=suspect).state == WorkOrder.State.DONE
 
 
 def test_page_titles_are_plain_text(client, planner):

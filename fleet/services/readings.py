@@ -239,7 +239,8 @@ def record_reading(
                 client_key=stored_key,
                 **checked,
             )
-            close_read_again_orders(fitted_capacitor_ids=[fitted_capacitor.id], user=user)
+            # The read-again orders the reading answers (closed): the form's message names them.
+            reading.closed_read_again = close_read_again_orders(fitted_capacitor_ids=[fitted_capacitor.id], user=user)
             transaction.on_commit(lambda: enqueue_refit([fitted_capacitor.id]))
     except IntegrityError:
         earlier = _earlier_submission(fitted_capacitor, stored_key, values) if stored_key else None

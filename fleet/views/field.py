@@ -63,10 +63,16 @@ def reading_new(request, fitted_capacitor_id):
                     form.data["client_key"] = uuid.uuid4().hex
             else:
                 saved = "was already saved (sent twice)" if reading.replayed else "saved"
+                closed = getattr(reading, "closed_read_again", 0)
                 messages.success(
                     request,
                     f"Reading {saved} for {fitted_capacitor.motor.asset_tag} "
-                    f"({fitted_capacitor.get_role_display().lower()} capacitor).",
+                    f"({fitted_capacitor.get_role_display().lower()} capacitor)"
+                    + (
+                        f"; its read-again work order{pluralize(closed)} {pluralize(closed, 'is,are')} done."
+                        if closed
+                        else "."
+                    ),
                 )
                 # ?saved= tells the page to drop the draft the phone kept of this form.
                 return redirect(

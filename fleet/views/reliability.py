@@ -114,7 +114,7 @@ LIFE_DATA_COSTS = {"planned_cost": 60.0, "failure_cost": 400.0}  # the page's de
 @permission_required("fleet.view_fittedcapacitor", raise_exception=True)
 def life_data(request):
     """Weibull analysis of one part's capacitors; costs are the engineer's to set."""
-    parts = CapacitorPart.objects.order_by("dielectric", "code")
+    parts = CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")  # START-98 before START-143
     values, refused = page_parameters(LifeDataPage, request.GET, request)
     asked = values.get("part")
     part = parts.filter(code=asked).first() if asked else None
