@@ -407,8 +407,11 @@ def test_a_move_or_a_cancel_sent_twice_says_it_was_done_already_by_whom_and_when
     cancel = reverse("work_order_cancel", args=[order.id])
     assert client.post(cancel, {"reason": "motor scrapped"}).status_code == 302
     closed_at = timezone.localtime(WorkOrder.objects.get(pk=order.pk).closed_at)
-    text = other.post(cancel, {"reason": "sent again"}, follow=True).content.decode()
+    again = other.post(cancel, {"reason": "sent again"}, follow=True)
+    text = again.content.decode()
     assert f"it was cancelled by {planner.username} on {closed_at:%Y-%m-%d %H:%M} (motor scrapped)" in text
+    # It lands on the order's visit (it landed on the list of every visit).
+    assert again.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, order.due_on.isoformat()])
     assert WorkOrder.objects.get(pk=order.pk).cancel_reason == "motor scrapped"
     with pytest.raises(ValidationError) as refused:  # the service says the same
         cancel_order(order_id=order.id, reason="again", user=planner)

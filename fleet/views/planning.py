@@ -219,7 +219,7 @@ def work_order_cancel(request, order_id):
     )
     if order.state not in OPEN:  # sent twice, or closed since the page was opened
         messages.info(request, f"That work order is not open: it was {closed_words(order)}. Nothing changed.")
-        return redirect("work_orders")
+        return redirect("visit_sheet", site_code=order.site.code, day=order.due_on.isoformat())  # its visit
     form = CancelOrderForm(request.POST or None)
     if request.method == "POST" and form.is_valid():
         try:
@@ -227,7 +227,7 @@ def work_order_cancel(request, order_id):
         except ValidationError as error:
             if "order" in error.message_dict:  # closed meanwhile (a reading, a replacement, another planner)
                 messages.info(request, f"{' '.join(error.message_dict['order'])} Nothing changed.")
-                return redirect("work_orders")
+                return redirect("visit_sheet", site_code=order.site.code, day=order.due_on.isoformat())
             form.add_error("reason", error.message_dict["reason"])
         else:
             messages.success(request, f"Work order cancelled: {order.get_kind_display()} {order.motor.asset_tag}.")
