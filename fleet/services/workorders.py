@@ -17,6 +17,7 @@ from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import (
+    PLAN_HORIZON_DAYS,
     WORK_ORDER_MAX_WINDOW_DAYS,
     PlanningSettings,
     bundle_visits,
@@ -331,10 +332,16 @@ def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool
     else from an open order the plan had put on that day (`moved_from`, no trail: who and when unknown);
     None where no open order at the site was moved off that day. `closed_too`: its orders done or cancelled
     since count as well (an old address of a visit moved, then closed, leads to what became of it). Reads
-    the site's moved orders and their entries: a few rows."""
+    the site's moved orders within a move's reach of `due_on` (a visit moves at most the plan's horizon,
+    `PLAN_HORIZON_DAYS`, ahead: years of closed moved orders are not read) and their entries: a few rows."""
+    reach = dt.timedelta(days=PLAN_HORIZON_DAYS[1])
     rows = (
         (scope_to_user(WorkOrder.objects.all(), user) if closed_too else open_orders(user))
-        .filter(site_id__in=storable_ids([site_id]), moved_from__isnull=False)
+        .filter(
+            site_id__in=storable_ids([site_id]),
+            moved_from__isnull=False,
+            due_on__range=(due_on - reach, due_on + reach),
+        )
         .exclude(due_on=due_on)
         .order_by("due_on")
         .values_list("pk", "due_on", "moved_from")
