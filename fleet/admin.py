@@ -24,6 +24,7 @@ from .models import (
     Reading,
     RefitRun,
     Site,
+    SiteDayOff,
     SiteMembership,
     SiteStock,
     WorkOrder,
@@ -95,6 +96,15 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
     list_select_related = ["motor", "part"]
     autocomplete_fields = ["motor", "part"]
     date_hierarchy = "fitted_on"
+
+
+@admin.register(SiteDayOff)
+class SiteDayOffAdmin(admin.ModelAdmin):
+    list_display = ["site", "day", "name"]
+    list_filter = ["site"]
+    search_fields = ["site__code", "name"]
+    list_select_related = ["site"]
+    date_hierarchy = "day"
 
 
 @admin.register(SiteStock)

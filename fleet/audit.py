@@ -59,9 +59,20 @@ def current_user():
 
 
 def audited_models():
-    from .models import CapacitorPart, FittedCapacitor, Motor, Site, SiteMembership, SiteStock, WorkOrder
+    from .models import CapacitorPart, FittedCapacitor, Motor, Site, SiteDayOff, SiteMembership, SiteStock, WorkOrder
 
-    return [Site, Motor, CapacitorPart, FittedCapacitor, WorkOrder, SiteMembership, SiteStock, get_user_model(), Group]
+    return [
+        Site,
+        Motor,
+        CapacitorPart,
+        FittedCapacitor,
+        WorkOrder,
+        SiteMembership,
+        SiteStock,
+        SiteDayOff,
+        get_user_model(),
+        Group,
+    ]
 
 
 def _plain(value):

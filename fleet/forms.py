@@ -171,6 +171,24 @@ class MoveVisitForm(forms.Form):
     )
 
 
+class DayOffForm(forms.Form):
+    """A day a site does no visits; `workorders.add_day_off` holds the rules (not past, within the plan's reach)."""
+
+    day = forms.DateField(
+        label="Day off",
+        widget=forms.DateInput(attrs={"type": "date", "data-day-words": "day-off-words"}),
+        error_messages={
+            "required": "Enter the day off, e.g. 2026-12-25.",
+            "invalid": "Enter the day as year-month-day, e.g. 2026-12-25.",
+        },
+    )
+    name = forms.CharField(
+        label="What it is",
+        help_text="e.g. a public holiday's name, or 'shutdown'",
+        required=False,  # the service names an empty one
+    )
+
+
 class CancelOrderForm(forms.Form):
     """Why the planner cancels an open work order; `workorders.cancel_order` holds the rules."""
 

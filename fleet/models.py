@@ -596,6 +596,30 @@ class SiteStock(models.Model):
             raise ValidationError({"quantity": f"{self.quantity} is not a whole number from 0 to {self.MAX_QUANTITY}."})
 
 
+class SiteDayOff(models.Model):
+    """A day a site does no maintenance visits (a local public holiday, a shutdown): the plan dates no visit on
+    it and a visit cannot be moved onto it. Kept by the planner, per site: holidays are local."""
+
+    site = models.ForeignKey(Site, on_delete=models.CASCADE, related_name="days_off")
+    day = models.DateField()
+    name = models.CharField(max_length=80, help_text="What the day is, e.g. a public holiday's name or 'shutdown'")
+
+    class Meta:
+        ordering = ["site__code", "day"]
+        verbose_name = "day off"
+        verbose_name_plural = "days off"
+        constraints = [
+            models.UniqueConstraint(
+                fields=["site", "day"],
+                name="one_day_off_per_site_and_day",
+                violation_error_message="That day is a day off at this site already.",
+            )
+        ]
+
+    def __str__(self):
+        return f"{self.site.code} {self.day.isoformat()} {self.name}"
+
+
 class Reading(models.Model):
     """One measurement, append-only. A correction is a new reading that supersedes."""
 

@@ -20,6 +20,7 @@ VIEW_ALL = [
     "view_workorder",
     "view_refitrun",
     "view_sitestock",
+    "view_sitedayoff",
 ]
 # Imports by role: technicians bring in readings (a logger's or another team's sheet); planners keep the
 # register and its past capacitors; reliability engineers bring in the past capacitors that life data needs.
@@ -31,6 +32,7 @@ ROLE_PERMISSIONS = {
     PLANNER: VIEW_ALL
     + ["add_workorder", "change_workorder", "change_motor", "add_refitrun"]
     + ["add_sitestock", "change_sitestock", "delete_sitestock"]
+    + ["add_sitedayoff", "delete_sitedayoff"]
     + ["import_readings", "import_register", "import_history"],
     RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun", "add_backtest", "import_readings", "import_history"],
     ADMINISTRATOR: None,  # every permission of the fleet app, plus users and groups
@@ -128,6 +130,7 @@ SITE_PATHS = {
     "designcount": "site",  # counts by site, kept by triggers (migration 0032)
     "workorder": "site",
     "sitestock": "site",
+    "sitedayoff": "site",
 }
 
 

@@ -68,6 +68,7 @@ urlpatterns = [
     *old_capacitor_paths,
     path("sites/<code:site_code>/route/", field.site_route, name="route"),
     path("sites/<code:site_code>/stock/", field.site_stock, name="site_stock"),
+    path("sites/<code:site_code>/days-off/", planning.site_days_off_page, name="site_days_off"),
     path("parts/stand-in/", planning.stand_in_parts, name="stand_in_parts"),
     path("sites/<code:site_code>/labels/", field.labels, name="labels"),
     path("signed-in/", planning.after_sign_in, name="after_sign_in"),

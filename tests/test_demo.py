@@ -77,12 +77,13 @@ def test_the_scenarios_holidays_follow_the_calendar():
     assert {dt.date(2027, 12, 27), dt.date(2027, 12, 28), dt.date(2027, 3, 29)} <= days
 
 
-def test_the_demos_visits_on_a_holiday_are_moved_to_the_working_day_before():
-    """Ours: the demo's plan put a visit on Friday 25 December (replace-by dates on Saturday 26 move back to the
-    working day before). Moved as its planner would: to Thursday 24, keeping the plan's day as `moved_from`;
-    a visit on Monday 28 (the Saturday holiday taken on the Monday) goes back over the weekend and Christmas
-    to Thursday 24 as well, where the two become one. A visit on a working day stays."""
-    from fleet.services.demo import move_visits_off_holidays
+def test_the_demos_plan_dates_no_visit_on_a_holiday():
+    """Ours: the demo stores the scenario's holidays as each site's days off, and its plan, which put a visit on
+    Friday 25 December (replace-by dates on Saturday 26 move back to the working day before), now puts it on
+    Thursday 24; a visit due on Monday 28 (the Saturday holiday taken on the Monday) goes back over the weekend
+    and Christmas to Thursday 24 as well. A visit on a working day stays. Run twice, nothing stored twice."""
+    from fleet.models import SiteDayOff
+    from fleet.services.demo import store_scenario_days_off
     from fleet.services.workorders import plan_work_orders
     from tests.factories import make_fitted_capacitor, make_motor, make_site, stored_assessment
 
@@ -90,12 +91,9 @@ def test_the_demos_visits_on_a_holiday_are_moved_to_the_working_day_before():
     site = make_site(code="HOL")
     for replace_by in (dt.date(2026, 12, 26), dt.date(2026, 12, 28), dt.date(2026, 12, 11)):
         stored_assessment(make_fitted_capacitor(motor=make_motor(site=site)), "due soon", replace_by)
+    assert store_scenario_days_off(today=today) > 0
+    assert store_scenario_days_off(today=today) == 0
+    assert {dt.date(2026, 12, 25), dt.date(2026, 12, 28)} <= set(SiteDayOff.objects.values_list("day", flat=True))
     plan_work_orders(horizon_days=90, today=today, window_days=1)
-    planned = set(WorkOrder.objects.values_list("due_on", flat=True))
-    assert dt.date(2026, 12, 25) in planned, planned
-    assert move_visits_off_holidays(today=today) >= 1
     days = sorted(WorkOrder.objects.values_list("due_on", "moved_from"))
-    assert all(day.weekday() < 5 for day, _ in days)
-    assert not {day for day, _ in days} & {dt.date(2026, 12, 25), dt.date(2026, 12, 28)}
-    assert (dt.date(2026, 12, 24), dt.date(2026, 12, 25)) in days
-    assert dt.date(2026, 12, 11) in {day for day, _ in days}  # a working day's visit is left where it is
+    assert days == [(dt.date(2026, 12, 11), None), (dt.date(2026, 12, 24), None), (dt.date(2026, 12, 24), None)]

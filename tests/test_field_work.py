@@ -152,6 +152,9 @@ def test_a_motor_is_found_by_part_of_its_tag_or_by_words_of_its_place(client, te
     [
         *("CST 0093", "cst 0093", " CST  0093 ", "CST_0093", "cst.0093", "CST/0093", "CST - 0093", "CST-0093"),
         *("CST\u20130093", "cst\u20140093", "CST\u22120093", "CST\u20110093"),  # the dashes a phone puts for '-'
+        # A keyboard left in full-width mode (East Asian input methods): letters, digits, hyphen and space U+FF01-FF5E
+        # and U+3000, read as their ASCII forms by Unicode's compatibility normalisation (NFKC, UAX #15).
+        *("\uff23\uff33\uff34\uff0d\uff10\uff10\uff19\uff13", "\uff43\uff53\uff54\u3000\uff10\uff10\uff19\uff13"),
     ],
 )
 def test_a_tag_is_found_whatever_separator_is_typed_between_its_parts(client, technician, typed):

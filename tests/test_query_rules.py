@@ -272,7 +272,7 @@ def test_the_admins_403_on_deleting_a_reading_says_readings_are_kept(client, adm
 # 6. A site's pages find its code in any case.
 
 
-@pytest.mark.parametrize("name", ["route", "labels", "site_stock"])
+@pytest.mark.parametrize("name", ["route", "labels", "site_stock", "site_days_off"])
 def test_a_site_page_in_another_case_goes_to_the_registers_spelling(client, administrator, two_sites, name):
     """Before: /sites/cst/route/ answered 404 while /motors/cst-0001/ answered the motor."""
     client.force_login(administrator)

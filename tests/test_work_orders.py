@@ -460,3 +460,75 @@ def test_the_old_address_of_a_visit_moved_then_closed_leads_to_what_became_of_it
     response = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()]), follow=True)
     assert response.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, earlier.isoformat()])
     assert "No open work orders for this visit: all 2 are closed." in response.content.decode()
+
+
+def test_a_sites_days_off_keep_the_plan_and_the_moves_off_them(client, planner, technician):
+    """[trade] a visit is not sent on a public holiday, and holidays are local: the glasshouses keep a day the
+    cool store works. Ours: the planner stores a site's days off on its page; the plan dates no visit there
+    (a visit due on Fri 25 goes on Thu 24 at that site only), a move onto one is refused naming it, the days
+    offered skip it, and a visit already on a day added later says so on its sheet. Bad input is refused at
+    its field, saving nothing; a technician sees the days but cannot change them."""
+    from fleet.models import SiteDayOff
+    from fleet.services.workorders import add_day_off, move_choices
+
+    site, other = make_site(code="GH1"), make_site(code="CST")
+    _due(site, HOLIDAY, 1)
+    _due(other, HOLIDAY, 1)
+    client.force_login(planner)
+    url = reverse("site_days_off", args=["gh1"])  # any case: led to GH1
+    assert client.get(url).status_code == 302
+    url = reverse("site_days_off", args=["GH1"])
+    refused = {
+        ("", "public holiday"): ("day", "Enter the day off"),
+        ("25/12/2026", "public holiday"): ("day", "year-month-day"),
+        (str(MONDAY - dt.timedelta(days=400)), "public holiday"): ("day", "in the past"),
+        (str(timezone.localdate() + dt.timedelta(days=900)), "shutdown"): ("day", "past the plan's reach"),
+        (str(timezone.localdate() + dt.timedelta(days=30)), "   "): ("name", "Say what the day is"),
+    }
+    for (day, name), (field, says) in refused.items():
+        response = client.post(url, {"day": day, "name": name})
+        assert response.status_code == 400, (day, name)
+        assert says in " ".join(response.context["form"].errors[field]), (day, name)
+    assert not SiteDayOff.objects.exists()
+
+    found = add_day_off(site_id=site.id, day=HOLIDAY, name="Christmas Day", today=MONDAY)
+    assert found == {"orders": 0}
+    with pytest.raises(ValidationError) as twice:
+        add_day_off(site_id=site.id, day=HOLIDAY, name="again", today=MONDAY)
+    assert "a day off at this site already (Christmas Day)" in twice.value.message_dict["day"][0]
+
+    plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    by_site = dict(WorkOrder.objects.values_list("site__code", "due_on"))
+    assert by_site == {"GH1": HOLIDAY - dt.timedelta(days=1), "CST": HOLIDAY}
+    with pytest.raises(ValidationError) as onto:
+        move_visit(site_id=other.id, due_on=HOLIDAY, to_day=HOLIDAY, user=planner, today=MONDAY)
+    assert "already" in onto.value.message_dict["to_day"][0]  # CST works that day: the visit is there
+    with pytest.raises(ValidationError) as onto:
+        move_visit(site_id=site.id, due_on=HOLIDAY - dt.timedelta(days=1), to_day=HOLIDAY, user=planner, today=MONDAY)
+    assert "is a day off at this site (Christmas Day)" in onto.value.message_dict["to_day"][0]
+    assert HOLIDAY not in move_choices(site.id, HOLIDAY - dt.timedelta(days=1), MONDAY)
+    assert HOLIDAY in move_choices(other.id, HOLIDAY - dt.timedelta(days=1), MONDAY)
+
+    # A day off added where a visit stands already: the planner is told, and the visit sheet says it.
+    other_day_off = add_day_off(site_id=other.id, day=HOLIDAY, name="shutdown", today=MONDAY)
+    assert other_day_off == {"orders": 1}
+    sheet = client.get(reverse("visit_sheet", args=["CST", HOLIDAY.isoformat()]))
+    assert "is a day off at this site (shutdown)" in sheet.content.decode()
+    assert "is a day off at this site" not in client.get(
+        reverse("visit_sheet", args=["GH1", (HOLIDAY - dt.timedelta(days=1)).isoformat()])
+    ).content.decode()
+
+    client.force_login(technician)
+    page = client.get(url)
+    assert page.status_code == 200 and "Christmas Day" in page.content.decode()
+    assert client.post(url, {"day": str(timezone.localdate()), "name": "x"}).status_code == 403
+    day_off = SiteDayOff.objects.create(site=site, day=timezone.localdate() + dt.timedelta(days=10), name="shutdown")
+    assert client.post(url, {"remove": day_off.id}).status_code == 403
+    client.force_login(planner)
+    assert client.post(url, {"remove": day_off.id}).status_code == 302
+    assert not SiteDayOff.objects.filter(pk=day_off.pk).exists()
+    assert "removed already" in " ".join(
+        str(m) for m in client.post(url, {"remove": day_off.id}, follow=True).context["messages"]
+    )
+    assert client.post(url, {"remove": "99999999999999999999"}).status_code == 302  # no such row: nothing changed
+    assert AuditEntry.objects.filter(model="fleet.sitedayoff").exists()

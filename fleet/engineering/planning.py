@@ -8,6 +8,7 @@ words, so the refit service only loads, calls and stores.
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -48,12 +49,17 @@ def work_order_problems(due_on, window_days, today) -> list[tuple[np.ndarray, st
 WEEKDAY_NAMES = ("Monday", "Tuesday", "Wednesday", "Thursday", "Friday", "Saturday", "Sunday")
 
 
-def visit_day_problem(day: dt.date, today: dt.date, weekmask: str | None = None) -> str:
+def visit_day_problem(
+    day: dt.date, today: dt.date, weekmask: str | None = None, days_off: Mapping[dt.date, str] | None = None
+) -> str:
     """Why a visit cannot be moved to `day`, in words ("" where it can): a day before `today`, a day that
-    is not a working day (`PlanningSettings.working_days`, numpy's weekmask), or one past the plan's reach."""
+    is not a working day (`PlanningSettings.working_days`, numpy's weekmask), one of the site's `days_off`
+    (day: its name), or one past the plan's reach."""
     weekmask = PlanningSettings.working_days if weekmask is None else weekmask
     if day < today:
         return f"{day.isoformat()} is in the past: choose today or a later working day."
+    if days_off and day in days_off:
+        return f"{day.isoformat()} is a day off at this site ({days_off[day]}): choose another working day."
     if weekmask[day.weekday()] != "1":
         working = [name for name, flag in zip(WEEKDAY_NAMES, weekmask, strict=True) if flag == "1"]
         return (
@@ -66,19 +72,31 @@ def visit_day_problem(day: dt.date, today: dt.date, weekmask: str | None = None)
 
 
 def working_days_near(
-    day: dt.date, today: dt.date, *, before: int = 2, after: int = 3, weekmask: str | None = None
+    day: dt.date,
+    today: dt.date,
+    *,
+    before: int = 2,
+    after: int = 3,
+    weekmask: str | None = None,
+    days_off: Mapping[dt.date, str] | None = None,
 ) -> list[dt.date]:
     """The working days next to a visit's `day` that it may be moved to (`visit_day_problem` finds nothing
     against them): up to `before` working days before it and `after` after it, in date order. The choices the
     visit sheet offers, so that a planner picks a day by its weekday and date rather than in a date box
-    written in the browser's own order of day, month and year."""
+    written in the browser's own order of day, month and year. The site's `days_off` are skipped."""
     weekmask = PlanningSettings.working_days if weekmask is None else weekmask
     start = np.datetime64(day, "D")
+    holidays = _holidays(days_off)
     # A `day` off work is rolled towards the side counted from first: one step back is the working day before it.
-    earlier = np.busday_offset(start, -np.arange(before, 0, -1), roll="forward", weekmask=weekmask)
-    later = np.busday_offset(start, np.arange(1, after + 1), roll="backward", weekmask=weekmask)
+    earlier = np.busday_offset(start, -np.arange(before, 0, -1), roll="forward", weekmask=weekmask, holidays=holidays)
+    later = np.busday_offset(start, np.arange(1, after + 1), roll="backward", weekmask=weekmask, holidays=holidays)
     days = np.concatenate([earlier, later]).astype(dt.date)
-    return [d for d in days if not visit_day_problem(d, today, weekmask)]
+    return [d for d in days if not visit_day_problem(d, today, weekmask, days_off)]
+
+
+def _holidays(days_off) -> np.ndarray:
+    """Days off as numpy's busday holidays (an empty list where there are none)."""
+    return np.array(sorted(days_off or ()), dtype="datetime64[D]")
 
 
 ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
@@ -374,7 +392,13 @@ def plan_moved_words(
 
 
 def bundle_visits(
-    site, due_day, window_days=14, *, today: dt.date | None = None, weekmask: str = PlanningSettings.working_days
+    site,
+    due_day,
+    window_days=14,
+    *,
+    today: dt.date | None = None,
+    weekmask: str = PlanningSettings.working_days,
+    days_off_by_site: Mapping | None = None,
 ):
     """Group replacements into site visits: one trip per site per window.
 
@@ -383,7 +407,8 @@ def bundle_visits(
     (replaced a little early rather than sending a second trip); the next item
     opens the next visit. Returns (visit number per item, visit day per item).
     The loop runs over visits, not over items. Given `today` (day 0), a visit day
-    that falls outside `weekmask`'s working days moves to the working day before
+    that falls outside `weekmask`'s working days, or on one of its site's days off
+    (`days_off_by_site`: site value to its days), moves to the working day before
     it, or after it where that would be before today.
     """
     site = np.asarray(site)
@@ -404,17 +429,26 @@ def bundle_visits(
             next_visit += 1
             position = end
     if today is not None and due_day.size:
-        visit_day = working_visit_days(visit_day, today, weekmask)
+        on_working_day = working_visit_days(visit_day, today, weekmask)
+        for site_value, days_off in (days_off_by_site or {}).items():  # a loop over sites, not items
+            at_site = site == site_value
+            if days_off and at_site.any():
+                on_working_day[at_site] = working_visit_days(visit_day[at_site], today, weekmask, days_off)
+        visit_day = on_working_day
     return visit, visit_day
 
 
-def working_visit_days(visit_day, today: dt.date, weekmask: str = PlanningSettings.working_days) -> np.ndarray:
-    """Visit days (days from `today`) moved onto working days: back to the working day before, or on to the
-    one after where going back would be before today (a weekend's overdue visit goes on Monday)."""
+def working_visit_days(
+    visit_day, today: dt.date, weekmask: str = PlanningSettings.working_days, days_off=()
+) -> np.ndarray:
+    """Visit days (days from `today`) moved onto working days that are not `days_off`: back to the working day
+    before, or on to the one after where going back would be before today (a weekend's overdue visit goes on
+    Monday)."""
     day = np.asarray(visit_day, float)
     base = np.datetime64(today, "D")
+    holidays = _holidays(days_off)
     dates = base + np.nan_to_num(day, nan=0.0).astype("int64").astype("timedelta64[D]")
-    earlier = np.busday_offset(dates, 0, roll="backward", weekmask=weekmask)
-    later = np.busday_offset(dates, 0, roll="forward", weekmask=weekmask)
+    earlier = np.busday_offset(dates, 0, roll="backward", weekmask=weekmask, holidays=holidays)
+    later = np.busday_offset(dates, 0, roll="forward", weekmask=weekmask, holidays=holidays)
     moved = np.where(earlier >= base, earlier, later)
     return np.where(np.isnan(day), np.nan, (moved - base).astype(float))

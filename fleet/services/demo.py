@@ -23,8 +23,19 @@ from fleet.engineering.capacitor import acceleration_factor
 from fleet.engineering.drift import operating_figures
 from fleet.engineering.motor import load_kind_from_type, load_matching_rated_slip, synchronous_speed_rad_s
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
+from fleet.engineering.planning import PLAN_HORIZON_DAYS
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
-from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site, SiteStock, WorkOrder
+from fleet.models import (
+    Assessment,
+    CapacitorPart,
+    FittedCapacitor,
+    Motor,
+    Reading,
+    Site,
+    SiteDayOff,
+    SiteStock,
+    WorkOrder,
+)
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.circuits import circuit_fields
@@ -32,8 +43,6 @@ from fleet.services.readings import replace_capacitor
 from fleet.services.workorders import (
     KIND_FOR_ROLE,
     issue_visit,
-    move_choices,
-    move_visit,
     open_visits_page,
     plan_work_orders,
 )
@@ -492,8 +501,8 @@ def build_work_orders(*, today: dt.date | None = None) -> None:
             for c in recent
         ]
     )
+    store_scenario_days_off(today=today)
     plan_work_orders(horizon_days=90, user=planner, today=today)
-    move_visits_off_holidays(today=today, user=planner)
     first_visits = {}
     for visit in open_visits_page(1, per_page=1000).object_list:
         first_visits.setdefault(visit["site"].id, visit)
@@ -517,8 +526,7 @@ def scenario_holidays(years) -> set[dt.date]:
     """The public holidays of the scenario's country (its sites keep Irish time) in `years`: 1 January, 17 March,
     Easter Monday, the first Monday of February, May, June and August, the last Monday of October, 25 and 26
     December; one falling on a weekend is taken on the next weekday not already a holiday. From memory,
-    unverified, and for the demo only: the plan knows working weekdays, and a planner moves a visit that falls
-    on a local holiday (the visit sheet's "Move the whole visit")."""
+    unverified, and for the demo only: a plant stores its own as each site's days off."""
     days = set()
     for year in years:
         fixed = [dt.date(year, 1, 1), dt.date(year, 3, 17), dt.date(year, 12, 25), dt.date(year, 12, 26)]
@@ -549,23 +557,25 @@ def _easter_sunday(year: int) -> dt.date:
     return dt.date(year, month, day + 1)
 
 
-def move_visits_off_holidays(*, today: dt.date, user=None) -> int:
-    """Move every open visit that falls on one of the scenario's holidays, as its planner would: to the nearest
-    working day before it that is no holiday (the plan dates a visit by its replace-by dates), or after it where
-    none is left before (today or later). Returns the number of visits moved."""
-    visits = list(open_visits_page(1, per_page=10_000, orders_shown=1).object_list)
-    holidays = scenario_holidays(range(today.year, max([today.year, *(v["day"].year for v in visits)]) + 2))
-    moved = 0
-    for visit in visits:
-        if visit["day"] not in holidays:
-            continue
-        choices = [day for day in move_choices(visit["day"], today) if day not in holidays]
-        earlier = [day for day in choices if day < visit["day"]]
-        to_day = earlier[-1] if earlier else next(iter(choices), None)
-        if to_day is not None:
-            move_visit(site_id=visit["site"].id, due_on=visit["day"], to_day=to_day, user=user, today=today)
-            moved += 1
-    return moved
+SCENARIO_HOLIDAY_NAME = "public holiday"
+
+
+def store_scenario_days_off(*, today: dt.date) -> int:
+    """Store the scenario's public holidays as each site's days off (`SiteDayOff`), from a month ago to the plan's
+    reach, as a planner would on setting up: the plan then dates no visit on them. Run twice, adds nothing
+    twice. Returns the number of rows added."""
+    last = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
+    first = today - dt.timedelta(days=30)
+    days = sorted(d for d in scenario_holidays(range(first.year, last.year + 1)) if first <= d <= last)
+    held = set(SiteDayOff.objects.values_list("site_id", "day"))
+    rows = [
+        SiteDayOff(site_id=site_id, day=day, name=SCENARIO_HOLIDAY_NAME)
+        for site_id in Site.objects.values_list("id", flat=True)
+        for day in days
+        if (site_id, day) not in held
+    ]
+    SiteDayOff.objects.bulk_create(rows)
+    return len(rows)
 
 
 def work_orders_by_state() -> dict[str, int]:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+import unicodedata
 from collections import defaultdict
 
 import numpy as np
@@ -147,7 +148,8 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     migration 0053), which no b-tree can; the sites a word names are found first among the user's few
     sites, so each word is one indexed test on the motors' own columns.
     """
-    text = " ".join(text.split())
+    # A keyboard in full-width mode types "ＣＳＴ－００９３": compatibility forms read as their plain ones (NFKC).
+    text = " ".join(unicodedata.normalize("NFKC", text).split())
     if not text:
         return None, [], 0
     motors = scope_to_user(Motor.objects.select_related("site"), user)

@@ -25,7 +25,7 @@ from fleet.engineering.planning import (
     visit_day_problem,
     working_days_near,
 )
-from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteDayOff, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
@@ -114,6 +114,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
                 window_days,
                 today=today,
                 weekmask=PlanningSettings().working_days,
+                days_off_by_site=days_off_by_site({i[0] for i in items}, today),
             )
             moves = _moved_visits({i[0] for i in items}, today)
             for (site_id, _, order), day in zip(items, visit_day, strict=True):
@@ -273,7 +274,9 @@ def move_visit(
     today = today or timezone.localdate()
     if to_day is None:
         raise ValidationError({"to_day": "Enter the day to move the visit to, e.g. 2026-12-24."})
-    problem = visit_day_problem(to_day, today, PlanningSettings().working_days)
+    problem = visit_day_problem(
+        to_day, today, PlanningSettings().working_days, days_off_by_site([site_id], today).get(site_id)
+    )
     if not problem and to_day == due_on:
         problem = f"The visit is on {to_day.isoformat()} already: choose another day."
     if problem:
@@ -373,9 +376,25 @@ def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool
     return None
 
 
-def move_choices(due_on: dt.date, today: dt.date | None = None) -> list[dt.date]:
-    """The working days next to a visit on `due_on` that `move_visit` takes (`planning.working_days_near`)."""
-    return working_days_near(due_on, today or timezone.localdate(), weekmask=PlanningSettings().working_days)
+def move_choices(site_id: int, due_on: dt.date, today: dt.date | None = None) -> list[dt.date]:
+    """The working days next to a visit on `due_on` that `move_visit` takes (`planning.working_days_near`),
+    the site's days off skipped."""
+    today = today or timezone.localdate()
+    days_off = days_off_by_site([site_id], today).get(site_id)
+    return working_days_near(due_on, today, weekmask=PlanningSettings().working_days, days_off=days_off)
+
+
+def days_off_by_site(site_ids, today: dt.date) -> dict[int, dict[dt.date, str]]:
+    """The days off (`SiteDayOff`) of the sites `site_ids` from `today` to the plan's reach: site id to
+    {day: name}. One query; a site without any is left out."""
+    found: dict[int, dict[dt.date, str]] = {}
+    rows = SiteDayOff.objects.filter(
+        site_id__in=storable_ids(site_ids),
+        day__range=(today, today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])),
+    ).values_list("site_id", "day", "name")
+    for site_id, day, name in rows:
+        found.setdefault(site_id, {})[day] = name
+    return found
 
 
 def open_orders(user=None):
@@ -571,3 +590,55 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
         for visit, (day, site_id) in zip(page.object_list, keys, strict=True)
     ]
     return page
+
+
+DAY_OFF_SHOWN_PAST_DAYS = 30  # the days-off page lists the last month's too, as the work-orders page its cancellations
+
+
+def site_days_off(site_id: int, today: dt.date | None = None):
+    """A site's days off from a month ago on, by date."""
+    today = today or timezone.localdate()
+    since = today - dt.timedelta(days=DAY_OFF_SHOWN_PAST_DAYS)
+    return SiteDayOff.objects.filter(site_id=site_id, day__gte=since).order_by("day")
+
+
+def add_day_off(*, site_id: int, day: dt.date | None, name: str, today: dt.date | None = None) -> dict:
+    """Store a day off at a site, so that no plan dates a visit on it and no visit is moved onto it.
+    Refused by field: no day, a day in the past or past the plan's reach, no name, a day already off.
+    Returns the open visit already on that day ({"orders": n}; n 0 where there is none), for the planner
+    to move."""
+    today = today or timezone.localdate()
+    name = (name or "").strip()
+    errors = {}
+    furthest = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
+    if day is None:
+        errors["day"] = "Enter the day off, e.g. 2026-12-25."
+    elif day < today:
+        errors["day"] = f"{day.isoformat()} is in the past: days off guide the plan from today on."
+    elif day > furthest:
+        errors["day"] = (
+            f"{day.isoformat()} is past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest}): add it later."
+        )
+    if not name:
+        errors["name"] = "Say what the day is, e.g. 'public holiday' or 'shutdown'."
+    elif len(name) > SiteDayOff._meta.get_field("name").max_length:
+        errors["name"] = f"At most {SiteDayOff._meta.get_field('name').max_length} characters."
+    if "day" not in errors:
+        held = SiteDayOff.objects.filter(site_id=site_id, day=day).first()
+        if held is not None:
+            errors["day"] = f"{day:%a %Y-%m-%d} is a day off at this site already ({held.name})."
+    if errors:
+        raise ValidationError(errors)
+    with transaction.atomic():
+        if SiteDayOff.objects.select_for_update().filter(site_id=site_id, day=day).exists():  # added meanwhile
+            raise ValidationError({"day": f"{day:%a %Y-%m-%d} is a day off at this site already."})
+        SiteDayOff.objects.create(site_id=site_id, day=day, name=name)
+    return {"orders": open_orders().filter(site_id=site_id, due_on=day).count()}
+
+
+def remove_day_off(*, site_id: int, day_off_id: int) -> SiteDayOff | None:
+    """Remove one day off of a site (None where it is gone already: sent twice)."""
+    day_off = SiteDayOff.objects.filter(site_id=site_id, pk__in=storable_ids([day_off_id])).first()
+    if day_off is not None:
+        day_off.delete()
+    return day_off

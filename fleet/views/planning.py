@@ -17,7 +17,7 @@ from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import list_page, parameter_problems, plan_parameters, problems_text, refused_download
-from fleet.forms import CancelOrderForm, MoveVisitForm
+from fleet.forms import CancelOrderForm, DayOffForm, MoveVisitForm
 from fleet.models import Site, WorkOrder
 from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services import pages
@@ -28,9 +28,11 @@ from fleet.services.substitutes import part_families
 from fleet.services.workorders import (
     CANCELLED_SHOWN_DAYS,
     OPEN,
+    add_day_off,
     cancel_order,
     closed_visit,
     closed_words,
+    days_off_by_site,
     issue_visit,
     move_choices,
     move_visit,
@@ -39,6 +41,8 @@ from fleet.services.workorders import (
     open_visits_page,
     plan_work_orders,
     recently_cancelled,
+    remove_day_off,
+    site_days_off,
     visit_moved_to,
     with_current_plan,
     with_plan_now,
@@ -204,9 +208,59 @@ def visit_sheet(request, site, day):
         "site": site,
         "page": page,
         "move_form": move_form,
-        "move_choices": move_choices(day),
+        "move_choices": move_choices(site.id, day),
+        "day_off": days_off_by_site([site.id], day).get(site.id, {}).get(day),
     }
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
+
+
+@permission_required("fleet.view_sitedayoff", raise_exception=True)
+@site_in_any_case
+def site_days_off_page(request, site):
+    """A site's days off (local public holidays, shutdowns): the plan dates no visit on them. The planner adds
+    and removes them here."""
+    form = DayOffForm(request.POST if request.method == "POST" and "remove" not in request.POST else None)
+    if request.method == "POST":
+        if "remove" in request.POST:
+            if not request.user.has_perm("fleet.delete_sitedayoff"):
+                raise PermissionDenied
+            try:
+                day_off_id = int(request.POST["remove"])
+            except ValueError:
+                day_off_id = 0
+            removed = remove_day_off(site_id=site.id, day_off_id=day_off_id)
+            if removed is None:
+                messages.info(request, "That day off was removed already: nothing changed.")
+            else:
+                messages.success(
+                    request,
+                    f"{removed.day:%a %Y-%m-%d} ({removed.name}) is no longer a day off at {site.code}. "
+                    "Plan again to let visits fall on it.",
+                )
+            return redirect("site_days_off", site_code=site.code)
+        if not request.user.has_perm("fleet.add_sitedayoff"):
+            raise PermissionDenied
+        if form.is_valid():
+            day = form.cleaned_data["day"]
+            try:
+                found = add_day_off(site_id=site.id, day=day, name=form.cleaned_data["name"])
+            except ValidationError as error:
+                for field, problems in error.message_dict.items():
+                    form.add_error(field, problems)
+            else:
+                words = f"{day:%a %Y-%m-%d} is a day off at {site.code}: no plan dates a visit on it."
+                if found["orders"]:
+                    n = found["orders"]
+                    messages.warning(
+                        request,
+                        f"{words} A visit is on that day already ({n} open work order{pluralize(n)}): "
+                        "move it from its visit page.",
+                    )
+                else:
+                    messages.success(request, words)
+                return redirect("site_days_off", site_code=site.code)
+    context = {"site": site, "form": form, "days_off": site_days_off(site.id), "today": timezone.localdate()}
+    return render(request, "fleet/days_off.html", context, status=400 if form.errors else 200)
 
 
 @permission_required("fleet.add_workorder", raise_exception=True)

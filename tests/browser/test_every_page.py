@@ -33,7 +33,7 @@ EXPECTED_KINDS = {
     *("home", "find-tag", "motor", "fitted_capacitor", "reading_new", "replace", "route", "labels", "labels-tag"),
     *("plan", "work_orders", "visit_sheet", "work_order_cancel", "life_data", "life_data-part", "track_record"),
     "refits",
-    *("imports", "import_detail", "site_stock", "stand_in_parts"),
+    *("imports", "import_detail", "site_stock", "site_days_off", "stand_in_parts"),
 }
 
 MEASURE = r"""() => {

@@ -282,3 +282,29 @@ def test_the_working_days_offered_next_to_a_visit_are_the_days_it_may_move_to():
         dt.date(2026, 12, 24),
         dt.date(2026, 12, 27),
     ]
+
+
+def test_visits_skip_a_sites_days_off():
+    """[derived] A site's days off (local holidays, shutdowns) are days off work for its visits, counted with
+    Python's calendar (datetime.date.weekday), not numpy's: 2026-12-25 (Friday) and 2026-12-28 (Monday) off at
+    site A. A visit due on Sat 26 goes back past Friday 25 to Thursday 24; one due on Mon 28 back over the
+    weekend and Friday to Thursday 24 too; site B, without days off, keeps Friday 25. An overdue visit on a day
+    off goes on to the next working day. The days offered to move a visit to, and the day refused, skip them."""
+    from fleet.engineering.planning import bundle_visits, visit_day_problem, working_days_near
+
+    today = dt.date(2026, 12, 3)
+    off = {dt.date(2026, 12, 25): "public holiday", dt.date(2026, 12, 28): "shutdown"}
+    site = np.array(["A", "A", "B", "A"])
+    due = np.array([23.0, 25.0, 23.0, 8.0])  # Sat 26 (A), Mon 28 (A, own visit: window 1), Sat 26 (B), Fri 11 (A)
+    _, day = bundle_visits(site, due, 1, today=today, days_off_by_site={"A": off})
+    dates = [today + dt.timedelta(days=int(d)) for d in day]
+    assert dates == [dt.date(2026, 12, 24), dt.date(2026, 12, 24), dt.date(2026, 12, 25), dt.date(2026, 12, 11)]
+    assert not set(dates[:2]) & set(off) and all(d.weekday() < 5 for d in dates)
+    christmas = dt.date(2026, 12, 25)
+    _, overdue = bundle_visits(np.array(["A"]), np.array([0.0]), 14, today=christmas, days_off_by_site={"A": off})
+    assert overdue.tolist() == [4.0]  # Fri 25 off, Mon 28 off: Tuesday 29, four days on
+
+    assert "day off at this site (shutdown)" in visit_day_problem(dt.date(2026, 12, 28), today, None, off)
+    assert visit_day_problem(dt.date(2026, 12, 28), today) == ""  # no days off given: a Monday
+    offered = working_days_near(dt.date(2026, 12, 25), today, before=2, after=2, days_off=off)
+    assert offered == [dt.date(2026, 12, 23), dt.date(2026, 12, 24), dt.date(2026, 12, 29), dt.date(2026, 12, 30)]
