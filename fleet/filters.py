@@ -4,6 +4,7 @@ a message naming the parameter (JSON 400 from the API, a note on the page), neve
 from __future__ import annotations
 
 import datetime as dt
+import functools
 from collections.abc import Callable
 
 import django_filters
@@ -236,6 +237,26 @@ def named_if_repeated(request, names) -> bool:
     for name, words in repeated.items():
         messages.warning(request, f"Ignored {name}: {words}")
     return bool(repeated)
+
+
+def takes_parameters(*known: str):
+    """A page view's decorator: each query-string parameter it does not take, given a value, is named in a note
+    on the page (`/dashboard/?site=CST` would otherwise look filtered while it shows every site), by the rule
+    of the lists and exports (`parameter_problems`); the page is shown as without it."""
+
+    def decorator(view):
+        @functools.wraps(view)
+        def wrapped(request, *args, **kwargs):
+            if request.method == "GET":
+                for name, message in parameter_problems(request.GET, set(known)).items():
+                    if name not in known:
+                        page_words = message.replace("of this list", "of this page")
+                        messages.warning(request, f"Ignored {name}: {page_words}")
+            return view(request, *args, **kwargs)
+
+        return wrapped
+
+    return decorator
 
 
 def page_values(filterset_class, request) -> dict:

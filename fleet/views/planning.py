@@ -16,7 +16,14 @@ from django.utils import timezone
 from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
-from fleet.filters import list_page, parameter_problems, plan_parameters, problems_text, refused_download
+from fleet.filters import (
+    list_page,
+    parameter_problems,
+    plan_parameters,
+    problems_text,
+    refused_download,
+    takes_parameters,
+)
 from fleet.forms import CancelOrderForm, DayOffForm, MoveVisitForm
 from fleet.models import Site, WorkOrder
 from fleet.roles import scope_to_user, visible_site_ids
@@ -53,6 +60,7 @@ VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)
+@takes_parameters("site", "days", "page")
 def plan(request):
     site, horizon, problems = plan_parameters(request.GET, request=request)
     for problem in problems:
@@ -85,6 +93,7 @@ PLAN_CHANGES_SHOWN = 20  # the plan lists this many riskier and as many less ris
 
 
 @permission_required("fleet.view_workorder", raise_exception=True)
+@takes_parameters("page")
 def work_orders(request):
     """Open work orders by site visit; planners create them from the plan and issue visits."""
     if request.method == "POST":
@@ -216,6 +225,7 @@ def visit_sheet(request, site, day):
 
 @permission_required("fleet.view_sitedayoff", raise_exception=True)
 @site_in_any_case
+@takes_parameters()
 def site_days_off_page(request, site):
     """A site's days off (local public holidays, shutdowns): the plan dates no visit on them. The planner adds
     and removes them here."""
@@ -302,6 +312,7 @@ def stand_in_parts(request):
 
 
 @permission_required("fleet.view_assessment", raise_exception=True)
+@takes_parameters()
 def planner_dashboard(request):
     return render(request, "fleet/dashboard.html", dashboard(request.user))
 
