@@ -579,18 +579,30 @@ SWEEP_LINE_PX = 15.0
 SWEEP_MARGIN_PX = {"l": 60, "r": 10, "t": 12, "b": 40}
 
 
+def level_words_lines(words: str) -> list[str]:
+    """A limit's words on one line, or on two (broken at the space nearest the middle) where one line would
+    take over half a phone's plot: across the whole width no place is clear of a curve that crosses it."""
+    if len(words) * SWEEP_CHAR_PX <= SWEEP_PLOT_WIDTH_PX / 2.0 or " " not in words:
+        return [words]
+    spaces = [k for k, character in enumerate(words) if character == " "]
+    cut = min(spaces, key=lambda k: abs(k - len(words) / 2.0))
+    return [words[:cut], words[cut + 1 :]]
+
+
 def _level_words_place(x, ys, level, words, panel_px):
     """Where a limit's level is named clear of the data: (x in the domain, xanchor, yanchor) for the first of
-    left-above, right-above, left-below and right-below whose box holds no point of the curve or the markers
-    (the fewest, where each holds some), and the panel's y range with room for the words beyond the data."""
+    left-above, right-above, left-below and right-below whose box (the words as `level_words_lines` sets them)
+    holds no point of the curve or the markers (the fewest, where each holds some), and the panel's y range
+    with room for the words beyond the data."""
     x, ys = np.asarray(x, float), np.asarray(ys, float)
     kept = np.isfinite(x) & np.isfinite(ys)
     x, ys = x[kept], ys[kept]
+    lines = level_words_lines(words)
     low, high = float(np.min(ys, initial=level)), float(np.max(ys, initial=level))
-    share_h = SWEEP_LINE_PX / panel_px
+    share_h = SWEEP_LINE_PX * len(lines) / panel_px
     span = (high - low or abs(level) or 1.0) / (1.0 - 2.0 * share_h)
     words_h = share_h * span
-    share_w = min(1.0, len(words) * SWEEP_CHAR_PX / SWEEP_PLOT_WIDTH_PX)
+    share_w = min(1.0, max(len(line) for line in lines) * SWEEP_CHAR_PX / SWEEP_PLOT_WIDTH_PX)
     x_low, x_high = float(x.min()), float(x.max())
     reach = share_w * (x_high - x_low)
     candidates = []
@@ -694,7 +706,7 @@ def capacitance_sweep_figure(
                     "x": edge,
                     "yref": axis,
                     "y": levels[key],
-                    "text": level_words,
+                    "text": "<br>".join(level_words_lines(level_words)),
                     "showarrow": False,
                     "xanchor": x_anchor,
                     "yanchor": y_anchor,

@@ -163,7 +163,7 @@ def test_the_sweeps_crossing_names_that_would_meet_go_on_rows_of_their_own():
     )
     assert [a["yshift"] for a in apart["layout"]["annotations"] if a.get("yref") == "paper"] == [0, 0]
     level_names = {a["text"]: a for a in figure["layout"]["annotations"] if a.get("yref") != "paper"}
-    # Main current falls from 1.15 to 0.55 A, crossing its 1.1 A level at 55 %: the name (most of the plot's
-    # width on a phone) goes on the right, above the line, where the curve runs below it.
-    current = level_names["most: full-load current \u00d7 service factor"]
+    # Main current falls from 1.15 to 0.55 A, crossing its 1.1 A level at 55 %: the name (on one line, most of
+    # the plot's width on a phone: on two) goes on the right, above the line, where the curve runs below it.
+    current = level_names["most: full-load current<br>\u00d7 service factor"]
     assert (current["x"], current["xanchor"], current["yanchor"]) == (1, "right", "bottom")
