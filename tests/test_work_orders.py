@@ -514,9 +514,12 @@ def test_a_sites_days_off_keep_the_plan_and_the_moves_off_them(client, planner, 
     assert other_day_off == {"orders": 1}
     sheet = client.get(reverse("visit_sheet", args=["CST", HOLIDAY.isoformat()]))
     assert "is a day off at this site (shutdown)" in sheet.content.decode()
-    assert "is a day off at this site" not in client.get(
-        reverse("visit_sheet", args=["GH1", (HOLIDAY - dt.timedelta(days=1)).isoformat()])
-    ).content.decode()
+    assert (
+        "is a day off at this site"
+        not in client.get(
+            reverse("visit_sheet", args=["GH1", (HOLIDAY - dt.timedelta(days=1)).isoformat()])
+        ).content.decode()
+    )
 
     client.force_login(technician)
     page = client.get(url)
