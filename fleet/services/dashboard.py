@@ -46,6 +46,7 @@ from fleet.services.pages import (
     due_within,
     in_service_assessments,
     motors_by_reading_status,
+    not_superseded,
     overdue_before,
     position_readings,
     quarter_start,
@@ -318,7 +319,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     since_day = timezone.now().astimezone(dt.UTC).date() - dt.timedelta(days=days)
     since = dt.datetime.combine(since_day, dt.time(), tzinfo=dt.UTC)
     # A reading and its correction are one change: a reading a later one supersedes is left out.
-    readings = scope_to_user(Reading.objects.filter(taken_at__gte=since, superseded_by__isnull=True), user).count()
+    readings = scope_to_user(Reading.objects.filter(not_superseded(), taken_at__gte=since), user).count()
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
     reassessed = in_service_counts(user).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
