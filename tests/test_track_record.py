@@ -297,3 +297,26 @@ def test_the_command_heads_each_count_for_what_it_counts(db):
         for line, cutoff in zip(table[1:], results["cutoffs"], strict=False):
             cells = line.split()
             assert cells[:3] == [cutoff["cutoff"], str(cutoff["capacitors"]), str(cutoff[variant]["capacitors"])]
+
+
+def test_the_plan_says_how_far_the_years_levels_held_in_the_newest_back_test(client, planner):
+    """Ours: the plan's risk counts stood without a word on how often a flag had come true; beside them now, the
+    newest finished back-test's pooled 365-day precision and recall (stored numbers read by two JSON keys), and
+    before any back-test, that it is not known. A running back-test does not replace the finished one."""
+    client.force_login(planner)
+    assert "No back-test yet" in client.get(reverse("plan")).content.decode()
+    scores = {"precision_365d": 0.4123, "recall_365d": 0.9051}
+    done = Backtest.objects.create(
+        cutoffs=["2025-01-01"],
+        done_cutoffs=1,
+        state=Backtest.State.DONE,
+        finished_at=timezone.now(),
+        results={"pooled": {"calibrated": {"all": scores}, "default": {"all": {"precision_365d": 0.1}}}},
+    )
+    Backtest.objects.create(cutoffs=["2025-01-01"], done_cutoffs=0)  # running, newer
+    body = client.get(reverse("plan")).content.decode().replace("\xa0", " ")
+    words = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", "", body))
+    assert f"{percent(0.4123).replace(chr(160), ' ')} reached their limit within the year" in words
+    assert f"they caught {percent(0.9051).replace(chr(160), ' ')} of those that did" in words
+    assert f"the back-test of {timezone.localtime(done.finished_at):%Y-%m-%d}" in words
+    assert "replace now, due soon or watch" in words

@@ -75,6 +75,22 @@ def track_record() -> dict:
     return page
 
 
+def year_flags_record() -> dict | None:
+    """How far the year's risk levels held in the newest finished back-test, for the plan page beside its
+    counts: of the capacitors flagged to reach their limit within a year (`FLAGGED_WITHIN[365]`), the share
+    that did (precision), and of those that did, the share flagged (recall); None before any back-test.
+    One query, reading two numbers of the stored results rather than all of them."""
+    path = "results__pooled__calibrated__all__"
+    row = (
+        Backtest.objects.filter(state=Backtest.State.DONE)
+        .values_list("finished_at", f"{path}precision_365d", f"{path}recall_365d")
+        .first()
+    )
+    if row is None or row[1] is None or row[2] is None:
+        return None
+    return {"finished_at": row[0], "precision": row[1], "recall": row[2], "levels": _either(FLAGGED_WITHIN[365])}
+
+
 def _figures(results: dict) -> dict:
     cutoffs = [
         {**row, "day": dt.date.fromisoformat(row["cutoff"])} for row in results.get("cutoffs", []) if "default" in row

@@ -32,6 +32,7 @@ from fleet.services.bulk import storable_ids
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
 from fleet.services.substitutes import part_families
+from fleet.services.track_record import year_flags_record
 from fleet.services.workorders import (
     CANCELLED_SHOWN_DAYS,
     OPEN,
@@ -79,6 +80,7 @@ def plan(request):
         "risks": pages.risk_summary(request.user, site),
         "rules": PlanningSettings(),
         "alert_levels": pages.alert_level_words(),
+        "year_flags": year_flags_record(),
     }
     worse, better, changes = pages.risk_changes(days=7, limit=PLAN_CHANGES_SHOWN, user=request.user, site=site)
     context["changes"] = changes
