@@ -1182,6 +1182,7 @@ class ImportJob(models.Model):
         SITES = "sites", "Sites"
         PARTS = "parts", "Capacitor parts"
         HISTORY = "history", "Past fitted capacitors"
+        DAYS_OFF = "days_off", "Days off at sites"
 
     class Mode(models.TextChoices):
         ALL_OR_NOTHING = "all", "All or nothing"
@@ -1225,6 +1226,7 @@ class ImportJob(models.Model):
             ("import_sites", "Can import sites"),
             ("import_parts", "Can import capacitor parts"),
             ("import_history", "Can import past fitted capacitors"),
+            ("import_days_off", "Can import days off at sites"),
         ]
 
     def __str__(self):

@@ -33,7 +33,7 @@ ROLE_PERMISSIONS = {
     + ["add_workorder", "change_workorder", "change_motor", "add_refitrun"]
     + ["add_sitestock", "change_sitestock", "delete_sitestock"]
     + ["add_sitedayoff", "delete_sitedayoff"]
-    + ["import_readings", "import_register", "import_history"],
+    + ["import_readings", "import_register", "import_history", "import_days_off"],
     RELIABILITY_ENGINEER: VIEW_ALL + ["add_refitrun", "add_backtest", "import_readings", "import_history"],
     ADMINISTRATOR: None,  # every permission of the fleet app, plus users and groups
 }

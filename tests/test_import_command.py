@@ -714,3 +714,62 @@ def test_a_reading_confirmed_off_its_trend_exported_and_imported_again_adds_noth
     with pytest.raises(CommandError):
         call_command("import", "readings", str(write(tmp_path, "unconfirmed.csv", text)), "--dry-run", stdout=report)
     assert "row 2, capacitance_uf: 6 µF is far from this capacitor's trend" in report.getvalue()
+
+
+def test_days_off_import_by_site_and_day_with_each_bad_row_named(
+    tmp_path, client, planner, django_capture_on_commit_callbacks
+):
+    """Ours: a plant with several sites brings in each site's holidays and shutdowns as a file, by the days-off
+    page's rules (a known site, a day from today to the plan's two years, a name); a site's day given twice
+    is refused on the later row, one already stored is skipped, and a second run adds nothing. A planner who
+    works at one site imports days off there only. The plan then dates no visit on them (tests of the plan)."""
+    from fleet.models import SiteDayOff, SiteMembership
+
+    run("sites", write(tmp_path, "sites.csv", SITES))
+    today = dt.date.today()
+    soon, later = today + dt.timedelta(days=20), today + dt.timedelta(days=40)
+    text = (
+        "site_code,day,name\n"
+        f"PK,{soon},harvest shutdown\n"
+        f"CS,{soon},public holiday\n"
+        f"PK,{soon},again\n"
+        f"XX,{later},public holiday\n"
+        f"PK,{today - dt.timedelta(days=1)},yesterday\n"
+        f"PK,{today + dt.timedelta(days=800)},far\n"
+        f"PK,{later.strftime('%d/%m/%Y')},day first\n"
+        f"CS,{later},   \n"
+    )
+    path = write(tmp_path, "days.csv", text)
+    with pytest.raises(CommandError):
+        run("days_off", path)  # all or nothing: nothing in
+    assert not SiteDayOff.objects.exists()
+    report = run("days_off", path, "--good-rows-only")
+    assert "8 rows: 2 good, 0 already imported, 6 with problems." in report
+    for row, field, words in (
+        (4, "day", "the same site and day as row 2"),
+        (5, "site_code", "unknown site code XX: add the site first"),
+        (6, "day", "in the past"),
+        (7, "day", "past the plan's reach"),
+        (8, "day", "not a date"),
+        (9, "name", "required"),
+    ):
+        assert f"row {row}, {field}: {words}" in report, (row, field)
+    assert set(SiteDayOff.objects.values_list("site__code", "day", "name")) == {
+        ("PK", soon, "harvest shutdown"),
+        ("CS", soon, "public holiday"),
+    }
+    with pytest.raises(CommandError, match="Nothing was imported"):
+        run("days_off", write(tmp_path, "again.csv", f"site_code,day,name\nPK,{soon},harvest shutdown\n"))
+
+    SiteMembership.objects.create(user=planner, site=Site.objects.get(code="PK"))
+    client.force_login(planner)
+    assert 'value="days_off"' in client.get(reverse("imports")).content.decode()
+    upload = io.BytesIO(f"site_code,day,name\nCS,{later},public holiday\nPK,{later},shutdown\n".encode())
+    upload.name = "days.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "days_off", "file": upload})
+    job = ImportJob.objects.get(kind="days_off")
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.CHECKED and "which you do not work at" in str(job.errors), job.errors

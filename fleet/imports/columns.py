@@ -361,6 +361,12 @@ HISTORY_COLUMNS = {
     "notes": "Free text",
 }
 HISTORY_REQUIRED = ("asset_tag", "role", "part_code", "fitted_on")
+DAY_OFF_COLUMNS = {
+    "site_code": "Site code, as in the register (required)",
+    "day": "The day off, ISO 8601, e.g. 2027-03-29: today or later, within the plan's two years (required)",
+    "name": "What the day is: a public holiday's name, shutdown, ..., up to 80 characters (required)",
+}
+DAY_OFF_REQUIRED = ("site_code", "day", "name")
 OPEN_END = pd.Timestamp("2200-01-01")  # the end of a capacitor still in service, for overlap tests
 
 

@@ -13,6 +13,7 @@ import pandas as pd
 from django.conf import settings
 from django.utils import timezone
 
+from fleet.engineering.planning import PLAN_HORIZON_DAYS
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
@@ -28,6 +29,7 @@ from fleet.engineering.rules import (
 from fleet.engineering.rules import check_readings as reading_rules
 from fleet.imports.columns import (
     CHUNK_ROWS,
+    DAY_OFF_REQUIRED,
     HISTORY_REQUIRED,
     OPEN_END,
     PART_NUMBERS,
@@ -59,6 +61,7 @@ from fleet.models import (
     Motor,
     Reading,
     Site,
+    SiteDayOff,
 )
 from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.bulk import insert_frame
@@ -619,6 +622,48 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 def insert_sites(good: pd.DataFrame) -> int:
     Site.objects.bulk_create(
         [Site(code=row.code, name=row.name, time_zone=row.time_zone) for row in good.itertuples(index=False)],
+        batch_size=2000,
+    )
+    return len(good)
+
+
+def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
+    """Days off at sites (local holidays, shutdowns): a known site code, a day from today to the plan's reach
+    (`workorders.add_day_off`'s rule, the days-off page's), a name; a site's day given twice in the file is
+    refused on the later row, one already stored is skipped as already imported."""
+    problems = _Problems(frame)
+    for name in DAY_OFF_REQUIRED:
+        problems.add(frame[name].str.strip().eq(""), name, "required")
+    sites = dict(Site.objects.values_list("code", "id"))
+    problems.add(
+        ~frame["site_code"].isin(sites), "site_code", _unknown("site code", frame["site_code"], "add the site first")
+    )
+    day = parse_dates(frame["day"])
+    problems.add(day.isna().to_numpy(), "day", "not a date: give it as year-month-day, e.g. 2027-03-29")
+    today = timezone.localdate()
+    furthest = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
+    problems.add((day < pd.Timestamp(today)).to_numpy(), "day", "in the past: days off guide the plan from today on")
+    problems.add(
+        (day > pd.Timestamp(furthest)).to_numpy(),
+        "day",
+        f"past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest.isoformat()}): import it later",
+    )
+    keys = frame["site_code"] + " " + day.dt.strftime("%Y-%m-%d").fillna("")
+    repeated_in_file(problems, keys.where(day.notna()), "day", "the same site and day")
+    stored = {
+        f"{code} {held.isoformat()}"
+        for code, held in SiteDayOff.objects.filter(day__gte=today).values_list("site__code", "day")
+    }
+    return _result(frame, problems, keys.isin(stored).to_numpy(bool), on_progress)
+
+
+def insert_days_off(good: pd.DataFrame) -> int:
+    sites = dict(Site.objects.values_list("code", "id"))
+    SiteDayOff.objects.bulk_create(
+        [
+            SiteDayOff(site_id=sites[row.site_code], day=dt.date.fromisoformat(row.day[:10]), name=row.name.strip())
+            for row in good.itertuples(index=False)
+        ],
         batch_size=2000,
     )
     return len(good)

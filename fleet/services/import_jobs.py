@@ -22,7 +22,7 @@ from django.utils import timezone
 
 from fleet.exports import csv_bytes
 from fleet.imports import columns, files
-from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site
+from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site, SiteDayOff
 from fleet.services import import_checks
 
 from .readings import enqueue_refit
@@ -93,6 +93,11 @@ def _write_register(good, user):
     ]
 
 
+def _write_days_off(good, user):
+    import_checks.insert_days_off(good)
+    return []
+
+
 def _write_history(good, user):
     return [
         _refits(import_checks.insert_history(good)),
@@ -130,6 +135,14 @@ KINDS = {
         _write_history,
         _max_lengths(FittedCapacitor, {"serial": "serial"}),
         "asset_tag",
+    ),
+    ImportJob.Kind.DAYS_OFF: Kind(
+        columns.DAY_OFF_COLUMNS,
+        columns.DAY_OFF_REQUIRED,
+        import_checks.check_days_off,
+        _write_days_off,
+        _max_lengths(SiteDayOff, {"name": "name"}),
+        "site_code",
     ),
     ImportJob.Kind.READINGS: Kind(
         columns.READING_COLUMNS,

@@ -12,7 +12,8 @@ from fleet.services.import_jobs import KINDS, import_file
 
 class Command(BaseCommand):
     help = (
-        "Import sites, parts, register, history or readings from a CSV or XLSX file with the documented headings. "
+        "Import sites, parts, register, history, readings or days_off from a CSV or XLSX file with the documented "
+        "headings. "
         "Every problem is listed by row and field. Exits non-zero when nothing was imported."
     )
 
