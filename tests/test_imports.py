@@ -336,9 +336,9 @@ def test_a_technician_cannot_import_a_register(client, technician):
     "role, allowed",
     [
         ("technician", {"readings"}),
-        ("planner", {"readings", "register", "history"}),
+        ("planner", {"readings", "register", "history", "days_off"}),
         ("engineer", {"readings", "history"}),
-        ("administrator", {"readings", "register", "sites", "parts", "history"}),
+        ("administrator", {"readings", "register", "sites", "parts", "history", "days_off"}),
     ],
 )
 def test_each_role_reaches_the_import_page_and_may_upload_only_its_kinds(client, request, role, allowed):
