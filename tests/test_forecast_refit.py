@@ -10,7 +10,7 @@ from django.core.management import call_command
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, Backtest, BandCalibration, PartPrior, Reading
+from fleet.models import Assessment, Backtest, BandCalibration, FittedCapacitor, PartPrior, Reading
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import default_cutoffs, run_backtest, start_backtest
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_reading, quarterly_readings
@@ -503,3 +503,26 @@ def test_the_trend_chart_shows_the_rating_and_the_limit_not_the_bands_far_tail()
             "high_uf": [143.0, 138.0]}  # fmt: skip
     low, high = trend_figure(readings, path, 130.0, "tolerance", 143.0)["layout"]["yaxis"]["range"]
     assert 115.0 <= low < 130.0 - 0.5 * 13.0 and 143.0 < high < 150.0
+
+
+@pytest.mark.django_db
+@pytest.mark.parametrize("fraction", [0.5, 0.2, 0.12])
+def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_without_a_trend(fraction):
+    """A replacement's first reading at half its rating (a 4 uF part fitted where 8 uF belongs, or a dud) was
+    set aside as a slip, left no finite fit, and with it no limit: "sound", no replace-by, out of the plan,
+    while its page said "below tolerance". [trade] a capacitor read below its tolerance is replaced (IEC 60252-1
+    tolerance classes; common practice of the trade); the reading needs no trend to be judged. Ours: the limits
+    are judged against the latest reading whether or not a trend could be fitted."""
+    part = make_part(rated_uf=8.0, tolerance_minus_pct=5)
+    for k in range(12):  # the part's fleet, whose priors call a reading far off them a slip
+        others = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
+        quarterly_readings(others, START, [8.0 - 0.02 * k - 0.05 * q for q in range(8)])
+    refit_fitted_capacitors(list(FittedCapacitor.objects.values_list("id", flat=True)))
+    refresh_part_priors()
+    capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2026, 11, 1))
+    make_reading(capacitor, taken_at=timezone.make_aware(dt.datetime(2026, 11, 2, 10)), capacitance_uf=8.0 * fraction)
+    refit_fitted_capacitors([capacitor.id])
+    assessment = Assessment.objects.get(fitted_capacitor=capacitor, is_current=True)
+    assert assessment.risk == "replace now", (assessment.risk, assessment.reason)
+    assert assessment.replace_by is not None
+    assert "below the tolerance limit (7.60" in assessment.reason or "open circuit" in assessment.reason

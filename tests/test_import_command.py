@@ -8,6 +8,7 @@ import pytest
 from django.core.management import call_command, load_command_class
 from django.core.management.base import CommandError
 from django.urls import reverse
+from django.utils import timezone
 
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Reading, Site
 from fleet.services.lifedata import life_table, part_life
@@ -726,7 +727,7 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
     from fleet.models import SiteDayOff, SiteMembership
 
     run("sites", write(tmp_path, "sites.csv", SITES))
-    today = dt.date.today()
+    today = timezone.localdate()
     soon, later = today + dt.timedelta(days=20), today + dt.timedelta(days=40)
     text = (
         "site_code,day,name\n"

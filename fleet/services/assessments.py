@@ -636,7 +636,10 @@ def assess(
     )
     judgement = judge(
         limit_names=ALL_LIMITS,
-        limit_fraction=np.where(limit_used & finite, limit_fraction, np.nan),
+        # A limit is a level, whatever the fit: without a trend the latest reading is still judged against it
+        # (a new capacitor's first reading at half its rating, set aside as a slip, left "sound"); its dates
+        # are never (all_days above), the reason says why no forecast was made.
+        limit_fraction=np.where(limit_used, limit_fraction, np.nan),
         limit_days=limit_days,
         fraction_now=np.where(finite, fit.fraction_now, np.inf),
         rated_uf=rated_uf,
