@@ -109,6 +109,9 @@ class ReadingRules:
     # source; the band's edges are ours).
     low_unit_slip_band: tuple = (0.75, 1.25)
     low_unit_slips: tuple = ((1e6, "farads"), (1e3, "millifarads"))
+    # A tenth of the rating, within the same band, is the decimal point typed one place to the left (14.3 for a
+    # 143 µF part): confirm (ours; a capacitor that has lost 90 % is failed, and confirmed it is kept as read).
+    decimal_slip_factor: float = 10.0
     # A capacitor voltage under the short-circuit fraction of the supply that, read as kilovolts, gives with the
     # current a capacitance within `1 / wrong_capacitor_ratio` to `wrong_capacitor_ratio` times the rating was
     # typed in kV (as the nanofarad slip's band; ours).
@@ -555,7 +558,8 @@ def capacitance_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES)
 
 def capacitance_low_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES):
     """To confirm: a value that is the rating typed in farads or millifarads (times 1e6 or 1e3 it lands within
-    `low_unit_slip_band` of the rating): "0.00003 looks like farads: 30 µF?". A value near 0 that lands
+    `low_unit_slip_band` of the rating): "0.00003 looks like farads: 30 µF?", or with its decimal point one
+    place to the left (times 10): "14.3 µF is about a tenth of the rated 143 µF". A value near 0 that lands
     nowhere near the rating (an open capacitor, 0.02 µF on a 30 µF part) is not named."""
     c = np.atleast_1d(np.asarray(capacitance_uf, float))
     rated = np.atleast_1d(np.asarray(rated_uf, float))
@@ -578,6 +582,21 @@ def capacitance_low_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RU
                 ),
                 out,
             )
+        ratio = c * rules.decimal_slip_factor / rated
+        slip = (out == "") & (c > 0) & (ratio >= low) & (ratio <= high)
+        out = np.where(
+            slip,
+            _messages(
+                slip,
+                "{c} µF is about a tenth of the rated {r} µF: the decimal point one place off ({uf} µF)? Correct "
+                "it, or confirm the value if the meter shows {c} µF (the capacitor has then failed)",
+                plain=("c", "uf", "r"),
+                c=c,
+                uf=c * rules.decimal_slip_factor,
+                r=rated,
+            ),
+            out,
+        )
     return out
 
 

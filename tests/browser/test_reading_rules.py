@@ -145,6 +145,12 @@ def test_a_value_in_farads_is_hinted_as_the_server_names_it_not_as_an_open_capac
     phone.fill("#id_capacitance_uf", "0.02")
     hint = phone.locator("#computed").inner_text()
     assert "farads" not in hint and "below tolerance" in hint
+    rated = motor_with_history.part.rated_uf
+    tenth = f"{rated / 10:g}"  # the decimal point one place to the left (ours): named as the server names it
+    phone.fill("#id_capacitance_uf", tenth)
+    hint = phone.locator("#computed").inner_text()
+    server = capacitance_low_unit_slip([float(tenth)], rated)[0]
+    assert "about a tenth of the rated" in server and server in hint, (server, hint)
 
 
 def test_a_current_or_voltage_typed_in_another_unit_is_named_on_its_own_field(phone, motor_with_history):  # noqa: F811

@@ -281,6 +281,23 @@ def test_a_capacitance_in_farads_asks_to_confirm_first_readings_and_back_dated_o
     assert not kept.needs_confirmation.any() and kept.values["capacitance_uf"][0] == 3.9e-6
 
 
+def test_a_tenth_of_the_rating_asks_whether_the_decimal_point_slipped():
+    """14.3 typed for a 143 uF start capacitor's first reading was saved without a question: the capacitor went
+    to "replace now, open circuit suspected". Ours (common practice of the trade, no single source, that a
+    capacitor read at a tenth of its rating is failed or was misread): a value that is the rating with its
+    decimal point one place to the left, within the farads rule's band, asks to confirm, trend or none; 5 % of
+    the rating (past the band) and an open capacitor's 0.02 are judged as read; confirmed, it is kept."""
+    first = check({"capacitance_uf": ["0,4", "0.39", "0.2", "0.02", "3.9"]})
+    assert not first.bad.any()
+    words = first.confirm["capacitance_uf"]
+    assert words[0].startswith("0.4 µF is about a tenth of the rated 4 µF: the decimal point one place off (4 µF)?")
+    assert words[1].startswith("0.39 µF is about a tenth of the rated 4 µF") and "(3.9 µF)?" in words[1]
+    assert list(words[2:]) == ["", "", ""]
+    assert check({"capacitance_uf": ["0.4"]}, predicted_uf=3.9).confirm["capacitance_uf"][0].startswith("0.4 µF is")
+    kept = check({"capacitance_uf": ["0.4"]}, confirmed=True)
+    assert not kept.needs_confirmation.any() and kept.values["capacitance_uf"][0] == 0.4
+
+
 def test_a_current_or_voltage_slip_in_circuit_is_named_on_its_own_field():
     """[trade] 4 uF at 230 V, 50 Hz draws 0.29 A: 290 typed is mA; 0.23 typed for the voltage is kV."""
     amps = check({"capacitor_current_a": ["290"], "capacitor_voltage_v": ["230"]}, method="in_circuit")
