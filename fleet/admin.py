@@ -118,21 +118,21 @@ class SiteStockAdmin(admin.ModelAdmin):
 
 
 class ReadingAdminForm(forms.ModelForm):
-    """A reading added in the admin passes the same rulebook as the form, the API and the import."""
+    """A reading added in the admin passes the same rulebook as the form, the API and the import. Who recorded
+    it and where are not typed: the administrator adding it, from the register (a reading filed under a
+    technician's name as a reading-form entry would mislead the audit and the engineer)."""
 
     class Meta:
         model = Reading
         fields = [
             "fitted_capacitor",
             "taken_at",
-            "taken_by",
             "method",
             *Reading.MEASURED_FIELDS,
             "condition",
             "notes",
             "outlier_confirmed",
             "supersedes",
-            "source",
         ]
 
     def clean(self):
@@ -186,6 +186,10 @@ class ReadingAdmin(admin.ModelAdmin):
     def has_delete_permission(self, request, obj=None):
         return False
 
+    def save_model(self, request, obj, form, change):
+        obj.taken_by, obj.source = request.user, Reading.Source.REGISTER
+        super().save_model(request, obj, form, change)
+
     def delete_view(self, request, object_id, extra_context=None):
         """Refused in words that say why: no role may delete a reading (asking an administrator would not help)."""
         raise PermissionDenied(READINGS_KEPT_WORDS)
@@ -236,8 +240,19 @@ class WorkOrderAdmin(admin.ModelAdmin):
     raw_id_fields = ["motor", "fitted_capacitor"]
 
 
-admin.site.register(PartPrior)
-admin.site.register(RefitRun)
+class DerivedRecordAdmin(admin.ModelAdmin):
+    """Records the application works out (a part's pooled priors, a refit's progress): to be looked at, never
+    added or typed over."""
+
+    def has_add_permission(self, request):
+        return False
+
+    def has_change_permission(self, request, obj=None):
+        return obj is None and super().has_change_permission(request, obj)
+
+
+admin.site.register(PartPrior, DerivedRecordAdmin)
+admin.site.register(RefitRun, DerivedRecordAdmin)
 
 
 def _perm_name(permission) -> str:

@@ -651,6 +651,7 @@ class Reading(models.Model):
         API = "api", "API"
         IMPORT = "import", "File import"
         DEMO = "demo", "Demo data"
+        REGISTER = "register", "Register (admin)"
 
     # No index of its own: the index on (fitted_capacitor, taken_at) serves every lookup by capacitor,
     # and one index fewer makes every import's write cheaper.

@@ -424,13 +424,19 @@ def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administr
         "capacitance_uf": "3.95",
         "capacitor_voltage_v": "1000000",
         "condition": "sound",
-        "source": "form",
+        "source": "form",  # not a field of the admin's: ignored
+        "taken_by": client.session.get("_auth_user_id"),
     }
     response = client.post(reverse("admin:fleet_reading_add"), data)
     assert response.status_code == 200 and "above 5000 V" in response.content.decode()
     assert not Reading.objects.exists()
     response = client.post(reverse("admin:fleet_reading_add"), {**data, "capacitor_voltage_v": "400"})
     assert response.status_code == 302 and Reading.objects.count() == 1
+    # Who and where are the register's own: the administrator, from the register (a walk filed one under a
+    # technician's name as a reading-form entry). Derived records are not added by hand.
+    assert list(Reading.objects.values_list("taken_by", "source")) == [(administrator.id, "register")]
+    assert client.get(reverse("admin:fleet_partprior_add")).status_code == 403
+    assert client.get(reverse("admin:fleet_refitrun_add")).status_code == 403
 
 
 def test_a_nul_in_imported_notes_is_a_row_error_not_a_stuck_import(fan_fitted_capacitor):
