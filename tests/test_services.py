@@ -519,3 +519,36 @@ def test_a_reading_taken_for_a_read_again_order_never_brings_another_read_again(
         plan_work_orders(horizon_days=90, user=planner, today=when.date())
         open_orders = WorkOrder.objects.filter(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
         assert [order.kind for order in open_orders] == [WorkOrder.Kind.REPLACE_RUN]
+
+
+def test_a_capacitor_read_again_and_still_due_stays_on_its_visit_as_a_replacement(planner):
+    """A walk read a capacitor for its "read again" order at 133.5 of 143 uF, above its limit: the order was done,
+    the plan still said "due soon, replace by" within that visit, but the visit sheet the technician stood at no
+    longer listed it until the planner planned again. [trade] a suspect capacitor is read once more, then
+    replaced or kept; ours: the refit after the reading puts a replacement order in the same visit, with the
+    plan's reason, once; a cancel of it stands through later refits."""
+    from fleet.services.workorders import cancel_order, plan_work_orders
+
+    now = timezone.now()
+    fitted_capacitor = make_fitted_capacitor(
+        part=make_part(rated_uf=30.0, tolerance_minus_pct=5), fitted_on=(now - dt.timedelta(days=330)).date()
+    )
+    for i, value in enumerate([29.9, 29.45, 29.1, 28.75]):
+        make_reading(fitted_capacitor, taken_at=now - dt.timedelta(days=40 + 91 * (3 - i)), capacitance_uf=value)
+    refit_fitted_capacitors([fitted_capacitor.id], now=now)
+    plan_work_orders(horizon_days=90, user=planner)
+    read_again = WorkOrder.objects.get(fitted_capacitor=fitted_capacitor)
+    assert read_again.kind == WorkOrder.Kind.READ_AGAIN
+    record_reading(fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": "28.6"}, user=planner)
+    refit_fitted_capacitors([fitted_capacitor.id], now=timezone.now(), force=True)
+    after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    follow = WorkOrder.objects.filter(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
+    assert after.replace_by <= read_again.due_on + dt.timedelta(days=read_again.window_days), after.reason
+    (order,) = follow
+    assert (order.kind, order.due_on) == (WorkOrder.Kind.REPLACE_RUN, read_again.due_on)
+    assert order.reason.startswith(f"{after.risk}: ") and f"(read for work order {read_again.id})" in order.reason
+    refit_fitted_capacitors([fitted_capacitor.id], now=timezone.now(), force=True)
+    assert follow.all().count() == 1  # once
+    cancel_order(order_id=order.id, reason="kept: reads fine on the bench", user=planner)
+    refit_fitted_capacitors([fitted_capacitor.id], now=timezone.now(), force=True)
+    assert not follow.all().exists()  # the cancel stands

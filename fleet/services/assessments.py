@@ -832,6 +832,10 @@ def _store_rows(rows: pd.DataFrame, now: dt.datetime, *, as_of: bool) -> int:
             fitted_capacitor_id__any_of=rows["fitted_capacitor_id"].to_numpy(np.int64), is_current=True
         ).update(is_current=False)
         insert_frame(Assessment, _with_capacitor_facts(rows, facts))
+        if not as_of:
+            from .workorders import replace_after_reading_again  # workorders reads assessments: imported here
+
+            replace_after_reading_again(rows, now)
     return len(rows)
 
 

@@ -8,6 +8,7 @@ from functools import reduce
 from operator import or_
 
 import numpy as np
+import pandas as pd
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.db import transaction
@@ -642,3 +643,67 @@ def remove_day_off(*, site_id: int, day_off_id: int) -> SiteDayOff | None:
     if day_off is not None:
         day_off.delete()
     return day_off
+
+
+def replace_after_reading_again(assessments, now: dt.datetime) -> int:
+    """A capacitor read for its "read again" order whose new assessment still asks for a replacement within
+    that order's visit (above its limit, but its trend crosses it now; or read below it) gets a planned
+    replacement order in the same visit, with the plan's reason: the reading closed the order, and the visit
+    sheet the technician stands at would otherwise lose the capacitor until the planner plans again.
+    `assessments`: the refit's new rows (fitted_capacitor_id, risk, replace_by, read_again, reason). Only
+    read-again orders closed within the visit's window before `now`, in a visit not past its window, with no
+    order given the capacitor since (a planner's cancel of the follow-up stands), for a capacitor in service.
+    One query where no new assessment asks for a replacement soon; three where some do. Returns the orders
+    created."""
+    today = timezone.localdate(now)
+    replace_by = pd.to_datetime(assessments["replace_by"]).to_numpy("datetime64[D]")
+    furthest = np.datetime64(today + dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS), "D")
+    soon = ~assessments["read_again"].to_numpy(bool) & ~np.isnat(replace_by) & (replace_by <= furthest)
+    if not soon.any():
+        return 0
+    plan = zip(assessments["risk"][soon], replace_by[soon].astype(object), assessments["reason"][soon], strict=True)
+    asks = dict(zip(assessments["fitted_capacitor_id"][soon], plan, strict=True))
+    read_for = (
+        WorkOrder.objects.filter(
+            fitted_capacitor_id__any_of=np.asarray(list(asks), np.int64),
+            kind=WorkOrder.Kind.READ_AGAIN,
+            state=WorkOrder.State.DONE,
+            closed_at__gte=now - dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS),
+            due_on__gte=today - dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS),
+            fitted_capacitor__removed_on__isnull=True,
+        )
+        .select_related("fitted_capacitor")
+        .order_by("fitted_capacitor_id", "-closed_at")
+    )
+    latest = {}
+    for order in read_for:
+        latest.setdefault(order.fitted_capacitor_id, order)
+    wanted = {
+        capacitor_id: order
+        for capacitor_id, order in latest.items()
+        if asks[capacitor_id][1] <= order.due_on + dt.timedelta(days=order.window_days)
+        and order.due_on + dt.timedelta(days=order.window_days) >= today
+    }
+    if not wanted:
+        return 0
+    given_since = set(
+        WorkOrder.objects.filter(fitted_capacitor_id__any_of=np.asarray(list(wanted), np.int64))
+        .filter(reduce(or_, (Q(fitted_capacitor_id=c, created_at__gt=o.closed_at) for c, o in wanted.items())))
+        .values_list("fitted_capacitor_id", flat=True)
+    )
+    limit = WorkOrder._meta.get_field("reason").max_length
+    new_orders = [
+        WorkOrder(
+            motor_id=order.motor_id,
+            site_id=order.site_id,
+            fitted_capacitor_id=capacitor_id,
+            kind=KIND_FOR_ROLE[order.fitted_capacitor.role],
+            due_on=order.due_on,
+            window_days=order.window_days,
+            reason=f"{asks[capacitor_id][0]}: {asks[capacitor_id][2]} (read for work order {order.id})"[:limit],
+        )
+        for capacitor_id, order in wanted.items()
+        if capacitor_id not in given_since
+    ]
+    audited_bulk_create(new_orders)
+    return len(new_orders)
