@@ -487,6 +487,35 @@ def test_an_open_order_the_plan_no_longer_asks_for_says_what_the_plan_says_now(p
     assert open_visits_page(1).object_list[0]["orders"][0].plan_now == "plan now: sound, no replacement planned"
 
 
+def test_an_order_moved_earlier_is_judged_from_the_day_the_plan_gave_it(planner):
+    """A walk found "plan now: due soon, replace by 2026-12-30" on orders a planner had moved from the 12-24 visit
+    to 12-10 (a merge): the plan's own visit for them, 12-24, holds that date, and replacing before it is no
+    reason to cancel. Ours: an order moved earlier is judged from its `moved_from` day; one never moved, on
+    12-10 with a 14-day window, still says what the plan says now."""
+    from fleet.services.workorders import with_current_plan, with_plan_now
+
+    today = timezone.localdate()
+    site = make_site(code="MERGED")
+    moved, stayed = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2))
+    for fitted_capacitor, moved_from in ((moved, today + dt.timedelta(days=21)), (stayed, None)):
+        WorkOrder.objects.create(
+            motor=fitted_capacitor.motor,
+            fitted_capacitor=fitted_capacitor,
+            kind="replace_run",
+            due_on=today + dt.timedelta(days=7),
+            moved_from=moved_from,
+            window_days=14,
+            state="planned",
+        )
+        stored_assessment(fitted_capacitor, "due soon", today + dt.timedelta(days=27))
+    Assessment.objects.filter(is_current=True).update(read_again=False)
+    orders = with_plan_now(with_current_plan(WorkOrder.objects.order_by("motor__route_order")))
+    assert [o.plan_now for o in orders] == [
+        "",
+        f"plan now: due soon, replace by {(today + dt.timedelta(days=27)).isoformat()}",
+    ]
+
+
 @pytest.mark.parametrize("read_uf", ["28.55", "28.60"])
 def test_a_reading_taken_for_a_read_again_order_never_brings_another_read_again(planner, read_uf):
     """A run capacitor whose trend's early crossing had passed got "Read again; replace if past its limit";
@@ -539,7 +568,8 @@ def test_a_capacitor_read_again_and_still_due_stays_on_its_visit_as_a_replacemen
     plan_work_orders(horizon_days=90, user=planner)
     read_again = WorkOrder.objects.get(fitted_capacitor=fitted_capacitor)
     assert read_again.kind == WorkOrder.Kind.READ_AGAIN
-    record_reading(fitted_capacitor=fitted_capacitor, values={"method": "meter", "capacitance_uf": "28.6"}, user=planner)
+    reading = {"method": "meter", "capacitance_uf": "28.6"}
+    record_reading(fitted_capacitor=fitted_capacitor, values=reading, user=planner)
     refit_fitted_capacitors([fitted_capacitor.id], now=timezone.now(), force=True)
     after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     follow = WorkOrder.objects.filter(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])

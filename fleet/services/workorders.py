@@ -417,7 +417,9 @@ def with_current_plan(orders):
 def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
     """The orders (read by `with_current_plan`) as a list, each with `plan_now`: in words, what the
     capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
-    where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule."""
+    where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule.
+    An order the planner moved earlier is judged from the day the plan gave it (`moved_from`): the plan
+    dates it there, and replacing before its date is no reason to cancel it."""
     orders = list(orders)
     if not orders:
         return orders
@@ -428,7 +430,7 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
 
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o in orders],
-        order_due_days=[days(o.due_on) for o in orders],
+        order_due_days=[days(max(o.due_on, o.moved_from or o.due_on)) for o in orders],
         window_days=[o.window_days for o in orders],
         plan_risk=[o.plan_risk or "" for o in orders],
         plan_read_again=[bool(o.plan_read_again) for o in orders],
