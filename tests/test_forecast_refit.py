@@ -3,6 +3,7 @@
 import datetime as dt
 import io
 import math
+import re
 
 import numpy as np
 import pytest
@@ -507,7 +508,7 @@ def test_the_trend_chart_shows_the_rating_and_the_limit_not_the_bands_far_tail()
 
 @pytest.mark.django_db
 @pytest.mark.parametrize("fraction", [0.5, 0.2, 0.12])
-def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_without_a_trend(fraction):
+def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_without_a_trend(fraction, client, planner):
     """A replacement's first reading at half its rating (a 4 uF part fitted where 8 uF belongs, or a dud) was
     set aside as a slip, left no finite fit, and with it no limit: "sound", no replace-by, out of the plan,
     while its page said "below tolerance". [trade] a capacitor read below its tolerance is replaced (IEC 60252-1
@@ -526,3 +527,7 @@ def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_witho
     assert assessment.risk == "replace now", (assessment.risk, assessment.reason)
     assert assessment.replace_by is not None
     assert "below the tolerance limit (7.60" in assessment.reason or "open circuit" in assessment.reason
+    assert assessment.set_aside  # no forecast: its crossing dates read "no trend", not "beyond" (years away)
+    client.force_login(planner)
+    row = re.search(rf"{capacitor.motor.asset_tag}.*?</tr>", client.get(reverse("plan")).content.decode(), re.S)
+    assert row and "no trend" in row.group(0) and "beyond" not in row.group(0)

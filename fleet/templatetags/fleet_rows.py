@@ -36,6 +36,18 @@ def _iso(day, none: str) -> str:
     return none if day is None else day.isoformat()
 
 
+NO_TREND = "no trend"
+
+
+def crossing_day(assessment, day) -> str:
+    """A crossing date as the pages write it: the day, "beyond" where the trend stays above the limit for the
+    planning horizon, "no trend" where no forecast could be made (`set_aside`: an open capacitor's "replace
+    now" showed "- / beyond", as if its limit were years away)."""
+    if day is not None:
+        return day.isoformat()
+    return NO_TREND if assessment.set_aside else "beyond"
+
+
 @register.simple_tag
 def plan_rows(assessments):
     """The plan table's body rows for `assessments` (with their capacitors, motors, sites and parts)."""
@@ -59,8 +71,8 @@ def plan_rows(assessments):
                 capacitance=floatformat(a.capacitance_now_uf, 2),
                 limit=a.limit_source,
                 reason=nowrap_dates(a.reason or "-"),
-                p10=_iso(a.p10_on, "-"),
-                p50=_iso(a.p50_on, "beyond"),
+                p10=crossing_day(a, a.p10_on),
+                p50=crossing_day(a, a.p50_on),
                 site=motor.site.code,
             )
         )
