@@ -102,6 +102,32 @@ def permission_words(user, permissions) -> str:
     return f"{'; '.join(words)}; your roles: {held}."
 
 
+def refused(user, permission: str):
+    """The 403 for a user without `permission`, in words: the roles that hold it and the user's own (the API's
+    words too, `permission_words`), for the page to show ("Not allowed for your role" said nothing of whom to
+    ask for what)."""
+    from django.core.exceptions import PermissionDenied
+
+    return PermissionDenied(permission_words(user, [permission]))
+
+
+def needs_permission(permission: str):
+    """A page view's decorator: a signed-in user without `permission` is refused, naming the roles that hold it
+    (signing in is the middleware's: LoginRequiredMiddleware)."""
+    from functools import wraps
+
+    def decorator(view):
+        @wraps(view)
+        def guarded(request, *args, **kwargs):
+            if not request.user.has_perm(permission):
+                raise refused(request.user, permission)
+            return view(request, *args, **kwargs)
+
+        return guarded
+
+    return decorator
+
+
 def may_import(user, kind: str) -> bool:
     """Whether the user may bring in a file of this kind (sites, parts, register, history, readings)."""
     return user.has_perm(f"fleet.import_{kind}")

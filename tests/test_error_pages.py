@@ -15,7 +15,9 @@ def test_a_refused_page_says_why_and_leads_back(client):
     response = client.get(reverse("replace", args=[fitted_capacitor.id]))
     assert response.status_code == 403
     body = response.content.decode()
-    assert "Not allowed for your role" in body and reverse("home") in body
+    # The page names who may, as the API does ("Not allowed for your role" said nothing of whom to ask for what).
+    assert "needs the technician role (or administrator); your roles: planner." in body, body
+    assert "ask an administrator to add the role" in body and reverse("home") in body
 
 
 @pytest.mark.django_db

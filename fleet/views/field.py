@@ -8,8 +8,7 @@ import uuid
 
 import segno
 from django.contrib import messages
-from django.contrib.auth.decorators import permission_required
-from django.core.exceptions import PermissionDenied, ValidationError
+from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.shortcuts import redirect, render
 from django.template.defaultfilters import pluralize
@@ -22,6 +21,7 @@ from fleet.engineering.rules import RULES
 from fleet.filters import LabelsPage, RoutePage, list_page, named_if_repeated, page_values, query_value
 from fleet.forms import ReadingForm, ReplacementForm
 from fleet.models import CapacitorPart, Motor
+from fleet.roles import needs_permission, refused
 from fleet.services import pages
 from fleet.services.readings import (
     NeedsConfirmation,
@@ -36,7 +36,7 @@ from fleet.services.substitutes import design_part, substitutes_for
 from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
-@permission_required("fleet.add_reading", raise_exception=True)
+@needs_permission("fleet.add_reading")
 def reading_new(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     needs_confirmation = False
@@ -138,7 +138,7 @@ def _stock_message(request, successor) -> None:
         )
 
 
-@permission_required("fleet.add_fittedcapacitor", raise_exception=True)
+@needs_permission("fleet.add_fittedcapacitor")
 def replace(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     if fitted_capacitor.removed_on and request.method != "POST":  # a POST is refused by the service, with the form
@@ -196,13 +196,13 @@ ROUTE_PAGE_SIZE = 100  # motors a route page lists
 LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
 
 
-@permission_required("fleet.view_motor", raise_exception=True)
+@needs_permission("fleet.view_motor")
 @site_in_any_case
 def site_route(request, site):
     order_errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
-            raise PermissionDenied
+            raise refused(request.user, "fleet.change_motor")
         positions = _values_by_id(request.POST, "order-")
         try:
             set_route_order(site=site, positions=positions)
@@ -246,7 +246,7 @@ def _qr_svg(request, motor: Motor) -> str:
     return buffer.getvalue().decode()
 
 
-@permission_required("fleet.view_motor", raise_exception=True)
+@needs_permission("fleet.view_motor")
 @site_in_any_case
 def labels(request, site):
     tag = page_values(LabelsPage, request).get("tag")
@@ -255,14 +255,14 @@ def labels(request, site):
     return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page, "tag": tag})
 
 
-@permission_required("fleet.view_sitestock", raise_exception=True)
+@needs_permission("fleet.view_sitestock")
 @site_in_any_case
 def site_stock(request, site):
     """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
     errors, typed = {}, {}
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_sitestock"):
-            raise PermissionDenied
+            raise refused(request.user, "fleet.change_sitestock")
         # qty-<part id>: the quantity typed; was-<part id>: the quantity the page showed
         quantities, shown = _values_by_id(request.POST, "qty-"), _values_by_id(request.POST, "was-")
         try:

@@ -5,14 +5,13 @@ from __future__ import annotations
 from functools import wraps
 
 from django.contrib import messages
-from django.core.exceptions import PermissionDenied
 from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 
 from fleet.forms import ColumnMappingForm, ImportUploadForm
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
-from fleet.roles import importable_kinds, may_import, scope_to_user
+from fleet.roles import importable_kinds, may_import, refused, scope_to_user
 from fleet.services.import_jobs import (
     KINDS,
     WORKING,
@@ -31,7 +30,7 @@ def _may_import_something(view):
     @wraps(view)
     def guarded(request, *args, **kwargs):
         if not importable_kinds(request.user):
-            raise PermissionDenied
+            raise refused(request.user, "fleet.import_readings")
         return view(request, *args, **kwargs)
 
     return guarded

@@ -5,8 +5,7 @@ from __future__ import annotations
 import datetime as dt
 
 from django.contrib import messages
-from django.contrib.auth.decorators import permission_required
-from django.core.exceptions import PermissionDenied, ValidationError
+from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
@@ -26,7 +25,7 @@ from fleet.filters import (
 )
 from fleet.forms import CancelOrderForm, DayOffForm, MoveVisitForm
 from fleet.models import Site, WorkOrder
-from fleet.roles import scope_to_user, visible_site_ids
+from fleet.roles import needs_permission, refused, scope_to_user, visible_site_ids
 from fleet.services import pages
 from fleet.services.bulk import storable_ids
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
@@ -60,7 +59,7 @@ from fleet.views.register import site_in_any_case
 VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 
 
-@permission_required("fleet.view_assessment", raise_exception=True)
+@needs_permission("fleet.view_assessment")
 @takes_parameters("site", "days", "page")
 def plan(request):
     site, horizon, problems = plan_parameters(request.GET, request=request)
@@ -94,13 +93,13 @@ def plan(request):
 PLAN_CHANGES_SHOWN = 20  # the plan lists this many riskier and as many less risky capacitors of the week
 
 
-@permission_required("fleet.view_workorder", raise_exception=True)
+@needs_permission("fleet.view_workorder")
 @takes_parameters("page")
 def work_orders(request):
     """Open work orders by site visit; planners create them from the plan and issue visits."""
     if request.method == "POST":
         if not request.user.has_perm("fleet.add_workorder"):  # planning and issuing are the planner's
-            raise PermissionDenied
+            raise refused(request.user, "fleet.add_workorder")
         action = request.POST.get("action")
         if action == "plan":
             _, horizon, problems = plan_parameters(request.POST.dict() | {"site": ""}, request=request)
@@ -156,7 +155,7 @@ def plan_message(counts: dict) -> str:
     return " ".join(words)
 
 
-@permission_required("fleet.view_workorder", raise_exception=True)
+@needs_permission("fleet.view_workorder")
 @site_in_any_case
 def visit_sheet(request, site, day):
     """A printable sheet for one site visit: the orders (a page at a time), the spares, the cautions; the
@@ -168,7 +167,7 @@ def visit_sheet(request, site, day):
     move_form = MoveVisitForm(request.POST if request.method == "POST" else None)
     if request.method == "POST":
         if not request.user.has_perm("fleet.add_workorder"):  # planning is the planner's
-            raise PermissionDenied
+            raise refused(request.user, "fleet.add_workorder")
         if move_form.is_valid():
             to_day = move_form.cleaned_data["to_day"]
             try:
@@ -225,7 +224,7 @@ def visit_sheet(request, site, day):
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
 
 
-@permission_required("fleet.view_sitedayoff", raise_exception=True)
+@needs_permission("fleet.view_sitedayoff")
 @site_in_any_case
 @takes_parameters()
 def site_days_off_page(request, site):
@@ -235,7 +234,7 @@ def site_days_off_page(request, site):
     if request.method == "POST":
         if "remove" in request.POST:
             if not request.user.has_perm("fleet.delete_sitedayoff"):
-                raise PermissionDenied
+                raise refused(request.user, "fleet.delete_sitedayoff")
             try:
                 day_off_id = int(request.POST["remove"])
             except ValueError:
@@ -251,7 +250,7 @@ def site_days_off_page(request, site):
                 )
             return redirect("site_days_off", site_code=site.code)
         if not request.user.has_perm("fleet.add_sitedayoff"):
-            raise PermissionDenied
+            raise refused(request.user, "fleet.add_sitedayoff")
         if form.is_valid():
             day = form.cleaned_data["day"]
             try:
@@ -275,7 +274,7 @@ def site_days_off_page(request, site):
     return render(request, "fleet/days_off.html", context, status=400 if form.errors else 200)
 
 
-@permission_required("fleet.add_workorder", raise_exception=True)
+@needs_permission("fleet.add_workorder")
 def work_order_cancel(request, order_id):
     """The planner cancels one open work order, saying why (kept with the order; it is never deleted)."""
     order = get_object_or_404(
@@ -305,7 +304,7 @@ def work_order_cancel(request, order_id):
     return render(request, "fleet/work_order_cancel.html", context, status=400 if form.errors else 200)
 
 
-@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+@needs_permission("fleet.view_fittedcapacitor")
 def stand_in_parts(request):
     """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
     margin_pct = round((SubstituteRules().voltage_margin - 1) * 100)
@@ -313,13 +312,13 @@ def stand_in_parts(request):
     return render(request, "fleet/stand_in_parts.html", context)
 
 
-@permission_required("fleet.view_assessment", raise_exception=True)
+@needs_permission("fleet.view_assessment")
 @takes_parameters()
 def planner_dashboard(request):
     return render(request, "fleet/dashboard.html", dashboard(request.user))
 
 
-@permission_required("fleet.view_assessment", raise_exception=True)
+@needs_permission("fleet.view_assessment")
 def dashboard_csv(request, name):
     if name not in DASHBOARD_TABLES:
         raise Http404("No such table")

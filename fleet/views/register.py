@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import functools
 
-from django.contrib.auth.decorators import permission_required
 from django.http import Http404
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
@@ -14,7 +13,7 @@ from fleet.engineering.capacitor import stored_energy_j
 from fleet.filters import named_if_repeated, query_value
 from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
-from fleet.roles import scope_to_user
+from fleet.roles import needs_permission, scope_to_user
 from fleet.services import pages
 from fleet.services.operating_pictures import motor_pictures
 from fleet.services.selectors import successor_of
@@ -30,7 +29,7 @@ def home(request):
     return render(request, "fleet/home.html", context)
 
 
-@permission_required("fleet.view_motor", raise_exception=True)
+@needs_permission("fleet.view_motor")
 def find_motor(request):
     # An empty or repeated tag is not a search: the empty box, as on a first visit.
     repeated = named_if_repeated(request, ["tag"])
@@ -50,7 +49,7 @@ def find_motor(request):
     return render(request, "fleet/find.html", {"find_form": form, "sites": sites, "matches": matches, "more": more})
 
 
-@permission_required("fleet.view_motor", raise_exception=True)
+@needs_permission("fleet.view_motor")
 def motor_detail(request, asset_tag):
     try:
         motor = pages.motor_with_capacitors(asset_tag)
@@ -111,7 +110,7 @@ def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:
     return get_object_or_404(capacitors, pk=fitted_capacitor_id)
 
 
-@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+@needs_permission("fleet.view_fittedcapacitor")
 def fitted_capacitor_detail(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()

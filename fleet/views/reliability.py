@@ -4,8 +4,6 @@ from __future__ import annotations
 
 from django.conf import settings
 from django.contrib import messages
-from django.contrib.auth.decorators import permission_required
-from django.core.exceptions import PermissionDenied
 from django.http import FileResponse, Http404, JsonResponse, StreamingHttpResponse
 from django.shortcuts import redirect, render
 from django.urls import reverse
@@ -16,6 +14,7 @@ from fleet.charts import cost_curve_figure, weibull_plot_figure
 from fleet.exports import parquet_file, stream_csv, xlsx_file
 from fleet.filters import BadFilter, LifeDataPage, page_parameters, refused_download
 from fleet.models import Backtest, CapacitorPart, RefitRun
+from fleet.roles import needs_permission, refused
 from fleet.services.exports import TABLES
 from fleet.services.lifedata import part_life
 from fleet.services.refits import queue_fleet_refit, recent_runs, stale_count
@@ -36,7 +35,7 @@ def _export_table(request, kind):
         raise Http404("No such export")
     builder, permission = TABLES[kind]
     if not request.user.has_perm(permission):
-        raise PermissionDenied
+        raise refused(request.user, permission)
     return builder(request.GET, request.user, request=request)
 
 
@@ -80,7 +79,7 @@ QUEUE_DOWN = (
 )
 
 
-@permission_required("fleet.view_refitrun", raise_exception=True)
+@needs_permission("fleet.view_refitrun")
 def refits(request):
     context = {
         "runs": recent_runs(10),
@@ -91,7 +90,7 @@ def refits(request):
 
 
 @require_POST
-@permission_required("fleet.add_refitrun", raise_exception=True)
+@needs_permission("fleet.add_refitrun")
 def refit_start(request):
     try:
         run = queue_fleet_refit()
@@ -111,7 +110,7 @@ def refit_start(request):
 LIFE_DATA_COSTS = {"planned_cost": 60.0, "failure_cost": 400.0}  # the page's defaults, the engineer's to change
 
 
-@permission_required("fleet.view_fittedcapacitor", raise_exception=True)
+@needs_permission("fleet.view_fittedcapacitor")
 def life_data(request):
     """Weibull analysis of one part's capacitors; costs are the engineer's to set."""
     parts = CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")  # START-98 before START-143
@@ -149,13 +148,13 @@ def life_data(request):
     return render(request, "fleet/life_data.html", context)
 
 
-@permission_required("fleet.view_assessment", raise_exception=True)
+@needs_permission("fleet.view_assessment")
 def track_record(request):
     return render(request, "fleet/track_record.html", track_record_figures())
 
 
 @require_POST
-@permission_required("fleet.add_backtest", raise_exception=True)
+@needs_permission("fleet.add_backtest")
 def track_record_run(request):
     backtest = request_backtest()
     backtest.refresh_from_db()
