@@ -474,7 +474,8 @@ def _refresh_life_data_later():
 
 
 def rejected_rows_csv(job: ImportJob) -> bytes:
-    """The bad rows as uploaded, with a last column saying what is wrong, field by field."""
+    """The bad rows as uploaded, with a last column saying what is wrong, field by field. A readings file without
+    a `confirmed` column gets an empty one, for the rows whose message asks to confirm a value as re-checked."""
     outcome = check_file(
         kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping, user=job.created_by
     )
@@ -482,5 +483,8 @@ def rejected_rows_csv(job: ImportJob) -> bytes:
     for row, field_name, message in outcome.result.errors:
         problems[row].append(f"{field_name}: {message}")
     position = {int(number): i for i, number in enumerate(files.row_numbers(outcome.rows))}
-    picked = [outcome.rows[position[number]] + ["; ".join(problems[number])] for number in sorted(problems)]
-    return csv_bytes(outcome.header + ["problems"], picked)
+    unconfirmable = job.kind == ImportJob.Kind.READINGS and not (outcome.mapping or {}).get("confirmed")
+    confirm = ["confirmed"] if unconfirmable else []
+    blank = [""] * len(confirm)
+    picked = [outcome.rows[position[number]] + blank + ["; ".join(problems[number])] for number in sorted(problems)]
+    return csv_bytes(outcome.header + confirm + ["problems"], picked)
