@@ -572,7 +572,7 @@ def test_the_rows_to_fix_of_a_workbook_keep_its_dates_as_typed_and_import_once_f
     ]
     for kind, rows, field, fixed, expected in (
         ("history", history, "part_code", "RUN-8", ["FAN-9", "run", "NO-SUCH", "2015-05-02", "2019-12-31", "failed"]),
-        ("readings", readings, "capacitance_uf", "7.95", ["FAN-9", "run", "2021-06-01 09:30", "7950"]),
+        ("readings", readings, "capacitance_uf", "7.95", ["FAN-9", "run", "2021-06-01 09:30", "7950", ""]),
     ):
         book = Workbook()
         for row in rows:
