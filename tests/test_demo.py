@@ -97,3 +97,32 @@ def test_the_demos_plan_dates_no_visit_on_a_holiday():
     plan_work_orders(horizon_days=90, today=today, window_days=1)
     days = sorted(WorkOrder.objects.values_list("due_on", "moved_from"))
     assert days == [(dt.date(2026, 12, 11), None), (dt.date(2026, 12, 24), None), (dt.date(2026, 12, 24), None)]
+
+
+def test_the_demo_serves_the_sites_own_error_pages(monkeypatch, settings):
+    """A walk of the demo met Django's debugging 404 page (the project's URL patterns) at /sites/XYZ/route/. Ours:
+    the demo serves with DEBUG off unless DEBUG is set in the environment, so people trying it meet the site's
+    own missing-page and refusal pages."""
+    from django.conf import settings as live
+
+    from fleet.management.commands import demo as command
+
+    seen = []
+    real = command.call_command
+
+    def served(name, *args, **kwargs):
+        if name == "runserver":
+            seen.append(live.DEBUG)
+            return None
+        return real(name, *args, **kwargs)
+
+    monkeypatch.setattr(command, "call_command", served)
+    monkeypatch.setattr(command, "build_demo", lambda scale: {"created": False})
+    monkeypatch.delenv("DEBUG", raising=False)
+    settings.DEBUG = True
+    call_command("demo")
+    assert seen == [False]
+    settings.DEBUG = True
+    monkeypatch.setenv("DEBUG", "true")
+    call_command("demo")
+    assert seen == [False, True]

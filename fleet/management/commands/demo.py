@@ -1,7 +1,9 @@
 """Build the invented demo scenario, analyse it, and serve the site."""
 
+import os
 import time
 
+from django.conf import settings
 from django.core.management import call_command
 from django.core.management.base import BaseCommand
 
@@ -68,5 +70,9 @@ class Command(BaseCommand):
         for username, password, role in logins:
             self.stdout.write(f"  {username:<10} {password:<20} {role}")
         if not options["no_serve"]:
+            if "DEBUG" not in os.environ:
+                # The demo is for people to try: a missing page or a refusal shows the site's own page, not
+                # Django's debugging page with the project's URL patterns (DEBUG=true to see those).
+                settings.DEBUG = False
             self.stdout.write(f"\nServing on http://{options['address']}/ (Ctrl+C to stop)\n")
             call_command("runserver", options["address"], use_reloader=False)
