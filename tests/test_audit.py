@@ -69,7 +69,10 @@ def test_a_planners_bulk_writes_are_written_down_too(client):
     assert entries("fleet.motor", motors[1].pk, "update") == []  # unchanged: nothing written
 
     order = WorkOrder.objects.create(motor=motors[0], kind="inspect", due_on=dt.date(2026, 3, 2))
-    client.post(reverse("work_orders"), {"action": "issue", "site": site.pk, "day": "2026-03-02"})
+    answer = client.post(reverse("work_orders"), {"action": "issue", "site": site.pk, "day": "2026-03-02"}, follow=True)
+    # The message names the visit (a walk read "4 work orders issued to the technicians." and wondered which).
+    said = [str(m) for m in answer.context["messages"]]
+    assert f"1 work order of the {site.code} visit on Mon 2026-03-02 issued to the technicians." in said, said
     [issued] = entries("fleet.workorder", order.pk, "update")
     assert issued.changes == {"state": ["planned", "issued"]} and issued.username == planner.username
 

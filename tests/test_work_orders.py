@@ -389,8 +389,11 @@ def test_a_move_or_a_cancel_sent_twice_says_it_was_done_already_by_whom_and_when
     # Another planner, with the first day's sheet still open, moves it elsewhere: told where it went.
     other = Client()
     other.force_login(make_user(PLANNER))
-    late = other.post(url, {"to_day": working[1].isoformat()}, follow=True).content.decode()
+    late_answer = other.post(url, {"to_day": working[1].isoformat()}, follow=True)
+    late = late_answer.content.decode()
     assert f"moved from {day:%a %Y-%m-%d} to {working[0]:%a %Y-%m-%d} by {planner.username} on " in late
+    # ... on the page of the day it went to (a walk landed on the work-orders list, to look for it there).
+    assert late_answer.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, working[0].isoformat()])
     assert "nothing moved" in late
     assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {working[0]}
     # Moved again from its new day, the second move's double tap is recognised too.

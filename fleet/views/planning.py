@@ -116,7 +116,12 @@ def work_orders(request):
             else:
                 issued = issue_visit(site_id=site_id, due_on=day, user=request.user)
                 if issued:
-                    messages.success(request, f"{issued} work order{pluralize(issued)} issued to the technicians.")
+                    code = Site.objects.filter(pk=site_id).values_list("code", flat=True).first()
+                    messages.success(
+                        request,
+                        f"{issued} work order{pluralize(issued)} of the {code} visit on {day:%a %Y-%m-%d} "
+                        "issued to the technicians.",
+                    )
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
@@ -175,6 +180,9 @@ def visit_sheet(request, site, day):
             except ValidationError as error:
                 if "visit" in error.message_dict:
                     messages.error(request, " ".join(error.message_dict["visit"]))
+                    moved = visit_moved_to(site.id, day, user=request.user)  # moved elsewhere meanwhile: its page
+                    if moved is not None:
+                        return redirect("visit_sheet", site_code=site.code, day=moved.to_day.isoformat())
                     return redirect("work_orders")
                 move_form.add_error("to_day", error.message_dict["to_day"])
             else:
