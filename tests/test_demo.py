@@ -24,6 +24,14 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     printed = {state: int(n) for n, state in re.findall(r"(\d+) (done|issued|planned)\b", out.split("work orders:")[1])}
     stored = {state: WorkOrder.objects.filter(state=state).count() for state in ("done", "issued", "planned")}
     assert printed == stored, (printed, stored)
+    # Visits, done and open, fall on weekdays (a walk found past visits on Saturdays and Sundays); open ones
+    # on no day off of their site.
+    days = list(WorkOrder.objects.values_list("due_on", "state", "site_id"))
+    assert days and all(day.weekday() < 5 for day, _, _ in days), [d for d in days if d[0].weekday() >= 5]
+    from fleet.models import SiteDayOff
+
+    off = set(SiteDayOff.objects.values_list("day", "site_id"))
+    assert not [d for d in days if d[1] in ("planned", "issued") and (d[0], d[2]) in off]
     assert first[0] > 5 and first[2] > 50
     assert Assessment.objects.filter(is_current=True).exists()
     assert (

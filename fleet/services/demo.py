@@ -359,12 +359,13 @@ def _skip_closed_house(readings: list[Reading], today: dt.date) -> list[Reading]
 
 
 def _visit_days(commissioned: dt.date, today: dt.date, rng) -> list[dt.date]:
-    """The days a motor is visited, from commissioning to before today, every 12 to 14 weeks: a visit
+    """The days a motor is visited, from commissioning to before today, every 12 to 14 weeks, on a weekday
+    (a visit that would fall on a weekend is made on the Friday before, as the plan's visits are): a visit
     reads every capacitor fitted to it (a reading later today would be in the future)."""
     days, day = [], commissioned
     while (day := day + dt.timedelta(days=int(rng.integers(84, 98)))) < today:
         days.append(day)
-    return days
+    return np.busday_offset(np.array(days, "datetime64[D]"), 0, roll="backward").astype(dt.date).tolist()
 
 
 def _age_capacitor_line(
