@@ -493,7 +493,7 @@ PLAN_ROW_TEMPLATE = """{% for a in rows %}
   <td class="num" data-label="Trend (&micro;F)">{{ a.capacitance_now_uf|floatformat:2 }}</td>
   <td data-label="Limit">{{ a.limit_source }}</td>
   <td data-label="Why">{{ a.reason|default:"-"|nowrap_dates }}</td>
-  <td data-label="Trend crosses: early / likely"><span class="nowrap">{{ a.p10_on|date:"Y-m-d"|default:"-" }}</span> / <span class="nowrap">{{ a.p50_on|date:"Y-m-d"|default:"beyond" }}</span></td>
+  <td data-label="Trend crosses: early / likely"><span class="nowrap">{% if a.p10_on %}{{ a.p10_on|date:"Y-m-d" }}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span> / <span class="nowrap">{% if a.p50_on %}{{ a.p50_on|date:"Y-m-d" }}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span></td>
   <td data-label="Site">{{ a.fitted_capacitor.motor.site.code }}</td>
 </tr>
 {% empty %}<tr><td colspan="7">Nothing due in this window.</td></tr>{% endfor %}"""  # noqa: E501

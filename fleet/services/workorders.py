@@ -509,6 +509,7 @@ WALKING_ORDER = ("route_order", "asset_tag", "id")
 LISTED_ORDER_FIELDS = (
     "due_on",
     "window_days",
+    "moved_from",  # the plan's own day of an order moved earlier (`with_plan_now`)
     "fitted_capacitor_id",
     "site_id",
     "kind",
