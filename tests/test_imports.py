@@ -264,6 +264,19 @@ def test_exported_cells_never_start_a_formula():
     assert safe_cell("Cold room 3") == "Cold room 3"
 
 
+@pytest.mark.parametrize("text", ["-inf", "+nan", "-Infinity", "-1_000", "+\u0664", "-\uff13", " -1"])
+def test_exported_text_that_python_reads_as_a_number_but_a_spreadsheet_does_not_is_defused(text):
+    """OWASP CSV injection: a cell a spreadsheet reads as a formula (it starts with + or -) is quoted unless the
+    spreadsheet reads it as a plain number. Python's float() also takes "-inf", "+nan", "-1_000" and other
+    scripts' digits ("+\u0664"), which a spreadsheet does not: a technician's note "-inf" went out bare."""
+    assert safe_cell(text) == "'" + text if text[0] in "+-" else safe_cell(text) == text
+
+
+@pytest.mark.parametrize("number", ["-3.2", "+4", "-.5", "-1e-3", "-2E+5", "-7."])
+def test_exported_plain_numbers_keep_their_sign_unquoted(number):
+    assert safe_cell(number) == number
+
+
 def test_import_pages_map_check_and_import(client, technician, django_capture_on_commit_callbacks):
     fleet_of(2)
     client.force_login(technician)
