@@ -345,6 +345,23 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     stored = _already_stored(good, fitted)
     if stored.any():
         good = good[~stored].reset_index(drop=True)
+    # The same position, time and method with another value, neither stored yet: a row edited and added again,
+    # never two readings (a reading and its correction, exported and imported again, are both stored already).
+    moment = good.reindex(columns=["position_id", "taken_at", "method"])  # no rows left: no such columns either
+    clash = moment.duplicated(keep="first").to_numpy()
+    if clash.any():
+        first = good[~clash].set_index(["position_id", "taken_at", "method"])[["row", "capacitance_uf"]]
+        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
+        errors += [
+            (
+                int(row),
+                "taken_at",
+                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
+                "the two rows",
+            )
+            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
+        ]
+        good = good[~clash].reset_index(drop=True)
     errors.sort()
     return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
 
