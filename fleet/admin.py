@@ -14,6 +14,7 @@ from django.db import models
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
+from .engineering.rules import parse_numbers
 from .models import (
     Assessment,
     AuditEntry,
@@ -32,8 +33,50 @@ from .models import (
 User = get_user_model()
 
 
+def _rulebook_number(value) -> float | None:
+    """A number typed in a register box, read by the rulebook's one parser (`parse_numbers`), as the imports and
+    the reading form read the same figures: a decimal comma taken; other scripts' digits ("\u0662\u0665\u0660"),
+    "2_50", NaN and infinity refused (Python's float() and int(), which Django's boxes use, take the first two)."""
+    if value in (None, ""):
+        return None
+    number, why = parse_numbers([value.strip() if isinstance(value, str) else value])
+    if why[0]:
+        raise ValidationError(why[0][:1].upper() + why[0][1:] + ".", code="invalid")
+    return float(number[0])
+
+
+class RulebookFloatField(forms.FloatField):
+    def to_python(self, value):
+        return _rulebook_number(value)
+
+
+class RulebookIntegerField(forms.IntegerField):
+    def to_python(self, value):
+        number = _rulebook_number(value)
+        if number is not None and number != round(number):
+            raise ValidationError("Enter a whole number.", code="invalid")
+        return None if number is None else int(number)
+
+
+class RulebookDecimalField(forms.DecimalField):
+    def to_python(self, value):
+        if _rulebook_number(value) is None:
+            return None
+        return super().to_python(value.strip().replace(",", ".") if isinstance(value, str) else value)
+
+
+class RulebookNumbersAdmin(admin.ModelAdmin):
+    """Number boxes read by the rulebook (`_rulebook_number`); a box with choices stays a choice."""
+
+    formfield_overrides = {
+        models.FloatField: {"form_class": RulebookFloatField},
+        models.IntegerField: {"form_class": RulebookIntegerField},
+        models.DecimalField: {"form_class": RulebookDecimalField},
+    }
+
+
 @admin.register(Site)
-class SiteAdmin(admin.ModelAdmin):
+class SiteAdmin(RulebookNumbersAdmin):
     list_display = ["code", "name", "time_zone"]
     search_fields = ["code", "name"]
 
@@ -53,7 +96,7 @@ class FittedCapacitorInline(admin.TabularInline):
 
 
 @admin.register(Motor)
-class MotorAdmin(admin.ModelAdmin):
+class MotorAdmin(RulebookNumbersAdmin):
     list_display = [
         "asset_tag",
         "site",
@@ -71,7 +114,7 @@ class MotorAdmin(admin.ModelAdmin):
 
 
 @admin.register(CapacitorPart)
-class CapacitorPartAdmin(admin.ModelAdmin):
+class CapacitorPartAdmin(RulebookNumbersAdmin):
     list_display = [
         "code",
         "rated_uf",
@@ -88,7 +131,7 @@ class CapacitorPartAdmin(admin.ModelAdmin):
 
 
 @admin.register(FittedCapacitor)
-class FittedCapacitorAdmin(admin.ModelAdmin):
+class FittedCapacitorAdmin(RulebookNumbersAdmin):
     list_display = ["motor", "role", "part", "serial", "fitted_on", "removed_on", "removal_reason"]
     list_filter = ["role", "removal_reason", "part__dielectric", "motor__site"]
     search_fields = ["motor__asset_tag", "serial", "part__code"]
@@ -98,7 +141,7 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
 
 
 @admin.register(SiteStock)
-class SiteStockAdmin(admin.ModelAdmin):
+class SiteStockAdmin(RulebookNumbersAdmin):
     list_display = ["site", "part", "quantity"]
     list_editable = ["quantity"]
     list_filter = ["site", "part__dielectric"]
@@ -149,7 +192,7 @@ class ReadingAdminForm(forms.ModelForm):
 
 
 @admin.register(Reading)
-class ReadingAdmin(admin.ModelAdmin):
+class ReadingAdmin(RulebookNumbersAdmin):
     """Readings are append-only: they can be added and viewed, never changed or deleted."""
 
     form = ReadingAdminForm
@@ -218,7 +261,7 @@ class AssessmentAdmin(admin.ModelAdmin):
 
 
 @admin.register(WorkOrder)
-class WorkOrderAdmin(admin.ModelAdmin):
+class WorkOrderAdmin(RulebookNumbersAdmin):
     list_display = ["motor", "kind", "due_on", "state", "reason"]
     list_filter = ["state", "kind", "motor__site"]
     search_fields = ["motor__asset_tag", "reason"]
