@@ -14,7 +14,7 @@ from django.db import models
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
-from .engineering.rules import parse_numbers
+from .engineering.rules import FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY, parse_numbers
 from .models import (
     Assessment,
     AuditEntry,
@@ -65,7 +65,20 @@ class RulebookDecimalField(forms.DecimalField):
         return super().to_python(value.strip().replace(",", ".") if isinstance(value, str) else value)
 
 
-class RulebookNumbersAdmin(admin.ModelAdmin):
+class CheckedLookupsAdmin(admin.ModelAdmin):
+    """A list's query string may name any date's year (`?due_on__year=2026`, as the date drill-down does): a year
+    outside the rulebook's accepted span is refused (400), not a 500 from the first day of year 99999."""
+
+    def lookup_allowed(self, lookup, value, request=None):
+        if lookup.endswith(("__year", "__iso_year")):
+            first, last = FIRST_ACCEPTED_DAY.astype(object).year, LAST_ACCEPTED_DAY.astype(object).year
+            years = value if isinstance(value, list) else [value]
+            if not all(str(year).isascii() and str(year).isdigit() and first <= int(year) <= last for year in years):
+                return False
+        return super().lookup_allowed(lookup, value, request)
+
+
+class RulebookNumbersAdmin(CheckedLookupsAdmin):
     """Number boxes read by the rulebook (`_rulebook_number`); a box with choices stays a choice."""
 
     formfield_overrides = {
@@ -232,7 +245,7 @@ READINGS_KEPT_WORDS = (
 
 
 @admin.register(Assessment)
-class AssessmentAdmin(admin.ModelAdmin):
+class AssessmentAdmin(CheckedLookupsAdmin):
     list_display = [
         "fitted_capacitor",
         "risk",
@@ -269,8 +282,8 @@ class WorkOrderAdmin(RulebookNumbersAdmin):
     raw_id_fields = ["motor", "fitted_capacitor"]
 
 
-admin.site.register(PartPrior)
-admin.site.register(RefitRun)
+admin.site.register(PartPrior, CheckedLookupsAdmin)
+admin.site.register(RefitRun, CheckedLookupsAdmin)
 
 
 def _perm_name(permission) -> str:
@@ -366,7 +379,7 @@ class FleetTokenAdmin(TokenAdmin):
 
 
 @admin.register(SiteMembership)
-class SiteMembershipAdmin(admin.ModelAdmin):
+class SiteMembershipAdmin(CheckedLookupsAdmin):
     list_display = ["user", "site"]
     list_filter = ["site"]
     search_fields = ["user__username", "site__code"]
@@ -374,7 +387,7 @@ class SiteMembershipAdmin(admin.ModelAdmin):
 
 
 @admin.register(AuditEntry)
-class AuditEntryAdmin(admin.ModelAdmin):
+class AuditEntryAdmin(CheckedLookupsAdmin):
     """The audit trail: read-only, newest first."""
 
     list_display = ["at", "username", "action", "model", "object_repr", "changed_fields"]

@@ -305,3 +305,24 @@ def test_the_api_keeps_site_codes_exact(engineer, two_sites):
     """The README: the API's codes are exact, capitals included."""
     response = client_for(engineer).get(reverse("api_assessments"), {"site": "cst"})
     assert response.status_code == 400 and "site" in response.json()
+
+
+@pytest.mark.parametrize(
+    "address",
+    [
+        "/admin/fleet/workorder/?due_on__year=99999",
+        "/admin/fleet/assessment/?replace_by__year=-5",
+        "/admin/fleet/motor/?commissioned_on__year=10000",
+        "/admin/fleet/reading/?created_at__year=abc",
+    ],
+)
+def test_an_admin_list_refuses_a_year_outside_the_accepted_span_instead_of_a_server_error(client, address):
+    """Before: 500 (ValueError: year 99999 is out of range, building the year's first day)."""
+    from fleet.roles import ADMINISTRATOR
+
+    user = make_user(ADMINISTRATOR)
+    user.is_superuser = True
+    user.save()
+    client.force_login(user)
+    assert client.get(address).status_code == 400
+    assert client.get(address.split("?")[0] + "?" + address.split("?")[1].split("=")[0] + "=2026").status_code == 200
