@@ -628,3 +628,32 @@ def test_a_file_whose_every_row_holds_a_nul_is_reported_by_row_not_a_server_erro
     outcome = import_file(kind="readings", filename="r.csv", content=csv_of(rows), mode=ImportJob.Mode.GOOD_ROWS)
     assert [(row, field) for row, field, _ in outcome.result.errors] == [(2, "notes")]
     assert not Reading.objects.exists()
+
+
+def test_a_file_edited_and_imported_again_is_refused_at_the_edited_row_naming_the_stored_value():
+    """Before: the edited row came in as a second reading at the same time, and the stored (wrong) value stayed in
+    the trend beside it. A row the database holds already is still skipped; a correction is made from the
+    capacitor's page, and an export holding a reading and its correction, imported again, adds nothing."""
+    from fleet.services.readings import record_reading
+
+    (motor,) = fleet_of(1)
+    first = [
+        [motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3.95", "", "", "31", ""],
+        [motor.asset_tag, "run", "2021-09-01 09:00", "meter", "3.94", "", "", "31", ""],
+    ]
+    import_file(kind="readings", filename="r.csv", content=csv_of(first), mode=ImportJob.Mode.ALL_OR_NOTHING)
+    edited = [first[0][:4] + ["3.59"] + first[0][5:], first[1]]
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(edited), mode=ImportJob.Mode.GOOD_ROWS)
+    assert [(row, field) for row, field, _ in outcome.result.errors] == [(2, "taken_at")]
+    assert "stored already (3.95 µF)" in outcome.result.errors[0][2]
+    assert outcome.result.duplicates == 1 and outcome.imported == 0
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.94, 3.95]
+
+    original = Reading.objects.get(capacitance_uf=3.95)
+    record_reading(
+        fitted_capacitor=original.fitted_capacitor,
+        values={"method": "meter", "capacitance_uf": "3.59", "case_temperature_c": "31"},
+        supersedes_id=original.id,
+    )
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(edited), mode=ImportJob.Mode.ALL_OR_NOTHING)
+    assert not outcome.result.errors and outcome.result.duplicates == 2 and Reading.objects.count() == 3
