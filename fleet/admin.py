@@ -189,7 +189,12 @@ class ReadingAdminForm(forms.ModelForm):
         if fitted_capacitor is None or self.errors:
             return data
         try:
-            check_reading(fitted_capacitor, data, confirmed=bool(data.get("outlier_confirmed")))
+            check_reading(
+                fitted_capacitor,
+                data,
+                confirmed=bool(data.get("outlier_confirmed")),
+                supersedes=data.get("supersedes"),
+            )
         except NeedsConfirmation as error:
             raise ValidationError(
                 [*error.messages, "Tick 'outlier confirmed' if the value is right."], code="needs_confirmation"
