@@ -14,6 +14,7 @@ from django.db import models
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
+from .engineering.rules import FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY, parse_numbers
 from .models import (
     Assessment,
     AuditEntry,
@@ -33,8 +34,63 @@ from .models import (
 User = get_user_model()
 
 
+def _rulebook_number(value) -> float | None:
+    """A number typed in a register box, read by the rulebook's one parser (`parse_numbers`), as the imports and
+    the reading form read the same figures: a decimal comma taken; other scripts' digits ("\u0662\u0665\u0660"),
+    "2_50", NaN and infinity refused (Python's float() and int(), which Django's boxes use, take the first two)."""
+    if value in (None, ""):
+        return None
+    number, why = parse_numbers([value.strip() if isinstance(value, str) else value])
+    if why[0]:
+        raise ValidationError(why[0][:1].upper() + why[0][1:] + ".", code="invalid")
+    return float(number[0])
+
+
+class RulebookFloatField(forms.FloatField):
+    def to_python(self, value):
+        return _rulebook_number(value)
+
+
+class RulebookIntegerField(forms.IntegerField):
+    def to_python(self, value):
+        number = _rulebook_number(value)
+        if number is not None and number != round(number):
+            raise ValidationError("Enter a whole number.", code="invalid")
+        return None if number is None else int(number)
+
+
+class RulebookDecimalField(forms.DecimalField):
+    def to_python(self, value):
+        if _rulebook_number(value) is None:
+            return None
+        return super().to_python(value.strip().replace(",", ".") if isinstance(value, str) else value)
+
+
+class CheckedLookupsAdmin(admin.ModelAdmin):
+    """A list's query string may name any date's year (`?due_on__year=2026`, as the date drill-down does): a year
+    outside the rulebook's accepted span is refused (400), not a 500 from the first day of year 99999."""
+
+    def lookup_allowed(self, lookup, value, request=None):
+        if lookup.endswith(("__year", "__iso_year")):
+            first, last = FIRST_ACCEPTED_DAY.astype(object).year, LAST_ACCEPTED_DAY.astype(object).year
+            years = value if isinstance(value, list) else [value]
+            if not all(str(year).isascii() and str(year).isdigit() and first <= int(year) <= last for year in years):
+                return False
+        return super().lookup_allowed(lookup, value, request)
+
+
+class RulebookNumbersAdmin(CheckedLookupsAdmin):
+    """Number boxes read by the rulebook (`_rulebook_number`); a box with choices stays a choice."""
+
+    formfield_overrides = {
+        models.FloatField: {"form_class": RulebookFloatField},
+        models.IntegerField: {"form_class": RulebookIntegerField},
+        models.DecimalField: {"form_class": RulebookDecimalField},
+    }
+
+
 @admin.register(Site)
-class SiteAdmin(admin.ModelAdmin):
+class SiteAdmin(RulebookNumbersAdmin):
     list_display = ["code", "name", "time_zone"]
     search_fields = ["code", "name"]
 
@@ -54,7 +110,7 @@ class FittedCapacitorInline(admin.TabularInline):
 
 
 @admin.register(Motor)
-class MotorAdmin(admin.ModelAdmin):
+class MotorAdmin(RulebookNumbersAdmin):
     list_display = [
         "asset_tag",
         "site",
@@ -72,7 +128,7 @@ class MotorAdmin(admin.ModelAdmin):
 
 
 @admin.register(CapacitorPart)
-class CapacitorPartAdmin(admin.ModelAdmin):
+class CapacitorPartAdmin(RulebookNumbersAdmin):
     list_display = [
         "code",
         "rated_uf",
@@ -89,7 +145,7 @@ class CapacitorPartAdmin(admin.ModelAdmin):
 
 
 @admin.register(FittedCapacitor)
-class FittedCapacitorAdmin(admin.ModelAdmin):
+class FittedCapacitorAdmin(RulebookNumbersAdmin):
     list_display = ["motor", "role", "part", "serial", "fitted_on", "removed_on", "removal_reason"]
     list_filter = ["role", "removal_reason", "part__dielectric", "motor__site"]
     search_fields = ["motor__asset_tag", "serial", "part__code"]
@@ -99,7 +155,7 @@ class FittedCapacitorAdmin(admin.ModelAdmin):
 
 
 @admin.register(SiteDayOff)
-class SiteDayOffAdmin(admin.ModelAdmin):
+class SiteDayOffAdmin(CheckedLookupsAdmin):
     list_display = ["site", "day", "name"]
     list_filter = ["site"]
     search_fields = ["site__code", "name"]
@@ -108,7 +164,7 @@ class SiteDayOffAdmin(admin.ModelAdmin):
 
 
 @admin.register(SiteStock)
-class SiteStockAdmin(admin.ModelAdmin):
+class SiteStockAdmin(RulebookNumbersAdmin):
     list_display = ["site", "part", "quantity"]
     list_editable = ["quantity"]
     list_filter = ["site", "part__dielectric"]
@@ -143,7 +199,12 @@ class ReadingAdminForm(forms.ModelForm):
         if fitted_capacitor is None or self.errors:
             return data
         try:
-            check_reading(fitted_capacitor, data, confirmed=bool(data.get("outlier_confirmed")))
+            check_reading(
+                fitted_capacitor,
+                data,
+                confirmed=bool(data.get("outlier_confirmed")),
+                supersedes=data.get("supersedes"),
+            )
         except NeedsConfirmation as error:
             raise ValidationError(
                 [*error.messages, "Tick 'outlier confirmed' if the value is right."], code="needs_confirmation"
@@ -159,7 +220,7 @@ class ReadingAdminForm(forms.ModelForm):
 
 
 @admin.register(Reading)
-class ReadingAdmin(admin.ModelAdmin):
+class ReadingAdmin(RulebookNumbersAdmin):
     """Readings are append-only: they can be added and viewed, never changed or deleted."""
 
     form = ReadingAdminForm
@@ -203,7 +264,7 @@ READINGS_KEPT_WORDS = (
 
 
 @admin.register(Assessment)
-class AssessmentAdmin(admin.ModelAdmin):
+class AssessmentAdmin(CheckedLookupsAdmin):
     list_display = [
         "fitted_capacitor",
         "risk",
@@ -232,7 +293,7 @@ class AssessmentAdmin(admin.ModelAdmin):
 
 
 @admin.register(WorkOrder)
-class WorkOrderAdmin(admin.ModelAdmin):
+class WorkOrderAdmin(RulebookNumbersAdmin):
     list_display = ["motor", "kind", "due_on", "state", "reason"]
     list_filter = ["state", "kind", "motor__site"]
     search_fields = ["motor__asset_tag", "reason"]
@@ -240,7 +301,7 @@ class WorkOrderAdmin(admin.ModelAdmin):
     raw_id_fields = ["motor", "fitted_capacitor"]
 
 
-class DerivedRecordAdmin(admin.ModelAdmin):
+class DerivedRecordAdmin(CheckedLookupsAdmin):
     """Records the application works out (a part's pooled priors, a refit's progress): to be looked at, never
     added or typed over."""
 
@@ -348,7 +409,7 @@ class FleetTokenAdmin(TokenAdmin):
 
 
 @admin.register(SiteMembership)
-class SiteMembershipAdmin(admin.ModelAdmin):
+class SiteMembershipAdmin(CheckedLookupsAdmin):
     list_display = ["user", "site"]
     list_filter = ["site"]
     search_fields = ["user__username", "site__code"]
@@ -356,7 +417,7 @@ class SiteMembershipAdmin(admin.ModelAdmin):
 
 
 @admin.register(AuditEntry)
-class AuditEntryAdmin(admin.ModelAdmin):
+class AuditEntryAdmin(CheckedLookupsAdmin):
     """The audit trail: read-only, newest first."""
 
     list_display = ["at", "username", "action", "model", "object_repr", "changed_fields"]

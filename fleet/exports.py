@@ -27,6 +27,9 @@ from openpyxl.utils import get_column_letter
 from openpyxl.utils.datetime import to_excel
 
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r", "'")
+# A number as a spreadsheet reads it: ASCII digits, a decimal point, an exponent. Python's float() takes more
+# ("-inf", "+nan", "-1_000", other scripts' digits), which a spreadsheet would start a formula with.
+PLAIN_NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
 TEXT, FLOAT, INT, DATE, DATETIME, BOOL = "text", "float", "int", "date", "datetime", "bool"
 CHUNK_ROWS = 5000  # rows per Parquet row group and per batch held in memory
 
@@ -36,11 +39,8 @@ def safe_cell(value) -> str:
     a cell starting with = + - @ ' or a control character gets a leading quote,
     unless it is a plain number such as -3.2. Strip one leading quote to read it back."""
     text = "" if value is None else str(value)
-    if text.startswith(FORMULA_STARTS):
-        try:
-            float(text)
-        except ValueError:
-            return "'" + text
+    if text.startswith(FORMULA_STARTS) and not PLAIN_NUMBER.fullmatch(text):
+        return "'" + text
     return text
 
 

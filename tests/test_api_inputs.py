@@ -174,3 +174,31 @@ def test_a_filter_given_once_still_narrows(engineer, fan_fitted_capacitor):
     refit_fitted_capacitors([fan_fitted_capacitor.id])
     body = client_for(engineer).get(reverse("api_assessments"), {"site": fan_fitted_capacitor.motor.site.code}).json()
     assert body["count"] == 1
+
+
+def test_a_second_reading_at_the_time_of_one_stored_is_refused_at_taken_at_by_the_api_and_the_form(
+    client, technician, fan_fitted_capacitor
+):
+    """Before: the API stored the same body sent twice (no Idempotency-Key) as two readings, and another value
+    at the same time as a third: two points at one instant in the trend, where the import skips the first and
+    refuses the second. Now both are refused at taken_at, naming the stored reading; a correction made at the
+    corrected reading's time is still welcome. [derived: the project's rule that duplicated rows are never
+    silently accepted.]"""
+    api = client_for(technician)
+    body = {"taken_at": "2026-03-14T09:30", "method": "meter", "capacitance_uf": 3.95, "case_temperature_c": 30}
+    assert api.post(readings_url(fan_fitted_capacitor), body, format="json").status_code == 201
+    for sent in (body, {**body, "capacitance_uf": 3.59}):
+        again = api.post(readings_url(fan_fitted_capacitor), sent, format="json")
+        assert again.status_code == 400 and "a reading at this time already" in again.json()["taken_at"][0]
+    client.force_login(technician)
+    form = {"method": "meter", "condition": "sound", "taken_at": "2026-03-14T09:30", "capacitance_uf": "3.59"}
+    page = client.post(reverse("reading_new", args=[fan_fitted_capacitor.id]), form)
+    assert page.status_code == 200 and "a reading at this time already" in page.content.decode()
+    assert list(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.95]
+    stored = Reading.objects.get()
+    correction = api.post(
+        readings_url(fan_fitted_capacitor), {**body, "capacitance_uf": 3.59, "supersedes": stored.id}, format="json"
+    )
+    assert correction.status_code == 201
+    another_time = api.post(readings_url(fan_fitted_capacitor), {**body, "taken_at": "2026-03-14T09:31"}, format="json")
+    assert another_time.status_code == 201 and Reading.objects.count() == 3

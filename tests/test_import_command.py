@@ -774,3 +774,50 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
         client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
     job.refresh_from_db()
     assert job.state == ImportJob.State.CHECKED and "which you do not work at" in str(job.errors), job.errors
+
+
+@pytest.mark.parametrize(
+    "typed,stored,words",
+    [
+        ("\u0662\u0665\u0660", None, "Not a number."),  # Arabic-Indic 250: the parts import refuses it
+        ("\uff12\uff15\uff10", None, "Not a number."),  # full-width 250
+        ("2_50", None, "Not a number."),
+        ("250", 250.0, ""),
+        ("250,0", 250.0, ""),  # a decimal comma, as the import and the reading form read it
+    ],
+)
+def test_the_admin_reads_a_catalogue_number_by_the_rulebook_as_the_parts_import_does(
+    client, administrator, typed, stored, words
+):
+    """Before: the admin's number boxes read text with Python's float(), which takes other scripts' digits and
+    "2_50" (the parts import refuses them, "not a number") and refuses a decimal comma (the import takes it)."""
+    client.force_login(administrator)
+    form = {
+        "code": "ST-250",
+        "rated_uf": typed,
+        "tolerance_minus_pct": "0",
+        "tolerance_plus_pct": "20",
+        "rated_voltage_v": "250",
+        "frequency_hz": "50",
+        "dielectric": "electrolytic",
+        "max_case_temperature_c": "70",
+        "unit_cost": "9",
+    }
+    response = client.post(reverse("admin:fleet_capacitorpart_add"), form)
+    if stored is None:
+        assert response.status_code == 200 and words in response.content.decode()
+        assert not CapacitorPart.objects.exists()
+    else:
+        assert response.status_code == 302
+        assert CapacitorPart.objects.get().rated_uf == stored
+
+
+@pytest.mark.parametrize("typed", ["\u0663", "\uff13", "3_0"])
+def test_the_admin_refuses_a_stock_quantity_in_other_digits_as_the_stock_page_does(client, administrator, typed):
+    from fleet.models import SiteStock
+    from tests.factories import make_part, make_site
+
+    client.force_login(administrator)
+    site, part = make_site(), make_part()
+    response = client.post(reverse("admin:fleet_sitestock_add"), {"site": site.pk, "part": part.pk, "quantity": typed})
+    assert response.status_code == 200 and not SiteStock.objects.exists()

@@ -12,7 +12,7 @@ from openpyxl import Workbook
 from fleet.exports import safe_cell
 from fleet.imports.files import FileRefused, read_table
 from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
-from fleet.services.import_jobs import check_job, create_job, rejected_rows_csv, run_job
+from fleet.services.import_jobs import check_job, create_job, import_file, rejected_rows_csv, run_job
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, motor_values
 
 pytestmark = pytest.mark.django_db
@@ -264,6 +264,19 @@ def test_exported_cells_never_start_a_formula():
     assert safe_cell("@SUM(A1)") == "'@SUM(A1)"
     assert safe_cell("-3.2") == "-3.2"
     assert safe_cell("Cold room 3") == "Cold room 3"
+
+
+@pytest.mark.parametrize("text", ["-inf", "+nan", "-Infinity", "-1_000", "+\u0664", "-\uff13", " -1"])
+def test_exported_text_that_python_reads_as_a_number_but_a_spreadsheet_does_not_is_defused(text):
+    """OWASP CSV injection: a cell a spreadsheet reads as a formula (it starts with + or -) is quoted unless the
+    spreadsheet reads it as a plain number. Python's float() also takes "-inf", "+nan", "-1_000" and other
+    scripts' digits ("+\u0664"), which a spreadsheet does not: a technician's note "-inf" went out bare."""
+    assert safe_cell(text) == "'" + text if text[0] in "+-" else safe_cell(text) == text
+
+
+@pytest.mark.parametrize("number", ["-3.2", "+4", "-.5", "-1e-3", "-2E+5", "-7."])
+def test_exported_plain_numbers_keep_their_sign_unquoted(number):
+    assert safe_cell(number) == number
 
 
 def test_import_pages_map_check_and_import(client, technician, django_capture_on_commit_callbacks):
@@ -591,3 +604,59 @@ def test_the_rows_to_fix_of_a_workbook_keep_its_dates_as_typed_and_import_once_f
         assert (again.state, again.imported_rows) == (ImportJob.State.DONE, 1), (kind, again.errors)
     assert FittedCapacitor.objects.filter(motor=motor).count() == 3
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [7.9, 7.95]
+
+
+def test_a_reading_given_twice_in_a_file_or_twice_at_one_time_with_two_values_is_refused_naming_the_first_row():
+    """A duplicated row is refused on the later row, naming the first. So is a row of the same capacitor, the same
+    time and method with another value: two values at one instant are a row edited and added again, not two
+    measurements, and both taken would put a wrong point into the capacitor's trend unseen (before: both were
+    saved). [derived: the project's rule that duplicated rows are never silently accepted.]"""
+    (motor,) = fleet_of(1)
+    rows = [
+        [motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3.95", "", "", "31", ""],
+        [motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3.95", "", "", "31", ""],
+        [motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3.59", "", "", "31", ""],
+        [motor.asset_tag, "run", "2021-09-01 09:00", "meter", "3.94", "", "", "31", ""],
+    ]
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(rows), mode=ImportJob.Mode.GOOD_ROWS)
+    assert [(row, field) for row, field, _ in outcome.result.errors] == [(3, "taken_at"), (4, "taken_at")]
+    assert "the same reading as row 2" in outcome.result.errors[0][2]
+    assert "row 2" in outcome.result.errors[1][2] and "3.95" in outcome.result.errors[1][2]
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.94, 3.95]
+
+
+def test_a_file_whose_every_row_holds_a_nul_is_reported_by_row_not_a_server_error():
+    (motor,) = fleet_of(1)
+    rows = [[motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3.95", "", "", "31", "a\x00b"]]
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(rows), mode=ImportJob.Mode.GOOD_ROWS)
+    assert [(row, field) for row, field, _ in outcome.result.errors] == [(2, "notes")]
+    assert not Reading.objects.exists()
+
+
+def test_a_file_edited_and_imported_again_is_refused_at_the_edited_row_naming_the_stored_value():
+    """Before: the edited row came in as a second reading at the same time, and the stored (wrong) value stayed in
+    the trend beside it. A row the database holds already is still skipped; a correction is made from the
+    capacitor's page, and an export holding a reading and its correction, imported again, adds nothing."""
+    from fleet.services.readings import record_reading
+
+    (motor,) = fleet_of(1)
+    first = [
+        [motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3.95", "", "", "31", ""],
+        [motor.asset_tag, "run", "2021-09-01 09:00", "meter", "3.94", "", "", "31", ""],
+    ]
+    import_file(kind="readings", filename="r.csv", content=csv_of(first), mode=ImportJob.Mode.ALL_OR_NOTHING)
+    edited = [first[0][:4] + ["3.59"] + first[0][5:], first[1]]
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(edited), mode=ImportJob.Mode.GOOD_ROWS)
+    assert [(row, field) for row, field, _ in outcome.result.errors] == [(2, "taken_at")]
+    assert "stored already (3.95 µF)" in outcome.result.errors[0][2]
+    assert outcome.result.duplicates == 1 and outcome.imported == 0
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.94, 3.95]
+
+    original = Reading.objects.get(capacitance_uf=3.95)
+    record_reading(
+        fitted_capacitor=original.fitted_capacitor,
+        values={"method": "meter", "capacitance_uf": "3.59", "case_temperature_c": "31"},
+        supersedes_id=original.id,
+    )
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(edited), mode=ImportJob.Mode.ALL_OR_NOTHING)
+    assert not outcome.result.errors and outcome.result.duplicates == 2 and Reading.objects.count() == 3

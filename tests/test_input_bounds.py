@@ -284,3 +284,39 @@ def test_known_list_parameters_still_work(engineer, fan_fitted_capacitor):
     assert first.status_code == 200
     assert client.get(readings_url(fan_fitted_capacitor), {"page": "1", "page_size": "10"}).status_code == 200
     assert client.get(readings_url(fan_fitted_capacitor), {"page": "-1"}).status_code == 400
+
+
+@pytest.mark.parametrize("typed", ["\u0663", "\uff13", "1_0", "\u00b3", "3\u0663", "9" * 5000])
+def test_a_stock_quantity_or_route_place_in_other_digits_is_refused_as_the_rulebook_refuses_a_reading(typed):
+    """Before: "\u0663" (Arabic-Indic three), "\uff13" (full-width) and "1_0" were saved as 3, 3 and 10, as Python's
+    int() reads them, where the rulebook refuses such digits in every reading field: a quantity or a place is
+    typed in ASCII digits, or named at its part or motor and nothing saved."""
+    from django.core.exceptions import ValidationError
+
+    from fleet.models import SiteStock
+    from fleet.services.register import set_route_order, set_site_stock
+    from tests.factories import make_part
+
+    capacitor = make_fitted_capacitor()
+    motor, part = capacitor.motor, make_part()
+    place = motor.route_order
+    with pytest.raises(ValidationError) as stock:
+        set_site_stock(site=motor.site, quantities={part.id: typed})
+    assert "is not a whole number" in stock.value.message_dict[part.code][0]
+    assert not SiteStock.objects.exists()
+    with pytest.raises(ValidationError) as route:
+        set_route_order(site=motor.site, positions={motor.id: typed})
+    assert "is not a whole number" in route.value.message_dict[motor.asset_tag][0]
+    motor.refresh_from_db()
+    assert motor.route_order == place
+
+
+@pytest.mark.parametrize("typed,number", [("3", 3), (" 12 ", 12), ("007", 7), ("+2", 2), ("0", 0)])
+def test_a_stock_quantity_in_ascii_digits_is_saved(typed, number):
+    from fleet.models import SiteStock
+    from fleet.services.register import set_site_stock
+    from tests.factories import make_part
+
+    capacitor, part = make_fitted_capacitor(), make_part()
+    set_site_stock(site=capacitor.motor.site, quantities={part.id: typed})
+    assert SiteStock.objects.filter(part=part).values_list("quantity", flat=True).first() == (number or None)

@@ -318,3 +318,24 @@ def test_a_page_names_a_parameter_it_does_not_take(client, administrator, two_si
     notes = [str(m) for m in shown.context["messages"]]
     assert any(note.startswith(f"Ignored {parameter}: Not a parameter of this page") for note in notes), notes
     assert not [str(m) for m in client.get(reverse(name), {parameter: ""}).context["messages"]]
+
+
+@pytest.mark.parametrize(
+    "address",
+    [
+        "/admin/fleet/workorder/?due_on__year=99999",
+        "/admin/fleet/assessment/?replace_by__year=-5",
+        "/admin/fleet/motor/?commissioned_on__year=10000",
+        "/admin/fleet/reading/?created_at__year=abc",
+    ],
+)
+def test_an_admin_list_refuses_a_year_outside_the_accepted_span_instead_of_a_server_error(client, address):
+    """Before: 500 (ValueError: year 99999 is out of range, building the year's first day)."""
+    from fleet.roles import ADMINISTRATOR
+
+    user = make_user(ADMINISTRATOR)
+    user.is_superuser = True
+    user.save()
+    client.force_login(user)
+    assert client.get(address).status_code == 400
+    assert client.get(address.split("?")[0] + "?" + address.split("?")[1].split("=")[0] + "=2026").status_code == 200

@@ -361,6 +361,22 @@ def test_the_planner_moves_a_visit_and_cancels_an_order_from_the_visit_page(clie
     assert WorkOrder.objects.get(pk=other.pk).state == "planned"
 
 
+@pytest.mark.parametrize("far", ["9999-12-31", "0001-01-01", "2200-01-01"])
+def test_a_visit_address_on_a_day_outside_the_accepted_span_is_not_found_not_a_server_error(client, planner, far):
+    """Before: /work-orders/CST/9999-12-31/ answered 500 (OverflowError: the moves within reach of that day ran past
+    the last date Python holds). A day outside the rulebook's span is no visit's, as "2026-02-30" is none."""
+    site = make_site(code="FAR")
+    _due(site, timezone.localdate() + dt.timedelta(days=10), 1)
+    plan_work_orders(horizon_days=90, user=planner)
+    client.force_login(planner)
+    url = reverse("visit_sheet", args=[site.code, far])
+    assert client.get(url).status_code == 404
+    assert client.post(url, {"to_day": far}).status_code == 404
+    day = WorkOrder.objects.get().due_on
+    response = client.post(reverse("visit_sheet", args=[site.code, day.isoformat()]), {"to_day": far})
+    assert response.status_code == 400 and WorkOrder.objects.get().due_on == day
+
+
 def test_a_move_or_a_cancel_sent_twice_says_it_was_done_already_by_whom_and_when(client, planner):
     """A double tap (or a form sent again) on "Move the whole visit" answered "That visit has no open work
     orders": the first copy had moved it. [derived] the second copy finds the visit on the day it asks

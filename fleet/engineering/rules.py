@@ -759,6 +759,18 @@ def parse_numbers(raw) -> tuple[np.ndarray, np.ndarray]:
     return values, messages
 
 
+# A whole number typed (a count, a place on a route): ASCII digits, as NUMBER_TEXT's; Python's int() also
+# takes other scripts' digits ("\u0663", full-width "\uff13") and "1_000", which no other field takes. At most 18
+# digits: every count and place is far below that, and int() refuses a string of over 4300 digits with an error.
+WHOLE_NUMBER_TEXT = re.compile(r"\+?[0-9]{1,18}")
+
+
+def whole_number(text) -> int | None:
+    """A whole number as typed (spaces around it allowed), or None where the text is not one (empty included)."""
+    text = str(text).strip()
+    return int(text) if WHOLE_NUMBER_TEXT.fullmatch(text) else None
+
+
 def _unit(name: str) -> str:
     return UNITS.get(name.rsplit("_", 1)[-1], "")
 

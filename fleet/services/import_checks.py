@@ -345,21 +345,52 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             for row, first in zip(later["row"], first_row.reindex(later["position_key"]).to_numpy(), strict=True)
         ]
         good = good[~repeated].reset_index(drop=True)
-    stored = _already_stored(good, fitted)
-    if stored.any():
-        good = good[~stored].reset_index(drop=True)
+    stored, stored_uf = _already_stored(good, fitted)
+    # Another value at the time and method of a stored reading of the capacitor: a row edited and imported again
+    # (the stored value would stay in the trend beside it). A correction is made from the capacitor's page.
+    edited = ~stored & ~np.isnan(stored_uf)
+    if edited.any():
+        errors += [
+            (
+                int(row),
+                "taken_at",
+                f"a reading of this capacitor at this time is stored already ({uf:g} µF): to put it right, correct "
+                "that reading from the capacitor's page (both are kept, the trend uses the correction)",
+            )
+            for row, uf in zip(good["row"][edited], stored_uf[edited], strict=True)
+        ]
+    if stored.any() or edited.any():
+        good = good[~stored & ~edited].reset_index(drop=True)
+    # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
+    # never two readings (a reading and its correction, exported and imported again, are both stored already).
+    moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
+    clash = moment.duplicated(keep="first").to_numpy()
+    if clash.any():
+        first = good[~clash].set_index(["fitted_capacitor_id", "taken_at", "method"])[["row", "capacitance_uf"]]
+        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
+        errors += [
+            (
+                int(row),
+                "taken_at",
+                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
+                "the two rows",
+            )
+            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
+        ]
+        good = good[~clash].reset_index(drop=True)
     errors.sort()
     return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
 
 
-def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> np.ndarray:
+def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """Per good row: the database holds the same reading (motor position, time, method, value), whether it
     came by an earlier import (its key) or by the form, the API or the demo (the same content;
     times compared to the second, as a spreadsheet cell keeps them), and on whichever capacitor of that
     position (`fitted`'s `position_id`) it is stored: a readings export imported again adds nothing, even
-    a new capacitor's reading taken on the day it replaced the old one."""
+    a new capacitor's reading taken on the day it replaced the old one. Also, per good row, the value stored
+    on its capacitor at its second and method (NaN where none is): another value there is a row edited since."""
     if not len(good):
-        return np.zeros(0, bool)
+        return np.zeros(0, bool), np.zeros(0)
     keyed = _among(
         good["import_key"].to_numpy(object),
         list(
@@ -381,21 +412,28 @@ def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> np.ndarray:
     )
     stored = pd.DataFrame.from_records(list(same_span), columns=["fitted_capacitor_id", "taken_at", "method", "uf"])
     if not len(stored):
-        return keyed
+        return keyed, np.full(len(good), np.nan)
 
     def to_the_second(ids, when, methods, uf):
         return reading_keys(ids, pd.to_datetime(when, utc=True).dt.floor("s"), methods, np.round(uf, 4))
 
-    unkeyed = to_the_second(
+    positions, methods = (
         position_of.reindex(stored["fitted_capacitor_id"]).to_numpy(),
-        stored["taken_at"],
         stored["method"].to_numpy(object),
-        stored["uf"].to_numpy(float),
     )
+    unkeyed = to_the_second(positions, stored["taken_at"], methods, stored["uf"].to_numpy(float))
     mine = to_the_second(
         good["position_id"], times, good["method"].to_numpy(object), good["capacitance_uf"].to_numpy(float)
     )
-    return keyed | _among(mine, unkeyed)
+    # The value stored on each row's capacitor at its second and method, whatever it is (the newest where several
+    # are). By capacitor, not position: the old and the new capacitor may both be read at one time on the day.
+    moments = to_the_second(stored["fitted_capacitor_id"], stored["taken_at"], methods, np.zeros(len(stored)))
+    mine_moments = to_the_second(
+        good["fitted_capacitor_id"], times, good["method"].to_numpy(object), np.zeros(len(good))
+    )
+    value_at = pd.Series(stored["uf"].to_numpy(float), index=moments)
+    value_at = value_at[~value_at.index.duplicated(keep="last")]
+    return keyed | _among(mine, unkeyed), value_at.reindex(mine_moments).to_numpy(float)
 
 
 def _among(texts, known) -> np.ndarray:

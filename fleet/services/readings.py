@@ -71,7 +71,7 @@ def _sentence(message: str) -> str:
     return message[:1].upper() + message[1:]
 
 
-def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed: bool) -> dict:
+def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed: bool, supersedes=None) -> dict:
     """Validate and complete one reading's values with the rulebook; raises ValidationError by field.
 
     Values come as typed or sent (text, numbers or None). In-circuit readings get their
@@ -113,6 +113,8 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         errors["taken_at"] += ". " + _fitted_now(fitted_capacitor)
     if errors:
         raise ValidationError(errors)
+    if values.get("taken_at"):  # a time given (a reading without one is taken now)
+        _refuse_a_second_reading_at_one_time(fitted_capacitor, taken_at, str(result.values["method"][0]), supersedes)
     confirm = result.row(0, "confirm")
     if confirm:
         raise NeedsConfirmation({name: _sentence(message) for name, message in confirm.items()})
@@ -132,6 +134,33 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
     if broken:
         raise ValidationError(broken)
     return checked
+
+
+def _refuse_a_second_reading_at_one_time(fitted_capacitor: FittedCapacitor, taken_at, method: str, supersedes) -> None:
+    """A reading of this capacitor by this method at the same second as one in its trend (not corrected, and not
+    the one this corrects) is refused at `taken_at`, naming it: the same values are that reading sent again (the
+    import skips such a row), other values a mistake to correct from it, never a second point at one instant."""
+    second = taken_at.replace(microsecond=0)
+    stored = (
+        Reading.objects.filter(
+            fitted_capacitor=fitted_capacitor,
+            method=method,
+            taken_at__gte=second,
+            taken_at__lt=second + dt.timedelta(seconds=1),
+            superseded_by__isnull=True,
+        )
+        .exclude(pk=getattr(supersedes, "pk", None))
+        .first()
+    )
+    if stored is not None:
+        zone = site_zone(fitted_capacitor.motor.site.time_zone)
+        raise ValidationError(
+            {
+                "taken_at": f"This capacitor has a reading at this time already, reading {stored.id} of "
+                f"{_reading_words(stored, zone)}: nothing saved. If it is wrong, correct it (both are kept, the "
+                "trend uses the correction); if it is another measurement, give its own time."
+            }
+        )
 
 
 def _fitted_now(fitted_capacitor: FittedCapacitor) -> str:
@@ -228,7 +257,7 @@ def record_reading(
     supersedes = reading_to_correct(fitted_capacitor, supersedes_id)
     if supersedes is not None and not values.get("taken_at"):
         values = {**values, "taken_at": supersedes.taken_at}
-    checked = check_reading(fitted_capacitor, values, confirmed=confirmed)
+    checked = check_reading(fitted_capacitor, values, confirmed=confirmed, supersedes=supersedes)
     try:
         with transaction.atomic():
             reading = Reading.objects.create(

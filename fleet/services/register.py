@@ -6,7 +6,7 @@ from django.core.exceptions import ValidationError
 from django.db import transaction
 
 from fleet.audit import audited_bulk_create, audited_bulk_update
-from fleet.engineering.rules import ROUTE_ORDER_MAX
+from fleet.engineering.rules import ROUTE_ORDER_MAX, whole_number
 from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
 from .bulk import storable_ids
@@ -25,9 +25,8 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
         if motor is None:
             errors[f"motor {motor_id}"] = "is not on this site's route."
             continue
-        try:
-            value = int(str(text).strip())
-        except ValueError:
+        value = whole_number(text)
+        if value is None:
             value = -1
         if not str(text).strip():
             errors[motor.asset_tag] = (
@@ -97,7 +96,5 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
 
 def _whole_number(text) -> int:
     """A quantity typed on the stock form; -1 where it is not a whole number (empty included)."""
-    try:
-        return int(str(text).strip())
-    except ValueError:
-        return -1
+    value = whole_number(text)
+    return -1 if value is None else value

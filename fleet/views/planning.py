@@ -16,6 +16,8 @@ from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import (
+    FIRST_FILTER_DAY,
+    LAST_FILTER_DAY,
     list_page,
     parameter_problems,
     plan_parameters,
@@ -169,6 +171,8 @@ def visit_sheet(request, site, day):
         day = dt.date.fromisoformat(day)
     except ValueError:
         raise Http404("No open work orders for that visit") from None
+    if not FIRST_FILTER_DAY <= day <= LAST_FILTER_DAY:  # no visit is there, and its reach would overflow a date
+        raise Http404("No work orders for that visit")
     move_form = MoveVisitForm(request.POST if request.method == "POST" else None)
     if request.method == "POST":
         if not request.user.has_perm("fleet.add_workorder"):  # planning is the planner's
