@@ -522,8 +522,17 @@ def service_date_problems(fitted_on, removed_on, today) -> list[tuple[np.ndarray
     return problems
 
 
+# Names the tz database's files answer to that are not a place's zone: the server's own ("localtime"), a
+# template ("posixrules"), a zone of no place ("Factory"), and the leap-second ("right/", about 27 s off civil
+# time) and duplicate ("posix/") trees.
+NOT_A_SITES_ZONE = re.compile(r"^(localtime|posixrules|Factory|right/.*|posix/.*)$")
+
+
 def known_time_zone(name) -> bool:
-    """A time zone name the tz database knows (Europe/Madrid, UTC): one rule for the sites import and form."""
+    """A time zone name the tz database knows for a place (Europe/Madrid, UTC): one rule for the sites import and
+    form; the server's own zone and the leap-second tree are refused (`NOT_A_SITES_ZONE`)."""
+    if not isinstance(name, str) or NOT_A_SITES_ZONE.match(name):
+        return False
     try:
         zoneinfo.ZoneInfo(name)
     except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
