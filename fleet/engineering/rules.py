@@ -85,6 +85,10 @@ class ReadingRules:
     # A capacitor (or line) voltage above this multiple of the motor's rated voltage is most likely a
     # missed decimal point: ask to confirm (run capacitors sit up to about 1.5x the supply; from memory).
     voltage_confirm_factor: float = 2.0
+    # A line voltage under this share of the motor's rated one while it was read is a slip (1,200 typed as
+    # thousands, read as 1.2 V by the decimal comma) or a supply that was off: ask to confirm (ours; a supply
+    # sags by a few percent, not by half: common practice of the trade, no single source).
+    line_voltage_low_share: float = 0.5
     # Capacitor current under 5 % of the supply voltage while current flows: short circuit (trade).
     short_circuit_fraction: float = 0.05
     # Off the fitted trend by more than this fraction of the rating: confirm or re-measure (trade).
@@ -1021,6 +1025,19 @@ def _check_readings(
                 s=supply,
             ),
         )
+    line = values["line_voltage_v"]
+    low_line = (line > 0) & (line < rules.line_voltage_low_share * supply) & ~errors.has("line_voltage_v")
+    confirm.add(
+        "line_voltage_v",
+        low_line,
+        _messages(
+            low_line,
+            "{v:g} V is under half the motor's {s:g} V: a thousands separator (1,200 is read as 1.2), or was the "
+            "supply off? Type the volts without a separator, or confirm the value if the meter shows it",
+            v=line,
+            s=supply,
+        ),
+    )
 
     low_slip = ~in_circuit & ~errors.has("capacitance_uf")
     confirm.add("capacitance_uf", low_slip, capacitance_low_unit_slip(values["capacitance_uf"], rated, rules))

@@ -316,3 +316,18 @@ def test_a_capacitance_too_small_for_two_decimals_is_written_as_typed():
     assert [microfarad_text(v) for v in (3.949, 0.0, 0.02, 0.00003, 0.0000301, 129.99)] == [
         "3.95", "0.00", "0.02", "0.00003", "0.0000301", "129.99",
     ]  # fmt: skip
+
+
+def test_a_line_voltage_under_half_the_motors_asks_whether_a_thousands_separator_slipped():
+    """The audit of inputs: "1,200" in the line voltage was read as 1.2 V (a decimal comma) and kept. Ours (a
+    supply sags by a few percent, not by half: common practice of the trade, no single source): a line voltage
+    under half the motor's asks to confirm, naming the separator; 0,23 stays the kilovolt slip it was (refused),
+    215 V on a 230 V motor is taken, and confirmed, 1.2 is kept as read."""
+    result = check({"capacitance_uf": ["3.9"] * 4, "line_voltage_v": ["1,200", "0,23", "215", "100"]})
+    words = result.confirm["line_voltage_v"]
+    assert words[0].startswith("1.2 V is under half the motor's 230 V: a thousands separator")
+    assert result.bad[1] and words[1] == ""  # the kilovolt slip, refused as before
+    assert words[2] == "" and not result.bad[2]
+    assert words[3].startswith("100 V is under half")
+    kept = check({"capacitance_uf": ["3.9"], "line_voltage_v": ["1,200"]}, confirmed=True)
+    assert not kept.needs_confirmation.any() and kept.values["line_voltage_v"][0] == 1.2
