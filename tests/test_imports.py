@@ -660,3 +660,18 @@ def test_a_file_edited_and_imported_again_is_refused_at_the_edited_row_naming_th
     )
     outcome = import_file(kind="readings", filename="r.csv", content=csv_of(edited), mode=ImportJob.Mode.ALL_OR_NOTHING)
     assert not outcome.result.errors and outcome.result.duplicates == 2 and Reading.objects.count() == 3
+
+
+def test_the_rows_to_fix_download_names_an_awkward_file_safely(client, technician, django_capture_on_commit_callbacks):
+    """The audit of inputs: an uploaded name holding a quote ("q"2.csv) made the download's header malformed.
+    Django's RFC 6266 writer (filename*, UTF-8) names it whatever it holds."""
+    from django.urls import reverse
+
+    fleet_of(1)
+    rows = good_rows(["IMP-0000"], 1) + [["NO-SUCH", "run", "2021-06-01 09:00", "meter", "4.0", "", "", "31", ""]]
+    job = check_job(create_job(kind="readings", filename='q"2 Größe.csv', content=csv_of(rows), user=technician).id)
+    client.force_login(technician)
+    response = client.get(reverse("import_rejected", args=[job.id]))
+    header = response["Content-Disposition"]
+    assert response.status_code == 200 and header.startswith("attachment; filename*=utf-8''")
+    assert "q%222%20Gr%C3%B6%C3%9Fe-rows-to-fix.csv" in header

@@ -7,6 +7,7 @@ from functools import wraps
 from django.contrib import messages
 from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
+from django.utils.http import content_disposition_header
 
 from fleet.forms import ColumnMappingForm, ImportUploadForm
 from fleet.imports.files import FileRefused
@@ -99,5 +100,6 @@ def import_rejected(request, job_id):
         return redirect("import_detail", job_id=job.pk)
     response = HttpResponse(content, content_type="text/csv; charset=utf-8")
     stem = job.filename.rsplit(".", 1)[0]
-    response["Content-Disposition"] = f'attachment; filename="{stem}-rows-to-fix.csv"'
+    # The uploaded name may hold quotes or other scripts: Django writes the header by RFC 6266 (filename*).
+    response["Content-Disposition"] = content_disposition_header(True, f"{stem}-rows-to-fix.csv")
     return response
