@@ -554,3 +554,29 @@ def test_a_sites_days_off_keep_the_plan_and_the_moves_off_them(client, planner, 
     )
     assert client.post(url, {"remove": "99999999999999999999"}).status_code == 302  # no such row: nothing changed
     assert AuditEntry.objects.filter(model="fleet.sitedayoff").exists()
+
+
+def test_a_move_made_off_a_day_off_stays_when_the_day_off_goes(planner):
+    """A walk: a day off added on a visit's day (Wed), the planner moved the visit to Tuesday; the next plan (which
+    avoided Wednesday itself) forgot the move, and once the day off was removed the plan put the visit back on
+    Wednesday while saying it kept the move. [README] every order the plan dates on the day a moved visit was
+    moved from goes on the day it was moved to. Ours: the plan keeps the record of the move while it dates the
+    order where the planner put it."""
+    from fleet.models import SiteDayOff
+    from fleet.services.workorders import add_day_off
+
+    site = make_site(code="KEEP")
+    _due(site, HOLIDAY - dt.timedelta(days=2), 2)  # Wed 2026-12-23
+    plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    wednesday = HOLIDAY - dt.timedelta(days=2)
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {wednesday}
+    add_day_off(site_id=site.id, day=wednesday, name="shutdown", today=MONDAY)
+    tuesday = wednesday - dt.timedelta(days=1)
+    move_visit(site_id=site.id, due_on=wednesday, to_day=tuesday, user=planner, today=MONDAY)
+    counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert set(WorkOrder.objects.values_list("due_on", "moved_from")) == {(tuesday, wednesday)}
+    assert counts["replanned"] == 0
+    SiteDayOff.objects.filter(site=site).delete()
+    counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert set(WorkOrder.objects.values_list("due_on", "moved_from")) == {(tuesday, wednesday)}
+    assert (counts["replanned"], counts["kept_moved"]) == (0, 2)

@@ -121,7 +121,14 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             for (site_id, _, order), day in zip(items, visit_day, strict=True):
                 planned_on = today + dt.timedelta(days=int(day))
                 moved_to = moves.get((site_id, planned_on))
-                order.due_on, order.moved_from = (planned_on, None) if moved_to is None else (moved_to, planned_on)
+                if moved_to is not None:
+                    order.due_on, order.moved_from = moved_to, planned_on
+                elif order.moved_from is not None and order.pk and was[order.pk][0] == planned_on:
+                    # The plan now dates it where the planner moved it (a day off added on the day it was
+                    # moved from): the record of the move stays, for when that day is a working day again.
+                    moved_to = planned_on
+                else:
+                    order.due_on, order.moved_from = planned_on, None
                 order.window_days = window_days
                 counts["kept_moved"] += moved_to is not None
             changed = [o for o in replanned if (o.due_on, o.window_days, o.kind, o.moved_from, o.reason) != was[o.pk]]
