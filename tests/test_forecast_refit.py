@@ -531,3 +531,9 @@ def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_witho
     client.force_login(planner)
     row = re.search(rf"{capacitor.motor.asset_tag}.*?</tr>", client.get(reverse("plan")).content.decode(), re.S)
     assert row and "no trend" in row.group(0) and "beyond" not in row.group(0)
+    # The operating point now is at the reading (it stood at the rating: "now" equal to "as new" on the capacitor
+    # page while the motor page's chart put it at the reading), and the page says why there is no trend.
+    new, now = assessment.figures_new, assessment.figures_now
+    assert new and now and now["v_capacitor_v"] != pytest.approx(new["v_capacitor_v"], rel=1e-3)
+    page = client.get(reverse("fitted_capacitor", args=[capacitor.id])).content.decode()
+    assert "No trend could be fitted: 1 reading set aside" in page and "Last reading, at 25" in page

@@ -549,11 +549,17 @@ def assess(
     )
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst, companions)
     in_time_order = _in_time_order(readings)
+    latest = in_time_order[~in_time_order["fitted_capacitor_id"].duplicated(keep="last")]  # each one's newest
+    latest = latest.set_index("fitted_capacitor_id").reindex(inst.index)
+    latest_fraction = fit.fraction_25c[latest["position"].to_numpy(int)]
     if with_circuit.any():
         role = inst["role"].to_numpy()[with_circuit]
         index = np.flatnonzero(with_circuit)
         drift, new_figures = _per_design(inst[with_circuit], circuit, load, kind, role, run_uf, start_uf)
-        scale = np.nan_to_num(fit.fraction_now[index], nan=1.0)
+        # The operating point now: at the trend's value, or without a trend at the latest reading (as the stored
+        # capacitance now is: a first reading at half the rating moved nothing here while the chart showed it).
+        scale = np.where(np.isfinite(fit.fraction_now[index]), fit.fraction_now[index], latest_fraction[index])
+        scale = np.nan_to_num(scale, nan=1.0)
         is_run = role == ROLE_RUN
         now_figures = operating_figures(
             circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
@@ -614,9 +620,6 @@ def assess(
     chosen = alert_index(inst["dielectric"].map(alert_levels or {}).to_numpy(float))
     alert_days = level_days[chosen, :, np.arange(n)].T
 
-    latest = in_time_order[~in_time_order["fitted_capacitor_id"].duplicated(keep="last")]  # each one's newest
-    latest = latest.set_index("fitted_capacitor_id").reindex(inst.index)
-    latest_fraction = fit.fraction_25c[latest["position"].to_numpy(int)]
     verdict = tolerance_verdict(
         latest["capacitance_uf"].to_numpy(float),
         rated_uf,
