@@ -89,6 +89,11 @@ class ReadingRules:
     # thousands, read as 1.2 V by the decimal comma) or a supply that was off: ask to confirm (ours; a supply
     # sags by a few percent, not by half: common practice of the trade, no single source).
     line_voltage_low_share: float = 0.5
+    # A capacitor fitted this recently, read without a trend below this share of its rating (far under any
+    # tolerance class, IEC 60252-1's widest being -10 % for a run and -0 % for a start part's marked range): the
+    # wrong part fitted, or misread (ours; a walk fitted a 30 µF part and read 15 µF, saved without a question).
+    new_capacitor_days: int = 90
+    new_capacitor_low_share: float = 0.75
     # Capacitor current under 5 % of the supply voltage while current flows: short circuit (trade).
     short_circuit_fraction: float = 0.05
     # Off the fitted trend by more than this fraction of the rating: confirm or re-measure (trade).
@@ -602,7 +607,7 @@ def capacitance_low_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RU
             _messages(
                 slip,
                 "{c} µF is about a tenth of the rated {r} µF: the decimal point one place off ({uf} µF)? Correct "
-                "it, or confirm the value if the meter shows {c} µF (the capacitor has then failed)",
+                "it, or confirm the value if the meter shows {c} µF (it is then far below its limit: replace it)",
                 plain=("c", "uf", "r"),
                 c=c,
                 uf=c * rules.decimal_slip_factor,
@@ -1114,6 +1119,31 @@ def _check_readings(
         # read across the capacitor (the meter's field is not in use, nor shown on the form).
         confirm.add("capacitance_uf", drift & ~in_circuit, drift_words)
         confirm.add("capacitor_voltage_v", drift & in_circuit, drift_words)
+    no_trend = np.full(n, True) if predicted_uf is None else np.isnan(_column(predicted_uf, n))
+    taken_day = _column(taken_at, n, "datetime64[s]").astype("datetime64[D]")
+    fitted_day = _column(fitted_on, n, "datetime64[D]")
+    known = ~np.isnat(taken_day) & ~np.isnat(fitted_day)
+    days_in = np.where(known, (taken_day - fitted_day).astype("timedelta64[D]").astype(float), np.inf)
+    capacitance = values["capacitance_uf"]
+    low_new = (
+        no_trend
+        & (days_in <= rules.new_capacitor_days)
+        & (capacitance > 0)
+        & (capacitance < rules.new_capacitor_low_share * rated)
+        & ~errors.has("capacitance_uf")
+        & ~errors.has("capacitor_current_a")
+        & ~errors.has("capacitor_voltage_v")
+    )
+    low_new_words = _messages(
+        low_new,
+        "{c:.3g} µF on a capacitor fitted {d} and rated {r:g} µF: far below any new capacitor's tolerance. Is the "
+        "right part fitted (check its marking) or was it misread? Re-measure, or confirm the value if it is right",
+        c=capacitance,
+        d=fitted_day,
+        r=rated,
+    )
+    confirm.add("capacitance_uf", low_new & ~in_circuit, low_new_words)
+    confirm.add("capacitor_voltage_v", low_new & in_circuit, low_new_words)
     confirmed = _column(confirmed, n, bool)
     kept_confirm = {name: np.where(confirmed, "", m) for name, m in confirm.by_field.items()}
     asked = np.logical_or.reduce([*confirm.flagged.values(), np.zeros(n, bool)])

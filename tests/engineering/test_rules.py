@@ -331,3 +331,22 @@ def test_a_line_voltage_under_half_the_motors_asks_whether_a_thousands_separator
     assert words[3].startswith("100 V is under half")
     kept = check({"capacitance_uf": ["3.9"], "line_voltage_v": ["1,200"]}, confirmed=True)
     assert not kept.needs_confirmation.any() and kept.values["line_voltage_v"][0] == 1.2
+
+
+def test_a_new_capacitor_read_far_below_its_rating_asks_whether_the_right_part_is_fitted():
+    """A walk fitted a 30 uF run capacitor and logged 15 uF as its first reading: saved without a question.
+    [IEC 60252-1 tolerance classes: no new capacitor is marked below -10 % (a start part's range, -0 %); from
+    memory, unverified] ours: within 90 days of fitting and without a trend, under 75 % of the rating asks to
+    confirm; 3.5 of 4 uF is judged as read; a capacitor fitted years ago, or one with a trend, is not asked
+    this (its trend rule asks instead); confirmed, the value is kept."""
+    fitted = np.datetime64("2026-04-20", "D")
+    taken = np.array(["2026-05-01T09:00"] * 3, "datetime64[s]")
+    result = check({"capacitance_uf": ["2", "3.5", "2"]}, taken_at=taken, fitted_on=fitted)
+    words = result.confirm["capacitance_uf"]
+    assert words[0].startswith("2 µF on a capacitor fitted 2026-04-20 and rated 4 µF: far below")
+    assert words[1] == "" and words[2].startswith("2 µF on a capacitor fitted")
+    assert check({"capacitance_uf": ["2"]}).confirm["capacitance_uf"][0] == ""  # fitted 2022-01-01
+    trend = check({"capacitance_uf": ["2"]}, taken_at=taken[:1], fitted_on=fitted, predicted_uf=2.05)
+    assert "fitted 2026-04-20" not in trend.confirm.get("capacitance_uf", [""])[0]
+    kept = check({"capacitance_uf": ["2"]}, taken_at=taken[:1], fitted_on=fitted, confirmed=True)
+    assert not kept.needs_confirmation.any() and kept.values["capacitance_uf"][0] == 2.0
