@@ -677,16 +677,28 @@ def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
         return np.isfinite(predicted) & (np.abs(c - predicted) > threshold_fraction * np.asarray(rated_uf, float))
 
 
-def trend_value_held_to(capacitance_now_uf, fitted_through, taken_at) -> np.ndarray:
+def trend_slope_uf_per_hour(slope_pct_per_1000h, stress_rate, rated_uf) -> np.ndarray:
+    """An assessment's slope (% of rated per 1000 stress-hours, at its newest reading) in µF per calendar hour at
+    its long-run stress rate; 0 where either is unknown (no trend: the value stays)."""
+    slope = np.asarray(slope_pct_per_1000h, float) / 1e5 * np.asarray(rated_uf, float)
+    return np.nan_to_num(slope * np.asarray(stress_rate, float), nan=0.0)
+
+
+def trend_value_held_to(capacitance_now_uf, fitted_through, taken_at, slope_uf_per_hour=0.0) -> np.ndarray:
     """Per reading, the trend value `off_trend` holds it to (`predicted_uf`): its capacitor's current assessment's
-    capacitance now, the trend at the newest reading it used (`fitted_through`, datetime64 UTC), for a reading
-    taken after that one; nan for a reading taken at or before it (the trend's value then is not stored, so a
-    back-filled reading or a readings export imported again is not held to today's value) or without an
-    assessment (NaT). One rule for the reading form, the API, the admin and the import."""
+    capacitance now, the trend at the newest reading it used (`fitted_through`, datetime64 UTC), carried on to
+    the reading's time along the trend's slope there (`slope_uf_per_hour` in calendar hours: the assessment's
+    slope times its long-run stress rate), for a reading taken after that one; nan for a reading taken at or
+    before it (the trend's value then is not stored, so a back-filled reading or a readings export imported
+    again is not held to today's value) or without an assessment (NaT). A year after the newest reading the
+    trend has moved on: held to its old value, the reading a "read again" order asked for was called far off the
+    trend the order said had reached its limit. One rule for the reading form, the API, the admin and the import."""
     now_uf = np.atleast_1d(np.asarray(capacitance_now_uf, float))
     through = np.atleast_1d(np.asarray(fitted_through, "datetime64[s]"))
     taken = np.atleast_1d(np.asarray(taken_at, "datetime64[s]"))
-    return np.where(taken > through, now_uf, np.nan)
+    hours = (taken - through).astype("timedelta64[s]").astype(float) / 3600.0
+    slope = np.nan_to_num(np.atleast_1d(np.asarray(slope_uf_per_hour, float)), nan=0.0)
+    return np.where(taken > through, now_uf + slope * np.where(taken > through, hours, 0.0), np.nan)
 
 
 def _as_objects(raw, n: int | None = None) -> pd.Series:

@@ -24,6 +24,7 @@ from fleet.engineering.rules import (
     motor_problems,
     part_problems,
     service_date_problems,
+    trend_slope_uf_per_hour,
     trend_value_held_to,
 )
 from fleet.engineering.rules import check_readings as reading_rules
@@ -200,16 +201,24 @@ def _trend_values_held_to(fitted_capacitor_ids: pd.Series, taken_utc: np.ndarray
     current = (
         Assessment.objects.filter(is_current=True, fitted_capacitor_id__any_of=wanted)
         .order_by()
-        .values_list("fitted_capacitor_id", "capacitance_now_uf", "fitted_through")
+        .values_list(
+            "fitted_capacitor_id",
+            "capacitance_now_uf",
+            "fitted_through",
+            "slope_pct_per_1000h",
+            "stress_rate",
+            "fitted_capacitor__part__rated_uf",
+        )
     )
-    stored = pd.DataFrame.from_records(
-        list(current) if len(wanted) else [],
-        columns=["fitted_capacitor_id", "capacitance_now_uf", "fitted_through"],
-    ).set_index("fitted_capacitor_id")
-    of_row = stored.reindex(ids)
+    columns = ["fitted_capacitor_id", "capacitance_now_uf", "fitted_through", "slope", "stress_rate", "rated_uf"]
+    stored = pd.DataFrame.from_records(list(current) if len(wanted) else [], columns=columns)
+    of_row = stored.set_index("fitted_capacitor_id").reindex(ids)
     through = pd.to_datetime(of_row["fitted_through"], utc=True).dt.tz_localize(None)
+    slope = trend_slope_uf_per_hour(
+        of_row["slope"].to_numpy(float), of_row["stress_rate"].to_numpy(float), of_row["rated_uf"].to_numpy(float)
+    )
     return trend_value_held_to(
-        of_row["capacitance_now_uf"].to_numpy(float), through.to_numpy("datetime64[s]"), taken_utc
+        of_row["capacitance_now_uf"].to_numpy(float), through.to_numpy("datetime64[s]"), taken_utc, slope
     )
 
 

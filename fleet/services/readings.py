@@ -14,7 +14,13 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_update
-from fleet.engineering.rules import AFTER_REMOVAL, check_readings, parse_numbers, trend_value_held_to
+from fleet.engineering.rules import (
+    AFTER_REMOVAL,
+    check_readings,
+    parse_numbers,
+    trend_slope_uf_per_hour,
+    trend_value_held_to,
+)
 from fleet.engineering.substitutes import SUITABLE
 from fleet.imports.columns import local_days
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors, site_zone
@@ -103,6 +109,9 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
             assessment.capacitance_now_uf if assessment else np.nan,
             _utc64(assessment.fitted_through) if assessment else np.datetime64("NaT", "s"),
             _utc64(taken_at),
+            trend_slope_uf_per_hour(assessment.slope_pct_per_1000h, assessment.stress_rate, part.rated_uf)
+            if assessment
+            else 0.0,
         ),
         max_case_temperature_c=part.max_case_temperature_c,
         tolerance_plus_pct=part.tolerance_plus_pct,

@@ -3,6 +3,7 @@
 import datetime as dt
 
 import numpy as np
+import pytest
 
 from fleet.engineering.planning import (
     EVIDENCE_DEFECT,
@@ -72,6 +73,22 @@ def test_a_reading_is_held_to_the_trend_now_only_when_taken_after_its_newest_rea
     taken = np.array(["2025-09-01T09:00", "2025-06-01T09:00", "2024-01-01T09:00", "2025-09-01T09:00"], "datetime64[s]")
     held = trend_value_held_to([11.9, 11.9, 11.9, np.nan], through, taken)
     assert held[0] == 11.9 and np.isnan(held[1:]).all()
+
+
+def test_a_reading_a_year_on_is_held_to_the_trend_carried_to_its_day():
+    """A walk read a start capacitor for its "read again" order at 126.5 uF and was told it was far from "the
+    trend (138.11 uF)", the trend's value at its newest reading a year before, which the order itself said had
+    reached 129.99. [derived] the value carried along the stored slope: -1.0 % of rated per 1000 stress-hours at
+    0.5 stress-hours an hour, 143 uF rated, over 8,760 hours: 138.11 - 0.01 x 143 / 1000 x 0.5 x 8760 = 131.85
+    uF; with no slope known (no trend) the value stays."""
+    from fleet.engineering.rules import off_trend, trend_slope_uf_per_hour
+
+    through = np.array(["2025-12-01T09:00", "2025-12-01T09:00"], "datetime64[s]")
+    taken = through + np.timedelta64(8760 * 3600, "s")
+    slope = trend_slope_uf_per_hour(np.array([-1.0, np.nan]), np.array([0.5, 0.5]), 143.0)
+    held = trend_value_held_to([138.11, 138.11], through, taken, slope)
+    assert held[0] == pytest.approx(138.11 - 0.01 * 143 / 1000 * 0.5 * 8760) and held[1] == 138.11
+    assert not off_trend([126.5], held[:1], 143.0)[0] and off_trend([126.5], held[1:], 143.0)[0]
 
 
 def _judge(
