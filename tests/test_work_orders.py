@@ -580,3 +580,23 @@ def test_a_move_made_off_a_day_off_stays_when_the_day_off_goes(planner):
     counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
     assert set(WorkOrder.objects.values_list("due_on", "moved_from")) == {(tuesday, wednesday)}
     assert (counts["replanned"], counts["kept_moved"]) == (0, 2)
+
+
+def test_a_visit_moved_back_onto_a_working_day_keeps_the_window_it_opened_with(planner):
+    """A walk: a new order sat in a Wednesday visit marked "plan now: due soon, replace by" the Thursday 15 days on,
+    by the plan run that made it. The visit had opened on Thursday 12-31 (a day off at that site) and moved back
+    to Wednesday 12-30, taking what fell due within 14 days of Thursday; its orders' window counted from
+    Wednesday. [derived] an order's window reaches over the days off work right after its day (here Thursday), so
+    nothing the plan put in the visit is marked as no longer asked for there."""
+    from fleet.services.workorders import add_day_off, open_visits_page
+
+    site = make_site(code="SHIFT")
+    thursday = dt.date(2026, 12, 31)
+    add_day_off(site_id=site.id, day=thursday, name="shutdown", today=MONDAY)
+    _due(site, thursday, 1)
+    _due(site, thursday + dt.timedelta(days=14), 1)
+    plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    orders = list(WorkOrder.objects.all())
+    assert {o.due_on for o in orders} == {thursday - dt.timedelta(days=1)}
+    visit = open_visits_page(1, user=planner).object_list[0]
+    assert [o.plan_now for o in visit["orders"]] == ["", ""]

@@ -426,7 +426,10 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
     capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
     where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule.
     An order the planner moved earlier is judged from the day the plan gave it (`moved_from`): the plan
-    dates it there, and replacing before its date is no reason to cancel it."""
+    dates it there, and replacing before its date is no reason to cancel it. Its window reaches over the days
+    off work right after that day (a weekend, the site's days off): a visit the plan opened on one of them went
+    back to the working day before with what fell due within the window of the day it opened (a walk found an
+    order marked "plan now" by the plan run that made it)."""
     orders = list(orders)
     if not orders:
         return orders
@@ -435,9 +438,20 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
     def days(day):
         return np.inf if day is None else (day - today).days
 
+    planned_on = [max(o.due_on, o.moved_from or o.due_on) for o in orders]
+    off = days_off_by_site({o.site_id for o in orders}, min(planned_on))
+    weekmask = PlanningSettings().working_days
+    next_working = [
+        np.busday_offset(day, 1, roll="forward", weekmask=weekmask, holidays=sorted(off.get(o.site_id, ())))
+        for o, day in zip(orders, planned_on, strict=True)
+    ]
+    days_off_after = [
+        int((np.datetime64(n, "D") - np.datetime64(d, "D")).astype(int)) - 1
+        for n, d in zip(next_working, planned_on, strict=True)
+    ]
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o in orders],
-        order_due_days=[days(max(o.due_on, o.moved_from or o.due_on)) for o in orders],
+        order_due_days=[days(d) + slack for d, slack in zip(planned_on, days_off_after, strict=True)],
         window_days=[o.window_days for o in orders],
         plan_risk=[o.plan_risk or "" for o in orders],
         plan_read_again=[bool(o.plan_read_again) for o in orders],
