@@ -735,7 +735,9 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
 
     run("sites", write(tmp_path, "sites.csv", SITES))
     today = timezone.localdate()
-    soon, later = today + dt.timedelta(days=20), today + dt.timedelta(days=40)
+    monday = today + dt.timedelta(days=7 - today.weekday())  # working days, whatever today is
+    soon, later = monday + dt.timedelta(days=14), monday + dt.timedelta(days=35)
+    saturday = today + dt.timedelta(days=(5 - today.weekday()) % 7 + 7)
     text = (
         "site_code,day,name\n"
         f"PK,{soon},harvest shutdown\n"
@@ -745,6 +747,7 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
         f"PK,{today - dt.timedelta(days=1)},yesterday\n"
         f"PK,{today + dt.timedelta(days=800)},far\n"
         f"PK,{later.strftime('%d/%m/%Y')},day first\n"
+        f"PK,{saturday},a Saturday\n"
         f"CS,{later},   \n"
     )
     path = write(tmp_path, "days.csv", text)
@@ -752,14 +755,15 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
         run("days_off", path)  # all or nothing: nothing in
     assert not SiteDayOff.objects.exists()
     report = run("days_off", path, "--good-rows-only")
-    assert "8 rows: 2 good, 0 already imported, 6 with problems." in report
+    assert "9 rows: 2 good, 0 already imported, 7 with problems." in report
     for row, field, words in (
         (4, "day", "the same site and day as row 2"),
         (5, "site_code", "unknown site code XX: add the site first"),
         (6, "day", "in the past"),
         (7, "day", "past the plan's reach"),
-        (8, "day", "not a date"),
-        (9, "name", "required"),
+        (8, "day", "not a day of the calendar"),
+        (9, "day", "not a working day"),
+        (10, "name", "required"),
     ):
         assert f"row {row}, {field}: {words}" in report, (row, field)
     assert set(SiteDayOff.objects.values_list("site__code", "day", "name")) == {

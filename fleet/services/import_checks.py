@@ -13,7 +13,7 @@ import pandas as pd
 from django.conf import settings
 from django.utils import timezone
 
-from fleet.engineering.planning import PLAN_HORIZON_DAYS
+from fleet.engineering.planning import PLAN_HORIZON_DAYS, PlanningSettings
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
@@ -686,7 +686,7 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ~frame["site_code"].isin(sites), "site_code", _unknown("site code", frame["site_code"], "add the site first")
     )
     day = parse_dates(frame["day"])
-    problems.add(day.isna().to_numpy(), "day", "not a date: give it as year-month-day, e.g. 2027-03-29")
+    problems.add(day.isna().to_numpy(), "day", "not a day of the calendar: give it as year-month-day, e.g. 2027-03-29")
     today = timezone.localdate()
     furthest = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
     problems.add((day < pd.Timestamp(today)).to_numpy(), "day", "in the past: days off guide the plan from today on")
@@ -695,6 +695,9 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         "day",
         f"past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest.isoformat()}): import it later",
     )
+    working = np.array([flag == "1" for flag in PlanningSettings().working_days])
+    weekend = day.notna().to_numpy() & ~working[day.dt.day_of_week.fillna(0).astype(int).to_numpy()]
+    problems.add(weekend, "day", "not a working day: no visit falls on it anyway")
     keys = frame["site_code"] + " " + day.dt.strftime("%Y-%m-%d").fillna("")
     repeated_in_file(problems, keys.where(day.notna()), "day", "the same site and day")
     stored = {

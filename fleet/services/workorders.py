@@ -636,6 +636,7 @@ def add_day_off(*, site_id: int, day: dt.date | None, name: str, today: dt.date 
     name = (name or "").strip()
     errors = {}
     furthest = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
+    working = PlanningSettings().working_days
     if day is None:
         errors["day"] = "Enter the day off, e.g. 2026-12-25."
     elif day < today:
@@ -644,6 +645,8 @@ def add_day_off(*, site_id: int, day: dt.date | None, name: str, today: dt.date 
         errors["day"] = (
             f"{day.isoformat()} is past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest}): add it later."
         )
+    elif working[day.weekday()] != "1":
+        errors["day"] = f"{day:%A %Y-%m-%d} is not a working day: no visit falls on it anyway."
     if not name:
         errors["name"] = "Say what the day is, e.g. 'public holiday' or 'shutdown'."
     elif len(name) > SiteDayOff._meta.get_field("name").max_length:
