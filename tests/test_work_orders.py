@@ -600,3 +600,23 @@ def test_a_visit_moved_back_onto_a_working_day_keeps_the_window_it_opened_with(p
     assert {o.due_on for o in orders} == {thursday - dt.timedelta(days=1)}
     visit = open_visits_page(1, user=planner).object_list[0]
     assert [o.plan_now for o in visit["orders"]] == ["", ""]
+
+
+def test_the_address_of_a_visit_a_new_plan_re_dated_leads_to_its_new_day(client, planner):
+    """A walk: once a plan re-dated a visit's orders, its bookmarked or printed address answered "nothing here"
+    (a planner's move led on; the plan's re-dating left no `moved_from`). Ours: the audit trail's entry that took
+    an order off that day leads to the day it is on now, saying by which plan."""
+    site = make_site(code="REDATE")
+    capacitors = _due(site, MONDAY + dt.timedelta(days=10), 2)  # Thu 12-17
+    client.force_login(planner)
+    client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
+    first = WorkOrder.objects.first().due_on
+    for capacitor in capacitors:
+        stored_assessment(capacitor, "due soon", first + dt.timedelta(days=21))
+    client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
+    now_on = WorkOrder.objects.first().due_on
+    assert now_on != first and set(WorkOrder.objects.values_list("moved_from", flat=True)) == {None}
+    answer = client.get(reverse("visit_sheet", args=[site.code, first.isoformat()]), follow=True)
+    assert answer.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, now_on.isoformat()])
+    said = " ".join(str(m) for m in answer.context["messages"])
+    assert f"was moved to {now_on:%a %Y-%m-%d} by a new plan run by {planner.username}" in said, said

@@ -363,7 +363,7 @@ def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool
         if moved_from == due_on:
             plan_day.append(day)
     if not moved:
-        return None
+        return _redated_to(site_id, due_on, user, closed_too=closed_too)
     entries = AuditEntry.objects.filter(
         model=WorkOrder._meta.label_lower,
         object_id__in=[str(pk) for pk in moved],
@@ -381,6 +381,38 @@ def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool
             )
     if plan_day:
         return VisitMove(moved=0, to_day=plan_day[0], already=True, by="a planner", at="an earlier day")
+    return _redated_to(site_id, due_on, user, closed_too=closed_too)
+
+
+def _redated_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool = False) -> VisitMove | None:
+    """Where a new plan re-dated the orders of a visit on `due_on` (no planner moved them: the plan's own
+    re-dating, which keeps no `moved_from`), from the audit trail's newest entries that took an order off that
+    day (a bookmarked or printed visit address answered "nothing here"); None where none did. Two queries: the
+    entries (a few dozen newest), then the open orders of the site among them."""
+    entries = list(
+        AuditEntry.objects.filter(
+            model=WorkOrder._meta.label_lower,
+            action=AuditEntry.Action.UPDATE,
+            changes__due_on__0=due_on.isoformat(),
+        )
+        .order_by("-at", "-id")
+        .values_list("object_id", "username", "at")[:50]
+    )
+    if not entries:
+        return None
+    orders = (scope_to_user(WorkOrder.objects.all(), user) if closed_too else open_orders(user)).filter(
+        site_id__in=storable_ids([site_id]), pk__in=[int(object_id) for object_id, _, _ in entries]
+    )
+    now_on = dict(orders.exclude(due_on=due_on).values_list("pk", "due_on"))
+    for object_id, username, at in entries:
+        if int(object_id) in now_on:
+            return VisitMove(
+                moved=0,
+                to_day=now_on[int(object_id)],
+                already=True,
+                by=f"a new plan run by {username}" if username else "a new plan",
+                at=timezone.localtime(at).strftime("%Y-%m-%d %H:%M"),
+            )
     return None
 
 
