@@ -284,9 +284,11 @@ def judge(
             + ")",
             "trend reaches " + limit_words + " no sooner than " + _month(today, days[0]) + " (likely " + likely + ")",
         ],
-        default="trend may already have reached "
+        # The early crossing has passed and the likely one is ahead: said as such (a walk read "may already have
+        # reached ... (likely 2027-01)": a future date for what was said to have perhaps happened).
+        default="the trend's early crossing of "
         + limit_words
-        + " (likely "
+        + " has passed (likely crossing "
         + likely
         + np.where(late != "", ", at the latest " + late, "")
         + "): read it again",

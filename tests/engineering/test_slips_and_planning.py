@@ -162,7 +162,8 @@ def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
     result = _judge([0.0, 0.0], [300.0, 0.0])
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
     assert result.due_days.tolist() == [7.0, 7.0]  # no defect seen: a week's notice for spares and the visit
-    assert result.reason[0].startswith("trend may already have reached the tolerance limit")
+    assert result.reason[0].startswith("the trend's early crossing of the tolerance limit")
+    assert "has passed (likely crossing " in result.reason[0] and result.reason[0].endswith("read it again")
 
 
 def test_a_reading_since_the_early_crossing_settles_read_again():
