@@ -619,6 +619,23 @@ def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime |
     return listed(Q(rank_now__lt=F("rank_was"))), listed(Q(rank_now__gt=F("rank_was"))), counts
 
 
+def first_assessed_due(days: int = 7, limit: int = 50, user=None, site: Site | None = None):
+    """Capacitors in service first assessed in the last `days` whose first level already asks for work (replace
+    now or due soon: a new capacitor's first reading far below its rating), soonest replacement first: (rows, how
+    many). `risk_changes` only counts first assessments (there is no level to compare with): a walk found two
+    new "replace now" capacitors on the plan inside that count, not listed. Two queries."""
+    since = timezone.now() - dt.timedelta(days=days)
+    fresh = in_service_assessments(user).filter(risk_changed_at__gte=since, risk_was="", risk__in=RISK_ORDER[:2])
+    if site is not None:
+        fresh = fresh.filter(site=site)
+    rows = (
+        fresh.defer(*LIST_DEFERRED)
+        .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
+        .order_by("replace_by", "fitted_capacitor_id")[:limit]
+    )
+    return list(rows), fresh.count()
+
+
 def alert_level_words() -> str:
     """The crossing quantile the risk level and the replace-by date follow, per dielectric, in words:
     "P50 for metallised film (run), P10 for aluminium electrolytic (start)"; P10 before any back-test."""

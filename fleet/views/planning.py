@@ -85,9 +85,11 @@ def plan(request):
     }
     worse, better, changes = pages.risk_changes(days=7, limit=PLAN_CHANGES_SHOWN, user=request.user, site=site)
     context["changes"] = changes
+    fresh, fresh_count = pages.first_assessed_due(limit=PLAN_CHANGES_SHOWN, user=request.user, site=site)
     context["change_lists"] = [
         {"id": "risk-worse", "title": "Riskier", "rows": list(worse), "count": changes["worse"]},
         {"id": "risk-better", "title": "Less risky", "rows": list(better), "count": changes["better"]},
+        {"id": "first-due", "title": "New, already due", "rows": fresh, "count": fresh_count},
     ]
     return render(request, "fleet/plan.html", context)
 
