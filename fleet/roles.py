@@ -108,7 +108,10 @@ def refused(user, permission: str):
     ask for what)."""
     from django.core.exceptions import PermissionDenied
 
-    return PermissionDenied(permission_words(user, [permission]))
+    words = permission_words(user, [permission])
+    if permission == "fleet.add_reading" and user.has_perm("fleet.import_readings"):
+        words += " Your role brings readings in by file: Import, in the menu."
+    return PermissionDenied(words)
 
 
 def needs_permission(permission: str):

@@ -18,6 +18,9 @@ def test_a_refused_page_says_why_and_leads_back(client):
     # The page names who may, as the API does ("Not allowed for your role" said nothing of whom to ask for what).
     assert "needs the technician role (or administrator); your roles: planner." in body, body
     assert "ask an administrator to add the role" in body and reverse("home") in body
+    # A planner refused one reading is pointed to the way the role brings readings in (a walk looked for it).
+    refused = client.get(reverse("reading_new", args=[fitted_capacitor.id])).content.decode()
+    assert "Your role brings readings in by file: Import, in the menu." in refused
 
 
 @pytest.mark.django_db
