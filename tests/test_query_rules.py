@@ -339,3 +339,24 @@ def test_an_admin_list_refuses_a_year_outside_the_accepted_span_instead_of_a_ser
     client.force_login(user)
     assert client.get(address).status_code == 400
     assert client.get(address.split("?")[0] + "?" + address.split("?")[1].split("=")[0] + "=2026").status_code == 200
+
+
+def test_the_other_pages_name_a_parameter_they_do_not_take_too(client, administrator, two_sites):
+    """A second walk: find, route, track record, motor and capacitor pages still took an unknown parameter in
+    silence (`/find/?q=...`, the find box's parameter being `tag`). Ours: one decorator, the lists' rule."""
+    from fleet.models import FittedCapacitor
+
+    client.force_login(administrator)
+    capacitor = FittedCapacitor.objects.select_related("motor").first()
+    for url in (
+        reverse("find") + "?q=0093",
+        reverse("route", args=["CST"]) + "?foo=1",
+        reverse("labels", args=["CST"]) + "?foo=1",
+        reverse("track_record") + "?x=1",
+        reverse("motor", args=[capacitor.motor.asset_tag]) + "?foo=1",
+        reverse("fitted_capacitor", args=[capacitor.id]) + "?foo=1",
+        reverse("life_data") + "?foo=1",
+    ):
+        response = client.get(url)
+        notes = [str(m) for m in response.context["messages"]]
+        assert response.status_code == 200 and any("Not a parameter of this page" in n for n in notes), (url, notes)

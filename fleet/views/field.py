@@ -18,7 +18,15 @@ from django.utils.html import conditional_escape
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
-from fleet.filters import LabelsPage, RoutePage, list_page, named_if_repeated, page_values, query_value
+from fleet.filters import (
+    LabelsPage,
+    RoutePage,
+    list_page,
+    named_if_repeated,
+    page_values,
+    query_value,
+    takes_parameters,
+)
 from fleet.forms import ReadingForm, ReplacementForm
 from fleet.models import CapacitorPart, Motor
 from fleet.roles import needs_permission, refused
@@ -37,6 +45,7 @@ from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, wors
 
 
 @needs_permission("fleet.add_reading")
+@takes_parameters("corrects")
 def reading_new(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     needs_confirmation = False
@@ -198,6 +207,7 @@ LABELS_PAGE_SIZE = 24  # labels a page prints: one sheet of 3 x 8
 
 @needs_permission("fleet.view_motor")
 @site_in_any_case
+@takes_parameters("show", "page")
 def site_route(request, site):
     order_errors, typed = {}, {}
     if request.method == "POST":
@@ -248,6 +258,7 @@ def _qr_svg(request, motor: Motor) -> str:
 
 @needs_permission("fleet.view_motor")
 @site_in_any_case
+@takes_parameters("tag", "page")
 def labels(request, site):
     tag = page_values(LabelsPage, request).get("tag")
     page = list_page(request, Paginator(pages.label_motors(site, tag), LABELS_PAGE_SIZE).get_page)

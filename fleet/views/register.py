@@ -10,7 +10,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.capacitor import stored_energy_j
-from fleet.filters import named_if_repeated, query_value
+from fleet.filters import named_if_repeated, query_value, takes_parameters
 from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import needs_permission, scope_to_user
@@ -30,6 +30,7 @@ def home(request):
 
 
 @needs_permission("fleet.view_motor")
+@takes_parameters("tag")
 def find_motor(request):
     # An empty or repeated tag is not a search: the empty box, as on a first visit.
     repeated = named_if_repeated(request, ["tag"])
@@ -50,6 +51,7 @@ def find_motor(request):
 
 
 @needs_permission("fleet.view_motor")
+@takes_parameters("saved")  # ?saved=<capacitor>: the reading form's draft to drop
 def motor_detail(request, asset_tag):
     try:
         motor = pages.motor_with_capacitors(asset_tag)
@@ -111,6 +113,7 @@ def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:
 
 
 @needs_permission("fleet.view_fittedcapacitor")
+@takes_parameters()
 def fitted_capacitor_detail(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()

@@ -12,7 +12,7 @@ from django.views.decorators.http import require_POST
 
 from fleet.charts import cost_curve_figure, weibull_plot_figure
 from fleet.exports import parquet_file, stream_csv, xlsx_file
-from fleet.filters import BadFilter, LifeDataPage, page_parameters, refused_download
+from fleet.filters import BadFilter, LifeDataPage, page_parameters, refused_download, takes_parameters
 from fleet.models import Backtest, CapacitorPart, RefitRun
 from fleet.roles import needs_permission, refused
 from fleet.services.exports import TABLES
@@ -111,6 +111,7 @@ LIFE_DATA_COSTS = {"planned_cost": 60.0, "failure_cost": 400.0}  # the page's de
 
 
 @needs_permission("fleet.view_fittedcapacitor")
+@takes_parameters("part", "planned_cost", "failure_cost")
 def life_data(request):
     """Weibull analysis of one part's capacitors; costs are the engineer's to set."""
     parts = CapacitorPart.objects.order_by("dielectric", "rated_uf", "code")  # START-98 before START-143
@@ -149,6 +150,7 @@ def life_data(request):
 
 
 @needs_permission("fleet.view_assessment")
+@takes_parameters()
 def track_record(request):
     return render(request, "fleet/track_record.html", track_record_figures())
 
