@@ -71,6 +71,27 @@ def visit_day_problem(
     return ""
 
 
+def day_off_problems(days, today: dt.date, weekmask: str | None = None) -> np.ndarray:
+    """Why each of `days` (datetime64[D]; NaT: no problem named here) cannot be stored as a site's day off, in words
+    without the day itself ("" where it can): the one rule of the days-off page and the days-off import. A day
+    before `today` or past the plan's reach guides no plan; a day off work (`weekmask`) has no visit anyway."""
+    weekmask = PlanningSettings.working_days if weekmask is None else weekmask
+    day = np.atleast_1d(np.asarray(days, "datetime64[D]"))
+    base = np.datetime64(today, "D")
+    furthest = base + np.timedelta64(PLAN_HORIZON_DAYS[1], "D")
+    known = ~np.isnat(day)
+    working = np.is_busday(np.where(known, day, base), weekmask=weekmask)
+    return np.select(
+        [known & (day < base), known & (day > furthest), known & ~working],
+        [
+            "in the past: days off guide the plan from today on",
+            f"past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest}): add it later",
+            "not a working day: no visit falls on it anyway",
+        ],
+        default="",
+    ).astype(object)
+
+
 def working_days_near(
     day: dt.date,
     today: dt.date,

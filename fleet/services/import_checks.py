@@ -13,7 +13,7 @@ import pandas as pd
 from django.conf import settings
 from django.utils import timezone
 
-from fleet.engineering.planning import PLAN_HORIZON_DAYS, PlanningSettings
+from fleet.engineering.planning import PlanningSettings, day_off_problems
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     UNDER_VOLTAGE_WORDS,
@@ -688,16 +688,8 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     day = parse_dates(frame["day"])
     problems.add(day.isna().to_numpy(), "day", "not a day of the calendar: give it as year-month-day, e.g. 2027-03-29")
     today = timezone.localdate()
-    furthest = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
-    problems.add((day < pd.Timestamp(today)).to_numpy(), "day", "in the past: days off guide the plan from today on")
-    problems.add(
-        (day > pd.Timestamp(furthest)).to_numpy(),
-        "day",
-        f"past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest.isoformat()}): import it later",
-    )
-    working = np.array([flag == "1" for flag in PlanningSettings().working_days])
-    weekend = day.notna().to_numpy() & ~working[day.dt.day_of_week.fillna(0).astype(int).to_numpy()]
-    problems.add(weekend, "day", "not a working day: no visit falls on it anyway")
+    said = day_off_problems(day.to_numpy("datetime64[D]"), today, PlanningSettings().working_days)
+    problems.add(said != "", "day", said)
     keys = frame["site_code"] + " " + day.dt.strftime("%Y-%m-%d").fillna("")
     repeated_in_file(problems, keys.where(day.notna()), "day", "the same site and day")
     stored = {

@@ -22,6 +22,7 @@ from fleet.engineering.planning import (
     WORK_ORDER_MAX_WINDOW_DAYS,
     PlanningSettings,
     bundle_visits,
+    day_off_problems,
     plan_moved_words,
     visit_day_problem,
     working_days_near,
@@ -667,18 +668,10 @@ def add_day_off(*, site_id: int, day: dt.date | None, name: str, today: dt.date 
     today = today or timezone.localdate()
     name = (name or "").strip()
     errors = {}
-    furthest = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
-    working = PlanningSettings().working_days
     if day is None:
         errors["day"] = "Enter the day off, e.g. 2026-12-25."
-    elif day < today:
-        errors["day"] = f"{day.isoformat()} is in the past: days off guide the plan from today on."
-    elif day > furthest:
-        errors["day"] = (
-            f"{day.isoformat()} is past the plan's reach ({PLAN_HORIZON_DAYS[1]} days, to {furthest}): add it later."
-        )
-    elif working[day.weekday()] != "1":
-        errors["day"] = f"{day:%A %Y-%m-%d} is not a working day: no visit falls on it anyway."
+    elif problem := day_off_problems([day], today, PlanningSettings().working_days)[0]:
+        errors["day"] = f"{day:%A %Y-%m-%d}: {problem}."
     if not name:
         errors["name"] = "Say what the day is, e.g. 'public holiday' or 'shutdown'."
     elif len(name) > SiteDayOff._meta.get_field("name").max_length:

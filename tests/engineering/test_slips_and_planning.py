@@ -326,3 +326,21 @@ def test_visits_skip_a_sites_days_off():
     assert visit_day_problem(dt.date(2026, 12, 28), today) == ""  # no days off given: a Monday
     offered = working_days_near(dt.date(2026, 12, 25), today, before=2, after=2, days_off=off)
     assert offered == [dt.date(2026, 12, 23), dt.date(2026, 12, 24), dt.date(2026, 12, 29), dt.date(2026, 12, 30)]
+
+
+def test_a_day_off_is_a_working_day_from_today_within_the_plans_reach():
+    """[derived] One rule for the days-off page and the import: 2026-12-02 (yesterday) is past, 2026-12-05 a
+    Saturday (Python's calendar: date.weekday() == 5), 730 days on is the last one taken, a day more is not;
+    NaT is left to the date check that named it."""
+    from fleet.engineering.planning import PLAN_HORIZON_DAYS, day_off_problems
+
+    today = dt.date(2026, 12, 3)
+    last = today + dt.timedelta(days=PLAN_HORIZON_DAYS[1])
+    while last.weekday() >= 5:
+        last -= dt.timedelta(days=1)
+    assert dt.date(2026, 12, 5).weekday() == 5
+    days = np.array(["2026-12-02", "2026-12-05", "2026-12-04", last.isoformat(), "2028-12-05", "NaT"], "datetime64[D]")
+    said = day_off_problems(days, today)
+    assert said[0].startswith("in the past") and said[1].startswith("not a working day")
+    assert said[2] == "" and said[3] == "" and said[5] == ""
+    assert said[4].startswith("past the plan's reach (730 days, to 2028-12-02)")
