@@ -472,19 +472,20 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
         return np.inf if day is None else (day - today).days
 
     planned_on = [max(o.due_on, o.moved_from or o.due_on) for o in orders]
-    off = days_off_by_site({o.site_id for o in orders}, min(planned_on))
+    planned_day = np.array(planned_on, "datetime64[D]")
+    site = np.array([o.site_id for o in orders])
+    off = days_off_by_site(set(site.tolist()), min(planned_on))
     weekmask = PlanningSettings().working_days
-    next_working = [
-        np.busday_offset(day, 1, roll="forward", weekmask=weekmask, holidays=sorted(off.get(o.site_id, ())))
-        for o, day in zip(orders, planned_on, strict=True)
-    ]
-    days_off_after = [
-        int((np.datetime64(n, "D") - np.datetime64(d, "D")).astype(int)) - 1
-        for n, d in zip(next_working, planned_on, strict=True)
-    ]
+    next_working = np.busday_offset(planned_day, 1, roll="forward", weekmask=weekmask)
+    for site_id, held in off.items():  # a loop over the few sites with days off, not over orders
+        here = site == site_id
+        next_working[here] = np.busday_offset(
+            planned_day[here], 1, roll="forward", weekmask=weekmask, holidays=sorted(held)
+        )
+    days_off_after = (next_working - planned_day).astype(int) - 1
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o in orders],
-        order_due_days=[days(d) + slack for d, slack in zip(planned_on, days_off_after, strict=True)],
+        order_due_days=[days(d) + int(slack) for d, slack in zip(planned_on, days_off_after, strict=True)],
         window_days=[o.window_days for o in orders],
         plan_risk=[o.plan_risk or "" for o in orders],
         plan_read_again=[bool(o.plan_read_again) for o in orders],
