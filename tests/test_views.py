@@ -2,6 +2,7 @@
 
 import datetime as dt
 import html
+import io
 import re
 
 import pytest
@@ -768,3 +769,28 @@ def test_the_plan_lists_the_weeks_riskier_and_less_risky_capacitors_each_labelle
     assert "Less risky: 1" in less_risky and "the first" not in less_risky
     assert moved["better"][0] in less_risky and "better on the reading of this week" in less_risky
     assert not any(tag in less_risky for tag in moved["worse"])
+
+
+def test_a_label_sheet_printed_again_encodes_no_qr_code_anew(signed_in, technician, fan_fitted_capacitor, monkeypatch):
+    """Encoding a QR code takes about 10 ms (the mask chosen of eight, as ISO/IEC 18004 asks), so a sheet
+    of labels encodes each motor's address once per process: the second view of a sheet encodes none and
+    shows the same code, the one segno makes of the motor's address (the page's link, as a phone reads it)."""
+    import segno
+
+    from fleet.views import field
+
+    field.qr_svg.cache_clear()
+    made = []
+    real_make = segno.make
+    monkeypatch.setattr(segno, "make", lambda *args, **kwargs: made.append(args[0]) or real_make(*args, **kwargs))
+    client = signed_in(technician)
+    url = reverse("labels", args=[fan_fitted_capacitor.motor.site.code])
+    first = client.get(url).content.decode()
+    address = "http://testserver" + reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag])
+    assert made == [address]
+    second = client.get(url).content.decode()
+    assert made == [address]
+    assert re.findall(r"<svg.*?</svg>", second, re.S) == re.findall(r"<svg.*?</svg>", first, re.S)
+    fresh = io.BytesIO()
+    real_make(address, error="m").save(fresh, kind="svg", scale=4, border=1, xmldecl=False, svgns=True)
+    assert fresh.getvalue().decode() in second
