@@ -19,7 +19,7 @@ of each page that took longer than 20 ms. The planner's pages are timed too: the
 four CSV downloads, a visit sheet, a site's stock, the stand-in parts and the life data of a part
 without and of one with a stored fit (the build
 adds spares at every site and each part's stored life fit for them; `--only WORD...` times the pages
-whose name holds a word). The latest figures, with the query plans that changed, are in the README
+whose name holds a word). The latest figures, with the query plans that changed, are in docs/benchmarks.md
 ("Page figures").
 
 Measured 2026-12-02 on the 2-core machine shared with other work (load average 10 to 15, so read
