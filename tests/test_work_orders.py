@@ -6,6 +6,7 @@ import re
 
 import pytest
 from django.core.exceptions import ValidationError
+from django.db import connection
 from django.template.loader import render_to_string
 from django.test import Client
 from django.urls import reverse
@@ -17,6 +18,7 @@ from fleet.services.workorders import (
     move_visit,
     open_visit,
     open_visits_page,
+    orders_taken_off,
     plan_work_orders,
 )
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, stored_assessment
@@ -620,3 +622,33 @@ def test_the_address_of_a_visit_a_new_plan_re_dated_leads_to_its_new_day(client,
     assert answer.redirect_chain[-1][0] == reverse("visit_sheet", args=[site.code, now_on.isoformat()])
     said = " ".join(str(m) for m in answer.context["messages"])
     assert f"was moved to {now_on:%a %Y-%m-%d} by a new plan run by {planner.username}" in said, said
+
+
+def test_the_updates_that_took_orders_off_a_day_are_found_by_an_index():
+    """A visit's old address asks the audit trail which updates took an order off its day; with a million
+    entries a scan took a second (measured 2026-12-04 on PostgreSQL). A partial expression index on the day
+    serves it (common practice of the trade, no single source: an index on the expression the query filters
+    by, PostgreSQL manual "Indexes on Expressions" and "Partial Indexes"). The database is told not to scan
+    the table, so the plan shows whether the index can serve the query at all; entries are written so the
+    answer is checked too."""
+    day = dt.date(2027, 3, 2)
+    for object_id, old, new in (("1", day, day + dt.timedelta(days=2)), ("2", day + dt.timedelta(days=1), day)):
+        AuditEntry.objects.create(
+            model="fleet.workorder",
+            object_id=object_id,
+            object_repr="order",
+            action=AuditEntry.Action.UPDATE,
+            changes={"due_on": [old.isoformat(), new.isoformat()]},
+        )
+    AuditEntry.objects.create(
+        model="fleet.motor",
+        object_id="1",
+        object_repr="motor",
+        action=AuditEntry.Action.UPDATE,
+        changes={"due_on": [day.isoformat(), "x"]},
+    )
+    assert list(orders_taken_off(day).values_list("object_id", flat=True)) == ["1"]
+    if connection.vendor == "postgresql":  # the plant-scale database; SQLite picks among indexes by its own rules
+        with connection.cursor() as cursor:
+            cursor.execute("SET LOCAL enable_seqscan = off")
+        assert "order_taken_off_day" in orders_taken_off(day).explain()

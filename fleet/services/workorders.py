@@ -385,20 +385,22 @@ def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool
     return _redated_to(site_id, due_on, user, closed_too=closed_too)
 
 
+def orders_taken_off(due_on: dt.date):
+    """The audit trail's updates that took a work order off `due_on`, newest first (index
+    `order_taken_off_day`)."""
+    return AuditEntry.objects.filter(
+        model=WorkOrder._meta.label_lower,
+        action=AuditEntry.Action.UPDATE,
+        changes__due_on__0=due_on.isoformat(),
+    ).order_by("-at", "-id")
+
+
 def _redated_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool = False) -> VisitMove | None:
     """Where a new plan re-dated the orders of a visit on `due_on` (no planner moved them: the plan's own
     re-dating, which keeps no `moved_from`), from the audit trail's newest entries that took an order off that
     day (a bookmarked or printed visit address answered "nothing here"); None where none did. Two queries: the
     entries (a few dozen newest), then the open orders of the site among them."""
-    entries = list(
-        AuditEntry.objects.filter(
-            model=WorkOrder._meta.label_lower,
-            action=AuditEntry.Action.UPDATE,
-            changes__due_on__0=due_on.isoformat(),
-        )
-        .order_by("-at", "-id")
-        .values_list("object_id", "username", "at")[:50]
-    )
+    entries = list(orders_taken_off(due_on).values_list("object_id", "username", "at")[:50])
     if not entries:
         return None
     orders = (scope_to_user(WorkOrder.objects.all(), user) if closed_too else open_orders(user)).filter(
