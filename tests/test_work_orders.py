@@ -139,6 +139,30 @@ def test_a_cancelled_order_is_ordered_again_for_a_later_visit(planner):
     assert WorkOrder.objects.get(state="planned").due_on > today + dt.timedelta(days=24)
 
 
+def test_a_cancel_on_a_moved_visit_before_days_off_holds_for_the_next_plan(planner):
+    """A walk of the demo: a visit on Thu 2026-12-24 (Friday a holiday at its site, then the weekend) held a
+    capacitor due Sun 2027-01-10, inside the visit's window carried over those three days off; the planner
+    moved the visit to Wednesday and cancelled that capacitor's order, and the next plan ordered it again in
+    the same visit. [README] a cancelled order's work is not ordered again while the plan asks the same work
+    for the same visit: the cancelled order's window is judged as an open order's (from the day the plan gave
+    the visit, over the days off after it), the rule the visit page uses to say "plan now"."""
+    from fleet.models import SiteDayOff
+
+    site = make_site(code="EVE")
+    SiteDayOff.objects.create(site=site, day=HOLIDAY, name="public holiday")
+    eve = HOLIDAY - dt.timedelta(days=1)
+    (opening,) = _due(site, HOLIDAY + dt.timedelta(days=2), 1)  # a Sunday: the visit goes back to Thursday
+    (late,) = _due(site, dt.date(2027, 1, 10), 1)
+    plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {eve}
+    move_visit(site_id=site.id, due_on=eve, to_day=eve - dt.timedelta(days=1), user=planner, today=MONDAY)
+    cancel_order(order_id=WorkOrder.objects.get(fitted_capacitor=late).id, reason="motor scrapped", user=planner)
+    counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert (counts["created"], counts["kept_cancelled"]) == (0, 1)
+    assert not WorkOrder.objects.filter(fitted_capacitor=late, state__in=["planned", "issued"]).exists()
+    assert WorkOrder.objects.get(fitted_capacitor=opening).state == "planned"
+
+
 def test_the_planner_moves_a_visit_off_a_holiday_and_the_plan_keeps_the_move(planner):
     """The demo put all three sites' visits on Fri 2026-12-25 (visits skip weekends only) and nothing
     moved them. [trade] a visit is not sent on a public holiday; the planner moves it. Our rules: the whole

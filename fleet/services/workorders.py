@@ -165,12 +165,12 @@ def _cancelled_orders(fitted_capacitor_ids, today: dt.date) -> dict[int, WorkOrd
 def _still_cancelled(candidates, today: dt.date) -> set[int]:
     """The capacitors whose cancelled order the plan asks for again, same work in the same visit: the
     planner's cancellation holds for them (`planning.plan_moved_words`, the rule that says where an open
-    order is no longer what the plan asks)."""
+    order is no longer what the plan asks, its window judged as for an open order: `window_start_days`)."""
     if not candidates:
         return set()
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o, *_ in candidates],
-        order_due_days=[(o.due_on - today).days for o, *_ in candidates],
+        order_due_days=window_start_days([o for o, *_ in candidates], today),
         window_days=[o.window_days for o, *_ in candidates],
         plan_risk=[risk for _, _, risk, _, _ in candidates],
         plan_read_again=[bool(reread) for *_, reread, _ in candidates],
@@ -456,23 +456,13 @@ def with_current_plan(orders):
     )
 
 
-def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
-    """The orders (read by `with_current_plan`) as a list, each with `plan_now`: in words, what the
-    capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
-    where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule.
-    An order the planner moved earlier is judged from the day the plan gave it (`moved_from`): the plan
-    dates it there, and replacing before its date is no reason to cancel it. Its window reaches over the days
-    off work right after that day (a weekend, the site's days off): a visit the plan opened on one of them went
-    back to the working day before with what fell due within the window of the day it opened (a walk found an
-    order marked "plan now" by the plan run that made it)."""
-    orders = list(orders)
-    if not orders:
-        return orders
-    today = today or timezone.localdate()
-
-    def days(day):
-        return np.inf if day is None else (day - today).days
-
+def window_start_days(orders, today: dt.date) -> np.ndarray:
+    """Days from `today` to where each order's visit window starts, as the plan judges whether it still asks
+    for the order's work in that visit (`plan_moved_words`): from the day the plan gave the visit (`moved_from`,
+    where a planner moved it earlier: replacing before its date is no reason to cancel it), carried over the
+    days off work right after it (a weekend, the site's days off: a visit the plan opened on one of them went
+    back to the working day before with what fell due within the window of the day it opened). One query for
+    the sites' days off; numpy's business days per site, not per order."""
     planned_on = [max(o.due_on, o.moved_from or o.due_on) for o in orders]
     planned_day = np.array(planned_on, "datetime64[D]")
     site = np.array([o.site_id for o in orders])
@@ -485,13 +475,26 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
             planned_day[here], 1, roll="forward", weekmask=weekmask, holidays=sorted(held)
         )
     days_off_after = (next_working - planned_day).astype(int) - 1
+    return (planned_day - np.datetime64(today, "D")).astype(int) + days_off_after
+
+
+def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
+    """The orders (read by `with_current_plan`) as a list, each with `plan_now`: in words, what the
+    capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
+    where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule, the
+    order's window starting where `window_start_days` says (a walk found an order marked "plan now" by the plan
+    run that made it)."""
+    orders = list(orders)
+    if not orders:
+        return orders
+    today = today or timezone.localdate()
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o in orders],
-        order_due_days=[days(d) + int(slack) for d, slack in zip(planned_on, days_off_after, strict=True)],
+        order_due_days=window_start_days(orders, today),
         window_days=[o.window_days for o in orders],
         plan_risk=[o.plan_risk or "" for o in orders],
         plan_read_again=[bool(o.plan_read_again) for o in orders],
-        plan_due_days=[days(o.plan_replace_by) for o in orders],
+        plan_due_days=[np.inf if o.plan_replace_by is None else (o.plan_replace_by - today).days for o in orders],
         today=today,
     )
     for order, text in zip(orders, words, strict=True):
