@@ -163,6 +163,32 @@ def test_a_cancel_on_a_moved_visit_before_days_off_holds_for_the_next_plan(plann
     assert WorkOrder.objects.get(fitted_capacitor=opening).state == "planned"
 
 
+def test_a_visit_moved_onto_a_day_made_a_day_off_later_is_dated_again_by_the_next_plan(planner):
+    """A walk of the demo: the planner moved a visit to Wednesday, then made that Wednesday a site shutdown;
+    the next plan said "4 orders kept on the day their visit was moved to" and left the visit on the shutdown.
+    [trade] no visit on a day the site is shut; ours: the day off, decided later, wins over the move, and the
+    plan dates the orders by its rule (here back on the plan's own day), counted as re-dated, not as kept;
+    until a plan runs, the work-orders page flags the visit."""
+    from fleet.models import SiteDayOff
+
+    site = make_site(code="SHUT")
+    thursday = HOLIDAY - dt.timedelta(days=1)
+    _due(site, thursday, 2)
+    plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    wednesday = thursday - dt.timedelta(days=1)
+    move_visit(site_id=site.id, due_on=thursday, to_day=wednesday, user=planner, today=MONDAY)
+    assert plan_work_orders(horizon_days=90, user=planner, today=MONDAY)["kept_moved"] == 2
+    SiteDayOff.objects.create(site=site, day=wednesday, name="site shutdown")
+    # Until then the list of visits says so, not only the visit's own page (the walk found it silent).
+    client = Client()
+    client.force_login(planner)
+    listed = client.get(reverse("work_orders")).content.decode()
+    assert "a day off at the site (site shutdown): move it" in listed
+    counts = plan_work_orders(horizon_days=90, user=planner, today=MONDAY)
+    assert (counts["kept_moved"], counts["replanned"]) == (0, 2)
+    assert set(WorkOrder.objects.values_list("due_on", "moved_from")) == {(thursday, None)}
+
+
 def test_the_planner_moves_a_visit_off_a_holiday_and_the_plan_keeps_the_move(planner):
     """The demo put all three sites' visits on Fri 2026-12-25 (visits skip weekends only) and nothing
     moved them. [trade] a visit is not sent on a public holiday; the planner moves it. Our rules: the whole

@@ -53,7 +53,8 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     (None: every site).
 
     The planner's decisions hold: a visit the planner moved (`move_visit`) stays moved, every order the
-    plan dates on the day it was moved from (new ones too) goes on the day it was moved to; an order the
+    plan dates on the day it was moved from (new ones too) goes on the day it was moved to, unless that day
+    has since become one of the site's days off (the later decision: the plan dates them by its rule); an order the
     planner cancelled is not created again while the plan asks for the same work in the cancelled order's
     visit (`planning.plan_moved_words` says nothing) and that visit's window has not passed.
 
@@ -110,15 +111,21 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             new_orders = [o for o in new_orders if o.fitted_capacitor_id not in kept]
         counts["kept_cancelled"] = len(kept)
         if items:
+            days_off = days_off_by_site({i[0] for i in items}, today)
             _, visit_day = bundle_visits(
                 np.array([i[0] for i in items]),
                 np.array([i[1] for i in items]),
                 window_days,
                 today=today,
                 weekmask=PlanningSettings().working_days,
-                days_off_by_site=days_off_by_site({i[0] for i in items}, today),
+                days_off_by_site=days_off,
             )
-            moves = _moved_visits({i[0] for i in items}, today)
+            # A move onto a day made a day off since is let go: the plan dates those orders by its rule.
+            moves = {
+                (site_id, was_on): day
+                for (site_id, was_on), day in _moved_visits({i[0] for i in items}, today).items()
+                if day not in days_off.get(site_id, {})
+            }
             for (site_id, _, order), day in zip(items, visit_day, strict=True):
                 planned_on = today + dt.timedelta(days=int(day))
                 moved_to = moves.get((site_id, planned_on))
@@ -604,7 +611,8 @@ def recently_cancelled(user=None, days: int = CANCELLED_SHOWN_DAYS, limit: int =
 def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
     """A page of open visits (site, day) at the user's sites, soonest first: each with its order
     count, how many are still planned (to issue), its first `orders_shown` orders in walking order (each
-    with `plan_now`) and its spares with the site's stock. Seven queries, whatever the number of orders:
+    with `plan_now`), its spares with the site's stock, and the name of the site's day off it falls on (a day
+    made a day off after the visit was dated; empty where none). Eight queries, whatever the number of orders:
     the visits are grouped and counted in SQL, the orders cut per visit by a window function over the
     orders alone (by their stored walking order, from the open orders' index), then the orders shown are
     read with their motors and current plans."""
@@ -641,9 +649,11 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     for order in listed:
         by_visit.setdefault((order.due_on, order.site_id), []).append(order)
     spares = _spares(orders, keys)
+    days_off = days_off_by_site({site_id for _, site_id in keys}, min(day for day, _ in keys))
     page.object_list = [
         {
             "day": day,
+            "day_off": days_off.get(site_id, {}).get(day, ""),
             "site": by_visit[(day, site_id)][0].site,
             "orders": by_visit[(day, site_id)],
             "count": visit["count"],
