@@ -77,19 +77,30 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
         annotation_text="rated",
         annotation_position="top left",
     )
-    figure.update_yaxes(range=trend_axis_range(kept, limit_uf, rated_uf))
+    band_uf = path["low_uf"] + path["high_uf"]
+    figure.update_yaxes(range=trend_axis_range([r["capacitance_uf"] for r in kept], band_uf, limit_uf, rated_uf))
     return _styled(figure, height=340, yaxis_title="capacitance (µF)")
 
 
-def trend_axis_range(readings: list[dict], limit_uf: float, rated_uf: float) -> list[float]:
-    """The capacitance axis of a trend chart: the readings kept, the rating and the limit with room below it
-    (60 % of the rating's distance to the limit), not the band's far tail (a start capacitor's P10 edge ran
-    to -14 uF, squeezing the 13 uF between its rating and its limit into a strip)."""
-    values = [r["capacitance_uf"] for r in readings] + [limit_uf, rated_uf]
-    span = max(rated_uf - limit_uf, 0.02 * rated_uf)
-    low = min(min(values), limit_uf - 0.6 * span) - 0.01 * rated_uf
-    high = max(values) + 0.03 * rated_uf
-    return [max(low, 0.0), high]
+def trend_axis_range(readings_uf, band_uf, limit_uf: float, rated_uf: float) -> list[float]:
+    """The capacitance axis of a trend chart: the rating, the limit with room below it (60 % of the distance
+    between them, `span`), the readings kept and the P10-P90 band over the plotted span, with a small margin.
+    Two things are cut so as not to squeeze the rest into a strip: the band's tail further than a span past
+    the readings, the rating and the limit (where the band meets the limit is read, not where its early edge
+    runs after: a start capacitor's P10 edge ran to -14 uF, past its 13 uF between rating and limit), and the
+    outermost reading on either side where it lies alone, more than a span past every other value shown."""
+    span = max(abs(rated_uf - limit_uf), 0.02 * rated_uf)
+    readings = np.sort(np.asarray(readings_uf, float))
+    inner = np.concatenate([[limit_uf, rated_uf], readings[1:-1]])  # all but the outermost two readings
+    low, high = float(inner.min()), float(inner.max())
+    band = np.asarray(band_uf, float)
+    band = band[np.isfinite(band)]
+    if band.size:
+        low, high = max(min(low, float(band.min())), low - span), min(max(high, float(band.max())), high + span)
+    outer = readings[[0, -1]] if readings.size else readings
+    near = outer[(outer >= low - span) & (outer <= high + span)]
+    low, high = min([low, limit_uf - 0.6 * span, *near.tolist()]), max([high, *near.tolist()])
+    return [max(low - 0.01 * rated_uf, 0.0), high + 0.03 * rated_uf]
 
 
 def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -> dict:

@@ -506,6 +506,43 @@ def test_the_trend_chart_shows_the_rating_and_the_limit_not_the_bands_far_tail()
     assert 115.0 <= low < 130.0 - 0.5 * 13.0 and 143.0 < high < 150.0
 
 
+def test_the_trend_chart_keeps_the_band_it_draws_in_view():
+    """A run capacitor (10 uF, limit 9.5 uF) whose P10-P90 band ahead opens above the rating and below the
+    limit within a span of them: the axis holds the band's plotted extremes, the readings, the rating and the
+    limit (before, it stopped 3 % above the highest reading and 60 % of the span below the limit, cutting the
+    band off at both edges). Ours: a reading of the chart, not a computation."""
+    from fleet.charts import trend_figure
+
+    readings = [
+        {"date": d, "capacitance_uf": c, "flagged": False}
+        for d, c in (("2026-01-05", 10.1), ("2026-04-06", 10.0), ("2026-07-06", 9.9))
+    ]
+    path = {"dates": ["2026-01-05", "2026-07-06", "2027-07-06", "2028-07-06"],
+            "mid_uf": [10.1, 9.9, 9.7, 9.5], "low_uf": [10.0, 9.8, 9.35, 9.05],
+            "high_uf": [10.2, 10.0, 10.25, 10.45]}  # fmt: skip
+    low, high = trend_figure(readings, path, 9.5, "tolerance", 10.0)["layout"]["yaxis"]["range"]
+    band = path["low_uf"] + path["high_uf"]
+    assert low < min(band) and high > max(band)
+    assert min(band) - low < 0.05 * 10.0 and high - max(band) < 0.05 * 10.0  # a small margin, not a wide one
+
+
+def test_one_stray_reading_does_not_squash_the_trend_chart():
+    """The same capacitor with one reading far below every other value (not set aside by the fit): the axis
+    stays on the rating, the limit, the other readings and the band, and leaves that one out; two readings
+    there are a pattern and stay in view. Ours: a reading of the chart."""
+    from fleet.charts import trend_figure
+
+    path = {"dates": ["2026-01-05", "2027-01-05"], "mid_uf": [10.1, 9.7], "low_uf": [10.0, 9.3],
+            "high_uf": [10.2, 10.1]}  # fmt: skip
+    values = [10.1, 10.0, 9.9, 2.0]
+    readings = [{"date": f"2026-0{k + 1}-05", "capacitance_uf": c, "flagged": False} for k, c in enumerate(values)]
+    low, high = trend_figure(readings, path, 9.5, "tolerance", 10.0)["layout"]["yaxis"]["range"]
+    assert 9.0 < low < 9.3 and 10.2 < high < 10.6
+    readings.append({"date": "2026-05-05", "capacitance_uf": 2.1, "flagged": False})
+    low, _ = trend_figure(readings, path, 9.5, "tolerance", 10.0)["layout"]["yaxis"]["range"]
+    assert low < 2.0
+
+
 @pytest.mark.django_db
 @pytest.mark.parametrize("fraction", [0.5, 0.2, 0.12])
 def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_without_a_trend(fraction, client, planner):
