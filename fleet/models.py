@@ -1214,6 +1214,9 @@ class ImportJob(models.Model):
     error_rows = models.PositiveIntegerField(default=0)
     imported_rows = models.PositiveIntegerField(default=0)
     errors = models.JSONField(default=list, blank=True, help_text="[row, field, message] of the first problems")
+    open_visits = models.JSONField(
+        default=list, blank=True, help_text="[site code, day, open orders] of the open visits on the days off it holds"
+    )
     message = models.TextField(blank=True)
     created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, on_delete=models.SET_NULL, related_name="+")
     created_at = models.DateTimeField(auto_now_add=True)

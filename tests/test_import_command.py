@@ -787,6 +787,69 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
     assert job.state == ImportJob.State.CHECKED and "which you do not work at" in str(job.errors), job.errors
 
 
+def test_a_days_off_import_names_the_open_visits_on_its_days(
+    tmp_path, client, planner, django_capture_on_commit_callbacks
+):
+    """Ours: a day made off by a file where a visit stands already is reported as the days-off page reports
+    one added there (`workorders.open_visits_on`, the one rule), visit by visit with its site, day and open
+    orders: in the command's report, a dry run's too, and on the import's page with a link to the visit, for
+    the planner to move it. A day off with no visit, a visit of another site on the same day and a visit whose
+    orders are all closed are not named. ([trade] a visit is not sent on a day off: the plan's tests.)"""
+    from fleet.models import SiteDayOff, WorkOrder
+    from tests.factories import make_fitted_capacitor, make_motor
+
+    run("sites", write(tmp_path, "sites.csv", SITES))
+    packhouse, cool_store = Site.objects.get(code="PK"), Site.objects.get(code="CS")
+    today = timezone.localdate()
+    monday = today + dt.timedelta(days=7 - today.weekday())
+    soon, later, quiet = (monday + dt.timedelta(days=d) for d in (14, 35, 43))
+
+    def order(site, day, state="planned"):
+        capacitor = make_fitted_capacitor(motor=make_motor(site=site))
+        closed_at = None if state in ("planned", "issued") else timezone.now()
+        WorkOrder.objects.create(
+            motor=capacitor.motor,
+            fitted_capacitor=capacitor,
+            kind="replace_run",
+            due_on=day,
+            state=state,
+            closed_at=closed_at,
+        )
+
+    order(packhouse, soon)
+    order(packhouse, soon, "issued")
+    order(packhouse, soon, "cancelled")
+    order(cool_store, soon)  # CS's day is not made off
+    order(packhouse, later, "done")  # closed: nothing to move
+    text = f"site_code,day,name\nPK,{soon},harvest shutdown\nPK,{later},public holiday\nPK,{quiet},stocktake\n"
+    path = write(tmp_path, "days.csv", text)
+    sheet = reverse("visit_sheet", args=["PK", soon.isoformat()])
+    for report in (run("days_off", path, "--dry-run"), run("days_off", path)):
+        assert "1 open visit on a day the file makes a day off" in report, report
+        assert f"PK {soon:%a %Y-%m-%d}" in report and "a visit with 2 open work orders" in report
+        assert sheet in report and str(later) not in report.split("open visit")[1]
+    assert SiteDayOff.objects.filter(site=packhouse).count() == 3
+
+    SiteDayOff.objects.all().delete()
+    client.force_login(planner)
+    upload = io.BytesIO(text.encode())
+    upload.name = "days.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "days_off", "file": upload})
+    job = ImportJob.objects.get(kind="days_off")
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert "1 open visit is on a day this file makes a day off" in page and f'href="{sheet}"' in page
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("import_detail", args=[job.id]), {"action": "all"})
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.DONE and job.open_visits == [["PK", soon.isoformat(), 2]]
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert "1 open visit is on a day now off at its site" in page, page
+    assert f'href="{sheet}"' in page and "2 open work orders" in page
+
+
 @pytest.mark.parametrize(
     "typed,stored,words",
     [

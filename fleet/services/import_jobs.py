@@ -26,7 +26,7 @@ from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site,
 from fleet.services import import_checks
 
 from .readings import enqueue_refit
-from .workorders import close_read_again_orders
+from .workorders import close_read_again_orders, open_visits_on
 
 log = logging.getLogger(__name__)
 
@@ -51,6 +51,7 @@ class Kind:
     write: Callable  # (good rows, user) -> [FollowUp], inside the import's transaction
     max_lengths: dict[str, int]
     site_column: str = ""  # names a row's motor (asset_tag) or site (site_code): a limited user imports there only
+    visits_on: Callable | None = None  # (good rows, user) -> the open visits on the days they make days off
 
 
 def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
@@ -98,6 +99,14 @@ def _write_days_off(good, user):
     return []
 
 
+def _visits_on_days_off(good, user) -> list[dict]:
+    """The open visits on the days off of a file's good rows (`workorders.open_visits_on`, the days-off
+    page's rule): the import reports them, for the planner to move."""
+    sites = dict(Site.objects.filter(code__in=set(good["site_code"])).values_list("code", "id"))
+    days = [dt.date.fromisoformat(day[:10]) for day in good["day"]]
+    return open_visits_on(zip(good["site_code"].map(sites), days, strict=True), user=user)
+
+
 def _write_history(good, user):
     return [
         _refits(import_checks.insert_history(good)),
@@ -143,6 +152,7 @@ KINDS = {
         _write_days_off,
         _max_lengths(SiteDayOff, {"name": "name"}),
         "site_code",
+        _visits_on_days_off,
     ),
     ImportJob.Kind.READINGS: Kind(
         columns.READING_COLUMNS,
@@ -164,6 +174,7 @@ class Outcome:
     imported: int = 0
     refused: str = ""  # why nothing was imported though the file was read
     failed_afterwards: list[str] = field(default_factory=list)  # follow-ups that failed once the import was in
+    open_visits: list[dict] = field(default_factory=list)  # open visits on the good rows' days (days off)
 
     @property
     def afterwards(self) -> str:
@@ -218,7 +229,8 @@ def check_file(
     )
     result.errors = sorted(result.errors + unstorable.items + elsewhere.items)
     result.total = len(frame)
-    return Outcome(result=result, header=header, rows=rows, mapping=mapping)
+    visits = spec.visits_on(result.good, user) if spec.visits_on and len(result.good) else []
+    return Outcome(result=result, header=header, rows=rows, mapping=mapping, open_visits=visits)
 
 
 def import_file(
@@ -354,7 +366,8 @@ def _progress(job_id: int):
     return report
 
 
-def _summary(result: columns.CheckResult) -> dict:
+def _summary(outcome: Outcome) -> dict:
+    result = outcome.result
     return dict(
         total_rows=result.total,
         done_rows=result.total,
@@ -362,6 +375,7 @@ def _summary(result: columns.CheckResult) -> dict:
         duplicate_rows=result.duplicates,
         error_rows=result.error_rows,
         errors=[list(e) for e in result.errors[: columns.MAX_REPORTED_ERRORS]],
+        open_visits=[[v["site_code"], v["day"].isoformat(), v["orders"]] for v in outcome.open_visits],
     )
 
 
@@ -420,7 +434,7 @@ def _check(job: ImportJob) -> None:
         on_progress=_progress(job.pk),
         user=job.created_by,
     )
-    _update(job.pk, state=ImportJob.State.CHECKED, message="", **_summary(outcome.result))
+    _update(job.pk, state=ImportJob.State.CHECKED, message="", **_summary(outcome))
 
 
 def _run(job: ImportJob, mode: str) -> None:
@@ -428,9 +442,7 @@ def _run(job: ImportJob, mode: str) -> None:
     _update(job.pk, state=ImportJob.State.IMPORTING, mode=mode, done_rows=0, message="")
 
     def record(outcome: Outcome) -> None:
-        _update(
-            job.pk, state=ImportJob.State.DONE, imported_rows=outcome.imported, message="", **_summary(outcome.result)
-        )
+        _update(job.pk, state=ImportJob.State.DONE, imported_rows=outcome.imported, message="", **_summary(outcome))
 
     outcome = import_file(
         kind=job.kind,
@@ -443,9 +455,7 @@ def _run(job: ImportJob, mode: str) -> None:
         on_written=record,
     )
     if outcome.refused:
-        _update(
-            job.pk, state=ImportJob.State.REFUSED, imported_rows=0, message=outcome.refused, **_summary(outcome.result)
-        )
+        _update(job.pk, state=ImportJob.State.REFUSED, imported_rows=0, message=outcome.refused, **_summary(outcome))
     elif outcome.afterwards:
         _update(job.pk, message=outcome.afterwards)
 
@@ -471,6 +481,17 @@ def _refresh_life_data_later():
         send(refresh_life_fits.s())
     except QueueUnreachable as error:
         log.warning("life data refresh not queued (%s); the nightly refresh will do it", error)
+
+
+def open_visits_shown(job: ImportJob) -> list[dict]:
+    """The open visits a checked or imported days-off job found on its days, as stored with it (site code,
+    day, open orders), for its page."""
+    if job.state not in (ImportJob.State.CHECKED, ImportJob.State.DONE):
+        return []
+    return [
+        {"site_code": code, "day": dt.date.fromisoformat(day), "orders": orders}
+        for code, day, orders in job.open_visits
+    ]
 
 
 def rejected_rows_csv(job: ImportJob) -> bytes:

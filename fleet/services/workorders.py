@@ -702,7 +702,31 @@ def add_day_off(*, site_id: int, day: dt.date | None, name: str, today: dt.date 
         if SiteDayOff.objects.select_for_update().filter(site_id=site_id, day=day).exists():  # added meanwhile
             raise ValidationError({"day": f"{day:%a %Y-%m-%d} is a day off at this site already."})
         SiteDayOff.objects.create(site_id=site_id, day=day, name=name)
-    return {"orders": open_orders().filter(site_id=site_id, due_on=day).count()}
+    visits = open_visits_on([(site_id, day)])
+    return {"orders": visits[0]["orders"] if visits else 0}
+
+
+def open_visits_on(site_days, user=None) -> list[dict]:
+    """The open visits (planned or issued orders) on the given (site id, day) pairs, at the sites `user`
+    works at (None: every site): each its site's id and code, its day and its open orders, by day and site.
+    The rule of "a visit is on that day" for a day made a day off, on the days-off page or by an import, which
+    the planner then moves. One query (the open orders of the pairs' sites and span of days, by visit)."""
+    wanted = {(int(site_id), day) for site_id, day in site_days}
+    if not wanted:
+        return []
+    days = [day for _, day in wanted]
+    visits = (
+        open_orders(user)
+        .filter(site_id__in=storable_ids({site_id for site_id, _ in wanted}), due_on__range=(min(days), max(days)))
+        .values("site_id", "site__code", "due_on")
+        .annotate(orders=Count("id"))
+        .order_by("due_on", "site__code")
+    )
+    return [
+        {"site_id": v["site_id"], "site_code": v["site__code"], "day": v["due_on"], "orders": v["orders"]}
+        for v in visits
+        if (v["site_id"], v["due_on"]) in wanted
+    ]
 
 
 def remove_day_off(*, site_id: int, day_off_id: int) -> SiteDayOff | None:

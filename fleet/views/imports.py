@@ -19,6 +19,7 @@ from fleet.services.import_jobs import (
     columns_left_out,
     create_job,
     end_stalled_jobs,
+    open_visits_shown,
     queue_check,
     queue_import,
     rejected_rows_csv,
@@ -84,6 +85,7 @@ def import_detail(request, job_id):
         "can_map": bool(job.columns) and job.state not in {*WORKING, ImportJob.State.DONE},
         "errors": job.errors[:200],
         "left_out": columns_left_out(job.columns, job.mapping) if job.mapping else [],
+        "open_visits": open_visits_shown(job),
     }
     return render(request, "fleet/import_detail.html", context)
 

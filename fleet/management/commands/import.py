@@ -4,6 +4,7 @@ from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 from django.template.defaultfilters import pluralize
+from django.urls import reverse
 
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
@@ -50,6 +51,7 @@ class Command(BaseCommand):
             self.stdout.write(f"  row {row}, {field_name}: {message}")
         if outcome.refused:
             raise CommandError(outcome.refused)
+        self._open_visits(outcome.open_visits, dry_run)
         if dry_run:
             if not len(result.good):
                 raise CommandError("Dry run: nothing would be imported.")
@@ -62,3 +64,21 @@ class Command(BaseCommand):
             self.stderr.write(self.style.WARNING(outcome.afterwards))
             return
         self.stdout.write(self.style.SUCCESS(f"Imported {outcome.imported} row{pluralize(outcome.imported)}."))
+
+    def _open_visits(self, visits, dry_run):
+        """Each open visit on a day the file makes a day off, for the planner to move (the days-off page warns
+        the same way for a day added there)."""
+        if not visits:
+            return
+        verb = "would be" if dry_run else "is now"
+        self.stdout.write(
+            f"{len(visits)} open visit{pluralize(len(visits))} on {pluralize(len(visits), 'a day,days')} "
+            f"the file makes {pluralize(len(visits), 'a day,days')} off: move {pluralize(len(visits), 'it,them')} "
+            "from the visit page (work orders, then the visit's sheet)."
+        )
+        for visit in visits:
+            n, page = visit["orders"], reverse("visit_sheet", args=[visit["site_code"], visit["day"].isoformat()])
+            self.stdout.write(
+                f"  {visit['site_code']} {visit['day']:%a %Y-%m-%d} ({verb} a day off): a visit with {n} open work "
+                f"order{pluralize(n)}, {page}"
+            )
