@@ -82,24 +82,26 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
     return _styled(figure, height=340, yaxis_title="capacitance (µF)")
 
 
+TREND_AXIS_SPANS = 4.0  # a trend chart's axis spans at most this many rating-to-limit gaps: a quarter of it, about
+
+
 def trend_axis_range(readings_uf, band_uf, limit_uf: float, rated_uf: float) -> list[float]:
-    """The capacitance axis of a trend chart: the rating, the limit with room below it (60 % of the distance
-    between them, `span`), the readings kept and the P10-P90 band over the plotted span, with a small margin.
-    Two things are cut so as not to squeeze the rest into a strip: the band's tail further than a span past
-    the readings, the rating and the limit (where the band meets the limit is read, not where its early edge
-    runs after: a start capacitor's P10 edge ran to -14 uF, past its 13 uF between rating and limit), and the
-    outermost reading on either side where it lies alone, more than a span past every other value shown."""
+    """The capacitance axis of a trend chart, with a small margin: the rating, the limit with room below it (60 %
+    of the gap between them, `span`), the readings kept and the P10-P90 band over the plotted time. Two things
+    are cut so as not to squeeze the rest into a strip: the outermost reading on either side where it lies
+    alone, more than a span past every other value shown, and the band beyond `TREND_AXIS_SPANS` spans (or the
+    readings' spread, if wider): a start capacitor's P10 edge ran to -14 uF, past its 13 uF gap."""
     span = max(abs(rated_uf - limit_uf), 0.02 * rated_uf)
     readings = np.sort(np.asarray(readings_uf, float))
-    inner = np.concatenate([[limit_uf, rated_uf], readings[1:-1]])  # all but the outermost two readings
-    low, high = float(inner.min()), float(inner.max())
+    shown = np.concatenate([[limit_uf, rated_uf], readings[1:-1]])  # all but the outermost two readings
+    outer = readings[[0, -1]] if readings.size else readings
+    shown = np.concatenate([shown, outer[(outer >= shown.min() - span) & (outer <= shown.max() + span)]])
+    low, high = min(float(shown.min()), limit_uf - 0.6 * span), float(shown.max())
     band = np.asarray(band_uf, float)
     band = band[np.isfinite(band)]
     if band.size:
-        low, high = max(min(low, float(band.min())), low - span), min(max(high, float(band.max())), high + span)
-    outer = readings[[0, -1]] if readings.size else readings
-    near = outer[(outer >= low - span) & (outer <= high + span)]
-    low, high = min([low, limit_uf - 0.6 * span, *near.tolist()]), max([high, *near.tolist()])
+        reach = max(TREND_AXIS_SPANS * span, high - low)
+        low, high = min(low, max(float(band.min()), high - reach)), max(high, min(float(band.max()), low + reach))
     return [max(low - 0.01 * rated_uf, 0.0), high + 0.03 * rated_uf]
 
 
