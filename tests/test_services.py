@@ -6,6 +6,7 @@ from unittest import mock
 import numpy as np
 import pytest
 from django.core.exceptions import ValidationError
+from django.urls import reverse
 from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, SiteStock, WorkOrder
@@ -550,13 +551,10 @@ def test_a_reading_taken_for_a_read_again_order_never_brings_another_read_again(
         assert [order.kind for order in open_orders] == [WorkOrder.Kind.REPLACE_RUN]
 
 
-def test_a_capacitor_read_again_and_still_due_stays_on_its_visit_as_a_replacement(planner):
-    """A walk read a capacitor for its "read again" order at 133.5 of 143 uF, above its limit: the order was done,
-    the plan still said "due soon, replace by" within that visit, but the visit sheet the technician stood at no
-    longer listed it until the planner planned again. [trade] a suspect capacitor is read once more, then
-    replaced or kept; ours: the refit after the reading puts a replacement order in the same visit, with the
-    plan's reason, once; a cancel of it stands through later refits."""
-    from fleet.services.workorders import cancel_order, plan_work_orders
+def _read_again_and_read_still_due(planner):
+    """A capacitor (30 uF, -5 %) the plan asks to read again, read at 28.6 uF by its order and refitted: the
+    refit's replacement order joins that order's visit. Returns the capacitor and its "read again" order."""
+    from fleet.services.workorders import plan_work_orders
 
     now = timezone.now()
     fitted_capacitor = make_fitted_capacitor(
@@ -571,6 +569,18 @@ def test_a_capacitor_read_again_and_still_due_stays_on_its_visit_as_a_replacemen
     reading = {"method": "meter", "capacitance_uf": "28.6"}
     record_reading(fitted_capacitor=fitted_capacitor, values=reading, user=planner)
     refit_fitted_capacitors([fitted_capacitor.id], now=timezone.now(), force=True)
+    return fitted_capacitor, read_again
+
+
+def test_a_capacitor_read_again_and_still_due_stays_on_its_visit_as_a_replacement(planner):
+    """A walk read a capacitor for its "read again" order at 133.5 of 143 uF, above its limit: the order was done,
+    the plan still said "due soon, replace by" within that visit, but the visit sheet the technician stood at no
+    longer listed it until the planner planned again. [trade] a suspect capacitor is read once more, then
+    replaced or kept; ours: the refit after the reading puts a replacement order in the same visit, with the
+    plan's reason, once; a cancel of it stands through later refits."""
+    from fleet.services.workorders import cancel_order
+
+    fitted_capacitor, read_again = _read_again_and_read_still_due(planner)
     after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     follow = WorkOrder.objects.filter(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
     assert after.replace_by <= read_again.due_on + dt.timedelta(days=read_again.window_days), after.reason
@@ -582,3 +592,24 @@ def test_a_capacitor_read_again_and_still_due_stays_on_its_visit_as_a_replacemen
     cancel_order(order_id=order.id, reason="kept: reads fine on the bench", user=planner)
     refit_fitted_capacitors([fitted_capacitor.id], now=timezone.now(), force=True)
     assert not follow.all().exists()  # the cancel stands
+
+
+def test_the_work_order_a_replacement_was_read_for_is_a_link_to_its_visit(client, planner, technician):
+    """The replacement's reason ends "(read for work order N)": on the visit sheet and on the order's cancel page
+    N is a link to that order's visit page (`a.glove`: 44 px tall on a phone), for whoever may see the visit. A
+    reason cut short before the order's number closes names no order, and stays plain text. Ours."""
+    fitted_capacitor, read_again = _read_again_and_read_still_due(planner)
+    order = WorkOrder.objects.get(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
+    visit = reverse("visit_sheet", args=[read_again.site.code, read_again.due_on.isoformat()])
+    link = f'(read for <a class="glove nowrap" href="{visit}">work order {read_again.id}</a>)'
+    for user, page in (
+        (planner, visit),
+        (technician, visit),
+        (planner, reverse("work_order_cancel", args=[order.id])),
+    ):
+        client.force_login(user)
+        html = client.get(page).content.decode()
+        assert link in html, (user, page)
+    WorkOrder.objects.filter(pk=order.pk).update(reason=order.reason.replace(f" {read_again.id})", f" {order.id}"))
+    html = client.get(visit).content.decode()  # cut short (the reason's length): no link to a wrong order
+    assert f"(read for work order {order.id}" in html and f">work order {order.id}" not in html

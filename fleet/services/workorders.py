@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import re
 from dataclasses import dataclass
 from functools import reduce
 from operator import or_
@@ -463,6 +464,29 @@ def with_current_plan(orders):
     )
 
 
+READ_FOR_WORDS = "read for work order {}"  # in a reason: the "read again" order whose reading asked for this one
+READ_FOR_ORDER = re.compile(re.escape(f"({READ_FOR_WORDS})").replace(r"\{\}", r"(\d+)"))  # whole: not cut short
+
+
+def with_read_for(orders, user=None) -> list[WorkOrder]:
+    """The orders as a list, each with `read_for`: the "read again" order its reason names ("read for work
+    order N", `replace_after_reading_again`) as {"id", "site_code", "day"} of its visit, for the page to link;
+    None where the reason names none, or one outside the user's sites. One query where any reason names one."""
+    orders = list(orders)
+    named = {order.pk: int(m.group(1)) for order in orders if (m := READ_FOR_ORDER.search(order.reason or ""))}
+    visits = {}
+    if named:
+        visits = {
+            pk: {"id": pk, "site_code": code, "day": day}
+            for pk, code, day in scope_to_user(WorkOrder.objects.all(), user)
+            .filter(pk__in=storable_ids(set(named.values())))
+            .values_list("pk", "site__code", "due_on")
+        }
+    for order in orders:
+        order.read_for = visits.get(named.get(order.pk))
+    return orders
+
+
 def window_start_days(orders, today: dt.date) -> np.ndarray:
     """Days from `today` to where each order's visit window starts, as the plan judges whether it still asks
     for the order's work in that visit (`plan_moved_words`): from the day the plan gave the visit (`moved_from`,
@@ -792,7 +816,7 @@ def replace_after_reading_again(assessments, now: dt.datetime) -> int:
             kind=KIND_FOR_ROLE[order.fitted_capacitor.role],
             due_on=order.due_on,
             window_days=order.window_days,
-            reason=f"{asks[capacitor_id][0]}: {asks[capacitor_id][2]} (read for work order {order.id})"[:limit],
+            reason=f"{asks[capacitor_id][0]}: {asks[capacitor_id][2]} ({READ_FOR_WORDS.format(order.id)})"[:limit],
         )
         for capacitor_id, order in wanted.items()
         if capacitor_id not in given_since

@@ -55,6 +55,7 @@ from fleet.services.workorders import (
     visit_moved_to,
     with_current_plan,
     with_plan_now,
+    with_read_for,
 )
 from fleet.views.register import site_in_any_case
 
@@ -226,7 +227,7 @@ def visit_sheet(request, site, day):
         # Every order done or cancelled: the sheet says what became of each (a bookmark or a printed sheet).
         return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
     page = list_page(request, paginator.get_page)
-    page.object_list = with_plan_now(page.object_list)
+    page.object_list = with_read_for(with_plan_now(page.object_list), user=request.user)
     context = {
         "visit": visit,
         "site": site,
@@ -313,7 +314,8 @@ def work_order_cancel(request, order_id):
             if open_orders(request.user).filter(site_id=order.site_id, due_on=order.due_on).exists():
                 return redirect("visit_sheet", site_code=order.site.code, day=order.due_on.isoformat())
             return redirect("work_orders")
-    order = with_plan_now(with_current_plan(WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site")))[0]
+    order = with_plan_now(with_current_plan(WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site")))
+    order = with_read_for(order, user=request.user)[0]
     context = {"order": order, "form": form}
     return render(request, "fleet/work_order_cancel.html", context, status=400 if form.errors else 200)
 
