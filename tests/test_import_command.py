@@ -72,6 +72,19 @@ def export_imported_again_adds_nothing(tmp_path, client, rows: int) -> None:
         assert f": {rows} rows: 0 good, {rows} already imported, 0 with problems." in report.getvalue(), fmt
 
 
+def checked_on_the_web(client, capture_on_commit, kind, text):
+    """A file uploaded on the import page and checked there, tasks run on commit: the job, refreshed."""
+    upload = io.BytesIO(text.encode())
+    upload.name = f"{kind}.csv"
+    with capture_on_commit(execute=True):
+        client.post(reverse("imports"), {"kind": kind, "file": upload})
+    job = ImportJob.objects.filter(kind=kind).latest("created_at")
+    with capture_on_commit(execute=True):
+        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
+    job.refresh_from_db()
+    return job
+
+
 def migrate_all(tmp_path):
     for kind, text in (
         ("sites", SITES),
@@ -776,14 +789,8 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
     SiteMembership.objects.create(user=planner, site=Site.objects.get(code="PK"))
     client.force_login(planner)
     assert 'value="days_off"' in client.get(reverse("imports")).content.decode()
-    upload = io.BytesIO(f"site_code,day,name\nCS,{later},public holiday\nPK,{later},shutdown\n".encode())
-    upload.name = "days.csv"
-    with django_capture_on_commit_callbacks(execute=True):
-        client.post(reverse("imports"), {"kind": "days_off", "file": upload})
-    job = ImportJob.objects.get(kind="days_off")
-    with django_capture_on_commit_callbacks(execute=True):
-        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
-    job.refresh_from_db()
+    text = f"site_code,day,name\nCS,{later},public holiday\nPK,{later},shutdown\n"
+    job = checked_on_the_web(client, django_capture_on_commit_callbacks, "days_off", text)
     assert job.state == ImportJob.State.CHECKED and "which you do not work at" in str(job.errors), job.errors
 
 
@@ -832,13 +839,7 @@ def test_a_days_off_import_names_the_open_visits_on_its_days(
 
     SiteDayOff.objects.all().delete()
     client.force_login(planner)
-    upload = io.BytesIO(text.encode())
-    upload.name = "days.csv"
-    with django_capture_on_commit_callbacks(execute=True):
-        client.post(reverse("imports"), {"kind": "days_off", "file": upload})
-    job = ImportJob.objects.get(kind="days_off")
-    with django_capture_on_commit_callbacks(execute=True):
-        client.post(reverse("import_detail", args=[job.id]), {"action": "check", **job.mapping})
+    job = checked_on_the_web(client, django_capture_on_commit_callbacks, "days_off", text)
     page = client.get(reverse("import_detail", args=[job.id])).content.decode()
     assert "1 open visit is on a day this file makes a day off" in page and f'href="{sheet}"' in page
     with django_capture_on_commit_callbacks(execute=True):
