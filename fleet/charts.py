@@ -23,8 +23,12 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
     path: dates, mid_uf, low_uf, high_uf (past and forecast; ahead, the calibrated path whose
     crossings of the limit are the forecast's dates).
     """
-    kept = [r for r in readings if not r["flagged"]]
-    stray = [r for r in readings if r["flagged"]]
+    # The newest reading is what the verdict reads ("below the limit: replace now" needs no trend): always in
+    # view, and drawn apart where it is below the limit, even if the fit set it aside as off its trend.
+    latest = max(readings, key=lambda r: r["date"]) if readings else None
+    governing = latest if latest is not None and latest["capacitance_uf"] < limit_uf else None
+    kept = [r for r in readings if not r["flagged"] and r is not governing]
+    stray = [r for r in readings if r["flagged"] and r is not governing]
     figure = go.Figure()
     figure.add_trace(
         go.Scatter(
@@ -65,6 +69,16 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
                 name="set aside (off trend)",
             )
         )
+    if governing is not None:
+        figure.add_trace(
+            go.Scatter(
+                x=[governing["date"]],
+                y=[governing["capacitance_uf"]],
+                mode="markers",
+                marker={"color": LIMIT, "size": 12, "symbol": "diamond"},
+                name="latest reading, below the limit",
+            )
+        )
     figure.add_hline(
         y=limit_uf,
         line={"color": LIMIT, "dash": "dash"},
@@ -78,24 +92,29 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
         annotation_position="top left",
     )
     band_uf = path["low_uf"] + path["high_uf"]
-    figure.update_yaxes(range=trend_axis_range([r["capacitance_uf"] for r in kept], band_uf, limit_uf, rated_uf))
+    shown_uf = [r["capacitance_uf"] for r in kept]
+    newest_uf = [] if latest is None else [latest["capacitance_uf"]]
+    figure.update_yaxes(range=trend_axis_range(shown_uf, band_uf, limit_uf, rated_uf, always_uf=newest_uf))
     return _styled(figure, height=340, yaxis_title="capacitance (µF)")
 
 
 TREND_AXIS_SPANS = 4.0  # a trend chart's axis spans at most this many rating-to-limit gaps: a quarter of it, about
 
 
-def trend_axis_range(readings_uf, band_uf, limit_uf: float, rated_uf: float) -> list[float]:
+def trend_axis_range(readings_uf, band_uf, limit_uf: float, rated_uf: float, always_uf=()) -> list[float]:
     """The capacitance axis of a trend chart, with a small margin: the rating, the limit with room below it (60 %
     of the gap between them, `span`), the readings kept and the P10-P90 band over the plotted time. Two things
     are cut so as not to squeeze the rest into a strip: the outermost reading on either side where it lies
     alone, more than a span past every other value shown, and the band beyond `TREND_AXIS_SPANS` spans (or the
-    readings' spread, if wider): a start capacitor's P10 edge ran to -14 uF, past its 13 uF gap."""
+    readings' spread, if wider): a start capacitor's P10 edge ran to -14 uF, past its 13 uF gap. `always_uf`
+    (the newest reading, which the verdict reads) is never cut: a walk found a 14.22 uF reading that made a
+    143 uF capacitor "replace now" off its chart."""
     span = max(abs(rated_uf - limit_uf), 0.02 * rated_uf)
     readings = np.sort(np.asarray(readings_uf, float))
     shown = np.concatenate([[limit_uf, rated_uf], readings[1:-1]])  # all but the outermost two readings
     outer = readings[[0, -1]] if readings.size else readings
     shown = np.concatenate([shown, outer[(outer >= shown.min() - span) & (outer <= shown.max() + span)]])
+    shown = np.concatenate([shown, np.asarray(always_uf, float)])
     low, high = min(float(shown.min()), limit_uf - 0.6 * span), float(shown.max())
     band = np.asarray(band_uf, float)
     band = band[np.isfinite(band)]

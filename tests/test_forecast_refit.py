@@ -528,20 +528,49 @@ def test_the_trend_chart_keeps_the_band_it_draws_in_view():
 
 
 def test_one_stray_reading_does_not_squash_the_trend_chart():
-    """The same capacitor with one reading far below every other value (not set aside by the fit): the axis
-    stays on the rating, the limit, the other readings and the band, and leaves that one out; two readings
+    """The same capacitor with one older reading far below every other value (not set aside by the fit): the
+    axis stays on the rating, the limit, the other readings and the band, and leaves that one out; two readings
     there are a pattern and stay in view. Ours: a reading of the chart."""
     from fleet.charts import trend_figure
 
     path = {"dates": ["2026-01-05", "2027-01-05"], "mid_uf": [10.1, 9.7], "low_uf": [10.0, 9.3],
             "high_uf": [10.2, 10.1]}  # fmt: skip
-    values = [10.1, 10.0, 9.9, 2.0]
+    values = [10.1, 2.0, 10.0, 9.9]
     readings = [{"date": f"2026-0{k + 1}-05", "capacitance_uf": c, "flagged": False} for k, c in enumerate(values)]
     low, high = trend_figure(readings, path, 9.5, "tolerance", 10.0)["layout"]["yaxis"]["range"]
     assert 9.0 < low < 9.3 and 10.2 < high < 10.6
-    readings.append({"date": "2026-05-05", "capacitance_uf": 2.1, "flagged": False})
+    readings.append({"date": "2026-05-05", "capacitance_uf": 9.8, "flagged": False})
+    readings[0]["capacitance_uf"] = 2.1
     low, _ = trend_figure(readings, path, 9.5, "tolerance", 10.0)["layout"]["yaxis"]["range"]
     assert low < 2.0
+
+
+@pytest.mark.parametrize("set_aside", [True, False])
+def test_the_newest_reading_below_the_limit_is_on_the_chart_whatever_the_fit(set_aside):
+    """A walk of the demo: a technician confirmed 14.3 uF on a 143 uF start capacitor; the verdict read it,
+    "replace now, limit reached", but the fit set it aside as off its trend and the chart's axis (120-149 uF)
+    left it out, so the page showed a band still to cross the limit. [trade] a capacitor read below its
+    limit is replaced (IEC 60252-1 tolerance classes; common practice of the trade); ours: the newest reading,
+    the one the verdict reads, is always in view, and drawn as the reading below the limit."""
+    from fleet.charts import trend_figure
+
+    path = {"dates": ["2026-01-05", "2027-06-05"], "mid_uf": [138.0, 131.0], "low_uf": [137.0, 126.0],
+            "high_uf": [139.0, 135.0]}  # fmt: skip
+    readings = [
+        {"date": f"2026-{m:02d}-05", "capacitance_uf": c, "flagged": False}
+        for m, c in ((1, 138.2), (4, 136.9), (7, 135.1), (10, 133.4))
+    ]
+    readings.append({"date": "2026-12-03", "capacitance_uf": 14.22, "flagged": set_aside})
+    figure = trend_figure(readings, path, 121.55, "tolerance", 143.0)
+    low, high = figure["layout"]["yaxis"]["range"]
+    assert low < 14.22 and high > 143.0
+    names = {trace["name"]: trace for trace in figure["data"]}
+    assert list(names["latest reading, below the limit"]["y"]) == [14.22]
+    assert "set aside (off trend)" not in names and 14.22 not in list(names["readings (at 25 °C)"]["y"])
+    readings[-1]["capacitance_uf"] = 130.0  # above the limit: one reading among the others
+    assert "latest reading, below the limit" not in {
+        trace["name"] for trace in trend_figure(readings, path, 121.55, "tolerance", 143.0)["data"]
+    }
 
 
 @pytest.mark.django_db
