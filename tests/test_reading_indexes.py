@@ -37,3 +37,22 @@ def test_the_dashboards_week_of_readings_is_counted_from_an_index():
             cursor.execute("SET LOCAL enable_seqscan = off")
     plan = Reading.objects.filter(taken_at__gte=since).order_by().explain()  # a count has no order
     assert "reading_by_taken_at" in plan, plan
+
+
+def test_the_weeks_readings_not_corrected_since_are_counted_from_the_index_alone():
+    """The dashboard counts the week's readings that no later reading corrects: with the id in the taken_at
+    index, PostgreSQL answers from the index alone, where it fetched each reading's row for its id (at 600,000
+    readings, 10,000 in the week: 28 ms warm and 111 ms cold, against 12 ms; measured 2026-12-04). Common
+    practice of the trade, no single source: a covering index (PostgreSQL manual, "Index-Only Scans and
+    Covering Indexes"). SQLite keeps the plain index."""
+    from fleet.services.pages import not_superseded
+
+    if connection.vendor != "postgresql":
+        pytest.skip("a covering index is PostgreSQL's")
+    since = timezone.now() - dt.timedelta(days=7)
+    with connection.cursor() as cursor:
+        cursor.execute("SET LOCAL enable_seqscan = off")
+        cursor.execute("SET LOCAL enable_bitmapscan = off")
+        cursor.execute("SET LOCAL enable_mergejoin = off")  # a plan for a handful of rows, not for the fleet's
+    plan = Reading.objects.filter(not_superseded(), taken_at__gte=since).order_by().values("id").explain()
+    assert "Index Only Scan using reading_by_taken_at" in plan, plan
