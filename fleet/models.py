@@ -910,6 +910,14 @@ class Assessment(models.Model):
     risk_changed_at = models.DateTimeField(
         null=True, blank=True, help_text="When the risk level took its present value (carried over by later refits)"
     )
+    # Null, not a default: adding a column with a default rebuilds the table on SQLite, which drops its triggers.
+    limit_was = models.CharField(  # noqa: DJ001
+        max_length=40,
+        null=True,
+        blank=True,
+        help_text="The governing limit before the risk level's latest change (carried as risk_was is); empty if it "
+        "never changed",
+    )
     # Its capacitor's site and part, kept by database triggers (migration 0020), so the plan's spares,
     # the risk counts and the dashboard aggregate one table's index instead of joining every capacitor.
     site = kept_by_triggers(Site, "Its capacitor's motor's site; kept by database triggers")

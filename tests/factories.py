@@ -129,12 +129,14 @@ def stored_assessment(
     """A current assessment as a refit stores it, for pages that only read them: the risk history
     carried from the assessment it replaces as the refit carries it (`_carry_risk_history`)."""
     current = Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True)
-    before = current.values("risk", "risk_was", "risk_changed_at").first()
+    before = current.values("risk", "risk_was", "risk_changed_at", "limit_source", "limit_was").first()
     when = created_at or timezone.now()
     if before is not None and before["risk"] == risk:
-        risk_was, risk_changed_at = before["risk_was"], before["risk_changed_at"] or when
+        risk_was, limit_was = before["risk_was"], before["limit_was"]
+        risk_changed_at = before["risk_changed_at"] or when
     else:
         risk_was, risk_changed_at = ("" if before is None else before["risk"]), when
+        limit_was = "" if before is None else before["limit_source"]
     current.update(is_current=False)
     assessment = Assessment.objects.create(
         fitted_capacitor=fitted_capacitor,
@@ -152,6 +154,7 @@ def stored_assessment(
         replace_by=replace_by,
         reason=reason,
         risk_was=risk_was,
+        limit_was=limit_was,
         risk_changed_at=risk_changed_at,
     )
     if created_at is not None:

@@ -883,9 +883,17 @@ def _with_capacitor_facts(rows: pd.DataFrame, facts: pd.DataFrame) -> pd.DataFra
     return rows.assign(**{name: found[name].to_numpy() for name in FACT_COLUMNS})
 
 
-CURRENT_COLUMNS = ["fitted_capacitor_id", "max_reading_id", "risk", "risk_was", "risk_changed_at"]
+CURRENT_COLUMNS = [
+    "fitted_capacitor_id",
+    "max_reading_id",
+    "risk",
+    "risk_was",
+    "limit_source",
+    "limit_was",
+    "risk_changed_at",
+]
 CURRENT_SQL = (
-    "SELECT fitted_capacitor_id, max_reading_id, risk, risk_was,"
+    "SELECT fitted_capacitor_id, max_reading_id, risk, risk_was, limit_source, limit_was,"
     " (EXTRACT(EPOCH FROM risk_changed_at) * 1000000)::bigint"
     " FROM fleet_assessment WHERE is_current"
     f" AND fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
@@ -908,7 +916,8 @@ def _current_assessments(fitted_capacitor_ids: np.ndarray) -> pd.DataFrame:
             .values_list(*CURRENT_COLUMNS),
             columns=CURRENT_COLUMNS,
         )
-    frame = frame.astype({"fitted_capacitor_id": np.int64, "max_reading_id": float, "risk": object, "risk_was": object})
+    text = dict.fromkeys(["risk", "risk_was", "limit_source", "limit_was"], object)
+    frame = frame.astype({"fitted_capacitor_id": np.int64, "max_reading_id": float, **text})
     return frame.set_index("fitted_capacitor_id")
 
 
@@ -920,14 +929,16 @@ def _not_older_than(rows: pd.DataFrame, current: pd.DataFrame) -> pd.DataFrame:
 
 
 def _carry_risk_history(rows: pd.DataFrame, current: pd.DataFrame, now: dt.datetime) -> None:
-    """Each new assessment keeps when its risk level took its present value and what it was
-    before, so the plan lists recent changes without comparing assessment histories."""
+    """Each new assessment keeps when its risk level took its present value, what it was before and
+    which limit governed before, so the plan and the dashboard list recent changes without comparing
+    assessment histories."""
     before = current.reindex(rows["fitted_capacitor_id"].to_numpy())
     same = before["risk"].to_numpy(object) == rows["risk"].to_numpy(object)
     changed_at = before["risk_changed_at"].astype(object).where(before["risk_changed_at"].notna(), now).to_numpy(object)
-    rows["risk_was"] = np.where(
-        same, before["risk_was"].fillna("").to_numpy(object), before["risk"].fillna("").to_numpy(object)
-    )
+    for was, now_column in (("risk_was", "risk"), ("limit_was", "limit_source")):
+        rows[was] = np.where(
+            same, before[was].fillna("").to_numpy(object), before[now_column].fillna("").to_numpy(object)
+        )
     rows["risk_changed_at"] = np.where(same, changed_at, now)
 
 

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 from django.core.cache import cache
 from django.core.serializers.json import DjangoJSONEncoder
-from django.db.models import BooleanField, Case, Count, DateField, F, Func, OuterRef, Q, Subquery, Sum, Value, When
+from django.db.models import Case, Count, DateField, F, Q, Subquery, Sum, Value, When
 from django.db.models.functions import Cast, TruncMonth, TruncWeek
 from django.utils import timezone
 
@@ -27,7 +27,6 @@ from fleet.engineering.lifedata import expected_failures, successor_failures
 from fleet.engineering.planning import RISK_ORDER
 from fleet.filters import utc_midnight
 from fleet.models import (
-    Assessment,
     CapacitorPart,
     FittedCapacitor,
     PartLifeFit,
@@ -297,15 +296,6 @@ def readings_by_route(user=None, today: dt.date | None = None) -> dict:
     return {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today), "routes": routes}
 
 
-class Differs(Func):
-    """`a <> b` as a condition, false when either is null (SQL's own rule): a subquery on either side
-    is evaluated once, where `isnull` and `exclude` would each run it."""
-
-    arg_joiner = " <> "
-    template = "(%(expressions)s)"
-    output_field = BooleanField()
-
-
 def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     """What moved in the last `days`: readings taken (a reading and its corrections counted once), refits
     run, capacitors reassessed and how their risk level moved, replacements; the riskier ones with the
@@ -323,17 +313,13 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
     reassessed = in_service_counts(user).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
-    before_change = Assessment.objects.filter(
-        fitted_capacitor=OuterRef("fitted_capacitor"), created_at__lt=OuterRef("risk_changed_at")
-    ).order_by("-created_at", "-id")
-    previous_limit = Subquery(before_change.values("limit_source")[:1])
-    worse = list(worse.annotate(previous_limit=previous_limit))
-    # Among the capacitors whose level changed only (one look-up each, not one per capacitor reassessed).
+    worse = list(worse.annotate(previous_limit=F("limit_was")))
+    # Among the capacitors whose level changed only; each stores the limit that governed before the change.
     limit_changed = (
         in_service_assessments(user)
         .filter(risk_changed_at__gte=since)
         .exclude(risk_was="")
-        .filter(Differs(previous_limit, F("limit_source")))  # the look-up runs once per capacitor
+        .exclude(limit_was=F("limit_source"))
         .count()
     )
     moves = {
