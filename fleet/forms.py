@@ -40,7 +40,9 @@ class ReadingForm(forms.Form):
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
     )
     capacitance_uf = number(
-        "Capacitance", "µF", help_text="From the capacitance meter, capacitor isolated and discharged."
+        "Capacitance",
+        "µF",
+        help_text="From the capacitance meter, capacitor isolated and discharged. 0 if it shows none (open capacitor).",
     )
     capacitor_current_a = number("Capacitor current", "A", help_text="True-RMS clamp on the capacitor lead.")
     capacitor_voltage_v = number("Voltage across capacitor", "V")
@@ -52,7 +54,11 @@ class ReadingForm(forms.Form):
     ambient_temperature_c = number("Ambient temperature", "°C")
     esr_ohm = number("ESR", "Ω", help_text="Only where the meter measures it.")
     condition = forms.ChoiceField(
-        choices=Reading.Condition.choices, initial=Reading.Condition.SOUND, label="What you see"
+        choices=Reading.Condition.choices,
+        initial=Reading.Condition.SOUND,
+        label="What you see",
+        help_text="Open or shorted shows on the meter, not to the eye: an open capacitor reads 0 µF (type 0); "
+        "a shorted one, record its replacement.",
     )
     notes = forms.CharField(
         required=False, widget=forms.Textarea(attrs={"rows": 2, "maxlength": RULES.notes_max_chars})

@@ -692,7 +692,7 @@ class Reading(models.Model):
     created_at = models.DateTimeField(auto_now_add=True)
 
     CONSTRAINT_FIELDS = {
-        "reading_capacitance_positive": "capacitance_uf",
+        "reading_capacitance_not_negative": "capacitance_uf",
         "reading_capacitance_finite": "capacitance_uf",
         "in_circuit_needs_current_and_voltage": "capacitor_current_a",
         "reading_case_temperature_range": "case_temperature_c",
@@ -703,7 +703,12 @@ class Reading(models.Model):
     class Meta:
         ordering = ["fitted_capacitor_id", "taken_at", "id"]
         constraints = [
-            models.CheckConstraint(condition=Q(capacitance_uf__gt=0), name="reading_capacitance_positive"),
+            # 0 is a meter that shows no capacitance: an open capacitor, kept as read (rules.OPEN_CAPACITOR_WORDS).
+            models.CheckConstraint(
+                condition=Q(capacitance_uf__gte=0),
+                name="reading_capacitance_not_negative",
+                violation_error_message="Capacitance must be 0 µF or more.",
+            ),
             models.CheckConstraint(
                 condition=Q(capacitance_uf__lt=FINITE_BOUND),
                 name="reading_capacitance_finite",

@@ -21,7 +21,7 @@ def refused(callable_, *args, **kwargs):
 
 def test_negative_capacitance_is_refused(fan_fitted_capacitor):
     message = refused(make_reading, fan_fitted_capacitor, capacitance_uf=-3.0)
-    assert "reading_capacitance_positive" in message or "CHECK" in message.upper()
+    assert "reading_capacitance_not_negative" in message or "CHECK" in message.upper()
 
 
 def test_part_with_zero_rating_is_refused():

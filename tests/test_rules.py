@@ -1,7 +1,9 @@
 """Bad input and faults, one test per problem found by the careful tester: the rulebook holds
 at the form, the API and the import alike; the database holds what the rulebook misses."""
 
+import csv
 import datetime as dt
+import io
 
 import pandas as pd
 import pytest
@@ -17,7 +19,15 @@ from fleet.models import FittedCapacitor, Motor, Reading, Site, WorkOrder, const
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.import_checks import check_readings, check_register
 from fleet.services.readings import record_reading, replace_capacitor
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_reading, make_site, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_reading,
+    make_site,
+    make_user,
+    quarterly_readings,
+)
 
 pytestmark = pytest.mark.django_db
 
@@ -562,3 +572,56 @@ def test_a_capacitance_in_farads_is_named_and_asked_everywhere_first_and_back_da
         0.0000301,
         0.02,
     ]
+
+
+def test_a_meter_showing_no_capacitance_is_recorded_as_an_open_capacitor_everywhere(client, technician):
+    """A meter on an open capacitor shows 0 µF (common practice of the trade, no single source): it was refused
+    as "0 must be above 0 µF" and could not be recorded. The form, the API and the import ask to confirm it,
+    saying it is recorded as an open capacitor to replace; confirmed, it is kept, set aside by the trend fit
+    (under 5 % of the rating, as a slip is) and judged open circuit, replace now, with the reason in words.
+    A negative value stays refused."""
+    fitted = make_fitted_capacitor(part=make_part(rated_uf=30.0, tolerance_minus_pct=5, tolerance_plus_pct=5))
+    start = timezone.now() - dt.timedelta(days=91 * 4 + 30)
+    quarterly_readings(fitted, start, [30.1, 30.0, 29.9, 29.8], esr_ohm=0.5)
+    client.force_login(technician)
+    asked = form_post(client, fitted, capacitance_uf="0")
+    page = asked.content.decode()
+    assert asked.status_code == 200 and "0 µF: the meter shows no capacitance" in page
+    assert "recorded as an open capacitor, to replace now" in page and 'id="confirm"' in page
+    assert Reading.objects.filter(capacitance_uf=0).count() == 0
+    url = reverse("api_fitted_capacitor_readings", args=[fitted.id])
+    api = api_for(technician)
+    answer = api.post(url, {"method": "meter", "capacitance_uf": 0}, format="json")
+    assert answer.status_code == 409 and "open capacitor" in answer.json()["capacitance_uf"][0]
+    negative = api.post(url, {"method": "meter", "capacitance_uf": -1, "confirmed": True}, format="json")
+    assert negative.status_code == 400 and "-1 must be 0 µF or more" in negative.json()["capacitance_uf"][0]
+    result = import_check(
+        [
+            import_row(fitted, taken_at="2022-02-01 09:00", capacitance_uf="0"),
+            import_row(fitted, taken_at="2022-02-02 09:00", capacitance_uf="0,0", confirmed="yes"),
+        ]
+    )
+    assert [(row, field) for row, field, _ in result.errors] == [(2, "capacitance_uf")]
+    assert "open capacitor" in result.errors[0][2] and result.good["row"].tolist() == [3]
+    saved = form_post(client, fitted, capacitance_uf="0", esr_ohm="0.5", confirmed="on")
+    assert saved.status_code == 302
+    reading = Reading.objects.get(capacitance_uf=0)
+    assert reading.outlier_confirmed
+    refit_fitted_capacitors([fitted.id])
+    assessment = fitted.assessments.get(is_current=True)
+    assert assessment.risk == "replace now" and assessment.latest_verdict == "open circuit suspected"
+    assert "open circuit suspected: latest reading 0.00 µF" in assessment.reason
+    # The trend is the four readings before it: 0 µF bends nothing (its fit ends near 29.8 µF).
+    assert assessment.readings_used == 4 and abs(assessment.capacitance_now_uf - 29.8) < 0.3
+    # Its pages and exports show it as read (nothing divides by it nor takes its log).
+    client.force_login(make_user("reliability engineer"))
+    page = client.get(reverse("fitted_capacitor", args=[fitted.id]))
+    assert page.status_code == 200 and "open circuit suspected" in page.content.decode()
+    tables = {}
+    for kind in ("readings", "assessments"):
+        export = client.get(reverse("export", args=[kind, "csv"]))
+        assert export.status_code == 200
+        text = b"".join(export.streaming_content).decode() if export.streaming else export.content.decode()
+        tables[kind] = list(csv.DictReader(io.StringIO(text.lstrip("\ufeff"))))
+    assert sorted(float(row["capacitance_uf"]) for row in tables["readings"])[0] == 0.0
+    assert [row["risk"] for row in tables["assessments"]] == ["replace now"]

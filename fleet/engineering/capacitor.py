@@ -49,8 +49,12 @@ def reactance_ohm(capacitance_uf, frequency_hz):
 
 
 def dissipation_factor_from_esr(esr_ohm, capacitance_uf, frequency_hz):
-    """Dissipation factor (tan delta) from a measured ESR: DF = ESR / Xc."""
-    return np.asarray(esr_ohm, float) / reactance_ohm(capacitance_uf, frequency_hz)
+    """Dissipation factor (tan delta) from a measured ESR: DF = ESR / Xc; nan where no capacitance was read (an
+    open capacitor's 0 µF has no reactance to compare with: its 0 would pull a dissipation trend down)."""
+    capacitance_uf = np.asarray(capacitance_uf, float)
+    with np.errstate(invalid="ignore"):
+        factor = np.asarray(esr_ohm, float) / reactance_ohm(capacitance_uf, frequency_hz)
+        return np.where(capacitance_uf > 0, factor, np.nan)
 
 
 def stored_energy_j(capacitance_uf, voltage_rms_v):

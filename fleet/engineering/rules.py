@@ -33,6 +33,8 @@ UNITS = {"uf": "µF", "a": "A", "v": "V", "c": "°C", "ohm": "Ω"}
 
 # One decimal separator, point or comma, ASCII digits, an optional exponent.
 NUMBER_TEXT = re.compile(r"[+-]?(?:[0-9]+(?:[.,][0-9]*)?|[.,][0-9]+)(?:[eE][+-]?[0-9]+)?")
+# Two separators in one number ("1.234,5", "1,234.5"): a thousands separator, refused rather than guessed.
+TWO_SEPARATORS = r"[0-9][.,][0-9]*[.,]"
 NOT_FINITE_WORDS = {"nan", "inf", "infinity", "+inf", "-inf", "+infinity", "-infinity", "+nan", "-nan"}
 
 MSG_NOT_A_NUMBER = "not a number"
@@ -58,8 +60,9 @@ def _ranges():
     memory = "from memory, unverified"
     return MappingProxyType(
         {
-            # Motor capacitors run from about 1 uF (small fans) to about 1500 uF (large start capacitors).
-            "capacitance_uf": Range(0.0, 5000.0, True, trade),
+            # Motor capacitors run from about 1 uF (small fans) to about 1500 uF (large start capacitors); 0 is
+            # a meter that shows no capacitance, an open capacitor (recorded once confirmed: `OPEN_CAPACITOR_WORDS`).
+            "capacitance_uf": Range(0.0, 5000.0, False, trade),
             # Small single-phase motors draw well under 100 A even while starting.
             "capacitor_current_a": Range(0.0, 100.0, False, memory),
             # Above this no capacitor of a motor of 1000 V or less can be (the register's own limit).
@@ -138,7 +141,19 @@ class ReadingRules:
             for name, r in self.ranges.items()
         }
         out["short_circuit_words"] = SHORT_CIRCUIT_WORDS
-        out["with_unit_words"] = MSG_WITH_UNIT
+        out["open_capacitor_words"] = OPEN_CAPACITOR_WORDS
+        # The syntax of a number and why a text is none, as `parse_numbers` says it (patterns match whole texts).
+        out["numbers"] = {
+            "number": NUMBER_TEXT.pattern,
+            "two_separators": TWO_SEPARATORS,
+            "with_unit": NUMBER_WITH_UNIT,
+            "not_finite_words": sorted(NOT_FINITE_WORDS),
+            "not_a_number_words": MSG_NOT_A_NUMBER,
+            "not_finite_number_words": MSG_NOT_FINITE,
+            "separators_words": MSG_SEPARATORS,
+            "with_unit_words": MSG_WITH_UNIT,
+        }
+        out["voltage_confirm_words"] = VOLTAGE_CONFIRM_WORDS
         return out
 
 
@@ -147,6 +162,23 @@ RULES = ReadingRules()
 SHORT_CIRCUIT_WORDS = (
     "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
     "discharge, check the capacitor with a meter, and record a replacement if it is shorted"
+)
+
+
+# A meter showing no capacitance on an isolated capacitor: an open capacitor (a broken lead or a disconnector
+# tripped inside it), judged "open circuit suspected" (under a tenth of the rating, `capacitor.tolerance_verdict`)
+# and planned for replacement now; or the leads not on the terminals (common practice of the trade, no single
+# source). Asked once, as the slips are, then kept as read.
+OPEN_CAPACITOR_WORDS = (
+    "0 µF: the meter shows no capacitance. It will be recorded as an open capacitor, to replace now. Check the "
+    "meter's leads are on the capacitor's terminals and re-measure, or confirm the value if the meter shows 0"
+)
+
+
+# A voltage far above the motor's: "{v} V is more than {k} times the motor's {s} V" (the live hint fills in the same).
+VOLTAGE_CONFIRM_WORDS = (
+    "{v:g} V is more than {k:g} times the motor's {s:g} V: a missed decimal point? Re-measure, or confirm the value "
+    "if it is right"
 )
 
 
@@ -743,7 +775,7 @@ def _why_not_a_number(given: pd.Series, ok: np.ndarray) -> np.ndarray:
         given.str.lower().isin(NOT_FINITE_WORDS).to_numpy() | ok,
         MSG_NOT_FINITE,
         np.where(
-            given.str.contains(r"[0-9][.,][0-9]*[.,]", regex=True).to_numpy(),
+            given.str.contains(TWO_SEPARATORS, regex=True).to_numpy(),
             MSG_SEPARATORS,
             np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
         ),
@@ -1029,14 +1061,13 @@ def _check_readings(
 
     for name in ("capacitor_voltage_v", "line_voltage_v"):
         v = values[name]
-        far = v > rules.voltage_confirm_factor * supply
+        far = (v > rules.voltage_confirm_factor * supply) & ~errors.has(name)  # above the range: refused, not asked
         confirm.add(
             name,
             far,
             _messages(
                 far,
-                "{v:g} V is more than {k:g} times the motor's {s:g} V: a missed decimal point? "
-                "Re-measure, or confirm the value if it is right",
+                VOLTAGE_CONFIRM_WORDS,
                 v=v,
                 k=rules.voltage_confirm_factor,
                 s=supply,
@@ -1057,6 +1088,7 @@ def _check_readings(
     )
 
     low_slip = ~in_circuit & ~errors.has("capacitance_uf")
+    confirm.add("capacitance_uf", low_slip & (values["capacitance_uf"] == 0), OPEN_CAPACITOR_WORDS)
     confirm.add("capacitance_uf", low_slip, capacitance_low_unit_slip(values["capacitance_uf"], rated, rules))
     if tolerance_plus_pct is not None:
         top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)

@@ -220,7 +220,7 @@ def test_a_refused_value_is_said_once_at_its_field_until_it_is_changed(phone, mo
     phone.shot("11-refused-said-once")
     phone.fill("#id_capacitance_uf", "3,9,6")
     assert not server_says.is_visible()
-    assert "Capacitance (µF): not a number" in phone.locator("#computed .check").inner_text()
+    assert "Capacitance (µF): use one decimal separator" in phone.locator("#computed .check").inner_text()
     phone.fill("#id_capacitance_uf", "3,9,5")  # back to what the server judged: its message again, the hint silent
     assert server_says.is_visible() and phone.locator("#computed .check").inner_text() == ""
     phone.fill("#id_capacitance_uf", "3.95")
@@ -244,3 +244,53 @@ def test_an_in_circuit_reading_far_from_its_trend_is_asked_at_a_field_in_view(ph
     phone.click("#error-summary button")
     phone.wait_for_url("**/motors/**")
     assert Reading.objects.filter(outlier_confirmed=True, method="in_circuit").count() == 1
+
+
+def test_the_hint_says_what_the_server_says_of_a_voltage_out_of_range_and_of_two_separators(
+    phone,
+    motor_with_history,  # noqa: F811
+):
+    """40000 V across the capacitor: the hint said "you will be asked to confirm" while the server refuses it
+    (above 5000 V); "1.234,5" was "not a number" in the hint and "use one decimal separator" at the server.
+    The hint now takes the server's patterns, bounds and words from the rulebook's JSON."""
+    from fleet.engineering.rules import MSG_SEPARATORS, MSG_WITH_UNIT, range_messages
+
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.check("input[value=in_circuit]")
+    phone.fill("#id_capacitor_current_a", "0.49")
+    phone.fill("#id_capacitor_voltage_v", "40000")
+    hint = phone.locator("#computed").inner_text()
+    assert range_messages("capacitor_voltage_v", [40000.0])[0] in hint and "asked to confirm" not in hint
+    phone.fill("#id_capacitor_voltage_v", "2300")  # within the range, far above the motor's: asked, in its words
+    assert "2300 V is more than 2 times the motor's 230 V: a missed decimal point?" in (
+        phone.locator("#computed").inner_text()
+    )
+    phone.check("input[value=meter]")
+    for typed, server in (("1.234,5", MSG_SEPARATORS), ("3,9 uF", MSG_WITH_UNIT), ("abc", "not a number")):
+        phone.fill("#id_capacitance_uf", typed)
+        assert f"Capacitance (µF): {server}" in phone.locator("#computed").inner_text()
+    phone.fill("#id_capacitance_uf", "1e999")
+    assert "Capacitance (µF): not a finite number" in phone.locator("#computed").inner_text()
+
+
+def test_the_hint_says_a_meter_showing_no_capacitance_is_recorded_as_an_open_capacitor(
+    phone,
+    motor_with_history,  # noqa: F811
+):
+    """0 µF was "0 must be above 0 µF": an open capacitor could not be recorded. The hint says what the server
+    asks (it is recorded as an open capacitor, to replace), and a negative value is still refused."""
+    from fleet.engineering.rules import OPEN_CAPACITOR_WORDS
+
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "0")
+    assert OPEN_CAPACITOR_WORDS + ": you will be asked to confirm" in phone.locator("#computed").inner_text()
+    phone.fill("#id_capacitance_uf", "-1")
+    hint = phone.locator("#computed").inner_text()
+    assert "Capacitance (µF): -1 must be 0 µF or more" in hint and "open capacitor" not in hint
+    phone.fill("#id_capacitance_uf", "0")
+    phone.click("#save")
+    phone.locator("#error-summary button").click(timeout=15000)
+    phone.wait_for_url("**/motors/**")
+    assert Reading.objects.filter(capacitance_uf=0, outlier_confirmed=True).count() == 1

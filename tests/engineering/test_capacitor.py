@@ -42,6 +42,14 @@ def test_dissipation_factor_is_esr_over_reactance():
     assert dissipation_factor_from_esr(1.9099, 100.0, 50.0) == pytest.approx(0.06, abs=1e-5)
 
 
+def test_an_open_capacitor_has_no_dissipation_factor():
+    """0 µF (a meter on an open capacitor) has no reactance: its DF is unknown (nan), not the 0 that
+    ESR / infinity gives, which would pull the capacitor's dissipation trend down. [derived]"""
+    with np.errstate(all="raise"):
+        factors = dissipation_factor_from_esr([0.5, 1.9099], [0.0, 100.0], 50.0)
+    assert np.isnan(factors[0]) and factors[1] == pytest.approx(0.06, abs=1e-5)
+
+
 def test_stored_energy_of_a_start_capacitor_is_tens_of_joules():
     """[trade] C V_peak^2 / 2: 200 uF charged to the peak of 330 V RMS holds 21.8 J."""
     assert stored_energy_j(200.0, 330.0) == pytest.approx(21.78, abs=0.01)
