@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
+import re
 from collections.abc import Callable
 
 import django_filters
@@ -71,10 +72,28 @@ def _motors_of(request):
 # The days a date filter takes: the rulebook's accepted span.
 FIRST_FILTER_DAY, LAST_FILTER_DAY = FIRST_ACCEPTED_DAY.astype(dt.date), LAST_ACCEPTED_DAY.astype(dt.date)
 FILTER_DAY_WORDS = f"a date {ACCEPTED_DAYS_WORDS} (YYYY-MM-DD)"
+# A text in the shape of a day: what the calendar does not hold (2027-02-30, 2026-13-01) is named as such.
+DAY_SHAPE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
+
+
+class DayField(forms.DateField):
+    """A day typed or sent; one in the shape YYYY-MM-DD that no calendar holds is "not a day of the
+    calendar", not the span's words (which read as if the date were out of range)."""
+
+    def to_python(self, value):
+        text = value.strip() if isinstance(value, str) else value
+        if isinstance(text, str) and DAY_SHAPE.fullmatch(text):
+            try:
+                dt.date.fromisoformat(text)
+            except ValueError:
+                raise ValidationError(f"{text} is not a day of the calendar", code="invalid") from None
+        return super().to_python(value)
 
 
 class DayFilter(django_filters.DateFilter):
     """A whole day (YYYY-MM-DD) from FIRST_FILTER_DAY to LAST_FILTER_DAY; another is a message naming the parameter."""
+
+    field_class = DayField
 
     def __init__(self, *args, **kwargs):
         bounds = [
@@ -156,7 +175,12 @@ class LifeDataFilter(django_filters.FilterSet):
 
 
 class BadFilter(ValueError):
-    """A query-string value that cannot be read; the message names the parameter."""
+    """Query-string values that cannot be read: `problems`, the messages by parameter (the API's shape of a 400,
+    `{"site": ["..."]}`); its text names each ("site: ...; days: ...")."""
+
+    def __init__(self, problems: dict[str, str | list[str]]):
+        self.problems = {name: [words] if isinstance(words, str) else list(words) for name, words in problems.items()}
+        super().__init__(problems_text({name: " ".join(words) for name, words in self.problems.items()}))
 
 
 def query_value(query, name: str) -> str | None:
@@ -212,10 +236,10 @@ def filtered(filterset_class, query, queryset, request=None):
     not one of the filterset's, or is given twice."""
     problems = parameter_problems(query, set(filterset_class.base_filters))
     if problems:
-        raise BadFilter(problems_text(problems))
+        raise BadFilter(problems)
     parameters = filterset_class(query, queryset=queryset, request=request)
     if not parameters.is_valid():
-        raise BadFilter("; ".join(f"{name}: {' '.join(errors)}" for name, errors in parameters.errors.items()))
+        raise BadFilter(parameters.errors)
     return parameters.qs
 
 
@@ -366,11 +390,11 @@ class PlanParameters(_PageParameters):
         fields = ["site", "days"]
 
 
-def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site | None, int, list[str]]:
-    """(site, horizon in days, messages on what was ignored) from a plan query string; a site
+def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site | None, int, dict[str, str]]:
+    """(site, horizon in days, the message on each parameter ignored) from a plan query string; a site
     the requesting user does not work at is ignored like an unknown one."""
     values, refused = page_parameters(PlanParameters, query, request)
-    problems = [f"{name}: {message.rstrip('.')}" for name, message in refused.items()]
+    problems = {name: message.rstrip(".") for name, message in refused.items()}
     return values.get("site"), int(values.get("days") or default_days), problems
 
 

@@ -409,4 +409,4 @@ def test_an_export_refuses_a_parameter_it_does_not_take_or_one_given_twice(clien
     assert twice.status_code == 400
     assert "site: Give site once (given 2 times: NORD, SUD)" in twice.content.decode()
     about = client.get(reverse("export_about", args=[kind]), {"bogus": "1"})
-    assert about.status_code == 400 and "bogus" in about.json()["error"]
+    assert about.status_code == 400 and "Not a parameter of this list" in about.json()["bogus"][0]

@@ -148,6 +148,42 @@ def test_an_assessment_export_date_filter_out_of_range_is_a_400(client, engineer
     assert response.status_code == 400 and "replace_by_before" in response.content.decode()
 
 
+@pytest.mark.parametrize(
+    ("address", "query"),
+    [
+        ("/api/assessments/", "replace_by_before=2027-02-30"),
+        ("/api/readings/", "since=2026-13-01"),
+        ("/exports/readings-about.json", "since=2026-02-29"),
+        ("/exports/assessments-about.json", "replace_by_before=2027-02-30"),
+    ],
+)
+def test_a_day_the_calendar_does_not_hold_is_named_so_not_as_out_of_range(client, engineer, address, query):
+    """2027-02-30 was "a date from 1900-01-01 to 2199-12-31 (YYYY-MM-DD)", which reads as a span's problem; 2027
+    is no leap year and no year has a 13th month [pub: the Gregorian calendar]. The API and the exports' sidecar
+    answer by parameter in one shape, `{"since": ["..."]}`, through the one day filter."""
+    client.force_login(engineer)
+    name, day = query.split("=")
+    response = client.get(f"{address}?{query}")
+    assert response.status_code == 400
+    assert response.json() == {name: [f"{day} is not a day of the calendar"]}
+
+
+def test_an_export_names_a_day_the_calendar_does_not_hold_in_its_plain_text(client, engineer):
+    client.force_login(engineer)
+    response = client.get("/exports/readings.csv?since=2026-13-01")
+    assert response.status_code == 400
+    assert response.content.decode() == "Cannot read the filter: since: 2026-13-01 is not a day of the calendar"
+
+
+def test_an_export_sidecar_refuses_a_site_in_the_apis_shape(client, engineer):
+    """`/exports/readings-about.json?site=XX` answered `{"error": "site: ..."}`, the API `{"site": [...]}`."""
+    client.force_login(engineer)
+    about = client.get("/exports/readings-about.json?site=XX")
+    api = api_for(engineer).get("/api/readings/", {"site": "XX"})
+    assert about.status_code == api.status_code == 400
+    assert about.json() == api.json() and list(about.json()) == ["site"]
+
+
 def test_the_last_day_a_filter_takes_still_answers(engineer, fan_fitted_capacitor):
     response = api_for(engineer).get("/api/readings/", {"since": "1900-01-01", "until": "2199-12-31"})
     assert response.status_code == 200

@@ -19,7 +19,6 @@ from fleet.filters import (
     filtered,
     parameter_problems,
     plan_parameters,
-    problems_text,
 )
 from fleet.models import Assessment, FittedCapacitor, Reading
 from fleet.roles import scope_to_user
@@ -261,10 +260,10 @@ def plan_table(query, user, request=None) -> Table:
     """The replacement plan as the plan page shows it (site and horizon from the query string)."""
     unknown_or_repeated = parameter_problems(query, set(PlanParameters.base_filters))
     if unknown_or_repeated:
-        raise BadFilter(problems_text(unknown_or_repeated))
+        raise BadFilter(unknown_or_repeated)
     site, horizon, problems = plan_parameters(query, request=request)
     if problems:  # a file cannot carry the page's note: a horizon or site it cannot use is refused by name,
-        raise BadFilter("; ".join(problems))  # as the other exports refuse theirs, never taken as the default
+        raise BadFilter(problems)  # as the other exports refuse theirs, never taken as the default
     rows = _rows(pages.replacement_plan(horizon, site, user), PLAN_COLUMNS)
     about = _about(query, horizon_days=horizon, site=site.code if site else None)
     return Table("replacement plan", PLAN_COLUMNS, rows, about)

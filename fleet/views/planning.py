@@ -66,8 +66,8 @@ VISIT_SHEET_PAGE_SIZE = 100  # orders a visit sheet lists: a few printed pages
 @takes_parameters("site", "days", "page")
 def plan(request):
     site, horizon, problems = plan_parameters(request.GET, request=request)
-    for problem in problems:
-        messages.warning(request, f"Ignored {problem}")
+    for name, problem in problems.items():
+        messages.warning(request, f"Ignored {name}: {problem}")
     page = list_page(request, Paginator(pages.replacement_plan(horizon, site, request.user), 50).get_page)
     sites = list(scope_to_user(Site.objects.all(), request.user))
     context = {
@@ -109,7 +109,7 @@ def work_orders(request):
         if action == "plan":
             _, horizon, problems = plan_parameters(request.POST.dict() | {"site": ""}, request=request)
             if problems:
-                messages.error(request, f"No work orders planned: {'; '.join(problems)}.")
+                messages.error(request, f"No work orders planned: {problems_text(problems)}.")
                 return redirect("work_orders")
             messages.success(request, plan_message(plan_work_orders(horizon_days=horizon, user=request.user)))
         elif action == "issue":

@@ -64,8 +64,8 @@ def export_about(request, kind):
     """The sidecar of an export: each column's type, unit and meaning, the model version, the filters."""
     try:
         table = _export_table(request, kind)
-    except BadFilter as error:
-        return JsonResponse({"error": str(error)}, status=400)
+    except BadFilter as error:  # as the API answers a 400: the messages by parameter
+        return JsonResponse(error.problems, status=400, json_dumps_params={"ensure_ascii": False})
     return JsonResponse(table.describe(), json_dumps_params={"ensure_ascii": False})
 
 
