@@ -8,7 +8,7 @@ from django import forms
 from django.conf import settings
 from django.utils import timezone
 
-from fleet.imports.columns import parse_site_time
+from fleet.imports.columns import missing_required_words, parse_site_time
 
 from .engineering.rules import RULES
 from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
@@ -268,6 +268,7 @@ class ColumnMappingForm(forms.Form):
         **kwargs,
     ):
         super().__init__(*args, **kwargs)
+        self.columns, self.required = columns, required
         choices = [("", "(not in this file)")] + [(c, c) for c in columns]
         for name, description in ours.items():
             self.fields[name] = forms.ChoiceField(
@@ -276,12 +277,22 @@ class ColumnMappingForm(forms.Form):
                 label=name,
                 help_text=description,
                 initial=initial_mapping.get(name, ""),
+                error_messages={"required": "Required: choose the file's column that holds it."},
             )
+
+    def missing_words(self, chosen: dict[str, str]) -> str:
+        """The sentence for the top of the page where a required field has no column in `chosen` ("" if none)."""
+        missing = [name for name in self.required if not chosen.get(name)]
+        remedy = "add the column to the file and upload it again, or choose the column that holds it under Columns"
+        return missing_required_words(missing, self.columns, remedy) if missing else ""
 
     def clean(self):
         """One column holds one field: a column chosen twice (case temperature read as capacitance,
         40 °C taken as 40 µF) is refused at each field but the first that names it."""
         cleaned = super().clean()
+        missing = self.missing_words(cleaned)
+        if missing:
+            self.add_error(None, missing)
         first_field: dict[str, str] = {}
         for name in self.fields:
             column = cleaned.get(name)

@@ -12,7 +12,7 @@ from openpyxl import Workbook
 from fleet.exports import safe_cell
 from fleet.imports.files import FileRefused, read_table
 from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
-from fleet.services.import_jobs import check_job, create_job, import_file, rejected_rows_csv, run_job
+from fleet.services.import_jobs import check_file, check_job, create_job, import_file, rejected_rows_csv, run_job
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, motor_values
 
 pytestmark = pytest.mark.django_db
@@ -316,6 +316,37 @@ def test_the_import_page_names_the_columns_it_does_not_read(client, technician, 
     assert job.state == ImportJob.State.CHECKED
     page = client.get(reverse("import_detail", args=[job.id])).content.decode()
     assert "not imported (no field is read from it): <strong>case_temprature_c</strong>" in page
+
+
+def test_a_file_without_a_required_column_is_told_at_the_top_which_one_and_the_columns_it_has(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """A readings file without `role` showed only "This field is required." by the role box, no summary at the
+    top: the page says at the top, as soon as the file is read and again when checked, which required field no
+    column holds and the file's columns; the command and the worker say the same sentence."""
+    fleet_of(1)
+    client.force_login(technician)
+    header = [name for name in HEADER if name != "role"]
+    content = csv_of([row[:1] + row[2:] for row in good_rows(["IMP-0000"], 2)], header=header)
+    upload = io.BytesIO(content)
+    upload.name = "quarter.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get()
+    says = f"No column holds the required field role (the file&#x27;s columns: {', '.join(header)})"
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert 'id="import-missing"' in page and says in page
+    with django_capture_on_commit_callbacks(execute=True):
+        mapping = {name: name for name in header}
+        answer = client.post(reverse("import_detail", args=[job.id]), {"action": "check", **mapping})
+    page = answer.content.decode()
+    summary = page[page.index('id="error-summary"') : page.index("</div>", page.index('id="error-summary"'))]
+    assert says in summary and 'href="#wrap_role"' in summary
+    assert "This field is required" not in page and "Required: choose the file&#x27;s column that holds it" in page
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.UPLOADED
+    with pytest.raises(FileRefused, match=r"required field role \(the file's columns: asset_tag, taken_at"):
+        check_file(kind="readings", filename="quarter.csv", content=content)
 
 
 def test_one_column_chosen_for_two_fields_is_refused_at_the_second(

@@ -159,6 +159,24 @@ class ReadingRules:
 
 RULES = ReadingRules()
 
+# Every case in which the rulebook asks to confirm a value rather than refuse it, in words: each `confirm.add` of
+# `_check_readings` names its case (tests/engineering/test_rules.py holds the two lists together), and the
+# readings import's `confirmed` column lists them all in its help.
+CONFIRMATION_CASES = MappingProxyType(
+    {
+        "off_trend": f"a capacitance more than {RULES.off_trend_fraction * 100:g} % of the rating off the "
+        "capacitor's trend",
+        "above_tolerance": "a capacitance above the part's tolerance",
+        "voltage_high": f"a capacitor or line voltage over {RULES.voltage_confirm_factor:g} times the motor's",
+        "line_voltage_low": f"a line voltage under {RULES.line_voltage_low_share * 100:g} % of the motor's",
+        "new_capacitor_low": f"a capacitor fitted within {RULES.new_capacitor_days} days read under "
+        f"{RULES.new_capacitor_low_share * 100:g} % of its rating",
+        "case_hot": f"a case more than {RULES.case_over_rating_k:g} K above the part's highest temperature",
+        "unit_slip": "a capacitance that is the rating typed in farads or millifarads, or a tenth of it",
+        "open_capacitor": "0 µF by the meter: an open capacitor, to replace now",
+    }
+)
+
 SHORT_CIRCUIT_WORDS = (
     "current flows with almost no voltage across the capacitor: short circuit suspected. Isolate, lock out, "
     "discharge, check the capacitor with a meter, and record a replacement if it is shorted"
@@ -887,7 +905,11 @@ class _Collector:
         self.by_field: dict[str, np.ndarray] = {}
         self.flagged: dict[str, np.ndarray] = {}  # by_field[name] != "", kept as it changes (no text compared)
 
-    def add(self, name: str, mask, message) -> None:
+    def add(self, name: str, mask, message, case: str = "") -> None:
+        """The message on the rows of `mask` where the field has none yet; `case`: a key of CONFIRMATION_CASES
+        where a value is asked to be confirmed."""
+        if case and case not in CONFIRMATION_CASES:
+            raise KeyError(case)
         mask = np.broadcast_to(np.asarray(mask, bool), (self.n,))
         if name not in self.by_field:
             self.by_field[name] = np.full(self.n, "", dtype=object)
@@ -1072,6 +1094,7 @@ def _check_readings(
                 k=rules.voltage_confirm_factor,
                 s=supply,
             ),
+            case="voltage_high",
         )
     line = values["line_voltage_v"]
     low_line = (line > 0) & (line < rules.line_voltage_low_share * supply) & ~errors.has("line_voltage_v")
@@ -1085,11 +1108,16 @@ def _check_readings(
             v=line,
             s=supply,
         ),
+        case="line_voltage_low",
     )
 
     low_slip = ~in_circuit & ~errors.has("capacitance_uf")
-    confirm.add("capacitance_uf", low_slip & (values["capacitance_uf"] == 0), OPEN_CAPACITOR_WORDS)
-    confirm.add("capacitance_uf", low_slip, capacitance_low_unit_slip(values["capacitance_uf"], rated, rules))
+    confirm.add(
+        "capacitance_uf", low_slip & (values["capacitance_uf"] == 0), OPEN_CAPACITOR_WORDS, case="open_capacitor"
+    )
+    confirm.add(
+        "capacitance_uf", low_slip, capacitance_low_unit_slip(values["capacitance_uf"], rated, rules), case="unit_slip"
+    )
     if tolerance_plus_pct is not None:
         top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)
         checked = (
@@ -1107,6 +1135,7 @@ def _check_readings(
                 c=values["capacitance_uf"],
                 t=top,
             ),
+            case="above_tolerance",
         )
         confirm.add(
             "capacitor_voltage_v",
@@ -1120,6 +1149,7 @@ def _check_readings(
                 t=top,
                 v=values["capacitor_voltage_v"],
             ),
+            case="above_tolerance",
         )
     if max_case_temperature_c is not None:
         case = values["case_temperature_c"]
@@ -1136,6 +1166,7 @@ def _check_readings(
                 m=highest,
                 c=(case - 32.0) * 5.0 / 9.0,
             ),
+            case="case_hot",
         )
 
     _check_dates(errors, n, taken_at, taken_on, fitted_on, removed_on, now, rules, time_zone)
@@ -1161,8 +1192,8 @@ def _check_readings(
         )
         # In circuit the capacitance is computed: the message goes where the tolerance's does, on the voltage
         # read across the capacitor (the meter's field is not in use, nor shown on the form).
-        confirm.add("capacitance_uf", drift & ~in_circuit, drift_words)
-        confirm.add("capacitor_voltage_v", drift & in_circuit, drift_words)
+        confirm.add("capacitance_uf", drift & ~in_circuit, drift_words, case="off_trend")
+        confirm.add("capacitor_voltage_v", drift & in_circuit, drift_words, case="off_trend")
     no_trend = np.full(n, True) if predicted_uf is None else np.isnan(_column(predicted_uf, n))
     taken_day = _column(taken_at, n, "datetime64[s]").astype("datetime64[D]")
     fitted_day = _column(fitted_on, n, "datetime64[D]")
@@ -1186,8 +1217,8 @@ def _check_readings(
         d=fitted_day,
         r=rated,
     )
-    confirm.add("capacitance_uf", low_new & ~in_circuit, low_new_words)
-    confirm.add("capacitor_voltage_v", low_new & in_circuit, low_new_words)
+    confirm.add("capacitance_uf", low_new & ~in_circuit, low_new_words, case="new_capacitor_low")
+    confirm.add("capacitor_voltage_v", low_new & in_circuit, low_new_words, case="new_capacitor_low")
     confirmed = _column(confirmed, n, bool)
     kept_confirm = {name: np.where(confirmed, "", m) for name, m in confirm.by_field.items()}
     asked = np.logical_or.reduce([*confirm.flagged.values(), np.zeros(n, bool)])

@@ -14,6 +14,7 @@ import pandas as pd
 
 from fleet.engineering.rules import (
     ACCEPTED_DAYS_WORDS,
+    CONFIRMATION_CASES,
     FIRST_ACCEPTED_DAY,
     LAST_ACCEPTED_DAY,
     known_time_zone,
@@ -40,9 +41,9 @@ READING_COLUMNS = {
     "notes": "Free text",
     "fitted_capacitor_id": "The capacitor read, by its id in the readings export (optional: it must be this motor's "
     "capacitor in this role; empty: the one fitted that day)",
-    "confirmed": "yes to keep a value the reading form would ask to confirm (far off the capacitor's trend, a "
-    "voltage far above the motor's, a case far above the part's highest), as re-checked; no or empty: such a row "
-    "is refused (also true/false, 1/0)",
+    "confirmed": "yes to keep a value the reading form would ask to confirm ("
+    + "; ".join(CONFIRMATION_CASES.values())
+    + "), as re-checked; no or empty: such a row is refused (also true/false, 1/0)",
 }
 READING_REQUIRED = ("asset_tag", "role", "taken_at")
 
@@ -104,6 +105,14 @@ def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
 
     by_norm = {norm(c): c for c in columns}
     return {name: by_norm[norm(name)] for name in ours if norm(name) in by_norm}
+
+
+def missing_required_words(missing: list[str], header: list[str], remedy: str) -> str:
+    """What a file without a column for each of `missing` (required fields) is told, with the columns it has:
+    one sentence for the import page, the command and the worker."""
+    fields = "field" + ("s " if len(missing) > 1 else " ") + ", ".join(missing)
+    has = ", ".join(header) if header else "none"
+    return f"No column holds the required {fields} (the file's columns: {has}): {remedy}."
 
 
 def mapped_frame(

@@ -214,8 +214,9 @@ def check_file(
     missing = [name for name in spec.required if mapping.get(name) not in header]
     if missing:
         raise files.FileRefused(
-            "No column holds the required field" + ("s " if len(missing) > 1 else " ") + ", ".join(missing) + ": "
-            "name the headings as documented, or match the columns by hand on the import page."
+            columns.missing_required_words(
+                missing, header, "name the headings as documented, or match the columns by hand on the import page"
+            )
         )
     if on_progress:
         on_progress(0, len(rows))

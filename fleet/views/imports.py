@@ -86,6 +86,8 @@ def import_detail(request, job_id):
         "errors": job.errors[:200],
         "left_out": columns_left_out(job.columns, job.mapping) if job.mapping else [],
         "open_visits": open_visits_shown(job),
+        # Before a check is asked: a required field the headings did not match, said at the top at once.
+        "missing": "" if form.is_bound else form.missing_words(job.mapping or {}),
     }
     return render(request, "fleet/import_detail.html", context)
 

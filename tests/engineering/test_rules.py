@@ -351,3 +351,26 @@ def test_a_new_capacitor_read_far_below_its_rating_asks_whether_the_right_part_i
     assert "fitted 2026-04-20" not in trend.confirm.get("capacitance_uf", [""])[0]
     kept = check({"capacitance_uf": ["2"]}, taken_at=taken[:1], fitted_on=fitted, confirmed=True)
     assert not kept.needs_confirmation.any() and kept.values["capacitance_uf"][0] == 2.0
+
+
+def test_every_confirmation_the_rulebook_asks_is_a_named_case_listed_in_the_imports_confirmed_help():
+    """The import's `confirmed` help named three of the cases the rulebook asks about (ours): each `confirm.add` of
+    the rulebook names its case, every case is used, and the column's help lists each in its words."""
+    import ast
+    import inspect
+
+    from fleet.engineering import rules
+    from fleet.imports.columns import READING_COLUMNS
+
+    tree = ast.parse(inspect.getsource(rules))
+    asked = [
+        node
+        for node in ast.walk(tree)
+        if isinstance(node, ast.Call)
+        and isinstance(node.func, ast.Attribute)
+        and node.func.attr == "add"
+        and getattr(node.func.value, "id", "") == "confirm"
+    ]
+    named = [next((k.value.value for k in node.keywords if k.arg == "case"), None) for node in asked]
+    assert None not in named and set(named) == set(rules.CONFIRMATION_CASES)
+    assert all(words in READING_COLUMNS["confirmed"] for words in rules.CONFIRMATION_CASES.values())
