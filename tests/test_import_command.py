@@ -851,6 +851,35 @@ def test_a_days_off_import_names_the_open_visits_on_its_days(
     assert f'href="{sheet}"' in page and "2 open work orders" in page
 
 
+def test_days_off_and_the_register_take_a_site_code_in_any_case_as_the_sites_pages_do(
+    tmp_path, client, planner, django_capture_on_commit_callbacks
+):
+    """`cst` was "unknown site code" in the days-off import while /sites/cst/route/ finds CST: codes are unique in
+    any case (the database's site_code_unique_any_case), so the imports find a site by its code in any case, the
+    repeat of a day is one whichever case names the site, and a planner's own site in lower case is still his."""
+    from fleet.models import SiteDayOff, SiteMembership
+
+    run("sites", write(tmp_path, "sites.csv", SITES))
+    today = timezone.localdate()
+    monday = today + dt.timedelta(days=7 - today.weekday())
+    soon, later = monday + dt.timedelta(days=14), monday + dt.timedelta(days=21)
+    text = f"site_code,day,name\npk,{soon},harvest shutdown\nPk,{soon},again\ncs,{soon},public holiday\n"
+    report = run("days_off", write(tmp_path, "days.csv", text), "--good-rows-only")
+    assert "3 rows: 2 good" in report and "row 3, day: the same site and day as row 2" in report
+    assert set(SiteDayOff.objects.values_list("site__code", "day")) == {("PK", soon), ("CS", soon)}
+    with pytest.raises(CommandError, match="Nothing was imported"):
+        run("days_off", write(tmp_path, "again.csv", f"site_code,day,name\npK,{soon},harvest shutdown\n"))
+    SiteMembership.objects.create(user=planner, site=Site.objects.get(code="PK"))
+    client.force_login(planner)
+    job = checked_on_the_web(
+        client, django_capture_on_commit_callbacks, "days_off", f"site_code,day,name\npk,{later},shutdown\n"
+    )
+    assert job.state == ImportJob.State.CHECKED and job.good_rows == 1, job.errors
+    run("parts", write(tmp_path, "parts.csv", PARTS))
+    run("register", write(tmp_path, "register.csv", REGISTER.replace(",PK,", ",pk,").replace(",CS,", ",cS,")))
+    assert set(Motor.objects.values_list("asset_tag", "site__code")) == {("FAN-1", "PK"), ("CMP-1", "CS")}
+
+
 @pytest.mark.parametrize(
     "typed,stored,words",
     [

@@ -154,6 +154,7 @@ class ReadingRules:
             "with_unit_words": MSG_WITH_UNIT,
         }
         out["voltage_confirm_words"] = VOLTAGE_CONFIRM_WORDS
+        out["nanofarad_words"] = NANOFARAD_WORDS
         return out
 
 
@@ -193,6 +194,12 @@ OPEN_CAPACITOR_WORDS = (
 )
 
 
+# A capacitance typed in nanofarads (refused: no capacitor reads 300 times its rating), with the next step; the live
+# hint fills in the same words (each value as `plain_number`).
+NANOFARAD_WORDS = (
+    "{c} looks like nanofarads: {uf} µF? (rated {r} µF). Type it in µF: {uf} (the meter's nF range shows a thousand "
+    "times the µF)"
+)
 # A voltage far above the motor's: "{v} V is more than {k} times the motor's {s} V" (the live hint fills in the same).
 VOLTAGE_CONFIRM_WORDS = (
     "{v:g} V is more than {k:g} times the motor's {s:g} V: a missed decimal point? Re-measure, or confirm the value "
@@ -611,9 +618,7 @@ def capacitance_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES)
     wild = ~nano & (ratio > rules.wrong_capacitor_ratio)
     return np.where(
         nano,
-        _messages(
-            nano, "{c} looks like nanofarads: {uf} µF? (rated {r} µF)", plain=("c", "uf", "r"), c=c, uf=c / 1e3, r=rated
-        ),
+        _messages(nano, NANOFARAD_WORDS, plain=("c", "uf", "r"), c=c, uf=c / 1e3, r=rated),
         _messages(
             wild,
             "{c} µF is over three times the rated {r} µF: wrong capacitor or unit?",

@@ -50,7 +50,7 @@ READING_REQUIRED = ("asset_tag", "role", "taken_at")
 
 REGISTER_COLUMNS = {
     "asset_tag": "Motor asset tag, unique (required)",
-    "site_code": "Site code, as in the register (required)",
+    "site_code": "Site code, as in the register, in any case (required)",
     "location": "Where the motor is",
     "application": "fan, pump, compressor, conveyor or other (required)",
     "motor_type": "capacitor_start, permanent_split or two_value (required)",
@@ -371,7 +371,7 @@ HISTORY_COLUMNS = {
 }
 HISTORY_REQUIRED = ("asset_tag", "role", "part_code", "fitted_on")
 DAY_OFF_COLUMNS = {
-    "site_code": "Site code, as in the register (required)",
+    "site_code": "Site code, as in the register, in any case (required)",
     "day": "The day off, ISO 8601, e.g. 2027-03-29: today or later, within the plan's two years (required)",
     "name": "What the day is: a public holiday's name, shutdown, ..., up to 80 characters (required)",
 }

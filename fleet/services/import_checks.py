@@ -85,7 +85,7 @@ def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
     if column == "site_code":
         codes = frame["site_code"]
         messages = codes.map("site {}, which you do not work at".format).to_numpy(dtype=object)
-        problems.add(codes.ne("") & ~codes.isin(mine), "site_code", messages)
+        problems.add(codes.ne("") & ~codes.str.upper().isin({code.upper() for code in mine}), "site_code", messages)
         return problems
     tags = frame[column].str.upper()
     wanted = sorted(t for t in set(tags) - {""} if "\x00" not in t)
@@ -517,9 +517,17 @@ def codes_in_any_case(problems: _Problems, codes: pd.Series, stored, what: str) 
     return (held.notna() & ~other_case).to_numpy(bool)
 
 
+def site_ids_in_any_case(codes: pd.Series) -> pd.Series:
+    """Per row, the id of the site its code names in any case (codes are unique in any case, and a site's pages
+    find theirs so: `cst` is CST); NaN where no site has it. One query."""
+    by_upper = {code.upper(): pk for code, pk in Site.objects.values_list("code", "id")}
+    return codes.str.upper().map(by_upper)
+
+
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
-    """Validate a motor register: sites and parts must exist; tags already there are skipped."""
-    sites = dict(Site.objects.values_list("code", "id"))
+    """Validate a motor register: sites (by code in any case) and parts must exist; tags already there are
+    skipped."""
+    site_id = site_ids_in_any_case(frame["site_code"])
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
     existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
     problems = _Problems(frame)
@@ -533,7 +541,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(
-        ~frame["site_code"].isin(sites), "site_code", _unknown("site code", frame["site_code"], "add the site first")
+        site_id.isna().to_numpy(), "site_code", _unknown("site code", frame["site_code"], "add the site first")
     )
     for name, allowed in (
         ("application", Motor.Application.values),
@@ -605,7 +613,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     good = frame[good_mask].copy()
     for name in REGISTER_NUMBERS:
         good[name] = numbers[name][good_mask]
-    good["site_id"] = good["site_code"].map(sites)
+    good["site_id"] = site_id[good_mask].astype("int64")
     if on_progress:
         on_progress(len(frame))
     return CheckResult(
@@ -681,30 +689,28 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in DAY_OFF_REQUIRED:
         problems.add(frame[name].str.strip().eq(""), name, "required")
-    sites = dict(Site.objects.values_list("code", "id"))
+    site_id = site_ids_in_any_case(frame["site_code"])
     problems.add(
-        ~frame["site_code"].isin(sites), "site_code", _unknown("site code", frame["site_code"], "add the site first")
+        site_id.isna().to_numpy(), "site_code", _unknown("site code", frame["site_code"], "add the site first")
     )
     day = parse_dates(frame["day"])
     problems.add(day.isna().to_numpy(), "day", "not a day of the calendar: give it as year-month-day, e.g. 2027-03-29")
     today = timezone.localdate()
     said = day_off_problems(day.to_numpy("datetime64[D]"), today, PlanningSettings().working_days)
     problems.add(said != "", "day", said)
-    keys = frame["site_code"] + " " + day.dt.strftime("%Y-%m-%d").fillna("")
-    repeated_in_file(problems, keys.where(day.notna()), "day", "the same site and day")
-    stored = {
-        f"{code} {held.isoformat()}"
-        for code, held in SiteDayOff.objects.filter(day__gte=today).values_list("site__code", "day")
-    }
+    keys = site_id.fillna(-1).astype("int64").astype(str) + " " + day.dt.strftime("%Y-%m-%d").fillna("")
+    repeated_in_file(problems, keys.where(day.notna() & site_id.notna()), "day", "the same site and day")
+    held = SiteDayOff.objects.filter(day__gte=today).values_list("site_id", "day")
+    stored = {f"{site} {day_off.isoformat()}" for site, day_off in held}
     return _result(frame, problems, keys.isin(stored).to_numpy(bool), on_progress)
 
 
 def insert_days_off(good: pd.DataFrame) -> int:
-    sites = dict(Site.objects.values_list("code", "id"))
+    site_ids = site_ids_in_any_case(good["site_code"]).astype("int64").tolist()
     SiteDayOff.objects.bulk_create(
         [
-            SiteDayOff(site_id=sites[row.site_code], day=dt.date.fromisoformat(row.day[:10]), name=row.name.strip())
-            for row in good.itertuples(index=False)
+            SiteDayOff(site_id=site, day=dt.date.fromisoformat(row.day[:10]), name=row.name.strip())
+            for site, row in zip(site_ids, good.itertuples(index=False), strict=True)
         ],
         batch_size=2000,
     )

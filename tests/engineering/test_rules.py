@@ -374,3 +374,14 @@ def test_every_confirmation_the_rulebook_asks_is_a_named_case_listed_in_the_impo
     named = [next((k.value.value for k in node.keywords if k.arg == "case"), None) for node in asked]
     assert None not in named and set(named) == set(rules.CONFIRMATION_CASES)
     assert all(words in READING_COLUMNS["confirmed"] for words in rules.CONFIRMATION_CASES.values())
+
+
+def test_a_capacitance_in_nanofarads_says_the_next_step():
+    """ "143000 looks like nanofarads: 143 µF?" stopped at the question, where the millifarad slip says what to do:
+    it says to type it in µF, with the value. [trade] a meter's nF range shows a thousand times the µF."""
+    from fleet.engineering.rules import capacitance_unit_slip
+
+    assert capacitance_unit_slip([143000.0], 143.0)[0] == (
+        "143000 looks like nanofarads: 143 µF? (rated 143 µF). Type it in µF: 143 (the meter's nF range shows a "
+        "thousand times the µF)"
+    )
