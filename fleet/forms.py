@@ -161,6 +161,19 @@ class ReplacementForm(forms.Form):
         self.fields["part"].queryset = same_kind
         self.fields["part"].initial = design.pk
 
+    def replacement_values(self) -> dict:
+        """What was read, under `readings.replace_capacitor`'s names (None where a value was not read)."""
+        data = self.cleaned_data
+        return {
+            "part": data.get("part"),
+            "removed_on": data.get("removed_on"),
+            "reason": data.get("removal_reason"),
+            "serial": data.get("serial") or "",
+            "notes": data.get("notes") or "",
+            "substitute_override": bool(data.get("substitute_override")),
+            "override_reason": data.get("override_reason") or "",
+        }
+
 
 class MoveVisitForm(forms.Form):
     """The day to move a whole site visit to; `workorders.move_visit` holds the rules (working day, not past)."""

@@ -123,6 +123,26 @@ def test_a_replacement_without_a_reason_says_what_to_choose(signed_in, technicia
     assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1  # nothing saved
 
 
+def test_a_replacement_with_no_reason_and_a_future_day_names_both_in_one_answer(
+    signed_in, technician, fan_fitted_capacitor
+):
+    """An empty removal reason was named first, and the future "Replaced on" day only once it was chosen: two
+    round trips for two problems. Both come back at their fields in one answer (ours), nothing saved."""
+    url = reverse("replace", args=[fan_fitted_capacitor.id])
+    tomorrow = timezone.localdate() + dt.timedelta(days=2)
+    response = signed_in(technician).post(url, {"part": fan_fitted_capacitor.part_id, "removed_on": tomorrow})
+    page = response.content.decode()
+    assert response.status_code == 200
+    assert "Choose why the old capacitor came out" in page and "The removal date is in the future." in page
+    assert "Not saved: 2 to put right" in page
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
+    # A serial too long and a removal day before the fitting day, with the reason given: both named at once.
+    before = fan_fitted_capacitor.fitted_on - dt.timedelta(days=1)
+    form = {"part": fan_fitted_capacitor.part_id, "removed_on": before, "removal_reason": "failed", "serial": "S" * 81}
+    page = signed_in(technician).post(url, form).content.decode()
+    assert "Removal date is before the fitting date" in page and "a serial or date code takes at most" in page
+
+
 def test_replacement_notes_are_bounded_like_a_readings(signed_in, technician, fan_fitted_capacitor):
     """The replacement form took 200,000 characters of notes; a reading's stop at 2,000."""
     url = reverse("replace", args=[fan_fitted_capacitor.id])

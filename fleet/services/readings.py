@@ -379,32 +379,20 @@ def replace_capacitor(
     (a double tap, two copies at once) returns the successor fitted the first time, `replayed`.
     """
     override_reason = (override_reason or "").strip()
-    if part.pk != design_part(fitted_capacitor).pk:
-        advice = verdict_of_part(fitted_capacitor, part)
-        if advice["verdict"] != SUITABLE and not substitute_override:
-            raise ValidationError(
-                {
-                    "substitute_override": f"{part.code} is {advice['verdict']} here ("
-                    + "; ".join(advice["concerns"])
-                    + "). Tick the override and give a reason to fit it anyway."
-                }
-            )
-    if substitute_override and not override_reason:
-        raise ValidationError({"override_reason": "Say why this part is fitted against the advice."})
-    serial_max_chars = FittedCapacitor._meta.get_field("serial").max_length
-    if len(serial) > serial_max_chars:
-        raise ValidationError(
-            {"serial": f"{len(serial)} characters: a serial or date code takes at most {serial_max_chars}."}
-        )
+    problems = replacement_problems(
+        fitted_capacitor,
+        part=part,
+        removed_on=removed_on,
+        reason=reason,
+        serial=serial,
+        substitute_override=substitute_override,
+        override_reason=override_reason,
+    )
+    if problems:
+        raise ValidationError(problems)
     sent = {"part": part, "serial": serial, "notes": notes, "removed_on": removed_on, "reason": reason}
     if fitted_capacitor.removed_on is not None:
         return _replacement_sent_before(fitted_capacitor, **sent)
-    if removed_on < fitted_capacitor.fitted_on:
-        raise ValidationError({"removed_on": f"Removal date is before the fitting date {fitted_capacitor.fitted_on}."})
-    if removed_on > timezone.localdate(timezone=site_zone(fitted_capacitor.motor.site.time_zone)):
-        raise ValidationError({"removed_on": "The removal date is in the future."})
-    if reason not in FittedCapacitor.RemovalReason.values:
-        raise ValidationError({"removal_reason": "Choose why the capacitor was removed."})
     with transaction.atomic():
         locked = FittedCapacitor.objects.select_for_update().get(pk=fitted_capacitor.pk)
         if locked.removed_on is not None:  # replaced meanwhile (the same form sent twice at once?)
@@ -432,6 +420,46 @@ def replace_capacitor(
         )
     fitted_capacitor.refresh_from_db()
     return successor
+
+
+def replacement_problems(
+    fitted_capacitor: FittedCapacitor,
+    *,
+    part=None,
+    removed_on: dt.date | None = None,
+    reason: str | None = None,
+    serial: str = "",
+    substitute_override: bool = False,
+    override_reason: str = "",
+) -> dict[str, str]:
+    """Every problem of a replacement as sent, by field, all at once (a form with a problem of its own gets the
+    others in the same answer); a value None was not given or not read, and is the form's to name. The dates
+    and the reason are judged on a capacitor still in service (one already out is a replay, or refused by name)."""
+    problems = {}
+    if part is not None and part.pk != design_part(fitted_capacitor).pk:
+        advice = verdict_of_part(fitted_capacitor, part)
+        if advice["verdict"] != SUITABLE and not substitute_override:
+            problems["substitute_override"] = (
+                f"{part.code} is {advice['verdict']} here ("
+                + "; ".join(advice["concerns"])
+                + "). Tick the override and give a reason to fit it anyway."
+            )
+    if substitute_override and not (override_reason or "").strip():
+        problems["override_reason"] = "Say why this part is fitted against the advice."
+    serial_max_chars = FittedCapacitor._meta.get_field("serial").max_length
+    if len(serial or "") > serial_max_chars:
+        problems["serial"] = f"{len(serial)} characters: a serial or date code takes at most {serial_max_chars}."
+    if fitted_capacitor.removed_on is not None:
+        return problems
+    if removed_on is not None and removed_on < fitted_capacitor.fitted_on:
+        problems["removed_on"] = f"Removal date is before the fitting date {fitted_capacitor.fitted_on}."
+    elif removed_on is not None and removed_on > timezone.localdate(
+        timezone=site_zone(fitted_capacitor.motor.site.time_zone)
+    ):
+        problems["removed_on"] = "The removal date is in the future."
+    if reason is not None and reason not in FittedCapacitor.RemovalReason.values:
+        problems["removal_reason"] = "Choose why the capacitor was removed."
+    return problems
 
 
 def _replacement_sent_before(

@@ -38,6 +38,7 @@ from fleet.services.readings import (
     reading_to_correct,
     record_reading,
     replace_capacitor,
+    replacement_problems,
 )
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
@@ -160,19 +161,17 @@ def replace(request, fitted_capacitor_id):
         return render(request, "fleet/replace.html", context)
     design = design_part(fitted_capacitor)
     form = ReplacementForm(request.POST or None, fitted_capacitor=fitted_capacitor, design=design)
-    if request.method == "POST" and form.is_valid():
+    if request.method == "POST" and not form.is_valid():
+        # The service's problems with what the form did read, in the same answer (not one at a time).
+        values = {name: value for name, value in form.replacement_values().items() if name != "notes"}
+        problems = replacement_problems(fitted_capacitor, **values)  # its field names are the form's
+        problems = {name: words for name, words in problems.items() if not form.has_error(name)}
+        if problems:
+            _add_errors(form, ValidationError(problems))
+    elif request.method == "POST":
         try:
-            successor = replace_capacitor(
-                fitted_capacitor=fitted_capacitor,
-                part=form.cleaned_data["part"],
-                removed_on=form.cleaned_data["removed_on"],
-                reason=form.cleaned_data["removal_reason"],
-                user=request.user,
-                serial=form.cleaned_data["serial"],
-                notes=form.cleaned_data["notes"],
-                substitute_override=form.cleaned_data["substitute_override"],
-                override_reason=form.cleaned_data["override_reason"],
-            )
+            values = form.replacement_values()
+            successor = replace_capacitor(fitted_capacitor=fitted_capacitor, user=request.user, **values)
         except ValidationError as error:
             _add_errors(form, error)
         else:
