@@ -18,7 +18,7 @@ def _restore_sqlite_triggers(apps, schema_editor):
 
 class Migration(migrations.Migration):
     dependencies = [
-        ("fleet", "0055_audit_order_taken_off_day"),
+        ("fleet", "0058_assessment_limit_was"),
     ]
 
     operations = [
