@@ -102,9 +102,9 @@ def _write_days_off(good, user):
 def _visits_on_days_off(good, user) -> list[dict]:
     """The open visits on the days off of a file's good rows (`workorders.open_visits_on`, the days-off
     page's rule): the import reports them, for the planner to move."""
-    sites = dict(Site.objects.filter(code__in=set(good["site_code"])).values_list("code", "id"))
     days = [dt.date.fromisoformat(day[:10]) for day in good["day"]]
-    return open_visits_on(zip(good["site_code"].map(sites), days, strict=True), user=user)
+    site_ids = import_checks.site_ids_in_any_case(good["site_code"])  # the check found each, in any case
+    return open_visits_on(zip(site_ids, days, strict=True), user=user)
 
 
 def _write_history(good, user):
