@@ -6,10 +6,11 @@ import pytest
 from django.core.exceptions import ValidationError
 from django.urls import reverse
 from django.utils import timezone
+from django.utils.html import strip_tags
 
 from fleet.models import Assessment, Reading, site_zone
 from fleet.services.assessments import refit_fitted_capacitors
-from fleet.services.readings import record_reading
+from fleet.services.readings import record_reading, replace_capacitor
 from tests.factories import make_fitted_capacitor, make_reading, make_user, quarterly_readings
 
 from .test_api import client_for
@@ -95,6 +96,41 @@ def test_the_form_for_a_reading_corrected_before_leads_to_its_newest_correction(
     page = client.get(url, {"corrects": wrong.id}).content.decode()
     assert "already corrected" in page and f'href="{url}?corrects={second.id}"' in page
     assert 'id="correct-instead"' not in client.get(url, {"corrects": second.id}).content.decode()
+
+
+def test_a_removed_capacitors_reading_is_corrected_from_its_page_and_a_new_one_after_removal_is_still_refused(
+    client, technician, planner, fan_fitted_capacitor
+):
+    """A slip found after a replacement: the removed capacitor's page offered no "Correct", though the form took
+    the correction typed by hand. Both readings stay with the removed capacitor (append-only, [derived]); a new
+    reading taken after the removal day still belongs to the capacitor fitted now and is refused here."""
+    removed_on = timezone.localdate() - dt.timedelta(days=10)
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2, taken_at=timezone.now() - dt.timedelta(days=40))
+    successor = replace_capacitor(
+        fitted_capacitor=fan_fitted_capacitor, part=fan_fitted_capacitor.part, removed_on=removed_on, reason="planned"
+    )
+    page_url = reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])
+    client.force_login(planner)  # no right to add readings: no link
+    assert f"?corrects={wrong.id}" not in client.get(page_url).content.decode()
+    client.force_login(technician)
+    assert f'href="{reverse("reading_new", args=[fan_fitted_capacitor.id])}?corrects={wrong.id}"' in (
+        client.get(page_url).content.decode()
+    )
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    form = strip_tags(client.get(url, {"corrects": wrong.id}).content.decode())
+    assert "Correcting the reading of" in form and "of this removed capacitor" in form
+    assert f"removed on {removed_on:%Y-%m-%d}" in form and "This form corrects one of its readings" in form
+    response = client.post(
+        url, {"method": "meter", "capacitance_uf": "3.92", "condition": "sound", "supersedes": str(wrong.id)}
+    )
+    assert response.status_code == 302
+    correction = Reading.objects.get(supersedes=wrong)
+    assert correction.fitted_capacitor_id == fan_fitted_capacitor.id and correction.taken_at == wrong.taken_at
+    # A new reading of the removed capacitor, taken now (after its removal day): refused at its time, as before.
+    refused = client.post(url, {"method": "meter", "capacitance_uf": "3.9", "condition": "sound"})
+    assert refused.status_code == 200 and f"removed on {removed_on}" in refused.context["form"].errors["taken_at"][0]
+    assert reverse("reading_new", args=[successor.id]) in refused.content.decode()
+    assert Reading.objects.filter(fitted_capacitor=fan_fitted_capacitor).count() == 2
 
 
 def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, fan_fitted_capacitor):
