@@ -519,7 +519,7 @@ def test_a_walking_order_edited_while_a_refit_runs_reaches_the_new_assessment(ca
         return count
 
     outcome, saved = in_threads(refit, edit_route)
-    assert getattr(outcome, "written", outcome) == 1 and saved == 1
+    assert getattr(outcome, "written", outcome) == 1 and saved.updated == 1
     motor.refresh_from_db()
     current = Assessment.objects.get(fitted_capacitor=capacitor, is_current=True)
     assert current.route_order == motor.route_order

@@ -447,6 +447,42 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
     assert signed_in(technician).post(url, {f"order-{first.id}": "1"}).status_code == 403
 
 
+def test_a_walking_order_place_held_by_another_motor_is_kept_and_said_in_the_message(signed_in, planner):
+    """Two motors may stand at one place (the route walks them in asset-tag order, `Motor.Meta.ordering`
+    [derived]); a place typed that another motor holds was taken without a word. The message names the
+    motors that share it; a save that moves no motor onto a held place says nothing of it, and a motor
+    out of service (not on the route) shares no place."""
+    from tests.factories import make_motor, make_site
+
+    site = make_site()
+    first, second, third, fourth = (make_motor(site=site, route_order=n, asset_tag=f"GLH-000{n}") for n in (1, 2, 3, 4))
+    make_motor(site=site, route_order=9, asset_tag="GLH-0009", status=Motor.Status.RETIRED)
+    url = reverse("route", args=[site.code])
+    client = signed_in(planner)
+
+    def saved(**places):
+        response = client.post(url, {f"order-{m.id}": str(n) for m, n in places.values()}, follow=True)
+        return [str(message) for message in response.context["messages"]]
+
+    assert saved(a=(first, 1), b=(second, 1)) == [
+        "Walking order saved. GLH-0002 shares place 1 with GLH-0001 (motors at one place are walked in asset-tag "
+        "order)."
+    ]
+    assert dict(Motor.objects.filter(site=site, route_order=1).values_list("asset_tag", "route_order")) == {
+        "GLH-0001": 1,
+        "GLH-0002": 1,
+    }
+    assert saved(a=(first, 1), b=(second, 1)) == ["Walking order saved."]  # moved nothing onto a held place
+    assert saved(c=(third, 1), d=(fourth, 1)) == [
+        "Walking order saved. GLH-0003 and GLH-0004 share place 1 with GLH-0001 and GLH-0002 (motors at one place "
+        "are walked in asset-tag order)."
+    ]
+    assert saved(c=(third, 5), d=(fourth, 5)) == [
+        "Walking order saved. GLH-0003 and GLH-0004 share place 5 (motors at one place are walked in asset-tag order)."
+    ]
+    assert saved(d=(fourth, 9)) == ["Walking order saved."]  # GLH-0009 is retired: not on the route
+
+
 def test_a_refused_walking_order_comes_back_as_typed_with_the_bad_place_marked_and_the_save_in_reach(
     signed_in, planner
 ):

@@ -2,8 +2,12 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 from django.core.exceptions import ValidationError
 from django.db import transaction
+from django.db.models import Count, F, Window
+from django.db.models.functions import RowNumber
 
 from fleet.audit import audited_bulk_create, audited_bulk_update
 from fleet.engineering.rules import ROUTE_ORDER_MAX, whole_number
@@ -11,14 +15,55 @@ from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
 from .bulk import storable_ids
 
+# How many places a saved walking order names as shared, and how many other motors at each.
+SHARED_PLACES_NAMED = 5
+SHARED_WITH_NAMED = 5
 
-def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
+
+@dataclass(frozen=True)
+class RouteOrderSaved:
+    """What a walking-order save did: `updated` motors written; `shared`, each place this save moved a
+    motor to that another motor in service at the site holds too (place, the motors moved there, the others
+    there, how many others are not named), at most SHARED_PLACES_NAMED of `shared_places`."""
+
+    updated: int
+    shared: tuple[tuple[int, tuple[str, ...], tuple[str, ...], int], ...] = ()
+    shared_places: int = 0
+
+    def words(self) -> str:
+        """The shared places in words ("GLH-0003 shares place 1 with GLH-0001."), or "" for none."""
+        sentences = []
+        for place, moved, others, unnamed in self.shared:
+            verb = "shares" if len(moved) == 1 else "share"
+            subject = _and(_named(moved[:SHARED_WITH_NAMED], len(moved) - SHARED_WITH_NAMED))
+            named = _named(others, unnamed)
+            sentences.append(f"{subject} {verb} place {place}" + (f" with {_and(named)}" if named else ""))
+        if not sentences:
+            return ""
+        more = self.shared_places - len(self.shared)
+        tail = f"; {more} more place{'s are' if more > 1 else ' is'} shared" if more else ""
+        return "; ".join(sentences) + tail + " (motors at one place are walked in asset-tag order)."
+
+
+def _named(tags: tuple[str, ...], unnamed: int) -> list[str]:
+    """Tags as named, with the count of those left unnamed ("2 others") after them."""
+    return [*tags, f"{unnamed} other{'s' if unnamed > 1 else ''}"] if unnamed > 0 else list(tags)
+
+
+def _and(words: list[str] | tuple[str, ...]) -> str:
+    return words[0] if len(words) == 1 else f"{', '.join(words[:-1])} and {words[-1]}"
+
+
+def set_route_order(*, site: Site, positions: dict[int, str]) -> RouteOrderSaved:
     """Set each motor's place on the site's reading route from form text.
 
     Every position must be a whole number from 0 to 99999; one bad entry refuses
-    them all, naming the motor. Returns the number of motors updated.
+    them all, naming the motor. Two motors may hold one place (walked in asset-tag order, as the
+    route lists them): the places this save moved a motor to that another motor in service holds
+    come back in `shared`, for the page to say.
     """
     motors = {m.id: m for m in Motor.objects.filter(site=site, id__in=storable_ids(positions))}
+    before = {motor_id: motor.route_order for motor_id, motor in motors.items()}
     errors = {}
     for motor_id, text in positions.items():
         motor = motors.get(motor_id)
@@ -42,7 +87,44 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> int:
         # In id order, as a refit share-locks them (`assessments._capacitor_facts_locked`).
         list(Motor.objects.select_for_update().filter(id__in=list(motors)).order_by("id").values_list("id"))
         audited_bulk_update(list(motors.values()), ["route_order"])
-    return len(motors)
+        moved = [motor for motor_id, motor in motors.items() if motor.route_order != before[motor_id]]
+        shared = _shared_places(site, moved)
+    return RouteOrderSaved(updated=len(motors), shared=tuple(shared[:SHARED_PLACES_NAMED]), shared_places=len(shared))
+
+
+def _shared_places(site: Site, moved: list[Motor]) -> list:
+    """Each place a motor was moved to that more than one motor in service at the site holds, in place order:
+    (place, tags moved there, other tags there up to SHARED_WITH_NAMED, how many others are not named).
+    Two queries, bounded: the count at each place, then at most SHARED_WITH_NAMED others at each named place."""
+    in_service = Motor.objects.filter(site=site, status=Motor.Status.IN_SERVICE)
+    moved_by_place: dict[int, list[str]] = {}
+    for motor in sorted(moved, key=lambda m: m.asset_tag):
+        if motor.status == Motor.Status.IN_SERVICE:
+            moved_by_place.setdefault(motor.route_order, []).append(motor.asset_tag)
+    held = dict(
+        in_service.filter(route_order__in=list(moved_by_place))
+        .values("route_order")
+        .annotate(n=Count("id"))
+        .filter(n__gt=1)
+        .values_list("route_order", "n")
+    )
+    named_places = sorted(held)[:SHARED_PLACES_NAMED]
+    others = (
+        in_service.filter(route_order__in=named_places)
+        .exclude(id__in=[motor.id for motor in moved])
+        .annotate(rank=Window(RowNumber(), partition_by=F("route_order"), order_by=F("asset_tag").asc()))
+        .filter(rank__lte=SHARED_WITH_NAMED)
+        .order_by("route_order", "asset_tag")
+        .values_list("route_order", "asset_tag")
+    )
+    others_by_place: dict[int, list[str]] = {}
+    for place, tag in others:
+        others_by_place.setdefault(place, []).append(tag)
+    shared = []
+    for place in sorted(held):
+        moved_there, named = tuple(moved_by_place[place]), tuple(others_by_place.get(place, ()))
+        shared.append((place, moved_there, named, held[place] - len(moved_there) - len(named)))
+    return shared
 
 
 def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, str] | None = None) -> int:

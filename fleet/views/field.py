@@ -215,12 +215,12 @@ def site_route(request, site):
             raise refused(request.user, "fleet.change_motor")
         positions = _values_by_id(request.POST, "order-")
         try:
-            set_route_order(site=site, positions=positions)
+            saved = set_route_order(site=site, positions=positions)
         except ValidationError as error:
             # Nothing saved; the boxes come back as typed (as the stock page's do), the refused ones marked.
             order_errors, typed = error.message_dict, positions
         else:
-            messages.success(request, "Walking order saved.")
+            messages.success(request, " ".join(filter(None, ["Walking order saved.", saved.words()])))
             return redirect(f"{reverse('route', args=[site.code])}?{request.GET.urlencode()}")
     values = page_values(RoutePage, request)
     only_due = values.get("show") == "due"
