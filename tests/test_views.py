@@ -8,6 +8,7 @@ import re
 import pytest
 from django.urls import reverse
 from django.utils import timezone
+from django.utils.html import strip_tags
 
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, Motor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
@@ -363,7 +364,7 @@ def test_home_links_the_plan_that_lists_every_replacement_it_cuts_short(signed_i
     client = signed_in(planner)
     home = client.get(reverse("home")).content.decode()
     assert "The first 15 of 16" in home
-    link = re.search(r'<a href="([^"]+)">replacement plan of the next 30 days</a> lists them all', home)
+    link = re.search(r'<a class="glove" href="([^"]+)">replacement plan of the next 30 days</a> lists them all', home)
     assert link, home
     listed = client.get(html.unescape(link.group(1)))
     assert listed.context["horizon"] == 30 and listed.context["page"].paginator.count == 16
@@ -581,9 +582,14 @@ def test_life_data_counts_failures_and_suspensions_from_the_register(signed_in, 
     client = signed_in(engineer)
     body = client.get(reverse("life_data"), {"part": part.code}).content.decode()
     assert "<b>3</b> failed in service" in body and "<b>3</b> replaced on plan or still in service" in body
-    assert "Not fitted yet" in body and "B10 life" not in body  # the page never fits: the nightly task does
+    assert "No Weibull estimate yet" in body and "B10 life" not in body  # the page never fits: the nightly task does
     refresh_life_fits()
     body = client.get(reverse("life_data"), {"part": part.code}).content.decode()
+    # The date is the Weibull estimate's, said so: "as fitted on" read as a capacitor's fitting date.
+    start = body.index('<span id="life-estimated-on">') + len('<span id="life-estimated-on">')
+    estimated = strip_tags(body[start : start + 200])
+    assert estimated.startswith(f"Weibull estimated on {today:%Y-%m-%d} (again every night)"), estimated
+    assert "as fitted on" not in body
     assert "<b>3</b> failed in service" in body and "<b>3</b> replaced on plan or still in service" in body
     assert 'id="weibull-data"' in body and "B10 life" in body
     # Two with no age (fitted today; removed as failed the day it was fitted) are named, not dropped unseen.

@@ -153,9 +153,55 @@ def test_a_reading_far_from_its_trend_is_confirmed_with_a_button_in_the_summary(
     phone.wait_for_selector("text=far from this capacitor's trend", timeout=15000)
     assert not _small_targets(phone, "#error-summary button")
     phone.shot("phone-confirm-in-summary")
+    # Below the form the two saves stood 10 px apart, stacked: one saves the value unconfirmed, the other
+    # confirms it. Each a 44 px target, twice the 8 px between touch targets apart ([trade], as the test of
+    # every page holds for any two buttons).
+    save, confirm = phone.locator("#save").bounding_box(), phone.locator("#confirm").bounding_box()
+    assert min(save["width"], save["height"], confirm["width"], confirm["height"]) >= GLOVE_PX, (save, confirm)
+    apart = max(confirm["y"] - (save["y"] + save["height"]), confirm["x"] - (save["x"] + save["width"]))
+    assert apart >= 16, (save, confirm)
     phone.click("#error-summary button")
     phone.wait_for_url("**/motors/**")
     assert Reading.objects.filter(capacitance_uf=3.3, outlier_confirmed=True).count() == 1
+
+
+# Each dashboard figure's label and its number: on one line when the number's box meets the label's first line.
+KPI_LINES = r"""() => [...document.querySelectorAll(".kpis > .kpi")].map((kpi) => {
+  const number = kpi.querySelector("b").getBoundingClientRect();
+  const range = document.createRange();
+  range.setStartBefore(kpi.firstChild);
+  range.setEndBefore(kpi.querySelector("b"));
+  const first = [...range.getClientRects()].filter((r) => r.width > 0)[0];
+  return {text: kpi.textContent.trim().slice(0, 40), together: number.top < first.bottom && number.bottom > first.top};
+})"""
+
+# Each entry of "Riskier, and why": the text between its motor's tag and its capacitor's link, and their lines.
+RISKIER_HEADS = r"""() => [...document.querySelectorAll("#riskier-list > li")].map((li) => {
+  const [tag, capacitor] = li.querySelectorAll("a");
+  const range = document.createRange();
+  range.setStartAfter(tag);
+  range.setEndBefore(capacitor);
+  const top = (e) => Math.round(e.getBoundingClientRect().top);
+  return {between: range.toString(), sameLine: top(tag) === top(capacitor)};
+})"""
+
+
+def test_the_dashboards_figures_keep_label_and_number_together_and_its_riskier_list_reads_on_a_phone(
+    browser, live_server, demo_fleet
+):
+    """At 390 px "Replacements, next 26 weeks" wrapped in its half-width card and left its number alone on
+    the next line; under "Riskier, and why" each motor's tag had a comma after it and the capacitor's link,
+    a 44 px target too wide to follow it, went to the next line. Each figure now takes the width, its label
+    and number on one line, and an entry's tag and capacitor share a line, with no stray comma."""
+    context, page = demo_page(browser, live_server, "planner")
+    _load(page, "/dashboard/")
+    figures = page.evaluate(KPI_LINES)
+    assert len(figures) == 4 and all(f["together"] for f in figures), figures
+    heads = page.evaluate(RISKIER_HEADS)
+    assert heads, "no riskier capacitor on the demo's dashboard"
+    assert all(h["between"].strip() == "" and h["sameLine"] for h in heads), heads
+    page.screenshot(path=str(ARTIFACTS / "phone-dashboard-figures.png"))
+    context.close()
 
 
 def test_the_dashboard_switch_is_glove_sized_and_switches(phone):
