@@ -411,7 +411,7 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
     # A back-tested level per dielectric is named with it: the date follows the risk level's crossing.
     BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, alert_quantile=0.5)
     assert "judged on (P50 for metallised film (run))" in client.get(reverse("plan")).content.decode()
-    assert "columns and units</a>). Every reading" in response.content.decode()  # no stray space before "."
+    assert "columns and units</a>)</span>. Every reading" in response.content.decode()  # no stray space before "."
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
     assert Assessment.objects.filter(is_current=True).count() == 6
