@@ -121,8 +121,10 @@ def trend_axis_range(readings_uf, band_uf, limit_uf: float, rated_uf: float, alw
     if band.size:
         reach = max(TREND_AXIS_SPANS * span, high - low)
         low, high = min(low, max(float(band.min()), high - reach)), max(high, min(float(band.max()), low + reach))
-    # Room below for a marker's half (12 px of a 340 px chart: a few per cent of the range shown).
-    return [max(low - max(0.01 * rated_uf, 0.04 * (high - low)), 0.0), high + 0.03 * rated_uf]
+    # Room below for a marker's half (12 px of a 340 px chart: a few per cent of the range shown); the axis stops
+    # at zero unless a value shown is itself near zero (an open capacitor's 0 uF reading).
+    margin = max(0.01 * rated_uf, 0.04 * (high - low))
+    return [low - margin if low < margin else max(low - margin, 0.0), high + 0.03 * rated_uf]
 
 
 def weibull_plot_figure(times_years, fraction_failed, beta: float, eta: float) -> dict:

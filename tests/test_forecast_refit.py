@@ -567,6 +567,8 @@ def test_the_newest_reading_below_the_limit_is_on_the_chart_whatever_the_fit(set
     names = {trace["name"]: trace for trace in figure["data"]}
     assert list(names["latest reading, below the limit"]["y"]) == [14.22]
     assert "set aside (off trend)" not in names and 14.22 not in list(names["readings (at 25 °C)"]["y"])
+    readings[-1]["capacitance_uf"] = 0.0  # an open capacitor's reading: its marker clear of the axis's foot
+    assert trend_figure(readings, path, 121.55, "tolerance", 143.0)["layout"]["yaxis"]["range"][0] < -1.0
     readings[-1]["capacitance_uf"] = 130.0  # above the limit: one reading among the others
     assert "latest reading, below the limit" not in {
         trace["name"] for trace in trend_figure(readings, path, 121.55, "tolerance", 143.0)["data"]
