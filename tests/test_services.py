@@ -601,7 +601,7 @@ def test_the_work_order_a_replacement_was_read_for_is_a_link_to_its_visit(client
     fitted_capacitor, read_again = _read_again_and_read_still_due(planner)
     order = WorkOrder.objects.get(fitted_capacitor=fitted_capacitor, state__in=["planned", "issued"])
     visit = reverse("visit_sheet", args=[read_again.site.code, read_again.due_on.isoformat()])
-    link = f'(read for <a class="glove nowrap" href="{visit}">work order {read_again.id}</a>)'
+    link = f'(read for <a class="glove nowrap" href="{visit}#order-{read_again.id}">work order {read_again.id}</a>)'
     for user, page in (
         (planner, visit),
         (technician, visit),
@@ -610,6 +610,11 @@ def test_the_work_order_a_replacement_was_read_for_is_a_link_to_its_visit(client
         client.force_login(user)
         html = client.get(page).content.decode()
         assert link in html, (user, page)
+    # The link leads to the order itself: done, it is listed among the visit's closed orders (the sheet lists
+    # only open ones, so the link led back to the page it was on).
+    closed = client.get(visit).content.decode()
+    row = closed[closed.index(f'id="order-{read_again.id}"') :]
+    assert "Done or cancelled in this visit" in closed and "Done, closed by" in row[: row.index("</tr>")]
     WorkOrder.objects.filter(pk=order.pk).update(reason=order.reason.replace(f" {read_again.id})", f" {order.id}"))
     html = client.get(visit).content.decode()  # cut short (the reason's length): no link to a wrong order
     assert f"(read for work order {order.id}" in html and f">work order {order.id}" not in html

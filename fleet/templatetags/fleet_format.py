@@ -124,10 +124,12 @@ DATE_IN_TEXT = re.compile(r"\b\d{4}-\d{2}(?:-\d{2}(?:[ T]\d{2}:\d{2}(?::\d{2})?)
 @register.filter
 def read_for_link(html, read_for):
     """A reason (escaped, by `nowrap_dates`) with its "work order N" (`workorders.READ_FOR_ORDER`) a link to
-    that order's visit page, a tap target of 44 px on a phone (`a.glove`); unchanged where `read_for` is None."""
+    that order on its visit's page (done, it is listed among the visit's closed orders, `_closed_orders.html`), a
+    tap target of 44 px on a phone (`a.glove`); unchanged where `read_for` is None."""
     if not read_for or html in (None, ""):
         return html
-    url = reverse("visit_sheet", args=[read_for["site_code"], read_for["day"].isoformat()])
+    visit = reverse("visit_sheet", args=[read_for["site_code"], read_for["day"].isoformat()])
+    url = f"{visit}#order-{read_for['id']}"
     words = READ_FOR_WORDS.format(read_for["id"])
     link = format_html('<a class="glove nowrap" href="{}">{}</a>', url, words.removeprefix("read for "))
     return mark_safe(str(html).replace(f"({words})", f"(read for {link})", 1))

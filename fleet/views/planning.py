@@ -235,6 +235,7 @@ def visit_sheet(request, site, day):
         "move_form": move_form,
         "move_choices": move_choices(site.id, day),
         "day_off": days_off_by_site([site.id], day).get(site.id, {}).get(day),
+        "closed": closed_visit(site.id, day, user=request.user),  # a "read for work order N" links to one of these
     }
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
 
