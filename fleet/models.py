@@ -1116,7 +1116,12 @@ class WorkOrder(models.Model):
                 include=["part"],
                 condition=Q(state__in=["planned", "issued"]),
                 name="open_orders_by_visit_walk",
-            )
+            ),
+            # A visit's closed orders, listed at the foot of every visit sheet (`workorders.closed_visit`): years
+            # of done and cancelled orders at a site, read by visit, not by site.
+            models.Index(
+                fields=["site", "due_on"], condition=~Q(state__in=["planned", "issued"]), name="closed_orders_by_visit"
+            ),
         ]
 
     def __str__(self):
