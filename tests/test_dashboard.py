@@ -398,3 +398,18 @@ def test_the_replacements_count_is_the_plan_it_links_to_with_one_due_on_the_wind
     assert page.context["workload"]["total"] == plan.context["page"].paginator.count == 2
     assert {a.replace_by for a in plan.context["page"].object_list} == {today, last_day}
     assert f'to replace by <span class="nowrap">{last_day:%Y-%m-%d}</span>' in plan.content.decode()
+
+
+def test_the_risk_cards_count_one_capacitor_and_two_capacitors(client):
+    """[trade] plain English: "1 capacitor", "2 capacitors" on the plan's and the home page's cards
+    (the plan read "1 capacitors")."""
+    today = timezone.localdate()
+    site, part = make_site(), make_part()
+    stored_assessment(make_fitted_capacitor(motor=make_motor(site=site), part=part), "replace now", today)
+    for _ in range(2):
+        stored_assessment(make_fitted_capacitor(motor=make_motor(site=site), part=part), "watch", today)
+    client.force_login(make_user(PLANNER))
+    for name in ("plan", "home"):
+        page = re.sub(r"\s+", " ", client.get(reverse(name)).content.decode())
+        assert re.search(r"replace now</span><b>1</b>capacitor</div>", page), name
+        assert re.search(r"watch</span><b>2</b>capacitors</div>", page), name

@@ -1,9 +1,9 @@
 """Every page, as each role, on a phone (390 px) and a desktop (1366 px): the page itself never scrolls
 sideways (wide tables scroll in their own box), no date or asset tag breaks over two lines, no markup in
 the title, back links are 44 px tall targets, at 390 px every link, button and fold in the page is a 44 x 44 px
-target (WCAG 2.1 SC 2.5.5 Target Size [pub]) and buttons stand 8 px apart or more ([trade] the usual spacing
-between touch targets), the menu keeps to one row at 1366 px, no script error; a refused reading puts its
-summary of what to put right in view, above the cautions.
+target (WCAG 2.1 SC 2.5.5 Target Size [pub]) and any two targets (links, buttons, folds) stand 8 px apart or
+more ([trade] the usual spacing between touch targets), the menu keeps to one row at 1366 px, no script
+error; a refused reading puts its summary of what to put right in view, above the cautions.
 
 The pages are found as a user finds them: from the home page, following the links each role sees
 (at most two addresses per kind of page), on the demo's own scenario at a twentieth of its size.
@@ -63,8 +63,8 @@ MEASURE = r"""() => {
     .filter((a) => a.getBoundingClientRect().height < 44)
     .map((a) => a.textContent.trim() + " " + Math.round(a.getBoundingClientRect().height) + " px");
   // At phone width every target a gloved finger taps in the page (a link, a button, a fold) is at least
-  // 44 x 44 px, and buttons stand at least 8 px apart (a bar kept on screen over the page is not beside them).
-  const smallTargets = [], closeButtons = [];
+  // 44 x 44 px, and any two stand at least 8 px apart (a bar kept on screen over the page is not beside them).
+  const smallTargets = [], closeTargets = [];
   if (view <= 640) {
     const shown = (e) => e.getClientRects().length
       && !e.closest("[hidden], .js-plotly-plot, .print-only, details:not([open]) > :not(summary)");
@@ -78,13 +78,12 @@ MEASURE = r"""() => {
     for (const [e, box] of targets)
       if (box.width < 44 || box.height < 44)
         smallTargets.push(`${named(e)} ${Math.round(box.width)}x${Math.round(box.height)} px`);
-    const buttons = targets.filter(([e]) => e.matches("button, .button, input[type=submit]"));
-    for (let i = 0; i < buttons.length; i++) for (let j = i + 1; j < buttons.length; j++) {
-      const [a, boxA] = buttons[i], [b, boxB] = buttons[j];
+    for (let i = 0; i < targets.length; i++) for (let j = i + 1; j < targets.length; j++) {
+      const [a, boxA] = targets[i], [b, boxB] = targets[j];
       if (kept(a) !== kept(b)) continue;
       const apart = Math.max(Math.max(boxA.left, boxB.left) - Math.min(boxA.right, boxB.right),
                              Math.max(boxA.top, boxB.top) - Math.min(boxA.bottom, boxB.bottom));
-      if (apart < 8) closeButtons.push(`${named(a)} and ${named(b)} ${Math.round(apart)} px apart`);
+      if (apart < 8) closeTargets.push(`${named(a)} and ${named(b)} ${Math.round(apart)} px apart`);
     }
   }
   // The menu's rows: the vertical centres of the header's visible items.
@@ -94,7 +93,7 @@ MEASURE = r"""() => {
   const wide = [...document.querySelectorAll("body *")]
     .filter((e) => e.getBoundingClientRect().right > view + 1 && !e.closest(".table-scroll"))
     .slice(0, 3).map((e) => e.tagName.toLowerCase() + "." + e.className);
-  return {page: document.documentElement.scrollWidth, view, wrapped, wide, lowBacks, smallTargets, closeButtons,
+  return {page: document.documentElement.scrollWidth, view, wrapped, wide, lowBacks, smallTargets, closeTargets,
           menuRows, title: document.title};
 }"""
 
@@ -132,8 +131,8 @@ def _measure(page, path, width, problems, shot_name=None):
         problems.append(f"{width} px {path}: back link under 44 px tall: {back}")
     for target in found["smallTargets"]:
         problems.append(f"{width} px {path}: target under 44 x 44 px: {target}")
-    for pair in found["closeButtons"]:
-        problems.append(f"{width} px {path}: buttons under 8 px apart: {pair}")
+    for pair in found["closeTargets"]:
+        problems.append(f"{width} px {path}: targets under 8 px apart: {pair}")
     if re.search(r"<|&[a-z]+;|&#", found["title"]):  # the tab read `Visit CST <span class="nowrap">...`
         problems.append(f"{width} px {path}: markup in the title: {found['title']}")
     if width >= 1366 and found["menuRows"] > 1:
