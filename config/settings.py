@@ -329,8 +329,12 @@ MIDDLEWARE.insert(
 LOGGING = {
     "version": 1,
     "disable_existing_loggers": False,
+    "filters": {"refusals_in_one_line": {"()": "fleet.log_filters.RefusalsInOneLine"}},
     "handlers": {"console": {"class": "logging.StreamHandler"}},
     "root": {"handlers": ["console"], "level": os.environ.get("LOG_LEVEL", "INFO")},
-    # One line per finished task drowns the demo's output when tasks run in-process.
-    "loggers": {"celery.app.trace": {"level": "WARNING"}},
+    "loggers": {
+        # One line per finished task drowns the demo's output when tasks run in-process.
+        "celery.app.trace": {"level": "WARNING"},
+        "django.request": {"filters": ["refusals_in_one_line"]},
+    },
 }

@@ -89,7 +89,8 @@ class ReadingForm(forms.Form):
         self.initial["taken_at"] = timezone.localtime(reading.taken_at, self.zone).strftime(LOCAL_MINUTE)
         for name in ("method", "condition", "notes", *Reading.MEASURED_FIELDS):
             value = getattr(reading, name)
-            if value is not None:
+            worked_out = name == "capacitance_uf" and reading.method == Reading.Method.IN_CIRCUIT
+            if value is not None and not worked_out:
                 self.initial[name] = str(value)  # a float's shortest exact text: 28.17, not 28.170000000000002
 
     def clean_taken_at(self):
@@ -102,6 +103,19 @@ class ReadingForm(forms.Form):
             return parse_site_time(text, self.zone.key)
         except ValueError as error:
             raise forms.ValidationError(str(error)) from None
+
+    def clean(self):
+        """In circuit the capacitance is worked out from the current and the voltage: a meter value typed
+        too (before switching the method) is refused at its field, never dropped without a word."""
+        cleaned = super().clean()
+        typed = str(cleaned.get("capacitance_uf") or "").strip()
+        if cleaned.get("method") == Reading.Method.IN_CIRCUIT and typed:
+            self.add_error(
+                "capacitance_uf",
+                f"In circuit the capacitance is worked out from the current and the voltage, so {typed} µF "
+                "from the meter would not be saved: clear it, or choose Meter to save it instead.",
+            )
+        return cleaned
 
     def measured_values(self) -> dict:
         data = {

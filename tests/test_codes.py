@@ -112,6 +112,30 @@ def test_the_register_import_refuses_what_no_motor_has_by_row_and_field(register
     assert Motor.objects.filter(asset_tag="T-2").exists()
 
 
+def test_a_two_value_motor_whose_capacitors_were_changed_apart_imports_each_with_its_own_day(register_world):
+    """A two-value motor's start capacitor replaced two years after its run capacitor could not be put in the
+    register (one fitted_on a motor) nor in the history (the register's capacitor held the position):
+    `start_fitted_on` gives its own day; given for a capacitor the row does not have, or not a day, it is
+    refused at its field."""
+    make_part(code="START-108U-250", rated_uf=108, dielectric="electrolytic", rated_voltage_v=250)
+    two_value = dict(motor_type="two_value", start_part_code="START-108U-250")
+    result = check_register(
+        frame_of(
+            REGISTER_COLUMNS,
+            [
+                register_row(**two_value, start_fitted_on="2022-06-01"),
+                register_row(asset_tag="T-2", start_fitted_on="2022-06-01"),
+                register_row(asset_tag="T-3", **two_value, run_fitted_on="2022-02-30"),
+            ],
+        )
+    )
+    assert [(row, name) for row, name, _ in result.errors] == [(3, "start_fitted_on"), (4, "run_fitted_on")]
+    assert "no start_part_code on this row" in result.errors[0][2]
+    insert_register(result.good)
+    days = dict(FittedCapacitor.objects.filter(motor__asset_tag="T-1").values_list("role", "fitted_on"))
+    assert days == {"run": dt.date(2020, 1, 1), "start": dt.date(2022, 6, 1)}
+
+
 # The admin's motor form: the same rulebook, at the field.
 
 

@@ -36,6 +36,7 @@ def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correcti
         url, {"method": "meter", "capacitance_uf": "3.92", "condition": "sound", "supersedes": str(wrong.id)}
     )
     assert response.status_code == 302
+    assert "Correction saved for" in strip_tags(client.get(response.url).content.decode())
     correction = Reading.objects.get(supersedes=wrong)
     assert correction.capacitance_uf == 3.92 and correction.taken_at == wrong.taken_at
     assert Reading.objects.filter(pk=wrong.pk).exists()  # kept, never overwritten
@@ -44,6 +45,9 @@ def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correcti
     assert assessment.readings_used == len(readings) + 1
     page = client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
     assert "corrected: not used in the trend" in page and f"?corrects={wrong.id}" not in page
+    # The motor page, where a label scan lands, marks them too (it listed both as plain readings).
+    motor_page = client.get(reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag])).content.decode()
+    assert motor_page.count("corrected: not used in the trend") == 1 and motor_page.count("a correction<") == 1
 
 
 def test_a_correction_starts_from_the_reading_it_corrects_and_the_chart_draws_the_correction_only(
@@ -210,3 +214,33 @@ def test_the_admin_refuses_a_correction_of_another_capacitors_reading(fan_fitted
     assert refused.value.message_dict["supersedes"] == [f"Reading {theirs.id} is not a reading of this capacitor."]
     correction.supersedes = make_reading(fan_fitted_capacitor, capacitance_uf=3.9)
     correction.full_clean()
+
+
+def test_a_meter_value_typed_before_choosing_in_circuit_is_refused_at_its_field_not_dropped(
+    client, technician, fan_fitted_capacitor
+):
+    """[trade] nothing a technician typed is lost without a word: 3.95 uF typed, then "in circuit" chosen
+    with its current and voltage, was saved as the worked-out value alone. It is refused at the capacitance
+    field, nothing saved; cleared, the reading saves. A correction of an in-circuit reading does not start
+    with the worked-out value in the meter field (it would be refused the same way)."""
+    client.force_login(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    values = {
+        "method": "in_circuit",
+        "capacitance_uf": "3.95",
+        "capacitor_current_a": "0.434",
+        "capacitor_voltage_v": "350",
+        "condition": "sound",
+    }
+    refused = client.post(url, values)
+    assert refused.status_code == 200 and not Reading.objects.exists()
+    message = strip_tags(str(refused.context["form"].errors["capacitance_uf"]))
+    assert "3.95 µF from the meter would not be saved" in message
+    assert client.post(url, {**values, "capacitance_uf": ""}).status_code == 302
+    saved = Reading.objects.get()
+    assert saved.method == Reading.Method.IN_CIRCUIT and saved.capacitance_uf == pytest.approx(
+        1e6 * 0.434 / (2 * 3.141592653589793 * 50 * 350), abs=0.001
+    )
+    form = client.get(url, {"corrects": saved.id}).context["form"]
+    assert form.initial["method"] == "in_circuit" and "capacitance_uf" not in form.initial
+    assert form.initial["capacitor_current_a"] == "0.434"

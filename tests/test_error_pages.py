@@ -95,3 +95,19 @@ def test_a_form_with_a_stale_sign_in_is_refused_plainly_with_a_way_back():
     assert elsewhere.status_code == 403
     assert "elsewhere.example" not in elsewhere.content.decode()
     assert f'href="{reverse("home")}">Back to the start page</a>' in elsewhere.content.decode()
+
+
+@pytest.mark.django_db
+def test_a_refused_page_is_logged_in_one_line_without_a_traceback(client, caplog):
+    """[trade] a log that fills with tracebacks of people opening pages not theirs hides the faults: a 403
+    is logged as one line naming the page, with no traceback (a 500 keeps its own)."""
+    import logging
+
+    fitted_capacitor = make_fitted_capacitor()
+    client.force_login(make_user("planner"))
+    with caplog.at_level(logging.WARNING, logger="django.request"):
+        response = client.get(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    assert response.status_code == 403
+    records = [r for r in caplog.records if r.name == "django.request"]
+    assert records and all(r.exc_info is None for r in records)
+    assert "/reading/" in records[0].getMessage()

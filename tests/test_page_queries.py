@@ -490,7 +490,7 @@ PLAN_ROW_TEMPLATE = """{% for a in rows %}
 <tr>
   <td data-label="Motor, capacitor"><a class="nowrap" href="{% url 'motor' a.fitted_capacitor.motor.asset_tag %}">{{ a.fitted_capacitor.motor.asset_tag }}</a><br><span class="muted">{{ a.fitted_capacitor.motor.location }}</span><br><a href="{% url 'fitted_capacitor' a.fitted_capacitor.id %}">{{ a.fitted_capacitor.get_role_display }} <span class="nowrap">{{ a.fitted_capacitor.part.code }}</span></a></td>
   <td data-label="Risk, replace by"><span class="risk risk-{{ a.risk|slugify }}">{{ a.risk }}</span><br><span class="nowrap replace-by">{{ a.replace_by|date:"Y-m-d"|default:"-" }}</span>{% if a.low_confidence %}<br><span class="muted">few readings</span>{% endif %}</td>
-  <td class="num" data-label="Trend (&micro;F)">{{ a.capacitance_now_uf|floatformat:2 }}</td>
+  <td class="num" data-label="Trend at last reading (&micro;F)">{{ a.capacitance_now_uf|floatformat:2 }}</td>
   <td data-label="Limit">{{ a.limit_source }}</td>
   <td data-label="Why">{{ a.reason|default:"-"|nowrap_dates }}</td>
   <td data-label="Trend crosses: early / likely"><span class="nowrap">{% if a.p10_on %}{{ a.p10_on|date:"Y-m-d" }}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span> / <span class="nowrap">{% if a.p50_on %}{{ a.p50_on|date:"Y-m-d" }}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span></td>

@@ -618,3 +618,27 @@ def test_the_work_order_a_replacement_was_read_for_is_a_link_to_its_visit(client
     WorkOrder.objects.filter(pk=order.pk).update(reason=order.reason.replace(f" {read_again.id})", f" {order.id}"))
     html = client.get(visit).content.decode()  # cut short (the reason's length): no link to a wrong order
     assert f"(read for work order {order.id}" in html and f">work order {order.id}" not in html
+
+
+def test_work_recorded_from_a_visit_sheet_goes_back_to_the_visit_sheet(client, planner, technician):
+    """[trade] a technician works down a visit sheet: recording a replacement from it, then the new capacitor's
+    first reading, landed on the motor page, whose back link leads to the route, not the visit. The sheet's
+    links carry the visit; once the reading is saved the technician is back on the sheet (its ?saved= drops
+    the phone's draft of the form). An address that is not one of our visit sheets is ignored. Ours."""
+    fitted_capacitor, read_again = _read_again_and_read_still_due(planner)
+    visit = reverse("visit_sheet", args=[read_again.site.code, read_again.due_on.isoformat()])
+    client.force_login(technician)
+    replace = f"{reverse('replace', args=[fitted_capacitor.id])}?next={visit}"
+    assert f'href="{replace}"' in client.get(visit).content.decode()
+    response = client.post(
+        replace,
+        {"part": fitted_capacitor.part_id, "removed_on": timezone.localdate().isoformat(), "removal_reason": "planned"},
+    )
+    successor = FittedCapacitor.objects.get(motor=fitted_capacitor.motor, removed_on__isnull=True)
+    reading_form = f"{reverse('reading_new', args=[successor.id])}?next={visit.replace('/', '%2F')}"
+    assert response.status_code == 302 and response["Location"] == reading_form
+    response = client.post(reading_form, {"method": "meter", "capacitance_uf": "30.1", "condition": "sound"})
+    assert response.status_code == 302 and response["Location"] == f"{visit}?saved={successor.id}"
+    elsewhere = f"{reverse('reading_new', args=[successor.id])}?next=https://example.org/work-orders/"
+    response = client.post(elsewhere, {"method": "meter", "capacitance_uf": "30.0", "condition": "sound"})
+    assert response["Location"].startswith(reverse("motor", args=[fitted_capacitor.motor.asset_tag]))

@@ -364,7 +364,7 @@ def test_home_links_the_plan_that_lists_every_replacement_it_cuts_short(signed_i
     client = signed_in(planner)
     home = client.get(reverse("home")).content.decode()
     assert "The first 15 of 16" in home
-    link = re.search(r'<a class="glove" href="([^"]+)">replacement plan of the next 30 days</a> lists them all', home)
+    link = re.search(r'<a class="glove" href="([^"]+)">replacement plan of the next 30 days</a>', home)
     assert link, home
     listed = client.get(html.unescape(link.group(1)))
     assert listed.context["horizon"] == 30 and listed.context["page"].paginator.count == 16
@@ -705,7 +705,11 @@ def test_a_refit_without_a_broker_says_it_is_done_not_queued(client, engineer, f
     client.force_login(engineer)
     response = client.post(reverse("refit_start"), follow=True)
     body = response.content.decode()
-    assert "Fleet refit done: 1 of 1 capacitors refitted." in body and "queued" not in body
+    assert "Fleet refit done: 1 of 1 capacitors checked; 2 readings fitted." in body and "queued" not in body
+    # Run again with nothing new: the message agrees with the run's row ("all were up to date"); it said
+    # "1 of 1 capacitors refitted" beside a row of 0 readings fitted.
+    body = client.post(reverse("refit_start"), follow=True).content.decode()
+    assert "Fleet refit done: 1 of 1 capacitors checked; all were up to date, nothing refitted." in body
 
 
 def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, planner):

@@ -272,18 +272,21 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     for capacitor, kind in ((suspect, "read_again"), (worn, "replace_run")):
         WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind=kind, due_on=day)
     client.force_login(technician)
-    sheet = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
+    visit = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    sheet = client.get(visit).content.decode()
     rows = sheet[sheet.index("<tbody>", sheet.index("visit-orders")) :].split("</tr>")
-    assert f'href="{reverse("reading_new", args=[suspect.id])}">{suspect.part.code}</a>' in rows[0]
-    assert f'href="{reverse("replace", args=[suspect.id])}"' in rows[0]  # reachable, after the reading
-    assert f'href="{reverse("replace", args=[worn.id])}">{worn.part.code}</a>' in rows[1]
+    back = f"?next={visit}"  # the work recorded, the technician is back on this sheet
+    assert f'href="{reverse("reading_new", args=[suspect.id])}{back}">{suspect.part.code}</a>' in rows[0]
+    assert f'href="{reverse("replace", args=[suspect.id])}{back}"' in rows[0]  # reachable, after the reading
+    assert f'href="{reverse("replace", args=[worn.id])}{back}">{worn.part.code}</a>' in rows[1]
     # On paper the read-again row has lines to write the reading on (the walk found no room for it); a
     # replacement's row needs none.
     assert "write-ins" in rows[0] and "&micro;F" in rows[0].split("write-ins")[1] and "write-ins" not in rows[1]
     assert "Cancel this order" not in sheet and 'id="move-visit"' not in sheet  # the planner's, not the technician's
     # The work-orders page lists the same orders: there too the read-again part opens the reading form.
     listed = client.get(reverse("work_orders")).content.decode()
-    assert f'href="{reverse("reading_new", args=[suspect.id])}">{suspect.part.code}</a>' in listed
+    back = f"?next={reverse('work_orders')}"
+    assert f'href="{reverse("reading_new", args=[suspect.id])}{back}">{suspect.part.code}</a>' in listed
     # The reading closes the order, and its message says so (it said only "Reading saved").
     data = {"method": "meter", "capacitance_uf": "3.95", "case_temperature_c": "25", "condition": "sound"}
     saved = client.post(reverse("reading_new", args=[suspect.id]), data, follow=True).content.decode()
@@ -724,3 +727,24 @@ def test_a_visits_closed_orders_are_read_by_visit_from_an_index():
             cursor.execute("SET LOCAL enable_seqscan = off")
         plan = WorkOrder.objects.filter(site_id=site.id, due_on=MONDAY).exclude(state__in=["planned", "issued"])
         assert "closed_orders_by_visit" in plan.explain()
+
+
+def test_a_planner_issues_a_visit_from_its_sheet_and_stays_on_it(client, planner, technician):
+    """The planner moves and cancels from a visit's sheet but could issue it only from the folded visit on the
+    work-orders list (a fresh-eyes walk). The sheet offers "Issue this visit" while it has planned orders,
+    issues them as the list does, and comes back to the sheet; a technician sees no such button. Ours."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    site = make_site(code="ISS")
+    capacitors = [make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2)]
+    for capacitor in capacitors:
+        WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=day)
+    visit = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    client.force_login(technician)
+    assert "Issue this visit" not in client.get(visit).content.decode()
+    client.force_login(planner)
+    assert "Issue this visit (2 planned orders)" in client.get(visit).content.decode()
+    data = {"action": "issue", "site": site.id, "day": day.isoformat(), "from_visit": "1"}
+    response = client.post(reverse("work_orders"), data)
+    assert response.status_code == 302 and response["Location"] == visit
+    assert set(WorkOrder.objects.filter(site=site).values_list("state", flat=True)) == {"issued"}
+    assert "Issue this visit" not in client.get(visit).content.decode()

@@ -65,6 +65,9 @@ REGISTER_COLUMNS = {
     "run_part_code": "Part code of the run capacitor fitted (PSC and two-value motors)",
     "start_part_code": "Part code of the start capacitor fitted (capacitor-start and two-value motors)",
     "fitted_on": "Date the capacitors were fitted, ISO 8601 (required)",
+    "run_fitted_on": "Date the run capacitor was fitted, where it differs from fitted_on (a two-value motor "
+    "whose capacitors were changed apart)",
+    "start_fitted_on": "Date the start capacitor was fitted, where it differs from fitted_on",
 }
 REGISTER_REQUIRED = (
     "asset_tag",
@@ -258,6 +261,12 @@ def parse_times(texts: pd.Series, zones: pd.Series) -> tuple[pd.Series, np.ndarr
     outside = (parsed.notna() & ((parsed < first) | (parsed >= after_last))).to_numpy()
     parsed[outside] = pd.NaT
     messages[outside] = f"the date is outside the span accepted, {ACCEPTED_DAYS_WORDS} (UTC): check the year"
+    # A time on a day the calendar does not hold (2026-02-30 10:00) is named so, not sent to the pattern.
+    day = texts.str.extract(r"^\s*([0-9]{4}-[0-9]{2}-[0-9]{2})", expand=False)
+    impossible = (
+        parsed.isna() & day.notna() & pd.to_datetime(day, format="%Y-%m-%d", errors="coerce").isna()
+    ).to_numpy() & (messages == "")
+    messages[impossible] = (day[impossible] + " is not a day of the calendar").to_numpy(object)
     return parsed, messages
 
 

@@ -593,15 +593,21 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         )
     today = np.datetime64(timezone.localdate(), "D")
     dates = {}
-    for name in ("fitted_on", "commissioned_on"):
+    for name in ("fitted_on", "run_fitted_on", "start_fitted_on", "commissioned_on"):
         dates[name] = parse_dates(frame[name])
         problems.add(frame[name].ne("") & dates[name].isna(), name, "not a date (use 2026-03-14)")
     no_removal = np.full(len(frame), np.datetime64("NaT"), "datetime64[D]")
-    for rows, name, message in (
-        *service_date_problems(dates["fitted_on"].to_numpy("datetime64[D]"), no_removal, today),
-        *commissioning_problems(dates["commissioned_on"].to_numpy("datetime64[D]"), today),
-    ):
+    for name in ("fitted_on", "run_fitted_on", "start_fitted_on"):
+        for rows, _, message in service_date_problems(dates[name].to_numpy("datetime64[D]"), no_removal, today):
+            problems.add(rows, name, message)
+    for rows, name, message in commissioning_problems(dates["commissioned_on"].to_numpy("datetime64[D]"), today):
         problems.add(rows, name, message)
+    for name, part_column in (("run_fitted_on", "run_part_code"), ("start_fitted_on", "start_part_code")):
+        problems.add(
+            frame[name].ne("") & frame[part_column].eq(""),
+            name,
+            f"no {part_column} on this row: leave it empty, or give the part fitted",
+        )
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
@@ -647,12 +653,12 @@ def insert_register(good: pd.DataFrame) -> list[int]:
     )
     fitted = []
     for motor, row in zip(motors, good.itertuples(index=False), strict=True):
-        fitted_on = dt.date.fromisoformat(row.fitted_on[:10])
-        for role, code in (
-            (FittedCapacitor.Role.RUN, row.run_part_code),
-            (FittedCapacitor.Role.START, row.start_part_code),
+        for role, code, own_day in (
+            (FittedCapacitor.Role.RUN, row.run_part_code, row.run_fitted_on),
+            (FittedCapacitor.Role.START, row.start_part_code, row.start_fitted_on),
         ):
             if code:
+                fitted_on = dt.date.fromisoformat((own_day or row.fitted_on)[:10])
                 fitted.append(FittedCapacitor(motor=motor, role=role, part_id=parts[code], fitted_on=fitted_on))
     FittedCapacitor.objects.bulk_create(fitted, batch_size=2000)
     return [m.id for m in motors]

@@ -21,7 +21,7 @@ PLAN_ROW = """
 <tr>
   <td data-label="Motor, capacitor"><a class="nowrap" href="{motor_url}">{tag}</a><br><span class="muted">{location}</span><br><a href="{capacitor_url}">{role} <span class="nowrap">{part}</span></a></td>
   <td data-label="Risk, replace by"><span class="risk risk-{risk_slug}">{risk}</span><br><span class="nowrap replace-by">{replace_by}</span>{few}</td>
-  <td class="num" data-label="Trend (&micro;F)">{capacitance}</td>
+  <td class="num" data-label="Trend at last reading (&micro;F)">{capacitance}</td>
   <td data-label="Limit">{limit}</td>
   <td data-label="Why">{reason}</td>
   <td data-label="Trend crosses: early / likely"><span class="nowrap">{p10}</span> / <span class="nowrap">{p50}</span></td>
@@ -99,7 +99,9 @@ def work_order_rows(orders, can_read=False):
         capacitor = order.fitted_capacitor
         part = "" if capacitor is None else capacitor.part.code
         if part and can_read and order.reads_again and capacitor.removed_on is None:
-            part = format_html(READING_LINK, reverse("reading_new", args=[capacitor.id]), part)
+            # Back to this list once the reading is saved (`field._visit_sheet_to_return_to`).
+            reading_form = f"{reverse('reading_new', args=[capacitor.id])}?next={reverse('work_orders')}"
+            part = format_html(READING_LINK, reading_form, part)
         rows.append(
             format_html(
                 WORK_ORDER_ROW,

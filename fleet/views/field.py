@@ -6,6 +6,7 @@ import functools
 import io
 import re
 import uuid
+from urllib.parse import urlencode
 
 import segno
 from django.contrib import messages
@@ -16,6 +17,7 @@ from django.template.defaultfilters import pluralize
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import conditional_escape
+from django.utils.http import url_has_allowed_host_and_scheme
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
@@ -46,6 +48,16 @@ from fleet.services.substitutes import design_part, substitutes_for
 from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
+def _visit_sheet_to_return_to(request) -> str | None:
+    """The visit sheet (or work-orders list) a technician came from (`?next=`, on the reading and
+    replacement links of its orders), to go back to once the work is recorded; any other address is
+    ignored."""
+    back = request.GET.get("next", "")
+    if back.startswith("/work-orders/") and url_has_allowed_host_and_scheme(back, allowed_hosts=None):
+        return back
+    return None
+
+
 @needs_permission("fleet.add_reading")
 @takes_parameters("corrects")
 def reading_new(request, fitted_capacitor_id):
@@ -74,10 +86,11 @@ def reading_new(request, fitted_capacitor_id):
                     form.data["client_key"] = uuid.uuid4().hex
             else:
                 saved = "was already saved (sent twice)" if reading.replayed else "saved"
+                what = "Correction" if reading.supersedes_id else "Reading"
                 closed = getattr(reading, "closed_read_again", 0)
                 messages.success(
                     request,
-                    f"Reading {saved} for {fitted_capacitor.motor.asset_tag} "
+                    f"{what} {saved} for {fitted_capacitor.motor.asset_tag} "
                     f"({fitted_capacitor.get_role_display().lower()} capacitor)"
                     + (
                         f"; its read-again work order{pluralize(closed)} {pluralize(closed, 'is,are')} done."
@@ -86,9 +99,8 @@ def reading_new(request, fitted_capacitor_id):
                     ),
                 )
                 # ?saved= tells the page to drop the draft the phone kept of this form.
-                return redirect(
-                    f"{reverse('motor', args=[fitted_capacitor.motor.asset_tag])}?saved={fitted_capacitor.id}"
-                )
+                back = _visit_sheet_to_return_to(request) or reverse("motor", args=[fitted_capacitor.motor.asset_tag])
+                return redirect(f"{back}{'&' if '?' in back else '?'}saved={fitted_capacitor.id}")
     else:
         corrects = None if named_if_repeated(request, ["corrects"]) else query_value(request.GET, "corrects")
         form = ReadingForm(initial={"supersedes": corrects}, time_zone=zone)
@@ -183,7 +195,9 @@ def replace(request, fitted_capacitor_id):
             else:
                 messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
                 _stock_message(request, successor)
-            return redirect("reading_new", fitted_capacitor_id=successor.id)
+            back = _visit_sheet_to_return_to(request)
+            reading_form = reverse("reading_new", args=[successor.id])
+            return redirect(f"{reading_form}?{urlencode({'next': back})}" if back else reading_form)
     advice = substitutes_for(fitted_capacitor)
     choosable = set(form.fields["part"].queryset.values_list("id", flat=True))
     chosen = str(form["part"].value() or "")

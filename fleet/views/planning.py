@@ -127,6 +127,8 @@ def work_orders(request):
                         f"{issued} work order{pluralize(issued)} of the {code} visit on {day:%a %Y-%m-%d} "
                         "issued to the technicians.",
                     )
+                    if request.POST.get("from_visit"):  # issued from the visit's own sheet: back to it
+                        return redirect("visit_sheet", site_code=code, day=day.isoformat())
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
@@ -236,6 +238,10 @@ def visit_sheet(request, site, day):
         "move_choices": move_choices(site.id, day),
         "day_off": days_off_by_site([site.id], day).get(site.id, {}).get(day),
         "closed": closed_visit(site.id, day, user=request.user),  # a "read for work order N" links to one of these
+        # Orders still to issue: the planner issues the visit from its sheet as from the work-orders list.
+        "planned_orders": WorkOrder.objects.filter(site_id=site.id, due_on=day, state=WorkOrder.State.PLANNED).count()
+        if request.user.has_perm("fleet.add_workorder")
+        else 0,
     }
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
 

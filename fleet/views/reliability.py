@@ -99,7 +99,8 @@ def refit_start(request):
         return redirect("refits")
     run.refresh_from_db()  # without a broker the run has already happened
     if run.state == RefitRun.State.DONE:
-        messages.success(request, f"Fleet refit done: {run.done} of {run.total} capacitors refitted.")
+        fitted = f"{run.readings} readings fitted" if run.readings else "all were up to date, nothing refitted"
+        messages.success(request, f"Fleet refit done: {run.done} of {run.total} capacitors checked; {fitted}.")
     elif run.state == RefitRun.State.FAILED:
         messages.error(request, f"The fleet refit failed: {run.message}")
     else:

@@ -84,3 +84,19 @@ def test_folded_cautions_print_whole_where_no_beforeprint_event_runs(phone):
     assert phone.is_visible(LOCKOUT)
     phone.emulate_media(media="screen")
     assert not phone.is_visible(LOCKOUT)  # folded on screen still
+
+
+def test_the_live_work_caution_shows_beside_in_circuit_whatever_the_fold(phone):
+    """[trade] an in-circuit reading is live work (qualified persons, suitable PPE): with the cautions
+    folded, that line was hidden inside the fold just when the technician chose "in circuit". It stands
+    beside the current and voltage fields, shown whenever they are, and only then."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.click(f"{CAUTIONS} > summary")
+    assert phone.locator(CAUTIONS).get_attribute("open") is None
+    assert not phone.is_visible("#live-work")  # a meter reading: the capacitor isolated and discharged
+    phone.check("input[name=method][value=in_circuit]")
+    assert phone.is_visible("#live-work")
+    assert "qualified persons with suitable PPE" in phone.inner_text("#live-work")
+    phone.shot("live-work-caution-in-circuit")

@@ -233,7 +233,7 @@ def test_the_visit_sheet_links_its_motors_and_parts_and_keeps_tick_boxes_for_pap
         .first()
     )
     sheet = f"/work-orders/{order.motor.site.code}/{order.due_on.isoformat()}/"
-    replace = f"main td a[href='/fitted-capacitors/{order.fitted_capacitor_id}/replace/']"
+    replace = f"main td a[href^='/fitted-capacitors/{order.fitted_capacitor_id}/replace/?next=/work-orders/']"
     boxes = """() => [...document.querySelectorAll("main td, main th")]
       .filter((c) => c.textContent.includes("\u2610") && c.getClientRects().length).length"""
     context, page = demo_page(browser, live_server, "planner")  # who cannot record a replacement: no part link
