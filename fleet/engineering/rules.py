@@ -732,6 +732,50 @@ def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
         return np.isfinite(predicted) & (np.abs(c - predicted) > threshold_fraction * np.asarray(rated_uf, float))
 
 
+def neighbours_line(
+    capacitor, taken_at, capacitance_uf, rated_uf, agree_fraction=0.08, taken_on=None, removed_on=None
+) -> np.ndarray:
+    """Per reading of a file, the value on the straight line between the readings of the same capacitor just
+    before and just after it in the file, at its time, where those two agree (within `agree_fraction` of the
+    rating); nan where it is the first or last of its capacitor's, or they disagree, or a value is missing.
+
+    What the import holds a reading to where its capacitor has no stored trend (a whole history brought in
+    at once): a wrong capacitor read or a poor contact between two readings that agree is the stray
+    `off_trend` asks to confirm; a real fall shows again in the next reading, and a last one is never held.
+    A reading on its capacitor's removal day (`taken_on`, `removed_on`: site days, datetime64[D]) is never the
+    one after: a file that does not name the capacitor gives the new one's first reading of that day to the
+    removed one, and the low reading that brought the replacement would look like a stray before it.
+    Arrays per reading: `capacitor` (any id; negative: not matched), `taken_at` (datetime64), the rest floats.
+    """
+    frame = pd.DataFrame(
+        {
+            "capacitor": np.asarray(capacitor, np.int64),
+            "hours": np.asarray(taken_at, "datetime64[s]").astype("int64") / 3600.0,
+            "value": np.asarray(capacitance_uf, float),
+            "rated": np.asarray(rated_uf, float),
+            "removal_day": np.zeros(len(np.asarray(capacitor)), bool)
+            if taken_on is None or removed_on is None
+            else np.asarray(taken_on, "datetime64[D]") == np.asarray(removed_on, "datetime64[D]"),
+        }
+    )
+    usable = (frame["capacitor"] >= 0) & np.isfinite(frame["value"]) & np.isfinite(frame["rated"])
+    usable &= ~np.isnat(np.asarray(taken_at, "datetime64[s]"))
+    ordered = frame[usable].sort_values(["capacitor", "hours"], kind="stable")
+    before_value, after_value = ordered["value"].shift(1), ordered["value"].shift(-1)
+    before_hours, after_hours = ordered["hours"].shift(1), ordered["hours"].shift(-1)
+    # Neighbours strictly before and after: rows at one time are the same reading given twice (refused as such).
+    same_before = ordered["capacitor"].eq(ordered["capacitor"].shift(1)) & (before_hours < ordered["hours"])
+    same_after = ordered["capacitor"].eq(ordered["capacitor"].shift(-1)) & (after_hours > ordered["hours"])
+    same_after &= ~ordered["removal_day"].shift(-1, fill_value=False).astype(bool)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = ((ordered["hours"] - before_hours) / (after_hours - before_hours)).clip(0.0, 1.0).fillna(0.5)
+    agree = same_before & same_after & ((before_value - after_value).abs() <= agree_fraction * ordered["rated"])
+    line = np.where(agree, before_value + share * (after_value - before_value), np.nan)
+    result = np.full(len(frame), np.nan)
+    result[ordered.index.to_numpy()] = line
+    return result
+
+
 def trend_slope_uf_per_hour(slope_pct_per_1000h, stress_rate, rated_uf) -> np.ndarray:
     """An assessment's slope (% of rated per 1000 stress-hours, at its newest reading) in µF per calendar hour at
     its long-run stress rate; 0 where either is unknown (no trend: the value stays)."""

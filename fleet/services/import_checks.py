@@ -22,6 +22,8 @@ from fleet.engineering.rules import (
     fitting_problems,
     known_time_zone,
     motor_problems,
+    neighbours_line,
+    parse_numbers,
     part_problems,
     service_date_problems,
     trend_slope_uf_per_hour,
@@ -286,6 +288,22 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 object
             ),
         )
+        # Held to the capacitor's stored trend; without one, to the line between its readings before and
+        # after it in this file, where those agree (a whole history brought in at once).
+        predicted = _trend_values_held_to(match["fitted_capacitor_id"], taken_utc)
+        meter = chunk["method"].str.strip().str.lower().isin(["", "meter"]).to_numpy()
+        typed_uf = np.where(meter, parse_numbers(chunk["capacitance_uf"])[0], np.nan)
+        capacitor = np.nan_to_num(match["fitted_capacitor_id"].to_numpy(float), nan=-1).astype(np.int64)
+        between = neighbours_line(
+            capacitor,
+            taken_utc,
+            typed_uf,
+            match["rated_uf"].to_numpy(float),
+            taken_on=taken_on,
+            removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
+        )
+        from_file = np.isnan(predicted) & np.isfinite(between)
+        predicted = np.where(from_file, between, predicted)
         # Every rule of a reading, from the one rulebook the form and the API use.
         result = reading_rules(
             {name: chunk[name] for name in READING_NUMBERS},
@@ -304,9 +322,20 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             taken_on=taken_on,
             time_zone=zones.fillna(default_tz).to_numpy(object),
             now=now,
-            predicted_uf=_trend_values_held_to(match["fitted_capacitor_id"], taken_utc),
+            predicted_uf=predicted,
             confirmed=confirmed,
         )
+        said = result.confirm.get("capacitance_uf")
+        if said is not None and from_file.any():  # say which line it was held to
+            said[from_file] = (
+                pd.Series(said[from_file], dtype=object)
+                .str.replace(
+                    "this capacitor's trend (",
+                    "the readings just before and after it in this file (between them ",
+                    regex=False,
+                )
+                .to_numpy(object)
+            )
         for name, messages in result.errors.items():
             problems.add(messages != "", name, messages)
         for name, messages in result.confirm.items():

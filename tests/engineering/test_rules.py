@@ -385,3 +385,39 @@ def test_a_capacitance_in_nanofarads_says_the_next_step():
         "143000 looks like nanofarads: 143 µF? (rated 143 µF). Type it in µF: 143 (the meter's nF range shows a "
         "thousand times the µF)"
     )
+
+
+def test_the_line_between_a_readings_neighbours_in_a_file():
+    """[derived] Per capacitor, in time order whatever the file's order: the value on the line between the
+    readings just before and after, at the reading's time (a quarter of the way: a quarter of the change);
+    nothing for a first or last reading, neighbours that disagree by more than 8 % of the rating, another
+    capacitor's readings, or an unmatched row."""
+    from fleet.engineering.rules import neighbours_line
+
+    day = np.datetime64("2024-01-01T00:00", "s")
+    hours = np.array([0, 24, 96, 300, 100, 0, 48, 10], dtype="timedelta64[h]")
+    capacitor = np.array([1, 1, 1, 2, 1, 2, 2, -1])
+    values = np.array([8.0, 6.0, 7.8, 7.0, 7.9, 7.5, 7.4, 7.0])
+    line = neighbours_line(capacitor, day + hours, values, np.full(8, 8.0))
+    # Capacitor 1 in time order: 8.0 (0 h), 6.0 (24 h), 7.8 (96 h), 7.9 (100 h); capacitor 2: 7.5 (0 h),
+    # 7.4 (48 h), 7.0 (300 h).
+    assert np.isclose(line[1], 8.0 + (24 / 96) * (7.8 - 8.0))
+    assert np.isnan(line[2])  # its neighbours, 6.0 and 7.9, disagree by 1.9 uF, over 8 % of 8 uF
+    assert np.isclose(line[6], 7.5 + (48 / 300) * (7.0 - 7.5))
+    assert np.isnan(line[[0, 4, 3, 5, 7]]).all()  # first and last of each capacitor; the unmatched row
+
+
+def test_a_reading_on_the_removal_day_is_never_the_one_after():
+    """[derived] 7.8 uF, then 6.1 uF read low on the morning of a replacement, then 8.02 uF on the same day: in a
+    file without the capacitor's id the new capacitor's first reading falls to the removed one, and 6.1 would
+    look like a stray between 7.8 and 8.02; the removal day's reading is not taken as the one after."""
+    from fleet.engineering.rules import neighbours_line
+
+    taken = np.array(["2024-05-04T10:00", "2025-06-02T08:30", "2025-06-02T15:00"], "datetime64[s]")
+    removed = np.full(3, np.datetime64("2025-06-02"), "datetime64[D]")
+    values, rated, same = np.array([7.8, 6.1, 8.02]), np.full(3, 8.0), np.zeros(3, int)
+    assert np.isclose(
+        neighbours_line(same, taken, values, rated)[1], 7.8 + (8.02 - 7.8) * (10245.0 / 10250.0), rtol=1e-3
+    )
+    held = neighbours_line(same, taken, values, rated, taken_on=taken.astype("datetime64[D]"), removed_on=removed)
+    assert np.isnan(held).all()
