@@ -706,3 +706,12 @@ def test_the_rows_to_fix_download_names_an_awkward_file_safely(client, technicia
     header = response["Content-Disposition"]
     assert response.status_code == 200 and header.startswith("attachment; filename*=utf-8''")
     assert "q%222%20Gr%C3%B6%C3%9Fe-rows-to-fix.csv" in header
+
+
+def test_a_cell_that_is_not_a_number_is_named_with_what_it_held():
+    """A file's report said "capacitance_uf: not a number" without the cell's text (a fresh-eyes walk): the
+    form shows the typed value beside its message, a report by row does not, so it repeats the cell."""
+    (motor,) = fleet_of(1)
+    rows = [[motor.asset_tag, "run", "2021-06-01 09:00", "meter", "abc", "", "", "31", ""]]
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(rows), mode=ImportJob.Mode.GOOD_ROWS)
+    assert outcome.result.errors == [(2, "capacitance_uf", "abc is not a number")]

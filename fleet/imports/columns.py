@@ -17,6 +17,7 @@ from fleet.engineering.rules import (
     CONFIRMATION_CASES,
     FIRST_ACCEPTED_DAY,
     LAST_ACCEPTED_DAY,
+    MSG_NOT_A_NUMBER,
     known_time_zone,
     parse_numbers,
 )
@@ -151,6 +152,13 @@ class _Problems:
         mask = np.asarray(mask, bool) & ~self.bad
         rows = self.chunk["row"].to_numpy()[mask]
         messages = message[mask] if isinstance(message, np.ndarray) else [message] * int(mask.sum())
+        if field_name in self.chunk and any(m == MSG_NOT_A_NUMBER for m in messages):
+            # A report of a file names what the cell held, which the form shows beside its message itself.
+            typed = self.chunk[field_name].to_numpy(object)[mask]
+            messages = [
+                f"{str(t)[:20]} is not a number" if m == MSG_NOT_A_NUMBER else m
+                for t, m in zip(typed, messages, strict=True)
+            ]
         self.items += [(int(r), field_name, str(m)) for r, m in zip(rows, messages, strict=True)]
         self.bad |= mask
 
