@@ -602,6 +602,11 @@ def test_a_sites_days_off_keep_the_plan_and_the_moves_off_them(client, planner, 
     day_off = SiteDayOff.objects.create(site=site, day=timezone.localdate() + dt.timedelta(days=10), name="shutdown")
     assert client.post(url, {"remove": day_off.id}).status_code == 403
     client.force_login(planner)
+    # Removing takes a second, named tap: "Remove" opens a fold whose button says which day goes.
+    page = client.get(url).content.decode()
+    fold = page[page.index('<details class="remove-day-off') :]
+    fold = fold[: fold.index("</details>")]
+    assert f'value="{day_off.id}"' in fold and f"Yes, remove {day_off.day:%a %Y-%m-%d}" in re.sub(r"<[^>]+>", "", fold)
     assert client.post(url, {"remove": day_off.id}).status_code == 302
     assert not SiteDayOff.objects.filter(pk=day_off.pk).exists()
     assert "removed already" in " ".join(
