@@ -637,6 +637,7 @@ def test_work_recorded_from_a_visit_sheet_goes_back_to_the_visit_sheet(client, p
     successor = FittedCapacitor.objects.get(motor=fitted_capacitor.motor, removed_on__isnull=True)
     reading_form = f"{reverse('reading_new', args=[successor.id])}?next={visit.replace('/', '%2F')}"
     assert response.status_code == 302 and response["Location"] == reading_form
+    assert "Ignored next" not in client.get(reading_form).content.decode()  # the way back is taken, not refused
     response = client.post(reading_form, {"method": "meter", "capacitance_uf": "30.1", "condition": "sound"})
     assert response.status_code == 302 and response["Location"] == f"{visit}?saved={successor.id}"
     elsewhere = f"{reverse('reading_new', args=[successor.id])}?next=https://example.org/work-orders/"

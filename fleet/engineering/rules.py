@@ -787,9 +787,10 @@ def trend_value_held_to(capacitance_now_uf, fitted_through, taken_at, slope_uf_p
     """Per reading, the trend value `off_trend` holds it to (`predicted_uf`): its capacitor's current assessment's
     capacitance now, the trend at the newest reading it used (`fitted_through`, datetime64 UTC), carried on to
     the reading's time along the trend's slope there (`slope_uf_per_hour` in calendar hours: the assessment's
-    slope times its long-run stress rate), for a reading taken after that one; nan for a reading taken at or
-    before it (the trend's value then is not stored, so a back-filled reading or a readings export imported
-    again is not held to today's value) or without an assessment (NaT). A year after the newest reading the
+    slope times its long-run stress rate), for a reading taken at or after that one (a re-read in the same
+    minute as the newest reading, meter after in circuit, is held to the trend's value then); nan for a reading
+    taken before it (the trend's value then is not stored, so a back-filled reading is not held to today's
+    value) or without an assessment (NaT). A year after the newest reading the
     trend has moved on: held to its old value, the reading a "read again" order asked for was called far off the
     trend the order said had reached its limit. One rule for the reading form, the API, the admin and the import."""
     now_uf = np.atleast_1d(np.asarray(capacitance_now_uf, float))
@@ -797,7 +798,7 @@ def trend_value_held_to(capacitance_now_uf, fitted_through, taken_at, slope_uf_p
     taken = np.atleast_1d(np.asarray(taken_at, "datetime64[s]"))
     hours = (taken - through).astype("timedelta64[s]").astype(float) / 3600.0
     slope = np.nan_to_num(np.atleast_1d(np.asarray(slope_uf_per_hour, float)), nan=0.0)
-    return np.where(taken > through, now_uf + slope * np.where(taken > through, hours, 0.0), np.nan)
+    return np.where(taken >= through, now_uf + slope * np.where(taken > through, hours, 0.0), np.nan)
 
 
 def _as_objects(raw, n: int | None = None) -> pd.Series:
@@ -1231,7 +1232,8 @@ def _check_readings(
         jumped = drift & (values["capacitance_uf"] > predicted)
         drift_words = _messages(
             drift,
-            "{c:g} µF is far from this capacitor's trend ({p:.2f} µF). Re-measure, or confirm the value if it is right",
+            "{c:g} µF is far from this capacitor's trend ({p:.2f} µF at this reading's time). Re-measure, or confirm "
+            "the value if it is right",
             c=values["capacitance_uf"],
             p=predicted,
         ) + np.where(

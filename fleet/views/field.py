@@ -59,7 +59,7 @@ def _visit_sheet_to_return_to(request) -> str | None:
 
 
 @needs_permission("fleet.add_reading")
-@takes_parameters("corrects")
+@takes_parameters("corrects", "next")
 def reading_new(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     needs_confirmation = False

@@ -66,13 +66,15 @@ def test_off_trend_uses_a_fraction_of_the_rating():
     assert off_trend([3.5, 3.9, 3.8], [3.9, 3.9, np.nan], 4.0).tolist() == [True, False, False]
 
 
-def test_a_reading_is_held_to_the_trend_now_only_when_taken_after_its_newest_reading():
+def test_a_reading_is_held_to_the_trend_now_only_when_taken_at_or_after_its_newest_reading():
     """[derived] The stored trend value is the one at the newest reading it used: a later reading is held to
-    it; one taken then or before (back-filled, or an export imported again), or with no assessment, is not."""
+    it, and so is one taken in the same minute (a re-read, meter after in circuit: 26.0 uF on a 30 uF part
+    whose trend read 29.26 at that minute was saved unquestioned, a fresh-eyes check); one taken before
+    (back-filled), or with no assessment, is not."""
     through = np.array(["2025-06-01T09:00", "2025-06-01T09:00", "2025-06-01T09:00", "NaT"], "datetime64[s]")
     taken = np.array(["2025-09-01T09:00", "2025-06-01T09:00", "2024-01-01T09:00", "2025-09-01T09:00"], "datetime64[s]")
     held = trend_value_held_to([11.9, 11.9, 11.9, np.nan], through, taken)
-    assert held[0] == 11.9 and np.isnan(held[1:]).all()
+    assert held[:2].tolist() == [11.9, 11.9] and np.isnan(held[2:]).all()
 
 
 def test_a_reading_a_year_on_is_held_to_the_trend_carried_to_its_day():
