@@ -944,7 +944,7 @@ def test_a_stray_between_two_readings_that_agree_is_asked_to_confirm_in_a_whole_
     call_command("import", "readings", str(write(tmp_path, "history.csv", text)), "--good-rows-only", stdout=report)
     assert (
         "row 4, capacitance_uf: 6.2 µF is far from the readings just before and after it in this file "
-        "(between them 7.89 µF at this reading's time)"
+        "(7.9 and 7.88 µF; between them 7.89 µF at this reading's time)"
     ) in report.getvalue()
     assert "row 6" not in report.getvalue() and "row 7" not in report.getvalue()
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [6.85, 6.9, 7.88, 7.9, 7.95]

@@ -734,7 +734,7 @@ def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
 
 def neighbours_line(
     capacitor, taken_at, capacitance_uf, rated_uf, agree_fraction=0.08, taken_on=None, removed_on=None
-) -> np.ndarray:
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per reading of a file, the value on the straight line between the readings of the same capacitor just
     before and just after it in the file, at its time, where those two agree (within `agree_fraction` of the
     rating); nan where it is the first or last of its capacitor's, or they disagree, or a value is missing.
@@ -746,6 +746,7 @@ def neighbours_line(
     one after: a file that does not name the capacitor gives the new one's first reading of that day to the
     removed one, and the low reading that brought the replacement would look like a stray before it.
     Arrays per reading: `capacitor` (any id; negative: not matched), `taken_at` (datetime64), the rest floats.
+    Returns (line, before, after): the line's value and the two readings it runs between (nan where no line).
     """
     frame = pd.DataFrame(
         {
@@ -771,9 +772,13 @@ def neighbours_line(
         share = ((ordered["hours"] - before_hours) / (after_hours - before_hours)).clip(0.0, 1.0).fillna(0.5)
     agree = same_before & same_after & ((before_value - after_value).abs() <= agree_fraction * ordered["rated"])
     line = np.where(agree, before_value + share * (after_value - before_value), np.nan)
-    result = np.full(len(frame), np.nan)
-    result[ordered.index.to_numpy()] = line
-    return result
+    result = np.full((3, len(frame)), np.nan)
+    result[:, ordered.index.to_numpy()] = [
+        line,
+        np.where(agree, before_value, np.nan),
+        np.where(agree, after_value, np.nan),
+    ]
+    return result[0], result[1], result[2]
 
 
 def trend_slope_uf_per_hour(slope_pct_per_1000h, stress_rate, rated_uf) -> np.ndarray:

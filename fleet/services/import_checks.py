@@ -294,7 +294,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         meter = chunk["method"].str.strip().str.lower().isin(["", "meter"]).to_numpy()
         typed_uf = np.where(meter, parse_numbers(chunk["capacitance_uf"])[0], np.nan)
         capacitor = np.nan_to_num(match["fitted_capacitor_id"].to_numpy(float), nan=-1).astype(np.int64)
-        between = neighbours_line(
+        between, before_uf, after_uf = neighbours_line(
             capacitor,
             taken_utc,
             typed_uf,
@@ -326,16 +326,17 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             confirmed=confirmed,
         )
         said = result.confirm.get("capacitance_uf")
-        if said is not None and from_file.any():  # say which line it was held to
-            said[from_file] = (
-                pd.Series(said[from_file], dtype=object)
-                .str.replace(
-                    "this capacitor's trend (",
-                    "the readings just before and after it in this file (between them ",
-                    regex=False,
-                )
-                .to_numpy(object)
+        if said is not None and from_file.any():  # say which readings it was held to
+            neighbours = _messages(
+                from_file,
+                "the readings just before and after it in this file ({b:g} and {a:g} µF; between them ",
+                b=before_uf,
+                a=after_uf,
             )
+            said[from_file] = [
+                text.replace("this capacitor's trend (", words, 1)
+                for text, words in zip(said[from_file], neighbours[from_file], strict=True)
+            ]
         for name, messages in result.errors.items():
             problems.add(messages != "", name, messages)
         for name, messages in result.confirm.items():

@@ -401,7 +401,8 @@ def test_the_line_between_a_readings_neighbours_in_a_file():
     hours = np.array([0, 24, 96, 300, 100, 0, 48, 10], dtype="timedelta64[h]")
     capacitor = np.array([1, 1, 1, 2, 1, 2, 2, -1])
     values = np.array([8.0, 6.0, 7.8, 7.0, 7.9, 7.5, 7.4, 7.0])
-    line = neighbours_line(capacitor, day + hours, values, np.full(8, 8.0))
+    line, before, after = neighbours_line(capacitor, day + hours, values, np.full(8, 8.0))
+    assert (before[1], after[1]) == (8.0, 7.8)  # the two readings the line runs between
     # Capacitor 1 in time order: 8.0 (0 h), 6.0 (24 h), 7.8 (96 h), 7.9 (100 h); capacitor 2: 7.5 (0 h),
     # 7.4 (48 h), 7.0 (300 h).
     assert np.isclose(line[1], 8.0 + (24 / 96) * (7.8 - 8.0))
@@ -420,7 +421,7 @@ def test_a_reading_on_the_removal_day_is_never_the_one_after():
     removed = np.full(3, np.datetime64("2025-06-02"), "datetime64[D]")
     values, rated, same = np.array([7.8, 6.1, 8.02]), np.full(3, 8.0), np.zeros(3, int)
     assert np.isclose(
-        neighbours_line(same, taken, values, rated)[1], 7.8 + (8.02 - 7.8) * (10245.0 / 10250.0), rtol=1e-3
+        neighbours_line(same, taken, values, rated)[0][1], 7.8 + (8.02 - 7.8) * (10245.0 / 10250.0), rtol=1e-3
     )
-    held = neighbours_line(same, taken, values, rated, taken_on=taken.astype("datetime64[D]"), removed_on=removed)
+    held, _, _ = neighbours_line(same, taken, values, rated, taken_on=taken.astype("datetime64[D]"), removed_on=removed)
     assert np.isnan(held).all()
