@@ -36,6 +36,8 @@ def test_the_form_corrects_a_reading_at_its_time_and_the_trend_uses_the_correcti
         url, {"method": "meter", "capacitance_uf": "3.92", "condition": "sound", "supersedes": str(wrong.id)}
     )
     assert response.status_code == 302
+    # Back on the capacitor's page its "Correct" was on (it went to the motor's page).
+    assert response.url.startswith(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id]) + "?saved=")
     assert "Correction saved for" in strip_tags(client.get(response.url).content.decode())
     correction = Reading.objects.get(supersedes=wrong)
     assert correction.capacitance_uf == 3.92 and correction.taken_at == wrong.taken_at

@@ -287,6 +287,8 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     listed = client.get(reverse("work_orders")).content.decode()
     back = f"?next={reverse('work_orders')}"
     assert f'href="{reverse("reading_new", args=[suspect.id])}{back}">{suspect.part.code}</a>' in listed
+    # and a replacement order's part opens the replacement form, as on the sheet (it was plain text here).
+    assert f'href="{reverse("replace", args=[worn.id])}{back}">{worn.part.code}</a>' in listed
     # The reading closes the order, and its message says so (it said only "Reading saved").
     data = {"method": "meter", "capacitance_uf": "3.95", "case_temperature_c": "25", "condition": "sound"}
     saved = client.post(reverse("reading_new", args=[suspect.id]), data, follow=True).content.decode()

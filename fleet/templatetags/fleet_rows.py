@@ -86,22 +86,24 @@ WORK_ORDER_ROW = """<tr>
 PLAN_NOW = '<br><b class="plan-now">{}</b>'
 
 
-READING_LINK = '<a class="nowrap part-code" href="{}">{}</a>'
+PART_LINK = '<a class="nowrap part-code" href="{}">{}</a>'
 
 
 @register.simple_tag
-def work_order_rows(orders, can_read=False):
-    """A visit's rows on the work-orders page for `orders` (with their motors and capacitors' parts); a
-    "read again" order's part opens the capacitor's reading form where the user may log one (`can_read`),
-    as the visit sheet's does."""
+def work_order_rows(orders, can_read=False, can_replace=False):
+    """A visit's rows on the work-orders page for `orders` (with their motors and capacitors' parts), as the
+    visit sheet's: a "read again" order's part opens the capacitor's reading form where the user may log one
+    (`can_read`), a replacement order's the replacement form where the user may record one (`can_replace`)."""
     rows = []
+    back = f"?next={reverse('work_orders')}"  # back to this list once recorded (`field._visit_sheet_to_return_to`)
     for order in orders:
         capacitor = order.fitted_capacitor
         part = "" if capacitor is None else capacitor.part.code
-        if part and can_read and order.reads_again and capacitor.removed_on is None:
-            # Back to this list once the reading is saved (`field._visit_sheet_to_return_to`).
-            reading_form = f"{reverse('reading_new', args=[capacitor.id])}?next={reverse('work_orders')}"
-            part = format_html(READING_LINK, reading_form, part)
+        in_service = part and capacitor.removed_on is None
+        if in_service and can_read and order.reads_again:
+            part = format_html(PART_LINK, reverse("reading_new", args=[capacitor.id]) + back, part)
+        elif in_service and can_replace and not order.reads_again:
+            part = format_html(PART_LINK, reverse("replace", args=[capacitor.id]) + back, part)
         rows.append(
             format_html(
                 WORK_ORDER_ROW,

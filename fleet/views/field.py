@@ -98,8 +98,13 @@ def reading_new(request, fitted_capacitor_id):
                         else "."
                     ),
                 )
-                # ?saved= tells the page to drop the draft the phone kept of this form.
-                back = _visit_sheet_to_return_to(request) or reverse("motor", args=[fitted_capacitor.motor.asset_tag])
+                # ?saved= tells the page to drop the draft the phone kept of this form. A correction goes back
+                # to the capacitor's page its "Correct" was on; a reading to its motor's, or its visit sheet.
+                back = _visit_sheet_to_return_to(request) or (
+                    reverse("fitted_capacitor", args=[fitted_capacitor.id])
+                    if reading.supersedes_id
+                    else reverse("motor", args=[fitted_capacitor.motor.asset_tag])
+                )
                 return redirect(f"{back}{'&' if '?' in back else '?'}saved={fitted_capacitor.id}")
     else:
         corrects = None if named_if_repeated(request, ["corrects"]) else query_value(request.GET, "corrects")
