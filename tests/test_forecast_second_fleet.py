@@ -18,13 +18,11 @@ import io
 import pandas as pd
 import pytest
 from django.core.management import call_command
-from rest_framework.test import APIClient
 
 from fleet.models import FittedCapacitor, Reading
-from fleet.roles import RELIABILITY_ENGINEER
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import run_backtest, start_backtest
-from tests.factories import make_user
+from tests.forecast_harness import assessments_through_the_api, issue_target_misses
 from tests.simulation_second import files, scoring
 from tests.simulation_second import fleet as simulated
 
@@ -36,20 +34,6 @@ pytestmark = [pytest.mark.simulation, pytest.mark.django_db]
 @pytest.fixture(scope="module")
 def world():
     return simulated.simulate(simulated.SEED, simulated.N_MOTORS)
-
-
-def _assessments() -> list[dict]:
-    """Every assessment, page by page, as a reliability engineer reads them through the API."""
-    client = APIClient()
-    client.force_authenticate(make_user(RELIABILITY_ENGINEER))
-    items, url = [], "/api/assessments/"
-    while url:
-        response = client.get(url)
-        assert response.status_code == 200, response.content[:300]
-        body = response.json()
-        items += body["results"]
-        url = body.get("next")
-    return items
 
 
 _RESULTS: dict[dt.date, pd.DataFrame] = {}
@@ -85,7 +69,7 @@ def _forecast_scores(world, cutoff, tmp_path) -> pd.DataFrame:
         .values_list("id", flat=True)
     )
     refit_fitted_capacitors(ids, now=dt.datetime.combine(cutoff, dt.time(0), tzinfo=dt.UTC), force=True)
-    scores, counts = scoring.score(world, cutoff, scoring.forecasts_from_api(_assessments()))
+    scores, counts = scoring.score(world, cutoff, scoring.forecasts_from_api(assessments_through_the_api()))
     print(f"\nforecast against the second simulated fleet, seed {simulated.SEED}, cut-off {cutoff}")
     print(scoring.table(scores, counts))
     _RESULTS[cutoff] = scores
@@ -122,15 +106,11 @@ def test_forecast_meets_the_issue_targets_on_a_second_independent_fleet(world, c
     """Issue 8: P10-P90 coverage 80 +/- 7 points, neither tail above 15 %; for capacitors not yet below
     their limit, 365-day risk recall >= 85 % and precision >= 60 %."""
     overall = _forecast_scores(world, cutoff, tmp_path).loc["all"]
-    misses = [
-        message
-        for message, failed in (
-            (f"P10-P90 coverage {overall['band']:.0%} outside 73-87 %", abs(overall["band"] - 0.80) > 0.07),
-            (f"{overall['before_p10']:.0%} crossed before P10 (at most 15 %)", overall["before_p10"] > 0.15),
-            (f"{overall['after_p90']:.0%} crossed after P90 (at most 15 %)", overall["after_p90"] > 0.15),
-            (f"365-day recall {overall['recall_365']:.0%} (at least 85 %)", not overall["recall_365"] >= 0.85),
-            (f"365-day precision {overall['precision_365']:.0%} (at least 60 %)", not overall["precision_365"] >= 0.60),
-        )
-        if failed
-    ]
+    misses = issue_target_misses(
+        band=overall["band"],
+        before_p10=overall["before_p10"],
+        after_p90=overall["after_p90"],
+        recall=overall["recall_365"],
+        precision=overall["precision_365"],
+    )
     assert not misses, "; ".join(misses)

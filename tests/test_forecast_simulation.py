@@ -22,14 +22,12 @@ import os
 
 import numpy as np
 import pytest
-from django.contrib.auth.models import Group, User
 from django.core.management import call_command
-from rest_framework.test import APIClient
 
 from fleet.models import FittedCapacitor, Reading
-from fleet.roles import RELIABILITY_ENGINEER
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import run_backtest, start_backtest
+from tests.forecast_harness import assessments_through_the_api, issue_target_misses
 from tests.simulation import fleet as simulated
 from tests.simulation import scoring
 
@@ -51,21 +49,6 @@ def _import(files: dict, directory) -> None:
         # Readings with a unit slip are refused by the import's checks: the good rows go in.
         options = {"good_rows_only": True} if kind == "readings" else {}
         call_command("import", kind, paths[kind], **options)
-
-
-def _assessments() -> list[dict]:
-    user = User.objects.create_user(username="simulation-engineer")
-    user.groups.add(Group.objects.get(name=RELIABILITY_ENGINEER))
-    client = APIClient()
-    client.force_authenticate(user)
-    items, url = [], "/api/assessments/"
-    while url:
-        response = client.get(url)
-        assert response.status_code == 200, response.content[:300]
-        body = response.json()
-        items += body["results"]
-        url = body.get("next")
-    return items
 
 
 _RESULTS: dict[dt.date, dict] = {}
@@ -103,7 +86,7 @@ def _forecast_scores(fleet, cutoff, tmp_path) -> dict:
         .values_list("id", flat=True)
     )
     refit_fitted_capacitors(ids, now=dt.datetime.combine(cutoff, dt.time(0), tzinfo=dt.UTC), force=True)
-    forecasts = scoring.forecasts_from_api(_assessments())
+    forecasts = scoring.forecasts_from_api(assessments_through_the_api())
     results = scoring.score_by(truth, cutoff, forecasts)
     print(f"\nforecast against the simulated fleet, seed {SEED}, cut-off {cutoff}")
     print(scoring.table(results))
@@ -142,15 +125,11 @@ def test_forecast_meets_the_issue_targets_on_an_independent_fleet(fleet, cutoff,
     """Issue 8: P10-P90 coverage 80 +/- 7 points, neither tail above 15 %; for capacitors
     not yet below their limit, 365-day risk recall >= 85 % and precision >= 60 %."""
     overall = _forecast_scores(fleet, cutoff, tmp_path)["all"]
-    misses = [
-        message
-        for message, failed in (
-            (f"P10-P90 coverage {overall['inside']:.0%} outside 73-87 %", abs(overall["inside"] - 0.80) > 0.07),
-            (f"{overall['below_p10']:.0%} crossed before P10 (at most 15 %)", overall["below_p10"] > 0.15),
-            (f"{overall['above_p90']:.0%} crossed after P90 (at most 15 %)", overall["above_p90"] > 0.15),
-            (f"365-day recall {overall['recall']:.0%} (at least 85 %)", not overall["recall"] >= 0.85),
-            (f"365-day precision {overall['precision']:.0%} (at least 60 %)", not overall["precision"] >= 0.60),
-        )
-        if failed
-    ]
+    misses = issue_target_misses(
+        band=overall["inside"],
+        before_p10=overall["below_p10"],
+        after_p90=overall["above_p90"],
+        recall=overall["recall"],
+        precision=overall["precision"],
+    )
     assert not misses, "; ".join(misses)
