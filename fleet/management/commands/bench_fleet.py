@@ -114,8 +114,14 @@ class Command(BaseCommand):
 
         floor_s = float("nan")
         if on_postgresql():
-            rows, floor_s = copy_read_floor(Reading)
-            self.say(f"COPY read floor: {rows:,} reading rows in {floor_s:.2f} s ({rows / floor_s:,.0f} rows/s)")
+            # The fastest of three: a floor, not one run that may have met a cold cache or a busy core.
+            runs = [copy_read_floor(Reading) for _ in range(3)]
+            rows, floor_s = min(runs, key=lambda run: run[1])
+            each = ", ".join(f"{seconds:.2f}" for _, seconds in runs)
+            self.say(
+                f"COPY read floor: {rows:,} reading rows in {floor_s:.2f} s ({rows / floor_s:,.0f} rows/s;"
+                f" fastest of {each} s)"
+            )
         self.chunk_memory(options["chunk_size"])
         self.chunk_cpu(options["chunk_size"])
         if not options["no_in_process"]:
