@@ -258,6 +258,9 @@ FLEET_REFIT_PART_SIZE = env_int("FLEET_REFIT_PART_SIZE", 0)
 FLEET_BACKTEST_MAX_CAPACITORS = env_int("FLEET_BACKTEST_MAX_CAPACITORS", 20000)
 # Capacitors of one part fitted at most (a fixed sample) to estimate its population of paths before a fleet refit.
 FLEET_PRIOR_MAX_CAPACITORS_PER_PART = env_int("FLEET_PRIOR_MAX_CAPACITORS_PER_PART", 5000)
+# Days a superseded assessment is kept after it was made (0: every one, for good). Each refit adds one a capacitor;
+# they are derived from the readings, which are kept for good (refits.prune_assessment_history).
+FLEET_ASSESSMENT_HISTORY_DAYS = env_int("FLEET_ASSESSMENT_HISTORY_DAYS", 35)
 
 # Import limits, checked before a file is parsed (an XLSX is a zip: its unpacked size and sheet dimension count).
 FLEET_IMPORT_MAX_FILE_MB = env_int("FLEET_IMPORT_MAX_FILE_MB", 50)
