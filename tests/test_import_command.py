@@ -951,3 +951,26 @@ def test_a_stray_between_two_readings_that_agree_is_asked_to_confirm_in_a_whole_
     confirmed = "asset_tag,role,taken_at,capacitance_uf,confirmed\nFAN-1,run,2023-12-01 10:00,6.2,yes\n"
     run("readings", write(tmp_path, "confirmed.csv", confirmed))
     assert Reading.objects.filter(capacitance_uf=6.2).exists()
+
+
+def test_a_stray_is_held_to_its_neighbours_in_another_part_of_a_long_file(tmp_path, monkeypatch):
+    """The file is checked in parts of CHUNK_ROWS rows (50,000) for the progress bar, and the neighbours were
+    looked for within a part: a history sorted by date (every motor's first quarter, then the second...) has a
+    capacitor's readings in different parts, so its strays came in unasked. Parts of two rows here, the
+    readings in date order among another motor's: the stray is asked to confirm as in a short file."""
+    import fleet.services.import_checks as import_checks
+
+    for kind, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER), ("history", HISTORY)):
+        run(kind, write(tmp_path, f"{kind}.csv", text))
+    monkeypatch.setattr(import_checks, "CHUNK_ROWS", 2)
+    text = "asset_tag,role,taken_at,capacitance_uf,confirmed\n"
+    for taken_at, fan_uf in (("2023-06-01", 7.95), ("2023-09-01", 7.9), ("2023-12-01", 6.2), ("2024-03-01", 7.88)):
+        text += f"FAN-1,run,{taken_at} 10:00,{fan_uf},\nCMP-1,start,{taken_at} 11:00,99,\n"
+    report = io.StringIO()
+    call_command("import", "readings", str(write(tmp_path, "by_date.csv", text)), "--good-rows-only", stdout=report)
+    assert (
+        "row 6, capacitance_uf: 6.2 µF is far from the readings just before and after it in this file "
+        "(7.9 and 7.88 µF; between them 7.89 µF at this reading's time)"
+    ) in report.getvalue()
+    assert not Reading.objects.filter(capacitance_uf=6.2).exists()
+    assert Reading.objects.count() == 7

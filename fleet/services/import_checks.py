@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from dataclasses import dataclass
 from decimal import Decimal
 
 import numpy as np
@@ -238,72 +239,36 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     zone_of_tag = fitted.drop_duplicates("tag").set_index("tag")["time_zone"]
     first_fitted = fitted.groupby(["tag", "role"])["fitted_on"].min()
     now = np.datetime64(timezone.now().replace(tzinfo=None), "s")
+    starts = range(0, len(frame), CHUNK_ROWS)
+
+    def progress(passes_done: int, start: int) -> None:
+        """Two passes over the file: placing its rows, then judging them; each counts for half its rows."""
+        if on_progress:
+            on_progress((passes_done * len(frame) + min(start + CHUNK_ROWS, len(frame))) // 2)
+
+    placed = []
+    for start in starts:
+        placed.append(
+            _place_readings(
+                frame.iloc[start : start + CHUNK_ROWS].reset_index(drop=True),
+                upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True),
+                zone_of_tag,
+                fitted,
+                first_fitted,
+                default_tz,
+            )
+        )
+        progress(0, start)
+    # A reading without a stored trend is held to the line between its capacitor's readings just before and
+    # after it in the whole file, not in its part: a history sorted by date has a capacitor's in every part.
+    lines = _neighbours_in_file(placed)
     good_parts, errors = [], []
-    for start in range(0, len(frame), CHUNK_ROWS):
-        chunk = frame.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
-        problems = _Problems(chunk)
-        for name in READING_REQUIRED:
-            problems.add(chunk[name].eq(""), name, "required")
-        tag = upper_tags.iloc[start : start + CHUNK_ROWS].reset_index(drop=True)
-        zones = zone_of_tag.reindex(tag.to_numpy(object))
-        unknown_tag = zones.isna().to_numpy()
-        if unknown_tag.any():  # the words are built for every row: only when one needs them
-            problems.add(unknown_tag, "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register"))
-        role = chunk["role"].str.lower()
-        problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
-        taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
-        problems.add(unplaced != "", "taken_at", unplaced)
-        problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
-        taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
-        taken_on = local_days(taken_utc, zones.fillna(default_tz).to_numpy(object), fallback=settings.TIME_ZONE)
-        named = _named_capacitors(chunk, tag, role, fitted, problems)
-        match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted, named)
-        unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
-        # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
-        position = pd.MultiIndex.from_arrays([tag, role])
-        first = first_fitted.reindex(position).to_numpy("datetime64[s]")
-        known_position = ~np.isnat(first)
-        before_first = known_position & (taken_on.astype("datetime64[s]") < first)
-        problems.add(unmatched & ~known_position, "role", "this motor has had no capacitor in this role")
-        early = unmatched & before_first
-        problems.add(
-            early,
-            "taken_at",
-            _messages(
-                early,
-                "before the first capacitor in this role was fitted to this motor ({d})",
-                d=first.astype("datetime64[D]"),
-            ),
-        )
-        problems.add(
-            unmatched & known_position & ~before_first,
-            "taken_at",
-            "no capacitor in this role was fitted to this motor on that date",
-        )
-        confirmed, unreadable = yes_or_no(chunk["confirmed"])
-        problems.add(
-            unreadable,
-            "confirmed",
-            (chunk["confirmed"].str.slice(0, 20) + " is not yes or no (true or false, 1 or 0; empty is no)").to_numpy(
-                object
-            ),
-        )
-        # Held to the capacitor's stored trend; without one, to the line between its readings before and
-        # after it in this file, where those agree (a whole history brought in at once).
-        predicted = _trend_values_held_to(match["fitted_capacitor_id"], taken_utc)
-        meter = chunk["method"].str.strip().str.lower().isin(["", "meter"]).to_numpy()
-        typed_uf = np.where(meter, parse_numbers(chunk["capacitance_uf"])[0], np.nan)
-        capacitor = np.nan_to_num(match["fitted_capacitor_id"].to_numpy(float), nan=-1).astype(np.int64)
-        between, before_uf, after_uf = neighbours_line(
-            capacitor,
-            taken_utc,
-            typed_uf,
-            match["rated_uf"].to_numpy(float),
-            taken_on=taken_on,
-            removed_on=pd.to_datetime(match["removed_on"]).to_numpy("datetime64[D]"),
-        )
-        from_file = np.isnan(predicted) & np.isfinite(between)
-        predicted = np.where(from_file, between, predicted)
+    for start, part in zip(starts, placed, strict=True):
+        between, before_uf, after_uf = (values[start : start + len(part.chunk)] for values in lines)
+        chunk, problems, zones, match, confirmed = part.chunk, part.problems, part.zones, part.match, part.confirmed
+        taken, taken_utc, taken_on = part.taken, part.taken_utc, part.taken_on
+        from_file = np.isnan(part.predicted) & np.isfinite(between)
+        predicted = np.where(from_file, between, part.predicted)
         # Every rule of a reading, from the one rulebook the form and the API use.
         result = reading_rules(
             {name: chunk[name] for name in READING_NUMBERS},
@@ -368,8 +333,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         )
         good_parts.append(rows)
         errors += problems.items
-        if on_progress:
-            on_progress(min(start + CHUNK_ROWS, len(frame)))
+        progress(1, start)
     good = (
         pd.concat(good_parts, ignore_index=True)
         if good_parts
@@ -419,6 +383,106 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         good = good[~clash].reset_index(drop=True)
     errors.sort()
     return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
+
+
+@dataclass(frozen=True)
+class _PlacedReadings:
+    """A part of a readings file placed on its capacitors, with the problems found on the way: what the
+    rulebook and the in-file neighbours read."""
+
+    chunk: pd.DataFrame
+    problems: _Problems
+    zones: pd.Series
+    taken: pd.Series
+    taken_utc: np.ndarray
+    taken_on: np.ndarray
+    match: pd.DataFrame
+    confirmed: np.ndarray
+    predicted: np.ndarray  # the stored trend carried to the reading's time (nan: no trend)
+    capacitor: np.ndarray  # the fitted capacitor's id, -1 where none matched
+    typed_uf: np.ndarray  # a meter reading's value (nan otherwise)
+
+
+def _place_readings(chunk, tag, zone_of_tag, fitted, first_fitted, default_tz: str) -> _PlacedReadings:
+    """Each row's time in its site's zone, its site day and the capacitor fitted in its position that day."""
+    problems = _Problems(chunk)
+    for name in READING_REQUIRED:
+        problems.add(chunk[name].eq(""), name, "required")
+    zones = zone_of_tag.reindex(tag.to_numpy(object))
+    unknown_tag = zones.isna().to_numpy()
+    if unknown_tag.any():  # the words are built for every row: only when one needs them
+        problems.add(unknown_tag, "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register"))
+    role = chunk["role"].str.lower()
+    problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
+    taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
+    problems.add(unplaced != "", "taken_at", unplaced)
+    problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
+    taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
+    taken_on = local_days(taken_utc, zones.fillna(default_tz).to_numpy(object), fallback=settings.TIME_ZONE)
+    named = _named_capacitors(chunk, tag, role, fitted, problems)
+    match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted, named)
+    unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
+    # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.
+    position = pd.MultiIndex.from_arrays([tag, role])
+    first = first_fitted.reindex(position).to_numpy("datetime64[s]")
+    known_position = ~np.isnat(first)
+    before_first = known_position & (taken_on.astype("datetime64[s]") < first)
+    problems.add(unmatched & ~known_position, "role", "this motor has had no capacitor in this role")
+    early = unmatched & before_first
+    problems.add(
+        early,
+        "taken_at",
+        _messages(
+            early,
+            "before the first capacitor in this role was fitted to this motor ({d})",
+            d=first.astype("datetime64[D]"),
+        ),
+    )
+    problems.add(
+        unmatched & known_position & ~before_first,
+        "taken_at",
+        "no capacitor in this role was fitted to this motor on that date",
+    )
+    confirmed, unreadable = yes_or_no(chunk["confirmed"])
+    problems.add(
+        unreadable,
+        "confirmed",
+        (chunk["confirmed"].str.slice(0, 20) + " is not yes or no (true or false, 1 or 0; empty is no)").to_numpy(
+            object
+        ),
+    )
+    meter = chunk["method"].str.strip().str.lower().isin(["", "meter"]).to_numpy()
+    return _PlacedReadings(
+        chunk=chunk,
+        problems=problems,
+        zones=zones,
+        taken=taken,
+        taken_utc=taken_utc,
+        taken_on=taken_on,
+        match=match,
+        confirmed=confirmed,
+        predicted=_trend_values_held_to(match["fitted_capacitor_id"], taken_utc),
+        capacitor=np.nan_to_num(match["fitted_capacitor_id"].to_numpy(float), nan=-1).astype(np.int64),
+        typed_uf=np.where(meter, parse_numbers(chunk["capacitance_uf"])[0], np.nan),
+    )
+
+
+def _neighbours_in_file(placed: list[_PlacedReadings]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """`rules.neighbours_line` over every part of the file at once: (line, before, after) per row."""
+    if not placed:
+        return np.array([]), np.array([]), np.array([])
+
+    def joined(values) -> np.ndarray:
+        return np.concatenate([values(part) for part in placed])
+
+    return neighbours_line(
+        joined(lambda part: part.capacitor),
+        joined(lambda part: part.taken_utc),
+        joined(lambda part: part.typed_uf),
+        joined(lambda part: part.match["rated_uf"].to_numpy(float)),
+        taken_on=joined(lambda part: np.asarray(part.taken_on, "datetime64[D]")),
+        removed_on=joined(lambda part: pd.to_datetime(part.match["removed_on"]).to_numpy("datetime64[D]")),
+    )
 
 
 def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
