@@ -974,3 +974,29 @@ def test_a_stray_is_held_to_its_neighbours_in_another_part_of_a_long_file(tmp_pa
     ) in report.getvalue()
     assert not Reading.objects.filter(capacitance_uf=6.2).exists()
     assert Reading.objects.count() == 7
+
+
+def test_a_stored_reading_imported_again_with_another_condition_or_measurement_is_refused_by_field(tmp_path):
+    """A file edited after its import and imported again: a row whose capacitor, time, method and value are
+    stored already was counted "already imported" whatever else it said, so a condition changed to bulged (a
+    capacitor to replace today), a note or a case temperature added was lost without a word. Each field the
+    file gives otherwise is named with the stored value; nothing is changed, and the unedited row is still
+    counted as imported before."""
+    for kind, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER), ("history", HISTORY)):
+        run(kind, write(tmp_path, f"{kind}.csv", text))
+    first = "asset_tag,role,taken_at,capacitance_uf,case_temperature_c,condition,notes\n"
+    first += "FAN-1,run,2024-05-04 10:00,7.8,38,sound,\nFAN-1,run,2024-08-04 10:00,7.79,35,sound,\n"
+    run("readings", write(tmp_path, "first.csv", first))
+    edited = first.replace("7.8,38,sound,", "7.8,24,bulged,leaking smell")
+    report = io.StringIO()
+    with pytest.raises(CommandError, match="nothing would be imported|nothing was imported"):
+        call_command("import", "readings", str(write(tmp_path, "edited.csv", edited)), stdout=report)
+    said = report.getvalue()
+    assert "1 already imported, 1 with problems" in said
+    assert "row 2, condition: this reading is stored already with condition sound, the file says bulged" in said
+    assert "row 2, case_temperature_c: this reading is stored already with case_temperature_c 38, the file says 24" in said
+    assert "row 2, notes: this reading is stored already with notes nothing, the file says leaking smell" in said
+    assert list(Reading.objects.order_by("taken_at").values_list("condition", "case_temperature_c", "notes")) == [
+        ("sound", 38.0, ""),
+        ("sound", 35.0, ""),
+    ]

@@ -348,7 +348,14 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             for row, first in zip(later["row"], first_row.reindex(later["position_key"]).to_numpy(), strict=True)
         ]
         good = good[~repeated].reset_index(drop=True)
-    stored, stored_uf = _already_stored(good, fitted)
+    stored, stored_uf, stored_fields = _already_stored(good, fitted)
+    # The same reading stored already, but the file gives another condition, note or measurement: edited since.
+    changed = _edited_fields(good, stored_fields, stored)
+    if changed:
+        errors += changed
+        edited_rows = good["row"].isin([row for row, _, _ in changed]).to_numpy()
+        good = good[~edited_rows].reset_index(drop=True)
+        stored, stored_uf = stored[~edited_rows], stored_uf[~edited_rows]
     # Another value at the time and method of a stored reading of the capacitor: a row edited and imported again
     # (the stored value would stay in the trend beside it). A correction is made from the capacitor's page.
     edited = ~stored & ~np.isnan(stored_uf)
@@ -485,15 +492,17 @@ def _neighbours_in_file(placed: list[_PlacedReadings]) -> tuple[np.ndarray, np.n
     )
 
 
-def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
     """Per good row: the database holds the same reading (motor position, time, method, value), whether it
     came by an earlier import (its key) or by the form, the API or the demo (the same content;
     times compared to the second, as a spreadsheet cell keeps them), and on whichever capacitor of that
     position (`fitted`'s `position_id`) it is stored: a readings export imported again adds nothing, even
     a new capacitor's reading taken on the day it replaced the old one. Also, per good row, the value stored
-    on its capacitor at its second and method (NaN where none is): another value there is a row edited since."""
+    on its capacitor at its second and method (NaN where none is): another value there is a row edited since.
+    Last, per good row, the stored reading's other fields (`COMPARED_FIELDS`; NaN where it is not stored):
+    a row stored already whose condition, notes or another measurement differs was edited since too."""
     if not len(good):
-        return np.zeros(0, bool), np.zeros(0)
+        return np.zeros(0, bool), np.zeros(0), pd.DataFrame(columns=COMPARED_FIELDS)
     keyed = _among(
         good["import_key"].to_numpy(object),
         list(
@@ -511,11 +520,13 @@ def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[np.ndarra
             taken_at__lt=times.max().floor("s") + pd.Timedelta(seconds=1),
         )
         .order_by()
-        .values_list("fitted_capacitor_id", "taken_at", "method", "capacitance_uf")
+        .values_list("fitted_capacitor_id", "taken_at", "method", "capacitance_uf", *COMPARED_FIELDS)
     )
-    stored = pd.DataFrame.from_records(list(same_span), columns=["fitted_capacitor_id", "taken_at", "method", "uf"])
+    stored = pd.DataFrame.from_records(
+        list(same_span), columns=["fitted_capacitor_id", "taken_at", "method", "uf", *COMPARED_FIELDS]
+    )
     if not len(stored):
-        return keyed, np.full(len(good), np.nan)
+        return keyed, np.full(len(good), np.nan), pd.DataFrame(index=range(len(good)), columns=COMPARED_FIELDS)
 
     def to_the_second(ids, when, methods, uf):
         return reading_keys(ids, pd.to_datetime(when, utc=True).dt.floor("s"), methods, np.round(uf, 4))
@@ -536,7 +547,52 @@ def _already_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[np.ndarra
     )
     value_at = pd.Series(stored["uf"].to_numpy(float), index=moments)
     value_at = value_at[~value_at.index.duplicated(keep="last")]
-    return keyed | _among(mine, unkeyed), value_at.reindex(mine_moments).to_numpy(float)
+    fields = stored[COMPARED_FIELDS].set_axis(unkeyed)
+    fields = fields[~fields.index.duplicated(keep="last")].reindex(mine).reset_index(drop=True)
+    return keyed | _among(mine, unkeyed), value_at.reindex(mine_moments).to_numpy(float), fields
+
+
+# What else a reading holds besides its capacitor, time, method and value: a row stored already that differs in
+# any of these was edited since, and the import never changes a stored reading (the form's correction does).
+COMPARED_FIELDS = ["condition", "notes", *(name for name in READING_NUMBERS if name != "capacitance_uf")]
+
+
+def _edited_fields(good: pd.DataFrame, stored_fields: pd.DataFrame, stored: np.ndarray) -> list[tuple]:
+    """(row, field, message) for every field of a row stored already that the file gives otherwise."""
+    found = []
+    if not stored.any():
+        return found
+    for name in COMPARED_FIELDS:
+        mine, theirs = good[name], stored_fields[name]
+        if name in ("condition", "notes"):
+            mine = mine.fillna("").astype(str).str.strip().to_numpy(object)
+            theirs = theirs.fillna("").astype(str).str.strip().to_numpy(object)
+            differs = mine != theirs
+        else:
+            mine, theirs = pd.to_numeric(mine, errors="coerce").to_numpy(float), theirs.astype(float).to_numpy(float)
+            with np.errstate(invalid="ignore"):
+                differs = (np.isnan(mine) != np.isnan(theirs)) | (
+                    np.abs(mine - theirs) > 1e-9 * np.maximum(np.abs(theirs), 1.0)
+                )
+        for i in np.flatnonzero(stored & differs):  # the words for the rows edited only
+            found.append(
+                (
+                    int(good["row"].iloc[i]),
+                    name,
+                    f"this reading is stored already with {name} {_shown(theirs[i])}, the file says "
+                    f"{_shown(mine[i])}: an import never changes a stored reading; to put it right, correct that "
+                    "reading from the capacitor's page (both are kept, the trend uses the correction)",
+                )
+            )
+    return found
+
+
+def _shown(value, most: int = 40) -> str:
+    """A stored or given value in a message: a number as %g, an empty one as "nothing", long text cut."""
+    if isinstance(value, float):
+        return f"{value:g}" if np.isfinite(value) else "nothing"
+    text = str(value) or "nothing"
+    return text if len(text) <= most else text[: most - 1] + "…"
 
 
 def _among(texts, known) -> np.ndarray:
