@@ -994,9 +994,15 @@ def test_a_stored_reading_imported_again_with_another_condition_or_measurement_i
     said = report.getvalue()
     assert "1 already imported, 1 with problems" in said
     assert "row 2, condition: this reading is stored already with condition sound, the file says bulged" in said
-    assert "row 2, case_temperature_c: this reading is stored already with case_temperature_c 38, the file says 24" in said
+    assert (
+        "row 2, case_temperature_c: this reading is stored already with case_temperature_c 38, the file says 24" in said
+    )
     assert "row 2, notes: this reading is stored already with notes nothing, the file says leaking smell" in said
     assert list(Reading.objects.order_by("taken_at").values_list("condition", "case_temperature_c", "notes")) == [
         ("sound", 38.0, ""),
         ("sound", 35.0, ""),
     ]
+    fewer_columns = "asset_tag,role,taken_at,capacitance_uf\nFAN-1,run,2024-05-04 10:00,7.8\n"
+    with pytest.raises(CommandError, match="(?i)nothing was imported"):
+        call_command("import", "readings", str(write(tmp_path, "fewer.csv", fewer_columns)), stdout=report)
+    assert "fewer.csv: 1 row: 0 good, 1 already imported, 0 with problems" in report.getvalue()

@@ -319,6 +319,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 "taken_at": taken[good].reset_index(drop=True),
                 "method": result.values["method"][good],
                 "condition": result.values["condition"][good],
+                "condition_given": chunk["condition"].str.strip().ne("").to_numpy()[good],
                 "notes": result.values["notes"][good],
                 "outlier_confirmed": confirmed[good],
                 **{name: result.values[name][good] for name in READING_NUMBERS},
@@ -558,7 +559,8 @@ COMPARED_FIELDS = ["condition", "notes", *(name for name in READING_NUMBERS if n
 
 
 def _edited_fields(good: pd.DataFrame, stored_fields: pd.DataFrame, stored: np.ndarray) -> list[tuple]:
-    """(row, field, message) for every field of a row stored already that the file gives otherwise."""
+    """(row, field, message) for every field of a row stored already that the file gives otherwise (a field
+    the file leaves empty, or has no column for, says nothing: a file of fewer columns is the same reading)."""
     found = []
     if not stored.any():
         return found
@@ -567,13 +569,12 @@ def _edited_fields(good: pd.DataFrame, stored_fields: pd.DataFrame, stored: np.n
         if name in ("condition", "notes"):
             mine = mine.fillna("").astype(str).str.strip().to_numpy(object)
             theirs = theirs.fillna("").astype(str).str.strip().to_numpy(object)
-            differs = mine != theirs
+            given = good["condition_given"].to_numpy(bool) if name == "condition" else mine != ""
+            differs = given & (mine != theirs)
         else:
             mine, theirs = pd.to_numeric(mine, errors="coerce").to_numpy(float), theirs.astype(float).to_numpy(float)
             with np.errstate(invalid="ignore"):
-                differs = (np.isnan(mine) != np.isnan(theirs)) | (
-                    np.abs(mine - theirs) > 1e-9 * np.maximum(np.abs(theirs), 1.0)
-                )
+                differs = ~np.isnan(mine) & ~(np.abs(mine - theirs) <= 1e-9 * np.maximum(np.abs(theirs), 1.0))
         for i in np.flatnonzero(stored & differs):  # the words for the rows edited only
             found.append(
                 (
