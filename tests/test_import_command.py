@@ -1006,3 +1006,75 @@ def test_a_stored_reading_imported_again_with_another_condition_or_measurement_i
     with pytest.raises(CommandError, match="(?i)nothing was imported"):
         call_command("import", "readings", str(write(tmp_path, "fewer.csv", fewer_columns)), stdout=report)
     assert "fewer.csv: 1 row: 0 good, 1 already imported, 0 with problems" in report.getvalue()
+
+
+@pytest.mark.parametrize(
+    "kind,edited,field,words",
+    [
+        (
+            "sites",
+            SITES.replace("Europe/Madrid", "Australia/Perth", 1),
+            "time_zone",
+            "this site is stored already with time_zone Europe/Madrid, the file says Australia/Perth",
+        ),
+        (
+            "parts",
+            PARTS.replace("RUN-8,8,5,5,450", "RUN-8,8.2,5,5,450"),
+            "rated_uf",
+            "this part is stored already with rated_uf 8, the file says 8.2",
+        ),
+        (
+            "register",
+            REGISTER.replace(
+                "FAN-1,PK,fan,permanent_split,fan_law,230,50,4,250", "FAN-1,CS,fan,permanent_split,fan_law,230,50,4,370"
+            ),
+            "site_code",
+            "this motor is stored already with site_code PK, the file says CS",
+        ),
+        (
+            "history",
+            HISTORY.replace("2021-02-11,2023-03-01,planned", "2021-02-11,2023-03-01,failed"),
+            "removal_reason",
+            "this capacitor is stored already with removal_reason planned, the file says failed",
+        ),
+    ],
+)
+def test_a_stored_row_imported_again_with_another_value_is_refused_at_that_field(tmp_path, kind, edited, field, words):
+    """A site's time zone put right in the file (every reading without an offset is read in it), a part's rating,
+    a removal's reason (life data counts a failure or a suspension by it): the row was counted "already imported"
+    and the change lost without a word. Refused at the field with both values; nothing stored changes."""
+    for each, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER), ("history", HISTORY)):
+        run(each, write(tmp_path, f"{each}.csv", text))
+    before = {
+        "sites": list(Site.objects.order_by("code").values_list("code", "name", "time_zone")),
+        "parts": list(CapacitorPart.objects.order_by("code").values_list("code", "rated_uf")),
+        "history": list(FittedCapacitor.objects.order_by("id").values_list("id", "removal_reason", "removed_on")),
+        "register": list(Motor.objects.order_by("asset_tag").values_list("asset_tag", "site__code", "output_w")),
+    }[kind]
+    report = io.StringIO()
+    with pytest.raises(CommandError, match="(?i)nothing was imported"):
+        call_command("import", kind, str(write(tmp_path, f"edited_{kind}.csv", edited)), stdout=report)
+    assert f"{field}: {words}" in report.getvalue()
+    assert "1 with problems" in report.getvalue()
+    after = {
+        "sites": list(Site.objects.order_by("code").values_list("code", "name", "time_zone")),
+        "parts": list(CapacitorPart.objects.order_by("code").values_list("code", "rated_uf")),
+        "history": list(FittedCapacitor.objects.order_by("id").values_list("id", "removal_reason", "removed_on")),
+        "register": list(Motor.objects.order_by("asset_tag").values_list("asset_tag", "site__code", "output_w")),
+    }[kind]
+    assert after == before
+    again = io.StringIO()
+    with pytest.raises(CommandError, match="(?i)nothing was imported"):
+        call_command(
+            "import",
+            kind,
+            str(
+                write(
+                    tmp_path,
+                    f"same_{kind}.csv",
+                    {"sites": SITES, "parts": PARTS, "history": HISTORY, "register": REGISTER}[kind],
+                )
+            ),
+            stdout=again,
+        )
+    assert "0 with problems" in again.getvalue()

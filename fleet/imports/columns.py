@@ -343,7 +343,7 @@ SITE_COLUMNS = {
 SITE_REQUIRED = ("code", "name", "time_zone")
 PART_COLUMNS = {
     "code": "Part code, unique, up to 40 characters (required)",
-    "rated_uf": "Rated capacitance in µF (required): about 20 to 1,500 for an electrolytic, 1 to 100 for film",
+    "rated_uf": "Rated capacitance in µF (required): about 20 to 1,500 for an electrolytic, 0.4 to 150 for film",
     "tolerance_minus_pct": "Tolerance below rated, in %, e.g. 5 (required)",
     "tolerance_plus_pct": "Tolerance above rated, in %, e.g. 5 (required)",
     "rated_voltage_v": "Rated voltage in V AC (required)",

@@ -649,6 +649,35 @@ def code_problems(problems: _Problems, codes: pd.Series, field_name: str) -> Non
     problems.add(codes.ne("") & ~codes.str.fullmatch(CODE_PATTERN), field_name, f"use {CODE_CHARACTERS}")
 
 
+def refuse_changed(problems: _Problems, already: np.ndarray, given: pd.DataFrame, stored: pd.DataFrame, what: str):
+    """A row stored already that gives a field otherwise than it is stored is refused at that field, with both
+    values: an import never changes what is stored (the admin does), and counting the row "already imported"
+    lost the change without a word. A field the file leaves empty says nothing. `given` and `stored` hold, row
+    for row of the file, each compared field as the import would store it; only the rows `already` are read."""
+    for name in given.columns:
+        messages = np.full(len(given), "", dtype=object)
+        for i in np.flatnonzero(already):
+            mine, theirs = _comparable(given[name].iloc[i]), _comparable(stored[name].iloc[i])
+            if mine is not None and mine != theirs:
+                messages[i] = (
+                    f"this {what} is stored already with {name} {_shown(theirs)}, the file says {_shown(mine)}: an "
+                    f"import never changes a stored {what}; change it in the admin, or make the file agree"
+                )
+        problems.add(messages != "", name, messages)
+
+
+def _comparable(value):
+    """A value as stored, for comparing a file's with the register's: None for nothing (empty, NaN, NaT)."""
+    if value is None or (isinstance(value, float) and not np.isfinite(value)) or value is pd.NaT:
+        return None
+    if isinstance(value, (int, float, np.integer, np.floating, Decimal)) and not isinstance(value, bool):
+        return round(float(value), 9)
+    if isinstance(value, (dt.date, pd.Timestamp)):
+        return pd.Timestamp(value).date().isoformat()
+    text = str(value).strip()
+    return text or None
+
+
 def codes_in_any_case(problems: _Problems, codes: pd.Series, stored, what: str) -> np.ndarray:
     """Codes unique in any case (the database's `*_unique_any_case`): a repeat in the file in any case, or a
     code the register holds in another case, is refused at `code`; one it holds exactly is already there
@@ -766,6 +795,8 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         repeated, "asset_tag", np.array([f"the same tag as row {first_row.get(t)}" for t in tags], dtype=object)
     )
     already = tags.isin(existing).to_numpy() & ~problems.bad
+    _refuse_changed_motors(problems, already, frame, tags, numbers)
+    already &= ~problems.bad
     good_mask = ~problems.bad & ~already
     good = frame[good_mask].copy()
     for name in REGISTER_NUMBERS:
@@ -776,6 +807,37 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     return CheckResult(
         good=good.reset_index(drop=True), errors=sorted(problems.items), duplicates=int(already.sum()), total=len(frame)
     )
+
+
+# A register row's motor fields, compared with the motor stored under its tag (its capacitors are not: a part
+# replaced since differs from the file's by right).
+MOTOR_COMPARED = ["site_code", "location", "application", "motor_type", "load_type", *MOTOR_NUMBERS, "commissioned_on"]
+
+
+def _refuse_changed_motors(problems: _Problems, already: np.ndarray, frame: pd.DataFrame, tags: pd.Series, numbers):
+    """A motor stored already that the file describes otherwise (`refuse_changed`)."""
+    if not already.any():
+        return
+    fields = [name for name in MOTOR_COMPARED if name != "site_code"]
+    stored = pd.DataFrame.from_records(
+        list(
+            Motor.objects.filter(asset_tag__any_of=np.array(sorted(set(tags[already])), dtype=object)).values_list(
+                "asset_tag", "site__code", *fields
+            )
+        ),
+        columns=["asset_tag", "site_code", *fields],
+    )
+    held = stored.set_index(stored["asset_tag"].str.upper()).reindex(tags.to_numpy())[MOTOR_COMPARED]
+    given = frame.reindex(columns=MOTOR_COMPARED).assign(
+        **{name: numbers[name] for name in MOTOR_NUMBERS if name in numbers},
+        site_code=frame["site_code"].str.upper(),
+        application=frame["application"].str.lower(),
+        motor_type=frame["motor_type"].str.lower(),
+        load_type=frame["load_type"].str.lower(),
+        commissioned_on=parse_dates(frame["commissioned_on"]) if "commissioned_on" in frame else None,
+    )
+    held = held.assign(site_code=held["site_code"].str.upper())
+    refuse_changed(problems, already, given.reset_index(drop=True), held.reset_index(drop=True), "motor")
 
 
 def insert_register(good: pd.DataFrame) -> list[int]:
@@ -827,7 +889,14 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         "time_zone",
         "not a time zone name: use one like Europe/Madrid, America/Chicago or UTC",
     )
-    already = codes_in_any_case(problems, frame["code"], Site.objects.values_list("code", flat=True), "site code")
+    sites = pd.DataFrame.from_records(
+        list(Site.objects.values_list("code", "name", "time_zone")), columns=["code", "name", "time_zone"]
+    )
+    already = codes_in_any_case(problems, frame["code"], sites["code"], "site code")
+    held = sites.set_index(sites["code"].str.upper()).reindex(frame["code"].str.upper().to_numpy())
+    refuse_changed(
+        problems, already, frame[["name", "time_zone"]].reset_index(drop=True), held.reset_index(drop=True), "site"
+    )
     return _result(frame, problems, already, on_progress)
 
 
@@ -918,12 +987,21 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     ):
         given = frame[name].str.lower() if name == "dielectric" else frame[name].str.upper()
         problems.add(given.ne("") & ~given.isin(choices), name, "must be one of " + ", ".join(choices))
-    already = codes_in_any_case(
-        problems, frame["code"], CapacitorPart.objects.values_list("code", flat=True), "part code"
+    compared = [*PART_NUMBERS, "dielectric", "class_of_operation", "safety_class"]
+    parts = pd.DataFrame.from_records(
+        list(CapacitorPart.objects.values_list("code", *compared)), columns=["code", *compared]
     )
+    already = codes_in_any_case(problems, frame["code"], parts["code"], "part code")
     good = frame.copy()
     for name in PART_NUMBERS:
         good[name] = numbers[name]
+    given = good[compared].assign(
+        dielectric=frame["dielectric"].str.lower(),
+        class_of_operation=frame["class_of_operation"].str.upper(),
+        safety_class=frame["safety_class"].str.upper(),
+    )
+    held = parts.set_index(parts["code"].str.upper()).reindex(frame["code"].str.upper().to_numpy())
+    refuse_changed(problems, already, given.reset_index(drop=True), held[compared].reset_index(drop=True), "part")
     return _result(good, problems, already, on_progress)
 
 
@@ -1037,17 +1115,26 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     register = pd.DataFrame.from_records(
         list(
             FittedCapacitor.objects.filter(motor_id__any_of=motors["motor_id"].to_numpy(np.int64)).values_list(
-                "motor_id", "role", "fitted_on", "removed_on"
+                "motor_id", "role", "fitted_on", "removed_on", "part__code", "removal_reason"
             )
         ),
-        columns=["motor_id", "role", "start", "end"],
+        columns=["motor_id", "role", "start", "end", "part_code", "removal_reason"],
     )
+    held = register.assign(removed_on=register["end"])
     register = register.astype({"motor_id": float})
     register["start"] = pd.to_datetime(register["start"]).astype("datetime64[ns]")
     register["end"] = pd.to_datetime(register["end"]).astype("datetime64[ns]").fillna(OPEN_END)
     register["row"] = 0  # not a row of the file
     keys_in_register = register[["motor_id", "role", "start"]].drop_duplicates().assign(found=True)
     already = rows.merge(keys_in_register, on=["motor_id", "role", "start"], how="left")["found"].notna().to_numpy()
+    compared = ["part_code", "removed_on", "removal_reason"]
+    held = (
+        held.astype({"motor_id": float}).assign(start=register["start"]).drop_duplicates(["motor_id", "role", "start"])
+    )
+    held = rows[["motor_id", "role", "start"]].merge(held, on=["motor_id", "role", "start"], how="left")
+    given = pd.DataFrame({"part_code": frame["part_code"], "removed_on": removed, "removal_reason": reason})
+    refuse_changed(problems, already, given.reset_index(drop=True), held[compared], "capacitor")
+    register = register[["motor_id", "role", "start", "end", "row"]]
     _refuse_overlaps(problems, rows[~problems.bad & ~already], register)
     good = frame.assign(
         motor_id=rows["motor_id"],
