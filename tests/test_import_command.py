@@ -1078,3 +1078,23 @@ def test_a_stored_row_imported_again_with_another_value_is_refused_at_that_field
             stdout=again,
         )
     assert "0 with problems" in again.getvalue()
+
+
+def test_an_in_circuit_row_with_another_capacitance_typed_is_refused_not_dropped(tmp_path):
+    """In circuit the capacitance is worked out from the capacitor's current and voltage (C = I / (2 pi f V),
+    common practice of the trade, no single source): a meter value in the same row was dropped without a word
+    (the reading form refuses it). Refused at capacitance_uf; the computed value itself, as the readings export
+    writes it, is kept, and a row without one imports."""
+    for kind, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER)):
+        run(kind, write(tmp_path, f"{kind}.csv", text))
+    text = "asset_tag,role,taken_at,method,capacitance_uf,capacitor_current_a,capacitor_voltage_v\n"
+    text += "FAN-1,run,2024-05-04 10:00,in_circuit,9.5,0.52,230\n"
+    text += "FAN-1,run,2024-08-04 10:00,in_circuit,7.197,0.52,230\n"
+    text += "FAN-1,run,2024-11-04 10:00,in_circuit,,0.52,230\n"
+    report = io.StringIO()
+    call_command("import", "readings", str(write(tmp_path, "in_circuit.csv", text)), "--good-rows-only", stdout=report)
+    assert (
+        "row 2, capacitance_uf: in circuit the capacitance is worked out from the current and the voltage, so 9.5 µF"
+        " from a meter would not be saved"
+    ) in report.getvalue()
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [7.197, 7.197]

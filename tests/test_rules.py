@@ -506,16 +506,18 @@ def test_a_tenfold_slip_off_the_trend_is_refused_by_the_import_unless_its_row_co
             import_row(fitted, taken_at="2025-03-02 09:00", capacitance_uf="1.19", confirmed="Yes"),
             import_row(fitted, taken_at="2025-03-03 09:00", capacitance_uf="11.9", confirmed="maybe"),
             import_row(fitted, taken_at="2025-03-04 09:00", capacitance_uf="11.9", confirmed="0"),
+            # confirmed where nothing was asked: stored as not confirmed, as the form and the API store it
+            import_row(fitted, taken_at="2025-03-05 09:00", capacitance_uf="11.91", confirmed="yes"),
         ]
     )
     assert [(row, field) for row, field, _ in result.errors] == [(2, "capacitance_uf"), (4, "confirmed")]
     refused = result.errors[0][2]
     assert refused.startswith(form_words[:1].lower() + form_words[1:]) and "confirmed column says yes" in refused
     assert result.errors[1][2] == "maybe is not yes or no (true or false, 1 or 0; empty is no)"
-    assert result.good["row"].tolist() == [3, 5]
+    assert result.good["row"].tolist() == [3, 5, 6]
     insert_readings(result.good)
     kept = dict(Reading.objects.filter(source=Reading.Source.IMPORT).values_list("capacitance_uf", "outlier_confirmed"))
-    assert kept == {1.19: True, 11.9: False}
+    assert kept == {1.19: True, 11.9: False, 11.91: False}
 
 
 def test_an_imported_reading_older_than_the_trends_newest_is_not_held_to_todays_value():

@@ -208,11 +208,14 @@ VOLTAGE_CONFIRM_WORDS = (
 
 
 def plain_number(value) -> str:
-    """A number as the site writes a typed value back: up to six significant digits, never an exponent
-    (0.00003, not 3e-05; 29958.6, not 29958.577523180298). The live hint's `plain` does the same."""
+    """A number as the site writes a typed value back: up to six significant digits, no exponent (0.00003, not
+    3e-05; 29958.6, not 29958.577523180298) below 1e21, where the browser's own numbers take one (1e+300, not its
+    301 digits). The live hint's `plain` does the same."""
     value = float(value)
     if not np.isfinite(value):
         return str(value)
+    if abs(value) >= 1e21:
+        return f"{value:.6g}"
     return np.format_float_positional(value, precision=6, unique=False, fractional=False, trim="-")
 
 
@@ -531,7 +534,7 @@ def rating_problems(rated_uf, dielectric=None) -> tuple[np.ndarray, str, np.ndar
     for name, (lowest, highest, words) in PART_RATED_UF_BY_DIELECTRIC.items():
         rows = kind == name
         low[rows], high[rows], made[rows] = lowest, highest, words
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore", over="ignore"):
         outside = ~((rated >= low) & (rated <= high))
         likely = np.full(rated.shape, np.nan)
         slip = np.full(rated.shape, "", dtype=object)
@@ -821,6 +824,13 @@ def _is_text_column(series: pd.Series) -> bool:
     return isinstance(series.dtype, pd.StringDtype)
 
 
+def _given_text(value) -> str:
+    """A value as given, for a message: "" for nothing (None, NaN, blank), else its text, cut to 20 characters."""
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return ""
+    return (plain_number(value) if isinstance(value, (int, float)) else str(value)).strip()[:20]
+
+
 def _texts(raw, n: int | None, other: str) -> pd.Series:
     """Text values; `other` in place of anything that is not text."""
     series = _as_objects(raw, n)
@@ -1094,9 +1104,24 @@ def _check_readings(
             ),
         )
 
-    # In circuit, the capacitance is computed; what the meter field holds is ignored.
     errors.clear("capacitance_uf", in_circuit)
     computed = np.round(np.atleast_1d(capacitance_from_current(current, voltage, frequency)), 3)
+    # In circuit, the capacitance is computed: another value given too (a file's column, an API body) would not be
+    # saved, so it is refused, never dropped unsaid; the computed value itself (an export imported again) is kept.
+    typed = _as_objects(raw.get("capacitance_uf"), n).map(_given_text).to_numpy(object)
+    with np.errstate(invalid="ignore"):
+        agrees = np.isclose(values["capacitance_uf"], computed, rtol=1e-3, atol=1e-3)
+    meter_value_too = in_circuit & (typed != "") & ~agrees
+    errors.add(
+        "capacitance_uf",
+        meter_value_too,
+        _messages(
+            meter_value_too,
+            "in circuit the capacitance is worked out from the current and the voltage, so {c} µF from a meter "
+            "would not be saved: leave the capacitance empty, or make the method meter to save it instead",
+            c=typed,
+        ),
+    )
     capacitance = np.where(in_circuit, computed, values["capacitance_uf"])
     meter_missing = ~in_circuit & np.isnan(capacitance) & ~errors.has("capacitance_uf")
     errors.add("capacitance_uf", meter_missing, "enter the capacitance in µF")

@@ -321,7 +321,8 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 "condition": result.values["condition"][good],
                 "condition_given": chunk["condition"].str.strip().ne("").to_numpy()[good],
                 "notes": result.values["notes"][good],
-                "outlier_confirmed": confirmed[good],
+                # Confirmed where the rulebook asked (as the form and the API store it), not wherever it says yes.
+                "outlier_confirmed": (confirmed & result.asked)[good],
                 **{name: result.values[name][good] for name in READING_NUMBERS},
                 "capacitance_uf": np.round(result.values["capacitance_uf"][good], 4),
             }
