@@ -1098,3 +1098,19 @@ def test_an_in_circuit_row_with_another_capacitance_typed_is_refused_not_dropped
         " from a meter would not be saved"
     ) in report.getvalue()
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [7.197, 7.197]
+
+
+def test_an_imported_value_is_stored_as_read_not_rounded_to_an_open_capacitor(tmp_path):
+    """The import rounded every capacitance to 0.0001 µF, so 0.00003 µF (asked as farads, confirmed as the meter
+    showed it) was stored as 0, an open capacitor to replace now, and 7.123456 as 7.1235; the form stores what
+    was read. Stored as read; imported again, nothing is added."""
+    for kind, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER)):
+        run(kind, write(tmp_path, f"{kind}.csv", text))
+    text = "asset_tag,role,taken_at,capacitance_uf,confirmed\n"
+    text += "FAN-1,run,2024-05-04 10:00,0.00003,yes\nFAN-1,run,2024-08-04 10:00,7.823456,\n"
+    path = write(tmp_path, "precise.csv", text)
+    run("readings", path)
+    assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [0.00003, 7.823456]
+    with pytest.raises(CommandError, match="(?i)nothing was imported"):
+        run("readings", path)
+    assert Reading.objects.count() == 2

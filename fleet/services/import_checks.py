@@ -324,7 +324,9 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 # Confirmed where the rulebook asked (as the form and the API store it), not wherever it says yes.
                 "outlier_confirmed": (confirmed & result.asked)[good],
                 **{name: result.values[name][good] for name in READING_NUMBERS},
-                "capacitance_uf": np.round(result.values["capacitance_uf"][good], 4),
+                # As read, as the form stores it (the keys round to 0.0001 µF themselves): rounded here, a
+                # confirmed 0.00003 µF became 0, an open capacitor.
+                "capacitance_uf": result.values["capacitance_uf"][good],
             }
         )
         rows["import_key"] = reading_keys(
