@@ -282,3 +282,17 @@ def test_a_file_in_another_encoding_is_refused_naming_its_line():
         read_table(latin, "r.csv")
     with pytest.raises(FileRefused, match=r"UTF-16 text"):
         read_table("asset_tag,role\nFAN-1,run\n".encode("utf-16"), "r.csv")
+
+
+def test_a_workbook_named_csv_is_named_as_a_workbook():
+    """An XLSX saved under a .csv name was refused as "not UTF-8 text: line 1, after 'PK\\x03\\x04...'", which
+    sends the user hunting for a wrong letter; it says what the file is and what to name it."""
+    import openpyxl
+
+    book = openpyxl.Workbook()
+    book.active.append(["code", "name", "time_zone"])
+    book.active.append(["PK", "Packhouse", "UTC"])
+    packed = io.BytesIO()
+    book.save(packed)
+    with pytest.raises(FileRefused, match=r"a workbook or another zip file, not CSV text: an XLSX workbook must be"):
+        read_table(packed.getvalue(), "sites.csv")

@@ -126,6 +126,8 @@ def _not_utf8(content: bytes, start: int) -> str:
     character there (a UTF-16 file, as some spreadsheets save "Unicode text", is named as such)."""
     if content[:2] in (b"\xff\xfe", b"\xfe\xff"):
         return 'The file is UTF-16 text ("Unicode text"). Save it as CSV UTF-8.'
+    if content[:4] == b"PK\x03\x04":  # a zip: an XLSX workbook named .csv (or another packed file)
+        return "The file is a workbook or another zip file, not CSV text: an XLSX workbook must be named .xlsx."
     line = content.count(b"\n", 0, start) + 1
     row_start = content.rfind(b"\n", 0, start) + 1
     before = content[row_start:start].decode("utf-8", "replace")[-20:]
