@@ -543,10 +543,13 @@ CMP-1,start,RUN-8,2019-01-01,2020-01-01,failed
 def test_columns_no_field_takes_are_named_so_a_misspelt_heading_is_not_lost_unseen(tmp_path):
     for kind in ("sites", "parts"):
         run(kind, write(tmp_path, f"{kind}.csv", {"sites": SITES, "parts": PARTS}[kind]))
-    text = REGISTER.replace("fitted_on\n", "fitted_on,comissioned_on,remarks\n", 1)
-    text = text.replace("2023-03-01\n", "2023-03-01,2016-04-01,noisy\n").replace("2024-01-10\n", "2024-01-10,,\n")
+    text = REGISTER.replace("fitted_on\n", "fitted_on,remarks,bay\n", 1)
+    text = text.replace("2023-03-01\n", "2023-03-01,noisy,4\n").replace("2024-01-10\n", "2024-01-10,,\n")
     out = run("register", write(tmp_path, "register.csv", text), "--dry-run")
-    assert "Columns left out (no field of a register file has these headings): comissioned_on, remarks" in out
+    assert "Columns left out (no field of a register file has these headings): remarks, bay" in out
+    misspelt = text.replace(",remarks,", ",comissioned_on,", 1)  # a field's name all but a letter: refused
+    with pytest.raises(CommandError, match=r"comissioned_on \(commissioned_on\?\)"):
+        run("register", write(tmp_path, "misspelt.csv", misspelt), "--dry-run")
     assert "left out" not in run("register", write(tmp_path, "plain.csv", REGISTER), "--dry-run")
 
 
@@ -1114,3 +1117,19 @@ def test_an_imported_value_is_stored_as_read_not_rounded_to_an_open_capacitor(tm
     with pytest.raises(CommandError, match="(?i)nothing was imported"):
         run("readings", path)
     assert Reading.objects.count() == 2
+
+
+def test_a_heading_misspelt_by_a_letter_refuses_the_file_naming_the_field(tmp_path):
+    """case_temprature_c for case_temperature_c: the column was named among those left out and the readings came
+    in without their case temperatures (the temperature correction then used none). A heading a letter or two
+    from a field no other heading takes refuses the file, naming both; other unknown headings are still only
+    named."""
+    for kind, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER)):
+        run(kind, write(tmp_path, f"{kind}.csv", text))
+    text = "asset_tag,role,taken_at,capacitance_uf,case_temprature_c\nFAN-1,run,2024-05-04 10:00,7.8,38\n"
+    with pytest.raises(CommandError, match=r"has the heading case_temprature_c \(case_temperature_c\?\)"):
+        run("readings", write(tmp_path, "misspelt.csv", text))
+    assert not Reading.objects.exists()
+    other = "asset_tag,role,taken_at,capacitance_uf,inspector\nFAN-1,run,2024-05-04 10:00,7.8,Ana\n"
+    assert "Columns left out" in run("readings", write(tmp_path, "other.csv", other))
+    assert Reading.objects.count() == 1

@@ -5,6 +5,7 @@ fleet/services/import_checks.py."""
 from __future__ import annotations
 
 import datetime as dt
+import difflib
 import hashlib
 import operator
 from dataclasses import dataclass, field
@@ -109,6 +110,21 @@ def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
 
     by_norm = {norm(c): c for c in columns}
     return {name: by_norm[norm(name)] for name in ours if norm(name) in by_norm}
+
+
+def near_misses(columns: list[str], mapping: dict[str, str], ours: dict[str, str]) -> dict[str, str]:
+    """The file's headings no field took that spell a field no heading took, all but a letter or two
+    (`difflib`'s ratio at least 0.85): heading -> that field. Left out, the column's values would be lost."""
+    taken = set(mapping.values())
+    free = [name for name in ours if name not in mapping]
+    found = {}
+    for column in columns:
+        if column in taken:
+            continue
+        close = difflib.get_close_matches(column.strip().lower().replace(" ", "_"), free, n=1, cutoff=0.85)
+        if close:
+            found[column] = close[0]
+    return found
 
 
 def missing_required_words(missing: list[str], header: list[str], remedy: str) -> str:

@@ -210,7 +210,17 @@ def check_file(
     """
     spec = KINDS[kind]
     header, rows = files.read_table(content, filename)
-    mapping = mapping or columns.suggest_mapping(header, spec.columns)
+    if not mapping:  # matched by name (not by hand on the import page): a misspelt heading refuses the file
+        mapping = columns.suggest_mapping(header, spec.columns)
+        misspelt = columns.near_misses(header, mapping, spec.columns)
+        if misspelt:
+            raise files.FileRefused(
+                "No field of a "
+                + kind.replace("_", " ")
+                + " file has the heading "
+                + "; nor ".join(f"{column} ({field}?)" for column, field in misspelt.items())
+                + ": its values would be left out. Correct the heading, or take the column out of the file."
+            )
     missing = [name for name in spec.required if mapping.get(name) not in header]
     if missing:
         raise files.FileRefused(
@@ -412,16 +422,14 @@ def _mark_failed(job_id: int, error: Exception) -> None:
 
 
 def _read(job: ImportJob) -> None:
-    """Read the file within the limits; keep its headings and propose a mapping by name."""
+    """Read the file within the limits; keep its headings and propose a mapping by name (a heading a letter or two
+    from a field's name proposed for that field: the page shows the mapping before anything is checked)."""
     _update(job.pk, state=ImportJob.State.RECEIVED, message="")
     header, rows = files.read_table(bytes(job.content), job.filename)
-    _update(
-        job.pk,
-        state=ImportJob.State.UPLOADED,
-        columns=header,
-        mapping=columns.suggest_mapping(header, KINDS[job.kind].columns),
-        total_rows=len(rows),
-    )
+    ours = KINDS[job.kind].columns
+    mapping = columns.suggest_mapping(header, ours)
+    mapping.update({field: column for column, field in columns.near_misses(header, mapping, ours).items()})
+    _update(job.pk, state=ImportJob.State.UPLOADED, columns=header, mapping=mapping, total_rows=len(rows))
 
 
 def _check(job: ImportJob) -> None:
