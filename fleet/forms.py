@@ -34,7 +34,9 @@ class ReadingForm(forms.Form):
         label="Taken at",
         required=False,
         max_length=40,
-        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 60}),
+        # The browser shows the box in its own order of day and month (12/04/2026 is 12 April to many): the day
+        # and time it holds are said beside it in words (page.js, the element named by data-day-words).
+        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 60, "data-day-words": "taken-day-words"}),
     )
     method = forms.ChoiceField(
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"

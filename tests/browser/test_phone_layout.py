@@ -153,13 +153,14 @@ def test_a_reading_far_from_its_trend_is_confirmed_with_a_button_in_the_summary(
     phone.wait_for_selector("text=far from this capacitor's trend", timeout=15000)
     assert not _small_targets(phone, "#error-summary button")
     phone.shot("phone-confirm-in-summary")
-    # Below the form the two saves stood 10 px apart, stacked: one saves the value unconfirmed, the other
-    # confirms it. Each a 44 px target, twice the 8 px between touch targets apart ([trade], as the test of
-    # every page holds for any two buttons).
+    # Below the form the two saves stood 16 px apart, stacked: one saves the value unconfirmed, the other
+    # keeps the value the form questioned, and a gloved tap meant for Save could land on it (a walk on a
+    # phone). The confirm stands apart under its own words, at least a finger's width (44 px) below Save.
     save, confirm = phone.locator("#save").bounding_box(), phone.locator("#confirm").bounding_box()
     assert min(save["width"], save["height"], confirm["width"], confirm["height"]) >= GLOVE_PX, (save, confirm)
-    apart = max(confirm["y"] - (save["y"] + save["height"]), confirm["x"] - (save["x"] + save["width"]))
-    assert apart >= 16, (save, confirm)
+    apart = confirm["y"] - (save["y"] + save["height"])
+    assert apart >= GLOVE_PX, (save, confirm)
+    assert "measured again" in phone.locator(".confirm-apart").inner_text()
     phone.click("#error-summary button")
     phone.wait_for_url("**/motors/**")
     assert Reading.objects.filter(capacitance_uf=3.3, outlier_confirmed=True).count() == 1
@@ -356,3 +357,13 @@ def test_the_admin_motor_page_with_its_capacitors_fits_a_desktop_screen(phone):
         assert phone.evaluate("document.documentElement.scrollWidth") <= width
         assert phone.input_value("#id_capacitors-0-serial") == "2002-55408"
         phone.screenshot(path=str(ARTIFACTS / f"admin-motor-{width}.png"))
+
+
+def test_the_reading_time_is_said_in_words_beside_its_box(phone):
+    """The time box shows the browser's order of day and month (12/04/2026, 01:12 PM is 12 April to many at
+    an Irish site, a walk found): the day and time it holds are said beside it, as the pages write days."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_taken_at", "2026-03-14T09:30")
+    assert phone.locator("#taken-day-words").inner_text() == "Saturday 2026-03-14 09:30"

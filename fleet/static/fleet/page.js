@@ -89,14 +89,15 @@
     });
   }
   // A date box shows its day in the browser's own order of day, month and year: the day it holds is said
-  // beside it in words, as the pages write days (weekday, year-month-day). A button with data-fills puts
-  // its value, a day, into the box it names; the one matching the box is shown pressed.
-  document.querySelectorAll("input[type=date][data-day-words]").forEach((box) => {
+  // beside it in words, as the pages write days (weekday, year-month-day; a date and time box adds its time).
+  // A button with data-fills puts its value, a day, into the box it names; the one matching the box is shown pressed.
+  document.querySelectorAll("input[data-day-words]").forEach((box) => {
     const words = document.getElementById(box.dataset.dayWords);
     const choices = document.querySelectorAll(`button[data-fills="${box.id}"]`);
     const say = () => {
-      const day = new Date(`${box.value}T00:00:00Z`);
-      words.textContent = isNaN(day) ? "" : `${day.toLocaleDateString("en-GB", { weekday: "long", timeZone: "UTC" })} ${box.value}`;
+      const [date, time] = box.value.split("T");
+      const day = new Date(`${date}T00:00:00Z`);
+      words.textContent = isNaN(day) ? "" : `${day.toLocaleDateString("en-GB", { weekday: "long", timeZone: "UTC" })} ${date}${time ? " " + time.slice(0, 5) : ""}`;
       choices.forEach((choice) => choice.setAttribute("aria-pressed", String(choice.value === box.value)));
     };
     choices.forEach((choice) => {
