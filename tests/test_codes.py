@@ -224,7 +224,7 @@ def test_the_motor_page_and_find_answer_for_a_tag_in_any_case(client, technician
 
 
 def test_the_sites_and_parts_imports_refuse_a_code_held_in_another_case():
-    make_site(code="CST")
+    site = make_site(code="CST")
     make_part(code="RUN-30U-450")
     sites = check_sites(
         frame_of(SITE_COLUMNS, [{"code": c, "name": "A site", "time_zone": "UTC"} for c in ("cst", "NEW7", "new7")])
@@ -232,12 +232,14 @@ def test_the_sites_and_parts_imports_refuse_a_code_held_in_another_case():
     assert errors_of(sites) == [(2, "code"), (4, "code")]
     assert "CST is in the register already" in sites.errors[0][2]
     assert sites.good["code"].tolist() == ["NEW7"]
-    again = check_sites(frame_of(SITE_COLUMNS, [{"code": "CST", "name": "A site", "time_zone": "UTC"}]))
+    again = check_sites(frame_of(SITE_COLUMNS, [{"code": "CST", "name": site.name, "time_zone": site.time_zone}]))
     assert again.errors == [] and again.duplicates == 1
     parts = check_parts(frame_of(PART_COLUMNS, [part_row(code="run-30u-450")]))
     assert errors_of(parts) == [(2, "code")] and parts.good.empty
     assert "RUN-30U-450 is in the register already" in parts.errors[0][2]
-    assert check_parts(frame_of(PART_COLUMNS, [part_row(code="RUN-30U-450")])).duplicates == 1
+    # As stored (the factory's 4 µF): already there; another rating is refused at it, never dropped unsaid.
+    assert check_parts(frame_of(PART_COLUMNS, [part_row(code="RUN-30U-450", rated_uf="4")])).duplicates == 1
+    assert errors_of(check_parts(frame_of(PART_COLUMNS, [part_row(code="RUN-30U-450")]))) == [(2, "rated_uf")]
 
 
 def test_the_migration_stops_naming_codes_that_differ_only_in_case():
