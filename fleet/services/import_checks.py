@@ -656,17 +656,31 @@ def refuse_changed(problems: _Problems, already: np.ndarray, given: pd.DataFrame
     """A row stored already that gives a field otherwise than it is stored is refused at that field, with both
     values: an import never changes what is stored (the admin does), and counting the row "already imported"
     lost the change without a word. A field the file leaves empty says nothing. `given` and `stored` hold, row
-    for row of the file, each compared field as the import would store it; only the rows `already` are read."""
+    for row of the file, each compared field as the import would store it. Column by column; words are built
+    for the rows that differ only (a register of 100,000 motors imported again compares in well under a second)."""
+    already = np.asarray(already, bool)
     for name in given.columns:
+        mine, theirs = _comparable_column(given[name]), _comparable_column(stored[name])
+        differs = already & (mine != None) & (mine != theirs)  # noqa: E711 (element-wise, object arrays)
         messages = np.full(len(given), "", dtype=object)
-        for i in np.flatnonzero(already):
-            mine, theirs = _comparable(given[name].iloc[i]), _comparable(stored[name].iloc[i])
-            if mine is not None and mine != theirs:
-                messages[i] = (
-                    f"this {what} is stored already with {name} {_shown(theirs)}, the file says {_shown(mine)}: an "
-                    f"import never changes a stored {what}; change it in the admin, or make the file agree"
-                )
-        problems.add(messages != "", name, messages)
+        for i in np.flatnonzero(differs):
+            messages[i] = (
+                f"this {what} is stored already with {name} {_shown(theirs[i])}, the file says {_shown(mine[i])}: an "
+                f"import never changes a stored {what}; change it in the admin, or make the file agree"
+            )
+        problems.add(differs, name, messages)
+
+
+def _comparable_column(values: pd.Series) -> np.ndarray:
+    """A column as stored, for comparing a file's with the register's (`_comparable` value by value, but
+    whole numeric and date columns at once): None for nothing."""
+    values = pd.Series(values).reset_index(drop=True)
+    if pd.api.types.is_datetime64_any_dtype(values):
+        return values.dt.strftime("%Y-%m-%d").astype(object).where(values.notna(), None).to_numpy(object)
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        numbers = values.astype(float).round(9)
+        return numbers.astype(object).where(np.isfinite(numbers), None).to_numpy(object)
+    return values.map(_comparable).to_numpy(object)
 
 
 def _comparable(value):
