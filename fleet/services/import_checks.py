@@ -593,6 +593,8 @@ def _edited_fields(good: pd.DataFrame, stored_fields: pd.DataFrame, stored: np.n
 
 def _shown(value, most: int = 40) -> str:
     """A stored or given value in a message: a number as %g, an empty one as "nothing", long text cut."""
+    if value is None:
+        return "nothing"
     if isinstance(value, float):
         return f"{value:g}" if np.isfinite(value) else "nothing"
     text = str(value) or "nothing"
@@ -661,7 +663,9 @@ def refuse_changed(problems: _Problems, already: np.ndarray, given: pd.DataFrame
     already = np.asarray(already, bool)
     for name in given.columns:
         mine, theirs = _comparable_column(given[name]), _comparable_column(stored[name])
-        differs = already & (mine != None) & (mine != theirs)  # noqa: E711 (element-wise, object arrays)
+        mine_missing, theirs_missing = pd.isna(mine), pd.isna(theirs)
+        with np.errstate(invalid="ignore"):
+            differs = already & ~mine_missing & (theirs_missing | (mine != theirs))
         messages = np.full(len(given), "", dtype=object)
         for i in np.flatnonzero(differs):
             messages[i] = (
