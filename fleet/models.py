@@ -43,10 +43,10 @@ from fleet.engineering.rules import (
     commissioning_problems,
     first_problem_by_field,
     fitting_problems,
-    known_time_zone,
     motor_problems,
     part_problems,
     service_date_problems,
+    site_time_zone,
 )
 from fleet.engineering.trends import (
     DIELECTRIC_ELECTROLYTIC,
@@ -184,7 +184,10 @@ class Site(models.Model):
         site holds in another case is refused at the field."""
         super().clean()
         errors = same_code_in_any_case(self, "code", "site code")
-        if not known_time_zone(self.time_zone):
+        spelt = site_time_zone(self.time_zone)
+        if spelt:
+            self.time_zone = spelt
+        else:
             errors["time_zone"] = "Not a time zone name: use one like Europe/Madrid, America/Chicago or UTC."
         if errors:
             raise ValidationError(errors)

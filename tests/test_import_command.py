@@ -448,6 +448,30 @@ def test_a_site_time_zone_nobody_knows_is_refused_in_the_register_as_in_the_impo
         site.full_clean()
 
 
+def test_a_site_time_zone_typed_in_another_case_is_stored_as_the_tz_database_spells_it(tmp_path):
+    """`europe/madrid` was refused by the import and the admin (the tz files are looked up by exact name on a
+    case-sensitive disk); no two tz names differ by case alone [IANA tz database, `zoneinfo.available_timezones`;
+    checked here], so it is Europe/Madrid. A site stored already is the same site whatever the case of its zone."""
+    from django.core.exceptions import ValidationError
+
+    text = "code,name,time_zone\nPK,Packhouse,europe/madrid\nCS,Cool store,AMERICA/CHICAGO\nUT,Yard, utc\n"
+    assert "Imported 3 rows." in run("sites", write(tmp_path, "sites.csv", text))
+    stored = dict(Site.objects.values_list("code", "time_zone"))
+    assert stored == {"PK": "Europe/Madrid", "CS": "America/Chicago", "UT": "UTC"}
+    again = "code,name,time_zone\nPK,Packhouse,EUROPE/MADRID\n"
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="Nothing was imported"):
+        call_command("import", "sites", str(write(tmp_path, "again.csv", again)), stdout=out)
+    assert "1 already imported, 0 with problems" in out.getvalue()
+    site = Site(code="MX", name="Mixed", time_zone="asia/kolkata")
+    site.full_clean()
+    assert site.time_zone == "Asia/Kolkata"
+    for name in ("LOCALTIME", "Right/UTC", "mars/olympus"):  # still no place's zone in any case
+        site.time_zone = name
+        with pytest.raises(ValidationError):
+            site.full_clean()
+
+
 def test_service_dates_no_record_has_are_refused_in_the_register_as_in_the_history_import():
     """The history import refused a capacitor fitted in 1900 or in the future; the admin took them."""
     from django.core.exceptions import ValidationError

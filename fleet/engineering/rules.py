@@ -12,6 +12,7 @@ confirmation (a voltage far above the motor's, a value far off the trend).
 
 from __future__ import annotations
 
+import functools
 import re
 import zoneinfo
 from dataclasses import asdict, dataclass, field, fields
@@ -607,6 +608,23 @@ def known_time_zone(name) -> bool:
     except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
         return False
     return True
+
+
+@functools.lru_cache(maxsize=1)
+def _zone_names_by_folded_case() -> dict[str, str]:
+    return {name.casefold(): name for name in zoneinfo.available_timezones() if not NOT_A_SITES_ZONE.match(name)}
+
+
+def site_time_zone(name) -> str | None:
+    """The tz database's own spelling of a site's time zone name typed in any case ("europe/madrid" is
+    Europe/Madrid: no two of its names differ by case alone), or None for a name it does not know
+    (`known_time_zone`'s rule). One rule for the sites import and the site's form."""
+    if not isinstance(name, str):
+        return None
+    name = name.strip()
+    if known_time_zone(name):
+        return name
+    return _zone_names_by_folded_case().get(name.casefold())
 
 
 def capacitance_unit_slip(capacitance_uf, rated_uf, rules: ReadingRules = RULES):

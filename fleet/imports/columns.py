@@ -354,7 +354,10 @@ def reading_keys(fitted_capacitor_ids, taken_at_utc: pd.Series, methods, capacit
 SITE_COLUMNS = {
     "code": "Site code, unique, up to 20 characters (required)",
     "name": "Site name, up to 120 characters (required)",
-    "time_zone": "Time zone name, e.g. Europe/Madrid or UTC; readings without an offset are in this zone (required)",
+    "time_zone": (
+        "Time zone name, e.g. Europe/Madrid or UTC, in any case (stored as the tz database spells it); "
+        "readings without an offset are in this zone (required)"
+    ),
 }
 SITE_REQUIRED = ("code", "name", "time_zone")
 PART_COLUMNS = {

@@ -21,12 +21,12 @@ from fleet.engineering.rules import (
     _messages,
     commissioning_problems,
     fitting_problems,
-    known_time_zone,
     motor_problems,
     neighbours_line,
     parse_numbers,
     part_problems,
     service_date_problems,
+    site_time_zone,
     trend_slope_uf_per_hour,
     trend_value_held_to,
 )
@@ -904,9 +904,10 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     for name in SITE_REQUIRED:
         problems.add(frame[name].eq(""), name, "required")
     code_problems(problems, frame["code"], "code")
-    zones = {name: known_time_zone(name) for name in set(frame["time_zone"])}
+    spelt = frame["time_zone"].map({name: site_time_zone(name) for name in set(frame["time_zone"])})
+    frame["time_zone"] = spelt.fillna(frame["time_zone"])
     problems.add(
-        ~frame["time_zone"].map(zones).astype(bool),
+        spelt.isna(),
         "time_zone",
         "not a time zone name: use one like Europe/Madrid, America/Chicago or UTC",
     )
