@@ -504,8 +504,10 @@ def open_visits_shown(job: ImportJob) -> list[dict]:
 
 
 def rejected_rows_csv(job: ImportJob) -> bytes:
-    """The bad rows as uploaded, with a last column saying what is wrong, field by field. A readings file without
-    a `confirmed` column gets an empty one, for the rows whose message asks to confirm a value as re-checked."""
+    """The bad rows as uploaded, with a last column saying what is wrong, field by field, after the row's number
+    in the uploaded file ("row 7: ..."), which the messages ("the same ... as row 2") and the page cite. A
+    readings file without a `confirmed` column gets an empty one, for the rows whose message asks to confirm a
+    value as re-checked."""
     outcome = check_file(
         kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping, user=job.created_by
     )
@@ -516,5 +518,8 @@ def rejected_rows_csv(job: ImportJob) -> bytes:
     unconfirmable = job.kind == ImportJob.Kind.READINGS and not (outcome.mapping or {}).get("confirmed")
     confirm = ["confirmed"] if unconfirmable else []
     blank = [""] * len(confirm)
-    picked = [outcome.rows[position[number]] + blank + ["; ".join(problems[number])] for number in sorted(problems)]
+    picked = [
+        outcome.rows[position[number]] + blank + [f"row {number}: " + "; ".join(problems[number])]
+        for number in sorted(problems)
+    ]
     return csv_bytes(outcome.header + confirm + ["problems"], picked)
