@@ -157,15 +157,22 @@ def mapped_frame(
 
 
 class _Problems:
-    """Collects (row, field, message) from boolean masks over a chunk."""
+    """Collects (row, field, message) from boolean masks over a chunk.
+
+    A check that reads several fields, or looks a row up, is not run on a row with a problem already (its words
+    would rest on a value known wrong). A cell's own problem (`of_cell`: unreadable, required, not one of the
+    choices, the rulebook's message at a field, which the form shows at every field at once) is named beside the
+    row's others, so a row with several faults is put right in one round; one message a field."""
 
     def __init__(self, chunk: pd.DataFrame):
         self.chunk = chunk
         self.bad = np.zeros(len(chunk), bool)
+        self.bad_in: dict[str, np.ndarray] = {}
         self.items: list[tuple[int, str, str]] = []
 
-    def add(self, mask, field_name: str, message):
-        mask = np.asarray(mask, bool) & ~self.bad
+    def add(self, mask, field_name: str, message, *, of_cell: bool = False):
+        bad_here = self.bad_in.setdefault(field_name, np.zeros(len(self.chunk), bool))
+        mask = np.asarray(mask, bool) & ~(bad_here if of_cell else self.bad)
         rows = self.chunk["row"].to_numpy()[mask]
         messages = message[mask] if isinstance(message, np.ndarray) else [message] * int(mask.sum())
         if field_name in self.chunk and any(m == MSG_NOT_A_NUMBER for m in messages):
@@ -177,6 +184,7 @@ class _Problems:
             ]
         self.items += [(int(r), field_name, str(m)) for r, m in zip(rows, messages, strict=True)]
         self.bad |= mask
+        bad_here |= mask
 
 
 def _numbers(chunk, names, problems):
@@ -184,7 +192,7 @@ def _numbers(chunk, names, problems):
     values = {}
     for name in names:
         values[name], messages = parse_numbers(chunk[name])
-        problems.add(messages != "", name, messages)
+        problems.add(messages != "", name, messages, of_cell=True)
     return values
 
 
@@ -204,9 +212,14 @@ def text_problems(frame: pd.DataFrame, max_lengths: dict[str, int]) -> _Problems
     """Cells the database cannot hold: a NUL character in any field, text longer than its column."""
     problems = _Problems(frame)
     for name in frame.columns.drop("row"):
-        problems.add(frame[name].str.contains("\x00", regex=False), name, "holds a NUL character (byte 0): remove it")
+        problems.add(
+            frame[name].str.contains("\x00", regex=False),
+            name,
+            "holds a NUL character (byte 0): remove it",
+            of_cell=True,
+        )
     for name, limit in max_lengths.items():
-        problems.add(frame[name].str.len() > limit, name, f"longer than {limit} characters")
+        problems.add(frame[name].str.len() > limit, name, f"longer than {limit} characters", of_cell=True)
     return problems
 
 
@@ -214,7 +227,7 @@ def finite_numbers(chunk: pd.DataFrame, names, problems: _Problems) -> dict[str,
     """Numbers (point or comma decimal mark); infinities refused. Blank cells are NaN."""
     values = _numbers(chunk, names, problems)
     for name in names:
-        problems.add(np.isinf(values[name]), name, "not a finite number")
+        problems.add(np.isinf(values[name]), name, "not a finite number", of_cell=True)
     return values
 
 

@@ -17,6 +17,8 @@ from django.utils import timezone
 from fleet.engineering.planning import PlanningSettings, day_off_problems
 from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
+    MSG_NOT_A_NUMBER,
+    MSG_NOT_FINITE,
     UNDER_VOLTAGE_WORDS,
     _messages,
     commissioning_problems,
@@ -302,13 +304,19 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 text.replace("this capacitor's trend (", words, 1)
                 for text, words in zip(said[from_file], neighbours[from_file], strict=True)
             ]
+        # The rulebook names each field's problem, as the form shows them all at once; on a row not placed on a
+        # capacitor (an unknown tag, no capacitor that day) only a cell that is no number is named: any other
+        # words would rest on a rating or a date the row does not have.
+        placed = ~problems.bad
         for name, messages in result.errors.items():
-            problems.add(messages != "", name, messages)
+            unreadable = np.isin(messages, (MSG_NOT_A_NUMBER, MSG_NOT_FINITE))
+            problems.add((placed | unreadable) & (messages != ""), name, messages, of_cell=True)
         for name, messages in result.confirm.items():
             problems.add(
-                messages != "",
+                placed & (messages != ""),
                 name,
                 messages + "; the import cannot confirm it unless the row's confirmed column says yes",
+                of_cell=True,
             )
         good = ~problems.bad
         rows = pd.DataFrame(
@@ -418,13 +426,13 @@ def _place_readings(chunk, tag, zone_of_tag, fitted, first_fitted, default_tz: s
     """Each row's time in its site's zone, its site day and the capacitor fitted in its position that day."""
     problems = _Problems(chunk)
     for name in READING_REQUIRED:
-        problems.add(chunk[name].eq(""), name, "required")
+        problems.add(chunk[name].eq(""), name, "required", of_cell=True)
     zones = zone_of_tag.reindex(tag.to_numpy(object))
     unknown_tag = zones.isna().to_numpy()
     if unknown_tag.any():  # the words are built for every row: only when one needs them
         problems.add(unknown_tag, "asset_tag", _unknown("asset tag", chunk["asset_tag"], "not in the register"))
     role = chunk["role"].str.lower()
-    problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
+    problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run", of_cell=True)
     taken, unplaced = parse_times(chunk["taken_at"], pd.Series(zones.fillna(default_tz).to_numpy(object)))
     problems.add(unplaced != "", "taken_at", unplaced)
     problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
@@ -458,9 +466,10 @@ def _place_readings(chunk, tag, zone_of_tag, fitted, first_fitted, default_tz: s
     problems.add(
         unreadable,
         "confirmed",
-        (chunk["confirmed"].str.slice(0, 20) + " is not yes or no (true or false, 1 or 0; empty is no)").to_numpy(
-            object
-        ),
+        of_cell=True,
+        message=(
+            chunk["confirmed"].str.slice(0, 20) + " is not yes or no (true or false, 1 or 0; empty is no)"
+        ).to_numpy(object),
     )
     meter = chunk["method"].str.strip().str.lower().isin(["", "meter"]).to_numpy()
     return _PlacedReadings(
@@ -651,7 +660,7 @@ def _wrong_dielectric(role: np.ndarray, part_code: pd.Series, dielectrics: dict)
 
 def code_problems(problems: _Problems, codes: pd.Series, field_name: str) -> None:
     """Codes (asset tags, site and part codes) outside the admin's character rule (models.CODE_PATTERN)."""
-    problems.add(codes.ne("") & ~codes.str.fullmatch(CODE_PATTERN), field_name, f"use {CODE_CHARACTERS}")
+    problems.add(codes.ne("") & ~codes.str.fullmatch(CODE_PATTERN), field_name, f"use {CODE_CHARACTERS}", of_cell=True)
 
 
 def refuse_changed(problems: _Problems, already: np.ndarray, given: pd.DataFrame, stored: pd.DataFrame, what: str):
@@ -733,13 +742,15 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
     problems = _Problems(frame)
     for name in REGISTER_REQUIRED:
-        problems.add(frame[name].eq(""), name, "required")
+        problems.add(frame[name].eq(""), name, "required", of_cell=True)
     for name in REGISTER_COLUMNS:
-        problems.add(frame[name].str.contains("\x00", regex=False), name, "contains a NUL character: remove it")
+        problems.add(
+            frame[name].str.contains("\x00", regex=False), name, "contains a NUL character: remove it", of_cell=True
+        )
     too_long = frame["asset_tag"].str.len() > Motor._meta.get_field("asset_tag").max_length
     code_problems(problems, frame["asset_tag"], "asset_tag")
-    problems.add(too_long, "asset_tag", "longer than 40 characters")
-    problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters")
+    problems.add(too_long, "asset_tag", "longer than 40 characters", of_cell=True)
+    problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters", of_cell=True)
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(
         site_id.isna().to_numpy(), "site_code", _unknown("site code", frame["site_code"], "add the site first")
@@ -749,7 +760,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ("motor_type", Motor.MotorType.values),
         ("load_type", Motor.LoadType.values),
     ):
-        problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed))
+        problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed), of_cell=True)
     volts = numbers["rated_voltage_v"]
     # Every check constraint of a motor and the rulebook's bounds, by row and field, before any write.
     for rows, name, message in motor_problems(*(numbers[name] for name in MOTOR_NUMBERS)):
@@ -796,7 +807,7 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     dates = {}
     for name in ("fitted_on", "run_fitted_on", "start_fitted_on", "commissioned_on"):
         dates[name] = parse_dates(frame[name])
-        problems.add(frame[name].ne("") & dates[name].isna(), name, "not a date (use 2026-03-14)")
+        problems.add(frame[name].ne("") & dates[name].isna(), name, "not a date (use 2026-03-14)", of_cell=True)
     no_removal = np.full(len(frame), np.datetime64("NaT"), "datetime64[D]")
     for name in ("fitted_on", "run_fitted_on", "start_fitted_on"):
         for rows, _, message in service_date_problems(dates[name].to_numpy("datetime64[D]"), no_removal, today):
@@ -902,7 +913,7 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Sites: code, name and a time zone zoneinfo knows; codes already in the register are skipped."""
     problems = _Problems(frame)
     for name in SITE_REQUIRED:
-        problems.add(frame[name].eq(""), name, "required")
+        problems.add(frame[name].eq(""), name, "required", of_cell=True)
     code_problems(problems, frame["code"], "code")
     spelt = frame["time_zone"].map({name: site_time_zone(name) for name in set(frame["time_zone"])})
     frame["time_zone"] = spelt.fillna(frame["time_zone"])
@@ -910,6 +921,7 @@ def check_sites(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         spelt.isna(),
         "time_zone",
         "not a time zone name: use one like Europe/Madrid, America/Chicago or UTC",
+        of_cell=True,
     )
     sites = pd.DataFrame.from_records(
         list(Site.objects.values_list("code", "name", "time_zone")), columns=["code", "name", "time_zone"]
@@ -936,13 +948,18 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     refused on the later row, one already stored is skipped as already imported."""
     problems = _Problems(frame)
     for name in DAY_OFF_REQUIRED:
-        problems.add(frame[name].str.strip().eq(""), name, "required")
+        problems.add(frame[name].str.strip().eq(""), name, "required", of_cell=True)
     site_id = site_ids_in_any_case(frame["site_code"])
     problems.add(
         site_id.isna().to_numpy(), "site_code", _unknown("site code", frame["site_code"], "add the site first")
     )
     day = parse_dates(frame["day"])
-    problems.add(day.isna().to_numpy(), "day", "not a day of the calendar: give it as year-month-day, e.g. 2027-03-29")
+    problems.add(
+        day.isna().to_numpy(),
+        "day",
+        "not a day of the calendar: give it as year-month-day, e.g. 2027-03-29",
+        of_cell=True,
+    )
     today = timezone.localdate()
     said = day_off_problems(day.to_numpy("datetime64[D]"), today, PlanningSettings().working_days)
     problems.add(said != "", "day", said)
@@ -996,7 +1013,7 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     _marked_ranges(frame["rated_uf"], problems)  # first: it also says what the tolerances should be
     for name in PART_REQUIRED:
-        problems.add(frame[name].eq(""), name, "required")
+        problems.add(frame[name].eq(""), name, "required", of_cell=True)
     code_problems(problems, frame["code"], "code")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
     dielectric = frame["dielectric"].str.lower().to_numpy(object)
@@ -1008,7 +1025,7 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         ("safety_class", CapacitorPart.SafetyClass.values),
     ):
         given = frame[name].str.lower() if name == "dielectric" else frame[name].str.upper()
-        problems.add(given.ne("") & ~given.isin(choices), name, "must be one of " + ", ".join(choices))
+        problems.add(given.ne("") & ~given.isin(choices), name, "must be one of " + ", ".join(choices), of_cell=True)
     compared = [*PART_NUMBERS, "dielectric", "class_of_operation", "safety_class"]
     parts = pd.DataFrame.from_records(
         list(CapacitorPart.objects.values_list("code", *compared)), columns=["code", *compared]
@@ -1066,7 +1083,7 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """
     problems = _Problems(frame)
     for name in HISTORY_REQUIRED:
-        problems.add(frame[name].eq(""), name, "required")
+        problems.add(frame[name].eq(""), name, "required", of_cell=True)
     tags = frame["asset_tag"].str.upper()
     known = Motor.objects.filter(asset_tag__any_of=np.array(sorted(set(tags) - {""}), dtype=object))
     motors = pd.DataFrame.from_records(
@@ -1081,7 +1098,7 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         _unknown("asset tag", frame["asset_tag"], "not in the register"),
     )
     role = frame["role"].str.lower()
-    problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run")
+    problems.add(~role.isin(FittedCapacitor.Role.values), "role", "must be start or run", of_cell=True)
     has_role = np.where(
         role.eq(FittedCapacitor.Role.RUN),
         motor["motor_type"].isin([Motor.MotorType.PERMANENT_SPLIT, Motor.MotorType.TWO_VALUE]).to_numpy(),
@@ -1108,7 +1125,7 @@ def check_history(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     today = pd.Timestamp(timezone.localdate())
     fitted, removed = parse_dates(frame["fitted_on"]), parse_dates(frame["removed_on"])
     for name, parsed in (("fitted_on", fitted), ("removed_on", removed)):
-        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)")
+        problems.add(frame[name].ne("") & parsed.isna(), name, "not a date (use 2026-03-14)", of_cell=True)
     for rows, name, message in service_date_problems(fitted.to_numpy(), removed.to_numpy(), today.to_datetime64()):
         problems.add(rows, name, message)
     reason = frame["removal_reason"].str.lower()
