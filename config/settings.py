@@ -262,6 +262,10 @@ FLEET_PRIOR_MAX_CAPACITORS_PER_PART = env_int("FLEET_PRIOR_MAX_CAPACITORS_PER_PA
 # they are derived from the readings, which are kept for good (refits.prune_assessment_history).
 FLEET_ASSESSMENT_HISTORY_DAYS = env_int("FLEET_ASSESSMENT_HISTORY_DAYS", 35)
 
+# Days an uploaded import file is kept after its job last changed (0: for good). Its counts, problems and what it
+# imported stay; the file itself (up to FLEET_IMPORT_MAX_FILE_MB each) only serves a new check or the rows to fix.
+FLEET_IMPORT_FILE_DAYS = env_int("FLEET_IMPORT_FILE_DAYS", 90)
+
 # Import limits, checked before a file is parsed (an XLSX is a zip: its unpacked size and sheet dimension count).
 FLEET_IMPORT_MAX_FILE_MB = env_int("FLEET_IMPORT_MAX_FILE_MB", 50)
 FLEET_IMPORT_MAX_UNPACKED_MB = env_int("FLEET_IMPORT_MAX_UNPACKED_MB", 200)

@@ -1244,6 +1244,9 @@ class ImportJob(models.Model):
     created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, on_delete=models.SET_NULL, related_name="+")
     created_at = models.DateTimeField(auto_now_add=True)
     updated_at = models.DateTimeField(auto_now=True, help_text="Last change of state or progress")
+    file_deleted_at = models.DateTimeField(
+        null=True, blank=True, help_text="When the uploaded file was deleted (FLEET_IMPORT_FILE_DAYS); the report stays"
+    )
 
     class Meta:
         ordering = ["-created_at"]

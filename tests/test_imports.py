@@ -750,3 +750,39 @@ def test_a_row_with_several_faults_has_each_named_in_one_round():
     assert (3, "capacitance_uf") not in named
     assert named[(4, "role")] == "must be start or run" and (4, "capacitance_uf") not in named
     assert outcome.result.error_rows == 3 and not len(outcome.result.good)
+
+
+def test_an_old_jobs_uploaded_file_is_deleted_and_its_report_kept(client, technician, settings):
+    """Every upload was kept in the database for good (the audit of inputs): up to 50 MB a file, read by nothing
+    once its job is done. A job idle longer than FLEET_IMPORT_FILE_DAYS loses its file at the next upload; its
+    counts and problems stay, its page says so, and nothing can check or import the empty file."""
+    settings.FLEET_IMPORT_FILE_DAYS = 30
+    fleet_of(1)
+    rows = good_rows(["IMP-0000"], 2) + [["NO-SUCH", "run", "2021-06-01 09:00", "meter", "4.0", "", "", "31", ""]]
+    old = run_job(create_job(kind="readings", filename="old.csv", content=csv_of(rows), user=technician).id, "good")
+    recent = check_job(create_job(kind="readings", filename="new.csv", content=csv_of(rows), user=technician).id)
+    ImportJob.objects.filter(id=old.id).update(updated_at=timezone.now() - dt.timedelta(days=31))
+    ImportJob.objects.filter(id=recent.id).update(updated_at=timezone.now() - dt.timedelta(days=29))
+    create_job(kind="sites", filename="s.csv", content=b"code,name,time_zone\nAA,A,UTC\n", user=technician)
+    old.refresh_from_db()
+    recent.refresh_from_db()
+    assert bytes(old.content) == b"" and old.file_deleted_at is not None
+    assert (old.imported_rows, old.error_rows, len(old.errors)) == (2, 1, 1)  # the report stays
+    assert bytes(recent.content) == csv_of(rows) and recent.file_deleted_at is None
+    with pytest.raises(FileRefused, match="the uploaded file was deleted on"):
+        rejected_rows_csv(old)
+
+    client.force_login(technician)
+    page = client.get(reverse("import_detail", args=[old.id])).content.decode()
+    assert 'id="import-file-deleted"' in page and "upload the file again" in page
+    assert reverse("import_rejected", args=[old.id]) not in page and 'value="check"' not in page
+    response = client.get(reverse("import_rejected", args=[old.id]), follow=True)
+    assert "There are no rows to download: the uploaded file was deleted" in response.content.decode()
+    ImportJob.objects.filter(id=old.id).update(state=ImportJob.State.CHECKED)  # as if it had been checked only
+    client.post(reverse("import_detail", args=[old.id]), {"action": "good"})
+    assert ImportJob.objects.get(id=old.id).state == ImportJob.State.CHECKED  # not queued on an empty file
+
+    settings.FLEET_IMPORT_FILE_DAYS = 0  # keep every file
+    ImportJob.objects.filter(id=recent.id).update(updated_at=timezone.now() - dt.timedelta(days=3650))
+    create_job(kind="sites", filename="s2.csv", content=b"code,name,time_zone\nBB,B,UTC\n", user=technician)
+    assert ImportJob.objects.get(id=recent.id).file_deleted_at is None

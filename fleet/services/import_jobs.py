@@ -296,7 +296,9 @@ def _follow(follow_up: FollowUp, outcome: Outcome) -> None:
 
 
 def create_job(*, kind: str, filename: str, content: bytes, user) -> ImportJob:
-    """Store the upload and queue the reading of its headings; nothing is parsed here."""
+    """Store the upload and queue the reading of its headings; nothing is parsed here. Each upload deletes the
+    files of jobs idle longer than FLEET_IMPORT_FILE_DAYS (`delete_old_files`)."""
+    delete_old_files()
     job = ImportJob.objects.create(
         kind=kind,
         filename=filename[:200],
@@ -305,6 +307,33 @@ def create_job(*, kind: str, filename: str, content: bytes, user) -> ImportJob:
     )
     transaction.on_commit(lambda: _queue("read_import", job.pk))
     return job
+
+
+def delete_old_files(now: dt.datetime | None = None) -> int:
+    """Delete the uploaded files of the jobs not at work whose last change is more than FLEET_IMPORT_FILE_DAYS
+    before `now` (0: keep them all); returns how many. A file of 50 MB a week is 2.6 GB a year in the database,
+    read by nothing once its job is done; the job keeps its counts and problems, and says when its file went."""
+    days = settings.FLEET_IMPORT_FILE_DAYS
+    if days <= 0:
+        return 0
+    now = now or timezone.now()
+    deleted = (
+        ImportJob.objects.filter(file_deleted_at__isnull=True, updated_at__lt=now - dt.timedelta(days=days))
+        .exclude(state__in=WORKING)
+        .update(content=b"", file_deleted_at=now)
+    )
+    if deleted:
+        log.info("deleted the uploaded files of %d import jobs idle for %d days", deleted, days)
+    return deleted
+
+
+def deleted_file_words(job: ImportJob) -> str:
+    """What the job's page says of a file deleted by `delete_old_files`."""
+    return (
+        f"the uploaded file was deleted on {timezone.localdate(job.file_deleted_at):%Y-%m-%d}, "
+        f"{settings.FLEET_IMPORT_FILE_DAYS} days after its import last changed; this report stays. "
+        "To check or import it again, upload the file again."
+    )
 
 
 def _queue(task_name: str, job_id: int, *args) -> None:
@@ -325,7 +354,8 @@ def _queue(task_name: str, job_id: int, *args) -> None:
 def queue_check(job: ImportJob, mapping: dict) -> bool:
     """Queue a dry run unless one step of the job is under way (decided in the UPDATE itself, so
     the button pressed twice at once queues one). Whether this call queued it."""
-    claimed = _claim(ImportJob.objects.exclude(state__in=WORKING), job, mapping=mapping, state=ImportJob.State.CHECKING)
+    jobs = ImportJob.objects.exclude(state__in=WORKING).filter(file_deleted_at__isnull=True)
+    claimed = _claim(jobs, job, mapping=mapping, state=ImportJob.State.CHECKING)
     if claimed:
         transaction.on_commit(lambda: _queue("check_import", job.pk))
     return claimed
@@ -336,7 +366,10 @@ def queue_import(job: ImportJob, mode: str) -> bool:
     it runs) queues one run, so the job's record is not overwritten by a run that finds every
     row a duplicate. Whether this call queued it."""
     claimed = _claim(
-        ImportJob.objects.filter(state=ImportJob.State.CHECKED), job, mode=mode, state=ImportJob.State.IMPORTING
+        ImportJob.objects.filter(state=ImportJob.State.CHECKED, file_deleted_at__isnull=True),
+        job,
+        mode=mode,
+        state=ImportJob.State.IMPORTING,
     )
     if claimed:
         transaction.on_commit(lambda: _queue("run_import", job.pk, mode))
@@ -508,6 +541,8 @@ def rejected_rows_csv(job: ImportJob) -> bytes:
     in the uploaded file ("row 7: ..."), which the messages ("the same ... as row 2") and the page cite. A
     readings file without a `confirmed` column gets an empty one, for the rows whose message asks to confirm a
     value as re-checked."""
+    if job.file_deleted_at:
+        raise files.FileRefused(deleted_file_words(job))
     outcome = check_file(
         kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping, user=job.created_by
     )
