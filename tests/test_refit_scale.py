@@ -227,3 +227,25 @@ def test_the_migration_keeps_a_stored_path_in_its_columns(fan_fitted_capacitor):
     assert (moved.trend_intercept, moved.trend_slope_per_hour, moved.trend_noise_sd) == (1.01, -2e-6, 0.004)
     assert (moved.trend_var_intercept, moved.trend_cov_intercept_slope, moved.trend_var_slope) == (1e-4, -1e-9, 1e-13)
     assert (moved.stress_hours_now, moved.stress_rate, moved.tempco_ppm_per_k) == (9000.0, 1.2, -150.0)
+
+
+def test_refits_of_the_same_readings_at_any_hour_of_a_day_date_each_crossing_alike():
+    # [derived] A crossing is an instant fixed by the readings; the refit's moment only sets the offset it is
+    # counted in. Dated as today plus the offset's whole days, a crossing 0.6 days after a refit at 18:00 was
+    # today's at 18:00 and tomorrow's at 06:00 (a rerun after a killed worker differed by a day). Dated by the
+    # instant's own day, both refits of one day store the same dates, at every limit; replace-by dates are
+    # whole days of the plan from today, the same on one day too.
+    build_bench_fleet(FleetSize(motors=16, capacitors=24, readings=300), today=TODAY, progress=quiet)
+    refresh_part_priors()
+    ids = in_service_ids()
+    dated = ["fitted_capacitor_id", "p10_on", "p50_on", "p90_on", "replace_by", "limits", "reason"]
+    runs = []
+    for hour, minute in ((0, 30), (23, 30)):
+        now = dt.datetime.combine(TODAY, dt.time(hour, minute), tzinfo=dt.UTC)
+        refit_fitted_capacitors(ids, now=now, force=True)
+        runs.append(
+            {row["fitted_capacitor_id"]: row for row in Assessment.objects.filter(is_current=True).values(*dated)}
+        )
+    early, late = runs
+    assert sum(row["p50_on"] is not None for row in early.values()) >= 10  # dates to compare
+    assert {(k, f) for k in early for f in dated if early[k][f] != late[k][f]} == set()

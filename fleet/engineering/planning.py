@@ -169,10 +169,18 @@ def reads_below(fraction_25c, limit_fraction) -> np.ndarray:
         return np.asarray(fraction_25c, float) < np.asarray(limit_fraction, float)
 
 
-def _month(today: dt.date, days) -> np.ndarray:
-    base = np.datetime64(today, "D")
-    offset = np.nan_to_num(np.asarray(days, float), nan=0.0, posinf=0.0).astype("int64")
-    return np.datetime_as_string(base + offset.astype("timedelta64[D]"), unit="M")
+def instant_days(today: dt.date, offset_days, day_fraction: float = 0.0) -> np.ndarray:
+    """The calendar day (datetime64[D]) of each instant `offset_days` after the forecast's moment, which is
+    `day_fraction` of the way through `today`: the day of the instant, not today plus the offset's whole days, so
+    a crossing is dated alike by refits of the same readings at any hour (a crossing 0.6 days after a refit at
+    18:00 is tomorrow's). Not finite: today (the callers mask those)."""
+    offset = np.asarray(offset_days, float) + day_fraction
+    whole = np.floor(np.nan_to_num(offset, nan=0.0, posinf=0.0, neginf=0.0)).astype(np.int64)
+    return np.datetime64(today, "D") + whole.astype("timedelta64[D]")
+
+
+def _month(today: dt.date, days, day_fraction: float = 0.0) -> np.ndarray:
+    return np.datetime_as_string(instant_days(today, days, day_fraction), unit="M")
 
 
 def judge(
@@ -187,6 +195,7 @@ def judge(
     evidence,
     evidence_text,
     today: dt.date,
+    day_fraction: float = 0.0,
     wear_days=None,
     wear_words=None,
     alert_days=None,
@@ -206,7 +215,8 @@ def judge(
     sets the risk, the date and the reason, and `governing` is L.
     alert_days (L, G): days to each limit's crossing at the quantile the risk
     rule flags on (`risk_levels`; P10 when not given). latest_on (G dates): the newest reading's day
-    (NaT or not given: unknown).
+    (NaT or not given: unknown). day_fraction: how far through `today` the days are counted from (the
+    crossings' months in the words are the instants' own, `instant_days`).
 
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
@@ -274,7 +284,7 @@ def judge(
 
     def month_or(offset, beyond):
         inside = np.isfinite(offset) & (offset <= settings.horizon_days)
-        return np.where(inside, _month(today, offset), beyond)
+        return np.where(inside, _month(today, offset, day_fraction), beyond)
 
     beyond = f"beyond {settings.horizon_days / 365:.0f} years"
     likely = month_or(days[1], beyond)
@@ -297,13 +307,19 @@ def judge(
             "trend reaches "
             + limit_words
             + " between "
-            + _month(today, days[0])
+            + _month(today, days[0], day_fraction)
             + " and "
             + late
             + " (likely "
             + likely
             + ")",
-            "trend reaches " + limit_words + " no sooner than " + _month(today, days[0]) + " (likely " + likely + ")",
+            "trend reaches "
+            + limit_words
+            + " no sooner than "
+            + _month(today, days[0], day_fraction)
+            + " (likely "
+            + likely
+            + ")",
         ],
         # The early crossing has passed and the likely one is ahead: said as such (a walk read "may already have
         # reached ... (likely 2027-01)": a future date for what was said to have perhaps happened).

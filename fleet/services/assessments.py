@@ -65,6 +65,7 @@ from fleet.engineering.planning import (
     Judgement,
     PlanningSettings,
     alert_index,
+    instant_days,
     judge,
 )
 from fleet.engineering.rules import CONDITION_SOUND, microfarad_text
@@ -651,6 +652,7 @@ def assess(
         evidence=evidence,
         evidence_text=evidence_text,
         today=now.date(),
+        day_fraction=fraction_of_day(now),
         wear_days=wear_days,
         wear_words=wear_words,
         alert_days=alert_days,
@@ -809,7 +811,7 @@ def _judged_rows(batch: _Batch, stored: _Stored, now: dt.datetime) -> pd.DataFra
         shapes=stored.shapes,
         companions=batch.companions,
     )
-    return _assessment_frame(result, batch.readings, batch.max_reading_id, now.date())
+    return _assessment_frame(result, batch.readings, batch.max_reading_id, now)
 
 
 def _store_rows(rows: pd.DataFrame, now: dt.datetime, *, as_of: bool) -> int:
@@ -947,20 +949,30 @@ def _finite_or_none(value):
     return value if np.isfinite(value) else None
 
 
-def _iso_dates(offset_days, today: dt.date, past: bool = False) -> np.ndarray:
-    """ISO dates `today` + offset (whole days; none before today unless `past`: a crossing the trend
-    has already made keeps its day, a replace-by date does not); None past the planning horizon or not
-    finite (shown as "beyond")."""
+def _iso_dates(offset_days, today: dt.date, past: bool = False, day_fraction: float = 0.0) -> np.ndarray:
+    """ISO dates `today` + offset; None past the planning horizon or not finite (shown as "beyond").
+
+    Offsets count from the refit's moment, `day_fraction` of the way through today, and are dated by the
+    instant's own day (`planning.instant_days`): a crossing, or a replace-by date set by one (its lead time
+    before it), is the same at whatever hour the refit ran; whole days of the plan (now, a week's notice) stay
+    whole days from today. A crossing the trend has already made keeps its day (`past`); a replace-by date is
+    never before today."""
     offset = np.asarray(offset_days, float)
     with np.errstate(invalid="ignore"):
         known = np.isfinite(offset) & (offset <= PlanningSettings().horizon_days)
         if past:
             known &= offset >= -PlanningSettings().horizon_days
-    days = np.floor(np.where(known, offset, 0.0) if past else np.maximum(np.where(known, offset, 0.0), 0.0))
-    days = days.astype(np.int64)
+    if not past:
+        offset = np.maximum(offset, 0.0)
+    days = instant_days(today, np.where(known, offset, 0.0), day_fraction)
     distinct, position = np.unique(days, return_inverse=True)  # a few hundred dates: each written once
-    text = np.datetime_as_string(np.datetime64(today, "D") + distinct.astype("timedelta64[D]"), unit="D")
+    text = np.datetime_as_string(distinct, unit="D")
     return np.where(known, text.astype(object)[position.reshape(days.shape)], None)
+
+
+def fraction_of_day(now: dt.datetime) -> float:
+    """How far through its (UTC) day `now` is, 0 to 1: the refit's moment, from which crossings are counted."""
+    return (now - now.replace(hour=0, minute=0, second=0, microsecond=0)).total_seconds() / 86400.0
 
 
 def _json_lines(frame: pd.DataFrame, exact: bool = False) -> np.ndarray:
@@ -986,9 +998,10 @@ def _json_lines(frame: pd.DataFrame, exact: bool = False) -> np.ndarray:
     return np.array(text.rstrip("\n").split("\n"), dtype=object)[row]
 
 
-def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
+def _limits_json(result: Assessed, today: dt.date, through_day: float) -> np.ndarray:
     """Per capacitor, the JSON list of every limit evaluated (tolerance always; a drift limit
-    where it applies; the dissipation factor where the part has a maximum)."""
+    where it applies; the dissipation factor where the part has a maximum). `through_day`: how far through
+    today the refit ran (`fraction_of_day`)."""
     n = len(result.inst)
     count = len(ALL_LIMITS)
     applies = np.isfinite(result.limit_fraction)
@@ -1003,7 +1016,7 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
             "note": result.limit_notes.ravel()[shown].astype(str),
             "finding": result.limit_findings.ravel()[shown].astype(str),
             **{
-                f"p{q}_on": _iso_dates(result.limit_days[j].ravel()[shown], today, past=True)
+                f"p{q}_on": _iso_dates(result.limit_days[j].ravel()[shown], today, past=True, day_fraction=through_day)
                 for j, q in enumerate((10, 50, 90))
             },
         }
@@ -1025,7 +1038,7 @@ def _limits_json(result: Assessed, today: dt.date) -> np.ndarray:
             "note": np.where(measured, "", "no reading with ESR yet"),
             "finding": "",
             **{
-                f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today, past=True)
+                f"p{q}_on": _iso_dates(result.wear_days[j][has_maximum], today, past=True, day_fraction=through_day)
                 for j, q in enumerate((10, 50, 90))
             },
         }
@@ -1056,10 +1069,11 @@ def _flagged_json(result: Assessed, readings: pd.DataFrame) -> np.ndarray:
     return lists
 
 
-def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: pd.Series, today: dt.date):
+def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: pd.Series, now: dt.datetime):
     """Assessment rows from a judged batch, as columns (no per-capacitor Python);
     non-finite numbers never reach the database."""
     fit, judgement, inst = result.fit, result.judgement, result.inst
+    today, fraction = now.date(), fraction_of_day(now)
     n = len(inst)
     rated_uf = inst["rated_uf"].to_numpy(float)
     aside = result.set_aside.astype(bool)
@@ -1097,14 +1111,14 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "latest_verdict": pd.Series(result.verdict_code).map(VERDICT_NAMES).to_numpy(object),
             "limit_fraction": result.limit_fraction[limit_rows, np.arange(n)],
             "limit_source": np.where(governing >= 0, sources[governing], TOLERANCE_LIMIT),
-            "p10_on": _iso_dates(judgement.days[0], today, past=True),
-            "p50_on": _iso_dates(judgement.days[1], today, past=True),
-            "p90_on": _iso_dates(judgement.days[2], today, past=True),
+            "p10_on": _iso_dates(judgement.days[0], today, past=True, day_fraction=fraction),
+            "p50_on": _iso_dates(judgement.days[1], today, past=True, day_fraction=fraction),
+            "p90_on": _iso_dates(judgement.days[2], today, past=True, day_fraction=fraction),
             "risk": risk,
-            "replace_by": _iso_dates(judgement.due_days, today),
+            "replace_by": _iso_dates(judgement.due_days, today, day_fraction=fraction),
             "reason": pd.Series(reason).str.slice(0, 300).to_numpy(object),
             "read_again": np.asarray(judgement.read_again, bool),
-            "limits": _limits_json(result, today),
+            "limits": _limits_json(result, today, fraction),
             "set_aside": result.set_aside.astype(str),
             "figures_now": _figures_json(result.figures_now, result.with_circuit),
             "figures_new": _figures_json(result.figures_new, result.with_circuit),
