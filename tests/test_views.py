@@ -810,6 +810,33 @@ def test_a_capacitor_with_thousands_of_readings_sends_a_chart_a_phone_can_draw(s
     assert drawn["x"][-1] == newest and drawn["x"][0] == start.date().isoformat()
 
 
+def test_a_label_names_the_design_part_where_a_stop_gap_was_fitted_against_the_advice(signed_in, technician):
+    """A fresh-eyes walk: after an unsuitable 98 µF start capacitor was fitted with a ticked override, the motor's
+    label read "Start capacitor START-98U-330: 98 µF", and the next technician to pick a spare from it would bring
+    a second wrong part. The label names the position's design part (the replacement page's), and the stop-gap."""
+    from fleet.services.readings import replace_capacitor
+
+    site = make_site(code="LBS")
+    motor = make_motor(site=site, with_circuit=False, motor_type="two_value", asset_tag="LBS-0001")
+    make_fitted_capacitor(motor=motor, part=make_part(code="RUN-8-450", rated_uf=8, rated_voltage_v=450))
+    design = make_part(code="START-143-330", rated_uf=143, rated_voltage_v=330, dielectric="electrolytic")
+    stopgap = make_part(code="START-98-330", rated_uf=98, rated_voltage_v=330, dielectric="electrolytic")
+    start = make_fitted_capacitor(motor=motor, part=design, role="start", fitted_on=dt.date(2022, 1, 1))
+    replace_capacitor(
+        fitted_capacitor=start,
+        part=stopgap,
+        removed_on=timezone.localdate(),
+        reason="failed",
+        substitute_override=True,
+        override_reason="the only part on the shelf",
+    )
+    client = signed_in(technician)
+    body = html.unescape(client.get(reverse("labels", args=["LBS"])).content.decode()).replace("\xa0", " ")
+    assert "Start capacitor START-143-330: 143 µF, 330 V" in body
+    assert "fitted now: START-98-330, a stop-gap against the advice" in body
+    assert "Start capacitor START-98-330" not in body and "Run capacitor RUN-8-450: 8 µF, 450 V" in body
+
+
 def test_the_plan_lists_the_weeks_riskier_and_less_risky_capacitors_each_labelled_and_capped(client, monkeypatch):
     """A planner sees what got riskier and what got less risky this week (a reassuring reading), each
     under its heading with its count, and the first few of a long list only, saying so [derived]."""

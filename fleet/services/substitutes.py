@@ -88,21 +88,39 @@ def candidates_of(frame: pd.DataFrame) -> Candidates:
 def design_part(fitted_capacitor: FittedCapacitor) -> CapacitorPart:
     """The part this position was designed for: the newest capacitor at this motor and role fitted
     without an override, so a part fitted against the advice never becomes the next one's design."""
-    if not fitted_capacitor.substitute_override:
-        return fitted_capacitor.part
-    earlier = (
+    return design_parts([fitted_capacitor])[fitted_capacitor.id]
+
+
+def design_parts(fitted_capacitors) -> dict[int, CapacitorPart]:
+    """`design_part` of each fitted capacitor, by id, in one query for all those fitted against the advice
+    (none for the rest: their own part is their position's design)."""
+    designs = {fitted.id: fitted.part for fitted in fitted_capacitors}
+    overridden = [fitted for fitted in fitted_capacitors if fitted.substitute_override]
+    if not overridden:
+        return designs
+    advised = (
         FittedCapacitor.objects.filter(
-            motor_id=fitted_capacitor.motor_id,
-            role=fitted_capacitor.role,
+            motor_id__in={fitted.motor_id for fitted in overridden},
+            role__in={fitted.role for fitted in overridden},
             substitute_override=False,
-            fitted_on__lte=fitted_capacitor.fitted_on,
         )
-        .exclude(pk=fitted_capacitor.pk)
         .select_related("part")
         .order_by("-fitted_on", "-id")
-        .first()
     )
-    return earlier.part if earlier is not None else fitted_capacitor.part
+    for fitted in overridden:
+        earlier = next(
+            (
+                other
+                for other in advised
+                if other.motor_id == fitted.motor_id
+                and other.role == fitted.role
+                and other.fitted_on <= fitted.fitted_on
+                and other.pk != fitted.pk
+            ),
+            None,
+        )
+        designs[fitted.id] = earlier.part if earlier is not None else fitted.part
+    return designs
 
 
 def position_of(fitted_capacitor: FittedCapacitor) -> Position:
@@ -112,7 +130,7 @@ def position_of(fitted_capacitor: FittedCapacitor) -> Position:
 
 def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
     """The positions of fitted capacitors, in their order: one frame and one circuit computation for all
-    (a few queries, whatever their number), the design part looked up for those fitted against the advice."""
+    (a few queries, whatever their number), the design parts of those fitted against the advice in one more."""
     if not fitted_capacitors:
         return []
     inst = fitted_capacitors_frame([fitted_capacitor.id for fitted_capacitor in fitted_capacitors])
@@ -121,10 +139,11 @@ def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
     load_kind = np.asarray(load.kind)
     row_of = {int(fitted_capacitor_id): k for k, fitted_capacitor_id in enumerate(inst["fitted_capacitor_id"])}
     positions = []
+    designs = design_parts(fitted_capacitors)
     for fitted_capacitor in fitted_capacitors:
         k = row_of[fitted_capacitor.id]
         row = inst.iloc[k]
-        part = design_part(fitted_capacitor)
+        part = designs[fitted_capacitor.id]
         has_circuit = bool(with_circuit[k])
         j = int(in_circuits[k])
         one = slice(j, j + 1)

@@ -44,7 +44,7 @@ from fleet.services.readings import (
 )
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
-from fleet.services.substitutes import design_part, substitutes_for
+from fleet.services.substitutes import design_part, design_parts, substitutes_for
 from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
@@ -288,7 +288,12 @@ def _qr_svg(request, motor: Motor) -> str:
 def labels(request, site):
     tag = page_values(LabelsPage, request).get("tag")
     page = list_page(request, Paginator(pages.label_motors(site, tag), LABELS_PAGE_SIZE).get_page)
-    labels_ = [{"motor": m, "qr": _qr_svg(request, m)} for m in page.object_list]
+    # A part fitted against the advice is a stop-gap: the label names the position's design part, the one to bring.
+    designs = design_parts([c for m in page.object_list for c in m.in_service])
+    labels_ = [
+        {"motor": m, "qr": _qr_svg(request, m), "parts": [(c, designs[c.id]) for c in m.in_service]}
+        for m in page.object_list
+    ]
     return render(request, "fleet/labels.html", {"site": site, "labels": labels_, "page": page, "tag": tag})
 
 
