@@ -139,6 +139,8 @@ class AssessmentSerializer(serializers.ModelSerializer):
     part_code = serializers.CharField(source="fitted_capacitor.part.code")
     rated_uf = serializers.FloatField(source="fitted_capacitor.part.rated_uf")
     fitted_capacitor_id = serializers.IntegerField()
+    fitted_against_advice = serializers.BooleanField(source="fitted_capacitor.substitute_override")
+    override_reason = serializers.CharField(source="fitted_capacitor.override_reason")
 
     class Meta:
         model = Assessment
@@ -149,6 +151,8 @@ class AssessmentSerializer(serializers.ModelSerializer):
             "role",
             "part_code",
             "rated_uf",
+            "fitted_against_advice",
+            "override_reason",
             "risk",
             "replace_by",
             "reason",

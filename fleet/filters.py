@@ -104,17 +104,26 @@ class DayFilter(django_filters.DateFilter):
 
 
 class AssessmentFilter(django_filters.FilterSet):
-    """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31"""
+    """GET /api/assessments/?site=CST&risk=due+soon&replace_by_before=2027-03-31&fitted_against_advice=true"""
 
     site = _site_filter("site")  # the stored site (triggers, 0019)
     risk = django_filters.ChoiceFilter(
         field_name="risk", choices=Assessment.Risk.choices, error_messages={"invalid_choice": UNKNOWN_RISK_WORDS}
     )
     replace_by_before = DayFilter(field_name="replace_by", lookup_expr="lte")
+    fitted_against_advice = django_filters.ChoiceFilter(
+        choices=[("true", "true"), ("false", "false")],
+        method="against_advice",
+        error_messages={"invalid_choice": "%(value)s is not true or false"},
+    )
 
     class Meta:
         model = Assessment
-        fields = ["site", "risk", "replace_by_before"]
+        fields = ["site", "risk", "replace_by_before", "fitted_against_advice"]
+
+    def against_advice(self, queryset, name, value):
+        """A capacitor fitted with a ticked override (`FittedCapacitor.substitute_override`), or not."""
+        return queryset.filter(fitted_capacitor__substitute_override=value == "true")
 
 
 class DaySpanForm(forms.Form):

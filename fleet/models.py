@@ -506,6 +506,12 @@ class FittedCapacitor(models.Model):
             models.Index(
                 fields=["part", "role", "id"], condition=Q(removed_on__isnull=True), name="in_service_by_part"
             ),
+            # The engineer's list of parts fitted against the advice and still in service: a few, newest first.
+            models.Index(
+                fields=["-fitted_on", "-id"],
+                condition=Q(removed_on__isnull=True, substitute_override=True),
+                name="in_service_against_advice",
+            ),
         ]
 
     CONSTRAINT_FIELDS = {"removed_after_fitted": "removed_on", "removal_reason_with_removal": "removal_reason"}

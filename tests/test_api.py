@@ -150,3 +150,43 @@ def test_every_api_address_answers_json_even_one_that_names_nothing(engineer, ad
     assert response["Content-Type"] == "application/json"
     body = response.json()
     assert body["detail"] == f"No API address {address}." and "/api/assessments/" in body["addresses"]
+
+
+def test_a_capacitor_fitted_against_the_advice_is_marked_in_the_api_and_listed_for_the_engineer(
+    engineer, fan_fitted_capacitor, client
+):
+    """A fresh-eyes walk: a stop-gap fitted with a ticked override showed its reason on its own page only; the
+    plan, the dashboard and the API said nothing, so the engineer could not find the positions to put right.
+    The API marks it (and filters on it), and the stand-in parts page lists every one in service."""
+    from fleet.services.readings import replace_capacitor
+    from tests.factories import make_part
+
+    quarterly_readings(fan_fitted_capacitor, dt.datetime(2024, 1, 8, 9, tzinfo=dt.UTC), [4.0, 3.98, 3.96])
+    other = make_fitted_capacitor()
+    stopgap = make_part(code="RUN-3-450", rated_uf=3.0, rated_voltage_v=450)
+    fitted = replace_capacitor(
+        fitted_capacitor=other,
+        part=stopgap,
+        removed_on=timezone.localdate(),
+        reason="failed",
+        substitute_override=True,
+        override_reason="the only film part on the shelf",
+    )
+    quarterly_readings(fitted, timezone.now() - dt.timedelta(days=2), [3.0])
+    refit_fitted_capacitors([fan_fitted_capacitor.id, fitted.id], force=True)
+    api = client_for(engineer)
+    rows = {row["fitted_capacitor_id"]: row for row in api.get(reverse("api_assessments")).json()["results"]}
+    assert rows[fitted.id]["fitted_against_advice"] is True
+    assert rows[fitted.id]["override_reason"] == "the only film part on the shelf"
+    assert rows[fan_fitted_capacitor.id]["fitted_against_advice"] is False
+    only = api.get(reverse("api_assessments"), {"fitted_against_advice": "true"}).json()["results"]
+    assert [row["fitted_capacitor_id"] for row in only] == [fitted.id]
+    refused = api.get(reverse("api_assessments"), {"fitted_against_advice": "perhaps"})
+    assert refused.status_code == 400 and "perhaps is not true or false" in refused.json()["fitted_against_advice"][0]
+
+    client.force_login(engineer)
+    page = client.get(reverse("stand_in_parts")).content.decode()
+    listed = page[page.index('id="against-advice"') :]
+    assert "RUN-3-450" in listed and "the only film part on the shelf" in listed
+    assert other.part.code in listed  # the design part, the one to bring
+    assert fan_fitted_capacitor.motor.asset_tag not in listed

@@ -32,7 +32,7 @@ from fleet.services import pages
 from fleet.services.bulk import storable_ids
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
-from fleet.services.substitutes import part_families
+from fleet.services.substitutes import fitted_against_advice, part_families
 from fleet.services.track_record import year_flags_record
 from fleet.services.workorders import (
     CANCELLED_SHOWN_DAYS,
@@ -331,7 +331,11 @@ def work_order_cancel(request, order_id):
 def stand_in_parts(request):
     """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
     margin_pct = round((SubstituteRules().voltage_margin - 1) * 100)
-    context = {"families": part_families(request.user), "voltage_margin_pct": margin_pct}
+    context = {
+        "families": part_families(request.user),
+        "voltage_margin_pct": margin_pct,
+        "against_advice": fitted_against_advice(request.user),
+    }
     return render(request, "fleet/stand_in_parts.html", context)
 
 
