@@ -142,7 +142,7 @@ ROUTE_ORDER_ERROR = (
 READ_AGAIN_LINE = (
     '<br><span class="read-again">read again: work order {order_id} for the {capacitor}, visit {due_on}</span>'
 )
-READ_AGAIN_FORM = ' <a class="nowrap" href="{}">Record the reading</a>'
+READ_AGAIN_FORM = ' <a class="nowrap glove field-work" href="{}">Record the reading</a>'
 HAS_ERROR = mark_safe(' class="has-error"')
 OVERDUE = mark_safe('<b class="error-text">overdue</b>')
 TO_READ = mark_safe("<b>to read</b>")

@@ -227,7 +227,9 @@ def test_the_dashboard_switch_is_glove_sized_and_switches(phone):
 
 
 def test_the_visit_sheet_links_its_motors_and_parts_and_keeps_tick_boxes_for_paper(browser, live_server, demo_fleet):
-    """On screen each row's "Done" box looked tappable and did nothing, and the motor tags were plain text."""
+    """On screen each row's "Done" box looked tappable and did nothing, and the motor tags were plain text. A
+    fresh-eyes walk: a replacement order's only way in was its part code, explained in the footer, and from 768 px
+    up (a tablet showing the sheet as a table) "Record the reading" and the like were 21 px lines of text."""
     order = (
         WorkOrder.objects.filter(state__in=[WorkOrder.State.PLANNED, WorkOrder.State.ISSUED])
         .select_related("motor", "fitted_capacitor")
@@ -235,20 +237,27 @@ def test_the_visit_sheet_links_its_motors_and_parts_and_keeps_tick_boxes_for_pap
     )
     sheet = f"/work-orders/{order.motor.site.code}/{order.due_on.isoformat()}/"
     replace = f"main td a[href^='/fitted-capacitors/{order.fitted_capacitor_id}/replace/?next=/work-orders/']"
+    record = "main td a.record-replacement"
+    field_work = """() => [...document.querySelectorAll("main a.field-work")].filter((a) => a.getClientRects().length)
+      .map((a) => a.getBoundingClientRect().height)"""
     boxes = """() => [...document.querySelectorAll("main td, main th")]
       .filter((c) => c.textContent.includes("\u2610") && c.getClientRects().length).length"""
     context, page = demo_page(browser, live_server, "planner")  # who cannot record a replacement: no part link
     _load(page, sheet)
     assert page.locator(f"main td a[href='/motors/{order.motor.asset_tag}/']").count() == 1
-    assert page.locator(replace).count() == 0
+    assert page.locator(replace).count() == 0 and page.locator(record).count() == 0
     context.close()
     context, page = demo_page(browser, live_server, "technician")
     _load(page, sheet)
-    for width in (390, 1366):
+    for width in (390, 768, 1366):
         page.set_viewport_size({"width": width, "height": 900})
         assert page.evaluate(boxes) == 0, width
         assert page.locator(f"main td a[href='/motors/{order.motor.asset_tag}/']").count() == 1
-        assert page.locator(replace).count() == 1
+        assert page.locator(replace + ".part-code").count() == 1
+        if not order.reads_again:
+            assert page.locator(replace + ".record-replacement").count() == 1
+        heights = page.evaluate(field_work)
+        assert heights and min(heights) >= GLOVE_PX, (width, heights)
         page.screenshot(path=str(ARTIFACTS / f"visit-sheet-screen-{width}.png"), full_page=True)
     page.emulate_media(media="print")
     rows = page.locator("main table.visit-orders tbody tr").count()  # the orders, not the spares
