@@ -12,8 +12,9 @@ from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, AuditEntry, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, Reading, SiteStock, WorkOrder
 from fleet.services.workorders import (
+    after_reading_again_words,
     cancel_order,
     move_visit,
     open_visit,
@@ -293,7 +294,41 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     data = {"method": "meter", "capacitance_uf": "3.95", "case_temperature_c": "25", "condition": "sound"}
     saved = client.post(reverse("reading_new", args=[suspect.id]), data, follow=True).content.decode()
     assert "; its read-again work order is done." in saved, saved[:2000]
+    # Not judged yet (the refit runs once the reading is committed, on workers maybe later): said so.
+    assert "The refit is judging the reading: a replacement it calls for joins the visit" in saved
     assert WorkOrder.objects.get(fitted_capacitor=suspect).state == WorkOrder.State.DONE
+
+
+def test_the_message_after_a_read_again_reading_names_the_replacement_it_calls_for(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """A fresh-eyes walk: 128.5 µF read for a read-again order, below the limit, said only "its read-again work
+    order is done"; the replacement order the refit had just added to the visit showed as one more row. The
+    message names it; a reading above the limit says no replacement is due. A 4 µF +/-5 % run capacitor's limit
+    is 3.80 µF [IEC 60252-1 tolerance class; common practice of the trade]."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    site = make_site(code="RDA")
+    low, fine = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2))
+    for capacitor in (low, fine):
+        WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="read_again", due_on=day)
+    client.force_login(technician)
+    visit = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    said = {}
+    for capacitor, value in ((low, "3.60"), (fine, "3.99")):
+        data = {"method": "meter", "capacitance_uf": value, "case_temperature_c": "25", "condition": "sound"}
+        # The test's transaction holds the refit back until the view has answered; outside a test the reading's
+        # own transaction commits first, and an in-process refit has run when the message is written.
+        with django_capture_on_commit_callbacks(execute=True):
+            client.post(f"{reverse('reading_new', args=[capacitor.id])}?next={visit}", data)
+        said[capacitor.id] = after_reading_again_words(Reading.objects.filter(fitted_capacitor=capacitor).get())
+    replacement = WorkOrder.objects.get(fitted_capacitor=low, kind="replace_run", state="planned")
+    assert replacement.due_on == day  # in the same visit
+    assert said[low.id] == (
+        f" The reading calls for a replacement: work order {replacement.id} to replace it is on the visit of "
+        f"{day:%Y-%m-%d}. Record the replacement."
+    )
+    assert said[fine.id] == " The refit judged the reading: no replacement is due within the visit."
+    assert not WorkOrder.objects.filter(fitted_capacitor=fine, state="planned").exists()
 
 
 def test_page_titles_are_plain_text(client, planner):

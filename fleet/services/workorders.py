@@ -761,6 +761,30 @@ def remove_day_off(*, site_id: int, day_off_id: int) -> SiteDayOff | None:
     return day_off
 
 
+def after_reading_again_words(reading) -> str:
+    """What became of a capacitor's visit once the reading for its "read again" order is saved, for the form's
+    message: the replacement order the refit added to the visit (`replace_after_reading_again`), none needed,
+    or the refit still to judge it (on separate workers it may not have run yet)."""
+    replacement = (
+        WorkOrder.objects.filter(
+            fitted_capacitor_id=reading.fitted_capacitor_id, kind__in=list(KIND_FOR_ROLE.values()), state__in=OPEN
+        )
+        .order_by("due_on")
+        .first()
+    )
+    if replacement is not None:
+        return (
+            f" The reading calls for a replacement: work order {replacement.id} to replace it is on the visit of "
+            f"{replacement.due_on:%Y-%m-%d}. Record the replacement."
+        )
+    judged = Assessment.objects.filter(
+        fitted_capacitor_id=reading.fitted_capacitor_id, is_current=True, newest_reading_id__gte=reading.id
+    ).exists()
+    if judged:
+        return " The refit judged the reading: no replacement is due within the visit."
+    return " The refit is judging the reading: a replacement it calls for joins the visit (reload the visit sheet)."
+
+
 def replace_after_reading_again(assessments, now: dt.datetime) -> int:
     """A capacitor read for its "read again" order whose new assessment still asks for a replacement within
     that order's visit (above its limit, but its trend crosses it now; or read below it) gets a planned

@@ -45,6 +45,7 @@ from fleet.services.readings import (
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, design_parts, substitutes_for
+from fleet.services.workorders import after_reading_again_words
 from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
@@ -94,6 +95,7 @@ def reading_new(request, fitted_capacitor_id):
                     f"({fitted_capacitor.get_role_display().lower()} capacitor)"
                     + (
                         f"; its read-again work order{pluralize(closed)} {pluralize(closed, 'is,are')} done."
+                        + after_reading_again_words(reading)
                         if closed
                         else "."
                     ),
