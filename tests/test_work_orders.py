@@ -790,3 +790,17 @@ def test_a_planner_issues_a_visit_from_its_sheet_and_stays_on_it(client, planner
     assert response.status_code == 302 and response["Location"] == visit
     assert set(WorkOrder.objects.filter(site=site).values_list("state", flat=True)) == {"issued"}
     assert "Issue this visit" not in client.get(visit).content.decode()
+
+
+def test_a_day_off_added_on_a_visit_links_to_that_visit(client, planner):
+    """A fresh-eyes walk: "A visit is on that day already: move it from its visit page" named no page to go to."""
+    day = timezone.localdate() + dt.timedelta(days=10)
+    site = make_site(code="DOV")
+    capacitor = make_fitted_capacitor(motor=make_motor(site=site))
+    WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=day)
+    client.force_login(planner)
+    url = reverse("site_days_off", args=[site.code])
+    page = client.post(url, {"day": day.isoformat(), "name": "shutdown"}, follow=True).content.decode()
+    visit = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    assert "A visit is on that day already (1 open work order): move it from" in page
+    assert f'<a class="glove" href="{visit}">its visit page</a>' in page

@@ -10,7 +10,9 @@ from django.core.paginator import Paginator
 from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.template.defaultfilters import pluralize
+from django.urls import reverse
 from django.utils import timezone
+from django.utils.html import format_html
 
 from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
@@ -286,8 +288,14 @@ def site_days_off_page(request, site):
                     n = found["orders"]
                     messages.warning(
                         request,
-                        f"{words} A visit is on that day already ({n} open work order{pluralize(n)}): "
-                        "move it from its visit page.",
+                        format_html(
+                            '{} A visit is on that day already ({} open work order{}): move it from <a class="glove" '
+                            'href="{}">its visit page</a>.',
+                            words,
+                            n,
+                            pluralize(n),
+                            reverse("visit_sheet", args=[site.code, day.isoformat()]),
+                        ),
                     )
                 else:
                     messages.success(request, words)
