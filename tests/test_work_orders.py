@@ -804,3 +804,40 @@ def test_a_day_off_added_on_a_visit_links_to_that_visit(client, planner):
     visit = reverse("visit_sheet", args=[site.code, day.isoformat()])
     assert "A visit is on that day already (1 open work order): move it from" in page
     assert f'<a class="glove" href="{visit}">its visit page</a>' in page
+
+
+def test_a_done_replacement_on_the_visit_names_the_part_that_went_in(client, technician):
+    """A fresh-eyes walk: the visit's done list read "START-143U-330 Replace start capacitor ... Done" where a
+    98 µF stop-gap had been fitted against the advice; nothing said what went in."""
+    from fleet.services.readings import replace_capacitor
+
+    day = timezone.localdate() + dt.timedelta(days=3)
+    site = make_site(code="DNP")
+    design = make_part(code="RUN-8-450", rated_uf=8.0)
+    stopgap = make_part(code="RUN-6-450", rated_uf=6.0)
+    worn, other = (
+        make_fitted_capacitor(motor=make_motor(site=site, route_order=n), part=design, fitted_on=dt.date(2022, 1, 1))
+        for n in (1, 2)
+    )
+    orders = [
+        WorkOrder.objects.create(motor=c.motor, fitted_capacitor=c, kind="replace_run", due_on=day)
+        for c in (worn, other)
+    ]
+    replace_capacitor(
+        fitted_capacitor=worn,
+        part=stopgap,
+        removed_on=timezone.localdate(),
+        reason="failed",
+        user=technician,
+        substitute_override=True,
+        override_reason="none of the design part on site",
+    )
+    assert WorkOrder.objects.get(pk=orders[0].pk).state == WorkOrder.State.DONE
+    client.force_login(technician)
+    text = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
+    done = text[text.index(f'id="order-{orders[0].id}"') :].split("</tr>")[0]
+    assert "RUN-6-450 fitted, a stop-gap against the advice; done, closed by" in done
+    replace_capacitor(fitted_capacitor=other, part=design, removed_on=timezone.localdate(), reason="planned")
+    text = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
+    done = text[text.index(f'id="order-{orders[1].id}"') :].split("</tr>")[0]
+    assert "RUN-8-450 fitted; done, closed by the system" in done

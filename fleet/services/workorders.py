@@ -340,10 +340,42 @@ def closed_visit(site_id: int, day: dt.date, user=None) -> dict:
         .order_by(*WALKING_ORDER)
     )
     listed = list(orders[: CLOSED_VISIT_SHOWN + 1])
+    fitted = _fitted_by_replacements(listed)
     for order in listed:
         order.closed_words = closed_words(order)
+        successor = fitted.get(order.id)
+        if successor is not None:  # the part that went in, which may not be the one the order named
+            stop_gap = ", a stop-gap against the advice" if successor.substitute_override else ""
+            order.closed_words = f"{successor.part.code} fitted{stop_gap}; {order.closed_words}"
     count = len(listed) if len(listed) <= CLOSED_VISIT_SHOWN else orders.count()
     return {"day": day, "orders": listed[:CLOSED_VISIT_SHOWN], "count": count}
+
+
+def _fitted_by_replacements(orders) -> dict[int, FittedCapacitor]:
+    """For each done replacement order, the capacitor fitted in its place when the one it named was removed (its
+    motor and role, fitted on the removal day): one query for the lot."""
+    done = [
+        order
+        for order in orders
+        if order.state == WorkOrder.State.DONE
+        and order.kind in KIND_FOR_ROLE.values()
+        and order.fitted_capacitor is not None
+        and order.fitted_capacitor.removed_on is not None
+    ]
+    if not done:
+        return {}
+    fitted = FittedCapacitor.objects.filter(
+        motor_id__in={order.fitted_capacitor.motor_id for order in done},
+        fitted_on__in={order.fitted_capacitor.removed_on for order in done},
+    ).select_related("part")
+    by_position = {(f.motor_id, f.role, f.fitted_on): f for f in fitted}
+    found = {}
+    for order in done:
+        removed = order.fitted_capacitor
+        successor = by_position.get((removed.motor_id, removed.role, removed.removed_on))
+        if successor is not None and successor.pk != removed.pk:
+            found[order.id] = successor
+    return found
 
 
 def visit_moved_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool = False) -> VisitMove | None:
