@@ -60,6 +60,7 @@ class Column:
     unit: str = ""
     description: str = ""
     source: str = ""  # where a table's query reads it (a values_list path); not written to the file
+    decimals: int | None = None  # a computed figure written to this many decimal places (None: as stored)
 
 
 @dataclass
@@ -81,7 +82,9 @@ class Table:
             "title": self.title,
             **self.about,
             "columns": [
-                {"name": c.name, "type": c.kind, "unit": c.unit, "description": c.description} for c in self.columns
+                {"name": c.name, "type": c.kind, "unit": c.unit, "description": c.description}
+                | ({"decimals": c.decimals} if c.decimals is not None else {})
+                for c in self.columns
             ],
             "csv_text_rule": "text beginning with = + - @ or ' carries one extra leading ' in the CSV only",
         }

@@ -251,6 +251,9 @@ def test_every_export_holds_the_users_sites_only(client, awkward_fleet, kind, fi
             # Every table carries the key that joins it to the others (the plan had none).
             ids = {str(fitted.id) for fitted in FittedCapacitor.objects.filter(motor__site__code="NORD")}
             assert {str(row["fitted_capacitor_id"]).removesuffix(".0") for row in rows} <= ids
+            # A fresh-eyes walk: the trend value came out as 131.38147444019103 µF; to 0.001 µF it is read.
+            trend = [str(row["capacitance_now_uf"]) for row in rows if "capacitance_now_uf" in row]
+            assert all(len(text.split(".")[-1]) <= 3 for text in trend if "." in text), trend
 
 
 def test_a_user_without_the_permission_gets_403(client, awkward_fleet):
@@ -389,7 +392,7 @@ def test_xlsx_keeps_every_value_kind_and_opens_in_both_reading_modes():
     "kind, takes",
     [
         ("readings", "motor, part, since, site, until"),
-        ("assessments", "replace_by_before, risk, site"),
+        ("assessments", "fitted_against_advice, replace_by_before, risk, site"),
         ("life-data", "part, site"),
         ("plan", "days, site"),
     ],

@@ -89,8 +89,15 @@ READING_COLUMNS = [
 
 
 def _rows(queryset, columns):
-    """The columns' values, one list per row, fetched CHUNK rows at a time by one query."""
-    return (list(row) for row in queryset.values_list(*(c.source for c in columns)).iterator(chunk_size=CHUNK))
+    """The columns' values, one list per row, fetched CHUNK rows at a time by one query; a column with
+    `decimals` rounded to them."""
+    rounded = [(k, c.decimals) for k, c in enumerate(columns) if c.decimals is not None]
+    for values in queryset.values_list(*(c.source for c in columns)).iterator(chunk_size=CHUNK):
+        row = list(values)
+        for k, decimals in rounded:
+            if row[k] is not None:
+                row[k] = round(row[k], decimals)
+        yield row
 
 
 def readings_table(query, user, request=None) -> Table:
@@ -116,8 +123,11 @@ JUDGED = {  # an assessment's judgement, by the names the assessment export give
             "capacitance_now_uf",
             FLOAT,
             "uF",
-            "Trend value at the newest reading (the reading itself where the trend is set aside), at 25 C",
+            "Trend value at the newest reading (the reading itself where the trend is set aside), at 25 C; "
+            "latest_verdict judges the newest reading itself, so a reading below the limit can stand beside a "
+            "trend value just above it",
             source="capacitance_now_uf",
+            decimals=3,
         ),
         Column("latest_verdict", description="Latest reading against the marked tolerance", source="latest_verdict"),
         Column("governing_limit", description="The limit met first", source="limit_source"),
