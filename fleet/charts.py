@@ -89,7 +89,8 @@ def trend_figure(readings: list[dict], path: dict, limit_uf: float, limit_label:
         y=rated_uf,
         line={"color": "#6b7280", "dash": "dot", "width": 1},
         annotation_text="rated",
-        annotation_position="top left",
+        # At the right: a capacitor's first readings sit at its rating on the left, under a label put there.
+        annotation_position="top right",
     )
     band_uf = path["low_uf"] + path["high_uf"]
     shown_uf = [r["capacitance_uf"] for r in kept]
