@@ -222,6 +222,11 @@ SUPERSEDES_WORDS = 'The id of the reading this one corrects: a whole number from
 
 
 class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
+    # A body that is not one JSON object (a list, a number): said in the API's words, not the framework's.
+    default_error_messages = {
+        "invalid": 'Send one reading as a JSON object of fields, e.g. {{"method": "meter", "capacitance_uf": 4.0}}; '
+        "this body is a JSON {datatype}."
+    }
     taken_at = SiteTime(required=False, allow_null=True)  # null is left out: now
     confirmed = serializers.BooleanField(
         write_only=True,

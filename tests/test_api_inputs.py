@@ -202,3 +202,14 @@ def test_a_second_reading_at_the_time_of_one_stored_is_refused_at_taken_at_by_th
     assert correction.status_code == 201
     another_time = api.post(readings_url(fan_fitted_capacitor), {**body, "taken_at": "2026-03-14T09:31"}, format="json")
     assert another_time.status_code == 201 and Reading.objects.count() == 3
+
+
+@pytest.mark.parametrize(("body", "kind"), [([{"method": "meter", "capacitance_uf": 3.9}], "list"), (3.9, "float")])
+def test_a_body_that_is_not_one_json_object_is_named_so(technician, fan_fitted_capacitor, body, kind):
+    """A fresh-eyes walk: a JSON array answered the framework's "Invalid data. Expected a dictionary, but got list."
+    The API says what to send in its own words; nothing is saved."""
+    response = client_for(technician).post(readings_url(fan_fitted_capacitor), body, format="json")
+    assert response.status_code == 400
+    words = response.json()["non_field_errors"][0]
+    assert words.startswith("Send one reading as a JSON object of fields") and words.endswith(f"a JSON {kind}.")
+    assert not Reading.objects.exists()
