@@ -255,7 +255,13 @@ class ImportUploadForm(forms.Form):
         initial="readings",
         label="What the file holds",
     )
-    file = forms.FileField(label="CSV or XLSX file")
+    file = forms.FileField(
+        label="CSV or XLSX file",
+        error_messages={
+            "required": "Choose the file to import: a CSV or XLSX file with one row of headings.",
+            "empty": "This file is empty: choose one with a row of headings and the rows under it.",
+        },
+    )
 
     def __init__(self, *args, kinds=None, **kwargs):
         """`kinds`: the kinds of file this user may import (all when not given)."""

@@ -309,6 +309,11 @@ def test_the_import_page_names_the_columns_it_does_not_read(client, technician, 
     with django_capture_on_commit_callbacks(execute=True):
         client.post(reverse("imports"), {"kind": "readings", "file": upload})
     job = ImportJob.objects.get()
+    # Read, the heading is proposed for the field it nearly spells, and the page says it is a guess (a walk found
+    # it chosen with no word).
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    guess = page[page.index('id="import-spelt-near"') :].split("</p>")[0]
+    assert "column <code>case_temprature_c</code> for field <code>case_temperature_c</code>" in guess
     with django_capture_on_commit_callbacks(execute=True):
         mapping = {name: name for name in HEADER if name in header}  # as the form suggests them
         client.post(reverse("import_detail", args=[job.id]), {"action": "check", **mapping})
@@ -786,3 +791,14 @@ def test_an_old_jobs_uploaded_file_is_deleted_and_its_report_kept(client, techni
     ImportJob.objects.filter(id=recent.id).update(updated_at=timezone.now() - dt.timedelta(days=3650))
     create_job(kind="sites", filename="s2.csv", content=b"code,name,time_zone\nBB,B,UTC\n", user=technician)
     assert ImportJob.objects.get(id=recent.id).file_deleted_at is None
+
+
+def test_an_upload_without_a_file_or_with_an_empty_one_says_what_to_choose(client, technician):
+    """A fresh-eyes walk: "Import" pressed with no file chosen said only "This field is required."."""
+    client.force_login(technician)
+    page = client.post(reverse("imports"), {"kind": "readings"}).content.decode()
+    assert "Choose the file to import: a CSV or XLSX file with one row of headings." in page
+    empty = io.BytesIO(b"")
+    empty.name = "empty.csv"
+    page = client.post(reverse("imports"), {"kind": "readings", "file": empty}).content.decode()
+    assert "This file is empty" in page and not ImportJob.objects.exists()
