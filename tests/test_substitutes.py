@@ -82,6 +82,9 @@ def test_a_suitable_part_needs_no_override_and_the_screen_lists_it_first_with_th
     body = client.get(reverse("replace", args=[fan_fitted_capacitor.id])).content.decode()
     assert body.index("FILM-4U0-B") < body.index("FILM-4U2") < body.index("FILM-4U0-400V") < body.index("FILM-2U0")
     assert "3 on site" in body and "main 0.91 A" in body
+    # A part with none on site says so before it is chosen (a walk learnt it only from the message after saving).
+    unsuitable = body[body.index("FILM-4U0-400V") :].split("</label>")[0]
+    assert "none on site" in unsuitable
     assert "Caution: capacitors store a charge that can kill" in body
     assert "FILM-2U0 + FILM-2U0" in body and "each must carry the full voltage rating" in body
     assert post_replacement(client, fan_fitted_capacitor, same).status_code == 302
