@@ -841,3 +841,21 @@ def test_a_done_replacement_on_the_visit_names_the_part_that_went_in(client, tec
     text = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
     done = text[text.index(f'id="order-{orders[1].id}"') :].split("</tr>")[0]
     assert "RUN-8-450 fitted; done, closed by the system" in done
+
+
+def test_a_visit_moved_onto_another_visits_day_says_the_two_became_one(client, planner):
+    """A fresh-eyes walk: a visit of 2 orders moved onto a day that held a visit of 4 said "Visit moved ...: 2 work
+    orders", and the page then held 6 with no word of a merge."""
+    site = make_site(code="MRG")
+    part = make_part(code="RUN-9U-450")
+    first = timezone.localdate() + dt.timedelta(days=7)
+    while first.weekday() >= 5:
+        first += dt.timedelta(days=1)
+    second = first + dt.timedelta(days=7)
+    _orders(site, part, first, 4)
+    _orders(site, part, second, 2)
+    client.force_login(planner)
+    url = reverse("visit_sheet", args=[site.code, second.isoformat()])
+    body = client.post(url, {"to_day": first.isoformat()}, follow=True).content.decode()
+    assert "2 work orders. It joined the visit already on that day: 6 work orders in one." in body
+    assert WorkOrder.objects.filter(site=site, due_on=first).count() == 6

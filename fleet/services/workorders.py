@@ -275,6 +275,7 @@ class VisitMove:
     already: bool = False
     by: str = ""
     at: str = ""
+    joined: int = 0  # open orders the site had on `to_day` already: the two visits became one
 
 
 def move_visit(
@@ -318,11 +319,12 @@ def move_visit(
                     "new day if it should go elsewhere."
                 }
             )
+        joined = open_orders(user).filter(site_id__in=storable_ids([site_id]), due_on=to_day).count()
         for order in orders:
             order.moved_from = order.moved_from or order.due_on
             order.due_on = to_day
         audited_bulk_update(orders, ["due_on", "moved_from"])
-    return VisitMove(moved=len(orders), to_day=to_day)
+    return VisitMove(moved=len(orders), to_day=to_day, joined=joined)
 
 
 CLOSED_VISIT_SHOWN = 100  # a closed visit's orders listed at most (a visit holds tens)

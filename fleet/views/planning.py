@@ -204,10 +204,15 @@ def visit_sheet(request, site, day):
                         f"{move.by} on {move.at}: nothing moved again.",
                     )
                 else:
+                    joined = (
+                        f" It joined the visit already on that day: {move.moved + move.joined} work orders in one."
+                        if move.joined
+                        else ""
+                    )
                     messages.success(
                         request,
                         f"Visit moved from {day:%a %Y-%m-%d} to {to_day:%a %Y-%m-%d}: "
-                        f"{move.moved} work order{pluralize(move.moved)}. A new plan keeps the move.",
+                        f"{move.moved} work order{pluralize(move.moved)}.{joined} A new plan keeps the move.",
                     )
                 return redirect("visit_sheet", site_code=site.code, day=to_day.isoformat())
     visit = open_visit(site.id, day, user=request.user)
