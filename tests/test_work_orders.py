@@ -290,6 +290,11 @@ def test_a_read_again_order_opens_the_reading_form(client, planner, technician):
     assert f'href="{reverse("reading_new", args=[suspect.id])}{back}">{suspect.part.code}</a>' in listed
     # and a replacement order's part opens the replacement form, as on the sheet (it was plain text here).
     assert f'href="{reverse("replace", args=[worn.id])}{back}">{worn.part.code}</a>' in listed
+    # The form names the order it answers (a walk found no word of it there).
+    read_order = WorkOrder.objects.get(fitted_capacitor=suspect)
+    form = client.get(reverse("reading_new", args=[suspect.id])).content.decode()
+    assert f"Asked by work order {read_order.id} (read again, visit of {day:%Y-%m-%d})." in re.sub(r"<[^>]+>", "", form)
+    assert 'id="read-again-order"' not in client.get(reverse("reading_new", args=[worn.id])).content.decode()
     # The reading closes the order, and its message says so (it said only "Reading saved").
     data = {"method": "meter", "capacitance_uf": "3.95", "case_temperature_c": "25", "condition": "sound"}
     saved = client.post(reverse("reading_new", args=[suspect.id]), data, follow=True).content.decode()

@@ -795,6 +795,17 @@ def remove_day_off(*, site_id: int, day_off_id: int) -> SiteDayOff | None:
     return day_off
 
 
+def open_read_again_order(fitted_capacitor_id: int) -> WorkOrder | None:
+    """The capacitor's open "read again" order (the soonest), which a reading answers: the reading form names it."""
+    return (
+        WorkOrder.objects.filter(
+            fitted_capacitor_id=fitted_capacitor_id, kind=WorkOrder.Kind.READ_AGAIN, state__in=OPEN
+        )
+        .order_by("due_on", "id")
+        .first()
+    )
+
+
 def after_reading_again_words(reading) -> str:
     """What became of a capacitor's visit once the reading for its "read again" order is saved, for the form's
     message: the replacement order the refit added to the visit (`replace_after_reading_again`), none needed,

@@ -45,7 +45,7 @@ from fleet.services.readings import (
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, design_parts, substitutes_for
-from fleet.services.workorders import after_reading_again_words
+from fleet.services.workorders import after_reading_again_words, open_read_again_order
 from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
 
 
@@ -132,6 +132,7 @@ def reading_new(request, fitted_capacitor_id):
         "correction_problem": correction_problem,
         "correct_instead": correct_instead,
         "assessment": assessment,
+        "read_again": None if fitted_capacitor.removed_on else open_read_again_order(fitted_capacitor.id),
         "recent": pages.recent_readings(fitted_capacitor),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
         "rules": RULES.as_dict(),
