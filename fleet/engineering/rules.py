@@ -227,6 +227,9 @@ def microfarad_text(value) -> str:
     return f"{value:.2f}" if value == 0 or not np.isfinite(value) or abs(value) >= 0.005 else plain_number(value)
 
 
+GENERAL_FORMAT = re.compile(r"\{(\w+):g\}")
+
+
 def _messages(condition, template, plain=(), **columns):
     """A message where `condition` holds, formatted with that row's values ("{d}" of a datetime64[D] is its ISO
     date; the columns named in `plain` as `plain_number`, "{c}"); "" elsewhere. Only those rows are formatted:
@@ -235,6 +238,10 @@ def _messages(condition, template, plain=(), **columns):
     out = np.full(condition.shape, "", dtype=object)
     rows = np.flatnonzero(condition)
     if len(rows):
+        # "{t:g}" writes a number as `plain_number` does too: 1e+20 typed as 100000000000000000000 is said so.
+        general = set(GENERAL_FORMAT.findall(template))
+        template = GENERAL_FORMAT.sub(r"{\1}", template)
+        plain = (*plain, *general)
         arrays = {k: np.atleast_1d(v) for k, v in columns.items()}
         picked = {k: v[rows] if v.size > 1 else np.repeat(v[:1], len(rows)) for k, v in arrays.items()}
         for name in plain:

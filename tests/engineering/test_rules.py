@@ -425,3 +425,13 @@ def test_a_reading_on_the_removal_day_is_never_the_one_after():
     )
     held, _, _ = neighbours_line(same, taken, values, rated, taken_on=taken.astype("datetime64[D]"), removed_on=removed)
     assert np.isnan(held).all()
+
+
+def test_a_huge_number_typed_is_written_back_as_the_browser_writes_it():
+    """A fresh-eyes walk typed 99999999999999999999 °C and was told "1e+20 is above 150 °C": below 1e21 the
+    browser (ECMAScript Number::toString [pub]) writes the digits, and the message now does too; from 1e21 on
+    both take an exponent."""
+    result = check({"capacitance_uf": ["4.0", "4.0"], "case_temperature_c": ["99999999999999999999", "1e25"]})
+    said = result.errors["case_temperature_c"]
+    assert said[0].startswith("100000000000000000000 is above 150 °C")
+    assert said[1].startswith("1e+25 is above 150 °C")
