@@ -432,7 +432,7 @@ def test_a_calibration_from_too_few_capacitors_keeps_the_thin_history_default(cl
     assert backtest.state == "done", backtest.message
     stored = BandCalibration.objects.get(family="film")
     assert stored.capacitors == 12
-    assert (stored.slope_bias, stored.slope_spread, stored.extra_slope_per_h) == (0.0, 0.35, 0.0)
+    assert (stored.slope_bias, stored.slope_spread, stored.extra_slope_per_h) == (0.3, 0.75, 0.0)
     client.force_login(engineer)
     page = client.get(reverse("track_record")).content.decode()
     assert "too little history (12 capacitors with later readings, 20 needed)" in page

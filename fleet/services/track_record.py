@@ -66,6 +66,7 @@ def track_record() -> dict:
         "shown": shown,
         "calibration": _calibration_in_force(settings),
         "default_spread": settings.default_spread,
+        "default_slope_factor": 1.0 + settings.default_bias,
         "min_capacitors": settings.min_capacitors,
         "nominal_coverage": NOMINAL_COVERAGE,
         "flagged_within": {days: _either(levels) for days, levels in FLAGGED_WITHIN.items()},
