@@ -287,13 +287,14 @@ class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
 class AssessmentPages(NumberedPages):
     """100 a page. The total of a list filtered by site and risk level only (or not at all) is summed
     from the ledger of counts kept on write, not counted over every current assessment; a list cut
-    at a replace-by date is counted by the database."""
+    at a replace-by date, or to the capacitors fitted against the advice (or not), is counted by the database."""
 
     def paginate_queryset(self, queryset, request, view=None):
         params = request.query_params  # valid here: the filters answered 400 to a bad value before
+        # The ledger counts by site and risk level only: any other filter is counted by the database.
         self.ledger_total = (
             None
-            if query_value(params, "replace_by_before")
+            if query_value(params, "replace_by_before") or query_value(params, "fitted_against_advice")
             else assessed_total(request.user, query_value(params, "site"), query_value(params, "risk"))
         )
         return super().paginate_queryset(queryset, request, view)

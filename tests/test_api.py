@@ -179,8 +179,12 @@ def test_a_capacitor_fitted_against_the_advice_is_marked_in_the_api_and_listed_f
     assert rows[fitted.id]["fitted_against_advice"] is True
     assert rows[fitted.id]["override_reason"] == "the only film part on the shelf"
     assert rows[fan_fitted_capacitor.id]["fitted_against_advice"] is False
-    only = api.get(reverse("api_assessments"), {"fitted_against_advice": "true"}).json()["results"]
-    assert [row["fitted_capacitor_id"] for row in only] == [fitted.id]
+    only = api.get(reverse("api_assessments"), {"fitted_against_advice": "true"}).json()
+    assert [row["fitted_capacitor_id"] for row in only["results"]] == [fitted.id]
+    # Counted as listed (a second walk: the count was every assessment's, and `next` led to empty pages).
+    assert only["count"] == 1 and only["next"] is None
+    rest = api.get(reverse("api_assessments"), {"fitted_against_advice": "false", "page_size": 1}).json()
+    assert rest["count"] == 1 and rest["next"] is None
     refused = api.get(reverse("api_assessments"), {"fitted_against_advice": "perhaps"})
     assert refused.status_code == 400 and "perhaps is not true or false" in refused.json()["fitted_against_advice"][0]
 

@@ -249,3 +249,32 @@ def test_refits_of_the_same_readings_at_any_hour_of_a_day_date_each_crossing_ali
     early, late = runs
     assert sum(row["p50_on"] is not None for row in early.values()) >= 10  # dates to compare
     assert {(k, f) for k in early for f in dated if early[k][f] != late[k][f]} == set()
+
+
+def test_the_part_priors_sample_a_fixed_number_of_capacitors_with_readings_a_part(settings):
+    # [derived] A population of paths is statistics: past FLEET_PRIOR_MAX_CAPACITORS_PER_PART capacitors of a part,
+    # a fixed random sample of those with readings is fitted; a part with fewer gives all of its own. The sample
+    # is found without joining every capacitor to every reading, batch by batch in one fixed shuffle.
+    from fleet.services.assessments import _prior_sample
+    from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
+
+    settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART = 3
+    big, small = make_part(code="BIG-4U"), make_part(code="SMALL-4U")
+    read_big = []
+    for k in range(10):
+        fitted = make_fitted_capacitor(part=big)
+        if k % 3:  # a third of them never read
+            quarterly_readings(fitted, NOW - dt.timedelta(days=400), [4.0, 3.99])
+            read_big.append(fitted.id)
+    read_small = []
+    for k in range(3):
+        fitted = make_fitted_capacitor(part=small)
+        if k:
+            quarterly_readings(fitted, NOW - dt.timedelta(days=400), [4.0])
+            read_small.append(fitted.id)
+    sample = _prior_sample(None, 3)
+    assert sample == sorted(sample) and sample == _prior_sample(None, 3)  # in id order, and fixed
+    chosen_big = [i for i in sample if i in read_big]
+    assert len(chosen_big) == 3 and set(sample) - set(read_big) == set(read_small)
+    assert sorted(_prior_sample(None, 100)) == sorted(read_big + read_small)  # every capacitor with readings
+    assert _prior_sample([small.id], 3) == sorted(read_small)

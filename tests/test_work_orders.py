@@ -329,9 +329,10 @@ def test_the_message_after_a_read_again_reading_names_the_replacement_it_calls_f
     replacement = WorkOrder.objects.get(fitted_capacitor=low, kind="replace_run", state="planned")
     assert replacement.due_on == day  # in the same visit
     assert said[low.id] == (
-        f" The reading calls for a replacement: work order {replacement.id} to replace it is on the visit of "
-        f"{day:%Y-%m-%d}. Record the replacement."
+        f" With it the plan asks for a replacement within the visit: work order {replacement.id}, visit of "
+        f"{day:%Y-%m-%d} ({replacement.reason})."
     )
+    assert "below the tolerance limit" in replacement.reason  # why, in the plan's words
     assert said[fine.id] == " The refit judged the reading: no replacement is due within the visit."
     assert not WorkOrder.objects.filter(fitted_capacitor=fine, state="planned").exists()
 
@@ -846,6 +847,13 @@ def test_a_done_replacement_on_the_visit_names_the_part_that_went_in(client, tec
     text = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
     done = text[text.index(f'id="order-{orders[1].id}"') :].split("</tr>")[0]
     assert "RUN-8-450 fitted; done, closed by the system" in done
+    # A read-again order closed by a replacement ("past its limit: record the replacement") says it too.
+    suspect = make_fitted_capacitor(motor=make_motor(site=site, route_order=3), part=design)
+    read_again = WorkOrder.objects.create(motor=suspect.motor, fitted_capacitor=suspect, kind="read_again", due_on=day)
+    replace_capacitor(fitted_capacitor=suspect, part=design, removed_on=timezone.localdate(), reason="failed")
+    text = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
+    done = text[text.index(f'id="order-{read_again.id}"') :].split("</tr>")[0]
+    assert "RUN-8-450 fitted; done, closed by" in done
 
 
 def test_a_visit_moved_onto_another_visits_day_says_the_two_became_one(client, planner):

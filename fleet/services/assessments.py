@@ -200,15 +200,9 @@ def refresh_part_priors(part_ids=None) -> int:
     A population is statistics: past FLEET_PRIOR_MAX_CAPACITORS_PER_PART capacitors of a part, a
     fixed random sample of them is fitted, so a plant-size refit starts in bounded time and memory.
     """
-    fitted_capacitors = FittedCapacitor.objects.filter(Exists(Reading.objects.filter(fitted_capacitor=OuterRef("pk"))))
-    if part_ids is not None:
-        fitted_capacitors = fitted_capacitors.filter(part_id__in=list(part_ids))
-    frame = pd.DataFrame.from_records(list(fitted_capacitors.values_list("id", "part_id")), columns=["id", "part_id"])
-    if frame.empty:
+    ids = _prior_sample(part_ids, settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART)
+    if not ids:
         return 0
-    shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))]
-    sample = shuffled.groupby("part_id").cumcount() < settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART
-    ids = np.sort(shuffled.loc[sample.to_numpy(), "id"].to_numpy()).tolist()
     inst, readings = side_by_side(lambda: fitted_capacitors_frame(ids), lambda: readings_frame(ids))
     inst = inst.set_index("fitted_capacitor_id", drop=False)
     parts = np.sort(inst["part_id"].unique())
@@ -217,6 +211,47 @@ def refresh_part_priors(part_ids=None) -> int:
         PartPrior.objects.filter(part_id__in=[row.part_id for row in rows]).delete()
         PartPrior.objects.bulk_create(rows)
     return len(rows)
+
+
+def _prior_sample(part_ids, per_part: int) -> list[int]:
+    """Up to `per_part` capacitors with readings of each part (all parts if None), a fixed random sample, in id
+    order: every capacitor of a part that has fewer.
+
+    The capacitors are shuffled once (seed 0) and looked at in that order, twice as many a part as wanted at a
+    time, each batch asked which have readings (an index probe a capacitor): a plant's 350,000 capacitors are
+    never joined to its two million readings to learn which have any (1.3-1.9 s of the fleet refit's start,
+    measured 2026-12-04)."""
+    capacitors = FittedCapacitor.objects.order_by()  # no ordering: the model's sorts by motor tag, through a join
+    if part_ids is not None:
+        capacitors = capacitors.filter(part_id__in=list(part_ids))
+    sql, params = capacitors.values_list("id", "part_id").query.sql_with_params()
+    frame = select_frame(sql, params, ["id", "part_id"]).astype(np.int64)
+    if frame.empty:
+        return []
+    shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))].reset_index(drop=True)
+    rank = shuffled.groupby("part_id").cumcount().to_numpy()
+    has_readings = np.zeros(len(shuffled), bool)
+    asked = np.zeros(len(shuffled), bool)
+    reach = 2 * per_part
+    while True:
+        kept = pd.Series(has_readings).groupby(shuffled["part_id"]).cumsum().to_numpy()
+        short = pd.Series(kept < per_part).groupby(shuffled["part_id"]).transform("all").to_numpy()
+        batch = ~asked & (rank < reach) & short
+        if not batch.any():
+            break
+        batch_ids = shuffled["id"].to_numpy()[batch]
+        found = set(
+            FittedCapacitor.objects.order_by()
+            .filter(id__any_of=batch_ids)
+            .filter(Exists(Reading.objects.filter(fitted_capacitor=OuterRef("pk"))))
+            .values_list("id", flat=True)
+        )
+        has_readings[batch] = np.isin(batch_ids, np.fromiter(found, np.int64, len(found)))
+        asked |= batch
+        reach *= 2
+    order = pd.Series(has_readings).groupby(shuffled["part_id"]).cumsum().to_numpy()
+    chosen = has_readings & (order <= per_part)
+    return np.sort(shuffled["id"].to_numpy()[chosen]).tolist()
 
 
 def _stored_priors(part_ids) -> PartPriors:

@@ -354,15 +354,20 @@ def closed_visit(site_id: int, day: dt.date, user=None) -> dict:
 
 
 def _fitted_by_replacements(orders) -> dict[int, FittedCapacitor]:
-    """For each done replacement order, the capacitor fitted in its place when the one it named was removed (its
-    motor and role, fitted on the removal day): one query for the lot."""
+    """For each order closed by a replacement, the capacitor fitted in its place when the one it named was removed
+    (its motor and role, fitted on the removal day): a replacement order done, or a "read again" one closed on the
+    day its capacitor was removed ("past its limit: record the replacement"). One query for the lot."""
     done = [
         order
         for order in orders
         if order.state == WorkOrder.State.DONE
-        and order.kind in KIND_FOR_ROLE.values()
         and order.fitted_capacitor is not None
         and order.fitted_capacitor.removed_on is not None
+        and (
+            order.kind in KIND_FOR_ROLE.values()
+            or order.closed_at is not None
+            and timezone.localdate(order.closed_at) == order.fitted_capacitor.removed_on
+        )
     ]
     if not done:
         return {}
@@ -808,8 +813,9 @@ def open_read_again_order(fitted_capacitor_id: int) -> WorkOrder | None:
 
 def after_reading_again_words(reading) -> str:
     """What became of a capacitor's visit once the reading for its "read again" order is saved, for the form's
-    message: the replacement order the refit added to the visit (`replace_after_reading_again`), none needed,
-    or the refit still to judge it (on separate workers it may not have run yet)."""
+    message: the replacement order the refit added to the visit (`replace_after_reading_again`) with the plan's
+    reason (a reading below the limit, or one above it whose trend crosses it soon), none needed, or the refit
+    still to judge it (on separate workers it may not have run yet)."""
     replacement = (
         WorkOrder.objects.filter(
             fitted_capacitor_id=reading.fitted_capacitor_id, kind__in=list(KIND_FOR_ROLE.values()), state__in=OPEN
@@ -817,10 +823,10 @@ def after_reading_again_words(reading) -> str:
         .order_by("due_on")
         .first()
     )
-    if replacement is not None:
+    if replacement is not None:  # the reading below its limit, or the trend through it crossing soon
         return (
-            f" The reading calls for a replacement: work order {replacement.id} to replace it is on the visit of "
-            f"{replacement.due_on:%Y-%m-%d}. Record the replacement."
+            f" With it the plan asks for a replacement within the visit: work order {replacement.id}, visit of "
+            f"{replacement.due_on:%Y-%m-%d} ({replacement.reason})."
         )
     judged = Assessment.objects.filter(
         fitted_capacitor_id=reading.fitted_capacitor_id, is_current=True, newest_reading_id__gte=reading.id
