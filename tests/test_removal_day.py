@@ -93,6 +93,11 @@ def test_a_reading_the_day_after_the_removal_is_refused_by_every_path_with_the_w
     # The import gives a reading of the next day to the capacitor fitted then; with none fitted, it refuses.
     result = import_check([import_row(old, taken_at="2024-06-14 08:00")])
     assert result.good["fitted_capacitor_id"].tolist() == [new.id]
+    # A row that names the removed capacitor by id (an edited readings export) is refused, and told the way out.
+    result = import_check([import_row(old, taken_at="2024-06-14 08:00", fitted_capacitor_id=str(old.id))])
+    ((row, field, words),) = result.errors
+    assert (row, field) == (2, "taken_at") and "after this capacitor was removed on 2024-06-13" in words
+    assert words.endswith("leave that empty and the reading goes to the capacitor fitted in this position that day")
     FittedCapacitor.objects.filter(pk=new.pk).update(removed_on=REMOVED_ON, removal_reason="failed")
     result = import_check([import_row(old, taken_at="2024-06-14 00:30")])
     assert result.errors == [(2, "taken_at", "no capacitor in this role was fitted to this motor on that date")]

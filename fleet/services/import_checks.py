@@ -16,6 +16,7 @@ from django.utils import timezone
 
 from fleet.engineering.planning import PlanningSettings, day_off_problems
 from fleet.engineering.rules import (
+    AFTER_REMOVAL,
     ELECTROLYTIC_RUN_WORDS,
     MSG_NOT_A_NUMBER,
     MSG_NOT_FINITE,
@@ -292,6 +293,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             predicted_uf=predicted,
             confirmed=confirmed,
         )
+        _point_past_a_removal(result.errors, chunk)
         said = result.confirm.get("capacitance_uf")
         if said is not None and from_file.any():  # say which readings it was held to
             neighbours = _messages(
@@ -614,6 +616,26 @@ def _among(texts, known) -> np.ndarray:
     """Per text, whether it is among `known`, by a hash table. (numpy's isin compares every pair when
     either side holds Python objects: 50,000 keys against 50,000 took 20 minutes.)"""
     return pd.Series(texts, dtype=object).isin(pd.Series(known, dtype=object)).to_numpy(bool)
+
+
+NAMED_AFTER_REMOVAL_WORDS = (
+    "; the row names this capacitor in fitted_capacitor_id: leave that empty and the reading goes to the capacitor "
+    "fitted in this position that day"
+)
+
+
+def _point_past_a_removal(errors: dict, chunk: pd.DataFrame) -> None:
+    """A reading after its capacitor's removal, on a row that named that capacitor by id (a readings export
+    edited, or a row copied): the rulebook's words, and the way to the capacitor fitted then. Without an id the
+    import places a reading on the capacitor fitted that day, so only a named one can land after a removal."""
+    said = errors.get("taken_at")
+    if said is None:
+        return
+    named = chunk["fitted_capacitor_id"].ne("").to_numpy() & pd.Series(said).str.startswith(AFTER_REMOVAL).to_numpy()
+    if named.any():
+        said = said.copy()
+        said[named] = said[named] + NAMED_AFTER_REMOVAL_WORDS
+        errors["taken_at"] = said
 
 
 def insert_readings(good: pd.DataFrame) -> list[int]:
