@@ -356,6 +356,18 @@ def test_catalogue_figures_no_motor_capacitor_has_are_refused_by_row_and_field(t
     assert not CapacitorPart.objects.exists()  # nothing saved half-way
 
 
+def test_a_rating_typed_in_farads_is_named_as_such(tmp_path):
+    """A datasheet gives 4.0E-06 F; typed as 0.000004 in rated_uf it got only the generic "check the unit" (the
+    audit of inputs). 1 F = 1,000,000 µF [SI]."""
+    text = PARTS + "RUN-F4,0.000004,5,5,450,film,50,B,S2,,\nST-F2,2.5e-4,0,20,250,electrolytic,50,,,,\n"
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="2 rows have problems"):
+        call_command("import", "parts", str(write(tmp_path, "parts.csv", text)), stdout=out)
+    report = out.getvalue()
+    assert "row 4, rated_uf: 0.000004 µF is not a rating motor-run film capacitors are made in" in report
+    assert "4 µF? (farads typed as µF)" in report and "250 µF? (farads typed as µF)" in report
+
+
 def test_a_start_electrolytic_rated_a_quarter_microfarad_is_refused_naming_the_likely_slip(
     tmp_path, client, administrator
 ):

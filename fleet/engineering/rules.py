@@ -439,9 +439,10 @@ PART_RATED_UF_BY_DIELECTRIC = MappingProxyType(
         DIELECTRIC_FILM: (0.4, 150.0, "motor-run film capacitors"),
     }
 )
-# The slips a rating outside its span is read as, in the order tried: the unit (millifarads or nanofarads typed
-# as microfarads), then the decimal point one place off (ours).
+# The slips a rating outside its span is read as, in the order tried: the unit (farads, millifarads or nanofarads
+# typed as microfarads: a datasheet's 4.0E-06 F), then the decimal point one place off (ours).
 RATING_SLIPS = (
+    (1e6, "farads typed as µF"),
     (1000.0, "millifarads typed as µF"),
     (0.001, "nanofarads typed as µF"),
     (10.0, "the decimal point one place off"),
