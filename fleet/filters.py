@@ -9,6 +9,7 @@ import re
 from collections.abc import Callable
 
 import django_filters
+import numpy as np
 from django import forms
 from django.contrib import messages
 from django.core.exceptions import ValidationError
@@ -18,7 +19,13 @@ from django.http import HttpResponse
 
 from .engineering.lifedata import MAX_REPLACEMENT_COST
 from .engineering.planning import PLAN_HORIZON_DAYS
-from .engineering.rules import ACCEPTED_DAYS_WORDS, FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY, parse_numbers
+from .engineering.rules import (
+    ACCEPTED_DAYS_WORDS,
+    FIRST_ACCEPTED_DAY,
+    LAST_ACCEPTED_DAY,
+    MSG_NOT_FINITE,
+    parse_numbers,
+)
 from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from .roles import scope_to_user
 
@@ -319,7 +326,10 @@ class PositiveNumberField(forms.CharField):
         text = super().clean(value)
         if text in (None, ""):
             return None
-        number = float(parse_numbers([text])[0][0])
+        numbers, said = parse_numbers([text])
+        number = float(numbers[0])
+        if said[0] == MSG_NOT_FINITE and self.highest is not None:  # 1e309 is a number, past any bound
+            number = np.inf
         if not number > 0:
             raise ValidationError("must be a number above zero")
         if self.highest is not None and number > self.highest:

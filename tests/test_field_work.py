@@ -319,6 +319,9 @@ def test_the_life_data_costs_past_any_replacement_are_refused_by_name(client, en
     assert "The planned cost must be at most 1,000,000; &#x27;1e300&#x27; was not used, 60 was." in (
         page.content.decode()
     )
+    # Past what a float holds (1e309 reads as infinity) it is still a number too large, not "not above zero".
+    page = client.get(reverse("life_data"), {"part": "LIFE-2", "planned_cost": "1e309"})
+    assert "The planned cost must be at most 1,000,000; &#x27;1e309&#x27; was not used" in page.content.decode()
 
 
 def test_the_life_data_page_finds_a_short_replacement_age_when_failures_cost_far_more(client, engineer):
