@@ -194,3 +194,8 @@ def test_a_capacitor_fitted_against_the_advice_is_marked_in_the_api_and_listed_f
     assert "RUN-3-450" in listed and "the only film part on the shelf" in listed
     assert other.part.code in listed  # the design part, the one to bring
     assert fan_fitted_capacitor.motor.asset_tag not in listed
+    # The plan names them too, with the way to the list (one count, from the partial index).
+    plan = client.get(reverse("plan")).content.decode()
+    said = plan[plan.index('id="stop-gaps"') :].split("</p>")[0]
+    assert "1 capacitor in service was fitted against the advice as a stop-gap" in said
+    assert f'href="{reverse("stand_in_parts")}#against-advice"' in said

@@ -329,12 +329,19 @@ def part_families(user=None) -> list[dict]:
 AGAINST_ADVICE_SHOWN = 100
 
 
+def stop_gaps_in_service(user=None, site=None):
+    """The capacitors in service fitted against the advice at the user's sites (or at `site`): read from the
+    partial index `in_service_against_advice`."""
+    stop_gaps = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, substitute_override=True), user)
+    return stop_gaps.filter(motor__site=site) if site is not None else stop_gaps
+
+
 def fitted_against_advice(user=None) -> dict:
     """The capacitors in service fitted against the substitute advice (a ticked override), newest first, at the
     user's sites: each with its design part (`design_parts`) and the reason given, for the engineer to follow up
     (a stop-gap is judged on the motor model against the design, and a label names the design part). The first
     `AGAINST_ADVICE_SHOWN` and the count: a few queries, from a partial index, whatever the fleet's size."""
-    in_service = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, substitute_override=True), user)
+    in_service = stop_gaps_in_service(user)
     shown = list(in_service.select_related("part", "motor__site").order_by("-fitted_on", "-id")[:AGAINST_ADVICE_SHOWN])
     designs = design_parts(shown)
     count = len(shown) if len(shown) < AGAINST_ADVICE_SHOWN else in_service.count()

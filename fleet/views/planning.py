@@ -34,7 +34,7 @@ from fleet.services import pages
 from fleet.services.bulk import storable_ids
 from fleet.services.dashboard import TABLES as DASHBOARD_TABLES
 from fleet.services.dashboard import dashboard, dashboard_table
-from fleet.services.substitutes import fitted_against_advice, part_families
+from fleet.services.substitutes import fitted_against_advice, part_families, stop_gaps_in_service
 from fleet.services.track_record import year_flags_record
 from fleet.services.workorders import (
     CANCELLED_SHOWN_DAYS,
@@ -85,6 +85,7 @@ def plan(request):
         "rules": PlanningSettings(),
         "alert_levels": pages.alert_level_words(),
         "year_flags": year_flags_record(),
+        "stop_gaps": stop_gaps_in_service(request.user, site).count(),
     }
     worse, better, changes = pages.risk_changes(days=7, limit=PLAN_CHANGES_SHOWN, user=request.user, site=site)
     context["changes"] = changes
