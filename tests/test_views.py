@@ -394,7 +394,8 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
         )
     refit_fitted_capacitors([i.id for i in fitted_capacitors])
     client = signed_in(planner)
-    with django_assert_max_num_queries(22):  # capacitors, motors, parts; the week's changes; the back-test's scores; stop-gaps
+    # capacitors, motors, parts; the week's changes; the back-test's scores; the stop-gaps' count
+    with django_assert_max_num_queries(22):
         response = client.get(reverse("plan"), {"days": 365})
     assert response.status_code == 200
     assert fitted_capacitors[0].motor.asset_tag in response.content.decode()
