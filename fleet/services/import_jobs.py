@@ -199,6 +199,15 @@ def columns_left_out(header, mapping) -> list[str]:
     return [column for column in header if column not in mapped]
 
 
+def proposed_by_spelling(job: ImportJob) -> list[tuple[str, str]]:
+    """(column, field) of the headings matched to a field only because they spell it all but a letter or two
+    (`columns.near_misses`, as `_read` proposes them) and still matched so: a guess the page asks the user to
+    look at."""
+    ours = KINDS[job.kind].columns
+    near = columns.near_misses(job.columns, columns.suggest_mapping(job.columns, ours), ours)
+    return [(column, field) for column, field in near.items() if (job.mapping or {}).get(field) == column]
+
+
 def check_file(
     *, kind: str, filename: str, content: bytes, mapping: dict | None = None, on_progress=None, user=None
 ) -> Outcome:

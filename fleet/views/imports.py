@@ -10,7 +10,6 @@ from django.shortcuts import get_object_or_404, redirect, render
 from django.utils.http import content_disposition_header
 
 from fleet.forms import ColumnMappingForm, ImportUploadForm
-from fleet.imports import columns
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
 from fleet.roles import importable_kinds, may_import, refused, scope_to_user
@@ -22,6 +21,7 @@ from fleet.services.import_jobs import (
     deleted_file_words,
     end_stalled_jobs,
     open_visits_shown,
+    proposed_by_spelling,
     queue_check,
     queue_import,
     rejected_rows_csv,
@@ -88,20 +88,12 @@ def import_detail(request, job_id):
         "file_deleted": deleted_file_words(job) if job.file_deleted_at else "",
         "errors": job.errors[:200],
         "left_out": columns_left_out(job.columns, job.mapping) if job.mapping else [],
-        "spelt_near": _proposed_by_spelling(job, kind.columns),
+        "spelt_near": proposed_by_spelling(job),
         "open_visits": open_visits_shown(job),
         # Before a check is asked: a required field the headings did not match, said at the top at once.
         "missing": "" if form.is_bound else form.missing_words(job.mapping or {}),
     }
     return render(request, "fleet/import_detail.html", context)
-
-
-def _proposed_by_spelling(job: ImportJob, ours: dict[str, str]) -> list[tuple[str, str]]:
-    """(column, field) of the headings matched to a field only because they spell it all but a letter or two
-    (`columns.near_misses`) and still matched so: a guess the page asks the user to look at."""
-    by_name = columns.suggest_mapping(job.columns, ours)
-    near = columns.near_misses(job.columns, by_name, ours)
-    return [(column, field) for column, field in near.items() if (job.mapping or {}).get(field) == column]
 
 
 @_may_import_something
