@@ -3,6 +3,8 @@ in bulk, judged by the core (`fleet.engineering.substitutes`), with the site's s
 
 from __future__ import annotations
 
+from collections import defaultdict
+
 import numpy as np
 import pandas as pd
 from django.core.exceptions import ValidationError
@@ -107,18 +109,12 @@ def design_parts(fitted_capacitors) -> dict[int, CapacitorPart]:
         .select_related("part")
         .order_by("-fitted_on", "-id")
     )
+    by_position = defaultdict(list)  # newest first, as read
+    for other in advised:
+        by_position[(other.motor_id, other.role)].append(other)
     for fitted in overridden:
-        earlier = next(
-            (
-                other
-                for other in advised
-                if other.motor_id == fitted.motor_id
-                and other.role == fitted.role
-                and other.fitted_on <= fitted.fitted_on
-                and other.pk != fitted.pk
-            ),
-            None,
-        )
+        position = by_position[(fitted.motor_id, fitted.role)]
+        earlier = next((other for other in position if other.fitted_on <= fitted.fitted_on), None)
         designs[fitted.id] = earlier.part if earlier is not None else fitted.part
     return designs
 

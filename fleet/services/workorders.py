@@ -825,7 +825,7 @@ def after_reading_again_words(reading) -> str:
     )
     if replacement is not None:  # the reading below its limit, or the trend through it crossing soon
         return (
-            f" With it the plan asks for a replacement within the visit: work order {replacement.id}, visit of "
+            f" With it the plan asks for a replacement: work order {replacement.id}, visit of "
             f"{replacement.due_on:%Y-%m-%d} ({replacement.reason})."
         )
     judged = Assessment.objects.filter(
