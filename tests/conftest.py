@@ -12,6 +12,26 @@ from tests.factories import (
     make_user,
 )
 
+# The suite runs on every core (pytest-xdist, `--dist loadgroup` in .pytest.ini). The tests of one group run
+# one after another in one process: those that start real Celery workers on the shared broker or stop and
+# start their own Redis and web server on fixed ports, and each simulated fleet's module, whose costly
+# import and refit its tests share.
+SERIAL_GROUPS = {
+    "test_worker.py": "broker",
+    "test_faults.py": "broker",
+    "test_forecast_simulation.py": "first-simulated-fleet",
+    "test_forecast_second_fleet.py": "second-simulated-fleet",
+    "test_simulation_bound.py": "simulation-bound",
+}
+
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_collection_modifyitems(items):
+    for item in items:
+        group = SERIAL_GROUPS.get(item.path.name)
+        if group:
+            item.add_marker(pytest.mark.xdist_group(group))
+
 
 @pytest.fixture(autouse=True)
 def fresh_cache():

@@ -190,7 +190,9 @@ def test_no_form_answers_a_server_error_whatever_is_typed_in_it(client, small_de
     assert len(forms) >= (6 if role == "technician" else 10), sorted(forms)
     failures = []
     for action, names in forms:
-        for value in HOSTILE_VALUES:
+        # A form with no field to type in (a button: run the back-test, start a refit) is posted once:
+        # every hostile value would post the same empty form, and each post runs its whole job.
+        for value in HOSTILE_VALUES if names else HOSTILE_VALUES[:1]:
             response = client.post(action, {name: value for name in names})
             if response.status_code >= 500:
                 failures.append(f"{response.status_code} {action} {list(names)} {value[:20]!r}")

@@ -7,7 +7,7 @@ to a knee and venting, seasonal temperatures, each site's own reading habit (mon
 unit slips and strays, replacements. Each cut-off is loaded into an empty database through the import
 command only (no ORM writes), circuits are estimated from the nameplates, the weekly back-test
 calibrates the bands, the fleet is refitted as of that day, the assessments are read through the
-API, and the forecast is scored in calendar dates against the truth. Run with -s for the figures.
+API, and the forecast is scored in calendar dates against the truth. Run with -s -n 0 for the figures.
 """
 
 from __future__ import annotations

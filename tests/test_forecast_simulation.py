@@ -12,7 +12,7 @@ is scored in calendar dates against the truth.
 
 Targets (issue 8): P10-P90 coverage 80 +/- 7 points with neither tail above 15 %;
 for capacitors not yet below their limit, 365-day risk recall >= 85 % and
-precision >= 60 %. Run with -s to see the figures.
+precision >= 60 %. Run with -s -n 0 to see the figures.
 """
 
 from __future__ import annotations
