@@ -394,8 +394,9 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
         )
     refit_fitted_capacitors([i.id for i in fitted_capacitors])
     client = signed_in(planner)
-    # capacitors, motors, parts; the week's changes; the back-test's scores; the stop-gaps' count
-    with django_assert_max_num_queries(22):
+    # capacitors, motors, parts; the week's changes; the back-test's scores; the stop-gaps' count; the stop-gaps
+    # among the spares (their design parts are brought)
+    with django_assert_max_num_queries(23):
         response = client.get(reverse("plan"), {"days": 365})
     assert response.status_code == 200
     assert fitted_capacitors[0].motor.asset_tag in response.content.decode()

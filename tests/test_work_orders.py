@@ -872,3 +872,55 @@ def test_a_visit_moved_onto_another_visits_day_says_the_two_became_one(client, p
     body = client.post(url, {"to_day": first.isoformat()}, follow=True).content.decode()
     assert "2 work orders. It joined the visit already on that day: 6 work orders in one." in body
     assert WorkOrder.objects.filter(site=site, due_on=first).count() == 6
+
+
+def test_a_stop_gaps_replacement_brings_its_design_part_in_every_count_of_spares(client, technician, planner):
+    """A review after stop-gaps' labels named their design part: the visit sheet's spares, the plan's spares and
+    the dashboard's months still counted the stop-gap's own part (the order's part is the capacitor's), so the
+    technician would pack a second wrong capacitor. Each replacement of a stop-gap now counts, and its row names,
+    the design part. [trade] a substitute fitted against the advice is a temporary repair, replaced with the
+    specified part at the next opportunity (common practice of the trade, no single source)."""
+    from fleet.services.dashboard import spares_by_month
+    from fleet.services.pages import spares_needed
+    from fleet.services.readings import replace_capacitor
+
+    day = timezone.localdate() + dt.timedelta(days=5)
+    site = make_site(code="SGP")
+    design = make_part(code="RUN-8-450", rated_uf=8.0)
+    stopgap_part = make_part(code="RUN-6-450", rated_uf=6.0)
+    worn, plain = (
+        make_fitted_capacitor(motor=make_motor(site=site, route_order=n), part=design, fitted_on=dt.date(2022, 1, 1))
+        for n in (1, 2)
+    )
+    stop_gap = replace_capacitor(
+        fitted_capacitor=worn,
+        part=stopgap_part,
+        removed_on=timezone.localdate() - dt.timedelta(days=30),
+        reason="failed",
+        substitute_override=True,
+        override_reason="none of the design part on site",
+    )
+    for capacitor in (stop_gap, plain):
+        stored_assessment(capacitor, "due soon", day)
+        WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=day)
+    SiteStock.objects.create(site=site, part=design, quantity=1)
+
+    taken = {s["code"]: s for s in open_visit(site.id, day)["spares"]}
+    assert list(taken) == ["RUN-8-450"], taken
+    assert (taken["RUN-8-450"]["quantity"], taken["RUN-8-450"]["short"]) == (2, 1)
+    listed = next(v for v in open_visits_page(1).object_list if v["site"].code == "SGP")
+    assert [s["code"] for s in listed["spares"]] == ["RUN-8-450"]
+    assert [getattr(o.bring_part, "code", None) for o in listed["orders"]] == ["RUN-8-450", None]
+
+    assert [(s["part"].code, s["quantity"]) for s in spares_needed(90, user=planner)] == [("RUN-8-450", 2)]
+    months = {row["part"].code: row["planned"] for row in spares_by_month(planner)["parts"]}
+    assert sum(months["RUN-8-450"]) == 2 and sum(months.get("RUN-6-450", [0])) == 0, months
+
+    client.force_login(technician)
+    sheet = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
+    row = sheet[sheet.index(stop_gap.motor.asset_tag) :].split("</tr>")[0]
+    assert "RUN-6-450" in row and "a stop-gap: bring the design part" in row and "RUN-8-450" in row
+    other = sheet[sheet.index(plain.motor.asset_tag) :].split("</tr>")[0]
+    assert "stop-gap" not in other
+    orders_page = client.get(reverse("work_orders")).content.decode()
+    assert orders_page.count("a stop-gap: bring the design part") == 1

@@ -53,6 +53,7 @@ from fleet.services.pages import (
     replace_by_until,
     risk_changes,
 )
+from fleet.services.substitutes import count_design_parts
 
 WEEKS = 26
 MONTHS = 12
@@ -131,12 +132,29 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
     }
 
 
+def _stop_gaps_bring_design_parts(user, first: dt.date, end: dt.date) -> list[dict]:
+    """The plan's rows of spares moved for its stop-gaps to replace before `end`: each month's count off the
+    stop-gap's own part and onto the design part its replacement brings (`count_design_parts`). Two queries for
+    the few stop-gaps in the plan, a third where there are any."""
+    planned = dict(
+        in_service_assessments(user)
+        .filter(
+            replace_by__lt=end, fitted_capacitor__substitute_override=True, fitted_capacitor__removed_on__isnull=True
+        )
+        .values_list("fitted_capacitor_id", "replace_by")
+    )
+    stop_gaps = FittedCapacitor.objects.select_related("part").in_bulk(list(planned))
+    moved = Counter()
+    count_design_parts(moved, ((max(planned[pk].replace(day=1), first), fitted) for pk, fitted in stop_gaps.items()))
+    return [{"part_id": part, "month": month, "n": n} for (month, part), n in moved.items() if n]
+
+
 def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     """Spares per part per month for MONTHS months: the plan's replacements (overdue ones in this
     month) plus the failures in service expected from each part's stored life fit among the
     capacitors in service until their planned replacement, and among the new ones fitted by the plan
     or in place of a failure (`successor_failures`), with the cost and the stock held at the user's
-    sites (five queries).
+    sites (five queries, two more for the plan's stop-gaps, which bring their design parts).
 
     Ages and planned months are grouped by month in SQL; the expected failures of each group come
     from the core (`expected_failures`), weighted by the group's count.
@@ -171,6 +189,7 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
         planned_rows.append({"part_id": part, "month": max(replace_month, first), "n": n})
         counted[(part, fitted_month, None)] -= n
         counted[(part, fitted_month, replace_month)] += n
+    planned_rows += _stop_gaps_bring_design_parts(user, first, end)
     groups = [
         {"part_id": part, "fitted_month": fitted, "replace_month": replace, "n": n}
         for (part, fitted, replace), n in counted.items()

@@ -5,7 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import re
 import unicodedata
-from collections import defaultdict
+from collections import Counter, defaultdict
 
 import numpy as np
 import pandas as pd
@@ -49,6 +49,7 @@ from fleet.roles import scope_to_user, visible_site_ids
 
 from .assessments import _hours_since_fitting, assessment_terms, stored_alert_levels
 from .counts import in_service_counts
+from .substitutes import count_design_parts
 
 RECENT_READINGS = 6
 
@@ -571,10 +572,17 @@ def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None) -
     """Parts to hold for the plan's replacements (same window, same sites), with their cost: each
     `{"part", "quantity", "cost"}`, by part code. Counted on each assessment's stored part (the
     in_service_totals index alone, whatever the fleet's size), then the few parts are read."""
-    quantities = dict(
-        replacement_plan(horizon_days, site, user).order_by().values_list("part_id").annotate(n=Count("*"))
+    plan = replacement_plan(horizon_days, site, user)
+    counts = Counter(
+        {(None, part_id): n for part_id, n in plan.order_by().values_list("part_id").annotate(n=Count("*"))}
     )
-    parts = CapacitorPart.objects.filter(id__in=[p for p in quantities if p is not None]).order_by("code")
+    # A stop-gap's replacement brings its design part (the few stop-gaps in the plan, in one query and one more).
+    stop_gaps = FittedCapacitor.objects.filter(
+        substitute_override=True, removed_on__isnull=True, id__in=plan.order_by().values("fitted_capacitor_id")
+    ).select_related("part")
+    count_design_parts(counts, ((None, fitted) for fitted in stop_gaps))
+    quantities = {part_id: n for (_, part_id), n in counts.items() if part_id is not None and n > 0}
+    parts = CapacitorPart.objects.filter(id__in=list(quantities)).order_by("code")
     return [{"part": p, "quantity": quantities[p.id], "cost": quantities[p.id] * p.unit_cost} for p in parts]
 
 

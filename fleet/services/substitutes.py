@@ -3,7 +3,7 @@ in bulk, judged by the core (`fleet.engineering.substitutes`), with the site's s
 
 from __future__ import annotations
 
-from collections import defaultdict
+from collections import Counter, defaultdict
 
 import numpy as np
 import pandas as pd
@@ -117,6 +117,23 @@ def design_parts(fitted_capacitors) -> dict[int, CapacitorPart]:
         earlier = next((other for other in position if other.fitted_on <= fitted.fitted_on), None)
         designs[fitted.id] = earlier.part if earlier is not None else fitted.part
     return designs
+
+
+def count_design_parts(counts: Counter, stop_gaps) -> dict[int, CapacitorPart]:
+    """Spares for stop-gaps: move each one's count in `counts` (keyed `(key, part_id)`) from the part it is to
+    the design part its replacement brings (`design_parts`), as its label names it; `stop_gaps` is `(key,
+    fitted_capacitor)` of each stop-gap counted (its part read with it). Returns the design parts by id, to name
+    them. One query where there are any."""
+    stop_gaps = list(stop_gaps)
+    designs = design_parts([fitted for _, fitted in stop_gaps])
+    brought = {}
+    for key, fitted in stop_gaps:
+        design = designs[fitted.id]
+        if design.id != fitted.part_id:
+            counts[(key, fitted.part_id)] -= 1
+            counts[(key, design.id)] += 1
+            brought[design.id] = design
+    return brought
 
 
 def position_of(fitted_capacitor: FittedCapacitor) -> Position:

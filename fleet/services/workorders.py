@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from collections import Counter
 from dataclasses import dataclass
 from functools import reduce
 from operator import or_
@@ -33,6 +34,7 @@ from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
 from .pages import due_within
+from .substitutes import count_design_parts, design_parts
 
 KIND_FOR_ROLE = {
     FittedCapacitor.Role.RUN: WorkOrder.Kind.REPLACE_RUN,
@@ -526,6 +528,25 @@ def with_read_for(orders, user=None) -> list[WorkOrder]:
     return orders
 
 
+def with_parts_to_bring(orders) -> list[WorkOrder]:
+    """The orders as a list, each with `bring_part`: for an order on a stop-gap (a capacitor fitted against the
+    advice), the design part its replacement brings (`design_parts`), as the capacitor's label names it; None for
+    the rest, whose own part is the one to bring. One query where any order is on a stop-gap."""
+    orders = list(orders)
+    stop_gaps = [
+        o.fitted_capacitor_id for o in orders if o.fitted_capacitor_id and o.fitted_capacitor.substitute_override
+    ]
+    designs = {}
+    if stop_gaps:
+        fitted = FittedCapacitor.objects.select_related("part").in_bulk(stop_gaps)
+        designs = {
+            pk: part for pk, part in design_parts(list(fitted.values())).items() if part.id != fitted[pk].part_id
+        }
+    for order in orders:
+        order.bring_part = designs.get(order.fitted_capacitor_id)
+    return orders
+
+
 def window_start_days(orders, today: dt.date) -> np.ndarray:
     """Days from `today` to where each order's visit window starts, as the plan judges whether it still asks
     for the order's work in that visit (`plan_moved_words`): from the day the plan gave the visit (`moved_from`,
@@ -582,15 +603,30 @@ def _spares(orders, visits) -> dict[tuple, list[dict]]:
     if not visits:
         return {}
     wanted = set(visits)
-    rows = list(
-        orders.filter(
-            fitted_capacitor__isnull=False,
-            site_id__in={site_id for _, site_id in wanted},
-            due_on__lte=max(day for day, _ in wanted),
-        )
-        .values_list("due_on", "site_id", "part_id", "part__code")
-        .annotate(quantity=Count("id"))
-        .order_by("due_on", "site_id", "part__code")
+    counted = orders.filter(
+        fitted_capacitor__isnull=False,
+        site_id__in={site_id for _, site_id in wanted},
+        due_on__lte=max(day for day, _ in wanted),
+    )
+    counts, codes = Counter(), {}
+    for day, site_id, part_id, code, quantity in (
+        counted.values_list("due_on", "site_id", "part_id", "part__code").annotate(quantity=Count("id")).order_by()
+    ):
+        counts[((day, site_id), part_id)] = quantity
+        codes[part_id] = code
+    # A stop-gap's replacement brings its design part (one query for the few stop-gaps, one more where any).
+    stop_gaps = counted.filter(
+        fitted_capacitor__substitute_override=True, fitted_capacitor__removed_on__isnull=True
+    ).select_related("fitted_capacitor__part")
+    brought = count_design_parts(counts, (((o.due_on, o.site_id), o.fitted_capacitor) for o in stop_gaps))
+    codes.update({part_id: part.code for part_id, part in brought.items()})
+    rows = sorted(
+        (
+            (day, site_id, part_id, codes[part_id], quantity)
+            for ((day, site_id), part_id), quantity in counts.items()
+            if quantity > 0
+        ),
+        key=lambda row: (row[0], row[1], row[3]),
     )
     held = dict.fromkeys({(site_id, part_id) for _, site_id, part_id, _, _ in rows}, 0)
     if held:
@@ -652,6 +688,7 @@ LISTED_ORDER_FIELDS = (
     "site__name",
     "fitted_capacitor__removed_on",  # a read-again order in service links to the reading form
     "fitted_capacitor__part__code",
+    "fitted_capacitor__substitute_override",  # a stop-gap's order names the design part to bring
 )
 
 
@@ -700,12 +737,14 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
         .order_by()
         .values_list("id", flat=True)
     )
-    listed = with_plan_now(
-        with_current_plan(
-            WorkOrder.objects.filter(id__in=shown)
-            .select_related("motor", "site", "fitted_capacitor__part")
-            .only(*LISTED_ORDER_FIELDS)
-            .order_by("due_on", "site__code", *WALKING_ORDER)
+    listed = with_parts_to_bring(
+        with_plan_now(
+            with_current_plan(
+                WorkOrder.objects.filter(id__in=shown)
+                .select_related("motor", "site", "fitted_capacitor__part")
+                .only(*LISTED_ORDER_FIELDS)
+                .order_by("due_on", "site__code", *WALKING_ORDER)
+            )
         )
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}

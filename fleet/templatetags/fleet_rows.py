@@ -81,9 +81,10 @@ def plan_rows(assessments):
 
 WORK_ORDER_ROW = """<tr>
     <td data-label="Motor"><a href="{motor_url}">{tag}</a><br><span class="muted">{location}</span></td>
-    <td data-label="Work">{kind}</td><td data-label="Part"><span class="nowrap">{part}</span></td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
+    <td data-label="Work">{kind}</td><td data-label="Part"><span class="nowrap">{part}</span>{bring}</td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
   """  # noqa: E501 (as the page's source shows it)
 PLAN_NOW = '<br><b class="plan-now">{}</b>'
+BRING_PART = '<br><span class="bring-part">a stop-gap: bring the design part <b class="nowrap part-code">{}</b></span>'
 
 
 PART_LINK = '<a class="nowrap part-code" href="{}">{}</a>'
@@ -112,6 +113,7 @@ def work_order_rows(orders, can_read=False, can_replace=False):
                 location=order.motor.location,
                 kind=order.get_kind_display(),
                 part=part,
+                bring=format_html(BRING_PART, order.bring_part.code) if getattr(order, "bring_part", None) else "",
                 state=order.get_state_display(),
                 reason=nowrap_dates(order.reason),
                 plan_now=format_html(PLAN_NOW, nowrap_dates(order.plan_now)) if getattr(order, "plan_now", "") else "",

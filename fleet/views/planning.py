@@ -56,6 +56,7 @@ from fleet.services.workorders import (
     site_days_off,
     visit_moved_to,
     with_current_plan,
+    with_parts_to_bring,
     with_plan_now,
     with_read_for,
 )
@@ -237,7 +238,7 @@ def visit_sheet(request, site, day):
         # Every order done or cancelled: the sheet says what became of each (a bookmark or a printed sheet).
         return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
     page = list_page(request, paginator.get_page)
-    page.object_list = with_read_for(with_plan_now(page.object_list), user=request.user)
+    page.object_list = with_parts_to_bring(with_read_for(with_plan_now(page.object_list), user=request.user))
     context = {
         "visit": visit,
         "site": site,
