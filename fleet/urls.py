@@ -70,6 +70,7 @@ urlpatterns = [
     path("sites/<code:site_code>/stock/", field.site_stock, name="site_stock"),
     path("sites/<code:site_code>/days-off/", planning.site_days_off_page, name="site_days_off"),
     path("parts/stand-in/", planning.stand_in_parts, name="stand_in_parts"),
+    path("parts/stand-in/<int:fitted_capacitor_id>/swap/", planning.stop_gap_swap, name="stop_gap_swap"),
     path("sites/<code:site_code>/labels/", field.labels, name="labels"),
     path("signed-in/", planning.after_sign_in, name="after_sign_in"),
     path("dashboard/", planning.planner_dashboard, name="dashboard"),

@@ -924,3 +924,86 @@ def test_a_stop_gaps_replacement_brings_its_design_part_in_every_count_of_spares
     assert "stop-gap" not in other
     orders_page = client.get(reverse("work_orders")).content.decode()
     assert orders_page.count("a stop-gap: bring the design part") == 1
+
+
+def _stop_gap(site, *, route_order=1):
+    """A capacitor fitted against the advice (a 6 uF stop-gap where the position's design is 8 uF), in service."""
+    from fleet.services.readings import replace_capacitor
+
+    design = make_part(code="RUN-8-450", rated_uf=8.0)
+    stopgap_part = make_part(code="RUN-6-450", rated_uf=6.0)
+    worn = make_fitted_capacitor(
+        motor=make_motor(site=site, route_order=route_order), part=design, fitted_on=dt.date(2022, 1, 1)
+    )
+    return replace_capacitor(
+        fitted_capacitor=worn,
+        part=stopgap_part,
+        removed_on=timezone.localdate() - dt.timedelta(days=30),
+        reason="failed",
+        substitute_override=True,
+        override_reason="none of the design part on site",
+    )
+
+
+def test_the_planner_orders_a_stop_gap_swapped_on_its_sites_next_visit(client, planner):
+    """The plan, the list and the label said to replace a stop-gap with its design part, and no order could be
+    planned for it. "Order the swap" on the stand-in parts page plans a replacement order on the site's next open
+    visit, naming both parts; sent twice, one order; its visit sheet says to bring the design part and no "plan
+    now" word contradicts it (its wear alone would not ask for it). [trade] a substitute fitted against the advice
+    is a temporary repair, replaced with the specified part at the next opportunity (common practice of the
+    trade, no single source)."""
+    site = make_site(code="SWP")
+    stop_gap = _stop_gap(site)
+    stored_assessment(stop_gap, "sound", None)
+    visit_day = timezone.localdate() + dt.timedelta(days=4)
+    _orders(site, make_part(code="START-88-250"), visit_day, 1)
+    client.force_login(planner)
+    page = client.get(reverse("stand_in_parts")).content.decode()
+    swap_url = reverse("stop_gap_swap", args=[stop_gap.id])
+    assert f'action="{swap_url}"' in page
+    answer = client.post(swap_url, follow=True).content.decode()
+    order = WorkOrder.objects.get(fitted_capacitor=stop_gap)
+    assert (order.kind, order.due_on, order.state) == ("replace_run", visit_day, "planned")
+    assert (
+        order.reason
+        == f"stop-gap RUN-6-450 fitted against the advice on {stop_gap.fitted_on}: fit the design part RUN-8-450"
+    )
+    assert "Work order planned: Replace run capacitor" in answer and "the design part RUN-8-450 in" in answer
+    assert "ordered, visit" in answer and f'action="{swap_url}"' not in answer
+    again = client.post(swap_url, follow=True).content.decode()
+    assert WorkOrder.objects.filter(fitted_capacitor=stop_gap).count() == 1
+    assert "A replacement order was open already" in again
+    sheet = client.get(reverse("visit_sheet", args=[site.code, visit_day.isoformat()])).content.decode()
+    row = sheet[sheet.index(stop_gap.motor.asset_tag) :].split("</tr>")[0]
+    assert "a stop-gap: bring the design part" in row and 'class="plan-now"' not in row
+    # A plan run leaves it be: the stop-gap's wear does not ask for it.
+    plan_work_orders(user=planner)
+    assert WorkOrder.objects.get(pk=order.pk).due_on == visit_day
+
+
+def test_a_swap_without_an_open_visit_goes_a_weeks_notice_ahead_on_a_working_day_and_bad_asks_are_refused(
+    client, planner, technician
+):
+    """With no visit open at the site, the swap is dated the plan's notice ahead (a week: spares and a trip need
+    it), on a working day that is not a day off. A capacitor that is no stop-gap, one removed, one at no site of
+    the user's and an id past any are refused with a message, and nothing is created; a technician may not order."""
+    from fleet.models import SiteDayOff
+    from fleet.services.workorders import order_swap
+
+    site = make_site(code="SWN")
+    stop_gap = _stop_gap(site)
+    monday = dt.date(2026, 12, 7)
+    SiteDayOff.objects.create(site=site, day=dt.date(2026, 12, 14), name="shutdown")
+    swap = order_swap(fitted_capacitor_id=stop_gap.id, today=monday)
+    assert swap.order.due_on == dt.date(2026, 12, 11)  # the Monday a week on is a day off: the Friday before
+    plain = make_fitted_capacitor(motor=make_motor(site=site, route_order=5))
+    for bad, words in ((plain.id, "no stop-gap"), (2**70, "No such capacitor")):
+        with pytest.raises(ValidationError) as refused:
+            order_swap(fitted_capacitor_id=bad)
+        assert words in " ".join(refused.value.message_dict["capacitor"])
+    client.force_login(planner)
+    answer = client.post(reverse("stop_gap_swap", args=[plain.id]), follow=True).content.decode()
+    assert "it is no stop-gap to swap" in answer
+    assert not WorkOrder.objects.filter(fitted_capacitor=plain).exists()
+    client.force_login(technician)
+    assert client.post(reverse("stop_gap_swap", args=[stop_gap.id])).status_code == 403

@@ -23,7 +23,7 @@ from fleet.engineering.substitutes import (
     advise,
     with_pairs,
 )
-from fleet.models import CapacitorPart, DesignCount, FittedCapacitor, SiteStock
+from fleet.models import CapacitorPart, DesignCount, FittedCapacitor, SiteStock, WorkOrder
 from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.assessments import motor_circuits
 from fleet.services.selectors import CIRCUIT_FIELDS, fitted_capacitors_frame
@@ -351,11 +351,20 @@ def stop_gaps_in_service(user=None, site=None):
 
 def fitted_against_advice(user=None) -> dict:
     """The capacitors in service fitted against the substitute advice (a ticked override), newest first, at the
-    user's sites: each with its design part (`design_parts`) and the reason given, for the engineer to follow up
+    user's sites: each with its design part (`design_parts`), the reason given and its open replacement order (the swap,
+    `workorders.order_swap`; None where none is open), for the engineer and the planner to follow up
     (a stop-gap is judged on the motor model against the design, and a label names the design part). The first
     `AGAINST_ADVICE_SHOWN` and the count: a few queries, from a partial index, whatever the fleet's size."""
     in_service = stop_gaps_in_service(user)
     shown = list(in_service.select_related("part", "motor__site").order_by("-fitted_on", "-id")[:AGAINST_ADVICE_SHOWN])
     designs = design_parts(shown)
+    swaps = {
+        order.fitted_capacitor_id: order
+        for order in WorkOrder.objects.filter(
+            fitted_capacitor_id__in=[fitted.id for fitted in shown], state__in=WorkOrder.OPEN_STATES
+        )
+        .exclude(kind=WorkOrder.Kind.READ_AGAIN)
+        .select_related("site")
+    }
     count = len(shown) if len(shown) < AGAINST_ADVICE_SHOWN else in_service.count()
-    return {"count": count, "rows": [(fitted, designs[fitted.id]) for fitted in shown]}
+    return {"count": count, "rows": [(fitted, designs[fitted.id], swaps.get(fitted.id)) for fitted in shown]}

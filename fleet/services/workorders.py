@@ -28,6 +28,7 @@ from fleet.engineering.planning import (
     plan_moved_words,
     visit_day_problem,
     working_days_near,
+    working_visit_days,
 )
 from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteDayOff, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
@@ -255,6 +256,70 @@ def cancel_order(*, order_id: int, reason: str, user=None) -> WorkOrder:
         )
     order.refresh_from_db()
     return order
+
+
+SWAP_REASON = "stop-gap {part} fitted against the advice on {day}: fit the design part {design}"
+
+
+@dataclass(frozen=True)
+class SwapOrder:
+    """A stop-gap's swap: its open replacement order, whether this call planned it, and the part it brings."""
+
+    order: WorkOrder
+    planned_now: bool
+    stop_gap: FittedCapacitor
+    design: object
+
+
+def order_swap(*, fitted_capacitor_id: int, user=None, today: dt.date | None = None) -> SwapOrder:
+    """Plan the replacement of a stop-gap in service (a capacitor fitted against the advice) with its design part:
+    a replacement order on its site's next open visit from today, or, with none, on the first working day
+    `notice_days` ahead that is not one of the site's days off (spares and a trip need the notice). Its open
+    replacement order, where it has one already, is the swap (sent twice: one order). Only at a site `user` works
+    at. Bad input is a ValidationError on `capacitor`. [trade] a substitute fitted against the advice is a
+    temporary repair, replaced with the specified part at the next opportunity."""
+    today = today or timezone.localdate()
+    with transaction.atomic():
+        stop_gap = (
+            scope_to_user(FittedCapacitor.objects.all(), user)
+            .select_for_update(of=("self",))
+            .select_related("part", "motor")
+            .filter(pk__in=storable_ids([fitted_capacitor_id]))
+            .first()
+        )
+        if stop_gap is None:
+            raise ValidationError({"capacitor": "No such capacitor at your sites: reload the page."})
+        if stop_gap.removed_on is not None:
+            raise ValidationError({"capacitor": f"It was removed on {stop_gap.removed_on:%Y-%m-%d}: nothing to swap."})
+        if not stop_gap.substitute_override:
+            raise ValidationError({"capacitor": "It was fitted as the advice allowed: it is no stop-gap to swap."})
+        design = design_parts([stop_gap])[stop_gap.id]
+        kind = KIND_FOR_ROLE[stop_gap.role]
+        existing = WorkOrder.objects.filter(fitted_capacitor=stop_gap, kind=kind, state__in=OPEN).first()
+        if existing is not None:
+            return SwapOrder(existing, False, stop_gap, design)
+        site_id = stop_gap.motor.site_id
+        day = (
+            WorkOrder.objects.filter(site_id=site_id, state__in=OPEN, due_on__gte=today)
+            .order_by("due_on")
+            .values_list("due_on", flat=True)
+            .first()
+        )
+        if day is None:
+            held = days_off_by_site([site_id], today).get(site_id, {})
+            ahead = working_visit_days([PlanningSettings().notice_days], today, days_off=sorted(held))
+            day = today + dt.timedelta(days=int(ahead[0]))
+        reason = SWAP_REASON.format(part=stop_gap.part.code, day=f"{stop_gap.fitted_on:%Y-%m-%d}", design=design.code)
+        order = WorkOrder.objects.create(
+            motor=stop_gap.motor,
+            fitted_capacitor=stop_gap,
+            kind=kind,
+            due_on=day,
+            reason=reason[: WorkOrder._meta.get_field("reason").max_length],
+            created_by=user if user is not None and user.is_authenticated else None,
+        )
+        order.refresh_from_db()  # its site, walking order and part, kept by database triggers
+    return SwapOrder(order, True, stop_gap, design)
 
 
 def closed_words(order: WorkOrder) -> str:
@@ -574,7 +639,8 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
     capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
     where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule, the
     order's window starting where `window_start_days` says (a walk found an order marked "plan now" by the plan
-    run that made it)."""
+    run that made it). A replacement order on a stop-gap has none: the stop-gap itself is its reason, whatever its
+    wear (`order_swap`)."""
     orders = list(orders)
     if not orders:
         return orders
@@ -589,7 +655,12 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
         today=today,
     )
     for order, text in zip(orders, words, strict=True):
-        order.plan_now = "" if order.plan_risk is None or order.kind not in CAPACITOR_KINDS else text
+        swap = (
+            order.kind in KIND_FOR_ROLE.values()
+            and order.fitted_capacitor_id
+            and order.fitted_capacitor.substitute_override
+        )
+        order.plan_now = "" if order.plan_risk is None or order.kind not in CAPACITOR_KINDS or swap else text
     return orders
 
 

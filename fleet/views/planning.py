@@ -13,6 +13,7 @@ from django.template.defaultfilters import pluralize
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import format_html
+from django.views.decorators.http import require_POST
 
 from fleet.engineering.planning import PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
@@ -50,6 +51,7 @@ from fleet.services.workorders import (
     open_orders,
     open_visit,
     open_visits_page,
+    order_swap,
     plan_work_orders,
     recently_cancelled,
     remove_day_off,
@@ -336,7 +338,9 @@ def work_order_cancel(request, order_id):
             if open_orders(request.user).filter(site_id=order.site_id, due_on=order.due_on).exists():
                 return redirect("visit_sheet", site_code=order.site.code, day=order.due_on.isoformat())
             return redirect("work_orders")
-    order = with_plan_now(with_current_plan(WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site")))
+    order = with_plan_now(
+        with_current_plan(WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site", "fitted_capacitor"))
+    )
     order = with_read_for(order, user=request.user)[0]
     context = {"order": order, "form": form}
     return render(request, "fleet/work_order_cancel.html", context, status=400 if form.errors else 200)
@@ -352,6 +356,35 @@ def stand_in_parts(request):
         "against_advice": fitted_against_advice(request.user),
     }
     return render(request, "fleet/stand_in_parts.html", context)
+
+
+@require_POST
+@needs_permission("fleet.add_workorder")
+def stop_gap_swap(request, fitted_capacitor_id):
+    """The planner orders a stop-gap swapped for its design part at its site's next visit (`order_swap`)."""
+    try:
+        swap = order_swap(fitted_capacitor_id=fitted_capacitor_id, user=request.user)
+    except ValidationError as error:
+        messages.error(request, " ".join(error.message_dict["capacitor"]))
+        return redirect(reverse("stand_in_parts") + "#against-advice")
+    order, stop_gap = swap.order, swap.stop_gap
+    words = "Work order planned" if swap.planned_now else "A replacement order was open already"
+    messages.success(
+        request,
+        format_html(
+            '{}: {} at {}, the stop-gap {} out and the design part {} in, on <a class="glove" href="{}">the visit of '
+            "{} {}</a>.",
+            words,
+            order.get_kind_display(),
+            stop_gap.motor.asset_tag,
+            stop_gap.part.code,
+            swap.design.code,
+            reverse("visit_sheet", args=[order.site.code, order.due_on.isoformat()]),
+            order.site.code,
+            f"{order.due_on:%a %Y-%m-%d}",
+        ),
+    )
+    return redirect(reverse("stand_in_parts") + "#against-advice")
 
 
 @needs_permission("fleet.view_assessment")
