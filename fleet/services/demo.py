@@ -520,7 +520,34 @@ def build_work_orders(*, today: dt.date | None = None) -> None:
             user=technician,
             serial="on the visit",
         )
+        _fit_a_stop_gap(under_way, technician, today)
     _demo_stock()
+
+
+def _fit_a_stop_gap(visit: dict, technician, today: dt.date) -> None:
+    """On the visit under way, a second replacement with no design part in the store: the technician fitted the
+    nearest rating of the same kind against the advice, as a stop-gap, and said why (the stand-in parts page lists
+    it; the planner can order its swap)."""
+    order = next(
+        (o for o in visit["orders"][1:] if o.fitted_capacitor_id and o.kind != WorkOrder.Kind.READ_AGAIN), None
+    )
+    if order is None:
+        return
+    design = order.fitted_capacitor.part
+    others = CapacitorPart.objects.filter(dielectric=design.dielectric).exclude(pk=design.pk)
+    nearest = min(others, key=lambda part: (abs(part.rated_uf - design.rated_uf), part.code), default=None)
+    if nearest is None:
+        return
+    replace_capacitor(
+        fitted_capacitor=order.fitted_capacitor,
+        part=nearest,
+        removed_on=today,
+        reason=FittedCapacitor.RemovalReason.FAILED,
+        user=technician,
+        serial="on the visit",
+        substitute_override=True,
+        override_reason=f"no {design.code} in the site store: a stop-gap until one comes",
+    )
 
 
 def scenario_holidays(years) -> set[dt.date]:
