@@ -181,6 +181,9 @@ REST_FRAMEWORK = {
 # Celery: no broker means every task runs in-process, through the same code path.
 CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")
 CELERY_TASK_ALWAYS_EAGER = not CELERY_BROKER_URL
+# The queue the tasks go to and the workers take them from: two installations (or test runs) sharing one Redis
+# keep apart by naming their own.
+CELERY_TASK_DEFAULT_QUEUE = os.environ.get("CELERY_TASK_DEFAULT_QUEUE") or "celery"
 CELERY_TASK_EAGER_PROPAGATES = True
 CELERY_TASK_SERIALIZER = "json"
 CELERY_RESULT_SERIALIZER = "json"

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import importlib
+import os
+import sys
 
 import pytest
 
@@ -12,25 +14,38 @@ from tests.factories import (
     make_user,
 )
 
-# The suite runs on every core (pytest-xdist, `--dist loadgroup` in .pytest.ini). The tests of one group run
-# one after another in one process: those that start real Celery workers on the shared broker or stop and
-# start their own Redis and web server on fixed ports, and each simulated fleet's module, whose costly
-# import and refit its tests share.
-SERIAL_GROUPS = {
-    "test_worker.py": "broker",
-    "test_faults.py": "broker",
-    "test_forecast_simulation.py": "first-simulated-fleet",
-    "test_forecast_second_fleet.py": "second-simulated-fleet",
-    "test_simulation_bound.py": "simulation-bound",
-}
+# The suite runs on every core (pytest-xdist, `-n auto --dist loadfile` in .pytest.ini: a module's tests stay in
+# one process, each process has its own test database). The real Celery workers some tests start, and the tasks
+# those workers send on, use this process's own queue on the shared broker, never another process's: the
+# setting's environment variable, which the workers inherit (`worker_command`).
+TEST_QUEUE = f"celery-tests-{os.environ.get('PYTEST_XDIST_WORKER', 'main')}"
+os.environ["CELERY_TASK_DEFAULT_QUEUE"] = TEST_QUEUE
 
 
-@pytest.hookimpl(tryfirst=True)
-def pytest_collection_modifyitems(items):
-    for item in items:
-        group = SERIAL_GROUPS.get(item.path.name)
-        if group:
-            item.add_marker(pytest.mark.xdist_group(group))
+def pytest_configure(config):
+    from config.celery import app
+
+    app.conf.task_default_queue = TEST_QUEUE  # the settings were read before this module
+
+
+def worker_command(name: str) -> list[str]:
+    """A real Celery worker (solo pool) for a test: named `name`, on this process's own queue."""
+    return [
+        sys.executable,
+        "-m",
+        "celery",
+        "-A",
+        "config",
+        "worker",
+        "--pool",
+        "solo",
+        "--loglevel",
+        "WARNING",
+        "-Q",
+        TEST_QUEUE,
+        "-n",
+        name,
+    ]
 
 
 @pytest.fixture(autouse=True)

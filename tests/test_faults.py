@@ -43,6 +43,7 @@ from fleet.services.refits import (
     start_fleet_refit,
     sweep_stale,
 )
+from tests.conftest import TEST_QUEUE, worker_command
 from tests.factories import make_fitted_capacitor, make_part, make_user, quarterly_readings
 
 from .test_imports import HEADER, csv_of, fleet_of, good_rows
@@ -130,7 +131,7 @@ class RedisServer:
     def queued(self) -> int:
         import redis
 
-        return redis.Redis(port=self.port).llen("celery")
+        return redis.Redis(port=self.port).llen(TEST_QUEUE)
 
 
 @pytest.fixture
@@ -150,8 +151,7 @@ def database_url() -> str:
 def start_worker(broker_url: str, **env) -> subprocess.Popen:
     """A real Celery worker (solo pool) on the test database, as tests/test_worker.py starts one."""
     env = dict(os.environ, DATABASE_URL=database_url(), CELERY_BROKER_URL=broker_url, **env)
-    command = [sys.executable, "-m", "celery", "-A", "config", "worker", "--pool", "solo", "--loglevel", "WARNING"]
-    command += ["-n", f"faults-{os.getpid()}-{time.monotonic_ns()}@%h"]
+    command = worker_command(f"faults-{os.getpid()}-{time.monotonic_ns()}@%h")
     return subprocess.Popen(command, cwd=ROOT, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 
 

@@ -19,7 +19,15 @@ from fleet.roles import RELIABILITY_ENGINEER, TECHNICIAN, scope_to_user
 from fleet.services import substitutes
 from fleet.services.counts import compact_counts
 from fleet.services.readings import replace_capacitor
-from tests.factories import EXAMPLE_FAN_CIRCUIT, make_fitted_capacitor, make_motor, make_part, make_site, make_user
+from tests.factories import (
+    EXAMPLE_FAN_CIRCUIT,
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    make_user,
+    quarterly_readings,
+)
 
 from .test_api import client_for
 
@@ -359,3 +367,29 @@ def test_the_stand_in_designs_kept_on_write_are_those_a_join_of_the_fleet_finds(
 
     compact_counts()
     assert_the_page_reads_the_designs_it_would_join(monkeypatch, users, judged=True)
+
+
+def test_a_stop_gap_the_motor_model_says_overloads_the_motor_is_replace_now_and_says_why():
+    """A fresh-eyes walk: a part fitted against the advice, far below the position's rating, drove the motor model's
+    main-winding current past its limit at the part's own rating; the limit was set aside as a design finding and
+    the capacitor judged "sound", replace by four years on. The same part fitted against the advice is now
+    "replace now", its reason naming the part's rating and the limit; fitted as the design it stays a finding for
+    the engineer. [trade] a permanent-split capacitor motor runs on the capacitance it was designed for; a much
+    smaller one raises the main-winding current and lowers the starting torque (common practice of the trade, no
+    single source)."""
+    from fleet.models import Assessment
+    from fleet.services.assessments import refit_fitted_capacitors
+
+    small = make_part(code="RUN-2-450", rated_uf=2.0)  # the example fan's run capacitor is 4 uF
+    start = timezone.make_aware(dt.datetime(2025, 1, 8, 9))
+    stop_gap = make_fitted_capacitor(part=small, substitute_override=True, override_reason="no 4 uF on site")
+    designed = make_fitted_capacitor(part=small)
+    for capacitor in (stop_gap, designed):
+        quarterly_readings(capacitor, start, [2.0, 1.998, 1.996, 1.994])
+    refit_fitted_capacitors([stop_gap.id, designed.id])
+    judged = {a.fitted_capacitor_id: a for a in Assessment.objects.filter(is_current=True)}
+    assert judged[stop_gap.id].risk == "replace now"
+    assert judged[stop_gap.id].reason.startswith("at its rated 2.00 µF this part already breaches the ")
+    assert "fitted against the advice" in judged[stop_gap.id].reason
+    assert judged[designed.id].risk != "replace now"
+    assert judged[designed.id].limit_source == "tolerance"

@@ -7,7 +7,6 @@ sets them); skipped on the embedded default, where tasks run in-process.
 import datetime as dt
 import os
 import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -20,6 +19,7 @@ from django.utils import timezone
 from fleet.models import Assessment, RefitChunk, RefitRun
 from fleet.services.readings import record_reading
 from fleet.services.refits import start_fleet_refit
+from tests.conftest import worker_command
 from tests.factories import make_fitted_capacitor, make_part, quarterly_readings
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -42,20 +42,7 @@ def worker(transactional_db):
     )
     env = dict(os.environ, DATABASE_URL=url)
     process = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "celery",
-            "-A",
-            "config",
-            "worker",
-            "--pool",
-            "solo",
-            "--loglevel",
-            "WARNING",
-            "-n",
-            f"ci-{os.getpid()}@%h",
-        ],
+        worker_command(f"ci-{os.getpid()}@%h"),
         cwd=ROOT,
         env=env,
         stdout=subprocess.PIPE,

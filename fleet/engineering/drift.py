@@ -366,6 +366,7 @@ def judge_limits(
     estimated_voltage_v,
     measured_voltage_v,
     resolution: EstimateResolution | None = None,
+    stop_gap=None,
 ) -> LimitFindings:
     """Which operating-point limits may govern a capacitor's risk, and why not the others.
 
@@ -382,13 +383,19 @@ def judge_limits(
     from rated down, so a capacitor well inside its tolerance could be judged near failing the
     motor. A limit of an entered circuit, or of one refined from measured winding currents,
     keeps governing wherever it lies. The tolerance limit then governs, as it always may.
+
+    stop_gap (n bools, none given: none): the capacitor was fitted against the substitute advice. A limit it
+    breaches at its own rated capacitance is no finding about the motor's design but about the part fitted: the
+    limit keeps governing (already crossed: replace it, with the design part), with a note saying so.
     """
     resolution = resolution or EstimateResolution()
     fractions = np.asarray(fractions, float)
     n = fractions.shape[1]
     is_run = np.asarray(role) == ROLE_RUN
     crossed = np.isfinite(fractions)
-    at_rated = np.nan_to_num(fractions, nan=0.0) >= resolution.at_rated_fraction
+    breached_at_rated = np.nan_to_num(fractions, nan=0.0) >= resolution.at_rated_fraction
+    by_the_part = breached_at_rated & (np.zeros(n, bool) if stop_gap is None else np.asarray(stop_gap, bool))
+    at_rated = breached_at_rated & ~by_the_part
     estimated_v = np.asarray(estimated_voltage_v, float)
     measured_v = np.asarray(measured_voltage_v, float)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -408,7 +415,7 @@ def judge_limits(
                 np.zeros(n, bool),  # the stall has no level: only "breached at rated" applies
             )
         )
-    near = near & crossed & ~at_rated & np.asarray(nameplate_only, bool)
+    near = near & crossed & ~breached_at_rated & np.asarray(nameplate_only, bool)
     finding = np.select(
         [at_rated, crossed & disagree, near],
         [FINDING_AT_RATED, FINDING_VOLTAGE_DISAGREES, FINDING_NEAR_RATED],
@@ -418,6 +425,10 @@ def judge_limits(
     note = np.full(fractions.shape, "", dtype=object)
     note[finding == FINDING_AT_RATED] = (
         "already breached at rated capacitance: a design or data finding, not wear; limit not used"
+    )
+    note[by_the_part & (finding == "")] = (
+        "already breached at the rated capacitance of this part, fitted against the advice: the part, not the"
+        " motor's design; replace it with the design part"
     )
     limit, capacitor = np.nonzero(finding == FINDING_VOLTAGE_DISAGREES)
     note[limit, capacitor] = (

@@ -14,6 +14,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .drift import EstimateResolution
+
 RISK_REPLACE_NOW = "replace now"
 RISK_DUE_SOON = "due soon"
 RISK_WATCH = "watch"
@@ -331,9 +333,16 @@ def judge(
         + "): read it again",
     )
     carried = np.asarray(fraction_now, float) >= limit
+    # A limit that governs at the part's own rating (only a part fitted against the advice keeps such a limit:
+    # `drift.judge_limits`) is breached by the part itself, new or worn: said as such, not as wear.
+    rated_words = pd.Series(np.asarray(rated_uf, float)).map("{:.2f}".format).to_numpy(object)
+    by_the_part = (
+        (governing >= 0) & ~wear_first & (np.nan_to_num(limit, nan=0.0) >= EstimateResolution.at_rated_fraction)
+    )
     reason = np.select(
         [
             np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF]),
+            by_the_part & np.isin(evidence, [EVIDENCE_BELOW, EVIDENCE_PATH]),
             evidence == EVIDENCE_BELOW,
             evidence == EVIDENCE_PATH,
             (governing < 0) & ~wear_first,
@@ -342,6 +351,12 @@ def judge(
         ],
         [
             np.asarray(evidence_text, dtype=object),
+            "at its rated "
+            + rated_words
+            + " \u00b5F this part already breaches the "
+            + limit_name
+            + " limit on the motor model: fitted against the advice, it does not suit this motor; fit the design"
+            " part",
             "latest reading, referred to 25 \u00b0C, " + latest + " \u00b5F: below " + limit_words,
             np.where(
                 carried,

@@ -1281,7 +1281,9 @@ def _check_readings(
         values["notes"] = _texts(notes, n, "").str.strip().to_numpy(object)
 
     if predicted_uf is not None:
+        # The trend is judged at the reading's time: a time refused (a far-future day) has no trend value to say.
         drift = off_trend(values["capacitance_uf"], _column(predicted_uf, n), rated, rules.off_trend_fraction)
+        drift &= ~errors.has("taken_at")
         predicted = _column(predicted_uf, n)
         # A capacitance that jumped up towards the rating is most often a capacitor changed and not recorded:
         # confirmed as a reading, the new capacitor's value would bend the old one's trend (trade).

@@ -613,6 +613,7 @@ def assess(
             nameplate_only=inst["circuit_source"].to_numpy(object)[index] == CIRCUIT_ESTIMATED,
             estimated_voltage_v=np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v),
             measured_voltage_v=_latest_capacitor_voltage(in_time_order, inst.index[index]),
+            stop_gap=inst["stop_gap"].to_numpy(bool)[index],
         )
         limit_fraction[1:, index] = drift
         limit_used[1:, index] = findings.used

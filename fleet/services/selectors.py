@@ -35,6 +35,7 @@ FITTED_CAPACITOR_COLUMNS = {
     "part__max_dissipation_factor": "max_dissipation_factor",
     "removed_on": "removed_on",
     "removal_reason": "removal_reason",
+    "substitute_override": "stop_gap",
     "motor_id": "motor_id",
     "motor__motor_type": "motor_type",
     "motor__load_type": "load_type",

@@ -113,7 +113,7 @@ def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:
 
 
 @needs_permission("fleet.view_fittedcapacitor")
-@takes_parameters()
+@takes_parameters("saved")  # ?saved=<capacitor>: a correction's draft to drop
 def fitted_capacitor_detail(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()

@@ -109,3 +109,29 @@ def test_the_main_current_limit_carries_no_extra_margin():
     assert EstimateResolution().main_current == 0.0
     findings = _judge([2.0], [0.8], _fractions([np.nan], current=0.84), True)
     assert findings.used[CURRENT][0] and findings.finding[CURRENT][0] == ""
+
+
+def test_a_limit_a_stop_gap_breaches_at_its_own_rating_keeps_governing_with_a_note_that_says_why():
+    """A fresh-eyes walk fitted a 4 uF part against the advice in a 30 uF position: the main-winding limit,
+    breached at the part's rating, was set aside as "a design or data finding" and the motor left "sound". Such a
+    breach is the part's, not the design's: for a part fitted against the advice it governs (already crossed);
+    for one fitted as designed it stays a finding. [trade] a run capacitor is replaced with the rating the motor
+    was designed for (common practice of the trade, no single source)."""
+    n = 2
+    figures = _figures([0.9, 0.9], [320.0, 320.0], np.full(n, 0.8))
+    levels = LimitLevels(np.ones(n), np.full(n, 400.0), np.ones(n))
+    findings = judge_limits(
+        _fractions([1.0, 1.0], current=np.array([1.0, 1.0])),
+        figures,
+        levels,
+        np.full(n, "run"),
+        nameplate_only=np.full(n, True),
+        estimated_voltage_v=np.full(n, 300.0),
+        measured_voltage_v=np.full(n, np.nan),
+        stop_gap=np.array([True, False]),
+    )
+    for limit in (TORQUE, CURRENT):
+        assert findings.used[limit].tolist() == [True, False]
+        assert findings.finding[limit].tolist() == ["", FINDING_AT_RATED]
+        assert "fitted against the advice" in findings.note[limit][0]
+        assert "design part" in findings.note[limit][0]

@@ -435,3 +435,15 @@ def test_a_huge_number_typed_is_written_back_as_the_browser_writes_it():
     said = result.errors["case_temperature_c"]
     assert said[0].startswith("100000000000000000000 is above 150 °C")
     assert said[1].startswith("1e+25 is above 150 °C")
+
+
+def test_a_reading_whose_time_is_refused_is_not_asked_about_its_trend_at_that_time():
+    """A walk imported a row dated 2099-01-01: refused as a future time, and also asked "29.9 uF is far from this
+    capacitor's trend (-43.72 uF at this reading's time)", a trend value at a time that was refused. A check that
+    rests on another field waits until that field is right; the same value at a good time is still asked."""
+    taken = np.array(["2099-01-01T09:00", "2026-05-01T09:00"], "datetime64[s]")
+    result = check({"capacitance_uf": ["29.9", "29.9"]}, taken_at=taken, predicted_uf=np.array([-43.72, 20.0]))
+    assert result.errors["taken_at"][0] and not result.errors.get("taken_at", ["", ""])[1]
+    asked = result.confirm.get("capacitance_uf", ["", ""])
+    assert "far from this capacitor's trend" not in asked[0]
+    assert asked[1].startswith("29.9 µF is far from this capacitor's trend (20.00 µF at this reading's time)")
