@@ -62,6 +62,13 @@ def test_find_by_tag_and_log_an_in_circuit_reading(phone, motor_with_history):
     # 10^6 x 0.49 / (2 pi 50 x 393) = 3.97 uF
     assert "3.97\u00a0µF" in computed.inner_text() and "within tolerance" in computed.inner_text()
     phone.shot("02-in-circuit-computed")
+    # A defect seen is the verdict (a walk saw "within tolerance" in green beside "Leaking"), with the caution.
+    phone.select_option("#id_condition", "leaking")
+    said = computed.inner_text()
+    assert "Leaking: replace it, whatever it reads" in said and "within tolerance" not in said
+    assert "hold its charge" in said and "local codes" in said
+    phone.select_option("#id_condition", "sound")
+    assert "within tolerance" in computed.inner_text()
     phone.click("#save")
     phone.wait_for_url(f"**/motors/{tag}/?saved=*")
     phone.wait_for_selector("text=Reading saved", timeout=15000)  # the answer page, once it is back
