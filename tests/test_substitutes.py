@@ -393,3 +393,60 @@ def test_a_stop_gap_the_motor_model_says_overloads_the_motor_is_replace_now_and_
     assert "fitted against the advice" in judged[stop_gap.id].reason
     assert judged[designed.id].risk != "replace now"
     assert judged[designed.id].limit_source == "tolerance"
+
+
+def test_a_stop_gap_fitted_leaves_the_motor_model_of_its_design_as_it_was():
+    """A fresh-eyes walk: after a 4 uF stop-gap went into a 30 uF position, the design part's own figures moved
+    (7.05 A and 2850 rpm before, 6.70 A and 2892 rpm after) and the stop-gap showed the nameplate's 2850 rpm: the
+    load was matched to the rated slip at the stop-gap's rating. The load is the one the motor as designed drives
+    at its rated slip ([derived] the load's torque is the driven machine's, whatever capacitor is fitted), so the
+    design's figures stay, and the stop-gap's show the motor it really makes: slower and hotter on a small one."""
+    from fleet.services.readings import replace_capacitor
+
+    design = make_part(code="RUN-4-450", rated_uf=4.0)  # the example fan's design
+    worn = make_fitted_capacitor(part=design, fitted_on=dt.date(2022, 1, 1))
+    before = substitutes.substitutes_for(worn, pairs=False)["design"]
+    stop_gap = replace_capacitor(
+        fitted_capacitor=worn,
+        part=make_part(code="RUN-2-450", rated_uf=2.0),
+        removed_on=dt.date(2026, 11, 2),
+        reason="failed",
+        substitute_override=True,
+        override_reason="no 4 uF on site",
+    )
+    after = substitutes.substitutes_for(stop_gap, pairs=False)
+    assert after["design"] == before
+    fitted = next(item for item in after["items"] if item["part_code"] == "RUN-2-450")
+    assert fitted["speed_rpm"] < before["speed_rpm"], (fitted, before)
+
+
+def test_the_design_rating_the_refit_reads_is_the_design_part_the_pages_name():
+    """Two ways to one rule (the newest capacitor at the position fitted without an override, on or before the
+    stop-gap): the refit's frame (`selectors.design_rated_uf`, by merge) and the pages' `design_parts` (by
+    instance) agree on a stop-gap after a stop-gap, two fittings on one day, and a position with no design known."""
+    from fleet.services.selectors import fitted_capacitors_frame
+
+    motor, lone = make_motor(), make_motor()
+    six, eight, ten, twelve = (make_part(code=f"RUN-{uf}-450", rated_uf=uf) for uf in (6.0, 8.0, 10.0, 12.0))
+    day = dt.date(2024, 5, 6)
+    first = make_fitted_capacitor(motor=motor, part=eight, fitted_on=dt.date(2022, 1, 1))
+    first.removed_on, first.removal_reason = day, "failed"
+    first.save()
+    same_day = make_fitted_capacitor(motor=motor, part=ten, fitted_on=day)  # fitted and out on one day
+    same_day.removed_on, same_day.removal_reason = day, "other"
+    same_day.save()
+    gap = make_fitted_capacitor(motor=motor, part=six, fitted_on=day, substitute_override=True, override_reason="x")
+    gap.removed_on, gap.removal_reason = dt.date(2025, 1, 6), "failed"
+    gap.save()
+    second_gap = make_fitted_capacitor(
+        motor=motor, part=twelve, fitted_on=dt.date(2025, 1, 6), substitute_override=True, override_reason="y"
+    )
+    alone = make_fitted_capacitor(motor=lone, part=six, substitute_override=True, override_reason="z")
+    capacitors = [first, same_day, gap, second_gap, alone]
+    frame = fitted_capacitors_frame([c.id for c in capacitors]).set_index("fitted_capacitor_id")
+    names = substitutes.design_parts(capacitors)
+    assert [frame.loc[c.id, "design_rated_uf"] for c in capacitors] == [names[c.id].rated_uf for c in capacitors]
+    assert [names[c.id].code for c in capacitors] == ["RUN-8.0-450", "RUN-10.0-450", "RUN-10.0-450"] + [
+        "RUN-10.0-450",
+        "RUN-6.0-450",
+    ]

@@ -363,12 +363,20 @@ def motor_circuits(inst: pd.DataFrame, companions: pd.DataFrame | None = None):
     runs = has_run_capacitor(kind)
     run_uf = np.where(runs, np.nan_to_num(run_uf), 0.0)
     start_uf = np.nan_to_num(start_uf)
+    # The load is the one the motor as designed drives at its rated slip: with its position's design run
+    # capacitor, never a stop-gap's rating (a stop-gap fitted must not move the load the motor turns).
+    design_run = np.where(
+        sub["role"] == ROLE_RUN,
+        sub["design_rated_uf"],
+        companions[f"{ROLE_RUN}_design"].reindex(sub["motor_id"]).to_numpy(float),
+    )
+    design_run = np.where(runs, np.nan_to_num(design_run), 0.0)
     sync_rpm = (
         synchronous_speed_rad_s(sub["frequency_hz"].to_numpy(float), sub["poles"].to_numpy(float)) * 60 / (2 * np.pi)
     )
     rated_slip = 1.0 - sub["rated_speed_rpm"].to_numpy(float) / sync_rpm
     load_kind = load_kind_from_type(sub["load_type"].to_numpy(object))
-    load = load_matching_rated_slip(circuit, run_uf, rated_slip, load_kind, aux_in_circuit=runs)
+    load = load_matching_rated_slip(circuit, design_run, rated_slip, load_kind, aux_in_circuit=runs)
     return with_circuit, circuit, load, run_uf, start_uf, kind
 
 

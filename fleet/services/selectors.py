@@ -61,11 +61,48 @@ def fitted_capacitors_frame(fitted_capacitor_ids) -> pd.DataFrame:
         frame[column] = frame[column].astype(float)
     for column in ("fitted_on", "removed_on"):  # days as datetime64 (NaT: not removed), not one date object a row
         frame[column] = pd.to_datetime(frame[column]).astype("datetime64[s]")
+    frame["design_rated_uf"] = design_rated_uf(frame)
     return frame.sort_values("fitted_capacitor_id").reset_index(drop=True)
 
 
+def design_rated_uf(frame: pd.DataFrame) -> np.ndarray:
+    """Per row (`motor_id`, `role`, `fitted_on`, `rated_uf`, `stop_gap`), the rated uF of its position's design
+    part: its own, but for a capacitor fitted against the advice that of the newest capacitor at its motor and
+    role fitted without an override on or before it (the rule of `substitutes.design_part`), so a stop-gap never
+    becomes the motor's design. One query where any row is such a capacitor, none otherwise."""
+    rated = frame["rated_uf"].to_numpy(float).copy()
+    stop_gap = frame["stop_gap"].to_numpy(bool)
+    if not stop_gap.any():
+        return rated
+    gaps = frame.loc[stop_gap, ["motor_id", "role", "fitted_on"]].assign(row=np.flatnonzero(stop_gap))
+    advised = pd.DataFrame.from_records(
+        list(
+            FittedCapacitor.objects.filter(
+                motor_id__any_of=gaps["motor_id"].unique().astype(np.int64), substitute_override=False
+            ).values_list("motor_id", "role", "fitted_on", "id", "part__rated_uf")
+        ),
+        columns=["motor_id", "role", "fitted_on", "id", "design_uf"],
+    )
+    if advised.empty:  # no capacitor fitted as advised there before: the stop-gap's own rating is all there is
+        return rated
+    advised = advised.astype({"motor_id": np.int64, "role": str, "design_uf": float})
+    gaps = gaps.astype({"motor_id": np.int64, "role": str})
+    advised["fitted_on"] = pd.to_datetime(advised["fitted_on"]).astype("datetime64[s]")
+    found = pd.merge_asof(  # the newest on or before each stop-gap's fitting, the later id on one day
+        gaps.sort_values("fitted_on"),
+        advised.sort_values(["fitted_on", "id"]),
+        on="fitted_on",
+        by=["motor_id", "role"],
+        direction="backward",
+    ).dropna(subset=["design_uf"])
+    rated[found["row"].to_numpy(int)] = found["design_uf"].to_numpy(float)
+    return rated
+
+
 def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
-    """Rated uF of each motor's capacitors in service, by role (one query), indexed by motor.
+    """Rated uF of each motor's capacitors in service, by role (one query), indexed by motor; and, as
+    `run_design` and `start_design`, their positions' design ratings (`design_rated_uf`: a stop-gap's design part's,
+    one more query where any is a stop-gap).
 
     A two-value motor starts on run + start in parallel, so judging either
     capacitor needs the other's rating.
@@ -73,14 +110,23 @@ def companion_capacitance_frame(motor_ids) -> pd.DataFrame:
     rows = (
         FittedCapacitor.objects.filter(motor_id__any_of=np.fromiter(motor_ids, np.int64), removed_on__isnull=True)
         .order_by()  # one capacitor in service per motor and role: no order needed, and no join to sort by
-        .values_list("motor_id", "role", "part__rated_uf")
+        .values_list("motor_id", "role", "part__rated_uf", "fitted_on", "substitute_override")
     )
-    frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf"])
-    if frame.empty:
-        return pd.DataFrame(columns=["run", "start"], dtype=float)
-    first = frame.drop_duplicates(["motor_id", "role"]).set_index("motor_id")
+    frame = pd.DataFrame.from_records(list(rows), columns=["motor_id", "role", "rated_uf", "fitted_on", "stop_gap"])
     roles = [FittedCapacitor.Role.RUN, FittedCapacitor.Role.START]
-    table = pd.DataFrame({role: first.loc[first["role"] == role, "rated_uf"] for role in roles}, columns=roles)
+    columns = [*roles, *(f"{role}_design" for role in roles)]
+    if frame.empty:
+        return pd.DataFrame(columns=columns, dtype=float)
+    frame["fitted_on"] = pd.to_datetime(frame["fitted_on"]).astype("datetime64[s]")
+    frame["design_uf"] = design_rated_uf(frame)
+    first = frame.drop_duplicates(["motor_id", "role"]).set_index("motor_id")
+    table = pd.DataFrame(
+        {
+            **{role: first.loc[first["role"] == role, "rated_uf"] for role in roles},
+            **{f"{role}_design": first.loc[first["role"] == role, "design_uf"] for role in roles},
+        },
+        columns=columns,
+    )
     return table.astype(float).rename_axis(columns="role")
 
 
