@@ -39,7 +39,7 @@ from fleet.models import (
 from fleet.roles import ADMINISTRATOR, PLANNER, RELIABILITY_ENGINEER, TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.circuits import circuit_fields
-from fleet.services.readings import replace_capacitor
+from fleet.services.readings import record_reading, replace_capacitor
 from fleet.services.workorders import (
     KIND_FOR_ROLE,
     issue_visit,
@@ -547,6 +547,20 @@ def _fit_a_stop_gap(visit: dict, technician, today: dt.date) -> None:
         serial="on the visit",
         substitute_override=True,
         override_reason=f"no {design.code} in the site store: a stop-gap until one comes",
+    )
+    stop_gap = FittedCapacitor.objects.get(motor_id=order.motor_id, role=order.fitted_capacitor.role, removed_on=None)
+    # Read once fitted, as the trade does: the refit then judges the stop-gap on the motor as designed.
+    record_reading(
+        fitted_capacitor=stop_gap,
+        values={
+            "method": Reading.Method.METER,
+            "capacitance_uf": round(nearest.rated_uf * 0.99, 2),
+            "case_temperature_c": 28.0,
+            "condition": Reading.Condition.SOUND,
+            "taken_at": timezone.now(),
+        },
+        user=technician,
+        source=Reading.Source.FORM,
     )
 
 
