@@ -1007,3 +1007,25 @@ def test_a_swap_without_an_open_visit_goes_a_weeks_notice_ahead_on_a_working_day
     assert not WorkOrder.objects.filter(fitted_capacitor=plain).exists()
     client.force_login(technician)
     assert client.post(reverse("stop_gap_swap", args=[stop_gap.id])).status_code == 403
+
+
+def test_a_defect_seen_on_a_read_again_reading_is_ordered_for_today_not_its_visits_day(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """A fresh-eyes walk: a capacitor read as bulged for its read-again order, a week before that order's visit,
+    got its replacement order on the visit's day while the plan said replace by today, and the message named the
+    later visit. The order is now dated when the plan asks for it, today, and the message names that day; a reading
+    below its limit without a defect keeps the visit's day (the test above). [trade] a bulged, leaking or vented
+    capacitor is taken out of service at once (common practice of the trade, no single source)."""
+    day = timezone.localdate() + dt.timedelta(days=7)
+    site = make_site(code="BLG")
+    bulged = make_fitted_capacitor(motor=make_motor(site=site))
+    WorkOrder.objects.create(motor=bulged.motor, fitted_capacitor=bulged, kind="read_again", due_on=day)
+    client.force_login(technician)
+    data = {"method": "meter", "capacitance_uf": "3.99", "case_temperature_c": "25", "condition": "bulged"}
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("reading_new", args=[bulged.id]), data)
+    replacement = WorkOrder.objects.get(fitted_capacitor=bulged, kind="replace_run", state="planned")
+    assert replacement.due_on == timezone.localdate()
+    said = after_reading_again_words(Reading.objects.filter(fitted_capacitor=bulged).get())
+    assert f"visit of {timezone.localdate():%Y-%m-%d}" in said and "bulged" in said

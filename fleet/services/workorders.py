@@ -955,7 +955,8 @@ def replace_after_reading_again(assessments, now: dt.datetime) -> int:
     read-again orders closed within the visit's window before `now`, in a visit not past its window, with no
     order given the capacitor since (a planner's cancel of the follow-up stands), for a capacitor in service.
     One query where no new assessment asks for a replacement soon; three where some do. Returns the orders
-    created."""
+    created. The new order is dated on the visit's day, or on the plan's replace-by day where that comes sooner
+    (a defect seen on the reading is to be replaced today, not a week on at its visit), never before today."""
     today = timezone.localdate(now)
     replace_by = pd.to_datetime(assessments["replace_by"]).to_numpy("datetime64[D]")
     furthest = np.datetime64(today + dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS), "D")
@@ -999,7 +1000,8 @@ def replace_after_reading_again(assessments, now: dt.datetime) -> int:
             site_id=order.site_id,
             fitted_capacitor_id=capacitor_id,
             kind=KIND_FOR_ROLE[order.fitted_capacitor.role],
-            due_on=order.due_on,
+            # On the visit's day, or sooner where the plan asks for it sooner (a defect seen: today).
+            due_on=max(today, min(order.due_on, asks[capacitor_id][1])),
             window_days=order.window_days,
             reason=f"{asks[capacitor_id][0]}: {asks[capacitor_id][2]} ({READ_FOR_WORDS.format(order.id)})"[:limit],
         )
