@@ -880,25 +880,16 @@ def test_a_stop_gaps_replacement_brings_its_design_part_in_every_count_of_spares
     technician would pack a second wrong capacitor. Each replacement of a stop-gap now counts, and its row names,
     the design part. [trade] a substitute fitted against the advice is a temporary repair, replaced with the
     specified part at the next opportunity (common practice of the trade, no single source)."""
+    from fleet.models import CapacitorPart
     from fleet.services.dashboard import spares_by_month
     from fleet.services.pages import spares_needed
-    from fleet.services.readings import replace_capacitor
 
     day = timezone.localdate() + dt.timedelta(days=5)
     site = make_site(code="SGP")
-    design = make_part(code="RUN-8-450", rated_uf=8.0)
-    stopgap_part = make_part(code="RUN-6-450", rated_uf=6.0)
-    worn, plain = (
-        make_fitted_capacitor(motor=make_motor(site=site, route_order=n), part=design, fitted_on=dt.date(2022, 1, 1))
-        for n in (1, 2)
-    )
-    stop_gap = replace_capacitor(
-        fitted_capacitor=worn,
-        part=stopgap_part,
-        removed_on=timezone.localdate() - dt.timedelta(days=30),
-        reason="failed",
-        substitute_override=True,
-        override_reason="none of the design part on site",
+    stop_gap = _stop_gap(site)
+    design = CapacitorPart.objects.get(code="RUN-8-450")
+    plain = make_fitted_capacitor(
+        motor=make_motor(site=site, route_order=2), part=design, fitted_on=dt.date(2022, 1, 1)
     )
     for capacitor in (stop_gap, plain):
         stored_assessment(capacitor, "due soon", day)
