@@ -18,6 +18,7 @@ FROZEN = {  # SHA-256 of every statement, SQLite forward and backward then Postg
     "0035_pages_work_order_walk": "f44638702503ac2fc353342eaa49a2416917a1d7c11276d38662d96c27886658",
     "0037_rounds_motor_last_read": "7366c02d9ee9457f5fb3e88c6ac13b44036a92ae4c785c1672a27575b1f100b4",
     "0041_rounds_every_position_read": "01fb48371cfb577852254dfc839dcef017d3ac5e3ba41e6d744c0d2cb04d484f",
+    "0063_design_counts_without_stop_gaps": "6b5245e2c24c0e96c718353228aebe0dc1900470c745eb533112f5ec1e02bb12",
 }
 
 

@@ -235,6 +235,24 @@ def test_a_stand_in_part_is_counted_against_the_designs_of_its_own_role_only(cli
     assert "of 3" not in compact
 
 
+def test_a_stop_gap_is_not_a_design_of_its_own(fan_fitted_capacitor):
+    """A fresh-eyes walk: after two stop-gaps the stand-in parts page counted a film part against "6" run designs
+    where the fleet had four: each part fitted against the advice made a design of its own. [derived] a position's
+    design is its motor's and its design part's; a stop-gap is fitted against that design, not as one."""
+    twin = make_fitted_capacitor(motor=make_motor(), part=fan_fitted_capacitor.part, fitted_on=dt.date(2022, 1, 1))
+    replace_capacitor(
+        fitted_capacitor=twin,
+        part=make_part(code="RUN-2-450", rated_uf=2.0),
+        removed_on=dt.date(2026, 11, 2),
+        reason="failed",
+        substitute_override=True,
+        override_reason="no 4 uF on site",
+    )
+    film = next(family for family in substitutes.part_families() if family["dielectric"] == "film")
+    assert {part["designs"] for part in film["parts"]} == {1}, film["parts"]
+    assert list(substitutes.designs_in_service().values()) == [fan_fitted_capacitor.id]
+
+
 def test_a_motor_without_a_circuit_is_judged_by_ratings_alone(client, technician, engineer):
     """[trade] no model: within the original's marked tolerance (+/-5 %) and ratings; figures are null."""
     fitted_capacitor = make_fitted_capacitor(motor=make_motor(with_circuit=False))
@@ -279,8 +297,12 @@ def test_the_start_capacitor_of_a_two_value_motor_is_judged_with_its_run_capacit
 
 def designs_from_scratch(user=None) -> dict[tuple, int]:
     """[derived] The designs as the page found them before the ledger: every capacitor in service on a
-    motor in service joined with its motor, grouped by part, role and design, the first capacitor of each."""
-    fitted = scope_to_user(FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service"), user)
+    motor in service joined with its motor, grouped by part, role and design, the first capacitor of each;
+    a stop-gap (fitted against the advice) is not its position's design."""
+    fitted = scope_to_user(
+        FittedCapacitor.objects.filter(removed_on__isnull=True, motor__status="in_service", substitute_override=False),
+        user,
+    )
     key = ["part_id", "role", *(f"motor__{name}" for name in substitutes.DESIGN_FIELDS)]
     rows = fitted.values(*key).annotate(first_id=Min("id")).order_by().values_list(*key, "first_id")
     return {tuple(row[:-1]): row[-1] for row in rows}
@@ -361,6 +383,11 @@ def test_the_stand_in_designs_kept_on_write_are_those_a_join_of_the_fleet_finds(
         substitute_override=True,
         override_reason="the only part on the shelf",
     )
+    # A stop-gap marked afterwards in a statement of many rows, and one marked stop-gap deleted.
+    FittedCapacitor.objects.filter(motor__in=motors[2:4], removed_on__isnull=True, role="run").update(
+        substitute_override=True, override_reason="marked later"
+    )
+    FittedCapacitor.objects.filter(motor=motors[3], role="run", removed_on__isnull=True).delete()
     FittedCapacitor.objects.filter(motor=motors[9], role="start").delete()
     FittedCapacitor.objects.filter(motor__in=motors[10:], removed_on__isnull=True).update(part=run_4)
     assert_the_page_reads_the_designs_it_would_join(monkeypatch, users)

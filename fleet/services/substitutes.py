@@ -264,7 +264,8 @@ def verdict_of_part(fitted_capacitor: FittedCapacitor, part: CapacitorPart) -> d
 
 def designs_in_service(user=None) -> dict[tuple, int]:
     """The position designs among the capacitors in service at the user's sites (None: every site):
-    {(part_id, role, *DESIGN_FIELDS): id of the design's first capacitor in service}.
+    {(part_id, role, *DESIGN_FIELDS): id of the design's first capacitor in service}. A stop-gap (fitted
+    against the advice) is not its position's design and is left out (migration 0063).
 
     The designs come from the ledger the database keeps on write (`DesignCount`, migration 0033), a few
     rows per design and site. Each design's first capacitor is found by walking its part and role's
@@ -293,7 +294,7 @@ def designs_in_service(user=None) -> dict[tuple, int]:
     sql = f"""
         SELECT {", ".join(f"g.{name}" for name in columns)}, (
             SELECT c.id FROM fleet_fittedcapacitor c
-            WHERE c.part_id = g.part_id AND c.role = g.role AND c.removed_on IS NULL
+            WHERE c.part_id = g.part_id AND c.role = g.role AND c.removed_on IS NULL AND NOT c.substitute_override
               AND (SELECT {motor} FROM fleet_motor m WHERE m.id = c.motor_id{at_sites}) {same} {wanted}
             ORDER BY c.id LIMIT 1
         ) FROM ({ledger_sql}) g"""
