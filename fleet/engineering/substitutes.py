@@ -212,6 +212,12 @@ def _capacitor_voltage(position: Position, figures: OperatingFigures) -> np.ndar
     return figures.v_capacitor_v if position.role == ROLE_RUN else figures.start_capacitor_voltage_v
 
 
+def shown_volts(voltage_v) -> np.ndarray:
+    """Whole volts as the replacement page shows a figure: stored to 0.1 V, then rounded half up (so a reason
+    never says 421 V beside a figure of 422 V, both from 421.46 V)."""
+    return np.floor(np.round(np.asarray(voltage_v, float), 1) + 0.5)
+
+
 def _levels_and_reasons(levels: list[np.ndarray], reasons: list[list[str | None]]):
     """Worst level per candidate, every reason given for it and those that count against it (in rule order)."""
     stacked = np.stack(levels)
@@ -343,7 +349,9 @@ def advise(
                 else f"rated {v:g} V is within the {rules.voltage_margin - 1:.0%} margin above the predicted {p:.0f} V"
                 if t
                 else f"rated {v:g} V covers the predicted {p:.0f} V with margin"
-                for v, p, b, t, u, d in zip(volts, predicted, below, tight, unresolved, as_designed, strict=True)
+                for v, p, b, t, u, d in zip(
+                    volts, shown_volts(predicted), below, tight, unresolved, as_designed, strict=True
+                )
             ],
         )
         # The motor's limits (the forecast's DriftLimits) with the candidate fitted, at its value and at the

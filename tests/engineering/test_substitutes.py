@@ -27,6 +27,7 @@ from fleet.engineering.substitutes import (
     Position,
     SubstituteRules,
     advise,
+    shown_volts,
     with_pairs,
 )
 from tests.engineering.test_motor_references import circuit as chapman_circuit
@@ -264,3 +265,13 @@ def test_without_a_circuit_judged_by_ratings_alone_within_the_marked_tolerance()
     assert advice.figures is None and np.isnan(advice.predicted_voltage_v).all()
     assert all(any("ratings alone" in r for r in reasons) for reasons in advice.reasons)
     assert "marked tolerance, 3.8-4.2 µF" in advice.reasons[1][0]
+
+
+@pytest.mark.parametrize("voltage_v", [421.46, 421.44, 420.5, 419.95, 0.049, 399.5])
+def test_a_reason_rounds_a_voltage_as_the_page_shows_its_figure(voltage_v):
+    """A walk: a reason said 421 V beside a figure of 422 V, both from 421.46 V (the figure stored to 0.1 V, then
+    shown to whole volts: rounded twice). [derived] `shown_volts` gives the whole volts Django's `floatformat:0`
+    shows for the value stored to 0.1 V (Django's documented filter, rounding half up)."""
+    from django.template.defaultfilters import floatformat
+
+    assert f"{float(shown_volts(voltage_v)):.0f}" == floatformat(round(voltage_v, 1), 0)
