@@ -56,6 +56,27 @@ def _database_cpu_seconds() -> dict[int, float]:
         return {pid: _cpu_seconds(pid) for (pid,) in cursor.fetchall()}
 
 
+def _server_background_cpu_seconds() -> dict[int, float]:
+    """CPU seconds so far of the database server's own processes (autovacuum, WAL writer, checkpointer,
+    background writer: work the refit causes that no connection is charged for); empty off PostgreSQL."""
+    if not on_postgresql():
+        return {}
+    with connection.cursor() as cursor:
+        cursor.execute("SELECT pid FROM pg_stat_activity WHERE backend_type <> 'client backend'")
+        return {pid: _cpu_seconds(pid) for (pid,) in cursor.fetchall()}
+
+
+def _machine_cpu_seconds() -> tuple[float, float]:
+    """The machine's (busy, idle) CPU seconds so far, over all cores (/proc/stat; nan without it): whether
+    a run left cores idle, or spent them in processes it does not count."""
+    try:
+        ticks = [int(n) for n in Path("/proc/stat").read_text().splitlines()[0].split()[1:9]]
+    except OSError:
+        return float("nan"), float("nan")
+    idle = ticks[3] + ticks[4]  # idle and waiting on I/O
+    return (sum(ticks) - idle) / os.sysconf("SC_CLK_TCK"), idle / os.sysconf("SC_CLK_TCK")
+
+
 def _peak_rss_mb(pid: int) -> float:
     """Peak resident memory of a process (VmHWM), in MB; nan where /proc is not there."""
     try:
@@ -139,6 +160,8 @@ class Command(BaseCommand):
         pids = [None, *(w.pid for w in workers)]
         cpu_before = [_cpu_seconds(pid) for pid in pids]
         database_before = _database_cpu_seconds()
+        background_before = _server_background_cpu_seconds()
+        machine_before = _machine_cpu_seconds()
         try:
             started = time.perf_counter()
             started_at = timezone.now()
@@ -151,6 +174,12 @@ class Command(BaseCommand):
         cpu = [_cpu_seconds(pid) - before for pid, before in zip(pids, cpu_before, strict=True)]
         database_cpu = sum(
             now - database_before.get(pid, 0.0) for pid, now in _database_cpu_seconds().items() if now == now
+        )
+        background_cpu = sum(
+            now - background_before.get(pid, 0.0) for pid, now in _server_background_cpu_seconds().items() if now == now
+        )
+        machine_busy, machine_idle = (
+            after - before for after, before in zip(_machine_cpu_seconds(), machine_before, strict=True)
         )
         run.refresh_from_db()
         self.say(
@@ -170,6 +199,10 @@ class Command(BaseCommand):
             + "".join(f", {c:.1f} s in worker {k + 1}" for k, c in enumerate(cpu[1:]))
             + f", {database_cpu:.1f} s in the database server's processes still connected"
             + f" ({(sum(cpu) + database_cpu) / max(run.readings, 1) * 1e6:.0f} CPU us a reading in all)"
+        )
+        self.say(
+            f"  the server's own processes (autovacuum, WAL, checkpoints): {background_cpu:.1f} s; the machine: "
+            f"{machine_busy:.1f} CPU-s busy, {machine_idle:.1f} idle"
         )
 
     def on_workers(self, count: int, floor_s: float, chunk_size: int) -> None:
