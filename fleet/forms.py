@@ -52,7 +52,12 @@ class ReadingForm(forms.Form):
     main_current_a = number("Main winding current", "A")
     aux_current_a = number("Auxiliary winding current", "A")
     line_current_a = number("Line current", "A")
-    case_temperature_c = number("Capacitor case temperature", "°C")
+    case_temperature_c = number(
+        "Capacitor case temperature",
+        "°C",
+        help_text="Capacitance moves with temperature: left empty, the reading is taken as at this capacitor's usual "
+        "case temperature.",
+    )
     ambient_temperature_c = number("Ambient temperature", "°C")
     esr_ohm = number("ESR", "Ω", help_text="Only where the meter measures it.")
     condition = forms.ChoiceField(

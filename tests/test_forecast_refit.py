@@ -86,6 +86,40 @@ def test_a_reading_below_tolerance_gives_replace_now_with_the_reason_and_not_tod
 
 
 @pytest.mark.django_db
+def test_readings_saved_without_a_case_temperature_keep_a_warm_capacitor_below_its_limit():
+    """A walk of the demo: a start capacitor read at 54-63 C was "replace now"; a technician saved two lower readings
+    without a case temperature and it became "watch", a year away: they were referred as if read at 25 C. They
+    are referred at the capacitor's usual case temperature now, and it stays below its limit. [derived] from the
+    referral to 25 C with a positive coefficient for electrolytics (section 1 of the engineering notes)."""
+    from fleet.services.readings import record_reading
+
+    part = make_part(code="ELEC-140", rated_uf=140.0, rated_voltage_v=330, dielectric="electrolytic")
+    fitted_capacitor = make_fitted_capacitor(
+        motor=make_motor(with_circuit=False), part=part, role="start", fitted_on=dt.date(2022, 6, 1)
+    )
+    quarterly_readings(fitted_capacitor, START, [142.0, 140.5, 139.0, 137.5, 136.0, 134.5], case_temperature_c=58.0)
+    now = START + dt.timedelta(days=5 * 91 + 1)
+    refit_fitted_capacitors([fitted_capacitor.id], now=now)
+    before = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    assert before.risk == "replace now", before.reason  # 134.5 uF at 58 C is under 133 uF at 25 C
+    for days, value in ((2, "134.3"), (3, "134.1")):
+        record_reading(
+            fitted_capacitor=fitted_capacitor,
+            values={"capacitance_uf": value, "taken_at": now + dt.timedelta(days=days)},
+            confirmed=True,
+        )
+    refit_fitted_capacitors([fitted_capacitor.id], now=now + dt.timedelta(days=4))
+    after = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    assert after.risk == "replace now", after.reason
+    assert after.capacitance_now_uf < 133.0, after.capacitance_now_uf
+    from fleet.services.pages import trend_chart
+
+    drawn = [y for t in trend_chart(fitted_capacitor, after)["data"] if "reading" in t["name"] for y in t["y"]]
+    for measured in (134.3, 134.1):  # drawn as the fit took them: at 58 C, +500 ppm/K
+        assert any(abs(y - measured / 1.0165) < 0.01 for y in drawn), (measured, drawn)
+
+
+@pytest.mark.django_db
 def test_a_limit_breached_at_rated_capacitance_is_a_finding_not_wear():
     """A circuit estimate that puts more than its rating across a new capacitor
     must not condemn it: the limit is set aside with a note."""

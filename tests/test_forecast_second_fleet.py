@@ -91,7 +91,7 @@ def test_forecast_holds_its_ground_on_a_second_independent_fleet(world, cutoff, 
     assert overall["after_p90"] <= 0.15, f"{overall['after_p90']:.0%} crossed after P90"
     # 25 % and 23 % today (above the 15 % target, see the expected failure below): no worse than a third.
     assert overall["before_p10"] <= 0.35, f"{overall['before_p10']:.0%} crossed before P10"
-    # 91 % and 95 % today (57 and 39 capacitors truly cross within the year): the issue's own target.
+    # 91 % and 92 % today (57 and 39 capacitors truly cross within the year): the issue's own target.
     assert overall["recall_365"] >= 0.85, f"365-day recall {overall['recall_365']:.0%}"
 
 
@@ -99,7 +99,8 @@ def test_forecast_holds_its_ground_on_a_second_independent_fleet(world, cutoff, 
     strict=True,
     reason="issue 8 targets not all met on the second fleet: before P10 25 % and 23 % of crossings at the two "
     "cut-offs (at most 15 %), 365-day precision 36 % and 27 % (at least 60 %); met: band 75 % and 77 % (film 72 % and "
-    "71 %, electrolytic 81 % and 88 %), after P90 0 %, recall 91 % and 95 %",
+    "71 %, electrolytic 81 % and 88 %), after P90 0 %, recall 91 % and 92 % (95 % before readings without a case "
+    "temperature were referred at their capacitor's usual one)",
 )
 @pytest.mark.parametrize("cutoff", CUTOFFS, ids=[str(c) for c in CUTOFFS])
 def test_forecast_meets_the_issue_targets_on_a_second_independent_fleet(world, cutoff, tmp_path):

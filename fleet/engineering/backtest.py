@@ -45,7 +45,7 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     tau = fit.stress_hours_now[g] + fit.stress_rate[g] * np.maximum(t - fit.hours_now[g], 0.0)
     fraction = normalise_to_25c(
         np.asarray(capacitance_uf, float) / np.asarray(rated_uf, float)[g],
-        np.asarray(temperature_c, float),
+        fit.case_temperatures_of(temperature_c, g),
         fit.tempco_ppm_per_k[g],
     )
     with np.errstate(divide="ignore", invalid="ignore"):

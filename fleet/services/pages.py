@@ -31,7 +31,7 @@ from fleet.charts import trend_figure
 from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
 from fleet.engineering.capacitor import normalise_to_25c
 from fleet.engineering.planning import RISK_ORDER, PlanningSettings
-from fleet.engineering.trends import default_tempco_ppm_per_k, reading_stress_hours
+from fleet.engineering.trends import case_temperatures, default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
 from fleet.models import (
     Assessment,
@@ -246,9 +246,13 @@ def trend_chart(
         return None
     frame = pd.DataFrame.from_records(readings)
     reading_taus = stress_hours_of_readings(fitted_capacitor, frame)
+    # Referred as the fit referred them: a reading without a case temperature at the capacitor's typical one.
+    temperature = np.array(frame["case_temperature_c"], float)  # a copy: filled in place below
+    fitted = ~frame["superseded"].to_numpy(bool)
+    temperature[fitted] = case_temperatures(np.zeros(int(fitted.sum()), np.int64), temperature[fitted], 1)
     corrected = normalise_to_25c(
         frame["capacitance_uf"].to_numpy(float),
-        frame["case_temperature_c"].to_numpy(float),
+        temperature,
         default_tempco_ppm_per_k(fitted_capacitor.part.dielectric)
         if assessment.tempco_ppm_per_k is None
         else assessment.tempco_ppm_per_k,

@@ -233,6 +233,51 @@ def test_a_capacitor_never_read_in_circuit_runs_at_its_parts_typical_voltage():
     assert result.stress_rate[0] == pytest.approx(0.75**10, rel=1e-6)
 
 
+def test_a_reading_without_a_case_temperature_is_referred_at_its_capacitors_usual_one():
+    """A walk of the demo: a start capacitor read at 54-63 C for years was below its limit ("replace now"); two
+    readings logged without a case temperature, lower than the last one, were referred as if taken at 25 C,
+    read 2 % above the referred history, and turned the trend up to "watch". [derived] The same capacitor read
+    at its usual temperature, that temperature left unrecorded, is referred at the median of its recorded
+    ones: the readings and the fit come out as if it had been recorded; a capacitor whose temperature was never
+    recorded keeps its values as measured. Electrolytic, +700 ppm/K: positive for aluminium electrolytics (from memory,
+    unverified), fixed here so only the referral is tested."""
+    tempco = 700.0
+    time_h = np.tile(np.arange(1, 13) * 2190.0, 4)
+    group = np.repeat(np.arange(4), 12)
+    true_fraction = 1.0 - 4e-6 * time_h  # the same path for each, at 25 C
+    temperature = np.where(group < 3, 58.0 + 4.0 * np.sin(time_h / 1000.0), 25.0)
+    measured = 140.0 * true_fraction * (1 + tempco * 1e-6 * (temperature - 25.0))
+    unrecorded = temperature.copy()
+    unrecorded[[10, 11]] = np.nan  # capacitor 0's last two readings
+    unrecorded[group == 3] = np.nan  # capacitor 3's temperature never recorded
+
+    def fitted(temperature_c):
+        return fit_trends(
+            group,
+            np.zeros(4, int),
+            time_h,
+            measured,
+            np.full(4, 140.0),
+            temperature_c,
+            np.full(group.size, 200.0),
+            np.full(4, 330.0),
+            settings=TrendSettings(model=MODEL_LINEAR),
+            tempco_ppm_per_k=np.full(4, tempco),
+            tempco_fixed=np.ones(4, bool),
+        )
+
+    recorded, left_out = fitted(temperature), fitted(unrecorded)
+    usual = np.median(temperature[:10])
+    expected = measured[10:12] / 140.0 / (1 + tempco * 1e-6 * (usual - 25.0))
+    assert left_out.fraction_25c[10:12] == pytest.approx(expected, rel=1e-12)
+    assert left_out.fraction_25c[10:12] == pytest.approx(true_fraction[10:12], abs=0.004)
+    assert left_out.slope_per_hour[0] == pytest.approx(recorded.slope_per_hour[0], rel=0.05)
+    assert left_out.slope_per_hour[0] < 0
+    assert left_out.fraction_25c[36:] == pytest.approx(measured[36:] / 140.0, rel=1e-12)
+    assert left_out.typical_temperature_c[0] == pytest.approx(usual) and np.isnan(left_out.typical_temperature_c[3])
+    assert left_out.case_temperatures_of([np.nan, 40.0], [0, 0]) == pytest.approx([usual, 40.0])
+
+
 def test_the_prior_bend_given_a_slope_is_the_bivariate_normal_regression():
     """The conditional mean of a bivariate normal given the other variable observed with
     independent noise is linear in it, with gain cov / (var + noise var) (Mood, Graybill

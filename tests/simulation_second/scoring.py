@@ -70,7 +70,8 @@ def risk_scores(g: pd.DataFrame, cut: pd.Timestamp) -> dict:
 
 
 def score(world: dict, cutoff, forecasts: pd.DataFrame) -> tuple[pd.DataFrame, dict]:
-    """Scores by group (all, electrolytic, film) as a table, and the counts of what was scored."""
+    """Scores by group (all, electrolytic, film, then each site's film and electrolytic) as a table, and the
+    counts of what was scored."""
     cut = pd.Timestamp(cutoff)
     caps = world["caps"]
     in_service = caps[(caps.fitted < cut) & (caps.removed.isna() | (caps.removed >= cut))]
@@ -86,7 +87,8 @@ def score(world: dict, cutoff, forecasts: pd.DataFrame) -> tuple[pd.DataFrame, d
         scored=len(g),
     )
     rows = []
-    for name, sub in [("all", g), *g.groupby("dielectric")]:
+    by_site = [(f"{site} {dielectric}", sub) for (site, dielectric), sub in g.groupby(["site", "dielectric"])]
+    for name, sub in [("all", g), *g.groupby("dielectric"), *by_site]:
         rows.append(dict(group=name, **risk_scores(sub, cut), **band_scores(sub, cut)))
     return pd.DataFrame(rows).set_index("group"), counts
 
