@@ -447,3 +447,22 @@ def test_dates_are_kept_on_one_line():
     evening = dt.datetime(2026, 12, 2, 23, 59, tzinfo=dt.timezone(dt.timedelta(hours=-5)))
     for value in (evening, dt.date(999, 1, 2)):  # [derived] the ISO day as Django's own "Y-m-d" writes it
         assert day(value) == f'<span class="nowrap">{date_format(value, "Y-m-d")}</span>'
+
+
+def test_a_defect_logged_is_said_again_once_saved_with_the_caution_and_shown_on_the_motor_page(client, technician):
+    """A fresh-eyes walk: a technician logged a bulged capacitor and the page they landed on said "Reading saved",
+    nothing more, and the motor page never said "bulged". The saved page now says what to do with it and the
+    caution for a damaged capacitor, and the motor page's readings show the defect. [trade] a bulged, leaking or
+    vented capacitor is replaced whatever it measures and handled as charged until discharged (common practice of
+    the trade, no single source); the site's rules and local codes govern how."""
+    bulged, sound = make_fitted_capacitor(), make_fitted_capacitor()
+    client.force_login(technician)
+    data = {"method": "meter", "capacitance_uf": "3.99", "case_temperature_c": "25", "condition": "bulged"}
+    page = client.post(reverse("reading_new", args=[bulged.id]), data, follow=True).content.decode()
+    said = " ".join(strip_tags(page).split())
+    assert f"Bulged or raised top: replace the run capacitor of {bulged.motor.asset_tag}, whatever it reads" in said
+    assert "may still hold its charge" in said and "local codes" in said
+    assert '3.99<br><b class="error-text">Bulged or raised top</b></td>' in page  # the motor page's reading
+    data["condition"] = "sound"
+    page = strip_tags(client.post(reverse("reading_new", args=[sound.id]), data, follow=True).content.decode())
+    assert "whatever it reads" not in page and "Bulged" not in page

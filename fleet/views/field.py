@@ -31,7 +31,7 @@ from fleet.filters import (
     takes_parameters,
 )
 from fleet.forms import ReadingForm, ReplacementForm
-from fleet.models import CapacitorPart, Motor
+from fleet.models import CapacitorPart, Motor, Reading
 from fleet.roles import needs_permission, refused
 from fleet.services import pages
 from fleet.services.readings import (
@@ -100,6 +100,8 @@ def reading_new(request, fitted_capacitor_id):
                         else "."
                     ),
                 )
+                if reading.condition != Reading.Condition.SOUND:
+                    messages.warning(request, damaged_capacitor_words(fitted_capacitor, reading))
                 # ?saved= tells the page to drop the draft the phone kept of this form. A correction goes back
                 # to the capacitor's page its "Correct" was on; a reading to its motor's, or its visit sheet.
                 back = _visit_sheet_to_return_to(request) or (
@@ -142,6 +144,17 @@ def reading_new(request, fitted_capacitor_id):
 
 
 # A reading form's address inside a service's message (a refused reading names the one to use instead).
+def damaged_capacitor_words(fitted_capacitor, reading) -> str:
+    """What a technician who just logged a defect seen (bulged, leaking, vented) is told to do: the reading form
+    says it live (reading_form.html), and the saved page again, as the motor page is where they go on from."""
+    return (
+        f"{reading.get_condition_display()}: replace the {fitted_capacitor.get_role_display().lower()} capacitor of "
+        f"{fitted_capacitor.motor.asset_tag}, whatever it reads, and do not run the motor on it. It may still hold "
+        "its charge: leave the motor isolated, discharge the capacitor and handle it as your site's rules and local "
+        "codes require."
+    )
+
+
 READING_FORM_ADDRESS = re.compile(r"(/fitted-capacitors/\d+/reading/)")
 
 
