@@ -145,7 +145,8 @@ class ReplacementForm(forms.Form):
     removed_on = forms.DateField(
         initial=timezone.localdate,
         label="Replaced on",
-        widget=forms.DateInput(attrs={"type": "date"}),
+        # The browser's order of day and month (12/04/2026 is 12 April to many): page.js says the day in words.
+        widget=forms.DateInput(attrs={"type": "date", "data-day-words": "replaced-day-words"}),
         error_messages={"required": "Enter the day you replaced it, e.g. 2026-03-14."},
     )
     removal_reason = forms.ChoiceField(

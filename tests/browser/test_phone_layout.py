@@ -376,3 +376,13 @@ def test_the_reading_time_is_said_in_words_beside_its_box(phone):
     phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
     phone.fill("#id_taken_at", "2026-03-14T09:30")
     assert phone.locator("#taken-day-words").inner_text() == "Saturday 2026-03-14 09:30"
+
+
+def test_the_replacement_day_is_said_in_words_beside_its_box(phone):
+    """A walk: "Replaced on" showed 12/04/2026 in the browser's order of day and month, read as 12 April beside
+    the ISO days of every other page, with nothing in words as the reading form and a visit's move say."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/replace/")
+    phone.fill("#id_removed_on", "2026-03-14")
+    assert phone.locator("#replaced-day-words").inner_text() == "Saturday 2026-03-14"
