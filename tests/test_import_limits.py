@@ -296,3 +296,14 @@ def test_a_workbook_named_csv_is_named_as_a_workbook():
     book.save(packed)
     with pytest.raises(FileRefused, match=r"a workbook or another zip file, not CSV text: an XLSX workbook must be"):
         read_table(packed.getvalue(), "sites.csv")
+
+
+def test_a_binary_file_is_refused_as_not_csv_text():
+    """A walk: a binary file of NUL bytes was refused as "column headings but no data rows", which sends the user
+    to add rows to a file that is no CSV at all. NUL is valid UTF-8; a NUL in a cell is reported at its row and
+    field (the test above), in the headings the file is no CSV text."""
+    with pytest.raises(FileRefused, match=r"its headings, holds a NUL character: it is not CSV text"):
+        read_table(b"\x00" * 64, "r.csv")
+    with pytest.raises(FileRefused, match=r"its headings, holds a NUL character"):
+        read_table(b"asset_tag,ro\x00le\nFAN-1,run\n", "r.csv")
+    assert read_table(b"asset_tag,role\nFAN-1\x00,run\n", "r.csv")[0] == ["asset_tag", "role"]  # a cell's: its row

@@ -111,6 +111,14 @@ def read_table(content: bytes, filename: str) -> tuple[list[str], NumberedRows |
     if filename.lower().endswith(".xlsx"):
         header, body = _read_xlsx(content, limits)
     else:
+        # NUL is valid UTF-8, and a cell holding one is reported at its row and field; headings holding one
+        # are no CSV text (a UTF-16 file or a zip is named as such by `_not_utf8`).
+        named_apart = content[:2] in (b"\xff\xfe", b"\xfe\xff") or content[:4] == b"PK\x03\x04"
+        if b"\x00" in content.split(b"\n", 1)[0] and not named_apart:
+            raise FileRefused(
+                "The file's first line, its headings, holds a NUL character: it is not CSV text but a binary file, "
+                'or text saved as UTF-16 ("Unicode text"). Save it as CSV UTF-8.'
+            )
         header, body = _read_csv(content, limits)
     _refuse_repeated_headings(header)
     if not len(body):
