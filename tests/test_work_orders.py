@@ -1020,3 +1020,22 @@ def test_a_defect_seen_on_a_read_again_reading_is_ordered_for_today_not_its_visi
     assert replacement.due_on == timezone.localdate()
     said = after_reading_again_words(Reading.objects.filter(fitted_capacitor=bulged).get())
     assert f"visit of {timezone.localdate():%Y-%m-%d}" in said and "bulged" in said
+
+
+def test_the_work_orders_list_says_each_orders_work_as_a_link(planner, technician):
+    """A walk: on a phone the work-orders list's only way to record a replacement was the part code's link, which
+    nothing said was an action; the visit sheet says "Record the replacement" and "Record the reading". The list
+    says them too, to the user who may do them, each opening the form and coming back to the list."""
+    site = make_site(code="LNK")
+    replaced = _due(site, MONDAY + dt.timedelta(days=30), 1)[0]
+    read = _due(site, MONDAY + dt.timedelta(days=30), 1, read_again=True)[0]
+    plan_work_orders(horizon_days=365, user=planner, today=MONDAY)
+    client = Client()
+    client.force_login(technician)
+    listed = client.get(reverse("work_orders")).content.decode()
+    back = f"?next={reverse('work_orders')}"
+    replace_link = f'href="{reverse("replace", args=[replaced.id])}{back}">Record the replacement</a>'
+    assert replace_link in listed
+    assert f'href="{reverse("reading_new", args=[read.id])}{back}">Record the reading</a>' in listed
+    client.force_login(planner)  # plans and issues orders; records no replacement
+    assert "Record the replacement" not in client.get(reverse("work_orders")).content.decode()

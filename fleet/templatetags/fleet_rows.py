@@ -81,13 +81,16 @@ def plan_rows(assessments):
 
 WORK_ORDER_ROW = """<tr>
     <td data-label="Motor"><a href="{motor_url}">{tag}</a><br><span class="muted">{location}</span></td>
-    <td data-label="Work">{kind}</td><td data-label="Part"><span class="nowrap">{part}</span>{bring}</td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
+    <td data-label="Work">{kind}{action}</td><td data-label="Part"><span class="nowrap">{part}</span>{bring}</td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
   """  # noqa: E501 (as the page's source shows it)
 PLAN_NOW = '<br><b class="plan-now">{}</b>'
 BRING_PART = '<br><span class="bring-part">a stop-gap: bring the design part <b class="nowrap part-code">{}</b></span>'
 
 
 PART_LINK = '<a class="nowrap part-code" href="{}">{}</a>'
+# The order's work said as a link, as the visit sheet says it (a walk found the part code alone read as no action).
+RECORD_READING = '<br><a class="glove field-work" href="{}">Record the reading</a>'
+RECORD_REPLACEMENT = '<br><a class="glove field-work record-replacement" href="{}">Record the replacement</a>'
 
 
 @register.simple_tag
@@ -101,10 +104,13 @@ def work_order_rows(orders, can_read=False, can_replace=False):
         capacitor = order.fitted_capacitor
         part = "" if capacitor is None else capacitor.part.code
         in_service = part and capacitor.removed_on is None
+        action = ""
         if in_service and can_read and order.reads_again:
-            part = format_html(PART_LINK, reverse("reading_new", args=[capacitor.id]) + back, part)
+            link = reverse("reading_new", args=[capacitor.id]) + back
+            part, action = format_html(PART_LINK, link, part), format_html(RECORD_READING, link)
         elif in_service and can_replace and not order.reads_again:
-            part = format_html(PART_LINK, reverse("replace", args=[capacitor.id]) + back, part)
+            link = reverse("replace", args=[capacitor.id]) + back
+            part, action = format_html(PART_LINK, link, part), format_html(RECORD_REPLACEMENT, link)
         rows.append(
             format_html(
                 WORK_ORDER_ROW,
@@ -112,6 +118,7 @@ def work_order_rows(orders, can_read=False, can_replace=False):
                 tag=order.motor.asset_tag,
                 location=order.motor.location,
                 kind=order.get_kind_display(),
+                action=action,
                 part=part,
                 bring=format_html(BRING_PART, order.bring_part.code) if getattr(order, "bring_part", None) else "",
                 state=order.get_state_display(),
