@@ -546,7 +546,7 @@ def _fit_a_stop_gap(visit: dict, technician, today: dt.date) -> None:
         user=technician,
         serial="on the visit",
         substitute_override=True,
-        override_reason=f"no {design.code} in the site store: a stop-gap until one comes",
+        override_reason=f"no {design.code} in the van on the visit: a stop-gap until one comes from the store",
     )
     stop_gap = FittedCapacitor.objects.get(motor_id=order.motor_id, role=order.fitted_capacitor.role, removed_on=None)
     # Read once fitted, as the trade does: the refit then judges the stop-gap on the motor as designed.
