@@ -315,6 +315,7 @@ def labels(request, site):
 
 @needs_permission("fleet.view_sitestock")
 @site_in_any_case
+@takes_parameters()
 def site_stock(request, site):
     """The spare capacitors held at a site; the planner sets the quantities, replacements take from them."""
     errors, typed = {}, {}

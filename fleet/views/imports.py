@@ -9,6 +9,7 @@ from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.utils.http import content_disposition_header
 
+from fleet.filters import takes_parameters
 from fleet.forms import ColumnMappingForm, ImportUploadForm
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
@@ -41,6 +42,7 @@ def _may_import_something(view):
 
 
 @_may_import_something
+@takes_parameters()
 def imports_home(request):
     kinds = importable_kinds(request.user)
     form = ImportUploadForm(request.POST or None, request.FILES or None, kinds=kinds)

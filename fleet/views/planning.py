@@ -347,6 +347,7 @@ def work_order_cancel(request, order_id):
 
 
 @needs_permission("fleet.view_fittedcapacitor")
+@takes_parameters()
 def stand_in_parts(request):
     """Fewer part numbers: per dielectric, how many motor designs each catalogue part would suit."""
     margin_pct = round((SubstituteRules().voltage_margin - 1) * 100)

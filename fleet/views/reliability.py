@@ -80,6 +80,7 @@ QUEUE_DOWN = (
 
 
 @needs_permission("fleet.view_refitrun")
+@takes_parameters()
 def refits(request):
     context = {
         "runs": recent_runs(10),
