@@ -386,3 +386,19 @@ def test_the_replacement_day_is_said_in_words_beside_its_box(phone):
     phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/replace/")
     phone.fill("#id_removed_on", "2026-03-14")
     assert phone.locator("#replaced-day-words").inner_text() == "Saturday 2026-03-14"
+
+
+def test_who_is_signed_in_is_said_on_a_phone_too(phone):
+    """A walk: at 390 px the header hid the user's name (no room), so a shared tablet never said who was signed
+    in. On a phone the "More" menu says it; on a wide screen the header does, once."""
+    user = make_user("technician")
+    sign_in(phone, user)
+    phone.set_viewport_size({"width": 390, "height": 800})
+    phone.goto("/")
+    assert not phone.locator("header .who").is_visible()
+    phone.locator("header details.more > summary").click()
+    said = phone.locator("header .who-in-menu")
+    assert said.is_visible() and said.inner_text().startswith(f"Signed in as {user.username}")
+    assert phone.evaluate("document.documentElement.scrollWidth") <= 390
+    phone.set_viewport_size({"width": 1366, "height": 800})
+    assert phone.locator("header .who").is_visible() and not said.is_visible()
