@@ -56,7 +56,7 @@ class ReadingForm(forms.Form):
         "Capacitor case temperature",
         "°C",
         help_text="Capacitance moves with temperature: left empty, the reading is taken as at this capacitor's usual "
-        "case temperature.",
+        "case temperature (at 25 °C until one is recorded).",
     )
     ambient_temperature_c = number("Ambient temperature", "°C")
     esr_ohm = number("ESR", "Ω", help_text="Only where the meter measures it.")

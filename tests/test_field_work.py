@@ -449,7 +449,9 @@ def test_dates_are_kept_on_one_line():
         assert day(value) == f'<span class="nowrap">{date_format(value, "Y-m-d")}</span>'
 
 
-def test_a_defect_logged_is_said_again_once_saved_with_the_caution_and_shown_on_the_motor_page(client, technician):
+def test_a_defect_logged_is_said_again_once_saved_with_the_caution_and_shown_on_the_motor_page(
+    client, technician, django_capture_on_commit_callbacks
+):
     """A fresh-eyes walk: a technician logged a bulged capacitor and the page they landed on said "Reading saved",
     nothing more, and the motor page never said "bulged". The saved page now says what to do with it and the
     caution for a damaged capacitor, and the motor page's readings show the defect. [trade] a bulged, leaking or
@@ -458,11 +460,41 @@ def test_a_defect_logged_is_said_again_once_saved_with_the_caution_and_shown_on_
     bulged, sound = make_fitted_capacitor(), make_fitted_capacitor()
     client.force_login(technician)
     data = {"method": "meter", "capacitance_uf": "3.99", "case_temperature_c": "25", "condition": "bulged"}
-    page = client.post(reverse("reading_new", args=[bulged.id]), data, follow=True).content.decode()
+    with django_capture_on_commit_callbacks(execute=True):  # the refit the save queues
+        page = client.post(reverse("reading_new", args=[bulged.id]), data, follow=True).content.decode()
     said = " ".join(strip_tags(page).split())
     assert f"Bulged or raised top: replace the run capacitor of {bulged.motor.asset_tag}, whatever it reads" in said
     assert "may still hold its charge" in said and "local codes" in said
     assert '3.99<br><b class="error-text">Bulged or raised top</b></td>' in page  # the motor page's reading
+    # A re-walk: the motor page then said the plan was "replace now" because "it judges the readings referred to
+    # 25 °C and their trend": the defect is why, and the capacitor page's readings show it too.
+    motor_page = client.get(reverse("motor", args=[bulged.motor.asset_tag])).content.decode()
+    motor_page = " ".join(strip_tags(motor_page).split())
+    assert "because a capacitor seen bulged, leaking or vented is replaced whatever it measures" in motor_page
+    assert "referred to 25" not in motor_page
+    capacitor_page = client.get(reverse("fitted_capacitor", args=[bulged.id])).content.decode()
+    assert '3.99<br><b class="error-text">Bulged or raised top</b></td>' in capacitor_page
     data["condition"] = "sound"
     page = strip_tags(client.post(reverse("reading_new", args=[sound.id]), data, follow=True).content.decode())
     assert "whatever it reads" not in page and "Bulged" not in page
+
+
+def test_a_start_capacitors_reading_lands_at_its_card_on_the_motor_page(client, technician):
+    """A re-walk: after the start capacitor of a two-value motor was read, its motor's page opened at the top, on
+    the run capacitor, the start capacitor's new verdict some 3,700 px down a phone. A sound reading of a capacitor
+    listed below another lands at its own card; a run capacitor's (the first card), or a defect's (its warning is
+    at the top), lands at the top."""
+    motor = make_motor(motor_type="two_value")
+    run = make_fitted_capacitor(motor=motor, role="run")
+    start = make_fitted_capacitor(
+        motor=motor, role="start", part=make_part(rated_uf=40.0, rated_voltage_v=250, dielectric="electrolytic")
+    )
+    client.force_login(technician)
+    data = {"method": "meter", "capacitance_uf": "40.5", "case_temperature_c": "25", "condition": "sound"}
+    landed = client.post(reverse("reading_new", args=[start.id]), data)["Location"]
+    assert landed.endswith(f"?saved={start.id}#capacitor-{start.id}"), landed
+    assert f'id="capacitor-{start.id}"' in client.get(landed.split("#")[0]).content.decode()
+    data["capacitance_uf"] = "3.99"
+    assert "#" not in client.post(reverse("reading_new", args=[run.id]), data)["Location"]
+    data.update(capacitance_uf="40.4", condition="leaking")
+    assert "#" not in client.post(reverse("reading_new", args=[start.id]), data)["Location"]

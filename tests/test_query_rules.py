@@ -318,6 +318,7 @@ def test_the_api_keeps_site_codes_exact(engineer, two_sites):
         ("refits", "site"),
         ("imports", "kind"),
         ("site_stock", "part"),
+        ("home", "site"),
     ],
 )
 def test_a_page_names_a_parameter_it_does_not_take(client, administrator, two_sites, name, parameter):
@@ -373,3 +374,12 @@ def test_the_other_pages_name_a_parameter_they_do_not_take_too(client, administr
         response = client.get(url)
         notes = [str(m) for m in response.context["messages"]]
         assert response.status_code == 200 and any("Not a parameter of this page" in n for n in notes), (url, notes)
+
+
+def test_the_work_orders_list_takes_the_saved_reading_it_comes_back_with(client, technician, two_sites):
+    """A walk: a first reading recorded from the work-orders list came back to `/work-orders/?saved=132` (the
+    reading form's draft to drop), and the list said "Ignored saved: Not a parameter of this page". It takes it,
+    as the motor page and the visit sheet do."""
+    client.force_login(technician)
+    shown = client.get(reverse("work_orders"), {"saved": two_sites[0].id})
+    assert shown.status_code == 200 and not [str(m) for m in shown.context["messages"]]

@@ -504,6 +504,9 @@ def _format_each(values, spec: str, where=None) -> np.ndarray:
     return text
 
 
+DEFECT_REASON = "latest reading found the capacitor "  # then the defect: the reason of a capacitor seen damaged
+
+
 def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     """What the newest reading itself shows, strongest first, with its words."""
     condition = latest["condition"].fillna(CONDITION_SOUND).to_numpy(object)
@@ -527,7 +530,7 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     text = np.select(
         [defect, open_or_short, df_high],
         [
-            "latest reading found the capacitor " + condition.astype(str),
+            DEFECT_REASON + condition.astype(str),
             verdict_words + ": latest reading " + uf + " \u00b5F",
             "dissipation factor " + df_pct + " %, above the part's " + max_pct + " % maximum",
         ],

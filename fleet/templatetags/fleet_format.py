@@ -16,7 +16,7 @@ from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
 from fleet.engineering.lifedata import age_in_words
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
 from fleet.engineering.rules import microfarad_text
-from fleet.services.assessments import DISSIPATION_LIMIT
+from fleet.services.assessments import DEFECT_REASON, DISSIPATION_LIMIT
 from fleet.services.workorders import READ_FOR_WORDS
 
 register = template.Library()
@@ -95,7 +95,9 @@ def verdict_and_risk(assessment, reason_shown_above=""):
     if reason_shown_above:
         reason = "see Why, above"
     if within and assessment.risk in (RISK_REPLACE_NOW, RISK_DUE_SOON):
-        if assessment.limit_source == DISSIPATION_LIMIT:
+        if (assessment.reason or "").startswith(DEFECT_REASON):
+            because = "a capacitor seen bulged, leaking or vented is replaced whatever it measures"
+        elif assessment.limit_source == DISSIPATION_LIMIT:
             because = "its dissipation factor (from the ESR readings) reaches the part's maximum first"
         elif assessment.limit_source != TOLERANCE_LIMIT:
             because = (

@@ -31,7 +31,7 @@ from fleet.filters import (
     takes_parameters,
 )
 from fleet.forms import ReadingForm, ReplacementForm
-from fleet.models import CapacitorPart, Motor, Reading
+from fleet.models import CapacitorPart, FittedCapacitor, Motor, Reading
 from fleet.roles import needs_permission, refused
 from fleet.services import pages
 from fleet.services.readings import (
@@ -103,13 +103,14 @@ def reading_new(request, fitted_capacitor_id):
                 if reading.condition != Reading.Condition.SOUND:
                     messages.warning(request, damaged_capacitor_words(fitted_capacitor, reading))
                 # ?saved= tells the page to drop the draft the phone kept of this form. A correction goes back
-                # to the capacitor's page its "Correct" was on; a reading to its motor's, or its visit sheet.
-                back = _visit_sheet_to_return_to(request) or (
-                    reverse("fitted_capacitor", args=[fitted_capacitor.id])
-                    if reading.supersedes_id
-                    else reverse("motor", args=[fitted_capacitor.motor.asset_tag])
-                )
-                return redirect(f"{back}{'&' if '?' in back else '?'}saved={fitted_capacitor.id}")
+                # to the capacitor's page its "Correct" was on; a reading to its visit sheet, or to its motor's page.
+                back, at = _visit_sheet_to_return_to(request), ""
+                if back is None and reading.supersedes_id:
+                    back = reverse("fitted_capacitor", args=[fitted_capacitor.id])
+                elif back is None:
+                    back = reverse("motor", args=[fitted_capacitor.motor.asset_tag])
+                    at = _at_the_capacitor_read(fitted_capacitor, reading)
+                return redirect(f"{back}{'&' if '?' in back else '?'}saved={fitted_capacitor.id}{at}")
     else:
         corrects = None if named_if_repeated(request, ["corrects"]) else query_value(request.GET, "corrects")
         form = ReadingForm(initial={"supersedes": corrects}, time_zone=zone)
@@ -144,6 +145,18 @@ def reading_new(request, fitted_capacitor_id):
 
 
 # A reading form's address inside a service's message (a refused reading names the one to use instead).
+def _at_the_capacitor_read(fitted_capacitor, reading) -> str:
+    """Where on its motor's page to land after a reading: at a start capacitor listed below its run capacitor
+    (a screen or two down a phone, a walk found), unless the page's top says more than "saved" (a defect seen)."""
+    below_another = (
+        fitted_capacitor.role == FittedCapacitor.Role.START
+        and FittedCapacitor.objects.filter(motor_id=fitted_capacitor.motor_id, removed_on__isnull=True)
+        .exclude(pk=fitted_capacitor.pk)
+        .exists()
+    )
+    return f"#capacitor-{fitted_capacitor.id}" if below_another and reading.condition == Reading.Condition.SOUND else ""
+
+
 def damaged_capacitor_words(fitted_capacitor, reading) -> str:
     """What a technician who just logged a defect seen (bulged, leaking, vented) is told to do: the reading form
     says it live (reading_form.html), and the saved page again, as the motor page is where they go on from."""
@@ -183,6 +196,7 @@ def _stock_message(request, successor) -> None:
 
 
 @needs_permission("fleet.add_fittedcapacitor")
+@takes_parameters("next")
 def replace(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     if fitted_capacitor.removed_on and request.method != "POST":  # a POST is refused by the service, with the form

@@ -105,7 +105,7 @@ PLAN_CHANGES_SHOWN = 20  # the plan lists this many riskier and as many less ris
 
 
 @needs_permission("fleet.view_workorder")
-@takes_parameters("page")
+@takes_parameters("page", "saved")  # ?saved=<capacitor>: a reading's draft to drop (base.html)
 def work_orders(request):
     """Open work orders by site visit; planners create them from the plan and issue visits."""
     if request.method == "POST":
@@ -175,6 +175,7 @@ def plan_message(counts: dict) -> str:
 
 @needs_permission("fleet.view_workorder")
 @site_in_any_case
+@takes_parameters("page", "saved")
 def visit_sheet(request, site, day):
     """A printable sheet for one site visit: the orders (a page at a time), the spares, the cautions; the
     planner moves the whole visit to another day from it (a public holiday: visits skip weekends only)."""

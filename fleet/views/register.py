@@ -19,6 +19,7 @@ from fleet.services.operating_pictures import motor_pictures
 from fleet.services.selectors import successor_of
 
 
+@takes_parameters()
 def home(request):
     context = {"find_form": FindMotorForm(), "sites": scope_to_user(Site.objects.all(), request.user)}
     if request.user.has_perm("fleet.view_assessment"):
