@@ -46,23 +46,18 @@ def _cpu_seconds(pid: int | None = None) -> float:
     return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
 
-def _database_cpu_seconds() -> dict[int, float]:
-    """CPU seconds so far of each server process connected to this database (PostgreSQL on this
-    machine; empty otherwise)."""
+DATABASE_CONNECTIONS = "datname = current_database()"  # each server process connected to this database
+SERVER_OWN = "backend_type <> 'client backend'"  # autovacuum, WAL writer, checkpointer, background writer
+
+
+def _database_cpu_seconds(which: str = DATABASE_CONNECTIONS) -> dict[int, float]:
+    """CPU seconds so far of the database server's processes `which` selects (PostgreSQL on this machine;
+    empty otherwise): its connections to this database, or its own processes, whose work a refit causes but
+    no connection is charged for."""
     if not on_postgresql():
         return {}
     with connection.cursor() as cursor:
-        cursor.execute("SELECT pid FROM pg_stat_activity WHERE datname = current_database()")
-        return {pid: _cpu_seconds(pid) for (pid,) in cursor.fetchall()}
-
-
-def _server_background_cpu_seconds() -> dict[int, float]:
-    """CPU seconds so far of the database server's own processes (autovacuum, WAL writer, checkpointer,
-    background writer: work the refit causes that no connection is charged for); empty off PostgreSQL."""
-    if not on_postgresql():
-        return {}
-    with connection.cursor() as cursor:
-        cursor.execute("SELECT pid FROM pg_stat_activity WHERE backend_type <> 'client backend'")
+        cursor.execute(f"SELECT pid FROM pg_stat_activity WHERE {which}")
         return {pid: _cpu_seconds(pid) for (pid,) in cursor.fetchall()}
 
 
@@ -160,7 +155,7 @@ class Command(BaseCommand):
         pids = [None, *(w.pid for w in workers)]
         cpu_before = [_cpu_seconds(pid) for pid in pids]
         database_before = _database_cpu_seconds()
-        background_before = _server_background_cpu_seconds()
+        background_before = _database_cpu_seconds(SERVER_OWN)
         machine_before = _machine_cpu_seconds()
         try:
             started = time.perf_counter()
@@ -175,9 +170,8 @@ class Command(BaseCommand):
         database_cpu = sum(
             now - database_before.get(pid, 0.0) for pid, now in _database_cpu_seconds().items() if now == now
         )
-        background_cpu = sum(
-            now - background_before.get(pid, 0.0) for pid, now in _server_background_cpu_seconds().items() if now == now
-        )
+        background_now = _database_cpu_seconds(SERVER_OWN)
+        background_cpu = sum(now - background_before.get(pid, 0.0) for pid, now in background_now.items() if now == now)
         machine_busy, machine_idle = (
             after - before for after, before in zip(_machine_cpu_seconds(), machine_before, strict=True)
         )
