@@ -448,7 +448,9 @@ def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in,
     assert "is empty: type its place on the round" in emptied
     first.refresh_from_db()
     assert first.route_order == 1
-    client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "3"})
+    saved = client.post(url, {f"order-{first.id}": "5", f"order-{second.id}": "3"})
+    assert saved["Location"] == url  # back to the route as it was asked for (a walk saw a stray "?" on it)
+    assert client.post(f"{url}?show=due", {f"order-{first.id}": "5"})["Location"] == f"{url}?show=due"
     first.refresh_from_db()
     assert first.route_order == 5
     body = client.get(url).content.decode()

@@ -270,7 +270,8 @@ def site_route(request, site):
             order_errors, typed = error.message_dict, positions
         else:
             messages.success(request, " ".join(filter(None, ["Walking order saved.", saved.words()])))
-            return redirect(f"{reverse('route', args=[site.code])}?{request.GET.urlencode()}")
+            query = request.GET.urlencode()  # the page and filter the walking order was saved from
+            return redirect(reverse("route", args=[site.code]) + (f"?{query}" if query else ""))
     values = page_values(RoutePage, request)
     only_due = values.get("show") == "due"
     motors, counts, days = pages.route_for_site(site, only_due=only_due)
