@@ -136,6 +136,9 @@ class ReadingForm(forms.Form):
 
 
 class ReplacementForm(forms.Form):
+    # As the page lays the fields out (replace.html), so its error summary lists them in the order they are seen.
+    field_order = ["removal_reason", "part", "substitute_override", "override_reason", "serial", "removed_on", "notes"]
+
     part = forms.ModelChoiceField(
         queryset=CapacitorPart.objects.none(),
         label="Part fitted now",

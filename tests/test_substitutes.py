@@ -477,3 +477,15 @@ def test_the_design_rating_the_refit_reads_is_the_design_part_the_pages_name():
         "RUN-10.0-450",
         "RUN-6.0-450",
     ]
+
+
+def test_the_replacement_forms_error_summary_lists_the_fields_in_the_pages_order(client, technician):
+    """A re-walk: the summary of a refused replacement listed "Replaced on" before "Why the old one came out",
+    the opposite of the page. It lists each refused field in the order the page shows them."""
+    fitted_capacitor = make_fitted_capacitor()
+    signed_in_client(client, technician)
+    body = post_replacement(client, fitted_capacitor, fitted_capacitor.part, removal_reason="", removed_on="")
+    page = body.content.decode()
+    summary = page[page.index('id="error-summary"') :].split("</ul>")[0]
+    assert summary.index("#wrap_removal_reason") < summary.index("#wrap_removed_on"), summary
+    assert page.index('id="wrap_removal_reason"') < page.index('id="wrap_removed_on"')
