@@ -433,6 +433,25 @@ def test_route_lists_the_sites_motors_in_walking_order(signed_in, technician, fa
     assert "<svg" in labels.content.decode()
 
 
+def test_a_motor_with_a_capacitor_to_replace_now_says_so_on_the_route(signed_in, technician):
+    """A re-walk: a motor read this quarter and found bulged stood on the route as plain "done"; the technician
+    walking it saw no sign of the job. Its row says "replace now" and which capacitor; a motor at any other risk
+    level says nothing more."""
+    from tests.factories import make_fitted_capacitor, make_motor, make_site, stored_assessment
+
+    site = make_site()
+    urgent = make_fitted_capacitor(motor=make_motor(site=site, route_order=1))
+    calm = make_fitted_capacitor(motor=make_motor(site=site, route_order=2))
+    stored_assessment(urgent, "replace now", timezone.localdate())
+    stored_assessment(calm, "watch", timezone.localdate() + dt.timedelta(days=200))
+    body = signed_in(technician).get(reverse("route", args=[site.code])).content.decode()
+    rows = {
+        tag: body.split(f">{tag}</a>")[1].split("</tr>")[0] for tag in (urgent.motor.asset_tag, calm.motor.asset_tag)
+    }
+    assert "replace now: run capacitor" in rows[urgent.motor.asset_tag]
+    assert "replace now" not in rows[calm.motor.asset_tag]
+
+
 def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in, planner, technician):
     from tests.factories import make_motor, make_site
 

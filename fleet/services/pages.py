@@ -30,7 +30,7 @@ from django.utils import timezone
 from fleet.charts import trend_figure
 from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
 from fleet.engineering.capacitor import normalise_to_25c
-from fleet.engineering.planning import RISK_ORDER, PlanningSettings
+from fleet.engineering.planning import RISK_ORDER, RISK_REPLACE_NOW, PlanningSettings
 from fleet.engineering.trends import case_temperatures, default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
 from fleet.models import (
@@ -423,8 +423,8 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
 class RouteRows:
     """A route's motors as a Paginator pages them: their number as the ledger counts it (no count of the
     site's motors), a page's motors read in one query, each with `still_to_read`
-    (`positions_still_to_read` since the quarter began, one more query of values) and `read_again`
-    (`read_again_by_motor`, one more)."""
+    (`positions_still_to_read` since the quarter began, one more query of values), `read_again`
+    (`read_again_by_motor`, one more) and `replace_now` (`replace_now_by_motor`, one more)."""
 
     def __init__(self, motors, count: int, since: dt.datetime):
         self.motors, self.length, self.since = motors, count, since
@@ -440,8 +440,10 @@ class RouteRows:
         motor_ids = [motor.id for motor in motors]
         unread = positions_still_to_read(motor_ids, self.since) if motors else {}
         reread = read_again_by_motor(motor_ids) if motors else {}
+        urgent = replace_now_by_motor(motor_ids) if motors else {}
         for motor in motors:
             motor.still_to_read, motor.read_again = unread.get(motor.id, []), reread.get(motor.id, [])
+            motor.replace_now = urgent.get(motor.id, [])
         return motors
 
 
@@ -491,6 +493,26 @@ def read_again_by_motor(motor_ids: list[int]) -> dict[int, list[dict]]:
             }
         )
     return dict(orders)
+
+
+def replace_now_by_motor(motor_ids: list[int]) -> dict[int, list[str]]:
+    """The capacitors in service at "replace now" on each of `motor_ids` (their roles in words, in role order);
+    one query of values, for a route row: a motor read this quarter and found bulged is "done" as a reading, not
+    as a job."""
+    rows = (
+        Assessment.objects.filter(
+            is_current=True,
+            capacitor_in_service=True,
+            risk=RISK_REPLACE_NOW,
+            fitted_capacitor__motor_id__in=motor_ids,
+        )
+        .order_by("fitted_capacitor__motor_id", "fitted_capacitor__role")
+        .values_list("fitted_capacitor__motor_id", "fitted_capacitor__role")
+    )
+    roles = defaultdict(list)
+    for motor_id, role in rows:
+        roles[motor_id].append(ROLE_NAMES[role])
+    return dict(roles)
 
 
 def not_superseded() -> Exists:

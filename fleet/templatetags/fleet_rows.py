@@ -152,6 +152,8 @@ READ_AGAIN_LINE = (
     '<br><span class="read-again">read again: work order {order_id} for the {capacitor}, visit {due_on}</span>'
 )
 READ_AGAIN_FORM = ' <a class="nowrap glove field-work" href="{}">Record the reading</a>'
+# Read or not, a motor with a capacitor to replace now says so on the route (a walk saw a bulged one as "done").
+REPLACE_NOW_LINE = '<br><b class="error-text route-replace-now">replace now: {}</b>'
 HAS_ERROR = mark_safe(' class="has-error"')
 OVERDUE = mark_safe('<b class="error-text">overdue</b>')
 TO_READ = mark_safe("<b>to read</b>")
@@ -191,9 +193,10 @@ def route_rows(motors, can_order, typed=None, errors=None, can_read=False):
                 application=motor.get_application_display(),
                 status=OVERDUE if motor.overdue else TO_READ if motor.due else "done",
                 unread=format_html(
-                    "{}{}",
+                    "{}{}{}",
                     format_html('<br><span class="muted">{} still to read</span>', unread) if unread else "",
                     _read_again_lines(motor.read_again, can_read),
+                    format_html(REPLACE_NOW_LINE, " and ".join(motor.replace_now)) if motor.replace_now else "",
                 ),
                 last_read=day(template_localtime(motor.last_read_at)) or "never",
             )
