@@ -916,3 +916,20 @@ def test_a_label_sheet_printed_again_encodes_no_qr_code_anew(signed_in, technici
     fresh = io.BytesIO()
     real_make(address, error="m").save(fresh, kind="svg", scale=4, border=1, xmldecl=False, svgns=True)
     assert fresh.getvalue().decode() in second
+
+
+def test_the_capacitor_page_says_which_crossing_its_replace_by_date_follows(signed_in, technician):
+    """A re-walk: "Replace by 2027-02-21" stood 7 days before the early date shown, not the 30 days a technician
+    had read of: the date follows the crossing quantile the back-test chose (P30 for that family), which the
+    page did not show. It says so, with the level stored for the capacitor's dielectric."""
+    from fleet.models import BandCalibration
+    from tests.factories import make_fitted_capacitor, stored_assessment
+
+    fitted_capacitor = make_fitted_capacitor()
+    stored_assessment(fitted_capacitor, "watch", timezone.localdate() + dt.timedelta(days=200))
+    url = reverse("fitted_capacitor", args=[fitted_capacitor.id])
+    page = " ".join(signed_in(technician).get(url).content.decode().split())
+    assert "Replace by follows the P10 crossing, 30 days before it" in page
+    BandCalibration.objects.create(family="film", slope_bias=0.3, slope_spread=0.75, alert_quantile=0.3)
+    page = " ".join(signed_in(technician).get(url).content.decode().split())
+    assert "Replace by follows the P30 crossing, 30 days before it" in page and "for metallised film" in page

@@ -670,6 +670,12 @@ def first_assessed_due(days: int = 7, limit: int = 50, user=None, site: Site | N
     return list(rows), fresh.count()
 
 
+def alert_level_percent(dielectric: str) -> int:
+    """The crossing quantile, in percent, that a capacitor of this dielectric's risk level and replace-by date
+    follow (`alert_level_words`, for one family)."""
+    return round(100 * stored_alert_levels().get(dielectric, PlanningSettings().alert_level))
+
+
 def alert_level_words() -> str:
     """The crossing quantile the risk level and the replace-by date follow, per dielectric, in words:
     "P50 for metallised film (run), P10 for aluminium electrolytic (start)"; P10 before any back-test."""

@@ -10,6 +10,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.engineering.capacitor import stored_energy_j
+from fleet.engineering.planning import PlanningSettings
 from fleet.filters import named_if_repeated, query_value, takes_parameters
 from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
@@ -127,6 +128,8 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "chart": pages.trend_chart(fitted_capacitor, assessment),
         "readings": pages.recent_readings(fitted_capacitor, 40),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
+        "alert_percent": pages.alert_level_percent(fitted_capacitor.part.dielectric),
+        "rules": PlanningSettings(),
     }
     with timezone.override(site_zone(fitted_capacitor.motor.site.time_zone)):  # as the reading form shows them
         return render(request, "fleet/capacitor.html", context)
