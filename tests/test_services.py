@@ -488,6 +488,35 @@ def test_an_open_order_the_plan_no_longer_asks_for_says_what_the_plan_says_now(p
     assert open_visits_page(1).object_list[0]["orders"][0].plan_now == "plan now: sound, no replacement planned"
 
 
+def test_an_order_whose_capacitor_is_now_to_replace_before_its_visit_says_so(planner):
+    """A re-walk: a capacitor logged "Leaking" (replace now, by today) kept its order on a visit a week on, its
+    reason the old one, with nothing said. The order says what the plan asks now, "before this visit"; a
+    capacitor merely "due soon" a few days before its visit's day says nothing (visits bundle a window of
+    due days, [trade] one trip per site and window)."""
+    from fleet.services.workorders import with_current_plan, with_plan_now
+
+    today = timezone.localdate()
+    site = make_site(code="SOONER")
+    leaking, due = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2))
+    for fitted_capacitor in (leaking, due):
+        WorkOrder.objects.create(
+            motor=fitted_capacitor.motor,
+            fitted_capacitor=fitted_capacitor,
+            kind="replace_run",
+            due_on=today + dt.timedelta(days=7),
+            window_days=14,
+            state="issued",
+        )
+    stored_assessment(leaking, "replace now", today)
+    stored_assessment(due, "due soon", today + dt.timedelta(days=3))
+    Assessment.objects.filter(is_current=True).update(read_again=False)
+    orders = with_plan_now(with_current_plan(WorkOrder.objects.order_by("motor__route_order")))
+    assert [o.plan_now for o in orders] == [
+        f"plan now: replace now, replace by {today.isoformat()}, before this visit",
+        "",
+    ]
+
+
 def test_an_order_moved_earlier_is_judged_from_the_day_the_plan_gave_it(planner):
     """A walk found "plan now: due soon, replace by 2026-12-30" on orders a planner had moved from the 12-24 visit
     to 12-10 (a merge): the plan's own visit for them, 12-24, holds that date, and replacing before it is no

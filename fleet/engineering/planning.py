@@ -416,22 +416,36 @@ def risk_levels(replace_now, alert_days, settings: PlanningSettings | None = Non
 
 
 def plan_moved_words(
-    *, order_reads_again, order_due_days, window_days, plan_risk, plan_read_again, plan_due_days, today: dt.date
+    *,
+    order_reads_again,
+    order_due_days,
+    window_days,
+    plan_risk,
+    plan_read_again,
+    plan_due_days,
+    today: dt.date,
+    order_visit_days=None,
 ) -> np.ndarray:
     """Per open work order, in words, what its capacitor's current plan asks where that is no longer the
     order's work in its visit ("plan now: watch, replace by 2027-01-03"); empty where it still is.
 
     The plan no longer asks for the order's work when it plans no replacement, asks for the other kind
     (read again or replace), or dates the replacement after the order's visit window (due day plus
-    `window_days`: the plan would not put it in this visit). Days count from `today` (inf: none)."""
+    `window_days`: the plan would not put it in this visit). An order whose capacitor the plan now says to
+    replace now, by a day before the order's visit (`order_visit_days`, the visit's own day), says so too
+    ("..., before this visit"): a capacitor seen bulged a week before its visit waits for no visit (a walk
+    found one silent). Days count from `today` (inf: none)."""
     order_due = np.asarray(order_due_days, float)
     plan_due = np.asarray(plan_due_days, float)
     plan_again = np.asarray(plan_read_again, bool)
     no_date = ~np.isfinite(plan_due)
+    visit = order_due if order_visit_days is None else np.asarray(order_visit_days, float)
+    sooner = ~no_date & (np.asarray(plan_risk, dtype=object) == RISK_REPLACE_NOW) & (plan_due < visit)
     moved = (
         no_date
         | (np.asarray(order_reads_again, bool) != plan_again)
         | (plan_due > order_due + np.asarray(window_days, float))
+        | sooner
     )
     when = np.where(
         no_date,
@@ -442,6 +456,7 @@ def plan_moved_words(
             unit="D",
         ).astype(object),
     )
+    when = np.where(sooner, when + ", before this visit", when)
     return np.where(moved, "plan now: " + np.asarray(plan_risk, dtype=object) + ", " + when, "")
 
 

@@ -187,6 +187,9 @@ def _still_cancelled(candidates, today: dt.date) -> set[int]:
         plan_read_again=[bool(reread) for *_, reread, _ in candidates],
         plan_due_days=[(replace_by - today).days for *_, replace_by in candidates],
         today=today,
+        # A cancellation holds however soon the plan now asks for the same work: the planner cancelled it on
+        # what the plan asked then, and a new plan must not undo that by bringing it forward.
+        order_visit_days=np.full(len(candidates), -np.inf),
     )
     return {
         o.fitted_capacitor_id
@@ -653,6 +656,7 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
         plan_read_again=[bool(o.plan_read_again) for o in orders],
         plan_due_days=[np.inf if o.plan_replace_by is None else (o.plan_replace_by - today).days for o in orders],
         today=today,
+        order_visit_days=[(o.due_on - today).days for o in orders],
     )
     for order, text in zip(orders, words, strict=True):
         swap = (
