@@ -472,6 +472,7 @@ def test_a_defect_logged_is_said_again_once_saved_with_the_caution_and_shown_on_
     motor_page = " ".join(strip_tags(motor_page).split())
     assert "because a capacitor seen bulged, leaking or vented is replaced whatever it measures" in motor_page
     assert "referred to 25" not in motor_page
+    assert "Latest: bulged (within tolerance as measured)." in motor_page  # not a green "within tolerance"
     capacitor_page = client.get(reverse("fitted_capacitor", args=[bulged.id])).content.decode()
     assert '3.99<br><b class="error-text">Bulged or raised top</b></td>' in capacitor_page
     data["condition"] = "sound"

@@ -84,6 +84,14 @@ def day(value, pattern=ISO_DAY):
 
 
 @register.filter
+def defect_seen(assessment) -> str:
+    """The defect its newest reading found ("bulged", "leaking", "vented"), from the reason it was judged on;
+    "" where none was."""
+    reason = "" if assessment is None else assessment.reason or ""
+    return reason[len(DEFECT_REASON) :] if reason.startswith(DEFECT_REASON) else ""
+
+
+@register.filter
 def verdict_and_risk(assessment, reason_shown_above=""):
     """One sentence where the last reading's tolerance verdict and the risk level seem to disagree
     (a green "within tolerance" beside a red "replace now"), ending with the stored reason, or pointing
@@ -95,7 +103,7 @@ def verdict_and_risk(assessment, reason_shown_above=""):
     if reason_shown_above:
         reason = "see Why, above"
     if within and assessment.risk in (RISK_REPLACE_NOW, RISK_DUE_SOON):
-        if (assessment.reason or "").startswith(DEFECT_REASON):
+        if defect_seen(assessment):
             because = "a capacitor seen bulged, leaking or vented is replaced whatever it measures"
         elif assessment.limit_source == DISSIPATION_LIMIT:
             because = "its dissipation factor (from the ESR readings) reaches the part's maximum first"
