@@ -489,3 +489,30 @@ def test_the_replacement_forms_error_summary_lists_the_fields_in_the_pages_order
     summary = page[page.index('id="error-summary"') :].split("</ul>")[0]
     assert summary.index("#wrap_removal_reason") < summary.index("#wrap_removed_on"), summary
     assert page.index('id="wrap_removal_reason"') < page.index('id="wrap_removed_on"')
+
+
+def test_a_cached_advice_is_the_advice_of_its_own_position(fan_fitted_capacitor):
+    """The stand-in parts page judged every design's motor model on every load (650 ms at 100,000 motors); the
+    advice is cached under a digest of its position and candidates. [derived] A cached advice equals the advice
+    worked out afresh, and a position that differs in any input (here its design rating, then its circuit) is its
+    own entry, never another's."""
+    import dataclasses
+
+    from django.core.cache import cache
+
+    cache.clear()
+    make_part(code="FILM-4U5", rated_uf=4.5)
+    position = substitutes.position_of(fan_fitted_capacitor)
+    singles = substitutes.candidates_of(substitutes.parts_frame())
+    first = substitutes.cached_advice(position, singles)
+    again = substitutes.cached_advice(position, singles)
+    fresh = advise(position, singles)
+    assert again.verdict.tolist() == first.verdict.tolist() == fresh.verdict.tolist()
+    assert again.reasons == fresh.reasons
+    for changed in (
+        dataclasses.replace(position, design_uf=8.0),
+        dataclasses.replace(position, circuit=dataclasses.replace(position.circuit, xm=position.circuit.xm * 0.5)),
+    ):
+        cached, afresh = substitutes.cached_advice(changed, singles), advise(changed, singles)
+        assert (cached.verdict.tolist(), cached.reasons) == (afresh.verdict.tolist(), afresh.reasons)
+        assert (cached.verdict.tolist(), cached.reasons) != (fresh.verdict.tolist(), fresh.reasons)
