@@ -25,10 +25,13 @@ Shapes and sources (each also marked where used):
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pandas as pd
 
-SEED = 20261204
+# FLEET_SECOND_SIMULATION_SEED picks another fleet of the same physics (the figures are tracked on the default).
+SEED = int(os.environ.get("FLEET_SECOND_SIMULATION_SEED", "20261204"))
 N_MOTORS = 600
 
 DAY0 = pd.Timestamp("2016-01-01")
