@@ -1452,6 +1452,38 @@ class PartLifeFit(models.Model):
         return f"life of {self.part_id}: beta {self.beta:.2f}, eta {self.eta_years:.1f} y"
 
 
+class PartToleranceLife(models.Model):
+    """A part's age at leaving tolerance in service, from its capacitors' readings (a Weibull of the first reading
+    out of tolerance or failure in service, the others suspended at their last reading), refreshed with the life
+    fits, so the forecast of one capacitor can be set beside what its part's capacitors did."""
+
+    part = models.OneToOneField(CapacitorPart, on_delete=models.CASCADE, related_name="tolerance_life")
+    left_tolerance = models.PositiveIntegerField(
+        help_text="Capacitors read below the tolerance limit or seen damaged, or failed in service"
+    )
+    still_within = models.PositiveIntegerField(help_text="Capacitors within tolerance at their last reading")
+    beta = models.FloatField(null=True, blank=True, help_text="Weibull shape; empty when there is no estimate")
+    eta_years = models.FloatField(null=True, blank=True, help_text="Weibull scale, years")
+    no_fit_reason = models.CharField(max_length=300, blank=True, help_text="Why the data hold no estimate")
+    fitted_at = models.DateTimeField(auto_now=True)
+
+    class Meta:
+        constraints = [
+            models.CheckConstraint(
+                condition=Q(
+                    beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND, no_fit_reason=""
+                )
+                | (Q(beta__isnull=True, eta_years__isnull=True) & ~Q(no_fit_reason="")),
+                name="tolerance_life_finite_positive_or_why_not",
+            ),
+        ]
+
+    def __str__(self):
+        if self.beta is None:
+            return f"tolerance life of {self.part_id}: no estimate"
+        return f"tolerance life of {self.part_id}: beta {self.beta:.2f}, eta {self.eta_years:.1f} y"
+
+
 class DigestEntry(models.Model):
     """A condition already reported in the planners' daily digest (a capacitor at the top risk
     level, a capacitor whose reading is overdue). Removed once the condition ends, so a capacitor

@@ -193,6 +193,26 @@ def _hessian(function, x, step=1e-4):
     return h
 
 
+def tolerance_life_times(fitted_day, first_out_day, last_read_day, failed_day):
+    """Per capacitor: its age in days when it left tolerance in service, or its age when it was last known
+    within tolerance, and whether it left (an event; else a suspension). Days are on any common count,
+    NaN where there is none.
+
+    Leaving tolerance is a soft failure of a degradation path, the day a threshold is crossed (Meeker and
+    Escobar, *Statistical Methods for Reliability Data*, 1998, ch. 13 [mem]): here the first of its first
+    reading out of tolerance (`first_out_day`) and its failure in service (`failed_day`). It is dated at that
+    reading, after the crossing itself (readings come a season apart). One never read out of tolerance and
+    not failed is a suspension at its last reading, the last day it is known to have been within (a capacitor
+    replaced on plan before it crossed included); one never read and not failed is not known either way
+    (age NaN). Ages of zero or less (read out of tolerance on its fitting day: dead on arrival, not drift)
+    are the caller's to leave out.
+    """
+    event_day = np.fmin(np.asarray(first_out_day, float), np.asarray(failed_day, float))
+    left = np.isfinite(event_day)
+    end = np.where(left, event_day, np.asarray(last_read_day, float))
+    return end - np.asarray(fitted_day, float), left
+
+
 def probability_plot_points(times, failed):
     """Failure times and their plotting positions on a Weibull plot.
 

@@ -8,7 +8,7 @@ import logging
 import numpy as np
 import pandas as pd
 from django.db import transaction
-from django.db.models import Count, F, Q
+from django.db.models import Count, ExpressionWrapper, F, FloatField, Max, Min, Q
 from django.utils import timezone
 
 from fleet.engineering.lifedata import (
@@ -17,8 +17,9 @@ from fleet.engineering.lifedata import (
     age_replacement,
     fit_weibull,
     probability_plot_points,
+    tolerance_life_times,
 )
-from fleet.models import FittedCapacitor, PartLifeFit
+from fleet.models import FittedCapacitor, PartLifeFit, PartToleranceLife, Reading
 
 log = logging.getLogger(__name__)
 
@@ -41,6 +42,88 @@ def life_table(part_id: int | None = None, today: dt.date | None = None) -> pd.D
     return frame[frame["age_days"] > 0].reset_index(drop=True)
 
 
+def tolerance_life_table() -> pd.DataFrame:
+    """Per part and capacitor (one query): its age in days when it left tolerance in service, or when it was last
+    read within tolerance, and whether it left (`tolerance_life_times`). A reading counts out of tolerance as the
+    technician's verdict judges it, as measured: below the part's lower tolerance limit, or a defect seen
+    (bulged, leaking, vented); a corrected reading counts by its correction only."""
+    limit = ExpressionWrapper(F("part__rated_uf") * (1.0 - F("part__tolerance_minus_pct") / 100.0), FloatField())
+    current = Q(readings__superseded_by__isnull=True)
+    defects = [value for value in Reading.Condition.values if value != Reading.Condition.SOUND]
+    out = current & (Q(readings__capacitance_uf__lt=limit) | Q(readings__condition__in=defects))
+    columns = ["id", "part_id", "fitted_on", "removed_on", "removal_reason"]
+    rows = (
+        FittedCapacitor.objects.order_by()
+        .values_list(*columns)
+        .annotate(first_out=Min("readings__taken_at", filter=out), last_read=Max("readings__taken_at", filter=current))
+    )
+    frame = pd.DataFrame.from_records(list(rows), columns=[*columns, "first_out", "last_read"])
+
+    def days(column, utc=False):
+        values = pd.to_datetime(frame[column], utc=utc)
+        return ((values.dt.tz_localize(None) if utc else values) - pd.Timestamp("1970-01-01")) / pd.Timedelta(days=1)
+
+    failed = frame["removal_reason"].eq(FittedCapacitor.RemovalReason.FAILED)
+    age, left = tolerance_life_times(
+        days("fitted_on").to_numpy(float),
+        np.floor(days("first_out", utc=True).to_numpy(float)),
+        np.floor(days("last_read", utc=True).to_numpy(float)),
+        np.where(failed, days("removed_on").to_numpy(float), np.nan),
+    )
+    frame = frame.assign(age_days=age, left=left)
+    return frame.loc[frame["age_days"] > 0, ["part_id", "age_days", "left"]].reset_index(drop=True)
+
+
+def _tolerance_life_values(years: np.ndarray, left: np.ndarray) -> dict:
+    """A part's PartToleranceLife fields: its Weibull of leaving tolerance, or no estimate and why."""
+    counts = dict(left_tolerance=int(left.sum()), still_within=int((~left).sum()))
+    if left.sum() < 2:
+        return dict(
+            beta=None, eta_years=None, no_fit_reason="fewer than two capacitors have left tolerance yet", **counts
+        )
+    try:
+        fit = fit_weibull(years, left)
+    except NoWeibullEstimate as reason:
+        return dict(beta=None, eta_years=None, no_fit_reason=str(reason), **counts)
+    return dict(beta=fit.beta, eta_years=fit.eta, no_fit_reason="", **counts)
+
+
+def refresh_tolerance_lives() -> int:
+    """Fit and store every part's age at leaving tolerance (`tolerance_life_table`), for the pages that set a
+    forecast beside it, each part in a savepoint of its own (one that fails keeps what it had, logged); parts
+    none of whose capacitors has an age are removed. Returns the parts fitted."""
+    table = tolerance_life_table()
+    kept, fitted = [], 0
+    with transaction.atomic():
+        for part_id, rows in table.groupby("part_id"):
+            try:
+                with transaction.atomic():
+                    values = _tolerance_life_values(
+                        rows["age_days"].to_numpy(float) / DAYS_PER_YEAR, rows["left"].to_numpy(bool)
+                    )
+                    PartToleranceLife.objects.update_or_create(part_id=int(part_id), defaults=values)
+            except Exception:  # noqa: BLE001 - as in refresh_life_fits: the other parts are refreshed all the same
+                log.exception("tolerance life of part %s failed; its stored one is kept as it was", part_id)
+            else:
+                fitted += values["beta"] is not None
+            kept.append(int(part_id))
+        PartToleranceLife.objects.exclude(part_id__in=kept).delete()
+    return fitted
+
+
+def tolerance_life(part_id: int) -> dict | None:
+    """A part's stored age at leaving tolerance, in years: counts, and the Weibull's median and B10 where
+    there is an estimate (one query); None before the first refresh."""
+    stored = PartToleranceLife.objects.filter(part_id=part_id).first()
+    if stored is None:
+        return None
+    life = {"left": stored.left_tolerance, "within": stored.still_within, "no_fit_reason": stored.no_fit_reason}
+    if stored.beta is None:
+        return life | {"fit": None}
+    fit = WeibullFit(stored.beta, stored.eta_years, stored.left_tolerance, stored.still_within, np.full((2, 2), np.nan))
+    return life | {"fit": fit, "median": fit.b_life(0.5), "b10": fit.b_life(0.1), "fitted_at": stored.fitted_at}
+
+
 PLOT_POINTS = 400  # the Weibull plot's points kept per part: every failure up to this many, evenly spread beyond
 
 
@@ -49,7 +132,8 @@ def refresh_life_fits(today: dt.date | None = None) -> int:
     is removed) with what the life-data page shows besides it, for pages that must not fit on a
     page load; a part whose data hold no estimate gets the reason instead. One loop step per part,
     each in its own savepoint: a part that fails unexpectedly keeps the fit it had (logged) and the
-    others are refreshed all the same. Returns the parts fitted."""
+    others are refreshed all the same. Then each part's age at leaving tolerance (`refresh_tolerance_lives`).
+    Returns the parts fitted."""
     table = life_table(today=today)
     kept, fitted = [], 0
     with transaction.atomic():
@@ -68,6 +152,7 @@ def refresh_life_fits(today: dt.date | None = None) -> int:
                 fitted += values["beta"] is not None
             kept.append(int(part_id))
         PartLifeFit.objects.exclude(part_id__in=kept).delete()
+    refresh_tolerance_lives()
     return fitted
 
 

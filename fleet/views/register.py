@@ -16,6 +16,7 @@ from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import needs_permission, scope_to_user
 from fleet.services import pages
+from fleet.services.lifedata import DAYS_PER_YEAR, tolerance_life
 from fleet.services.operating_pictures import motor_pictures
 from fleet.services.selectors import successor_of
 
@@ -130,6 +131,8 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
         "alert_percent": pages.alert_level_percent(fitted_capacitor.part.dielectric),
         "rules": PlanningSettings(),
+        "tolerance_life": tolerance_life(fitted_capacitor.part_id),
+        "age_years": (timezone.localdate() - fitted_capacitor.fitted_on).days / DAYS_PER_YEAR,
     }
     with timezone.override(site_zone(fitted_capacitor.motor.site.time_zone)):  # as the reading form shows them
         return render(request, "fleet/capacitor.html", context)

@@ -16,7 +16,7 @@ from fleet.filters import BadFilter, LifeDataPage, page_parameters, refused_down
 from fleet.models import Backtest, CapacitorPart, RefitRun
 from fleet.roles import needs_permission, refused
 from fleet.services.exports import TABLES
-from fleet.services.lifedata import part_life
+from fleet.services.lifedata import part_life, tolerance_life
 from fleet.services.refits import queue_fleet_refit, recent_runs, stale_count
 from fleet.services.track_record import request_backtest
 from fleet.services.track_record import track_record as track_record_figures
@@ -138,6 +138,7 @@ def life_data(request):
     if part is not None:
         life = part_life(part.id, planned_cost, failure_cost)
         context["life"] = life
+        context["tolerance"] = tolerance_life(part.id)
         if life["fit"] is not None:
             plot_t, plot_f = life["plot_points"]
             context["weibull_chart"] = weibull_plot_figure(plot_t, plot_f, life["fit"].beta, life["fit"].eta)

@@ -12,6 +12,7 @@ from fleet.engineering.lifedata import (
     fit_weibull,
     probability_plot_points,
     successor_failures,
+    tolerance_life_times,
 )
 
 # Lieblein and Zelen's 23 ball-bearing failure times, millions of revolutions, as
@@ -285,3 +286,21 @@ def test_an_age_is_written_in_the_unit_it_is_read_in():
     assert [age_unit(y) for y in (2.93, 0.29, 0.02, 0.0)] == [
         ("years", 1.0), ("months", 12.0), ("days", 365.25), ("days", 365.25),
     ]  # fmt: skip
+
+
+def test_leaving_tolerance_is_the_first_reading_out_or_failure_else_a_suspension_at_the_last_reading():
+    """Leaving tolerance is a soft failure, dated when a degradation path is seen past its threshold (Meeker
+    and Escobar, Statistical Methods for Reliability Data, 1998, ch. 13, from memory, unverified); a unit not
+    seen past it is right-censored at the last day it was known within (common practice of life-data
+    analysis, no single source). Days on a common count, NaN where there is none."""
+    nan = np.nan
+    fitted = np.array([0.0, 100.0, 0.0, 0.0, 50.0, 0.0])
+    first_out = np.array([400.0, nan, 700.0, nan, nan, nan])  # first reading out of tolerance
+    last_read = np.array([500.0, 300.0, 800.0, 600.0, nan, nan])
+    failed = np.array([nan, 250.0, 650.0, nan, 90.0, nan])  # removal day of a failure in service
+    age, left = tolerance_life_times(fitted, first_out, last_read, failed)
+    # read out; failed in service before any reading out; failed before its first reading out; last read
+    # within, still in service or replaced on plan; failed, never read; never read, not failed: unknown
+    np.testing.assert_array_equal(left, [True, True, True, False, True, False])
+    np.testing.assert_array_equal(age[:5], [400.0, 150.0, 650.0, 600.0, 40.0])
+    assert np.isnan(age[5])
