@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from urllib.parse import urlencode
 
 import pytest
 from django.urls import reverse
@@ -97,8 +98,8 @@ class Round:
 def route_rows(html: str) -> dict[str, str]:
     """The route page's rows by asset tag: the status and last-read cells' text."""
     rows = {}
-    for row in re.findall(r"<tr>(.*?)</tr>", html, flags=re.S):
-        tag = re.search(r'href="/motors/([^/"]+)/"', row)
+    for row in re.findall(r"<tr[^>]*>(.*?)</tr>", html, flags=re.S):
+        tag = re.search(r'href="/motors/([^/"]+)/(?:\?next=[^"]*)?"', row)
         if tag:
             cells = [re.sub(r"<[^>]+>", "", cell).strip() for cell in re.findall(r"<td[^>]*>(.*?)</td>", row, re.S)]
             rows[tag.group(1)] = " ".join(cells[-2:])
@@ -189,7 +190,7 @@ def test_the_digest_reports_the_overdue_capacitors_of_the_overdue_motors_only():
 
 
 ROUTE_ROW_TEMPLATE = """{% for motor in motors %}
-<tr><td class="num">{% if can_order %}<input type="text" inputmode="numeric" name="order-{{ motor.id }}" id="place-{{ motor.asset_tag }}" value="{{ motor.route_order }}" style="width:4.5em" aria-label="Place of {{ motor.asset_tag }} on the route">{% else %}{{ motor.route_order }}{% endif %}</td>
+<tr id="motor-{{ motor.asset_tag }}"><td class="num">{% if can_order %}<input type="text" inputmode="numeric" name="order-{{ motor.id }}" id="place-{{ motor.asset_tag }}" value="{{ motor.route_order }}" style="width:4.5em" aria-label="Place of {{ motor.asset_tag }} on the route">{% else %}{{ motor.route_order }}{% endif %}</td>
   <td><a class="button nowrap {% if not motor.due %}secondary{% endif %}" href="{% url 'motor' motor.asset_tag %}">{{ motor.asset_tag }}</a></td>
   <td>{{ motor.location }}<br><span class="muted">{{ motor.get_application_display }}</span></td>
   <td>{% if motor.overdue %}<b class="error-text">overdue</b>{% elif motor.due %}<b>to read</b>{% else %}done{% endif %}{% if motor.still_to_read %}<br><span class="muted">{{ motor.still_to_read|join:" and " }} still to read</span>{% endif %}</td>
@@ -250,7 +251,8 @@ def test_a_motor_read_this_quarter_with_an_open_read_again_order_is_still_to_rea
     assert rows[scene.replaced.asset_tag].startswith(
         f"to readread again: work order {asked.id} for the start capacitor, visit {due_on:%Y-%m-%d} Record the reading"
     )
-    assert f'href="{reverse("reading_new", args=[start.id])}"' in page
+    # The reading form's link carries the route, to come back to it once the reading is saved.
+    assert f'href="{reverse("reading_new", args=[start.id])}?{urlencode({"next": url})}"' in page
     assert rows[scene.start_taken_out.asset_tag].startswith("done")
     assert "5 of 6 motors still to read" in page  # four overdue, and the one to read again
     only_due = route_rows(client.get(url, {"show": "due"}).content.decode())

@@ -398,8 +398,7 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
     by the same rule) and the days the rule counts from (`quarter_start`, `overdue_before`)."""
     today = today or timezone.localdate()
     status = reading_status(today)
-    # The site's few motors asked to read again, as one set the database reads once (not a probe per motor).
-    to_read = status["to_read"] | Q(pk__in=read_again_orders().filter(site=site).values("motor_id"))
+    to_read = _still_to_read(site, status)
     by_state = motors_by_reading_status(site=site, today=today).get(site.id, dict.fromkeys(READING_STATES, 0))
     counts = {
         "total": sum(by_state.values()),
@@ -418,6 +417,29 @@ def route_for_site(site: Site, *, only_due: bool = False, today: dt.date | None 
         since=utc_midnight(days["quarter_start"]),
     )
     return rows, counts, days
+
+
+def _still_to_read(site: Site, status: dict) -> Q:
+    """A motor of `site` still to read, as its route row says it: not read this quarter (`reading_status`), or
+    asked to read again. The site's few motors asked to read again, as one set the database reads once (not a
+    probe per motor)."""
+    return status["to_read"] | Q(pk__in=read_again_orders().filter(site=site).values("motor_id"))
+
+
+def next_to_read(motor: Motor, today: dt.date | None = None) -> Motor | None:
+    """The motor in service to read after `motor` on its site's route: the first still to read (as the route's
+    "Show only the ... to read" lists them, `route_for_site`) after it in walking order, else the first before it
+    (one skipped on the way); None when no other is left to read. One query, whatever the route's length."""
+    status = reading_status(today or timezone.localdate())
+    after = Q(route_order__gt=motor.route_order) | Q(route_order=motor.route_order, asset_tag__gt=motor.asset_tag)
+    return (
+        Motor.objects.filter(_still_to_read(motor.site, status), site_id=motor.site_id, status=Motor.Status.IN_SERVICE)
+        .exclude(pk=motor.pk)
+        .annotate(later=ExpressionWrapper(after, BooleanField()))
+        .order_by("-later", "route_order", "asset_tag")
+        .only("asset_tag", "route_order")
+        .first()
+    )
 
 
 class RouteRows:

@@ -14,9 +14,11 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_update
+from fleet.engineering.capacitor import VERDICT_NAMES, tolerance_verdict
 from fleet.engineering.rules import (
     AFTER_REMOVAL,
     check_readings,
+    microfarad_text,
     parse_numbers,
     trend_slope_uf_per_hour,
     trend_value_held_to,
@@ -30,6 +32,16 @@ from fleet.services.substitutes import design_part, verdict_of_part
 from fleet.services.workorders import close_read_again_orders
 
 log = logging.getLogger(__name__)
+
+
+def measured_words(reading: Reading, part) -> str:
+    """A saved reading's capacitance and its verdict against the part's marking, as measured ("3.95 µF, within
+    tolerance"): `capacitor.tolerance_verdict` in the words the assessment's `latest_verdict` uses, for the
+    message that says the reading was saved (its refit, and the risk level, come after)."""
+    verdict = tolerance_verdict(
+        reading.capacitance_uf, part.rated_uf, part.tolerance_minus_pct, part.tolerance_plus_pct
+    )
+    return f"{microfarad_text(reading.capacitance_uf)} µF, {VERDICT_NAMES[int(verdict.code[0])]}"
 
 
 class NeedsConfirmation(ValidationError):

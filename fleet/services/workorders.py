@@ -925,6 +925,18 @@ def open_read_again_order(fitted_capacitor_id: int) -> WorkOrder | None:
     )
 
 
+def open_replacement_order(fitted_capacitor_id: int) -> WorkOrder | None:
+    """The capacitor's open replacement order (the soonest), which recording its replacement closes: the
+    replacement form, reached from that order, starts at the planned-replacement reason."""
+    return (
+        WorkOrder.objects.filter(
+            fitted_capacitor_id=fitted_capacitor_id, kind__in=list(KIND_FOR_ROLE.values()), state__in=OPEN
+        )
+        .order_by("due_on", "id")
+        .first()
+    )
+
+
 def after_reading_again_words(reading) -> str:
     """What became of a capacitor's visit once the reading for its "read again" order is saved, for the form's
     message: the replacement order the refit added to the visit (`replace_after_reading_again`) with the plan's

@@ -5,6 +5,8 @@ the same markup costs about a third of that."""
 
 from __future__ import annotations
 
+from urllib.parse import urlencode
+
 from django import template
 from django.template.defaultfilters import floatformat
 from django.urls import reverse
@@ -99,7 +101,7 @@ def work_order_rows(orders, can_read=False, can_replace=False):
     visit sheet's: a "read again" order's part opens the capacitor's reading form where the user may log one
     (`can_read`), a replacement order's the replacement form where the user may record one (`can_replace`)."""
     rows = []
-    back = f"?next={reverse('work_orders')}"  # back to this list once recorded (`field._visit_sheet_to_return_to`)
+    back = f"?next={reverse('work_orders')}"  # back to this list once recorded (`register.page_to_return_to`)
     for order in orders:
         capacitor = order.fitted_capacitor
         part = "" if capacitor is None else capacitor.part.code
@@ -130,7 +132,7 @@ def work_order_rows(orders, can_read=False, can_replace=False):
 
 
 ROUTE_ROW = """
-<tr{row_class}><td class="num">{order}</td>
+<tr id="motor-{tag}"{row_class}><td class="num">{order}</td>
   <td><a class="button nowrap {read}" href="{motor_url}">{tag}</a></td>
   <td>{location}<br><span class="muted">{application}</span></td>
   <td>{status}{unread}</td>
@@ -160,14 +162,17 @@ TO_READ = mark_safe("<b>to read</b>")
 
 
 @register.simple_tag
-def route_rows(motors, can_order, typed=None, errors=None, can_read=False):
+def route_rows(motors, can_order, typed=None, errors=None, can_read=False, back=""):
     """A route page's rows for `motors` (`pages.RouteRows`: with `due`, `overdue`, `still_to_read` and
     `read_again`), each with its place on the route as a field when the user may change the walking order
     (`can_order`); an open "read again" order says so, with a link to the reading form where the user may
     log one (`can_read`).
     After a refused save, `typed` {motor id: text} fills the boxes as they were sent and `errors`
-    {asset tag: [message]} marks each refused box, its message in a row under it."""
+    {asset tag: [message]} marks each refused box, its message in a row under it.
+    `back`, the route page's own address (its filter and page), goes with each motor's and reading form's link
+    as `?next=`: the motor's page leads back to it, and on to the next motor still to read once a reading is saved."""
     typed, errors = typed or {}, errors or {}
+    back = f"?{urlencode({'next': back})}" if back else ""
     rows = []
     for motor in motors:
         unread = " and ".join(motor.still_to_read)
@@ -187,7 +192,7 @@ def route_rows(motors, can_order, typed=None, errors=None, can_read=False):
                 row_class=HAS_ERROR if problems else "",
                 order=order,
                 read="" if motor.due else "secondary",
-                motor_url=reverse("motor", args=[motor.asset_tag]),
+                motor_url=reverse("motor", args=[motor.asset_tag]) + back,
                 tag=motor.asset_tag,
                 location=motor.location,
                 application=motor.get_application_display(),
@@ -195,7 +200,7 @@ def route_rows(motors, can_order, typed=None, errors=None, can_read=False):
                 unread=format_html(
                     "{}{}{}",
                     format_html('<br><span class="muted">{} still to read</span>', unread) if unread else "",
-                    _read_again_lines(motor.read_again, can_read),
+                    _read_again_lines(motor.read_again, can_read, back),
                     format_html(REPLACE_NOW_LINE, " and ".join(motor.replace_now)) if motor.replace_now else "",
                 ),
                 last_read=day(template_localtime(motor.last_read_at)) or "never",
@@ -206,11 +211,11 @@ def route_rows(motors, can_order, typed=None, errors=None, can_read=False):
     return mark_safe("".join(rows))
 
 
-def _read_again_lines(orders, can_read: bool) -> str:
+def _read_again_lines(orders, can_read: bool, back: str = "") -> str:
     """A route row's lines for its motor's open "read again" orders (`pages.read_again_by_motor`)."""
     lines = []
     for order in orders:
-        link = format_html(READ_AGAIN_FORM, reverse("reading_new", args=[order["fitted_capacitor_id"]]))
+        link = format_html(READ_AGAIN_FORM, reverse("reading_new", args=[order["fitted_capacitor_id"]]) + back)
         lines.append(
             format_html(
                 READ_AGAIN_LINE + "{link}",

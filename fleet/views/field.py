@@ -6,7 +6,6 @@ import functools
 import io
 import re
 import uuid
-from urllib.parse import urlencode
 
 import segno
 from django.contrib import messages
@@ -16,8 +15,7 @@ from django.shortcuts import redirect, render
 from django.template.defaultfilters import pluralize
 from django.urls import reverse
 from django.utils import timezone
-from django.utils.html import conditional_escape
-from django.utils.http import url_has_allowed_host_and_scheme
+from django.utils.html import conditional_escape, format_html
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
@@ -36,6 +34,7 @@ from fleet.roles import needs_permission, refused
 from fleet.services import pages
 from fleet.services.readings import (
     NeedsConfirmation,
+    measured_words,
     newest_correction,
     reading_to_correct,
     record_reading,
@@ -45,18 +44,16 @@ from fleet.services.readings import (
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.substitutes import design_part, design_parts, substitutes_for
-from fleet.services.workorders import after_reading_again_words, open_read_again_order
-from fleet.views.register import fitted_capacitor_or_404, site_in_any_case, worst_case_energy_j
-
-
-def _visit_sheet_to_return_to(request) -> str | None:
-    """The visit sheet (or work-orders list) a technician came from (`?next=`, on the reading and
-    replacement links of its orders), to go back to once the work is recorded; any other address is
-    ignored."""
-    back = request.GET.get("next", "")
-    if back.startswith("/work-orders/") and url_has_allowed_host_and_scheme(back, allowed_hosts=None):
-        return back
-    return None
+from fleet.services.workorders import after_reading_again_words, open_read_again_order, open_replacement_order
+from fleet.views.register import (
+    WORK_ORDER_PAGES,
+    fitted_capacitor_or_404,
+    page_to_return_to,
+    route_to_return_to,
+    site_in_any_case,
+    with_next,
+    worst_case_energy_j,
+)
 
 
 @needs_permission("fleet.add_reading")
@@ -89,26 +86,36 @@ def reading_new(request, fitted_capacitor_id):
                 saved = "was already saved (sent twice)" if reading.replayed else "saved"
                 what = "Correction" if reading.supersedes_id else "Reading"
                 closed = getattr(reading, "closed_read_again", 0)
+                motor = fitted_capacitor.motor
+                route = route_to_return_to(request, motor.site)
                 messages.success(
                     request,
-                    f"{what} {saved} for {fitted_capacitor.motor.asset_tag} "
-                    f"({fitted_capacitor.get_role_display().lower()} capacitor)"
-                    + (
-                        f"; its read-again work order{pluralize(closed)} {pluralize(closed, 'is,are')} done."
-                        + after_reading_again_words(reading)
-                        if closed
-                        else "."
+                    _saved_words(
+                        f"{what} {saved} for {motor.asset_tag} ({fitted_capacitor.get_role_display().lower()} "
+                        f"capacitor): {measured_words(reading, fitted_capacitor.part)}"
+                        + (" as measured" if reading.condition != Reading.Condition.SOUND else "")
+                        + (
+                            f"; its read-again work order{pluralize(closed)} {pluralize(closed, 'is,are')} done."
+                            + after_reading_again_words(reading)
+                            if closed
+                            else "."
+                        ),
+                        route=route,
+                        after=motor if route and not reading.supersedes_id else None,
                     ),
                 )
                 if reading.condition != Reading.Condition.SOUND:
                     messages.warning(request, damaged_capacitor_words(fitted_capacitor, reading))
                 # ?saved= tells the page to drop the draft the phone kept of this form. A correction goes back
-                # to the capacitor's page its "Correct" was on; a reading to its visit sheet, or to its motor's page.
-                back, at = _visit_sheet_to_return_to(request), ""
+                # to the capacitor's page its "Correct" was on; a reading to its visit sheet, or to its motor's
+                # page (with the route it came from, `?next=`, kept for its back link).
+                back, at = page_to_return_to(request), ""
+                if back is not None and not back.startswith(WORK_ORDER_PAGES):  # a route: by the motor's page
+                    back = None
                 if back is None and reading.supersedes_id:
                     back = reverse("fitted_capacitor", args=[fitted_capacitor.id])
                 elif back is None:
-                    back = reverse("motor", args=[fitted_capacitor.motor.asset_tag])
+                    back = with_next(reverse("motor", args=[motor.asset_tag]), route)
                     at = _at_the_capacitor_read(fitted_capacitor, reading)
                 return redirect(f"{back}{'&' if '?' in back else '?'}saved={fitted_capacitor.id}{at}")
     else:
@@ -124,8 +131,15 @@ def reading_new(request, fitted_capacitor_id):
         form.start_from(correcting)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()
     successor = successor_of(fitted_capacitor)
+    back = page_to_return_to(request)
     context = {
         "successor": successor,
+        # The reading form of the capacitor in this one's place now, the page to return to kept.
+        "successor_form": successor and with_next(reverse("reading_new", args=[successor.id]), back),
+        "motor_back": with_next(
+            reverse("motor", args=[fitted_capacitor.motor.asset_tag]),
+            route_to_return_to(request, fitted_capacitor.motor.site),
+        ),
         "fitted_capacitor": fitted_capacitor,
         "motor": fitted_capacitor.motor,
         "part": fitted_capacitor.part,
@@ -142,6 +156,23 @@ def reading_new(request, fitted_capacitor_id):
     }
     with timezone.override(form.zone):  # the last readings in the site's time, as the form takes it
         return render(request, "fleet/reading_form.html", context)
+
+
+NEXT_TO_READ = '{} <a class="button next-to-read" href="{}">Next to read: <span class="nowrap">{}</span></a>'
+ROUTE_DONE = "{} No other motor is left to read on the {} route this quarter."
+
+
+def _saved_words(words: str, *, route: str | None, after: Motor | None) -> str:
+    """A saved reading's message; reached from a site's route (`route`, its address), with the next motor to read
+    after `after` on it as a button that keeps the route (`pages.next_to_read`), or that none is left."""
+    if after is None:
+        return words
+    following = pages.next_to_read(after)
+    if following is None:
+        return format_html(ROUTE_DONE, words, after.site.code)
+    return format_html(
+        NEXT_TO_READ, words, with_next(reverse("motor", args=[following.asset_tag]), route), following.asset_tag
+    )
 
 
 # A reading form's address inside a service's message (a refused reading names the one to use instead).
@@ -207,7 +238,17 @@ def replace(request, fitted_capacitor_id):
         }
         return render(request, "fleet/replace.html", context)
     design = design_part(fitted_capacitor)
-    form = ReplacementForm(request.POST or None, fitted_capacitor=fitted_capacitor, design=design)
+    back = page_to_return_to(request)
+    # Reached from its open replacement order (a visit sheet's or the work-orders list's "Record the
+    # replacement"), the capacitor comes out on plan; from anywhere else no reason is taken for granted.
+    planned = (
+        request.method != "POST"
+        and back is not None
+        and back.startswith(WORK_ORDER_PAGES)
+        and open_replacement_order(fitted_capacitor.id) is not None
+    )
+    initial = {"removal_reason": FittedCapacitor.RemovalReason.PLANNED} if planned else None
+    form = ReplacementForm(request.POST or None, initial=initial, fitted_capacitor=fitted_capacitor, design=design)
     if request.method == "POST" and not form.is_valid():
         # The service's problems with what the form did read, in the same answer (not one at a time).
         values = {name: value for name, value in form.replacement_values().items() if name != "notes"}
@@ -230,9 +271,7 @@ def replace(request, fitted_capacitor_id):
             else:
                 messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
                 _stock_message(request, successor)
-            back = _visit_sheet_to_return_to(request)
-            reading_form = reverse("reading_new", args=[successor.id])
-            return redirect(f"{reading_form}?{urlencode({'next': back})}" if back else reading_form)
+            return redirect(with_next(reverse("reading_new", args=[successor.id]), back))
     advice = substitutes_for(fitted_capacitor)
     choosable = set(form.fields["part"].queryset.values_list("id", flat=True))
     chosen = str(form["part"].value() or "")

@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import functools
+import re
+from urllib.parse import urlencode, urlsplit
 
 from django.http import Http404
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.utils import timezone
+from django.utils.http import url_has_allowed_host_and_scheme
 
 from fleet.engineering.capacitor import stored_energy_j
 from fleet.engineering.planning import PlanningSettings
@@ -53,8 +56,36 @@ def find_motor(request):
     return render(request, "fleet/find.html", {"find_form": form, "sites": sites, "matches": matches, "more": more})
 
 
+# The pages field work goes back to once recorded (`?next=`): a visit sheet or the work-orders list, and a site's
+# reading route with its filter and page (`/sites/CST/route/?show=due`). Paths on this server only.
+WORK_ORDER_PAGES = "/work-orders/"  # the work-orders list and its visit sheets
+RETURN_PAGES = re.compile(r"^/(?:work-orders/|sites/[^/?#\\]+/route/(?:\?[^#]*)?$)")
+ROUTE_PAGE = re.compile(r"^/sites/([^/?#\\]+)/route/")
+
+
+def page_to_return_to(request) -> str | None:
+    """The page a technician came from (`?next=`, on the links of a visit sheet's or the work-orders list's
+    orders, and of a route's motors), to go back to once the work is recorded; any other address is ignored."""
+    back = request.GET.get("next", "")
+    if RETURN_PAGES.match(back) and url_has_allowed_host_and_scheme(back, allowed_hosts=None):
+        return back
+    return None
+
+
+def route_to_return_to(request, site: Site) -> str | None:
+    """`page_to_return_to` when it is `site`'s reading route (its filter and page kept), else None."""
+    back = page_to_return_to(request)
+    route = back and ROUTE_PAGE.match(urlsplit(back).path)
+    return back if route and route.group(1).casefold() == site.code.casefold() else None
+
+
+def with_next(address: str, back: str | None) -> str:
+    """`address` with `?next=<back>` when there is a page to go back to."""
+    return f"{address}?{urlencode({'next': back})}" if back else address
+
+
 @needs_permission("fleet.view_motor")
-@takes_parameters("saved")  # ?saved=<capacitor>: the reading form's draft to drop
+@takes_parameters("saved", "next")  # ?saved=<capacitor>: the reading form's draft to drop; ?next=: the route
 def motor_detail(request, asset_tag):
     try:
         motor = pages.motor_with_capacitors(asset_tag)
@@ -74,8 +105,13 @@ def motor_detail(request, asset_tag):
             for name, figure in pictures.get(capacitor.id, {}).items()
         ]
     energy = max((worst_case_energy_j(c.part) for c in in_service), default=None)
+    route = route_to_return_to(request, motor.site)
     context = {
         "motor": motor,
+        # Back to the route as it was left (its filter, its page, at this motor's row); the field work links
+        # carry it on, so the reading saved comes back here with it.
+        "route_back": f"{route or reverse('route', args=[motor.site.code])}#motor-{motor.asset_tag}",
+        "next_query": f"?{urlencode({'next': route})}" if route else "",
         "in_service": in_service,
         "removed": removed,
         "energy_j": energy,
