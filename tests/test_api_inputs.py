@@ -122,6 +122,50 @@ def test_a_changed_repeat_of_an_idempotency_key_is_answered_in_the_apis_words(te
 
 
 @pytest.mark.parametrize(
+    "changed",
+    [
+        {"taken_at": "2026-11-07T10:30"},
+        {"condition": "vented"},
+        {"esr_ohm": "abc"},
+    ],
+)
+def test_an_idempotency_key_sent_again_with_another_time_condition_or_a_bad_value_is_not_a_repeat(
+    technician, fan_fitted_capacitor, changed
+):
+    """Before: 200 and the first reading back, the vented capacitor or the later reading silently dropped
+    (a fuzz test found it): only the measured numbers and the notes were compared. Nothing a technician
+    sends may be lost unseen."""
+    client = client_for(technician)
+    url = readings_url(fan_fitted_capacitor)
+    body = {"method": "meter", "capacitance_uf": 3.9, "taken_at": "2026-11-07T10:00"}
+    assert client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="k-2").status_code == 201
+    same = client.post(url, body, format="json", HTTP_IDEMPOTENCY_KEY="k-2")
+    assert same.status_code == 200  # the same body again: the reading saved the first time
+    again = client.post(url, {**body, **changed}, format="json", HTTP_IDEMPOTENCY_KEY="k-2")
+    assert again.status_code == 400 and "Idempotency-Key" in again.json()
+    assert Reading.objects.count() == 1
+
+
+def test_the_reading_form_sent_again_with_a_defect_seen_is_not_taken_for_the_reading_saved(
+    technician, fan_fitted_capacitor
+):
+    """Before: "Reading was already saved (sent twice)" and the bulged capacitor dropped (a fuzz test: save,
+    go back, mark it bulged, save again with the page's one-time key)."""
+    from django.test import Client
+
+    client = Client()
+    client.force_login(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    form = {"method": "meter", "capacitance_uf": "3.9", "taken_at": "2026-11-07T10:00", "client_key": "page-1"}
+    client.post(url, {**form, "condition": "sound"})
+    again = client.post(url, {**form, "condition": "bulged"})
+    assert again.status_code == 200 and "these values differ" in again.content.decode()
+    assert Reading.objects.count() == 1
+    client.post(url, {**form, "condition": "bulged", "client_key": "page-2", "taken_at": "2026-11-07T10:05"})
+    assert list(Reading.objects.order_by("id").values_list("condition", flat=True)) == ["sound", "bulged"]
+
+
+@pytest.mark.parametrize(
     "address, name, value, where",
     [
         ("api_assessments", "site", "XXX", "/plan/"),

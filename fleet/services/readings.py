@@ -360,12 +360,21 @@ def _correction_sent_before(fitted_capacitor: FittedCapacitor, supersedes_id, va
 
 
 def _same_values(reading: Reading, values: dict) -> bool:
-    """The values sent (as typed) are those of the stored reading (in-circuit: its current and voltage)."""
+    """The values sent (as typed) are those of the stored reading (in-circuit: its current and voltage), its
+    method, its condition and, where one is given, its time; a value that is no number is never the same (sent
+    again with a key, it would otherwise be taken for the reading saved and its fault never named)."""
     names = [n for n in Reading.MEASURED_FIELDS if n != "capacitance_uf" or reading.method == Reading.Method.METER]
-    sent, _ = parse_numbers([values.get(name) for name in names])
+    sent, problems = parse_numbers([values.get(name) for name in names])
     stored = np.array([np.nan if getattr(reading, n) is None else getattr(reading, n) for n in names], float)
-    same_numbers = bool(np.all((sent == stored) | (np.isnan(sent) & np.isnan(stored))))
-    return same_numbers and (values.get("notes") or "").strip() == reading.notes
+    same_numbers = bool(np.all((sent == stored) | (np.isnan(sent) & np.isnan(stored)))) and not any(problems)
+    taken_at = values.get("taken_at")
+    return (
+        same_numbers
+        and (values.get("notes") or "").strip() == reading.notes
+        and (values.get("method") or reading.method) == reading.method
+        and (values.get("condition") or Reading.Condition.SOUND) == reading.condition
+        and (not taken_at or _utc64(taken_at) == _utc64(reading.taken_at))
+    )
 
 
 def replace_capacitor(
