@@ -257,3 +257,15 @@ def test_a_body_that_is_not_one_json_object_is_named_so(technician, fan_fitted_c
     words = response.json()["non_field_errors"][0]
     assert words.startswith("Send one reading as a JSON object of fields") and words.endswith(f"a JSON {kind}.")
     assert not Reading.objects.exists()
+
+
+@pytest.mark.parametrize("name", ["capacitance_uf", "esr_ohm", "case_temperature_c"])
+def test_an_integer_too_large_for_a_float_is_refused_at_its_field(technician, fan_fitted_capacitor, name):
+    """Before: 500 (OverflowError) for a capacitance of 401 digits, while the other fields said "Not a finite
+    number" (a fuzz test found it). JSON allows integers of any length (RFC 8259 leaves the range to the
+    implementation)."""
+    client = client_for(technician)
+    body = {"method": "meter", "capacitance_uf": 3.9, "taken_at": "2026-11-20T01:00", name: 10**400}
+    response = client.post(readings_url(fan_fitted_capacitor), body, format="json")
+    assert response.status_code == 400 and name in response.json()
+    assert Reading.objects.count() == 0

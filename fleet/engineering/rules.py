@@ -16,6 +16,7 @@ import functools
 import re
 import zoneinfo
 from dataclasses import asdict, dataclass, field, fields
+from decimal import Decimal
 from types import MappingProxyType
 
 import numpy as np
@@ -211,8 +212,12 @@ VOLTAGE_CONFIRM_WORDS = (
 def plain_number(value) -> str:
     """A number as the site writes a typed value back: up to six significant digits, no exponent (0.00003, not
     3e-05; 29958.6, not 29958.577523180298) below 1e21, where the browser's own numbers take one (1e+300, not its
-    301 digits). The live hint's `plain` does the same."""
-    value = float(value)
+    301 digits). The live hint's `plain` does the same; an integer too large for a float (an API's 401 digits)
+    is written the same way, not raised on."""
+    try:
+        value = float(value)
+    except OverflowError:
+        return f"{Decimal(value):.6g}"
     if not np.isfinite(value):
         return str(value)
     if abs(value) >= 1e21:
