@@ -627,3 +627,21 @@ def test_a_meter_showing_no_capacitance_is_recorded_as_an_open_capacitor_everywh
         tables[kind] = list(csv.DictReader(io.StringIO(text.lstrip("\ufeff"))))
     assert sorted(float(row["capacitance_uf"]) for row in tables["readings"])[0] == 0.0
     assert [row["risk"] for row in tables["assessments"]] == ["replace now"]
+
+
+@pytest.mark.parametrize("typed", ["1e-320", "0.0001", "0,0004"])
+def test_a_value_under_a_meters_finest_step_is_asked_about_as_0_is(client, technician, typed):
+    """A meter's finest capacitance step is 1 nF (common practice of the trade, no single source): a value under
+    half of it is a meter showing no capacitance. Before, 1e-320 was stored unconfirmed on every path and shown as
+    "0.00 µF", while 0 was asked about as an open capacitor (a fuzz test found it); and the message that did
+    ask about it wrote the value in 320 digits. The farads slip (0.00003 on a 30 µF part) is asked as a slip."""
+    fitted = make_fitted_capacitor(part=make_part(rated_uf=30.0, tolerance_minus_pct=5, tolerance_plus_pct=5))
+    client.force_login(technician)
+    asked = form_post(client, fitted, capacitance_uf=typed)
+    page = asked.content.decode()
+    # Said at the field; the live hint's rules carry the words once on every form page.
+    assert asked.status_code == 200 and page.count("0 µF: the meter shows no capacitance") == 2
+    assert "0.0000000000000" not in page
+    assert not Reading.objects.exists()
+    farads = form_post(client, fitted, capacitance_uf="0.00003").content.decode()
+    assert "looks like farads" in farads and farads.count("the meter shows no capacitance") == 1

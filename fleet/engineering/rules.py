@@ -122,6 +122,10 @@ class ReadingRules:
     # band is a capacitor still in use, its tolerance and some ageing (common practice of the trade, no single
     # source; the band's edges are ours).
     low_unit_slip_band: tuple = (0.75, 1.25)
+    # A value under half a nanofarad (a handheld meter's finest capacitance step is 1 nF, 0.001 µF) is a meter
+    # showing no capacitance, as 0 is: an open capacitor, confirmed as 0 is (common practice of the trade, no
+    # single source; 1e-320 typed was stored unconfirmed and shown as "0.00 µF", a fuzz test found).
+    no_capacitance_below_uf: float = 0.0005
     low_unit_slips: tuple = ((1e6, "farads"), (1e3, "millifarads"))
     # A tenth of the rating, within the same band, is the decimal point typed one place to the left (14.3 for a
     # 143 µF part): confirm (ours; a capacitor that has lost 90 % is failed, and confirmed it is kept as read).
@@ -192,7 +196,8 @@ SHORT_CIRCUIT_WORDS = (
 # source). Asked once, as the slips are, then kept as read.
 OPEN_CAPACITOR_WORDS = (
     "0 µF: the meter shows no capacitance. It will be recorded as an open capacitor, to replace now. Check the "
-    "meter's leads are on the capacitor's terminals and re-measure, or confirm the value if the meter shows 0"
+    "meter's leads are on the capacitor's terminals and re-measure, or confirm the value if the meter shows 0 "
+    "(or under 1 nF)"
 )
 
 
@@ -211,8 +216,8 @@ VOLTAGE_CONFIRM_WORDS = (
 
 def plain_number(value) -> str:
     """A number as the site writes a typed value back: up to six significant digits, no exponent (0.00003, not
-    3e-05; 29958.6, not 29958.577523180298) below 1e21, where the browser's own numbers take one (1e+300, not its
-    301 digits). The live hint's `plain` does the same; an integer too large for a float (an API's 401 digits)
+    3e-05; 29958.6, not 29958.577523180298) from 1e-12 to 1e21, outside which the browser's own numbers take one
+    (1e+300, not its 301 digits; 1e-320, not its 320). The live hint's `plain` does the same; an integer too large for a float (an API's 401 digits)
     is written the same way, not raised on."""
     try:
         value = float(value)
@@ -220,7 +225,7 @@ def plain_number(value) -> str:
         return f"{Decimal(value):.6g}"
     if not np.isfinite(value):
         return str(value)
-    if abs(value) >= 1e21:
+    if abs(value) >= 1e21 or 0 < abs(value) < 1e-12:  # 1e-320, not its 320 digits
         return f"{value:.6g}"
     return np.format_float_positional(value, precision=6, unique=False, fractional=False, trim="-")
 
@@ -1223,12 +1228,10 @@ def _check_readings(
     )
 
     low_slip = ~in_circuit & ~errors.has("capacitance_uf")
-    confirm.add(
-        "capacitance_uf", low_slip & (values["capacitance_uf"] == 0), OPEN_CAPACITOR_WORDS, case="open_capacitor"
-    )
-    confirm.add(
-        "capacitance_uf", low_slip, capacitance_low_unit_slip(values["capacitance_uf"], rated, rules), case="unit_slip"
-    )
+    unit_slip = capacitance_low_unit_slip(values["capacitance_uf"], rated, rules)
+    no_capacitance = (values["capacitance_uf"] >= 0) & (values["capacitance_uf"] < rules.no_capacitance_below_uf)
+    confirm.add("capacitance_uf", low_slip & no_capacitance & (unit_slip == ""), OPEN_CAPACITOR_WORDS, case="open_capacitor")
+    confirm.add("capacitance_uf", low_slip, unit_slip, case="unit_slip")
     if tolerance_plus_pct is not None:
         top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)
         checked = (
