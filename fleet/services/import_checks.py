@@ -775,7 +775,10 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems.add(frame["location"].str.len() > 120, "location", "longer than 120 characters", of_cell=True)
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(
-        site_id.isna().to_numpy(), "site_code", _unknown("site code", frame["site_code"], "add the site first")
+        site_id.isna().to_numpy(),
+        "site_code",
+        _unknown("site code", frame["site_code"], "add the site first"),
+        of_cell=True,
     )
     for name, allowed in (
         ("application", Motor.Application.values),
@@ -785,8 +788,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed), of_cell=True)
     volts = numbers["rated_voltage_v"]
     # Every check constraint of a motor and the rulebook's bounds, by row and field, before any write.
+    # Named beside the row's other faults, as for parts (check_parts).
     for rows, name, message in motor_problems(*(numbers[name] for name in MOTOR_NUMBERS)):
-        problems.add(rows, name, message)
+        problems.add(rows, name, message, of_cell=True)
     kind = frame["motor_type"].str.lower()
     needs_run = kind.isin(["permanent_split", "two_value"])
     needs_start = kind.isin(["capacitor_start", "two_value"])
@@ -833,9 +837,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     no_removal = np.full(len(frame), np.datetime64("NaT"), "datetime64[D]")
     for name in ("fitted_on", "run_fitted_on", "start_fitted_on"):
         for rows, _, message in service_date_problems(dates[name].to_numpy("datetime64[D]"), no_removal, today):
-            problems.add(rows, name, message)
+            problems.add(rows, name, message, of_cell=True)
     for rows, name, message in commissioning_problems(dates["commissioned_on"].to_numpy("datetime64[D]"), today):
-        problems.add(rows, name, message)
+        problems.add(rows, name, message, of_cell=True)
     for name, part_column in (("run_fitted_on", "run_part_code"), ("start_fitted_on", "start_part_code")):
         problems.add(
             frame[name].ne("") & frame[part_column].eq(""),
@@ -973,7 +977,10 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         problems.add(frame[name].str.strip().eq(""), name, "required", of_cell=True)
     site_id = site_ids_in_any_case(frame["site_code"])
     problems.add(
-        site_id.isna().to_numpy(), "site_code", _unknown("site code", frame["site_code"], "add the site first")
+        site_id.isna().to_numpy(),
+        "site_code",
+        _unknown("site code", frame["site_code"], "add the site first"),
+        of_cell=True,
     )
     day = parse_dates(frame["day"])
     problems.add(
@@ -1039,8 +1046,11 @@ def check_parts(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     code_problems(problems, frame["code"], "code")
     numbers = finite_numbers(frame, PART_NUMBERS, problems)
     dielectric = frame["dielectric"].str.lower().to_numpy(object)
+    # The rulebook's words at a field, as the admin's form shows them at every field at once: named beside the
+    # row's other faults, so a row is put right in one round (each check passes where a figure it reads is no
+    # number: NaN compares false).
     for rows, name, message in part_problems(*(numbers[name] for name in PART_NUMBERS), dielectric=dielectric):
-        problems.add(rows, name, message)
+        problems.add(rows, name, message, of_cell=True)
     for name, choices in (
         ("dielectric", CapacitorPart.Dielectric.values),
         ("class_of_operation", CapacitorPart.OperationClass.values),
