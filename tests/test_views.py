@@ -410,12 +410,14 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
     )
     # The replace-by rule is stated with the figures the plan uses (a planner could not find it).
     assert (
-        "any other 30 days before the crossing its risk level is judged on (P10), never sooner than 7 days from today"
+        "any other 30 days before the crossing its risk level is judged on (P10, the date 1 in 10 of such capacitors "
+        "would have crossed by), never sooner than 7 days from today"
         in response.content.decode()
     )
     # A back-tested level per dielectric is named with it: the date follows the risk level's crossing.
     BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, alert_quantile=0.5)
-    assert "judged on (P50 for metallised film (run))" in client.get(reverse("plan")).content.decode()
+    said = "judged on (P50, the date half of such capacitors would have crossed by, for metallised film (run))"
+    assert said in client.get(reverse("plan")).content.decode()
     assert "columns and units</a>)</span>. Every reading" in response.content.decode()  # no stray space before "."
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
@@ -933,3 +935,23 @@ def test_the_capacitor_page_says_which_crossing_its_replace_by_date_follows(sign
     BandCalibration.objects.create(family="film", slope_bias=0.3, slope_spread=0.75, alert_quantile=0.3)
     page = " ".join(signed_in(technician).get(url).content.decode().split())
     assert "Replace by follows the P30 crossing, 30 days before it" in page and "for metallised film" in page
+
+
+def test_the_plan_marks_a_past_crossing_and_does_not_call_a_replace_now_a_forecast_from_similar_capacitors(
+    signed_in, planner
+):
+    """A walk read "trend crosses 2025-07-14" on the plan as a date to come, and a capacitor to replace now
+    (a stop-gap breaching its design's limit) labelled "few readings: forecast from similar capacitors"."""
+    today = timezone.localdate()
+    low, past = make_fitted_capacitor(), make_fitted_capacitor()
+    for capacitor, risk in ((low, "replace now"), (past, "due soon")):
+        stored_assessment(capacitor, risk, today + dt.timedelta(days=5))
+    Assessment.objects.filter(is_current=True).update(low_confidence=True)
+    Assessment.objects.filter(fitted_capacitor=past).update(p10_on=today - dt.timedelta(days=40), p50_on=today)
+    client = signed_in(planner)
+    page = client.get(reverse("plan")).content.decode()
+    assert f"{(today - dt.timedelta(days=40)).isoformat()}, past" in page
+    assert f"{today.isoformat()}, past" not in page
+    assert page.count("few readings") == 1  # the due-soon one's
+    motor = client.get(reverse("motor", args=[low.motor.asset_tag])).content.decode()
+    assert "forecast from similar capacitors" not in motor

@@ -699,12 +699,17 @@ def alert_level_percent(dielectric: str) -> int:
 
 
 def alert_level_words() -> str:
-    """The crossing quantile the risk level and the replace-by date follow, per dielectric, in words:
-    "P50 for metallised film (run), P10 for aluminium electrolytic (start)"; P10 before any back-test."""
-    levels = stored_alert_levels()
-    if not levels:
-        return f"P{round(100 * PlanningSettings().alert_level)}"
+    """The crossing quantile the risk level and the replace-by date follow, per dielectric, in words a planner reads
+    without statistics: "P50, the date half such capacitors would have crossed by, for metallised film (run);
+    P30, 3 in 10, for aluminium electrolytic (start)"; P10 before any back-test."""
+    levels = stored_alert_levels() or {"": PlanningSettings().alert_level}
     names = dict(CapacitorPart.Dielectric.choices)
-    return ", ".join(
-        f"P{round(100 * level)} for {names.get(family, family).lower()}" for family, level in sorted(levels.items())
-    )
+    said = []
+    for number, (family, level) in enumerate(sorted(levels.items())):
+        percent = round(100 * level)
+        share = "half" if percent == 50 else f"{percent // 10} in 10" if percent % 10 == 0 else f"{percent} %"
+        words = f"P{percent}, the date {share} of such capacitors would have crossed by" if number == 0 else (
+            f"P{percent}, {share}"
+        )
+        said.append(words + (f", for {names.get(family, family).lower()}" if family else ""))
+    return "; ".join(said)

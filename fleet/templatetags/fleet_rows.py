@@ -13,6 +13,7 @@ from django.urls import reverse
 from django.utils.html import format_html
 from django.utils.safestring import mark_safe
 from django.utils.text import slugify
+from django.utils import timezone
 from django.utils.timezone import template_localtime
 
 from .fleet_format import day, nowrap_dates
@@ -41,12 +42,13 @@ def _iso(day, none: str) -> str:
 NO_TREND = "no trend"
 
 
-def crossing_day(assessment, day) -> str:
-    """A crossing date as the pages write it: the day, "beyond" where the trend stays above the limit for the
-    planning horizon, "no trend" where no forecast could be made (`set_aside`: an open capacitor's "replace
-    now" showed "- / beyond", as if its limit were years away)."""
+def crossing_day(assessment, day, today=None) -> str:
+    """A crossing date as the pages write it: the day ("2025-07-14, past" once `today` is after it: a walk read a
+    past date as one to come), "beyond" where the trend stays above the limit for the planning horizon, "no
+    trend" where no forecast could be made (`set_aside`: an open capacitor's "replace now" showed "- / beyond",
+    as if its limit were years away)."""
     if day is not None:
-        return day.isoformat()
+        return day.isoformat() + (", past" if today is not None and day < today else "")
     return NO_TREND if assessment.set_aside else "beyond"
 
 
@@ -54,6 +56,7 @@ def crossing_day(assessment, day) -> str:
 def plan_rows(assessments):
     """The plan table's body rows for `assessments` (with their capacitors, motors, sites and parts)."""
     rows = []
+    today = timezone.localdate()
     for a in assessments:
         capacitor = a.fitted_capacitor
         motor = capacitor.motor
@@ -69,12 +72,13 @@ def plan_rows(assessments):
                 risk_slug=slugify(a.risk),
                 risk=a.risk,
                 replace_by=_iso(a.replace_by, "-"),
-                few=FEW_READINGS if a.low_confidence else "",
+                # A capacitor to replace now is not "forecast from similar capacitors": its evidence says why.
+                few=FEW_READINGS if a.low_confidence and a.risk != a.Risk.REPLACE_NOW else "",
                 capacitance=floatformat(a.capacitance_now_uf, 2),
                 limit=a.limit_source,
                 reason=nowrap_dates(a.reason or "-"),
-                p10=crossing_day(a, a.p10_on),
-                p50=crossing_day(a, a.p50_on),
+                p10=crossing_day(a, a.p10_on, today),
+                p50=crossing_day(a, a.p50_on, today),
                 site=motor.site.code,
             )
         )
