@@ -524,7 +524,7 @@ def test_the_plan_rows_written_in_python_are_the_markup_the_template_wrote(plann
 
 WORK_ORDER_ROW_TEMPLATE = """{% for order in orders %}<tr>
     <td data-label="Motor"><a href="{% url 'motor' order.motor.asset_tag %}">{{ order.motor.asset_tag }}</a><br><span class="muted">{{ order.motor.location }}</span></td>
-    <td data-label="Work">{{ order.get_kind_display }}</td><td data-label="Part"><span class="nowrap">{{ order.fitted_capacitor.part.code }}</span></td><td data-label="State">{{ order.get_state_display }}</td><td data-label="Why">{{ order.reason|nowrap_dates }}</td></tr>
+    <td data-label="Work">{{ order.get_kind_display }}</td><td data-label="Part">{% if order.fitted_capacitor %}<span class="nowrap">{{ order.fitted_capacitor.part.code }}</span>{% endif %}</td><td data-label="Replace by">{% if order.plan_replace_by %}<span class="replace-by">{{ order.plan_replace_by|day }}</span>{% if order.due_on > order.plan_replace_by %}<br><b class="error-text past-replace-by">the visit is after it</b>{% endif %}{% else %}-{% endif %}</td><td data-label="State">{% if order.state == "planned" %}Planned, not issued yet{% else %}{{ order.get_state_display }}{% endif %}</td><td data-label="Why">{{ order.reason|nowrap_dates }}</td></tr>
   {% endfor %}"""  # noqa: E501
 
 
