@@ -1141,6 +1141,11 @@ class WorkOrder(models.Model):
         """The order asks for a reading first (replace only if past its limit)."""
         return self.kind == self.Kind.READ_AGAIN
 
+    @property
+    def not_issued(self) -> bool:
+        """Planned, not handed to the technicians yet: the planner may still move or cancel it."""
+        return self.state == self.State.PLANNED
+
     def clean(self):
         """A due date past the plan's reach or a visit window no plan makes is refused at its field."""
         super().clean()

@@ -157,6 +157,11 @@ def test_a_list_pages_query_count_does_not_grow_with_the_fleet(client, planner_w
         counts.append(len(queries))
         bodies.append(response.content)
     assert counts[0] == counts[1], f"{page}: {counts[0]} queries at 5 motors, {counts[1]} at 40"
+    if page in ("work orders", "visit sheet"):  # each order's replace-by date (and on the list each visit's
+        # state and lateness, counted in SQL) is on both fleets' pages: the counts above include them
+        assert all(b"<th>Replace by</th>" in body for body in bodies)
+        if page == "work orders":
+            assert all(b'class="visit-state' in body for body in bodies)
     if page.startswith("route"):  # motors asked to read again are on the page, with their order
         assert b"read again: work order" in bodies[0] and b"read again: work order" in bodies[1]
     if page in SUMMARIES:  # a summary of the fleet's designs: the count is of a real summary
@@ -524,7 +529,7 @@ def test_the_plan_rows_written_in_python_are_the_markup_the_template_wrote(plann
 
 WORK_ORDER_ROW_TEMPLATE = """{% for order in orders %}<tr>
     <td data-label="Motor"><a href="{% url 'motor' order.motor.asset_tag %}">{{ order.motor.asset_tag }}</a><br><span class="muted">{{ order.motor.location }}</span></td>
-    <td data-label="Work">{{ order.get_kind_display }}</td><td data-label="Part"><span class="nowrap">{{ order.fitted_capacitor.part.code }}</span></td><td data-label="State">{{ order.get_state_display }}</td><td data-label="Why">{{ order.reason|nowrap_dates }}</td></tr>
+    <td data-label="Work">{{ order.get_kind_display }}</td><td data-label="Part">{% if order.fitted_capacitor %}<span class="nowrap">{{ order.fitted_capacitor.part.code }}</span>{% endif %}</td><td data-label="Replace by">{% if order.plan_replace_by %}<span class="replace-by">{{ order.plan_replace_by|day }}</span>{% if order.due_on > order.plan_replace_by %}<br><b class="error-text past-replace-by">the visit is after it</b>{% endif %}{% else %}-{% endif %}</td><td data-label="State">{% if order.state == "planned" %}Planned, not issued yet{% else %}{{ order.get_state_display }}{% endif %}</td><td data-label="Why">{{ order.reason|nowrap_dates }}</td></tr>
   {% endfor %}"""  # noqa: E501
 
 

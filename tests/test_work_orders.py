@@ -909,12 +909,26 @@ def test_a_stop_gaps_replacement_brings_its_design_part_in_every_count_of_spares
 
     client.force_login(technician)
     sheet = client.get(reverse("visit_sheet", args=[site.code, day.isoformat()])).content.decode()
-    row = sheet[sheet.index(stop_gap.motor.asset_tag) :].split("</tr>")[0]
-    assert "RUN-6-450" in row and "a stop-gap: bring the design part" in row and "RUN-8-450" in row
+    _leads_with_the_design_part(sheet, stop_gap.motor.asset_tag)
     other = sheet[sheet.index(plain.motor.asset_tag) :].split("</tr>")[0]
-    assert "stop-gap" not in other
+    assert "stop-gap" not in other and "Bring" not in other
     orders_page = client.get(reverse("work_orders")).content.decode()
-    assert orders_page.count("a stop-gap: bring the design part") == 1
+    assert orders_page.count("(the design part)") == 1
+    _leads_with_the_design_part(orders_page, stop_gap.motor.asset_tag)
+
+
+def _leads_with_the_design_part(page: str, asset_tag: str) -> None:
+    """A stop-gap's order row: its Part cell leads with the design part to bring (RUN-8-450), as the link to the
+    replacement form, and names the stop-gap fitted now (RUN-6-450) after it, smaller (a walk found the stop-gap's
+    code first, as the link, and a tired technician bringing the wrong part)."""
+    row = page[page.index(asset_tag) :].split("</tr>")[0]
+    cell = row[row.index('data-label="Part"') :].split("</td>")[0]
+    text = re.sub(r"<[^>]+>", "", cell[cell.index(">") + 1 :])
+    assert text.startswith("Bring RUN-8-450 (the design part)"), text
+    assert text.index("RUN-8-450") < text.index("RUN-6-450")
+    assert re.search(r'<a class="nowrap part-code" href="[^"]+">RUN-8-450</a>', cell), cell
+    fitted = cell[cell.index('class="muted stop-gap-fitted"') :]
+    assert fitted.startswith('class="muted stop-gap-fitted">fitted now: <span class="nowrap">RUN-6-450</span>')
 
 
 def _stop_gap(site, *, route_order=1):
@@ -966,7 +980,7 @@ def test_the_planner_orders_a_stop_gap_swapped_on_its_sites_next_visit(client, p
     assert "A replacement order was open already" in again
     sheet = client.get(reverse("visit_sheet", args=[site.code, visit_day.isoformat()])).content.decode()
     row = sheet[sheet.index(stop_gap.motor.asset_tag) :].split("</tr>")[0]
-    assert "a stop-gap: bring the design part" in row and 'class="plan-now"' not in row
+    assert "Bring RUN-8-450 (the design part)" in re.sub(r"<[^>]+>", "", row) and 'class="plan-now"' not in row
     # A plan run leaves it be: the stop-gap's wear does not ask for it.
     plan_work_orders(user=planner)
     assert WorkOrder.objects.get(pk=order.pk).due_on == visit_day
@@ -1039,3 +1053,167 @@ def test_the_work_orders_list_says_each_orders_work_as_a_link(planner, technicia
     assert f'href="{reverse("reading_new", args=[read.id])}{back}">Record the reading</a>' in listed
     client.force_login(planner)  # plans and issues orders; records no replacement
     assert "Record the replacement" not in client.get(reverse("work_orders")).content.decode()
+
+
+def _friday_visit(site, replace_by, count=2, state="planned"):
+    """Capacitors at `site` whose current plan says replace by `replace_by`, each with an open order on that day."""
+    capacitors = [make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in range(count)]
+    for capacitor in capacitors:
+        stored_assessment(capacitor, "due soon", replace_by)
+        WorkOrder.objects.create(
+            motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=replace_by, state=state
+        )
+    return capacitors
+
+
+def test_a_move_past_an_orders_replace_by_date_is_warned_of_before_and_after(client, planner):
+    """A walk: a visit moved a day past its orders' replace-by date said only "visit moved from", and neither the
+    sheet nor the list showed a replace-by date. Both now show each order's date, marked where the visit is after
+    it; the day buttons mark the days past the visit's soonest date; the move goes ahead (a warning, not a
+    refusal) and says which orders the new day makes late: tag, capacitor, date. [trade] a planned replacement is
+    done by its date or knowingly late (common practice of the trade, no single source)."""
+    today = timezone.localdate()
+    thursday = today + dt.timedelta(days=14 + (3 - today.weekday()) % 7)
+    wednesday, friday = thursday - dt.timedelta(days=1), thursday + dt.timedelta(days=1)
+    site = make_site(code="LATE")
+    first, second = _friday_visit(site, thursday)
+    stored_assessment(second, "due soon", thursday + dt.timedelta(days=16))  # its plan allows the Friday
+
+    move = move_visit(site_id=site.id, due_on=thursday, to_day=friday, user=planner)
+    assert move.moved == 2
+    assert [(o.asset_tag, o.capacitor, o.replace_by) for o in move.late] == [
+        (first.motor.asset_tag, f"run capacitor {first.part.code}", thursday)
+    ]
+    back = move_visit(site_id=site.id, due_on=friday, to_day=thursday, user=planner)
+    assert back.late == ()  # on its date: not late
+
+    client.force_login(planner)
+    url = reverse("visit_sheet", args=[site.code, thursday.isoformat()])
+    sheet = client.get(url).content.decode()
+    assert "<th>Replace by</th>" in sheet and 'class="error-text past-replace-by"' not in sheet
+    soonest = f'<b><span class="nowrap">{thursday:%a %Y-%m-%d}</span></b> ({first.motor.asset_tag} run capacitor'
+    assert f"Soonest replace-by date in this visit: {soonest}" in sheet
+    buttons = {
+        value: marked
+        for marked, value in re.findall(
+            r'class="button secondary( past-replace-by)?" data-fills="id_to_day" value="([0-9-]+)"', sheet
+        )
+    }
+    assert buttons[wednesday.isoformat()] == "" and buttons[friday.isoformat()] == " past-replace-by", buttons
+
+    answer = client.post(url, {"to_day": friday.isoformat()}, follow=True).content.decode()
+    warning = re.search(r'<li class="warning">(.*?)</li>', answer, re.S)
+    assert warning is not None, answer[:3000]
+    words = warning.group(1)
+    assert f"{friday:%a %Y-%m-%d} is after the replace-by date of 1 order in this visit" in words
+    assert f"{first.motor.asset_tag} run capacitor {first.part.code}, replace by {thursday:%a %Y-%m-%d}" in words
+    assert second.motor.asset_tag not in words
+    assert set(WorkOrder.objects.values_list("due_on", flat=True)) == {friday}  # moved all the same
+    row = answer[answer.index(f">{first.motor.asset_tag}</a>") :].split("</tr>")[0]
+    assert thursday.isoformat() in row and "the visit is after it" in row
+    other = answer[answer.index(f">{second.motor.asset_tag}</a>") :].split("</tr>")[0]
+    assert "the visit is after it" not in other
+
+    listed = client.get(reverse("work_orders")).content.decode()
+    assert "<th>Replace by</th>" in listed and listed.count("the visit is after it") == 1
+    assert "1 past its replace-by date" in listed
+
+
+def test_a_technician_reads_that_a_planned_visit_is_not_issued_yet(client, planner, technician):
+    """A walk: a technician's sheet and list showed a planned, not-issued visit exactly like an issued one. Both now
+    say "planned, not issued yet" (the planner may still move or cancel it); the technician may still record a
+    replacement (a capacitor may have failed). Once issued, the words go. Ours."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    site = make_site(code="NIS")
+    capacitors = _friday_visit(site, day)
+    sheet_url = reverse("visit_sheet", args=[site.code, day.isoformat()])
+    client.force_login(technician)
+    sheet = client.get(sheet_url).content.decode()
+    assert "This visit: planned, not issued yet." in sheet and "The planner may still move or cancel" in sheet
+    assert 'class="not-issued"' not in sheet  # every order planned: said once, above them
+    assert sheet.count("Record the replacement</a>") == 2  # still allowed
+    listed = client.get(reverse("work_orders")).content.decode()
+    assert '<span class="visit-state not-issued">planned, not issued yet</span>' in listed
+    assert listed.count('data-label="State">Planned, not issued yet</td>') == 2
+    assert "Planned, not issued yet: the planner may still move or cancel them" in listed
+
+    WorkOrder.objects.filter(pk=WorkOrder.objects.get(fitted_capacitor=capacitors[0]).pk).update(state="issued")
+    sheet = client.get(sheet_url).content.decode()
+    assert "This visit: 1 issued, 1 planned, not issued yet." in sheet
+    assert sheet.count('<span class="not-issued">planned, not issued yet</span>') == 1  # on the planned one
+    planned_row = sheet[sheet.index(f">{capacitors[1].motor.asset_tag}</a>") :].split("</tr>")[0]
+    assert "not issued yet" in planned_row
+
+    client.force_login(planner)
+    client.post(reverse("work_orders"), {"action": "issue", "site": site.id, "day": day.isoformat()})
+    client.force_login(technician)
+    sheet = client.get(sheet_url).content.decode()
+    assert "This visit: issued." in sheet and "not issued yet" not in sheet
+    listed = client.get(reverse("work_orders")).content.decode()
+    assert "not issued yet" not in listed and '<span class="visit-state">issued</span>' in listed
+
+
+def test_capacitors_to_replace_now_without_a_work_order_are_counted_with_the_button_that_orders_them(
+    client, planner, technician, django_assert_num_queries
+):
+    """A walk: a capacitor to replace now had no work order until the planner happened to plan, and no page said
+    so. The work-orders page and the dashboard count them (one aggregate query), the planner with the button that
+    creates them; a capacitor with an open order, one removed and one not to replace now are not counted. Ours."""
+    from fleet.services.workorders import replace_now_without_order
+
+    today = timezone.localdate()
+    site = make_site(code="RNW")
+    unordered = [make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in range(2)]
+    ordered = make_fitted_capacitor(motor=make_motor(site=site, route_order=5))
+    later = make_fitted_capacitor(motor=make_motor(site=site, route_order=6))
+    for capacitor in (*unordered, ordered):
+        stored_assessment(capacitor, "replace now", today)
+    stored_assessment(later, "due soon", today + dt.timedelta(days=40))
+    WorkOrder.objects.create(motor=ordered.motor, fitted_capacitor=ordered, kind="replace_run", due_on=today)
+    with django_assert_num_queries(1):  # every site's (a user's sites add the scoping's own look-up)
+        assert replace_now_without_order() == 2
+    assert replace_now_without_order(planner) == 2
+
+    client.force_login(planner)
+    for page in ("work_orders", "dashboard"):
+        body = client.get(reverse(page)).content.decode()
+        note = body[body.index('id="replace-now-unordered"') :].split("</div>")[0]
+        assert "2 capacitors to replace now have no work order." in note, page
+        assert 'name="action" value="plan">Create work orders from the plan</button>' in note, page
+    client.force_login(technician)
+    body = client.get(reverse("work_orders")).content.decode()
+    note = body[body.index('id="replace-now-unordered"') :].split("</div>")[0]
+    assert "2 capacitors to replace now have no work order. Ask the planner" in re.sub(r"<[^>]+>", "", note)
+    assert 'value="plan"' not in note
+
+    client.force_login(planner)
+    client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
+    assert replace_now_without_order(planner) == 0
+    assert 'id="replace-now-unordered"' not in client.get(reverse("work_orders")).content.decode()
+
+
+def test_each_folded_visit_says_its_state_and_whether_an_order_is_past_its_date(client, planner):
+    """A walk: a folded visit showed only its site, day and count. Each now says its state in words (planned,
+    issued, some done already) and how many of its orders the visit's day is past the replace-by date of, counted
+    in SQL (the list's query count is pinned in test_page_queries). Ours."""
+    monday = timezone.localdate() + dt.timedelta(days=10)
+    site = make_site(code="FLD")
+    _friday_visit(site, monday, count=1)  # planned
+    issued = _friday_visit(site, monday + dt.timedelta(days=1), count=2, state="issued")
+    WorkOrder.objects.filter(fitted_capacitor=issued[0]).update(state="done", closed_at=timezone.now())
+    mixed = _friday_visit(site, monday + dt.timedelta(days=2), count=2)
+    WorkOrder.objects.filter(fitted_capacitor=mixed[0]).update(state="issued")
+    stored_assessment(mixed[1], "replace now", monday)  # the visit is two days after its date
+
+    visits = {v["day"]: v for v in open_visits_page(1, user=planner).object_list}
+    assert [(v["state"], v["late"]) for v in visits.values()] == [
+        ("planned, not issued yet", 0),
+        ("issued; 1 done already", 0),
+        ("1 issued, 1 planned, not issued yet", 1),
+    ]
+    client.force_login(planner)
+    listed = client.get(reverse("work_orders")).content.decode()
+    summaries = [text for text in re.findall(r"<summary>(.*?)</summary>", listed, re.S) if "visit-count" in text]
+    assert len(summaries) == 3
+    assert '<span class="visit-state">issued; 1 done already</span>' in summaries[1]
+    assert "past" not in summaries[0] and "1 past its replace-by date</b>" in summaries[2]

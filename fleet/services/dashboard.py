@@ -54,6 +54,7 @@ from fleet.services.pages import (
     risk_changes,
 )
 from fleet.services.substitutes import count_design_parts
+from fleet.services.workorders import replace_now_without_order
 
 WEEKS = 26
 MONTHS = 12
@@ -409,6 +410,7 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
         "changes": changes_since(7, user),
         "sites": mix["sites"],
         "visits_total": sum(workload["visits"]),
+        "replace_now_unordered": replace_now_without_order(user),
         "overdue_total": sum(r["overdue"] for r in routes["routes"]),
         "overdue_days": READING_INTERVAL_DAYS + OVERDUE_GRACE_DAYS,
         "workload_chart": cached_figure(

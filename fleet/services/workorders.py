@@ -14,7 +14,7 @@ import pandas as pd
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.db import transaction
-from django.db.models import Count, F, OuterRef, Q, Subquery, Window
+from django.db.models import Count, Exists, F, OuterRef, Q, Subquery, Window
 from django.db.models.functions import RowNumber
 from django.utils import timezone
 
@@ -34,7 +34,7 @@ from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteDayOff, Si
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
-from .pages import due_within
+from .pages import due_within, in_service_assessments
 from .substitutes import count_design_parts, design_parts
 
 KIND_FOR_ROLE = {
@@ -346,6 +346,16 @@ class VisitMove:
     by: str = ""
     at: str = ""
     joined: int = 0  # open orders the site had on `to_day` already: the two visits became one
+    late: tuple = ()  # the moved orders `to_day` puts past their replace-by date (`LateOrder`), soonest date first
+
+
+@dataclass(frozen=True)
+class LateOrder:
+    """An order whose visit day is after its capacitor's replace-by date: which motor, which capacitor, the date."""
+
+    asset_tag: str
+    capacitor: str  # "run capacitor RUN-10U-450"
+    replace_by: dt.date
 
 
 def move_visit(
@@ -394,7 +404,48 @@ def move_visit(
             order.moved_from = order.moved_from or order.due_on
             order.due_on = to_day
         audited_bulk_update(orders, ["due_on", "moved_from"])
-    return VisitMove(moved=len(orders), to_day=to_day, joined=joined)
+        late = past_replace_by([o.fitted_capacitor_id for o in orders if o.fitted_capacitor_id], to_day)
+    return VisitMove(moved=len(orders), to_day=to_day, joined=joined, late=tuple(late))
+
+
+def past_replace_by(fitted_capacitor_ids, day: dt.date) -> list[LateOrder]:
+    """Of these capacitors, those whose current plan's replace-by date is before `day` (a visit on `day` is late for
+    them), soonest date first, each with its motor's tag and its role and part in words. One query."""
+    rows = (
+        Assessment.objects.filter(
+            fitted_capacitor_id__in=storable_ids(fitted_capacitor_ids), is_current=True, replace_by__lt=day
+        )
+        .select_related("fitted_capacitor__motor", "fitted_capacitor__part")
+        .order_by("replace_by", "fitted_capacitor__motor__asset_tag", "fitted_capacitor_id")
+    )
+    return [
+        LateOrder(
+            asset_tag=a.fitted_capacitor.motor.asset_tag,
+            capacitor=f"{a.fitted_capacitor.get_role_display().lower()} capacitor {a.fitted_capacitor.part.code}",
+            replace_by=a.replace_by,
+        )
+        for a in rows
+    ]
+
+
+def tightest_replace_by(site_id: int, day: dt.date, user=None) -> LateOrder | None:
+    """The open order of a visit whose capacitor's current plan has the soonest replace-by date (a move past
+    that date leaves it late), as a `LateOrder`; None where no order of the visit has one. One query."""
+    row = (
+        with_current_plan(open_orders(user).filter(site_id__in=storable_ids([site_id]), due_on=day))
+        .filter(plan_replace_by__isnull=False)
+        .select_related("motor", "fitted_capacitor__part")
+        .order_by("plan_replace_by", *WALKING_ORDER)
+        .first()
+    )
+    if row is None:
+        return None
+    capacitor = row.fitted_capacitor
+    return LateOrder(
+        asset_tag=row.motor.asset_tag,
+        capacitor=f"{capacitor.get_role_display().lower()} capacitor {capacitor.part.code}",
+        replace_by=row.plan_replace_by,
+    )
 
 
 CLOSED_VISIT_SHOWN = 100  # a closed visit's orders listed at most (a visit holds tens)
@@ -560,6 +611,33 @@ def days_off_by_site(site_ids, today: dt.date) -> dict[int, dict[dt.date, str]]:
 def open_orders(user=None):
     """The open (planned or issued) orders at the sites `user` works at (None: every site)."""
     return scope_to_user(WorkOrder.objects.all(), user).filter(state__in=OPEN)
+
+
+# A listed order's capacitor's current plan's replace-by date, in the same query.
+CURRENT_REPLACE_BY = Assessment.objects.filter(
+    fitted_capacitor_id=OuterRef("fitted_capacitor_id"), is_current=True
+).values("replace_by")[:1]
+
+
+def visit_state_words(planned: int, issued: int, done: int = 0) -> str:
+    """A visit's state in words, from its open orders still planned and issued and its orders done already: the
+    one rule of the work-orders list and the visit sheet ("planned, not issued yet" tells a technician the
+    planner may still move or cancel it)."""
+    if planned and issued:
+        words = f"{issued} issued, {planned} planned, not issued yet"
+    elif planned:
+        words = "planned, not issued yet"
+    else:
+        words = "issued"
+    return f"{words}; {done} done already" if done else words
+
+
+def replace_now_without_order(user=None) -> int:
+    """Capacitors in service at the user's sites whose current plan says "replace now" and that have no open work
+    order: the work-orders page and the dashboard say how many, beside the button that orders them. One
+    aggregate query over the current assessments (an EXISTS on the open orders' unique index a row)."""
+    open_order = WorkOrder.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), state__in=OPEN)
+    return in_service_assessments(user).filter(risk=Assessment.Risk.REPLACE_NOW).exclude(Exists(open_order)).count()
 
 
 def with_current_plan(orders):
@@ -787,14 +865,21 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     """A page of open visits (site, day) at the user's sites, soonest first: each with its order
     count, how many are still planned (to issue), its first `orders_shown` orders in walking order (each
     with `plan_now`), its spares with the site's stock, and the name of the site's day off it falls on (a day
-    made a day off after the visit was dated; empty where none). Eight queries, whatever the number of orders:
-    the visits are grouped and counted in SQL, the orders cut per visit by a window function over the
+    made a day off after the visit was dated; empty where none), its state in words (`visit_state_words`, its
+    orders done already counted too) and how many of its orders are past their replace-by date (`late`: the
+    visit's day after the capacitor's current plan's date). Nine queries, whatever the number of orders:
+    the visits are grouped and counted in SQL (the lateness by a subquery a row), the done orders of the page's
+    visits counted in one more, the orders cut per visit by a window function over the
     orders alone (by their stored walking order, from the open orders' index), then the orders shown are
     read with their motors and current plans."""
     orders = open_orders(user)
     visits = (
         orders.values("due_on", "site_id", "site__code")
-        .annotate(count=Count("id"), planned=Count("id", filter=Q(state=WorkOrder.State.PLANNED)))
+        .annotate(
+            count=Count("id"),
+            planned=Count("id", filter=Q(state=WorkOrder.State.PLANNED)),
+            late=Count("id", filter=Q(due_on__gt=Subquery(CURRENT_REPLACE_BY))),
+        )
         .order_by("due_on", "site__code")
     )
     page = Paginator(visits, per_page).get_page(page_number)
@@ -802,6 +887,14 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     if not keys:
         return page
     in_page = reduce(or_, (Q(due_on=day, site_id=site_id) for day, site_id in keys))
+    done = {
+        (row["due_on"], row["site_id"]): row["done"]
+        for row in scope_to_user(WorkOrder.objects.all(), user)
+        .filter(in_page, state=WorkOrder.State.DONE)
+        .values("due_on", "site_id")
+        .annotate(done=Count("id"))
+        .order_by()
+    }
     position = Window(
         RowNumber(), partition_by=[F("due_on"), F("site_id")], order_by=[F(name).asc() for name in WALKING_ORDER]
     )
@@ -835,6 +928,10 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
             "orders": by_visit[(day, site_id)],
             "count": visit["count"],
             "planned": visit["planned"],
+            "late": visit["late"],
+            "state": visit_state_words(
+                visit["planned"], visit["count"] - visit["planned"], done.get((day, site_id), 0)
+            ),
             "more": visit["count"] - len(by_visit[(day, site_id)]),
             "spares": spares.get((day, site_id), []),
         }

@@ -87,10 +87,19 @@ def plan_rows(assessments):
 
 WORK_ORDER_ROW = """<tr>
     <td data-label="Motor"><a href="{motor_url}">{tag}</a><br><span class="muted">{location}</span></td>
-    <td data-label="Work">{kind}{action}</td><td data-label="Part"><span class="nowrap">{part}</span>{bring}</td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
+    <td data-label="Work">{kind}{action}</td><td data-label="Part">{part}</td><td data-label="Replace by">{replace_by}</td><td data-label="State">{state}</td><td data-label="Why">{reason}{plan_now}</td></tr>
   """  # noqa: E501 (as the page's source shows it)
 PLAN_NOW = '<br><b class="plan-now">{}</b>'
-BRING_PART = '<br><span class="bring-part">a stop-gap: bring the design part <b class="nowrap part-code">{}</b></span>'
+PART = '<span class="nowrap">{}</span>'
+# A stop-gap's order leads with the part to bring, the stop-gap fitted now second and smaller (a walk found the
+# stop-gap's code first, as a link, and a technician packing the wrong part).
+BRING_PART = (
+    '<b class="bring-part">Bring <span class="nowrap part-code">{bring}</span> (the design part)</b>'
+    '<br><small class="muted stop-gap-fitted">fitted now: <span class="nowrap">{fitted}</span>, a stop-gap</small>'
+)
+REPLACE_BY = '<span class="replace-by">{}</span>'
+PAST_REPLACE_BY = '<br><b class="error-text past-replace-by">the visit is after it</b>'
+NOT_ISSUED = "Planned, not issued yet"
 
 
 PART_LINK = '<a class="nowrap part-code" href="{}">{}</a>'
@@ -99,24 +108,37 @@ RECORD_READING = '<br><a class="glove field-work" href="{}">Record the reading</
 RECORD_REPLACEMENT = '<br><a class="glove field-work record-replacement" href="{}">Record the replacement</a>'
 
 
+def past_replace_by(order) -> bool:
+    """The order's visit day is after its capacitor's current replace-by date (`with_current_plan`)."""
+    replace_by = getattr(order, "plan_replace_by", None)
+    return replace_by is not None and order.due_on > replace_by
+
+
 @register.simple_tag
 def work_order_rows(orders, can_read=False, can_replace=False):
     """A visit's rows on the work-orders page for `orders` (with their motors and capacitors' parts), as the
     visit sheet's: a "read again" order's part opens the capacitor's reading form where the user may log one
-    (`can_read`), a replacement order's the replacement form where the user may record one (`can_replace`)."""
+    (`can_read`), a replacement order's the replacement form where the user may record one (`can_replace`); a
+    stop-gap's order leads with the design part to bring (`bring_part`); each row says its capacitor's replace-by
+    date, marked where the visit is after it, and a planned order that it is not issued yet."""
     rows = []
     back = f"?next={reverse('work_orders')}"  # back to this list once recorded (`register.page_to_return_to`)
     for order in orders:
         capacitor = order.fitted_capacitor
-        part = "" if capacitor is None else capacitor.part.code
-        in_service = part and capacitor.removed_on is None
-        action = ""
+        code = "" if capacitor is None else capacitor.part.code
+        bring = getattr(order, "bring_part", None)
+        shown = bring.code if bring else code  # the part code the row leads with
+        in_service = code and capacitor.removed_on is None
+        part, action = format_html(PART, shown) if shown else "", ""
         if in_service and can_read and order.reads_again:
             link = reverse("reading_new", args=[capacitor.id]) + back
-            part, action = format_html(PART_LINK, link, part), format_html(RECORD_READING, link)
+            part, action = format_html(PART_LINK, link, shown), format_html(RECORD_READING, link)
         elif in_service and can_replace and not order.reads_again:
             link = reverse("replace", args=[capacitor.id]) + back
-            part, action = format_html(PART_LINK, link, part), format_html(RECORD_REPLACEMENT, link)
+            part, action = format_html(PART_LINK, link, shown), format_html(RECORD_REPLACEMENT, link)
+        if bring:
+            part = format_html(BRING_PART, bring=part, fitted=code)
+        replace_by = getattr(order, "plan_replace_by", None)
         rows.append(
             format_html(
                 WORK_ORDER_ROW,
@@ -126,8 +148,12 @@ def work_order_rows(orders, can_read=False, can_replace=False):
                 kind=order.get_kind_display(),
                 action=action,
                 part=part,
-                bring=format_html(BRING_PART, order.bring_part.code) if getattr(order, "bring_part", None) else "",
-                state=order.get_state_display(),
+                replace_by=format_html(
+                    "{}{}", format_html(REPLACE_BY, day(replace_by)), PAST_REPLACE_BY if past_replace_by(order) else ""
+                )
+                if replace_by
+                else "-",
+                state=NOT_ISSUED if order.state == order.State.PLANNED else order.get_state_display(),
                 reason=nowrap_dates(order.reason),
                 plan_now=format_html(PLAN_NOW, nowrap_dates(order.plan_now)) if getattr(order, "plan_now", "") else "",
             )

@@ -55,8 +55,11 @@ from fleet.services.workorders import (
     plan_work_orders,
     recently_cancelled,
     remove_day_off,
+    replace_now_without_order,
     site_days_off,
+    tightest_replace_by,
     visit_moved_to,
+    visit_state_words,
     with_current_plan,
     with_parts_to_bring,
     with_plan_now,
@@ -148,6 +151,7 @@ def work_orders(request):
             "today": timezone.localdate(),
             "cancelled": recently_cancelled(request.user) if request.user.has_perm("fleet.add_workorder") else [],
             "cancelled_days": CANCELLED_SHOWN_DAYS,
+            "replace_now_unordered": replace_now_without_order(request.user),
         },
     )
 
@@ -219,6 +223,8 @@ def visit_sheet(request, site, day):
                         f"Visit moved from {day:%a %Y-%m-%d} to {to_day:%a %Y-%m-%d}: "
                         f"{move.moved} work order{pluralize(move.moved)}.{joined} A new plan keeps the move.",
                     )
+                    if move.late:
+                        messages.warning(request, late_move_words(to_day, move.late))
                 return redirect("visit_sheet", site_code=site.code, day=to_day.isoformat())
     visit = open_visit(site.id, day, user=request.user)
     paginator = Paginator(visit["orders"], VISIT_SHEET_PAGE_SIZE)
@@ -242,6 +248,7 @@ def visit_sheet(request, site, day):
         return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
     page = list_page(request, paginator.get_page)
     page.object_list = with_parts_to_bring(with_read_for(with_plan_now(page.object_list), user=request.user))
+    planned = WorkOrder.objects.filter(site_id=site.id, due_on=day, state=WorkOrder.State.PLANNED).count()
     context = {
         "visit": visit,
         "site": site,
@@ -250,12 +257,26 @@ def visit_sheet(request, site, day):
         "move_choices": move_choices(site.id, day),
         "day_off": days_off_by_site([site.id], day).get(site.id, {}).get(day),
         "closed": closed_visit(site.id, day, user=request.user),  # a "read for work order N" links to one of these
-        # Orders still to issue: the planner issues the visit from its sheet as from the work-orders list.
-        "planned_orders": WorkOrder.objects.filter(site_id=site.id, due_on=day, state=WorkOrder.State.PLANNED).count()
+        # Orders still to issue: the planner issues the visit from its sheet as from the work-orders list; a
+        # technician reads that the visit is not issued yet.
+        "planned_orders": planned,
+        "state": visit_state_words(planned, paginator.count - planned),
+        # A move past the soonest replace-by date leaves that order late: the day buttons say which days are.
+        "tightest": tightest_replace_by(site.id, day, user=request.user)
         if request.user.has_perm("fleet.add_workorder")
-        else 0,
+        else None,
     }
     return render(request, "fleet/visit_sheet.html", context, status=400 if move_form.errors else 200)
+
+
+def late_move_words(to_day: dt.date, late) -> str:
+    """The warning after a move that put orders past their replace-by date: which ones (tag, capacitor, date)."""
+    listed = "; ".join(f"{o.asset_tag} {o.capacitor}, replace by {o.replace_by:%a %Y-%m-%d}" for o in late)
+    n = len(late)
+    return (
+        f"{to_day:%a %Y-%m-%d} is after the replace-by date of {n} order{pluralize(n)} in this visit: {listed}. "
+        f"{'It is' if n == 1 else 'They are'} late on the new day: move the visit earlier, or keep the day knowingly."
+    )
 
 
 @needs_permission("fleet.view_sitedayoff")
