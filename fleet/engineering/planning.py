@@ -144,6 +144,10 @@ class PlanningSettings:
     # Days a visit may fall on, Monday to Sunday (numpy's weekmask): public holidays are local, the planner
     # moves a visit that falls on one.
     working_days: str = "1111100"
+    # A motor's other capacitor due this soon after the first goes on the same visit, replaced a little early
+    # rather than the motor isolated, locked out and its capacitors discharged a second time weeks later (common
+    # practice of the trade, no single source; the figure is ours: two visit windows and a half).
+    same_motor_days: float = 35.0
 
 
 @dataclass(frozen=True)
@@ -468,13 +472,17 @@ def bundle_visits(
     today: dt.date | None = None,
     weekmask: str = PlanningSettings.working_days,
     days_off_by_site: Mapping | None = None,
+    motor=None,
+    same_motor_days: float = 0.0,
 ):
     """Group replacements into site visits: one trip per site per window.
 
     Per site, the earliest due replacement opens a visit dated on its due day;
     everything at that site due within `window_days` after it joins the visit
     (replaced a little early rather than sending a second trip); the next item
-    opens the next visit. Returns (visit number per item, visit day per item).
+    opens the next visit. Given `motor` (per item), an item due within
+    `same_motor_days` of its motor's earliest goes where that one goes: one
+    isolation for both capacitors. Returns (visit number per item, visit day per item).
     The loop runs over visits, not over items. Given `today` (day 0), a visit day
     that falls outside `weekmask`'s working days, or on one of its site's days off
     (`days_off_by_site`: site value to its days), moves to the working day before
@@ -482,6 +490,12 @@ def bundle_visits(
     """
     site = np.asarray(site)
     due_day = np.asarray(due_day, float)
+    if motor is not None and due_day.size and same_motor_days > 0:
+        _, of_motor = np.unique(np.asarray(motor), return_inverse=True)
+        earliest = np.full(of_motor.max() + 1, np.inf)
+        np.minimum.at(earliest, of_motor, due_day)
+        earliest = earliest[of_motor]
+        due_day = np.where(due_day - earliest <= same_motor_days, earliest, due_day)
     visit = np.full(due_day.size, -1, dtype=np.int64)
     visit_day = np.full(due_day.size, np.nan)
     order = np.lexsort((due_day, site))

@@ -52,8 +52,9 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
     A capacitor whose plan says "read it again" (its trend's early crossing has passed, no reading
     since: `planning.read_again`, stored by the refit) gets a "read again" order, any other one a
     replacement; each order carries the plan's reason in words. New orders and the still-planned ones
-    are bundled into site visits (one trip per site per window) and dated on their visit's day; overdue
-    ones on today. Issued orders are left as they are. Only the sites `user` works at are planned
+    are bundled into site visits (one trip per site per window; a motor's two capacitors on one visit where the
+    second falls due within `PlanningSettings.same_motor_days` of the first) and dated on their visit's day;
+    overdue ones on today. Issued orders are left as they are. Only the sites `user` works at are planned
     (None: every site).
 
     The planner's decisions hold: a visit the planner moved (`move_visit`) stays moved, every order the
@@ -123,6 +124,8 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
                 today=today,
                 weekmask=PlanningSettings().working_days,
                 days_off_by_site=days_off,
+                motor=np.array([i[2].motor_id for i in items]),
+                same_motor_days=PlanningSettings().same_motor_days,
             )
             # A move onto a day made a day off since is let go: the plan dates those orders by its rule.
             moves = {

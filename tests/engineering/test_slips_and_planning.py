@@ -228,6 +228,23 @@ def test_replacements_are_bundled_into_one_visit_per_site_and_window():
     assert visit[3] != visit[5]
 
 
+def test_a_motors_second_capacitor_due_soon_after_its_first_goes_on_the_same_visit():
+    """Common practice of the trade, no single source: a motor isolated, locked out and discharged for one
+    capacitor has its other one changed too when it is due soon after, not a second isolation weeks later (a walk
+    found a motor's start capacitor on one visit and its run capacitor on the next, a month apart). Another
+    motor's capacitor at the same site, and one due later than `same_motor_days`, keep their own visits."""
+    from fleet.engineering.planning import bundle_visits
+
+    site = np.array(["A", "A", "A", "A", "A"])
+    motor = np.array([1, 1, 2, 3, 3])
+    due = np.array([10.0, 40.0, 41.0, 12.0, 100.0])
+    visit, day = bundle_visits(site, due, window_days=14, motor=motor, same_motor_days=35)
+    assert day.tolist() == [10.0, 10.0, 41.0, 10.0, 100.0]
+    assert visit[0] == visit[1] == visit[3] and len(set(visit.tolist())) == 3
+    _, alone = bundle_visits(site, due, window_days=14)  # without motors: by site and window only
+    assert alone.tolist() == [10.0, 40.0, 40.0, 10.0, 100.0]
+
+
 def test_visit_days_fall_on_working_days():
     """[derived] Visits moved off days outside the working week: back to the working day before, or on to
     the next where that is before today. Weekdays checked with Python's calendar (datetime.date.weekday),
