@@ -8,7 +8,7 @@ import re
 import pytest
 from django.urls import reverse
 from django.utils import timezone
-from django.utils.html import strip_tags
+from django.utils.html import escape, strip_tags
 
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, Motor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
@@ -697,7 +697,7 @@ def test_plan_spares_follow_the_chosen_site_and_unknown_formats_are_not_found(si
 def test_only_planners_issue_visits_and_bad_input_is_a_message(signed_in, planner, technician):
     client = signed_in(planner)
     response = client.post(reverse("work_orders"), {"action": "plan", "days": "lots"}, follow=True)
-    assert response.status_code == 200 and "No work orders planned: days" in response.content.decode()
+    assert response.status_code == 400 and "No work orders planned: days" in response.content.decode()
     response = client.post(reverse("work_orders"), {"action": "issue", "site": "x", "day": "soon"}, follow=True)
     assert "could not be found" in response.content.decode()
     site = make_fitted_capacitor().motor.site
@@ -752,6 +752,19 @@ def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, 
         page = response.content.decode()
         assert "No work orders planned: days: type a whole number of days from 7 to 730, e.g. 90." in page, days
         assert ".." not in page.replace("...", ""), days  # one full stop, not Django's "Enter a number.."
+    assert not WorkOrder.objects.exists()
+
+
+@pytest.mark.parametrize("days", ["45x", "<b>7</b>", "0"])
+def test_work_orders_keep_a_refused_horizon_in_its_box_beside_the_message(client, planner, days):
+    """A refused `days=45x` came back by a redirect naming the problem, the box showing 90 again: what was typed
+    was lost. The page comes back (400) with the box holding it as typed (escaped) and the message."""
+    client.force_login(planner)
+    response = client.post("/work-orders/", {"action": "plan", "days": days})
+    page = response.content.decode()
+    assert response.status_code == 400 and "No work orders planned: days" in page
+    assert f'name="days" value="{escape(days)}"' in page
+    assert 'name="days" value="90"' in client.get("/work-orders/").content.decode()
     assert not WorkOrder.objects.exists()
 
 

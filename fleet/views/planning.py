@@ -114,9 +114,9 @@ def work_orders(request):
         action = request.POST.get("action")
         if action == "plan":
             _, horizon, problems = plan_parameters(request.POST.dict() | {"site": ""}, request=request)
-            if problems:
+            if problems:  # the page again, the box holding what was typed beside the message
                 messages.error(request, f"No work orders planned: {problems_text(problems)}.")
-                return redirect("work_orders")
+                return _work_orders_page(request, plan_days=request.POST.get("days", ""), status=400)
             messages.success(request, plan_message(plan_work_orders(horizon_days=horizon, user=request.user)))
         elif action == "issue":
             try:
@@ -138,6 +138,11 @@ def work_orders(request):
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
+    return _work_orders_page(request)
+
+
+def _work_orders_page(request, plan_days: str = "90", status: int = 200):
+    """The work-orders page; `plan_days`, what the plan's box shows (a refused value as it was typed)."""
     page = list_page(request, lambda number: open_visits_page(number, user=request.user))
     return render(
         request,
@@ -148,7 +153,9 @@ def work_orders(request):
             "today": timezone.localdate(),
             "cancelled": recently_cancelled(request.user) if request.user.has_perm("fleet.add_workorder") else [],
             "cancelled_days": CANCELLED_SHOWN_DAYS,
+            "plan_days": plan_days,
         },
+        status=status,
     )
 
 
