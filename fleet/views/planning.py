@@ -55,6 +55,7 @@ from fleet.services.workorders import (
     plan_work_orders,
     recently_cancelled,
     remove_day_off,
+    removed_before,
     site_days_off,
     visit_moved_to,
     with_current_plan,
@@ -276,13 +277,15 @@ def site_days_off_page(request, site):
         if "remove" in request.POST:
             if not request.user.has_perm("fleet.delete_sitedayoff"):
                 raise refused(request.user, "fleet.delete_sitedayoff")
-            try:
-                day_off_id = int(request.POST["remove"])
-            except ValueError:
-                day_off_id = 0
+            sent = request.POST["remove"].strip()
+            day_off_id = int(sent) if sent.isascii() and sent.isdigit() else 0
             removed = remove_day_off(site_id=site.id, day_off_id=day_off_id)
-            if removed is None:
+            if removed is None and removed_before(site_code=site.code, day_off_id=day_off_id):
                 messages.info(request, "That day off was removed already: nothing changed.")
+            elif removed is None:
+                messages.error(
+                    request, f"Not a day off of {site.code}: nothing changed. Reload the page and look again."
+                )
             else:
                 messages.success(
                     request,
