@@ -6,6 +6,7 @@ import io
 import re
 
 import pytest
+from django.core.exceptions import ValidationError
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import escape, strip_tags
@@ -450,6 +451,24 @@ def test_a_motor_with_a_capacitor_to_replace_now_says_so_on_the_route(signed_in,
     }
     assert "replace now: run capacitor" in rows[urgent.motor.asset_tag]
     assert "replace now" not in rows[calm.motor.asset_tag]
+
+
+def test_a_long_refused_place_or_quantity_is_quoted_by_its_first_characters(signed_in, planner):
+    """A 100,000-character place came back in the message whole (and in the box as typed): the message quotes
+    the start of it, as the imports quote a value (`columns.shown`); the box keeps what was typed. [derived]"""
+    from fleet.services.register import set_site_stock
+    from tests.factories import make_motor, make_part, make_site
+
+    site = make_site()
+    motor, part = make_motor(site=site, route_order=1), make_part()
+    typed = "9" * 99_999 + "x"
+    page = signed_in(planner).post(reverse("route", args=[site.code]), {f"order-{motor.id}": typed}).content.decode()
+    assert "is not a whole number from 0 to" in page and "9" * 39 + "…" in page
+    assert page.count(typed) == 1  # the box, as typed; not the message
+    with pytest.raises(ValidationError) as stock:
+        set_site_stock(site=site, quantities={part.id: typed})
+    message = stock.value.message_dict[part.code][0]
+    assert message.startswith("'" + "9" * 39 + "…'") and len(message) < 120, message[:200]
 
 
 def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in, planner, technician):
