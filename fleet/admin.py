@@ -6,6 +6,7 @@ more than they hold (superuser, a permission, or a group with permissions they l
 
 from django import forms
 from django.contrib import admin
+from django.contrib.admin.widgets import AutocompleteSelect, AutocompleteSelectMultiple
 from django.contrib.auth import get_user_model
 from django.contrib.auth.admin import GroupAdmin, UserAdmin
 from django.contrib.auth.models import Group
@@ -30,6 +31,7 @@ from .models import (
     SiteStock,
     WorkOrder,
 )
+from .services.bulk import ROW_ID_MAX
 
 User = get_user_model()
 
@@ -66,7 +68,52 @@ class RulebookDecimalField(forms.DecimalField):
         return super().to_python(value.strip().replace(",", ".") if isinstance(value, str) else value)
 
 
-class CheckedLookupsAdmin(admin.ModelAdmin):
+def _readable_ids(field, values) -> list:
+    """The values a relation's target field can read ("abc" is no id) and hold (an id within 64 bits)."""
+    remote = field.remote_field
+    target = remote.model._meta.get_field(getattr(remote, "field_name", None) or remote.model._meta.pk.name)
+    readable = []
+    for value in values:
+        try:
+            number = target.to_python(value)
+        except ValidationError:
+            continue
+        if isinstance(number, int) and not 0 < number <= ROW_ID_MAX:
+            continue
+        readable.append(value)
+    return readable
+
+
+class CheckedAutocompleteSelect(AutocompleteSelect):
+    """An autocomplete box that redraws a refused form whatever was sent: Django's looks the sent value up to show
+    its label, and a hand-made "abc" raised a ValueError there (a 500) after the field had said "Select a valid
+    choice."; a value no id can be is shown as nothing chosen."""
+
+    def optgroups(self, name, value, attr=None):
+        return super().optgroups(name, _readable_ids(self.field, value), attr)
+
+
+class CheckedAutocompleteSelectMultiple(AutocompleteSelectMultiple):
+    def optgroups(self, name, value, attr=None):
+        return super().optgroups(name, _readable_ids(self.field, value), attr)
+
+
+class CheckedAutocompleteMixin:
+    """Every admin screen's autocomplete boxes (`autocomplete_fields`) are the checked ones; used by every admin
+    class and inline here (`tests/test_admin.py` walks them all)."""
+
+    def formfield_for_foreignkey(self, db_field, request, **kwargs):
+        if "widget" not in kwargs and db_field.name in self.get_autocomplete_fields(request):
+            kwargs["widget"] = CheckedAutocompleteSelect(db_field, self.admin_site, using=kwargs.get("using"))
+        return super().formfield_for_foreignkey(db_field, request, **kwargs)
+
+    def formfield_for_manytomany(self, db_field, request, **kwargs):
+        if "widget" not in kwargs and db_field.name in self.get_autocomplete_fields(request):
+            kwargs["widget"] = CheckedAutocompleteSelectMultiple(db_field, self.admin_site, using=kwargs.get("using"))
+        return super().formfield_for_manytomany(db_field, request, **kwargs)
+
+
+class CheckedLookupsAdmin(CheckedAutocompleteMixin, admin.ModelAdmin):
     """A list's query string may name any date's year (`?due_on__year=2026`, as the date drill-down does): a year
     outside the rulebook's accepted span is refused (400), not a 500 from the first day of year 99999."""
 
@@ -95,7 +142,7 @@ class SiteAdmin(RulebookNumbersAdmin):
     search_fields = ["code", "name"]
 
 
-class FittedCapacitorInline(admin.TabularInline):
+class FittedCapacitorInline(CheckedAutocompleteMixin, admin.TabularInline):
     """The motor's capacitors, one row each, within a 1366 px screen (six boxes overflowed it by 150 px): the
     serial box sized to a date code, the removal shown as text and recorded on the capacitor's own page
     ("Change" on its row), where its day and reason are edited together."""
@@ -358,7 +405,7 @@ class NoEscalationAdminMixin:
         return type(form.__name__, (NoEscalationForm, form), {"editor": request.user})
 
 
-class SiteMembershipInline(admin.TabularInline):
+class SiteMembershipInline(CheckedAutocompleteMixin, admin.TabularInline):
     model = SiteMembership
     extra = 0
     autocomplete_fields = ["site"]
@@ -372,7 +419,7 @@ admin.site.unregister(TokenProxy)
 
 
 @admin.register(User)
-class FleetUserAdmin(NoEscalationAdminMixin, UserAdmin):
+class FleetUserAdmin(CheckedAutocompleteMixin, NoEscalationAdminMixin, UserAdmin):
     """Users with their roles (groups) and the sites they work at."""
 
     inlines = [SiteMembershipInline]
@@ -394,12 +441,12 @@ class FleetUserAdmin(NoEscalationAdminMixin, UserAdmin):
 
 
 @admin.register(Group)
-class FleetGroupAdmin(NoEscalationAdminMixin, GroupAdmin):
+class FleetGroupAdmin(CheckedAutocompleteMixin, NoEscalationAdminMixin, GroupAdmin):
     """Roles: a group's permissions are granted only by someone who holds them."""
 
 
 @admin.register(TokenProxy)
-class FleetTokenAdmin(TokenAdmin):
+class FleetTokenAdmin(CheckedAutocompleteMixin, TokenAdmin):
     """API tokens: a token acts as its user, so only superusers make one for a superuser."""
 
     def formfield_for_foreignkey(self, db_field, request, **kwargs):

@@ -7,7 +7,9 @@ reading, through the same service and checks as the form, stored with source "ap
 
 from __future__ import annotations
 
+from base64 import b64encode
 from collections.abc import Mapping
+from urllib import parse
 
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
@@ -408,13 +410,29 @@ class ReadingPages(CheckedPageSize, CursorPagination):
     max_page_size = 5000
 
     def decode_cursor(self, request):
-        """The position a `cursor` holds, or a 400 naming `cursor` when it is not one this list gave."""
+        """The position a `cursor` holds, or a 400 naming `cursor` when it is not one this list gave: the
+        cursor must be written exactly as `encode_cursor` writes one (rest_framework's decoding drops what is
+        not base64, so `%` or `[]` read as the first page), at a position an id can hold. An empty one is one
+        left out (`filters.query_value`): the first page."""
+        refused = serializers.ValidationError(
+            {self.cursor_query_param: ["Not a cursor from this list: follow its next and previous links."]}
+        )
+        given = request.query_params.get(self.cursor_query_param)
+        if given is None or given == "":
+            return None
         try:
-            return super().decode_cursor(request)
+            cursor = super().decode_cursor(request)
         except NotFound:
-            raise serializers.ValidationError(
-                {self.cursor_query_param: ["Not a cursor from this list: follow its next and previous links."]}
-            ) from None
+            raise refused from None
+        position = cursor.position
+        if position is not None and not (position.isascii() and position.isdigit() and storable_ids([position])):
+            raise refused
+        tokens = {"o": str(cursor.offset)} if cursor.offset else {}
+        tokens |= {"r": "1"} if cursor.reverse else {}
+        tokens |= {"p": position} if position is not None else {}
+        if given != b64encode(parse.urlencode(tokens).encode("ascii")).decode("ascii"):
+            raise refused
+        return cursor
 
 
 class ReadingList(KnownParametersOnly, generics.ListAPIView):

@@ -44,6 +44,20 @@ def safe_cell(value) -> str:
     return text
 
 
+def unguarded_cell(value):
+    """`safe_cell`'s inverse, for a CSV read back (an export imported again, the rows to fix sent again): a leading
+    quote followed by what `safe_cell` guards (= + - @ ' tab, carriage return) is taken off, once; any other text
+    is left as it is, so a round trip through `safe_cell` gives back what was written. `value` is one cell's text
+    or a pyarrow string array (a whole CSV column at once)."""
+    if isinstance(value, str):
+        return value[1:] if value.startswith("'") and value[1:].startswith(FORMULA_STARTS) else value
+    import pyarrow.compute as pc
+
+    starts = "".join(f"\\x{{{ord(c):02x}}}" for c in FORMULA_STARTS)  # RE2 hex escapes: tab and CR as well
+    guarded = pc.match_substring_regex(value, "^'[" + starts + "]")
+    return pc.if_else(guarded, pc.utf8_slice_codeunits(value, 1), value)
+
+
 class _Echo:
     """A file-like object whose write returns the line, for streaming csv.writer output."""
 

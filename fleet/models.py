@@ -31,6 +31,8 @@ from fleet.engineering.planning import (
     RISK_SOUND,
     RISK_WATCH,
     TOLERANCE_LIMIT,
+    PlanningSettings,
+    day_off_problems,
     work_order_problems,
 )
 from fleet.engineering.rules import (
@@ -629,6 +631,18 @@ class SiteDayOff(models.Model):
     def __str__(self):
         return f"{self.site.code} {self.day.isoformat()} {self.name}"
 
+    def clean(self):
+        """A day off added or moved to another day keeps to the days-off page's and the import's rule
+        (`planning.day_off_problems`: from today to the plan's reach, a working day); one kept as it was stays."""
+        super().clean()
+        if self.day is None:
+            return
+        before = SiteDayOff.objects.filter(pk=self.pk).values_list("day", flat=True).first() if self.pk else None
+        if self.day != before:
+            problem = day_off_problems([self.day], timezone.localdate(), PlanningSettings().working_days)[0]
+            if problem:
+                raise ValidationError({"day": f"{self.day:%A} {self.day.isoformat()}: {problem}."})
+
 
 class Reading(models.Model):
     """One measurement, append-only. A correction is a new reading that supersedes."""
@@ -1150,7 +1164,9 @@ class WorkOrder(models.Model):
         """A due date past the plan's reach or a visit window no plan makes is refused at its field."""
         super().clean()
         if self.due_on is not None and self.window_days is not None:
-            errors = first_problem_by_field(work_order_problems(self.due_on, self.window_days, timezone.localdate()))
+            errors = first_problem_by_field(
+                work_order_problems(self.due_on, self.window_days, timezone.localdate(), self.moved_from)
+            )
             if errors:
                 raise ValidationError(errors)
 

@@ -617,6 +617,23 @@ def test_readings_from_the_form_and_the_api_exported_and_imported_again_add_noth
     assert Reading.objects.count() == 5
 
 
+def test_readings_whose_notes_a_spreadsheet_would_run_exported_and_imported_again_add_nothing(
+    tmp_path, client, engineer
+):
+    """[pub] OWASP's CSV-injection advice: the CSV export writes notes `-2 °C frost; =check` as `'-2 °C frost;
+    =check`; imported again, the notes differed from the stored ones and every such row was refused. The import
+    takes the guard off, so the export imported again adds nothing."""
+    from fleet.services.readings import record_reading
+
+    migrate_all(tmp_path)
+    fan = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    for value, notes in (("7.71", "-2 °C frost; =check"), ("7.72", "=1+1"), ("7.73", "+ wet"), ("7.74", "'@ x")):
+        record_reading(fitted_capacitor=fan, values={"method": "meter", "capacitance_uf": value, "notes": notes})
+    client.force_login(engineer)
+    export_imported_again_adds_nothing(tmp_path, client, 6)
+    assert Reading.objects.count() == 6
+
+
 def test_a_design_capacitor_rated_below_the_motors_supply_is_refused_by_row_and_field(tmp_path):
     """A capacitor sees at least the supply voltage (a start capacitor over it during a start): a 125 V start
     capacitor on a 230 V motor imported without a word (common practice of the trade, no single source)."""

@@ -3,6 +3,7 @@
 import csv
 import datetime as dt
 import io
+from unittest import mock
 
 import pytest
 from django.urls import reverse
@@ -10,6 +11,7 @@ from django.utils import timezone
 from openpyxl import Workbook
 
 from fleet.exports import safe_cell
+from fleet.imports import files
 from fleet.imports.files import FileRefused, read_table
 from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
 from fleet.services.import_jobs import check_file, check_job, create_job, import_file, rejected_rows_csv, run_job
@@ -802,3 +804,64 @@ def test_an_upload_without_a_file_or_with_an_empty_one_says_what_to_choose(clien
     empty.name = "empty.csv"
     page = client.post(reverse("imports"), {"kind": "readings", "file": empty}).content.decode()
     assert "This file is empty" in page and not ImportJob.objects.exists()
+
+
+GUARDED_NOTES = ["-2 °C frost; =check", "=1+1", "+ wet", "@ night", "'quoted", "'-2", "\tindented", "-2+3"]
+
+
+@pytest.mark.parametrize("exact_reader", [False, True])
+def test_the_exports_guard_against_formulas_comes_off_a_csv_read_back(exact_reader):
+    """[pub] OWASP's CSV-injection advice: the export writes a leading ' before text a spreadsheet would run
+    (`safe_cell`); the import read `'-2 °C frost; =check` as the notes, so an export imported again differed from
+    what it came from. Both CSV readers (the fast one and the exact one) take exactly that guard off, once."""
+    rows = [["FAN-1", "run", "2021-06-01 09:00", "meter", "3.9", "", "", "", safe_cell(n)] for n in GUARDED_NOTES]
+    rows.append(["FAN-1", "run", "2021-06-01 09:00", "meter", "3.9", "", "", "", "'5 min, not guarded"])
+    fast_reader = None if exact_reader else files._read_csv_columns
+    with mock.patch("fleet.imports.files._read_csv_columns", side_effect=fast_reader, return_value=None):
+        header, body = read_table(csv_of(rows), "readings.csv")
+    assert header == HEADER
+    assert [body[i][-1] for i in range(len(body))] == [*GUARDED_NOTES, "'5 min, not guarded"]
+
+
+def test_the_rows_to_fix_sent_back_keep_notes_a_spreadsheet_would_run():
+    """The rows to fix guard their cells as the exports do; sent back fixed, notes `-2+3` came in as `'-2+3`
+    ([derived]: the guard and its inverse, `safe_cell` and `unguarded_cell`)."""
+    (motor,) = fleet_of(1)
+    rows = [[motor.asset_tag, "run", "2021-06-01 09:00", "meter", "3950", "", "", "31", "-2+3"]]  # a unit slip
+    done = run_job(
+        create_job(kind="readings", filename="q.csv", content=csv_of(rows), user=None).id, ImportJob.Mode.GOOD_ROWS
+    )
+    assert done.imported_rows == 0 and done.error_rows == 1
+    fix_file = list(csv.reader(io.StringIO(rejected_rows_csv(done).decode("utf-8-sig"))))
+    assert fix_file[1][HEADER.index("notes")] == "'-2+3"  # guarded in the file
+    fix_file[1][HEADER.index("capacitance_uf")] = "3.95"
+    content = csv_of([row[:-1] for row in fix_file[1:]], header=fix_file[0][:-1])
+    again = run_job(
+        create_job(kind="readings", filename="fixed.csv", content=content, user=None).id, ImportJob.Mode.ALL_OR_NOTHING
+    )
+    assert (again.state, again.imported_rows) == (ImportJob.State.DONE, 1), again.errors
+    assert list(Reading.objects.values_list("notes", flat=True)) == ["-2+3"]
+
+
+def test_a_workbook_formula_with_no_saved_value_is_named_at_its_cell_and_kept_in_the_rows_to_fix():
+    """A workbook written by a program that does not compute formulas holds `=1+1` with no value: the import read
+    an empty cell ("enter the capacitance in µF"), and the rows to fix lost the notes `=1+1`. The cell is named as a
+    formula with no saved value, and the rows to fix keep the formula's text, guarded as the exports do
+    ([pub] ECMA-376 Part 1, 18.3.1.40: a cell's formula `f` and its last computed value `v` apart)."""
+    (motor,) = fleet_of(1)
+    book = Workbook()
+    book.active.append(HEADER)
+    book.active.append([motor.asset_tag, "run", "2021-06-01 09:00", "meter", "=1+1", "", "", "31", "=1+1"])
+    book.active.append([motor.asset_tag, "run", "2021-09-01 09:00", "meter", 3.9, "", "", "31", "-2+3"])
+    saved = io.BytesIO()
+    book.save(saved)
+    done = run_job(
+        create_job(kind="readings", filename="q.xlsx", content=saved.getvalue(), user=None).id, ImportJob.Mode.GOOD_ROWS
+    )
+    assert done.imported_rows == 1 and list(Reading.objects.values_list("notes", flat=True)) == ["-2+3"]
+    problems = {field: message for row, field, message in done.errors if row == 2}
+    assert set(problems) == {"capacitance_uf", "notes"}, done.errors
+    assert all("formula with no saved value (=1+1)" in m and "save the workbook" in m for m in problems.values())
+    fix_file = list(csv.reader(io.StringIO(rejected_rows_csv(done).decode("utf-8-sig"))))
+    assert fix_file[1][HEADER.index("capacitance_uf")] == fix_file[1][HEADER.index("notes")] == "'=1+1"
+    assert "enter the capacitance" not in fix_file[1][-1]

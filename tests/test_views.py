@@ -6,9 +6,10 @@ import io
 import re
 
 import pytest
+from django.core.exceptions import ValidationError
 from django.urls import reverse
 from django.utils import timezone
-from django.utils.html import strip_tags
+from django.utils.html import escape, strip_tags
 
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, Motor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
@@ -454,6 +455,24 @@ def test_a_motor_with_a_capacitor_to_replace_now_says_so_on_the_route(signed_in,
     assert "replace now" not in rows[calm.motor.asset_tag]
 
 
+def test_a_long_refused_place_or_quantity_is_quoted_by_its_first_characters(signed_in, planner):
+    """A 100,000-character place came back in the message whole (and in the box as typed): the message quotes
+    the start of it, as the imports quote a value (`columns.shown`); the box keeps what was typed. [derived]"""
+    from fleet.services.register import set_site_stock
+    from tests.factories import make_motor, make_part, make_site
+
+    site = make_site()
+    motor, part = make_motor(site=site, route_order=1), make_part()
+    typed = "9" * 99_999 + "x"
+    page = signed_in(planner).post(reverse("route", args=[site.code]), {f"order-{motor.id}": typed}).content.decode()
+    assert "is not a whole number from 0 to" in page and "9" * 39 + "…" in page
+    assert page.count(typed) == 1  # the box, as typed; not the message
+    with pytest.raises(ValidationError) as stock:
+        set_site_stock(site=site, quantities={part.id: typed})
+    message = stock.value.message_dict[part.code][0]
+    assert message.startswith("'" + "9" * 39 + "…'") and len(message) < 120, message[:200]
+
+
 def test_planner_sets_the_walking_order_and_a_bad_entry_saves_nothing(signed_in, planner, technician):
     from tests.factories import make_motor, make_site
 
@@ -699,7 +718,7 @@ def test_plan_spares_follow_the_chosen_site_and_unknown_formats_are_not_found(si
 def test_only_planners_issue_visits_and_bad_input_is_a_message(signed_in, planner, technician):
     client = signed_in(planner)
     response = client.post(reverse("work_orders"), {"action": "plan", "days": "lots"}, follow=True)
-    assert response.status_code == 200 and "No work orders planned: days" in response.content.decode()
+    assert response.status_code == 400 and "No work orders planned: days" in response.content.decode()
     response = client.post(reverse("work_orders"), {"action": "issue", "site": "x", "day": "soon"}, follow=True)
     assert "could not be found" in response.content.decode()
     site = make_fitted_capacitor().motor.site
@@ -754,6 +773,19 @@ def test_work_orders_refuse_a_horizon_they_cannot_read_and_plan_nothing(client, 
         page = response.content.decode()
         assert "No work orders planned: days: type a whole number of days from 7 to 730, e.g. 90." in page, days
         assert ".." not in page.replace("...", ""), days  # one full stop, not Django's "Enter a number.."
+    assert not WorkOrder.objects.exists()
+
+
+@pytest.mark.parametrize("days", ["45x", "<b>7</b>", "0"])
+def test_work_orders_keep_a_refused_horizon_in_its_box_beside_the_message(client, planner, days):
+    """A refused `days=45x` came back by a redirect naming the problem, the box showing 90 again: what was typed
+    was lost. The page comes back (400) with the box holding it as typed (escaped) and the message."""
+    client.force_login(planner)
+    response = client.post("/work-orders/", {"action": "plan", "days": days})
+    page = response.content.decode()
+    assert response.status_code == 400 and "No work orders planned: days" in page
+    assert f'name="days" value="{escape(days)}"' in page
+    assert 'name="days" value="90"' in client.get("/work-orders/").content.decode()
     assert not WorkOrder.objects.exists()
 
 

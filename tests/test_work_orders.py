@@ -659,6 +659,30 @@ def test_a_sites_days_off_keep_the_plan_and_the_moves_off_them(client, planner, 
     assert AuditEntry.objects.filter(model="fleet.sitedayoff").exists()
 
 
+@pytest.mark.parametrize("sent", ["abc", "", "-1", "\u0665", "99999999999999999999", "another site's"])
+def test_removing_what_is_not_a_day_off_of_the_site_says_so(client, planner, sent):
+    """`remove=abc` said "That day off was removed already", which it never was. A value that is no day off of
+    the site, or a day off of another site, is named as not one of the site's, and nothing is removed; a day off
+    removed, sent again, is still "removed already" (by the audit trail). [derived: the app's own messages]"""
+    from fleet.models import SiteDayOff
+
+    site, other = make_site(code="GH2"), make_site(code="CS2")
+    day = timezone.localdate() + dt.timedelta(days=10)
+    elsewhere = SiteDayOff.objects.create(site=other, day=day, name="shutdown")
+    mine = SiteDayOff.objects.create(site=site, day=day, name="stocktake")
+    client.force_login(planner)
+    url = reverse("site_days_off", args=["GH2"])
+
+    def said(value) -> str:
+        return " ".join(str(m) for m in client.post(url, {"remove": value}, follow=True).context["messages"])
+
+    words = said(elsewhere.id if sent == "another site's" else sent)
+    assert "Not a day off of GH2: nothing changed" in words and "removed already" not in words, words
+    assert SiteDayOff.objects.count() == 2
+    assert "is no longer a day off at GH2" in said(mine.id)
+    assert "That day off was removed already" in said(mine.id)
+
+
 def test_a_move_made_off_a_day_off_stays_when_the_day_off_goes(planner):
     """A walk: a day off added on a visit's day (Wed), the planner moved the visit to Tuesday; the next plan (which
     avoided Wednesday itself) forgot the move, and once the day off was removed the plan put the visit back on

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .drift import EstimateResolution
+from .rules import ACCEPTED_DAYS_WORDS, FIRST_ACCEPTED_DAY
 
 RISK_REPLACE_NOW = "replace now"
 RISK_DUE_SOON = "due soon"
@@ -31,14 +32,22 @@ PLAN_HORIZON_DAYS = (7, 730)
 WORK_ORDER_MAX_WINDOW_DAYS = 90
 
 
-def work_order_problems(due_on, window_days, today) -> list[tuple[np.ndarray, str, str]]:
-    """(rows, field, message) for work orders no plan makes: due past the plan's reach, or a visit window
-    of no days or more than a quarter. One rule for the register's form (the planner keeps to it by design)."""
+def work_order_problems(due_on, window_days, today, moved_from=None) -> list[tuple[np.ndarray, str, str]]:
+    """(rows, field, message) for work orders no plan makes: due (or moved from a plan's day, `moved_from`; None or
+    NaT: not moved) past the plan's reach or before the days any date may name (`rules.FIRST_ACCEPTED_DAY`), or a
+    visit window of no days or more than a quarter. One rule for the register's form (the planner keeps to it by
+    design)."""
     due = np.atleast_1d(np.asarray(due_on, "datetime64[D]"))
+    moved = np.atleast_1d(np.asarray(np.datetime64("NaT") if moved_from is None else moved_from, "datetime64[D]"))
     window = np.atleast_1d(np.asarray(window_days, float))
     furthest = np.datetime64(today, "D") + np.timedelta64(PLAN_HORIZON_DAYS[1], "D")
+    too_early = f"before {FIRST_ACCEPTED_DAY}: dates are accepted {ACCEPTED_DAYS_WORDS}, check the year"
+    past_reach = f"more than {PLAN_HORIZON_DAYS[1]} days ahead, past the plan's reach"
     return [
-        (due > furthest, "due_on", f"more than {PLAN_HORIZON_DAYS[1]} days ahead, past the plan's reach"),
+        (due < FIRST_ACCEPTED_DAY, "due_on", too_early),
+        (due > furthest, "due_on", past_reach),
+        (moved < FIRST_ACCEPTED_DAY, "moved_from", too_early),
+        (moved > furthest, "moved_from", past_reach),
         (
             ~((window >= 1) & (window <= WORK_ORDER_MAX_WINDOW_DAYS)),
             "window_days",

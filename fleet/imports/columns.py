@@ -156,6 +156,16 @@ def mapped_frame(
     return pd.DataFrame(out)
 
 
+def shown(value, most: int = 40) -> str:
+    """A stored or given value in a message: a number as %g, an empty one as "nothing", long text cut."""
+    if value is None:
+        return "nothing"
+    if isinstance(value, float):
+        return f"{value:g}" if np.isfinite(value) else "nothing"
+    text = str(value) or "nothing"
+    return text if len(text) <= most else text[: most - 1] + "…"
+
+
 class _Problems:
     """Collects (row, field, message) from boolean masks over a chunk.
 
@@ -208,9 +218,40 @@ def yes_or_no(texts: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return yes, ~(yes | words.isin(NO_WORDS).to_numpy(bool))
 
 
-def text_problems(frame: pd.DataFrame, max_lengths: dict[str, int]) -> _Problems:
-    """Cells the database cannot hold: a NUL character in any field, text longer than its column."""
+UNSAVED_FORMULA_WORDS = (
+    "holds a formula with no saved value ({}): save the workbook in a spreadsheet program, which stores each "
+    "formula's value, or type the value instead of the formula"
+)
+
+
+def unsaved_formulas(header: list[str], rows, mapping: dict[str, str], ours: dict[str, str]) -> dict[str, np.ndarray]:
+    """Our field -> the rows whose cell holds a workbook formula with no saved value (`files.NumberedRows`), for
+    the fields that have any."""
+    cells = getattr(rows, "unsaved_formulas", ())
+    if not cells:
+        return {}
+    position = {}
+    for number, heading in enumerate(header):
+        position.setdefault(heading, number)
+    found = {}
+    for name in ours:
+        column = position.get(mapping.get(name))
+        marked = [row for row, j in cells if j == column]
+        if column is not None and marked:
+            found[name] = np.zeros(len(rows), bool)
+            found[name][marked] = True
+    return found
+
+
+def text_problems(
+    frame: pd.DataFrame, max_lengths: dict[str, int], formulas: dict[str, np.ndarray] | None = None
+) -> _Problems:
+    """Cells the database cannot hold: a workbook formula with no saved value (`unsaved_formulas`: its text is not
+    its value), a NUL character in any field, text longer than its column."""
     problems = _Problems(frame)
+    for name, mask in (formulas or {}).items():
+        messages = np.array([UNSAVED_FORMULA_WORDS.format(shown(text)) for text in frame[name]], dtype=object)
+        problems.add(mask, name, messages, of_cell=True)
     for name in frame.columns.drop("row"):
         problems.add(
             frame[name].str.contains("\x00", regex=False),

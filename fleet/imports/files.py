@@ -7,6 +7,7 @@ import csv
 import datetime as dt
 import functools
 import io
+import itertools
 import re
 import zipfile
 from collections.abc import Sequence
@@ -18,6 +19,8 @@ import pyarrow as pa
 import pyarrow.compute as pc
 from django.conf import settings
 from pyarrow import csv as arrow_csv
+
+from fleet.exports import unguarded_cell
 
 
 class TextColumns(Sequence):
@@ -46,11 +49,13 @@ class TextColumns(Sequence):
 
 class NumberedRows(list):
     """A file's data rows as lists of text (the exact CSV reader's and the workbook's), with each row's
-    number in the file (`row_numbers`)."""
+    number in the file (`row_numbers`) and a workbook's cells that hold a formula with no saved value
+    (`unsaved_formulas`: (row index, column index); the cell's text is the formula's)."""
 
-    def __init__(self, rows: list[list[str]], numbers):
+    def __init__(self, rows: list[list[str]], numbers, unsaved_formulas=frozenset()):
         super().__init__(rows)
         self.numbers = np.asarray(numbers, np.int64)
+        self.unsaved_formulas = frozenset(unsaved_formulas)
 
 
 def row_numbers(rows) -> np.ndarray:
@@ -158,7 +163,14 @@ def _read_csv(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows |
     end_of_header = text.find("\n")
     delimiter = csv_delimiter(text[: end_of_header if end_of_header >= 0 else len(text)])
     fast = _read_csv_columns(content, text, delimiter, limits)
-    return fast if fast is not None else _read_csv_rows(text, delimiter, limits)
+    if fast is not None:
+        header, body = fast
+        body = TextColumns([unguarded_cell(column) for column in body.columns], body.numbers)
+    else:
+        header, body = _read_csv_rows(text, delimiter, limits)
+        body = NumberedRows([[unguarded_cell(cell) for cell in row] for row in body], body.numbers)
+    # The exports' guard against formulas (a leading quote) comes off, so an export imported again is what it wrote.
+    return [unguarded_cell(heading) for heading in header], body
 
 
 # Cells that may be blank to Python's str.strip (a superset of its whitespace, for pyarrow's regular expressions).
@@ -316,6 +328,21 @@ def _check_workbook_size(content: bytes, limits: Limits) -> None:
 
 
 _ROW_TAG = re.compile(rb"<(?:\w+:)?row[\s/>]")
+_FORMULA_TAG = re.compile(rb"<(?:\w+:)?f[\s/>]")
+
+
+def _has_formulas(archive: zipfile.ZipFile, sheet: str | None) -> bool:
+    """Whether the sheet's XML holds a formula (`<f>`), read as a stream; True when the sheet is not found."""
+    if sheet is None:
+        return True
+    carried = b""
+    with archive.open(sheet) as stream:
+        while chunk := stream.read(1024 * 1024):
+            text = carried + chunk
+            if _FORMULA_TAG.search(text):
+                return True
+            carried = text[-16:]
+    return False
 
 
 def _count_row_tags(archive: zipfile.ZipFile, sheet: str, stop_after: int) -> int:
@@ -380,12 +407,30 @@ def date_text(value: dt.date, number_format: str) -> str:
     return text + ("+00:00" if _UTC_FORMAT.search(number_format) else "")
 
 
+def _unsaved_formula(cell, formula_cell) -> str:
+    """The formula's text ("=1+1") of a cell that holds a formula but no saved value (a workbook written by a
+    program that does not compute formulas), else ""."""
+    if getattr(cell, "value", None) is not None or getattr(formula_cell, "data_type", None) != "f":
+        return ""
+    formula = getattr(formula_cell, "value", None)
+    formula = getattr(formula, "text", formula)  # an array formula
+    return formula if isinstance(formula, str) and formula else ""
+
+
 def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]:
     _check_workbook_size(content, limits)
     from openpyxl import load_workbook
 
     try:
         sheet = load_workbook(io.BytesIO(content), read_only=True, data_only=True).worksheets[0]
+        # Formulas are read a second time, as formulas, only from a sheet that holds some: a formula whose value
+        # was never saved reads as an empty cell, which must not pass for one left blank.
+        archive = zipfile.ZipFile(io.BytesIO(content))
+        formulas = (
+            load_workbook(io.BytesIO(content), read_only=True, data_only=False).worksheets[0]
+            if _has_formulas(archive, _first_sheet_path(archive))
+            else None
+        )
     except Exception as error:  # noqa: BLE001 - any unreadable workbook is refused the same way
         raise FileRefused(f"The workbook cannot be read: {error}") from error
 
@@ -400,10 +445,20 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]
     header: list[str] = []
     body: list[list[str]] = []
     numbers: list[int] = []
+    unsaved: set[tuple[int, int]] = set()
     width = 0
+    rows = sheet.iter_rows(max_col=limits.columns + 1)
+    formula_rows = formulas.iter_rows(max_col=limits.columns + 1) if formulas is not None else itertools.repeat(None)
     # Read-only sheets yield every row from the first, missing ones as empty: the count is the sheet's row.
-    for number, cells in enumerate(sheet.iter_rows(max_col=limits.columns + 1), start=1):
+    for number, (cells, formula_cells) in enumerate(zip(rows, formula_rows, strict=False), start=1):
         row = [text(c) for c in cells]
+        for j, (cell, formula_cell) in enumerate(
+            zip(cells, formula_cells, strict=False) if formula_cells is not None else ()
+        ):
+            if formula := _unsaved_formula(cell, formula_cell):
+                row[j] = formula
+                if header and j < width:
+                    unsaved.add((len(body), j))
         if not any(cell.strip() for cell in row):
             continue
         if not header:
@@ -418,4 +473,4 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]
             raise limits.too_many_rows(len(body))
     if not header:
         raise FileRefused("The first sheet is empty.")
-    return header, NumberedRows(body, numbers)
+    return header, NumberedRows(body, numbers, unsaved)

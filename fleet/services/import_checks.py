@@ -57,6 +57,7 @@ from fleet.imports.columns import (
     parse_times,
     reading_keys,
     repeated_in_file,
+    shown,
     yes_or_no,
 )
 from fleet.models import (
@@ -594,22 +595,12 @@ def _edited_fields(good: pd.DataFrame, stored_fields: pd.DataFrame, stored: np.n
                 (
                     int(good["row"].iloc[i]),
                     name,
-                    f"this reading is stored already with {name} {_shown(theirs[i])}, the file says "
-                    f"{_shown(mine[i])}: an import never changes a stored reading; to put it right, correct that "
+                    f"this reading is stored already with {name} {shown(theirs[i])}, the file says "
+                    f"{shown(mine[i])}: an import never changes a stored reading; to put it right, correct that "
                     "reading from the capacitor's page (both are kept, the trend uses the correction)",
                 )
             )
     return found
-
-
-def _shown(value, most: int = 40) -> str:
-    """A stored or given value in a message: a number as %g, an empty one as "nothing", long text cut."""
-    if value is None:
-        return "nothing"
-    if isinstance(value, float):
-        return f"{value:g}" if np.isfinite(value) else "nothing"
-    text = str(value) or "nothing"
-    return text if len(text) <= most else text[: most - 1] + "…"
 
 
 def _among(texts, known) -> np.ndarray:
@@ -700,7 +691,7 @@ def refuse_changed(problems: _Problems, already: np.ndarray, given: pd.DataFrame
         messages = np.full(len(given), "", dtype=object)
         for i in np.flatnonzero(differs):
             messages[i] = (
-                f"this {what} is stored already with {name} {_shown(theirs[i])}, the file says {_shown(mine[i])}: an "
+                f"this {what} is stored already with {name} {shown(theirs[i])}, the file says {shown(mine[i])}: an "
                 f"import never changes a stored {what}; change it in the admin, or make the file agree"
             )
         problems.add(differs, name, messages)

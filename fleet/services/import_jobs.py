@@ -240,7 +240,8 @@ def check_file(
     if on_progress:
         on_progress(0, len(rows))
     frame = columns.mapped_frame(header, rows, mapping, spec.columns)
-    unstorable = columns.text_problems(frame, spec.max_lengths)
+    formulas = columns.unsaved_formulas(header, rows, mapping, spec.columns)
+    unstorable = columns.text_problems(frame, spec.max_lengths, formulas)
     storable = frame[~unstorable.bad].reset_index(drop=True)
     elsewhere = import_checks.outside_sites(storable, user, spec.site_column)
     result = spec.check(

@@ -11,6 +11,7 @@ from django.db.models.functions import RowNumber
 
 from fleet.audit import audited_bulk_create, audited_bulk_update
 from fleet.engineering.rules import ROUTE_ORDER_MAX, whole_number
+from fleet.imports.columns import shown as quoted_start
 from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
 from .bulk import storable_ids
@@ -78,7 +79,7 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> RouteOrderSaved
                 f"is empty: type its place on the round, a whole number from 0 to {ROUTE_ORDER_MAX}."
             )
         elif not 0 <= value <= ROUTE_ORDER_MAX:
-            errors[motor.asset_tag] = f"{text!r} is not a whole number from 0 to {ROUTE_ORDER_MAX}."
+            errors[motor.asset_tag] = f"{quoted_start(text)!r} is not a whole number from 0 to {ROUTE_ORDER_MAX}."
         else:
             motor.route_order = value
     if errors:
@@ -145,7 +146,7 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
         if not str(text).strip():
             errors[part.code] = "is empty: type 0 if none are held (an emptied box is not taken as 0)."
         elif not 0 <= value <= SiteStock.MAX_QUANTITY:
-            errors[part.code] = f"{text!r} is not a whole number from 0 to {SiteStock.MAX_QUANTITY}."
+            errors[part.code] = f"{quoted_start(text)!r} is not a whole number from 0 to {SiteStock.MAX_QUANTITY}."
         values[part_id] = value
     if errors:
         raise ValidationError(errors)

@@ -1007,11 +1007,25 @@ def open_visits_on(site_days, user=None) -> list[dict]:
 
 
 def remove_day_off(*, site_id: int, day_off_id: int) -> SiteDayOff | None:
-    """Remove one day off of a site (None where it is gone already: sent twice)."""
+    """Remove one day off of a site (None where it is not one of the site's: `removed_before` says whether it was)."""
     day_off = SiteDayOff.objects.filter(site_id=site_id, pk__in=storable_ids([day_off_id])).first()
     if day_off is not None:
         day_off.delete()
     return day_off
+
+
+def removed_before(*, site_code: str, day_off_id: int) -> bool:
+    """Whether `day_off_id` was a day off of the site `site_code` that is removed (a removal sent twice), by the
+    audit trail: its deletion, the entry naming the site's code first (`SiteDayOff.__str__`)."""
+    return (
+        bool(storable_ids([day_off_id]))
+        and AuditEntry.objects.filter(
+            model="fleet.sitedayoff",
+            object_id=str(day_off_id),
+            action=AuditEntry.Action.DELETE,
+            object_repr__startswith=f"{site_code} ",
+        ).exists()
+    )
 
 
 def open_read_again_order(fitted_capacitor_id: int) -> WorkOrder | None:

@@ -55,6 +55,7 @@ from fleet.services.workorders import (
     plan_work_orders,
     recently_cancelled,
     remove_day_off,
+    removed_before,
     replace_now_without_order,
     site_days_off,
     tightest_replace_by,
@@ -117,9 +118,9 @@ def work_orders(request):
         action = request.POST.get("action")
         if action == "plan":
             _, horizon, problems = plan_parameters(request.POST.dict() | {"site": ""}, request=request)
-            if problems:
+            if problems:  # the page again, the box holding what was typed beside the message
                 messages.error(request, f"No work orders planned: {problems_text(problems)}.")
-                return redirect("work_orders")
+                return _work_orders_page(request, plan_days=request.POST.get("days", ""), status=400)
             messages.success(request, plan_message(plan_work_orders(horizon_days=horizon, user=request.user)))
         elif action == "issue":
             try:
@@ -141,6 +142,11 @@ def work_orders(request):
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
         return redirect("work_orders")
+    return _work_orders_page(request)
+
+
+def _work_orders_page(request, plan_days: str = "90", status: int = 200):
+    """The work-orders page; `plan_days`, what the plan's box shows (a refused value as it was typed)."""
     page = list_page(request, lambda number: open_visits_page(number, user=request.user))
     return render(
         request,
@@ -152,7 +158,9 @@ def work_orders(request):
             "cancelled": recently_cancelled(request.user) if request.user.has_perm("fleet.add_workorder") else [],
             "cancelled_days": CANCELLED_SHOWN_DAYS,
             "replace_now_unordered": replace_now_without_order(request.user),
+            "plan_days": plan_days,
         },
+        status=status,
     )
 
 
@@ -290,13 +298,15 @@ def site_days_off_page(request, site):
         if "remove" in request.POST:
             if not request.user.has_perm("fleet.delete_sitedayoff"):
                 raise refused(request.user, "fleet.delete_sitedayoff")
-            try:
-                day_off_id = int(request.POST["remove"])
-            except ValueError:
-                day_off_id = 0
+            sent = request.POST["remove"].strip()
+            day_off_id = int(sent) if sent.isascii() and sent.isdigit() else 0
             removed = remove_day_off(site_id=site.id, day_off_id=day_off_id)
-            if removed is None:
+            if removed is None and removed_before(site_code=site.code, day_off_id=day_off_id):
                 messages.info(request, "That day off was removed already: nothing changed.")
+            elif removed is None:
+                messages.error(
+                    request, f"Not a day off of {site.code}: nothing changed. Reload the page and look again."
+                )
             else:
                 messages.success(
                     request,

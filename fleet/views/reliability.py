@@ -13,6 +13,7 @@ from django.views.decorators.http import require_POST
 from fleet.charts import cost_curve_figure, weibull_plot_figure
 from fleet.exports import parquet_file, stream_csv, xlsx_file
 from fleet.filters import BadFilter, LifeDataPage, page_parameters, refused_download, takes_parameters
+from fleet.imports.columns import shown
 from fleet.models import Backtest, CapacitorPart, RefitRun
 from fleet.roles import needs_permission, refused
 from fleet.services.exports import TABLES
@@ -132,7 +133,7 @@ def life_data(request):
             messages.warning(request, f"Ignored {name}: {refused[name]}; {default:g} was used.")
         elif name in refused:
             label, text = name.replace("_", " "), request.GET[name]
-            messages.warning(request, f"The {label} {refused[name]}; {text!r} was not used, {default:g} was.")
+            messages.warning(request, f"The {label} {refused[name]}; {shown(text)!r} was not used, {default:g} was.")
     planned_cost, failure_cost = costs["planned_cost"], costs["failure_cost"]
     context = {"parts": parts, "part": part, "planned_cost": planned_cost, "failure_cost": failure_cost}
     if part is not None:
