@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from django.utils import timezone
 
+from fleet.engineering.lifedata import age_in_words
 from fleet.models import FittedCapacitor
 from fleet.services.lifedata import life_table, part_life
-from fleet.engineering.lifedata import age_in_words
 from tests.factories import make_fitted_capacitor, make_motor, make_part
 
 pytestmark = pytest.mark.django_db

@@ -412,8 +412,7 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
     # The replace-by rule is stated with the figures the plan uses (a planner could not find it).
     assert (
         "any other 30 days before the crossing its risk level is judged on (P10, the date 1 in 10 of such capacitors "
-        "would have crossed by), never sooner than 7 days from today"
-        in response.content.decode()
+        "would have crossed by), never sooner than 7 days from today" in response.content.decode()
     )
     # A back-tested level per dielectric is named with it: the date follows the risk level's crossing.
     BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, alert_quantile=0.5)

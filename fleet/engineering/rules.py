@@ -217,8 +217,8 @@ VOLTAGE_CONFIRM_WORDS = (
 def plain_number(value) -> str:
     """A number as the site writes a typed value back: up to six significant digits, no exponent (0.00003, not
     3e-05; 29958.6, not 29958.577523180298) from 1e-12 to 1e21, outside which the browser's own numbers take one
-    (1e+300, not its 301 digits; 1e-320, not its 320). The live hint's `plain` does the same; an integer too large for a float (an API's 401 digits)
-    is written the same way, not raised on."""
+    (1e+300, not its 301 digits; 1e-320, not its 320). The live hint's `plain` does the same; an integer too
+    large for a float (an API's 401 digits) is written the same way, not raised on."""
     try:
         value = float(value)
     except OverflowError:
@@ -1230,7 +1230,9 @@ def _check_readings(
     low_slip = ~in_circuit & ~errors.has("capacitance_uf")
     unit_slip = capacitance_low_unit_slip(values["capacitance_uf"], rated, rules)
     no_capacitance = (values["capacitance_uf"] >= 0) & (values["capacitance_uf"] < rules.no_capacitance_below_uf)
-    confirm.add("capacitance_uf", low_slip & no_capacitance & (unit_slip == ""), OPEN_CAPACITOR_WORDS, case="open_capacitor")
+    confirm.add(
+        "capacitance_uf", low_slip & no_capacitance & (unit_slip == ""), OPEN_CAPACITOR_WORDS, case="open_capacitor"
+    )
     confirm.add("capacitance_uf", low_slip, unit_slip, case="unit_slip")
     if tolerance_plus_pct is not None:
         top = rated * (1.0 + _column(tolerance_plus_pct, n) / 100.0)

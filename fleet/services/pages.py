@@ -708,8 +708,10 @@ def alert_level_words() -> str:
     for number, (family, level) in enumerate(sorted(levels.items())):
         percent = round(100 * level)
         share = "half" if percent == 50 else f"{percent // 10} in 10" if percent % 10 == 0 else f"{percent} %"
-        words = f"P{percent}, the date {share} of such capacitors would have crossed by" if number == 0 else (
-            f"P{percent}, {share}"
+        words = (
+            f"P{percent}, the date {share} of such capacitors would have crossed by"
+            if number == 0
+            else (f"P{percent}, {share}")
         )
         said.append(words + (f", for {names.get(family, family).lower()}" if family else ""))
     return "; ".join(said)

@@ -10,10 +10,10 @@ from urllib.parse import urlencode
 from django import template
 from django.template.defaultfilters import floatformat
 from django.urls import reverse
+from django.utils import timezone
 from django.utils.html import format_html
 from django.utils.safestring import mark_safe
 from django.utils.text import slugify
-from django.utils import timezone
 from django.utils.timezone import template_localtime
 
 from .fleet_format import day, nowrap_dates
