@@ -1434,6 +1434,12 @@ class AuditEntry(models.Model):
         raise ValueError("Audit entries are append-only: they are never deleted.")
 
 
+# A stored Weibull: a finite positive shape and scale and no reason, or neither and the reason why not.
+WEIBULL_OR_WHY_NOT = Q(
+    beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND, no_fit_reason=""
+) | (Q(beta__isnull=True, eta_years__isnull=True) & ~Q(no_fit_reason=""))
+
+
 class PartLifeFit(models.Model):
     """A part's stored Weibull fit (failures in service against suspensions), refreshed by a task,
     so pages that forecast failures read it instead of fitting on a page load; or, for a part with
@@ -1459,10 +1465,7 @@ class PartLifeFit(models.Model):
     class Meta:
         constraints = [
             models.CheckConstraint(
-                condition=Q(
-                    beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND, no_fit_reason=""
-                )
-                | (Q(beta__isnull=True, eta_years__isnull=True) & ~Q(no_fit_reason="")),
+                condition=WEIBULL_OR_WHY_NOT,
                 name="life_fit_finite_positive_or_why_not",
             ),
         ]
@@ -1491,10 +1494,7 @@ class PartToleranceLife(models.Model):
     class Meta:
         constraints = [
             models.CheckConstraint(
-                condition=Q(
-                    beta__gt=0, beta__lt=FINITE_BOUND, eta_years__gt=0, eta_years__lt=FINITE_BOUND, no_fit_reason=""
-                )
-                | (Q(beta__isnull=True, eta_years__isnull=True) & ~Q(no_fit_reason="")),
+                condition=WEIBULL_OR_WHY_NOT,
                 name="tolerance_life_finite_positive_or_why_not",
             ),
         ]

@@ -135,14 +135,20 @@ def missing_required_words(missing: list[str], header: list[str], remedy: str) -
     return f"No column holds the required {fields} (the file's columns: {has}): {remedy}."
 
 
+def _first_positions(header) -> dict:
+    """Each heading's first column (a heading given twice refuses a file before this is asked)."""
+    position = {}
+    for number, heading in enumerate(header):
+        position.setdefault(heading, number)
+    return position
+
+
 def mapped_frame(
     header: list[str], rows: list[list[str]] | TextColumns, mapping: dict[str, str], ours: dict[str, str]
 ) -> pd.DataFrame:
     """Our fields as text columns (stripped; "" where the file has no such column), and each row's number
     as the file shows it (`files.row_numbers`)."""
-    position = {}
-    for number, heading in enumerate(header):
-        position.setdefault(heading, number)
+    position = _first_positions(header)
     out = {}
     for name in ours:
         column = position.get(mapping.get(name))
@@ -230,9 +236,7 @@ def unsaved_formulas(header: list[str], rows, mapping: dict[str, str], ours: dic
     cells = getattr(rows, "unsaved_formulas", ())
     if not cells:
         return {}
-    position = {}
-    for number, heading in enumerate(header):
-        position.setdefault(heading, number)
+    position = _first_positions(header)
     found = {}
     for name in ours:
         column = position.get(mapping.get(name))
