@@ -494,11 +494,11 @@ def test_each_work_orders_stored_walking_order_and_part_follow_its_motor_and_cap
 PLAN_ROW_TEMPLATE = """{% for a in rows %}
 <tr>
   <td data-label="Motor, capacitor"><a class="nowrap" href="{% url 'motor' a.fitted_capacitor.motor.asset_tag %}">{{ a.fitted_capacitor.motor.asset_tag }}</a><br><span class="muted">{{ a.fitted_capacitor.motor.location }}</span><br><a href="{% url 'fitted_capacitor' a.fitted_capacitor.id %}">{{ a.fitted_capacitor.get_role_display }} <span class="nowrap">{{ a.fitted_capacitor.part.code }}</span></a></td>
-  <td data-label="Risk, replace by"><span class="risk risk-{{ a.risk|slugify }}">{{ a.risk }}</span><br><span class="nowrap replace-by">{{ a.replace_by|date:"Y-m-d"|default:"-" }}</span>{% if a.low_confidence %}<br><span class="muted">few readings</span>{% endif %}</td>
+  <td data-label="Risk, replace by"><span class="risk risk-{{ a.risk|slugify }}">{{ a.risk }}</span><br><span class="nowrap replace-by">{{ a.replace_by|date:"Y-m-d"|default:"-" }}</span>{% if a.low_confidence and a.risk != "replace now" %}<br><span class="muted">few readings</span>{% endif %}</td>
   <td class="num" data-label="Trend at last reading (&micro;F)">{{ a.capacitance_now_uf|floatformat:2 }}</td>
   <td data-label="Limit">{{ a.limit_source }}</td>
   <td data-label="Why">{{ a.reason|default:"-"|nowrap_dates }}</td>
-  <td data-label="Trend crosses: early / likely"><span class="nowrap">{% if a.p10_on %}{{ a.p10_on|date:"Y-m-d" }}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span> / <span class="nowrap">{% if a.p50_on %}{{ a.p50_on|date:"Y-m-d" }}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span></td>
+  <td data-label="Trend crosses: early / likely"><span class="nowrap">{% if a.p10_on %}{{ a.p10_on|date:"Y-m-d" }}{% if a.p10_on < today %}, past{% endif %}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span> / <span class="nowrap">{% if a.p50_on %}{{ a.p50_on|date:"Y-m-d" }}{% if a.p50_on < today %}, past{% endif %}{% elif a.set_aside %}no trend{% else %}beyond{% endif %}</span></td>
   <td data-label="Site">{{ a.fitted_capacitor.motor.site.code }}</td>
 </tr>
 {% empty %}<tr><td colspan="7">Nothing due in this window.</td></tr>{% endfor %}"""  # noqa: E501
@@ -523,8 +523,9 @@ def test_the_plan_rows_written_in_python_are_the_markup_the_template_wrote(plann
     )
     assert len(rows) > 3
     reference = engines["django"].from_string(PLAN_ROW_TEMPLATE)
-    assert plan_rows(rows) == reference.render({"rows": rows})
-    assert plan_rows([]) == reference.render({"rows": []})
+    today = timezone.localdate()
+    assert plan_rows(rows) == reference.render({"rows": rows, "today": today})
+    assert plan_rows([]) == reference.render({"rows": [], "today": today})
 
 
 WORK_ORDER_ROW_TEMPLATE = """{% for order in orders %}<tr>

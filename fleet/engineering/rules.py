@@ -286,6 +286,12 @@ ELECTROLYTIC_RUN_WORDS = "is an electrolytic (start) capacitor: a run position n
 UNDER_VOLTAGE_WORDS = "supply: a capacitor sees at least the supply voltage"
 
 
+class ReadsOtherFields(str):
+    """A field's name, for a check whose words rest on other fields of the row too (the output against the volts
+    and amps, the speed against the frequency and poles): an import names it once the row's other faults are put
+    right (it would otherwise call an output too high for a voltage typed as 0); a form shows it as any other."""
+
+
 def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[tuple[np.ndarray, str, str]]:
     """(rows, field, message) for nameplate figures no capacitor motor has, vectorised over a register:
     output and full-load current above zero and within the bounds above, and an output below the
@@ -307,12 +313,12 @@ def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[t
             ),
             (
                 (watts > 0) & (amps > 0) & (watts >= volts * amps),
-                "output_w",
+                ReadsOtherFields("output_w"),
                 "at or above rated voltage times full-load current: a motor puts out less than it draws",
             ),
             (
                 (watts > 0) & (amps > 0) & (watts < NAMEPLATE_MIN_OUTPUT_FRACTION_OF_VA * volts * amps),
-                "output_w",
+                ReadsOtherFields("output_w"),
                 f"under {NAMEPLATE_MIN_OUTPUT_FRACTION_OF_VA * 100:g} % of rated voltage times full-load current: "
                 "give the output in W, not kW",
             ),
@@ -370,10 +376,14 @@ def motor_problems(
             (~np.isin(hertz, MOTOR_FREQUENCIES_HZ), "frequency_hz", "must be 50 or 60"),
             (~np.isin(poles, MOTOR_POLES), "poles", "must be 2, 4, 6, 8, 10 or 12"),
             (~(rpm > 0), "rated_speed_rpm", "must be above zero"),
-            (rpm >= synchronous, "rated_speed_rpm", "at or above synchronous speed (120 × frequency / poles)"),
+            (
+                rpm >= synchronous,
+                ReadsOtherFields("rated_speed_rpm"),
+                "at or above synchronous speed (120 × frequency / poles)",
+            ),
             (
                 (rpm > 0) & (rpm < MOTOR_MIN_SPEED_FRACTION_OF_SYNCHRONOUS * synchronous),
-                "rated_speed_rpm",
+                ReadsOtherFields("rated_speed_rpm"),
                 _messages(
                     (rpm > 0) & (rpm < MOTOR_MIN_SPEED_FRACTION_OF_SYNCHRONOUS * synchronous),
                     "under half of synchronous speed ({sync:g} rpm): a capacitor motor runs a few per cent below it",

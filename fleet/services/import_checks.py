@@ -21,6 +21,7 @@ from fleet.engineering.rules import (
     MSG_NOT_A_NUMBER,
     MSG_NOT_FINITE,
     UNDER_VOLTAGE_WORDS,
+    ReadsOtherFields,
     _messages,
     commissioning_problems,
     fitting_problems,
@@ -779,9 +780,9 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
         problems.add(~frame[name].str.lower().isin(allowed), name, "must be one of " + ", ".join(allowed), of_cell=True)
     volts = numbers["rated_voltage_v"]
     # Every check constraint of a motor and the rulebook's bounds, by row and field, before any write.
-    # Named beside the row's other faults, as for parts (check_parts).
+    # Named beside the row's other faults, as for parts (check_parts); a check that reads other fields waits.
     for rows, name, message in motor_problems(*(numbers[name] for name in MOTOR_NUMBERS)):
-        problems.add(rows, name, message, of_cell=True)
+        problems.add(rows, str(name), message, of_cell=not isinstance(name, ReadsOtherFields))
     kind = frame["motor_type"].str.lower()
     needs_run = kind.isin(["permanent_split", "two_value"])
     needs_start = kind.isin(["capacitor_start", "two_value"])

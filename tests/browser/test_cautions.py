@@ -103,15 +103,15 @@ def test_the_live_work_caution_shows_beside_in_circuit_whatever_the_fold(phone):
 
 
 def test_a_meter_value_left_typed_stays_in_view_when_in_circuit_is_chosen(phone):
-    """[trade] nothing typed is dropped unseen: a capacitance typed, then "in circuit" chosen, kept its box in
-    view (the server refuses to save it beside in-circuit values); cleared, the box goes with the method."""
+    """[trade] nothing typed is dropped unseen: a capacitance typed, then "in circuit" chosen, keeps its box in
+    view (greyed, with what becomes of the value: test_reading_rules.py); cleared, the box goes with the method."""
     fitted_capacitor = make_fitted_capacitor()
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
     phone.fill("#id_capacitance_uf", "3.95")
     phone.check("input[name=method][value=in_circuit]")
     assert phone.is_visible("#id_capacitance_uf") and phone.is_visible("#id_capacitor_current_a")
-    phone.fill("#id_capacitance_uf", "")
     phone.check("input[name=method][value=meter]")
+    phone.fill("#id_capacitance_uf", "")
     phone.check("input[name=method][value=in_circuit]")
     assert not phone.is_visible("#id_capacitance_uf")
