@@ -187,3 +187,22 @@ def test_a_replacement_recorded_from_its_planned_order_starts_at_replaced_on_pla
     assert _checked_reason(client.get(route).content.decode()) is None  # from the route
     WorkOrder.objects.filter(pk=order.pk).update(state=WorkOrder.State.CANCELLED, closed_at=timezone.now())
     assert _checked_reason(client.get(from_orders).content.decode()) is None  # no open replacement order
+
+
+def test_a_half_read_motor_offers_its_other_capacitor_before_the_next_motor(client, technician):
+    """A motor with a run and a start capacitor, its run capacitor read from the route: the message offered the next
+    motor while the route still listed this one as half read ("start capacitor" to read). It offers the start
+    capacitor's reading form first, with the route kept, and the next motor once both are read. [trade] a motor
+    isolated and its capacitors discharged for one reading has the other read while it is (common practice of the
+    trade, no single source)."""
+    run, _ = _route("HLF", 2)
+    start = make_fitted_capacitor(motor=run.motor, role="start")
+    due = reverse("route", args=["HLF"]) + "?show=due"
+    back = f"?next={quote(due, safe='')}"
+    client.force_login(technician)
+    landed = client.post(reverse("reading_new", args=[run.id]) + back, SOUND_READING, follow=True).content.decode()
+    start_form = reverse("reading_new", args=[start.id]) + back
+    assert f'href="{start_form}">Still to read here: the start capacitor of' in landed
+    assert "Next to read" not in landed
+    landed = client.post(start_form, SOUND_READING | {"capacitance_uf": "4.0"}, follow=True).content.decode()
+    assert "Still to read here" not in landed and "Next to read: <span class=\"nowrap\">HLF-0002</span>" in landed

@@ -442,6 +442,18 @@ def next_to_read(motor: Motor, today: dt.date | None = None) -> Motor | None:
     )
 
 
+def still_to_read_here(motor: Motor, today: dt.date | None = None) -> FittedCapacitor | None:
+    """The first capacitor in service on `motor` still to read this quarter when the motor is half read (its run
+    capacitor read, its start capacitor not: `positions_still_to_read`, as its route row says), else None; two
+    queries. A reading saved from the route offers it before the next motor: the motor is isolated already."""
+    since = utc_midnight(quarter_start(today or timezone.localdate()))
+    left = positions_still_to_read([motor.id], since).get(motor.id, [])
+    if not left:
+        return None
+    roles = {name: role for role, name in ROLE_NAMES.items()}
+    return FittedCapacitor.objects.filter(motor=motor, removed_on__isnull=True, role=roles[left[0]]).first()
+
+
 class RouteRows:
     """A route's motors as a Paginator pages them: their number as the ledger counts it (no count of the
     site's motors), a page's motors read in one query, each with `still_to_read`

@@ -160,13 +160,27 @@ def reading_new(request, fitted_capacitor_id):
 
 NEXT_TO_READ = '{} <a class="button next-to-read" href="{}">Next to read: <span class="nowrap">{}</span></a>'
 ROUTE_DONE = "{} No other motor is left to read on the {} route this quarter."
+STILL_TO_READ_HERE = (
+    '{} <a class="button next-to-read" href="{}">'
+    + 'Still to read here: the {} capacitor of <span class="nowrap">{}</span></a>'
+)
 
 
 def _saved_words(words: str, *, route: str | None, after: Motor | None) -> str:
-    """A saved reading's message; reached from a site's route (`route`, its address), with the next motor to read
-    after `after` on it as a button that keeps the route (`pages.next_to_read`), or that none is left."""
+    """A saved reading's message; reached from a site's route (`route`, its address), with a button that keeps the
+    route: to the motor's own capacitor still to read where it is half read (`pages.still_to_read_here`), else to
+    the next motor to read after `after` on it (`pages.next_to_read`), or that none is left."""
     if after is None:
         return words
+    here = pages.still_to_read_here(after)
+    if here is not None:
+        return format_html(
+            STILL_TO_READ_HERE,
+            words,
+            with_next(reverse("reading_new", args=[here.id]), route),
+            here.get_role_display().lower(),
+            after.asset_tag,
+        )
     following = pages.next_to_read(after)
     if following is None:
         return format_html(ROUTE_DONE, words, after.site.code)
