@@ -982,6 +982,14 @@ class Assessment(models.Model):
                 condition=IN_SERVICE,
                 name="in_service_totals",
             ),
+            # The work-orders page's and the dashboard's count of capacitors to replace now without an order
+            # (`workorders.replace_now_without_order`): a few rows, so a cheap entry for the refit (it scanned
+            # 150,000 current assessments, 48 ms at 100,000 motors, without it).
+            models.Index(
+                fields=["fitted_capacitor"],
+                condition=IN_SERVICE & Q(risk="replace now"),
+                name="in_service_replace_now",
+            ),
             # The plan's "changed in the last 7 days": only the capacitors whose risk moved.
             models.Index(fields=["risk_changed_at"], condition=IN_SERVICE, name="in_service_by_risk_change"),
             # The plan and home: a day's replacements by site and walking order, read a page at a time.
