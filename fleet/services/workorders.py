@@ -434,11 +434,17 @@ def past_replace_by(fitted_capacitor_ids, day: dt.date) -> list[LateOrder]:
 def tightest_replace_by(site_id: int, day: dt.date, user=None) -> LateOrder | None:
     """The open order of a visit whose capacitor's current plan has the soonest replace-by date (a move past
     that date leaves it late), as a `LateOrder`; None where no order of the visit has one. One query."""
-    row = (
+    # The order found first, its motor and part joined to that one row after: joined to the visit's every order,
+    # PostgreSQL scanned all 160,000 fitted capacitors (50 ms on a visit of 750 orders at 100,000 motors).
+    soonest = (
         with_current_plan(open_orders(user).filter(site_id__in=storable_ids([site_id]), due_on=day))
         .filter(plan_replace_by__isnull=False)
-        .select_related("motor", "fitted_capacitor__part")
         .order_by("plan_replace_by", *WALKING_ORDER)
+        .values("pk")[:1]
+    )
+    row = (
+        with_current_plan(WorkOrder.objects.filter(pk=Subquery(soonest)))
+        .select_related("motor", "fitted_capacitor__part")
         .first()
     )
     if row is None:
