@@ -18,7 +18,7 @@ from django.core.validators import MaxValueValidator, MinValueValidator
 from django.http import HttpResponse
 
 from .engineering.lifedata import MAX_REPLACEMENT_COST
-from .engineering.planning import PLAN_HORIZON_DAYS
+from .engineering.planning import PLAN_DEFAULT_DAYS, PLAN_HORIZON_DAYS
 from .engineering.rules import (
     ACCEPTED_DAYS_WORDS,
     FIRST_ACCEPTED_DAY,
@@ -409,7 +409,9 @@ class PlanParameters(_PageParameters):
         fields = ["site", "days"]
 
 
-def plan_parameters(query, default_days: int = 90, request=None) -> tuple[Site | None, int, dict[str, str]]:
+def plan_parameters(
+    query, default_days: int = PLAN_DEFAULT_DAYS, request=None
+) -> tuple[Site | None, int, dict[str, str]]:
     """(site, horizon in days, the message on each parameter ignored) from a plan query string; a site
     the requesting user does not work at is ignored like an unknown one."""
     values, refused = page_parameters(PlanParameters, query, request)

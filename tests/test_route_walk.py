@@ -205,4 +205,4 @@ def test_a_half_read_motor_offers_its_other_capacitor_before_the_next_motor(clie
     assert f'href="{start_form}">Still to read here: the start capacitor of' in landed
     assert "Next to read" not in landed
     landed = client.post(start_form, SOUND_READING | {"capacitance_uf": "4.0"}, follow=True).content.decode()
-    assert "Still to read here" not in landed and "Next to read: <span class=\"nowrap\">HLF-0002</span>" in landed
+    assert "Still to read here" not in landed and 'Next to read: <span class="nowrap">HLF-0002</span>' in landed

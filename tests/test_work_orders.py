@@ -1181,8 +1181,10 @@ def test_capacitors_to_replace_now_without_a_work_order_are_counted_with_the_but
     client, planner, technician, django_assert_num_queries
 ):
     """A walk: a capacitor to replace now had no work order until the planner happened to plan, and no page said
-    so. The work-orders page and the dashboard count them (one aggregate query), the planner with the button that
-    creates them; a capacitor with an open order, one removed and one not to replace now are not counted. Ours."""
+    so. The work-orders page and the dashboard count them, the planner with the button that creates them; a
+    capacitor with an open order, one removed and one not to replace now are not counted. A review: one whose
+    order the planner cancelled was counted too, and the plan does not order it again (`plan_work_orders`), so
+    the note stayed after the button; it is counted apart, in words of its own. Ours."""
     from fleet.services.workorders import replace_now_without_order
 
     today = timezone.localdate()
@@ -1190,20 +1192,28 @@ def test_capacitors_to_replace_now_without_a_work_order_are_counted_with_the_but
     unordered = [make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in range(2)]
     ordered = make_fitted_capacitor(motor=make_motor(site=site, route_order=5))
     later = make_fitted_capacitor(motor=make_motor(site=site, route_order=6))
-    for capacitor in (*unordered, ordered):
+    cancelled = make_fitted_capacitor(motor=make_motor(site=site, route_order=7))
+    for capacitor in (*unordered, ordered, cancelled):
         stored_assessment(capacitor, "replace now", today)
     stored_assessment(later, "due soon", today + dt.timedelta(days=40))
     WorkOrder.objects.create(motor=ordered.motor, fitted_capacitor=ordered, kind="replace_run", due_on=today)
-    with django_assert_num_queries(1):  # every site's (a user's sites add the scoping's own look-up)
-        assert replace_now_without_order() == 2
-    assert replace_now_without_order(planner) == 2
+    order = WorkOrder.objects.create(
+        motor=cancelled.motor, fitted_capacitor=cancelled, kind="replace_run", due_on=today, window_days=14
+    )
+    cancel_order(order_id=order.id, reason="motor out for rewind", user=planner)
+    # The assessments, the cancelled orders and their sites' days off (a user's sites add the scoping's look-up).
+    with django_assert_num_queries(3):
+        counted = replace_now_without_order()
+    assert (counted.count, counted.kept_cancelled) == (2, 1)
+    assert replace_now_without_order(planner).count == 2
 
     client.force_login(planner)
     for page in ("work_orders", "dashboard"):
         body = client.get(reverse(page)).content.decode()
         note = body[body.index('id="replace-now-unordered"') :].split("</div>")[0]
         assert "2 capacitors to replace now have no work order." in note, page
-        assert 'name="action" value="plan">Create work orders from the plan</button>' in note, page
+        assert 'name="days" value="90"><button class="primary" type="submit" name="action" value="plan">' in note
+        assert "1 capacitor to replace now has no work order because the planner cancelled its" in body, page
     client.force_login(technician)
     body = client.get(reverse("work_orders")).content.decode()
     note = body[body.index('id="replace-now-unordered"') :].split("</div>")[0]
@@ -1212,8 +1222,55 @@ def test_capacitors_to_replace_now_without_a_work_order_are_counted_with_the_but
 
     client.force_login(planner)
     client.post(reverse("work_orders"), {"action": "plan", "days": "90"})
-    assert replace_now_without_order(planner) == 0
-    assert 'id="replace-now-unordered"' not in client.get(reverse("work_orders")).content.decode()
+    assert not WorkOrder.objects.filter(fitted_capacitor=cancelled, state__in=["planned", "issued"]).exists()
+    after = replace_now_without_order(planner)
+    assert (after.count, after.kept_cancelled) == (0, 1)
+    body = client.get(reverse("work_orders")).content.decode()
+    assert 'id="replace-now-unordered"' not in body and 'id="replace-now-cancelled"' in body
+
+
+def test_a_visit_on_today_is_not_late_for_a_replace_by_date_already_past(client, planner):
+    """A review: a "replace now" planned days ago carries a replace-by date now past, and every visit, today's
+    too, was marked "the visit is after it". No visit can come sooner than today: the one rule
+    (`workorders.late_order`, `is_late`) marks a visit late only when it is after the replace-by date and after
+    today, on the list's rows and count, the visit sheet's rows and day buttons, and a move's warning; the list's
+    mark, shown as escaped text, is markup again. Ours,
+    [trade] a planned replacement is done by its date or knowingly late (common practice, no single source)."""
+    from fleet.services.workorders import is_late, past_replace_by, tightest_replace_by
+
+    today = timezone.localdate()
+    passed = today - dt.timedelta(days=3)
+    site = make_site(code="PAST")
+    on_today, on_later = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in range(2))
+    later_day = today + dt.timedelta(days=2)
+    for capacitor, day in ((on_today, today), (on_later, later_day)):
+        stored_assessment(capacitor, "replace now", passed)
+        WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="replace_run", due_on=day)
+
+    assert [is_late(day, passed, today) for day in (today, later_day)] == [False, True]
+    assert [is_late(day, today + dt.timedelta(days=5), today) for day in (today, later_day)] == [False, False]
+    assert not is_late(later_day, None, today)
+    visits = {v["day"]: v["late"] for v in open_visits_page(1, user=planner).object_list}
+    assert visits == {today: 0, later_day: 1}
+    assert past_replace_by([on_today.id, on_later.id], today, today) == []
+    late = past_replace_by([on_today.id, on_later.id], later_day, today)  # a move there: late for both
+    assert [(o.replace_by, o.late_after) for o in late] == [(passed, today)] * 2
+    assert tightest_replace_by(site.id, today, today=today).late_after == today
+
+    client.force_login(planner)
+    listed = client.get(reverse("work_orders")).content.decode()
+    rows = re.findall(r"<tr>.*?</tr>", listed[listed.index("PAST") :], re.S)
+    marked = [
+        ['class="error-text past-replace-by"' in row for row in rows if f">{c.motor.asset_tag}<" in row]
+        for c in (on_today, on_later)
+    ]
+    assert marked == [[False], [True]], marked
+    assert "&lt;b class=" not in listed  # the mark as markup, not as text (it was escaped on this list)
+    sheet = client.get(reverse("visit_sheet", args=[site.code, today.isoformat()])).content.decode()
+    assert 'class="error-text past-replace-by"' not in sheet
+    assert "That date has passed: a day after today leaves that order later still." in sheet
+    sheet = client.get(reverse("visit_sheet", args=[site.code, later_day.isoformat()])).content.decode()
+    assert 'class="error-text past-replace-by"' in sheet
 
 
 def test_each_folded_visit_says_its_state_and_whether_an_order_is_past_its_date(client, planner):

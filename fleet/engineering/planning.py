@@ -29,6 +29,7 @@ DISSIPATION_LIMIT = "dissipation factor"  # the second wear sign, on the ESR rea
 # The replacement plan looks from a week to two years ahead (ours): further, a forecast's band is wider than
 # the plan is long. Work orders are dated within that reach and bundled into visits of at most a quarter.
 PLAN_HORIZON_DAYS = (7, 730)
+PLAN_DEFAULT_DAYS = 90  # the plan page's reach and the work orders' when none is asked for: a quarter's round
 WORK_ORDER_MAX_WINDOW_DAYS = 90
 
 

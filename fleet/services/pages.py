@@ -30,7 +30,7 @@ from django.utils import timezone
 from fleet.charts import trend_figure
 from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
 from fleet.engineering.capacitor import normalise_to_25c
-from fleet.engineering.planning import RISK_ORDER, RISK_REPLACE_NOW, PlanningSettings
+from fleet.engineering.planning import PLAN_DEFAULT_DAYS, RISK_ORDER, RISK_REPLACE_NOW, PlanningSettings
 from fleet.engineering.trends import case_temperatures, default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
 from fleet.models import (
@@ -613,7 +613,7 @@ def due_within(horizon_days: int, user=None, today: dt.date | None = None):
     return in_service_assessments(user).filter(replace_by__lte=replace_by_until(horizon_days, today))
 
 
-def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None):
+def replacement_plan(horizon_days: int = PLAN_DEFAULT_DAYS, site: Site | None = None, user=None):
     """Capacitors in service at the user's sites to replace within the horizon, soonest first, then by
     site and walking order, with the newest assessment's figures (not the per-limit details); one
     query, ordered by the assessment's stored site and route order (the in_service_walking_order index)."""
@@ -628,7 +628,7 @@ def replacement_plan(horizon_days: int = 90, site: Site | None = None, user=None
     return queryset
 
 
-def spares_needed(horizon_days: int = 90, site: Site | None = None, user=None) -> list[dict]:
+def spares_needed(horizon_days: int = PLAN_DEFAULT_DAYS, site: Site | None = None, user=None) -> list[dict]:
     """Parts to hold for the plan's replacements (same window, same sites), with their cost: each
     `{"part", "quantity", "cost"}`, by part code. Counted on each assessment's stored part (the
     in_service_totals index alone, whatever the fleet's size), then the few parts are read."""

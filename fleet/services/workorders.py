@@ -14,12 +14,13 @@ import pandas as pd
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
 from django.db import transaction
-from django.db.models import Count, Exists, F, OuterRef, Q, Subquery, Window
+from django.db.models import BooleanField, Count, Exists, ExpressionWrapper, F, OuterRef, Q, Subquery, Window
 from django.db.models.functions import RowNumber
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
 from fleet.engineering.planning import (
+    PLAN_DEFAULT_DAYS,
     PLAN_HORIZON_DAYS,
     WORK_ORDER_MAX_WINDOW_DAYS,
     PlanningSettings,
@@ -46,7 +47,9 @@ OPEN = list(WorkOrder.OPEN_STATES)
 CAPACITOR_KINDS = [*KIND_FOR_ROLE.values(), WorkOrder.Kind.READ_AGAIN]
 
 
-def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None, today: dt.date | None = None) -> dict:
+def plan_work_orders(
+    *, horizon_days: int = PLAN_DEFAULT_DAYS, window_days: int = 14, user=None, today: dt.date | None = None
+) -> dict:
     """Create planned orders for capacitors to replace within the horizon.
 
     A capacitor whose plan says "read it again" (its trend's early crossing has passed, no reading
@@ -104,7 +107,7 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             if existing is not None and existing.state == WorkOrder.State.ISSUED:
                 continue
             order = existing or WorkOrder(motor_id=motor_id, fitted_capacitor_id=fitted_capacitor_id, created_by=user)
-            order.kind = WorkOrder.Kind.READ_AGAIN if reread else KIND_FOR_ROLE[role]
+            order.kind = _plan_kind(role, reread)
             order.reason = f"{risk}: {reason}"[: WorkOrder._meta.get_field("reason").max_length]
             if existing is None and fitted_capacitor_id in cancelled:
                 not_again.append((cancelled[fitted_capacitor_id], order.kind, risk, reread, replace_by))
@@ -154,6 +157,11 @@ def plan_work_orders(*, horizon_days: int = 90, window_days: int = 14, user=None
             counts["visits"] = len(_visits_of(items, new_orders + replanned))
     counts["open_visits"] = open_orders(user).values("due_on", "site_id").distinct().count()
     return counts
+
+
+def _plan_kind(role: str, read_again: bool) -> str:
+    """The order the plan gives a capacitor: read it again first, or replace it (its role's kind)."""
+    return WorkOrder.Kind.READ_AGAIN if read_again else KIND_FOR_ROLE[role]
 
 
 def _visits_of(items, orders) -> set[tuple]:
@@ -359,6 +367,7 @@ class LateOrder:
     asset_tag: str
     capacitor: str  # "run capacitor RUN-10U-450"
     replace_by: dt.date
+    late_after: dt.date  # a visit after this day is late for it: the later of `replace_by` and today (`is_late`)
 
 
 def move_visit(
@@ -407,13 +416,15 @@ def move_visit(
             order.moved_from = order.moved_from or order.due_on
             order.due_on = to_day
         audited_bulk_update(orders, ["due_on", "moved_from"])
-        late = past_replace_by([o.fitted_capacitor_id for o in orders if o.fitted_capacitor_id], to_day)
+        late = past_replace_by([o.fitted_capacitor_id for o in orders if o.fitted_capacitor_id], to_day, today)
     return VisitMove(moved=len(orders), to_day=to_day, joined=joined, late=tuple(late))
 
 
-def past_replace_by(fitted_capacitor_ids, day: dt.date) -> list[LateOrder]:
-    """Of these capacitors, those whose current plan's replace-by date is before `day` (a visit on `day` is late for
-    them), soonest date first, each with its motor's tag and its role and part in words. One query."""
+def past_replace_by(fitted_capacitor_ids, day: dt.date, today: dt.date) -> list[LateOrder]:
+    """Of these capacitors, those a visit on `day` is late for (`is_late`), soonest replace-by date first, each with
+    its motor's tag and its role and part in words. One query; none on or before today."""
+    if day <= today:
+        return []
     rows = (
         Assessment.objects.filter(
             fitted_capacitor_id__in=storable_ids(fitted_capacitor_ids), is_current=True, replace_by__lt=day
@@ -426,14 +437,17 @@ def past_replace_by(fitted_capacitor_ids, day: dt.date) -> list[LateOrder]:
             asset_tag=a.fitted_capacitor.motor.asset_tag,
             capacitor=f"{a.fitted_capacitor.get_role_display().lower()} capacitor {a.fitted_capacitor.part.code}",
             replace_by=a.replace_by,
+            late_after=max(a.replace_by, today),
         )
         for a in rows
     ]
 
 
-def tightest_replace_by(site_id: int, day: dt.date, user=None) -> LateOrder | None:
+def tightest_replace_by(site_id: int, day: dt.date, user=None, today: dt.date | None = None) -> LateOrder | None:
     """The open order of a visit whose capacitor's current plan has the soonest replace-by date (a move past
-    that date leaves it late), as a `LateOrder`; None where no order of the visit has one. One query."""
+    that date, or past today where it has passed, leaves it late), as a `LateOrder`; None where no order of the
+    visit has one. One query."""
+    today = today or timezone.localdate()
     # The order found first, its motor and part joined to that one row after: joined to the visit's every order,
     # PostgreSQL scanned all 160,000 fitted capacitors (50 ms on a visit of 750 orders at 100,000 motors).
     soonest = (
@@ -454,6 +468,7 @@ def tightest_replace_by(site_id: int, day: dt.date, user=None) -> LateOrder | No
         asset_tag=row.motor.asset_tag,
         capacitor=f"{capacitor.get_role_display().lower()} capacitor {capacitor.part.code}",
         replace_by=row.plan_replace_by,
+        late_after=max(row.plan_replace_by, today),
     )
 
 
@@ -641,23 +656,63 @@ def visit_state_words(planned: int, issued: int, done: int = 0) -> str:
     return f"{words}; {done} done already" if done else words
 
 
-def replace_now_without_order(user=None) -> int:
+@dataclass(frozen=True)
+class ReplaceNowUnordered:
+    """Capacitors to replace now with no open work order (`replace_now_without_order`)."""
+
+    count: int  # the plan orders these at the next "create work orders from the plan"
+    kept_cancelled: int  # and these it does not: the planner cancelled their order (`_still_cancelled`)
+    horizon_days: int = PLAN_DEFAULT_DAYS  # the reach the page's button plans with
+
+
+def replace_now_without_order(user=None, today: dt.date | None = None) -> ReplaceNowUnordered:
     """Capacitors in service at the user's sites whose current plan says "replace now" and that have no open work
-    order: the work-orders page and the dashboard say how many, beside the button that orders them. One
-    aggregate query over the current assessments (an EXISTS on the open orders' unique index a row)."""
+    order: the work-orders page and the dashboard say how many, beside the button that orders them. Those whose
+    order the planner cancelled, which the plan does not order again (`plan_work_orders`), are counted apart, so
+    the note goes once the button has done what it can. One query over the current assessments (an EXISTS on the
+    open orders' unique index a row), and where any are unordered, one for their cancelled orders and one for those
+    orders' sites' days off."""
+    today = today or timezone.localdate()
     open_order = WorkOrder.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), state__in=OPEN)
-    return in_service_assessments(user).filter(risk=Assessment.Risk.REPLACE_NOW).exclude(Exists(open_order)).count()
+    unordered = list(
+        in_service_assessments(user)
+        .filter(risk=Assessment.Risk.REPLACE_NOW)
+        .exclude(Exists(open_order))
+        .values_list("fitted_capacitor_id", "fitted_capacitor__role", "risk", "read_again", "replace_by")
+    )
+    cancelled = _cancelled_orders([row[0] for row in unordered], today) if unordered else {}
+    candidates = [
+        (cancelled[capacitor_id], _plan_kind(role, reread), risk, reread, replace_by)
+        for capacitor_id, role, risk, reread, replace_by in unordered
+        if capacitor_id in cancelled
+    ]
+    kept = len(_still_cancelled(candidates, today))
+    return ReplaceNowUnordered(count=len(unordered) - kept, kept_cancelled=kept)
 
 
-def with_current_plan(orders):
+def with_current_plan(orders, today: dt.date | None = None):
     """`orders` with their capacitor's current assessment's risk, replace-by date and "read again" word
-    (one subquery each, in the same query)."""
+    (one subquery each, in the same query), and `plan_late`, the visit late for it (`late_order`)."""
     current = Assessment.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), is_current=True)
+    today = today or timezone.localdate()
     return orders.annotate(
         plan_risk=Subquery(current.values("risk")[:1]),
         plan_replace_by=Subquery(current.values("replace_by")[:1]),
         plan_read_again=Subquery(current.values("read_again")[:1]),
-    )
+    ).annotate(plan_late=ExpressionWrapper(late_order(today, F("plan_replace_by")), output_field=BooleanField()))
+
+
+def late_order(today: dt.date, replace_by=None) -> Q:
+    """The one rule of a late work order, in SQL: its visit day is after its capacitor's current replace-by date
+    (`replace_by`, an expression; the current assessment's by default) and after today. A date that passed since
+    the plan was made (a "replace now" planned last week) leaves a visit today on time: none can come sooner.
+    `is_late` is the same rule for one order in Python."""
+    return Q(due_on__gt=today) & Q(due_on__gt=Subquery(CURRENT_REPLACE_BY) if replace_by is None else replace_by)
+
+
+def is_late(due_on: dt.date, replace_by: dt.date | None, today: dt.date) -> bool:
+    """`late_order` for one visit day: after the replace-by date and after today."""
+    return replace_by is not None and due_on > max(replace_by, today)
 
 
 READ_FOR_WORDS = "read for work order {}"  # in a reason: the "read again" order whose reading asked for this one
@@ -887,7 +942,7 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
         .annotate(
             count=Count("id"),
             planned=Count("id", filter=Q(state=WorkOrder.State.PLANNED)),
-            late=Count("id", filter=Q(due_on__gt=Subquery(CURRENT_REPLACE_BY))),
+            late=Count("id", filter=late_order(timezone.localdate())),
         )
         .order_by("due_on", "site__code")
     )

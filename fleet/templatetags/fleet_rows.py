@@ -98,7 +98,7 @@ BRING_PART = (
     '<br><small class="muted stop-gap-fitted">fitted now: <span class="nowrap">{fitted}</span>, a stop-gap</small>'
 )
 REPLACE_BY = '<span class="replace-by">{}</span>'
-PAST_REPLACE_BY = '<br><b class="error-text past-replace-by">the visit is after it</b>'
+PAST_REPLACE_BY = mark_safe('<br><b class="error-text past-replace-by">the visit is after it</b>')
 NOT_ISSUED = "Planned, not issued yet"
 
 
@@ -109,9 +109,8 @@ RECORD_REPLACEMENT = '<br><a class="glove field-work record-replacement" href="{
 
 
 def past_replace_by(order) -> bool:
-    """The order's visit day is after its capacitor's current replace-by date (`with_current_plan`)."""
-    replace_by = getattr(order, "plan_replace_by", None)
-    return replace_by is not None and order.due_on > replace_by
+    """The order's visit is late for its capacitor's current replace-by date (`with_current_plan`'s `plan_late`)."""
+    return bool(getattr(order, "plan_late", False))
 
 
 @register.simple_tag

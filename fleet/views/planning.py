@@ -15,7 +15,7 @@ from django.utils import timezone
 from django.utils.html import format_html
 from django.views.decorators.http import require_POST
 
-from fleet.engineering.planning import PlanningSettings
+from fleet.engineering.planning import PLAN_DEFAULT_DAYS, PlanningSettings
 from fleet.engineering.substitutes import SubstituteRules
 from fleet.exports import Column, Table, stream_csv
 from fleet.filters import (
@@ -145,7 +145,7 @@ def work_orders(request):
     return _work_orders_page(request)
 
 
-def _work_orders_page(request, plan_days: str = "90", status: int = 200):
+def _work_orders_page(request, plan_days: str = str(PLAN_DEFAULT_DAYS), status: int = 200):
     """The work-orders page; `plan_days`, what the plan's box shows (a refused value as it was typed)."""
     page = list_page(request, lambda number: open_visits_page(number, user=request.user))
     return render(
@@ -270,7 +270,7 @@ def visit_sheet(request, site, day):
         "planned_orders": planned,
         "state": visit_state_words(planned, paginator.count - planned),
         # A move past the soonest replace-by date leaves that order late: the day buttons say which days are.
-        "tightest": tightest_replace_by(site.id, day, user=request.user)
+        "tightest": tightest_replace_by(site.id, day, user=request.user, today=timezone.localdate())
         if request.user.has_perm("fleet.add_workorder")
         else None,
     }
