@@ -27,6 +27,7 @@ from .models import Assessment, FittedCapacitor, Reading, site_zone
 from .roles import permission_words, scope_to_user
 from .services.bulk import storable_ids
 from .services.counts import assessed_total
+from .services.operating_pictures import with_operating_figures
 from .services.pages import in_service_assessments
 from .services.readings import KeyUsedBefore, NeedsConfirmation, record_reading
 from .services.substitutes import substitutes_for
@@ -143,6 +144,9 @@ class AssessmentSerializer(serializers.ModelSerializer):
     fitted_capacitor_id = serializers.IntegerField()
     fitted_against_advice = serializers.BooleanField(source="fitted_capacitor.substitute_override")
     override_reason = serializers.CharField(source="fitted_capacitor.override_reason")
+    # Worked out for the page by `AssessmentList` (`with_operating_figures`), not stored.
+    figures_new = serializers.DictField(read_only=True)
+    figures_now = serializers.DictField(read_only=True)
 
     class Meta:
         model = Assessment
@@ -323,6 +327,11 @@ class AssessmentList(KnownParametersOnly, generics.ListAPIView):
             .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
             .order_by(F("replace_by").asc(nulls_last=True), "fitted_capacitor_id")
         )
+
+    def paginate_queryset(self, queryset):
+        """The page's assessments with their operating figures, worked out for the page in one core call."""
+        page = super().paginate_queryset(queryset)
+        return None if page is None else with_operating_figures(page)
 
 
 class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):

@@ -901,8 +901,8 @@ class Assessment(models.Model):
     set_aside = models.CharField(
         max_length=200, blank=True, help_text="Why no forecast could be made (e.g. a fit that is not finite)"
     )
-    figures_now = WrittenJSONField(default=dict, blank=True)
-    figures_new = WrittenJSONField(default=dict, blank=True)
+    # No operating figures are stored: the capacitor page and the API work them out on reading
+    # (`operating_pictures.with_operating_figures`) from the motor's circuit and `capacitance_now_uf`.
     # The fitted path in stress hours (none where set aside): the capacitor page redraws it and its band
     # against that capacitor's readings, whose stress hours it recomputes (trends.reading_stress_hours).
     trend_intercept = models.FloatField(null=True, blank=True)

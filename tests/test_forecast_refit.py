@@ -14,6 +14,7 @@ from django.utils import timezone
 from fleet.models import Assessment, Backtest, BandCalibration, FittedCapacitor, PartPrior, Reading
 from fleet.services.assessments import refit_fitted_capacitors, refresh_part_priors
 from fleet.services.backtest import default_cutoffs, run_backtest, start_backtest
+from fleet.services.operating_pictures import with_operating_figures
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_reading, quarterly_readings
 
 START = timezone.make_aware(dt.datetime(2023, 1, 10, 9, 0))
@@ -637,7 +638,8 @@ def test_a_new_capacitors_first_reading_far_below_tolerance_is_replace_now_witho
     assert row and "no trend" in row.group(0) and "beyond" not in row.group(0)
     # The operating point now is at the reading (it stood at the rating: "now" equal to "as new" on the capacitor
     # page while the motor page's chart put it at the reading), and the page says why there is no trend.
-    new, now = assessment.figures_new, assessment.figures_now
+    (figured,) = with_operating_figures([assessment])
+    new, now = figured.figures_new, figured.figures_now
     assert new and now and now["v_capacitor_v"] != pytest.approx(new["v_capacitor_v"], rel=1e-3)
     page = client.get(reverse("fitted_capacitor", args=[capacitor.id])).content.decode()
     assert "No trend could be fitted: 1 reading set aside" in page and "Last reading, at 25" in page

@@ -13,7 +13,7 @@ from django.utils import timezone
 
 from fleet.models import Assessment
 from fleet.services.assessments import refit_fitted_capacitors
-from fleet.services.operating_pictures import SWEEP_FRACTIONS, motor_pictures
+from fleet.services.operating_pictures import SWEEP_FRACTIONS, motor_pictures, with_operating_figures
 from tests.factories import make_fitted_capacitor, make_motor, make_part, quarterly_readings
 
 pytestmark = pytest.mark.django_db
@@ -31,11 +31,12 @@ def _trace(figure, name):
     return [t for t in figure["data"] if t.get("name") == name]
 
 
-def test_the_pictures_carry_the_stored_as_new_and_now_figures():
-    """[derived] the page's points are the refit's own operating figures: the stored magnitudes of
-    the main, auxiliary and line currents and the capacitor voltage, as new and now."""
+def test_the_pictures_carry_the_as_new_and_now_figures_the_capacitor_page_shows():
+    """[derived] the motor page's points are the operating figures the capacitor page and the API show
+    (`with_operating_figures`): the magnitudes of the main, auxiliary and line currents and the capacitor
+    voltage, as new and now."""
     fitted_capacitor = _assessed_fan()
-    assessment = fitted_capacitor.assessment
+    (assessment,) = with_operating_figures([fitted_capacitor.assessment])
     pictures = motor_pictures([fitted_capacitor])[fitted_capacitor.id]
     for state, stored in (("as new", assessment.figures_new), ("now", assessment.figures_now)):
         currents = {
@@ -125,7 +126,7 @@ def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, e
     quarterly_readings(run, when, [4.0, 3.95, 3.9, 3.85, 3.8])
     quarterly_readings(start, when, [60.0, 58.0, 56.0, 54.0, 52.0])
     refit_fitted_capacitors([run.id, start.id])
-    stored = Assessment.objects.get(fitted_capacitor=start, is_current=True)
+    (stored,) = with_operating_figures([Assessment.objects.get(fitted_capacitor=start, is_current=True)])
     assert stored.figures_new["i_main_a"] == pytest.approx(stored.figures_now["i_main_a"], rel=1e-12)
     assert stored.figures_new["starting_torque_nm"] != pytest.approx(stored.figures_now["starting_torque_nm"], rel=1e-3)
     client.force_login(engineer)
@@ -167,3 +168,38 @@ def test_the_sweeps_crossing_names_that_would_meet_go_on_rows_of_their_own():
     # the plot's width on a phone: on two) goes on the right, above the line, where the curve runs below it.
     current = level_names["most: full-load current<br>\u00d7 service factor"]
     assert (current["x"], current["xanchor"], current["yanchor"]) == (1, "right", "bottom")
+
+
+def test_the_figures_follow_the_motor_as_it_stands_not_as_it_stood_at_the_refit():
+    """A demo check: a start capacitor's stored figures kept the run capacitor its motor had when it was refitted,
+    after that run capacitor was replaced by a stop-gap of another rating. Worked out on reading, both capacitors of
+    the motor show the running point with the run capacitor fitted now. [derived] the running point of a
+    two-value motor does not depend on its start capacitor (out of circuit once running)."""
+    motor = make_motor(motor_type="two_value", load_type="constant")
+    run = make_fitted_capacitor(motor=motor)
+    start = make_fitted_capacitor(
+        motor=motor, role="start", part=make_part(rated_uf=60, dielectric="electrolytic", rated_voltage_v=250)
+    )
+    when = timezone.make_aware(dt.datetime(2024, 1, 8, 9))
+    quarterly_readings(run, when, [4.0, 3.95, 3.9, 3.85, 3.8])
+    quarterly_readings(start, when, [60.0, 58.0, 56.0, 54.0, 52.0])
+    refit_fitted_capacitors([run.id, start.id])
+    (before,) = with_operating_figures([Assessment.objects.get(fitted_capacitor=start, is_current=True)])
+
+    run.removed_on, run.removal_reason = dt.date(2025, 3, 1), "failed"
+    run.save()
+    stop_gap = make_fitted_capacitor(
+        motor=motor,
+        part=make_part(rated_uf=5.0),
+        fitted_on=dt.date(2025, 3, 1),
+        substitute_override=True,
+        override_reason="the design part was out of stock",
+    )
+    quarterly_readings(stop_gap, timezone.make_aware(dt.datetime(2025, 3, 8, 9)), [5.0, 4.98])
+    refit_fitted_capacitors([stop_gap.id])  # the start capacitor is not refitted: nothing new was read of it
+    after, fitted_now = with_operating_figures(
+        Assessment.objects.filter(fitted_capacitor__in=[start, stop_gap], is_current=True).order_by("id")
+    )
+    assert after.fitted_capacitor_id == start.id
+    assert after.figures_new["i_aux_a"] == pytest.approx(fitted_now.figures_new["i_aux_a"], rel=1e-9)
+    assert after.figures_new["i_aux_a"] != pytest.approx(before.figures_new["i_aux_a"], rel=1e-3)

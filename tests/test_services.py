@@ -11,6 +11,7 @@ from django.utils import timezone
 
 from fleet.models import Assessment, FittedCapacitor, PartPrior, Reading, RefitRun, SiteStock, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
+from fleet.services.operating_pictures import with_operating_figures
 from fleet.services.readings import NeedsConfirmation, record_reading, replace_capacitor
 from fleet.services.refits import stale_fitted_capacitor_ids, start_fleet_refit, sweep_stale
 from tests.factories import (
@@ -183,10 +184,12 @@ def test_a_capacitor_with_one_reading_gets_a_pooled_low_confidence_forecast():
     assert PartPrior.objects.filter(part=part).exists()
 
 
-def test_operating_point_figures_are_stored_for_motors_with_a_circuit():
+def test_operating_point_figures_are_worked_out_for_motors_with_a_circuit():
+    """[derived] A run capacitor that lost capacitance: less auxiliary current, more main current (the
+    capacitor's reactance grows), as the textbook phasor picture of a capacitor motor has it."""
     fitted_capacitors = ageing_fleet(count=6)
     refit_fitted_capacitors([i.id for i in fitted_capacitors])
-    assessment = Assessment.objects.filter(is_current=True).first()
+    (assessment,) = with_operating_figures([Assessment.objects.filter(is_current=True).first()])
     assert assessment.figures_new["i_main_a"] < assessment.figures_now["i_main_a"]
     assert assessment.figures_new["i_aux_a"] > assessment.figures_now["i_aux_a"]
 
@@ -256,8 +259,8 @@ def test_motor_without_a_circuit_is_judged_on_tolerance_alone():
     fitted_capacitor = make_fitted_capacitor(motor=motor)
     quarterly_readings(fitted_capacitor, START, [4.0, 3.99, 3.98])
     refit_fitted_capacitors([fitted_capacitor.id])
-    assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor)
-    assert assessment.limit_source == "tolerance" and assessment.figures_now == {}
+    (assessment,) = with_operating_figures([Assessment.objects.get(fitted_capacitor=fitted_capacitor)])
+    assert assessment.limit_source == "tolerance" and assessment.figures_now == {} == assessment.figures_new
 
 
 def test_limits_computed_per_design_equal_limits_computed_per_motor():
@@ -296,7 +299,7 @@ def test_limits_computed_per_design_equal_limits_computed_per_motor():
         assert stored.limit_fraction == pytest.approx(float(direct.governing_fraction))
         assert stored.limit_source != "tolerance"
         as_new = operating_figures(circuit, load, rated, 0.0, "permanent_split").as_rows()[0]
-        assert stored.figures_new == pytest.approx(as_new, rel=1e-9)
+        assert with_operating_figures([stored])[0].figures_new == pytest.approx(as_new, rel=1e-9)
 
 
 def test_work_orders_are_created_once_and_bundled_into_site_visits(planner):

@@ -1213,7 +1213,7 @@ def test_capacitors_to_replace_now_without_a_work_order_are_counted_with_the_but
         note = body[body.index('id="replace-now-unordered"') :].split("</div>")[0]
         assert "2 capacitors to replace now have no work order." in note, page
         assert 'name="days" value="90"><button class="primary" type="submit" name="action" value="plan">' in note
-        assert "1 capacitor to replace now has no work order because the planner cancelled its" in body, page
+        assert "1 capacitor to replace now has no work order because the planner cancelled its order:" in body, page
     client.force_login(technician)
     body = client.get(reverse("work_orders")).content.decode()
     note = body[body.index('id="replace-now-unordered"') :].split("</div>")[0]

@@ -458,21 +458,9 @@ class Assessed:
     verdict_code: np.ndarray
     newest_at: pd.Series
     set_aside: np.ndarray
-    figures_now: pd.DataFrame  # operating figures with the capacitor as now, a row each (nan: no circuit)
-    figures_new: pd.DataFrame  # and with it as new
-    with_circuit: np.ndarray  # the motor has an equivalent circuit, so the figures exist
     terms: np.ndarray  # (6, G) calibration terms of each capacitor's projection
     wear_days: np.ndarray  # (3, G) days to the dissipation-factor maximum (inf: none in sight)
     esr_readings: np.ndarray | None = None  # (G,) readings with ESR behind each dissipation-factor trend
-
-
-def _figures_frame(figures: OperatingFigures, index: np.ndarray, n: int) -> pd.DataFrame:
-    """Operating figures of the motors with a circuit (at `index`) as a frame of n rows, nan elsewhere."""
-    names = list(OperatingFigures.__dataclass_fields__)
-    values = np.full((n, len(names)), np.nan)
-    for column, name in enumerate(names):
-        values[index, column] = np.atleast_1d(getattr(figures, name)).astype(float)
-    return pd.DataFrame(values, columns=names)
 
 
 def _latest_capacitor_voltage(usable: pd.DataFrame, index: pd.Index) -> np.ndarray:
@@ -591,9 +579,6 @@ def assess(
     limit_used = np.isfinite(limit_fraction)
     notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
     limit_findings = np.full((len(ALL_LIMITS), n), "", dtype=object)
-    figures_now = figures_new = pd.DataFrame(
-        np.nan, index=range(n), columns=list(OperatingFigures.__dataclass_fields__)
-    )
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst, companions)
     in_time_order = _in_time_order(readings)
     latest = in_time_order[~in_time_order["fitted_capacitor_id"].duplicated(keep="last")]  # each one's newest
@@ -630,8 +615,6 @@ def assess(
         limit_used[1:, index] = findings.used
         notes[1:, index] = findings.note
         limit_findings[1:, index] = findings.finding
-        figures_now = _figures_frame(now_figures, index, n)
-        figures_new = _figures_frame(new_figures, index, n)
 
     finite = (
         np.isfinite(fit.intercept)
@@ -721,9 +704,6 @@ def assess(
         verdict_code=verdict.code,
         newest_at=newest_at,
         set_aside=set_aside,
-        figures_now=figures_now,
-        figures_new=figures_new,
-        with_circuit=with_circuit,
         terms=terms,
         wear_days=wear_days,
         esr_readings=esr_readings,
@@ -1025,8 +1005,8 @@ def fraction_of_day(now: dt.datetime) -> float:
 def _json_lines(frame: pd.DataFrame, exact: bool = False) -> np.ndarray:
     """Each row of the frame as a JSON object (text), nan as null.
 
-    A chunk's rows repeat (a design's figures as new, a limit beyond the horizon on every motor of
-    a design), so each distinct row is written once and spread back. Numbers keep ten decimal
+    A chunk's rows repeat (a limit beyond the horizon on every motor of a design, a family's
+    calibration terms), so each distinct row is written once and spread back. Numbers keep ten decimal
     places; `exact` (finite numbers only) keeps every digit of each, for numbers read back into a
     computation: the calibration terms per calendar hour squared are about 1e-11, which ten decimal
     places turned into 0 or 1e-10 and bent the page's drawn band away from its stated dates."""
@@ -1099,10 +1079,6 @@ def _limits_json(result: Assessed, today: dt.date, through_day: float) -> np.nda
     return text + "]"
 
 
-def _figures_json(figures: pd.DataFrame, with_circuit: np.ndarray) -> np.ndarray:
-    return np.where(with_circuit, _json_lines(figures.round(6)), "{}")
-
-
 def _flagged_json(result: Assessed, readings: pd.DataFrame) -> np.ndarray:
     """Per capacitor, the JSON list of the reading ids its fit flagged (few capacitors have any)."""
     lists = np.full(len(result.inst), "[]", dtype=object)
@@ -1167,8 +1143,6 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "read_again": np.asarray(judgement.read_again, bool),
             "limits": _limits_json(result, today, fraction),
             "set_aside": result.set_aside.astype(str),
-            "figures_now": _figures_json(result.figures_now, result.with_circuit),
-            "figures_new": _figures_json(result.figures_new, result.with_circuit),
             "trend_intercept": unless_aside(fit.intercept),
             "trend_slope_per_hour": unless_aside(fit.slope_per_hour),
             "trend_var_intercept": unless_aside(fit.covariance[:, 0, 0]),

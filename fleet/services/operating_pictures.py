@@ -1,5 +1,6 @@
-"""The motor page's operating-point pictures: phasors as new and now, and the figures against
-capacitance, computed by the core from the motor's stored circuit and the stored assessments.
+"""The motor page's operating-point pictures (phasors as new and now, and the figures against capacitance) and
+the capacitor page's and the API's operating figures, computed by the core from the motor's stored circuit and
+the stored assessments.
 
 One motor's capacitors in one core call (a few milliseconds): no trend is fitted on a page load,
 the "now" capacitance is the current assessment's.
@@ -10,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from fleet.charts import capacitance_sweep_figure, phasor_figure
-from fleet.engineering.drift import ROLE_RUN, capacitor_sweep, limit_levels
+from fleet.engineering.drift import ROLE_RUN, capacitor_sweep, limit_levels, operating_figures
 
 from .assessments import motor_circuits
 from .selectors import fitted_capacitors_frame
@@ -100,3 +101,37 @@ def motor_pictures(capacitors) -> dict[int, dict]:
             ),
         }
     return pictures
+
+
+def with_operating_figures(assessments) -> list:
+    """The assessments as a list, each with `figures_new` and `figures_now`: its motor's operating figures
+    (`drift.OperatingFigures.as_rows`) with the capacitor as new (its rating) and as now (the assessment's
+    capacitance now; at its rating where there is none), {} where the motor has no equivalent circuit.
+
+    Worked out on reading, for all of them in one core call (the capacitor page's one assessment, an API
+    page's hundred), not stored: every refit wrote two dozen figures a capacitor that a page recomputes in
+    milliseconds. Two queries (the capacitors with their motors' circuits, their companions' ratings)."""
+    assessments = list(assessments)
+    for assessment in assessments:
+        assessment.figures_new, assessment.figures_now = {}, {}
+    if not assessments:
+        return assessments
+    inst = fitted_capacitors_frame({a.fitted_capacitor_id for a in assessments})
+    with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
+    if not with_circuit.any():
+        return assessments
+    sub = inst[with_circuit]
+    ids = sub["fitted_capacitor_id"].to_numpy(np.int64)
+    now_uf = {a.fitted_capacitor_id: a.capacitance_now_uf for a in assessments}
+    scale = np.array([now_uf[i] for i in ids.tolist()], float) / sub["rated_uf"].to_numpy(float)
+    scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)  # none known: the capacitor as rated
+    is_run = sub["role"].to_numpy() == ROLE_RUN
+    new = operating_figures(circuit, load, run_uf, start_uf, kind).as_rows()
+    now = operating_figures(
+        circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
+    ).as_rows()
+    figures = dict(zip(ids.tolist(), zip(new, now, strict=True), strict=True))
+    for assessment in assessments:
+        if assessment.fitted_capacitor_id in figures:
+            assessment.figures_new, assessment.figures_now = figures[assessment.fitted_capacitor_id]
+    return assessments

@@ -593,7 +593,7 @@ def counted_where(site: Site | None, sites, user) -> str:
 
 
 # An assessment's per-limit details and operating figures: the capacitor page shows them, lists do not.
-LIST_DEFERRED = ("limits", "figures_now", "figures_new", "flagged_reading_ids")
+LIST_DEFERRED = ("limits", "flagged_reading_ids")
 # A list's capacitors with their motors, sites and parts, read for the rows of a page only (one query):
 # joined into the list's own query, they were joined for every row the sort had to see.
 LISTED_CAPACITORS = Prefetch(

@@ -20,7 +20,7 @@ from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import needs_permission, scope_to_user
 from fleet.services import pages
 from fleet.services.lifedata import DAYS_PER_YEAR, tolerance_life
-from fleet.services.operating_pictures import motor_pictures
+from fleet.services.operating_pictures import motor_pictures, with_operating_figures
 from fleet.services.selectors import successor_of
 
 
@@ -156,6 +156,8 @@ def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:
 def fitted_capacitor_detail(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
     assessment = fitted_capacitor.assessments.filter(is_current=True).first()
+    if assessment is not None:
+        with_operating_figures([assessment])  # the figures as new and now, worked out for the page
     successor = successor_of(fitted_capacitor)
     context = {
         "successor": successor,

@@ -106,11 +106,11 @@ WHERE c.removed_on IS NULL;
 
 INSERT INTO fleet_assessment (is_current, model_version, fitted_through, readings_used, readings_flagged,
     flagged_reading_ids, trend_model, slope_pct_per_1000h, slope_sd_pct_per_1000h, low_confidence, capacitance_now_uf,
-    latest_verdict, limit_fraction, limit_source, p10_on, p50_on, p90_on, risk, replace_by, figures_now, figures_new,
+    latest_verdict, limit_fraction, limit_source, p10_on, p50_on, p90_on, risk, replace_by,
     created_at, fitted_capacitor_id, limits, max_reading_id, reason, set_aside)
 SELECT v.is_current, 'bench', now() - interval '10 days', 4, 0, '[]', 'linear', -0.1, 0.02, false, 9.6,
     'within tolerance', 0.9, 'tolerance', current_date + v.days, current_date + v.days + 200,
-    current_date + v.days + 400, v.risk, current_date + v.days, '{}', '{}', v.created_at, v.id, '[]',
+    current_date + v.days + 400, v.risk, current_date + v.days, v.created_at, v.id, '[]',
     0, 'bench: ' || v.risk, ''
 FROM (
     SELECT c.id, w.is_current, w.created_at,
