@@ -114,9 +114,8 @@ def test_the_figures_are_valid_plotly():
         go.Figure(figure)  # raises on any property Plotly does not know
 
 
-def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, engineer):
-    """[derived] a start capacitor is out of circuit when running: its page says so in one line and
-    lists the standstill figures (which do change) instead of running figures equal as new and now."""
+def _assessed_two_value_motor():
+    """A two-value motor with its run and start capacitors read for a year and refitted."""
     motor = make_motor(motor_type="two_value", load_type="constant")
     run = make_fitted_capacitor(motor=motor)
     start = make_fitted_capacitor(
@@ -126,6 +125,13 @@ def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, e
     quarterly_readings(run, when, [4.0, 3.95, 3.9, 3.85, 3.8])
     quarterly_readings(start, when, [60.0, 58.0, 56.0, 54.0, 52.0])
     refit_fitted_capacitors([run.id, start.id])
+    return motor, run, start
+
+
+def test_the_capacitor_page_shows_a_start_capacitor_at_standstill_only(client, engineer):
+    """[derived] a start capacitor is out of circuit when running: its page says so in one line and
+    lists the standstill figures (which do change) instead of running figures equal as new and now."""
+    motor, run, start = _assessed_two_value_motor()
     (stored,) = with_operating_figures([Assessment.objects.get(fitted_capacitor=start, is_current=True)])
     assert stored.figures_new["i_main_a"] == pytest.approx(stored.figures_now["i_main_a"], rel=1e-12)
     assert stored.figures_new["starting_torque_nm"] != pytest.approx(stored.figures_now["starting_torque_nm"], rel=1e-3)
@@ -175,15 +181,7 @@ def test_the_figures_follow_the_motor_as_it_stands_not_as_it_stood_at_the_refit(
     after that run capacitor was replaced by a stop-gap of another rating. Worked out on reading, both capacitors of
     the motor show the running point with the run capacitor fitted now. [derived] the running point of a
     two-value motor does not depend on its start capacitor (out of circuit once running)."""
-    motor = make_motor(motor_type="two_value", load_type="constant")
-    run = make_fitted_capacitor(motor=motor)
-    start = make_fitted_capacitor(
-        motor=motor, role="start", part=make_part(rated_uf=60, dielectric="electrolytic", rated_voltage_v=250)
-    )
-    when = timezone.make_aware(dt.datetime(2024, 1, 8, 9))
-    quarterly_readings(run, when, [4.0, 3.95, 3.9, 3.85, 3.8])
-    quarterly_readings(start, when, [60.0, 58.0, 56.0, 54.0, 52.0])
-    refit_fitted_capacitors([run.id, start.id])
+    motor, run, start = _assessed_two_value_motor()
     (before,) = with_operating_figures([Assessment.objects.get(fitted_capacitor=start, is_current=True)])
 
     run.removed_on, run.removal_reason = dt.date(2025, 3, 1), "failed"
