@@ -422,6 +422,46 @@ def test_a_stop_gap_the_motor_model_says_overloads_the_motor_is_replace_now_and_
     assert judged[designed.id].limit_source == "tolerance"
 
 
+def test_a_stop_gap_far_over_the_design_value_overloads_the_motor_and_is_replace_now():
+    """A fresh-eyes walk: a 20 uF run capacitor fitted against the advice in an 8 uF position was "sound", replace by
+    in four years, while its own capacitor page showed the motor drawing 3.13 A against a 1.9 A full-load rating
+    and 259 W of copper loss. No limit of a falling capacitance sees a part too large; a part fitted against the
+    advice that makes the motor model draw more than the full-load current with the service factor is now "replace
+    now", saying so; the same part fitted as the design stays judged on its wear (a design finding is the
+    engineer's). [trade] a run capacitor well over the design value overloads the auxiliary winding; running
+    current over full-load current times the service factor is an overload (common practice of the trade, no single
+    source)."""
+    from fleet.models import Assessment
+    from fleet.services.assessments import refit_fitted_capacitors
+    from fleet.services.operating_pictures import with_operating_figures
+
+    design = make_part(code="RUN-4-450", rated_uf=4.0)  # the example fan's design
+    large = make_part(code="RUN-12-450", rated_uf=12.0)
+    worn = make_fitted_capacitor(part=design, fitted_on=dt.date(2022, 1, 1))
+    stop_gap = replace_capacitor(
+        fitted_capacitor=worn,
+        part=large,
+        removed_on=dt.date(2025, 1, 2),
+        reason="failed",
+        substitute_override=True,
+        override_reason="no 4 uF on site",
+    )
+    designed = make_fitted_capacitor(part=large)
+    start = timezone.make_aware(dt.datetime(2025, 1, 8, 9))
+    for capacitor in (stop_gap, designed):
+        quarterly_readings(capacitor, start, [12.0, 11.99, 11.98, 11.97])
+    refit_fitted_capacitors([stop_gap.id, designed.id])
+    judged = {a.fitted_capacitor_id: a for a in with_operating_figures(Assessment.objects.filter(is_current=True))}
+    over = judged[stop_gap.id]
+    full_load_a = stop_gap.motor.full_load_current_a
+    assert over.figures_now["i_line_a"] > 1.15 * full_load_a  # the page's own figure says the overload
+    assert over.risk == "replace now", over.reason
+    assert over.reason.startswith("fitted against the advice, it overloads the motor: the motor model draws ")
+    assert f"{1.15 * full_load_a:.2f} A (the nameplate's full-load current with the service factor)" in over.reason
+    assert 7 <= (over.replace_by - over.created_at.date()).days <= 14  # as a reading below its limit: within days
+    assert judged[designed.id].risk != "replace now"
+
+
 def test_a_stop_gap_fitted_leaves_the_motor_model_of_its_design_as_it_was():
     """A fresh-eyes walk: after a 4 uF stop-gap went into a 30 uF position, the design part's own figures moved
     (7.05 A and 2850 rpm before, 6.70 A and 2892 rpm after) and the stop-gap showed the nameplate's 2850 rpm: the

@@ -207,6 +207,20 @@ def limit_levels(
     )
 
 
+def overloaded_by_the_part(line_current_a, full_load_current_a, stop_gap, limits: DriftLimits | None = None):
+    """Per motor: the capacitor was fitted against the substitute advice (`stop_gap`) and, with it, the motor
+    running now draws more line current than `main_current_ratio` times its nameplate full-load current. A run
+    capacitor far over the design value drives the auxiliary winding past its rating; every operating-point limit
+    of a capacitance that falls lies below the rating, so none of them sees it. Only parts fitted against the
+    advice are judged so: a design part at its rating draws the nameplate's current by construction of the
+    circuit (`nameplate.py`). [trade] a running current over full-load current times the service factor is an
+    overload (common practice of the trade, no single source; the factor is the main-current limit's own)."""
+    limits = limits or DriftLimits()
+    with np.errstate(invalid="ignore"):
+        over = np.asarray(line_current_a, float) > limits.main_current_ratio * np.asarray(full_load_current_a, float)
+    return over & np.asarray(stop_gap, bool)
+
+
 def limit_breaches(figures: OperatingFigures, capacitor_voltage_v, levels: LimitLevels, role):
     """Boolean breach per limit, stacked in LIMIT_NAMES order; the arguments broadcast together."""
     is_run = np.asarray(role) == ROLE_RUN

@@ -134,6 +134,7 @@ def _holidays(days_off) -> np.ndarray:
 
 ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
 EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
+EVIDENCE_OVERLOAD = 6  # a part fitted against the advice overloads the motor now (`drift.overloaded_by_the_part`)
 
 
 @dataclass(frozen=True)
@@ -225,7 +226,8 @@ def judge(
     aside. limit_days (3, L, G): days from today to the P10/P50/P90 crossing of
     each limit (inf: never within the horizon; <= 0: already). fraction_now: the
     fitted value now; latest_fraction_25c: the newest reading referred to 25 C.
-    evidence (G ints, EVIDENCE_*) and evidence_text: what a reading showed.
+    evidence (G ints, EVIDENCE_*) and evidence_text: what a reading showed, or a part fitted against the advice
+    that overloads the motor (EVIDENCE_OVERLOAD; a reading below a limit is said instead where there is one).
     wear_days (3, G) and wear_words: a second wear sign's crossing (the
     dissipation factor's trend); when it comes before the capacitance limit it
     sets the risk, the date and the reason, and `governing` is L.
@@ -262,9 +264,12 @@ def judge(
     limit = np.where(governing >= 0, fractions[safe, column], np.nan)
     evidence = np.asarray(evidence, int).copy()
     below = reads_below(latest_fraction_25c, limit)
-    evidence = np.where((evidence == EVIDENCE_NONE) & below, EVIDENCE_BELOW, evidence)
+    # A part's overload of the motor (`drift.overloaded_by_the_part`) gives way to its capacitance below a limit:
+    # a part too small is said as the limit it breaches, the more telling reason.
+    weaker = np.isin(evidence, [EVIDENCE_NONE, EVIDENCE_OVERLOAD])
+    evidence = np.where(weaker & below, EVIDENCE_BELOW, evidence)
     path_past = (days[1] <= 0) | (np.asarray(fraction_now, float) < limit)
-    evidence = np.where((evidence == EVIDENCE_NONE) & path_past, EVIDENCE_PATH, evidence)
+    evidence = np.where(np.isin(evidence, [EVIDENCE_NONE, EVIDENCE_OVERLOAD]) & path_past, EVIDENCE_PATH, evidence)
     wear_first = np.zeros(n, bool)
     if wear_days is not None:
         wear_days = np.asarray(wear_days, float)
@@ -355,7 +360,7 @@ def judge(
     )
     reason = np.select(
         [
-            np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF]),
+            np.isin(evidence, [EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_DF, EVIDENCE_OVERLOAD]),
             by_the_part & np.isin(evidence, [EVIDENCE_BELOW, EVIDENCE_PATH]),
             evidence == EVIDENCE_BELOW,
             evidence == EVIDENCE_PATH,

@@ -40,12 +40,14 @@ from fleet.engineering.drift import (
     LIMIT_NAMES,
     ROLE_RUN,
     ROLE_START,
+    DriftLimits,
     OperatingFigures,
     capacitance_limits,
     has_run_capacitor,
     judge_limits,
     limit_levels,
     operating_figures,
+    overloaded_by_the_part,
 )
 from fleet.engineering.motor import (
     MotorCircuit,
@@ -60,6 +62,7 @@ from fleet.engineering.planning import (
     EVIDENCE_DF,
     EVIDENCE_NONE,
     EVIDENCE_OPEN_OR_SHORT,
+    EVIDENCE_OVERLOAD,
     RISK_REPLACE_NOW,
     TOLERANCE_LIMIT,
     Judgement,
@@ -527,6 +530,23 @@ def _evidence(latest: pd.DataFrame, verdict_code, inst: pd.DataFrame):
     return evidence, text
 
 
+def _with_overload(evidence, evidence_text, line_current_a, inst: pd.DataFrame):
+    """The evidence with a part fitted against the advice that overloads the motor now
+    (`drift.overloaded_by_the_part`) where the newest reading shows nothing stronger, with its words."""
+    full_load_a = inst["full_load_current_a"].to_numpy(float)
+    over = (evidence == EVIDENCE_NONE) & overloaded_by_the_part(line_current_a, full_load_a, inst["stop_gap"])
+    if not over.any():
+        return evidence, evidence_text
+    words = (
+        "fitted against the advice, it overloads the motor: the motor model draws "
+        + _format_each(line_current_a, "{:.2f}", over)
+        + " A with it, over "
+        + _format_each(DriftLimits().main_current_ratio * full_load_a, "{:.2f}", over)
+        + " A (the nameplate's full-load current with the service factor); fit the design part"
+    )
+    return np.where(over, EVIDENCE_OVERLOAD, evidence), np.where(over, words, evidence_text)
+
+
 def _dissipation_days(inst: pd.DataFrame, usable: pd.DataFrame, now: dt.datetime) -> np.ndarray:
     """Days from `now` to each capacitor's dissipation-factor maximum on its ESR trend (3, G)."""
     measured = usable[usable["esr_ohm"].notna()]
@@ -578,6 +598,7 @@ def assess(
     limit_fraction[0] = 1.0 - inst["tolerance_minus_pct"].to_numpy(float) / 100.0
     limit_used = np.isfinite(limit_fraction)
     notes = np.full((len(ALL_LIMITS), n), "", dtype=object)
+    line_current_now = np.full(n, np.nan)  # the running line current with the capacitor as now (a circuit only)
     limit_findings = np.full((len(ALL_LIMITS), n), "", dtype=object)
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst, companions)
     in_time_order = _in_time_order(readings)
@@ -612,6 +633,7 @@ def assess(
             stop_gap=inst["stop_gap"].to_numpy(bool)[index],
         )
         limit_fraction[1:, index] = drift
+        line_current_now[index] = now_figures.i_line_a
         limit_used[1:, index] = findings.used
         notes[1:, index] = findings.note
         limit_findings[1:, index] = findings.finding
@@ -658,6 +680,7 @@ def assess(
         inst["tolerance_plus_pct"].to_numpy(float),
     )
     evidence, evidence_text = _evidence(latest, verdict.code, inst)
+    evidence, evidence_text = _with_overload(evidence, evidence_text, line_current_now, inst)
     wear_days = _dissipation_days(inst, readings[~readings["superseded"]], now)
     with_esr = inst.index.get_indexer(
         readings.loc[~readings["superseded"] & readings["esr_ohm"].notna(), "fitted_capacitor_id"]
