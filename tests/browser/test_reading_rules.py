@@ -296,15 +296,17 @@ def test_the_hint_says_a_meter_showing_no_capacitance_is_recorded_as_an_open_cap
     assert Reading.objects.filter(capacitance_uf=0, outlier_confirmed=True).count() == 1
 
 
-def test_in_circuit_the_meter_box_is_out_of_the_way_and_a_value_typed_in_it_is_said_set_aside(
+def test_in_circuit_the_meter_box_is_out_of_the_way_and_a_value_typed_in_it_is_refused_not_dropped(
     phone,
     motor_with_history,  # noqa: F811
 ):
     """A walk: with "In circuit" chosen the capacitance box stayed as it was, under its meter-only words ("From the
     capacitance meter, capacitor isolated and discharged"), and a value typed in it was refused only after Save.
-    Empty, it is hidden and the circuit fields say the capacitance is worked out; typed, it is greyed out and not
-    sent, with what becomes of the value; Meter again brings it back as typed. [trade] C = 10^6 I / (2 pi f V):
-    0.4976 A at 400 V, 50 Hz is 3.96 µF."""
+    Empty, it is hidden and the circuit fields say the capacitance is worked out. A second walk: a value typed in it
+    was greyed out, not sent, and lost on saving, while the README said such a value is refused. Typed, it now
+    stays in view and is sent, the hint says to clear it or choose Meter, and a save with both is refused at the
+    field with every value kept; cleared, the in-circuit reading saves. [trade] C = 10^6 I / (2 pi f V): 0.4976 A
+    at 400 V, 50 Hz is 3.96 µF."""
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
     phone.check("input[value=in_circuit]")
@@ -313,17 +315,24 @@ def test_in_circuit_the_meter_box_is_out_of_the_way_and_a_value_typed_in_it_is_s
     phone.check("input[value=meter]")
     phone.fill("#id_capacitance_uf", "3.95")
     phone.check("input[value=in_circuit]")
-    assert phone.is_disabled("#id_capacitance_uf") and phone.is_hidden("#wrap_capacitance_uf .helptext")
+    assert phone.is_enabled("#id_capacitance_uf") and phone.is_hidden("#wrap_capacitance_uf .helptext")
     said = phone.inner_text("#meter-value-set-aside")
-    assert "the 3.95 µF typed here from a meter will not be saved. Choose Meter to save it instead." in said
-    assert "Capacitance" not in phone.inner_text("#computed")  # no hint on a value that is not sent
-    phone.shot("11-in-circuit-meter-value-set-aside")
+    assert "clear the 3.95 µF typed here from a meter, or choose Meter to save it instead." in said
+    phone.shot("11-in-circuit-meter-value-to-clear")
     phone.check("input[value=meter]")
-    assert phone.is_enabled("#id_capacitance_uf") and phone.input_value("#id_capacitance_uf") == "3.95"
+    assert phone.input_value("#id_capacitance_uf") == "3.95"
     assert phone.is_hidden("#meter-value-set-aside") and phone.is_visible("#wrap_capacitance_uf .helptext")
     phone.check("input[value=in_circuit]")
     phone.fill("#id_capacitor_current_a", "0.4976")
     phone.fill("#id_capacitor_voltage_v", "400")
+    readings = Reading.objects.count()
+    phone.click("#save")
+    phone.wait_for_selector("#wrap_capacitance_uf .errorlist")
+    assert "3.95 µF from the meter would not be saved: clear it" in phone.inner_text("#wrap_capacitance_uf .errorlist")
+    assert Reading.objects.count() == readings  # nothing saved half-way
+    assert phone.input_value("#id_capacitance_uf") == "3.95"  # every value kept in the form
+    assert phone.input_value("#id_capacitor_current_a") == "0.4976"
+    phone.fill("#id_capacitance_uf", "")
     phone.click("#save")
     phone.wait_for_url("**/motors/**")
     saved = Reading.objects.order_by("-id").first()
