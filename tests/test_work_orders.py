@@ -1002,12 +1002,33 @@ def test_the_planner_orders_a_stop_gap_swapped_on_its_sites_next_visit(client, p
     again = client.post(swap_url, follow=True).content.decode()
     assert WorkOrder.objects.filter(fitted_capacitor=stop_gap).count() == 1
     assert "A replacement order was open already" in again
+    assert f'<tr id="stop-gap-{stop_gap.id}">' in again and "ordered, visit" in again
     sheet = client.get(reverse("visit_sheet", args=[site.code, visit_day.isoformat()])).content.decode()
     row = sheet[sheet.index(stop_gap.motor.asset_tag) :].split("</tr>")[0]
     assert "Bring RUN-8-450 (the design part)" in re.sub(r"<[^>]+>", "", row) and 'class="plan-now"' not in row
     # A plan run leaves it be: the stop-gap's wear does not ask for it.
     plan_work_orders(user=planner)
     assert WorkOrder.objects.get(pk=order.pk).due_on == visit_day
+    # Back at the stop-gap's own row, which says it is ordered (a phone did not see the message at the top).
+    assert client.post(swap_url)["Location"].endswith(f"#stop-gap-{stop_gap.id}")
+
+
+def test_a_swap_skips_a_visit_on_a_day_made_a_day_off_since(planner):
+    """A walk: "Order the swap" put the order on the site's next visit, on a day the planner had made a shutdown
+    since (its sheet flagged it); it moved off only at the next plan. The swap goes on the next open visit on a day
+    that is not a day off. [trade] no work is sent to a site on its shutdown (common practice, no single source)."""
+    from fleet.models import SiteDayOff
+    from fleet.services.workorders import order_swap
+
+    site = make_site(code="SWD")
+    stop_gap = _stop_gap(site)
+    stored_assessment(stop_gap, "sound", None)
+    shut, later = (timezone.localdate() + dt.timedelta(days=days) for days in (4, 8))
+    _orders(site, make_part(code="START-88-250"), shut, 1)
+    _orders(site, make_part(code="START-89-250"), later, 1)
+    SiteDayOff.objects.create(site=site, day=shut, name="shutdown")
+    swap = order_swap(fitted_capacitor_id=stop_gap.id, user=planner)
+    assert swap.order.due_on == later
 
 
 def test_a_swap_without_an_open_visit_goes_a_weeks_notice_ahead_on_a_working_day_and_bad_asks_are_refused(

@@ -287,7 +287,7 @@ class SwapOrder:
 
 def order_swap(*, fitted_capacitor_id: int, user=None, today: dt.date | None = None) -> SwapOrder:
     """Plan the replacement of a stop-gap in service (a capacitor fitted against the advice) with its design part:
-    a replacement order on its site's next open visit from today, or, with none, on the first working day
+    a replacement order on its site's next open visit from today not on one of its days off, or, with none, on the first working day
     `notice_days` ahead that is not one of the site's days off (spares and a trip need the notice). Its open
     replacement order, where it has one already, is the swap (sent twice: one order). Only at a site `user` works
     at. Bad input is a ValidationError on `capacitor`. [trade] a substitute fitted against the advice is a
@@ -313,14 +313,18 @@ def order_swap(*, fitted_capacitor_id: int, user=None, today: dt.date | None = N
         if existing is not None:
             return SwapOrder(existing, False, stop_gap, design)
         site_id = stop_gap.motor.site_id
-        day = (
+        held = days_off_by_site([site_id], today).get(site_id, {})
+        # The next open visit on a working day: one on a day made a day off since waits for the planner's move
+        # (a walk saw a swap ordered onto a shutdown day the visit's own sheet flagged).
+        visit_days = (
             WorkOrder.objects.filter(site_id=site_id, state__in=OPEN, due_on__gte=today)
+            .exclude(due_on__in=list(held))
             .order_by("due_on")
             .values_list("due_on", flat=True)
-            .first()
+            .distinct()
         )
+        day = next(iter(visit_days[:1]), None)
         if day is None:
-            held = days_off_by_site([site_id], today).get(site_id, {})
             ahead = working_visit_days([PlanningSettings().notice_days], today, days_off=sorted(held))
             day = today + dt.timedelta(days=int(ahead[0]))
         reason = SWAP_REASON.format(part=stop_gap.part.code, day=f"{stop_gap.fitted_on:%Y-%m-%d}", design=design.code)

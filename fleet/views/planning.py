@@ -417,7 +417,9 @@ def stop_gap_swap(request, fitted_capacitor_id):
             f"{order.due_on:%a %Y-%m-%d}",
         ),
     )
-    return redirect(reverse("stand_in_parts") + "#against-advice")
+    # Back at the stop-gap's own row, which now says "ordered, visit ...": on a phone the message at the top of
+    # the page is out of view (a walk saw nothing happen).
+    return redirect(reverse("stand_in_parts") + f"#stop-gap-{stop_gap.id}")
 
 
 @needs_permission("fleet.view_assessment")
