@@ -214,11 +214,16 @@ VOLTAGE_CONFIRM_WORDS = (
 )
 
 
+TYPED_DIGITS = 9  # a value with this many significant digits or fewer is written back as typed (ours)
+
+
 def plain_number(value) -> str:
-    """A number as the site writes a typed value back: up to six significant digits, no exponent (0.00003, not
-    3e-05; 29958.6, not 29958.577523180298) from 1e-12 to 1e21, outside which the browser's own numbers take one
-    (1e+300, not its 301 digits; 1e-320, not its 320). The live hint's `plain` does the same; an integer too
-    large for a float (an API's 401 digits) is written the same way, not raised on."""
+    """A number as the site writes a typed value back: as typed where its shortest form has up to nine significant
+    digits (99999999, not 100000000: a walk was told of a value it had not typed), else six significant digits
+    (29958.6, not the 29958.577523180298 a current and a voltage give); no exponent (0.00003, not 3e-05) from 1e-12
+    to 1e21, outside which the browser's own numbers take one (1e+300, not its 301 digits; 1e-320, not its 320).
+    The live hint's `plain` does the same; an integer too large for a float (an API's 401 digits) is written the
+    same way, not raised on."""
     try:
         value = float(value)
     except OverflowError:
@@ -227,6 +232,9 @@ def plain_number(value) -> str:
         return str(value)
     if abs(value) >= 1e21 or 0 < abs(value) < 1e-12:  # 1e-320, not its 320 digits
         return f"{value:.6g}"
+    shortest = np.format_float_positional(value, unique=True, trim="-")
+    if len(shortest.lstrip("-").replace(".", "").lstrip("0")) <= TYPED_DIGITS:
+        return shortest
     return np.format_float_positional(value, precision=6, unique=False, fractional=False, trim="-")
 
 

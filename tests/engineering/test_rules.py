@@ -5,8 +5,9 @@ beside it: [trade] common practice of the trade, [mem] from memory (unverified).
 """
 
 import numpy as np
+import pytest
 
-from fleet.engineering.rules import MSG_WITH_UNIT, RULES, ReadingRules, check_readings, parse_numbers
+from fleet.engineering.rules import MSG_WITH_UNIT, RULES, ReadingRules, check_readings, parse_numbers, plain_number
 
 NOW = np.datetime64("2026-06-01T12:00", "s")
 FAN = dict(
@@ -447,3 +448,20 @@ def test_a_reading_whose_time_is_refused_is_not_asked_about_its_trend_at_that_ti
     asked = result.confirm.get("capacitance_uf", ["", ""])
     assert "far from this capacitor's trend" not in asked[0]
     assert asked[1].startswith("29.9 µF is far from this capacitor's trend (20.00 µF at this reading's time)")
+
+
+@pytest.mark.parametrize(
+    ("typed", "said"),
+    [("99999999", "99999999"), ("123456.789", "123456.789"), ("123456.7891", "123457"), ("4.0", "4")],
+)
+def test_a_value_is_quoted_as_typed_up_to_nine_significant_digits(typed, said):
+    """A walk typed 99999999 µF and was told "100000000 µF is over three times the rated 8 µF": a number it had not
+    typed. Up to nine significant digits a value is written back as typed (its shortest form); a computed one of
+    more is cut to six (29958.6), as before. Ours."""
+    result = check({"capacitance_uf": [typed]})
+    quoted = next(iter(result.errors.get("capacitance_uf", []) + result.confirm.get("capacitance_uf", [])), "")
+    if typed == "4.0":  # within tolerance of the example: nothing said, so the writer itself is checked
+        assert plain_number(float(typed)) == said
+    else:
+        assert quoted.startswith(f"{said} µF"), quoted
+    assert plain_number(29958.577523180298) == "29958.6"
