@@ -1111,6 +1111,28 @@ def _friday_visit(site, replace_by, count=2, state="planned"):
     return capacitors
 
 
+def test_a_moved_visit_keeps_the_orders_done_in_it_on_its_sheet_and_in_the_list(client, planner):
+    """A walk: a visit with two orders done already was moved (twice); neither the new day's sheet nor the list
+    showed them any more ("2 done already" gone, "Done or cancelled in this visit" empty), and the old day's
+    address led to the new one. Its closed orders move with it, each remembering the plan's day. Ours."""
+    today = timezone.localdate()
+    first = today + dt.timedelta(days=14 + (3 - today.weekday()) % 7)  # a Thursday
+    second, third = first - dt.timedelta(days=1), first - dt.timedelta(days=2)
+    site = make_site(code="MVD")
+    done, still = _friday_visit(site, first)
+    WorkOrder.objects.filter(fitted_capacitor=done).update(state="done", closed_at=timezone.now())
+    move_visit(site_id=site.id, due_on=first, to_day=second, user=planner)
+    move_visit(site_id=site.id, due_on=second, to_day=third, user=planner)
+    moved = WorkOrder.objects.get(fitted_capacitor=done)
+    assert (moved.state, moved.due_on, moved.moved_from) == ("done", third, first)
+    (visit,) = [v for v in open_visits_page(1, user=planner).object_list if v["site"].code == "MVD"]
+    assert (visit["day"], visit["state"]) == (third, "planned, not issued yet; 1 done already")
+    client.force_login(planner)
+    sheet = client.get(reverse("visit_sheet", args=[site.code, third.isoformat()])).content.decode()
+    closed_part = sheet[sheet.index("Done or cancelled in this visit") :]
+    assert done.motor.asset_tag in closed_part and still.motor.asset_tag not in closed_part
+
+
 def test_a_move_past_an_orders_replace_by_date_is_warned_of_before_and_after(client, planner):
     """A walk: a visit moved a day past its orders' replace-by date said only "visit moved from", and neither the
     sheet nor the list showed a replace-by date. Both now show each order's date, marked where the visit is after
@@ -1319,3 +1341,39 @@ def test_each_folded_visit_says_its_state_and_whether_an_order_is_past_its_date(
     assert len(summaries) == 3
     assert '<span class="visit-state">issued; 1 done already</span>' in summaries[1]
     assert "past" not in summaries[0] and "1 past its replace-by date</b>" in summaries[2]
+
+
+def test_every_visit_on_the_soonest_day_is_open_as_the_page_says(client, planner):
+    """A walk: three sites had visits on the soonest day and only the first was unfolded, while the page said "the
+    soonest visit ... open". Every visit of the soonest day is open, later ones folded. Ours."""
+    soonest = timezone.localdate() + dt.timedelta(days=10)
+    for code in ("SDA", "SDB"):
+        _friday_visit(make_site(code=code), soonest, count=1)
+    _friday_visit(make_site(code="SDC"), soonest + dt.timedelta(days=3), count=1)
+    client.force_login(planner)
+    listed = client.get(reverse("work_orders")).content.decode()
+    is_open = {
+        code: bool(mark)
+        for mark, code in re.findall(r'<details class="card visit"( open)?>\s*<summary>.*?(SD[ABC])', listed, re.S)
+    }
+    assert is_open == {"SDA": True, "SDB": True, "SDC": False}, is_open
+    assert "The soonest day's visits, and any due today or earlier, are open." in listed
+
+
+def test_a_stop_gaps_order_names_the_design_part_on_its_cancel_page_and_in_the_cancelled_list(client, planner):
+    """A walk: a stop-gap's swap order said "Bring RUN-30U-450 (the design part)" on its visit sheet, while its
+    cancel page and the list of cancelled orders named only the stop-gap's own part. Both name the design part to
+    bring, as the sheet does. Ours."""
+    from fleet.services.workorders import order_swap
+
+    site = make_site(code="SGC")
+    stop_gap = _stop_gap(site)
+    stored_assessment(stop_gap, "sound", None)
+    order = order_swap(fitted_capacitor_id=stop_gap.id, user=planner).order
+    client.force_login(planner)
+    page = re.sub(r"<[^>]+>", "", client.get(reverse("work_order_cancel", args=[order.id])).content.decode())
+    assert "bring RUN-8-450 (the design part) for the stop-gap RUN-6-450" in page
+    client.post(reverse("work_order_cancel", args=[order.id]), {"reason": "motor to be scrapped"})
+    listed = client.get(reverse("work_orders")).content.decode()
+    cancelled = re.sub(r"<[^>]+>", "", listed[listed.index('id="cancelled"') :])
+    assert "Replace run capacitor: RUN-8-450 (the design part) for the stop-gap RUN-6-450" in cancelled

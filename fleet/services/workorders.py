@@ -378,7 +378,8 @@ def move_visit(
     *, site_id: int, due_on: dt.date, to_day: dt.date | None, user=None, today: dt.date | None = None
 ) -> VisitMove:
     """Move a whole visit, every open order of a site on `due_on`, to `to_day` (a working day, not in the
-    past, within the plan's reach: `planning.visit_day_problem`), at a site `user` works at (None: any).
+    past, within the plan's reach: `planning.visit_day_problem`), at a site `user` works at (None: any); its
+    orders done or cancelled already go with it.
     Each order keeps all else and remembers the day the plan had put it on (`moved_from`, kept through a
     second move), so the next plan keeps the move. Onto a day the site already has a visit, the two become
     one. The orders are locked before they move: two moves at once take turns, and the second finds the
@@ -416,10 +417,19 @@ def move_visit(
                 }
             )
         joined = open_orders(user).filter(site_id__in=storable_ids([site_id]), due_on=to_day).count()
-        for order in orders:
+        # Its orders done or cancelled already go with it: the visit's sheet and the list still say what was done
+        # in it (a walk saw them vanish from both once the visit moved, the old day's address leading to the new).
+        closed = list(
+            scope_to_user(WorkOrder.objects.all(), user)
+            .select_for_update(of=("self",))
+            .filter(site_id__in=storable_ids([site_id]), due_on=due_on)
+            .exclude(state__in=OPEN)
+            .order_by("pk")
+        )
+        for order in orders + closed:
             order.moved_from = order.moved_from or order.due_on
             order.due_on = to_day
-        audited_bulk_update(orders, ["due_on", "moved_from"])
+        audited_bulk_update(orders + closed, ["due_on", "moved_from"])
         late = past_replace_by([o.fitted_capacitor_id for o in orders if o.fitted_capacitor_id], to_day, today)
     return VisitMove(moved=len(orders), to_day=to_day, joined=joined, late=tuple(late))
 
@@ -918,10 +928,11 @@ CANCELLED_SHOWN = 20
 
 
 def recently_cancelled(user=None, days: int = CANCELLED_SHOWN_DAYS, limit: int = CANCELLED_SHOWN) -> list:
-    """The orders cancelled in the last `days` at the user's sites, newest first (at most `limit`, one
-    query): what was cancelled, from which visit, why, by whom and when, for the planner to look back on."""
+    """The orders cancelled in the last `days` at the user's sites, newest first (at most `limit`; one query, and
+    one more where a stop-gap's order is among them): what was cancelled, from which visit, why, by whom and when,
+    for the planner to look back on; a stop-gap's with the design part it was to bring (`with_parts_to_bring`)."""
     since = timezone.now() - dt.timedelta(days=days)
-    return list(
+    return with_parts_to_bring(
         scope_to_user(WorkOrder.objects.all(), user)
         .filter(state=WorkOrder.State.CANCELLED, closed_at__gte=since)
         .select_related("motor", "site", "closed_by", "fitted_capacitor__part")

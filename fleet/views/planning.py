@@ -371,9 +371,11 @@ def work_order_cancel(request, order_id):
                 return redirect("visit_sheet", site_code=order.site.code, day=order.due_on.isoformat())
             return redirect("work_orders")
     order = with_plan_now(
-        with_current_plan(WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site", "fitted_capacitor"))
+        with_current_plan(
+            WorkOrder.objects.filter(pk=order.pk).select_related("motor", "site", "fitted_capacitor__part")
+        )
     )
-    order = with_read_for(order, user=request.user)[0]
+    order = with_parts_to_bring(with_read_for(order, user=request.user))[0]
     context = {"order": order, "form": form}
     return render(request, "fleet/work_order_cancel.html", context, status=400 if form.errors else 200)
 
