@@ -117,14 +117,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         taken_on=local_days([_utc64(taken_at)], [zone.key]),
         time_zone=zone.key,
         now=_utc64(now),
-        predicted_uf=trend_value_held_to(
-            assessment.capacitance_now_uf if assessment else np.nan,
-            _utc64(assessment.fitted_through) if assessment else np.datetime64("NaT", "s"),
-            _utc64(taken_at),
-            trend_slope_uf_per_hour(assessment.slope_pct_per_1000h, assessment.stress_rate, part.rated_uf)
-            if assessment
-            else 0.0,
-        ),
+        predicted_uf=trend_value_at(assessment, part.rated_uf, taken_at),
         max_case_temperature_c=part.max_case_temperature_c,
         tolerance_plus_pct=part.tolerance_plus_pct,
         confirmed=confirmed,
@@ -247,6 +240,19 @@ def _reading_words(reading: Reading, zone) -> str:
     """A reading as a technician knows it: when it was taken at the site, and its value ("2026-11-02 09:15
     (143.00 µF)", as the readings tables show them)."""
     return f"{timezone.localtime(reading.taken_at, zone):%Y-%m-%d %H:%M} ({reading.capacitance_uf:.2f} µF)"
+
+
+def trend_value_at(assessment, rated_uf: float, taken_at: dt.datetime) -> np.ndarray:
+    """The trend value a reading taken at `taken_at` is held to (`rules.trend_value_held_to`) from its capacitor's
+    current assessment (None: nan, no trend to be far from): the form's check on saving and its live hint."""
+    if assessment is None:
+        return np.array([np.nan])
+    return trend_value_held_to(
+        assessment.capacitance_now_uf,
+        _utc64(assessment.fitted_through),
+        _utc64(taken_at),
+        trend_slope_uf_per_hour(assessment.slope_pct_per_1000h, assessment.stress_rate, rated_uf),
+    )
 
 
 def record_reading(

@@ -287,8 +287,9 @@ class SwapOrder:
 
 def order_swap(*, fitted_capacitor_id: int, user=None, today: dt.date | None = None) -> SwapOrder:
     """Plan the replacement of a stop-gap in service (a capacitor fitted against the advice) with its design part:
-    a replacement order on its site's next open visit from today not on one of its days off, or, with none, on the first working day
-    `notice_days` ahead that is not one of the site's days off (spares and a trip need the notice). Its open
+    a replacement order on its site's next open visit from today not on one of its days off, or, with none, on the
+    first working day `notice_days` ahead that is not one of the site's days off (spares and a trip need the
+    notice). Its open
     replacement order, where it has one already, is the swap (sent twice: one order). Only at a site `user` works
     at. Bad input is a ValidationError on `capacitor`. [trade] a substitute fitted against the advice is a
     temporary repair, replaced with the specified part at the next opportunity."""

@@ -40,6 +40,7 @@ from fleet.services.readings import (
     record_reading,
     replace_capacitor,
     replacement_problems,
+    trend_value_at,
 )
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
@@ -153,6 +154,8 @@ def reading_new(request, fitted_capacitor_id):
         "recent": pages.recent_readings(fitted_capacitor),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
         "rules": RULES.as_dict(),
+        # The trend's value now, which the live hint holds a typed value to as saving does (`off_trend`).
+        "trend_now_uf": float(trend_value_at(assessment, fitted_capacitor.part.rated_uf, timezone.now())[0]),
     }
     with timezone.override(form.zone):  # the last readings in the site's time, as the form takes it
         return render(request, "fleet/reading_form.html", context)
