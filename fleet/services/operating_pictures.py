@@ -126,10 +126,16 @@ def with_operating_figures(assessments) -> list:
     scale = np.array([now_uf[i] for i in ids.tolist()], float) / sub["rated_uf"].to_numpy(float)
     scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)  # none known: the capacitor as rated
     is_run = sub["role"].to_numpy() == ROLE_RUN
-    new = operating_figures(circuit, load, run_uf, start_uf, kind).as_rows()
-    now = operating_figures(
-        circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
+    # As new and as now in one solve (each motor twice): the solver's fixed cost is most of a page's.
+    twice = np.tile(np.arange(len(sub)), 2)
+    rows = operating_figures(
+        circuit.take(twice),
+        type(load)(load.torque_at_rated_nm[twice], load.rated_speed_rad_s[twice], np.asarray(load.kind)[twice]),
+        np.concatenate([run_uf, np.where(is_run, scale, 1.0) * run_uf]),
+        np.concatenate([start_uf, np.where(is_run, 1.0, scale) * start_uf]),
+        kind[twice],
     ).as_rows()
+    new, now = rows[: len(sub)], rows[len(sub) :]
     figures = dict(zip(ids.tolist(), zip(new, now, strict=True), strict=True))
     for assessment in assessments:
         if assessment.fitted_capacitor_id in figures:
