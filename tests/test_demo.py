@@ -54,6 +54,23 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     assert "nothing added" in capsys.readouterr().out
     assert WorkOrder.objects.count() == orders
     assert (Motor.objects.count(), FittedCapacitor.objects.count(), Reading.objects.count()) == first
+    # Its readings export imported again adds nothing (README): a walk found every in-circuit reading refused, its
+    # stored capacitance not the one the rulebook works out from its current and voltage.
+    from django.contrib.auth import get_user_model
+    from django.test import Client
+
+    from fleet.models import ImportJob
+    from fleet.services.import_jobs import import_file
+
+    client = Client()
+    client.force_login(get_user_model().objects.get(username="planner"))
+    exported = b"".join(client.get("/exports/readings.csv").streaming_content)
+    assert Reading.objects.filter(method="in_circuit").exists()
+    outcome = import_file(
+        kind="readings", filename="readings.csv", content=exported, mode=ImportJob.Mode.ALL_OR_NOTHING, dry_run=True
+    )
+    result = outcome.result
+    assert (result.error_rows, result.duplicates) == (0, result.total), result.errors[:3]
 
 
 def test_the_demo_built_early_in_the_day_holds_no_reading_later_than_its_building(django_capture_on_commit_callbacks):

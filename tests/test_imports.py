@@ -692,7 +692,7 @@ def test_a_file_edited_and_imported_again_is_refused_at_the_edited_row_naming_th
     edited = [first[0][:4] + ["3.59"] + first[0][5:], first[1]]
     outcome = import_file(kind="readings", filename="r.csv", content=csv_of(edited), mode=ImportJob.Mode.GOOD_ROWS)
     assert [(row, field) for row, field, _ in outcome.result.errors] == [(2, "taken_at")]
-    assert "stored already (3.95 µF)" in outcome.result.errors[0][2]
+    assert "stored already with 3.95 µF, this row gives 3.59 µF" in outcome.result.errors[0][2]
     assert outcome.result.duplicates == 1 and outcome.imported == 0
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.94, 3.95]
 

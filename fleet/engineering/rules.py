@@ -838,6 +838,13 @@ def neighbours_line(
     return result[0], result[1], result[2]
 
 
+def in_circuit_capacitance_uf(current_a, voltage_v, frequency_hz) -> np.ndarray:
+    """The capacitance an in-circuit reading stores, worked out from its current and voltage (C = I / (2 pi f V),
+    `capacitor.capacitance_from_current`) to a thousandth of a µF: the form, the API, the import and the demo
+    alike, so an export imported again finds each reading stored already."""
+    return np.round(np.atleast_1d(capacitance_from_current(current_a, voltage_v, frequency_hz)), 3)
+
+
 def trend_slope_uf_per_hour(slope_pct_per_1000h, stress_rate, rated_uf) -> np.ndarray:
     """An assessment's slope (% of rated per 1000 stress-hours, at its newest reading) in µF per calendar hour at
     its long-run stress rate; 0 where either is unknown (no trend: the value stays)."""
@@ -1159,7 +1166,7 @@ def _check_readings(
         )
 
     errors.clear("capacitance_uf", in_circuit)
-    computed = np.round(np.atleast_1d(capacitance_from_current(current, voltage, frequency)), 3)
+    computed = in_circuit_capacitance_uf(current, voltage, frequency)
     # In circuit, the capacitance is computed: another value given too (a file's column, an API body) would not be
     # saved, so it is refused, never dropped unsaid; the computed value itself (an export imported again) is kept.
     typed = _as_objects(raw.get("capacitance_uf"), n).map(_given_text).to_numpy(object)

@@ -24,6 +24,7 @@ from fleet.engineering.drift import operating_figures
 from fleet.engineering.motor import load_kind_from_type, load_matching_rated_slip, synchronous_speed_rad_s
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.planning import PLAN_HORIZON_DAYS
+from fleet.engineering.rules import in_circuit_capacitance_uf
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
 from fleet.models import (
     Assessment,
@@ -426,6 +427,8 @@ def _age_capacitor_line(
             in_circuit = film and rng.random() < 0.3
             cap_v = round(voltage * rng.normal(1, 0.01), 1) if film else None
             current = round(measured * 1e-6 * 2 * np.pi * FREQUENCY_HZ * cap_v, 4) if in_circuit else None
+            if in_circuit:  # stored as the rulebook works it out from the current and voltage recorded (`rules`)
+                measured = float(in_circuit_capacitance_uf(current, cap_v, FREQUENCY_HZ)[0])
             readings.append(
                 Reading(
                     fitted_capacitor=fitted_capacitor,

@@ -380,10 +380,13 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             (
                 int(row),
                 "taken_at",
-                f"a reading of this capacitor at this time is stored already ({uf:g} µF): to put it right, correct "
-                "that reading from the capacitor's page (both are kept, the trend uses the correction)",
+                f"a reading of this capacitor at this time is stored already with {uf:g} µF, this row gives "
+                f"{mine:g} µF: to put it right, correct that reading from the capacitor's page (both are kept, the "
+                "trend uses the correction)",
             )
-            for row, uf in zip(good["row"][edited], stored_uf[edited], strict=True)
+            for row, uf, mine in zip(
+                good["row"][edited], stored_uf[edited], good["capacitance_uf"][edited].astype(float), strict=True
+            )
         ]
     if stored.any() or edited.any():
         good = good[~stored & ~edited].reset_index(drop=True)
