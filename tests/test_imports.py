@@ -865,3 +865,20 @@ def test_a_workbook_formula_with_no_saved_value_is_named_at_its_cell_and_kept_in
     fix_file = list(csv.reader(io.StringIO(rejected_rows_csv(done).decode("utf-8-sig"))))
     assert fix_file[1][HEADER.index("capacitance_uf")] == fix_file[1][HEADER.index("notes")] == "'=1+1"
     assert "enter the capacitance" not in fix_file[1][-1]
+
+
+def test_a_row_with_an_unknown_tag_still_names_what_is_wrong_with_its_cells_alone():
+    """A walk: a row with an unknown asset tag and the method "meterr" was told only of the tag; fixed, it was then
+    told of the method. What rests on a cell alone (a method or condition not among the choices, a number that
+    cannot be read) is named in the same round, as the README promises; what would rest on the capacitor's rating
+    or dates the row does not have is not. Ours."""
+    (motor,) = fleet_of(1)
+    rows = [
+        ["NO-SUCH-TAG", "run", "2023-04-03 09:00", "meterr", "3,9,5", "", "", "31", ""],
+        ["NO-SUCH-TAG", "run", "2023-04-03 10:00", "meter", "3950", "", "", "31", ""],  # a slip by the rating: unsaid
+        [motor.asset_tag, "run", "2023-04-03 09:00", "meter", "3.95", "", "", "31", ""],
+    ]
+    outcome = import_file(kind="readings", filename="r.csv", content=csv_of(rows), mode=ImportJob.Mode.GOOD_ROWS)
+    named = {(row, field) for row, field, _ in outcome.result.errors}
+    assert named == {(2, "asset_tag"), (2, "method"), (2, "capacitance_uf"), (3, "asset_tag")}, named
+    assert outcome.imported == 1

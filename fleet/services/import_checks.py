@@ -20,6 +20,8 @@ from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     MSG_NOT_A_NUMBER,
     MSG_NOT_FINITE,
+    MSG_SEPARATORS,
+    MSG_WITH_UNIT,
     UNDER_VOLTAGE_WORDS,
     ReadsOtherFields,
     _messages,
@@ -230,6 +232,11 @@ def _trend_values_held_to(fitted_capacitor_ids: pd.Series, taken_utc: np.ndarray
     )
 
 
+# What the rulebook says of a cell on its own, named on a row even where the row has no capacitor to judge it by.
+UNREADABLE_WORDS = (MSG_NOT_A_NUMBER, MSG_NOT_FINITE, MSG_SEPARATORS, MSG_WITH_UNIT)
+CELL_ALONE_FIELDS = ("method", "condition", "notes")
+
+
 def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "UTC") -> CheckResult:
     """Validate mapped reading rows; resolve each to the capacitor fitted at the time.
 
@@ -309,12 +316,13 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 for text, words in zip(said[from_file], neighbours[from_file], strict=True)
             ]
         # The rulebook names each field's problem, as the form shows them all at once; on a row not placed on a
-        # capacitor (an unknown tag, no capacitor that day) only a cell that is no number is named: any other
-        # words would rest on a rating or a date the row does not have.
+        # capacitor (an unknown tag, no capacitor that day) only what rests on the cell alone is named (a cell that
+        # is no number, a method or condition not among the choices, notes): any other words would rest on a
+        # rating or a date the row does not have.
         placed = ~problems.bad
         for name, messages in result.errors.items():
-            unreadable = np.isin(messages, (MSG_NOT_A_NUMBER, MSG_NOT_FINITE))
-            problems.add((placed | unreadable) & (messages != ""), name, messages, of_cell=True)
+            of_the_cell_alone = np.isin(messages, UNREADABLE_WORDS) | (name in CELL_ALONE_FIELDS)
+            problems.add((placed | of_the_cell_alone) & (messages != ""), name, messages, of_cell=True)
         for name, messages in result.confirm.items():
             problems.add(
                 placed & (messages != ""),
@@ -698,7 +706,7 @@ def refuse_changed(problems: _Problems, already: np.ndarray, given: pd.DataFrame
                 f"this {what} is stored already with {name} {shown(theirs[i])}, the file says {shown(mine[i])}: an "
                 f"import never changes a stored {what}; change it in the admin, or make the file agree"
             )
-        problems.add(differs, name, messages)
+        problems.add(differs, name, messages, of_cell=True)  # every field that differs, in one round
 
 
 def _comparable_column(values: pd.Series) -> np.ndarray:
