@@ -126,9 +126,20 @@ class CheckedLookupsAdmin(CheckedAutocompleteMixin, admin.ModelAdmin):
         return super().lookup_allowed(lookup, value, request)
 
 
+class FieldsRefusedFirst(forms.ModelForm):
+    """The model's own checks (`Model.clean`) learn which boxes this form refused already (`fields_refused` on the
+    instance), so a check that reads other fields too (`rules.ReadsOtherFields`) does not judge the stored value of
+    a refused box beside the typed ones (a walk was told an output "abc" was above volts times amps)."""
+
+    def _post_clean(self):
+        self.instance.fields_refused = frozenset(self._errors or ())
+        super()._post_clean()
+
+
 class RulebookNumbersAdmin(CheckedLookupsAdmin):
     """Number boxes read by the rulebook (`_rulebook_number`); a box with choices stays a choice."""
 
+    form = FieldsRefusedFirst
     formfield_overrides = {
         models.FloatField: {"form_class": RulebookFloatField},
         models.IntegerField: {"form_class": RulebookIntegerField},

@@ -42,6 +42,7 @@ from fleet.engineering.rules import (
     METHOD_IN_CIRCUIT,
     METHOD_METER,
     UNDER_VOLTAGE_WORDS,
+    ReadsOtherFields,
     commissioning_problems,
     first_problem_by_field,
     fitting_problems,
@@ -327,6 +328,13 @@ class Motor(models.Model):
         )
         if self.commissioned_on is not None:
             problems += commissioning_problems(self.commissioned_on, timezone.localdate())
+        # A figure the form refused already (`fields_refused`, set by the admin's form) is not judged again, nor
+        # read by a check of other fields: the stored value would be judged beside the typed ones.
+        refused = getattr(self, "fields_refused", frozenset())
+        if refused:
+            problems = [
+                p for p in problems if p[1] not in refused and not (isinstance(p[1], ReadsOtherFields) and refused)
+            ]
         # A missing nameplate figure is its field's own error ("required"); no second word on it or from it.
         if not any(getattr(self, name) is None for name in nameplate):
             errors = first_problem_by_field(problems) | errors
