@@ -420,8 +420,8 @@ class SiteMembershipInline(CheckedAutocompleteMixin, admin.TabularInline):
     model = SiteMembership
     extra = 0
     autocomplete_fields = ["site"]
-    verbose_name = "site this user works at (none: every site)"
-    verbose_name_plural = "sites this user works at (none: every site)"
+    verbose_name = "site this user works at"
+    verbose_name_plural = "sites this user works at (none listed: every site)"
 
 
 admin.site.unregister(User)
