@@ -614,9 +614,26 @@ def assess(
         scale = np.where(np.isfinite(fit.fraction_now[index]), fit.fraction_now[index], latest_fraction[index])
         scale = np.nan_to_num(scale, nan=1.0)
         is_run = role == ROLE_RUN
-        now_figures = operating_figures(
-            circuit, load, np.where(is_run, scale, 1.0) * run_uf, np.where(is_run, 1.0, scale) * start_uf, kind
-        )
+        # The operating point now is read only beside a measured capacitor voltage (`judge_limits`) and for a part
+        # fitted against the advice (`overloaded_by_the_part`): solved for those motors alone.
+        measured_voltage_v = _latest_capacitor_voltage(in_time_order, inst.index[index])
+        stop_gap = inst["stop_gap"].to_numpy(bool)[index]
+        solved = np.flatnonzero(np.isfinite(measured_voltage_v) | stop_gap)
+        estimated_voltage_v = np.full(len(index), np.nan)
+        if len(solved):
+            now_figures = operating_figures(
+                circuit.take(solved),
+                type(load)(
+                    load.torque_at_rated_nm[solved], load.rated_speed_rad_s[solved], np.asarray(load.kind)[solved]
+                ),
+                (np.where(is_run, scale, 1.0) * run_uf)[solved],
+                (np.where(is_run, 1.0, scale) * start_uf)[solved],
+                kind[solved],
+            )
+            estimated_voltage_v[solved] = np.where(
+                is_run[solved], now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v
+            )
+            line_current_now[index[solved]] = now_figures.i_line_a
         findings = judge_limits(
             drift,
             new_figures,
@@ -628,12 +645,11 @@ def assess(
             ),
             role,
             nameplate_only=inst["circuit_source"].to_numpy(object)[index] == CIRCUIT_ESTIMATED,
-            estimated_voltage_v=np.where(is_run, now_figures.v_capacitor_v, now_figures.start_capacitor_voltage_v),
-            measured_voltage_v=_latest_capacitor_voltage(in_time_order, inst.index[index]),
-            stop_gap=inst["stop_gap"].to_numpy(bool)[index],
+            estimated_voltage_v=estimated_voltage_v,
+            measured_voltage_v=measured_voltage_v,
+            stop_gap=stop_gap,
         )
         limit_fraction[1:, index] = drift
-        line_current_now[index] = now_figures.i_line_a
         limit_used[1:, index] = findings.used
         notes[1:, index] = findings.note
         limit_findings[1:, index] = findings.finding
