@@ -342,6 +342,49 @@ def crossing_days_ahead(crossing_stress_hours, stress_hours_now, stress_rate):
         )
 
 
+def crossing_days_through_readings(
+    crossing_stress_hours, stress_hours_now, stress_rate, reading_column, reading_stress_hours, reading_days
+):
+    """`crossing_days_ahead`, but a crossing already made between two of the capacitor's readings is dated where the
+    capacitor page draws it: on the straight line between those readings' (stress hours, day) points, the stress
+    its readings really saw, not the long-run rate counted back from the newest one (that put the stated dates of
+    past crossings 12 days from the drawn band's, up to 39, on the demo). Ahead of the newest reading, and before the
+    first, the long-run rate as before.
+
+    crossing_stress_hours (..., G); reading_column, reading_stress_hours, reading_days: per reading, its
+    capacitor's column (0..G-1), its stress hours and its calendar days from its capacitor's newest reading (<= 0).
+    Vectorised: one sorted search for every crossing of every capacitor."""
+    days = np.array(crossing_days_ahead(crossing_stress_hours, stress_hours_now, stress_rate), float)
+    column = np.asarray(reading_column, np.int64)
+    tau = np.asarray(reading_stress_hours, float)
+    known = (column >= 0) & np.isfinite(tau) & np.isfinite(np.asarray(reading_days, float))
+    if not known.any():
+        return days
+    column, tau, when = column[known], tau[known], np.asarray(reading_days, float)[known]
+    order = np.lexsort((when, tau, column))
+    column, tau, when = column[order], tau[order], when[order]
+    span = float(np.nanmax(tau)) + 1.0  # keys of one capacitor never reach the next one's
+    keys = column * span + tau
+    crossing = np.asarray(crossing_stress_hours, float)
+    columns = np.broadcast_to(np.arange(crossing.shape[-1]), crossing.shape)
+    with np.errstate(invalid="ignore"):
+        past = np.isfinite(crossing) & (crossing >= 0) & (crossing < np.asarray(stress_hours_now, float))
+    target = columns[past] * span + crossing[past]
+    upper = np.searchsorted(keys, target, side="right")
+    lower = upper - 1
+    inside = (lower >= 0) & (upper < len(keys))
+    lower, upper = np.clip(lower, 0, len(keys) - 1), np.clip(upper, 0, len(keys) - 1)
+    inside &= (column[lower] == columns[past]) & (column[upper] == columns[past])
+    width = tau[upper] - tau[lower]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(width > 0, (crossing[past] - tau[lower]) / width, 1.0)
+    drawn = when[lower] + share * (when[upper] - when[lower])
+    dated = days[past]
+    dated[inside] = drawn[inside]
+    days[past] = dated
+    return days
+
+
 def stress_hours_ahead(days_ahead, stress_hours_now, stress_rate):
     """Stress hours (from tau = 0) `days_ahead` calendar days after the newest reading, at the long-run
     stress rate: the inverse of `crossing_days_ahead`, where the capacitor page draws the path ahead."""

@@ -25,7 +25,7 @@ from django.utils import timezone
 from fleet.engineering.calibration import (
     HOURS_PER_DAY,
     calibrated_crossing_quantiles,
-    crossing_days_ahead,
+    crossing_days_through_readings,
     default_calibration,
 )
 from fleet.engineering.capacitor import (
@@ -682,7 +682,26 @@ def assess(
         ],
         axis=1,
     )
-    all_days = crossing_days_ahead(quantiles, fit.stress_hours_now, fit.stress_rate) - elapsed_h / HOURS_PER_DAY
+    # Readings as the chart draws them (not superseded, each at its stress hours), for crossings already made.
+    reading_days = (
+        (
+            pd.to_datetime(in_time_order["taken_at"], utc=True).to_numpy()
+            - newest_at.reindex(in_time_order["fitted_capacitor_id"]).to_numpy()
+        )
+        / np.timedelta64(1, "h")
+        / HOURS_PER_DAY
+    )
+    all_days = (
+        crossing_days_through_readings(
+            quantiles,
+            fit.stress_hours_now,
+            fit.stress_rate,
+            inst.index.get_indexer(in_time_order["fitted_capacitor_id"]),
+            fit.stress_hours[in_time_order["position"].to_numpy(int)],
+            reading_days,
+        )
+        - elapsed_h / HOURS_PER_DAY
+    )
     all_days = np.where(finite & np.isfinite(effective), all_days, np.inf)
     all_days = np.where(np.isnan(all_days), np.inf, all_days)
     limit_days, level_days = all_days[:3], all_days[3:]

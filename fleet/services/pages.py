@@ -217,6 +217,7 @@ def _stored_voltage_ratio(part_id: int) -> float:
 
 
 CHART_STEP_DAYS = 30  # the drawn path's points ahead: a crossing read off it is within a day or two
+CHART_PAST_STEP_DAYS = 7  # and between readings: a week, as quarterly readings' bends need
 CHART_HORIZON_MAX_DAYS = 10 * 365  # the farthest ahead the page draws, to reach a late P90
 
 
@@ -283,8 +284,18 @@ def trend_chart(
         assessment_terms(assessment, fitted_capacitor.part.dielectric),
     )
     ahead_taus = stress_hours_ahead(future_days, assessment.stress_hours_now, assessment.stress_rate)
-    low, mid, high = path_quantiles(assessment.trend_model, *stored, np.concatenate([reading_taus, ahead_taus]))
-    dates = [r["taken_at"].date().isoformat() for r in readings] + [
+    # Between readings the path is drawn every CHART_PAST_STEP_DAYS at the stress hours its readings put there
+    # (straight between two readings' stress hours, as the refit dates a crossing already made:
+    # `calibration.crossing_days_through_readings`), so a curve read off between quarterly readings meets the
+    # limit on the stated dates; straight lines from reading to reading cut a bend's corner by two weeks.
+    reading_days = np.array([r["taken_at"].date().toordinal() for r in readings], float)
+    between = np.arange(reading_days[0], reading_days[-1], CHART_PAST_STEP_DAYS)[1:] if len(readings) > 1 else []
+    between = np.setdiff1d(between, reading_days)
+    past_days = np.concatenate([reading_days, between])
+    past_order = np.argsort(past_days, kind="stable")
+    past_taus = np.concatenate([reading_taus, np.interp(between, reading_days, reading_taus)])[past_order]
+    low, mid, high = path_quantiles(assessment.trend_model, *stored, np.concatenate([past_taus, ahead_taus]))
+    dates = [dt.date.fromordinal(int(d)).isoformat() for d in past_days[past_order]] + [
         (newest + dt.timedelta(days=float(d))).date().isoformat() for d in future_days
     ]
     path = {

@@ -117,3 +117,25 @@ def test_the_band_read_off_the_chart_meets_the_limit_on_the_stated_dates(model, 
     assert np.abs(read[shown] - stated[shown]) == pytest.approx(0.0, abs=RESOLUTION_DAYS)
     # Beyond the drawing, or never: nothing drawn crosses it earlier than the drawing's end.
     assert not np.isfinite(read[~np.isfinite(stated)]).any()
+
+
+def test_a_crossing_already_made_is_dated_through_the_readings_stress_not_the_long_run_rate():
+    """[derived] Between two readings the stress hours grow as the readings say (a hot season fast, a cold one slow),
+    so a crossing made between them is dated on the straight line through their (stress hours, day) points, where
+    the capacitor page draws it; ahead of the newest reading, and before the first, the long-run rate as before. A
+    demo check: past crossings' stated dates were a median 12 days (up to 39) from the drawn band's."""
+    from fleet.engineering.calibration import crossing_days_through_readings
+
+    stress_now, rate = np.array([1500.0, 800.0]), np.array([0.5, 0.5])  # stress hours per calendar hour
+    # Capacitor 0 read at days -200, -100 and 0 (its newest) with 0, 1000 and 1500 stress hours: a hot first
+    # hundred days; capacitor 1 read once, at 800.
+    column = np.array([0, 0, 0, 1])
+    tau = np.array([0.0, 1000.0, 1500.0, 800.0])
+    days = np.array([-200.0, -100.0, 0.0, 0.0])
+    crossings = np.array([[500.0, 700.0], [1250.0, 900.0], [2700.0, -1.0]])
+    dated = crossing_days_through_readings(crossings, stress_now, rate, column, tau, days)
+    assert dated[0, 0] == pytest.approx(-150.0)  # halfway through the hot hundred days (long-run rate: -83)
+    assert dated[1, 0] == pytest.approx(-50.0)
+    assert dated[2, 0] == pytest.approx((2700.0 - 1500.0) / (0.5 * 24.0))  # ahead: the long-run rate
+    assert dated[0, 1] == pytest.approx((700.0 - 800.0) / (0.5 * 24.0))  # before its only reading: long-run
+    assert dated[1, 1] == pytest.approx((900.0 - 800.0) / (0.5 * 24.0))
