@@ -332,9 +332,7 @@ class Motor(models.Model):
         # read by a check of other fields: the stored value would be judged beside the typed ones.
         refused = getattr(self, "fields_refused", frozenset())
         if refused:
-            problems = [
-                p for p in problems if p[1] not in refused and not (isinstance(p[1], ReadsOtherFields) and refused)
-            ]
+            problems = [p for p in problems if p[1] not in refused and not isinstance(p[1], ReadsOtherFields)]
         # A missing nameplate figure is its field's own error ("required"); no second word on it or from it.
         if not any(getattr(self, name) is None for name in nameplate):
             errors = first_problem_by_field(problems) | errors

@@ -1243,9 +1243,12 @@ def test_capacitors_to_replace_now_without_a_work_order_are_counted_with_the_but
     order = WorkOrder.objects.create(
         motor=cancelled.motor, fitted_capacitor=cancelled, kind="replace_run", due_on=today, window_days=14
     )
+    with django_assert_num_queries(2):  # the count, and those with an order cancelled lately: none yet
+        assert replace_now_without_order().count == 2  # the order still open counts as ordered
     cancel_order(order_id=order.id, reason="motor out for rewind", user=planner)
-    # The assessments, the cancelled orders and their sites' days off (a user's sites add the scoping's look-up).
-    with django_assert_num_queries(3):
+    # The count, those with an order cancelled lately (only they are read, a few rows whatever the fleet), their
+    # cancelled orders and those orders' sites' days off (a user's sites add the scoping's look-up).
+    with django_assert_num_queries(4):
         counted = replace_now_without_order()
     assert (counted.count, counted.kept_cancelled) == (2, 1)
     assert replace_now_without_order(planner).count == 2

@@ -333,6 +333,14 @@ class Load:
     rated_speed_rad_s: np.ndarray
     kind: np.ndarray  # LOAD_FAN or LOAD_CONSTANT
 
+    def take(self, index) -> Load:
+        """The loads selected by an index or boolean mask (as `MotorCircuit.take`)."""
+        return Load(
+            np.asarray(self.torque_at_rated_nm)[index],
+            np.asarray(self.rated_speed_rad_s)[index],
+            np.asarray(self.kind)[index],
+        )
+
     def torque_nm(self, speed_rad_s):
         exponent = np.where(np.asarray(self.kind) == LOAD_FAN, 2.0, 0.0)
         ratio = np.clip(speed_rad_s / self.rated_speed_rad_s, 0.0, None)

@@ -266,10 +266,10 @@ def judge(
     below = reads_below(latest_fraction_25c, limit)
     # A part's overload of the motor (`drift.overloaded_by_the_part`) gives way to its capacitance below a limit:
     # a part too small is said as the limit it breaches, the more telling reason.
-    weaker = np.isin(evidence, [EVIDENCE_NONE, EVIDENCE_OVERLOAD])
-    evidence = np.where(weaker & below, EVIDENCE_BELOW, evidence)
+    outranked = [EVIDENCE_NONE, EVIDENCE_OVERLOAD]
+    evidence = np.where(np.isin(evidence, outranked) & below, EVIDENCE_BELOW, evidence)
     path_past = (days[1] <= 0) | (np.asarray(fraction_now, float) < limit)
-    evidence = np.where(np.isin(evidence, [EVIDENCE_NONE, EVIDENCE_OVERLOAD]) & path_past, EVIDENCE_PATH, evidence)
+    evidence = np.where(np.isin(evidence, outranked) & path_past, EVIDENCE_PATH, evidence)
     wear_first = np.zeros(n, bool)
     if wear_days is not None:
         wear_days = np.asarray(wear_days, float)

@@ -420,7 +420,7 @@ def _per_design(sub: pd.DataFrame, circuit, load, kind, role, run_uf, start_uf):
     if unknown.any():
         new = first[unknown]
         new_circuit = circuit.take(new)
-        new_load = type(load)(load.torque_at_rated_nm[new], load.rated_speed_rad_s[new], np.asarray(load.kind)[new])
+        new_load = load.take(new)
         limits = capacitance_limits(
             new_circuit,
             new_load,
@@ -623,9 +623,7 @@ def assess(
         if len(solved):
             now_figures = operating_figures(
                 circuit.take(solved),
-                type(load)(
-                    load.torque_at_rated_nm[solved], load.rated_speed_rad_s[solved], np.asarray(load.kind)[solved]
-                ),
+                load.take(solved),
                 (np.where(is_run, scale, 1.0) * run_uf)[solved],
                 (np.where(is_run, 1.0, scale) * start_uf)[solved],
                 kind[solved],

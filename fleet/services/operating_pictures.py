@@ -38,6 +38,14 @@ def _phasor_points(phasors, column: tuple[int, int], names: dict[str, str]) -> d
     }
 
 
+def _fraction_now(capacitance_now_uf, rated_uf) -> tuple[np.ndarray, np.ndarray]:
+    """(each capacitor's capacitance now as a fraction of rated, whether one is known): the assessment's capacitance
+    now, or the rating where there is none (no assessment, or none above zero), as the figures "now" are drawn."""
+    fraction = np.asarray(capacitance_now_uf, float) / np.asarray(rated_uf, float)
+    known = np.isfinite(fraction) & (fraction > 0)
+    return np.where(known, fraction, 1.0), known
+
+
 def motor_pictures(capacitors) -> dict[int, dict]:
     """Per capacitor in service (by id): phasor figures of currents and voltages, and the figures
     against capacitance with the limits.
@@ -56,12 +64,11 @@ def motor_pictures(capacitors) -> dict[int, dict]:
     ordered = [by_id[int(i)] for i in inst["fitted_capacitor_id"]]
     rated_uf = inst["rated_uf"].to_numpy(float)
     now_uf = np.array([c.assessment.capacitance_now_uf if c.assessment else np.nan for c in ordered])
-    now_fraction = now_uf / rated_uf
-    has_now = np.isfinite(now_fraction) & (now_fraction > 0)
+    now_fraction, has_now = _fraction_now(now_uf, rated_uf)
     role = inst["role"].to_numpy()
     n = len(inst)
     # Per capacitor: the grid, then as new (rated), then now.
-    now_column = np.where(has_now, now_fraction, 1.0)[:, None]
+    now_column = now_fraction[:, None]
     fractions = np.hstack([np.tile(SWEEP_FRACTIONS, (n, 1)), np.ones((n, 1)), now_column])
     sweep = capacitor_sweep(circuit, load, kind, role, run_uf, start_uf, fractions)
     levels = limit_levels(load, role, inst["full_load_current_a"], inst["part_rated_voltage_v"])
@@ -123,14 +130,13 @@ def with_operating_figures(assessments) -> list:
     sub = inst[with_circuit]
     ids = sub["fitted_capacitor_id"].to_numpy(np.int64)
     now_uf = {a.fitted_capacitor_id: a.capacitance_now_uf for a in assessments}
-    scale = np.array([now_uf[i] for i in ids.tolist()], float) / sub["rated_uf"].to_numpy(float)
-    scale = np.where(np.isfinite(scale) & (scale > 0), scale, 1.0)  # none known: the capacitor as rated
+    scale, _ = _fraction_now(np.array([now_uf[i] for i in ids.tolist()], float), sub["rated_uf"].to_numpy(float))
     is_run = sub["role"].to_numpy() == ROLE_RUN
     # As new and as now in one solve (each motor twice): the solver's fixed cost is most of a page's.
     twice = np.tile(np.arange(len(sub)), 2)
     rows = operating_figures(
         circuit.take(twice),
-        type(load)(load.torque_at_rated_nm[twice], load.rated_speed_rad_s[twice], np.asarray(load.kind)[twice]),
+        load.take(twice),
         np.concatenate([run_uf, np.where(is_run, scale, 1.0) * run_uf]),
         np.concatenate([start_uf, np.where(is_run, 1.0, scale) * start_uf]),
         kind[twice],

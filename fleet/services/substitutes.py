@@ -153,7 +153,6 @@ def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
     inst = fitted_capacitors_frame([fitted_capacitor.id for fitted_capacitor in fitted_capacitors])
     with_circuit, circuit, load, run_uf, start_uf, kind = motor_circuits(inst)
     in_circuits = np.cumsum(with_circuit) - 1  # each row's place among the rows with a circuit
-    load_kind = np.asarray(load.kind)
     row_of = {int(fitted_capacitor_id): k for k, fitted_capacitor_id in enumerate(inst["fitted_capacitor_id"])}
     positions = []
     designs = design_parts(fitted_capacitors)
@@ -179,9 +178,7 @@ def positions_of(fitted_capacitors: list[FittedCapacitor]) -> list[Position]:
                 design_tolerance_plus_pct=float(part.tolerance_plus_pct),
                 companion_uf=float(np.nan_to_num(companion)),
                 circuit=circuit.take([j]) if has_circuit else None,
-                load=type(load)(load.torque_at_rated_nm[one], load.rated_speed_rad_s[one], load_kind[one])
-                if has_circuit
-                else None,
+                load=load.take(one) if has_circuit else None,
                 nameplate_only=has_circuit and row["circuit_source"] == CIRCUIT_ESTIMATED,
             )
         )

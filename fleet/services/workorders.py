@@ -289,10 +289,9 @@ def order_swap(*, fitted_capacitor_id: int, user=None, today: dt.date | None = N
     """Plan the replacement of a stop-gap in service (a capacitor fitted against the advice) with its design part:
     a replacement order on its site's next open visit from today not on one of its days off, or, with none, on the
     first working day `notice_days` ahead that is not one of the site's days off (spares and a trip need the
-    notice). Its open
-    replacement order, where it has one already, is the swap (sent twice: one order). Only at a site `user` works
-    at. Bad input is a ValidationError on `capacitor`. [trade] a substitute fitted against the advice is a
-    temporary repair, replaced with the specified part at the next opportunity."""
+    notice). Its open replacement order, where it has one already, is the swap (sent twice: one order). Only at a
+    site `user` works at. Bad input is a ValidationError on `capacitor`. [trade] a substitute fitted against the
+    advice is a temporary repair, replaced with the specified part at the next opportunity."""
     today = today or timezone.localdate()
     with transaction.atomic():
         stop_gap = (
@@ -684,25 +683,34 @@ def replace_now_without_order(user=None, today: dt.date | None = None) -> Replac
     """Capacitors in service at the user's sites whose current plan says "replace now" and that have no open work
     order: the work-orders page and the dashboard say how many, beside the button that orders them. Those whose
     order the planner cancelled, which the plan does not order again (`plan_work_orders`), are counted apart, so
-    the note goes once the button has done what it can. One query over the current assessments (an EXISTS on the
-    open orders' unique index a row), and where any are unordered, one for their cancelled orders and one for those
-    orders' sites' days off."""
+    the note goes once the button has done what it can. Counted in SQL over the current assessments (an EXISTS on
+    the open orders' unique index a row); only those with an order cancelled within a visit window's reach are read
+    (a few rows, whatever the fleet), with one query for their cancelled orders and one for those orders' sites'
+    days off where any are."""
     today = today or timezone.localdate()
     open_order = WorkOrder.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), state__in=OPEN)
-    unordered = list(
-        in_service_assessments(user)
-        .filter(risk=Assessment.Risk.REPLACE_NOW)
-        .exclude(Exists(open_order))
-        .values_list("fitted_capacitor_id", "fitted_capacitor__role", "risk", "read_again", "replace_by")
+    recently_cancelled = WorkOrder.objects.filter(
+        fitted_capacitor_id=OuterRef("fitted_capacitor_id"),
+        state=WorkOrder.State.CANCELLED,
+        kind__in=CAPACITOR_KINDS,
+        due_on__gte=today - dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS),  # as `_cancelled_orders` reads them
     )
-    cancelled = _cancelled_orders([row[0] for row in unordered], today) if unordered else {}
+    unordered = (
+        in_service_assessments(user).filter(risk=Assessment.Risk.REPLACE_NOW).exclude(Exists(open_order)).order_by()
+    )
+    with_cancelled = list(
+        unordered.filter(Exists(recently_cancelled)).values_list(
+            "fitted_capacitor_id", "fitted_capacitor__role", "risk", "read_again", "replace_by"
+        )
+    )
+    cancelled = _cancelled_orders([row[0] for row in with_cancelled], today) if with_cancelled else {}
     candidates = [
         (cancelled[capacitor_id], _plan_kind(role, reread), risk, reread, replace_by)
-        for capacitor_id, role, risk, reread, replace_by in unordered
+        for capacitor_id, role, risk, reread, replace_by in with_cancelled
         if capacitor_id in cancelled
     ]
     kept = len(_still_cancelled(candidates, today))
-    return ReplaceNowUnordered(count=len(unordered) - kept, kept_cancelled=kept)
+    return ReplaceNowUnordered(count=unordered.count() - kept, kept_cancelled=kept)
 
 
 def with_current_plan(orders, today: dt.date | None = None):
@@ -712,7 +720,7 @@ def with_current_plan(orders, today: dt.date | None = None):
     today = today or timezone.localdate()
     return orders.annotate(
         plan_risk=Subquery(current.values("risk")[:1]),
-        plan_replace_by=Subquery(current.values("replace_by")[:1]),
+        plan_replace_by=Subquery(CURRENT_REPLACE_BY),
         plan_read_again=Subquery(current.values("read_again")[:1]),
     ).annotate(plan_late=ExpressionWrapper(late_order(today, F("plan_replace_by")), output_field=BooleanField()))
 
@@ -722,7 +730,8 @@ def late_order(today: dt.date, replace_by=None) -> Q:
     (`replace_by`, an expression; the current assessment's by default) and after today. A date that passed since
     the plan was made (a "replace now" planned last week) leaves a visit today on time: none can come sooner.
     `is_late` is the same rule for one order in Python."""
-    return Q(due_on__gt=today) & Q(due_on__gt=Subquery(CURRENT_REPLACE_BY) if replace_by is None else replace_by)
+    replace_by = Subquery(CURRENT_REPLACE_BY) if replace_by is None else replace_by
+    return Q(due_on__gt=today) & Q(due_on__gt=replace_by)
 
 
 def is_late(due_on: dt.date, replace_by: dt.date | None, today: dt.date) -> bool:

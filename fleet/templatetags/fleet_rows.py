@@ -108,11 +108,6 @@ RECORD_READING = '<br><a class="glove field-work" href="{}">Record the reading</
 RECORD_REPLACEMENT = '<br><a class="glove field-work record-replacement" href="{}">Record the replacement</a>'
 
 
-def past_replace_by(order) -> bool:
-    """The order's visit is late for its capacitor's current replace-by date (`with_current_plan`'s `plan_late`)."""
-    return bool(getattr(order, "plan_late", False))
-
-
 @register.simple_tag
 def work_order_rows(orders, can_read=False, can_replace=False):
     """A visit's rows on the work-orders page for `orders` (with their motors and capacitors' parts), as the
@@ -148,7 +143,9 @@ def work_order_rows(orders, can_read=False, can_replace=False):
                 action=action,
                 part=part,
                 replace_by=format_html(
-                    "{}{}", format_html(REPLACE_BY, day(replace_by)), PAST_REPLACE_BY if past_replace_by(order) else ""
+                    "{}{}",
+                    format_html(REPLACE_BY, day(replace_by)),
+                    PAST_REPLACE_BY if getattr(order, "plan_late", False) else "",  # `with_current_plan`
                 )
                 if replace_by
                 else "-",

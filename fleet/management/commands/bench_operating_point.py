@@ -46,8 +46,7 @@ class Command(BaseCommand):
         vectorised_s = time.perf_counter() - started
         started = time.perf_counter()
         for i in range(sample):
-            single_load = type(load)(load.torque_at_rated_nm[i], load.rated_speed_rad_s[i], load.kind[i])
-            operating_point(circuit.take(i), capacitance[i], single_load)
+            operating_point(circuit.take(i), capacitance[i], load.take(i))
         loop_per_motor_s = (time.perf_counter() - started) / sample
         self.stdout.write(f"motors: {n}")
         self.stdout.write(f"vectorised, one call: {vectorised_s:.2f} s ({n / vectorised_s:,.0f} motors/s)")
