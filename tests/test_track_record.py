@@ -92,7 +92,12 @@ def test_a_finished_back_test_shows_its_stored_figures(client, engineer):
     assert f"<b>{100 * pooled['inside_p10_p90']:.0f}{NBSP}%</b>" in body
     assert f"{pooled['capacitors']:,} forecasts" in body and f"{pooled['crossed']:,} observed crossings" in body
     # The headline figures read in words (a walk: 30 % before P10 against 10 % meant nothing on a phone).
-    assert f"{100 * pooled['before_p10']:.0f}{NBSP}% crossed before their early date, where 1 in 10 should" in body
+    assert f"{100 * pooled['before_p10']:.0f}{NBSP}% crossed before their early date" in body
+    # Beside each share, what exactly right forecasts would show given how long each capacitor was followed
+    # (a walk: "where 1 in 10 should" was wrong wherever the follow-up ends inside the band).
+    expected = f"right forecasts would show {100 * pooled['expected_before_p10']:.0f}{NBSP}% here"
+    assert expected in body and "nominal 10" not in body
+    assert f"about {pooled['expected_crossed']:.0f} crossings would have been seen ({pooled['crossed']:,} were)" in body
 
     coverage = json_script(body, "coverage-data")
     by_name = {trace["name"]: trace for trace in coverage["data"]}

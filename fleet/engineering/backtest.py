@@ -198,13 +198,84 @@ def choose_alert_level(level_days, replace_now, crossed_day, followed_days, sett
     return max(good, key=lambda row: (row[1], -row[0]))[0], table
 
 
-def score(days, risk, crossed_day, followed_days, horizons=(90, 365)) -> dict:
+def probability_crossed_by(levels, level_days, day):
+    """Each forecast's probability of a crossing by `day` (days from the cut-off), read off its quantiles.
+
+    levels (K,): increasing probabilities; level_days (K, G): each forecast's day at each level
+    (inf: beyond its horizon); day (G,) or a scalar. Between two quantiles the normal score of the
+    probability is taken as linear in log time (exact for a log-normal crossing time, the usual
+    life distribution of a wear-out degradation path, Meeker and Escobar, Statistical Methods for
+    Reliability Data, 1998, ch. 13; from memory); before the first and after the last finite one
+    the nearest segment is carried on, and past a quantile beyond the horizon no more than its
+    level is counted. Days are taken as at least half a day.
+    """
+    from scipy.special import ndtr, ndtri
+
+    levels = np.asarray(levels, float)
+    x = np.log(np.maximum(np.asarray(level_days, float), 0.5))  # inf stays inf
+    z = ndtri(levels)[:, None] * np.ones_like(x)
+    k, g = x.shape
+    t = np.log(np.maximum(np.broadcast_to(np.asarray(day, float), (g,)), 0.5))
+    finite = np.isfinite(x)
+    last = finite.sum(axis=0) - 1  # quantiles are increasing in level, so the finite ones come first
+    columns = np.arange(g)
+    segment = np.clip((x <= t).sum(axis=0), 1, np.maximum(last, 1))  # interpolate between segment-1 and segment
+    x0, x1 = x[segment - 1, columns], x[np.minimum(segment, k - 1), columns]
+    z0, z1 = z[segment - 1, columns], z[np.minimum(segment, k - 1), columns]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = (z1 - z0) / np.maximum(x1 - x0, 1e-9)
+        score = np.where(np.isfinite(x1), z0 + slope * (t - x0), z0)
+    cap = np.where(last + 1 < k, z[np.minimum(last + 1, k - 1), columns], np.inf)
+    score = np.minimum(np.where(last >= 1, score, np.where(t >= x[0], z[0], -np.inf)), cap)
+    probability = ndtr(score)
+    return np.where(last >= 0, probability, 0.0)
+
+
+def expected_band_shares(levels, level_days, followed_days) -> dict:
+    """What the band scores of `score` would be if every forecast distribution were exactly right.
+
+    A crossing is seen only within its capacitor's follow-up, so the crossings scored are the early
+    part of each distribution: where the follow-up ends before P90, more than one in ten of them lies
+    before P10 even when every forecast is right (a truncated distribution, Klein and Moeschberger,
+    Survival Analysis, 2003, section 3.4; from memory). Per forecast, P(crossed by the end of its
+    follow-up) and P(crossed before P10 and by then), after P90 likewise; the expected shares are
+    their sums over the expected crossings. levels must hold 0.1 and 0.9.
+    """
+    levels = np.asarray(levels, float)
+    level_days = np.asarray(level_days, float)
+    followed = np.asarray(followed_days, float)
+    p10, p90 = (
+        level_days[np.flatnonzero(np.isclose(levels, 0.1))[0]],
+        level_days[np.flatnonzero(np.isclose(levels, 0.9))[0]],
+    )
+    seen = probability_crossed_by(levels, level_days, followed)
+    before = np.where(p10 <= followed, 0.1, seen)
+    after = np.where(p90 <= followed, np.maximum(seen - 0.9, 0.0), 0.0)
+    expected = float(seen.sum())
+    if expected <= 0:
+        return {
+            "expected_crossed": 0.0,
+            "expected_inside_p10_p90": None,
+            "expected_before_p10": None,
+            "expected_after_p90": None,
+        }
+    return {
+        "expected_crossed": expected,
+        "expected_inside_p10_p90": float(1.0 - (before.sum() + after.sum()) / expected),
+        "expected_before_p10": float(before.sum() / expected),
+        "expected_after_p90": float(after.sum() / expected),
+    }
+
+
+def score(days, risk, crossed_day, followed_days, horizons=(90, 365), quantiles=None) -> dict:
     """Scores of one set of forecasts, for capacitors not yet past their limit.
 
     days (3, G): forecast days from the cut-off to P10/P50/P90 (inf: beyond the
     horizon); risk (G): the risk level given; crossed_day (G): days to the
     observed crossing (nan: not seen); followed_days (G): how long each was
-    followed. Returns plain numbers (shares in 0..1, None where nothing counts).
+    followed; quantiles, optional: (levels, level_days) of each forecast's fuller distribution,
+    for the band scores expected if every forecast were right (`expected_band_shares`).
+    Returns plain numbers (shares in 0..1, None where nothing counts).
     """
     days = np.asarray(days, float)
     crossed_day = np.asarray(crossed_day, float)
@@ -238,6 +309,8 @@ def score(days, risk, crossed_day, followed_days, horizons=(90, 365)) -> dict:
         "p50_error_median": float(np.median(p50_error)) if p50_error.size else None,
         "p50_abs_error_median": float(np.median(np.abs(p50_error))) if p50_error.size else None,
     }
+    if quantiles is not None:
+        result.update(expected_band_shares(*quantiles, followed))
     for horizon in horizons:
         flagged = np.isin(np.asarray(risk), FLAGGED_WITHIN[horizon])
         truth = cd <= horizon

@@ -76,9 +76,18 @@ def start_backtest(*, quarters: int = 8, queue: bool = True) -> Backtest:
 def _scores(frame: pd.DataFrame, part_codes: dict[int, str]) -> dict:
     """Scores of one variant's pooled forecasts: overall, per dielectric, per part."""
 
+    levels = (*ALERT_LEVELS, 0.9)
+
     def of(rows):
         days = np.stack([rows["p10"], rows["p50"], rows["p90"]])
-        return score(days, rows["risk"].to_numpy(), rows["crossed_day"].to_numpy(), rows["followed_days"].to_numpy())
+        quantiles = (levels, rows[[*ALERT_COLUMNS, "p90"]].to_numpy(float).T)
+        return score(
+            days,
+            rows["risk"].to_numpy(),
+            rows["crossed_day"].to_numpy(),
+            rows["followed_days"].to_numpy(),
+            quantiles=quantiles,
+        )
 
     return {
         "all": of(frame),

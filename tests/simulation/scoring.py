@@ -29,6 +29,8 @@ import datetime as dt
 import numpy as np
 import pandas as pd
 
+from fleet.engineering.backtest import expected_band_shares
+
 FLAGGED = ("replace now", "due soon", "watch")
 
 
@@ -70,6 +72,15 @@ def score(truth: pd.DataFrame, cutoff: dt.date, forecasts: pd.DataFrame, horizon
     remaining = (c - day).dt.days.clip(lower=1)
     p50_error = ((scored["p50_on"] - c).dt.days / remaining).dropna()
 
+    # What exactly right forecasts would score here, each capacitor followed to the end of its span (a diagnostic:
+    # the crossings seen are the early part of each forecast's distribution).
+    followed = frame[above_at_cut & frame["forecast"]]
+    expected = expected_band_shares(
+        (0.1, 0.5, 0.9),
+        np.stack([((followed[k] - day).dt.days).astype(float).fillna(np.inf) for k in ("p10_on", "p50_on", "p90_on")]),
+        ((followed["span_end"] - day).dt.days).astype(float),
+    )
+
     never_crossed = frame[above_at_cut & crossed.isna() & frame["forecast"]]
     censored_above = int((never_crossed["p90_on"] < never_crossed["span_end"]).sum())
 
@@ -93,6 +104,9 @@ def score(truth: pd.DataFrame, cutoff: dt.date, forecasts: pd.DataFrame, horizon
         "below_p10": share(int(below.sum()), n_band),
         "above_p90": share(int(above.sum()), n_band),
         "no_forecast": share(missing, n_band),
+        "expected_scored": expected["expected_crossed"],
+        "expected_inside": expected["expected_inside_p10_p90"],
+        "expected_below_p10": expected["expected_before_p10"],
         "censored_above_p90": censored_above,
         "p50_error_median": float(np.median(p50_error)) if len(p50_error) else float("nan"),
         "p50_abs_error_median": float(np.median(np.abs(p50_error))) if len(p50_error) else float("nan"),
@@ -113,17 +127,24 @@ def score_by(truth, cutoff, forecasts, by: str = "dielectric", horizon_days: int
     return out
 
 
+def _percent(share) -> str:
+    return "-" if share is None else f"{share:.0%}"
+
+
 def table(results: dict[str, dict]) -> str:
     """Figures as a small text table, one line per group."""
     lines = [
         f"{'group':<14}{'cut-off':<12}{'n':>4}{'in':>7}{'<P10':>7}{'>P90':>7}{'none':>6}{'P50err':>8}"
         f"{'|P50|':>7}{'pos':>5}{'flag':>5}{'TP':>4}{'recall':>8}{'prec':>7}"
+        f"  if right: {'n':>4}{'in':>5}{'<P10':>6}"
     ]
     for group, r in results.items():
         lines.append(
             f"{group:<14}{r['cutoff']:<12}{r['band_scored']:>4}{r['inside']:>7.0%}{r['below_p10']:>7.0%}"
             f"{r['above_p90']:>7.0%}{r['no_forecast']:>6.0%}{r['p50_error_median']:>8.2f}{r['p50_abs_error_median']:>7.2f}"
             f"{r['risk_positives']:>5}{r['risk_flagged']:>5}{r['risk_true_flags']:>4}{r['recall']:>8.0%}{r['precision']:>7.0%}"
+            f"  {'':>10}{r['expected_scored']:>4.0f}{_percent(r['expected_inside']):>5}"
+            f"{_percent(r['expected_below_p10']):>6}"
         )
     return "\n".join(lines)
 

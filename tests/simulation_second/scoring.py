@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from fleet.engineering.backtest import expected_band_shares
 from tests.simulation_second.fleet import READ_END
 
 
@@ -43,6 +44,13 @@ def band_scores(g: pd.DataFrame, cut: pd.Timestamp) -> dict:
         return dict(n_cross=0)
     far = cut + pd.DateOffset(years=30)  # a null date is past the API's 30-year horizon
     p10, p50, p90 = (x[k].fillna(far) for k in ("p10", "p50", "p90"))
+    # What exactly right forecasts would score here, every capacitor followed to READ_END (a diagnostic: the
+    # crossings seen are the early part of each forecast's distribution).
+    expected = expected_band_shares(
+        (0.1, 0.5, 0.9),
+        np.stack([((g[k] - cut).dt.days).astype(float).fillna(np.inf) for k in ("p10", "p50", "p90")]),
+        np.full(len(g), float((READ_END - cut).days)),
+    )
     remaining_d = (x.truth_cross - cut).dt.days.clip(lower=1)
     err = (p50 - x.truth_cross).dt.days / remaining_d
     return dict(
@@ -50,6 +58,9 @@ def band_scores(g: pd.DataFrame, cut: pd.Timestamp) -> dict:
         band=((x.truth_cross >= p10) & (x.truth_cross <= p90)).sum() / n,
         before_p10=(x.truth_cross < p10).sum() / n,
         after_p90=(x.truth_cross > p90).sum() / n,
+        expected_n_cross=expected["expected_crossed"],
+        expected_band=expected["expected_inside_p10_p90"],
+        expected_before_p10=expected["expected_before_p10"],
         band_width_median_y=float(((p90 - p10).dt.days / 365.25).median()),
         p50_err_median=float(np.nanmedian(err)),
     )

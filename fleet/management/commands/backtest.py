@@ -54,6 +54,12 @@ class Command(BaseCommand):
                     f"{scores.get(c, 0):>10d}" if c in columns[:2] else f"{_pct(scores.get(c)):>11}" for c in columns
                 ]
                 self.stdout.write(f"{label:<10}{'-' if in_service is None else in_service:>10}" + "".join(cells))
+            if pooled and pooled.get("expected_crossed") is not None:
+                self.stdout.write(
+                    f"had every forecast been right: {pooled['expected_crossed']:.0f} crossings seen within their "
+                    f"follow-up ({pooled['crossed']} were), in P10-P90 {_pct(pooled['expected_inside_p10_p90'])}, "
+                    f"before P10 {_pct(pooled['expected_before_p10'])}, after P90 {_pct(pooled['expected_after_p90'])}"
+                )
         for family, values in results.get("calibration", {}).items():
             self.stdout.write(
                 f"calibration {family}: {calibration_words(values)} "
