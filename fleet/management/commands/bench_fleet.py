@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import resource
+import signal
 import statistics
 import subprocess
 import sys
@@ -94,6 +95,10 @@ def analyze_tables() -> None:
         for model in FLEET_TABLES:
             cursor.execute(f"VACUUM (ANALYZE) {connection.ops.quote_name(model._meta.db_table)}")
 
+
+
+def _stop_on_sigterm(signum, frame):
+    raise SystemExit(128 + signum)
 
 class Command(BaseCommand):
     help = "Build an invented fleet (once) and print fleet-refit figures against the COPY read floor."
@@ -215,6 +220,9 @@ class Command(BaseCommand):
             )
             for k in range(count)
         ]
+        # Stopped with SIGTERM (kill, a CI timeout), the workers go too: by default the signal ends this
+        # process without running the `finally` below, and they were left polling the broker.
+        previous = signal.signal(signal.SIGTERM, _stop_on_sigterm)
         try:
             deadline = time.monotonic() + 60
             while len(current_app.control.ping(timeout=0.5) or []) < count and time.monotonic() < deadline:
@@ -223,6 +231,7 @@ class Command(BaseCommand):
             peaks = ", ".join(f"{_peak_rss_mb(w.pid):.0f} MB" for w in workers)
             self.say(f"  worker peak memory (RSS): {peaks}")
         finally:
+            signal.signal(signal.SIGTERM, previous)
             for worker in workers:
                 worker.terminate()
             for worker in workers:
