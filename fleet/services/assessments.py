@@ -92,6 +92,7 @@ from .selectors import (
     fitted_capacitors_frame,
     part_priors_frame,
     readings_frame,
+    utc_datetime64,
 )
 
 MODEL_VERSION = "trend-2"
@@ -108,7 +109,7 @@ class RefitOutcome:
 def _hours_since_fitting(readings: pd.DataFrame, fitted_on: np.ndarray) -> np.ndarray:
     """Hours from the fitting date (midnight UTC) to each reading."""
     fitted = np.asarray(fitted_on, dtype="datetime64[D]").astype("datetime64[s]")
-    taken = pd.to_datetime(readings["taken_at"], utc=True).dt.tz_localize(None).to_numpy().astype("datetime64[s]")
+    taken = utc_datetime64(readings["taken_at"]).astype("datetime64[s]")
     return (taken - fitted) / np.timedelta64(1, "h")
 
 
@@ -683,8 +684,8 @@ def assess(
     # Readings as the chart draws them (not superseded, each at its stress hours), for crossings already made.
     reading_days = (
         (
-            pd.to_datetime(in_time_order["taken_at"], utc=True).to_numpy()
-            - newest_at.reindex(in_time_order["fitted_capacitor_id"]).to_numpy()
+            utc_datetime64(in_time_order["taken_at"])
+            - utc_datetime64(newest_at.reindex(in_time_order["fitted_capacitor_id"]))
         )
         / np.timedelta64(1, "h")
         / HOURS_PER_DAY
@@ -742,7 +743,7 @@ def assess(
         wear_days=wear_days,
         wear_words=wear_words,
         alert_days=alert_days,
-        latest_on=newest_at.dt.tz_convert("UTC").dt.tz_localize(None).to_numpy().astype("datetime64[D]"),
+        latest_on=utc_datetime64(newest_at).astype("datetime64[D]"),
         settings=PlanningSettings(),
     )
     return Assessed(

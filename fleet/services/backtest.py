@@ -353,7 +353,7 @@ def _run(backtest: Backtest) -> None:
                         # The capacitor itself, not the capacitor at this cut-off: the thin-history
                         # default holds until enough distinct capacitors stand behind the calibration.
                         "capacitor": inst.index.to_numpy()[group],
-                        "taken": pd.to_datetime(later["taken_at"], utc=True).to_numpy(),
+                        "taken": pd.to_datetime(later["taken_at"], utc=True).array,
                     }
                 )
                 errors = pd.concat([errors, fresh_errors], ignore_index=True) if len(errors) else fresh_errors

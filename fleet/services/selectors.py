@@ -177,6 +177,14 @@ def readings_frame(fitted_capacitor_ids) -> pd.DataFrame:
     return frame
 
 
+def utc_datetime64(instants) -> np.ndarray:
+    """Instants (a Series or index of aware timestamps, or naive ones taken as UTC) as naive UTC
+    datetime64[ns], with no Python object per value: `.to_numpy()` of an aware column gives an object
+    array of Timestamps, and arithmetic on it ran value by value (0.1 s of a 2,000-capacitor refit chunk's
+    0.5 s, measured 2026-12-05)."""
+    return pd.DatetimeIndex(pd.to_datetime(instants, utc=True)).tz_localize(None).to_numpy("datetime64[ns]")
+
+
 def part_priors_frame(part_ids) -> pd.DataFrame:
     rows = PartPrior.objects.filter(part_id__in=list(part_ids)).values()
     return pd.DataFrame.from_records(list(rows)).set_index("part_id") if rows else pd.DataFrame()
