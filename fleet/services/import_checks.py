@@ -304,16 +304,19 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         )
         _point_past_a_removal(result.errors, chunk)
         said = result.confirm.get("capacitance_uf")
-        if said is not None and from_file.any():  # say which readings it was held to
+        # Say which readings it was held to, on the rows asked to confirm only: formatting the file's every
+        # neighbour pair cost 0.26 s of a 50,000-row check's 1.3 s (measured 2026-12-05).
+        held = from_file & (said != "") if said is not None else np.zeros(len(chunk), bool)
+        if held.any():
             neighbours = _messages(
-                from_file,
+                held,
                 "the readings just before and after it in this file ({b:g} and {a:g} µF; between them ",
                 b=before_uf,
                 a=after_uf,
             )
-            said[from_file] = [
+            said[held] = [
                 text.replace("this capacitor's trend (", words, 1)
-                for text, words in zip(said[from_file], neighbours[from_file], strict=True)
+                for text, words in zip(said[held], neighbours[held], strict=True)
             ]
         # The rulebook names each field's problem, as the form shows them all at once; on a row not placed on a
         # capacitor (an unknown tag, no capacitor that day) only what rests on the cell alone is named (a cell that
