@@ -41,6 +41,23 @@ def test_a_backdated_reading_added_after_the_fit_is_used():
 
 
 @pytest.mark.django_db
+def test_a_calibration_stored_after_todays_fit_reaches_the_next_refit():
+    """A walk: a back-test stored a new calibration, "Refit the fleet now" then said every capacitor was up to
+    date and refitted none, so the plan mixed two calibrations until the next day. An assessment judged before
+    the calibration in force was stored is due, like one judged before today."""
+    fitted_capacitor = make_fitted_capacitor()
+    _ageing(fitted_capacitor, [0, 0.5, 1.0, 1.5, 2.0])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    assert refit_fitted_capacitors([fitted_capacitor.id]).written == 0  # nothing new: up to date
+
+    BandCalibration.objects.update_or_create(family="film", defaults={"slope_bias": 0.4, "slope_spread": 0.2})
+    assert refit_fitted_capacitors([fitted_capacitor.id]).written == 1
+    terms = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True).calibration_terms
+    assert terms["slope_bias"] == 0.4 and terms["slope_spread"] == 0.2
+    assert refit_fitted_capacitors([fitted_capacitor.id]).written == 0  # and then it is up to date again
+
+
+@pytest.mark.django_db
 def test_one_absurd_reading_cannot_poison_the_part_priors_or_block_a_refit():
     """A capacitor voltage of 1e6 V (or a capacitance a thousand times rated) on
     one capacitor leaves every stored prior finite and every refit working."""

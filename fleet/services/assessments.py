@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from django.conf import settings
 from django.db import connection, transaction
-from django.db.models import Exists, OuterRef
+from django.db.models import Exists, Max, OuterRef
 from django.utils import timezone
 
 from fleet.engineering.calibration import (
@@ -850,9 +850,11 @@ def _read_batch(ids: list[int], now: dt.datetime, *, force: bool, as_of: bool) -
     inst = inst[inst["fitted_capacitor_id"].isin(usable["fitted_capacitor_id"].unique())]
     if not force and not inst.empty:
         # Due when a reading was added since the fit (by id, not by reading date: a backdated or
-        # late-imported reading must be used too) or when the assessment was judged before the
-        # day of `now` (the risk levels count days from the judgement, and priors and calibration
-        # move): one assessment per capacitor, newest reading and day.
+        # late-imported reading must be used too), when the assessment was judged before the
+        # day of `now` (the risk levels count days from the judgement, and priors move), or before
+        # the band calibration in force was stored (a back-test's new calibration reaches every
+        # capacitor at the next refit, not the next day): one assessment per capacitor, newest
+        # reading, day and calibration.
         seen = pd.DataFrame(
             Assessment.objects.filter(
                 fitted_capacitor_id__any_of=inst["fitted_capacitor_id"].to_numpy(np.int64),
@@ -865,7 +867,9 @@ def _read_batch(ids: list[int], now: dt.datetime, *, force: bool, as_of: bool) -
         ).set_index("fitted_capacitor_id")
         seen = seen.reindex(inst["fitted_capacitor_id"])
         day_start = timezone.localtime(now).replace(hour=0, minute=0, second=0, microsecond=0)
-        judged_today = pd.to_datetime(seen["created_at"], utc=True).ge(day_start).to_numpy()
+        calibrated_at = BandCalibration.objects.aggregate(newest=Max("updated_at"))["newest"]
+        judged_since = max(day_start, calibrated_at) if calibrated_at is not None else day_start
+        judged_today = pd.to_datetime(seen["created_at"], utc=True).ge(judged_since).to_numpy()
         seen_id = seen["max_reading_id"].to_numpy(float)
         newest = max_reading_id.reindex(inst["fitted_capacitor_id"]).to_numpy()
         covered = ~np.isnan(seen_id) & (seen_id >= newest) & judged_today
