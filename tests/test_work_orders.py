@@ -21,6 +21,7 @@ from fleet.services.workorders import (
     open_visits_page,
     orders_taken_off,
     plan_work_orders,
+    with_plan_now,
 )
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, stored_assessment
 
@@ -125,6 +126,30 @@ def test_the_planner_cancels_an_order_with_a_reason_and_the_plan_does_not_order_
     Assessment.objects.filter(fitted_capacitor=capacitor, is_current=True).update(read_again=True)
     assert plan_work_orders(horizon_days=90, user=planner, today=today)["created"] == 1
     assert WorkOrder.objects.get(fitted_capacitor=capacitor, state="planned").kind == "read_again"
+
+
+def test_a_cancel_holds_for_a_capacitor_the_plan_puts_in_its_motors_other_capacitors_visit(planner):
+    """A walk: a motor's start capacitor due in 10 days opened a visit, its run capacitor due 25 days later went
+    with it (one isolation for both, `PlanningSettings.same_motor_days`); the planner cancelled the run
+    capacitor's order, and the next plan made it again on the same visit, as the run capacitor's own date lies
+    past the visit's 14-day window; the visit sheet said "plan now: ... replace by" its own date under it.
+    [derived] the plan puts it in that visit, so it is the same work in the same visit: the cancel holds."""
+    today = timezone.localdate()
+    motor = make_motor(site=make_site(code="TWO"))
+    start = make_fitted_capacitor(motor=motor, role="start", part=make_part(code="START-100U", dielectric="electrolytic", rated_uf=100.0))
+    run = make_fitted_capacitor(motor=motor, role="run")
+    stored_assessment(start, "due soon", today + dt.timedelta(days=10))
+    stored_assessment(run, "watch", today + dt.timedelta(days=35))
+    plan_work_orders(horizon_days=90, user=planner, today=today)
+    run_order, start_order = (WorkOrder.objects.get(fitted_capacitor=c) for c in (run, start))
+    assert run_order.due_on == start_order.due_on  # one visit for both
+    sheet = open_visit(motor.site_id, run_order.due_on)
+    assert [order.plan_now for order in with_plan_now(sheet["orders"], today)] == ["", ""]
+
+    cancel_order(order_id=run_order.id, reason="run capacitor changed last week by the OEM's fitter", user=planner)
+    again = plan_work_orders(horizon_days=90, user=planner, today=today)
+    assert (again["created"], again["kept_cancelled"]) == (0, 1)
+    assert not WorkOrder.objects.filter(fitted_capacitor=run, state__in=["planned", "issued"]).exists()
 
 
 def test_a_cancelled_order_is_ordered_again_for_a_later_visit(planner):

@@ -444,13 +444,16 @@ def plan_moved_words(
     plan_due_days,
     today: dt.date,
     order_visit_days=None,
+    plan_visit_days=None,
 ) -> np.ndarray:
     """Per open work order, in words, what its capacitor's current plan asks where that is no longer the
     order's work in its visit ("plan now: watch, replace by 2027-01-03"); empty where it still is.
 
     The plan no longer asks for the order's work when it plans no replacement, asks for the other kind
     (read again or replace), or dates the replacement after the order's visit window (due day plus
-    `window_days`: the plan would not put it in this visit). An order whose capacitor the plan now says to
+    `window_days`: the plan would not put it in this visit), judged on the day its visits take it as due
+    (`plan_visit_days`, `with_its_motor`: a capacitor due within weeks of its motor's other one goes in that
+    one's visit; its own replace-by day if not given). An order whose capacitor the plan now says to
     replace now, by a day before the order's visit (`order_visit_days`, the visit's own day), says so too
     ("..., before this visit"): a capacitor seen bulged a week before its visit waits for no visit (a walk
     found one silent). Days count from `today` (inf: none)."""
@@ -460,10 +463,11 @@ def plan_moved_words(
     no_date = ~np.isfinite(plan_due)
     visit = order_due if order_visit_days is None else np.asarray(order_visit_days, float)
     sooner = ~no_date & (np.asarray(plan_risk, dtype=object) == RISK_REPLACE_NOW) & (plan_due < visit)
+    plan_visit = plan_due if plan_visit_days is None else np.asarray(plan_visit_days, float)
     moved = (
         no_date
         | (np.asarray(order_reads_again, bool) != plan_again)
-        | (plan_due > order_due + np.asarray(window_days, float))
+        | (plan_visit > order_due + np.asarray(window_days, float))
         | sooner
     )
     when = np.where(
@@ -477,6 +481,17 @@ def plan_moved_words(
     )
     when = np.where(sooner, when + ", before this visit", when)
     return np.where(moved, "plan now: " + np.asarray(plan_risk, dtype=object) + ", " + when, "")
+
+
+def with_its_motor(due_day, motor_first_day, same_motor_days: float = PlanningSettings.same_motor_days) -> np.ndarray:
+    """The day the plan's visits take each item as due: its own, or its motor's earliest (`motor_first_day`,
+    inf: none) where its own is within `same_motor_days` of it, so both capacitors go in one isolation
+    (`bundle_visits`; and where an order's visit is judged, `plan_moved_words`)."""
+    due_day = np.asarray(due_day, float)
+    first = np.asarray(motor_first_day, float)
+    with np.errstate(invalid="ignore"):
+        joins = np.isfinite(first) & (due_day - first <= same_motor_days)
+    return np.where(joins, np.minimum(first, due_day), due_day)
 
 
 def bundle_visits(
@@ -509,8 +524,7 @@ def bundle_visits(
         _, of_motor = np.unique(np.asarray(motor), return_inverse=True)
         earliest = np.full(of_motor.max() + 1, np.inf)
         np.minimum.at(earliest, of_motor, due_day)
-        earliest = earliest[of_motor]
-        due_day = np.where(due_day - earliest <= same_motor_days, earliest, due_day)
+        due_day = with_its_motor(due_day, earliest[of_motor], same_motor_days)
     visit = np.full(due_day.size, -1, dtype=np.int64)
     visit_day = np.full(due_day.size, np.nan)
     order = np.lexsort((due_day, site))

@@ -28,6 +28,7 @@ from fleet.engineering.planning import (
     day_off_problems,
     plan_moved_words,
     visit_day_problem,
+    with_its_motor,
     working_days_near,
     working_visit_days,
 )
@@ -100,6 +101,19 @@ def plan_work_orders(
         ).order_by("state"):  # "issued" before "planned": an issued order wins
             open_by_capacitor.setdefault(o.fitted_capacitor_id, o)
         cancelled = _cancelled_orders(due_ids, today)
+        own_days = np.array([(max(d[4], today) - today).days for d in due], float)
+        motor_ids = pd.Series([d[1] for d in due], dtype="int64")
+        visit_as_due = dict(
+            zip(
+                due_ids.tolist(),
+                with_its_motor(
+                    own_days,
+                    pd.Series(own_days).groupby(motor_ids).transform("min").to_numpy(float),
+                    PlanningSettings().same_motor_days,
+                ),
+                strict=True,
+            )
+        )
         was = {o.pk: (o.due_on, o.window_days, o.kind, o.moved_from, o.reason) for o in open_by_capacitor.values()}
         items, new_orders, replanned, not_again = [], [], [], []
         for fitted_capacitor_id, motor_id, site_id, role, replace_by, risk, reason, reread in due:
@@ -110,7 +124,16 @@ def plan_work_orders(
             order.kind = _plan_kind(role, reread)
             order.reason = f"{risk}: {reason}"[: WorkOrder._meta.get_field("reason").max_length]
             if existing is None and fitted_capacitor_id in cancelled:
-                not_again.append((cancelled[fitted_capacitor_id], order.kind, risk, reread, replace_by))
+                not_again.append(
+                    (
+                        cancelled[fitted_capacitor_id],
+                        order.kind,
+                        risk,
+                        reread,
+                        replace_by,
+                        visit_as_due[fitted_capacitor_id],
+                    )
+                )
             items.append((site_id, (max(replace_by, today) - today).days, order))
             (replanned if existing else new_orders).append(order)
         kept = _still_cancelled(not_again, today)
@@ -185,18 +208,22 @@ def _cancelled_orders(fitted_capacitor_ids, today: dt.date) -> dict[int, WorkOrd
 
 
 def _still_cancelled(candidates, today: dt.date) -> set[int]:
-    """The capacitors whose cancelled order the plan asks for again, same work in the same visit: the
-    planner's cancellation holds for them (`planning.plan_moved_words`, the rule that says where an open
-    order is no longer what the plan asks, its window judged as for an open order: `window_start_days`)."""
+    """The capacitors whose cancelled order the plan asks for again, same work in the same visit: the planner's
+    cancellation holds for them (`planning.plan_moved_words`, the rule that says where an open order is no longer
+    what the plan asks, its window judged as for an open order: `window_start_days`). Each candidate is (cancelled
+    order, the plan's kind, risk, read again, replace-by date, days to the day the plan's visits take it as due,
+    `with_its_motor`: a walk found a cancelled order made again where the plan put the capacitor in its motor's
+    other capacitor's visit)."""
     if not candidates:
         return set()
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o, *_ in candidates],
         order_due_days=window_start_days([o for o, *_ in candidates], today),
         window_days=[o.window_days for o, *_ in candidates],
-        plan_risk=[risk for _, _, risk, _, _ in candidates],
-        plan_read_again=[bool(reread) for *_, reread, _ in candidates],
-        plan_due_days=[(replace_by - today).days for *_, replace_by in candidates],
+        plan_risk=[risk for _, _, risk, *_ in candidates],
+        plan_read_again=[bool(reread) for *_, reread, _, _ in candidates],
+        plan_due_days=[(replace_by - today).days for *_, replace_by, _ in candidates],
+        plan_visit_days=[visit_day for *_, visit_day in candidates],
         today=today,
         # A cancellation holds however soon the plan now asks for the same work: the planner cancelled it on
         # what the plan asked then, and a new plan must not undo that by bringing it forward.
@@ -699,29 +726,62 @@ def replace_now_without_order(user=None, today: dt.date | None = None) -> Replac
         in_service_assessments(user).filter(risk=Assessment.Risk.REPLACE_NOW).exclude(Exists(open_order)).order_by()
     )
     with_cancelled = list(
-        unordered.filter(Exists(recently_cancelled)).values_list(
-            "fitted_capacitor_id", "fitted_capacitor__role", "risk", "read_again", "replace_by"
+        unordered.filter(Exists(recently_cancelled))
+        .annotate(motor_first_by=motor_first_replace_by("fitted_capacitor__motor_id"))
+        .values_list(
+            "fitted_capacitor_id", "fitted_capacitor__role", "risk", "read_again", "replace_by", "motor_first_by"
         )
     )
     cancelled = _cancelled_orders([row[0] for row in with_cancelled], today) if with_cancelled else {}
     candidates = [
-        (cancelled[capacitor_id], _plan_kind(role, reread), risk, reread, replace_by)
-        for capacitor_id, role, risk, reread, replace_by in with_cancelled
+        (cancelled[capacitor_id], _plan_kind(role, reread), risk, reread, replace_by, visit_day)
+        for (capacitor_id, role, risk, reread, replace_by, _), visit_day in zip(
+            with_cancelled, _visit_as_due_days([(row[4], row[5]) for row in with_cancelled], today), strict=True
+        )
         if capacitor_id in cancelled
     ]
     kept = len(_still_cancelled(candidates, today))
     return ReplaceNowUnordered(count=unordered.count() - kept, kept_cancelled=kept)
 
 
+def motor_first_replace_by(motor_ref: str) -> Subquery:
+    """The earliest replace-by date of the current assessments of a motor's capacitors in service (`motor_ref`,
+    the outer query's motor id), for `with_its_motor`."""
+    return Subquery(
+        Assessment.objects.filter(
+            fitted_capacitor__motor_id=OuterRef(motor_ref),
+            fitted_capacitor__removed_on__isnull=True,
+            is_current=True,
+            replace_by__isnull=False,
+        )
+        .order_by("replace_by")
+        .values("replace_by")[:1]
+    )
+
+
+def _visit_as_due_days(replace_by_and_motor_first, today: dt.date) -> np.ndarray:
+    """Days from `today` to the day the plan's visits take each capacitor as due (`with_its_motor`), from
+    (its replace-by date, its motor's earliest); inf where it has none."""
+
+    def days(day):
+        return np.inf if day is None else float((max(day, today) - today).days)
+
+    own = np.array([days(by) for by, _ in replace_by_and_motor_first], float)
+    first = np.array([days(first) for _, first in replace_by_and_motor_first], float)
+    return with_its_motor(own, first, PlanningSettings().same_motor_days)
+
+
 def with_current_plan(orders, today: dt.date | None = None):
     """`orders` with their capacitor's current assessment's risk, replace-by date and "read again" word
-    (one subquery each, in the same query), and `plan_late`, the visit late for it (`late_order`)."""
+    (one subquery each, in the same query), the earliest replace-by date of its motor's capacitors
+    (`plan_motor_first_by`), and `plan_late`, the visit late for it (`late_order`)."""
     current = Assessment.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), is_current=True)
     today = today or timezone.localdate()
     return orders.annotate(
         plan_risk=Subquery(current.values("risk")[:1]),
         plan_replace_by=Subquery(CURRENT_REPLACE_BY),
         plan_read_again=Subquery(current.values("read_again")[:1]),
+        plan_motor_first_by=motor_first_replace_by("motor_id"),
     ).annotate(plan_late=ExpressionWrapper(late_order(today, F("plan_replace_by")), output_field=BooleanField()))
 
 
@@ -823,6 +883,7 @@ def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
         plan_due_days=[np.inf if o.plan_replace_by is None else (o.plan_replace_by - today).days for o in orders],
         today=today,
         order_visit_days=[(o.due_on - today).days for o in orders],
+        plan_visit_days=_visit_as_due_days([(o.plan_replace_by, o.plan_motor_first_by) for o in orders], today),
     )
     for order, text in zip(orders, words, strict=True):
         swap = (

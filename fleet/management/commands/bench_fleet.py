@@ -96,9 +96,9 @@ def analyze_tables() -> None:
             cursor.execute(f"VACUUM (ANALYZE) {connection.ops.quote_name(model._meta.db_table)}")
 
 
-
 def _stop_on_sigterm(signum, frame):
     raise SystemExit(128 + signum)
+
 
 class Command(BaseCommand):
     help = "Build an invented fleet (once) and print fleet-refit figures against the COPY read floor."
