@@ -14,7 +14,7 @@ from django.utils import timezone
 from fleet.models import Assessment
 from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.operating_pictures import SWEEP_FRACTIONS, motor_pictures, with_operating_figures
-from tests.factories import make_fitted_capacitor, make_motor, make_part, quarterly_readings
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_reading, quarterly_readings
 
 pytestmark = pytest.mark.django_db
 
@@ -201,3 +201,28 @@ def test_the_figures_follow_the_motor_as_it_stands_not_as_it_stood_at_the_refit(
     assert after.fitted_capacitor_id == start.id
     assert after.figures_new["i_aux_a"] == pytest.approx(fitted_now.figures_new["i_aux_a"], rel=1e-9)
     assert after.figures_new["i_aux_a"] != pytest.approx(before.figures_new["i_aux_a"], rel=1e-3)
+
+
+@pytest.mark.parametrize("read_uf", [0.0, 0.2])
+def test_a_capacitor_read_open_or_shorted_has_no_figures_now_and_the_pages_say_why(client, planner, read_uf):
+    """A walk: a run capacitor read at 0 uF (open circuit suspected, replace now) kept its motor's figures "now"
+    at the trend's 3.6 uF, starting as new. [derived] an open or shorted capacitor is not in the circuit as its
+    trend says; the motor model is not solved for a motor without it, so no figures now are shown, and why."""
+    fitted_capacitor = _assessed_fan()
+    make_reading(fitted_capacitor, capacitance_uf=read_uf, outlier_confirmed=True)
+    refit_fitted_capacitors([fitted_capacitor.id])
+    fitted_capacitor.assessment = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
+    verdict = fitted_capacitor.assessment.latest_verdict
+    assert verdict in ("open circuit suspected", "short circuit suspected")
+    (assessment,) = with_operating_figures([fitted_capacitor.assessment])
+    assert assessment.figures_new and assessment.figures_now == {}
+    pictures = motor_pictures([fitted_capacitor])[fitted_capacitor.id]
+    assert _trace(pictures["sweep"], "as new") and not _trace(pictures["sweep"], "now")
+
+    client.force_login(planner)
+    words = f"its newest reading says {verdict}: the capacitor is not working as its trend"
+    for page in (
+        reverse("fitted_capacitor", args=[fitted_capacitor.id]),
+        reverse("motor", args=[fitted_capacitor.motor.asset_tag]),
+    ):
+        assert words in client.get(page).content.decode()

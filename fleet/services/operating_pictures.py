@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from fleet.charts import capacitance_sweep_figure, phasor_figure
+from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_OPEN, VERDICT_SHORT
 from fleet.engineering.drift import ROLE_RUN, capacitor_sweep, limit_levels, operating_figures
 
 from .assessments import motor_circuits
@@ -36,6 +37,23 @@ def _phasor_points(phasors, column: tuple[int, int], names: dict[str, str]) -> d
         label: (_number(np.abs(value[column])), _number(np.degrees(np.angle(value[column]))))
         for label, value in ((label, getattr(phasors, name)) for name, label in names.items())
     }
+
+
+NOT_WORKING = (VERDICT_NAMES[VERDICT_OPEN], VERDICT_NAMES[VERDICT_SHORT])
+
+
+def no_figures_now(assessment) -> str:
+    """Why the motor's operating figures "now" are not worked out for this capacitor, in words; "" where they are.
+
+    A capacitor whose newest reading says open or short circuit is not in the circuit as its trend (a walk found
+    a capacitor read at 0 uF shown with its motor starting as new, at the trend's 29 uF): the figures as now would
+    be those of a motor without it, which the model does not solve, so none are shown."""
+    if assessment is None or assessment.latest_verdict not in NOT_WORKING:
+        return ""
+    return (
+        f"its newest reading says {assessment.latest_verdict}: the capacitor is not working as its trend, so the "
+        "motor's figures now are not worked out"
+    )
 
 
 def _fraction_now(capacitance_now_uf, rated_uf) -> tuple[np.ndarray, np.ndarray]:
@@ -65,6 +83,7 @@ def motor_pictures(capacitors) -> dict[int, dict]:
     rated_uf = inst["rated_uf"].to_numpy(float)
     now_uf = np.array([c.assessment.capacitance_now_uf if c.assessment else np.nan for c in ordered])
     now_fraction, has_now = _fraction_now(now_uf, rated_uf)
+    has_now &= np.array([not no_figures_now(c.assessment) for c in ordered], bool)
     role = inst["role"].to_numpy()
     n = len(inst)
     # Per capacitor: the grid, then as new (rated), then now.
@@ -113,7 +132,8 @@ def motor_pictures(capacitors) -> dict[int, dict]:
 def with_operating_figures(assessments) -> list:
     """The assessments as a list, each with `figures_new` and `figures_now`: its motor's operating figures
     (`drift.OperatingFigures.as_rows`) with the capacitor as new (its rating) and as now (the assessment's
-    capacitance now; at its rating where there is none), {} where the motor has no equivalent circuit.
+    capacitance now; at its rating where there is none), {} where the motor has no equivalent circuit, and
+    `figures_now` {} too where the newest reading says open or short circuit (`no_figures_now`, its words).
 
     Worked out on reading, for all of them in one core call (the capacitor page's one assessment, an API
     page's hundred), not stored: every refit wrote two dozen figures a capacitor that a page recomputes in
@@ -121,6 +141,7 @@ def with_operating_figures(assessments) -> list:
     assessments = list(assessments)
     for assessment in assessments:
         assessment.figures_new, assessment.figures_now = {}, {}
+        assessment.no_figures_now = no_figures_now(assessment)
     if not assessments:
         return assessments
     inst = fitted_capacitors_frame({a.fitted_capacitor_id for a in assessments})
@@ -146,4 +167,6 @@ def with_operating_figures(assessments) -> list:
     for assessment in assessments:
         if assessment.fitted_capacitor_id in figures:
             assessment.figures_new, assessment.figures_now = figures[assessment.fitted_capacitor_id]
+            if assessment.no_figures_now:
+                assessment.figures_now = {}
     return assessments

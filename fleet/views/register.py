@@ -20,7 +20,7 @@ from fleet.models import FittedCapacitor, Motor, Site, site_zone
 from fleet.roles import needs_permission, scope_to_user
 from fleet.services import pages
 from fleet.services.lifedata import DAYS_PER_YEAR, tolerance_life
-from fleet.services.operating_pictures import motor_pictures, with_operating_figures
+from fleet.services.operating_pictures import motor_pictures, no_figures_now, with_operating_figures
 from fleet.services.selectors import successor_of
 
 
@@ -100,6 +100,7 @@ def motor_detail(request, asset_tag):
         capacitor.recent = pages.recent_readings(capacitor, 4)
     pictures = motor_pictures(in_service) if motor.has_circuit else {}
     for capacitor in in_service:
+        capacitor.no_figures_now = no_figures_now(capacitor.assessment)
         capacitor.charts = [
             {"id": f"{name}-{capacitor.id}", "data_id": f"{name}-{capacitor.id}-data", "figure": figure}
             for name, figure in pictures.get(capacitor.id, {}).items()
