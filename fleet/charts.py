@@ -639,7 +639,9 @@ def _level_words_place(x, ys, level, words, panel_px):
     span = (high - low or abs(level) or 1.0) / (1.0 - 2.0 * share_h)
     words_h = share_h * span
     share_w = min(1.0, max(len(line) for line in lines) * SWEEP_CHAR_PX / SWEEP_PLOT_WIDTH_PX)
-    x_low, x_high = float(x.min()), float(x.max())
+    # No finite point (the model gave no operating point at any capacitance, e.g. a nameplate speed a hair below
+    # synchronous): the words go left above the level, the panel spans them.
+    x_low, x_high = (float(x.min()), float(x.max())) if x.size else (0.0, 1.0)
     reach = share_w * (x_high - x_low)
     candidates = []
     for vertical, y_low, y_high in (("bottom", level, level + words_h), ("top", level - words_h, level)):

@@ -1247,3 +1247,19 @@ def test_a_part_or_motor_row_with_several_faults_has_each_named_in_one_check():
         "rated_speed_rpm",
         "fitted_on",
     }
+
+
+@pytest.mark.django_db
+def test_a_motor_rated_a_hair_below_synchronous_speed_has_a_page(tmp_path, client, planner):
+    """A bad-input hunt: a 4-pole 50 Hz fan rated at 1499.9 rpm (synchronous 1500) came in through the register
+    import, and its motor page answered 500: the model gave no operating point at any capacitance, and placing a
+    limit's words over an empty curve failed. [derived] a page shows what there is, never a server error."""
+    run("sites", write(tmp_path, "sites.csv", SITES))
+    run("parts", write(tmp_path, "parts.csv", PARTS))
+    register = REGISTER.splitlines()[0] + "\nFAN-9,PK,fan,permanent_split,constant,230,50,4,150,1.0,1499.9,RUN-8,,2025-01-01"
+    run("register", write(tmp_path, "register.csv", register))
+    call_command("estimate_circuits", stdout=io.StringIO())
+    assert Motor.objects.get(asset_tag="FAN-9").has_circuit
+    client.force_login(planner)
+    response = client.get(reverse("motor", args=["FAN-9"]))
+    assert response.status_code == 200
