@@ -1256,7 +1256,8 @@ def test_a_motor_rated_a_hair_below_synchronous_speed_has_a_page(tmp_path, clien
     limit's words over an empty curve failed. [derived] a page shows what there is, never a server error."""
     run("sites", write(tmp_path, "sites.csv", SITES))
     run("parts", write(tmp_path, "parts.csv", PARTS))
-    register = REGISTER.splitlines()[0] + "\nFAN-9,PK,fan,permanent_split,constant,230,50,4,150,1.0,1499.9,RUN-8,,2025-01-01"
+    row = "FAN-9,PK,fan,permanent_split,constant,230,50,4,150,1.0,1499.9,RUN-8,,2025-01-01"
+    register = REGISTER.splitlines()[0] + "\n" + row
     run("register", write(tmp_path, "register.csv", register))
     call_command("estimate_circuits", stdout=io.StringIO())
     assert Motor.objects.get(asset_tag="FAN-9").has_circuit

@@ -136,7 +136,8 @@ def test_a_cancel_holds_for_a_capacitor_the_plan_puts_in_its_motors_other_capaci
     [derived] the plan puts it in that visit, so it is the same work in the same visit: the cancel holds."""
     today = timezone.localdate()
     motor = make_motor(site=make_site(code="TWO"))
-    start = make_fitted_capacitor(motor=motor, role="start", part=make_part(code="START-100U", dielectric="electrolytic", rated_uf=100.0))
+    electrolytic = make_part(code="START-100U", dielectric="electrolytic", rated_uf=100.0)
+    start = make_fitted_capacitor(motor=motor, role="start", part=electrolytic)
     run = make_fitted_capacitor(motor=motor, role="run")
     stored_assessment(start, "due soon", today + dt.timedelta(days=10))
     stored_assessment(run, "watch", today + dt.timedelta(days=35))
