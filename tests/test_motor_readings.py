@@ -190,7 +190,7 @@ def test_the_digest_reports_the_overdue_capacitors_of_the_overdue_motors_only():
 
 
 ROUTE_ROW_TEMPLATE = """{% for motor in motors %}
-<tr id="motor-{{ motor.asset_tag }}"><td class="num">{% if can_order %}<input type="text" inputmode="numeric" name="order-{{ motor.id }}" id="place-{{ motor.asset_tag }}" value="{{ motor.route_order }}" style="width:4.5em" aria-label="Place of {{ motor.asset_tag }} on the route">{% else %}{{ motor.route_order }}{% endif %}</td>
+<tr id="motor-{{ motor.asset_tag }}"><td class="num">{% if can_order %}<input type="text" inputmode="numeric" name="order-{{ motor.id }}" id="place-{{ motor.asset_tag }}" value="{{ motor.route_order }}" style="width:4.5em" aria-label="Place of {{ motor.asset_tag }} on the route"><input type="hidden" name="was-{{ motor.id }}" value="{{ motor.route_order }}">{% else %}{{ motor.route_order }}{% endif %}</td>
   <td><a class="button nowrap {% if not motor.due %}secondary{% endif %}" href="{% url 'motor' motor.asset_tag %}">{{ motor.asset_tag }}</a></td>
   <td>{{ motor.location }}<br><span class="muted">{{ motor.get_application_display }}</span></td>
   <td>{% if motor.overdue %}<b class="error-text">overdue</b>{% elif motor.due %}<b>to read</b>{% else %}done{% endif %}{% if motor.still_to_read %}<br><span class="muted">{{ motor.still_to_read|join:" and " }} still to read</span>{% endif %}</td>

@@ -371,6 +371,39 @@ def form_inputs(page: str) -> dict:
     return dict(re.findall(r'<input[^>]*name="((?:qty|was)-\d+)"[^>]*value="(\d*)"', page))
 
 
+def test_a_walking_order_saved_meanwhile_by_another_planner_is_not_undone(capacitor):
+    """A bad-input hunt: two planners opened one site's route; the first moved motor A and saw "Walking order
+    saved."; the second, from the page as loaded, moved motor B and saved: A was back at its old place, and
+    nobody was told. [derived] as the stock page: a box left as shown is not written; a box typed over while
+    its place moved is refused by name, nothing saved."""
+    from tests.factories import make_motor
+
+    site = capacitor.motor.site
+    first, second = capacitor.motor, make_motor(site=site)
+    one, other = Client(), Client()
+    one.force_login(make_user("planner"))
+    other.force_login(make_user("planner"))
+    route = f"/sites/{site.code}/route/"
+
+    def inputs(client):
+        page = client.get(route).content.decode()
+        return dict(re.findall(r'<input[^>]*name="((?:order|was)-\d+)"[^>]*value="(\d*)"', page))
+
+    form_one, form_other = inputs(one), inputs(other)
+    assert one.post(route, {**form_one, f"order-{first.id}": "50"}).status_code == 302
+    assert other.post(route, {**form_other, f"order-{second.id}": "60"}).status_code == 302
+    first.refresh_from_db(), second.refresh_from_db()
+    assert (first.route_order, second.route_order) == (50, 60)
+
+    refused = other.post(route, {**form_other, f"order-{first.id}": "7"})
+    assert refused.status_code == 200
+    assert f"{first.asset_tag}: moved from place {form_other[f'was-{first.id}']} to 50 while this page was open" in (
+        refused.content.decode()
+    )
+    first.refresh_from_db()
+    assert first.route_order == 50
+
+
 def test_a_replacement_between_the_stock_page_and_its_save_is_not_undone(capacitor):
     """Forced in one thread (both databases): the planner opens the stock page (3 of the part), a
     replacement takes one, then the planner saves a change to another part: the draw stays (2 left),

@@ -55,13 +55,17 @@ def _and(words: list[str] | tuple[str, ...]) -> str:
     return words[0] if len(words) == 1 else f"{', '.join(words[:-1])} and {words[-1]}"
 
 
-def set_route_order(*, site: Site, positions: dict[int, str]) -> RouteOrderSaved:
+def set_route_order(*, site: Site, positions: dict[int, str], shown: dict[int, str] | None = None) -> RouteOrderSaved:
     """Set each motor's place on the site's reading route from form text.
 
     Every position must be a whole number from 0 to 99999; one bad entry refuses
     them all, naming the motor. Two motors may hold one place (walked in asset-tag order, as the
     route lists them): the places this save moved a motor to that another motor in service holds
     come back in `shared`, for the page to say.
+
+    `shown` is each motor's place as the form showed it (as the stock page's quantities): a motor left as shown
+    is not written, so another planner's save meanwhile is not undone (a bad-input hunt found it silently
+    overwritten); a motor typed over while its place moved is refused by name, nothing saved.
     """
     motors = {m.id: m for m in Motor.objects.filter(site=site, id__in=storable_ids(positions))}
     before = {motor_id: motor.route_order for motor_id, motor in motors.items()}
@@ -84,9 +88,23 @@ def set_route_order(*, site: Site, positions: dict[int, str]) -> RouteOrderSaved
             motor.route_order = value
     if errors:
         raise ValidationError(errors)
+    as_shown = {motor_id: whole_number(text) for motor_id, text in (shown or {}).items() if motor_id in motors}
+    if shown is not None:
+        motors = {i: m for i, m in motors.items() if as_shown.get(i) != m.route_order}
     with transaction.atomic():
         # In id order, as a refit share-locks them (`assessments._capacitor_facts_locked`).
-        list(Motor.objects.select_for_update().filter(id__in=list(motors)).order_by("id").values_list("id"))
+        locked = Motor.objects.select_for_update().filter(id__in=list(motors)).order_by("id")
+        now = dict(locked.values_list("id", "route_order"))
+        moved_meanwhile = {
+            motors[i].asset_tag: (
+                f"moved from place {as_shown[i]} to {now[i]} while this page was open (another save of the walking "
+                "order); check it and save again."
+            )
+            for i in motors
+            if as_shown.get(i) is not None and i in now and now[i] != as_shown[i]
+        }
+        if moved_meanwhile:
+            raise ValidationError(moved_meanwhile)
         audited_bulk_update(list(motors.values()), ["route_order"])
         moved = [motor for motor_id, motor in motors.items() if motor.route_order != before[motor_id]]
         shared = _shared_places(site, moved)

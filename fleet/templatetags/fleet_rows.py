@@ -167,7 +167,7 @@ ROUTE_ROW = """
 # Text, not a number field: a refused entry ("two", "-1") comes back in its box exactly as typed.
 ROUTE_ORDER_INPUT = (
     '<input type="text" inputmode="numeric" name="order-{id}" id="place-{tag}" value="{value}" style="width:4.5em" '
-    'aria-label="Place of {tag} on the route"{invalid}>'
+    'aria-label="Place of {tag} on the route"{invalid}><input type="hidden" name="was-{id}" value="{shown}">'
 )
 ROUTE_ORDER_INVALID = ' aria-invalid="true" aria-describedby="place-{}-error"'
 # A refused place's message: a row of its own under the motor's, tied to the box it is about.
@@ -210,6 +210,7 @@ def route_rows(motors, can_order, typed=None, errors=None, can_read=False, back=
                 id=motor.id,
                 tag=motor.asset_tag,
                 value=typed.get(motor.id, motor.route_order),
+                shown=motor.route_order,
                 invalid=format_html(ROUTE_ORDER_INVALID, motor.asset_tag) if problems else "",
             )
         rows.append(

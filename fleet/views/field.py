@@ -318,9 +318,10 @@ def site_route(request, site):
     if request.method == "POST":
         if not request.user.has_perm("fleet.change_motor"):
             raise refused(request.user, "fleet.change_motor")
-        positions = _values_by_id(request.POST, "order-")
+        # order-<motor id>: the place typed; was-<motor id>: the place the page showed
+        positions, shown = _values_by_id(request.POST, "order-"), _values_by_id(request.POST, "was-")
         try:
-            saved = set_route_order(site=site, positions=positions)
+            saved = set_route_order(site=site, positions=positions, shown=shown)
         except ValidationError as error:
             # Nothing saved; the boxes come back as typed (as the stock page's do), the refused ones marked.
             order_errors, typed = error.message_dict, positions
