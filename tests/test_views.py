@@ -63,6 +63,16 @@ def test_a_capacitor_in_service_carries_the_cautions_with_its_own_stored_energy(
     assert "a start capacitor can reach well over it during a start" in body
 
 
+def test_a_removed_capacitors_page_says_it_can_still_hold_a_charge(signed_in, technician):
+    """A walk: the page of a capacitor taken out had no caution at all, though the part may sit in a store or a
+    bin still charged. [trade] a capacitor out of circuit keeps its charge until discharged; the page says so
+    and defers to local codes and licensed practice."""
+    removed = make_fitted_capacitor(removed_on=dt.date(2025, 3, 1), removal_reason="failed")
+    body = signed_in(technician).get(reverse("fitted_capacitor", args=[removed.id])).content.decode()
+    assert "This capacitor is out of service" in body
+    assert "can still hold a charge that can kill" in body and "local codes and licensed practice decide" in body
+
+
 def test_the_motor_and_capacitor_pages_give_reading_times_in_the_sites_time(signed_in, technician):
     """The reading form and its correction banner speak the site's time; the capacitor page listed the
     same reading an hour earlier (UTC, unlabelled), and "corrects the reading of 11:25" followed
