@@ -24,6 +24,7 @@ from .engineering.rules import (
     FIRST_ACCEPTED_DAY,
     LAST_ACCEPTED_DAY,
     MSG_NOT_FINITE,
+    NOT_FINITE_WORDS,
     parse_numbers,
 )
 from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
@@ -328,8 +329,11 @@ class PositiveNumberField(forms.CharField):
             return None
         numbers, said = parse_numbers([text])
         number = float(numbers[0])
-        if said[0] == MSG_NOT_FINITE and self.highest is not None:  # 1e309 is a number, past any bound
-            number = np.inf
+        typed_infinity = str(text).strip().lower() in NOT_FINITE_WORDS
+        if said[0] == MSG_NOT_FINITE and self.highest is not None and not typed_infinity:
+            number = np.inf  # 1e309 is a number, past any bound
+        elif typed_infinity:
+            raise ValidationError("must be a finite number above zero")  # "NaN" was told "at most 1,000,000"
         if not number > 0:
             raise ValidationError("must be a number above zero")
         if self.highest is not None and number > self.highest:

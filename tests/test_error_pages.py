@@ -55,6 +55,10 @@ def test_a_cost_that_is_not_a_number_is_named_not_silently_replaced(client, engi
     text = response.content.decode()
     assert "The planned cost must be a number above zero; &#x27;abc&#x27; was not used" in text
     assert "The failure cost must be a number above zero" in text
+    # A walk: NaN was told "must be at most 1,000,000" (taken as a number past the bound, as 1e309 rightly is).
+    text = client.get(reverse("life_data") + "?planned_cost=NaN&failure_cost=inf", follow=True).content.decode()
+    assert "The planned cost must be a finite number above zero; &#x27;NaN&#x27; was not used" in text
+    assert "The failure cost must be a finite number above zero; &#x27;inf&#x27; was not used" in text
 
 
 @pytest.mark.django_db
