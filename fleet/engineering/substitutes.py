@@ -342,9 +342,8 @@ def advise(
                 if u
                 else f"rated {v:g} V is below the predicted capacitor voltage {p:.0f} V"
                 if b
-                else f"rated {v:g} V, at least the design part's, is above the {p:.0f} V a nameplate-only estimate "
-                f"puts across it by less than the {rules.voltage_margin - 1:.0%} margin, finer than such an estimate "
-                "resolves: as designed"
+                else f"rated {v:g} V, as the design part or more: as designed (a nameplate-only estimate puts "
+                f"{p:.0f} V across it, too rough to ask for the {rules.voltage_margin - 1:.0%} margin above that)"
                 if d
                 else f"rated {v:g} V is within the {rules.voltage_margin - 1:.0%} margin above the predicted {p:.0f} V"
                 if t
