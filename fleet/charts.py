@@ -269,12 +269,30 @@ def calibration_figure(observed_by_variant: dict[str, list[dict]]) -> dict:
     return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="forecast date", yaxis_title="share crossed by it")
 
 
-def coverage_figure(cutoffs: list[str], coverage_by_variant: dict[str, list[float | None]], nominal: float) -> dict:
-    """Share of observed crossings inside the P10-P90 band at each cut-off, against the nominal share.
+def coverage_figure(
+    cutoffs: list[str],
+    coverage_by_variant: dict[str, list[float | None]],
+    nominal: float,
+    if_right: list[float | None] | None = None,
+) -> dict:
+    """Share of observed crossings inside the P10-P90 band at each cut-off, against the nominal share and,
+    given `if_right`, the share exactly right forecasts would show at each cut-off (`expected_band_shares`:
+    only crossings within the follow-up are seen, fewer of them inside the band the shorter it is).
 
     cutoffs: ISO dates; coverage_by_variant: label -> share (0..1, None where nothing crossed) per cut-off.
     """
     figure = go.Figure()
+    if if_right and any(share is not None for share in if_right):
+        figure.add_trace(
+            go.Scatter(
+                x=cutoffs,
+                y=[None if s is None else 100 * s for s in if_right],
+                mode="lines",
+                line={"color": LIMIT, "width": 2, "dash": "dot"},
+                name="right forecasts would show",
+                hovertemplate="%{x|%Y-%m-%d}: %{y:.0f} % if every forecast were right<extra></extra>",
+            )
+        )
     for (label, shares), color in zip(coverage_by_variant.items(), (DEFAULT_BANDS, TREND), strict=False):
         figure.add_trace(
             go.Scatter(
@@ -291,7 +309,7 @@ def coverage_figure(cutoffs: list[str], coverage_by_variant: dict[str, list[floa
         y=100 * nominal,
         line={"color": LIMIT, "dash": "dash"},
         annotation_text=f"nominal {100 * nominal:.0f} %",
-        annotation_position="top left",
+        annotation_position="bottom right",  # clear of the first cut-off's point (a walk saw them overlap)
     )
     figure.update_xaxes(type="date", tickformat="%Y-%m")
     figure.update_yaxes(range=[0, 100], ticksuffix=" %")

@@ -104,6 +104,8 @@ def test_a_finished_back_test_shows_its_stored_figures(client, engineer):
     for variant in ("default", "calibrated"):
         shares = [cutoff[variant]["inside_p10_p90"] for cutoff in results["cutoffs"]]
         assert by_name[f"{variant} bands"]["y"] == [None if s is None else 100 * s for s in shares]
+    expected = [cutoff["calibrated"]["expected_inside_p10_p90"] for cutoff in results["cutoffs"]]
+    assert by_name["right forecasts would show"]["y"] == [None if s is None else 100 * s for s in expected]
     calibration = json_script(body, "calibration-data")
     observed = {trace["name"]: trace["y"] for trace in calibration["data"] if trace.get("name")}
     assert observed["calibrated bands"] == [

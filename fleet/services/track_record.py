@@ -135,6 +135,7 @@ def _figures(results: dict) -> dict:
             [row["cutoff"] for row in cutoffs],
             {VARIANT_LABELS[v]: [row[v]["inside_p10_p90"] for row in cutoffs] for v in VARIANT_LABELS},
             NOMINAL_COVERAGE,
+            [row["calibrated"].get("expected_inside_p10_p90") for row in cutoffs],
         )
     return figures
 

@@ -330,7 +330,7 @@ def site_days_off_page(request, site):
                     messages.warning(
                         request,
                         format_html(
-                            '{} A visit is on that day already ({} open work order{}): move it from <span '
+                            "{} A visit is on that day already ({} open work order{}): move it from <span "
                             'class="nowrap"><a class="glove" href="{}">its visit page</a>.</span>',
                             words,
                             n,
