@@ -275,14 +275,15 @@ def coverage_figure(
     nominal: float,
     if_right: list[float | None] | None = None,
 ) -> dict:
-    """Share of observed crossings inside the P10-P90 band at each cut-off, against the nominal share and,
-    given `if_right`, the share exactly right forecasts would show at each cut-off (`expected_band_shares`:
-    only crossings within the follow-up are seen, fewer of them inside the band the shorter it is).
+    """Share of observed crossings inside the P10-P90 band at each cut-off, against the share exactly right
+    forecasts would show at each cut-off (`if_right`, `expected_band_shares`: only crossings within the follow-up
+    are seen, fewer of them inside the band the shorter it is; the nominal share where that is not known).
 
     cutoffs: ISO dates; coverage_by_variant: label -> share (0..1, None where nothing crossed) per cut-off.
     """
     figure = go.Figure()
-    if if_right and any(share is not None for share in if_right):
+    right_known = bool(if_right) and any(share is not None for share in if_right)
+    if right_known:
         figure.add_trace(
             go.Scatter(
                 x=cutoffs,
@@ -305,12 +306,13 @@ def coverage_figure(
                 hovertemplate="%{x|%Y-%m-%d}: %{y:.0f} %<extra></extra>",
             )
         )
-    figure.add_hline(
-        y=100 * nominal,
-        line={"color": LIMIT, "dash": "dash"},
-        annotation_text=f"nominal {100 * nominal:.0f} %",
-        annotation_position="bottom right",  # clear of the first cut-off's point (a walk saw them overlap)
-    )
+    if not right_known:  # a back-test stored before the expected shares: the nominal share alone
+        figure.add_hline(
+            y=100 * nominal,
+            line={"color": LIMIT, "dash": "dash"},
+            annotation_text=f"nominal {100 * nominal:.0f} %",
+            annotation_position="top left",
+        )
     figure.update_xaxes(type="date", tickformat="%Y-%m")
     figure.update_yaxes(range=[0, 100], ticksuffix=" %")
     return _styled(figure, height=CHART_HEIGHT_PX, xaxis_title="cut-off", yaxis_title="crossings inside P10-P90")
