@@ -10,6 +10,7 @@ import io
 import itertools
 import re
 import zipfile
+import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -190,7 +191,10 @@ def _read_csv_columns(
     lines, fields too long for it, or loose quotes (the exact reader names what is wrong, by row)."""
     if '"' in text and re.search(_LOOSE_QUOTES.replace("D", re.escape(delimiter)), text):
         return None
-    first = next(csv.reader(io.StringIO(text[:1_000_000], newline=""), delimiter=delimiter), [])
+    try:
+        first = next(csv.reader(io.StringIO(text[:1_000_000], newline=""), delimiter=delimiter), [])
+    except csv.Error as error:  # a heading too long for the reader
+        raise FileRefused(_csv_error_words(error, 1, delimiter, text)) from error
     if len(first) > limits.columns:
         raise limits.too_many_columns()
     try:
@@ -250,7 +254,7 @@ def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str]
             if len(rows) > limits.rows + 1:
                 raise limits.too_many_rows(len(rows) - 1)
     except csv.Error as error:
-        raise FileRefused(_csv_error_words(error, reader.line_num, delimiter)) from error
+        raise FileRefused(_csv_error_words(error, reader.line_num, delimiter, text)) from error
     if not rows:
         raise FileRefused("The file is empty.")
     header, body = [h.strip() for h in rows[0]], NumberedRows(rows[1:], starts[1:])
@@ -263,7 +267,7 @@ def _read_csv_rows(text: str, delimiter: str, limits: Limits) -> tuple[list[str]
     return header, body
 
 
-def _csv_error_words(error: csv.Error, line: int, delimiter: str) -> str:
+def _csv_error_words(error: csv.Error, line: int, delimiter: str, text: str) -> str:
     """Python's CSV error, with the line it stopped at and what to do about it."""
     separator = {",": "comma", ";": "semicolon", "\t": "tab"}[delimiter]
     if "expected after" in str(error):
@@ -271,9 +275,32 @@ def _csv_error_words(error: csv.Error, line: int, delimiter: str) -> str:
             f'a field in quotes is closed by " and followed by other text instead of a {separator}: write a quote '
             'inside a quoted field as two quotes ("")'
         )
+    elif "field limit" in str(error) and _line_length(text, line) > csv.field_size_limit():
+        # The line alone is longer than a field may be: a field too long, not a quote left open over lines.
+        where = "a heading" if line == 1 else "a field"
+        what = (
+            f"{where} is longer than {csv.field_size_limit():,} characters, the most a field may hold: "
+            "shorten it, or take the column out of the file"
+        )
+    elif "field limit" in str(error):
+        what = (
+            f"a quoted field runs on over line breaks past {csv.field_size_limit():,} characters, the most a field "
+            "may hold: the file may be cut off inside a quoted field, or a quote opened in it is never closed"
+        )
     else:
         what = f"{error}; the file may be cut off inside a quoted field"
     return f"The CSV cannot be read at line {line}: {what}. Nothing was imported."
+
+
+def _line_length(text: str, line: int) -> int:
+    """The length of the file's line `line` (counted from 1, as the CSV reader counts them; 0 past the end)."""
+    start = 0
+    for _ in range(line - 1):
+        start = text.find("\n", start) + 1
+        if not start:
+            return 0
+    end = text.find("\n", start)
+    return (end if end >= 0 else len(text)) - start
 
 
 def _refuse_repeated_headings(header: list[str]) -> None:
@@ -297,7 +324,9 @@ def _check_workbook_size(content: bytes, limits: Limits) -> None:
     try:
         archive = zipfile.ZipFile(io.BytesIO(content))
     except zipfile.BadZipFile as error:
-        raise FileRefused("The workbook cannot be read: it is not an XLSX file (not a zip archive).") from error
+        raise FileRefused(
+            "The workbook cannot be read: it is not an XLSX file, or it is cut off (not a whole zip archive)."
+        ) from error
     unpacked = sum(info.file_size for info in archive.infolist())
     if unpacked > limits.unpacked_bytes:
         raise FileRefused(
@@ -308,8 +337,12 @@ def _check_workbook_size(content: bytes, limits: Limits) -> None:
     sheet = _first_sheet_path(archive)
     if sheet is None:
         return
-    with archive.open(sheet) as stream:
-        head = stream.read(64 * 1024)
+    try:
+        with archive.open(sheet) as stream:
+            head = stream.read(64 * 1024)
+        rows = _count_row_tags(archive, sheet, stop_after=limits.rows + 1)
+    except (zipfile.BadZipFile, zlib.error, EOFError) as error:  # a corrupt member is found as it is unpacked
+        raise FileRefused(_damaged_sheet_words(error)) from error
     found = _DIMENSION.search(head)
     if found:
         from openpyxl.utils.cell import range_boundaries
@@ -322,7 +355,6 @@ def _check_workbook_size(content: bytes, limits: Limits) -> None:
             raise limits.too_many_rows(max_row - (min_row or 1))
         if max_col is not None and max_col - (min_col or 1) + 1 > limits.columns:
             raise limits.too_many_columns()
-    rows = _count_row_tags(archive, sheet, stop_after=limits.rows + 1)
     if rows > limits.rows + 1:
         raise limits.too_many_rows(rows - 1)
 
@@ -417,12 +449,44 @@ def _unsaved_formula(cell, formula_cell) -> str:
     return formula if isinstance(formula, str) and formula else ""
 
 
+def _undamaged(rows):
+    """The rows of a read-only sheet; whatever its parser meets in a damaged sheet refuses the file in words."""
+    try:
+        yield from rows
+    except Exception as error:  # noqa: BLE001 - the parser's errors only (the loop's own are not thrown in here)
+        raise FileRefused(_damaged_sheet_words(error)) from error
+
+
+def _damaged_sheet_words(error: Exception) -> str:
+    """What is wrong with a sheet the parser could not read to its end, in words a spreadsheet user can act on."""
+    from xml.etree.ElementTree import ParseError
+
+    if isinstance(error, ParseError):
+        what = f"its XML is cut off or malformed: {error}"
+    elif isinstance(error, IndexError):
+        what = "a cell refers to a shared text the workbook does not hold"
+    elif isinstance(error, zipfile.BadZipFile | zlib.error | EOFError):
+        what = f"its packed data is corrupt: {error}"
+    else:
+        what = f"a row or cell cannot be read: {error}"
+    return (
+        f"The workbook cannot be read: its sheet is damaged ({what}). Nothing was imported. "
+        "Open it in the spreadsheet and save it again, or save it as CSV."
+    )
+
+
 def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]:
     _check_workbook_size(content, limits)
     from openpyxl import load_workbook
 
     try:
-        sheet = load_workbook(io.BytesIO(content), read_only=True, data_only=True).worksheets[0]
+        sheets = load_workbook(io.BytesIO(content), read_only=True, data_only=True).worksheets
+        if not sheets:
+            raise FileRefused(
+                "The workbook cannot be read: it holds no sheet (its sheets are missing from the file, "
+                "which may not have been saved whole). Save it again, or save it as CSV."
+            )
+        sheet = sheets[0]
         # Formulas are read a second time, as formulas, only from a sheet that holds some: a formula whose value
         # was never saved reads as an empty cell, which must not pass for one left blank.
         archive = zipfile.ZipFile(io.BytesIO(content))
@@ -431,6 +495,8 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]
             if _has_formulas(archive, _first_sheet_path(archive))
             else None
         )
+    except FileRefused:
+        raise
     except Exception as error:  # noqa: BLE001 - any unreadable workbook is refused the same way
         raise FileRefused(f"The workbook cannot be read: {error}") from error
 
@@ -447,8 +513,11 @@ def _read_xlsx(content: bytes, limits: Limits) -> tuple[list[str], NumberedRows]
     numbers: list[int] = []
     unsaved: set[tuple[int, int]] = set()
     width = 0
-    rows = sheet.iter_rows(max_col=limits.columns + 1)
-    formula_rows = formulas.iter_rows(max_col=limits.columns + 1) if formulas is not None else itertools.repeat(None)
+    # A read-only sheet is parsed as its rows are read: a damaged one fails here, not in load_workbook.
+    rows = _undamaged(sheet.iter_rows(max_col=limits.columns + 1))
+    formula_rows = (
+        _undamaged(formulas.iter_rows(max_col=limits.columns + 1)) if formulas is not None else itertools.repeat(None)
+    )
     # Read-only sheets yield every row from the first, missing ones as empty: the count is the sheet's row.
     for number, (cells, formula_cells) in enumerate(zip(rows, formula_rows, strict=False), start=1):
         row = [text(c) for c in cells]
