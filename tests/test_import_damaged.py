@@ -8,11 +8,12 @@ import zipfile
 import pytest
 from django.core.management import call_command
 from django.core.management.base import CommandError
+from django.urls import reverse
 from openpyxl import Workbook
 
 from fleet.imports.files import FileRefused, read_table
 from fleet.models import ImportJob
-from fleet.services.import_jobs import create_job, read_job
+from fleet.services.import_jobs import check_job, create_job, read_job
 
 pytestmark = pytest.mark.django_db
 
@@ -128,3 +129,19 @@ def test_a_damaged_file_is_refused_at_the_command_line_without_a_traceback(tmp_p
         path.write_bytes(content)
         with pytest.raises(CommandError, match=f"{name}: refused. The "):
             call_command("import", "readings", str(path), stdout=io.StringIO())
+
+
+def test_the_rows_to_fix_of_a_failed_job_are_a_message_not_a_server_error(client, technician):
+    """The rows-to-fix download read a failed job's file again in the request and met the error that failed it:
+    a 500 ([derived]: a job that failed before its rows were checked has no rows to fix; it answers as a refused
+    file does, with its message)."""
+    job = create_job(kind="readings", filename="damaged.xlsx", content=readings_workbook(cut_off), user=technician)
+    ImportJob.objects.filter(pk=job.pk).update(
+        state=ImportJob.State.FAILED, message="The import stopped on an unexpected error (ParseError)."
+    )
+    client.force_login(technician)
+    response = client.get(reverse("import_rejected", args=[job.id]), follow=True)
+    assert response.status_code == 200
+    assert "There are no rows to download: The import stopped on an unexpected error" in response.content.decode()
+    refused = check_job(job.id)  # checked again, the file is refused in words
+    assert refused.state == ImportJob.State.REFUSED and "its sheet is damaged" in refused.message

@@ -550,9 +550,12 @@ def rejected_rows_csv(job: ImportJob) -> bytes:
     """The bad rows as uploaded, with a last column saying what is wrong, field by field, after the row's number
     in the uploaded file ("row 7: ..."), which the messages ("the same ... as row 2") and the page cite. A
     readings file without a `confirmed` column gets an empty one, for the rows whose message asks to confirm a
-    value as re-checked."""
+    value as re-checked. A file refused (or a job that failed) before its rows were checked raises FileRefused."""
     if job.file_deleted_at:
         raise files.FileRefused(deleted_file_words(job))
+    if job.state == ImportJob.State.FAILED and not job.error_rows:
+        # The file failed the worker before any row was checked: it is not read again here, in the request.
+        raise files.FileRefused(job.message or "the file could not be checked. Upload it again.")
     outcome = check_file(
         kind=job.kind, filename=job.filename, content=bytes(job.content), mapping=job.mapping, user=job.created_by
     )
