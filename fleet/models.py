@@ -41,6 +41,7 @@ from fleet.engineering.rules import (
     ELECTROLYTIC_RUN_WORDS,
     METHOD_IN_CIRCUIT,
     METHOD_METER,
+    PART_UNIT_COST_DECIMALS,
     UNDER_VOLTAGE_WORDS,
     ReadsOtherFields,
     commissioning_problems,
@@ -385,7 +386,7 @@ class CapacitorPart(models.Model):
         blank=True,
         help_text="Temperature coefficient, ppm/K; empty: the dielectric's default, refined from readings",
     )
-    unit_cost = models.DecimalField(max_digits=10, decimal_places=2, default=0)
+    unit_cost = models.DecimalField(max_digits=10, decimal_places=PART_UNIT_COST_DECIMALS, default=0)
 
     class Meta:
         ordering = ["code"]

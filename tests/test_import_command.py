@@ -2,6 +2,7 @@
 
 import datetime as dt
 import io
+from decimal import Decimal
 from unittest import mock
 
 import pytest
@@ -1264,3 +1265,52 @@ def test_a_motor_rated_a_hair_below_synchronous_speed_has_a_page(tmp_path, clien
     client.force_login(planner)
     response = client.get(reverse("motor", args=["FAN-9"]))
     assert response.status_code == 200
+
+
+def test_a_unit_cost_past_the_cent_is_refused_by_row_and_field_not_rounded(tmp_path, client, administrator):
+    """A unit cost of 12.345, 0.001 or 99999.999 was rounded to the cent as it went in (12.35, 0.00, 100000.00),
+    and the same file imported again was then refused as changed; the admin refuses three decimals. The register
+    keeps a price to the cent (the field's two decimal places), one rule for both ([derived]: a value with more
+    than two decimals is not its own rounding to two; common practice of the trade, no single source: prices to
+    the cent). 12.340 and 12,5 are two decimals and one, and go in."""
+    text = (
+        PARTS.splitlines()[0]
+        + "\n"
+        + "\n".join(
+            [
+                "FINE-1,8,5,5,450,film,50,B,S2,0.002,12.345",
+                "FINE-2,8,5,5,450,film,50,B,S2,0.002,0.001",
+                "FINE-3,8,5,5,450,film,50,B,S2,0.002,99999.999",
+            ]
+        )
+    )
+    out = io.StringIO()
+    with pytest.raises(CommandError, match="3 rows have problems"):
+        call_command("import", "parts", str(write(tmp_path, "parts.csv", text)), stdout=out)
+    report = out.getvalue()
+    for row, typed in ((2, "12.345"), (3, "0.001"), (4, "99999.999")):
+        assert f"row {row}, unit_cost: two decimals at most: {typed} has more" in report
+    assert not CapacitorPart.objects.exists()
+    fine = (
+        PARTS.splitlines()[0]
+        + '\nCENT-1,8,5,5,450,film,50,B,S2,0.002,12.340\nCENT-2,8,5,5,450,film,50,B,S2,0.002,"12,5"\n'
+    )
+    path = write(tmp_path, "cents.csv", fine)
+    assert "Imported 2 rows" in run("parts", path)
+    assert sorted(CapacitorPart.objects.values_list("unit_cost", flat=True)) == [Decimal("12.34"), Decimal("12.50")]
+    with pytest.raises(CommandError, match="Nothing was imported"):
+        run("parts", path)  # the same file again: nothing new, nothing refused as changed
+    client.force_login(administrator)
+    form = {
+        "code": "CENT-3",
+        "rated_uf": "8",
+        "tolerance_minus_pct": "5",
+        "tolerance_plus_pct": "5",
+        "rated_voltage_v": "450",
+        "frequency_hz": "50",
+        "dielectric": "film",
+        "max_case_temperature_c": "70",
+        "unit_cost": "12.345",
+    }
+    response = client.post(reverse("admin:fleet_capacitorpart_add"), form)
+    assert response.status_code == 200 and not CapacitorPart.objects.filter(code="CENT-3").exists()

@@ -489,6 +489,7 @@ PART_CASE_TEMPERATURE_C = (0.0, 150.0)
 # Film and electrolytic coefficients are a few hundred ppm/K (common practice of the trade, no single source).
 PART_MAX_TEMPCO_PPM_PER_K = 5000.0
 PART_MAX_UNIT_COST = 100_000.0  # a motor capacitor costs tens, a slip of the decimal point millions (ours)
+PART_UNIT_COST_DECIMALS = 2  # a price to the cent, as the register keeps it (its field's decimal places)
 
 
 def part_problems(
@@ -550,6 +551,11 @@ def part_problems(
                 (cost < 0) | (cost > PART_MAX_UNIT_COST),
                 "unit_cost",
                 f"must be from 0 to {PART_MAX_UNIT_COST:,.0f}: check the decimal point",
+            ),
+            (
+                too_fine := np.isfinite(cost) & (np.round(cost, PART_UNIT_COST_DECIMALS) != cost),
+                "unit_cost",
+                _messages(too_fine, "two decimals at most: {v:g} has more", v=cost),
             ),
             (
                 np.abs(tempco) > PART_MAX_TEMPCO_PPM_PER_K,
