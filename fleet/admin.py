@@ -16,6 +16,7 @@ from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
 from .engineering.rules import FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY, parse_numbers
+from .forms import DAY_INPUT_FORMATS
 from .models import (
     Assessment,
     AuditEntry,
@@ -99,8 +100,16 @@ class CheckedAutocompleteSelectMultiple(AutocompleteSelectMultiple):
 
 
 class CheckedAutocompleteMixin:
-    """Every admin screen's autocomplete boxes (`autocomplete_fields`) are the checked ones; used by every admin
-    class and inline here (`tests/test_admin.py` walks them all)."""
+    """Every admin screen's autocomplete boxes (`autocomplete_fields`) are the checked ones, and its day boxes read
+    year-month-day only, as the pages' do (`DAY_INPUT_FORMATS`); used by every admin class and inline here
+    (`tests/test_admin.py` walks them all)."""
+
+    def formfield_for_dbfield(self, db_field, request, **kwargs):
+        field = super().formfield_for_dbfield(db_field, request, **kwargs)
+        day = field.fields[0] if isinstance(field, forms.SplitDateTimeField) else field
+        if isinstance(day, forms.DateField):
+            day.input_formats = DAY_INPUT_FORMATS
+        return field
 
     def formfield_for_foreignkey(self, db_field, request, **kwargs):
         if "widget" not in kwargs and db_field.name in self.get_autocomplete_fields(request):

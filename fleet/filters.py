@@ -27,6 +27,7 @@ from .engineering.rules import (
     NOT_FINITE_WORDS,
     parse_numbers,
 )
+from .forms import YearMonthDayField
 from .models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from .roles import scope_to_user
 
@@ -84,7 +85,7 @@ FILTER_DAY_WORDS = f"a date {ACCEPTED_DAYS_WORDS} (YYYY-MM-DD)"
 DAY_SHAPE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
 
 
-class DayField(forms.DateField):
+class DayField(YearMonthDayField):
     """A day typed or sent; one in the shape YYYY-MM-DD that no calendar holds is "not a day of the
     calendar", not the span's words (which read as if the date were out of range)."""
 

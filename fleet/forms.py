@@ -15,6 +15,15 @@ from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, 
 
 # The phone's date-and-time picker sends minutes: "2026-03-14T09:30" (wall-clock time at the site).
 LOCAL_MINUTE = "%Y-%m-%dT%H:%M"
+# A day is typed year-month-day, as every box's message asks and the date picker sends: only that. Django's
+# English formats also read 01/04/27 as month/day/year (4 January), a day the person may have meant as 1 April.
+DAY_INPUT_FORMATS = ["%Y-%m-%d"]
+
+
+class YearMonthDayField(forms.DateField):
+    """A day box that reads year-month-day only (`DAY_INPUT_FORMATS`); every date box of the forms is one."""
+
+    input_formats = DAY_INPUT_FORMATS
 
 
 def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.CharField:
@@ -145,12 +154,15 @@ class ReplacementForm(forms.Form):
         error_messages={"required": "Choose the part you fitted, as on the new capacitor's label."},
     )
     serial = forms.CharField(required=False, label="Serial or date code of the new capacitor")
-    removed_on = forms.DateField(
+    removed_on = YearMonthDayField(
         initial=timezone.localdate,
         label="Replaced on",
         # The browser's order of day and month (12/04/2026 is 12 April to many): page.js says the day in words.
         widget=forms.DateInput(attrs={"type": "date", "data-day-words": "replaced-day-words"}),
-        error_messages={"required": "Enter the day you replaced it, e.g. 2026-03-14."},
+        error_messages={
+            "required": "Enter the day you replaced it, e.g. 2026-03-14.",
+            "invalid": "Enter the day as year-month-day, e.g. 2026-03-14.",
+        },
     )
     removal_reason = forms.ChoiceField(
         choices=FittedCapacitor.RemovalReason.choices,
@@ -203,7 +215,7 @@ class ReplacementForm(forms.Form):
 class MoveVisitForm(forms.Form):
     """The day to move a whole site visit to; `workorders.move_visit` holds the rules (working day, not past)."""
 
-    to_day = forms.DateField(
+    to_day = YearMonthDayField(
         label="Move this visit to",
         # The box is written in the browser's order of day, month and year: page.js says its day in words
         # beside it (the element named by data-day-words).
@@ -218,7 +230,7 @@ class MoveVisitForm(forms.Form):
 class DayOffForm(forms.Form):
     """A day a site does no visits; `workorders.add_day_off` holds the rules (not past, within the plan's reach)."""
 
-    day = forms.DateField(
+    day = YearMonthDayField(
         label="Day off",
         widget=forms.DateInput(attrs={"type": "date", "data-day-words": "day-off-words"}),
         error_messages={
