@@ -2,6 +2,7 @@
 
 import datetime as dt
 import gzip
+import io
 import json
 import os
 import sqlite3
@@ -217,3 +218,42 @@ def test_a_file_name_that_says_nothing_of_its_format_is_refused(tmp_path):
     with pytest.raises(CommandError, match=r"\.json or \.json\.gz"):
         call_command("backup", str(tmp_path / "fleet.bak"))
     assert not FittedCapacitor.objects.exists()
+
+
+def test_a_backup_that_cannot_be_read_is_refused_in_words_not_a_traceback(tmp_path):
+    """A .json.gz that is not gzipped ended in a BadGzipFile traceback, a gzip cut off in an EOFError, broken JSON
+    in a DeserializationError ([pub] RFC 1952: a gzip member starts with the bytes 1f 8b; [derived]: each is
+    refused naming the file, and nothing is restored)."""
+    plain = tmp_path / "plain.json.gz"
+    plain.write_text("[]")
+    whole = gzip.compress(json.dumps([{"model": "fleet.site", "pk": 1, "fields": {"code": "X"}}] * 50).encode())
+    cut = tmp_path / "cut.json.gz"
+    cut.write_bytes(whole[: len(whole) // 2])
+    broken = tmp_path / "broken.json"
+    broken.write_text('[{"model": "fleet.site", "pk": 1, "fields": {"code": "X"')
+    for path, words in (
+        (plain, "not a gzipped file"),
+        (cut, "the gzipped file is cut off or damaged"),
+        (broken, "not a backup that can be read: Expecting"),
+    ):
+        with pytest.raises(CommandError) as refused:
+            call_command("restore", str(path))
+        assert str(refused.value).startswith(f"{path}: {words}") and "Nothing was restored" in str(refused.value)
+
+
+def test_a_backup_naming_a_time_zone_nobody_knows_is_refused_by_the_site_forms_rule(tmp_path):
+    """ "time_zone": "Nowhere/None" was restored as it was (loaddata checks no field), and that site's times were
+    then read in the server's zone ([pub] IANA time zone database: no zone of that name; the rule is the site
+    form's, `site_time_zone`)."""
+    from fleet.models import Site
+
+    backup = tmp_path / "zone.json"
+    site = {"code": "NZ", "name": "Nowhere", "time_zone": "Nowhere/None"}
+    backup.write_text(json.dumps([{"model": "fleet.site", "pk": 7, "fields": site}]))
+    with pytest.raises(CommandError, match="site NZ has the time zone 'Nowhere/None', which the tz database"):
+        call_command("restore", str(backup))
+    assert not Site.objects.exists()
+    site["time_zone"] = "Europe/Madrid"
+    backup.write_text(json.dumps([{"model": "fleet.site", "pk": 7, "fields": site}]))
+    call_command("restore", str(backup), stdout=io.StringIO())
+    assert Site.objects.get().time_zone == "Europe/Madrid"

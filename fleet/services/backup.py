@@ -11,14 +11,20 @@ triggers see each capacitor as it is when its readings arrive.
 
 from __future__ import annotations
 
+import gzip
+import zlib
+
 from django.apps import apps
 from django.contrib.auth.models import Group, Permission
 from django.contrib.contenttypes.models import ContentType
 from django.contrib.sessions.models import Session
 from django.core.management import CommandError, call_command
+from django.core.serializers.base import DeserializationError
 from django.db import connections, transaction
 
 from fleet import audit
+from fleet.engineering.rules import site_time_zone
+from fleet.models import Site
 from fleet.roles import ROLES
 
 # The ledgers of counts (InServiceCount, MotorReadCount, DesignCount) are left out too: their triggers
@@ -86,7 +92,36 @@ def restore_backup(path: str, *, database: str = "default") -> None:
             f"The database is not empty: {listed}. Restore only into a new database: create it, run "
             "`manage.py migrate`, then restore."
         )
-    with transaction.atomic(using=database), audit.suspended():
-        # migrate made the role groups; the backup brings them back with their own ids and permissions.
-        Group.objects.using(database).filter(name__in=ROLES).delete()
-        call_command("loaddata", str(path), database=database, verbosity=0)
+    try:
+        with transaction.atomic(using=database), audit.suspended():
+            # migrate made the role groups; the backup brings them back with their own ids and permissions.
+            Group.objects.using(database).filter(name__in=ROLES).delete()
+            call_command("loaddata", str(path), database=database, verbosity=0)
+            _refuse_unknown_time_zones(path, database)
+    except (OSError, EOFError, zlib.error, UnicodeDecodeError, DeserializationError) as error:
+        raise CommandError(f"{path}: {_unreadable_words(path, error)} Nothing was restored.") from error
+
+
+def _unreadable_words(path: str, error: Exception) -> str:
+    """Why loaddata could not read a backup, in words (its own message starts "Problem installing fixture")."""
+    if isinstance(error, gzip.BadGzipFile):
+        return (
+            "not a gzipped file. A .json.gz backup is gzipped JSON, as `manage.py backup` writes it; "
+            "a backup in plain JSON is named .json."
+        )
+    if isinstance(error, EOFError | zlib.error):
+        return "the gzipped file is cut off or damaged: it cannot be unpacked to its end."
+    cause = error.__cause__ or error
+    detail = str(cause).split("': ", 1)[-1] if str(cause).startswith("Problem installing") else str(cause)
+    return f"not a backup that can be read: {detail or type(cause).__name__}."
+
+
+def _refuse_unknown_time_zones(path: str, database: str) -> None:
+    """A site's time zone the tz database does not know is refused, by the site form's rule (`site_time_zone`):
+    loaddata checks no field, and every page would read that site's times in the server's zone."""
+    for code, zone in Site.objects.using(database).values_list("code", "time_zone"):
+        if site_time_zone(zone) is None:
+            raise CommandError(
+                f"{path}: site {code} has the time zone {zone!r}, which the tz database does not know: use one "
+                "like Europe/Madrid, America/Chicago or UTC. Nothing was restored."
+            )
