@@ -432,7 +432,7 @@ PART_COLUMNS = {
     "safety_class": "S0, S1, S2 or S3 (older markings P0, P1, P2)",
     "max_case_temperature_c": "Highest permitted case temperature in °C (default 70)",
     "max_dissipation_factor": "Highest dissipation factor (tan delta) as a fraction, e.g. 0.002",
-    "unit_cost": "Price of one, in the plant's currency, two decimals (default 0)",
+    "unit_cost": "Price of one, in the plant's currency, at most two decimals (default 0)",
 }
 PART_REQUIRED = (
     "code",
