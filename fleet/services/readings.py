@@ -186,10 +186,24 @@ def _fitted_now(fitted_capacitor: FittedCapacitor) -> str:
     return f"Log a later reading on the capacitor fitted now (fitted on {successor.fitted_on}): {address}"
 
 
-def _client_key(user, key: str) -> str:
+def stored_client_key(user, key: str) -> str:
     """The stored form of a client's one-time key: scoped to the user, fixed length."""
     owner = user.pk if user is not None and user.is_authenticated else 0
     return hashlib.sha256(f"{owner}|{key}".encode()).hexdigest()[:40]
+
+
+# How many of a user's newest keyed readings of one capacitor its reading form lists (a capacitor is read
+# quarterly: years of readings; ours).
+SAVED_KEYS_LISTED = 100
+
+
+def saved_client_keys(fitted_capacitor: FittedCapacitor, user) -> list[str]:
+    """The stored one-time keys (`stored_client_key`) of this user's newest readings of this capacitor: the
+    reading form drops a draft kept on the phone whose page was saved, though the answer never reached it."""
+    if user is None or not user.is_authenticated:
+        return []
+    keyed = Reading.objects.filter(fitted_capacitor=fitted_capacitor, taken_by=user, client_key__isnull=False)
+    return list(keyed.order_by("-id").values_list("client_key", flat=True)[:SAVED_KEYS_LISTED])
 
 
 def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str | None) -> Reading | None:
@@ -273,7 +287,7 @@ def record_reading(
     same capacitor (see `reading_to_correct`), taken when that one was unless given: both are
     kept, the fits use the correction.
     """
-    stored_key = _client_key(user, client_key) if client_key else None
+    stored_key = stored_client_key(user, client_key) if client_key else None
     if stored_key:
         earlier = _earlier_submission(fitted_capacitor, stored_key, values)
         if earlier is not None:

@@ -40,6 +40,8 @@ from fleet.services.readings import (
     record_reading,
     replace_capacitor,
     replacement_problems,
+    saved_client_keys,
+    stored_client_key,
     trend_value_at,
 )
 from fleet.services.register import set_route_order, set_site_stock
@@ -154,6 +156,10 @@ def reading_new(request, fitted_capacitor_id):
         "recent": pages.recent_readings(fitted_capacitor),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
         "rules": RULES.as_dict(),
+        # A draft on the phone holds its page's key as stored (`key_digest`); one whose key is among the saved
+        # ones was saved, though the answer never reached the phone: the page drops it (reading_form.html).
+        "key_digest": stored_client_key(request.user, form["client_key"].value()) if form["client_key"].value() else "",
+        "saved_keys": saved_client_keys(fitted_capacitor, request.user),
         # The trend's value now, which the live hint holds a typed value to as saving does (`off_trend`).
         "trend_now_uf": float(trend_value_at(assessment, fitted_capacitor.part.rated_uf, timezone.now())[0]),
     }
