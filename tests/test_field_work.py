@@ -101,6 +101,47 @@ def test_a_time_in_the_future_names_the_sites_clock_now(client, technician, madr
     assert abs((said - now).total_seconds()) < 120
 
 
+def test_a_time_taken_already_is_said_with_every_other_problem_of_the_reading(
+    client, technician, madrid_fitted_capacitor
+):
+    """A walk: a reading at the time of one stored, its capacitance typed in farads (4 µF as 0.000004, to confirm)
+    and its case temperature out of range, came back with the time clash alone; the rest showed only once the time
+    was changed. The form names every problem at once: the refusals, and the value to check with them, whose
+    confirmation is offered once nothing is refused (a button there could save nothing). The API names the
+    refusals together. [ours: the form names every field's problem at once]"""
+    client.force_login(technician)
+    stored = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at="2024-03-14T09:30")
+    assert stored.status_code == 302
+    sent = {"capacitance_uf": "0.000004", "case_temperature_c": "200", "taken_at": "2024-03-14T09:30"}
+    response = form_post(client, madrid_fitted_capacitor, **sent)
+    assert response.status_code == 200 and Reading.objects.count() == 1
+    errors = response.context["form"].errors
+    assert "reading at this time already" in errors["taken_at"][0]
+    assert errors["case_temperature_c"][0].startswith("200 is above 150 °C")
+    assert errors["capacitance_uf"][0].startswith("0.000004 looks like farads: 4 µF?")
+    body = response.content.decode()
+    summary = strip_tags(body[body.index('id="error-summary"') : body.index("Caution: capacitors store a charge")])
+    assert "Not saved: 2 to put right, 1 to check" in summary and "Capacitance (µF) (to check)" in summary
+    assert 'id="confirm"' not in body and 'name="confirmed"' not in body
+    for value in sent.values():
+        assert f'value="{value}"' in body  # nothing typed is lost
+    # Put right, the value in farads is asked to confirm, and kept once confirmed.
+    fixed = {**sent, "case_temperature_c": "31", "taken_at": "2024-03-14T09:31"}
+    asked = form_post(client, madrid_fitted_capacitor, **fixed)
+    assert asked.status_code == 200 and 'id="confirm"' in asked.content.decode()
+    assert list(asked.context["form"].errors) == ["capacitance_uf"]
+    assert form_post(client, madrid_fitted_capacitor, **fixed, confirmed="on").status_code == 302
+    # The API: the time taken already and the rulebook's refusal in one answer.
+    api = api_for(technician)
+    answer = api.post(
+        reverse("api_fitted_capacitor_readings", args=[madrid_fitted_capacitor.id]),
+        {"taken_at": "2024-03-14T09:30", "method": "meter", "capacitance_uf": 3.95, "case_temperature_c": 200},
+        format="json",
+    )
+    assert answer.status_code == 400 and set(answer.json()) == {"taken_at", "case_temperature_c"}
+    assert Reading.objects.count() == 2
+
+
 def test_the_reading_form_lists_the_users_saved_keys_as_stored_so_a_saved_draft_is_dropped(
     client, technician, fan_fitted_capacitor
 ):
