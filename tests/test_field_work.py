@@ -6,6 +6,7 @@ import datetime as dt
 import math
 import re
 import zoneinfo
+from unittest import mock
 
 import pytest
 from django.db import connection
@@ -99,6 +100,36 @@ def test_a_time_in_the_future_names_the_sites_clock_now(client, technician, madr
     assert message.endswith(", Europe/Madrid): check the date and the time")
     said = dt.datetime.strptime(message.split("(")[1].split(",")[0], "%Y-%m-%d %H:%M").replace(tzinfo=MADRID)
     assert abs((said - now).total_seconds()) < 120
+
+
+def test_two_readings_within_one_minute_each_at_the_time_offered_are_two_readings(
+    client, technician, madrid_fitted_capacitor
+):
+    """A walk: a second reading of one capacitor within a minute, each saved at the time the form offered, was
+    refused as "a reading at this time already": the form offered the minute, the API stores the second. The form
+    offers the time to the second (site time), so a technician's two measurements 28 s apart are two readings;
+    the same second is still one. [ours]"""
+    client.force_login(technician)
+    url = reverse("reading_new", args=[madrid_fitted_capacitor.id])
+    offered = []
+    for second in (12, 40):
+        moment = dt.datetime(2026, 3, 14, 8, 30, second, tzinfo=dt.UTC)
+        with mock.patch("django.utils.timezone.now", return_value=moment):
+            page = client.get(url)
+            offered.append(page.context["form"].initial["taken_at"])
+            assert 'step="1"' in page.content.decode()  # the box holds the seconds it is given
+            saved = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at=offered[-1])
+            assert saved.status_code == 302
+    assert offered == ["2026-03-14T09:30:12", "2026-03-14T09:30:40"]  # Madrid, UTC+1 in March
+    assert sorted(Reading.objects.values_list("taken_at", flat=True)) == [
+        dt.datetime(2026, 3, 14, 8, 30, 12, tzinfo=dt.UTC),
+        dt.datetime(2026, 3, 14, 8, 30, 40, tzinfo=dt.UTC),
+    ]
+    with mock.patch("django.utils.timezone.now", return_value=dt.datetime(2026, 3, 14, 8, 31, tzinfo=dt.UTC)):
+        again = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.94", taken_at=offered[1])
+    assert again.status_code == 200 and Reading.objects.count() == 2
+    assert "reading at this time already" in again.context["form"].errors["taken_at"][0]
+    assert "2026-03-14 09:30:40 (3.95 µF)" in again.context["form"].errors["taken_at"][0]  # its seconds, told apart
 
 
 def test_a_time_taken_already_is_said_with_every_other_problem_of_the_reading(
