@@ -13,8 +13,10 @@ from fleet.imports.columns import missing_required_words, parse_site_time
 from .engineering.rules import RULES
 from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
 
-# The phone's date-and-time picker sends minutes: "2026-03-14T09:30" (wall-clock time at the site).
-LOCAL_MINUTE = "%Y-%m-%dT%H:%M"
+# The phone's date-and-time picker, wall-clock time at the site: "2026-03-14T09:30", or with the seconds it holds
+# ("2026-03-14T09:30:27"). The form offers the time to the second, as the API stores it: two readings of one
+# capacitor taken within a minute, each at the time offered, are two readings, not one refused as a repeat.
+LOCAL_SECOND = "%Y-%m-%dT%H:%M:%S"
 # A day is typed year-month-day, as every box's message asks and the date picker sends: only that. Django's
 # English formats also read 01/04/27 as month/day/year (4 January), a day the person may have meant as 1 April.
 DAY_INPUT_FORMATS = ["%Y-%m-%d"]
@@ -45,7 +47,7 @@ class ReadingForm(forms.Form):
         max_length=40,
         # The browser shows the box in its own order of day and month (12/04/2026 is 12 April to many): the day
         # and time it holds are said beside it in words (page.js, the element named by data-day-words).
-        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 60, "data-day-words": "taken-day-words"}),
+        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 1, "data-day-words": "taken-day-words"}),
     )
     method = forms.ChoiceField(
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
@@ -89,7 +91,7 @@ class ReadingForm(forms.Form):
         super().__init__(*args, **kwargs)
         self.zone = site_zone(time_zone or settings.TIME_ZONE)
         # The site's clock as the page was made: the live hint holds "taken at" to it as the rulebook does.
-        self.site_now = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_MINUTE)
+        self.site_now = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_SECOND)
         self.fields["taken_at"].help_text = (
             f"When you measured, local time at the site ({self.zone.key}). Now unless you change it; "
             "a reading kept on the phone keeps the time it was measured."
@@ -102,7 +104,7 @@ class ReadingForm(forms.Form):
         """A correction starts from the reading it corrects: its time (in the site's time), method,
         every value and the notes it holds, so only the mistake is typed again. A blank form lost what
         was right: a corrected capacitance was stored without its case temperature, unreferred to 25 C."""
-        self.initial["taken_at"] = timezone.localtime(reading.taken_at, self.zone).strftime(LOCAL_MINUTE)
+        self.initial["taken_at"] = timezone.localtime(reading.taken_at, self.zone).strftime(LOCAL_SECOND)
         for name in ("method", "condition", "notes", *Reading.MEASURED_FIELDS):
             value = getattr(reading, name)
             worked_out = name == "capacitance_uf" and reading.method == Reading.Method.IN_CIRCUIT

@@ -6,6 +6,7 @@ import datetime as dt
 import math
 import re
 import zoneinfo
+from unittest import mock
 
 import pytest
 from django.db import connection
@@ -17,6 +18,7 @@ from django.utils.html import strip_tags
 
 from fleet.models import Assessment, FittedCapacitor, PartLifeFit, Reading, SiteMembership
 from fleet.services import pages
+from fleet.services.readings import stored_client_key
 from fleet.templatetags.fleet_format import day, verdict_and_risk
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, stored_assessment
 
@@ -98,6 +100,104 @@ def test_a_time_in_the_future_names_the_sites_clock_now(client, technician, madr
     assert message.endswith(", Europe/Madrid): check the date and the time")
     said = dt.datetime.strptime(message.split("(")[1].split(",")[0], "%Y-%m-%d %H:%M").replace(tzinfo=MADRID)
     assert abs((said - now).total_seconds()) < 120
+
+
+def test_two_readings_within_one_minute_each_at_the_time_offered_are_two_readings(
+    client, technician, madrid_fitted_capacitor
+):
+    """A walk: a second reading of one capacitor within a minute, each saved at the time the form offered, was
+    refused as "a reading at this time already": the form offered the minute, the API stores the second. The form
+    offers the time to the second (site time), so a technician's two measurements 28 s apart are two readings;
+    the same second is still one. [ours]"""
+    client.force_login(technician)
+    url = reverse("reading_new", args=[madrid_fitted_capacitor.id])
+    offered = []
+    for second in (12, 40):
+        moment = dt.datetime(2026, 3, 14, 8, 30, second, tzinfo=dt.UTC)
+        with mock.patch("django.utils.timezone.now", return_value=moment):
+            page = client.get(url)
+            offered.append(page.context["form"].initial["taken_at"])
+            assert 'step="1"' in page.content.decode()  # the box holds the seconds it is given
+            saved = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at=offered[-1])
+            assert saved.status_code == 302
+    assert offered == ["2026-03-14T09:30:12", "2026-03-14T09:30:40"]  # Madrid, UTC+1 in March
+    assert sorted(Reading.objects.values_list("taken_at", flat=True)) == [
+        dt.datetime(2026, 3, 14, 8, 30, 12, tzinfo=dt.UTC),
+        dt.datetime(2026, 3, 14, 8, 30, 40, tzinfo=dt.UTC),
+    ]
+    with mock.patch("django.utils.timezone.now", return_value=dt.datetime(2026, 3, 14, 8, 31, tzinfo=dt.UTC)):
+        again = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.94", taken_at=offered[1])
+    assert again.status_code == 200 and Reading.objects.count() == 2
+    assert "reading at this time already" in again.context["form"].errors["taken_at"][0]
+    assert "2026-03-14 09:30:40 (3.95 µF)" in again.context["form"].errors["taken_at"][0]  # its seconds, told apart
+
+
+def test_a_time_taken_already_is_said_with_every_other_problem_of_the_reading(
+    client, technician, madrid_fitted_capacitor
+):
+    """A walk: a reading at the time of one stored, its capacitance typed in farads (4 µF as 0.000004, to confirm)
+    and its case temperature out of range, came back with the time clash alone; the rest showed only once the time
+    was changed. The form names every problem at once: the refusals, and the value to check with them, whose
+    confirmation is offered once nothing is refused (a button there could save nothing). The API names the
+    refusals together. [ours: the form names every field's problem at once]"""
+    client.force_login(technician)
+    stored = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at="2024-03-14T09:30")
+    assert stored.status_code == 302
+    sent = {"capacitance_uf": "0.000004", "case_temperature_c": "200", "taken_at": "2024-03-14T09:30"}
+    response = form_post(client, madrid_fitted_capacitor, **sent)
+    assert response.status_code == 200 and Reading.objects.count() == 1
+    errors = response.context["form"].errors
+    assert "reading at this time already" in errors["taken_at"][0]
+    assert errors["case_temperature_c"][0].startswith("200 is above 150 °C")
+    assert errors["capacitance_uf"][0].startswith("0.000004 looks like farads: 4 µF?")
+    body = response.content.decode()
+    summary = strip_tags(body[body.index('id="error-summary"') : body.index("Caution: capacitors store a charge")])
+    assert "Not saved: 2 to put right, 1 to check" in summary and "Capacitance (µF) (to check)" in summary
+    assert 'id="confirm"' not in body and 'name="confirmed"' not in body
+    for value in sent.values():
+        assert f'value="{value}"' in body  # nothing typed is lost
+    # Put right, the value in farads is asked to confirm, and kept once confirmed.
+    fixed = {**sent, "case_temperature_c": "31", "taken_at": "2024-03-14T09:31"}
+    asked = form_post(client, madrid_fitted_capacitor, **fixed)
+    assert asked.status_code == 200 and 'id="confirm"' in asked.content.decode()
+    assert list(asked.context["form"].errors) == ["capacitance_uf"]
+    assert form_post(client, madrid_fitted_capacitor, **fixed, confirmed="on").status_code == 302
+    # The API: the time taken already and the rulebook's refusal in one answer.
+    api = api_for(technician)
+    answer = api.post(
+        reverse("api_fitted_capacitor_readings", args=[madrid_fitted_capacitor.id]),
+        {"taken_at": "2024-03-14T09:30", "method": "meter", "capacitance_uf": 3.95, "case_temperature_c": 200},
+        format="json",
+    )
+    assert answer.status_code == 400 and set(answer.json()) == {"taken_at", "case_temperature_c"}
+    assert Reading.objects.count() == 2
+
+
+def test_the_reading_form_lists_the_users_saved_keys_as_stored_so_a_saved_draft_is_dropped(
+    client, technician, fan_fitted_capacitor
+):
+    """A walk: a reading saved while its answer page was left before it loaded came back on the form as an
+    unsaved draft (its time then refused as taken already). The form names its own one-time key as stored and
+    lists the keys of this user's saved readings of the capacitor, so the phone drops a draft whose key was
+    saved (tests/browser/test_technician.py drives it); another user's keys are not listed. [ours]"""
+    client.force_login(technician)
+    url = reverse("reading_new", args=[fan_fitted_capacitor.id])
+    page = client.get(url)
+    key = page.context["form"].initial["client_key"]
+    digest = page.context["key_digest"]
+    assert digest and f'data-key-digest="{digest}"' in page.content.decode()
+    assert page.context["saved_keys"] == []
+    form = {"method": "meter", "condition": "sound", "capacitance_uf": "3.95", "client_key": key}
+    assert client.post(url, form).status_code == 302
+    again = client.get(url)
+    assert again.context["saved_keys"] == [digest] and again.context["key_digest"] != digest
+    assert f'<script id="saved-keys" type="application/json">["{digest}"]</script>' in again.content.decode()
+    client.force_login(make_user("technician", username="other-tech"))
+    assert client.get(url).context["saved_keys"] == []
+    # Refused, the page goes on under the key it was sent with (the draft kept on the phone too).
+    refused = client.post(url, {**form, "client_key": "k2", "capacitance_uf": "3,9,5"})
+    assert refused.status_code == 200
+    assert refused.context["key_digest"] == stored_client_key(refused.wsgi_request.user, "k2")
 
 
 # The design part

@@ -48,6 +48,16 @@ class NeedsConfirmation(ValidationError):
     """The reading is far off the capacitor's trend, or a voltage far above the motor's: confirm or re-measure."""
 
 
+class RefusedWithQuestions(ValidationError):
+    """A reading refused at some fields (the rulebook's refusals, a time taken already) whose other values the
+    rulebook asks to confirm: the refusals by field, and the questions (`to_confirm`, by field) said with them,
+    so every problem of the reading is named at once. Confirming waits until nothing is refused."""
+
+    def __init__(self, errors: dict[str, str], to_confirm: dict[str, str]):
+        super().__init__(errors)
+        self.to_confirm = to_confirm
+
+
 def enqueue_refit(fitted_capacitor_ids: list[int]) -> None:
     """Queue refits in chunks (one bulk refit per chunk, not one task per capacitor).
 
@@ -125,13 +135,19 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
     errors = {name: _sentence(message) for name, message in result.row(0).items()}
     if result.errors["taken_at"][0].startswith(AFTER_REMOVAL):
         errors["taken_at"] += ". " + _fitted_now(fitted_capacitor)
+    if values.get("taken_at") and "taken_at" not in errors:  # a time given (a reading without one is taken now)
+        clash = _second_reading_at_one_time(fitted_capacitor, taken_at, str(result.values["method"][0]), supersedes)
+        if clash:
+            errors["taken_at"] = clash
+    # Every problem at once: a time taken already is said with the rulebook's refusals and questions, never
+    # alone until it is put right (a value typed in farads was asked only once the time was changed).
+    confirm = {name: _sentence(message) for name, message in result.row(0, "confirm").items() if name not in errors}
+    if errors and confirm:
+        raise RefusedWithQuestions(errors, confirm)
     if errors:
         raise ValidationError(errors)
-    if values.get("taken_at"):  # a time given (a reading without one is taken now)
-        _refuse_a_second_reading_at_one_time(fitted_capacitor, taken_at, str(result.values["method"][0]), supersedes)
-    confirm = result.row(0, "confirm")
     if confirm:
-        raise NeedsConfirmation({name: _sentence(message) for name, message in confirm.items()})
+        raise NeedsConfirmation(confirm)
     checked = {
         name: (None if np.isnan(result.values[name][0]) else float(result.values[name][0]))
         for name in Reading.MEASURED_FIELDS
@@ -150,10 +166,11 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
     return checked
 
 
-def _refuse_a_second_reading_at_one_time(fitted_capacitor: FittedCapacitor, taken_at, method: str, supersedes) -> None:
+def _second_reading_at_one_time(fitted_capacitor: FittedCapacitor, taken_at, method: str, supersedes) -> str:
     """A reading of this capacitor by this method at the same second as one in its trend (not corrected, and not
-    the one this corrects) is refused at `taken_at`, naming it: the same values are that reading sent again (the
-    import skips such a row), other values a mistake to correct from it, never a second point at one instant."""
+    the one this corrects) is refused at `taken_at`, naming it (this message; "" if none): the same values are
+    that reading sent again (the import skips such a row), other values a mistake to correct from it, never a
+    second point at one instant."""
     second = taken_at.replace(microsecond=0)
     stored = (
         Reading.objects.filter(
@@ -166,15 +183,14 @@ def _refuse_a_second_reading_at_one_time(fitted_capacitor: FittedCapacitor, take
         .exclude(pk=getattr(supersedes, "pk", None))
         .first()
     )
-    if stored is not None:
-        zone = site_zone(fitted_capacitor.motor.site.time_zone)
-        raise ValidationError(
-            {
-                "taken_at": f"This capacitor has a reading at this time already, reading {stored.id} of "
-                f"{_reading_words(stored, zone)}: nothing saved. If it is wrong, correct it (both are kept, the "
-                "trend uses the correction); if it is another measurement, give its own time."
-            }
-        )
+    if stored is None:
+        return ""
+    zone = site_zone(fitted_capacitor.motor.site.time_zone)
+    return (
+        f"This capacitor has a reading at this time already, reading {stored.id} of "
+        f"{_reading_words(stored, zone, seconds=True)}: nothing saved. If it is wrong, correct it (both are kept, "
+        "the trend uses the correction); if it is another measurement, give its own time."
+    )
 
 
 def _fitted_now(fitted_capacitor: FittedCapacitor) -> str:
@@ -186,10 +202,24 @@ def _fitted_now(fitted_capacitor: FittedCapacitor) -> str:
     return f"Log a later reading on the capacitor fitted now (fitted on {successor.fitted_on}): {address}"
 
 
-def _client_key(user, key: str) -> str:
+def stored_client_key(user, key: str) -> str:
     """The stored form of a client's one-time key: scoped to the user, fixed length."""
     owner = user.pk if user is not None and user.is_authenticated else 0
     return hashlib.sha256(f"{owner}|{key}".encode()).hexdigest()[:40]
+
+
+# How many of a user's newest keyed readings of one capacitor its reading form lists (a capacitor is read
+# quarterly: years of readings; ours).
+SAVED_KEYS_LISTED = 100
+
+
+def saved_client_keys(fitted_capacitor: FittedCapacitor, user) -> list[str]:
+    """The stored one-time keys (`stored_client_key`) of this user's newest readings of this capacitor: the
+    reading form drops a draft kept on the phone whose page was saved, though the answer never reached it."""
+    if user is None or not user.is_authenticated:
+        return []
+    keyed = Reading.objects.filter(fitted_capacitor=fitted_capacitor, taken_by=user, client_key__isnull=False)
+    return list(keyed.order_by("-id").values_list("client_key", flat=True)[:SAVED_KEYS_LISTED])
 
 
 def reading_to_correct(fitted_capacitor: FittedCapacitor, reading_id: int | str | None) -> Reading | None:
@@ -236,10 +266,13 @@ def newest_correction(fitted_capacitor: FittedCapacitor, reading_id) -> Reading 
     return newest
 
 
-def _reading_words(reading: Reading, zone) -> str:
+def _reading_words(reading: Reading, zone, seconds: bool = False) -> str:
     """A reading as a technician knows it: when it was taken at the site, and its value ("2026-11-02 09:15
-    (143.00 µF)", as the readings tables show them)."""
-    return f"{timezone.localtime(reading.taken_at, zone):%Y-%m-%d %H:%M} ({reading.capacitance_uf:.2f} µF)"
+    (143.00 µF)", as the readings tables show them); with `seconds`, its seconds where they are not 0
+    ("2026-11-02 09:15:40"), as two readings within one minute are told apart."""
+    local = timezone.localtime(reading.taken_at, zone)
+    shown = f"{local:%Y-%m-%d %H:%M:%S}" if seconds and local.second else f"{local:%Y-%m-%d %H:%M}"
+    return f"{shown} ({reading.capacitance_uf:.2f} µF)"
 
 
 def trend_value_at(assessment, rated_uf: float, taken_at: dt.datetime) -> np.ndarray:
@@ -273,7 +306,7 @@ def record_reading(
     same capacitor (see `reading_to_correct`), taken when that one was unless given: both are
     kept, the fits use the correction.
     """
-    stored_key = _client_key(user, client_key) if client_key else None
+    stored_key = stored_client_key(user, client_key) if client_key else None
     if stored_key:
         earlier = _earlier_submission(fitted_capacitor, stored_key, values)
         if earlier is not None:

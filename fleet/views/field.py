@@ -40,6 +40,8 @@ from fleet.services.readings import (
     record_reading,
     replace_capacitor,
     replacement_problems,
+    saved_client_keys,
+    stored_client_key,
     trend_value_at,
 )
 from fleet.services.register import set_route_order, set_site_stock
@@ -61,7 +63,7 @@ from fleet.views.register import (
 @takes_parameters("corrects", "next")
 def reading_new(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
-    needs_confirmation = False
+    needs_confirmation, to_check = False, []
     zone = fitted_capacitor.motor.site.time_zone
     if request.method == "POST":
         form = ReadingForm(request.POST, time_zone=zone)
@@ -80,6 +82,11 @@ def reading_new(request, fitted_capacitor_id):
                 form.add_error(None, error)
             except ValidationError as error:
                 _add_errors(form, error)
+                # Refused, with values to check said beside the refusals: confirmed once nothing is refused.
+                to_confirm = getattr(error, "to_confirm", {})
+                if to_confirm:
+                    _add_errors(form, ValidationError(to_confirm))
+                    to_check = [name for name in to_confirm if name in form.fields]
                 if "client_key" in error.message_dict:  # a page saved before, sent with new values: a new key
                     form.data = form.data.copy()
                     form.data["client_key"] = uuid.uuid4().hex
@@ -146,6 +153,9 @@ def reading_new(request, fitted_capacitor_id):
         "part": fitted_capacitor.part,
         "form": form,
         "needs_confirmation": needs_confirmation,
+        # Fields whose value is asked to confirm while others are refused (the summary tells the two apart).
+        "to_check": to_check,
+        "to_put_right": len(form.errors) - len(to_check),
         "correcting": correcting,
         "correction_problem": correction_problem,
         "correct_instead": correct_instead,
@@ -154,6 +164,10 @@ def reading_new(request, fitted_capacitor_id):
         "recent": pages.recent_readings(fitted_capacitor),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
         "rules": RULES.as_dict(),
+        # A draft on the phone holds its page's key as stored (`key_digest`); one whose key is among the saved
+        # ones was saved, though the answer never reached the phone: the page drops it (reading_form.html).
+        "key_digest": stored_client_key(request.user, form["client_key"].value()) if form["client_key"].value() else "",
+        "saved_keys": saved_client_keys(fitted_capacitor, request.user),
         # The trend's value now, which the live hint holds a typed value to as saving does (`off_trend`).
         "trend_now_uf": float(trend_value_at(assessment, fitted_capacitor.part.rated_uf, timezone.now())[0]),
     }
