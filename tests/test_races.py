@@ -110,6 +110,32 @@ def test_the_reading_form_sent_twice_at_once_saves_one_reading(capacitor):
 
 
 @threads_race
+def test_one_reading_sent_from_two_pages_at_once_is_saved_once_and_the_other_told(capacitor):
+    """A bad-input hunt: the same reading sent at one moment from several pages (each its own key: two tabs, two
+    technicians) was saved seven times at one time, each request checked before any was saved. [derived] one
+    reading per capacitor, method and second: the time is checked again with the capacitor's row locked."""
+    user = make_user("technician")
+    taken = timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M")
+    before = Reading.objects.count()
+
+    def send(key):
+        def post():
+            client = Client()
+            client.force_login(user)
+            form = {"taken_at": taken, "method": "meter", "capacitance_uf": "3.95", "condition": "sound"}
+            return client.post(f"/fitted-capacitors/{capacitor.id}/reading/", {**form, "client_key": key})
+
+        return post
+
+    with held_before(reading_service, "check_reading", 2):
+        answers = in_threads(send("tab-1"), send("tab-2"))
+    assert sorted(getattr(a, "status_code", a) for a in answers) == [200, 302]
+    assert Reading.objects.count() == before + 1
+    refused = next(a for a in answers if a.status_code == 200).content.decode()
+    assert "This capacitor has a reading at this time already" in refused
+
+
+@threads_race
 def test_two_readings_of_one_capacitor_at_once_leave_one_current_assessment(capacitor):
     """Two technicians (or a phone and the API) save a reading of the same capacitor at the
     same moment: both refits run (in-process here, two workers in production) and must

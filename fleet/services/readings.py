@@ -317,9 +317,26 @@ def record_reading(
     supersedes = reading_to_correct(fitted_capacitor, supersedes_id)
     if supersedes is not None and not values.get("taken_at"):
         values = {**values, "taken_at": supersedes.taken_at}
-    checked = check_reading(fitted_capacitor, values, confirmed=confirmed, supersedes=supersedes)
+    try:
+        checked = check_reading(fitted_capacitor, values, confirmed=confirmed, supersedes=supersedes)
+    except ValidationError:
+        # The same submission saved meanwhile by a double tap (its time now taken) is "sent twice", not a clash.
+        earlier = _earlier_submission(fitted_capacitor, stored_key, values) if stored_key else None
+        if earlier is not None:
+            return earlier
+        raise
     try:
         with transaction.atomic():
+            # Readings of one capacitor are saved one at a time (its row locked on PostgreSQL), the time checked
+            # again inside: a bad-input hunt saved seven identical readings sent at once, each checked before
+            # any was saved.
+            list(FittedCapacitor.objects.select_for_update().filter(pk=fitted_capacitor.pk).values_list("pk"))
+            if values.get("taken_at"):
+                clash = _second_reading_at_one_time(
+                    fitted_capacitor, checked["taken_at"], checked["method"], supersedes
+                )
+                if clash:
+                    raise _TakenMeanwhile({"taken_at": clash})
             reading = Reading.objects.create(
                 fitted_capacitor=fitted_capacitor,
                 taken_by=user if user is not None and user.is_authenticated else None,
@@ -331,15 +348,22 @@ def record_reading(
             # The read-again orders the reading answers (closed): the form's message names them.
             reading.closed_read_again = close_read_again_orders(fitted_capacitor_ids=[fitted_capacitor.id], user=user)
             transaction.on_commit(lambda: enqueue_refit([fitted_capacitor.id]))
-    except IntegrityError:
+    except (IntegrityError, _TakenMeanwhile) as error:
+        # Saved meanwhile: this very submission (a double tap, a resent correction) is its replay.
         earlier = _earlier_submission(fitted_capacitor, stored_key, values) if stored_key else None
         earlier = earlier or _correction_sent_before(fitted_capacitor, supersedes_id, values, user)
         if earlier is not None:
             return earlier
         reading_to_correct(fitted_capacitor, supersedes_id)  # corrected meanwhile by someone else: says so by field
+        if isinstance(error, _TakenMeanwhile):
+            raise ValidationError(error.message_dict) from None
         raise
     reading.replayed = False
     return reading
+
+
+class _TakenMeanwhile(ValidationError):
+    """Another reading of the capacitor at this time was saved between the check and the save."""
 
 
 class KeyUsedBefore(ValidationError):
