@@ -73,6 +73,20 @@ def test_a_removed_capacitors_page_says_it_can_still_hold_a_charge(signed_in, te
     assert "can still hold a charge that can kill" in body and "local codes and licensed practice decide" in body
 
 
+def test_two_readings_a_minute_apart_are_told_apart_on_the_capacitor_page_and_the_form(signed_in, technician):
+    """A helper's walk: the form offers the time to the second, but the readings tables showed minutes, so two
+    readings taken within one minute were listed alike. [derived] seconds where they are not 0."""
+    site = make_site(time_zone="Europe/Dublin")
+    capacitor = make_fitted_capacitor(motor=make_motor(site=site))
+    make_reading(capacitor, taken_at=dt.datetime(2026, 1, 5, 9, 15, 0, tzinfo=dt.UTC), capacitance_uf=3.95)
+    make_reading(capacitor, taken_at=dt.datetime(2026, 1, 5, 9, 15, 40, tzinfo=dt.UTC), capacitance_uf=3.96)
+    client = signed_in(technician)
+    for page in (reverse("fitted_capacitor", args=[capacitor.id]), reverse("reading_new", args=[capacitor.id])):
+        body = client.get(page).content.decode()
+        assert '<span class="nowrap">2026-01-05 09:15:40</span>' in body, page
+        assert '<span class="nowrap">2026-01-05 09:15</span>' in body, page
+
+
 def test_the_motor_and_capacitor_pages_give_reading_times_in_the_sites_time(signed_in, technician):
     """The reading form and its correction banner speak the site's time; the capacitor page listed the
     same reading an hour earlier (UTC, unlabelled), and "corrects the reading of 11:25" followed

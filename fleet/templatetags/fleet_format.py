@@ -83,6 +83,15 @@ def day(value, pattern=ISO_DAY):
     return format_html('<span class="nowrap">{}</span>', date_format(value, pattern))
 
 
+@register.filter(expects_localtime=True)
+def reading_time(value):
+    """When a reading was taken, as `day` writes it to the minute, with its seconds where they are not 0: the
+    form offers the time to the second, and two readings a minute apart were listed alike."""
+    if value in (None, ""):
+        return ""
+    return day(value, "Y-m-d H:i:s" if getattr(value, "second", 0) else "Y-m-d H:i")
+
+
 @register.filter
 def defect_seen(assessment) -> str:
     """The defect its newest reading found ("bulged", "leaking", "vented"), from the reason it was judged on;
