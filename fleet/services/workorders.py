@@ -101,18 +101,10 @@ def plan_work_orders(
         ).order_by("state"):  # "issued" before "planned": an issued order wins
             open_by_capacitor.setdefault(o.fitted_capacitor_id, o)
         cancelled = _cancelled_orders(due_ids, today)
-        own_days = np.array([(max(d[4], today) - today).days for d in due], float)
-        motor_ids = pd.Series([d[1] for d in due], dtype="int64")
+        replace_by = pd.Series([d[4] for d in due], dtype=object)
+        motor_first_by = replace_by.groupby(pd.Series([d[1] for d in due], dtype="int64")).transform("min")
         visit_as_due = dict(
-            zip(
-                due_ids.tolist(),
-                with_its_motor(
-                    own_days,
-                    pd.Series(own_days).groupby(motor_ids).transform("min").to_numpy(float),
-                    PlanningSettings().same_motor_days,
-                ),
-                strict=True,
-            )
+            zip(due_ids.tolist(), _visit_as_due_days(zip(replace_by, motor_first_by, strict=True), today), strict=True)
         )
         was = {o.pk: (o.due_on, o.window_days, o.kind, o.moved_from, o.reason) for o in open_by_capacitor.values()}
         items, new_orders, replanned, not_again = [], [], [], []
@@ -766,8 +758,9 @@ def _visit_as_due_days(replace_by_and_motor_first, today: dt.date) -> np.ndarray
     def days(day):
         return np.inf if day is None else float((max(day, today) - today).days)
 
-    own = np.array([days(by) for by, _ in replace_by_and_motor_first], float)
-    first = np.array([days(first) for _, first in replace_by_and_motor_first], float)
+    pairs = list(replace_by_and_motor_first)
+    own = np.array([days(by) for by, _ in pairs], float)
+    first = np.array([days(first) for _, first in pairs], float)
     return with_its_motor(own, first, PlanningSettings().same_motor_days)
 
 
