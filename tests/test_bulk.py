@@ -17,13 +17,12 @@ from django.db import IntegrityError, connection, transaction
 from fleet.models import FittedCapacitor, Motor, Reading
 from fleet.services.bulk import (
     SEPARATOR,
-    csv_line_sql,
     insert_frame,
     on_postgresql,
     select_frame,
-    select_lines,
     side_by_side,
 )
+from fleet.services.selectors import READING_COLUMNS, readings_frame
 from tests.factories import make_fitted_capacitor, make_motor
 
 
@@ -161,15 +160,64 @@ def test_selected_rows_read_back_as_the_orm_reads_them(three_motors):
         assert row.esr_ohm == want[4] if want[4] is not None else pd.isna(row.esr_ohm)
         assert pd.isna(row.supersedes_id) and want[5] is None
     assert select_frame("SELECT id FROM fleet_reading WHERE id < 0", [], ["id"]).empty
-    if on_postgresql():  # [derived] the same rows as CSV lines the server joins itself
-        lines = select_lines(
-            f"SELECT {csv_line_sql(columns, text=('notes', 'client_key'))} FROM fleet_reading"
-            " WHERE fitted_capacitor_id = %s",
-            [fitted_capacitor.id],
-            columns,
-        ).sort_values("id")
-        pd.testing.assert_frame_equal(lines, read)
-        assert select_lines("SELECT 'x' FROM fleet_reading WHERE id < 0", [], ["id"]).empty
+
+
+def _orm_readings(fitted_capacitor_ids) -> pd.DataFrame:
+    rows = Reading.objects.filter(fitted_capacitor_id__in=fitted_capacitor_ids).order_by("id")
+    return pd.DataFrame.from_records(list(rows.values_list(*READING_COLUMNS)), columns=READING_COLUMNS)
+
+
+def _assert_reads_as_the_orm(read: pd.DataFrame, fitted_capacitor_ids) -> None:
+    expected = _orm_readings(fitted_capacitor_ids)
+    read = read.sort_values("id").reset_index(drop=True)
+    assert len(read) == len(expected) > 0
+    assert read["id"].tolist() == expected["id"].tolist()
+    assert read["fitted_capacitor_id"].tolist() == expected["fitted_capacitor_id"].tolist()
+    assert [t.to_pydatetime() for t in read["taken_at"]] == expected["taken_at"].tolist()
+    for column in ("capacitance_uf", "case_temperature_c", "capacitor_voltage_v", "esr_ohm", "supersedes_id"):
+        want = expected[column].astype(float).to_numpy()
+        assert np.array_equal(read[column].to_numpy(float), want, equal_nan=True), column  # exact to the last digit
+    assert read["condition"].tolist() == expected["condition"].tolist()
+
+
+def test_the_refits_read_of_readings_gives_what_the_orm_reads(three_motors):
+    """[derived] `readings_frame` (on PostgreSQL each value in its binary form, NULL as a stand-in, the
+    condition as its place among the choices) against the ORM's own read: times to the microsecond, before
+    and after 2000-01-01 (PostgreSQL's epoch), empty values apart, every condition, a correction's link, and
+    a condition that is none of the choices (read as it stands, by the ORM)."""
+    first, second, _ = three_motors
+    conditions = [value for value, _ in Reading.Condition.choices]
+    frame = pd.DataFrame(
+        {
+            "fitted_capacitor_id": [first.id] * len(conditions) + [second.id],
+            "taken_at": pd.to_datetime(
+                ["1999-12-31 23:59:59.999999", "2000-01-01 00:00:00.000001", "2024-02-29 12:00:00.123456"]
+                + ["2026-07-01 06:30:00"] * (len(conditions) - 2),
+                utc=True,
+                format="ISO8601",
+            )[: len(conditions) + 1],
+            "method": "meter",
+            "capacitance_uf": [3.9 + n / 3 for n in range(len(conditions))] + [0.1 + 0.2],
+            "case_temperature_c": [41.5, np.nan] * (len(conditions) // 2) + [np.nan] * (len(conditions) % 2 + 1),
+            "capacitor_voltage_v": [np.nan] * len(conditions) + [371.25],
+            "esr_ohm": [np.nan] * (len(conditions) - 1) + [1e-5, 0.0],
+            "condition": conditions + [conditions[0]],
+            "notes": "",
+            "source": "import",
+        }
+    )
+    insert_frame(Reading, frame)
+    original = Reading.objects.filter(fitted_capacitor=second).get()
+    Reading.objects.create(
+        fitted_capacitor=second, taken_at=original.taken_at, method="meter", capacitance_uf=0.3, supersedes=original
+    )
+    ids = [first.id, second.id]
+    read = readings_frame(ids)
+    _assert_reads_as_the_orm(read, ids)
+    assert read.set_index("id")["superseded"].to_dict() == {r: r == original.id for r in read["id"]}
+    odd = frame.iloc[[0]].assign(condition="charred", taken_at=pd.Timestamp("2026-08-01", tz="UTC"))
+    insert_frame(Reading, odd)  # no choice is checked by the database: a value written around the forms
+    _assert_reads_as_the_orm(readings_frame(ids), ids)
 
 
 def test_a_bulk_insert_holding_one_reading_after_its_capacitors_removal_writes_nothing(three_motors):

@@ -7,7 +7,8 @@ row, as for any INSERT. Writes here send no signals and write no audit entries: 
 for derived rows (assessments), imported readings and invented benchmark fleets, never for
 register changes a person made.
 
-Reads: `select_frame` (one text value parsed by pyarrow on PostgreSQL) and `field__any_of=array`, a filter on
+Reads: `select_frame` (one text value parsed by pyarrow on PostgreSQL), `select_packed` (numbers and times in
+their binary form, one bytea value read by numpy: the refit's readings) and `field__any_of=array`, a filter on
 tens of thousands of values sent as one parameter (`field__in` sends one placeholder per
 value, and building that query costs more than running it).
 """
@@ -23,6 +24,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import pandas as pd
+import psycopg
 import pyarrow as pa
 import pyarrow.compute as pc
 from django.db import IntegrityError, connection, transaction
@@ -242,22 +244,52 @@ def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
         return pd.DataFrame.from_records(cursor.fetchall(), columns=columns)
 
 
-def csv_line_sql(expressions: list[str], text: tuple[str, ...] = ()) -> str:
-    """SQL for a row as one CSV line, for `select_lines`: the values joined by commas, NULL an empty
-    field, the `text` expressions quoted (quotes doubled, backslashes escaped)."""
-    quoted = {name: f"'\"' || replace(replace({name}, '\\', '\\\\'), '\"', '\"\"') || '\"'" for name in text}
-    return "concat(" + ", ',', ".join(quoted.get(name, name) for name in expressions) + ")"
-
-
 def select_lines(sql: str, params, columns: list[str]) -> pd.DataFrame:
-    """Like `select_frame`, for a SELECT of one column that is each row as a CSV line (`csv_line_sql`):
-    the server joins a row's values faster than it writes the row's text form (PostgreSQL only)."""
+    """Like `select_frame`, for a SELECT of one column that is each row as a line of CSV (PostgreSQL only)."""
     with connection.cursor() as cursor:
         cursor.execute(f"SELECT string_agg(q.line, E'\\n') FROM ({sql}) AS q (line)", params)
         text = cursor.fetchone()[0]
     if not text:
         return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
     return _row_texts_frame(text.encode(), columns)
+
+
+# Kinds of value for `select_packed`: the server's binary send function and the numpy type it fills.
+PACKED_KINDS = {
+    "int8": ("int8send", ">i8"),
+    "float8": ("float8send", ">f8"),
+    "timestamptz": ("timestamptz_send", ">i8"),  # microseconds since 2000-01-01 00:00 UTC
+    "int2": ("int2send", ">i2"),
+}
+POSTGRES_EPOCH_US = 946_684_800_000_000  # 2000-01-01 00:00 UTC in microseconds since 1970
+
+
+def select_packed(fields: list[tuple[str, str, str]], from_where: str, params) -> pd.DataFrame:
+    """`SELECT fields FROM from_where` as a frame, on PostgreSQL, for the refit's big reads (every reading of
+    a chunk of capacitors).
+
+    The server sends each value in its fixed-width binary form (the `*send` functions), every row's values
+    joined into one bytea value, and numpy reads that buffer as a record array: no value is written out as
+    text and parsed back, no Python runs per row, and the value comes as bytes (a cursor of binary results;
+    a text result would come hex-encoded). Each field is (name, SQL expression that is never NULL, kind of
+    `PACKED_KINDS`): the caller turns NULL into a stand-in (NaN, 0). A `timestamptz` comes back as UTC.
+    """
+    parts = " || ".join(f"{PACKED_KINDS[kind][0]}({expression})" for _, expression, kind in fields)
+    record = np.dtype([(name, PACKED_KINDS[kind][1]) for name, _, kind in fields])
+    connection.ensure_connection()
+    with connection.wrap_database_errors:
+        raw = psycopg.Cursor(connection.connection)
+        raw.format = psycopg.pq.Format.BINARY
+    cursor = connection.make_debug_cursor(raw) if connection.queries_logged else connection.make_cursor(raw)
+    with cursor:
+        cursor.execute(f"SELECT string_agg({parts}, ''::bytea) FROM {from_where}", params)
+        data = cursor.fetchone()[0] or b""
+    rows = np.frombuffer(data, dtype=record)
+    frame = pd.DataFrame({name: rows[name].astype(rows.dtype[name].newbyteorder("=")) for name in record.names})
+    for name, _, kind in fields:
+        if kind == "timestamptz":
+            frame[name] = pd.to_datetime(frame[name] + POSTGRES_EPOCH_US, unit="us", utc=True)
+    return frame
 
 
 def _row_texts_frame(data: bytes, columns: list[str]) -> pd.DataFrame:

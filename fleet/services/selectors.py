@@ -7,7 +7,7 @@ import pandas as pd
 
 from fleet.models import FittedCapacitor, PartPrior, Reading
 
-from .bulk import ID_ARRAY_SQL, csv_line_sql, id_array_text, on_postgresql, select_lines
+from .bulk import ID_ARRAY_SQL, id_array_text, on_postgresql, select_packed
 
 CIRCUIT_FIELDS = [
     "r1m_ohm",
@@ -143,28 +143,39 @@ READING_COLUMNS = [
 ]
 
 
-READING_EXPRESSIONS = [
-    "id",
-    "fitted_capacitor_id",
-    "(EXTRACT(EPOCH FROM taken_at) * 1000000)::bigint",  # microseconds: no time parsed row by row
-    *READING_COLUMNS[3:],
+# Each reading column as the refit reads it on PostgreSQL (`bulk.select_packed`): NULL as a stand-in
+# (NaN: a stored value is always finite; 0: no reading has id 0), the condition as its place among the
+# choices (-1: a value that is none of them, read again as text).
+READING_CONDITIONS = [value for value, _ in Reading.Condition.choices]
+PACKED_READING_FIELDS = [
+    ("id", "id", "int8"),
+    ("fitted_capacitor_id", "fitted_capacitor_id", "int8"),
+    ("taken_at", "taken_at", "timestamptz"),
+    ("capacitance_uf", "capacitance_uf", "float8"),
+    *(
+        (name, f"coalesce({name}, 'NaN')", "float8")
+        for name in ("case_temperature_c", "capacitor_voltage_v", "esr_ohm")
+    ),
+    ("supersedes_id", "coalesce(supersedes_id, 0)", "int8"),
+    (
+        "condition",
+        "(CASE condition "
+        + " ".join(f"WHEN '{value}' THEN {code}" for code, value in enumerate(READING_CONDITIONS))
+        + " ELSE -1 END)::int2",
+        "int2",
+    ),
 ]
-READINGS_SQL = (
-    f"SELECT {csv_line_sql(READING_EXPRESSIONS, text=('condition',))} FROM fleet_reading"
-    f" WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
+READINGS_FROM = (
+    f"fleet_reading WHERE fitted_capacitor_id BETWEEN %s AND %s AND fitted_capacitor_id = ANY({ID_ARRAY_SQL})"
 )
 
 
 def readings_frame(fitted_capacitor_ids) -> pd.DataFrame:
-    """Every reading of the given capacitors (one query, straight into arrays: COPY on PostgreSQL),
+    """Every reading of the given capacitors (one query, straight into arrays: binary values on PostgreSQL),
     with `taken_at` in UTC and a `superseded` column."""
     ids = [int(i) for i in fitted_capacitor_ids]
-    if on_postgresql():
-        frame = select_lines(
-            READINGS_SQL, [min(ids, default=0), max(ids, default=0), id_array_text(ids)], READING_COLUMNS
-        )
-        frame["taken_at"] = pd.to_datetime(frame["taken_at"].astype(np.int64), unit="us", utc=True)
-    else:
+    frame = _packed_readings(ids) if on_postgresql() else None
+    if frame is None:
         rows = Reading.objects.filter(fitted_capacitor_id__any_of=np.array(ids, np.int64)).values_list(*READING_COLUMNS)
         frame = pd.DataFrame.from_records(list(rows), columns=READING_COLUMNS)
         frame["taken_at"] = pd.to_datetime(frame["taken_at"], utc=True)
@@ -175,6 +186,20 @@ def readings_frame(fitted_capacitor_ids) -> pd.DataFrame:
     for column in ("id", "fitted_capacitor_id"):
         frame[column] = frame[column].astype(np.int64)
     return frame
+
+
+def _packed_readings(ids: list[int]) -> pd.DataFrame | None:
+    """The readings as `readings_frame` reads them on PostgreSQL; None if a reading's condition is none of the
+    choices (read through the ORM instead, as it stands)."""
+    frame = select_packed(
+        PACKED_READING_FIELDS, READINGS_FROM, [min(ids, default=0), max(ids, default=0), id_array_text(ids)]
+    )
+    code = frame["condition"].to_numpy()
+    if (code < 0).any():
+        return None
+    frame["condition"] = np.asarray(READING_CONDITIONS, dtype=object)[code]
+    frame["supersedes_id"] = frame["supersedes_id"].where(frame["supersedes_id"] != 0)
+    return frame[READING_COLUMNS]
 
 
 def utc_datetime64(instants) -> np.ndarray:
