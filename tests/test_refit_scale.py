@@ -252,7 +252,7 @@ def test_refits_of_the_same_readings_at_any_hour_of_a_day_date_each_crossing_ali
     assert {(k, f) for k in early for f in dated if early[k][f] != late[k][f]} == set()
 
 
-def test_the_part_priors_sample_a_fixed_number_of_capacitors_with_readings_a_part(settings):
+def test_the_part_priors_sample_a_fixed_number_of_capacitors_with_readings_a_part(settings, monkeypatch):
     # [derived] A population of paths is statistics: past FLEET_PRIOR_MAX_CAPACITORS_PER_PART capacitors of a part,
     # a fixed random sample of those with readings is fitted; a part with fewer gives all of its own. The sample
     # is found without joining every capacitor to every reading, batch by batch in one fixed shuffle.
@@ -279,3 +279,10 @@ def test_the_part_priors_sample_a_fixed_number_of_capacitors_with_readings_a_par
     assert len(chosen_big) == 3 and set(sample) - set(read_big) == set(read_small)
     assert sorted(_prior_sample(None, 100)) == sorted(read_big + read_small)  # every capacitor with readings
     assert _prior_sample([small.id], 3) == sorted(read_small)
+    from fleet.services import assessments
+
+    # Rows come from the database in no set order (a table rewritten, a row moved): the sample is the same.
+    for read in ("select_frame", "select_packed"):
+        as_stored = getattr(assessments, read)
+        monkeypatch.setattr(assessments, read, lambda *args, as_stored=as_stored: as_stored(*args).iloc[::-1])
+    assert _prior_sample(None, 3) == sample

@@ -85,7 +85,7 @@ from fleet.engineering.trends import (
 )
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, PartPrior, Reading
 
-from .bulk import ID_ARRAY_SQL, id_array_text, insert_frame, on_postgresql, select_frame, side_by_side
+from .bulk import ID_ARRAY_SQL, id_array_text, insert_frame, on_postgresql, select_frame, select_packed, side_by_side
 from .selectors import (
     CIRCUIT_FIELDS,
     companion_capacitance_frame,
@@ -229,9 +229,13 @@ def _prior_sample(part_ids, per_part: int) -> list[int]:
     if part_ids is not None:
         capacitors = capacitors.filter(part_id__in=list(part_ids))
     sql, params = capacitors.values_list("id", "part_id").query.sql_with_params()
-    frame = select_frame(sql, params, ["id", "part_id"]).astype(np.int64)
+    if on_postgresql():
+        frame = select_packed([("id", "id", "int8"), ("part_id", "part_id", "int8")], f"({sql}) AS q", params)
+    else:
+        frame = select_frame(sql, params, ["id", "part_id"]).astype(np.int64)
     if frame.empty:
         return []
+    frame = frame.sort_values("id", ignore_index=True)  # the rows as stored come in no set order
     shuffled = frame.iloc[np.random.default_rng(0).permutation(len(frame))].reset_index(drop=True)
     rank = shuffled.groupby("part_id").cumcount().to_numpy()
     has_readings = np.zeros(len(shuffled), bool)
