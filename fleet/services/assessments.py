@@ -14,6 +14,7 @@ import datetime as dt
 import json
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 import pandas as pd
@@ -207,7 +208,10 @@ def refresh_part_priors(part_ids=None) -> int:
     ids = _prior_sample(part_ids, settings.FLEET_PRIOR_MAX_CAPACITORS_PER_PART)
     if not ids:
         return 0
-    inst, readings = side_by_side(lambda: fitted_capacitors_frame(ids), lambda: readings_frame(ids))
+    # The sample's readings lie scattered over the table: read in two halves at once, the server works on both.
+    halves = [ids[: len(ids) // 2], ids[len(ids) // 2 :]] if len(ids) > 1 else [ids]
+    inst, *read = side_by_side(partial(fitted_capacitors_frame, ids), *(partial(readings_frame, h) for h in halves))
+    readings = pd.concat(read, ignore_index=True)
     inst = inst.set_index("fitted_capacitor_id", drop=False)
     parts = np.sort(inst["part_id"].unique())
     rows = _finite_prior_rows(fit_frames(inst, readings, None, parts), parts)
