@@ -245,6 +245,13 @@ def microfarad_text(value) -> str:
     return f"{value:.2f}" if value == 0 or not np.isfinite(value) or abs(value) >= 0.005 else plain_number(value)
 
 
+def reading_time_text(local) -> str:
+    """When a reading was taken (a datetime in the site's time), as the pages write it: to the minute, with its
+    seconds where they are not 0 ("2026-11-02 09:15", "2026-11-02 09:15:40"), so two readings a minute apart,
+    which the form can take, are told apart."""
+    return f"{local:%Y-%m-%d %H:%M:%S}" if local.second else f"{local:%Y-%m-%d %H:%M}"
+
+
 GENERAL_FORMAT = re.compile(r"\{(\w+):g\}")
 
 

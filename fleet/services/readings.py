@@ -20,6 +20,7 @@ from fleet.engineering.rules import (
     check_readings,
     microfarad_text,
     parse_numbers,
+    reading_time_text,
     trend_slope_uf_per_hour,
     trend_value_held_to,
 )
@@ -188,7 +189,7 @@ def _second_reading_at_one_time(fitted_capacitor: FittedCapacitor, taken_at, met
     zone = site_zone(fitted_capacitor.motor.site.time_zone)
     return (
         f"This capacitor has a reading at this time already, reading {stored.id} of "
-        f"{_reading_words(stored, zone, seconds=True)}: nothing saved. If it is wrong, correct it (both are kept, "
+        f"{_reading_words(stored, zone)}: nothing saved. If it is wrong, correct it (both are kept, "
         "the trend uses the correction); if it is another measurement, give its own time."
     )
 
@@ -266,13 +267,11 @@ def newest_correction(fitted_capacitor: FittedCapacitor, reading_id) -> Reading 
     return newest
 
 
-def _reading_words(reading: Reading, zone, seconds: bool = False) -> str:
-    """A reading as a technician knows it: when it was taken at the site, and its value ("2026-11-02 09:15
-    (143.00 µF)", as the readings tables show them); with `seconds`, its seconds where they are not 0
-    ("2026-11-02 09:15:40"), as two readings within one minute are told apart."""
-    local = timezone.localtime(reading.taken_at, zone)
-    shown = f"{local:%Y-%m-%d %H:%M:%S}" if seconds and local.second else f"{local:%Y-%m-%d %H:%M}"
-    return f"{shown} ({reading.capacitance_uf:.2f} µF)"
+def _reading_words(reading: Reading, zone) -> str:
+    """A reading as a technician knows it, as the readings tables show it: when it was taken at the site and its
+    value ("2026-11-02 09:15 (143.00 µF)", "2026-11-02 09:15:40 (143.00 µF)")."""
+    taken = reading_time_text(timezone.localtime(reading.taken_at, zone))
+    return f"{taken} ({microfarad_text(reading.capacitance_uf)} µF)"
 
 
 def trend_value_at(assessment, rated_uf: float, taken_at: dt.datetime) -> np.ndarray:

@@ -15,7 +15,7 @@ from django.utils.safestring import mark_safe
 from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
 from fleet.engineering.lifedata import age_in_words
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
-from fleet.engineering.rules import microfarad_text
+from fleet.engineering.rules import microfarad_text, reading_time_text
 from fleet.services.assessments import DEFECT_REASON, DISSIPATION_LIMIT
 from fleet.services.workorders import READ_FOR_WORDS
 
@@ -85,11 +85,10 @@ def day(value, pattern=ISO_DAY):
 
 @register.filter(expects_localtime=True)
 def reading_time(value):
-    """When a reading was taken, as `day` writes it to the minute, with its seconds where they are not 0: the
-    form offers the time to the second, and two readings a minute apart were listed alike."""
+    """When a reading was taken (`rules.reading_time_text`), kept on one line."""
     if value in (None, ""):
         return ""
-    return day(value, "Y-m-d H:i:s" if getattr(value, "second", 0) else "Y-m-d H:i")
+    return format_html('<span class="nowrap">{}</span>', reading_time_text(value))
 
 
 @register.filter
