@@ -61,12 +61,16 @@ def _grant_role_permissions():
 
 
 def roles_of(user) -> set[str]:
+    """The user's roles, read once per user object (as Django keeps its permissions): a page asks in its view
+    and again in its template's context."""
     if not user.is_authenticated:
         return set()
-    names = {group.name for group in user.groups.all()}
-    if user.is_superuser:
-        names.add(ADMINISTRATOR)
-    return names & set(ROLES)
+    if not hasattr(user, "_fleet_roles"):
+        names = {group.name for group in user.groups.all()}
+        if user.is_superuser:
+            names.add(ADMINISTRATOR)
+        user._fleet_roles = frozenset(names & set(ROLES))
+    return set(user._fleet_roles)
 
 
 ACTION_WORDS = {"view": "Seeing", "add": "Recording", "change": "Changing", "delete": "Deleting"}

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import itertools
+from collections import Counter
 
 import pytest
 from django.contrib.auth.models import Group
@@ -156,6 +157,9 @@ def test_a_list_pages_query_count_does_not_grow_with_the_fleet(client, planner_w
         assert response.status_code == 200, response.content[:500]
         counts.append(len(queries))
         bodies.append(response.content)
+        # [ours] no query twice in one page (the work-orders page read the user's roles and the sites' days off twice)
+        asked = Counter(query["sql"] for query in queries.captured_queries)
+        assert [sql for sql, times in asked.items() if times > 1] == [], page
     assert counts[0] == counts[1], f"{page}: {counts[0]} queries at 5 motors, {counts[1]} at 40"
     if page in ("work orders", "visit sheet"):  # each order's replace-by date (and on the list each visit's
         # state and lateness, counted in SQL) is on both fleets' pages: the counts above include them

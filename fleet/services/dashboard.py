@@ -37,7 +37,7 @@ from fleet.models import (
     WorkOrder,
 )
 from fleet.roles import scope_to_user
-from fleet.services.counts import in_service_counts
+from fleet.services.counts import InServiceCounts, in_service_counts
 from fleet.services.pages import (
     NOT_ASSESSED,
     OVERDUE_GRACE_DAYS,
@@ -85,7 +85,7 @@ def _site_codes(user) -> dict[int, str]:
     return dict(scope_to_user(Site.objects.all(), user).values_list("id", "code"))
 
 
-def weekly_workload(user=None, today: dt.date | None = None) -> dict:
+def weekly_workload(user=None, today: dt.date | None = None, sites: dict[int, str] | None = None) -> dict:
     """Replacements per week for the next WEEKS weeks by risk level and by site (overdue ones in
     this week), and the site visits of the open work orders per week (four queries). The weeks end on
     the Sunday `until`, `horizon_days` from today: the plan's window (`pages.due_within`) that the
@@ -102,7 +102,7 @@ def weekly_workload(user=None, today: dt.date | None = None) -> dict:
         .annotate(n=Count("*"))  # the in_service_totals index alone: no capacitor or motor joined
         .order_by()
     )
-    sites = _site_codes(user)
+    sites = _site_codes(user) if sites is None else sites
     position = {week: k for k, week in enumerate(weeks)}
     by_risk = {risk: [0] * WEEKS for risk in RISK_ORDER}
     by_site = {code: [0] * WEEKS for code in sites.values()}
@@ -150,7 +150,7 @@ def _stop_gaps_bring_design_parts(user, first: dt.date, end: dt.date) -> list[di
     return [{"part_id": part, "month": month, "n": n} for (month, part), n in moved.items() if n]
 
 
-def spares_by_month(user=None, today: dt.date | None = None) -> dict:
+def spares_by_month(user=None, today: dt.date | None = None, ledger: InServiceCounts | None = None) -> dict:
     """Spares per part per month for MONTHS months: the plan's replacements (overdue ones in this
     month) plus the failures in service expected from each part's stored life fit among the
     capacitors in service until their planned replacement, and among the new ones fitted by the plan
@@ -181,9 +181,8 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     )
     # Each capacitor in service counts once: at its planned replacement month if it falls within
     # the months, otherwise with none (it stays in service to the end of them).
-    counted = Counter(
-        {(part, month, None): n for (part, month), n in in_service_counts(user).by_part_fitted_month().items()}
-    )
+    ledger = in_service_counts(user) if ledger is None else ledger
+    counted = Counter({(part, month, None): n for (part, month), n in ledger.by_part_fitted_month().items()})
     planned_rows = []
     for row in window:
         part, fitted_month, replace_month, n = row["part_id"], row["fitted_month"], row["replace_month"], row["n"]
@@ -274,16 +273,16 @@ def spares_by_month(user=None, today: dt.date | None = None) -> dict:
     }
 
 
-def risk_mix(user=None) -> dict:
+def risk_mix(user=None, sites: dict[int, str] | None = None, ledger: InServiceCounts | None = None) -> dict:
     """Capacitors in service per site by risk level, and those not assessed yet (two queries: the
-    sites, and the ledger of counts kept on write)."""
-    sites = _site_codes(user)
+    sites, and the ledger of counts kept on write; none where the caller read them)."""
+    sites = _site_codes(user) if sites is None else sites
     levels = [*RISK_ORDER, NOT_ASSESSED]
     mix = {site: dict.fromkeys(levels, 0) for site in sites.values()}
-    counts = in_service_counts(user)
-    for (site_id, risk), n in counts.by_site_risk().items():
+    ledger = in_service_counts(user) if ledger is None else ledger
+    for (site_id, risk), n in ledger.by_site_risk().items():
         mix.setdefault(sites.get(site_id), dict.fromkeys(levels, 0))[risk] = n
-    for site_id, n in counts.not_assessed_by_site().items():
+    for site_id, n in ledger.not_assessed_by_site().items():
         mix.setdefault(sites.get(site_id), dict.fromkeys(levels, 0))[NOT_ASSESSED] = n
     return {"sites": list(mix), "levels": levels, "counts": mix}
 
@@ -316,7 +315,7 @@ def readings_by_route(user=None, today: dt.date | None = None) -> dict:
     return {"quarter_start": quarter_start(today), "overdue_before": overdue_before(today), "routes": routes}
 
 
-def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
+def changes_since(days: int = 7, user=None, limit: int = 10, ledger: InServiceCounts | None = None) -> dict:
     """What moved in the last `days`: readings taken (a reading and its corrections counted once), refits
     run, capacitors reassessed and how their risk level moved, replacements; the riskier ones with the
     reason and the governing limit they had before.
@@ -331,7 +330,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10) -> dict:
     # A reading and its correction are one change: a reading a later one supersedes is left out.
     readings = scope_to_user(Reading.objects.filter(not_superseded(), taken_at__gte=since), user).count()
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
-    reassessed = in_service_counts(user).assessed_since(since_day)
+    reassessed = (in_service_counts(user) if ledger is None else ledger).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
     worse = list(worse.annotate(previous_limit=F("limit_was")))
     # Among the capacitors whose level changed only; each stores the limit that governed before the change.
@@ -388,11 +387,12 @@ def cached_figure(builder, *numbers) -> dict:
 
 
 def dashboard(user=None, today: dt.date | None = None) -> dict:
-    """Everything the dashboard shows, with its figures (a fixed number of queries)."""
+    """Everything the dashboard shows, with its figures (a fixed number of queries, each table read once)."""
     today = today or timezone.localdate()
-    workload = weekly_workload(user, today)
-    spares = spares_by_month(user, today)
-    mix = risk_mix(user)
+    sites, ledger = _site_codes(user), in_service_counts(user)
+    workload = weekly_workload(user, today, sites=sites)
+    spares = spares_by_month(user, today, ledger=ledger)
+    mix = risk_mix(user, sites=sites, ledger=ledger)
     routes = readings_by_route(user, today)
     weeks = [w.isoformat() for w in workload["weeks"]]
     months = [m.isoformat() for m in spares["months"]]
@@ -407,7 +407,7 @@ def dashboard(user=None, today: dt.date | None = None) -> dict:
         "spares": spares,
         "mix": mix,
         "routes": routes,
-        "changes": changes_since(7, user),
+        "changes": changes_since(7, user, ledger=ledger),
         "sites": mix["sites"],
         "visits_total": sum(workload["visits"]),
         "replace_now_unordered": replace_now_without_order(user),

@@ -644,12 +644,14 @@ def _redated_to(site_id: int, due_on: dt.date, user=None, *, closed_too: bool = 
     return None
 
 
-def move_choices(site_id: int, due_on: dt.date, today: dt.date | None = None) -> list[dt.date]:
+def move_choices(
+    site_id: int, due_on: dt.date, today: dt.date | None = None, days_off: dict | None = None
+) -> list[dt.date]:
     """The working days next to a visit on `due_on` that `move_visit` takes (`planning.working_days_near`),
-    the site's days off skipped."""
+    the site's days off skipped (`days_off_by_site`, read here unless given from a day no later than today)."""
     today = today or timezone.localdate()
-    days_off = days_off_by_site([site_id], today).get(site_id)
-    return working_days_near(due_on, today, weekmask=PlanningSettings().working_days, days_off=days_off)
+    days_off = days_off_by_site([site_id], today) if days_off is None else days_off
+    return working_days_near(due_on, today, weekmask=PlanningSettings().working_days, days_off=days_off.get(site_id))
 
 
 def days_off_by_site(site_ids, today: dt.date) -> dict[int, dict[dt.date, str]]:
@@ -834,17 +836,18 @@ def with_parts_to_bring(orders) -> list[WorkOrder]:
     return orders
 
 
-def window_start_days(orders, today: dt.date) -> np.ndarray:
+def window_start_days(orders, today: dt.date, days_off: dict | None = None) -> np.ndarray:
     """Days from `today` to where each order's visit window starts, as the plan judges whether it still asks
     for the order's work in that visit (`plan_moved_words`): from the day the plan gave the visit (`moved_from`,
     where a planner moved it earlier: replacing before its date is no reason to cancel it), carried over the
     days off work right after it (a weekend, the site's days off: a visit the plan opened on one of them went
     back to the working day before with what fell due within the window of the day it opened). One query for
-    the sites' days off; numpy's business days per site, not per order."""
+    the sites' days off (none where the caller read them already, `days_off_by_site` from a day no later than
+    any order's); numpy's business days per site, not per order."""
     planned_on = [max(o.due_on, o.moved_from or o.due_on) for o in orders]
     planned_day = np.array(planned_on, "datetime64[D]")
     site = np.array([o.site_id for o in orders])
-    off = days_off_by_site(set(site.tolist()), min(planned_on))
+    off = days_off if days_off is not None else days_off_by_site(set(site.tolist()), min(planned_on))
     weekmask = PlanningSettings().working_days
     next_working = np.busday_offset(planned_day, 1, roll="forward", weekmask=weekmask)
     for site_id, held in off.items():  # a loop over the few sites with days off, not over orders
@@ -856,20 +859,20 @@ def window_start_days(orders, today: dt.date) -> np.ndarray:
     return (planned_day - np.datetime64(today, "D")).astype(int) + days_off_after
 
 
-def with_plan_now(orders, today: dt.date | None = None) -> list[WorkOrder]:
+def with_plan_now(orders, today: dt.date | None = None, days_off: dict | None = None) -> list[WorkOrder]:
     """The orders (read by `with_current_plan`) as a list, each with `plan_now`: in words, what the
     capacitor's current plan asks where it no longer asks for the order's work in its visit (empty
     where it still does, or where there is no current plan); `planning.plan_moved_words` holds the rule, the
     order's window starting where `window_start_days` says (a walk found an order marked "plan now" by the plan
     run that made it). A replacement order on a stop-gap has none: the stop-gap itself is its reason, whatever its
-    wear (`order_swap`)."""
+    wear (`order_swap`). `days_off`: the orders' sites' days off, if read already (`window_start_days`)."""
     orders = list(orders)
     if not orders:
         return orders
     today = today or timezone.localdate()
     words = plan_moved_words(
         order_reads_again=[o.kind == WorkOrder.Kind.READ_AGAIN for o in orders],
-        order_due_days=window_start_days(orders, today),
+        order_due_days=window_start_days(orders, today, days_off),
         window_days=[o.window_days for o in orders],
         plan_risk=[o.plan_risk or "" for o in orders],
         plan_read_again=[bool(o.plan_read_again) for o in orders],
@@ -1048,6 +1051,8 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
         .order_by()
         .values_list("id", flat=True)
     )
+    # Read once for the visits' names of days off and the orders' windows: every order is dated on its visit's day.
+    days_off = days_off_by_site({site_id for _, site_id in keys}, min(day for day, _ in keys))
     listed = with_parts_to_bring(
         with_plan_now(
             with_current_plan(
@@ -1055,14 +1060,14 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
                 .select_related("motor", "site", "fitted_capacitor__part")
                 .only(*LISTED_ORDER_FIELDS)
                 .order_by("due_on", "site__code", *WALKING_ORDER)
-            )
+            ),
+            days_off=days_off,
         )
     )
     by_visit: dict[tuple, list[WorkOrder]] = {}
     for order in listed:
         by_visit.setdefault((order.due_on, order.site_id), []).append(order)
     spares = _spares(orders, keys)
-    days_off = days_off_by_site({site_id for _, site_id in keys}, min(day for day, _ in keys))
     page.object_list = [
         {
             "day": day,

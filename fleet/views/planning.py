@@ -255,15 +255,19 @@ def visit_sheet(request, site, day):
         # Every order done or cancelled: the sheet says what became of each (a bookmark or a printed sheet).
         return render(request, "fleet/visit_closed.html", {"visit": closed, "site": site})
     page = list_page(request, paginator.get_page)
-    page.object_list = with_parts_to_bring(with_read_for(with_plan_now(page.object_list), user=request.user))
+    # Read once for the orders (dated on the visit's day), the day's name and the days to move it to (from today).
+    days_off = days_off_by_site([site.id], min(day, timezone.localdate()))
+    page.object_list = with_parts_to_bring(
+        with_read_for(with_plan_now(page.object_list, days_off=days_off), user=request.user)
+    )
     planned = WorkOrder.objects.filter(site_id=site.id, due_on=day, state=WorkOrder.State.PLANNED).count()
     context = {
         "visit": visit,
         "site": site,
         "page": page,
         "move_form": move_form,
-        "move_choices": move_choices(site.id, day),
-        "day_off": days_off_by_site([site.id], day).get(site.id, {}).get(day),
+        "move_choices": move_choices(site.id, day, days_off=days_off),
+        "day_off": days_off.get(site.id, {}).get(day),
         "closed": closed_visit(site.id, day, user=request.user),  # a "read for work order N" links to one of these
         # Orders still to issue: the planner issues the visit from its sheet as from the work-orders list; a
         # technician reads that the visit is not issued yet.
