@@ -25,6 +25,7 @@ from django.core.management import CommandError, call_command
 from django.core.management.commands import loaddata
 from django.core.serializers.base import DeserializationError
 from django.db import connections, transaction
+from django.template.defaultfilters import pluralize
 
 from fleet import audit
 from fleet.engineering.rules import site_time_zone
@@ -122,7 +123,7 @@ def restore_backup(path: str, *, database: str = "default", allow_empty: bool = 
     _check_name(path)
     if not os.path.isfile(path):
         beside = backups_beside(path)
-        hint = f" ({' and '.join(beside)} {'is' if len(beside) == 1 else 'are'} beside it: name the one to restore)"
+        hint = f" ({' and '.join(beside)} {pluralize(len(beside), 'is,are')} beside it: name the one to restore)"
         raise CommandError(f"{path}: no such file{hint if beside else ''}. Nothing was restored.")
     in_the_way = rows_in_the_way(database)
     if in_the_way:
@@ -157,8 +158,7 @@ def restore_backup(path: str, *, database: str = "default", allow_empty: bool = 
 def restored_words(restored: Restored) -> str:
     """What the restore command says it did: the file restored, its records, and the backups of the same name
     beside it that it did not read (the file named is the one restored, whatever else is there)."""
-    records = f"{restored.records} record{'' if restored.records == 1 else 's'}"
-    said = f"Restored {restored.path} ({records})."
+    said = f"Restored {restored.path} ({restored.records} record{pluralize(restored.records)})."
     if not restored.records:
         said = f"Restored {restored.path}: it holds no records, so nothing changed (--allow-empty)."
     if restored.beside:
