@@ -234,8 +234,10 @@ class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
         "this body is a JSON {datatype}."
     }
     taken_at = SiteTime(required=False, allow_null=True)  # null is left out: now
+    # Sent: true keeps a value the checks asked to confirm. Answered: whether the reading is stored as confirmed
+    # (true only where the checks asked), as the readings export and the import's column name it.
     confirmed = serializers.BooleanField(
-        write_only=True,
+        source="outlier_confirmed",
         required=False,
         default=False,
         error_messages={"invalid": "true or false: true keeps a value the checks asked to confirm."},
@@ -272,12 +274,11 @@ class ReadingSerializer(KnownFieldsOnly, serializers.ModelSerializer):
             *Reading.MEASURED_FIELDS,
             "condition",
             "notes",
-            "outlier_confirmed",
+            "confirmed",
             "supersedes",
             "source",
-            "confirmed",
         ]
-        read_only_fields = ["id", "outlier_confirmed", "source"]
+        read_only_fields = ["id", "source"]
         extra_kwargs = {"taken_at": {"required": False}, "notes": {"trim_whitespace": False}}
 
     def get_fields(self):
@@ -362,7 +363,7 @@ class FittedCapacitorReadings(KnownParametersOnly, generics.ListCreateAPIView):
         values = dict(serializer.validated_data)
         if values.get("taken_at") is None:  # null, as left out: now (or the corrected reading's time)
             values.pop("taken_at", None)
-        confirmed = values.pop("confirmed", False)
+        confirmed = values.pop("outlier_confirmed", False)
         supersedes_id = values.pop("supersedes_id", None)
         key = request.headers.get("Idempotency-Key", "")
         if len(key) > 64 or "\x00" in key:
@@ -408,7 +409,6 @@ class BulkReadingSerializer(ReadingSerializer):
 
     class Meta(ReadingSerializer.Meta):
         fields = ["fitted_capacitor_id", "asset_tag", "site", "role", "part_code", *ReadingSerializer.Meta.fields]
-        fields.remove("confirmed")
 
 
 class ReadingPages(CheckedPageSize, CursorPagination):

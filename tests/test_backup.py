@@ -257,3 +257,63 @@ def test_a_backup_naming_a_time_zone_nobody_knows_is_refused_by_the_site_forms_r
     backup.write_text(json.dumps([{"model": "fleet.site", "pk": 7, "fields": site}]))
     call_command("restore", str(backup), stdout=io.StringIO())
     assert Site.objects.get().time_zone == "Europe/Madrid"
+
+
+def site_backup(path, code: str) -> None:
+    """A backup of one site, gzipped where the name says so."""
+    objects = json.dumps([{"model": "fleet.site", "pk": 7, "fields": {"code": code, "name": code, "time_zone": "UTC"}}])
+    if str(path).endswith(".gz"):
+        with gzip.open(path, "wt") as file:
+            file.write(objects)
+    else:
+        path.write_text(objects)
+
+
+@pytest.mark.parametrize(("named", "other", "code"), [("X.json", "X.json.gz", "PLAIN"), ("X.json.gz", "X.json", "GZ")])
+def test_the_file_named_is_restored_and_said_so_whatever_backup_of_its_name_is_beside_it(tmp_path, named, other, code):
+    """X.json beside X.json.gz: `restore X.json` said "Multiple fixtures named 'X' in ... Aborting." (loaddata looks
+    for the name with every ending) and restored nothing. [derived] the file named is restored, and the command
+    says which, and that the other was not read."""
+    from fleet.models import Site
+
+    site_backup(tmp_path / "X.json", "PLAIN")
+    site_backup(tmp_path / "X.json.gz", "GZ")
+    said = io.StringIO()
+    call_command("restore", str(tmp_path / named), stdout=said)
+    assert list(Site.objects.values_list("code", flat=True)) == [code]
+    assert said.getvalue().strip() == (
+        f"Restored {tmp_path / named} (1 record). Not read: {other} beside it; the file named is the one restored."
+    )
+
+
+def test_a_backup_named_but_missing_is_refused_naming_the_one_beside_it(tmp_path):
+    """`restore X.json` with only X.json.gz there restored X.json.gz, unasked, and said "Restored X.json"."""
+    from fleet.models import Site
+
+    site_backup(tmp_path / "X.json.gz", "GZ")
+    with pytest.raises(CommandError) as refused:
+        call_command("restore", str(tmp_path / "X.json"))
+    assert str(refused.value) == (
+        f"{tmp_path / 'X.json'}: no such file (X.json.gz is beside it: name the one to restore). Nothing was restored."
+    )
+    assert not Site.objects.exists()
+
+
+@pytest.mark.parametrize("name", ["empty.json", "empty.json.gz"])
+def test_a_backup_that_holds_no_records_is_refused_unless_asked_for(tmp_path, name):
+    """A backup of no records ("[]": a file cut short, one written by another program) restored with only
+    loaddata's warning "No fixture data found", and the role groups migrate made were deleted with nothing
+    in their place. [derived] refused, saying it holds no records; with --allow-empty nothing changes."""
+    path = tmp_path / name
+    with gzip.open(path, "wt") if name.endswith(".gz") else open(path, "w") as file:
+        file.write("[]")
+    roles = sorted(Group.objects.values_list("name", flat=True))
+    assert roles
+    with pytest.raises(CommandError) as refused:
+        call_command("restore", str(path))
+    assert str(refused.value).startswith(f"{path}: the backup holds no records")
+    assert "Nothing was restored" in str(refused.value) and "--allow-empty" in str(refused.value)
+    said = io.StringIO()
+    call_command("restore", str(path), "--allow-empty", stdout=said)
+    assert said.getvalue().strip() == f"Restored {path}: it holds no records, so nothing changed (--allow-empty)."
+    assert sorted(Group.objects.values_list("name", flat=True)) == roles

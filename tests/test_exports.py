@@ -17,10 +17,12 @@ from openpyxl import load_workbook
 from rest_framework.authtoken.models import Token
 from rest_framework.test import APIClient
 
+from fleet.api import AssessmentSerializer, BulkReadingSerializer
+from fleet.imports import columns as import_columns
 from fleet.models import Assessment, FittedCapacitor, Reading, SiteMembership
 from fleet.roles import PLANNER, RELIABILITY_ENGINEER
 from fleet.services.assessments import MODEL_VERSION, refit_fitted_capacitors
-from fleet.services.exports import ASSESSMENT_COLUMNS, LIMIT_COLUMNS, READING_COLUMNS
+from fleet.services.exports import ASSESSMENT_COLUMNS, LIMIT_COLUMNS, PLAN_COLUMNS, READING_COLUMNS
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db
@@ -103,7 +105,7 @@ def test_readings_round_trip_with_awkward_text(client, awkward_fleet, file_forma
     )
     assert len(rows) == stored.count() == 4 * len(AWKWARD)
     for row, reading in zip(rows, stored, strict=True):
-        assert row["reading_id"] == reading.id and row["fitted_capacitor_id"] == reading.fitted_capacitor_id
+        assert row["id"] == reading.id and row["fitted_capacitor_id"] == reading.fitted_capacitor_id
         assert row["site"] == reading.fitted_capacitor.motor.site.code
         assert row["notes"] == reading.notes  # = + - @ ' commas quotes newline non-ASCII, all as stored
         assert row["capacitance_uf"] == reading.capacitance_uf and isinstance(row["capacitance_uf"], int | float)
@@ -124,7 +126,7 @@ def test_assessments_carry_every_limits_dates_as_stored(client, awkward_fleet, f
         row = rows[assessment.fitted_capacitor_id]
         assert row["location"] == assessment.fitted_capacitor.motor.location
         assert row["risk"] == assessment.risk and row["replace_by"] == assessment.replace_by
-        assert row["governing_limit"] == assessment.limit_source and row["model_version"] == MODEL_VERSION
+        assert row["limit_source"] == assessment.limit_source and row["model_version"] == MODEL_VERSION
         assert len(assessment.limits) >= 2
         for limit in assessment.limits:
             slug = limit["name"].replace(" ", "_").replace("-", "_")
@@ -152,7 +154,7 @@ def test_xlsx_cells_are_typed_with_a_frozen_filtered_header_and_text_kept_as_tex
     assert isinstance(taken.value, dt.datetime) and taken.is_date and "h:mm" in taken.number_format
     uf = sheet.cell(row=2, column=header.index("capacitance_uf") + 1)
     assert uf.data_type == "n"
-    assert sheet.column_dimensions["A"].width >= len("reading_id")
+    assert sheet.column_dimensions["A"].width >= len("id") + 2
     about = {row[0]: row[1] for row in book["about"].iter_rows(values_only=True) if row[0]}
     assert about["model_version"] == MODEL_VERSION and about["capacitance_uf"] == "float"
 
@@ -413,3 +415,63 @@ def test_an_export_refuses_a_parameter_it_does_not_take_or_one_given_twice(clien
     assert "site: Give site once (given 2 times: NORD, SUD)" in twice.content.decode()
     about = client.get(reverse("export_about", args=[kind]), {"bogus": "1"})
     assert about.status_code == 400 and "Not a parameter of this list" in about.json()["bogus"][0]
+
+
+def _read_path(source: str) -> str:
+    """What a column or an API field reads, one spelling for both: `fitted_capacitor.motor.asset_tag` (the API's)
+    and `fitted_capacitor__motor__asset_tag` (a values_list path) alike, a foreign key's id as `..._id`."""
+    path = source.replace(".", "__")
+    return path.removesuffix("__id") + "_id" if path.endswith("__id") else path
+
+
+def test_every_export_names_a_field_as_the_api_and_the_import_do():
+    """The engineer joins exports: the plan called the governing limit `limit` and its early date
+    `early_crossing_p10` where the assessments export said `governing_limit` and `p10_on`, and the API
+    `limit_source` and `p10_on`; the API's readings said `outlier_confirmed` where the readings export and the
+    import say `confirmed`. [derived] one name per thing: the API's where it has one, the import's where an
+    export feeds it."""
+    for table, serializer in (
+        (READING_COLUMNS, BulkReadingSerializer),
+        (ASSESSMENT_COLUMNS, AssessmentSerializer),
+        (PLAN_COLUMNS, AssessmentSerializer),
+    ):
+        api_names = {_read_path(field.source): name for name, field in serializer().fields.items()}
+        shared = {
+            column.name: api_names[_read_path(column.source)]
+            for column in table
+            if _read_path(column.source) in api_names
+        }
+        assert shared == {name: name for name in shared}
+    checked = {"id", "supersedes", "confirmed", "limit_source", "limit_fraction", "p10_on", "fitted_capacitor_id"}
+    assert checked <= {c.name for c in READING_COLUMNS + ASSESSMENT_COLUMNS + PLAN_COLUMNS}
+    assert {c.name for c in PLAN_COLUMNS} <= {c.name for c in ASSESSMENT_COLUMNS}
+    assert set(import_columns.READING_COLUMNS) <= {c.name for c in READING_COLUMNS}  # an export imports again
+
+
+def test_the_plan_the_assessments_and_the_api_agree_under_each_shared_name(client, awkward_fleet):
+    """[derived] joined on fitted_capacitor_id (the plan, the assessments export) or on the reading's id (the
+    readings export, the API's readings), every column of the same name holds the same value."""
+    fitted_capacitor = awkward_fleet[1][0]
+    wrong = Reading.objects.filter(fitted_capacitor=fitted_capacitor).latest("taken_at")
+    quarterly_readings(  # a correction, confirmed
+        fitted_capacitor, wrong.taken_at, [3.1], supersedes=wrong, outlier_confirmed=True, notes="re-read"
+    )
+    client.force_login(make_user(PLANNER))
+    _, content = _download(client, "plan", "csv", {"days": 730})
+    plan = {row["fitted_capacitor_id"]: row for row in _parse(content, "csv", PLAN_COLUMNS)}
+    client.force_login(engineer := make_user(RELIABILITY_ENGINEER))
+    judged = _parse(_download(client, "assessments", "csv")[1], "csv", ASSESSMENT_COLUMNS + LIMIT_COLUMNS)
+    assert plan and set(plan) <= {row["fitted_capacitor_id"] for row in judged}
+    for row in judged:
+        if row["fitted_capacitor_id"] in plan:
+            assert {name: row[name] for name in plan[row["fitted_capacitor_id"]]} == plan[row["fitted_capacitor_id"]]
+    readings = _parse(_download(client, "readings", "csv")[1], "csv", READING_COLUMNS)
+    answered = {r["id"]: r for r in _api(engineer).get(reverse("api_readings"), {"page_size": 5000}).json()["results"]}
+    assert len(answered) == len(readings) == 4 * len(AWKWARD) + 1
+    for row in readings:
+        api_row = answered[row["id"]]
+        shared = (set(row) & set(api_row)) - {"taken_at"}  # the same instant, ISO 8601 written two ways
+        assert {name: row[name] for name in shared} == {name: api_row[name] for name in shared}
+    (correction,) = (row for row in readings if row["supersedes"] is not None)
+    assert (correction["supersedes"], correction["confirmed"]) == (wrong.id, True)
+    assert {"id", "supersedes", "confirmed", "fitted_capacitor_id", "capacitance_uf", "notes"} <= shared

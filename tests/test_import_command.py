@@ -816,6 +816,40 @@ def test_a_reading_confirmed_off_its_trend_exported_and_imported_again_adds_noth
     assert "row 2, capacitance_uf: 6 µF is far from this capacitor's trend" in report.getvalue()
 
 
+def test_a_readings_export_written_under_the_old_headings_imports_as_it_did(tmp_path, client, engineer):
+    """Readings exports wrote `outlier_confirmed` until 2026-12-03 and `installation_id` before the fitted
+    capacitor's rename; the import reads `confirmed` and `fitted_capacitor_id`. [derived] a file exported before
+    imports as it did: its old headings are read as those fields (before: left out, and a reading confirmed off
+    its trend came back refused)."""
+    from fleet.services.assessments import refit_fitted_capacitors
+    from fleet.services.readings import record_reading
+
+    migrate_all(tmp_path)
+    fan = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    refit_fitted_capacitors([fan.id])  # its trend runs through the 7.8 µF reading of 2024-05-04
+    record_reading(fitted_capacitor=fan, values={"method": "meter", "capacitance_uf": "6.1"}, confirmed=True)
+    client.force_login(engineer)
+    export = b"".join(client.get("/exports/readings.csv").streaming_content).decode("utf-8-sig")
+    header, rest = export.split("\r\n", 1)
+    columns = header.split(",")
+    assert "confirmed" in columns and "fitted_capacitor_id" in columns
+    old = ",".join(
+        {"confirmed": "outlier_confirmed", "fitted_capacitor_id": "installation_id"}.get(c, c) for c in columns
+    )
+    report = io.StringIO()
+    with pytest.raises(CommandError, match="nothing would be imported"):
+        call_command(
+            "import", "readings", str(write(tmp_path, "old.csv", old + "\r\n" + rest)), "--dry-run", stdout=report
+        )
+    assert ": 3 rows: 0 good, 3 already imported, 0 with problems." in report.getvalue()
+    left_out = next(line for line in report.getvalue().splitlines() if line.startswith("Columns left out"))
+    assert "outlier_confirmed" not in left_out and "installation_id" not in left_out
+    text = "asset_tag,role,taken_at,capacitance_uf,installation_id,outlier_confirmed\n"
+    text += f"FAN-1,run,2025-06-02 16:00,6.0,{fan.id},true\n"
+    run("readings", write(tmp_path, "old_new_row.csv", text))
+    assert Reading.objects.get(capacitance_uf=6.0).outlier_confirmed
+
+
 def test_days_off_import_by_site_and_day_with_each_bad_row_named(
     tmp_path, client, planner, django_capture_on_commit_callbacks
 ):

@@ -720,3 +720,66 @@ def test_two_planners_moving_one_visit_at_once_move_it_once_and_the_other_is_tol
     assert f"to {won:%a %Y-%m-%d} by {winner_name} on " in told and "nothing moved" in told
     moves = AuditEntry.objects.filter(model="fleet.workorder", action="update", changes__has_key="due_on")
     assert moves.count() == 4 and {tuple(e.changes["due_on"]) for e in moves} == {(day.isoformat(), won.isoformat())}
+
+
+def readings_file() -> tuple[bytes, callable]:
+    """A readings file of two motors' readings, and how many readings are stored."""
+    from tests.test_imports import csv_of, fleet_of, good_rows
+
+    fleet_of(2)
+    return csv_of(good_rows(["IMP-0000", "IMP-0001"], 2)), Reading.objects.count
+
+
+def history_file() -> tuple[bytes, callable]:
+    """A history file of a motor's four past run capacitors, and how many past capacitors are stored."""
+    from tests.test_imports import csv_of, fleet_of
+
+    (motor,) = fleet_of(1)
+    part = FittedCapacitor.objects.get(motor=motor).part.code
+    rows = [
+        [motor.asset_tag, "run", part, "2012-01-10", "2016-03-01", "failed"],
+        [motor.asset_tag, "run", part, "2016-03-01", "2019-12-31", "planned"],
+        [motor.asset_tag, "run", part, "2010-05-02", "2012-01-10", "other"],
+        [motor.asset_tag, "run", part, "2008-01-01", "2010-05-02", "failed"],
+    ]
+    header = ["asset_tag", "role", "part_code", "fitted_on", "removed_on", "removal_reason"]
+    return csv_of(rows, header=header), FittedCapacitor.objects.filter(removed_on__isnull=False).count
+
+
+@threads_race
+@pytest.mark.parametrize(("kind", "file_of"), [("readings", readings_file), ("history", history_file)])
+def test_two_imports_of_one_file_at_once_save_each_row_once_and_say_so(kind, file_of):
+    """Two import jobs of one file run together (two uploads, two workers), both checked, every row found new,
+    before either writes. Before: both jobs ended "4 imported"; the readings were saved once (the second's
+    were skipped on their key, unseen), the past capacitors twice. [derived] each row is saved once, and each
+    job reports what it saved: the one that waited finds the other's rows already imported and says so."""
+    from fleet.models import ImportJob
+    from fleet.services import import_jobs
+
+    content, stored = file_of()
+    planner = make_user("planner")
+    jobs = [
+        import_jobs.check_job(import_jobs.create_job(kind=kind, filename=f"{n}.csv", content=content, user=planner).id)
+        for n in range(2)
+    ]
+    assert [(job.good_rows, job.error_rows) for job in jobs] == [(4, 0), (4, 0)]
+
+    def run(job):
+        return lambda: import_jobs.run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+
+    with held_before(import_jobs, "check_file", 2, give_up_after_s=3):
+        answers = in_threads(run(jobs[0]), run(jobs[1]))
+    assert not any(isinstance(answer, Exception) for answer in answers), answers
+    assert stored() == 4
+    second, first = sorted(answers, key=lambda job: job.imported_rows)
+    assert (first.state, first.imported_rows, first.message) == (ImportJob.State.DONE, 4, "")
+    assert (second.state, second.imported_rows, second.good_rows, second.duplicate_rows) == (
+        ImportJob.State.DONE,
+        0,
+        0,
+        4,
+    )
+    assert second.message == (
+        "4 rows the check found new were already imported when this import ran (another import saved them "
+        "meanwhile): counted as already imported, not saved again; this import saved 0 rows."
+    )

@@ -42,12 +42,20 @@ READING_COLUMNS = {
     "condition": "sound, bulged, leaking or vented (default sound)",
     "notes": "Free text",
     "fitted_capacitor_id": "The capacitor read, by its id in the readings export (optional: it must be this motor's "
-    "capacitor in this role; empty: the one fitted that day)",
+    "capacitor in this role; empty: the one fitted that day); a column headed installation_id, as older exports "
+    "wrote it, is read as this one",
     "confirmed": "yes to keep a value the reading form would ask to confirm ("
     + "; ".join(CONFIRMATION_CASES.values())
-    + "), as re-checked; no or empty: such a row is refused (also true/false, 1/0)",
+    + "), as re-checked; no or empty: such a row is refused (also true/false, 1/0); a column headed "
+    "outlier_confirmed, as older readings exports wrote it, is read as this one",
 }
 READING_REQUIRED = ("asset_tag", "role", "taken_at")
+# A field's earlier headings, which older exports wrote: a file of theirs imports as it did. A file that has the
+# field's own heading too is read from that one.
+OLD_HEADINGS = {
+    "confirmed": ("outlier_confirmed",),  # the readings export's until 2026-12-03
+    "fitted_capacitor_id": ("installation_id",),  # the exports' before the fitted capacitor's rename
+}
 
 
 REGISTER_COLUMNS = {
@@ -103,13 +111,19 @@ class CheckResult:
 
 
 def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
-    """Our field -> the file's column, matching names regardless of case, spaces, dashes."""
+    """Our field -> the file's column, matching names regardless of case, spaces, dashes; a field's earlier
+    heading (`OLD_HEADINGS`) where the file has no column of its own name."""
 
     def norm(name):
         return "".join(ch for ch in name.lower() if ch.isalnum())
 
     by_norm = {norm(c): c for c in columns}
-    return {name: by_norm[norm(name)] for name in ours if norm(name) in by_norm}
+    mapping = {}
+    for name in ours:
+        found = [by_norm[norm(heading)] for heading in (name, *OLD_HEADINGS.get(name, ())) if norm(heading) in by_norm]
+        if found:
+            mapping[name] = found[0]
+    return mapping
 
 
 def near_misses(columns: list[str], mapping: dict[str, str], ours: dict[str, str]) -> dict[str, str]:

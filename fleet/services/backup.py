@@ -12,15 +12,20 @@ triggers see each capacitor as it is when its readings arrive.
 from __future__ import annotations
 
 import gzip
+import os
+import warnings
 import zlib
+from dataclasses import dataclass
 
 from django.apps import apps
 from django.contrib.auth.models import Group, Permission
 from django.contrib.contenttypes.models import ContentType
 from django.contrib.sessions.models import Session
 from django.core.management import CommandError, call_command
+from django.core.management.commands import loaddata
 from django.core.serializers.base import DeserializationError
 from django.db import connections, transaction
+from django.template.defaultfilters import pluralize
 
 from fleet import audit
 from fleet.engineering.rules import site_time_zone
@@ -82,9 +87,44 @@ def rows_in_the_way(database: str = "default") -> dict[str, int]:
     return found
 
 
-def restore_backup(path: str, *, database: str = "default") -> None:
-    """Load a backup into an empty, migrated database; refuse a database that holds data."""
+class _LoadThisFile(loaddata.Command):
+    """loaddata of exactly the file named. loaddata itself takes a name as a fixture's and looks for it with
+    every serialization and compression ending in every fixture directory: `X.json` beside `X.json.gz` was
+    refused as "Multiple fixtures named 'X'", and `X.json` missing loaded `X.json.gz` unasked."""
+
+    def find_fixtures(self, fixture_label):
+        path = os.path.realpath(fixture_label)
+        return [(path, os.path.dirname(path), os.path.basename(path))]
+
+
+@dataclass(frozen=True)
+class Restored:
+    """What a restore loaded: the file (its full path), how many records, and the other backups of the same
+    name beside it, which were not read."""
+
+    path: str
+    records: int
+    beside: list[str]
+
+
+def backups_beside(path: str) -> list[str]:
+    """The other backups of `path`'s name in its folder (`X.json.gz` beside `X.json`, and the other way)."""
+    stem = str(path).removesuffix(".gz").removesuffix(".json")
+    return [
+        os.path.basename(stem + suffix)
+        for suffix in SUFFIXES
+        if stem + suffix != str(path) and os.path.isfile(stem + suffix)
+    ]
+
+
+def restore_backup(path: str, *, database: str = "default", allow_empty: bool = False) -> Restored:
+    """Load a backup into an empty, migrated database; refuse a database that holds data, and a backup that
+    holds no records unless `allow_empty` (then nothing changes: the database stays as migrate made it)."""
     _check_name(path)
+    if not os.path.isfile(path):
+        beside = backups_beside(path)
+        hint = f" ({' and '.join(beside)} {pluralize(len(beside), 'is,are')} beside it: name the one to restore)"
+        raise CommandError(f"{path}: no such file{hint if beside else ''}. Nothing was restored.")
     in_the_way = rows_in_the_way(database)
     if in_the_way:
         listed = ", ".join(f"{label} ({count})" for label, count in sorted(in_the_way.items()))
@@ -92,14 +132,39 @@ def restore_backup(path: str, *, database: str = "default") -> None:
             f"The database is not empty: {listed}. Restore only into a new database: create it, run "
             "`manage.py migrate`, then restore."
         )
+    loader = _LoadThisFile()
     try:
-        with transaction.atomic(using=database), audit.suspended():
+        with transaction.atomic(using=database), audit.suspended(), warnings.catch_warnings():
+            # loaddata's own warning of a file with no records ("No fixture data found") is said below in words.
+            warnings.filterwarnings("ignore", "No fixture data found", RuntimeWarning)
             # migrate made the role groups; the backup brings them back with their own ids and permissions.
             Group.objects.using(database).filter(name__in=ROLES).delete()
-            call_command("loaddata", str(path), database=database, verbosity=0)
+            call_command(loader, str(path), database=database, verbosity=0)
             _refuse_unknown_time_zones(path, database)
+            if not loader.fixture_object_count:
+                if not allow_empty:
+                    raise CommandError(
+                        f"{path}: the backup holds no records (not even the roles a migrated database has), so "
+                        "restoring it would restore nothing. Nothing was restored. Check that it is the file "
+                        "you meant; to restore it all the same (the database stays as migrate made it), add "
+                        "--allow-empty."
+                    )
+                transaction.set_rollback(True, using=database)  # the role groups stay as migrate made them
     except (OSError, EOFError, zlib.error, UnicodeDecodeError, DeserializationError) as error:
         raise CommandError(f"{path}: {_unreadable_words(path, error)} Nothing was restored.") from error
+    return Restored(os.path.realpath(path), loader.fixture_object_count, backups_beside(path))
+
+
+def restored_words(restored: Restored) -> str:
+    """What the restore command says it did: the file restored, its records, and the backups of the same name
+    beside it that it did not read (the file named is the one restored, whatever else is there)."""
+    said = f"Restored {restored.path} ({restored.records} record{pluralize(restored.records)})."
+    if not restored.records:
+        said = f"Restored {restored.path}: it holds no records, so nothing changed (--allow-empty)."
+    if restored.beside:
+        others = " and ".join(restored.beside)
+        said += f" Not read: {others} beside it; the file named is the one restored."
+    return said
 
 
 def _unreadable_words(path: str, error: Exception) -> str:

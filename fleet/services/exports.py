@@ -5,7 +5,6 @@ or API list it comes from and limited to the user's sites."""
 from __future__ import annotations
 
 import datetime as dt
-from dataclasses import replace
 
 from django.utils import timezone
 
@@ -63,8 +62,8 @@ MEASURED = {  # Reading.MEASURED_FIELDS: unit and meaning
     "ambient_temperature_c": (FLOAT, "degC", "Ambient temperature"),
     "esr_ohm": (FLOAT, "ohm", "Equivalent series resistance"),
 }
-READING_COLUMNS = [
-    Column("reading_id", INT, description="Reading id", source="id"),
+READING_COLUMNS = [  # named as the API's readings and the readings import name them
+    Column("id", INT, description="Reading id", source="id"),
     *(PLACE[name] for name in ("site", "asset_tag", "fitted_capacitor_id", "role", "part_code")),
     Column("taken_at", DATETIME, "UTC", "When the reading was taken", source="taken_at"),
     Column("method", description="meter (isolated) or in_circuit (current and voltage)", source="method"),
@@ -73,11 +72,11 @@ READING_COLUMNS = [
     Column(
         "confirmed",
         BOOL,
-        description="Far off the trend (or a voltage far above the motor's), re-checked and confirmed: the import's "
-        "confirmed column, so the export imports again",
+        description="A value the checks asked to confirm (far off the trend, a voltage far above the motor's, ...), "
+        "re-checked and confirmed: the import's confirmed column, so the export imports again",
         source="outlier_confirmed",
     ),
-    Column("supersedes_id", INT, description="The reading this one corrects", source="supersedes_id"),
+    Column("supersedes", INT, description="Id of the reading this one corrects", source="supersedes_id"),
     Column("source", description="form, api, import or demo", source="source"),
     Column(
         "taken_by",
@@ -113,7 +112,7 @@ def _slug(name: str) -> str:
 
 
 EVERY_LIMIT = (*ALL_LIMITS, DISSIPATION_LIMIT)
-JUDGED = {  # an assessment's judgement, by the names the assessment export gives it
+JUDGED = {  # an assessment's judgement, by the names the API's assessments give it (the plan's columns too)
     column.name: column
     for column in (
         Column("risk", description="Risk level", source="risk"),
@@ -130,9 +129,9 @@ JUDGED = {  # an assessment's judgement, by the names the assessment export give
             decimals=3,
         ),
         Column("latest_verdict", description="Latest reading against the marked tolerance", source="latest_verdict"),
-        Column("governing_limit", description="The limit met first", source="limit_source"),
+        Column("limit_source", description="The governing limit: the one met first", source="limit_source"),
         Column(
-            "governing_fraction",
+            "limit_fraction",
             FLOAT,
             "fraction of rated",
             "Capacitance at which the governing limit is met",
@@ -249,19 +248,10 @@ def life_data_table(query, user, request=None) -> Table:
     return Table("life data", LIFE_COLUMNS, life_rows(), _about(query, as_of=today.isoformat()))
 
 
-def _renamed(column: Column, name: str) -> Column:
-    return replace(column, name=name)
-
-
-PLAN_COLUMNS = [  # the plan's headings as planners' spreadsheets know them
+PLAN_COLUMNS = [  # the assessments export's columns, under the same names, in the planners' order
     *(PLACE[name] for name in ("asset_tag", "site", "location", "role", "part_code", "rated_uf")),
     *(JUDGED[name] for name in ("risk", "replace_by", "reason", "capacitance_now_uf", "latest_verdict")),
-    _renamed(JUDGED["governing_limit"], "limit"),
-    _renamed(JUDGED["governing_fraction"], "limit_fraction"),
-    _renamed(JUDGED["p10_on"], "early_crossing_p10"),
-    _renamed(JUDGED["p50_on"], "likely_crossing_p50"),
-    _renamed(JUDGED["p90_on"], "late_crossing_p90"),
-    JUDGED["low_confidence"],
+    *(JUDGED[name] for name in ("limit_source", "limit_fraction", "p10_on", "p50_on", "p90_on", "low_confidence")),
     PLACE["fitted_capacitor_id"],  # last: the planners' columns keep their places; the key to the other exports
 ]
 

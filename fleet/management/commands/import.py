@@ -8,7 +8,7 @@ from django.urls import reverse
 
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
-from fleet.services.import_jobs import KINDS, import_file
+from fleet.services.import_jobs import KINDS, import_file, waiting_words
 
 
 class Command(BaseCommand):
@@ -35,7 +35,14 @@ class Command(BaseCommand):
             raise CommandError(f"{file}: {error.strerror}") from error
         mode = ImportJob.Mode.GOOD_ROWS if good_rows_only else ImportJob.Mode.ALL_OR_NOTHING
         try:
-            outcome = import_file(kind=kind, filename=file.name, content=content, mode=mode, dry_run=dry_run)
+            outcome = import_file(
+                kind=kind,
+                filename=file.name,
+                content=content,
+                mode=mode,
+                dry_run=dry_run,
+                on_waiting=lambda: self.stdout.write(waiting_words(kind)),
+            )
         except FileRefused as error:
             raise CommandError(f"{file}: refused. {error}") from error
         result = outcome.result
