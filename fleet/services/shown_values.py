@@ -28,9 +28,12 @@ _UNIT = re.compile(r"(?P<name>.*?) \((?P<unit>[^()]+)\)")
 
 def comparable(value):
     """A field's value in one spelling whatever its source (a form, a row read back, the JSON a page sent):
-    an instant in UTC, a decimal without trailing zeros, a related record by its id, many by their sorted ids."""
+    an instant in UTC, a decimal without trailing zeros, a related record by its id, many by their sorted ids, a
+    JSON field's object key by key."""
     if isinstance(value, models.Model):
         return value.pk
+    if isinstance(value, dict):  # a JSON field's
+        return {str(key): comparable(item) for key, item in value.items()}
     if isinstance(value, list | tuple | set | models.QuerySet):
         return sorted(comparable(item) for item in value)
     if isinstance(value, dt.datetime) and value.tzinfo is not None:
@@ -61,11 +64,12 @@ def read_shown(text: str) -> dict | None:
     return values if isinstance(values, dict) else None
 
 
-def locked_now(instance):
-    """The record as stored now, its row locked until the caller's transaction ends (a save on it meanwhile
-    waited for); None when it was deleted."""
+def locked_now(instance, names=None):
+    """The record as stored now (its fields `names` only, if given), its row locked until the caller's
+    transaction ends (a save on it meanwhile waited for); None when it was deleted."""
+    rows = type(instance)._base_manager.select_for_update().filter(pk=instance.pk)
     with transaction.atomic():
-        return type(instance)._base_manager.select_for_update().filter(pk=instance.pk).first()
+        return (rows if names is None else rows.only(*names)).first()
 
 
 def moved_meanwhile(shown_values: dict, now: dict, sent: dict) -> list[str]:
