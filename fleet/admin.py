@@ -201,7 +201,8 @@ class ShownValuesForm(forms.ModelForm):
         self.add_error(None, moved_words(self.instance, fields, shown, now, moved))
         for name in moved:
             field, typed_over = fields[name], sent.get(name) != shown.get(name)
-            saved = f"Saved meanwhile as {value_words(field, now[name])} (was {value_words(field, shown.get(name))})"
+            was, saved = value_words(field, shown.get(name)), value_words(field, now[name])
+            saved = f"Someone else saved {saved} here meanwhile (was {was})"
             if not typed_over:
                 self.now_shown[self.add_prefix(name)] = field.value_from_object(stored)
             self.add_error(name, f"{saved}; yours is kept in the box." if typed_over else f"{saved}: shown here now.")
