@@ -4,14 +4,19 @@ Users and groups are edited here too, with one rule on top of Django's: nobody g
 more than they hold (superuser, a permission, or a group with permissions they lack).
 """
 
+import json
+
 from django import forms
 from django.contrib import admin
+from django.contrib.admin.options import InlineModelAdmin
+from django.contrib.admin.utils import flatten_fieldsets
 from django.contrib.admin.widgets import AutocompleteSelect, AutocompleteSelectMultiple
 from django.contrib.auth import get_user_model
 from django.contrib.auth.admin import GroupAdmin, UserAdmin
 from django.contrib.auth.models import Group
 from django.core.exceptions import PermissionDenied, ValidationError
-from django.db import models
+from django.db import models, router, transaction
+from django.forms.models import BaseModelFormSet
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
@@ -33,6 +38,17 @@ from .models import (
     WorkOrder,
 )
 from .services.bulk import ROW_ID_MAX
+from .services.shown_values import (
+    SHOWN_VALUES,
+    comparable,
+    locked_now,
+    model_fields,
+    moved_meanwhile,
+    moved_words,
+    read_shown,
+    stored_values,
+    value_words,
+)
 
 User = get_user_model()
 
@@ -122,7 +138,138 @@ class CheckedAutocompleteMixin:
         return super().formfield_for_manytomany(db_field, request, **kwargs)
 
 
-class CheckedLookupsAdmin(CheckedAutocompleteMixin, admin.ModelAdmin):
+class ShownValuesField(forms.CharField):
+    """The hidden box of a record's values as shown: what the page knew, never a change the user made."""
+
+    widget = forms.HiddenInput
+
+    def has_changed(self, initial, data):
+        return False
+
+
+class ShownValuesForm(forms.ModelForm):
+    """An edit form that carries its record's values as shown (`shown_values`, hidden) and refuses a save that
+    another save overtook (`services.shown_values`): at the save, inside the admin's transaction, the record is
+    read again locked; a field stored otherwise than shown refuses the whole save, said at the top and at each
+    such field. A box the user left as shown then shows the value stored now; a box typed over keeps what was
+    typed; the hidden box takes the values stored now, so the next save is judged against them. Adding is
+    unaffected. What the form does not edit (read-only fields, columns the triggers keep) is saved as read under
+    the lock, never as read when the page was opened."""
+
+    shown_values = ShownValuesField(required=False)
+
+    def __init__(self, *args, **kwargs):
+        self.now_shown = {}  # a box's name -> the value it shows instead of the one sent
+        super().__init__(*args, **kwargs)
+        if not self.instance._state.adding:
+            self.initial[SHOWN_VALUES] = json.dumps(stored_values(self.instance, self.edited_fields()))
+
+    def edited_fields(self) -> list[str]:
+        """The fields this form shows and saves (a disabled one, as the password's summary, is not typed)."""
+        return [name for name, field in self.fields.items() if name != SHOWN_VALUES and not field.disabled]
+
+    def _widget_data_value(self, widget, html_name):
+        if html_name in self.now_shown:
+            return self.now_shown[html_name]
+        return super()._widget_data_value(widget, html_name)
+
+    def _post_clean(self):
+        super()._post_clean()
+        if self.instance._state.adding:
+            return
+        fields = model_fields(self.instance, self.edited_fields())
+        stored = locked_now(self.instance)
+        what = self.instance._meta.verbose_name
+        if stored is None:
+            self.add_error(None, f"Someone else deleted this {what} while you edited it: nothing was saved.")
+            return
+        for field in self.instance._meta.concrete_fields:  # not edited here: saved as stored now
+            if field.name not in fields and not field.primary_key:
+                setattr(self.instance, field.attname, getattr(stored, field.attname))
+        now = stored_values(stored, fields)
+        shown = read_shown(self.cleaned_data.get(SHOWN_VALUES))
+        if shown is None:
+            self.add_error(
+                None, f"This form did not say what it showed of the {what}: nothing was saved. Check it and save again."
+            )
+            self.now_shown[self.add_prefix(SHOWN_VALUES)] = json.dumps(now)
+            return
+        sent = self._sent(fields)
+        moved = moved_meanwhile(shown, now, sent)
+        if not moved:
+            return
+        self.add_error(None, moved_words(self.instance, fields, shown, now, moved))
+        for name in moved:
+            field, typed_over = fields[name], sent.get(name) != shown.get(name)
+            was, saved = value_words(field, shown.get(name)), value_words(field, now[name])
+            saved = f"Someone else saved {saved} here meanwhile (was {was})"
+            if not typed_over:
+                self.now_shown[self.add_prefix(name)] = field.value_from_object(stored)
+            self.add_error(name, f"{saved}; yours is kept in the box." if typed_over else f"{saved}: shown here now.")
+        self.now_shown[self.add_prefix(SHOWN_VALUES)] = json.dumps(now)
+
+    def _sent(self, fields) -> dict:
+        """What this save would store in each field (`comparable`); a field the form refused is left out."""
+        return {
+            name: comparable(self.cleaned_data[name] if field.many_to_many else field.value_from_object(self.instance))
+            for name, field in fields.items()
+            if name not in self.errors and (name in self.cleaned_data or not field.many_to_many)
+        }
+
+
+class PkWithShownValues(forms.HiddenInput):
+    """A list's hidden id box that also draws its row's values as shown: the list draws no other hidden box."""
+
+    def __init__(self, shown_box, attrs=None):
+        super().__init__(attrs)
+        self.shown_box = shown_box
+
+    def render(self, name, value, attrs=None, renderer=None):
+        return super().render(name, value, attrs, renderer) + str(self.shown_box)
+
+
+class ShownValuesListFormSet(BaseModelFormSet):
+    """The boxes typed in a list (`list_editable`), each row guarded as a change form is."""
+
+    def add_fields(self, form, index):
+        super().add_fields(form, index)
+        pk = form.fields[self._pk_field.name]
+        pk.widget = PkWithShownValues(form[SHOWN_VALUES], pk.widget.attrs)
+
+
+class ShownValuesAdmin:
+    """Every admin screen and inline that edits a record saves through `ShownValuesForm`: its change form, its
+    inline rows and its list's typed boxes (`tests/test_admin_edits.py` walks them all)."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        if not issubclass(self.form, ShownValuesForm):
+            self.form = type(self.form.__name__, (ShownValuesForm, self.form), {})
+
+    def get_fieldsets(self, request, obj=None):
+        """The hidden box among the fields drawn, where fieldsets name the fields (the users' screen)."""
+        fieldsets = super().get_fieldsets(request, obj)
+        if (obj is None and not isinstance(self, InlineModelAdmin)) or SHOWN_VALUES in flatten_fieldsets(fieldsets):
+            return fieldsets
+        (name, options), *others = fieldsets
+        return [(name, {**options, "fields": [*options["fields"], SHOWN_VALUES]}), *others]
+
+    def get_changelist_form(self, request, **kwargs):
+        return super().get_changelist_form(request, **{"form": ShownValuesForm, **kwargs})
+
+    def get_changelist_formset(self, request, **kwargs):
+        formset = super().get_changelist_formset(request, **kwargs)
+        return type(formset.__name__, (ShownValuesListFormSet, formset), {})
+
+    def changelist_view(self, request, extra_context=None):
+        """A list's typed boxes are checked and saved in one transaction, as a change form is."""
+        if request.method != "POST" or not self.list_editable:
+            return super().changelist_view(request, extra_context)
+        with transaction.atomic(using=router.db_for_write(self.model)):
+            return super().changelist_view(request, extra_context)
+
+
+class CheckedLookupsAdmin(ShownValuesAdmin, CheckedAutocompleteMixin, admin.ModelAdmin):
     """A list's query string may name any date's year (`?due_on__year=2026`, as the date drill-down does): a year
     outside the rulebook's accepted span is refused (400), not a 500 from the first day of year 99999."""
 
@@ -162,7 +309,7 @@ class SiteAdmin(RulebookNumbersAdmin):
     search_fields = ["code", "name"]
 
 
-class FittedCapacitorInline(CheckedAutocompleteMixin, admin.TabularInline):
+class FittedCapacitorInline(ShownValuesAdmin, CheckedAutocompleteMixin, admin.TabularInline):
     """The motor's capacitors, one row each, within a 1366 px screen (six boxes overflowed it by 150 px): the
     serial box sized to a date code, the removal shown as text and recorded on the capacitor's own page
     ("Change" on its row), where its day and reason are edited together."""
@@ -425,7 +572,7 @@ class NoEscalationAdminMixin:
         return type(form.__name__, (NoEscalationForm, form), {"editor": request.user})
 
 
-class SiteMembershipInline(CheckedAutocompleteMixin, admin.TabularInline):
+class SiteMembershipInline(ShownValuesAdmin, CheckedAutocompleteMixin, admin.TabularInline):
     model = SiteMembership
     extra = 0
     autocomplete_fields = ["site"]
@@ -439,7 +586,7 @@ admin.site.unregister(TokenProxy)
 
 
 @admin.register(User)
-class FleetUserAdmin(CheckedAutocompleteMixin, NoEscalationAdminMixin, UserAdmin):
+class FleetUserAdmin(ShownValuesAdmin, CheckedAutocompleteMixin, NoEscalationAdminMixin, UserAdmin):
     """Users with their roles (groups) and the sites they work at."""
 
     inlines = [SiteMembershipInline]
@@ -461,12 +608,12 @@ class FleetUserAdmin(CheckedAutocompleteMixin, NoEscalationAdminMixin, UserAdmin
 
 
 @admin.register(Group)
-class FleetGroupAdmin(CheckedAutocompleteMixin, NoEscalationAdminMixin, GroupAdmin):
+class FleetGroupAdmin(ShownValuesAdmin, CheckedAutocompleteMixin, NoEscalationAdminMixin, GroupAdmin):
     """Roles: a group's permissions are granted only by someone who holds them."""
 
 
 @admin.register(TokenProxy)
-class FleetTokenAdmin(CheckedAutocompleteMixin, TokenAdmin):
+class FleetTokenAdmin(ShownValuesAdmin, CheckedAutocompleteMixin, TokenAdmin):
     """API tokens: a token acts as its user, so only superusers make one for a superuser."""
 
     def formfield_for_foreignkey(self, db_field, request, **kwargs):

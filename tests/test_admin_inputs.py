@@ -12,6 +12,7 @@ from django.utils import timezone
 from fleet.admin import CheckedAutocompleteSelect, CheckedAutocompleteSelectMultiple
 from fleet.engineering.planning import PLAN_HORIZON_DAYS
 from fleet.models import FittedCapacitor, SiteDayOff, SiteStock, WorkOrder
+from tests.admin_pages import as_shown
 from tests.factories import make_fitted_capacitor, make_site
 
 pytestmark = pytest.mark.django_db
@@ -75,14 +76,15 @@ def test_the_admin_keeps_a_day_off_to_the_days_off_pages_rule(client, administra
     day_off = SiteDayOff.objects.create(site=site, day=kept, name="shutdown")
     client.force_login(administrator)
     url = f"/admin/fleet/sitedayoff/{day_off.pk}/change/"
-    response = client.post(url, {"site": site.pk, "day": day.isoformat(), "name": "shutdown"})
+    response = client.post(url, {"site": site.pk, "day": day.isoformat(), "name": "shutdown", **as_shown(day_off)})
     assert response.status_code == 200
     errors = response.context["adminform"].form.errors
     assert ("in the past" if day.year == 1 else "past the plan's reach") in errors["day"][0], errors
     day_off.refresh_from_db()
     assert day_off.day == kept
     # The same day off renamed, its day kept, is taken (the rule is for a day added or moved).
-    assert client.post(url, {"site": site.pk, "day": kept.isoformat(), "name": "stocktake"}).status_code == 302
+    renamed = {"site": site.pk, "day": kept.isoformat(), "name": "stocktake", **as_shown(day_off)}
+    assert client.post(url, renamed).status_code == 302
     added = client.post("/admin/fleet/sitedayoff/add/", {"site": site.pk, "day": day.isoformat(), "name": "x"})
     assert added.status_code == 200 and not SiteDayOff.objects.filter(day=day).exists()
 
@@ -107,7 +109,7 @@ def test_the_admin_keeps_a_work_orders_dates_to_the_plans_rule(administrator, fi
     request = RequestFactory().post("/")
     request.user = administrator
     model_admin = admin.site._registry[WorkOrder]
-    data = {k: ("" if v is None else v) for k, v in model_to_dict(order).items()}
+    data = {k: ("" if v is None else v) for k, v in model_to_dict(order).items()} | as_shown(order)
     data[field] = day.isoformat()
     form = model_admin.get_form(request, order)(data, instance=order)
     assert not form.is_valid()

@@ -14,8 +14,16 @@ from fleet.exports import safe_cell
 from fleet.imports import files
 from fleet.imports.files import FileRefused, read_table
 from fleet.models import FittedCapacitor, ImportJob, Motor, Reading
-from fleet.services.import_jobs import check_file, check_job, create_job, import_file, rejected_rows_csv, run_job
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, motor_values
+from fleet.services.import_jobs import (
+    check_file,
+    check_job,
+    create_job,
+    import_file,
+    read_job,
+    rejected_rows_csv,
+    run_job,
+)
+from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, motor_values
 
 pytestmark = pytest.mark.django_db
 
@@ -882,3 +890,72 @@ def test_a_row_with_an_unknown_tag_still_names_what_is_wrong_with_its_cells_alon
     named = {(row, field) for row, field, _ in outcome.result.errors}
     assert named == {(2, "asset_tag"), (2, "method"), (2, "capacitance_uf"), (3, "asset_tag")}, named
     assert outcome.imported == 1
+
+
+def _checked_readings_job(user) -> ImportJob:
+    fleet_of(2)
+    content = csv_of(good_rows(["IMP-0000", "IMP-0001"], 2))
+    job = create_job(kind="readings", filename="q.csv", content=content, user=user)
+    read_job(job.id)
+    job = check_job(job.id)
+    assert job.state == ImportJob.State.CHECKED and job.mapping["notes"] == "notes"
+    return job
+
+
+def _checked_again_without_notes(job) -> None:
+    """Another person's check of the same job, with the notes column left out."""
+    from fleet.services.import_jobs import queue_check
+
+    assert queue_check(job, {**job.mapping, "notes": ""})
+    check_job(job.id)
+
+
+def test_a_file_checked_again_meanwhile_is_not_imported_from_the_page_that_showed_the_check_before(
+    client, django_capture_on_commit_callbacks
+):
+    """[derived] nothing entered is silently lost: the import buttons name the check on the page; another check
+    of the job with other columns since then refuses the import, saying what moved, and imports nothing."""
+    from tests.admin_pages import as_drawn
+
+    user = make_user("administrator")
+    job = _checked_readings_job(user)
+    client.force_login(user)
+    url = reverse("import_detail", args=[job.id])
+    shown = as_drawn(client.get(url)).get("shown_values", [""])[0]
+    _checked_again_without_notes(job)
+
+    answer = client.post(url, {"action": "all", "shown_values": shown}, follow=True)
+
+    words = " ".join(str(message) for message in answer.context["messages"])
+    assert (
+        "Someone else checked this file again while this page was open: notes from no column (was column 'notes')"
+        in words
+    )
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.CHECKED and Reading.objects.count() == 0
+    shown = as_drawn(answer)["shown_values"][0]  # the page as it is now imports
+    with django_capture_on_commit_callbacks(execute=True):
+        assert client.post(url, {"action": "all", "shown_values": shown}).status_code == 302
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.DONE and Reading.objects.count() == 4
+
+
+def test_columns_chosen_from_a_page_opened_before_another_check_are_refused_at_the_field(client):
+    """The columns form starts from the columns chosen when the page was drawn: sent after another check chose
+    others, it would undo them unseen. Refused at the field that moved, the columns as typed kept."""
+    from tests.admin_pages import as_drawn
+
+    user = make_user("administrator")
+    job = _checked_readings_job(user)
+    client.force_login(user)
+    url = reverse("import_detail", args=[job.id])
+    drawn = as_drawn(client.get(url))
+    _checked_again_without_notes(job)
+
+    answer = client.post(url, {**drawn, "shown_values": drawn.get("shown_values", [""])[0], "action": "check"})
+
+    assert answer.status_code == 200
+    assert "was column 'notes'" in answer.context["form"].errors["notes"][0]
+    assert as_drawn(answer)["notes"] == ["notes"]  # as typed
+    job.refresh_from_db()
+    assert job.mapping["notes"] == ""

@@ -21,6 +21,7 @@ from rest_framework.throttling import UserRateThrottle
 from fleet.models import ImportJob, Reading, SiteMembership
 from fleet.roles import ADMINISTRATOR, TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
+from tests.admin_pages import as_shown
 from tests.factories import make_fitted_capacitor, make_motor, make_site, make_user, quarterly_readings
 
 pytestmark = pytest.mark.django_db
@@ -118,6 +119,7 @@ def user_form(user, **changes):
         "site_memberships-INITIAL_FORMS": "0",
         "site_memberships-MIN_NUM_FORMS": "0",
         "site_memberships-MAX_NUM_FORMS": "1000",
+        **as_shown(user),
     }
     if user.is_staff:
         data["is_staff"] = "on"
@@ -144,7 +146,7 @@ def test_no_permission_or_group_beyond_the_editors_own(client, administrator):
     sessions = Permission.objects.get(codename="delete_session")  # not an administrator's permission
     powerful = Group.objects.create(name="powerful")
     powerful_page = reverse("admin:auth_group_change", args=[powerful.pk])
-    response = client.post(powerful_page, {"name": "powerful", "permissions": [sessions.pk]})
+    response = client.post(powerful_page, {"name": "powerful", "permissions": [sessions.pk], **as_shown(powerful)})
     assert "You cannot grant" in response.content.decode()
     assert not powerful.permissions.exists()
     powerful.permissions.add(sessions)  # made by a superuser, say

@@ -17,6 +17,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from django.conf import settings
+from django.core.exceptions import NON_FIELD_ERRORS, ValidationError
 from django.db import DatabaseError, connection, transaction
 from django.template.defaultfilters import pluralize
 from django.utils import timezone
@@ -27,6 +28,7 @@ from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site,
 from fleet.services import import_checks
 
 from .readings import enqueue_refit
+from .shown_values import comparable, locked_now, moved_meanwhile, stored_values
 from .workorders import close_read_again_orders, open_visits_on
 
 log = logging.getLogger(__name__)
@@ -402,29 +404,76 @@ def _queue(task_name: str, job_id: int, *args) -> None:
         )
 
 
-def queue_check(job: ImportJob, mapping: dict) -> bool:
+# What the import page shows of a job that its two forms send back (`shown_values`): the columns chosen, which the
+# columns form starts from, and the check's counts, which the import buttons name.
+CHECK_SHOWN = ("mapping",)
+IMPORT_SHOWN = ("mapping", "good_rows", "error_rows")
+
+
+def queue_check(job: ImportJob, mapping: dict, shown: dict | None = None) -> bool:
     """Queue a dry run unless one step of the job is under way (decided in the UPDATE itself, so
-    the button pressed twice at once queues one). Whether this call queued it."""
+    the button pressed twice at once queues one). Whether this call queued it.
+
+    `shown` is the job as the page showed it (`CHECK_SHOWN`): columns another check chose meanwhile are not
+    undone by a form that started from the ones before; refused by field (ValidationError), nothing queued."""
     jobs = ImportJob.objects.exclude(state__in=WORKING).filter(file_deleted_at__isnull=True)
-    claimed = _claim(jobs, job, mapping=mapping, state=ImportJob.State.CHECKING)
+    with transaction.atomic():
+        _refuse_checked_meanwhile(job, shown, CHECK_SHOWN, sent={"mapping": comparable(mapping)})
+        claimed = _claim(jobs, job, mapping=mapping, state=ImportJob.State.CHECKING)
     if claimed:
         transaction.on_commit(lambda: _queue("check_import", job.pk))
     return claimed
 
 
-def queue_import(job: ImportJob, mode: str) -> bool:
+def queue_import(job: ImportJob, mode: str, shown: dict | None = None) -> bool:
     """Queue the import of a checked job, once: the button pressed twice at once (or again while
     it runs) queues one run, so the job's record is not overwritten by a run that finds every
-    row a duplicate. Whether this call queued it."""
-    claimed = _claim(
-        ImportJob.objects.filter(state=ImportJob.State.CHECKED, file_deleted_at__isnull=True),
-        job,
-        mode=mode,
-        state=ImportJob.State.IMPORTING,
-    )
+    row a duplicate. Whether this call queued it.
+
+    `shown` is the job as the page showed it (`IMPORT_SHOWN`): a file checked again meanwhile, with other
+    columns or other counts, is not imported by a page that showed the check before (ValidationError)."""
+    with transaction.atomic():
+        _refuse_checked_meanwhile(job, shown, IMPORT_SHOWN, sent={})
+        claimed = _claim(
+            ImportJob.objects.filter(state=ImportJob.State.CHECKED, file_deleted_at__isnull=True),
+            job,
+            mode=mode,
+            state=ImportJob.State.IMPORTING,
+        )
     if claimed:
         transaction.on_commit(lambda: _queue("run_import", job.pk, mode))
     return claimed
+
+
+def _refuse_checked_meanwhile(job: ImportJob, shown: dict | None, names: tuple, sent: dict) -> None:
+    """Refuse, naming what moved, where another check of the job changed `names` since the page showed them
+    (the job's row locked until the caller's transaction ends); nothing for `shown` None (a caller that showed
+    nothing, as `manage.py import`)."""
+    stored = locked_now(job, names) if shown is not None else None
+    if stored is None:
+        return
+    now = stored_values(stored, names)
+    moved = moved_meanwhile(shown, now, sent)
+    if not moved:
+        return
+    words, at_fields = [], {}
+    if "mapping" in moved:
+        was, new = shown.get("mapping"), now["mapping"]
+        was = was if isinstance(was, dict) else {}
+        for name in sorted(name for name in {*was, *new} if was.get(name) != new.get(name)):
+            change = f"from {_column_words(new.get(name))} (was {_column_words(was.get(name))})"
+            words.append(f"{name} {change}")
+            at_fields[name] = f"Chosen meanwhile by another check: {change}."
+    words += [f"{name.replace('_', ' ')} {now[name]} (was {shown.get(name)})" for name in moved if name != "mapping"]
+    summary = (
+        f"Someone else checked this file again while this page was open: {'; '.join(words)}. Nothing was done: "
+        "look at the file's check as it is now, then choose again."
+    )
+    raise ValidationError({NON_FIELD_ERRORS: [summary], **at_fields})
+
+
+def _column_words(column) -> str:
+    return f"column {column!r}" if column else "no column"
 
 
 def _claim(jobs, job: ImportJob, **values) -> bool:

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import json
 from functools import wraps
 
 from django.contrib import messages
+from django.core.exceptions import NON_FIELD_ERRORS, ValidationError
 from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.utils.http import content_disposition_header
@@ -15,6 +17,7 @@ from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
 from fleet.roles import importable_kinds, may_import, refused, scope_to_user
 from fleet.services.import_jobs import (
+    IMPORT_SHOWN,
     KINDS,
     WORKING,
     columns_left_out,
@@ -27,6 +30,7 @@ from fleet.services.import_jobs import (
     queue_import,
     rejected_rows_csv,
 )
+from fleet.services.shown_values import SHOWN_VALUES, read_shown, stored_values
 
 
 def _may_import_something(view):
@@ -76,12 +80,22 @@ def import_detail(request, job_id):
     )
     if request.method == "POST":
         action = request.POST.get("action")
-        if action == "check" and form.is_valid() and job.state not in WORKING:
-            queue_check(job, form.mapping())
-            return redirect("import_detail", job_id=job.pk)
-        if action in {ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS} and job.state == ImportJob.State.CHECKED:
-            queue_import(job, action)
-            return redirect("import_detail", job_id=job.pk)
+        # shown_values: the job's columns and counts as the page showed them (`import_jobs.IMPORT_SHOWN`)
+        shown = read_shown(request.POST.get(SHOWN_VALUES)) if SHOWN_VALUES in request.POST else None
+        try:
+            if action == "check" and form.is_valid() and job.state not in WORKING:
+                queue_check(job, form.mapping(), shown=shown)
+                return redirect("import_detail", job_id=job.pk)
+            importing = action in {ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS}
+            if importing and job.state == ImportJob.State.CHECKED:
+                queue_import(job, action, shown=shown)
+                return redirect("import_detail", job_id=job.pk)
+        except ValidationError as error:
+            if action != "check":  # the check as it is now is on the page
+                messages.error(request, " ".join(error.message_dict[NON_FIELD_ERRORS]))
+                return redirect("import_detail", job_id=job.pk)
+            form.add_error(None, error)  # the columns as typed, each moved one and the top saying what moved
+            job.refresh_from_db()
     context = {
         "job": job,
         "form": form,
@@ -92,6 +106,7 @@ def import_detail(request, job_id):
         "left_out": columns_left_out(job.columns, job.mapping) if job.mapping else [],
         "spelt_near": proposed_by_spelling(job),
         "open_visits": open_visits_shown(job),
+        "shown_values": json.dumps(stored_values(job, IMPORT_SHOWN)),
         # Before a check is asked: a required field the headings did not match, said at the top at once.
         "missing": "" if form.is_bound else form.missing_words(job.mapping or {}),
     }
