@@ -931,9 +931,11 @@ def test_a_file_checked_again_meanwhile_is_not_imported_from_the_page_that_showe
     answer = client.post(url, {"action": "all", "shown_values": shown}, follow=True)
 
     words = " ".join(str(message) for message in answer.context["messages"])
+    # Not "someone else": a job is seen by its uploader and the administrators, so the other check is as often
+    # the same person's in another tab (as a walk did it, and was told someone else had).
     assert (
-        "Someone else checked this file again while this page was open: notes from no column (was column 'notes')"
-        in words
+        "This file was checked again on another page while this one was open: notes from no column (was column "
+        "'notes'). Nothing was done" in words
     )
     job.refresh_from_db()
     assert job.state == ImportJob.State.CHECKED and Reading.objects.count() == 0
