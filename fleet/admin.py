@@ -37,6 +37,7 @@ from .models import (
     SiteStock,
     WorkOrder,
 )
+from .roles import ROLES
 from .services.bulk import ROW_ID_MAX
 from .services.shown_values import (
     SHOWN_VALUES,
@@ -609,7 +610,18 @@ class FleetUserAdmin(ShownValuesAdmin, CheckedAutocompleteMixin, NoEscalationAdm
 
 @admin.register(Group)
 class FleetGroupAdmin(ShownValuesAdmin, CheckedAutocompleteMixin, NoEscalationAdminMixin, GroupAdmin):
-    """Roles: a group's permissions are granted only by someone who holds them."""
+    """Roles: a group's permissions are granted only by someone who holds them. A role's group keeps its name and
+    is not deleted: the application knows each role by its group's name (`roles.roles_of`), so a renamed one
+    took the role from every member unseen."""
+
+    def get_readonly_fields(self, request, obj=None):
+        fields = super().get_readonly_fields(request, obj)
+        return [*fields, "name"] if obj is not None and obj.name in ROLES else fields
+
+    def has_delete_permission(self, request, obj=None):
+        if obj is not None and obj.name in ROLES:
+            return False
+        return super().has_delete_permission(request, obj)
 
 
 @admin.register(TokenProxy)

@@ -330,7 +330,11 @@ def test_the_import_page_names_the_columns_it_does_not_read(client, technician, 
     job.refresh_from_db()
     assert job.state == ImportJob.State.CHECKED
     page = client.get(reverse("import_detail", args=[job.id])).content.decode()
-    assert "not imported (no field is read from it): <strong>case_temprature_c</strong>" in page
+    left_out = page[page.index('id="import-left-out"') :].split("</p>")[0]
+    assert "not imported (no field is read from it): <code>case_temprature_c</code>. If it holds" in left_out
+    # A caution's <strong> is its heading, set on a line of its own: mid-sentence it left the full stop alone at
+    # the start of the next line (seen on a walk at 390 px); the column is named as the spelling guess names it.
+    assert "<strong>" not in left_out
 
 
 def test_a_file_without_a_required_column_is_told_at_the_top_which_one_and_the_columns_it_has(
@@ -927,9 +931,11 @@ def test_a_file_checked_again_meanwhile_is_not_imported_from_the_page_that_showe
     answer = client.post(url, {"action": "all", "shown_values": shown}, follow=True)
 
     words = " ".join(str(message) for message in answer.context["messages"])
+    # Not "someone else": a job is seen by its uploader and the administrators, so the other check is as often
+    # the same person's in another tab (as a walk did it, and was told someone else had).
     assert (
-        "Someone else checked this file again while this page was open: notes from no column (was column 'notes')"
-        in words
+        "This file was checked again on another page while this one was open: notes from no column (was column "
+        "'notes'). Nothing was done" in words
     )
     job.refresh_from_db()
     assert job.state == ImportJob.State.CHECKED and Reading.objects.count() == 0

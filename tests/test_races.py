@@ -467,6 +467,27 @@ def test_a_replacement_between_the_stock_page_and_its_save_is_not_undone(capacit
     assert stock.quantity == 5 and SiteStock.objects.get(site=site, part=other).quantity == 7
 
 
+def test_a_stock_count_another_planner_raised_meanwhile_is_not_put_down_to_a_replacement(capacitor):
+    """Two planners on one stock page: the first saves 11 where 1 was shown; the second's 12 is refused, saying
+    someone else saved it. A walk found it put down to "a replacement takes one" though the count rose."""
+    from fleet.models import SiteStock
+
+    site, part = capacitor.motor.site, capacitor.part
+    stock = stock_of(capacitor, 1)
+    first, second = Client(), Client()
+    first.force_login(make_user("planner"))
+    second.force_login(make_user("planner"))
+    form_first, form_second = stock_form(first, site), stock_form(second, site)
+    assert first.post(f"/sites/{site.code}/stock/", {**form_first, f"qty-{part.id}": "11"}).status_code == 302
+    refused = second.post(f"/sites/{site.code}/stock/", {**form_second, f"qty-{part.id}": "12"})
+    assert refused.status_code == 200
+    text = refused.content.decode()
+    assert f"{part.code}: changed from 1 to 11 while this page was open (someone else saved it); count again" in text
+    assert "replacement took" not in text
+    stock.refresh_from_db()
+    assert stock.quantity == 11 and SiteStock.objects.filter(site=site).count() == 1
+
+
 @threads_race
 @pytest.mark.parametrize("planner_types", [None, 5])
 @pytest.mark.parametrize("replacement_held_at", ["design_part", "_take_from_stock"])

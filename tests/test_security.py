@@ -19,7 +19,7 @@ from rest_framework.test import APIClient
 from rest_framework.throttling import UserRateThrottle
 
 from fleet.models import ImportJob, Reading, SiteMembership
-from fleet.roles import ADMINISTRATOR, TECHNICIAN
+from fleet.roles import ADMINISTRATOR, PLANNER, TECHNICIAN
 from fleet.services.assessments import refit_fitted_capacitors
 from tests.admin_pages import as_shown
 from tests.factories import make_fitted_capacitor, make_motor, make_site, make_user, quarterly_readings
@@ -163,6 +163,28 @@ def test_no_permission_or_group_beyond_the_editors_own(client, administrator):
     data = user_form(technician, groups=[*technician.groups.values_list("pk", flat=True), planner_group.pk])
     assert client.post(reverse("admin:auth_user_change", args=[technician.pk]), data).status_code == 302
     assert technician.groups.filter(pk=planner_group.pk).exists()
+
+
+def test_a_roles_group_keeps_its_name_and_its_members_their_role(client, administrator):
+    """The application knows a role by its group's name: renamed in the register ("Planners", tidied on a walk),
+    every planner lost the role unseen. The name is shown, not a box; the group is not deleted."""
+    from fleet.roles import roles_of
+
+    planner = make_user(PLANNER)
+    group = Group.objects.get(name=PLANNER)
+    client.force_login(administrator)
+    page = reverse("admin:auth_group_change", args=[group.pk])
+    permissions = list(group.permissions.values_list("pk", flat=True))
+    client.post(page, {"name": "Planners", "permissions": permissions, **as_shown(group)})
+    group.refresh_from_db()
+    assert group.name == PLANNER
+    assert roles_of(User.objects.get(pk=planner.pk)) == {PLANNER}
+    assert client.post(reverse("admin:auth_group_delete", args=[group.pk]), {"post": "yes"}).status_code == 403
+    assert Group.objects.filter(name=PLANNER).exists()
+    other = Group.objects.create(name="night shift")  # a group of the administrator's own is theirs to rename
+    client.post(reverse("admin:auth_group_change", args=[other.pk]), {"name": "late shift", **as_shown(other)})
+    other.refresh_from_db()
+    assert other.name == "late shift"
 
 
 def test_a_superusers_account_is_out_of_an_administrators_reach(client, administrator):

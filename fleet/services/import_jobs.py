@@ -466,8 +466,8 @@ def _refuse_checked_meanwhile(job: ImportJob, shown: dict | None, names: tuple, 
             at_fields[name] = f"Chosen meanwhile by another check: {change}."
     words += [f"{name.replace('_', ' ')} {now[name]} (was {shown.get(name)})" for name in moved if name != "mapping"]
     summary = (
-        f"Someone else checked this file again while this page was open: {'; '.join(words)}. Nothing was done: "
-        "look at the file's check as it is now, then choose again."
+        f"This file was checked again on another page while this one was open: {'; '.join(words)}. Nothing was "
+        "done: look at the file's check as it is now, then choose again."
     )
     raise ValidationError({NON_FIELD_ERRORS: [summary], **at_fields})
 

@@ -180,9 +180,10 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
         for part_id in values:
             now = rows[part_id].quantity if part_id in rows else 0
             if before.get(part_id, -1) >= 0 and before[part_id] != now:
+                # A replacement only takes one: a count that rose was another person's save.
+                why = "someone else saved it" + (", or a replacement took one" if now < before[part_id] else "")
                 moved[parts[part_id].code] = (
-                    f"changed from {before[part_id]} to {now} while this page was open (a replacement takes one "
-                    "from stock); count again and save."
+                    f"changed from {before[part_id]} to {now} while this page was open ({why}); count again and save."
                 )
         if moved:
             raise ValidationError(moved)

@@ -368,6 +368,45 @@ def test_the_admin_motor_page_with_its_capacitors_fits_a_desktop_screen(phone):
         phone.screenshot(path=str(ARTIFACTS / f"admin-motor-{width}.png"))
 
 
+def test_a_capacitor_rows_message_on_the_admin_motor_page_reads_on_a_phone(phone):
+    """The fitted capacitors' rows scroll sideways at 390 px; a row's "someone else saved this fitted capacitor"
+    spanned the whole 1,000 px row on one line, cut at the screen's edge (seen on a walk). It wraps in view."""
+    fitted_capacitor = make_fitted_capacitor(serial="2002-55408")
+    sign_in(phone, make_user("administrator"))
+    phone.goto(f"/admin/fleet/motor/{fitted_capacitor.motor.id}/change/")
+    FittedCapacitor.objects.filter(id=fitted_capacitor.id).update(serial="2002-55409")  # another person's save
+    phone.fill("#id_capacitors-0-serial", "2002-55410")
+    phone.locator("[name=_continue]").click()
+    message = phone.locator(".inline-group tr.row-form-errors .errorlist")
+    message.wait_for(timeout=15000)
+    assert "Someone else saved this fitted capacitor" in message.inner_text()
+    message.scroll_into_view_if_needed()
+    box = message.bounding_box()
+    assert box["x"] >= 0 and box["x"] + box["width"] <= 390, box
+    assert phone.input_value("#id_capacitors-0-serial") == "2002-55410"
+    phone.screenshot(path=str(ARTIFACTS / "admin-motor-capacitor-conflict-390.png"))
+
+
+def test_a_typed_stock_rows_message_in_the_admin_list_reads_on_a_phone(phone):
+    """The stock list's typed quantities: a row's "someone else saved this site stock" ran past the screen's edge
+    at 390 px as the capacitor rows' did (seen on the same walk)."""
+    from fleet.models import SiteStock
+
+    fitted_capacitor = make_fitted_capacitor()
+    stock = SiteStock.objects.create(site=fitted_capacitor.motor.site, part=fitted_capacitor.part, quantity=3)
+    sign_in(phone, make_user("administrator"))
+    phone.goto("/admin/fleet/sitestock/")
+    SiteStock.objects.filter(id=stock.id).update(quantity=5)  # another person's save
+    phone.fill("[name='form-0-quantity']", "4")
+    phone.locator("[name=_save]").click()
+    message = phone.locator("#result_list td[colspan] > .errorlist")
+    message.wait_for(timeout=15000)
+    assert "Someone else saved this site stock" in message.inner_text()
+    box = message.bounding_box()
+    assert box["x"] >= 0 and box["x"] + box["width"] <= 390, box
+    assert phone.input_value("[name='form-0-quantity']") == "4"
+
+
 def test_the_reading_time_is_said_in_words_beside_its_box(phone):
     """The time box shows the browser's order of day and month (12/04/2026, 01:12 PM is 12 April to many at
     an Irish site, a walk found): the day and time it holds are said beside it, as the pages write days."""
