@@ -162,7 +162,7 @@ def xlsx_file(table: Table):
     columns = len(table.columns)
     widths = [max(XLSX_WIDTHS.get(c.kind, min(max(len(c.name) + 2, 14), 50)), len(c.name) + 2) for c in table.columns]
     about = [
-        [key, value if isinstance(value, str) else json.dumps(value, ensure_ascii=False)]
+        [key, value if isinstance(value, str) or value is None else json.dumps(value, ensure_ascii=False)]
         for key, value in table.describe().items()
         if key != "columns"
     ]
