@@ -317,3 +317,17 @@ def test_a_backup_that_holds_no_records_is_refused_unless_asked_for(tmp_path, na
     call_command("restore", str(path), "--allow-empty", stdout=said)
     assert said.getvalue().strip() == f"Restored {path}: it holds no records, so nothing changed (--allow-empty)."
     assert sorted(Group.objects.values_list("name", flat=True)) == roles
+
+
+def test_a_backup_never_writes_over_an_earlier_one_unasked(plant, tmp_path):
+    # [ours] nothing kept is overwritten unseen: an earlier backup of the same name is refused and left as it
+    # was; --replace writes over it, and only once the new one is whole (no half-written file is left beside it)
+    earlier = tmp_path / "fleet.json.gz"
+    earlier.write_bytes(b"an earlier backup")
+    with pytest.raises(CommandError, match="there already .* --replace"):
+        call_command("backup", str(earlier))
+    assert earlier.read_bytes() == b"an earlier backup"
+    call_command("backup", str(earlier), "--replace")
+    with gzip.open(earlier, "rt") as handle:
+        assert any(record["model"] == "fleet.fittedcapacitor" for record in json.load(handle))
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["fleet.json.gz"]

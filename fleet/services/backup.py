@@ -52,24 +52,40 @@ def _check_name(path: str) -> None:
         raise CommandError(f"{path}: name the file .json or .json.gz (gzipped)")
 
 
-def write_backup(path: str, *, database: str = "default") -> None:
+def write_backup(path: str, *, database: str = "default", replace: bool = False) -> None:
     """One consistent picture while the site runs: a single snapshot on PostgreSQL; on SQLite
-    the file is read under one transaction, so writers wait (up to the busy timeout) until it ends."""
+    the file is read under one transaction, so writers wait (up to the busy timeout) until it ends.
+
+    A file already at `path` (an earlier backup) is refused unless `replace`; the backup is written beside it
+    under another name and takes its place only once whole, so a failed backup never spoils the one before."""
     _check_name(path)
+    path = str(path)
+    if os.path.exists(path) and not replace:
+        raise CommandError(
+            f"{path}: a file of that name is there already (an earlier backup?). Nothing was written: name another "
+            "file, or add --replace to write over it."
+        )
+    suffix = next(ending for ending in sorted(SUFFIXES, key=len, reverse=True) if path.endswith(ending))
+    writing = os.path.join(os.path.dirname(path), f".{os.path.basename(path)}.writing{suffix}")
     connection = connections[database]
     outermost = not connection.in_atomic_block
-    with transaction.atomic(using=database):
-        if outermost and connection.vendor == "postgresql":
-            connection.cursor().execute("SET TRANSACTION ISOLATION LEVEL REPEATABLE READ READ ONLY")
-        call_command(
-            "dumpdata",
-            exclude=LEFT_OUT,
-            natural_foreign=True,
-            output=str(path),
-            database=database,
-            indent=None,
-            verbosity=0,
-        )
+    try:
+        with transaction.atomic(using=database):
+            if outermost and connection.vendor == "postgresql":
+                connection.cursor().execute("SET TRANSACTION ISOLATION LEVEL REPEATABLE READ READ ONLY")
+            call_command(
+                "dumpdata",
+                exclude=LEFT_OUT,
+                natural_foreign=True,
+                output=writing,
+                database=database,
+                indent=None,
+                verbosity=0,
+            )
+        os.replace(writing, path)
+    finally:
+        if os.path.exists(writing):
+            os.remove(writing)
 
 
 def rows_in_the_way(database: str = "default") -> dict[str, int]:

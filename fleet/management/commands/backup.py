@@ -9,7 +9,8 @@ class Command(BaseCommand):
     def add_arguments(self, parser):
         parser.add_argument("file")
         parser.add_argument("--database", default="default")
+        parser.add_argument("--replace", action="store_true", help="Write over a file of that name (an older backup).")
 
-    def handle(self, *args, file, database, **options):
-        write_backup(file, database=database)
+    def handle(self, *args, file, database, replace, **options):
+        write_backup(file, database=database, replace=replace)
         self.stdout.write(f"Backup written to {file}.")
