@@ -1152,7 +1152,7 @@ def test_a_moved_visit_keeps_the_orders_done_in_it_on_its_sheet_and_in_the_list(
     moved = WorkOrder.objects.get(fitted_capacitor=done)
     assert (moved.state, moved.due_on, moved.moved_from) == ("done", third, first)
     (visit,) = [v for v in open_visits_page(1, user=planner).object_list if v["site"].code == "MVD"]
-    assert (visit["day"], visit["state"]) == (third, "planned, not issued yet; 1 done already")
+    assert (visit["day"], visit["state"]) == (third, "planned, not issued yet; 1 more done already")
     client.force_login(planner)
     sheet = client.get(reverse("visit_sheet", args=[site.code, third.isoformat()])).content.decode()
     closed_part = sheet[sheet.index("Done or cancelled in this visit") :]
@@ -1361,14 +1361,14 @@ def test_each_folded_visit_says_its_state_and_whether_an_order_is_past_its_date(
     visits = {v["day"]: v for v in open_visits_page(1, user=planner).object_list}
     assert [(v["state"], v["late"]) for v in visits.values()] == [
         ("planned, not issued yet", 0),
-        ("issued; 1 done already", 0),
+        ("issued; 1 more done already", 0),
         ("1 issued, 1 planned, not issued yet", 1),
     ]
     client.force_login(planner)
     listed = client.get(reverse("work_orders")).content.decode()
     summaries = [text for text in re.findall(r"<summary>(.*?)</summary>", listed, re.S) if "visit-count" in text]
     assert len(summaries) == 3
-    assert '<span class="visit-state">issued; 1 done already</span>' in summaries[1]
+    assert '<span class="visit-state">issued; 1 more done already</span>' in summaries[1]
     assert "past" not in summaries[0] and "1 past its replace-by date</b>" in summaries[2]
 
 

@@ -688,7 +688,7 @@ def visit_state_words(planned: int, issued: int, done: int = 0) -> str:
         words = "planned, not issued yet"
     else:
         words = "issued"
-    return f"{words}; {done} done already" if done else words
+    return f"{words}; {done} more done already" if done else words  # the count before them is of open orders
 
 
 @dataclass(frozen=True)
