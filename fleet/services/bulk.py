@@ -238,20 +238,15 @@ def select_frame(sql: str, params, columns: list[str]) -> pd.DataFrame:
     text, so the caller casts what it needs; NULL is NaN or None.
     """
     if on_postgresql():
-        return select_lines(f"SELECT btrim(q::text, '()') FROM ({sql}) AS q", params, columns)
+        with connection.cursor() as cursor:
+            cursor.execute(f"SELECT string_agg(btrim(q::text, '()'), E'\\n') FROM ({sql}) AS q", params)
+            text = cursor.fetchone()[0]
+        if not text:
+            return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
+        return _row_texts_frame(text.encode(), columns)
     with connection.cursor() as cursor:
         cursor.execute(sql, params)
         return pd.DataFrame.from_records(cursor.fetchall(), columns=columns)
-
-
-def select_lines(sql: str, params, columns: list[str]) -> pd.DataFrame:
-    """Like `select_frame`, for a SELECT of one column that is each row as a line of CSV (PostgreSQL only)."""
-    with connection.cursor() as cursor:
-        cursor.execute(f"SELECT string_agg(q.line, E'\\n') FROM ({sql}) AS q (line)", params)
-        text = cursor.fetchone()[0]
-    if not text:
-        return pd.DataFrame({name: pd.Series(dtype=object) for name in columns})
-    return _row_texts_frame(text.encode(), columns)
 
 
 # Kinds of value for `select_packed`: the server's binary send function and the numpy type it fills.

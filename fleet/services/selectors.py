@@ -145,7 +145,7 @@ READING_COLUMNS = [
 
 # Each reading column as the refit reads it on PostgreSQL (`bulk.select_packed`): NULL as a stand-in
 # (NaN: a stored value is always finite; 0: no reading has id 0), the condition as its place among the
-# choices (-1: a value that is none of them, read again as text).
+# choices (-1: a value that is none of them; such a chunk is read through the ORM).
 READING_CONDITIONS = [value for value, _ in Reading.Condition.choices]
 PACKED_READING_FIELDS = [
     ("id", "id", "int8"),
