@@ -331,3 +331,10 @@ def test_a_backup_never_writes_over_an_earlier_one_unasked(plant, tmp_path):
     with gzip.open(earlier, "rt") as handle:
         assert any(record["model"] == "fleet.fittedcapacitor" for record in json.load(handle))
     assert sorted(p.name for p in tmp_path.iterdir()) == ["fleet.json.gz"]
+
+
+def test_a_backup_into_a_folder_that_is_not_there_is_refused_in_words(tmp_path):
+    # [ours] a command answers a mistyped path with what is wrong, not the serializer's traceback
+    with pytest.raises(CommandError, match="there is no folder"):
+        call_command("backup", str(tmp_path / "no-such-folder" / "fleet.json.gz"))
+    assert list(tmp_path.iterdir()) == []

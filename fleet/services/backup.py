@@ -65,6 +65,9 @@ def write_backup(path: str, *, database: str = "default", replace: bool = False)
             f"{path}: a file of that name is there already (an earlier backup?). Nothing was written: name another "
             "file, or add --replace to write over it."
         )
+    folder = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(folder):
+        raise CommandError(f"{path}: there is no folder {folder}. Nothing was written: make it first, or name another.")
     suffix = next(ending for ending in sorted(SUFFIXES, key=len, reverse=True) if path.endswith(ending))
     writing = os.path.join(os.path.dirname(path), f".{os.path.basename(path)}.writing{suffix}")
     connection = connections[database]
