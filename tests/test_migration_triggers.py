@@ -19,6 +19,7 @@ FROZEN = {  # SHA-256 of every statement, SQLite forward and backward then Postg
     "0037_rounds_motor_last_read": "7366c02d9ee9457f5fb3e88c6ac13b44036a92ae4c785c1672a27575b1f100b4",
     "0041_rounds_every_position_read": "01fb48371cfb577852254dfc839dcef017d3ac5e3ba41e6d744c0d2cb04d484f",
     "0063_design_counts_without_stop_gaps": "6b5245e2c24c0e96c718353228aebe0dc1900470c745eb533112f5ec1e02bb12",
+    "0067_motor_last_read_worked_out_once": "aa17a387b7057109dacd48bf45bed147898486e59e188928c5a49ba6c09f5989",
 }
 
 
@@ -36,3 +37,13 @@ def test_a_migration_runs_the_trigger_sql_it_was_written_with(name):
 
 def test_the_shared_helpers_are_not_a_migration():
     assert ("fleet", "_triggers") not in MigrationLoader(None, ignore_no_migrations=True).disk_migrations
+
+
+def test_the_motors_last_reading_is_worked_out_once_by_the_rule_of_before():
+    """0067 changes how often PostgreSQL works the rule out, not the rule: given 0041's UPDATE, it builds 0041's
+    triggers to the character, and its own UPDATE holds 0041's rule."""
+    rounds_0041 = importlib.import_module("fleet.migrations.0041_rounds_every_position_read")
+    once = importlib.import_module("fleet.migrations.0067_motor_last_read_worked_out_once")
+    assert once.triggers(rounds_0041.refresh) == rounds_0041.POSTGRES_FORWARD
+    assert rounds_0041.rule("postgresql") in once.refresh("SELECT 1")
+    assert "MATERIALIZED" in once.refresh("SELECT 1") and "MATERIALIZED" not in rounds_0041.refresh("SELECT 1")
