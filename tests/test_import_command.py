@@ -1348,3 +1348,73 @@ def test_a_unit_cost_past_the_cent_is_refused_by_row_and_field_not_rounded(tmp_p
     }
     response = client.post(reverse("admin:fleet_capacitorpart_add"), form)
     assert response.status_code == 200 and not CapacitorPart.objects.filter(code="CENT-3").exists()
+
+
+def in_a_thread(call):
+    """Start `call` in a thread of its own (its own database connection); the thread and a dict that gets its
+    result or exception."""
+    import threading
+
+    from django.db import connection
+
+    answer = {}
+
+    def run():
+        try:
+            answer["result"] = call()
+        except Exception as error:  # noqa: BLE001 - handed to the test, which asserts on it
+            answer["result"] = error
+        finally:
+            connection.close()
+
+    thread = threading.Thread(target=run)
+    thread.start()
+    return thread, answer
+
+
+def waited_for(condition, seconds=20.0) -> bool:
+    import time
+
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline:
+        if condition():
+            return True
+        time.sleep(0.05)
+    return False
+
+
+@pytest.mark.django_db(transaction=True)
+def test_an_import_beside_another_of_its_kind_says_it_waits_then_imports(tmp_path):
+    """The command run while another import of sites holds its turn (as one of a large file does for its whole
+    check and write). Before: on SQLite that turn was the database's one write transaction, and the command
+    stopped with a traceback ("database is locked") once the busy timeout (10 s) had passed, or at once on the
+    tests' in-memory database. [derived] it says it waits, waits without limit, then imports and says so."""
+    from fleet.services.import_jobs import one_import_at_a_time, waiting_words
+
+    path = write(tmp_path, "sites.csv", SITES)
+    out = io.StringIO()
+    with one_import_at_a_time("sites"):
+        thread, answer = in_a_thread(lambda: call_command("import", "sites", str(path), stdout=out))
+        assert waited_for(lambda: waiting_words("sites") in out.getvalue()), out.getvalue()
+        assert thread.is_alive() and not Site.objects.exists()  # it waits its turn, nothing saved yet
+    thread.join(30)
+    assert not thread.is_alive() and not isinstance(answer["result"], Exception), answer
+    assert out.getvalue().endswith("Imported 2 rows.\n")
+    assert sorted(Site.objects.values_list("code", flat=True)) == ["CS", "PK"]
+
+
+def test_a_database_busy_past_its_timeout_is_said_in_words_by_the_command(tmp_path):
+    """SQLite's "database is locked" (another writer, a backup say, held the database past the busy timeout).
+    Before: a traceback. [derived] the command says the database stayed busy, that nothing was imported and
+    to import again; any other database error is not taken for it."""
+    from django.db import OperationalError
+
+    path = write(tmp_path, "sites.csv", SITES)
+    target = "fleet.management.commands.import.import_file"
+    with mock.patch(target, side_effect=OperationalError("database is locked")), pytest.raises(CommandError) as refused:
+        run("sites", path)
+    words = str(refused.value)
+    assert "stayed busy with another write" in words and "longer than 10 s" in words, words
+    assert "Nothing was imported. Import again" in words
+    with mock.patch(target, side_effect=OperationalError("disk I/O error")), pytest.raises(OperationalError):
+        run("sites", path)

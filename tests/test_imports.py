@@ -965,3 +965,45 @@ def test_columns_chosen_from_a_page_opened_before_another_check_are_refused_at_t
     assert as_drawn(answer)["notes"] == ["notes"]  # as typed
     job.refresh_from_db()
     assert job.mapping["notes"] == ""
+
+
+@pytest.mark.django_db(transaction=True)
+def test_an_import_job_beside_another_of_its_kind_says_on_its_page_that_it_waits():
+    """An import job run while another import of readings holds its turn. Before: on SQLite that turn was the
+    database's one write transaction, so the job could not even write its own state: its page answered 500
+    (503 in production, "cannot be reached") after the busy timeout. [derived] the job's page says it waits for
+    the other import, and the job imports once that one is done."""
+    from fleet.services.import_jobs import one_import_at_a_time, waiting_words
+    from tests.test_import_command import in_a_thread, waited_for
+
+    fleet_of(2)
+    job = check_job(
+        create_job(kind="readings", filename="r.csv", content=csv_of(good_rows(["IMP-0000"], 3)), user=None).id
+    )
+    assert job.good_rows == 3
+    with one_import_at_a_time("readings"):
+        thread, answer = in_a_thread(lambda: run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING))
+        said = lambda: ImportJob.objects.filter(pk=job.pk, message=waiting_words("readings")).exists()  # noqa: E731
+        assert waited_for(said)
+        assert thread.is_alive() and not Reading.objects.exists()
+    thread.join(30)
+    assert not thread.is_alive()
+    done = answer["result"]
+    assert (done.state, done.imported_rows, done.message) == (ImportJob.State.DONE, 3, "")
+    assert Reading.objects.count() == 3
+
+
+def test_an_import_job_the_database_was_too_busy_for_says_so_in_words():
+    """SQLite's "database is locked" during an import job (another writer held the database past the busy
+    timeout). Before: "stopped on the database connection was lost or refused a write". [derived] the job ends
+    failed saying the database stayed busy, nothing was imported, and to import again."""
+    from django.db import OperationalError
+
+    fleet_of(1)
+    job = check_job(
+        create_job(kind="readings", filename="r.csv", content=csv_of(good_rows(["IMP-0000"], 1)), user=None).id
+    )
+    with mock.patch("fleet.services.import_jobs.import_file", side_effect=OperationalError("database is locked")):
+        failed = run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+    assert failed.state == ImportJob.State.FAILED
+    assert "stayed busy with another write" in failed.message and "Nothing was imported. Import again" in failed.message
