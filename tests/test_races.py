@@ -801,6 +801,6 @@ def test_two_imports_of_one_file_at_once_save_each_row_once_and_say_so(kind, fil
         4,
     )
     assert second.message == (
-        "4 rows the check found new were already imported when this import ran (another import saved them "
-        "meanwhile): counted as already imported, not saved again; this import saved 0 rows."
+        "4 rows the check found new were already imported when this import ran (another import, the reading form "
+        "or the API saved them meanwhile): counted as already imported, not saved again; this import saved 0 rows."
     )

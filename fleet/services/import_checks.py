@@ -137,7 +137,12 @@ def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
     """Every capacitor ever fitted to the motors named (upper-case tags), one query; `position_id` names
     its motor position (motor and role) by the position's first capacitor's id, so that a reading has one
     key for its position whichever of its capacitors holds it."""
-    rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
+    return _fitted_where(motor__asset_tag__any_of=tags)
+
+
+def _fitted_where(**lookup) -> pd.DataFrame:
+    """Every capacitor ever fitted to the motors `lookup` selects, as `_fitted_of_tags` gives them."""
+    rows = FittedCapacitor.objects.filter(**lookup).values_list(*FITTED_COLUMNS)
     fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
     fitted["tag"] = fitted["tag"].astype(str).str.upper()
     fitted["role"] = fitted["role"].astype(str)
@@ -375,6 +380,34 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             for row, first in zip(later["row"], first_row.reindex(later["position_key"]).to_numpy(), strict=True)
         ]
         good = good[~repeated].reset_index(drop=True)
+    good, against_stored, duplicates = _against_stored(good, fitted)
+    errors += against_stored
+    # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
+    # never two readings (a reading and its correction, exported and imported again, are both stored already).
+    moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
+    clash = moment.duplicated(keep="first").to_numpy()
+    if clash.any():
+        first = good[~clash].set_index(["fitted_capacitor_id", "taken_at", "method"])[["row", "capacitance_uf"]]
+        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
+        errors += [
+            (
+                int(row),
+                "taken_at",
+                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
+                "the two rows",
+            )
+            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
+        ]
+        good = good[~clash].reset_index(drop=True)
+    errors.sort()
+    return CheckResult(good=good, errors=errors, duplicates=duplicates, total=len(frame))
+
+
+def _against_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[pd.DataFrame, list[tuple], int]:
+    """The good rows held to the readings stored (`_already_stored`): (the rows still new, the problems of rows
+    that a stored reading makes wrong, how many rows are stored already). The check's rule, and the import's
+    again under its capacitors' locks (`readings_stored_meanwhile`)."""
+    errors = []
     stored, stored_uf, stored_fields = _already_stored(good, fitted)
     # The same reading stored already, but the file gives another condition, note or measurement: edited since.
     changed = _edited_fields(good, stored_fields, stored)
@@ -401,25 +434,23 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         ]
     if stored.any() or edited.any():
         good = good[~stored & ~edited].reset_index(drop=True)
-    # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
-    # never two readings (a reading and its correction, exported and imported again, are both stored already).
-    moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
-    clash = moment.duplicated(keep="first").to_numpy()
-    if clash.any():
-        first = good[~clash].set_index(["fitted_capacitor_id", "taken_at", "method"])[["row", "capacitance_uf"]]
-        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
-        errors += [
-            (
-                int(row),
-                "taken_at",
-                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
-                "the two rows",
-            )
-            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
-        ]
-        good = good[~clash].reset_index(drop=True)
-    errors.sort()
-    return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
+    return good, errors, int(stored.sum())
+
+
+def readings_stored_meanwhile(good: pd.DataFrame) -> CheckResult:
+    """The good rows of a readings import checked again, inside the import's transaction, against what the
+    reading form and the API stored since the check. Two imports take turns, but a reading typed on the form
+    meanwhile was saved beside the imported one: the same reading twice in the trend. The rows' capacitors are
+    locked first (in id order), as the form locks the capacitor it saves a reading of, so whichever of the two
+    comes second finds the other: the form refuses its reading naming the stored one, the import counts such a
+    row already imported (another value at that time: refused by row, as the check refuses it)."""
+    if not len(good):
+        return CheckResult(good=good, total=0)
+    ids = np.unique(good["fitted_capacitor_id"].to_numpy(np.int64))
+    locked = FittedCapacitor.objects.select_for_update().filter(id__any_of=ids).order_by("id")
+    motor_ids = np.unique(np.fromiter(locked.values_list("motor_id", flat=True), np.int64))
+    still_new, errors, duplicates = _against_stored(good, _fitted_where(motor_id__any_of=motor_ids))
+    return CheckResult(good=still_new, errors=sorted(errors), duplicates=duplicates, total=len(good))
 
 
 @dataclass(frozen=True)

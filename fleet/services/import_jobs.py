@@ -60,6 +60,9 @@ class Kind:
     max_lengths: dict[str, int]
     site_column: str = ""  # names a row's motor (asset_tag) or site (site_code): a limited user imports there only
     visits_on: Callable | None = None  # (good rows, user) -> the open visits on the days they make days off
+    # (good rows) -> CheckResult of them held again to what other writers stored since the check, inside the
+    # import's transaction, before the write (readings: the form's and the API's, `readings_stored_meanwhile`)
+    stored_meanwhile: Callable | None = None
 
 
 def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
@@ -169,6 +172,7 @@ KINDS = {
         _write_readings,
         {},
         "asset_tag",
+        stored_meanwhile=import_checks.readings_stored_meanwhile,
     ),
 }
 
@@ -294,6 +298,12 @@ def import_file(
             return outcome
         with transaction.atomic():
             spec = KINDS[kind]
+            if spec.stored_meanwhile and len(result.good):
+                meanwhile = spec.stored_meanwhile(result.good)
+                result.good, result.duplicates = meanwhile.good, result.duplicates + meanwhile.duplicates
+                result.errors = sorted(result.errors + meanwhile.errors)
+                if _refused_whole(outcome, mode):
+                    return outcome
             if len(result.good):
                 for follow_up in spec.write(result.good, user if user and user.is_authenticated else None):
                     transaction.on_commit(functools.partial(_follow, follow_up, outcome))
@@ -684,13 +694,15 @@ def waiting_words(kind: str) -> str:
 
 def imported_meanwhile_words(already_at_check: int, outcome: Outcome) -> str:
     """The rows the dry run found new that were in by the time the import ran (another import saved them
-    meanwhile, or this one waited for it): counted as already imported and not saved again ("" when none)."""
+    meanwhile, or this one waited for it; or the reading form or the API saved the same reading): counted as
+    already imported and not saved again ("" when none)."""
     meanwhile = outcome.result.duplicates - already_at_check
     if meanwhile <= 0:
         return ""
     return (
         f"{meanwhile} row{pluralize(meanwhile)} the check found new {pluralize(meanwhile, 'was,were')} already "
-        f"imported when this import ran (another import saved {pluralize(meanwhile, 'it,them')} meanwhile): "
+        f"imported when this import ran (another import, the reading form or the API saved "
+        f"{pluralize(meanwhile, 'it,them')} meanwhile): "
         f"counted as already imported, not saved again; this import saved {outcome.imported} "
         f"row{pluralize(outcome.imported)}."
     )
