@@ -884,7 +884,7 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
     assert "9 rows: 2 good, 0 already imported, 7 with problems." in report
     for row, field, words in (
         (4, "day", "the same site and day as row 2"),
-        (5, "site_code", "unknown site code XX: add the site first"),
+        (5, "site", "unknown site code XX: add the site first"),
         (6, "day", "in the past"),
         (7, "day", "past the plan's reach"),
         (8, "day", "not a day of the calendar"),
@@ -1141,8 +1141,8 @@ def test_a_stored_reading_imported_again_with_another_condition_or_measurement_i
             REGISTER.replace(
                 "FAN-1,PK,fan,permanent_split,fan_law,230,50,4,250", "FAN-1,CS,fan,permanent_split,fan_law,230,50,4,370"
             ),
-            "site_code",
-            "this motor is stored already with site_code PK, the file says CS",
+            "site",
+            "this motor is stored already with site PK, the file says CS",
         ),
         (
             "history",
@@ -1270,7 +1270,7 @@ def test_a_part_or_motor_row_with_several_faults_has_each_named_in_one_check():
     register = REGISTER.splitlines()[0] + "\nNEWM-3,XXX,blower,psc,weird,-230,45,0,0,0,0,,,9999-12-31\n"
     faults = check_file(kind="register", filename="register.csv", content=register.encode()).result.errors
     assert {name for _, name, _ in faults} == {
-        "site_code",
+        "site",
         "application",
         "motor_type",
         "load_type",
@@ -1418,3 +1418,31 @@ def test_a_database_busy_past_its_timeout_is_said_in_words_by_the_command(tmp_pa
     assert "Nothing was imported. Import again" in words
     with mock.patch(target, side_effect=OperationalError("disk I/O error")), pytest.raises(OperationalError):
         run("sites", path)
+
+
+@pytest.mark.parametrize("heading", ["site", "site_code"])
+def test_the_register_and_days_off_take_the_site_under_the_apis_heading_and_the_old_one(
+    tmp_path, client, planner, django_capture_on_commit_callbacks, heading
+):
+    """The site's column is `site` in the API and every export, and was `site_code` in the register and days-off
+    imports: two names for one thing in files a user types. [derived] the imports take `site`, the one name, and
+    still read a file headed `site_code` as before, on the command and on the page (matched by itself), leaving
+    no column out; a problem in it is named at the field `site`."""
+    from fleet.models import SiteDayOff
+
+    run("sites", write(tmp_path, "sites.csv", SITES))
+    run("parts", write(tmp_path, "parts.csv", PARTS))
+    register = REGISTER.replace("asset_tag,site_code,", f"asset_tag,{heading},", 1)
+    report = run("register", write(tmp_path, "register.csv", register))
+    assert "Imported 2 rows." in report and "Columns left out" not in report
+    assert set(Motor.objects.values_list("asset_tag", "site__code")) == {("FAN-1", "PK"), ("CMP-1", "CS")}
+    today = timezone.localdate()
+    day = today + dt.timedelta(days=7 - today.weekday() + 14)
+    report = run("days_off", write(tmp_path, "days.csv", f"{heading},day,name\npk,{day},shutdown\n"))
+    assert "Imported 1 row." in report and "Columns left out" not in report
+    assert list(SiteDayOff.objects.values_list("site__code", "day")) == [("PK", day)]
+    client.force_login(planner)
+    text = f"{heading},day,name\nXX,{day + dt.timedelta(days=1)},shutdown\n"
+    job = checked_on_the_web(client, django_capture_on_commit_callbacks, "days_off", text)
+    assert job.mapping["site"] == heading and "site_code" not in job.mapping
+    assert job.errors == [[2, "site", "unknown site code XX: add the site first"]]

@@ -260,7 +260,7 @@ def test_register_import_from_xlsx_creates_motors_capacitors_and_circuits(django
     book.save(buffer)
     job = check_job(create_job(kind="register", filename="register.xlsx", content=buffer.getvalue(), user=None).id)
     fields = {(row, field) for row, field, _ in job.errors}
-    assert fields == {(3, "rated_speed_rpm"), (4, "site_code")}
+    assert fields == {(3, "rated_speed_rpm"), (4, "site")}
     with django_capture_on_commit_callbacks(execute=True):  # the circuit estimate is queued on commit
         run_job(job.id, ImportJob.Mode.GOOD_ROWS)
     motor = Motor.objects.get(asset_tag="NEW-1")

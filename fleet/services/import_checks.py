@@ -83,7 +83,7 @@ MOTOR_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "rated_speed_rpm", 
 
 
 def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
-    """Rows for a motor (by `asset_tag`) or a site (by `site_code`) outside the sites `user` works at.
+    """Rows for a motor (by `asset_tag`) or a site (by `site`) outside the sites `user` works at.
 
     A user limited to some sites imports only there; `user=None` (a command) and unlimited users
     are never refused here.
@@ -92,10 +92,10 @@ def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
     if not column or user is None or visible_site_ids(user) is None:
         return problems
     mine = set(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
-    if column == "site_code":
-        codes = frame["site_code"]
+    if column == "site":
+        codes = frame["site"]
         messages = codes.map("site {}, which you do not work at".format).to_numpy(dtype=object)
-        problems.add(codes.ne("") & ~codes.str.upper().isin({code.upper() for code in mine}), "site_code", messages)
+        problems.add(codes.ne("") & ~codes.str.upper().isin({code.upper() for code in mine}), "site", messages)
         return problems
     tags = frame[column].str.upper()
     wanted = sorted(t for t in set(tags) - {""} if "\x00" not in t)
@@ -796,7 +796,7 @@ def site_ids_in_any_case(codes: pd.Series) -> pd.Series:
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites (by code in any case) and parts must exist; tags already there are
     skipped."""
-    site_id = site_ids_in_any_case(frame["site_code"])
+    site_id = site_ids_in_any_case(frame["site"])
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
     existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
     problems = _Problems(frame)
@@ -813,8 +813,8 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(
         site_id.isna().to_numpy(),
-        "site_code",
-        _unknown("site code", frame["site_code"], "add the site first"),
+        "site",
+        _unknown("site code", frame["site"], "add the site first"),
         of_cell=True,
     )
     for name, allowed in (
@@ -906,32 +906,32 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 # A register row's motor fields, compared with the motor stored under its tag (its capacitors are not: a part
 # replaced since differs from the file's by right).
-MOTOR_COMPARED = ["site_code", "location", "application", "motor_type", "load_type", *MOTOR_NUMBERS, "commissioned_on"]
+MOTOR_COMPARED = ["site", "location", "application", "motor_type", "load_type", *MOTOR_NUMBERS, "commissioned_on"]
 
 
 def _refuse_changed_motors(problems: _Problems, already: np.ndarray, frame: pd.DataFrame, tags: pd.Series, numbers):
     """A motor stored already that the file describes otherwise (`refuse_changed`)."""
     if not already.any():
         return
-    fields = [name for name in MOTOR_COMPARED if name != "site_code"]
+    fields = [name for name in MOTOR_COMPARED if name != "site"]
     stored = pd.DataFrame.from_records(
         list(
             Motor.objects.filter(asset_tag__any_of=np.array(sorted(set(tags[already])), dtype=object)).values_list(
                 "asset_tag", "site__code", *fields
             )
         ),
-        columns=["asset_tag", "site_code", *fields],
+        columns=["asset_tag", "site", *fields],
     )
     held = stored.set_index(stored["asset_tag"].str.upper()).reindex(tags.to_numpy())[MOTOR_COMPARED]
     given = frame.reindex(columns=MOTOR_COMPARED).assign(
         **{name: numbers[name] for name in MOTOR_NUMBERS if name in numbers},
-        site_code=frame["site_code"].str.upper(),
+        site=frame["site"].str.upper(),
         application=frame["application"].str.lower(),
         motor_type=frame["motor_type"].str.lower(),
         load_type=frame["load_type"].str.lower(),
         commissioned_on=parse_dates(frame["commissioned_on"]) if "commissioned_on" in frame else None,
     )
-    held = held.assign(site_code=held["site_code"].str.upper())
+    held = held.assign(site=held["site"].str.upper())
     refuse_changed(problems, already, given.reset_index(drop=True), held.reset_index(drop=True), "motor")
 
 
@@ -1012,11 +1012,11 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in DAY_OFF_REQUIRED:
         problems.add(frame[name].str.strip().eq(""), name, "required", of_cell=True)
-    site_id = site_ids_in_any_case(frame["site_code"])
+    site_id = site_ids_in_any_case(frame["site"])
     problems.add(
         site_id.isna().to_numpy(),
-        "site_code",
-        _unknown("site code", frame["site_code"], "add the site first"),
+        "site",
+        _unknown("site code", frame["site"], "add the site first"),
         of_cell=True,
     )
     day = parse_dates(frame["day"])
@@ -1037,7 +1037,7 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 
 def insert_days_off(good: pd.DataFrame) -> int:
-    site_ids = site_ids_in_any_case(good["site_code"]).astype("int64").tolist()
+    site_ids = site_ids_in_any_case(good["site"]).astype("int64").tolist()
     SiteDayOff.objects.bulk_create(
         [
             SiteDayOff(site_id=site, day=dt.date.fromisoformat(row.day[:10]), name=row.name.strip())

@@ -58,7 +58,7 @@ class Kind:
     check: Callable
     write: Callable  # (good rows, user) -> [FollowUp], inside the import's transaction
     max_lengths: dict[str, int]
-    site_column: str = ""  # names a row's motor (asset_tag) or site (site_code): a limited user imports there only
+    site_column: str = ""  # names a row's motor (asset_tag) or site (site): a limited user imports there only
     visits_on: Callable | None = None  # (good rows, user) -> the open visits on the days they make days off
     # (good rows) -> CheckResult of them held again to what other writers stored since the check, inside the
     # import's transaction, before the write (readings: the form's and the API's, `readings_stored_meanwhile`)
@@ -114,7 +114,7 @@ def _visits_on_days_off(good, user) -> list[dict]:
     """The open visits on the days off of a file's good rows (`workorders.open_visits_on`, the days-off
     page's rule): the import reports them, for the planner to move."""
     days = [dt.date.fromisoformat(day[:10]) for day in good["day"]]
-    site_ids = import_checks.site_ids_in_any_case(good["site_code"])  # the check found each, in any case
+    site_ids = import_checks.site_ids_in_any_case(good["site"])  # the check found each, in any case
     return open_visits_on(zip(site_ids, days, strict=True), user=user)
 
 
@@ -146,7 +146,7 @@ KINDS = {
         import_checks.check_register,
         _write_register,
         _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location"}),
-        "site_code",
+        "site",
     ),
     ImportJob.Kind.HISTORY: Kind(
         columns.HISTORY_COLUMNS,
@@ -162,7 +162,7 @@ KINDS = {
         import_checks.check_days_off,
         _write_days_off,
         _max_lengths(SiteDayOff, {"name": "name"}),
-        "site_code",
+        "site",
         _visits_on_days_off,
     ),
     ImportJob.Kind.READINGS: Kind(
