@@ -122,10 +122,14 @@ if DATABASES["default"]["ENGINE"] == "django.db.backends.postgresql":
     # Pages run short indexed queries: compiling one (JIT) cost more than running it (70 ms on the refits
     # page's stale count at 100,000 motors), and the bulk reads of refits and exports gain little from it.
     DATABASES["default"].setdefault("OPTIONS", {})["options"] = "-c jit=off"
+# How long a write on SQLite waits for the database's one write lock before it fails ("database is locked").
+SQLITE_BUSY_TIMEOUT_MS = 10_000
 if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
     DATABASES["default"]["CONN_MAX_AGE"] = 0
     DATABASES["default"]["OPTIONS"] = {
-        "init_command": "PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL; PRAGMA busy_timeout=10000;",
+        "init_command": (
+            f"PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL; PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS};"
+        ),
         "transaction_mode": "IMMEDIATE",
     }
 DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"

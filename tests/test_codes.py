@@ -59,7 +59,7 @@ def test_the_parts_import_refuses_codes_the_admin_refuses():
 def register_row(**values):
     row = dict(
         asset_tag="T-1",
-        site_code="CST",
+        site="CST",
         application="fan",
         motor_type="permanent_split",
         load_type="fan_law",

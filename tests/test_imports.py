@@ -260,7 +260,7 @@ def test_register_import_from_xlsx_creates_motors_capacitors_and_circuits(django
     book.save(buffer)
     job = check_job(create_job(kind="register", filename="register.xlsx", content=buffer.getvalue(), user=None).id)
     fields = {(row, field) for row, field, _ in job.errors}
-    assert fields == {(3, "rated_speed_rpm"), (4, "site_code")}
+    assert fields == {(3, "rated_speed_rpm"), (4, "site")}
     with django_capture_on_commit_callbacks(execute=True):  # the circuit estimate is queued on commit
         run_job(job.id, ImportJob.Mode.GOOD_ROWS)
     motor = Motor.objects.get(asset_tag="NEW-1")
@@ -965,3 +965,146 @@ def test_columns_chosen_from_a_page_opened_before_another_check_are_refused_at_t
     assert as_drawn(answer)["notes"] == ["notes"]  # as typed
     job.refresh_from_db()
     assert job.mapping["notes"] == ""
+
+
+@pytest.mark.django_db(transaction=True)
+def test_an_import_job_beside_another_of_its_kind_says_on_its_page_that_it_waits():
+    """An import job run while another import of readings holds its turn. Before: on SQLite that turn was the
+    database's one write transaction, so the job could not even write its own state: its page answered 500
+    (503 in production, "cannot be reached") after the busy timeout. [derived] the job's page says it waits for
+    the other import, and the job imports once that one is done."""
+    from fleet.services.import_jobs import one_import_at_a_time, waiting_words
+    from tests.test_import_command import in_a_thread, waited_for
+
+    fleet_of(2)
+    job = check_job(
+        create_job(kind="readings", filename="r.csv", content=csv_of(good_rows(["IMP-0000"], 3)), user=None).id
+    )
+    assert job.good_rows == 3
+    with one_import_at_a_time("readings"):
+        thread, answer = in_a_thread(lambda: run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING))
+        said = lambda: ImportJob.objects.filter(pk=job.pk, message=waiting_words("readings")).exists()  # noqa: E731
+        assert waited_for(said)
+        assert thread.is_alive() and not Reading.objects.exists()
+    thread.join(30)
+    assert not thread.is_alive()
+    done = answer["result"]
+    assert (done.state, done.imported_rows, done.message) == (ImportJob.State.DONE, 3, "")
+    assert Reading.objects.count() == 3
+
+
+def test_an_import_job_the_database_was_too_busy_for_says_so_in_words():
+    """SQLite's "database is locked" during an import job (another writer held the database past the busy
+    timeout). Before: "stopped on the database connection was lost or refused a write". [derived] the job ends
+    failed saying the database stayed busy, nothing was imported, and to import again."""
+    from django.db import OperationalError
+
+    fleet_of(1)
+    job = check_job(
+        create_job(kind="readings", filename="r.csv", content=csv_of(good_rows(["IMP-0000"], 1)), user=None).id
+    )
+    with mock.patch("fleet.services.import_jobs.import_file", side_effect=OperationalError("database is locked")):
+        failed = run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+    assert failed.state == ImportJob.State.FAILED
+    assert "stayed busy with another write" in failed.message and "Nothing was imported. Import again" in failed.message
+
+
+def the_form_saves_meanwhile(capacitance_uf: str):
+    """Patch the import's check so that, once it has found its rows new, a technician saves a reading of the
+    file's first row on the reading form (same capacitor and time, `capacitance_uf`), before the import writes:
+    the one interleaving the import's own lock leaves open. The reading form's reading, for the test."""
+    from zoneinfo import ZoneInfo
+
+    from fleet.services import import_jobs
+    from fleet.services.readings import record_reading
+
+    original, saved = import_jobs.check_file, {}
+
+    def check_then_the_form_saves(**kwargs):
+        outcome = original(**kwargs)
+        capacitor = FittedCapacitor.objects.select_related("motor__site").get(motor__asset_tag="IMP-0000")
+        taken_at = dt.datetime(2021, 6, 1, 9, 0, tzinfo=ZoneInfo(capacitor.motor.site.time_zone))
+        saved["reading"] = record_reading(
+            fitted_capacitor=capacitor,
+            values={
+                "method": "meter",
+                "capacitance_uf": capacitance_uf,
+                "case_temperature_c": "31",
+                "taken_at": taken_at,
+            },
+            user=make_user("technician"),
+        )
+        return outcome
+
+    return mock.patch.object(import_jobs, "check_file", check_then_the_form_saves), saved
+
+
+def test_a_reading_typed_on_the_form_while_the_import_of_it_runs_is_stored_once():
+    """The same reading (capacitor, time, method, value) typed on the reading form between the import's check
+    and its write. Before: both were saved, the same point twice in the trend (the import's lock holds off
+    other imports only, and its key skips only imported readings). [derived] the import, second, finds the
+    form's reading: that row is counted already imported and its page says another writer saved it meanwhile;
+    the reading typed is kept, once."""
+    fleet_of(1)
+    job = check_job(
+        create_job(kind="readings", filename="r.csv", content=csv_of(good_rows(["IMP-0000"], 3)), user=None).id
+    )
+    assert (job.good_rows, job.duplicate_rows) == (3, 0)
+    interleaved, saved = the_form_saves_meanwhile("4.0000")
+    with interleaved:
+        done = run_job(job.id, ImportJob.Mode.ALL_OR_NOTHING)
+    assert (done.state, done.imported_rows, done.duplicate_rows) == (ImportJob.State.DONE, 2, 1)
+    assert "1 row the check found new was already imported when this import ran (another import, the reading " in (
+        done.message
+    )
+    first_time = Reading.objects.filter(taken_at=saved["reading"].taken_at)
+    assert list(first_time.values_list("id", "source")) == [(saved["reading"].id, Reading.Source.FORM)]
+    assert Reading.objects.count() == 3
+
+
+@pytest.mark.parametrize("mode", [ImportJob.Mode.ALL_OR_NOTHING, ImportJob.Mode.GOOD_ROWS])
+def test_another_value_typed_on_the_form_while_the_import_runs_refuses_that_row_as_the_check_would(mode):
+    """Another value at the same capacitor and time typed on the form between the import's check and its
+    write. Before: both were saved, two points at one instant. [derived] the row is refused by row and field as
+    the check refuses it (all or nothing: the whole file, nothing imported; good rows only: the others
+    imported); the form's reading stays."""
+    fleet_of(1)
+    content = csv_of(good_rows(["IMP-0000"], 3))
+    interleaved, saved = the_form_saves_meanwhile("3.9")
+    with interleaved:
+        outcome = import_file(kind="readings", filename="r.csv", content=content, mode=mode)
+    assert [row for row, _, _ in outcome.result.errors] == [2]
+    (_, field_name, message) = outcome.result.errors[0]
+    assert field_name == "taken_at" and "stored already with 3.9 µF, this row gives 4 µF" in message
+    if mode == ImportJob.Mode.ALL_OR_NOTHING:
+        assert outcome.refused.startswith("1 row has problems, so nothing was imported")
+        assert list(Reading.objects.values_list("id", flat=True)) == [saved["reading"].id]
+    else:
+        assert (outcome.refused, outcome.imported, Reading.objects.count()) == ("", 2, 3)
+        assert Reading.objects.filter(pk=saved["reading"].id, capacitance_uf=3.9).exists()
+
+
+def test_a_reading_typed_on_the_form_after_the_import_of_it_is_refused_naming_the_imported_one():
+    """The other order: the import first, then the same reading on the form. [derived] the form refuses it at
+    taken_at, naming the stored reading; nothing is saved twice and nothing typed vanishes unsaid."""
+    from zoneinfo import ZoneInfo
+
+    from django.core.exceptions import ValidationError
+
+    from fleet.services.readings import record_reading
+
+    fleet_of(1)
+    import_file(
+        kind="readings", filename="r.csv", content=csv_of(good_rows(["IMP-0000"], 1)), mode=ImportJob.Mode.GOOD_ROWS
+    )
+    (imported,) = Reading.objects.all()
+    capacitor = imported.fitted_capacitor
+    taken_at = dt.datetime(2021, 6, 1, 9, 0, tzinfo=ZoneInfo(capacitor.motor.site.time_zone))
+    with pytest.raises(ValidationError) as refused:
+        record_reading(
+            fitted_capacitor=capacitor,
+            values={"method": "meter", "capacitance_uf": "4.0", "taken_at": taken_at},
+            user=make_user("technician"),
+        )
+    assert f"has a reading at this time already, reading {imported.id} of" in refused.value.message_dict["taken_at"][0]
+    assert Reading.objects.count() == 1

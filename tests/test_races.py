@@ -488,6 +488,49 @@ def test_a_stock_count_another_planner_raised_meanwhile_is_not_put_down_to_a_rep
     assert stock.quantity == 11 and SiteStock.objects.filter(site=site).count() == 1
 
 
+def test_the_same_place_or_count_typed_by_two_planners_meanwhile_is_no_conflict(capacitor):
+    """Two planners on one route page, and on one stock page: the first saves a motor's place (a part's count),
+    the second, from the page as loaded, types the same. Before: the second was refused ("moved ... while this
+    page was open"), the one save of the admin's rule (`shown_values.moved_meanwhile`: the same value typed by
+    both is no conflict) not applied there. [derived] the second save goes through, writing nothing more; a
+    different value typed over a moved one is still refused at its motor (part)."""
+    from fleet.models import AuditEntry, SiteStock
+
+    site, motor, part = capacitor.motor.site, capacitor.motor, capacitor.part
+    stock = stock_of(capacitor, 1)
+    first, second = Client(), Client()
+    first.force_login(make_user("planner"))
+    second.force_login(make_user("planner"))
+    route = f"/sites/{site.code}/route/"
+
+    def route_form(client):
+        page = client.get(route).content.decode()
+        return dict(re.findall(r'<input[^>]*name="((?:order|was)-\d+)"[^>]*value="(\d*)"', page))
+
+    route_first, route_second = route_form(first), route_form(second)
+    stock_first, stock_second = stock_form(first, site), stock_form(second, site)
+    assert first.post(route, {**route_first, f"order-{motor.id}": "50"}).status_code == 302
+    assert first.post(f"/sites/{site.code}/stock/", {**stock_first, f"qty-{part.id}": "11"}).status_code == 302
+    audited = AuditEntry.objects.count()
+
+    assert second.post(route, {**route_second, f"order-{motor.id}": "50"}).status_code == 302
+    assert second.post(f"/sites/{site.code}/stock/", {**stock_second, f"qty-{part.id}": "11"}).status_code == 302
+    motor.refresh_from_db(), stock.refresh_from_db()
+    assert (motor.route_order, stock.quantity, SiteStock.objects.filter(site=site).count()) == (50, 11, 1)
+    assert AuditEntry.objects.count() == audited  # nothing written twice
+
+    refused = second.post(route, {**route_second, f"order-{motor.id}": "51"})
+    assert f"{motor.asset_tag}: moved from place {route_second[f'was-{motor.id}']} to 50 while" in (
+        refused.content.decode()
+    )
+    refused = second.post(f"/sites/{site.code}/stock/", {**stock_second, f"qty-{part.id}": "12"})
+    assert f"{part.code}: changed from 1 to 11 while this page was open (someone else saved it)" in (
+        refused.content.decode()
+    )
+    motor.refresh_from_db(), stock.refresh_from_db()
+    assert (motor.route_order, stock.quantity) == (50, 11)
+
+
 @threads_race
 @pytest.mark.parametrize("planner_types", [None, 5])
 @pytest.mark.parametrize("replacement_held_at", ["design_part", "_take_from_stock"])
@@ -801,6 +844,6 @@ def test_two_imports_of_one_file_at_once_save_each_row_once_and_say_so(kind, fil
         4,
     )
     assert second.message == (
-        "4 rows the check found new were already imported when this import ran (another import saved them "
-        "meanwhile): counted as already imported, not saved again; this import saved 0 rows."
+        "4 rows the check found new were already imported when this import ran (another import, the reading form "
+        "or the API saved them meanwhile): counted as already imported, not saved again; this import saved 0 rows."
     )

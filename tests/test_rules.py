@@ -148,7 +148,7 @@ def test_tags_and_codes_outside_the_character_set_are_refused_at_entry():
     row = dict.fromkeys(REGISTER_COLUMNS, "")
     row.update(
         asset_tag="P-12/A",
-        site_code="CST",
+        site="CST",
         application="fan",
         motor_type="permanent_split",
         load_type="fan_law",

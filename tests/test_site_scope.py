@@ -185,7 +185,7 @@ def test_a_limited_user_imports_register_rows_for_their_sites_only(here_and_ther
         for code in ("HERE", "THERE")
     )
     result = check_file(kind="register", filename="register.csv", content=(header + body).encode(), user=user).result
-    assert result.errors == [(3, "site_code", "site THERE, which you do not work at")]
+    assert result.errors == [(3, "site", "site THERE, which you do not work at")]
     assert list(result.good["asset_tag"]) == ["NEW-HERE"]
     theirs = here_and_there["THERE"]
     history = f"asset_tag,role,part_code,fitted_on\n{theirs.motor.asset_tag},run,RUN-8,2019-01-01\n".encode()

@@ -55,12 +55,17 @@ READING_REQUIRED = ("asset_tag", "role", "taken_at")
 OLD_HEADINGS = {
     "confirmed": ("outlier_confirmed",),  # the readings export's until 2026-12-03
     "fitted_capacitor_id": ("installation_id",),  # the exports' before the fitted capacitor's rename
+    "site": ("site_code",),  # the register and days-off imports' until 2026-12-05 (`site` in the API and exports)
 }
 
+SITE_HELP = (
+    "Site code, as in the register, in any case (required); a column headed site_code, as files before 2026-12-05 "
+    "named it, is read as this one"
+)
 
 REGISTER_COLUMNS = {
     "asset_tag": "Motor asset tag, unique (required)",
-    "site_code": "Site code, as in the register, in any case (required)",
+    "site": SITE_HELP,
     "location": "Where the motor is",
     "application": "fan, pump, compressor, conveyor or other (required)",
     "motor_type": "capacitor_start, permanent_split or two_value (required)",
@@ -81,7 +86,7 @@ REGISTER_COLUMNS = {
 }
 REGISTER_REQUIRED = (
     "asset_tag",
-    "site_code",
+    "site",
     "application",
     "motor_type",
     "load_type",
@@ -479,11 +484,11 @@ HISTORY_COLUMNS = {
 }
 HISTORY_REQUIRED = ("asset_tag", "role", "part_code", "fitted_on")
 DAY_OFF_COLUMNS = {
-    "site_code": "Site code, as in the register, in any case (required)",
+    "site": SITE_HELP,
     "day": "The day off, ISO 8601, e.g. 2027-03-29: today or later, within the plan's two years (required)",
     "name": "What the day is: a public holiday's name, shutdown, ..., up to 80 characters (required)",
 }
-DAY_OFF_REQUIRED = ("site_code", "day", "name")
+DAY_OFF_REQUIRED = ("site", "day", "name")
 OPEN_END = pd.Timestamp("2200-01-01")  # the end of a capacitor still in service, for overlap tests
 
 

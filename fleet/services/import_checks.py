@@ -83,7 +83,7 @@ MOTOR_NUMBERS = ["rated_voltage_v", "frequency_hz", "poles", "rated_speed_rpm", 
 
 
 def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
-    """Rows for a motor (by `asset_tag`) or a site (by `site_code`) outside the sites `user` works at.
+    """Rows for a motor (by `asset_tag`) or a site (by `site`) outside the sites `user` works at.
 
     A user limited to some sites imports only there; `user=None` (a command) and unlimited users
     are never refused here.
@@ -92,10 +92,10 @@ def outside_sites(frame: pd.DataFrame, user, column: str) -> _Problems:
     if not column or user is None or visible_site_ids(user) is None:
         return problems
     mine = set(scope_to_user(Site.objects.all(), user).values_list("code", flat=True))
-    if column == "site_code":
-        codes = frame["site_code"]
+    if column == "site":
+        codes = frame["site"]
         messages = codes.map("site {}, which you do not work at".format).to_numpy(dtype=object)
-        problems.add(codes.ne("") & ~codes.str.upper().isin({code.upper() for code in mine}), "site_code", messages)
+        problems.add(codes.ne("") & ~codes.str.upper().isin({code.upper() for code in mine}), "site", messages)
         return problems
     tags = frame[column].str.upper()
     wanted = sorted(t for t in set(tags) - {""} if "\x00" not in t)
@@ -137,7 +137,12 @@ def _fitted_of_tags(tags: np.ndarray) -> pd.DataFrame:
     """Every capacitor ever fitted to the motors named (upper-case tags), one query; `position_id` names
     its motor position (motor and role) by the position's first capacitor's id, so that a reading has one
     key for its position whichever of its capacitors holds it."""
-    rows = FittedCapacitor.objects.filter(motor__asset_tag__any_of=tags).values_list(*FITTED_COLUMNS)
+    return _fitted_where(motor__asset_tag__any_of=tags)
+
+
+def _fitted_where(**lookup) -> pd.DataFrame:
+    """Every capacitor ever fitted to the motors `lookup` selects, as `_fitted_of_tags` gives them."""
+    rows = FittedCapacitor.objects.filter(**lookup).values_list(*FITTED_COLUMNS)
     fitted = pd.DataFrame.from_records(list(rows), columns=list(FITTED_COLUMNS.values()))
     fitted["tag"] = fitted["tag"].astype(str).str.upper()
     fitted["role"] = fitted["role"].astype(str)
@@ -375,6 +380,34 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             for row, first in zip(later["row"], first_row.reindex(later["position_key"]).to_numpy(), strict=True)
         ]
         good = good[~repeated].reset_index(drop=True)
+    good, against_stored, duplicates = _against_stored(good, fitted)
+    errors += against_stored
+    # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
+    # never two readings (a reading and its correction, exported and imported again, are both stored already).
+    moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
+    clash = moment.duplicated(keep="first").to_numpy()
+    if clash.any():
+        first = good[~clash].set_index(["fitted_capacitor_id", "taken_at", "method"])[["row", "capacitance_uf"]]
+        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
+        errors += [
+            (
+                int(row),
+                "taken_at",
+                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
+                "the two rows",
+            )
+            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
+        ]
+        good = good[~clash].reset_index(drop=True)
+    errors.sort()
+    return CheckResult(good=good, errors=errors, duplicates=duplicates, total=len(frame))
+
+
+def _against_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[pd.DataFrame, list[tuple], int]:
+    """The good rows held to the readings stored (`_already_stored`): (the rows still new, the problems of rows
+    that a stored reading makes wrong, how many rows are stored already). The check's rule, and the import's
+    again under its capacitors' locks (`readings_stored_meanwhile`)."""
+    errors = []
     stored, stored_uf, stored_fields = _already_stored(good, fitted)
     # The same reading stored already, but the file gives another condition, note or measurement: edited since.
     changed = _edited_fields(good, stored_fields, stored)
@@ -401,25 +434,23 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         ]
     if stored.any() or edited.any():
         good = good[~stored & ~edited].reset_index(drop=True)
-    # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
-    # never two readings (a reading and its correction, exported and imported again, are both stored already).
-    moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
-    clash = moment.duplicated(keep="first").to_numpy()
-    if clash.any():
-        first = good[~clash].set_index(["fitted_capacitor_id", "taken_at", "method"])[["row", "capacitance_uf"]]
-        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
-        errors += [
-            (
-                int(row),
-                "taken_at",
-                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
-                "the two rows",
-            )
-            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
-        ]
-        good = good[~clash].reset_index(drop=True)
-    errors.sort()
-    return CheckResult(good=good, errors=errors, duplicates=int(stored.sum()), total=len(frame))
+    return good, errors, int(stored.sum())
+
+
+def readings_stored_meanwhile(good: pd.DataFrame) -> CheckResult:
+    """The good rows of a readings import checked again, inside the import's transaction, against what the
+    reading form and the API stored since the check. Two imports take turns, but a reading typed on the form
+    meanwhile was saved beside the imported one: the same reading twice in the trend. The rows' capacitors are
+    locked first (in id order), as the form locks the capacitor it saves a reading of, so whichever of the two
+    comes second finds the other: the form refuses its reading naming the stored one, the import counts such a
+    row already imported (another value at that time: refused by row, as the check refuses it)."""
+    if not len(good):
+        return CheckResult(good=good, total=0)
+    ids = np.unique(good["fitted_capacitor_id"].to_numpy(np.int64))
+    locked = FittedCapacitor.objects.select_for_update().filter(id__any_of=ids).order_by("id")
+    motor_ids = np.unique(np.fromiter(locked.values_list("motor_id", flat=True), np.int64))
+    still_new, errors, duplicates = _against_stored(good, _fitted_where(motor_id__any_of=motor_ids))
+    return CheckResult(good=still_new, errors=sorted(errors), duplicates=duplicates, total=len(good))
 
 
 @dataclass(frozen=True)
@@ -765,7 +796,7 @@ def site_ids_in_any_case(codes: pd.Series) -> pd.Series:
 def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     """Validate a motor register: sites (by code in any case) and parts must exist; tags already there are
     skipped."""
-    site_id = site_ids_in_any_case(frame["site_code"])
+    site_id = site_ids_in_any_case(frame["site"])
     parts = dict(CapacitorPart.objects.values_list("code", "id"))
     existing = {t.upper() for t in Motor.objects.values_list("asset_tag", flat=True)}
     problems = _Problems(frame)
@@ -782,8 +813,8 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     numbers = _numbers(frame, REGISTER_NUMBERS, problems)
     problems.add(
         site_id.isna().to_numpy(),
-        "site_code",
-        _unknown("site code", frame["site_code"], "add the site first"),
+        "site",
+        _unknown("site code", frame["site"], "add the site first"),
         of_cell=True,
     )
     for name, allowed in (
@@ -875,32 +906,32 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 # A register row's motor fields, compared with the motor stored under its tag (its capacitors are not: a part
 # replaced since differs from the file's by right).
-MOTOR_COMPARED = ["site_code", "location", "application", "motor_type", "load_type", *MOTOR_NUMBERS, "commissioned_on"]
+MOTOR_COMPARED = ["site", "location", "application", "motor_type", "load_type", *MOTOR_NUMBERS, "commissioned_on"]
 
 
 def _refuse_changed_motors(problems: _Problems, already: np.ndarray, frame: pd.DataFrame, tags: pd.Series, numbers):
     """A motor stored already that the file describes otherwise (`refuse_changed`)."""
     if not already.any():
         return
-    fields = [name for name in MOTOR_COMPARED if name != "site_code"]
+    fields = [name for name in MOTOR_COMPARED if name != "site"]
     stored = pd.DataFrame.from_records(
         list(
             Motor.objects.filter(asset_tag__any_of=np.array(sorted(set(tags[already])), dtype=object)).values_list(
                 "asset_tag", "site__code", *fields
             )
         ),
-        columns=["asset_tag", "site_code", *fields],
+        columns=["asset_tag", "site", *fields],
     )
     held = stored.set_index(stored["asset_tag"].str.upper()).reindex(tags.to_numpy())[MOTOR_COMPARED]
     given = frame.reindex(columns=MOTOR_COMPARED).assign(
         **{name: numbers[name] for name in MOTOR_NUMBERS if name in numbers},
-        site_code=frame["site_code"].str.upper(),
+        site=frame["site"].str.upper(),
         application=frame["application"].str.lower(),
         motor_type=frame["motor_type"].str.lower(),
         load_type=frame["load_type"].str.lower(),
         commissioned_on=parse_dates(frame["commissioned_on"]) if "commissioned_on" in frame else None,
     )
-    held = held.assign(site_code=held["site_code"].str.upper())
+    held = held.assign(site=held["site"].str.upper())
     refuse_changed(problems, already, given.reset_index(drop=True), held.reset_index(drop=True), "motor")
 
 
@@ -981,11 +1012,11 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems = _Problems(frame)
     for name in DAY_OFF_REQUIRED:
         problems.add(frame[name].str.strip().eq(""), name, "required", of_cell=True)
-    site_id = site_ids_in_any_case(frame["site_code"])
+    site_id = site_ids_in_any_case(frame["site"])
     problems.add(
         site_id.isna().to_numpy(),
-        "site_code",
-        _unknown("site code", frame["site_code"], "add the site first"),
+        "site",
+        _unknown("site code", frame["site"], "add the site first"),
         of_cell=True,
     )
     day = parse_dates(frame["day"])
@@ -1006,7 +1037,7 @@ def check_days_off(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 
 def insert_days_off(good: pd.DataFrame) -> int:
-    site_ids = site_ids_in_any_case(good["site_code"]).astype("int64").tolist()
+    site_ids = site_ids_in_any_case(good["site"]).astype("int64").tolist()
     SiteDayOff.objects.bulk_create(
         [
             SiteDayOff(site_id=site, day=dt.date.fromisoformat(row.day[:10]), name=row.name.strip())

@@ -10,15 +10,20 @@ from __future__ import annotations
 
 import contextlib
 import datetime as dt
+import fcntl
 import functools
+import hashlib
 import logging
+import os
+import tempfile
 from collections import defaultdict
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from pathlib import Path
 
 from django.conf import settings
 from django.core.exceptions import NON_FIELD_ERRORS, ValidationError
-from django.db import DatabaseError, connection, transaction
+from django.db import DatabaseError, OperationalError, connection, transaction
 from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
@@ -53,8 +58,11 @@ class Kind:
     check: Callable
     write: Callable  # (good rows, user) -> [FollowUp], inside the import's transaction
     max_lengths: dict[str, int]
-    site_column: str = ""  # names a row's motor (asset_tag) or site (site_code): a limited user imports there only
+    site_column: str = ""  # names a row's motor (asset_tag) or site (site): a limited user imports there only
     visits_on: Callable | None = None  # (good rows, user) -> the open visits on the days they make days off
+    # (good rows) -> CheckResult of them held again to what other writers stored since the check, inside the
+    # import's transaction, before the write (readings: the form's and the API's, `readings_stored_meanwhile`)
+    stored_meanwhile: Callable | None = None
 
 
 def _max_lengths(model, fields: dict[str, str]) -> dict[str, int]:
@@ -106,7 +114,7 @@ def _visits_on_days_off(good, user) -> list[dict]:
     """The open visits on the days off of a file's good rows (`workorders.open_visits_on`, the days-off
     page's rule): the import reports them, for the planner to move."""
     days = [dt.date.fromisoformat(day[:10]) for day in good["day"]]
-    site_ids = import_checks.site_ids_in_any_case(good["site_code"])  # the check found each, in any case
+    site_ids = import_checks.site_ids_in_any_case(good["site"])  # the check found each, in any case
     return open_visits_on(zip(site_ids, days, strict=True), user=user)
 
 
@@ -138,7 +146,7 @@ KINDS = {
         import_checks.check_register,
         _write_register,
         _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location"}),
-        "site_code",
+        "site",
     ),
     ImportJob.Kind.HISTORY: Kind(
         columns.HISTORY_COLUMNS,
@@ -154,7 +162,7 @@ KINDS = {
         import_checks.check_days_off,
         _write_days_off,
         _max_lengths(SiteDayOff, {"name": "name"}),
-        "site_code",
+        "site",
         _visits_on_days_off,
     ),
     ImportJob.Kind.READINGS: Kind(
@@ -164,6 +172,7 @@ KINDS = {
         _write_readings,
         {},
         "asset_tag",
+        stored_meanwhile=import_checks.readings_stored_meanwhile,
     ),
 }
 
@@ -280,29 +289,39 @@ def import_file(
     An import (not a dry run) is checked and written while no other import of its kind is
     (`one_import_at_a_time`; `on_waiting()` is called if it has to wait for one).
     """
-    with contextlib.nullcontext(False) if dry_run else one_import_at_a_time(kind, on_waiting) as in_a_transaction:
+    with contextlib.nullcontext() if dry_run else one_import_at_a_time(kind, on_waiting):
         outcome = check_file(
             kind=kind, filename=filename, content=content, mapping=mapping, on_progress=on_progress, user=user
         )
         result = outcome.result
-        if result.errors and mode == ImportJob.Mode.ALL_OR_NOTHING:
-            outcome.refused = (
-                f"{result.error_rows} row{pluralize(result.error_rows)} {pluralize(result.error_rows, 'has,have')} "
-                "problems, so nothing was imported (all or nothing)."
-            )
+        if _refused_whole(outcome, mode) or dry_run:
             return outcome
-        if dry_run:
-            return outcome
-        # In the lock's own transaction (SQLite) the write is no savepoint: 50,000 readings inserted in one
-        # after the check had written the job's row took eight times as long.
-        with transaction.atomic(savepoint=not in_a_transaction):
+        with transaction.atomic():
+            spec = KINDS[kind]
+            if spec.stored_meanwhile and len(result.good):
+                meanwhile = spec.stored_meanwhile(result.good)
+                result.good, result.duplicates = meanwhile.good, result.duplicates + meanwhile.duplicates
+                result.errors = sorted(result.errors + meanwhile.errors)
+                if _refused_whole(outcome, mode):
+                    return outcome
             if len(result.good):
-                for follow_up in KINDS[kind].write(result.good, user if user and user.is_authenticated else None):
+                for follow_up in spec.write(result.good, user if user and user.is_authenticated else None):
                     transaction.on_commit(functools.partial(_follow, follow_up, outcome))
             outcome.imported = len(result.good)
             if on_written:
                 on_written(outcome)
     return outcome
+
+
+def _refused_whole(outcome: Outcome, mode: str) -> bool:
+    """All or nothing: any bad row refuses the whole file, said on `outcome.refused`. Whether it did."""
+    rows = outcome.result.error_rows
+    if not rows or mode != ImportJob.Mode.ALL_OR_NOTHING:
+        return False
+    outcome.refused = (
+        f"{rows} row{pluralize(rows)} {pluralize(rows, 'has,have')} problems, so nothing was imported (all or nothing)."
+    )
+    return True
 
 
 @contextlib.contextmanager
@@ -312,14 +331,42 @@ def one_import_at_a_time(kind: str, on_waiting=None):
     second saved nothing (the readings' key) or saved past capacitors twice (history), and reported its rows
     imported. Waiting here, the second's check finds the first's rows already imported and says so.
 
-    PostgreSQL: a session advisory lock on the kind, so the check's progress, written as it goes, stays in
-    sight of the page; `on_waiting()` is called before waiting for it. SQLite: the check inside the write's
-    own transaction, which SQLite gives one writer at a time (BEGIN IMMEDIATE). Yields whether it holds a
-    transaction open."""
-    if connection.vendor != "postgresql":
-        with transaction.atomic():
-            yield True
+    A lock of the kind held outside any transaction, so the check's progress, written as it goes, stays in
+    sight of the page and `on_waiting()` can say, before waiting, that this import waits its turn: on
+    PostgreSQL a session advisory lock; on SQLite a file lock beside the database (`_sqlite_lock_path`).
+    SQLite's own one-writer transaction held from the check on made every other write wait for the whole
+    import, and after its busy timeout (10 s) the second import failed on "database is locked"."""
+    if connection.vendor == "postgresql":
+        with _advisory_lock(kind, on_waiting):
+            yield
         return
+    with open(_sqlite_lock_path(kind), "a+b") as lock_file:
+        try:
+            fcntl.flock(lock_file, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            if on_waiting:
+                on_waiting()
+            fcntl.flock(lock_file, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(lock_file, fcntl.LOCK_UN)
+
+
+def _sqlite_lock_path(kind: str) -> Path:
+    """The file whose lock holds the imports of `kind` on SQLite: beside the database file (every process that
+    opens it sees the same); for an in-memory database (the tests'), one of this process's own in the
+    temporary directory, as no other process can open that database."""
+    name = str(connection.settings_dict["NAME"])
+    if not connection.is_in_memory_db():
+        return Path(f"{name}-import-{kind}.lock")
+    digest = hashlib.sha256(name.encode()).hexdigest()[:12]
+    return Path(tempfile.gettempdir()) / f"fleet-import-{os.getpid()}-{digest}-{kind}.lock"
+
+
+@contextlib.contextmanager
+def _advisory_lock(kind: str, on_waiting=None):
+    """PostgreSQL's session advisory lock on the kind; `on_waiting()` is called before waiting for it."""
     key = f"fleet import {kind}"
     with connection.cursor() as cursor:
         cursor.execute("SELECT pg_try_advisory_lock(hashtext(%s))", [key])
@@ -328,7 +375,7 @@ def one_import_at_a_time(kind: str, on_waiting=None):
                 on_waiting()
             cursor.execute("SELECT pg_advisory_lock(hashtext(%s))", [key])
     try:
-        yield False
+        yield
     finally:
         try:
             with connection.cursor() as cursor:
@@ -542,7 +589,26 @@ def _guarded(step: Callable[[ImportJob], None]) -> Callable[[int], ImportJob | N
     return functools.wraps(step)(run)
 
 
+def database_busy(error: Exception) -> bool:
+    """Whether `error` is SQLite's "database is locked": another connection held its one write lock for longer
+    than the busy timeout (a backup reading, a large write)."""
+    return isinstance(error, OperationalError) and "database is locked" in str(error)
+
+
+def busy_words(what: str) -> str:
+    """What an import says when SQLite's write lock stayed taken past the busy timeout: nothing saved, try again."""
+    seconds = settings.SQLITE_BUSY_TIMEOUT_MS // 1000
+    return (
+        f"The database stayed busy with another write (a backup, or another large save) for longer than {seconds} s, "
+        f"so {what} gave up. Nothing was imported. Import again once that write is done: the rows already in are "
+        "skipped."
+    )
+
+
 def _mark_failed(job_id: int, error: Exception) -> None:
+    if database_busy(error):
+        _update(job_id, state=ImportJob.State.FAILED, message=busy_words("the import"))
+        return
     lost = isinstance(error, DatabaseError)
     cause = "the database connection was lost or refused a write" if lost else "an unexpected error"
     message = (
@@ -598,7 +664,7 @@ def _run(job: ImportJob, mode: str) -> None:
         user=job.created_by,
         on_progress=_progress(job.pk),
         on_written=record,
-        on_waiting=lambda: _update(job.pk, message=waiting_words(job.kind)),
+        on_waiting=lambda: _say_waiting(job),
     )
     if outcome.refused:
         _update(job.pk, state=ImportJob.State.REFUSED, imported_rows=0, message=outcome.refused, **_summary(outcome))
@@ -609,6 +675,17 @@ def _run(job: ImportJob, mode: str) -> None:
         )
 
 
+def _say_waiting(job: ImportJob) -> None:
+    """Put `waiting_words` on the job's page. On SQLite a write can itself wait on the other import's write past
+    the busy timeout: the words are then left unsaid, and the import waits its turn all the same."""
+    try:
+        _update(job.pk, message=waiting_words(job.kind))
+    except OperationalError as error:
+        if not database_busy(error):
+            raise
+        log.info("import job %s waits for another import of %s; the database was too busy to say so", job.pk, job.kind)
+
+
 def waiting_words(kind: str) -> str:
     """What an import says while another import of its kind runs (`one_import_at_a_time`)."""
     what = ImportJob.Kind(kind).label.lower()
@@ -617,13 +694,15 @@ def waiting_words(kind: str) -> str:
 
 def imported_meanwhile_words(already_at_check: int, outcome: Outcome) -> str:
     """The rows the dry run found new that were in by the time the import ran (another import saved them
-    meanwhile, or this one waited for it): counted as already imported and not saved again ("" when none)."""
+    meanwhile, or this one waited for it; or the reading form or the API saved the same reading): counted as
+    already imported and not saved again ("" when none)."""
     meanwhile = outcome.result.duplicates - already_at_check
     if meanwhile <= 0:
         return ""
     return (
         f"{meanwhile} row{pluralize(meanwhile)} the check found new {pluralize(meanwhile, 'was,were')} already "
-        f"imported when this import ran (another import saved {pluralize(meanwhile, 'it,them')} meanwhile): "
+        f"imported when this import ran (another import, the reading form or the API saved "
+        f"{pluralize(meanwhile, 'it,them')} meanwhile): "
         f"counted as already imported, not saved again; this import saved {outcome.imported} "
         f"row{pluralize(outcome.imported)}."
     )

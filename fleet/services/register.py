@@ -15,6 +15,7 @@ from fleet.imports.columns import shown as quoted_start
 from fleet.models import CapacitorPart, Motor, Site, SiteStock
 
 from .bulk import storable_ids
+from .shown_values import moved_rows
 
 # How many places a saved walking order names as shared, and how many other motors at each.
 SHARED_PLACES_NAMED = 5
@@ -95,16 +96,19 @@ def set_route_order(*, site: Site, positions: dict[int, str], shown: dict[int, s
         # In id order, as a refit share-locks them (`assessments._capacitor_facts_locked`).
         locked = Motor.objects.select_for_update().filter(id__in=list(motors)).order_by("id")
         now = dict(locked.values_list("id", "route_order"))
-        moved_meanwhile = {
-            motors[i].asset_tag: (
-                f"moved from place {as_shown[i]} to {now[i]} while this page was open (another save of the walking "
-                "order); check it and save again."
+        typed = {i: motor.route_order for i, motor in motors.items() if i in now}
+        moved = moved_rows(as_shown, now, typed)
+        if moved:
+            raise ValidationError(
+                {
+                    motors[i].asset_tag: (
+                        f"moved from place {as_shown[i]} to {now[i]} while this page was open (another save of the "
+                        "walking order); check it and save again."
+                    )
+                    for i in moved
+                }
             )
-            for i in motors
-            if as_shown.get(i) is not None and i in now and now[i] != as_shown[i]
-        }
-        if moved_meanwhile:
-            raise ValidationError(moved_meanwhile)
+        motors = {i: motor for i, motor in motors.items() if now.get(i) != motor.route_order}  # typed as it is now
         audited_bulk_update(list(motors.values()), ["route_order"])
         moved = [motor for motor_id, motor in motors.items() if motor.route_order != before[motor_id]]
         shared = _shared_places(site, moved)
@@ -176,17 +180,19 @@ def set_site_stock(*, site: Site, quantities: dict[int, str], shown: dict[int, s
         # replacement takes its part with the stock row locked: the quantities compared here are final.
         list(Site.objects.select_for_update().filter(pk=site.pk).values_list("pk", flat=True))
         rows = {row.part_id: row for row in SiteStock.objects.select_for_update().filter(site=site, part__in=values)}
-        moved = {}
-        for part_id in values:
-            now = rows[part_id].quantity if part_id in rows else 0
-            if before.get(part_id, -1) >= 0 and before[part_id] != now:
-                # A replacement only takes one: a count that rose was another person's save.
-                why = "someone else saved it" + (", or a replacement took one" if now < before[part_id] else "")
-                moved[parts[part_id].code] = (
-                    f"changed from {before[part_id]} to {now} while this page was open ({why}); count again and save."
-                )
+        now = {part_id: rows[part_id].quantity if part_id in rows else 0 for part_id in values}
+        moved = moved_rows({i: count for i, count in before.items() if count >= 0}, now, values)
         if moved:
-            raise ValidationError(moved)
+            # A replacement only takes one: a count that rose was another person's save.
+            raise ValidationError(
+                {
+                    parts[i].code: (
+                        f"changed from {before[i]} to {now[i]} while this page was open (someone else saved it"
+                        f"{', or a replacement took one' if now[i] < before[i] else ''}); count again and save."
+                    )
+                    for i in moved
+                }
+            )
         changed = [row for part_id, row in rows.items() if row.quantity != values[part_id]]
         for row in changed:
             row.quantity = values[row.part_id]

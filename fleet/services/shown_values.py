@@ -1,8 +1,9 @@
 """A record's values as an edit form showed them, checked against the record as stored at the save.
 
-The stock and route pages send back each value they showed (`was-<id>`, `set_site_stock`, `set_route_order`);
-an edit form of one whole record (the admin's change forms) sends back its fields as shown in one hidden box,
-`shown_values`: the JSON of `stored_values` when the form was built. At the save the record is read again
+The stock and route pages send back each value they showed (`was-<id>`, `set_site_stock`, `set_route_order`),
+each row judged alone by the same rule (`moved_rows`); an edit form of one whole record (the admin's change forms)
+sends back its fields as shown in one hidden box, `shown_values`: the JSON of `stored_values` when the form was
+built. At the save the record is read again
 under a row lock (`locked_now`, inside the save's transaction, so a second save waits for the first and then
 sees it) and `moved_meanwhile` names each field another save changed since, unless this one sends what is
 stored now. The form then refuses the save, saying what each field is now and was (`moved_words`).
@@ -79,6 +80,15 @@ def moved_meanwhile(shown_values: dict, now: dict, sent: dict) -> list[str]:
     saw could be a record nobody meant."""
     unknown = object()  # a field the form could not read: its box kept as typed
     return [name for name in now if shown_values.get(name) != now[name] and sent.get(name, unknown) != now[name]]
+
+
+def moved_rows(shown: dict, now: dict, sent: dict) -> list:
+    """The rows of a list of one field each (the stock page's quantities, the route page's places, by row id)
+    that `moved_meanwhile` finds moved: each row is a record of its own, judged alone, and a row is judged only
+    where the page showed a value that can be read (`shown`) and this save sends one (`sent`). A row left as
+    shown is not the caller's to send: it writes only the rows typed over."""
+    judged = [i for i in sent if shown.get(i) is not None and i in now]
+    return moved_meanwhile({i: shown[i] for i in judged}, {i: now[i] for i in judged}, {i: sent[i] for i in judged})
 
 
 def value_words(field: models.Field, value) -> str:

@@ -167,7 +167,7 @@ def register_file(site: Site, motors: int, designs: list[dict], seed: int = 13) 
     fitted_on = (timezone.localdate() - dt.timedelta(days=400)).isoformat()
     out = io.StringIO()
     out.write(
-        "asset_tag,site_code,location,application,motor_type,load_type,rated_voltage_v,frequency_hz,poles,"
+        "asset_tag,site,location,application,motor_type,load_type,rated_voltage_v,frequency_hz,poles,"
         "output_w,full_load_current_a,rated_speed_rpm,commissioned_on,run_part_code,start_part_code,fitted_on\n"
     )
     for n in range(motors):

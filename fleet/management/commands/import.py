@@ -3,12 +3,13 @@
 from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
+from django.db import OperationalError
 from django.template.defaultfilters import pluralize
 from django.urls import reverse
 
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
-from fleet.services.import_jobs import KINDS, import_file, waiting_words
+from fleet.services.import_jobs import KINDS, busy_words, database_busy, import_file, waiting_words
 
 
 class Command(BaseCommand):
@@ -45,6 +46,10 @@ class Command(BaseCommand):
             )
         except FileRefused as error:
             raise CommandError(f"{file}: refused. {error}") from error
+        except OperationalError as error:
+            if not database_busy(error):
+                raise
+            raise CommandError(f"{file}: {busy_words('the command')}") from error
         result = outcome.result
         self.stdout.write(
             f"{file}: {result.total} row{pluralize(result.total)}: {len(result.good)} good, "
