@@ -76,6 +76,7 @@ from fleet.models import (
 )
 from fleet.roles import scope_to_user, visible_site_ids
 from fleet.services.bulk import insert_frame
+from fleet.services.readings import hold_reading_saves
 
 READING_NUMBERS = list(Reading.MEASURED_FIELDS)
 # The register's numbers in the order `rules.motor_problems` takes them.
@@ -406,7 +407,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
 def _against_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[pd.DataFrame, list[tuple], int]:
     """The good rows held to the readings stored (`_already_stored`): (the rows still new, the problems of rows
     that a stored reading makes wrong, how many rows are stored already). The check's rule, and the import's
-    again under its capacitors' locks (`readings_stored_meanwhile`)."""
+    again inside its write (`readings_stored_meanwhile`)."""
     errors = []
     stored, stored_uf, stored_fields = _already_stored(good, fitted)
     # The same reading stored already, but the file gives another condition, note or measurement: edited since.
@@ -440,15 +441,17 @@ def _against_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[pd.DataFr
 def readings_stored_meanwhile(good: pd.DataFrame) -> CheckResult:
     """The good rows of a readings import checked again, inside the import's transaction, against what the
     reading form and the API stored since the check. Two imports take turns, but a reading typed on the form
-    meanwhile was saved beside the imported one: the same reading twice in the trend. The rows' capacitors are
-    locked first (in id order), as the form locks the capacitor it saves a reading of, so whichever of the two
-    comes second finds the other: the form refuses its reading naming the stored one, the import counts such a
-    row already imported (another value at that time: refused by row, as the check refuses it)."""
+    meanwhile was saved beside the imported one: the same reading twice in the trend. Single saves are held off
+    first (`readings.hold_reading_saves`), so whichever of the two comes second finds the other: the form refuses
+    its reading naming the stored one, the import counts such a row already imported (another value at that
+    time: refused by row, as the check refuses it)."""
     if not len(good):
         return CheckResult(good=good, total=0)
+    hold_reading_saves(bulk=True)
     ids = np.unique(good["fitted_capacitor_id"].to_numpy(np.int64))
-    locked = FittedCapacitor.objects.select_for_update().filter(id__any_of=ids).order_by("id")
-    motor_ids = np.unique(np.fromiter(locked.values_list("motor_id", flat=True), np.int64))
+    motor_ids = np.unique(
+        np.fromiter(FittedCapacitor.objects.filter(id__any_of=ids).values_list("motor_id", flat=True), np.int64)
+    )
     still_new, errors, duplicates = _against_stored(good, _fitted_where(motor_id__any_of=motor_ids))
     return CheckResult(good=still_new, errors=sorted(errors), duplicates=duplicates, total=len(good))
 

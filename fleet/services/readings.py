@@ -9,7 +9,7 @@ import logging
 import numpy as np
 from django.conf import settings
 from django.core.exceptions import ValidationError
-from django.db import IntegrityError, transaction
+from django.db import IntegrityError, connection, transaction
 from django.urls import reverse
 from django.utils import timezone
 
@@ -328,7 +328,8 @@ def record_reading(
         with transaction.atomic():
             # Readings of one capacitor are saved one at a time (its row locked on PostgreSQL), the time checked
             # again inside: a bad-input hunt saved seven identical readings sent at once, each checked before
-            # any was saved.
+            # any was saved. An import's write goes first or after, never between (`hold_reading_saves`).
+            hold_reading_saves(bulk=False)
             list(FittedCapacitor.objects.select_for_update().filter(pk=fitted_capacitor.pk).values_list("pk"))
             if values.get("taken_at"):
                 clash = _second_reading_at_one_time(
@@ -359,6 +360,24 @@ def record_reading(
         raise
     reading.replayed = False
     return reading
+
+
+READING_SAVES_LOCK = "fleet readings saved"
+
+
+def hold_reading_saves(*, bulk: bool) -> None:
+    """Inside a transaction on PostgreSQL: an import's write of readings (`bulk=True`) waits for the single saves
+    under way (the form's, the API's) and holds off new ones until it commits; single saves run side by side. Each
+    checks again under it what the other may have stored (`record_reading`'s same-time check, the import's
+    `import_checks.readings_stored_meanwhile`), so the second of the two finds the first: a reading typed while its
+    import runs is stored once. Taken before any row lock, so neither waits on the other in a cycle (an import
+    locking its capacitors' rows before its trigger writes their motors did, against a refit that locks the motors
+    first). SQLite needs none: a write transaction there is one at a time from its start (BEGIN IMMEDIATE)."""
+    if connection.vendor != "postgresql":
+        return
+    function = "pg_advisory_xact_lock" if bulk else "pg_advisory_xact_lock_shared"
+    with connection.cursor() as cursor:
+        cursor.execute(f"SELECT {function}(hashtext(%s))", [READING_SAVES_LOCK])
 
 
 class _TakenMeanwhile(ValidationError):
