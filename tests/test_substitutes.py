@@ -6,9 +6,11 @@ the model's [derived]; the rules' sources sit in fleet/engineering/substitutes.p
 """
 
 import datetime as dt
+from types import SimpleNamespace
 
 import pytest
 from django.db.models import Min
+from django.template.defaultfilters import floatformat
 from django.urls import reverse
 from django.utils import timezone
 
@@ -556,3 +558,16 @@ def test_a_cached_advice_is_the_advice_of_its_own_position(fan_fitted_capacitor)
         cached, afresh = substitutes.cached_advice(changed, singles), advise(changed, singles)
         assert (cached.verdict.tolist(), cached.reasons) == (afresh.verdict.tolist(), afresh.reasons)
         assert (cached.verdict.tolist(), cached.reasons) != (fresh.verdict.tolist(), fresh.reasons)
+
+
+def test_the_capacitor_voltage_keeps_the_precision_of_the_other_figures():
+    """[derived] The replacement screen rounds the capacitor voltage to whole volts, as the capacitor page
+    rounds the motor model's own figure: rounded first to a tenth, 421.459 V showed as 422 V there against
+    421 V on the capacitor page. Kept to three decimals like the currents, both pages show 421 V."""
+    names = {field: 1.0 for field in substitutes.FIGURES.values()}
+    figures = SimpleNamespace(**names, v_capacitor_v=421.459, start_capacitor_voltage_v=215.46)
+    run = substitutes._figures(figures, 0, SimpleNamespace(role="run"))
+    start = substitutes._figures(figures, 0, SimpleNamespace(role="start"))
+    assert run["capacitor_voltage_v"] == pytest.approx(421.459, abs=5e-4)
+    assert start["capacitor_voltage_v"] == pytest.approx(215.46, abs=5e-4)
+    assert floatformat(run["capacitor_voltage_v"], 0) == floatformat(421.459, 0) == "421"

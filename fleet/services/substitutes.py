@@ -195,7 +195,7 @@ def _figures(figures, index, position: Position) -> dict:
         return {name: None for name in [*FIGURES, "capacitor_voltage_v"]}
     voltage = figures.v_capacitor_v if position.role == ROLE_RUN else figures.start_capacitor_voltage_v
     values = {name: _number(np.atleast_1d(getattr(figures, field))[index]) for name, field in FIGURES.items()}
-    values["capacitor_voltage_v"] = _number(np.atleast_1d(voltage)[index], 1)
+    values["capacitor_voltage_v"] = _number(np.atleast_1d(voltage)[index])
     return values
 
 

@@ -77,6 +77,20 @@ def test_the_hint_names_a_case_temperature_that_reads_as_fahrenheit(phone, motor
     assert "°F" not in phone.locator("#computed").inner_text()
 
 
+def test_a_case_temperature_out_of_range_is_not_also_asked_to_confirm(phone, motor_with_history):  # noqa: F811
+    """9999 °C: the hint said "above 150 °C" and then "read in °F it would be 5537 °C: you will be asked to
+    confirm", while the server refuses it outright (above the range), as it does a voltage out of range."""
+    from fleet.engineering.rules import range_messages
+
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.95")
+    phone.fill("#id_case_temperature_c", "9999")
+    hint = phone.locator("#computed").inner_text()
+    assert range_messages("case_temperature_c", [9999.0])[0] in hint
+    assert "asked to confirm" not in hint and "°F" not in hint, hint
+
+
 def test_the_hint_says_a_value_far_above_the_tolerance_will_be_asked_to_confirm(phone, motor_with_history):  # noqa: F811
     """As the server: 4.6 uF on a 4 uF +5 % part (4.20 at most, 4.52 with the rulebook's 8 % of rating)."""
     sign_in(phone, make_user("technician"))
