@@ -270,6 +270,20 @@ def test_labels_print_a_sheet_at_a_time(client, planner_who_reads):
     assert first.count("<svg") == LABELS_PAGE_SIZE and motors[-1].asset_tag not in first
     second = client.get(reverse("labels", args=["WEST"]), {"page": 2}).content.decode()
     assert second.count("<svg") == 1 and motors[-1].asset_tag in second
+    # Print prints one sheet: the page says which labels it holds and that the others are on other pages, and the
+    # printed sheet says which sheet of how many it is (a walk printed "the site's labels" and got 24 of 110).
+    total = LABELS_PAGE_SIZE + 1
+    assert f"This page holds labels 1 to {LABELS_PAGE_SIZE} of {total}</b>: Print prints these only" in first
+    assert f"WEST labels, sheet 1 of 2: labels 1 to {LABELS_PAGE_SIZE} of {total}" in first
+    assert f"WEST labels, sheet 2 of 2: labels {total} to {total} of {total}" in second
+
+
+def test_labels_on_one_sheet_say_nothing_of_other_sheets(client, planner_who_reads):
+    site = make_site("NORTH")
+    make_motor(site=site)
+    client.force_login(planner_who_reads)
+    page = client.get(reverse("labels", args=["NORTH"])).content.decode()
+    assert page.count("<svg") == 1 and "This page holds labels" not in page and "labels, sheet" not in page
 
 
 def test_the_work_orders_page_lists_a_visits_first_orders_and_counts_them_all(planner_who_reads):
