@@ -237,6 +237,15 @@ def test_a_stand_in_part_is_counted_against_the_designs_of_its_own_role_only(cli
     assert "of 3" not in compact
 
 
+def test_stand_in_parts_that_suit_as_many_designs_are_listed_by_rating():
+    """A walk found START-143U, START-208U, START-98U: equals were listed by code as text. [derived] among parts
+    suiting as many designs, the smaller rating first, as the stock page lists parts."""
+    for code, rated_uf in (("START-143U", 143.0), ("START-208U", 208.0), ("START-98U", 98.0)):
+        make_part(code=code, rated_uf=rated_uf, dielectric="electrolytic")
+    family = next(family for family in substitutes.part_families() if family["dielectric"] == "electrolytic")
+    assert [part["code"] for part in family["parts"]] == ["START-98U", "START-143U", "START-208U"]
+
+
 def test_a_stop_gap_is_not_a_design_of_its_own(fan_fitted_capacitor):
     """A fresh-eyes walk: after two stop-gaps the stand-in parts page counted a film part against "6" run designs
     where the fleet had four: each part fitted against the advice made a design of its own. [derived] a position's

@@ -359,7 +359,11 @@ def part_families(user=None) -> list[dict]:
         {
             "dielectric": dielectric,
             "role": ROLE_OF_DIELECTRIC.get(dielectric, ""),
-            "parts": rows.sort_values("designs_suited", ascending=False).to_dict("records"),
+            # Most designs suited first; among equals by rating, as the stock page and the dashboard list parts
+            # (by code, START-208U came before START-98U).
+            "parts": rows.sort_values(
+                ["designs_suited", "rated_uf", "code"], ascending=[False, True, True], kind="stable"
+            ).to_dict("records"),
         }
         for dielectric, rows in frame.groupby("dielectric", sort=True)
     ]
