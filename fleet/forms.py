@@ -8,7 +8,7 @@ from django import forms
 from django.conf import settings
 from django.utils import timezone
 
-from fleet.imports.columns import missing_required_words, parse_site_time
+from fleet.imports.columns import clock_change_offsets, missing_required_words, parse_site_time
 
 from .engineering.rules import RULES
 from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
@@ -49,6 +49,9 @@ class ReadingForm(forms.Form):
         # and time it holds are said beside it in words (page.js, the element named by data-day-words).
         widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 1, "data-day-words": "taken-day-words"}),
     )
+    # Shown only for a time the site's clocks repeat or skip (the night they change): which of the two it was.
+    # Checked by `clean_taken_at` (a choice left posted after the time was changed is ignored, never refused).
+    clock_offset = forms.CharField(required=False, max_length=6, widget=forms.RadioSelect, label="Which one")
     method = forms.ChoiceField(
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
     )
@@ -117,6 +120,22 @@ class ReadingForm(forms.Form):
         text = self.cleaned_data["taken_at"].strip()
         if not text:
             return None
+        offsets = clock_change_offsets(text, self.zone.key)
+        if offsets is not None:
+            # The date-and-time box takes no offset: the two the clocks held that night are offered as a choice.
+            before, after = offsets
+            self.fields["clock_offset"].widget.choices = [
+                (before, f"Before the clocks changed (UTC{before})"),
+                (after, f"After the clocks changed (UTC{after})"),
+            ]
+            chosen = str(self.data.get("clock_offset", "")).strip()
+            if chosen in offsets:
+                text += chosen
+            else:
+                raise forms.ValidationError(
+                    f"This local time is skipped or repeated in {self.zone.key} (clocks changed): choose below "
+                    "whether it was before or after they changed."
+                )
         try:
             return parse_site_time(text, self.zone.key)
         except ValueError as error:

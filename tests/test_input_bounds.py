@@ -391,3 +391,33 @@ def test_the_api_readings_cursors_it_gives_are_taken_both_ways(engineer, fan_fit
     assert len(first["results"]) == len(second["results"]) == 2
     back = api.get(second["previous"]).json()
     assert [r["id"] for r in back["results"]] == [r["id"] for r in first["results"]]
+
+
+# [pub] EU Directive 2000/84/EC: summer time ends at 01:00 UTC on the last Sunday of October (25 October 2026),
+# so in Dublin the clocks go from 02:00 (UTC+01:00) back to 01:00 (UTC+00:00) and 01:30 happens twice.
+
+
+def test_the_form_offers_the_two_offsets_of_a_time_the_clocks_repeat_and_saves_the_one_chosen(client, technician):
+    """A walk: the form asked to "add its offset, +01:00 or +00:00", which its date-and-time box cannot take, so
+    a reading taken in that hour could not be logged from the form. [derived] the two are offered as a choice."""
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    client.force_login(technician)
+    url = reverse("reading_new", args=[fitted_capacitor.id])
+    typed = {"method": "meter", "condition": "sound", "capacitance_uf": "3.94", "taken_at": "2026-10-25T01:30"}
+    page = client.post(url, typed)
+    assert page.status_code == 200 and not Reading.objects.exists()
+    assert "choose below whether it was before or after they changed" in page.context["form"].errors["taken_at"][0]
+    body = page.content.decode()
+    assert 'name="clock_offset" value="+01:00"' in body and 'name="clock_offset" value="+00:00"' in body
+    assert "Before the clocks changed (UTC+01:00)" in body and "After the clocks changed (UTC+00:00)" in body
+    assert client.post(url, {**typed, "clock_offset": "+00:00"}).status_code == 302
+    assert Reading.objects.get().taken_at == dt.datetime(2026, 10, 25, 1, 30, tzinfo=UTC)
+
+
+def test_a_clock_choice_left_posted_after_the_time_was_changed_is_ignored(client, technician):
+    fitted_capacitor = capacitor_at("Europe/Dublin")
+    client.force_login(technician)
+    posted = {"method": "meter", "condition": "sound", "capacitance_uf": "3.94", "taken_at": "2026-10-25T03:30"}
+    response = client.post(reverse("reading_new", args=[fitted_capacitor.id]), {**posted, "clock_offset": "+01:00"})
+    assert response.status_code == 302
+    assert Reading.objects.get().taken_at == dt.datetime(2026, 10, 25, 3, 30, tzinfo=UTC)  # winter time, UTC+00:00

@@ -8,6 +8,7 @@ import datetime as dt
 import difflib
 import hashlib
 import operator
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -380,6 +381,23 @@ def parse_site_time(text: str, zone: str) -> dt.datetime:
     if pd.isna(moments.iloc[0]):
         raise ValueError("Not a date and time: use 2026-03-14 09:30 (site time), or add an offset.")
     return moments.iloc[0].to_pydatetime()
+
+
+def clock_change_offsets(text: str, zone: str) -> tuple[str, str] | None:
+    """The UTC offsets in force just before and just after the clocks changed, for a wall-clock time without an
+    offset that the clocks of `zone` skip or repeat ("2026-10-25T01:30" in Europe/Dublin: "+01:00", "+00:00");
+    None for any other text. The reading form offers the two, as `parse_site_time`'s message names them."""
+    wall = pd.to_datetime(pd.Series([text], dtype=object), errors="coerce", format="ISO8601")
+    if wall.isna().iloc[0] or wall.dt.tz is not None or re.search(_OFFSET_AT_END, text.strip()):
+        return None
+    try:
+        placed = wall.dt.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+    except (KeyError, ValueError):
+        return None
+    if placed.notna().iloc[0]:
+        return None
+    before, after = (_offsets(wall + pd.Timedelta(hours=h), zone)[0] for h in (-3, 3))
+    return before, after
 
 
 def _offsets(wall: pd.Series, zone: str) -> list[str]:
