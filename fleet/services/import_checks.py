@@ -438,22 +438,44 @@ def _against_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[pd.DataFr
     return good, errors, int(stored.sum())
 
 
-def readings_stored_meanwhile(good: pd.DataFrame) -> CheckResult:
+# Readings saved this long before an import's check began are held to it again as well: a save whose clock runs
+# behind the importer's, or whose commit came after the check had read (its time is taken before it commits).
+STORED_MEANWHILE_MARGIN = dt.timedelta(minutes=5)
+
+
+def readings_stored_meanwhile(good: pd.DataFrame, checked_from: dt.datetime) -> CheckResult:
     """The good rows of a readings import checked again, inside the import's transaction, against what the
-    reading form and the API stored since the check. Two imports take turns, but a reading typed on the form
-    meanwhile was saved beside the imported one: the same reading twice in the trend. Single saves are held off
-    first (`readings.hold_reading_saves`), so whichever of the two comes second finds the other: the form refuses
-    its reading naming the stored one, the import counts such a row already imported (another value at that
-    time: refused by row, as the check refuses it)."""
+    reading form and the API stored since the check began (`checked_from`). Two imports take turns, but a reading
+    typed on the form meanwhile was saved beside the imported one: the same reading twice in the trend. Single
+    saves are held off first (`readings.hold_reading_saves`), so whichever of the two comes second finds the other:
+    the form refuses its reading naming the stored one, the import counts such a row already imported (another
+    value at that time: refused by row, as the check refuses it). Only where a reading of the rows' capacitors was
+    saved since (an index range of the readings' save times, a few rows) are the rows held to the stored ones again:
+    doing that every time cost a 50,000-row import about a tenth of its time."""
     if not len(good):
         return CheckResult(good=good, total=0)
     hold_reading_saves(bulk=True)
     ids = np.unique(good["fitted_capacitor_id"].to_numpy(np.int64))
-    motor_ids = np.unique(
-        np.fromiter(FittedCapacitor.objects.filter(id__any_of=ids).values_list("motor_id", flat=True), np.int64)
+    saved_since = (
+        Reading.objects.filter(created_at__gte=checked_from - STORED_MEANWHILE_MARGIN)
+        .exclude(source=Reading.Source.IMPORT)  # another readings import waits for this one, or came before its check
+        .values_list("fitted_capacitor_id", flat=True)
+        .distinct()
     )
-    still_new, errors, duplicates = _against_stored(good, _fitted_where(motor_id__any_of=motor_ids))
-    return CheckResult(good=still_new, errors=sorted(errors), duplicates=duplicates, total=len(good))
+    touched = np.intersect1d(ids, np.fromiter(saved_since, np.int64))
+    if not len(touched):
+        return CheckResult(good=good, total=len(good))
+    motor_ids = np.unique(
+        np.fromiter(FittedCapacitor.objects.filter(id__any_of=touched).values_list("motor_id", flat=True), np.int64)
+    )
+    fitted = _fitted_where(motor_id__any_of=motor_ids)
+    # The rows of other capacitors were held to what was stored by the check already; nothing was saved since.
+    held = good["fitted_capacitor_id"].isin(fitted["fitted_capacitor_id"]).to_numpy()
+    still_new, errors, duplicates = _against_stored(good[held].reset_index(drop=True), fitted)
+    kept = ~held | good["row"].isin(still_new["row"]).to_numpy()
+    return CheckResult(
+        good=good[kept].reset_index(drop=True), errors=sorted(errors), duplicates=duplicates, total=len(good)
+    )
 
 
 @dataclass(frozen=True)

@@ -60,7 +60,7 @@ class Kind:
     max_lengths: dict[str, int]
     site_column: str = ""  # names a row's motor (asset_tag) or site (site): a limited user imports there only
     visits_on: Callable | None = None  # (good rows, user) -> the open visits on the days they make days off
-    # (good rows) -> CheckResult of them held again to what other writers stored since the check, inside the
+    # (good rows, when the check began) -> CheckResult of them held again to what other writers stored since, inside the
     # import's transaction, before the write (readings: the form's and the API's, `readings_stored_meanwhile`)
     stored_meanwhile: Callable | None = None
 
@@ -290,6 +290,7 @@ def import_file(
     (`one_import_at_a_time`; `on_waiting()` is called if it has to wait for one).
     """
     with contextlib.nullcontext() if dry_run else one_import_at_a_time(kind, on_waiting):
+        checked_from = timezone.now()
         outcome = check_file(
             kind=kind, filename=filename, content=content, mapping=mapping, on_progress=on_progress, user=user
         )
@@ -299,7 +300,7 @@ def import_file(
         with transaction.atomic():
             spec = KINDS[kind]
             if spec.stored_meanwhile and len(result.good):
-                meanwhile = spec.stored_meanwhile(result.good)
+                meanwhile = spec.stored_meanwhile(result.good, checked_from)
                 result.good, result.duplicates = meanwhile.good, result.duplicates + meanwhile.duplicates
                 result.errors = sorted(result.errors + meanwhile.errors)
                 if _refused_whole(outcome, mode):
