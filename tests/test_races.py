@@ -397,6 +397,12 @@ def form_inputs(page: str) -> dict:
     return dict(re.findall(r'<input[^>]*name="((?:qty|was)-\d+)"[^>]*value="(\d*)"', page))
 
 
+def route_inputs(client, route: str) -> dict:
+    """The walking-order boxes of a route page as the client sees it: each motor's place and the place shown."""
+    page = client.get(route).content.decode()
+    return dict(re.findall(r'<input[^>]*name="((?:order|was)-\d+)"[^>]*value="(\d*)"', page))
+
+
 def test_a_walking_order_saved_meanwhile_by_another_planner_is_not_undone(capacitor):
     """A bad-input hunt: two planners opened one site's route; the first moved motor A and saw "Walking order
     saved."; the second, from the page as loaded, moved motor B and saved: A was back at its old place, and
@@ -411,11 +417,7 @@ def test_a_walking_order_saved_meanwhile_by_another_planner_is_not_undone(capaci
     other.force_login(make_user("planner"))
     route = f"/sites/{site.code}/route/"
 
-    def inputs(client):
-        page = client.get(route).content.decode()
-        return dict(re.findall(r'<input[^>]*name="((?:order|was)-\d+)"[^>]*value="(\d*)"', page))
-
-    form_one, form_other = inputs(one), inputs(other)
+    form_one, form_other = route_inputs(one, route), route_inputs(other, route)
     assert one.post(route, {**form_one, f"order-{first.id}": "50"}).status_code == 302
     assert other.post(route, {**form_other, f"order-{second.id}": "60"}).status_code == 302
     first.refresh_from_db(), second.refresh_from_db()
@@ -503,11 +505,7 @@ def test_the_same_place_or_count_typed_by_two_planners_meanwhile_is_no_conflict(
     second.force_login(make_user("planner"))
     route = f"/sites/{site.code}/route/"
 
-    def route_form(client):
-        page = client.get(route).content.decode()
-        return dict(re.findall(r'<input[^>]*name="((?:order|was)-\d+)"[^>]*value="(\d*)"', page))
-
-    route_first, route_second = route_form(first), route_form(second)
+    route_first, route_second = route_inputs(first, route), route_inputs(second, route)
     stock_first, stock_second = stock_form(first, site), stock_form(second, site)
     assert first.post(route, {**route_first, f"order-{motor.id}": "50"}).status_code == 302
     assert first.post(f"/sites/{site.code}/stock/", {**stock_first, f"qty-{part.id}": "11"}).status_code == 302
