@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import importlib
 import os
+import pathlib
 import sys
+import tempfile
 
 import pytest
 
@@ -26,6 +28,13 @@ def pytest_configure(config):
     from config.celery import app
 
     app.conf.task_default_queue = TEST_QUEUE  # the settings were read before this module
+
+
+def pytest_unconfigure(config):
+    """The lock files this process's imports took on its in-memory SQLite test database
+    (`import_jobs._sqlite_lock_path`: one a kind, in the temporary directory) go with it."""
+    for lock in pathlib.Path(tempfile.gettempdir()).glob(f"fleet-import-{os.getpid()}-*.lock"):
+        lock.unlink(missing_ok=True)
 
 
 def worker_command(name: str) -> list[str]:
