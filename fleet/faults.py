@@ -31,7 +31,7 @@ def server_error(request, template_name: str = defaults.ERROR_500_TEMPLATE_NAME)
     """Django's handler500, called while the exception is being handled; the API answers JSON."""
     error = sys.exc_info()[1]
     if isinstance(error, DATABASE_ERRORS):
-        return database_unavailable(request)
+        return database_unavailable(request, busy=database_busy(error))
     if request.path.startswith(API_PREFIX):
         return JsonResponse({"detail": "The server failed on this request; it has been logged."}, status=500)
     return defaults.server_error(request, template_name)
@@ -61,13 +61,25 @@ def api_address_unknown(request, rest: str = "") -> JsonResponse:
     return page_not_found(request, None)
 
 
-def database_unavailable(request) -> HttpResponse:
-    """503 with Retry-After; rendered without the request, so without touching the session or the user."""
+def database_busy(error: Exception) -> bool:
+    """Whether `error` is SQLite's "database is locked": another connection held its one write lock for longer
+    than the busy timeout (a backup reading, a large import's write): reached, but busy."""
+    return isinstance(error, OperationalError) and "database is locked" in str(error)
+
+
+def database_unavailable(request, *, busy: bool = False) -> HttpResponse:
+    """503 with Retry-After; rendered without the request, so without touching the session or the user. `busy`:
+    the database answered, but stayed busy with another write past the busy timeout (SQLite)."""
     headers = {"Retry-After": str(RETRY_AFTER_S)}
     if request.path.startswith(API_PREFIX):
-        body = {"detail": "The database is unreachable; try again later.", "retry_after_s": RETRY_AFTER_S}
-        return JsonResponse(body, status=503, headers=headers)
-    html = render_to_string("503.html", {"retry_after_s": RETRY_AFTER_S})
+        detail = (
+            "The database stayed busy with another long write (an import or a backup); nothing was saved by this "
+            "request: try again in a minute."
+            if busy
+            else "The database is unreachable; try again later."
+        )
+        return JsonResponse({"detail": detail, "retry_after_s": RETRY_AFTER_S}, status=503, headers=headers)
+    html = render_to_string("503.html", {"retry_after_s": RETRY_AFTER_S, "busy": busy})
     return HttpResponse(html, status=503, headers=headers)
 
 

@@ -1,5 +1,7 @@
 """Refused and missing pages keep the menu and a way back, not a bare status line."""
 
+import json
+
 import pytest
 from django.test import override_settings
 from django.urls import reverse
@@ -115,3 +117,26 @@ def test_a_refused_page_is_logged_in_one_line_without_a_traceback(client, caplog
     records = [r for r in caplog.records if r.name == "django.request"]
     assert records and all(r.exc_info is None for r in records)
     assert "/reading/" in records[0].getMessage()
+
+
+def test_a_database_busy_past_its_timeout_is_said_as_busy_not_unreachable():
+    """A helper's walk on the embedded default: a reading saved while a large import wrote on SQLite waited past
+    the busy timeout and the page said the database "cannot be reached". [derived] a 503 that says the database is
+    busy with another long write and nothing was saved; an unreachable database is still said so."""
+    from django.db import OperationalError
+    from django.test import RequestFactory
+
+    from fleet import faults
+
+    def answer(path: str, message: str):
+        try:
+            raise OperationalError(message)
+        except OperationalError:
+            return faults.server_error(RequestFactory().post(path))
+
+    page = answer("/fitted-capacitors/1/reading/", "database is locked")
+    assert page.status_code == 503 and "busy with another long write" in page.content.decode()
+    api = answer("/api/fitted-capacitors/1/readings/", "database is locked")
+    assert api.status_code == 503 and "nothing was saved" in json.loads(api.content)["detail"]
+    unreachable = answer("/plan/", "connection refused")
+    assert "cannot be reached" in unreachable.content.decode() and "busy" not in unreachable.content.decode()

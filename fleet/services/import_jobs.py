@@ -28,6 +28,7 @@ from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
 from fleet.exports import csv_bytes
+from fleet.faults import database_busy
 from fleet.imports import columns, files
 from fleet.models import CapacitorPart, FittedCapacitor, ImportJob, Motor, Site, SiteDayOff
 from fleet.services import import_checks
@@ -588,12 +589,6 @@ def _guarded(step: Callable[[ImportJob], None]) -> Callable[[int], ImportJob | N
         return ImportJob.objects.defer("content").get(pk=job.pk)
 
     return functools.wraps(step)(run)
-
-
-def database_busy(error: Exception) -> bool:
-    """Whether `error` is SQLite's "database is locked": another connection held its one write lock for longer
-    than the busy timeout (a backup reading, a large write)."""
-    return isinstance(error, OperationalError) and "database is locked" in str(error)
 
 
 def busy_words(what: str) -> str:

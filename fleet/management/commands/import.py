@@ -7,9 +7,10 @@ from django.db import OperationalError
 from django.template.defaultfilters import pluralize
 from django.urls import reverse
 
+from fleet.faults import database_busy
 from fleet.imports.files import FileRefused
 from fleet.models import ImportJob
-from fleet.services.import_jobs import KINDS, busy_words, database_busy, import_file, waiting_words
+from fleet.services.import_jobs import KINDS, busy_words, import_file, waiting_words
 
 
 class Command(BaseCommand):
