@@ -89,6 +89,11 @@ class ReadingForm(forms.Form):
     client_key = forms.CharField(required=False, max_length=64, widget=forms.HiddenInput)
     # The reading this one corrects (reached from "Correct" beside a reading on the capacitor page).
     supersedes = forms.IntegerField(required=False, min_value=1, widget=forms.HiddenInput)
+    # The capacitor as the form was drawn for it (`readings.capacitor_as_shown`, JSON): a capacitor replaced before
+    # the save is not given a reading typed for it in service without a word (`readings.ReplacedMeanwhile`).
+    shown_values = forms.CharField(required=False, widget=forms.HiddenInput)
+    # Its removal date, sent by the button that saves such a reading to the removed capacitor all the same.
+    removal_seen = forms.CharField(required=False, max_length=40, widget=forms.HiddenInput)
 
     def __init__(self, *args, time_zone: str = "", **kwargs):
         super().__init__(*args, **kwargs)
@@ -150,7 +155,8 @@ class ReadingForm(forms.Form):
             self.add_error(
                 "capacitance_uf",
                 f"In circuit the capacitance is worked out from the current and the voltage, so {typed} µF "
-                "from the meter would not be saved: clear it, or choose Meter to save it instead.",
+                f"from the meter would not be saved: clear it, or choose “{Reading.Method.METER.label}” to save it "
+                "instead.",
             )
         return cleaned
 
@@ -158,7 +164,7 @@ class ReadingForm(forms.Form):
         data = {
             key: value
             for key, value in self.cleaned_data.items()
-            if key not in {"confirmed", "client_key", "supersedes"}
+            if key not in {"confirmed", "client_key", "supersedes", "shown_values", "removal_seen"}
         }
         if data["method"] == Reading.Method.IN_CIRCUIT:
             data.pop("capacitance_uf", None)

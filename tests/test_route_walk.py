@@ -150,7 +150,7 @@ def test_the_removed_capacitors_reading_form_says_so_and_leads_to_the_one_fitted
     page = client.get(reverse("reading_new", args=[removed.id])).content.decode()
     heading = " ".join(strip_tags(re.search(r"<h1>.*?</h1>", page, re.S).group(0)).split())
     today = timezone.localdate().isoformat()
-    assert heading == f"Reading: REM-0001, the removed run capacitor out of service, removed on {today}"
+    assert heading == f"Reading: REM-0001, the run capacitor removed on {today} (out of service)"
     assert f'id="successor-reading" href="{reverse("reading_new", args=[successor.id])}"' in page
     new_heading = re.search(r"<h1>.*?</h1>", client.get(reverse("reading_new", args=[successor.id])).content.decode())
     assert strip_tags(new_heading.group(0)) == "Reading: REM-0001, run capacitor"

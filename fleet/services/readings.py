@@ -26,9 +26,19 @@ from fleet.engineering.rules import (
 )
 from fleet.engineering.substitutes import SUITABLE
 from fleet.imports.columns import local_days
-from fleet.models import Assessment, FittedCapacitor, Reading, SiteStock, WorkOrder, constraint_errors, site_zone
+from fleet.models import (
+    Assessment,
+    AuditEntry,
+    FittedCapacitor,
+    Reading,
+    SiteStock,
+    WorkOrder,
+    constraint_errors,
+    site_zone,
+)
 from fleet.services.bulk import storable_ids
 from fleet.services.selectors import successor_of
+from fleet.services.shown_values import comparable, moved_meanwhile, stored_values
 from fleet.services.substitutes import design_part, verdict_of_part
 from fleet.services.workorders import close_read_again_orders
 
@@ -296,8 +306,15 @@ def record_reading(
     confirmed: bool = False,
     source: str = Reading.Source.FORM,
     client_key: str = "",
+    shown_values: dict | None = None,
+    removal_seen: str = "",
 ) -> Reading:
     """Save one reading (append-only) and queue its capacitor's refit on commit.
+
+    `shown_values` (the reading form's: the capacitor as the form was drawn, `capacitor_as_shown`) refuses a new
+    reading typed on a form drawn while the capacitor was in service and saved after its replacement
+    (`ReplacedMeanwhile`), unless `removal_seen` sends its removal date as stored now: the technician chose the
+    removed capacitor, having been told. A correction goes with the reading it corrects and is not held to it.
 
     `client_key` (the form's one-time key, or an API client's idempotency key) makes a
     repeated submission save nothing: the reading saved the first time comes back with
@@ -314,6 +331,8 @@ def record_reading(
     if earlier is not None:
         return earlier
     supersedes = reading_to_correct(fitted_capacitor, supersedes_id)
+    if supersedes is None:  # before the values are judged: against which capacitor's part is what is asked here
+        _refuse_if_replaced_since_shown(fitted_capacitor, fitted_capacitor.removed_on, shown_values, removal_seen)
     if supersedes is not None and not values.get("taken_at"):
         values = {**values, "taken_at": supersedes.taken_at}
     try:
@@ -330,7 +349,10 @@ def record_reading(
             # again inside: a bad-input hunt saved seven identical readings sent at once, each checked before
             # any was saved. An import's write goes first or after, never between (`hold_reading_saves`).
             hold_reading_saves(bulk=False)
-            list(FittedCapacitor.objects.select_for_update().filter(pk=fitted_capacitor.pk).values_list("pk"))
+            locked = FittedCapacitor.objects.select_for_update().filter(pk=fitted_capacitor.pk)
+            (removed_on,) = locked.values_list("removed_on", flat=True)
+            if supersedes is None:  # replaced between the check above and this lock (`replace_capacitor` locks it)
+                _refuse_if_replaced_since_shown(fitted_capacitor, removed_on, shown_values, removal_seen)
             if values.get("taken_at"):
                 clash = _second_reading_at_one_time(
                     fitted_capacitor, checked["taken_at"], checked["method"], supersedes
@@ -360,6 +382,65 @@ def record_reading(
         raise
     reading.replayed = False
     return reading
+
+
+# The capacitor's fields a reading form sends back as it showed them (`shown_values.SHOWN_VALUES`).
+CAPACITOR_SHOWN = ["removed_on"]
+
+
+def capacitor_as_shown(fitted_capacitor: FittedCapacitor) -> dict:
+    """The capacitor as a reading form is drawn for it (`shown_values.stored_values`): in service or removed."""
+    return stored_values(fitted_capacitor, CAPACITOR_SHOWN)
+
+
+class ReplacedMeanwhile(ValidationError):
+    """A new reading typed on a form drawn while its capacitor was in service, the capacitor replaced before the
+    save: which capacitor was measured is the technician's to say (`removed_on`, and the one fitted now,
+    `successor`, None where none is recorded)."""
+
+    def __init__(self, fitted_capacitor: FittedCapacitor, removed_on: dt.date, successor: FittedCapacitor | None):
+        super().__init__(replaced_meanwhile_words(fitted_capacitor, removed_on, successor))
+        self.removed_on, self.successor = removed_on, successor
+
+
+def _refuse_if_replaced_since_shown(fitted_capacitor, removed_on, shown_values: dict | None, removal_seen: str):
+    """`ReplacedMeanwhile` where the form showed the capacitor in service and it is removed now, unless this save
+    sends its removal date as stored (`shown_values.moved_meanwhile`). No form's values (the API, an import, a
+    page that sent none that can be read): nothing to hold the save to, as before."""
+    if not shown_values or shown_values.get("removed_on") is not None or removed_on is None:
+        return
+    now = {"removed_on": comparable(removed_on)}
+    if moved_meanwhile(shown_values, now, {"removed_on": removal_seen} if removal_seen else {}):
+        fitted_capacitor.removed_on = removed_on  # as stored now: the page that says so draws it removed
+        raise ReplacedMeanwhile(fitted_capacitor, removed_on, successor_of(fitted_capacitor))
+
+
+def replaced_meanwhile_words(fitted_capacitor: FittedCapacitor, removed_on: dt.date, successor) -> str:
+    """ "This start capacitor (P-140) was replaced while this form was open: removed on 2026-12-05 (recorded
+    by alice at 2026-12-05 10:41); the P-150 fitted on 2026-12-05 is in its place now. Nothing was saved: ..." """
+    role = fitted_capacitor.get_role_display().lower()
+    recorded, entry = "", None
+    if successor is not None:  # when and by whom the replacement was recorded: its new capacitor's creation
+        entry = (
+            AuditEntry.objects.filter(
+                model=FittedCapacitor._meta.label_lower, object_id=str(successor.pk), action=AuditEntry.Action.CREATE
+            )
+            .order_by("at")
+            .first()
+        )
+    if entry is not None:
+        zone = site_zone(fitted_capacitor.motor.site.time_zone)
+        at = timezone.localtime(entry.at, zone)
+        recorded = f" (recorded by {entry.username or 'the system'} at {at:%Y-%m-%d %H:%M})"
+    if successor is None:
+        now = "no capacitor is recorded in its place"
+    else:
+        serial = f", serial {successor.serial}" if successor.serial else ""
+        now = f"the {successor.part.code} fitted on {successor.fitted_on}{serial} is in its place now"
+    return (
+        f"This {role} capacitor ({fitted_capacitor.part.code}) was replaced while this form was open: removed on "
+        f"{removed_on}{recorded}; {now}. Nothing was saved: say which capacitor you measured."
+    )
 
 
 READING_SAVES_LOCK = "fleet readings saved"

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import io
+import json
 import re
 import uuid
 
@@ -34,6 +35,8 @@ from fleet.roles import needs_permission, refused
 from fleet.services import pages
 from fleet.services.readings import (
     NeedsConfirmation,
+    ReplacedMeanwhile,
+    capacitor_as_shown,
     measured_words,
     newest_correction,
     reading_to_correct,
@@ -46,6 +49,7 @@ from fleet.services.readings import (
 )
 from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
+from fleet.services.shown_values import SHOWN_VALUES, read_shown
 from fleet.services.substitutes import design_part, design_parts, substitutes_for
 from fleet.services.workorders import after_reading_again_words, open_read_again_order, open_replacement_order
 from fleet.views.register import (
@@ -63,7 +67,7 @@ from fleet.views.register import (
 @takes_parameters("corrects", "next")
 def reading_new(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
-    needs_confirmation, to_check = False, []
+    needs_confirmation, to_check, replaced_meanwhile = False, [], None
     zone = fitted_capacitor.motor.site.time_zone
     if request.method == "POST":
         form = ReadingForm(request.POST, time_zone=zone)
@@ -76,9 +80,15 @@ def reading_new(request, fitted_capacitor_id):
                     confirmed=form.cleaned_data["confirmed"],
                     client_key=form.cleaned_data["client_key"],
                     supersedes_id=form.cleaned_data["supersedes"],
+                    shown_values=read_shown(form.cleaned_data[SHOWN_VALUES]),
+                    removal_seen=form.cleaned_data["removal_seen"],
                 )
             except NeedsConfirmation as error:
                 needs_confirmation = True
+                form.add_error(None, error)
+            except ReplacedMeanwhile as error:
+                # Nothing saved, every value kept: the page asks which capacitor was measured (reading_form.html).
+                replaced_meanwhile = error
                 form.add_error(None, error)
             except ValidationError as error:
                 _add_errors(form, error)
@@ -96,10 +106,11 @@ def reading_new(request, fitted_capacitor_id):
                 closed = getattr(reading, "closed_read_again", 0)
                 motor = fitted_capacitor.motor
                 route = route_to_return_to(request, motor.site)
+                removed = "removed " if fitted_capacitor.removed_on else ""
                 messages.success(
                     request,
                     _saved_words(
-                        f"{what} {saved} for {motor.asset_tag} ({fitted_capacitor.get_role_display().lower()} "
+                        f"{what} {saved} for {motor.asset_tag} ({removed}{fitted_capacitor.get_role_display().lower()} "
                         f"capacitor): {measured_words(reading, fitted_capacitor.part)}"
                         + (" as measured" if reading.condition != Reading.Condition.SOUND else "")
                         + (
@@ -128,7 +139,8 @@ def reading_new(request, fitted_capacitor_id):
                 return redirect(f"{back}{'&' if '?' in back else '?'}saved={fitted_capacitor.id}{at}")
     else:
         corrects = None if named_if_repeated(request, ["corrects"]) else query_value(request.GET, "corrects")
-        form = ReadingForm(initial={"supersedes": corrects}, time_zone=zone)
+        shown = json.dumps(capacitor_as_shown(fitted_capacitor))
+        form = ReadingForm(initial={"supersedes": corrects, SHOWN_VALUES: shown}, time_zone=zone)
     correcting, correction_problem = None, ""
     try:
         correcting = reading_to_correct(fitted_capacitor, form["supersedes"].value())
@@ -153,6 +165,7 @@ def reading_new(request, fitted_capacitor_id):
         "part": fitted_capacitor.part,
         "form": form,
         "needs_confirmation": needs_confirmation,
+        "replaced_meanwhile": replaced_meanwhile,
         # Fields whose value is asked to confirm while others are refused (the summary tells the two apart).
         "to_check": to_check,
         "to_put_right": len(form.errors) - len(to_check),
@@ -211,7 +224,8 @@ def _at_the_capacitor_read(fitted_capacitor, reading) -> str:
     """Where on its motor's page to land after a reading: at a start capacitor listed below its run capacitor
     (a screen or two down a phone, a walk found), unless the page's top says more than "saved" (a defect seen)."""
     below_another = (
-        fitted_capacitor.role == FittedCapacitor.Role.START
+        fitted_capacitor.removed_on is None  # a removed capacitor is not on its motor's page
+        and fitted_capacitor.role == FittedCapacitor.Role.START
         and FittedCapacitor.objects.filter(motor_id=fitted_capacitor.motor_id, removed_on__isnull=True)
         .exclude(pk=fitted_capacitor.pk)
         .exists()

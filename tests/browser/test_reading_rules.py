@@ -341,7 +341,7 @@ def test_in_circuit_the_meter_box_is_out_of_the_way_and_a_value_typed_in_it_is_r
     phone.check("input[value=in_circuit]")
     assert phone.is_enabled("#id_capacitance_uf") and phone.is_hidden("#wrap_capacitance_uf .helptext")
     said = phone.inner_text("#meter-value-set-aside")
-    assert "clear the 3.95 µF typed here from a meter, or choose Meter to save it instead." in said
+    assert "clear the 3.95 µF typed here from a meter, or choose “Capacitance meter (isolated)” to save it" in said
     phone.shot("11-in-circuit-meter-value-to-clear")
     phone.check("input[value=meter]")
     assert phone.input_value("#id_capacitance_uf") == "3.95"

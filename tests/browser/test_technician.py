@@ -333,3 +333,50 @@ def test_the_technicians_menu_fits_two_rows_of_glove_sized_targets_on_a_phone(ph
         every
     ), every
     desktop.context.close()
+
+
+def test_a_capacitor_replaced_while_its_form_was_open_takes_the_reading_only_where_the_technician_says(
+    phone, motor_with_history
+):
+    """A walk: the form open in one tab, the replacement recorded in another, the reading saved in the first was
+    filed on the removed capacitor. It comes back as typed, asking which capacitor was measured; the capacitor
+    fitted now is chosen, the reading is its own, and the draft kept on the phone goes with it and is dropped."""
+    from fleet.services.readings import replace_capacitor
+
+    sign_in(phone, make_user("technician"))
+    old = motor_with_history
+    phone.goto(f"/fitted-capacitors/{old.id}/reading/")
+    new = replace_capacitor(fitted_capacitor=old, part=old.part, removed_on=timezone.localdate(), reason="failed")
+    phone.fill("#id_capacitance_uf", "3.92")
+    phone.click("#save")
+    phone.wait_for_selector("#replaced-meanwhile", timeout=15000)
+    assert phone.input_value("#id_capacitance_uf") == "3.92" and not phone.is_visible("#save")
+    assert not Reading.objects.filter(capacitance_uf=3.92).exists()
+    phone.shot("12-replaced-while-the-form-was-open")
+    phone.click("#save-to-successor")
+    phone.wait_for_url("**/motors/**")
+    assert list(Reading.objects.filter(capacitance_uf=3.92).values_list("fitted_capacitor_id", flat=True)) == [new.id]
+    for capacitor in (old, new):
+        assert phone.evaluate(f"() => localStorage.getItem('reading-draft-{capacitor.id}')") is None
+
+
+def test_a_draft_typed_in_service_and_restored_after_the_replacement_asks_which_capacitor(phone, motor_with_history):
+    """The phone's draft keeps the capacitor as its page showed it: typed while in service, left unsaved, and
+    restored on the form once the capacitor is out, it is not filed on the removed capacitor without a word."""
+    from fleet.services.readings import replace_capacitor
+
+    sign_in(phone, make_user("technician"))
+    old = motor_with_history
+    url = f"/fitted-capacitors/{old.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.93")
+    phone.goto(f"/motors/{old.motor.asset_tag}/")  # the save never sent
+    replace_capacitor(fitted_capacitor=old, part=old.part, removed_on=timezone.localdate(), reason="failed")
+    phone.goto(url)
+    assert phone.is_visible("#draft-note") and phone.input_value("#id_capacitance_uf") == "3.93"
+    phone.click("#save")
+    phone.wait_for_selector("#replaced-meanwhile", timeout=15000)
+    assert not Reading.objects.filter(capacitance_uf=3.93).exists()
+    phone.click("#save-to-removed")
+    phone.wait_for_url("**/motors/**")
+    assert list(Reading.objects.filter(capacitance_uf=3.93).values_list("fitted_capacitor_id", flat=True)) == [old.id]
