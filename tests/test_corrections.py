@@ -251,3 +251,28 @@ def test_a_meter_value_typed_before_choosing_in_circuit_is_refused_at_its_field_
     form = client.get(url, {"corrects": saved.id}).context["form"]
     assert form.initial["method"] == "in_circuit" and "capacitance_uf" not in form.initial
     assert form.initial["capacitor_current_a"] == "0.434"
+
+
+def test_a_correction_that_changes_nothing_is_refused_naming_the_reading(client, technician, fan_fitted_capacitor):
+    """A walk saved a correction with every value of the reading it corrected: a second record of one reading,
+    the first marked "corrected" for nothing. [derived] refused at the correction, naming the reading, nothing
+    saved; the same reading with one value changed (the case temperature) is a correction."""
+    wrong = make_reading(fan_fitted_capacitor, capacitance_uf=3.2, case_temperature_c=30.0)
+    same = {"method": "meter", "capacitance_uf": "3.2", "case_temperature_c": "30", "condition": "sound"}
+    with pytest.raises(ValidationError) as unchanged:
+        record_reading(fitted_capacitor=fan_fitted_capacitor, values=same, user=technician, supersedes_id=wrong.id)
+    (message,) = unchanged.value.message_dict["supersedes"]
+    assert "gives the reading of " in message and "(3.20 µF) again as it is" in message
+    assert Reading.objects.count() == 1
+    client.force_login(technician)
+    page = client.post(
+        reverse("reading_new", args=[fan_fitted_capacitor.id]), {**same, "supersedes": str(wrong.id)}
+    ).content.decode()
+    assert "again as it is" in page and Reading.objects.count() == 1
+    record_reading(
+        fitted_capacitor=fan_fitted_capacitor,
+        values={**same, "case_temperature_c": "31"},
+        user=technician,
+        supersedes_id=wrong.id,
+    )
+    assert Reading.objects.filter(supersedes=wrong, case_temperature_c=31.0).exists()

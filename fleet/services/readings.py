@@ -174,7 +174,21 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
     broken = constraint_errors(Reading(fitted_capacitor=fitted_capacitor, **checked))
     if broken:
         raise ValidationError(broken)
+    if supersedes is not None and _corrects_nothing(checked, supersedes):
+        raise ValidationError(
+            {
+                "supersedes": f"This correction gives the reading of {_reading_words(supersedes, zone)} again as it "
+                "is: change what was wrong in it, or leave that reading as it is."
+            }
+        )
     return checked
+
+
+def _corrects_nothing(checked: dict, supersedes: Reading) -> bool:
+    """A correction that stores every value of the reading it corrects as it was (a walk saved one: a second
+    record of the same reading, its first marked corrected for nothing)."""
+    fields = ("taken_at", "method", "condition", "notes", *Reading.MEASURED_FIELDS)
+    return all(checked[name] == getattr(supersedes, name) for name in fields)
 
 
 def _second_reading_at_one_time(fitted_capacitor: FittedCapacitor, taken_at, method: str, supersedes) -> str:
