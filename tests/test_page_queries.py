@@ -276,6 +276,10 @@ def test_labels_print_a_sheet_at_a_time(client, planner_who_reads):
     assert f"This page holds labels 1 to {LABELS_PAGE_SIZE} of {total}</b>: Print prints these only" in first
     assert f"WEST labels, sheet 1 of 2: labels 1 to {LABELS_PAGE_SIZE} of {total}" in first
     assert f"WEST labels, sheet 2 of 2: labels {total} to {total} of {total}" in second
+    # Each page points the way the other labels are: the first forward, the last back (a review found the last
+    # page sending the planner to pages after it).
+    assert "on the pages after it (Next, at the foot)" in first
+    assert "on the pages before it (Previous, at the foot)" in second
 
 
 def test_labels_on_one_sheet_say_nothing_of_other_sheets(client, planner_who_reads):
