@@ -51,7 +51,12 @@ class ReadingForm(forms.Form):
     )
     # Shown only for a time the site's clocks repeat or skip (the night they change): which of the two it was.
     # Checked by `clean_taken_at` (a choice left posted after the time was changed is ignored, never refused).
-    clock_offset = forms.CharField(required=False, max_length=6, widget=forms.RadioSelect, label="Which one")
+    clock_offset = forms.CharField(
+        required=False,
+        max_length=6,
+        widget=forms.RadioSelect,
+        label="When you measured: before or after the clocks changed",
+    )
     method = forms.ChoiceField(
         choices=Reading.Method.choices, initial=Reading.Method.METER, widget=forms.RadioSelect, label="How measured"
     )
