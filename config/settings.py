@@ -122,13 +122,15 @@ if DATABASES["default"]["ENGINE"] == "django.db.backends.postgresql":
     # Pages run short indexed queries: compiling one (JIT) cost more than running it (70 ms on the refits
     # page's stale count at 100,000 motors), and the bulk reads of refits and exports gain little from it.
     DATABASES["default"].setdefault("OPTIONS", {})["options"] = "-c jit=off"
-# How long a write on SQLite waits for the database's one write lock before it fails ("database is locked").
-SQLITE_BUSY_TIMEOUT_MS = 10_000
+# How long a single write waits for a long bulk write before it gives up and says the database is busy: on SQLite
+# the wait for the database's one write lock ("database is locked"), on PostgreSQL a reading's wait for a readings
+# import's write (`readings.hold_reading_saves`). Under the web server's own timeout, so the page says why.
+FLEET_WRITE_WAIT_MS = env_int("FLEET_WRITE_WAIT_MS", 10_000)
 if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
     DATABASES["default"]["CONN_MAX_AGE"] = 0
     DATABASES["default"]["OPTIONS"] = {
         "init_command": (
-            f"PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL; PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS};"
+            f"PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL; PRAGMA busy_timeout={FLEET_WRITE_WAIT_MS};"
         ),
         "transaction_mode": "IMMEDIATE",
     }

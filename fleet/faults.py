@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import sys
 
+from django.conf import settings
 from django.contrib.auth.decorators import login_not_required
 from django.db import InterfaceError, OperationalError, connection
 from django.http import HttpResponse, JsonResponse
@@ -61,10 +62,26 @@ def api_address_unknown(request, rest: str = "") -> JsonResponse:
     return page_not_found(request, None)
 
 
+# PostgreSQL's lock_not_available: a wait bounded by lock_timeout ran out (`readings.hold_reading_saves`).
+LOCK_NOT_AVAILABLE = "55P03"
+
+
 def database_busy(error: Exception) -> bool:
-    """Whether `error` is SQLite's "database is locked": another connection held its one write lock for longer
-    than the busy timeout (a backup reading, a large import's write): reached, but busy."""
-    return isinstance(error, OperationalError) and "database is locked" in str(error)
+    """Whether `error` is a write that waited FLEET_WRITE_WAIT_MS for another, long one and gave up: SQLite's
+    "database is locked" (another connection held its one write lock: a backup reading, a large import's write),
+    or PostgreSQL's bounded wait for a readings import's write. Reached, but busy."""
+    if not isinstance(error, OperationalError):
+        return False
+    return "database is locked" in str(error) or getattr(error.__cause__, "sqlstate", None) == LOCK_NOT_AVAILABLE
+
+
+def not_saved_busy_words() -> str:
+    """What a form says, every value kept, when its save gave up waiting for another long write."""
+    seconds = settings.FLEET_WRITE_WAIT_MS // 1000
+    return (
+        f"Not saved yet: the database stayed busy with another long write (a large import or a backup) for {seconds} "
+        "s. Everything you typed is still here: press Save again in a minute."
+    )
 
 
 def database_unavailable(request, *, busy: bool = False) -> HttpResponse:

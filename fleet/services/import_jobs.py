@@ -593,7 +593,7 @@ def _guarded(step: Callable[[ImportJob], None]) -> Callable[[int], ImportJob | N
 
 def busy_words(what: str) -> str:
     """What an import says when SQLite's write lock stayed taken past the busy timeout: nothing saved, try again."""
-    seconds = settings.SQLITE_BUSY_TIMEOUT_MS // 1000
+    seconds = settings.FLEET_WRITE_WAIT_MS // 1000
     return (
         f"The database stayed busy with another write (a backup, or another large save) for longer than {seconds} s, "
         f"so {what} gave up. Nothing was imported. Import again once that write is done: the rows already in are "

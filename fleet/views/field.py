@@ -12,6 +12,7 @@ import segno
 from django.contrib import messages
 from django.core.exceptions import ValidationError
 from django.core.paginator import Paginator
+from django.db import OperationalError
 from django.shortcuts import redirect, render
 from django.template.defaultfilters import pluralize
 from django.urls import reverse
@@ -20,6 +21,7 @@ from django.utils.html import conditional_escape, format_html
 from django.utils.safestring import mark_safe
 
 from fleet.engineering.rules import RULES
+from fleet.faults import database_busy, not_saved_busy_words
 from fleet.filters import (
     LabelsPage,
     RoutePage,
@@ -86,6 +88,10 @@ def reading_new(request, fitted_capacitor_id):
             except NeedsConfirmation as error:
                 needs_confirmation = True
                 form.add_error(None, error)
+            except OperationalError as error:
+                if not database_busy(error):
+                    raise
+                form.add_error(None, not_saved_busy_words())  # nothing saved (its transaction rolled back)
             except ReplacedMeanwhile as error:
                 # Nothing saved, every value kept: the page asks which capacitor was measured (reading_form.html).
                 replaced_meanwhile = error
