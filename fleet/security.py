@@ -23,7 +23,7 @@ from django.utils.http import url_has_allowed_host_and_scheme, urlencode
 from rest_framework.authentication import TokenAuthentication
 from rest_framework.exceptions import AuthenticationFailed, Throttled
 
-# The sign-in page's parameter saying a form was sent without a sign-in and not saved (templates/registration/login.html).
+# The sign-in page's parameter: a form was sent signed out and not saved (templates/registration/login.html).
 NOT_SAVED = "not_saved"
 
 

@@ -108,7 +108,9 @@ def test_signed_out_a_form_leads_back_to_the_page_it_was_sent_from(client):
     response = client.post(reverse("work_orders"), {"action": "issue"}, HTTP_REFERER=f"http://testserver{sheet}")
     assert response["Location"] == reverse("login") + "?" + urlencode({"next": sheet, "not_saved": "1"})
     response = client.post(reverse("work_orders"), {"action": "issue"}, HTTP_REFERER=f"http://elsewhere.example{sheet}")
-    assert response["Location"] == reverse("login") + "?" + urlencode({"next": reverse("work_orders"), "not_saved": "1"})
+    assert response["Location"] == reverse("login") + "?" + urlencode(
+        {"next": reverse("work_orders"), "not_saved": "1"}
+    )
     assert not WorkOrder.objects.exists()
 
 

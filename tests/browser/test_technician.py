@@ -7,7 +7,7 @@ from django.utils import timezone
 
 from fleet.models import FittedCapacitor, Reading
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_user, quarterly_readings
+from tests.factories import PASSWORD, make_fitted_capacitor, make_user, quarterly_readings
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
@@ -40,7 +40,7 @@ def test_a_long_serial_or_override_reason_wraps_on_a_phone(phone, transactional_
 def sign_in(page, user):
     page.goto("/login/")
     page.fill("#id_username", user.username)
-    page.fill("#id_password", "a-long-test-password")
+    page.fill("#id_password", PASSWORD)
     page.click("button[type=submit]")
     page.wait_for_url("**/")
 
@@ -408,7 +408,7 @@ def test_a_reading_saved_after_the_sign_in_ended_is_said_not_saved_and_comes_bac
     assert not Reading.objects.filter(capacitance_uf=3.94).exists()
     phone.shot("13-signed-out-not-saved")
     phone.fill("#id_username", technician.username)
-    phone.fill("#id_password", "a-long-test-password")
+    phone.fill("#id_password", PASSWORD)
     phone.click("button[type=submit]")
     phone.wait_for_url(f"**{url}")
     assert phone.is_visible("#draft-note")
@@ -434,7 +434,7 @@ def test_a_replacement_sent_after_the_sign_in_ended_comes_back_as_typed(phone, m
     assert phone.is_visible("#not-saved-kept")
     assert FittedCapacitor.objects.filter(motor=motor_with_history.motor).count() == 1
     phone.fill("#id_username", technician.username)
-    phone.fill("#id_password", "a-long-test-password")
+    phone.fill("#id_password", PASSWORD)
     phone.click("button[type=submit]")
     phone.wait_for_url("**/replace/")
     assert phone.is_visible("#form-put-back")
