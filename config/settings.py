@@ -80,7 +80,7 @@ MIDDLEWARE = [
     "django.contrib.auth.middleware.AuthenticationMiddleware",
     "django.contrib.messages.middleware.MessageMiddleware",
     "django.middleware.clickjacking.XFrameOptionsMiddleware",
-    "django.contrib.auth.middleware.LoginRequiredMiddleware",
+    "fleet.security.SignInFirstMiddleware",  # LoginRequiredMiddleware; a form sent signed out is said not saved
 ]
 
 ROOT_URLCONF = "config.urls"

@@ -1,4 +1,5 @@
-"""Protections around the doors: sign-in lockout, API token throttling, Content-Security-Policy.
+"""Protections around the doors: sign-in lockout, API token throttling, Content-Security-Policy, and the
+sign-in page a form reaches when its sender's sign-in has ended.
 
 Counters live in Django's cache (Redis when CACHE_URL is set, so every web worker
 shares them; process memory otherwise).
@@ -8,14 +9,22 @@ from __future__ import annotations
 
 import hashlib
 import secrets
+from urllib.parse import urlsplit
 
 from django.conf import settings
 from django.contrib.admin.forms import AdminAuthenticationForm
 from django.contrib.auth.forms import AuthenticationForm
+from django.contrib.auth.middleware import LoginRequiredMiddleware
 from django.core.cache import cache
 from django.core.exceptions import ValidationError
+from django.http import HttpResponseRedirect
+from django.shortcuts import resolve_url
+from django.utils.http import url_has_allowed_host_and_scheme, urlencode
 from rest_framework.authentication import TokenAuthentication
 from rest_framework.exceptions import AuthenticationFailed, Throttled
+
+# The sign-in page's parameter: a form was sent signed out and not saved (templates/registration/login.html).
+NOT_SAVED = "not_saved"
 
 
 def client_ip(request) -> str:
@@ -125,3 +134,30 @@ class ContentSecurityPolicyMiddleware:
                 "frame-ancestors 'none'"
             )
         return response
+
+
+class SignInFirstMiddleware(LoginRequiredMiddleware):
+    """Django's LoginRequiredMiddleware, with one thing more: a form sent once the sign-in has ended (it timed out,
+    or its sender signed out in another tab) is not saved, and the sign-in page it reaches says so
+    (`?not_saved=1`), with `next` the page the form was on, so the sender comes back to it, signed in, to press
+    Save again (page.js puts back what was typed; the reading form restores its own draft)."""
+
+    def handle_no_permission(self, request, view_func):
+        if request.method in ("GET", "HEAD", "OPTIONS"):
+            return super().handle_no_permission(request, view_func)
+        query = urlencode({self.get_redirect_field_name(view_func): page_form_was_on(request), NOT_SAVED: "1"})
+        # 303: the browser asks for the sign-in page, never sends the form there.
+        return HttpResponseRedirect(f"{resolve_url(self.get_login_url(view_func))}?{query}", status=303)
+
+
+def page_form_was_on(request) -> str:
+    """The address (path and query) of the page a form was sent from: its Referer, when that is on this site,
+    else the address it was sent to (most of our forms are sent to their own page)."""
+    referer = request.META.get("HTTP_REFERER", "")
+    if referer and url_has_allowed_host_and_scheme(
+        referer, allowed_hosts={request.get_host()}, require_https=request.is_secure()
+    ):
+        parts = urlsplit(referer)
+        if parts.path:
+            return parts.path + (f"?{parts.query}" if parts.query else "")
+    return request.get_full_path()

@@ -106,10 +106,11 @@ def straight_line_fleet(parts: int = 2, per_part: int = 6) -> None:
             )
 
 
+PASSWORD = "a-long-test-password"  # every user make_user makes signs in with it
+
+
 def make_user(role: str, username: str | None = None) -> User:
-    user = User.objects.create_user(
-        username=username or f"{role.split()[0]}{next(_serial)}", password="a-long-test-password"
-    )
+    user = User.objects.create_user(username=username or f"{role.split()[0]}{next(_serial)}", password=PASSWORD)
     user.groups.add(Group.objects.get(name=role))
     if role == ADMINISTRATOR:
         user.is_staff = True

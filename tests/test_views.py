@@ -10,10 +10,12 @@ from django.core.exceptions import ValidationError
 from django.urls import reverse
 from django.utils import timezone
 from django.utils.html import escape, strip_tags
+from django.utils.http import urlencode
 
 from fleet.models import Assessment, BandCalibration, FittedCapacitor, Motor, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
 from tests.factories import (
+    PASSWORD,
     make_fitted_capacitor,
     make_motor,
     make_part,
@@ -40,6 +42,83 @@ def test_every_page_needs_a_login(client, name, kwargs):
     response = client.get(reverse(name, kwargs=kwargs))
     assert response.status_code == 302
     assert response["Location"].startswith(reverse("login"))
+
+
+def test_a_page_asked_for_signed_out_goes_to_sign_in_without_a_not_saved_notice(client, fan_fitted_capacitor):
+    """Only a form sent is said not saved: a page opened signed out lands on the plain sign-in page."""
+    response = client.get(reverse("reading_new", args=[fan_fitted_capacitor.id]))
+    assert response.status_code == 302 and "not_saved" not in response["Location"]
+    assert "Not saved yet" not in client.get(response["Location"]).content.decode()
+
+
+def _form_page(client, url):
+    """The page at `url` and the CSRF token its form carries, as a browser holds them."""
+    page = client.get(url).content.decode()
+    return re.search(r'name="csrfmiddlewaretoken" value="([^"]+)"', page).group(1)
+
+
+@pytest.mark.parametrize("form", ["reading", "replacement"])
+def test_a_form_sent_after_the_sign_in_ended_is_not_saved_and_the_sign_in_page_says_so(
+    technician, fan_fitted_capacitor, form
+):
+    """The sign-in timed out while the form was open (its session gone; the CSRF cookie, which outlives it,
+    still good): Save went to the sign-in page with no word, and what was sent was dropped. Now the sign-in
+    page says it was not saved and that it is kept on the device, and signing in leads back to the same form,
+    its `?next=` kept (ours)."""
+    from django.contrib.sessions.models import Session
+    from django.test import Client
+
+    client = Client(enforce_csrf_checks=True)
+    client.force_login(technician)
+    visit = "/work-orders/?site=1"
+    url = reverse("reading_new" if form == "reading" else "replace", args=[fan_fitted_capacitor.id]) + "?next=" + visit
+    token = _form_page(client, url)
+    Session.objects.all().delete()  # the sign-in ends: timed out, or signed out in another tab
+    values = {
+        "reading": {"method": "meter", "capacitance_uf": "3.96", "case_temperature_c": "31", "condition": "sound"},
+        "replacement": {
+            "part": fan_fitted_capacitor.part_id,
+            "removed_on": timezone.localdate().isoformat(),
+            "removal_reason": "failed",
+            "serial": "SN-77",
+        },
+    }[form]
+    response = client.post(url, {**values, "csrfmiddlewaretoken": token})
+    assert response.status_code == 303
+    assert response["Location"] == reverse("login") + "?" + urlencode({"next": url, "not_saved": "1"})
+    assert not Reading.objects.exists()
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
+    sign_in_page = client.get(response["Location"]).content.decode()
+    notice = strip_tags(re.search(r'<div class="caution" id="not-saved".*?</div>', sign_in_page, re.S).group(0))
+    assert "Not saved yet: you were signed out" in notice
+    assert "What you typed is kept on this device" in notice and "press Save again" in notice
+    # A wrong password keeps the notice; the right one leads back to the form, its visit sheet kept.
+    sign_in = {"csrfmiddlewaretoken": _form_page(client, response["Location"]), "next": url}
+    again = client.post(response["Location"], {**sign_in, "username": technician.username, "password": "wrong"})
+    assert "Not saved yet: you were signed out" in again.content.decode()
+    back = client.post(response["Location"], {**sign_in, "username": technician.username, "password": PASSWORD})
+    assert back.status_code == 302 and back["Location"] == url
+    assert client.get(url).status_code == 200
+
+
+def test_signed_out_a_form_leads_back_to_the_page_it_was_sent_from(client):
+    """A visit sheet's "Issue this visit" is sent to the work-orders list: signed in again, the planner is back
+    on the visit sheet (its Referer), not on the list. A Referer from elsewhere is never followed."""
+    sheet = "/work-orders/CST/2026-12-07/"
+    response = client.post(reverse("work_orders"), {"action": "issue"}, HTTP_REFERER=f"http://testserver{sheet}")
+    assert response["Location"] == reverse("login") + "?" + urlencode({"next": sheet, "not_saved": "1"})
+    response = client.post(reverse("work_orders"), {"action": "issue"}, HTTP_REFERER=f"http://elsewhere.example{sheet}")
+    assert response["Location"] == reverse("login") + "?" + urlencode(
+        {"next": reverse("work_orders"), "not_saved": "1"}
+    )
+    assert not WorkOrder.objects.exists()
+
+
+def test_sign_out_pressed_after_the_sign_in_ended_lands_on_the_sign_in_page(client):
+    """Signed out in another tab, then Sign out here: it went to the sign-in page with `next=/logout/`, an
+    address that takes no GET (405 once signed in). Signing out signed out is done, with no "not saved"."""
+    response = client.post(reverse("logout"))
+    assert response.status_code == 302 and response["Location"] == reverse("login")
 
 
 def test_motor_page_shows_the_cautions_and_the_capacitors(signed_in, technician, fan_fitted_capacitor):

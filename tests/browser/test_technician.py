@@ -7,7 +7,7 @@ from django.utils import timezone
 
 from fleet.models import FittedCapacitor, Reading
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_user, quarterly_readings
+from tests.factories import PASSWORD, make_fitted_capacitor, make_user, quarterly_readings
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
@@ -40,7 +40,7 @@ def test_a_long_serial_or_override_reason_wraps_on_a_phone(phone, transactional_
 def sign_in(page, user):
     page.goto("/login/")
     page.fill("#id_username", user.username)
-    page.fill("#id_password", "a-long-test-password")
+    page.fill("#id_password", PASSWORD)
     page.click("button[type=submit]")
     page.wait_for_url("**/")
 
@@ -380,3 +380,67 @@ def test_a_draft_typed_in_service_and_restored_after_the_replacement_asks_which_
     phone.click("#save-to-removed")
     phone.wait_for_url("**/motors/**")
     assert list(Reading.objects.filter(capacitance_uf=3.93).values_list("fitted_capacitor_id", flat=True)) == [old.id]
+
+
+def _sign_in_ends(page):
+    """The sign-in ends while a form is open (timed out, or signed out in another tab): its session cookie goes,
+    the CSRF cookie, which outlives it, stays."""
+    kept = [cookie for cookie in page.context.cookies() if cookie["name"] != "sessionid"]
+    page.context.clear_cookies()
+    page.context.add_cookies(kept)
+
+
+def test_a_reading_saved_after_the_sign_in_ended_is_said_not_saved_and_comes_back_to_save(phone, motor_with_history):
+    """Save pressed once the sign-in had ended went to the sign-in page with no word: the reading not saved, and
+    nothing said that the phone kept it. The sign-in page says so; signed in again, the form is back with the
+    values typed, the route's `?next=` kept, to save."""
+    technician = make_user("technician")
+    sign_in(phone, technician)
+    url = f"/fitted-capacitors/{motor_with_history.id}/reading/?next=/work-orders/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.94")
+    phone.fill("#id_notes", "terminal loose")
+    _sign_in_ends(phone)
+    phone.click("#save")
+    phone.wait_for_selector("#not-saved", timeout=15000)
+    assert phone.is_visible("#not-saved-kept") and not phone.is_visible("#not-saved-lost")
+    assert "press Save again" in phone.inner_text("#not-saved")
+    assert not Reading.objects.filter(capacitance_uf=3.94).exists()
+    phone.shot("13-signed-out-not-saved")
+    phone.fill("#id_username", technician.username)
+    phone.fill("#id_password", PASSWORD)
+    phone.click("button[type=submit]")
+    phone.wait_for_url(f"**{url}")
+    assert phone.is_visible("#draft-note")
+    assert phone.input_value("#id_capacitance_uf") == "3.94" and phone.input_value("#id_notes") == "terminal loose"
+    phone.shot("14-signed-in-again-draft-restored")
+    phone.click("#save")
+    phone.wait_for_url("**/work-orders/**")
+    assert Reading.objects.filter(capacitance_uf=3.94, notes="terminal loose", taken_by=technician).count() == 1
+
+
+def test_a_replacement_sent_after_the_sign_in_ended_comes_back_as_typed(phone, motor_with_history):
+    """The replacement form keeps no draft of its own: what was sent is held in the tab until the answer
+    (page.js), so signed in again the form is back as typed, said to be unsaved."""
+    technician = make_user("technician")
+    sign_in(phone, technician)
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/replace/")
+    phone.check("input[value=failed]")
+    phone.fill("#id_serial", "2611-0043")
+    phone.fill("#id_notes", "burnt smell")
+    _sign_in_ends(phone)
+    phone.click("text=Save replacement")
+    phone.wait_for_selector("#not-saved", timeout=15000)
+    assert phone.is_visible("#not-saved-kept")
+    assert FittedCapacitor.objects.filter(motor=motor_with_history.motor).count() == 1
+    phone.fill("#id_username", technician.username)
+    phone.fill("#id_password", PASSWORD)
+    phone.click("button[type=submit]")
+    phone.wait_for_url("**/replace/")
+    assert phone.is_visible("#form-put-back")
+    assert phone.is_checked("input[value=failed]")
+    assert phone.input_value("#id_serial") == "2611-0043" and phone.input_value("#id_notes") == "burnt smell"
+    phone.shot("15-signed-in-again-replacement-put-back")
+    phone.goto(f"/motors/{motor_with_history.motor.asset_tag}/")
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/replace/")  # put back once, not on every visit
+    assert not phone.is_visible("#form-put-back") and phone.input_value("#id_serial") == ""

@@ -88,6 +88,69 @@
       }, 250);
     });
   }
+  // A form sent once the sign-in had ended is not saved: the server answers with the sign-in page and its
+  // notice (#not-saved, fleet.security.SignInFirstMiddleware), then, signed in, with the page the form was on.
+  // So every form sent is held in this tab (sessionStorage) until the next page: the sign-in page with the
+  // notice keeps it, says whether it is kept, and the page it leads back to puts it back once, saying so; any
+  // other page drops it (saved, or refused and shown again with what was sent). A form with a draft of its own
+  // (data-keeps-draft: the reading form, which names its draft's key there as it is sent) is held by that name.
+  const SENT = "form-sent";
+  const here = location.pathname + location.search;
+  let sent = null;
+  try { sent = JSON.parse(sessionStorage.getItem(SENT) || "null"); } catch (error) { sent = null; }
+  // Read as attributes: a field named "method" or "action" (the reading form's, a button's) shadows the properties.
+  const actionOf = (form) => new URL(form.getAttribute("action") || location.href, location.href).href;
+  const notSaved = document.getElementById("not-saved");
+  if (notSaved) {
+    let kept = false;
+    try { kept = Boolean(sent && (sent.values || localStorage.getItem(sent.draft) !== null)); } catch (error) { kept = false; }
+    document.getElementById("not-saved-kept").hidden = !kept;
+    document.getElementById("not-saved-lost").hidden = kept;
+    if (sent) try { sessionStorage.setItem(SENT, JSON.stringify({ ...sent, signedOut: true })); } catch (error) { /* storage off */ }
+  } else if (sent) {
+    try { sessionStorage.removeItem(SENT); } catch (error) { /* storage off */ }
+    const form = sent.signedOut && sent.values && sent.page === here &&
+      [...document.querySelectorAll("form[method=post]")].find((f) => actionOf(f) === sent.action);
+    if (form) putBack(form, sent.values);
+    // A form with a draft of its own puts it back itself, saying so (data-draft-note): that is the first thing in view.
+    const ownNote = sent.signedOut && sent.draft && sent.page === here && document.querySelector("[data-draft-note]:not([hidden])");
+    if (ownNote) ownNote.scrollIntoView({ block: "start" });
+  }
+  function putBack(form, values) {
+    const left = values.map((pair) => pair.slice());
+    const take = (name, value) => {
+      const k = left.findIndex(([n, v]) => n === name && (value === undefined || v === value));
+      return k < 0 ? undefined : left.splice(k, 1)[0][1];
+    };
+    [...form.elements].forEach((e) => {
+      if (!e.name || e.name === "csrfmiddlewaretoken" || ["submit", "button", "file", "password"].includes(e.type)) return;
+      if (e.type === "radio" || e.type === "checkbox") e.checked = take(e.name, e.value) !== undefined;
+      else if (e.type === "select-multiple") [...e.options].forEach((o) => { o.selected = take(e.name, o.value) !== undefined; });
+      else { const v = take(e.name); if (v !== undefined) e.value = v; }
+      e.dispatchEvent(new Event("input", { bubbles: true }));
+      e.dispatchEvent(new Event("change", { bubbles: true }));
+    });
+    const note = document.createElement("div");
+    note.className = "caution";
+    note.id = "form-put-back";
+    note.setAttribute("role", "status");
+    note.innerHTML = "<strong>Not saved yet: what you typed before signing in again is back in the form.</strong>" +
+      "Check it and press Save again.";
+    form.before(note);
+    note.scrollIntoView({ block: "start" });
+  }
+  document.addEventListener("submit", (event) => {
+    const form = event.target;
+    if (event.defaultPrevented || (form.getAttribute("method") || "").toLowerCase() !== "post" ||
+        "signIn" in form.dataset || "signOut" in form.dataset) return;
+    const record = { page: here, action: actionOf(form) };
+    if ("keepsDraft" in form.dataset) record.draft = form.dataset.keepsDraft;
+    else {
+      const secret = (name) => name === "csrfmiddlewaretoken" || (form.elements[name] || {}).type === "password";
+      record.values = [...new FormData(form)].filter(([name, v]) => !secret(name) && typeof v === "string");
+    }
+    try { sessionStorage.setItem(SENT, JSON.stringify(record)); } catch (error) { /* storage off: the notice says so */ }
+  });
   // A date box shows its day in the browser's own order of day, month and year: the day it holds is said
   // beside it in words, as the pages write days (weekday, year-month-day; a date and time box adds its time).
   // A button with data-fills puts its value, a day, into the box it names; the one matching the box is shown pressed.
