@@ -200,6 +200,11 @@ class ReplacementForm(forms.Form):
         choices=FittedCapacitor.RemovalReason.choices,
         widget=forms.RadioSelect,
         label="Why the old one came out",
+        help_text=(
+            "Failed in service: it had failed when you found it (open, shorted, bulged, leaking, vented, or the motor "
+            "would not start), even on a planned visit. The life data count it as a failure; replaced on plan counts "
+            "as one still working."
+        ),
         error_messages={
             "required": "Choose why the old capacitor came out: failed in service, replaced on plan, or other."
         },

@@ -189,6 +189,37 @@ def test_a_replacement_recorded_from_its_planned_order_starts_at_replaced_on_pla
     assert _checked_reason(client.get(from_orders).content.decode()) is None  # no open replacement order
 
 
+def test_a_capacitor_found_failed_is_not_taken_as_replaced_on_plan_from_its_order(client, technician):
+    """A walk: the replacement form opened from a planned order starts at "Replaced on plan", and a technician who
+    found the capacitor failed and saved without changing it recorded a failure as a planned removal, which the
+    life data count as a capacitor still working (a suspension). [derived] where its newest reading saw a defect
+    or read it open, nothing is chosen for the technician; the form says which reason is which, and why it counts.
+    [trade] a unit removed failed is a failure, one removed still working a suspension (IEC 61649, 2008, from
+    memory, unverified)."""
+    (fitted_capacitor,) = _route("FLD", 1)
+    WorkOrder.objects.create(
+        motor=fitted_capacitor.motor,
+        fitted_capacitor=fitted_capacitor,
+        kind=WorkOrder.Kind.REPLACE_RUN,
+        due_on=timezone.localdate(),
+        state=WorkOrder.State.ISSUED,
+    )
+    client.force_login(technician)
+    from_orders = f"{reverse('replace', args=[fitted_capacitor.id])}?next={reverse('work_orders')}"
+    make_reading(fitted_capacitor, taken_at=timezone.now() - timezone.timedelta(days=2), capacitance_uf=3.9)
+    page = client.get(from_orders).content.decode()
+    assert _checked_reason(page) == FittedCapacitor.RemovalReason.PLANNED
+    assert "The life data count it as a failure" in page
+    bulged = make_reading(
+        fitted_capacitor, taken_at=timezone.now() - timezone.timedelta(hours=1), capacitance_uf=3.9, condition="bulged"
+    )
+    assert _checked_reason(client.get(from_orders).content.decode()) is None
+    make_reading(fitted_capacitor, capacitance_uf=3.9, supersedes=bulged, taken_at=bulged.taken_at)  # a correction
+    assert _checked_reason(client.get(from_orders).content.decode()) == FittedCapacitor.RemovalReason.PLANNED
+    make_reading(fitted_capacitor, taken_at=timezone.now() - timezone.timedelta(minutes=10), capacitance_uf=0.2)
+    assert _checked_reason(client.get(from_orders).content.decode()) is None  # read open: under a tenth of 4 µF
+
+
 def test_a_half_read_motor_offers_its_other_capacitor_before_the_next_motor(client, technician):
     """A motor with a run and a start capacitor, its run capacitor read from the route: the message offered the next
     motor while the route still listed this one as half read ("start capacitor" to read). It offers the start

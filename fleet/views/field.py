@@ -41,6 +41,7 @@ from fleet.services.readings import (
     capacitor_as_shown,
     measured_words,
     newest_correction,
+    newest_reading_found_it_failed,
     reading_to_correct,
     record_reading,
     replace_capacitor,
@@ -291,12 +292,14 @@ def replace(request, fitted_capacitor_id):
     design = design_part(fitted_capacitor)
     back = page_to_return_to(request)
     # Reached from its open replacement order (a visit sheet's or the work-orders list's "Record the
-    # replacement"), the capacitor comes out on plan; from anywhere else no reason is taken for granted.
+    # replacement"), the capacitor comes out on plan, unless its newest reading found it failed; from anywhere
+    # else no reason is taken for granted.
     planned = (
         request.method != "POST"
         and back is not None
         and back.startswith(WORK_ORDER_PAGES)
         and open_replacement_order(fitted_capacitor.id) is not None
+        and not newest_reading_found_it_failed(fitted_capacitor)
     )
     initial = {"removal_reason": FittedCapacitor.RemovalReason.PLANNED} if planned else None
     form = ReplacementForm(request.POST or None, initial=initial, fitted_capacitor=fitted_capacitor, design=design)
