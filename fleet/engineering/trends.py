@@ -90,6 +90,10 @@ class TrendSettings:
     # film, whose self-healing clears area faster the more it has lost; an electrolytic's drying-out
     # sets in late whatever its early slope, and conditioned it lost recall (docs/engineering.md 7).
     bend_given_slope_dielectrics: tuple[str, ...] = (DIELECTRIC_FILM,)
+    # Readings of one capacitor within one such span of its calendar hours since fitting are one visit: a value
+    # read again minutes later (a doubt, a second meter) shares that day's temperature, leads and judgement, so
+    # the visit counts as one reading in the fit, not as k independent ones (`_visit_shares`).
+    visit_window_h: float = 24.0
 
 
 def default_tempco_ppm_per_k(dielectric, settings: TrendSettings | None = None) -> np.ndarray:
@@ -463,6 +467,7 @@ def fit_trends(
     if len(g):
         last_time[g] = t  # sorted by time within each group: the last write is the newest
     recency = np.exp2(-np.maximum(last_time[g] - t, 0.0) / settings.recency_half_life_h)
+    visit = _visits(g, t, settings.visit_window_h)
 
     straight_part = np.zeros(n_parts, bool)
     if straight_per_capacitor is not None and n_groups:
@@ -498,6 +503,7 @@ def fit_trends(
             fraction,
             keep,
             recency,
+            visit,
             n_groups,
             n_parts,
             settings,
@@ -542,6 +548,7 @@ def fit_trends(
     z_now = intercept + slope * tau_now + curvature * tau_now**2
     fraction_now = np.where(use_log, np.exp(z_now), z_now)
     readings_used = np.bincount(g, weights=used.astype(float), minlength=n_groups).astype(int)
+    visits_used = np.rint(np.bincount(g, weights=_visit_shares(visit, used), minlength=n_groups)).astype(int)
     return TrendFit(
         model=model_per_group,
         intercept=intercept,
@@ -552,7 +559,7 @@ def fit_trends(
         noise_sd=noise_sd,
         readings_used=readings_used,
         readings_flagged=np.bincount(g, weights=flagged.astype(float), minlength=n_groups).astype(int),
-        low_confidence=readings_used < settings.min_readings_for_confidence,
+        low_confidence=visits_used < settings.min_readings_for_confidence,  # repeats of one visit are not more
         stress_hours_now=tau_now,
         hours_now=last_time,
         stress_rate=rate,
@@ -592,6 +599,7 @@ def _fit_model(
     fraction,
     keep,
     recency,
+    visit,
     n_groups,
     n_parts,
     settings,
@@ -608,14 +616,16 @@ def _fit_model(
     `part_family` (per part): the family a part with few capacitors borrows its population from.
 
     A reading of recency weight w counts as one of variance sigma^2 / w
-    (weighted least squares), in the population estimates and the posterior alike.
+    (weighted least squares), in the population estimates and the posterior alike;
+    the k readings used of one visit (`visit`, per reading) share one reading's weight.
     """
     flagged = np.zeros(len(g), bool)
     floor_z = settings.outlier_floor_fraction
     for _ in range(3):  # fit, flag, refit, flag, final fit
         used = keep & ~flagged & np.isfinite(z)
-        w = np.where(used, recency, 0.0)
-        count = np.bincount(g, weights=used.astype(float), minlength=n_groups)
+        share = _visit_shares(visit, used)
+        w = recency * share
+        count = np.bincount(g, weights=share, minlength=n_groups)  # visits with a reading used
         z_safe = np.where(used, z, 0.0)
         if priors is not None:
             curvature, curvature_var = _stored(priors.curvature, n_parts), _stored(priors.curvature_var, n_parts)
@@ -722,6 +732,25 @@ def _fit_model(
         if priors is None
         else np.asarray(priors.capacitors),
     }
+
+
+def _visits(g, t, window_h: float) -> np.ndarray:
+    """Per reading (sorted by capacitor, then time), its visit: readings of one capacitor in one window of
+    `window_h` calendar hours since fitting. Fixed windows, not chains of near readings: a capacitor read every
+    day by a monitoring system keeps one visit a day."""
+    if not len(g):
+        return np.zeros(0, np.int64)
+    window = np.floor(np.asarray(t, float) / window_h)
+    new = np.r_[True, (g[1:] != g[:-1]) | (window[1:] != window[:-1])]
+    return np.cumsum(new) - 1
+
+
+def _visit_shares(visit, used) -> np.ndarray:
+    """Per reading, its share of its visit's one reading: 1/k for each of the k readings used there, 0 unused.
+    Repeat readings of one moment are not independent evidence of a path (pseudoreplication: Hurlbert,
+    Ecological Monographs 54, 1984 [mem]); weighted 1/k, they give the fit of their mean read once."""
+    per_visit = np.bincount(visit, weights=used.astype(float))[visit]
+    return np.where(used, 1.0 / np.maximum(per_visit, 1.0), 0.0)
 
 
 def _part_noise(g, part, tau, z_safe, w, used, count, rich, n_groups, n_parts, settings):
