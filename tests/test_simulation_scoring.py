@@ -54,6 +54,8 @@ def test_dates_inside_below_and_above_the_band():
     assert scoring.score(truth.iloc[:1], CUT, open_ended)["inside"] == 1.0  # P90 beyond the horizon holds it
     # P50 errors over a remaining life of 152 days: 0, +61, -121 days.
     assert result["p50_error_median"] == pytest.approx(0.0)
+    # Widths 61, 62, 46 days and 0 (both ends past the horizon): the median is (46 + 61) / 2 days.
+    assert result["band_width_median_y"] == pytest.approx(53.5 / 365.25)
 
 
 def test_recall_and_precision_of_the_365_day_flag():

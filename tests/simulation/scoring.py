@@ -71,6 +71,9 @@ def score(truth: pd.DataFrame, cutoff: dt.date, forecasts: pd.DataFrame, horizon
     n_band = len(scored) + missing
     remaining = (c - day).dt.days.clip(lower=1)
     p50_error = ((scored["p50_on"] - c).dt.days / remaining).dropna()
+    # The band's width in years, a null date at the API's 30-year horizon (as the second fleet's scorer reads it).
+    far = day + pd.DateOffset(years=30)
+    width_y = (p90.fillna(far) - p10.fillna(far)).dt.days / 365.25
 
     # What exactly right forecasts would score here, each capacitor followed to the end of its span (a diagnostic:
     # the crossings seen are the early part of each forecast's distribution).
@@ -110,6 +113,7 @@ def score(truth: pd.DataFrame, cutoff: dt.date, forecasts: pd.DataFrame, horizon
         "censored_above_p90": censored_above,
         "p50_error_median": float(np.median(p50_error)) if len(p50_error) else float("nan"),
         "p50_abs_error_median": float(np.median(np.abs(p50_error))) if len(p50_error) else float("nan"),
+        "band_width_median_y": float(np.median(width_y)) if len(width_y) else float("nan"),
         "risk_eligible": int(eligible.sum()),
         "risk_positives": n_pos,
         "risk_flagged": n_flag,
@@ -135,14 +139,14 @@ def table(results: dict[str, dict]) -> str:
     """Figures as a small text table, one line per group."""
     lines = [
         f"{'group':<14}{'cut-off':<12}{'n':>4}{'in':>7}{'<P10':>7}{'>P90':>7}{'none':>6}{'P50err':>8}"
-        f"{'|P50|':>7}{'pos':>5}{'flag':>5}{'TP':>4}{'recall':>8}{'prec':>7}"
+        f"{'|P50|':>7}{'width':>6}{'pos':>5}{'flag':>5}{'TP':>4}{'recall':>8}{'prec':>7}"
         f"  if right: {'n':>4}{'in':>5}{'<P10':>6}"
     ]
     for group, r in results.items():
         lines.append(
             f"{group:<14}{r['cutoff']:<12}{r['band_scored']:>4}{r['inside']:>7.0%}{r['below_p10']:>7.0%}"
             f"{r['above_p90']:>7.0%}{r['no_forecast']:>6.0%}{r['p50_error_median']:>8.2f}{r['p50_abs_error_median']:>7.2f}"
-            f"{r['risk_positives']:>5}{r['risk_flagged']:>5}{r['risk_true_flags']:>4}{r['recall']:>8.0%}{r['precision']:>7.0%}"
+            f"{r['band_width_median_y']:>6.1f}{r['risk_positives']:>5}{r['risk_flagged']:>5}{r['risk_true_flags']:>4}{r['recall']:>8.0%}{r['precision']:>7.0%}"
             f"  {'':>10}{r['expected_scored']:>4.0f}{_percent(r['expected_inside']):>5}"
             f"{_percent(r['expected_below_p10']):>6}"
         )
