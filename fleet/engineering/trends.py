@@ -237,7 +237,9 @@ def stress_hours(group, time_h, temperature_c, voltage_v, rated_voltage_v, n_gro
     return tau, rate
 
 
-def _borrowed_stress_rate(g, t, rate, log_factor, part, n_groups, n_parts, part_family, settings, stored=None):
+def _borrowed_stress_rate(
+    g, t, rate, log_factor, part, n_groups, n_parts, part_family, settings, stored=None, share=None
+):
     """Each capacitor's long-run stress rate, a young one's drawn towards its part's.
 
     A capacitor's own rate is a mean over the seasons once its readings have sampled them all: four
@@ -254,26 +256,29 @@ def _borrowed_stress_rate(g, t, rate, log_factor, part, n_groups, n_parts, part_
     capacitors read for a whole year: the median and a robust variance, (1.4826 MAD)^2, of their log
     mean factors (three or more), and the pooled variance of their readings' log factors about each
     one's mean; a part without them takes its family's (`part_family`, the dielectric), and with none
-    there either (nan) each capacitor keeps its own. Input sorted by group, time. Returns per
-    capacitor the rate and the variance of its log still unknown; per part the three figures.
+    there either (nan) each capacitor keeps its own. Input sorted by group, time. `share`: each
+    reading's share of its visit (`_visit_shares`; None: one reading a visit), so k readings of one
+    visit sample its season once. Returns per capacitor the rate and the variance of its log still
+    unknown; per part the three figures.
     """
+    share = np.ones(len(g)) if share is None else share
     window = settings.projection_window_h
     first = np.full(n_groups, np.inf)
     newest = np.full(n_groups, -np.inf)
     np.minimum.at(first, g, t)
     np.maximum.at(newest, g, t)
-    count = np.bincount(g, minlength=n_groups).astype(float)
+    count = np.bincount(g, weights=share, minlength=n_groups)  # its visits
     whole = ~(newest - first < 2.0 / 3.0 * window)  # a capacitor without readings keeps its own (1.0)
     with np.errstate(invalid="ignore", divide="ignore"):
-        own_mean = np.bincount(g, weights=np.exp(log_factor), minlength=n_groups) / count  # its readings' mean
+        own_mean = np.bincount(g, weights=share * np.exp(log_factor), minlength=n_groups) / count  # its visits' mean
     if stored is not None:
         part_rate, between, within = (_stored(values, n_parts, fill=np.nan) for values in stored)
     else:
         family = part_family[part]
         n_families = int(part_family.max(initial=0)) + 1
         log_rate = np.log(np.where(whole, own_mean, np.nan))
-        mean_log = np.bincount(g, weights=log_factor, minlength=n_groups) / np.maximum(count, 1.0)
-        squares = np.bincount(g, weights=(log_factor - mean_log[g]) ** 2, minlength=n_groups)
+        mean_log = np.bincount(g, weights=share * log_factor, minlength=n_groups) / np.maximum(count, 1.0)
+        squares = np.bincount(g, weights=share * (log_factor - mean_log[g]) ** 2, minlength=n_groups)
         dof = np.where(whole & (count >= 2), count - 1.0, 0.0)
 
         def pooled(index, n_bins):
@@ -468,6 +473,7 @@ def fit_trends(
         last_time[g] = t  # sorted by time within each group: the last write is the newest
     recency = np.exp2(-np.maximum(last_time[g] - t, 0.0) / settings.recency_half_life_h)
     visit = _visits(g, t, settings.visit_window_h)
+    every_visit_share = _visit_shares(visit, np.ones(len(g), bool))
 
     straight_part = np.zeros(n_parts, bool)
     if straight_per_capacitor is not None and n_groups:
@@ -488,6 +494,7 @@ def fit_trends(
         part_family,
         settings,
         None if priors is None else (priors.stress_rate, priors.stress_rate_log_var, priors.reading_log_var),
+        every_visit_share,
     )
     fits = {}
     wanted = set(priors.model) if priors is not None else {MODEL_LINEAR, MODEL_LOG}

@@ -18,7 +18,10 @@ from fleet.engineering.trends import (
     MODEL_LINEAR,
     MODEL_LOG,
     TrendSettings,
+    _borrowed_stress_rate,
     _conditional_bend,
+    _visit_shares,
+    _visits,
     crossing_quantiles,
     fit_trends,
 )
@@ -513,3 +516,27 @@ def test_readings_repeated_within_one_visit_count_as_their_mean_read_once():
     quarters = sim["time_h"][last] + np.arange(5) * 2190.0
     five_visits = alone(np.r_[earlier_t, quarters], np.r_[earlier_uf, repeats])
     assert five_visits.slope_sd[0] < 0.8 * with_repeats.slope_sd[0]
+
+
+def test_a_young_capacitors_stress_rate_counts_a_visits_repeats_as_one_season_sample():
+    """The long-run stress rate of a capacitor read for less than a year is its visits' mean ageing factor drawn
+    towards its part's, by the normal-normal posterior (ours, docs/engineering.md section 6): four readings of
+    one hot afternoon sample one season, not four (pseudoreplication, Hurlbert 1984, from memory, unverified).
+    [derived] two visits, the second read four times at one factor, give the rate and the variance of two single
+    readings: precision 2 / s2 + 1 / p2."""
+    settings = TrendSettings()
+    t = np.array([0.0, 100.0, 2000.0, 2000.1, 2000.2, 2000.3, 0.0, 100.0, 2000.0])
+    g = np.array([0, 0, 0, 0, 0, 0, 1, 1, 1])
+    log_factor = np.log(np.array([1.0, 1.0, 2.0, 2.0, 2.0, 2.0, 1.0, 1.0, 2.0]))
+    part = np.zeros(2, np.int64)
+    stored = (np.array([1.2]), np.array([0.3]), np.array([0.2]))  # m as a rate, p2, s2
+    share = _visit_shares(_visits(g, t, settings.visit_window_h), np.ones(len(g), bool))
+    rate, log_var, *_ = _borrowed_stress_rate(
+        g, t, np.ones(2), log_factor, part, 2, 1, np.zeros(1, np.int64), settings, stored, share
+    )
+    assert rate[0] == pytest.approx(rate[1]) and log_var[0] == pytest.approx(log_var[1])
+    # Three visits (0 h and 100 h are two), so 3 / 0.2 + 1 / 0.3 each; counted by reading, the first would be 6.
+    assert log_var[1] == pytest.approx(1.0 / (3 / 0.2 + 1 / 0.3))
+    own_mean = (1.0 + 1.0 + 2.0) / 3
+    expected = np.exp((3 / 0.2 * np.log(own_mean) + np.log(1.2) / 0.3) / (3 / 0.2 + 1 / 0.3))
+    assert rate[0] == pytest.approx(expected)
