@@ -850,9 +850,9 @@ def test_two_imports_of_one_file_at_once_save_each_row_once_and_say_so(kind, fil
 @threads_race
 def test_a_reading_saved_while_an_import_writes_waits_a_bounded_time_and_keeps_every_value(capacitor, settings):
     """A reading saved on the form while a large readings import wrote waited on the import's lock for the whole
-    write (21 s for 250,000 rows on a busy 2-core machine), unbounded: past the web server's timeout the request was ended with no
-    words. [derived] it waits FLEET_WRITE_WAIT_MS at most, then the form comes back with every value and says it
-    was not saved; nothing is saved; once the import is done, Save again stores it once."""
+    write (21 s for 250,000 rows on a busy 2-core machine), unbounded: past the web server's timeout the request was
+    ended with no words. [derived] it waits FLEET_WRITE_WAIT_MS at most, then the form comes back with every value
+    and says it was not saved; nothing is saved; once the import is done, Save again stores it once."""
     settings.FLEET_WRITE_WAIT_MS = 300
     user = make_user("technician")
     form = {
@@ -919,6 +919,8 @@ def test_a_reading_refused_by_a_busy_database_comes_back_with_every_value(capaci
         answer = client.post(f"/fitted-capacitors/{capacitor.id}/reading/", form)
     page = answer.content.decode()
     assert answer.status_code == 200 and "Not saved yet" in page and 'value="3.9513"' in page
-    with mock.patch(target, side_effect=OperationalError("server closed the connection")):
-        with pytest.raises(OperationalError):
-            client.post(f"/fitted-capacitors/{capacitor.id}/reading/", form)
+    with (
+        mock.patch(target, side_effect=OperationalError("server closed the connection")),
+        pytest.raises(OperationalError),
+    ):
+        client.post(f"/fitted-capacitors/{capacitor.id}/reading/", form)
