@@ -13,6 +13,7 @@ from fleet.engineering.planning import (
     RISK_SOUND,
     RISK_WATCH,
     judge,
+    risk_levels,
 )
 from fleet.engineering.rules import (
     capacitance_low_unit_slip,
@@ -140,6 +141,15 @@ def test_risk_levels_follow_the_early_crossing():
         == "trend reaches the tolerance limit (9.40 \u00b5F) between 2027-06 and 2029-02 (likely 2028-01)"
     )
     assert result.reason[4].startswith("trend stays above the tolerance limit")
+
+
+def test_risk_levels_change_at_a_quarter_and_at_a_year():
+    """[trade] due soon: the early crossing within a quarter, the next round of readings (90 days); ours:
+    watch within a year (365 days). Both edges belong to the nearer level; a day past each is the next."""
+    result = _judge([89.0, 90.0, 91.0, 364.0, 365.0, 366.0], [900.0] * 6)
+    assert result.risk.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_WATCH, RISK_WATCH, RISK_WATCH, RISK_SOUND]
+    levels = risk_levels(np.zeros(4, bool), [89.99, 90.01, 364.99, 365.01])
+    assert levels.tolist() == [RISK_DUE_SOON, RISK_WATCH, RISK_WATCH, RISK_SOUND]
 
 
 def test_the_replacement_and_the_reading_again_follow_the_risk_rules_quantile():
