@@ -129,6 +129,17 @@ def test_an_in_circuit_reading_far_from_its_trend_is_asked_on_the_voltage_it_was
     assert not meter.confirm.get("capacitor_voltage_v", [""])[0]
 
 
+def test_a_reading_is_asked_about_its_trend_past_8_percent_of_the_rating():
+    """[trade] more than 8 % of the rating off the trend asks to confirm or re-measure
+    (`ReadingRules.off_trend_fraction`): on a 4 uF part with its trend at 4.00 uF, 3.679 uF asks and 3.681 uF
+    does not; a setting of 10 % lets 3.679 uF through."""
+    result = check({"capacitance_uf": ["3.679", "3.681"]}, predicted_uf=4.0)
+    assert result.needs_confirmation.tolist() == [True, False]
+    assert "3.679 µF is far from this capacitor's trend (4.00 µF" in result.confirm["capacitance_uf"][0]
+    wider = check({"capacitance_uf": ["3.679"]}, predicted_uf=4.0, rules=ReadingRules(off_trend_fraction=0.1))
+    assert not wider.needs_confirmation[0]
+
+
 def test_dates_stay_inside_the_fitting_window_and_out_of_the_future():
     taken = np.array(["0001-01-01", "2021-12-31T23:00", "2026-05-01", "2026-06-02", "NaT"], "datetime64[s]")
     result = check({"capacitance_uf": ["4"] * 5}, taken_at=taken)
