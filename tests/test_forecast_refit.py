@@ -212,25 +212,46 @@ def test_cutoffs_are_whole_quarters_before_the_newest_reading():
 
 @pytest.mark.django_db
 def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
-    part = make_part()
+    """Paths of our own (ours: accelerating losses, noise 0.01 uF) on a 4 uF part with a -5 % tolerance (its
+    limit 3.8 uF). [derived] from the readings: at each cut-off the back-test scores the capacitors not yet
+    read below the limit, counts as crossed those read below it after the cut-off, and holds each to its
+    readings after the cut-off; the calibration counts the 30 capacitors and every later reading of every
+    cut-off (150 + 120 + 90 + 60). The losses accelerate, so the slope fitted before a cut-off understates
+    the fall after it: the calibration steepens the future slope (bias above 0)."""
+    part = make_part(rated_uf=4.0, tolerance_minus_pct=5)
     rng = np.random.default_rng(3)
+    values = []
     for _ in range(30):
         fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
         rate = rng.uniform(0.08, 0.3)  # % of rated a quarter, accelerating: some cross after each cut-off
         losses = [rate * k * (1 + 0.08 * k) for k in range(16)]
-        quarterly_readings(fitted_capacitor, START, [4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
+        values.append([4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
+        quarterly_readings(fitted_capacitor, START, values[-1])
+    values = np.array(values)
+    read_on = np.array([(START + dt.timedelta(days=91 * k)).date() for k in range(16)])
     backtest = run_backtest(start_backtest(quarters=4, queue=False).id)
     assert backtest.state == "done", backtest.message
     assert len(backtest.results["cutoffs"]) == 4
+    later_readings = 0
+    for scored in backtest.results["cutoffs"]:
+        cutoff = dt.date.fromisoformat(scored["cutoff"])
+        before, after = read_on <= cutoff, read_on > cutoff
+        not_yet = (values[:, before] >= 3.8).all(axis=1)
+        assert scored["later_readings"] == 30 * after.sum(), cutoff
+        assert scored["default"]["capacitors"] == not_yet.sum(), cutoff
+        assert scored["default"]["crossed"] == (not_yet & (values[:, after] < 3.8).any(axis=1)).sum(), cutoff
+        later_readings += scored["later_readings"]
     assert backtest.results["pooled"]["calibrated"]["all"]["crossed"] > 0
     calibration = BandCalibration.objects.get(family="film")
-    assert calibration.residuals > 0 and np.isfinite(calibration.slope_spread)
+    assert calibration.capacitors == 30 and calibration.residuals == later_readings == 420
+    assert calibration.slope_bias > 0 and np.isfinite(calibration.slope_spread)
     assert Reading.objects.count() == 30 * 16  # a back-test writes no readings
 
 
 @pytest.mark.django_db
 def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_so():
-    """The second wear sign: capacitance steady, ESR climbing (DF = ESR x 2 pi f C) to the part's 10 %."""
+    """[trade] The second wear sign: capacitance steady, ESR climbing (DF = ESR x 2 pi f C) to the part's 10 %;
+    ours: due soon, its crossing within a quarter."""
     part = make_part(max_dissipation_factor=0.10, dielectric="electrolytic", rated_uf=4.0)
     fitted_capacitor = make_fitted_capacitor(part=part, role="run")
     now = START + dt.timedelta(days=5 * 91 + 1)
@@ -246,7 +267,14 @@ def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_
     assert assessment.risk == "due soon"
     assert "dissipation-factor maximum" in assessment.reason
     wear = [limit for limit in assessment.limits if limit["name"] == "dissipation factor"][0]
-    assert wear["maximum"] == pytest.approx(0.10) and wear["p50_on"] is not None
+    assert wear["maximum"] == pytest.approx(0.10)
+    # [derived] DF is a straight line in calendar time here, 0.011 a quarter from 0.04: it reaches 0.10 after
+    # (0.10 - 0.04) / 0.011 = 5.45 quarters of 91 days, 496.4 days from the first reading, 40 days after now.
+    # The readings lie on the line, so the slope has no spread and every quantile falls on that day; the date
+    # is the instant's calendar day in UTC (`planning.instant_days`): one day either way for the zone.
+    crossing = (START + dt.timedelta(days=91 * (0.10 - 0.04) / 0.011)).date()
+    for key in ("p10_on", "p50_on", "p90_on"):
+        assert abs(dt.date.fromisoformat(str(wear[key])) - crossing) <= dt.timedelta(days=1), key
     assert wear["used"] and wear["note"] == ""
 
 
