@@ -28,7 +28,8 @@ from fleet.engineering.rules import (
 
 
 def test_nanofarads_typed_for_microfarads_are_named():
-    """A 4 uF capacitor typed as 3950 (nF) is caught and the uF value suggested."""
+    """[trade] a value 300-3000 times the rating is nanofarads typed for microfarads. A 4 uF capacitor typed as 3950
+    (nF) is caught and the uF value suggested."""
     messages = capacitance_unit_slip([3950.0, 3.95, 15.0, 0.0039], 4.0)
     assert "nanofarads" in messages[0] and "3.95 µF" in messages[0]
     assert messages[1] == ""
@@ -59,7 +60,8 @@ def test_a_voltage_typed_in_kilovolts_is_named_with_the_short_circuit_it_would_b
 
 
 def test_milliamperes_typed_for_amperes_are_named():
-    """4 uF at 400 V, 50 Hz draws 0.50 A; 503 typed means 503 mA."""
+    """[trade] a current 300-3000 times what the rating draws is milliamperes; [derived] 4 uF at 400 V, 50 Hz draws
+    0.50 A; 503 typed means 503 mA."""
     messages = current_unit_slip([503.0, 0.503], 400.0, 4.0, 50.0)
     assert "milliamperes" in messages[0] and "0.503 A" in messages[0]
     assert messages[1] == ""
@@ -179,7 +181,7 @@ def test_the_replacement_and_the_reading_again_follow_the_risk_rules_quantile():
 
 
 def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
-    """A capacitor unread for a long time may have crossed (P10 past) while its
+    """Ours: A capacitor unread for a long time may have crossed (P10 past) while its
     fitted path (P50) has not: read it soon, do not condemn it."""
     result = _judge([0.0, 0.0], [300.0, 0.0])
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
@@ -215,6 +217,7 @@ def test_a_reading_since_the_early_crossing_settles_read_again():
 
 
 def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
+    """[trade] a reading below its limit is replaced; ours the window: due within 14 days (one visit window)."""
     result = _judge([500.0], [900.0], latest=[0.935])
     assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 14.0
     assert (
@@ -224,18 +227,20 @@ def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
 
 
 def test_a_defect_is_replace_now_today():
+    """[trade] a defect seen (bulged, leaking, vented) is replaced now, due today."""
     result = _judge([500.0], [900.0], evidence=[EVIDENCE_DEFECT])
     assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 0.0
 
 
 def test_the_highest_limit_governs():
-    """A falling capacitance meets the highest fraction first."""
+    """Ours, [derived]: A falling capacitance meets the highest fraction first."""
     result = _judge([400.0], [800.0], limits=(0.94, 0.97))
     assert result.governing[0] == 1
     assert "capacitor voltage limit (9.70" in result.reason[0]
 
 
 def test_replacements_are_bundled_into_one_visit_per_site_and_window():
+    """Ours: one visit per site and 14-day window, opened by the earliest due replacement."""
     from fleet.engineering.planning import bundle_visits
 
     site = np.array(["A", "A", "A", "B", "A", "B"])
