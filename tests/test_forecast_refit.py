@@ -27,7 +27,7 @@ def _ageing(fitted_capacitor, losses_pct, **kwargs):
 
 @pytest.mark.django_db
 def test_a_backdated_reading_added_after_the_fit_is_used():
-    """Stale means "a reading was added since", not "a newer date": a reading
+    """Ours: Stale means "a reading was added since", not "a newer date": a reading
     entered late with an old date must reach the assessment."""
     fitted_capacitor = make_fitted_capacitor()
     _ageing(fitted_capacitor, [0, 0.5, 1.0, 1.5, 2.0])
@@ -42,7 +42,7 @@ def test_a_backdated_reading_added_after_the_fit_is_used():
 
 @pytest.mark.django_db
 def test_a_calibration_stored_after_todays_fit_reaches_the_next_refit():
-    """A walk: a back-test stored a new calibration, "Refit the fleet now" then said every capacitor was up to
+    """Ours: A walk: a back-test stored a new calibration, "Refit the fleet now" then said every capacitor was up to
     date and refitted none, so the plan mixed two calibrations until the next day. An assessment judged before
     the calibration in force was stored is due, like one judged before today."""
     fitted_capacitor = make_fitted_capacitor()
@@ -59,7 +59,7 @@ def test_a_calibration_stored_after_todays_fit_reaches_the_next_refit():
 
 @pytest.mark.django_db
 def test_one_absurd_reading_cannot_poison_the_part_priors_or_block_a_refit():
-    """A capacitor voltage of 1e6 V (or a capacitance a thousand times rated) on
+    """Ours: A capacitor voltage of 1e6 V (or a capacitance a thousand times rated) on
     one capacitor leaves every stored prior finite and every refit working."""
     part = make_part()
     fitted_capacitors = [make_fitted_capacitor(part=part) for _ in range(6)]
@@ -79,6 +79,7 @@ def test_one_absurd_reading_cannot_poison_the_part_priors_or_block_a_refit():
 
 @pytest.mark.django_db
 def test_every_assessment_lists_the_tolerance_limit_with_dates_and_says_why(engineer, client):
+    """Ours: every assessment lists its tolerance limit with its P10/P50/P90 dates and the reason in words."""
     fitted_capacitor = make_fitted_capacitor()
     _ageing(fitted_capacitor, [0, 0.8, 1.6, 2.4, 3.2, 4.0])
     refit_fitted_capacitors([fitted_capacitor.id])
@@ -94,6 +95,7 @@ def test_every_assessment_lists_the_tolerance_limit_with_dates_and_says_why(engi
 
 @pytest.mark.django_db
 def test_a_reading_below_tolerance_gives_replace_now_with_the_reason_and_not_today():
+    """[trade] a reading below its limit is replaced; ours the window (within 7-14 days, not today: no defect)."""
     fitted_capacitor = make_fitted_capacitor()
     _ageing(fitted_capacitor, [0, 1, 2, 3, 4, 5.5])
     refit_fitted_capacitors([fitted_capacitor.id], now=START + dt.timedelta(days=5 * 91 + 1))
@@ -139,7 +141,7 @@ def test_readings_saved_without_a_case_temperature_keep_a_warm_capacitor_below_i
 
 @pytest.mark.django_db
 def test_a_limit_breached_at_rated_capacitance_is_a_finding_not_wear():
-    """A circuit estimate that puts more than its rating across a new capacitor
+    """Ours: A circuit estimate that puts more than its rating across a new capacitor
     must not condemn it: the limit is set aside with a note."""
     part = make_part(rated_voltage_v=150)  # far below what the example fan puts across it
     fitted_capacitor = make_fitted_capacitor(part=part)
@@ -182,6 +184,8 @@ def test_a_starting_torque_limit_near_rated_governs_only_when_the_circuit_is_mor
 
 @pytest.mark.django_db
 def test_estimated_capacitor_voltage_far_from_the_measured_one_sets_the_motor_limits_aside():
+    """Ours: an estimated capacitor voltage more than 15 % from the median of the last measured ones sets every
+    motor limit aside."""
     fitted_capacitor = make_fitted_capacitor()
     _ageing(
         fitted_capacitor, [0, 0.2, 0.4, 0.6], method="in_circuit", capacitor_current_a=0.1, capacitor_voltage_v=90.0
@@ -207,30 +211,52 @@ def test_a_dissipation_factor_over_the_parts_maximum_is_evidence_to_replace():
 
 
 def test_cutoffs_are_whole_quarters_before_the_newest_reading():
+    """Ours: back-test cut-offs at whole quarter starts before the newest reading."""
     assert default_cutoffs(dt.date(2026, 11, 20), 3) == [dt.date(2026, 1, 1), dt.date(2026, 4, 1), dt.date(2026, 7, 1)]
 
 
 @pytest.mark.django_db
 def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
-    part = make_part()
+    """Paths of our own (ours: accelerating losses, noise 0.01 uF) on a 4 uF part with a -5 % tolerance (its
+    limit 3.8 uF). [derived] from the readings: at each cut-off the back-test scores the capacitors not yet
+    read below the limit, counts as crossed those read below it after the cut-off, and holds each to its
+    readings after the cut-off; the calibration counts the 30 capacitors and every later reading of every
+    cut-off (150 + 120 + 90 + 60). The losses accelerate, so the slope fitted before a cut-off understates
+    the fall after it: the calibration steepens the future slope (bias above 0)."""
+    part = make_part(rated_uf=4.0, tolerance_minus_pct=5)
     rng = np.random.default_rng(3)
+    values = []
     for _ in range(30):
         fitted_capacitor = make_fitted_capacitor(part=part, fitted_on=dt.date(2022, 1, 1))
         rate = rng.uniform(0.08, 0.3)  # % of rated a quarter, accelerating: some cross after each cut-off
         losses = [rate * k * (1 + 0.08 * k) for k in range(16)]
-        quarterly_readings(fitted_capacitor, START, [4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
+        values.append([4.0 * (1 - loss / 100) + rng.normal(0, 0.01) for loss in losses])
+        quarterly_readings(fitted_capacitor, START, values[-1])
+    values = np.array(values)
+    read_on = np.array([(START + dt.timedelta(days=91 * k)).date() for k in range(16)])
     backtest = run_backtest(start_backtest(quarters=4, queue=False).id)
     assert backtest.state == "done", backtest.message
     assert len(backtest.results["cutoffs"]) == 4
+    later_readings = 0
+    for scored in backtest.results["cutoffs"]:
+        cutoff = dt.date.fromisoformat(scored["cutoff"])
+        before, after = read_on <= cutoff, read_on > cutoff
+        not_yet = (values[:, before] >= 3.8).all(axis=1)
+        assert scored["later_readings"] == 30 * after.sum(), cutoff
+        assert scored["default"]["capacitors"] == not_yet.sum(), cutoff
+        assert scored["default"]["crossed"] == (not_yet & (values[:, after] < 3.8).any(axis=1)).sum(), cutoff
+        later_readings += scored["later_readings"]
     assert backtest.results["pooled"]["calibrated"]["all"]["crossed"] > 0
     calibration = BandCalibration.objects.get(family="film")
-    assert calibration.residuals > 0 and np.isfinite(calibration.slope_spread)
+    assert calibration.capacitors == 30 and calibration.residuals == later_readings == 420
+    assert calibration.slope_bias > 0 and np.isfinite(calibration.slope_spread)
     assert Reading.objects.count() == 30 * 16  # a back-test writes no readings
 
 
 @pytest.mark.django_db
 def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_so():
-    """The second wear sign: capacitance steady, ESR climbing (DF = ESR x 2 pi f C) to the part's 10 %."""
+    """[trade] The second wear sign: capacitance steady, ESR climbing (DF = ESR x 2 pi f C) to the part's 10 %;
+    ours: due soon, its crossing within a quarter."""
     part = make_part(max_dissipation_factor=0.10, dielectric="electrolytic", rated_uf=4.0)
     fitted_capacitor = make_fitted_capacitor(part=part, role="run")
     now = START + dt.timedelta(days=5 * 91 + 1)
@@ -246,13 +272,20 @@ def test_a_dissipation_factor_rising_towards_its_maximum_sets_the_date_and_says_
     assert assessment.risk == "due soon"
     assert "dissipation-factor maximum" in assessment.reason
     wear = [limit for limit in assessment.limits if limit["name"] == "dissipation factor"][0]
-    assert wear["maximum"] == pytest.approx(0.10) and wear["p50_on"] is not None
+    assert wear["maximum"] == pytest.approx(0.10)
+    # [derived] DF is a straight line in calendar time here, 0.011 a quarter from 0.04: it reaches 0.10 after
+    # (0.10 - 0.04) / 0.011 = 5.45 quarters of 91 days, 496.4 days from the first reading, 40 days after now.
+    # The readings lie on the line, so the slope has no spread and every quantile falls on that day; the date
+    # is the instant's calendar day in UTC (`planning.instant_days`): one day either way for the zone.
+    crossing = (START + dt.timedelta(days=91 * (0.10 - 0.04) / 0.011)).date()
+    for key in ("p10_on", "p50_on", "p90_on"):
+        assert abs(dt.date.fromisoformat(str(wear[key])) - crossing) <= dt.timedelta(days=1), key
     assert wear["used"] and wear["note"] == ""
 
 
 @pytest.mark.django_db
 def test_a_dissipation_factor_limit_without_an_esr_reading_is_listed_not_used():
-    """The export showed `dissipation_factor_used` true for 106 start capacitors never read with ESR, with
+    """Ours: The export showed `dissipation_factor_used` true for 106 start capacitors never read with ESR, with
     no fraction and no dates: without a reading that carries ESR there is no trend to judge."""
     part = make_part(max_dissipation_factor=0.10, dielectric="electrolytic", rated_uf=4.0)
     fitted_capacitor = make_fitted_capacitor(part=part, role="run")
@@ -284,7 +317,7 @@ def test_the_back_test_chooses_the_trend_form_that_forecasts_better(truth, expec
 
 @pytest.mark.django_db
 def test_a_large_fleet_is_back_tested_on_a_fixed_sample(settings):
-    """Bounded time and memory at plant scale: at most FLEET_BACKTEST_MAX_CAPACITORS, the same ones each run."""
+    """Ours: Bounded time and memory at plant scale: at most FLEET_BACKTEST_MAX_CAPACITORS, the same ones each run."""
     settings.FLEET_BACKTEST_MAX_CAPACITORS = 12
     part = make_part()
     for _ in range(30):
@@ -311,7 +344,7 @@ def _accelerating_film_fleet(rng) -> list:
 
 @pytest.mark.django_db
 def test_the_refit_fits_the_path_shape_the_back_test_stored():
-    """Issue 8: the path shape (bent or straight) chosen per dielectric by the back-test is the one the
+    """Ours: Issue 8: the path shape (bent or straight) chosen per dielectric by the back-test is the one the
     part priors and the refit use: stored straight, no capacitor keeps a bend; stored bent, they bend."""
     fitted_capacitors = _accelerating_film_fleet(np.random.default_rng(5))
     ids = [fitted_capacitor.id for fitted_capacitor in fitted_capacitors]
@@ -331,7 +364,7 @@ def test_the_refit_fits_the_path_shape_the_back_test_stored():
 
 @pytest.mark.django_db
 def test_the_back_test_chooses_and_shows_the_path_shape(client, engineer):
-    """Issue 8: on paths that accelerate, the bent path projects the later readings better than a
+    """Ours: Issue 8: on paths that accelerate, the bent path projects the later readings better than a
     straight one; the back-test stores that choice, and the track record and the command show it."""
     _accelerating_film_fleet(np.random.default_rng(6))
     output = io.StringIO()

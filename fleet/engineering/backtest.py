@@ -23,6 +23,7 @@ from .planning import (
     reads_below,
     risk_levels,
 )
+from .rules import ReadingRules
 from .trends import MODEL_LOG, TrendFit
 
 QUANTILES = (0.1, 0.5, 0.9)
@@ -57,12 +58,12 @@ def projection_errors(fit: TrendFit, group, time_h, capacitance_uf, temperature_
     return fit.slope_now()[g] * span, span, z - predicted, variance, fraction
 
 
-def isolated_off_trend(group, day, fraction, projected_fraction, off_trend_fraction=0.08):
+def isolated_off_trend(group, day, fraction, projected_fraction, off_trend_fraction=ReadingRules.off_trend_fraction):
     """Later readings that are strays: off their capacitor's projected trend by more than
     `off_trend_fraction` of the rating, with neither neighbouring reading off it the same way.
 
     Such a reading is the one the technician is asked to confirm or re-measure
-    (`rules.off_trend`, 8 % of the rating by default): the wrong capacitor, a poor
+    (`rules.off_trend`, the rulebook's `off_trend_fraction` by default): the wrong capacitor, a poor
     contact, a slip. Scored as a crossing it would count as ageing that no
     forecast could catch; a sudden real fall shows again in the capacitor's next
     (or previous) reading and stays.

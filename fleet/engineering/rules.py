@@ -793,9 +793,10 @@ def voltage_unit_slip(current_a, voltage_v, rated_uf, frequency_hz, rules: Readi
     )
 
 
-def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=0.08):
+def off_trend(capacitance_uf, predicted_uf, rated_uf, threshold_fraction=ReadingRules.off_trend_fraction):
     """True where a reading sits more than `threshold_fraction` of the rating away
-    from the capacitor's fitted trend: ask the technician to confirm or re-measure."""
+    from the capacitor's fitted trend: ask the technician to confirm or re-measure.
+    The threshold is the rulebook's (`ReadingRules.off_trend_fraction`) unless given."""
     c = np.asarray(capacitance_uf, float)
     predicted = np.asarray(predicted_uf, float)
     with np.errstate(invalid="ignore"):

@@ -20,12 +20,19 @@ from fleet.engineering.capacitor import (
 
 
 def test_verdicts_for_a_film_run_capacitor_marked_plus_minus_5_percent():
-    """[trade] replace a run capacitor below its lower tolerance; 10 % of rated or
-    less reads as an open circuit (a tripped disconnector)."""
+    """[trade] replace a run capacitor below its lower tolerance; under 10 % of rated
+    reads as an open circuit (a tripped disconnector)."""
     verdict = tolerance_verdict([10.0, 9.4, 10.6, 0.3, 9.5], 10.0, 5, 5)
     assert verdict.code.tolist() == [VERDICT_WITHIN, VERDICT_LOW, VERDICT_HIGH, VERDICT_OPEN, VERDICT_WITHIN]
     assert verdict.margin_uf[1] == pytest.approx(-0.1)
     assert verdict.margin_pct[0] == pytest.approx(5.0)
+
+
+def test_an_open_circuit_is_read_under_a_tenth_of_rated():
+    """[trade] under 10 % of rated reads as an open circuit, not merely low (`open_fraction`): on a 10 uF
+    part, 0.999 uF is open, 1.0 and 1.001 uF are low."""
+    verdict = tolerance_verdict([0.999, 1.0, 1.001], 10.0, 5, 5)
+    assert verdict.code.tolist() == [VERDICT_OPEN, VERDICT_LOW, VERDICT_LOW]
 
 
 def test_verdict_for_an_electrolytic_marked_as_a_range():

@@ -16,15 +16,18 @@ from fleet.engineering.drift import (
     ROLE_START,
     TWO_VALUE,
     LimitLevels,
+    OperatingFigures,
     capacitance_limits,
     capacitor_sweep,
     limit_breaches,
     limit_levels,
     operating_figures,
+    overloaded_by_the_part,
 )
 from fleet.engineering.motor import (
     LOAD_CONSTANT,
     LOAD_FAN,
+    Load,
     MotorCircuit,
     load_matching_rated_slip,
     rotor_impedance,
@@ -185,6 +188,41 @@ def test_the_scanned_crossing_is_where_the_drawn_curve_meets_the_level(limit, qu
     column_levels = LimitLevels(*(getattr(levels, name)[:, None] for name in levels.__dataclass_fields__))
     breached = limit_breaches(sweep.figures, sweep.capacitor_voltage_v, column_levels, role[:, None])
     assert breached[LIMIT_NAMES.index(limit)][:, [0, 2]].tolist() == [[False, True]] * 2
+
+
+def _figures(**given) -> OperatingFigures:
+    """Figures of motors running (slip 0.05), the named ones given, the rest unknown (nan)."""
+    count = len(next(iter(given.values())))
+    values = {name: np.full(count, np.nan) for name in OperatingFigures.__dataclass_fields__}
+    return OperatingFigures(**{**values, "slip": np.full(count, 0.05), **given})
+
+
+def test_the_main_current_limit_is_crossed_at_1_15_times_full_load_current():
+    """[trade] a running current over the nameplate's full-load current times a common service factor, 1.15,
+    overloads the winding (`DriftLimits.main_current_ratio`): on a 0.95 A motor the level is 1.0925 A, a run
+    capacitor's main current 0.1 % under it passes and 0.1 % over it breaches; a stop-gap part drawing that
+    line current is judged overloading the motor on the same factor, a design part never."""
+    load = Load(np.full(2, 0.8), np.full(2, 95.0), np.full(2, LOAD_FAN))
+    levels = limit_levels(load, np.full(2, ROLE_RUN), 0.95, 450.0)
+    current_a = 1.15 * 0.95 * np.array([0.999, 1.001])
+    figures = _figures(i_main_a=current_a, starting_torque_nm=np.full(2, 10.0))
+    breached = limit_breaches(figures, np.full(2, 300.0), levels, np.full(2, ROLE_RUN))
+    assert breached[LIMIT_NAMES.index("main-winding current")].tolist() == [False, True]
+    assert overloaded_by_the_part(current_a, 0.95, True).tolist() == [False, True]
+    assert not overloaded_by_the_part(current_a, 0.95, False).any()
+
+
+@pytest.mark.parametrize(("kind", "ratio"), [(LOAD_FAN, 0.3), (LOAD_CONSTANT, 1.25)])
+def test_the_starting_torque_limit_is_the_loads_break_away_torque(kind, ratio):
+    """[trade] a load's break-away torque: a fan about 0.3 x its rated torque, a constant-torque load
+    (compressor, conveyor) 1.25 x (`DriftLimits.breakaway_torque_ratio_*`): on a load of 0.8 N m at rated
+    speed, a starting torque 0.1 % over the level starts it and 0.1 % under it breaches."""
+    load = Load(np.full(2, 0.8), np.full(2, 95.0), np.full(2, kind))
+    levels = limit_levels(load, np.full(2, ROLE_START), 0.95, 450.0)
+    torque_nm = ratio * 0.8 * np.array([1.001, 0.999])
+    figures = _figures(starting_torque_nm=torque_nm, i_main_a=np.full(2, 0.9))
+    breached = limit_breaches(figures, np.full(2, 300.0), levels, np.full(2, ROLE_START))
+    assert breached[LIMIT_NAMES.index("starting torque")].tolist() == [False, True]
 
 
 def test_a_start_capacitor_sets_no_main_current_level():

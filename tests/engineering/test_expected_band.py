@@ -24,15 +24,15 @@ def _log_normal_forecasts(n, seed):
 
 
 def test_the_probability_read_off_log_normal_quantiles_is_scipys_log_normal_cdf():
-    """Between and beyond the quantiles: the normal score is linear in log time for a log-normal,
-    so the reading must equal scipy.stats.lognorm.cdf everywhere, not only at the quantiles."""
+    """[pub] scipy.stats.lognorm; [derived] Between and beyond the quantiles: the normal score is linear in log time
+    for a log-normal, so the reading must equal scipy.stats.lognorm.cdf everywhere, not only at the quantiles."""
     distributions, level_days, rng = _log_normal_forecasts(2000, seed=1)
     for day in (rng.uniform(1, 20000, 2000), level_days[0] * 0.3, level_days[-1] * 3.0, level_days[2]):
         np.testing.assert_allclose(probability_crossed_by(LEVELS, level_days, day), distributions.cdf(day), atol=1e-9)
 
 
 def test_no_probability_is_counted_past_a_quantile_beyond_the_horizon():
-    """A P90 beyond the horizon (inf) says only that the crossing is later than the horizon with at
+    """[derived] A P90 beyond the horizon (inf) says only that the crossing is later than the horizon with at
     least 10 % probability: past the last finite quantile the reading stops at 0.9, never above."""
     days = np.array([[100.0, 100.0], [200.0, 200.0], [300.0, 300.0], [400.0, 400.0], [500.0, 500.0], [2000.0, np.inf]])
     far = probability_crossed_by(LEVELS, days, np.array([1e6, 1e6]))
@@ -42,8 +42,9 @@ def test_no_probability_is_counted_past_a_quantile_beyond_the_horizon():
 
 
 def test_right_forecasts_followed_briefly_show_many_crossings_before_p10_and_the_expected_share_says_so():
-    """Forecasts drawn exactly right, each followed 200 to 1,500 days: among the crossings seen, far
-    more than one in ten lie before P10, and `expected_band_shares` predicts the observed shares."""
+    """Ours (a simulation testing the method's promise; the forecasts drawn from scipy.stats.lognorm): Forecasts
+    drawn exactly right, each followed 200 to 1,500 days: among the crossings seen, far more than one in ten lie
+    before P10, and `expected_band_shares` predicts the observed shares."""
     distributions, level_days, rng = _log_normal_forecasts(40000, seed=2)
     crossing = distributions.rvs(random_state=rng)
     followed = rng.uniform(200, 1500, crossing.size)
@@ -59,8 +60,9 @@ def test_right_forecasts_followed_briefly_show_many_crossings_before_p10_and_the
 
 
 def test_forecasts_running_early_are_told_apart_from_right_ones():
-    """The same forecasts, but the capacitors really last 60 % longer: fewer crossings than expected,
-    fewer before P10 than expected. The expected figures do not follow the outcome."""
+    """Ours (a simulation testing the method's promise): The same forecasts, but the capacitors really last 60 %
+    longer: fewer crossings than expected, fewer before P10 than expected. The expected figures do not follow the
+    outcome."""
     distributions, level_days, rng = _log_normal_forecasts(40000, seed=3)
     crossing = 1.6 * distributions.rvs(random_state=rng)
     followed = rng.uniform(200, 1500, crossing.size)
@@ -73,7 +75,7 @@ def test_forecasts_running_early_are_told_apart_from_right_ones():
 
 
 def test_followed_past_every_p90_the_expected_shares_are_the_nominal_ones():
-    """Followed long enough to see every crossing, the expected shares are the band's own 10/80/10."""
+    """[derived] Followed long enough to see every crossing, the expected shares are the band's own 10/80/10."""
     _, level_days, _ = _log_normal_forecasts(500, seed=4)
     shares = expected_band_shares(LEVELS, level_days, np.full(500, 1e9))
     assert shares["expected_before_p10"] == pytest.approx(0.1, abs=1e-6)

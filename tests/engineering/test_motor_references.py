@@ -47,6 +47,52 @@ def test_chapman_problem_9_1_current_power_torque_output():
     assert output_w == pytest.approx(257.7, abs=0.5)
 
 
+def chapman_circuit(rotational_loss_w=51.0) -> MotorCircuit:
+    """Problem 9-1's motor as the model's circuit (the auxiliary winding stays open)."""
+    return MotorCircuit.from_arrays(
+        r1m=CHAPMAN["r1"],
+        x1m=CHAPMAN["x1"],
+        r1a=1.0,
+        x1a=1.0,
+        r2=CHAPMAN["r2"],
+        x2=CHAPMAN["x2"],
+        xm=CHAPMAN["xm"],
+        turns_ratio=1.0,
+        voltage_v=CHAPMAN["voltage_v"],
+        frequency_hz=CHAPMAN["frequency_hz"],
+        poles=CHAPMAN["poles"],
+        rotational_loss_w=rotational_loss_w,
+    )
+
+
+def test_chapman_problem_9_1_the_models_own_output_and_efficiency():
+    """[pub] Chapman 5th ed. Problem 9-1: output 257.7 W, the 51 W rotational loss taken as a constant power;
+    input V I cos(46.2 deg) = 120 x 4.862 x 0.692 = 403.8 W, efficiency 257.7 / 403.8 = 63.8 % [derived from
+    the book's figures]. The model takes the rotational loss as a constant torque sized at synchronous speed
+    (ours, docs/engineering.md section 2): at slip s it subtracts P_rot (1 - s), so its output is the book's
+    plus exactly s P_rot = 0.05 x 51 = 2.55 W (260.3 W), and its efficiency 2.55 / 403.8 = 0.6 points higher."""
+    run = two_winding_running(chapman_circuit(), 0.0, CHAPMAN["slip"], aux_in_circuit=False)
+    convention_w = CHAPMAN["slip"] * 51.0
+    assert run.output_power_w - (run.mechanical_power_w - 51.0) == pytest.approx(convention_w, abs=1e-9)
+    assert run.output_power_w == pytest.approx(257.7 + convention_w, abs=0.5)
+    assert run.input_power_w == pytest.approx(403.8, abs=0.5)
+    assert run.efficiency == pytest.approx((257.7 + convention_w) / 403.8, abs=0.002)
+    assert run.efficiency - convention_w / run.input_power_w == pytest.approx(0.638, abs=0.002)
+
+
+def test_chapman_problem_9_1_rotor_copper_loss_of_each_field():
+    """[derived] from Chapman 5th ed. Problem 9-1's figures [pub]: P_AG,F = |I|^2 Re ZF / 2 = 340.6 W and
+    P_AG,B = |I|^2 Re ZB / 2 = 15.6 W at 4.862 A. The forward field's rotor runs at slip s, the backward
+    field's at 2 - s, so the rotor copper loss is s P_AG,F + (2 - s) P_AG,B = 17.0 + 30.4 = 47.5 W; the
+    same follows from the power balance: air-gap power in, converted power (1 - s)(P_AG,F - P_AG,B) out."""
+    run = two_winding_running(chapman_circuit(), 0.0, CHAPMAN["slip"], aux_in_circuit=False)
+    assert run.air_gap_forward_w == pytest.approx(340.6, abs=0.1)
+    assert run.air_gap_backward_w == pytest.approx(15.6, abs=0.1)
+    assert run.rotor_copper_loss_w == pytest.approx(0.05 * 340.6 + 1.95 * 15.6, abs=0.1)
+    gap_w = run.air_gap_forward_w + run.air_gap_backward_w
+    assert run.rotor_copper_loss_w == pytest.approx(gap_w - run.mechanical_power_w, rel=1e-12)
+
+
 def test_fitzgerald_example_9_2_starting_winding_open():
     """[mem] Fitzgerald, Kingsley, Umans 6th ed. Example 9.2: about 3.6 A, power
     factor 0.62, 147 W out, efficiency 0.60 (core 24 W, friction and windage 13 W)."""
@@ -56,6 +102,28 @@ def test_fitzgerald_example_9_2_starting_winding_open():
     assert np.cos(np.angle(result.current)) == pytest.approx(0.62, abs=0.01)
     assert output_w == pytest.approx(147.0, abs=1.5)
     assert output_w / result.input_power_w == pytest.approx(0.60, abs=0.01)
+    own = two_winding_running(
+        MotorCircuit.from_arrays(
+            r1m=2.02,
+            x1m=2.79,
+            r1a=1.0,
+            x1a=1.0,
+            r2=4.12,
+            x2=2.12,
+            xm=66.8,
+            turns_ratio=1.0,
+            voltage_v=110.0,
+            frequency_hz=60.0,
+            poles=4,
+            rotational_loss_w=37.0,
+        ),
+        0.0,
+        0.05,
+        aux_in_circuit=False,
+    )
+    # The model's own output: the book's plus s P_rot = 0.05 x 37 W, its losses a constant torque (ours).
+    assert own.output_power_w == pytest.approx(output_w + 0.05 * 37.0, abs=1e-9)
+    assert own.efficiency == pytest.approx((147.0 + 0.05 * 37.0) / own.input_power_w, abs=0.01)
 
 
 # --- Fitzgerald 6th ed. Example 9.1: standstill [mem] / [derived] ------------------
@@ -88,12 +156,13 @@ def test_largest_starting_torque_capacitance_matches_a_brute_force_scan():
 
 
 def test_in_circuit_capacitance_rules_of_thumb():
-    """[trade] C = 2652 I/V at 60 Hz and 3183 I/V at 50 Hz."""
+    """[trade] C = 2652 I/V at 60 Hz and 3183 I/V at 50 Hz: 0.5 A at 400 V, 50 Hz is 3183.1 x 0.5 / 400 =
+    3.979 uF. Ours: no voltage across the capacitor gives no capacitance (nan), not a division error."""
     assert capacitance_from_current(1.0, 1.0, 60.0) == pytest.approx(2652.6, abs=0.1)
     assert capacitance_from_current(1.0, 1.0, 50.0) == pytest.approx(3183.1, abs=0.1)
-    assert capacitance_from_current(np.array([0.5, 1.0]), np.array([400.0, 0.0]), 50.0)[1] != capacitance_from_current(
-        1, 1, 50
-    )
+    fleet = capacitance_from_current(np.array([0.5, 1.0]), np.array([400.0, 0.0]), 50.0)
+    assert fleet[0] == pytest.approx(3183.1 * 0.5 / 400.0, abs=1e-3)
+    assert np.isnan(fleet[1])
 
 
 # --- physics every implementation must pass [derived] ------------------------------

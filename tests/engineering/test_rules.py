@@ -32,6 +32,8 @@ def check(raw, method="meter", taken_at="2026-05-01T09:00", **kwargs):
 
 
 def test_a_decimal_comma_means_a_decimal_point_and_mixed_separators_are_refused():
+    """Ours: a decimal point or one decimal comma; a thousands separator (1,234.5) or two separators are refused,
+    naming the separator."""
     values, messages = parse_numbers(["3,8", "3.8", " 4 ", "1,234.5", "1.234,5", "3,8,1", "", None])
     np.testing.assert_array_equal(values[:3], [3.8, 3.8, 4.0])
     assert list(messages[:3]) == ["", "", ""]
@@ -40,6 +42,7 @@ def test_a_decimal_comma_means_a_decimal_point_and_mixed_separators_are_refused(
 
 
 def test_nan_and_infinity_are_refused_in_every_spelling_and_type():
+    """Ours: NaN and infinity, in any spelling or type, are not readings."""
     hostile = ["nan", "NaN", "inf", "-Infinity", "1e999", float("nan"), float("inf"), 10**400]
     values, messages = parse_numbers(hostile)
     assert np.isnan(values).all()
@@ -47,6 +50,8 @@ def test_nan_and_infinity_are_refused_in_every_spelling_and_type():
 
 
 def test_wrong_types_and_foreign_digits_are_not_numbers():
+    """Ours: only plain ASCII decimal numbers are read (no booleans, containers, full-width digits, underscores or
+    hex)."""
     values, messages = parse_numbers([True, [1], {"a": 1}, "abc", "\uff13", "1_000", "0x10"])
     assert np.isnan(values).all() and set(messages) == {"not a number"}
 
@@ -129,7 +134,20 @@ def test_an_in_circuit_reading_far_from_its_trend_is_asked_on_the_voltage_it_was
     assert not meter.confirm.get("capacitor_voltage_v", [""])[0]
 
 
+def test_a_reading_is_asked_about_its_trend_past_8_percent_of_the_rating():
+    """[trade] more than 8 % of the rating off the trend asks to confirm or re-measure
+    (`ReadingRules.off_trend_fraction`): on a 4 uF part with its trend at 4.00 uF, 3.679 uF asks and 3.681 uF
+    does not; a setting of 10 % lets 3.679 uF through."""
+    result = check({"capacitance_uf": ["3.679", "3.681"]}, predicted_uf=4.0)
+    assert result.needs_confirmation.tolist() == [True, False]
+    assert "3.679 µF is far from this capacitor's trend (4.00 µF" in result.confirm["capacitance_uf"][0]
+    wider = check({"capacitance_uf": ["3.679"]}, predicted_uf=4.0, rules=ReadingRules(off_trend_fraction=0.1))
+    assert not wider.needs_confirmation[0]
+
+
 def test_dates_stay_inside_the_fitting_window_and_out_of_the_future():
+    """Ours: a reading belongs to its capacitor's fitting window and is not in the future (600 s of phone clock
+    drift allowed), said on the site's clock."""
     taken = np.array(["0001-01-01", "2021-12-31T23:00", "2026-05-01", "2026-06-02", "NaT"], "datetime64[s]")
     result = check({"capacitance_uf": ["4"] * 5}, taken_at=taken)
     messages = result.errors["taken_at"]
@@ -179,6 +197,7 @@ def test_a_removal_date_is_a_whole_day_at_the_site():
 
 
 def test_notes_are_bounded_and_free_of_nul():
+    """Ours: notes at most 2000 characters, no NUL character (a database refuses it)."""
     result = check({"capacitance_uf": ["4"] * 3}, notes=["ok", "x" * 2_000_000, "a\x00b"])
     assert result.errors["notes"][0] == ""
     assert "at most 2000" in result.errors["notes"][1]
@@ -186,6 +205,7 @@ def test_notes_are_bounded_and_free_of_nul():
 
 
 def test_thresholds_are_settings():
+    """Ours: every threshold is a field of ReadingRules, so a plant may tighten one."""
     strict = ReadingRules(voltage_confirm_factor=1.5)
     result = check({"capacitance_uf": ["4"], "capacitor_voltage_v": ["400"]}, rules=strict)
     assert result.needs_confirmation[0]
@@ -194,6 +214,7 @@ def test_thresholds_are_settings():
 
 
 def test_many_readings_are_checked_in_one_call():
+    """Ours: the rulebook is vectorised; one call checks a whole import, each bad row named."""
     n = 50_000
     rng = np.random.default_rng(1)
     values = np.round(rng.normal(4.0, 0.05, n), 3).astype(str)
@@ -224,7 +245,8 @@ def test_nameplate_problems_bound_a_capacitor_motors_output_and_current():
 
 
 def test_the_live_checks_words_for_a_range_are_the_servers():
-    """The page's hint said a 0 V reading was "outside 0 to 5000"; it now carries the server's own words."""
+    """Ours (one way to say each thing): The page's hint said a 0 V reading was "outside 0 to 5000"; it now carries
+    the server's own words."""
     hint = RULES.as_dict()["ranges"]
     assert hint["capacitor_voltage_v"]["too_low"] == "must be above 0 V"
     assert hint["capacitor_voltage_v"]["too_high"] == "is above 5000 V, the most a reading of a small motor shows"
@@ -439,7 +461,7 @@ def test_a_huge_number_typed_is_written_back_as_the_browser_writes_it():
 
 
 def test_a_reading_whose_time_is_refused_is_not_asked_about_its_trend_at_that_time():
-    """A walk imported a row dated 2099-01-01: refused as a future time, and also asked "29.9 uF is far from this
+    """Ours: A walk imported a row dated 2099-01-01: refused as a future time, and also asked "29.9 uF is far from this
     capacitor's trend (-43.72 uF at this reading's time)", a trend value at a time that was refused. A check that
     rests on another field waits until that field is right; the same value at a good time is still asked."""
     taken = np.array(["2099-01-01T09:00", "2026-05-01T09:00"], "datetime64[s]")

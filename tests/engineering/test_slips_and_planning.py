@@ -5,6 +5,7 @@ import datetime as dt
 import numpy as np
 import pytest
 
+from fleet.engineering.backtest import isolated_off_trend
 from fleet.engineering.planning import (
     EVIDENCE_DEFECT,
     EVIDENCE_NONE,
@@ -13,8 +14,10 @@ from fleet.engineering.planning import (
     RISK_SOUND,
     RISK_WATCH,
     judge,
+    risk_levels,
 )
 from fleet.engineering.rules import (
+    ReadingRules,
     capacitance_low_unit_slip,
     capacitance_unit_slip,
     current_unit_slip,
@@ -25,7 +28,8 @@ from fleet.engineering.rules import (
 
 
 def test_nanofarads_typed_for_microfarads_are_named():
-    """A 4 uF capacitor typed as 3950 (nF) is caught and the uF value suggested."""
+    """[trade] a value 300-3000 times the rating is nanofarads typed for microfarads. A 4 uF capacitor typed as 3950
+    (nF) is caught and the uF value suggested."""
     messages = capacitance_unit_slip([3950.0, 3.95, 15.0, 0.0039], 4.0)
     assert "nanofarads" in messages[0] and "3.95 µF" in messages[0]
     assert messages[1] == ""
@@ -56,14 +60,23 @@ def test_a_voltage_typed_in_kilovolts_is_named_with_the_short_circuit_it_would_b
 
 
 def test_milliamperes_typed_for_amperes_are_named():
-    """4 uF at 400 V, 50 Hz draws 0.50 A; 503 typed means 503 mA."""
+    """[trade] a current 300-3000 times what the rating draws is milliamperes; [derived] 4 uF at 400 V, 50 Hz draws
+    0.50 A; 503 typed means 503 mA."""
     messages = current_unit_slip([503.0, 0.503], 400.0, 4.0, 50.0)
     assert "milliamperes" in messages[0] and "0.503 A" in messages[0]
     assert messages[1] == ""
 
 
 def test_off_trend_uses_a_fraction_of_the_rating():
-    assert off_trend([3.5, 3.9, 3.8], [3.9, 3.9, np.nan], 4.0).tolist() == [True, False, False]
+    """[trade] a reading more than 8 % of the rating off its trend is confirmed or re-measured; the threshold is
+    the rulebook's (`ReadingRules.off_trend_fraction`), one setting for the form, the import and the back-test's
+    strays: on a 4 uF part (0.32 uF) 0.321 uF off either way asks, 0.319 uF does not; no trend, nothing asked."""
+    values = [3.679, 3.681, 4.321, 4.319, 3.5]
+    assert off_trend(values, [4.0, 4.0, 4.0, 4.0, np.nan], 4.0).tolist() == [True, False, True, False, False]
+    assert ReadingRules().off_trend_fraction == 0.08
+    assert not off_trend([3.679], [4.0], 4.0, threshold_fraction=0.1)[0]
+    fraction, projected = np.array([0.919, 0.921, 1.0]), np.ones(3)
+    assert isolated_off_trend(np.arange(3), np.zeros(3), fraction, projected).tolist() == [True, False, False]
 
 
 def test_a_reading_is_held_to_the_trend_now_only_when_taken_at_or_after_its_newest_reading():
@@ -142,6 +155,15 @@ def test_risk_levels_follow_the_early_crossing():
     assert result.reason[4].startswith("trend stays above the tolerance limit")
 
 
+def test_risk_levels_change_at_a_quarter_and_at_a_year():
+    """[trade] due soon: the early crossing within a quarter, the next round of readings (90 days); ours:
+    watch within a year (365 days). Both edges belong to the nearer level; a day past each is the next."""
+    result = _judge([89.0, 90.0, 91.0, 364.0, 365.0, 366.0], [900.0] * 6)
+    assert result.risk.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_WATCH, RISK_WATCH, RISK_WATCH, RISK_SOUND]
+    levels = risk_levels(np.zeros(4, bool), [89.99, 90.01, 364.99, 365.01])
+    assert levels.tolist() == [RISK_DUE_SOON, RISK_WATCH, RISK_WATCH, RISK_SOUND]
+
+
 def test_the_replacement_and_the_reading_again_follow_the_risk_rules_quantile():
     """Planning rule of our own: one decision threshold. Where a back-test chose a later quantile than P10
     for the risk rule, the replace-by date is 30 days before that crossing (never sooner than 7 days), so a
@@ -159,7 +181,7 @@ def test_the_replacement_and_the_reading_again_follow_the_risk_rules_quantile():
 
 
 def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
-    """A capacitor unread for a long time may have crossed (P10 past) while its
+    """Ours: A capacitor unread for a long time may have crossed (P10 past) while its
     fitted path (P50) has not: read it soon, do not condemn it."""
     result = _judge([0.0, 0.0], [300.0, 0.0])
     assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
@@ -195,6 +217,7 @@ def test_a_reading_since_the_early_crossing_settles_read_again():
 
 
 def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
+    """[trade] a reading below its limit is replaced; ours the window: due within 14 days (one visit window)."""
     result = _judge([500.0], [900.0], latest=[0.935])
     assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 14.0
     assert (
@@ -204,18 +227,20 @@ def test_a_reading_below_the_limit_is_replace_now_with_the_reason_in_words():
 
 
 def test_a_defect_is_replace_now_today():
+    """[trade] a defect seen (bulged, leaking, vented) is replaced now, due today."""
     result = _judge([500.0], [900.0], evidence=[EVIDENCE_DEFECT])
     assert result.risk[0] == RISK_REPLACE_NOW and result.due_days[0] == 0.0
 
 
 def test_the_highest_limit_governs():
-    """A falling capacitance meets the highest fraction first."""
+    """Ours, [derived]: A falling capacitance meets the highest fraction first."""
     result = _judge([400.0], [800.0], limits=(0.94, 0.97))
     assert result.governing[0] == 1
     assert "capacitor voltage limit (9.70" in result.reason[0]
 
 
 def test_replacements_are_bundled_into_one_visit_per_site_and_window():
+    """Ours: one visit per site and 14-day window, opened by the earliest due replacement."""
     from fleet.engineering.planning import bundle_visits
 
     site = np.array(["A", "A", "A", "B", "A", "B"])

@@ -243,6 +243,23 @@ def test_near_the_lowest_value_where_the_limits_hold_is_marginal():
     assert any("lowest value where the motor's limits hold" in r for r in advice.reasons[0])
 
 
+def test_the_marginal_window_ends_ten_percent_above_the_lowest_value():
+    """[mem] marginal within 10 % above the lowest capacitance where the motor's limits hold
+    (`SubstituteRules.edge_margin`); [derived] the lowest value is the forecast's own crossing. A part
+    0.1 % of the window inside the edge is marginal, naming it; one 0.1 % outside is suitable."""
+    position = fan_position()
+    lowest = DESIGN_UF * float(
+        capacitance_limits(
+            position.circuit, position.load, "permanent_split", "run", 4.0, 0.0, 0.95, np.inf
+        ).governing_fraction
+    )
+    candidates = parts(("INSIDE", lowest * 1.099, 450.0, "film"), ("OUTSIDE", lowest * 1.101, 450.0, "film"))
+    advice = advise(position, candidates, SubstituteRules(run_band=0.5), DriftLimits())
+    assert advice.verdict.tolist() == ["marginal", "suitable"]
+    named = [any("within 10% of the lowest value" in r for r in reasons) for reasons in advice.reasons]
+    assert named == [True, False]
+
+
 def test_frequency_and_class_of_operation():
     """[trade] a part rated for a lower frequency than the supply is unsuitable, a higher one marginal;
     [pub] IEC 60252-1 classes of operation A-D (longest life first): no worse than the original."""
