@@ -87,6 +87,7 @@ def _scores(frame: pd.DataFrame, part_codes: dict[int, str]) -> dict:
             rows["crossed_day"].to_numpy(),
             rows["followed_days"].to_numpy(),
             quantiles=quantiles,
+            window_days=rows["window_days"].to_numpy(float),
         )
 
     return {
@@ -227,18 +228,20 @@ def _alert_levels(frame: pd.DataFrame) -> dict[str, tuple[float, list]]:
     cut-offs where the family's bands were calibrated on its own earlier errors
     (`own_calibration`), not on the first cut-offs that had only the default bands,
     whose crossings come early and would hold the rule at its loosest level.
-    Where no cut-off had its own calibration yet, all are used. Crossings count
-    here only clear of the meter noise (`crossed_clear_day`).
+    Where no cut-off a year or more before the data's end had its own calibration yet, all are used.
+    Crossings count here only clear of the meter noise (`crossed_clear_day`).
     """
     chosen = {}
     for family, rows in frame.groupby("dielectric"):
         own = rows[rows["own_calibration"].to_numpy(bool)]
-        rows = own if np.isfinite(own["crossed_clear_day"].to_numpy(float)).any() else rows
+        year_over = own["window_days"].to_numpy(float) >= 365
+        rows = own if np.isfinite(own["crossed_clear_day"].to_numpy(float)[year_over]).any() else rows
         chosen[family] = choose_alert_level(
             rows[ALERT_COLUMNS].to_numpy(float).T,
             rows["replace_now"].to_numpy(bool),
             rows["crossed_clear_day"].to_numpy(float),
             rows["followed_days"].to_numpy(float),
+            window_days=rows["window_days"].to_numpy(float),
         )
     return chosen
 
@@ -272,6 +275,8 @@ def _run(backtest: Backtest) -> None:
     )
     forecasts: dict[str, list[pd.DataFrame]] = {variant: [] for variant in VARIANTS}
     per_cutoff = []
+    # The data's end: a cut-off's precision and recall within a horizon are scored once it lies that far before.
+    data_end = taken.max() if len(taken) else None
     fitted = pd.to_datetime(inst_all["fitted_on"]).dt.tz_localize("UTC")
     removed = pd.to_datetime(inst_all["removed_on"]).dt.tz_localize("UTC")
     for number, cutoff_text in enumerate(backtest.cutoffs):
@@ -335,6 +340,7 @@ def _run(backtest: Backtest) -> None:
                     "crossed_day": crossed,
                     "crossed_clear_day": crossed_clear,
                     "followed_days": followed,
+                    "window_days": (data_end - cutoff) / pd.Timedelta(days=1),
                     "dielectric": inst["dielectric"].to_numpy(),
                     "part_id": inst["part_id"].to_numpy(),
                     "replace_now": result.judgement.risk == RISK_REPLACE_NOW,

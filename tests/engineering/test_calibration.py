@@ -223,6 +223,30 @@ def test_the_alert_level_is_the_most_precise_that_keeps_the_recall():
     assert choose_alert_level(days, none_now, crossed, followed, strict)[0] == 0.1
 
 
+def test_precision_within_a_year_is_scored_only_where_the_year_is_over():
+    """A review of the demo's track record: at the three cut-offs less than a year before the newest reading the
+    365-day precision was 100 %, and the pooled figure 82 % where the cut-offs whose year was over gave 77 %: a
+    flag that came true is known when its capacitor crosses, one that did not only a year on, so within a year
+    not yet over only the hits were counted. [derived] Two cut-offs, each forty flags of which ten cross within
+    the year at day 100: the old one (500 days of data after it) scores 10 / 40; the new one (200 days) is not
+    scored at 365 days, and the pooled precision is the old one's, not (10 + 10) / (40 + 10). At 90 days both
+    count: the new one's year is not over but its quarter is."""
+    from fleet.engineering.backtest import score
+
+    crossed = np.tile(np.r_[np.full(10, 100.0), np.full(30, np.nan)], 2)
+    followed = np.r_[np.full(40, 500.0), np.full(10, 100.0), np.full(30, 200.0)]
+    window = np.r_[np.full(40, 500.0), np.full(40, 200.0)]
+    days = np.full((3, 80), 150.0)
+    risk = np.full(80, "watch", dtype=object)
+    scored = score(days, risk, crossed, followed, window_days=window)
+    assert scored["precision_365d"] == pytest.approx(10 / 40) and scored["flagged_365d"] == 40
+    assert scored["recall_365d"] == pytest.approx(1.0) and scored["crossed_365d"] == 10
+    unwindowed = score(days, risk, crossed, followed)  # the old count: the new cut-off's hits alone were known
+    assert unwindowed["precision_365d"] == pytest.approx(20 / 50)
+    due = np.full(80, "due soon", dtype=object)
+    assert score(days, due, crossed, followed, window_days=window)["flagged_90d"] == 80
+
+
 def test_the_path_model_chosen_is_the_one_that_projected_the_later_readings_best():
     """[derived] Thirty capacitors, ten later readings each, projected by two forms on bent and on
     straight paths with errors of sd 2, 1.5, 1 and 0.5 % of rated: the log-linear form (the better

@@ -4,6 +4,7 @@ import time
 
 from django.core.management.base import BaseCommand
 
+from fleet.engineering.planning import PlanningSettings
 from fleet.services.backtest import run_backtest, start_backtest
 from fleet.services.track_record import calibration_words
 
@@ -79,7 +80,10 @@ class Command(BaseCommand):
             tried = ", ".join(
                 f"P{100 * row['level']:.0f} {_pct(row['precision_365d'])}/{_pct(row['recall_365d'])}" for row in table
             )
+            floor = PlanningSettings().alert_min_recall
+            caught = any(row["recall_365d"] is not None and row["recall_365d"] >= floor for row in table)
+            why = "the most precise" if caught else f"none caught {100 * floor:.0f} %: the most cautious"
             self.stdout.write(
-                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f} "
+                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f}, {why} "
                 f"(365-day precision/recall % by level: {tried})"
             )
