@@ -194,6 +194,27 @@ def recent_readings(fitted_capacitor: FittedCapacitor, count: int = RECENT_READI
     )
 
 
+def highest_voltage_over_rating(fitted_capacitor: FittedCapacitor, readings) -> dict | None:
+    """The highest voltage measured across the capacitor among `readings` (corrected ones left out), where it is
+    above the part's rated voltage: {voltage_v, taken_at, share of the rating}; None where none is. A capacitor
+    is rated for continuous operation at its rated voltage, higher ones allowed for limited periods only (IEC
+    60252-1 [mem]); its ageing rises steeply with voltage, which the trend counts, but the engineer should see it."""
+    rated_v = fitted_capacitor.part.rated_voltage_v
+    over = [
+        r
+        for r in readings
+        if r.capacitor_voltage_v is not None and r.capacitor_voltage_v > rated_v and not hasattr(r, "superseded_by")
+    ]
+    if not over:
+        return None
+    highest = max(over, key=lambda r: (r.capacitor_voltage_v, r.taken_at))
+    return {
+        "voltage_v": highest.capacitor_voltage_v,
+        "taken_at": highest.taken_at,
+        "share": highest.capacitor_voltage_v / rated_v,
+    }
+
+
 def stress_hours_of_readings(fitted_capacitor: FittedCapacitor, readings) -> np.ndarray:
     """Stress hours at each of one capacitor's readings (a frame of its readings in time order
     with taken_at, case_temperature_c, capacitor_voltage_v), as its fit computed them."""

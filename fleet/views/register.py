@@ -160,13 +160,15 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
     if assessment is not None:
         with_operating_figures([assessment])  # the figures as new and now, worked out for the page
     successor = successor_of(fitted_capacitor)
+    readings = pages.recent_readings(fitted_capacitor, 40)
     context = {
         "successor": successor,
         "fitted_capacitor": fitted_capacitor,
         "motor": fitted_capacitor.motor,
         "assessment": assessment,
         "chart": pages.trend_chart(fitted_capacitor, assessment),
-        "readings": pages.recent_readings(fitted_capacitor, 40),
+        "readings": readings,
+        "over_rating": pages.highest_voltage_over_rating(fitted_capacitor, readings),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
         "alert_percent": pages.alert_level_percent(fitted_capacitor.part.dielectric),
         "rules": PlanningSettings(),
