@@ -359,9 +359,10 @@ def test_a_voltage_measured_above_the_capacitors_rating_is_shown_to_the_engineer
     said so (the model's 421 V agreed with them within its 15 %). [trade] a motor capacitor is rated for
     continuous operation at its rated voltage, higher voltages for limited periods only (IEC 60252-1, from
     memory, unverified). [derived] the capacitor page names the highest such voltage, its day and its share of
-    the rating; a corrected reading does not count; at or under the rating nothing is said."""
+    the rating; a corrected reading does not count; within 2 % of the rating (a meter's uncertainty and the supply's
+    swing, common practice of the trade, no single source) nothing is said."""
     day = timezone.make_aware(dt.datetime(2025, 3, 4, 10))
-    make_reading(fan_fitted_capacitor, taken_at=day, capacitor_voltage_v=440.0)
+    make_reading(fan_fitted_capacitor, taken_at=day, capacitor_voltage_v=459.0)  # within 2 % of 450 V: a meter's
     page_url = reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])
     client = signed_in(engineer)
     assert 'id="over-rating"' not in client.get(page_url).content.decode()

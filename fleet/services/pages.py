@@ -194,16 +194,22 @@ def recent_readings(fitted_capacitor: FittedCapacitor, count: int = RECENT_READI
     )
 
 
+# A handheld meter's AC voltage reads within about 1 % of the truth, the supply moves by as much between readings
+# (common practice of the trade, no single source): a reading less than this share over the rating says nothing.
+VOLTAGE_READING_UNCERTAINTY = 0.02
+
+
 def highest_voltage_over_rating(fitted_capacitor: FittedCapacitor, readings) -> dict | None:
     """The highest voltage measured across the capacitor among `readings` (corrected ones left out), where it is
-    above the part's rated voltage: {voltage_v, taken_at, share of the rating}; None where none is. A capacitor
+    more than VOLTAGE_READING_UNCERTAINTY above the part's rated voltage: {voltage_v, taken_at, share of the rating}; None where none is. A capacitor
     is rated for continuous operation at its rated voltage, higher ones allowed for limited periods only (IEC
     60252-1 [mem]); its ageing rises steeply with voltage, which the trend counts, but the engineer should see it."""
     rated_v = fitted_capacitor.part.rated_voltage_v
+    beyond = rated_v * (1.0 + VOLTAGE_READING_UNCERTAINTY)
     over = [
         r
         for r in readings
-        if r.capacitor_voltage_v is not None and r.capacitor_voltage_v > rated_v and not hasattr(r, "superseded_by")
+        if r.capacitor_voltage_v is not None and r.capacitor_voltage_v > beyond and not hasattr(r, "superseded_by")
     ]
     if not over:
         return None
