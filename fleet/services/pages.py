@@ -201,9 +201,10 @@ VOLTAGE_READING_UNCERTAINTY = 0.02
 
 def highest_voltage_over_rating(fitted_capacitor: FittedCapacitor, readings) -> dict | None:
     """The highest voltage measured across the capacitor among `readings` (corrected ones left out), where it is
-    more than VOLTAGE_READING_UNCERTAINTY above the part's rated voltage: {voltage_v, taken_at, share of the rating}; None where none is. A capacitor
-    is rated for continuous operation at its rated voltage, higher ones allowed for limited periods only (IEC
-    60252-1 [mem]); its ageing rises steeply with voltage, which the trend counts, but the engineer should see it."""
+    more than VOLTAGE_READING_UNCERTAINTY above the part's rated voltage: {voltage_v, taken_at, share of the
+    rating}; None where none is. A capacitor is rated for continuous operation at its rated voltage, higher ones
+    allowed for limited periods only (IEC 60252-1 [mem]); its ageing rises steeply with voltage, which the trend
+    counts, but the engineer should see it."""
     rated_v = fitted_capacitor.part.rated_voltage_v
     beyond = rated_v * (1.0 + VOLTAGE_READING_UNCERTAINTY)
     over = [
