@@ -5,13 +5,23 @@ links and its tick boxes kept for paper. At 1366 px the desktop tables keep thei
 """
 
 import datetime as dt
+import math
+from itertools import pairwise
 
 import pytest
 from django.utils import timezone
 
-from fleet.models import FittedCapacitor, Motor, Reading, WorkOrder
+from fleet.models import FittedCapacitor, Motor, PartLifeFit, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    make_user,
+    quarterly_readings,
+    stored_assessment,
+)
 
 from .conftest import ARTIFACTS, demo_page
 from .test_every_page import _load
@@ -441,3 +451,113 @@ def test_who_is_signed_in_is_said_on_a_phone_too(phone):
     assert phone.evaluate("document.documentElement.scrollWidth") <= 390
     phone.set_viewport_size({"width": 1366, "height": 800})
     assert phone.locator("header .who").is_visible() and not said.is_visible()
+
+
+# Each item of the error summary as laid out: where its link starts and how tall it is, where the li's text starts,
+# and the tops of the lines its text takes (every text node's rects, the link's included), in px.
+SUMMARY_ITEMS = r"""() => [...document.querySelectorAll("#error-summary li")].map((li) => {
+  const link = li.querySelector("a"), item = li.getBoundingClientRect(), box = link.getBoundingClientRect();
+  const range = document.createRange();
+  range.selectNodeContents(li);
+  const tops = [...new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)))];
+  const name = document.createRange();
+  name.selectNodeContents(link);
+  return {text: li.innerText, itemLeft: item.left, linkLeft: box.left, linkHeight: box.height,
+          nameLines: new Set([...name.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top))).size,
+          tops: tops.sort((a, b) => a - b), lineHeight: parseFloat(getComputedStyle(li).lineHeight)};
+})"""
+
+
+def test_the_error_summary_reads_as_plain_left_aligned_sentences_on_a_phone(phone):
+    """A walk at 390 px: in "Not saved" the field names stood centred, "Capacitor case temperature (°C)" wrapped
+    in its box; in "Check before saving" the message broke off after "61 µF is far", a blank gap, then the rest.
+    Each item now starts at the left with the field's name, its message after it on the same line and wrapping
+    at the line's height; the name is still a 44 px tall target for a glove."""
+    fitted_capacitor = make_fitted_capacitor()
+    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97])
+    refit_fitted_capacitors([fitted_capacitor.id])
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_capacitance_uf", "abc")
+    phone.fill("#id_case_temperature_c", "2x")
+    phone.click("#save")
+    phone.locator("#error-summary").wait_for(timeout=15000)
+    refused = phone.evaluate(SUMMARY_ITEMS)
+    phone.shot("summary-not-saved")
+    assert [item["text"] for item in refused] == ["Capacitance (µF)", "Capacitor case temperature (°C)"]
+    for item in refused:
+        assert abs(item["linkLeft"] - item["itemLeft"]) <= 1 and item["nameLines"] == 1, item
+        assert item["linkHeight"] >= GLOVE_PX, item
+    phone.evaluate("localStorage.clear()")
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.3")
+    phone.click("#save")
+    phone.locator("#error-summary").wait_for(timeout=15000)
+    (asked,) = phone.evaluate(SUMMARY_ITEMS)
+    phone.shot("summary-check-before-saving")
+    assert asked["text"].startswith("Capacitance (µF): 3.3 µF is far from this capacitor's trend"), asked
+    assert abs(asked["linkLeft"] - asked["itemLeft"]) <= 1 and asked["linkHeight"] >= GLOVE_PX, asked
+    assert len(asked["tops"]) >= 2, asked  # the message wraps at 390 px ...
+    gaps = [b - a for a, b in pairwise(asked["tops"])]
+    assert max(gaps) <= 1.1 * asked["lineHeight"], asked  # ... line under line, no blank line between
+
+
+# Inside one paragraph: how far each link's words stand from the character after it, and the tops of its lines.
+LINKS_IN_TEXT = r"""(selector) => {
+  const p = document.querySelector(selector), range = document.createRange();
+  range.selectNodeContents(p);
+  const tops = [...new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)))];
+  const after = [...p.querySelectorAll("a")].map((a) => {
+    const words = document.createRange();
+    words.selectNodeContents(a);
+    const next = a.nextSibling && a.nextSibling.nodeType === 3 && a.nextSibling.data.length ? a.nextSibling : null;
+    if (!next) return null;
+    const mark = document.createRange();
+    mark.setStart(next, 0);
+    mark.setEnd(next, 1);
+    const end = [...words.getClientRects()].pop(), start = mark.getClientRects()[0];
+    const sameLine = Math.abs(start.top - end.top) < 4;
+    return {link: a.textContent, mark: next.data[0], gap: sameLine ? start.left - end.right : 0,
+            height: a.getBoundingClientRect().height};
+  }).filter(Boolean);
+  return {tops: tops.sort((a, b) => a - b), after, lineHeight: parseFloat(getComputedStyle(p).lineHeight)};
+}"""
+
+
+def test_the_download_links_in_a_sentence_keep_to_its_words_and_lines_on_a_phone(phone):
+    """A walk at 390 px on the life-data page: "CSV , XLSX , Parquet" and "( columns and units )", each line of the
+    paragraph far below the last: every link in the sentence was a 44 px box centred round its word, with 4 px
+    margins. The comma or bracket now follows its word as in print, the lines keep the paragraph's spacing, and
+    each link is still 44 px tall for a glove."""
+    part = make_part(code="LIFE-9")
+    points = [[age, 1.0 - math.exp(-((age / 5.5) ** 1.48))] for age in (0.8, 1.6, 2.4, 3.5, 4.7)]
+    PartLifeFit.objects.create(part=part, beta=1.48, eta_years=5.5, failures=12, suspensions=40, plot_points=points)
+    sign_in(phone, make_user("reliability engineer"))
+    phone.goto("/life/?part=LIFE-9")
+    found = phone.evaluate(LINKS_IN_TEXT, "p:has(> .nowrap > a[href*='life-data'])")
+    phone.shot("life-links-in-text")
+    marks = {(item["link"], item["mark"]) for item in found["after"]}
+    assert {("CSV", ","), ("XLSX", ","), ("columns and units", ")")} <= marks, found
+    assert all(item["gap"] <= 2 for item in found["after"]), found
+    assert all(item["height"] >= GLOVE_PX for item in found["after"]), found
+    gaps = [b - a for a, b in pairwise(found["tops"])]
+    assert gaps and max(gaps) <= 1.1 * found["lineHeight"], found
+
+
+def test_every_card_of_the_plans_riskier_list_puts_was_under_the_capacitor(phone):
+    """A walk at 390 px: in one card of "Riskier" (a short part code), "Was sound" floated up beside the
+    capacitor's link, in the others it stood under it. The capacitor takes its own line in every card."""
+    site = make_site("CRD")
+    for code in ("R-1", "RUN-CAPACITOR-WITH-A-LONG-CODE-450"):
+        capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=make_part(code=code))
+        stored_assessment(capacitor, "sound", None, created_at=timezone.now() - dt.timedelta(days=20))
+        stored_assessment(capacitor, "watch", timezone.localdate() + dt.timedelta(days=300))
+    sign_in(phone, make_user("planner"))
+    phone.goto("/plan/")
+    cards = phone.evaluate("""() => [...document.querySelectorAll("h3[id$='-heading'] + .table-scroll tbody tr")]
+      .map((row) => [row.querySelector("td[data-label=Capacitor]").getBoundingClientRect(),
+                     row.querySelector("td[data-label=Was]").getBoundingClientRect()])
+      .map(([capacitor, was]) => ({below: was.top >= capacitor.bottom - 1, left: Math.round(was.left)}))""")
+    phone.shot("plan-riskier-cards")
+    assert len(cards) == 2 and all(card["below"] for card in cards), cards
+    assert len({card["left"] for card in cards}) == 1, cards
