@@ -25,7 +25,7 @@ from tests.factories import (
 
 from .conftest import ARTIFACTS, demo_page
 from .test_every_page import _load
-from .test_technician import sign_in
+from .test_technician import motor_with_history, sign_in  # noqa: F401 - the fixture is used by name
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
@@ -468,14 +468,12 @@ SUMMARY_ITEMS = r"""() => [...document.querySelectorAll("#error-summary li")].ma
 })"""
 
 
-def test_the_error_summary_reads_as_plain_left_aligned_sentences_on_a_phone(phone):
+def test_the_error_summary_reads_as_plain_left_aligned_sentences_on_a_phone(phone, motor_with_history):  # noqa: F811
     """A walk at 390 px: in "Not saved" the field names stood centred, "Capacitor case temperature (°C)" wrapped
     in its box; in "Check before saving" the message broke off after "61 µF is far", a blank gap, then the rest.
     Each item now starts at the left with the field's name, its message after it on the same line and wrapping
     at the line's height; the name is still a 44 px tall target for a glove."""
-    fitted_capacitor = make_fitted_capacitor()
-    quarterly_readings(fitted_capacitor, timezone.make_aware(dt.datetime(2024, 1, 8, 9)), [4.02, 4.0, 3.99, 3.97])
-    refit_fitted_capacitors([fitted_capacitor.id])
+    fitted_capacitor = motor_with_history
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
     phone.fill("#id_capacitance_uf", "abc")
