@@ -474,7 +474,10 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
     BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, alert_quantile=0.5)
     said = "judged on (P50, the date half of such capacitors would have crossed by, for metallised film (run))"
     assert said in client.get(reverse("plan")).content.decode()
-    assert "columns and units</a>)</span>. Every reading" in response.content.decode()  # no stray space before "."
+    # Each download's sentence ends with its links (no full stop stood alone after the row a phone makes of them).
+    assert 'columns and units</a><span class="sep">)</span></span></p>\n<p class="no-print muted">Every reading' in (
+        response.content.decode()
+    )
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
     assert Assessment.objects.filter(is_current=True).count() == 6

@@ -462,7 +462,8 @@ SUMMARY_ITEMS = r"""() => [...document.querySelectorAll("#error-summary li")].ma
   const tops = [...new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)))];
   const name = document.createRange();
   name.selectNodeContents(link);
-  return {text: li.innerText, itemLeft: item.left, linkLeft: box.left, linkHeight: box.height,
+  return {text: li.innerText, itemLeft: item.left, linkLeft: box.left, linkHeight: box.height, linkTop: box.top,
+          linkBottom: box.bottom,
           nameLines: new Set([...name.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top))).size,
           tops: tops.sort((a, b) => a - b), lineHeight: parseFloat(getComputedStyle(li).lineHeight)};
 })"""
@@ -486,6 +487,7 @@ def test_the_error_summary_reads_as_plain_left_aligned_sentences_on_a_phone(phon
     for item in refused:
         assert abs(item["linkLeft"] - item["itemLeft"]) <= 1 and item["nameLines"] == 1, item
         assert item["linkHeight"] >= GLOVE_PX, item
+    assert refused[1]["linkTop"] - refused[0]["linkBottom"] >= 8, refused  # targets apart, as on every page
     phone.evaluate("localStorage.clear()")
     phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
     phone.fill("#id_capacitance_uf", "3.3")
@@ -500,46 +502,48 @@ def test_the_error_summary_reads_as_plain_left_aligned_sentences_on_a_phone(phon
     assert max(gaps) <= 1.1 * asked["lineHeight"], asked  # ... line under line, no blank line between
 
 
-# Inside one paragraph: how far each link's words stand from the character after it, and the tops of its lines.
-LINKS_IN_TEXT = r"""(selector) => {
-  const p = document.querySelector(selector), range = document.createRange();
-  range.selectNodeContents(p);
-  const tops = [...new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)))];
-  const after = [...p.querySelectorAll("a")].map((a) => {
-    const words = document.createRange();
-    words.selectNodeContents(a);
-    const next = a.nextSibling && a.nextSibling.nodeType === 3 && a.nextSibling.data.length ? a.nextSibling : null;
-    if (!next) return null;
-    const mark = document.createRange();
-    mark.setStart(next, 0);
-    mark.setEnd(next, 1);
-    const end = [...words.getClientRects()].pop(), start = mark.getClientRects()[0];
-    const sameLine = Math.abs(start.top - end.top) < 4;
-    return {link: a.textContent, mark: next.data[0], gap: sameLine ? start.left - end.right : 0,
-            height: a.getBoundingClientRect().height};
-  }).filter(Boolean);
-  return {tops: tops.sort((a, b) => a - b), after, lineHeight: parseFloat(getComputedStyle(p).lineHeight)};
+# The download links of one paragraph (_export_links.html) as laid out: the paragraph's text as read, and each
+# link's box; and how far the link "forecast track record" stands from its full stop.
+DOWNLOAD_ROW = r"""(selector) => {
+  const p = document.querySelector(selector);
+  const links = [...p.querySelectorAll("a")].map((a) => {
+    const box = a.getBoundingClientRect();
+    return {text: a.textContent, left: box.left, right: box.right, top: box.top, bottom: box.bottom};
+  });
+  const record = document.querySelector("a.in-text[href*='track']"), stop = record.nextSibling;
+  const words = document.createRange(), mark = document.createRange();
+  words.selectNodeContents(record);
+  mark.setStart(stop, 0);
+  mark.setEnd(stop, 1);
+  return {text: p.innerText, links, stopGap: mark.getClientRects()[0].left - [...words.getClientRects()].pop().right};
 }"""
 
 
-def test_the_download_links_in_a_sentence_keep_to_its_words_and_lines_on_a_phone(phone):
-    """A walk at 390 px on the life-data page: "CSV , XLSX , Parquet" and "( columns and units )", each line of the
-    paragraph far below the last: every link in the sentence was a 44 px box centred round its word, with 4 px
-    margins. The comma or bracket now follows its word as in print, the lines keep the paragraph's spacing, and
-    each link is still 44 px tall for a glove."""
+def test_the_download_links_stand_as_a_row_of_targets_on_a_phone_and_in_a_sentence_on_a_desktop(phone):
+    """A walk at 390 px on the life-data page: "CSV , XLSX , Parquet" and "( columns and units )", and
+    "forecast track record ." with a gap: each link was a 44 px box centred round its word with 4 px margins,
+    and the commas and brackets stood apart. On a phone the downloads are now a row of glove targets (44 x 44 px,
+    8 px apart, the rule of every page) without the commas and brackets; on a desktop they read as a sentence;
+    a link ending a sentence keeps its full stop beside it."""
     part = make_part(code="LIFE-9")
     points = [[age, 1.0 - math.exp(-((age / 5.5) ** 1.48))] for age in (0.8, 1.6, 2.4, 3.5, 4.7)]
     PartLifeFit.objects.create(part=part, beta=1.48, eta_years=5.5, failures=12, suspensions=40, plot_points=points)
     sign_in(phone, make_user("reliability engineer"))
     phone.goto("/life/?part=LIFE-9")
-    found = phone.evaluate(LINKS_IN_TEXT, "p:has(> .nowrap > a[href*='life-data'])")
-    phone.shot("life-links-in-text")
-    marks = {(item["link"], item["mark"]) for item in found["after"]}
-    assert {("CSV", ","), ("XLSX", ","), ("columns and units", ")")} <= marks, found
-    assert all(item["gap"] <= 2 for item in found["after"]), found
-    assert all(item["height"] >= GLOVE_PX for item in found["after"]), found
-    gaps = [b - a for a, b in pairwise(found["tops"])]
-    assert gaps and max(gaps) <= 1.1 * found["lineHeight"], found
+    row = phone.evaluate(DOWNLOAD_ROW, "p:has(a[href*='life-data'])")
+    phone.shot("life-download-row")
+    assert [link["text"] for link in row["links"]] == ["CSV", "XLSX", "Parquet", "columns and units"]
+    downloads = row["text"].rsplit(":", 1)[1]
+    assert "," not in downloads and "(" not in downloads and ")" not in downloads, row["text"]
+    for link in row["links"]:
+        assert link["right"] - link["left"] >= GLOVE_PX and link["bottom"] - link["top"] >= GLOVE_PX, link
+    for one, two in pairwise(row["links"]):
+        apart = max(two["left"] - one["right"], two["top"] - one["bottom"])
+        assert GLOVE_PX / 6 <= apart <= 12, (one, two)
+    assert abs(row["stopGap"]) <= 1, row["stopGap"]
+    phone.set_viewport_size({"width": 1366, "height": 900})
+    row = phone.evaluate(DOWNLOAD_ROW, "p:has(a[href*='life-data'])")
+    assert row["text"].endswith(": CSV, XLSX, Parquet (columns and units)"), row["text"]
 
 
 def test_every_card_of_the_plans_riskier_list_puts_was_under_the_capacitor(phone):
