@@ -198,7 +198,15 @@ def cost_curve_figure(ages_years, cost_per_year, run_to_failure: float, optimum_
             name="replace at this age or at failure",
         )
     )
-    figure.add_hline(y=run_to_failure, line={"color": LIMIT, "dash": "dash"}, annotation_text="run to failure")
+    # Its words at the right edge, on the side of the line the curve is not on there: a curve still above the line
+    # at its end (no wear-out) ran through words set above it on a phone's narrow chart.
+    ends_above = bool(shown.any()) and cost[shown][-1] >= run_to_failure
+    figure.add_hline(
+        y=run_to_failure,
+        line={"color": LIMIT, "dash": "dash"},
+        annotation_text="run to failure",
+        annotation_position="bottom right" if ends_above else "top right",
+    )
     if optimum_age is not None:
         figure.add_vline(
             x=per_year * optimum_age,

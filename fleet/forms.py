@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import uuid
 
 from django import forms
@@ -13,10 +14,14 @@ from fleet.imports.columns import clock_change_offsets, missing_required_words, 
 from .engineering.rules import RULES
 from .models import NOTES_MAX_CHARS, CapacitorPart, FittedCapacitor, ImportJob, Reading, site_zone
 
-# The phone's date-and-time picker, wall-clock time at the site: "2026-03-14T09:30", or with the seconds it holds
-# ("2026-03-14T09:30:27"). The form offers the time to the second, as the API stores it: two readings of one
-# capacitor taken within a minute, each at the time offered, are two readings, not one refused as a repeat.
+# The phone's date-and-time picker, wall-clock time at the site, to the minute: "2026-03-14T09:30" (seconds were
+# fiddly to set with gloves). A time with seconds ("2026-03-14T09:30:27") is read too.
+LOCAL_MINUTE = "%Y-%m-%dT%H:%M"
+# The time the form offers, to the second, as the API stores it, is kept beside the box (`offered_at`): left as
+# offered, the reading is saved at that second, so two readings of one capacitor taken within a minute, each at
+# the time offered, are two readings, not one refused as a repeat (`readings._second_reading_at_one_time`).
 LOCAL_SECOND = "%Y-%m-%dT%H:%M:%S"
+OFFERED_AT = re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}")
 # A day is typed year-month-day, as every box's message asks and the date picker sends: only that. Django's
 # English formats also read 01/04/27 as month/day/year (4 January), a day the person may have meant as 1 April.
 DAY_INPUT_FORMATS = ["%Y-%m-%d"]
@@ -47,8 +52,10 @@ class ReadingForm(forms.Form):
         max_length=40,
         # The browser shows the box in its own order of day and month (12/04/2026 is 12 April to many): the day
         # and time it holds are said beside it in words (page.js, the element named by data-day-words).
-        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 1, "data-day-words": "taken-day-words"}),
+        widget=forms.DateTimeInput(attrs={"type": "datetime-local", "step": 60, "data-day-words": "taken-day-words"}),
     )
+    # The time offered in the box, with its seconds (`LOCAL_SECOND`): the box left at its minute saves this.
+    offered_at = forms.CharField(required=False, max_length=40, widget=forms.HiddenInput)
     # Shown only for a time the site's clocks repeat or skip (the night they change): which of the two it was.
     # Checked by `clean_taken_at` (a choice left posted after the time was changed is ignored, never refused).
     clock_offset = forms.CharField(
@@ -104,20 +111,26 @@ class ReadingForm(forms.Form):
         super().__init__(*args, **kwargs)
         self.zone = site_zone(time_zone or settings.TIME_ZONE)
         # The site's clock as the page was made: the live hint holds "taken at" to it as the rulebook does.
-        self.site_now = timezone.localtime(timezone.now(), self.zone).strftime(LOCAL_SECOND)
+        now = timezone.localtime(timezone.now(), self.zone)
+        self.site_now = now.strftime(LOCAL_SECOND)
         self.fields["taken_at"].help_text = (
             f"When you measured, local time at the site ({self.zone.key}). Now unless you change it; "
             "a reading kept on the phone keeps the time it was measured."
         )
         if not self.is_bound:
             self.initial["client_key"] = uuid.uuid4().hex
-            self.initial["taken_at"] = self.site_now
+            self.offer_time(now)
+
+    def offer_time(self, local) -> None:
+        """The box shows `local` (the site's time) to the minute, and keeps its seconds beside it."""
+        self.initial["taken_at"] = local.strftime(LOCAL_MINUTE)
+        self.initial["offered_at"] = local.strftime(LOCAL_SECOND)
 
     def start_from(self, reading: Reading) -> None:
         """A correction starts from the reading it corrects: its time (in the site's time), method,
         every value and the notes it holds, so only the mistake is typed again. A blank form lost what
         was right: a corrected capacitance was stored without its case temperature, unreferred to 25 C."""
-        self.initial["taken_at"] = timezone.localtime(reading.taken_at, self.zone).strftime(LOCAL_SECOND)
+        self.offer_time(timezone.localtime(reading.taken_at, self.zone))
         for name in ("method", "condition", "notes", *Reading.MEASURED_FIELDS):
             value = getattr(reading, name)
             worked_out = name == "capacitance_uf" and reading.method == Reading.Method.IN_CIRCUIT
@@ -130,6 +143,9 @@ class ReadingForm(forms.Form):
         text = self.cleaned_data["taken_at"].strip()
         if not text:
             return None
+        offered = str(self.data.get("offered_at", "")).strip()
+        if OFFERED_AT.fullmatch(offered) and text == offered.rsplit(":", 1)[0]:
+            text = offered  # left at the minute offered: the second it was offered
         offsets = clock_change_offsets(text, self.zone.key)
         if offsets is not None:
             # The date-and-time box takes no offset: the two the clocks held that night are offered as a choice.
@@ -169,7 +185,7 @@ class ReadingForm(forms.Form):
         data = {
             key: value
             for key, value in self.cleaned_data.items()
-            if key not in {"confirmed", "client_key", "supersedes", "shown_values", "removal_seen"}
+            if key not in {"confirmed", "client_key", "supersedes", "shown_values", "removal_seen", "offered_at"}
         }
         if data["method"] == Reading.Method.IN_CIRCUIT:
             data.pop("capacitance_uf", None)
@@ -381,11 +397,10 @@ class ColumnMappingForm(forms.Form):
 
     def clean(self):
         """One column holds one field: a column chosen twice (case temperature read as capacitance,
-        40 °C taken as 40 µF) is refused at each field but the first that names it."""
+        40 °C taken as 40 µF) is refused at each field but the first that names it. A required field left
+        without a column is refused at that field; `missing_words` says them all in one sentence, which the
+        page shows under the summary's list, not as one more thing to put right."""
         cleaned = super().clean()
-        missing = self.missing_words(cleaned)
-        if missing:
-            self.add_error(None, missing)
         first_field: dict[str, str] = {}
         for name in self.fields:
             column = cleaned.get(name)

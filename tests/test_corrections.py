@@ -150,9 +150,9 @@ def test_a_reading_is_corrected_once_and_only_on_its_own_capacitor(technician, f
         record_reading(fitted_capacitor=fan_fitted_capacitor, values={"method": "meter", "capacitance_uf": "3.8"},
                        user=technician, supersedes_id=wrong.id)  # fmt: skip
     # [ours] a technician knows a reading by its time and value, not by an internal id; both at the site's clock,
-    # as the readings tables write them (seconds where they are not 0)
+    # as the readings tables write them (to the minute)
     taken = timezone.localtime(wrong.taken_at, site_zone(fan_fitted_capacitor.motor.site.time_zone))
-    shown = f"{taken:%Y-%m-%d %H:%M:%S}" if taken.second else f"{taken:%Y-%m-%d %H:%M}"
+    shown = f"{taken:%Y-%m-%d %H:%M}"
     assert twice.value.message_dict["supersedes"][0] == (
         f"The reading of {shown} (3.20 µF) was already corrected by the reading of {shown} (3.90 µF): correct that "
         "one instead."

@@ -229,6 +229,34 @@ def test_the_week_shows_riskier_capacitors_with_the_reason_and_the_limit_that_mo
     assert "Torque falls short" in body and "governing limit was tolerance, now starting torque" in body
 
 
+def test_the_week_says_nothing_of_the_governing_limit_where_none_changed(client):
+    """A walk: "the governing limit changed for 0." stood where nothing changed. [ours] The count is said where
+    it is one or more, and nothing of it where it is none."""
+    riskier = make_fitted_capacitor()
+    stored_assessment(riskier, "watch", None, created_at=timezone.now() - dt.timedelta(days=9))
+    stored_assessment(riskier, "due soon", TODAY + dt.timedelta(days=30))
+    client.force_login(make_user(PLANNER))
+    response = client.get(reverse("dashboard"))
+    assert response.context["changes"]["moves"]["riskier"] == 1
+    assert response.context["changes"]["moves"]["limit_changed"] == 0
+    body = response.content.decode()
+    assert "1 riskier" in body and "governing limit changed" not in body
+    stored_assessment(riskier, "replace now", TODAY, limit_source="starting torque", reason="torque falls short")
+    assert "the governing limit changed for 1." in client.get(reverse("dashboard")).content.decode()
+
+
+def test_the_spares_cost_says_its_unit_is_the_currency_the_parts_prices_are_entered_in(client):
+    """A walk: the spares cost "1,602" read as a figure without a unit. No currency is set anywhere (a part's
+    unit_cost is a price "in the plant's currency"), so none is printed; the figure says in words beside it that
+    it is in the currency the parts' unit costs are entered in. [ours]"""
+    fleet(2)
+    client.force_login(make_user(PLANNER))
+    body = re.sub(r"\s+", " ", client.get(reverse("dashboard")).content.decode())
+    kpi = body[body.index("Cost of spares, next 12 months") :].split('<div class="kpi">')[0]
+    assert "at the parts' unit costs, in the currency they are entered in" in kpi
+    assert not re.search(r"[$€£¥]|EUR|USD|GBP", kpi), kpi
+
+
 def test_the_week_counts_a_reading_and_its_corrections_as_one_change(client):
     """A typo and its correction were counted as two readings taken: a correction supersedes the reading it
     corrects (both kept, the trend uses the correction), so the week saw one reading [derived]."""

@@ -8,6 +8,7 @@ import re
 import zoneinfo
 from unittest import mock
 
+import numpy as np
 import pytest
 from django.db import connection
 from django.template.defaultfilters import date as date_format
@@ -106,9 +107,10 @@ def test_two_readings_within_one_minute_each_at_the_time_offered_are_two_reading
     client, technician, madrid_fitted_capacitor
 ):
     """A walk: a second reading of one capacitor within a minute, each saved at the time the form offered, was
-    refused as "a reading at this time already": the form offered the minute, the API stores the second. The form
-    offers the time to the second (site time), so a technician's two measurements 28 s apart are two readings;
-    the same second is still one. [ours]"""
+    refused as "a reading at this time already": the form offered the minute, the API stores the second. Then a
+    walk with gloves: the box's seconds were fiddly to set. The box offers the minute (step 60) and keeps the
+    second it offered beside it (site time), so a technician's two measurements 28 s apart are still two
+    readings; the same second is still one, and a time typed to the minute is that minute. [ours]"""
     client.force_login(technician)
     url = reverse("reading_new", args=[madrid_fitted_capacitor.id])
     offered = []
@@ -116,20 +118,41 @@ def test_two_readings_within_one_minute_each_at_the_time_offered_are_two_reading
         moment = dt.datetime(2026, 3, 14, 8, 30, second, tzinfo=dt.UTC)
         with mock.patch("django.utils.timezone.now", return_value=moment):
             page = client.get(url)
-            offered.append(page.context["form"].initial["taken_at"])
-            assert 'step="1"' in page.content.decode()  # the box holds the seconds it is given
-            saved = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", taken_at=offered[-1])
+            initial = page.context["form"].initial
+            offered.append((initial["taken_at"], initial["offered_at"]))
+            body = page.content.decode()
+            assert 'type="datetime-local"' in body and 'step="60"' in body and 'step="1"' not in body
+            assert f'value="{initial["taken_at"]}"' in body and f'value="{initial["offered_at"]}"' in body
+            saved = form_post(
+                client,
+                madrid_fitted_capacitor,
+                capacitance_uf="3.95",
+                taken_at=offered[-1][0],
+                offered_at=offered[-1][1],
+            )
             assert saved.status_code == 302
-    assert offered == ["2026-03-14T09:30:12", "2026-03-14T09:30:40"]  # Madrid, UTC+1 in March
+    assert offered == [  # Madrid, UTC+1 in March
+        ("2026-03-14T09:30", "2026-03-14T09:30:12"),
+        ("2026-03-14T09:30", "2026-03-14T09:30:40"),
+    ]
     assert sorted(Reading.objects.values_list("taken_at", flat=True)) == [
         dt.datetime(2026, 3, 14, 8, 30, 12, tzinfo=dt.UTC),
         dt.datetime(2026, 3, 14, 8, 30, 40, tzinfo=dt.UTC),
     ]
     with mock.patch("django.utils.timezone.now", return_value=dt.datetime(2026, 3, 14, 8, 31, tzinfo=dt.UTC)):
-        again = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.94", taken_at=offered[1])
-    assert again.status_code == 200 and Reading.objects.count() == 2
-    assert "reading at this time already" in again.context["form"].errors["taken_at"][0]
-    assert "2026-03-14 09:30:40 (3.95 µF)" in again.context["form"].errors["taken_at"][0]  # its seconds, told apart
+        again = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.94", taken_at=offered[1][0],
+                          offered_at=offered[1][1])  # fmt: skip
+        assert again.status_code == 200 and Reading.objects.count() == 2
+        assert "reading at this time already" in again.context["form"].errors["taken_at"][0]
+        assert (
+            f"reading {Reading.objects.get(capacitance_uf=3.95, taken_at__second=40).id} of"
+            in (again.context["form"].errors["taken_at"][0])
+        )
+        # Changed to another minute, the box's time is the time saved: the second offered goes with its minute only.
+        moved = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.93", taken_at="2026-03-14T09:29",
+                          offered_at=offered[1][1])  # fmt: skip
+        assert moved.status_code == 302
+    assert Reading.objects.get(capacitance_uf=3.93).taken_at == dt.datetime(2026, 3, 14, 8, 29, tzinfo=dt.UTC)
 
 
 def test_a_time_taken_already_is_said_with_every_other_problem_of_the_reading(
@@ -463,6 +486,20 @@ def test_a_short_best_replacement_age_is_marked_clear_of_the_cost_axis_in_the_un
     assert layout["xaxis"]["title"]["text"] == "replacement age (years)"
     assert layout["xaxis"]["range"][1] == pytest.approx(max(years.context["cost_chart"]["data"][0]["x"]))
     assert any(note["text"].endswith("\xa0years") for note in layout["annotations"])
+
+
+@pytest.mark.parametrize("end_cost, words_side", [(26.0, "top"), (24.0, "bottom")])
+def test_the_run_to_failure_words_stand_on_the_side_of_their_line_the_cost_curve_does_not_end_on(end_cost, words_side):
+    """A walk at 390 px: the cost curve of a part without wear-out ends just above the run-to-failure line, and
+    the line's words, set above it at the right edge, lay across the curve. [ours] Where the curve ends above
+    the line, the words hang below it (anchored at their top); where it ends below, they stand above it."""
+    from fleet.charts import cost_curve_figure
+
+    ages = np.linspace(0.1, 40.0, 60)
+    cost = end_cost + (120.0 - end_cost) * np.exp(-ages)  # falling from 120 to end_cost at the right edge
+    layout = cost_curve_figure(ages, cost, run_to_failure=25.0, optimum_age=None)["layout"]
+    (words,) = [note for note in layout["annotations"] if note["text"] == "run to failure"]
+    assert words["y"] == 25.0 and words["xanchor"] == "right" and words["yanchor"] == words_side
 
 
 def test_the_life_data_part_menu_lists_codes_under_their_dielectric(client, engineer):

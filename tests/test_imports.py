@@ -3,6 +3,7 @@
 import csv
 import datetime as dt
 import io
+import re
 from unittest import mock
 
 import pytest
@@ -366,6 +367,32 @@ def test_a_file_without_a_required_column_is_told_at_the_top_which_one_and_the_c
     assert job.state == ImportJob.State.UPLOADED
     with pytest.raises(FileRefused, match=r"required field role \(the file's columns: asset_tag, taken_at"):
         check_file(kind="readings", filename="quarter.csv", content=content)
+
+
+def test_the_summary_of_a_file_without_its_required_columns_counts_what_it_lists(
+    client, technician, django_capture_on_commit_callbacks
+):
+    """A walk: a readings file headed tag,when,uf was told "Not saved: 4 to put right" above three fields and a
+    sentence naming the same three again. [ours] The count is the fields listed; the sentence (with the file's
+    columns) stands under the list, not as a fourth thing to put right."""
+    client.force_login(technician)
+    upload = io.BytesIO(b"tag,when,uf\nX-1,2026-03-14 09:30,3.9\n")
+    upload.name = "badheader.csv"
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("imports"), {"kind": "readings", "file": upload})
+    job = ImportJob.objects.get()
+    with django_capture_on_commit_callbacks(execute=True):
+        answer = client.post(reverse("import_detail", args=[job.id]), {"action": "check"})
+    page = answer.content.decode()
+    summary = page[page.index('id="error-summary"') : page.index("</div>", page.index('id="error-summary"'))]
+    listed = re.findall(r"<li>(.*?)</li>", summary, flags=re.S)
+    assert len(listed) == 3 and all('href="#wrap_' in item for item in listed), listed
+    assert "Not saved: 3 to put right" in summary
+    says = "No column holds the required fields asset_tag, role, taken_at (the file&#x27;s columns: tag, when, uf)"
+    note = summary[summary.index('id="error-summary-note"') :]
+    assert says in note and page.count(says) == 1
+    job.refresh_from_db()
+    assert job.state == ImportJob.State.UPLOADED
 
 
 def test_one_column_chosen_for_two_fields_is_refused_at_the_second(

@@ -152,9 +152,10 @@ def test_a_removed_capacitors_page_says_it_can_still_hold_a_charge(signed_in, te
     assert "can still hold a charge that can kill" in body and "local codes and licensed practice decide" in body
 
 
-def test_two_readings_a_minute_apart_are_told_apart_on_the_capacitor_page_and_the_form(signed_in, technician):
-    """A helper's walk: the form offers the time to the second, but the readings tables showed minutes, so two
-    readings taken within one minute were listed alike. [derived] seconds where they are not 0."""
+def test_the_readings_tables_give_every_reading_to_the_minute(signed_in, technician):
+    """A walk: readings saved from the form (which keeps the second it offered) were listed with their seconds,
+    older and imported ones to the minute, in one table. [ours] Every reading is listed to the minute, as the
+    form's time box shows it; two readings within one minute are two rows, each with its value."""
     site = make_site(time_zone="Europe/Dublin")
     capacitor = make_fitted_capacitor(motor=make_motor(site=site))
     make_reading(capacitor, taken_at=dt.datetime(2026, 1, 5, 9, 15, 0, tzinfo=dt.UTC), capacitance_uf=3.95)
@@ -162,8 +163,26 @@ def test_two_readings_a_minute_apart_are_told_apart_on_the_capacitor_page_and_th
     client = signed_in(technician)
     for page in (reverse("fitted_capacitor", args=[capacitor.id]), reverse("reading_new", args=[capacitor.id])):
         body = client.get(page).content.decode()
-        assert '<span class="nowrap">2026-01-05 09:15:40</span>' in body, page
-        assert '<span class="nowrap">2026-01-05 09:15</span>' in body, page
+        assert body.count('<span class="nowrap">2026-01-05 09:15</span>') == 2, page
+        assert "09:15:40" not in body and "3.95" in body and "3.96" in body, page
+
+
+def test_the_slope_per_1000_stress_hours_is_said_once_in_a_technicians_words_too(signed_in, technician):
+    """A walk: a technician read "-0.30 % per 1000 h of stress" on the reading form and "per 1000 stress-hours"
+    on the capacitor page with nothing to say what a stress-hour is. Each page keeps the figure and says once,
+    beside it, what one is, in the words of README's "The path" (case temperature and capacitor voltage, the
+    10 K doubling rule [mem]: docs/engineering.md, section 1)."""
+    capacitor = make_fitted_capacitor()
+    make_reading(capacitor, taken_at=timezone.now() - dt.timedelta(days=3), capacitance_uf=3.9)
+    stored_assessment(capacitor, "watch", None)
+    client = signed_in(technician)
+    for name, figure in (("reading_new", "-0.10 % per 1000 stress-hours"), ("fitted_capacitor", "-0.100")):
+        words = html.unescape(strip_tags(client.get(reverse(name, args=[capacitor.id])).content.decode()))
+        words = re.sub(r"\s+", " ", words.replace("\xa0", " "))
+        gloss = "(stress-hours: hours in service, each counted by how hot the capacitor runs and the voltage across it"
+        assert words.count(gloss) == 1 and "an hour 10 °C hotter counts as two)" in words, name
+        assert figure in words and words.index(figure) < words.index(gloss) < words.index(figure) + 200, name
+        assert "h of stress" not in words, name
 
 
 def test_the_motor_and_capacitor_pages_give_reading_times_in_the_sites_time(signed_in, technician):
@@ -447,6 +466,19 @@ def test_labels_for_a_tag_not_at_the_site_say_so(signed_in, technician, fan_fitt
     assert "No motor has the tag" not in body.content.decode()
 
 
+def test_every_number_on_a_label_stays_on_one_line_with_its_unit(signed_in, technician):
+    """A walk at 390 px: "230 V supply" broke between 230 and V on a label. [ours] Every number and its unit on
+    a label card (supply, capacitance, rating) are joined by a no-break space."""
+    site = make_site(code="NBS")
+    motor = make_motor(site=site, with_circuit=False, motor_type="two_value", asset_tag="NBS-0001")
+    make_fitted_capacitor(motor=motor, part=make_part(code="RUN-8-450", rated_uf=8, rated_voltage_v=450))
+    body = html.unescape(signed_in(technician).get(reverse("labels", args=["NBS"])).content.decode())
+    cards = re.findall(r'<div class="label-card">(.*?)</div>\s*</div>', body, flags=re.S)
+    assert cards
+    joined = [re.findall(r"\d(\s+)(?:V|µF|Hz)\b", strip_tags(card)) for card in cards]
+    assert all(joined) and {space for found in joined for space in found} == {"\xa0"}, joined
+
+
 def test_labels_and_motor_page_name_the_motor_type_and_each_capacitors_own_rating(signed_in, technician):
     """ "Two-value capacitor, 230 V" on a label read as the capacitor's rating (the run capacitor is 450 V):
     the type is the motor's, the voltage its supply's, and each capacitor in service is named with its
@@ -546,7 +578,10 @@ def test_plan_and_capacitor_pages_read_stored_assessments(signed_in, planner, dj
     BandCalibration.objects.create(family="film", slope_bias=0.0, slope_spread=0.35, alert_quantile=0.5)
     said = "judged on (P50, the date half of such capacitors would have crossed by, for metallised film (run))"
     assert said in client.get(reverse("plan")).content.decode()
-    assert "columns and units</a>)</span>. Every reading" in response.content.decode()  # no stray space before "."
+    # Each download's sentence ends with its links (no full stop stood alone after the row a phone makes of them).
+    assert 'columns and units</a><span class="sep">)</span></span></p>\n<p class="no-print muted">Every reading' in (
+        response.content.decode()
+    )
     response = client.get(reverse("fitted_capacitor", args=[fitted_capacitors[0].id]))
     assert 'id="trend-data"' in response.content.decode()
     assert Assessment.objects.filter(is_current=True).count() == 6

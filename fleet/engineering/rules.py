@@ -246,10 +246,10 @@ def microfarad_text(value) -> str:
 
 
 def reading_time_text(local) -> str:
-    """When a reading was taken (a datetime in the site's time), as the pages write it: to the minute, with its
-    seconds where they are not 0 ("2026-11-02 09:15", "2026-11-02 09:15:40"), so two readings a minute apart,
-    which the form can take, are told apart."""
-    return f"{local:%Y-%m-%d %H:%M:%S}" if local.second else f"{local:%Y-%m-%d %H:%M}"
+    """When a reading was taken (a datetime in the site's time), as the pages write it: to the minute
+    ("2026-11-02 09:15"), as the form's time box shows it, whatever seconds the reading was stored with (the form
+    keeps the second it offered, the API and the imports what they are sent)."""
+    return f"{local:%Y-%m-%d %H:%M}"
 
 
 GENERAL_FORMAT = re.compile(r"\{(\w+):g\}")

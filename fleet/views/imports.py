@@ -107,8 +107,9 @@ def import_detail(request, job_id):
         "spelt_near": proposed_by_spelling(job),
         "open_visits": open_visits_shown(job),
         "shown_values": json.dumps(stored_values(job, IMPORT_SHOWN)),
-        # Before a check is asked: a required field the headings did not match, said at the top at once.
-        "missing": "" if form.is_bound else form.missing_words(job.mapping or {}),
+        # A required field no column holds, said at the top: before a check is asked, of the headings matched; after
+        # one, of the columns chosen (in the summary, under the fields it lists).
+        "missing": form.missing_words(form.cleaned_data if form.is_bound else job.mapping or {}),
     }
     return render(request, "fleet/import_detail.html", context)
 

@@ -5,17 +5,27 @@ links and its tick boxes kept for paper. At 1366 px the desktop tables keep thei
 """
 
 import datetime as dt
+import math
+from itertools import pairwise
 
 import pytest
 from django.utils import timezone
 
-from fleet.models import FittedCapacitor, Motor, Reading, WorkOrder
+from fleet.models import FittedCapacitor, Motor, PartLifeFit, Reading, WorkOrder
 from fleet.services.assessments import refit_fitted_capacitors
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, quarterly_readings
+from tests.factories import (
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    make_user,
+    quarterly_readings,
+    stored_assessment,
+)
 
 from .conftest import ARTIFACTS, demo_page
 from .test_every_page import _load
-from .test_technician import sign_in
+from .test_technician import motor_with_history, sign_in  # noqa: F401 - the fixture is used by name
 
 pytestmark = [pytest.mark.browser, pytest.mark.django_db(transaction=True)]
 
@@ -441,3 +451,115 @@ def test_who_is_signed_in_is_said_on_a_phone_too(phone):
     assert phone.evaluate("document.documentElement.scrollWidth") <= 390
     phone.set_viewport_size({"width": 1366, "height": 800})
     assert phone.locator("header .who").is_visible() and not said.is_visible()
+
+
+# Each item of the error summary as laid out: where its link starts and how tall it is, where the li's text starts,
+# and the tops of the lines its text takes (every text node's rects, the link's included), in px.
+SUMMARY_ITEMS = r"""() => [...document.querySelectorAll("#error-summary li")].map((li) => {
+  const link = li.querySelector("a"), item = li.getBoundingClientRect(), box = link.getBoundingClientRect();
+  const range = document.createRange();
+  range.selectNodeContents(li);
+  const tops = [...new Set([...range.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top)))];
+  const name = document.createRange();
+  name.selectNodeContents(link);
+  return {text: li.innerText, itemLeft: item.left, linkLeft: box.left, linkHeight: box.height, linkTop: box.top,
+          linkBottom: box.bottom,
+          nameLines: new Set([...name.getClientRects()].filter((r) => r.width > 0).map((r) => Math.round(r.top))).size,
+          tops: tops.sort((a, b) => a - b), lineHeight: parseFloat(getComputedStyle(li).lineHeight)};
+})"""
+
+
+def test_the_error_summary_reads_as_plain_left_aligned_sentences_on_a_phone(phone, motor_with_history):  # noqa: F811
+    """A walk at 390 px: in "Not saved" the field names stood centred, "Capacitor case temperature (°C)" wrapped
+    in its box; in "Check before saving" the message broke off after "61 µF is far", a blank gap, then the rest.
+    Each item now starts at the left with the field's name, its message after it on the same line and wrapping
+    at the line's height; the name is still a 44 px tall target for a glove."""
+    fitted_capacitor = motor_with_history
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_capacitance_uf", "abc")
+    phone.fill("#id_case_temperature_c", "2x")
+    phone.click("#save")
+    phone.locator("#error-summary").wait_for(timeout=15000)
+    refused = phone.evaluate(SUMMARY_ITEMS)
+    phone.shot("summary-not-saved")
+    assert [item["text"] for item in refused] == ["Capacitance (µF)", "Capacitor case temperature (°C)"]
+    for item in refused:
+        assert abs(item["linkLeft"] - item["itemLeft"]) <= 1 and item["nameLines"] == 1, item
+        assert item["linkHeight"] >= GLOVE_PX, item
+    assert refused[1]["linkTop"] - refused[0]["linkBottom"] >= 8, refused  # targets apart, as on every page
+    phone.evaluate("localStorage.clear()")
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.3")
+    phone.click("#save")
+    phone.locator("#error-summary").wait_for(timeout=15000)
+    (asked,) = phone.evaluate(SUMMARY_ITEMS)
+    phone.shot("summary-check-before-saving")
+    assert asked["text"].startswith("Capacitance (µF): 3.3 µF is far from this capacitor's trend"), asked
+    assert abs(asked["linkLeft"] - asked["itemLeft"]) <= 1 and asked["linkHeight"] >= GLOVE_PX, asked
+    assert len(asked["tops"]) >= 2, asked  # the message wraps at 390 px ...
+    gaps = [b - a for a, b in pairwise(asked["tops"])]
+    assert max(gaps) <= 1.1 * asked["lineHeight"], asked  # ... line under line, no blank line between
+
+
+# The download links of one paragraph (_export_links.html) as laid out: the paragraph's text as read, and each
+# link's box; and how far the link "forecast track record" stands from its full stop.
+DOWNLOAD_ROW = r"""(selector) => {
+  const p = document.querySelector(selector);
+  const links = [...p.querySelectorAll("a")].map((a) => {
+    const box = a.getBoundingClientRect();
+    return {text: a.textContent, left: box.left, right: box.right, top: box.top, bottom: box.bottom};
+  });
+  const record = document.querySelector("a.in-text[href*='track']"), stop = record.nextSibling;
+  const words = document.createRange(), mark = document.createRange();
+  words.selectNodeContents(record);
+  mark.setStart(stop, 0);
+  mark.setEnd(stop, 1);
+  return {text: p.innerText, links, stopGap: mark.getClientRects()[0].left - [...words.getClientRects()].pop().right};
+}"""
+
+
+def test_the_download_links_stand_as_a_row_of_targets_on_a_phone_and_in_a_sentence_on_a_desktop(phone):
+    """A walk at 390 px on the life-data page: "CSV , XLSX , Parquet" and "( columns and units )", and
+    "forecast track record ." with a gap: each link was a 44 px box centred round its word with 4 px margins,
+    and the commas and brackets stood apart. On a phone the downloads are now a row of glove targets (44 x 44 px,
+    8 px apart, the rule of every page) without the commas and brackets; on a desktop they read as a sentence;
+    a link ending a sentence keeps its full stop beside it."""
+    part = make_part(code="LIFE-9")
+    points = [[age, 1.0 - math.exp(-((age / 5.5) ** 1.48))] for age in (0.8, 1.6, 2.4, 3.5, 4.7)]
+    PartLifeFit.objects.create(part=part, beta=1.48, eta_years=5.5, failures=12, suspensions=40, plot_points=points)
+    sign_in(phone, make_user("reliability engineer"))
+    phone.goto("/life/?part=LIFE-9")
+    row = phone.evaluate(DOWNLOAD_ROW, "p:has(a[href*='life-data'])")
+    phone.shot("life-download-row")
+    assert [link["text"] for link in row["links"]] == ["CSV", "XLSX", "Parquet", "columns and units"]
+    downloads = row["text"].rsplit(":", 1)[1]
+    assert "," not in downloads and "(" not in downloads and ")" not in downloads, row["text"]
+    for link in row["links"]:
+        assert link["right"] - link["left"] >= GLOVE_PX and link["bottom"] - link["top"] >= GLOVE_PX, link
+    for one, two in pairwise(row["links"]):
+        apart = max(two["left"] - one["right"], two["top"] - one["bottom"])
+        assert GLOVE_PX / 6 <= apart <= 12, (one, two)
+    assert abs(row["stopGap"]) <= 1, row["stopGap"]
+    phone.set_viewport_size({"width": 1366, "height": 900})
+    row = phone.evaluate(DOWNLOAD_ROW, "p:has(a[href*='life-data'])")
+    assert row["text"].endswith(": CSV, XLSX, Parquet (columns and units)"), row["text"]
+
+
+def test_every_card_of_the_plans_riskier_list_puts_was_under_the_capacitor(phone):
+    """A walk at 390 px: in one card of "Riskier" (a short part code), "Was sound" floated up beside the
+    capacitor's link, in the others it stood under it. The capacitor takes its own line in every card."""
+    site = make_site("CRD")
+    for code in ("R-1", "RUN-CAPACITOR-WITH-A-LONG-CODE-450"):
+        capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=make_part(code=code))
+        stored_assessment(capacitor, "sound", None, created_at=timezone.now() - dt.timedelta(days=20))
+        stored_assessment(capacitor, "watch", timezone.localdate() + dt.timedelta(days=300))
+    sign_in(phone, make_user("planner"))
+    phone.goto("/plan/")
+    cards = phone.evaluate("""() => [...document.querySelectorAll("h3[id$='-heading'] + .table-scroll tbody tr")]
+      .map((row) => [row.querySelector("td[data-label=Capacitor]").getBoundingClientRect(),
+                     row.querySelector("td[data-label=Was]").getBoundingClientRect()])
+      .map(([capacitor, was]) => ({below: was.top >= capacitor.bottom - 1, left: Math.round(was.left)}))""")
+    phone.shot("plan-riskier-cards")
+    assert len(cards) == 2 and all(card["below"] for card in cards), cards
+    assert len({card["left"] for card in cards}) == 1, cards

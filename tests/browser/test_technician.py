@@ -5,7 +5,7 @@ import datetime as dt
 import pytest
 from django.utils import timezone
 
-from fleet.models import FittedCapacitor, Reading
+from fleet.models import FittedCapacitor, Reading, site_zone
 from fleet.services.assessments import refit_fitted_capacitors
 from tests.factories import PASSWORD, make_fitted_capacitor, make_user, quarterly_readings
 
@@ -444,3 +444,28 @@ def test_a_replacement_sent_after_the_sign_in_ended_comes_back_as_typed(phone, m
     phone.goto(f"/motors/{motor_with_history.motor.asset_tag}/")
     phone.goto(f"/fitted-capacitors/{motor_with_history.id}/replace/")  # put back once, not on every visit
     assert not phone.is_visible("#form-put-back") and phone.input_value("#id_serial") == ""
+
+
+def test_the_time_box_offers_the_minute_and_the_reading_keeps_the_second_it_was_offered(phone, motor_with_history):
+    """A walk with gloves: the time box showed seconds ("02:15:17 PM"), fiddly to set, and readings saved from
+    the form were listed with seconds beside older ones to the minute. The box offers the minute (step 60); the
+    second it offered (the moment the first value was typed) is kept beside it, on the phone with the draft too,
+    and saved while the box is left at its minute, so two readings within a minute stay two. [ours]"""
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    box, offered = phone.locator("#id_taken_at"), phone.locator("input[name=offered_at]")
+    assert box.get_attribute("step") == "60" and len(box.input_value()) == len("2026-03-14T09:30")
+    phone.wait_for_timeout(1100)
+    phone.fill("#id_capacitance_uf", "3.95")
+    minute, second = box.input_value(), offered.input_value()
+    assert len(minute) == len("2026-03-14T09:30") and len(second) == len("2026-03-14T09:30:27")
+    assert second.startswith(minute + ":")
+    phone.reload()  # the draft on the phone keeps both
+    assert box.input_value() == minute and offered.input_value() == second
+    phone.click("#save")
+    phone.wait_for_url("**/motors/**")
+    reading = Reading.objects.get(capacitance_uf=3.95)
+    zone = site_zone(motor_with_history.motor.site.time_zone)
+    assert timezone.localtime(reading.taken_at, zone).strftime("%Y-%m-%dT%H:%M:%S") == second
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
+    assert phone.locator("table.readings tbody tr td").first.inner_text() == minute.replace("T", " ")
