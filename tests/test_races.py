@@ -847,6 +847,18 @@ def test_two_imports_of_one_file_at_once_save_each_row_once_and_say_so(kind, fil
     )
 
 
+def _reading_form_now(client_key: str) -> dict:
+    """The reading form as sent for a meter reading of 3.9513 µF taken now, under its one-time key."""
+    now = timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M")
+    return {
+        "taken_at": now,
+        "method": "meter",
+        "capacitance_uf": "3.9513",
+        "condition": "sound",
+        "client_key": client_key,
+    }
+
+
 @threads_race
 def test_a_reading_saved_while_an_import_writes_waits_a_bounded_time_and_keeps_every_value(capacitor, settings):
     """A reading saved on the form while a large readings import wrote waited on the import's lock for the whole
@@ -855,14 +867,7 @@ def test_a_reading_saved_while_an_import_writes_waits_a_bounded_time_and_keeps_e
     and says it was not saved; nothing is saved; once the import is done, Save again stores it once."""
     settings.FLEET_WRITE_WAIT_MS = 300
     user = make_user("technician")
-    form = {
-        "taken_at": timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M"),
-        "method": "meter",
-        "capacitance_uf": "3.9513",
-        "condition": "sound",
-        "notes": "fan hums at start",
-        "client_key": "page-busy",
-    }
+    form = {**_reading_form_now("page-busy"), "notes": "fan hums at start"}
     before = Reading.objects.count()
     writing, done = threading.Event(), threading.Event()
 
@@ -907,13 +912,7 @@ def test_a_reading_refused_by_a_busy_database_comes_back_with_every_value(capaci
     user = make_user("technician")
     client = Client()
     client.force_login(user)
-    form = {
-        "taken_at": timezone.localtime(timezone.now()).strftime("%Y-%m-%dT%H:%M"),
-        "method": "meter",
-        "capacitance_uf": "3.9513",
-        "condition": "sound",
-        "client_key": "page-locked",
-    }
+    form = _reading_form_now("page-locked")
     target = "fleet.views.field.record_reading"
     with mock.patch(target, side_effect=OperationalError("database is locked")):
         answer = client.post(f"/fitted-capacitors/{capacitor.id}/reading/", form)

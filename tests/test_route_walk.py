@@ -165,11 +165,9 @@ def _checked_reason(page: str) -> str | None:
     return checked[0] if checked else None
 
 
-def test_a_replacement_recorded_from_its_planned_order_starts_at_replaced_on_plan(client, technician):
-    """A walk: "Record the replacement" on a planned order opened the form with no reason chosen. From an open
-    replacement order the form starts at "Replaced on plan"; from the motor's page, or with no such order,
-    nothing is chosen for the technician (a capacitor that failed before its visit is "failed in service")."""
-    (fitted_capacitor,) = _route("PLN", 1)
+def _on_an_issued_replacement_order(site_code: str) -> tuple[FittedCapacitor, WorkOrder]:
+    """A site of one motor whose run capacitor has an issued replacement order due today."""
+    (fitted_capacitor,) = _route(site_code, 1)
     order = WorkOrder.objects.create(
         motor=fitted_capacitor.motor,
         fitted_capacitor=fitted_capacitor,
@@ -177,6 +175,14 @@ def test_a_replacement_recorded_from_its_planned_order_starts_at_replaced_on_pla
         due_on=timezone.localdate(),
         state=WorkOrder.State.ISSUED,
     )
+    return fitted_capacitor, order
+
+
+def test_a_replacement_recorded_from_its_planned_order_starts_at_replaced_on_plan(client, technician):
+    """A walk: "Record the replacement" on a planned order opened the form with no reason chosen. From an open
+    replacement order the form starts at "Replaced on plan"; from the motor's page, or with no such order,
+    nothing is chosen for the technician (a capacitor that failed before its visit is "failed in service")."""
+    fitted_capacitor, order = _on_an_issued_replacement_order("PLN")
     client.force_login(technician)
     form = reverse("replace", args=[fitted_capacitor.id])
     from_orders = f"{form}?next={reverse('work_orders')}"
@@ -196,14 +202,7 @@ def test_a_capacitor_found_failed_is_not_taken_as_replaced_on_plan_from_its_orde
     or read it open, nothing is chosen for the technician; the form says which reason is which, and why it counts.
     [trade] a unit removed failed is a failure, one removed still working a suspension (IEC 61649, 2008, from
     memory, unverified)."""
-    (fitted_capacitor,) = _route("FLD", 1)
-    WorkOrder.objects.create(
-        motor=fitted_capacitor.motor,
-        fitted_capacitor=fitted_capacitor,
-        kind=WorkOrder.Kind.REPLACE_RUN,
-        due_on=timezone.localdate(),
-        state=WorkOrder.State.ISSUED,
-    )
+    fitted_capacitor, _ = _on_an_issued_replacement_order("FLD")
     client.force_login(technician)
     from_orders = f"{reverse('replace', args=[fitted_capacitor.id])}?next={reverse('work_orders')}"
     make_reading(fitted_capacitor, taken_at=timezone.now() - timezone.timedelta(days=2), capacitance_uf=3.9)
