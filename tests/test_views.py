@@ -198,6 +198,8 @@ def test_the_motor_and_capacitor_pages_give_reading_times_in_the_sites_time(sign
     assert "Europe/Dublin" in page
     motor_page = client.get(reverse("motor", args=[capacitor.motor.asset_tag])).content.decode()
     assert "2026-07-02" in motor_page and "2026-07-01" not in motor_page
+    # A walk: three readings of one day listed as "2026-12-05" alone on the motor page, nothing to tell them apart.
+    assert "2026-07-02 00:25" in motor_page
 
 
 def test_the_capacitor_page_links_its_reading_form_and_replacement_while_in_service(

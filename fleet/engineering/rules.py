@@ -88,7 +88,9 @@ class ReadingRules:
 
     ranges: MappingProxyType = field(default_factory=_ranges)
     # A capacitor (or line) voltage above this multiple of the motor's rated voltage is most likely a
-    # missed decimal point: ask to confirm (run capacitors sit up to about 1.5x the supply; from memory).
+    # missed decimal point or the meter across the wrong terminals: ask to confirm. A run capacitor sees about
+    # V sqrt(1 + a^2) running, a the auxiliary-to-main turns ratio, up to about 1.5: up to 1.8 times the supply
+    # (from memory, unverified; the demo's 230 V motors put 414-421 V across theirs).
     voltage_confirm_factor: float = 2.0
     # A line voltage under this share of the motor's rated one while it was read is a slip (1,200 typed as
     # thousands, read as 1.2 V by the decimal comma) or a supply that was off: ask to confirm (ours; a supply
@@ -209,8 +211,9 @@ NANOFARAD_WORDS = (
 )
 # A voltage far above the motor's: "{v} V is more than {k} times the motor's {s} V" (the live hint fills in the same).
 VOLTAGE_CONFIRM_WORDS = (
-    "{v:g} V is more than {k:g} times the motor's {s:g} V: a missed decimal point? Re-measure, or confirm the value "
-    "if it is right"
+    "{v:g} V is more than {k:g} times the motor's {s:g} V: a missed decimal point? A run capacitor running sees up "
+    "to about 1.8 times the supply, so also check the meter's range and the terminals it was across. Re-measure, or "
+    "confirm the value if it is right"
 )
 
 
