@@ -40,7 +40,9 @@ class Command(BaseCommand):
         )
         self.stdout.write(
             "in service: capacitors in service with readings at the cut-off; forecasts: those of them not yet past "
-            "their limit, each given a forecast of its crossing; crossed: of the forecasts, how many crossed later"
+            "their limit, each given a forecast of its crossing; crossed: of the forecasts, how many crossed later; "
+            "recall and precision within 365 days only at cut-offs a year or more before the newest reading (- "
+            "otherwise: within a year not yet over, the flags that came true are known before those that did not)"
         )
         header = (
             "cut-off   in service  forecasts  crossed  in P10-P90  before P10  after P90  recall 365 d  precision 365 d"
@@ -82,7 +84,9 @@ class Command(BaseCommand):
             )
             floor = PlanningSettings().alert_min_recall
             caught = any(row["recall_365d"] is not None and row["recall_365d"] >= floor for row in table)
-            why = "the most precise" if caught else f"none caught {100 * floor:.0f} %: the most cautious"
+            share = f"{100 * floor:.0f} %"
+            caught_words = f"caught {share} of the year's crossings"
+            why = f"the most precise that {caught_words}" if caught else f"the most cautious: no level {caught_words}"
             self.stdout.write(
                 f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f}, {why} "
                 f"(365-day precision/recall % by level: {tried})"
