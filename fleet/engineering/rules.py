@@ -43,8 +43,14 @@ MSG_NOT_A_NUMBER = "not a number"
 MSG_NOT_FINITE = "not a finite number"
 MSG_SEPARATORS = "use one decimal separator (3.8 or 3,8) and no thousands separators"
 MSG_WITH_UNIT = "type the number alone, in the unit the field names (no unit after it)"
+MSG_LETTER_FOR_DIGIT = "a letter O or l where a 0 or 1 belongs? type digits only"
 # A number with letters or a symbol after it: "28500 nF", "3.9uF", "230 V", "45 °C".
 NUMBER_WITH_UNIT = r"[+-]?[0-9][0-9.,]*\s*[^\s0-9.,+-][^0-9]*"
+# A number with a letter O (or o) for a zero, or l (or I) for a one, beside its digits ("3O", "1O5", "l2.5"): what a
+# gloved thumb types on a phone's letter keys. Read as digits, it would be a number; it is refused, saying so. At
+# least one digit: a meter's "OL" (over range) typed as "ol" is no number, not a slip.
+LETTERS_FOR_DIGITS = r"[+-]?[0-9oOlI.,]*(?:[0-9][0-9.,]*[oOlI]|[oOlI][0-9oOlI.,]*[0-9])[0-9oOlI.,]*"
+LETTERS_AS_DIGITS = str.maketrans("oOlI", "0011")
 
 
 @dataclass(frozen=True)
@@ -160,6 +166,8 @@ class ReadingRules:
             "not_finite_number_words": MSG_NOT_FINITE,
             "separators_words": MSG_SEPARATORS,
             "with_unit_words": MSG_WITH_UNIT,
+            "letters_for_digits": LETTERS_FOR_DIGITS,
+            "letter_for_digit_words": MSG_LETTER_FOR_DIGIT,
         }
         out["voltage_confirm_words"] = VOLTAGE_CONFIRM_WORDS
         out["nanofarad_words"] = NANOFARAD_WORDS
@@ -938,7 +946,12 @@ def _why_not_a_number(given: pd.Series, ok: np.ndarray) -> np.ndarray:
         np.where(
             given.str.contains(TWO_SEPARATORS, regex=True).to_numpy(),
             MSG_SEPARATORS,
-            np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
+            np.where(
+                given.str.fullmatch(LETTERS_FOR_DIGITS).to_numpy(bool)
+                & given.str.translate(LETTERS_AS_DIGITS).str.fullmatch(NUMBER_TEXT.pattern).to_numpy(bool),
+                MSG_LETTER_FOR_DIGIT,
+                np.where(given.str.fullmatch(NUMBER_WITH_UNIT).to_numpy(bool), MSG_WITH_UNIT, MSG_NOT_A_NUMBER),
+            ),
         ),
     )
 

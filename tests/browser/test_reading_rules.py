@@ -277,7 +277,7 @@ def test_the_hint_says_what_the_server_says_of_a_voltage_out_of_range_and_of_two
     """40000 V across the capacitor: the hint said "you will be asked to confirm" while the server refuses it
     (above 5000 V); "1.234,5" was "not a number" in the hint and "use one decimal separator" at the server.
     The hint now takes the server's patterns, bounds and words from the rulebook's JSON."""
-    from fleet.engineering.rules import MSG_SEPARATORS, MSG_WITH_UNIT, range_messages
+    from fleet.engineering.rules import MSG_LETTER_FOR_DIGIT, MSG_SEPARATORS, MSG_WITH_UNIT, range_messages
 
     sign_in(phone, make_user("technician"))
     phone.goto(f"/fitted-capacitors/{motor_with_history.id}/reading/")
@@ -291,7 +291,13 @@ def test_the_hint_says_what_the_server_says_of_a_voltage_out_of_range_and_of_two
         phone.locator("#computed").inner_text()
     )
     phone.check("input[value=meter]")
-    for typed, server in (("1.234,5", MSG_SEPARATORS), ("3,9 uF", MSG_WITH_UNIT), ("abc", "not a number")):
+    for typed, server in (
+        ("1.234,5", MSG_SEPARATORS),
+        ("3,9 uF", MSG_WITH_UNIT),
+        ("abc", "not a number"),
+        ("3.9O", MSG_LETTER_FOR_DIGIT),
+        ("ol", "not a number"),
+    ):
         phone.fill("#id_capacitance_uf", typed)
         assert f"Capacitance (µF): {server}" in phone.locator("#computed").inner_text()
     phone.fill("#id_capacitance_uf", "1e999")

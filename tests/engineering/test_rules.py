@@ -266,6 +266,17 @@ def test_the_live_checks_words_for_a_range_are_the_servers():
     assert result.errors["line_voltage_v"][0] == "0 " + hint["line_voltage_v"]["too_low"] == "0 must be above 0 V"
 
 
+def test_a_letter_o_or_l_typed_for_a_digit_is_named():
+    """A walk: a case temperature typed "3O" (a letter O) was told to drop its unit, which it has none of. [ours] a
+    number with an O for a 0 or an l for a 1 beside its digits is named as such; a meter's "OL" typed as "ol" and
+    letters alone stay "not a number", a number with its unit stays one."""
+    from fleet.engineering.rules import MSG_LETTER_FOR_DIGIT
+
+    values, messages = parse_numbers(["3O", "1O5", "l2.5", "-O.5", "ol", "OL", "O", "30 C", "3.9uF"])
+    assert np.isnan(values).all()
+    assert messages.tolist() == [MSG_LETTER_FOR_DIGIT] * 4 + ["not a number"] * 3 + [MSG_WITH_UNIT] * 2
+
+
 def test_a_number_typed_with_its_unit_is_asked_for_alone():
     """ "28500 nF" in a microfarad box was "not a number": the field names its unit, so say to drop it
     (ours). A number the unit check can then read as nanofarads is asked about as such."""
