@@ -373,6 +373,19 @@ def test_a_confirmed_reading_is_marked_for_the_engineer_on_the_capacitor_page(
     assert ">3.30</td>" in row  # the mark is on the 3.30 µF reading's row
 
 
+def test_a_removed_capacitor_without_a_trend_says_why_not_yet(signed_in, engineer, fan_fitted_capacitor):
+    """A walk: capacitors removed in 2023 said "No trend yet." as if one were coming. [ours] a removed one says it
+    is no longer assessed; one in service without readings still says "not yet"."""
+    page_url = reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])
+    client = signed_in(engineer)
+    assert "No trend yet." in client.get(page_url).content.decode()
+    FittedCapacitor.objects.filter(pk=fan_fitted_capacitor.pk).update(
+        removed_on=dt.date(2023, 5, 2), removal_reason="planned"
+    )
+    page = " ".join(strip_tags(client.get(page_url).content.decode()).split())
+    assert "No trend yet." not in page and "removed on 2023-05-02, so no longer assessed" in page
+
+
 def test_a_voltage_measured_above_the_capacitors_rating_is_shown_to_the_engineer(
     signed_in, engineer, fan_fitted_capacitor
 ):
