@@ -1368,6 +1368,11 @@ class BandCalibration(models.Model):
     alert_quantile = models.FloatField(
         default=0.1, help_text="Crossing quantile the risk rule flags on, chosen by the back-test (0.1 = P10)"
     )
+    alert_met_recall = models.BooleanField(
+        null=True,
+        help_text="Whether that level caught the year's share of crossings the rule asks (alert_min_recall) in the "
+        "back-test; False: none did, so the most cautious; null: not scored (a back-test before this was kept)",
+    )
     capacitors = models.PositiveIntegerField(default=0)
     residuals = models.PositiveIntegerField(default=0)
     backtest = models.ForeignKey(Backtest, null=True, on_delete=models.SET_NULL, related_name="+")

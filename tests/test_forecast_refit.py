@@ -250,6 +250,10 @@ def test_a_backtest_scores_past_cutoffs_and_stores_a_calibration():
     calibration = BandCalibration.objects.get(family="film")
     assert calibration.capacitors == 30 and calibration.residuals == later_readings == 420
     assert calibration.slope_bias > 0 and np.isfinite(calibration.slope_spread)
+    # Whether the level chosen caught the year's share the rule asks, as its own row of the table says (ours).
+    table = {row["level"]: row["recall_365d"] for row in backtest.results["alert_levels"]["film"]}
+    recall = table[calibration.alert_quantile]
+    assert calibration.alert_met_recall is (None if recall is None else recall >= 0.85)
     assert Reading.objects.count() == 30 * 16  # a back-test writes no readings
 
 

@@ -246,6 +246,16 @@ def _alert_levels(frame: pd.DataFrame) -> dict[str, tuple[float, list]]:
     return chosen
 
 
+def _met_recall(tried: tuple[float, list] | None) -> bool | None:
+    """Whether the level chosen for a dielectric caught the share of the year's crossings the rule asks
+    (`choose_alert_level` falls back to the most cautious level where none did); None where nothing was scored."""
+    if tried is None:
+        return None
+    level, table = tried
+    recall = next((r for chosen, _, r in table if chosen == level), None)
+    return None if recall is None else bool(recall >= PlanningSettings().alert_min_recall)
+
+
 def _with_alert_risk(frame: pd.DataFrame, levels: dict[str, float]) -> pd.DataFrame:
     """The forecasts with the risk the rule gives at each dielectric's alert level."""
     index = alert_index(frame["dielectric"].map(levels).to_numpy(float))
@@ -379,6 +389,7 @@ def _run(backtest: Backtest) -> None:
             "trend_model": forms.get(family, ""),
             "path_shape": shapes.get(family, ""),
             "alert_quantile": float(levels.get(family, PlanningSettings().alert_level)),
+            "alert_met_recall": _met_recall(tried.get(family)),
             "capacitors": int(terms.capacitors[k]),
             "residuals": int(terms.residuals[k]),
         }

@@ -35,6 +35,7 @@ from fleet.engineering.trends import case_temperatures, default_tempco_ppm_per_k
 from fleet.filters import utc_midnight
 from fleet.models import (
     Assessment,
+    BandCalibration,
     CapacitorPart,
     FittedCapacitor,
     Motor,
@@ -743,10 +744,14 @@ def first_assessed_due(days: int = 7, limit: int = 50, user=None, site: Site | N
     return list(rows), fresh.count()
 
 
-def alert_level_percent(dielectric: str) -> int:
+def alert_level_basis(dielectric: str) -> dict:
     """The crossing quantile, in percent, that a capacitor of this dielectric's risk level and replace-by date
-    follow (`alert_level_words`, for one family)."""
-    return round(100 * stored_alert_levels().get(dielectric, PlanningSettings().alert_level))
+    follow (`alert_level_words`, for one family), and whether the back-test that chose it found it caught the
+    share of the year's crossings the rule asks (`met`: True; False where no level did, so the most cautious;
+    None before any back-test scored it). One query."""
+    row = BandCalibration.objects.filter(family=dielectric).values_list("alert_quantile", "alert_met_recall").first()
+    quantile, met = row if row is not None else (PlanningSettings().alert_level, None)
+    return {"percent": round(100 * quantile), "met": met}
 
 
 def alert_level_words() -> str:

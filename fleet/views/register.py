@@ -170,7 +170,7 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "readings": readings,
         "over_rating": pages.highest_voltage_over_rating(fitted_capacitor, readings),
         "energy_j": worst_case_energy_j(fitted_capacitor.part),
-        "alert_percent": pages.alert_level_percent(fitted_capacitor.part.dielectric),
+        "alert": pages.alert_level_basis(fitted_capacitor.part.dielectric),
         "rules": PlanningSettings(),
         "tolerance_life": tolerance_life(fitted_capacitor.part_id),
         "age_years": (timezone.localdate() - fitted_capacitor.fitted_on).days / DAYS_PER_YEAR,
