@@ -879,6 +879,9 @@ class Assessment(models.Model):
         default=0, help_text="Highest reading id seen by this fit: a reading added later makes it stale"
     )
     readings_used = models.PositiveIntegerField()
+    visits_used = models.PositiveIntegerField(
+        null=True, blank=True, help_text="The visits those readings came from (one day's readings count as one)"
+    )
     readings_flagged = models.PositiveIntegerField(default=0)
     flagged_reading_ids = WrittenJSONField(default=list, blank=True)
     trend_model = models.CharField(max_length=12, choices=TrendModel.choices)

@@ -373,6 +373,25 @@ def test_a_confirmed_reading_is_marked_for_the_engineer_on_the_capacitor_page(
     assert ">3.30</td>" in row  # the mark is on the 3.30 µF reading's row
 
 
+def test_the_capacitor_page_says_how_many_visits_its_readings_came_from(signed_in, engineer, fan_fitted_capacitor):
+    """A walk: five readings saved within six minutes showed "from 7 readings" and a narrower band. The fit counts
+    one day's readings as one (docs/engineering.md section 6); [ours] the page says so where they differ."""
+    start = timezone.make_aware(dt.datetime(2025, 1, 6, 9))
+    quarterly_readings(fan_fitted_capacitor, start, [4.0, 3.99, 3.98])
+    for minute, value in ((0, 3.97), (3, 3.96), (6, 3.975)):
+        make_reading(
+            fan_fitted_capacitor, taken_at=start + dt.timedelta(days=273, minutes=minute), capacitance_uf=value
+        )
+    refit_fitted_capacitors([fan_fitted_capacitor.id])
+    page = " ".join(
+        strip_tags(
+            signed_in(engineer).get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+        ).split()
+    )
+    assert "from 6 readings on 4 visits (the readings of one day count as one)" in page
+    assert Assessment.objects.get(fitted_capacitor=fan_fitted_capacitor, is_current=True).visits_used == 4
+
+
 def test_a_removed_capacitor_without_a_trend_says_why_not_yet(signed_in, engineer, fan_fitted_capacitor):
     """A walk: capacitors removed in 2023 said "No trend yet." as if one were coming. [ours] a removed one says it
     is no longer assessed; one in service without readings still says "not yet"."""

@@ -155,6 +155,7 @@ class TrendFit:
     priors: PartPriors
     curvature: np.ndarray | None = None  # per capacitor, z per stress hour squared (own, shrunk to its part's)
     typical_temperature_c: np.ndarray | None = None  # per capacitor, median recorded case temperature (nan: none)
+    visits_used: np.ndarray | None = None  # per capacitor, the visits its readings used came from (`_visits`)
 
     def case_temperatures_of(self, temperature_c, rows) -> np.ndarray:
         """Later readings' case temperatures (capacitors `rows`), a missing one taken as its capacitor's
@@ -576,6 +577,7 @@ def fit_trends(
         stress_hours=tau[inverse],
         fraction_25c=fraction[inverse],
         typical_temperature_c=_group_median(g, temperature, n_groups),
+        visits_used=visits_used,
         priors=PartPriors(
             model=chosen,
             **{

@@ -1193,6 +1193,7 @@ def _assessment_frame(result: Assessed, readings: pd.DataFrame, max_reading_id: 
             "newest_reading_id": result.latest["id"].to_numpy(np.int64),
             "max_reading_id": max_reading_id.reindex(inst.index).to_numpy(np.int64),
             "readings_used": np.asarray(fit.readings_used, np.int64),
+            "visits_used": np.asarray(fit.visits_used, np.int64),
             "readings_flagged": np.asarray(fit.readings_flagged, np.int64),
             "flagged_reading_ids": _flagged_json(result, readings),
             "trend_model": fit.model.astype(str),
