@@ -174,6 +174,12 @@ def choose_path_model(
     return PathModelChoice(form, bool(straight_z < -z), mean, straight_z)
 
 
+def catches_enough(recall, settings: PlanningSettings | None = None) -> bool:
+    """Whether a level's back-tested 365-day recall (None: not scored) reaches the risk rule's floor
+    (`PlanningSettings.alert_min_recall`)."""
+    return recall is not None and recall >= (settings or PlanningSettings()).alert_min_recall
+
+
 def choose_alert_level(
     level_days, replace_now, crossed_day, followed_days, settings: PlanningSettings | None = None, window_days=None
 ):
@@ -197,7 +203,7 @@ def choose_alert_level(
             level_days[[0, 0, 0]], risk, crossed_day, followed_days, horizons=(365,), window_days=window_days
         )
         table.append((level, result["precision_365d"], result["recall_365d"]))
-    good = [row for row in table if row[2] is not None and row[1] is not None and row[2] >= settings.alert_min_recall]
+    good = [row for row in table if row[1] is not None and catches_enough(row[2], settings)]
     if not good:
         return ALERT_LEVELS[0], table
     return max(good, key=lambda row: (row[1], -row[0]))[0], table

@@ -28,6 +28,7 @@ from django.db import transaction
 from django.utils import timezone
 
 from fleet.engineering.backtest import (
+    catches_enough,
     choose_alert_level,
     choose_path_model,
     observed_crossings,
@@ -253,7 +254,7 @@ def _met_recall(tried: tuple[float, list] | None) -> bool | None:
         return None
     level, table = tried
     recall = next((r for chosen, _, r in table if chosen == level), None)
-    return None if recall is None else bool(recall >= PlanningSettings().alert_min_recall)
+    return None if recall is None else catches_enough(recall)
 
 
 def _with_alert_risk(frame: pd.DataFrame, levels: dict[str, float]) -> pd.DataFrame:

@@ -78,16 +78,18 @@ class Command(BaseCommand):
                 "straight if below -2)"
             )
         for family, table in results.get("alert_levels", {}).items():
-            chosen = results.get("calibration", {}).get(family, {}).get("alert_quantile")
+            stored = results.get("calibration", {}).get(family, {})
+            chosen = stored.get("alert_quantile")
             tried = ", ".join(
                 f"P{100 * row['level']:.0f} {_pct(row['precision_365d'])}/{_pct(row['recall_365d'])}" for row in table
             )
-            floor = PlanningSettings().alert_min_recall
-            caught = any(row["recall_365d"] is not None and row["recall_365d"] >= floor for row in table)
-            share = f"{100 * floor:.0f} %"
-            caught_words = f"caught {share} of the year's crossings"
-            why = f"the most precise that {caught_words}" if caught else f"the most cautious: no level {caught_words}"
+            caught_words = f"caught {100 * PlanningSettings().alert_min_recall:.0f} % of the year's crossings"
+            met = stored.get("alert_met_recall")  # None: not scored, or a back-test from before it was stored
+            why = {
+                True: f", the most precise that {caught_words}",
+                False: f", the most cautious: no level {caught_words}",
+            }
             self.stdout.write(
-                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f}, {why} "
+                f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f}{why.get(met, '')} "
                 f"(365-day precision/recall % by level: {tried})"
             )
