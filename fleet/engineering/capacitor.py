@@ -99,6 +99,20 @@ class ToleranceVerdict:
     deviation_pct: np.ndarray  # (measured - rated) / rated, percent
 
 
+# A handheld meter's AC voltage reads within about 1 % of the truth, and the supply moves by as much between readings
+# (common practice of the trade, no single source): a reading less than this share over the rating says nothing.
+VOLTAGE_READING_UNCERTAINTY = 0.02
+
+
+def over_rated_voltage(voltage_v, rated_voltage_v, uncertainty=VOLTAGE_READING_UNCERTAINTY):
+    """True where a voltage measured across a capacitor is above its rated voltage by more than a reading's
+    uncertainty. A motor capacitor is rated for continuous operation at its rated voltage, higher ones for limited
+    periods only (IEC 60252-1 [mem]), and it ages much faster above it. A missing voltage (nan) is never over."""
+    v = np.asarray(voltage_v, float)
+    with np.errstate(invalid="ignore"):
+        return v > np.asarray(rated_voltage_v, float) * (1.0 + uncertainty)
+
+
 def tolerance_verdict(
     capacitance_uf,
     rated_uf,

@@ -29,7 +29,7 @@ from django.utils import timezone
 
 from fleet.charts import trend_figure
 from fleet.engineering.calibration import path_quantiles, stress_hours_ahead
-from fleet.engineering.capacitor import normalise_to_25c
+from fleet.engineering.capacitor import normalise_to_25c, over_rated_voltage
 from fleet.engineering.planning import PLAN_DEFAULT_DAYS, RISK_ORDER, RISK_REPLACE_NOW, PlanningSettings
 from fleet.engineering.trends import case_temperatures, default_tempco_ppm_per_k, reading_stress_hours
 from fleet.filters import utc_midnight
@@ -195,23 +195,16 @@ def recent_readings(fitted_capacitor: FittedCapacitor, count: int = RECENT_READI
     )
 
 
-# A handheld meter's AC voltage reads within about 1 % of the truth, the supply moves by as much between readings
-# (common practice of the trade, no single source): a reading less than this share over the rating says nothing.
-VOLTAGE_READING_UNCERTAINTY = 0.02
-
-
 def highest_voltage_over_rating(fitted_capacitor: FittedCapacitor, readings) -> dict | None:
-    """The highest voltage measured across the capacitor among `readings` (corrected ones left out), where it is
-    more than VOLTAGE_READING_UNCERTAINTY above the part's rated voltage: {voltage_v, taken_at, share of the
-    rating}; None where none is. A capacitor is rated for continuous operation at its rated voltage, higher ones
-    allowed for limited periods only (IEC 60252-1 [mem]); its ageing rises steeply with voltage, which the trend
-    counts, but the engineer should see it."""
+    """The highest voltage measured across the capacitor among `readings` (corrected ones left out) that is over its
+    part's rating (`capacitor.over_rated_voltage`): {voltage_v, taken_at, share of the rating}; None where none is.
+    Its ageing rises steeply with voltage, which the trend counts, but the engineer should see it."""
     rated_v = fitted_capacitor.part.rated_voltage_v
-    beyond = rated_v * (1.0 + VOLTAGE_READING_UNCERTAINTY)
+    kept = [r for r in readings if r.capacitor_voltage_v is not None and not hasattr(r, "superseded_by")]
     over = [
         r
-        for r in readings
-        if r.capacitor_voltage_v is not None and r.capacitor_voltage_v > beyond and not hasattr(r, "superseded_by")
+        for r, high in zip(kept, over_rated_voltage([r.capacitor_voltage_v for r in kept], rated_v), strict=True)
+        if high
     ]
     if not over:
         return None
