@@ -177,6 +177,7 @@ class AssessmentSerializer(serializers.ModelSerializer):
             "slope_sd_pct_per_1000h",
             "low_confidence",
             "readings_used",
+            "visits_used",
             "readings_flagged",
             "fitted_through",
             "model_version",

@@ -1,5 +1,6 @@
 """Pages: login everywhere, roles enforced, the technician's forms keep what was typed."""
 
+import csv
 import datetime as dt
 import html
 import io
@@ -390,6 +391,12 @@ def test_the_capacitor_page_says_how_many_visits_its_readings_came_from(signed_i
     )
     assert "from 6 readings on 4 visits (the readings of one day count as one)" in page
     assert Assessment.objects.get(fitted_capacitor=fan_fitted_capacitor, is_current=True).visits_used == 4
+    client = signed_in(engineer)  # the engineer's API and export say the same as the page
+    (item,) = client.get("/api/assessments/", {"format": "json"}).json()["results"]
+    assert (item["readings_used"], item["visits_used"]) == (6, 4)
+    exported = client.get(reverse("export", args=["assessments", "csv"]))
+    (row,) = csv.DictReader(io.StringIO(b"".join(exported.streaming_content).decode("utf-8-sig")))
+    assert (row["readings_used"], row["visits_used"]) == ("6", "4")
 
 
 def test_a_removed_capacitor_without_a_trend_says_why_not_yet(signed_in, engineer, fan_fitted_capacitor):

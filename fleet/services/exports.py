@@ -168,6 +168,12 @@ ASSESSMENT_COLUMNS = [
         source="slope_sd_pct_per_1000h",
     ),
     Column("readings_used", INT, description="Readings in the fit", source="readings_used"),
+    Column(
+        "visits_used",
+        INT,
+        description="Visits those readings came from (the readings of one day count as one in the fit)",
+        source="visits_used",
+    ),
     Column("fitted_through", DATETIME, "UTC", "Time of the newest reading used", source="fitted_through"),
     Column("model_version", description="Version of the fitting model", source="model_version"),
 ]
