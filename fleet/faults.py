@@ -23,6 +23,8 @@ from django.utils.http import url_has_allowed_host_and_scheme
 from django.views import defaults
 from django.views.decorators.http import require_GET
 
+from fleet.security import page_form_was_on
+
 DATABASE_ERRORS = (OperationalError, InterfaceError)
 RETRY_AFTER_S = 30
 API_PREFIX = "/api/"
@@ -86,7 +88,9 @@ def not_saved_busy_words() -> str:
 
 def database_unavailable(request, *, busy: bool = False) -> HttpResponse:
     """503 with Retry-After; rendered without the request, so without touching the session or the user. `busy`:
-    the database answered, but stayed busy with another write past the busy timeout (SQLite)."""
+    the database answered, but stayed busy with another write past the busy timeout (SQLite). A form sent gets a
+    page that says it was not saved and leads back to the page it was on, where page.js puts back what was typed
+    (as after a sign-in that had ended: `security.SignInFirstMiddleware`)."""
     headers = {"Retry-After": str(RETRY_AFTER_S)}
     if request.path.startswith(API_PREFIX):
         detail = (
@@ -96,7 +100,10 @@ def database_unavailable(request, *, busy: bool = False) -> HttpResponse:
             else "The database is unreachable; try again later."
         )
         return JsonResponse({"detail": detail, "retry_after_s": RETRY_AFTER_S}, status=503, headers=headers)
-    html = render_to_string("503.html", {"retry_after_s": RETRY_AFTER_S, "busy": busy})
+    context = {"retry_after_s": RETRY_AFTER_S, "busy": busy}
+    if request.method == "POST":  # a form sent: page.js keeps what was typed and puts it back on the form's page
+        context["form_page"] = page_form_was_on(request)
+    html = render_to_string("503.html", context)
     return HttpResponse(html, status=503, headers=headers)
 
 

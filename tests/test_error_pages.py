@@ -1,5 +1,6 @@
 """Refused and missing pages keep the menu and a way back, not a bare status line."""
 
+import html
 import json
 
 import pytest
@@ -140,3 +141,31 @@ def test_a_database_busy_past_its_timeout_is_said_as_busy_not_unreachable():
     assert api.status_code == 503 and "nothing was saved" in json.loads(api.content)["detail"]
     unreachable = answer("/plan/", "connection refused")
     assert "cannot be reached" in unreachable.content.decode() and "busy" not in unreachable.content.decode()
+
+
+def test_a_form_sent_while_the_database_was_busy_leads_back_to_its_page_with_what_was_typed():
+    """The reading form came back filled in when the database was busy, but every other form (a replacement, a
+    route's places, a work order) got a page that only said to try again, and what was typed was gone. [ours] a
+    form's 503 says nothing was saved, holds what was typed on the device (page.js, as after a sign-in that had
+    ended) and leads back to the page the form was on; a page asked for (GET) gets no such notice."""
+    from django.db import OperationalError
+    from django.test import RequestFactory
+
+    from fleet import faults
+
+    def answer(request):
+        try:
+            raise OperationalError("database is locked")
+        except OperationalError:
+            return faults.server_error(request)
+
+    form_page = "/fitted-capacitors/7/replace/?next=/work-orders/"
+    sent = answer(RequestFactory().post("/fitted-capacitors/7/replace/", HTTP_REFERER=f"http://testserver{form_page}"))
+    body = html.unescape(sent.content.decode())
+    assert sent.status_code == 503 and 'id="not-saved"' in body and 'data-why="busy"' in body
+    assert f'href="{form_page}">Back to the form</a>' in body and f"; url={form_page}" in body
+    assert "fleet/page.js" in body and "not saved" in body
+    elsewhere = answer(RequestFactory().post("/plan/", HTTP_REFERER="https://elsewhere.example/x"))
+    assert 'href="/plan/">Back to the form</a>' in elsewhere.content.decode()  # never a page of another site
+    asked = answer(RequestFactory().get("/plan/")).content.decode()
+    assert 'id="not-saved"' not in asked and "page.js" not in asked and "cannot be shown" in asked

@@ -446,6 +446,37 @@ def test_a_replacement_sent_after_the_sign_in_ended_comes_back_as_typed(phone, m
     assert not phone.is_visible("#form-put-back") and phone.input_value("#id_serial") == ""
 
 
+def test_a_replacement_sent_while_the_database_was_busy_comes_back_as_typed(phone, motor_with_history, monkeypatch):
+    """The replacement form keeps no draft: sent while a long write held the database past the busy timeout, it
+    answered a page that only said to retry, and what was typed was gone. [ours] the page says nothing was saved
+    and leads back to the form, filled in as typed."""
+    from django.db import OperationalError
+
+    def busy(**values):
+        raise OperationalError("database is locked")
+
+    technician = make_user("technician")
+    sign_in(phone, technician)
+    monkeypatch.setattr("fleet.views.field.replace_capacitor", busy)
+    phone.goto(f"/fitted-capacitors/{motor_with_history.id}/replace/")
+    phone.check("input[value=failed]")
+    phone.fill("#id_serial", "2611-0044")
+    phone.fill("#id_notes", "hums, no start")
+    phone.click("text=Save replacement")
+    phone.wait_for_selector("#not-saved", timeout=15000)
+    assert phone.is_visible("#not-saved-kept") and "not saved" in phone.inner_text("main")
+    phone.shot("16-busy-replacement-not-saved")
+    monkeypatch.undo()
+    phone.click("text=Back to the form")
+    phone.wait_for_selector("#form-put-back")
+    assert "while the database was busy" in phone.inner_text("#form-put-back")
+    assert phone.is_checked("input[value=failed]")
+    assert phone.input_value("#id_serial") == "2611-0044" and phone.input_value("#id_notes") == "hums, no start"
+    phone.click("text=Save replacement")
+    phone.wait_for_url("**/reading/**")
+    assert FittedCapacitor.objects.get(serial="2611-0044").motor == motor_with_history.motor
+
+
 def test_the_time_box_offers_the_minute_and_the_reading_keeps_the_second_it_was_offered(phone, motor_with_history):
     """A walk with gloves: the time box showed seconds ("02:15:17 PM"), fiddly to set, and readings saved from
     the form were listed with seconds beside older ones to the minute. The box offers the minute (step 60); the

@@ -90,9 +90,10 @@
   }
   // A form sent once the sign-in had ended is not saved: the server answers with the sign-in page and its
   // notice (#not-saved, fleet.security.SignInFirstMiddleware), then, signed in, with the page the form was on.
-  // So every form sent is held in this tab (sessionStorage) until the next page: the sign-in page with the
-  // notice keeps it, says whether it is kept, and the page it leads back to puts it back once, saying so; any
-  // other page drops it (saved, or refused and shown again with what was sent). A form with a draft of its own
+  // So is one sent while the database was busy or away: the 503 page has the same notice (fleet.faults) and
+  // leads back to the form's page. So every form sent is held in this tab (sessionStorage) until the next page:
+  // a page with the notice keeps it, says whether it is kept, and the page it leads back to puts it back once,
+  // saying so; any other page drops it (saved, or refused and shown again with what was sent). A form with a draft of its own
   // (data-keeps-draft: the reading form, which names its draft's key there as it is sent) is held by that name.
   const SENT = "form-sent";
   const here = location.pathname + location.search;
@@ -106,17 +107,17 @@
     try { kept = Boolean(sent && (sent.values || localStorage.getItem(sent.draft) !== null)); } catch (error) { kept = false; }
     document.getElementById("not-saved-kept").hidden = !kept;
     document.getElementById("not-saved-lost").hidden = kept;
-    if (sent) try { sessionStorage.setItem(SENT, JSON.stringify({ ...sent, signedOut: true })); } catch (error) { /* storage off */ }
+    if (sent) try { sessionStorage.setItem(SENT, JSON.stringify({ ...sent, notSaved: notSaved.dataset.why || "signed-out" })); } catch (error) { /* storage off */ }
   } else if (sent) {
     try { sessionStorage.removeItem(SENT); } catch (error) { /* storage off */ }
-    const form = sent.signedOut && sent.values && sent.page === here &&
+    const form = sent.notSaved && sent.values && sent.page === here &&
       [...document.querySelectorAll("form[method=post]")].find((f) => actionOf(f) === sent.action);
-    if (form) putBack(form, sent.values);
+    if (form) putBack(form, sent.values, sent.notSaved);
     // A form with a draft of its own puts it back itself, saying so (data-draft-note): that is the first thing in view.
-    const ownNote = sent.signedOut && sent.draft && sent.page === here && document.querySelector("[data-draft-note]:not([hidden])");
+    const ownNote = sent.notSaved && sent.draft && sent.page === here && document.querySelector("[data-draft-note]:not([hidden])");
     if (ownNote) ownNote.scrollIntoView({ block: "start" });
   }
-  function putBack(form, values) {
+  function putBack(form, values, why) {
     const left = values.map((pair) => pair.slice());
     const take = (name, value) => {
       const k = left.findIndex(([n, v]) => n === name && (value === undefined || v === value));
@@ -134,7 +135,8 @@
     note.className = "caution";
     note.id = "form-put-back";
     note.setAttribute("role", "status");
-    note.innerHTML = "<strong>Not saved yet: what you typed before signing in again is back in the form.</strong>" +
+    const when = why === "signed-out" ? "before signing in again" : "while the database was busy or away";
+    note.innerHTML = `<strong>Not saved yet: what you typed ${when} is back in the form.</strong>` +
       "Check it and press Save again.";
     form.before(note);
     note.scrollIntoView({ block: "start" });
