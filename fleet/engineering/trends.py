@@ -84,7 +84,7 @@ class TrendSettings:
     noise_floor_fraction: float = 0.004  # meter resolution floor for the noise sd
     slope_prior_sd_floor: float = 2e-8  # per stress hour (0.002 % of rated per 1000 h)
     min_capacitors_for_curvature: int = 5  # rich capacitors of a part before its curvature is estimated
-    min_readings_for_confidence: int = 3
+    min_visits_for_confidence: int = 3  # visits (`_visits`), not readings: fewer leave the slope to the part
     model: str = "auto"  # "linear", "log-linear" or "auto" (per part, smaller noise)
     # Dielectrics whose prior bend is conditioned on the capacitor's own slope (`_conditional_bend`):
     # film, whose self-healing clears area faster the more it has lost; an electrolytic's drying-out
@@ -567,7 +567,7 @@ def fit_trends(
         noise_sd=noise_sd,
         readings_used=readings_used,
         readings_flagged=np.bincount(g, weights=flagged.astype(float), minlength=n_groups).astype(int),
-        low_confidence=visits_used < settings.min_readings_for_confidence,  # repeats of one visit are not more
+        low_confidence=visits_used < settings.min_visits_for_confidence,  # repeats of one visit are not more
         stress_hours_now=tau_now,
         hours_now=last_time,
         stress_rate=rate,
