@@ -1406,3 +1406,42 @@ def test_a_stop_gaps_order_names_the_design_part_on_its_cancel_page_and_in_the_c
     listed = client.get(reverse("work_orders")).content.decode()
     cancelled = re.sub(r"<[^>]+>", "", listed[listed.index('id="cancelled"') :])
     assert "Replace run capacitor: RUN-8-450 (the design part) for the stop-gap RUN-6-450" in cancelled
+
+
+def test_a_motors_page_names_the_open_orders_of_its_capacitors_and_the_part_to_bring(client, planner, technician):
+    """A walk: a technician who scanned a motor's label landed on its page, which said nothing of the order the
+    visit held for it, nor, for a stop-gap, which part to bring. Each capacitor in service lists its open orders
+    (work, the design part to bring, the visit's day and state, a link to the visit sheet); a cancelled or done
+    order is not listed. [trade] the work order travels with the job to the equipment (common practice of the
+    trade, no single source)."""
+    site = make_site(code="MPG")
+    stop_gap = _stop_gap(site)
+    stored_assessment(stop_gap, "sound", None)
+    visit_day = timezone.localdate() + dt.timedelta(days=4)
+    order = WorkOrder.objects.create(
+        motor=stop_gap.motor,
+        fitted_capacitor=stop_gap,
+        kind="replace_run",
+        due_on=visit_day,
+        state="issued",
+        reason="stop-gap RUN-6-450 fitted against the advice: fit the design part RUN-8-450",
+    )
+    other = make_fitted_capacitor(motor=make_motor(site=site, route_order=2))
+    WorkOrder.objects.create(
+        motor=other.motor,
+        fitted_capacitor=other,
+        kind="replace_run",
+        due_on=visit_day,
+        state="cancelled",
+        closed_at=timezone.now(),
+        cancel_reason="read fine",
+    )
+    client.force_login(technician)
+    page = client.get(reverse("motor", args=[stop_gap.motor.asset_tag])).content.decode()
+    section = page[page.index(f'id="capacitor-{stop_gap.id}"') :]
+    note = section[section.index(f'id="open-order-{order.id}"') :].split("</p>")[0]
+    words = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", "", note[note.index(">") + 1 :]))
+    assert words.startswith(f"Work order {order.id}: Replace run capacitor, bring RUN-8-450 (the design part);"), words
+    assert f"visit of {visit_day:%a %Y-%m-%d}, issued." in words and "fit the design part RUN-8-450" in words
+    assert f'href="{reverse("visit_sheet", args=[site.code, visit_day.isoformat()])}"' in note
+    assert "open-order" not in client.get(reverse("motor", args=[other.motor.asset_tag])).content.decode()

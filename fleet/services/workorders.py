@@ -1196,6 +1196,21 @@ def open_replacement_order(fitted_capacitor_id: int) -> WorkOrder | None:
     )
 
 
+def open_orders_by_capacitor(fitted_capacitor_ids) -> dict[int, list[WorkOrder]]:
+    """The open orders of these capacitors, by capacitor id, soonest visit first, each with `bring_part`
+    (`with_parts_to_bring`): the motor page lists them beside each capacitor, so whoever scanned its label sees
+    what the visit asks of it and which part to bring."""
+    orders = with_parts_to_bring(
+        WorkOrder.objects.filter(fitted_capacitor_id__in=list(fitted_capacitor_ids), state__in=OPEN)
+        .select_related("fitted_capacitor")
+        .order_by("due_on", "id")
+    )
+    found: dict[int, list[WorkOrder]] = {}
+    for order in orders:
+        found.setdefault(order.fitted_capacitor_id, []).append(order)
+    return found
+
+
 def after_reading_again_words(reading) -> str:
     """What became of a capacitor's visit once the reading for its "read again" order is saved, for the form's
     message: the replacement order the refit added to the visit (`replace_after_reading_again`) with the plan's
