@@ -427,6 +427,20 @@ def test_the_reading_time_is_said_in_words_beside_its_box(phone):
     assert phone.locator("#taken-day-words").inner_text() == "Saturday 2026-03-14 09:30"
 
 
+def test_the_button_that_discards_a_kept_draft_is_glove_sized(phone):
+    """A walk: "discard it" beside a draft the phone kept was 40 px tall, the one target of the reading form
+    under a gloved finger's 44 px."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    url = f"/fitted-capacitors/{fitted_capacitor.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.94")
+    phone.goto("/")  # left unsaved: the phone keeps the draft
+    phone.goto(url)
+    assert phone.is_visible("#draft-note")
+    assert not _small_targets(phone, "#draft-discard")
+
+
 def test_the_replacement_day_is_said_in_words_beside_its_box(phone):
     """A walk: "Replaced on" showed 12/04/2026 in the browser's order of day and month, read as 12 April beside
     the ISO days of every other page, with nothing in words as the reading form and a visit's move say."""
