@@ -12,7 +12,7 @@ from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, AuditEntry, Reading, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, FittedCapacitor, Reading, SiteStock, WorkOrder
 from fleet.services.workorders import (
     after_reading_again_words,
     cancel_order,
@@ -1445,3 +1445,24 @@ def test_a_motors_page_names_the_open_orders_of_its_capacitors_and_the_part_to_b
     assert f"visit of {visit_day:%a %Y-%m-%d}, issued." in words and "fit the design part RUN-8-450" in words
     assert f'href="{reverse("visit_sheet", args=[site.code, visit_day.isoformat()])}"' in note
     assert "open-order" not in client.get(reverse("motor", args=[other.motor.asset_tag])).content.decode()
+
+
+def test_the_message_after_a_replacement_names_the_work_orders_it_closed(client, technician):
+    """A walk: "Replacement recorded" said nothing of the order the technician had come to do, and a tired one
+    could not tell whether it was closed. The message names the orders the replacement closed (a replacement
+    order and a read-again order of the same capacitor both), and none where there were none."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    worn = make_fitted_capacitor(motor=make_motor(site=make_site(code="MSG")), fitted_on=dt.date(2022, 1, 1))
+    orders = [
+        WorkOrder.objects.create(motor=worn.motor, fitted_capacitor=worn, kind=kind, due_on=day)
+        for kind in ("replace_run", "read_again")
+    ]
+    client.force_login(technician)
+    sent = {"part": worn.part.pk, "removed_on": timezone.localdate().isoformat(), "removal_reason": "failed"}
+    page = client.post(reverse("replace", args=[worn.id]), sent, follow=True).content.decode()
+    assert f"Replacement recorded; work orders {orders[0].id} and {orders[1].id} are done." in page
+    assert set(WorkOrder.objects.filter(fitted_capacitor=worn).values_list("state", flat=True)) == {"done"}
+    assert FittedCapacitor.objects.filter(motor=worn.motor, removed_on__isnull=True).count() == 1
+    newer = make_fitted_capacitor(motor=make_motor(site=worn.motor.site, route_order=2), fitted_on=dt.date(2022, 1, 1))
+    page = client.post(reverse("replace", args=[newer.id]), sent, follow=True).content.decode()
+    assert "Replacement recorded. Log the new capacitor" in page
