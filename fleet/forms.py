@@ -204,7 +204,11 @@ class ReplacementForm(forms.Form):
         label="Part fitted now",
         error_messages={"required": "Choose the part you fitted, as on the new capacitor's label."},
     )
-    serial = forms.CharField(required=False, label="Serial or date code of the new capacitor")
+    serial = forms.CharField(
+        required=False,
+        label="Serial or date code of the new capacitor",
+        widget=forms.TextInput(attrs={"autocorrect": "off", "spellcheck": "false", "autocomplete": "off"}),
+    )
     removed_on = YearMonthDayField(
         initial=timezone.localdate,
         label="Replaced on",
@@ -321,7 +325,16 @@ class FindMotorForm(forms.Form):
             "max_length": "The box takes a tag (or part of one) or words of a place, at most %(limit_value)d "
             "characters (this has %(show_value)d).",
         },
-        widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
+        # A phone's autocorrect turns "cst 93" into "cat 93": tags and codes are not words.
+        widget=forms.TextInput(
+            attrs={
+                "autocapitalize": "characters",
+                "autocomplete": "off",
+                "autocorrect": "off",
+                "spellcheck": "false",
+                "autofocus": True,
+            }
+        ),
     )
 
 
