@@ -1410,10 +1410,10 @@ def test_a_stop_gaps_order_names_the_design_part_on_its_cancel_page_and_in_the_c
 
 def test_a_motors_page_names_the_open_orders_of_its_capacitors_and_the_part_to_bring(client, planner, technician):
     """A walk: a technician who scanned a motor's label landed on its page, which said nothing of the order the
-    visit held for it, nor, for a stop-gap, which part to bring. Each capacitor in service lists its open orders
-    (work, the design part to bring, the visit's day and state, a link to the visit sheet); a cancelled or done
-    order is not listed. [trade] the work order travels with the job to the equipment (common practice of the
-    trade, no single source)."""
+    visit held for it, nor, for a stop-gap, which part to bring. Each capacitor in service lists its open orders, on
+    the motor's page and on its own (work, the design part to bring, the visit's day and state, a link to the visit
+    sheet); a cancelled or done order is not listed. [trade] the work order travels with the job to the equipment
+    (common practice of the trade, no single source)."""
     site = make_site(code="MPG")
     stop_gap = _stop_gap(site)
     stored_assessment(stop_gap, "sound", None)
@@ -1445,6 +1445,10 @@ def test_a_motors_page_names_the_open_orders_of_its_capacitors_and_the_part_to_b
     assert f"visit of {visit_day:%a %Y-%m-%d}, issued." in words and "fit the design part RUN-8-450" in words
     assert f'href="{reverse("visit_sheet", args=[site.code, visit_day.isoformat()])}"' in note
     assert "open-order" not in client.get(reverse("motor", args=[other.motor.asset_tag])).content.decode()
+    # The capacitor's own page (trend and history) says the same.
+    page = client.get(reverse("fitted_capacitor", args=[stop_gap.id])).content.decode()
+    assert page[page.index(f'id="open-order-{order.id}"') :].split("</p>")[0] == note
+    assert "open-order" not in client.get(reverse("fitted_capacitor", args=[other.id])).content.decode()
 
 
 def test_the_message_after_a_replacement_names_the_work_orders_it_closed(client, technician):

@@ -177,6 +177,7 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "rules": PlanningSettings(),
         "tolerance_life": tolerance_life(fitted_capacitor.part_id),
         "age_years": (timezone.localdate() - fitted_capacitor.fitted_on).days / DAYS_PER_YEAR,
+        "open_orders": open_orders_by_capacitor([fitted_capacitor.id]).get(fitted_capacitor.id, []),
     }
     with timezone.override(site_zone(fitted_capacitor.motor.site.time_zone)):  # as the reading form shows them
         return render(request, "fleet/capacitor.html", context)
