@@ -33,15 +33,17 @@ class YearMonthDayField(forms.DateField):
     input_formats = DAY_INPUT_FORMATS
 
 
-def number(label: str, unit: str, required: bool = False, help_text: str = "") -> forms.CharField:
+def number(label: str, unit: str, required: bool = False, help_text: str = "", signed: bool = False) -> forms.CharField:
     """A decimal typed as text (opens the numeric keypad on phones): the rulebook parses it,
-    so "3,8" means the same here as in the API and the import."""
+    so "3,8" means the same here as in the API and the import. A `signed` one (a temperature in a cold
+    room) gets a button that puts the minus sign the keypad of many phones lacks (page.js)."""
+    attrs = {"inputmode": "decimal", "autocomplete": "off"} | ({"data-signed": ""} if signed else {})
     return forms.CharField(
         label=f"{label} ({unit})" if unit else label,
         required=required,
         help_text=help_text,
         max_length=40,
-        widget=forms.TextInput(attrs={"inputmode": "decimal", "autocomplete": "off"}),
+        widget=forms.TextInput(attrs=attrs),
     )
 
 
@@ -83,8 +85,9 @@ class ReadingForm(forms.Form):
         "°C",
         help_text="Capacitance moves with temperature: left empty, the reading is taken as at this capacitor's usual "
         "case temperature (at 25 °C until one is recorded).",
+        signed=True,
     )
-    ambient_temperature_c = number("Ambient temperature", "°C")
+    ambient_temperature_c = number("Ambient temperature", "°C", signed=True)
     esr_ohm = number("ESR", "Ω", help_text="Only where the meter measures it.")
     condition = forms.ChoiceField(
         choices=Reading.Condition.choices,
@@ -201,7 +204,11 @@ class ReplacementForm(forms.Form):
         label="Part fitted now",
         error_messages={"required": "Choose the part you fitted, as on the new capacitor's label."},
     )
-    serial = forms.CharField(required=False, label="Serial or date code of the new capacitor")
+    serial = forms.CharField(
+        required=False,
+        label="Serial or date code of the new capacitor",
+        widget=forms.TextInput(attrs={"autocorrect": "off", "spellcheck": "false", "autocomplete": "off"}),
+    )
     removed_on = YearMonthDayField(
         initial=timezone.localdate,
         label="Replaced on",
@@ -318,7 +325,16 @@ class FindMotorForm(forms.Form):
             "max_length": "The box takes a tag (or part of one) or words of a place, at most %(limit_value)d "
             "characters (this has %(show_value)d).",
         },
-        widget=forms.TextInput(attrs={"autocapitalize": "characters", "autocomplete": "off", "autofocus": True}),
+        # A phone's autocorrect turns "cst 93" into "cat 93": tags and codes are not words.
+        widget=forms.TextInput(
+            attrs={
+                "autocapitalize": "characters",
+                "autocomplete": "off",
+                "autocorrect": "off",
+                "spellcheck": "false",
+                "autofocus": True,
+            }
+        ),
     )
 
 

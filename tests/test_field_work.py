@@ -636,3 +636,21 @@ def test_a_start_capacitors_reading_lands_at_its_card_on_the_motor_page(client, 
     assert "#" not in client.post(reverse("reading_new", args=[run.id]), data)["Location"]
     data.update(capacitance_uf="40.4", condition="leaking")
     assert "#" not in client.post(reverse("reading_new", args=[start.id]), data)["Location"]
+
+
+def test_the_boxes_for_tags_and_serials_are_not_autocorrected_on_a_phone(client, technician):
+    """A walk: a phone's autocorrect turned a typed "cst 93" into "cat 93" in the find box, and may rewrite a
+    serial or date code ("2611-ab" is no word). Those boxes tell the phone not to correct or spell-check them."""
+    fitted_capacitor = make_fitted_capacitor()
+    client.force_login(technician)
+    pages = {
+        "home": reverse("home"),
+        "find": reverse("find"),
+        "replace": reverse("replace", args=[fitted_capacitor.id]),
+    }
+    for page, address in pages.items():
+        html = client.get(address).content.decode()
+        name = "serial" if page == "replace" else "tag"
+        box = re.search(rf'<input type="text" name="{name}"[^>]*>', html)
+        assert box, (page, name)
+        assert 'autocorrect="off"' in box.group(0) and 'spellcheck="false"' in box.group(0), (page, box.group(0))

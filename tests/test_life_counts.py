@@ -93,6 +93,31 @@ def test_a_part_with_no_estimate_says_why_and_the_other_parts_are_fitted(client,
     assert f"the life-data page says which) for {tied.code}: only the plan" in dashboard  # not for {fittable.code}
 
 
+def test_a_failure_recorded_since_the_nights_estimate_is_said_beside_its_counts(client, engineer):
+    """A walk: a capacitor replaced as failed after the night's estimate made the life table download list one
+    failure more than the page counted, with nothing said. The page keeps the estimate's counts and says what the
+    register holds now (its failures and suspensions: the life table's, [derived] as `life_table` counts them)."""
+    from django.urls import reverse
+
+    from fleet.services.lifedata import refresh_life_fits
+    from fleet.services.readings import replace_capacitor
+
+    _tied, fittable = _tied_and_fittable_parts(timezone.localdate())
+    refresh_life_fits()
+    client.force_login(engineer)
+    body = client.get(reverse("life_data"), {"part": fittable.code}).content.decode()
+    assert "<b>4</b> failed in service" in body and 'id="life-since-estimate"' not in body
+    in_service = FittedCapacitor.objects.filter(part=fittable, removed_on__isnull=True).first()
+    replace_capacitor(fitted_capacitor=in_service, part=fittable, removed_on=timezone.localdate(), reason="failed")
+    table = life_table(fittable.id)
+    body = client.get(reverse("life_data"), {"part": fittable.code}).content.decode()
+    assert "<b>4</b> failed in service" in body  # the estimate's own counts, until the next night
+    since = body[body.index('id="life-since-estimate"') :].split("</span>")[0]
+    failed, suspended = int(table["failed"].sum()), int((~table["failed"]).sum())
+    assert (failed, suspended) == (5, 2)
+    assert f"it holds <b>{failed}</b> failed and <b>{suspended}</b> suspensions now" in since
+
+
 def test_a_part_whose_refresh_fails_keeps_its_fit_and_does_not_stop_the_others(monkeypatch, caplog):
     """One part's unexpected error (a stand-in for any bug in a fit) is logged; that part keeps the fit it had,
     and every other part is refitted on the same run [derived]."""

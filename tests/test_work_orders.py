@@ -12,7 +12,7 @@ from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, AuditEntry, Reading, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, FittedCapacitor, Reading, SiteStock, WorkOrder
 from fleet.services.workorders import (
     after_reading_again_words,
     cancel_order,
@@ -283,7 +283,9 @@ def test_the_plans_message_counts_what_the_page_lists(client, planner):
     body = response.content.decode()
     listed = len(re.findall(r'<details class="card visit"', body))
     assert listed == 2
-    assert "2 work orders created and 0 re-dated, in 1 site visit; 2 open site visits in all." in body
+    visit = WorkOrder.objects.filter(site__code="NEW").values_list("due_on", flat=True).distinct().get()
+    # and names it (a walk: "in 1 site visit" left the planner to search the list for which one).
+    assert f"2 work orders created and 0 re-dated, in 1 site visit (NEW {visit:%a %Y-%m-%d}); 2 open site" in body
     body = client.post(reverse("work_orders"), {"action": "plan", "days": "90"}, follow=True).content.decode()
     assert "No work orders created or re-dated; 2 open site visits in all." in body
 
@@ -1406,3 +1408,67 @@ def test_a_stop_gaps_order_names_the_design_part_on_its_cancel_page_and_in_the_c
     listed = client.get(reverse("work_orders")).content.decode()
     cancelled = re.sub(r"<[^>]+>", "", listed[listed.index('id="cancelled"') :])
     assert "Replace run capacitor: RUN-8-450 (the design part) for the stop-gap RUN-6-450" in cancelled
+
+
+def test_a_motors_page_names_the_open_orders_of_its_capacitors_and_the_part_to_bring(client, planner, technician):
+    """A walk: a technician who scanned a motor's label landed on its page, which said nothing of the order the
+    visit held for it, nor, for a stop-gap, which part to bring. Each capacitor in service lists its open orders, on
+    the motor's page and on its own (work, the design part to bring, the visit's day and state, a link to the visit
+    sheet); a cancelled or done order is not listed. [trade] the work order travels with the job to the equipment
+    (common practice of the trade, no single source)."""
+    site = make_site(code="MPG")
+    stop_gap = _stop_gap(site)
+    stored_assessment(stop_gap, "sound", None)
+    visit_day = timezone.localdate() + dt.timedelta(days=4)
+    order = WorkOrder.objects.create(
+        motor=stop_gap.motor,
+        fitted_capacitor=stop_gap,
+        kind="replace_run",
+        due_on=visit_day,
+        state="issued",
+        reason="stop-gap RUN-6-450 fitted against the advice: fit the design part RUN-8-450",
+    )
+    other = make_fitted_capacitor(motor=make_motor(site=site, route_order=2))
+    WorkOrder.objects.create(
+        motor=other.motor,
+        fitted_capacitor=other,
+        kind="replace_run",
+        due_on=visit_day,
+        state="cancelled",
+        closed_at=timezone.now(),
+        cancel_reason="read fine",
+    )
+    client.force_login(technician)
+    page = client.get(reverse("motor", args=[stop_gap.motor.asset_tag])).content.decode()
+    section = page[page.index(f'id="capacitor-{stop_gap.id}"') :]
+    note = section[section.index(f'id="open-order-{order.id}"') :].split("</p>")[0]
+    words = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", "", note[note.index(">") + 1 :]))
+    assert words.startswith(f"Work order {order.id}: Replace run capacitor, bring RUN-8-450 (the design part);"), words
+    assert f"visit of {visit_day:%a %Y-%m-%d}, issued." in words and "fit the design part RUN-8-450" in words
+    assert f'href="{reverse("visit_sheet", args=[site.code, visit_day.isoformat()])}"' in note
+    assert "open-order" not in client.get(reverse("motor", args=[other.motor.asset_tag])).content.decode()
+    # The capacitor's own page (trend and history) says the same.
+    page = client.get(reverse("fitted_capacitor", args=[stop_gap.id])).content.decode()
+    assert page[page.index(f'id="open-order-{order.id}"') :].split("</p>")[0] == note
+    assert "open-order" not in client.get(reverse("fitted_capacitor", args=[other.id])).content.decode()
+
+
+def test_the_message_after_a_replacement_names_the_work_orders_it_closed(client, technician):
+    """A walk: "Replacement recorded" said nothing of the order the technician had come to do, and a tired one
+    could not tell whether it was closed. The message names the orders the replacement closed (a replacement
+    order and a read-again order of the same capacitor both), and none where there were none."""
+    day = timezone.localdate() + dt.timedelta(days=3)
+    worn = make_fitted_capacitor(motor=make_motor(site=make_site(code="MSG")), fitted_on=dt.date(2022, 1, 1))
+    orders = [
+        WorkOrder.objects.create(motor=worn.motor, fitted_capacitor=worn, kind=kind, due_on=day)
+        for kind in ("replace_run", "read_again")
+    ]
+    client.force_login(technician)
+    sent = {"part": worn.part.pk, "removed_on": timezone.localdate().isoformat(), "removal_reason": "failed"}
+    page = client.post(reverse("replace", args=[worn.id]), sent, follow=True).content.decode()
+    assert f"Replacement recorded; work orders {orders[0].id} and {orders[1].id} are done." in page
+    assert set(WorkOrder.objects.filter(fitted_capacitor=worn).values_list("state", flat=True)) == {"done"}
+    assert FittedCapacitor.objects.filter(motor=worn.motor, removed_on__isnull=True).count() == 1
+    newer = make_fitted_capacitor(motor=make_motor(site=worn.motor.site, route_order=2), fitted_on=dt.date(2022, 1, 1))
+    page = client.post(reverse("replace", args=[newer.id]), sent, follow=True).content.decode()
+    assert "Replacement recorded. Log the new capacitor" in page

@@ -595,8 +595,9 @@ def replace_capacitor(
     substitute_override: bool = False,
     override_reason: str = "",
 ) -> FittedCapacitor:
-    """Remove a fitted capacitor and fit its successor; close its open work orders; take the part
-    from the site's stock (never below zero: `successor.stock_left` is None when none was listed).
+    """Remove a fitted capacitor and fit its successor; close its open work orders (their ids in
+    `successor.closed_orders`); take the part from the site's stock (never below zero: `successor.stock_left`
+    is None when none was listed).
 
     The old capacitor's life ends at `removed_on` as a failure or a suspension
     (by `reason`); the new one's history starts the same day. A part other than the one coming out
@@ -639,8 +640,10 @@ def replace_capacitor(
         )
         successor.stock_left, successor.from_stock = _take_from_stock(site_id=locked.motor.site_id, part=part)
         successor.replayed = False
+        open_orders = WorkOrder.objects.filter(fitted_capacitor=locked, state__in=WorkOrder.OPEN_STATES)
+        successor.closed_orders = sorted(open_orders.values_list("id", flat=True))  # for the message to name
         audited_update(
-            WorkOrder.objects.filter(fitted_capacitor=locked, state__in=WorkOrder.OPEN_STATES),
+            open_orders,
             state=WorkOrder.State.DONE,
             closed_at=timezone.now(),
             closed_by=user if user and user.is_authenticated else None,

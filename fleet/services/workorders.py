@@ -32,7 +32,7 @@ from fleet.engineering.planning import (
     working_days_near,
     working_visit_days,
 )
-from fleet.models import Assessment, AuditEntry, FittedCapacitor, SiteDayOff, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, FittedCapacitor, Site, SiteDayOff, SiteStock, WorkOrder
 from fleet.roles import scope_to_user
 
 from .bulk import storable_ids
@@ -68,9 +68,10 @@ def plan_work_orders(
     visit (`planning.plan_moved_words` says nothing) and that visit's window has not passed.
 
     Returns counts: `created`; `replanned`, the open orders whose date, window or kind really moved
-    (those and the ones whose reason changed are written); `visits`, the visits those orders are in;
-    `open_visits`, every open visit at the user's sites after the plan (the work-orders page's count);
-    `kept_cancelled`, capacitors not ordered again; `kept_moved`, orders put on a moved visit's day.
+    (those and the ones whose reason changed are written); `visits`, the visits those orders are in
+    (`visit_names`, each as "CST Tue 2027-03-02", soonest first); `open_visits`, every open visit at the
+    user's sites after the plan (the work-orders page's count); `kept_cancelled`, capacitors not ordered again;
+    `kept_moved`, orders put on a moved visit's day.
     """
     today = today or timezone.localdate()
     due = list(
@@ -86,7 +87,7 @@ def plan_work_orders(
         )
     )
     due_ids = np.asarray([d[0] for d in due], np.int64)
-    counts = {"created": 0, "replanned": 0, "visits": 0, "kept_cancelled": 0, "kept_moved": 0}
+    counts = {"created": 0, "replanned": 0, "visits": 0, "visit_names": [], "kept_cancelled": 0, "kept_moved": 0}
     with transaction.atomic():
         # Two plans at once take turns per capacitor (its row locked) and read the open orders
         # after: the second re-dates the orders the first created instead of creating them
@@ -169,7 +170,12 @@ def plan_work_orders(
             audited_bulk_create(new_orders)
             audited_bulk_update(changed, ["due_on", "window_days", "kind", "moved_from", "reason"])
             counts["created"], counts["replanned"] = len(new_orders), len(replanned)
-            counts["visits"] = len(_visits_of(items, new_orders + replanned))
+            touched = _visits_of(items, new_orders + replanned)
+            counts["visits"] = len(touched)
+            codes = dict(Site.objects.filter(id__in={site_id for site_id, _ in touched}).values_list("id", "code"))
+            counts["visit_names"] = [
+                f"{codes[site]} {day:%a %Y-%m-%d}" for day, site in sorted((d, s) for s, d in touched)
+            ]
     counts["open_visits"] = open_orders(user).values("due_on", "site_id").distinct().count()
     return counts
 
@@ -1194,6 +1200,21 @@ def open_replacement_order(fitted_capacitor_id: int) -> WorkOrder | None:
         .order_by("due_on", "id")
         .first()
     )
+
+
+def open_orders_by_capacitor(fitted_capacitor_ids) -> dict[int, list[WorkOrder]]:
+    """The open orders of these capacitors, by capacitor id, soonest visit first, each with `bring_part`
+    (`with_parts_to_bring`): the motor page lists them beside each capacitor, so whoever scanned its label sees
+    what the visit asks of it and which part to bring."""
+    orders = with_parts_to_bring(
+        WorkOrder.objects.filter(fitted_capacitor_id__in=list(fitted_capacitor_ids), state__in=OPEN)
+        .select_related("fitted_capacitor")
+        .order_by("due_on", "id")
+    )
+    found: dict[int, list[WorkOrder]] = {}
+    for order in orders:
+        found.setdefault(order.fitted_capacitor_id, []).append(order)
+    return found
 
 
 def after_reading_again_words(reading) -> str:

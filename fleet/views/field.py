@@ -268,6 +268,15 @@ def _add_errors(form, error: ValidationError) -> None:
         form.add_error(field if shown else None, [_linked(message) for message in field_messages])
 
 
+def _orders_done_words(order_ids) -> str:
+    """The work orders a replacement closed, for its message ("; work order 48 is done"); "" for none."""
+    if not order_ids:
+        return ""
+    if len(order_ids) == 1:
+        return f"; work order {order_ids[0]} is done"
+    return f"; work orders {', '.join(map(str, order_ids[:-1]))} and {order_ids[-1]} are done"
+
+
 def _stock_message(request, successor) -> None:
     site = successor.motor.site.code
     if successor.from_stock:
@@ -323,7 +332,11 @@ def replace(request, fitted_capacitor_id):
                     "This replacement was already recorded (sent twice). Log the new capacitor's first reading now.",
                 )
             else:
-                messages.success(request, "Replacement recorded. Log the new capacitor's first reading now.")
+                messages.success(
+                    request,
+                    f"Replacement recorded{_orders_done_words(successor.closed_orders)}. "
+                    "Log the new capacitor's first reading now.",
+                )
                 _stock_message(request, successor)
             return redirect(with_next(reverse("reading_new", args=[successor.id]), back))
     advice = substitutes_for(fitted_capacitor)

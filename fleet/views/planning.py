@@ -164,14 +164,21 @@ def _work_orders_page(request, plan_days: str = str(PLAN_DEFAULT_DAYS), status: 
     )
 
 
+PLAN_VISITS_NAMED = 4  # the plan's message names this many of the visits it wrote to, soonest first
+
+
 def plan_message(counts: dict) -> str:
     """What a plan did, in words that agree with the work-orders page: the visits its new and re-dated
     orders are in, then every open visit the page lists; the planner's cancellations and moves it kept."""
     created, replanned, touched, listed = (counts[k] for k in ("created", "replanned", "visits", "open_visits"))
     if created or replanned:
+        names = counts.get("visit_names", [])
+        shown = ", ".join(names[:PLAN_VISITS_NAMED]) + (
+            f" and {len(names) - PLAN_VISITS_NAMED} more" if len(names) > PLAN_VISITS_NAMED else ""
+        )
         done = (
             f"{created} work order{pluralize(created)} created and {replanned} re-dated, "
-            f"in {touched} site visit{pluralize(touched)}"
+            f"in {touched} site visit{pluralize(touched)}" + (f" ({shown})" if names else "")
         )
     else:
         done = "No work orders created or re-dated"

@@ -22,6 +22,7 @@ from fleet.services import pages
 from fleet.services.lifedata import DAYS_PER_YEAR, tolerance_life
 from fleet.services.operating_pictures import motor_pictures, no_figures_now, with_operating_figures
 from fleet.services.selectors import successor_of
+from fleet.services.workorders import open_orders_by_capacitor
 
 
 @takes_parameters()
@@ -95,9 +96,11 @@ def motor_detail(request, asset_tag):
         raise Http404(f"No motor {asset_tag}")
     in_service = [c for c in motor.fitted if c.removed_on is None]
     removed = [c for c in motor.fitted if c.removed_on is not None]
+    orders = open_orders_by_capacitor(c.id for c in in_service)
     for capacitor in in_service:
         capacitor.assessment = capacitor.current[0] if capacitor.current else None
         capacitor.recent = pages.recent_readings(capacitor, 4)
+        capacitor.open_orders = orders.get(capacitor.id, [])
     pictures = motor_pictures(in_service) if motor.has_circuit else {}
     for capacitor in in_service:
         capacitor.no_figures_now = no_figures_now(capacitor.assessment)
@@ -174,6 +177,7 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
         "rules": PlanningSettings(),
         "tolerance_life": tolerance_life(fitted_capacitor.part_id),
         "age_years": (timezone.localdate() - fitted_capacitor.fitted_on).days / DAYS_PER_YEAR,
+        "open_orders": open_orders_by_capacitor([fitted_capacitor.id]).get(fitted_capacitor.id, []),
     }
     with timezone.override(site_zone(fitted_capacitor.motor.site.time_zone)):  # as the reading form shows them
         return render(request, "fleet/capacitor.html", context)

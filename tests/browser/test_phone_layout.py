@@ -427,6 +427,46 @@ def test_the_reading_time_is_said_in_words_beside_its_box(phone):
     assert phone.locator("#taken-day-words").inner_text() == "Saturday 2026-03-14 09:30"
 
 
+def test_the_button_that_discards_a_kept_draft_is_glove_sized(phone):
+    """A walk: "discard it" beside a draft the phone kept was 40 px tall, the one target of the reading form
+    under a gloved finger's 44 px."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    url = f"/fitted-capacitors/{fitted_capacitor.id}/reading/"
+    phone.goto(url)
+    phone.fill("#id_capacitance_uf", "3.94")
+    phone.goto("/")  # left unsaved: the phone keeps the draft
+    phone.goto(url)
+    assert phone.is_visible("#draft-note")
+    assert not _small_targets(phone, "#draft-discard")
+
+
+def test_a_temperature_below_zero_can_be_typed_on_a_phones_decimal_keypad(phone):
+    """A walk at the cool store: the temperature boxes open the decimal keypad, which on many phones has no minus
+    sign, and the demo's cold rooms read down to -9 °C ambient. A glove-sized button beside each temperature box
+    puts the sign in or takes it out; the reading keeps it."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_capacitance_uf", "3.95")
+    phone.fill("#id_case_temperature_c", "0.5")
+    phone.click("#wrap_case_temperature_c .sign-toggle")
+    assert phone.input_value("#id_case_temperature_c") == "-0.5"
+    phone.click("#wrap_case_temperature_c .sign-toggle")
+    assert phone.input_value("#id_case_temperature_c") == "0.5"
+    phone.click("#wrap_case_temperature_c .sign-toggle")
+    phone.click("text=More readings")
+    phone.click("#wrap_ambient_temperature_c .sign-toggle")
+    phone.keyboard.type("9.1")  # typing goes on after the sign
+    assert phone.input_value("#id_ambient_temperature_c") == "-9.1"
+    assert not _small_targets(phone, ".sign-toggle")
+    assert phone.locator("#wrap_capacitance_uf .sign-toggle").count() == 0  # a capacitance is never below zero
+    phone.click("#save")
+    phone.wait_for_url("**/motors/**")
+    reading = Reading.objects.get(fitted_capacitor=fitted_capacitor, capacitance_uf=3.95)
+    assert (reading.case_temperature_c, reading.ambient_temperature_c) == (-0.5, -9.1)
+
+
 def test_the_replacement_day_is_said_in_words_beside_its_box(phone):
     """A walk: "Replaced on" showed 12/04/2026 in the browser's order of day and month, read as 12 April beside
     the ISO days of every other page, with nothing in words as the reading form and a visit's move say."""

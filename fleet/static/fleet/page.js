@@ -172,6 +172,27 @@
     box.addEventListener("change", say);
     say();
   });
+  // A number box that takes a value below zero (a temperature in a cold room): the decimal keypad of many
+  // phones has no minus sign, so a button beside the box puts it in or takes it out.
+  document.querySelectorAll("input[data-signed]").forEach((box) => {
+    const row = document.createElement("div");
+    row.className = "signed-number";
+    box.replaceWith(row);
+    const sign = document.createElement("button");
+    sign.type = "button";
+    sign.className = "button secondary sign-toggle";
+    sign.textContent = "+/\u2212";
+    sign.setAttribute("aria-label", "Below zero: put or take away the minus sign");
+    sign.title = "Below zero: put or take away the minus sign";
+    row.append(box, sign);
+    sign.addEventListener("click", () => {
+      const value = box.value.trim();
+      box.value = value.startsWith("-") || value.startsWith("\u2212") ? value.slice(1) : `-${value}`;
+      box.dispatchEvent(new Event("input", { bubbles: true }));
+      box.focus();
+      box.setSelectionRange(box.value.length, box.value.length);  // typing goes on after the sign
+    });
+  });
   // Printed, every folded box shows what it holds (the cautions, the work orders' visits).
   window.addEventListener("beforeprint", () => {
     document.querySelectorAll("details[data-cautions], details.visit").forEach((box) => { box.open = true; });
