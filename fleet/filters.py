@@ -414,6 +414,18 @@ class PlanParameters(_PageParameters):
         fields = ["site", "days"]
 
 
+class WorkOrdersParameters(_PageParameters):
+    """The work-orders page's site: its visits and cancelled orders at that site alone."""
+
+    site = django_filters.ModelChoiceFilter(
+        queryset=_sites_of, to_field_name="code", method="keep", error_messages={"invalid_choice": UNKNOWN_SITE_WORDS}
+    )
+
+    class Meta:
+        model = Site
+        fields = ["site"]
+
+
 def plan_parameters(
     query, default_days: int = PLAN_DEFAULT_DAYS, request=None
 ) -> tuple[Site | None, int, dict[str, str]]:

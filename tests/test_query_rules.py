@@ -311,7 +311,7 @@ def test_the_api_keeps_site_codes_exact(engineer, two_sites):
     ("name", "parameter"),
     [
         ("dashboard", "site"),
-        ("work_orders", "site"),
+        ("work_orders", "risk"),
         ("plan", "risk"),
         # A walk found these four silent: the stand-in parts, the refits, the imports and a site's spares.
         ("stand_in_parts", "site"),

@@ -2,6 +2,7 @@
 moving a whole visit, what a plan says it did, a "read again" order's link, the visit page's title."""
 
 import datetime as dt
+import html
 import re
 
 import pytest
@@ -1472,3 +1473,26 @@ def test_the_message_after_a_replacement_names_the_work_orders_it_closed(client,
     newer = make_fitted_capacitor(motor=make_motor(site=worn.motor.site, route_order=2), fitted_on=dt.date(2022, 1, 1))
     page = client.post(reverse("replace", args=[newer.id]), sent, follow=True).content.decode()
     assert "Replacement recorded. Log the new capacitor" in page
+
+
+def test_the_work_orders_list_shows_one_site_when_asked(client, planner):
+    """A walk: on a phone the list of every site's open visits ran to 23,000 px, with no way to keep to the site
+    one works at. [ours] `?site=CODE` lists that site's visits alone (the plan's chooser, the plan's rule for a
+    code it cannot use: named in a note, every site shown)."""
+    soonest = timezone.localdate() + dt.timedelta(days=10)
+    for code in ("WOA", "WOB"):
+        _friday_visit(make_site(code=code), soonest, count=1)
+    client.force_login(planner)
+    both = client.get(reverse("work_orders")).content.decode()
+    assert "WOA" in both and "WOB" in both and 'id="site-choice"' in both
+    one = client.get(reverse("work_orders"), {"site": "WOB"}).content.decode()
+    visits = re.findall(r'<details class="card visit"[^>]*>\s*<summary><h2>(\w+)', one)
+    assert visits == ["WOB"] and "Work orders by site visit at WOB" in one
+    assert '<option value="WOB" selected>' in one
+    unknown = client.get(reverse("work_orders"), {"site": "NOPE"})
+    assert unknown.status_code == 200
+    page = html.unescape(unknown.content.decode())
+    assert "Ignored site:" in page and re.findall(r'<details class="card visit"[^>]*>\s*<summary><h2>(\w+)', page) == [
+        "WOA",
+        "WOB",
+    ]

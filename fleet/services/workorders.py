@@ -1000,22 +1000,23 @@ CANCELLED_SHOWN_DAYS = 30  # the work-orders page lists the orders cancelled thi
 CANCELLED_SHOWN = 20
 
 
-def recently_cancelled(user=None, days: int = CANCELLED_SHOWN_DAYS, limit: int = CANCELLED_SHOWN) -> list:
-    """The orders cancelled in the last `days` at the user's sites, newest first (at most `limit`; one query, and
+def recently_cancelled(user=None, days: int = CANCELLED_SHOWN_DAYS, limit: int = CANCELLED_SHOWN, site=None) -> list:
+    """The orders cancelled in the last `days` at the user's sites (at `site` alone, given one), newest first (at
+    most `limit`; one query, and
     one more where a stop-gap's order is among them): what was cancelled, from which visit, why, by whom and when,
     for the planner to look back on; a stop-gap's with the design part it was to bring (`with_parts_to_bring`)."""
     since = timezone.now() - dt.timedelta(days=days)
     return with_parts_to_bring(
         scope_to_user(WorkOrder.objects.all(), user)
-        .filter(state=WorkOrder.State.CANCELLED, closed_at__gte=since)
+        .filter(state=WorkOrder.State.CANCELLED, closed_at__gte=since, **({} if site is None else {"site": site}))
         .select_related("motor", "site", "closed_by", "fitted_capacitor__part")
         .order_by("-closed_at", "-id")[:limit]
     )
 
 
-def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25):
-    """A page of open visits (site, day) at the user's sites, soonest first: each with its order
-    count, how many are still planned (to issue), its first `orders_shown` orders in walking order (each
+def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: int = 25, site=None):
+    """A page of open visits (site, day) at the user's sites (at `site` alone, given one), soonest first: each with
+    its order count, how many are still planned (to issue), its first `orders_shown` orders in walking order (each
     with `plan_now`), its spares with the site's stock, and the name of the site's day off it falls on (a day
     made a day off after the visit was dated; empty where none), its state in words (`visit_state_words`, its
     orders done already counted too) and how many of its orders are past their replace-by date (`late`: the
@@ -1025,6 +1026,8 @@ def open_visits_page(page_number, user=None, per_page: int = 10, orders_shown: i
     orders alone (by their stored walking order, from the open orders' index), then the orders shown are
     read with their motors and current plans."""
     orders = open_orders(user)
+    if site is not None:
+        orders = orders.filter(site=site)
     visits = (
         orders.values("due_on", "site_id", "site__code")
         .annotate(

@@ -21,7 +21,9 @@ from fleet.exports import Column, Table, stream_csv
 from fleet.filters import (
     FIRST_FILTER_DAY,
     LAST_FILTER_DAY,
+    WorkOrdersParameters,
     list_page,
+    page_parameters,
     parameter_problems,
     plan_parameters,
     problems_text,
@@ -109,7 +111,7 @@ PLAN_CHANGES_SHOWN = 20  # the plan lists this many riskier and as many less ris
 
 
 @needs_permission("fleet.view_workorder")
-@takes_parameters("page", "saved")  # ?saved=<capacitor>: a reading's draft to drop (base.html)
+@takes_parameters("page", "saved", "site")  # ?saved=<capacitor>: a reading's draft to drop (base.html)
 def work_orders(request):
     """Open work orders by site visit; planners create them from the plan and issue visits."""
     if request.method == "POST":
@@ -147,7 +149,11 @@ def work_orders(request):
 
 def _work_orders_page(request, plan_days: str = str(PLAN_DEFAULT_DAYS), status: int = 200):
     """The work-orders page; `plan_days`, what the plan's box shows (a refused value as it was typed)."""
-    page = list_page(request, lambda number: open_visits_page(number, user=request.user))
+    values, problems = page_parameters(WorkOrdersParameters, request.GET, request)
+    for name, problem in problems.items():
+        messages.warning(request, f"Ignored {name}: {problem.rstrip('.')}")
+    site = values.get("site")
+    page = list_page(request, lambda number: open_visits_page(number, user=request.user, site=site))
     return render(
         request,
         "fleet/work_orders.html",
@@ -155,7 +161,12 @@ def _work_orders_page(request, plan_days: str = str(PLAN_DEFAULT_DAYS), status: 
             "page": page,
             "visits": page.object_list,
             "today": timezone.localdate(),
-            "cancelled": recently_cancelled(request.user) if request.user.has_perm("fleet.add_workorder") else [],
+            "cancelled": (
+                recently_cancelled(request.user, site=site) if request.user.has_perm("fleet.add_workorder") else []
+            ),
+            "site": site,
+            "sites": scope_to_user(Site.objects.all(), request.user),
+            "all_sites_label": "All sites" if visible_site_ids(request.user) is None else "All your sites",
             "cancelled_days": CANCELLED_SHOWN_DAYS,
             "replace_now_unordered": replace_now_without_order(request.user),
             "plan_days": plan_days,
