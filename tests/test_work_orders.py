@@ -1496,3 +1496,32 @@ def test_the_work_orders_list_shows_one_site_when_asked(client, planner):
         "WOA",
         "WOB",
     ]
+
+
+def test_a_follow_up_replacement_on_an_issued_visit_is_issued_and_stays_on_it(
+    client, planner, technician, django_capture_on_commit_callbacks
+):
+    """A walk: the replacement a read-again reading called for joined its issued visit as a planned order, and the
+    planner's next "Create work orders" re-dated it (planned orders are re-dated) to an earlier visit opened for
+    another capacitor: the technician working the issued visit's sheet no longer saw it. [ours] on an issued visit
+    the follow-up is issued too, so a new plan leaves it where the technician was told it is. A 4 µF +/-5 % run
+    capacitor's limit is 3.80 µF [IEC 60252-1 tolerance class; common practice of the trade]."""
+    day = timezone.localdate() + dt.timedelta(days=5)
+    site = make_site(code="ISU")
+    low, other = (make_fitted_capacitor(motor=make_motor(site=site, route_order=n)) for n in (1, 2))
+    for capacitor in (low, other):
+        WorkOrder.objects.create(
+            motor=capacitor.motor, fitted_capacitor=capacitor, kind="read_again", due_on=day, state="issued"
+        )
+    client.force_login(technician)
+    data = {"method": "meter", "capacitance_uf": "3.60", "case_temperature_c": "25", "condition": "sound"}
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("reading_new", args=[low.id]), data)
+    follow_up = WorkOrder.objects.get(fitted_capacitor=low, kind="replace_run")
+    assert (follow_up.due_on, follow_up.state) == (day, "issued")
+    sooner = make_fitted_capacitor(motor=make_motor(site=site, route_order=3))  # another capacitor, due sooner
+    stored_assessment(sooner, Assessment.Risk.REPLACE_NOW, timezone.localdate() + dt.timedelta(days=1))
+    stored_assessment(low, Assessment.Risk.REPLACE_NOW, timezone.localdate() + dt.timedelta(days=1))
+    plan_work_orders(horizon_days=90)
+    follow_up.refresh_from_db()
+    assert (follow_up.due_on, follow_up.state) == (day, "issued")

@@ -1247,13 +1247,14 @@ def after_reading_again_words(reading) -> str:
 
 def replace_after_reading_again(assessments, now: dt.datetime) -> int:
     """A capacitor read for its "read again" order whose new assessment still asks for a replacement within
-    that order's visit (above its limit, but its trend crosses it now; or read below it) gets a planned
-    replacement order in the same visit, with the plan's reason: the reading closed the order, and the visit
-    sheet the technician stands at would otherwise lose the capacitor until the planner plans again.
+    that order's visit (above its limit, but its trend crosses it now; or read below it) gets a replacement order
+    in the same visit, with the plan's reason: the reading closed the order, and the visit sheet the technician
+    stands at would otherwise lose the capacitor until the planner plans again. Planned, or issued where the visit
+    is issued (a walk: a later plan re-dated a planned follow-up to another visit, off the issued visit's sheet).
     `assessments`: the refit's new rows (fitted_capacitor_id, risk, replace_by, read_again, reason). Only
     read-again orders closed within the visit's window before `now`, in a visit not past its window, with no
     order given the capacitor since (a planner's cancel of the follow-up stands), for a capacitor in service.
-    One query where no new assessment asks for a replacement soon; three where some do. Returns the orders
+    One query where no new assessment asks for a replacement soon; four where some do. Returns the orders
     created. The new order is dated on the visit's day, or on the plan's replace-by day where that comes sooner
     (a defect seen on the reading is to be replaced today, not a week on at its visit), never before today."""
     today = timezone.localdate(now)
@@ -1292,15 +1293,29 @@ def replace_after_reading_again(assessments, now: dt.datetime) -> int:
         .filter(reduce(or_, (Q(fitted_capacitor_id=c, created_at__gt=o.closed_at) for c, o in wanted.items())))
         .values_list("fitted_capacitor_id", flat=True)
     )
+    # Visits issued to the technicians: a follow-up on its visit's day is issued with it, so a new plan, which
+    # re-dates planned orders, does not take it off the sheet the technician there works from.
+    issued_visits = set(
+        WorkOrder.objects.filter(state=WorkOrder.State.ISSUED)
+        .filter(reduce(or_, (Q(site_id=o.site_id, due_on=o.due_on) for o in wanted.values())))
+        .values_list("site_id", "due_on")
+    )
     limit = WorkOrder._meta.get_field("reason").max_length
+    due_on = {  # on the visit's day, or sooner where the plan asks for it sooner (a defect seen: today)
+        capacitor_id: max(today, min(order.due_on, asks[capacitor_id][1])) for capacitor_id, order in wanted.items()
+    }
     new_orders = [
         WorkOrder(
             motor_id=order.motor_id,
             site_id=order.site_id,
             fitted_capacitor_id=capacitor_id,
             kind=KIND_FOR_ROLE[order.fitted_capacitor.role],
-            # On the visit's day, or sooner where the plan asks for it sooner (a defect seen: today).
-            due_on=max(today, min(order.due_on, asks[capacitor_id][1])),
+            due_on=due_on[capacitor_id],
+            state=(
+                WorkOrder.State.ISSUED
+                if due_on[capacitor_id] == order.due_on and (order.site_id, order.due_on) in issued_visits
+                else WorkOrder.State.PLANNED
+            ),
             window_days=order.window_days,
             reason=f"{asks[capacitor_id][0]}: {asks[capacitor_id][2]} ({READ_FOR_WORDS.format(order.id)})"[:limit],
         )
