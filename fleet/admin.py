@@ -58,9 +58,10 @@ def _rulebook_number(value) -> float | None:
     """A number typed in a register box, read by the rulebook's one parser (`parse_numbers`), as the imports and
     the reading form read the same figures: a decimal comma taken; other scripts' digits ("\u0662\u0665\u0660"),
     "2_50", NaN and infinity refused (Python's float() and int(), which Django's boxes use, take the first two)."""
-    if value in (None, ""):
+    value = value.strip() if isinstance(value, str) else value
+    if value in (None, ""):  # a box of spaces is empty too, for whole numbers as for the others
         return None
-    number, why = parse_numbers([value.strip() if isinstance(value, str) else value])
+    number, why = parse_numbers([value])
     if why[0]:
         raise ValidationError(why[0][:1].upper() + why[0][1:] + ".", code="invalid")
     return float(number[0])

@@ -116,3 +116,22 @@ def test_the_admin_keeps_a_work_orders_dates_to_the_plans_rule(administrator, fi
     assert words in form.errors[field][0], form.errors
     ok = dict(data, **{field: (timezone.localdate() + dt.timedelta(days=PLAN_HORIZON_DAYS[1] - 1)).isoformat()})
     assert model_admin.get_form(request, order)(ok, instance=order).is_valid()
+
+
+@pytest.mark.parametrize(("spaces", "words"), [(" ", "This field is required."), ("2 ", None)])
+def test_a_whole_number_box_of_spaces_is_empty_not_a_server_error(client, administrator, spaces, words):
+    """A whole-number box (a stock row's quantity, a motor's poles, an order's window) holding only spaces is
+    empty, as the other number boxes read it: refused where the field is required, and the edge spaces of a
+    number are no fault. It was read as NaN and rounded: a 500."""
+    fitted = make_fitted_capacitor()
+    stock = SiteStock.objects.create(site=fitted.motor.site, part=fitted.part, quantity=3)
+    client.force_login(administrator)
+    data = {"site": stock.site_id, "part": stock.part_id, "quantity": spaces, **as_shown(stock)}
+    response = client.post(f"/admin/fleet/sitestock/{stock.pk}/change/", data)
+    stock.refresh_from_db()
+    if words:
+        assert response.status_code == 200
+        assert response.context["adminform"].form.errors["quantity"] == [words]
+        assert stock.quantity == 3
+    else:
+        assert response.status_code == 302 and stock.quantity == 2

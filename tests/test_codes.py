@@ -101,6 +101,10 @@ def register_world():
         ("commissioned_on", "1949-12-31", "before 1950"),
         ("fitted_on", "1800-01-01", "before 1950"),
         ("fitted_on", "1949-12-31", "before 1950"),
+        ("fitted_on", "2020-01-01xyz", "not a date"),  # the day's first ten characters were read, the rest dropped
+        ("fitted_on", "2020-01-01 and again 2021", "not a date"),
+        ("commissioned_on", "2020-01-01 99:99", "not a date"),
+        ("commissioned_on", "2019-12-01T09:00+25:00", "not a date"),
     ],
 )
 def test_the_register_import_refuses_what_no_motor_has_by_row_and_field(register_world, field, value, words):

@@ -18,6 +18,7 @@ from rest_framework.test import APIClient
 from fleet.imports.columns import READING_COLUMNS, mapped_frame
 from fleet.models import Reading
 from fleet.services.import_checks import check_readings, insert_readings
+from fleet.services.import_jobs import create_job
 from tests.factories import make_fitted_capacitor, make_user
 
 pytestmark = pytest.mark.django_db
@@ -169,3 +170,20 @@ def test_the_importer_never_fails_and_writes_only_checked_rows(fuzz_target, rows
         insert_readings(result.good)
     assert Reading.objects.count() - before <= len(result.good)
     assert_all_stored_values_finite()
+
+
+def test_shown_values_nested_deeper_than_json_reads_are_taken_as_none_sent(client, fuzz_target):
+    """The hidden `shown_values` a page sends back (what it showed, for a save meanwhile): a hostile "[[[[..."
+    is a form that sent nothing readable, never a server error, on the reading form and the import page."""
+    fitted_capacitor, technician = fuzz_target
+    client.force_login(technician)
+    deep = "[" * 100_000
+    response = client.post(
+        reverse("reading_new", args=[fitted_capacitor.id]),
+        {"method": "meter", "capacitance_uf": "3.95", "condition": "sound", "shown_values": deep},
+    )
+    assert response.status_code == 302
+    assert Reading.objects.filter(fitted_capacitor=fitted_capacitor).count() == 1
+    job = create_job(kind="readings", filename="r.csv", content=b"asset_tag,role\n", user=technician)
+    response = client.post(reverse("import_detail", args=[job.id]), {"action": "check", "shown_values": deep})
+    assert response.status_code == 200

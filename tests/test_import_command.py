@@ -785,6 +785,8 @@ def test_a_readings_export_with_a_replacement_day_reading_imported_again_adds_no
     text = "asset_tag,role,taken_at,capacitance_uf,fitted_capacitor_id\n"
     text += f"FAN-1,run,2025-06-02 16:00,8.03,{new.id}\nFAN-1,run,2025-06-02 16:30,8.04,{other.id}\n"
     text += "FAN-1,run,2025-06-02 17:00,8.05,the new one\n"
+    arabic_indic = str(new.id).translate({ord(d): 0x0660 + int(d) for d in "0123456789"})  # digits, but not ASCII
+    text += f"FAN-1,run,2025-06-02 17:30,8.06,{arabic_indic}\n"
     report = io.StringIO()
     call_command("import", "readings", str(write(tmp_path, "named.csv", text)), "--good-rows-only", stdout=report)
     assert (
@@ -792,6 +794,7 @@ def test_a_readings_export_with_a_replacement_day_reading_imported_again_adds_no
         in (report.getvalue())
     )
     assert "row 4, fitted_capacitor_id: not a whole number" in report.getvalue()
+    assert "row 5, fitted_capacitor_id: not a whole number" in report.getvalue()  # not read as none given
     assert Reading.objects.get(capacitance_uf=8.03).fitted_capacitor == new
     assert Reading.objects.count() == stored + 1
 

@@ -145,3 +145,16 @@ def test_the_rows_to_fix_of_a_failed_job_are_a_message_not_a_server_error(client
     assert "There are no rows to download: The import stopped on an unexpected error" in response.content.decode()
     refused = check_job(job.id)  # checked again, the file is refused in words
     assert refused.state == ImportJob.State.REFUSED and "its sheet is damaged" in refused.message
+
+
+@pytest.mark.parametrize("cell", ["5\x000", "x" * 10_000])
+def test_a_parts_file_whose_every_row_is_refused_at_a_cell_is_reported_not_a_traceback(tmp_path, cell):
+    """A NUL or an over-long cell refuses its row before the catalogue's checks: with no row left to check, the
+    checks of the part's rating (its marked range) still run on none and the report names the row and field."""
+    header = "code,rated_uf,tolerance_minus_pct,tolerance_plus_pct,rated_voltage_v,dielectric,frequency_hz,description"
+    path = tmp_path / "parts.csv"
+    path.write_text(f"{header}\nRUN-NEW-1,5,5,5,450,film,50,{cell}\n", encoding="utf-8")
+    report = io.StringIO()
+    with pytest.raises(CommandError, match="nothing was imported"):
+        call_command("import", "parts", str(path), stdout=report)
+    assert "row 2, description:" in report.getvalue()

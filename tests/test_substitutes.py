@@ -78,6 +78,24 @@ def test_an_unsuitable_part_needs_the_override_and_a_reason_which_are_recorded(
     assert "Fitted against the substitute advice" in page and "only part in the van" in page
 
 
+def test_a_reason_typed_without_the_override_is_refused_not_dropped(client, technician, fan_fitted_capacitor):
+    """A reason is kept only with the tick: typed beside a part that needs no override, the form comes back
+    with it as typed, naming the box, and saves nothing, rather than fitting the part and losing the words."""
+    signed_in_client(client, technician)
+    refused = post_replacement(
+        client, fan_fitted_capacitor, fan_fitted_capacitor.part, override_reason="only part in the van"
+    )
+    assert refused.status_code == 200
+    page = refused.content.decode()
+    assert "A reason is kept only with the override ticked" in page
+    assert "only part in the van</textarea>" in page  # as typed
+    fan_fitted_capacitor.refresh_from_db()
+    assert fan_fitted_capacitor.removed_on is None
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
+    blank = post_replacement(client, fan_fitted_capacitor, fan_fitted_capacitor.part, override_reason=" ")
+    assert blank.status_code == 302
+
+
 def test_a_suitable_part_needs_no_override_and_the_screen_lists_it_first_with_the_stock(
     client, technician, fan_fitted_capacitor
 ):

@@ -306,9 +306,20 @@ def repeated_in_file(problems: _Problems, keys: pd.Series, field_name: str, what
     problems.add(repeated.to_numpy(), field_name, messages)
 
 
+# A day, and at most a time of day after it (a spreadsheet's or an export's "2026-03-14 00:00", its offset too):
+# anything else after the day ("2026-03-14xyz", "2026-03-14 99:99", words) makes it no date, not a day with the
+# rest dropped unsaid.
+_DAY_THEN_TIME = (
+    r"[0-9]{4}-[0-9]{2}-[0-9]{2}"
+    r"(?:[T ](?:[01][0-9]|2[0-3]):[0-5][0-9](?::[0-5][0-9](?:[.,][0-9]+)?)?"
+    r"(?:[zZ]|[+-](?:[01][0-9]|2[0-3]):?[0-5][0-9])?)?"
+)
+
+
 def parse_dates(texts: pd.Series) -> pd.Series:
-    """ISO 8601 dates (a time part is ignored); blanks and bad values are NaT."""
-    return pd.to_datetime(texts.str.slice(0, 10), errors="coerce", format="%Y-%m-%d")
+    """ISO 8601 dates (a time of day after one is ignored); blanks and bad values are NaT."""
+    day = texts.str.slice(0, 10).where(texts.str.fullmatch(_DAY_THEN_TIME).fillna(False).astype(bool))
+    return pd.to_datetime(day, errors="coerce", format="%Y-%m-%d")
 
 
 # Python's \s for text (the characters str.isspace() finds), spelt out: pyarrow's regular expressions know

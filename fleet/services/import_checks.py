@@ -184,7 +184,7 @@ def _named_capacitors(
     given = texts.ne("").to_numpy()
     if not given.any():  # the usual file: no such column
         return np.full(len(texts), -1, np.int64)
-    whole = texts.str.fullmatch(r"\d{1,18}(?:\.0*)?")
+    whole = texts.str.fullmatch(r"[0-9]{1,18}(?:\.0*)?")  # ASCII: other digits would be read as none given
     problems.add(
         given & ~whole.to_numpy(bool),
         "fitted_capacitor_id",
@@ -1091,11 +1091,11 @@ def _marked_ranges(rated_uf: pd.Series, problems: _Problems) -> None:
         "rated_uf",
         (
             "a marked range: give its middle as rated_uf ("
-            + middle.map("{:.4g}".format)
+            + middle.map("{:.4g}".format).to_numpy(object)
             + ") and half its width as tolerance_minus_pct and tolerance_plus_pct ("
-            + half_pct.map("{:.1f}".format)
+            + half_pct.map("{:.1f}".format).to_numpy(object)
             + ")"
-        ).to_numpy(object),
+        ),
     )
 
 

@@ -676,6 +676,11 @@ def replacement_problems(
             )
     if substitute_override and not (override_reason or "").strip():
         problems["override_reason"] = "Say why this part is fitted against the advice."
+    elif (override_reason or "").strip() and not substitute_override:  # kept only with the tick: never dropped unsaid
+        problems["override_reason"] = (
+            "A reason is kept only with the override ticked: tick it to fit this part against the advice, "
+            "or clear this box (anything worth keeping goes in the notes)."
+        )
     serial_max_chars = FittedCapacitor._meta.get_field("serial").max_length
     if len(serial or "") > serial_max_chars:
         problems["serial"] = f"{len(serial)} characters: a serial or date code takes at most {serial_max_chars}."

@@ -60,7 +60,7 @@ def read_shown(text: str) -> dict | None:
     """The values a form sent as shown, or None when it sent none that can be read."""
     try:
         values = json.loads(text or "")
-    except ValueError:
+    except (ValueError, RecursionError):  # RecursionError: nested deeper than the parser goes ("[[[[...")
         return None
     return values if isinstance(values, dict) else None
 
