@@ -7,6 +7,7 @@ more than they hold (superuser, a permission, or a group with permissions they l
 import json
 
 from django import forms
+from django.conf import settings
 from django.contrib import admin
 from django.contrib.admin.options import InlineModelAdmin
 from django.contrib.admin.utils import flatten_fieldsets
@@ -17,11 +18,13 @@ from django.contrib.auth.models import Group
 from django.core.exceptions import PermissionDenied, ValidationError
 from django.db import models, router, transaction
 from django.forms.models import BaseModelFormSet
+from django.utils import timezone
 from rest_framework.authtoken.admin import TokenAdmin
 from rest_framework.authtoken.models import TokenProxy
 
 from .engineering.rules import FIRST_ACCEPTED_DAY, LAST_ACCEPTED_DAY, parse_numbers
 from .forms import DAY_INPUT_FORMATS
+from .imports.columns import parse_site_time
 from .models import (
     Assessment,
     AuditEntry,
@@ -407,6 +410,14 @@ class ReadingAdminForm(forms.ModelForm):
             "supersedes",
         ]
 
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        if "taken_at" in self.fields:
+            self.fields["taken_at"].help_text = (
+                "In the site's time (the motor's site), as the reading form takes it; "
+                f"the admin's lists show times in {settings.TIME_ZONE}."
+            )
+
     def clean(self):
         from .services.readings import NeedsConfirmation, check_reading
 
@@ -414,6 +425,13 @@ class ReadingAdminForm(forms.ModelForm):
         fitted_capacitor = data.get("fitted_capacitor")
         if fitted_capacitor is None or self.errors:
             return data
+        # The boxes hold the site's wall-clock time (the admin read it in TIME_ZONE): read it in the site's zone,
+        # by the reading form's rule (a time the clocks skip or repeat is named, with its two offsets).
+        wall = timezone.localtime(data["taken_at"]).replace(tzinfo=None).isoformat(timespec="seconds")
+        try:
+            data["taken_at"] = parse_site_time(wall, fitted_capacitor.motor.site.time_zone)
+        except ValueError as error:
+            raise ValidationError({"taken_at": str(error)}) from error
         try:
             check_reading(
                 fitted_capacitor,

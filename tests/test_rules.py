@@ -645,3 +645,31 @@ def test_a_value_under_a_meters_finest_step_is_asked_about_as_0_is(client, techn
     assert not Reading.objects.exists()
     farads = form_post(client, fitted, capacitance_uf="0.00003").content.decode()
     assert "looks like farads" in farads and farads.count("the meter shows no capacitance") == 1
+
+
+def test_a_reading_added_in_the_admin_is_read_in_its_sites_time(client, administrator, fan_fitted_capacitor):
+    """A fuzz: the admin read a reading's time in the server's TIME_ZONE while the form, the API and the import read
+    it in the site's, so a reading typed at a site six hours off UTC was stored six hours off. [ours] the admin reads
+    the site's wall-clock time by the form's rule. America/Chicago is UTC-6 on 2024-03-01 and skips 02:00-03:00 on
+    2024-03-10 (the tz database, IANA)."""
+    from django.contrib.auth.models import Permission
+
+    site = fan_fitted_capacitor.motor.site
+    site.time_zone = "America/Chicago"
+    site.save()
+    administrator.user_permissions.add(Permission.objects.get(codename="add_reading"))
+    client.force_login(administrator)
+    data = {
+        "fitted_capacitor": fan_fitted_capacitor.id,
+        "taken_at_0": "2024-03-10",
+        "taken_at_1": "02:30",
+        "method": "meter",
+        "capacitance_uf": "3.95",
+        "condition": "sound",
+    }
+    skipped = client.post(reverse("admin:fleet_reading_add"), data)
+    assert skipped.status_code == 200 and "skipped or repeated in America/Chicago" in skipped.content.decode()
+    assert not Reading.objects.exists()
+    saved = client.post(reverse("admin:fleet_reading_add"), {**data, "taken_at_0": "2024-03-01", "taken_at_1": "09:00"})
+    assert saved.status_code == 302
+    assert Reading.objects.get().taken_at == dt.datetime(2024, 3, 1, 15, 0, tzinfo=dt.UTC)
