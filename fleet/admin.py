@@ -528,6 +528,10 @@ class AssessmentAdmin(CheckedLookupsAdmin):
 
 @admin.register(WorkOrder)
 class WorkOrderAdmin(RulebookNumbersAdmin):
+    """Who created and who closed an order, and when, are the application's record of the work (the pages that
+    plan, close and cancel write them): shown, never typed (the admin took a closing time of 9999-12-31)."""
+
+    readonly_fields = ["created_by", "closed_by", "closed_at"]
     list_display = ["motor", "kind", "due_on", "state", "reason"]
     list_filter = ["state", "kind", "motor__site"]
     search_fields = ["motor__asset_tag", "reason"]

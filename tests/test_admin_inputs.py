@@ -7,6 +7,7 @@ import pytest
 from django.contrib import admin
 from django.forms.models import model_to_dict
 from django.test import RequestFactory
+from django.urls import reverse
 from django.utils import timezone
 
 from fleet.admin import CheckedAutocompleteSelect, CheckedAutocompleteSelectMultiple
@@ -135,3 +136,19 @@ def test_a_whole_number_box_of_spaces_is_empty_not_a_server_error(client, admini
         assert stock.quantity == 3
     else:
         assert response.status_code == 302 and stock.quantity == 2
+
+
+def test_who_closed_a_work_order_and_when_are_not_typed_in_the_admin(client, administrator):
+    """A fuzz: the admin took a work order's closing time of 9999-12-31. [ours] who created and who closed an order,
+    and when, are the record the pages write; the admin shows them and sends none of them back."""
+    fitted = make_fitted_capacitor()
+    order = WorkOrder.objects.create(
+        motor=fitted.motor, fitted_capacitor=fitted, kind="inspect", due_on=timezone.localdate()
+    )
+    request = RequestFactory().get("/")
+    request.user = administrator
+    form = admin.site._registry[WorkOrder].get_form(request, order)
+    assert not {"created_by", "closed_by", "closed_at"} & set(form.base_fields)
+    client.force_login(administrator)
+    page = client.get(reverse("admin:fleet_workorder_change", args=[order.id]))
+    assert page.status_code == 200 and "Closed at" in page.content.decode()
