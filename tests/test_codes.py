@@ -95,7 +95,7 @@ def register_world():
         ("rated_speed_rpm", "1500", "at or above synchronous"),  # 120 f / p = 1500 rpm at 50 Hz, 4 poles [pub]
         ("poles", "3", "2, 4, 6"),
         ("frequency_hz", "55", "50 or 60"),
-        ("rated_voltage_v", "0", "above 0"),
+        ("rated_voltage_v", "0", "from 24 to 1,000 V"),
         ("commissioned_on", "1800-01-01", "before 1950"),
         ("commissioned_on", "0001-01-01", "before 1950"),
         ("commissioned_on", "1949-12-31", "before 1950"),

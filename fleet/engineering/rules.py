@@ -354,6 +354,10 @@ def nameplate_problems(rated_voltage_v, full_load_current_a, output_w) -> list[t
 # Ratings the database holds too (the motor's check constraints): rated voltage above 0 up to 1000 V, the
 # supply frequencies of the grid, an even number of poles (a winding has pole pairs) [derived].
 MOTOR_MAX_RATED_VOLTAGE_V = 1000.0
+# The lowest supply a capacitor motor is built for: 24 V a.c. control circuits (small damper and fan motors); the
+# mains ones run on 100 V and more. Under it a rating is a slip (3.8 for 380), for motors and parts alike (from
+# memory, unverified).
+LOWEST_RATED_VOLTAGE_V = 24.0
 MOTOR_FREQUENCIES_HZ = (50, 60)
 MOTOR_POLES = (2, 4, 6, 8, 10, 12)
 # A small induction motor runs a few per cent below synchronous speed at full load, high-slip fan motors up
@@ -395,9 +399,10 @@ def motor_problems(
         synchronous = 120.0 * hertz / np.where(np.isin(poles, MOTOR_POLES), poles, np.nan)
         problems = [
             (
-                ~((volts > 0) & (volts <= MOTOR_MAX_RATED_VOLTAGE_V)),
+                ~((volts >= LOWEST_RATED_VOLTAGE_V) & (volts <= MOTOR_MAX_RATED_VOLTAGE_V)),
                 "rated_voltage_v",
-                f"must be above 0 and at most {MOTOR_MAX_RATED_VOLTAGE_V:,.0f} V",
+                f"must be from {LOWEST_RATED_VOLTAGE_V:g} to {MOTOR_MAX_RATED_VOLTAGE_V:,.0f} V: "
+                "check the decimal point",
             ),
             (~np.isin(hertz, MOTOR_FREQUENCIES_HZ), "frequency_hz", "must be 50 or 60"),
             (~np.isin(poles, MOTOR_POLES), "poles", "must be 2, 4, 6, 8, 10 or 12"),
@@ -554,9 +559,10 @@ def part_problems(
                 f"must be from 0 to {PART_MAX_TOLERANCE_PLUS_PCT:g} %",
             ),
             (
-                ~((volts > 0) & (volts <= PART_MAX_RATED_VOLTAGE_V)),
+                ~((volts >= LOWEST_RATED_VOLTAGE_V) & (volts <= PART_MAX_RATED_VOLTAGE_V)),
                 "rated_voltage_v",
-                f"must be above 0 and at most {PART_MAX_RATED_VOLTAGE_V:,.0f} V",
+                f"must be from {LOWEST_RATED_VOLTAGE_V:g} to {PART_MAX_RATED_VOLTAGE_V:,.0f} V: "
+                "check the decimal point",
             ),
             (~np.isin(hertz, PART_FREQUENCIES_HZ), "frequency_hz", "must be 50 or 60"),
             (
