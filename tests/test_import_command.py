@@ -1454,3 +1454,25 @@ def test_the_register_and_days_off_take_the_site_under_the_apis_heading_and_the_
     job = checked_on_the_web(client, django_capture_on_commit_callbacks, "days_off", text)
     assert job.mapping["site"] == heading and "site_code" not in job.mapping
     assert job.errors == [[2, "site", "unknown site code XX: add the site first"]]
+
+
+def test_a_file_with_a_heading_and_its_older_name_refuses_the_rows_where_they_disagree(tmp_path):
+    """A fuzz: a days-off file with both `site` and `site_code` (its older heading) was read from `site`, and the
+    other column reported as left out, even on a row where the two named different sites. [ours] a row where they
+    disagree is refused at the field, naming both; where they agree (any case) or one is empty, the row stands."""
+    from fleet.models import SiteDayOff
+
+    run("sites", write(tmp_path, "sites.csv", SITES))
+    today = timezone.localdate()
+    soon = today + dt.timedelta(days=7 - today.weekday() + 14)  # a Monday, a working day
+    text = (
+        "site,site_code,day,name\n"
+        f"PK,pk,{soon},harvest shutdown\n"
+        f"CS,PK,{soon},public holiday\n"
+        f"CS,,{soon + dt.timedelta(days=1)},stocktake\n"
+    )
+    report = run("days_off", write(tmp_path, "days.csv", text), "--good-rows-only")
+    assert "3 rows: 2 good" in report
+    assert "row 3, site: site says CS but site_code, its older heading, says PK: keep one of the two columns" in report
+    stored = set(SiteDayOff.objects.values_list("site__code", "name"))
+    assert stored == {("PK", "harvest shutdown"), ("CS", "stocktake")}

@@ -288,6 +288,33 @@ def text_problems(
     return problems
 
 
+def older_heading_disagreements(
+    frame: pd.DataFrame, header: list[str], rows, mapping: dict[str, str], problems: _Problems
+) -> None:
+    """A file with a field's heading and its older one too (`OLD_HEADINGS`: `site` and `site_code`) is read from
+    the field's own; a row where the older column holds something else is refused at the field, naming both (the
+    older column was reported as left out, and which of the two is right no one can tell)."""
+    taken = set(mapping.values())
+
+    def norm(name):
+        return "".join(ch for ch in name.lower() if ch.isalnum())
+
+    for name, olds in OLD_HEADINGS.items():
+        if mapping.get(name) not in header or name not in frame:
+            continue
+        for column in (c for c in header if c not in taken and norm(c) in {norm(old) for old in olds}):
+            older = mapped_frame(header, rows, {name: column}, {name: ""})[name]
+            differ = frame[name].ne("") & older.ne("") & frame[name].str.casefold().ne(older.str.casefold())
+            messages = (
+                f"{mapping[name]} says "
+                + frame[name].map(shown)
+                + f" but {column}, its older heading, says "
+                + older.map(shown)
+                + ": keep one of the two columns"
+            ).to_numpy(object)
+            problems.add(differ.to_numpy(bool), name, messages, of_cell=True)
+
+
 def finite_numbers(chunk: pd.DataFrame, names, problems: _Problems) -> dict[str, np.ndarray]:
     """Numbers (point or comma decimal mark); infinities refused. Blank cells are NaN."""
     values = _numbers(chunk, names, problems)

@@ -255,6 +255,7 @@ def check_file(
     frame = columns.mapped_frame(header, rows, mapping, spec.columns)
     formulas = columns.unsaved_formulas(header, rows, mapping, spec.columns)
     unstorable = columns.text_problems(frame, spec.max_lengths, formulas)
+    columns.older_heading_disagreements(frame, header, rows, mapping, unstorable)
     storable = frame[~unstorable.bad].reset_index(drop=True)
     elsewhere = import_checks.outside_sites(storable, user, spec.site_column)
     result = spec.check(
