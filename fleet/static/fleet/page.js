@@ -187,7 +187,8 @@
     row.append(box, sign);
     sign.addEventListener("click", () => {
       const value = box.value.trim();
-      box.value = value.startsWith("-") || value.startsWith("\u2212") ? value.slice(1) : `-${value}`;
+      // A plus sign typed first (a keypad that has one) gives way to the minus: "-+5" is no number.
+      box.value = value.startsWith("-") || value.startsWith("\u2212") ? value.slice(1) : `-${value.replace(/^\+/, "")}`;
       box.dispatchEvent(new Event("input", { bubbles: true }));
       box.focus();
       box.setSelectionRange(box.value.length, box.value.length);  // typing goes on after the sign
