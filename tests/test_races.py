@@ -909,6 +909,20 @@ def test_a_reading_saved_while_an_import_writes_waits_a_bounded_time_and_keeps_e
             assert cursor.fetchone()[0] == "0"
 
 
+def test_a_reading_refused_by_a_busy_database_is_not_summed_up_as_something_to_put_right(capacitor):
+    """A walk: a reading sent while an import held SQLite's write lock came back headed "Not saved: 1 to put
+    right", as if the technician had typed something wrong. [ours] the summary says nothing typed is wrong; the
+    busy words below it say to press Save again."""
+    from django.db import OperationalError
+
+    client = Client()
+    client.force_login(make_user("technician"))
+    with mock.patch("fleet.views.field.record_reading", side_effect=OperationalError("database is locked")):
+        answer = client.post(f"/fitted-capacitors/{capacitor.id}/reading/", _reading_form_now("page-locked-2"))
+    summary = re.search(r'<div class="error-summary".*?</strong>', answer.content.decode(), re.S).group(0)
+    assert "nothing you typed is wrong" in summary and "to put right" not in summary
+
+
 def test_a_reading_refused_by_a_busy_database_comes_back_with_every_value(capacitor):
     """The embedded default: SQLite's write lock held past the busy timeout by a large import or a backup. Before,
     the reading form answered the 503 page and the values lived on only in the phone's draft. [derived] the form

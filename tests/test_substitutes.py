@@ -96,6 +96,29 @@ def test_a_reason_typed_without_the_override_is_refused_not_dropped(client, tech
     assert blank.status_code == 302
 
 
+def test_the_override_ticked_for_a_part_that_needs_none_is_refused_not_kept_as_a_stop_gap(
+    client, technician, fan_fitted_capacitor
+):
+    """A walk: the design part chosen with a reason typed was refused saying "tick it to fit this part against
+    the advice"; ticked, the design part was kept as a stop-gap fitted against the advice, listed to swap for
+    itself and counted on the plan. [ours] the override ticked for the design part, or for a suitable one (a
+    second 4 uF 450 V film part [derived]), is refused at the box, saying the part needs none; nothing saved."""
+    signed_in_client(client, technician)
+    same = make_part(code="FILM-4U0-B", rated_uf=4.0)
+    for part, what in ((fan_fitted_capacitor.part, "the design part"), (same, "suitable")):
+        ticked = post_replacement(
+            client, fan_fitted_capacitor, part, substitute_override="on", override_reason="same as before"
+        )
+        page = ticked.content.decode()
+        assert ticked.status_code == 200 and f"{part.code} is {what} here: it needs no override." in page
+        assert "same as before</textarea>" in page  # as typed
+        reason_only = post_replacement(client, fan_fitted_capacitor, part, override_reason="same as before")
+        assert f"{part.code} is {what} here: it needs no override: clear this box" in reason_only.content.decode()
+        assert "tick it to fit this part against the advice" not in reason_only.content.decode()
+    assert FittedCapacitor.objects.filter(motor=fan_fitted_capacitor.motor).count() == 1
+    assert not FittedCapacitor.objects.filter(substitute_override=True).exists()
+
+
 def test_a_suitable_part_needs_no_override_and_the_screen_lists_it_first_with_the_stock(
     client, technician, fan_fitted_capacitor
 ):

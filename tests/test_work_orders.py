@@ -13,7 +13,7 @@ from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
 
-from fleet.models import Assessment, AuditEntry, FittedCapacitor, Reading, SiteStock, WorkOrder
+from fleet.models import Assessment, AuditEntry, FittedCapacitor, Reading, Site, SiteStock, WorkOrder
 from fleet.services.workorders import (
     after_reading_again_words,
     cancel_order,
@@ -1525,3 +1525,22 @@ def test_a_follow_up_replacement_on_an_issued_visit_is_issued_and_stays_on_it(
     plan_work_orders(horizon_days=90)
     follow_up.refresh_from_db()
     assert (follow_up.due_on, follow_up.state) == (day, "issued")
+
+
+def test_issuing_or_planning_from_one_sites_list_comes_back_to_that_sites_list(client, planner):
+    """A walk: on the work-orders list kept to one site (?site=CODE), "Issue this visit" and "Create work orders
+    from the plan" came back to every site's list, the chooser reset. [ours] the list comes back as it was sent
+    from: its site (and page) kept."""
+    day = timezone.localdate() + dt.timedelta(days=10)
+    for code in ("WOC", "WOD"):
+        _friday_visit(make_site(code=code), day, count=1)
+    site = Site.objects.get(code="WOD")
+    client.force_login(planner)
+    address = reverse("work_orders") + "?site=WOD"
+    issued = client.post(address, {"action": "issue", "site": site.id, "day": day.isoformat()})
+    assert issued.status_code == 302 and issued["Location"] == address
+    assert set(WorkOrder.objects.filter(site=site).values_list("state", flat=True)) == {"issued"}
+    planned = client.post(address, {"action": "plan", "days": "30"}, follow=True)
+    assert planned.redirect_chain == [(address, 302)]
+    page = planned.content.decode()
+    assert re.findall(r'<details class="card visit"[^>]*>\s*<summary><h2>(\w+)', page) == ["WOD"]

@@ -666,6 +666,7 @@ def replacement_problems(
     others in the same answer); a value None was not given or not read, and is the form's to name. The dates
     and the reason are judged on a capacitor still in service (one already out is a replay, or refused by name)."""
     problems = {}
+    reason_typed = bool((override_reason or "").strip())
     if part is not None and part.pk != design_part(fitted_capacitor).pk:
         advice = verdict_of_part(fitted_capacitor, part)
         if advice["verdict"] != SUITABLE and not substitute_override:
@@ -674,13 +675,25 @@ def replacement_problems(
                 + "; ".join(advice["concerns"])
                 + "). Tick the override and give a reason to fit it anyway."
             )
-    if substitute_override and not (override_reason or "").strip():
-        problems["override_reason"] = "Say why this part is fitted against the advice."
-    elif (override_reason or "").strip() and not substitute_override:  # kept only with the tick: never dropped unsaid
-        problems["override_reason"] = (
-            "A reason is kept only with the override ticked: tick it to fit this part against the advice, "
-            "or clear this box (anything worth keeping goes in the notes)."
+        needs_override, what = advice["verdict"] != SUITABLE, "suitable"
+    else:
+        needs_override, what = False, "the design part"
+    needs_none = f"{part.code} is {what} here: it needs no override" if part is not None and not needs_override else ""
+    if substitute_override and needs_none:
+        # Ticked for a part that needs none, it would be kept as a stop-gap "fitted against the advice": listed to
+        # swap for the design part (itself, perhaps) and counted on the plan. Refused, every value kept.
+        problems["substitute_override"] = (
+            f"{needs_none}. Untick the override and clear its reason (anything worth keeping goes in the notes)."
         )
+    elif substitute_override and not reason_typed:
+        problems["override_reason"] = "Say why this part is fitted against the advice."
+    elif reason_typed and not substitute_override:  # kept only with the tick: never dropped unsaid
+        problems["override_reason"] = (
+            f"A reason is kept only with the override ticked, and {needs_none}: clear this box"
+            if needs_none
+            else "A reason is kept only with the override ticked: tick it to fit this part against the advice, "
+            "or clear this box"
+        ) + " (anything worth keeping goes in the notes)."
     serial_max_chars = FittedCapacitor._meta.get_field("serial").max_length
     if len(serial or "") > serial_max_chars:
         problems["serial"] = f"{len(serial)} characters: a serial or date code takes at most {serial_max_chars}."

@@ -70,7 +70,7 @@ from fleet.views.register import (
 @takes_parameters("corrects", "next")
 def reading_new(request, fitted_capacitor_id):
     fitted_capacitor = fitted_capacitor_or_404(request, fitted_capacitor_id)
-    needs_confirmation, to_check, replaced_meanwhile = False, [], None
+    needs_confirmation, to_check, replaced_meanwhile, busy = False, [], None, False
     zone = fitted_capacitor.motor.site.time_zone
     if request.method == "POST":
         form = ReadingForm(request.POST, time_zone=zone)
@@ -92,6 +92,7 @@ def reading_new(request, fitted_capacitor_id):
             except OperationalError as error:
                 if not database_busy(error):
                     raise
+                busy = True  # nothing typed is wrong: the summary says so, not "1 to put right"
                 form.add_error(None, not_saved_busy_words())  # nothing saved (its transaction rolled back)
             except ReplacedMeanwhile as error:
                 # Nothing saved, every value kept: the page asks which capacitor was measured (reading_form.html).
@@ -173,6 +174,7 @@ def reading_new(request, fitted_capacitor_id):
         "form": form,
         "needs_confirmation": needs_confirmation,
         "replaced_meanwhile": replaced_meanwhile,
+        "busy": busy,
         # Fields whose value is asked to confirm while others are refused (the summary tells the two apart).
         "to_check": to_check,
         "to_put_right": len(form.errors) - len(to_check),

@@ -143,7 +143,7 @@ def work_orders(request):
                         return redirect("visit_sheet", site_code=code, day=day.isoformat())
                 else:
                     messages.error(request, "That visit has no planned work orders at your sites: reload the page.")
-        return redirect("work_orders")
+        return redirect(request.get_full_path())  # the list the planner was on: its site and page kept
     return _work_orders_page(request)
 
 

@@ -467,6 +467,19 @@ def test_a_temperature_below_zero_can_be_typed_on_a_phones_decimal_keypad(phone)
     assert (reading.case_temperature_c, reading.ambient_temperature_c) == (-0.5, -9.1)
 
 
+def test_the_sign_button_turns_a_plus_sign_into_a_minus(phone):
+    """A walk: a temperature typed "+5" (a keypad that has the plus sign) became "-+5" with the +/- button, no
+    number, refused on Save. [ours] the button puts the minus in the plus sign's place, and takes it out again."""
+    fitted_capacitor = make_fitted_capacitor()
+    sign_in(phone, make_user("technician"))
+    phone.goto(f"/fitted-capacitors/{fitted_capacitor.id}/reading/")
+    phone.fill("#id_case_temperature_c", "+5")
+    phone.click("#wrap_case_temperature_c .sign-toggle")
+    assert phone.input_value("#id_case_temperature_c") == "-5"
+    phone.click("#wrap_case_temperature_c .sign-toggle")
+    assert phone.input_value("#id_case_temperature_c") == "5"
+
+
 def test_the_replacement_day_is_said_in_words_beside_its_box(phone):
     """A walk: "Replaced on" showed 12/04/2026 in the browser's order of day and month, read as 12 April beside
     the ISO days of every other page, with nothing in words as the reading form and a visit's move say."""

@@ -472,9 +472,41 @@ def test_a_replacement_sent_while_the_database_was_busy_comes_back_as_typed(phon
     assert "while the database was busy" in phone.inner_text("#form-put-back")
     assert phone.is_checked("input[value=failed]")
     assert phone.input_value("#id_serial") == "2611-0044" and phone.input_value("#id_notes") == "hums, no start"
-    phone.click("text=Save replacement")
+    phone.click("button:has-text('Save replacement')")  # the note names the button too
     phone.wait_for_url("**/reading/**")
     assert FittedCapacitor.objects.get(serial="2611-0044").motor == motor_with_history.motor
+
+
+def test_a_form_put_back_after_a_busy_database_names_the_button_to_press_again(phone, transactional_db, monkeypatch):
+    """A walk: a work order's cancel sent while the database was busy came back filled in, saying "press Save
+    again", on a page with no Save button ("Cancel this order"; a visit's "Move the whole visit" the same). [ours]
+    the note names the button that was pressed."""
+    from django.db import OperationalError
+
+    from fleet.models import WorkOrder
+
+    def busy(**values):
+        raise OperationalError("database is locked")
+
+    fitted_capacitor = make_fitted_capacitor()
+    order = WorkOrder.objects.create(
+        motor=fitted_capacitor.motor,
+        fitted_capacitor=fitted_capacitor,
+        kind="replace_run",
+        due_on=timezone.localdate() + dt.timedelta(days=5),
+    )
+    sign_in(phone, make_user("planner"))
+    monkeypatch.setattr("fleet.views.planning.cancel_order", busy)
+    phone.goto(f"/work-orders/{order.id}/cancel/")
+    phone.fill("#id_reason", "motor taken out for the winter")
+    phone.click("text=Cancel this order")
+    phone.wait_for_selector("#not-saved", timeout=15000)
+    monkeypatch.undo()
+    phone.click("text=Back to the form")
+    phone.wait_for_selector("#form-put-back")
+    note = phone.inner_text("#form-put-back")
+    assert "press \u201cCancel this order\u201d again" in note and "Save" not in note
+    assert phone.input_value("#id_reason") == "motor taken out for the winter"
 
 
 def test_the_time_box_offers_the_minute_and_the_reading_keeps_the_second_it_was_offered(phone, motor_with_history):

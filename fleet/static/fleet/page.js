@@ -112,12 +112,12 @@
     try { sessionStorage.removeItem(SENT); } catch (error) { /* storage off */ }
     const form = sent.notSaved && sent.values && sent.page === here &&
       [...document.querySelectorAll("form[method=post]")].find((f) => actionOf(f) === sent.action);
-    if (form) putBack(form, sent.values, sent.notSaved);
+    if (form) putBack(form, sent.values, sent.notSaved, sent.button);
     // A form with a draft of its own puts it back itself, saying so (data-draft-note): that is the first thing in view.
     const ownNote = sent.notSaved && sent.draft && sent.page === here && document.querySelector("[data-draft-note]:not([hidden])");
     if (ownNote) ownNote.scrollIntoView({ block: "start" });
   }
-  function putBack(form, values, why) {
+  function putBack(form, values, why, button) {
     const left = values.map((pair) => pair.slice());
     const take = (name, value) => {
       const k = left.findIndex(([n, v]) => n === name && (value === undefined || v === value));
@@ -136,8 +136,9 @@
     note.id = "form-put-back";
     note.setAttribute("role", "status");
     const when = why === "signed-out" ? "before signing in again" : "while the database was busy or away";
-    note.innerHTML = `<strong>Not saved yet: what you typed ${when} is back in the form.</strong>` +
-      "Check it and press Save again.";
+    note.innerHTML = `<strong>Not saved yet: what you typed ${when} is back in the form.</strong>`;
+    // The button pressed, by its own words: "Move the whole visit" or "Cancel this order" is no "Save".
+    note.append(`Check it and press ${button ? `\u201c${button}\u201d` : "Save"} again.`);
     form.before(note);
     note.scrollIntoView({ block: "start" });
   }
@@ -145,7 +146,8 @@
     const form = event.target;
     if (event.defaultPrevented || (form.getAttribute("method") || "").toLowerCase() !== "post" ||
         "signIn" in form.dataset || "signOut" in form.dataset) return;
-    const record = { page: here, action: actionOf(form) };
+    const button = (event.submitter?.textContent || "").replace(/\s+/g, " ").trim();
+    const record = { page: here, action: actionOf(form), button };
     if ("keepsDraft" in form.dataset) record.draft = form.dataset.keepsDraft;
     else {
       const secret = (name) => name === "csrfmiddlewaretoken" || (form.elements[name] || {}).type === "password";
@@ -187,7 +189,8 @@
     row.append(box, sign);
     sign.addEventListener("click", () => {
       const value = box.value.trim();
-      box.value = value.startsWith("-") || value.startsWith("\u2212") ? value.slice(1) : `-${value}`;
+      // A plus sign typed first (a keypad that has one) gives way to the minus: "-+5" is no number.
+      box.value = value.startsWith("-") || value.startsWith("\u2212") ? value.slice(1) : `-${value.replace(/^\+/, "")}`;
       box.dispatchEvent(new Event("input", { bubbles: true }));
       box.focus();
       box.setSelectionRange(box.value.length, box.value.length);  // typing goes on after the sign
