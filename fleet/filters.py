@@ -39,17 +39,18 @@ def _sites_of(request):
 
 # What a filter says of a value it does not know: the value, and where the valid ones are listed.
 UNKNOWN_SITE_WORDS = (
-    "No site %(value)s among the sites you work at (codes are exact, capitals included): the plan page, /plan/, "
-    "lists them."
+    'No site "%(value)s" among the sites you work at (codes are exact, capitals and spaces included): the plan '
+    "page, /plan/, lists them."
 )
 UNKNOWN_PART_WORDS = (
-    "No part %(value)s in the catalogue (codes are exact, capitals included): the life-data page, /life/, lists them."
+    'No part "%(value)s" in the catalogue (codes are exact, capitals and spaces included): the life-data page, '
+    "/life/, lists them."
 )
 UNKNOWN_MOTOR_WORDS = (
-    "No motor %(value)s at the sites you work at (tags are exact, capitals included): find it by part of its tag "
-    "at /find/."
+    'No motor "%(value)s" at the sites you work at (tags are exact, capitals and spaces included): find it by part '
+    "of its tag at /find/."
 )
-UNKNOWN_RISK_WORDS = "%(value)s is not a risk level: " + ", ".join(Assessment.Risk.values) + "."
+UNKNOWN_RISK_WORDS = '"%(value)s" is not a risk level: ' + ", ".join(Assessment.Risk.values) + "."
 
 
 def _site_filter(field_name: str) -> django_filters.ModelChoiceFilter:

@@ -181,12 +181,12 @@ def test_an_unknown_code_is_named_with_where_the_valid_ones_are(
     response = client_for(engineer).get(reverse(address), {name: value})
     assert response.status_code == 400
     message = response.json()[name][0]
-    assert f" {value} " in message and where in message and "Select a valid choice" not in message
+    assert f' "{value}" ' in message and where in message and "Select a valid choice" not in message
 
 
 def test_an_unknown_risk_level_lists_the_levels(engineer):
     message = client_for(engineer).get(reverse("api_assessments"), {"risk": "bogus"}).json()["risk"][0]
-    assert message == "bogus is not a risk level: replace now, due soon, watch, sound."
+    assert message == '"bogus" is not a risk level: replace now, due soon, watch, sound.'
 
 
 def test_since_later_than_until_is_named_at_both(engineer, fan_fitted_capacitor):

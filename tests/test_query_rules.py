@@ -5,6 +5,7 @@ which role may do it, and a site's pages find its code in any case. [derived: th
 and "Who uses it" sections; the project's rule that a bad value is a message naming the parameter.]"""
 
 import datetime as dt
+import html
 
 import pytest
 from django.urls import reverse
@@ -383,3 +384,11 @@ def test_the_work_orders_list_takes_the_saved_reading_it_comes_back_with(client,
     client.force_login(technician)
     shown = client.get(reverse("work_orders"), {"saved": two_sites[0].id})
     assert shown.status_code == 200 and not [str(m) for m in shown.context["messages"]]
+
+
+def test_a_site_code_with_spaces_is_named_with_its_spaces(client, planner, two_sites):
+    """A walk: `/work-orders/?site=%20CST%20` said "No site CST among the sites you work at", the spaces unseen, as
+    if CST were missing. [ours] the code is named in quotes, as sent."""
+    client.force_login(planner)
+    page = html.unescape(client.get(reverse("work_orders"), {"site": " CST "}).content.decode())
+    assert 'No site " CST " among the sites you work at' in page
