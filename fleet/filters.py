@@ -53,11 +53,13 @@ UNKNOWN_MOTOR_WORDS = (
 UNKNOWN_RISK_WORDS = '"%(value)s" is not a risk level: ' + ", ".join(Assessment.Risk.values) + "."
 
 
-def _site_filter(field_name: str) -> django_filters.ModelChoiceFilter:
+def _site_filter(field_name: str, method: str | None = None) -> django_filters.ModelChoiceFilter:
     """A site by its code, among the requesting user's sites: an unknown code, or a site the user
-    does not work at, is a message naming the parameter and the code, not an empty answer."""
+    does not work at, is a message naming the parameter and the code, not an empty answer. `method="keep"`: a
+    page's parameter, read only (`_PageParameters`)."""
     return django_filters.ModelChoiceFilter(
         field_name=field_name,
+        method=method,
         queryset=_sites_of,
         to_field_name="code",
         error_messages={"invalid_choice": UNKNOWN_SITE_WORDS},
@@ -400,9 +402,7 @@ class BoundedNumberFilter(django_filters.NumberFilter):
 class PlanParameters(_PageParameters):
     """The plan page's and its downloads' site and horizon (the plan itself comes from a service)."""
 
-    site = django_filters.ModelChoiceFilter(
-        queryset=_sites_of, to_field_name="code", method="keep", error_messages={"invalid_choice": UNKNOWN_SITE_WORDS}
-    )
+    site = _site_filter("site", method="keep")
     days = BoundedNumberFilter(
         method="keep",
         validators=[MinValueValidator(SHORTEST_DAYS, HORIZON_WORDS), MaxValueValidator(LONGEST_DAYS, HORIZON_WORDS)],
@@ -418,9 +418,7 @@ class PlanParameters(_PageParameters):
 class WorkOrdersParameters(_PageParameters):
     """The work-orders page's site: its visits and cancelled orders at that site alone."""
 
-    site = django_filters.ModelChoiceFilter(
-        queryset=_sites_of, to_field_name="code", method="keep", error_messages={"invalid_choice": UNKNOWN_SITE_WORDS}
-    )
+    site = _site_filter("site", method="keep")
 
     class Meta:
         model = Site

@@ -1002,9 +1002,9 @@ CANCELLED_SHOWN = 20
 
 def recently_cancelled(user=None, days: int = CANCELLED_SHOWN_DAYS, limit: int = CANCELLED_SHOWN, site=None) -> list:
     """The orders cancelled in the last `days` at the user's sites (at `site` alone, given one), newest first (at
-    most `limit`; one query, and
-    one more where a stop-gap's order is among them): what was cancelled, from which visit, why, by whom and when,
-    for the planner to look back on; a stop-gap's with the design part it was to bring (`with_parts_to_bring`)."""
+    most `limit`; one query, and one more where a stop-gap's order is among them): what was cancelled, from which
+    visit, why, by whom and when, for the planner to look back on; a stop-gap's with the design part it was to
+    bring (`with_parts_to_bring`)."""
     since = timezone.now() - dt.timedelta(days=days)
     return with_parts_to_bring(
         scope_to_user(WorkOrder.objects.all(), user)

@@ -23,7 +23,7 @@ from fleet.filters import (
     LAST_FILTER_DAY,
     WorkOrdersParameters,
     list_page,
-    page_parameters,
+    page_values,
     parameter_problems,
     plan_parameters,
     problems_text,
@@ -149,10 +149,7 @@ def work_orders(request):
 
 def _work_orders_page(request, plan_days: str = str(PLAN_DEFAULT_DAYS), status: int = 200):
     """The work-orders page; `plan_days`, what the plan's box shows (a refused value as it was typed)."""
-    values, problems = page_parameters(WorkOrdersParameters, request.GET, request)
-    for name, problem in problems.items():
-        messages.warning(request, f"Ignored {name}: {problem.rstrip('.')}")
-    site = values.get("site")
+    site = page_values(WorkOrdersParameters, request).get("site")
     page = list_page(request, lambda number: open_visits_page(number, user=request.user, site=site))
     return render(
         request,
