@@ -116,17 +116,22 @@ class CheckResult:
         return len({row for row, _, _ in self.errors})
 
 
+def _heading_key(name: str) -> str:
+    """A heading as headings are matched to fields: its letters and digits, lower case ("Site Code" is site_code)."""
+    return "".join(ch for ch in name.lower() if ch.isalnum())
+
+
 def suggest_mapping(columns: list[str], ours: dict[str, str]) -> dict[str, str]:
     """Our field -> the file's column, matching names regardless of case, spaces, dashes; a field's earlier
     heading (`OLD_HEADINGS`) where the file has no column of its own name."""
-
-    def norm(name):
-        return "".join(ch for ch in name.lower() if ch.isalnum())
-
-    by_norm = {norm(c): c for c in columns}
+    by_norm = {_heading_key(c): c for c in columns}
     mapping = {}
     for name in ours:
-        found = [by_norm[norm(heading)] for heading in (name, *OLD_HEADINGS.get(name, ())) if norm(heading) in by_norm]
+        found = [
+            by_norm[_heading_key(heading)]
+            for heading in (name, *OLD_HEADINGS.get(name, ()))
+            if _heading_key(heading) in by_norm
+        ]
         if found:
             mapping[name] = found[0]
     return mapping
@@ -295,14 +300,11 @@ def older_heading_disagreements(
     the field's own; a row where the older column holds something else is refused at the field, naming both (the
     older column was reported as left out, and which of the two is right no one can tell)."""
     taken = set(mapping.values())
-
-    def norm(name):
-        return "".join(ch for ch in name.lower() if ch.isalnum())
-
     for name, olds in OLD_HEADINGS.items():
         if mapping.get(name) not in header or name not in frame:
             continue
-        for column in (c for c in header if c not in taken and norm(c) in {norm(old) for old in olds}):
+        older_keys = {_heading_key(old) for old in olds}
+        for column in (c for c in header if c not in taken and _heading_key(c) in older_keys):
             older = mapped_frame(header, rows, {name: column}, {name: ""})[name]
             differ = frame[name].ne("") & older.ne("") & frame[name].str.casefold().ne(older.str.casefold())
             messages = (

@@ -93,8 +93,9 @@
   // So is one sent while the database was busy or away: the 503 page has the same notice (fleet.faults) and
   // leads back to the form's page. So every form sent is held in this tab (sessionStorage) until the next page:
   // a page with the notice keeps it, says whether it is kept, and the page it leads back to puts it back once,
-  // saying so; any other page drops it (saved, or refused and shown again with what was sent). A form with a draft of its own
-  // (data-keeps-draft: the reading form, which names its draft's key there as it is sent) is held by that name.
+  // saying so; any other page drops it (saved, or refused and shown again with what was sent). A form with a
+  // draft of its own (data-keeps-draft: the reading form, which names its draft's key there as it is sent) is
+  // held by that name.
   const SENT = "form-sent";
   const here = location.pathname + location.search;
   let sent = null;
