@@ -421,11 +421,16 @@ def test_a_saved_page_sent_again_with_other_values_is_not_silently_dropped(clien
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [3.91, 3.95]
 
 
-def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administrator, fan_fitted_capacitor):
+def _admin_adding_readings(client, administrator) -> None:
+    """Signed in to the admin as an administrator who may add readings there."""
     from django.contrib.auth.models import Permission
 
     administrator.user_permissions.add(Permission.objects.get(codename="add_reading"))
     client.force_login(administrator)
+
+
+def test_a_reading_added_in_the_admin_passes_the_same_rulebook(client, administrator, fan_fitted_capacitor):
+    _admin_adding_readings(client, administrator)
     data = {
         "fitted_capacitor": fan_fitted_capacitor.id,
         "taken_at_0": "2024-03-01",
@@ -652,13 +657,10 @@ def test_a_reading_added_in_the_admin_is_read_in_its_sites_time(client, administ
     it in the site's, so a reading typed at a site six hours off UTC was stored six hours off. [ours] the admin reads
     the site's wall-clock time by the form's rule. America/Chicago is UTC-6 on 2024-03-01 and skips 02:00-03:00 on
     2024-03-10 (the tz database, IANA)."""
-    from django.contrib.auth.models import Permission
-
     site = fan_fitted_capacitor.motor.site
     site.time_zone = "America/Chicago"
     site.save()
-    administrator.user_permissions.add(Permission.objects.get(codename="add_reading"))
-    client.force_login(administrator)
+    _admin_adding_readings(client, administrator)
     data = {
         "fitted_capacitor": fan_fitted_capacitor.id,
         "taken_at_0": "2024-03-10",
