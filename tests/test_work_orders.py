@@ -1544,3 +1544,37 @@ def test_issuing_or_planning_from_one_sites_list_comes_back_to_that_sites_list(c
     assert planned.redirect_chain == [(address, 302)]
     page = planned.content.decode()
     assert re.findall(r'<details class="card visit"[^>]*>\s*<summary><h2>(\w+)', page) == ["WOD"]
+
+
+def test_planning_from_one_sites_list_plans_that_site_alone(client, planner):
+    """Left from a walk: "Create work orders from the plan" on a list kept to one site planned every site, and the
+    note beside it counted every site's "replace now" capacitors without an order. [ours] on one site's list the
+    button, its note and its message keep to that site; on every site's list it plans every site."""
+    soon = timezone.localdate() + dt.timedelta(days=3)
+    here, there = make_site(code="PLA"), make_site(code="PLB")
+    mine = _due(here, soon, 2)
+    theirs = _due(there, soon, 3)
+    Assessment.objects.filter(fitted_capacitor__in=mine + theirs, is_current=True).update(risk="replace now")
+    client.force_login(planner)
+    address = reverse("work_orders") + "?site=PLA"
+    page = client.get(address).content.decode()
+    note = page[page.index('id="replace-now-unordered"') :].split("</div>")[0]
+    assert "2 capacitors to replace now at PLA have no work order." in note
+    assert f'action="{address}"' in note and "Create work orders from the plan at PLA" in note
+    assert "only PLA is planned" in page
+    planned = client.post(address, {"action": "plan", "days": "30"}, follow=True)
+    assert set(WorkOrder.objects.values_list("site__code", flat=True)) == {"PLA"}
+    said = html.unescape(planned.content.decode())
+    assert "2 work orders created and 0 re-dated, in 1 site visit (PLA " in said
+    assert "1 open site visit at PLA." in said
+    client.post(reverse("work_orders"), {"action": "plan", "days": "30"})
+    assert WorkOrder.objects.filter(site=there).count() == 3
+
+
+def test_a_visit_sheet_leads_back_to_its_sites_work_orders(client, planner):
+    """Left from a walk: a visit sheet's "Work orders" link went to every site's list. [ours] it goes to its site's."""
+    day = timezone.localdate() + dt.timedelta(days=10)
+    _friday_visit(make_site(code="BKA"), day, count=1)
+    client.force_login(planner)
+    sheet = client.get(reverse("visit_sheet", args=["BKA", day.isoformat()])).content.decode()
+    assert f'href="{reverse("work_orders")}?site=BKA">&larr; Work orders at BKA</a>' in sheet

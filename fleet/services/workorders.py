@@ -49,7 +49,12 @@ CAPACITOR_KINDS = [*KIND_FOR_ROLE.values(), WorkOrder.Kind.READ_AGAIN]
 
 
 def plan_work_orders(
-    *, horizon_days: int = PLAN_DEFAULT_DAYS, window_days: int = 14, user=None, today: dt.date | None = None
+    *,
+    horizon_days: int = PLAN_DEFAULT_DAYS,
+    window_days: int = 14,
+    user=None,
+    site: Site | None = None,
+    today: dt.date | None = None,
 ) -> dict:
     """Create planned orders for capacitors to replace within the horizon.
 
@@ -59,7 +64,7 @@ def plan_work_orders(
     are bundled into site visits (one trip per site per window; a motor's two capacitors on one visit where the
     second falls due within `PlanningSettings.same_motor_days` of the first) and dated on their visit's day;
     overdue ones on today. Issued orders are left as they are. Only the sites `user` works at are planned
-    (None: every site).
+    (None: every site), and of those only `site` where one is given (the work-orders list kept to one site).
 
     The planner's decisions hold: a visit the planner moved (`move_visit`) stays moved, every order the
     plan dates on the day it was moved from (new ones too) goes on the day it was moved to, unless that day
@@ -74,8 +79,9 @@ def plan_work_orders(
     `kept_moved`, orders put on a moved visit's day.
     """
     today = today or timezone.localdate()
+    due_now = due_within(horizon_days, user, today)
     due = list(
-        due_within(horizon_days, user, today).values_list(
+        (due_now if site is None else due_now.filter(site=site)).values_list(
             "fitted_capacitor_id",
             "fitted_capacitor__motor_id",
             "fitted_capacitor__motor__site_id",
@@ -176,7 +182,9 @@ def plan_work_orders(
             counts["visit_names"] = [
                 f"{codes[site]} {day:%a %Y-%m-%d}" for day, site in sorted((d, s) for s, d in touched)
             ]
-    counts["open_visits"] = open_orders(user).values("due_on", "site_id").distinct().count()
+    listed = open_orders(user) if site is None else open_orders(user).filter(site=site)
+    counts["open_visits"] = listed.values("due_on", "site_id").distinct().count()
+    counts["site_code"] = None if site is None else site.code
     return counts
 
 
@@ -706,9 +714,10 @@ class ReplaceNowUnordered:
     horizon_days: int = PLAN_DEFAULT_DAYS  # the reach the page's button plans with
 
 
-def replace_now_without_order(user=None, today: dt.date | None = None) -> ReplaceNowUnordered:
-    """Capacitors in service at the user's sites whose current plan says "replace now" and that have no open work
-    order: the work-orders page and the dashboard say how many, beside the button that orders them. Those whose
+def replace_now_without_order(user=None, today: dt.date | None = None, site: Site | None = None) -> ReplaceNowUnordered:
+    """Capacitors in service at the user's sites (at `site` alone where one is given) whose current plan says
+    "replace now" and that have no open work order: the work-orders page and the dashboard say how many, beside
+    the button that orders them. Those whose
     order the planner cancelled, which the plan does not order again (`plan_work_orders`), are counted apart, so
     the note goes once the button has done what it can. Counted in SQL over the current assessments (an EXISTS on
     the open orders' unique index a row); only those with an order cancelled within a visit window's reach are read
@@ -722,9 +731,8 @@ def replace_now_without_order(user=None, today: dt.date | None = None) -> Replac
         kind__in=CAPACITOR_KINDS,
         due_on__gte=today - dt.timedelta(days=WORK_ORDER_MAX_WINDOW_DAYS),  # as `_cancelled_orders` reads them
     )
-    unordered = (
-        in_service_assessments(user).filter(risk=Assessment.Risk.REPLACE_NOW).exclude(Exists(open_order)).order_by()
-    )
+    in_service = in_service_assessments(user) if site is None else in_service_assessments(user).filter(site=site)
+    unordered = in_service.filter(risk=Assessment.Risk.REPLACE_NOW).exclude(Exists(open_order)).order_by()
     with_cancelled = list(
         unordered.filter(Exists(recently_cancelled))
         .annotate(motor_first_by=motor_first_replace_by("fitted_capacitor__motor_id"))

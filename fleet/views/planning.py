@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+from urllib.parse import urlencode
 
 from django.contrib import messages
 from django.core.exceptions import ValidationError
@@ -123,7 +124,9 @@ def work_orders(request):
             if problems:  # the page again, the box holding what was typed beside the message
                 messages.error(request, f"No work orders planned: {problems_text(problems)}.")
                 return _work_orders_page(request, plan_days=request.POST.get("days", ""), status=400)
-            messages.success(request, plan_message(plan_work_orders(horizon_days=horizon, user=request.user)))
+            site = page_values(WorkOrdersParameters, request).get("site")  # the list's one site, or every site
+            counts = plan_work_orders(horizon_days=horizon, user=request.user, site=site)
+            messages.success(request, plan_message(counts))
         elif action == "issue":
             try:
                 day = dt.date.fromisoformat(request.POST.get("day", ""))
@@ -165,7 +168,7 @@ def _work_orders_page(request, plan_days: str = str(PLAN_DEFAULT_DAYS), status: 
             "sites": scope_to_user(Site.objects.all(), request.user),
             "all_sites_label": "All sites" if visible_site_ids(request.user) is None else "All your sites",
             "cancelled_days": CANCELLED_SHOWN_DAYS,
-            "replace_now_unordered": replace_now_without_order(request.user),
+            "replace_now_unordered": replace_now_without_order(request.user, site=site),
             "plan_days": plan_days,
         },
         status=status,
@@ -177,7 +180,8 @@ PLAN_VISITS_NAMED = 4  # the plan's message names this many of the visits it wro
 
 def plan_message(counts: dict) -> str:
     """What a plan did, in words that agree with the work-orders page: the visits its new and re-dated
-    orders are in, then every open visit the page lists; the planner's cancellations and moves it kept."""
+    orders are in, then every open visit the page lists (at its one site, where it keeps to one); the
+    planner's cancellations and moves it kept."""
     created, replanned, touched, listed = (counts[k] for k in ("created", "replanned", "visits", "open_visits"))
     if created or replanned:
         names = counts.get("visit_names", [])
@@ -190,7 +194,8 @@ def plan_message(counts: dict) -> str:
         )
     else:
         done = "No work orders created or re-dated"
-    words = [f"{done}; {listed} open site visit{pluralize(listed)} in all."]
+    where = "in all" if counts.get("site_code") is None else f"at {counts['site_code']}"
+    words = [f"{done}; {listed} open site visit{pluralize(listed)} {where}."]
     if counts["kept_cancelled"]:
         n = counts["kept_cancelled"]
         words.append(f"{n} order{pluralize(n)} you cancelled not created again (the plan asks the same in that visit).")
@@ -226,7 +231,7 @@ def visit_sheet(request, site, day):
                     moved = visit_moved_to(site.id, day, user=request.user)  # moved elsewhere meanwhile: its page
                     if moved is not None:
                         return redirect("visit_sheet", site_code=site.code, day=moved.to_day.isoformat())
-                    return redirect("work_orders")
+                    return redirect(f"{reverse('work_orders')}?{urlencode({'site': site.code})}")
                 move_form.add_error("to_day", error.message_dict["to_day"])
             else:
                 if move.already:  # sent twice: the first one moved it
