@@ -120,6 +120,20 @@ def test_a_refused_page_is_logged_in_one_line_without_a_traceback(client, caplog
     assert "/reading/" in records[0].getMessage()
 
 
+@pytest.mark.django_db
+def test_a_body_the_server_cannot_read_is_a_400_logged_in_one_line(client, caplog):
+    """A fuzz: a form posted as multipart with no boundary got Django's 400, and the log a traceback, as if the
+    server had failed. [ours] the sender's fault, logged in one line naming the page, as a refusal is."""
+    import logging
+
+    with caplog.at_level(logging.WARNING, logger="django.request"):
+        response = client.generic("POST", reverse("login"), b"--x\r\n", content_type="multipart/form-data")
+    assert response.status_code == 400
+    records = [r for r in caplog.records if r.name == "django.request"]
+    assert records and all(r.exc_info is None for r in records)
+    assert "/login/" in records[0].getMessage()
+
+
 def test_a_database_busy_past_its_timeout_is_said_as_busy_not_unreachable():
     """A helper's walk on the embedded default: a reading saved while a large import wrote on SQLite waited past
     the busy timeout and the page said the database "cannot be reached". [derived] a 503 that says the database is
