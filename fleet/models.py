@@ -26,6 +26,7 @@ from fleet.engineering.drift import CAPACITOR_START, LIMIT_NAMES, PERMANENT_SPLI
 from fleet.engineering.motor import LOAD_TYPE_CONSTANT, LOAD_TYPE_FAN_LAW
 from fleet.engineering.planning import (
     DISSIPATION_LIMIT,
+    PATH_BELOW_REASON,
     RISK_DUE_SOON,
     RISK_REPLACE_NOW,
     RISK_SOUND,
@@ -1016,6 +1017,14 @@ class Assessment(models.Model):
     @property
     def has_trend(self) -> bool:
         return self.trend_intercept is not None
+
+    @property
+    def few_readings_matter(self) -> bool:
+        """Few readings, and the risk rests on the trend they give (not on a reading below, a defect, an open
+        circuit): the lists say "few readings" beside it."""
+        return self.low_confidence and (
+            self.risk != RISK_REPLACE_NOW or (self.reason or "").startswith(PATH_BELOW_REASON)
+        )
 
 
 class PartPrior(models.Model):

@@ -20,7 +20,7 @@ from django.utils.html import strip_tags
 from fleet.models import Assessment, FittedCapacitor, PartLifeFit, Reading, SiteMembership
 from fleet.services import pages
 from fleet.services.readings import stored_client_key
-from fleet.templatetags.fleet_format import day, verdict_and_risk
+from fleet.templatetags.fleet_format import day, percent_to_a_tenth, verdict_and_risk
 from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, stored_assessment
 
 from .test_rules import api_for, form_post, import_check, import_row
@@ -534,6 +534,12 @@ def _assessment(**fields):
     return Assessment(**values)
 
 
+def test_a_limits_share_of_rated_is_written_to_a_tenth():
+    """An audit: "tolerance at 90 % of rated" beside an 88.00 µF limit of a 98 µF part (-10.2 %). [ours]"""
+    assert percent_to_a_tenth(88.0 / 98.0) == "89.8\u00a0%"
+    assert percent_to_a_tenth(0.9) == "90\u00a0%" and percent_to_a_tenth(None) == "-"
+
+
 def test_a_green_verdict_beside_a_red_risk_is_explained():
     words = verdict_and_risk(_assessment(reason="latest reading, referred to 25 °C, 129.8 µF: below the limit"))
     assert words.startswith("As measured, the last reading is within the marked tolerance; the plan still says")
@@ -541,6 +547,17 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
     torque = verdict_and_risk(_assessment(risk="due soon", limit_source="starting torque", limit_fraction=0.85))
     assert "starting torque limit, crossed at 85 % of the rated capacitance" in torque
     assert "dissipation factor" in verdict_and_risk(_assessment(limit_source="dissipation factor"))
+    # An audit: a reading whose ESR gave a dissipation factor over the part's maximum (the tolerance still
+    # governing the dates) was said to be judged "referred to 25 °C and their trend". [ours]
+    over = verdict_and_risk(_assessment(reason="dissipation factor 12.4 %, above the part's 10.0 % maximum"))
+    assert "because its dissipation factor, worked out from the ESR read, is above the part's maximum" in over
+    assert "25 °C" not in over
+    # An audit: "Latest: below tolerance" beside "due soon" went unexplained, and "within tolerance" beside "due
+    # soon" was said to be judged "not one reading as measured", where the trend alone makes it due. [ours]
+    soon = verdict_and_risk(_assessment(latest_verdict="below tolerance", risk="due soon"))
+    assert "the plan says due soon, not replace now, because, referred to 25 °C" in soon
+    ahead = verdict_and_risk(_assessment(risk="due soon"))
+    assert "because its trend, referred to 25 °C, reaches the limit soon" in ahead
     relaxed = verdict_and_risk(_assessment(latest_verdict="below tolerance", risk="watch"))
     assert "below tolerance" in relaxed and relaxed.endswith("Read it again to confirm.")
     assert verdict_and_risk(_assessment(latest_verdict="below tolerance")) == ""
@@ -561,6 +578,18 @@ def test_the_capacitor_page_reconciles_verdict_and_risk_once(client, engineer, f
     assert "Latest reading as measured, against the marking" not in page
     assert page.lower().count("trend reaches the limit") == 1
     assert "a straight fit can be drawn curving" in page  # why a "linear" trend's chart bends ahead
+
+
+def test_the_capacitor_page_marks_a_crossing_date_that_has_passed(client, engineer, fan_fitted_capacitor):
+    """An audit: the capacitor page wrote the early crossing 2026-11-17 as a date to come, beside the plan row's
+    "2026-11-17, past". [ours] the same words on both."""
+    today = timezone.localdate()
+    assessment = stored_assessment(fan_fitted_capacitor, "due soon", today + dt.timedelta(days=7))
+    p10, p50, p90 = (today + dt.timedelta(days=n) for n in (-18, 20, 200))
+    Assessment.objects.filter(pk=assessment.pk).update(p10_on=p10, p50_on=p50, p90_on=p90)
+    client.force_login(engineer)
+    page = strip_tags(client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode())
+    assert f"{p10.isoformat()}, past / {p50.isoformat()} / {p90.isoformat()}" in page
 
 
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(

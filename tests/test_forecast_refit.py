@@ -90,7 +90,7 @@ def test_every_assessment_lists_the_tolerance_limit_with_dates_and_says_why(engi
     assert tolerance[0]["fraction_of_rated"] == pytest.approx(0.95)
     assert set(tolerance[0]) >= {"name", "fraction_of_rated", "p10_on", "p50_on", "p90_on"}
     assert tolerance[0]["p10_on"] <= tolerance[0]["p50_on"] <= tolerance[0]["p90_on"]
-    assert item["reason"].startswith(("trend reaches", "trend may", "trend carried", "latest reading", "fitted trend"))
+    assert item["reason"].startswith(("trend reaches", "trend may", "the trend has", "latest reading", "fitted trend"))
 
 
 @pytest.mark.django_db

@@ -383,7 +383,8 @@ def test_risk_changes_read_the_risk_history_each_refit_carries():
     first = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     _, better, counts = risk_changes(days=7)
     assert (list(better), counts) == ([], {"worse": 0, "better": 0, "first_assessed": 1})
-    Assessment.objects.filter(pk=first.pk).update(risk_changed_at=timezone.now() - dt.timedelta(days=10))
+    ten_days_ago = timezone.now() - dt.timedelta(days=10)
+    Assessment.objects.filter(pk=first.pk).update(risk_changed_at=ten_days_ago, created_at=ten_days_ago)
     assert risk_changes(days=7)[2] == {"worse": 0, "better": 0, "first_assessed": 0}  # nothing moved this week
     quarterly_readings(fitted_capacitor, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
     refit_fitted_capacitors([fitted_capacitor.id])
@@ -396,6 +397,29 @@ def test_risk_changes_read_the_risk_history_each_refit_carries():
     again = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     assert again.pk != worse[0].pk
     assert (again.risk_was, again.risk_changed_at) == (first.risk, worse[0].risk_changed_at)
+
+
+def test_a_level_that_changed_and_changed_back_within_the_week_has_not_changed(settings):
+    """An audit: a capacitor sound a week ago, judged watch after one reading and sound again after the next, was
+    listed as "less risky: watch to sound" (the level before its latest change). [ours] the plan's and the
+    dashboard's changes set each capacitor against its level at the window's start, read from the assessments
+    kept (`FLEET_ASSESSMENT_HISTORY_DAYS`); where they do not reach back so far, the level before the latest
+    change stands in."""
+    from fleet.services.pages import risk_changes
+
+    fitted_capacitor = make_fitted_capacitor()
+    ten_days_ago = timezone.now() - dt.timedelta(days=10)
+    week_old = stored_assessment(fitted_capacitor, "sound", None)
+    Assessment.objects.filter(pk=week_old.pk).update(created_at=ten_days_ago, risk_changed_at=ten_days_ago)
+    stored_assessment(fitted_capacitor, "watch", None)
+    worse, better, counts = risk_changes(days=7)
+    assert counts == {"worse": 1, "better": 0, "first_assessed": 0} and [a.risk_then for a in worse] == ["sound"]
+    stored_assessment(fitted_capacitor, "sound", None)
+    worse, better, counts = risk_changes(days=7)
+    assert counts == {"worse": 0, "better": 0, "first_assessed": 0} and list(worse) == list(better) == []
+    settings.FLEET_ASSESSMENT_HISTORY_DAYS = 3  # the week's start no longer kept: the level before the change
+    worse, better, counts = risk_changes(days=7)
+    assert counts["better"] == 1 and [a.risk_then for a in better] == ["watch"]
 
 
 def test_a_reading_with_winding_currents_refines_the_motors_circuit():

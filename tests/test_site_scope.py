@@ -79,8 +79,10 @@ def test_plan_page_lists_spares_risks_and_sites_of_the_users_sites_only(client, 
 
 
 def test_the_plans_risk_changes_list_the_users_sites_only(client, here_and_there):
-    for fitted_capacitor in here_and_there.values():  # each was sound, then a refit found it worn
-        Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True).update(risk="sound")
+    week_ago = timezone.now() - dt.timedelta(days=8)
+    for fitted_capacitor in here_and_there.values():  # each was sound a week ago, then a refit found it worn
+        current = Assessment.objects.filter(fitted_capacitor=fitted_capacitor, is_current=True)
+        current.update(risk="sound", created_at=week_ago)
         refit_fitted_capacitors([fitted_capacitor.id], force=True)
     mine = here_and_there["HERE"]
     client.force_login(limited(PLANNER, mine.motor.site))

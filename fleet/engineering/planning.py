@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .drift import EstimateResolution
-from .rules import ACCEPTED_DAYS_WORDS, FIRST_ACCEPTED_DAY
+from .rules import ACCEPTED_DAYS_WORDS, FIRST_ACCEPTED_DAY, decimals_to_tell_apart, fixed_decimals
 
 RISK_REPLACE_NOW = "replace now"
 RISK_DUE_SOON = "due soon"
@@ -134,6 +134,7 @@ def _holidays(days_off) -> np.ndarray:
 
 ALERT_LEVELS = (0.1, 0.2, 0.3, 0.4, 0.5)
 EVIDENCE_NONE, EVIDENCE_DEFECT, EVIDENCE_OPEN_OR_SHORT, EVIDENCE_BELOW, EVIDENCE_DF, EVIDENCE_PATH = range(6)
+PATH_BELOW_REASON = "fitted trend is already below "  # then the limit: "replace now" on the fitted path itself
 EVIDENCE_OVERLOAD = 6  # a part fitted against the advice overloads the motor now (`drift.overloaded_by_the_part`)
 
 
@@ -239,7 +240,9 @@ def judge(
     The governing limit is the highest fraction (a falling capacitance meets it
     first). "Replace now" needs evidence: a defect seen, an open or short
     circuit, a reading below the governing limit, a dissipation factor over its
-    maximum, or the fitted path (P50) already past the limit. The crossing at the
+    maximum, or the fitted path already below the limit today; a crossing that only
+    the forecast puts after the newest reading is a question for a reading
+    (`read_again`), not evidence, whatever quantile the risk rule flags on. The crossing at the
     alert quantile (P10, or the back-tested one) within a quarter is "due soon",
     within a year "watch", else "sound"; the same crossing dates the replacement
     (`lead_days` before it), so the risk level and the replace-by date follow
@@ -268,7 +271,9 @@ def judge(
     # a part too small is said as the limit it breaches, the more telling reason.
     outranked = [EVIDENCE_NONE, EVIDENCE_OVERLOAD]
     evidence = np.where(np.isin(evidence, outranked) & below, EVIDENCE_BELOW, evidence)
-    path_past = (days[1] <= 0) | (np.asarray(fraction_now, float) < limit)
+    # The fitted path itself below the limit is evidence; a crossing the forecast only projects past since the
+    # newest reading is not: it asks for the capacitor to be read again (`read_again`), which settles it.
+    path_past = np.asarray(fraction_now, float) < limit
     evidence = np.where(np.isin(evidence, outranked) & path_past, EVIDENCE_PATH, evidence)
     wear_first = np.zeros(n, bool)
     if wear_days is not None:
@@ -296,9 +301,11 @@ def judge(
         [0.0, np.clip(planned, settings.notice_days, settings.below_limit_days), planned],
         default=np.inf,
     )
-    limit_uf = pd.Series(limit * np.asarray(rated_uf, float)).map("{:.2f}".format).to_numpy(object)
+    # Reading and limit with the decimals that tell them apart: "189.069 µF: below ... (189.072 µF)".
+    places = decimals_to_tell_apart(latest_uf, limit * np.asarray(rated_uf, float))
+    limit_uf = fixed_decimals(limit * np.asarray(rated_uf, float), places)
     limit_name = np.where(governing >= 0, names[safe], "")
-    latest = pd.Series(np.asarray(latest_uf, float)).map("{:.2f}".format).to_numpy(object)
+    latest = fixed_decimals(latest_uf, places)
     limit_words = "the " + limit_name + " limit (" + limit_uf + " \u00b5F)"
     if wear_days is not None:
         limit_words = np.where(wear_first, np.asarray(wear_words, dtype=object), limit_words)
@@ -344,14 +351,15 @@ def judge(
         ],
         # The early crossing has passed and the likely one is ahead: said as such (a walk read "may already have
         # reached ... (likely 2027-01)": a future date for what was said to have perhaps happened).
-        default="the trend's early crossing of "
-        + limit_words
-        + " has passed (likely crossing "
+        default=np.where(
+            days[1] <= 0,
+            "the trend has likely crossed " + limit_words + " since the newest reading (likely ",
+            "the trend's early crossing of " + limit_words + " has passed (likely crossing ",
+        )
         + likely
         + np.where(late != "", ", at the latest " + late, "")
         + "): read it again",
     )
-    carried = np.asarray(fraction_now, float) >= limit
     # A limit that governs at the part's own rating (only a part fitted against the advice keeps such a limit:
     # `drift.judge_limits`) is breached by the part itself, new or worn: said as such, not as wear.
     rated_words = pd.Series(np.asarray(rated_uf, float)).map("{:.2f}".format).to_numpy(object)
@@ -377,11 +385,7 @@ def judge(
             + " limit on the motor model: fitted against the advice, it does not suit this motor; fit the design"
             " part",
             "latest reading, referred to 25 \u00b0C, " + latest + " \u00b5F: below " + limit_words,
-            np.where(
-                carried,
-                "trend carried forward from the last reading has likely passed " + limit_words + " by now",
-                "fitted trend is already below " + limit_words,
-            ),
+            PATH_BELOW_REASON + limit_words,
             "no limit could be evaluated",
             settled,
             between,

@@ -256,6 +256,31 @@ def microfarad_text(value) -> str:
     return f"{value:.2f}" if value == 0 or not np.isfinite(value) or abs(value) >= 0.005 else plain_number(value)
 
 
+def decimals_to_tell_apart(value, limit, fewest: int = 2, most: int = 4) -> np.ndarray:
+    """Decimals to write each value and its limit with (`fewest` to `most`): where two decimals show them equal
+    but they differ ("189.07 against a 189.07 limit", judged below), one more at a time until they do not. Compared
+    as written, so the rounding is the text's own."""
+    value, limit = np.broadcast_arrays(np.asarray(value, float), np.asarray(limit, float))
+    places = np.full(value.shape, fewest)
+    with np.errstate(invalid="ignore"):
+        differ = np.isfinite(value) & np.isfinite(limit) & (value != limit)
+    for k in range(fewest, most):
+        asked = np.flatnonzero(differ & (places == k))
+        same = np.array([f"{value.flat[i]:.{k}f}" == f"{limit.flat[i]:.{k}f}" for i in asked], bool)
+        if same.any():
+            places.flat[asked[same]] = k + 1
+    return places
+
+
+def fixed_decimals(values, places) -> np.ndarray:
+    """Each value written with its own number of decimals (`decimals_to_tell_apart`), as text."""
+    values = np.asarray(values, float)
+    places = np.broadcast_to(np.asarray(places, int), values.shape)
+    return np.array([f"{v:.{k}f}" for v, k in zip(values.ravel(), places.ravel(), strict=True)], dtype=object).reshape(
+        values.shape
+    )
+
+
 def reading_time_text(local) -> str:
     """When a reading was taken (a datetime in the site's time), as the pages write it: to the minute
     ("2026-11-02 09:15"), as the form's time box shows it, whatever seconds the reading was stored with (the form

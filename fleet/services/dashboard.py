@@ -52,6 +52,7 @@ from fleet.services.pages import (
     reading_status,
     replace_by_until,
     risk_changes,
+    with_level_then,
 )
 from fleet.services.substitutes import count_design_parts
 from fleet.services.workorders import replace_now_without_order
@@ -320,9 +321,9 @@ def changes_since(days: int = 7, user=None, limit: int = 10, ledger: InServiceCo
     run, capacitors reassessed and how their risk level moved, replacements; the riskier ones with the
     reason and the governing limit they had before.
 
-    Read from each current assessment's stored risk history (`risk_was`, `risk_changed_at`, as the
-    plan's list of changes): a capacitor whose level changed within the window moved from
-    `risk_was`, whatever it was judged in between; reassessed but not changed, it stayed at its level.
+    Read as the plan's list of changes (`pages.risk_changes`): a capacitor whose level changed within the
+    window is set against its level and governing limit at the window's start (`pages.with_level_then`);
+    reassessed but not changed, or changed and back, it stayed at its level.
     """
     # From the start of a UTC day, as the ledger of counts dates assessments (reassessed: summed there).
     since_day = timezone.now().astimezone(dt.UTC).date() - dt.timedelta(days=days)
@@ -332,13 +333,12 @@ def changes_since(days: int = 7, user=None, limit: int = 10, ledger: InServiceCo
     refit_runs = RefitRun.objects.filter(started_at__gte=since).count()
     reassessed = (in_service_counts(user) if ledger is None else ledger).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
-    worse = list(worse.annotate(previous_limit=F("limit_was")))
-    # Among the capacitors whose level changed only; each stores the limit that governed before the change.
+    worse = list(worse.annotate(previous_limit=F("limit_then")))
+    # Among the capacitors whose level changed only: the limit that governed at the window's start.
     limit_changed = (
-        in_service_assessments(user)
-        .filter(risk_changed_at__gte=since)
-        .exclude(risk_was="")
-        .exclude(limit_was=F("limit_source"))
+        with_level_then(in_service_assessments(user).filter(risk_changed_at__gte=since), since)
+        .exclude(risk_then="")
+        .exclude(limit_then=F("limit_source"))
         .count()
     )
     moves = {

@@ -117,11 +117,16 @@ def tolerance_life(part_id: int) -> dict | None:
     stored = PartToleranceLife.objects.filter(part_id=part_id).first()
     if stored is None:
         return None
-    life = {"left": stored.left_tolerance, "within": stored.still_within, "no_fit_reason": stored.no_fit_reason}
+    life = {
+        "left": stored.left_tolerance,
+        "within": stored.still_within,
+        "no_fit_reason": stored.no_fit_reason,
+        "fitted_at": stored.fitted_at,
+    }
     if stored.beta is None:
         return life | {"fit": None}
     fit = WeibullFit(stored.beta, stored.eta_years, stored.left_tolerance, stored.still_within, np.full((2, 2), np.nan))
-    return life | {"fit": fit, "median": fit.b_life(0.5), "b10": fit.b_life(0.1), "fitted_at": stored.fitted_at}
+    return life | {"fit": fit, "median": fit.b_life(0.5), "b10": fit.b_life(0.1)}
 
 
 PLOT_POINTS = 400  # the Weibull plot's points kept per part: every failure up to this many, evenly spread beyond

@@ -9,6 +9,7 @@ from collections import Counter, defaultdict
 
 import numpy as np
 import pandas as pd
+from django.conf import settings
 from django.db.models import (
     BooleanField,
     Case,
@@ -683,15 +684,44 @@ def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
 
 
-def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime | None = None, site: Site | None = None):
-    """Capacitors in service (at the user's sites; at `site` alone when given) whose risk level changed in
-    the last `days`, read from each current assessment's stored risk history: (worse, better, counts) with
-    at most `limit` of each, soonest replacement first, and counts {"worse", "better", "first_assessed"}
-    of all of them.
+def _before(since: dt.datetime, field: str, outer: str = "fitted_capacitor_id"):
+    """A capacitor's `field` in its newest assessment made before `since` (NULL: none was)."""
+    return Subquery(
+        Assessment.objects.filter(fitted_capacitor_id=OuterRef(outer), created_at__lt=since)
+        .order_by("-created_at")
+        .values(field)[:1]
+    )
 
-    worse and better are querysets, read when used (the plan shows the riskier ones only): each
-    picks its `limit` rows from the assessments alone, then joins motors and parts for those.
-    A capacitor first assessed in the window has no level to compare with: it is counted apart.
+
+def _history_reaches(since: dt.datetime) -> bool:
+    """Whether the superseded assessments kept (FLEET_ASSESSMENT_HISTORY_DAYS) reach back to `since`."""
+    days = settings.FLEET_ASSESSMENT_HISTORY_DAYS
+    return days <= 0 or timezone.now() - dt.timedelta(days=days) <= since
+
+
+def with_level_then(assessments, since: dt.datetime):
+    """Each assessment with `risk_then` and `limit_then`: its capacitor's risk level and governing limit as they
+    stood at `since` (its newest assessment made before then; "" where it had none: first assessed since). Where
+    the history kept does not reach back that far, the level before the latest change (`risk_was`) stands in."""
+    if _history_reaches(since):
+        return assessments.annotate(
+            risk_then=Coalesce(_before(since, "risk"), Value("")),
+            limit_then=Coalesce(_before(since, "limit_source"), Value("")),
+        )
+    return assessments.annotate(risk_then=F("risk_was"), limit_then=Coalesce(F("limit_was"), Value("")))
+
+
+def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime | None = None, site: Site | None = None):
+    """Capacitors in service (at the user's sites; at `site` alone when given) whose risk level is not what it was
+    `days` ago (`since`): (worse, better, counts) with at most `limit` of each, soonest replacement first, and
+    counts {"worse", "better", "first_assessed"} of all of them.
+
+    Only a capacitor whose level changed in the window (`risk_changed_at`, indexed) can differ; it is set against
+    its level at the window's start (`with_level_then`), so one that went from sound to watch and back within the
+    week has not changed (an audit found it listed as "less risky: watch to sound"). worse and better are
+    querysets, read when used (the plan shows the riskier ones only): each picks its `limit` rows from the
+    assessments alone, then joins motors and parts for those. A capacitor first assessed in the window has no level
+    to compare with: it is counted apart.
     """
     since = since or timezone.now() - dt.timedelta(days=days)
     recent = in_service_assessments(user).filter(risk_changed_at__gte=since)
@@ -699,34 +729,36 @@ def risk_changes(days: int = 7, limit: int = 50, user=None, since: dt.datetime |
         recent = recent.filter(site=site)
     rank = {risk: position for position, risk in enumerate(RISK_ORDER)}
     rank_now = Case(*[When(risk=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
-    rank_was = Case(*[When(risk_was=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
-    ranked = recent.annotate(rank_now=rank_now, rank_was=rank_was)
+    rank_then = Case(*[When(risk_then=r, then=Value(n)) for r, n in rank.items()], default=Value(len(rank)))
+    ranked = with_level_then(recent, since).annotate(rank_now=rank_now, rank_then=rank_then)
     counts = ranked.aggregate(
-        worse=Count("id", filter=~Q(risk_was="") & Q(rank_now__lt=F("rank_was"))),
-        better=Count("id", filter=~Q(risk_was="") & Q(rank_now__gt=F("rank_was"))),
-        first_assessed=Count("id", filter=Q(risk_was="")),
+        worse=Count("id", filter=~Q(risk_then="") & Q(rank_now__lt=F("rank_then"))),
+        better=Count("id", filter=~Q(risk_then="") & Q(rank_now__gt=F("rank_then"))),
+        first_assessed=Count("id", filter=Q(risk_then="")),
     )
-    changed = ranked.exclude(risk_was="").order_by("replace_by", "fitted_capacitor_id")
+    changed = ranked.exclude(risk_then="").order_by("replace_by", "fitted_capacitor_id")
 
     def listed(direction):
         first = changed.filter(direction).values("id")[:limit]
-        return (
+        return with_level_then(
             Assessment.objects.filter(id__in=Subquery(first))
             .defer(*LIST_DEFERRED)
             .select_related("fitted_capacitor__motor__site", "fitted_capacitor__part")
-            .order_by("replace_by", "fitted_capacitor_id")
+            .order_by("replace_by", "fitted_capacitor_id"),
+            since,
         )
 
-    return listed(Q(rank_now__lt=F("rank_was"))), listed(Q(rank_now__gt=F("rank_was"))), counts
+    return listed(Q(rank_now__lt=F("rank_then"))), listed(Q(rank_now__gt=F("rank_then"))), counts
 
 
 def first_assessed_due(days: int = 7, limit: int = 50, user=None, site: Site | None = None):
-    """Capacitors in service first assessed in the last `days` whose first level already asks for work (replace
+    """Capacitors in service first assessed in the last `days` whose level already asks for work (replace
     now or due soon: a new capacitor's first reading far below its rating), soonest replacement first: (rows, how
     many). `risk_changes` only counts first assessments (there is no level to compare with): a walk found two
     new "replace now" capacitors on the plan inside that count, not listed. Two queries."""
     since = timezone.now() - dt.timedelta(days=days)
-    fresh = in_service_assessments(user).filter(risk_changed_at__gte=since, risk_was="", risk__in=RISK_ORDER[:2])
+    changed = in_service_assessments(user).filter(risk_changed_at__gte=since, risk__in=RISK_ORDER[:2])
+    fresh = with_level_then(changed, since).filter(risk_then="")
     if site is not None:
         fresh = fresh.filter(site=site)
     rows = (

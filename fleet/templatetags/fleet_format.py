@@ -34,6 +34,15 @@ def percent(share):
 
 
 @register.filter
+def percent_to_a_tenth(share):
+    """0.898 -> '89.8 %', 0.9 -> '90 %': a limit's share of rated as exactly as its microfarads are written
+    (an audit read "90 % of rated" beside an 88.00 µF limit of a 98 µF part); None -> '-'."""
+    if share is None:
+        return DASH
+    return f"{100 * share:.1f}".removesuffix(".0") + f"{NBSP}%"
+
+
+@register.filter
 def signed_percent(share):
     """0.23 -> '+23 %', -0.4 -> '-40 %' (a true minus sign); None -> '-'."""
     if share is None:
@@ -113,6 +122,8 @@ def verdict_and_risk(assessment, reason_shown_above=""):
     if within and assessment.risk in (RISK_REPLACE_NOW, RISK_DUE_SOON):
         if defect_seen(assessment):
             because = "a capacitor seen bulged, leaking or vented is replaced whatever it measures"
+        elif (assessment.reason or "").startswith(DISSIPATION_LIMIT):
+            because = "its dissipation factor, worked out from the ESR read, is above the part's maximum"
         elif assessment.limit_source == DISSIPATION_LIMIT:
             because = "its dissipation factor (from the ESR readings) reaches the part's maximum first"
         elif assessment.limit_source != TOLERANCE_LIMIT:
@@ -120,15 +131,18 @@ def verdict_and_risk(assessment, reason_shown_above=""):
                 f"the motor's {assessment.limit_source} limit, crossed at {100 * assessment.limit_fraction:.0f} % "
                 "of the rated capacitance, comes before the tolerance"
             )
+        elif assessment.risk == RISK_DUE_SOON:
+            because = "its trend, referred to 25 °C, reaches the limit soon or may have reached it since that reading"
         else:
             because = "it judges the readings referred to 25 °C and their trend, not one reading as measured"
         return (
             f"As measured, the last reading is within the marked tolerance; the plan still says "
             f"{assessment.risk} because {because}: {reason}."
         )
-    if not within and assessment.risk in (RISK_WATCH, RISK_SOUND):
+    if not within and assessment.risk in (RISK_DUE_SOON, RISK_WATCH, RISK_SOUND):
+        says = "due soon, not replace now," if assessment.risk == RISK_DUE_SOON else f"only {assessment.risk}"
         return (
-            f"As measured, the last reading is {assessment.latest_verdict}; the plan says only {assessment.risk} "
+            f"As measured, the last reading is {assessment.latest_verdict}; the plan says {says} "
             f"because, referred to 25 °C and set against the trend, it is not past the limit: {reason}. "
             "Read it again to confirm."
         )

@@ -11,7 +11,7 @@ from django import template
 from django.template.defaultfilters import floatformat
 from django.urls import reverse
 from django.utils import timezone
-from django.utils.html import format_html
+from django.utils.html import format_html, format_html_join
 from django.utils.safestring import mark_safe
 from django.utils.text import slugify
 from django.utils.timezone import template_localtime
@@ -52,6 +52,19 @@ def crossing_day(assessment, day, today=None) -> str:
     return NO_TREND if assessment.set_aside else "beyond"
 
 
+@register.filter
+def crossing_dates(assessment) -> str:
+    """Early / likely / late crossing dates as the plan's rows write each (`crossing_day`: ", past" once passed;
+    an audit read the capacitor page's 2026-11-17 as a date to come beside the plan's "2026-11-17, past")."""
+    if assessment.set_aside:
+        return NO_TREND
+    today = timezone.localdate()
+    days = (assessment.p10_on, assessment.p50_on, assessment.p90_on)
+    return format_html_join(
+        " / ", '<span class="nowrap">{}</span>', ((crossing_day(assessment, d, today),) for d in days)
+    )
+
+
 @register.simple_tag
 def plan_rows(assessments):
     """The plan table's body rows for `assessments` (with their capacitors, motors, sites and parts)."""
@@ -73,7 +86,7 @@ def plan_rows(assessments):
                 risk=a.risk,
                 replace_by=_iso(a.replace_by, "-"),
                 # A capacitor to replace now is not "forecast from similar capacitors": its evidence says why.
-                few=FEW_READINGS if a.low_confidence and a.risk != a.Risk.REPLACE_NOW else "",
+                few=FEW_READINGS if a.few_readings_matter else "",
                 capacitance=floatformat(a.capacitance_now_uf, 2),
                 limit=a.limit_source,
                 reason=nowrap_dates(a.reason or "-"),

@@ -180,14 +180,22 @@ def test_the_replacement_and_the_reading_again_follow_the_risk_rules_quantile():
     assert default.risk[0] == RISK_WATCH and default.due_days[0] == 170.0
 
 
-def test_an_early_crossing_alone_is_not_evidence_enough_to_replace_now():
+def test_a_crossing_only_projected_since_the_newest_reading_asks_for_a_reading_not_a_replacement():
     """Ours: A capacitor unread for a long time may have crossed (P10 past) while its
-    fitted path (P50) has not: read it soon, do not condemn it."""
-    result = _judge([0.0, 0.0], [300.0, 0.0])
-    assert result.risk.tolist() == [RISK_DUE_SOON, RISK_REPLACE_NOW]
-    assert result.due_days.tolist() == [7.0, 7.0]  # no defect seen: a week's notice for spares and the visit
+    fitted path (P50) has not: read it soon, do not condemn it. Nor where the forecast's likely crossing
+    (P50) has passed while the fitted path today is still above the limit (an audit: a start capacitor
+    with two readings, the newer 135.00 uF against a 129.99 uF limit, was "replace now" on its calibrated
+    path alone; the README's rule asks for a reading first). Only the fitted path itself below the limit
+    is evidence. The same week's notice either way; the read-again order replaces it if it reads below."""
+    result = _judge([0.0, 0.0, 0.0], [300.0, 0.0, 0.0], now=[0.99, 0.99, 0.93])
+    assert result.risk.tolist() == [RISK_DUE_SOON, RISK_DUE_SOON, RISK_REPLACE_NOW]
+    assert result.due_days.tolist() == [7.0, 7.0, 7.0]  # no defect seen: a week's notice for spares and the visit
+    assert result.read_again.tolist() == [True, True, False]
     assert result.reason[0].startswith("the trend's early crossing of the tolerance limit")
     assert "has passed (likely crossing " in result.reason[0] and result.reason[0].endswith("read it again")
+    assert result.reason[1].startswith("the trend has likely crossed the tolerance limit (9.40 \u00b5F) since ")
+    assert result.reason[1].endswith("read it again")
+    assert result.reason[2] == "fitted trend is already below the tolerance limit (9.40 \u00b5F)"
 
 
 def test_a_reading_since_the_early_crossing_settles_read_again():
@@ -388,3 +396,18 @@ def test_a_day_off_is_a_working_day_from_today_within_the_plans_reach():
     assert said[0].startswith("in the past") and said[1].startswith("not a working day")
     assert said[2] == "" and said[3] == "" and said[5] == ""
     assert said[4].startswith("past the plan's reach (730 days, to 2028-12-02)")
+
+
+def test_a_reading_and_its_limit_are_written_with_the_decimals_that_tell_them_apart():
+    """An audit: "latest reading, referred to 25 C, 189.07 uF: below the tolerance limit (189.07 uF)" (189.069
+    against 189.072). [ours] one more decimal at a time, up to four, where two show them equal; otherwise two."""
+    from fleet.engineering.rules import decimals_to_tell_apart, fixed_decimals
+
+    places = decimals_to_tell_apart([189.069, 28.497, 9.3, 9.4, 5.00001], [189.072, 28.4975, 9.4, 9.4, 5.0])
+    assert places.tolist() == [3, 4, 2, 2, 4]
+    assert fixed_decimals([189.069, 28.497], [3, 4]).tolist() == ["189.069", "28.4970"]
+    result = _judge([100.0], [300.0], latest=[0.93995], limits=(0.94,))
+    assert (
+        result.reason[0]
+        == "latest reading, referred to 25 \u00b0C, 9.399 \u00b5F: below the tolerance limit (9.400 \u00b5F)"
+    )

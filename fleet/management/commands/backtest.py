@@ -91,5 +91,6 @@ class Command(BaseCommand):
             }
             self.stdout.write(
                 f"risk rule {family}: flags on P{100 * (chosen or 0.1):.0f}{why.get(met, '')} "
-                f"(365-day precision/recall % by level: {tried})"
+                f"(365-day precision/recall % by level, scored on crossings clear of the meter noise, one noise "
+                f"deviation below the limit, so not the scores above, which count every reading below: {tried})"
             )
