@@ -556,6 +556,11 @@ def test_a_green_verdict_beside_a_red_risk_is_explained():
     # soon" was said to be judged "not one reading as measured", where the trend alone makes it due. [ours]
     soon = verdict_and_risk(_assessment(latest_verdict="below tolerance", risk="due soon"))
     assert "the plan says due soon, not replace now, because, referred to 25 °C" in soon
+    assert "Read it again" not in soon  # its replacement is planned already
+    from fleet.templatetags.fleet_format import microfarads_beside
+
+    assert microfarads_beside(189.069, 189.072) == "189.069" and microfarads_beside(189.1, 189.072) == "189.10"
+    assert microfarads_beside(None, 189.0) == "-" and microfarads_beside(3.91, None) == "3.91"
     ahead = verdict_and_risk(_assessment(risk="due soon"))
     assert "because its trend, referred to 25 °C, reaches the limit soon" in ahead
     relaxed = verdict_and_risk(_assessment(latest_verdict="below tolerance", risk="watch"))

@@ -177,17 +177,21 @@ ASSESSMENT_COLUMNS = [
     Column("fitted_through", DATETIME, "UTC", "Time of the newest reading used", source="fitted_through"),
     Column("model_version", description="Version of the fitting model", source="model_version"),
 ]
+
+
+def _limit_level_column(name: str) -> Column:
+    """A limit's level: a capacitance as a fraction of rated, or for the dissipation factor the part's maximum
+    (the API's `maximum`; an audit found the export's column always empty beside the API's 0.1)."""
+    if name == DISSIPATION_LIMIT:
+        return Column(f"{_slug(name)}_maximum", FLOAT, "fraction", f"{name}: the part's maximum (tan delta)")
+    return Column(f"{_slug(name)}_fraction", FLOAT, "fraction of rated", f"{name}: capacitance at which it is met")
+
+
 LIMIT_COLUMNS = [  # six per limit, from the assessment's `limits`
     column
     for name in EVERY_LIMIT
     for column in (
-        Column(
-            f"{_slug(name)}_fraction",
-            FLOAT,
-            "fraction of rated",
-            f"{name}: capacitance at which it is met"
-            + (" (always empty: a limit on the ESR readings' dissipation factor)" if name == DISSIPATION_LIMIT else ""),
-        ),
+        _limit_level_column(name),
         Column(f"{_slug(name)}_used", BOOL, description=f"{name}: used for the plan (see the note if not)"),
         Column(f"{_slug(name)}_p10_on", DATE, description=f"{name}: early date (P10)"),
         Column(f"{_slug(name)}_p50_on", DATE, description=f"{name}: likely date (P50)"),
@@ -204,7 +208,7 @@ def _limit_cells(limits: list[dict]) -> list:
     for name in EVERY_LIMIT:
         limit = by_name.get(name, {})
         cells += [
-            limit.get("fraction_of_rated"),
+            limit.get("maximum" if name == DISSIPATION_LIMIT else "fraction_of_rated"),
             limit.get("used") if limit else None,
             *(dt.date.fromisoformat(limit[key]) if limit.get(key) else None for key in ("p10_on", "p50_on", "p90_on")),
             limit.get("note") or None,

@@ -15,7 +15,7 @@ from django.utils.safestring import mark_safe
 from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
 from fleet.engineering.lifedata import age_in_words
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
-from fleet.engineering.rules import microfarad_text, reading_time_text
+from fleet.engineering.rules import decimals_to_tell_apart, microfarad_text, reading_time_text
 from fleet.services.assessments import DEFECT_REASON, DISSIPATION_LIMIT
 from fleet.services.workorders import READ_FOR_WORDS
 
@@ -75,6 +75,17 @@ def age_in_years(years):
 def microfarads(value):
     """A capacitance in µF as the pages write it (`rules.microfarad_text`): '3.95', '0.00003'; None -> '-'."""
     return DASH if value is None else microfarad_text(value)
+
+
+@register.filter
+def microfarads_beside(value, limit_uf):
+    """A reading in µF as `microfarads` writes it, with the decimals that tell it from its part's lower tolerance
+    limit where two would not (`rules.decimals_to_tell_apart`: an audit read "189.07" judged below a 189.07 µF
+    limit, the reading 189.069 µF and the limit 189.072 µF)."""
+    if value is None or limit_uf is None:
+        return microfarads(value)
+    places = int(decimals_to_tell_apart(value, limit_uf))
+    return microfarads(value) if places <= 2 else f"{float(value):.{places}f}"
 
 
 ISO_DAY = "Y-m-d"
@@ -143,8 +154,8 @@ def verdict_and_risk(assessment, reason_shown_above=""):
         says = "due soon, not replace now," if assessment.risk == RISK_DUE_SOON else f"only {assessment.risk}"
         return (
             f"As measured, the last reading is {assessment.latest_verdict}; the plan says {says} "
-            f"because, referred to 25 °C and set against the trend, it is not past the limit: {reason}. "
-            "Read it again to confirm."
+            f"because, referred to 25 °C and set against the trend, it is not past the limit: {reason}."
+            + ("" if assessment.risk == RISK_DUE_SOON else " Read it again to confirm.")
         )
     return ""
 
