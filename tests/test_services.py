@@ -382,14 +382,19 @@ def test_risk_changes_read_the_risk_history_each_refit_carries():
     refit_fitted_capacitors([fitted_capacitor.id])
     first = Assessment.objects.get(fitted_capacitor=fitted_capacitor, is_current=True)
     _, better, counts = risk_changes(days=7)
-    assert (list(better), counts) == ([], {"worse": 0, "better": 0, "first_assessed": 1})
+    assert (list(better), counts) == ([], {"worse": 0, "better": 0, "first_assessed": 1, "limit_changed": 0})
     ten_days_ago = timezone.now() - dt.timedelta(days=10)
     Assessment.objects.filter(pk=first.pk).update(risk_changed_at=ten_days_ago, created_at=ten_days_ago)
-    assert risk_changes(days=7)[2] == {"worse": 0, "better": 0, "first_assessed": 0}  # nothing moved this week
+    assert risk_changes(days=7)[2] == {
+        "worse": 0,
+        "better": 0,
+        "first_assessed": 0,
+        "limit_changed": 0,
+    }  # nothing moved this week
     quarterly_readings(fitted_capacitor, START + dt.timedelta(days=400), [3.7])  # a reading below tolerance
     refit_fitted_capacitors([fitted_capacitor.id])
     worse, better, counts = risk_changes(days=7)
-    assert counts == {"worse": 1, "better": 0, "first_assessed": 0} and list(better) == []
+    assert counts == {"worse": 1, "better": 0, "first_assessed": 0, "limit_changed": 0} and list(better) == []
     assert [a.fitted_capacitor_id for a in worse] == [fitted_capacitor.id]
     assert worse[0].risk == "replace now" and worse[0].risk_was == first.risk != "replace now"
     quarterly_readings(fitted_capacitor, START + dt.timedelta(days=430), [3.69])  # still replace now
@@ -413,10 +418,15 @@ def test_a_level_that_changed_and_changed_back_within_the_week_has_not_changed(s
     Assessment.objects.filter(pk=week_old.pk).update(created_at=ten_days_ago, risk_changed_at=ten_days_ago)
     stored_assessment(fitted_capacitor, "watch", None)
     worse, better, counts = risk_changes(days=7)
-    assert counts == {"worse": 1, "better": 0, "first_assessed": 0} and [a.risk_then for a in worse] == ["sound"]
+    assert counts == {"worse": 1, "better": 0, "first_assessed": 0, "limit_changed": 0} and [
+        a.risk_then for a in worse
+    ] == ["sound"]
     stored_assessment(fitted_capacitor, "sound", None)
     worse, better, counts = risk_changes(days=7)
-    assert counts == {"worse": 0, "better": 0, "first_assessed": 0} and list(worse) == list(better) == []
+    assert (
+        counts == {"worse": 0, "better": 0, "first_assessed": 0, "limit_changed": 0}
+        and list(worse) == list(better) == []
+    )
     settings.FLEET_ASSESSMENT_HISTORY_DAYS = 3  # the week's start no longer kept: the level before the change
     worse, better, counts = risk_changes(days=7)
     assert counts["better"] == 1 and [a.risk_then for a in better] == ["watch"]

@@ -52,7 +52,6 @@ from fleet.services.pages import (
     reading_status,
     replace_by_until,
     risk_changes,
-    with_level_then,
 )
 from fleet.services.substitutes import count_design_parts
 from fleet.services.workorders import replace_now_without_order
@@ -334,13 +333,7 @@ def changes_since(days: int = 7, user=None, limit: int = 10, ledger: InServiceCo
     reassessed = (in_service_counts(user) if ledger is None else ledger).assessed_since(since_day)
     worse, _, counts = risk_changes(days=days, limit=limit, user=user, since=since)
     worse = list(worse.annotate(previous_limit=F("limit_then")))
-    # Among the capacitors whose level changed only: the limit that governed at the window's start.
-    limit_changed = (
-        with_level_then(in_service_assessments(user).filter(risk_changed_at__gte=since), since)
-        .exclude(risk_then="")
-        .exclude(limit_then=F("limit_source"))
-        .count()
-    )
+    limit_changed = counts["limit_changed"]  # among the capacitors whose level changed only
     moves = {
         "riskier": counts["worse"],
         "less_risky": counts["better"],
