@@ -155,5 +155,10 @@ def refresh_life_fits() -> int:
 
 
 @shared_task
+def refresh_tolerance_lives() -> int:
+    return lifedata.refresh_tolerance_lives()
+
+
+@shared_task
 def send_daily_digest() -> int:
     return alerts.send_daily_digest()["emails"]

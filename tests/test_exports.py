@@ -147,7 +147,7 @@ def test_xlsx_cells_are_typed_with_a_frozen_filtered_header_and_text_kept_as_tex
     book = load_workbook(io.BytesIO(content))
     sheet = book.worksheets[0]
     assert sheet.freeze_panes == "A2"
-    assert sheet.auto_filter.ref == f"A1:X{1 + 4 * len(AWKWARD)}"
+    assert sheet.auto_filter.ref == f"A1:Y{1 + 4 * len(AWKWARD)}"
     header = [cell.value for cell in sheet[1]]
     notes = sheet.cell(row=2, column=header.index("notes") + 1)
     formula_like = [row for row in sheet.iter_rows(min_row=2) if str(row[header.index("notes")].value).startswith("=")]

@@ -804,6 +804,59 @@ def test_a_readings_export_with_a_replacement_day_reading_imported_again_adds_no
     assert Reading.objects.count() == stored + 1
 
 
+def test_a_replacement_days_reading_goes_to_the_capacitor_fitted_on_the_day_the_file_names(tmp_path):
+    """A round-trip audit: readings moved to another installation, their ids emptied (each database has its own),
+    put the new capacitor's first reading, taken on its replacement day, on the capacitor removed that day; one
+    kept with its id went to whichever capacitor had that id there. [ours] the export writes each reading's
+    `capacitor_fitted_on`, the import places the row on the capacitor of its motor and role fitted that day, and
+    refuses a row whose id names a capacitor fitted on another day, or a day no capacitor was fitted."""
+    from fleet.services.readings import replace_capacitor
+
+    migrate_all(tmp_path)  # FAN-1's site is in Europe/Madrid: 08:30 there is 06:30 UTC in June
+    old = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    new = replace_capacitor(fitted_capacitor=old, part=old.part, removed_on=dt.date(2025, 6, 2), reason="failed")
+    text = "asset_tag,role,taken_at,capacitance_uf,fitted_capacitor_id,capacitor_fitted_on\n"
+    text += "FAN-1,run,2025-06-02 15:00,8.02,,2025-06-02\n"  # the new one, by its fitting day
+    text += f"FAN-1,run,2025-06-02 08:30,6.1,,{old.fitted_on.isoformat()}\n"  # the old one, read before it came out
+    text += f"FAN-1,run,2025-06-02 16:00,8.03,{old.id},2025-06-02\n"  # an id of the other installation
+    text += "FAN-1,run,2025-06-02 16:30,8.04,,2025-06-03\n"  # no capacitor fitted that day
+    text += "FAN-1,run,2025-06-02 17:00,8.05,,02/06/2025\n"
+    report = io.StringIO()
+    call_command("import", "readings", str(write(tmp_path, "moved.csv", text)), "--good-rows-only", stdout=report)
+    said = report.getvalue()
+    assert Reading.objects.get(capacitance_uf=8.02, taken_at__date=dt.date(2025, 6, 2)).fitted_capacitor == new
+    assert Reading.objects.get(capacitance_uf=6.1, taken_at__hour=6).fitted_capacitor == old
+    assert (
+        f"row 4, fitted_capacitor_id: fitted capacitor {old.id} was fitted on {old.fitted_on.isoformat()}, the row's "
+        "capacitor_fitted_on says 2025-06-02: ids are each installation's own" in said
+    )
+    assert "row 5, capacitor_fitted_on: no run capacitor of motor FAN-1 was fitted on 2025-06-03" in said
+    assert "row 6, capacitor_fitted_on: not a date (use 2026-03-14), or empty" in said
+    assert not Reading.objects.filter(capacitance_uf__in=[8.03, 8.04, 8.05]).exists()
+
+
+def test_a_reading_stored_unconfirmed_that_a_rule_would_ask_about_imports_again_as_already_there(
+    tmp_path, client, engineer
+):
+    """A round-trip audit: three demo readings stored with a capacitor voltage over twice the motor's, unconfirmed,
+    came back from their own export refused at `capacitor_voltage_v` ("confirm"), and the command failed, though
+    each was the reading stored. [ours] a row asked to confirm that is stored already as it is counts as already
+    imported; a row asked to confirm that is new is refused as before."""
+    from tests.factories import make_reading
+
+    migrate_all(tmp_path)
+    fan = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    taken = dt.datetime(2025, 6, 2, 8, 30, tzinfo=dt.UTC)
+    make_reading(fan, taken_at=taken, capacitance_uf=7.9, capacitor_voltage_v=700.0, source="demo")
+    client.force_login(engineer)
+    export_imported_again_adds_nothing(tmp_path, client, Reading.objects.count())
+    text = "asset_tag,role,taken_at,capacitance_uf,capacitor_voltage_v\nFAN-1,run,2025-06-03 08:30Z,7.9,700\n"
+    report = io.StringIO()
+    with pytest.raises(CommandError):
+        call_command("import", "readings", str(write(tmp_path, "new.csv", text)), "--dry-run", stdout=report)
+    assert "row 2, capacitor_voltage_v:" in report.getvalue()
+
+
 def test_a_reading_confirmed_off_its_trend_exported_and_imported_again_adds_nothing(tmp_path, client, engineer):
     """The import now holds a reading to its capacitor's trend as the reading form does: a reading confirmed
     off the trend on the form came back from its own export refused ("the import cannot confirm it"), as the
@@ -1476,3 +1529,24 @@ def test_a_file_with_a_heading_and_its_older_name_refuses_the_rows_where_they_di
     assert "row 3, site: site says CS but site_code, its older heading, says PK: keep one of the two columns" in report
     stored = set(SiteDayOff.objects.values_list("site__code", "name"))
     assert stored == {("PK", "harvest shutdown"), ("CS", "stocktake")}
+
+
+def test_a_readings_import_counts_again_the_capacitors_that_left_tolerance(
+    tmp_path, django_capture_on_commit_callbacks
+):
+    """A round-trip audit: after the README's five imports, the life-data page's "leaving tolerance" still held what
+    the history import had counted before any reading was in (23 left, 0 still within), until the next night's
+    refresh. [ours] a readings import has the counts made again, as a history import has the Weibull fits."""
+    from fleet.models import PartToleranceLife
+
+    for kind, text in (("sites", SITES), ("parts", PARTS), ("register", REGISTER), ("history", HISTORY)):
+        with django_capture_on_commit_callbacks(execute=True):  # each import's follow-ups, once it has committed
+            run(kind, write(tmp_path, f"{kind}.csv", text))
+    with django_capture_on_commit_callbacks(execute=True):
+        run("readings", write(tmp_path, "readings.csv", READINGS))
+    from fleet.services.lifedata import tolerance_life_table
+
+    stored = {life.part_id: (life.left_tolerance, life.still_within) for life in PartToleranceLife.objects.all()}
+    table = tolerance_life_table()
+    now = {part_id: (int(rows["left"].sum()), int((~rows["left"]).sum())) for part_id, rows in table.groupby("part_id")}
+    assert stored == now and sum(within for _, within in now.values()) > 0  # readings made some "still within"

@@ -717,3 +717,22 @@ def test_work_recorded_from_a_visit_sheet_goes_back_to_the_visit_sheet(client, p
     elsewhere = f"{reverse('reading_new', args=[successor.id])}?next=https://example.org/work-orders/"
     response = client.post(elsewhere, {"method": "meter", "capacitance_uf": "30.0", "condition": "sound"})
     assert response["Location"].startswith(reverse("motor", args=[fitted_capacitor.motor.asset_tag]))
+
+
+def test_a_refit_in_process_runs_its_chunks_here_whatever_the_broker(monkeypatch):
+    """An operator's walk: `demo` with CELERY_BROKER_URL set printed "Refitted 0 capacitors" and built its work
+    orders from no assessments while its refit waited in the queue for a worker. [ours] the demo's refit runs in
+    its own process, chunk by chunk, and is done when it returns."""
+    import fleet.tasks
+    from fleet.services.refits import start_fleet_refit
+
+    def queued(*args, **kwargs):
+        raise AssertionError("queued to a worker")
+
+    monkeypatch.setattr(fleet.tasks, "dispatch_refit_chunks", queued)
+    capacitors = [make_fitted_capacitor() for _ in range(3)]
+    for fitted_capacitor in capacitors:
+        quarterly_readings(fitted_capacitor, START, [4.0, 3.99, 3.98])
+    run = start_fleet_refit(kind="demo", chunk_size=2, in_process=True)
+    assert (run.state, run.done, run.total) == ("done", 3, 3)
+    assert Assessment.objects.filter(fitted_capacitor__in=capacitors, is_current=True).count() == 3

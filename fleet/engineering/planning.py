@@ -360,11 +360,13 @@ def judge(
         + np.where(late != "", ", at the latest " + late, "")
         + "): read it again",
     )
-    # A limit that governs at the part's own rating (only a part fitted against the advice keeps such a limit:
-    # `drift.judge_limits`) is breached by the part itself, new or worn: said as such, not as wear.
+    # An operating-point limit that governs at the part's own rating (only a part fitted against the advice keeps
+    # such a limit: `drift.judge_limits`) is breached by the part itself, new or worn: said as such, not as wear.
+    # Not the tolerance (the first limit): a part marked -0 % has its tolerance limit at its rating, and a reading
+    # under it is a reading below its limit (a walk found every such start capacitor "fitted against the advice").
     rated_words = pd.Series(np.asarray(rated_uf, float)).map("{:.2f}".format).to_numpy(object)
     by_the_part = (
-        (governing >= 0) & ~wear_first & (np.nan_to_num(limit, nan=0.0) >= EstimateResolution.at_rated_fraction)
+        (governing > 0) & ~wear_first & (np.nan_to_num(limit, nan=0.0) >= EstimateResolution.at_rated_fraction)
     )
     reason = np.select(
         [

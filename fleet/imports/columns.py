@@ -45,6 +45,9 @@ READING_COLUMNS = {
     "fitted_capacitor_id": "The capacitor read, by its id in the readings export (optional: it must be this motor's "
     "capacitor in this role; empty: the one fitted that day); a column headed installation_id, as older exports "
     "wrote it, is read as this one",
+    "capacitor_fitted_on": "The day the capacitor read was fitted, as the readings export writes it (optional): "
+    "which capacitor of this motor in this role, the same in every installation where ids are not (on a replacement "
+    "day, the new one or the removed one); with fitted_capacitor_id, the two must agree",
     "confirmed": "yes to keep a value the reading form would ask to confirm ("
     + "; ".join(CONFIRMATION_CASES.values())
     + "), as re-checked; no or empty: such a row is refused (also true/false, 1/0); a column headed "

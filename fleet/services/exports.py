@@ -65,6 +65,13 @@ MEASURED = {  # Reading.MEASURED_FIELDS: unit and meaning
 READING_COLUMNS = [  # named as the API's readings and the readings import name them
     Column("id", INT, description="Reading id", source="id"),
     *(PLACE[name] for name in ("site", "asset_tag", "fitted_capacitor_id", "role", "part_code")),
+    Column(
+        "capacitor_fitted_on",
+        DATE,
+        description="The day the capacitor read was fitted: which capacitor, for an import into another "
+        "installation, whose ids are its own",
+        source="fitted_capacitor__fitted_on",
+    ),
     Column("taken_at", DATETIME, "UTC", "When the reading was taken", source="taken_at"),
     Column("method", description="meter (isolated) or in_circuit (current and voltage)", source="method"),
     *(Column(name, *MEASURED[name], source=name) for name in Reading.MEASURED_FIELDS),

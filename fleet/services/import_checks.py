@@ -207,6 +207,58 @@ def _named_capacitors(
     return np.where(elsewhere, -1, ids)
 
 
+def _named_by_fitting_day(
+    chunk: pd.DataFrame, tag: pd.Series, role: pd.Series, fitted: pd.DataFrame, problems, named: np.ndarray
+) -> np.ndarray:
+    """`named` (`_named_capacitors`) with the capacitor each row names by its fitting day (`capacitor_fitted_on`,
+    the readings export's column): the one of the row's motor and role fitted that day. Ids are each database's
+    own; the fitting day is not: a round-trip audit moved a replacement day's reading, exported with its id
+    emptied, onto the capacitor removed that day, and one kept with its id onto whichever capacitor had that id
+    in the new database. Refused at the field where no capacitor was fitted that day, or where the row's id names
+    a capacitor fitted on another day."""
+    texts = chunk["capacitor_fitted_on"].reset_index(drop=True).str.strip()
+    given = texts.ne("").to_numpy()
+    if not given.any():  # the usual file: no such column
+        return named
+    days = pd.to_datetime(texts.where(given), format="%Y-%m-%d", errors="coerce")
+    unreadable = given & days.isna().to_numpy()
+    problems.add(unreadable, "capacitor_fitted_on", "not a date (use 2026-03-14), or empty")
+    fitted_days = pd.to_datetime(fitted["fitted_on"]).to_numpy("datetime64[ns]")
+    by_day = pd.Series(
+        fitted["fitted_capacitor_id"].to_numpy(np.int64),
+        index=pd.MultiIndex.from_arrays([fitted["tag"].astype(object), fitted["role"].astype(object), fitted_days]),
+    )
+    by_day = by_day[~by_day.index.duplicated(keep="last")]
+    asked = pd.MultiIndex.from_arrays([tag.to_numpy(object), role.to_numpy(object), days.to_numpy("datetime64[ns]")])
+    found = by_day.reindex(asked).to_numpy(float)
+    read = given & ~unreadable
+    missing = read & np.isnan(found)
+    if missing.any():
+        problems.add(
+            missing,
+            "capacitor_fitted_on",
+            (
+                "no " + role.reset_index(drop=True) + " capacitor of motor "
+                + chunk["asset_tag"].reset_index(drop=True) + " was fitted on " + texts
+                + ": give the day it was fitted, or leave it empty"
+            ).to_numpy(object),
+        )  # fmt: skip
+    other = read & ~missing & (named >= 0) & (named != np.nan_to_num(found, nan=-1))
+    if other.any():
+        fitted_on_of = pd.Series(fitted_days, index=fitted["fitted_capacitor_id"].to_numpy(np.int64))
+        named_day = pd.Series(fitted_on_of.reindex(named).to_numpy()).dt.strftime("%Y-%m-%d")
+        problems.add(
+            other,
+            "fitted_capacitor_id",
+            (
+                "fitted capacitor " + pd.Series(named).astype(str) + " was fitted on " + named_day
+                + ", the row's capacitor_fitted_on says " + texts
+                + ": ids are each installation's own; empty this column when moving readings to another one"
+            ).to_numpy(object),
+        )  # fmt: skip
+    return np.where(read & ~missing & (named < 0), np.nan_to_num(found, nan=-1), named).astype(np.int64)
+
+
 def _trend_values_held_to(fitted_capacitor_ids: pd.Series, taken_utc: np.ndarray) -> np.ndarray:
     """Per row, the trend value the rulebook holds the reading to, from the current assessments of the
     capacitors the rows resolved to (NaN: none), as the reading form reads it (`rules.trend_value_held_to`):
@@ -280,7 +332,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     # A reading without a stored trend is held to the line between its capacitor's readings just before and
     # after it in the whole file, not in its part: a history sorted by date has a capacitor's in every part.
     lines = _neighbours_in_file(placed)
-    good_parts, errors = [], []
+    good_parts, asked_parts, errors = [], [], []
     for start, part in zip(starts, placed, strict=True):
         between, before_uf, after_uf = (values[start : start + len(part.chunk)] for values in lines)
         chunk, problems, zones, match, confirmed = part.chunk, part.problems, part.zones, part.match, part.confirmed
@@ -332,6 +384,13 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         for name, messages in result.errors.items():
             of_the_cell_alone = np.isin(messages, UNREADABLE_WORDS) | (name in CELL_ALONE_FIELDS)
             problems.add((placed | of_the_cell_alone) & (messages != ""), name, messages, of_cell=True)
+        asked = np.zeros(len(chunk), bool)
+        for messages in result.confirm.values():
+            asked |= messages != ""
+        # Rows asked to confirm only: one stored already as it is (an export imported again, a reading saved
+        # unconfirmed before a rule asked) is already imported, not refused (held to what is stored below).
+        if (asked & ~problems.bad).any():
+            asked_parts.append(_checked_rows(chunk, match, taken, result, confirmed, asked & ~problems.bad))
         for name, messages in result.confirm.items():
             problems.add(
                 placed & (messages != ""),
@@ -339,32 +398,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
                 messages + "; the import cannot confirm it unless the row's confirmed column says yes",
                 of_cell=True,
             )
-        good = ~problems.bad
-        rows = pd.DataFrame(
-            {
-                "row": chunk["row"].to_numpy()[good],
-                "fitted_capacitor_id": match["fitted_capacitor_id"].to_numpy()[good].astype(np.int64),
-                "position_id": match["position_id"].to_numpy()[good].astype(np.int64),
-                "taken_at": taken[good].reset_index(drop=True),
-                "method": result.values["method"][good],
-                "condition": result.values["condition"][good],
-                "condition_given": chunk["condition"].str.strip().ne("").to_numpy()[good],
-                "notes": result.values["notes"][good],
-                # Confirmed where the rulebook asked (as the form and the API store it), not wherever it says yes.
-                "outlier_confirmed": (confirmed & result.asked)[good],
-                **{name: result.values[name][good] for name in READING_NUMBERS},
-                # As read, as the form stores it (the keys round to 0.0001 µF themselves): rounded here, a
-                # confirmed 0.00003 µF became 0, an open capacitor.
-                "capacitance_uf": result.values["capacitance_uf"][good],
-            }
-        )
-        rows["import_key"] = reading_keys(
-            rows["fitted_capacitor_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
-        )
-        rows["position_key"] = reading_keys(
-            rows["position_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
-        )
-        good_parts.append(rows)
+        good_parts.append(_checked_rows(chunk, match, taken, result, confirmed, ~problems.bad))
         errors += problems.items
         progress(1, start)
     good = (
@@ -383,6 +417,12 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         good = good[~repeated].reset_index(drop=True)
     good, against_stored, duplicates = _against_stored(good, fitted)
     errors += against_stored
+    if asked_parts:
+        asked = pd.concat(asked_parts, ignore_index=True)
+        still_new, differs, _ = _against_stored(asked, fitted)
+        stored_as_it_is = set(asked["row"]) - set(still_new["row"]) - {row for row, _, _ in differs}
+        errors = [error for error in errors if error[0] not in stored_as_it_is]
+        duplicates += len(stored_as_it_is)
     # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
     # never two readings (a reading and its correction, exported and imported again, are both stored already).
     moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
@@ -402,6 +442,33 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
         good = good[~clash].reset_index(drop=True)
     errors.sort()
     return CheckResult(good=good, errors=errors, duplicates=duplicates, total=len(frame))
+
+
+def _checked_rows(chunk, match, taken, result, confirmed, mask) -> pd.DataFrame:
+    """The rows of a checked chunk under `mask`, as the import stores them, with their keys."""
+    rows = pd.DataFrame(
+        {
+            "row": chunk["row"].to_numpy()[mask],
+            "fitted_capacitor_id": match["fitted_capacitor_id"].to_numpy()[mask].astype(np.int64),
+            "position_id": match["position_id"].to_numpy()[mask].astype(np.int64),
+            "taken_at": taken[mask].reset_index(drop=True),
+            "method": result.values["method"][mask],
+            "condition": result.values["condition"][mask],
+            "condition_given": chunk["condition"].str.strip().ne("").to_numpy()[mask],
+            "notes": result.values["notes"][mask],
+            # Confirmed where the rulebook asked (as the form and the API store it), not wherever it says yes.
+            "outlier_confirmed": (confirmed & result.asked)[mask],
+            **{name: result.values[name][mask] for name in READING_NUMBERS},
+            # As read, as the form stores it (the keys round to 0.0001 µF themselves): rounded here, a
+            # confirmed 0.00003 µF became 0, an open capacitor.
+            "capacitance_uf": result.values["capacitance_uf"][mask],
+        }
+    )
+    rows["import_key"] = reading_keys(
+        rows["fitted_capacitor_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"]
+    )
+    rows["position_key"] = reading_keys(rows["position_id"], rows["taken_at"], rows["method"], rows["capacitance_uf"])
+    return rows
 
 
 def _against_stored(good: pd.DataFrame, fitted: pd.DataFrame) -> tuple[pd.DataFrame, list[tuple], int]:
@@ -512,7 +579,9 @@ def _place_readings(chunk, tag, zone_of_tag, fitted, first_fitted, default_tz: s
     problems.add(taken.isna(), "taken_at", "not a date and time (use 2026-03-14 09:30)")
     taken_utc = taken.dt.tz_localize(None).to_numpy("datetime64[s]")
     taken_on = local_days(taken_utc, zones.fillna(default_tz).to_numpy(object), fallback=settings.TIME_ZONE)
-    named = _named_capacitors(chunk, tag, role, fitted, problems)
+    named = _named_by_fitting_day(
+        chunk, tag, role, fitted, problems, _named_capacitors(chunk, tag, role, fitted, problems)
+    )
     match = _fitted_on_the_day(tag, role, taken_on.astype("datetime64[s]"), fitted, named)
     unmatched = match["fitted_capacitor_id"].isna().to_numpy() & taken.notna().to_numpy()
     # A motor that has had a capacitor in this role: the date is what is wrong; one that never had: the role.

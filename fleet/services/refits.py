@@ -49,7 +49,12 @@ def queue_fleet_refit(*, kind: str = "fleet") -> RefitRun:
 
 
 def start_fleet_refit(
-    *, kind: str = "fleet", chunk_size: int | None = None, force: bool = False, run_id: int | None = None
+    *,
+    kind: str = "fleet",
+    chunk_size: int | None = None,
+    force: bool = False,
+    run_id: int | None = None,
+    in_process: bool = False,
 ) -> RefitRun:
     """Refresh the part priors, then queue every capacitor in service in numbered chunks.
 
@@ -57,7 +62,9 @@ def start_fleet_refit(
     already done does nothing). Chunks are dispatched after the run record
     commits; in eager mode they run before this returns, and the run is already
     done. `force` refits capacitors whose assessment is already up to date
-    (benchmarks, a changed model).
+    (benchmarks, a changed model). `in_process`: the chunks run here, one after
+    the other, whether or not a broker is set (the demo, which must be whole when
+    it says so, with or without a worker running).
     """
     from fleet.tasks import QueueUnreachable, dispatch_refit_chunks
 
@@ -73,6 +80,10 @@ def start_fleet_refit(
         RefitRun.objects.filter(id=run_id).update(state=RefitRun.State.DONE, finished_at=now)
         return RefitRun.objects.get(id=run_id)
     chunks = [ids[i : i + chunk_size] for i in range(0, len(ids), chunk_size)]
+    if in_process:
+        for number, chunk in enumerate(chunks):
+            refit_chunk(run_id, number, chunk, force)
+        return RefitRun.objects.get(id=run_id)
 
     def dispatch():
         try:

@@ -411,3 +411,18 @@ def test_a_reading_and_its_limit_are_written_with_the_decimals_that_tell_them_ap
         result.reason[0]
         == "latest reading, referred to 25 \u00b0C, 9.399 \u00b5F: below the tolerance limit (9.400 \u00b5F)"
     )
+
+
+def test_a_part_marked_minus_nought_read_below_its_rating_is_a_reading_below_the_tolerance():
+    """An operator's walk: every start capacitor of a part marked -0 % / +20 % [the usual marking of electrolytic
+    start capacitors; common practice of the trade, no single source] read under its rating was "at its rated
+    200.00 uF this part already breaches the tolerance limit on the motor model: fitted against the advice", though
+    each was its motor's design part. [ours] the tolerance at the rating is the marking's limit, said as a reading
+    below it; only an operating-point limit at the rating is a finding about the part."""
+    tolerance_at_rating = _judge([100.0], [300.0], latest=[0.98], limits=(1.0,))
+    assert tolerance_at_rating.risk[0] == RISK_REPLACE_NOW
+    assert tolerance_at_rating.reason[0] == (
+        "latest reading, referred to 25 \u00b0C, 9.80 \u00b5F: below the tolerance limit (10.00 \u00b5F)"
+    )
+    torque_at_rating = _judge([100.0], [300.0], latest=[0.98], limits=(0.90, 1.0))
+    assert torque_at_rating.reason[0].startswith("at its rated 10.00 \u00b5F this part already breaches the ")

@@ -50,7 +50,7 @@ class Command(BaseCommand):
                 f"({time.perf_counter() - started:.1f} s)."
             )
             started = time.perf_counter()
-            run = start_fleet_refit(kind="demo")
+            run = start_fleet_refit(kind="demo", in_process=True)  # whole before the work orders, broker or not
             run.refresh_from_db()
             self.stdout.write(
                 f"Refitted {run.done} capacitors from {run.readings} readings ({time.perf_counter() - started:.1f} s)."
