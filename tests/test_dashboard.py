@@ -441,3 +441,27 @@ def test_the_risk_cards_count_one_capacitor_and_two_capacitors(client):
         page = re.sub(r"\s+", " ", client.get(reverse(name)).content.decode())
         assert re.search(r"replace now</span><b>1</b>capacitor</div>", page), name
         assert re.search(r"watch</span><b>2</b>capacitors</div>", page), name
+
+
+def test_a_digest_the_mail_server_refuses_is_said_in_one_line_and_sent_the_next_time(settings, capsys):
+    """An operator's walk: `manage.py digest` in production with no mail server ended in a ConnectionRefusedError
+    traceback, as would beat's morning digest on a worker. [ours] it says the mail server could not be reached and
+    where, records nothing as sent, and the next digest sends it."""
+    from django.core.management import CommandError, call_command
+
+    from fleet.tasks import send_daily_digest as digest_task
+
+    settings.FLEET_SITE_URL = "https://fleet.example.org"
+    worn = make_fitted_capacitor(motor=make_motor(site=make_site(code="DGT")))
+    stored_assessment(worn, "replace now", TODAY)
+    planner = make_user(PLANNER)
+    planner.email = "planner@example.org"
+    planner.save()
+    settings.EMAIL_BACKEND = "django.core.mail.backends.smtp.EmailBackend"
+    settings.EMAIL_HOST, settings.EMAIL_PORT = "127.0.0.1", 9  # the discard port: nothing listens there
+    with pytest.raises(CommandError, match=r"The digest was not sent: the mail server at 127\.0\.0\.1:9 answered"):
+        call_command("digest")
+    assert digest_task() == 0 and not DigestEntry.objects.exists()
+    settings.EMAIL_BACKEND = "django.core.mail.backends.locmem.EmailBackend"
+    call_command("digest")
+    assert "1 emails sent" in capsys.readouterr().out and DigestEntry.objects.count() == 1

@@ -134,6 +134,37 @@ def test_a_body_the_server_cannot_read_is_a_400_logged_in_one_line(client, caplo
     assert "/login/" in records[0].getMessage()
 
 
+def test_a_request_the_database_could_not_answer_is_logged_in_one_line_with_the_drivers_words():
+    """An operator's walk: six requests while the database was down logged 584 lines of tracebacks, each answered
+    503 by the site's own handler. [ours] one line each, naming the page, the 503 and the driver's words; any
+    other server error keeps its traceback."""
+    import logging
+    import sys
+
+    from django.db import OperationalError
+
+    from fleet.log_filters import RefusalsInOneLine
+
+    def record_of(error):
+        try:
+            raise error
+        except (OperationalError, ValueError):
+            exc_info = sys.exc_info()
+        record = logging.LogRecord(
+            "django.request", logging.ERROR, "", 0, "Internal Server Error: %s", ("/plan/",), exc_info
+        )
+        record.status_code = 500
+        RefusalsInOneLine().filter(record)
+        return record
+
+    down = record_of(OperationalError('connection to server at "db-host" failed: Connection refused'))
+    assert down.exc_info is None and down.getMessage() == (
+        'Internal Server Error: /plan/: database unavailable, answered 503: connection to server at "db-host" '
+        "failed: Connection refused"
+    )
+    assert record_of(ValueError("a fault of ours")).exc_info is not None
+
+
 def test_a_database_busy_past_its_timeout_is_said_as_busy_not_unreachable():
     """A helper's walk on the embedded default: a reading saved while a large import wrote on SQLite waited past
     the busy timeout and the page said the database "cannot be reached". [derived] a 503 that says the database is

@@ -597,6 +597,38 @@ def test_the_capacitor_page_marks_a_crossing_date_that_has_passed(client, engine
     assert f"{p10.isoformat()}, past / {p50.isoformat()} / {p90.isoformat()}" in page
 
 
+def test_a_reading_waiting_for_its_refit_is_said_on_the_motor_and_capacitor_pages(
+    client, technician, fan_fitted_capacitor
+):
+    """An operator's walk with refits on separate workers: right after Save the motor page said "watch, latest:
+    within tolerance" beside the message that a 3.70 µF reading, below tolerance, was saved; two seconds later
+    "replace now" (up to 15 minutes with no worker running). [ours] until its refit the pages say that reading
+    is being reassessed, with its own verdict as measured; once assessed, nothing."""
+    from tests.factories import make_reading
+
+    earlier = make_reading(fan_fitted_capacitor, capacitance_uf=3.95)
+    assessment = stored_assessment(fan_fitted_capacitor, "watch", timezone.localdate() + dt.timedelta(days=200))
+    Assessment.objects.filter(pk=assessment.pk).update(max_reading_id=earlier.id)
+    client.force_login(technician)
+    for page in (
+        reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag]),
+        reverse("fitted_capacitor", args=[fan_fitted_capacitor.id]),
+    ):
+        assert "Being reassessed" not in client.get(page).content.decode()
+    newer = make_reading(fan_fitted_capacitor, taken_at=timezone.now(), capacitance_uf=3.70)
+    for page in (
+        reverse("motor", args=[fan_fitted_capacitor.motor.asset_tag]),
+        reverse("fitted_capacitor", args=[fan_fitted_capacitor.id]),
+    ):
+        said = strip_tags(client.get(page).content.decode())
+        assert "Being reassessed: the reading of" in said and "(3.70 µF, below tolerance) is not in the risk" in said
+    Assessment.objects.filter(pk=assessment.pk).update(max_reading_id=newer.id)
+    assert (
+        "Being reassessed"
+        not in client.get(reverse("fitted_capacitor", args=[fan_fitted_capacitor.id])).content.decode()
+    )
+
+
 def test_the_motor_page_says_why_a_capacitor_within_tolerance_is_to_be_replaced(
     client, technician, fan_fitted_capacitor
 ):

@@ -1135,3 +1135,18 @@ def test_a_reading_typed_on_the_form_after_the_import_of_it_is_refused_naming_th
         )
     assert f"has a reading at this time already, reading {imported.id} of" in refused.value.message_dict["taken_at"][0]
     assert Reading.objects.count() == 1
+
+
+def test_an_import_step_no_worker_takes_says_so_after_a_minute(client, planner):
+    """An operator's walk: an upload with no worker running showed "Reading the file. This page refreshes by
+    itself." for half an hour. [ours] after a minute without progress the page says the step waits for a worker
+    and that the workers may not be running; a step that moves says nothing more."""
+    from django.utils import timezone
+
+    job = ImportJob.objects.create(kind="readings", filename="r.csv", created_by=planner, content=b"")
+    client.force_login(planner)
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert "Reading the file." in page and 'id="import-waiting"' not in page
+    ImportJob.objects.filter(pk=job.pk).update(updated_at=timezone.now() - dt.timedelta(minutes=3))
+    page = client.get(reverse("import_detail", args=[job.id])).content.decode()
+    assert "No progress for 3 minutes: the step waits for a worker to take it." in page

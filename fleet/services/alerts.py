@@ -5,6 +5,7 @@ its entry goes, so a capacitor that enters it again is reported again."""
 from __future__ import annotations
 
 import datetime as dt
+import smtplib
 
 from django.conf import settings
 from django.contrib.auth.models import User
@@ -103,6 +104,10 @@ def _body(items: list[dict], today: dt.date) -> str:
     return "\n\n".join(sections) + "\n"
 
 
+class DigestNotSent(Exception):
+    """The mail server refused or could not be reached: nothing is recorded as sent, so the next digest sends it."""
+
+
 def send_daily_digest(*, today: dt.date | None = None) -> dict:
     """Email each planner (active, with an address) what is new since the last digest at the
     sites they work at; nothing new, no email. Returns counts."""
@@ -124,7 +129,14 @@ def send_daily_digest(*, today: dt.date | None = None) -> dict:
         subject = f"Fleet digest {today:%Y-%m-%d}: {top} to {TOP_RISK}, {overdue} reading{pluralize(overdue)} overdue"
         messages.append(EmailMessage(subject, _body(mine, today), settings.DEFAULT_FROM_EMAIL, [planner.email]))
     if messages:
-        get_connection().send_messages(messages)
+        try:
+            get_connection().send_messages(messages)
+        except (OSError, smtplib.SMTPException) as error:  # an operator's walk: a traceback, with no mail server
+            where = f"{settings.EMAIL_HOST}:{settings.EMAIL_PORT}"
+            raise DigestNotSent(
+                f"The digest was not sent: the mail server at {where} answered {error!r}. Nothing is recorded as "
+                "sent, so the next digest sends it; set EMAIL_HOST and EMAIL_PORT (README, Settings)."
+            ) from error
     with transaction.atomic():
         for kind in DigestEntry.Kind.values:
             gone = [capacitor_id for k, capacitor_id in ended if k == kind]

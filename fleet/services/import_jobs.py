@@ -452,8 +452,8 @@ def _queue(task_name: str, job_id: int, *args) -> None:
 
     try:
         getattr(tasks, task_name).delay(job_id, *args)
-    except Exception:  # noqa: BLE001 - any broker failure: say so on the job instead of leaving it waiting
-        log.warning("import job %s: %s not queued", job_id, task_name, exc_info=True)
+    except Exception as error:  # noqa: BLE001 - any broker failure: say so on the job instead of leaving it waiting
+        log.warning("import job %s: %s not queued (%s)", job_id, task_name, error)  # one line, as a reading's refit
         _update(
             job_id,
             state=ImportJob.State.FAILED,
@@ -543,6 +543,26 @@ def _update(job_id: int, **values) -> None:
 
 
 WORKING = (ImportJob.State.RECEIVED, ImportJob.State.CHECKING, ImportJob.State.IMPORTING)
+
+
+WAITING_NOTE_AFTER_S = 60  # a step with no progress this long is said to be waiting for a worker
+
+
+def no_worker_words(job: ImportJob, now: dt.datetime | None = None) -> str:
+    """What the page says of a step in progress with no news for WAITING_NOTE_AFTER_S: most likely no worker has
+    taken it (an operator's walk watched "Reading the file. This page refreshes by itself." for half an hour with
+    no worker running); "" while it moves."""
+    if job.state not in WORKING:
+        return ""
+    quiet_s = ((now or timezone.now()) - job.updated_at).total_seconds()
+    if quiet_s < WAITING_NOTE_AFTER_S:
+        return ""
+    minutes = int(quiet_s // 60)
+    return (
+        f"No progress for {minutes} minute{'s' if minutes != 1 else ''}: the step waits for a worker to take it. "
+        "If it stays so, the workers may not be running (an administrator starts them: README, On PostgreSQL and "
+        "Redis); the job ends as failed, nothing imported, once it has waited longer than a task may run."
+    )
 
 
 def end_stalled_jobs() -> int:

@@ -186,6 +186,18 @@ def find_motors(text: str, user=None) -> tuple[Motor | None, list[Motor], int]:
     return None, matches[:FIND_LIMIT], len(matches)
 
 
+def reading_not_assessed(assessment, readings) -> Reading | None:
+    """The newest of `readings` (newest first, as `recent_readings` lists them) saved after `assessment` was made
+    from its readings (an id past its `max_reading_id`; corrected ones left out), or None: its refit waits for a
+    worker (seconds, or until a worker or the sweep runs), and until then the page's risk and dates are from the
+    readings before it. An operator's walk read "watch, latest: within tolerance" beside the message that had just
+    saved a reading below tolerance."""
+    if assessment is None or assessment.max_reading_id is None:
+        return None
+    newer = [r for r in readings if r.id > assessment.max_reading_id and not hasattr(r, "superseded_by")]
+    return newer[0] if newer else None
+
+
 def recent_readings(fitted_capacitor: FittedCapacitor, count: int = RECENT_READINGS):
     return list(
         Reading.objects.filter(fitted_capacitor=fitted_capacitor)

@@ -14,6 +14,7 @@ from django.utils.http import url_has_allowed_host_and_scheme
 
 from fleet.engineering.capacitor import stored_energy_j
 from fleet.engineering.planning import PlanningSettings
+from fleet.engineering.rules import reading_time_text
 from fleet.filters import named_if_repeated, query_value, takes_parameters
 from fleet.forms import FindMotorForm
 from fleet.models import FittedCapacitor, Motor, Site, site_zone
@@ -21,6 +22,7 @@ from fleet.roles import needs_permission, scope_to_user
 from fleet.services import pages
 from fleet.services.lifedata import DAYS_PER_YEAR, tolerance_life
 from fleet.services.operating_pictures import motor_pictures, no_figures_now, with_operating_figures
+from fleet.services.readings import measured_words
 from fleet.services.selectors import successor_of
 from fleet.services.workorders import open_orders_by_capacitor
 
@@ -101,6 +103,7 @@ def motor_detail(request, asset_tag):
         capacitor.assessment = capacitor.current[0] if capacitor.current else None
         capacitor.recent = pages.recent_readings(capacitor, 4)
         capacitor.open_orders = orders.get(capacitor.id, [])
+        capacitor.reassessing = reassessing_words(capacitor, capacitor.assessment, capacitor.recent)
     pictures = motor_pictures(in_service) if motor.has_circuit else {}
     for capacitor in in_service:
         capacitor.no_figures_now = no_figures_now(capacitor.assessment)
@@ -149,6 +152,19 @@ def site_in_any_case(view):
     return with_site
 
 
+def reassessing_words(fitted_capacitor, assessment, readings) -> str:
+    """What the page says while a reading saved after the assessment waits for its refit
+    (`pages.reading_not_assessed`): the reading's own verdict as measured, and that the risk is from before it."""
+    reading = pages.reading_not_assessed(assessment, readings)
+    if reading is None:
+        return ""
+    when = reading_time_text(timezone.localtime(reading.taken_at, site_zone(fitted_capacitor.motor.site.time_zone)))
+    return (
+        f"Being reassessed: the reading of {when} ({measured_words(reading, fitted_capacitor.part)}) is not in the "
+        "risk and dates shown yet, which are from the readings before it; reload in a minute."
+    )
+
+
 def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:
     """A fitted capacitor at one of the user's sites, or 404."""
     capacitors = scope_to_user(FittedCapacitor.objects.select_related("motor__site", "part"), request.user)
@@ -165,6 +181,7 @@ def fitted_capacitor_detail(request, fitted_capacitor_id):
     successor = successor_of(fitted_capacitor)
     readings = pages.recent_readings(fitted_capacitor, 40)
     context = {
+        "reassessing": reassessing_words(fitted_capacitor, assessment, readings),
         "successor": successor,
         "fitted_capacitor": fitted_capacitor,
         "motor": fitted_capacitor.motor,
