@@ -1550,3 +1550,30 @@ def test_a_readings_import_counts_again_the_capacitors_that_left_tolerance(
     table = tolerance_life_table()
     now = {part_id: (int(rows["left"].sum()), int((~rows["left"]).sum())) for part_id, rows in table.groupby("part_id")}
     assert stored == now and sum(within for _, within in now.values()) > 0  # readings made some "still within"
+
+
+def test_a_register_carries_each_motors_walking_order_insulation_class_and_its_capacitors_serials(tmp_path):
+    """A round-trip audit: a register moved to another installation came in with every motor at walking order 0,
+    no insulation class, and no serial on any capacitor in service, the register import having no column for them.
+    [ours] it has; a whole number of 0 or more for the order, 2 characters for the class, 60 for a serial, which
+    needs its part; and a motor stored already with another order is refused at that field, as any other."""
+    migrate_all(tmp_path)
+    head = "asset_tag,site,application,motor_type,load_type,rated_voltage_v,frequency_hz,poles,output_w,"
+    head += "full_load_current_a,rated_speed_rpm,run_part_code,fitted_on,"
+    head += "route_order,insulation_class,run_serial,start_serial\n"
+    row = "{tag},PK,fan,permanent_split,fan_law,230,50,4,250,1.9,1370,RUN-8,2023-03-01,{order},{cls},{serial},{start}\n"
+    text = head + row.format(tag="FAN-7", order="12", cls="F", serial="2303-11842", start="")
+    text += row.format(tag="FAN-8", order="twelve", cls="F", serial="", start="")
+    text += row.format(tag="FAN-9", order="3", cls="F", serial="", start="2301-0001")
+    text += row.format(tag="FAN-1", order="5", cls="", serial="", start="")  # stored already, at order 0
+    report = io.StringIO()
+    call_command("import", "register", str(write(tmp_path, "more.csv", text)), "--good-rows-only", stdout=report)
+    said = report.getvalue()
+    motor = Motor.objects.get(asset_tag="FAN-7")
+    assert (motor.route_order, motor.insulation_class) == (12, "F")
+    assert motor.capacitors.get().serial == "2303-11842"
+    assert "row 3, route_order: not a whole number of 0 or more" in said
+    assert "row 4, start_serial: no start_part_code on this row" in said
+    assert "row 5, route_order: this motor is stored already with route_order 0, the file says 5" in said
+    assert not Motor.objects.filter(asset_tag__in=["FAN-8", "FAN-9"]).exists()
+    assert Motor.objects.get(asset_tag="FAN-1").route_order == 0

@@ -87,6 +87,10 @@ REGISTER_COLUMNS = {
     "run_fitted_on": "Date the run capacitor was fitted, where it differs from fitted_on (a two-value motor "
     "whose capacitors were changed apart)",
     "start_fitted_on": "Date the start capacitor was fitted, where it differs from fitted_on",
+    "route_order": "Place on the site's reading route, a whole number (empty: 0, the route then goes by tag)",
+    "insulation_class": "Insulation class of the windings, e.g. B or F (up to 2 characters)",
+    "run_serial": "Serial number or date code of the run capacitor fitted, up to 60 characters",
+    "start_serial": "Serial number or date code of the start capacitor fitted, up to 60 characters",
 }
 REGISTER_REQUIRED = (
     "asset_tag",

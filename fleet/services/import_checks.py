@@ -971,12 +971,34 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
             problems.add(rows, name, message, of_cell=True)
     for rows, name, message in commissioning_problems(dates["commissioned_on"].to_numpy("datetime64[D]"), today):
         problems.add(rows, name, message, of_cell=True)
-    for name, part_column in (("run_fitted_on", "run_part_code"), ("start_fitted_on", "start_part_code")):
+    for name, part_column in (
+        ("run_fitted_on", "run_part_code"),
+        ("start_fitted_on", "start_part_code"),
+        ("run_serial", "run_part_code"),
+        ("start_serial", "start_part_code"),
+    ):
         problems.add(
             frame[name].ne("") & frame[part_column].eq(""),
             name,
             f"no {part_column} on this row: leave it empty, or give the part fitted",
         )
+    serial_length = FittedCapacitor._meta.get_field("serial").max_length
+    for name in ("run_serial", "start_serial"):
+        problems.add(
+            frame[name].str.len() > serial_length, name, f"longer than {serial_length} characters", of_cell=True
+        )
+    # The walking order a plant had (a round-trip audit found every motor's at 0 after a migration).
+    order_given = frame["route_order"].str.strip().ne("")
+    whole = frame["route_order"].str.strip().str.fullmatch(r"[0-9]{1,9}").fillna(False)
+    problems.add(order_given & ~whole, "route_order", "not a whole number of 0 or more", of_cell=True)
+    numbers["route_order"] = pd.to_numeric(frame["route_order"].str.strip().where(whole), errors="coerce").to_numpy()
+    class_length = Motor._meta.get_field("insulation_class").max_length
+    problems.add(
+        frame["insulation_class"].str.strip().str.len() > class_length,
+        "insulation_class",
+        f"longer than {class_length} characters (B, F, H...)",
+        of_cell=True,
+    )
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
@@ -1000,7 +1022,17 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
 
 # A register row's motor fields, compared with the motor stored under its tag (its capacitors are not: a part
 # replaced since differs from the file's by right).
-MOTOR_COMPARED = ["site", "location", "application", "motor_type", "load_type", *MOTOR_NUMBERS, "commissioned_on"]
+MOTOR_COMPARED = [
+    "site",
+    "location",
+    "application",
+    "motor_type",
+    "load_type",
+    *MOTOR_NUMBERS,
+    "commissioned_on",
+    "route_order",
+    "insulation_class",
+]
 
 
 def _refuse_changed_motors(problems: _Problems, already: np.ndarray, frame: pd.DataFrame, tags: pd.Series, numbers):
@@ -1018,7 +1050,8 @@ def _refuse_changed_motors(problems: _Problems, already: np.ndarray, frame: pd.D
     )
     held = stored.set_index(stored["asset_tag"].str.upper()).reindex(tags.to_numpy())[MOTOR_COMPARED]
     given = frame.reindex(columns=MOTOR_COMPARED).assign(
-        **{name: numbers[name] for name in MOTOR_NUMBERS if name in numbers},
+        **{name: numbers[name] for name in [*MOTOR_NUMBERS, "route_order"] if name in numbers},
+        insulation_class=frame["insulation_class"].str.strip(),
         site=frame["site"].str.upper(),
         application=frame["application"].str.lower(),
         motor_type=frame["motor_type"].str.lower(),
@@ -1048,6 +1081,8 @@ def insert_register(good: pd.DataFrame) -> list[int]:
                 full_load_current_a=row.full_load_current_a,
                 rated_speed_rpm=row.rated_speed_rpm,
                 commissioned_on=dt.date.fromisoformat(row.commissioned_on[:10]) if row.commissioned_on else None,
+                route_order=int(row.route_order.strip() or 0),
+                insulation_class=row.insulation_class.strip(),
             )
             for row in good.itertuples(index=False)
         ],
@@ -1055,13 +1090,17 @@ def insert_register(good: pd.DataFrame) -> list[int]:
     )
     fitted = []
     for motor, row in zip(motors, good.itertuples(index=False), strict=True):
-        for role, code, own_day in (
-            (FittedCapacitor.Role.RUN, row.run_part_code, row.run_fitted_on),
-            (FittedCapacitor.Role.START, row.start_part_code, row.start_fitted_on),
+        for role, code, own_day, serial in (
+            (FittedCapacitor.Role.RUN, row.run_part_code, row.run_fitted_on, row.run_serial),
+            (FittedCapacitor.Role.START, row.start_part_code, row.start_fitted_on, row.start_serial),
         ):
             if code:
                 fitted_on = dt.date.fromisoformat((own_day or row.fitted_on)[:10])
-                fitted.append(FittedCapacitor(motor=motor, role=role, part_id=parts[code], fitted_on=fitted_on))
+                fitted.append(
+                    FittedCapacitor(
+                        motor=motor, role=role, part_id=parts[code], fitted_on=fitted_on, serial=serial.strip()
+                    )
+                )
     FittedCapacitor.objects.bulk_create(fitted, batch_size=2000)
     return [m.id for m in motors]
 
