@@ -179,3 +179,17 @@ def test_a_task_run_in_process_without_a_broker_logs_nothing_about_a_broker_addr
     )
     done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, env=env, capture_output=True, text=True)
     assert (done.returncode, done.stdout, done.stderr) == (0, "42\n", "")
+
+
+def test_a_separate_worker_logs_each_task_it_finished_and_the_demo_does_not():
+    """An operator's walk: with separate workers the log said each task was received and never that it succeeded
+    or how long it took (the level kept for the demo, whose in-process tasks would drown its output). [ours]"""
+    levels = {}
+    for broker in ("", "redis://127.0.0.1:6379/0"):
+        env = {k: v for k, v in os.environ.items() if k not in {"CELERY_BROKER_URL", "FLEET_PROFILE", "SECRET_KEY"}}
+        env["CELERY_BROKER_URL"] = broker
+        code = "import config.settings as s; print(s.LOGGING['loggers']['celery.app.trace']['level'])"
+        result = subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, capture_output=True, text=True)
+        assert result.returncode == 0, result.stderr
+        levels[broker] = result.stdout.strip()
+    assert levels == {"": "WARNING", "redis://127.0.0.1:6379/0": "INFO"}
