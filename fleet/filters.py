@@ -195,6 +195,16 @@ class LifeDataFilter(django_filters.FilterSet):
         fields = ["part", "site"]
 
 
+class RegisterFilter(django_filters.FilterSet):
+    """The register export's site: ?site=CST"""
+
+    site = _site_filter("site")
+
+    class Meta:
+        model = Motor
+        fields = ["site"]
+
+
 class BadFilter(ValueError):
     """Query-string values that cannot be read: `problems`, the messages by parameter (the API's shape of a 400,
     `{"site": ["..."]}`); its text names each ("site: ...; days: ...")."""

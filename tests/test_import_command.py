@@ -1577,3 +1577,36 @@ def test_a_register_carries_each_motors_walking_order_insulation_class_and_its_c
     assert "row 5, route_order: this motor is stored already with route_order 0, the file says 5" in said
     assert not Motor.objects.filter(asset_tag__in=["FAN-8", "FAN-9"]).exists()
     assert Motor.objects.get(asset_tag="FAN-1").route_order == 0
+
+
+def test_a_register_export_imports_into_another_installation_as_the_same_register(tmp_path, client, engineer):
+    """A round-trip audit: there was no register export, so moving a plant meant rebuilding the register from a
+    backup file and the life-data export. [ours] `/exports/register.csv` writes the register import's headings,
+    each motor with its capacitors in service; imported into an empty installation, it gives the same motors,
+    nameplates, walking order and capacitors, and imported again where it came from, nothing (every row there)."""
+    migrate_all(tmp_path)
+    Motor.objects.filter(asset_tag="FAN-1").update(route_order=7, insulation_class="F")
+    FittedCapacitor.objects.filter(motor__asset_tag="FAN-1", removed_on__isnull=True).update(serial="2303-11842")
+    client.force_login(engineer)
+    path = tmp_path / "register-export.csv"
+    path.write_bytes(b"".join(client.get("/exports/register.csv").streaming_content))
+    report = io.StringIO()
+    with pytest.raises(CommandError, match="nothing would be imported"):
+        call_command("import", "register", str(path), "--dry-run", stdout=report)
+    assert ": 2 rows: 0 good, 2 already imported, 0 with problems." in report.getvalue()
+
+    def described():
+        return {
+            m.asset_tag: (
+                m.site.code, m.motor_type, m.rated_voltage_v, m.poles, m.route_order, m.insulation_class,
+                sorted((c.role, c.part.code, c.fitted_on, c.serial) for c in m.capacitors.filter(removed_on=None)),
+            )
+            for m in Motor.objects.select_related("site")
+        }  # fmt: skip
+
+    before = described()
+    # Another installation's register, as this one's under other tags (readings are never deleted here).
+    moved = path.read_text(encoding="utf-8-sig").replace("FAN-1,", "NEW-FAN-1,").replace("CMP-1,", "NEW-CMP-1,")
+    call_command("import", "register", str(write(tmp_path, "moved.csv", moved)), stdout=io.StringIO())
+    after = described()
+    assert {tag: after[f"NEW-{tag}"] for tag in before} == before and before["FAN-1"][4:6] == (7, "F")

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import datetime as dt
 
+from django.db.models import FilteredRelation, Q
 from django.utils import timezone
 
 from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, Column, Table
@@ -15,11 +16,12 @@ from fleet.filters import (
     LifeDataFilter,
     PlanParameters,
     ReadingFilter,
+    RegisterFilter,
     filtered,
     parameter_problems,
     plan_parameters,
 )
-from fleet.models import Assessment, FittedCapacitor, Reading
+from fleet.models import Assessment, FittedCapacitor, Motor, Reading
 from fleet.roles import scope_to_user
 
 from . import pages
@@ -286,7 +288,65 @@ def plan_table(query, user, request=None) -> Table:
     return Table("replacement plan", PLAN_COLUMNS, rows, about)
 
 
+def _fitted(role: str, field: str) -> str:
+    return f"in_service_{role}__{field}"
+
+
+REGISTER_EXPORT_COLUMNS = [  # the register import's headings, so a register moves to another installation whole
+    Column("asset_tag", description="Motor asset tag", source="asset_tag"),
+    Column("site", description="Site code", source="site__code"),
+    Column("location", description="Where the motor is", source="location"),
+    Column("application", description="fan, pump, compressor, conveyor or other", source="application"),
+    Column("motor_type", description="capacitor_start, permanent_split or two_value", source="motor_type"),
+    Column("load_type", description="fan_law or constant", source="load_type"),
+    Column("rated_voltage_v", FLOAT, "V", "Nameplate voltage", source="rated_voltage_v"),
+    Column("frequency_hz", INT, "Hz", "Supply frequency", source="frequency_hz"),
+    Column("poles", INT, description="Poles", source="poles"),
+    Column("output_w", FLOAT, "W", "Rated output", source="output_w"),
+    Column("full_load_current_a", FLOAT, "A", "Full-load current", source="full_load_current_a"),
+    Column("rated_speed_rpm", FLOAT, "rpm", "Rated speed", source="rated_speed_rpm"),
+    Column("commissioned_on", DATE, description="Date commissioned", source="commissioned_on"),
+    Column("run_part_code", description="Run capacitor in service: its part", source=_fitted("run", "part__code")),
+    Column(
+        "start_part_code", description="Start capacitor in service: its part", source=_fitted("start", "part__code")
+    ),
+    Column("fitted_on", DATE, description="Day its capacitors were fitted (the run one's, where it has one)"),
+    Column("run_fitted_on", DATE, description="Day the run capacitor was fitted", source=_fitted("run", "fitted_on")),
+    Column(
+        "start_fitted_on", DATE, description="Day the start capacitor was fitted", source=_fitted("start", "fitted_on")
+    ),
+    Column("route_order", INT, description="Place on the site's reading route", source="route_order"),
+    Column("insulation_class", description="Insulation class of the windings", source="insulation_class"),
+    Column("run_serial", description="Serial or date code of the run capacitor", source=_fitted("run", "serial")),
+    Column("start_serial", description="Serial or date code of the start capacitor", source=_fitted("start", "serial")),
+]
+
+
+def register_table(query, user, request=None) -> Table:
+    """The motor register in the register import's headings, each motor with its capacitors in service (one
+    query, a join a role): with the readings export and the life-data export (the history), what another
+    installation needs (a round-trip audit rebuilt the register from a backup file)."""
+    in_service = {
+        f"in_service_{role}": FilteredRelation(
+            "capacitors", condition=Q(capacitors__role=role, capacitors__removed_on__isnull=True)
+        )
+        for role in FittedCapacitor.Role.values
+    }
+    motors = filtered(RegisterFilter, query, scope_to_user(Motor.objects.all(), user), request)
+    columns = [c for c in REGISTER_EXPORT_COLUMNS if c.name != "fitted_on"]
+    rows = _rows(motors.annotate(**in_service).order_by("site__code", "route_order", "asset_tag"), columns)
+    at = [c.name for c in columns].index("run_fitted_on")
+
+    def register_rows():
+        for row in rows:
+            run_day, start_day = row[at], row[at + 1]
+            yield [*row[:at], run_day or start_day, *row[at:]]
+
+    return Table("motor register", REGISTER_EXPORT_COLUMNS, register_rows(), _about(query))
+
+
 TABLES = {  # kind in the address: (builder, permission to download it)
+    "register": (register_table, "fleet.view_motor"),
     "readings": (readings_table, "fleet.view_reading"),
     "assessments": (assessments_table, "fleet.view_assessment"),
     "life-data": (life_data_table, "fleet.view_fittedcapacitor"),
