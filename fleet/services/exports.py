@@ -9,7 +9,7 @@ import datetime as dt
 from django.db.models import FilteredRelation, Q
 from django.utils import timezone
 
-from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, Column, Table
+from fleet.exports import BOOL, DATE, DATETIME, FLOAT, INT, TEXT, Column, Table
 from fleet.filters import (
     AssessmentFilter,
     BadFilter,
@@ -21,7 +21,8 @@ from fleet.filters import (
     parameter_problems,
     plan_parameters,
 )
-from fleet.models import Assessment, FittedCapacitor, Motor, Reading
+from fleet.imports import columns as import_columns
+from fleet.models import Assessment, CapacitorPart, FittedCapacitor, Motor, Reading, Site
 from fleet.roles import scope_to_user
 
 from . import pages
@@ -345,7 +346,42 @@ def register_table(query, user, request=None) -> Table:
     return Table("motor register", REGISTER_EXPORT_COLUMNS, register_rows(), _about(query))
 
 
+SITE_EXPORT_COLUMNS = [  # the sites import's headings
+    Column("code", description="Site code", source="code"),
+    Column("name", description="Site name", source="name"),
+    Column("time_zone", description="Time zone name (tz database)", source="time_zone"),
+]
+PART_TEXT = ("code", "dielectric", "description", "class_of_operation", "duty", "safety_class")
+PART_EXPORT_COLUMNS = [  # the parts import's headings, in its order
+    Column(
+        name,
+        TEXT if name in PART_TEXT else INT if name == "frequency_hz" else FLOAT,
+        description=description.split(" (")[0],
+        source=name,
+    )
+    for name, description in import_columns.PART_COLUMNS.items()
+]
+
+
+def sites_table(query, user, request=None) -> Table:
+    """The user's sites in the sites import's headings."""
+    rows = _rows(scope_to_user(Site.objects.all(), user).order_by("code"), SITE_EXPORT_COLUMNS)
+    return Table("sites", SITE_EXPORT_COLUMNS, rows, _about(query))
+
+
+def parts_table(query, user, request=None) -> Table:
+    """The parts catalogue in the parts import's headings (a cost as a number of the plant's currency)."""
+    cost = [c.name for c in PART_EXPORT_COLUMNS].index("unit_cost")
+    rows = (
+        [*row[:cost], float(row[cost]), *row[cost + 1 :]]
+        for row in _rows(CapacitorPart.objects.order_by("code"), PART_EXPORT_COLUMNS)
+    )
+    return Table("capacitor parts", PART_EXPORT_COLUMNS, rows, _about(query))
+
+
 TABLES = {  # kind in the address: (builder, permission to download it)
+    "sites": (sites_table, "fleet.view_site"),
+    "parts": (parts_table, "fleet.view_capacitorpart"),
     "register": (register_table, "fleet.view_motor"),
     "readings": (readings_table, "fleet.view_reading"),
     "assessments": (assessments_table, "fleet.view_assessment"),
