@@ -359,7 +359,7 @@ def test_the_message_after_a_read_again_reading_names_the_replacement_it_calls_f
     assert replacement.due_on == day  # in the same visit
     assert said[low.id] == (
         f" With it the plan asks for a replacement: work order {replacement.id}, visit of "
-        f"{day:%Y-%m-%d} ({replacement.reason})."
+        f"{day:%Y-%m-%d}. Why: {replacement.reason}."
     )
     assert "below the tolerance limit" in replacement.reason  # why, in the plan's words
     assert said[fine.id] == " The refit judged the reading: no replacement is due within the visit."

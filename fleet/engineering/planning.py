@@ -324,8 +324,17 @@ def judge(
     settled = (
         "read on "
         + read_on
-        + np.where(wear_first, ", within " + limit_words, " at " + latest + " \u00b5F, above " + limit_words)
-        + ", but its trend crosses it now (likely "
+        + np.where(
+            wear_first,
+            ", within " + limit_words,
+            ", referred to 25 \u00b0C, at " + latest + " \u00b5F, above " + limit_words,
+        )
+        # The likely crossing may be past already ("crosses it now (likely 2026-09)" read in December).
+        + np.where(
+            days[1] <= 0,
+            ", but its trend has likely crossed it since (likely ",
+            ", but its trend crosses it now (likely ",
+        )
         + likely
         + "): replace at the next visit"
     )

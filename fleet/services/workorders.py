@@ -1243,7 +1243,7 @@ def after_reading_again_words(reading) -> str:
     if replacement is not None:  # the reading below its limit, or the trend through it crossing soon
         return (
             f" With it the plan asks for a replacement: work order {replacement.id}, visit of "
-            f"{replacement.due_on:%Y-%m-%d} ({replacement.reason})."
+            f"{replacement.due_on:%Y-%m-%d}. Why: {replacement.reason}."
         )
     judged = Assessment.objects.filter(
         fitted_capacitor_id=reading.fitted_capacitor_id, is_current=True, newest_reading_id__gte=reading.id

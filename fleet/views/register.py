@@ -152,17 +152,21 @@ def site_in_any_case(view):
     return with_site
 
 
-def reassessing_words(fitted_capacitor, assessment, readings) -> str:
+def reassessing_words(fitted_capacitor, assessment, readings) -> dict | None:
     """What the page says while a reading saved after the assessment waits for its refit
-    (`pages.reading_not_assessed`): the reading's own verdict as measured, and that the risk is from before it."""
+    (`pages.reading_not_assessed`): `verdict`, the reading's own as measured (the page's "Latest" is that reading),
+    and `words`, that the risk and dates are from the readings before it; None where none waits."""
     reading = pages.reading_not_assessed(assessment, readings)
     if reading is None:
-        return ""
+        return None
     when = reading_time_text(timezone.localtime(reading.taken_at, site_zone(fitted_capacitor.motor.site.time_zone)))
-    return (
-        f"Being reassessed: the reading of {when} ({measured_words(reading, fitted_capacitor.part)}) is not in the "
-        "risk and dates shown yet, which are from the readings before it; reload in a minute."
-    )
+    measured = measured_words(reading, fitted_capacitor.part)
+    return {
+        "verdict": measured.split(", ", 1)[1],
+        "words": f"Being reassessed: the reading of {when} ({measured}) is not in the risk and dates shown yet, "
+        "which are from the readings before it. Reload in a minute (with the task queue down, the refit comes within "
+        "15 minutes).",
+    }
 
 
 def fitted_capacitor_or_404(request, fitted_capacitor_id) -> FittedCapacitor:

@@ -214,11 +214,15 @@ def test_a_reading_since_the_early_crossing_settles_read_again():
     assert result.risk.tolist() == [RISK_DUE_SOON] * 4
     assert result.due_days.tolist() == [7.0] * 4  # the next visit: a week's notice for spares
     assert result.reason[0] == (
-        "read on 2026-12-01 at 9.45 \u00b5F, above the tolerance limit (9.40 \u00b5F), but its trend crosses it now "
-        "(likely 2026-12): replace at the next visit"
+        "read on 2026-12-01, referred to 25 \u00b0C, at 9.45 \u00b5F, above the tolerance limit (9.40 \u00b5F), "
+        "but its trend crosses it now (likely 2026-12): replace at the next visit"
     )
     # Two weeks before the crossing (2026-11-11) still answers it (a capacitor moves little in a visit window).
-    assert result.reason[1].startswith("read on 2026-10-28 at 9.45")
+    assert result.reason[1].startswith("read on 2026-10-28, referred to 25 \u00b0C, at 9.45")
+    # A walk: the value said is the one referred to 25 C (the readings table shows it as measured), and a likely
+    # crossing already past is not "now" ("crosses it now (likely 2026-09)" read in December).
+    past = _judge([-20.0], [-10.0], latest=[0.945], now=[0.945], read_on=["2026-12-01"])
+    assert "but its trend has likely crossed it since (likely 2026-11): replace at the next visit" in past.reason[0]
     assert result.reason[2].endswith("): read it again") and result.reason[3].endswith("): read it again")
     below = _judge([-20.0], [18.0], latest=[0.935], read_on=["2026-12-01"])
     assert below.risk[0] == RISK_REPLACE_NOW and not below.read_again[0]
