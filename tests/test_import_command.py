@@ -1566,6 +1566,8 @@ def test_a_register_carries_each_motors_walking_order_insulation_class_and_its_c
     text += row.format(tag="FAN-8", order="twelve", cls="F", serial="", start="")
     text += row.format(tag="FAN-9", order="3", cls="F", serial="", start="2301-0001")
     text += row.format(tag="FAN-1", order="5", cls="", serial="", start="")  # stored already, at order 0
+    text += row.format(tag="FAN-10", order="4", cls="F", serial="x" * 61, start="")
+    text += row.format(tag="FAN-11", order="4", cls="F/H", serial="", start="")
     report = io.StringIO()
     call_command("import", "register", str(write(tmp_path, "more.csv", text)), "--good-rows-only", stdout=report)
     said = report.getvalue()
@@ -1575,7 +1577,9 @@ def test_a_register_carries_each_motors_walking_order_insulation_class_and_its_c
     assert "row 3, route_order: not a whole number of 0 or more" in said
     assert "row 4, start_serial: no start_part_code on this row" in said
     assert "row 5, route_order: this motor is stored already with route_order 0, the file says 5" in said
-    assert not Motor.objects.filter(asset_tag__in=["FAN-8", "FAN-9"]).exists()
+    assert "row 6, run_serial: longer than 60 characters" in said  # the length rule of every import's text
+    assert "row 7, insulation_class: longer than 2 characters" in said
+    assert not Motor.objects.filter(asset_tag__in=["FAN-8", "FAN-9", "FAN-10", "FAN-11"]).exists()
     assert Motor.objects.get(asset_tag="FAN-1").route_order == 0
 
 

@@ -220,7 +220,7 @@ def _named_by_fitting_day(
     given = texts.ne("").to_numpy()
     if not given.any():  # the usual file: no such column
         return named
-    days = pd.to_datetime(texts.where(given), format="%Y-%m-%d", errors="coerce")
+    days = parse_dates(texts)  # the one reading of a date the imports have
     unreadable = given & days.isna().to_numpy()
     problems.add(unreadable, "capacitor_fitted_on", "not a date (use 2026-03-14), or empty")
     fitted_days = pd.to_datetime(fitted["fitted_on"]).to_numpy("datetime64[ns]")
@@ -982,23 +982,11 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
             name,
             f"no {part_column} on this row: leave it empty, or give the part fitted",
         )
-    serial_length = FittedCapacitor._meta.get_field("serial").max_length
-    for name in ("run_serial", "start_serial"):
-        problems.add(
-            frame[name].str.len() > serial_length, name, f"longer than {serial_length} characters", of_cell=True
-        )
     # The walking order a plant had (a round-trip audit found every motor's at 0 after a migration).
     order_given = frame["route_order"].str.strip().ne("")
     whole = frame["route_order"].str.strip().str.fullmatch(r"[0-9]{1,9}").fillna(False)
     problems.add(order_given & ~whole, "route_order", "not a whole number of 0 or more", of_cell=True)
     numbers["route_order"] = pd.to_numeric(frame["route_order"].str.strip().where(whole), errors="coerce").to_numpy()
-    class_length = Motor._meta.get_field("insulation_class").max_length
-    problems.add(
-        frame["insulation_class"].str.strip().str.len() > class_length,
-        "insulation_class",
-        f"longer than {class_length} characters (B, F, H...)",
-        of_cell=True,
-    )
     tags = frame["asset_tag"].str.upper()
     repeated = tags.duplicated(keep="first") & tags.ne("")
     first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))

@@ -153,7 +153,8 @@ KINDS = {
         columns.REGISTER_REQUIRED,
         import_checks.check_register,
         _write_register,
-        _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location"}),
+        _max_lengths(Motor, {"asset_tag": "asset_tag", "location": "location", "insulation_class": "insulation_class"})
+        | _max_lengths(FittedCapacitor, {"run_serial": "serial", "start_serial": "serial"}),
         "site",
     ),
     ImportJob.Kind.HISTORY: Kind(
