@@ -263,7 +263,8 @@ def decimals_to_tell_apart(value, limit, fewest: int = 2, most: int = 4) -> np.n
     value, limit = np.broadcast_arrays(np.asarray(value, float), np.asarray(limit, float))
     places = np.full(value.shape, fewest)
     with np.errstate(invalid="ignore"):
-        differ = np.isfinite(value) & np.isfinite(limit) & (value != limit)
+        # Only values within a unit of the last decimal can be written alike: the rest of a fleet is not formatted.
+        differ = np.isfinite(value) & np.isfinite(limit) & (value != limit) & (np.abs(value - limit) < 10.0**-fewest)
     for k in range(fewest, most):
         asked = np.flatnonzero(differ & (places == k))
         same = np.array([f"{value.flat[i]:.{k}f}" == f"{limit.flat[i]:.{k}f}" for i in asked], bool)

@@ -694,10 +694,10 @@ def latest_refit_run():
     return RefitRun.objects.order_by("-started_at").first()
 
 
-def _before(since: dt.datetime, field: str, outer: str = "fitted_capacitor_id"):
+def _before(since: dt.datetime, field: str):
     """A capacitor's `field` in its newest assessment made before `since` (NULL: none was)."""
     return Subquery(
-        Assessment.objects.filter(fitted_capacitor_id=OuterRef(outer), created_at__lt=since)
+        Assessment.objects.filter(fitted_capacitor_id=OuterRef("fitted_capacitor_id"), created_at__lt=since)
         .order_by("-created_at")
         .values(field)[:1]
     )

@@ -15,7 +15,7 @@ from django.utils.safestring import mark_safe
 from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_WITHIN
 from fleet.engineering.lifedata import age_in_words
 from fleet.engineering.planning import RISK_DUE_SOON, RISK_REPLACE_NOW, RISK_SOUND, RISK_WATCH, TOLERANCE_LIMIT
-from fleet.engineering.rules import decimals_to_tell_apart, microfarad_text, reading_time_text
+from fleet.engineering.rules import decimals_to_tell_apart, fixed_decimals, microfarad_text, reading_time_text
 from fleet.services.assessments import DEFECT_REASON, DISSIPATION_LIMIT
 from fleet.services.workorders import READ_FOR_WORDS
 
@@ -85,7 +85,7 @@ def microfarads_beside(value, limit_uf):
     if value is None or limit_uf is None:
         return microfarads(value)
     places = int(decimals_to_tell_apart(value, limit_uf))
-    return microfarads(value) if places <= 2 else f"{float(value):.{places}f}"
+    return microfarads(value) if places <= 2 else fixed_decimals(value, places).item()
 
 
 ISO_DAY = "Y-m-d"
