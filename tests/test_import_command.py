@@ -1,5 +1,6 @@
 """`manage.py import KIND FILE`: a whole migration from files, with the web import's checks and report."""
 
+import csv
 import datetime as dt
 import io
 from decimal import Decimal
@@ -1630,3 +1631,93 @@ def test_the_sites_and_parts_exports_import_again_as_already_there(tmp_path, cli
             call_command("import", kind, str(path), "--dry-run", stdout=report)
         count = {"sites": Site.objects.count(), "parts": CapacitorPart.objects.count()}[kind]
         assert f": {count} rows: 0 good, {count} already imported, 0 with problems." in report.getvalue(), kind
+
+
+def test_a_reading_and_its_correction_moved_to_another_installation_keep_their_link(tmp_path, client, engineer):
+    """A round-trip audit: the readings export writes a corrected reading and its correction as two rows (the
+    correction's `supersedes` names the other's `id`); the import refused the second as "a reading of this
+    capacitor at the same time", and with good rows only imported the corrected value alone, back into the trend.
+    [ours] both are imported, the correction naming the reading it corrects, as the form stored them; the
+    export of the new installation imports again as already there."""
+    from fleet.services.readings import record_reading
+
+    migrate_all(tmp_path)
+    fan = FittedCapacitor.objects.get(motor__asset_tag="FAN-1", removed_on__isnull=True)
+    taken = dt.datetime(2025, 6, 2, 8, 30, tzinfo=dt.UTC)
+    typo = record_reading(
+        fitted_capacitor=fan, values={"method": "meter", "capacitance_uf": "6.1", "taken_at": taken}, confirmed=True
+    )
+    record_reading(fitted_capacitor=fan, values={"method": "meter", "capacitance_uf": "7.75"}, supersedes_id=typo.id)
+    client.force_login(engineer)
+    export = tmp_path / "export.csv"
+    export.write_bytes(b"".join(client.get("/exports/readings.csv").streaming_content))
+    # Another installation, as a second motor like the first: its rows of the capacitor in service, under the
+    # other tag, without this database's capacitor ids; the readings' own ids kept, as the export wrote them.
+    run("register", write(tmp_path, "twin.csv", REGISTER.replace("FAN-1,", "FAN-2,").replace("CMP-1,", "CMP-2,")))
+    rows = list(csv.DictReader(io.StringIO(export.read_text(encoding="utf-8-sig"))))
+    moved = [
+        {**row, "asset_tag": "FAN-2", "fitted_capacitor_id": ""}
+        for row in rows
+        if row["capacitor_fitted_on"] == fan.fitted_on.isoformat()
+    ]
+    assert len(moved) == 3 and sum(bool(row["supersedes"]) for row in moved) == 1
+    text = io.StringIO()
+    writer = csv.DictWriter(text, fieldnames=list(rows[0]))
+    writer.writeheader()
+    writer.writerows(moved)
+    said = run("readings", write(tmp_path, "moved.csv", text.getvalue()))
+    assert ": 3 rows: 3 good, 0 already imported, 0 with problems." in said
+    twin = Reading.objects.filter(fitted_capacitor__motor__asset_tag="FAN-2")
+    correction = twin.get(capacitance_uf=7.75)
+    assert correction.supersedes.capacitance_uf == 6.1 and correction.supersedes.taken_at == correction.taken_at
+    assert twin.filter(supersedes__isnull=False).count() == 1
+    export_imported_again_adds_nothing(tmp_path, client, Reading.objects.count())
+
+
+def test_corrections_in_a_readings_file_are_held_to_one_capacitor_one_correction_each_and_go_with_their_reading(
+    tmp_path,
+):
+    """[ours] a row's `supersedes` names another row's `id`: the same capacitor, corrected once, never itself; a
+    corrected reading whose correction is refused is refused too (imported alone it would put the value corrected
+    back into the trend); a `supersedes` naming no row of the file leaves a reading of its own; a correction may
+    move the reading's time."""
+    migrate_all(tmp_path)
+    before = Reading.objects.count()
+    text = "id,asset_tag,role,taken_at,capacitance_uf,supersedes\n"
+    text += "1,FAN-1,run,2024-08-01 10:00,7.7,\n"  # row 2
+    text += "2,FAN-1,run,2024-08-02 10:00,7.72,1\n"  # row 3: corrects row 2, a day later
+    text += "3,FAN-1,run,2024-09-01 10:00,7.6,\n"  # row 4: its correction is refused
+    text += "4,FAN-1,run,2024-09-01 10:00,abc,3\n"  # row 5
+    text += "5,FAN-1,run,2024-10-01 10:00,7.5,5\n"  # row 6
+    text += "6,CMP-1,start,2024-10-01 10:00,100,1\n"  # row 7
+    text += "7,FAN-1,run,2024-10-02 10:00,7.71,1\n"  # row 8: row 2 is corrected by row 3 already
+    text += "7,FAN-1,run,2024-10-03 10:00,7.69,\n"  # row 9
+    text += "8,FAN-1,run,2024-12-01 10:00,7.4,999\n"  # row 10: names no row of the file
+    text += "9,FAN-1,run,2024-12-02 10:00,7.4,x9\n"  # row 11
+    report = io.StringIO()
+    call_command("import", "readings", str(write(tmp_path, "fixes.csv", text)), "--good-rows-only", stdout=report)
+    said = report.getvalue()
+    assert "row 4, supersedes: row 5 corrects this reading and is refused" in said
+    assert "row 5, capacitance_uf: abc is not a number" in said
+    assert "row 6, supersedes: a reading cannot correct itself" in said
+    assert "row 7, supersedes: row 2 is a reading of another capacitor" in said
+    assert "row 8, supersedes: row 2 is corrected by an earlier row already" in said
+    assert "row 9, id: the same id as row 8" in said
+    assert "row 11, supersedes: not a whole number" in said
+    new = Reading.objects.order_by("id")[before:]
+    assert [(r.capacitance_uf, r.supersedes.capacitance_uf if r.supersedes else None) for r in new] == [
+        (7.7, None),
+        (7.4, None),
+        (7.72, 7.7),
+    ]
+    # A correction of a reading stored already (imported before without its correction) is refused: beside the
+    # stored reading it would leave the value it puts right in the trend.
+    first = "id,asset_tag,role,taken_at,capacitance_uf,supersedes\n10,FAN-1,run,2025-01-05 10:00,7.3,\n"
+    run("readings", write(tmp_path, "first.csv", first))
+    again = first + "11,FAN-1,run,2025-01-06 10:00,7.35,10\n"
+    report = io.StringIO()
+    with pytest.raises(CommandError):
+        call_command("import", "readings", str(write(tmp_path, "again.csv", again)), stdout=report)
+    assert "1 already imported, 1 with problems" in report.getvalue()
+    assert "row 3, supersedes: row 2, which this row corrects, is stored already" in report.getvalue()
+    assert not Reading.objects.filter(capacitance_uf=7.35).exists()

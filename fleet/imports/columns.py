@@ -48,6 +48,10 @@ READING_COLUMNS = {
     "capacitor_fitted_on": "The day the capacitor read was fitted, as the readings export writes it (optional): "
     "which capacitor of this motor in this role, the same in every installation where ids are not (on a replacement "
     "day, the new one or the removed one); with fitted_capacitor_id, the two must agree",
+    "id": "The reading's id in the readings export it came from (optional): names it for a row that corrects it",
+    "supersedes": "The id of the reading this row corrects, another row of the same file, as the readings export "
+    "writes a correction (optional): both are imported, the corrected one kept as it was and out of the trend; a "
+    "row naming no row of the file is imported as a reading of its own",
     "confirmed": "yes to keep a value the reading form would ask to confirm ("
     + "; ".join(CONFIRMATION_CASES.values())
     + "), as re-checked; no or empty: such a row is refused (also true/false, 1/0); a column headed "

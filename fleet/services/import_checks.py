@@ -329,13 +329,21 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             )
         )
         progress(0, start)
+    links = _corrections_in_file(frame, _placed_capacitors(placed))
     # A reading without a stored trend is held to the line between its capacitor's readings just before and
-    # after it in the whole file, not in its part: a history sorted by date has a capacitor's in every part.
-    lines = _neighbours_in_file(placed)
+    # after it in the whole file, not in its part: a history sorted by date has a capacitor's in every part. A
+    # reading corrected in the file is no neighbour: it was put right because it was wrong.
+    lines = _neighbours_in_file(placed, corrected=links.corrected_by >= 0)
     good_parts, asked_parts, errors = [], [], []
     for start, part in zip(starts, placed, strict=True):
         between, before_uf, after_uf = (values[start : start + len(part.chunk)] for values in lines)
         chunk, problems, zones, match, confirmed = part.chunk, part.problems, part.zones, part.match, part.confirmed
+        here = slice(start, start + len(chunk))
+        for name, messages in (("id", links.id_problems[here]), ("supersedes", links.supersedes_problems[here])):
+            problems.add(messages != "", name, messages, of_cell=True)
+        # A reading corrected by another row is kept as it was typed and never judged again: nothing asks to
+        # confirm it (the trend does not use it), and its own confirmed column is what is stored.
+        judged_confirmed = confirmed | (links.corrected_by[here] >= 0)
         taken, taken_utc, taken_on = part.taken, part.taken_utc, part.taken_on
         from_file = np.isnan(part.predicted) & np.isfinite(between)
         predicted = np.where(from_file, between, part.predicted)
@@ -358,7 +366,7 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             time_zone=zones.fillna(default_tz).to_numpy(object),
             now=now,
             predicted_uf=predicted,
-            confirmed=confirmed,
+            confirmed=judged_confirmed,
         )
         _point_past_a_removal(result.errors, chunk)
         said = result.confirm.get("capacitance_uf")
@@ -426,9 +434,12 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     # The same capacitor, time and method with another value, neither stored yet: a row edited and added again,
     # never two readings (a reading and its correction, exported and imported again, are both stored already).
     moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
-    clash = moment.duplicated(keep="first").to_numpy()
+    corrected = links.corrected_rows(good["row"])
+    clash = moment[~corrected].duplicated(keep="first").reindex(moment.index, fill_value=False).to_numpy()
     if clash.any():
-        first = good[~clash].set_index(["fitted_capacitor_id", "taken_at", "method"])[["row", "capacitance_uf"]]
+        first = good[~clash & ~corrected].set_index(["fitted_capacitor_id", "taken_at", "method"])[
+            ["row", "capacitance_uf"]
+        ]
         earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
         errors += [
             (
@@ -440,8 +451,157 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
             for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
         ]
         good = good[~clash].reset_index(drop=True)
+    good, unpaired = links.kept_together(good, refused={row for row, _, _ in errors})
+    errors += unpaired
     errors.sort()
     return CheckResult(good=good, errors=errors, duplicates=duplicates, total=len(frame))
+
+
+@dataclass
+class _Corrections:
+    """The rows of a readings file that correct other rows of it (the readings export's `id` and `supersedes`),
+    by position in the file: the row each corrects and the row that corrects it (-1: none), and the two columns'
+    problems ("": none). Moving readings to another installation, a corrected reading and its correction come
+    as two rows; imported as two plain readings, the value put right came back into the trend (at one time, the
+    correction was refused, and with good rows only the wrong value was imported alone)."""
+
+    rows: np.ndarray
+    corrects: np.ndarray
+    corrected_by: np.ndarray
+    id_problems: np.ndarray
+    supersedes_problems: np.ndarray
+
+    def corrected_rows(self, rows: pd.Series) -> np.ndarray:
+        """Per row number, whether another row of the file corrects it."""
+        return self._of_rows(self.corrected_by, rows) >= 0
+
+    def _of_rows(self, positions: np.ndarray, rows: pd.Series) -> np.ndarray:
+        return pd.Series(positions, index=self.rows).reindex(rows.to_numpy()).fillna(-1).to_numpy(np.int64)
+
+    def kept_together(self, good: pd.DataFrame, refused: set[int]) -> tuple[pd.DataFrame, list[tuple]]:
+        """The good rows, each with `corrects_row` (the row number of the good row it corrects, -1: none, stored as
+        a reading of its own), less each corrected row whose correction was refused: it goes with its correction
+        or not at all (a chain of corrections from its far end down); and less each correction of a row stored
+        already (neither good nor `refused`): the import never changes a stored reading, and beside it the
+        correction would leave the value it puts right in the trend. Returns (rows kept, their problems)."""
+        if not (self.corrects >= 0).any():  # the usual file
+            return good.assign(corrects_row=np.full(len(good), -1, np.int64)), []
+        corrects = self._of_rows(self.corrects, good["row"])
+        corrects_row = np.where(corrects >= 0, self.rows[np.maximum(corrects, 0)], -1)
+        of_stored = (
+            (corrects_row >= 0) & ~np.isin(corrects_row, good["row"].to_numpy()) & ~np.isin(corrects_row, list(refused))
+        )
+        problems = [
+            (
+                int(row),
+                "supersedes",
+                f"row {int(named)}, which this row corrects, is stored already: an import never changes a stored "
+                "reading; correct it from the capacitor's page",
+            )
+            for row, named in zip(good["row"][of_stored], corrects_row[of_stored], strict=True)
+        ]
+        kept_out = set(good["row"][of_stored].tolist())
+        good = good[~of_stored].reset_index(drop=True)
+        while True:
+            kept = pd.Series(True, index=good["row"].to_numpy())
+            correction = self._of_rows(self.corrected_by, good["row"])
+            correction_row = np.where(correction >= 0, self.rows[np.maximum(correction, 0)], -1)
+            orphaned = (correction >= 0) & ~kept.reindex(correction_row).fillna(False).to_numpy(bool)
+            if not orphaned.any():
+                break
+            problems += [
+                (
+                    int(row),
+                    "supersedes",
+                    f"row {int(by)} corrects this reading and is refused: a corrected reading is imported with its "
+                    "correction or not at all"
+                    if by in refused or by in kept_out
+                    else f"row {int(by)} corrects this reading and is stored already, without it: an import never "
+                    "changes a stored reading, so this one would be a reading of its own, the value put right back in "
+                    "the trend",
+                )
+                for row, by in zip(good["row"][orphaned], correction_row[orphaned], strict=True)
+            ]
+            kept_out |= set(good["row"][orphaned].tolist())
+            good = good[~orphaned].reset_index(drop=True)
+        corrects = self._of_rows(self.corrects, good["row"])
+        corrects_row = np.where(corrects >= 0, self.rows[np.maximum(corrects, 0)], -1)
+        good["corrects_row"] = np.where(np.isin(corrects_row, good["row"].to_numpy()), corrects_row, -1)
+        return good, problems
+
+
+CORRECTION_CHAIN_MAX = 64  # links followed looking for a loop of corrections; a real chain has a few
+
+
+def _corrections_in_file(frame: pd.DataFrame, capacitor: np.ndarray) -> _Corrections:
+    """Which rows of a readings file correct which (`_Corrections`), from its `id` and `supersedes` columns,
+    with each row's capacitor as placed (-1: not placed). A correction names a row of the file by its id: of the
+    same capacitor, corrected once, and no loop; a repeated id names no row. A `supersedes` naming no row of the
+    file is no link (the row is a reading of its own)."""
+    n = len(frame)
+    rows = frame["row"].to_numpy(np.int64)
+    positions = np.arange(n)
+    named, supersedes_problems = _file_ids(frame["supersedes"], "the id of the reading this row corrects, or empty")
+    corrects = np.full(n, -1, np.int64)
+    corrected_by = np.full(n, -1, np.int64)
+    if not (named >= 0).any():  # the usual file: ids name nothing, and are not read
+        return _Corrections(rows, corrects, corrected_by, np.full(n, "", object), supersedes_problems)
+    ids, id_problems = _file_ids(frame["id"], "the reading's id from the readings export, or empty")
+    given = ids >= 0
+    repeated = given & pd.Series(ids).duplicated(keep=False).to_numpy()
+    first_of = pd.Series(rows[given], index=ids[given])
+    first_of = first_of[~first_of.index.duplicated(keep="first")]
+    id_problems = np.where(
+        repeated & pd.Series(ids).duplicated(keep="first").to_numpy() & (id_problems == ""),
+        "the same id as row " + first_of.reindex(ids).fillna(0).astype(np.int64).astype(str).to_numpy(object)
+        + ": a correction could not tell which row it names",
+        id_problems,
+    )  # fmt: skip
+    unique = given & ~repeated
+    position_of = pd.Series(positions[unique], index=ids[unique])
+    corrects = position_of.reindex(named).fillna(-1).to_numpy(np.int64)
+    corrects[named < 0] = -1
+    linked = corrects >= 0
+    target = np.maximum(corrects, 0)
+    itself = linked & (target == positions)
+    elsewhere = linked & ~itself & (capacitor >= 0) & (capacitor[target] >= 0) & (capacitor[target] != capacitor)
+    named_before = pd.Series(np.where(linked, corrects, -positions - 1)).duplicated().to_numpy()
+    twice = linked & ~itself & ~elsewhere & named_before
+    looped = _in_a_loop(np.where(itself | elsewhere | twice, -1, corrects))
+    named_row = rows[target].astype(str)
+    for mask, words in (
+        (itself, np.full(n, "a reading cannot correct itself", object)),
+        (elsewhere, "row " + named_row + " is a reading of another capacitor: a correction is of the same one"),
+        (twice, "row " + named_row + " is corrected by an earlier row already: correct the newest of the two"),
+        (looped, "row " + named_row + " is in a loop of corrections, each correcting the next: none is the newest"),
+    ):
+        supersedes_problems = np.where(mask & (supersedes_problems == ""), words, supersedes_problems)
+    corrects[itself | elsewhere | twice | looped] = -1
+    valid = corrects >= 0
+    corrected_by[corrects[valid]] = positions[valid]
+    return _Corrections(rows, corrects, corrected_by, id_problems, supersedes_problems)
+
+
+def _file_ids(texts: pd.Series, what: str) -> tuple[np.ndarray, np.ndarray]:
+    """A column of ids as the readings export writes them: (ids, -1 where empty or unreadable; messages)."""
+    texts = texts.reset_index(drop=True).str.strip()
+    given = texts.ne("").to_numpy()
+    if not given.any():
+        return np.full(len(texts), -1, np.int64), np.full(len(texts), "", object)
+    whole = texts.str.fullmatch(r"[0-9]{1,18}(?:\.0*)?").to_numpy(bool)  # ASCII digits, as a spreadsheet writes
+    ids = pd.to_numeric(texts.where(whole), errors="coerce").fillna(-1).astype(np.int64).to_numpy()
+    return ids, np.where(given & ~whole, f"not a whole number: {what}", "").astype(object)
+
+
+def _in_a_loop(corrects: np.ndarray) -> np.ndarray:
+    """Per row, whether following the rows it corrects comes back round (a loop has no newest reading)."""
+    step = corrects.copy()
+    for _ in range(CORRECTION_CHAIN_MAX):
+        going = step >= 0
+        if not going.any():
+            break
+        step = np.where(going, corrects[np.maximum(step, 0)], -1)
+    return step >= 0
 
 
 def _checked_rows(chunk, match, taken, result, confirmed, mask) -> pd.DataFrame:
@@ -630,8 +790,16 @@ def _place_readings(chunk, tag, zone_of_tag, fitted, first_fitted, default_tz: s
     )
 
 
-def _neighbours_in_file(placed: list[_PlacedReadings]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """`rules.neighbours_line` over every part of the file at once: (line, before, after) per row."""
+def _placed_capacitors(placed: list[_PlacedReadings]) -> np.ndarray:
+    """Each row's capacitor as placed (-1: none), over the whole file."""
+    return np.concatenate([part.capacitor for part in placed]) if placed else np.zeros(0, np.int64)
+
+
+def _neighbours_in_file(
+    placed: list[_PlacedReadings], corrected: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """`rules.neighbours_line` over every part of the file at once: (line, before, after) per row; a `corrected`
+    row is no one's neighbour."""
     if not placed:
         return np.array([]), np.array([]), np.array([])
 
@@ -641,7 +809,7 @@ def _neighbours_in_file(placed: list[_PlacedReadings]) -> tuple[np.ndarray, np.n
     return neighbours_line(
         joined(lambda part: part.capacitor),
         joined(lambda part: part.taken_utc),
-        joined(lambda part: part.typed_uf),
+        np.where(corrected, np.nan, joined(lambda part: part.typed_uf)),
         joined(lambda part: part.match["rated_uf"].to_numpy(float)),
         taken_on=joined(lambda part: np.asarray(part.taken_on, "datetime64[D]")),
         removed_on=joined(lambda part: pd.to_datetime(part.match["removed_on"]).to_numpy("datetime64[D]")),
@@ -775,10 +943,38 @@ def insert_readings(good: pd.DataFrame) -> list[int]:
     An imported reading has no taker (`taken_by`): whoever imports the file did not measure it.
 
     One `insert_frame` (COPY on PostgreSQL; the row triggers of fleet_reading run on each row as
-    for any insert). A reading whose key another import wrote meanwhile is skipped.
+    for any insert). A reading whose key another import wrote meanwhile is skipped. A row that corrects another
+    of the file (`corrects_row`, `_Corrections`) goes in after it, naming its id in `supersedes`: one more
+    `insert_frame` for each link of the longest chain, none in a file without corrections.
     """
     if not len(good):
         return []
+    corrects_row = good["corrects_row"].to_numpy(np.int64) if "corrects_row" in good else np.full(len(good), -1)
+    # A row whose corrected row left the file's good rows after its check (stored meanwhile) is a reading of its own.
+    written = (corrects_row < 0) | ~np.isin(corrects_row, good["row"].to_numpy())
+    _insert_reading_rows(good[written], supersedes_id=None)
+    while not written.all():
+        stored_ids = pd.Series(
+            dict(
+                Reading.objects.filter(import_key__any_of=good["import_key"].to_numpy(object)[written]).values_list(
+                    "import_key", "id"
+                )
+            ),
+            dtype="Int64",
+        )
+        id_of_row = pd.Series(stored_ids.reindex(good["import_key"][written]).to_numpy(), index=good["row"][written])
+        ready = ~written & np.isin(corrects_row, good["row"].to_numpy()[written])
+        if not ready.any():  # the check lets no loop of corrections through: rolled back, never half-written
+            raise RuntimeError(f"readings import: {int((~written).sum())} corrections name no reading written")
+        _insert_reading_rows(good[ready], supersedes_id=id_of_row.reindex(corrects_row[ready]).array)
+        written |= ready
+    return sorted(set(good["fitted_capacitor_id"].astype(int).tolist()))
+
+
+def _insert_reading_rows(good: pd.DataFrame, supersedes_id) -> None:
+    """One `insert_frame` of checked readings, each correcting the reading `supersedes_id` gives (None: none)."""
+    if not len(good):
+        return
     rows = pd.DataFrame(
         {
             "fitted_capacitor_id": good["fitted_capacitor_id"].to_numpy(np.int64),
@@ -791,10 +987,10 @@ def insert_readings(good: pd.DataFrame) -> list[int]:
             "outlier_confirmed": good["outlier_confirmed"].to_numpy(bool),
             "source": Reading.Source.IMPORT.value,
             "import_key": good["import_key"].to_numpy(object),
+            "supersedes_id": pd.array(np.full(len(good), None) if supersedes_id is None else supersedes_id, "Int64"),
         }
     )
     insert_frame(Reading, rows, skip_conflicts_on="import_key")
-    return sorted(set(good["fitted_capacitor_id"].astype(int).tolist()))
 
 
 def _unknown(what: str, typed: pd.Series, hint: str) -> np.ndarray:
