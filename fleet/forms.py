@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import hashlib
+import json
 import re
 import uuid
 
@@ -100,6 +102,10 @@ class ReadingForm(forms.Form):
         required=False, widget=forms.Textarea(attrs={"rows": 2, "maxlength": RULES.notes_max_chars})
     )
     confirmed = forms.BooleanField(required=False, widget=forms.HiddenInput)
+    # The values the page asked to confirm (`values_asked_about`): a confirmation counts for those values only, so a
+    # value changed after the question and saved with "Value is right" is asked about again (an audit saved a
+    # millifarad slip typed after a question about the case temperature, confirmed unseen).
+    asked_about = forms.CharField(required=False, max_length=64, widget=forms.HiddenInput)
     # One-time key of this page: a second submit of the same page saves nothing (the service checks it).
     client_key = forms.CharField(required=False, max_length=64, widget=forms.HiddenInput)
     # The reading this one corrects (reached from "Correct" beside a reading on the capacitor page).
@@ -184,15 +190,20 @@ class ReadingForm(forms.Form):
             )
         return cleaned
 
+    NOT_MEASURED = frozenset(
+        {"confirmed", "asked_about", "client_key", "supersedes", "shown_values", "removal_seen", "offered_at"}
+    )
+
     def measured_values(self) -> dict:
-        data = {
-            key: value
-            for key, value in self.cleaned_data.items()
-            if key not in {"confirmed", "client_key", "supersedes", "shown_values", "removal_seen", "offered_at"}
-        }
+        data = {key: value for key, value in self.cleaned_data.items() if key not in self.NOT_MEASURED}
         if data["method"] == Reading.Method.IN_CIRCUIT:
             data.pop("capacitance_uf", None)
         return data
+
+    def values_asked_about(self) -> str:
+        """A digest of the values typed (`measured_values`), as the page carries it when it asks to confirm."""
+        text = json.dumps(self.measured_values(), sort_keys=True, default=str)
+        return hashlib.sha256(text.encode()).hexdigest()[:32]
 
 
 class ReplacementForm(forms.Form):

@@ -560,8 +560,10 @@ class FittedCapacitor(models.Model):
         return self.readings.filter(taken_at__gte=next_day)
 
     def clean(self):
-        """Service dates no record has (the history import's rule), and a removal date earlier than a
-        reading of this capacitor (the trigger holds it too), are refused at their field."""
+        """Service dates no record has (the history import's rule), a removal date earlier than a reading of
+        this capacitor (the trigger holds it too), and a fitting date later than one (an audit moved a fitting
+        date past sixteen readings in the admin, the refit judging them as read before the capacitor was there)
+        are refused at their field."""
         super().clean()
         self._fitting_rules()
         if self.fitted_on is not None:
@@ -570,6 +572,18 @@ class FittedCapacitor(models.Model):
             )
             if errors:
                 raise ValidationError(errors)
+        if self.pk and self.fitted_on is not None:
+            zone = site_zone(self.motor.site.time_zone)
+            fitting_day = dt.datetime.combine(self.fitted_on, dt.time(), tzinfo=zone)
+            earlier = self.readings.filter(taken_at__lt=fitting_day).order_by("taken_at").first()
+            if earlier is not None:
+                raise ValidationError(
+                    {
+                        "fitted_on": f"This capacitor has readings before {self.fitted_on} (the first on "
+                        f"{timezone.localtime(earlier.taken_at, zone):%Y-%m-%d}, site time): the fitting date cannot "
+                        "be later."
+                    }
+                )
         if self.pk and self.removed_on is not None:
             later = self.readings_after(self.removed_on).order_by("-taken_at").first()
             if later is not None:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import datetime as dt
 import itertools
+import re
 
 from django.contrib.auth.models import Group, User
 from django.utils import timezone
@@ -161,3 +162,11 @@ def stored_assessment(
     if created_at is not None:
         Assessment.objects.filter(id=assessment.id).update(created_at=created_at)
     return assessment
+
+
+def confirmation_of(response) -> dict:
+    """What the reading form's "Value is right: save it" sends on the page `response` drew: the confirmation and
+    the digest of the values that page asked about (`asked_about`), which the confirmation counts for."""
+    found = re.search(r'name="asked_about" value="([0-9a-f]+)"', response.content.decode())
+    assert found, "the page asked nothing to confirm"
+    return {"confirmed": "on", "asked_about": found.group(1)}

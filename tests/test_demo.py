@@ -13,7 +13,19 @@ from fleet.models import Assessment, FittedCapacitor, Motor, Reading, WorkOrder
 pytestmark = pytest.mark.django_db
 
 
-def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_on_commit_callbacks):
+def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_on_commit_callbacks, monkeypatch):
+    from fleet.management.commands import demo
+
+    def removals():
+        return sorted(FittedCapacitor.objects.filter(removed_on__isnull=False).values_list("id", "removal_reason"))
+
+    estimated_on = []  # the register's removals each time the life data are estimated
+
+    def refresh_life_fits(refresh=demo.refresh_life_fits):
+        estimated_on.append(removals())
+        return refresh()
+
+    monkeypatch.setattr(demo, "refresh_life_fits", refresh_life_fits)
     with django_capture_on_commit_callbacks(execute=True):  # the fleet refit is dispatched on commit
         call_command("demo", "--no-serve", "--scale", "0.05")
     first = (Motor.objects.count(), FittedCapacitor.objects.count(), Reading.objects.count())
@@ -49,6 +61,9 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     assert Assessment.objects.filter(is_current=False, created_at__lt=week_ago).exists()
     states = set(WorkOrder.objects.values_list("state", flat=True))
     assert {"done", "issued"} <= states
+    # The life data are estimated once the demo is built: a walk found the life page saying at once that the
+    # register had changed since (the replacement recorded on the visit under way came after the estimate).
+    assert estimated_on == [removals()]
     assert WorkOrder.objects.filter(state="done", closed_at__date=timezone.localdate()).exists()
     orders = WorkOrder.objects.count()
     call_command("demo", "--no-serve")

@@ -21,7 +21,15 @@ from fleet.models import Assessment, FittedCapacitor, PartLifeFit, Reading, Site
 from fleet.services import pages
 from fleet.services.readings import stored_client_key
 from fleet.templatetags.fleet_format import day, percent_to_a_tenth, verdict_and_risk
-from tests.factories import make_fitted_capacitor, make_motor, make_part, make_site, make_user, stored_assessment
+from tests.factories import (
+    confirmation_of,
+    make_fitted_capacitor,
+    make_motor,
+    make_part,
+    make_site,
+    make_user,
+    stored_assessment,
+)
 
 from .test_rules import api_for, form_post, import_check, import_row
 from .test_substitutes import post_replacement
@@ -184,7 +192,7 @@ def test_a_time_taken_already_is_said_with_every_other_problem_of_the_reading(
     asked = form_post(client, madrid_fitted_capacitor, **fixed)
     assert asked.status_code == 200 and 'id="confirm"' in asked.content.decode()
     assert list(asked.context["form"].errors) == ["capacitance_uf"]
-    assert form_post(client, madrid_fitted_capacitor, **fixed, confirmed="on").status_code == 302
+    assert form_post(client, madrid_fitted_capacitor, **fixed, **confirmation_of(asked)).status_code == 302
     # The API: the time taken already and the rulebook's refusal in one answer.
     api = api_for(technician)
     answer = api.post(

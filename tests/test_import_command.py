@@ -187,7 +187,7 @@ FAN-1,run,RUN-8,2008-01-01,2009-01-01,worn
 
 
 def test_a_bad_row_is_named_by_row_and_field_and_good_rows_only_imports_the_rest(tmp_path):
-    text = SITES + "XX,Nowhere,Mars/Olympus\n" + "YY,,UTC\n" + "PK,Again,UTC\n"
+    text = SITES + "XX,Nowhere,Mars/Olympus\n" + "YY,,UTC\n" + "PK,Packhouse,Europe/Madrid\n"
     path = write(tmp_path, "sites.csv", text)
     out = io.StringIO()
     with pytest.raises(CommandError, match="3 rows have problems, so nothing was imported"):
@@ -930,7 +930,7 @@ def test_days_off_import_by_site_and_day_with_each_bad_row_named(
         "site_code,day,name\n"
         f"PK,{soon},harvest shutdown\n"
         f"CS,{soon},public holiday\n"
-        f"PK,{soon},again\n"
+        f"PK,{soon},harvest shutdown\n"
         f"XX,{later},public holiday\n"
         f"PK,{today - dt.timedelta(days=1)},yesterday\n"
         f"PK,{today + dt.timedelta(days=800)},far\n"
@@ -1038,7 +1038,7 @@ def test_days_off_and_the_register_take_a_site_code_in_any_case_as_the_sites_pag
     today = timezone.localdate()
     monday = today + dt.timedelta(days=7 - today.weekday())
     soon, later = monday + dt.timedelta(days=14), monday + dt.timedelta(days=21)
-    text = f"site_code,day,name\npk,{soon},harvest shutdown\nPk,{soon},again\ncs,{soon},public holiday\n"
+    text = f"site_code,day,name\npk,{soon},harvest shutdown\nPk,{soon},Harvest shutdown\ncs,{soon},public holiday\n"
     report = run("days_off", write(tmp_path, "days.csv", text), "--good-rows-only")
     assert "3 rows: 2 good" in report and "row 3, day: the same site and day as row 2" in report
     assert set(SiteDayOff.objects.values_list("site__code", "day")) == {("PK", soon), ("CS", soon)}
@@ -1721,3 +1721,56 @@ def test_corrections_in_a_readings_file_are_held_to_one_capacitor_one_correction
     assert "1 already imported, 1 with problems" in report.getvalue()
     assert "row 3, supersedes: row 2, which this row corrects, is stored already" in report.getvalue()
     assert not Reading.objects.filter(capacitance_uf=7.35).exists()
+
+
+def test_rows_of_one_key_that_disagree_are_all_refused_and_identical_ones_keep_the_first(tmp_path):
+    """An audit of inputs: with good rows only, the first of two rows of one key was imported whatever the second
+    said (two readings at one time, two register rows of one tag). [ours] rows of one key that say different things
+    are each refused, naming another (the file does not say which is right); a row repeated as it is (in any case)
+    is refused on the later row only, and the first imported."""
+    text = SITES + "PK,Packing hall,Europe/Madrid\n" + "cs,cool store,america/chicago\n"
+    report = io.StringIO()
+    call_command("import", "sites", str(write(tmp_path, "sites.csv", text)), "--good-rows-only", stdout=report)
+    said = report.getvalue()
+    assert "row 2, code: the same site code as row 4, which gives it otherwise" in said
+    assert "row 4, code: the same site code as row 2, which gives it otherwise" in said
+    assert "row 5, code: the same site code as row 3\n" in said and "row 3," not in said
+    assert list(Site.objects.values_list("code", flat=True)) == ["CS"]
+    run("sites", write(tmp_path, "pk.csv", SITES.splitlines()[0] + "\n" + SITES.splitlines()[1] + "\n"))
+    run("parts", write(tmp_path, "parts.csv", PARTS))
+    register = REGISTER + REGISTER.splitlines()[1].replace(",1.9,", ",2.0,") + "\n"
+    report = io.StringIO()
+    call_command("import", "register", str(write(tmp_path, "reg.csv", register)), "--good-rows-only", stdout=report)
+    assert "row 2, asset_tag: the same tag as row 4, which gives it otherwise" in report.getvalue()
+    assert "row 4, asset_tag: the same tag as row 2, which gives it otherwise" in report.getvalue()
+    assert list(Motor.objects.values_list("asset_tag", flat=True)) == ["CMP-1"]
+
+
+def test_a_register_row_giving_a_stored_motor_a_capacitor_it_never_had_is_refused_at_that_field(tmp_path):
+    """An audit of inputs: a register row of a motor stored already with another run part code, fitting day or
+    serial came back "already imported", the change dropped unsaid. [ours] the row may describe the motor on any
+    day (a capacitor it had, in service or past, matches); a part, day or serial no capacitor of that motor and
+    role was stored with is refused at that field."""
+    from tests.factories import make_part
+
+    migrate_all(tmp_path)  # FAN-1: RUN-8 fitted 2023-03-01, and in its history RUN-8 fitted 2021-02-11
+    make_part(code="RUN-10", rated_uf=10.0)
+    header = REGISTER.splitlines()[0] + ",run_fitted_on,run_serial"
+    fan = REGISTER.splitlines()[1]
+    rows = [
+        fan + ",,",  # as stored
+        fan.replace(",2023-03-01", ",2021-02-11") + ",,",  # as it was before its last replacement
+        fan.replace(",RUN-8,", ",RUN-10,") + ",,",
+        fan + ",2023-04-01,",
+        fan + ",,B-77",
+    ]
+    report = io.StringIO()
+    for k, row in enumerate(rows):
+        path = write(tmp_path, f"reg{k}.csv", header + "\n" + row + "\n")
+        with pytest.raises(CommandError):  # nothing would be imported: already there, or refused
+            call_command("import", "register", str(path), "--dry-run", stdout=report)
+    said = report.getvalue()
+    assert said.count(": 1 row: 0 good, 1 already imported, 0 with problems") == 2, said
+    assert "row 2, run_part_code: motor FAN-1 has had no run capacitor of part RUN-10 fitted on 2023-03-01" in said
+    assert "row 2, run_part_code: motor FAN-1 has had no run capacitor of part RUN-8 fitted on 2023-04-01" in said
+    assert "row 2, run_serial: this capacitor is stored already with serial (none), the file says B-77" in said

@@ -108,3 +108,24 @@ def test_a_fitted_capacitor_in_the_admin_keeps_the_register_imports_fitting_rule
         assert words in refused.value.message_dict["part"][0]
     fitted.part = make_part(rated_voltage_v=450)
     fitted.full_clean()
+
+
+def test_a_fitting_date_later_than_a_reading_of_the_capacitor_is_refused_at_its_field():
+    """An audit of inputs: in the admin a capacitor's fitting date moved from 2020 to 2026-11-01 past its sixteen
+    readings from 2023 on, and the refit judged them as read before the capacitor was there. [ours] as a removal
+    date earlier than a reading is refused, a fitting date later than one is, naming the first reading's day at the
+    site; the reading's own day is still a day the capacitor was fitted."""
+    from django.core.exceptions import ValidationError
+
+    fitted = make_fitted_capacitor(fitted_on=dt.date(2020, 2, 28))
+    make_reading(fitted, taken_at=dt.datetime(2023, 3, 1, 9, 0, tzinfo=dt.UTC))
+    make_reading(fitted, taken_at=dt.datetime(2024, 3, 1, 9, 0, tzinfo=dt.UTC))
+    fitted.fitted_on = dt.date(2026, 11, 1)
+    with pytest.raises(ValidationError) as refused:
+        fitted.full_clean()
+    assert refused.value.message_dict["fitted_on"] == [
+        "This capacitor has readings before 2026-11-01 (the first on 2023-03-01, site time): the fitting date "
+        "cannot be later."
+    ]
+    fitted.fitted_on = dt.date(2023, 3, 1)
+    fitted.full_clean()

@@ -45,7 +45,7 @@ def test_the_weeks_readings_not_corrected_since_are_counted_from_the_index_alone
     readings, 10,000 in the week: 28 ms warm and 111 ms cold, against 12 ms; measured 2026-12-04). Common
     practice of the trade, no single source: a covering index (PostgreSQL manual, "Index-Only Scans and
     Covering Indexes"). SQLite keeps the plain index."""
-    from fleet.services.pages import not_superseded
+    from fleet.services.selectors import not_superseded
 
     if connection.vendor != "postgresql":
         pytest.skip("a covering index is PostgreSQL's")

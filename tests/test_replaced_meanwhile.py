@@ -18,7 +18,7 @@ from django.utils.html import strip_tags
 from fleet.models import Reading
 from fleet.services.readings import ReplacedMeanwhile, capacitor_as_shown, record_reading, replace_capacitor
 from fleet.services.shown_values import SHOWN_VALUES
-from tests.factories import make_fitted_capacitor, make_motor, make_part
+from tests.factories import confirmation_of, make_fitted_capacitor, make_motor, make_part
 
 from .test_substitutes import post_replacement
 
@@ -175,7 +175,7 @@ def test_a_removed_one_chosen_and_then_confirmed_keeps_its_choice(client, techni
     asked = client.post(reverse("reading_new", args=[start.id]), typed)
     assert asked.status_code == 200 and asked.context["needs_confirmation"]
     assert f'name="removal_seen" value="{timezone.localdate().isoformat()}"' in asked.content.decode()
-    confirmed = client.post(reverse("reading_new", args=[start.id]), {**typed, "confirmed": "on"})
+    confirmed = client.post(reverse("reading_new", args=[start.id]), {**typed, **confirmation_of(asked)})
     assert confirmed.status_code == 302
     assert list(Reading.objects.values_list("fitted_capacitor_id", flat=True)) == [start.id]
 

@@ -20,6 +20,7 @@ from fleet.services.assessments import refit_fitted_capacitors
 from fleet.services.import_checks import check_readings, check_register
 from fleet.services.readings import record_reading, replace_capacitor
 from tests.factories import (
+    confirmation_of,
     make_fitted_capacitor,
     make_motor,
     make_part,
@@ -41,6 +42,13 @@ def api_for(user) -> APIClient:
 def form_post(client, fitted_capacitor, **values):
     data = {"method": "meter", "condition": "sound", **values}
     return client.post(reverse("reading_new", args=[fitted_capacitor.id]), data)
+
+
+def confirmed_post(client, fitted_capacitor, **values):
+    """The reading form sent, asked to confirm, and sent again with "Value is right: save it"."""
+    asked = form_post(client, fitted_capacitor, **values)
+    assert asked.status_code == 200
+    return form_post(client, fitted_capacitor, **values, **confirmation_of(asked))
 
 
 def import_check(rows: list[dict]):
@@ -222,7 +230,7 @@ def test_2300_volts_asks_for_confirmation_then_saves(client, technician, fan_fit
     data = {"capacitance_uf": "3.95", "capacitor_voltage_v": "2300"}
     response = form_post(client, fan_fitted_capacitor, **data)
     assert "missed decimal point" in response.content.decode() and not Reading.objects.exists()
-    response = form_post(client, fan_fitted_capacitor, **data, confirmed="on")
+    response = form_post(client, fan_fitted_capacitor, **data, **confirmation_of(response))
     assert response.status_code == 302
     assert Reading.objects.get().outlier_confirmed
 
@@ -246,7 +254,7 @@ def test_a_case_temperature_in_fahrenheit_asks_for_confirmation_everywhere(clien
     assert [(f, "°F" in m) for _, f, m in result.errors] == [("case_temperature_c", True)]
     # Within the margin, or confirmed as a hot capacitor, the value is kept.
     assert form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", case_temperature_c="79").status_code == 302
-    assert form_post(client, fan_fitted_capacitor, **hot, confirmed="on").status_code == 302
+    assert form_post(client, fan_fitted_capacitor, **hot, **confirmation_of(response)).status_code == 302
     assert sorted(Reading.objects.values_list("case_temperature_c", flat=True)) == [79.0, 100.0]
 
 
@@ -272,7 +280,7 @@ def test_a_value_far_above_the_tolerance_asks_for_confirmation_everywhere(client
     assert not Reading.objects.exists()
     # Within the margin the value is kept; confirmed, a high one is kept too.
     assert form_post(client, fan_fitted_capacitor, capacitance_uf="4.5").status_code == 302
-    assert form_post(client, fan_fitted_capacitor, capacitance_uf="4.6", confirmed="on").status_code == 302
+    assert confirmed_post(client, fan_fitted_capacitor, capacitance_uf="4.6").status_code == 302
     assert sorted(Reading.objects.values_list("capacitance_uf", flat=True)) == [4.5, 4.6]
 
 
@@ -610,7 +618,7 @@ def test_a_meter_showing_no_capacitance_is_recorded_as_an_open_capacitor_everywh
     )
     assert [(row, field) for row, field, _ in result.errors] == [(2, "capacitance_uf")]
     assert "open capacitor" in result.errors[0][2] and result.good["row"].tolist() == [3]
-    saved = form_post(client, fitted, capacitance_uf="0", esr_ohm="0.5", confirmed="on")
+    saved = confirmed_post(client, fitted, capacitance_uf="0", esr_ohm="0.5")
     assert saved.status_code == 302
     reading = Reading.objects.get(capacitance_uf=0)
     assert reading.outlier_confirmed
@@ -675,3 +683,20 @@ def test_a_reading_added_in_the_admin_is_read_in_its_sites_time(client, administ
     saved = client.post(reverse("admin:fleet_reading_add"), {**data, "taken_at_0": "2024-03-01", "taken_at_1": "09:00"})
     assert saved.status_code == 302
     assert Reading.objects.get().taken_at == dt.datetime(2024, 3, 1, 15, 0, tzinfo=dt.UTC)
+
+
+def test_a_confirmation_counts_for_the_values_it_was_asked_about_only(client, technician, fan_fitted_capacitor):
+    """An audit of inputs: asked about a case temperature of 140 °C, the capacitance was changed to 0.00395 (the
+    rating in millifarads) and "Value is right: save it" pressed: saved as confirmed, the millifarad slip never
+    asked about. [ours] the page carries a digest of the values it asked about; a confirmation sent with other
+    values is asked again, with the new question; confirmed for those, it is saved."""
+    client.force_login(technician)
+    asked = form_post(client, fan_fitted_capacitor, capacitance_uf="3.95", case_temperature_c="140")
+    assert "highest case temperature" in asked.content.decode()
+    changed = {"capacitance_uf": "0.00395", "case_temperature_c": "140"}
+    again = form_post(client, fan_fitted_capacitor, **changed, **confirmation_of(asked))
+    assert again.status_code == 200 and not Reading.objects.exists()
+    assert "looks like millifarads" in again.content.decode()
+    assert 'type="hidden" name="confirmed"' not in again.content.decode()  # the stale confirmation is not carried
+    saved = form_post(client, fan_fitted_capacitor, **changed, **confirmation_of(again))
+    assert saved.status_code == 302 and Reading.objects.get().outlier_confirmed

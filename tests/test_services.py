@@ -434,7 +434,9 @@ def test_a_level_that_changed_and_changed_back_within_the_week_has_not_changed(s
 
 def test_a_reading_with_winding_currents_refines_the_motors_circuit():
     """[derived] Currents synthesised from a known circuit at rated slip: the refined
-    circuit reproduces them, the motor is marked fitted; an entered circuit is kept."""
+    circuit reproduces them, the motor is marked fitted; an entered circuit is kept. An earlier reading whose
+    currents were typed the wrong way round and then corrected is not the one used (an audit of inputs found the
+    refinement taking the corrected reading's currents)."""
     from fleet.engineering.motor import MotorCircuit, two_winding_running
     from fleet.services.circuits import fit_circuits_from_readings
 
@@ -448,6 +450,16 @@ def test_a_reading_with_winding_currents_refines_the_motors_circuit():
     )
     fitted_capacitor = make_fitted_capacitor(motor=motor)
     main_a, aux_a = float(abs(rated.i_main)), float(abs(rated.i_aux))
+    swapped = make_reading(
+        fitted_capacitor, taken_at=START - dt.timedelta(days=31), main_current_a=aux_a, aux_current_a=main_a
+    )
+    make_reading(
+        fitted_capacitor,
+        taken_at=START - dt.timedelta(days=30),
+        main_current_a=main_a,
+        aux_current_a=aux_a,
+        supersedes=swapped,
+    )
     quarterly_readings(fitted_capacitor, START, [4.0], main_current_a=main_a, aux_current_a=aux_a)
     entered = make_fitted_capacitor(motor=make_motor(circuit_source="entered"))
     quarterly_readings(entered, START, [4.0], main_current_a=1.0, aux_current_a=0.5)

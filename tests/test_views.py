@@ -17,6 +17,7 @@ from fleet.models import Assessment, BandCalibration, FittedCapacitor, Motor, Re
 from fleet.services.assessments import refit_fitted_capacitors
 from tests.factories import (
     PASSWORD,
+    confirmation_of,
     make_fitted_capacitor,
     make_motor,
     make_part,
@@ -349,7 +350,7 @@ def test_an_off_trend_value_asks_for_confirmation_then_saves_flagged(signed_in, 
     summary = page[page.index('id="error-summary"') :].split("</div>")[0]
     assert "Value is right: save it" in summary and "far from this capacitor" in summary, summary
     assert Reading.objects.count() == 3
-    response = client.post(url, {**data, "confirmed": "on"})
+    response = client.post(url, {**data, **confirmation_of(response)})
     assert response.status_code == 302
     assert Reading.objects.filter(outlier_confirmed=True, capacitance_uf=3.3).exists()
 
@@ -364,7 +365,9 @@ def test_a_confirmed_reading_is_marked_for_the_engineer_on_the_capacitor_page(
     client = signed_in(technician)
     url = reverse("reading_new", args=[fan_fitted_capacitor.id])
     data = {"method": "meter", "condition": "sound", "confirmed": "on"}
-    assert client.post(url, {**data, "capacitance_uf": "3.3"}).status_code == 302
+    asked = client.post(url, {**data, "capacitance_uf": "3.3"})  # a confirmation sent unasked is asked again
+    assert asked.status_code == 200 and not Reading.objects.filter(capacitance_uf=3.3).exists()
+    assert client.post(url, {**data, "capacitance_uf": "3.3", **confirmation_of(asked)}).status_code == 302
     assert client.post(url, {**data, "capacitance_uf": "3.96", "client_key": "second"}).status_code == 302
     marked = dict(Reading.objects.values_list("capacitance_uf", "outlier_confirmed"))
     assert marked[3.3] is True and marked[3.96] is False

@@ -22,7 +22,7 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
-from .capacitor import capacitance_from_current, short_circuit_suspected
+from .capacitor import capacitance_from_current, dissipation_factor_from_esr, short_circuit_suspected
 from .trends import DIELECTRIC_ELECTROLYTIC, DIELECTRIC_FILM
 
 TWO_PI = 2.0 * np.pi
@@ -102,6 +102,12 @@ class ReadingRules:
     # thousands, read as 1.2 V by the decimal comma) or a supply that was off: ask to confirm (ours; a supply
     # sags by a few percent, not by half: common practice of the trade, no single source).
     line_voltage_low_share: float = 0.5
+    # The same share of the motor's voltage across the capacitor: a capacitor sees at least about the supply running
+    # (`UNDER_VOLTAGE_WORDS`), so less is a slip or the motor stopped, and the stress clock, which runs on this
+    # voltage, would slow many times (an audit: 41.2 V typed for 412 moved a crossing 44 days later; ours).
+    # An ESR at or above the capacitor's reactance (a dissipation factor of 1): no working capacitor shows it; most
+    # often milliohms typed as ohms (an audit: 850 for 0.85 Ω, 2,502 %, made the capacitor "replace now"; ours).
+    esr_confirm_dissipation_factor: float = 1.0
     # A capacitor fitted this recently, read without a trend below this share of its rating (far under any
     # tolerance class, IEC 60252-1's widest being -10 % for a run and -0 % for a start part's marked range): the
     # wrong part fitted, or misread (ours; a walk fitted a 30 µF part and read 15 µF, saved without a question).
@@ -186,6 +192,9 @@ CONFIRMATION_CASES = MappingProxyType(
         "above_tolerance": "a capacitance above the part's tolerance",
         "voltage_high": f"a capacitor or line voltage over {RULES.voltage_confirm_factor:g} times the motor's",
         "line_voltage_low": f"a line voltage under {RULES.line_voltage_low_share * 100:g} % of the motor's",
+        "capacitor_voltage_low": f"a capacitor voltage under {RULES.line_voltage_low_share * 100:g} % of the motor's",
+        "esr_high": "an ESR at or above the capacitor's own reactance (a dissipation factor of "
+        f"{RULES.esr_confirm_dissipation_factor * 100:g} % or more), as milliohms typed as ohms give",
         "new_capacitor_low": f"a capacitor fitted within {RULES.new_capacitor_days} days read under "
         f"{RULES.new_capacitor_low_share * 100:g} % of its rating",
         "case_hot": f"a case more than {RULES.case_over_rating_k:g} K above the part's highest temperature",
@@ -1312,6 +1321,41 @@ def _check_readings(
             s=supply,
         ),
         case="line_voltage_low",
+    )
+    across = values["capacitor_voltage_v"]
+    low_across = (across > 0) & (across < rules.line_voltage_low_share * supply) & ~errors.has("capacitor_voltage_v")
+    confirm.add(
+        "capacitor_voltage_v",
+        low_across,
+        _messages(
+            low_across,
+            "{v:g} V across the capacitor is under half the motor's {s:g} V, and a capacitor sees at least about the "
+            "supply with the motor running: a decimal point or a thousands separator, or was the motor stopped? "
+            "Type the running volts, or confirm the value if the meter shows it",
+            v=across,
+            s=supply,
+        ),
+        case="capacitor_voltage_low",
+    )
+    esr = values["esr_ohm"]
+    factor = dissipation_factor_from_esr(esr, values["capacitance_uf"], frequency)
+    with np.errstate(invalid="ignore"):
+        esr_high = (factor >= rules.esr_confirm_dissipation_factor) & ~errors.has("esr_ohm")
+    esr_high &= ~errors.has("capacitance_uf") & ~errors.has("capacitor_current_a")
+    confirm.add(
+        "esr_ohm",
+        esr_high,
+        _messages(
+            esr_high,
+            "{e:g} Ω gives a dissipation factor of {f:.0f} %: more resistance than the capacitor's own reactance "
+            "({x:.3g} Ω), which no working capacitor shows. In milliohms it would be {m:g} Ω: type the ohms, or "
+            "confirm the value if the meter shows ohms",
+            e=esr,
+            f=factor * 100.0,
+            x=esr / np.where(factor > 0, factor, np.nan),
+            m=esr / 1000.0,
+        ),
+        case="esr_high",
     )
 
     low_slip = ~in_circuit & ~errors.has("capacitance_uf")

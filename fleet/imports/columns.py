@@ -337,12 +337,28 @@ def finite_numbers(chunk: pd.DataFrame, names, problems: _Problems) -> dict[str,
 
 
 def repeated_in_file(problems: _Problems, keys: pd.Series, field_name: str, what: str) -> None:
-    """A key seen on an earlier row of the file: reported on the later row, naming the first."""
+    """A key seen on an earlier row of the file: reported on the later row, naming the first. Where the rows of
+    one key say different things, every one of them is refused, naming another: the file does not say which is
+    right, and with good rows only the first was imported, whichever it was (an audit of inputs)."""
     keys = keys.reset_index(drop=True)
     rows = problems.chunk["row"].reset_index(drop=True)
     repeated = keys.duplicated(keep="first") & keys.notna()
     first_row = dict(zip(keys[~repeated], rows[~repeated], strict=True))
     messages = np.array([f"{what} as row {first_row.get(k)}" for k in keys], dtype=object)
+    in_repeats = (keys.duplicated(keep=False) & keys.notna()).to_numpy()
+    if in_repeats.any():  # only these rows' texts are joined: a file without repeats costs nothing more
+        texts = problems.chunk.drop(columns="row").reset_index(drop=True)[in_repeats].astype(str)
+        said = texts.apply(lambda row: "\x1f".join(row), axis=1).str.strip().str.casefold()  # "cst" is CST
+        key_of = keys[in_repeats]
+        differ = said.groupby(key_of).transform("nunique").gt(1)
+        if differ.any():
+            second_row = dict(zip(key_of[repeated[in_repeats]], rows[in_repeats][repeated[in_repeats]], strict=False))
+            conflicting = np.zeros(len(keys), bool)
+            conflicting[np.flatnonzero(in_repeats)[differ.to_numpy()]] = True
+            for i in np.flatnonzero(conflicting):
+                other = second_row.get(keys[i]) if not repeated[i] else first_row.get(keys[i])
+                messages[i] = f"{what} as row {other}, which gives it otherwise: keep the right one of the rows"
+            repeated = repeated | pd.Series(conflicting)
     problems.add(repeated.to_numpy(), field_name, messages)
 
 

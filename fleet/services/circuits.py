@@ -7,7 +7,7 @@ import numpy as np
 from fleet.engineering.nameplate import CommissioningReadings, Nameplate, ParameterEstimate, estimate_designs
 from fleet.models import FittedCapacitor, Motor, Reading
 
-from .selectors import CIRCUIT_FIELDS
+from .selectors import CIRCUIT_FIELDS, not_superseded
 
 CIRCUIT_MODEL_FIELDS = (*CIRCUIT_FIELDS, "circuit_source")
 NAMEPLATE_FIELDS = [
@@ -78,6 +78,7 @@ def fit_circuits_from_readings(motor_ids=None, max_error_pct: float = 10.0) -> d
     keeps its nameplate estimate. Circuits entered by hand are never touched.
     """
     readings = Reading.objects.filter(
+        not_superseded(),  # a corrected reading's currents are the ones put right (an audit found them used)
         fitted_capacitor__role=FittedCapacitor.Role.RUN,
         main_current_a__isnull=False,
         aux_current_a__isnull=False,

@@ -45,7 +45,6 @@ from fleet.services.pages import (
     due_within,
     in_service_assessments,
     motors_by_reading_status,
-    not_superseded,
     overdue_before,
     position_readings,
     quarter_start,
@@ -53,6 +52,7 @@ from fleet.services.pages import (
     replace_by_until,
     risk_changes,
 )
+from fleet.services.selectors import not_superseded
 from fleet.services.substitutes import count_design_parts
 from fleet.services.workorders import replace_now_without_order
 

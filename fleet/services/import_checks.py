@@ -435,21 +435,21 @@ def check_readings(frame: pd.DataFrame, *, on_progress=None, default_tz: str = "
     # never two readings (a reading and its correction, exported and imported again, are both stored already).
     moment = good.reindex(columns=["fitted_capacitor_id", "taken_at", "method"])  # no rows left: no columns either
     corrected = links.corrected_rows(good["row"])
-    clash = moment[~corrected].duplicated(keep="first").reindex(moment.index, fill_value=False).to_numpy()
+    # Neither row is kept: the file does not say which value is right (with good rows only the first was imported).
+    clash = moment[~corrected].duplicated(keep=False).reindex(moment.index, fill_value=False).to_numpy()
     if clash.any():
-        first = good[~clash & ~corrected].set_index(["fitted_capacitor_id", "taken_at", "method"])[
-            ["row", "capacitance_uf"]
-        ]
-        earlier = first.reindex(pd.MultiIndex.from_frame(moment[clash]))
-        errors += [
-            (
-                int(row),
-                "taken_at",
-                f"row {int(first_row)} has a reading of this capacitor at the same time ({uf:g} µF): keep one of "
-                "the two rows",
-            )
-            for row, first_row, uf in zip(good["row"][clash], earlier["row"], earlier["capacitance_uf"], strict=True)
-        ]
+        clashing = good[clash]
+        for _, group in clashing.groupby(["fitted_capacitor_id", "taken_at", "method"], sort=False):
+            rows, values = group["row"].to_numpy(), group["capacitance_uf"].to_numpy(float)
+            errors += [
+                (
+                    int(row),
+                    "taken_at",
+                    f"row {int(rows[k - 1] if k else rows[1])} has a reading of this capacitor at the same time "
+                    f"({values[k - 1] if k else values[1]:g} µF): keep the right one of the rows",
+                )
+                for k, row in enumerate(rows)
+            ]
         good = good[~clash].reset_index(drop=True)
     good, unpaired = links.kept_together(good, refused={row for row, _, _ in errors})
     errors += unpaired
@@ -1184,13 +1184,10 @@ def check_register(frame: pd.DataFrame, *, on_progress=None) -> CheckResult:
     problems.add(order_given & ~whole, "route_order", "not a whole number of 0 or more", of_cell=True)
     numbers["route_order"] = pd.to_numeric(frame["route_order"].str.strip().where(whole), errors="coerce").to_numpy()
     tags = frame["asset_tag"].str.upper()
-    repeated = tags.duplicated(keep="first") & tags.ne("")
-    first_row = dict(zip(tags[~repeated], frame["row"][~repeated], strict=True))
-    problems.add(
-        repeated, "asset_tag", np.array([f"the same tag as row {first_row.get(t)}" for t in tags], dtype=object)
-    )
+    repeated_in_file(problems, tags.where(tags.ne("")), "asset_tag", "the same tag")
     already = tags.isin(existing).to_numpy() & ~problems.bad
     _refuse_changed_motors(problems, already, frame, tags, numbers)
+    _refuse_changed_capacitors(problems, already & ~problems.bad, frame, tags, dates)
     already &= ~problems.bad
     good_mask = ~problems.bad & ~already
     good = frame[good_mask].copy()
@@ -1217,6 +1214,58 @@ MOTOR_COMPARED = [
     "route_order",
     "insulation_class",
 ]
+
+
+def _refuse_changed_capacitors(problems: _Problems, already: np.ndarray, frame: pd.DataFrame, tags: pd.Series, dates):
+    """A motor stored already whose row gives a capacitor it never had: a part, a fitting day or a serial that no
+    capacitor of that motor in that role, in service or past, was stored with. A register row describes the motor
+    as it was on some day, so any capacitor it had matches; another one is a change the import would drop unsaid
+    (an audit of inputs: a new part code, fitting day or serial came back "already imported"). A replacement is
+    recorded from the capacitor's page, a past capacitor by the history import."""
+    if not already.any():
+        return
+    stored = pd.DataFrame.from_records(
+        list(
+            FittedCapacitor.objects.filter(
+                motor__asset_tag__any_of=np.array(sorted(set(tags[already])), dtype=object)
+            ).values_list("motor__asset_tag", "role", "part__code", "fitted_on", "serial")
+        ),
+        columns=["tag", "role", "part", "fitted_on", "serial"],
+    )
+    stored["tag"] = stored["tag"].str.upper()
+    stored["fitted_on"] = pd.to_datetime(stored["fitted_on"]).dt.strftime("%Y-%m-%d")
+    for role in (FittedCapacitor.Role.RUN, FittedCapacitor.Role.START):
+        part = frame[f"{role}_part_code"].reset_index(drop=True)
+        day = dates[f"{role}_fitted_on"].fillna(dates["fitted_on"]).dt.strftime("%Y-%m-%d").reset_index(drop=True)
+        serial = frame[f"{role}_serial"].str.strip().reset_index(drop=True)
+        given = already & part.ne("").to_numpy() & day.notna().to_numpy()
+        if not given.any():
+            continue
+        held = stored[stored["role"] == role]
+        keys = tags.reset_index(drop=True) + "|" + part + "|" + day.fillna("")
+        held_keys = held["tag"] + "|" + held["part"] + "|" + held["fitted_on"]
+        known = keys.isin(held_keys).to_numpy()
+        words = (
+            "motor " + frame["asset_tag"].reset_index(drop=True) + f" has had no {role} capacitor of part "
+            + part + " fitted on " + day.fillna("") + ": a replacement is recorded from the capacitor's page, a "
+            "past capacitor by the history import (an import never changes a stored motor's capacitors)"
+        )  # fmt: skip
+        problems.add(given & ~known, f"{role}_part_code", words.to_numpy(object))
+        serial_of = pd.Series(held["serial"].to_numpy(object), index=held_keys.to_numpy(object))
+        serial_of = serial_of[~serial_of.index.duplicated(keep="last")]
+        stored_serial = serial_of.reindex(keys.to_numpy(object)).fillna("").to_numpy(object)
+        other_serial = given & known & serial.ne("").to_numpy() & (serial.to_numpy(object) != stored_serial)
+        problems.add(
+            other_serial,
+            f"{role}_serial",
+            _messages(
+                other_serial,
+                "this capacitor is stored already with serial {s}, the file says {f}: an import never changes a "
+                "stored capacitor; change it in the admin, or make the file agree",
+                s=np.where(stored_serial == "", "(none)", stored_serial),
+                f=serial.to_numpy(object),
+            ),
+        )
 
 
 def _refuse_changed_motors(problems: _Problems, already: np.ndarray, frame: pd.DataFrame, tags: pd.Series, numbers):

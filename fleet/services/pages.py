@@ -49,6 +49,7 @@ from fleet.roles import scope_to_user, visible_site_ids
 
 from .assessments import _hours_since_fitting, assessment_terms, stored_alert_levels
 from .counts import in_service_counts
+from .selectors import not_superseded
 from .substitutes import count_design_parts
 
 RECENT_READINGS = 6
@@ -591,14 +592,6 @@ def replace_now_by_motor(motor_ids: list[int]) -> dict[int, list[str]]:
     for motor_id, role in rows:
         roles[motor_id].append(ROLE_NAMES[role])
     return dict(roles)
-
-
-def not_superseded() -> Exists:
-    """A reading no correction supersedes, as NOT EXISTS: PostgreSQL reads it as an anti-join probing the unique
-    index on `supersedes_id` for each reading (16 ms for a week's 10,000 readings of a 600,000-reading table),
-    where the ORM's `superseded_by__isnull=True`, a LEFT JOIN filtered on the other row's id, hashed the whole
-    table (112-169 ms)."""
-    return ~Exists(Reading.objects.filter(supersedes_id=OuterRef("pk")))
 
 
 def position_readings():

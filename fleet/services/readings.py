@@ -14,7 +14,7 @@ from django.urls import reverse
 from django.utils import timezone
 
 from fleet.audit import audited_update
-from fleet.engineering.capacitor import VERDICT_NAMES, VERDICT_OPEN, tolerance_verdict
+from fleet.engineering.capacitor import VERDICT_NAMES, tolerance_verdict
 from fleet.engineering.rules import (
     AFTER_REMOVAL,
     check_readings,
@@ -562,25 +562,6 @@ def _same_values(reading: Reading, values: dict) -> bool:
         and (values.get("condition") or Reading.Condition.SOUND) == reading.condition
         and (not taken_at or _utc64(taken_at) == _utc64(reading.taken_at))
     )
-
-
-def newest_reading_found_it_failed(fitted_capacitor: FittedCapacitor) -> bool:
-    """Whether the capacitor's newest reading (corrections in place of what they correct) saw it failed: a defect
-    seen (bulged, leaking, vented) or a value read open (`capacitor.tolerance_verdict`). Its replacement form then
-    takes no reason for granted, even from a planned order: a failure recorded as "replaced on plan" would count as
-    a capacitor still working in the life data."""
-    newest = (
-        Reading.objects.filter(fitted_capacitor=fitted_capacitor, superseded_by__isnull=True)
-        .order_by("-taken_at", "-id")
-        .values_list("condition", "capacitance_uf")
-        .first()
-    )
-    if newest is None:
-        return False
-    condition, capacitance_uf = newest
-    part = fitted_capacitor.part
-    verdict = tolerance_verdict(capacitance_uf, part.rated_uf, part.tolerance_minus_pct, part.tolerance_plus_pct)
-    return condition != Reading.Condition.SOUND or int(verdict.code[0]) == VERDICT_OPEN
 
 
 def replace_capacitor(

@@ -41,7 +41,6 @@ from fleet.services.readings import (
     capacitor_as_shown,
     measured_words,
     newest_correction,
-    newest_reading_found_it_failed,
     reading_to_correct,
     record_reading,
     replace_capacitor,
@@ -54,7 +53,7 @@ from fleet.services.register import set_route_order, set_site_stock
 from fleet.services.selectors import successor_of
 from fleet.services.shown_values import SHOWN_VALUES, read_shown
 from fleet.services.substitutes import design_part, design_parts, substitutes_for
-from fleet.services.workorders import after_reading_again_words, open_read_again_order, open_replacement_order
+from fleet.services.workorders import after_reading_again_words, open_read_again_order
 from fleet.views.register import (
     WORK_ORDER_PAGES,
     fitted_capacitor_or_404,
@@ -66,6 +65,13 @@ from fleet.views.register import (
 )
 
 
+def _asked_about(form: ReadingForm, digest: str) -> None:
+    """The page carries the values it asks to confirm (`ReadingForm.values_asked_about`): "Value is right" counts
+    for those values only."""
+    form.data = form.data.copy()
+    form.data["asked_about"] = digest
+
+
 @needs_permission("fleet.add_reading")
 @takes_parameters("corrects", "next")
 def reading_new(request, fitted_capacitor_id):
@@ -75,12 +81,18 @@ def reading_new(request, fitted_capacitor_id):
     if request.method == "POST":
         form = ReadingForm(request.POST, time_zone=zone)
         if form.is_valid():
+            # Before any error is added: a field's error takes its value out of cleaned_data.
+            asked = form.values_asked_about()
+            confirmed = bool(form.cleaned_data["confirmed"]) and form.cleaned_data["asked_about"] == asked
+            if form.cleaned_data["confirmed"] and not confirmed:  # values changed since the question: ask again
+                form.data = form.data.copy()
+                form.data.pop("confirmed", None)
             try:
                 reading = record_reading(
                     fitted_capacitor=fitted_capacitor,
                     values=form.measured_values(),
                     user=request.user,
-                    confirmed=form.cleaned_data["confirmed"],
+                    confirmed=confirmed,
                     client_key=form.cleaned_data["client_key"],
                     supersedes_id=form.cleaned_data["supersedes"],
                     shown_values=read_shown(form.cleaned_data[SHOWN_VALUES]),
@@ -89,6 +101,7 @@ def reading_new(request, fitted_capacitor_id):
             except NeedsConfirmation as error:
                 needs_confirmation = True
                 form.add_error(None, error)
+                _asked_about(form, asked)
             except OperationalError as error:
                 if not database_busy(error):
                     raise
@@ -105,6 +118,7 @@ def reading_new(request, fitted_capacitor_id):
                 if to_confirm:
                     _add_errors(form, ValidationError(to_confirm))
                     to_check = [name for name in to_confirm if name in form.fields]
+                    _asked_about(form, asked)
                 if "client_key" in error.message_dict:  # a page saved before, sent with new values: a new key
                     form.data = form.data.copy()
                     form.data["client_key"] = uuid.uuid4().hex
@@ -302,18 +316,10 @@ def replace(request, fitted_capacitor_id):
         return render(request, "fleet/replace.html", context)
     design = design_part(fitted_capacitor)
     back = page_to_return_to(request)
-    # Reached from its open replacement order (a visit sheet's or the work-orders list's "Record the
-    # replacement"), the capacitor comes out on plan, unless its newest reading found it failed; from anywhere
-    # else no reason is taken for granted.
-    planned = (
-        request.method != "POST"
-        and back is not None
-        and back.startswith(WORK_ORDER_PAGES)
-        and open_replacement_order(fitted_capacitor.id) is not None
-        and not newest_reading_found_it_failed(fitted_capacitor)
-    )
-    initial = {"removal_reason": FittedCapacitor.RemovalReason.PLANNED} if planned else None
-    form = ReplacementForm(request.POST or None, initial=initial, fitted_capacitor=fitted_capacitor, design=design)
+    # No reason is taken for granted, from a planned order either: a capacitor found failed on its visit and saved
+    # at a reason chosen for the technician counted as one still working in the life data (a walk found "Replaced
+    # on plan" ticked beside a capacitor that had failed), which makes the life estimate too long.
+    form = ReplacementForm(request.POST or None, fitted_capacitor=fitted_capacitor, design=design)
     if request.method == "POST" and not form.is_valid():
         # The service's problems with what the form did read, in the same answer (not one at a time).
         values = {name: value for name, value in form.replacement_values().items() if name != "notes"}

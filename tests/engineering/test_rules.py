@@ -356,6 +356,36 @@ def test_a_capacitance_too_small_for_two_decimals_is_written_as_typed():
     ]  # fmt: skip
 
 
+def test_a_capacitor_voltage_under_half_the_motors_asks_whether_a_decimal_point_slipped():
+    """An audit of inputs: a meter reading's running capacitor voltage of 41.2 V (for 412) on a 230 V motor was kept
+    without a question, and the stress clock that runs on it moved the capacitor's crossing 44 days later. A
+    capacitor sees at least about the supply with the motor running (common practice of the trade, no single
+    source): under half of it asks to confirm; 230 V and above is taken; confirmed, 41.2 is kept as read."""
+    result = check({"capacitance_uf": ["3.9"] * 3, "capacitor_voltage_v": ["41.2", "230", "414"]})
+    words = result.confirm["capacitor_voltage_v"]
+    assert words[0].startswith("41.2 V across the capacitor is under half the motor's 230 V")
+    assert list(words[1:]) == ["", ""] and not result.bad.any()
+    kept = check({"capacitance_uf": ["3.9"], "capacitor_voltage_v": ["41.2"]}, confirmed=True)
+    assert not kept.needs_confirmation.any() and kept.values["capacitor_voltage_v"][0] == 41.2
+
+
+def test_an_esr_above_the_capacitors_reactance_asks_whether_milliohms_were_typed_as_ohms():
+    """An audit of inputs: an ESR of 850 typed for 0.85 ohm was stored without a question, its dissipation factor
+    2,502 % put the capacitor at "replace now". The dissipation factor is ESR / Xc, Xc = 1 / (2 pi f C) (the
+    textbook definition of the loss tangent of a capacitor's series model, from memory, unverified): for 4 uF at
+    50 Hz, Xc = 795.8 ohm, worked out here apart from the code. At or above it asks to confirm, naming the
+    reactance and the value in milliohms; 0.85 ohm (a DF of 0.1 %) and 700 ohm (88 %) are taken; confirmed, kept."""
+    reactance = 1.0 / (2.0 * np.pi * 50.0 * 4e-6)
+    assert round(reactance, 1) == 795.8
+    result = check({"capacitance_uf": ["4"] * 3, "esr_ohm": ["850", "0.85", "700"]})
+    words = result.confirm["esr_ohm"]
+    assert words[0].startswith(f"850 Ω gives a dissipation factor of {850 / reactance * 100:.0f} %")
+    assert f"({reactance:.3g} Ω)" in words[0] and "In milliohms it would be 0.85 Ω" in words[0]
+    assert list(words[1:]) == ["", ""]
+    kept = check({"capacitance_uf": ["4"], "esr_ohm": ["850"]}, confirmed=True)
+    assert not kept.needs_confirmation.any() and kept.values["esr_ohm"][0] == 850.0
+
+
 def test_a_line_voltage_under_half_the_motors_asks_whether_a_thousands_separator_slipped():
     """The audit of inputs: "1,200" in the line voltage was read as 1.2 V (a decimal comma) and kept. Ours (a
     supply sags by a few percent, not by half: common practice of the trade, no single source): a line voltage
