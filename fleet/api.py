@@ -128,11 +128,23 @@ class KnownParametersOnly:
     def initial(self, request, *args, **kwargs):
         super().initial(request, *args, **kwargs)  # sign-in and permissions first
         problems = parameter_problems(request.query_params, self.known_parameters())
+        # A page that is no whole number is named with the rest at once (its range waits for the count: a walk
+        # found `page=abc` named only once the other parameters were put right).
+        page_param = getattr(self.paginator, "page_query_param", None)
+        page = query_value(request.query_params, page_param) if page_param else None
+        if page is not None and page_param not in problems and not (page.isascii() and page.isdigit() and int(page)):
+            problems[page_param] = "A whole number from 1 to the last page."
         if "format" not in problems and self.asked_format_unknown(request):
             formats = ", ".join(self.formats_answered())
             problems["format"] = f"Not a format of the API, which answers in: {formats}."
         if problems:
-            raise serializers.ValidationError({name: [words] for name, words in problems.items()})
+            refused = {name: [words] for name, words in problems.items()}
+            filterset_class = getattr(self, "filterset_class", None)
+            if filterset_class is not None:  # the filters' own problems in the same answer
+                filterset = filterset_class(request.query_params, queryset=self.get_queryset(), request=request)
+                if not filterset.is_valid():
+                    refused |= {name: list(words) for name, words in filterset.errors.items() if name not in refused}
+            raise serializers.ValidationError(refused)
 
 
 class AssessmentSerializer(serializers.ModelSerializer):

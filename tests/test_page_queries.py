@@ -405,7 +405,7 @@ def test_a_visit_sheet_lists_a_page_of_orders_and_the_spares_of_the_whole_visit(
     url = reverse("visit_sheet", args=["NORTH", day])
     first = client.get(url).content.decode()
     assert first.count("&#9744;") == 2 and f"Orders 1 to 2 of {orders}" in first and "page=2" in first
-    spares = f'<span class="nowrap">RUN-4U</span></td><td class="num" data-label="To take">{orders}</td>'
+    spares = f'<span class="nowrap">RUN-4U</span></td><td class="num" data-label="To take">{orders}<'
     assert spares in first  # spares for every order
     last = client.get(url, {"page": (orders + 1) // 2}).content.decode()
     assert last.count("&#9744;") == orders - 2 * ((orders - 1) // 2)
@@ -516,7 +516,7 @@ def test_each_work_orders_stored_walking_order_and_part_follow_its_motor_and_cap
 PLAN_ROW_TEMPLATE = """{% for a in rows %}
 <tr>
   <td data-label="Motor, capacitor"><a class="nowrap" href="{% url 'motor' a.fitted_capacitor.motor.asset_tag %}">{{ a.fitted_capacitor.motor.asset_tag }}</a><br><span class="muted">{{ a.fitted_capacitor.motor.location }}</span><br><a href="{% url 'fitted_capacitor' a.fitted_capacitor.id %}">{{ a.fitted_capacitor.get_role_display }} <span class="nowrap">{{ a.fitted_capacitor.part.code }}</span></a></td>
-  <td data-label="Risk, replace by"><span class="risk risk-{{ a.risk|slugify }}">{{ a.risk }}</span><br><span class="nowrap replace-by">{{ a.replace_by|date:"Y-m-d"|default:"-" }}</span>{% if a.low_confidence and a.risk != "replace now" %}<br><span class="muted">few readings</span>{% endif %}</td>
+  <td data-label="Risk, replace by"><span class="risk risk-{{ a.risk|slugify }}">{{ a.risk }}</span><br><span class="nowrap replace-by">{{ a.replace_by|date:"Y-m-d"|default:"-" }}</span>{% if a.read_again %}<br><span class="muted read-again-first">read again first: its trend date passed</span>{% endif %}{% if a.low_confidence and a.risk != "replace now" %}<br><span class="muted">few readings</span>{% endif %}</td>
   <td class="num" data-label="Trend at last reading (&micro;F)">{{ a.capacitance_now_uf|floatformat:2 }}</td>
   <td data-label="Limit">{{ a.limit_source }}</td>
   <td data-label="Why">{{ a.reason|default:"-"|nowrap_dates }}</td>

@@ -114,6 +114,20 @@ def test_an_empty_api_parameter_is_not_given(engineer, two_sites, address):
     assert response.status_code == 200, response.json()
 
 
+def test_every_parameter_the_api_cannot_use_is_named_in_one_answer(engineer, two_sites):
+    """A walk: `?page=abc&risk=zzz&site=999999` answered 400 naming `site` and `risk`; `page` only once they were
+    put right. [ours] a page that is no whole number is named with them, as is an unknown parameter."""
+    api = client_for(engineer)
+    answer = api.get("/api/assessments/?page=abc&risk=zzz&site=999999&risks=x")
+    assert answer.status_code == 400
+    assert set(answer.json()) == {"page", "risk", "site", "risks"}, answer.json()
+    assert answer.json()["page"] == ["A whole number from 1 to the last page."]
+    for page in ("0", "-1", "1.5", "٣"):
+        said = api.get(f"/api/assessments/?page={page}").json()
+        assert "page" in said, (page, said)
+    assert api.get("/api/assessments/?page=1").status_code == 200
+
+
 def test_an_empty_parts_list_on_the_substitutes_is_the_catalogue(engineer, two_sites):
     """Before: ?parts= answered 400 "Name at least one part code"; left out, the catalogue is judged."""
     address = reverse("api_fitted_capacitor_substitutes", args=[two_sites[0].id])

@@ -496,15 +496,51 @@ def test_a_page_of_visits_lists_each_visits_first_orders_in_walking_order_with_i
     walked = [order.motor.route_order for order in visit["orders"]]
     assert walked == sorted(walked) and walked[0] == 71 and walked[-1] == 95
     assert visit["spares"] == [
-        {"code": "RUN-A", "quantity": 20, "held": 0, "earlier": 0, "left": 0, "short": 20},
-        {"code": "RUN-B", "quantity": 10, "held": 0, "earlier": 0, "left": 0, "short": 10},
+        {
+            "code": "RUN-A",
+            "quantity": 20,
+            "read_again": 0,
+            "held": 0,
+            "earlier": 0,
+            "left": 0,
+            "short": 20,
+            "short_if_below": 20,
+        },
+        {
+            "code": "RUN-B",
+            "quantity": 10,
+            "read_again": 0,
+            "held": 0,
+            "earlier": 0,
+            "left": 0,
+            "short": 10,
+            "short_if_below": 10,
+        },
     ]
     SiteStock.objects.create(site=site, part=run, quantity=3)
     SiteStock.objects.create(site=site, part=start, quantity=12)
     SiteStock.objects.create(site=make_site(code="ELSEWHERE"), part=start, quantity=50)
     assert open_visits_page(1).object_list[0]["spares"] == [
-        {"code": "RUN-A", "quantity": 20, "held": 3, "earlier": 0, "left": 3, "short": 17},
-        {"code": "RUN-B", "quantity": 10, "held": 12, "earlier": 0, "left": 12, "short": 0},
+        {
+            "code": "RUN-A",
+            "quantity": 20,
+            "read_again": 0,
+            "held": 3,
+            "earlier": 0,
+            "left": 3,
+            "short": 17,
+            "short_if_below": 17,
+        },
+        {
+            "code": "RUN-B",
+            "quantity": 10,
+            "read_again": 0,
+            "held": 12,
+            "earlier": 0,
+            "left": 12,
+            "short": 0,
+            "short_if_below": 0,
+        },
     ]
     assert visit["planned"] == 30
 

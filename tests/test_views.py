@@ -1126,7 +1126,8 @@ def test_the_plan_lists_the_weeks_riskier_and_less_risky_capacitors_each_labelle
     body = client.get(reverse("plan"), {"days": 90}).content.decode()
     assert "3 capacitors got riskier and 1 less risky" in body
     riskier = body[body.index('id="risk-worse-heading"') : body.index('id="risk-better-heading"')]
-    less_risky = body[body.index('id="risk-better-heading"') : body.index("Capacitors to replace within")]
+    plan_heading = body.index("Capacitors to replace (or read again first) within")
+    less_risky = body[body.index('id="risk-better-heading"') : plan_heading]
     assert "Riskier: 3" in riskier and "(the first 2, soonest replacement first)" in riskier
     assert sum(tag in riskier for tag in moved["worse"]) == 2
     assert "Less risky: 1" in less_risky and "the first" not in less_risky

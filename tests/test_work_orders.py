@@ -50,6 +50,24 @@ def _due(site, replace_by, count, read_again=False):
     return capacitors
 
 
+def test_a_visits_read_again_orders_take_a_part_in_case_and_are_not_counted_short():
+    """A walk: a visit listed 12 START-143U-330 "to take, 9 short", five of the 12 for read-again orders, whose
+    capacitor is replaced only if it reads below its limit: the planner would buy parts the plan may not need.
+    [ours] they are still taken (in case), said apart, and the shortfall counts the replacements; what it would be
+    if every read-again one reads below is said beside it."""
+    site = make_site(code="RAG")
+    part = make_part(code="START-143U-330")
+    day = MONDAY + dt.timedelta(days=3)
+    _orders(site, part, day, 7)
+    for _ in range(5):
+        capacitor = make_fitted_capacitor(motor=make_motor(site=site), part=part)
+        WorkOrder.objects.create(motor=capacitor.motor, fitted_capacitor=capacitor, kind="read_again", due_on=day)
+    SiteStock.objects.create(site=site, part=part, quantity=3)
+    (spare,) = open_visit(site.id, day)["spares"]
+    assert (spare["quantity"], spare["read_again"], spare["left"]) == (12, 5, 3)
+    assert (spare["short"], spare["short_if_below"]) == (4, 9)
+
+
 def test_a_sites_stock_goes_to_its_open_visits_in_date_order():
     """The cool store held 2 run capacitors; its 12-10 visit took 6 ("4 short") and its 12-25 visit 2,
     shown as "holds 2, not short": the first visit uses the stock up. [trade] spares come from one site
@@ -67,10 +85,39 @@ def test_a_sites_stock_goes_to_its_open_visits_in_date_order():
     SiteStock.objects.create(site=elsewhere, part=run, quantity=9)
     visits = {(v["site"].code, v["day"]): v["spares"] for v in open_visits_page(1).object_list}
     assert visits[("CST", first)] == [
-        {"code": "RUN-30U-450", "quantity": 6, "held": 2, "earlier": 0, "left": 2, "short": 4},
-        {"code": "START-143U-330", "quantity": 1, "held": 3, "earlier": 0, "left": 3, "short": 0},
+        {
+            "code": "RUN-30U-450",
+            "quantity": 6,
+            "read_again": 0,
+            "held": 2,
+            "earlier": 0,
+            "left": 2,
+            "short": 4,
+            "short_if_below": 4,
+        },
+        {
+            "code": "START-143U-330",
+            "quantity": 1,
+            "read_again": 0,
+            "held": 3,
+            "earlier": 0,
+            "left": 3,
+            "short": 0,
+            "short_if_below": 0,
+        },
     ]
-    later = [{"code": "RUN-30U-450", "quantity": 2, "held": 2, "earlier": 6, "left": 0, "short": 2}]
+    later = [
+        {
+            "code": "RUN-30U-450",
+            "quantity": 2,
+            "read_again": 0,
+            "held": 2,
+            "earlier": 6,
+            "left": 0,
+            "short": 2,
+            "short_if_below": 2,
+        }
+    ]
     assert visits[("CST", second)] == later
     assert visits[("GH1", first)][0]["short"] == 0
     # The later visit alone, on its own page of visits and on its visit sheet, still counts the earlier one.
@@ -364,6 +411,18 @@ def test_the_message_after_a_read_again_reading_names_the_replacement_it_calls_f
     assert "below the tolerance limit" in replacement.reason  # why, in the plan's words
     assert said[fine.id] == " The refit judged the reading: no replacement is due within the visit."
     assert not WorkOrder.objects.filter(fitted_capacitor=fine, state="planned").exists()
+    # A walk: read for its read-again order, a capacitor was ordered for a new visit 34 days later, isolated
+    # twice. Due within the days that bundle a motor's work into one isolation (35), the message says to replace
+    # it now; due later, nothing more.
+    current = Assessment.objects.filter(fitted_capacitor=fine, is_current=True)
+    reading = Reading.objects.filter(fitted_capacitor=fine).get()
+    current.update(replace_by=timezone.localdate() + dt.timedelta(days=34))
+    assert after_reading_again_words(reading).endswith(
+        f"Its replacement falls due by {timezone.localdate() + dt.timedelta(days=34):%Y-%m-%d}, in 34 days: while it "
+        "is isolated, replacing it now saves isolating it again for another visit (record the replacement)."
+    )
+    current.update(replace_by=timezone.localdate() + dt.timedelta(days=36))
+    assert after_reading_again_words(reading) == said[fine.id]
 
 
 def test_page_titles_are_plain_text(client, planner):
@@ -1578,3 +1637,20 @@ def test_a_visit_sheet_leads_back_to_its_sites_work_orders(client, planner):
     client.force_login(planner)
     sheet = client.get(reverse("visit_sheet", args=["BKA", day.isoformat()])).content.decode()
     assert f'href="{reverse("work_orders")}?site=BKA">&larr; Work orders at BKA</a>' in sheet
+
+
+def test_a_plan_row_to_read_again_says_so_beside_its_badge(planner):
+    """A walk: "due soon" stood beside crossing dates marked "past", read as a contradiction (the rule: the trend's
+    date went by with no reading below the limit since, so the capacitor is read again first). [ours] the row says
+    "read again first" beside the badge; a row to replace does not."""
+    site = make_site(code="RAF")
+    replaced = _due(site, timezone.localdate() + dt.timedelta(days=20), 1)[0]
+    read = _due(site, timezone.localdate() + dt.timedelta(days=20), 1, read_again=True)[0]
+    client = Client()
+    client.force_login(planner)
+    page = client.get(reverse("plan")).content.decode()
+    rows = page.split("Capacitors to replace (or read again first) within", 1)[1].split("<tr>")  # the plan's table
+    (read_row,) = [row for row in rows if reverse("fitted_capacitor", args=[read.id]) in row]
+    (replaced_row,) = [row for row in rows if reverse("fitted_capacitor", args=[replaced.id]) in row]
+    assert "read again first: its trend date passed" in read_row
+    assert "read again first" not in replaced_row

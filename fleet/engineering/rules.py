@@ -1518,6 +1518,12 @@ def _future_words(future, taken, now, time_zone) -> np.ndarray:
     return out
 
 
+# Characters that make a text show otherwise than it is stored: the bidirectional overrides, embeddings and isolates
+# (Unicode 15, UAX #9) and the tag characters (U+E0000 to U+E007F); an audit of inputs stored "U+202E" in a note,
+# which reversed what the page showed after it (the "Trojan Source" pattern, CVE-2021-42574, from memory, unverified).
+HIDDEN_CHARACTERS = "[\u202a-\u202e\u2066-\u2069\U000e0000-\U000e007f]"
+
+
 def _check_notes(errors: _Collector, n, notes, rules: ReadingRules) -> None:
     series = _as_objects(notes, n)
     if _is_text_column(series):
@@ -1534,3 +1540,9 @@ def _check_notes(errors: _Collector, n, notes, rules: ReadingRules) -> None:
         _messages(too_long, "{k} characters: notes take at most {m}", k=length, m=rules.notes_max_chars),
     )
     errors.add("notes", text.str.contains("\x00", regex=False).to_numpy(bool), "contains a NUL character: remove it")
+    errors.add(
+        "notes",
+        text.str.contains(HIDDEN_CHARACTERS).to_numpy(bool),
+        "contains an invisible character that reverses or hides text (a direction override or a tag character): "
+        "the note would read otherwise than it is stored; remove it",
+    )

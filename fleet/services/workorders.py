@@ -16,6 +16,7 @@ from django.core.paginator import Paginator
 from django.db import transaction
 from django.db.models import BooleanField, Count, Exists, ExpressionWrapper, F, OuterRef, Q, Subquery, Window
 from django.db.models.functions import RowNumber
+from django.template.defaultfilters import pluralize
 from django.utils import timezone
 
 from fleet.audit import audited_bulk_create, audited_bulk_update, audited_update
@@ -908,10 +909,13 @@ def with_plan_now(orders, today: dt.date | None = None, days_off: dict | None = 
 def _spares(orders, visits) -> dict[tuple, list[dict]]:
     """Parts each visit (day, site id) of `visits` takes, counted in SQL from each order's stored part (the
     open orders' index alone), then named from the few parts, with what the site holds (`SiteStock`, one
-    query) and the shortfall: each `{"code", "quantity", "held", "earlier", "left", "short"}`. The site's
-    stock goes to its open visits in date order: `earlier` is what its earlier open visits take of the part,
-    `left` what the stock leaves for this visit, `short` what it lacks ([trade] spares are drawn from one
-    store visit after visit; our rule: the earliest visit first)."""
+    query) and the shortfall: each `{"code", "quantity", "read_again", "held", "earlier", "left", "short",
+    "short_if_below"}`. The site's stock goes to its open visits in date order: `earlier` is what its earlier open
+    visits take of the part, `left` what the stock leaves for this visit, `short` what the replacements lack
+    ([trade] spares are drawn from one store visit after visit; our rule: the earliest visit first). A read-again
+    order takes a part in case (`read_again` of `quantity`), needed only if the capacitor reads below its limit:
+    `short_if_below` is the shortfall if every one does (a walk found five read-again orders counted in a visit's
+    "9 short", a purchase the plan may not need)."""
     if not visits:
         return {}
     wanted = set(visits)
@@ -920,11 +924,14 @@ def _spares(orders, visits) -> dict[tuple, list[dict]]:
         site_id__in={site_id for _, site_id in wanted},
         due_on__lte=max(day for day, _ in wanted),
     )
-    counts, codes = Counter(), {}
-    for day, site_id, part_id, code, quantity in (
-        counted.values_list("due_on", "site_id", "part_id", "part__code").annotate(quantity=Count("id")).order_by()
+    counts, again, codes = Counter(), Counter(), {}
+    for day, site_id, part_id, code, quantity, read_again in (
+        counted.values_list("due_on", "site_id", "part_id", "part__code")
+        .annotate(quantity=Count("id"), read_again=Count("id", filter=Q(kind=WorkOrder.Kind.READ_AGAIN)))
+        .order_by()
     ):
         counts[((day, site_id), part_id)] = quantity
+        again[((day, site_id), part_id)] = read_again
         codes[part_id] = code
     # A stop-gap's replacement brings its design part (one query for the few stop-gaps, one more where any).
     stop_gaps = counted.filter(
@@ -954,14 +961,17 @@ def _spares(orders, visits) -> dict[tuple, list[dict]]:
         if (day, site_id) not in wanted:
             continue
         left = max(on_site - earlier, 0)
+        read_again = min(again[((day, site_id), part_id)], quantity)  # a stop-gap's brings its design part
         spares.setdefault((day, site_id), []).append(
             {
                 "code": code,
                 "quantity": quantity,
+                "read_again": read_again,
                 "held": on_site,
                 "earlier": earlier,
                 "left": left,
-                "short": max(quantity - left, 0),
+                "short": max(quantity - read_again - left, 0),
+                "short_if_below": max(quantity - left, 0),
             }
         )
     return spares
@@ -1245,12 +1255,36 @@ def after_reading_again_words(reading) -> str:
             f" With it the plan asks for a replacement: work order {replacement.id}, visit of "
             f"{replacement.due_on:%Y-%m-%d}. Why: {replacement.reason}."
         )
-    judged = Assessment.objects.filter(
-        fitted_capacitor_id=reading.fitted_capacitor_id, is_current=True, newest_reading_id__gte=reading.id
-    ).exists()
-    if judged:
-        return " The refit judged the reading: no replacement is due within the visit."
+    judged = (
+        Assessment.objects.filter(
+            fitted_capacitor_id=reading.fitted_capacitor_id, is_current=True, newest_reading_id__gte=reading.id
+        )
+        .values_list("id", "replace_by")
+        .first()
+    )
+    if judged is not None:
+        _, replace_by = judged
+        return " The refit judged the reading: no replacement is due within the visit." + _replace_while_isolated(
+            replace_by
+        )
     return " The refit is judging the reading: a replacement it calls for joins the visit (reload the visit sheet)."
+
+
+def _replace_while_isolated(replace_by: dt.date | None) -> str:
+    """Words for a capacitor just read whose replacement falls due soon after its visit: within the days that
+    bundle a motor's second capacitor into one isolation (`PlanningSettings.same_motor_days`), replacing it now
+    saves isolating and discharging it again for a second visit (a walk: read on a read-again order, then
+    ordered for a new visit 34 days later). [trade] a motor isolated for one job has the next due one done
+    while it is (common practice of the trade, no single source)."""
+    if replace_by is None:
+        return ""
+    days = (replace_by - timezone.localdate()).days
+    if days > PlanningSettings().same_motor_days:
+        return ""
+    return (
+        f" Its replacement falls due by {replace_by:%Y-%m-%d}, in {days} day{pluralize(days)}: while it is isolated, "
+        "replacing it now saves isolating it again for another visit (record the replacement)."
+    )
 
 
 def replace_after_reading_again(assessments, now: dt.datetime) -> int:

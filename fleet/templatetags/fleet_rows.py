@@ -23,7 +23,7 @@ register = template.Library()
 PLAN_ROW = """
 <tr>
   <td data-label="Motor, capacitor"><a class="nowrap" href="{motor_url}">{tag}</a><br><span class="muted">{location}</span><br><a href="{capacitor_url}">{role} <span class="nowrap">{part}</span></a></td>
-  <td data-label="Risk, replace by"><span class="risk risk-{risk_slug}">{risk}</span><br><span class="nowrap replace-by">{replace_by}</span>{few}</td>
+  <td data-label="Risk, replace by"><span class="risk risk-{risk_slug}">{risk}</span><br><span class="nowrap replace-by">{replace_by}</span>{again}{few}</td>
   <td class="num" data-label="Trend at last reading (&micro;F)">{capacitance}</td>
   <td data-label="Limit">{limit}</td>
   <td data-label="Why">{reason}</td>
@@ -32,6 +32,9 @@ PLAN_ROW = """
 </tr>
 """  # noqa: E501 (one line a cell, as the page's source shows it)
 FEW_READINGS = mark_safe('<br><span class="muted">few readings</span>')
+# Beside a badge whose crossing dates read "past": the trend's date has gone by, but no reading since was below the
+# limit, so the order is to read it again first (a walk read "due soon" beside past dates as a contradiction).
+READ_AGAIN_FIRST = mark_safe('<br><span class="muted read-again-first">read again first: its trend date passed</span>')
 NOTHING_DUE = mark_safe('<tr><td colspan="7">Nothing due in this window.</td></tr>')
 
 
@@ -87,6 +90,7 @@ def plan_rows(assessments):
                 replace_by=_iso(a.replace_by, "-"),
                 # A capacitor to replace now is not "forecast from similar capacitors": its evidence says why.
                 few=FEW_READINGS if a.few_readings_matter else "",
+                again=READ_AGAIN_FIRST if a.read_again else "",
                 capacitance=floatformat(a.capacitance_now_uf, 2),
                 limit=a.limit_source,
                 reason=nowrap_dates(a.reason or "-"),

@@ -528,3 +528,15 @@ def test_a_value_is_quoted_as_typed_up_to_nine_significant_digits(typed, said):
     else:
         assert quoted.startswith(f"{said} µF"), quoted
     assert plain_number(29958.577523180298) == "29958.6"
+
+
+def test_a_note_holding_a_character_that_reverses_or_hides_text_is_refused():
+    """An audit of inputs stored a right-to-left override (U+202E) in a note, which reversed what the page showed
+    after it; Unicode's bidirectional controls (UAX #9: U+202A-U+202E, U+2066-U+2069) and tag characters
+    (U+E0000-U+E007F) show text otherwise than it is stored (the "Trojan Source" pattern, CVE-2021-42574, from
+    memory, unverified). They are refused; other scripts, right-to-left ones included, are kept."""
+    notes = ["fan ok \u202egnirts", "tag \U000e0041", "isolate \u2066x\u2069", "ok", "שלום, مرحبا", "naïve 25 °C"]
+    result = check({"capacitance_uf": ["3.9"] * len(notes)}, notes=notes)
+    said = result.errors["notes"]
+    assert all("invisible character that reverses or hides text" in words for words in said[:3])
+    assert list(said[3:]) == ["", "", ""]
