@@ -153,8 +153,10 @@ def test_the_removed_capacitors_reading_form_says_so_and_leads_to_the_one_fitted
     assert heading == f"Reading: REM-0001, the run capacitor removed on {today} (out of service)"
     assert f'id="successor-reading" href="{reverse("reading_new", args=[successor.id])}"' in page
     new_heading = re.search(r"<h1>.*?</h1>", client.get(reverse("reading_new", args=[successor.id])).content.decode())
-    # The new one's heading says which it is too (a walk found it said nothing but the role after a replacement).
-    assert strip_tags(new_heading.group(0)) == f"Reading: REM-0001, run capacitor fitted {today}"
+    assert strip_tags(new_heading.group(0)) == "Reading: REM-0001, run capacitor"
+    # The new one's form says which it is (a walk found it said nothing but the role after a replacement).
+    new_page = client.get(reverse("reading_new", args=[successor.id])).content.decode()
+    assert f'id="fitted-on">Fitted <span class="nowrap">{today}</span>.</span>' in new_page
     visit = reverse("work_orders")
     page = client.get(reverse("reading_new", args=[removed.id]) + f"?next={visit}").content.decode()
     assert f'id="successor-reading" href="{reverse("reading_new", args=[successor.id])}?next=%2Fwork-orders%2F"' in page
