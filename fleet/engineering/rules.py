@@ -108,9 +108,11 @@ class ReadingRules:
     # An ESR at or above the capacitor's reactance (a dissipation factor of 1): no working capacitor shows it; most
     # often milliohms typed as ohms (an audit: 850 for 0.85 Ω, 2,502 %, made the capacitor "replace now"; ours).
     esr_confirm_dissipation_factor: float = 1.0
-    # A capacitor fitted this recently, read without a trend below this share of its rating (far under any
-    # tolerance class, IEC 60252-1's widest being -10 % for a run and -0 % for a start part's marked range): the
-    # wrong part fitted, or misread (ours; a walk fitted a 30 µF part and read 15 µF, saved without a question).
+    # A capacitor fitted this recently, read without a trend more than `above_tolerance_fraction` of its rating
+    # below its part's tolerance (IEC 60252-1's classes run to -10 % for a run part and -0 % for a start part's
+    # marked range), or where the part's tolerance is not given below this share of its rating (under the widest
+    # class): the wrong part fitted, or misread (ours; a walk fitted a 30 µF part and read 15 µF, saved without a
+    # question; an audit read a new one at 77.5 % of its rating, "replace now" at once, unasked).
     new_capacitor_days: int = 90
     new_capacitor_low_share: float = 0.75
     # Capacitor current under 5 % of the supply voltage while current flows: short circuit (trade).
@@ -195,8 +197,8 @@ CONFIRMATION_CASES = MappingProxyType(
         "capacitor_voltage_low": f"a capacitor voltage under {RULES.line_voltage_low_share * 100:g} % of the motor's",
         "esr_high": "an ESR at or above the capacitor's own reactance (a dissipation factor of "
         f"{RULES.esr_confirm_dissipation_factor * 100:g} % or more), as milliohms typed as ohms give",
-        "new_capacitor_low": f"a capacitor fitted within {RULES.new_capacitor_days} days read under "
-        f"{RULES.new_capacitor_low_share * 100:g} % of its rating",
+        "new_capacitor_low": f"a capacitor fitted within {RULES.new_capacitor_days} days read more than "
+        f"{RULES.above_tolerance_fraction * 100:g} % of its rating below its tolerance",
         "case_hot": f"a case more than {RULES.case_over_rating_k:g} K above the part's highest temperature",
         "unit_slip": "a capacitance that is the rating typed in farads or millifarads, or a tenth of it",
         "open_capacitor": "0 µF by the meter: an open capacitor, to replace now",
@@ -1157,6 +1159,7 @@ def _check_readings(
     predicted_uf=None,
     max_case_temperature_c=None,
     tolerance_plus_pct=None,
+    tolerance_minus_pct=None,
     confirmed=False,
     rules: ReadingRules = RULES,
 ) -> RuleResult:
@@ -1450,22 +1453,28 @@ def _check_readings(
     known = ~np.isnat(taken_day) & ~np.isnat(fitted_day)
     days_in = np.where(known, (taken_day - fitted_day).astype("timedelta64[D]").astype(float), np.inf)
     capacitance = values["capacitance_uf"]
+    if tolerance_minus_pct is None:
+        lowest_new = rules.new_capacitor_low_share * rated
+    else:
+        lowest_new = rated * (1.0 - _column(tolerance_minus_pct, n) / 100.0 - rules.above_tolerance_fraction)
     low_new = (
         no_trend
         & (days_in <= rules.new_capacitor_days)
         & (capacitance > 0)
-        & (capacitance < rules.new_capacitor_low_share * rated)
+        & (capacitance < lowest_new)
         & ~errors.has("capacitance_uf")
         & ~errors.has("capacitor_current_a")
         & ~errors.has("capacitor_voltage_v")
     )
     low_new_words = _messages(
         low_new,
-        "{c:.3g} µF on a capacitor fitted {d} and rated {r:g} µF: far below any new capacitor's tolerance. Is the "
-        "right part fitted (check its marking) or was it misread? Re-measure, or confirm the value if it is right",
+        "{c:.3g} µF on a capacitor fitted {d} and rated {r:g} µF: far below a new capacitor's tolerance (under "
+        "{m:.2f} µF). Is the right part fitted (check its marking) or was it misread? Re-measure, or confirm the "
+        "value if it is right",
         c=capacitance,
         d=fitted_day,
         r=rated,
+        m=np.broadcast_to(lowest_new, (n,)),
     )
     confirm.add("capacitance_uf", low_new & ~in_circuit, low_new_words, case="new_capacitor_low")
     confirm.add("capacitor_voltage_v", low_new & in_circuit, low_new_words, case="new_capacitor_low")

@@ -141,6 +141,7 @@ def check_reading(fitted_capacitor: FittedCapacitor, values: dict, *, confirmed:
         predicted_uf=trend_value_at(assessment, part.rated_uf, taken_at),
         max_case_temperature_c=part.max_case_temperature_c,
         tolerance_plus_pct=part.tolerance_plus_pct,
+        tolerance_minus_pct=part.tolerance_minus_pct,
         confirmed=confirmed,
     )
     errors = {name: _sentence(message) for name, message in result.row(0).items()}

@@ -540,3 +540,30 @@ def test_a_note_holding_a_character_that_reverses_or_hides_text_is_refused():
     said = result.errors["notes"]
     assert all("invisible character that reverses or hides text" in words for words in said[:3])
     assert list(said[3:]) == ["", "", ""]
+
+
+def test_a_new_capacitor_far_below_its_own_tolerance_class_is_asked_about():
+    """An audit of inputs: a new capacitor's first reading at 77.5 % of its rating went to "replace now" unasked;
+    only under 75 % (below every tolerance class) was asked. IEC 60252-1 marks a motor capacitor's tolerance
+    (run parts commonly +/-5 % or +/-10 %, start parts a range such as -0/+20 %; from memory, unverified). [ours]
+    a capacitor fitted within 90 days, with no trend yet, read more than 8 % of its rating below its own part's
+    lower tolerance is asked about: 4 uF +/-5 % under 3.48 uF (4 x (1 - 0.05 - 0.08)); 100 uF -0/+20 % under
+    92 uF; without the part's tolerance, under 75 % as before."""
+    fitted = np.datetime64("2026-04-20", "D")
+    taken = np.array(["2026-05-01T09:00"] * 4, "datetime64[s]")
+    run = check(
+        {"capacitance_uf": ["3.1", "3.47", "3.49", "3.9"]}, taken_at=taken, fitted_on=fitted, tolerance_minus_pct=5
+    )
+    words = run.confirm["capacitance_uf"]
+    assert [bool(w) for w in words] == [True, True, False, False]
+    assert "far below a new capacitor's tolerance (under 3.48 µF)" in words[0]
+    start = check(
+        {"capacitance_uf": ["91", "93"]},
+        taken_at=taken[:2],
+        fitted_on=fitted,
+        rated_uf=100.0,
+        tolerance_minus_pct=0,
+    )
+    assert [bool(w) for w in start.confirm["capacitance_uf"]] == [True, False]
+    unknown = check({"capacitance_uf": ["3.1", "2.9"]}, taken_at=taken[:2], fitted_on=fitted)
+    assert [bool(w) for w in unknown.confirm["capacitance_uf"]] == [False, True]
