@@ -730,3 +730,14 @@ def test_the_boxes_for_tags_and_serials_are_not_autocorrected_on_a_phone(client,
         box = re.search(rf'<input type="text" name="{name}"[^>]*>', html)
         assert box, (page, name)
         assert 'autocorrect="off"' in box.group(0) and 'spellcheck="false"' in box.group(0), (page, box.group(0))
+
+
+def test_a_hidden_value_the_page_cannot_use_is_named_in_the_summary(client, technician, madrid_fitted_capacitor):
+    """An audit of inputs: a reading form sent with a one-time key longer than any the page makes answered "Not
+    saved: 1 to put right" and named nothing (the key's field is hidden). [ours] the summary says which of the
+    page's hidden values it cannot use and to open the form again."""
+    client.force_login(technician)
+    answer = form_post(client, madrid_fitted_capacitor, capacitance_uf="3.95", client_key="k" * 65)
+    page = answer.content.decode()
+    assert answer.status_code == 200 and not Reading.objects.exists()
+    assert "The page sent a client_key it cannot use" in page and "open the form again from its link" in page
