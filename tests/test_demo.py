@@ -87,6 +87,10 @@ def test_demo_builds_once_and_a_second_run_adds_nothing(capsys, django_capture_o
     )
     result = outcome.result
     assert (result.error_rows, result.duplicates) == (0, result.total), result.errors[:3]
+    # In another installation the rows are new, and a row the rulebook asks about is refused unless confirmed: a
+    # walk found three demo readings (462-466 V across a capacitor of a 230 V motor) refused, stored unconfirmed.
+    # Every demo reading, held to the rulebook with its own confirmation, is asked nothing.
+    assert not asked_by_the_rulebook(Reading.objects.all())
 
 
 def test_the_demo_built_early_in_the_day_holds_no_reading_later_than_its_building(django_capture_on_commit_callbacks):
@@ -175,3 +179,61 @@ def test_the_system_checks_print_no_warning_on_the_embedded_default():
     out = io.StringIO()
     call_command("check", "--database", "default", stdout=out, stderr=out)  # as migrate runs them
     assert "WARNINGS" not in out.getvalue() and "no issues" in out.getvalue()
+
+
+def asked_by_the_rulebook(readings) -> dict:
+    """What the rulebook would ask about these stored readings, each with its own confirmation, held to no trend
+    (as an import into another installation holds them): {field: the first two questions}; {} for nothing."""
+    import numpy as np
+
+    from fleet.engineering.rules import check_readings
+
+    rows = list(
+        Reading.objects.values_list(
+            "capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "case_temperature_c", "method",
+            "outlier_confirmed", "taken_at", "fitted_capacitor__fitted_on", "fitted_capacitor__part__rated_uf",
+            "fitted_capacitor__part__tolerance_plus_pct", "fitted_capacitor__part__tolerance_minus_pct",
+            "fitted_capacitor__part__max_case_temperature_c", "fitted_capacitor__motor__rated_voltage_v",
+            "fitted_capacitor__motor__full_load_current_a", "fitted_capacitor__motor__frequency_hz",
+        )
+    )  # fmt: skip
+    columns = list(zip(*rows, strict=True))
+    judged = check_readings(
+        {name: list(columns[k]) for k, name in enumerate(
+            ["capacitance_uf", "capacitor_current_a", "capacitor_voltage_v", "case_temperature_c"]
+        )},
+        method=list(columns[4]),
+        confirmed=np.array(columns[5], bool),
+        taken_at=np.array([t.replace(tzinfo=None) for t in columns[6]], "datetime64[s]"),
+        fitted_on=np.array(columns[7], "datetime64[D]"),
+        removed_on=np.full(len(rows), np.datetime64("NaT"), "datetime64[D]"),
+        now=np.datetime64(timezone.now().replace(tzinfo=None), "s"),
+        rated_uf=np.array(columns[8], float),
+        tolerance_plus_pct=np.array(columns[9], float),
+        tolerance_minus_pct=np.array(columns[10], float),
+        max_case_temperature_c=np.array(columns[11], float),
+        motor_voltage_v=np.array(columns[12], float),
+        full_load_current_a=np.array(columns[13], float),
+        frequency_hz=np.array(columns[14], float),
+    )  # fmt: skip
+    return {name: [m for m in words if m][:2] for name, words in judged.confirm.items() if any(words)}
+
+
+def test_demo_readings_the_rulebook_asks_about_are_stored_confirmed():
+    """A walk moved the demo's readings to another installation: three (462-466 V across the run capacitor of a
+    230 V motor, over twice its voltage) were refused, stored unconfirmed where the form would have asked. A demo
+    motor whose capacitor sees that voltage has its readings confirmed, as its technician would have had to."""
+    import numpy as np
+
+    from fleet.services.demo import _age_capacitor_line
+    from tests.factories import make_motor, make_part
+
+    motor = make_motor(rated_voltage_v=230.0)
+    part = make_part(rated_uf=30.0, rated_voltage_v=500)
+    visits = [dt.date(2022, 1, 10) + dt.timedelta(days=91 * k) for k in range(12)]
+    readings = _age_capacitor_line(
+        motor, "run", part, dt.date(2022, 1, 3), visits, visits[0], 40.0, 470.0, np.random.default_rng(3), None
+    )
+    Reading.objects.bulk_create(readings)
+    assert any(r.capacitor_voltage_v > 460 for r in readings)
+    assert not asked_by_the_rulebook(Reading.objects.all())

@@ -1679,7 +1679,8 @@ def test_corrections_in_a_readings_file_are_held_to_one_capacitor_one_correction
 ):
     """[ours] a row's `supersedes` names another row's `id`: the same capacitor, corrected once, never itself; a
     corrected reading whose correction is refused is refused too (imported alone it would put the value corrected
-    back into the trend); a `supersedes` naming no row of the file leaves a reading of its own; a correction may
+    back into the trend); a correction naming no row of the file is refused (a walk imported one whose corrected
+    reading was stored already, from an export from a date on: both values stayed in the trend); a correction may
     move the reading's time."""
     migrate_all(tmp_path)
     before = Reading.objects.count()
@@ -1693,7 +1694,8 @@ def test_corrections_in_a_readings_file_are_held_to_one_capacitor_one_correction
     text += "7,FAN-1,run,2024-10-02 10:00,7.71,1\n"  # row 8: row 2 is corrected by row 3 already
     text += "7,FAN-1,run,2024-10-03 10:00,7.69,\n"  # row 9
     text += "8,FAN-1,run,2024-12-01 10:00,7.4,999\n"  # row 10: names no row of the file
-    text += "9,FAN-1,run,2024-12-02 10:00,7.4,x9\n"  # row 11
+    text += "9,FAN-1,run,2024-12-03 10:00,7.41,\n"  # row 11: a reading of its own
+    text += "10,FAN-1,run,2024-12-02 10:00,7.4,x9\n"  # row 12
     report = io.StringIO()
     call_command("import", "readings", str(write(tmp_path, "fixes.csv", text)), "--good-rows-only", stdout=report)
     said = report.getvalue()
@@ -1703,11 +1705,12 @@ def test_corrections_in_a_readings_file_are_held_to_one_capacitor_one_correction
     assert "row 7, supersedes: row 2 is a reading of another capacitor" in said
     assert "row 8, supersedes: row 2 is corrected by an earlier row already" in said
     assert "row 9, id: the same id as row 8" in said
-    assert "row 11, supersedes: not a whole number" in said
+    assert "row 10, supersedes: reading 999, which this row corrects, is not in this file" in said
+    assert "row 12, supersedes: not a whole number" in said
     new = Reading.objects.order_by("id")[before:]
     assert [(r.capacitance_uf, r.supersedes.capacitance_uf if r.supersedes else None) for r in new] == [
         (7.7, None),
-        (7.4, None),
+        (7.41, None),
         (7.72, 7.7),
     ]
     # A correction of a reading stored already (imported before without its correction) is refused: beside the

@@ -24,7 +24,7 @@ from fleet.engineering.drift import operating_figures
 from fleet.engineering.motor import load_kind_from_type, load_matching_rated_slip, synchronous_speed_rad_s
 from fleet.engineering.nameplate import Nameplate, estimate_parameters
 from fleet.engineering.planning import PLAN_HORIZON_DAYS
-from fleet.engineering.rules import in_circuit_capacitance_uf
+from fleet.engineering.rules import RULES, in_circuit_capacitance_uf
 from fleet.engineering.trends import TrendSettings, default_tempco_ppm_per_k
 from fleet.models import (
     Assessment,
@@ -441,6 +441,9 @@ def _age_capacitor_line(
                     case_temperature_c=case_c,
                     ambient_temperature_c=round(case_c - rng.uniform(3, 12), 1),
                     source="demo",
+                    # A voltage the rulebook asks about, confirmed as the technician would have had to: stored
+                    # unconfirmed, the demo's export came back refused from an import into another installation.
+                    outlier_confirmed=bool(film and cap_v > RULES.voltage_confirm_factor * motor.rated_voltage_v),
                 )
             )
             if fraction < 1.0 - part.tolerance_minus_pct / 100.0 - 0.01 and rng.random() < 0.6:

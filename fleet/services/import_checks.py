@@ -472,6 +472,7 @@ class _Corrections:
     corrected_by: np.ndarray
     id_problems: np.ndarray
     supersedes_problems: np.ndarray
+    named: np.ndarray  # the id each row's `supersedes` names (-1: none)
 
     def corrected_rows(self, rows: pd.Series) -> np.ndarray:
         """Per row number, whether another row of the file corrects it."""
@@ -486,14 +487,31 @@ class _Corrections:
         or not at all (a chain of corrections from its far end down); and less each correction of a row stored
         already (neither good nor `refused`): the import never changes a stored reading, and beside it the
         correction would leave the value it puts right in the trend. Returns (rows kept, their problems)."""
-        if not (self.corrects >= 0).any():  # the usual file
+        if not (self.named >= 0).any():  # the usual file
             return good.assign(corrects_row=np.full(len(good), -1, np.int64)), []
+        # A new row naming a reading that is not in the file: the reading it corrects is stored here already (an
+        # export from a date on, imported where the rest came before), or not at all; beside it, or alone, the
+        # value it puts right would stay in the trend unseen (a walk imported one so, both values then in the trend).
+        position = self._of_rows(np.arange(len(self.rows)), good["row"])
+        named = np.where(position >= 0, self.named[np.maximum(position, 0)], -1)
+        dangling = (named >= 0) & (self._of_rows(self.corrects, good["row"]) < 0)
+        problems = [
+            (
+                int(row),
+                "supersedes",
+                f"reading {int(name)}, which this row corrects, is not in this file: a correction is imported with "
+                "the reading it corrects (export the two together, from before the corrected reading's day), or, "
+                "leaving supersedes empty, as a reading of its own",
+            )
+            for row, name in zip(good["row"][dangling], named[dangling], strict=True)
+        ]
+        good = good[~dangling].reset_index(drop=True)
         corrects = self._of_rows(self.corrects, good["row"])
         corrects_row = np.where(corrects >= 0, self.rows[np.maximum(corrects, 0)], -1)
         of_stored = (
             (corrects_row >= 0) & ~np.isin(corrects_row, good["row"].to_numpy()) & ~np.isin(corrects_row, list(refused))
         )
-        problems = [
+        problems += [
             (
                 int(row),
                 "supersedes",
@@ -547,7 +565,7 @@ def _corrections_in_file(frame: pd.DataFrame, capacitor: np.ndarray) -> _Correct
     corrects = np.full(n, -1, np.int64)
     corrected_by = np.full(n, -1, np.int64)
     if not (named >= 0).any():  # the usual file: ids name nothing, and are not read
-        return _Corrections(rows, corrects, corrected_by, np.full(n, "", object), supersedes_problems)
+        return _Corrections(rows, corrects, corrected_by, np.full(n, "", object), supersedes_problems, named)
     ids, id_problems = _file_ids(frame["id"], "the reading's id from the readings export, or empty")
     given = ids >= 0
     repeated = given & pd.Series(ids).duplicated(keep=False).to_numpy()
@@ -581,7 +599,7 @@ def _corrections_in_file(frame: pd.DataFrame, capacitor: np.ndarray) -> _Correct
     corrects[itself | elsewhere | twice | looped] = -1
     valid = corrects >= 0
     corrected_by[corrects[valid]] = positions[valid]
-    return _Corrections(rows, corrects, corrected_by, id_problems, supersedes_problems)
+    return _Corrections(rows, corrects, corrected_by, id_problems, supersedes_problems, named)
 
 
 def _file_ids(texts: pd.Series, what: str) -> tuple[np.ndarray, np.ndarray]:
