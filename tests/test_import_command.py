@@ -1777,3 +1777,18 @@ def test_a_register_row_giving_a_stored_motor_a_capacitor_it_never_had_is_refuse
     assert "row 2, run_part_code: motor FAN-1 has had no run capacitor of part RUN-10 fitted on 2023-03-01" in said
     assert "row 2, run_part_code: motor FAN-1 has had no run capacitor of part RUN-8 fitted on 2023-04-01" in said
     assert "row 2, run_serial: this capacitor is stored already with serial (none), the file says B-77" in said
+
+
+def test_a_rating_of_1e308_is_refused_by_field_without_a_warning_on_the_terminal(tmp_path):
+    """An audit of inputs: `import parts` with a rating of 1e308 printed pandas' "overflow encountered in multiply"
+    above its report (rounding the value to compare it with a stored part's). [ours] the report alone, the value
+    refused at its field."""
+    import warnings
+
+    text = PARTS.splitlines()[0] + "\nX1,1e308,5,5,450,film,50,B,S2,0.002,7.5\n"
+    report = io.StringIO()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(CommandError):
+            call_command("import", "parts", str(write(tmp_path, "parts.csv", text)), "--dry-run", stdout=report)
+    assert "row 2, rated_uf: 1e+308 µF is not a rating" in report.getvalue()

@@ -1060,7 +1060,11 @@ def _comparable_column(values: pd.Series) -> np.ndarray:
     if pd.api.types.is_datetime64_any_dtype(values):
         return values.dt.strftime("%Y-%m-%d").astype(object).where(values.notna(), None).to_numpy(object)
     if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
-        numbers = values.astype(float).round(9)
+        numbers = values.astype(float)
+        # Rounded where rounding can change a value: 1e308 rounded to 9 places overflows (a warning on the
+        # command's terminal, and inf, read as nothing); a number that large has no decimals to round.
+        with np.errstate(over="ignore", invalid="ignore"):
+            numbers = numbers.where(numbers.abs() >= 1e15, numbers.round(9))
         return numbers.astype(object).where(np.isfinite(numbers), None).to_numpy(object)
     return values.map(_comparable).to_numpy(object)
 
