@@ -181,17 +181,12 @@ def _named_capacitors(
 ) -> np.ndarray:
     """The capacitor each row names in `fitted_capacitor_id` (the readings export's column; -1 where the cell
     is empty), refused at that field unless it is a whole number naming a capacitor of the row's motor and role."""
-    texts = chunk["fitted_capacitor_id"].reset_index(drop=True)
-    given = texts.ne("").to_numpy()
-    if not given.any():  # the usual file: no such column
-        return np.full(len(texts), -1, np.int64)
-    whole = texts.str.fullmatch(r"[0-9]{1,18}(?:\.0*)?")  # ASCII: other digits would be read as none given
-    problems.add(
-        given & ~whole.to_numpy(bool),
-        "fitted_capacitor_id",
-        "not a whole number: the fitted capacitor's id from the readings export, or empty",
+    ids, unread = _file_ids(
+        chunk["fitted_capacitor_id"], "the fitted capacitor's id from the readings export, or empty"
     )
-    ids = pd.to_numeric(texts.where(whole), errors="coerce").fillna(-1).astype(np.int64).to_numpy()
+    if not (ids >= 0).any() and not (unread != "").any():  # the usual file: no such column
+        return ids
+    problems.add(unread != "", "fitted_capacitor_id", unread)
     held = pd.MultiIndex.from_frame(fitted[["fitted_capacitor_id", "tag", "role"]].astype({"tag": object}))
     known = pd.MultiIndex.from_arrays([ids, tag.to_numpy(object), role.to_numpy(object)]).isin(held)
     elsewhere = (ids >= 0) & ~known
